@@ -212,7 +212,7 @@ def propose_ladder(values, grades, direction, method="auto", levels=None, min_co
         why = (
             f"{TAIL_RESULTS} results beyond the {chosen[-1]:g}th percentile"
             if method == "percentile" else "min_count"
-        )
+        ) + auto_note
         raise NotEnoughData(method, count, needed, f"{why}; {LEVELS_COMMON_PRACTICE}")
     sign = 1.0 if direction == "above" else -1.0
     if method == "spc":

@@ -206,3 +206,10 @@ def test_yaml_refuses_rounding_that_merges_limits():
         proposal_yaml(p, "r", "m", "msg", significant=4)
     rule = yaml.safe_load(proposal_yaml(p, "r", "m", "msg", significant=9))[0]
     assert list(rule["above"].values()) == [float(f"{x:.9g}") for x in p.limits]
+
+
+def test_auto_says_why_it_needs_more_data(lognormal_sample):
+    # 100 skewed results: auto picks percentiles, which need 250 for the 98th.
+    with pytest.raises(NotEnoughData, match="100 results found, at least 250 needed") as info:
+        propose_ladder(lognormal_sample[:100], LADDER, "above")
+    assert info.value.method == "percentile" and "Jarque-Bera" in str(info.value)
