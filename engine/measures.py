@@ -1,0 +1,143 @@
+"""The measures rules can read: lab values as read, and the values derived from them.
+
+Derivation is column-wise over the whole batch. A derived value is NaN whenever an
+input it needs is missing, so a rule on it is "not evaluated", never a pass.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .viscosity import viscosity_index
+
+# Input measures and their canonical unit (see units.py for the conversions).
+INPUT_MEASURES = {
+    "kv40": "mm2/s",
+    "kv100": "mm2/s",
+    "an": "mg KOH/g",
+    "bn": "mg KOH/g",
+    "oxidation": "abs/cm",
+    "nitration": "abs/cm",
+    "sulfation": "abs/cm",
+    "antiwear": "abs/cm",
+    "soot": "abs/cm",
+    "water": "ppm",
+    "oil_hours": "h",
+    "rpvot": "min",
+}
+
+# New-oil reference values: a row's own `new_<name>` wins over the lubricants table.
+REFERENCE_VALUES = ("kv40", "kv100", "an", "bn", "oxidation", "rpvot")
+
+
+@dataclass(frozen=True)
+class DerivedMeasure:
+    unit: str
+    needs: tuple[str, ...]
+    scale_of: str | None  # the input measure whose rule-set unit its limits are written in
+    meaning: str
+
+
+DERIVED_MEASURES = {
+    "kv40_change_pct": DerivedMeasure("%", ("kv40", "new_kv40"), None,
+                                      "(used - new) / new x 100, viscosity at 40 C"),
+    "kv100_change_pct": DerivedMeasure("%", ("kv100", "new_kv100"), None,
+                                       "(used - new) / new x 100, viscosity at 100 C"),
+    "an_rise": DerivedMeasure("mg KOH/g", ("an", "new_an"), None, "acid number used - new"),
+    "oxidation_rise": DerivedMeasure("abs/cm", ("oxidation", "new_oxidation"), "oxidation",
+                                     "FTIR oxidation used - new-oil reading (a subtraction reading is its own rise)"),
+    "vi": DerivedMeasure("", ("kv40", "kv100"), None, "viscosity index, ASTM D2270"),
+    "oxidation_rise_per_1000h": DerivedMeasure("abs/cm per 1000 h", ("oxidation", "new_oxidation", "oil_hours"),
+                                               "oxidation", "oxidation rise / oil hours x 1000"),
+    "an_rise_per_1000h": DerivedMeasure("mg KOH/g per 1000 h", ("an", "new_an", "oil_hours"), None,
+                                        "acid number rise / oil hours x 1000"),
+    "bn_retained_pct": DerivedMeasure("%", ("bn", "new_bn"), None, "base number / new-oil base number x 100"),
+    "rpvot_retained_pct": DerivedMeasure("%", ("rpvot", "new_rpvot"), None, "RPVOT / new-oil RPVOT x 100"),
+}
+
+# Text columns a `field:` condition may read without the rule set declaring them.
+KNOWN_FIELDS = ("sample_id", "unit_id", "class", "lubricant", "base_stock", "method", "lab", "sampled_on")
+
+METHODS = ("direct", "subtraction")
+
+# Differences of decimal lab values carry binary noise (0.22 - 0.07 = 0.15000000000000002),
+# which would make "above 0.15" fire on a value that is exactly 0.15. Round it away.
+_DECIMALS = 9
+
+
+def measure_needs(measure: str) -> tuple[str, ...]:
+    """The columns a measure is computed from (itself, for an input measure)."""
+    derived = DERIVED_MEASURES.get(measure)
+    return derived.needs if derived else (measure,)
+
+
+def unit_key(measure: str) -> str | None:
+    """The `units:` key whose unit a limit on this measure is written in, if any."""
+    derived = DERIVED_MEASURES.get(measure)
+    return derived.scale_of if derived else measure
+
+
+def _numbers(frame: pd.DataFrame, column: str) -> np.ndarray:
+    if column in frame.columns:
+        return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    return np.full(len(frame), np.nan)
+
+
+def _texts(frame: pd.DataFrame, column: str) -> pd.Series:
+    if column in frame.columns:
+        series = frame[column].astype(object)
+        return series.where(series.notna() & (series.astype(str).str.strip() != ""), None)
+    return pd.Series([None] * len(frame), index=frame.index, dtype=object)
+
+
+def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), extra_fields=()) -> pd.DataFrame:
+    """Every measure and field a rule can read, one column each, aligned with `samples`.
+
+    `lubricants` maps a lubricant code to its compiled new-oil reference. Reference columns
+    (`new_kv40`, ...) are kept in the result so "not evaluated" can say what was lacking.
+    """
+    out: dict[str, object] = {}
+    for name in list(INPUT_MEASURES) + [m for m in extra_measures if m not in INPUT_MEASURES]:
+        out[name] = _numbers(samples, name)
+
+    lubricant = _texts(samples, "lubricant")
+    for name in REFERENCE_VALUES:
+        table = {code: getattr(lub, name) for code, lub in lubricants.items() if getattr(lub, name) is not None}
+        from_table = lubricant.map(table).to_numpy(dtype=float, na_value=np.nan)
+        own = _numbers(samples, f"new_{name}")
+        out[f"new_{name}"] = np.where(np.isnan(own), from_table, own)
+
+    fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields)}
+    base_from_table = lubricant.map({code: lub.base_stock for code, lub in lubricants.items() if lub.base_stock})
+    fields["base_stock"] = fields["base_stock"].where(fields["base_stock"].notna(), base_from_table)
+    method = fields["method"].where(fields["method"].notna(), "direct").str.strip().str.lower()
+    fields["method"] = method
+
+    subtraction = (method == "subtraction").to_numpy()
+    # A subtraction reading has the new oil removed already: its reference is zero by construction.
+    out["new_oxidation"] = np.where(subtraction, 0.0, out["new_oxidation"])
+
+    hours = out["oil_hours"]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["kv40_change_pct"] = (out["kv40"] - out["new_kv40"]) / out["new_kv40"] * 100.0
+        out["kv100_change_pct"] = (out["kv100"] - out["new_kv100"]) / out["new_kv100"] * 100.0
+        out["an_rise"] = out["an"] - out["new_an"]
+        out["oxidation_rise"] = out["oxidation"] - out["new_oxidation"]
+        per_hour = np.where(hours > 0, 1000.0 / np.where(hours > 0, hours, 1.0), np.nan)
+        out["oxidation_rise_per_1000h"] = out["oxidation_rise"] * per_hour
+        out["an_rise_per_1000h"] = out["an_rise"] * per_hour
+        out["bn_retained_pct"] = out["bn"] / out["new_bn"] * 100.0
+        out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
+    for name in DERIVED_MEASURES:
+        if name != "vi":
+            values = np.round(out[name], _DECIMALS)
+            out[name] = np.where(np.isfinite(values), values, np.nan)
+    out["vi"] = viscosity_index(out["kv40"], out["kv100"])
+
+    frame = pd.DataFrame(out, index=samples.index)
+    for name, series in fields.items():
+        frame[name] = series.astype(object)
+    return frame

@@ -1,0 +1,201 @@
+"""The compiled rule set: immutable, typed, limits in canonical units, ready to evaluate.
+
+Grades are held as levels (positions on the ladder) so evaluation works on small
+integers; names come back only when results are rendered.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Union
+
+
+@dataclass(frozen=True)
+class Origin:
+    """Where a rule, caveat or clause was written: for error messages and the audit trail."""
+
+    file: str
+    line: int
+    column: int
+    path: str
+
+
+@dataclass(frozen=True)
+class MeasureTest:
+    """`{measure: M, above|below|outside|between: x}`; limit is a float or a (low, high) pair."""
+
+    measure: str
+    test: str
+    limit: Union[float, tuple]
+
+
+@dataclass(frozen=True)
+class MissingTest:
+    """`{measure: M, missing: true|false}`: always known, whatever the value."""
+
+    measure: str
+    missing: bool
+
+
+@dataclass(frozen=True)
+class FieldTest:
+    """`{field: F, in: [...]}` or `{field: F, equals: v}`, compared as text."""
+
+    field: str
+    test: str
+    values: tuple
+
+
+@dataclass(frozen=True)
+class AllOf:
+    parts: tuple
+
+
+@dataclass(frozen=True)
+class AnyOf:
+    parts: tuple
+
+
+@dataclass(frozen=True)
+class Not:
+    part: object
+
+
+Condition = Union[MeasureTest, MissingTest, FieldTest, AllOf, AnyOf, Not]
+
+
+@dataclass(frozen=True)
+class LadderRule:
+    """One measure, one limit per grade; the highest grade whose limit is crossed fires.
+
+    `steps` is ((level, limit), ...) in ascending level; a limit is a float, or a
+    (low, high) pair for `outside`.
+    """
+
+    id: str
+    measure: str
+    test: str
+    steps: tuple
+    message: str
+    source: str
+    origin: Origin = field(compare=False)
+
+    @property
+    def reads(self) -> frozenset:
+        return frozenset([self.measure])
+
+
+@dataclass(frozen=True)
+class ConditionRule:
+    """A `when` condition and the grade it gives."""
+
+    id: str
+    when: Condition
+    level: int
+    message: str
+    source: str
+    origin: Origin = field(compare=False)
+
+    @property
+    def reads(self) -> frozenset:
+        return frozenset(condition_measures(self.when))
+
+
+Rule = Union[LadderRule, ConditionRule]
+
+
+@dataclass(frozen=True)
+class Cap:
+    """Limits what rules reading `measures` can contribute, unless `unless` holds."""
+
+    measures: frozenset
+    level: int
+    unless: Condition | None
+
+
+@dataclass(frozen=True)
+class Caveat:
+    id: str
+    when: Condition
+    cap: Cap | None
+    message: str
+    source: str
+    origin: Origin = field(compare=False)
+
+
+@dataclass(frozen=True)
+class Lubricant:
+    """New-oil reference values of one lubricant, in canonical units."""
+
+    code: str
+    base_stock: str | None = None
+    iso_vg: float | None = None
+    kv40: float | None = None
+    kv100: float | None = None
+    an: float | None = None
+    bn: float | None = None
+    oxidation: float | None = None
+    rpvot: float | None = None
+    reference_spectrum: str | None = None
+    description: str | None = None
+
+
+@dataclass(frozen=True)
+class Example:
+    """A sample written inside the rule set and what must come of it (checked by `check`)."""
+
+    name: str
+    sample: dict
+    expect: dict
+    origin: Origin = field(compare=False)
+
+
+@dataclass(frozen=True)
+class RuleSet:
+    """A resolved, validated rule set, and the fingerprint of its canonical form."""
+
+    id: str
+    version: object
+    title: str
+    grades: tuple
+    notice: str
+    lubricants: dict
+    classes: dict  # class name -> tuple of the class's own rules
+    rules: tuple  # top-level rules: they apply to every class the rule set knows
+    caveats: tuple
+    measures: tuple  # measures declared by the rule set beyond the built-in ones
+    fields: tuple
+    files: tuple
+    canonical: str = field(repr=False)
+    sha256: str = ""
+    examples: tuple = ()
+
+    def level_of(self, grade: str) -> int:
+        return self.grades.index(grade)
+
+    def rules_for(self, class_name: str) -> tuple:
+        """A class's rules: its own, then the top-level ones it does not override by id."""
+        own = self.classes.get(class_name, ())
+        taken = {rule.id for rule in own}
+        return own + tuple(rule for rule in self.rules if rule.id not in taken)
+
+
+def condition_measures(condition) -> list[str]:
+    """Every measure a condition reads, in the order written."""
+    if isinstance(condition, (MeasureTest, MissingTest)):
+        return [condition.measure]
+    if isinstance(condition, (AllOf, AnyOf)):
+        return [m for part in condition.parts for m in condition_measures(part)]
+    if isinstance(condition, Not):
+        return condition_measures(condition.part)
+    return []
+
+
+def condition_fields(condition) -> list[str]:
+    if isinstance(condition, FieldTest):
+        return [condition.field]
+    if isinstance(condition, (AllOf, AnyOf)):
+        return [f for part in condition.parts for f in condition_fields(part)]
+    if isinstance(condition, Not):
+        return condition_fields(condition.part)
+    return []
