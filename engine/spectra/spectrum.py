@@ -1,0 +1,120 @@
+"""The in-memory spectrum every reader returns, the error they raise, and unit conversions.
+
+Readers convert at the edge: whatever the file's abscissa (1/CM, micrometres,
+nanometres) and ordinate (absorbance, transmittance as fraction or percent),
+a Spectrum holds ascending wavenumbers in cm-1 and absorbance as measured,
+so the band code downstream never sees units.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+MICROMETRES_PER_CM1 = 1.0e4  # wavelength in um = 10 000 / wavenumber in cm-1 (ftir.md, confirmed)
+NANOMETRES_PER_CM1 = 1.0e7  # wavelength in nm = 10 000 000 / wavenumber in cm-1
+
+
+class SpectrumError(ValueError):
+    """A spectrum file that cannot be used: names the file, the line (if known) and why."""
+
+    def __init__(self, source: str, line: int | None, reason: str):
+        self.source = source
+        self.line = line
+        self.reason = reason
+        where = f"{source}:{line}" if line is not None else source
+        super().__init__(f"{where}: {reason}")
+
+
+@dataclass(frozen=True)
+class Spectrum:
+    """One infrared spectrum: ascending wavenumbers (cm-1) and absorbance as measured.
+
+    `range_line` is the file line that declares or holds the abscissa range,
+    so an error about coverage can point at it. `notes` records conversions
+    made on reading (e.g. percent transmittance to absorbance).
+    """
+
+    source: str
+    wavenumber: np.ndarray
+    absorbance: np.ndarray
+    x_units: str
+    y_units: str
+    range_line: int | None = None
+    notes: tuple[str, ...] = field(default=())
+
+    def __post_init__(self):
+        for array in (self.wavenumber, self.absorbance):
+            array.flags.writeable = False
+
+
+def wavenumber_from_micrometres(wavelength_um):
+    """cm-1 from um: 2.5 um is 4000 cm-1, 25 um is 400 cm-1."""
+    return MICROMETRES_PER_CM1 / np.asarray(wavelength_um, dtype=float)
+
+
+def micrometres_from_wavenumber(wavenumber_cm1):
+    return MICROMETRES_PER_CM1 / np.asarray(wavenumber_cm1, dtype=float)
+
+
+def wavenumber_from_nanometres(wavelength_nm):
+    return NANOMETRES_PER_CM1 / np.asarray(wavelength_nm, dtype=float)
+
+
+def nanometres_from_wavenumber(wavenumber_cm1):
+    return NANOMETRES_PER_CM1 / np.asarray(wavenumber_cm1, dtype=float)
+
+
+def absorbance_from_transmittance(transmittance, percent: bool):
+    """A = -log10(T); T <= 0 has no absorbance and becomes NaN (flagged when a band needs it)."""
+    t = np.asarray(transmittance, dtype=float)
+    if percent:
+        t = t / 100.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(t > 0, -np.log10(np.where(t > 0, t, 1.0)), np.nan)
+
+
+def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=()):
+    """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity."""
+    unit = _x_unit_kind(source, x_units, range_line)
+    x = np.asarray(x, dtype=float)
+    if unit == "um":
+        x = wavenumber_from_micrometres(x)
+    elif unit == "nm":
+        x = wavenumber_from_nanometres(x)
+    y_kind, percent_label = _y_unit_kind(source, y_units)
+    y = np.asarray(y, dtype=float)
+    notes = list(notes)
+    if y_kind == "T":
+        finite = y[np.isfinite(y)]
+        percent = percent_label or (finite.size > 0 and finite.max() > 1.5)
+        if percent and not percent_label:
+            notes.append("transmittance above 1.5 read as percent")
+        notes.append("absorbance = -log10(transmittance)")
+        y = absorbance_from_transmittance(y, percent)
+    if x.size >= 2 and x[0] > x[-1]:
+        x, y = x[::-1], y[::-1]
+    if x.size < 2 or not np.all(np.diff(x) > 0):
+        raise SpectrumError(source, range_line, "abscissa is not strictly monotonic (or has fewer than 2 points)")
+    return Spectrum(source, np.ascontiguousarray(x), np.ascontiguousarray(y), x_units, y_units, range_line, tuple(notes))
+
+
+def _x_unit_kind(source, text, line):
+    key = text.upper().replace(" ", "")
+    if key in {"1/CM", "CM-1", "CM^-1", "CM**-1", "WAVENUMBERS", "WAVENUMBER", "1/CM-1", "CM-1(WAVENUMBER)"}:
+        return "cm1"
+    if key in {"MICROMETERS", "MICROMETRES", "MICRONS", "UM", "MICROMETER", "MICROMETRE"}:
+        return "um"
+    if key in {"NANOMETERS", "NANOMETRES", "NM", "NANOMETER", "NANOMETRE"}:
+        return "nm"
+    raise SpectrumError(source, line, f"x units {text!r} are not 1/CM, MICROMETERS or NANOMETERS")
+
+
+def _y_unit_kind(source, text):
+    key = text.upper().replace(" ", "")
+    if "ABSORBANCE" in key:
+        return "A", False
+    if "TRANSMITTANCE" in key or key in {"%T", "T"}:
+        return "T", "%" in key or "PERCENT" in key
+    raise SpectrumError(source, None, f"y units {text!r} are not ABSORBANCE or TRANSMITTANCE")
