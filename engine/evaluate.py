@@ -1,0 +1,190 @@
+"""Evaluate a compiled rule set over a batch of derived measures, as array operations.
+
+No I/O and no per-row Python: each rule is a few numpy comparisons over the rows of
+its class. Conditions use three-valued logic (true, false, unknown) so a missing
+value is never a pass: a rule whose outcome depends on a missing value is "not
+evaluated". The outcome is columnar (one small integer per sample and rule); results
+are read from it afterwards.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .ruleset import (AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest, Not,
+                      RuleSet)
+
+# Outcome codes in the per-rule matrices; 0 and above are ladder levels.
+NOT_APPLICABLE = -2  # the rule is not one of this sample's class
+NOT_EVALUATED = -1  # a value the rule needs is missing
+
+
+def _outside(values, limit):
+    if isinstance(limit, tuple):
+        return (values < limit[0]) | (values > limit[1])
+    return np.abs(values) > limit
+
+
+# The tests a rule can apply to a measure: one line of numpy each. NaN compares false.
+TESTS = {
+    "above": lambda values, limit: values > limit,
+    "below": lambda values, limit: values < limit,
+    "outside": _outside,
+    "between": lambda values, limit: (values >= limit[0]) & (values <= limit[1]),
+}
+
+
+@dataclass(frozen=True)
+class Slot:
+    """One rule as applied to one class: a column of the outcome matrices."""
+
+    class_name: str
+    rule: object
+
+
+@dataclass(frozen=True)
+class Outcome:
+    """What evaluation found, as arrays aligned with the measured frame's rows.
+
+    `raw` and `final` are int8 [rows, slots]: NOT_APPLICABLE, NOT_EVALUATED, or the
+    level the rule gave (0 when it did not fire); `final` is after caps. `leaves`
+    maps a slot index to the (truth, known) arrays of its condition's leaf tests.
+    `level` is the sample's grade level, -1 for unrated.
+    """
+
+    slots: tuple
+    raw: np.ndarray
+    final: np.ndarray
+    caveats: np.ndarray
+    leaves: dict
+    level: np.ndarray
+    known_class: np.ndarray
+
+
+class _Columns:
+    """Column access for one class's rows, each column sliced once."""
+
+    def __init__(self, measured: pd.DataFrame, rows: np.ndarray):
+        self.measured = measured
+        self.rows = rows
+        self.cache: dict = {}
+
+    def number(self, name: str) -> np.ndarray:
+        if name not in self.cache:
+            if name in self.measured.columns:
+                self.cache[name] = self.measured[name].to_numpy(dtype=float, na_value=np.nan)[self.rows]
+            else:
+                self.cache[name] = np.full(len(self.rows), np.nan)
+        return self.cache[name]
+
+    def text(self, name: str) -> np.ndarray:
+        key = ("text", name)
+        if key not in self.cache:
+            if name in self.measured.columns:
+                column = self.measured[name].to_numpy(dtype=object)[self.rows]
+            else:
+                column = np.full(len(self.rows), None, dtype=object)
+            self.cache[key] = column
+        return self.cache[key]
+
+    def folded(self, name: str) -> tuple[np.ndarray, np.ndarray]:
+        key = ("folded", name)
+        if key not in self.cache:
+            column = pd.Series(self.text(name), dtype=object)
+            known = column.notna().to_numpy()
+            self.cache[key] = (column.astype(str).str.strip().str.casefold().to_numpy(dtype=object), known)
+        return self.cache[key]
+
+
+def condition_truth(condition, columns: _Columns, leaves: list | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """(truth, known) of a condition; `leaves` collects each leaf test's (truth, known) in order."""
+    if isinstance(condition, MeasureTest):
+        values = columns.number(condition.measure)
+        known = ~np.isnan(values)
+        truth = TESTS[condition.test](values, condition.limit) & known
+    elif isinstance(condition, MissingTest):
+        missing = np.isnan(columns.number(condition.measure))
+        truth = missing if condition.missing else ~missing
+        known = np.ones(len(truth), dtype=bool)
+    elif isinstance(condition, FieldTest):
+        folded, known = columns.folded(condition.field)
+        wanted = [v.strip().casefold() for v in condition.values]
+        truth = np.isin(folded, wanted) & known
+    elif isinstance(condition, AllOf):
+        parts = [condition_truth(p, columns, leaves) for p in condition.parts]
+        any_false = np.logical_or.reduce([k & ~t for t, k in parts])
+        all_true = np.logical_and.reduce([t for t, _ in parts])
+        return all_true, all_true | any_false
+    elif isinstance(condition, AnyOf):
+        parts = [condition_truth(p, columns, leaves) for p in condition.parts]
+        any_true = np.logical_or.reduce([t for t, _ in parts])
+        all_false = np.logical_and.reduce([k & ~t for t, k in parts])
+        return any_true, any_true | all_false
+    else:  # Not
+        truth, known = condition_truth(condition.part, columns, leaves)
+        return ~truth & known, known
+    if leaves is not None:
+        leaves.append((truth, known))
+    return truth, known
+
+
+def _ladder_levels(rule: LadderRule, columns: _Columns) -> np.ndarray:
+    values = columns.number(rule.measure)
+    levels = np.zeros(len(values), dtype=np.int8)
+    for level, limit in rule.steps:
+        levels[TESTS[rule.test](values, limit)] = level
+    levels[np.isnan(values)] = NOT_EVALUATED
+    return levels
+
+
+def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
+    """Grade every row of `measured` (the output of derive_measures) under `ruleset`."""
+    n = len(measured)
+    classes = measured["class"].to_numpy(dtype=object) if n else np.empty(0, dtype=object)
+    slots = tuple(Slot(name, rule) for name in ruleset.classes for rule in ruleset.rules_for(name))
+    raw = np.full((n, len(slots)), NOT_APPLICABLE, dtype=np.int8)
+    leaves: dict = {}
+    known_class = np.zeros(n, dtype=bool)
+
+    start = 0
+    for name in ruleset.classes:
+        rules = ruleset.rules_for(name)
+        rows = np.flatnonzero(classes == name)
+        known_class[rows] = True
+        columns = _Columns(measured, rows)
+        for offset, rule in enumerate(rules):
+            j = start + offset
+            if isinstance(rule, LadderRule):
+                raw[rows, j] = _ladder_levels(rule, columns)
+            else:
+                found: list = []
+                truth, known = condition_truth(rule.when, columns, found)
+                levels = np.where(truth, rule.level, 0).astype(np.int8)
+                levels[~known] = NOT_EVALUATED
+                raw[rows, j] = levels
+                leaves[j] = (rows, found)
+        start += len(rules)
+
+    everyone = _Columns(measured, np.arange(n))
+    caveats = np.zeros((n, len(ruleset.caveats)), dtype=bool)
+    final = raw.copy()
+    for k, caveat in enumerate(ruleset.caveats):
+        truth, _ = condition_truth(caveat.when, everyone)
+        caveats[:, k] = truth
+        if caveat.cap is None:
+            continue
+        capping = truth
+        if caveat.cap.unless is not None:
+            lifted, _ = condition_truth(caveat.cap.unless, everyone)
+            capping = truth & ~lifted
+        for j, slot in enumerate(slots):
+            if slot.rule.reads & caveat.cap.measures:
+                column = final[:, j]
+                column[capping & (column > caveat.cap.level)] = caveat.cap.level
+
+    level = final.max(axis=1, initial=NOT_APPLICABLE) if len(slots) else np.full(n, NOT_APPLICABLE)
+    level = np.where(level >= 0, level, -1).astype(np.int8)
+    return Outcome(slots, raw, final, caveats, leaves, level, known_class)

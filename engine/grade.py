@@ -1,0 +1,25 @@
+"""The grading pipeline as one call: samples in, a graded batch out. The public API's core."""
+
+from __future__ import annotations
+
+import pandas as pd
+
+from .evaluate import evaluate
+from .measures import derive_measures
+from .results import GradedBatch
+from .ruleset import RuleSet
+from .samples import ColumnMap, SampleBatch, validate_samples
+
+
+def grade_batch(batch: SampleBatch, ruleset: RuleSet) -> GradedBatch:
+    """Derive measures for the accepted rows and evaluate the rule set over them."""
+    measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
+    outcome = evaluate(ruleset, measured)
+    return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source)
+
+
+def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:
+    """Grade a DataFrame (or an already-read SampleBatch); bad rows come back as rejects."""
+    if isinstance(samples, pd.DataFrame):
+        samples = validate_samples(samples, [], "<DataFrame>", columns or ColumnMap(), ruleset.measures)
+    return grade_batch(samples, ruleset)

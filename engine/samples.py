@@ -1,0 +1,236 @@
+"""Read lab results (CSV or JSON Lines), rename and convert their columns, set bad rows aside.
+
+Every row read ends up in one of two places here: accepted into the frame (indexed by
+its 1-based data row) or rejected with its row, field and reason. Nothing is dropped
+silently; a file that cannot be read at all is an InputError instead.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import re
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .measures import INPUT_MEASURES, REFERENCE_VALUES
+from .problems import InputError, InvalidFile
+from .units import UNIT_FAMILY, factor_to_canonical, known_units
+from .yaml_source import load_yaml
+
+REQUIRED_COLUMNS = ("sample_id", "class")
+
+NUMERIC_COLUMNS = tuple(INPUT_MEASURES) + tuple(f"new_{name}" for name in REFERENCE_VALUES)
+
+# Values that cannot be negative; viscosities cannot be zero either.
+_NOT_NEGATIVE = {"an", "bn", "water", "oil_hours", "rpvot", "new_an", "new_bn", "new_rpvot"}
+_POSITIVE = {"kv40", "kv100", "new_kv40", "new_kv100"}
+
+
+@dataclass(frozen=True)
+class Reject:
+    """A row that was not graded, and why. `row` is the 1-based data row (header excluded)."""
+
+    row: int
+    sample_id: str | None
+    field: str
+    reason: str
+
+
+@dataclass(frozen=True)
+class ColumnMap:
+    """A lab's column names and units, mapped onto the engine's names (measure -> column)."""
+
+    columns: dict = field(default_factory=dict)
+    units: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class SampleBatch:
+    """Accepted rows (index: data row), the rejects, and how many rows were read in all."""
+
+    frame: pd.DataFrame
+    rejects: tuple
+    rows_read: int
+    source: str
+
+    @property
+    def rejected_rows(self) -> int:
+        return len({r.row for r in self.rejects})
+
+
+def load_column_map(path) -> ColumnMap:
+    """Read a column map: `measure: "Lab column"` or `measure: {column: "...", unit: "..."}`."""
+    doc = load_yaml(Path(path))
+    problems = []
+    if not isinstance(doc.data, dict):
+        raise InvalidFile([doc.problem((), "a column map must be a mapping of measure names to columns")])
+    columns, units = {}, {}
+    for name, spec in doc.data.items():
+        if isinstance(spec, str):
+            columns[name] = spec
+            continue
+        if not isinstance(spec, dict) or set(spec) - {"column", "unit"} or not spec:
+            problems.append(doc.problem((name,), f"'{name}' must map to a column name, or to "
+                                                 f"{{column: ..., unit: ...}}"))
+            continue
+        if "column" in spec:
+            if not isinstance(spec["column"], str) or not spec["column"]:
+                problems.append(doc.problem((name, "column"), "the column name must be text"))
+                continue
+            columns[name] = spec["column"]
+        if "unit" in spec:
+            family = UNIT_FAMILY.get(name)
+            if family is None:
+                problems.append(doc.problem((name, "unit"), f"'{name}' has one fixed unit; units can be declared "
+                                                            f"for: {', '.join(sorted(UNIT_FAMILY))}"))
+            elif spec["unit"] not in known_units(family):
+                problems.append(doc.problem((name, "unit"), f"unknown unit {spec['unit']!r} for {name}; expected "
+                                                            f"one of: {', '.join(known_units(family))}"))
+            else:
+                units[name] = spec["unit"]
+    if problems:
+        raise InvalidFile(problems)
+    return ColumnMap(columns, units)
+
+
+_SKIPPED = re.compile(r"Skipping line (\d+): (.*)")
+
+
+def _read_csv(text: str) -> tuple[pd.DataFrame, list[tuple[int, str]]]:
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, on_bad_lines="warn",
+                                skipinitialspace=True)
+        except pd.errors.EmptyDataError:
+            raise InputError("the file is empty: expected a header row and data rows") from None
+        except pd.errors.ParserError as exc:
+            raise InputError(f"cannot read it as CSV: {exc}") from None
+    skipped = []
+    for warning in caught:
+        for line, why in _SKIPPED.findall(str(warning.message)):
+            skipped.append((int(line) - 1, f"cannot be read: {why.strip()}"))
+    return frame, skipped
+
+
+def _read_jsonl(text: str) -> tuple[pd.DataFrame, list[tuple[int, str]]]:
+    records, skipped, rows = [], [], []
+    row = 0
+    for line in text.splitlines():
+        if not line.strip():
+            continue
+        row += 1
+        try:
+            record = json.loads(line)
+        except json.JSONDecodeError as exc:
+            skipped.append((row, f"not valid JSON: {exc.msg} at column {exc.colno}"))
+            continue
+        if not isinstance(record, dict):
+            skipped.append((row, "each line must be a JSON object"))
+            continue
+        records.append({k: ("" if v is None else v) for k, v in record.items()})
+        rows.append(row)
+    if row == 0:
+        raise InputError("the file is empty: expected one JSON object a line")
+    frame = pd.DataFrame.from_records(records) if records else pd.DataFrame()
+    frame = frame.astype(object).where(frame.notna(), "") if len(frame) else frame
+    frame.attrs["rows"] = rows
+    return frame, skipped
+
+
+def read_samples(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
+                 numeric: tuple = ()) -> SampleBatch:
+    """Read samples from a path or a text stream; `fmt` is csv or jsonl (guessed from the name).
+
+    `numeric` names extra numeric columns (measures a rule set declares).
+    """
+    if isinstance(source, (str, Path)):
+        name = name or str(source)
+        try:
+            text = Path(source).read_text(encoding="utf-8-sig")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise InputError(f"{name}: cannot read the file: {exc}") from None
+    else:
+        name = name or "<stdin>"
+        text = source.read()
+    fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
+    try:
+        raw, skipped = _read_jsonl(text) if fmt == "jsonl" else _read_csv(text)
+    except InputError as exc:
+        raise InputError(f"{name}: {exc}") from None
+    return validate_samples(raw, skipped, name, columns or ColumnMap(), numeric)
+
+
+def _row_numbers(raw: pd.DataFrame, skipped: list[tuple[int, str]]) -> np.ndarray:
+    if "rows" in raw.attrs:
+        return np.asarray(raw.attrs["rows"], dtype=np.int64)
+    skipped_rows = {row for row, _ in skipped}
+    total = len(raw) + len(skipped_rows)
+    return np.asarray([r for r in range(1, total + 1) if r not in skipped_rows][: len(raw)], dtype=np.int64)
+
+
+def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: str, columns: ColumnMap,
+                     numeric: tuple = ()) -> SampleBatch:
+    """Rename, convert and check rows; pure apart from its arguments."""
+    rows = _row_numbers(raw, skipped)
+    raw = raw.astype(object).where(raw.notna(), "")
+    raw.columns = [str(c).strip() for c in raw.columns]
+    renames = {}
+    for measure, column in columns.columns.items():
+        if column not in raw.columns:
+            raise InputError(f"{name}: the column map names column '{column}' for {measure}, but the file has "
+                             f"no such column (it has: {', '.join(raw.columns)})")
+        renames[column] = measure
+    raw = raw.rename(columns=renames)
+    missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
+    if missing:
+        raise InputError(f"{name}: missing required column(s) {', '.join(missing)}; the file has: "
+                         f"{', '.join(raw.columns) or 'no columns'}")
+    raw.index = pd.Index(rows, name="row")
+
+    rejects: list[Reject] = [Reject(row, None, "(row)", why) for row, why in skipped]
+    sample_id = raw["sample_id"].astype(str).str.strip()
+    raw["sample_id"] = sample_id
+    bad = pd.Series(False, index=raw.index)
+
+    def reject(mask: pd.Series, field_name: str, reasons) -> None:
+        nonlocal bad
+        if not mask.any():
+            return
+        for row, sid, why in zip(raw.index[mask], sample_id[mask], np.broadcast_to(reasons, len(raw))[mask]):
+            rejects.append(Reject(int(row), sid or None, field_name, str(why)))
+        bad |= mask
+
+    reject(sample_id == "", "sample_id", "no sample id: every row needs one")
+    has_id = sample_id != ""
+    dup = sample_id.duplicated(keep="first") & has_id
+    if dup.any():
+        first_row = pd.Series(raw.index, index=raw.index).groupby(sample_id.to_numpy()).transform("first")
+        reject(dup, "sample_id", "sample id '" + sample_id + "' already seen at row " + first_row.astype(str))
+
+    numeric_names = [c for c in raw.columns if c in NUMERIC_COLUMNS or c in numeric]
+    for column in numeric_names:
+        text = raw[column].astype(str).str.strip()
+        is_bool = raw[column].map(lambda v: isinstance(v, bool)).astype(bool)
+        values = pd.to_numeric(text.where(~is_bool, "x"), errors="coerce")
+        not_a_number = (text != "") & values.isna()
+        reject(not_a_number, column, "expected a number, found '" + text + "'")
+        if column in _POSITIVE:
+            reject(values <= 0, column, "must be above 0, found " + text)
+        elif column in _NOT_NEGATIVE:
+            reject(values < 0, column, "cannot be negative, found " + text)
+        if column in columns.units:
+            values = values * factor_to_canonical(UNIT_FAMILY[column], columns.units[column])
+        raw[column] = values.astype(float)
+    for column in raw.columns:
+        if column not in numeric_names:
+            raw[column] = raw[column].astype(str).str.strip().replace("", None).astype(object)
+
+    rejects.sort(key=lambda r: (r.row, r.field))
+    accepted = raw[~bad]
+    return SampleBatch(accepted, tuple(rejects), len(raw) + len({r for r, _ in skipped}), name)
