@@ -94,7 +94,7 @@ def parse_jcampdx(text: str, source: str) -> Spectrum:
     block_start = match.end() + 1
     block_end = text.find("\n##", match.end())
     if block_end < 0:
-        last_line = text.count("\n") + 1
+        last_line = text.rstrip("\n").count("\n") + 1
         raise SpectrumError(source, last_line, "file ends without ##END=")
     block = text[block_start:block_end]
     _check_trailer(text[block_end + 1 :], source, data_line + block.count("\n") + 1)
@@ -167,7 +167,7 @@ def _check_trailer(trailer, source, first_line):
             label = stripped[2:].partition("=")[0].strip().upper()
             if label in ("XYDATA", "XYPOINTS", "TITLE", "PEAKTABLE"):
                 raise SpectrumError(source, first_line + offset, f"a second ##{label}= block: only single spectra are read")
-    raise SpectrumError(source, first_line + trailer.count("\n"), "file ends without ##END=")
+    raise SpectrumError(source, first_line + trailer.rstrip("\n").count("\n"), "file ends without ##END=")
 
 
 def _read_xydata(block, ctx):

@@ -1,0 +1,1 @@
+"""FTIR spectra: read JCAMP-DX and CSV spectra, measure oil-condition bands, infer ester base stocks."""

@@ -1,0 +1,198 @@
+"""Synthetic oil spectra with bands of known area, and a JCAMP-DX writer.
+
+For tests, the benchmark and the demo scenario: every band is a Gaussian or
+Lorentzian of given area, so a measured area can be checked in closed form.
+The band set below is invented for the demo (positions follow common IR
+correlation values, strengths are made up); it is not a measured oil.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+SQZ_POSITIVE = "@ABCDEFGHI"
+SQZ_NEGATIVE = "@abcdefghi"
+DIF_POSITIVE = "%JKLMNOPQR"
+DIF_NEGATIVE = "%jklmnopqr"
+DUP_DIGITS = " STUVWXYZs"
+
+
+def wavenumber_grid(first: float = 550.0, last: float = 4000.0, step: float = 2.0) -> np.ndarray:
+    """Ascending grid, 550-4000 cm-1 at 2 cm-1 by default (1 726 points)."""
+    count = int(round((last - first) / step)) + 1
+    return first + step * np.arange(count)
+
+
+def gaussian(x, centre: float, area: float, sigma: float):
+    """Gaussian band of total area `area` (abs*cm-1); its peak height is area / (sigma*sqrt(2*pi))."""
+    return area / (sigma * np.sqrt(2 * np.pi)) * np.exp(-0.5 * ((np.asarray(x) - centre) / sigma) ** 2)
+
+
+def lorentzian(x, centre: float, area: float, gamma: float):
+    """Lorentzian band of total area `area`, half-width at half-maximum gamma; peak height area/(pi*gamma)."""
+    return area / np.pi * gamma / ((np.asarray(x) - centre) ** 2 + gamma**2)
+
+
+# (centre cm-1, area abs*cm-1 at 0.1 mm, sigma cm-1): invented, demo only.
+_HYDROCARBON = ((2920, 60.0, 25), (2855, 30.0, 18), (1460, 6.0, 12), (1377, 2.5, 8), (722, 1.2, 8))
+_ESTER = ((1740, 60.0, 12), (1240, 12.0, 25), (1170, 18.0, 22))
+_ADDITIVE = ((990, 1.5, 15),)  # phosphate anti-wear, new oil
+_DEGRADATION = {
+    "oxidation": (1712, 14),
+    "nitration": (1630, 8),
+    "sulfation": (1150, 12),
+    "water": (3350, 70),
+}
+
+
+def oil_spectrum(
+    x,
+    base_stock: str = "mineral",
+    oxidation: float = 0.0,
+    nitration: float = 0.0,
+    sulfation: float = 0.0,
+    water: float = 0.0,
+    soot: float = 0.0,
+    antiwear_left: float = 1.0,
+    slope: float = 2.0e-5,
+    offset: float = 0.02,
+    noise: float = 0.0,
+    seed: int = 0,
+):
+    """Absorbance at 0.100 mm of a made-up oil: base stock bands, additive, degradation, soot.
+
+    `oxidation` etc. are band areas (abs*cm-1) added to the new oil;
+    `soot` lifts the whole spectrum (a flat offset, as soot scatters
+    broadly); `antiwear_left` is the fraction of anti-wear band remaining.
+    """
+    x = np.asarray(x, dtype=float)
+    y = offset + slope * (x - x.min()) + soot
+    bands = _HYDROCARBON + (_ESTER if base_stock == "ester" else ())
+    for centre, area, sigma in bands:
+        y = y + gaussian(x, centre, area, sigma)
+    for centre, area, sigma in _ADDITIVE:
+        y = y + gaussian(x, centre, area * antiwear_left, sigma)
+    for name, area in (("oxidation", oxidation), ("nitration", nitration), ("sulfation", sulfation), ("water", water)):
+        centre, sigma = _DEGRADATION[name]
+        y = y + gaussian(x, centre, area, sigma)
+    if noise:
+        y = y + np.random.default_rng(seed).normal(0.0, noise, size=x.size)
+    return y
+
+
+def random_used_oils(x, count: int, seed: int = 0, base_stock: str = "mineral"):
+    """A (count, points) block of used-oil spectra with random degradation: for the benchmark."""
+    rng = np.random.default_rng(seed)
+    new = oil_spectrum(x, base_stock)
+    shapes = np.stack([gaussian(x, c, 1.0, s) for c, s in _DEGRADATION.values()])
+    amounts = rng.uniform(0.0, [20.0, 5.0, 5.0, 30.0], size=(count, len(_DEGRADATION)))
+    soot = rng.uniform(0.0, 0.3, size=(count, 1))
+    return new[None, :] + amounts @ shapes + soot
+
+
+def write_jcampdx(
+    path: Path | str,
+    x,
+    y,
+    form: str = "AFFN",
+    title: str = "synthetic spectrum",
+    x_units: str = "1/CM",
+    y_units: str = "ABSORBANCE",
+    significant: int = 6,
+    values_per_line: int = 10,
+) -> Path:
+    """Write an evenly spaced spectrum as JCAMP-DX 4.24.
+
+    form: AFFN, PAC, SQZ, DIF (with Y-check), DIFDUP (DIF with DUP runs) or
+    XYPOINTS. Y is stored as integers times a YFACTOR chosen to keep
+    `significant` digits; the Y values written are therefore rounded.
+    """
+    path = Path(path)
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    span = float(np.max(np.abs(y))) or 1.0
+    y_factor = 10.0 ** (np.floor(np.log10(span)) - significant + 1)
+    stored = np.round(y / y_factor).astype(np.int64)
+    header = [
+        f"##TITLE= {title}",
+        "##JCAMP-DX= 4.24",
+        "##DATA TYPE= INFRARED SPECTRUM",
+        "##ORIGIN= sumpwise synthetic data (invented)",
+        "##OWNER= public domain",
+        f"##XUNITS= {x_units}",
+        f"##YUNITS= {y_units}",
+        "##XFACTOR= 1",
+        f"##YFACTOR= {y_factor:.10g}",
+        f"##FIRSTX= {x[0]:.10g}",
+        f"##LASTX= {x[-1]:.10g}",
+        f"##NPOINTS= {x.size}",
+        f"##FIRSTY= {stored[0] * y_factor:.10g}",
+    ]
+    if form == "XYPOINTS":
+        body = ["##XYPOINTS=(XY..XY)"] + [f"{xi:.10g}, {yi}" for xi, yi in zip(x, stored)]
+    else:
+        body = ["##XYDATA=(X++(Y..Y))"] + _xydata_lines(x, stored, form, values_per_line)
+    path.write_text("\n".join(header + body + ["##END="]) + "\n", encoding="ascii")
+    return path
+
+
+def _xydata_lines(x, stored, form, per_line):
+    lines = []
+    if form in ("AFFN", "PAC", "SQZ"):
+        for start in range(0, stored.size, per_line):
+            chunk = stored[start : start + per_line]
+            if form == "AFFN":
+                text = " " + " ".join(str(v) for v in chunk)
+            elif form == "PAC":
+                text = "".join(f"{v:+d}" for v in chunk)
+            else:
+                text = "".join(_sqz(v) for v in chunk)
+            lines.append(f"{x[start]:.10g}{text}")
+        return lines
+    if form not in ("DIF", "DIFDUP"):
+        raise ValueError(f"unknown JCAMP-DX form {form!r}: expected AFFN, PAC, SQZ, DIF, DIFDUP or XYPOINTS")
+    start = 0
+    while start < stored.size - 1 or start == 0:
+        stop = min(start + per_line, stored.size - 1)
+        diffs = np.diff(stored[start : stop + 1])
+        text = _sqz(stored[start]) + (_dif_dup(diffs) if form == "DIFDUP" else "".join(_dif(d) for d in diffs))
+        lines.append(f"{x[start]:.10g}{text}")
+        start = stop
+        if stop == stored.size - 1:
+            break
+    lines.append(f"{x[-1]:.10g}{_sqz(stored[-1])}")  # the last line's Y-check
+    return lines
+
+
+def _pseudo(value, positive, negative):
+    digits = str(abs(int(value)))
+    table = negative if value < 0 else positive
+    return table[int(digits[0])] + digits[1:]
+
+
+def _sqz(value):
+    return _pseudo(value, SQZ_POSITIVE, SQZ_NEGATIVE)
+
+
+def _dif(value):
+    return _pseudo(value, DIF_POSITIVE, DIF_NEGATIVE)
+
+
+def _dup(count):
+    digits = str(int(count))
+    return DUP_DIGITS[int(digits[0])] + digits[1:]
+
+
+def _dif_dup(diffs):
+    parts = []
+    i = 0
+    while i < diffs.size:
+        j = i
+        while j + 1 < diffs.size and diffs[j + 1] == diffs[i]:
+            j += 1
+        run = j - i + 1
+        parts.append(_dif(diffs[i]) + (_dup(run) if run > 1 else ""))
+        i = j + 1
+    return "".join(parts)
