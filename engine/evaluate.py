@@ -52,6 +52,7 @@ class Outcome:
     `raw` and `final` are int8 [rows, slots]: NOT_APPLICABLE, NOT_EVALUATED, or the
     level the rule gave (0 when it did not fire); `final` is after caps. `leaves`
     maps a slot index to the (truth, known) arrays of its condition's leaf tests.
+    `capping` is bool [rows, caveats]: the caveat's cap was in force for the sample.
     `level` is the sample's grade level, -1 for unrated.
     """
 
@@ -59,6 +60,7 @@ class Outcome:
     raw: np.ndarray
     final: np.ndarray
     caveats: np.ndarray
+    capping: np.ndarray
     leaves: dict
     level: np.ndarray
     known_class: np.ndarray
@@ -170,6 +172,7 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
 
     everyone = _Columns(measured, np.arange(n))
     caveats = np.zeros((n, len(ruleset.caveats)), dtype=bool)
+    capping_all = np.zeros_like(caveats)
     final = raw.copy()
     for k, caveat in enumerate(ruleset.caveats):
         truth, _ = condition_truth(caveat.when, everyone)
@@ -180,6 +183,7 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
         if caveat.cap.unless is not None:
             lifted, _ = condition_truth(caveat.cap.unless, everyone)
             capping = truth & ~lifted
+        capping_all[:, k] = capping
         for j, slot in enumerate(slots):
             if slot.rule.reads & caveat.cap.measures:
                 column = final[:, j]
@@ -187,4 +191,4 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
 
     level = final.max(axis=1, initial=NOT_APPLICABLE) if len(slots) else np.full(n, NOT_APPLICABLE)
     level = np.where(level >= 0, level, -1).astype(np.int8)
-    return Outcome(slots, raw, final, caveats, leaves, level, known_class)
+    return Outcome(slots, raw, final, caveats, capping_all, leaves, level, known_class)

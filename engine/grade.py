@@ -5,7 +5,7 @@ from __future__ import annotations
 import pandas as pd
 
 from .evaluate import evaluate
-from .measures import derive_measures
+from .measures import INPUT_MEASURES, derive_measures
 from .results import GradedBatch
 from .ruleset import RuleSet
 from .samples import ColumnMap, SampleBatch, validate_samples
@@ -15,7 +15,8 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet) -> GradedBatch:
     """Derive measures for the accepted rows and evaluate the rule set over them."""
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
     outcome = evaluate(ruleset, measured)
-    return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source)
+    carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
+    return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried)
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:

@@ -52,6 +52,7 @@ class Reason:
     test: str | None = None
     limit: object = None
     capped_from: str | None = None
+    capped_by: str | None = None
     clauses: tuple = ()
 
     def to_record(self) -> dict:
@@ -63,7 +64,7 @@ class Reason:
             record.update(test=self.test, limit=self.limit)
         record["grade"] = self.grade
         if self.capped_from is not None:
-            record["capped_from"] = self.capped_from
+            record.update(capped_from=self.capped_from, capped_by=self.capped_by)
         record.update(message=self.message, source=self.source)
         if self.clauses:
             record["clauses"] = [c.to_record() for c in self.clauses]
@@ -113,11 +114,14 @@ class SampleResult:
     engine: str
     row: int | None = None
     unrated_because: str | None = None
+    values: tuple = ()  # (name, value) of the lab values the sample came with, in canonical units
+    method: str | None = None
 
     def to_record(self) -> dict:
         """The JSON Lines record; key names are the contract, key order is fixed."""
         record = {"sample_id": self.sample_id, "unit_id": self.unit_id, "class": self.class_name,
                   "lubricant": self.lubricant, "sampled_on": self.sampled_on,
+                  "values": dict(self.values), "method": self.method,
                   "grade": self.grade, "level": self.level,
                   "reasons": [r.to_record() for r in self.reasons],
                   "caveats": [c.to_record() for c in self.caveats],
@@ -173,6 +177,7 @@ class GradedBatch:
     rejects: tuple = ()
     rows_read: int = 0
     source: str = ""
+    value_columns: tuple = ()  # input measures the samples file carried, recorded with each result
 
     def __len__(self) -> int:
         return len(self.measured)
@@ -245,11 +250,13 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
             continue
         raw = int(out.raw[i, j])
         capped_from = grades[raw] if raw != final else None
+        capped_by = _capped_by(rs, out, i, rule, final) if capped_from else None
         if isinstance(rule, LadderRule):
             limit = dict(rule.steps)[raw]
             reasons.append(Reason(rule.id, grades[final], final, rule.message, rule.source, measure=rule.measure,
                                   value=values.number(rule.measure, i), unit=measure_unit(rule.measure) or None,
-                                  test=rule.test, limit=_limit_value(limit), capped_from=capped_from))
+                                  test=rule.test, limit=_limit_value(limit), capped_from=capped_from,
+                                  capped_by=capped_by))
         else:
             rows, found = out.leaves[j]
             at = int(np.searchsorted(rows, i))
@@ -267,7 +274,7 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
                     value = values.number(leaf.measure, i) if known[at] else None
                     clauses.append(Clause(leaf.test, _limit_value(leaf.limit), held, value, measure=leaf.measure))
             reasons.append(Reason(rule.id, grades[final], final, rule.message, rule.source,
-                                  capped_from=capped_from, clauses=tuple(clauses)))
+                                  capped_from=capped_from, capped_by=capped_by, clauses=tuple(clauses)))
     order = sorted(range(len(reasons)), key=lambda k: -reasons[k].level)
     reasons = [reasons[k] for k in order]
     caveats = [CaveatNote(c.id, c.message, c.source) for k, c in enumerate(rs.caveats) if out.caveats[i, k]]
@@ -284,7 +291,18 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
         reasons=tuple(reasons), caveats=tuple(caveats), not_evaluated=tuple(not_evaluated), notice=rs.notice,
         ruleset_id=rs.id, ruleset_version=rs.version, ruleset_sha256=rs.sha256, engine=engine_name(),
         row=int(measured.index[i]) if measured.index.dtype.kind in "iu" else None,
-        unrated_because=unrated_because)
+        unrated_because=unrated_because,
+        values=tuple((name, values.number(name, i)) for name in batch.value_columns),
+        method=values.text("method", i))
+
+
+def _capped_by(rs: RuleSet, out: Outcome, i: int, rule, final: int) -> str | None:
+    """The caveat whose cap set this rule's grade (the first, where two caps agree)."""
+    for k, caveat in enumerate(rs.caveats):
+        cap = caveat.cap
+        if cap is not None and out.capping[i, k] and cap.level == final and rule.reads & cap.measures:
+            return caveat.id
+    return None
 
 
 def _unrated_because(batch: GradedBatch, i: int, class_name, not_evaluated: list) -> str:
@@ -308,7 +326,7 @@ def record_shape_groups(batch: GradedBatch, rows: np.ndarray) -> tuple[np.ndarra
     Writers build one template per group instead of one record per row.
     """
     out, measured = batch.outcome, batch.measured
-    parts = [out.final[rows], out.raw[rows], out.caveats[rows].astype(np.int8)]
+    parts = [out.final[rows], out.raw[rows], out.caveats[rows].astype(np.int8), out.capping[rows].astype(np.int8)]
     classes = pd.factorize(measured["class"].to_numpy(dtype=object), use_na_sentinel=True)[0]
     parts.append(classes[rows].astype(np.int32).view(np.int8).reshape(len(rows), 4))
     leaf_columns = []
