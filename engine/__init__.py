@@ -1,3 +1,17 @@
-"""sumpwise: grade in-service lubricating oil samples against a site's YAML limits."""
+"""sumpwise: grade in-service lubricating oil samples against a site's YAML limits.
+
+The public API: load a rule set, read samples, grade them, read results and rejects back
+as frozen records. The command line (engine.cli) is a thin layer over these calls.
+"""
 
 __version__ = "0.1.0"
+
+from .compile import load_ruleset  # noqa: E402
+from .grade import grade, grade_batch  # noqa: E402
+from .problems import InputError, InvalidFile, Problem  # noqa: E402
+from .results import GradedBatch, Reason, SampleResult  # noqa: E402
+from .samples import ColumnMap, Reject, SampleBatch, load_column_map, read_samples  # noqa: E402
+
+__all__ = ["__version__", "load_ruleset", "grade", "grade_batch", "read_samples", "load_column_map",
+           "InvalidFile", "InputError", "Problem", "GradedBatch", "SampleResult", "Reason", "Reject",
+           "SampleBatch", "ColumnMap"]

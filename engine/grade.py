@@ -21,6 +21,8 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet) -> GradedBatch:
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:
     """Grade a DataFrame (or an already-read SampleBatch); bad rows come back as rejects."""
+    if isinstance(samples, (str, bytes)) or hasattr(samples, "__fspath__"):
+        raise TypeError("grade() takes a DataFrame or a SampleBatch; read files with read_samples()")
     if isinstance(samples, pd.DataFrame):
         samples = validate_samples(samples, [], "<DataFrame>", columns or ColumnMap(), ruleset.measures)
     return grade_batch(samples, ruleset)
