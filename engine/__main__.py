@@ -1,0 +1,5 @@
+"""`python -m engine` runs the sumpwise command."""
+
+from .cli import entry
+
+entry()
