@@ -174,37 +174,28 @@ def trapezoid_weights(x: np.ndarray, low: float, high: float) -> np.ndarray:
     return weights
 
 
-def interpolation_weights(x: np.ndarray, at: float) -> np.ndarray:
-    """Weights w with w @ y = y linearly interpolated at `at` (x ascending, at inside)."""
-    weights = np.zeros_like(x, dtype=float)
-    i = int(np.clip(np.searchsorted(x, at, side="right") - 1, 0, x.size - 2))
-    frac = (at - x[i]) / (x[i + 1] - x[i])
-    weights[i] += 1.0 - frac
-    weights[i + 1] += frac
-    return weights
-
-
 @dataclass(frozen=True)
 class BandPlan:
-    """Everything about a band set that depends only on the grid: weights and slices."""
+    """Everything about a band set that depends only on the grid.
+
+    areas: band region -> (column slice, weights on that slice);
+    points: abscissa -> (left index, fraction towards the right one);
+    windows: window -> column slice; uncovered: band name -> sentence.
+    Only the columns a band reads are touched, which is what makes a block
+    of spectra cheap: most of a spectrum is never read.
+    """
 
     x: np.ndarray
     bands: tuple[Band, ...]
-    weights: np.ndarray  # (points, columns): area bands, then 'at' anchors, then point bands
-    columns: dict
-    slices: dict
-    uncovered: dict  # band name -> sentence, for bands the grid does not reach
+    areas: dict
+    points: dict
+    windows: dict
+    uncovered: dict
 
 
 def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
-    """Precompute weights and index windows for one wavenumber grid (ascending)."""
-    columns, vectors, slices, uncovered = {}, [], {}, {}
-
-    def column(key, vector):
-        if key not in columns:
-            columns[key] = len(vectors)
-            vectors.append(vector)
-
+    """Precompute weights and index windows for one ascending wavenumber grid."""
+    areas, points, windows, uncovered = {}, {}, {}, {}
     for band in bands:
         low, high = band.span()
         if low < x[0] or high > x[-1]:
@@ -214,18 +205,25 @@ def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
             )
             continue
         if band.measure == "area":
-            column(("area", band.region), trapezoid_weights(x, *band.region))
+            weights = trapezoid_weights(x, *band.region)
+            used = np.flatnonzero(weights)
+            columns = slice(int(used[0]), int(used[-1]) + 1)
+            areas[band.region] = (columns, np.ascontiguousarray(weights[columns]))
         elif band.measure == "point":
-            column(("at", band.region[0]), interpolation_weights(x, band.region[0]))
+            points[band.region[0]] = _interpolation_point(x, band.region[0])
         else:
-            slices[("window", band.region)] = _index_window(x, band.region, band.name)
+            windows[band.region] = _index_window(x, band.region, band.name)
         for anchor in band.baseline:
             if anchor.at is not None:
-                column(("at", anchor.at), interpolation_weights(x, anchor.at))
+                points[anchor.at] = _interpolation_point(x, anchor.at)
             else:
-                slices[("window", anchor.minimum_in)] = _index_window(x, anchor.minimum_in, band.name)
-    weights = np.column_stack(vectors) if vectors else np.zeros((x.size, 0))
-    return BandPlan(x, bands, weights, columns, slices, uncovered)
+                windows[anchor.minimum_in] = _index_window(x, anchor.minimum_in, band.name)
+    return BandPlan(x, bands, areas, points, windows, uncovered)
+
+
+def _interpolation_point(x, at):
+    i = int(np.clip(np.searchsorted(x, at, side="right") - 1, 0, x.size - 2))
+    return i, (at - x[i]) / (x[i + 1] - x[i])
 
 
 def _index_window(x, window, name):
@@ -240,38 +238,40 @@ def _index_window(x, window, name):
 class BlockMeasures:
     """Per-band arrays, one entry per spectrum of the block.
 
-    values: NaN where the band cannot be read; peak_positions: wavenumber of
-    the maximum, for height bands; unusable: a non-finite point lies inside
-    what the band reads (e.g. transmittance <= 0).
+    values: NaN where the band cannot be read (a non-finite point inside what
+    it reads, e.g. transmittance <= 0); peak_positions: wavenumber of the
+    maximum, for height bands.
     """
 
     values: dict
     peak_positions: dict
-    unusable: dict
 
 
 def measure_block(plan: BandPlan, spectra: np.ndarray) -> BlockMeasures:
-    """Band values for a block of spectra (rows) on the plan's grid."""
-    spectra = np.asarray(spectra, dtype=float)
-    finite = np.isfinite(spectra)
-    all_finite = bool(finite.all())
-    clean = spectra if all_finite else np.where(finite, spectra, 0.0)
-    products = clean @ plan.weights
+    """Band values for a block of spectra (rows) on the plan's grid; NaN propagates, never hides.
+
+    float32 blocks stay float32 (half the memory traffic); anything else is read as float64.
+    """
+    spectra = np.asarray(spectra)
+    if spectra.dtype not in (np.float32, np.float64):
+        spectra = spectra.astype(np.float64)
     x = plan.x
     rows = np.arange(spectra.shape[0])
-    minima = {}
+    anchors = {}
 
     def anchor_value(anchor):
-        if anchor.at is not None:
-            return np.full(rows.size, anchor.at), products[:, plan.columns[("at", anchor.at)]]
-        if anchor.minimum_in not in minima:
-            window = plan.slices[("window", anchor.minimum_in)]
-            block = clean[:, window]
-            j = np.argmin(block, axis=1)
-            minima[anchor.minimum_in] = (x[window][j], block[rows, j])
-        return minima[anchor.minimum_in]
+        key = anchor.at if anchor.at is not None else anchor.minimum_in
+        if key not in anchors:
+            if anchor.at is not None:
+                anchors[key] = (np.full(rows.size, anchor.at), _point_value(spectra, plan.points[anchor.at]))
+            else:
+                window = plan.windows[anchor.minimum_in]
+                block = spectra[:, window]
+                j = np.argmin(block, axis=1)
+                anchors[key] = (x[window][j], block[rows, j])
+        return anchors[key]
 
-    values, positions, unusable = {}, {}, {}
+    values, positions = {}, {}
     for band in plan.bands:
         if band.name in plan.uncovered:
             values[band.name] = np.full(rows.size, np.nan)
@@ -281,34 +281,22 @@ def measure_block(plan: BandPlan, spectra: np.ndarray) -> BlockMeasures:
             slope = (yb - ya) / (xb - xa)
         if band.measure == "area":
             low, high = band.region
-            area = products[:, plan.columns[("area", band.region)]]
+            columns, weights = plan.areas[band.region]
             baseline_area = (high - low) * (ya + ((low + high) / 2 - xa) * slope)
-            values[band.name] = area - baseline_area
+            values[band.name] = spectra[:, columns] @ weights.astype(spectra.dtype, copy=False) - baseline_area
         elif band.measure == "point":
             at = band.region[0]
-            value = products[:, plan.columns[("at", at)]]
+            value = _point_value(spectra, plan.points[at])
             values[band.name] = value - (ya + (at - xa) * slope) if band.baseline else value
         else:
-            window = plan.slices[("window", band.region)]
-            above = clean[:, window] - (ya[:, None] + (x[window][None, :] - xa[:, None]) * slope[:, None])
+            window = plan.windows[band.region]
+            above = spectra[:, window] - (ya[:, None] + (x[window][None, :] - xa[:, None]) * slope[:, None])
             j = np.argmax(above, axis=1)
             values[band.name] = above[rows, j]
             positions[band.name] = x[window][j]
-        if not all_finite:
-            unusable[band.name] = _touches_bad_points(plan, band, finite)
-            values[band.name] = np.where(unusable[band.name], np.nan, values[band.name])
-    return BlockMeasures(values, positions, unusable)
+    return BlockMeasures(values, positions)
 
 
-def _touches_bad_points(plan, band, finite):
-    used = np.zeros(plan.x.size, dtype=bool)
-    keys = [("area", band.region)] if band.measure == "area" else []
-    keys += [("at", band.region[0])] if band.measure == "point" else []
-    keys += [("at", a.at) for a in band.baseline if a.at is not None]
-    for key in keys:
-        used |= plan.weights[:, plan.columns[key]] != 0
-    windows = [band.region] if band.measure == "height" else []
-    windows += [a.minimum_in for a in band.baseline if a.minimum_in is not None]
-    for window in windows:
-        used[plan.slices[("window", window)]] = True
-    return ~finite[:, used].all(axis=1)
+def _point_value(spectra, point):
+    i, frac = point
+    return spectra[:, i] * (1.0 - frac) + spectra[:, i + 1] * frac

@@ -59,7 +59,8 @@ def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm: 
 
     reference: None (direct) or one absorbance row on the same grid, or a
     matrix with one row per spectrum. Returns (values, peak_positions,
-    unusable) dicts of arrays; values are in abs/0.1 mm (direct) or abs/cm.
+    uncovered): dicts of arrays in abs/0.1 mm (direct) or abs/cm, NaN where a
+    band met a non-finite point; and the bands the grid does not reach.
     """
     bands = bands or load_bands()
     plan = plan_bands(np.asarray(x, dtype=float), bands.bands)
@@ -78,8 +79,7 @@ def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm: 
     names = plan.bands
     values = {b.name: np.concatenate([p.values[b.name] for p in parts]) * factor for b in names}
     positions = {k: np.concatenate([p.peak_positions[k] for p in parts]) for k in parts[0].peak_positions} if parts else {}
-    unusable = {k: np.concatenate([p.unusable[k] for p in parts]) for k in parts[0].unusable} if parts else {}
-    return values, positions, unusable, plan.uncovered
+    return values, positions, plan.uncovered
 
 
 def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: BandSet | None = None,
@@ -129,7 +129,7 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
         if ref_path is not None:
             ref = loaded_refs[ref_path]
             reference = np.interp(x, ref.wavenumber, ref.absorbance, left=np.nan, right=np.nan)
-        values, _, unusable, uncovered = measure_matrix(
+        values, _, uncovered = measure_matrix(
             x, absorbance, bands, path_length_mm, reference, reference_path_length_mm, block_size)
         method = DIRECT if ref_path is None else SUBTRACTION
         for k, i in enumerate(members):
@@ -137,7 +137,7 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             if uncovered:
                 rejections[i] = Rejection(str(paths[i]), spectrum.range_line, next(iter(uncovered.values())))
                 continue
-            bad = [name for name, mask in unusable.items() if mask[k]]
+            bad = [name for name in bands.names if not np.isfinite(values[name][k])]
             if bad:
                 what = "reference or spectrum" if ref_path is not None else "spectrum"
                 rejections[i] = Rejection(str(paths[i]), None,

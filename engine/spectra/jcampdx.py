@@ -59,8 +59,7 @@ def _tables():
 
 _KIND, _LEAD, _NEGATIVE = _tables()
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
-_ASDF_LETTERS = re.compile(rb"[@%A-DF-Za-df-s]|[Ee](?![+-])")
-_LINE_X = re.compile(rb"[ \t]*([+-]?(?:\d+\.?\d*|\.\d+)(?:[Ee][+-]\d+)?)")
+_EXPONENT = re.compile(rb"[0-9][Ee][+-]")
 _PAC_SIGN = re.compile(rb"(?<=[0-9.])(?=[+-])")
 _COMMENT = re.compile(r"\$\$.*")
 _DATA_LABEL = re.compile(r"^##(XYDATA|XYPOINTS|PEAKTABLE|NTUPLES|DATATABLE)=(.*)$", re.M | re.I)
@@ -175,39 +174,77 @@ def _read_xydata(block, ctx):
     npoints = int(ctx.number("NPOINTS"))
     x_factor, y_factor = ctx.number("XFACTOR", 1.0), ctx.number("YFACTOR", 1.0)
     raw = block.encode("latin-1")
-    line_x, line_unit, line_numbers, y_parts = [], [], [], []
-    for offset, line in enumerate(raw.split(b"\n")):
-        if not line.strip():
-            continue
-        match = _LINE_X.match(line)
-        number = ctx.data_line + 1 + offset
-        if match is None:
-            raise SpectrumError(ctx.source, number, "data line does not start with an X value")
-        token = match.group(1)
-        line_x.append(float(token))
-        decimals = len(token.split(b".")[1]) if b"." in token and b"e" not in token.lower() else 0
-        line_unit.append(10.0**-decimals)
-        line_numbers.append(number)
-        y_parts.append(line[match.end() :])
-    if not y_parts:
-        raise SpectrumError(ctx.source, ctx.data_line, "data block is empty")
-    line_numbers = np.asarray(line_numbers)
-    y_text = b"\n".join(y_parts)
-    if _ASDF_LETTERS.search(y_text):
-        y_int, line_start_index, is_check = _decode_asdf(y_text, line_numbers, ctx.source)
-        y = y_int * y_factor
+    line_numbers = ctx.data_line + 1 + np.arange(raw.count(b"\n") + 1)
+    if _has_blank_line(raw):
+        kept = [(line, number) for line, number in zip(raw.split(b"\n"), line_numbers) if line.strip()]
+        if not kept:
+            raise SpectrumError(ctx.source, ctx.data_line, "data block is empty")
+        raw = b"\n".join(line for line, _ in kept)
+        line_numbers = np.array([number for _, number in kept])
+    chars = np.frombuffer(raw, dtype=np.uint8).copy()
+    line_x, line_unit = _take_line_abscissae(chars, raw, line_numbers, ctx.source)
+    y_text = chars.tobytes()
+    if b"." in y_text or (any(e in y_text for e in (b"E+", b"E-", b"e+", b"e-")) and _EXPONENT.search(y_text)):
+        y, line_start_index = _decode_affn_floats(y_text, line_numbers, ctx.source)
+        is_check = np.zeros(line_numbers.size, dtype=bool)
     else:
-        y, line_start_index = _decode_affn(y_parts, line_numbers, ctx.source)
-        y = y * y_factor
-        is_check = np.zeros(len(y_parts), dtype=bool)
+        y, line_start_index, is_check = _decode_asdf(y_text, line_numbers, ctx.source)
+    y = y * y_factor
     if y.size != npoints:
         raise SpectrumError(
             ctx.source, ctx.line("NPOINTS"), f"##NPOINTS={npoints} but the data block holds {y.size} points"
         )
     delta = (last_x - first_x) / (npoints - 1) if npoints > 1 else 0.0
-    _check_line_abscissae(ctx.source, line_numbers, np.asarray(line_x) * x_factor, np.asarray(line_unit) * abs(x_factor),
+    _check_line_abscissae(ctx.source, line_numbers, line_x * x_factor, line_unit * abs(x_factor),
                           line_start_index - is_check, first_x, delta)
     return first_x + np.arange(npoints) * delta, y
+
+
+def _has_blank_line(raw):
+    if raw.startswith(b"\n") or raw.endswith(b"\n") or b"\n\n" in raw:
+        return True
+    if b" \n" not in raw and b"\t\n" not in raw and b"\r\n" not in raw and b"\n " not in raw and b"\n\t" not in raw:
+        return False
+    return any(not line.strip() for line in raw.split(b"\n"))
+
+
+def _take_line_abscissae(chars, raw, line_numbers, source):
+    """Find each line's leading X (AFFN), blank it out of `chars` in place, return X values and last-digit units."""
+    newlines = np.flatnonzero(chars == 10)
+    line_start = np.concatenate(([0], newlines + 1))
+    spaces = (chars == 32) | (chars == 9) | (chars == 13)
+    solid = np.flatnonzero(~spaces)
+    x_start = solid[np.minimum(np.searchsorted(solid, line_start), solid.size - 1)]
+    signed = (chars[x_start] == ord("+")) | (chars[x_start] == ord("-"))
+    numeric = ((chars >= 48) & (chars <= 57)) | (chars == 46)
+    breaks = np.append(np.flatnonzero(~numeric), chars.size)
+    x_end = breaks[np.searchsorted(breaks, x_start + signed)]
+    empty = x_end <= x_start + signed
+    if np.any(empty):
+        k = int(np.argmax(empty))
+        raise SpectrumError(source, int(line_numbers[k]), "data line does not start with an X value")
+    try:
+        line_x = np.array([float(raw[a:b]) for a, b in zip(x_start.tolist(), x_end.tolist())])
+    except ValueError:
+        k = next(i for i, (a, b) in enumerate(zip(x_start, x_end)) if not _is_float(raw[a:b]))
+        raise SpectrumError(source, int(line_numbers[k]), f"X value {raw[x_start[k]:x_end[k]].decode('latin-1')!r} "
+                            "is not a number") from None
+    dots = np.flatnonzero(chars == 46)
+    dot = dots[np.minimum(np.searchsorted(dots, x_start), max(dots.size - 1, 0))] if dots.size else x_end
+    decimals = np.where((dot >= x_start) & (dot < x_end), x_end - dot - 1, 0)
+    mark = np.zeros(chars.size + 1, dtype=np.int32)
+    np.add.at(mark, x_start, 1)
+    np.add.at(mark, x_end, -1)
+    chars[np.cumsum(mark[:-1]) > 0] = 32
+    return line_x, 10.0 ** -decimals
+
+
+def _is_float(text):
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
 
 
 def _check_line_abscissae(source, line_numbers, line_x, line_unit, index, first_x, delta):
@@ -226,23 +263,19 @@ def _check_line_abscissae(source, line_numbers, line_x, line_unit, index, first_
         )
 
 
-def _decode_affn(y_parts, line_numbers, source):
-    counts, tokens = [], []
-    for part in y_parts:
-        fields = _PAC_SIGN.sub(b" ", part.replace(b",", b" ").replace(b";", b" ")).split()
-        counts.append(len(fields))
-        tokens.extend(fields)
+def _decode_affn_floats(y_text, line_numbers, source):
+    """AFFN with decimals or exponents: split and convert; a bad field is found line by line."""
+    text = _PAC_SIGN.sub(b" ", y_text.replace(b",", b" ").replace(b";", b" "))
+    lines = text.split(b"\n")
+    counts = np.array([len(line.split()) for line in lines])
     try:
-        values = np.array(tokens, dtype="S").astype(np.float64)
+        values = np.array(text.split(), dtype="S").astype(np.float64)
     except ValueError:
-        for part, number in zip(y_parts, line_numbers):
-            for field in _PAC_SIGN.sub(b" ", part.replace(b",", b" ")).split():
-                try:
-                    float(field)
-                except ValueError:
+        for line, number in zip(lines, line_numbers):
+            for field in line.split():
+                if not _is_float(field):
                     raise SpectrumError(source, int(number), f"{field.decode('latin-1')!r} is not a number") from None
         raise
-    counts = np.asarray(counts)
     if np.any(counts == 0):
         raise SpectrumError(source, int(line_numbers[np.argmax(counts == 0)]), "data line has an X value but no Y values")
     return values, np.cumsum(counts) - counts
@@ -287,17 +320,27 @@ def _decode_asdf(y_text, line_numbers, source):
     is_dup = token_kind == _DUP
     if is_dup.any():
         dup_at = np.flatnonzero(is_dup)
-        orphan = (dup_at == 0) | is_dup[np.maximum(dup_at - 1, 0)] | (token_line[np.maximum(dup_at - 1, 0)] != token_line[dup_at])
+        before = np.maximum(dup_at - 1, 0)
+        orphan = (dup_at == 0) | is_dup[before] | (token_line[before] != token_line[dup_at])
         if orphan.any():
             raise located(token_pos[dup_at[np.argmax(orphan)]], "a DUP count with no value before it on the line")
         if np.any(value[dup_at] < 1):
             raise located(token_pos[dup_at[np.argmax(value[dup_at] < 1)]], "a DUP count below 1")
-    repeats = np.ones(value.size, dtype=np.int64)
-    repeats[np.flatnonzero(is_dup) - 1] = value[is_dup]
-    keep = ~is_dup
-    point_value = np.repeat(value[keep], repeats[keep])
-    point_is_dif = np.repeat(token_kind[keep] == _DIF, repeats[keep])
-    point_line = np.repeat(token_line[keep], repeats[keep])
+        repeats = np.ones(value.size, dtype=np.int64)
+        repeats[dup_at - 1] = value[dup_at]
+        keep = ~is_dup
+        point_value = np.repeat(value[keep], repeats[keep])
+        point_is_dif = np.repeat(token_kind[keep] == _DIF, repeats[keep])
+        point_line = np.repeat(token_line[keep], repeats[keep])
+    else:
+        point_value, point_is_dif, point_line = value, token_kind == _DIF, token_line
+    per_line = np.bincount(point_line, minlength=line_numbers.size)
+    if not per_line.all():
+        k = int(np.argmax(per_line == 0))
+        raise SpectrumError(source, int(line_numbers[k]), "data line has an X value but no Y values")
+    line_first = np.cumsum(per_line) - per_line
+    if not point_is_dif.any():
+        return point_value.astype(np.float64), line_first, np.zeros(line_numbers.size, dtype=bool)
     if point_is_dif[0]:
         raise located(token_pos[0], "data start with a DIF value: there is no previous value to add it to")
 
@@ -306,11 +349,6 @@ def _decode_asdf(y_text, line_numbers, source):
     running = np.cumsum(np.where(point_is_dif, point_value, 0))
     y = point_value[last_absolute] + running - running[last_absolute]
 
-    per_line = np.bincount(point_line, minlength=line_numbers.size)
-    if np.any(per_line == 0):
-        k = int(np.argmax(per_line == 0))
-        raise SpectrumError(source, int(line_numbers[k]), "data line has an X value but no Y values")
-    line_first = np.cumsum(per_line) - per_line
     line_last = line_first + per_line - 1
     is_check = np.zeros(line_numbers.size, dtype=bool)
     is_check[1:] = point_is_dif[line_last[:-1]]

@@ -101,14 +101,16 @@ def write_jcampdx(
     x_units: str = "1/CM",
     y_units: str = "ABSORBANCE",
     significant: int = 6,
-    values_per_line: int = 10,
+    values_per_line: int | None = None,
 ) -> Path:
     """Write an evenly spaced spectrum as JCAMP-DX 4.24.
 
     form: AFFN, PAC, SQZ, DIF (with Y-check), DIFDUP (DIF with DUP runs) or
     XYPOINTS. Y is stored as integers times a YFACTOR chosen to keep
     `significant` digits; the Y values written are therefore rounded.
+    values_per_line defaults to what keeps lines near 80 characters.
     """
+    values_per_line = values_per_line or {"AFFN": 8, "PAC": 8, "SQZ": 12}.get(form, 14)
     path = Path(path)
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
