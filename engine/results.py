@@ -332,7 +332,10 @@ def record_shape_groups(batch: GradedBatch, rows: np.ndarray) -> tuple[np.ndarra
     leaf_columns = []
     for j, (member_rows, found) in sorted(out.leaves.items()):
         at = np.searchsorted(member_rows, rows)
-        inside = (at < len(member_rows)) & (member_rows[np.minimum(at, len(member_rows) - 1)] == rows)
+        if len(member_rows):
+            inside = (at < len(member_rows)) & (member_rows[np.minimum(at, len(member_rows) - 1)] == rows)
+        else:
+            inside = np.zeros(len(rows), dtype=bool)
         for truth, known in found:
             code = np.zeros(len(rows), dtype=np.int8)
             code[inside] = truth[at[inside]].astype(np.int8) + 2 * known[at[inside]].astype(np.int8)
