@@ -96,7 +96,7 @@ def parse_jcampdx(text: str, source: str) -> Spectrum:
         last_line = text.rstrip("\n").count("\n") + 1
         raise SpectrumError(source, last_line, "file ends without ##END=")
     block = text[block_start:block_end]
-    _check_trailer(text[block_end + 1 :], source, data_line + block.count("\n") + 1)
+    _check_trailer(text[block_end + 1 :], source, data_line + block.count("\n") + 2)
     if "$$" in block:
         block = _COMMENT.sub("", block)
     context = _Context(source, header, header_lines, data_line)
@@ -161,6 +161,10 @@ def _check_trailer(trailer, source, first_line):
     for offset, raw in enumerate(trailer.split("\n")):
         stripped = raw.strip()
         if stripped.upper().startswith("##END="):
+            later = trailer.upper().find("##TITLE=", trailer.upper().find("##END="))
+            if later >= 0:
+                raise SpectrumError(source, first_line + trailer.count("\n", 0, later),
+                                    "a second ##TITLE= after ##END=: only single-spectrum files are read")
             return
         if stripped.startswith("##") and not stripped.startswith("##$"):
             label = stripped[2:].partition("=")[0].strip().upper()
@@ -190,13 +194,13 @@ def _read_xydata(block, ctx):
     else:
         y, line_start_index, is_check = _decode_asdf(y_text, line_numbers, ctx.source)
     y = y * y_factor
+    delta = (last_x - first_x) / (npoints - 1) if npoints > 1 else 0.0
+    _check_line_abscissae(ctx.source, line_numbers, line_x * x_factor, line_unit * abs(x_factor),
+                          line_start_index - is_check, first_x, delta)
     if y.size != npoints:
         raise SpectrumError(
             ctx.source, ctx.line("NPOINTS"), f"##NPOINTS={npoints} but the data block holds {y.size} points"
         )
-    delta = (last_x - first_x) / (npoints - 1) if npoints > 1 else 0.0
-    _check_line_abscissae(ctx.source, line_numbers, line_x * x_factor, line_unit * abs(x_factor),
-                          line_start_index - is_check, first_x, delta)
     return first_x + np.arange(npoints) * delta, y
 
 
