@@ -7,6 +7,7 @@ from: its marks for later errors, its `units:` for converting its limits.
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -49,6 +50,7 @@ class Resolved:
     fields: dict = field(default_factory=dict)
     examples: list = field(default_factory=list)
     files: list = field(default_factory=list)
+    class_places: dict = field(default_factory=dict)  # class name -> where it was last declared
 
 
 def resolve_ruleset(path: Path) -> Resolved:
@@ -86,7 +88,7 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
 
     merged = Resolved(top=doc)
     for target, at in _extends_list(doc):
-        parent_path = (path.parent / target)
+        parent_path = Path(os.path.normpath(path.parent / target))
         if parent_path.resolve() in stack + (key,):
             chain = " -> ".join(str(p) for p in stack + (key, parent_path.resolve()))
             problems.append(doc.problem(at, f"extends makes a cycle: {chain}"))
@@ -115,6 +117,7 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     for name, rules in parent.classes.items():
         target = merged.classes.setdefault(name, {})
         target.update(rules)
+    merged.class_places.update(parent.class_places)
     merged.rules.update(parent.rules)
     merged.caveats.update(parent.caveats)
     merged.files.extend(f for f in parent.files if f not in merged.files)
@@ -159,6 +162,7 @@ def _add_own(merged: Resolved, doc: YamlDocument, problems: list[Problem]) -> No
         merged.fields[name] = Placed(name, doc, ("fields", i))
 
     for name, spec in data.get("classes", {}).items():
+        merged.class_places[name] = Placed(spec, doc, ("classes", name))
         target = merged.classes.setdefault(name, {})
         for i, dropped in enumerate(spec.get("drop", [])):
             if dropped in target:

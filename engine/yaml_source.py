@@ -49,6 +49,9 @@ def _mark(node: yaml.Node) -> Mark:
     return Mark(node.start_mark.line + 1, node.start_mark.column + 1)
 
 
+_PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
+
+
 class _Builder:
     def __init__(self, file: str, loader: yaml.SafeLoader):
         self.file = file
@@ -59,6 +62,9 @@ class _Builder:
 
     def build(self, node: yaml.Node, path: tuple):
         self.value_marks[path] = _mark(node)
+        if isinstance(node, (yaml.MappingNode, yaml.SequenceNode)) and node.tag not in _PLAIN_TAGS:
+            raise yaml.constructor.ConstructorError(
+                None, None, f"the tag {node.tag} is not allowed", node.start_mark)
         if isinstance(node, yaml.MappingNode):
             return self._mapping(node, path)
         if isinstance(node, yaml.SequenceNode):
