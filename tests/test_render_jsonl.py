@@ -1,0 +1,46 @@
+"""JSON Lines: the bulk writer says exactly what each record says, in the same bytes every run."""
+
+import io
+import json
+import subprocess
+import sys
+
+from conftest import DATA, ROOT
+
+from engine import grade, load_ruleset, read_samples
+from engine.render_jsonl import dumps, write_jsonl
+
+SITE = ROOT / "scenarios" / "brackwater" / "site.yaml"
+SAMPLES = ROOT / "scenarios" / "brackwater" / "samples.csv"
+
+
+def test_bulk_writer_matches_each_record_byte_for_byte():
+    graded = grade(read_samples(SAMPLES), load_ruleset(SITE))
+    out = io.StringIO()
+    write_jsonl(graded, out)
+    lines = out.getvalue().splitlines()
+    assert len(lines) == len(graded)
+    for line, result in zip(lines, graded.results()):
+        assert line == dumps(result.to_record())
+        assert json.loads(line)["sample_id"] == result.sample_id
+
+
+def test_awkward_text_is_escaped():
+    csv = 'sample_id,unit_id,class,an\n"Q""1","tab\there",steam-turbine,0.3\n'
+    graded = grade(read_samples(io.StringIO(csv)), load_ruleset(DATA / "rulesets" / "draft.yaml"))
+    out = io.StringIO()
+    write_jsonl(graded, out)
+    record = json.loads(out.getvalue())
+    assert record["sample_id"] == 'Q"1' and record["unit_id"] == "tab\there"
+
+
+def test_same_input_same_bytes_across_processes(tmp_path):
+    outputs = []
+    for name, seed in (("a.jsonl", "1"), ("b.jsonl", "2")):
+        target = tmp_path / name
+        subprocess.run([sys.executable, "-m", "engine", "grade", str(SAMPLES), "--rules", str(SITE),
+                        "--out", str(target)], check=True, capture_output=True, cwd=tmp_path,
+                       env={"PYTHONHASHSEED": seed, "PATH": "/usr/bin:/bin"})
+        outputs.append(target.read_bytes())
+    assert outputs[0] == outputs[1]
+    assert outputs[0].count(b"\n") == 327
