@@ -15,6 +15,7 @@ from collections import Counter
 from pathlib import Path
 
 from . import __version__
+from . import authoring_cli
 from .cautions import caution_text
 from .compile import load_ruleset
 from .explain import explain_lines
@@ -25,6 +26,7 @@ from .render_jsonl import dumps, write_jsonl
 from .render_table import write_table
 from .samples import load_column_map, read_samples
 from .spectra import command as spectra_command
+from . import report_command
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
 
@@ -73,6 +75,7 @@ def _parser(stdout) -> _Parser:
     check = commands.add_parser("check", help="validate rule sets (exit 0 valid, 2 invalid)", out=stdout,
                                 description="Validate rule-set files: schema, names, ladders, sources.")
     check.add_argument("rulesets", nargs="+", metavar="RULESET")
+    check.add_argument("--strict", action="store_true", help="treat lint warnings as errors (exit 2)")
 
     grade = commands.add_parser("grade", help="grade samples against a rule set", out=stdout,
                                 description="Grade every sample; every row read ends up graded, unrated or "
@@ -100,6 +103,22 @@ def _parser(stdout) -> _Parser:
     spectra = commands.add_parser("spectra", help="compute FTIR measures from spectra files", out=stdout,
                                   description="Read JCAMP-DX or CSV spectra and write band measures as CSV.")
     spectra_command.add_arguments(spectra)
+
+    compare = commands.add_parser("compare", help="preview a rule-set change on samples (exit 3 if any moves)",
+                                  out=stdout, description="Grade the same samples under two rule sets and report "
+                                                          "which samples move between grades and why.")
+    authoring_cli.add_compare_arguments(compare)
+
+    propose = commands.add_parser("propose-limits", help="propose ladder limits from the site's own results",
+                                  out=stdout, description="Propose a ladder for one measure of one class from the "
+                                                          "site's results (ASTM D7720 approach) as a YAML snippet.")
+    authoring_cli.add_propose_arguments(propose)
+
+    report = commands.add_parser("report", help="write one self-contained HTML report of graded results",
+                                 out=stdout, description="Write one HTML file (no scripts, fonts or links) with "
+                                                         "the batch summary, units by attention, trend plots "
+                                                         "and every flagged sample's reasons.")
+    report_command.add_arguments(report)
     return parser
 
 
@@ -139,18 +158,7 @@ def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
 
 
 def _check(args, stdin, stdout, stderr) -> int:
-    failed = 0
-    for path in args.rulesets:
-        try:
-            rs = load_ruleset(path)
-        except InvalidFile as exc:
-            stderr.write(f"{exc}\n")
-            failed += 1
-            continue
-        rules = sum(len(rs.rules_for(name)) for name in rs.classes)
-        stdout.write(f"{path}: ok: rule set {rs.id} version {rs.version}, {len(rs.classes)} class(es), "
-                     f"{rules} rule(s), {len(rs.caveats)} caveat(s), sha256 {rs.sha256}\n")
-    return USAGE if failed else OK
+    return authoring_cli.run_check(args.rulesets, args.strict, stdout, stderr)
 
 
 def _read(args, stdin):
@@ -198,7 +206,8 @@ def _grade(args, stdin, stdout, stderr) -> int:
                              f"[{', '.join(ruleset.grades)}]")
         fail_level = ruleset.level_of(args.fail_at)
     graded = grade_batch(batch, ruleset)
-    writer = {"jsonl": write_jsonl, "csv": write_csv, "table": write_table}[args.format]
+    writer = {"jsonl": write_jsonl, "csv": write_csv,
+              "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
     if args.out:
         with open(args.out, "w", encoding="utf-8", newline="") as out:
             writer(graded, out)
@@ -239,6 +248,8 @@ def _demo(args, stdin, stdout, stderr) -> int:
         write_jsonl(graded, out)
     rejects_path = out_dir / "brackwater-rejects.jsonl"
     _write_rejects(batch, rejects_path, stderr)
+    report_path = out_dir / "brackwater-report.html"
+    report_command.write_report(results_path, report_path, rejects_path, rules)
 
     grades = list(ruleset.grades) + ["unrated"]
     table = Counter(zip(graded.measured["class"].fillna("(none)"), graded.grades()))
@@ -250,7 +261,7 @@ def _demo(args, stdin, stdout, stderr) -> int:
     for name in classes:
         stdout.write(f"{name:<{width}}  " + "  ".join(f"{table.get((name, g), 0):>7}" for g in grades) + "\n")
     stdout.write("\n" + _summary(graded).replace("sumpwise: ", "", 1))
-    stdout.write(f"results: {results_path}\nrejects: {rejects_path}\n")
+    stdout.write(f"results: {results_path}\nrejects: {rejects_path}\nreport: {report_path}\n")
     stdout.write(f"explain one: sumpwise explain SAMPLE_ID --samples {samples} --rules {rules}\n\n")
     stdout.write(caution_text("! ") + "\n")
     return OK
@@ -260,7 +271,20 @@ def _spectra(args, stdin, stdout, stderr) -> int:
     return spectra_command.run(args, stdout, stderr)
 
 
-_COMMANDS = {"check": _check, "grade": _grade, "explain": _explain, "demo": _demo, "spectra": _spectra}
+def _compare(args, stdin, stdout, stderr) -> int:
+    return authoring_cli.run_compare(args, stdout, stderr)
+
+
+def _propose_limits(args, stdin, stdout, stderr) -> int:
+    return authoring_cli.run_propose_limits(args, stdout, stderr)
+
+
+def _report(args, stdin, stdout, stderr) -> int:
+    return report_command.run(args, stdout, stderr)
+
+
+_COMMANDS = {"check": _check, "grade": _grade, "explain": _explain, "demo": _demo, "spectra": _spectra,
+             "compare": _compare, "propose-limits": _propose_limits, "report": _report}
 
 
 def entry() -> None:

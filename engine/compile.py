@@ -66,7 +66,7 @@ class _Compiler:
             grades=tuple(self.grades), notice=header.get("notice", DEFAULT_NOTICE).strip(),
             lubricants=lubricants, classes=classes, rules=common, caveats=caveats,
             measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
-            canonical="", examples=examples,
+            canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
         )
         canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
         digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
@@ -77,6 +77,18 @@ class _Compiler:
     def _origin(self, placed: Placed) -> Origin:
         mark = placed.doc.mark(placed.path)
         return Origin(placed.doc.file, mark.line, mark.column, json_path(placed.path))
+
+    def _class_origins(self) -> dict:
+        origins = {}
+        for name, placed in self.r.class_places.items():
+            mark = placed.doc.mark(placed.path, key=True)
+            origins[name] = Origin(placed.doc.file, mark.line, mark.column, json_path(placed.path))
+        return origins
+
+    def _file_units(self) -> dict:
+        places = [*self.r.class_places.values(), *self.r.rules.values(), *self.r.caveats.values()]
+        places += [p for rules in self.r.classes.values() for p in rules.values()]
+        return {placed.doc.file: dict(placed.units) for placed in places}
 
     def _scale(self, placed: Placed, measure: str) -> float:
         key = unit_key(measure)

@@ -169,6 +169,9 @@ class RuleSet:
     canonical: str = field(repr=False)
     sha256: str = ""
     examples: tuple = ()
+    # Where each class was last declared, and each file's `units:`: marks for lint messages.
+    class_origins: dict = field(default_factory=dict, compare=False, repr=False)
+    file_units: dict = field(default_factory=dict, compare=False, repr=False)
 
     def level_of(self, grade: str) -> int:
         return self.grades.index(grade)
