@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from .bands import BandSet, load_bands, measure_block, plan_bands
-from .jcampdx import read_jcampdx
+from .jcampdx import read_jcampdx, read_jcampdx_many
 from .spectrum import Spectrum, SpectrumError
 from .spectrum_csv import read_spectrum_csv
 
@@ -50,6 +50,22 @@ def read_spectrum(path: Path | str) -> Spectrum:
     if path.suffix.lower() == ".csv":
         return read_spectrum_csv(path)
     return read_jcampdx(path)
+
+
+def read_spectra(paths) -> list:
+    """Read many spectra; each entry is a Spectrum or the SpectrumError that rejected it (in order)."""
+    paths = [Path(p) for p in paths]
+    results = [None] * len(paths)
+    jcamp = [i for i, p in enumerate(paths) if p.suffix.lower() != ".csv"]
+    for i, result in zip(jcamp, read_jcampdx_many([paths[i] for i in jcamp])):
+        results[i] = result
+    for i, path in enumerate(paths):
+        if results[i] is None:
+            try:
+                results[i] = read_spectrum_csv(path)
+            except SpectrumError as exc:
+                results[i] = exc
+    return results
 
 
 def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm: float = 0.1,
@@ -97,11 +113,11 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     paths = [Path(p) for p in paths]
     rejections = {}
     spectra = {}
-    for i, path in enumerate(paths):
-        try:
-            spectra[i] = read_spectrum(path)
-        except SpectrumError as exc:
-            rejections[i] = Rejection(str(path), exc.line, exc.reason)
+    for i, result in zip(range(len(paths)), read_spectra(paths)):
+        if isinstance(result, SpectrumError):
+            rejections[i] = Rejection(str(paths[i]), result.line, result.reason)
+        else:
+            spectra[i] = result
     loaded_refs = {}
     for i, spectrum in list(spectra.items()):
         ref_path = references.get(str(paths[i]))

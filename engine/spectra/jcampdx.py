@@ -67,16 +67,61 @@ _DATA_LABEL = re.compile(r"^##(XYDATA|XYPOINTS|PEAKTABLE|NTUPLES|DATATABLE)=(.*)
 
 def read_jcampdx(path: Path | str) -> Spectrum:
     """Read one single-spectrum JCAMP-DX file; raise SpectrumError naming file and line."""
-    path = Path(path)
-    try:
-        text = path.read_bytes().decode("latin-1")
-    except OSError as exc:
-        raise SpectrumError(str(path), None, f"cannot read file: {exc.strerror}") from exc
-    return parse_jcampdx(text, str(path))
+    return _decode([_prepare(_read_text(path), str(path))])[0]
+
+
+def read_jcampdx_many(paths, chunk: int = 256) -> list:
+    """Read many files; each entry is a Spectrum or the SpectrumError that rejected that file.
+
+    The numeric decoding runs once per chunk of files (one set of numpy
+    calls for all of them); a chunk that meets an error is decoded again
+    file by file, so the error names its own file and line.
+    """
+    results = []
+    for start in range(0, len(paths), chunk):
+        prepared = []
+        for path in paths[start : start + chunk]:
+            try:
+                prepared.append(_prepare(_read_text(path), str(path)))
+            except SpectrumError as exc:
+                prepared.append(exc)
+        ready = [item for item in prepared if not isinstance(item, SpectrumError)]
+        try:
+            decoded = iter(_decode(ready))
+            results.extend(item if isinstance(item, SpectrumError) else next(decoded) for item in prepared)
+        except SpectrumError:
+            for item in prepared:
+                results.append(item if isinstance(item, SpectrumError) else _decode_or_error(item))
+    return results
 
 
 def parse_jcampdx(text: str, source: str) -> Spectrum:
     """Parse JCAMP-DX text (see module docstring for what is supported)."""
+    return _decode([_prepare(text, source)])[0]
+
+
+def _read_text(path):
+    try:
+        return Path(path).read_bytes().decode("latin-1")
+    except OSError as exc:
+        raise SpectrumError(str(path), None, f"cannot read file: {exc.strerror}") from exc
+
+
+def _decode_or_error(item):
+    try:
+        return _decode([item])[0]
+    except SpectrumError as exc:
+        return exc
+
+
+class _Prepared:
+    """A file split into header and data lines, before its numbers are decoded."""
+
+    def __init__(self, ctx, raw, line_numbers, spectrum=None):
+        self.ctx, self.raw, self.line_numbers, self.spectrum = ctx, raw, line_numbers, spectrum
+
+
+def _prepare(text, source):
     match = _DATA_LABEL.search(text)
     if match is None:
         raise SpectrumError(source, None, "no ##XYDATA= or ##XYPOINTS= data block")
@@ -99,18 +144,40 @@ def parse_jcampdx(text: str, source: str) -> Spectrum:
     _check_trailer(text[block_end + 1 :], source, data_line + block.count("\n") + 2)
     if "$$" in block:
         block = _COMMENT.sub("", block)
-    context = _Context(source, header, header_lines, data_line)
-    if label == "XYDATA":
-        if form != "(X++(Y..Y))":
-            raise SpectrumError(source, data_line, f"##XYDATA={form} is not read; expected (X++(Y..Y))")
-        x, y = _read_xydata(block, context)
-    else:
+    ctx = _Context(source, header, header_lines, data_line)
+    ctx.required("XUNITS")
+    ctx.required("YUNITS")
+    if label == "XYPOINTS":
         if form not in ("(XY..XY)", "(XY,XY)"):
             raise SpectrumError(source, data_line, f"##XYPOINTS={form} is not read; expected (XY..XY)")
-        x, y = _read_xypoints(block, context)
-    x_units = context.required("XUNITS")
-    y_units = context.required("YUNITS")
-    return make_spectrum(source, x, y, x_units, y_units, context.line("FIRSTX") or data_line)
+        x, y = _read_xypoints(block, ctx)
+        return _Prepared(ctx, None, None, _spectrum(ctx, x, y))
+    if form != "(X++(Y..Y))":
+        raise SpectrumError(source, data_line, f"##XYDATA={form} is not read; expected (X++(Y..Y))")
+    for key in ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR"):
+        ctx.number(key, None if key in ("FIRSTX", "LASTX", "NPOINTS") else 1.0)
+    raw = block.encode("latin-1")
+    line_numbers = data_line + 1 + np.arange(raw.count(b"\n") + 1)
+    if _has_blank_line(raw):
+        kept = [(line, number) for line, number in zip(raw.split(b"\n"), line_numbers) if line.strip()]
+        if not kept:
+            raise SpectrumError(source, data_line, "data block is empty")
+        raw = b"\n".join(line for line, _ in kept)
+        line_numbers = np.array([number for _, number in kept])
+    return _Prepared(ctx, raw, line_numbers)
+
+
+def _spectrum(ctx, x, y):
+    return make_spectrum(ctx.source, x, y, ctx.header["XUNITS"], ctx.header["YUNITS"], ctx.line("FIRSTX") or ctx.data_line)
+
+
+def _decode(items):
+    """Decode the XYDATA of several prepared files with one pass of array operations."""
+    pending = [item for item in items if item.spectrum is None]
+    if pending:
+        decoded = iter(_decode_xydata(pending))
+        return [item.spectrum if item.spectrum is not None else next(decoded) for item in items]
+    return [item.spectrum for item in items]
 
 
 class _Context:
@@ -173,35 +240,43 @@ def _check_trailer(trailer, source, first_line):
     raise SpectrumError(source, first_line + trailer.rstrip("\n").count("\n"), "file ends without ##END=")
 
 
-def _read_xydata(block, ctx):
-    first_x, last_x = ctx.number("FIRSTX"), ctx.number("LASTX")
-    npoints = int(ctx.number("NPOINTS"))
-    x_factor, y_factor = ctx.number("XFACTOR", 1.0), ctx.number("YFACTOR", 1.0)
-    raw = block.encode("latin-1")
-    line_numbers = ctx.data_line + 1 + np.arange(raw.count(b"\n") + 1)
-    if _has_blank_line(raw):
-        kept = [(line, number) for line, number in zip(raw.split(b"\n"), line_numbers) if line.strip()]
-        if not kept:
-            raise SpectrumError(ctx.source, ctx.data_line, "data block is empty")
-        raw = b"\n".join(line for line, _ in kept)
-        line_numbers = np.array([number for _, number in kept])
+def _decode_xydata(items):
+    source = items[0].ctx.source if len(items) == 1 else "<batch>"
+    raw = b"\n".join(item.raw for item in items)
+    lines_per_file = np.array([item.line_numbers.size for item in items])
+    line_numbers = np.concatenate([item.line_numbers for item in items])
+    line_file = np.repeat(np.arange(len(items)), lines_per_file)
+    first_line = np.zeros(line_numbers.size, dtype=bool)
+    first_line[np.cumsum(lines_per_file) - lines_per_file] = True
+    header = np.array([[item.ctx.number(k, 1.0) for k in ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR")]
+                       for item in items])
+    first_x, last_x, npoints, x_factor, y_factor = header.T
+    npoints = npoints.astype(np.int64)
     chars = np.frombuffer(raw, dtype=np.uint8).copy()
-    line_x, line_unit = _take_line_abscissae(chars, raw, line_numbers, ctx.source)
+    line_x, line_unit = _take_line_abscissae(chars, raw, line_numbers, source)
     y_text = chars.tobytes()
     if b"." in y_text or (any(e in y_text for e in (b"E+", b"E-", b"e+", b"e-")) and _EXPONENT.search(y_text)):
-        y, line_start_index = _decode_affn_floats(y_text, line_numbers, ctx.source)
+        if len(items) > 1:
+            return [_decode_xydata([item])[0] for item in items]
+        y, line_start_index = _decode_affn_floats(y_text, line_numbers, source)
         is_check = np.zeros(line_numbers.size, dtype=bool)
     else:
-        y, line_start_index, is_check = _decode_asdf(y_text, line_numbers, ctx.source)
-    y = y * y_factor
-    delta = (last_x - first_x) / (npoints - 1) if npoints > 1 else 0.0
-    _check_line_abscissae(ctx.source, line_numbers, line_x * x_factor, line_unit * abs(x_factor),
-                          line_start_index - is_check, first_x, delta)
-    if y.size != npoints:
-        raise SpectrumError(
-            ctx.source, ctx.line("NPOINTS"), f"##NPOINTS={npoints} but the data block holds {y.size} points"
-        )
-    return first_x + np.arange(npoints) * delta, y
+        y, line_start_index, is_check = _decode_asdf(y_text, line_numbers, source, first_line)
+    file_start = np.append(line_start_index[first_line], y.size)
+    counts = np.diff(file_start)
+    delta = np.where(npoints > 1, (last_x - first_x) / np.maximum(npoints - 1, 1), 0.0)
+    _check_line_abscissae(source, line_numbers, line_x * x_factor[line_file], line_unit * np.abs(x_factor[line_file]),
+                          line_start_index - is_check - file_start[line_file], first_x[line_file], delta[line_file])
+    wrong = np.flatnonzero(counts != npoints)
+    if wrong.size:
+        ctx = items[wrong[0]].ctx
+        raise SpectrumError(ctx.source, ctx.line("NPOINTS"),
+                            f"##NPOINTS={npoints[wrong[0]]} but the data block holds {counts[wrong[0]]} points")
+    spectra = []
+    for k, item in enumerate(items):
+        x = first_x[k] + np.arange(npoints[k]) * delta[k]
+        spectra.append(_spectrum(item.ctx, x, y[file_start[k] : file_start[k + 1]] * y_factor[k]))
+    return spectra
 
 
 def _has_blank_line(raw):
@@ -253,8 +328,6 @@ def _is_float(text):
 
 def _check_line_abscissae(source, line_numbers, line_x, line_unit, index, first_x, delta):
     """Each line's X must sit at its first point's position: catches a lost or extra value mid-file."""
-    if delta == 0.0:
-        return
     expected = first_x + index * delta
     tolerance = 0.5 * abs(delta) + 0.5 * line_unit + 1e-9 * np.abs(expected)
     off = np.flatnonzero(np.abs(line_x - expected) > tolerance)
@@ -285,7 +358,7 @@ def _decode_affn_floats(y_text, line_numbers, source):
     return values, np.cumsum(counts) - counts
 
 
-def _decode_asdf(y_text, line_numbers, source):
+def _decode_asdf(y_text, line_numbers, source, first_line):
     """Decode SQZ/DIF/DUP/PAC Y values of all lines at once; return ints, each line's first index, check flags."""
     chars = np.frombuffer(y_text, dtype=np.uint8)
     kind = _KIND[chars]
@@ -345,8 +418,11 @@ def _decode_asdf(y_text, line_numbers, source):
     line_first = np.cumsum(per_line) - per_line
     if not point_is_dif.any():
         return point_value.astype(np.float64), line_first, np.zeros(line_numbers.size, dtype=bool)
-    if point_is_dif[0]:
-        raise located(token_pos[0], "data start with a DIF value: there is no previous value to add it to")
+    starts_dif = point_is_dif[line_first[first_line]]
+    if starts_dif.any():
+        k = int(np.flatnonzero(first_line)[np.argmax(starts_dif)])
+        raise SpectrumError(source, int(line_numbers[k]),
+                            "data start with a DIF value: there is no previous value to add it to")
 
     index = np.arange(point_value.size)
     last_absolute = np.maximum.accumulate(np.where(point_is_dif, 0, index))
@@ -356,6 +432,7 @@ def _decode_asdf(y_text, line_numbers, source):
     line_last = line_first + per_line - 1
     is_check = np.zeros(line_numbers.size, dtype=bool)
     is_check[1:] = point_is_dif[line_last[:-1]]
+    is_check &= ~first_line
     checked = np.flatnonzero(is_check)
     if checked.size:
         not_absolute = point_is_dif[line_first[checked]]

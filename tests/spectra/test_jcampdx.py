@@ -164,3 +164,22 @@ def test_xypoints_odd_count_is_an_error():
     text = HAND.split("##XYDATA")[0] + "##XYPOINTS=(XY..XY)\n1000, 0.1\n1001\n##END=\n"
     error = _error(text)
     assert error.line == 15 and "odd count" in error.reason
+
+
+def test_reading_many_files_at_once_equals_reading_each_and_isolates_a_bad_one(tmp_path):
+    from engine.spectra.jcampdx import read_jcampdx_many
+
+    x = wavenumber_grid()[::-1]
+    paths = []
+    for k, form in enumerate(["DIF", "DIFDUP", "SQZ", "AFFN", "PAC", "XYPOINTS"]):
+        paths.append(write_jcampdx(tmp_path / f"{k}.jdx", x, oil_spectrum(x, oxidation=k, noise=1e-4, seed=k), form=form))
+    bad = tmp_path / "bad.jdx"
+    bad.write_text(paths[0].read_text().replace("##FIRSTY", "##NPOINTS= 1727\n##FIRSTY"))  # spacing no longer fits
+    paths.insert(2, bad)
+    paths.append(DATA / "dupdec1.jdx")
+    results = read_jcampdx_many(paths, chunk=4)
+    assert isinstance(results[2], SpectrumError) and results[2].source == str(bad) and results[2].line is not None
+    for path, result in zip(paths, results):
+        if path != bad:
+            np.testing.assert_array_equal(result.absorbance, read_jcampdx(path).absorbance)
+            assert result.source == str(path)
