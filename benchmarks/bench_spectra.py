@@ -15,17 +15,17 @@ from pathlib import Path
 import numpy as np
 
 from engine.spectra.bands import load_bands, measure_block, plan_bands
-from engine.spectra.jcampdx import read_jcampdx
+from engine.spectra.jcampdx import read_jcampdx, read_jcampdx_many
 from engine.spectra.synthetic import oil_spectrum, random_used_oils, wavenumber_grid, write_jcampdx
 
 BLOCK = 10_000
 
 
-def bench_measures(count, x, bands, plan):
+def bench_measures(count, x, bands, plan, dtype=np.float64):
     """Time measure_block over `count` spectra made in blocks of BLOCK (generation not timed)."""
     elapsed = 0.0
     for start in range(0, count, BLOCK):
-        block = random_used_oils(x, min(BLOCK, count - start), seed=start)
+        block = random_used_oils(x, min(BLOCK, count - start), seed=start).astype(dtype)
         t0 = time.perf_counter()
         measure_block(plan, block)
         elapsed += time.perf_counter() - t0
@@ -48,6 +48,14 @@ def bench_parse(files):
     return time.perf_counter() - t0
 
 
+def bench_parse_many(files):
+    t0 = time.perf_counter()
+    results = read_jcampdx_many(files)
+    elapsed = time.perf_counter() - t0
+    assert all(not isinstance(r, Exception) for r in results)
+    return elapsed
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
@@ -63,9 +71,10 @@ def main():
     loop_rate = options.loop / loop_seconds
     print(f"per-spectrum loop: {options.loop} spectra in {loop_seconds:.3f} s = {loop_rate:,.0f} spectra/s")
     for count in options.sizes:
-        seconds = bench_measures(count, x, bands, plan)
-        print(f"vectorised: {count} spectra in {seconds:.3f} s = {count / seconds:,.0f} spectra/s "
-              f"({count / seconds / loop_rate:.0f}x the loop)")
+        for dtype in (np.float64, np.float32):
+            seconds = bench_measures(count, x, bands, plan, dtype)
+            print(f"vectorised {np.dtype(dtype).name}: {count} spectra in {seconds:.3f} s = "
+                  f"{count / seconds:,.0f} spectra/s ({count / seconds / loop_rate:.0f}x the loop)")
 
     with tempfile.TemporaryDirectory() as tmp:
         for form in ("AFFN", "SQZ", "DIFDUP"):
@@ -80,10 +89,11 @@ def main():
                 path.write_text(texts[n % distinct])
                 files.append(path)
             bench_parse(files[:50])  # warm the file cache
-            seconds = bench_parse(files)
             size = files[0].stat().st_size
-            print(f"parse {form}: {len(files)} files of {x.size} points (~{size // 1000} kB) in {seconds:.3f} s "
-                  f"= {len(files) / seconds:,.0f} files/s")
+            for label, reader in (("one at a time", bench_parse), ("read_jcampdx_many", bench_parse_many)):
+                seconds = reader(files)
+                print(f"parse {form} ({label}): {len(files)} files of {x.size} points (~{size // 1000} kB) "
+                      f"in {seconds:.3f} s = {len(files) / seconds:,.0f} files/s")
 
 
 if __name__ == "__main__":

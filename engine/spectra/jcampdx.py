@@ -7,8 +7,9 @@ Why our own reader and not the MIT `jcamp` package:
   silently loses points is worse than none for trend limits;
 - a rejected file must say which line failed (Y-check, point count, missing
   ##END), which a generic reader does not report;
-- the decoder here is vectorised over the whole data block with numpy, so
-  parsing keeps pace with the band measures.
+- the decoder here is vectorised with numpy over whole data blocks, and
+  `read_jcampdx_many` decodes a chunk of files in one pass, so parsing keeps
+  pace with the band measures; jcamp decodes value by value in Python.
 
 What is read: ##XYDATA=(X++(Y..Y)) in AFFN, PAC or ASDF (SQZ, DIF with its
 Y-check, DUP; every pseudo-digit replaces only the leading digit, McDonald &
@@ -70,7 +71,7 @@ def read_jcampdx(path: Path | str) -> Spectrum:
     return _decode([_prepare(_read_text(path), str(path))])[0]
 
 
-def read_jcampdx_many(paths, chunk: int = 256) -> list:
+def read_jcampdx_many(paths, chunk: int = 32) -> list:
     """Read many files; each entry is a Spectrum or the SpectrumError that rejected that file.
 
     The numeric decoding runs once per chunk of files (one set of numpy
