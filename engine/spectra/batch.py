@@ -151,7 +151,10 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
         for k, i in enumerate(members):
             spectrum = spectra[i]
             if uncovered:
-                rejections[i] = Rejection(str(paths[i]), spectrum.range_line, next(iter(uncovered.values())))
+                reason = next(iter(uncovered.values()))
+                if len(uncovered) > 1:
+                    reason += "; nor bands " + ", ".join(list(uncovered)[1:])
+                rejections[i] = Rejection(str(paths[i]), spectrum.range_line, reason)
                 continue
             bad = [name for name in bands.names if not np.isfinite(values[name][k])]
             if bad:

@@ -21,6 +21,7 @@ files, NTUPLES and peak tables are refused with a clear error.
 from __future__ import annotations
 
 import re
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -115,11 +116,14 @@ def _decode_or_error(item):
         return exc
 
 
+@dataclass(frozen=True)
 class _Prepared:
-    """A file split into header and data lines, before its numbers are decoded."""
+    """A file split into header and data lines, before its numbers are decoded (XYPOINTS: already read)."""
 
-    def __init__(self, ctx, raw, line_numbers, spectrum=None):
-        self.ctx, self.raw, self.line_numbers, self.spectrum = ctx, raw, line_numbers, spectrum
+    ctx: "_Context"
+    raw: bytes | None
+    line_numbers: np.ndarray | None
+    spectrum: Spectrum | None = None
 
 
 def _prepare(text, source):

@@ -183,3 +183,10 @@ def test_reading_many_files_at_once_equals_reading_each_and_isolates_a_bad_one(t
         if path != bad:
             np.testing.assert_array_equal(result.absorbance, read_jcampdx(path).absorbance)
             assert result.source == str(path)
+
+
+def test_crlf_line_endings_as_in_the_original_test_files(tmp_path):
+    # The Lancashire files are distributed with CR LF line ends (stored here with LF).
+    crlf = tmp_path / "dupdec1_crlf.jdx"
+    crlf.write_bytes((DATA / "dupdec1.jdx").read_bytes().replace(b"\n", b"\r\n"))
+    np.testing.assert_array_equal(read_jcampdx(crlf).absorbance, read_jcampdx(DATA / "dupdec1.jdx").absorbance)
