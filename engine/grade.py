@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
+import numpy as np
 import pandas as pd
 
 from .evaluate import evaluate
@@ -9,14 +12,23 @@ from .measures import INPUT_MEASURES, derive_measures
 from .results import GradedBatch
 from .ruleset import RuleSet
 from .samples import ColumnMap, SampleBatch, validate_samples
+from .trends import TREND_CAVEATS, add_trend_measures, read_oil_changes, trend_bases, trend_caveat_flags
 
 
-def grade_batch(batch: SampleBatch, ruleset: RuleSet) -> GradedBatch:
-    """Derive measures for the accepted rows and evaluate the rule set over them."""
+def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None) -> GradedBatch:
+    """Derive measures for the accepted rows and evaluate the rule set over them.
+
+    Trend measures compare each sample with its unit's previous one: within the batch, after the
+    earlier samples in `history` (trends.CHAIN_COLUMNS and the measures; a ledger supplies it).
+    """
+    batch = read_oil_changes(batch)
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
+    measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, trend_bases(ruleset))
     outcome = evaluate(ruleset, measured)
+    outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
-    return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried)
+    return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
+                       TREND_CAVEATS)
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:

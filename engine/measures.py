@@ -41,7 +41,8 @@ class DerivedMeasure:
     meaning: str
 
 
-DERIVED_MEASURES = {
+# Measures derived from one sample's own values (and its new-oil reference).
+ROW_MEASURES = {
     "kv40_change_pct": DerivedMeasure("%", ("kv40", "new_kv40"), None,
                                       "(used - new) / new x 100, viscosity at 40 C"),
     "kv100_change_pct": DerivedMeasure("%", ("kv100", "new_kv100"), None,
@@ -57,6 +58,32 @@ DERIVED_MEASURES = {
     "bn_retained_pct": DerivedMeasure("%", ("bn", "new_bn"), None, "base number / new-oil base number x 100"),
     "rpvot_retained_pct": DerivedMeasure("%", ("rpvot", "new_rpvot"), None, "RPVOT / new-oil RPVOT x 100"),
 }
+
+# Trend measures compare a sample with its unit's previous sample (engine/trends.py computes them).
+# `previous_<base>` and `hours_since_previous` are columns of the measured frame, so "not evaluated"
+# can say that the previous sample was lacking (first sample, oil change, or a trend break).
+TREND_BASES = ("kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation", "antiwear", "soot", "water",
+               "rpvot")
+
+
+def _trend_vocabulary() -> dict:
+    vocabulary = {}
+    for base in TREND_BASES:
+        unit, previous = INPUT_MEASURES[base], f"previous_{base}"
+        vocabulary[f"{base}_step"] = DerivedMeasure(unit, (base, previous), base,
+                                                    f"{base} minus the unit's previous sample's {base}")
+        vocabulary[f"{base}_step_per_1000h"] = DerivedMeasure(
+            f"{unit} per 1000 h", (base, previous, "hours_since_previous"), base,
+            f"{base}_step / oil hours between the two samples x 1000")
+        vocabulary[f"{base}_rising"] = DerivedMeasure("", (base, previous), None,
+                                                      f"consecutive rises of {base} ending at this sample")
+    return vocabulary
+
+
+TREND_MEASURES = _trend_vocabulary()
+
+# Every derived measure a rule can name.
+DERIVED_MEASURES = {**ROW_MEASURES, **TREND_MEASURES}
 
 # Text columns a `field:` condition may read without the rule set declaring them.
 KNOWN_FIELDS = ("sample_id", "unit_id", "class", "lubricant", "base_stock", "method", "lab", "sampled_on")
@@ -82,15 +109,26 @@ def unit_key(measure: str) -> str | None:
 
 def _numbers(frame: pd.DataFrame, column: str) -> np.ndarray:
     if column in frame.columns:
-        return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        values = frame[column]
+        if values.dtype.kind != "f":
+            values = pd.to_numeric(values, errors="coerce")
+        return values.to_numpy(dtype=float, na_value=np.nan)
     return np.full(len(frame), np.nan)
 
 
 def _texts(frame: pd.DataFrame, column: str) -> pd.Series:
+    """A text column as str-or-None; samples.py has already stripped it and blanked empty cells."""
     if column in frame.columns:
         series = frame[column].astype(object)
-        return series.where(series.notna() & (series.astype(str).str.strip() != ""), None)
+        return series.where(series.notna(), None)
     return pd.Series([None] * len(frame), index=frame.index, dtype=object)
+
+
+def _by_code(codes: np.ndarray, known: list, values: list, fill) -> np.ndarray:
+    """Look a per-lubricant value up for every row (one factorize, not one dict lookup a row)."""
+    table = np.array(list(values) + [fill], dtype=object if fill is None else float)
+    where = pd.Index(known).get_indexer(codes) if known else np.full(len(codes), -1)
+    return table[where]
 
 
 def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), extra_fields=()) -> pd.DataFrame:
@@ -104,16 +142,19 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out[name] = _numbers(samples, name)
 
     lubricant = _texts(samples, "lubricant")
+    codes = lubricant.to_numpy(dtype=object)
+    known = list(lubricants)
     for name in REFERENCE_VALUES:
-        table = {code: getattr(lub, name) for code, lub in lubricants.items() if getattr(lub, name) is not None}
-        from_table = lubricant.map(table).to_numpy(dtype=float, na_value=np.nan)
+        reference = [np.nan if getattr(lub, name) is None else getattr(lub, name) for lub in lubricants.values()]
+        from_table = _by_code(codes, known, reference, np.nan).astype(float)
         own = _numbers(samples, f"new_{name}")
         out[f"new_{name}"] = np.where(np.isnan(own), from_table, own)
 
     fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields)}
-    base_from_table = lubricant.map({code: lub.base_stock for code, lub in lubricants.items() if lub.base_stock})
-    fields["base_stock"] = fields["base_stock"].where(fields["base_stock"].notna(), base_from_table)
-    method = fields["method"].where(fields["method"].notna(), "direct").str.strip().str.lower()
+    base_from_table = _by_code(codes, known, [lub.base_stock for lub in lubricants.values()], None)
+    fields["base_stock"] = fields["base_stock"].where(fields["base_stock"].notna(),
+                                                      pd.Series(base_from_table, index=samples.index))
+    method = fields["method"].where(fields["method"].notna(), "direct").astype(str).str.lower().astype(object)
     fields["method"] = method
 
     subtraction = (method == "subtraction").to_numpy()
@@ -131,7 +172,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out["an_rise_per_1000h"] = out["an_rise"] * per_hour
         out["bn_retained_pct"] = out["bn"] / out["new_bn"] * 100.0
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
-    for name in DERIVED_MEASURES:
+    for name in ROW_MEASURES:
         if name != "vi":
             values = np.round(out[name], _DECIMALS)
             out[name] = np.where(np.isfinite(values), values, np.nan)

@@ -178,6 +178,7 @@ class GradedBatch:
     rows_read: int = 0
     source: str = ""
     value_columns: tuple = ()  # input measures the samples file carried, recorded with each result
+    engine_caveats: tuple = ()  # caveats the engine raises itself; their outcome columns follow the rule set's
 
     def __len__(self) -> int:
         return len(self.measured)
@@ -278,6 +279,8 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
     order = sorted(range(len(reasons)), key=lambda k: -reasons[k].level)
     reasons = [reasons[k] for k in order]
     caveats = [CaveatNote(c.id, c.message, c.source) for k, c in enumerate(rs.caveats) if out.caveats[i, k]]
+    caveats += [CaveatNote(c.id, values.text(c.message_column, i), c.source)
+                for k, c in enumerate(batch.engine_caveats, len(rs.caveats)) if out.caveats[i, k]]
 
     level = int(out.level[i])
     class_name = values.text("class", i)
