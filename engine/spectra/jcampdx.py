@@ -316,9 +316,9 @@ def _take_line_abscissae(chars, raw, line_numbers, source):
     dots = np.flatnonzero(chars == 46)
     dot = dots[np.minimum(np.searchsorted(dots, x_start), max(dots.size - 1, 0))] if dots.size else x_end
     decimals = np.where((dot >= x_start) & (dot < x_end), x_end - dot - 1, 0)
-    mark = np.zeros(chars.size + 1, dtype=np.int32)
-    np.add.at(mark, x_start, 1)
-    np.add.at(mark, x_end, -1)
+    mark = np.zeros(chars.size + 1, dtype=np.int8)
+    mark[x_start] = 1  # one X per line, and each ends before the next begins
+    mark[x_end] = -1
     chars[np.cumsum(mark[:-1]) > 0] = 32
     return line_x, 10.0 ** -decimals
 
@@ -372,23 +372,23 @@ def _decode_asdf(y_text, line_numbers, source, first_line):
     def located(position, reason):
         return SpectrumError(source, int(line_numbers[np.searchsorted(newlines, position)]), reason)
 
-    bad = np.flatnonzero(kind == _INVALID)
-    if bad.size:
-        ch = chr(chars[bad[0]])
-        raise located(bad[0], f"character {ch!r} is not part of AFFN, PAC or ASDF (SQZ/DIF/DUP) data")
+    invalid = kind == _INVALID
+    if invalid.any():
+        first_bad = int(np.argmax(invalid))
+        raise located(first_bad, f"character {chr(chars[first_bad])!r} is not part of AFFN, PAC or ASDF (SQZ/DIF/DUP) data")
     separator = kind == _SEP
-    after_separator = np.empty_like(separator)
-    after_separator[0] = True
-    after_separator[1:] = separator[:-1]
-    starts = (kind >= _ABS) | ((kind == _DIGIT) & after_separator)
+    starts = kind >= _ABS
+    starts[1:] |= (kind[1:] == _DIGIT) & separator[:-1]
+    starts[0] |= kind[0] == _DIGIT
     in_token = np.flatnonzero(~separator)
     token_first = np.flatnonzero(starts[in_token])
     lengths = np.diff(np.append(token_first, in_token.size))
     if lengths.max() > 18:
         k = int(np.argmax(lengths > 18))
         raise located(in_token[token_first[k]], "a value has more than 18 digits")
-    token_of_char = np.cumsum(starts[in_token]) - 1
-    place = lengths[token_of_char] - 1 - (np.arange(in_token.size) - token_first[token_of_char])
+    token_of_char = np.cumsum(starts[in_token], dtype=np.int32)
+    token_of_char -= 1
+    place = (token_first + lengths - 1)[token_of_char] - np.arange(in_token.size)
     magnitude = np.add.reduceat(_LEAD[chars[in_token]] * _POW10[place], token_first)
     lead_char = chars[in_token[token_first]]
     token_kind = _KIND[lead_char]
