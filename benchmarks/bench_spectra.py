@@ -21,7 +21,7 @@ from engine.spectra.synthetic import oil_spectrum, random_used_oils, wavenumber_
 BLOCK = 10_000
 
 
-def bench_measures(count, x, bands, plan, dtype=np.float64):
+def bench_measures(count, x, plan, dtype=np.float64):
     """Time measure_block over `count` spectra made in blocks of BLOCK (generation not timed)."""
     elapsed = 0.0
     for start in range(0, count, BLOCK):
@@ -32,7 +32,7 @@ def bench_measures(count, x, bands, plan, dtype=np.float64):
     return elapsed
 
 
-def bench_loop(count, x, bands, plan):
+def bench_loop(count, x, plan):
     """The same measures one spectrum at a time (the baseline the vectorised path replaces)."""
     block = random_used_oils(x, count, seed=1)
     t0 = time.perf_counter()
@@ -67,12 +67,12 @@ def main():
     bands = load_bands()
     plan = plan_bands(x, bands.bands)
     print(f"grid: {x.size} points, {len(bands.bands)} bands, blocks of {BLOCK}")
-    loop_seconds = bench_loop(options.loop, x, bands, plan)
+    loop_seconds = bench_loop(options.loop, x, plan)
     loop_rate = options.loop / loop_seconds
     print(f"per-spectrum loop: {options.loop} spectra in {loop_seconds:.3f} s = {loop_rate:,.0f} spectra/s")
     for count in options.sizes:
         for dtype in (np.float64, np.float32):
-            seconds = bench_measures(count, x, bands, plan, dtype)
+            seconds = bench_measures(count, x, plan, dtype)
             print(f"vectorised {np.dtype(dtype).name}: {count} spectra in {seconds:.3f} s = "
                   f"{count / seconds:,.0f} spectra/s ({count / seconds / loop_rate:.0f}x the loop)")
 

@@ -12,7 +12,7 @@ import pytest
 from engine.spectra.batch import measure_spectra
 from engine.spectra.spectrum import SpectrumError
 from engine.spectra.spectrum_csv import parse_spectrum_csv
-from engine.spectra.synthetic import gaussian, oil_spectrum, wavenumber_grid, write_jcampdx
+from engine.spectra.synthetic import oil_spectrum, wavenumber_grid, write_jcampdx
 
 X = wavenumber_grid()
 CARBONYL = 5.0  # added carbonyl area, abs*cm-1 at 0.1 mm
