@@ -90,7 +90,7 @@ def run_propose_limits(args, stdout, stderr) -> int:
     try:
         found = propose_from_samples(batch, args.class_name, args.measure, args.lubricant, ruleset,
                                      args.direction, args.method)
-    except (NotEnoughData, ValueError) as exc:
+    except NotEnoughData as exc:
         stderr.write(f"sumpwise propose-limits: refused, no limit proposed: {exc}\n")
         return USAGE
     text = snippet(found, args.rule_id)

@@ -332,20 +332,18 @@ def _written(ruleset: RuleSet, origin: Origin, measure: str, value: float) -> tu
 def unit_trouble(measure: str, canonical: float) -> str | None:
     """Why a limit of this size (canonical units) looks written in the wrong unit, if it does."""
     key = unit_key(measure)
-    if key == "water" and measure == "water":
+    if measure == "water":
         if canonical > 1_000_000:
-            return "water cannot exceed 100 % (1 000 000 ppm): was a ppm figure written in a file whose water is in %?"
+            return "water cannot exceed 100 % (1 000 000 ppm)"
         if 0 < canonical < 1:
-            return "below 1 ppm, smaller than any Karl Fischer result: was a % figure written in a file whose " \
-                   "water is in ppm?"
+            return "below 1 ppm, smaller than any Karl Fischer result"
     if UNIT_FAMILY.get(key) == "absorbance" and measure in (key, "oxidation_rise") and abs(canonical) > 500:
-        return ("5 absorbance units through a 0.1 mm cell (500 abs/cm) let 0.001 % of the light through, "
-                "beyond any FTIR reading: was an abs/cm figure written in a file whose unit is abs/0.1mm?")
+        return ("above 500 abs/cm, which is 5 absorbance units through a 0.1 mm cell: 0.001 % of the light "
+                "through, beyond any FTIR reading")
     if measure in ("kv40_change_pct", "kv100_change_pct") and abs(canonical) > 100:
-        return "a change of more than 100 % means the viscosity doubled: was a viscosity in mm2/s written " \
-               "where a percent change belongs?"
+        return "a change of more than 100 % means the viscosity doubled; a viscosity in mm2/s written here?"
     if measure in ("bn_retained_pct", "rpvot_retained_pct") and 0 < canonical <= 1:
-        return "this measure is a percent of new (50 means half): was a fraction written?"
+        return "this measure is a percent of new (50 means half), not a fraction"
     return None
 
 
@@ -370,21 +368,27 @@ def _ends(limit) -> tuple:
 
 
 def _units(ruleset: RuleSet):
-    owners = [(rule, rule.id, "rule", _limits(rule)) for rule in _all_rules(ruleset)]
+    owners = [(rule, "rule", _limits(rule)) for rule in _all_rules(ruleset)]
     for caveat in ruleset.caveats:
         limits = _condition_limits(caveat.when)
         if caveat.cap is not None:
             limits += _condition_limits(caveat.cap.unless)
-        owners.append((caveat, caveat.id, "caveat", limits))
-    for owner, ident, kind, limits in owners:
+        owners.append((caveat, "caveat", limits))
+    for owner, kind, limits in owners:
+        troubled: dict = {}
         for measure, limit in limits:
             why = unit_trouble(measure, limit)
             if why:
-                value, unit = _written(ruleset, owner.origin, measure, limit)
-                unit = unit or _unit_of(measure)
-                yield _warning(owner.origin, f"{kind} '{ident}': the {measure} limit {_num(value)} {unit} looks "
-                                             f"like the wrong unit: {why}",
-                               "write the limit in the unit this file's `units:` declares for the measure")
+                troubled.setdefault((measure, why), []).append(_written(ruleset, owner.origin, measure, limit))
+        for (measure, why), written in troubled.items():
+            unit = written[0][1] or _unit_of(measure)
+            values = ", ".join(_num(value) for value, _ in written)
+            key = unit_key(measure)
+            declared = (f"this file writes {key} in {unit}; " if written[0][1] else "")
+            yield _warning(owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
+                                         f"in the wrong unit: {why}",
+                           f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
+                           if declared else f"write the limit in {unit}")
 
 
 def _unit_of(measure: str) -> str:

@@ -16,7 +16,7 @@ import numpy as np
 
 from .measures import DERIVED_MEASURES, INPUT_MEASURES, derive_measures
 from .problems import InputError
-from .propose import Proposal, proposal_yaml, propose_ladder
+from .propose import NotEnoughData, Proposal, proposal_yaml, propose_ladder
 from .ruleset import RuleSet
 from .ruleset_load import DEFAULT_GRADES
 from .samples import SampleBatch
@@ -56,11 +56,16 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
                                ruleset.fields if ruleset else ())
     chosen = (measured["class"] == class_name).to_numpy(dtype=bool)
     if lubricant is not None:
-        chosen &= (measured["lubricant"] == lubricant).to_numpy(dtype=bool)
+        chosen = chosen & (measured["lubricant"] == lubricant).to_numpy(dtype=bool)
     values = measured[measure].to_numpy(dtype=float, na_value=np.nan)[chosen]
     grades = tuple(grades) if grades else tuple((ruleset.grades if ruleset else DEFAULT_GRADES)[1:])
     direction = direction or ("below" if measure in LOW_IS_BAD else "above")
-    proposal = propose_ladder(values, grades, direction, method=method)
+    try:
+        proposal = propose_ladder(values, grades, direction, method=method)
+    except NotEnoughData:
+        raise
+    except ValueError as exc:  # limits that coincide, or a ladder the defaults do not cover
+        raise InputError(f"no limit proposed: {exc}") from None
 
     dates = measured["sampled_on"].to_numpy(dtype=object)[chosen][~np.isnan(values)]
     dated = sorted(str(d) for d in dates if d is not None)
