@@ -1,23 +1,29 @@
 """Write graded samples as JSON Lines: one object a sample, the same bytes for the same input.
 
-Building a dict and calling json.dumps for each of a million rows costs more than all
-of the grading. Instead rows are grouped by the shape of their record; each shape
-is rendered once, with placeholders for the per-row values (ids, dates, measured
-values), and the lines of a group are assembled column-wise.
+Building a dict and calling json.dumps for each of a million rows would cost more than
+all of the grading. Instead each piece of a record is rendered once per distinct state,
+with placeholders for per-row values, using the same record classes as the Python API:
+the record's skeleton once, each rule's reason once per (grade, capped-from, clauses)
+state, each gap once per pattern of missing inputs, each caveat once. The pieces are
+then joined column-wise over the rows with numpy object arrays. A test checks that
+every line equals json of the per-record API, byte for byte.
 """
 
 from __future__ import annotations
 
 import json
 import re
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
 
-from .results import GradedBatch, build_result, record_shape_groups
+from .evaluate import NOT_EVALUATED
+from .results import (UNRATED, GradedBatch, build_result, caveat_at, gap_at, reason_at, record_shape_groups,
+                      rule_inputs)
 
 _TOKEN = re.compile(r'"\\u0000sw(\d+)\\u0000"')
-_NEEDS_ESCAPE = r'["\\\x00-\x1f\x7f\u2028\u2029]'
+_ESCAPED = re.compile(r'["\\\x00-\x1f]')
 
 
 class _Placeholder:
@@ -25,90 +31,294 @@ class _Placeholder:
         self.token = f"\x00sw{index}\x00"
 
 
-class _TemplateValues:
-    """Hands out placeholders for per-row values; `class` is part of the shape, so it stays real."""
+class _Piece:
+    """A stand-in list item whose JSON is a placeholder: where the reasons, caveats, gaps go."""
 
-    def __init__(self, measured: pd.DataFrame):
-        self.measured = measured
+    def __init__(self, placeholder: _Placeholder):
+        self.placeholder = placeholder
+
+    def to_record(self):
+        return self.placeholder
+
+
+class _TemplateValues:
+    """Hands out a placeholder for each per-row value a record piece asks for."""
+
+    def __init__(self):
         self.wanted: list[tuple[str, str]] = []
 
-    def _slot(self, kind: str, name: str) -> _Placeholder:
+    def slot(self, kind: str, name: str) -> _Placeholder:
         self.wanted.append((kind, name))
         return _Placeholder(len(self.wanted) - 1)
 
     def number(self, name: str, i: int):
-        return self._slot("number", name)
+        return self.slot("number", name)
 
     def text(self, name: str, i: int):
-        if name == "class":
-            value = self.measured["class"].iat[i]
-            return None if value is None else str(value)
-        return self._slot("text", name)
+        return self.slot("text", name)
 
 
 def dumps(record: dict) -> str:
-    """The one JSON spelling sumpwise uses: key order as built, compact separators, UTF-8."""
-    return json.dumps(record, ensure_ascii=False, separators=(", ", ": "),
-                      default=lambda p: p.token, allow_nan=False)
+    """The one JSON spelling sumpwise uses: key order as built, these separators, UTF-8."""
+    return json.dumps(record, ensure_ascii=False, separators=(", ", ": "), default=lambda p: p.token,
+                      allow_nan=False)
+
+
+def _template(text: str, values: _TemplateValues) -> tuple[list[str], list]:
+    pieces = _TOKEN.split(text)
+    return pieces[0::2], [values.wanted[int(k)] for k in pieces[1::2]]
+
+
+def _text_literals(values: np.ndarray) -> np.ndarray:
+    """JSON string literals (or null) for a column of str-or-None."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    if len(uniques) < len(values) // 2:
+        table = [json.dumps(str(u), ensure_ascii=False) for u in uniques] + ["null"]
+        return np.array(table, dtype=object)[codes]
+    present = codes >= 0
+    texts = np.where(present, values, "").astype(object)
+    joined = "\x00".join(texts)
+    if joined.count("\x00") == len(texts) - 1 and not _ESCAPED.search(joined.replace("\x00", "")):
+        literal = '"' + texts + '"'
+    else:
+        literal = np.array([json.dumps(str(t), ensure_ascii=False) for t in texts], dtype=object)
+    literal[~present] = "null"
+    return literal
+
+
+def _number_literals(values: np.ndarray) -> np.ndarray:
+    """JSON number literals (or null), spelled as Python's float repr, each distinct value once."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    table = [repr(float(u)) if np.isfinite(u) else "null" for u in uniques] + ["null"]
+    return np.array(table, dtype=object)[codes]
 
 
 class _Literals:
-    """Per-column JSON literals for the whole batch, each column formatted once."""
+    """JSON literals of a column: formatted once for the whole batch when many rows need them,
+    or just for the rows asked (a rule that fires on few samples)."""
 
     def __init__(self, measured: pd.DataFrame):
         self.measured = measured
         self.cache: dict = {}
 
-    def get(self, kind: str, name: str) -> np.ndarray:
-        key = (kind, name)
-        if key not in self.cache:
-            self.cache[key] = self._number(name) if kind == "number" else self._text(name)
-        return self.cache[key]
-
-    def _number(self, name: str) -> np.ndarray:
-        values = self.measured[name].to_numpy(dtype=float, na_value=np.nan)
-        literal = pd.Series(values).astype(str).to_numpy(dtype=object)
-        literal[~np.isfinite(values)] = "null"
-        return literal
-
-    def _text(self, name: str) -> np.ndarray:
+    def _format(self, kind: str, name: str, rows) -> np.ndarray:
         if name not in self.measured.columns:
-            return np.full(len(self.measured), "null", dtype=object)
-        column = self.measured[name].astype(object)
-        present = column.notna().to_numpy()
-        text = column.astype(str)
-        plain = ~text.str.contains(_NEEDS_ESCAPE, regex=True).to_numpy()
-        literal = ('"' + text + '"').to_numpy(dtype=object)
-        for k in np.flatnonzero(~plain & present):
-            literal[k] = json.dumps(text.iat[k], ensure_ascii=False)
-        literal[~present] = "null"
-        return literal
+            return np.full(len(self.measured) if rows is None else len(rows), "null", dtype=object)
+        column = self.measured[name]
+        if kind == "number":
+            values = column.to_numpy(dtype=float, na_value=np.nan)
+            return _number_literals(values if rows is None else values[rows])
+        values = column.to_numpy(dtype=object)
+        return _text_literals(values if rows is None else values[rows])
+
+    def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
+        key = (kind, name)
+        if key in self.cache:
+            return self.cache[key][rows]
+        if len(rows) * 4 < len(self.measured):
+            return self._format(kind, name, rows)
+        self.cache[key] = self._format(kind, name, None)
+        return self.cache[key][rows]
+
+
+def _fill(chunks: list[str], wanted: list, literals: _Literals, rows: np.ndarray) -> np.ndarray:
+    assembled = np.full(len(rows), chunks[0], dtype=object)
+    for (kind, name), chunk in zip(wanted, chunks[1:]):
+        assembled = assembled + literals.get(kind, name, rows) + chunk
+    return assembled
+
+
+def _states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """(first index of each distinct state, state of each row) for rows described by int columns."""
+    matrix = np.ascontiguousarray(np.stack(columns, axis=1).astype(np.int8))
+    keys = matrix.view(np.dtype((np.void, matrix.shape[1]))).ravel()
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    return first, inverse.ravel()
+
+
+class _Writer:
+    def __init__(self, batch: GradedBatch):
+        self.batch = batch
+        self.literals = _Literals(batch.measured)
+        self.out = batch.outcome
+        self.reason_templates: dict = {}
+        self.gap_templates: dict = {}
+        self.caveat_templates: dict = {}
+        self.skeletons: dict = {}
+
+    def _reason_state(self, j: int, rows: np.ndarray) -> list[np.ndarray]:
+        """What decides the shape of slot j's reason: final and raw level, capping caveat, clauses."""
+        out, rs = self.out, self.batch.ruleset
+        final, raw = out.final[rows, j], out.raw[rows, j]
+        columns = [final, raw]
+        rule = out.slots[j].rule
+        capped_by = np.full(len(rows), -1, dtype=np.int8)
+        for k in reversed(range(len(rs.caveats))):
+            cap = rs.caveats[k].cap
+            if cap is not None and rule.reads & cap.measures:
+                capped_by[out.capping[rows, k] & (final == cap.level) & (raw != final)] = k
+        columns.append(capped_by)
+        if j in out.leaves:
+            members, found = out.leaves[j]
+            at = np.searchsorted(members, rows)
+            for truth, known in found:
+                columns.append(truth[at].astype(np.int8) + 2 * known[at].astype(np.int8))
+        return columns
+
+    def _reasons(self, j: int, rows: np.ndarray) -> np.ndarray:
+        columns = self._reason_state(j, rows)
+        first, state = _states(columns)
+        text = np.empty(len(rows), dtype=object)
+        for s, rep in enumerate(rows[first]):
+            key = (j, tuple(int(c[first[s]]) for c in columns))
+            if key not in self.reason_templates:
+                values = _TemplateValues()
+                self.reason_templates[key] = _template(dumps(reason_at(self.batch, int(rep), j, values).to_record()),
+                                                       values)
+            chunks, wanted = self.reason_templates[key]
+            members = state == s
+            text[members] = _fill(chunks, wanted, self.literals, rows[members])
+        return text
+
+    def _gaps(self, j: int, rows: np.ndarray) -> np.ndarray:
+        measured = self.batch.measured
+        rule = self.out.slots[j].rule
+        names = [n for n in rule_inputs(rule) if n in measured.columns]
+        columns = [measured[n].isna().to_numpy()[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
+        first, state = _states(columns)
+        table = []
+        for rep in rows[first]:
+            key = (j, tuple(bool(measured[n].isna().iat[int(rep)]) for n in names))
+            if key not in self.gap_templates:
+                self.gap_templates[key] = dumps(gap_at(self.batch, int(rep), j).to_record())
+            table.append(self.gap_templates[key])
+        return np.array(table, dtype=object)[state]
+
+    def _caveat(self, k: int, rows: np.ndarray) -> np.ndarray:
+        if k not in self.caveat_templates:
+            values = _TemplateValues()
+            self.caveat_templates[k] = _template(dumps(caveat_at(self.batch, int(rows[0]), k, values).to_record()),
+                                                 values)
+        chunks, wanted = self.caveat_templates[k]
+        return _fill(chunks, wanted, self.literals, rows)
+
+    def _joined(self, rows: np.ndarray, parts) -> np.ndarray:
+        """Join (mask, text) parts, in order, with ', ' per row."""
+        acc = np.full(len(rows), "", dtype=object)
+        started = np.zeros(len(rows), dtype=bool)
+        for mask, text in parts:
+            if not mask.any():
+                continue
+            sep = np.where(started[mask], ", ", "").astype(object)
+            acc[mask] = acc[mask] + sep + text
+            started |= mask
+        return acc
+
+    def _skeleton(self, rep: int, unrated: bool) -> tuple[list[str], list]:
+        if unrated not in self.skeletons:
+            values = _TemplateValues()
+            result = build_result(self.batch, rep, values)
+            pieces = {name: (_Piece(values.slot("raw", name)),) for name in ("reasons", "caveats", "gaps")}
+            result = replace(result, grade=values.slot("raw", "grade"), level=values.slot("raw", "level"),
+                             reasons=pieces["reasons"], caveats=pieces["caveats"],
+                             not_evaluated=pieces["gaps"],
+                             unrated_because=values.slot("raw", "unrated_because") if unrated else None)
+            self.skeletons[unrated] = _template(dumps(result.to_record()), values)
+        return self.skeletons[unrated]
+
+    def lines(self, rows: np.ndarray) -> np.ndarray:
+        out, rs = self.out, self.batch.ruleset
+        final = out.final[rows]
+        levels = range(len(rs.grades) - 1, 0, -1)  # reasons are listed highest grade first
+        fired = {j: np.flatnonzero(final[:, j] > 0) for j in range(final.shape[1])}
+        reason_text = {j: self._reasons(j, rows[idx]) for j, idx in fired.items() if len(idx)}
+        parts = []
+        for level in levels:
+            for j, text in reason_text.items():
+                idx = fired[j]
+                at_level = final[idx, j] == level
+                if at_level.any():
+                    mask = np.zeros(len(rows), dtype=bool)
+                    mask[idx[at_level]] = True
+                    parts.append((mask, text[at_level]))
+        raw_values = {"reasons": self._joined(rows, parts)}
+
+        gap_parts = []
+        for j in range(final.shape[1]):
+            mask = final[:, j] == NOT_EVALUATED
+            if mask.any():
+                gap_parts.append((mask, self._gaps(j, rows[mask])))
+        raw_values["gaps"] = self._joined(rows, gap_parts)
+
+        caveat_parts = []
+        for k in range(out.caveats.shape[1]):
+            mask = out.caveats[rows, k]
+            if mask.any():
+                caveat_parts.append((mask, self._caveat(k, rows[mask])))
+        raw_values["caveats"] = self._joined(rows, caveat_parts)
+
+        level = out.level[rows]
+        names = list(rs.grades) + [UNRATED]
+        raw_values["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
+        raw_values["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"], dtype=object)[level]
+        unrated = level < 0
+        raw_values["unrated_because"] = np.full(len(rows), "", dtype=object)
+        if unrated.any():
+            raw_values["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
+        return self._matrix(rows, raw_values, unrated)
+
+    def _matrix(self, rows: np.ndarray, raw_values: dict, unrated: np.ndarray) -> np.ndarray:
+        """The lines as a [rows, pieces] matrix of text whose row-major join is the output.
+
+        Rated and unrated records differ only by the `unrated_because` key, so one layout
+        serves both: around that key, rated rows get the rated skeleton's text instead.
+        """
+        rep = int(rows[0])
+        rated_chunks, rated_wanted = self._skeleton(rep, False)
+        chunks, wanted = self._skeleton(rep, True)
+        at = wanted.index(("raw", "unrated_because"))
+        if rated_chunks[:at] != chunks[:at] or rated_chunks[at + 1:] != chunks[at + 2:]:
+            raise AssertionError("the rated and unrated record skeletons differ beyond unrated_because")
+        columns = [np.full(len(rows), chunks[0], dtype=object)]
+        for p, ((kind, name), chunk) in enumerate(zip(wanted, chunks[1:])):
+            value = raw_values[name] if kind == "raw" else self.literals.get(kind, name, rows)
+            if p == at - 1:  # the chunk before unrated_because: rated rows close the record their way
+                chunk = np.where(unrated, chunk, rated_chunks[at]).astype(object)
+            elif p == at:
+                chunk = np.where(unrated, chunk, "").astype(object)
+            columns.append(value)
+            columns.append(chunk if isinstance(chunk, np.ndarray) else np.full(len(rows), chunk, dtype=object))
+        columns.append(np.full(len(rows), "\n", dtype=object))
+        return np.stack(columns, axis=1)
+
+    def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
+        representatives, group_of, _ = record_shape_groups(self.batch, members)
+        table = [json.dumps(build_result(self.batch, int(rep), _NoValues(self.batch)).unrated_because,
+                            ensure_ascii=False) for rep in representatives]
+        return np.array(table, dtype=object)[group_of]
+
+
+class _NoValues:
+    """Real text values (for the unrated sentence, which names the class), numbers as None."""
+
+    def __init__(self, batch: GradedBatch):
+        self.measured = batch.measured
+
+    def number(self, name: str, i: int):
+        return None
+
+    def text(self, name: str, i: int):
+        value = self.measured[name].iat[i] if name in self.measured.columns else None
+        return None if value is None or (isinstance(value, float) and np.isnan(value)) else str(value)
 
 
 def jsonl_lines(batch: GradedBatch, block: int = 200_000):
     """Yield the JSON Lines text of the batch, a block of rows at a time, in input order."""
-    templates: dict[bytes, tuple[list[str], list]] = {}
-    literals = _Literals(batch.measured)
+    writer = _Writer(batch)
     n = len(batch)
     for start in range(0, n, block):
         rows = np.arange(start, min(n, start + block))
-        representatives, group_of, signatures = record_shape_groups(batch, rows)
-        lines = np.empty(len(rows), dtype=object)
-        order = np.argsort(group_of, kind="stable")
-        bounds = np.searchsorted(group_of[order], np.arange(len(signatures) + 1))
-        for g, (rep, signature) in enumerate(zip(representatives, signatures)):
-            if signature not in templates:
-                values = _TemplateValues(batch.measured)
-                text = dumps(build_result(batch, int(rep), values).to_record())
-                pieces = _TOKEN.split(text)
-                templates[signature] = (pieces[0::2], [values.wanted[int(k)] for k in pieces[1::2]])
-            chunks, wanted = templates[signature]
-            members = rows[order[bounds[g]:bounds[g + 1]]]
-            assembled = np.full(len(members), chunks[0], dtype=object)
-            for (kind, name), chunk in zip(wanted, chunks[1:]):
-                assembled = assembled + literals.get(kind, name)[members] + chunk
-            lines[members - start] = assembled
-        yield "\n".join(lines) + "\n"
+        yield "".join(writer.lines(rows).ravel())
 
 
 def write_jsonl(batch: GradedBatch, stream) -> None:

@@ -233,54 +233,69 @@ def _is_missing(measured: pd.DataFrame, name: str, i: int) -> bool:
     return value is None or (isinstance(value, float) and np.isnan(value))
 
 
+def gap_at(batch: GradedBatch, i: int, j: int) -> NotEvaluated:
+    """What rule slot j lacked for row i (it was not evaluated)."""
+    rule = batch.outcome.slots[j].rule
+    missing = [name for name in rule_inputs(rule) if _is_missing(batch.measured, name, i)]
+    return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]))
+
+
+def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
+    """Why rule slot j fired for row i (its final level is above 0)."""
+    rs, out, measured = batch.ruleset, batch.outcome, batch.measured
+    grades = rs.grades
+    rule = out.slots[j].rule
+    final, raw = int(out.final[i, j]), int(out.raw[i, j])
+    capped_from = grades[raw] if raw != final else None
+    capped_by = _capped_by(rs, out, i, rule, final) if capped_from else None
+    if isinstance(rule, LadderRule):
+        limit = dict(rule.steps)[raw]
+        return Reason(rule.id, grades[final], final, rule.message, rule.source, measure=rule.measure,
+                      value=values.number(rule.measure, i), unit=measure_unit(rule.measure) or None,
+                      test=rule.test, limit=_limit_value(limit), capped_from=capped_from, capped_by=capped_by)
+    rows, found = out.leaves[j]
+    at = int(np.searchsorted(rows, i))
+    clauses = []
+    for leaf, (truth, known) in zip(_leaf_tests(rule.when), found):
+        held = bool(truth[at])
+        if isinstance(leaf, FieldTest):
+            value = values.text(leaf.field, i) if known[at] else None
+            clauses.append(Clause(leaf.test, list(leaf.values) if leaf.test == "in" else leaf.values[0],
+                                  held, value, field=leaf.field))
+        elif isinstance(leaf, MissingTest):
+            value = values.number(leaf.measure, i) if not _is_missing(measured, leaf.measure, i) else None
+            clauses.append(Clause("missing", leaf.missing, held, value, measure=leaf.measure))
+        else:
+            value = values.number(leaf.measure, i) if known[at] else None
+            clauses.append(Clause(leaf.test, _limit_value(leaf.limit), held, value, measure=leaf.measure))
+    return Reason(rule.id, grades[final], final, rule.message, rule.source,
+                  capped_from=capped_from, capped_by=capped_by, clauses=tuple(clauses))
+
+
+def caveat_at(batch: GradedBatch, i: int, k: int, values) -> CaveatNote:
+    """Caveat k as noted on row i (it fired there)."""
+    rs = batch.ruleset
+    if k < len(rs.caveats):
+        caveat = rs.caveats[k]
+        return CaveatNote(caveat.id, caveat.message, caveat.source)
+    caveat = batch.engine_caveats[k - len(rs.caveats)]
+    return CaveatNote(caveat.id, values.text(caveat.message_column, i), caveat.source)
+
+
 def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
     """One sample's record; `values` supplies per-row values (real ones, or template slots)."""
     rs, out, measured = batch.ruleset, batch.outcome, batch.measured
     grades = rs.grades
     reasons, not_evaluated = [], []
-    for j, slot in enumerate(out.slots):
+    for j in range(len(out.slots)):
         final = int(out.final[i, j])
-        if final == NOT_APPLICABLE:
-            continue
-        rule = slot.rule
         if final == NOT_EVALUATED:
-            missing = [name for name in rule_inputs(rule) if _is_missing(measured, name, i)]
-            not_evaluated.append(NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)])))
-            continue
-        if final == 0:
-            continue
-        raw = int(out.raw[i, j])
-        capped_from = grades[raw] if raw != final else None
-        capped_by = _capped_by(rs, out, i, rule, final) if capped_from else None
-        if isinstance(rule, LadderRule):
-            limit = dict(rule.steps)[raw]
-            reasons.append(Reason(rule.id, grades[final], final, rule.message, rule.source, measure=rule.measure,
-                                  value=values.number(rule.measure, i), unit=measure_unit(rule.measure) or None,
-                                  test=rule.test, limit=_limit_value(limit), capped_from=capped_from,
-                                  capped_by=capped_by))
-        else:
-            rows, found = out.leaves[j]
-            at = int(np.searchsorted(rows, i))
-            clauses = []
-            for leaf, (truth, known) in zip(_leaf_tests(rule.when), found):
-                held = bool(truth[at])
-                if isinstance(leaf, FieldTest):
-                    value = values.text(leaf.field, i) if known[at] else None
-                    clauses.append(Clause(leaf.test, list(leaf.values) if leaf.test == "in" else leaf.values[0],
-                                          held, value, field=leaf.field))
-                elif isinstance(leaf, MissingTest):
-                    value = values.number(leaf.measure, i) if not _is_missing(measured, leaf.measure, i) else None
-                    clauses.append(Clause("missing", leaf.missing, held, value, measure=leaf.measure))
-                else:
-                    value = values.number(leaf.measure, i) if known[at] else None
-                    clauses.append(Clause(leaf.test, _limit_value(leaf.limit), held, value, measure=leaf.measure))
-            reasons.append(Reason(rule.id, grades[final], final, rule.message, rule.source,
-                                  capped_from=capped_from, capped_by=capped_by, clauses=tuple(clauses)))
+            not_evaluated.append(gap_at(batch, i, j))
+        elif final > 0:
+            reasons.append(reason_at(batch, i, j, values))
     order = sorted(range(len(reasons)), key=lambda k: -reasons[k].level)
     reasons = [reasons[k] for k in order]
-    caveats = [CaveatNote(c.id, c.message, c.source) for k, c in enumerate(rs.caveats) if out.caveats[i, k]]
-    caveats += [CaveatNote(c.id, values.text(c.message_column, i), c.source)
-                for k, c in enumerate(batch.engine_caveats, len(rs.caveats)) if out.caveats[i, k]]
+    caveats = [caveat_at(batch, i, k, values) for k in range(out.caveats.shape[1]) if out.caveats[i, k]]
 
     level = int(out.level[i])
     class_name = values.text("class", i)

@@ -63,12 +63,13 @@ def test_usage_and_input_errors_exit_2_without_traceback(tmp_path):
 
 
 def test_internal_fault_exits_1(monkeypatch):
-    import engine.cli
+    import importlib
+    grading = importlib.import_module("engine.grade")  # the module, not engine.grade() the function
 
     def broken(*args, **kwargs):
         raise RuntimeError("boom")
 
-    monkeypatch.setattr(engine.cli, "grade_batch", broken)
+    monkeypatch.setattr(grading, "evaluate", broken)
     run = run_cli("grade", DATA / "samples" / "draft-record.csv", "--rules", DRAFT)
     assert run.code == 1 and "internal error" in run.err
 

@@ -44,3 +44,15 @@ def test_same_input_same_bytes_across_processes(tmp_path):
         outputs.append(target.read_bytes())
     assert outputs[0] == outputs[1]
     assert outputs[0].count(b"\n") == 327
+
+
+def test_bulk_writer_matches_records_on_random_samples_of_every_class():
+    from test_evaluate import _random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    graded = grade(_random_samples(ruleset, 2000, seed=5), ruleset)
+    out = io.StringIO()
+    write_jsonl(graded, out)
+    lines = out.getvalue().splitlines()
+    for line, result in zip(lines, graded.results()):
+        assert line == dumps(result.to_record())
+    assert len(lines) == 2000
