@@ -1,7 +1,9 @@
 """Write graded samples as CSV: one row a sample, reasons folded into short text columns.
 
 CSV suits spreadsheets and simple pipelines; the full reason records are in JSON Lines.
-`fired` lists rule=grade (with <capped-from where a caveat lowered it), highest first.
+`fired` lists rule=grade (with <capped-from where a caveat lowered it), highest grade
+first; `not_evaluated` lists rule(missing,...). Built column-wise like the JSON Lines
+writer: each rule's text once per state, joined over the rows.
 """
 
 from __future__ import annotations
@@ -9,42 +11,101 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .results import GradedBatch, record_shape_groups
+from .compile import engine_name
+from .evaluate import NOT_EVALUATED
+from .render_jsonl import join_parts, states
+from .results import UNRATED, GradedBatch, build_result, gap_at, record_shape_groups, rule_inputs
 
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "grade", "level", "fired", "caveats",
            "not_evaluated", "unrated_because", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
 
 
-def _folded(result) -> dict:
-    fired = ";".join(f"{r.rule}={r.grade}" + (f"<{r.capped_from}" if r.capped_from else "") for r in result.reasons)
-    return {"grade": result.grade, "level": "" if result.level is None else str(result.level), "fired": fired,
-            "caveats": ";".join(c.caveat for c in result.caveats),
-            "not_evaluated": ";".join(f"{n.rule}({','.join(n.missing)})" for n in result.not_evaluated),
-            "unrated_because": result.unrated_because or ""}
+class _RealTexts:
+    def __init__(self, measured: pd.DataFrame):
+        self.measured = measured
+
+    def number(self, name: str, i: int):
+        return None
+
+    def text(self, name: str, i: int):
+        value = self.measured[name].iat[i] if name in self.measured.columns else None
+        return None if value is None or (isinstance(value, float) and np.isnan(value)) else str(value)
+
+
+def _fired(batch: GradedBatch) -> np.ndarray:
+    out, grades = batch.outcome, batch.ruleset.grades
+    n = len(batch)
+    parts = []
+    for level in range(len(grades) - 1, 0, -1):
+        for j, slot in enumerate(out.slots):
+            mask = out.final[:, j] == level
+            if not mask.any():
+                continue
+            raw = out.raw[mask, j]
+            text = np.where(raw == level, f"{slot.rule.id}={grades[level]}", "").astype(object)
+            for capped_from in np.unique(raw[raw != level]):
+                text[raw == capped_from] = f"{slot.rule.id}={grades[level]}<{grades[capped_from]}"
+            parts.append((mask, text))
+    return join_parts(n, parts, ";")
+
+
+def _gaps(batch: GradedBatch) -> np.ndarray:
+    out, measured = batch.outcome, batch.measured
+    parts = []
+    for j, slot in enumerate(out.slots):
+        mask = out.final[:, j] == NOT_EVALUATED
+        if not mask.any():
+            continue
+        rows = np.flatnonzero(mask)
+        names = [name for name in rule_inputs(slot.rule) if name in measured.columns]
+        columns = [measured[name].isna().to_numpy()[rows] for name in names] or [np.zeros(len(rows), bool)]
+        first, state = states(columns)
+        table = []
+        for rep in rows[first]:
+            gap = gap_at(batch, int(rep), j)
+            table.append(f"{gap.rule}({','.join(gap.missing)})")
+        parts.append((mask, np.array(table, dtype=object)[state]))
+    return join_parts(len(batch), parts, ";")
+
+
+def _caveats(batch: GradedBatch) -> np.ndarray:
+    rs, out = batch.ruleset, batch.outcome
+    ids = [c.id for c in rs.caveats] + [c.id for c in batch.engine_caveats]
+    parts = [(out.caveats[:, k], np.full(int(out.caveats[:, k].sum()), ident, dtype=object))
+             for k, ident in enumerate(ids)]
+    return join_parts(len(batch), parts, ";")
+
+
+def _unrated(batch: GradedBatch) -> np.ndarray:
+    n = len(batch)
+    text = np.full(n, "", dtype=object)
+    rows = np.flatnonzero(batch.outcome.level < 0)
+    if len(rows):
+        representatives, group_of, _ = record_shape_groups(batch, rows)
+        sentences = [build_result(batch, int(rep), _RealTexts(batch.measured)).unrated_because
+                     for rep in representatives]
+        text[rows] = np.array(sentences, dtype=object)[group_of]
+    return text
 
 
 def csv_frame(batch: GradedBatch) -> pd.DataFrame:
-    """The CSV table as a DataFrame, built once per record shape, not once per row."""
+    """The CSV table as a DataFrame."""
     n = len(batch)
-    rows = np.arange(n)
-    names = ("grade", "level", "fired", "caveats", "not_evaluated", "unrated_because")
-    table = {name: np.empty(0, dtype=object) for name in names}
-    if n:
-        representatives, group_of, _ = record_shape_groups(batch, rows)
-        folded = [_folded(batch.result(int(rep))) for rep in representatives]
-        for name in names:
-            table[name] = np.array([f[name] for f in folded], dtype=object)[group_of]
-    measured = batch.measured
+    measured, rs = batch.measured, batch.ruleset
+    level = batch.outcome.level
     frame = pd.DataFrame({name: (measured[name].to_numpy(dtype=object) if name in measured.columns
                                  else np.full(n, None, dtype=object))
                           for name in ("sample_id", "unit_id", "class", "lubricant", "sampled_on")})
-    for name, values in table.items():
-        frame[name] = values
-    rs = batch.ruleset
+    frame["grade"] = np.array(list(rs.grades) + [UNRATED], dtype=object)[level]
+    frame["level"] = np.array([str(k) for k in range(len(rs.grades))] + [""], dtype=object)[level]
+    frame["fired"] = _fired(batch)
+    frame["caveats"] = _caveats(batch)
+    frame["not_evaluated"] = _gaps(batch)
+    frame["unrated_because"] = _unrated(batch)
     frame["ruleset"] = rs.id
     frame["ruleset_version"] = str(rs.version)
     frame["ruleset_sha256"] = rs.sha256
-    frame["engine"] = batch.result(0).engine if n else ""
+    frame["engine"] = engine_name()
     return frame[list(COLUMNS)]
 
 

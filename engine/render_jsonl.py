@@ -128,7 +128,19 @@ def _fill(chunks: list[str], wanted: list, literals: _Literals, rows: np.ndarray
     return assembled
 
 
-def _states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+def join_parts(n: int, parts, sep: str = ", ") -> np.ndarray:
+    """Join (row mask, texts of those rows) parts, in the order given, with `sep` between them."""
+    acc = np.full(n, "", dtype=object)
+    started = np.zeros(n, dtype=bool)
+    for mask, text in parts:
+        if not mask.any():
+            continue
+        acc[mask] = acc[mask] + np.where(started[mask], sep, "").astype(object) + text
+        started |= mask
+    return acc
+
+
+def states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     """(first index of each distinct state, state of each row) for rows described by int columns."""
     matrix = np.ascontiguousarray(np.stack(columns, axis=1).astype(np.int8))
     keys = matrix.view(np.dtype((np.void, matrix.shape[1]))).ravel()
@@ -167,7 +179,7 @@ class _Writer:
 
     def _reasons(self, j: int, rows: np.ndarray) -> np.ndarray:
         columns = self._reason_state(j, rows)
-        first, state = _states(columns)
+        first, state = states(columns)
         text = np.empty(len(rows), dtype=object)
         for s, rep in enumerate(rows[first]):
             key = (j, tuple(int(c[first[s]]) for c in columns))
@@ -185,7 +197,7 @@ class _Writer:
         rule = self.out.slots[j].rule
         names = [n for n in rule_inputs(rule) if n in measured.columns]
         columns = [measured[n].isna().to_numpy()[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
-        first, state = _states(columns)
+        first, state = states(columns)
         table = []
         for rep in rows[first]:
             key = (j, tuple(bool(measured[n].isna().iat[int(rep)]) for n in names))
@@ -201,18 +213,6 @@ class _Writer:
                                                  values)
         chunks, wanted = self.caveat_templates[k]
         return _fill(chunks, wanted, self.literals, rows)
-
-    def _joined(self, rows: np.ndarray, parts) -> np.ndarray:
-        """Join (mask, text) parts, in order, with ', ' per row."""
-        acc = np.full(len(rows), "", dtype=object)
-        started = np.zeros(len(rows), dtype=bool)
-        for mask, text in parts:
-            if not mask.any():
-                continue
-            sep = np.where(started[mask], ", ", "").astype(object)
-            acc[mask] = acc[mask] + sep + text
-            started |= mask
-        return acc
 
     def _skeleton(self, rep: int, unrated: bool) -> tuple[list[str], list]:
         if unrated not in self.skeletons:
@@ -241,21 +241,21 @@ class _Writer:
                     mask = np.zeros(len(rows), dtype=bool)
                     mask[idx[at_level]] = True
                     parts.append((mask, text[at_level]))
-        raw_values = {"reasons": self._joined(rows, parts)}
+        raw_values = {"reasons": join_parts(len(rows), parts)}
 
         gap_parts = []
         for j in range(final.shape[1]):
             mask = final[:, j] == NOT_EVALUATED
             if mask.any():
                 gap_parts.append((mask, self._gaps(j, rows[mask])))
-        raw_values["gaps"] = self._joined(rows, gap_parts)
+        raw_values["gaps"] = join_parts(len(rows), gap_parts)
 
         caveat_parts = []
         for k in range(out.caveats.shape[1]):
             mask = out.caveats[rows, k]
             if mask.any():
                 caveat_parts.append((mask, self._caveat(k, rows[mask])))
-        raw_values["caveats"] = self._joined(rows, caveat_parts)
+        raw_values["caveats"] = join_parts(len(rows), caveat_parts)
 
         level = out.level[rows]
         names = list(rs.grades) + [UNRATED]

@@ -22,3 +22,20 @@ def test_csv_rows_agree_with_the_records():
     assert row["caveats"] == "ester-carbonyl"
     assert row["not_evaluated"] == "visc-drift(kv40)"
     assert row["ruleset_sha256"] == rs.sha256
+
+
+def test_csv_agrees_with_every_record_on_random_samples():
+    from conftest import ROOT
+    from test_evaluate import _random_samples
+
+    from engine.render_csv import csv_frame
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    graded = grade(_random_samples(ruleset, 1500, seed=9), ruleset)
+    frame = csv_frame(graded)
+    for row, result in zip(frame.itertuples(index=False), graded.results()):
+        assert row.grade == result.grade
+        assert row.fired == ";".join(f"{r.rule}={r.grade}" + (f"<{r.capped_from}" if r.capped_from else "")
+                                     for r in result.reasons)
+        assert row.caveats == ";".join(c.caveat for c in result.caveats)
+        assert row.not_evaluated == ";".join(f"{n.rule}({','.join(n.missing)})" for n in result.not_evaluated)
+        assert row.unrated_because == (result.unrated_because or "")
