@@ -46,7 +46,9 @@ def _clause_line(clause) -> str:
 def explain_lines(result: SampleResult, grades: tuple, width: int = 88) -> list[str]:
     """The narrative of one sample's grade, reason by reason, with sources and cautions."""
     def wrap(text: str, indent: str = "") -> list[str]:
-        return textwrap.wrap(text, width, initial_indent=indent, subsequent_indent=indent) or [indent]
+        # A bullet ("- ") starts the first line only; continuation lines line up under its text.
+        following = indent.replace("-", " ")
+        return textwrap.wrap(text, width, initial_indent=indent, subsequent_indent=following) or [indent]
 
     lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
              f"lubricant {result.lubricant or '(none)'}, sampled {result.sampled_on or '(date not given)'}"]
