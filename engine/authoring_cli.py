@@ -97,7 +97,7 @@ def run_propose_limits(args, stdout, stderr) -> int:
     if args.out:
         with open(args.out, "w", encoding="utf-8", newline="") as out:
             out.write(text)
-        stdout.write("\n".join(figure_lines(found)) + f"\nwrote {args.out}\n")
+        stdout.write("\n".join(figure_lines(found)) + f"\nwrote {args.out}\n" + caution_text("! ") + "\n")
     else:
         stdout.write(text)
     return OK

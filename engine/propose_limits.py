@@ -16,7 +16,7 @@ import numpy as np
 
 from .measures import DERIVED_MEASURES, INPUT_MEASURES, derive_measures
 from .problems import InputError
-from .propose import NotEnoughData, Proposal, proposal_yaml, propose_ladder
+from .propose import NORMALITY_ALPHA, NotEnoughData, Proposal, proposal_yaml, propose_ladder
 from .ruleset import RuleSet
 from .ruleset_load import DEFAULT_GRADES
 from .samples import SampleBatch
@@ -93,6 +93,10 @@ def figure_lines(found: DataProposal) -> list[str]:
     if p.method == "spc":
         how = ", ".join(f"{g} mean {'+' if p.direction == 'above' else '-'} {k:g} SD" for g, k in zip(p.grades, p.levels))
         lines.append(f"method: SPC limits (ASTM D7720 §1.2 approach, for normal, in-control data): {how}")
+        if p.normality_p < NORMALITY_ALPHA:
+            lines.append(f"note: the normality test rejects normal data (p = {p.normality_p:.3g} < "
+                         f"{NORMALITY_ALPHA:g}); for data that are not normal D7720 §1.3 takes percentiles "
+                         f"(--method percentile or auto)")
     else:
         how = ", ".join(f"{g} {q:g}th percentile" for g, q in zip(p.grades, p.percentiles))
         lines.append(f"method: percentiles of the sorted data (ASTM D7720 §1.3 approach, for data that are not "

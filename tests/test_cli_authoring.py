@@ -127,6 +127,15 @@ def test_propose_limits_spc_equals_numpy_mean_plus_k_sd(tmp_path):
     assert "Proposed from 400 results" in rule["source"] and "ASTM D7720 approach (§1.2 SPC)" in rule["source"]
     assert "class pump, lubricant PUMP-46-M, sampled 2025-01-01 to 2026-02-04" in rule["source"]
     assert "# Proposed limits are a screening aid, not a substitute for a qualified analyst." in run.out
+    assert "note: the normality test rejects" not in run.out  # seeded normal data pass Jarque-Bera here
+
+
+def test_propose_limits_spc_on_skewed_data_says_percentiles_would_suit(tmp_path):
+    water = np.round(np.random.default_rng(7723).lognormal(np.log(120.0), 0.6, 100), 1)
+    samples = _write_samples(tmp_path / "s.csv", np.full(100, 0.3), water)
+    run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "water", "--method", "spc")
+    assert run.code == 0, run.err
+    assert "# note: the normality test rejects normal data" in run.out and "D7720 §1.3 takes percentiles" in run.out
 
 
 def test_propose_limits_auto_takes_percentiles_of_skewed_data(tmp_path):
