@@ -83,3 +83,14 @@ def test_shipped_ester_examples_show_the_cap_and_its_lift(path):
     lifted_carbonyl = {r.rule: r for r in lifted_result.reasons}["carbonyl-rise"]
     assert lifted_carbonyl.grade == "alert" and lifted_carbonyl.capped_from is None
     assert "acid-rise" in {r.rule for r in lifted_result.reasons}
+
+
+def test_a_sample_without_a_class_is_a_failure_not_a_crash(tmp_path):
+    text = (DATA / "clean.yaml").read_text(encoding="utf-8")
+    broken = text.replace("sample: {class: pump, lubricant: PUMP-46-E, oxidation: 190.0, an: 0.2}",
+                          "sample: {lubricant: PUMP-46-E, oxidation: 190.0, an: 0.2}")
+    assert broken != text
+    (tmp_path / "noclass.yaml").write_text(broken, encoding="utf-8")
+    [failure] = check_examples(load_ruleset(tmp_path / "noclass.yaml"))
+    assert failure.name == "ester cap holds carbonyl at watch"
+    assert failure.differences[0].startswith("the sample cannot be read: missing required column(s) class")
