@@ -69,6 +69,7 @@ def derive_row(row: dict, lubricants: dict) -> dict:
         out[rate] = unrounded
     out["bn_retained_pct"] = ratio(out.get("bn"), new["bn"])
     out["rpvot_retained_pct"] = ratio(out.get("rpvot"), new["rpvot"])
+    out["bn_minus_an"] = diff(out.get("bn"), out.get("an"))
     kv40, kv100 = out.get("kv40"), out.get("kv100")
     vi = None
     if kv40 is not None and kv100 is not None:

@@ -57,6 +57,8 @@ ROW_MEASURES = {
                                         "acid number rise / oil hours x 1000"),
     "bn_retained_pct": DerivedMeasure("%", ("bn", "new_bn"), None, "base number / new-oil base number x 100"),
     "rpvot_retained_pct": DerivedMeasure("%", ("rpvot", "new_rpvot"), None, "RPVOT / new-oil RPVOT x 100"),
+    "bn_minus_an": DerivedMeasure("mg KOH/g", ("bn", "an"), None,
+                                  "base number - acid number of the same sample (engine oils)"),
 }
 
 # Trend measures compare a sample with its unit's previous sample (engine/trends.py computes them).
@@ -172,6 +174,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out["an_rise_per_1000h"] = out["an_rise"] * per_hour
         out["bn_retained_pct"] = out["bn"] / out["new_bn"] * 100.0
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
+        out["bn_minus_an"] = out["bn"] - out["an"]
     for name in ROW_MEASURES:
         if name != "vi":
             values = np.round(out[name], _DECIMALS)

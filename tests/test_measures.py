@@ -62,3 +62,10 @@ def test_retained_percentages(tmp_path):
     m = _derive(rs, "sample_id,class,lubricant,bn,rpvot\na,x,ENG-40,4.0,200\n")
     assert m["bn_retained_pct"].iat[0] == 40.0
     assert m["rpvot_retained_pct"].iat[0] == 25.0
+
+
+def test_base_number_against_acid_number(draft):
+    # common practice, no source: engine oil base number at or below the acid number is critical;
+    # bn_minus_an carries the comparison (2.6 - 2.6 is exactly 0 once binary noise is rounded away)
+    m = _derive(draft, "sample_id,class,bn,an\na,x,2.6,2.6\nb,x,2.5,2.6\nc,x,8.0,2.6\n")
+    assert list(m["bn_minus_an"]) == [0.0, -0.1, 5.4]
