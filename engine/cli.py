@@ -26,6 +26,7 @@ from .render_jsonl import dumps, write_jsonl
 from .render_table import write_table
 from .samples import load_column_map, read_samples
 from .spectra import command as spectra_command
+from . import ledger_cli
 from . import report_command
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
@@ -89,12 +90,15 @@ def _parser(stdout) -> _Parser:
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
     grade.add_argument("--fail-at", metavar="GRADE",
                        help="exit 3 when any sample reaches this grade or higher")
+    ledger_cli.add_grade_arguments(grade)
 
     explain = commands.add_parser("explain", help="tell the story of one sample's grade", out=stdout,
-                                  description="Grade the samples and explain one of them in sentences.")
+                                  description="Explain one sample's grade in sentences: from a ledger "
+                                              "(--db), or by grading --samples with --rules.")
     explain.add_argument("sample_id", metavar="SAMPLE_ID")
-    explain.add_argument("--samples", required=True, metavar="SAMPLES")
-    _common_inputs(explain)
+    explain.add_argument("--samples", metavar="SAMPLES")
+    _common_inputs(explain, rules_required=False)
+    explain.add_argument("--db", metavar="PATH", help="explain the verdict recorded in this ledger")
 
     demo = commands.add_parser("demo", help="grade the shipped Brackwater Point scenario", out=stdout,
                                description="Grade the invented Brackwater Point scenario and print counts.")
@@ -119,11 +123,21 @@ def _parser(stdout) -> _Parser:
                                                          "the batch summary, units by attention, trend plots "
                                                          "and every flagged sample's reasons.")
     report_command.add_arguments(report)
+
+    history = commands.add_parser("history", help="a unit's samples and grades over time, from the ledger",
+                                  out=stdout, description="Show one unit's recorded samples and grades in "
+                                                          "date order (table, CSV or JSON Lines).")
+    ledger_cli.add_history_arguments(history)
+
+    replay = commands.add_parser("replay", help="re-grade the ledger's samples and report differences (exit 3)",
+                                 out=stdout, description="Re-grade every recorded sample with the rule set it "
+                                                         "was graded with; exit 3 if any result differs.")
+    ledger_cli.add_replay_arguments(replay)
     return parser
 
 
-def _common_inputs(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--rules", required=True, metavar="RULESET", help="the rule-set YAML file")
+def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True) -> None:
+    parser.add_argument("--rules", required=rules_required, metavar="RULESET", help="the rule-set YAML file")
     parser.add_argument("--columns", metavar="MAP", help="column map YAML: lab column names and units")
     parser.add_argument("--input-format", choices=("csv", "jsonl"),
                         help="format of SAMPLES (default: from its name; csv for standard input)")
@@ -205,7 +219,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
             raise UsageError(f"sumpwise grade: --fail-at {args.fail_at!r} is not on the grade ladder "
                              f"[{', '.join(ruleset.grades)}]")
         fail_level = ruleset.level_of(args.fail_at)
-    graded = grade_batch(batch, ruleset)
+    graded = ledger_cli.grade(args, batch, ruleset, stderr)
     writer = {"jsonl": write_jsonl, "csv": write_csv,
               "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
     if args.out:
@@ -213,7 +227,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
             writer(graded, out)
     else:
         writer(graded, stdout)
-    _write_rejects(batch, args.rejects, stderr)
+    _write_rejects(graded, args.rejects, stderr)
     stderr.write(_summary(graded))
     if fail_level is not None and (graded.outcome.level >= fail_level).any():
         return FINDINGS
@@ -221,6 +235,10 @@ def _grade(args, stdin, stdout, stderr) -> int:
 
 
 def _explain(args, stdin, stdout, stderr) -> int:
+    if args.db is not None:
+        return ledger_cli.run_explain(args, stdout)
+    if args.samples is None or args.rules is None:
+        raise UsageError("sumpwise explain: give --db PATH (a ledger), or --samples and --rules")
     ruleset, batch = _read(args, stdin)
     graded = grade_batch(batch, ruleset)
     result = graded.find(args.sample_id)
@@ -283,8 +301,17 @@ def _report(args, stdin, stdout, stderr) -> int:
     return report_command.run(args, stdout, stderr)
 
 
+def _history(args, stdin, stdout, stderr) -> int:
+    return ledger_cli.run_history(args, stdout, stderr)
+
+
+def _replay(args, stdin, stdout, stderr) -> int:
+    return ledger_cli.run_replay(args, stdout, stderr)
+
+
 _COMMANDS = {"check": _check, "grade": _grade, "explain": _explain, "demo": _demo, "spectra": _spectra,
-             "compare": _compare, "propose-limits": _propose_limits, "report": _report}
+             "compare": _compare, "propose-limits": _propose_limits, "report": _report,
+             "history": _history, "replay": _replay}
 
 
 def entry() -> None:
