@@ -258,7 +258,7 @@ def _decode_xydata(items):
     first_x, last_x, npoints, x_factor, y_factor = header.T
     npoints = npoints.astype(np.int64)
     chars = np.frombuffer(raw, dtype=np.uint8).copy()
-    line_x, line_unit = _take_line_abscissae(chars, raw, line_numbers, source)
+    line_x, line_unit = _take_line_abscissae(chars, line_numbers, source)
     y_text = chars.tobytes()
     if b"." in y_text or (any(e in y_text for e in (b"E+", b"E-", b"e+", b"e-")) and _EXPONENT.search(y_text)):
         if len(items) > 1:
@@ -292,7 +292,7 @@ def _has_blank_line(raw):
     return any(not line.strip() for line in raw.split(b"\n"))
 
 
-def _take_line_abscissae(chars, raw, line_numbers, source):
+def _take_line_abscissae(chars, line_numbers, source):
     """Find each line's leading X (AFFN), blank it out of `chars` in place, return X values and last-digit units."""
     newlines = np.flatnonzero(chars == 10)
     line_start = np.concatenate(([0], newlines + 1))
@@ -307,20 +307,39 @@ def _take_line_abscissae(chars, raw, line_numbers, source):
     if np.any(empty):
         k = int(np.argmax(empty))
         raise SpectrumError(source, int(line_numbers[k]), "data line does not start with an X value")
-    try:
-        line_x = np.array([float(raw[a:b]) for a, b in zip(x_start.tolist(), x_end.tolist())])
-    except ValueError:
-        k = next(i for i, (a, b) in enumerate(zip(x_start, x_end)) if not _is_float(raw[a:b]))
-        raise SpectrumError(source, int(line_numbers[k]), f"X value {raw[x_start[k]:x_end[k]].decode('latin-1')!r} "
-                            "is not a number") from None
-    dots = np.flatnonzero(chars == 46)
-    dot = dots[np.minimum(np.searchsorted(dots, x_start), max(dots.size - 1, 0))] if dots.size else x_end
-    decimals = np.where((dot >= x_start) & (dot < x_end), x_end - dot - 1, 0)
     mark = np.zeros(chars.size + 1, dtype=np.int8)
     mark[x_start] = 1  # one X per line, and each ends before the next begins
     mark[x_end] = -1
-    chars[np.cumsum(mark[:-1]) > 0] = 32
+    in_x = np.cumsum(mark[:-1]) > 0
+    line_x, decimals = _affn_numbers(chars, in_x, x_start, signed, source, line_numbers)
+    chars[in_x] = 32
     return line_x, 10.0 ** -decimals
+
+
+def _affn_numbers(chars, in_x, x_start, signed, source, line_numbers):
+    """Values of the X tokens (sign, digits, at most one '.') marked by in_x, one per line, and their decimals."""
+    positions = np.flatnonzero(in_x)
+    token = np.searchsorted(x_start, positions, side="right") - 1
+    is_dot = chars[positions] == 46
+    dots = np.bincount(token[is_dot], minlength=x_start.size)
+    if np.any(dots > 1):
+        k = int(np.argmax(dots > 1))
+        raise SpectrumError(source, int(line_numbers[k]), "X value has more than one decimal point")
+    is_digit = (chars[positions] >= 48) & (chars[positions] <= 57)
+    digit_token = token[is_digit]
+    digits = np.bincount(digit_token, minlength=x_start.size)
+    if np.any(digits == 0) or digits.max() > 18:
+        k = int(np.argmax((digits == 0) | (digits > 18)))
+        raise SpectrumError(source, int(line_numbers[k]), "X value is not a number of at most 18 digits")
+    first_digit = np.cumsum(digits) - digits
+    place = (first_digit + digits - 1)[digit_token] - np.arange(digit_token.size)
+    mantissa = np.add.reduceat((chars[positions[is_digit]] - 48).astype(np.int64) * _POW10[place], first_digit)
+    dot_position = np.full(x_start.size, chars.size)
+    dot_position[token[is_dot]] = positions[is_dot]
+    after_dot = np.bincount(digit_token[positions[is_digit] > dot_position[digit_token]], minlength=x_start.size)
+    negative = signed & (chars[x_start] == ord("-"))
+    values = np.where(negative, -1.0, 1.0) * mantissa / 10.0 ** after_dot
+    return values, after_dot
 
 
 def _is_float(text):
@@ -394,7 +413,7 @@ def _decode_asdf(y_text, line_numbers, source, first_line):
     token_kind = _KIND[lead_char]
     token_pos = in_token[token_first]
     value = np.where(_NEGATIVE[lead_char], -magnitude, magnitude)
-    token_line = np.searchsorted(newlines, token_pos)
+    token_line = np.cumsum(chars == 10, dtype=np.int32)[token_pos]
     sign_only = ((lead_char == ord("+")) | (lead_char == ord("-"))) & (lengths == 1)
     if sign_only.any():
         raise located(token_pos[np.argmax(sign_only)], "a sign with no digits after it")
@@ -410,10 +429,11 @@ def _decode_asdf(y_text, line_numbers, source, first_line):
             raise located(token_pos[dup_at[np.argmax(value[dup_at] < 1)]], "a DUP count below 1")
         repeats = np.ones(value.size, dtype=np.int64)
         repeats[dup_at - 1] = value[dup_at]
-        keep = ~is_dup
-        point_value = np.repeat(value[keep], repeats[keep])
-        point_is_dif = np.repeat(token_kind[keep] == _DIF, repeats[keep])
-        point_line = np.repeat(token_line[keep], repeats[keep])
+        kept = np.flatnonzero(~is_dup)
+        source_token = np.repeat(kept, repeats[kept])
+        point_value = value[source_token]
+        point_is_dif = token_kind[source_token] == _DIF
+        point_line = token_line[source_token]
     else:
         point_value, point_is_dif, point_line = value, token_kind == _DIF, token_line
     per_line = np.bincount(point_line, minlength=line_numbers.size)

@@ -190,3 +190,25 @@ def test_crlf_line_endings_as_in_the_original_test_files(tmp_path):
     crlf = tmp_path / "dupdec1_crlf.jdx"
     crlf.write_bytes((DATA / "dupdec1.jdx").read_bytes().replace(b"\n", b"\r\n"))
     np.testing.assert_array_equal(read_jcampdx(crlf).absorbance, read_jcampdx(DATA / "dupdec1.jdx").absorbance)
+
+
+DECIMAL_X = """##TITLE= decimal abscissae
+##JCAMP-DX= 4.24
+##XUNITS= MICROMETERS
+##YUNITS= ABSORBANCE
+##FIRSTX= 2.75
+##LASTX= 4.0
+##NPOINTS= 6
+##XYDATA=(X++(Y..Y))
+2.75 1 2 3 4
+3.75 5 6
+##END=
+"""
+
+
+def test_decimal_line_abscissae_are_checked():
+    spectrum = parse_jcampdx(DECIMAL_X, "d.jdx")
+    np.testing.assert_allclose(spectrum.wavenumber, 1e4 / np.array([4.0, 3.75, 3.5, 3.25, 3.0, 2.75]))
+    np.testing.assert_allclose(spectrum.absorbance, [6, 5, 4, 3, 2, 1])
+    error = _error(DECIMAL_X.replace("3.75 5 6", "3.50 5 6"))
+    assert error.line == 10 and "missing or extra" in error.reason
