@@ -64,6 +64,7 @@ _POW10 = 10 ** np.arange(19, dtype=np.int64)
 _EXPONENT = re.compile(rb"[0-9][Ee][+-]")
 _PAC_SIGN = re.compile(rb"(?<=[0-9.])(?=[+-])")
 _COMMENT = re.compile(r"\$\$.*")
+_LABEL_NOISE = str.maketrans("", "", " \t-/_")  # label names ignore these (JCAMP-DX 4.24)
 _DATA_LABEL = re.compile(r"^##(XYDATA|XYPOINTS|PEAKTABLE|NTUPLES|DATATABLE)=(.*)$", re.M | re.I)
 
 
@@ -172,8 +173,9 @@ def _prepare(text, source):
     return _Prepared(ctx, raw, line_numbers)
 
 
-def _spectrum(ctx, x, y):
-    return make_spectrum(ctx.source, x, y, ctx.header["XUNITS"], ctx.header["YUNITS"], ctx.line("FIRSTX") or ctx.data_line)
+def _spectrum(ctx, x, y, evenly_spaced=False):
+    return make_spectrum(ctx.source, x, y, ctx.header["XUNITS"], ctx.header["YUNITS"],
+                         ctx.line("FIRSTX") or ctx.data_line, evenly_spaced=evenly_spaced)
 
 
 def _decode(items):
@@ -219,7 +221,7 @@ def _parse_header(text, source):
             name, sep, value = raw[2:].partition("=")
             if not sep:
                 raise SpectrumError(source, number, f"label line without '=': {raw.strip()!r}")
-            key = re.sub(r"[\s\-/_]", "", name).upper()
+            key = name.translate(_LABEL_NOISE).upper()
             if key == "TITLE" and "TITLE" in values:
                 raise SpectrumError(source, number, "a second ##TITLE= before the data: compound files are not read")
             values[key] = value.split("$$")[0].strip()
@@ -280,7 +282,7 @@ def _decode_xydata(items):
     spectra = []
     for k, item in enumerate(items):
         x = first_x[k] + np.arange(npoints[k]) * delta[k]
-        spectra.append(_spectrum(item.ctx, x, y[file_start[k] : file_start[k + 1]] * y_factor[k]))
+        spectra.append(_spectrum(item.ctx, x, y[file_start[k] : file_start[k + 1]] * y_factor[k], evenly_spaced=True))
     return spectra
 
 

@@ -75,8 +75,11 @@ def absorbance_from_transmittance(transmittance, percent: bool):
         return np.where(t > 0, -np.log10(np.where(t > 0, t, 1.0)), np.nan)
 
 
-def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=()):
-    """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity."""
+def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), evenly_spaced=False):
+    """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity.
+
+    evenly_spaced: x was built as first + k * delta, so two points settle its order.
+    """
     unit = _x_unit_kind(source, x_units, range_line)
     x = np.asarray(x, dtype=float)
     if unit == "um":
@@ -95,7 +98,7 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=()):
         y = absorbance_from_transmittance(y, percent)
     if x.size >= 2 and x[0] > x[-1]:
         x, y = x[::-1], y[::-1]
-    if x.size < 2 or not np.all(np.diff(x) > 0):
+    if x.size < 2 or not (x[1] > x[0] and (unit == "cm1" and evenly_spaced or np.all(np.diff(x) > 0))):
         raise SpectrumError(source, range_line, "abscissa is not strictly monotonic (or has fewer than 2 points)")
     return Spectrum(source, np.ascontiguousarray(x), np.ascontiguousarray(y), x_units, y_units, range_line, tuple(notes))
 
