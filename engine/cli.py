@@ -258,9 +258,9 @@ def _demo(args, stdin, stdout, stderr) -> int:
         raise InputError(f"the demo scenario is not here: {SCENARIO} (run from a source checkout)")
     ruleset = load_ruleset(rules)
     batch = read_samples(samples, None, None, None, ruleset.measures)
-    graded = grade_batch(batch, ruleset)
     out_dir = Path(args.out)
     out_dir.mkdir(parents=True, exist_ok=True)
+    graded, ledger_path = ledger_cli.grade_demo(out_dir, batch, ruleset)
     results_path = out_dir / "brackwater-results.jsonl"
     with open(results_path, "w", encoding="utf-8", newline="") as out:
         write_jsonl(graded, out)
@@ -280,7 +280,9 @@ def _demo(args, stdin, stdout, stderr) -> int:
         stdout.write(f"{name:<{width}}  " + "  ".join(f"{table.get((name, g), 0):>7}" for g in grades) + "\n")
     stdout.write("\n" + _summary(graded).replace("sumpwise: ", "", 1))
     stdout.write(f"results: {results_path}\nrejects: {rejects_path}\nreport: {report_path}\n")
-    stdout.write(f"explain one: sumpwise explain SAMPLE_ID --samples {samples} --rules {rules}\n\n")
+    stdout.write(f"explain one: sumpwise explain SAMPLE_ID --samples {samples} --rules {rules}\n")
+    stdout.write(f"ledger: {ledger_path} (sumpwise history ST-1 --db {ledger_path}; "
+                 f"sumpwise explain BP-0294 --db {ledger_path})\n\n")
     stdout.write(caution_text("! ") + "\n")
     return OK
 

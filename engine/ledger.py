@@ -129,6 +129,7 @@ def open_ledger(path, create: bool = True) -> sqlite3.Connection:
     try:
         conn = sqlite3.connect(path, timeout=BUSY_SECONDS, isolation_level=None)
         conn.execute("PRAGMA journal_mode=WAL")
+        conn.execute("PRAGMA synchronous=NORMAL")  # WAL: a crash never corrupts; power loss may drop the last batch
         conn.execute("PRAGMA foreign_keys=ON")
         _check_and_migrate(conn, path)
     except sqlite3.DatabaseError as exc:

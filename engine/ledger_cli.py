@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import re
+from pathlib import Path
 
 from .audit import explain_from_ledger, replay, replay_lines, unit_history, write_history
 from .cautions import caution_text
@@ -76,3 +77,10 @@ def run_replay(args, stdout, stderr) -> int:
     if report.differences:
         stdout.write(caution_text("! ") + "\n")
     return FINDINGS if report.differences else 0
+
+
+def grade_demo(out_dir: Path, batch, ruleset):
+    """The demo's year of samples through a ledger in its out folder; a regenerated scenario is a correction."""
+    path = out_dir / "brackwater.db"
+    graded, _ = grade_into_ledger(path, batch, ruleset, correction=True)
+    return graded, path

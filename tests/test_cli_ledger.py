@@ -126,3 +126,15 @@ def test_a_run_killed_inside_its_transaction_leaves_the_ledger_as_it_was(tmp_pat
     assert _state(db) == before and before[0] == "ok"
     assert _grade_process(second, db).wait(timeout=120) == 0  # the ledger is usable afterwards
     assert _state(db)[1] == 327
+
+
+def test_demo_records_the_year_in_a_ledger(tmp_path):
+    out = tmp_path / "out"
+    assert run_cli("demo", "--out", out).code == 0
+    db = out / "brackwater.db"
+    history = run_cli("history", "ST-1", "--db", db, "--format", "csv")
+    grades = [line.split(",")[10] for line in history.out.splitlines()[1:]]
+    # scenarios/brackwater/README.md: ST-1 is normal in January and urgent by December.
+    assert grades[0] == "normal" and grades[-1] == "urgent" and len(grades) == 27
+    assert run_cli("demo", "--out", out).code == 0  # a second run records nothing new
+    assert _state(db)[1:] == (327, 327, 1)
