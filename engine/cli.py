@@ -26,6 +26,7 @@ from .render_jsonl import dumps, write_jsonl
 from .render_table import write_table
 from .samples import load_column_map, read_samples
 from .spectra import command as spectra_command
+from .spectra_grading import measure_sample_spectra, parse_references
 from . import ledger_cli
 from . import report_command
 
@@ -141,6 +142,21 @@ def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True)
     parser.add_argument("--columns", metavar="MAP", help="column map YAML: lab column names and units")
     parser.add_argument("--input-format", choices=("csv", "jsonl"),
                         help="format of SAMPLES (default: from its name; csv for standard input)")
+    parser.add_argument("--reference", action="append", metavar="LUBRICANT=FILE", default=[],
+                        help="new-oil reference spectrum of a lubricant: samples of it with a `spectrum` "
+                             "are read by spectral subtraction (repeatable; wins over the rule set's)")
+    parser.add_argument("--path-length", type=_positive_mm, default=0.1, metavar="MM",
+                        help="FTIR cell path length of the spectra, mm (default 0.100)")
+
+
+def _positive_mm(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a path length in mm, found {text!r}") from None
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"the path length must be above 0 mm, found {text!r}")
+    return value
 
 
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
@@ -182,6 +198,7 @@ def _read(args, stdin):
         batch = read_samples(stdin, "<stdin>", columns, args.input_format or "csv", ruleset.measures)
     else:
         batch = read_samples(args.samples, None, columns, args.input_format, ruleset.measures)
+    batch = measure_sample_spectra(batch, ruleset, parse_references(args.reference), args.path_length)
     return ruleset, batch
 
 

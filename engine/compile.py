@@ -12,6 +12,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import os
 from dataclasses import replace
 from pathlib import Path
 
@@ -334,7 +335,8 @@ def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
         "ruleset": ruleset.id, "version": ruleset.version, "title": ruleset.title,
         "grades": list(ruleset.grades), "notice": ruleset.notice,
         "units": {key: FACTORS_CANONICAL[family] for key, family in sorted(UNIT_FAMILY.items())},
-        "lubricants": {code: _lubricant_doc(lub) for code, lub in ruleset.lubricants.items()},
+        "lubricants": {code: _lubricant_doc(lub, Path(ruleset.files[-1]).resolve().parent)
+                       for code, lub in ruleset.lubricants.items()},
         "classes": {name: {"rules": [rule_doc(r, ruleset.grades) for r in rules]}
                     for name, rules in ruleset.classes.items()},
         "rules": [rule_doc(r, ruleset.grades) for r in ruleset.rules],
@@ -350,11 +352,15 @@ def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
 FACTORS_CANONICAL = {family: next(u for u, f in units.items() if f == 1.0) for family, units in FACTORS.items()}
 
 
-def _lubricant_doc(lub: Lubricant) -> dict:
+def _lubricant_doc(lub: Lubricant, top_folder: Path) -> dict:
+    """A lubricant in canonical form; a reference spectrum's path is written relative to the top
+    rule-set file, as an author would, so the fingerprint does not depend on where the files sit."""
     doc = {}
     for name in ("description", "base_stock", "iso_vg", "kv40", "kv100", "an", "bn", "oxidation", "rpvot",
                  "reference_spectrum"):
         value = getattr(lub, name)
+        if name == "reference_spectrum" and value is not None:
+            value = Path(os.path.relpath(value, top_folder)).as_posix()
         if value is not None:
             doc[name] = _number(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else value
     return doc

@@ -12,6 +12,7 @@ from .measures import INPUT_MEASURES, derive_measures
 from .results import GradedBatch
 from .ruleset import RuleSet
 from .samples import ColumnMap, SampleBatch, validate_samples
+from .spectra_grading import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, spectrum_caveat_flags
 from .trends import TREND_CAVEATS, add_trend_measures, read_oil_changes, trend_bases, trend_caveat_flags
 
 
@@ -24,11 +25,14 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     batch = read_oil_changes(batch)
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
     measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, trend_bases(ruleset))
+    for column in SPECTRUM_COLUMNS:
+        measured[column] = batch.frame[column] if column in batch.frame.columns else None
     outcome = evaluate(ruleset, measured)
-    outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured)]))
+    outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
+                                                  spectrum_caveat_flags(measured)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
-                       TREND_CAVEATS)
+                       TREND_CAVEATS + SPECTRUM_CAVEATS)
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:

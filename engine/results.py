@@ -116,12 +116,15 @@ class SampleResult:
     unrated_because: str | None = None
     values: tuple = ()  # (name, value) of the lab values the sample came with, in canonical units
     method: str | None = None
+    spectrum: str | None = None  # the used-oil spectrum its FTIR measures were read from
+    reference_spectrum: str | None = None  # the new-oil spectrum subtracted from it
 
     def to_record(self) -> dict:
         """The JSON Lines record; key names are the contract, key order is fixed."""
         record = {"sample_id": self.sample_id, "unit_id": self.unit_id, "class": self.class_name,
                   "lubricant": self.lubricant, "sampled_on": self.sampled_on,
                   "values": dict(self.values), "method": self.method,
+                  "spectrum": self.spectrum, "reference_spectrum": self.reference_spectrum,
                   "grade": self.grade, "level": self.level,
                   "reasons": [r.to_record() for r in self.reasons],
                   "caveats": [c.to_record() for c in self.caveats],
@@ -311,7 +314,8 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
         row=int(measured.index[i]) if measured.index.dtype.kind in "iu" else None,
         unrated_because=unrated_because,
         values=tuple((name, values.number(name, i)) for name in batch.value_columns),
-        method=values.text("method", i))
+        method=values.text("method", i), spectrum=values.text("spectrum", i),
+        reference_spectrum=values.text("reference_spectrum", i))
 
 
 def _capped_by(rs: RuleSet, out: Outcome, i: int, rule, final: int) -> str | None:
