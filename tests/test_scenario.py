@@ -48,3 +48,19 @@ def test_ester_cap_holds_then_acid_number_lifts_it(graded):
 def test_unknown_class_is_unrated(graded):
     result = graded.find("BP-0225")
     assert result.grade == "unrated" and "ro-high-pressure-pump" in result.unrated_because
+
+
+def test_ftir_walkthrough():
+    import json
+
+    from conftest import run_cli
+    ftir = SCENARIO / "ftir"
+    run = run_cli("grade", ftir / "samples.csv", "--rules", ftir / "site-ftir.yaml",
+                  "--reference", f"TURB-46-M={ftir / 'spectra' / 'new-TURB-46-M.jdx'}",
+                  "--reference", f"COMP-46-PE={ftir / 'spectra' / 'new-COMP-46-PE.jdx'}")
+    assert run.code == 0, run.err
+    records = {r["sample_id"]: r for r in map(json.loads, run.out.splitlines())}
+    assert records["FT-001"]["method"] == "subtraction"
+    assert [c["caveat"] for c in records["FT-007"]["caveats"]] == ["ester-carbonyl", "base-stock-inferred"]
+    assert "FT-009" not in records and "rejected: spectrum" in run.err
+    assert records["FT-004"]["grade"] == "alert"
