@@ -22,6 +22,8 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_grade.py
+	$(BIN)/python benchmarks/bench_spectra.py
+	$(BIN)/python benchmarks/bench_ledger.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache
