@@ -2,9 +2,10 @@
 
 Why weights: trapezoid integration of the piecewise-linear spectrum over a
 fixed region is a fixed linear combination of its points, and the integral
-of a straight baseline is exact, so a batch's band areas are one matrix
-product `Y @ W`; baseline minima and peak heights are column-slice
-reductions. No Python loop runs per spectrum.
+of a straight baseline is exact, so a band's areas for a whole block are one
+weighted sum of grid rows; baseline minima and peak heights are reductions
+over a narrow, contiguous slab of a wavenumber-major block. No Python loop
+runs per spectrum.
 """
 
 from __future__ import annotations
@@ -248,55 +249,96 @@ class BlockMeasures:
 
 
 def measure_block(plan: BandPlan, spectra: np.ndarray) -> BlockMeasures:
-    """Band values for a block of spectra (rows) on the plan's grid; NaN propagates, never hides.
+    """Band values for a block of spectra given as rows (one spectrum per row).
 
-    float32 blocks stay float32 (half the memory traffic); anything else is read as float64.
+    The block is copied once to wavenumber-major order and measured by
+    measure_columns; a caller that can build that order directly saves the copy.
     """
-    spectra = np.asarray(spectra)
-    if spectra.dtype not in (np.float32, np.float64):
-        spectra = spectra.astype(np.float64)
+    spectra = np.atleast_2d(np.asarray(spectra))
+    return measure_columns(plan, np.ascontiguousarray(spectra.T))
+
+
+def measure_columns(plan: BandPlan, columns: np.ndarray) -> BlockMeasures:
+    """Band values for a block stored wavenumber-major: one row per grid point, one column per spectrum.
+
+    Why that order: every band reads a narrow wavenumber range, which is then
+    a contiguous slab of memory; minima, maxima and weighted sums run down
+    its rows with whole-row numpy operations, never a per-spectrum loop.
+    float32 blocks stay float32 (half the memory traffic); anything else is
+    read as float64. NaN propagates, never hides.
+    """
+    columns = np.asarray(columns)
+    if columns.dtype not in (np.float32, np.float64):
+        columns = columns.astype(np.float64)
     x = plan.x
-    rows = np.arange(spectra.shape[0])
+    spectra = np.arange(columns.shape[1])
     anchors = {}
 
     def anchor_value(anchor):
         key = anchor.at if anchor.at is not None else anchor.minimum_in
         if key not in anchors:
             if anchor.at is not None:
-                anchors[key] = (np.full(rows.size, anchor.at), _point_value(spectra, plan.points[anchor.at]))
+                anchors[key] = (np.full(spectra.size, anchor.at), _point_value(columns, plan.points[anchor.at]))
             else:
-                window = plan.windows[anchor.minimum_in]
-                block = spectra[:, window]
-                j = np.argmin(block, axis=1)
-                anchors[key] = (x[window][j], block[rows, j])
+                slab = columns[plan.windows[anchor.minimum_in]]
+                j = _first_extreme_row(slab, slab.min(axis=0), np.argmin)
+                anchors[key] = (x[plan.windows[anchor.minimum_in]][j], slab[j, spectra])
         return anchors[key]
 
     values, positions = {}, {}
     for band in plan.bands:
         if band.name in plan.uncovered:
-            values[band.name] = np.full(rows.size, np.nan)
+            values[band.name] = np.full(spectra.size, np.nan)
             continue
         if band.baseline:
             (xa, ya), (xb, yb) = (anchor_value(a) for a in band.baseline)
             slope = (yb - ya) / (xb - xa)
         if band.measure == "area":
             low, high = band.region
-            columns, weights = plan.areas[band.region]
+            rows, weights = plan.areas[band.region]
             baseline_area = (high - low) * (ya + ((low + high) / 2 - xa) * slope)
-            values[band.name] = spectra[:, columns] @ weights.astype(spectra.dtype, copy=False) - baseline_area
+            values[band.name] = _weighted_row_sum(columns[rows], weights.astype(columns.dtype, copy=False)) - baseline_area
         elif band.measure == "point":
             at = band.region[0]
-            value = _point_value(spectra, plan.points[at])
+            value = _point_value(columns, plan.points[at])
             values[band.name] = value - (ya + (at - xa) * slope) if band.baseline else value
         else:
             window = plan.windows[band.region]
-            above = spectra[:, window] - (ya[:, None] + (x[window][None, :] - xa[:, None]) * slope[:, None])
-            j = np.argmax(above, axis=1)
-            values[band.name] = above[rows, j]
+            above = columns[window] - (ya[None, :] + (x[window][:, None] - xa[None, :]) * slope[None, :])
+            j = _first_extreme_row(above, above.max(axis=0), np.argmax)
+            values[band.name] = above[j, spectra]
             positions[band.name] = x[window][j]
     return BlockMeasures(values, positions)
 
 
-def _point_value(spectra, point):
+def _first_extreme_row(slab, extreme, arg_extreme):
+    """Row of the first occurrence of `extreme` in each column, as np.argmin/argmax along axis 0 would give.
+
+    numpy's arg-reductions along axis 0 copy the slab to transposed order
+    first; comparing with the (cheap, vectorised) extreme does not. A column
+    holding NaN has a NaN extreme that equals nothing; those few columns go
+    to arg_extreme itself, which reports the first NaN.
+    """
+    rows = np.arange(slab.shape[0], dtype=np.int32)[:, None]
+    j = np.where(slab == extreme, rows, np.int32(slab.shape[0])).min(axis=0)
+    unmatched = np.flatnonzero(j == slab.shape[0])
+    if unmatched.size:
+        j[unmatched] = arg_extreme(slab[:, unmatched], axis=0)
+    return j
+
+
+def _weighted_row_sum(slab, weights):
+    """weights @ slab, one accumulated row at a time.
+
+    Not BLAS: on a small shared machine a threaded gemv spends more time
+    waiting for its second thread than summing.
+    """
+    total = slab[0] * weights[0]
+    for row, weight in zip(slab[1:], weights[1:]):
+        total += row * weight
+    return total
+
+
+def _point_value(columns, point):
     i, frac = point
-    return spectra[:, i] * (1.0 - frac) + spectra[:, i + 1] * frac
+    return columns[i] * (1.0 - frac) + columns[i + 1] * frac

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .bands import BandSet, load_bands, measure_block, plan_bands
+from .bands import BandSet, load_bands, measure_columns, plan_bands
 from .jcampdx import read_jcampdx, read_jcampdx_many
 from .spectrum import Spectrum, SpectrumError
 from .spectrum_csv import read_spectrum_csv
@@ -87,11 +87,13 @@ def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm: 
     reference = None if reference is None else np.atleast_2d(np.asarray(reference, dtype=float))
     parts = []
     for start in range(0, absorbance.shape[0], block_size):
-        block = absorbance[start : start + block_size] * scale
+        rows = absorbance[start : start + block_size]
+        # scaled straight into wavenumber-major order, the layout measure_columns reads fastest
+        block = np.multiply(rows.T, scale, out=np.empty(rows.T.shape))
         if reference is not None:
             ref = reference if reference.shape[0] == 1 else reference[start : start + block_size]
-            block = block - ref * ref_scale
-        parts.append(measure_block(plan, block))
+            np.subtract(block, (ref * ref_scale).T, out=block)
+        parts.append(measure_columns(plan, block))
     names = plan.bands
     values = {b.name: np.concatenate([p.values[b.name] for p in parts]) * factor for b in names}
     positions = {k: np.concatenate([p.peak_positions[k] for p in parts]) for k in parts[0].peak_positions} if parts else {}
