@@ -67,37 +67,39 @@ class Outcome:
 
 
 class _Columns:
-    """Column access for one class's rows, each column sliced once."""
+    """Column access for some rows (or all, when `rows` is None), each column sliced once."""
 
-    def __init__(self, measured: pd.DataFrame, rows: np.ndarray):
+    def __init__(self, measured: pd.DataFrame, rows: np.ndarray | None):
         self.measured = measured
         self.rows = rows
+        self.size = len(measured) if rows is None else len(rows)
         self.cache: dict = {}
+
+    def _take(self, values: np.ndarray) -> np.ndarray:
+        return values if self.rows is None else values[self.rows]
 
     def number(self, name: str) -> np.ndarray:
         if name not in self.cache:
             if name in self.measured.columns:
-                self.cache[name] = self.measured[name].to_numpy(dtype=float, na_value=np.nan)[self.rows]
+                self.cache[name] = self._take(self.measured[name].to_numpy(dtype=float, na_value=np.nan))
             else:
-                self.cache[name] = np.full(len(self.rows), np.nan)
+                self.cache[name] = np.full(self.size, np.nan)
         return self.cache[name]
 
-    def text(self, name: str) -> np.ndarray:
-        key = ("text", name)
-        if key not in self.cache:
-            if name in self.measured.columns:
-                column = self.measured[name].to_numpy(dtype=object)[self.rows]
-            else:
-                column = np.full(len(self.rows), None, dtype=object)
-            self.cache[key] = column
-        return self.cache[key]
+    def folded(self, name: str) -> tuple[np.ndarray, list]:
+        """(code per row, -1 where missing; the distinct values stripped and case-folded).
 
-    def folded(self, name: str) -> tuple[np.ndarray, np.ndarray]:
+        Text is compared per distinct value, not per row: a million rows hold a handful of
+        classes, lubricants and base stocks.
+        """
         key = ("folded", name)
         if key not in self.cache:
-            column = pd.Series(self.text(name), dtype=object)
-            known = column.notna().to_numpy()
-            self.cache[key] = (column.astype(str).str.strip().str.casefold().to_numpy(dtype=object), known)
+            if name in self.measured.columns:
+                codes, uniques = pd.factorize(self._take(self.measured[name].to_numpy(dtype=object)))
+                folded = [str(u).strip().casefold() for u in uniques]
+            else:
+                codes, folded = np.full(self.size, -1, dtype=np.intp), []
+            self.cache[key] = (codes, folded)
         return self.cache[key]
 
 
@@ -112,9 +114,10 @@ def condition_truth(condition, columns: _Columns, leaves: list | None = None) ->
         truth = missing if condition.missing else ~missing
         known = np.ones(len(truth), dtype=bool)
     elif isinstance(condition, FieldTest):
-        folded, known = columns.folded(condition.field)
-        wanted = [v.strip().casefold() for v in condition.values]
-        truth = np.isin(folded, wanted) & known
+        codes, folded = columns.folded(condition.field)
+        wanted = {v.strip().casefold() for v in condition.values}
+        known = codes >= 0
+        truth = np.isin(codes, [k for k, value in enumerate(folded) if value in wanted])
     elif isinstance(condition, AllOf):
         parts = [condition_truth(p, columns, leaves) for p in condition.parts]
         any_false = np.logical_or.reduce([k & ~t for t, k in parts])
@@ -145,16 +148,18 @@ def _ladder_levels(rule: LadderRule, columns: _Columns) -> np.ndarray:
 def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
     """Grade every row of `measured` (the output of derive_measures) under `ruleset`."""
     n = len(measured)
-    classes = measured["class"].to_numpy(dtype=object) if n else np.empty(0, dtype=object)
+    class_codes, class_names = pd.factorize(measured["class"].to_numpy(dtype=object)) if n else (np.empty(0), [])
+    code_of = {str(name): k for k, name in enumerate(class_names)}
     slots = tuple(Slot(name, rule) for name in ruleset.classes for rule in ruleset.rules_for(name))
-    raw = np.full((n, len(slots)), NOT_APPLICABLE, dtype=np.int8)
+    # Column-major: each rule writes and caps one contiguous column.
+    raw = np.full((n, len(slots)), NOT_APPLICABLE, dtype=np.int8, order="F")
     leaves: dict = {}
     known_class = np.zeros(n, dtype=bool)
 
     start = 0
     for name in ruleset.classes:
         rules = ruleset.rules_for(name)
-        rows = np.flatnonzero(classes == name)
+        rows = np.flatnonzero(class_codes == code_of[name]) if name in code_of else np.empty(0, dtype=np.intp)
         known_class[rows] = True
         columns = _Columns(measured, rows)
         for offset, rule in enumerate(rules):
@@ -170,10 +175,10 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
                 leaves[j] = (rows, found)
         start += len(rules)
 
-    everyone = _Columns(measured, np.arange(n))
+    everyone = _Columns(measured, None)
     caveats = np.zeros((n, len(ruleset.caveats)), dtype=bool)
     capping_all = np.zeros_like(caveats)
-    final = raw.copy()
+    final = raw.copy(order="F")
     for k, caveat in enumerate(ruleset.caveats):
         truth, _ = condition_truth(caveat.when, everyone)
         caveats[:, k] = truth

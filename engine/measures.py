@@ -126,11 +126,17 @@ def _texts(frame: pd.DataFrame, column: str) -> pd.Series:
     return pd.Series([None] * len(frame), index=frame.index, dtype=object)
 
 
-def _by_code(codes: np.ndarray, known: list, values: list, fill) -> np.ndarray:
-    """Look a per-lubricant value up for every row (one factorize, not one dict lookup a row)."""
+def _by_code(lookup: np.ndarray, values: list, fill) -> np.ndarray:
+    """A per-lubricant value for every row; `lookup` is each row's index into the lubricants
+    table (-1 for none), from one factorize of the lubricant column."""
     table = np.array(list(values) + [fill], dtype=object if fill is None else float)
-    where = pd.Index(known).get_indexer(codes) if known else np.full(len(codes), -1)
-    return table[where]
+    return table[lookup]
+
+
+def _lubricant_lookup(codes: np.ndarray, known: list) -> np.ndarray:
+    row_codes, uniques = pd.factorize(codes)
+    where = pd.Index(known).get_indexer(uniques) if known else np.full(len(uniques), -1)
+    return np.append(where, -1)[row_codes]  # factorize's -1 (no lubricant) stays -1
 
 
 def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), extra_fields=()) -> pd.DataFrame:
@@ -144,19 +150,20 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out[name] = _numbers(samples, name)
 
     lubricant = _texts(samples, "lubricant")
-    codes = lubricant.to_numpy(dtype=object)
-    known = list(lubricants)
+    lookup = _lubricant_lookup(lubricant.to_numpy(dtype=object), list(lubricants))
     for name in REFERENCE_VALUES:
         reference = [np.nan if getattr(lub, name) is None else getattr(lub, name) for lub in lubricants.values()]
-        from_table = _by_code(codes, known, reference, np.nan).astype(float)
+        from_table = _by_code(lookup, reference, np.nan).astype(float)
         own = _numbers(samples, f"new_{name}")
         out[f"new_{name}"] = np.where(np.isnan(own), from_table, own)
 
     fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields)}
-    base_from_table = _by_code(codes, known, [lub.base_stock for lub in lubricants.values()], None)
+    base_from_table = _by_code(lookup, [lub.base_stock for lub in lubricants.values()], None)
     fields["base_stock"] = fields["base_stock"].where(fields["base_stock"].notna(),
                                                       pd.Series(base_from_table, index=samples.index))
-    method = fields["method"].where(fields["method"].notna(), "direct").astype(str).str.lower().astype(object)
+    method_codes, method_names = pd.factorize(fields["method"].to_numpy(dtype=object))
+    method = pd.Series(np.array([str(m).lower() for m in method_names] + ["direct"], dtype=object)[method_codes],
+                       index=samples.index, dtype=object)
     fields["method"] = method
 
     subtraction = (method == "subtraction").to_numpy()
@@ -181,7 +188,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
             out[name] = np.where(np.isfinite(values), values, np.nan)
     out["vi"] = viscosity_index(out["kv40"], out["kv100"])
 
-    frame = pd.DataFrame(out, index=samples.index)
+    frame = pd.DataFrame(out, index=samples.index, copy=False)
     for name, series in fields.items():
         frame[name] = series.astype(object)
     return frame
