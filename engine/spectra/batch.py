@@ -77,22 +77,29 @@ def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm: 
     matrix with one row per spectrum. Returns (values, peak_positions,
     uncovered): dicts of arrays in abs/0.1 mm (direct) or abs/cm, NaN where a
     band met a non-finite point; and the bands the grid does not reach.
+    Rows are copied once to wavenumber-major order; for many spectra that
+    copy costs more than the measures, so measure_spectra stacks columns.
     """
+    columns = np.ascontiguousarray(np.atleast_2d(np.asarray(absorbance, dtype=float)).T)
+    if reference is not None:
+        reference = np.ascontiguousarray(np.atleast_2d(np.asarray(reference, dtype=float)).T)
+    return _measure_columns_matrix(x, columns, bands, path_length_mm, reference, reference_path_length_mm,
+                                   block_size)
+
+
+def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, reference_path_length_mm, block_size):
+    """measure_matrix on wavenumber-major data: one column per spectrum (reference: one column, or one per spectrum)."""
     bands = bands or load_bands()
     plan = plan_bands(np.asarray(x, dtype=float), bands.bands)
-    absorbance = np.asarray(absorbance, dtype=float)
     scale = REFERENCE_PATH_MM / path_length_mm
     ref_scale = REFERENCE_PATH_MM / (reference_path_length_mm or path_length_mm)
     factor = 1.0 if reference is None else ABS_PER_CM_PER_ABS_PER_01MM
-    reference = None if reference is None else np.atleast_2d(np.asarray(reference, dtype=float))
     parts = []
-    for start in range(0, absorbance.shape[0], block_size):
-        rows = absorbance[start : start + block_size]
-        # scaled straight into wavenumber-major order, the layout measure_columns reads fastest
-        block = np.multiply(rows.T, scale, out=np.empty(rows.T.shape))
+    for start in range(0, columns.shape[1], block_size):
+        block = columns[:, start : start + block_size] * scale
         if reference is not None:
-            ref = reference if reference.shape[0] == 1 else reference[start : start + block_size]
-            np.subtract(block, (ref * ref_scale).T, out=block)
+            ref = reference if reference.shape[1] == 1 else reference[:, start : start + block_size]
+            block -= ref * ref_scale
         parts.append(measure_columns(plan, block))
     names = plan.bands
     values = {b.name: np.concatenate([p.values[b.name] for p in parts]) * factor for b in names}
@@ -142,13 +149,13 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     rows = {}
     for (_, ref_path), members in groups.items():
         x = spectra[members[0]].wavenumber
-        absorbance = np.stack([spectra[i].absorbance for i in members])
+        columns = np.stack([spectra[i].absorbance for i in members], axis=1)  # as cheap as rows, no later copy
         reference = None
         if ref_path is not None:
             ref = loaded_refs[ref_path]
-            reference = np.interp(x, ref.wavenumber, ref.absorbance, left=np.nan, right=np.nan)
-        values, _, uncovered = measure_matrix(
-            x, absorbance, bands, path_length_mm, reference, reference_path_length_mm, block_size)
+            reference = np.interp(x, ref.wavenumber, ref.absorbance, left=np.nan, right=np.nan)[:, None]
+        values, _, uncovered = _measure_columns_matrix(
+            x, columns, bands, path_length_mm, reference, reference_path_length_mm, block_size)
         method = DIRECT if ref_path is None else SUBTRACTION
         for k, i in enumerate(members):
             spectrum = spectra[i]
