@@ -265,31 +265,26 @@ class _Writer:
         raw_values["unrated_because"] = np.full(len(rows), "", dtype=object)
         if unrated.any():
             raw_values["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
-        return self._matrix(rows, raw_values, unrated)
+        return self._assemble(rows, raw_values, unrated)
 
-    def _matrix(self, rows: np.ndarray, raw_values: dict, unrated: np.ndarray) -> np.ndarray:
-        """The lines as a [rows, pieces] matrix of text whose row-major join is the output.
+    def _assemble(self, rows: np.ndarray, raw_values: dict, unrated: np.ndarray) -> list[str]:
+        """The lines: each record skeleton becomes one %-template filled once a row.
 
-        Rated and unrated records differ only by the `unrated_because` key, so one layout
-        serves both: around that key, rated rows get the rated skeleton's text instead.
+        Filling one template with a row's ~20 pre-formatted values is a single C-level
+        formatting call, far cheaper than joining the ~40 pieces of a line one by one.
         """
-        rep = int(rows[0])
-        rated_chunks, rated_wanted = self._skeleton(rep, False)
-        chunks, wanted = self._skeleton(rep, True)
-        at = wanted.index(("raw", "unrated_because"))
-        if rated_chunks[:at] != chunks[:at] or rated_chunks[at + 1:] != chunks[at + 2:]:
-            raise AssertionError("the rated and unrated record skeletons differ beyond unrated_because")
-        columns = [np.full(len(rows), chunks[0], dtype=object)]
-        for p, ((kind, name), chunk) in enumerate(zip(wanted, chunks[1:])):
-            value = raw_values[name] if kind == "raw" else self.literals.get(kind, name, rows)
-            if p == at - 1:  # the chunk before unrated_because: rated rows close the record their way
-                chunk = np.where(unrated, chunk, rated_chunks[at]).astype(object)
-            elif p == at:
-                chunk = np.where(unrated, chunk, "").astype(object)
-            columns.append(value)
-            columns.append(chunk if isinstance(chunk, np.ndarray) else np.full(len(rows), chunk, dtype=object))
-        columns.append(np.full(len(rows), "\n", dtype=object))
-        return np.stack(columns, axis=1)
+        lines: list = [None] * len(rows)
+        for is_unrated in (False, True):
+            members = np.flatnonzero(unrated == is_unrated)
+            if not len(members):
+                continue
+            chunks, wanted = self._skeleton(int(rows[members[0]]), is_unrated)
+            template = "%s".join(chunk.replace("%", "%%") for chunk in chunks)
+            columns = [(raw_values[name][members] if kind == "raw" else
+                        self.literals.get(kind, name, rows[members])).tolist() for kind, name in wanted]
+            for k, args in zip(members.tolist(), zip(*columns)):
+                lines[k] = template % args
+        return lines
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)
@@ -318,7 +313,7 @@ def jsonl_lines(batch: GradedBatch, block: int = 200_000):
     n = len(batch)
     for start in range(0, n, block):
         rows = np.arange(start, min(n, start + block))
-        yield "".join(writer.lines(rows).ravel().tolist())  # a list joins faster than an array
+        yield "\n".join(writer.lines(rows)) + "\n"
 
 
 def write_jsonl(batch: GradedBatch, stream) -> None:
