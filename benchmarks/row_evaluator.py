@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 
-from engine.ruleset import AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest, Not
+from engine.ruleset import AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest
 from engine.viscosity import viscosity_index
 
 

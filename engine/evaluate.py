@@ -14,8 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .ruleset import (AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest, Not,
-                      RuleSet)
+from .ruleset import AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest, RuleSet
 
 # Outcome codes in the per-rule matrices; 0 and above are ladder levels.
 NOT_APPLICABLE = -2  # the rule is not one of this sample's class

@@ -14,22 +14,10 @@ import pandas as pd
 from .compile import engine_name
 from .evaluate import NOT_EVALUATED
 from .render_jsonl import join_parts, states
-from .results import UNRATED, GradedBatch, build_result, gap_at, record_shape_groups, rule_inputs
+from .results import UNRATED, GradedBatch, gap_at, record_shape_groups, rule_inputs
 
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "grade", "level", "fired", "caveats",
            "not_evaluated", "unrated_because", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
-
-
-class _RealTexts:
-    def __init__(self, measured: pd.DataFrame):
-        self.measured = measured
-
-    def number(self, name: str, i: int):
-        return None
-
-    def text(self, name: str, i: int):
-        value = self.measured[name].iat[i] if name in self.measured.columns else None
-        return None if value is None or (isinstance(value, float) and np.isnan(value)) else str(value)
 
 
 def _fired(batch: GradedBatch) -> np.ndarray:
@@ -82,8 +70,7 @@ def _unrated(batch: GradedBatch) -> np.ndarray:
     rows = np.flatnonzero(batch.outcome.level < 0)
     if len(rows):
         representatives, group_of, _ = record_shape_groups(batch, rows)
-        sentences = [build_result(batch, int(rep), _RealTexts(batch.measured)).unrated_because
-                     for rep in representatives]
+        sentences = [batch.result(int(rep)).unrated_because for rep in representatives]
         text[rows] = np.array(sentences, dtype=object)[group_of]
     return text
 

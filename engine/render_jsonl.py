@@ -288,23 +288,9 @@ class _Writer:
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)
-        table = [json.dumps(build_result(self.batch, int(rep), _NoValues(self.batch)).unrated_because,
+        table = [json.dumps(self.batch.result(int(rep)).unrated_because,
                             ensure_ascii=False) for rep in representatives]
         return np.array(table, dtype=object)[group_of]
-
-
-class _NoValues:
-    """Real text values (for the unrated sentence, which names the class), numbers as None."""
-
-    def __init__(self, batch: GradedBatch):
-        self.measured = batch.measured
-
-    def number(self, name: str, i: int):
-        return None
-
-    def text(self, name: str, i: int):
-        value = self.measured[name].iat[i] if name in self.measured.columns else None
-        return None if value is None or (isinstance(value, float) and np.isnan(value)) else str(value)
 
 
 def jsonl_lines(batch: GradedBatch, block: int = 200_000):

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from .compile import engine_name
-from .evaluate import NOT_APPLICABLE, NOT_EVALUATED, Outcome
+from .evaluate import NOT_EVALUATED, Outcome
 from .measures import DERIVED_MEASURES, INPUT_MEASURES, measure_needs
 from .ruleset import AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest, Not, RuleSet
 
