@@ -16,6 +16,7 @@ base stock always wins, and a disagreement is a caveat of its own.
 
 from __future__ import annotations
 
+import os
 from dataclasses import replace
 from pathlib import Path
 
@@ -65,10 +66,16 @@ def parse_references(items) -> dict[str, Path]:
 
 def reference_files(ruleset: RuleSet, given: dict[str, Path]) -> dict[str, Path]:
     """New-oil reference spectrum per lubricant code: the command line's, else the rule set's."""
-    files = {code: Path(lub.reference_spectrum) for code, lub in ruleset.lubricants.items()
+    files = {code: _shorter(Path(lub.reference_spectrum)) for code, lub in ruleset.lubricants.items()
              if lub.reference_spectrum}
     files.update(given)
     return files
+
+
+def _shorter(path: Path) -> Path:
+    """A path below the working folder as a relative one, so messages read the same on every machine."""
+    relative = Path(os.path.relpath(path))
+    return path if relative.parts[:1] == ("..",) else relative
 
 
 def measure_sample_spectra(batch: SampleBatch, ruleset: RuleSet, references: dict[str, Path] | None = None,
