@@ -192,26 +192,42 @@ def begin(conn: sqlite3.Connection) -> None:
 # -- recording a graded batch ------------------------------------------------------------------
 
 def sample_contents(frame: pd.DataFrame) -> np.ndarray:
-    """Each row's input values as canonical JSON (sorted keys, missing values left out), column-wise."""
-    text = np.full(len(frame), "", dtype=object)
-    for name in sorted(frame.columns):
-        column = frame[name]
-        key = json.dumps(name, ensure_ascii=False) + ": "
-        if column.dtype == bool:
-            literal, present = np.where(column.to_numpy(), "true", "false").astype(object), np.ones(len(frame), bool)
-        elif column.dtype.kind in "fiu":
-            values = column.to_numpy(dtype=float)
-            present = np.isfinite(values)
-            literal = pd.Series(np.where(present, values, 0.0)).astype(str).to_numpy(dtype=object)
-        else:
-            values = column.astype(object)
-            present = values.notna().to_numpy()
-            words = values.where(present, "").astype(str)
-            literal = ('"' + words + '"').to_numpy(dtype=object)
-            for k in np.flatnonzero(words.str.contains(_NEEDS_ESCAPE).to_numpy() & present):
-                literal[k] = json.dumps(words.iat[k], ensure_ascii=False)
-        text = text + np.where(present, key + literal + ", ", "")
-    return ("{" + pd.Series(text, dtype=object).str.slice(0, -2) + "}").to_numpy(dtype=object)
+    """Each row's input values as canonical JSON (sorted keys, missing values left out), column-wise.
+
+    Each column gives every row one piece, `"name": value, ` or "" where the value is missing,
+    each distinct value spelled once; the pieces are joined in one pass and split at the row ends.
+    """
+    n = len(frame)
+    pieces = [np.full(n, "{", dtype=object)]
+    pieces += [_content_pieces(name, frame[name]) for name in sorted(frame.columns)]
+    pieces.append(np.full(n, "}\n", dtype=object))
+    text = "".join(np.stack(pieces, axis=1).ravel().tolist())
+    # A raw newline only ends a row (JSON escapes it elsewhere), so ", }\n" is always a row's trailing comma.
+    return np.array(text.replace(", }\n", "}\n").split("\n")[:-1], dtype=object)
+
+
+def _content_pieces(name: str, column: pd.Series) -> np.ndarray:
+    key = json.dumps(name, ensure_ascii=False) + ": "
+    if column.dtype == bool:
+        return np.array([key + "false, ", key + "true, "], dtype=object)[column.to_numpy().astype(np.intp)]
+    if column.dtype.kind in "fiu":
+        values = column.to_numpy(dtype=float)
+        # Factorized by bit pattern, so -0.0 keeps its own spelling; missing and infinite values are left out.
+        codes, uniques = pd.factorize(np.where(np.isfinite(values), values, np.nan).view(np.int64))
+        spelled = [key + repr(v) + ", " if np.isfinite(v) else "" for v in uniques.view(float).tolist()]
+        return np.array(spelled + [""], dtype=object)[codes]
+    values = column.astype(object)
+    present = values.notna().to_numpy()
+    codes, uniques = pd.factorize(values.to_numpy(dtype=object))
+    if not all(type(u) is str for u in uniques):  # 1, 1.0 and True factorize alike but are spelled apart
+        codes, uniques = pd.factorize(values.where(present, "").astype(str).to_numpy(dtype=object))
+    codes[~present] = -1
+    uniques = np.asarray(uniques, dtype=object)
+    if _NEEDS_ESCAPE.search("".join(uniques)):
+        spelled = np.array([key + json.dumps(u, ensure_ascii=False) + ", " for u in uniques], dtype=object)
+    else:
+        spelled = key + '"' + uniques + '", '
+    return np.append(spelled, "").astype(object)[codes]
 
 
 def _fingerprints(contents: np.ndarray) -> np.ndarray:
@@ -219,9 +235,10 @@ def _fingerprints(contents: np.ndarray) -> np.ndarray:
 
 
 def _nullable(values: np.ndarray) -> list:
+    """Values ready to bind: SQLite itself stores a NaN float as NULL, so floats go as they are."""
     values = np.asarray(values)
     if values.dtype.kind == "f":
-        return np.where(np.isnan(values), None, values.astype(object)).tolist()
+        return values.tolist()
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
 
 
@@ -232,10 +249,14 @@ def _fill_temp(conn: sqlite3.Connection, table: str, values) -> None:
 
 
 def _current_entries(conn: sqlite3.Connection, sample_ids) -> pd.DataFrame:
+    """The current entries of these ids: one join on a temporary table, skipped on an empty ledger."""
+    columns = ["sample_id", "entry", "content_sha256", "batch"]
+    if conn.execute("SELECT NOT EXISTS (SELECT 1 FROM samples)").fetchone()[0]:
+        return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
     _fill_temp(conn, "wanted_ids", sample_ids)
     rows = conn.execute("SELECT s.sample_id, s.entry, s.content_sha256, s.batch FROM samples s "
                         "JOIN temp.wanted_ids w ON s.sample_id = w.value WHERE s.superseded_in IS NULL").fetchall()
-    return pd.DataFrame(rows, columns=["sample_id", "entry", "content_sha256", "batch"])
+    return pd.DataFrame(rows, columns=columns)
 
 
 def history_frame(conn: sqlite3.Connection, units, before_batch: int | None = None) -> pd.DataFrame:
@@ -336,7 +357,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: bool) 
     corrects = np.full(len(frame), None, dtype=object)
     corrects[differs] = corrected
     flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame else np.zeros(len(frame), bool)
-    columns = [np.full(len(rows), number, dtype=object).tolist()]
+    columns = [[number] * len(rows)]
     columns += [_nullable(measured[name].to_numpy()[rows]) for name in
                 ("sample_id", "unit_id", "class", "sampled_on", "oil_hours")]
     columns.append(flags[rows].astype(int).tolist())
@@ -354,11 +375,12 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: bool) 
     levels = np.where(graded.outcome.level >= 0, graded.outcome.level, np.nan)
     start = 0
     for block in jsonl_lines(graded):
-        lines = pd.Series(block.split("\n")[:-1], dtype=object)
-        span = np.arange(start, start + len(lines))
-        start += len(lines)
+        heads = _without_tail(block, tail)
+        span = np.arange(start, start + len(heads))
+        start += len(heads)
         keep = fresh[span]
-        heads = _without_tail(lines[keep], tail)
+        if not keep.all():
+            heads = np.array(heads, dtype=object)[keep].tolist()
         picked = span[keep]
         conn.executemany("INSERT INTO results VALUES (?, ?, ?, ?)",
                          zip(entries[picked].tolist(), grades[picked].tolist(), _nullable(levels[picked]), heads))
@@ -373,10 +395,16 @@ def record_tail(ruleset: RuleSet) -> str:
     return ", " + shared[1:]
 
 
-def _without_tail(lines: pd.Series, tail: str) -> list:
-    if not lines.str.endswith(tail).all():
+def _without_tail(block: str, tail: str) -> list:
+    """The lines of a JSON Lines block without their shared tail, checked to end every line.
+
+    A raw newline only ends a line, so splitting at `tail + newline` gives one piece a line
+    exactly when the tail ends every line.
+    """
+    heads = block.split(tail + "\n")
+    if heads.pop() != "" or len(heads) != block.count("\n"):
         raise RuntimeError("a result record does not end with its rule set's notice, id and engine")
-    return lines.str.slice(0, -len(tail)).tolist()
+    return heads
 
 
 # -- reading the ledger back ---------------------------------------------------------------------

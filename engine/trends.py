@@ -50,8 +50,8 @@ _FLAGS = {"true": True, "false": False, "yes": True, "no": False, "1": True, "0"
 
 def read_oil_changes(batch: SampleBatch) -> SampleBatch:
     """The batch with `oil_changed` as booleans; a row whose flag is neither yes nor no is rejected."""
-    if "oil_changed" not in batch.frame.columns:
-        return batch
+    if "oil_changed" not in batch.frame.columns or batch.frame["oil_changed"].dtype == bool:
+        return batch  # nothing to read, or read already (the ledger reads flags before grading)
     column = batch.frame["oil_changed"].astype(object)
     text = column.where(column.notna(), "").astype(str).str.strip()
     flags = text.str.casefold().map(_FLAGS)

@@ -174,3 +174,60 @@ def test_sample_values_are_stored_as_canonical_json(tmp_path, ruleset):
                                    "oil_hours": 1300.0, "oxidation": 2.5, "sample_id": "T-09",
                                    "sampled_on": "2026-02-06", "unit_id": "ST-2"}
     assert list(json.loads(content)) == sorted(json.loads(content))
+
+
+def test_sample_contents_equal_the_standard_json_module_row_by_row():
+    # Reference: Python's json module (sorted keys, no ASCII escaping); missing values are left out.
+    import math
+
+    import numpy as np
+    import pandas as pd
+
+    from engine.ledger import sample_contents
+    words = ["plain", 'a "quote"', "back\\slash", "tab\tand\nnewline", "é ü ß", "\x7f", "line\u2028sep", ""]
+    frame = pd.DataFrame({
+        "sample_id": [f"S{k}" for k in range(8)],
+        "note": np.array(words, dtype=object),
+        "maybe": np.array([None, "x", None, "y", float("nan"), "z", None, "w"], dtype=object),
+        "value": [0.1, -0.0, 1e16, 1e-5, float("nan"), 5e-324, float("inf"), 0.30000000000000004],
+        "count": np.arange(-3, 5),
+        "flag": [True, False] * 4,
+        "mixed": np.array([1, 1.0, True, "1", None, 2, "2", 2.5], dtype=object),
+        'odd "key" é': ["v"] * 8,
+    })
+    expected = []
+    for k in range(len(frame)):
+        row = {}
+        for name in frame.columns:
+            v = frame[name].iat[k]
+            if name in ("value", "count"):
+                if math.isfinite(float(v)):
+                    row[name] = float(v)
+            elif name == "flag":
+                row[name] = bool(v)
+            elif not pd.isna(v):
+                row[name] = str(v)
+        expected.append(json.dumps(row, sort_keys=True, ensure_ascii=False, separators=(", ", ": ")))
+    assert sample_contents(frame).tolist() == expected
+    assert sample_contents(frame.iloc[:0]).tolist() == [] and sample_contents(frame[[]]).tolist() == ["{}"] * 8
+
+
+def test_missing_values_are_stored_as_null(tmp_path, ruleset):
+    # SQLite stores a bound NaN as NULL (sqlite.org/c3ref/bind_blob.html); the ledger relies on it.
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(db) as conn:
+        kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(level) FROM samples "
+                             "JOIN results USING (entry) WHERE sample_id = 'T-04'").fetchone()
+        unrated = conn.execute("SELECT typeof(level) FROM samples JOIN results USING (entry) "
+                               "WHERE sample_id = 'T-01'").fetchone()
+    assert kinds == ("null", "real", "integer") and unrated == ("null",)
+
+
+def test_a_record_without_its_tail_is_an_internal_error():
+    from engine.ledger import _without_tail
+    tail = ', "engine": "x"}'
+    assert _without_tail('{"a": 1, "engine": "x"}\n{"b": 2, "engine": "x"}\n', tail) == ['{"a": 1', '{"b": 2']
+    assert _without_tail("", tail) == []
+    with pytest.raises(RuntimeError, match="does not end with"):
+        _without_tail('{"a": 1, "engine": "x"}\n{"b": 2, "engine": "y"}\n', tail)
