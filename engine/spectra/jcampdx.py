@@ -60,7 +60,9 @@ def _tables():
 
 
 _KIND, _LEAD, _NEGATIVE = _tables()
+_KIND_BYTES = _KIND.astype(np.uint8).tobytes()  # the same table for bytes.translate, faster than indexing
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
+_DIGITS_ONLY = bytes(c if 48 <= c <= 57 else 32 for c in range(256))  # bytes.translate table: non-digits to spaces
 _EXPONENT = re.compile(rb"[0-9][Ee][+-]")
 _PAC_SIGN = re.compile(rb"(?<=[0-9.])(?=[+-])")
 _COMMENT = re.compile(r"\$\$.*")
@@ -163,14 +165,19 @@ def _prepare(text, source):
     for key in ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR"):
         ctx.number(key, None if key in ("FIRSTX", "LASTX", "NPOINTS") else 1.0)
     raw = block.encode("latin-1")
-    line_numbers = data_line + 1 + np.arange(raw.count(b"\n") + 1)
+    return _Prepared(ctx, raw, data_line + 1 + np.arange(raw.count(b"\n") + 1))
+
+
+def _without_blank_lines(item):
+    """The general path's view of a block: blank lines dropped, the others keep their file line numbers."""
+    raw, line_numbers = item.raw, item.line_numbers
+    if not raw.strip():
+        raise SpectrumError(item.ctx.source, item.ctx.data_line, "data block is empty")
     if _has_blank_line(raw):
         kept = [(line, number) for line, number in zip(raw.split(b"\n"), line_numbers) if line.strip()]
-        if not kept:
-            raise SpectrumError(source, data_line, "data block is empty")
         raw = b"\n".join(line for line, _ in kept)
         line_numbers = np.array([number for _, number in kept])
-    return _Prepared(ctx, raw, line_numbers)
+    return _Prepared(item.ctx, raw, line_numbers)
 
 
 def _spectrum(ctx, x, y, evenly_spaced=False):
@@ -249,26 +256,18 @@ def _check_trailer(trailer, source, first_line):
 
 def _decode_xydata(items):
     source = items[0].ctx.source if len(items) == 1 else "<batch>"
-    raw = b"\n".join(item.raw for item in items)
-    lines_per_file = np.array([item.line_numbers.size for item in items])
-    line_numbers = np.concatenate([item.line_numbers for item in items])
-    line_file = np.repeat(np.arange(len(items)), lines_per_file)
-    first_line = np.zeros(line_numbers.size, dtype=bool)
-    first_line[np.cumsum(lines_per_file) - lines_per_file] = True
     header = np.array([[item.ctx.number(k, 1.0) for k in ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR")]
                        for item in items])
+    decoded = _decode_integer_blocks(items, source)
+    if decoded is None:
+        items = [_without_blank_lines(item) for item in items]
+        decoded = _decode_general(items, source)
+        if decoded is None:
+            return [_decode_xydata([item])[0] for item in items]
+    y, line_start_index, is_check, line_x, line_unit, line_numbers, first_line = decoded
+    line_file = np.cumsum(first_line) - 1
     first_x, last_x, npoints, x_factor, y_factor = header.T
     npoints = npoints.astype(np.int64)
-    chars = np.frombuffer(raw, dtype=np.uint8).copy()
-    line_x, line_unit = _take_line_abscissae(chars, line_numbers, source)
-    y_text = chars.tobytes()
-    if b"." in y_text or (any(e in y_text for e in (b"E+", b"E-", b"e+", b"e-")) and _EXPONENT.search(y_text)):
-        if len(items) > 1:
-            return [_decode_xydata([item])[0] for item in items]
-        y, line_start_index = _decode_affn_floats(y_text, line_numbers, source)
-        is_check = np.zeros(line_numbers.size, dtype=bool)
-    else:
-        y, line_start_index, is_check = _decode_asdf(y_text, line_numbers, source, first_line)
     file_start = np.append(line_start_index[first_line], y.size)
     counts = np.diff(file_start)
     delta = np.where(npoints > 1, (last_x - first_x) / np.maximum(npoints - 1, 1), 0.0)
@@ -284,6 +283,87 @@ def _decode_xydata(items):
         x = first_x[k] + np.arange(npoints[k]) * delta[k]
         spectra.append(_spectrum(item.ctx, x, y[file_start[k] : file_start[k + 1]] * y_factor[k], evenly_spaced=True))
     return spectra
+
+
+def _line_tables(items):
+    """All lines of the joined blocks: their file line numbers and which lines open a file."""
+    lines_per_file = np.array([item.line_numbers.size for item in items])
+    first_line = np.zeros(lines_per_file.sum(), dtype=bool)
+    first_line[np.cumsum(lines_per_file) - lines_per_file] = True
+    return np.concatenate([item.line_numbers for item in items]), first_line
+
+
+def _decode_integer_blocks(items, source):
+    """Fast path for blocks of integers only (AFFN, PAC, SQZ, DIF, DUP), the common case.
+
+    Each token is split at its leading character and its digits are parsed
+    in C by np.fromstring on a copy where every non-digit is a space; the
+    leading character's digit, sign and form come from lookup tables. Returns
+    None when the blocks need the general path: blank lines, decimals,
+    commas, a character outside the forms, a line without an integer X and
+    a Y, a value over 18 digits or a sign alone. Errors the two paths share
+    (DUP, DIF, Y-check, X position, point count) are raised as there.
+    """
+    raw = b"\n".join(item.raw for item in items)
+    if b"." in raw or b"," in raw or b";" in raw or _has_exponent(raw):
+        return None
+    chars = np.frombuffer(raw, dtype=np.uint8)
+    kind = np.frombuffer(raw.translate(_KIND_BYTES), dtype=np.int8)
+    if (kind == _INVALID).any():
+        return None
+    separator = kind == _SEP
+    starts = kind >= _ABS
+    starts[1:] |= (kind[1:] == _DIGIT) & separator[:-1]
+    starts[0] |= kind[0] == _DIGIT
+    ends = ~separator
+    ends[:-1] &= starts[1:] | separator[1:]
+    token_pos = np.flatnonzero(starts)
+    lengths = np.flatnonzero(ends) + 1 - token_pos
+    newlines = np.flatnonzero(chars == 10)
+    line_numbers, first_line = _line_tables(items)
+    per_line = np.diff(np.searchsorted(token_pos, newlines), prepend=0, append=token_pos.size)
+    if per_line.min() < 2 or lengths.max() > 18:
+        return None
+    token_line = np.repeat(np.arange(line_numbers.size), per_line)
+    lead = chars[token_pos]
+    lead_kind = kind[token_pos]
+    signed = (lead == ord("+")) | (lead == ord("-"))
+    x_token = np.cumsum(per_line) - per_line
+    if np.any(signed & (lengths == 1)) or not np.all((lead_kind[x_token] == _DIGIT) | signed[x_token]):
+        return None
+    digit_led = lead_kind == _DIGIT
+    digits = np.zeros(token_pos.size, dtype=np.int64)
+    digits[digit_led | (lengths > 1)] = np.fromstring(raw.translate(_DIGITS_ONLY), dtype=np.int64, sep=" ")
+    magnitude = np.where(digit_led, digits, _LEAD[lead] * _POW10[lengths - 1] + digits)
+    value = np.where(_NEGATIVE[lead], -magnitude, magnitude)
+    is_y = np.ones(token_pos.size, dtype=bool)
+    is_y[x_token] = False
+    y, line_start_index, is_check = _expand_asdf(value[is_y], lead_kind[is_y], token_pos[is_y], token_line[is_y],
+                                                 newlines, line_numbers, first_line, source)
+    line_x = value[x_token].astype(np.float64)
+    return y, line_start_index, is_check, line_x, np.ones(line_x.size), line_numbers, first_line
+
+
+def _decode_general(items, source):
+    """Every supported block (decimals, exponents, leading spaces...); None: decode these files one by one."""
+    raw = b"\n".join(item.raw for item in items)
+    line_numbers, first_line = _line_tables(items)
+    chars = np.frombuffer(raw, dtype=np.uint8).copy()
+    line_x, line_unit = _take_line_abscissae(chars, line_numbers, source)
+    y_text = chars.tobytes()
+    if b"." in y_text or _has_exponent(y_text):
+        if len(items) > 1:
+            return None
+        y, line_start_index = _decode_affn_floats(y_text, line_numbers, source)
+        is_check = np.zeros(line_numbers.size, dtype=bool)
+    else:
+        y, line_start_index, is_check = _decode_asdf(y_text, line_numbers, source, first_line)
+    return y, line_start_index, is_check, line_x, line_unit, line_numbers, first_line
+
+
+def _has_exponent(text):
+    """A digit, E or e, then a sign: AFFN floats; the substring test first, the regex is slow on long digit runs."""
+    return any(e in text for e in (b"E+", b"E-", b"e+", b"e-")) and _EXPONENT.search(text) is not None
 
 
 def _has_blank_line(raw):
@@ -419,6 +499,14 @@ def _decode_asdf(y_text, line_numbers, source, first_line):
     sign_only = ((lead_char == ord("+")) | (lead_char == ord("-"))) & (lengths == 1)
     if sign_only.any():
         raise located(token_pos[np.argmax(sign_only)], "a sign with no digits after it")
+    return _expand_asdf(value, token_kind, token_pos, token_line, newlines, line_numbers, first_line, source)
+
+
+def _expand_asdf(value, token_kind, token_pos, token_line, newlines, line_numbers, first_line, source):
+    """Y tokens to points: DUP runs repeated, DIF summed, Y-check values compared and dropped."""
+
+    def located(position, reason):
+        return SpectrumError(source, int(line_numbers[np.searchsorted(newlines, position)]), reason)
 
     is_dup = token_kind == _DUP
     if is_dup.any():

@@ -212,3 +212,19 @@ def test_decimal_line_abscissae_are_checked():
     np.testing.assert_allclose(spectrum.absorbance, [6, 5, 4, 3, 2, 1])
     error = _error(DECIMAL_X.replace("3.75 5 6", "3.50 5 6"))
     assert error.line == 10 and "missing or extra" in error.reason
+
+
+def test_blank_lines_and_indented_lines_read_as_the_clean_file_and_keep_line_numbers():
+    # JCAMP-DX 4.24 allows blank lines and spaces around values; they take the general path.
+    loose = HAND.replace("1000A00J0S1K\n", "\n  1000A00J0S1K\n\n").replace("1012B12%Tj", "1012B12%Tj  ")
+    np.testing.assert_array_equal(parse_jcampdx(loose, "loose.jdx").absorbance,
+                                  parse_jcampdx(HAND, "hand.jdx").absorbance)
+    error = _error(loose.replace("1012B12%Tj", "1012B13%Tj"))
+    assert error.line == 17 and "Y-check failed" in error.reason  # two lines further down than in HAND
+
+
+def test_empty_data_block_is_a_located_error():
+    error = _error(HAND.split("##XYDATA")[0] + "##XYDATA=(X++(Y..Y))\n   \n##END=\n")
+    assert error.line == 13 and "data block is empty" in error.reason  # the ##XYDATA= line
+    error = _error(HAND.split("##XYDATA")[0] + "##XYDATA=(X++(Y..Y))\n##END=\n")
+    assert error.line == 13 and "data block is empty" in error.reason  # the ##XYDATA= line
