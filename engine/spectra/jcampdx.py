@@ -165,14 +165,14 @@ def _prepare(text, source):
     for key in ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR"):
         ctx.number(key, None if key in ("FIRSTX", "LASTX", "NPOINTS") else 1.0)
     raw = block.encode("latin-1")
+    if not raw.strip():
+        raise SpectrumError(source, data_line, "data block is empty")
     return _Prepared(ctx, raw, data_line + 1 + np.arange(raw.count(b"\n") + 1))
 
 
 def _without_blank_lines(item):
     """The general path's view of a block: blank lines dropped, the others keep their file line numbers."""
     raw, line_numbers = item.raw, item.line_numbers
-    if not raw.strip():
-        raise SpectrumError(item.ctx.source, item.ctx.data_line, "data block is empty")
     if _has_blank_line(raw):
         kept = [(line, number) for line, number in zip(raw.split(b"\n"), line_numbers) if line.strip()]
         raw = b"\n".join(line for line, _ in kept)
