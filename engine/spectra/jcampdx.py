@@ -61,6 +61,8 @@ def _tables():
 
 _KIND, _LEAD, _NEGATIVE = _tables()
 _KIND_BYTES = _KIND.astype(np.uint8).tobytes()  # the same table for bytes.translate, faster than indexing
+_SIGNED_LEAD = np.where(_KIND == _DIGIT, 0, np.where(_NEGATIVE, -_LEAD, _LEAD))  # a digit leads no pseudo-digit
+_SIGN = np.where(_NEGATIVE, -1, 1)
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
 _DIGITS_ONLY = bytes(c if 48 <= c <= 57 else 32 for c in range(256))  # bytes.translate table: non-digits to spaces
 _EXPONENT = re.compile(rb"[0-9][Ee][+-]")
@@ -107,7 +109,8 @@ def parse_jcampdx(text: str, source: str) -> Spectrum:
 
 def _read_text(path):
     try:
-        return Path(path).read_bytes().decode("latin-1")
+        with open(path, "rb", buffering=0) as file:  # unbuffered: one read of the whole file, no buffer copy
+            return file.read().decode("latin-1")
     except OSError as exc:
         raise SpectrumError(str(path), None, f"cannot read file: {exc.strerror}") from exc
 
@@ -228,7 +231,7 @@ def _parse_header(text, source):
             name, sep, value = raw[2:].partition("=")
             if not sep:
                 raise SpectrumError(source, number, f"label line without '=': {raw.strip()!r}")
-            key = name.translate(_LABEL_NOISE).upper()
+            key = (name if name.isalnum() else name.translate(_LABEL_NOISE)).upper()
             if key == "TITLE" and "TITLE" in values:
                 raise SpectrumError(source, number, "a second ##TITLE= before the data: compound files are not read")
             values[key] = value.split("$$")[0].strip()
@@ -331,11 +334,9 @@ def _decode_integer_blocks(items, source):
     x_token = np.cumsum(per_line) - per_line
     if np.any(signed & (lengths == 1)) or not np.all((lead_kind[x_token] == _DIGIT) | signed[x_token]):
         return None
-    digit_led = lead_kind == _DIGIT
     digits = np.zeros(token_pos.size, dtype=np.int64)
-    digits[digit_led | (lengths > 1)] = np.fromstring(raw.translate(_DIGITS_ONLY), dtype=np.int64, sep=" ")
-    magnitude = np.where(digit_led, digits, _LEAD[lead] * _POW10[lengths - 1] + digits)
-    value = np.where(_NEGATIVE[lead], -magnitude, magnitude)
+    digits[(lead_kind == _DIGIT) | (lengths > 1)] = np.fromstring(raw.translate(_DIGITS_ONLY), dtype=np.int64, sep=" ")
+    value = _SIGNED_LEAD[lead] * _POW10[lengths - 1] + _SIGN[lead] * digits
     is_y = np.ones(token_pos.size, dtype=bool)
     is_y[x_token] = False
     y, line_start_index, is_check = _expand_asdf(value[is_y], lead_kind[is_y], token_pos[is_y], token_line[is_y],
@@ -363,6 +364,8 @@ def _decode_general(items, source):
 
 def _has_exponent(text):
     """A digit, E or e, then a sign: AFFN floats; the substring test first, the regex is slow on long digit runs."""
+    if b"+" not in text and b"-" not in text:
+        return False
     return any(e in text for e in (b"E+", b"E-", b"e+", b"e-")) and _EXPONENT.search(text) is not None
 
 
