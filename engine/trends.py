@@ -94,11 +94,46 @@ def chain_frame(measured: pd.DataFrame, oil_changed) -> pd.DataFrame:
     return frame[list(CHAIN_COLUMNS) + list(TREND_BASES)]
 
 
+def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | None, bases: tuple) -> dict:
+    """CHAIN_COLUMNS and the bases as plain arrays, `history`'s rows before the batch's."""
+    own = {name: measured[name].to_numpy(dtype=object) for name in ("sample_id", "unit_id", "sampled_on", "method",
+                                                                    "lab")}
+    own["oil_hours"] = measured["oil_hours"].to_numpy(dtype=float)
+    own["oil_changed"] = (np.zeros(len(measured), dtype=bool) if oil_changed is None
+                          else np.asarray(oil_changed, dtype=bool))
+    own.update({base: measured[base].to_numpy(dtype=float) for base in bases})
+    if history is None or not len(history):
+        return own
+    return {name: np.concatenate([history[name].to_numpy(dtype=values.dtype), values]) for name, values in own.items()}
+
+
+def _dense_rank(values: np.ndarray) -> tuple[np.ndarray, int]:
+    """Each value's rank among the distinct values (equal values share one), and how many there are."""
+    codes, uniques = pd.factorize(values)
+    rank_of_unique = np.empty(len(uniques), dtype=np.int64)
+    rank_of_unique[np.argsort(uniques, kind="stable")] = np.arange(len(uniques))
+    return rank_of_unique[codes], len(uniques)
+
+
 def _date_keys(dates: np.ndarray) -> np.ndarray:
     codes, uniques = pd.factorize(dates)
     parsed = pd.to_datetime(pd.Series(uniques, dtype=object), errors="coerce", format="ISO8601")
     keys = np.where(parsed.isna().to_numpy(), _LAST, parsed.to_numpy(dtype="datetime64[ns]").view(np.int64))
     return np.where(codes >= 0, keys[np.maximum(codes, 0)] if len(keys) else _LAST, _LAST)
+
+
+def _trend_order(unit_codes: np.ndarray, date_keys: np.ndarray, hours: np.ndarray) -> np.ndarray:
+    """The stable order by unit, date, then oil hours (missing hours last).
+
+    The three ranks are packed into one integer key when it fits: one stable argsort is
+    cheaper than lexsort's pass per key, and gives the same order.
+    """
+    date_rank, dates = _dense_rank(date_keys)
+    hour_rank, hour_values = _dense_rank(np.where(np.isnan(hours), np.inf, hours) + 0.0)  # + 0.0: -0.0 ties 0.0
+    units = int(unit_codes.max(initial=-1)) + 2  # codes run from -1 (no unit)
+    if units * max(dates, 1) * max(hour_values, 1) >= 2 ** 63:
+        return np.lexsort((hour_rank, date_rank, unit_codes))
+    return np.argsort((unit_codes + 1) * (dates * hour_values) + date_rank * hour_values + hour_rank, kind="stable")
 
 
 def _shifted(values: np.ndarray, fill) -> np.ndarray:
@@ -109,6 +144,12 @@ def _shifted(values: np.ndarray, fill) -> np.ndarray:
     return out
 
 
+def trend_columns(bases: tuple) -> list[str]:
+    """The numeric columns add_trend_measures adds for `bases`, in order."""
+    return ["hours_since_previous"] + [name for base in bases for name in
+                                       (f"previous_{base}", f"{base}_step", f"{base}_step_per_1000h", f"{base}_rising")]
+
+
 def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.DataFrame | None = None,
                        bases: tuple = TREND_BASES) -> pd.DataFrame:
     """`measured` with trend measures for `bases`, previous-sample columns and the two caveat notes.
@@ -116,81 +157,84 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     `history` holds earlier samples (CHAIN_COLUMNS plus the bases), e.g. from a ledger; it only
     supplies predecessors. A note column is text where its caveat applies and None elsewhere.
     """
-    incoming = chain_frame(measured, oil_changed)
-    earlier = 0 if history is None else len(history)
-    if earlier:
-        chain = pd.concat([history[list(incoming.columns)], incoming], ignore_index=True)
-    else:
-        chain = incoming
-    unit_codes, _ = pd.factorize(chain["unit_id"].to_numpy(dtype=object))
-    date_keys = _date_keys(chain["sampled_on"].to_numpy(dtype=object))
-    hours = chain["oil_hours"].to_numpy(dtype=float)
-    order = np.lexsort((np.arange(len(chain)), np.where(np.isnan(hours), np.inf, hours), date_keys, unit_codes))
+    chain = _chain_arrays(measured, oil_changed, history, bases)
+    total = len(chain["oil_hours"])
+    earlier = total - len(measured)
+    unit_codes, _ = pd.factorize(chain["unit_id"])
+    date_keys = _date_keys(chain["sampled_on"])
+    hours = chain["oil_hours"]
+    order = _trend_order(unit_codes, date_keys, hours)
 
     unit = unit_codes[order]
     dated = date_keys[order] != _LAST
     h = hours[order]
     h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
-    flagged = chain["oil_changed"].to_numpy(dtype=bool)[order]
+    flagged = chain["oil_changed"][order]
     hours_fell = same_unit & (h < h_before)
     new_oil = flagged | hours_fell
     linked = same_unit & dated & _shifted(dated, False) & ~new_oil
 
-    method_codes, _ = pd.factorize(chain["method"].to_numpy(dtype=object))
-    lab_codes, _ = pd.factorize(chain["lab"].to_numpy(dtype=object))
+    method_codes, _ = pd.factorize(chain["method"])
+    lab_codes, _ = pd.factorize(chain["lab"])
     m, lab = method_codes[order], lab_codes[order]
     m_before, lab_before = _shifted(m, -1), _shifted(lab, -1)
     method_changed = linked & (m != m_before)
     lab_changed = linked & (lab >= 0) & (lab_before >= 0) & (lab != lab_before)
     comparable = linked & ~method_changed & ~lab_changed
 
+    # Every numeric column in sorted order, one row each; one gather at the end puts them in input order.
+    names = trend_columns(bases)
+    in_order = np.empty((len(names), total))
     span = h - h_before
-    span = np.where(comparable & (span > 0), span, np.nan)
-    sorted_out: dict[str, np.ndarray] = {"hours_since_previous": span}
-    positions = np.arange(len(chain))
-    for base in bases:
-        values = chain[base].to_numpy(dtype=float)[order]
-        previous = np.where(comparable, _shifted(values, np.nan), np.nan)
-        step = np.round(values - previous, _DECIMALS)
+    in_order[0] = np.where(comparable & (span > 0), span, np.nan)
+    positions = np.arange(total)
+    for k, base in enumerate(bases):
+        previous, step, rate, rising = in_order[1 + 4 * k: 5 + 4 * k]
+        values = chain[base][order]
+        if total:
+            previous[0] = np.nan
+            previous[1:] = values[:-1]
+        previous[~comparable] = np.nan
+        np.round(np.subtract(values, previous, out=step), _DECIMALS, out=step)
         with np.errstate(divide="ignore", invalid="ignore"):
-            rate = np.round(step / span * 1000.0, _DECIMALS)
-        reset = ~(step > 0)
-        last_reset = np.maximum.accumulate(np.where(reset, positions, 0)) if len(positions) else positions
-        rising = (positions - last_reset).astype(float)
+            np.divide(step, in_order[0], out=rate)
+        np.round(np.multiply(rate, 1000.0, out=rate), _DECIMALS, out=rate)
+        np.maximum.accumulate(np.where(step > 0, 0, positions), out=rising)  # the last reset, as float
+        np.subtract(positions, rising, out=rising)
         rising[np.isnan(step)] = np.nan
-        sorted_out[f"previous_{base}"] = previous
-        sorted_out[f"{base}_step"] = step
-        sorted_out[f"{base}_step_per_1000h"] = rate
-        sorted_out[f"{base}_rising"] = rising
 
-    at = np.empty(len(chain), dtype=np.int64)
+    at = np.empty(total, dtype=np.int64)
     at[order] = positions
     mine = at[earlier:]  # sorted position of each incoming row
-    columns = {name: values[mine] for name, values in sorted_out.items()}
+    numbers = pd.DataFrame(in_order[:, mine].T, index=measured.index, columns=names, copy=False)
 
     before = _shifted(order, 0)[mine]  # chain row of each incoming row's predecessor
-    columns["trend_break_note"] = _break_notes(chain, before, method_changed[mine], lab_changed[mine],
-                                               np.arange(earlier, len(chain)))
-    columns["oil_change_note"] = _oil_notes(chain, before, flagged[mine], hours_fell[mine], h_before[mine], h[mine])
-    added = pd.DataFrame({name: pd.Series(values, index=measured.index, dtype=object if values.dtype == object
-                                          else float) for name, values in columns.items()})
-    return pd.concat([measured, added], axis=1)
+    notes = pd.DataFrame({
+        "trend_break_note": _break_notes(chain, before, method_changed[mine], lab_changed[mine],
+                                         np.arange(earlier, total)),
+        "oil_change_note": _oil_notes(chain, before, flagged[mine], hours_fell[mine], h_before[mine], h[mine]),
+    }, index=measured.index, dtype=object)
+    return pd.concat([measured, numbers, notes], axis=1)
 
 
 def _text(values: np.ndarray) -> np.ndarray:
-    return pd.Series(values, dtype=object).fillna("(none)").astype(str).to_numpy(dtype=object)
+    """Values as text for a note, "(none)" where missing."""
+    text = np.where(pd.isna(values), "(none)", values).astype(object)
+    if all(type(v) is str for v in text):
+        return text
+    return np.array([str(v) for v in text], dtype=object)
 
 
-def _since(chain: pd.DataFrame, before: np.ndarray) -> np.ndarray:
+def _since(chain: dict, before: np.ndarray) -> np.ndarray:
     """" since the previous sample of unit U (ID, DATE)" for the given predecessor rows."""
     def column(name):
-        return _text(chain[name].to_numpy(dtype=object)[before])
+        return _text(chain[name][before])
     return (" since the previous sample of unit " + column("unit_id") + " (" + column("sample_id") + ", "
             + column("sampled_on") + ")")
 
 
-def _break_notes(chain: pd.DataFrame, before: np.ndarray, method_changed: np.ndarray, lab_changed: np.ndarray,
+def _break_notes(chain: dict, before: np.ndarray, method_changed: np.ndarray, lab_changed: np.ndarray,
                  rows: np.ndarray) -> np.ndarray:
     notes = np.full(len(rows), None, dtype=object)
     hit = np.flatnonzero(method_changed | lab_changed)
@@ -198,7 +242,7 @@ def _break_notes(chain: pd.DataFrame, before: np.ndarray, method_changed: np.nda
         return notes
     what = np.full(len(hit), "", dtype=object)
     for name, changed in (("method", method_changed[hit]), ("lab", lab_changed[hit])):
-        column = chain[name].to_numpy(dtype=object)
+        column = chain[name]
         phrase = name + " changed from " + _text(column[before[hit]]) + " to " + _text(column[rows[hit]])
         joiner = np.where(what == "", "", " and ")
         what = np.where(changed, what + joiner + phrase, what)
@@ -206,7 +250,7 @@ def _break_notes(chain: pd.DataFrame, before: np.ndarray, method_changed: np.nda
     return notes
 
 
-def _oil_notes(chain: pd.DataFrame, before: np.ndarray, flagged: np.ndarray, hours_fell: np.ndarray,
+def _oil_notes(chain: dict, before: np.ndarray, flagged: np.ndarray, hours_fell: np.ndarray,
                hours_before: np.ndarray, hours: np.ndarray) -> np.ndarray:
     notes = np.full(len(flagged), None, dtype=object)
     hit = np.flatnonzero(flagged | hours_fell)

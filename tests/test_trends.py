@@ -215,3 +215,17 @@ def test_oil_changed_spellings(value, flag):
     frame = pd.DataFrame([_row("A", "01-05", 1000, 5.0, oil_changed=value)])
     batch = sumpwise.grade(frame, sumpwise.load_ruleset(RULES))
     assert batch.measured["oil_change_note"].notna().tolist() == [flag]
+
+
+def test_packed_sort_key_gives_numpy_lexsort_order():
+    # Reference: numpy.lexsort (stable, last key first): unit, then date, then oil hours with missing hours last.
+    from engine.trends import _date_keys, _trend_order
+    rng = np.random.default_rng(11)
+    n = 5000
+    units = rng.integers(-1, 30, n)
+    dates = _date_keys(np.array(["2026-01-05", "2026-01-06", None, "not a date", "2025-12-31"],
+                                dtype=object)[rng.integers(0, 5, n)])
+    hours = rng.choice([0.0, -0.0, 10.0, 25.5, np.nan, np.inf, 1e9], n)
+    expected = np.lexsort((np.arange(n), np.where(np.isnan(hours), np.inf, hours), dates, units))
+    assert np.array_equal(_trend_order(units, dates, hours), expected)
+    assert len(_trend_order(units[:0], dates[:0], hours[:0])) == 0
