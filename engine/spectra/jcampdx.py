@@ -63,6 +63,7 @@ _KIND, _LEAD, _NEGATIVE = _tables()
 _KIND_BYTES = _KIND.astype(np.uint8).tobytes()  # the same table for bytes.translate, faster than indexing
 _SIGNED_LEAD = np.where(_KIND == _DIGIT, 0, np.where(_NEGATIVE, -_LEAD, _LEAD))  # a digit leads no pseudo-digit
 _SIGN = np.where(_NEGATIVE, -1, 1)
+_IS_SIGN = np.isin(np.arange(256), (ord("+"), ord("-")))
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
 _DIGITS_ONLY = bytes(c if 48 <= c <= 57 else 32 for c in range(256))  # bytes.translate table: non-digits to spaces
 _EXPONENT = re.compile(rb"[0-9][Ee][+-]")
@@ -327,21 +328,24 @@ def _decode_integer_blocks(items, source):
     per_line = np.diff(np.searchsorted(token_pos, newlines), prepend=0, append=token_pos.size)
     if per_line.min() < 2 or lengths.max() > 18:
         return None
-    token_line = np.repeat(np.arange(line_numbers.size), per_line)
     lead = chars[token_pos]
     lead_kind = kind[token_pos]
-    signed = (lead == ord("+")) | (lead == ord("-"))
     x_token = np.cumsum(per_line) - per_line
-    if np.any(signed & (lengths == 1)) or not np.all((lead_kind[x_token] == _DIGIT) | signed[x_token]):
+    if np.any(_IS_SIGN[lead] & (lengths == 1)) or not np.all((lead_kind[x_token] == _DIGIT) | _IS_SIGN[lead[x_token]]):
         return None
-    digits = np.zeros(token_pos.size, dtype=np.int64)
-    digits[(lead_kind == _DIGIT) | (lengths > 1)] = np.fromstring(raw.translate(_DIGITS_ONLY), dtype=np.int64, sep=" ")
-    value = _SIGNED_LEAD[lead] * _POW10[lengths - 1] + _SIGN[lead] * digits
+    numbers = np.fromstring(raw.translate(_DIGITS_ONLY), dtype=np.int64, sep=" ")
+    if numbers.size == token_pos.size and lead_kind.max() == _DIGIT:  # unsigned AFFN: each token is its number
+        value = numbers
+    else:
+        digits = np.zeros(token_pos.size, dtype=np.int64)
+        digits[(lead_kind == _DIGIT) | (lengths > 1)] = numbers
+        value = _SIGNED_LEAD[lead] * _POW10[lengths - 1] + _SIGN[lead] * digits
     is_y = np.ones(token_pos.size, dtype=bool)
     is_y[x_token] = False
-    y, line_start_index, is_check = _expand_asdf(value[is_y], lead_kind[is_y], token_pos[is_y], token_line[is_y],
+    y_line = np.repeat(np.arange(line_numbers.size), per_line - 1)
+    y, line_start_index, is_check = _expand_asdf(value[is_y], lead_kind[is_y], token_pos[is_y], y_line,
                                                  newlines, line_numbers, first_line, source)
-    line_x = value[x_token].astype(np.float64)
+    line_x = np.copysign(np.abs(value[x_token]), _SIGN[lead[x_token]])  # float, and "-0" stays -0.0 as in AFFN
     return y, line_start_index, is_check, line_x, np.ones(line_x.size), line_numbers, first_line
 
 

@@ -228,3 +228,9 @@ def test_empty_data_block_is_a_located_error():
     assert error.line == 13 and "data block is empty" in error.reason  # the ##XYDATA= line
     error = _error(HAND.split("##XYDATA")[0] + "##XYDATA=(X++(Y..Y))\n##END=\n")
     assert error.line == 13 and "data block is empty" in error.reason  # the ##XYDATA= line
+
+
+def test_a_negative_zero_line_abscissa_is_reported_as_written():
+    # AFFN "-0" is a signed zero (IEEE 754); the X check quotes it as read.
+    error = _error(HAND.replace("1012B12%Tj", "-0B12%Tj"))
+    assert error.line == 15 and error.reason.startswith("line X=-0 but 12 points before it put it at 1012")
