@@ -70,6 +70,7 @@ _EXPONENT = re.compile(rb"[0-9][Ee][+-]")
 _PAC_SIGN = re.compile(rb"(?<=[0-9.])(?=[+-])")
 _COMMENT = re.compile(r"\$\$.*")
 _LABEL_NOISE = str.maketrans("", "", " \t-/_")  # label names ignore these (JCAMP-DX 4.24)
+_XYDATA_NUMBERS = ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR")
 _DATA_LABEL = re.compile(r"^##(XYDATA|XYPOINTS|PEAKTABLE|NTUPLES|DATATABLE)=(.*)$", re.M | re.I)
 
 
@@ -131,6 +132,7 @@ class _Prepared:
     raw: bytes | None
     line_numbers: np.ndarray | None
     spectrum: Spectrum | None = None
+    numbers: tuple = ()  # XYDATA: FIRSTX, LASTX, NPOINTS, XFACTOR, YFACTOR
 
 
 def _prepare(text, source):
@@ -166,12 +168,11 @@ def _prepare(text, source):
         return _Prepared(ctx, None, None, _spectrum(ctx, x, y))
     if form != "(X++(Y..Y))":
         raise SpectrumError(source, data_line, f"##XYDATA={form} is not read; expected (X++(Y..Y))")
-    for key in ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR"):
-        ctx.number(key, None if key in ("FIRSTX", "LASTX", "NPOINTS") else 1.0)
+    numbers = tuple(ctx.number(key, 1.0 if key in ("XFACTOR", "YFACTOR") else None) for key in _XYDATA_NUMBERS)
     raw = block.encode("latin-1")
     if not raw.strip():
         raise SpectrumError(source, data_line, "data block is empty")
-    return _Prepared(ctx, raw, data_line + 1 + np.arange(raw.count(b"\n") + 1))
+    return _Prepared(ctx, raw, data_line + 1 + np.arange(raw.count(b"\n") + 1), numbers=numbers)
 
 
 def _without_blank_lines(item):
@@ -181,7 +182,7 @@ def _without_blank_lines(item):
         kept = [(line, number) for line, number in zip(raw.split(b"\n"), line_numbers) if line.strip()]
         raw = b"\n".join(line for line, _ in kept)
         line_numbers = np.array([number for _, number in kept])
-    return _Prepared(item.ctx, raw, line_numbers)
+    return _Prepared(item.ctx, raw, line_numbers, numbers=item.numbers)
 
 
 def _spectrum(ctx, x, y, evenly_spaced=False):
@@ -260,8 +261,7 @@ def _check_trailer(trailer, source, first_line):
 
 def _decode_xydata(items):
     source = items[0].ctx.source if len(items) == 1 else "<batch>"
-    header = np.array([[item.ctx.number(k, 1.0) for k in ("FIRSTX", "LASTX", "NPOINTS", "XFACTOR", "YFACTOR")]
-                       for item in items])
+    header = np.array([item.numbers for item in items])
     decoded = _decode_integer_blocks(items, source)
     if decoded is None:
         items = [_without_blank_lines(item) for item in items]
@@ -325,7 +325,7 @@ def _decode_integer_blocks(items, source):
     lengths = np.flatnonzero(ends) + 1 - token_pos
     newlines = np.flatnonzero(chars == 10)
     line_numbers, first_line = _line_tables(items)
-    per_line = np.diff(np.searchsorted(token_pos, newlines), prepend=0, append=token_pos.size)
+    per_line = np.diff(np.concatenate(([0], np.searchsorted(token_pos, newlines), [token_pos.size])))
     if per_line.min() < 2 or lengths.max() > 18:
         return None
     lead = chars[token_pos]
