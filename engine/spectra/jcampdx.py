@@ -236,7 +236,7 @@ def _parse_header(text, source):
             key = (name if name.isalnum() else name.translate(_LABEL_NOISE)).upper()
             if key == "TITLE" and "TITLE" in values:
                 raise SpectrumError(source, number, "a second ##TITLE= before the data: compound files are not read")
-            values[key] = value.split("$$")[0].strip()
+            values[key] = value.partition("$$")[0].strip()
             lines[key] = number
         elif key is not None and not key.startswith("$") and raw.strip() and not raw.lstrip().startswith("$$"):
             values[key] = (values[key] + " " + raw.split("$$")[0].strip()).strip()
@@ -546,10 +546,9 @@ def _expand_asdf(value, token_kind, token_pos, token_line, newlines, line_number
         raise SpectrumError(source, int(line_numbers[k]),
                             "data start with a DIF value: there is no previous value to add it to")
 
-    index = np.arange(point_value.size)
-    last_absolute = np.maximum.accumulate(np.where(point_is_dif, 0, index))
+    last_absolute = np.maximum.accumulate(np.where(point_is_dif, 0, np.arange(point_value.size)))
     running = np.cumsum(np.where(point_is_dif, point_value, 0))
-    y = point_value[last_absolute] + running - running[last_absolute]
+    y = (point_value - running)[last_absolute] + running
 
     line_last = line_first + per_line - 1
     is_check = np.zeros(line_numbers.size, dtype=bool)
