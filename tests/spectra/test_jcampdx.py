@@ -234,3 +234,21 @@ def test_a_negative_zero_line_abscissa_is_reported_as_written():
     # AFFN "-0" is a signed zero (IEEE 754); the X check quotes it as read.
     error = _error(HAND.replace("1012B12%Tj", "-0B12%Tj"))
     assert error.line == 15 and error.reason.startswith("line X=-0 but 12 points before it put it at 1012")
+
+
+@pytest.mark.parametrize("form", ["AFFN", "PAC", "SQZ", "DIF", "DIFDUP"])
+def test_integer_fast_path_and_general_path_agree(tmp_path, form):
+    # A blank line after ##XYDATA= sends a block down the general decoder (blank lines are legal, JCAMP-DX 4.24);
+    # both decoders must give the same points, and the same located error for a lost line.
+    x = wavenumber_grid()[::-1]
+    text = write_jcampdx(tmp_path / "s.jdx", x, oil_spectrum(x, oxidation=2.0, noise=1e-4, seed=5), form=form).read_text()
+    general = text.replace("##XYDATA=(X++(Y..Y))\n", "##XYDATA=(X++(Y..Y))\n\n")
+    fast_spectrum, general_spectrum = parse_jcampdx(text, "a.jdx"), parse_jcampdx(general, "a.jdx")
+    np.testing.assert_array_equal(fast_spectrum.absorbance, general_spectrum.absorbance)
+    np.testing.assert_array_equal(fast_spectrum.wavenumber, general_spectrum.wavenumber)
+    lines = text.split("\n")
+    data = lines.index("##XYDATA=(X++(Y..Y))")
+    del lines[data + 3]  # the third data line lost: the next line's X (or Y-check) disagrees
+    fast_error = _error("\n".join(lines))
+    general_error = _error("\n".join(lines).replace("##XYDATA=(X++(Y..Y))\n", "##XYDATA=(X++(Y..Y))\n\n"))
+    assert fast_error.reason == general_error.reason and general_error.line == fast_error.line + 1
