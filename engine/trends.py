@@ -53,15 +53,20 @@ def read_oil_changes(batch: SampleBatch) -> SampleBatch:
     if "oil_changed" not in batch.frame.columns or batch.frame["oil_changed"].dtype == bool:
         return batch  # nothing to read, or read already (the ledger reads flags before grading)
     column = batch.frame["oil_changed"].astype(object)
-    text = column.where(column.notna(), "").astype(str).str.strip()
-    flags = text.str.casefold().map(_FLAGS)
-    bad = (flags.isna() & (text != "")).to_numpy()
+    values = column.where(column.notna(), "").to_numpy(dtype=object)
+    codes, uniques = pd.factorize(values)  # each distinct spelling is read once
+    if not all(type(u) is str for u in uniques):  # 1, 1.0 and True factorize alike but are spelled apart
+        codes, uniques = pd.factorize(np.array([str(v) for v in values], dtype=object))
+    spelled = np.array([str(u).strip() for u in uniques], dtype=object)
+    meaning = [_FLAGS.get(text.casefold()) for text in spelled]
+    set_flag = np.array([m is True for m in meaning], dtype=bool)[codes]
+    bad = np.array([m is None and text != "" for m, text in zip(meaning, spelled)], dtype=bool)[codes]
     frame = batch.frame[~bad].copy()
-    frame["oil_changed"] = flags[~bad].eq(True)
+    frame["oil_changed"] = set_flag[~bad]
     if not bad.any():
         return replace(batch, frame=frame)
     ids = batch.frame["sample_id"].to_numpy(dtype=object)[bad]
-    found = text.to_numpy(dtype=object)[bad]
+    found = spelled[codes[bad]]
     rejects = [Reject(int(row), sid, "oil_changed", f"expected true or false (yes/no, 1/0), found '{value}'")
                for row, sid, value in zip(batch.frame.index[bad], ids, found)]
     rejects = tuple(sorted(batch.rejects + tuple(rejects), key=lambda r: (r.row, r.field)))
@@ -183,14 +188,21 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     lab_changed = linked & (lab >= 0) & (lab_before >= 0) & (lab != lab_before)
     comparable = linked & ~method_changed & ~lab_changed
 
-    # Every numeric column in sorted order, one row each; one gather at the end puts them in input order.
-    names = trend_columns(bases)
-    in_order = np.empty((len(names), total))
-    span = h - h_before
-    in_order[0] = np.where(comparable & (span > 0), span, np.nan)
+    at = np.empty(total, dtype=np.int64)
     positions = np.arange(total)
+    at[order] = positions
+    mine = at[earlier:]  # sorted position of each incoming row
+
+    # The numeric columns, one row each in input order; each base is worked out in sorted order
+    # in a reused scratch block, then moved into place with one gather.
+    names = trend_columns(bases)
+    out = np.empty((len(names), len(measured)))
+    span = h - h_before
+    span = np.where(comparable & (span > 0), span, np.nan)
+    np.take(span, mine, out=out[0])
+    scratch = np.empty((4, total))
+    previous, step, rate, rising = scratch
     for k, base in enumerate(bases):
-        previous, step, rate, rising = in_order[1 + 4 * k: 5 + 4 * k]
         values = chain[base][order]
         if total:
             previous[0] = np.nan
@@ -198,16 +210,13 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         previous[~comparable] = np.nan
         np.round(np.subtract(values, previous, out=step), _DECIMALS, out=step)
         with np.errstate(divide="ignore", invalid="ignore"):
-            np.divide(step, in_order[0], out=rate)
+            np.divide(step, span, out=rate)
         np.round(np.multiply(rate, 1000.0, out=rate), _DECIMALS, out=rate)
         np.maximum.accumulate(np.where(step > 0, 0, positions), out=rising)  # the last reset, as float
         np.subtract(positions, rising, out=rising)
         rising[np.isnan(step)] = np.nan
-
-    at = np.empty(total, dtype=np.int64)
-    at[order] = positions
-    mine = at[earlier:]  # sorted position of each incoming row
-    numbers = pd.DataFrame(in_order[:, mine].T, index=measured.index, columns=names, copy=False)
+        np.take(scratch, mine, axis=1, out=out[1 + 4 * k: 5 + 4 * k])
+    numbers = pd.DataFrame(out.T, index=measured.index, columns=names, copy=False)
 
     before = _shifted(order, 0)[mine]  # chain row of each incoming row's predecessor
     notes = pd.DataFrame({

@@ -231,3 +231,22 @@ def test_a_record_without_its_tail_is_an_internal_error():
     assert _without_tail("", tail) == []
     with pytest.raises(RuntimeError, match="does not end with"):
         _without_tail('{"a": 1, "engine": "x"}\n{"b": 2, "engine": "y"}\n', tail)
+
+
+def test_a_new_ledger_gets_the_larger_page_and_an_old_one_keeps_its_own(tmp_path, ruleset):
+    # PRAGMA page_size applies only before a database has content (sqlite.org/pragma.html#pragma_page_size).
+    from engine.ledger import PAGE_SIZE
+    db = tmp_path / "new.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("PRAGMA page_size").fetchone()[0] == PAGE_SIZE
+    old = tmp_path / "old.db"
+    conn = sqlite3.connect(old, isolation_level=None)
+    conn.execute("PRAGMA page_size=4096")
+    migrate(conn)
+    conn.close()
+    _, recorded = grade_into_ledger(old, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(old) as conn:
+        assert conn.execute("PRAGMA page_size").fetchone()[0] == 4096
+        assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    assert recorded.new == 9 and _count(old) == 9
