@@ -150,13 +150,16 @@ def _prepare(text, source):
         raise SpectrumError(source, header_lines.get("DATATYPE"), "compound (LINK) files are not read")
     form = match.group(2).split("$$")[0].strip().replace(" ", "").upper()
     block_start = match.end() + 1
-    block_end = text.find("\n##", match.end())
+    block_end = _next_label_line(text, match.end())
     if block_end < 0:
         last_line = text.rstrip("\n").count("\n") + 1
         raise SpectrumError(source, last_line, "file ends without ##END=")
     block = text[block_start:block_end]
-    _check_trailer(text[block_end + 1 :], source, data_line + block.count("\n") + 2)
-    if "$$" in block:
+    problem = _trailer_problem(text[block_end + 1 :])
+    if problem is not None:
+        offset, reason = problem
+        raise SpectrumError(source, data_line + block.count("\n") + 2 + offset, reason)
+    if "$" in block:  # a one-character test runs at memchr speed; "$$" in block does not
         block = _COMMENT.sub("", block)
     ctx = _Context(source, header, header_lines, data_line)
     ctx.required("XUNITS")
@@ -172,12 +175,26 @@ def _prepare(text, source):
     raw = block.encode("latin-1")
     if not raw.strip():
         raise SpectrumError(source, data_line, "data block is empty")
-    return _Prepared(ctx, raw, data_line + 1 + np.arange(raw.count(b"\n") + 1), numbers=numbers)
+    return _Prepared(ctx, raw, None, numbers=numbers)
+
+
+def _next_label_line(text, start):
+    """Index of the newline that opens the next ##label line at or after start, or -1 (text.find("\\n##", start)).
+
+    '#' never occurs in data, so a one-character search finds the candidates
+    at memchr speed; a three-character search over a block full of newlines
+    is several times slower.
+    """
+    position = text.find("#", start + 1)
+    while position >= 0 and not text.startswith("\n##", position - 1):
+        position = text.find("#", position + 1)
+    return position - 1 if position >= 0 else -1
 
 
 def _without_blank_lines(item):
     """The general path's view of a block: blank lines dropped, the others keep their file line numbers."""
-    raw, line_numbers = item.raw, item.line_numbers
+    raw = item.raw
+    line_numbers = item.ctx.data_line + 1 + np.arange(raw.count(b"\n") + 1)
     if _has_blank_line(raw):
         kept = [(line, number) for line, number in zip(raw.split(b"\n"), line_numbers) if line.strip()]
         raw = b"\n".join(line for line, _ in kept)
@@ -243,20 +260,20 @@ def _parse_header(text, source):
     return values, lines
 
 
-def _check_trailer(trailer, source, first_line):
+def _trailer_problem(trailer):
+    """What is wrong after the data block, as (lines into the trailer, reason), or None."""
     for offset, raw in enumerate(trailer.split("\n")):
         stripped = raw.strip()
         if stripped.upper().startswith("##END="):
             later = trailer.upper().find("##TITLE=", trailer.upper().find("##END="))
             if later >= 0:
-                raise SpectrumError(source, first_line + trailer.count("\n", 0, later),
-                                    "a second ##TITLE= after ##END=: only single-spectrum files are read")
-            return
+                return trailer.count("\n", 0, later), "a second ##TITLE= after ##END=: only single-spectrum files are read"
+            return None
         if stripped.startswith("##") and not stripped.startswith("##$"):
             label = stripped[2:].partition("=")[0].strip().upper()
             if label in ("XYDATA", "XYPOINTS", "TITLE", "PEAKTABLE"):
-                raise SpectrumError(source, first_line + offset, f"a second ##{label}= block: only single spectra are read")
-    raise SpectrumError(source, first_line + trailer.rstrip("\n").count("\n"), "file ends without ##END=")
+                return offset, f"a second ##{label}= block: only single spectra are read"
+    return trailer.rstrip("\n").count("\n"), "file ends without ##END="
 
 
 def _decode_xydata(items):
@@ -324,7 +341,7 @@ def _decode_integer_blocks(items, source):
     token_pos = np.flatnonzero(starts)
     lengths = np.flatnonzero(ends) + 1 - token_pos
     newlines = np.flatnonzero(chars == 10)
-    line_numbers, first_line = _line_tables(items)
+    line_numbers, first_line = _joined_line_tables(items, newlines)
     per_line = np.diff(np.concatenate(([0], np.searchsorted(token_pos, newlines), [token_pos.size])))
     if per_line.min() < 2 or lengths.max() > 18:
         return None
@@ -347,6 +364,18 @@ def _decode_integer_blocks(items, source):
                                                  newlines, line_numbers, first_line, source)
     line_x = np.copysign(np.abs(value[x_token]), _SIGN[lead[x_token]])  # float, and "-0" stays -0.0 as in AFFN
     return y, line_start_index, is_check, line_x, np.ones(line_x.size), line_numbers, first_line
+
+
+def _joined_line_tables(items, newlines):
+    """_line_tables for blocks joined by newlines, from the newline positions (no per-file count)."""
+    sizes = np.array([len(item.raw) for item in items]) + 1
+    file_first = np.searchsorted(newlines, np.cumsum(sizes) - sizes)  # each file's first line, counted in the chunk
+    lines = np.arange(newlines.size + 1)
+    line_file = np.repeat(np.arange(len(items)), np.diff(np.append(file_first, lines.size)))
+    data_lines = np.array([item.ctx.data_line for item in items])
+    first_line = np.zeros(lines.size, dtype=bool)
+    first_line[file_first] = True
+    return data_lines[line_file] + 1 + lines - file_first[line_file], first_line
 
 
 def _decode_general(items, source):
