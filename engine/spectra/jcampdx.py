@@ -10,6 +10,10 @@ Why our own reader and not the MIT `jcamp` package:
 - the decoder here is vectorised with numpy over whole data blocks, and
   `read_jcampdx_many` decodes a chunk of files in one pass, so parsing keeps
   pace with the band measures; jcamp decodes value by value in Python.
+  Blocks of integers (the usual AFFN, PAC, SQZ, DIF, DUP output) take a
+  fast path: character classes by bytes.translate, digits parsed in C by
+  np.fromstring; anything else (blank lines, decimals, commas, a bad
+  character) goes to the general decoder, which also words those errors.
 
 What is read: ##XYDATA=(X++(Y..Y)) in AFFN, PAC or ASDF (SQZ, DIF with its
 Y-check, DUP; every pseudo-digit replaces only the leading digit, McDonald &
