@@ -21,8 +21,9 @@ from .cautions import caution_text
 from .compile import load_ruleset
 from .explain import explain_lines
 from .grade import grade_batch
-from .ledger import (LedgerError, batch_entries, batch_list, fingerprint, history_frame, open_ledger,
-                     sample_entries, unit_entries)
+from .ledger import (LedgerError, batch_entries, batch_list, current_contents, current_records, fingerprint,
+                     history_frame, open_ledger, sample_entries, unit_entries)
+from .problems import InputError
 from .render_jsonl import jsonl_lines
 from .results import CaveatNote, Clause, NotEvaluated, Reason, SampleResult
 from .ruleset import RuleSet
@@ -235,3 +236,41 @@ def replay_lines(report: ReplayReport) -> list[str]:
                f"rule set(s): ")
     summary += (f"{len(report.differences)} differ" if report.differences else "every result matches its record")
     return lines + [summary]
+
+
+def stored_samples(path) -> SampleBatch:
+    """The ledger's current samples as a batch, for commands that take `--db` instead of `--samples`."""
+    conn = open_ledger(path, create=False)
+    try:
+        contents, columns = current_contents(conn)
+    finally:
+        conn.close()
+    if not contents:
+        raise InputError(f"{path}: the ledger holds no samples")
+    frame = _frame_from_contents(contents, columns)
+    return SampleBatch(frame, (), len(frame), f"ledger {path}")
+
+
+def stored_records(path, batch: int | None = None) -> list[str]:
+    """The ledger's current result records (or one batch's), as JSON Lines text."""
+    conn = open_ledger(path, create=False)
+    try:
+        records = current_records(conn, batch)
+    finally:
+        conn.close()
+    if not records:
+        raise InputError(f"{path}: the ledger holds no results" + (f" for batch {batch}" if batch else ""))
+    return records
+
+
+def stored_ruleset(path, sha256: str) -> RuleSet:
+    """A rule set the ledger recorded, rebuilt from its canonical form and checked against its fingerprint."""
+    conn = open_ledger(path, create=False)
+    try:
+        row = conn.execute("SELECT canonical FROM rulesets WHERE sha256 = ?", (sha256,)).fetchone()
+    finally:
+        conn.close()
+    ruleset = _ruleset_from_canonical(row[0], sha256) if row else None
+    if ruleset is None:
+        raise InputError(f"{path}: rule set {sha256[:12]}... is not stored intact in the ledger")
+    return ruleset

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 
+from .audit import stored_samples
 from .cautions import caution_text
 from .compare import compare_rulesets, comparison_lines
 from .compile import load_ruleset
@@ -51,7 +52,9 @@ def run_check(paths, strict: bool, stdout, stderr) -> int:
 def add_compare_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("old", metavar="OLD_RULESET")
     parser.add_argument("new", metavar="NEW_RULESET")
-    parser.add_argument("--samples", required=True, metavar="FILE", help="CSV or JSON Lines samples to grade")
+    source = parser.add_mutually_exclusive_group(required=True)
+    source.add_argument("--samples", metavar="FILE", help="CSV or JSON Lines samples to grade")
+    source.add_argument("--db", metavar="PATH", help="a ledger: its current samples")
     _sample_options(parser)
 
 
@@ -67,7 +70,9 @@ def run_compare(args, stdout, stderr) -> int:
 
 
 def add_propose_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--samples", required=True, metavar="FILE", help="CSV or JSON Lines: the site's own results")
+    source = parser.add_mutually_exclusive_group(required=True)
+    source.add_argument("--samples", metavar="FILE", help="CSV or JSON Lines: the site's own results")
+    source.add_argument("--db", metavar="PATH", help="a ledger: its current samples")
     parser.add_argument("--class", required=True, dest="class_name", metavar="CLASS")
     parser.add_argument("--measure", required=True, metavar="MEASURE",
                         help="an input or derived measure (derived ones need --rules for new-oil values)")
@@ -110,5 +115,7 @@ def _sample_options(parser: argparse.ArgumentParser) -> None:
 
 
 def _read(args, numeric: tuple):
+    if args.db is not None:
+        return stored_samples(args.db)
     columns = load_column_map(args.columns) if args.columns else None
     return read_samples(args.samples, None, columns, args.input_format, numeric)

@@ -455,3 +455,23 @@ def batch_entries(conn: sqlite3.Connection, batch: int) -> pd.DataFrame:
 
 def fingerprint(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
+    """The stored values of every current sample (corrections applied), in trend order, and the
+    union of the columns their batches carried."""
+    rows = conn.execute("SELECT s.content FROM samples s WHERE s.superseded_in IS NULL "
+                        "ORDER BY s.unit_id, s.sampled_on, s.oil_hours, s.entry").fetchall()
+    columns: list[str] = []
+    for (text,) in conn.execute("SELECT columns FROM batches ORDER BY batch").fetchall():
+        columns.extend(c for c in json.loads(text) if c not in columns)
+    return [text for (text,) in rows], columns
+
+
+def current_records(conn: sqlite3.Connection, batch: int | None = None) -> list[str]:
+    """The stored result records (JSON Lines text) of the current samples, or of one batch."""
+    where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
+    rows = conn.execute("SELECT r.record || b.record_tail FROM samples s JOIN results r ON r.entry = s.entry "
+                        f"JOIN batches b ON b.batch = s.batch WHERE {where} ORDER BY s.entry",
+                        (batch,) if batch is not None else ()).fetchall()
+    return [text for (text,) in rows]

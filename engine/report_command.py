@@ -7,14 +7,18 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from .audit import stored_records, stored_ruleset
 from .compile import load_ruleset
 from .problems import InputError
 from .report_html import parse_rejects, parse_results, render_report
 
 
 def add_arguments(parser) -> None:
-    parser.add_argument("--results", required=True, metavar="FILE",
-                        help="JSON Lines results written by `sumpwise grade`")
+    source = parser.add_mutually_exclusive_group(required=True)
+    source.add_argument("--results", metavar="FILE", help="JSON Lines results written by `sumpwise grade`")
+    source.add_argument("--db", metavar="PATH",
+                        help="a ledger: the current result of every recorded sample (or one --batch)")
+    parser.add_argument("--batch", type=int, metavar="N", help="with --db: only the samples batch N recorded")
     parser.add_argument("--rejects", metavar="FILE",
                         help="rejected rows written by `grade --rejects` (.csv or JSON Lines), to count them")
     parser.add_argument("--rules", metavar="RULESET",
@@ -32,11 +36,23 @@ def _text(path) -> str:
         raise InputError(f"{path}: not UTF-8 text (byte {exc.start})") from None
 
 
-def write_report(results, out, rejects=None, rules=None, title: str = "") -> dict:
-    """Read the inputs, write the report; returns counts for the command's summary line."""
-    records = parse_results(_text(results).splitlines(), str(results))
+def write_report(results, out, rejects=None, rules=None, title: str = "", db=None, batch=None) -> dict:
+    """Read the inputs, write the report; returns counts for the command's summary line.
+
+    From a ledger (`db`), the rule set the results were graded with comes from the ledger
+    too, unless `rules` names one.
+    """
+    if db is not None:
+        records = parse_results(stored_records(db, batch), f"ledger {db}")
+    else:
+        records = parse_results(_text(results).splitlines(), str(results))
     rejected = parse_rejects(_text(rejects), str(rejects)) if rejects else ()
-    ruleset = load_ruleset(rules) if rules else None
+    if rules:
+        ruleset = load_ruleset(rules)
+    elif db is not None and records:
+        ruleset = stored_ruleset(db, records[0]["ruleset"]["sha256"])
+    else:
+        ruleset = None
     html = render_report(records, rejected, ruleset, title=title or "", rejects_given=rejects is not None)
     Path(out).write_text(html, encoding="utf-8")
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
@@ -44,8 +60,10 @@ def write_report(results, out, rejects=None, rules=None, title: str = "") -> dic
 
 
 def run(args, stdout, stderr) -> int:
-    counts = write_report(args.results, args.out, args.rejects, args.rules, args.title or "")
-    limits = "with the rule set's limits" if args.rules else "without limits (no --rules)"
+    if args.batch is not None and args.db is None:
+        raise InputError("sumpwise report: --batch goes with --db")
+    counts = write_report(args.results, args.out, args.rejects, args.rules, args.title or "", args.db, args.batch)
+    limits = "with the rule set's limits" if args.rules or args.db else "without limits (no --rules)"
     stderr.write(f"sumpwise: report {args.out}: {counts['records']} result(s), {counts['flagged']} flagged, "
                  f"{counts['rejected']} rejected row(s), plots {limits}\n")
     return 0
