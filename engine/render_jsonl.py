@@ -94,31 +94,19 @@ def _number_literals(values: np.ndarray) -> np.ndarray:
 
 
 class _Literals:
-    """JSON literals of a column: formatted once for the whole batch when many rows need them,
-    or just for the rows asked (a rule that fires on few samples)."""
+    """JSON literals of a column, for the rows asked (one block at a time, so memory stays
+    bounded by the block, not the batch)."""
 
     def __init__(self, measured: pd.DataFrame):
         self.measured = measured
-        self.cache: dict = {}
-
-    def _format(self, kind: str, name: str, rows) -> np.ndarray:
-        if name not in self.measured.columns:
-            return np.full(len(self.measured) if rows is None else len(rows), "null", dtype=object)
-        column = self.measured[name]
-        if kind == "number":
-            values = column.to_numpy(dtype=float, na_value=np.nan)
-            return _number_literals(values if rows is None else values[rows])
-        values = column.to_numpy(dtype=object)
-        return _text_literals(values if rows is None else values[rows])
 
     def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
-        key = (kind, name)
-        if key in self.cache:
-            return self.cache[key][rows]
-        if len(rows) * 4 < len(self.measured):
-            return self._format(kind, name, rows)
-        self.cache[key] = self._format(kind, name, None)
-        return self.cache[key][rows]
+        if name not in self.measured.columns:
+            return np.full(len(rows), "null", dtype=object)
+        column = self.measured[name]
+        if kind == "number":
+            return _number_literals(column.to_numpy(dtype=float, na_value=np.nan)[rows])
+        return _text_literals(column.to_numpy(dtype=object)[rows])
 
 
 def _fill(chunks: list[str], wanted: list, literals: _Literals, rows: np.ndarray) -> np.ndarray:
@@ -293,7 +281,7 @@ class _Writer:
         return np.array(table, dtype=object)[group_of]
 
 
-def jsonl_lines(batch: GradedBatch, block: int = 200_000):
+def jsonl_lines(batch: GradedBatch, block: int = 100_000):
     """Yield the JSON Lines text of the batch, a block of rows at a time, in input order."""
     writer = _Writer(batch)
     n = len(batch)
