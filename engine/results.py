@@ -171,6 +171,15 @@ def rule_inputs(rule) -> list[str]:
 
 
 @dataclass(frozen=True)
+class EngineCaveat:
+    """A caveat the engine raises itself, in no rule set; its message is a per-sample column."""
+
+    id: str
+    message_column: str
+    source: str
+
+
+@dataclass(frozen=True)
 class GradedBatch:
     """A graded batch: the outcome arrays plus what is needed to read records from them."""
 

@@ -24,12 +24,12 @@ import numpy as np
 import pandas as pd
 
 from .problems import InputError
+from .results import EngineCaveat
 from .ruleset import RuleSet
 from .samples import Reject, SampleBatch
 from .spectra.batch import SUBTRACTION, measure_spectra, read_spectrum
 from .spectra.ester import detect_ester, resolve_base_stock
 from .spectra.spectrum import SpectrumError
-from .trends import EngineCaveat
 from .units import factor_to_canonical
 
 # Band columns that are engine measures; the band file's water and fuel bands are

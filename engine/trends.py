@@ -9,13 +9,14 @@ it is one sort plus shifted arrays; there is no loop over units.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
 
 from .measures import TREND_BASES, TREND_MEASURES
 from .ruleset import RuleSet, condition_measures
+from .results import EngineCaveat
 from .samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
@@ -23,15 +24,6 @@ CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing date: after every real one
 _DECIMALS = 9  # as in measures.py: differences of decimal lab values carry binary noise
-
-
-@dataclass(frozen=True)
-class EngineCaveat:
-    """A caveat the engine raises itself, in no rule set; its message is a per-sample column."""
-
-    id: str
-    message_column: str
-    source: str
 
 
 TREND_CAVEATS = (
