@@ -13,11 +13,23 @@ import pandas as pd
 
 from .compile import engine_name
 from .evaluate import NOT_EVALUATED
-from .render_jsonl import join_parts, states
+from .render_jsonl import states
 from .results import UNRATED, GradedBatch, gap_at, record_shape_groups, rule_inputs
 
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "grade", "level", "fired", "caveats",
            "not_evaluated", "unrated_because", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
+
+
+def join_parts(n: int, parts, sep: str = ", ") -> np.ndarray:
+    """Join (row mask, texts of those rows) parts, in the order given, with `sep` between them."""
+    acc = np.full(n, "", dtype=object)
+    started = np.zeros(n, dtype=bool)
+    for mask, text in parts:
+        if not mask.any():
+            continue
+        acc[mask] = acc[mask] + np.where(started[mask], sep, "").astype(object) + text
+        started |= mask
+    return acc
 
 
 def _fired(batch: GradedBatch) -> np.ndarray:

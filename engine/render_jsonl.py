@@ -4,9 +4,11 @@ Building a dict and calling json.dumps for each of a million rows would cost mor
 all of the grading. Instead each piece of a record is rendered once per distinct state,
 with placeholders for per-row values, using the same record classes as the Python API:
 the record's skeleton once, each rule's reason once per (grade, capped-from, clauses)
-state, each gap once per pattern of missing inputs, each caveat once. The pieces are
-then joined column-wise over the rows with numpy object arrays. A test checks that
-every line equals json of the per-record API, byte for byte.
+state, each gap once per pattern of missing inputs, each caveat once. Each template is
+filled once a row by one %-format call; the filled pieces of a block are laid out in
+line order in one flat array and joined by a single str.join, so no line is built by
+repeated concatenation. A test checks that every line equals json of the per-record
+API, byte for byte.
 """
 
 from __future__ import annotations
@@ -89,8 +91,9 @@ def _text_literals(values: np.ndarray) -> np.ndarray:
 def _number_literals(values: np.ndarray) -> np.ndarray:
     """JSON number literals (or null), spelled as Python's float repr, each distinct value once."""
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
-    table = [repr(float(u)) if np.isfinite(u) else "null" for u in uniques] + ["null"]
-    return np.array(table, dtype=object)[codes]
+    table = np.array(list(map(repr, uniques.tolist())) + ["null"], dtype=object)
+    table[:-1][~np.isfinite(uniques)] = "null"
+    return table[codes]
 
 
 class _Literals:
@@ -99,33 +102,17 @@ class _Literals:
 
     def __init__(self, measured: pd.DataFrame):
         self.measured = measured
+        self.arrays: dict = {}  # each column converted to numpy once, not once a request
 
     def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
         if name not in self.measured.columns:
             return np.full(len(rows), "null", dtype=object)
-        column = self.measured[name]
-        if kind == "number":
-            return _number_literals(column.to_numpy(dtype=float, na_value=np.nan)[rows])
-        return _text_literals(column.to_numpy(dtype=object)[rows])
-
-
-def _fill(chunks: list[str], wanted: list, literals: _Literals, rows: np.ndarray) -> np.ndarray:
-    assembled = np.full(len(rows), chunks[0], dtype=object)
-    for (kind, name), chunk in zip(wanted, chunks[1:]):
-        assembled = assembled + literals.get(kind, name, rows) + chunk
-    return assembled
-
-
-def join_parts(n: int, parts, sep: str = ", ") -> np.ndarray:
-    """Join (row mask, texts of those rows) parts, in the order given, with `sep` between them."""
-    acc = np.full(n, "", dtype=object)
-    started = np.zeros(n, dtype=bool)
-    for mask, text in parts:
-        if not mask.any():
-            continue
-        acc[mask] = acc[mask] + np.where(started[mask], sep, "").astype(object) + text
-        started |= mask
-    return acc
+        if (kind, name) not in self.arrays:
+            column = self.measured[name]
+            self.arrays[kind, name] = (column.to_numpy(dtype=float, na_value=np.nan) if kind == "number"
+                                       else column.to_numpy(dtype=object))
+        values = self.arrays[kind, name][rows]
+        return _number_literals(values) if kind == "number" else _text_literals(values)
 
 
 def states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
@@ -134,6 +121,83 @@ def states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     keys = matrix.view(np.dtype((np.void, matrix.shape[1]))).ravel()
     _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
     return first, inverse.ravel()
+
+
+class _Group:
+    """Rows of a block that share one piece of their lines: a template filled once a row,
+    placed at `slot` of each of those rows' lines (list items get a separator unless first)."""
+
+    def __init__(self, slot: int, rows: np.ndarray, template: tuple[list[str], list], listed: bool):
+        self.slot, self.rows, self.template, self.listed = slot, rows, template, listed
+
+
+class _Block:
+    """One block of rows: literals of each column once, and the groups that make its lines."""
+
+    def __init__(self, literals: _Literals, rows: np.ndarray):
+        self.literals, self.rows = literals, rows
+        self.cache: dict = {}
+        self.groups: list[_Group] = []
+
+    def literal(self, kind: str, name: str, local: np.ndarray) -> np.ndarray:
+        """Literals of these rows only: many columns are read by a few rows' reasons."""
+        if kind == "raw":
+            return self.cache[name][local]
+        return self.literals.get(kind, name, self.rows[local])
+
+    def add(self, slot: int, local: np.ndarray, template: tuple[list[str], list], listed: bool = False) -> None:
+        self.groups.append(_Group(slot, local, template, listed))
+
+    def _filled(self, template: tuple[list[str], list], local: np.ndarray, lead: str):
+        """The template's text for each of these rows: one C-level %-format call a row."""
+        chunks, wanted = template
+        if not wanted:
+            return lead + chunks[0]
+        form = lead.replace("%", "%%") + "%s".join(chunk.replace("%", "%%") for chunk in chunks)
+        columns = [self.literal(kind, name, local).tolist() for kind, name in wanted]
+        return [form % args for args in zip(*columns)]
+
+    def text(self, slots: int, lists: list[range]) -> str:
+        """Lay the pieces out in line order and join the block in one call.
+
+        A row's occupied slots, counted cumulatively, give each piece its place in one flat
+        array, so no line is ever built by repeated concatenation. The first item of each
+        list (reasons, caveats, gaps) in a row is written without the separator.
+        """
+        n = len(self.rows)
+        occupied = np.zeros((n, slots), dtype=bool)
+        for group in self.groups:
+            occupied[group.rows, group.slot] = True
+        first = np.zeros((n, slots), dtype=bool)
+        for span in lists:
+            present = occupied[:, span.start:span.stop]
+            listed = np.flatnonzero(present.any(axis=1))
+            first[listed, span.start + present[listed].argmax(axis=1)] = True
+        places = np.cumsum(occupied, dtype=np.int32).reshape(n, slots) - 1
+        flat = np.empty(int(places[-1, -1]) + 1 if n else 0, dtype=object)
+        for group in self.groups:
+            at = places[group.rows, group.slot]
+            if not group.listed:
+                flat[at] = self._filled(group.template, group.rows, "")
+                continue
+            leads = first[group.rows, group.slot]
+            for lead, mask in (("", leads), (", ", ~leads)):
+                if mask.any():
+                    flat[at[mask]] = self._filled(group.template, group.rows[mask], lead)
+        return "".join(flat.tolist())
+
+
+def _split_at_lists(template: tuple[list[str], list]) -> tuple[list, list[str]]:
+    """A record skeleton cut where its lists (reasons, caveats, gaps) go: the parts, the list names."""
+    chunks, wanted = template
+    parts, names, start = [], [], 0
+    for k, (kind, name) in enumerate(wanted):
+        if kind == "list":
+            parts.append((chunks[start:k + 1], wanted[start:k]))
+            names.append(name)
+            start = k + 1
+    parts.append((chunks[start:-1] + [chunks[-1] + "\n"], wanted[start:]))
+    return parts, names
 
 
 class _Writer:
@@ -145,6 +209,9 @@ class _Writer:
         self.gap_templates: dict = {}
         self.caveat_templates: dict = {}
         self.skeletons: dict = {}
+        rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
+        self.list_sizes = {"reasons": top * rules, "caveats": self.out.caveats.shape[1], "gaps": rules}
+        self.layout: tuple | None = None  # (list name -> first slot, part p -> slot, slot count)
 
     def _reason_state(self, j: int, rows: np.ndarray) -> list[np.ndarray]:
         """What decides the shape of slot j's reason: final and raw level, capping caveat, clauses."""
@@ -165,114 +232,103 @@ class _Writer:
                 columns.append(truth[at].astype(np.int8) + 2 * known[at].astype(np.int8))
         return columns
 
-    def _reasons(self, j: int, rows: np.ndarray) -> np.ndarray:
+    def _reasons(self, block: _Block, j: int, local: np.ndarray) -> None:
+        """Slot j's reasons, listed highest grade first, then in rule order."""
+        rows = block.rows[local]
         columns = self._reason_state(j, rows)
         first, state = states(columns)
-        text = np.empty(len(rows), dtype=object)
+        top, base = len(self.batch.ruleset.grades) - 1, self.layout[0]["reasons"]
         for s, rep in enumerate(rows[first]):
             key = (j, tuple(int(c[first[s]]) for c in columns))
             if key not in self.reason_templates:
                 values = _TemplateValues()
                 self.reason_templates[key] = _template(dumps(reason_at(self.batch, int(rep), j, values).to_record()),
                                                        values)
-            chunks, wanted = self.reason_templates[key]
-            members = state == s
-            text[members] = _fill(chunks, wanted, self.literals, rows[members])
-        return text
+            level = key[1][0]
+            block.add(base + (top - level) * len(self.out.slots) + j, local[state == s], self.reason_templates[key], True)
 
-    def _gaps(self, j: int, rows: np.ndarray) -> np.ndarray:
+    def _gaps(self, block: _Block, j: int, local: np.ndarray) -> None:
         measured = self.batch.measured
+        rows = block.rows[local]
         rule = self.out.slots[j].rule
         names = [n for n in rule_inputs(rule) if n in measured.columns]
         columns = [measured[n].isna().to_numpy()[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
         first, state = states(columns)
-        table = []
-        for rep in rows[first]:
+        for s, rep in enumerate(rows[first]):
             key = (j, tuple(bool(measured[n].isna().iat[int(rep)]) for n in names))
             if key not in self.gap_templates:
                 self.gap_templates[key] = dumps(gap_at(self.batch, int(rep), j).to_record())
-            table.append(self.gap_templates[key])
-        return np.array(table, dtype=object)[state]
+            block.add(self.layout[0]["gaps"] + j, local[state == s], ([self.gap_templates[key]], []), True)
 
-    def _caveat(self, k: int, rows: np.ndarray) -> np.ndarray:
+    def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:
         if k not in self.caveat_templates:
             values = _TemplateValues()
-            self.caveat_templates[k] = _template(dumps(caveat_at(self.batch, int(rows[0]), k, values).to_record()),
-                                                 values)
-        chunks, wanted = self.caveat_templates[k]
-        return _fill(chunks, wanted, self.literals, rows)
+            rep = int(block.rows[local[0]])
+            self.caveat_templates[k] = _template(dumps(caveat_at(self.batch, rep, k, values).to_record()), values)
+        block.add(self.layout[0]["caveats"] + k, local, self.caveat_templates[k], True)
 
-    def _skeleton(self, rep: int, unrated: bool) -> tuple[list[str], list]:
+    def _skeleton(self, rep: int, unrated: bool) -> list:
+        """The record's own parts around its lists, once for rated and once for unrated rows."""
         if unrated not in self.skeletons:
             values = _TemplateValues()
             result = build_result(self.batch, rep, values)
-            pieces = {name: (_Piece(values.slot("raw", name)),) for name in ("reasons", "caveats", "gaps")}
+            pieces = {name: (_Piece(values.slot("list", name)),) for name in ("reasons", "caveats", "gaps")}
             result = replace(result, grade=values.slot("raw", "grade"), level=values.slot("raw", "level"),
                              reasons=pieces["reasons"], caveats=pieces["caveats"],
                              not_evaluated=pieces["gaps"],
                              unrated_because=values.slot("raw", "unrated_because") if unrated else None)
-            self.skeletons[unrated] = _template(dumps(result.to_record()), values)
+            parts, names = _split_at_lists(_template(dumps(result.to_record()), values))
+            if self.layout is None:
+                self._lay_out(names)
+            elif names != self.layout[3]:
+                raise RuntimeError("rated and unrated records list their reasons, caveats and gaps in another order")
+            self.skeletons[unrated] = parts
         return self.skeletons[unrated]
 
-    def lines(self, rows: np.ndarray) -> np.ndarray:
+    def _lay_out(self, names: list[str]) -> None:
+        """Slots of a line, in order: part 0, the first list's items, part 1, ..., the last part."""
+        starts, parts, slot = {}, [], 0
+        for name in names:
+            parts.append(slot)
+            starts[name] = slot + 1
+            slot += 1 + self.list_sizes[name]
+        parts.append(slot)
+        self.layout = (starts, parts, slot + 1, names)
+
+    def block_text(self, rows: np.ndarray) -> str:
         out, rs = self.out, self.batch.ruleset
-        final = out.final[rows]
-        levels = range(len(rs.grades) - 1, 0, -1)  # reasons are listed highest grade first
-        fired = {j: np.flatnonzero(final[:, j] > 0) for j in range(final.shape[1])}
-        reason_text = {j: self._reasons(j, rows[idx]) for j, idx in fired.items() if len(idx)}
-        parts = []
-        for level in levels:
-            for j, text in reason_text.items():
-                idx = fired[j]
-                at_level = final[idx, j] == level
-                if at_level.any():
-                    mask = np.zeros(len(rows), dtype=bool)
-                    mask[idx[at_level]] = True
-                    parts.append((mask, text[at_level]))
-        raw_values = {"reasons": join_parts(len(rows), parts)}
-
-        gap_parts = []
-        for j in range(final.shape[1]):
-            mask = final[:, j] == NOT_EVALUATED
-            if mask.any():
-                gap_parts.append((mask, self._gaps(j, rows[mask])))
-        raw_values["gaps"] = join_parts(len(rows), gap_parts)
-
-        caveat_parts = []
-        for k in range(out.caveats.shape[1]):
-            mask = out.caveats[rows, k]
-            if mask.any():
-                caveat_parts.append((mask, self._caveat(k, rows[mask])))
-        raw_values["caveats"] = join_parts(len(rows), caveat_parts)
-
+        block = _Block(self.literals, rows)
         level = out.level[rows]
-        names = list(rs.grades) + [UNRATED]
-        raw_values["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
-        raw_values["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"], dtype=object)[level]
         unrated = level < 0
-        raw_values["unrated_because"] = np.full(len(rows), "", dtype=object)
+        names = list(rs.grades) + [UNRATED]
+        block.cache["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
+        block.cache["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"],
+                                               dtype=object)[level]
+        block.cache["unrated_because"] = np.full(len(rows), "", dtype=object)
         if unrated.any():
-            raw_values["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
-        return self._assemble(rows, raw_values, unrated)
-
-    def _assemble(self, rows: np.ndarray, raw_values: dict, unrated: np.ndarray) -> list[str]:
-        """The lines: each record skeleton becomes one %-template filled once a row.
-
-        Filling one template with a row's ~20 pre-formatted values is a single C-level
-        formatting call, far cheaper than joining the ~40 pieces of a line one by one.
-        """
-        lines: list = [None] * len(rows)
+            block.cache["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
         for is_unrated in (False, True):
             members = np.flatnonzero(unrated == is_unrated)
-            if not len(members):
-                continue
-            chunks, wanted = self._skeleton(int(rows[members[0]]), is_unrated)
-            template = "%s".join(chunk.replace("%", "%%") for chunk in chunks)
-            columns = [(raw_values[name][members] if kind == "raw" else
-                        self.literals.get(kind, name, rows[members])).tolist() for kind, name in wanted]
-            for k, args in zip(members.tolist(), zip(*columns)):
-                lines[k] = template % args
-        return lines
+            if len(members):
+                parts = self._skeleton(int(rows[members[0]]), is_unrated)
+                for slot, part in zip(self.layout[1], parts):
+                    block.add(slot, members, part)
+
+        final = out.final[rows]
+        for j in range(final.shape[1]):
+            fired = np.flatnonzero(final[:, j] > 0)
+            if len(fired):
+                self._reasons(block, j, fired)
+            gaps = np.flatnonzero(final[:, j] == NOT_EVALUATED)
+            if len(gaps):
+                self._gaps(block, j, gaps)
+        for k in range(out.caveats.shape[1]):
+            noted = np.flatnonzero(out.caveats[rows, k])
+            if len(noted):
+                self._caveats(block, k, noted)
+        starts, _, slots, list_names = self.layout
+        lists = [range(starts[name], starts[name] + self.list_sizes[name]) for name in list_names]
+        return block.text(slots, lists)
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)
@@ -286,8 +342,7 @@ def jsonl_lines(batch: GradedBatch, block: int = 100_000):
     writer = _Writer(batch)
     n = len(batch)
     for start in range(0, n, block):
-        rows = np.arange(start, min(n, start + block))
-        yield "\n".join(writer.lines(rows)) + "\n"
+        yield writer.block_text(np.arange(start, min(n, start + block)))
 
 
 def write_jsonl(batch: GradedBatch, stream) -> None:
