@@ -79,3 +79,34 @@ def test_empty_and_unreadable_files(tmp_path):
         read_samples(io.StringIO(""), "empty.csv")
     with pytest.raises(InputError, match="cannot read"):
         read_samples(tmp_path / "nope.csv")
+
+
+@pytest.mark.parametrize("cell, expected", [
+    ("G-1", "G-1"), ("  G-1", "G-1"), ("G-1\t", "G-1"), ("\u00a0G-1\u2003", "G-1"), ("Pump\u00e9 1", "Pump\u00e9 1"),
+    ("   ", None), ("", None)])
+def test_text_cells_are_stripped_and_blank_ones_missing(tmp_path, cell, expected):
+    # str.strip semantics (Python docs: Unicode whitespace); the quick path for clean text must agree.
+    path = tmp_path / "s.csv"
+    path.write_text(f'sample_id,unit_id,class\nA-1,"{cell}",pump\nA-2,U-2,pump\n', encoding="utf-8")
+    units = read_samples(path).frame["unit_id"].tolist()
+    assert units == [expected, "U-2"]
+
+
+def test_a_byte_order_mark_is_not_part_of_the_first_column(tmp_path):
+    path = tmp_path / "bom.csv"
+    path.write_bytes("sample_id,class,an\nB-1,pump,0.2\n".encode("utf-8-sig"))
+    batch = read_samples(path)
+    assert list(batch.frame.columns[:2]) == ["sample_id", "class"] and batch.frame["an"].tolist() == [0.2]
+
+
+def test_a_file_that_is_not_utf8_is_an_input_error(tmp_path):
+    path = tmp_path / "latin1.csv"
+    path.write_bytes("sample_id,unit_id,class\nC-1,Pump\u00e9,pump\n".encode("latin-1"))
+    with pytest.raises(InputError, match="cannot read the file"):
+        read_samples(path)
+
+
+def test_row_numbers_skip_unreadable_lines():
+    text = "sample_id,class,an\nR-1,pump,0.1\nR-2,pump,0.1,extra\nR-3,pump,0.3\n"
+    batch = read_samples(io.StringIO(text), "s.csv")
+    assert list(batch.frame.index) == [1, 3] and [r.row for r in batch.rejects] == [2]
