@@ -233,7 +233,7 @@ def _content_pieces(name: str, column: pd.Series) -> np.ndarray:
 
 
 def _fingerprints(contents: np.ndarray) -> np.ndarray:
-    return np.array([fingerprint(c) for c in contents], dtype=object)
+    return np.array(list(map(fingerprint, contents.tolist())), dtype=object)
 
 
 def _nullable(values: np.ndarray) -> list:
@@ -376,8 +376,9 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: bool) 
     grades = np.array(graded.grades(), dtype=object)
     levels = np.where(graded.outcome.level >= 0, graded.outcome.level, np.nan)
     start = 0
-    for block in jsonl_lines(graded):
-        heads = _without_tail(block, tail)
+    for block in jsonl_lines(graded, drop_tail=tail):
+        heads = block.split("\n")
+        heads.pop()
         span = np.arange(start, start + len(heads))
         start += len(heads)
         keep = fresh[span]
@@ -395,18 +396,6 @@ def record_tail(ruleset: RuleSet) -> str:
                     "ruleset": {"id": ruleset.id, "version": ruleset.version, "sha256": ruleset.sha256},
                     "engine": engine_name()})
     return ", " + shared[1:]
-
-
-def _without_tail(block: str, tail: str) -> list:
-    """The lines of a JSON Lines block without their shared tail, checked to end every line.
-
-    A raw newline only ends a line, so splitting at `tail + newline` gives one piece a line
-    exactly when the tail ends every line.
-    """
-    heads = block.split(tail + "\n")
-    if heads.pop() != "" or len(heads) != block.count("\n"):
-        raise RuntimeError("a result record does not end with its rule set's notice, id and engine")
-    return heads
 
 
 # -- reading the ledger back ---------------------------------------------------------------------

@@ -187,8 +187,11 @@ class _Block:
         return "".join(flat.tolist())
 
 
-def _split_at_lists(template: tuple[list[str], list]) -> tuple[list, list[str]]:
-    """A record skeleton cut where its lists (reasons, caveats, gaps) go: the parts, the list names."""
+def _split_at_lists(template: tuple[list[str], list], drop_tail: str) -> tuple[list, list[str]]:
+    """A record skeleton cut where its lists (reasons, caveats, gaps) go: the parts, the list names.
+
+    The line ends with a newline, after `drop_tail` (the record's last characters) is cut off.
+    """
     chunks, wanted = template
     parts, names, start = [], [], 0
     for k, (kind, name) in enumerate(wanted):
@@ -196,13 +199,16 @@ def _split_at_lists(template: tuple[list[str], list]) -> tuple[list, list[str]]:
             parts.append((chunks[start:k + 1], wanted[start:k]))
             names.append(name)
             start = k + 1
-    parts.append((chunks[start:-1] + [chunks[-1] + "\n"], wanted[start:]))
+    end = chunks[-1]
+    if not end.endswith(drop_tail):
+        raise RuntimeError("a result record does not end with the tail it was asked to leave out")
+    parts.append((chunks[start:-1] + [end[:len(end) - len(drop_tail)] + "\n"], wanted[start:]))
     return parts, names
 
 
 class _Writer:
-    def __init__(self, batch: GradedBatch):
-        self.batch = batch
+    def __init__(self, batch: GradedBatch, drop_tail: str = ""):
+        self.batch, self.drop_tail = batch, drop_tail
         self.literals = _Literals(batch.measured)
         self.out = batch.outcome
         self.reason_templates: dict = {}
@@ -277,7 +283,7 @@ class _Writer:
                              reasons=pieces["reasons"], caveats=pieces["caveats"],
                              not_evaluated=pieces["gaps"],
                              unrated_because=values.slot("raw", "unrated_because") if unrated else None)
-            parts, names = _split_at_lists(_template(dumps(result.to_record()), values))
+            parts, names = _split_at_lists(_template(dumps(result.to_record()), values), self.drop_tail)
             if self.layout is None:
                 self._lay_out(names)
             elif names != self.layout[3]:
@@ -337,9 +343,12 @@ class _Writer:
         return np.array(table, dtype=object)[group_of]
 
 
-def jsonl_lines(batch: GradedBatch, block: int = 100_000):
-    """Yield the JSON Lines text of the batch, a block of rows at a time, in input order."""
-    writer = _Writer(batch)
+def jsonl_lines(batch: GradedBatch, block: int = 100_000, drop_tail: str = ""):
+    """Yield the JSON Lines text of the batch, a block of rows at a time, in input order.
+
+    With `drop_tail`, the text every record ends with (the ledger stores it once) is left out.
+    """
+    writer = _Writer(batch, drop_tail)
     n = len(batch)
     for start in range(0, n, block):
         yield writer.block_text(np.arange(start, min(n, start + block)))

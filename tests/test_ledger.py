@@ -224,15 +224,6 @@ def test_missing_values_are_stored_as_null(tmp_path, ruleset):
     assert kinds == ("null", "real", "integer") and unrated == ("null",)
 
 
-def test_a_record_without_its_tail_is_an_internal_error():
-    from engine.ledger import _without_tail
-    tail = ', "engine": "x"}'
-    assert _without_tail('{"a": 1, "engine": "x"}\n{"b": 2, "engine": "x"}\n', tail) == ['{"a": 1', '{"b": 2']
-    assert _without_tail("", tail) == []
-    with pytest.raises(RuntimeError, match="does not end with"):
-        _without_tail('{"a": 1, "engine": "x"}\n{"b": 2, "engine": "y"}\n', tail)
-
-
 def test_a_new_ledger_gets_the_larger_page_and_an_old_one_keeps_its_own(tmp_path, ruleset):
     # PRAGMA page_size applies only before a database has content (sqlite.org/pragma.html#pragma_page_size).
     from engine.ledger import PAGE_SIZE

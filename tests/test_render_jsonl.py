@@ -56,3 +56,19 @@ def test_bulk_writer_matches_records_on_random_samples_of_every_class():
     for line, result in zip(lines, graded.results()):
         assert line == dumps(result.to_record())
     assert len(lines) == 2000
+
+
+def test_the_ledger_form_leaves_out_the_shared_tail_and_nothing_else():
+    import pytest
+
+    from engine.ledger import record_tail
+    from engine.render_jsonl import jsonl_lines
+    ruleset = load_ruleset(SITE)
+    graded = grade(read_samples(SAMPLES), ruleset)
+    tail = record_tail(ruleset)
+    full = "".join(jsonl_lines(graded)).splitlines()
+    heads = "".join(jsonl_lines(graded, drop_tail=tail)).splitlines()
+    assert len(heads) == len(full) == len(graded)
+    assert [head + tail for head in heads] == full
+    with pytest.raises(RuntimeError, match="does not end with the tail"):
+        next(jsonl_lines(graded, drop_tail=', "engine": "another"}'))
