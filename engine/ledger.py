@@ -193,19 +193,24 @@ def begin(conn: sqlite3.Connection) -> None:
 
 # -- recording a graded batch ------------------------------------------------------------------
 
-def sample_contents(frame: pd.DataFrame) -> np.ndarray:
+def sample_contents(frame: pd.DataFrame, block: int = 50_000) -> np.ndarray:
     """Each row's input values as canonical JSON (sorted keys, missing values left out), column-wise.
 
     Each column gives every row one piece, `"name": value, ` or "" where the value is missing,
-    each distinct value spelled once; the pieces are joined in one pass and split at the row ends.
+    each distinct value spelled once; a block of rows' pieces is joined in one pass and split
+    at the row ends (blocks keep each joined text small, which keeps this linear in the rows).
     """
     n = len(frame)
     pieces = [np.full(n, "{", dtype=object)]
     pieces += [_content_pieces(name, frame[name]) for name in sorted(frame.columns)]
     pieces.append(np.full(n, "}\n", dtype=object))
-    text = "".join(np.stack(pieces, axis=1).ravel().tolist())
-    # A raw newline only ends a row (JSON escapes it elsewhere), so ", }\n" is always a row's trailing comma.
-    return np.array(text.replace(", }\n", "}\n").split("\n")[:-1], dtype=object)
+    table = np.stack(pieces, axis=1)
+    contents = np.empty(n, dtype=object)
+    for start in range(0, n, block):
+        text = "".join(table[start:start + block].ravel().tolist())
+        # A raw newline only ends a row (JSON escapes it elsewhere), so ", }\n" is always a row's trailing comma.
+        contents[start:start + block] = text.replace(", }\n", "}\n").split("\n")[:-1]
+    return contents
 
 
 def _content_pieces(name: str, column: pd.Series) -> np.ndarray:
