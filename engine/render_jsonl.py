@@ -157,7 +157,7 @@ class _Block:
         columns = [self.literal(kind, name, local).tolist() for kind, name in wanted]
         return [form % args for args in zip(*columns)]
 
-    def text(self, slots: int, lists: list[range]) -> str:
+    def text(self, lists: list[range]) -> str:
         """Lay the pieces out in line order and join the block in one call.
 
         A row's occupied slots, counted cumulatively, give each piece its place in one flat
@@ -165,22 +165,27 @@ class _Block:
         list (reasons, caveats, gaps) in a row is written without the separator.
         """
         n = len(self.rows)
-        occupied = np.zeros((n, slots), dtype=bool)
+        used = np.unique([group.slot for group in self.groups])  # in order; most slots are empty in a block
+        column = {int(slot): k for k, slot in enumerate(used)}
+        occupied = np.zeros((n, len(used)), dtype=bool)
         for group in self.groups:
-            occupied[group.rows, group.slot] = True
-        first = np.zeros((n, slots), dtype=bool)
+            occupied[group.rows, column[group.slot]] = True
+        first = np.zeros_like(occupied)
         for span in lists:
-            present = occupied[:, span.start:span.stop]
+            start, stop = np.searchsorted(used, [span.start, span.stop])
+            if start == stop:
+                continue
+            present = occupied[:, start:stop]
             listed = np.flatnonzero(present.any(axis=1))
-            first[listed, span.start + present[listed].argmax(axis=1)] = True
-        places = np.cumsum(occupied, dtype=np.int32).reshape(n, slots) - 1
+            first[listed, start + present[listed].argmax(axis=1)] = True
+        places = np.cumsum(occupied, dtype=np.int32).reshape(occupied.shape) - 1
         flat = np.empty(int(places[-1, -1]) + 1 if n else 0, dtype=object)
         for group in self.groups:
-            at = places[group.rows, group.slot]
+            at = places[group.rows, column[group.slot]]
             if not group.listed:
                 flat[at] = self._filled(group.template, group.rows, "")
                 continue
-            leads = first[group.rows, group.slot]
+            leads = first[group.rows, column[group.slot]]
             for lead, mask in (("", leads), (", ", ~leads)):
                 if mask.any():
                     flat[at[mask]] = self._filled(group.template, group.rows[mask], lead)
@@ -213,6 +218,7 @@ class _Writer:
         self.out = batch.outcome
         self.reason_templates: dict = {}
         self.gap_templates: dict = {}
+        self.missing: dict = {}  # each input's missing cells, found once for all rules and blocks
         self.caveat_templates: dict = {}
         self.skeletons: dict = {}
         rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
@@ -258,10 +264,13 @@ class _Writer:
         rows = block.rows[local]
         rule = self.out.slots[j].rule
         names = [n for n in rule_inputs(rule) if n in measured.columns]
-        columns = [measured[n].isna().to_numpy()[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
+        for name in names:
+            if name not in self.missing:
+                self.missing[name] = measured[name].isna().to_numpy()
+        columns = [self.missing[n][rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
         first, state = states(columns)
         for s, rep in enumerate(rows[first]):
-            key = (j, tuple(bool(measured[n].isna().iat[int(rep)]) for n in names))
+            key = (j, tuple(bool(self.missing[n][rep]) for n in names))
             if key not in self.gap_templates:
                 self.gap_templates[key] = dumps(gap_at(self.batch, int(rep), j).to_record())
             block.add(self.layout[0]["gaps"] + j, local[state == s], ([self.gap_templates[key]], []), True)
@@ -332,9 +341,9 @@ class _Writer:
             noted = np.flatnonzero(out.caveats[rows, k])
             if len(noted):
                 self._caveats(block, k, noted)
-        starts, _, slots, list_names = self.layout
+        starts, _, _, list_names = self.layout
         lists = [range(starts[name], starts[name] + self.list_sizes[name]) for name in list_names]
-        return block.text(slots, lists)
+        return block.text(lists)
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)
