@@ -118,6 +118,7 @@ def main() -> None:
               f"(end to end = read + derive + evaluate + write; 'write' includes rendering)")
         print(f"evaluation (reasons as arrays: each rule's level, cap and caveat per sample): "
               f"{figures[2][1]:.3f} s; with reasons rendered to JSON text: {figures[2][1] + figures[3][1]:.3f} s")
+        print_floors(csv_path, graded, size, Path(folder) / "floor.jsonl")
 
         small = synthetic(ruleset, args.baseline_rows, seed=11)
         rows = small.to_dict("records")
@@ -134,6 +135,23 @@ def main() -> None:
               f"({args.baseline_rows / loop:,.0f} samples/s); engine derive+evaluate on the same rows: "
               f"{engine_seconds:.3f} s; ratio {loop / engine_seconds:.0f}x")
         del small_outcome
+
+
+def print_floors(csv_path: Path, graded: GradedBatch, size: int, out_path: Path) -> None:
+    """What the two ends cost with no sumpwise work at all: the same CSV parsed by pandas with
+    default options, and the same number of characters of already rendered text written out."""
+    t = time.perf_counter()
+    pd.read_csv(csv_path)
+    parse = time.perf_counter() - t
+    block = next(jsonl_lines(graded))
+    t = time.perf_counter()
+    with open(out_path, "w", encoding="utf-8") as out:
+        for _ in range(max(1, round(size / len(block)))):
+            out.write(block)
+    write = time.perf_counter() - t
+    out_path.unlink()
+    print(f"floors: pandas.read_csv alone {parse:.3f} s; writing {size / 1e6:,.0f} MB of ready text "
+          f"(one block, written over and over) {write:.3f} s; together {parse + write:.3f} s")
 
 
 def _to_csv(frame: pd.DataFrame, path: Path) -> Path:
