@@ -47,7 +47,8 @@ def result_from_record(record: dict, grades: tuple) -> SampleResult:
         sample_id=record["sample_id"], unit_id=record["unit_id"], class_name=record["class"],
         lubricant=record["lubricant"], sampled_on=record["sampled_on"], grade=record["grade"],
         level=record["level"], reasons=tuple(reasons),
-        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", "")) for c in record["caveats"]),
+        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())))
+                      for c in record["caveats"]),
         not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"])) for n in record["not_evaluated"]),
         notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
         ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),

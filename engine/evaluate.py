@@ -51,7 +51,9 @@ class Outcome:
     `raw` and `final` are int8 [rows, slots]: NOT_APPLICABLE, NOT_EVALUATED, or the
     level the rule gave (0 when it did not fire); `final` is after caps. `leaves`
     maps a slot index to the (truth, known) arrays of its condition's leaf tests.
-    `capping` is bool [rows, caveats]: the caveat's cap was in force for the sample.
+    `capping` is bool [rows, caveats]: the caveat's cap was in force for the sample;
+    `unchecked` marks where it was in force only because its `unless` could not be
+    evaluated (a value it needs is missing), which the record must say.
     `level` is the sample's grade level, -1 for unrated.
     """
 
@@ -60,6 +62,7 @@ class Outcome:
     final: np.ndarray
     caveats: np.ndarray
     capping: np.ndarray
+    unchecked: np.ndarray
     leaves: dict
     level: np.ndarray
     known_class: np.ndarray
@@ -177,6 +180,7 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
     everyone = _Columns(measured, None)
     caveats = np.zeros((n, len(ruleset.caveats)), dtype=bool)
     capping_all = np.zeros_like(caveats)
+    unchecked = np.zeros_like(caveats)
     final = raw.copy(order="F")
     for k, caveat in enumerate(ruleset.caveats):
         truth, _ = condition_truth(caveat.when, everyone)
@@ -185,8 +189,9 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
             continue
         capping = truth
         if caveat.cap.unless is not None:
-            lifted, _ = condition_truth(caveat.cap.unless, everyone)
+            lifted, lift_known = condition_truth(caveat.cap.unless, everyone)
             capping = truth & ~lifted
+            unchecked[:, k] = truth & ~lift_known
         capping_all[:, k] = capping
         for j, slot in enumerate(slots):
             if slot.rule.reads & caveat.cap.measures:
@@ -195,4 +200,4 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
 
     level = final.max(axis=1, initial=NOT_APPLICABLE) if len(slots) else np.full(n, NOT_APPLICABLE)
     level = np.where(level >= 0, level, -1).astype(np.int8)
-    return Outcome(slots, raw, final, caveats, capping_all, leaves, level, known_class)
+    return Outcome(slots, raw, final, caveats, capping_all, unchecked, leaves, level, known_class)

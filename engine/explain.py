@@ -82,6 +82,10 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88) -> list[
         lines.append("Caveats:")
         for caveat in result.caveats:
             lines.extend(wrap(f"{caveat.caveat}: {caveat.message}", "  - "))
+            if caveat.unless_missing:
+                lines.extend(wrap(f"Its cap stays in force because the exception that would lift it could not "
+                                  f"be checked: it lacks {', '.join(caveat.unless_missing)}. Measure that before "
+                                  f"trusting a capped grade.", "    "))
     if result.not_evaluated:
         lines.append("")
         lines.append("Not evaluated (a missing value is never a pass):")

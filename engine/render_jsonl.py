@@ -21,8 +21,8 @@ import numpy as np
 import pandas as pd
 
 from .evaluate import NOT_EVALUATED
-from .results import (UNRATED, GradedBatch, build_result, caveat_at, gap_at, reason_at, record_shape_groups,
-                      rule_inputs)
+from .results import (UNRATED, GradedBatch, build_result, caveat_at, condition_inputs, gap_at, reason_at,
+                      record_shape_groups, rule_inputs)
 
 _TOKEN = re.compile(r'"\\u0000sw(\d+)\\u0000"')
 _ESCAPED = re.compile(r'["\\\x00-\x1f]')
@@ -264,23 +264,40 @@ class _Writer:
         rows = block.rows[local]
         rule = self.out.slots[j].rule
         names = [n for n in rule_inputs(rule) if n in measured.columns]
-        for name in names:
-            if name not in self.missing:
-                self.missing[name] = measured[name].isna().to_numpy()
-        columns = [self.missing[n][rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
+        columns = [self._missing(n)[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
         first, state = states(columns)
         for s, rep in enumerate(rows[first]):
-            key = (j, tuple(bool(self.missing[n][rep]) for n in names))
+            key = (j, tuple(bool(self._missing(n)[rep]) for n in names))
             if key not in self.gap_templates:
                 self.gap_templates[key] = dumps(gap_at(self.batch, int(rep), j).to_record())
             block.add(self.layout[0]["gaps"] + j, local[state == s], ([self.gap_templates[key]], []), True)
 
     def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:
-        if k not in self.caveat_templates:
-            values = _TemplateValues()
-            rep = int(block.rows[local[0]])
-            self.caveat_templates[k] = _template(dumps(caveat_at(self.batch, rep, k, values).to_record()), values)
-        block.add(self.layout[0]["caveats"] + k, local, self.caveat_templates[k], True)
+        """Caveat k's notes: one shape, or, for a cap whose `unless` may go unchecked, one
+        shape per pattern of the inputs that exception lacked."""
+        rows = block.rows[local]
+        columns = [np.zeros(len(rows), dtype=bool)]
+        caveats = self.batch.ruleset.caveats
+        if k < len(caveats) and caveats[k].cap is not None and caveats[k].cap.unless is not None:
+            unchecked = self.out.unchecked[rows, k]
+            columns = [unchecked] + [self._missing(name)[rows] & unchecked
+                                     for name in condition_inputs(caveats[k].cap.unless)]
+        first, state = states(columns)
+        for s, rep in enumerate(rows[first]):
+            key = (k, tuple(bool(c[first[s]]) for c in columns))
+            if key not in self.caveat_templates:
+                values = _TemplateValues()
+                self.caveat_templates[key] = _template(dumps(caveat_at(self.batch, int(rep), k, values).to_record()),
+                                                       values)
+            block.add(self.layout[0]["caveats"] + k, local[state == s], self.caveat_templates[key], True)
+
+    def _missing(self, name: str) -> np.ndarray:
+        """Each row's missing cell of an input (all missing when the column is absent), found once."""
+        if name not in self.missing:
+            measured = self.batch.measured
+            self.missing[name] = (measured[name].isna().to_numpy() if name in measured.columns
+                                  else np.ones(len(measured), dtype=bool))
+        return self.missing[name]
 
     def _skeleton(self, rep: int, unrated: bool) -> list:
         """The record's own parts around its lists, once for rated and once for unrated rows."""

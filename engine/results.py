@@ -73,14 +73,20 @@ class Reason:
 
 @dataclass(frozen=True)
 class CaveatNote:
+    """A caveat raised on a sample. `unless_missing` names what its cap's `unless` lacked
+    when the cap held only because that exception could not be checked."""
+
     caveat: str
     message: str
     source: str = ""
+    unless_missing: tuple = ()
 
     def to_record(self) -> dict:
         record = {"caveat": self.caveat, "message": self.message}
         if self.source:
             record["source"] = self.source
+        if self.unless_missing:
+            record["unless_missing"] = list(self.unless_missing)
         return record
 
 
@@ -161,12 +167,16 @@ def _leaf_tests(condition) -> list:
 
 def rule_inputs(rule) -> list[str]:
     """Columns a rule reads, for saying what a not-evaluated rule lacked."""
-    names: list[str] = []
     if isinstance(rule, LadderRule):
-        names.extend(measure_needs(rule.measure))
-    else:
-        for leaf in _leaf_tests(rule.when):
-            names.extend([leaf.field] if isinstance(leaf, FieldTest) else measure_needs(leaf.measure))
+        return list(dict.fromkeys(measure_needs(rule.measure)))
+    return condition_inputs(rule.when)
+
+
+def condition_inputs(condition) -> list[str]:
+    """Columns a condition reads, in the order its tests are written."""
+    names: list[str] = []
+    for leaf in _leaf_tests(condition):
+        names.extend([leaf.field] if isinstance(leaf, FieldTest) else measure_needs(leaf.measure))
     return list(dict.fromkeys(names))
 
 
@@ -289,7 +299,11 @@ def caveat_at(batch: GradedBatch, i: int, k: int, values) -> CaveatNote:
     rs = batch.ruleset
     if k < len(rs.caveats):
         caveat = rs.caveats[k]
-        return CaveatNote(caveat.id, caveat.message, caveat.source)
+        lacking = ()
+        if batch.outcome.unchecked[i, k]:
+            needs = condition_inputs(caveat.cap.unless)
+            lacking = tuple(name for name in needs if _is_missing(batch.measured, name, i)) or tuple(needs)
+        return CaveatNote(caveat.id, caveat.message, caveat.source, lacking)
     caveat = batch.engine_caveats[k - len(rs.caveats)]
     return CaveatNote(caveat.id, values.text(caveat.message_column, i), caveat.source)
 

@@ -74,6 +74,16 @@ def test_grade_explain_history_replay(tmp_path):
     assert run_cli("replay", "--db", db, "--since", "May 2026").code == 2
 
 
+def test_explain_from_the_ledger_keeps_what_a_cap_exception_lacked(tmp_path):
+    samples = tmp_path / "ester.csv"
+    samples.write_text("sample_id,unit_id,class,lubricant,oxidation\nE-1,AC-9,screw-compressor,COMP-46-PE,215\n")
+    db = tmp_path / "ledger.db"
+    assert run_cli("grade", samples, "--rules", ROOT / "rules" / "screw-compressor.yaml", "--db", db).code == 0
+    story = run_cli("explain", "E-1", "--db", db)
+    assert story.code == 0 and "could not be checked: it lacks an." in " ".join(story.out.split())
+    assert run_cli("replay", "--db", db).code == 0
+
+
 def test_explain_needs_a_ledger_or_samples_and_rules(tmp_path):
     result = run_cli("explain", "T-01")
     assert result.code == 2 and "give --db PATH" in result.err

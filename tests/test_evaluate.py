@@ -109,6 +109,22 @@ def test_cap_applies_to_rules_reading_capped_measures_only(draft):
     assert reasons["acid-rise"].capped_from is None
 
 
+def test_a_cap_whose_exception_cannot_be_checked_holds_and_says_what_it_lacked(draft):
+    # The draft's cap lifts when an_rise is above 0.2. Row b has no acid number, so the cap
+    # holds (a missing value is never a pass) and its note names the missing input; rows a
+    # and c have one, so the exception was checked either way.
+    graded = _grade_csv(draft, "sample_id,class,lubricant,an,oxidation,oil_hours\n"
+                               "a,screw-compressor,COMP-68-DE,0.15,210,5000\n"
+                               "b,screw-compressor,COMP-68-DE,,210,5000\n"
+                               "c,screw-compressor,COMP-68-DE,0.45,210,5000\n")
+    assert graded.outcome.unchecked[:, 0].tolist() == [False, True, False]
+    assert graded.outcome.capping[:, 0].tolist() == [True, True, False]
+    notes = [result.caveats[0] for result in graded.results()]
+    assert [n.unless_missing for n in notes] == [(), ("an",), ()]
+    assert notes[1].to_record()["unless_missing"] == ["an"] and "unless_missing" not in notes[0].to_record()
+    assert [r.grade for r in graded.results()] == ["watch", "watch", "alert"]
+
+
 def test_row_base_stock_wins_over_the_lubricants_table(draft):
     graded = _grade_csv(draft, "sample_id,class,lubricant,base_stock,oxidation,oil_hours\n"
                                "x,steam-turbine,TURB-46-M,ester,30,5000\n")

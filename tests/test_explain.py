@@ -21,3 +21,12 @@ def test_explain_tells_the_whole_story():
     assert rs.sha256 in text
     assert "Notice: Screening guidance only." in text
     assert "Confirm a severe finding by resampling" in text
+
+
+def test_explain_says_when_a_cap_held_because_its_exception_went_unchecked():
+    import io
+    rs = load_ruleset(DATA / "rulesets" / "draft.yaml")
+    csv = "sample_id,class,lubricant,oxidation,oil_hours\nx,screw-compressor,COMP-68-DE,210,5000\n"
+    result = grade(read_samples(io.StringIO(csv)), rs).result(0)
+    text = " ".join(explain_lines(result, rs.grades))
+    assert "could not be checked: it lacks an." in " ".join(text.split())

@@ -72,3 +72,18 @@ def test_the_ledger_form_leaves_out_the_shared_tail_and_nothing_else():
     assert [head + tail for head in heads] == full
     with pytest.raises(RuntimeError, match="does not end with the tail"):
         next(jsonl_lines(graded, drop_tail=', "engine": "another"}'))
+
+
+def test_bulk_writer_spells_unchecked_cap_exceptions_like_the_records():
+    # Ester rows with and without an acid number, and one without the new-oil value the
+    # acid rise needs: each pattern of what the cap's exception lacked is its own shape.
+    csv = ("sample_id,class,lubricant,an,new_an,oxidation\n"
+           "e1,screw-compressor,COMP-46-PE,0.3,,215\ne2,screw-compressor,COMP-46-PE,,,215\n"
+           "e3,screw-compressor,COMP-46-PE,,0.1,215\ne4,screw-compressor,COMP-46-M,,,30\n")
+    graded = grade(read_samples(io.StringIO(csv)), load_ruleset(ROOT / "rules" / "screw-compressor.yaml"))
+    out = io.StringIO()
+    write_jsonl(graded, out)
+    lines = out.getvalue().splitlines()
+    assert lines == [dumps(r.to_record()) for r in graded.results()]
+    missing = [[c.get("unless_missing") for c in json.loads(line)["caveats"]] for line in lines]
+    assert missing == [[None], [["an"]], [["an"]], []]
