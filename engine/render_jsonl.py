@@ -216,10 +216,8 @@ class _Writer:
         self.batch, self.drop_tail = batch, drop_tail
         self.literals = _Literals(batch.measured)
         self.out = batch.outcome
-        self.reason_templates: dict = {}
-        self.gap_templates: dict = {}
+        self.templates: dict = {}  # (kind, index, state...) -> template of a reason, gap or caveat
         self.missing: dict = {}  # each input's missing cells, found once for all rules and blocks
-        self.caveat_templates: dict = {}
         self.skeletons: dict = {}
         rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
         self.list_sizes = {"reasons": top * rules, "caveats": self.out.caveats.shape[1], "gaps": rules}
@@ -244,33 +242,33 @@ class _Writer:
                 columns.append(truth[at].astype(np.int8) + 2 * known[at].astype(np.int8))
         return columns
 
+    def _by_state(self, block: _Block, local: np.ndarray, key: tuple, columns: list, piece, slot) -> None:
+        """Add list items for these rows, grouped by state (the int columns): each state's
+        template is built once, from its first row, by `piece(row, values)`, a record class;
+        `slot(state)` says where in the line it goes."""
+        rows = block.rows[local]
+        first, state = states(columns)
+        for s, rep in enumerate(rows[first]):
+            found = tuple(int(c[first[s]]) for c in columns)
+            if key + found not in self.templates:
+                values = _TemplateValues()
+                self.templates[key + found] = _template(dumps(piece(int(rep), values).to_record()), values)
+            block.add(slot(found), local[state == s], self.templates[key + found], True)
+
     def _reasons(self, block: _Block, j: int, local: np.ndarray) -> None:
         """Slot j's reasons, listed highest grade first, then in rule order."""
-        rows = block.rows[local]
-        columns = self._reason_state(j, rows)
-        first, state = states(columns)
-        top, base = len(self.batch.ruleset.grades) - 1, self.layout[0]["reasons"]
-        for s, rep in enumerate(rows[first]):
-            key = (j, tuple(int(c[first[s]]) for c in columns))
-            if key not in self.reason_templates:
-                values = _TemplateValues()
-                self.reason_templates[key] = _template(dumps(reason_at(self.batch, int(rep), j, values).to_record()),
-                                                       values)
-            level = key[1][0]
-            block.add(base + (top - level) * len(self.out.slots) + j, local[state == s], self.reason_templates[key], True)
+        top, base, rules = len(self.batch.ruleset.grades) - 1, self.layout[0]["reasons"], len(self.out.slots)
+        self._by_state(block, local, ("reason", j), self._reason_state(j, block.rows[local]),
+                       lambda rep, values: reason_at(self.batch, rep, j, values),
+                       lambda found: base + (top - found[0]) * rules + j)  # found[0]: the final level
 
     def _gaps(self, block: _Block, j: int, local: np.ndarray) -> None:
         measured = self.batch.measured
+        names = [n for n in rule_inputs(self.out.slots[j].rule) if n in measured.columns]
         rows = block.rows[local]
-        rule = self.out.slots[j].rule
-        names = [n for n in rule_inputs(rule) if n in measured.columns]
         columns = [self._missing(n)[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
-        first, state = states(columns)
-        for s, rep in enumerate(rows[first]):
-            key = (j, tuple(bool(self._missing(n)[rep]) for n in names))
-            if key not in self.gap_templates:
-                self.gap_templates[key] = dumps(gap_at(self.batch, int(rep), j).to_record())
-            block.add(self.layout[0]["gaps"] + j, local[state == s], ([self.gap_templates[key]], []), True)
+        self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j),
+                       lambda found: self.layout[0]["gaps"] + j)
 
     def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:
         """Caveat k's notes: one shape, or, for a cap whose `unless` may go unchecked, one
@@ -282,14 +280,8 @@ class _Writer:
             unchecked = self.out.unchecked[rows, k]
             columns = [unchecked] + [self._missing(name)[rows] & unchecked
                                      for name in condition_inputs(caveats[k].cap.unless)]
-        first, state = states(columns)
-        for s, rep in enumerate(rows[first]):
-            key = (k, tuple(bool(c[first[s]]) for c in columns))
-            if key not in self.caveat_templates:
-                values = _TemplateValues()
-                self.caveat_templates[key] = _template(dumps(caveat_at(self.batch, int(rep), k, values).to_record()),
-                                                       values)
-            block.add(self.layout[0]["caveats"] + k, local[state == s], self.caveat_templates[key], True)
+        self._by_state(block, local, ("caveat", k), columns, lambda rep, values: caveat_at(self.batch, rep, k, values),
+                       lambda found: self.layout[0]["caveats"] + k)
 
     def _missing(self, name: str) -> np.ndarray:
         """Each row's missing cell of an input (all missing when the column is absent), found once."""
