@@ -136,13 +136,13 @@ class _Block:
 
     def __init__(self, literals: _Literals, rows: np.ndarray):
         self.literals, self.rows = literals, rows
-        self.cache: dict = {}
+        self.raw: dict = {}  # per-row texts the records' own fields take (grade, level, ...)
         self.groups: list[_Group] = []
 
     def literal(self, kind: str, name: str, local: np.ndarray) -> np.ndarray:
         """Literals of these rows only: many columns are read by a few rows' reasons."""
         if kind == "raw":
-            return self.cache[name][local]
+            return self.raw[name][local]
         return self.literals.get(kind, name, self.rows[local])
 
     def add(self, slot: int, local: np.ndarray, template: tuple[list[str], list], listed: bool = False) -> None:
@@ -221,7 +221,8 @@ class _Writer:
         self.skeletons: dict = {}
         rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
         self.list_sizes = {"reasons": top * rules, "caveats": self.out.caveats.shape[1], "gaps": rules}
-        self.layout: tuple | None = None  # (list name -> first slot, part p -> slot, slot count)
+        self.list_slots: dict = {}  # list name -> its items' slots in the line, set with the first skeleton
+        self.part_slots: list = []  # skeleton part p -> its slot
 
     def _reason_state(self, j: int, rows: np.ndarray) -> list[np.ndarray]:
         """What decides the shape of slot j's reason: final and raw level, capping caveat, clauses."""
@@ -257,7 +258,7 @@ class _Writer:
 
     def _reasons(self, block: _Block, j: int, local: np.ndarray) -> None:
         """Slot j's reasons, listed highest grade first, then in rule order."""
-        top, base, rules = len(self.batch.ruleset.grades) - 1, self.layout[0]["reasons"], len(self.out.slots)
+        top, base, rules = len(self.batch.ruleset.grades) - 1, self.list_slots["reasons"].start, len(self.out.slots)
         self._by_state(block, local, ("reason", j), self._reason_state(j, block.rows[local]),
                        lambda rep, values: reason_at(self.batch, rep, j, values),
                        lambda found: base + (top - found[0]) * rules + j)  # found[0]: the final level
@@ -268,7 +269,7 @@ class _Writer:
         rows = block.rows[local]
         columns = [self._missing(n)[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
         self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j),
-                       lambda found: self.layout[0]["gaps"] + j)
+                       lambda found: self.list_slots["gaps"].start + j)
 
     def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:
         """Caveat k's notes: one shape, or, for a cap whose `unless` may go unchecked, one
@@ -281,7 +282,7 @@ class _Writer:
             columns = [unchecked] + [self._missing(name)[rows] & unchecked
                                      for name in condition_inputs(caveats[k].cap.unless)]
         self._by_state(block, local, ("caveat", k), columns, lambda rep, values: caveat_at(self.batch, rep, k, values),
-                       lambda found: self.layout[0]["caveats"] + k)
+                       lambda found: self.list_slots["caveats"].start + k)
 
     def _missing(self, name: str) -> np.ndarray:
         """Each row's missing cell of an input (all missing when the column is absent), found once."""
@@ -302,22 +303,21 @@ class _Writer:
                              not_evaluated=pieces["gaps"],
                              unrated_because=values.slot("raw", "unrated_because") if unrated else None)
             parts, names = _split_at_lists(_template(dumps(result.to_record()), values), self.drop_tail)
-            if self.layout is None:
+            if not self.list_slots:
                 self._lay_out(names)
-            elif names != self.layout[3]:
+            elif names != list(self.list_slots):
                 raise RuntimeError("rated and unrated records list their reasons, caveats and gaps in another order")
             self.skeletons[unrated] = parts
         return self.skeletons[unrated]
 
     def _lay_out(self, names: list[str]) -> None:
         """Slots of a line, in order: part 0, the first list's items, part 1, ..., the last part."""
-        starts, parts, slot = {}, [], 0
+        slot = 0
         for name in names:
-            parts.append(slot)
-            starts[name] = slot + 1
-            slot += 1 + self.list_sizes[name]
-        parts.append(slot)
-        self.layout = (starts, parts, slot + 1, names)
+            self.part_slots.append(slot)
+            self.list_slots[name] = range(slot + 1, slot + 1 + self.list_sizes[name])
+            slot = self.list_slots[name].stop
+        self.part_slots.append(slot)
 
     def block_text(self, rows: np.ndarray) -> str:
         out, rs = self.out, self.batch.ruleset
@@ -325,17 +325,16 @@ class _Writer:
         level = out.level[rows]
         unrated = level < 0
         names = list(rs.grades) + [UNRATED]
-        block.cache["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
-        block.cache["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"],
-                                               dtype=object)[level]
-        block.cache["unrated_because"] = np.full(len(rows), "", dtype=object)
+        block.raw["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
+        block.raw["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"], dtype=object)[level]
+        block.raw["unrated_because"] = np.full(len(rows), "", dtype=object)
         if unrated.any():
-            block.cache["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
+            block.raw["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
         for is_unrated in (False, True):
             members = np.flatnonzero(unrated == is_unrated)
             if len(members):
                 parts = self._skeleton(int(rows[members[0]]), is_unrated)
-                for slot, part in zip(self.layout[1], parts):
+                for slot, part in zip(self.part_slots, parts):
                     block.add(slot, members, part)
 
         final = out.final[rows]
@@ -350,9 +349,7 @@ class _Writer:
             noted = np.flatnonzero(out.caveats[rows, k])
             if len(noted):
                 self._caveats(block, k, noted)
-        starts, _, _, list_names = self.layout
-        lists = [range(starts[name], starts[name] + self.list_sizes[name]) for name in list_names]
-        return block.text(lists)
+        return block.text(list(self.list_slots.values()))
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)
