@@ -168,7 +168,7 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
             raise InputError(f"{name}: cannot read the file: {exc}") from None
     else:
         name = name or "<stdin>"
-        text = source.read()
+        text = source.read().removeprefix("\ufeff")  # a byte order mark, as a file's utf-8-sig reading drops it
     fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
     columns = columns or ColumnMap()
     wanted = set(NUMERIC_COLUMNS) | set(numeric)

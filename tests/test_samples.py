@@ -110,3 +110,8 @@ def test_row_numbers_skip_unreadable_lines():
     text = "sample_id,class,an\nR-1,pump,0.1\nR-2,pump,0.1,extra\nR-3,pump,0.3\n"
     batch = read_samples(io.StringIO(text), "s.csv")
     assert list(batch.frame.index) == [1, 3] and [r.row for r in batch.rejects] == [2]
+
+
+def test_a_byte_order_mark_on_a_text_stream_is_dropped_too():
+    batch = read_samples(io.StringIO("\ufeffsample_id,class,an\nB-2,pump,0.3\n"), "stdin.csv")
+    assert list(batch.frame.columns[:2]) == ["sample_id", "class"] and batch.frame["sample_id"].tolist() == ["B-2"]
