@@ -107,7 +107,8 @@ def _read_csv(text: str, numeric_columns: set, data: bytes | None = None) -> tup
 
     Given the file's bytes too, pandas parses those (a third faster than re-encoding text).
     """
-    header = next(csv.reader(io.StringIO(text[: text.find("\n") + 1 or len(text)])), [])
+    ends = [at for at in (text.find("\n"), text.find("\r")) if at >= 0]  # \n, \r\n or a lone \r
+    header = next(csv.reader([text[: min(ends, default=len(text))]]), [])
     names = [h.strip() for h in header]
     text_columns = {raw: object for raw, name in zip(header, names) if name not in numeric_columns}
     blanks = {raw: [""] for raw, name in zip(header, names) if name in numeric_columns}

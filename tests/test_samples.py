@@ -115,3 +115,13 @@ def test_row_numbers_skip_unreadable_lines():
 def test_a_byte_order_mark_on_a_text_stream_is_dropped_too():
     batch = read_samples(io.StringIO("\ufeffsample_id,class,an\nB-2,pump,0.3\n"), "stdin.csv")
     assert list(batch.frame.columns[:2]) == ["sample_id", "class"] and batch.frame["sample_id"].tolist() == ["B-2"]
+
+
+@pytest.mark.parametrize("newline", ["\n", "\r\n", "\r"], ids=["lf", "crlf", "cr"])
+def test_every_line_ending_reads_the_same(tmp_path, newline):
+    # RFC 4180 writes CRLF; LF and old-style lone CR files turn up from lab systems too.
+    path = tmp_path / "ends.csv"
+    path.write_bytes(newline.join(["sample_id,class,an", "N-1,pump,0.2", "N-2,pump,0.3", ""]).encode())
+    batch = read_samples(path)
+    assert list(batch.frame.columns) == ["sample_id", "class", "an"]
+    assert batch.frame["an"].tolist() == [0.2, 0.3] and batch.rows_read == 2 and not batch.rejects
