@@ -22,17 +22,17 @@ import numpy as np
 import pandas as pd
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE))
-sys.path.insert(0, str(HERE.parent))
+sys.path.insert(0, str(HERE.parent / "tests" / "support"))  # the per-row evaluator
 
 from row_evaluator import grade_row  # noqa: E402
 
-from engine.compile import load_ruleset  # noqa: E402
-from engine.evaluate import evaluate  # noqa: E402
-from engine.measures import derive_measures  # noqa: E402
-from engine.render_jsonl import jsonl_lines  # noqa: E402
-from engine.results import GradedBatch  # noqa: E402
-from engine.samples import read_samples  # noqa: E402
+from sumpwise.ruleset.compiler import load_ruleset  # noqa: E402
+from sumpwise.evaluation.evaluator import evaluate  # noqa: E402
+from sumpwise.derive.row_measures import derive_measures
+ # noqa: E402
+from sumpwise.render.jsonl import jsonl_lines  # noqa: E402
+from sumpwise.results.records import GradedBatch  # noqa: E402
+from sumpwise.intake.samples import read_samples  # noqa: E402
 
 
 def peak_mb() -> float:

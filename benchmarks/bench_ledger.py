@@ -12,7 +12,6 @@ from __future__ import annotations
 import argparse
 import resource
 import sqlite3
-import sys
 import tempfile
 import time
 from pathlib import Path
@@ -21,14 +20,14 @@ import numpy as np
 import pandas as pd
 
 ROOT = Path(__file__).resolve().parent.parent
-sys.path.insert(0, str(ROOT))
 
-from engine.audit import explain_from_ledger, unit_history  # noqa: E402
-from engine.compile import load_ruleset  # noqa: E402
-from engine.ledger import begin, grade_into_ledger, open_ledger  # noqa: E402
-from engine.measures import TREND_BASES, derive_measures  # noqa: E402
-from engine.samples import ColumnMap, validate_samples  # noqa: E402
-from engine.trends import add_trend_measures  # noqa: E402
+from sumpwise.ledger.audit import explain_from_ledger, unit_history  # noqa: E402
+from sumpwise.ruleset.compiler import load_ruleset  # noqa: E402
+from sumpwise.ledger.store import begin, grade_into_ledger, open_ledger  # noqa: E402
+from sumpwise.derive.row_measures import derive_measures
+from sumpwise.vocabulary.measures import TREND_BASES # noqa: E402
+from sumpwise.intake.samples import ColumnMap, validate_samples  # noqa: E402
+from sumpwise.derive.trends import add_trend_measures  # noqa: E402
 
 RULES = ROOT / "tests" / "data" / "ledger" / "trend-rules.yaml"
 

@@ -10,6 +10,7 @@ spectra is printed beside it, since that is what a caller holding rows pays.
 from __future__ import annotations
 
 import argparse
+import sys
 import os
 import tempfile
 import time
@@ -17,10 +18,11 @@ from pathlib import Path
 
 import numpy as np
 
-from engine.spectra.bands import load_bands, measure_block, measure_columns, plan_bands
-from engine.spectra.batch import measure_matrix
-from engine.spectra.jcampdx import read_jcampdx, read_jcampdx_many
-from engine.spectra.synthetic import oil_spectrum, random_used_oils, wavenumber_grid, write_jcampdx
+from sumpwise.intake.spectra.bands import load_bands, measure_block, measure_columns, plan_bands
+from sumpwise.intake.spectra.batch import measure_matrix
+from sumpwise.intake.spectra.jcampdx import read_jcampdx, read_jcampdx_many
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "support"))  # synthetic spectra
+from synthetic_spectra import oil_spectrum, random_used_oils, wavenumber_grid, write_jcampdx
 
 BLOCK = 10_000
 

@@ -1,21 +1,22 @@
 """sumpwise: grade in-service lubricating oil samples against a site's YAML limits.
 
 The public API: load a rule set, read samples, grade them, read results and rejects back
-as frozen records. The command line (engine.cli) is a thin layer over these calls.
+as frozen records. The command line (sumpwise.cli) is a thin layer over these calls.
+The package's folders are its stages, in the order data flows through them:
+vocabulary, ruleset, intake, derive, evaluation, results, render, ledger, authoring, cli.
 """
 
-__version__ = "0.1.0"
-
-from .compile import load_ruleset  # noqa: E402
-from .grade import grade, grade_batch  # noqa: E402
-from .problems import InputError, InvalidFile, Problem  # noqa: E402
-from .results import GradedBatch, Reason, SampleResult  # noqa: E402
-from .samples import ColumnMap, Reject, SampleBatch, load_column_map, read_samples  # noqa: E402
-from .spectra_grading import measure_sample_spectra  # noqa: E402
-from .lint import lint_ruleset  # noqa: E402
-from .examples import check_examples  # noqa: E402
-from .compare import compare_rulesets  # noqa: E402
-from .ledger import grade_into_ledger  # noqa: E402
+from sumpwise.version import __version__
+from sumpwise.ruleset.compiler import load_ruleset
+from sumpwise.results.pipeline import grade, grade_batch
+from sumpwise.vocabulary.problems import InputError, InvalidFile, Problem
+from sumpwise.results.records import GradedBatch, Reason, SampleResult
+from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, load_column_map, read_samples
+from sumpwise.intake.sample_spectra import measure_sample_spectra
+from sumpwise.authoring.lint import lint_ruleset
+from sumpwise.authoring.examples import check_examples
+from sumpwise.authoring.compare import compare_rulesets
+from sumpwise.ledger.store import grade_into_ledger
 
 __all__ = ["__version__", "load_ruleset", "grade", "grade_batch", "read_samples", "load_column_map",
            "InvalidFile", "InputError", "Problem", "GradedBatch", "SampleResult", "Reason", "Reject",

@@ -1,5 +1,5 @@
-"""`python -m engine` runs the sumpwise command."""
+"""`python -m sumpwise` runs the sumpwise command."""
 
-from .cli import entry
+from sumpwise.cli.main import entry
 
 entry()

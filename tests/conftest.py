@@ -11,7 +11,7 @@ import pytest
 DATA = Path(__file__).parent / "data"
 ROOT = Path(__file__).parent.parent
 
-sys.path.insert(0, str(ROOT / "benchmarks"))
+sys.path.insert(0, str(Path(__file__).parent / "support"))  # the per-row oracle, synthetic spectra
 
 
 class CliRun:
@@ -20,7 +20,7 @@ class CliRun:
 
 
 def run_cli(*argv, stdin: str = "") -> CliRun:
-    from engine.cli import main
+    from sumpwise.cli.main import main
     out, err = io.StringIO(), io.StringIO()
     code = main([str(a) for a in argv], io.StringIO(stdin), out, err)
     return CliRun(code, out.getvalue(), err.getvalue())

@@ -8,7 +8,7 @@ and the independent oracle elsewhere).
 import pytest
 from conftest import ROOT
 
-from engine import grade, load_ruleset, read_samples
+from sumpwise import grade, load_ruleset, read_samples
 
 SCENARIO = ROOT / "scenarios" / "brackwater"
 

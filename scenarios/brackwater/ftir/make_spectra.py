@@ -1,6 +1,6 @@
 """Write the Brackwater Point FTIR demo: synthetic spectra and the samples that point to them.
 
-All invented: the spectra are sums of Gaussian bands (engine.spectra.synthetic), with the
+All invented: the spectra are sums of Gaussian bands (synthetic_spectra), with the
 carbonyl band area growing as the oil ages. Deterministic; run with the project's venv:
 
     .venv/bin/python scenarios/brackwater/ftir/make_spectra.py
@@ -9,9 +9,11 @@ carbonyl band area growing as the oil ages. Deterministic; run with the project'
 from __future__ import annotations
 
 import csv
+import sys
 from pathlib import Path
 
-from engine.spectra.synthetic import oil_spectrum, wavenumber_grid, write_jcampdx
+sys.path.insert(0, str(Path(__file__).resolve().parents[3] / "tests" / "support"))  # synthetic spectra
+from synthetic_spectra import oil_spectrum, wavenumber_grid, write_jcampdx
 
 HERE = Path(__file__).resolve().parent
 SPECTRA = HERE / "spectra"

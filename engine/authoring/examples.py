@@ -1,0 +1,120 @@
+"""Examples written inside a rule set: a sample's values and what must come of them.
+
+An example is a specification by example: `sumpwise check` grades each one's sample
+with the rule set it sits in and fails, with a readable difference, when the grade,
+the rules that fire, the rules that stay quiet or the caveats are not as written.
+A sample is read like a row of a samples file: canonical units (water ppm, FTIR
+abs/cm), whatever the rule set's `units:` says about its limits.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import pandas as pd
+
+from sumpwise.results.pipeline import grade
+from sumpwise.vocabulary.problems import InputError
+from sumpwise.results.records import UNRATED, SampleResult
+from sumpwise.ruleset.model import Example, RuleSet
+
+
+@dataclass(frozen=True)
+class ExampleFailure:
+    """An example that does not hold: where it is written, what differs, what happened instead."""
+
+    name: str
+    file: str
+    line: int
+    column: int
+    differences: tuple  # one sentence each
+    actual: str
+
+    def render(self) -> str:
+        lines = [f"{self.file}:{self.line}:{self.column}: error: example '{self.name}' does not hold"]
+        lines += [f"    - {difference}" for difference in self.differences]
+        lines.append(f"    actual: {self.actual}")
+        return "\n".join(lines)
+
+
+def check_examples(ruleset: RuleSet) -> tuple[ExampleFailure, ...]:
+    """Grade every example of the rule set; the ones that do not hold, in the order written."""
+    return tuple(failure for example in ruleset.examples
+                 if (failure := check_example(ruleset, example)) is not None)
+
+
+def check_example(ruleset: RuleSet, example: Example) -> ExampleFailure | None:
+    sample = {"sample_id": f"example: {example.name}"} | dict(example.sample)
+    try:
+        graded = grade(pd.DataFrame([sample]), ruleset)
+    except InputError as exc:
+        reason = str(exc).replace("<DataFrame>: ", "", 1)
+        return _failure(example, (f"the sample cannot be read: {reason}",), "nothing was graded")
+    if graded.rejects:
+        reasons = tuple(f"the sample cannot be read: {r.field}: {r.reason}" for r in graded.rejects)
+        return _failure(example, reasons, "the sample was rejected, nothing was graded")
+    result = graded.result(0)
+    differences = _differences(ruleset, example, result)
+    return _failure(example, differences, describe(result)) if differences else None
+
+
+def _failure(example: Example, differences: tuple, actual: str) -> ExampleFailure:
+    origin = example.origin
+    return ExampleFailure(example.name, origin.file, origin.line, origin.column, tuple(differences), actual)
+
+
+def _differences(ruleset: RuleSet, example: Example, result: SampleResult) -> tuple:
+    expect = example.expect
+    fired = {reason.rule: reason for reason in result.reasons}
+    lacking = {gap.rule: gap.missing for gap in result.not_evaluated}
+    known_rules = {rule.id for rule in ruleset.rules_for(result.class_name or "")}
+    differences = []
+    wanted = expect.get("grade")
+    if wanted is not None and wanted != result.grade:
+        why = f" ({result.unrated_because})" if result.grade == UNRATED else ""
+        differences.append(f"grade: expected {wanted}, got {result.grade}{why}")
+    for rule in expect.get("fires", []):
+        if rule not in known_rules:
+            differences.append(_unknown_rule(rule, result, "fires"))
+        elif rule in lacking:
+            differences.append(f"fires: expected {rule} to fire, but it could not be evaluated "
+                               f"(missing {', '.join(lacking[rule])})")
+        elif rule not in fired:
+            differences.append(f"fires: expected {rule} to fire, but it stayed quiet")
+    for rule in expect.get("quiet", []):
+        if rule not in known_rules:
+            differences.append(_unknown_rule(rule, result, "quiet"))
+        elif rule in lacking:
+            differences.append(f"quiet: expected {rule} to be evaluated and stay quiet, but it could not be "
+                               f"evaluated (missing {', '.join(lacking[rule])})")
+        elif rule in fired:
+            differences.append(f"quiet: expected {rule} to stay quiet, but it fired ({_reason_text(fired[rule])})")
+    raised = {note.caveat for note in result.caveats}
+    known_caveats = {caveat.id for caveat in ruleset.caveats}
+    for caveat in expect.get("caveats", []):
+        if caveat not in known_caveats:
+            differences.append(f"caveats: the rule set has no caveat '{caveat}' "
+                               f"(it has: {', '.join(sorted(known_caveats)) or 'none'})")
+        elif caveat not in raised:
+            differences.append(f"caveats: expected caveat {caveat} on the sample, but it was not raised")
+    return tuple(differences)
+
+
+def _unknown_rule(rule: str, result: SampleResult, key: str) -> str:
+    """A misspelt id would make `quiet` hold for ever: name it as a difference instead."""
+    return f"{key}: class '{result.class_name}' has no rule '{rule}'"
+
+
+def _reason_text(reason) -> str:
+    if reason.capped_from:
+        return f"{reason.grade}, capped from {reason.capped_from} by {reason.capped_by}"
+    return reason.grade
+
+
+def describe(result: SampleResult) -> str:
+    """One line: the grade, each rule that fired and its grade, the caveats raised."""
+    fired = ", ".join(f"{r.rule} ({_reason_text(r)})" for r in result.reasons) or "none"
+    text = f"grade {result.grade}; fired: {fired}"
+    if result.caveats:
+        text += f"; caveats: {', '.join(note.caveat for note in result.caveats)}"
+    return text

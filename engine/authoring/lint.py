@@ -1,0 +1,437 @@
+"""Lint: rule sets that are valid but probably not what their author meant.
+
+Each check is small and says why it warns: a rule another rule always shadows, a
+condition or a ladder step no value can satisfy, a ladder that skips a grade, a
+grade no rule of a class can give, a class with no rule on acid number, viscosity
+or oxidation, a limit whose size disagrees with the unit it is written in, and a
+source too vague for an auditor. Warnings are Problem records (severity
+"warning") with the file and line of the rule and a one-line hint.
+
+Value sets are unions of intervals; inclusion and emptiness are decided by testing
+the finitely many points where membership can change (every interval end and a
+point between each two), which is exact for intervals.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+
+from sumpwise.vocabulary.measures import DERIVED_MEASURES, unit_key
+from sumpwise.vocabulary.problems import Problem
+from sumpwise.ruleset.model import (AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest, Not, Origin,
+                      RuleSet)
+from sumpwise.vocabulary.units import CANONICAL, FACTORS, UNIT_FAMILY
+
+INF = math.inf
+
+
+@dataclass(frozen=True)
+class Span:
+    """One interval of values; `low_in`/`high_in` say whether its ends belong to it."""
+
+    low: float
+    high: float
+    low_in: bool = False
+    high_in: bool = False
+
+    def holds(self, value: float) -> bool:
+        above_low = value > self.low or (self.low_in and value == self.low)
+        below_high = value < self.high or (self.high_in and value == self.high)
+        return above_low and below_high
+
+
+EVERYTHING = (Span(-INF, INF),)
+
+# The values a measure can take at all; samples.py rejects negative acid numbers, water
+# and hours and viscosities at or below zero, so a test outside these can never hold.
+_NOT_NEGATIVE = (Span(0.0, INF, low_in=True),)
+DOMAINS = {
+    "an": _NOT_NEGATIVE, "bn": _NOT_NEGATIVE, "water": _NOT_NEGATIVE, "oil_hours": _NOT_NEGATIVE,
+    "rpvot": _NOT_NEGATIVE, "bn_retained_pct": _NOT_NEGATIVE, "rpvot_retained_pct": _NOT_NEGATIVE,
+    "kv40": (Span(0.0, INF),), "kv100": (Span(0.0, INF),),
+    # (used - new) / new x 100 with both viscosities above zero lies above -100 %.
+    "kv40_change_pct": (Span(-100.0, INF),), "kv100_change_pct": (Span(-100.0, INF),),
+}
+
+# A class's rules should watch the three signs of oil ageing, each through one of these.
+COVERAGE = {
+    "acid number": ("an", "an_rise", "an_rise_per_1000h"),
+    "viscosity": ("kv40", "kv100", "kv40_change_pct", "kv100_change_pct", "vi"),
+    "oxidation": ("oxidation", "oxidation_rise", "oxidation_rise_per_1000h", "rpvot", "rpvot_retained_pct"),
+}
+
+
+def region(test: str, limit) -> tuple:
+    """The values for which `value <test> limit` holds (evaluate.TESTS, as intervals)."""
+    if test == "above":
+        return (Span(limit, INF),)
+    if test == "below":
+        return (Span(-INF, limit),)
+    if test == "between":
+        return (Span(limit[0], limit[1], True, True),)
+    low, high = limit if isinstance(limit, tuple) else (-limit, limit)
+    if low > high:  # |value| > a negative number: every value
+        return EVERYTHING
+    return Span(-INF, low), Span(high, INF)
+
+
+def _inside(spans: tuple, value: float) -> bool:
+    return any(span.holds(value) for span in spans)
+
+
+def _points(*regions: tuple) -> list[float]:
+    ends = sorted({end for spans in regions for span in spans for end in (span.low, span.high) if math.isfinite(end)})
+    if not ends:
+        return [0.0]
+    between = [(a + b) / 2.0 for a, b in zip(ends, ends[1:])]
+    return [ends[0] - 1.0, *ends, *between, ends[-1] + 1.0]
+
+
+def can_hold(*regions: tuple) -> bool:
+    """Some value lies in every one of the regions."""
+    return any(all(_inside(spans, p) for spans in regions) for p in _points(*regions))
+
+
+def covered(part: tuple, whole: tuple, domain: tuple) -> bool:
+    """Every possible value (in `domain`) of `part` lies in `whole`."""
+    return all(_inside(whole, p) for p in _points(part, whole, domain) if _inside(part, p) and _inside(domain, p))
+
+
+def domain_of(measure: str) -> tuple:
+    return DOMAINS.get(measure, EVERYTHING)
+
+
+# -- conditions that can never be true ------------------------------------------------------------
+
+def _conjuncts(condition) -> list:
+    """The parts that must all hold for the condition to hold (nested `all` flattened)."""
+    if isinstance(condition, AllOf):
+        return [leaf for part in condition.parts for leaf in _conjuncts(part)]
+    return [condition]
+
+
+def _describe(test) -> str:
+    if isinstance(test, MeasureTest):
+        limit = list(test.limit) if isinstance(test.limit, tuple) else test.limit
+        return f"{test.measure} {test.test} {_num(limit)}"
+    return f"{test.measure} missing: {str(test.missing).lower()}"
+
+
+def never_true(condition) -> str | None:
+    """Why no sample can make the condition true, or None when some sample can."""
+    if condition is None:
+        return None
+    if isinstance(condition, AnyOf):
+        reasons = [never_true(part) for part in condition.parts]
+        return "; ".join(reasons) if all(reasons) else None
+    if isinstance(condition, MeasureTest):
+        spans = region(condition.test, condition.limit)
+        if not can_hold(spans, domain_of(condition.measure)):
+            return f"{_describe(condition)}: {condition.measure} never takes such a value"
+        return None
+    parts = _conjuncts(condition)
+    if len(parts) == 1:
+        return None  # a single field, missing or `not` test: some sample can make it true
+    by_measure: dict = {}
+    for part in parts:
+        inner = never_true(part) if isinstance(part, (MeasureTest, AnyOf)) else None
+        if inner:
+            return inner
+        if isinstance(part, (MeasureTest, MissingTest)):
+            by_measure.setdefault(part.measure, []).append(part)
+    for measure, tests in by_measure.items():
+        missing = {t.missing for t in tests if isinstance(t, MissingTest)}
+        values = [t for t in tests if isinstance(t, MeasureTest)]
+        if len(missing) == 2 or (True in missing and values):
+            return f"{' and '.join(_describe(t) for t in tests)} under `all`: a value cannot be both"
+        spans = [region(t.test, t.limit) for t in values]
+        if len(values) > 1 and not can_hold(*spans, domain_of(measure)):
+            return f"{' and '.join(_describe(t) for t in values)} under `all`: no value satisfies them all"
+    by_field: dict = {}
+    for part in parts:
+        if isinstance(part, FieldTest):
+            by_field.setdefault(part.field, []).append({v.strip().casefold() for v in part.values})
+    for name, value_sets in by_field.items():
+        if len(value_sets) > 1 and not set.intersection(*value_sets):
+            return f"{name} must take values from lists that share none, under `all`"
+    return None
+
+
+# -- what a rule gives, for shadowing -------------------------------------------------------------
+
+@dataclass(frozen=True)
+class _Gives:
+    """A rule reading one measure: the region of values where it gives at least each level."""
+
+    measure: str
+    steps: tuple  # ((level, spans), ...)
+
+    def at_least(self, level: int) -> tuple:
+        return tuple(span for step_level, spans in self.steps if step_level >= level for span in spans)
+
+
+def _single_measure(rule) -> _Gives | None:
+    if isinstance(rule, LadderRule):
+        return _Gives(rule.measure, tuple((level, region(rule.test, limit)) for level, limit in rule.steps))
+    if isinstance(rule.when, MeasureTest):
+        return _Gives(rule.when.measure, ((rule.level, region(rule.when.test, rule.when.limit)),))
+    return None
+
+
+def shadows(strong, weak) -> bool:
+    """Whenever `weak` gives a grade, `strong` gives that grade or higher (caps treat both alike).
+
+    `strong` reads one measure, which `weak` reads too, so a cap on it caps both and a
+    missing value silences both.
+    """
+    gives = _single_measure(strong)
+    if gives is None or strong is weak:
+        return False
+    domain = domain_of(gives.measure)
+    if isinstance(weak, LadderRule):
+        if weak.measure != gives.measure:
+            return False
+        return all(covered(region(weak.test, limit), gives.at_least(level), domain) for level, limit in weak.steps)
+    needed = [p for p in _conjuncts(weak.when) if isinstance(p, MeasureTest) and p.measure == gives.measure]
+    return any(covered(region(p.test, p.limit), gives.at_least(weak.level), domain) for p in needed)
+
+
+# -- the checks -----------------------------------------------------------------------------------
+
+def lint_ruleset(ruleset: RuleSet) -> tuple[Problem, ...]:
+    """Every warning for a compiled rule set, by file and line."""
+    found: dict = {}
+    for check in (_shadowed, _impossible, _ladders, _unreached_grades, _coverage, _units, _vague_sources):
+        for problem in check(ruleset):
+            found.setdefault(problem, None)
+    return tuple(sorted(found, key=lambda p: (p.file, p.line, p.column, p.message)))
+
+
+def _warning(origin: Origin, message: str, hint: str) -> Problem:
+    return Problem(origin.file, origin.line, origin.column, message, origin.path, severity="warning", hint=hint)
+
+
+def _where(origin: Origin) -> str:
+    return f"{origin.file}:{origin.line}"
+
+
+def _all_rules(ruleset: RuleSet) -> list:
+    seen, rules = set(), []
+    for name in ruleset.classes:
+        for rule in ruleset.rules_for(name):
+            if id(rule) not in seen:
+                seen.add(id(rule))
+                rules.append(rule)
+    return rules + [rule for rule in ruleset.rules if id(rule) not in seen]
+
+
+def _shadowed(ruleset: RuleSet):
+    for name in ruleset.classes:
+        rules = ruleset.rules_for(name)
+        for i, weak in enumerate(rules):
+            for j, strong in enumerate(rules):
+                if i == j or not shadows(strong, weak):
+                    continue
+                if j > i and shadows(weak, strong):
+                    continue  # two rules that give the same: report the later one only
+                yield _warning(
+                    weak.origin,
+                    f"in class '{name}', rule '{weak.id}' is always shadowed by rule '{strong.id}' "
+                    f"({_where(strong.origin)}): whenever it fires, '{strong.id}' gives the same grade or higher, "
+                    f"so it never changes a sample's grade",
+                    f"remove '{weak.id}', or change its limits so it gives a grade '{strong.id}' does not")
+                break
+
+
+def _impossible(ruleset: RuleSet):
+    for rule in _all_rules(ruleset):
+        if isinstance(rule, ConditionRule) and (why := never_true(rule.when)):
+            yield _warning(rule.origin, f"rule '{rule.id}' can never fire: its condition can never be true ({why})",
+                           "check the limits and the units; perhaps `any` or `between` was meant")
+    for caveat in ruleset.caveats:
+        if why := never_true(caveat.when):
+            yield _warning(caveat.origin, f"caveat '{caveat.id}' can never apply: its `when` can never be true "
+                                          f"({why})", "check the limits and the field values")
+        if caveat.cap is not None and (why := never_true(caveat.cap.unless)):
+            yield _warning(caveat.origin, f"caveat '{caveat.id}': its `unless` can never be true ({why}), so the "
+                                          f"cap is never lifted", "check the limits, or remove `unless`")
+
+
+def _ladders(ruleset: RuleSet):
+    grades = ruleset.grades
+    for rule in _all_rules(ruleset):
+        if not isinstance(rule, LadderRule):
+            continue
+        domain = domain_of(rule.measure)
+        for level, limit in rule.steps:
+            if not can_hold(region(rule.test, limit), domain):
+                yield _warning(rule.origin,
+                               f"rule '{rule.id}': no value reaches its '{grades[level]}' limit "
+                               f"({rule.measure} {rule.test} {_num(limit)}; {rule.measure} never takes such a value)",
+                               f"give '{grades[level]}' a limit {rule.measure} can cross")
+        levels = [level for level, _ in rule.steps]
+        skipped = [grades[level] for level in range(min(levels), max(levels)) if level not in levels]
+        if skipped:
+            yield _warning(rule.origin,
+                           f"rule '{rule.id}' has a gap in its ladder: limits for "
+                           f"{', '.join(grades[level] for level in levels)} but none for {', '.join(skipped)}",
+                           f"add a limit for {', '.join(skipped)} between its neighbours, or say in `source` why "
+                           f"the step is skipped")
+
+
+def _reachable_levels(rule) -> set:
+    if isinstance(rule, LadderRule):
+        domain = domain_of(rule.measure)
+        return {level for level, limit in rule.steps if can_hold(region(rule.test, limit), domain)}
+    return set() if never_true(rule.when) else {rule.level}
+
+
+def _unreached_grades(ruleset: RuleSet):
+    for name, origin in _class_origins(ruleset):
+        reached = set().union(*(_reachable_levels(rule) for rule in ruleset.rules_for(name)))
+        missing = [grade for level, grade in enumerate(ruleset.grades) if level > 0 and level not in reached]
+        if missing and reached:
+            yield _warning(origin, f"no rule of class '{name}' can give {', '.join(missing)}: "
+                                   f"those grades of the ladder are never reached for this class",
+                           f"give a rule a limit for {missing[-1]}, or accept that the class tops out below it")
+
+
+def _class_origins(ruleset: RuleSet):
+    for name in ruleset.classes:
+        origin = ruleset.class_origins.get(name)
+        if origin is None:
+            rules = ruleset.rules_for(name)
+            origin = rules[0].origin if rules else Origin(ruleset.files[-1], 0, 0, f"$.classes.{name}")
+        yield name, origin
+
+
+def _coverage(ruleset: RuleSet):
+    for name, origin in _class_origins(ruleset):
+        read = set().union(*(rule.reads for rule in ruleset.rules_for(name)))
+        for sign, measures in COVERAGE.items():
+            if not read & set(measures):
+                yield _warning(origin, f"class '{name}' has no rule on {sign} (none of its rules reads "
+                                       f"{', '.join(measures)})",
+                               f"add a rule on {sign}, e.g. a ladder on {measures[1]}")
+
+
+# -- units ----------------------------------------------------------------------------------------
+
+def _written(ruleset: RuleSet, origin: Origin, measure: str, value: float) -> tuple[float, str]:
+    """A canonical limit as its file wrote it, with that file's unit for the measure."""
+    key = unit_key(measure)
+    family = UNIT_FAMILY.get(key) if key else None
+    if family is None:
+        return value, ""
+    unit = ruleset.file_units.get(origin.file, {}).get(key, CANONICAL[family])
+    return value / FACTORS[family][unit], unit
+
+
+def unit_trouble(measure: str, canonical: float) -> str | None:
+    """Why a limit of this size (canonical units) looks written in the wrong unit, if it does."""
+    key = unit_key(measure)
+    if measure == "water":
+        if canonical > 1_000_000:
+            return "water cannot exceed 100 % (1 000 000 ppm)"
+        if 0 < canonical < 1:
+            return "below 1 ppm, smaller than any Karl Fischer result"
+    if UNIT_FAMILY.get(key) == "absorbance" and measure in (key, "oxidation_rise") and abs(canonical) > 500:
+        return ("above 500 abs/cm, which is 5 absorbance units through a 0.1 mm cell: 0.001 % of the light "
+                "through, beyond any FTIR reading")
+    if measure in ("kv40_change_pct", "kv100_change_pct") and abs(canonical) > 100:
+        return "a change of more than 100 % means the viscosity doubled; a viscosity in mm2/s written here?"
+    if measure in ("bn_retained_pct", "rpvot_retained_pct") and 0 < canonical <= 1:
+        return "this measure is a percent of new (50 means half), not a fraction"
+    return None
+
+
+def _limits(rule) -> list[tuple[str, float]]:
+    if isinstance(rule, LadderRule):
+        return [(rule.measure, end) for _, limit in rule.steps for end in _ends(limit)]
+    return _condition_limits(rule.when)
+
+
+def _condition_limits(condition) -> list[tuple[str, float]]:
+    if isinstance(condition, MeasureTest):
+        return [(condition.measure, end) for end in _ends(condition.limit)]
+    if isinstance(condition, (AllOf, AnyOf)):
+        return [pair for part in condition.parts for pair in _condition_limits(part)]
+    if isinstance(condition, Not):
+        return _condition_limits(condition.part)
+    return []
+
+
+def _ends(limit) -> tuple:
+    return limit if isinstance(limit, tuple) else (limit,)
+
+
+def _units(ruleset: RuleSet):
+    owners = [(rule, "rule", _limits(rule)) for rule in _all_rules(ruleset)]
+    for caveat in ruleset.caveats:
+        limits = _condition_limits(caveat.when)
+        if caveat.cap is not None:
+            limits += _condition_limits(caveat.cap.unless)
+        owners.append((caveat, "caveat", limits))
+    for owner, kind, limits in owners:
+        troubled: dict = {}
+        for measure, limit in limits:
+            why = unit_trouble(measure, limit)
+            if why:
+                troubled.setdefault((measure, why), []).append(_written(ruleset, owner.origin, measure, limit))
+        for (measure, why), written in troubled.items():
+            unit = written[0][1] or _unit_of(measure)
+            values = ", ".join(_num(value) for value, _ in written)
+            key = unit_key(measure)
+            declared = (f"this file writes {key} in {unit}; " if written[0][1] else "")
+            yield _warning(owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
+                                         f"in the wrong unit: {why}",
+                           f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
+                           if declared else f"write the limit in {unit}")
+
+
+def _unit_of(measure: str) -> str:
+    derived = DERIVED_MEASURES.get(measure)
+    return derived.unit if derived else ""
+
+
+# -- sources --------------------------------------------------------------------------------------
+
+_PLACEHOLDERS = {"tbd", "tbc", "todo", "n/a", "na", "none", "unknown", "?", "-", "see manual", "see the manual",
+                 "see docs", "see documentation", "see oem", "manual", "standard", "various", "misc", "internet"}
+# Words that say what kind of source it is: a standard, a manual, the site, the trade.
+_SOURCE_WORDS = re.compile(
+    r"\b(astm|iso|din|iec|en|ip|sae|api|agma|nfpa|stle|jis|bs)\b|§|clause|table|annex|manual|manufacturer|oem|"
+    r"supplier|vendor|site|practice|rule of thumb|no source|from memory|editable default|handbook|datasheet|"
+    r"data sheet|bulletin|procedure|specification", re.IGNORECASE)
+
+
+def vague_source(source: str) -> str | None:
+    """Why a source would not tell an auditor where a limit comes from, or None when it would."""
+    text = source.strip()
+    plain = re.sub(r"[\s.,;:!]+", " ", text.lower()).strip()
+    if plain in _PLACEHOLDERS:
+        return f"'{text}' is a placeholder"
+    if len(plain.split()) < 2:
+        return f"'{text}' is a single word"
+    if not _SOURCE_WORDS.search(text):
+        return f"'{text}' names no standard, manual, site practice or common practice"
+    return None
+
+
+def _vague_sources(ruleset: RuleSet):
+    hint = ("name the standard and clause (e.g. 'ASTM D4378 §9.3'), the manual and its section, "
+            "'site practice', or 'common practice, no source'")
+    for rule in _all_rules(ruleset):
+        if why := vague_source(rule.source):
+            yield _warning(rule.origin, f"rule '{rule.id}': its source is vague: {why}", hint)
+    for caveat in ruleset.caveats:
+        if caveat.source and (why := vague_source(caveat.source)):
+            yield _warning(caveat.origin, f"caveat '{caveat.id}': its source is vague: {why}", hint)
+
+
+def _num(value) -> str:
+    if isinstance(value, list):
+        return "[" + ", ".join(_num(v) for v in value) + "]"
+    return f"{value:.6g}"

@@ -1,0 +1,338 @@
+"""The `sumpwise` command: a thin layer over the Python API.
+
+Exit codes keep findings apart from failures, so a pipeline can tell them apart:
+0 done; 1 internal fault (a bug); 2 usage error, unreadable input or invalid rule
+set; 3 findings: a sample reached the `--fail-at` grade (or `compare` saw a move).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import sys
+import traceback
+from collections import Counter
+from pathlib import Path
+
+from sumpwise.version import __version__
+from sumpwise.cli import authoring as authoring_cli
+from sumpwise.vocabulary.cautions import caution_text
+from sumpwise.ruleset.compiler import load_ruleset
+from sumpwise.render.narrative import explain_lines
+from sumpwise.results.pipeline import grade_batch
+from sumpwise.vocabulary.problems import InputError, InvalidFile
+from sumpwise.render.csv_rows import write_csv
+from sumpwise.render.jsonl import dumps, write_jsonl
+from sumpwise.render.table import write_table
+from sumpwise.intake.samples import load_column_map, read_samples
+from sumpwise.cli import spectra as spectra_command
+from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
+from sumpwise.cli import ledger as ledger_cli
+from sumpwise.cli import report as report_command
+
+OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
+
+SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater"
+
+
+class UsageError(Exception):
+    pass
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that writes to the streams it is given and raises instead of exiting."""
+
+    def __init__(self, *args, out=None, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.out = out
+
+    def _print_message(self, message, file=None):
+        if message:
+            (self.out or sys.stdout).write(message)
+
+    def exit(self, status=0, message=None):
+        if message:
+            raise UsageError(message.strip())
+        raise _Exit(status)
+
+    def error(self, message):
+        raise UsageError(f"{self.prog}: {message}")
+
+
+class _Exit(Exception):
+    def __init__(self, status):
+        self.status = status
+
+
+def _parser(stdout) -> _Parser:
+    parser = _Parser(prog="sumpwise", out=stdout,
+                     description="Grade in-service lubricating oil samples against a site's YAML limits.",
+                     epilog="Exit codes: 0 done, 1 internal fault, 2 usage or input error, 3 findings "
+                            "(--fail-at reached). Screening aid only; manufacturer limits and site "
+                            "procedures take precedence.")
+    parser.add_argument("--version", action="version", version=f"sumpwise {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    commands.required = True
+
+    check = commands.add_parser("check", help="validate rule sets (exit 0 valid, 2 invalid)", out=stdout,
+                                description="Validate rule-set files: schema, names, ladders, sources.")
+    check.add_argument("rulesets", nargs="+", metavar="RULESET")
+    check.add_argument("--strict", action="store_true", help="treat lint warnings as errors (exit 2)")
+
+    grade = commands.add_parser("grade", help="grade samples against a rule set", out=stdout,
+                                description="Grade every sample; every row read ends up graded, unrated or "
+                                            "rejected, and the counts go to standard error.")
+    grade.add_argument("samples", metavar="SAMPLES", help="CSV or JSON Lines file, or - for standard input")
+    _common_inputs(grade)
+    grade.add_argument("--format", choices=("jsonl", "csv", "table"), default="jsonl",
+                       help="output format (default jsonl)")
+    grade.add_argument("--out", metavar="PATH", help="write results here instead of standard output")
+    grade.add_argument("--rejects", metavar="PATH",
+                       help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
+    grade.add_argument("--fail-at", metavar="GRADE",
+                       help="exit 3 when any sample reaches this grade or higher")
+    ledger_cli.add_grade_arguments(grade)
+
+    explain = commands.add_parser("explain", help="tell the story of one sample's grade", out=stdout,
+                                  description="Explain one sample's grade in sentences: from a ledger "
+                                              "(--db), or by grading --samples with --rules.")
+    explain.add_argument("sample_id", metavar="SAMPLE_ID")
+    explain.add_argument("--samples", metavar="SAMPLES")
+    _common_inputs(explain, rules_required=False)
+    explain.add_argument("--db", metavar="PATH", help="explain the verdict recorded in this ledger")
+
+    demo = commands.add_parser("demo", help="grade the shipped Brackwater Point scenario", out=stdout,
+                               description="Grade the invented Brackwater Point scenario and print counts.")
+    demo.add_argument("--out", metavar="DIR", default="out", help="folder for the results (default ./out)")
+
+    spectra = commands.add_parser("spectra", help="compute FTIR measures from spectra files", out=stdout,
+                                  description="Read JCAMP-DX or CSV spectra and write band measures as CSV.")
+    spectra_command.add_arguments(spectra)
+
+    compare = commands.add_parser("compare", help="preview a rule-set change on samples (exit 3 if any moves)",
+                                  out=stdout, description="Grade the same samples under two rule sets and report "
+                                                          "which samples move between grades and why.")
+    authoring_cli.add_compare_arguments(compare)
+
+    propose = commands.add_parser("propose-limits", help="propose ladder limits from the site's own results",
+                                  out=stdout, description="Propose a ladder for one measure of one class from the "
+                                                          "site's results (ASTM D7720 approach) as a YAML snippet.")
+    authoring_cli.add_propose_arguments(propose)
+
+    report = commands.add_parser("report", help="write one self-contained HTML report of graded results",
+                                 out=stdout, description="Write one HTML file (no scripts, fonts or links) with "
+                                                         "the batch summary, units by attention, trend plots "
+                                                         "and every flagged sample's reasons.")
+    report_command.add_arguments(report)
+
+    history = commands.add_parser("history", help="a unit's samples and grades over time, from the ledger",
+                                  out=stdout, description="Show one unit's recorded samples and grades in "
+                                                          "date order (table, CSV or JSON Lines).")
+    ledger_cli.add_history_arguments(history)
+
+    replay = commands.add_parser("replay", help="re-grade the ledger's samples and report differences (exit 3)",
+                                 out=stdout, description="Re-grade every recorded sample with the rule set it "
+                                                         "was graded with; exit 3 if any result differs.")
+    ledger_cli.add_replay_arguments(replay)
+    return parser
+
+
+def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True) -> None:
+    parser.add_argument("--rules", required=rules_required, metavar="RULESET", help="the rule-set YAML file")
+    parser.add_argument("--columns", metavar="MAP", help="column map YAML: lab column names and units")
+    parser.add_argument("--input-format", choices=("csv", "jsonl"),
+                        help="format of SAMPLES (default: from its name; csv for standard input)")
+    parser.add_argument("--reference", action="append", metavar="LUBRICANT=FILE", default=[],
+                        help="new-oil reference spectrum of a lubricant: samples of it with a `spectrum` "
+                             "are read by spectral subtraction (repeatable; wins over the rule set's)")
+    parser.add_argument("--path-length", type=_positive_mm, default=0.1, metavar="MM",
+                        help="FTIR cell path length of the spectra, mm (default 0.100)")
+
+
+def _positive_mm(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a path length in mm, found {text!r}") from None
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"the path length must be above 0 mm, found {text!r}")
+    return value
+
+
+def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
+    """Run one command; streams are arguments so tests need no patching."""
+    stdin = stdin or sys.stdin
+    stdout = stdout or sys.stdout
+    stderr = stderr or sys.stderr
+    try:
+        args = _parser(stdout).parse_args(argv)
+        return _COMMANDS[args.command](args, stdin, stdout, stderr)
+    except _Exit as done:
+        return done.status
+    except UsageError as exc:
+        stderr.write(f"{exc}\n")
+        return USAGE
+    except InvalidFile as exc:
+        stderr.write(f"{exc}\n")
+        stderr.write(f"sumpwise: {len(exc.problems)} problem(s); nothing was graded\n")
+        return USAGE
+    except InputError as exc:
+        stderr.write(f"sumpwise: {exc}\n")
+        return USAGE
+    except BrokenPipeError:
+        return OK
+    except Exception as exc:  # a bug: say so plainly, and keep it apart from findings
+        stderr.write(f"sumpwise: internal error (a bug, please report it): {exc!r}\n")
+        traceback.print_exc(file=stderr)
+        return INTERNAL
+
+
+def _check(args, stdin, stdout, stderr) -> int:
+    return authoring_cli.run_check(args.rulesets, args.strict, stdout, stderr)
+
+
+def _read(args, stdin):
+    ruleset = load_ruleset(args.rules)
+    columns = load_column_map(args.columns) if args.columns else None
+    if args.samples == "-":
+        batch = read_samples(stdin, "<stdin>", columns, args.input_format or "csv", ruleset.measures)
+    else:
+        batch = read_samples(args.samples, None, columns, args.input_format, ruleset.measures)
+    batch = measure_sample_spectra(batch, ruleset, parse_references(args.reference), args.path_length)
+    return ruleset, batch
+
+
+def _write_rejects(batch, path, stderr) -> None:
+    if path is None:
+        for r in batch.rejects:
+            who = f" (sample {r.sample_id})" if r.sample_id else ""
+            stderr.write(f"{batch.source}: row {r.row}{who}: rejected: {r.field}: {r.reason}\n")
+        return
+    with open(path, "w", encoding="utf-8", newline="") as out:
+        if str(path).endswith(".csv"):
+            writer = csv.writer(out, lineterminator="\n")
+            writer.writerow(["file", "row", "sample_id", "field", "reason"])
+            for r in batch.rejects:
+                writer.writerow([batch.source, r.row, r.sample_id or "", r.field, r.reason])
+        else:
+            for r in batch.rejects:
+                out.write(dumps({"file": batch.source, "row": r.row, "sample_id": r.sample_id, "field": r.field,
+                                 "reason": r.reason}) + "\n")
+
+
+def _summary(graded) -> str:
+    counts = graded.counts()
+    by_grade = Counter(graded.grades())
+    ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(graded.ruleset.grades) + ["unrated"])
+    return (f"sumpwise: {graded.source}: read {counts['read']} row(s): {counts['graded']} graded, "
+            f"{counts['unrated']} unrated, {counts['rejected']} rejected ({ladder})\n")
+
+
+def _grade(args, stdin, stdout, stderr) -> int:
+    ruleset, batch = _read(args, stdin)
+    fail_level = None
+    if args.fail_at is not None:
+        if args.fail_at not in ruleset.grades:
+            raise UsageError(f"sumpwise grade: --fail-at {args.fail_at!r} is not on the grade ladder "
+                             f"[{', '.join(ruleset.grades)}]")
+        fail_level = ruleset.level_of(args.fail_at)
+    graded = ledger_cli.grade(args, batch, ruleset, stderr)
+    writer = {"jsonl": write_jsonl, "csv": write_csv,
+              "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
+    if args.out:
+        with open(args.out, "w", encoding="utf-8", newline="") as out:
+            writer(graded, out)
+    else:
+        writer(graded, stdout)
+    _write_rejects(graded, args.rejects, stderr)
+    stderr.write(_summary(graded))
+    if fail_level is not None and (graded.outcome.level >= fail_level).any():
+        return FINDINGS
+    return OK
+
+
+def _explain(args, stdin, stdout, stderr) -> int:
+    if args.db is not None:
+        return ledger_cli.run_explain(args, stdout)
+    if args.samples is None or args.rules is None:
+        raise UsageError("sumpwise explain: give --db PATH (a ledger), or --samples and --rules")
+    ruleset, batch = _read(args, stdin)
+    graded = grade_batch(batch, ruleset)
+    result = graded.find(args.sample_id)
+    if result is None:
+        rejected = [r for r in batch.rejects if r.sample_id == args.sample_id]
+        if rejected:
+            reasons = "; ".join(f"row {r.row}: {r.field}: {r.reason}" for r in rejected)
+            raise InputError(f"sample {args.sample_id} was rejected, not graded: {reasons}")
+        raise InputError(f"no sample '{args.sample_id}' in {batch.source}")
+    stdout.write("\n".join(explain_lines(result, ruleset.grades)) + "\n")
+    return OK
+
+
+def _demo(args, stdin, stdout, stderr) -> int:
+    samples, rules = SCENARIO / "samples.csv", SCENARIO / "site.yaml"
+    if not samples.is_file() or not rules.is_file():
+        raise InputError(f"the demo scenario is not here: {SCENARIO} (run from a source checkout)")
+    ruleset = load_ruleset(rules)
+    batch = read_samples(samples, None, None, None, ruleset.measures)
+    out_dir = Path(args.out)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    graded, ledger_path = ledger_cli.grade_demo(out_dir, batch, ruleset)
+    results_path = out_dir / "brackwater-results.jsonl"
+    with open(results_path, "w", encoding="utf-8", newline="") as out:
+        write_jsonl(graded, out)
+    rejects_path = out_dir / "brackwater-rejects.jsonl"
+    _write_rejects(batch, rejects_path, stderr)
+    report_path = out_dir / "brackwater-report.html"
+    report_command.write_report(results_path, report_path, rejects_path, rules)
+
+    grades = list(ruleset.grades) + ["unrated"]
+    table = Counter(zip(graded.measured["class"].fillna("(none)"), graded.grades()))
+    classes = sorted({c for c, _ in table})
+    width = max(len("class"), *(len(c) for c in classes))
+    stdout.write(f"Brackwater Point (invented demo site): {ruleset.title}\n")
+    stdout.write(f"rule set {ruleset.id} version {ruleset.version}, sha256 {ruleset.sha256}\n\n")
+    stdout.write(f"{'class':<{width}}  " + "  ".join(f"{g:>7}" for g in grades) + "\n")
+    for name in classes:
+        stdout.write(f"{name:<{width}}  " + "  ".join(f"{table.get((name, g), 0):>7}" for g in grades) + "\n")
+    stdout.write("\n" + _summary(graded).replace("sumpwise: ", "", 1))
+    stdout.write(f"results: {results_path}\nrejects: {rejects_path}\nreport: {report_path}\n")
+    stdout.write(f"explain one: sumpwise explain SAMPLE_ID --samples {samples} --rules {rules}\n")
+    stdout.write(f"ledger: {ledger_path} (sumpwise history ST-1 --db {ledger_path}; "
+                 f"sumpwise explain BP-0294 --db {ledger_path})\n\n")
+    stdout.write(caution_text("! ") + "\n")
+    return OK
+
+
+def _spectra(args, stdin, stdout, stderr) -> int:
+    return spectra_command.run(args, stdout, stderr)
+
+
+def _compare(args, stdin, stdout, stderr) -> int:
+    return authoring_cli.run_compare(args, stdout, stderr)
+
+
+def _propose_limits(args, stdin, stdout, stderr) -> int:
+    return authoring_cli.run_propose_limits(args, stdout, stderr)
+
+
+def _report(args, stdin, stdout, stderr) -> int:
+    return report_command.run(args, stdout, stderr)
+
+
+def _history(args, stdin, stdout, stderr) -> int:
+    return ledger_cli.run_history(args, stdout, stderr)
+
+
+def _replay(args, stdin, stdout, stderr) -> int:
+    return ledger_cli.run_replay(args, stdout, stderr)
+
+
+_COMMANDS = {"check": _check, "grade": _grade, "explain": _explain, "demo": _demo, "spectra": _spectra,
+             "compare": _compare, "propose-limits": _propose_limits, "report": _report,
+             "history": _history, "replay": _replay}
+
+
+def entry() -> None:
+    """Console-script entry point."""
+    sys.exit(main(sys.argv[1:]))

@@ -1,0 +1,81 @@
+"""`sumpwise spectra FILES_OR_DIRS... [--reference FILE] [--path-length MM] [--out FILE] [--bands FILE]`.
+
+Writes one CSV row per spectrum. Exit status:
+- 0: at least one spectrum was measured; each rejected spectrum is a row
+  with its reason in `rejection` and a line on stderr;
+- 2: nothing could be measured: no input files, an unreadable band file or
+  --reference file, a bad option value, or every spectrum rejected (the CSV
+  is still written, so the reasons are kept).
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from sumpwise.intake.spectra.bands import BandFileError, load_bands
+from sumpwise.intake.spectra.batch import expand_inputs, measure_spectra, read_spectrum
+from sumpwise.intake.spectra.spectrum import SpectrumError
+
+CAUTION = (
+    "sumpwise spectra: a screening aid, not a substitute for a qualified analyst. Manufacturer limits, "
+    "local codes and site procedures take precedence. Confirm a severe finding by resampling before "
+    "acting on critical equipment."
+)
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Declare the `spectra` subcommand's arguments on the parser the lead mounts."""
+    parser.add_argument("inputs", nargs="+", metavar="FILES_OR_DIRS",
+                        help="JCAMP-DX (.jdx .dx .jcm .jcamp) or two-column CSV spectra, or folders of them")
+    parser.add_argument("--reference", metavar="FILE",
+                        help="new-oil spectrum of the same lubricant: read every spectrum by spectral subtraction")
+    parser.add_argument("--path-length", metavar="MM", type=float, default=0.1, dest="path_length",
+                        help="cell path length in mm (default 0.100); values are normalised to 0.100 mm")
+    parser.add_argument("--out", metavar="FILE", help="write the CSV here instead of standard output")
+    parser.add_argument("--bands", metavar="FILE", help="band definitions to use instead of the packaged set")
+
+
+def run(args, stdout, stderr) -> int:
+    """Measure the spectra named in args; write CSV to --out or stdout, problems to stderr."""
+    if not args.path_length > 0:
+        print(f"sumpwise spectra: --path-length must be a positive number of mm, got {args.path_length}", file=stderr)
+        return 2
+    try:
+        bands = load_bands(args.bands)
+    except BandFileError as exc:
+        print(f"sumpwise spectra: {exc}", file=stderr)
+        return 2
+    missing = [item for item in args.inputs if not Path(item).exists()]
+    if missing:
+        print(f"sumpwise spectra: no such file or folder: {', '.join(missing)}", file=stderr)
+        return 2
+    paths = expand_inputs(args.inputs)
+    if not paths:
+        print("sumpwise spectra: no spectrum files found in " + ", ".join(args.inputs), file=stderr)
+        return 2
+    references = None
+    if args.reference:
+        try:
+            read_spectrum(args.reference)
+        except SpectrumError as exc:
+            print(f"sumpwise spectra: reference spectrum unusable: {exc}", file=stderr)
+            return 2
+        references = {str(p): Path(args.reference) for p in paths}
+    frame, rejections = measure_spectra(paths, references, args.path_length, bands)
+    for rejection in rejections:
+        print(f"rejected: {rejection.message}", file=stderr)
+    text = frame.to_csv(index=False, float_format="%.6g", lineterminator="\n")
+    if args.out:
+        try:
+            Path(args.out).write_text(text, encoding="utf-8")
+        except OSError as exc:
+            print(f"sumpwise spectra: cannot write {args.out}: {exc.strerror}", file=stderr)
+            return 2
+    else:
+        stdout.write(text)
+    measured = len(paths) - len(rejections)
+    print(f"sumpwise spectra: {measured} of {len(paths)} spectra measured, {len(rejections)} rejected "
+          f"(bands: {bands.origin})", file=stderr)
+    print(CAUTION, file=stderr)
+    return 0 if measured else 2

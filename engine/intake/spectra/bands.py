@@ -1,0 +1,346 @@
+"""Band definitions (a data file, not constants) and their vectorised measurement.
+
+Why weights: trapezoid integration of the piecewise-linear spectrum over a
+fixed region is a fixed linear combination of its points, and the integral
+of a straight baseline is exact, so a band's areas for a whole block are one
+weighted sum of grid rows; baseline minima and peak heights are reductions
+over a narrow, contiguous slab of a wavenumber-major block. No Python loop
+runs per spectrum.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+import yaml
+
+MEASURE_KINDS = ("area", "height", "point")
+DEFAULT_BANDS_RESOURCE = "ftir_bands.yaml"
+
+
+class BandFileError(ValueError):
+    """A band file that does not describe bands: names file, band and field."""
+
+
+@dataclass(frozen=True)
+class Anchor:
+    """One end of a straight baseline: a fixed abscissa, or the minimum within a window."""
+
+    at: float | None = None
+    minimum_in: tuple[float, float] | None = None
+
+    def span(self):
+        return (self.at, self.at) if self.at is not None else self.minimum_in
+
+
+@dataclass(frozen=True)
+class Band:
+    name: str
+    measure: str
+    region: tuple[float, float]
+    baseline: tuple[Anchor, ...]
+    source: str
+    status: str
+
+    def span(self):
+        """Lowest and highest wavenumber the band reads, baseline included."""
+        spans = [self.region] + [anchor.span() for anchor in self.baseline]
+        return min(s[0] for s in spans), max(s[1] for s in spans)
+
+
+@dataclass(frozen=True)
+class BandSet:
+    """The bands to measure, the ester-detection rule, and where they came from."""
+
+    bands: tuple[Band, ...]
+    ester: Band
+    ester_threshold: float
+    ester_source: str
+    origin: str
+
+    @property
+    def names(self):
+        return tuple(band.name for band in self.bands)
+
+
+def load_bands(path: Path | str | None = None) -> BandSet:
+    """Load a band file (the packaged engine/data/ftir_bands.yaml when path is None)."""
+    if path is None:
+        text = resources.files("sumpwise.intake.spectra").joinpath(DEFAULT_BANDS_RESOURCE).read_text(encoding="utf-8")
+        origin = f"engine/data/{DEFAULT_BANDS_RESOURCE}"
+    else:
+        origin = str(path)
+        try:
+            text = Path(path).read_text(encoding="utf-8")
+        except OSError as exc:
+            raise BandFileError(f"{origin}: cannot read band file: {exc.strerror}") from exc
+    try:
+        document = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        raise BandFileError(f"{origin}: not valid YAML: {exc}") from exc
+    return parse_bands(document, origin)
+
+
+def parse_bands(document, origin: str) -> BandSet:
+    if not isinstance(document, dict) or not isinstance(document.get("bands"), list) or not document["bands"]:
+        raise BandFileError(f"{origin}: expected a mapping with a non-empty 'bands' list")
+    bands = tuple(_parse_band(item, origin, f"bands[{i}]") for i, item in enumerate(document["bands"]))
+    names = [band.name for band in bands]
+    duplicates = sorted({name for name in names if names.count(name) > 1})
+    if duplicates:
+        raise BandFileError(f"{origin}: band names must be unique; repeated: {', '.join(duplicates)}")
+    ester = document.get("ester_detection")
+    if not isinstance(ester, dict):
+        raise BandFileError(f"{origin}: 'ester_detection' mapping missing")
+    ester_band = _parse_band({**ester, "name": "ester_carbonyl", "measure": "height"}, origin, "ester_detection")
+    threshold = ester.get("threshold")
+    if not isinstance(threshold, (int, float)) or isinstance(threshold, bool) or threshold <= 0:
+        raise BandFileError(f"{origin}: ester_detection.threshold: expected a positive number, got {threshold!r}")
+    return BandSet(bands, ester_band, float(threshold), str(ester.get("source", "")), origin)
+
+
+def _parse_band(item, origin, where):
+    if not isinstance(item, dict):
+        raise BandFileError(f"{origin}: {where}: expected a mapping")
+    name = item.get("name")
+    if not isinstance(name, str) or not name.isidentifier():
+        raise BandFileError(f"{origin}: {where}.name: expected an identifier such as 'oxidation', got {name!r}")
+    where = f"{where} ({name})"
+    measure = item.get("measure")
+    if measure not in MEASURE_KINDS:
+        raise BandFileError(f"{origin}: {where}.measure: expected one of {', '.join(MEASURE_KINDS)}, got {measure!r}")
+    if measure == "point":
+        at = _number(item.get("at"), origin, f"{where}.at")
+        region = (at, at)
+    else:
+        region = _window(item.get("region"), origin, f"{where}.region")
+    raw_baseline = item.get("baseline")
+    if not isinstance(raw_baseline, list) or len(raw_baseline) not in (0, 2):
+        raise BandFileError(f"{origin}: {where}.baseline: expected a list of two anchors, or [] for none")
+    if measure != "point" and not raw_baseline:
+        raise BandFileError(f"{origin}: {where}.baseline: an {measure} band needs two baseline anchors")
+    baseline = tuple(_anchor(a, origin, f"{where}.baseline[{i}]") for i, a in enumerate(raw_baseline))
+    if len(baseline) == 2 and _anchor_centre(baseline[0]) == _anchor_centre(baseline[1]):
+        raise BandFileError(f"{origin}: {where}.baseline: the two anchors must lie at different wavenumbers")
+    return Band(name, measure, region, baseline, str(item.get("source", "")), str(item.get("status", "")))
+
+
+def _anchor(item, origin, where):
+    if isinstance(item, dict) and set(item) == {"at"}:
+        return Anchor(at=_number(item["at"], origin, f"{where}.at"))
+    if isinstance(item, dict) and set(item) == {"minimum_in"}:
+        return Anchor(minimum_in=_window(item["minimum_in"], origin, f"{where}.minimum_in"))
+    raise BandFileError(f"{origin}: {where}: expected {{at: x}} or {{minimum_in: [low, high]}}, got {item!r}")
+
+
+def _anchor_centre(anchor):
+    low, high = anchor.span()
+    return (low + high) / 2
+
+
+def _number(value, origin, where):
+    if not isinstance(value, (int, float)) or isinstance(value, bool):
+        raise BandFileError(f"{origin}: {where}: expected a number of cm-1, got {value!r}")
+    return float(value)
+
+
+def _window(value, origin, where):
+    if not isinstance(value, list) or len(value) != 2:
+        raise BandFileError(f"{origin}: {where}: expected [low, high] in cm-1, got {value!r}")
+    low, high = (_number(v, origin, where) for v in value)
+    if not low < high:
+        raise BandFileError(f"{origin}: {where}: expected low < high, got [{low:g}, {high:g}]")
+    return (low, high)
+
+
+def trapezoid_weights(x: np.ndarray, low: float, high: float) -> np.ndarray:
+    """Weights w with w @ y = integral over [low, high] of the linear interpolant of (x, y).
+
+    x ascending; the ends of the window are interpolated, so the weights are
+    exact for any piecewise-linear y, including a straight baseline.
+    """
+    left, right = x[:-1], x[1:]
+    width = right - left
+    a = np.clip(low, left, right)
+    b = np.clip(high, left, right)
+    length = b - a
+    frac_a = (a - left) / width
+    frac_b = (b - left) / width
+    weights = np.zeros_like(x, dtype=float)
+    weights[:-1] += length * (2.0 - frac_a - frac_b) / 2.0
+    weights[1:] += length * (frac_a + frac_b) / 2.0
+    return weights
+
+
+@dataclass(frozen=True)
+class BandPlan:
+    """Everything about a band set that depends only on the grid.
+
+    areas: band region -> (column slice, weights on that slice);
+    points: abscissa -> (left index, fraction towards the right one);
+    windows: window -> column slice; uncovered: band name -> sentence.
+    Only the columns a band reads are touched, which is what makes a block
+    of spectra cheap: most of a spectrum is never read.
+    """
+
+    x: np.ndarray
+    bands: tuple[Band, ...]
+    areas: dict
+    points: dict
+    windows: dict
+    uncovered: dict
+
+
+def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
+    """Precompute weights and index windows for one ascending wavenumber grid."""
+    areas, points, windows, uncovered = {}, {}, {}, {}
+    for band in bands:
+        low, high = band.span()
+        if low < x[0] or high > x[-1]:
+            uncovered[band.name] = (
+                f"x range {x[0]:g}-{x[-1]:g} cm-1 does not cover band {band.name} "
+                f"({low:g}-{high:g} cm-1 with its baseline)"
+            )
+            continue
+        if band.measure == "area":
+            weights = trapezoid_weights(x, *band.region)
+            used = np.flatnonzero(weights)
+            columns = slice(int(used[0]), int(used[-1]) + 1)
+            areas[band.region] = (columns, np.ascontiguousarray(weights[columns]))
+        elif band.measure == "point":
+            points[band.region[0]] = _interpolation_point(x, band.region[0])
+        else:
+            windows[band.region] = _index_window(x, band.region, band.name)
+        for anchor in band.baseline:
+            if anchor.at is not None:
+                points[anchor.at] = _interpolation_point(x, anchor.at)
+            else:
+                windows[anchor.minimum_in] = _index_window(x, anchor.minimum_in, band.name)
+    return BandPlan(x, bands, areas, points, windows, uncovered)
+
+
+def _interpolation_point(x, at):
+    i = int(np.clip(np.searchsorted(x, at, side="right") - 1, 0, x.size - 2))
+    return i, (at - x[i]) / (x[i + 1] - x[i])
+
+
+def _index_window(x, window, name):
+    start = int(np.searchsorted(x, window[0], side="left"))
+    stop = int(np.searchsorted(x, window[1], side="right"))
+    if stop <= start:
+        raise BandFileError(f"band {name}: window {window[0]:g}-{window[1]:g} cm-1 holds no grid point")
+    return slice(start, stop)
+
+
+@dataclass(frozen=True)
+class BlockMeasures:
+    """Per-band arrays, one entry per spectrum of the block.
+
+    values: NaN where the band cannot be read (a non-finite point inside what
+    it reads, e.g. transmittance <= 0); peak_positions: wavenumber of the
+    maximum, for height bands.
+    """
+
+    values: dict
+    peak_positions: dict
+
+
+def measure_block(plan: BandPlan, spectra: np.ndarray) -> BlockMeasures:
+    """Band values for a block of spectra given as rows (one spectrum per row).
+
+    The block is copied once to wavenumber-major order and measured by
+    measure_columns; a caller that can build that order directly saves the copy.
+    """
+    spectra = np.atleast_2d(np.asarray(spectra))
+    return measure_columns(plan, np.ascontiguousarray(spectra.T))
+
+
+def measure_columns(plan: BandPlan, columns: np.ndarray) -> BlockMeasures:
+    """Band values for a block stored wavenumber-major: one row per grid point, one column per spectrum.
+
+    Why that order: every band reads a narrow wavenumber range, which is then
+    a contiguous slab of memory; minima, maxima and weighted sums run down
+    its rows with whole-row numpy operations, never a per-spectrum loop.
+    float32 blocks stay float32 (half the memory traffic); anything else is
+    read as float64. NaN propagates, never hides.
+    """
+    columns = np.asarray(columns)
+    if columns.dtype not in (np.float32, np.float64):
+        columns = columns.astype(np.float64)
+    x = plan.x
+    spectra = np.arange(columns.shape[1])
+    anchors = {}
+
+    def anchor_value(anchor):
+        key = anchor.at if anchor.at is not None else anchor.minimum_in
+        if key not in anchors:
+            if anchor.at is not None:
+                anchors[key] = (np.full(spectra.size, anchor.at), _point_value(columns, plan.points[anchor.at]))
+            else:
+                slab = columns[plan.windows[anchor.minimum_in]]
+                j = _first_extreme_row(slab, slab.min(axis=0), np.argmin)
+                anchors[key] = (x[plan.windows[anchor.minimum_in]][j], slab[j, spectra])
+        return anchors[key]
+
+    values, positions = {}, {}
+    for band in plan.bands:
+        if band.name in plan.uncovered:
+            values[band.name] = np.full(spectra.size, np.nan)
+            continue
+        if band.baseline:
+            (xa, ya), (xb, yb) = (anchor_value(a) for a in band.baseline)
+            slope = (yb - ya) / (xb - xa)
+        if band.measure == "area":
+            low, high = band.region
+            rows, weights = plan.areas[band.region]
+            baseline_area = (high - low) * (ya + ((low + high) / 2 - xa) * slope)
+            values[band.name] = _weighted_row_sum(columns[rows], weights.astype(columns.dtype, copy=False)) - baseline_area
+        elif band.measure == "point":
+            at = band.region[0]
+            value = _point_value(columns, plan.points[at])
+            values[band.name] = value - (ya + (at - xa) * slope) if band.baseline else value
+        else:
+            window = plan.windows[band.region]
+            above = columns[window] - (ya[None, :] + (x[window][:, None] - xa[None, :]) * slope[None, :])
+            j = _first_extreme_row(above, above.max(axis=0), np.argmax)
+            values[band.name] = above[j, spectra]
+            positions[band.name] = x[window][j]
+    return BlockMeasures(values, positions)
+
+
+def _first_extreme_row(slab, extreme, arg_extreme):
+    """Row of the first occurrence of `extreme` in each column, as np.argmin/argmax along axis 0 would give.
+
+    numpy's arg-reductions along axis 0 copy the slab to transposed order
+    first; walking its rows from the last to the first, each a contiguous
+    whole-block comparison, does not. A column holding NaN has a NaN extreme
+    that equals nothing; those few columns go to arg_extreme itself, which
+    reports the first NaN.
+    """
+    first = np.full(slab.shape[1], slab.shape[0] - 1, dtype=np.intp)
+    equal = np.empty(slab.shape[1], dtype=bool)
+    for row in range(slab.shape[0] - 2, -1, -1):
+        np.equal(slab[row], extreme, out=equal)
+        np.copyto(first, row, where=equal)
+    unmatched = np.flatnonzero(np.isnan(extreme))
+    if unmatched.size:
+        first[unmatched] = arg_extreme(slab[:, unmatched], axis=0)
+    return first
+
+
+def _weighted_row_sum(slab, weights):
+    """weights @ slab by numpy's own multiply-accumulate down the rows.
+
+    Not BLAS: on a small shared machine a threaded gemv spends more time
+    waiting for its second thread than summing (2-10 ms against ~2 ms for a
+    176 x 10 000 slab, measured with benchmarks/bench_spectra.py's grid).
+    """
+    return np.einsum("k,kn->n", weights, slab)
+
+
+def _point_value(columns, point):
+    i, frac = point
+    return columns[i] * (1.0 - frac) + columns[i + 1] * frac

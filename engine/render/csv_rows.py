@@ -1,0 +1,112 @@
+"""Write graded samples as CSV: one row a sample, reasons folded into short text columns.
+
+CSV suits spreadsheets and simple pipelines; the full reason records are in JSON Lines.
+`fired` lists rule=grade (with <capped-from where a caveat lowered it), highest grade
+first; `not_evaluated` lists rule(missing,...). Built column-wise like the JSON Lines
+writer: each rule's text once per state, joined over the rows.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.version import engine_name
+from sumpwise.evaluation.evaluator import NOT_EVALUATED
+from sumpwise.render.jsonl import states
+from sumpwise.results.records import UNRATED, GradedBatch, gap_at, record_shape_groups, rule_inputs
+
+COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "grade", "level", "fired", "caveats",
+           "not_evaluated", "unrated_because", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
+
+
+def join_parts(n: int, parts, sep: str = ", ") -> np.ndarray:
+    """Join (row mask, texts of those rows) parts, in the order given, with `sep` between them."""
+    acc = np.full(n, "", dtype=object)
+    started = np.zeros(n, dtype=bool)
+    for mask, text in parts:
+        if not mask.any():
+            continue
+        acc[mask] = acc[mask] + np.where(started[mask], sep, "").astype(object) + text
+        started |= mask
+    return acc
+
+
+def _fired(batch: GradedBatch) -> np.ndarray:
+    out, grades = batch.outcome, batch.ruleset.grades
+    n = len(batch)
+    parts = []
+    for level in range(len(grades) - 1, 0, -1):
+        for j, slot in enumerate(out.slots):
+            mask = out.final[:, j] == level
+            if not mask.any():
+                continue
+            raw = out.raw[mask, j]
+            text = np.where(raw == level, f"{slot.rule.id}={grades[level]}", "").astype(object)
+            for capped_from in np.unique(raw[raw != level]):
+                text[raw == capped_from] = f"{slot.rule.id}={grades[level]}<{grades[capped_from]}"
+            parts.append((mask, text))
+    return join_parts(n, parts, ";")
+
+
+def _gaps(batch: GradedBatch) -> np.ndarray:
+    out, measured = batch.outcome, batch.measured
+    parts = []
+    for j, slot in enumerate(out.slots):
+        mask = out.final[:, j] == NOT_EVALUATED
+        if not mask.any():
+            continue
+        rows = np.flatnonzero(mask)
+        names = [name for name in rule_inputs(slot.rule) if name in measured.columns]
+        columns = [measured[name].isna().to_numpy()[rows] for name in names] or [np.zeros(len(rows), bool)]
+        first, state = states(columns)
+        table = []
+        for rep in rows[first]:
+            gap = gap_at(batch, int(rep), j)
+            table.append(f"{gap.rule}({','.join(gap.missing)})")
+        parts.append((mask, np.array(table, dtype=object)[state]))
+    return join_parts(len(batch), parts, ";")
+
+
+def _caveats(batch: GradedBatch) -> np.ndarray:
+    rs, out = batch.ruleset, batch.outcome
+    ids = [c.id for c in rs.caveats] + [c.id for c in batch.engine_caveats]
+    parts = [(out.caveats[:, k], np.full(int(out.caveats[:, k].sum()), ident, dtype=object))
+             for k, ident in enumerate(ids)]
+    return join_parts(len(batch), parts, ";")
+
+
+def _unrated(batch: GradedBatch) -> np.ndarray:
+    n = len(batch)
+    text = np.full(n, "", dtype=object)
+    rows = np.flatnonzero(batch.outcome.level < 0)
+    if len(rows):
+        representatives, group_of, _ = record_shape_groups(batch, rows)
+        sentences = [batch.result(int(rep)).unrated_because for rep in representatives]
+        text[rows] = np.array(sentences, dtype=object)[group_of]
+    return text
+
+
+def csv_frame(batch: GradedBatch) -> pd.DataFrame:
+    """The CSV table as a DataFrame."""
+    n = len(batch)
+    measured, rs = batch.measured, batch.ruleset
+    level = batch.outcome.level
+    frame = pd.DataFrame({name: (measured[name].to_numpy(dtype=object) if name in measured.columns
+                                 else np.full(n, None, dtype=object))
+                          for name in ("sample_id", "unit_id", "class", "lubricant", "sampled_on")})
+    frame["grade"] = np.array(list(rs.grades) + [UNRATED], dtype=object)[level]
+    frame["level"] = np.array([str(k) for k in range(len(rs.grades))] + [""], dtype=object)[level]
+    frame["fired"] = _fired(batch)
+    frame["caveats"] = _caveats(batch)
+    frame["not_evaluated"] = _gaps(batch)
+    frame["unrated_because"] = _unrated(batch)
+    frame["ruleset"] = rs.id
+    frame["ruleset_version"] = str(rs.version)
+    frame["ruleset_sha256"] = rs.sha256
+    frame["engine"] = engine_name()
+    return frame[list(COLUMNS)]
+
+
+def write_csv(batch: GradedBatch, stream) -> None:
+    csv_frame(batch).to_csv(stream, index=False, lineterminator="\n")

@@ -1,0 +1,374 @@
+"""Write graded samples as JSON Lines: one object a sample, the same bytes for the same input.
+
+Building a dict and calling json.dumps for each of a million rows would cost more than
+all of the grading. Instead each piece of a record is rendered once per distinct state,
+with placeholders for per-row values, using the same record classes as the Python API:
+the record's skeleton once, each rule's reason once per (grade, capped-from, clauses)
+state, each gap once per pattern of missing inputs, each caveat once. Each template is
+filled once a row by one %-format call; the filled pieces of a block are laid out in
+line order in one flat array and joined by a single str.join, so no line is built by
+repeated concatenation. A test checks that every line equals json of the per-record
+API, byte for byte.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from dataclasses import replace
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.evaluation.evaluator import NOT_EVALUATED
+from sumpwise.results.records import (UNRATED, GradedBatch, build_result, caveat_at, condition_inputs, gap_at, reason_at,
+                      record_shape_groups, rule_inputs)
+
+_TOKEN = re.compile(r'"\\u0000sw(\d+)\\u0000"')
+_ESCAPED = re.compile(r'["\\\x00-\x1f]')
+
+
+class _Placeholder:
+    def __init__(self, index: int):
+        self.token = f"\x00sw{index}\x00"
+
+
+class _Piece:
+    """A stand-in list item whose JSON is a placeholder: where the reasons, caveats, gaps go."""
+
+    def __init__(self, placeholder: _Placeholder):
+        self.placeholder = placeholder
+
+    def to_record(self):
+        return self.placeholder
+
+
+class _TemplateValues:
+    """Hands out a placeholder for each per-row value a record piece asks for."""
+
+    def __init__(self):
+        self.wanted: list[tuple[str, str]] = []
+
+    def slot(self, kind: str, name: str) -> _Placeholder:
+        self.wanted.append((kind, name))
+        return _Placeholder(len(self.wanted) - 1)
+
+    def number(self, name: str, i: int):
+        return self.slot("number", name)
+
+    def text(self, name: str, i: int):
+        return self.slot("text", name)
+
+
+def dumps(record: dict) -> str:
+    """The one JSON spelling sumpwise uses: key order as built, these separators, UTF-8."""
+    return json.dumps(record, ensure_ascii=False, separators=(", ", ": "), default=lambda p: p.token,
+                      allow_nan=False)
+
+
+def _template(text: str, values: _TemplateValues) -> tuple[list[str], list]:
+    pieces = _TOKEN.split(text)
+    return pieces[0::2], [values.wanted[int(k)] for k in pieces[1::2]]
+
+
+def _text_literals(values: np.ndarray) -> np.ndarray:
+    """JSON string literals (or null) for a column of str-or-None."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    if len(uniques) < len(values) // 2:
+        table = [json.dumps(str(u), ensure_ascii=False) for u in uniques] + ["null"]
+        return np.array(table, dtype=object)[codes]
+    present = codes >= 0
+    texts = np.where(present, values, "").astype(object)
+    joined = "\x00".join(texts)
+    if joined.count("\x00") == len(texts) - 1 and not _ESCAPED.search(joined.replace("\x00", "")):
+        literal = '"' + texts + '"'
+    else:
+        literal = np.array([json.dumps(str(t), ensure_ascii=False) for t in texts], dtype=object)
+    literal[~present] = "null"
+    return literal
+
+
+def _number_literals(values: np.ndarray) -> np.ndarray:
+    """JSON number literals (or null), spelled as Python's float repr, each distinct value once."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    table = np.array(list(map(repr, uniques.tolist())) + ["null"], dtype=object)
+    table[:-1][~np.isfinite(uniques)] = "null"
+    return table[codes]
+
+
+class _Literals:
+    """JSON literals of a column, for the rows asked (one block at a time, so memory stays
+    bounded by the block, not the batch)."""
+
+    def __init__(self, measured: pd.DataFrame):
+        self.measured = measured
+        self.arrays: dict = {}  # each column converted to numpy once, not once a request
+
+    def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
+        if name not in self.measured.columns:
+            return np.full(len(rows), "null", dtype=object)
+        if (kind, name) not in self.arrays:
+            column = self.measured[name]
+            self.arrays[kind, name] = (column.to_numpy(dtype=float, na_value=np.nan) if kind == "number"
+                                       else column.to_numpy(dtype=object))
+        values = self.arrays[kind, name][rows]
+        return _number_literals(values) if kind == "number" else _text_literals(values)
+
+
+def states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """(first index of each distinct state, state of each row) for rows described by int columns."""
+    matrix = np.ascontiguousarray(np.stack(columns, axis=1).astype(np.int8))
+    keys = matrix.view(np.dtype((np.void, matrix.shape[1]))).ravel()
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    return first, inverse.ravel()
+
+
+class _Group:
+    """Rows of a block that share one piece of their lines: a template filled once a row,
+    placed at `slot` of each of those rows' lines (list items get a separator unless first)."""
+
+    def __init__(self, slot: int, rows: np.ndarray, template: tuple[list[str], list], listed: bool):
+        self.slot, self.rows, self.template, self.listed = slot, rows, template, listed
+
+
+class _Block:
+    """One block of rows: literals of each column once, and the groups that make its lines."""
+
+    def __init__(self, literals: _Literals, rows: np.ndarray):
+        self.literals, self.rows = literals, rows
+        self.raw: dict = {}  # per-row texts the records' own fields take (grade, level, ...)
+        self.groups: list[_Group] = []
+
+    def literal(self, kind: str, name: str, local: np.ndarray) -> np.ndarray:
+        """Literals of these rows only: many columns are read by a few rows' reasons."""
+        if kind == "raw":
+            return self.raw[name][local]
+        return self.literals.get(kind, name, self.rows[local])
+
+    def add(self, slot: int, local: np.ndarray, template: tuple[list[str], list], listed: bool = False) -> None:
+        self.groups.append(_Group(slot, local, template, listed))
+
+    def _filled(self, template: tuple[list[str], list], local: np.ndarray, lead: str):
+        """The template's text for each of these rows: one C-level %-format call a row."""
+        chunks, wanted = template
+        if not wanted:
+            return lead + chunks[0]
+        form = lead.replace("%", "%%") + "%s".join(chunk.replace("%", "%%") for chunk in chunks)
+        columns = [self.literal(kind, name, local).tolist() for kind, name in wanted]
+        return [form % args for args in zip(*columns)]
+
+    def text(self, lists: list[range]) -> str:
+        """Lay the pieces out in line order and join the block in one call.
+
+        A row's occupied slots, counted cumulatively, give each piece its place in one flat
+        array, so no line is ever built by repeated concatenation. The first item of each
+        list (reasons, caveats, gaps) in a row is written without the separator.
+        """
+        n = len(self.rows)
+        used = np.unique([group.slot for group in self.groups])  # in order; most slots are empty in a block
+        column = {int(slot): k for k, slot in enumerate(used)}
+        occupied = np.zeros((n, len(used)), dtype=bool)
+        for group in self.groups:
+            occupied[group.rows, column[group.slot]] = True
+        first = np.zeros_like(occupied)
+        for span in lists:
+            start, stop = np.searchsorted(used, [span.start, span.stop])
+            if start == stop:
+                continue
+            present = occupied[:, start:stop]
+            listed = np.flatnonzero(present.any(axis=1))
+            first[listed, start + present[listed].argmax(axis=1)] = True
+        places = np.cumsum(occupied, dtype=np.int32).reshape(occupied.shape) - 1
+        flat = np.empty(int(places[-1, -1]) + 1 if n else 0, dtype=object)
+        for group in self.groups:
+            at = places[group.rows, column[group.slot]]
+            if not group.listed:
+                flat[at] = self._filled(group.template, group.rows, "")
+                continue
+            leads = first[group.rows, column[group.slot]]
+            for lead, mask in (("", leads), (", ", ~leads)):
+                if mask.any():
+                    flat[at[mask]] = self._filled(group.template, group.rows[mask], lead)
+        return "".join(flat.tolist())
+
+
+def _split_at_lists(template: tuple[list[str], list], drop_tail: str) -> tuple[list, list[str]]:
+    """A record skeleton cut where its lists (reasons, caveats, gaps) go: the parts, the list names.
+
+    The line ends with a newline, after `drop_tail` (the record's last characters) is cut off.
+    """
+    chunks, wanted = template
+    parts, names, start = [], [], 0
+    for k, (kind, name) in enumerate(wanted):
+        if kind == "list":
+            parts.append((chunks[start:k + 1], wanted[start:k]))
+            names.append(name)
+            start = k + 1
+    end = chunks[-1]
+    if not end.endswith(drop_tail):
+        raise RuntimeError("a result record does not end with the tail it was asked to leave out")
+    parts.append((chunks[start:-1] + [end[:len(end) - len(drop_tail)] + "\n"], wanted[start:]))
+    return parts, names
+
+
+class _Writer:
+    def __init__(self, batch: GradedBatch, drop_tail: str = ""):
+        self.batch, self.drop_tail = batch, drop_tail
+        self.literals = _Literals(batch.measured)
+        self.out = batch.outcome
+        self.templates: dict = {}  # (kind, index, state...) -> template of a reason, gap or caveat
+        self.missing: dict = {}  # each input's missing cells, found once for all rules and blocks
+        self.skeletons: dict = {}
+        rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
+        self.list_sizes = {"reasons": top * rules, "caveats": self.out.caveats.shape[1], "gaps": rules}
+        self.list_slots: dict = {}  # list name -> its items' slots in the line, set with the first skeleton
+        self.part_slots: list = []  # skeleton part p -> its slot
+
+    def _reason_state(self, j: int, rows: np.ndarray) -> list[np.ndarray]:
+        """What decides the shape of slot j's reason: final and raw level, capping caveat, clauses."""
+        out, rs = self.out, self.batch.ruleset
+        final, raw = out.final[rows, j], out.raw[rows, j]
+        columns = [final, raw]
+        rule = out.slots[j].rule
+        capped_by = np.full(len(rows), -1, dtype=np.int8)
+        for k in reversed(range(len(rs.caveats))):
+            cap = rs.caveats[k].cap
+            if cap is not None and rule.reads & cap.measures:
+                capped_by[out.capping[rows, k] & (final == cap.level) & (raw != final)] = k
+        columns.append(capped_by)
+        if j in out.leaves:
+            members, found = out.leaves[j]
+            at = np.searchsorted(members, rows)
+            for truth, known in found:
+                columns.append(truth[at].astype(np.int8) + 2 * known[at].astype(np.int8))
+        return columns
+
+    def _by_state(self, block: _Block, local: np.ndarray, key: tuple, columns: list, piece, slot) -> None:
+        """Add list items for these rows, grouped by state (the int columns): each state's
+        template is built once, from its first row, by `piece(row, values)`, a record class;
+        `slot(state)` says where in the line it goes."""
+        rows = block.rows[local]
+        first, state = states(columns)
+        for s, rep in enumerate(rows[first]):
+            found = tuple(int(c[first[s]]) for c in columns)
+            if key + found not in self.templates:
+                values = _TemplateValues()
+                self.templates[key + found] = _template(dumps(piece(int(rep), values).to_record()), values)
+            block.add(slot(found), local[state == s], self.templates[key + found], True)
+
+    def _reasons(self, block: _Block, j: int, local: np.ndarray) -> None:
+        """Slot j's reasons, listed highest grade first, then in rule order."""
+        top, base, rules = len(self.batch.ruleset.grades) - 1, self.list_slots["reasons"].start, len(self.out.slots)
+        self._by_state(block, local, ("reason", j), self._reason_state(j, block.rows[local]),
+                       lambda rep, values: reason_at(self.batch, rep, j, values),
+                       lambda found: base + (top - found[0]) * rules + j)  # found[0]: the final level
+
+    def _gaps(self, block: _Block, j: int, local: np.ndarray) -> None:
+        measured = self.batch.measured
+        names = [n for n in rule_inputs(self.out.slots[j].rule) if n in measured.columns]
+        rows = block.rows[local]
+        columns = [self._missing(n)[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
+        self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j),
+                       lambda found: self.list_slots["gaps"].start + j)
+
+    def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:
+        """Caveat k's notes: one shape, or, for a cap whose `unless` may go unchecked, one
+        shape per pattern of the inputs that exception lacked."""
+        rows = block.rows[local]
+        columns = [np.zeros(len(rows), dtype=bool)]
+        caveats = self.batch.ruleset.caveats
+        if k < len(caveats) and caveats[k].cap is not None and caveats[k].cap.unless is not None:
+            unchecked = self.out.unchecked[rows, k]
+            columns = [unchecked] + [self._missing(name)[rows] & unchecked
+                                     for name in condition_inputs(caveats[k].cap.unless)]
+        self._by_state(block, local, ("caveat", k), columns, lambda rep, values: caveat_at(self.batch, rep, k, values),
+                       lambda found: self.list_slots["caveats"].start + k)
+
+    def _missing(self, name: str) -> np.ndarray:
+        """Each row's missing cell of an input (all missing when the column is absent), found once."""
+        if name not in self.missing:
+            measured = self.batch.measured
+            self.missing[name] = (measured[name].isna().to_numpy() if name in measured.columns
+                                  else np.ones(len(measured), dtype=bool))
+        return self.missing[name]
+
+    def _skeleton(self, rep: int, unrated: bool) -> list:
+        """The record's own parts around its lists, once for rated and once for unrated rows."""
+        if unrated not in self.skeletons:
+            values = _TemplateValues()
+            result = build_result(self.batch, rep, values)
+            pieces = {name: (_Piece(values.slot("list", name)),) for name in ("reasons", "caveats", "gaps")}
+            result = replace(result, grade=values.slot("raw", "grade"), level=values.slot("raw", "level"),
+                             reasons=pieces["reasons"], caveats=pieces["caveats"],
+                             not_evaluated=pieces["gaps"],
+                             unrated_because=values.slot("raw", "unrated_because") if unrated else None)
+            parts, names = _split_at_lists(_template(dumps(result.to_record()), values), self.drop_tail)
+            if not self.list_slots:
+                self._lay_out(names)
+            elif names != list(self.list_slots):
+                raise RuntimeError("rated and unrated records list their reasons, caveats and gaps in another order")
+            self.skeletons[unrated] = parts
+        return self.skeletons[unrated]
+
+    def _lay_out(self, names: list[str]) -> None:
+        """Slots of a line, in order: part 0, the first list's items, part 1, ..., the last part."""
+        slot = 0
+        for name in names:
+            self.part_slots.append(slot)
+            self.list_slots[name] = range(slot + 1, slot + 1 + self.list_sizes[name])
+            slot = self.list_slots[name].stop
+        self.part_slots.append(slot)
+
+    def block_text(self, rows: np.ndarray) -> str:
+        out, rs = self.out, self.batch.ruleset
+        block = _Block(self.literals, rows)
+        level = out.level[rows]
+        unrated = level < 0
+        names = list(rs.grades) + [UNRATED]
+        block.raw["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
+        block.raw["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"], dtype=object)[level]
+        block.raw["unrated_because"] = np.full(len(rows), "", dtype=object)
+        if unrated.any():
+            block.raw["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
+        for is_unrated in (False, True):
+            members = np.flatnonzero(unrated == is_unrated)
+            if len(members):
+                parts = self._skeleton(int(rows[members[0]]), is_unrated)
+                for slot, part in zip(self.part_slots, parts):
+                    block.add(slot, members, part)
+
+        final = out.final[rows]
+        for j in range(final.shape[1]):
+            fired = np.flatnonzero(final[:, j] > 0)
+            if len(fired):
+                self._reasons(block, j, fired)
+            gaps = np.flatnonzero(final[:, j] == NOT_EVALUATED)
+            if len(gaps):
+                self._gaps(block, j, gaps)
+        for k in range(out.caveats.shape[1]):
+            noted = np.flatnonzero(out.caveats[rows, k])
+            if len(noted):
+                self._caveats(block, k, noted)
+        return block.text(list(self.list_slots.values()))
+
+    def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
+        representatives, group_of, _ = record_shape_groups(self.batch, members)
+        table = [json.dumps(self.batch.result(int(rep)).unrated_because,
+                            ensure_ascii=False) for rep in representatives]
+        return np.array(table, dtype=object)[group_of]
+
+
+def jsonl_lines(batch: GradedBatch, block: int = 100_000, drop_tail: str = ""):
+    """Yield the JSON Lines text of the batch, a block of rows at a time, in input order.
+
+    With `drop_tail`, the text every record ends with (the ledger stores it once) is left out.
+    """
+    writer = _Writer(batch, drop_tail)
+    n = len(batch)
+    for start in range(0, n, block):
+        yield writer.block_text(np.arange(start, min(n, start + block)))
+
+
+def write_jsonl(batch: GradedBatch, stream) -> None:
+    for text in jsonl_lines(batch):
+        stream.write(text)

@@ -1,0 +1,100 @@
+"""The story of one verdict, in sentences a person reads: for the lead and for the auditor."""
+
+from __future__ import annotations
+
+import textwrap
+
+from sumpwise.vocabulary.cautions import CAUTIONS
+from sumpwise.results.records import SampleResult
+
+_TEST_WORDS = {"above": "above", "below": "below", "outside": "outside", "between": "between",
+               "in": "one of", "equals": "equal to", "missing": "missing"}
+
+
+def _number(value) -> str:
+    if value is None:
+        return "missing"
+    if isinstance(value, list):
+        return "[" + ", ".join(_number(v) for v in value) + "]"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    return str(value)
+
+
+def _limit_phrase(test: str, limit, unit: str | None) -> str:
+    unit_text = f" {unit}" if unit and unit != "%" else ("%" if unit == "%" else "")
+    if test == "outside" and not isinstance(limit, list):
+        return f"more than {_number(limit)}{unit_text} either side of zero"
+    if test == "outside":
+        return f"outside {_number(limit[0])} to {_number(limit[1])}{unit_text}"
+    if test == "between":
+        return f"between {_number(limit[0])} and {_number(limit[1])}{unit_text}"
+    return f"{_TEST_WORDS.get(test, test)} {_number(limit)}{unit_text}"
+
+
+def _clause_line(clause) -> str:
+    name = clause.measure or clause.field
+    held = "holds" if clause.held else "does not hold"
+    if clause.test == "missing":
+        wanted = "is missing" if clause.limit else "is present"
+        return f"{name} {wanted}: {held} (value {_number(clause.value)})"
+    return f"{name} = {_number(clause.value)}, test {_limit_phrase(clause.test, clause.limit, None)}: {held}"
+
+
+def explain_lines(result: SampleResult, grades: tuple, width: int = 88) -> list[str]:
+    """The narrative of one sample's grade, reason by reason, with sources and cautions."""
+    def wrap(text: str, indent: str = "") -> list[str]:
+        # A bullet ("- ") starts the first line only; continuation lines line up under its text.
+        following = indent.replace("-", " ")
+        return textwrap.wrap(text, width, initial_indent=indent, subsequent_indent=following) or [indent]
+
+    lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
+             f"lubricant {result.lubricant or '(none)'}, sampled {result.sampled_on or '(date not given)'}"]
+    if result.level is None:
+        lines.append(f"Grade: {result.grade.upper()}: no grade could be given.")
+        lines.extend(wrap(f"Why: {result.unrated_because}.", "  "))
+    else:
+        ladder = " < ".join(grades)
+        lines.append(f"Grade: {result.grade.upper()} (level {result.level} on the ladder {ladder})")
+    lines.append("")
+    if result.reasons:
+        lines.append("What fired, highest grade first:")
+        for number, reason in enumerate(result.reasons, 1):
+            head = f"{number}. {reason.rule}: {reason.grade}"
+            if reason.capped_from:
+                head += f" (would be {reason.capped_from}; capped by caveat {reason.capped_by})"
+            lines.append("  " + head)
+            lines.extend(wrap(reason.message.rstrip(".") + ".", "     "))
+            if reason.measure:
+                lines.extend(wrap(f"{reason.measure} = {_number(reason.value)} {reason.unit or ''}".rstrip()
+                                  + f", {_limit_phrase(reason.test, reason.limit, reason.unit)} "
+                                    f"(the {reason.grade if not reason.capped_from else reason.capped_from} limit).",
+                                  "     "))
+            for clause in reason.clauses:
+                lines.extend(wrap(_clause_line(clause), "     - "))
+            lines.extend(wrap(f"Source: {reason.source}", "     "))
+    elif result.level is not None:
+        lines.append("No limit was crossed.")
+    if result.caveats:
+        lines.append("")
+        lines.append("Caveats:")
+        for caveat in result.caveats:
+            lines.extend(wrap(f"{caveat.caveat}: {caveat.message}", "  - "))
+            if caveat.unless_missing:
+                lines.extend(wrap(f"Its cap stays in force because the exception that would lift it could not "
+                                  f"be checked: it lacks {', '.join(caveat.unless_missing)}. Measure that before "
+                                  f"trusting a capped grade.", "    "))
+    if result.not_evaluated:
+        lines.append("")
+        lines.append("Not evaluated (a missing value is never a pass):")
+        for gap in result.not_evaluated:
+            lines.append(f"  - {gap.rule}: lacks {', '.join(gap.missing)}")
+    lines.append("")
+    lines.append(f"Rule set {result.ruleset_id} version {result.ruleset_version}, "
+                 f"sha256 {result.ruleset_sha256}; {result.engine}.")
+    lines.extend(wrap(f"Notice: {result.notice}"))
+    lines.append("")
+    lines.extend(wrap("Cautions: " + " ".join(CAUTIONS)))
+    return lines

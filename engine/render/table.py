@@ -1,0 +1,136 @@
+"""A terminal table of graded samples for a person: aligned, at most 100 columns wide.
+
+Grades are told apart by a marker as well as by name, so the table reads the same
+without colour: one more '+' for each step up the ladder. Rows whose records have the
+same shape share one 'why' text, so the table is built column-wise like the JSON Lines
+writer. Long runs report progress on a terminal's standard error, and stay quiet when
+it is a file or a pipe.
+"""
+
+from __future__ import annotations
+
+import textwrap
+from collections import Counter
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.vocabulary.cautions import CAUTIONS
+from sumpwise.version import engine_name
+from sumpwise.results.records import UNRATED, GradedBatch, record_shape_groups
+
+WIDTH = 100
+PROGRESS_MIN_ROWS = 50_000  # a shorter table is written in a blink: no progress
+CHUNK_ROWS = 10_000
+
+
+def grade_marker(level: int | None) -> str:
+    return "?" if level is None else ("+" * level or "-")
+
+
+def _cut(text: str, width: int) -> str:
+    return text if len(text) <= width else text[: width - 1] + "~"
+
+
+def _cut_column(values: pd.Series, width: int) -> pd.Series:
+    """Cut and pad a text column to exactly `width` characters."""
+    cut = values.where(values.str.len() <= width, values.str[: max(width - 1, 0)] + "~")
+    return cut.str.ljust(width)
+
+
+def wants_progress(stream, rows: int, min_rows: int = PROGRESS_MIN_ROWS) -> bool:
+    """Progress only for long runs, and only when a person is watching the stream."""
+    isatty = getattr(stream, "isatty", None)
+    return stream is not None and rows > min_rows and callable(isatty) and bool(isatty())
+
+
+def _why(result) -> str:
+    if result.reasons:
+        why = ", ".join(f"{x.rule}" + (f" (capped from {x.capped_from})" if x.capped_from else "")
+                        for x in result.reasons)
+    elif result.unrated_because:
+        why = result.unrated_because
+    else:
+        why = "no limit crossed"
+    if result.caveats:
+        why += " | caveat: " + ", ".join(c.caveat for c in result.caveats)
+    return why
+
+
+def _text_column(measured: pd.DataFrame, name: str) -> pd.Series:
+    if name not in measured.columns:
+        return pd.Series([""] * len(measured), dtype=object)
+    return measured[name].astype(object).where(measured[name].notna(), "").astype(str).reset_index(drop=True)
+
+
+def table_rows(batch: GradedBatch, width: int = WIDTH) -> tuple[str, pd.Series]:
+    """The header line and one aligned line per sample (a Series, in batch order)."""
+    measured = batch.measured
+    sample_ids = _text_column(measured, "sample_id")
+    units = _text_column(measured, "unit_id")
+    classes = _text_column(measured, "class")
+    sid = min(max([len("sample")] + sample_ids.str.len().tolist()), 16)
+    unit = min(max([len("unit")] + units.str.len().tolist()), 10)
+    cls = min(max([len("class")] + classes.str.len().tolist()), 16)
+    grades = list(batch.ruleset.grades)
+    name_w = min(max(len(g) for g in grades + [UNRATED]), 12)
+    grade_w = min(name_w + 1 + max(1, len(grades) - 1), 24)
+    head = f"{'sample':<{sid}}  {'unit':<{unit}}  {'class':<{cls}}  {'grade':<{grade_w}}  "
+    rest = width - len(head)
+    if len(batch) == 0:
+        return head + "why", pd.Series([], dtype=object)
+    firsts, group, _ = record_shape_groups(batch, np.arange(len(batch)))
+    shapes = [batch.result(int(i)) for i in firsts]  # one record per shape, not per row
+    grade_text = np.array([_cut(f"{_cut(r.grade, name_w)} {grade_marker(r.level)}", grade_w).ljust(grade_w)
+                           for r in shapes], dtype=object)
+    why_text = np.array([_cut(_why(r), rest) for r in shapes], dtype=object)
+    lines = (_cut_column(sample_ids, sid) + "  " + _cut_column(units, unit) + "  " + _cut_column(classes, cls)
+             + "  " + pd.Series(grade_text[group]) + "  " + pd.Series(why_text[group]))
+    return head + "why", lines.str.rstrip()
+
+
+def footer_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
+    """Counts, the rule set and engine, the notice and the cautions."""
+    counts = batch.counts()
+    by_grade = Counter(batch.grades())
+    ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(batch.ruleset.grades) + [UNRATED])
+    rs = batch.ruleset
+    lines = ["-" * width]
+    lines.extend(_wrap(f"read {counts['read']}: graded {counts['graded']}, unrated {counts['unrated']}, "
+                       f"rejected {counts['rejected']}  ({ladder})", width))
+    lines.extend(_wrap(f"rule set {rs.id} version {rs.version}, sha256 {rs.sha256[:16]}..., {engine_name()}",
+                       width))
+    lines.append("")
+    lines.extend(_wrap("Notice: " + rs.notice, width))
+    for caution in CAUTIONS:
+        lines.extend(_wrap("! " + caution, width))
+    return lines
+
+
+def table_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
+    """The table's lines: one per sample, then counts, the notice and the cautions."""
+    head, rows = table_rows(batch, width)
+    return [head, "-" * width] + rows.tolist() + footer_lines(batch, width)
+
+
+def _wrap(text: str, width: int) -> list[str]:
+    return textwrap.wrap(text, width) or [""]
+
+
+def write_table(batch: GradedBatch, stream, progress=None, min_rows: int = PROGRESS_MIN_ROWS) -> None:
+    """Write the table in chunks; `progress` (standard error) gets a counter if wants_progress says so."""
+    shown = progress if wants_progress(progress, len(batch), min_rows) else None
+    head, rows = table_rows(batch)
+    stream.write(head + "\n" + "-" * WIDTH + "\n")
+    total = len(rows)
+    for start in range(0, total, CHUNK_ROWS):
+        chunk = rows.iloc[start:start + CHUNK_ROWS]
+        stream.write("\n".join(chunk.tolist()) + "\n")
+        if shown is not None:
+            done = start + len(chunk)
+            shown.write(f"\rsumpwise: table: {done:,} of {total:,} rows ({done * 100 // total}%)")
+            shown.flush()
+    if shown is not None:
+        shown.write("\n")
+        shown.flush()
+    stream.write("\n".join(footer_lines(batch)) + "\n")

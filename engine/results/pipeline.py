@@ -1,0 +1,45 @@
+"""The grading pipeline as one call: samples in, a graded batch out. The public API's core."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.evaluation.evaluator import evaluate
+from sumpwise.derive.row_measures import derive_measures
+from sumpwise.vocabulary.measures import INPUT_MEASURES
+from sumpwise.results.records import GradedBatch
+from sumpwise.ruleset.model import RuleSet
+from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
+from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, spectrum_caveat_flags
+from sumpwise.derive.trends import TREND_CAVEATS, add_trend_measures, read_oil_changes, trend_bases, trend_caveat_flags
+
+
+def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None) -> GradedBatch:
+    """Derive measures for the accepted rows and evaluate the rule set over them.
+
+    Trend measures compare each sample with its unit's previous one: within the batch, after the
+    earlier samples in `history` (trends.CHAIN_COLUMNS and the measures; a ledger supplies it).
+    """
+    batch = read_oil_changes(batch)
+    measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
+    measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, trend_bases(ruleset))
+    for column in SPECTRUM_COLUMNS:
+        measured[column] = batch.frame[column] if column in batch.frame.columns else None
+    outcome = evaluate(ruleset, measured)
+    outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
+                                                  spectrum_caveat_flags(measured)]))
+    carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
+    return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
+                       TREND_CAVEATS + SPECTRUM_CAVEATS)
+
+
+def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:
+    """Grade a DataFrame (or an already-read SampleBatch); bad rows come back as rejects."""
+    if isinstance(samples, (str, bytes)) or hasattr(samples, "__fspath__"):
+        raise TypeError("grade() takes a DataFrame or a SampleBatch; read files with read_samples()")
+    if isinstance(samples, pd.DataFrame):
+        samples = validate_samples(samples, [], "<DataFrame>", columns or ColumnMap(), ruleset.measures)
+    return grade_batch(samples, ruleset)

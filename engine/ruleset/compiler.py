@@ -1,0 +1,385 @@
+"""Turn a resolved rule-set document into a compiled RuleSet, checking what a schema cannot.
+
+Semantic checks: names of measures, fields and grades; ladders monotone along the
+grade ladder; each rule a ladder rule or a condition rule, not a mix. Limits are
+converted to canonical units here, once, using the `units:` of the file that wrote
+them. The canonical form is itself a valid one-file rule set, so an auditor can
+reload exactly what a sample was graded with.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import json
+import os
+from dataclasses import replace
+from pathlib import Path
+
+from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES, KNOWN_FIELDS, unit_key
+from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
+from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
+                      MeasureTest, MissingTest, Not, Origin, RuleSet)
+from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset
+from sumpwise.vocabulary.units import FACTORS, UNIT_FAMILY, factor_to_canonical
+
+DEFAULT_NOTICE = (
+    "Screening aid only, not a substitute for a qualified lubricant analyst. Limits from the equipment "
+    "manufacturer and the lubricant supplier, local codes and site procedures take precedence. Confirm a "
+    "severe finding by resampling before acting on critical equipment."
+)
+
+_LADDER_TESTS = ("above", "below", "outside")
+_MEASURE_TESTS = ("above", "below", "outside", "between", "missing")
+_COMBINERS = ("all", "any", "not")
+
+
+def load_ruleset(path) -> RuleSet:
+    """Load, resolve, validate and compile a rule set; raise InvalidFile listing every problem."""
+    return compile_ruleset(resolve_ruleset(Path(path)))
+
+
+def compile_ruleset(resolved: Resolved) -> RuleSet:
+    return _Compiler(resolved).run()
+
+
+class _Compiler:
+    def __init__(self, resolved: Resolved):
+        self.r = resolved
+        self.grades = resolved.grades
+        self.problems: list[Problem] = []
+        self.measures = set(INPUT_MEASURES) | set(DERIVED_MEASURES) | set(resolved.measures)
+        self.fields = set(KNOWN_FIELDS) | set(resolved.fields)
+
+    def run(self) -> RuleSet:
+        r = self.r
+        lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
+        classes = {name: tuple(self._rule(p) for p in rules.values()) for name, rules in sorted(r.classes.items())}
+        common = tuple(self._rule(p) for p in r.rules.values())
+        caveats = tuple(self._caveat(p) for p in r.caveats.values())
+        examples = tuple(self._example(p) for p in r.examples)
+        if self.problems:
+            raise InvalidFile(self.problems)
+        header = r.header
+        ruleset = RuleSet(
+            id=header["ruleset"], version=header["version"], title=header.get("title", header["ruleset"]),
+            grades=tuple(self.grades), notice=header.get("notice", DEFAULT_NOTICE).strip(),
+            lubricants=lubricants, classes=classes, rules=common, caveats=caveats,
+            measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
+            canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
+        )
+        canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
+        digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
+        return replace(ruleset, canonical=canonical, sha256=digest)
+
+    # -- pieces --------------------------------------------------------------------------
+
+    def _origin(self, placed: Placed) -> Origin:
+        mark = placed.doc.mark(placed.path)
+        return Origin(placed.doc.file, mark.line, mark.column, json_path(placed.path))
+
+    def _class_origins(self) -> dict:
+        origins = {}
+        for name, placed in self.r.class_places.items():
+            mark = placed.doc.mark(placed.path, key=True)
+            origins[name] = Origin(placed.doc.file, mark.line, mark.column, json_path(placed.path))
+        return origins
+
+    def _file_units(self) -> dict:
+        places = [*self.r.class_places.values(), *self.r.rules.values(), *self.r.caveats.values()]
+        places += [p for rules in self.r.classes.values() for p in rules.values()]
+        return {placed.doc.file: dict(placed.units) for placed in places}
+
+    def _scale(self, placed: Placed, measure: str) -> float:
+        key = unit_key(measure)
+        if key not in UNIT_FAMILY:
+            return 1.0
+        family = UNIT_FAMILY[key]
+        unit = placed.units.get(key)
+        return factor_to_canonical(family, unit) if unit else 1.0
+
+    def _level(self, placed: Placed, sub: tuple, grade: str, key: bool = False) -> int | None:
+        if grade not in self.grades:
+            close = difflib.get_close_matches(grade, self.grades, n=1)
+            self.problems.append(placed.problem(
+                f"grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}]", sub, key=key,
+                hint=f"did you mean '{close[0]}'?" if close else ""))
+            return None
+        level = self.grades.index(grade)
+        if level == 0:
+            self.problems.append(placed.problem(
+                f"'{grade}' is the lowest grade: a limit or rule for it can never raise a sample's grade",
+                sub, key=key, hint="give limits for the grades above it only"))
+            return None
+        return level
+
+    def _check_measure(self, placed: Placed, sub: tuple, measure: str) -> None:
+        if measure not in self.measures:
+            close = difflib.get_close_matches(measure, sorted(self.measures), n=1)
+            self.problems.append(placed.problem(
+                f"unknown measure '{measure}'; a measure is a lab value the engine knows, a derived measure, "
+                f"or one declared under `measures:`", sub,
+                hint=f"did you mean '{close[0]}'?" if close else "declare it under the top-level `measures:`"))
+
+    def _lubricant(self, code: str, placed: Placed) -> Lubricant:
+        data = dict(placed.data)
+        if "oxidation" in data:
+            data["oxidation"] = data["oxidation"] * self._scale(placed, "oxidation")
+        spectrum = data.get("reference_spectrum")
+        if spectrum is not None:
+            data["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
+        return Lubricant(code=code, **data)
+
+    def _rule(self, placed: Placed):
+        data = placed.data
+        ladder_keys = [k for k in _LADDER_TESTS if k in data]
+        origin = self._origin(placed)
+        if "when" in data or "grade" in data:
+            if ladder_keys or "measure" in data:
+                self.problems.append(placed.problem(
+                    f"rule '{data['id']}' mixes a condition (`when`/`grade`) with a ladder "
+                    f"(`measure` with {'/'.join(_LADDER_TESTS)}); a rule is one or the other", ("id",)))
+                return None
+            if "when" not in data or "grade" not in data:
+                missing = "when" if "when" not in data else "grade"
+                self.problems.append(placed.problem(f"condition rule '{data['id']}' needs `{missing}` too", ("id",)))
+                return None
+            when = self._condition(placed, ("when",), data["when"])
+            level = self._level(placed, ("grade",), data["grade"])
+            return ConditionRule(data["id"], when, level, data["message"].strip(), self._source(placed), origin)
+        if "measure" not in data or len(ladder_keys) != 1:
+            self.problems.append(placed.problem(
+                f"rule '{data['id']}' needs either `measure` with exactly one of above/below/outside "
+                f"(a ladder rule) or `when` with `grade` (a condition rule)", ("id",)))
+            return None
+        measure, test = data["measure"], ladder_keys[0]
+        self._check_measure(placed, ("measure",), measure)
+        scale = self._scale(placed, measure)
+        steps = []
+        for grade, limit in data[test].items():
+            level = self._level(placed, (test, grade), grade, key=True)
+            if level is None:
+                continue
+            if isinstance(limit, list):
+                if limit[0] >= limit[1]:
+                    self.problems.append(placed.problem(
+                        f"the pair [{limit[0]}, {limit[1]}] for '{grade}' must be written [low, high] "
+                        f"with low below high", (test, grade)))
+                limit = (limit[0] * scale, limit[1] * scale)
+            else:
+                limit = limit * scale
+            steps.append((level, limit))
+        steps.sort(key=lambda s: s[0])
+        self._check_monotone(placed, test, steps, data[test])
+        return LadderRule(data["id"], measure, test, tuple(steps), data["message"].strip(), self._source(placed),
+                          origin)
+
+    def _check_monotone(self, placed: Placed, test: str, steps: list, written: dict) -> None:
+        for (lo_level, lo), (hi_level, hi) in zip(steps, steps[1:]):
+            lower, higher = self.grades[lo_level], self.grades[hi_level]
+            if isinstance(lo, tuple) != isinstance(hi, tuple) and test == "outside":
+                continue  # a symmetric limit beside a pair is compared as the pair (-x, x)
+            if test == "above":
+                ok = hi > lo
+                want = "higher"
+            elif test == "below":
+                ok = hi < lo
+                want = "lower"
+            else:
+                lo_pair = lo if isinstance(lo, tuple) else (-lo, lo)
+                hi_pair = hi if isinstance(hi, tuple) else (-hi, hi)
+                ok = hi_pair[0] < lo_pair[0] and hi_pair[1] > lo_pair[1]
+                want = "wider"
+            if not ok:
+                self.problems.append(placed.problem(
+                    f"the '{test}' limits are not in ladder order: the limit for '{higher}' must be {want} "
+                    f"than the limit for '{lower}' ({written[higher]!r} vs {written[lower]!r})", (test, higher),
+                    key=True))
+
+    def _source(self, placed: Placed) -> str:
+        source = (placed.data.get("source") or "").strip()
+        if not source:
+            self.problems.append(placed.problem(
+                "`source` must say where this limit comes from: a standard and its clause, the manufacturer's "
+                "manual, 'site practice', or 'common practice, no source'", ("source",)))
+        return source
+
+    def _condition(self, placed: Placed, sub: tuple, data: dict):
+        combiners = [k for k in _COMBINERS if k in data]
+        if combiners:
+            if len(data) != 1:
+                self.problems.append(placed.problem(
+                    f"`{combiners[0]}` must stand alone in its mapping; put other tests inside it", sub))
+                return None
+            name = combiners[0]
+            if name == "not":
+                return Not(self._condition(placed, sub + ("not",), data["not"]))
+            parts = tuple(self._condition(placed, sub + (name, i), part) for i, part in enumerate(data[name]))
+            return AllOf(parts) if name == "all" else AnyOf(parts)
+        if "measure" in data:
+            tests = [k for k in _MEASURE_TESTS if k in data]
+            extra = sorted(set(data) - {"measure"} - set(_MEASURE_TESTS))
+            if len(tests) != 1 or extra:
+                self.problems.append(placed.problem(
+                    "a measure condition needs exactly one of above, below, outside, between, missing "
+                    f"(found: {', '.join(tests + extra) or 'none'}); combine tests with `all`", sub))
+                return None
+            measure, test = data["measure"], tests[0]
+            self._check_measure(placed, sub + ("measure",), measure)
+            if test == "missing":
+                return MissingTest(measure, data["missing"])
+            scale = self._scale(placed, measure)
+            limit = data[test]
+            if isinstance(limit, list):
+                if limit[0] > limit[1] or (test == "outside" and limit[0] == limit[1]):
+                    self.problems.append(placed.problem(
+                        f"the pair [{limit[0]}, {limit[1]}] must be written [low, high]", sub + (test,)))
+                limit = (limit[0] * scale, limit[1] * scale)
+            else:
+                limit = limit * scale
+            return MeasureTest(measure, test, limit)
+        if "field" in data:
+            tests = [k for k in ("in", "equals") if k in data]
+            extra = sorted(set(data) - {"field", "in", "equals"})
+            if len(tests) != 1 or extra:
+                self.problems.append(placed.problem(
+                    f"a field condition needs exactly one of in, equals (found: {', '.join(tests + extra) or 'none'})",
+                    sub))
+                return None
+            name = data["field"]
+            if name not in self.fields:
+                close = difflib.get_close_matches(name, sorted(self.fields), n=1)
+                self.problems.append(placed.problem(
+                    f"unknown field '{name}'; known fields are {', '.join(sorted(self.fields))}, or declare it "
+                    f"under the top-level `fields:`", sub + ("field",),
+                    hint=f"did you mean '{close[0]}'?" if close else ""))
+            values = data["in"] if tests[0] == "in" else [data["equals"]]
+            return FieldTest(name, tests[0], tuple(_as_text(v) for v in values))
+        self.problems.append(placed.problem(
+            "a condition needs `measure`, `field`, `all`, `any` or `not`", sub))
+        return None
+
+    def _caveat(self, placed: Placed) -> Caveat:
+        data = placed.data
+        when = self._condition(placed, ("when",), data["when"])
+        cap = None
+        if "cap" in data:
+            spec = data["cap"]
+            for i, measure in enumerate(spec["measures"]):
+                self._check_measure(placed, ("cap", "measures", i), measure)
+            unless = self._condition(placed, ("cap", "unless"), spec["unless"]) if "unless" in spec else None
+            level = self._level(placed, ("cap", "grade"), spec["grade"])
+            cap = Cap(frozenset(spec["measures"]), level, unless)
+        return Caveat(data["id"], when, cap, data["message"].strip(), (data.get("source") or "").strip(),
+                      self._origin(placed))
+
+    def _example(self, placed: Placed) -> Example:
+        data = placed.data
+        grade = data["expect"].get("grade")
+        if grade is not None and grade not in self.grades and grade != "unrated":
+            self.problems.append(placed.problem(
+                f"expected grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}] nor 'unrated'",
+                ("expect", "grade")))
+        return Example(data["name"], dict(data["sample"]), dict(data["expect"]), self._origin(placed))
+
+
+def _as_text(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    return str(value)
+
+
+# -- canonical form ---------------------------------------------------------------------------
+
+def _number(value: float):
+    """Limits are stored with 12 significant digits: unit conversion must not change the fingerprint."""
+    rounded = float(f"{value:.12g}")
+    return int(rounded) if rounded.is_integer() and abs(rounded) < 1e15 else rounded
+
+
+def _limit_doc(limit):
+    return [_number(limit[0]), _number(limit[1])] if isinstance(limit, tuple) else _number(limit)
+
+
+def condition_doc(condition) -> dict:
+    """A compiled condition written back in the rule-set language, limits in canonical units."""
+    if isinstance(condition, MeasureTest):
+        return {"measure": condition.measure, condition.test: _limit_doc(condition.limit)}
+    if isinstance(condition, MissingTest):
+        return {"measure": condition.measure, "missing": condition.missing}
+    if isinstance(condition, FieldTest):
+        if condition.test == "equals":
+            return {"field": condition.field, "equals": condition.values[0]}
+        return {"field": condition.field, "in": list(condition.values)}
+    if isinstance(condition, AllOf):
+        return {"all": [condition_doc(p) for p in condition.parts]}
+    if isinstance(condition, AnyOf):
+        return {"any": [condition_doc(p) for p in condition.parts]}
+    return {"not": condition_doc(condition.part)}
+
+
+def rule_doc(rule, grades: tuple) -> dict:
+    if isinstance(rule, LadderRule):
+        doc = {"id": rule.id, "measure": rule.measure,
+               rule.test: {grades[level]: _limit_doc(limit) for level, limit in rule.steps}}
+    else:
+        doc = {"id": rule.id, "when": condition_doc(rule.when), "grade": grades[rule.level]}
+    doc.update(message=rule.message, source=rule.source)
+    return doc
+
+
+def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
+    """The resolved rule set as one self-contained document in canonical units."""
+    doc = {
+        "ruleset": ruleset.id, "version": ruleset.version, "title": ruleset.title,
+        "grades": list(ruleset.grades), "notice": ruleset.notice,
+        "units": {key: FACTORS_CANONICAL[family] for key, family in sorted(UNIT_FAMILY.items())},
+        "lubricants": {code: _lubricant_doc(lub, Path(ruleset.files[-1]).resolve().parent)
+                       for code, lub in ruleset.lubricants.items()},
+        "classes": {name: {"rules": [rule_doc(r, ruleset.grades) for r in rules]}
+                    for name, rules in ruleset.classes.items()},
+        "rules": [rule_doc(r, ruleset.grades) for r in ruleset.rules],
+        "caveats": [_caveat_doc(c, ruleset.grades) for c in ruleset.caveats],
+    }
+    if measure_specs:
+        doc["measures"] = {name: dict(spec) for name, spec in sorted(measure_specs.items())}
+    if ruleset.fields:
+        doc["fields"] = list(ruleset.fields)
+    return doc
+
+
+FACTORS_CANONICAL = {family: next(u for u, f in units.items() if f == 1.0) for family, units in FACTORS.items()}
+
+
+def _lubricant_doc(lub: Lubricant, top_folder: Path) -> dict:
+    """A lubricant in canonical form; a reference spectrum's path is written relative to the top
+    rule-set file, as an author would, so the fingerprint does not depend on where the files sit."""
+    doc = {}
+    for name in ("description", "base_stock", "iso_vg", "kv40", "kv100", "an", "bn", "oxidation", "rpvot",
+                 "reference_spectrum"):
+        value = getattr(lub, name)
+        if name == "reference_spectrum" and value is not None:
+            value = Path(os.path.relpath(value, top_folder)).as_posix()
+        if value is not None:
+            doc[name] = _number(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else value
+    return doc
+
+
+def _caveat_doc(caveat: Caveat, grades: tuple) -> dict:
+    doc = {"id": caveat.id, "when": condition_doc(caveat.when)}
+    if caveat.cap is not None:
+        cap = {"measures": sorted(caveat.cap.measures), "grade": grades[caveat.cap.level]}
+        if caveat.cap.unless is not None:
+            cap["unless"] = condition_doc(caveat.cap.unless)
+        doc["cap"] = cap
+    doc["message"] = caveat.message
+    if caveat.source:
+        doc["source"] = caveat.source
+    return doc
+
+
+def canonical_json(ruleset: RuleSet, measure_specs: dict) -> str:
+    """Same rule set, same bytes: sorted keys, no whitespace, UTF-8 text."""
+    return json.dumps(canonical_document(ruleset, measure_specs), sort_keys=True, separators=(",", ":"),
+                      ensure_ascii=False)
+

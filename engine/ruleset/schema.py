@@ -1,0 +1,135 @@
+"""Check a rule-set document against the shipped JSON Schema and say what is wrong in plain words.
+
+jsonschema reports paths; people fixing a file want a line number and a sentence
+that says what was expected, and they want every mistake at once.
+"""
+
+from __future__ import annotations
+
+import difflib
+import json
+from functools import lru_cache
+from importlib import resources
+
+import jsonschema
+
+from sumpwise.vocabulary.problems import Problem
+from sumpwise.ruleset.yaml_source import YamlDocument
+
+
+@lru_cache(maxsize=1)
+def ruleset_schema() -> dict:
+    """The rule-set JSON Schema (draft 2020-12) shipped inside the package."""
+    text = resources.files("sumpwise.ruleset").joinpath("ruleset.schema.json").read_text(encoding="utf-8")
+    return json.loads(text)
+
+
+@lru_cache(maxsize=1)
+def _validator() -> jsonschema.Draft202012Validator:
+    schema = ruleset_schema()
+    jsonschema.Draft202012Validator.check_schema(schema)
+    return jsonschema.Draft202012Validator(schema)
+
+
+def schema_problems(doc: YamlDocument) -> list[Problem]:
+    """Every schema violation in the document, one plain sentence each."""
+    problems: list[Problem] = []
+    for error in _validator().iter_errors(doc.data):
+        problems.extend(_explain(doc, error))
+    return problems
+
+
+def _kind(value) -> str:
+    if isinstance(value, bool):
+        return "true/false"
+    if isinstance(value, (int, float)):
+        return "a number"
+    if isinstance(value, str):
+        return "text"
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "a mapping"
+    if value is None:
+        return "nothing (null)"
+    return type(value).__name__
+
+
+_TYPE_WORDS = {"object": "a mapping", "array": "a list", "string": "text", "number": "a number",
+               "integer": "a whole number", "boolean": "true or false"}
+
+
+def _expected_types(types) -> str:
+    if isinstance(types, str):
+        types = [types]
+    return " or ".join(_TYPE_WORDS.get(t, t) for t in types)
+
+
+def _shown(value) -> str:
+    text = json.dumps(value, ensure_ascii=False, default=str)
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Problem]:
+    path = tuple(error.absolute_path)
+    value = error.instance
+    kind = error.validator
+    schema = error.schema if isinstance(error.schema, dict) else {}
+
+    if kind == "additionalProperties":
+        allowed = sorted(schema.get("properties", {}))
+        out = []
+        for key in sorted(set(value) - set(allowed)):
+            close = difflib.get_close_matches(key, allowed, n=1)
+            hint = f"did you mean '{close[0]}'?" if close else ""
+            out.append(doc.problem(path + (key,), f"unknown key '{key}'; expected one of: {', '.join(allowed)}",
+                                   key=True, hint=hint))
+        return out
+    if kind == "required":
+        missing = [k for k in error.validator_value if k not in value]
+        return [doc.problem(path, f"this mapping needs the key '{k}'") for k in missing]
+    if kind == "type":
+        return [doc.problem(path, f"expected {_expected_types(error.validator_value)} here, found {_kind(value)} "
+                                  f"{_shown(value)}")]
+    if kind == "enum":
+        options = ", ".join(str(v) for v in error.validator_value)
+        return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}")]
+    if kind == "pattern":
+        if "+" in error.validator_value:
+            what = "a base stock name such as mineral, pao, ester or mineral+ester"
+        elif "A-Z" in error.validator_value:
+            what = "a name of letters, digits and '_' that does not start with a digit"
+        else:
+            what = "an id of lower-case letters, digits and '-'"
+        return [doc.problem(path, f"{_shown(value)} is not {what}")]
+    if kind == "propertyNames":
+        return [doc.problem(path + (str(value),), f"{_shown(value)} is not a valid name here: use lower-case letters, "
+                                                  f"digits and '-'", key=True)]
+    if kind in ("minItems", "maxItems") and schema.get("minItems") == schema.get("maxItems") == 2:
+        return [doc.problem(path, f"expected a pair [low, high], found {_shown(value)}")]
+    if kind == "minItems":
+        return [doc.problem(path, f"expected a list of at least {error.validator_value} item(s)")]
+    if kind == "maxItems":
+        return [doc.problem(path, f"expected a list of at most {error.validator_value} item(s)")]
+    if kind == "minProperties":
+        return [doc.problem(path, "this mapping must not be empty")]
+    if kind == "minLength":
+        return [doc.problem(path, "this text must not be empty")]
+    if kind == "uniqueItems":
+        return [doc.problem(path, "this list repeats an item")]
+    if kind == "minimum":
+        return [doc.problem(path, f"expected a number of at least {error.validator_value}, found {_shown(value)}")]
+    if kind == "exclusiveMinimum":
+        return [doc.problem(path, f"expected a number above {error.validator_value}, found {_shown(value)}")]
+    if kind in ("oneOf", "anyOf"):
+        choices = [_describe(s) for s in error.validator_value]
+        return [doc.problem(path, f"expected {' or '.join(choices)}, found {_kind(value)} {_shown(value)}")]
+    return [doc.problem(path, error.message)]
+
+
+def _describe(schema: dict) -> str:
+    if schema.get("type") == "array" and schema.get("minItems") == schema.get("maxItems") == 2:
+        return "a pair [low, high]"
+    if schema.get("type") == "array":
+        return "a list"
+    return _expected_types(schema.get("type", "value"))

@@ -1,0 +1,109 @@
+"""The real command line, end to end: outputs, counts, rejects and the documented exit codes."""
+
+import json
+import subprocess
+import sys
+
+from conftest import DATA, ROOT, run_cli
+
+SITE = ROOT / "scenarios" / "brackwater" / "site.yaml"
+SAMPLES = ROOT / "scenarios" / "brackwater" / "samples.csv"
+DRAFT = DATA / "rulesets" / "draft.yaml"
+
+
+def test_check_valid_rule_sets_exit_0():
+    run = run_cli("check", DRAFT, SITE)
+    assert run.code == 0, run.err
+    assert run.out.count(": ok: rule set") == 2
+
+
+def test_check_invalid_rule_set_exit_2_with_file_line(tmp_path):
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("ruleset: bad\nversion: 1\nclasses:\n  x:\n    rules:\n"
+                   "      - {id: r, measure: nope, above: {watch: 1}, message: m, source: s}\n")
+    run = run_cli("check", bad)
+    assert run.code == 2
+    assert f"{bad}:6:" in run.err and "unknown measure 'nope'" in run.err
+
+
+def test_grade_counts_add_up_and_rejects_go_to_a_file(tmp_path):
+    rejects = tmp_path / "rejects.csv"
+    run = run_cli("grade", SAMPLES, "--rules", SITE, "--rejects", rejects)
+    assert run.code == 0, run.err
+    records = [json.loads(line) for line in run.out.splitlines()]
+    assert "read 331 row(s): 326 graded, 1 unrated, 4 rejected" in run.err
+    assert len(records) == 327
+    reject_rows = rejects.read_text().splitlines()
+    assert reject_rows[0] == "file,row,sample_id,field,reason" and len(reject_rows) == 5
+
+
+def test_grade_from_stdin_as_json_lines():
+    text = '{"sample_id": "S1", "class": "steam-turbine", "lubricant": "TURB-46-M", "an": 0.5}\n'
+    run = run_cli("grade", "-", "--rules", DRAFT, "--input-format", "jsonl", stdin=text)
+    assert run.code == 0, run.err
+    assert json.loads(run.out)["grade"] == "urgent"  # rise 0.43 is above 0.4
+
+
+def test_fail_at_gives_exit_3_only_when_reached():
+    text = "sample_id,class,lubricant,an\nS1,steam-turbine,TURB-46-M,0.2\n"  # rise 0.13: watch
+    assert run_cli("grade", "-", "--rules", DRAFT, "--fail-at", "watch", stdin=text).code == 3
+    assert run_cli("grade", "-", "--rules", DRAFT, "--fail-at", "alert", stdin=text).code == 0
+    bad = run_cli("grade", "-", "--rules", DRAFT, "--fail-at", "severe", stdin=text)
+    assert bad.code == 2 and "not on the grade ladder" in bad.err
+
+
+def test_usage_and_input_errors_exit_2_without_traceback(tmp_path):
+    assert run_cli("grade", SAMPLES).code == 2                        # --rules missing
+    missing = run_cli("grade", tmp_path / "none.csv", "--rules", DRAFT)
+    assert missing.code == 2 and "cannot read the file" in missing.err
+    no_class = run_cli("grade", "-", "--rules", DRAFT, stdin="sample_id,an\nS1,1\n")
+    assert no_class.code == 2 and "missing required column(s) class" in no_class.err
+    for run in (missing, no_class):
+        assert "Traceback" not in run.err
+
+
+def test_internal_fault_exits_1(monkeypatch):
+    import importlib
+    grading = importlib.import_module("sumpwise.results.pipeline")  # the module, not sumpwise.results.pipeline() the function
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("boom")
+
+    monkeypatch.setattr(grading, "evaluate", broken)
+    run = run_cli("grade", DATA / "samples" / "draft-record.csv", "--rules", DRAFT)
+    assert run.code == 1 and "internal error" in run.err
+
+
+def test_formats_csv_and_table():
+    csv_run = run_cli("grade", DATA / "samples" / "draft-record.csv", "--rules", DRAFT, "--format", "csv")
+    assert csv_run.out.startswith("sample_id,unit_id,class")
+    table = run_cli("grade", DATA / "samples" / "draft-record.csv", "--rules", DRAFT, "--format", "table")
+    assert "BP-0412" in table.out and "watch +" in table.out
+
+
+def test_explain_command_and_a_rejected_sample():
+    run = run_cli("explain", "BP-0412", "--samples", DATA / "samples" / "draft-record.csv", "--rules", DRAFT)
+    assert run.code == 0 and "capped by caveat ester-carbonyl" in run.out
+    rejected = run_cli("explain", "BP-0118", "--samples", SAMPLES, "--rules", SITE)
+    assert rejected.code == 2 and "was rejected, not graded" in rejected.err
+
+
+def test_every_command_has_help():
+    for command in ("check", "grade", "explain", "demo", "spectra"):
+        run = run_cli(command, "--help")
+        assert run.code == 0 and "usage: sumpwise" in run.out
+
+
+def test_demo_writes_results(tmp_path):
+    run = run_cli("demo", "--out", tmp_path)
+    assert run.code == 0, run.err
+    assert "steam-turbine" in run.out and "Screening aid only" in run.out
+    assert len((tmp_path / "brackwater-results.jsonl").read_text().splitlines()) == 327
+
+
+def test_the_installed_console_script_runs():
+    script = ROOT / ".venv" / "bin" / "sumpwise"
+    command = [str(script)] if script.exists() else [sys.executable, "-m", "sumpwise"]
+    done = subprocess.run(command + ["check", str(DRAFT)], capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    assert "ok: rule set brackwater-site version 4" in done.stdout

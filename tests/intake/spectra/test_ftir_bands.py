@@ -1,0 +1,216 @@
+"""Band measures against closed-form areas and heights of Gaussian and Lorentzian bands on sloped baselines.
+
+References: the closed-form integrals of the Gaussian (erf) and Lorentzian
+(arctan); scipy.integrate.quad as an independent numerical check (test-only).
+Tolerances: the trapezoid rule on a grid of step h differs from the exact
+integral by h^2/12 (f'(b) - f'(a)) to leading order (Euler-Maclaurin), so a
+measured area is checked twice: against the exact integral within a relative
+1e-4 (the size of that term here), and against the exact integral plus that
+closed-form term within a relative 1e-7.
+"""
+
+import math
+
+import numpy as np
+import pytest
+from scipy import integrate
+
+from sumpwise.intake.spectra.bands import BandFileError, load_bands, measure_block, parse_bands, plan_bands, trapezoid_weights
+from sumpwise.intake.spectra.batch import ABS_PER_CM_PER_ABS_PER_01MM, measure_matrix
+from sumpwise.intake.spectra.spectrum import (
+    micrometres_from_wavenumber,
+    nanometres_from_wavenumber,
+    wavenumber_from_micrometres,
+    wavenumber_from_nanometres,
+)
+from synthetic_spectra import gaussian, lorentzian, wavenumber_grid
+
+X = wavenumber_grid()  # 550-4000 cm-1, 2 cm-1
+OFFSET, SLOPE = 0.03, 2.5e-5  # a sloped baseline, absorbance
+
+
+def _gaussian_area_between(low, high, centre, area, sigma):
+    z = lambda v: (v - centre) / (sigma * math.sqrt(2))
+    return area / 2 * (math.erf(z(high)) - math.erf(z(low)))
+
+
+def _lorentzian_area_between(low, high, centre, area, gamma):
+    return area / math.pi * (math.atan((high - centre) / gamma) - math.atan((low - centre) / gamma))
+
+
+def _gaussian_slope(v, centre, area, sigma):
+    return -(v - centre) / sigma**2 * gaussian(v, centre, area, sigma)
+
+
+def _lorentzian_slope(v, centre, area, gamma):
+    return -2 * area * gamma * (v - centre) / (math.pi * ((v - centre) ** 2 + gamma**2) ** 2)
+
+
+def _trapezoid_term(slope, low, high, h=2.0):
+    """Leading Euler-Maclaurin term: trapezoid - exact = h^2/12 (f'(high) - f'(low))."""
+    return h**2 / 12 * (slope(high) - slope(low))
+
+
+def _one_band(**band):
+    document = {
+        "bands": [band],
+        "ester_detection": {"region": [1725, 1770], "baseline": [{"at": 1900}, {"at": 1600}], "threshold": 0.5},
+    }
+    return parse_bands(document, "test")
+
+
+def test_gaussian_carbonyl_area_and_height_match_closed_form():
+    # The packaged oxidation band: 1670-1800 cm-1 (ASTM D7414 5.1), baseline minima 1900-2200 and 550-650.
+    bands = load_bands()
+    centre, area, sigma = 1710.0, 8.0, 12.0
+    y = OFFSET + SLOPE * X + gaussian(X, centre, area, sigma)
+    values, positions, _ = measure_matrix(X, y[None, :], bands)
+    expected_area = _gaussian_area_between(1670, 1800, centre, area, sigma)
+    correction = _trapezoid_term(lambda v: _gaussian_slope(v, centre, area, sigma), 1670, 1800)
+    assert values["oxidation"][0] == pytest.approx(expected_area, rel=1e-4)
+    assert values["oxidation"][0] == pytest.approx(expected_area + correction, rel=1e-7)
+    assert values["oxidation_peak"][0] == pytest.approx(area / (sigma * math.sqrt(2 * math.pi)), rel=1e-9)
+    assert positions["oxidation_peak"][0] == centre
+    quad, _ = integrate.quad(lambda v: gaussian(v, centre, area, sigma), 1670, 1800, points=[centre])
+    assert values["oxidation"][0] == pytest.approx(quad, rel=1e-4)
+    assert quad == pytest.approx(expected_area, rel=1e-12)
+
+
+def test_lorentzian_area_above_fixed_baseline_points_matches_closed_form():
+    # Baseline anchors at fixed points see the Lorentzian's tails; the expected value subtracts the
+    # straight line through the tails, in closed form.
+    bands = _one_band(name="band", measure="area", region=[1600, 1650], baseline=[{"at": 1500}, {"at": 1800}])
+    centre, area, gamma = 1630.0, 3.0, 6.0
+    y = OFFSET + SLOPE * X + lorentzian(X, centre, area, gamma)
+    values, _, _ = measure_matrix(X, y[None, :], bands)
+    la, lb = lorentzian(1500, centre, area, gamma), lorentzian(1800, centre, area, gamma)
+    line = 50 * (la + (1625 - 1500) * (lb - la) / 300)
+    expected = _lorentzian_area_between(1600, 1650, centre, area, gamma) - line
+    correction = _trapezoid_term(lambda v: _lorentzian_slope(v, centre, area, gamma), 1600, 1650)
+    assert values["band"][0] == pytest.approx(expected, rel=5e-4)
+    assert values["band"][0] == pytest.approx(expected + correction, rel=1e-5)
+    baseline = lambda v: la + (v - 1500) * (lb - la) / 300
+    quad, _ = integrate.quad(lambda v: lorentzian(v, centre, area, gamma) - baseline(v), 1600, 1650, points=[centre])
+    assert quad == pytest.approx(expected, rel=1e-10)
+
+
+def test_area_window_ends_between_grid_points_are_interpolated():
+    # trapezoid_weights integrate the piecewise-linear interpolant exactly: a straight line's integral.
+    x = np.array([0.0, 1.0, 2.5, 4.0, 7.0])
+    weights = trapezoid_weights(x, 0.4, 5.2)
+    line = 3.0 - 0.5 * x
+    exact = (3.0 * 5.2 - 0.25 * 5.2**2) - (3.0 * 0.4 - 0.25 * 0.4**2)
+    assert weights @ line == pytest.approx(exact, rel=1e-12)
+
+
+def test_a_flat_sloped_baseline_alone_reads_zero_for_every_area_band():
+    bands = load_bands()
+    y = OFFSET + SLOPE * X
+    values, _, _ = measure_matrix(X, y[None, :], bands)
+    for band in bands.bands:
+        if band.measure != "point":
+            assert abs(values[band.name][0]) < 1e-12, band.name
+
+
+def test_soot_is_the_absorbance_at_2000():
+    values, _, _ = measure_matrix(X, (OFFSET + SLOPE * X)[None, :], load_bands())
+    assert values["soot"][0] == pytest.approx(OFFSET + SLOPE * 2000, rel=1e-12)
+
+
+def test_spectral_subtraction_of_a_spectrum_from_itself_is_zero():
+    y = OFFSET + SLOPE * X + gaussian(X, 1712, 6.0, 14) + gaussian(X, 3350, 20.0, 70)
+    values, _, _ = measure_matrix(X, y[None, :], load_bands(), reference=y)
+    for name, value in values.items():
+        assert abs(value[0]) < 1e-12, name
+
+
+def test_subtraction_reports_abs_per_cm_as_100_times_abs_per_01mm():
+    # ASTM D7412 12.1-12.2: abs/cm = abs/0.100 mm x 100.
+    assert ABS_PER_CM_PER_ABS_PER_01MM == 100.0
+    new = OFFSET + SLOPE * X
+    used = new + gaussian(X, 1712, 6.0, 14)
+    direct, _, _ = measure_matrix(X, (used - new)[None, :], load_bands())
+    differential, _, _ = measure_matrix(X, used[None, :], load_bands(), reference=new)
+    assert differential["oxidation"][0] == pytest.approx(100 * direct["oxidation"][0], rel=1e-12)
+    assert differential["oxidation"][0] == pytest.approx(100 * _gaussian_area_between(1670, 1800, 1712, 6.0, 14), rel=1e-4)
+
+
+def test_path_length_normalisation_to_01mm():
+    # Common practice (ftir.md): A_0.1mm = A_measured x 0.100 / L_mm.
+    y = OFFSET + SLOPE * X + gaussian(X, 1712, 6.0, 14)
+    at_01, _, _ = measure_matrix(X, y[None, :], load_bands(), path_length_mm=0.1)
+    at_025, _, _ = measure_matrix(X, (0.25 * y)[None, :], load_bands(), path_length_mm=0.025)
+    assert at_025["oxidation"][0] == pytest.approx(at_01["oxidation"][0], rel=1e-12)
+
+
+def test_block_of_many_spectra_equals_one_at_a_time():
+    rng = np.random.default_rng(7)
+    areas = rng.uniform(0, 10, size=50)
+    block = OFFSET + SLOPE * X + areas[:, None] * gaussian(X, 1712, 1.0, 14)[None, :]
+    bands = load_bands()
+    plan = plan_bands(X, bands.bands)
+    together = measure_block(plan, block).values["oxidation"]
+    alone = [measure_block(plan, row[None, :]).values["oxidation"][0] for row in block]
+    np.testing.assert_allclose(together, alone, rtol=1e-12)
+    unit = _gaussian_area_between(1670, 1800, 1712, 1.0, 14)
+    unit += _trapezoid_term(lambda v: _gaussian_slope(v, 1712, 1.0, 14), 1670, 1800)
+    np.testing.assert_allclose(together, areas * unit, rtol=1e-7)
+
+
+def test_nan_inside_a_band_gives_nan_for_that_band_only():
+    y = OFFSET + SLOPE * X
+    y[np.searchsorted(X, 1710)] = np.nan
+    values, _, _ = measure_matrix(X, y[None, :], load_bands())
+    assert np.isnan(values["oxidation"][0]) and np.isfinite(values["water"][0])
+
+
+def test_grid_not_covering_a_band_is_reported():
+    x = wavenumber_grid(700, 4000, 2.0)
+    _, _, uncovered = measure_matrix(x, (OFFSET + SLOPE * x)[None, :], load_bands())
+    assert "oxidation" in uncovered and "550-2200" in uncovered["oxidation"]
+
+
+@pytest.mark.parametrize(
+    "wavenumber, micrometres",
+    [(4000.0, 2.5), (400.0, 25.0)],  # ftir.md (confirmed): mid-infrared 4000-400 cm-1 is 2.5-25 um
+)
+def test_wavenumber_wavelength_conversions(wavenumber, micrometres):
+    assert wavenumber_from_micrometres(micrometres) == pytest.approx(wavenumber)
+    assert micrometres_from_wavenumber(wavenumber) == pytest.approx(micrometres)
+    assert wavenumber_from_nanometres(micrometres * 1000) == pytest.approx(wavenumber)
+    assert nanometres_from_wavenumber(wavenumber) == pytest.approx(micrometres * 1000)
+
+
+def test_packaged_band_file_names_the_published_set_and_marks_its_sources():
+    bands = load_bands()
+    assert bands.names[:8] == ("oxidation", "oxidation_peak", "nitration", "sulfation", "antiwear", "water", "soot",
+                               "fuel_gasoline")
+    oxidation = bands.bands[0]
+    assert oxidation.region == (1670.0, 1800.0) and "D7414" in oxidation.source  # ASTM D7414 5.1
+    assert all(band.status for band in bands.bands)
+
+
+def test_user_band_file_overrides_the_packaged_one(tmp_path):
+    path = tmp_path / "bands.yaml"
+    path.write_text(
+        "bands:\n  - {name: carbonyl, measure: area, region: [1650, 1820], baseline: [{at: 1900}, {at: 1550}]}\n"
+        "ester_detection: {region: [1725, 1770], baseline: [{at: 1900}, {at: 1550}], threshold: 1.0}\n"
+    )
+    bands = load_bands(path)
+    assert bands.names == ("carbonyl",) and bands.ester_threshold == 1.0
+
+
+@pytest.mark.parametrize(
+    "band, fragment",
+    [
+        ({"name": "b", "measure": "volume", "region": [1, 2], "baseline": []}, "measure"),
+        ({"name": "b", "measure": "area", "region": [2, 1], "baseline": [{"at": 0}, {"at": 3}]}, "low < high"),
+        ({"name": "b", "measure": "area", "region": [1, 2], "baseline": []}, "needs two baseline anchors"),
+        ({"name": "b", "measure": "area", "region": [1, 2], "baseline": [{"at": 0}, {"near": 3}]}, "minimum_in"),
+        ({"name": "not a name", "measure": "area", "region": [1, 2], "baseline": []}, "identifier"),
+    ],
+)
+def test_bad_band_definitions_name_the_band_and_field(band, fragment):
+    with pytest.raises(BandFileError) as caught:
+        _one_band(**band)
+    assert fragment in str(caught.value) and "bands[0]" in str(caught.value)

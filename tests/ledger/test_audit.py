@@ -1,0 +1,58 @@
+"""Audit reads of the ledger: the story of one verdict, and replay finding what was altered.
+
+Replay's reference is the engine grading the stored values afresh; alterations are made
+with sqlite3 from the standard library, behind sumpwise's back.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+
+import pytest
+
+import sumpwise
+from sumpwise.ledger.audit import explain_from_ledger, replay
+from sumpwise.ledger.store import LedgerError, grade_into_ledger
+from tests.conftest import DATA
+
+RULES = DATA / "ledger" / "trend-rules.yaml"
+SAMPLES = DATA / "ledger" / "samples.csv"
+
+
+@pytest.fixture
+def ruleset():
+    return sumpwise.load_ruleset(RULES)
+
+
+def test_explain_tells_the_story_from_the_ledger(tmp_path, ruleset):
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    story = "\n".join(explain_from_ledger(db, "T-04"))
+    for text in ("Values as recorded: kv40 47.5, an 0.21, oxidation 13, oil_hours 3000; method direct",
+                 "carbonyl-jump: alert", "above 5 abs/cm", "Source: test limit, invented",
+                 f"sha256 {ruleset.sha256}", "Notice:", "Cautions:", "Unit ST-1: this sample and the ones before it",
+                 "2026-01-05  T-01"):
+        assert text in story, text
+    broken = "\n".join(explain_from_ledger(db, "T-05"))
+    assert "trend-break: method changed from direct to subtraction" in broken
+    with pytest.raises(LedgerError, match="no sample 'NOPE'"):
+        explain_from_ledger(db, "NOPE")
+
+
+def test_replay_finds_altered_results_values_and_rule_sets(tmp_path, ruleset):
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    assert replay(db).differences == ()
+    with sqlite3.connect(db) as conn:
+        conn.execute("UPDATE results SET record = replace(record, '\"grade\": \"alert\"', '\"grade\": \"normal\"') "
+                     "WHERE entry = (SELECT entry FROM samples WHERE sample_id = 'T-04')")
+        conn.execute("UPDATE samples SET content = replace(content, '0.12', '0.99') WHERE sample_id = 'T-02'")
+    found = {d.sample_id: d.what for d in replay(db).differences}
+    assert found["T-04"].startswith("stored normal, replayed alert; differs in: grade")
+    assert "altered after recording" in found["T-02"]
+    assert found["T-03"].startswith("stored watch, replayed normal")  # its acid step was taken from T-02's altered value
+    assert set(found) == {"T-02", "T-03", "T-04"}
+    assert {d.sample_id for d in replay(db, since="2026-03-10").differences} == {"T-04"}
+    with sqlite3.connect(db) as conn:
+        conn.execute("UPDATE rulesets SET canonical = replace(canonical, '0.05', '0.06')")
+    assert all("no longer has its fingerprint" in d.what for d in replay(db).differences)

@@ -1,0 +1,209 @@
+"""The ledger: idempotent re-import, refused and recorded corrections, schema checks.
+
+Checks are against SQLite's own integrity check and counts (sqlite3 from the standard
+library is the reference), and against grading the same samples in one batch without a
+ledger: trend measures computed across ledger batches must give the same records.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import sqlite3
+
+import pytest
+
+import sumpwise
+from sumpwise.ledger.audit import explain_from_ledger, replay, unit_history
+from sumpwise.ledger.store import SCHEMA_VERSION, LedgerError, grade_into_ledger, migrate, open_ledger
+from sumpwise.render.jsonl import jsonl_lines
+from tests.conftest import DATA
+
+RULES = DATA / "ledger" / "trend-rules.yaml"
+SAMPLES = DATA / "ledger" / "samples.csv"
+
+
+def _batch(text: str, name="batch.csv"):
+    return sumpwise.read_samples(io.StringIO(text), name)
+
+
+def _split():
+    header, *rows = SAMPLES.read_text().splitlines()
+    first = "\n".join([header] + rows[:3]) + "\n"
+    second = "\n".join([header] + rows[3:]) + "\n"
+    return first, second
+
+
+def _count(db, table="samples") -> int:
+    with sqlite3.connect(db) as conn:
+        return conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]
+
+
+@pytest.fixture
+def ruleset():
+    return sumpwise.load_ruleset(RULES)
+
+
+def test_same_sample_same_content_adds_nothing(tmp_path, ruleset):
+    db = tmp_path / "l.db"
+    _, first = grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    assert (first.new, first.known, first.corrections) == (9, 0, 0)
+    _, again = grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    assert (again.batch, again.new, again.known) == (None, 0, 9)
+    assert _count(db) == 9 and _count(db, "results") == 9 and _count(db, "batches") == 1
+    assert _count(db, "rulesets") == 1  # the rule set is stored once, by fingerprint
+
+
+def test_trends_across_batches_equal_one_batch(tmp_path, ruleset):
+    db = tmp_path / "l.db"
+    first, second = _split()
+    grade_into_ledger(db, _batch(first), ruleset)
+    later, _ = grade_into_ledger(db, _batch(second), ruleset)
+    whole = sumpwise.grade(sumpwise.read_samples(SAMPLES), ruleset)
+    wanted = {line.split('"')[3]: line for line in "".join(jsonl_lines(whole)).splitlines()}
+    for line in "".join(jsonl_lines(later)).splitlines():
+        assert line == wanted[line.split('"')[3]]
+    assert later.find("T-04").reasons[0].rule == "carbonyl-jump"  # its previous sample came from the ledger
+
+
+def test_same_id_other_content_is_refused_then_recorded_as_a_correction(tmp_path, ruleset):
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    changed = SAMPLES.read_text().replace("T-04,ST-1,steam-turbine,TEST-46,2026-04-05,3000,47.5,0.21,13.0",
+                                          "T-04,ST-1,steam-turbine,TEST-46,2026-04-05,3000,47.5,0.21,6.0")
+    with pytest.raises(LedgerError) as refused:
+        grade_into_ledger(db, _batch(changed, "fixed.csv"), ruleset)
+    message = str(refused.value)
+    assert "T-04 (row 4, recorded in batch 1)" in message and "--correction" in message
+    assert "Nothing was recorded" in message and _count(db) == 9
+    _, recorded = grade_into_ledger(db, _batch(changed, "fixed.csv"), ruleset, correction=True)
+    assert (recorded.new, recorded.known, recorded.corrections) == (0, 8, 1)
+    assert _count(db) == 10  # both versions are kept
+    story = "\n".join(explain_from_ledger(db, "T-04"))
+    assert "This is the current record; 1 earlier version(s) were corrected: batch 1" in story
+    assert "graded alert" in story  # the old verdict, from the old values
+    history = unit_history(db, "ST-1")
+    assert history.loc[history["sample_id"] == "T-04", "corrected"].tolist() == [True]
+    assert len(history) == 7
+    report = replay(db)
+    assert report.checked == 10 and report.differences == ()
+
+
+def test_a_file_that_is_not_a_ledger_is_refused_and_left_alone(tmp_path):
+    text = tmp_path / "notes.db"
+    text.write_text("not a database at all\n")
+    with pytest.raises(LedgerError, match="not an SQLite database"):
+        open_ledger(text)
+    assert text.read_text() == "not a database at all\n"
+    other = tmp_path / "other.db"
+    with sqlite3.connect(other) as conn:
+        conn.execute("CREATE TABLE inventory (part TEXT)")
+    with pytest.raises(LedgerError, match="another kind"):
+        open_ledger(other)
+    with sqlite3.connect(other) as conn:
+        assert [r[0] for r in conn.execute("SELECT name FROM sqlite_master")] == ["inventory"]
+
+
+def test_a_newer_schema_is_refused(tmp_path, ruleset):
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(db) as conn:
+        conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION + 1}")
+    with pytest.raises(LedgerError, match=f"schema version {SCHEMA_VERSION + 1}, newer"):
+        open_ledger(db)
+    assert _count(db) == 9
+
+
+def test_an_older_schema_is_migrated_keeping_its_data(tmp_path, ruleset):
+    db = tmp_path / "old.db"
+    conn = sqlite3.connect(db, isolation_level=None)
+    migrate(conn, to=1)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == 1
+    conn.execute("INSERT INTO rulesets VALUES ('abc', 'x', '1', '{}')")
+    conn.close()
+    conn = open_ledger(db)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+    names = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'index'")}
+    assert {"samples_unit", "samples_sample"} <= names
+    assert conn.execute("SELECT count(*) FROM rulesets").fetchone()[0] == 1
+    assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    conn.close()
+
+
+def test_sample_values_are_stored_as_canonical_json(tmp_path, ruleset):
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(db) as conn:
+        content, = conn.execute("SELECT content FROM samples WHERE sample_id = 'T-09'").fetchone()
+    assert json.loads(content) == {"an": 0.09, "class": "steam-turbine", "kv40": 46.1, "lab": "lab-a",
+                                   "lubricant": "TEST-46", "method": "direct", "oil_changed": True,
+                                   "oil_hours": 1300.0, "oxidation": 2.5, "sample_id": "T-09",
+                                   "sampled_on": "2026-02-06", "unit_id": "ST-2"}
+    assert list(json.loads(content)) == sorted(json.loads(content))
+
+
+def test_sample_contents_equal_the_standard_json_module_row_by_row():
+    # Reference: Python's json module (sorted keys, no ASCII escaping); missing values are left out.
+    import math
+
+    import numpy as np
+    import pandas as pd
+
+    from sumpwise.ledger.store import sample_contents
+    words = ["plain", 'a "quote"', "back\\slash", "tab\tand\nnewline", "é ü ß", "\x7f", "line\u2028sep", ""]
+    frame = pd.DataFrame({
+        "sample_id": [f"S{k}" for k in range(8)],
+        "note": np.array(words, dtype=object),
+        "maybe": np.array([None, "x", None, "y", float("nan"), "z", None, "w"], dtype=object),
+        "value": [0.1, -0.0, 1e16, 1e-5, float("nan"), 5e-324, float("inf"), 0.30000000000000004],
+        "count": np.arange(-3, 5),
+        "flag": [True, False] * 4,
+        "mixed": np.array([1, 1.0, True, "1", None, 2, "2", 2.5], dtype=object),
+        'odd "key" é': ["v"] * 8,
+    })
+    expected = []
+    for k in range(len(frame)):
+        row = {}
+        for name in frame.columns:
+            v = frame[name].iat[k]
+            if name in ("value", "count"):
+                if math.isfinite(float(v)):
+                    row[name] = float(v)
+            elif name == "flag":
+                row[name] = bool(v)
+            elif not pd.isna(v):
+                row[name] = str(v)
+        expected.append(json.dumps(row, sort_keys=True, ensure_ascii=False, separators=(", ", ": ")))
+    assert sample_contents(frame).tolist() == expected
+    assert sample_contents(frame.iloc[:0]).tolist() == [] and sample_contents(frame[[]]).tolist() == ["{}"] * 8
+
+
+def test_missing_values_are_stored_as_null(tmp_path, ruleset):
+    # SQLite stores a bound NaN as NULL (sqlite.org/c3ref/bind_blob.html); the ledger relies on it.
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(db) as conn:
+        kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(level) FROM samples "
+                             "JOIN results USING (entry) WHERE sample_id = 'T-04'").fetchone()
+        unrated = conn.execute("SELECT typeof(level) FROM samples JOIN results USING (entry) "
+                               "WHERE sample_id = 'T-01'").fetchone()
+    assert kinds == ("null", "real", "integer") and unrated == ("null",)
+
+
+def test_a_new_ledger_gets_the_larger_page_and_an_old_one_keeps_its_own(tmp_path, ruleset):
+    # PRAGMA page_size applies only before a database has content (sqlite.org/pragma.html#pragma_page_size).
+    from sumpwise.ledger.store import PAGE_SIZE
+    db = tmp_path / "new.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("PRAGMA page_size").fetchone()[0] == PAGE_SIZE
+    old = tmp_path / "old.db"
+    conn = sqlite3.connect(old, isolation_level=None)
+    conn.execute("PRAGMA page_size=4096")
+    migrate(conn)
+    conn.close()
+    _, recorded = grade_into_ledger(old, sumpwise.read_samples(SAMPLES), ruleset)
+    with sqlite3.connect(old) as conn:
+        assert conn.execute("PRAGMA page_size").fetchone()[0] == 4096
+        assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    assert recorded.new == 9 and _count(old) == 9

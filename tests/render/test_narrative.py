@@ -1,0 +1,32 @@
+"""The narrative of one sample names every reason with value, limit and source, the caveats,
+what was not evaluated, the notice and the cautions."""
+
+from conftest import DATA
+
+from sumpwise import grade, load_ruleset, read_samples
+from sumpwise.render.narrative import explain_lines
+
+
+def test_explain_tells_the_whole_story():
+    rs = load_ruleset(DATA / "rulesets" / "draft.yaml")
+    result = grade(read_samples(DATA / "samples" / "draft-record.csv"), rs).result(0)
+    text = "\n".join(explain_lines(result, rs.grades))
+    assert "Grade: WATCH (level 1 on the ladder normal < watch < alert < urgent)" in text
+    assert "an_rise = 0.15 mg KOH/g, above 0.1 mg KOH/g (the watch limit)." in text
+    assert "carbonyl-rise: watch (would be alert; capped by caveat ester-carbonyl)" in text
+    assert "oil_hours = 1500, test below 2000: holds" in text
+    assert "Source: site practice" in text
+    assert "ester-carbonyl: Ester base stock" in text
+    assert "visc-drift: lacks kv40" in text
+    assert rs.sha256 in text
+    assert "Notice: Screening guidance only." in text
+    assert "Confirm a severe finding by resampling" in text
+
+
+def test_explain_says_when_a_cap_held_because_its_exception_went_unchecked():
+    import io
+    rs = load_ruleset(DATA / "rulesets" / "draft.yaml")
+    csv = "sample_id,class,lubricant,oxidation,oil_hours\nx,screw-compressor,COMP-68-DE,210,5000\n"
+    result = grade(read_samples(io.StringIO(csv)), rs).result(0)
+    text = " ".join(explain_lines(result, rs.grades))
+    assert "could not be checked: it lacks an." in " ".join(text.split())

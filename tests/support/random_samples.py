@@ -1,0 +1,28 @@
+"""Random samples of every class and lubricant of a rule set (and some that no rule set knows),
+with 15 % of each reading missing: input for the oracle and writer agreement tests."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+
+def random_samples(ruleset, n: int, seed: int) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    classes = list(ruleset.classes) + ["unknown-class"]
+    lubricants = list(ruleset.lubricants) + ["NO-SUCH-OIL"]
+    frame = pd.DataFrame({
+        "sample_id": [f"R{i}" for i in range(n)],
+        "unit_id": rng.choice(["U1", "U2", "U3"], n),
+        "class": rng.choice(classes, n),
+        "lubricant": rng.choice(lubricants, n),
+        "method": rng.choice(["direct", "subtraction", ""], n),
+    })
+    spreads = {"kv40": (20, 400), "kv100": (1.5, 40), "an": (0, 3), "bn": (0, 15), "oxidation": (0, 300),
+               "nitration": (0, 40), "water": (0, 3000), "oil_hours": (0, 40000), "rpvot": (10, 1500),
+               "soot": (0, 5), "sulfation": (0, 40)}
+    for name, (lo, hi) in spreads.items():
+        values = rng.uniform(lo, hi, n).round(3)
+        values[rng.random(n) < 0.15] = np.nan
+        frame[name] = values
+    return frame
