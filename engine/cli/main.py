@@ -24,6 +24,7 @@ from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
 from sumpwise.render.table import write_table
+from sumpwise.results.records import FORMS, FULL
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
@@ -86,6 +87,9 @@ def _parser(stdout) -> _Parser:
     _common_inputs(grade)
     grade.add_argument("--format", choices=("jsonl", "csv", "table"), default="jsonl",
                        help="output format (default jsonl)")
+    grade.add_argument("--record", choices=FORMS, default=FULL,
+                       help="JSON Lines record form: full (default; self-contained, every message, source and "
+                            "the notice) or compact (every fact; texts by reference to the rule set it names)")
     grade.add_argument("--out", metavar="PATH", help="write results here instead of standard output")
     grade.add_argument("--rejects", metavar="PATH",
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
@@ -229,6 +233,8 @@ def _summary(graded) -> str:
 
 
 def _grade(args, stdin, stdout, stderr) -> int:
+    if args.record != FULL and args.format != "jsonl":
+        raise UsageError(f"sumpwise grade: --record {args.record} is a JSON Lines form; --format is {args.format}")
     ruleset, batch = _read(args, stdin)
     fail_level = None
     if args.fail_at is not None:
@@ -237,7 +243,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                              f"[{', '.join(ruleset.grades)}]")
         fail_level = ruleset.level_of(args.fail_at)
     graded = ledger_cli.grade(args, batch, ruleset, stderr)
-    writer = {"jsonl": write_jsonl, "csv": write_csv,
+    writer = {"jsonl": lambda graded, out: write_jsonl(graded, out, args.record), "csv": write_csv,
               "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
     if args.out:
         with open(args.out, "w", encoding="utf-8", newline="") as out:

@@ -25,7 +25,7 @@ from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, curre
                      history_frame, open_ledger, sample_entries, unit_entries)
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.render.jsonl import jsonl_lines
-from sumpwise.results.records import CaveatNote, Clause, NotEvaluated, Reason, SampleResult
+from sumpwise.results.records import FORMAT_1, FULL, CaveatNote, Clause, NotEvaluated, Reason, SampleResult
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import SampleBatch
 
@@ -216,7 +216,9 @@ def replay(path, since: str | None = None) -> ReplayReport:
             history = history_frame(conn, units, before_batch=batch["batch"])
             history = history[~history["sample_id"].isin(entries["sample_id"])]
             graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
-            replayed = "".join(jsonl_lines(graded)).split("\n")[:-1]
+            # A batch recorded before records had a format is replayed in the form it was written in.
+            form = FULL if entries["record"].iat[0].startswith('{"format": ') else FORMAT_1
+            replayed = "".join(jsonl_lines(graded, form=form)).split("\n")[:-1]
             for k in np.flatnonzero(wanted):
                 checked += 1
                 stored = entries["record"].iat[k] + batch["record_tail"]

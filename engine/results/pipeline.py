@@ -10,7 +10,7 @@ import pandas as pd
 from sumpwise.evaluation.evaluator import evaluate
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.vocabulary.measures import INPUT_MEASURES
-from sumpwise.results.records import GradedBatch
+from sumpwise.results.records import GradedBatch, recorded_derived
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
 from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, spectrum_caveat_flags
@@ -28,12 +28,14 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, trend_bases(ruleset))
     for column in SPECTRUM_COLUMNS:
         measured[column] = batch.frame[column] if column in batch.frame.columns else None
+    measured["oil_changed"] = (batch.frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in batch.frame.columns
+                               else np.zeros(len(measured), dtype=bool))
     outcome = evaluate(ruleset, measured)
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
                                                   spectrum_caveat_flags(measured)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
-                       TREND_CAVEATS + SPECTRUM_CAVEATS)
+                       TREND_CAVEATS + SPECTRUM_CAVEATS, recorded_derived(ruleset, measured))
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:
