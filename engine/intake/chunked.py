@@ -21,6 +21,7 @@ import pandas as pd
 from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, read_samples
 from sumpwise.vocabulary.problems import InputError
 
+DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
 _SEEN_AT = re.compile(r"^(sample id '.*' already seen at row )(\d+)$", re.S)
 
 
@@ -90,7 +91,7 @@ def _moved(batch: SampleBatch, offset: int) -> SampleBatch:
     frame.index = frame.index + offset
     rejects = []
     for r in batch.rejects:
-        found = _SEEN_AT.match(r.reason)
+        found = _SEEN_AT.match(r.reason) if r.code == DUPLICATE_ID else None
         reason = f"{found.group(1)}{int(found.group(2)) + offset}" if found else r.reason
         rejects.append(replace(r, row=r.row + offset, reason=reason))
     return replace(batch, frame=frame, rejects=tuple(rejects))
@@ -111,14 +112,15 @@ class _SeenIds:
             if len(self.hashes) else np.zeros(len(ids), dtype=bool)
         if known.any():
             first = self.rows[at[known]]
-            extra = [Reject(int(row), sid, "sample_id", f"sample id '{sid}' already seen at row {int(before)}")
+            extra = [Reject(int(row), sid, "sample_id", f"sample id '{sid}' already seen at row {int(before)}",
+                            DUPLICATE_ID)
                      for row, sid, before in zip(batch.frame.index[known], ids[known], first)]
             rejects = tuple(sorted(batch.rejects + tuple(extra), key=lambda r: (r.row, r.field)))
             batch = replace(batch, frame=batch.frame[~known], rejects=rejects)
             hashes = hashes[~known]
         # rows rejected for other reasons still count as the first of their id, as in a whole file
         first_rejects = {r.row: r.sample_id for r in batch.rejects
-                         if r.sample_id is not None and not _SEEN_AT.match(r.reason)}
+                         if r.sample_id is not None and r.code != DUPLICATE_ID}
         rows = np.concatenate([batch.frame.index.to_numpy(dtype=np.int64),
                                np.fromiter(first_rejects, dtype=np.int64, count=len(first_rejects))])
         if first_rejects:
