@@ -48,7 +48,7 @@ def test_an_id_repeated_in_a_later_chunk_is_rejected_naming_its_first_row(tmp_pa
     (tmp_path / "s.csv").write_text(text)
     code, out, rejects, err = _grade(tmp_path, tmp_path / "s.csv", BAD_ROWS[1], 2)
     assert code == 0 and len(out.splitlines()) == 3
-    assert rejects.splitlines()[1].endswith(",4,A,sample_id,sample id 'A' already seen at row 1")
+    assert rejects.splitlines()[1].endswith(",4,A,sample_id,D003,sample id 'A' already seen at row 1")
     assert "read 4 row(s): 3 graded, 0 unrated, 1 rejected" in err
 
 
