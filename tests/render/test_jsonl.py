@@ -159,3 +159,18 @@ def test_the_record_option_names_a_json_lines_form():
     assert run.code == 2 and "--record compact is a JSON Lines form" in run.err and run.out == ""
     run = run_cli("grade", SAMPLES, "--rules", SITE, "--record", "short")
     assert run.code == 2 and "invalid choice: 'short'" in run.err
+
+
+def test_compact_records_equal_the_per_row_peers_on_random_samples_of_every_class(tmp_path):
+    # The benchmark's peer builds each compact record on its own from the per-row oracle
+    # (tests/support/row_evaluator.py), with no code of sumpwise's writers or records.
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    random_samples(ruleset, 1500, seed=21).to_csv(tmp_path / "s.csv", index=False)
+    subprocess.run([sys.executable, str(ROOT / "benchmarks" / "peer_per_row.py"), str(tmp_path / "s.csv"),
+                    "--rules", str(ROOT / "benchmarks" / "all-classes.yaml"), "--out", str(tmp_path / "peer.jsonl")],
+                   check=True, capture_output=True)
+    graded = grade(read_samples(tmp_path / "s.csv"), ruleset)
+    ours = "".join(jsonl_lines(graded, form="compact"))
+    assert ours.count("\n") == 1500
+    assert (tmp_path / "peer.jsonl").read_text(encoding="utf-8") == ours
