@@ -34,7 +34,7 @@ from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
-CHUNK_ROWS = 200_000  # rows `grade` reads, grades and writes at a time: about 300 MB at the peak
+CHUNK_ROWS = 1_000_000  # rows `grade` reads, grades and writes at a time (see the README: large files)
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater"
 
