@@ -2,13 +2,14 @@
 
 On N samples (default 1,000,000) against the shipped rules of all six classes: the stages
 in one process (read CSV, derive + evaluate, render compact and full JSON Lines, the
-per-record API `graded.results()`); then whole processes: `sumpwise grade` to compact and
+per-record API `graded.results()`, and the per-row evaluator against derive + evaluate); then whole processes: `sumpwise grade` to compact and
 to full records, and the per-row peer script (peer_per_row.py: csv module + the per-row
 oracle) on a smaller file, whose output must equal sumpwise's byte for byte. With
 --chunked-rows M it also grades an M-row file in chunks and prints the process's peak
 memory. Figures only: nothing here is asserted.
 
-    .venv/bin/python benchmarks/bench_grade.py [--rows N] [--peer-rows M] [--api-rows K] [--chunked-rows R]
+    .venv/bin/python benchmarks/bench_grade.py [--rows N] [--peer-rows M] [--api-rows K] [--baseline-rows B]
+                                               [--chunked-rows R]
 """
 
 from __future__ import annotations
@@ -123,12 +124,32 @@ def row(name: str, times: tuple, n: int, note: str = "") -> None:
           f"cpu {cpu * scale:>7.2f} s  {note}")
 
 
+def evaluator_baseline(ruleset, m: int) -> None:
+    """The per-row oracle (tests/support/row_evaluator.py) against derive + evaluate on the same rows."""
+    sys.path.insert(0, str(HERE.parent / "tests" / "support"))
+    from row_evaluator import grade_row
+    from sumpwise.derive.row_measures import derive_measures
+    from sumpwise.evaluation.evaluator import evaluate
+    small = synthetic(ruleset, m, seed=11)
+    rows = small.to_dict("records")
+    clock = Clock()
+    for one in rows:
+        grade_row(ruleset, one)
+    loop = clock.lap()
+    evaluate(ruleset, derive_measures(small, ruleset.lubricants))
+    engine = clock.lap()
+    row(f"per-row evaluator, {m:,} samples", loop, m)
+    row(f"derive + evaluate, the same {m:,}", engine, m,
+        f"{loop[0] / engine[0]:.0f} times faster (wall), {loop[1] / engine[1]:.0f} (CPU); target at least 100")
+
+
 def main() -> None:
     sys.stdout.reconfigure(line_buffering=True)
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rows", type=int, default=1_000_000)
     parser.add_argument("--peer-rows", type=int, default=100_000)
     parser.add_argument("--api-rows", type=int, default=100_000)
+    parser.add_argument("--baseline-rows", type=int, default=100_000)
     parser.add_argument("--chunked-rows", type=int, default=0, help="also grade this many rows in chunks")
     args = parser.parse_args()
 
@@ -168,6 +189,7 @@ def main() -> None:
             row(f"floor: writing {sizes[form] / 1e6:,.0f} MB of ready text", clock.lap(), n)
             (folder / "floor.jsonl").unlink()
             target.unlink()
+        evaluator_baseline(ruleset, min(args.baseline_rows, n))
         api = min(args.api_rows, n)
         values = graded.results()
         clock = Clock()
