@@ -41,7 +41,11 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     offset = 0
     try:
         for text in _chunk_texts(stream, fmt, rows, name):
-            batch = read_samples(io.StringIO(text), name, columns, fmt, numeric)
+            # as UTF-8 bytes: a StringIO of the chunk would hold 4 bytes a character
+            data, text = text.encode("utf-8"), None
+            batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name, columns,
+                                 fmt, numeric)
+            data = None
             batch = _moved(batch, offset)
             batch = seen.check(batch)
             offset += batch.rows_read
@@ -69,8 +73,9 @@ def _chunk_texts(stream, fmt: str, rows: int, name: str):
     lines, quotes, yielded = [first] if first else [], 0, False
     for line in stream:
         if len(lines) >= rows and quotes % 2 == 0 and (fmt != "csv" or _starts_well(line, fields)):
-            yield header + "".join(lines)
-            lines, quotes, yielded = [], 0, True
+            text = header + "".join(lines)
+            lines, quotes, yielded = [], 0, True  # the lines go before the chunk is graded
+            yield text
         lines.append(line)
         if fmt == "csv":
             quotes += line.count('"')
