@@ -74,7 +74,7 @@ def clause(leaf, sample: dict) -> dict:
         value = sample["texts"].get(leaf.field)
         limit = list(leaf.values) if leaf.test == "in" else leaf.values[0]
         return {"field": leaf.field, "value": value, "test": leaf.test, "limit": limit, "held": held}
-    value = sample["numbers"].get(leaf.measure)
+    value = _plain(sample["numbers"].get(leaf.measure))
     if isinstance(leaf, MissingTest):
         return {"measure": leaf.measure, "value": value, "test": "missing", "limit": leaf.missing, "held": held}
     return {"measure": leaf.measure, "value": value, "test": leaf.test, "limit": limit_of(leaf.limit), "held": held}
@@ -132,7 +132,7 @@ def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
             continue
         reason = {"rule": rule.id}
         if isinstance(rule, LadderRule):
-            reason.update(measure=rule.measure, value=value)
+            reason.update(measure=rule.measure, value=_plain(value))
             unit = DERIVED_MEASURES[rule.measure].unit if rule.measure in DERIVED_MEASURES else \
                 INPUT_MEASURES.get(rule.measure)
             if unit:
@@ -166,6 +166,7 @@ def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
 
 
 def _plain(value):
+    """A number as sumpwise records it: -0.0 as 0.0."""
     return None if value is None else value + 0.0
 
 
