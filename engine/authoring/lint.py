@@ -268,11 +268,8 @@ def _written(ruleset: RuleSet, origin: Origin, measure: str, value: float) -> tu
 def unit_trouble(measure: str, canonical: float) -> str | None:
     """Why a limit of this size (canonical units) looks written in the wrong unit, if it does."""
     key = unit_key(measure)
-    if measure == "water":
-        if canonical > 1_000_000:
-            return "water cannot exceed 100 % (1 000 000 ppm)"
-        if 0 < canonical < 1:
-            return "below 1 ppm, smaller than any Karl Fischer result"
+    if measure == "water" and 0 < canonical < 1:  # above 100 % is impossible: a compile error (C011)
+        return "below 1 ppm, smaller than any Karl Fischer result"
     if UNIT_FAMILY.get(key) == "absorbance" and measure in (key, "oxidation_rise") and abs(canonical) > 500:
         return ("above 500 abs/cm, which is 5 absorbance units through a 0.1 mm cell: 0.001 % of the light "
                 "through, beyond any FTIR reading")

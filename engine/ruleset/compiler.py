@@ -12,15 +12,16 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import math
 import os
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES, KNOWN_FIELDS, unit_key
+from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES, KNOWN_FIELDS, domain_of, measure_unit, unit_key
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
-from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset
+from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset, resolve_with_problems
 from sumpwise.vocabulary.measures import UNIT_FAMILY
 from sumpwise.vocabulary.units import FACTORS, factor_to_canonical
 
@@ -37,11 +38,46 @@ _COMBINERS = ("all", "any", "not")
 
 def load_ruleset(path) -> RuleSet:
     """Load, resolve, validate and compile a rule set; raise InvalidFile listing every problem."""
-    return compile_ruleset(resolve_ruleset(Path(path)))
+    checked = check_ruleset(path)
+    if checked.errors or checked.ruleset is None:
+        raise InvalidFile(list(checked.problems))
+    return checked.ruleset
 
 
 def compile_ruleset(resolved: Resolved) -> RuleSet:
     return _Compiler(resolved).run()
+
+
+@dataclass(frozen=True)
+class RulesetCheck:
+    """Everything one run finds in a rule-set chain: schema, resolution and meaning together.
+
+    `ruleset` is the compiled rule set when there is no error; with errors it is `partial`,
+    built from the pieces that compiled cleanly (no fingerprint), so lint can still run on
+    them; None when the top file cannot be read as a rule set at all.
+    """
+
+    ruleset: RuleSet | None
+    problems: tuple
+    partial: bool
+
+    @property
+    def errors(self) -> tuple:
+        return tuple(p for p in self.problems if p.severity == "error")
+
+
+def check_ruleset(path) -> RulesetCheck:
+    """Resolve and compile a rule set, keeping on past problems so one run reports them all."""
+    resolved, problems = resolve_with_problems(Path(path))
+    if resolved is None:
+        return RulesetCheck(None, tuple(problems), True)
+    compiler = _Compiler(resolved)
+    ruleset = compiler.build()
+    problems = problems + compiler.problems
+    partial = any(p.severity == "error" for p in problems)
+    if partial:
+        ruleset = replace(ruleset, canonical="", sha256="")
+    return RulesetCheck(ruleset, tuple(problems), partial)
 
 
 class _Compiler:
@@ -53,25 +89,50 @@ class _Compiler:
         self.fields = set(KNOWN_FIELDS) | set(resolved.fields)
 
     def run(self) -> RuleSet:
-        r = self.r
-        lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
-        classes = {name: tuple(self._rule(p) for p in rules.values()) for name, rules in sorted(r.classes.items())}
-        common = tuple(self._rule(p) for p in r.rules.values())
-        caveats = tuple(self._caveat(p) for p in r.caveats.values())
-        examples = tuple(self._example(p) for p in r.examples)
+        ruleset = self.build()
         if self.problems:
             raise InvalidFile(self.problems)
+        return ruleset
+
+    def build(self) -> RuleSet:
+        """The rule set from every piece that compiles cleanly; problems are collected, not raised."""
+        r = self.r
+        lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
+        classes = {name: self._clean(self._rule, rules.values()) for name, rules in sorted(r.classes.items())}
+        common = self._clean(self._rule, r.rules.values())
+        caveats = self._clean(self._caveat, r.caveats.values())
+        examples = tuple(self._example(p) for p in r.examples)
         header = r.header
+        name = header.get("ruleset", "(no id)")
         ruleset = RuleSet(
-            id=header["ruleset"], version=header["version"], title=header.get("title", header["ruleset"]),
+            id=name, version=header.get("version", "(no version)"), title=header.get("title", name),
             grades=tuple(self.grades), notice=header.get("notice", DEFAULT_NOTICE).strip(),
             lubricants=lubricants, classes=classes, rules=common, caveats=caveats,
             measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
             canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
+            measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
         )
+        if self.problems:
+            return ruleset
         canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
         digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
         return replace(ruleset, canonical=canonical, sha256=digest)
+
+    def _clean(self, compile_one, places) -> tuple:
+        """Compile each piece; one with a problem is left out, and its problems name its id."""
+        out = []
+        for placed in places:
+            before = len(self.problems)
+            item = compile_one(placed)
+            found = self.problems[before:]
+            if found:
+                what = "caveat" if compile_one == self._caveat else "rule"
+                ident = placed.data.get("id")
+                self.problems[before:] = [p if f"'{ident}'" in p.message else
+                                          replace(p, message=f"{what} '{ident}': {p.message}") for p in found]
+            elif item is not None:
+                out.append(item)
+        return tuple(out)
 
     # -- pieces --------------------------------------------------------------------------
 
@@ -166,8 +227,11 @@ class _Compiler:
                     self.problems.append(placed.problem(
                         f"the pair [{limit[0]}, {limit[1]}] for '{grade}' must be written [low, high] "
                         f"with low below high", (test, grade), code="C005"))
+                self._check_domain(placed, (test, grade), measure, limit, scale, f"'{grade}' limit")
                 limit = (limit[0] * scale, limit[1] * scale)
             else:
+                if test != "outside":  # |value| > x: a size, checked by lint
+                    self._check_domain(placed, (test, grade), measure, [limit], scale, f"'{grade}' limit")
                 limit = limit * scale
             steps.append((level, limit))
         steps.sort(key=lambda s: s[0])
@@ -196,6 +260,25 @@ class _Compiler:
                     f"the '{test}' limits are not in ladder order: the limit for '{higher}' must be {want} "
                     f"than the limit for '{lower}' ({written[higher]!r} vs {written[lower]!r})", (test, higher),
                     key=True, code="C006"))
+
+    def _check_domain(self, placed: Placed, sub: tuple, measure: str, written: list, scale: float, what: str) -> None:
+        """A limit no value of the measure can reach or pass is impossible: an error, not a warning."""
+        domain = domain_of(measure)
+        low, high = domain[0].low, domain[-1].high
+        if low == -math.inf and high == math.inf:
+            return
+        bad = [w for w in written if not (low <= w * scale <= high)]
+        if not bad:
+            return
+        unit_key_ = unit_key(measure)
+        written_unit = placed.units.get(unit_key_) if unit_key_ in UNIT_FAMILY else None
+        unit = written_unit or measure_unit(measure)
+        self.problems.append(placed.problem(
+            f"{what} {', '.join(_plain(w) for w in bad)}{_unit_words(unit)} lies outside what {measure} can take "
+            f"({domain_words(domain, measure_unit(measure))})", sub, key=False,
+            hint=("this file writes it in " + written_unit + "; was the limit written in another unit?"
+                  if written_unit and written_unit != measure_unit(measure) else
+                  "a limit there can never be crossed, or is crossed by every sample"), code="C011"))
 
     def _source(self, placed: Placed) -> str:
         source = (placed.data.get("source") or "").strip()
@@ -231,6 +314,9 @@ class _Compiler:
                 return MissingTest(measure, data["missing"])
             scale = self._scale(placed, measure)
             limit = data[test]
+            if test != "outside" or isinstance(limit, list):
+                self._check_domain(placed, sub + (test,), measure, limit if isinstance(limit, list) else [limit],
+                                   scale, f"'{test}' limit")
             if isinstance(limit, list):
                 if limit[0] > limit[1] or (test == "outside" and limit[0] == limit[1]):
                     self.problems.append(placed.problem(
@@ -282,6 +368,24 @@ class _Compiler:
                 f"expected grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}] nor 'unrated'",
                 ("expect", "grade"), code="C010"))
         return Example(data["name"], dict(data["sample"]), dict(data["expect"]), self._origin(placed))
+
+
+def _plain(value) -> str:
+    return f"{value:g}"
+
+
+def _unit_words(unit: str) -> str:
+    return "" if not unit else ("%" if unit == "%" else f" {unit}")
+
+
+def domain_words(domain: tuple, unit: str) -> str:
+    """What a measure can take, in words: 'not negative', 'from 0 to 1e+06 ppm', 'above -100%'."""
+    low, high = domain[0], domain[-1]
+    if high.high == math.inf:
+        if low.low == 0:
+            return "not negative" if low.low_in else "above 0"
+        return f"{'at least' if low.low_in else 'above'} {_plain(low.low)}{_unit_words(unit)}"
+    return f"from {_plain(low.low)} to {_plain(high.high)}{_unit_words(unit)}"
 
 
 def _as_text(value) -> str:
