@@ -11,10 +11,10 @@ import argparse
 from sumpwise.ledger.audit import stored_samples
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.authoring.compare import compare_rulesets, comparison_lines
-from sumpwise.ruleset.compiler import load_ruleset
+from sumpwise.ruleset.compiler import check_ruleset, load_ruleset
 from sumpwise.authoring.examples import check_examples
 from sumpwise.authoring.lint import lint_ruleset
-from sumpwise.vocabulary.problems import InvalidFile
+from sumpwise.vocabulary.problems import Problem
 from sumpwise.authoring.limit_statistics import NotEnoughData
 from sumpwise.authoring.proposals import figure_lines, propose_from_samples, snippet
 from sumpwise.intake.samples import load_column_map, read_samples
@@ -23,30 +23,50 @@ OK, USAGE, FINDINGS = 0, 2, 3
 
 
 def run_check(paths, strict: bool, stdout, stderr) -> int:
-    """Validate, lint and run the examples of each rule set; diagnostics to stderr, a verdict line each."""
+    """Check each rule set in one pass: schema, extends, meaning, lint and examples, every problem sorted.
+
+    Diagnostics go to stderr, one verdict line per file to stdout. Where errors leave pieces
+    out, lint runs on the rest and the examples are not run (a note says so).
+    """
     failed = 0
     for path in paths:
-        try:
-            rs = load_ruleset(path)
-        except InvalidFile as exc:
-            stderr.write(f"{exc}\n")
-            failed += 1
-            continue
-        warnings = lint_ruleset(rs)
-        failures = check_examples(rs)
-        for problem in warnings:
-            stderr.write(problem.render() + "\n")
-        for failure in failures:
-            stderr.write(failure.render() + "\n")
-        rules = sum(len(rs.rules_for(name)) for name in rs.classes)
-        held = len(rs.examples) - len(failures)
-        verdict = "failed" if failures or (strict and warnings) else "ok"
+        checked = check_ruleset(path)
+        rs = checked.ruleset
+        found = list(checked.problems)
+        failures: tuple = ()
+        if rs is not None:
+            found += lint_ruleset(rs, partial=checked.partial)
+            if checked.partial and rs.examples:
+                first = rs.examples[0].origin
+                found.append(Problem(first.file, first.line, first.column,
+                                     f"{len(rs.examples)} example(s) not run: the rule set has errors", first.path,
+                                     severity="note", code="E002", hint="fix the errors; the next run runs them"))
+            elif not checked.partial:
+                failures = check_examples(rs)
+        for text in _sorted_output(found, failures):
+            stderr.write(text + "\n")
+        errors = [p for p in found if p.severity == "error"]
+        warnings = [p for p in found if p.severity == "warning"]
+        verdict = "failed" if errors or failures or (strict and warnings) else "ok"
         failed += verdict == "failed"
         strict_note = " (--strict: warnings are errors)" if strict and warnings else ""
+        if rs is None or checked.partial:
+            stdout.write(f"{path}: failed: {len(errors)} error(s), {len(warnings)} warning(s){strict_note}; "
+                         f"nothing was fingerprinted\n")
+            continue
+        rules = sum(len(rs.rules_for(name)) for name in rs.classes)
+        held = len(rs.examples) - len(failures)
         stdout.write(f"{path}: {verdict}: rule set {rs.id} version {rs.version}, {len(rs.classes)} class(es), "
                      f"{rules} rule(s), {len(rs.caveats)} caveat(s), sha256 {rs.sha256}; "
                      f"{len(warnings)} warning(s){strict_note}; {held} of {len(rs.examples)} example(s) hold\n")
     return USAGE if failed else OK
+
+
+def _sorted_output(problems: list, failures: tuple) -> list[str]:
+    """Problems and example failures in one list, by file, line and column."""
+    items = [((p.file, p.line, p.column, p.code), p.render()) for p in problems]
+    items += [((f.file, f.line, f.column, f.code), f.render()) for f in failures]
+    return [text for _, text in sorted(items, key=lambda item: item[0])]
 
 
 def add_compare_arguments(parser: argparse.ArgumentParser) -> None:

@@ -111,6 +111,7 @@ class _Compiler:
             measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
             canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
             measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
+            lubricant_origins={code: self._origin(placed) for code, placed in r.lubricants.items()},
         )
         if self.problems:
             return ruleset

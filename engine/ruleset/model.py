@@ -198,6 +198,7 @@ class RuleSet:
     file_units: dict = field(default_factory=dict, compare=False, repr=False)
     # The unit each declared measure is written in (`measures: {iron: {unit: ppm}}`), for records.
     measure_units: dict = field(default_factory=dict, compare=False, repr=False)
+    lubricant_origins: dict = field(default_factory=dict, compare=False, repr=False)
 
     def unit_of(self, measure: str) -> str:
         """A measure's unit: the vocabulary's, or the one the rule set declares for it."""

@@ -42,7 +42,7 @@ def test_failing_examples_say_where_and_what_differs():
                         "    - quiet: expected acid-rise to stay quiet, but it fired (watch)",
                         "    actual: grade watch; fired: acid-rise (watch)"]
     assert failures["a misspelt rule and a missing value"].differences == (
-        "fires: class 'pump' has no rule 'acid-rsie'",
+        "fires: class 'pump' has no rule 'acid-rsie'; did you mean 'acid-rise'?",
         "fires: expected visc-drift to fire, but it could not be evaluated (missing kv40)")
     assert "caveats: expected caveat ester-carbonyl on the sample, but it was not raised" in \
         failures["cap not raised on mineral oil"].differences
