@@ -70,14 +70,18 @@ def check_ruleset(path) -> RulesetCheck:
     """Resolve and compile a rule set, keeping on past problems so one run reports them all."""
     resolved, problems = resolve_with_problems(Path(path))
     if resolved is None:
-        return RulesetCheck(None, tuple(problems), True)
+        return RulesetCheck(None, tuple(sorted(problems, key=_order)), True)
     compiler = _Compiler(resolved)
     ruleset = compiler.build()
     problems = problems + compiler.problems
     partial = any(p.severity == "error" for p in problems)
     if partial:
         ruleset = replace(ruleset, canonical="", sha256="")
-    return RulesetCheck(ruleset, tuple(problems), partial)
+    return RulesetCheck(ruleset, tuple(sorted(problems, key=_order)), partial)
+
+
+def _order(problem: Problem) -> tuple:
+    return problem.file, problem.line, problem.column, problem.code, problem.message
 
 
 class _Compiler:
@@ -368,11 +372,30 @@ class _Compiler:
             self.problems.append(placed.problem(
                 f"expected grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}] nor 'unrated'",
                 ("expect", "grade"), code="C010"))
+        self._check_example_ids(placed)
         return Example(data["name"], dict(data["sample"]), dict(data["expect"]), self._origin(placed))
+
+    def _check_example_ids(self, placed: Placed) -> None:
+        """A misspelt id in `fires` or `quiet` is caught here, with the ids it may have meant."""
+        class_name = placed.data["sample"].get("class")
+        if class_name not in self.r.classes:
+            return  # an unknown class leaves the sample unrated; running the example says so
+        known = {"fires": set(self.r.classes[class_name]) | set(self.r.rules),
+                 "quiet": set(self.r.classes[class_name]) | set(self.r.rules), "caveats": set(self.r.caveats)}
+        for key, ids in known.items():
+            for i, ident in enumerate(placed.data["expect"].get(key, [])):
+                if ident in ids:
+                    continue
+                close = difflib.get_close_matches(ident, sorted(ids), n=1)
+                what = "caveat" if key == "caveats" else f"rule of class '{class_name}'"
+                self.problems.append(placed.problem(
+                    f"example '{placed.data['name']}': `{key}` names '{ident}', but there is no such {what}",
+                    ("expect", key, i), hint=f"did you mean '{close[0]}'?" if close else "", code="C012"))
 
 
 def _plain(value) -> str:
-    return f"{value:g}"
+    value = float(value)
+    return f"{int(value):,}" if value.is_integer() and abs(value) < 1e15 else f"{value:g}"
 
 
 def _unit_words(unit: str) -> str:

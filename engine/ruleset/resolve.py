@@ -261,7 +261,7 @@ class _ClassBuilder:
             return {}
         if base not in self.merged.classes:
             if not self.merged.incomplete:
-                known = sorted(self.merged.classes)
+                known = sorted(set(self.merged.classes) | set(self.specs))
                 close = difflib.get_close_matches(base, known, n=1)
                 self.problems.append(self.doc.problem(
                     at, f"class '{name}' extends '{base}', but neither this file nor the rule sets it extends give "

@@ -49,6 +49,7 @@ PROBLEM_CODES = {
     "C009": "unknown field",
     "C010": "an example expects a grade that is not on the ladder",
     "C011": "a limit outside what the measure can take",
+    "C012": "an example names a rule or caveat its class does not have",
     "W001": "a rule another rule always shadows",
     "W002": "a rule that can never fire",
     "W003": "a caveat that can never apply",
