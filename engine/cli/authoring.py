@@ -10,7 +10,7 @@ import argparse
 
 from sumpwise.ledger.audit import stored_samples
 from sumpwise.vocabulary.cautions import caution_text
-from sumpwise.authoring.compare import compare_rulesets, comparison_lines
+from sumpwise.authoring.compare import compare_rulesets, comparison_lines, same_name_differs
 from sumpwise.ruleset.compiler import check_ruleset, load_ruleset
 from sumpwise.authoring.examples import check_examples
 from sumpwise.authoring.lint import lint_ruleset
@@ -69,6 +69,28 @@ def _sorted_output(problems: list, failures: tuple) -> list[str]:
     return [text for _, text in sorted(items, key=lambda item: item[0])]
 
 
+def add_example_guard(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--allow-failing-examples", action="store_true",
+                        help="grade even when the rule set's own examples do not hold (they are checked by default)")
+
+
+def examples_hold(ruleset, args, stderr) -> bool:
+    """A rule set whose own examples fail does not grade (nor go into a ledger) unless the user says so."""
+    failures = check_examples(ruleset)
+    if not failures:
+        return True
+    for failure in failures:
+        stderr.write(failure.render() + "\n")
+    if args.allow_failing_examples:
+        stderr.write(f"sumpwise: warning: {len(failures)} example(s) of rule set {ruleset.id} version "
+                     f"{ruleset.version} do not hold; grading anyway (--allow-failing-examples)\n")
+        return True
+    stderr.write(f"sumpwise: rule set {ruleset.id} version {ruleset.version}: {len(failures)} of its own "
+                 f"example(s) do not hold, so its grades cannot be trusted; nothing was graded. Fix the rule set "
+                 f"or its examples (sumpwise check), or pass --allow-failing-examples to grade anyway\n")
+    return False
+
+
 def add_compare_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("old", metavar="OLD_RULESET")
     parser.add_argument("new", metavar="NEW_RULESET")
@@ -81,6 +103,8 @@ def add_compare_arguments(parser: argparse.ArgumentParser) -> None:
 def run_compare(args, stdout, stderr) -> int:
     """Grade the samples under both rule sets; exit 3 when any sample moves, so a review can be guarded."""
     old, new = load_ruleset(args.old), load_ruleset(args.new)
+    if warning := same_name_differs(old, new):
+        stderr.write(f"sumpwise compare: {warning}\n")
     numeric = tuple(dict.fromkeys([*old.measures, *new.measures]))
     batch = _read(args, numeric)
     comparison = compare_rulesets(old, new, batch)

@@ -176,3 +176,31 @@ def test_propose_limits_unknown_measure_is_a_clear_error(tmp_path):
     samples = _write_samples(tmp_path / "s.csv", np.linspace(0.2, 0.4, 40))
     run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "acid")
     assert run.code == 2 and "unknown measure 'acid'" in run.err
+
+
+def test_grade_refuses_a_rule_set_whose_examples_fail_unless_allowed(tmp_path):
+    samples = DATA / "compare-samples.csv"
+    refused = run_cli("grade", samples, "--rules", DATA / "examples-fail.yaml")
+    assert refused.code == 2 and refused.out == ""
+    assert "error E001: example 'wrong grade and a rule that fired' does not hold" in refused.err
+    assert "nothing was graded" in refused.err and "--allow-failing-examples" in refused.err
+    # The ledger import is the same command with --db: nothing is recorded either.
+    ledger = tmp_path / "l.db"
+    assert run_cli("grade", samples, "--rules", DATA / "examples-fail.yaml", "--db", ledger).code == 2
+    assert not ledger.exists()
+    allowed = run_cli("grade", samples, "--rules", DATA / "examples-fail.yaml", "--allow-failing-examples")
+    assert allowed.code == 0 and allowed.out.count("\n") > 0
+    assert "grading anyway (--allow-failing-examples)" in allowed.err
+    assert run_cli("grade", samples, "--rules", DATA / "clean.yaml").code == 0
+
+
+def test_compare_warns_when_id_and_version_match_but_content_differs(tmp_path):
+    changed = tmp_path / "same-name.yaml"
+    changed.write_text((DATA / "compare-new.yaml").read_text().replace("version: 2", "version: 1")
+                       .replace("extends: compare-old.yaml", f"extends: {DATA / 'compare-old.yaml'}")
+                       .replace("ruleset: compare-pump-next", "ruleset: compare-pump"))
+    run = run_cli("compare", DATA / "compare-old.yaml", changed, "--samples", DATA / "compare-samples.csv")
+    assert "warning W013: both rule sets are 'compare-pump' version 1, but their content differs" in run.err
+    same = run_cli("compare", DATA / "compare-old.yaml", DATA / "compare-old.yaml",
+                   "--samples", DATA / "compare-samples.csv")
+    assert "W013" not in same.err
