@@ -7,6 +7,7 @@ failed example or --strict with warnings), 3 findings (`compare`: a sample moved
 from __future__ import annotations
 
 import argparse
+import datetime as dt
 
 from sumpwise.ledger.audit import stored_samples
 from sumpwise.vocabulary.cautions import caution_text
@@ -16,7 +17,7 @@ from sumpwise.authoring.examples import check_examples
 from sumpwise.authoring.lint import lint_ruleset
 from sumpwise.vocabulary.problems import Problem
 from sumpwise.authoring.limit_statistics import NotEnoughData
-from sumpwise.authoring.proposals import figure_lines, propose_from_samples, snippet
+from sumpwise.authoring.proposals import Filters, Refused, figure_lines, propose_from_samples, snippet
 from sumpwise.intake.samples import load_column_map, read_samples
 
 OK, USAGE, FINDINGS = 0, 2, 3
@@ -121,6 +122,12 @@ def add_propose_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--measure", required=True, metavar="MEASURE",
                         help="an input or derived measure (derived ones need --rules for new-oil values)")
     parser.add_argument("--lubricant", metavar="CODE", help="only results on this lubricant")
+    parser.add_argument("--unit", action="append", default=[], metavar="UNIT_ID",
+                        help="only results of this unit (repeat for several)")
+    parser.add_argument("--since", type=_iso_date, metavar="DATE", help="only results sampled on or after this date")
+    parser.add_argument("--until", type=_iso_date, metavar="DATE", help="only results sampled on or before this date")
+    parser.add_argument("--pool-lubricants", action="store_true",
+                        help="pool the results of several lubricants (refused by default: ASTM E2412 Annex A3)")
     parser.add_argument("--rules", metavar="RULESET",
                         help="rule set for new-oil values, declared measures and the grade ladder")
     parser.add_argument("--direction", choices=("above", "below"),
@@ -136,10 +143,11 @@ def run_propose_limits(args, stdout, stderr) -> int:
     """Print the figures and a YAML ladder snippet; refuse (exit 2) when there is too little data."""
     ruleset = load_ruleset(args.rules) if args.rules else None
     batch = _read(args, ruleset.measures if ruleset else ())
+    filters = Filters(args.lubricant, tuple(args.unit), args.since, args.until, args.pool_lubricants)
     try:
         found = propose_from_samples(batch, args.class_name, args.measure, args.lubricant, ruleset,
-                                     args.direction, args.method)
-    except NotEnoughData as exc:
+                                     args.direction, args.method, filters=filters)
+    except (NotEnoughData, Refused) as exc:
         stderr.write(f"sumpwise propose-limits: refused, no limit proposed: {exc}\n")
         return USAGE
     text = snippet(found, args.rule_id)
@@ -150,6 +158,13 @@ def run_propose_limits(args, stdout, stderr) -> int:
     else:
         stdout.write(text)
     return OK
+
+
+def _iso_date(text: str) -> str:
+    try:
+        return dt.date.fromisoformat(text).isoformat()
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a date as YYYY-MM-DD, found {text!r}") from None
 
 
 def _sample_options(parser: argparse.ArgumentParser) -> None:

@@ -91,11 +91,11 @@ def test_compare_bad_rule_set_is_exit_2(tmp_path):
     assert run.code == 2 and "unknown measure 'nope'" in run.err
 
 
-def _write_samples(path, an_values, water_values=None, lubricant="PUMP-46-M"):
+def _write_samples(path, an_values, water_values=None, lubricant="PUMP-46-M", measure="an"):
     n = len(an_values)
     dates = pd.date_range("2025-01-01", periods=n, freq="D").strftime("%Y-%m-%d")
     frame = pd.DataFrame({"sample_id": [f"S-{i:04d}" for i in range(n)], "class": "pump", "lubricant": lubricant,
-                          "sampled_on": dates, "an": an_values})
+                          "sampled_on": dates, measure: an_values})
     if water_values is not None:
         frame["water"] = water_values
     # Rows of another class and lubricant must not be used.
@@ -111,16 +111,18 @@ def _snippet_rule(text: str) -> dict:
 
 
 def test_propose_limits_spc_equals_numpy_mean_plus_k_sd(tmp_path):
-    values = np.round(np.random.default_rng(7720).normal(0.30, 0.04, 400), 4)
-    samples = _write_samples(tmp_path / "s.csv", values)
-    run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "an",
+    # kv40 of an ISO VG 320 gear oil, mm2/s: its spread (SD 4) is far wider than D445's repeatability,
+    # so no step is widened and the limits are the statistics' own.
+    values = np.round(np.random.default_rng(7720).normal(320.0, 4.0, 400), 2)
+    samples = _write_samples(tmp_path / "s.csv", values, measure="kv40")
+    run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "kv40",
                   "--lubricant", "PUMP-46-M", "--method", "spc")
     assert run.code == 0, run.err
-    # ASTM D7720 §1.2 approach: mean + k * SD (sample SD, ddof=1), k = 1, 2, 3 (common practice, no source).
+    # ASTM D7720 §1.2 approach: mean + k * SD (sample SD, ddof=1), k = 2, 2.5, 3 (common practice, no source).
     mean, sd = np.mean(values), np.std(values, ddof=1)
-    expected = [float(f"{mean + k * sd:.4g}") for k in (1, 2, 3)]
+    expected = [float(f"{mean + k * sd:.4g}") for k in (2, 2.5, 3)]
     rule = _snippet_rule(run.out)
-    assert rule["measure"] == "an" and list(rule["above"]) == ["watch", "alert", "urgent"]
+    assert rule["measure"] == "kv40" and list(rule["above"]) == ["watch", "alert", "urgent"]
     assert list(rule["above"].values()) == expected
     assert "count: 400 result(s) used" in run.out and "dates: 2025-01-01 to 2026-02-04" in run.out
     assert f"mean {mean:.6g}, SD {sd:.6g}" in run.out
@@ -139,13 +141,13 @@ def test_propose_limits_spc_on_skewed_data_says_percentiles_would_suit(tmp_path)
 
 
 def test_propose_limits_auto_takes_percentiles_of_skewed_data(tmp_path):
-    water = np.round(np.random.default_rng(7721).lognormal(np.log(120.0), 0.6, 400), 1)
-    samples = _write_samples(tmp_path / "s.csv", np.full(400, 0.3), water)
+    water = np.round(np.random.default_rng(7721).lognormal(np.log(120.0), 0.6, 600), 1)
+    samples = _write_samples(tmp_path / "s.csv", np.full(600, 0.3), water)
     out = tmp_path / "water.yaml"
     run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "water", "--out", out)
     assert run.code == 0, run.err
     # ASTM D7720 §1.3 approach: percentiles of the sorted data; numpy's default (linear) interpolation.
-    expected = [float(f"{q:.4g}") for q in np.percentile(water, [90, 95, 98])]
+    expected = [float(f"{q:.4g}") for q in np.percentile(water, [95, 97.5, 99])]
     text = out.read_text(encoding="utf-8")
     assert list(_snippet_rule(text)["above"].values()) == expected
     assert "method: percentiles of the sorted data" in run.out and f"wrote {out}" in run.out
@@ -159,8 +161,13 @@ def test_propose_limits_derived_measure_uses_the_rule_set_new_oil_value(tmp_path
     assert run.code == 0, run.err
     rise = values - 0.10  # clean.yaml: PUMP-46-M new-oil acid number 0.10
     mean, sd = np.mean(rise), np.std(rise, ddof=1)
-    # clean.yaml's ladder is [normal, watch, alert]: two limits, mean + 2 SD and + 3 SD.
-    assert list(_snippet_rule(run.out)["above"].values()) == [float(f"{mean + k * sd:.4g}") for k in (2, 3)]
+    # clean.yaml's ladder is [normal, watch, alert]: watch at mean + 2 SD; alert at mean + 2.5 SD would be
+    # 0.02 mg KOH/g higher, under ASTM D664's used-oil repeatability r = 0.117 X (about 0.047 at an acid
+    # number of 0.4), so alert is widened to watch + r.
+    watch, alert = _snippet_rule(run.out)["above"].values()
+    assert watch == float(f"{mean + 2 * sd:.4g}")
+    assert alert - watch >= 0.117 * (alert + 0.10) > (mean + 2.5 * sd) - (mean + 2 * sd)
+    assert "# note: alert widened from" in run.out and "ASTM D664" in run.out
 
 
 @pytest.mark.parametrize("rows, needed", [(29, 30), (0, 30)])
