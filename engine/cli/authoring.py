@@ -9,13 +9,13 @@ from __future__ import annotations
 import argparse
 import datetime as dt
 
-from sumpwise.ledger.audit import stored_samples
+from sumpwise.ledger.audit import stored_ruleset, stored_samples
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.authoring.compare import compare_rulesets, comparison_lines, same_name_differs
 from sumpwise.ruleset.compiler import check_ruleset, load_ruleset
 from sumpwise.authoring.examples import check_examples
 from sumpwise.authoring.lint import lint_ruleset
-from sumpwise.vocabulary.problems import Problem
+from sumpwise.vocabulary.problems import InputError, Problem
 from sumpwise.authoring.limit_statistics import NotEnoughData
 from sumpwise.authoring.proposals import Filters, Refused, figure_lines, propose_from_samples, snippet
 from sumpwise.intake.samples import load_column_map, read_samples
@@ -93,8 +93,8 @@ def examples_hold(ruleset, args, stderr) -> bool:
 
 
 def add_compare_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("old", metavar="OLD_RULESET")
-    parser.add_argument("new", metavar="NEW_RULESET")
+    parser.add_argument("old", metavar="OLD_RULESET", help="a rule-set file, or sha256:FINGERPRINT of one stored in --db")
+    parser.add_argument("new", metavar="NEW_RULESET", help="a rule-set file, or sha256:FINGERPRINT of one stored in --db")
     source = parser.add_mutually_exclusive_group(required=True)
     source.add_argument("--samples", metavar="FILE", help="CSV or JSON Lines samples to grade")
     source.add_argument("--db", metavar="PATH", help="a ledger: its current samples")
@@ -103,7 +103,7 @@ def add_compare_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run_compare(args, stdout, stderr) -> int:
     """Grade the samples under both rule sets; exit 3 when any sample moves, so a review can be guarded."""
-    old, new = load_ruleset(args.old), load_ruleset(args.new)
+    old, new = _compared_ruleset(args.old, args.db), _compared_ruleset(args.new, args.db)
     if warning := same_name_differs(old, new):
         stderr.write(f"sumpwise compare: {warning}\n")
     numeric = tuple(dict.fromkeys([*old.measures, *new.measures]))
@@ -112,6 +112,18 @@ def run_compare(args, stdout, stderr) -> int:
     stdout.write("\n".join(comparison_lines(comparison, args.old, args.new)) + "\n\n")
     stdout.write(caution_text("! ") + "\n")
     return FINDINGS if comparison.moved else OK
+
+
+def _compared_ruleset(name: str, db):
+    """A rule-set file, or `sha256:<fingerprint>` of one the ledger given with --db recorded."""
+    if not name.startswith("sha256:"):
+        return load_ruleset(name)
+    if db is None:
+        raise InputError(f"{name}: a stored rule set needs --db PATH, the ledger that recorded it")
+    digest = name.removeprefix("sha256:")
+    if len(digest) != 64 or any(c not in "0123456789abcdef" for c in digest):
+        raise InputError(f"{name}: expected sha256: and the 64 hex digits of a fingerprint (sumpwise check prints it)")
+    return stored_ruleset(db, digest)
 
 
 def add_propose_arguments(parser: argparse.ArgumentParser) -> None:

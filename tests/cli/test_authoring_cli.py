@@ -19,6 +19,7 @@ import pytest
 import yaml
 
 from conftest import ROOT, run_cli
+from sumpwise.ruleset.compiler import load_ruleset
 
 DATA = ROOT / "tests" / "data" / "authoring"
 
@@ -211,3 +212,18 @@ def test_compare_warns_when_id_and_version_match_but_content_differs(tmp_path):
     same = run_cli("compare", DATA / "compare-old.yaml", DATA / "compare-old.yaml",
                    "--samples", DATA / "compare-samples.csv")
     assert "W013" not in same.err
+
+
+def test_compare_a_rule_set_stored_in_the_ledger_with_a_file(tmp_path):
+    ledger = tmp_path / "l.db"
+    samples = DATA / "compare-samples.csv"
+    assert run_cli("grade", samples, "--rules", DATA / "compare-old.yaml", "--db", ledger).code == 0
+    stored = load_ruleset(DATA / "compare-old.yaml").sha256
+    run = run_cli("compare", f"sha256:{stored}", DATA / "compare-new.yaml", "--db", ledger)
+    assert run.code == 3 and f"sha256 {stored[:12]}" in run.out
+    file_run = run_cli("compare", DATA / "compare-old.yaml", DATA / "compare-new.yaml", "--samples", samples)
+    assert run.out.split("\n", 2)[2] == file_run.out.split("\n", 2)[2]  # same moves as from the file
+    missing = run_cli("compare", "sha256:" + "0" * 64, DATA / "compare-new.yaml", "--db", ledger)
+    assert missing.code == 2 and "not stored intact" in missing.err
+    no_db = run_cli("compare", f"sha256:{stored}", DATA / "compare-new.yaml", "--samples", samples)
+    assert no_db.code == 2 and "needs --db" in no_db.err
