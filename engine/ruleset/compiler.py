@@ -67,7 +67,10 @@ def check_ruleset(path) -> RulesetCheck:
     """Resolve and compile a rule set, keeping on past problems so one run reports them all."""
     resolved, problems = resolve_with_problems(Path(path))
     if resolved is None:
-        return RulesetCheck(None, tuple(sorted(problems, key=_order)), True)
+        hidden = Problem(str(path), 0, 0, "this file could not be read as a rule set, so nothing in it (or in the "
+                                          "files it extends) was checked", code="R009", severity="note",
+                         hint="fix the errors reported for this file; the next run checks the rest")
+        return RulesetCheck(None, tuple(sorted(problems, key=_order)) + (hidden,), True)
     compiler = _Compiler(resolved)
     ruleset = compiler.build()
     problems = problems + compiler.problems
@@ -99,9 +102,9 @@ class _Compiler:
         """The rule set from every piece that compiles cleanly; problems are collected, not raised."""
         r = self.r
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
-        classes = {name: self._clean(self._rule, rules.values()) for name, rules in sorted(r.classes.items())}
-        common = self._clean(self._rule, r.rules.values())
-        caveats = self._clean(self._caveat, r.caveats.values())
+        classes = {name: self._clean(self._rule, rules.values(), "rule") for name, rules in sorted(r.classes.items())}
+        common = self._clean(self._rule, r.rules.values(), "rule")
+        caveats = self._clean(self._caveat, r.caveats.values(), "caveat")
         examples = tuple(self._example(p) for p in r.examples)
         header = r.header
         name = header.get("ruleset", "(no id)")
@@ -120,7 +123,7 @@ class _Compiler:
         digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
         return replace(ruleset, canonical=canonical, sha256=digest)
 
-    def _clean(self, compile_one, places) -> tuple:
+    def _clean(self, compile_one, places, what: str) -> tuple:
         """Compile each piece; one with a problem is left out, and its problems name its id."""
         out = []
         for placed in places:
@@ -128,7 +131,6 @@ class _Compiler:
             item = compile_one(placed)
             found = self.problems[before:]
             if found:
-                what = "caveat" if compile_one == self._caveat else "rule"
                 ident = placed.data.get("id")
                 self.problems[before:] = [p if f"'{ident}'" in p.message else
                                           replace(p, message=f"{what} '{ident}': {p.message}") for p in found]

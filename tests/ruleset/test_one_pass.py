@@ -99,3 +99,13 @@ def test_limits_outside_the_measure_domain_are_errors(tmp_path, limits, measure,
                     f"      - {{id: a, measure: {measure}, {limits}, message: m, source: site practice}}\n")
     _, found = _found(path)
     assert ("C011" in [code for _, _, code, _ in found]) == bad
+
+
+def test_an_unreadable_top_file_says_that_nothing_else_was_checked(tmp_path):
+    path = tmp_path / "r.yaml"
+    path.write_text("ruleset: r\nversion: 1\nclasses: {a: [\n")
+    checked, found = _found(path)
+    assert checked.ruleset is None
+    assert [(code, severity) for _, _, code, severity in found] == [("R009", "note"), ("Y001", "error")]
+    run = run_cli("check", path)
+    assert run.code == 2 and "nothing in it (or in the files it extends) was checked" in run.err
