@@ -12,7 +12,7 @@ import datetime as dt
 from sumpwise.ledger.audit import stored_ruleset, stored_samples
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.authoring.compare import compare_rulesets, comparison_lines, same_name_differs
-from sumpwise.ruleset.compiler import check_ruleset, load_ruleset
+from sumpwise.ruleset.compiler import SEVERITY_RANK, check_ruleset, load_ruleset
 from sumpwise.authoring.examples import check_examples
 from sumpwise.authoring.lint import lint_ruleset
 from sumpwise.vocabulary.problems import InputError, Problem
@@ -65,8 +65,8 @@ def run_check(paths, strict: bool, stdout, stderr) -> int:
 
 def _sorted_output(problems: list, failures: tuple) -> list[str]:
     """Problems and example failures in one list, by file, line and column."""
-    items = [((p.file, p.line, p.column, p.code), p.render()) for p in problems]
-    items += [((f.file, f.line, f.column, f.code), f.render()) for f in failures]
+    items = [((p.file, p.line, p.column, SEVERITY_RANK.get(p.severity, 3), p.code), p.render()) for p in problems]
+    items += [((f.file, f.line, f.column, 0, f.code), f.render()) for f in failures]
     return [text for _, text in sorted(items, key=lambda item: item[0])]
 
 

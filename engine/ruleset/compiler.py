@@ -67,10 +67,11 @@ def check_ruleset(path) -> RulesetCheck:
     """Resolve and compile a rule set, keeping on past problems so one run reports them all."""
     resolved, problems = resolve_with_problems(Path(path))
     if resolved is None:
-        hidden = Problem(str(path), 0, 0, "this file could not be read as a rule set, so nothing in it (or in the "
-                                          "files it extends) was checked", code="R009", severity="note",
-                         hint="fix the errors reported for this file; the next run checks the rest")
-        return RulesetCheck(None, tuple(sorted(problems, key=_order)) + (hidden,), True)
+        first = min(problems, key=_order)
+        hidden = Problem(first.file, first.line, first.column, "this file could not be read as a rule set, so "
+                         "nothing in it (or in the files it extends) was checked", code="R009", severity="note",
+                         hint="fix the error reported here; the next run checks the rest")
+        return RulesetCheck(None, tuple(sorted(problems + [hidden], key=_order)), True)
     compiler = _Compiler(resolved)
     ruleset = compiler.build()
     problems = problems + compiler.problems
@@ -80,8 +81,13 @@ def check_ruleset(path) -> RulesetCheck:
     return RulesetCheck(ruleset, tuple(sorted(problems, key=_order)), partial)
 
 
+SEVERITY_RANK = {"error": 0, "warning": 1, "note": 2}
+
+
 def _order(problem: Problem) -> tuple:
-    return problem.file, problem.line, problem.column, problem.code, problem.message
+    """By file, line and column; at one place errors first, then warnings, then notes."""
+    return problem.file, problem.line, problem.column, SEVERITY_RANK.get(problem.severity, 3), problem.code, \
+        problem.message
 
 
 class _Compiler:

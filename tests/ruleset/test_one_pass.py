@@ -106,6 +106,6 @@ def test_an_unreadable_top_file_says_that_nothing_else_was_checked(tmp_path):
     path.write_text("ruleset: r\nversion: 1\nclasses: {a: [\n")
     checked, found = _found(path)
     assert checked.ruleset is None
-    assert [(code, severity) for _, _, code, severity in found] == [("R009", "note"), ("Y001", "error")]
+    assert [(code, severity) for _, _, code, severity in found] == [("Y001", "error"), ("R009", "note")]
     run = run_cli("check", path)
     assert run.code == 2 and "nothing in it (or in the files it extends) was checked" in run.err
