@@ -125,6 +125,7 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
     skipped = {piece for piece in spoiled if piece[0] in ("rules", "caveats", "examples", "fields")
                or (piece[0] == "classes" and len(piece) == 4)}
 
+    doc = doc_clean  # same file and marks; pieces that broke the schema are gone
     merged = Resolved(top=doc, incomplete=bool(spoiled))
     for target, at in _extends_list(doc_clean.data):
         parent_path = Path(os.path.normpath(path.parent / target))
@@ -143,7 +144,7 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
             merged.incomplete = True
         else:
             _overlay(merged, parent, problems)
-    _add_own(merged, doc, doc_clean.data, skipped, problems)
+    _add_own(merged, doc, doc.data, skipped, problems)
     cache[key] = merged
     return merged
 
