@@ -371,7 +371,7 @@ class _Compiler:
     def _check_example_ids(self, placed: Placed) -> None:
         """A misspelt id in `fires` or `quiet` is caught here, with the ids it may have meant."""
         class_name = placed.data["sample"].get("class")
-        if class_name not in self.r.classes:
+        if not isinstance(class_name, str) or class_name not in self.r.classes:
             return  # an unknown class leaves the sample unrated; running the example says so
         known = {"fires": set(self.r.classes[class_name]) | set(self.r.rules),
                  "quiet": set(self.r.classes[class_name]) | set(self.r.rules), "caveats": set(self.r.caveats)}

@@ -38,3 +38,12 @@ def test_no_variant_of_a_real_rule_set_raises(tmp_path, source):
         assert checked.ruleset is not None or checked.errors
         count += 1
     assert count > 50
+
+
+def test_an_example_value_that_is_not_a_single_value_is_a_schema_error(tmp_path):
+    path = tmp_path / "r.yaml"
+    path.write_text("ruleset: x\nversion: 1\nclasses:\n  a:\n    rules:\n      - {id: w, measure: water, "
+                    "above: {watch: 5}, message: m, source: site practice}\nexamples:\n"
+                    "  - {name: e, sample: {class: [1]}, expect: {grade: watch}}\n")
+    checked = check_ruleset(path)
+    assert [(p.line, p.code) for p in checked.errors] == [(8, "S003")]
