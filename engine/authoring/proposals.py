@@ -51,8 +51,14 @@ class Filters:
     until: str | None = None
     pool_lubricants: bool = False
 
-    def words(self) -> str:
-        parts = [f"lubricant {self.lubricant}" if self.lubricant else "every lubricant (pooled on request)"]
+    def words(self, only: str | None = None) -> str:
+        """The filters in words; `only` is the one lubricant the results hold when none was asked for."""
+        if self.lubricant:
+            parts = [f"lubricant {self.lubricant}"]
+        elif only is not None:
+            parts = [f"lubricant {only} (the only one in these results)"]
+        else:
+            parts = ["every lubricant (pooled on request)"]
         if self.units:
             parts.append(f"unit(s) {', '.join(self.units)}")
         if self.since or self.until:
@@ -77,6 +83,7 @@ class DataProposal:
     expected_share: tuple = ()  # per level: share of in-control samples flagged (the method's model)
     observed_share: tuple = ()  # per level: share of these results beyond it
     notes: tuple = ()
+    only_lubricant: str | None = None  # the one lubricant of the results, when none was asked for
 
 
 def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubricant: str | None = None,
@@ -96,7 +103,9 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     measured = _measured(batch, measure, ruleset)
     chosen = _chosen(measured, class_name, filters)
     values = measured[measure].to_numpy(dtype=float, na_value=np.nan)[chosen]
-    _refuse_mixed_oils(measured, chosen, values, class_name, filters)
+    oils = _oils(measured, chosen, values)
+    _refuse_mixed_oils(oils, class_name, filters)
+    only = oils.index[0] if len(oils) == 1 and filters.lubricant is None else None
     if chosen.any() and np.isnan(values).all():
         raise Refused(_nothing_computed(measured, chosen, measure, ruleset))
     grades = tuple(grades) if grades else tuple((ruleset.grades if ruleset else DEFAULT_GRADES)[1:])
@@ -118,13 +127,13 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     dates = measured["sampled_on"].to_numpy(dtype=object)[chosen][~np.isnan(values)]
     dated = sorted(str(d) for d in dates if d is not None and not pd.isna(d))
     first, last = (dated[0], dated[-1]) if dated else (None, None)
-    who = f"class {class_name}, {filters.words()}"
+    who = f"class {class_name}, {filters.words(only)}"
     when = f"sampled {first} to {last}" if dated else "no sampling dates"
     spacing = " Steps widened to at least the test's repeatability." if notes else ""
     source = f"{proposal.source}{spacing} Data: {batch.source}, {who}, {when}."
     unit = measure_unit(measure) or (ruleset.unit_of(measure) if ruleset else "")
     return DataProposal(replace(proposal, source=source), class_name, filters.lubricant, measure, unit, first, last,
-                        len(dates) - len(dated), batch.source, filters, expected, observed, tuple(notes))
+                        len(dates) - len(dated), batch.source, filters, expected, observed, tuple(notes), only)
 
 
 def _measured(batch: SampleBatch, measure: str, ruleset: RuleSet | None) -> pd.DataFrame:
@@ -158,11 +167,15 @@ def _chosen(measured: pd.DataFrame, class_name: str, filters: Filters) -> np.nda
     return np.asarray(chosen, dtype=bool)
 
 
-def _refuse_mixed_oils(measured, chosen, values, class_name: str, filters: Filters) -> None:
+def _oils(measured, chosen, values) -> pd.Series:
+    """How many of the results with a value are on each lubricant code."""
+    codes = _column(measured, "lubricant")[chosen][~np.isnan(values)]
+    return pd.Series(["(none)" if c is None or pd.isna(c) else str(c) for c in codes], dtype=object).value_counts()
+
+
+def _refuse_mixed_oils(counts: pd.Series, class_name: str, filters: Filters) -> None:
     if filters.lubricant is not None or filters.pool_lubricants:
         return
-    codes = _column(measured, "lubricant")[chosen][~np.isnan(values)]
-    counts = pd.Series(["(none)" if c is None or pd.isna(c) else str(c) for c in codes]).value_counts()
     if len(counts) > 1:
         mix = ", ".join(f"{code} {n}" for code, n in counts.items())
         raise Refused(f"the results of class {class_name} mix {len(counts)} lubricants ({mix}); {E2412_POOL}. "
@@ -279,7 +292,7 @@ def figure_lines(found: DataProposal) -> list[str]:
     """The figures the limits rest on, for a reviewer to check."""
     p = found.proposal
     unit = f" {found.unit}" if found.unit else ""
-    lines = [f"data: {found.source_name}: class {found.class_name}, {found.filters.words()}, "
+    lines = [f"data: {found.source_name}: class {found.class_name}, {found.filters.words(found.only_lubricant)}, "
              f"measure {found.measure}{unit}",
              f"count: {p.count} result(s) used, {p.dropped_missing} without a value dropped "
              f"(at least {p.needed} needed for this method; minimum counts: common practice, no source)",
