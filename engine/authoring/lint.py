@@ -367,12 +367,15 @@ def _viscosity_grades(ruleset: RuleSet):
         if lub.iso_vg is None or origin is None:
             continue
         band = ISO_VG_GRADES.get(int(lub.iso_vg)) if float(lub.iso_vg).is_integer() else None
+        fits = [g for g, b in ISO_VG_GRADES.items() if lub.kv40 is not None and b.minimum <= lub.kv40 <= b.maximum]
         if band is None:
             near = min(ISO_VG_GRADES, key=lambda g: abs(g - lub.iso_vg))
-            yield _warning("W012", origin, f"lubricant '{code}': iso_vg {_num(lub.iso_vg)} is not an ISO 3448 grade",
+            kv40 = "" if lub.kv40 is None else (f"; its kv40 {_num(lub.kv40)} mm2/s fits ISO VG {fits[0]}" if fits
+                                                else f"; its kv40 {_num(lub.kv40)} mm2/s fits no ISO VG band")
+            yield _warning("W012", origin, f"lubricant '{code}': iso_vg {_num(lub.iso_vg)} is not an ISO 3448 grade"
+                                           f"{kv40}",
                            f"did you mean {near}? (grades: {', '.join(str(g) for g in ISO_VG_GRADES)})")
         elif lub.kv40 is not None and not band.minimum <= lub.kv40 <= band.maximum:
-            fits = [g for g, b in ISO_VG_GRADES.items() if b.minimum <= lub.kv40 <= b.maximum]
             yield _warning("W012", origin,
                            f"lubricant '{code}': kv40 {_num(lub.kv40)} mm2/s lies outside ISO VG {int(lub.iso_vg)}'s "
                            f"band {_num(band.minimum)} to {_num(band.maximum)} mm2/s (ISO 3448: midpoint +/-10 %)",

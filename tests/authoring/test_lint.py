@@ -173,3 +173,32 @@ def test_interval_helpers():
 ])
 def test_unit_trouble_thresholds(measure, limit, troubled):
     assert (unit_trouble(measure, limit) is not None) == troubled
+
+
+@pytest.mark.parametrize("iso_vg, kv40, warned, words", [
+    (46, 45.9, False, None),                   # ISO 3448: VG 46 is 41.4 to 50.6 mm2/s
+    (46, 80.0, True, "outside ISO VG 46's band 41.4 to 50.6"),
+    (45, 80.0, True, "45 is not an ISO 3448 grade; its kv40 80 mm2/s fits no ISO VG band"),  # 68: 61.2-74.8
+    (45, 44.0, True, "fits ISO VG 46"),
+    (68, 74.8, False, None),                   # the band's upper end belongs to it
+])
+def test_iso_vg_and_kv40_must_agree(tmp_path, iso_vg, kv40, warned, words):
+    path = tmp_path / "r.yaml"
+    path.write_text(f"ruleset: r\nversion: 1\nlubricants:\n  OIL: {{iso_vg: {iso_vg}, kv40: {kv40}}}\n")
+    found = [p for p in lint_ruleset(load_ruleset(path)) if p.code == "W012"]
+    assert bool(found) == warned
+    if words:
+        assert words in found[0].message and found[0].line == 4
+
+
+@pytest.mark.parametrize("rule, warned", [
+    ("measure: kv40, outside: {watch: 5}", True),        # |kv40| > 5: every oil above VG 5
+    ("measure: kv40, above: {watch: 1.5}", True),        # below ISO VG 2's lowest kv40, 1.98
+    ("measure: kv40, outside: {watch: [41.4, 50.6]}", False),
+    ("measure: kv40_change_pct, outside: {watch: 5}", False),
+])
+def test_raw_viscosity_limits_every_oil_crosses(tmp_path, rule, warned):
+    path = tmp_path / "r.yaml"
+    path.write_text(f"ruleset: r\nversion: 1\nclasses:\n  pump:\n    rules:\n"
+                    f"      - {{id: v, {rule}, message: m, source: site practice}}\n")
+    assert ("W011" in [p.code for p in lint_ruleset(load_ruleset(path))]) == warned
