@@ -241,13 +241,13 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     # Each row's unbroken run (one unit, one oil charge, one method and lab: a forecast fits over
     # it) and its place in the trend order; a run id never spans two units.
     run = np.cumsum(~comparable)
+    runs = pd.DataFrame({"trend_run": run[mine], "trend_position": mine}, index=measured.index)
     notes = pd.DataFrame({
-        "trend_run": run[mine], "trend_position": mine,
         "trend_break_note": _break_notes(chain, before, method_changed[mine], lab_changed[mine],
                                          np.arange(earlier, total)),
         "oil_change_note": _oil_notes(chain, before, flagged[mine], hours_fell[mine], h_before[mine], h[mine]),
-    }, index=measured.index)
-    return pd.concat([measured, numbers, notes], axis=1)
+    }, index=measured.index, dtype=object)
+    return pd.concat([measured, numbers, runs, notes], axis=1)
 
 
 def _text(values: np.ndarray) -> np.ndarray:
