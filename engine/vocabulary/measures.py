@@ -64,10 +64,6 @@ class Measure:
     trended: bool = False  # the unit's trend measures (`<name>_step`, ...) are built on it
     repeatability: Repeatability | None = None  # a published figure: a smaller step is not a rise
 
-    @property
-    def is_reading(self) -> bool:
-        return not self.needs
-
 
 def _reading(name, unit, meaning, **facts) -> Measure:
     facts.setdefault("scale_of", name)
