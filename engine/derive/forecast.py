@@ -131,16 +131,23 @@ def t_quantile(p: float, df: int) -> float:
 # -- the fit -----------------------------------------------------------------------------------
 
 def _days(dates: np.ndarray) -> np.ndarray:
-    parsed = pd.to_datetime(pd.Series(dates, dtype=object), errors="coerce", format="ISO8601")
+    """Day numbers (days since 1970-01-01) of ISO dates, NaN where missing or unreadable; each
+    distinct date is parsed once."""
+    codes, uniques = pd.factorize(dates)
+    parsed = pd.to_datetime(pd.Series(uniques, dtype=object), errors="coerce", format="ISO8601")
     days = parsed.to_numpy(dtype="datetime64[ns]").astype("datetime64[D]").astype(float)
     days[parsed.isna().to_numpy()] = np.nan
-    return days
+    return np.append(days, np.nan)[codes]  # factorize's -1 (no date) takes the NaN
 
 
-def _date(day: float | None) -> str | None:
-    if day is None or not np.isfinite(day):
-        return None
-    return str(np.datetime64(int(math.floor(day)), "D"))
+def _dates(days: np.ndarray) -> list:
+    """ISO dates of day numbers (days since 1970-01-01), None where not finite."""
+    finite = np.isfinite(days)
+    whole = np.floor(np.where(finite, days, 0)).astype("int64")
+    codes, uniques = pd.factorize(whole)
+    text = uniques.astype("datetime64[D]").astype(str).astype(object)[codes]
+    text[~finite] = None
+    return text.tolist()
 
 
 def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
@@ -166,6 +173,7 @@ def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
     hours = measured["oil_hours"].to_numpy(dtype=float)
     days = _days(measured["sampled_on"].to_numpy(dtype=object))
     classes = measured["class"].to_numpy(dtype=object)
+    names = (measured["unit_id"].to_numpy(dtype=object), measured["sample_id"].to_numpy(dtype=object))
     found = []
     for class_name in ruleset.classes:
         in_class = current & (classes == class_name)
@@ -176,12 +184,12 @@ def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
                 continue
             values = measured[rule.measure].to_numpy(dtype=float)
             use = in_class & np.isfinite(values) & np.isfinite(hours)
-            found.extend(_fit_rule(rule, measured, run, runs, use, hours, values, days, last_row, ruleset))
+            found.extend(_fit_rule(rule, names, run, runs, use, hours, values, days, last_row, ruleset))
     found.sort(key=lambda f: (f.unit_id, f.rule))
     return tuple(found)
 
 
-def _fit_rule(rule, measured, run, runs, use, x, y, days, last_row, ruleset) -> list[Forecast]:
+def _fit_rule(rule, names, run, runs, use, x, y, days, last_row, ruleset) -> list[Forecast]:
     """The forecasts of one rule for every run that `use` selects: all runs at once, Forecast
     records built only for the runs that pass every test."""
     r = run[use]
@@ -221,35 +229,41 @@ def _fit_rule(rule, measured, run, runs, use, x, y, days, last_row, ruleset) -> 
     df = n[g] - 2
     with np.errstate(invalid="ignore", divide="ignore"):
         t_stat = np.where(s2[g] > 0, b / np.sqrt(s2[g] / sxx[g]), np.inf)
-        t_needed = np.array([t_quantile(SLOPE_CONFIDENCE, int(d)) for d in df])
+        degrees, at = np.unique(df, return_inverse=True)
+        t_needed = np.array([t_quantile(SLOPE_CONFIDENCE, int(d)) for d in degrees])[at.ravel()]
         x_cross = np.maximum((limit - a) / b, x_now)
     horizon = HORIZON_SPANS * (x_now - first_x[g])
     keep = np.flatnonzero(has_next & (b > 0) & (t_stat > t_needed) & (x_cross <= x_now + horizon))
     if not len(keep):
         return []
-    pace = _pace(days[use], r, xs, runs)
-    out = []
-    for i in keep:
-        run_id, row = g[i], last_row[g[i]]
-        t_band = t_quantile(0.5 + PREDICTION_LEVEL / 2, int(df[i]))
-        low, high = _band(a[i], b[i], limit[i], n[run_id], mean_x[run_id], sxx[run_id], s2[run_id], t_band)
-        end = x_now[i] + horizon[i]
-        low = None if low is None else max(low, x_now[i])
-        high = None if high is None or high > end else max(high, x_now[i])
+    g, k, a, b, limit, x_now, horizon = g[keep], k[keep], a[keep], b[keep], limit[keep], x_now[keep], horizon[keep]
+    direction, t_stat, df = direction[keep], t_stat[keep], df[keep]
+    rows = last_row[g]
+    x_cross = np.maximum((limit - a) / b, x_now)
+    degrees, at = np.unique(df, return_inverse=True)
+    t_band = np.array([t_quantile(0.5 + PREDICTION_LEVEL / 2, int(d)) for d in degrees])[at.ravel()]
+    low, high = _band(a, b, limit, n[g], mean_x[g], sxx[g], s2[g], t_band)
+    end = x_now + horizon
+    low = np.maximum(low, x_now)
+    high = np.where(high > end, np.nan, np.maximum(high, x_now))
+    per_hour = _pace(days[use], r, xs, runs)[g]
 
-        def dated(hours, day=days[row], per_hour=pace[run_id], now=x_now[i]):
-            return None if hours is None or not np.isfinite(per_hour) else _date(day + (hours - now) * per_hour)
+    def dated(hours):
+        return _dates(days[rows] + (hours - x_now) * per_hour)
 
-        out.append(Forecast(
-            unit_id=str(measured["unit_id"].iat[row]), sample_id=str(measured["sample_id"].iat[row]),
-            rule=rule.id, measure=rule.measure, unit=measure_unit(rule.measure), grade=ruleset.grades[levels[k[i]]],
-            test=rule.test, limit=float(direction[i] * limit[i]), samples=int(n[run_id]), oil_hours=float(x_now[i]),
-            value=float(y[row]), slope_per_1000h=round(float(slope[run_id]) * 1000.0, 9),
-            slope_t=round(float(t_stat[i]), 6), at_hours=round(float(x_cross[i]), 3),
-            at_hours_low=None if low is None else round(float(low), 3),
-            at_hours_high=None if high is None else round(float(high), 3), horizon_hours=round(float(end), 3),
-            on=dated(float(x_cross[i])), on_low=dated(low), on_high=dated(high)))
-    return out
+    def hours_or_none(values):
+        return [None if np.isnan(v) else v for v in np.round(values, 3).tolist()]
+
+    columns = zip(names[0][rows].tolist(), names[1][rows].tolist(), levels[k].tolist(),
+                  (direction * limit).tolist(), n[g].astype(int).tolist(), x_now.tolist(), y[rows].tolist(),
+                  np.round(slope[g] * 1000.0, 9).tolist(), np.round(t_stat, 6).tolist(),
+                  np.round(x_cross, 3).tolist(), hours_or_none(low), hours_or_none(high), np.round(end, 3).tolist(),
+                  dated(x_cross), dated(low), dated(high))
+    unit = measure_unit(rule.measure)
+    return [Forecast(str(unit_id), str(sample_id), rule.id, rule.measure, unit, ruleset.grades[level], rule.test,
+                     lim, samples, hours, value, rate, t, at_h, at_low, at_high, horizon_h, on, on_low, on_high)
+            for (unit_id, sample_id, level, lim, samples, hours, value, rate, t, at_h, at_low, at_high, horizon_h,
+                 on, on_low, on_high) in columns]
 
 
 def _limit_toward(limit, direction: np.ndarray, test: str) -> np.ndarray:
@@ -277,27 +291,27 @@ def _pace(d, r, xs, runs) -> np.ndarray:
     return pace
 
 
-def _band(a, b, limit, n, mean_x, sxx, s2, t) -> tuple[float | None, float | None]:
+def _band(a, b, limit, n, mean_x, sxx, s2, t) -> tuple[np.ndarray, np.ndarray]:
     """Where the prediction interval a + b x +- t s sqrt(1 + 1/n + (x - mean)^2 / sxx) meets `limit`.
 
     Squaring gives a quadratic in x; its smaller root is where the upper edge reaches the limit,
-    the larger where the lower edge does. Without a real larger root the lower edge never does.
+    the larger where the lower edge does (b > 0 throughout). When the band widens as fast as
+    the line climbs (t s / sqrt(sxx) >= b), the lower edge never reaches the limit (NaN) and
+    the upper edge is above it from the larger root on (from the start, -inf, without one).
     """
     k = t * t * s2
     u = limit - a
-    if k == 0:
-        return u / b, u / b
     qa = b * b - k / sxx
     qb = -2 * b * u + 2 * k * mean_x / sxx
     qc = u * u - k * (1 + 1 / n) - k * mean_x ** 2 / sxx
     disc = qb * qb - 4 * qa * qc
-    if qa > 0:  # the line outruns the band: both edges cross, around the fitted crossing
-        root = math.sqrt(disc)
-        return (-qb - root) / (2 * qa), (-qb + root) / (2 * qa)
-    # The band widens as fast as the line climbs: its lower edge never reaches the limit, and
-    # the upper edge is above it from the larger root on (from the start, without a real root).
-    if qa == 0:
-        return (-qc / qb if qb else -math.inf), None
-    if disc < 0:
-        return -math.inf, None
-    return (-qb - math.sqrt(disc)) / (2 * qa), None
+    with np.errstate(invalid="ignore", divide="ignore"):
+        root = np.sqrt(np.maximum(disc, 0.0))
+        outrun = qa > 0
+        low = np.where(outrun, (-qb - root) / (2 * qa), np.where(disc < 0, -np.inf, (-qb - root) / (2 * qa)))
+        low = np.where(qa == 0, np.where(qb != 0, -qc / qb, -np.inf), low)
+        high = np.where(outrun, (-qb + root) / (2 * qa), np.nan)
+        exact = k == 0  # no scatter at all: the band is the line
+        low = np.where(exact, u / b, low)
+        high = np.where(exact, u / b, high)
+    return low, high
