@@ -93,3 +93,13 @@ def test_hpu2_filter_bypass_is_a_cleanliness_problem(graded):
     assert measured.loc["BP-0004", ["iso4406_4um", "iso4406_6um", "iso4406_14um"]].tolist() == [15, 13, 10]
     # HPU-3's lab writes the two-number form: the 4 um(c) rule is not evaluated, never passed.
     assert "cleanliness-4um" in [n.rule for n in graded.find("BP-0006").not_evaluated]
+
+
+def test_explain_tells_the_forecast_made_from_the_units_latest_sample():
+    from conftest import run_cli
+    run = run_cli("explain", "BP-0330", "--samples", SCENARIO / "samples.csv", "--rules", SCENARIO / "site.yaml")
+    assert run.code == 0, run.err
+    paragraph = run.out[run.out.index("When will it cross?"):run.out.index("Rule set ")]
+    assert "iron: iron reaches the watch limit (above 100 ppm)" in paragraph and "Method: ordinary least" in paragraph
+    earlier = run_cli("explain", "BP-0317", "--samples", SCENARIO / "samples.csv", "--rules", SCENARIO / "site.yaml")
+    assert "When will it cross?" not in earlier.out  # forecasts are made from the latest sample only

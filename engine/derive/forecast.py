@@ -17,6 +17,7 @@ few quantiles of Student's t are computed per distinct degree of freedom.
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass
 from functools import lru_cache
@@ -174,6 +175,7 @@ def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
     days = _days(measured["sampled_on"].to_numpy(dtype=object))
     classes = measured["class"].to_numpy(dtype=object)
     names = (measured["unit_id"].to_numpy(dtype=object), measured["sample_id"].to_numpy(dtype=object))
+    declared = json.loads(ruleset.canonical).get("measures", {}) if ruleset.measures and ruleset.canonical else {}
     found = []
     for class_name in ruleset.classes:
         in_class = current & (classes == class_name)
@@ -184,12 +186,13 @@ def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
                 continue
             values = measured[rule.measure].to_numpy(dtype=float)
             use = in_class & np.isfinite(values) & np.isfinite(hours)
-            found.extend(_fit_rule(rule, names, run, runs, use, hours, values, days, last_row, ruleset))
+            unit = measure_unit(rule.measure) or declared.get(rule.measure, {}).get("unit", "")
+            found.extend(_fit_rule(rule, unit, names, run, runs, use, hours, values, days, last_row, ruleset))
     found.sort(key=lambda f: (f.unit_id, f.rule))
     return tuple(found)
 
 
-def _fit_rule(rule, names, run, runs, use, x, y, days, last_row, ruleset) -> list[Forecast]:
+def _fit_rule(rule, unit, names, run, runs, use, x, y, days, last_row, ruleset) -> list[Forecast]:
     """The forecasts of one rule for every run that `use` selects: all runs at once, Forecast
     records built only for the runs that pass every test."""
     r = run[use]
@@ -259,7 +262,6 @@ def _fit_rule(rule, names, run, runs, use, x, y, days, last_row, ruleset) -> lis
                   np.round(slope[g] * 1000.0, 9).tolist(), np.round(t_stat, 6).tolist(),
                   np.round(x_cross, 3).tolist(), hours_or_none(low), hours_or_none(high), np.round(end, 3).tolist(),
                   dated(x_cross), dated(low), dated(high))
-    unit = measure_unit(rule.measure)
     return [Forecast(str(unit_id), str(sample_id), rule.id, rule.measure, unit, ruleset.grades[level], rule.test,
                      lim, samples, hours, value, rate, t, at_h, at_low, at_high, horizon_h, on, on_low, on_high)
             for (unit_id, sample_id, level, lim, samples, hours, value, rate, t, at_h, at_low, at_high, horizon_h,

@@ -136,5 +136,6 @@ def test_forecast_records_say_their_method_and_units():
     iron = 12.0 + 0.006 * hours
     record = _one(_graded(_samples("U", hours, iron))).to_record()
     assert record["rule"] == "iron" and record["measure"] == "iron" and record["method"] == METHOD
+    assert record["unit"] == "ppm"  # the declared measure's unit, from the rule set
     assert record["at_hours"] == pytest.approx((50.0 - 12.0) / 0.006, abs=1e-3)
     assert record["at_hours_low"] == record["at_hours_high"] == record["at_hours"]  # no noise, no band
