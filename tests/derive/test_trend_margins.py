@@ -134,3 +134,37 @@ def test_margins_and_iso4406_rules_in_canonical_form_reload_to_the_same_fingerpr
 def test_a_water_margin_in_percent_is_converted(tmp_path):
     rs = _compile(tmp_path, "units: {water: '%'}\nnoise_margins: {water: 0.005}\n")
     assert math.isclose(rs.noise_margins["water"], 50.0)
+
+
+def test_rises_agree_with_a_per_unit_loop_on_random_data():
+    """The vectorized margin against a plain loop written from D664 15.1.1 (r = 0.117 x mean)."""
+    from sumpwise.derive.row_measures import derive_measures
+    from sumpwise.derive.trends import add_trend_measures, noise_margins
+
+    rs = sumpwise.load_ruleset(RULES)
+    assert noise_margins(rs, ("an", "iron")) == {"an": (0.0, 0.117, 0.0), "iron": (2.0, 0.0, 0.0)}
+    rng = np.random.default_rng(11)
+    n = 2000
+    frame = pd.DataFrame({"sample_id": [f"S{i:05d}" for i in range(n)],
+                          "unit_id": [f"U-{u}" for u in rng.integers(0, 25, n)],
+                          "class": "hydraulic", "lubricant": "TEST-46",
+                          "sampled_on": (pd.Timestamp("2025-01-01")
+                                         + pd.to_timedelta(rng.permutation(n), unit="D")).strftime("%Y-%m-%d"),
+                          "oil_hours": 1000.0, "an": np.round(rng.uniform(0.05, 1.5, n), 2),
+                          "iron": np.round(rng.uniform(5, 40, n))})
+    frame["oil_hours"] = frame.groupby("unit_id")["sampled_on"].rank() * 250.0
+    measured = derive_measures(frame, rs.lubricants, rs.measures)
+    out = add_trend_measures(measured, None, None, ("an", "iron"), noise_margins(rs, ("an", "iron")))
+    out = out.set_index("sample_id")
+    for _, unit in frame.sort_values("sampled_on").groupby("unit_id"):
+        runs = {"an": 0, "iron": 0}
+        for k, row in enumerate(unit.itertuples()):
+            for name, margin in (("an", None), ("iron", 2.0)):
+                if k == 0:
+                    assert math.isnan(out.at[row.sample_id, f"{name}_rising"])
+                    continue
+                before, now = getattr(previous, name), getattr(row, name)
+                allowed = margin if margin is not None else 0.117 * (before + now) / 2
+                runs[name] = runs[name] + 1 if round(now - before, 9) > allowed else 0
+                assert out.at[row.sample_id, f"{name}_rising"] == runs[name], (row.sample_id, name)
+            previous = row
