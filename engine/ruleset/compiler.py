@@ -17,7 +17,9 @@ import os
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES, KNOWN_FIELDS, domain_of, measure_unit, unit_key
+from sumpwise.vocabulary.measures import (DERIVED_MEASURES, INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, MEASURES,
+                                         TRENDED, declared_trend_measures, domain_of, measure_unit, read_iso4406,
+                                         unit_key)
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
@@ -96,6 +98,7 @@ class _Compiler:
         self.grades = resolved.grades
         self.problems: list[Problem] = []
         self.measures = set(INPUT_MEASURES) | set(DERIVED_MEASURES) | set(resolved.measures)
+        self.measures |= set(declared_trend_measures(resolved.measures))
         self.fields = set(KNOWN_FIELDS) | set(resolved.fields)
 
     def run(self) -> RuleSet:
@@ -108,8 +111,9 @@ class _Compiler:
         """The rule set from every piece that compiles cleanly; problems are collected, not raised."""
         r = self.r
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
-        classes = {name: self._clean(self._rule, rules.values(), "rule") for name, rules in sorted(r.classes.items())}
-        common = self._clean(self._rule, r.rules.values(), "rule")
+        classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
+        common = self._rules(r.rules.values())
+        margins = {name: self._noise_margin(name, placed) for name, placed in sorted(r.noise_margins.items())}
         caveats = self._clean(self._caveat, r.caveats.values(), "caveat")
         examples = tuple(self._example(p) for p in r.examples)
         header = r.header
@@ -122,6 +126,7 @@ class _Compiler:
             canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
             measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
             lubricant_origins={code: self._origin(placed) for code, placed in r.lubricants.items()},
+            noise_margins=margins,
         )
         if self.problems:
             return ruleset
@@ -140,8 +145,8 @@ class _Compiler:
                 ident = placed.data.get("id")
                 self.problems[before:] = [p if f"'{ident}'" in p.message else
                                           replace(p, message=f"{what} '{ident}': {p.message}") for p in found]
-            elif item is not None:
-                out.append(item)
+            else:
+                out.extend(piece for piece in (item if isinstance(item, list) else [item]) if piece is not None)
         return tuple(out)
 
     # -- pieces --------------------------------------------------------------------------
@@ -201,6 +206,57 @@ class _Compiler:
         if spectrum is not None:
             data["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
         return Lubricant(code=code, **data)
+
+    def _rules(self, places) -> tuple:
+        """The compiled rules of a list; an `iso4406` rule becomes one ladder rule per size it limits."""
+        return self._clean(self._rule_pieces, places, "rule")
+
+    def _rule_pieces(self, placed: Placed) -> list:
+        return self._iso4406_rules(placed) if "iso4406" in placed.data else [self._rule(placed)]
+
+    def _iso4406_rules(self, placed: Placed) -> list:
+        """`iso4406: {watch: 17/15/12, alert: 19/17/14}`: a code above the grade's code at any size
+        gives that grade. Compiled as ladder rules `<id>-4um`, `<id>-6um`, `<id>-14um` on the scale
+        numbers, one per size that some grade limits ('-' or '*' leaves a size unlimited)."""
+        data = placed.data
+        if "measure" in data or "when" in data or "grade" in data or any(k in data for k in _LADDER_TESTS):
+            self.problems.append(placed.problem(
+                f"rule '{data['id']}' has `iso4406` limits: it takes no `measure`, `when`, `grade` or "
+                f"{'/'.join(_LADDER_TESTS)}", ("id",), code="C004"))
+            return []
+        per_size: dict[int, list] = {k: [] for k in range(len(ISO4406_SIZES))}
+        for grade, code in data["iso4406"].items():
+            level = self._level(placed, ("iso4406", grade), grade, key=True)
+            try:
+                numbers = read_iso4406(code)
+            except ValueError as error:
+                self.problems.append(placed.problem(str(error), ("iso4406", grade), code="C015"))
+                continue
+            if level is None:
+                continue
+            for k, number in enumerate(numbers):
+                if number is not None:
+                    per_size[k].append((level, float(number)))
+        rules = []
+        for k, steps in per_size.items():
+            if not steps:
+                continue
+            steps.sort(key=lambda s: s[0])
+            written = {self.grades[level]: int(limit) for level, limit in steps}
+            self._check_monotone(placed, "above", steps, written)
+            size = ISO4406_SIZES[k]
+            rules.append(LadderRule(f"{data['id']}-{size}", f"iso4406_{size}", "above", tuple(steps),
+                                    data["message"].strip(), self._source(placed), self._origin(placed)))
+        return rules
+
+    def _noise_margin(self, name: str, placed: Placed) -> float | None:
+        if name not in TRENDED and (name not in self.r.measures or name in MEASURES):
+            known = ", ".join(list(TRENDED) + sorted(self.r.measures))
+            self.problems.append(placed.problem(
+                f"noise margin for '{name}', which has no trend measures; trended measures are: {known}",
+                (), key=True, code="C014"))
+            return None
+        return placed.data * self._scale(placed, name)
 
     def _rule(self, placed: Placed):
         data = placed.data
@@ -373,8 +429,11 @@ class _Compiler:
         class_name = placed.data["sample"].get("class")
         if not isinstance(class_name, str) or class_name not in self.r.classes:
             return  # an unknown class leaves the sample unrated; running the example says so
-        known = {"fires": set(self.r.classes[class_name]) | set(self.r.rules),
-                 "quiet": set(self.r.classes[class_name]) | set(self.r.rules), "caveats": set(self.r.caveats)}
+        rules = set()
+        for ident, rule in {**self.r.rules, **self.r.classes[class_name]}.items():
+            # an `iso4406` rule compiles to one rule per size: `<id>-4um`, `<id>-6um`, `<id>-14um`
+            rules |= {f"{ident}-{size}" for size in ISO4406_SIZES} if "iso4406" in rule.data else {ident}
+        known = {"fires": rules, "quiet": rules, "caveats": set(self.r.caveats)}
         for key, ids in known.items():
             for i, ident in enumerate(placed.data["expect"].get(key, [])):
                 if ident in ids:
@@ -465,6 +524,8 @@ def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
     }
     if measure_specs:
         doc["measures"] = {name: dict(spec) for name, spec in sorted(measure_specs.items())}
+    if ruleset.noise_margins:
+        doc["noise_margins"] = {name: _number(margin) for name, margin in sorted(ruleset.noise_margins.items())}
     if ruleset.fields:
         doc["fields"] = list(ruleset.fields)
     return doc

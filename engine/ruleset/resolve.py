@@ -48,6 +48,7 @@ class Resolved:
     rules: dict = field(default_factory=dict)
     caveats: dict = field(default_factory=dict)
     measures: dict = field(default_factory=dict)
+    noise_margins: dict = field(default_factory=dict)
     fields: dict = field(default_factory=dict)
     examples: list = field(default_factory=list)
     files: list = field(default_factory=list)
@@ -93,7 +94,7 @@ def _sanitized(doc: YamlDocument, spoiled: set) -> YamlDocument:
         head = piece[0]
         if len(piece) == 1:
             data.pop(head, None)
-        elif head in ("classes", "lubricants", "measures", "units") and isinstance(data.get(head), dict):
+        elif head in ("classes", "lubricants", "measures", "units", "noise_margins") and isinstance(data.get(head), dict):
             if head == "classes" and len(piece) == 4:
                 continue  # one rule of a class: skipped by index
             data[head] = {k: v for k, v in data[head].items() if k != piece[1]}
@@ -159,6 +160,7 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     merged.header_marks.update(parent.header_marks)
     merged.lubricants.update(parent.lubricants)
     merged.measures.update(parent.measures)
+    merged.noise_margins.update(parent.noise_margins)
     merged.fields.update(parent.fields)
     for name, rules in parent.classes.items():
         target = merged.classes.setdefault(name, {})
@@ -206,6 +208,8 @@ def _add_own(merged: Resolved, doc: YamlDocument, data: dict, skipped: set, prob
         merged.lubricants[code] = Placed(lub, doc, ("lubricants", code))
     for name, spec in data.get("measures", {}).items():
         merged.measures[name] = Placed(spec, doc, ("measures", name))
+    for name, margin in data.get("noise_margins", {}).items():
+        merged.noise_margins[name] = Placed(margin, doc, ("noise_margins", name))
     for i, name in enumerate(data.get("fields", [])):
         if ("fields", i) not in skipped:
             merged.fields[name] = Placed(name, doc, ("fields", i))

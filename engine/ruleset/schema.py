@@ -56,7 +56,7 @@ def schema_findings(doc: YamlDocument) -> tuple[list[Problem], set]:
     return problems, spoiled
 
 
-_KEYED = ("classes", "lubricants", "measures", "units")
+_KEYED = ("classes", "lubricants", "measures", "units", "noise_margins")
 _LISTED = ("rules", "caveats", "examples", "fields")
 
 
