@@ -3,8 +3,8 @@
 propose-limits is checked against numpy on seeded data of a known distribution.
 Method source: ASTM D7720 §1.2 (SPC limits, mean + k SD, for normal, in-control
 data) and §1.3 (percentiles of the sorted data for data that are not), as the
-project's fact sheet (../shared/reference/limits.md) gives them. The levels (1/2/3
-SD; 90th/95th/98th percentile) and the minimum counts are common practice, no
+project's fact sheet (../shared/reference/limits.md) gives them. The levels (2/2.5/3
+SD; 95th/97.5th/99th percentile) and the minimum counts are common practice, no
 source: D7720's own were not found.
 """
 
