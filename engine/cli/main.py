@@ -100,6 +100,7 @@ def _parser(stdout) -> _Parser:
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
     grade.add_argument("--fail-at", metavar="GRADE",
                        help="exit 3 when any sample reaches this grade or higher")
+    authoring_cli.add_example_guard(grade)
     ledger_cli.add_grade_arguments(grade)
 
     explain = commands.add_parser("explain", help="tell the story of one sample's grade", out=stdout,
@@ -279,6 +280,8 @@ def _grade_chunks(args, stdin, stdout, stderr) -> int:
     if getattr(args, "correction", False):
         raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
     ruleset = load_ruleset(args.rules)
+    if not authoring_cli.examples_hold(ruleset, args, stderr):
+        return USAGE
     fail_level = _fail_level(args, ruleset)
     columns = load_column_map(args.columns) if args.columns else None
     if args.samples == "-":
@@ -308,6 +311,8 @@ def _grade_chunks(args, stdin, stdout, stderr) -> int:
 
 def _grade_whole(args, stdin, stdout, stderr) -> int:
     ruleset, batch = _read(args, stdin)
+    if not authoring_cli.examples_hold(ruleset, args, stderr):
+        return USAGE
     fail_level = _fail_level(args, ruleset)
     graded = ledger_cli.grade(args, batch, ruleset, stderr)
     writer = {"jsonl": lambda graded, out: write_jsonl(graded, out, args.record), "csv": write_csv,
@@ -338,7 +343,8 @@ def _explain(args, stdin, stdout, stderr) -> int:
             reasons = "; ".join(f"row {r.row}: {r.field}: {r.reason}" for r in rejected)
             raise InputError(f"sample {args.sample_id} was rejected, not graded: {reasons}")
         raise InputError(f"no sample '{args.sample_id}' in {batch.source}")
-    stdout.write("\n".join(explain_lines(result, ruleset.grades)) + "\n")
+    forecasts = [f for f in graded.forecasts if f.sample_id == args.sample_id]
+    stdout.write("\n".join(explain_lines(result, ruleset.grades, forecasts=forecasts)) + "\n")
     return OK
 
 

@@ -201,6 +201,7 @@ class GradedBatch:
     source: str = ""
     value_columns: tuple = ()  # input measures the samples file carried, recorded with each result
     engine_caveats: tuple = ()  # caveats the engine raises itself; their outcome columns follow the rule set's
+    forecasts: tuple = ()  # derive.forecast.Forecast: when each unit's current charge reaches a rule's next limit
     derived_columns: tuple = ()  # derived measures recorded with each result (see recorded_derived)
     columns: "ColumnArrays" = field(init=False, repr=False, compare=False)
 
@@ -380,7 +381,7 @@ def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
     if isinstance(rule, LadderRule):
         limit = dict(rule.steps)[raw]
         return Reason(rule.id, grades[final], final, rule.message, rule.source, measure=rule.measure,
-                      value=values.number(rule.measure, i), unit=measure_unit(rule.measure) or None,
+                      value=values.number(rule.measure, i), unit=rs.unit_of(rule.measure) or None,
                       test=rule.test, limit=_limit_value(limit), capped_from=capped_from, capped_by=capped_by)
     rows, found = out.leaves[j]
     at = int(np.searchsorted(rows, i))
