@@ -9,7 +9,7 @@ oracle) on a smaller file, whose output must equal sumpwise's byte for byte. Wit
 memory. Figures only: nothing here is asserted.
 
     .venv/bin/python benchmarks/bench_grade.py [--rows N] [--peer-rows M] [--api-rows K] [--baseline-rows B]
-                                               [--chunked-rows R]
+                                               [--chunked-rows R [--chunk-rows C]]
 """
 
 from __future__ import annotations
@@ -151,6 +151,9 @@ def main() -> None:
     parser.add_argument("--api-rows", type=int, default=100_000)
     parser.add_argument("--baseline-rows", type=int, default=100_000)
     parser.add_argument("--chunked-rows", type=int, default=0, help="also grade this many rows in chunks")
+    parser.add_argument("--chunk-rows", type=int, default=0,
+                        help="the chunked grade's --chunk-rows (default: grade's); a multiple of 100,000, since the "
+                             "chunked file's samples are dated a day per 100,000 rows")
     args = parser.parse_args()
 
     ruleset = load_ruleset(RULES)
@@ -223,12 +226,14 @@ def main() -> None:
 
         if args.chunked_rows:
             big = write_csv(ruleset, args.chunked_rows, folder / "big.csv", seed=23, dated=True)
+            chunking = ["--chunk-rows", str(args.chunk_rows)] if args.chunk_rows else []
             print(f"\nchunked grade of {args.chunked_rows:,} samples ({big.stat().st_size / 1e9:.2f} GB CSV), "
-                  f"compact records, default --chunk-rows:")
+                  f"compact records, --chunk-rows {args.chunk_rows or 'default'}:")
             clock = Clock()
             cpu = children_cpu()
             result = subprocess.run(["/usr/bin/time", "-f", "%M", sys.executable, "-m", "sumpwise", "grade", str(big),
-                                     "--rules", str(RULES), "--record", "compact", "--out", str(folder / "big.jsonl")],
+                                     "--rules", str(RULES), "--record", "compact", "--out", str(folder / "big.jsonl")]
+                                    + chunking,
                                     check=True, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
             seconds = clock.lap()[0], children_cpu() - cpu
             peak = int(result.stderr.strip().splitlines()[-1]) / 1024.0
