@@ -25,7 +25,7 @@ from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, curre
                      history_frame, open_ledger, sample_entries, unit_entries)
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.render.jsonl import jsonl_lines
-from sumpwise.results.records import CaveatNote, Clause, NotEvaluated, Reason, SampleResult
+from sumpwise.results.records import CaveatNote, Clause, NotEvaluated, Reason, SampleResult, next_step_from_record
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import SampleBatch
 
@@ -41,14 +41,15 @@ def result_from_record(record: dict, grades: tuple) -> SampleResult:
         reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), r["message"], r["source"],
                               measure=r.get("measure"), value=r.get("value"), unit=r.get("unit"),
                               test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
-                              capped_by=r.get("capped_by"), clauses=clauses))
+                              capped_by=r.get("capped_by"), clauses=clauses,
+                              next_step=next_step_from_record(r.get("next_step"))))
     ruleset = record["ruleset"]
     return SampleResult(
         sample_id=record["sample_id"], unit_id=record["unit_id"], class_name=record["class"],
         lubricant=record["lubricant"], sampled_on=record["sampled_on"], grade=record["grade"],
         level=record["level"], reasons=tuple(reasons),
-        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())))
-                      for c in record["caveats"]),
+        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())),
+                                 next_step_from_record(c.get("next_step"))) for c in record["caveats"]),
         not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"])) for n in record["not_evaluated"]),
         notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
         ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),

@@ -87,6 +87,17 @@ Condition = Union[MeasureTest, MissingTest, FieldTest, AllOf, AnyOf, Not]
 
 
 @dataclass(frozen=True)
+class NextStep:
+    """What the site wants done when a rule fires or a caveat applies (`next_step:`).
+
+    `task` is the site's own words; `within_days`, when given, is how soon after the sample.
+    """
+
+    task: str
+    within_days: int | None = None
+
+
+@dataclass(frozen=True)
 class LadderRule:
     """One measure, one limit per grade; the highest grade whose limit is crossed fires.
 
@@ -101,6 +112,7 @@ class LadderRule:
     message: str
     source: str
     origin: Origin = field(compare=False)
+    next_step: NextStep | None = None
 
     @property
     def reads(self) -> frozenset:
@@ -117,6 +129,7 @@ class ConditionRule:
     message: str
     source: str
     origin: Origin = field(compare=False)
+    next_step: NextStep | None = None
 
     @property
     def reads(self) -> frozenset:
@@ -143,6 +156,7 @@ class Caveat:
     message: str
     source: str
     origin: Origin = field(compare=False)
+    next_step: NextStep | None = None
 
 
 @dataclass(frozen=True)
