@@ -1,6 +1,6 @@
 """The `report` command: read results (and rejects, and the rule set), write one HTML file.
 
-The file reading lives here; engine/report_html.py turns records into HTML.
+The file reading lives here; sumpwise.render.html_report turns records into HTML.
 """
 
 from __future__ import annotations
@@ -22,7 +22,8 @@ def add_arguments(parser) -> None:
     parser.add_argument("--rejects", metavar="FILE",
                         help="rejected rows written by `grade --rejects` (.csv or JSON Lines), to count them")
     parser.add_argument("--rules", metavar="RULESET",
-                        help="the rule set the results were graded with: draws its limits on the plots")
+                        help="the rule set the results were graded with: plots what each class's rules read, "
+                             "with its limits")
     parser.add_argument("--title", metavar="TEXT", help="report title (default: the rule set's title)")
     parser.add_argument("--out", required=True, metavar="PATH", help="the HTML file to write")
 
