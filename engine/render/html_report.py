@@ -17,6 +17,7 @@ import json
 from collections import Counter
 from dataclasses import dataclass
 from datetime import date
+from functools import lru_cache
 from html import escape
 
 from sumpwise.vocabulary.cautions import CAUTIONS
@@ -25,7 +26,7 @@ from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
 from sumpwise.render.narrative import step_phrase
-from sumpwise.render.svg_plot import LimitLine, Mark, Plot, Point, grade_look, marker_icon, render_plot
+from sumpwise.render.svg_plot import LimitLine, Mark, Plot, Point, grade_look, marker_css, marker_icon, render_plot
 
 UNRATED = "unrated"
 OIL_CHANGED_CAVEAT = "oil-changed"  # the caveat the engine raises on the first sample of a new charge
@@ -252,16 +253,15 @@ def limit_lines(ruleset: RuleSet, class_name: str, measure: str) -> list[LimitLi
     return lines
 
 
-def moving_worse(samples, watched: Watched) -> bool:
+def moving_worse(series: list, charge_start: int, worse: int) -> bool:
     """The last three recorded values of the current oil charge each moved the way the limits call worse.
 
     Two moves in a row, not one, so a single noisy reading does not call a trend.
     """
-    if watched.worse == 0:
+    if worse == 0:
         return False
-    start = max([k for k, s in enumerate(samples) if starts_charge(s)], default=0)
-    values = [v for v in (recorded_value(s, watched.measure) for s in samples[start:]) if v is not None][-3:]
-    return len(values) == 3 and all((b - a) * watched.worse > 0 for a, b in zip(values, values[1:]))
+    values = [v for v in series[charge_start:] if v is not None][-3:]
+    return len(values) == 3 and all((b - a) * worse > 0 for a, b in zip(values, values[1:]))
 
 
 @dataclass(frozen=True)
@@ -273,6 +273,7 @@ class UnitView:
     lubricant: str
     samples: tuple
     watched: tuple  # Watched, flagged measures first
+    series: dict  # measure -> the recorded value of each sample (None where the record has none)
     latest_level: int | None
     grade_move: str  # up, down, same, single sample
     rising: tuple  # measures whose recorded values are moving toward their limits
@@ -317,10 +318,12 @@ def unit_views(records, ruleset: RuleSet | None = None) -> list[UnitView]:
         else:
             before, now = _rank(samples[-2].get("level")), _rank(latest.get("level"))
             move = "up" if now > before else "down" if now < before else "same"
-        rising = tuple(w.measure for w in watched if moving_worse(samples, w))
+        series = {w.measure: [recorded_value(s, w.measure) for s in samples] for w in watched}
+        charge = max([k for k, s in enumerate(samples) if starts_charge(s)], default=0)
+        rising = tuple(w.measure for w in watched if moving_worse(series[w.measure], charge, w.worse))
         levels = [s["level"] for s in samples if s.get("level") is not None]
         views.append(UnitView(unit_id, class_name, latest.get("lubricant") or "", tuple(samples), tuple(watched),
-                              latest.get("level"), move, rising, max(levels) if levels else None,
+                              series, latest.get("level"), move, rising, max(levels) if levels else None,
                               sum(1 for s in samples if (s.get("level") or 0) > 0)))
     return sorted(views, key=lambda v: (-_rank(v.latest_level), not v.worsening, -_rank(v.worst_level), v.unit_id))
 
@@ -354,7 +357,7 @@ def unit_plots(view: UnitView, ladder: Ladder) -> list[Plot]:
     plots = []
     for watched in view.watched:
         unit = measure_unit(watched.measure)
-        ys = [recorded_value(s, watched.measure) for s in samples]
+        ys = view.series[watched.measure]
         runs = []
         for first, end in zip(bounds, bounds[1:]):
             run = tuple(Point(xs[k], ys[k], _point_level(watched.measure, samples[k], ladder),
@@ -443,6 +446,7 @@ def limit_text(test: str | None, limit, unit: str | None = None) -> str:
     return limit_phrase(test, limit, _number, unit)
 
 
+@lru_cache(maxsize=256)
 def _grade_cell(grade: str, level: int | None) -> str:
     return f'<span class="grade">{marker_icon(level)}{escape(grade)}</span>'
 
@@ -704,7 +708,7 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
     body.append(cautions)
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
-            f"<title>{escape(heading)} · sumpwise report</title><style>{_CSS}</style></head><body>"
+            f"<title>{escape(heading)} · sumpwise report</title><style>{_CSS}{marker_css()}</style></head><body>"
             "<table class=\"frame\" role=\"presentation\">"
             f"<thead><tr><td><div class=\"wrap\">{_band(meta, 'head', notice)}</div></td></tr></thead>"
             f"<tfoot><tr><td><div class=\"wrap\">{_band(meta, 'foot', notice)}</div></td></tr></tfoot>"

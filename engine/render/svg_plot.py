@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from datetime import date
+from functools import lru_cache
 from html import escape
 
 
@@ -42,11 +43,27 @@ def grade_look(level: int | None) -> GradeLook:
     return _LOOKS[min(level, len(_LOOKS) - 1)]
 
 
+def _paint_class(level: int | None) -> str:
+    return "g-u" if level is None else f"g-{min(level, len(_LOOKS) - 1)}"
+
+
+def marker_css() -> str:
+    """The paint of each grade's marker, once in the page's style sheet instead of on every point."""
+    rules = []
+    for level in list(range(len(_LOOKS))) + [None]:
+        look = grade_look(level)
+        fill = look.colour if look.filled else "#ffffff"
+        if look.shape == "cross":
+            fill = "none"
+        rules.append(f".{_paint_class(level)} {{ fill: {fill}; stroke: {look.colour}; stroke-width: "
+                     f"{1.6 if look.shape == 'cross' else 1.3}; }}")
+    return "\n".join(rules) + "\n"
+
+
 def marker(level: int | None, cx: float, cy: float, size: float = 4.0) -> str:
-    """One grade marker as an SVG element centred on (cx, cy)."""
+    """One grade marker as an SVG element centred on (cx, cy); its paint comes from marker_css()."""
     look = grade_look(level)
-    fill = look.colour if look.filled else "#ffffff"
-    paint = f'fill="{fill}" stroke="{look.colour}" stroke-width="1.3"'
+    paint = f'class="{_paint_class(level)}"'
     s = size
     if look.shape == "circle":
         return f'<circle cx="{cx:.1f}" cy="{cy:.1f}" r="{s:.1f}" {paint}/>'
@@ -63,11 +80,12 @@ def marker(level: int | None, cx: float, cy: float, size: float = 4.0) -> str:
     else:
         d = s * 0.9
         return (f'<path d="M{cx - d:.1f},{cy - d:.1f}L{cx + d:.1f},{cy + d:.1f}M{cx - d:.1f},{cy + d:.1f}'
-                f'L{cx + d:.1f},{cy - d:.1f}" stroke="{look.colour}" stroke-width="1.6" fill="none"/>')
+                f'L{cx + d:.1f},{cy - d:.1f}" {paint}/>')
     text = " ".join(f"{x:.1f},{y:.1f}" for x, y in points)
     return f'<polygon points="{text}" {paint}/>'
 
 
+@lru_cache(maxsize=64)
 def marker_icon(level: int | None, size: int = 14) -> str:
     """A marker alone in a tiny inline SVG, for tables and legends."""
     half = size / 2
@@ -231,7 +249,6 @@ def render_plot(plot: Plot) -> str:
             path = " ".join(f"{sx(p.x):.1f},{sy(p.y):.1f}" for p in run)
             parts.append(f'<polyline points="{path}" fill="none" stroke="#6d6a62" stroke-width="1"/>')
     for p in points:
-        parts.append(f'<g class="pt" data-level="{"" if p.level is None else p.level}">'
-                     f'<title>{escape(p.label)}</title>{marker(p.level, sx(p.x), sy(p.y), 3.2)}</g>')
+        parts.append(f'<g class="pt"><title>{escape(p.label)}</title>{marker(p.level, sx(p.x), sy(p.y), 3.2)}</g>')
     parts.append("</svg>")
     return "".join(parts)
