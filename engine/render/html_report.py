@@ -26,7 +26,8 @@ from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
 from sumpwise.render.narrative import step_phrase
-from sumpwise.render.svg_plot import LimitLine, Mark, Plot, Point, grade_look, marker_css, marker_icon, render_plot
+from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
+                                      render_plot)
 
 UNRATED = "unrated"
 OIL_CHANGED_CAVEAT = "oil-changed"  # the caveat the engine raises on the first sample of a new charge
@@ -345,7 +346,38 @@ def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
     return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}"
 
 
-def unit_plots(view: UnitView, ladder: Ladder) -> list[Plot]:
+def _day(text) -> int | None:
+    try:
+        return date.fromisoformat(str(text)[:10]).toordinal()
+    except ValueError:
+        return None
+
+
+def projections(view: UnitView, measure: str, forecasts, ladder: Ladder) -> tuple:
+    """The engine's forecasts for this unit and measure as lines to the limit (dated ones only:
+    the x axis is the sample date). A forecast is a dict as derive.forecast.Forecast.to_record gives."""
+    dates = {s["sample_id"]: _sample_date(s) for s in view.samples}
+    drawn = []
+    for f in forecasts:
+        if f.get("unit_id") != view.unit_id or f.get("measure") != measure:
+            continue
+        x0, x1 = dates.get(f.get("sample_id")), _day(f.get("on"))
+        if x0 is None or x1 is None:
+            continue
+        drawn.append(Projection(x0, float(f["value"]), x1, float(f["limit"]), ladder.level(f["grade"]) or 0,
+                                forecast_text(f), _day(f.get("on_low")), _day(f.get("on_high"))))
+    return tuple(drawn)
+
+
+def forecast_text(f: dict) -> str:
+    """A forecast in words, with its band and the number of samples it was fitted on."""
+    unit = f" {f['unit']}" if f.get("unit") else ""
+    return (f"{f['rule']}: {f['measure']} reaches the {f['grade']} limit ({_number(f['limit'])}{unit}) about "
+            f"{f.get('on') or _number(f.get('at_hours')) + ' oil hours'}; band {f.get('on_low') or 'now'} to "
+            f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge")
+
+
+def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
     """One plot per watched measure, against the sample date; each oil charge is its own line."""
     samples = view.samples
     xs = [_sample_date(s) for s in samples]
@@ -366,7 +398,8 @@ def unit_plots(view: UnitView, ladder: Ladder) -> list[Plot]:
             if run:
                 runs.append(run)
         note = f"{undated} sample(s) without a date not drawn" if undated and any(y is not None for y in ys) else ""
-        plots.append(Plot(watched.measure, unit, "date", tuple(runs), watched.limits, marks, None, note))
+        plots.append(Plot(watched.measure, unit, "date", tuple(runs), watched.limits, marks, None, note,
+                          projections(view, watched.measure, forecasts, ladder)))
     return plots
 
 
@@ -635,8 +668,9 @@ def _sources(samples) -> str:
         f"<b>{escape(rule)}</b>: {escape(source)}" for rule, source in seen.items()) + "</p>")
 
 
-def _unit_section(view: UnitView, ladder: Ladder) -> str:
-    plots = unit_plots(view, ladder)
+def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
+    plots = unit_plots(view, ladder, forecasts)
+    mine = [f for f in forecasts if f.get("unit_id") == view.unit_id]
     changes = sum(1 for s in view.samples[1:] if starts_charge(s))
     latest = view.samples[-1]
     head = (f'<section class="unit" id="unit-{escape(view.unit_id)}" data-unit="{escape(view.unit_id)}">'
@@ -647,7 +681,12 @@ def _unit_section(view: UnitView, ladder: Ladder) -> str:
     figures = "".join(f"<figure>{render_plot(p)}"
                       + (f"<figcaption>{escape(p.note)}</figcaption>" if p.note else "") + "</figure>" for p in plots)
     earlier = _earlier(view.samples[:-1], ladder)
-    return (head + _latest(latest, ladder) + (f'<div class="plots">{figures}</div>' if figures else "")
+    ahead = ""
+    if mine:
+        ahead = ("<h4>When will it cross?</h4><ul class='todo forecasts'>" + "".join(
+            f"<li class='forecast'>{escape(forecast_text(f))}</li>" for f in mine) + "</ul>"
+            f"<p class='src'>Method: {escape(str(mine[0].get('method') or ''))}</p>")
+    return (head + _latest(latest, ladder) + ahead + (f'<div class="plots">{figures}</div>' if figures else "")
             + earlier + _sources(view.samples) + "</section>")
 
 
@@ -666,8 +705,12 @@ def _plot_key(ruleset: RuleSet | None) -> str:
 
 
 def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: str = "",
-                  rejects_given: bool = True) -> str:
-    """The whole report as one HTML document; `records` are result records as `grade` writes them."""
+                  rejects_given: bool = True, forecasts=()) -> str:
+    """The whole report as one HTML document; `records` are result records as `grade` writes them.
+
+    `forecasts` are the engine's forecasts of when a unit's charge reaches a limit, as dicts
+    (derive.forecast.Forecast.to_record); each is drawn on its unit's plot and listed in its card.
+    """
     if not records:
         raise InputError("a report needs at least one result record")
     first = records[0]
@@ -693,7 +736,7 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
             "<h2>The batch</h2>", _legend(ladder), _summary(records, rejects, ladder, rejects_given),
             "<h2>Units needing attention first</h2>", _attention(views, ladder),
             "<h2>Units: latest findings, what to do, trends</h2>", _plot_key(ruleset)]
-    body.extend(_unit_section(v, ladder) for v in views)
+    body.extend(_unit_section(v, ladder, forecasts) for v in views)
     if unrated:
         body.append("<h2>Unrated samples</h2><table class='grid unrated'><thead><tr><th>sample</th><th>unit</th>"
                     "<th>class</th><th>why no grade</th></tr></thead><tbody>" + "".join(

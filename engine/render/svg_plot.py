@@ -155,6 +155,24 @@ class Mark:
 
 
 @dataclass(frozen=True)
+class Projection:
+    """A forecast drawn on a plot: from the last sample (x0, y0) to where the fit meets a limit (x1, y1).
+
+    `x_low`/`x_high` bound the crossing (a prediction band); None where that bound lies beyond
+    the forecast's horizon. Nothing here is computed: the engine's forecast gives every number.
+    """
+
+    x0: float
+    y0: float
+    x1: float
+    y1: float
+    level: int
+    label: str
+    x_low: float | None = None
+    x_high: float | None = None
+
+
+@dataclass(frozen=True)
 class Plot:
     """A trend plot: runs of points (one run per oil charge), limit lines and event marks."""
 
@@ -166,6 +184,7 @@ class Plot:
     marks: tuple = ()
     baseline: float | None = None  # a thin reference line, e.g. 0 = new oil
     note: str = ""
+    projections: tuple = ()  # Projection: forecasts of when a limit will be reached
 
 
 WIDTH, HEIGHT = 300, 190
@@ -190,7 +209,8 @@ def render_plot(plot: Plot) -> str:
                 f'<text x="{WIDTH / 2:.0f}" y="{HEIGHT / 2:.0f}" text-anchor="middle" fill="#555">'
                 f'no values in this batch</text></svg>')
     xs = [p.x for p in points] + [m.x for m in plot.marks]
-    ys = [p.y for p in points] + [lim.y for lim in plot.limits]
+    xs += [x for f in plot.projections for x in (f.x1, f.x_low, f.x_high) if x is not None]
+    ys = [p.y for p in points] + [lim.y for lim in plot.limits] + [f.y1 for f in plot.projections]
     if plot.baseline is not None:
         ys.append(plot.baseline)
     y_ticks = nice_ticks(min(ys), max(ys), 5)
@@ -244,6 +264,19 @@ def render_plot(plot: Plot) -> str:
                      f'stroke="#3a3a3a" stroke-width="0.9" stroke-dasharray="2 3"/>'
                      f'<text x="{x + 2:.1f}" y="{_TOP + 8}" fill="#3a3a3a" font-size="7.5">'
                      f'{escape(mark.label)}</text></g>')
+    for f in plot.projections:
+        look = grade_look(f.level)
+        y1 = sy(f.y1)
+        band = ""
+        if f.x_low is not None or f.x_high is not None:
+            low = sx(f.x_low if f.x_low is not None else f.x0)
+            high = sx(f.x_high) if f.x_high is not None else _LEFT + inner_w
+            band = (f'<rect class="band" x="{low:.1f}" y="{y1 - 3:.1f}" width="{max(high - low, 1):.1f}" height="6" '
+                    f'fill="{look.colour}" fill-opacity="0.22" stroke="none"/>')
+        parts.append(f'<g class="projection"><title>{escape(f.label)}</title>{band}'
+                     f'<line x1="{sx(f.x0):.1f}" y1="{sy(f.y0):.1f}" x2="{sx(f.x1):.1f}" y2="{y1:.1f}" '
+                     f'stroke="{look.colour}" stroke-width="1.2" stroke-dasharray="4 2"/>'
+                     f'<circle cx="{sx(f.x1):.1f}" cy="{y1:.1f}" r="2.2" fill="{look.colour}"/></g>')
     for run in plot.runs:
         if len(run) > 1:
             path = " ".join(f"{sx(p.x):.1f},{sy(p.y):.1f}" for p in run)

@@ -23,7 +23,7 @@ from sumpwise.cli.main import main
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.render.html_report import (Ladder, limit_lines, parse_rejects, parse_results, recorded_value,
-                                         starts_charge, unit_plots, unit_views)
+                                         render_report, starts_charge, unit_plots, unit_views)
 from sumpwise.render.svg_plot import _LOOKS, UNRATED_LOOK, date_ticks, nice_ticks
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -485,3 +485,28 @@ def test_date_ticks_fall_on_month_starts():
         assert day.day == 1 and label == f"{day.year}-{day.month:02d}"
         assert calendar.monthrange(day.year, day.month)[1] >= 28
     assert [date.fromordinal(t).month for t, _ in ticks] == [3, 5, 7, 9, 11]
+
+
+def test_a_forecast_is_drawn_from_the_last_sample_to_the_limit_it_reaches(graded):
+    # The forecast's numbers are given here in the shape derive.forecast.Forecast.to_record writes; the
+    # report only places them: from the unit's latest sample to the limit on the forecast's date.
+    ruleset = load_ruleset(RULES)
+    view = next(v for v in unit_views(graded["records"], ruleset) if v.unit_id == "ST-1")
+    latest = view.samples[-1]
+    ahead = {"unit_id": "ST-1", "sample_id": latest["sample_id"], "rule": "water", "measure": "water",
+             "unit": "ppm", "grade": "alert", "test": "above", "limit": 300.0, "samples": 5, "value": 120.0,
+             "on": "2027-03-01", "on_low": "2027-01-15", "on_high": None, "method": "a stated method"}
+    undated = dict(ahead, on=None, on_low=None, rule="acid-rise", measure="an_rise")
+    ladder = Ladder.of(graded["records"], ruleset)
+    plots = {p.title: p for p in unit_plots(view, ladder, [ahead, undated])}
+    (drawn,) = plots["water"].projections
+    assert (drawn.x0, drawn.y0) == (date.fromisoformat(latest["sampled_on"]).toordinal(), 120.0)
+    assert (drawn.x1, drawn.y1) == (date(2027, 3, 1).toordinal(), 300.0)
+    assert drawn.x_low == date(2027, 1, 15).toordinal() and drawn.x_high is None
+    assert drawn.level == ruleset.grades.index("alert")
+    assert plots["an_rise"].projections == ()  # no date to place it on an axis of dates
+    html = render_report(graded["records"], (), ruleset, forecasts=[ahead])
+    section = _sections(html)["ST-1"]
+    assert section.count('class="projection"') == 1
+    assert "water reaches the alert limit (300 ppm) about 2027-03-01" in _flat(section)
+    assert all('class="projection"' not in s for unit, s in _sections(html).items() if unit != "ST-1")
