@@ -397,7 +397,12 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
                         for k in range(first, end) if ys[k] is not None and xs[k] is not None)
             if run:
                 runs.append(run)
-        note = f"{undated} sample(s) without a date not drawn" if undated and any(y is not None for y in ys) else ""
+        notes = []
+        if undated and any(y is not None for y in ys):
+            notes.append(f"{undated} sample(s) without a date not drawn")
+        if any("derived" not in s and watched.measure not in (s.get("values") or {}) for s in samples):
+            notes.append("these records carry this value only where a rule on it fired")
+        note = "; ".join(notes)
         plots.append(Plot(watched.measure, unit, "date", tuple(runs), watched.limits, marks, None, note,
                           projections(view, watched.measure, forecasts, ladder)))
     return plots
@@ -433,6 +438,7 @@ table.grid th, table.grid td { border-bottom: 1px solid #e2dfd6; padding: 2px 9p
 table.grid th { font-weight: 600; color: #3b3b37; border-bottom: 1.5px solid #8c887e; }
 table.grid td.n, table.grid th.n { text-align: right; padding-left: 10px; }
 .grade { white-space: nowrap; font-weight: 600; }
+table.attention td.when { white-space: nowrap; }
 .mk { vertical-align: -2px; margin-right: 4px; }
 .legend { display: flex; flex-wrap: wrap; gap: 6px 18px; font-size: 9pt; margin: 6px 0 10px; }
 .stats { display: flex; flex-wrap: wrap; gap: 10px; margin: 6px 0 12px; }
@@ -538,7 +544,7 @@ def _attention(views, ladder: Ladder) -> str:
                     f'{escape(v.unit_id)}</a></td><td>{escape(v.class_name)}</td>'
                     f"<td>{_grade_cell(latest['grade'], v.latest_level)}</td><td class='trend'>{escape(v.trend)}</td>"
                     f"<td>{_grade_cell(ladder.name(v.worst_level), v.worst_level)}</td>"
-                    f"<td>{escape(latest['sample_id'])} · {escape(latest.get('sampled_on') or 'no date')}</td>"
+                    f"<td class='when'>{escape(latest['sample_id'])} · {escape(latest.get('sampled_on') or 'no date')}</td>"
                     f'<td class="n">{v.flagged}</td><td class="n">{len(v.samples)}</td></tr>')
     return ('<p class="sub">Ordered by the grade of the latest sample, then units that are worsening (the grade '
             'went up from the sample before, or a watched value moved toward its limit in each of the last two '

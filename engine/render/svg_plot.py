@@ -207,7 +207,7 @@ def render_plot(plot: Plot) -> str:
         return (head + f'<rect x="{_LEFT}" y="{_TOP}" width="{WIDTH - _LEFT - _RIGHT}" '
                 f'height="{HEIGHT - _TOP - _BOTTOM}" fill="#f6f5f1" stroke="#c9c6bd"/>'
                 f'<text x="{WIDTH / 2:.0f}" y="{HEIGHT / 2:.0f}" text-anchor="middle" fill="#555">'
-                f'no values in this batch</text></svg>')
+                f'no values recorded</text></svg>')
     xs = [p.x for p in points] + [m.x for m in plot.marks]
     xs += [x for f in plot.projections for x in (f.x1, f.x_low, f.x_high) if x is not None]
     ys = [p.y for p in points] + [lim.y for lim in plot.limits] + [f.y1 for f in plot.projections]
