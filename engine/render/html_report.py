@@ -438,7 +438,8 @@ table.grid th, table.grid td { border-bottom: 1px solid #e2dfd6; padding: 2px 9p
 table.grid th { font-weight: 600; color: #3b3b37; border-bottom: 1.5px solid #8c887e; }
 table.grid td.n, table.grid th.n { text-align: right; padding-left: 10px; }
 .grade { white-space: nowrap; font-weight: 600; }
-table.attention td.when { white-space: nowrap; }
+table.grid td.when { white-space: nowrap; }
+table.earlier { font-size: 8.5pt; }
 .mk { vertical-align: -2px; margin-right: 4px; }
 .legend { display: flex; flex-wrap: wrap; gap: 6px 18px; font-size: 9pt; margin: 6px 0 10px; }
 .stats { display: flex; flex-wrap: wrap; gap: 10px; margin: 6px 0 12px; }
@@ -631,11 +632,11 @@ def _latest(record: dict, ladder: Ladder) -> str:
 
 
 def _finding_text(reason: dict) -> str:
-    capped = f", capped from {reason['capped_from']}" if reason.get("capped_from") else ""
+    """One finding in a few words: the rule, its grade and the value (the limits are on the plots)."""
+    capped = f" (capped from {reason['capped_from']})" if reason.get("capped_from") else ""
     if "measure" in reason:
-        return (f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))} "
-                f"({limit_text(reason.get('test'), reason.get('limit'), reason.get('unit'))})")
-    held = "; ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}"
+        return f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))}"
+    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}"
                      for c in reason.get("clauses") or () if c.get("held"))
     return f"{reason['rule']} {reason['grade']}{capped}: {held}"
 
@@ -647,19 +648,18 @@ def _earlier(samples, ladder: Ladder) -> str:
         if (record.get("level") or 0) <= 0:
             continue
         hours = (record.get("values") or {}).get("oil_hours")
-        steps = "; ".join(text for text, _ in next_steps(record))
         rows.append(f"<tr class='earlier' data-sample='{escape(record['sample_id'])}'>"
-                    f"<td>{escape(record.get('sampled_on') or '')}</td><td>{escape(record['sample_id'])}</td>"
+                    f"<td class='when'>{escape(record.get('sampled_on') or '')}</td>"
+                    f"<td class='when'>{escape(record['sample_id'])}</td>"
                     f"<td class='n'>{escape(f'{hours:g}' if isinstance(hours, (int, float)) else '')}</td>"
                     f"<td>{_grade_cell(record['grade'], record.get('level'))}</td>"
-                    f"<td>{'<br>'.join(escape(_finding_text(r)) for r in record['reasons'])}</td>"
-                    f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td>"
-                    f"<td>{escape(steps)}</td></tr>")
+                    f"<td>{escape('; '.join(_finding_text(r) for r in record['reasons']))}</td>"
+                    f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td></tr>")
     if not rows:
         return ""
     return ("<h4>Earlier flagged samples</h4><table class='grid earlier'><thead><tr><th>sampled</th><th>sample</th>"
-            "<th class='n'>oil h</th><th>grade</th><th>findings</th><th>caveats</th><th>next step</th></tr></thead>"
-            "<tbody>" + "".join(rows) + "</tbody></table>")
+            "<th class='n'>oil h</th><th>grade</th><th>findings (rule, grade: value)</th><th>caveats</th></tr>"
+            "</thead><tbody>" + "".join(rows) + "</tbody></table>")
 
 
 def _sources(samples) -> str:
