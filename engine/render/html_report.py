@@ -220,15 +220,17 @@ def watched_measures(ruleset: RuleSet | None, class_name: str, samples) -> list[
         if name == "oil_hours":
             continue
         lines = tuple(limit_lines(ruleset, class_name, name)) if ruleset is not None else ()
-        watched.append(Watched(name, lines, _worse_way(ruleset, class_name, name)))
+        watched.append(Watched(name, lines, _worse_way(ruleset, class_name, name, samples)))
     return watched
 
 
-def _worse_way(ruleset: RuleSet | None, class_name: str, measure: str) -> int:
-    if ruleset is None:
-        return 0
-    tests = {rule.test for rule in ruleset.rules_for(class_name)
-             if isinstance(rule, LadderRule) and rule.measure == measure}
+def _worse_way(ruleset: RuleSet | None, class_name: str, measure: str, samples) -> int:
+    """Which way is worse for a measure: from the class's ladder rules, else from the tests its findings name."""
+    if ruleset is not None:
+        tests = {rule.test for rule in ruleset.rules_for(class_name)
+                 if isinstance(rule, LadderRule) and rule.measure == measure}
+    else:
+        tests = {r.get("test") for s in samples for r in s["reasons"] if r.get("measure") == measure}
     if tests == {"above"}:
         return 1
     if tests == {"below"}:

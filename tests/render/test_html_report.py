@@ -510,3 +510,16 @@ def test_a_forecast_is_drawn_from_the_last_sample_to_the_limit_it_reaches(graded
     assert section.count('class="projection"') == 1
     assert "water reaches the alert limit (300 ppm) about 2027-03-01" in _flat(section)
     assert all('class="projection"' not in s for unit, s in _sections(html).items() if unit != "ST-1")
+
+
+def test_without_the_rule_set_the_way_to_worse_comes_from_the_findings():
+    # water 320 ppm crossed an `above` limit of 300 (alert); then 120, 150, 190 ppm after a fix: normal but climbing
+    finding = {"rule": "water", "measure": "water", "value": 320.0, "unit": "ppm", "test": "above", "limit": 300,
+               "grade": "alert", "message": "m", "source": "s"}
+    records = [_record("A1", "2026-01-01", 2, {"water": 320.0}, reasons=[finding])]
+    records += [_record(f"A{k}", f"2026-0{k}-01", 0, {"water": w}) for k, w in ((2, 120.0), (3, 150.0), (4, 190.0))]
+    (view,) = unit_views(records)
+    assert view.rising == ("water",) and view.grade_move == "same"
+    falling = records[:1] + [_record(f"B{k}", f"2026-0{k}-01", 0, {"water": w})
+                             for k, w in ((2, 190.0), (3, 150.0), (4, 120.0))]
+    assert unit_views(falling)[0].rising == ()
