@@ -441,6 +441,7 @@ table.grid th { font-weight: 600; color: #3b3b37; border-bottom: 1.5px solid #8c
 table.grid td.n, table.grid th.n { text-align: right; padding-left: 10px; }
 .grade { white-space: nowrap; font-weight: 600; }
 table.grid td.when { white-space: nowrap; }
+table.attention { font-size: 8.5pt; }
 table.earlier { font-size: 8.5pt; }
 .mk { vertical-align: -2px; margin-right: 4px; }
 .legend { display: flex; flex-wrap: wrap; gap: 6px 18px; font-size: 9pt; margin: 6px 0 10px; }
@@ -548,13 +549,15 @@ def _attention(views, ladder: Ladder) -> str:
                     f"<td>{_grade_cell(latest['grade'], v.latest_level)}</td><td class='trend'>{escape(v.trend)}</td>"
                     f"<td>{_grade_cell(ladder.name(v.worst_level), v.worst_level)}</td>"
                     f"<td class='when'>{escape(latest['sample_id'])} · {escape(latest.get('sampled_on') or 'no date')}</td>"
-                    f'<td class="n">{v.flagged}</td><td class="n">{len(v.samples)}</td></tr>')
+                    f'<td class="n">{v.flagged}</td><td class="n">{len(v.samples)}</td>'
+                    f"<td class='steps'>{escape('; '.join(text for text, _ in next_steps(latest)))}</td></tr>")
     return ('<p class="sub">Ordered by the grade of the latest sample, then units that are worsening (the grade '
             'went up from the sample before, or a watched value moved toward its limit in each of the last two '
             'samples of the current oil charge), then by the highest grade in the batch.</p>'
             '<table class="grid attention"><thead><tr><th>unit</th><th>class</th><th>latest grade</th>'
             '<th>trend</th><th>highest in batch</th><th>latest sample</th><th class="n">flagged</th>'
-            '<th class="n">samples</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table>")
+            '<th class="n">samples</th><th>what to do (latest sample)</th></tr></thead><tbody>' + "".join(rows)
+            + "</tbody></table>")
 
 
 def _reason_rows(record: dict, ladder: Ladder) -> str:

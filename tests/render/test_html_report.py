@@ -162,6 +162,8 @@ def test_each_unit_lists_what_to_do_from_its_latest_findings(graded):
             assert step in text, (unit, step)
         if not steps:
             assert "<h4>What to do</h4>" not in sections[unit]
+        row = graded["html"].split(f'<tr data-unit="{unit}">', 1)[1].split("</tr>", 1)[0]
+        assert all(step in _flat(row) for step in steps), (unit, steps)  # the attention table says it too
     # the demo's latest samples ask for at least one step (AC-3's ester caveat asks for an RPVOT)
     assert any("<h4>What to do</h4>" in section for section in sections.values())
 
