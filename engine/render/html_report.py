@@ -180,11 +180,16 @@ def _reason_measures(reason: dict) -> list[str]:
     return [c["measure"] for c in reason.get("clauses") or () if c.get("measure")]
 
 
-def _sample_date(record: dict) -> int | None:
+def _day(text) -> int | None:
+    """An ISO date as a day number (the plots' x), or None when there is none."""
     try:
-        return date.fromisoformat(str(record.get("sampled_on"))[:10]).toordinal()
+        return date.fromisoformat(str(text)[:10]).toordinal()
     except ValueError:
         return None
+
+
+def _sample_date(record: dict) -> int | None:
+    return _day(record.get("sampled_on"))
 
 
 def _sample_key(record: dict) -> tuple:
@@ -348,13 +353,6 @@ def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
     return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}"
 
 
-def _day(text) -> int | None:
-    try:
-        return date.fromisoformat(str(text)[:10]).toordinal()
-    except ValueError:
-        return None
-
-
 def projections(view: UnitView, measure: str, forecasts, ladder: Ladder) -> tuple:
     """The engine's forecasts for this unit and measure as lines to the limit (dated ones only:
     the x axis is the sample date). A forecast is a dict as derive.forecast.Forecast.to_record gives."""
@@ -405,7 +403,7 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
         if any("derived" not in s and watched.measure not in (s.get("values") or {}) for s in samples):
             notes.append("these records carry this value only where a rule on it fired")
         note = "; ".join(notes)
-        plots.append(Plot(watched.measure, unit, "date", tuple(runs), watched.limits, marks, None, note,
+        plots.append(Plot(watched.measure, unit, tuple(runs), watched.limits, marks, note,
                           projections(view, watched.measure, forecasts, ladder)))
     return plots
 

@@ -174,15 +174,14 @@ class Projection:
 
 @dataclass(frozen=True)
 class Plot:
-    """A trend plot: runs of points (one run per oil charge), limit lines and event marks."""
+    """A trend plot against the sample date (x is a date ordinal): runs of points (one run per
+    oil charge), limit lines, event marks and forecasts."""
 
     title: str
     unit: str
-    x_kind: str  # "date" (x is a date ordinal), "hours" or "order"
     runs: tuple
     limits: tuple = ()
     marks: tuple = ()
-    baseline: float | None = None  # a thin reference line, e.g. 0 = new oil
     note: str = ""
     projections: tuple = ()  # Projection: forecasts of when a limit will be reached
 
@@ -211,8 +210,6 @@ def render_plot(plot: Plot) -> str:
     xs = [p.x for p in points] + [m.x for m in plot.marks]
     xs += [x for f in plot.projections for x in (f.x1, f.x_low, f.x_high) if x is not None]
     ys = [p.y for p in points] + [lim.y for lim in plot.limits] + [f.y1 for f in plot.projections]
-    if plot.baseline is not None:
-        ys.append(plot.baseline)
     y_ticks = nice_ticks(min(ys), max(ys), 5)
     y_low, y_high = y_ticks[0], y_ticks[-1]
     x_low, x_high = min(xs), max(xs)
@@ -235,22 +232,15 @@ def render_plot(plot: Plot) -> str:
         parts.append(f'<line x1="{_LEFT}" x2="{_LEFT + inner_w}" y1="{y:.1f}" y2="{y:.1f}" stroke="#e6e3db" '
                      f'stroke-width="0.6"/><text x="{_LEFT - 4}" y="{y + 3:.1f}" text-anchor="end" '
                      f'fill="#444">{_format(tick)}</text>')
-    if plot.x_kind == "date":
-        x_ticks = date_ticks(int(math.ceil(x_low)), int(math.floor(x_high)))
-    else:
-        x_ticks = [(t, _format(t)) for t in nice_ticks(x_low, x_high, 5) if x_low <= t <= x_high]
+    x_ticks = date_ticks(int(math.ceil(x_low)), int(math.floor(x_high)))
     for tick, text in x_ticks:
         x = sx(tick)
         parts.append(f'<line x1="{x:.1f}" x2="{x:.1f}" y1="{_TOP + inner_h}" y2="{_TOP + inner_h + 3}" '
                      f'stroke="#777"/><text x="{x:.1f}" y="{_TOP + inner_h + 12}" text-anchor="middle" '
                      f'fill="#444" font-size="8">{escape(text)}</text>')
-    axis = {"date": "sample date", "hours": "oil hours (h)", "order": "sample order"}[plot.x_kind]
+    axis = "sample date"
     parts.append(f'<text x="{_LEFT + inner_w / 2:.0f}" y="{HEIGHT - 3}" text-anchor="middle" fill="#555" '
                  f'font-size="8">{axis}</text>')
-    if plot.baseline is not None:
-        y = sy(plot.baseline)
-        parts.append(f'<line class="baseline" x1="{_LEFT}" x2="{_LEFT + inner_w}" y1="{y:.1f}" y2="{y:.1f}" '
-                     f'stroke="#8c887e" stroke-width="0.8"/>')
     for limit in plot.limits:
         look = grade_look(limit.level)
         y = sy(limit.y)
