@@ -202,14 +202,14 @@ def render_plot(plot: Plot) -> str:
             f'xmlns="http://www.w3.org/2000/svg" font-size="9">'
             f'<title>{label}</title>'
             f'<text x="{_LEFT}" y="12" font-size="10" font-weight="600" fill="#222">{label}</text>')
-    if not points:
+    if not points and not plot.projections:
         return (head + f'<rect x="{_LEFT}" y="{_TOP}" width="{WIDTH - _LEFT - _RIGHT}" '
                 f'height="{HEIGHT - _TOP - _BOTTOM}" fill="#f6f5f1" stroke="#c9c6bd"/>'
                 f'<text x="{WIDTH / 2:.0f}" y="{HEIGHT / 2:.0f}" text-anchor="middle" fill="#555">'
                 f'no values recorded</text></svg>')
     xs = [p.x for p in points] + [m.x for m in plot.marks]
-    xs += [x for f in plot.projections for x in (f.x1, f.x_low, f.x_high) if x is not None]
-    ys = [p.y for p in points] + [lim.y for lim in plot.limits] + [f.y1 for f in plot.projections]
+    xs += [x for f in plot.projections for x in (f.x0, f.x1, f.x_low, f.x_high) if x is not None]
+    ys = [p.y for p in points] + [lim.y for lim in plot.limits] + [y for f in plot.projections for y in (f.y0, f.y1)]
     y_ticks = nice_ticks(min(ys), max(ys), 5)
     y_low, y_high = y_ticks[0], y_ticks[-1]
     x_low, x_high = min(xs), max(xs)

@@ -433,6 +433,18 @@ def test_demo_writes_the_report(tmp_path):
     for record in records:
         if (record["level"] or 0) > 0:
             assert f"data-sample=\"{record['sample_id']}\"" in html or f"data-sample='{record['sample_id']}'" in html
+    # the demo grades in-process, so its report draws the engine's own forecasts, each in its unit's card
+    from sumpwise import grade, read_samples
+    ruleset = load_ruleset(RULES)
+    forecasts = grade(read_samples(SCENARIO / "samples.csv", None, None, None, ruleset.measures), ruleset).forecasts
+    dated = [f for f in forecasts if f.on]
+    assert dated  # scenarios/brackwater/README.md walks through SWP-3's iron forecast
+    sections = _sections(html)
+    for unit in {f.unit_id for f in dated}:
+        mine = [f for f in dated if f.unit_id == unit]
+        assert sections[unit].count('class="projection"') == len(mine), unit
+        for f in mine:
+            assert f"{f.rule}: {f.measure} reaches the {f.grade} limit" in _flat(sections[unit])
 
 
 def test_report_runs_as_a_subprocess(graded, tmp_path):
