@@ -109,8 +109,6 @@ def _reject(row: dict, name: str, number: int) -> dict:
             "field": str(row["field"]), "reason": str(row["reason"])}
 
 
-
-
 # -- what the records say ----------------------------------------------------------------------
 
 @dataclass(frozen=True)

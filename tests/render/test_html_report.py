@@ -536,3 +536,12 @@ def test_without_the_rule_set_the_way_to_worse_comes_from_the_findings():
     falling = records[:1] + [_record(f"B{k}", f"2026-0{k}-01", 0, {"water": w})
                              for k, w in ((2, 190.0), (3, 150.0), (4, 120.0))]
     assert unit_views(falling)[0].rising == ()
+
+
+def test_records_that_name_one_level_twice_are_refused_not_drawn_wrongly(tmp_path):
+    records = [_record("C1", "2026-01-01", 1, {"water": 150.0}), _record("C2", "2026-02-01", 1, {"water": 160.0},
+                                                                           grade="caution")]
+    path = tmp_path / "mixed.jsonl"
+    path.write_text("".join(json.dumps(r) + "\n" for r in records))
+    code, _, err = cli("report", "--results", path, "--out", tmp_path / "mixed.html")
+    assert code == 2 and "level 1 both 'watch' and 'caution'" in err
