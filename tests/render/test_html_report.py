@@ -545,3 +545,12 @@ def test_records_that_name_one_level_twice_are_refused_not_drawn_wrongly(tmp_pat
     path.write_text("".join(json.dumps(r) + "\n" for r in records))
     code, _, err = cli("report", "--results", path, "--out", tmp_path / "mixed.html")
     assert code == 2 and "level 1 both 'watch' and 'caution'" in err
+
+
+def test_text_from_the_records_is_escaped_in_steps_and_findings():
+    hostile = "<script>alert(1)</script>"
+    finding = {"rule": "water", "measure": "water", "value": 500.0, "unit": "ppm", "test": "above", "limit": 300,
+               "grade": "alert", "message": hostile, "source": hostile, "next_step": {"task": hostile}}
+    records = [_record("H1", "2026-01-01", 2, {"water": 500.0}, reasons=[finding], unit=hostile)]
+    html = render_report(records)
+    assert "<script>" not in html and "&lt;script&gt;" in html
