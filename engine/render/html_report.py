@@ -351,10 +351,10 @@ def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
     return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}"
 
 
-def projections(view: UnitView, measure: str, forecasts, ladder: Ladder) -> tuple:
+def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: dict) -> tuple:
     """The engine's forecasts for this unit and measure as lines to the limit (dated ones only:
-    the x axis is the sample date). A forecast is a dict as derive.forecast.Forecast.to_record gives."""
-    dates = {s["sample_id"]: _sample_date(s) for s in view.samples}
+    the x axis is the sample date). A forecast is a dict as derive.forecast.Forecast.to_record gives;
+    `dates` maps the unit's sample ids to their day numbers."""
     drawn = []
     for f in forecasts:
         if f.get("unit_id") != view.unit_id or f.get("measure") != measure:
@@ -379,6 +379,8 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
     """One plot per watched measure, against the sample date; each oil charge is its own line."""
     samples = view.samples
     xs = [_sample_date(s) for s in samples]
+    dates = dict(zip((s["sample_id"] for s in samples), xs))
+    forecasts = [f for f in forecasts if f.get("unit_id") == view.unit_id]
     starts = [k for k in range(1, len(samples)) if starts_charge(samples[k])]
     bounds = [0] + starts + [len(samples)]
     marks = tuple(Mark((xs[k - 1] + xs[k]) / 2, "oil changed") for k in starts
@@ -402,7 +404,7 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
             notes.append("these records carry this value only where a rule on it fired")
         note = "; ".join(notes)
         plots.append(Plot(watched.measure, unit, tuple(runs), watched.limits, marks, note,
-                          projections(view, watched.measure, forecasts, ladder)))
+                          projections(view, watched.measure, forecasts, ladder, dates)))
     return plots
 
 
