@@ -554,3 +554,16 @@ def test_text_from_the_records_is_escaped_in_steps_and_findings():
     records = [_record("H1", "2026-01-01", 2, {"water": 500.0}, reasons=[finding], unit=hostile)]
     html = render_report(records)
     assert "<script>" not in html and "&lt;script&gt;" in html
+
+
+def test_an_oil_change_flagged_in_the_samples_file_is_drawn(tmp_path):
+    # issue 10: a change flagged with `oil_changed` (oil hours still climbing, so only the flag says so)
+    results = tmp_path / "r.jsonl"
+    code, _, err = cli("grade", DATA / "oil-change.csv", "--rules", DATA / "new-an.yaml", "--out", results)
+    assert code == 0, err
+    records = parse_results(results.read_text().splitlines(), "r.jsonl")
+    ruleset = load_ruleset(DATA / "new-an.yaml")
+    (view,) = unit_views(records, ruleset)
+    water = next(p for p in unit_plots(view, Ladder.of(records, ruleset)) if p.title == "water")
+    assert [[p.label.split(" · ")[0] for p in run] for run in water.runs] == [["A", "B"], ["C"]]
+    assert len(water.marks) == 1 and water.marks[0].label == "oil changed"
