@@ -203,6 +203,7 @@ class Watched:
     measure: str
     limits: tuple  # LimitLine, from the class's ladder rules on it
     worse: int  # +1 when a higher value is worse, -1 when lower is, 0 when both ways or unknown
+    unit: str = ""
 
 
 def watched_measures(ruleset: RuleSet | None, class_name: str, samples) -> list[Watched]:
@@ -223,7 +224,10 @@ def watched_measures(ruleset: RuleSet | None, class_name: str, samples) -> list[
         if name == "oil_hours":
             continue
         lines = tuple(limit_lines(ruleset, class_name, name)) if ruleset is not None else ()
-        watched.append(Watched(name, lines, _worse_way(ruleset, class_name, name, samples)))
+        unit = ruleset.unit_of(name) if ruleset is not None else next(
+            (r["unit"] for s in samples for r in s["reasons"] if r.get("measure") == name and r.get("unit")),
+            measure_unit(name))
+        watched.append(Watched(name, lines, _worse_way(ruleset, class_name, name, samples), unit))
     return watched
 
 
@@ -388,7 +392,7 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
     undated = sum(1 for x in xs if x is None)
     plots = []
     for watched in view.watched:
-        unit = measure_unit(watched.measure)
+        unit = watched.unit
         ys = view.series[watched.measure]
         runs = []
         for first, end in zip(bounds, bounds[1:]):
