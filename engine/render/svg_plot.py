@@ -232,7 +232,8 @@ def render_plot(plot: Plot) -> str:
         parts.append(f'<line x1="{_LEFT}" x2="{_LEFT + inner_w}" y1="{y:.1f}" y2="{y:.1f}" stroke="#e6e3db" '
                      f'stroke-width="0.6"/><text x="{_LEFT - 4}" y="{y + 3:.1f}" text-anchor="end" '
                      f'fill="#444">{_format(tick)}</text>')
-    x_ticks = date_ticks(int(math.ceil(x_low)), int(math.floor(x_high)))
+    x_ticks = [(t, text) for t, text in date_ticks(int(math.ceil(x_low)), int(math.floor(x_high)))
+               if x_low <= t <= x_high]  # a short span's 1-2-5 steps may start before the frame
     for tick, text in x_ticks:
         x = sx(tick)
         parts.append(f'<line x1="{x:.1f}" x2="{x:.1f}" y1="{_TOP + inner_h}" y2="{_TOP + inner_h + 3}" '
