@@ -7,53 +7,23 @@ or oxidation, a limit whose size disagrees with the unit it is written in, and a
 source too vague for an auditor. Warnings are Problem records (severity
 "warning") with the file and line of the rule and a one-line hint.
 
-Value sets are unions of intervals; inclusion and emptiness are decided by testing
-the finitely many points where membership can change (every interval end and a
-point between each two), which is exact for intervals.
+Value sets are unions of intervals (sumpwise.vocabulary.intervals); where a test holds
+and what a measure can take come from the vocabulary's limit-test and measure tables.
 """
 
 from __future__ import annotations
 
-import math
 import re
 from dataclasses import dataclass
 
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, unit_key
+from sumpwise.vocabulary.intervals import can_hold, covered
+from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
+from sumpwise.vocabulary.measures import domain_of, measure_unit, unit_key
 from sumpwise.vocabulary.problems import Problem
-from sumpwise.ruleset.model import (AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest, Not, Origin,
-                      RuleSet)
-from sumpwise.vocabulary.units import CANONICAL, FACTORS, UNIT_FAMILY
-
-INF = math.inf
-
-
-@dataclass(frozen=True)
-class Span:
-    """One interval of values; `low_in`/`high_in` say whether its ends belong to it."""
-
-    low: float
-    high: float
-    low_in: bool = False
-    high_in: bool = False
-
-    def holds(self, value: float) -> bool:
-        above_low = value > self.low or (self.low_in and value == self.low)
-        below_high = value < self.high or (self.high_in and value == self.high)
-        return above_low and below_high
-
-
-EVERYTHING = (Span(-INF, INF),)
-
-# The values a measure can take at all; samples.py rejects negative acid numbers, water
-# and hours and viscosities at or below zero, so a test outside these can never hold.
-_NOT_NEGATIVE = (Span(0.0, INF, low_in=True),)
-DOMAINS = {
-    "an": _NOT_NEGATIVE, "bn": _NOT_NEGATIVE, "water": _NOT_NEGATIVE, "oil_hours": _NOT_NEGATIVE,
-    "rpvot": _NOT_NEGATIVE, "bn_retained_pct": _NOT_NEGATIVE, "rpvot_retained_pct": _NOT_NEGATIVE,
-    "kv40": (Span(0.0, INF),), "kv100": (Span(0.0, INF),),
-    # (used - new) / new x 100 with both viscosities above zero lies above -100 %.
-    "kv40_change_pct": (Span(-100.0, INF),), "kv100_change_pct": (Span(-100.0, INF),),
-}
+from sumpwise.ruleset.model import (AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest,
+                                    Origin, RuleSet, leaves)
+from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.units import CANONICAL, FACTORS
 
 # A class's rules should watch the three signs of oil ageing, each through one of these.
 COVERAGE = {
@@ -64,43 +34,8 @@ COVERAGE = {
 
 
 def region(test: str, limit) -> tuple:
-    """The values for which `value <test> limit` holds (evaluate.TESTS, as intervals)."""
-    if test == "above":
-        return (Span(limit, INF),)
-    if test == "below":
-        return (Span(-INF, limit),)
-    if test == "between":
-        return (Span(limit[0], limit[1], True, True),)
-    low, high = limit if isinstance(limit, tuple) else (-limit, limit)
-    if low > high:  # |value| > a negative number: every value
-        return EVERYTHING
-    return Span(-INF, low), Span(high, INF)
-
-
-def _inside(spans: tuple, value: float) -> bool:
-    return any(span.holds(value) for span in spans)
-
-
-def _points(*regions: tuple) -> list[float]:
-    ends = sorted({end for spans in regions for span in spans for end in (span.low, span.high) if math.isfinite(end)})
-    if not ends:
-        return [0.0]
-    between = [(a + b) / 2.0 for a, b in zip(ends, ends[1:])]
-    return [ends[0] - 1.0, *ends, *between, ends[-1] + 1.0]
-
-
-def can_hold(*regions: tuple) -> bool:
-    """Some value lies in every one of the regions."""
-    return any(all(_inside(spans, p) for spans in regions) for p in _points(*regions))
-
-
-def covered(part: tuple, whole: tuple, domain: tuple) -> bool:
-    """Every possible value (in `domain`) of `part` lies in `whole`."""
-    return all(_inside(whole, p) for p in _points(part, whole, domain) if _inside(part, p) and _inside(domain, p))
-
-
-def domain_of(measure: str) -> tuple:
-    return DOMAINS.get(measure, EVERYTHING)
+    """The values for which `value <test> limit` holds, as intervals."""
+    return LIMIT_TESTS[test].region(limit)
 
 
 # -- conditions that can never be true ------------------------------------------------------------
@@ -354,13 +289,7 @@ def _limits(rule) -> list[tuple[str, float]]:
 
 
 def _condition_limits(condition) -> list[tuple[str, float]]:
-    if isinstance(condition, MeasureTest):
-        return [(condition.measure, end) for end in _ends(condition.limit)]
-    if isinstance(condition, (AllOf, AnyOf)):
-        return [pair for part in condition.parts for pair in _condition_limits(part)]
-    if isinstance(condition, Not):
-        return _condition_limits(condition.part)
-    return []
+    return [(leaf.measure, end) for leaf in leaves(condition) if leaf.kind == "measure" for end in _ends(leaf.limit)]
 
 
 def _ends(limit) -> tuple:
@@ -381,7 +310,7 @@ def _units(ruleset: RuleSet):
             if why:
                 troubled.setdefault((measure, why), []).append(_written(ruleset, owner.origin, measure, limit))
         for (measure, why), written in troubled.items():
-            unit = written[0][1] or _unit_of(measure)
+            unit = written[0][1] or measure_unit(measure)
             values = ", ".join(_num(value) for value, _ in written)
             key = unit_key(measure)
             declared = (f"this file writes {key} in {unit}; " if written[0][1] else "")
@@ -389,11 +318,6 @@ def _units(ruleset: RuleSet):
                                          f"in the wrong unit: {why}",
                            f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
                            if declared else f"write the limit in {unit}")
-
-
-def _unit_of(measure: str) -> str:
-    derived = DERIVED_MEASURES.get(measure)
-    return derived.unit if derived else ""
 
 
 # -- sources --------------------------------------------------------------------------------------

@@ -18,9 +18,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.vocabulary.measures import INPUT_MEASURES, REFERENCE_VALUES
+from sumpwise.vocabulary.measures import INPUT_MEASURES, NOT_NEGATIVE, POSITIVE, REFERENCE_VALUES, domain_of
 from sumpwise.vocabulary.problems import InputError, InvalidFile
-from sumpwise.vocabulary.units import UNIT_FAMILY, factor_to_canonical, known_units
+from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.units import factor_to_canonical, known_units
 from sumpwise.ruleset.yaml_source import load_yaml
 
 REQUIRED_COLUMNS = ("sample_id", "class")
@@ -28,8 +29,6 @@ REQUIRED_COLUMNS = ("sample_id", "class")
 NUMERIC_COLUMNS = tuple(INPUT_MEASURES) + tuple(f"new_{name}" for name in REFERENCE_VALUES)
 
 # Values that cannot be negative; viscosities cannot be zero either.
-_NOT_NEGATIVE = {"an", "bn", "water", "oil_hours", "rpvot", "new_an", "new_bn", "new_rpvot"}
-_POSITIVE = {"kv40", "kv100", "new_kv40", "new_kv100"}
 
 
 @dataclass(frozen=True)
@@ -238,9 +237,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: st
         values, text, not_a_number = _number_column(raw[column])
         if not_a_number.any():
             reject(not_a_number, column, ("expected a number, found '" + text + "'").to_numpy(dtype=object))
-        if column in _POSITIVE and (values <= 0).any():
+        domain = domain_of(column)
+        if domain == POSITIVE and (values <= 0).any():
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0))
-        elif column in _NOT_NEGATIVE and (values < 0).any():
+        elif domain == NOT_NEGATIVE and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0))
         if column in columns.units:
             values = values * factor_to_canonical(UNIT_FAMILY[column], columns.units[column])

@@ -21,7 +21,8 @@ from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
 from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset
-from sumpwise.vocabulary.units import FACTORS, UNIT_FAMILY, factor_to_canonical
+from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.units import FACTORS, factor_to_canonical
 
 DEFAULT_NOTICE = (
     "Screening aid only, not a substitute for a qualified lubricant analyst. Limits from the equipment "
