@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.derive.viscosity import viscosity_index
+from sumpwise.vocabulary.base_stocks import family_of
 from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES, ROW_MEASURES
 
 
@@ -72,9 +73,15 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
                        index=samples.index, dtype=object)
     fields["method"] = method
 
+    # FTIR conventions never mix: a differential (subtraction) reading is its own measure,
+    # and the direct `oxidation`, its rise and its trends stay empty on that row.
     subtraction = (method == "subtraction").to_numpy()
-    # A subtraction reading has the new oil removed already: its reference is zero by construction.
-    out["new_oxidation"] = np.where(subtraction, 0.0, out["new_oxidation"])
+    out["oxidation_differential"] = np.where(subtraction, out["oxidation"], out["oxidation_differential"])
+    out["oxidation"] = np.where(subtraction, np.nan, out["oxidation"])
+    family_codes, family_names = pd.factorize(fields["base_stock"].to_numpy(dtype=object))
+    families = [family_of(n) for n in family_names] + [None]
+    fields["base_stock_family"] = pd.Series(np.array(families, dtype=object)[family_codes], index=samples.index,
+                                            dtype=object)
 
     hours = out["oil_hours"]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -85,6 +92,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         per_hour = np.where(hours > 0, 1000.0 / np.where(hours > 0, hours, 1.0), np.nan)
         out["oxidation_rise_per_1000h"] = out["oxidation_rise"] * per_hour
         out["an_rise_per_1000h"] = out["an_rise"] * per_hour
+        out["oxidation_differential_per_1000h"] = out["oxidation_differential"] * per_hour
         out["bn_retained_pct"] = out["bn"] / out["new_bn"] * 100.0
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]

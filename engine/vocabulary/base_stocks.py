@@ -65,3 +65,13 @@ def has_ester_carbonyl(canonical: str) -> bool:
 
 
 FAMILIES = ("hydrocarbon", "ester", "phosphate-ester", "pag")
+
+
+def family_of(text) -> str | None:
+    """The family of any spelling, or None when it is missing or not in the vocabulary."""
+    if not isinstance(text, str):
+        return None
+    try:
+        return base_stock_family(canonical_base_stock(text))
+    except BaseStockError:
+        return None

@@ -88,7 +88,7 @@ def load_bands(path: Path | str | None = None) -> BandSet:
     """Load a band file (the packaged engine/data/ftir_bands.yaml when path is None)."""
     if path is None:
         text = resources.files("sumpwise.intake.spectra").joinpath(DEFAULT_BANDS_RESOURCE).read_text(encoding="utf-8")
-        origin = f"engine/data/{DEFAULT_BANDS_RESOURCE}"
+        origin = f"engine/intake/spectra/{DEFAULT_BANDS_RESOURCE}"
     else:
         origin = str(path)
         try:
