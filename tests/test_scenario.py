@@ -68,5 +68,5 @@ def test_ftir_walkthrough():
     # Realistic carbonyl heights (issue 11): ST-1's differential reading climbs 2-17 abs/cm over the year.
     assert [records[s]["grade"] for s in ("FT-001", "FT-002", "FT-003", "FT-004")] == ["normal", "watch", "alert",
                                                                                      "alert"]
-    assert "FT-009" not in records and "rejected: spectrum" in run.err
+    assert "FT-009" not in records and "rejected F001: spectrum" in run.err
     assert records["FT-004"]["grade"] == "alert"

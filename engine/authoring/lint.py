@@ -144,8 +144,9 @@ def lint_ruleset(ruleset: RuleSet) -> tuple[Problem, ...]:
     return tuple(sorted(found, key=lambda p: (p.file, p.line, p.column, p.message)))
 
 
-def _warning(origin: Origin, message: str, hint: str) -> Problem:
-    return Problem(origin.file, origin.line, origin.column, message, origin.path, severity="warning", hint=hint)
+def _warning(code: str, origin: Origin, message: str, hint: str) -> Problem:
+    return Problem(origin.file, origin.line, origin.column, message, origin.path, severity="warning", hint=hint,
+                   code=code)
 
 
 def _where(origin: Origin) -> str:
@@ -171,7 +172,7 @@ def _shadowed(ruleset: RuleSet):
                     continue
                 if j > i and shadows(weak, strong):
                     continue  # two rules that give the same: report the later one only
-                yield _warning(
+                yield _warning("W001",
                     weak.origin,
                     f"in class '{name}', rule '{weak.id}' is always shadowed by rule '{strong.id}' "
                     f"({_where(strong.origin)}): whenever it fires, '{strong.id}' gives the same grade or higher, "
@@ -183,14 +184,14 @@ def _shadowed(ruleset: RuleSet):
 def _impossible(ruleset: RuleSet):
     for rule in _all_rules(ruleset):
         if isinstance(rule, ConditionRule) and (why := never_true(rule.when)):
-            yield _warning(rule.origin, f"rule '{rule.id}' can never fire: its condition can never be true ({why})",
+            yield _warning("W002", rule.origin, f"rule '{rule.id}' can never fire: its condition can never be true ({why})",
                            "check the limits and the units; perhaps `any` or `between` was meant")
     for caveat in ruleset.caveats:
         if why := never_true(caveat.when):
-            yield _warning(caveat.origin, f"caveat '{caveat.id}' can never apply: its `when` can never be true "
+            yield _warning("W003", caveat.origin, f"caveat '{caveat.id}' can never apply: its `when` can never be true "
                                           f"({why})", "check the limits and the field values")
         if caveat.cap is not None and (why := never_true(caveat.cap.unless)):
-            yield _warning(caveat.origin, f"caveat '{caveat.id}': its `unless` can never be true ({why}), so the "
+            yield _warning("W004", caveat.origin, f"caveat '{caveat.id}': its `unless` can never be true ({why}), so the "
                                           f"cap is never lifted", "check the limits, or remove `unless`")
 
 
@@ -202,14 +203,14 @@ def _ladders(ruleset: RuleSet):
         domain = domain_of(rule.measure)
         for level, limit in rule.steps:
             if not can_hold(region(rule.test, limit), domain):
-                yield _warning(rule.origin,
+                yield _warning("W005", rule.origin,
                                f"rule '{rule.id}': no value reaches its '{grades[level]}' limit "
                                f"({rule.measure} {rule.test} {_num(limit)}; {rule.measure} never takes such a value)",
                                f"give '{grades[level]}' a limit {rule.measure} can cross")
         levels = [level for level, _ in rule.steps]
         skipped = [grades[level] for level in range(min(levels), max(levels)) if level not in levels]
         if skipped:
-            yield _warning(rule.origin,
+            yield _warning("W006", rule.origin,
                            f"rule '{rule.id}' has a gap in its ladder: limits for "
                            f"{', '.join(grades[level] for level in levels)} but none for {', '.join(skipped)}",
                            f"add a limit for {', '.join(skipped)} between its neighbours, or say in `source` why "
@@ -228,7 +229,7 @@ def _unreached_grades(ruleset: RuleSet):
         reached = set().union(*(_reachable_levels(rule) for rule in ruleset.rules_for(name)))
         missing = [grade for level, grade in enumerate(ruleset.grades) if level > 0 and level not in reached]
         if missing and reached:
-            yield _warning(origin, f"no rule of class '{name}' can give {', '.join(missing)}: "
+            yield _warning("W007", origin, f"no rule of class '{name}' can give {', '.join(missing)}: "
                                    f"those grades of the ladder are never reached for this class",
                            f"give a rule a limit for {missing[-1]}, or accept that the class tops out below it")
 
@@ -247,7 +248,7 @@ def _coverage(ruleset: RuleSet):
         read = set().union(*(rule.reads for rule in ruleset.rules_for(name)))
         for sign, measures in COVERAGE.items():
             if not read & set(measures):
-                yield _warning(origin, f"class '{name}' has no rule on {sign} (none of its rules reads "
+                yield _warning("W008", origin, f"class '{name}' has no rule on {sign} (none of its rules reads "
                                        f"{', '.join(measures)})",
                                f"add a rule on {sign}, e.g. a ladder on {measures[1]}")
 
@@ -314,7 +315,7 @@ def _units(ruleset: RuleSet):
             values = ", ".join(_num(value) for value, _ in written)
             key = unit_key(measure)
             declared = (f"this file writes {key} in {unit}; " if written[0][1] else "")
-            yield _warning(owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
+            yield _warning("W009", owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
                                          f"in the wrong unit: {why}",
                            f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
                            if declared else f"write the limit in {unit}")
@@ -349,10 +350,10 @@ def _vague_sources(ruleset: RuleSet):
             "'site practice', or 'common practice, no source'")
     for rule in _all_rules(ruleset):
         if why := vague_source(rule.source):
-            yield _warning(rule.origin, f"rule '{rule.id}': its source is vague: {why}", hint)
+            yield _warning("W010", rule.origin, f"rule '{rule.id}': its source is vague: {why}", hint)
     for caveat in ruleset.caveats:
         if caveat.source and (why := vague_source(caveat.source)):
-            yield _warning(caveat.origin, f"caveat '{caveat.id}': its source is vague: {why}", hint)
+            yield _warning("W010", caveat.origin, f"caveat '{caveat.id}': its source is vague: {why}", hint)
 
 
 def _num(value) -> str:

@@ -249,11 +249,11 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     bad = []
     for k in np.flatnonzero(~ok):
         if bad_length[k]:
-            bad.append(Reject(int(rows[k]), sample_ids[k], "path_length_mm", bad_length[k]))
+            bad.append(Reject(int(rows[k]), sample_ids[k], "path_length_mm", bad_length[k], "F001"))
         elif bad_dilution[k]:
-            bad.append(Reject(int(rows[k]), sample_ids[k], "dilution", bad_dilution[k]))
+            bad.append(Reject(int(rows[k]), sample_ids[k], "dilution", bad_dilution[k], "F001"))
         else:
-            bad.append(Reject(int(rows[k]), sample_ids[k], "spectrum", why[k] or "spectrum rejected"))
+            bad.append(Reject(int(rows[k]), sample_ids[k], "spectrum", why[k] or "spectrum rejected", "F001"))
     keep = np.ones(len(frame), dtype=bool)
     keep[np.flatnonzero(has)[~ok]] = False
     return frame[keep], bad
