@@ -63,8 +63,8 @@ READINGS = (
     _reading("oxidation", "abs/cm", "FTIR oxidation by direct trend: carbonyl peak height, 1800-1670 cm-1, "
              "on the used oil itself (ASTM D7414 Procedure A)", family="absorbance", reference=True, trended=True),
     _reading("oxidation_differential", "abs/cm", "FTIR oxidation by differential trend: carbonyl peak height, "
-             "1800-1670 cm-1, after subtracting the new oil (ASTM D7414 Procedure B, D7418)",
-             family="absorbance", scale_of="oxidation"),
+             "1800-1670 cm-1, after subtracting the new oil (ASTM D7414 Procedure B, D7418); a row gives it "
+             "as `oxidation` with `method` subtraction or differential", scale_of="oxidation"),
     _reading("nitration", "abs/cm", "FTIR nitration", family="absorbance", trended=True),
     _reading("sulfation", "abs/cm", "FTIR sulfation", family="absorbance", trended=True),
     _reading("antiwear", "abs/cm", "FTIR anti-wear additive (phosphate)", family="absorbance", trended=True),
