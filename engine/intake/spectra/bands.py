@@ -286,24 +286,25 @@ class BlockMeasures:
     peak_positions: dict
 
 
-def measure_block(plan: BandPlan, spectra: np.ndarray) -> BlockMeasures:
+def measure_block(plan: BandPlan, spectra: np.ndarray, with_positions: bool = True) -> BlockMeasures:
     """Band values for a block of spectra given as rows (one spectrum per row).
 
     The block is copied once to wavenumber-major order and measured by
     measure_columns; a caller that can build that order directly saves the copy.
     """
     spectra = np.atleast_2d(np.asarray(spectra))
-    return measure_columns(plan, np.ascontiguousarray(spectra.T))
+    return measure_columns(plan, np.ascontiguousarray(spectra.T), with_positions)
 
 
-def measure_columns(plan: BandPlan, columns: np.ndarray) -> BlockMeasures:
+def measure_columns(plan: BandPlan, columns: np.ndarray, with_positions: bool = False) -> BlockMeasures:
     """Band values for a block stored wavenumber-major: one row per grid point, one column per spectrum.
 
     Why that order: every band reads a narrow wavenumber range, which is then
     a contiguous slab of memory; minima, maxima and weighted sums run down
     its rows with whole-row numpy operations, never a per-spectrum loop.
     float32 blocks stay float32 (half the memory traffic); anything else is
-    read as float64. NaN propagates, never hides.
+    read as float64. NaN propagates, never hides. with_positions: also the
+    wavenumber of each height band's maximum (slower; the ester inference uses it).
     """
     columns = np.asarray(columns)
     if columns.dtype not in (np.float32, np.float64):
@@ -345,11 +346,30 @@ def measure_columns(plan: BandPlan, columns: np.ndarray) -> BlockMeasures:
             values[band.name] = value - (ya + (at - xa) * slope) if band.baseline else value
         else:
             window = plan.windows[band.region]
-            above = columns[window] - (ya[None, :] + (x[window][:, None] - xa[None, :]) * slope[None, :])
-            j = _first_extreme_row(above, above.max(axis=0), np.argmax)
-            values[band.name] = above[j, spectra]
-            positions[band.name] = x[window][j]
+            if with_positions:
+                above = columns[window] - (ya[None, :] + (x[window][:, None] - xa[None, :]) * slope[None, :])
+                j = _first_extreme_row(above, above.max(axis=0), np.argmax)
+                values[band.name] = above[j, spectra]
+                positions[band.name] = x[window][j]
+            else:
+                values[band.name] = _height_above_line(columns[window], x[window], xa, ya, slope)
     return BlockMeasures(values, positions)
+
+
+def _height_above_line(slab, xs, xa, ya, slope):
+    """max over rows of slab - (ya + (x - xa) slope), one whole-row operation per grid row.
+
+    Why row by row: the line's value at x is ya - xa slope + x slope, so each row needs
+    only its own x times the slope; no (rows x spectra) temporary is built. NaN propagates.
+    """
+    best = np.full(slab.shape[1], -np.inf, dtype=slab.dtype)
+    row = np.empty_like(best)
+    slope = slope.astype(slab.dtype, copy=False)
+    for k in range(slab.shape[0]):
+        np.multiply(slope, xs[k], out=row)
+        np.subtract(slab[k], row, out=row)
+        np.maximum(best, row, out=best)
+    return best - (ya - xa * slope)
 
 
 def saturated_bands(plan: BandPlan, columns: np.ndarray, threshold: float) -> dict:
@@ -359,10 +379,12 @@ def saturated_bands(plan: BandPlan, columns: np.ndarray, threshold: float) -> di
     saturation is a property of the light that reached the detector. NaN (no
     light at all, transmittance <= 0) counts as saturated.
     """
-    found = {}
+    found, by_window = {}, {}
     for name, window in plan.saturation.items():
-        slab = columns[window]
-        found[name] = ~(slab.max(axis=0) <= threshold)
+        key = (window.start, window.stop)
+        if key not in by_window:  # bands sharing a window (oxidation and its area) read it once
+            by_window[key] = ~(columns[window].max(axis=0) <= threshold)
+        found[name] = by_window[key]
     return found
 
 

@@ -112,11 +112,11 @@ def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm=0
     if reference is not None:
         reference = np.ascontiguousarray(np.atleast_2d(np.asarray(reference, dtype=float)).T)
     return _measure_columns_matrix(x, columns, bands, path_length_mm, reference, reference_path_length_mm,
-                                   block_size)
+                                   block_size, with_positions=True)
 
 
 def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, reference_path_length_mm, block_size,
-                            plan=None):
+                            plan=None, with_positions=False):
     """measure_matrix on wavenumber-major data: one column per spectrum (reference: one column, or one per spectrum).
 
     path_length_mm may be one figure or one per column (a path already divided by
@@ -135,7 +135,7 @@ def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, refere
         if reference is not None:
             ref = reference if reference.shape[1] == 1 else reference[:, start : start + block_size]
             block -= ref * ref_scale
-        parts.append(measure_columns(plan, block))
+        parts.append(measure_columns(plan, block, with_positions))
     names = plan.bands
     values = {b.name: np.concatenate([p.values[b.name] for p in parts]) * factor for b in names}
     positions = {k: np.concatenate([p.peak_positions[k] for p in parts]) for k in parts[0].peak_positions} if parts else {}
