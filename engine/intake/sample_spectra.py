@@ -42,10 +42,12 @@ from sumpwise.vocabulary.units import factor_to_canonical
 # out of the grading.
 GRADED_BANDS = ("oxidation", "nitration", "sulfation", "antiwear", "soot")
 
-# A differential oxidation this far below zero is not noise (white noise at SD 2e-4
-# absorbance in both spectra reads within about +-0.1 abs/cm, tests/intake/spectra):
-# the reference is not this oil's new oil. Our choice, no source.
-REFERENCE_MISMATCH_ABS_CM = -2.0
+# A differential carbonyl area this far below zero is not noise: the reference is not this
+# oil's new oil. Read on the area, since a peak height (a maximum) of a band that went
+# negative stays near zero. -0.5 absorbance x cm-1 at 0.1 mm is about 100 times the SD
+# the area takes from white noise of SD 2e-4 absorbance in both spectra (2.8e-4 x 2 cm-1 x
+# sqrt(65 points) ~ 0.005). Our choice, no source.
+REFERENCE_MISMATCH_AREA = -0.5
 
 SPECTRUM_CAVEATS = (
     EngineCaveat("base-stock-inferred", "base_stock_inferred_note",
@@ -58,8 +60,8 @@ SPECTRUM_CAVEATS = (
                  "sumpwise engine: a band left empty (saturated, or outside the spectrum's range); saturation "
                  "threshold: common practice, no source (see the band file)"),
     EngineCaveat("reference-mismatch", "reference_mismatch_note",
-                 "sumpwise engine: a differential oxidation far below zero means the subtracted reference is "
-                 "not this oil's new oil; the -2 abs/cm figure is our choice, no source"),
+                 "sumpwise engine: a differential carbonyl area far below zero means the subtracted reference "
+                 "is not this oil's new oil; the -0.5 absorbance x cm-1 figure is our choice, no source"),
     EngineCaveat("ftir-other-convention", "ftir_convention_note",
                  "sumpwise engine: FTIR conventions (README, FTIR conventions): direct and differential "
                  "readings are never compared with each other's limits"),
@@ -222,11 +224,12 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
             # 0.0001 abs/cm is far below FTIR repeatability (D7624: 0.078 abs/cm); finer digits are noise
             values = np.round(values, 4)
             if column == "oxidation":
-                far = differential & (values < REFERENCE_MISMATCH_ABS_CM)
+                area = picked["oxidation_area"].to_numpy(dtype=float) / 100.0  # back to abs x cm-1 at 0.1 mm
+                far = differential & (area < REFERENCE_MISMATCH_AREA)
                 at = np.flatnonzero(has)[good[far]]
-                mismatch[at] = [f"differential oxidation {v:.1f} abs/cm against reference {r}: far below zero, so "
-                                "the reference does not match this oil; the oxidation rules are not evaluated"
-                                for v, r in zip(values[far], picked["reference"].to_numpy()[far])]
+                mismatch[at] = [f"differential carbonyl area {a:.2f} absorbance x cm-1 at 0.1 mm against reference "
+                                f"{r}: far below zero, so the reference does not match this oil; the oxidation "
+                                "rules are not evaluated" for a, r in zip(area[far], picked["reference"].to_numpy()[far])]
                 values = np.where(far, np.nan, values)
             if column not in frame.columns:
                 frame[column] = np.nan

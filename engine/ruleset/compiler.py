@@ -128,7 +128,7 @@ class _Compiler:
         try:
             return canonical_base_stock(str(text))
         except BaseStockError as exc:
-            self.problems.append(placed.problem(str(exc), sub))
+            self.problems.append(placed.problem(str(exc), sub, code="C011"))
             return str(text)
 
     def _lubricant(self, code: str, placed: Placed) -> Lubricant:
@@ -274,7 +274,7 @@ class _Compiler:
                     if not set(v.split("+")) <= set(BASE_STOCK_FAMILIES):
                         self.problems.append(placed.problem(
                             f"unknown base stock family {v!r}: expected {', '.join(BASE_STOCK_FAMILIES)}",
-                            sub + (tests[0],)))
+                            sub + (tests[0],), code="C011"))
             return FieldTest(name, tests[0], tuple(values))
         self.problems.append(placed.problem(
             "a condition needs `measure`, `field`, `all`, `any` or `not`", sub, code="C008"))
