@@ -32,6 +32,8 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
                                                   spectrum_caveat_flags(measured)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
+    if "oxidation" in carried and measured["oxidation_differential"].notna().any():
+        carried += ("oxidation_differential",)  # a differential reading is recorded under its own name (issue 11)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
                        TREND_CAVEATS + SPECTRUM_CAVEATS)
 
