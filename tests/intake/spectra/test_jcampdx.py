@@ -294,3 +294,17 @@ def test_integer_fast_path_and_general_path_agree(tmp_path, form):
     fast_error = _error("\n".join(lines))
     general_error = _error("\n".join(lines).replace("##XYDATA=(X++(Y..Y))\n", "##XYDATA=(X++(Y..Y))\n\n"))
     assert fast_error.reason == general_error.reason and general_error.line == fast_error.line + 1
+
+
+def test_hand_file_with_early_checkpoints_is_read_from_firstx_lastx_npoints():
+    # tests/data/spectra/README.md: checkpoints one DELTAX (2 cm-1) early, count matching NPOINTS
+    spectrum = read_jcampdx(DATA / "hand_checkpoints_early.jdx")
+    np.testing.assert_array_equal(spectrum.wavenumber, 1000 + 2 * np.arange(10))
+    np.testing.assert_allclose(spectrum.absorbance, 0.01 * np.arange(1, 11))
+    assert spectrum.path_length_mm == 0.05
+
+
+def test_hand_file_in_absorption_coefficient_is_refused_by_its_unit():
+    with pytest.raises(SpectrumError) as caught:
+        read_jcampdx(DATA / "hand_absorption_coefficient.jdx")
+    assert "(micromol/mol)-1m-1" in caught.value.reason and caught.value.line == 7
