@@ -71,12 +71,16 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
     method_codes, method_names = pd.factorize(fields["method"].to_numpy(dtype=object))
     method = pd.Series(np.array([str(m).lower() for m in method_names] + ["direct"], dtype=object)[method_codes],
                        index=samples.index, dtype=object)
+    # a row giving only a differential reading (a column mapped to it) and no method is a differential one
+    only_differential = (method_codes < 0) & np.isnan(out["oxidation"]) & ~np.isnan(out["oxidation_differential"])
+    method[only_differential] = "subtraction"
     fields["method"] = method
 
     # FTIR conventions never mix: a differential (subtraction) reading is its own measure,
     # and the direct `oxidation`, its rise and its trends stay empty on that row.
     subtraction = (method == "subtraction").to_numpy()
-    out["oxidation_differential"] = np.where(subtraction, out["oxidation"], out["oxidation_differential"])
+    given = subtraction & ~np.isnan(out["oxidation"])
+    out["oxidation_differential"] = np.where(given, out["oxidation"], out["oxidation_differential"])
     out["oxidation"] = np.where(subtraction, np.nan, out["oxidation"])
     family_codes, family_names = pd.factorize(fields["base_stock"].to_numpy(dtype=object))
     families = [family_of(n) for n in family_names] + [None]

@@ -102,3 +102,12 @@ def test_missing_input_and_empty_folder_exit_2(tmp_path):
     assert code == 2 and "no such file" in err
     code, _, err = _run([str(tmp_path)])
     assert code == 2 and "no spectrum files" in err
+
+
+@pytest.mark.parametrize("value", ["inf", "nan", "0"])
+def test_grade_refuses_a_non_finite_path_length(tmp_path, value):
+    from conftest import run_cli
+
+    (tmp_path / "s.csv").write_text("sample_id,class\nA,steam-turbine\n")
+    run = run_cli("grade", tmp_path / "s.csv", "--rules", "rules/steam-turbine.yaml", "--path-length", value)
+    assert run.code == 2 and "--path-length" in run.err and "Traceback" not in run.err

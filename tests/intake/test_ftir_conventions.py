@@ -193,3 +193,16 @@ def test_lint_plausibility_per_convention(tmp_path, measure, limit, warned):
     (tmp_path / "rules.yaml").write_text(text)
     codes = [p.code for p in lint_ruleset(load_ruleset(tmp_path / "rules.yaml"))]
     assert ("W009" in codes) == warned
+
+
+def test_a_lab_column_mapped_to_the_differential_measure_is_a_differential_reading(tmp_path):
+    # a lab that reports "Ox diff" (differential, abs/cm) says its convention through the column map
+    from sumpwise import load_column_map
+
+    (tmp_path / "rules.yaml").write_text(RULES)
+    (tmp_path / "cm.yaml").write_text('oxidation_differential: {column: "Ox diff"}\n')
+    (tmp_path / "s.csv").write_text("sample_id,class,lubricant,Ox diff\nA,pump,MIN-46,12\n")
+    rs = load_ruleset(tmp_path / "rules.yaml")
+    graded = grade_batch(read_samples(tmp_path / "s.csv", columns=load_column_map(tmp_path / "cm.yaml")), rs)
+    result = graded.find("A")
+    assert result.method == "subtraction" and [r.rule for r in result.reasons] == ["carbonyl-differential"]

@@ -44,12 +44,15 @@ def derive_row(row: dict, lubricants: dict) -> dict:
         return getattr(lub, name) if lub is not None else None
 
     method = (_text(row.get("method")) or "direct").lower()
+    if _text(row.get("method")) is None and out.get("oxidation") is None and out.get("oxidation_differential") is not None:
+        method = "subtraction"  # only a differential reading given (a column mapped to it)
     if method == "differential":  # ASTM D7418's word for spectral subtraction
         method = "subtraction"
     new = {name: reference(name) for name in ("kv40", "kv100", "an", "bn", "oxidation", "rpvot")}
     if method == "subtraction":
         # a differential reading is its own measure; the direct one and its rise stay empty (issue 11)
-        out["oxidation_differential"] = out.get("oxidation")
+        if out.get("oxidation") is not None:
+            out["oxidation_differential"] = out["oxidation"]
         out["oxidation"] = None
 
     def diff(a, b):
