@@ -49,7 +49,7 @@ def test_reference_switches_every_row_to_subtraction(folder, tmp_path):
                          "--reference", str(folder / "a_new.jdx"), "--out", str(out_file)])
     assert code == 0 and out == ""
     rows = list(csv.DictReader(out_file.open()))
-    assert [(r["method"], r["unit"]) for r in rows] == [("subtraction", "abs/cm")] * 2
+    assert [(r["method"], r["unit"], r["area_unit"]) for r in rows] == [("subtraction", "abs/cm", "abs*cm-1/cm")] * 2
     # 0.2 absorbance of carbonyl added at 0.1 mm is 20 abs/cm (ASTM D7412 12.1-12.2: x 100)
     assert float(rows[0]["oxidation"]) == pytest.approx(20.0, abs=0.05) and abs(float(rows[1]["oxidation"])) < 1e-6
 

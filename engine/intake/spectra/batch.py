@@ -31,7 +31,8 @@ from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
 REFERENCE_PATH_MM = 0.1
 ABS_PER_CM_PER_ABS_PER_01MM = 100.0  # ASTM D7412 12.1-12.2
 DIRECT, SUBTRACTION = "direct", "subtraction"
-UNITS = {DIRECT: "abs/0.1mm", SUBTRACTION: "abs/cm"}
+UNITS = {DIRECT: "abs/0.1mm", SUBTRACTION: "abs/cm"}  # heights and points
+AREA_UNITS = {DIRECT: "abs*cm-1/0.1mm", SUBTRACTION: "abs*cm-1/cm"}  # areas: the same path normalisation
 SPECTRUM_SUFFIXES = (".jdx", ".dx", ".jcm", ".jcamp", ".csv")
 DEFAULT_BLOCK = 4096
 
@@ -154,7 +155,8 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     `##PATH LENGTH=` of its own. dilutions: None or one factor per path.
     needed: the band names the caller needs (default: all); a spectrum none of
     whose needed bands can be measured is rejected. Columns: spectrum, one per
-    band, method, unit, path_length_mm, dilution, reference, notes, rejection.
+    band, method, unit (of heights and points), area_unit (of areas),
+    path_length_mm, dilution, reference, notes, rejection.
     A bad file rejects that spectrum only.
     """
     bands = bands or load_bands()
@@ -242,14 +244,15 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
         record = {"spectrum": str(path)}
         record |= rows.get(i, {name: np.nan for name in bands.names} | {"method": DIRECT if ref_path is None else SUBTRACTION})
         record["unit"] = UNITS[record["method"]] if i in rows else ""
+        record["area_unit"] = AREA_UNITS[record["method"]] if i in rows else ""
         record["path_length_mm"] = used_path.get(i, path_length_mm)
         record["dilution"] = dilutions[i]
         record["reference"] = "" if ref_path is None else str(ref_path)
         record["notes"] = notes.get(i, "")
         record["rejection"] = rejections[i].message if i in rejections else ""
         records.append(record)
-    columns = ["spectrum", *bands.names, "method", "unit", "path_length_mm", "dilution", "reference", "notes",
-               "rejection"]
+    columns = ["spectrum", *bands.names, "method", "unit", "area_unit", "path_length_mm", "dilution", "reference",
+               "notes", "rejection"]
     frame = pd.DataFrame.from_records(records, columns=columns)
     return frame, [rejections[i] for i in sorted(rejections)]
 
