@@ -378,6 +378,12 @@ def _ester_caps(ruleset: RuleSet):
     rule on the step grade an ester uncapped.
     """
     for caveat in ruleset.caveats:
+        named = _ester_names(caveat.when)
+        if named:
+            yield _warning("W012", caveat.origin,
+                           f"caveat '{caveat.id}' names ester base stocks one by one ({', '.join(named)}); "
+                           "diesters, polyol esters and mixtures not listed escape it",
+                           "write {field: base_stock_family, equals: ester} to match the whole ester family")
         if caveat.cap is None or not _about_esters(caveat.when):
             continue
         for rule in _all_rules(ruleset):
@@ -399,6 +405,13 @@ def _about_esters(condition) -> bool:
                 family_of(v) == "ester" for v in leaf.values):
             return True
     return False
+
+
+def _ester_names(condition) -> list:
+    if condition is None:
+        return []
+    return sorted({v for leaf in leaves(condition) if isinstance(leaf, FieldTest) and leaf.field == "base_stock"
+                   for v in leaf.values if family_of(v) == "ester"})
 
 
 def _built_on_oxidation(measure: str) -> bool:

@@ -57,6 +57,7 @@ PROBLEM_CODES = {
     "W009": "a limit that looks written in the wrong unit",
     "W010": "a vague source",
     "W011": "a rule on a measure built on FTIR oxidation that an ester cap does not cover",
+    "W012": "a caveat that names ester base stocks one by one instead of their family",
     "M001": "the column map is not a mapping",
     "M002": "a column map entry that is not a column name",
     "M003": "a unit the measure cannot take",

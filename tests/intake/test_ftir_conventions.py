@@ -206,3 +206,12 @@ def test_a_lab_column_mapped_to_the_differential_measure_is_a_differential_readi
     graded = grade_batch(read_samples(tmp_path / "s.csv", columns=load_column_map(tmp_path / "cm.yaml")), rs)
     result = graded.find("A")
     assert result.method == "subtraction" and [r.rule for r in result.reasons] == ["carbonyl-differential"]
+
+
+def test_lint_warns_when_an_ester_caveat_lists_members_instead_of_the_family(tmp_path):
+    # the case: `in: [ester, mineral+ester]` let polyol-ester, diester and POE rows escape
+    text = RULES.replace("when: {field: base_stock_family, equals: ester}",
+                         "when: {field: base_stock, in: [ester, mineral+ester]}")
+    (tmp_path / "rules.yaml").write_text(text)
+    warnings = [p for p in lint_ruleset(load_ruleset(tmp_path / "rules.yaml")) if p.code == "W012"]
+    assert len(warnings) == 1 and "ester, mineral+ester" in warnings[0].message
