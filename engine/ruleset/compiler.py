@@ -169,7 +169,7 @@ class _Compiler:
             try:
                 numbers = read_iso4406(code)
             except ValueError as error:
-                self.problems.append(placed.problem(str(error), ("iso4406", grade), code="C012"))
+                self.problems.append(placed.problem(str(error), ("iso4406", grade), code="C015"))
                 continue
             if level is None:
                 continue
@@ -193,7 +193,7 @@ class _Compiler:
             known = ", ".join(list(TRENDED) + sorted(self.r.measures))
             self.problems.append(placed.problem(
                 f"noise margin for '{name}', which has no trend measures; trended measures are: {known}",
-                (), key=True, code="C011"))
+                (), key=True, code="C014"))
             return None
         return placed.data * self._scale(placed, name)
 
