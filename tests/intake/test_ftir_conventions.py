@@ -179,7 +179,7 @@ def test_lint_warns_when_an_ester_cap_leaves_an_oxidation_measure_uncovered(tmp_
     text = RULES.replace("      - {id: carbonyl-rise,", "      - {id: carbonyl-step, measure: oxidation_step, above: "
                          "{watch: 5}, message: m, source: test fixture}\n      - {id: carbonyl-rise,")
     (tmp_path / "rules.yaml").write_text(text)
-    warnings = [p for p in lint_ruleset(load_ruleset(tmp_path / "rules.yaml")) if p.code == "W011"]
+    warnings = [p for p in lint_ruleset(load_ruleset(tmp_path / "rules.yaml")) if p.code == "W014"]
     assert len(warnings) == 1 and "oxidation_step" in warnings[0].message and "carbonyl-step" in warnings[0].message
 
 
@@ -213,5 +213,5 @@ def test_lint_warns_when_an_ester_caveat_lists_members_instead_of_the_family(tmp
     text = RULES.replace("when: {field: base_stock_family, equals: ester}",
                          "when: {field: base_stock, in: [ester, mineral+ester]}")
     (tmp_path / "rules.yaml").write_text(text)
-    warnings = [p for p in lint_ruleset(load_ruleset(tmp_path / "rules.yaml")) if p.code == "W012"]
+    warnings = [p for p in lint_ruleset(load_ruleset(tmp_path / "rules.yaml")) if p.code == "W015"]
     assert len(warnings) == 1 and "ester, mineral+ester" in warnings[0].message
