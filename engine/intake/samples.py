@@ -254,7 +254,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: st
     for column, canonical in TEXT_VOCABULARIES.items():  # closed vocabularies: canonical spelling, or reject
         if column in raw.columns:
             spelled, why = canonical_texts(raw[column], canonical)
-            reject(why != "", column, why, "D008")
+            reject(why != "", column, why, "D011")
             raw[column] = spelled
 
     rejects.sort(key=lambda r: (r.row, r.field))

@@ -77,7 +77,7 @@ PROBLEM_CODES = {
     "D004": "a value that is not a number",
     "D005": "a value outside what the measure can take",
     "D006": "an oil-changed flag that is not yes or no",
-    "D008": "a `method` or `base_stock` outside its closed vocabulary",
+    "D011": "a `method` or `base_stock` outside its closed vocabulary",
     "D012": "an ISO 4406 cleanliness code that cannot be read",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",

@@ -70,7 +70,7 @@ def test_rows_with_an_unknown_method_or_base_stock_are_rejected_with_row_and_fie
                                      "C,pump,MIN-46,20,direct,synthetic\n"
                                      "D,pump,MIN-46,20,direct,POE\n")
     rejects = {(r.row, r.field, r.code) for r in batch.rejects}
-    assert rejects == {(2, "method", "D008"), (3, "base_stock", "D008")}
+    assert rejects == {(2, "method", "D011"), (3, "base_stock", "D011")}
     assert graded.find("A").method == "subtraction"  # D7418's "differential" is spectral subtraction
     assert graded.counts()["read"] == 4 and graded.counts()["rejected"] == 2
 
