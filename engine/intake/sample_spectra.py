@@ -52,7 +52,7 @@ REFERENCE_MISMATCH_AREA = -0.5
 SPECTRUM_CAVEATS = (
     EngineCaveat("base-stock-inferred", "base_stock_inferred_note",
                  "sumpwise engine: ester carbonyl band of the lubricant's new-oil reference spectrum "
-                 "(band position: Tormos et al. 2012 and IR correlation tables; threshold: our estimate, "
+                 "(band position: Tribology Transactions 55 (2012) 872 and IR correlation tables; threshold: our estimate, "
                  "see the band file)"),
     EngineCaveat("base-stock-conflict", "base_stock_conflict_note",
                  "sumpwise engine: declared base stock against the new-oil reference spectrum"),
