@@ -263,7 +263,8 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
 
 
 def _convention_notes(frame: pd.DataFrame, ruleset: RuleSet) -> np.ndarray:
-    """Per row: which of its class's rules read FTIR oxidation in the other convention (not evaluated on it)."""
+    """Per row: the class's rules written for the other FTIR convention, when none of its rules grades the
+    row's own convention, so the reading would otherwise go ungraded without a word."""
     notes = np.full(len(frame), None, dtype=object)
     if "oxidation" not in frame.columns or "class" not in frame.columns:
         return notes
@@ -278,8 +279,13 @@ def _convention_notes(frame: pd.DataFrame, ruleset: RuleSet) -> np.ndarray:
             at = present & (classes == cls) & reading
             if not at.any():
                 continue
-            ids = [rule.id for rule in ruleset.rules_for(cls) if rule.reads & set(OXIDATION_CONVENTIONS[other])]
-            if ids:
+            rules = ruleset.rules_for(cls)
+            ids = [rule.id for rule in rules if rule.reads & set(OXIDATION_CONVENTIONS[other])]
+            graded = [rule.id for rule in rules if rule.reads & set(OXIDATION_CONVENTIONS[convention])]
+            # Only a reading that no rule of its own convention grades needs saying: where the class has
+            # rules for both, the other convention's rules are simply not this reading's (a caveat on
+            # every FTIR sample would be noise that hides the caveats that matter).
+            if ids and not graded:
                 words = {"direct": "direct-trend", "subtraction": "differential (spectral subtraction)"}
                 notes[at] = (f"the FTIR oxidation reading is {words[convention]}; rule(s) {', '.join(ids)} are "
                              f"written for {words[other]} readings and are not evaluated on it")
