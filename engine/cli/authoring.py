@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 
+from sumpwise.cli.options import output_file
 from sumpwise.ledger.audit import stored_samples
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.authoring.compare import compare_rulesets, comparison_lines
@@ -84,7 +85,7 @@ def add_propose_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", choices=("auto", "spc", "percentile"), default="auto",
                         help="auto (default): a normality test picks spc or percentile")
     parser.add_argument("--rule-id", metavar="ID", help="id of the proposed rule")
-    parser.add_argument("--out", metavar="PATH", help="write the YAML snippet here instead of standard output")
+    parser.add_argument("--out", metavar="PATH", type=output_file, help="write the YAML snippet here instead of standard output")
     _sample_options(parser)
 
 

@@ -29,6 +29,7 @@ from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
+from sumpwise.cli.options import output_file, output_folder, positive_mm
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
 
@@ -86,8 +87,9 @@ def _parser(stdout) -> _Parser:
     _common_inputs(grade)
     grade.add_argument("--format", choices=("jsonl", "csv", "table"), default="jsonl",
                        help="output format (default jsonl)")
-    grade.add_argument("--out", metavar="PATH", help="write results here instead of standard output")
-    grade.add_argument("--rejects", metavar="PATH",
+    grade.add_argument("--out", metavar="PATH", type=output_file,
+                       help="write results here instead of standard output")
+    grade.add_argument("--rejects", metavar="PATH", type=output_file,
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
     grade.add_argument("--fail-at", metavar="GRADE",
                        help="exit 3 when any sample reaches this grade or higher")
@@ -103,7 +105,7 @@ def _parser(stdout) -> _Parser:
 
     demo = commands.add_parser("demo", help="grade the shipped Brackwater Point scenario", out=stdout,
                                description="Grade the invented Brackwater Point scenario and print counts.")
-    demo.add_argument("--out", metavar="DIR", default="out", help="folder for the results (default ./out)")
+    demo.add_argument("--out", metavar="DIR", default="out", type=output_folder, help="folder for the results (default ./out)")
 
     spectra = commands.add_parser("spectra", help="compute FTIR measures from spectra files", out=stdout,
                                   description="Read JCAMP-DX or CSV spectra and write band measures as CSV.")
@@ -145,18 +147,8 @@ def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True)
     parser.add_argument("--reference", action="append", metavar="LUBRICANT=FILE", default=[],
                         help="new-oil reference spectrum of a lubricant: samples of it with a `spectrum` "
                              "are read by spectral subtraction (repeatable; wins over the rule set's)")
-    parser.add_argument("--path-length", type=_positive_mm, default=0.1, metavar="MM",
+    parser.add_argument("--path-length", type=positive_mm, default=0.1, metavar="MM",
                         help="FTIR cell path length of the spectra, mm (default 0.100)")
-
-
-def _positive_mm(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a path length in mm, found {text!r}") from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"the path length must be above 0 mm, found {text!r}")
-    return value
 
 
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
@@ -181,6 +173,10 @@ def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
         return USAGE
     except BrokenPipeError:
         return OK
+    except OSError as exc:  # a file that cannot be opened, read or written: the environment, not a bug
+        where = f" {exc.filename}" if exc.filename else ""
+        stderr.write(f"sumpwise: cannot use{where}: {exc.strerror or exc}\n")
+        return USAGE
     except Exception as exc:  # a bug: say so plainly, and keep it apart from findings
         stderr.write(f"sumpwise: internal error (a bug, please report it): {exc!r}\n")
         traceback.print_exc(file=stderr)

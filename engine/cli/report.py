@@ -7,6 +7,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from sumpwise.cli.options import output_file
 from sumpwise.ledger.audit import stored_records, stored_ruleset
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
@@ -24,7 +25,7 @@ def add_arguments(parser) -> None:
     parser.add_argument("--rules", metavar="RULESET",
                         help="the rule set the results were graded with: draws its limits on the plots")
     parser.add_argument("--title", metavar="TEXT", help="report title (default: the rule set's title)")
-    parser.add_argument("--out", required=True, metavar="PATH", help="the HTML file to write")
+    parser.add_argument("--out", required=True, metavar="PATH", type=output_file, help="the HTML file to write")
 
 
 def _text(path) -> str:

@@ -13,6 +13,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from sumpwise.cli.options import output_file
 from sumpwise.intake.spectra.bands import BandFileError, load_bands
 from sumpwise.intake.spectra.batch import expand_inputs, measure_spectra, read_spectrum
 from sumpwise.intake.spectra.spectrum import SpectrumError
@@ -32,7 +33,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="new-oil spectrum of the same lubricant: read every spectrum by spectral subtraction")
     parser.add_argument("--path-length", metavar="MM", type=float, default=0.1, dest="path_length",
                         help="cell path length in mm (default 0.100); values are normalised to 0.100 mm")
-    parser.add_argument("--out", metavar="FILE", help="write the CSV here instead of standard output")
+    parser.add_argument("--out", metavar="FILE", type=output_file, help="write the CSV here instead of standard output")
     parser.add_argument("--bands", metavar="FILE", help="band definitions to use instead of the packaged set")
 
 

@@ -161,7 +161,8 @@ def _ruleset_from_canonical(canonical: str, sha256: str) -> RuleSet | None:
         return None
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "ruleset.json"
-        path.write_text(canonical, encoding="utf-8")
+        # one value a line: the canonical text is one long line, over the rule-set loader's line limit
+        path.write_text(json.dumps(json.loads(canonical), indent=0), encoding="utf-8")
         ruleset = load_ruleset(path)
     return ruleset if ruleset.sha256 == sha256 else None
 
