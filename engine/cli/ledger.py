@@ -9,6 +9,7 @@ import argparse
 from pathlib import Path
 
 from sumpwise.cli.options import iso_date
+from sumpwise.render.safe_text import terminal_lines
 from sumpwise.ledger.audit import explain_from_ledger, replay, replay_lines, unit_history, write_history
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.results.pipeline import grade_batch
@@ -60,7 +61,7 @@ def grade(args, batch, ruleset, stderr):
 
 
 def run_explain(args, stdout) -> int:
-    stdout.write("\n".join(explain_from_ledger(args.db, args.sample_id)) + "\n")
+    stdout.write("\n".join(terminal_lines(explain_from_ledger(args.db, args.sample_id))) + "\n")
     return 0
 
 

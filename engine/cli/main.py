@@ -24,6 +24,7 @@ from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
 from sumpwise.render.table import write_table
+from sumpwise.render.safe_text import spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
@@ -162,14 +163,14 @@ def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
     except _Exit as done:
         return done.status
     except UsageError as exc:
-        stderr.write(f"{exc}\n")
+        stderr.write(_safe_lines(str(exc)))
         return USAGE
     except InvalidFile as exc:
-        stderr.write(f"{exc}\n")
+        stderr.write(_safe_lines(str(exc)))
         stderr.write(f"sumpwise: {len(exc.problems)} problem(s); nothing was graded\n")
         return USAGE
     except InputError as exc:
-        stderr.write(f"sumpwise: {exc}\n")
+        stderr.write(_safe_lines(f"sumpwise: {exc}"))
         return USAGE
     except BrokenPipeError:
         return OK
@@ -181,6 +182,11 @@ def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
         stderr.write(f"sumpwise: internal error (a bug, please report it): {exc!r}\n")
         traceback.print_exc(file=stderr)
         return INTERNAL
+
+
+def _safe_lines(text: str) -> str:
+    """A message for standard error: its lines kept, input text in it escaped for the terminal."""
+    return "\n".join(terminal_text(line) for line in text.split("\n")) + "\n"
 
 
 def _check(args, stdin, stdout, stderr) -> int:
@@ -202,14 +208,16 @@ def _write_rejects(batch, path, stderr) -> None:
     if path is None:
         for r in batch.rejects:
             who = f" (sample {r.sample_id})" if r.sample_id else ""
-            stderr.write(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}\n")
+            stderr.write(terminal_text(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}")
+                         + "\n")
         return
     with open(path, "w", encoding="utf-8", newline="") as out:
         if str(path).endswith(".csv"):
             writer = csv.writer(out, lineterminator="\n")
             writer.writerow(["file", "row", "sample_id", "field", "code", "reason"])
             for r in batch.rejects:
-                writer.writerow([batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason])
+                writer.writerow([spreadsheet_text(cell) for cell in
+                                 (batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason)])
         else:
             for r in batch.rejects:
                 out.write(dumps({"file": batch.source, "row": r.row, "sample_id": r.sample_id, "field": r.field,
