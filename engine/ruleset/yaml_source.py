@@ -163,6 +163,8 @@ class _Builder:
         except (ValueError, OverflowError) as exc:  # e.g. an integer of more digits than Python converts
             raise yaml.constructor.ConstructorError(None, None, f"cannot be read as a value: {exc}",
                                                     node.start_mark) from None
+        if isinstance(value, bytes):
+            raise yaml.constructor.ConstructorError(None, None, "binary data is not allowed", node.start_mark)
         mark = _mark(node)
         if isinstance(value, float) and not math.isfinite(value):
             self.problems.append(Problem(self.file, mark.line, mark.column,

@@ -176,3 +176,11 @@ def test_a_path_that_cannot_be_read_is_a_problem(tmp_path, name):
     with pytest.raises(InvalidFile) as caught:
         load_yaml(tmp_path / name)
     assert caught.value.problems[0].code == "Y006"
+
+
+@pytest.mark.parametrize("text, line", [("a: 1\nsampled: 2026-02-30\n", 2), ("d: !!timestamp 2026-13-45\n", 1),
+                                        ("a: !!binary aGVsbG8=\n", 1)])
+def test_a_value_that_cannot_be_built_is_a_problem_with_its_line(text, line):
+    """Found by hand while bounding the loader: an impossible date raised ValueError (exit 1)."""
+    problem = _only_problem(text)
+    assert (problem.code, problem.line) == ("Y005", line)
