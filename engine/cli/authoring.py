@@ -85,7 +85,8 @@ def add_propose_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", choices=("auto", "spc", "percentile"), default="auto",
                         help="auto (default): a normality test picks spc or percentile")
     parser.add_argument("--rule-id", metavar="ID", help="id of the proposed rule")
-    parser.add_argument("--out", metavar="PATH", type=output_file, help="write the YAML snippet here instead of standard output")
+    parser.add_argument("--out", metavar="PATH", type=output_file,
+                        help="write the YAML snippet here instead of standard output")
     _sample_options(parser)
 
 

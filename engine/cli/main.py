@@ -105,7 +105,8 @@ def _parser(stdout) -> _Parser:
 
     demo = commands.add_parser("demo", help="grade the shipped Brackwater Point scenario", out=stdout,
                                description="Grade the invented Brackwater Point scenario and print counts.")
-    demo.add_argument("--out", metavar="DIR", default="out", type=output_folder, help="folder for the results (default ./out)")
+    demo.add_argument("--out", metavar="DIR", default="out", type=output_folder,
+                      help="folder for the results (default ./out)")
 
     spectra = commands.add_parser("spectra", help="compute FTIR measures from spectra files", out=stdout,
                                   description="Read JCAMP-DX or CSV spectra and write band measures as CSV.")
@@ -175,7 +176,7 @@ def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
         return OK
     except OSError as exc:  # a file that cannot be opened, read or written: the environment, not a bug
         where = f" {exc.filename}" if exc.filename else ""
-        stderr.write(f"sumpwise: cannot use{where}: {exc.strerror or exc}\n")
+        stderr.write(_safe_lines(f"sumpwise: cannot use{where}: {exc.strerror or exc}"))
         return USAGE
     except Exception as exc:  # a bug: say so plainly, and keep it apart from findings
         stderr.write(f"sumpwise: internal error (a bug, please report it): {exc!r}\n")

@@ -7,7 +7,7 @@ import random
 import pytest
 from hypothesis import Phase, example, given, settings, strategies as st
 
-from property_inputs import Graded, assert_no_bug, grade, sample_rows, to_csv
+from property_inputs import assert_no_bug, grade, sample_rows, to_csv
 
 
 @given(rows=sample_rows())
