@@ -24,6 +24,17 @@ def positive_mm(text: str) -> float:
     return value
 
 
+def batch_number(text: str) -> int:
+    """A ledger batch number: a whole number from 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a batch number (1, 2, ...), found {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"batch numbers start at 1, found {text!r}")
+    return value
+
+
 def iso_date(text: str) -> str:
     """A calendar date written YYYY-MM-DD; kept as text, the form the ledger compares."""
     try:

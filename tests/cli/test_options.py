@@ -94,3 +94,9 @@ def test_an_output_that_cannot_be_opened_after_the_check_is_still_exit_2(tmp_pat
     monkeypatch.setattr(builtins, "open", refusing_open)
     run = run_cli("grade", samples, "--rules", GEARBOX, "--out", tmp_path / "results.jsonl")
     assert run.code == 2 and "results.jsonl" in run.err and "Permission denied" in run.err
+
+
+@pytest.mark.parametrize("value", ["0", "-3", "1.5", "1e400", "first"])
+def test_report_batch_must_be_a_whole_number_from_1(tmp_path, value):
+    run = run_cli("report", "--db", tmp_path / "ledger.db", f"--batch={value}", "--out", tmp_path / "r.html")
+    assert run.code == 2 and "--batch" in run.err and repr(value) in run.err
