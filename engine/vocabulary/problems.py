@@ -50,6 +50,8 @@ PROBLEM_CODES = {
     "C008": "a malformed condition",
     "C009": "unknown field",
     "C010": "an example expects a grade that is not on the ladder",
+    "C014": "a noise margin for a measure without trend measures",
+    "C015": "an ISO 4406 code that cannot be read",
     "W001": "a rule another rule always shadows",
     "W002": "a rule that can never fire",
     "W003": "a caveat that can never apply",
@@ -69,6 +71,7 @@ PROBLEM_CODES = {
     "D004": "a value that is not a number",
     "D005": "a value outside what the measure can take",
     "D006": "an oil-changed flag that is not yes or no",
+    "D012": "an ISO 4406 cleanliness code that cannot be read",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
 }
