@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 
 from sumpwise.cli.options import output_file
+from sumpwise.render.safe_text import terminal_lines
 from sumpwise.ledger.audit import stored_samples
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.authoring.compare import compare_rulesets, comparison_lines
@@ -65,7 +66,7 @@ def run_compare(args, stdout, stderr) -> int:
     numeric = tuple(dict.fromkeys([*old.measures, *new.measures]))
     batch = _read(args, numeric)
     comparison = compare_rulesets(old, new, batch)
-    stdout.write("\n".join(comparison_lines(comparison, args.old, args.new)) + "\n\n")
+    stdout.write("\n".join(terminal_lines(comparison_lines(comparison, args.old, args.new))) + "\n\n")
     stdout.write(caution_text("! ") + "\n")
     return FINDINGS if comparison.moved else OK
 

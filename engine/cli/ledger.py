@@ -72,7 +72,7 @@ def run_history(args, stdout, stderr) -> int:
 
 def run_replay(args, stdout, stderr) -> int:
     report = replay(args.db, args.since)
-    stdout.write("\n".join(replay_lines(report)) + "\n")
+    stdout.write("\n".join(terminal_lines(replay_lines(report))) + "\n")
     if report.differences:
         stdout.write(caution_text("! ") + "\n")
     return FINDINGS if report.differences else 0

@@ -116,3 +116,13 @@ def test_a_rejected_row_is_escaped_on_standard_error_and_neutralised_in_a_reject
 def test_an_error_message_quoting_input_text_is_escaped():
     run = run_cli("explain", "\x1b[2Jnowhere", "--samples", "-", "--rules", GEARBOX, stdin=HOSTILE)
     assert run.code == 2 and "\x1b" not in run.err and "\\x1b[2Jnowhere" in run.err
+
+
+def test_compare_escapes_the_ids_of_samples_that_move(tmp_path):
+    stricter = tmp_path / "stricter.yaml"
+    stricter.write_text(GEARBOX.read_text().replace("above: {watch: 300, alert: 1000, urgent: 2000}",
+                                                    "above: {watch: 50, alert: 1000, urgent: 2000}"))
+    samples = tmp_path / "lab.csv"
+    samples.write_text(HOSTILE)
+    run = run_cli("compare", GEARBOX, stricter, "--samples", samples)
+    assert run.code == 3 and "\x1b" not in run.out and "\\x1b[2J" in run.out
