@@ -79,8 +79,8 @@ class _TooBig(Exception):
         self.mark, self.message, self.code = mark, message, code
 
 
-# libyaml when present: the pure-Python parser reads about ten times slower, and loading
-# time is one of the bounds. Both give the same nodes and marks.
+# libyaml when present: the pure-Python parser is much slower, and loading time is one of
+# the bounds. Both give nodes with marks; some error messages differ.
 _LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 
