@@ -8,20 +8,18 @@ from __future__ import annotations
 
 import argparse
 import datetime as dt
-import math
 import re
 from pathlib import Path
 
+from sumpwise.intake.spectra.batch import check_path_length
+
 
 def positive_mm(text: str) -> float:
-    """A finite length in mm above zero (an FTIR cell path length)."""
+    """A cell path length in mm, by the spectra reader's own rule (finite, above 0, at most 10)."""
     try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a path length in mm, found {text!r}") from None
-    if not math.isfinite(value) or not value > 0:
-        raise argparse.ArgumentTypeError(f"the path length must be a finite number of mm above 0, found {text!r}")
-    return value
+        return check_path_length(text, "path length")
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def batch_number(text: str) -> int:
