@@ -60,8 +60,12 @@ def recorded_derived(ruleset) -> list:
 
 
 def lacking(sample: dict, names: list) -> list:
+    """Inputs missing: a measure (or new-oil value) by its number, a text field by its text."""
     numbers, texts = sample["numbers"], sample["texts"]
-    return [n for n in names if numbers.get(n) is None and texts.get(n) is None]
+
+    def number(name):
+        return name in INPUT_MEASURES or name in DERIVED_MEASURES or name.startswith("new_")
+    return [n for n in names if (numbers.get(n) if number(n) else texts.get(n)) is None]
 
 
 def limit_of(limit):
@@ -87,8 +91,6 @@ def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
     for base in ("kv40", "kv100", "an", "bn", "oxidation", "rpvot"):
         if numbers.get(f"new_{base}") is None and lubricant is not None:
             numbers[f"new_{base}"] = getattr(lubricant, base)
-    if texts["method"] == "subtraction":
-        numbers["new_oxidation"] = 0.0
     class_name = texts.get("class")
     caveats, capping = [], []
     for caveat in ruleset.caveats:
@@ -195,6 +197,8 @@ def main(argv=None) -> None:
             open(args.out, "w", encoding="utf-8", newline="") as out:
         reader = csv.DictReader(source)
         value_names = [n for n in list(INPUT_MEASURES) + list(ruleset.measures) if n in reader.fieldnames]
+        if "oxidation" in value_names and "method" in reader.fieldnames and "oxidation_differential" not in value_names:
+            value_names.append("oxidation_differential")  # a subtraction reading is recorded under its own name
         for row in reader:
             out.write(json.dumps(record(ruleset, row, value_names, derived_names), ensure_ascii=False,
                                  separators=(", ", ": "), allow_nan=False) + "\n")

@@ -20,12 +20,14 @@ import pandas as pd
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.render.narrative import explain_lines
+from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, current_contents, current_records, fingerprint,
                      history_frame, open_ledger, sample_entries, unit_entries)
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.render.jsonl import jsonl_lines
-from sumpwise.results.records import FORMAT_1, FULL, CaveatNote, Clause, NotEvaluated, Reason, SampleResult
+from sumpwise.results.records import (FORMAT_1, FULL, CaveatNote, Clause, NotEvaluated, Reason, SampleResult,
+                                      next_step_from_record)
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import SampleBatch
 
@@ -41,14 +43,15 @@ def result_from_record(record: dict, grades: tuple) -> SampleResult:
         reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), r["message"], r["source"],
                               measure=r.get("measure"), value=r.get("value"), unit=r.get("unit"),
                               test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
-                              capped_by=r.get("capped_by"), clauses=clauses))
+                              capped_by=r.get("capped_by"), clauses=clauses,
+                              next_step=next_step_from_record(r.get("next_step"))))
     ruleset = record["ruleset"]
     return SampleResult(
         sample_id=record["sample_id"], unit_id=record["unit_id"], class_name=record["class"],
         lubricant=record["lubricant"], sampled_on=record["sampled_on"], grade=record["grade"],
         level=record["level"], reasons=tuple(reasons),
-        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())))
-                      for c in record["caveats"]),
+        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())),
+                                 next_step_from_record(c.get("next_step"))) for c in record["caveats"]),
         not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"])) for n in record["not_evaluated"]),
         notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
         ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),
@@ -127,16 +130,16 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
 
 def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table") -> None:
     if fmt == "csv":
-        unit.to_csv(stream, index=False, lineterminator="\n")
+        spreadsheet_frame(unit).to_csv(stream, index=False, lineterminator="\n")
     elif fmt == "jsonl":
         stream.write(unit.to_json(orient="records", lines=True, force_ascii=False))
     else:
-        stream.write(f"Unit {unit_id}: {len(unit)} sample(s) in the ledger\n")
-        stream.write("\n".join(trend_table(unit)) + "\n")
+        lines = [f"Unit {unit_id}: {len(unit)} sample(s) in the ledger", *trend_table(unit)]
         fired = unit[unit["fired"] != ""]
         for row in fired.itertuples():
-            stream.write(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
-                         + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else "") + "\n")
+            lines.append(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
+                         + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else ""))
+        stream.write("\n".join(terminal_lines(lines)) + "\n")
         stream.write("\n" + caution_text("! ") + "\n")
 
 
@@ -161,7 +164,8 @@ def _ruleset_from_canonical(canonical: str, sha256: str) -> RuleSet | None:
         return None
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "ruleset.json"
-        path.write_text(canonical, encoding="utf-8")
+        # one value a line: the canonical text is one long line, over the rule-set loader's line limit
+        path.write_text(json.dumps(json.loads(canonical), indent=0), encoding="utf-8")
         ruleset = load_ruleset(path)
     return ruleset if ruleset.sha256 == sha256 else None
 

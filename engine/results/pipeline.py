@@ -15,7 +15,7 @@ from sumpwise.ruleset.model import RuleSet
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing or unreadable date: after every real one
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
-from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, spectrum_caveat_flags
+from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
 from sumpwise.derive.trends import (CHAIN_COLUMNS, TREND_CAVEATS, add_trend_measures, noise_margins, read_oil_changes,
@@ -38,10 +38,15 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
         measured[column] = batch.frame[column] if column in batch.frame.columns else None
     measured["oil_changed"] = (batch.frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in batch.frame.columns
                                else np.zeros(len(measured), dtype=bool))
+    measured["ftir_convention_note"] = convention_notes(measured, ruleset)
     outcome = evaluate(ruleset, measured)
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
                                                   spectrum_caveat_flags(measured)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
+    if "oxidation" in carried and "method" in batch.frame.columns and "oxidation_differential" not in carried:
+        # a differential reading is recorded under its own name (issue 11); decided by the columns, not the
+        # values, so a record's shape does not depend on the other rows of its batch (replay re-grades subsets)
+        carried += ("oxidation_differential",)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
                        TREND_CAVEATS + SPECTRUM_CAVEATS, forecast(measured, ruleset), recorded_derived(ruleset, measured))
 

@@ -107,8 +107,10 @@ def _without_texts(record: dict) -> dict:
     """A full record with the texts the compact form leaves to the rule set taken out."""
     record = dict(record, form="compact")
     del record["notice"]
-    record["reasons"] = [{k: v for k, v in r.items() if k not in ("message", "source")} for r in record["reasons"]]
-    record["caveats"] = [{k: v for k, v in c.items() if k != "source" and (k != "message" or c["caveat"] in ENGINE)}
+    record["reasons"] = [{k: v for k, v in r.items() if k not in ("message", "source", "next_step")}
+                         for r in record["reasons"]]
+    record["caveats"] = [{k: v for k, v in c.items()
+                          if k not in ("source", "next_step") and (k != "message" or c["caveat"] in ENGINE)}
                          for c in record["caveats"]]
     return record
 
@@ -117,6 +119,7 @@ ENGINE = ("trend-break", "oil-changed", "base-stock-inferred", "base-stock-confl
 
 
 def test_the_compact_record_keeps_every_fact_and_its_texts_are_the_rule_sets():
+    from sumpwise.results.records import next_step_record
     # Facts by value, text by reference: the compact record is the full one without the rule
     # set's texts, and those texts are found again in the rule set by rule and caveat id.
     ruleset = load_ruleset(SITE)
@@ -132,10 +135,13 @@ def test_the_compact_record_keeps_every_fact_and_its_texts_are_the_rule_sets():
         for reason in whole["reasons"]:
             rule = {rule.id: rule for rule in ruleset.rules_for(whole["class"])}[reason["rule"]]
             assert (reason["message"], reason["source"]) == (rule.message, rule.source)
+            assert reason.get("next_step") == (next_step_record(rule.next_step) if rule.next_step else None)
             reasons += 1
         for note in whole["caveats"]:
             if note["caveat"] in caveats:
-                assert note["message"] == caveats[note["caveat"]].message
+                caveat = caveats[note["caveat"]]
+                assert note["message"] == caveat.message
+                assert note.get("next_step") == (next_step_record(caveat.next_step) if caveat.next_step else None)
     assert reasons > 50
     assert sum(map(len, compact)) < sum(map(len, full))
 
