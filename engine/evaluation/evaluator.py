@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from sumpwise.intake.censored import Bounds, interval_truth
 from sumpwise.ruleset.model import LadderRule, RuleSet
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 
@@ -74,6 +75,22 @@ class _Columns:
                 self.cache[name] = np.full(self.size, np.nan)
         return self.cache[name]
 
+    def interval(self, name: str) -> Bounds | None:
+        """The censored readings of a measure as intervals (None when it has none): a test on
+        one is known only when the whole interval lies inside or outside the test's region."""
+        key = ("interval", name)
+        if key not in self.cache:
+            found = None
+            if name + ":low" in self.measured.columns:
+                low = self._take(self.measured[name + ":low"].to_numpy(dtype=float, na_value=np.nan))
+                found = Bounds(~np.isnan(low), low,
+                               self._take(self.measured[name + ":high"].to_numpy(dtype=float, na_value=np.nan)),
+                               self._take(self.measured[name + ":low_open"].to_numpy(dtype=bool)),
+                               self._take(self.measured[name + ":high_open"].to_numpy(dtype=bool)), np.empty(0))
+                found = found if found.censored.any() else None
+            self.cache[key] = found
+        return self.cache[key]
+
     def folded(self, name: str) -> tuple[np.ndarray, list]:
         """(code per row, -1 where missing; the distinct values stripped and case-folded).
 
@@ -91,14 +108,34 @@ class _Columns:
         return self.cache[key]
 
 
-def _measure_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
-    values = columns.number(condition.measure)
+def _limit_truth(measure: str, test: str, limit, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
+    """(truth, known) of one limit test: numbers compared, censored readings as intervals."""
+    values = columns.number(measure)
     known = ~np.isnan(values)
-    return LIMIT_TESTS[condition.test].crossed(values, condition.limit) & known, known
+    truth = LIMIT_TESTS[test].crossed(values, limit) & known
+    interval = columns.interval(measure)
+    if interval is not None:
+        rows = interval.censored
+        inside, decided = interval_truth(LIMIT_TESTS[test].region(limit), _at(interval, rows))
+        truth, known = truth.copy(), known.copy()
+        truth[rows], known[rows] = inside, decided
+    return truth, known
+
+
+def _at(interval: Bounds, rows: np.ndarray) -> Bounds:
+    return Bounds(interval.censored[rows], interval.low[rows], interval.high[rows], interval.low_open[rows],
+                  interval.high_open[rows], interval.written)
+
+
+def _measure_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
+    return _limit_truth(condition.measure, condition.test, condition.limit, columns)
 
 
 def _missing_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
     missing = np.isnan(columns.number(condition.measure))
+    interval = columns.interval(condition.measure)
+    if interval is not None:
+        missing &= ~interval.censored  # a censored reading is there, only not as a number
     truth = missing if condition.missing else ~missing
     return truth, np.ones(len(truth), dtype=bool)
 
@@ -144,11 +181,22 @@ def condition_truth(condition, columns: _Columns, leaves: list | None = None) ->
 
 
 def _ladder_levels(rule: LadderRule, columns: _Columns) -> np.ndarray:
+    """The highest step crossed. A censored reading gets the highest step it is known to cross
+    (a lower bound when a higher step is undecided); none known and one undecided: not evaluated."""
     values = columns.number(rule.measure)
     levels = np.zeros(len(values), dtype=np.int8)
+    interval = columns.interval(rule.measure)
+    if interval is None:
+        for level, limit in rule.steps:
+            levels[LIMIT_TESTS[rule.test].crossed(values, limit)] = level
+        levels[np.isnan(values)] = NOT_EVALUATED
+        return levels
+    undecided = np.zeros(len(values), dtype=bool)
     for level, limit in rule.steps:
-        levels[LIMIT_TESTS[rule.test].crossed(values, limit)] = level
-    levels[np.isnan(values)] = NOT_EVALUATED
+        truth, known = _limit_truth(rule.measure, rule.test, limit, columns)
+        levels[truth] = level
+        undecided |= ~known
+    levels[undecided & (levels == 0)] = NOT_EVALUATED
     return levels
 
 

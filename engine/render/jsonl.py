@@ -112,6 +112,12 @@ class _Literals:
             self.arrays[kind, name] = (column.to_numpy(dtype=float, na_value=np.nan) if kind == "number"
                                        else column.to_numpy(dtype=object))
         values = self.arrays[kind, name][rows]
+        if kind == "number" and name + ":written" in self.measured.columns:  # censored: as the lab wrote it
+            written = self.measured[name + ":written"].to_numpy(dtype=object)[rows]
+            literals = _number_literals(values)
+            here = pd.notna(written)
+            literals[here] = _text_literals(written[here])
+            return literals
         return _number_literals(values) if kind == "number" else _text_literals(values)
 
 
@@ -268,7 +274,9 @@ class _Writer:
         names = [n for n in rule_inputs(self.out.slots[j].rule) if n in measured.columns]
         rows = block.rows[local]
         columns = [self._missing(n)[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
-        self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j),
+        columns += [measured[n + ":written"].notna().to_numpy()[rows] for n in names  # censored, undecided
+                    if n + ":written" in measured.columns]
+        self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j, values),
                        lambda found: self.list_slots["gaps"].start + j)
 
     def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:

@@ -92,11 +92,18 @@ class CaveatNote:
 
 @dataclass(frozen=True)
 class NotEvaluated:
+    """A rule not evaluated: the values it lacked, and censored readings (as written) that
+    did not decide it (`<50` against `above 20`)."""
+
     rule: str
     missing: tuple
+    undecided: tuple = ()  # (measure, reading as written)
 
     def to_record(self) -> dict:
-        return {"rule": self.rule, "missing": list(self.missing)}
+        record = {"rule": self.rule, "missing": list(self.missing)}
+        if self.undecided:
+            record["undecided"] = dict(self.undecided)
+        return record
 
 
 @dataclass(frozen=True)
@@ -212,13 +219,21 @@ class _RealValues:
         if name not in self.measured.columns:
             return None
         value = self.measured[name].iat[i]
-        return None if pd.isna(value) else float(value)
+        if pd.isna(value):  # a censored reading is shown as the lab wrote it, never as its bound
+            return _written(self.measured, name, i)
+        return float(value)
 
     def text(self, name: str, i: int):
         if name not in self.measured.columns:
             return None
         value = self.measured[name].iat[i]
         return None if value is None or (isinstance(value, float) and np.isnan(value)) else str(value)
+
+
+def _written(measured: pd.DataFrame, name: str, i: int):
+    """A censored reading's text as written (`<50`), or None (intake.censored)."""
+    column = name + ":written"
+    return measured[column].iat[i] if column in measured.columns else None
 
 
 def _is_missing(measured: pd.DataFrame, name: str, i: int) -> bool:
@@ -228,11 +243,17 @@ def _is_missing(measured: pd.DataFrame, name: str, i: int) -> bool:
     return value is None or (isinstance(value, float) and np.isnan(value))
 
 
-def gap_at(batch: GradedBatch, i: int, j: int) -> NotEvaluated:
+def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
     """What rule slot j lacked for row i (it was not evaluated)."""
     rule = batch.outcome.slots[j].rule
-    missing = [name for name in rule_inputs(rule) if _is_missing(batch.measured, name, i)]
-    return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]))
+    values = values or _RealValues(batch.measured)
+    undecided = tuple((name, values.number(name, i)) for name in rule_inputs(rule)
+                      if _written(batch.measured, name, i) is not None)
+    missing = [name for name in rule_inputs(rule) if _is_missing(batch.measured, name, i)
+               and name not in dict(undecided)]
+    if not missing and not undecided:
+        missing = [getattr(rule, "measure", rule.id)]
+    return NotEvaluated(rule.id, tuple(missing), undecided)
 
 
 def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
@@ -289,7 +310,7 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
     for j in range(len(out.slots)):
         final = int(out.final[i, j])
         if final == NOT_EVALUATED:
-            not_evaluated.append(gap_at(batch, i, j))
+            not_evaluated.append(gap_at(batch, i, j, values))
         elif final > 0:
             reasons.append(reason_at(batch, i, j, values))
     order = sorted(range(len(reasons)), key=lambda k: -reasons[k].level)
