@@ -22,13 +22,9 @@ from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Ex
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
 from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset
 from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.cautions import DEFAULT_NOTICE
 from sumpwise.vocabulary.units import FACTORS, factor_to_canonical
 
-DEFAULT_NOTICE = (
-    "Screening aid only, not a substitute for a qualified lubricant analyst. Limits from the equipment "
-    "manufacturer and the lubricant supplier, local codes and site procedures take precedence. Confirm a "
-    "severe finding by resampling before acting on critical equipment."
-)
 
 _LADDER_TESTS = ("above", "below", "outside")
 _MEASURE_TESTS = ("above", "below", "outside", "between", "missing")
