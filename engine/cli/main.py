@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import argparse
 import csv
+import io
+import json
 import sys
 import traceback
 from collections import Counter
@@ -25,6 +27,7 @@ from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
 from sumpwise.render.table import write_table
 from sumpwise.intake.samples import load_column_map, read_samples
+from sumpwise.results.records import UNRATED
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
 from sumpwise.cli import ledger as ledger_cli
@@ -81,15 +84,22 @@ def _parser(stdout) -> _Parser:
     grade = commands.add_parser("grade", help="grade samples against a rule set", out=stdout,
                                 description="Grade every sample; every row read ends up graded, unrated or "
                                             "rejected, and the counts go to standard error.")
-    grade.add_argument("samples", metavar="SAMPLES", help="CSV or JSON Lines file, or - for standard input")
+    grade.add_argument("samples", metavar="SAMPLES", nargs="+",
+                       help="CSV, JSON Lines or .xlsx files or folders of them, or - for standard input; "
+                            "each file is graded on its own, its rows keep their file and row")
     _common_inputs(grade)
     grade.add_argument("--format", choices=("jsonl", "csv", "table"), default="jsonl",
                        help="output format (default jsonl)")
     grade.add_argument("--out", metavar="PATH", help="write results here instead of standard output")
     grade.add_argument("--rejects", metavar="PATH",
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
-    grade.add_argument("--fail-at", metavar="GRADE",
-                       help="exit 3 when any sample reaches this grade or higher")
+    grade.add_argument("--fail-at", metavar="GRADE", action="append", default=[],
+                       help="exit 3 when any sample reaches this grade or higher; `unrated`: when any sample "
+                            "is unrated (repeatable)")
+    grade.add_argument("--max-rejects", metavar="N", type=_count,
+                       help="exit 2 when more than N rows in all are rejected (results are still written)")
+    grade.add_argument("--summary", metavar="FILE",
+                       help="write the run's counts per file and in total, notes and warnings as JSON")
     ledger_cli.add_grade_arguments(grade)
 
     explain = commands.add_parser("explain", help="tell the story of one sample's grade", out=stdout,
@@ -139,13 +149,19 @@ def _parser(stdout) -> _Parser:
 def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True) -> None:
     parser.add_argument("--rules", required=rules_required, metavar="RULESET", help="the rule-set YAML file")
     parser.add_argument("--columns", metavar="MAP", help="column map YAML: lab column names and units")
-    parser.add_argument("--input-format", choices=("csv", "jsonl"),
+    parser.add_argument("--input-format", choices=("csv", "jsonl", "xlsx"),
                         help="format of SAMPLES (default: from its name; csv for standard input)")
     parser.add_argument("--reference", action="append", metavar="LUBRICANT=FILE", default=[],
                         help="new-oil reference spectrum of a lubricant: samples of it with a `spectrum` "
                              "are read by spectral subtraction (repeatable; wins over the rule set's)")
     parser.add_argument("--path-length", type=_positive_mm, default=0.1, metavar="MM",
                         help="FTIR cell path length of the spectra, mm (default 0.100)")
+
+
+def _count(text: str) -> int:
+    if not text.isdigit():
+        raise argparse.ArgumentTypeError(f"expected a whole number of rows (0 or more), found {text!r}")
+    return int(text)
 
 
 def _positive_mm(text: str) -> float:
@@ -190,27 +206,58 @@ def _check(args, stdin, stdout, stderr) -> int:
     return authoring_cli.run_check(args.rulesets, args.strict, stdout, stderr)
 
 
-def _read(args, stdin):
+def _rules_and_map(args):
     ruleset = load_ruleset(args.rules)
-    columns = load_column_map(args.columns) if args.columns else None
-    if args.samples == "-":
+    extra = tuple(ruleset.measures) + tuple(ruleset.fields)
+    columns = load_column_map(args.columns, extra) if args.columns else None
+    return ruleset, columns
+
+
+def _read_one(args, stdin, source, ruleset, columns):
+    if source == "-":
         batch = read_samples(stdin, "<stdin>", columns, args.input_format or "csv", ruleset.measures)
     else:
-        batch = read_samples(args.samples, None, columns, args.input_format, ruleset.measures)
-    batch = measure_sample_spectra(batch, ruleset, parse_references(args.reference), args.path_length)
-    return ruleset, batch
+        batch = read_samples(source, None, columns, args.input_format, ruleset.measures)
+    return measure_sample_spectra(batch, ruleset, parse_references(args.reference), args.path_length)
 
 
-def _write_rejects(batch, path, stderr) -> None:
+def _read(args, stdin):
+    ruleset, columns = _rules_and_map(args)
+    return ruleset, _read_one(args, stdin, args.samples, ruleset, columns)
+
+
+INPUT_SUFFIXES = (".csv", ".jsonl", ".ndjson", ".json", ".xlsx", ".txt")
+
+
+def _sources(items) -> list:
+    """Files in the order given; a folder gives its sample files in name order."""
+    found = []
+    for item in items:
+        path = Path(item)
+        if item != "-" and path.is_dir():
+            inside = sorted(p for p in path.iterdir() if p.is_file() and p.suffix.lower() in INPUT_SUFFIXES)
+            if not inside:
+                raise InputError(f"{item}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
+            found.extend(str(p) for p in inside)
+        else:
+            found.append(item)
+    if found.count("-") > 1:
+        raise UsageError("sumpwise grade: standard input (-) can be read once")
+    return found
+
+
+def _write_rejects(batch, path, stderr, first: bool = True) -> None:
+    """Rejected rows to standard error, or to a file (.csv or JSON Lines); `first` starts the file."""
     if path is None:
         for r in batch.rejects:
             who = f" (sample {r.sample_id})" if r.sample_id else ""
             stderr.write(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}\n")
         return
-    with open(path, "w", encoding="utf-8", newline="") as out:
+    with open(path, "w" if first else "a", encoding="utf-8", newline="") as out:
         if str(path).endswith(".csv"):
             writer = csv.writer(out, lineterminator="\n")
-            writer.writerow(["file", "row", "sample_id", "field", "code", "reason"])
+            if first:
+                writer.writerow(["file", "row", "sample_id", "field", "code", "reason"])
             for r in batch.rejects:
                 writer.writerow([batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason])
         else:
@@ -227,27 +274,83 @@ def _summary(graded) -> str:
             f"{counts['unrated']} unrated, {counts['rejected']} rejected ({ladder})\n")
 
 
+def _file_summary(graded, notes) -> dict:
+    """One file's counts, grades, engine caveats and notes, for --summary and the exit code."""
+    by_grade = Counter(graded.grades())
+    caveats = Counter()
+    ids = [c.id for c in graded.ruleset.caveats] + [c.id for c in graded.engine_caveats]
+    for k, count in enumerate(graded.outcome.caveats.sum(axis=0).tolist()):
+        if count:
+            caveats[ids[k]] += count
+    return {"file": graded.source, **graded.counts(),
+            "grades": {g: by_grade.get(g, 0) for g in list(graded.ruleset.grades) + [UNRATED]},
+            "caveats": dict(sorted(caveats.items())), "notes": list(notes)}
+
+
+# Engine caveats that mean a sample may be graded on less than it should: warned about in the summary.
+WARNING_CAVEATS = ("unknown-lubricant", "unknown-class", "few-rules-evaluated")
+
+
 def _grade(args, stdin, stdout, stderr) -> int:
-    ruleset, batch = _read(args, stdin)
-    fail_level = None
-    if args.fail_at is not None:
-        if args.fail_at not in ruleset.grades:
-            raise UsageError(f"sumpwise grade: --fail-at {args.fail_at!r} is not on the grade ladder "
-                             f"[{', '.join(ruleset.grades)}]")
-        fail_level = ruleset.level_of(args.fail_at)
-    graded = ledger_cli.grade(args, batch, ruleset, stderr)
+    ruleset, columns = _rules_and_map(args)
+    fail_levels, fail_unrated = [], False
+    for name in args.fail_at:
+        if name == UNRATED:
+            fail_unrated = True
+        elif name in ruleset.grades:
+            fail_levels.append(ruleset.level_of(name))
+        else:
+            raise UsageError(f"sumpwise grade: --fail-at {name!r} is not on the grade ladder "
+                             f"[{', '.join(ruleset.grades)}] and is not 'unrated'")
     writer = {"jsonl": write_jsonl, "csv": write_csv,
               "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
-    if args.out:
-        with open(args.out, "w", encoding="utf-8", newline="") as out:
-            writer(graded, out)
-    else:
-        writer(graded, stdout)
-    _write_rejects(graded, args.rejects, stderr)
-    stderr.write(_summary(graded))
-    if fail_level is not None and (graded.outcome.level >= fail_level).any():
-        return FINDINGS
-    return OK
+    sources = _sources(args.samples)
+    try:
+        out = open(args.out, "w", encoding="utf-8", newline="") if args.out else stdout
+    except OSError as exc:
+        raise InputError(f"--out {args.out}: cannot write it: {exc.strerror or exc}") from None
+    files, found_grade, found_unrated = [], False, False
+    try:
+        for k, source in enumerate(sources):
+            batch = _read_one(args, stdin, source, ruleset, columns)
+            for note in batch.notes:
+                stderr.write(f"sumpwise: {batch.source}: note: {note}\n")
+            graded = ledger_cli.grade(args, batch, ruleset, stderr)
+            if args.format == "csv" and k:
+                text = io.StringIO()
+                writer(graded, text)
+                out.write(text.getvalue().split("\n", 1)[1])  # one header for all files
+            else:
+                writer(graded, out)
+            _write_rejects(graded, args.rejects, stderr, first=k == 0)
+            stderr.write(_summary(graded))
+            files.append(_file_summary(graded, batch.notes))
+            levels = graded.outcome.level
+            found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
+            found_unrated |= bool((levels < 0).any())
+    finally:
+        if args.out:
+            out.close()
+    total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
+    warnings = [f"{f['file']}: {f['caveats'][c]} sample(s) with caveat {c}" for f in files for c in WARNING_CAVEATS
+                if c in f["caveats"]]
+    warnings += [f"{f['file']}: {f['unrated']} sample(s) unrated" for f in files if f["unrated"]]
+    if len(files) > 1:
+        stderr.write(f"sumpwise: in total: read {total['read']} row(s): {total['graded']} graded, "
+                     f"{total['unrated']} unrated, {total['rejected']} rejected\n")
+    for warning in warnings:
+        stderr.write(f"sumpwise: warning: {warning}\n")
+    code = OK
+    if fail_levels and found_grade or fail_unrated and found_unrated:
+        code = FINDINGS
+    if args.max_rejects is not None and total["rejected"] > args.max_rejects:
+        stderr.write(f"sumpwise: {total['rejected']} row(s) rejected, more than --max-rejects {args.max_rejects}\n")
+        code = USAGE
+    if args.summary:
+        report = {"files": files, "total": total, "warnings": warnings, "exit": code}
+        with open(args.summary, "w", encoding="utf-8") as handle:
+            handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
+    return code
 
 
 def _explain(args, stdin, stdout, stderr) -> int:

@@ -9,9 +9,34 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+import difflib
+
 from sumpwise.derive.viscosity import viscosity_index
+from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
 from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES, ROW_MEASURES
+
+# A lubricant code the rule set does not know: its new-oil values are missing, and the
+# sample must say so where people look, not only in its not-evaluated list.
+LUBRICANT_CAVEATS = (
+    EngineCaveat("unknown-lubricant", "unknown_lubricant_note", "sumpwise engine: the rule set's lubricants table"),
+)
+
+
+def _unknown_lubricant_notes(codes: np.ndarray, known: list) -> np.ndarray:
+    """A note per row whose lubricant code is not in the table, naming the nearest known codes."""
+    row_codes, uniques = pd.factorize(codes, use_na_sentinel=True)
+    notes = []
+    for code in uniques:
+        if code in known:
+            notes.append(None)
+            continue
+        near = difflib.get_close_matches(str(code), known, n=3, cutoff=0.5)
+        notes.append(f"lubricant code '{code}' is not in the rule set's lubricants table"
+                     + (f" (nearest: {', '.join(near)})" if near else "")
+                     + "; its new-oil values are missing, so rules on change from new oil are not evaluated")
+    return np.array(notes + [None], dtype=object)[row_codes]
+
 
 # Bound columns of a censored measure in the measured frame (the evaluator reads them).
 BOUND_SUFFIXES = (":low", ":high", ":low_open", ":high_open", WRITTEN_SUFFIX)
@@ -167,7 +192,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
 
     for name, b in found.items():
         out.update(_bound_columns(name, b))
-    frame = pd.DataFrame(out, index=samples.index, copy=False)
+    out["unknown_lubricant_note"] = _unknown_lubricant_notes(lubricant.to_numpy(dtype=object), list(lubricants))
     for name, series in fields.items():
-        frame[name] = series.astype(object)
-    return frame
+        out[name] = series.astype(object).to_numpy(dtype=object)
+    return pd.DataFrame(out, index=samples.index, copy=False)

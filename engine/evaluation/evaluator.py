@@ -9,6 +9,7 @@ are read from it afterwards.
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
 
 import numpy as np
@@ -16,6 +17,7 @@ import pandas as pd
 
 from sumpwise.intake.censored import Bounds, interval_truth
 from sumpwise.ruleset.model import LadderRule, RuleSet
+from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 
 # Outcome codes in the per-rule matrices; 0 and above are ladder levels.
@@ -254,3 +256,36 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
     level = final.max(axis=1, initial=NOT_APPLICABLE) if len(slots) else np.full(n, NOT_APPLICABLE)
     level = np.where(level >= 0, level, -1).astype(np.int8)
     return Outcome(slots, raw, final, caveats, capping_all, unchecked, leaves, level, known_class)
+
+
+# No silent pass: a sample whose class the rule set lacks, or on which most of its class's
+# rules could not be evaluated, carries a caveat the table, report and summary show.
+COVERAGE_CAVEATS = (
+    EngineCaveat("unknown-class", "unknown_class_note", "sumpwise engine: the rule set's classes"),
+    EngineCaveat("few-rules-evaluated", "few_rules_note",
+                 "sumpwise engine: rules of the class not evaluated for missing or undecided values"),
+)
+
+
+def coverage_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> dict:
+    """The coverage caveats' per-row notes (None where a caveat does not apply)."""
+    n = len(measured)
+    unknown = np.full(n, None, dtype=object)
+    if n:
+        classes = measured["class"].to_numpy(dtype=object)
+        codes, uniques = pd.factorize(classes, use_na_sentinel=True)
+        texts = []
+        for name in uniques:
+            near = difflib.get_close_matches(str(name), list(ruleset.classes), n=3, cutoff=0.5)
+            texts.append(f"class '{name}' is not in the rule set '{ruleset.id}'"
+                         + (f" (nearest: {', '.join(near)})" if near else "") + "; no rules apply, so it is unrated")
+        unknown = np.array(texts + [None], dtype=object)[codes]
+        unknown[outcome.known_class] = None
+    applicable = (outcome.raw != NOT_APPLICABLE).sum(axis=1)
+    gaps = (outcome.final == NOT_EVALUATED).sum(axis=1)
+    most = (applicable > 0) & (2 * gaps > applicable)
+    few = np.full(n, None, dtype=object)
+    for pair in set(zip(gaps[most].tolist(), applicable[most].tolist())):  # a few distinct counts
+        few[most & (gaps == pair[0]) & (applicable == pair[1])] = (
+            f"{pair[0]} of the {pair[1]} rules of its class could not be evaluated; the grade rests on the rest")
+    return {"unknown_class_note": unknown, "few_rules_note": few}

@@ -7,8 +7,8 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from sumpwise.evaluation.evaluator import evaluate
-from sumpwise.derive.row_measures import derive_measures
+from sumpwise.evaluation.evaluator import COVERAGE_CAVEATS, coverage_notes, evaluate
+from sumpwise.derive.row_measures import LUBRICANT_CAVEATS, derive_measures
 from sumpwise.vocabulary.measures import INPUT_MEASURES
 from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
@@ -29,11 +29,15 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     for column in SPECTRUM_COLUMNS:
         measured[column] = batch.frame[column] if column in batch.frame.columns else None
     outcome = evaluate(ruleset, measured)
+    measured = pd.concat([measured, pd.DataFrame(coverage_notes(ruleset, measured, outcome), index=measured.index)],
+                         axis=1)
+    intake_flags = [measured[c.message_column].notna().to_numpy() for c in LUBRICANT_CAVEATS + COVERAGE_CAVEATS]
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
-                                                  spectrum_caveat_flags(measured)]))
+                                                  spectrum_caveat_flags(measured),
+                                                  np.stack(intake_flags, axis=1)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
-                       TREND_CAVEATS + SPECTRUM_CAVEATS)
+                       TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS)
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:

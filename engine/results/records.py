@@ -92,8 +92,8 @@ class CaveatNote:
 
 @dataclass(frozen=True)
 class NotEvaluated:
-    """A rule not evaluated: the values it lacked, and censored readings (as written) that
-    did not decide it (`<50` against `above 20`)."""
+    """A rule not evaluated: the inputs it had no number for, and of those the censored
+    readings (as written) that did not decide it (`<50` against `above 20`)."""
 
     rule: str
     missing: tuple
@@ -233,7 +233,8 @@ class _RealValues:
 def _written(measured: pd.DataFrame, name: str, i: int):
     """A censored reading's text as written (`<50`), or None (intake.censored)."""
     column = name + ":written"
-    return measured[column].iat[i] if column in measured.columns else None
+    value = measured[column].iat[i] if column in measured.columns else None
+    return value if isinstance(value, str) else None
 
 
 def _is_missing(measured: pd.DataFrame, name: str, i: int) -> bool:
@@ -249,10 +250,8 @@ def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
     values = values or _RealValues(batch.measured)
     undecided = tuple((name, values.number(name, i)) for name in rule_inputs(rule)
                       if _written(batch.measured, name, i) is not None)
-    missing = [name for name in rule_inputs(rule) if _is_missing(batch.measured, name, i)
-               and name not in dict(undecided)]
-    if not missing and not undecided:
-        missing = [getattr(rule, "measure", rule.id)]
+    missing = [name for name in rule_inputs(rule) if _is_missing(batch.measured, name, i)]
+    missing = missing or [getattr(rule, "measure", rule.id)]
     return NotEvaluated(rule.id, tuple(missing), undecided)
 
 
