@@ -146,7 +146,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         own = _numbers(samples, f"new_{name}")
         out[f"new_{name}"] = np.where(np.isnan(own), from_table, own)
 
-    fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields)}
+    carried = {"comment"} & set(samples.columns)  # a lab's remark, carried into the record as written
+    fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields) | carried}
     base_from_table = _by_code(lookup, [lub.base_stock for lub in lubricants.values()], None)
     fields["base_stock"] = fields["base_stock"].where(fields["base_stock"].notna(),
                                                       pd.Series(base_from_table, index=samples.index))

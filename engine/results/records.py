@@ -131,6 +131,8 @@ class SampleResult:
     method: str | None = None
     spectrum: str | None = None  # the used-oil spectrum its FTIR measures were read from
     reference_spectrum: str | None = None  # the new-oil spectrum subtracted from it
+    comment: str | None = None  # the lab's free-text remark, when the samples file has a comment column
+    comment_given: bool = False
 
     def to_record(self) -> dict:
         """The JSON Lines record; key names are the contract, key order is fixed."""
@@ -144,6 +146,8 @@ class SampleResult:
                   "not_evaluated": [n.to_record() for n in self.not_evaluated]}
         if self.unrated_because is not None:
             record["unrated_because"] = self.unrated_because
+        if self.comment_given:
+            record["comment"] = self.comment
         record.update(notice=self.notice,
                       ruleset={"id": self.ruleset_id, "version": self.ruleset_version, "sha256": self.ruleset_sha256},
                       engine=self.engine)
@@ -331,7 +335,9 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
         unrated_because=unrated_because,
         values=tuple((name, values.number(name, i)) for name in batch.value_columns),
         method=values.text("method", i), spectrum=values.text("spectrum", i),
-        reference_spectrum=values.text("reference_spectrum", i))
+        reference_spectrum=values.text("reference_spectrum", i),
+        comment=values.text("comment", i) if "comment" in measured.columns else None,
+        comment_given="comment" in measured.columns)
 
 
 def _capped_by(rs: RuleSet, out: Outcome, i: int, rule, final: int) -> str | None:
