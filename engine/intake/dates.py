@@ -1,5 +1,7 @@
 """Sample dates: ISO 8601 read as dates; any other form only with the column map's `date_format`.
 
+ISO 8601 (year first) is read even where a format is declared: it cannot be misread.
+
 A date is kept as ISO 8601 text (`2026-01-15`, or `2026-01-15T08:30:00` with a time), so
 text order is date order everywhere downstream (trends, the ledger, report ranges). A
 date that cannot be read, or that the declared format does not fit, rejects its row: a
@@ -36,14 +38,14 @@ def read_dates(values: np.ndarray, date_format: str | None) -> Dates:
 
 
 def _one(cell: str, date_format: str | None) -> tuple[str | None, str]:
-    if date_format is None:
-        if not _ISO.match(cell):
-            return None, (f"'{cell}' is not an ISO 8601 date (YYYY-MM-DD); declare the lab's form in the column "
-                          f"map (file: {{date_format: '%d/%m/%Y'}})")
+    if _ISO.match(cell):  # year first: unambiguous, read whatever the map declares (workbook dates arrive so)
         try:
             stamp = pd.Timestamp(cell)
         except ValueError:
             return None, f"'{cell}' is not a date that exists"
+    elif date_format is None:
+        return None, (f"'{cell}' is not an ISO 8601 date (YYYY-MM-DD); declare the lab's form in the column "
+                      f"map (file: {{date_format: '%d/%m/%Y'}})")
     else:
         try:
             stamp = pd.to_datetime(cell, format=date_format)
