@@ -79,6 +79,8 @@ def load_column_map(path, extra_names=()) -> ColumnMap:
         if isinstance(spec, str) and spec:
             found.columns[name] = spec
             continue
+        if isinstance(spec, dict):  # YAML reads a bare `true:`/`false:` key as a boolean
+            spec = {(str(k).lower() if str(k).lower() in ("true", "false") else k): v for k, v in spec.items()}
         if not isinstance(spec, dict) or not spec or set(spec) - _ENTRY_KEYS:
             extra = sorted(set(spec) - _ENTRY_KEYS) if isinstance(spec, dict) else []
             problems.append(doc.problem((name,), f"'{name}' must map to a column name, or to a mapping of "

@@ -163,7 +163,7 @@ def read_jsonl(text: str) -> RawTable:
     kept = [lines[k - 1] for k in numbers]
     skipped = []
     try:
-        records = json.loads("[" + ",".join(kept) + "]")
+        records = json.loads("[" + ",".join(kept) + "]", parse_constant=str)  # NaN, Infinity: kept as text
         if len(records) != len(kept):  # a line holding two values separated by a comma
             raise ValueError
         good = np.ones(len(kept), dtype=bool)
@@ -171,7 +171,7 @@ def read_jsonl(text: str) -> RawTable:
         records, good = [], np.zeros(len(kept), dtype=bool)
         for k, line in enumerate(kept):
             try:
-                records.append(json.loads(line))
+                records.append(json.loads(line, parse_constant=str))
                 good[k] = True
             except json.JSONDecodeError as exc:
                 skipped.append((int(numbers[k]), f"not valid JSON: {exc.msg} at column {exc.colno}", "D001"))

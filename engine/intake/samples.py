@@ -212,13 +212,14 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         raw[column] = values
         if censored is not None:
-            raw[column + CENSORED_SUFFIX] = censored
-            raw[column + WRITTEN_SUFFIX] = np.where(censored != None, text.to_numpy(dtype=object), None)  # noqa: E711
+            raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)
+            written = np.where(censored != None, text.to_numpy(dtype=object), None)  # noqa: E711
+            raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
 
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
         reject(dates.bad, "sampled_on", dates.reasons, "D009")
-        raw["sampled_on"] = dates.text
+        raw["sampled_on"] = pd.Series(dates.text, index=raw.index, dtype=object)
     for flag in FLAG_FIELDS:
         if flag in raw.columns:
             raw[flag] = _flag_text(raw[flag], columns.flags.get(flag, {}))
