@@ -89,8 +89,10 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
             raw = read_xlsx(data, columns.option("sheet"))
         else:
             text = decode(data, columns.option("encoding"))
+            utf8 = columns.option("encoding", "utf-8").replace("_", "-").lower() in ("utf-8", "utf8")
             raw = (read_jsonl(text) if fmt == "jsonl" else
-                   read_csv(text, lab_numeric, columns.option("delimiter"), columns.option("decimal")))
+                   read_csv(text, lab_numeric, columns.option("delimiter"), columns.option("decimal"),
+                            data if utf8 else None))
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
@@ -187,8 +189,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         values, text, not_a_number = _number_column(raw[column], decimal)
         infinite = np.isinf(values)
         if text is not None and not_a_number.any():
-            folded = text.str.casefold().str.strip("+-")
-            infinite |= (not_a_number & folded.isin(("nan", "inf", "infinity")).to_numpy())
+            at = np.flatnonzero(not_a_number)
+            spelled = [str(t).casefold().strip("+-") for t in text.to_numpy(dtype=object)[at]]
+            infinite[at[np.isin(spelled, ("nan", "inf", "infinity"))]] = True
         if infinite.any():
             reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D008")
             values = np.where(infinite, np.nan, values)
@@ -199,8 +202,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
                                   None if limit is None else limit * factor)
             if cells.bad.any():
-                reject(cells.bad, column, ("expected a number or a censored reading such as <0.05, found '"
-                                           + text + "'").to_numpy(dtype=object), "D004")
+                reject(cells.bad, column, _found("expected a number or a censored reading such as <0.05, found ",
+                                                 text, cells.bad, quoted=True), "D004")
             if (cells.censored != None).any():  # noqa: E711 (elementwise)
                 censored = cells.censored
         domain = domain_of(column)
@@ -281,26 +284,44 @@ def _text_column(column: pd.Series) -> pd.Series:
     return pd.Series(cleaned[codes], index=column.index, dtype=object)
 
 
+_NUMBER_LEADS = list("0123456789.-+")
+
+
 def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, pd.Series | None, np.ndarray]:
-    """(float values, the text as written where not a number, cells that are not numbers)."""
+    """(float values, the text as written where not a number, cells that are not numbers).
+
+    Text cells are handled with numpy's string functions (C loops): stripped, the decimal
+    mark swapped, and cells that start like a number converted in one call.
+    """
     if column.dtype.kind in "fiu":
         return column.to_numpy(dtype=float), None, np.zeros(len(column), dtype=bool)
-    original = column.astype(object)
-    if pd.api.types.infer_dtype(original, skipna=True) in ("string", "empty", "floating", "integer", "mixed-integer-float"):
-        is_bool = np.zeros(len(original), dtype=bool)
+    values = column.to_numpy(dtype=object)
+    present = pd.notna(values)
+    if pd.api.types.infer_dtype(values, skipna=True) in ("string", "empty", "floating", "integer",
+                                                         "mixed-integer-float"):
+        is_bool = np.zeros(len(values), dtype=bool)
     else:
-        is_bool = original.map(lambda v: isinstance(v, bool)).to_numpy(dtype=bool)
-    text = original.where(original.notna(), "").astype(str).str.strip()
-    spelled = text.str.replace(decimal, ".", regex=False) if decimal != "." else text
-    parsed = pd.to_numeric(spelled.where(~is_bool, "x"), errors="coerce").to_numpy(dtype=float)
-    not_a_number = (text != "").to_numpy() & np.isnan(parsed)
-    return parsed, text, not_a_number
+        is_bool = np.fromiter((isinstance(v, bool) for v in values), dtype=bool, count=len(values))
+    text = np.strings.strip(np.where(present & ~is_bool, values, "").astype(str))
+    spelled = np.strings.replace(text, decimal, ".") if decimal != "." else text
+    looks = np.isin(np.strings.slice(spelled, 0, 1), _NUMBER_LEADS)
+    parsed = np.full(len(values), np.nan)
+    try:
+        parsed[looks] = spelled[looks].astype(float)
+    except ValueError:  # a cell like `1.2.3` or `12 ppm`: convert cell by cell, badly formed ones become NaN
+        parsed[looks] = pd.to_numeric(spelled[looks].astype(object), errors="coerce")
+    shown = text.astype(object)
+    if is_bool.any():  # JSON true/false in a number column: not a number, quoted as written
+        shown[is_bool] = [str(v).lower() for v in values[is_bool]]
+    not_a_number = ((text != "") | is_bool) & np.isnan(parsed)
+    return parsed, pd.Series(shown, index=column.index, dtype=object), not_a_number
 
 
-def _found(prefix: str, column: pd.Series, mask: np.ndarray) -> np.ndarray:
+def _found(prefix: str, column: pd.Series, mask: np.ndarray, quoted: bool = False) -> np.ndarray:
     """Reasons quoting the offending cells; only the few offending cells are formatted."""
     reasons = np.full(len(column), "", dtype=object)
     for k in np.flatnonzero(mask):
         value = column.iat[k]
-        reasons[k] = prefix + (f"{value:g}" if isinstance(value, float) else str(value).strip())
+        value = f"{value:g}" if isinstance(value, float) else str(value).strip()
+        reasons[k] = prefix + (f"'{value}'" if quoted else value)
     return reasons
