@@ -60,6 +60,11 @@ def synthetic(n: int, seed: int = 11) -> pd.DataFrame:
     })
 
 
+# A lab censors at its method's reporting limits, a few per column: (below, above) as it writes them.
+LIMITS = {"oil_hours": ("<100", ">40000"), "kv40": ("<2,0", ">1000"), "kv100": ("<1,0", ">100"),
+          "an": ("<0,05", ">5,0"), "water": ("<0,001", ">0,5"), "oxidation": ("<0,01", ">0,5")}
+
+
 def lab_export(frame: pd.DataFrame, seed: int = 12) -> pd.DataFrame:
     """The same rows as a lab writes them: decimal commas, 5 % of numeric cells censored."""
     rng = np.random.default_rng(seed)
@@ -68,8 +73,8 @@ def lab_export(frame: pd.DataFrame, seed: int = 12) -> pd.DataFrame:
         text = out[name].astype(str).str.replace(".", ",", regex=False).to_numpy(dtype=object)
         cut = rng.random(len(out)) < 0.05
         kind = rng.choice(["<", ">", "ND"], len(out))
-        text[cut & (kind == "<")] = "<" + text[cut & (kind == "<")]
-        text[cut & (kind == ">")] = ">" + text[cut & (kind == ">")]
+        text[cut & (kind == "<")] = LIMITS[name][0]
+        text[cut & (kind == ">")] = LIMITS[name][1]
         text[cut & (kind == "ND")] = "ND"
         out[name] = text
     return out.rename(columns=LAB_NAMES)

@@ -307,13 +307,14 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     looks = np.isin(np.strings.slice(spelled, 0, 1), _NUMBER_LEADS)
     parsed = np.full(len(values), np.nan)
     try:
-        parsed[looks] = spelled[looks].astype(float)
+        parsed[looks] = np.array(spelled[looks].tolist(), dtype=float)  # Python's float(), twice numpy's speed
     except ValueError:  # a cell like `1.2.3` or `12 ppm`: convert cell by cell, badly formed ones become NaN
         parsed[looks] = pd.to_numeric(spelled[looks].astype(object), errors="coerce")
-    shown = text.astype(object)
+    not_a_number = ((text != "") | is_bool) & np.isnan(parsed)
+    shown = np.full(len(values), None, dtype=object)  # the text of the cells that are not numbers only
+    shown[not_a_number] = text[not_a_number]
     if is_bool.any():  # JSON true/false in a number column: not a number, quoted as written
         shown[is_bool] = [str(v).lower() for v in values[is_bool]]
-    not_a_number = ((text != "") | is_bool) & np.isnan(parsed)
     return parsed, pd.Series(shown, index=column.index, dtype=object), not_a_number
 
 
