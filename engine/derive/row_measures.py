@@ -11,10 +11,12 @@ import pandas as pd
 
 import difflib
 
+from sumpwise.derive.cleanliness import cleanliness_measures
 from sumpwise.derive.viscosity import viscosity_index
-from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
-from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES, ROW_MEASURES
+from sumpwise.vocabulary.caveats import EngineCaveat
+from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
+                                         ROW_MEASURES)
 
 # A lubricant code the rule set does not know: its new-oil values are missing, and the
 # sample must say so where people look, not only in its not-evaluated list.
@@ -190,6 +192,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
             values = np.round(out[name], DECIMALS)
             out[name] = np.where(np.isfinite(values), values, np.nan)
     out["vi"] = viscosity_index(out["kv40"], out["kv100"])
+    out.update(cleanliness_measures(fields["iso4406"].to_numpy(dtype=object),
+                                    {size: out[f"particles_{size}"] for size in ISO4406_SIZES}))
 
     for name, b in found.items():
         out.update(_bound_columns(name, b))

@@ -153,7 +153,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     for column in raw.columns:
         nested = nested_cells(raw[column])
         if nested.any():
-            rejects.extend(Reject(int(r), None, column, "a list or object where one value was expected", "D010")
+            rejects.extend(Reject(int(r), None, column, "a list or object where one value was expected", "D011")
                            for r in raw.index[nested])
             raw.loc[nested, column] = None
     bad = np.zeros(len(raw), dtype=bool)
@@ -193,7 +193,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             spelled = [str(t).casefold().strip("+-") for t in text.to_numpy(dtype=object)[at]]
             infinite[at[np.isin(spelled, ("nan", "inf", "infinity"))]] = True
         if infinite.any():
-            reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D008")
+            reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D009")
             values = np.where(infinite, np.nan, values)
             not_a_number &= ~infinite
         censored = None
@@ -221,7 +221,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
 
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
-        reject(dates.bad, "sampled_on", dates.reasons, "D009")
+        reject(dates.bad, "sampled_on", dates.reasons, "D010")
         raw["sampled_on"] = pd.Series(dates.text, index=raw.index, dtype=object)
     for flag in FLAG_FIELDS:
         if flag in raw.columns:

@@ -34,6 +34,7 @@ from sumpwise.render.jsonl import dumps, jsonl_lines
 from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import SampleBatch
+from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.trends import CHAIN_COLUMNS, read_oil_changes
 
 DEFAULT_PATH = "sumpwise.db"
@@ -306,7 +307,8 @@ def grade_into_ledger(path, batch: SampleBatch, ruleset: RuleSet, correction: bo
     try:
         begin(conn)
         try:
-            graded, recorded = _record(conn, path, read_oil_changes(batch), ruleset, correction)
+            graded, recorded = _record(conn, path, read_cleanliness_codes(read_oil_changes(batch)), ruleset,
+                                       correction)
             _test_pause()
             conn.execute("COMMIT")
         except BaseException:

@@ -191,6 +191,8 @@ class RuleSet:
     canonical: str = field(repr=False)
     sha256: str = ""
     examples: tuple = ()
+    # measure -> the step (canonical unit) a trend must exceed to count as a rise (`noise_margins:`)
+    noise_margins: dict = field(default_factory=dict)
     # Where each class was last declared, and each file's `units:`: marks for lint messages.
     class_origins: dict = field(default_factory=dict, compare=False, repr=False)
     file_units: dict = field(default_factory=dict, compare=False, repr=False)
@@ -220,7 +222,3 @@ def condition_measures(condition) -> list[str]:
     """Every measure a condition reads, in the order written."""
     return [leaf.measure for leaf in leaves(condition) if leaf.kind != "field"]
 
-
-def condition_fields(condition) -> list[str]:
-    """Every text field a condition reads, in the order written."""
-    return [leaf.field for leaf in leaves(condition) if leaf.kind == "field"]
