@@ -348,8 +348,11 @@ def _grade(args, stdin, stdout, stderr) -> int:
         code = USAGE
     if args.summary:
         report = {"files": files, "total": total, "warnings": warnings, "exit": code}
-        with open(args.summary, "w", encoding="utf-8") as handle:
-            handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
+        try:
+            with open(args.summary, "w", encoding="utf-8") as handle:
+                handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
+        except OSError as exc:
+            raise InputError(f"--summary {args.summary}: cannot write it: {exc.strerror or exc}") from None
     return code
 
 
