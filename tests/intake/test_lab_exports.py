@@ -134,3 +134,14 @@ def test_cli_reads_the_export_with_its_map_and_lists_unused_columns_once():
     assert run.code == 0
     assert run.err.count("lab columns not used: Lab ref") == 1
     assert "rejected D010: sampled_on" in run.err
+
+
+def test_censored_readings_and_comments_go_through_the_ledger(tmp_path):
+    db = tmp_path / "ledger.db"
+    assert run_cli("grade", EXPORT, "--columns", MAP, "--rules", SITE, "--db", db).code == 0
+    replay = run_cli("replay", "--db", db)
+    assert replay.code == 0 and "every result matches its record" in replay.out
+    told = run_cli("explain", "BP-S3", "--db", db)
+    assert told.code == 0
+    assert "kv40 >50" in told.out and "Lab comment: oil changed last week" in told.out
+    assert "oil_hours written '>20000' does" in told.out
