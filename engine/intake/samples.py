@@ -135,10 +135,15 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     if clash:
         notes.append(f"columns {', '.join(clash)} not used: the column map reads these names from other columns")
     for measure, value in columns.constants.items():
+        if measure in raw.columns:
+            notes.append(f"column {measure} not used: the column map gives it the value {value!r} for every row")
         raw[measure] = str(value) if measure not in NUMERIC_COLUMNS and measure not in numeric else value
-    methods = set(columns.methods.values())
+    methods = sorted(set(columns.methods.values()))
+    if len(methods) > 1 and "method" not in raw.columns:
+        raise InputError(f"{name}: the column map declares FTIR methods {' and '.join(methods)} for different "
+                         f"columns, but a sample has one method: map a `method` column instead")
     if methods and "method" not in raw.columns:
-        raw["method"] = methods.pop() if len(methods) == 1 else None
+        raw["method"] = methods[0]
     known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
     unused = [c for c in raw.columns if c not in known and c not in mapped]
     if unused and (columns.columns or columns.constants):
@@ -153,8 +158,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     for column in raw.columns:
         nested = nested_cells(raw[column])
         if nested.any():
-            rejects.extend(Reject(int(r), None, column, "a list or object where one value was expected", "D011")
-                           for r in raw.index[nested])
+            ids = raw["sample_id"].to_numpy(dtype=object)[nested]
+            rejects.extend(Reject(int(r), sid if isinstance(sid, str) and sid.strip() else None, column,
+                                  "a list or object where one value was expected", "D011")
+                           for r, sid in zip(raw.index[nested], ids))
             raw.loc[nested, column] = None
     bad = np.zeros(len(raw), dtype=bool)
     if rejects:

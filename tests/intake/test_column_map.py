@@ -63,3 +63,12 @@ def test_unused_lab_columns_are_named_once(tmp_path):
     columns = load_column_map(_map(tmp_path, "sample_id: Id\nclass: Type\n"))
     batch = read_samples(io.StringIO("Id,Type,Fe ppm,Remarks2\nA,gearbox,12,x\n"), columns=columns)
     assert batch.notes == ("lab columns not used: Fe ppm, Remarks2",)
+
+
+def test_two_ftir_methods_for_one_sample_are_refused(tmp_path):
+    from sumpwise.vocabulary.problems import InputError
+    columns = load_column_map(_map(tmp_path, "sample_id: Id\nclass: {value: gearbox}\n"
+                                             "oxidation: {column: Ox, method: subtraction}\n"
+                                             "nitration: {column: Nit, method: direct}\n"))
+    with pytest.raises(InputError, match="declares FTIR methods direct and subtraction"):
+        read_samples(io.StringIO("Id,Ox,Nit\nA,12,3\n"), columns=columns)

@@ -68,7 +68,7 @@ def test_a_nested_json_value_rejects_its_row_with_the_field():
     lines = ('{"sample_id": "J1", "class": "gearbox", "an": 0.5}\n'
              '{"sample_id": "J3", "class": "gearbox", "tags": ["a", "b"]}\n')
     batch = read_samples(io.StringIO(lines), "x.jsonl")
-    assert _rejects(batch) == [(2, None, "tags", "D011")]
+    assert _rejects(batch) == [(2, "J3", "tags", "D011")]
     assert batch.frame["sample_id"].tolist() == ["J1"]
 
 
