@@ -40,9 +40,6 @@ def _unknown_lubricant_notes(codes: np.ndarray, known: list) -> np.ndarray:
     return np.array(notes + [None], dtype=object)[row_codes]
 
 
-# Bound columns of a censored measure in the measured frame (the evaluator reads them).
-BOUND_SUFFIXES = (":low", ":high", ":low_open", ":high_open", WRITTEN_SUFFIX)
-
 # Derived measures that carry a censored input's bounds: how each is computed, and whether it
 # rises (+1) or falls (-1) with each input that may be censored. Each is monotonic in those
 # inputs (new-oil values and hours are positive), so the interval's ends map to the ends.
@@ -95,6 +92,7 @@ def _carried_bounds(name: str, inputs: dict, formula, out: dict, found: dict) ->
 
 
 def _bound_columns(name: str, b: Bounds) -> dict:
+    """A censored measure's interval as columns of the measured frame (the evaluator reads them)."""
     rows = b.censored
     return {name + ":low": np.where(rows, b.low, np.nan), name + ":high": np.where(rows, b.high, np.nan),
             name + ":low_open": b.low_open & rows, name + ":high_open": b.high_open & rows,

@@ -38,13 +38,12 @@ _SIGN = {"<": "<", ">": ">", "<=": "<=", ">=": ">=", "\u2264": "<=", "\u2265": "
 class CensoredCells:
     """What the cells that are not plain numbers of one column turned out to be.
 
-    Arrays are aligned with the column: `censored` text (or None), `missing` (a no-reading
-    spelling, or ND without a detection limit), `bad` (neither: the row is rejected), and
-    `bad_bound` (a bound that is not a finite number).
+    Arrays are aligned with the column: `censored` text (or None) and `bad` (neither censored
+    nor a spelling of "no reading", or a bound that is not a finite number: the row is
+    rejected). The rest (`N/A`, ND without a detection limit) stay missing.
     """
 
     censored: np.ndarray
-    missing: np.ndarray
     bad: np.ndarray
 
 
@@ -62,10 +61,9 @@ def read_censored(text: np.ndarray, candidates: np.ndarray, decimal: str, factor
     """
     n = len(text)
     censored = np.full(n, None, dtype=object)
-    missing = np.zeros(n, dtype=bool)
     bad = np.zeros(n, dtype=bool)
     if not candidates.any():
-        return CensoredCells(censored, missing, bad)
+        return CensoredCells(censored, bad)
     at = np.flatnonzero(candidates)
     codes, uniques = pd.factorize(text[at])
     kinds = np.zeros(len(uniques), dtype=np.int8)  # 0 bad, 1 censored, 2 missing
@@ -74,9 +72,8 @@ def read_censored(text: np.ndarray, candidates: np.ndarray, decimal: str, factor
         kinds[k], spelled[k] = _classify(str(cell), decimal, factor, detection_limit)
     kind = kinds[codes]
     censored[at[kind == 1]] = spelled[codes][kind == 1]
-    missing[at[kind == 2]] = True
     bad[at[kind == 0]] = True
-    return CensoredCells(censored, missing, bad)
+    return CensoredCells(censored, bad)
 
 
 def _classify(cell: str, decimal: str, factor: float, detection_limit: float | None) -> tuple[int, str | None]:
