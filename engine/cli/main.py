@@ -100,6 +100,7 @@ def _parser(stdout) -> _Parser:
                        help="exit 2 when more than N rows in all are rejected (results are still written)")
     grade.add_argument("--summary", metavar="FILE",
                        help="write the run's counts per file and in total, notes and warnings as JSON")
+    authoring_cli.add_example_guard(grade)
     ledger_cli.add_grade_arguments(grade)
 
     explain = commands.add_parser("explain", help="tell the story of one sample's grade", out=stdout,
@@ -293,6 +294,8 @@ WARNING_CAVEATS = ("unknown-lubricant", "unknown-class", "few-rules-evaluated")
 
 def _grade(args, stdin, stdout, stderr) -> int:
     ruleset, columns = _rules_and_map(args)
+    if not authoring_cli.examples_hold(ruleset, args, stderr):
+        return USAGE
     fail_levels, fail_unrated = [], False
     for name in args.fail_at:
         if name == UNRATED:

@@ -83,7 +83,7 @@ def read_cleanliness_codes(batch: SampleBatch) -> SampleBatch:
     bad = np.isin(codes, list(problems))
     frame = batch.frame[~bad].copy()
     ids = batch.frame["sample_id"].to_numpy(dtype=object)[bad]
-    rejects = [Reject(int(row), sid, "iso4406", problems[code], "D007")
+    rejects = [Reject(int(row), sid, "iso4406", problems[code], "D012")
                for row, sid, code in zip(batch.frame.index[bad], ids, codes[bad])]
     rejects = tuple(sorted(batch.rejects + tuple(rejects), key=lambda r: (r.row, r.field)))
     return replace(batch, frame=frame, rejects=rejects)

@@ -18,7 +18,7 @@ from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censo
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
 from sumpwise.intake.readers import RawTable, check_header, decode, nested_cells, read_csv, read_jsonl, read_xlsx
-from sumpwise.vocabulary.measures import DECIMALS, NOT_NEGATIVE, POSITIVE, UNIT_FAMILY, domain_of
+from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.units import factor_to_canonical
 
@@ -216,10 +216,13 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         domain = domain_of(column)
         if domain == POSITIVE and (values <= 0).any():
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
-        elif domain == NOT_NEGATIVE and (values < 0).any():
+        elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
+        if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
+            reject(beyond, column, _found(f"cannot be above {domain[-1].high:g} {INPUT_MEASURES.get(column, '')}, "
+                                          f"found ", raw[column], beyond), "D005")
         raw[column] = values
         if censored is not None:
             raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)

@@ -91,4 +91,4 @@ def test_an_unreadable_code_rejects_its_row_with_field_and_code():
                          index=[1, 2, 3])
     batch = read_cleanliness_codes(SampleBatch(frame, (), 3, "t.csv"))
     assert batch.frame["sample_id"].tolist() == ["A", "C"]
-    assert [(r.row, r.sample_id, r.field, r.code) for r in batch.rejects] == [(2, "B", "iso4406", "D007")]
+    assert [(r.row, r.sample_id, r.field, r.code) for r in batch.rejects] == [(2, "B", "iso4406", "D012")]

@@ -113,11 +113,11 @@ def _compile(tmp_path, text):
 def test_a_margin_for_a_measure_without_trends_or_a_bad_code_is_a_problem(tmp_path):
     with pytest.raises(InvalidFile) as caught:
         _compile(tmp_path, "noise_margins: {vi: 1, oil_hours: 5}\n")
-    assert sorted(p.code for p in caught.value.problems) == ["C011", "C011"]
+    assert sorted(p.code for p in caught.value.problems) == ["C014", "C014"]
     with pytest.raises(InvalidFile) as caught:
         _compile(tmp_path, "classes:\n  hydraulic:\n    rules:\n      - id: c\n        iso4406: {watch: 17-15-12}\n"
                            "        message: m\n        source: s\n")
-    assert [(p.code, p.line) for p in caught.value.problems] == [("C012", 7)]
+    assert [(p.code, p.line) for p in caught.value.problems] == [("C015", 7)]
 
 
 def test_margins_and_iso4406_rules_in_canonical_form_reload_to_the_same_fingerprint(tmp_path):
