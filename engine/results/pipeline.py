@@ -31,8 +31,10 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     bases = trend_bases(ruleset)
     measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, bases,
                                   noise_margins(ruleset, bases))
-    for column in SPECTRUM_COLUMNS:
-        measured[column] = batch.frame[column] if column in batch.frame.columns else None
+    spectra = {column: (batch.frame[column].to_numpy(dtype=object) if column in batch.frame.columns
+                        else np.full(len(measured), None, dtype=object)) for column in SPECTRUM_COLUMNS}
+    measured = pd.concat([measured.drop(columns=[c for c in spectra if c in measured.columns]),
+                          pd.DataFrame(spectra, index=measured.index)], axis=1)  # one insert, not many
     outcome = evaluate(ruleset, measured)
     measured = pd.concat([measured, pd.DataFrame(coverage_notes(ruleset, measured, outcome), index=measured.index)],
                          axis=1)
