@@ -25,11 +25,12 @@ from sumpwise.results.pipeline import grade_batch
 from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
-from sumpwise.render.table import write_table
+from sumpwise.render.table import FIRST_CAVEATS, write_table
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.results.records import UNRATED
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
+from sumpwise.intake.spectra.batch import check_path_length
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
 
@@ -167,12 +168,9 @@ def _count(text: str) -> int:
 
 def _positive_mm(text: str) -> float:
     try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a path length in mm, found {text!r}") from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"the path length must be above 0 mm, found {text!r}")
-    return value
+        return check_path_length(text, "--path-length")
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
@@ -289,7 +287,7 @@ def _file_summary(graded, notes) -> dict:
 
 
 # Engine caveats that mean a sample may be graded on less than it should: warned about in the summary.
-WARNING_CAVEATS = ("unknown-lubricant", "unknown-class", "few-rules-evaluated")
+WARNING_CAVEATS = FIRST_CAVEATS
 
 
 def _grade(args, stdin, stdout, stderr) -> int:

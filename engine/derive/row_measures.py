@@ -14,6 +14,7 @@ import difflib
 from sumpwise.derive.cleanliness import cleanliness_measures
 from sumpwise.derive.viscosity import viscosity_index
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
+from sumpwise.vocabulary.base_stocks import family_of
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
                                          ROW_MEASURES)
@@ -50,6 +51,8 @@ BOUNDED = (
     ("oxidation_rise", {"oxidation": 1}, lambda v: v["oxidation"] - v["new_oxidation"]),
     ("oxidation_rise_per_1000h", {"oxidation_rise": 1}, lambda v: v["oxidation_rise"] * v["per_hour"]),
     ("an_rise_per_1000h", {"an_rise": 1}, lambda v: v["an_rise"] * v["per_hour"]),
+    ("oxidation_differential_per_1000h", {"oxidation_differential": 1},
+     lambda v: v["oxidation_differential"] * v["per_hour"]),
     ("bn_retained_pct", {"bn": 1}, lambda v: v["bn"] / v["new_bn"] * 100.0),
     ("rpvot_retained_pct", {"rpvot": 1}, lambda v: v["rpvot"] / v["new_rpvot"] * 100.0),
     ("bn_minus_an", {"bn": 1, "an": -1}, lambda v: v["bn"] - v["an"]),
@@ -154,11 +157,21 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
     method_codes, method_names = pd.factorize(fields["method"].to_numpy(dtype=object))
     method = pd.Series(np.array([str(m).lower() for m in method_names] + ["direct"], dtype=object)[method_codes],
                        index=samples.index, dtype=object)
+    # a row giving only a differential reading (a column mapped to it) and no method is a differential one
+    only_differential = (method_codes < 0) & np.isnan(out["oxidation"]) & ~np.isnan(out["oxidation_differential"])
+    method[only_differential] = "subtraction"
     fields["method"] = method
 
+    # FTIR conventions never mix: a differential (subtraction) reading is its own measure,
+    # and the direct `oxidation`, its rise and its trends stay empty on that row.
     subtraction = (method == "subtraction").to_numpy()
-    # A subtraction reading has the new oil removed already: its reference is zero by construction.
-    out["new_oxidation"] = np.where(subtraction, 0.0, out["new_oxidation"])
+    given = subtraction & ~np.isnan(out["oxidation"])
+    out["oxidation_differential"] = np.where(given, out["oxidation"], out["oxidation_differential"])
+    out["oxidation"] = np.where(subtraction, np.nan, out["oxidation"])
+    family_codes, family_names = pd.factorize(fields["base_stock"].to_numpy(dtype=object))
+    families = [family_of(n) for n in family_names] + [None]
+    fields["base_stock_family"] = pd.Series(np.array(families, dtype=object)[family_codes], index=samples.index,
+                                            dtype=object)
 
     hours = out["oil_hours"]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -169,6 +182,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         per_hour = np.where(hours > 0, 1000.0 / np.where(hours > 0, hours, 1.0), np.nan)
         out["oxidation_rise_per_1000h"] = out["oxidation_rise"] * per_hour
         out["an_rise_per_1000h"] = out["an_rise"] * per_hour
+        out["oxidation_differential_per_1000h"] = out["oxidation_differential"] * per_hour
         out["bn_retained_pct"] = out["bn"] / out["new_bn"] * 100.0
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]
@@ -178,6 +192,15 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
             texts = samples[name + CENSORED_SUFFIX].to_numpy(dtype=object)
             found[name] = bounds(name, texts, samples[name + WRITTEN_SUFFIX].to_numpy(dtype=object))
             out[name] = np.where(found[name].censored, np.nan, out[name])  # never its bound's number
+    if "oxidation" in found and subtraction.any():
+        # a censored reading on a differential row is a differential reading, as a number is above
+        moved = found["oxidation"]
+        here = moved.censored & subtraction
+        found["oxidation_differential"] = Bounds(here, moved.low, moved.high, moved.low_open, moved.high_open,
+                                                 moved.written)
+        out["oxidation_differential"] = np.where(here, np.nan, out["oxidation_differential"])
+        found["oxidation"] = Bounds(moved.censored & ~subtraction, moved.low, moved.high, moved.low_open,
+                                    moved.high_open, moved.written)
     if found:
         out["per_hour"] = per_hour
         for name, inputs, formula in BOUNDED:

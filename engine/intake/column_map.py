@@ -22,11 +22,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from sumpwise.ruleset.yaml_source import load_yaml
-from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, REFERENCE_VALUES, UNIT_FAMILY
+from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, REFERENCE_VALUES, UNIT_FAMILY, canonical_method
 from sumpwise.vocabulary.problems import InvalidFile
 from sumpwise.vocabulary.units import known_units
 
-FTIR_METHODS = ("direct", "subtraction")
 FLAG_FIELDS = ("oil_changed",)
 # Names a map can give besides measures: fields, the oil-change flag, the lab's free text.
 MAPPABLE_FIELDS = tuple(KNOWN_FIELDS) + FLAG_FIELDS + ("comment", "spectrum")
@@ -149,12 +148,11 @@ def _entry(doc, name: str, spec: dict, found: ColumnMap, problems: list) -> None
                                                                    "for a measure", code="M006"))
         else:
             found.detection_limits[name] = float(limit)
-    if "method" in spec:
-        if spec["method"] not in FTIR_METHODS:
-            problems.append(doc.problem((name, "method"), f"unknown FTIR method {spec['method']!r}; expected one "
-                                                          f"of: {', '.join(FTIR_METHODS)}", code="M006"))
-        else:
-            found.methods[name] = spec["method"]
+    if "method" in spec:  # the one vocabulary of FTIR methods (direct, subtraction, differential)
+        try:
+            found.methods[name] = canonical_method(spec["method"])
+        except ValueError as exc:
+            problems.append(doc.problem((name, "method"), str(exc), code="M006"))
 
 
 def _file_options(doc, spec, found: ColumnMap, problems: list) -> None:

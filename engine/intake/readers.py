@@ -137,7 +137,7 @@ def read_csv(text: str, numeric: set, delimiter: str | None, decimal: str | None
     blank = counts == 0
     wrong = ~blank & (counts != len(header))
     skipped = [(int(line) - 1, f"has {count} field(s), the header has {len(header)}: a row too long or too short "
-                               f"is rejected, its values cannot be matched to columns", "D008")
+                               f"is rejected, its values cannot be matched to columns", "D013")
                for line, count in zip(starts[wrong], counts[wrong])]
     rows = starts[~blank & ~wrong] - 1
     names = [h.strip() for h in header]
@@ -245,7 +245,7 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
             continue
         if any(v is not None for v in values[width:]):
             skipped.append((number, f"has cells beyond the header's {width} columns: a row too long is rejected, "
-                                    f"its values cannot be matched to columns", "D008"))
+                                    f"its values cannot be matched to columns", "D013"))
             continue
         kept.append([_cell(v) for v in (values + [None] * width)[:width]])
         rows.append(number)

@@ -20,6 +20,7 @@ from sumpwise.intake.dates import read_dates
 from sumpwise.intake.readers import RawTable, check_header, decode, nested_cells, read_csv, read_jsonl, read_xlsx
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
+from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
 from sumpwise.vocabulary.units import factor_to_canonical
 
 __all__ = ["ColumnMap", "Reject", "SampleBatch", "load_column_map", "read_samples", "validate_samples"]
@@ -160,7 +161,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if nested.any():
             ids = raw["sample_id"].to_numpy(dtype=object)[nested]
             rejects.extend(Reject(int(r), sid if isinstance(sid, str) and sid.strip() else None, column,
-                                  "a list or object where one value was expected", "D011")
+                                  "a list or object where one value was expected", "D016")
                            for r, sid in zip(raw.index[nested], ids))
             raw.loc[nested, column] = None
     bad = np.zeros(len(raw), dtype=bool)
@@ -200,7 +201,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             spelled = [str(t).casefold().strip("+-") for t in text.to_numpy(dtype=object)[at]]
             infinite[at[np.isin(spelled, ("nan", "inf", "infinity"))]] = True
         if infinite.any():
-            reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D009")
+            reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D014")
             values = np.where(infinite, np.nan, values)
             not_a_number &= ~infinite
         censored = None
@@ -231,11 +232,17 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
 
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
-        reject(dates.bad, "sampled_on", dates.reasons, "D010")
+        reject(dates.bad, "sampled_on", dates.reasons, "D015")
         raw["sampled_on"] = pd.Series(dates.text, index=raw.index, dtype=object)
     for flag in FLAG_FIELDS:
         if flag in raw.columns:
             raw[flag] = _flag_text(raw[flag], columns.flags.get(flag, {}))
+
+    for column, canonical in TEXT_VOCABULARIES.items():  # closed vocabularies: canonical spelling, or reject
+        if column in raw.columns:
+            spelled, why = canonical_texts(raw[column], canonical)
+            reject(why != "", column, why, "D011")
+            raw[column] = spelled
 
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]

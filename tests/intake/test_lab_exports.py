@@ -40,7 +40,7 @@ def test_the_semicolon_export_grades_every_row_or_rejects_it(graded):
     assert graded.counts() == {"read": 6, "graded": 5, "unrated": 0, "rejected": 1}
     (reject,) = graded.rejects
     # 30 February does not exist: the row is rejected with its field, not graded undated.
-    assert (reject.row, reject.sample_id, reject.field, reject.code) == (5, "BP-S5", "sampled_on", "D010")
+    assert (reject.row, reject.sample_id, reject.field, reject.code) == (5, "BP-S5", "sampled_on", "D015")
 
 
 def test_censored_readings_decide_what_they_can(graded):
@@ -133,7 +133,7 @@ def test_cli_reads_the_export_with_its_map_and_lists_unused_columns_once():
     run = run_cli("grade", EXPORT, "--columns", MAP, "--rules", SITE, "--format", "csv")
     assert run.code == 0
     assert run.err.count("lab columns not used: Lab ref") == 1
-    assert "rejected D010: sampled_on" in run.err
+    assert "rejected D015: sampled_on" in run.err
 
 
 def test_censored_readings_and_comments_go_through_the_ledger(tmp_path):

@@ -21,7 +21,7 @@ def test_each_bad_row_is_rejected_with_row_field_and_reason():
     assert reasons[5] == "cannot be negative, found -5"
     assert reasons[6] == "must be above 0, found -46.1"
     assert "has 10 field(s), the header has 9" in reasons[7]
-    assert {r.row: r.code for r in batch.rejects}[7] == "D008"
+    assert {r.row: r.code for r in batch.rejects}[7] == "D013"
     assert list(batch.frame.index) == [1, 8]
     assert batch.rows_read == 8
     assert batch.rejected_rows + len(batch.frame) == batch.rows_read
