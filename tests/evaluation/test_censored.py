@@ -97,3 +97,13 @@ def test_interval_truth_agrees_with_the_exact_region_reasoning(seed):
             inside = covered(part, region, EVERYTHING)
             apart = not can_hold(part, region)
             assert (bool(truth[k]), bool(known[k])) == (inside, inside or apart), (test, limit, part)
+
+
+def test_a_censored_reading_on_a_differential_row_is_a_differential_reading(site):
+    # FTIR conventions never mix (README): `method: subtraction` moves the reading to oxidation_differential
+    graded = grade(read_samples(io.StringIO("sample_id,class,lubricant,method,oxidation\n"
+                                            "D1,hydraulic,HYD-46-M,subtraction,<3\nD2,hydraulic,HYD-46-M,direct,<3\n")),
+                   site)
+    m = graded.measured
+    assert m["oxidation_differential:high"].tolist()[0] == 3.0 and np.isnan(m["oxidation_differential:high"].iat[1])
+    assert np.isnan(m["oxidation:high"].iat[0]) and m["oxidation:high"].iat[1] == 3.0
