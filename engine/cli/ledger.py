@@ -6,9 +6,10 @@ cli.py keeps one short handler a command; the work is here and in ledger.py / au
 from __future__ import annotations
 
 import argparse
-import re
 from pathlib import Path
 
+from sumpwise.cli.options import iso_date
+from sumpwise.render.safe_text import terminal_lines
 from sumpwise.ledger.audit import explain_from_ledger, replay, replay_lines, unit_history, write_history
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.results.pipeline import grade_batch
@@ -43,7 +44,7 @@ def add_history_arguments(parser: argparse.ArgumentParser) -> None:
 
 def add_replay_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser, optional_value=False)
-    parser.add_argument("--since", metavar="DATE", help="only samples taken on or after this ISO date")
+    parser.add_argument("--since", metavar="DATE", type=iso_date, help="only samples taken on or after this ISO date")
 
 
 def grade(args, batch, ruleset, stderr):
@@ -60,7 +61,7 @@ def grade(args, batch, ruleset, stderr):
 
 
 def run_explain(args, stdout) -> int:
-    stdout.write("\n".join(explain_from_ledger(args.db, args.sample_id)) + "\n")
+    stdout.write("\n".join(terminal_lines(explain_from_ledger(args.db, args.sample_id))) + "\n")
     return 0
 
 
@@ -70,10 +71,8 @@ def run_history(args, stdout, stderr) -> int:
 
 
 def run_replay(args, stdout, stderr) -> int:
-    if args.since is not None and not re.fullmatch(r"\d{4}-\d{2}-\d{2}", args.since):
-        raise InputError(f"--since {args.since!r}: expected an ISO date, YYYY-MM-DD")
     report = replay(args.db, args.since)
-    stdout.write("\n".join(replay_lines(report)) + "\n")
+    stdout.write("\n".join(terminal_lines(replay_lines(report))) + "\n")
     if report.differences:
         stdout.write(caution_text("! ") + "\n")
     return FINDINGS if report.differences else 0

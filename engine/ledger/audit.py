@@ -20,6 +20,7 @@ import pandas as pd
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.render.narrative import explain_lines
+from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, current_contents, current_records, fingerprint,
                      history_frame, open_ledger, sample_entries, unit_entries)
@@ -131,16 +132,16 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
 
 def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table") -> None:
     if fmt == "csv":
-        unit.to_csv(stream, index=False, lineterminator="\n")
+        spreadsheet_frame(unit).to_csv(stream, index=False, lineterminator="\n")
     elif fmt == "jsonl":
         stream.write(unit.to_json(orient="records", lines=True, force_ascii=False))
     else:
-        stream.write(f"Unit {unit_id}: {len(unit)} sample(s) in the ledger\n")
-        stream.write("\n".join(trend_table(unit)) + "\n")
+        lines = [f"Unit {unit_id}: {len(unit)} sample(s) in the ledger", *trend_table(unit)]
         fired = unit[unit["fired"] != ""]
         for row in fired.itertuples():
-            stream.write(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
-                         + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else "") + "\n")
+            lines.append(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
+                         + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else ""))
+        stream.write("\n".join(terminal_lines(lines)) + "\n")
         stream.write("\n" + caution_text("! ") + "\n")
 
 
@@ -165,7 +166,8 @@ def _ruleset_from_canonical(canonical: str, sha256: str) -> RuleSet | None:
         return None
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "ruleset.json"
-        path.write_text(canonical, encoding="utf-8")
+        # one value a line: the canonical text is one long line, over the rule-set loader's line limit
+        path.write_text(json.dumps(json.loads(canonical), indent=0), encoding="utf-8")
         ruleset = load_ruleset(path)
     return ruleset if ruleset.sha256 == sha256 else None
 

@@ -13,7 +13,7 @@ from sumpwise.vocabulary.measures import INPUT_MEASURES
 from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
-from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, spectrum_caveat_flags
+from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
 from sumpwise.derive.trends import (TREND_CAVEATS, add_trend_measures, noise_margins, read_oil_changes, trend_bases,
@@ -35,6 +35,7 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
                         else np.full(len(measured), None, dtype=object)) for column in SPECTRUM_COLUMNS}
     measured = pd.concat([measured.drop(columns=[c for c in spectra if c in measured.columns]),
                           pd.DataFrame(spectra, index=measured.index)], axis=1)  # one insert, not many
+    measured["ftir_convention_note"] = convention_notes(measured, ruleset)
     outcome = evaluate(ruleset, measured)
     measured = pd.concat([measured, pd.DataFrame(coverage_notes(ruleset, measured, outcome), index=measured.index)],
                          axis=1)
