@@ -25,6 +25,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_spectra.py
 	$(BIN)/python benchmarks/bench_ledger.py
 	$(BIN)/python benchmarks/bench_report.py
+	$(BIN)/python benchmarks/bench_intake.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import difflib
 import json
 import sys
 from pathlib import Path
@@ -150,6 +151,7 @@ def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
         reasons.append((-final, len(reasons), reason))
     levels = [-key for key, _, _ in reasons]
     level = max(levels + [0]) if evaluated else None
+    caveats.extend(engine_caveats(ruleset, texts.get("lubricant"), class_name, gaps))
     out = {"format": 2, "form": "compact", "sample_id": texts.get("sample_id"), "unit_id": texts.get("unit_id"),
            "class": class_name, "lubricant": texts.get("lubricant"), "sampled_on": texts.get("sampled_on"),
            "oil_changed": FLAGS.get((texts.get("oil_changed") or "").lower(), False),
@@ -165,6 +167,31 @@ def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
     out.update(ruleset={"id": ruleset.id, "version": ruleset.version, "sha256": ruleset.sha256},
                engine=engine_name())
     return out
+
+
+def engine_caveats(ruleset, lubricant, class_name, gaps: list) -> list:
+    """The caveats the engine raises itself on a row: a lubricant code or a class the rule set does not
+    know, and a class most of whose rules could not be evaluated (each with its message)."""
+    notes = []
+    if lubricant is not None and lubricant not in ruleset.lubricants:
+        near = difflib.get_close_matches(lubricant, list(ruleset.lubricants), n=3, cutoff=0.5)
+        notes.append({"caveat": "unknown-lubricant",
+                      "message": f"lubricant code '{lubricant}' is not in the rule set's lubricants table"
+                                 + (f" (nearest: {', '.join(near)})" if near else "")
+                                 + "; its new-oil values are missing, so rules on change from new oil are not "
+                                   "evaluated"})
+    if class_name is not None and class_name not in ruleset.classes:
+        near = difflib.get_close_matches(class_name, list(ruleset.classes), n=3, cutoff=0.5)
+        notes.append({"caveat": "unknown-class",
+                      "message": f"class '{class_name}' is not in the rule set '{ruleset.id}'"
+                                 + (f" (nearest: {', '.join(near)})" if near else "")
+                                 + "; no rules apply, so it is unrated"})
+    applicable = len(ruleset.rules_for(class_name)) if class_name in ruleset.classes else 0
+    if applicable and 2 * len(gaps) > applicable:
+        notes.append({"caveat": "few-rules-evaluated",
+                      "message": f"{len(gaps)} of the {applicable} rules of its class could not be evaluated; "
+                                 f"the grade rests on the rest"})
+    return notes
 
 
 def _plain(value):

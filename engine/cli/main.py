@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import contextlib
 import csv
+import json
 import sys
 import traceback
 from collections import Counter
@@ -25,10 +26,11 @@ from sumpwise.intake.chunked import sample_chunks
 from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
-from sumpwise.render.table import write_table
+from sumpwise.render.table import FIRST_CAVEATS, write_table
 from sumpwise.results.records import FORMS, FULL
 from sumpwise.render.safe_text import spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
+from sumpwise.results.records import UNRATED
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
 from sumpwise.cli import ledger as ledger_cli
@@ -87,7 +89,9 @@ def _parser(stdout) -> _Parser:
     grade = commands.add_parser("grade", help="grade samples against a rule set", out=stdout,
                                 description="Grade every sample; every row read ends up graded, unrated or "
                                             "rejected, and the counts go to standard error.")
-    grade.add_argument("samples", metavar="SAMPLES", help="CSV or JSON Lines file, or - for standard input")
+    grade.add_argument("samples", metavar="SAMPLES", nargs="+",
+                       help="CSV, JSON Lines or .xlsx files or folders of them, or - for standard input; "
+                            "each file is graded on its own, its rows keep their file and row")
     _common_inputs(grade)
     grade.add_argument("--format", choices=("jsonl", "csv", "table"), default="jsonl",
                        help="output format (default jsonl)")
@@ -101,8 +105,13 @@ def _parser(stdout) -> _Parser:
                        help="write results here instead of standard output")
     grade.add_argument("--rejects", metavar="PATH", type=output_file,
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
-    grade.add_argument("--fail-at", metavar="GRADE",
-                       help="exit 3 when any sample reaches this grade or higher")
+    grade.add_argument("--fail-at", metavar="GRADE", action="append", default=[],
+                       help="exit 3 when any sample reaches this grade or higher; `unrated`: when any sample "
+                            "is unrated (repeatable)")
+    grade.add_argument("--max-rejects", metavar="N", type=_count,
+                       help="exit 2 when more than N rows in all are rejected (results are still written)")
+    grade.add_argument("--summary", metavar="FILE",
+                       help="write the run's counts per file and in total, notes and warnings as JSON")
     authoring_cli.add_example_guard(grade)
     ledger_cli.add_grade_arguments(grade)
 
@@ -154,7 +163,7 @@ def _parser(stdout) -> _Parser:
 def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True) -> None:
     parser.add_argument("--rules", required=rules_required, metavar="RULESET", help="the rule-set YAML file")
     parser.add_argument("--columns", metavar="MAP", help="column map YAML: lab column names and units")
-    parser.add_argument("--input-format", choices=("csv", "jsonl"),
+    parser.add_argument("--input-format", choices=("csv", "jsonl", "xlsx"),
                         help="format of SAMPLES (default: from its name; csv for standard input)")
     parser.add_argument("--reference", action="append", metavar="LUBRICANT=FILE", default=[],
                         help="new-oil reference spectrum of a lubricant: samples of it with a `spectrum` "
@@ -171,6 +180,12 @@ def _positive_rows(text: str) -> int:
     if value < 1:
         raise argparse.ArgumentTypeError(f"expected at least 1 row, found {text!r}")
     return value
+
+
+def _count(text: str) -> int:
+    if not text.isdigit():
+        raise argparse.ArgumentTypeError(f"expected a whole number of rows (0 or more), found {text!r}")
+    return int(text)
 
 
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
@@ -214,18 +229,48 @@ def _check(args, stdin, stdout, stderr) -> int:
     return authoring_cli.run_check(args.rulesets, args.strict, stdout, stderr)
 
 
-def _read(args, stdin):
+def _rules_and_map(args):
     ruleset = load_ruleset(args.rules)
-    columns = load_column_map(args.columns) if args.columns else None
-    if args.samples == "-":
+    extra = tuple(ruleset.measures) + tuple(ruleset.fields)
+    columns = load_column_map(args.columns, extra) if args.columns else None
+    return ruleset, columns
+
+
+def _read_one(args, stdin, source, ruleset, columns):
+    if source == "-":
         batch = read_samples(stdin, "<stdin>", columns, args.input_format or "csv", ruleset.measures)
     else:
-        batch = read_samples(args.samples, None, columns, args.input_format, ruleset.measures)
-    batch = measure_sample_spectra(batch, ruleset, parse_references(args.reference), args.path_length)
-    return ruleset, batch
+        batch = read_samples(source, None, columns, args.input_format, ruleset.measures)
+    return measure_sample_spectra(batch, ruleset, parse_references(args.reference), args.path_length)
+
+
+def _read(args, stdin):
+    ruleset, columns = _rules_and_map(args)
+    return ruleset, _read_one(args, stdin, args.samples, ruleset, columns)
+
+
+INPUT_SUFFIXES = (".csv", ".jsonl", ".ndjson", ".json", ".xlsx", ".txt")
+
+
+def _sources(items) -> list:
+    """Files in the order given; a folder gives its sample files in name order."""
+    found = []
+    for item in items:
+        path = Path(item)
+        if item != "-" and path.is_dir():
+            inside = sorted(p for p in path.iterdir() if p.is_file() and p.suffix.lower() in INPUT_SUFFIXES)
+            if not inside:
+                raise InputError(f"{item}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
+            found.extend(str(p) for p in inside)
+        else:
+            found.append(item)
+    if found.count("-") > 1:
+        raise UsageError("sumpwise grade: standard input (-) can be read once")
+    return found
 
 
 def _write_rejects(batch, path, stderr) -> None:
+    """Rejected rows to standard error, or to a file (.csv or JSON Lines)."""
     if path is None:
         _put_rejects(batch, stderr, None)
         return
@@ -263,75 +308,156 @@ def _summary_line(source: str, counts: dict, by_grade: Counter, grades: tuple) -
             f"{counts['unrated']} unrated, {counts['rejected']} rejected ({ladder})\n")
 
 
+# Engine caveats that mean a sample may be graded on less than it should: warned about in the summary.
+WARNING_CAVEATS = FIRST_CAVEATS
+
+
 def _grade(args, stdin, stdout, stderr) -> int:
     if args.record != FULL and args.format != "jsonl":
         raise UsageError(f"sumpwise grade: --record {args.record} is a JSON Lines form; --format is {args.format}")
+    ruleset, columns = _rules_and_map(args)
+    if not authoring_cli.examples_hold(ruleset, args, stderr):
+        return USAGE
+    fail_levels, fail_unrated = _fail_at(args, ruleset)
+    sources = _sources(args.samples)
+    files, found_grade, found_unrated = [], False, False
+    with contextlib.ExitStack() as stack:
+        out = _opened(stack, args.out, "--out") if args.out else stdout
+        rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
+        first = True
+        for source in sources:
+            tally = _Tally(ruleset)
+            for graded, notes in _graded_batches(args, stdin, source, ruleset, columns, stderr):
+                for note in notes:
+                    stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
+                _write_records(args, graded, out, stderr, header=first)
+                _put_rejects(graded, rejects, args.rejects, header=first)
+                first = False
+                tally.add(graded, notes)
+                levels = graded.outcome.level
+                found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
+                found_unrated |= bool((levels < 0).any())
+            stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades))
+            files.append(tally.summary())
+    total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
+    warnings = [f"{f['file']}: {f['caveats'][c]} sample(s) with caveat {c}" for f in files for c in WARNING_CAVEATS
+                if c in f["caveats"]]
+    warnings += [f"{f['file']}: {f['unrated']} sample(s) unrated" for f in files if f["unrated"]]
+    if len(files) > 1:
+        stderr.write(f"sumpwise: in total: read {total['read']} row(s): {total['graded']} graded, "
+                     f"{total['unrated']} unrated, {total['rejected']} rejected\n")
+    for warning in warnings:
+        stderr.write(terminal_text(f"sumpwise: warning: {warning}") + "\n")
+    code = OK
+    if fail_levels and found_grade or fail_unrated and found_unrated:
+        code = FINDINGS
+    if args.max_rejects is not None and total["rejected"] > args.max_rejects:
+        stderr.write(f"sumpwise: {total['rejected']} row(s) rejected, more than --max-rejects {args.max_rejects}\n")
+        code = USAGE
+    if args.summary:
+        report = {"files": files, "total": total, "warnings": warnings, "exit": code}
+        try:
+            with open(args.summary, "w", encoding="utf-8") as handle:
+                handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
+        except OSError as exc:
+            raise InputError(f"--summary {args.summary}: cannot write it: {exc.strerror or exc}") from None
+    return code
+
+
+def _fail_at(args, ruleset) -> tuple[list, bool]:
+    """The grade levels --fail-at names, and whether it names `unrated`."""
+    levels, unrated = [], False
+    for name in args.fail_at:
+        if name == UNRATED:
+            unrated = True
+        elif name in ruleset.grades:
+            levels.append(ruleset.level_of(name))
+        else:
+            raise UsageError(f"sumpwise grade: --fail-at {name!r} is not on the grade ladder "
+                             f"[{', '.join(ruleset.grades)}] and is not 'unrated'")
+    return levels, unrated
+
+
+def _opened(stack: contextlib.ExitStack, path, option: str):
+    try:
+        return stack.enter_context(open(path, "w", encoding="utf-8", newline=""))
+    except OSError as exc:
+        raise InputError(f"{option} {path}: cannot write it: {exc.strerror or exc}") from None
+
+
+def _chunked(args, source, columns) -> bool:
+    """Whether a source is read --chunk-rows rows at a time: not for the table or a ledger (they need
+    the whole file), a workbook, or a file whose column map declares how it is written (encoding,
+    delimiter, decimal mark: the whole-file reader applies them)."""
     if args.format == "table" or getattr(args, "db", None) is not None:
-        return _grade_whole(args, stdin, stdout, stderr)
-    return _grade_chunks(args, stdin, stdout, stderr)
+        return False
+    if (args.input_format or "") == "xlsx" or str(source).lower().endswith(".xlsx"):
+        return False
+    return not (columns is not None and columns.options)
 
 
-def _fail_level(args, ruleset):
-    if args.fail_at is None:
-        return None
-    if args.fail_at not in ruleset.grades:
-        raise UsageError(f"sumpwise grade: --fail-at {args.fail_at!r} is not on the grade ladder "
-                         f"[{', '.join(ruleset.grades)}]")
-    return ruleset.level_of(args.fail_at)
-
-
-def _grade_chunks(args, stdin, stdout, stderr) -> int:
-    """Read, grade and write --chunk-rows rows at a time (trends carried across; see grade_in_chunks)."""
+def _graded_batches(args, stdin, source, ruleset, columns, stderr):
+    """A source's graded batches with the reader's notes: the whole file at once, or in chunks whose
+    trends are carried from chunk to chunk (pipeline.grade_in_chunks)."""
+    if not _chunked(args, source, columns):
+        batch = _read_one(args, stdin, source, ruleset, columns)
+        yield ledger_cli.grade(args, batch, ruleset, stderr), batch.notes
+        return
     if getattr(args, "correction", False):
         raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
-    ruleset = load_ruleset(args.rules)
-    if not authoring_cli.examples_hold(ruleset, args, stderr):
-        return USAGE
-    fail_level = _fail_level(args, ruleset)
-    columns = load_column_map(args.columns) if args.columns else None
-    if args.samples == "-":
+    if source == "-":
         chunks = sample_chunks(stdin, "<stdin>", columns, args.input_format or "csv", ruleset.measures, args.chunk_rows)
     else:
-        chunks = sample_chunks(args.samples, None, columns, args.input_format, ruleset.measures, args.chunk_rows)
+        chunks = sample_chunks(source, None, columns, args.input_format, ruleset.measures, args.chunk_rows)
     references = parse_references(args.reference)
-    chunks = (measure_sample_spectra(batch, ruleset, references, args.path_length) for batch in chunks)
-    counts, by_grade, failed, source = Counter(), Counter(), False, ""
-    with contextlib.ExitStack() as stack:
-        out = stack.enter_context(open(args.out, "w", encoding="utf-8", newline="")) if args.out else stdout
-        rejects = (stack.enter_context(open(args.rejects, "w", encoding="utf-8", newline="")) if args.rejects
-                   else stderr)
-        for k, graded in enumerate(grade_in_chunks(chunks, ruleset)):
-            if args.format == "jsonl":
-                write_jsonl(graded, out, args.record)
-            else:
-                write_csv(graded, out, header=k == 0)
-            _put_rejects(graded, rejects, args.rejects, header=k == 0)
-            counts.update(graded.counts())
-            by_grade.update(graded.grades())
-            failed = failed or (fail_level is not None and bool((graded.outcome.level >= fail_level).any()))
-            source = graded.source
-    stderr.write(_summary_line(source, counts, by_grade, ruleset.grades))
-    return FINDINGS if failed else OK
+    said: list = []
+    read = (measure_sample_spectra(batch, ruleset, references, args.path_length) for batch in chunks)
+    for graded in grade_in_chunks(_noting(read, said), ruleset):
+        notes, said[:] = tuple(said), []
+        yield graded, notes
 
 
-def _grade_whole(args, stdin, stdout, stderr) -> int:
-    ruleset, batch = _read(args, stdin)
-    if not authoring_cli.examples_hold(ruleset, args, stderr):
-        return USAGE
-    fail_level = _fail_level(args, ruleset)
-    graded = ledger_cli.grade(args, batch, ruleset, stderr)
-    writer = {"jsonl": lambda graded, out: write_jsonl(graded, out, args.record), "csv": write_csv,
-              "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
-    if args.out:
-        with open(args.out, "w", encoding="utf-8", newline="") as out:
-            writer(graded, out)
+def _noting(batches, said: list):
+    """Pass batches on, keeping each one's reader notes the first time they are said."""
+    seen: set = set()
+    for batch in batches:
+        said.extend(note for note in batch.notes if note not in seen)
+        seen.update(batch.notes)
+        yield batch
+
+
+def _write_records(args, graded, out, stderr, header: bool) -> None:
+    if args.format == "jsonl":
+        write_jsonl(graded, out, args.record)
+    elif args.format == "csv":
+        write_csv(graded, out, header=header)
     else:
-        writer(graded, stdout)
-    _write_rejects(graded, args.rejects, stderr)
-    stderr.write(_summary(graded))
-    if fail_level is not None and (graded.outcome.level >= fail_level).any():
-        return FINDINGS
-    return OK
+        write_table(graded, out, progress=stderr)
+
+
+class _Tally:
+    """One file's counts, grades and caveats over its chunks, for its summary line, --summary and
+    the exit code."""
+
+    def __init__(self, ruleset):
+        self.ruleset, self.source, self.notes = ruleset, "", []
+        self.counts, self.grades, self.caveats = Counter(), Counter(), Counter()
+
+    def add(self, graded, notes) -> None:
+        self.source = graded.source
+        self.counts.update(graded.counts())
+        self.grades.update(graded.grades())
+        self.notes.extend(notes)
+        ids = [c.id for c in graded.ruleset.caveats] + [c.id for c in graded.engine_caveats]
+        for k, count in enumerate(graded.outcome.caveats.sum(axis=0).tolist()):
+            if count:
+                self.caveats[ids[k]] += count
+
+    def summary(self) -> dict:
+        counts = {key: self.counts.get(key, 0) for key in ("read", "graded", "unrated", "rejected")}
+        return {"file": self.source, **counts,
+                "grades": {g: self.grades.get(g, 0) for g in list(self.ruleset.grades) + [UNRATED]},
+                "caveats": dict(sorted(self.caveats.items())), "notes": list(self.notes)}
 
 
 def _explain(args, stdin, stdout, stderr) -> int:

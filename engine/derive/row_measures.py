@@ -9,14 +9,97 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+import difflib
+
 from sumpwise.derive.cleanliness import cleanliness_measures
 from sumpwise.derive.viscosity import viscosity_index
+from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
 from sumpwise.vocabulary.base_stocks import family_of
+from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
                                          ROW_MEASURES)
 
+# A lubricant code the rule set does not know: its new-oil values are missing, and the
+# sample must say so where people look, not only in its not-evaluated list.
+LUBRICANT_CAVEATS = (
+    EngineCaveat("unknown-lubricant", "unknown_lubricant_note", "sumpwise engine: the rule set's lubricants table"),
+)
 
 
+def _unknown_lubricant_notes(codes: np.ndarray, known: list) -> np.ndarray:
+    """A note per row whose lubricant code is not in the table, naming the nearest known codes."""
+    row_codes, uniques = pd.factorize(codes, use_na_sentinel=True)
+    notes = []
+    for code in uniques:
+        if code in known:
+            notes.append(None)
+            continue
+        near = difflib.get_close_matches(str(code), known, n=3, cutoff=0.5)
+        notes.append(f"lubricant code '{code}' is not in the rule set's lubricants table"
+                     + (f" (nearest: {', '.join(near)})" if near else "")
+                     + "; its new-oil values are missing, so rules on change from new oil are not evaluated")
+    return np.array(notes + [None], dtype=object)[row_codes]
+
+
+# Derived measures that carry a censored input's bounds: how each is computed, and whether it
+# rises (+1) or falls (-1) with each input that may be censored. Each is monotonic in those
+# inputs (new-oil values and hours are positive), so the interval's ends map to the ends.
+BOUNDED = (
+    ("kv40_change_pct", {"kv40": 1}, lambda v: (v["kv40"] - v["new_kv40"]) / v["new_kv40"] * 100.0),
+    ("kv100_change_pct", {"kv100": 1}, lambda v: (v["kv100"] - v["new_kv100"]) / v["new_kv100"] * 100.0),
+    ("an_rise", {"an": 1}, lambda v: v["an"] - v["new_an"]),
+    ("oxidation_rise", {"oxidation": 1}, lambda v: v["oxidation"] - v["new_oxidation"]),
+    ("oxidation_rise_per_1000h", {"oxidation_rise": 1}, lambda v: v["oxidation_rise"] * v["per_hour"]),
+    ("an_rise_per_1000h", {"an_rise": 1}, lambda v: v["an_rise"] * v["per_hour"]),
+    ("oxidation_differential_per_1000h", {"oxidation_differential": 1},
+     lambda v: v["oxidation_differential"] * v["per_hour"]),
+    ("bn_retained_pct", {"bn": 1}, lambda v: v["bn"] / v["new_bn"] * 100.0),
+    ("rpvot_retained_pct", {"rpvot": 1}, lambda v: v["rpvot"] / v["new_rpvot"] * 100.0),
+    ("bn_minus_an", {"bn": 1, "an": -1}, lambda v: v["bn"] - v["an"]),
+)
+
+
+def _carried_bounds(name: str, inputs: dict, formula, out: dict, found: dict) -> Bounds | None:
+    """The derived measure's interval where one of its inputs is censored and the rest known."""
+    censored_inputs = [m for m in inputs if m in found]
+    if not censored_inputs:
+        return None
+    rows = np.logical_or.reduce([found[m].censored for m in censored_inputs])
+    low_args, high_args = dict(out), dict(out)
+    low_open = np.zeros(len(rows), dtype=bool)
+    high_open = np.zeros(len(rows), dtype=bool)
+    written = np.full(len(rows), None, dtype=object)
+    for m, direction in inputs.items():
+        if m not in found:
+            continue
+        b, here = found[m], found[m].censored
+        low_end, high_end = (b.low, b.high) if direction > 0 else (b.high, b.low)
+        low_open_end, high_open_end = (b.low_open, b.high_open) if direction > 0 else (b.high_open, b.low_open)
+        low_args[m] = np.where(here, low_end, out[m])
+        high_args[m] = np.where(here, high_end, out[m])
+        low_open |= here & low_open_end
+        high_open |= here & high_open_end
+        for k in np.flatnonzero(here):  # censored cells only: a few in a batch
+            source = b.written[k] if b.written[k] and " from " in str(b.written[k]) else f"{m} '{b.written[k]}'"
+            written[k] = source if written[k] is None else f"{written[k]}, {source}"
+    with np.errstate(divide="ignore", invalid="ignore"):
+        low, high = np.round(formula(low_args), DECIMALS), np.round(formula(high_args), DECIMALS)
+    rows &= ~np.isnan(low) & ~np.isnan(high)
+    low, high = np.where(rows, low, np.nan), np.where(rows, high, np.nan)
+    spelled = np.full(len(rows), None, dtype=object)
+    for k in np.flatnonzero(rows):  # censored cells only: a few in a batch
+        spelled[k] = (f"{'(' if low_open[k] else '['}{number_text(low[k]) if np.isfinite(low[k]) else '-inf'}, "
+                      f"{number_text(high[k]) if np.isfinite(high[k]) else 'inf'}{')' if high_open[k] else ']'}"
+                      f" from {written[k]}")
+    return Bounds(rows, low, high, low_open | ~np.isfinite(low), high_open | ~np.isfinite(high), spelled)
+
+
+def _bound_columns(name: str, b: Bounds) -> dict:
+    """A censored measure's interval as columns of the measured frame (the evaluator reads them)."""
+    rows = b.censored
+    return {name + ":low": np.where(rows, b.low, np.nan), name + ":high": np.where(rows, b.high, np.nan),
+            name + ":low_open": b.low_open & rows, name + ":high_open": b.high_open & rows,
+            name + WRITTEN_SUFFIX: np.where(rows, b.written, None)}
 
 def _numbers(frame: pd.DataFrame, column: str) -> np.ndarray:
     if column in frame.columns:
@@ -66,7 +149,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         own = _numbers(samples, f"new_{name}")
         out[f"new_{name}"] = np.where(np.isnan(own), from_table, own)
 
-    fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields)}
+    carried = {"comment"} & set(samples.columns)  # a lab's remark, carried into the record as written
+    fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields) | carried}
     base_from_table = _by_code(lookup, [lub.base_stock for lub in lubricants.values()], None)
     fields["base_stock"] = fields["base_stock"].where(fields["base_stock"].notna(),
                                                       pd.Series(base_from_table, index=samples.index))
@@ -102,6 +186,28 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out["bn_retained_pct"] = out["bn"] / out["new_bn"] * 100.0
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]
+    found = {}
+    for name in INPUT_MEASURES:
+        if name + CENSORED_SUFFIX in samples.columns:
+            texts = samples[name + CENSORED_SUFFIX].to_numpy(dtype=object)
+            found[name] = bounds(name, texts, samples[name + WRITTEN_SUFFIX].to_numpy(dtype=object))
+            out[name] = np.where(found[name].censored, np.nan, out[name])  # never its bound's number
+    if "oxidation" in found and subtraction.any():
+        # a censored reading on a differential row is a differential reading, as a number is above
+        moved = found["oxidation"]
+        here = moved.censored & subtraction
+        found["oxidation_differential"] = Bounds(here, moved.low, moved.high, moved.low_open, moved.high_open,
+                                                 moved.written)
+        out["oxidation_differential"] = np.where(here, np.nan, out["oxidation_differential"])
+        found["oxidation"] = Bounds(moved.censored & ~subtraction, moved.low, moved.high, moved.low_open,
+                                    moved.high_open, moved.written)
+    if found:
+        out["per_hour"] = per_hour
+        for name, inputs, formula in BOUNDED:
+            carried = _carried_bounds(name, inputs, formula, out, found)
+            if carried is not None and carried.censored.any():
+                found[name] = carried
+        del out["per_hour"]
     for name in ROW_MEASURES:
         if name != "vi":
             values = np.round(out[name], DECIMALS)
@@ -110,7 +216,9 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
     out.update(cleanliness_measures(fields["iso4406"].to_numpy(dtype=object),
                                     {size: out[f"particles_{size}"] for size in ISO4406_SIZES}))
 
-    frame = pd.DataFrame(out, index=samples.index, copy=False)
+    for name, b in found.items():
+        out.update(_bound_columns(name, b))
+    out["unknown_lubricant_note"] = _unknown_lubricant_notes(lubricant.to_numpy(dtype=object), list(lubricants))
     for name, series in fields.items():
-        frame[name] = series.astype(object)
-    return frame
+        out[name] = series.astype(object).to_numpy(dtype=object)
+    return pd.DataFrame(out, index=samples.index, copy=False)

@@ -9,12 +9,15 @@ are read from it afterwards.
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from sumpwise.intake.censored import Bounds, interval_truth
 from sumpwise.ruleset.model import LadderRule, RuleSet
+from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 
 # Outcome codes in the per-rule matrices; 0 and above are ladder levels.
@@ -74,6 +77,22 @@ class _Columns:
                 self.cache[name] = np.full(self.size, np.nan)
         return self.cache[name]
 
+    def interval(self, name: str) -> Bounds | None:
+        """The censored readings of a measure as intervals (None when it has none): a test on
+        one is known only when the whole interval lies inside or outside the test's region."""
+        key = ("interval", name)
+        if key not in self.cache:
+            found = None
+            if name + ":low" in self.measured.columns:
+                low = self._take(self.measured[name + ":low"].to_numpy(dtype=float, na_value=np.nan))
+                found = Bounds(~np.isnan(low), low,
+                               self._take(self.measured[name + ":high"].to_numpy(dtype=float, na_value=np.nan)),
+                               self._take(self.measured[name + ":low_open"].to_numpy(dtype=bool)),
+                               self._take(self.measured[name + ":high_open"].to_numpy(dtype=bool)), np.empty(0))
+                found = found if found.censored.any() else None
+            self.cache[key] = found
+        return self.cache[key]
+
     def folded(self, name: str) -> tuple[np.ndarray, list]:
         """(code per row, -1 where missing; the distinct values stripped and case-folded).
 
@@ -91,14 +110,34 @@ class _Columns:
         return self.cache[key]
 
 
-def _measure_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
-    values = columns.number(condition.measure)
+def _limit_truth(measure: str, test: str, limit, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
+    """(truth, known) of one limit test: numbers compared, censored readings as intervals."""
+    values = columns.number(measure)
     known = ~np.isnan(values)
-    return LIMIT_TESTS[condition.test].crossed(values, condition.limit) & known, known
+    truth = LIMIT_TESTS[test].crossed(values, limit) & known
+    interval = columns.interval(measure)
+    if interval is not None:
+        rows = interval.censored
+        inside, decided = interval_truth(LIMIT_TESTS[test].region(limit), _at(interval, rows))
+        truth, known = truth.copy(), known.copy()
+        truth[rows], known[rows] = inside, decided
+    return truth, known
+
+
+def _at(interval: Bounds, rows: np.ndarray) -> Bounds:
+    return Bounds(interval.censored[rows], interval.low[rows], interval.high[rows], interval.low_open[rows],
+                  interval.high_open[rows], interval.written)
+
+
+def _measure_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
+    return _limit_truth(condition.measure, condition.test, condition.limit, columns)
 
 
 def _missing_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
     missing = np.isnan(columns.number(condition.measure))
+    interval = columns.interval(condition.measure)
+    if interval is not None:
+        missing &= ~interval.censored  # a censored reading is there, only not as a number
     truth = missing if condition.missing else ~missing
     return truth, np.ones(len(truth), dtype=bool)
 
@@ -144,11 +183,22 @@ def condition_truth(condition, columns: _Columns, leaves: list | None = None) ->
 
 
 def _ladder_levels(rule: LadderRule, columns: _Columns) -> np.ndarray:
+    """The highest step crossed. A censored reading gets the highest step it is known to cross
+    (a lower bound when a higher step is undecided); none known and one undecided: not evaluated."""
     values = columns.number(rule.measure)
     levels = np.zeros(len(values), dtype=np.int8)
+    interval = columns.interval(rule.measure)
+    if interval is None:
+        for level, limit in rule.steps:
+            levels[LIMIT_TESTS[rule.test].crossed(values, limit)] = level
+        levels[np.isnan(values)] = NOT_EVALUATED
+        return levels
+    undecided = np.zeros(len(values), dtype=bool)
     for level, limit in rule.steps:
-        levels[LIMIT_TESTS[rule.test].crossed(values, limit)] = level
-    levels[np.isnan(values)] = NOT_EVALUATED
+        truth, known = _limit_truth(rule.measure, rule.test, limit, columns)
+        levels[truth] = level
+        undecided |= ~known
+    levels[undecided & (levels == 0)] = NOT_EVALUATED
     return levels
 
 
@@ -206,3 +256,36 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
     level = final.max(axis=1, initial=NOT_APPLICABLE) if len(slots) else np.full(n, NOT_APPLICABLE)
     level = np.where(level >= 0, level, -1).astype(np.int8)
     return Outcome(slots, raw, final, caveats, capping_all, unchecked, leaves, level, known_class)
+
+
+# No silent pass: a sample whose class the rule set lacks, or on which most of its class's
+# rules could not be evaluated, carries a caveat the table, report and summary show.
+COVERAGE_CAVEATS = (
+    EngineCaveat("unknown-class", "unknown_class_note", "sumpwise engine: the rule set's classes"),
+    EngineCaveat("few-rules-evaluated", "few_rules_note",
+                 "sumpwise engine: rules of the class not evaluated for missing or undecided values"),
+)
+
+
+def coverage_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> dict:
+    """The coverage caveats' per-row notes (None where a caveat does not apply)."""
+    n = len(measured)
+    unknown = np.full(n, None, dtype=object)
+    if n:
+        classes = measured["class"].to_numpy(dtype=object)
+        codes, uniques = pd.factorize(classes, use_na_sentinel=True)
+        texts = []
+        for name in uniques:
+            near = difflib.get_close_matches(str(name), list(ruleset.classes), n=3, cutoff=0.5)
+            texts.append(f"class '{name}' is not in the rule set '{ruleset.id}'"
+                         + (f" (nearest: {', '.join(near)})" if near else "") + "; no rules apply, so it is unrated")
+        unknown = np.array(texts + [None], dtype=object)[codes]
+        unknown[outcome.known_class] = None
+    applicable = (outcome.raw != NOT_APPLICABLE).sum(axis=1)
+    gaps = (outcome.final == NOT_EVALUATED).sum(axis=1)
+    most = (applicable > 0) & (2 * gaps > applicable)
+    few = np.full(n, None, dtype=object)
+    for pair in set(zip(gaps[most].tolist(), applicable[most].tolist())):  # a few distinct counts
+        few[most & (gaps == pair[0]) & (applicable == pair[1])] = (
+            f"{pair[0]} of the {pair[1]} rules of its class could not be evaluated; the grade rests on the rest")
+    return {"unknown_class_note": unknown, "few_rules_note": few}

@@ -1,35 +1,37 @@
-"""Read lab results (CSV or JSON Lines), rename and convert their columns, set bad rows aside.
+"""Read lab results (CSV, JSON Lines, .xlsx), map and convert their columns, set bad rows aside.
 
 Every row read ends up in one of two places here: accepted into the frame (indexed by
-its 1-based data row) or rejected with its row, field and reason. Nothing is dropped
-silently; a file that cannot be read at all is an InputError instead.
+its row number, see readers.py) or rejected with its row, field and reason. Nothing is
+dropped silently; a file that cannot be read at all is an InputError instead. Censored
+readings (`<0.05`, `>5000`, `ND`) are kept as intervals beside the number (censored.py).
 """
 
 from __future__ import annotations
 
-import csv
-import io
-import json
-import re
-import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from sumpwise.vocabulary.measures import INPUT_MEASURES, NOT_NEGATIVE, POSITIVE, REFERENCE_VALUES, domain_of
-from sumpwise.vocabulary.problems import InputError, InvalidFile
+from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
+from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
+from sumpwise.intake.dates import read_dates
+from sumpwise.intake.readers import RawTable, check_header, decode, nested_cells, read_csv, read_jsonl, read_xlsx
+from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
+from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
-from sumpwise.vocabulary.measures import UNIT_FAMILY
-from sumpwise.vocabulary.units import factor_to_canonical, known_units
-from sumpwise.ruleset.yaml_source import load_yaml
+from sumpwise.vocabulary.units import factor_to_canonical
+
+__all__ = ["ColumnMap", "Reject", "SampleBatch", "load_column_map", "read_samples", "validate_samples"]
 
 REQUIRED_COLUMNS = ("sample_id", "class")
 
-NUMERIC_COLUMNS = tuple(INPUT_MEASURES) + tuple(f"new_{name}" for name in REFERENCE_VALUES)
+NUMERIC_COLUMNS = NUMERIC_NAMES
 
-# Values that cannot be negative; viscosities cannot be zero either.
+# Spellings of a yes/no flag every map accepts (case ignored), besides the map's own.
+FLAG_SPELLINGS = {"y": True, "n": False, "yes": True, "no": False, "true": True, "false": False, "1": True,
+                  "0": False, "t": True, "f": False}
 
 
 @dataclass(frozen=True)
@@ -44,14 +46,6 @@ class Reject:
 
 
 @dataclass(frozen=True)
-class ColumnMap:
-    """A lab's column names and units, mapped onto the engine's names (measure -> column)."""
-
-    columns: dict = field(default_factory=dict)
-    units: dict = field(default_factory=dict)
-
-
-@dataclass(frozen=True)
 class SampleBatch:
     """Accepted rows (index: data row), the rejects, and how many rows were read in all."""
 
@@ -59,165 +53,127 @@ class SampleBatch:
     rejects: tuple
     rows_read: int
     source: str
+    notes: tuple = ()  # what the reader detected or left unused, said once on standard error
 
     @property
     def rejected_rows(self) -> int:
         return len({r.row for r in self.rejects})
 
 
-def load_column_map(path) -> ColumnMap:
-    """Read a column map: `measure: "Lab column"` or `measure: {column: "...", unit: "..."}`."""
-    doc = load_yaml(Path(path))
-    problems = []
-    if not isinstance(doc.data, dict):
-        raise InvalidFile([doc.problem((), "a column map must be a mapping of measure names to columns", code="M001")])
-    columns, units = {}, {}
-    for name, spec in doc.data.items():
-        if isinstance(spec, str):
-            columns[name] = spec
-            continue
-        if not isinstance(spec, dict) or set(spec) - {"column", "unit"} or not spec:
-            problems.append(doc.problem((name,), f"'{name}' must map to a column name, or to "
-                                                 f"{{column: ..., unit: ...}}", code="M002"))
-            continue
-        if "column" in spec:
-            if not isinstance(spec["column"], str) or not spec["column"]:
-                problems.append(doc.problem((name, "column"), "the column name must be text", code="M002"))
-                continue
-            columns[name] = spec["column"]
-        if "unit" in spec:
-            family = UNIT_FAMILY.get(name)
-            if family is None:
-                problems.append(doc.problem((name, "unit"), f"'{name}' has one fixed unit; units can be declared "
-                                                            f"for: {', '.join(sorted(UNIT_FAMILY))}", code="M003"))
-            elif spec["unit"] not in known_units(family):
-                problems.append(doc.problem((name, "unit"), f"unknown unit {spec['unit']!r} for {name}; expected "
-                                                            f"one of: {', '.join(known_units(family))}", code="M003"))
-            else:
-                units[name] = spec["unit"]
-    if problems:
-        raise InvalidFile(problems)
-    return ColumnMap(columns, units)
-
-
-_SKIPPED = re.compile(r"Skipping line (\d+): (.*)")
-
-
-def _read_csv(text: str, numeric_columns: set, data: bytes | None = None) -> tuple[pd.DataFrame, list[tuple[int, str]]]:
-    """Parse CSV in C; numeric columns are left to pandas' parser, text columns kept as text.
-
-    Given the file's bytes too, pandas parses those (a third faster than re-encoding text).
-    """
-    ends = [at for at in (text.find("\n"), text.find("\r")) if at >= 0]  # \n, \r\n or a lone \r
-    header = next(csv.reader([text[: min(ends, default=len(text))]]), [])
-    names = [h.strip() for h in header]
-    text_columns = {raw: object for raw, name in zip(header, names) if name not in numeric_columns}
-    blanks = {raw: [""] for raw, name in zip(header, names) if name in numeric_columns}
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            source = io.StringIO(text) if data is None else io.BytesIO(data)
-            frame = pd.read_csv(source, encoding="utf-8-sig", dtype=text_columns, keep_default_na=False,
-                                na_values=blanks, on_bad_lines="warn", skipinitialspace=True)
-        except pd.errors.EmptyDataError:
-            raise InputError("the file is empty: expected a header row and data rows") from None
-        except pd.errors.ParserError as exc:
-            raise InputError(f"cannot read it as CSV: {exc}") from None
-    skipped = []
-    for warning in caught:
-        for line, why in _SKIPPED.findall(str(warning.message)):
-            skipped.append((int(line) - 1, f"cannot be read: {why.strip()}"))
-    return frame, skipped
-
-
-def _read_jsonl(text: str) -> tuple[pd.DataFrame, list[tuple[int, str]]]:
-    records, skipped, rows = [], [], []
-    row = 0
-    for line in text.splitlines():
-        if not line.strip():
-            continue
-        row += 1
-        try:
-            record = json.loads(line)
-        except json.JSONDecodeError as exc:
-            skipped.append((row, f"not valid JSON: {exc.msg} at column {exc.colno}"))
-            continue
-        if not isinstance(record, dict):
-            skipped.append((row, "each line must be a JSON object"))
-            continue
-        records.append({k: ("" if v is None else v) for k, v in record.items()})
-        rows.append(row)
-    if row == 0:
-        raise InputError("the file is empty: expected one JSON object a line")
-    frame = pd.DataFrame.from_records(records) if records else pd.DataFrame()
-    frame.attrs["rows"] = rows
-    return frame, skipped
-
-
 def read_samples(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
                  numeric: tuple = ()) -> SampleBatch:
-    """Read samples from a path or a text stream; `fmt` is csv or jsonl (guessed from the name).
+    """Read samples from a path or a stream; `fmt` is csv, jsonl or xlsx (guessed from the name).
 
+    A file and the same bytes on a stream give the same rows, numbers and rejects.
     `numeric` names extra numeric columns (measures a rule set declares).
     """
-    data = None
     if isinstance(source, (str, Path)):
         name = name or str(source)
         try:
             data = Path(source).read_bytes()
-            text = data.decode("utf-8-sig")
-        except (OSError, UnicodeDecodeError) as exc:
-            raise InputError(f"{name}: cannot read the file: {exc}") from None
+        except OSError as exc:
+            raise InputError(f"{name}: cannot read the file: {exc.strerror or exc}") from None
     else:
         name = name or "<stdin>"
-        text = source.read().removeprefix("\ufeff")  # a byte order mark, as a file's utf-8-sig reading drops it
-    fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
+        stream = getattr(source, "buffer", source)
+        data = stream.read()
+        if isinstance(data, str):
+            data = data.encode("utf-8")
     columns = columns or ColumnMap()
+    suffix = name.lower().rsplit(".", 1)[-1] if "." in name else ""
+    fmt = fmt or {"jsonl": "jsonl", "ndjson": "jsonl", "json": "jsonl", "xlsx": "xlsx"}.get(suffix, "csv")
     wanted = set(NUMERIC_COLUMNS) | set(numeric)
-    lab_names = {column: measure for measure, column in columns.columns.items()}
-    numeric_lab = {c for c in wanted if c not in columns.columns} | {c for c, m in lab_names.items() if m in wanted}
+    lab_numeric = {c for c in wanted if c not in columns.columns} | {c for m, c in columns.columns.items()
+                                                                       if m in wanted}
     try:
-        raw, skipped = _read_jsonl(text) if fmt == "jsonl" else _read_csv(text, numeric_lab, data)
+        if fmt == "xlsx":
+            raw = read_xlsx(data, columns.option("sheet"))
+        else:
+            text = decode(data, columns.option("encoding"))
+            utf8 = columns.option("encoding", "utf-8").replace("_", "-").lower() in ("utf-8", "utf8")
+            raw = (read_jsonl(text) if fmt == "jsonl" else
+                   read_csv(text, lab_numeric, columns.option("delimiter"), columns.option("decimal"),
+                            data if utf8 else None))
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
-    return validate_samples(raw, skipped, name, columns, numeric)
+    return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
 
 
-def _row_numbers(raw: pd.DataFrame, skipped: list[tuple[int, str]]) -> np.ndarray:
-    if "rows" in raw.attrs:
-        return np.asarray(raw.attrs["rows"], dtype=np.int64)
-    skipped_rows = np.array(sorted({row for row, _ in skipped}), dtype=np.int64)
+def _row_numbers(raw: pd.DataFrame, skipped: list) -> np.ndarray:
+    """Rows of a frame given without numbers (the Python API): 1, 2, ... around the skipped."""
+    skipped_rows = np.array(sorted({s[0] for s in skipped}), dtype=np.int64)
     rows = np.arange(1, len(raw) + len(skipped_rows) + 1, dtype=np.int64)
     return rows[~np.isin(rows, skipped_rows)][: len(raw)]
 
 
-def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: str, columns: ColumnMap,
-                     numeric: tuple = ()) -> SampleBatch:
-    """Rename, convert and check rows; pure apart from its arguments."""
-    rows = _row_numbers(raw, skipped)
+def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: ColumnMap, numeric: tuple = (),
+                     rows: np.ndarray | None = None, notes=()) -> SampleBatch:
+    """Map, convert and check rows; pure apart from its arguments.
+
+    `skipped` holds (row, reason[, code]) of rows the reader could not use; `rows` the row
+    number of each frame row (1, 2, ... when not given).
+    """
+    columns = columns or ColumnMap()
+    skipped = [s if len(s) == 3 else (s[0], s[1], "D001") for s in skipped]
+    rows = _row_numbers(raw, skipped) if rows is None else np.asarray(rows, dtype=np.int64)
+    notes = list(notes)
+    try:
+        check_header(list(raw.columns))
+    except InputError as exc:
+        raise InputError(f"{name}: {exc}") from None
     raw = raw.copy()
     raw.columns = [str(c).strip() for c in raw.columns]
+    raw.index = pd.Index(rows, name="row")
     renames = {}
     for measure, column in columns.columns.items():
         if column not in raw.columns:
             raise InputError(f"{name}: the column map names column '{column}' for {measure}, but the file has "
                              f"no such column (it has: {', '.join(raw.columns)})")
         renames[column] = measure
-    raw = raw.rename(columns=renames)
+    mapped = set(renames)
+    clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]
+    raw = raw.drop(columns=clash).rename(columns=renames)
+    if clash:
+        notes.append(f"columns {', '.join(clash)} not used: the column map reads these names from other columns")
+    for measure, value in columns.constants.items():
+        if measure in raw.columns:
+            notes.append(f"column {measure} not used: the column map gives it the value {value!r} for every row")
+        raw[measure] = str(value) if measure not in NUMERIC_COLUMNS and measure not in numeric else value
+    methods = sorted(set(columns.methods.values()))
+    if len(methods) > 1 and "method" not in raw.columns:
+        raise InputError(f"{name}: the column map declares FTIR methods {' and '.join(methods)} for different "
+                         f"columns, but a sample has one method: map a `method` column instead")
+    if methods and "method" not in raw.columns:
+        raw["method"] = methods[0]
+    known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
+    unused = [c for c in raw.columns if c not in known and c not in mapped]
+    if unused and (columns.columns or columns.constants):
+        notes.append(f"lab columns not used: {', '.join(unused)}")
     missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
     if missing:
         raise InputError(f"{name}: missing required column(s) {', '.join(missing)}; the file has: "
                          f"{', '.join(raw.columns) or 'no columns'}")
-    raw.index = pd.Index(rows, name="row")
 
+    rejects: list[Reject] = [Reject(row, None, "(row)", why, code) for row, why, code in skipped]
     numeric_names = [c for c in raw.columns if c in NUMERIC_COLUMNS or c in numeric]
+    for column in raw.columns:
+        nested = nested_cells(raw[column])
+        if nested.any():
+            ids = raw["sample_id"].to_numpy(dtype=object)[nested]
+            rejects.extend(Reject(int(r), sid if isinstance(sid, str) and sid.strip() else None, column,
+                                  "a list or object where one value was expected", "D016")
+                           for r, sid in zip(raw.index[nested], ids))
+            raw.loc[nested, column] = None
+    bad = np.zeros(len(raw), dtype=bool)
+    if rejects:
+        bad |= np.isin(raw.index, [r.row for r in rejects if r.field != "(row)"])
     for column in raw.columns:
         if column not in numeric_names:
             raw[column] = _text_column(raw[column])
-
-    rejects: list[Reject] = [Reject(row, None, "(row)", why, "D001") for row, why in skipped]
+    for column, table in columns.translations.items():
+        if column in raw.columns:
+            raw[column] = _translated(raw[column], table)
     sample_id = raw["sample_id"].fillna("")
-    bad = np.zeros(len(raw), dtype=bool)
 
     def reject(mask, field_name: str, reasons, code: str) -> None:
         nonlocal bad
@@ -235,21 +191,52 @@ def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: st
         reject(dup, "sample_id", ("sample id '" + sample_id + "' already seen at row "
                                   + first_row.astype(str)).to_numpy(dtype=object), "D003")
 
+    decimal = columns.option("decimal", ".")
     for column in numeric_names:
-        values, text, not_a_number = _number_column(raw[column])
+        factor = factor_to_canonical(UNIT_FAMILY[column], columns.units[column]) if column in columns.units else 1.0
+        values, text, not_a_number = _number_column(raw[column], decimal)
+        infinite = np.isinf(values)
+        if text is not None and not_a_number.any():
+            at = np.flatnonzero(not_a_number)
+            spelled = [str(t).casefold().strip("+-") for t in text.to_numpy(dtype=object)[at]]
+            infinite[at[np.isin(spelled, ("nan", "inf", "infinity"))]] = True
+        if infinite.any():
+            reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D014")
+            values = np.where(infinite, np.nan, values)
+            not_a_number &= ~infinite
+        censored = None
         if not_a_number.any():
-            reject(not_a_number, column, ("expected a number, found '" + text + "'").to_numpy(dtype=object), "D004")
+            limit = columns.detection_limits.get(column)
+            cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
+                                  None if limit is None else limit * factor)
+            if cells.bad.any():
+                reject(cells.bad, column, _found("expected a number or a censored reading such as <0.05, found ",
+                                                 text, cells.bad, quoted=True), "D004")
+            if (cells.censored != None).any():  # noqa: E711 (elementwise)
+                censored = cells.censored
         domain = domain_of(column)
         if domain == POSITIVE and (values <= 0).any():
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
-        if column in columns.units:
-            values = values * factor_to_canonical(UNIT_FAMILY[column], columns.units[column])
+        if factor != 1.0:
+            values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
             reject(beyond, column, _found(f"cannot be above {domain[-1].high:g} {INPUT_MEASURES.get(column, '')}, "
                                           f"found ", raw[column], beyond), "D005")
         raw[column] = values
+        if censored is not None:
+            raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)
+            written = np.where(censored != None, text.to_numpy(dtype=object), None)  # noqa: E711
+            raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
+
+    if "sampled_on" in raw.columns:
+        dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
+        reject(dates.bad, "sampled_on", dates.reasons, "D015")
+        raw["sampled_on"] = pd.Series(dates.text, index=raw.index, dtype=object)
+    for flag in FLAG_FIELDS:
+        if flag in raw.columns:
+            raw[flag] = _flag_text(raw[flag], columns.flags.get(flag, {}))
 
     for column, canonical in TEXT_VOCABULARIES.items():  # closed vocabularies: canonical spelling, or reject
         if column in raw.columns:
@@ -259,7 +246,27 @@ def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: st
 
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
-    return SampleBatch(accepted, tuple(rejects), len(raw) + len({r for r, _ in skipped}), name)
+    return SampleBatch(accepted, tuple(rejects), len(raw) + len({s[0] for s in skipped}), name, tuple(notes))
+
+
+def _translated(column: pd.Series, table: dict) -> pd.Series:
+    """Lab values rewritten by the map's table (each distinct value once); others kept as written."""
+    codes, uniques = pd.factorize(column.to_numpy(dtype=object), use_na_sentinel=True)
+    out = np.array([None if table.get(u, u) is None else str(table.get(u, u)) for u in uniques] + [None],
+                   dtype=object)
+    return pd.Series(out[codes], index=column.index, dtype=object)
+
+
+def _flag_text(column: pd.Series, own: dict) -> pd.Series:
+    """A yes/no flag as `true`/`false` where its spelling is known; other spellings are left for
+    the trend stage to reject with the row."""
+    spellings = {**FLAG_SPELLINGS, **own}
+    codes, uniques = pd.factorize(column.astype(object).to_numpy(dtype=object), use_na_sentinel=True)
+    out = []
+    for u in uniques:
+        meaning = spellings.get(str(u).strip().casefold())
+        out.append(u if meaning is None else ("true" if meaning else "false"))
+    return pd.Series(np.array(out + [None], dtype=object)[codes], index=column.index, dtype=object)
 
 
 _ASCII_SPACE = [c for c in map(chr, range(128)) if c.isspace()]
@@ -294,22 +301,45 @@ def _text_column(column: pd.Series) -> pd.Series:
     return pd.Series(cleaned[codes], index=column.index, dtype=object)
 
 
-def _number_column(column: pd.Series) -> tuple[np.ndarray, pd.Series | None, np.ndarray]:
-    """(float values, the text as written where not a number, cells that are not numbers)."""
+_NUMBER_LEADS = list("0123456789.-+")
+
+
+def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, pd.Series | None, np.ndarray]:
+    """(float values, the text as written where not a number, cells that are not numbers).
+
+    Text cells are handled with numpy's string functions (C loops): stripped, the decimal
+    mark swapped, and cells that start like a number converted in one call.
+    """
     if column.dtype.kind in "fiu":
         return column.to_numpy(dtype=float), None, np.zeros(len(column), dtype=bool)
-    original = column.astype(object)
-    is_bool = original.map(lambda v: isinstance(v, bool)).to_numpy(dtype=bool)
-    text = original.where(original.notna(), "").astype(str).str.strip()
-    parsed = pd.to_numeric(text.where(~is_bool, "x"), errors="coerce").to_numpy(dtype=float)
-    not_a_number = (text != "").to_numpy() & np.isnan(parsed)
-    return parsed, text, not_a_number
+    values = column.to_numpy(dtype=object)
+    present = pd.notna(values)
+    if pd.api.types.infer_dtype(values, skipna=True) in ("string", "empty", "floating", "integer",
+                                                         "mixed-integer-float"):
+        is_bool = np.zeros(len(values), dtype=bool)
+    else:
+        is_bool = np.fromiter((isinstance(v, bool) for v in values), dtype=bool, count=len(values))
+    text = np.strings.strip(np.where(present & ~is_bool, values, "").astype(str))
+    spelled = np.strings.replace(text, decimal, ".") if decimal != "." else text
+    looks = np.isin(np.strings.slice(spelled, 0, 1), _NUMBER_LEADS)
+    parsed = np.full(len(values), np.nan)
+    try:
+        parsed[looks] = np.array(spelled[looks].tolist(), dtype=float)  # Python's float(), twice numpy's speed
+    except ValueError:  # a cell like `1.2.3` or `12 ppm`: convert cell by cell, badly formed ones become NaN
+        parsed[looks] = pd.to_numeric(spelled[looks].astype(object), errors="coerce")
+    not_a_number = ((text != "") | is_bool) & np.isnan(parsed)
+    shown = np.full(len(values), None, dtype=object)  # the text of the cells that are not numbers only
+    shown[not_a_number] = text[not_a_number]
+    if is_bool.any():  # JSON true/false in a number column: not a number, quoted as written
+        shown[is_bool] = [str(v).lower() for v in values[is_bool]]
+    return parsed, pd.Series(shown, index=column.index, dtype=object), not_a_number
 
 
-def _found(prefix: str, column: pd.Series, mask: np.ndarray) -> np.ndarray:
+def _found(prefix: str, column: pd.Series, mask: np.ndarray, quoted: bool = False) -> np.ndarray:
     """Reasons quoting the offending cells; only the few offending cells are formatted."""
     reasons = np.full(len(column), "", dtype=object)
     for k in np.flatnonzero(mask):
         value = column.iat[k]
-        reasons[k] = prefix + (f"{value:g}" if isinstance(value, float) else str(value).strip())
+        value = f"{value:g}" if isinstance(value, float) else str(value).strip()
+        reasons[k] = prefix + (f"'{value}'" if quoted else value)
     return reasons

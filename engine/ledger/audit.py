@@ -52,15 +52,19 @@ def result_from_record(record: dict, grades: tuple) -> SampleResult:
         level=record["level"], reasons=tuple(reasons),
         caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())),
                                  next_step_from_record(c.get("next_step"))) for c in record["caveats"]),
-        not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"])) for n in record["not_evaluated"]),
+        not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"]), tuple(n.get("undecided", {}).items()))
+                            for n in record["not_evaluated"]),
         notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
         ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),
-        values=tuple(record["values"].items()), method=record["method"])
+        values=tuple(record["values"].items()), method=record["method"],
+        comment=record.get("comment"), comment_given="comment" in record)
 
 
 def _number(value) -> str:
     if value is None or (isinstance(value, float) and np.isnan(value)):
         return "-"
+    if isinstance(value, str):  # a censored reading, as the lab wrote it (`<0.05`)
+        return value
     return f"{value:.6g}"
 
 

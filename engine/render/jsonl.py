@@ -116,7 +116,13 @@ class _Literals:
         values = self.columns.number(name) if kind == "number" else self.columns.text(name)
         if values is None:
             return np.full(len(rows), "null", dtype=object)
-        return _number_literals(values[rows]) if kind == "number" else _text_literals(values[rows])
+        literals = _number_literals(values[rows]) if kind == "number" else _text_literals(values[rows])
+        written = self.columns.written(name) if kind == "number" else None
+        if written is not None:  # censored readings, as the lab wrote them
+            shown = written[rows]
+            here = pd.notna(shown)
+            literals[here] = _text_literals(shown[here])
+        return literals
 
 
 def states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
@@ -273,7 +279,9 @@ class _Writer:
         names = [n for n in rule_inputs(self.out.slots[j].rule) if n in measured.columns]
         rows = block.rows[local]
         columns = [self._missing(n)[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
-        self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j),
+        columns += [measured[n + ":written"].notna().to_numpy()[rows] for n in names  # censored, undecided
+                    if n + ":written" in measured.columns]
+        self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j, values),
                        lambda found: self.list_slots["gaps"].start + j)
 
     def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:

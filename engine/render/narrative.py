@@ -72,6 +72,8 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
 
     lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
              f"lubricant {result.lubricant or '(none)'}, sampled {result.sampled_on or '(date not given)'}"]
+    if result.comment:
+        lines.extend(wrap(f"Lab comment: {result.comment}", "  "))
     if result.level is None:
         lines.append(f"Grade: {result.grade.upper()}: no grade could be given.")
         lines.extend(wrap(f"Why: {result.unrated_because}.", "  "))
@@ -117,7 +119,9 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
         lines.append("")
         lines.append("Not evaluated (a missing value is never a pass):")
         for gap in result.not_evaluated:
-            lines.append(f"  - {gap.rule}: lacks {', '.join(gap.missing)}")
+            undecided = "; ".join(f"{name} written '{text}' does not decide it" for name, text in gap.undecided)
+            lines.extend(wrap(f"{gap.rule}: lacks {', '.join(gap.missing)}" + (f" ({undecided})" if undecided else ""),
+                              "  - "))
     lines.append("")
     lines.append(f"Rule set {result.ruleset_id} version {result.ruleset_version}, "
                  f"sha256 {result.ruleset_sha256}; {result.engine}.")

@@ -46,6 +46,10 @@ def wants_progress(stream, rows: int, min_rows: int = PROGRESS_MIN_ROWS) -> bool
     return stream is not None and rows > min_rows and callable(isatty) and bool(isatty())
 
 
+# Caveats meaning a sample was graded on less than it should be (the intake's no-silent-pass ones).
+FIRST_CAVEATS = ("unknown-lubricant", "unknown-class", "few-rules-evaluated")
+
+
 def _why(result) -> str:
     if result.reasons:
         why = ", ".join(f"{x.rule}" + (f" (capped from {x.capped_from})" if x.capped_from else "")
@@ -54,8 +58,9 @@ def _why(result) -> str:
         why = result.unrated_because
     else:
         why = "no limit crossed"
-    if result.caveats:
-        why += " | caveat: " + ", ".join(c.caveat for c in result.caveats)
+    if result.caveats:  # what may make the grade too mild first, so a cut line still shows it
+        names = sorted((c.caveat for c in result.caveats), key=lambda name: name not in FIRST_CAVEATS)
+        why += " | caveat: " + ", ".join(names)
     steps = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
     if steps:
         why += " | next: " + "; ".join(dict.fromkeys(step_phrase(s.task, s.within_days) for s in steps))

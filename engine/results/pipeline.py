@@ -7,8 +7,8 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from sumpwise.evaluation.evaluator import evaluate
-from sumpwise.derive.row_measures import derive_measures
+from sumpwise.evaluation.evaluator import COVERAGE_CAVEATS, coverage_notes, evaluate
+from sumpwise.derive.row_measures import LUBRICANT_CAVEATS, derive_measures
 from sumpwise.vocabulary.measures import INPUT_MEASURES
 from sumpwise.results.records import GradedBatch, recorded_derived
 from sumpwise.ruleset.model import RuleSet
@@ -34,21 +34,28 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     bases = trend_bases(ruleset)
     measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, bases,
                                   noise_margins(ruleset, bases))
-    for column in SPECTRUM_COLUMNS:
-        measured[column] = batch.frame[column] if column in batch.frame.columns else None
-    measured["oil_changed"] = (batch.frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in batch.frame.columns
-                               else np.zeros(len(measured), dtype=bool))
-    measured["ftir_convention_note"] = convention_notes(measured, ruleset)
+    added = {column: (batch.frame[column].to_numpy(dtype=object) if column in batch.frame.columns
+                      else np.full(len(measured), None, dtype=object)) for column in SPECTRUM_COLUMNS}
+    added["ftir_convention_note"] = convention_notes(measured, ruleset)
+    added["oil_changed"] = (batch.frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in batch.frame.columns
+                            else np.zeros(len(measured), dtype=bool))
+    measured = pd.concat([measured.drop(columns=[c for c in added if c in measured.columns]),
+                          pd.DataFrame(added, index=measured.index)], axis=1)  # one insert, not many
     outcome = evaluate(ruleset, measured)
+    measured = pd.concat([measured, pd.DataFrame(coverage_notes(ruleset, measured, outcome), index=measured.index)],
+                         axis=1)
+    intake_flags = [measured[c.message_column].notna().to_numpy() for c in LUBRICANT_CAVEATS + COVERAGE_CAVEATS]
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
-                                                  spectrum_caveat_flags(measured)]))
+                                                  spectrum_caveat_flags(measured),
+                                                  np.stack(intake_flags, axis=1)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
     if "oxidation" in carried and "method" in batch.frame.columns and "oxidation_differential" not in carried:
         # a differential reading is recorded under its own name (issue 11); decided by the columns, not the
         # values, so a record's shape does not depend on the other rows of its batch (replay re-grades subsets)
         carried += ("oxidation_differential",)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
-                       TREND_CAVEATS + SPECTRUM_CAVEATS, forecast(measured, ruleset), recorded_derived(ruleset, measured))
+                       TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS,
+                       forecast(measured, ruleset), recorded_derived(ruleset, measured))
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:

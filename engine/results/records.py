@@ -127,11 +127,18 @@ def next_step_from_record(record: dict | None) -> NextStep | None:
 
 @dataclass(frozen=True)
 class NotEvaluated:
+    """A rule not evaluated: the inputs it had no number for, and of those the censored
+    readings (as written) that did not decide it (`<50` against `above 20`)."""
+
     rule: str
     missing: tuple
+    undecided: tuple = ()  # (measure, reading as written)
 
     def to_record(self, form: str = FULL) -> dict:
-        return {"rule": self.rule, "missing": list(self.missing)}
+        record = {"rule": self.rule, "missing": list(self.missing)}
+        if self.undecided:
+            record["undecided"] = dict(self.undecided)
+        return record
 
 
 @dataclass(frozen=True)
@@ -161,6 +168,8 @@ class SampleResult:
     reference_spectrum: str | None = None  # the new-oil spectrum subtracted from it
     oil_changed: bool = False  # the sample's `oil_changed` flag as read (False when the file has none)
     derived: tuple = ()  # (name, value) of derived measures, as the engine computed and graded them
+    comment: str | None = None  # the lab's free-text remark, when the samples file has a comment column
+    comment_given: bool = False
 
     def to_record(self, form: str = FULL) -> dict:
         """The JSON Lines record; key names are the contract, key order is fixed per form."""
@@ -182,6 +191,8 @@ class SampleResult:
                       not_evaluated=[n.to_record(form) for n in self.not_evaluated])
         if self.unrated_because is not None:
             record["unrated_because"] = self.unrated_because
+        if self.comment_given:
+            record["comment"] = self.comment
         if form != COMPACT:
             record["notice"] = self.notice
         record.update(ruleset={"id": self.ruleset_id, "version": self.ruleset_version, "sha256": self.ruleset_sha256},
@@ -300,6 +311,11 @@ class ColumnArrays:
                 self._texts[name] = None
         return self._texts[name]
 
+    def written(self, name: str) -> np.ndarray | None:
+        """Censored readings of a measure as the lab wrote them (`<50`), None in other rows; None
+        when the measure has no censored reading (intake.censored keeps them in `<name>:written`)."""
+        return self.text(name + ":written")
+
     def missing(self, name: str) -> np.ndarray:
         """Each row's missing cell of a column (all missing when the column is absent)."""
         if name not in self._missing:
@@ -319,7 +335,10 @@ class RowValues:
         if values is None:
             return None
         value = values[i]
-        return None if value != value else float(value) + 0.0  # -0.0 is recorded as 0.0
+        if value != value:  # a censored reading is shown as the lab wrote it, never as its bound
+            written = self.columns.written(name)
+            return None if written is None else written[i]
+        return float(value) + 0.0  # -0.0 is recorded as 0.0
 
     def text(self, name: str, i: int):
         values = self.columns.text(name)
@@ -365,6 +384,11 @@ class BlockValues(RowValues):
             return (part == 1.0).tolist()
         listed = (part + 0.0).astype(object)
         listed[np.isnan(part)] = None
+        written = self.columns.written(name)
+        if written is not None:  # censored readings, as the lab wrote them
+            shown = written[start:stop]
+            here = shown != None  # noqa: E711 (elementwise on an object array)
+            listed[here] = shown[here]
         return listed.tolist()
 
     def number(self, name: str, i: int):
@@ -382,11 +406,14 @@ def _is_missing(batch: GradedBatch, name: str, i: int) -> bool:
     return bool(batch.columns.missing(name)[i])
 
 
-def gap_at(batch: GradedBatch, i: int, j: int) -> NotEvaluated:
+def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
     """What rule slot j lacked for row i (it was not evaluated)."""
     rule = batch.outcome.slots[j].rule
+    values = RowValues(batch.columns) if values is None else values
+    undecided = tuple((name, values.number(name, i)) for name in rule_inputs(rule)
+                      if (written := batch.columns.written(name)) is not None and written[i] is not None)
     missing = [name for name in rule_inputs(rule) if _is_missing(batch, name, i)]
-    return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]))
+    return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]), undecided)
 
 
 def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
@@ -441,7 +468,7 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
     rs, out = batch.ruleset, batch.outcome
     grades = rs.grades
     finals = out.final[i]
-    not_evaluated = [gap_at(batch, i, int(j)) for j in np.flatnonzero(finals == NOT_EVALUATED)]
+    not_evaluated = [gap_at(batch, i, int(j), values) for j in np.flatnonzero(finals == NOT_EVALUATED)]
     reasons = [reason_at(batch, i, int(j), values) for j in np.flatnonzero(finals > 0)]
     reasons.sort(key=lambda reason: -reason.level)  # stable: rule order within a grade
     caveats = [caveat_at(batch, i, int(k), values) for k in np.flatnonzero(out.caveats[i])]
@@ -462,7 +489,9 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
         values=tuple((name, values.number(name, i)) for name in batch.value_columns),
         method=values.text("method", i), spectrum=values.text("spectrum", i),
         reference_spectrum=values.text("reference_spectrum", i), oil_changed=values.flag("oil_changed", i),
-        derived=tuple((name, values.number(name, i)) for name in batch.derived_columns))
+        derived=tuple((name, values.number(name, i)) for name in batch.derived_columns),
+        comment=values.text("comment", i) if "comment" in batch.measured.columns else None,
+        comment_given="comment" in batch.measured.columns)
 
 
 def _capped_by(rs: RuleSet, out: Outcome, i: int, rule, final: int) -> str | None:

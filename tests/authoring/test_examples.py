@@ -35,12 +35,12 @@ def test_failing_examples_say_where_and_what_differs():
     # an 0.45 - new 0.10 = 0.35: above the 0.2 watch limit, not above the 0.4 alert limit.
     assert wrong.differences == ("grade: expected normal, got watch",
                                  "quiet: expected acid-rise to stay quiet, but it fired (watch)")
-    assert wrong.actual == "grade watch; fired: acid-rise (watch)"
+    assert wrong.actual == "grade watch; fired: acid-rise (watch); caveats: few-rules-evaluated"
     text = wrong.render().splitlines()
     assert text[0].endswith("examples-fail.yaml:9:5: error E001: example 'wrong grade and a rule that fired' does not hold")
     assert text[1:] == ["    - grade: expected normal, got watch",
                         "    - quiet: expected acid-rise to stay quiet, but it fired (watch)",
-                        "    actual: grade watch; fired: acid-rise (watch)"]
+                        "    actual: grade watch; fired: acid-rise (watch); caveats: few-rules-evaluated"]
     assert failures["a rule that lacks a value"].differences == (
         "fires: expected visc-drift to fire, but it could not be evaluated (missing kv40)",)
     assert "caveats: expected caveat ester-carbonyl on the sample, but it was not raised" in \

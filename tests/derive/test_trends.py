@@ -181,10 +181,11 @@ def test_rules_on_trend_measures_grade_and_say_what_was_lacking():
     assert "viscosity-keeps-rising" in {r.rule for r in fourth.reasons}  # 46.0, 46.5, 47.0, 47.5: three rises
     broken = graded.find("T-05")
     # its reading is now differential, and this class grades only direct-trend oxidation: said, not silent
-    assert [c.caveat for c in broken.caveats] == ["trend-break", "ftir-other-convention"]
+    assert [c.caveat for c in broken.caveats if c.caveat != "few-rules-evaluated"] == ["trend-break",
+                                                                                        "ftir-other-convention"]
     assert "method changed from direct to subtraction and lab changed from lab-a to lab-b" in broken.caveats[0].message
     changed = graded.find("T-06")
-    assert [c.caveat for c in changed.caveats] == ["oil-changed"]
+    assert [c.caveat for c in changed.caveats if c.caveat != "few-rules-evaluated"] == ["oil-changed"]
     assert graded.find("T-09").caveats[0].message.startswith("first sample after an oil change (oil_changed is set")
 
 

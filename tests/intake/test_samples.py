@@ -16,11 +16,12 @@ def test_each_bad_row_is_rejected_with_row_field_and_reason():
     assert got == [(2, "G-2", "kv40"), (3, None, "sample_id"), (4, "G-1", "sample_id"),
                    (5, "G-5", "oil_hours"), (6, "G-6", "kv40"), (7, None, "(row)")]
     reasons = {r.row: r.reason for r in batch.rejects}
-    assert reasons[2] == "expected a number, found 'pending'"
+    assert reasons[2] == "expected a number or a censored reading such as <0.05, found 'pending'"
     assert reasons[4] == "sample id 'G-1' already seen at row 1"
     assert reasons[5] == "cannot be negative, found -5"
     assert reasons[6] == "must be above 0, found -46.1"
-    assert "expected 9 fields, saw 10" in reasons[7]
+    assert "has 10 field(s), the header has 9" in reasons[7]
+    assert {r.row: r.code for r in batch.rejects}[7] == "D013"
     assert list(batch.frame.index) == [1, 8]
     assert batch.rows_read == 8
     assert batch.rejected_rows + len(batch.frame) == batch.rows_read
@@ -102,7 +103,7 @@ def test_a_byte_order_mark_is_not_part_of_the_first_column(tmp_path):
 def test_a_file_that_is_not_utf8_is_an_input_error(tmp_path):
     path = tmp_path / "latin1.csv"
     path.write_bytes("sample_id,unit_id,class\nC-1,Pump\u00e9,pump\n".encode("latin-1"))
-    with pytest.raises(InputError, match="cannot read the file"):
+    with pytest.raises(InputError, match="line 2: byte 0xe9 is not utf-8 text.*cp1252"):
         read_samples(path)
 
 

@@ -24,7 +24,7 @@ def test_csv_rows_agree_with_the_records():
     assert row["ruleset_sha256"] == rs.sha256
 
 
-def test_csv_agrees_with_every_record_onrandom_samples():
+def test_csv_agrees_with_every_record_on_random_samples():
     from conftest import ROOT
     from random_samples import random_samples
 

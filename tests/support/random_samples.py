@@ -1,5 +1,5 @@
 """Random samples of every class and lubricant of a rule set (and some that no rule set knows),
-with 15 % of each reading missing: input for the oracle and writer agreement tests."""
+with 15 % of each reading missing and 5 % censored: input for the oracle and writer agreement tests."""
 
 from __future__ import annotations
 
@@ -7,7 +7,8 @@ import numpy as np
 import pandas as pd
 
 
-def random_samples(ruleset, n: int, seed: int) -> pd.DataFrame:
+def random_samples(ruleset, n: int, seed: int, censored: float = 0.05) -> pd.DataFrame:
+    """`censored` of the readings are written as a lab's bound (`<x`, `>x`, `<=x`), as text."""
     rng = np.random.default_rng(seed)
     classes = list(ruleset.classes) + ["unknown-class"]
     lubricants = list(ruleset.lubricants) + ["NO-SUCH-OIL"]
@@ -25,4 +26,10 @@ def random_samples(ruleset, n: int, seed: int) -> pd.DataFrame:
         values = rng.uniform(lo, hi, n).round(3)
         values[rng.random(n) < 0.15] = np.nan
         frame[name] = values
+        cut = (rng.random(n) < censored) & ~np.isnan(values)
+        if cut.any():
+            signs = rng.choice(["<", ">", "<="], n)
+            column = frame[name].astype(object)
+            column[cut] = [f"{sign}{value:g}" for sign, value in zip(signs[cut], values[cut])]
+            frame[name] = column
     return frame

@@ -3,14 +3,64 @@
 Two uses: the benchmark's baseline (how fast the obvious loop is), and the tests'
 oracle, written independently of sumpwise.vocabulary.measures and sumpwise.evaluation.evaluator, which must agree
 with the vectorized engine on every grade and every fired rule.
+
+Censored readings (`<0.05`, `>5000`, `<=3`) are intervals here too, decided independently
+of the engine's region arithmetic: a test is tried at the interval's ends (or just inside
+an open end), at every limit inside it and between those points; it is known when all
+agree. Ends follow each measure's range as the lab can report it (viscosities above 0,
+acid and base number, water, hours and RPVOT from 0; from memory of what a lab reports).
 """
 
 from __future__ import annotations
 
 import math
+import re
 
 from sumpwise.ruleset.model import AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest
 from sumpwise.derive.viscosity import viscosity_index
+
+
+_FROM_ZERO = {"an", "bn", "water", "oil_hours", "rpvot"}
+_ABOVE_ZERO = {"kv40", "kv100"}
+_CENSORED = re.compile(r"^(<=|>=|<|>)\s*([0-9.eE+-]+)$")
+
+
+class Interval:
+    """An interval [lo, hi], each end possibly open; infinite ends are open."""
+
+    def __init__(self, lo, hi, lo_in, hi_in):
+        self.lo, self.hi = lo, hi
+        self.lo_in, self.hi_in = lo_in and math.isfinite(lo), hi_in and math.isfinite(hi)
+
+    def points(self, limits):
+        lo = self.lo if self.lo_in else (math.nextafter(self.lo, math.inf) if math.isfinite(self.lo) else -1e300)
+        hi = self.hi if self.hi_in else (math.nextafter(self.hi, -math.inf) if math.isfinite(self.hi) else 1e300)
+        inner = sorted({lo, hi} | {x for x in limits if lo <= x <= hi})
+        between = [(a + b) / 2 for a, b in zip(inner, inner[1:])]
+        near = [math.nextafter(x, d) for x in inner for d in (-math.inf, math.inf)]
+        return [p for p in inner + between + near if lo <= p <= hi]
+
+
+def _censored(name, value):
+    """An Interval for a censored cell of measure `name`, else None."""
+    if not isinstance(value, str):
+        return None
+    found = _CENSORED.match(value.strip())
+    if not found:
+        return None
+    sign, bound = found.group(1), float(found.group(2))
+    floor = 0.0 if name in _FROM_ZERO | _ABOVE_ZERO else -math.inf
+    if sign.startswith("<"):
+        return Interval(floor, bound, name in _FROM_ZERO, sign == "<=")
+    return Interval(bound, math.inf, sign == ">=", False)
+
+
+def _map(interval, f, rising=True):
+    """The interval through a monotonic function f (ends rounded like the engine's measures)."""
+    lo, hi = round(f(interval.lo), 9), round(f(interval.hi), 9)
+    if not rising:
+        return Interval(hi, lo, interval.hi_in, interval.lo_in)
+    return Interval(lo, hi, interval.lo_in, interval.hi_in)
 
 
 def _num(value):
@@ -84,12 +134,50 @@ def derive_row(row: dict, lubricants: dict) -> dict:
         value = float(viscosity_index([kv40], [kv100])[0])
         vi = None if math.isnan(value) else value
     out["vi"] = vi
+    intervals = {name: _censored(name, row.get(name)) for name in ("kv40", "kv100", "an", "bn", "oxidation",
+                                                                    "nitration", "sulfation", "antiwear", "soot",
+                                                                    "water", "oil_hours", "rpvot")}
+    intervals = {k: v for k, v in intervals.items() if v is not None}
+    if method == "subtraction" and "oxidation" in intervals:  # a censored differential reading
+        intervals["oxidation_differential"] = intervals.pop("oxidation")
+        out["oxidation_differential"] = None
+
+    def carry(name, source, f, rising=True):
+        if source in intervals and all(x is not None for x in f.__defaults__ or ()):
+            try:
+                intervals[name] = _map(intervals[source], f, rising)
+            except (TypeError, ZeroDivisionError):
+                pass
+
+    for name, ref in (("kv40", "kv40"), ("kv100", "kv100")):
+        if new[ref] not in (None, 0):
+            carry(f"{name}_change_pct", name, lambda x, n=new[ref]: (x - n) / n * 100.0)
+    if new["an"] is not None:
+        carry("an_rise", "an", lambda x, n=new["an"]: x - n)
+    if new["oxidation"] is not None:
+        carry("oxidation_rise", "oxidation", lambda x, n=new["oxidation"]: x - n)
+    if hours is not None and hours > 0:
+        carry("oxidation_rise_per_1000h", "oxidation_rise", lambda x, h=hours: x * (1000.0 / h))
+        carry("an_rise_per_1000h", "an_rise", lambda x, h=hours: x * (1000.0 / h))
+        carry("oxidation_differential_per_1000h", "oxidation_differential", lambda x, h=hours: x * (1000.0 / h))
+    if new["bn"] not in (None, 0):
+        carry("bn_retained_pct", "bn", lambda x, n=new["bn"]: x / n * 100.0)
+    if new["rpvot"] not in (None, 0):
+        carry("rpvot_retained_pct", "rpvot", lambda x, n=new["rpvot"]: x / n * 100.0)
+    bn, an = intervals.get("bn"), intervals.get("an")
+    if bn is not None and an is None and out.get("an") is not None:
+        carry("bn_minus_an", "bn", lambda x, a=out["an"]: x - a)
+    elif an is not None and bn is None and out.get("bn") is not None:
+        carry("bn_minus_an", "an", lambda x, b=out["bn"]: b - x, rising=False)
+    elif an is not None and bn is not None:
+        intervals["bn_minus_an"] = Interval(round(bn.lo - an.hi, 9), round(bn.hi - an.lo, 9),
+                                            bn.lo_in and an.hi_in, bn.hi_in and an.lo_in)
     texts = {k: _text(v) for k, v in row.items()}
     base = texts.get("base_stock") or (lub.base_stock if lub is not None else None)
     texts["base_stock"] = base
     texts["method"] = method
     texts["base_stock_family"] = _family(base)
-    return {"numbers": out, "texts": texts}
+    return {"numbers": out, "texts": texts, "intervals": intervals}
 
 
 # Written out here, not read from sumpwise.vocabulary.base_stocks: any carbonyl ester part makes the
@@ -117,14 +205,28 @@ def _test(test, value, limit) -> bool:
     return abs(value) > limit
 
 
+def _limits(limit):
+    return list(limit) if isinstance(limit, tuple) else [limit, -limit]
+
+
+def measure_truth(sample, measure, test, limit) -> bool | None:
+    """A limit test on a number, or on a censored reading's interval (known when all its points agree)."""
+    interval = sample["intervals"].get(measure)
+    if interval is not None:
+        seen = {_test(test, p, limit) for p in interval.points(_limits(limit))}
+        return seen.pop() if len(seen) == 1 else None
+    value = sample["numbers"].get(measure)
+    return None if value is None else _test(test, value, limit)
+
+
 def truth(condition, sample) -> bool | None:
     """True, False, or None for unknown (Kleene logic)."""
     numbers, texts = sample["numbers"], sample["texts"]
     if isinstance(condition, MeasureTest):
-        value = numbers.get(condition.measure)
-        return None if value is None else _test(condition.test, value, condition.limit)
+        return measure_truth(sample, condition.measure, condition.test, condition.limit)
     if isinstance(condition, MissingTest):
-        return (numbers.get(condition.measure) is None) == condition.missing
+        absent = numbers.get(condition.measure) is None and condition.measure not in sample["intervals"]
+        return absent == condition.missing
     if isinstance(condition, FieldTest):
         value = texts.get(condition.field)
         if value is None:
@@ -159,13 +261,12 @@ def grade_row(ruleset, row: dict):
     fired, evaluated = {}, False
     for rule in ruleset.rules_for(class_name):
         if isinstance(rule, LadderRule):
-            value = sample["numbers"].get(rule.measure)
-            if value is None:
-                continue
-            level = 0
-            for step_level, limit in rule.steps:
-                if _test(rule.test, value, limit):
-                    level = step_level
+            outcomes = [(step_level, measure_truth(sample, rule.measure, rule.test, limit))
+                        for step_level, limit in rule.steps]
+            crossed = [step_level for step_level, held in outcomes if held is True]
+            if not crossed and any(held is None for _, held in outcomes):
+                continue  # nothing known crossed, something undecided: not evaluated
+            level = max(crossed, default=0)
         else:
             outcome = truth(rule.when, sample)
             if outcome is None:
