@@ -2,7 +2,8 @@
 
 Exit codes keep findings apart from failures, so a pipeline can tell them apart:
 0 done; 1 internal fault (a bug); 2 usage error, unreadable input or invalid rule
-set; 3 findings: a sample reached the `--fail-at` grade (or `compare` saw a move).
+set; 3 findings: a sample reached the `--fail-at` grade (or `compare` saw a move, replay a difference,
+or a ledger import rejected rows whose sample id was recorded with other values).
 """
 
 from __future__ import annotations
@@ -134,6 +135,16 @@ def _parser(stdout) -> _Parser:
                                  out=stdout, description="Re-grade every recorded sample with the rule set it "
                                                          "was graded with; exit 3 if any result differs.")
     ledger_cli.add_replay_arguments(replay)
+
+    rulesets = commands.add_parser("rulesets", help="list the ledger's rule sets, or print one as a rule-set file",
+                                   out=stdout, description="List the rule sets a ledger recorded, or write one "
+                                                           "(by fingerprint or ID@VERSION) as a one-file rule set.")
+    ledger_cli.add_rulesets_arguments(rulesets)
+
+    find = commands.add_parser("find", help="list recorded samples by rule fired, grade, unit, dates, rule set",
+                               out=stdout, description="List the ledger's samples that match every filter given "
+                                                       "(or its recorded rejected rows).")
+    ledger_cli.add_find_arguments(find)
     return parser
 
 
@@ -236,7 +247,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
             raise UsageError(f"sumpwise grade: --fail-at {args.fail_at!r} is not on the grade ladder "
                              f"[{', '.join(ruleset.grades)}]")
         fail_level = ruleset.level_of(args.fail_at)
-    graded = ledger_cli.grade(args, batch, ruleset, stderr)
+    graded, conflicts = ledger_cli.grade(args, batch, ruleset, stderr)
     writer = {"jsonl": write_jsonl, "csv": write_csv,
               "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
     if args.out:
@@ -246,7 +257,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
         writer(graded, stdout)
     _write_rejects(graded, args.rejects, stderr)
     stderr.write(_summary(graded))
-    if fail_level is not None and (graded.outcome.level >= fail_level).any():
+    if conflicts or (fail_level is not None and (graded.outcome.level >= fail_level).any()):
         return FINDINGS
     return OK
 
@@ -330,7 +341,9 @@ def _replay(args, stdin, stdout, stderr) -> int:
 
 _COMMANDS = {"check": _check, "grade": _grade, "explain": _explain, "demo": _demo, "spectra": _spectra,
              "compare": _compare, "propose-limits": _propose_limits, "report": _report,
-             "history": _history, "replay": _replay}
+             "history": _history, "replay": _replay,
+             "rulesets": lambda args, stdin, stdout, stderr: ledger_cli.run_rulesets(args, stdout, stderr),
+             "find": lambda args, stdin, stdout, stderr: ledger_cli.run_find(args, stdout, stderr)}
 
 
 def entry() -> None:
