@@ -229,8 +229,10 @@ def _typed_mismatch(entries: pd.DataFrame, frame: pd.DataFrame) -> np.ndarray:
     """Rows whose typed columns (what history and queries read) disagree with their stored content."""
     bad = np.zeros(len(entries), dtype=bool)
     for name in _TYPED:
+        if name not in frame.columns:  # a default the engine filled in (or a value derived): not in the content
+            continue
         stored = entries[name].to_numpy(dtype=object)
-        content = frame[name].to_numpy(dtype=object) if name in frame.columns else np.full(len(frame), None)
+        content = frame[name].to_numpy(dtype=object)
         a = pd.Series(stored, dtype=object)
         b = pd.Series(content, dtype=object)
         if name in ("oil_hours",) + TREND_BASES:
@@ -252,7 +254,8 @@ def _facts_differ(entries: pd.DataFrame, facts, k: int) -> str:
     if stored_grade != facts.grades[k]:
         parts.append(f"stored {stored_grade}, replayed {facts.grades[k]}")
     if pd.isna(stored_level) != (level < 0) or (level >= 0 and stored_level != level):
-        parts.append(f"stored level {stored_level}, replayed {level if level >= 0 else None}")
+        shown = None if pd.isna(stored_level) else int(stored_level)
+        parts.append(f"stored level {shown}, replayed {level if level >= 0 else None}")
     if entries["facts"].iat[k] != facts.shapes[facts.shape_of[k]]:
         parts.append("its reasons, caveats or gaps differ")
     if entries["vals"].iat[k] != facts.values[k]:

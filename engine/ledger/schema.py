@@ -192,7 +192,7 @@ def v2_result(record: dict, grades: tuple) -> SampleResult:
 
 def _step_3_data(conn: sqlite3.Connection) -> None:
     """Schema-2 record texts become verdicts (shape and values); then the chain is computed."""
-    grades = {sha: tuple(json.loads(text)["grades"]) for sha, text in
+    grades = {sha: tuple(json.loads(text).get("grades", ())) for sha, text in
               conn.execute("SELECT sha256, canonical FROM rulesets").fetchall()}
     cursor = conn.execute("SELECT r.entry, r.grade, r.level, r.record || b.record_tail, b.ruleset_sha256 "
                           "FROM results r JOIN samples s ON s.entry = r.entry JOIN batches b ON b.batch = s.batch "

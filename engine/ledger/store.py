@@ -137,24 +137,28 @@ def open_ledger(path, create: bool = True, write: bool = True) -> sqlite3.Connec
     """
     path = Path(path)
     identity = _usable_path(path, create and write)
-    current = identity is not None and identity[0] == SCHEMA_VERSION
     try:
-        if not write and identity is not None and (current or not _writable(path)):
+        if not write and identity is not None:
             conn = _read_only(path)
-            if not current:
+            version = _check_identity(conn, path)
+            if version == SCHEMA_VERSION:
+                return conn
+            if not _writable(path):
                 conn = _in_memory(conn)
                 migrate(conn)
-            return conn
+                return conn
+            conn.close()
         if not _writable(path):
             raise LedgerError(f"{path}: the ledger (or its folder) is read-only: reading commands (history, "
                               f"explain, replay, report) work, recording needs write permission")
         conn = sqlite3.connect(path, timeout=BUSY_SECONDS, isolation_level=None)
         try:
+            version = _check_identity(conn, path)  # reads only: a refused file is left as it was
             conn.execute(f"PRAGMA page_size={PAGE_SIZE}")  # before WAL; no effect on an existing database
             conn.execute("PRAGMA journal_mode=WAL")
             conn.execute("PRAGMA synchronous=NORMAL")  # WAL: a crash never corrupts; power loss may drop the last batch
             conn.execute("PRAGMA foreign_keys=ON")
-            if not current:
+            if version < SCHEMA_VERSION:
                 migrate(conn)
         except BaseException:
             conn.close()
@@ -162,6 +166,20 @@ def open_ledger(path, create: bool = True, write: bool = True) -> sqlite3.Connec
     except sqlite3.DatabaseError as exc:
         raise LedgerError(f"{path}: not a usable sumpwise ledger: {exc}") from None
     return conn
+
+
+def _check_identity(conn: sqlite3.Connection, path: Path) -> int:
+    """The ledger's schema version, from SQLite (the header may lag behind a WAL file); refuse others."""
+    app = conn.execute("PRAGMA application_id").fetchone()[0]
+    version = conn.execute("PRAGMA user_version").fetchone()[0]
+    tables = conn.execute("SELECT count(*) FROM sqlite_master").fetchone()[0]
+    if app != APPLICATION_ID and (app != 0 or version != 0 or tables != 0):
+        raise LedgerError(f"{path}: not a sumpwise ledger: it is an SQLite database of another kind "
+                          f"(application id {app:#x}, {tables} schema object(s)); sumpwise will not change it")
+    if version > SCHEMA_VERSION:
+        raise LedgerError(f"{path}: the ledger has schema version {version}, newer than this sumpwise "
+                          f"understands ({SCHEMA_VERSION}); use a newer sumpwise")
+    return version
 
 
 def _read_only(path: Path) -> sqlite3.Connection:
