@@ -63,5 +63,5 @@ def test_ftir_walkthrough():
     assert records["FT-001"]["method"] == "subtraction"
     # Read by subtraction against its own new-oil spectrum: the subtraction form of the ester caveat.
     assert [c["caveat"] for c in records["FT-007"]["caveats"]] == ["ester-subtracted", "base-stock-inferred"]
-    assert "FT-009" not in records and "rejected: spectrum" in run.err
+    assert "FT-009" not in records and "rejected F001: spectrum" in run.err
     assert records["FT-004"]["grade"] == "alert"

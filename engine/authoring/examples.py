@@ -29,9 +29,10 @@ class ExampleFailure:
     column: int
     differences: tuple  # one sentence each
     actual: str
+    code: str = "E001"
 
     def render(self) -> str:
-        lines = [f"{self.file}:{self.line}:{self.column}: error: example '{self.name}' does not hold"]
+        lines = [f"{self.file}:{self.line}:{self.column}: error {self.code}: example '{self.name}' does not hold"]
         lines += [f"    - {difference}" for difference in self.differences]
         lines.append(f"    actual: {self.actual}")
         return "\n".join(lines)

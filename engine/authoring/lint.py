@@ -7,53 +7,23 @@ or oxidation, a limit whose size disagrees with the unit it is written in, and a
 source too vague for an auditor. Warnings are Problem records (severity
 "warning") with the file and line of the rule and a one-line hint.
 
-Value sets are unions of intervals; inclusion and emptiness are decided by testing
-the finitely many points where membership can change (every interval end and a
-point between each two), which is exact for intervals.
+Value sets are unions of intervals (sumpwise.vocabulary.intervals); where a test holds
+and what a measure can take come from the vocabulary's limit-test and measure tables.
 """
 
 from __future__ import annotations
 
-import math
 import re
 from dataclasses import dataclass
 
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, unit_key
+from sumpwise.vocabulary.intervals import can_hold, covered
+from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
+from sumpwise.vocabulary.measures import domain_of, measure_unit, unit_key
 from sumpwise.vocabulary.problems import Problem
-from sumpwise.ruleset.model import (AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest, Not, Origin,
-                      RuleSet)
-from sumpwise.vocabulary.units import CANONICAL, FACTORS, UNIT_FAMILY
-
-INF = math.inf
-
-
-@dataclass(frozen=True)
-class Span:
-    """One interval of values; `low_in`/`high_in` say whether its ends belong to it."""
-
-    low: float
-    high: float
-    low_in: bool = False
-    high_in: bool = False
-
-    def holds(self, value: float) -> bool:
-        above_low = value > self.low or (self.low_in and value == self.low)
-        below_high = value < self.high or (self.high_in and value == self.high)
-        return above_low and below_high
-
-
-EVERYTHING = (Span(-INF, INF),)
-
-# The values a measure can take at all; samples.py rejects negative acid numbers, water
-# and hours and viscosities at or below zero, so a test outside these can never hold.
-_NOT_NEGATIVE = (Span(0.0, INF, low_in=True),)
-DOMAINS = {
-    "an": _NOT_NEGATIVE, "bn": _NOT_NEGATIVE, "water": _NOT_NEGATIVE, "oil_hours": _NOT_NEGATIVE,
-    "rpvot": _NOT_NEGATIVE, "bn_retained_pct": _NOT_NEGATIVE, "rpvot_retained_pct": _NOT_NEGATIVE,
-    "kv40": (Span(0.0, INF),), "kv100": (Span(0.0, INF),),
-    # (used - new) / new x 100 with both viscosities above zero lies above -100 %.
-    "kv40_change_pct": (Span(-100.0, INF),), "kv100_change_pct": (Span(-100.0, INF),),
-}
+from sumpwise.ruleset.model import (AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest,
+                                    Origin, RuleSet, leaves)
+from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.units import CANONICAL, FACTORS
 
 # A class's rules should watch the three signs of oil ageing, each through one of these.
 COVERAGE = {
@@ -64,43 +34,8 @@ COVERAGE = {
 
 
 def region(test: str, limit) -> tuple:
-    """The values for which `value <test> limit` holds (evaluate.TESTS, as intervals)."""
-    if test == "above":
-        return (Span(limit, INF),)
-    if test == "below":
-        return (Span(-INF, limit),)
-    if test == "between":
-        return (Span(limit[0], limit[1], True, True),)
-    low, high = limit if isinstance(limit, tuple) else (-limit, limit)
-    if low > high:  # |value| > a negative number: every value
-        return EVERYTHING
-    return Span(-INF, low), Span(high, INF)
-
-
-def _inside(spans: tuple, value: float) -> bool:
-    return any(span.holds(value) for span in spans)
-
-
-def _points(*regions: tuple) -> list[float]:
-    ends = sorted({end for spans in regions for span in spans for end in (span.low, span.high) if math.isfinite(end)})
-    if not ends:
-        return [0.0]
-    between = [(a + b) / 2.0 for a, b in zip(ends, ends[1:])]
-    return [ends[0] - 1.0, *ends, *between, ends[-1] + 1.0]
-
-
-def can_hold(*regions: tuple) -> bool:
-    """Some value lies in every one of the regions."""
-    return any(all(_inside(spans, p) for spans in regions) for p in _points(*regions))
-
-
-def covered(part: tuple, whole: tuple, domain: tuple) -> bool:
-    """Every possible value (in `domain`) of `part` lies in `whole`."""
-    return all(_inside(whole, p) for p in _points(part, whole, domain) if _inside(part, p) and _inside(domain, p))
-
-
-def domain_of(measure: str) -> tuple:
-    return DOMAINS.get(measure, EVERYTHING)
+    """The values for which `value <test> limit` holds, as intervals."""
+    return LIMIT_TESTS[test].region(limit)
 
 
 # -- conditions that can never be true ------------------------------------------------------------
@@ -209,8 +144,9 @@ def lint_ruleset(ruleset: RuleSet) -> tuple[Problem, ...]:
     return tuple(sorted(found, key=lambda p: (p.file, p.line, p.column, p.message)))
 
 
-def _warning(origin: Origin, message: str, hint: str) -> Problem:
-    return Problem(origin.file, origin.line, origin.column, message, origin.path, severity="warning", hint=hint)
+def _warning(code: str, origin: Origin, message: str, hint: str) -> Problem:
+    return Problem(origin.file, origin.line, origin.column, message, origin.path, severity="warning", hint=hint,
+                   code=code)
 
 
 def _where(origin: Origin) -> str:
@@ -236,7 +172,7 @@ def _shadowed(ruleset: RuleSet):
                     continue
                 if j > i and shadows(weak, strong):
                     continue  # two rules that give the same: report the later one only
-                yield _warning(
+                yield _warning("W001",
                     weak.origin,
                     f"in class '{name}', rule '{weak.id}' is always shadowed by rule '{strong.id}' "
                     f"({_where(strong.origin)}): whenever it fires, '{strong.id}' gives the same grade or higher, "
@@ -248,14 +184,14 @@ def _shadowed(ruleset: RuleSet):
 def _impossible(ruleset: RuleSet):
     for rule in _all_rules(ruleset):
         if isinstance(rule, ConditionRule) and (why := never_true(rule.when)):
-            yield _warning(rule.origin, f"rule '{rule.id}' can never fire: its condition can never be true ({why})",
+            yield _warning("W002", rule.origin, f"rule '{rule.id}' can never fire: its condition can never be true ({why})",
                            "check the limits and the units; perhaps `any` or `between` was meant")
     for caveat in ruleset.caveats:
         if why := never_true(caveat.when):
-            yield _warning(caveat.origin, f"caveat '{caveat.id}' can never apply: its `when` can never be true "
+            yield _warning("W003", caveat.origin, f"caveat '{caveat.id}' can never apply: its `when` can never be true "
                                           f"({why})", "check the limits and the field values")
         if caveat.cap is not None and (why := never_true(caveat.cap.unless)):
-            yield _warning(caveat.origin, f"caveat '{caveat.id}': its `unless` can never be true ({why}), so the "
+            yield _warning("W004", caveat.origin, f"caveat '{caveat.id}': its `unless` can never be true ({why}), so the "
                                           f"cap is never lifted", "check the limits, or remove `unless`")
 
 
@@ -267,14 +203,14 @@ def _ladders(ruleset: RuleSet):
         domain = domain_of(rule.measure)
         for level, limit in rule.steps:
             if not can_hold(region(rule.test, limit), domain):
-                yield _warning(rule.origin,
+                yield _warning("W005", rule.origin,
                                f"rule '{rule.id}': no value reaches its '{grades[level]}' limit "
                                f"({rule.measure} {rule.test} {_num(limit)}; {rule.measure} never takes such a value)",
                                f"give '{grades[level]}' a limit {rule.measure} can cross")
         levels = [level for level, _ in rule.steps]
         skipped = [grades[level] for level in range(min(levels), max(levels)) if level not in levels]
         if skipped:
-            yield _warning(rule.origin,
+            yield _warning("W006", rule.origin,
                            f"rule '{rule.id}' has a gap in its ladder: limits for "
                            f"{', '.join(grades[level] for level in levels)} but none for {', '.join(skipped)}",
                            f"add a limit for {', '.join(skipped)} between its neighbours, or say in `source` why "
@@ -293,7 +229,7 @@ def _unreached_grades(ruleset: RuleSet):
         reached = set().union(*(_reachable_levels(rule) for rule in ruleset.rules_for(name)))
         missing = [grade for level, grade in enumerate(ruleset.grades) if level > 0 and level not in reached]
         if missing and reached:
-            yield _warning(origin, f"no rule of class '{name}' can give {', '.join(missing)}: "
+            yield _warning("W007", origin, f"no rule of class '{name}' can give {', '.join(missing)}: "
                                    f"those grades of the ladder are never reached for this class",
                            f"give a rule a limit for {missing[-1]}, or accept that the class tops out below it")
 
@@ -312,7 +248,7 @@ def _coverage(ruleset: RuleSet):
         read = set().union(*(rule.reads for rule in ruleset.rules_for(name)))
         for sign, measures in COVERAGE.items():
             if not read & set(measures):
-                yield _warning(origin, f"class '{name}' has no rule on {sign} (none of its rules reads "
+                yield _warning("W008", origin, f"class '{name}' has no rule on {sign} (none of its rules reads "
                                        f"{', '.join(measures)})",
                                f"add a rule on {sign}, e.g. a ladder on {measures[1]}")
 
@@ -354,13 +290,7 @@ def _limits(rule) -> list[tuple[str, float]]:
 
 
 def _condition_limits(condition) -> list[tuple[str, float]]:
-    if isinstance(condition, MeasureTest):
-        return [(condition.measure, end) for end in _ends(condition.limit)]
-    if isinstance(condition, (AllOf, AnyOf)):
-        return [pair for part in condition.parts for pair in _condition_limits(part)]
-    if isinstance(condition, Not):
-        return _condition_limits(condition.part)
-    return []
+    return [(leaf.measure, end) for leaf in leaves(condition) if leaf.kind == "measure" for end in _ends(leaf.limit)]
 
 
 def _ends(limit) -> tuple:
@@ -381,19 +311,14 @@ def _units(ruleset: RuleSet):
             if why:
                 troubled.setdefault((measure, why), []).append(_written(ruleset, owner.origin, measure, limit))
         for (measure, why), written in troubled.items():
-            unit = written[0][1] or _unit_of(measure)
+            unit = written[0][1] or measure_unit(measure)
             values = ", ".join(_num(value) for value, _ in written)
             key = unit_key(measure)
             declared = (f"this file writes {key} in {unit}; " if written[0][1] else "")
-            yield _warning(owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
+            yield _warning("W009", owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
                                          f"in the wrong unit: {why}",
                            f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
                            if declared else f"write the limit in {unit}")
-
-
-def _unit_of(measure: str) -> str:
-    derived = DERIVED_MEASURES.get(measure)
-    return derived.unit if derived else ""
 
 
 # -- sources --------------------------------------------------------------------------------------
@@ -425,10 +350,10 @@ def _vague_sources(ruleset: RuleSet):
             "'site practice', or 'common practice, no source'")
     for rule in _all_rules(ruleset):
         if why := vague_source(rule.source):
-            yield _warning(rule.origin, f"rule '{rule.id}': its source is vague: {why}", hint)
+            yield _warning("W010", rule.origin, f"rule '{rule.id}': its source is vague: {why}", hint)
     for caveat in ruleset.caveats:
         if caveat.source and (why := vague_source(caveat.source)):
-            yield _warning(caveat.origin, f"caveat '{caveat.id}': its source is vague: {why}", hint)
+            yield _warning("W010", caveat.origin, f"caveat '{caveat.id}': its source is vague: {why}", hint)
 
 
 def _num(value) -> str:

@@ -15,16 +15,12 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from sumpwise.derive.row_measures import derive_measures
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES
+from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES, MEASURES
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.authoring.limit_statistics import NORMALITY_ALPHA, NotEnoughData, Proposal, proposal_yaml, propose_ladder
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.ruleset.resolve import DEFAULT_GRADES
 from sumpwise.intake.samples import SampleBatch
-
-# Measures where a low value is the bad one: their limits are `below` limits.
-LOW_IS_BAD = ("bn", "rpvot", "bn_retained_pct", "rpvot_retained_pct")
-
 
 @dataclass(frozen=True)
 class DataProposal:
@@ -60,7 +56,7 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
         chosen = chosen & (measured["lubricant"] == lubricant).to_numpy(dtype=bool)
     values = measured[measure].to_numpy(dtype=float, na_value=np.nan)[chosen]
     grades = tuple(grades) if grades else tuple((ruleset.grades if ruleset else DEFAULT_GRADES)[1:])
-    direction = direction or ("below" if measure in LOW_IS_BAD else "above")
+    direction = direction or ("below" if MEASURES.get(measure) and MEASURES[measure].low_is_bad else "above")
     try:
         proposal = propose_ladder(values, grades, direction, method=method)
     except NotEnoughData:

@@ -217,18 +217,18 @@ def _write_rejects(batch, path, stderr) -> None:
     if path is None:
         for r in batch.rejects:
             who = f" (sample {r.sample_id})" if r.sample_id else ""
-            stderr.write(f"{batch.source}: row {r.row}{who}: rejected: {r.field}: {r.reason}\n")
+            stderr.write(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}\n")
         return
     with open(path, "w", encoding="utf-8", newline="") as out:
         if str(path).endswith(".csv"):
             writer = csv.writer(out, lineterminator="\n")
-            writer.writerow(["file", "row", "sample_id", "field", "reason"])
+            writer.writerow(["file", "row", "sample_id", "field", "code", "reason"])
             for r in batch.rejects:
-                writer.writerow([batch.source, r.row, r.sample_id or "", r.field, r.reason])
+                writer.writerow([batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason])
         else:
             for r in batch.rejects:
                 out.write(dumps({"file": batch.source, "row": r.row, "sample_id": r.sample_id, "field": r.field,
-                                 "reason": r.reason}) + "\n")
+                                 "code": r.code, "reason": r.reason}) + "\n")
 
 
 def _summary(graded) -> str:

@@ -58,7 +58,7 @@ def read_oil_changes(batch: SampleBatch) -> SampleBatch:
         return replace(batch, frame=frame)
     ids = batch.frame["sample_id"].to_numpy(dtype=object)[bad]
     found = spelled[codes[bad]]
-    rejects = [Reject(int(row), sid, "oil_changed", f"expected true or false (yes/no, 1/0), found '{value}'")
+    rejects = [Reject(int(row), sid, "oil_changed", f"expected true or false (yes/no, 1/0), found '{value}'", "D006")
                for row, sid, value in zip(batch.frame.index[bad], ids, found)]
     rejects = tuple(sorted(batch.rejects + tuple(rejects), key=lambda r: (r.row, r.field)))
     return replace(batch, frame=frame, rejects=rejects)

@@ -14,26 +14,12 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from sumpwise.ruleset.model import AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest, RuleSet
+from sumpwise.ruleset.model import LadderRule, RuleSet
+from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 
 # Outcome codes in the per-rule matrices; 0 and above are ladder levels.
 NOT_APPLICABLE = -2  # the rule is not one of this sample's class
 NOT_EVALUATED = -1  # a value the rule needs is missing
-
-
-def _outside(values, limit):
-    if isinstance(limit, tuple):
-        return (values < limit[0]) | (values > limit[1])
-    return np.abs(values) > limit
-
-
-# The tests a rule can apply to a measure: one line of numpy each. NaN compares false.
-TESTS = {
-    "above": lambda values, limit: values > limit,
-    "below": lambda values, limit: values < limit,
-    "outside": _outside,
-    "between": lambda values, limit: (values >= limit[0]) & (values <= limit[1]),
-}
 
 
 @dataclass(frozen=True)
@@ -105,34 +91,53 @@ class _Columns:
         return self.cache[key]
 
 
+def _measure_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
+    values = columns.number(condition.measure)
+    known = ~np.isnan(values)
+    return LIMIT_TESTS[condition.test].crossed(values, condition.limit) & known, known
+
+
+def _missing_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
+    missing = np.isnan(columns.number(condition.measure))
+    truth = missing if condition.missing else ~missing
+    return truth, np.ones(len(truth), dtype=bool)
+
+
+def _field_test(condition, columns: _Columns) -> tuple[np.ndarray, np.ndarray]:
+    codes, folded = columns.folded(condition.field)
+    wanted = {v.strip().casefold() for v in condition.values}
+    return np.isin(codes, [k for k, value in enumerate(folded) if value in wanted]), codes >= 0
+
+
+def _all(parts: list) -> tuple[np.ndarray, np.ndarray]:
+    any_false = np.logical_or.reduce([k & ~t for t, k in parts])
+    all_true = np.logical_and.reduce([t for t, _ in parts])
+    return all_true, all_true | any_false
+
+
+def _any(parts: list) -> tuple[np.ndarray, np.ndarray]:
+    any_true = np.logical_or.reduce([t for t, _ in parts])
+    all_false = np.logical_and.reduce([k & ~t for t, k in parts])
+    return any_true, any_true | all_false
+
+
+def _not(parts: list) -> tuple[np.ndarray, np.ndarray]:
+    truth, known = parts[0]
+    return ~truth & known, known
+
+
+# Each condition kind's three-valued meaning, as (truth, known) arrays: leaves read columns,
+# combinations combine their parts' results (Kleene's strong logic: unknown stays unknown
+# unless the known parts decide).
+LEAF_TRUTH = {"measure": _measure_test, "missing": _missing_test, "field": _field_test}
+COMBINED_TRUTH = {"all": _all, "any": _any, "not": _not}
+
+
 def condition_truth(condition, columns: _Columns, leaves: list | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(truth, known) of a condition; `leaves` collects each leaf test's (truth, known) in order."""
-    if isinstance(condition, MeasureTest):
-        values = columns.number(condition.measure)
-        known = ~np.isnan(values)
-        truth = TESTS[condition.test](values, condition.limit) & known
-    elif isinstance(condition, MissingTest):
-        missing = np.isnan(columns.number(condition.measure))
-        truth = missing if condition.missing else ~missing
-        known = np.ones(len(truth), dtype=bool)
-    elif isinstance(condition, FieldTest):
-        codes, folded = columns.folded(condition.field)
-        wanted = {v.strip().casefold() for v in condition.values}
-        known = codes >= 0
-        truth = np.isin(codes, [k for k, value in enumerate(folded) if value in wanted])
-    elif isinstance(condition, AllOf):
-        parts = [condition_truth(p, columns, leaves) for p in condition.parts]
-        any_false = np.logical_or.reduce([k & ~t for t, k in parts])
-        all_true = np.logical_and.reduce([t for t, _ in parts])
-        return all_true, all_true | any_false
-    elif isinstance(condition, AnyOf):
-        parts = [condition_truth(p, columns, leaves) for p in condition.parts]
-        any_true = np.logical_or.reduce([t for t, _ in parts])
-        all_false = np.logical_and.reduce([k & ~t for t, k in parts])
-        return any_true, any_true | all_false
-    else:  # Not
-        truth, known = condition_truth(condition.part, columns, leaves)
-        return ~truth & known, known
+    if condition.parts:
+        return COMBINED_TRUTH[condition.kind]([condition_truth(p, columns, leaves) for p in condition.parts])
+    truth, known = LEAF_TRUTH[condition.kind](condition, columns)
     if leaves is not None:
         leaves.append((truth, known))
     return truth, known
@@ -142,7 +147,7 @@ def _ladder_levels(rule: LadderRule, columns: _Columns) -> np.ndarray:
     values = columns.number(rule.measure)
     levels = np.zeros(len(values), dtype=np.int8)
     for level, limit in rule.steps:
-        levels[TESTS[rule.test](values, limit)] = level
+        levels[LIMIT_TESTS[rule.test].crossed(values, limit)] = level
     levels[np.isnan(values)] = NOT_EVALUATED
     return levels
 

@@ -168,7 +168,7 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     frame["reference_spectrum"] = None
     frame.loc[rows[ok], "reference_spectrum"] = reference[ok]
 
-    bad = [Reject(int(row), sid, "spectrum", why.get(str(path), "spectrum rejected"))
+    bad = [Reject(int(row), sid, "spectrum", why.get(str(path), "spectrum rejected"), "F001")
            for row, sid, path, good in zip(rows, frame.loc[has, "sample_id"], paths, ok) if not good]
     keep = np.ones(len(frame), dtype=bool)
     keep[np.flatnonzero(has)[~ok]] = False

@@ -18,9 +18,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.vocabulary.measures import INPUT_MEASURES, REFERENCE_VALUES
+from sumpwise.vocabulary.measures import INPUT_MEASURES, NOT_NEGATIVE, POSITIVE, REFERENCE_VALUES, domain_of
 from sumpwise.vocabulary.problems import InputError, InvalidFile
-from sumpwise.vocabulary.units import UNIT_FAMILY, factor_to_canonical, known_units
+from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.units import factor_to_canonical, known_units
 from sumpwise.ruleset.yaml_source import load_yaml
 
 REQUIRED_COLUMNS = ("sample_id", "class")
@@ -28,8 +29,6 @@ REQUIRED_COLUMNS = ("sample_id", "class")
 NUMERIC_COLUMNS = tuple(INPUT_MEASURES) + tuple(f"new_{name}" for name in REFERENCE_VALUES)
 
 # Values that cannot be negative; viscosities cannot be zero either.
-_NOT_NEGATIVE = {"an", "bn", "water", "oil_hours", "rpvot", "new_an", "new_bn", "new_rpvot"}
-_POSITIVE = {"kv40", "kv100", "new_kv40", "new_kv100"}
 
 
 @dataclass(frozen=True)
@@ -40,6 +39,7 @@ class Reject:
     sample_id: str | None
     field: str
     reason: str
+    code: str  # a D (data row) or F (spectrum) code of sumpwise.vocabulary.problems.PROBLEM_CODES
 
 
 @dataclass(frozen=True)
@@ -69,7 +69,7 @@ def load_column_map(path) -> ColumnMap:
     doc = load_yaml(Path(path))
     problems = []
     if not isinstance(doc.data, dict):
-        raise InvalidFile([doc.problem((), "a column map must be a mapping of measure names to columns")])
+        raise InvalidFile([doc.problem((), "a column map must be a mapping of measure names to columns", code="M001")])
     columns, units = {}, {}
     for name, spec in doc.data.items():
         if isinstance(spec, str):
@@ -77,21 +77,21 @@ def load_column_map(path) -> ColumnMap:
             continue
         if not isinstance(spec, dict) or set(spec) - {"column", "unit"} or not spec:
             problems.append(doc.problem((name,), f"'{name}' must map to a column name, or to "
-                                                 f"{{column: ..., unit: ...}}"))
+                                                 f"{{column: ..., unit: ...}}", code="M002"))
             continue
         if "column" in spec:
             if not isinstance(spec["column"], str) or not spec["column"]:
-                problems.append(doc.problem((name, "column"), "the column name must be text"))
+                problems.append(doc.problem((name, "column"), "the column name must be text", code="M002"))
                 continue
             columns[name] = spec["column"]
         if "unit" in spec:
             family = UNIT_FAMILY.get(name)
             if family is None:
                 problems.append(doc.problem((name, "unit"), f"'{name}' has one fixed unit; units can be declared "
-                                                            f"for: {', '.join(sorted(UNIT_FAMILY))}"))
+                                                            f"for: {', '.join(sorted(UNIT_FAMILY))}", code="M003"))
             elif spec["unit"] not in known_units(family):
                 problems.append(doc.problem((name, "unit"), f"unknown unit {spec['unit']!r} for {name}; expected "
-                                                            f"one of: {', '.join(known_units(family))}"))
+                                                            f"one of: {', '.join(known_units(family))}", code="M003"))
             else:
                 units[name] = spec["unit"]
     if problems:
@@ -214,34 +214,35 @@ def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: st
         if column not in numeric_names:
             raw[column] = _text_column(raw[column])
 
-    rejects: list[Reject] = [Reject(row, None, "(row)", why) for row, why in skipped]
+    rejects: list[Reject] = [Reject(row, None, "(row)", why, "D001") for row, why in skipped]
     sample_id = raw["sample_id"].fillna("")
     bad = np.zeros(len(raw), dtype=bool)
 
-    def reject(mask, field_name: str, reasons) -> None:
+    def reject(mask, field_name: str, reasons, code: str) -> None:
         nonlocal bad
         mask = np.asarray(mask, dtype=bool)
         if not mask.any():
             return
         for row, sid, why in zip(raw.index[mask], sample_id[mask], np.broadcast_to(reasons, len(raw))[mask]):
-            rejects.append(Reject(int(row), sid or None, field_name, str(why)))
+            rejects.append(Reject(int(row), sid or None, field_name, str(why), code))
         bad |= mask
 
-    reject(sample_id == "", "sample_id", "no sample id: every row needs one")
+    reject(sample_id == "", "sample_id", "no sample id: every row needs one", "D002")
     dup = (sample_id.duplicated(keep="first") & (sample_id != "")).to_numpy()
     if dup.any():
         first_row = pd.Series(raw.index, index=raw.index).groupby(sample_id.to_numpy()).transform("first")
         reject(dup, "sample_id", ("sample id '" + sample_id + "' already seen at row "
-                                  + first_row.astype(str)).to_numpy(dtype=object))
+                                  + first_row.astype(str)).to_numpy(dtype=object), "D003")
 
     for column in numeric_names:
         values, text, not_a_number = _number_column(raw[column])
         if not_a_number.any():
-            reject(not_a_number, column, ("expected a number, found '" + text + "'").to_numpy(dtype=object))
-        if column in _POSITIVE and (values <= 0).any():
-            reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0))
-        elif column in _NOT_NEGATIVE and (values < 0).any():
-            reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0))
+            reject(not_a_number, column, ("expected a number, found '" + text + "'").to_numpy(dtype=object), "D004")
+        domain = domain_of(column)
+        if domain == POSITIVE and (values <= 0).any():
+            reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
+        elif domain == NOT_NEGATIVE and (values < 0).any():
+            reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column in columns.units:
             values = values * factor_to_canonical(UNIT_FAMILY[column], columns.units[column])
         raw[column] = values

@@ -18,6 +18,7 @@ from datetime import date
 from html import escape
 
 from sumpwise.vocabulary.cautions import CAUTIONS
+from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet
 from sumpwise.render.svg_plot import LimitLine, Mark, Plot, Point, grade_look, marker_icon, render_plot
@@ -187,18 +188,9 @@ def _number(value) -> str:
     return str(value)
 
 
-_TEST_WORDS = {"above": "above", "below": "below", "outside": "outside", "between": "between",
-               "in": "one of", "equals": "equal to"}
-
-
 def limit_text(test: str | None, limit, unit: str | None = None) -> str:
-    """A limit as words: 'above 0.2 mg KOH/g', 'outside ±5 %', 'outside 40 to 60'."""
-    unit_text = f" {unit}" if unit else ""
-    if test == "outside" and not isinstance(limit, list):
-        return f"outside ±{_number(limit)}{unit_text}"
-    if test == "in" and isinstance(limit, list):
-        return "one of " + ", ".join(str(v) for v in limit)
-    return f"{_TEST_WORDS.get(test, test)} {_number(limit)}{unit_text}"
+    """A limit as words: 'above 0.2 mg KOH/g', 'between 40 and 60', 'one of a, b'."""
+    return limit_phrase(test, limit, _number, unit)
 
 
 def _x_axis(samples) -> tuple[str, list]:

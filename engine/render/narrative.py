@@ -5,11 +5,8 @@ from __future__ import annotations
 import textwrap
 
 from sumpwise.vocabulary.cautions import CAUTIONS
+from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.results.records import SampleResult
-
-_TEST_WORDS = {"above": "above", "below": "below", "outside": "outside", "between": "between",
-               "in": "one of", "equals": "equal to", "missing": "missing"}
-
 
 def _number(value) -> str:
     if value is None:
@@ -24,14 +21,7 @@ def _number(value) -> str:
 
 
 def _limit_phrase(test: str, limit, unit: str | None) -> str:
-    unit_text = f" {unit}" if unit and unit != "%" else ("%" if unit == "%" else "")
-    if test == "outside" and not isinstance(limit, list):
-        return f"more than {_number(limit)}{unit_text} either side of zero"
-    if test == "outside":
-        return f"outside {_number(limit[0])} to {_number(limit[1])}{unit_text}"
-    if test == "between":
-        return f"between {_number(limit[0])} and {_number(limit[1])}{unit_text}"
-    return f"{_TEST_WORDS.get(test, test)} {_number(limit)}{unit_text}"
+    return limit_phrase(test, limit, _number, unit)
 
 
 def _clause_line(clause) -> str:

@@ -14,8 +14,8 @@ import pandas as pd
 
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED, Outcome
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES, measure_needs
-from sumpwise.ruleset.model import AllOf, AnyOf, FieldTest, LadderRule, MeasureTest, MissingTest, Not, RuleSet
+from sumpwise.vocabulary.measures import measure_needs, measure_unit
+from sumpwise.ruleset.model import LadderRule, RuleSet, leaves
 
 UNRATED = "unrated"
 
@@ -143,26 +143,8 @@ class SampleResult:
         return record
 
 
-def measure_unit(measure: str) -> str:
-    if measure in INPUT_MEASURES:
-        return INPUT_MEASURES[measure]
-    derived = DERIVED_MEASURES.get(measure)
-    return derived.unit if derived else ""
-
-
 def _limit_value(limit):
     return [limit[0], limit[1]] if isinstance(limit, tuple) else limit
-
-
-def _leaf_tests(condition) -> list:
-    """Leaf tests of a condition in the order evaluate.condition_truth visits them."""
-    if isinstance(condition, (MeasureTest, MissingTest, FieldTest)):
-        return [condition]
-    if isinstance(condition, (AllOf, AnyOf)):
-        return [leaf for part in condition.parts for leaf in _leaf_tests(part)]
-    if isinstance(condition, Not):
-        return _leaf_tests(condition.part)
-    return []
 
 
 def rule_inputs(rule) -> list[str]:
@@ -175,8 +157,8 @@ def rule_inputs(rule) -> list[str]:
 def condition_inputs(condition) -> list[str]:
     """Columns a condition reads, in the order its tests are written."""
     names: list[str] = []
-    for leaf in _leaf_tests(condition):
-        names.extend([leaf.field] if isinstance(leaf, FieldTest) else measure_needs(leaf.measure))
+    for leaf in leaves(condition):
+        names.extend([leaf.field] if leaf.kind == "field" else measure_needs(leaf.measure))
     return list(dict.fromkeys(names))
 
 
@@ -269,13 +251,13 @@ def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
     rows, found = out.leaves[j]
     at = int(np.searchsorted(rows, i))
     clauses = []
-    for leaf, (truth, known) in zip(_leaf_tests(rule.when), found):
+    for leaf, (truth, known) in zip(leaves(rule.when), found):
         held = bool(truth[at])
-        if isinstance(leaf, FieldTest):
+        if leaf.kind == "field":
             value = values.text(leaf.field, i) if known[at] else None
             clauses.append(Clause(leaf.test, list(leaf.values) if leaf.test == "in" else leaf.values[0],
                                   held, value, field=leaf.field))
-        elif isinstance(leaf, MissingTest):
+        elif leaf.kind == "missing":
             value = values.number(leaf.measure, i) if not _is_missing(measured, leaf.measure, i) else None
             clauses.append(Clause("missing", leaf.missing, held, value, measure=leaf.measure))
         else:

@@ -21,7 +21,8 @@ from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
 from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset
-from sumpwise.vocabulary.units import FACTORS, UNIT_FAMILY, factor_to_canonical
+from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.units import FACTORS, factor_to_canonical
 
 DEFAULT_NOTICE = (
     "Screening aid only, not a substitute for a qualified lubricant analyst. Limits from the equipment "
@@ -103,13 +104,13 @@ class _Compiler:
             close = difflib.get_close_matches(grade, self.grades, n=1)
             self.problems.append(placed.problem(
                 f"grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}]", sub, key=key,
-                hint=f"did you mean '{close[0]}'?" if close else ""))
+                hint=f"did you mean '{close[0]}'?" if close else "", code="C001"))
             return None
         level = self.grades.index(grade)
         if level == 0:
             self.problems.append(placed.problem(
                 f"'{grade}' is the lowest grade: a limit or rule for it can never raise a sample's grade",
-                sub, key=key, hint="give limits for the grades above it only"))
+                sub, key=key, hint="give limits for the grades above it only", code="C002"))
             return None
         return level
 
@@ -119,7 +120,7 @@ class _Compiler:
             self.problems.append(placed.problem(
                 f"unknown measure '{measure}'; a measure is a lab value the engine knows, a derived measure, "
                 f"or one declared under `measures:`", sub,
-                hint=f"did you mean '{close[0]}'?" if close else "declare it under the top-level `measures:`"))
+                hint=f"did you mean '{close[0]}'?" if close else "declare it under the top-level `measures:`", code="C003"))
 
     def _lubricant(self, code: str, placed: Placed) -> Lubricant:
         data = dict(placed.data)
@@ -138,11 +139,11 @@ class _Compiler:
             if ladder_keys or "measure" in data:
                 self.problems.append(placed.problem(
                     f"rule '{data['id']}' mixes a condition (`when`/`grade`) with a ladder "
-                    f"(`measure` with {'/'.join(_LADDER_TESTS)}); a rule is one or the other", ("id",)))
+                    f"(`measure` with {'/'.join(_LADDER_TESTS)}); a rule is one or the other", ("id",), code="C004"))
                 return None
             if "when" not in data or "grade" not in data:
                 missing = "when" if "when" not in data else "grade"
-                self.problems.append(placed.problem(f"condition rule '{data['id']}' needs `{missing}` too", ("id",)))
+                self.problems.append(placed.problem(f"condition rule '{data['id']}' needs `{missing}` too", ("id",), code="C004"))
                 return None
             when = self._condition(placed, ("when",), data["when"])
             level = self._level(placed, ("grade",), data["grade"])
@@ -150,7 +151,7 @@ class _Compiler:
         if "measure" not in data or len(ladder_keys) != 1:
             self.problems.append(placed.problem(
                 f"rule '{data['id']}' needs either `measure` with exactly one of above/below/outside "
-                f"(a ladder rule) or `when` with `grade` (a condition rule)", ("id",)))
+                f"(a ladder rule) or `when` with `grade` (a condition rule)", ("id",), code="C004"))
             return None
         measure, test = data["measure"], ladder_keys[0]
         self._check_measure(placed, ("measure",), measure)
@@ -164,7 +165,7 @@ class _Compiler:
                 if limit[0] >= limit[1]:
                     self.problems.append(placed.problem(
                         f"the pair [{limit[0]}, {limit[1]}] for '{grade}' must be written [low, high] "
-                        f"with low below high", (test, grade)))
+                        f"with low below high", (test, grade), code="C005"))
                 limit = (limit[0] * scale, limit[1] * scale)
             else:
                 limit = limit * scale
@@ -194,14 +195,14 @@ class _Compiler:
                 self.problems.append(placed.problem(
                     f"the '{test}' limits are not in ladder order: the limit for '{higher}' must be {want} "
                     f"than the limit for '{lower}' ({written[higher]!r} vs {written[lower]!r})", (test, higher),
-                    key=True))
+                    key=True, code="C006"))
 
     def _source(self, placed: Placed) -> str:
         source = (placed.data.get("source") or "").strip()
         if not source:
             self.problems.append(placed.problem(
                 "`source` must say where this limit comes from: a standard and its clause, the manufacturer's "
-                "manual, 'site practice', or 'common practice, no source'", ("source",)))
+                "manual, 'site practice', or 'common practice, no source'", ("source",), code="C007"))
         return source
 
     def _condition(self, placed: Placed, sub: tuple, data: dict):
@@ -209,7 +210,7 @@ class _Compiler:
         if combiners:
             if len(data) != 1:
                 self.problems.append(placed.problem(
-                    f"`{combiners[0]}` must stand alone in its mapping; put other tests inside it", sub))
+                    f"`{combiners[0]}` must stand alone in its mapping; put other tests inside it", sub, code="C008"))
                 return None
             name = combiners[0]
             if name == "not":
@@ -222,7 +223,7 @@ class _Compiler:
             if len(tests) != 1 or extra:
                 self.problems.append(placed.problem(
                     "a measure condition needs exactly one of above, below, outside, between, missing "
-                    f"(found: {', '.join(tests + extra) or 'none'}); combine tests with `all`", sub))
+                    f"(found: {', '.join(tests + extra) or 'none'}); combine tests with `all`", sub, code="C008"))
                 return None
             measure, test = data["measure"], tests[0]
             self._check_measure(placed, sub + ("measure",), measure)
@@ -233,7 +234,7 @@ class _Compiler:
             if isinstance(limit, list):
                 if limit[0] > limit[1] or (test == "outside" and limit[0] == limit[1]):
                     self.problems.append(placed.problem(
-                        f"the pair [{limit[0]}, {limit[1]}] must be written [low, high]", sub + (test,)))
+                        f"the pair [{limit[0]}, {limit[1]}] must be written [low, high]", sub + (test,), code="C005"))
                 limit = (limit[0] * scale, limit[1] * scale)
             else:
                 limit = limit * scale
@@ -244,7 +245,7 @@ class _Compiler:
             if len(tests) != 1 or extra:
                 self.problems.append(placed.problem(
                     f"a field condition needs exactly one of in, equals (found: {', '.join(tests + extra) or 'none'})",
-                    sub))
+                    sub, code="C008"))
                 return None
             name = data["field"]
             if name not in self.fields:
@@ -252,11 +253,11 @@ class _Compiler:
                 self.problems.append(placed.problem(
                     f"unknown field '{name}'; known fields are {', '.join(sorted(self.fields))}, or declare it "
                     f"under the top-level `fields:`", sub + ("field",),
-                    hint=f"did you mean '{close[0]}'?" if close else ""))
+                    hint=f"did you mean '{close[0]}'?" if close else "", code="C009"))
             values = data["in"] if tests[0] == "in" else [data["equals"]]
             return FieldTest(name, tests[0], tuple(_as_text(v) for v in values))
         self.problems.append(placed.problem(
-            "a condition needs `measure`, `field`, `all`, `any` or `not`", sub))
+            "a condition needs `measure`, `field`, `all`, `any` or `not`", sub, code="C008"))
         return None
 
     def _caveat(self, placed: Placed) -> Caveat:
@@ -279,7 +280,7 @@ class _Compiler:
         if grade is not None and grade not in self.grades and grade != "unrated":
             self.problems.append(placed.problem(
                 f"expected grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}] nor 'unrated'",
-                ("expect", "grade")))
+                ("expect", "grade"), code="C010"))
         return Example(data["name"], dict(data["sample"]), dict(data["expect"]), self._origin(placed))
 
 

@@ -7,7 +7,7 @@ integers; names come back only when results are rendered.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Union
+from typing import ClassVar, Union
 
 
 @dataclass(frozen=True)
@@ -22,8 +22,13 @@ class Origin:
 
 @dataclass(frozen=True)
 class MeasureTest:
-    """`{measure: M, above|below|outside|between: x}`; limit is a float or a (low, high) pair."""
+    """`{measure: M, above|below|outside|between: x}`; limit is a float or a (low, high) pair.
 
+    The test's meaning (evaluation, region, words) is sumpwise.vocabulary.limit_tests.
+    """
+
+    kind: ClassVar[str] = "measure"
+    parts: ClassVar[tuple] = ()
     measure: str
     test: str
     limit: Union[float, tuple]
@@ -33,6 +38,8 @@ class MeasureTest:
 class MissingTest:
     """`{measure: M, missing: true|false}`: always known, whatever the value."""
 
+    kind: ClassVar[str] = "missing"
+    parts: ClassVar[tuple] = ()
     measure: str
     missing: bool
 
@@ -41,6 +48,8 @@ class MissingTest:
 class FieldTest:
     """`{field: F, in: [...]}` or `{field: F, equals: v}`, compared as text."""
 
+    kind: ClassVar[str] = "field"
+    parts: ClassVar[tuple] = ()
     field: str
     test: str
     values: tuple
@@ -48,17 +57,30 @@ class FieldTest:
 
 @dataclass(frozen=True)
 class AllOf:
+    """`all: [...]`: true when every part is, false when one is false, else unknown."""
+
+    kind: ClassVar[str] = "all"
     parts: tuple
 
 
 @dataclass(frozen=True)
 class AnyOf:
+    """`any: [...]`: true when one part is, false when every part is false, else unknown."""
+
+    kind: ClassVar[str] = "any"
     parts: tuple
 
 
 @dataclass(frozen=True)
 class Not:
+    """`not: {...}`: the part's truth reversed; unknown stays unknown."""
+
+    kind: ClassVar[str] = "not"
     part: object
+
+    @property
+    def parts(self) -> tuple:
+        return (self.part,)
 
 
 Condition = Union[MeasureTest, MissingTest, FieldTest, AllOf, AnyOf, Not]
@@ -183,22 +205,22 @@ class RuleSet:
         return own + tuple(rule for rule in self.rules if rule.id not in taken)
 
 
+def leaves(condition) -> list:
+    """The leaf tests of a condition in the order written: the one walk every stage uses.
+
+    Combinations (`all`, `any`, `not`) have parts; leaves (measure, missing and field
+    tests) have none. Evaluation records its leaves' truth in this same order.
+    """
+    if not condition.parts:
+        return [condition]
+    return [leaf for part in condition.parts for leaf in leaves(part)]
+
+
 def condition_measures(condition) -> list[str]:
     """Every measure a condition reads, in the order written."""
-    if isinstance(condition, (MeasureTest, MissingTest)):
-        return [condition.measure]
-    if isinstance(condition, (AllOf, AnyOf)):
-        return [m for part in condition.parts for m in condition_measures(part)]
-    if isinstance(condition, Not):
-        return condition_measures(condition.part)
-    return []
+    return [leaf.measure for leaf in leaves(condition) if leaf.kind != "field"]
 
 
 def condition_fields(condition) -> list[str]:
-    if isinstance(condition, FieldTest):
-        return [condition.field]
-    if isinstance(condition, (AllOf, AnyOf)):
-        return [f for part in condition.parts for f in condition_fields(part)]
-    if isinstance(condition, Not):
-        return condition_fields(condition.part)
-    return []
+    """Every text field a condition reads, in the order written."""
+    return [leaf.field for leaf in leaves(condition) if leaf.kind == "field"]

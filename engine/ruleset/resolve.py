@@ -79,7 +79,7 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
         problems.extend(exc.problems)
         return None
     if not isinstance(doc.data, dict):
-        problems.append(doc.problem((), "a rule set must be a mapping with at least `ruleset` and `version`"))
+        problems.append(doc.problem((), "a rule set must be a mapping with at least `ruleset` and `version`", code="R001"))
         return None
     own_problems = schema_problems(doc)
     if own_problems:
@@ -91,10 +91,10 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
         parent_path = Path(os.path.normpath(path.parent / target))
         if parent_path.resolve() in stack + (key,):
             chain = " -> ".join(str(p) for p in stack + (key, parent_path.resolve()))
-            problems.append(doc.problem(at, f"extends makes a cycle: {chain}"))
+            problems.append(doc.problem(at, f"extends makes a cycle: {chain}", code="R002"))
             continue
         if not parent_path.is_file():
-            problems.append(doc.problem(at, f"extends names '{target}', but there is no file {parent_path}"))
+            problems.append(doc.problem(at, f"extends names '{target}', but there is no file {parent_path}", code="R003"))
             continue
         parent = _resolve(parent_path, stack + (key,), cache, problems)
         if parent is not None:
@@ -107,7 +107,7 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
 def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> None:
     """Lay an already-resolved parent over what earlier parents gave."""
     if merged.files and merged.grades != parent.grades:
-        problems.append(parent.top.problem(("grades",), _ladder_mismatch(merged.grades, parent.grades)))
+        problems.append(parent.top.problem(("grades",), _ladder_mismatch(merged.grades, parent.grades), code="R005"))
     merged.grades = parent.grades
     merged.header.update(parent.header)
     merged.header_marks.update(parent.header_marks)
@@ -137,7 +137,7 @@ def _by_id(items: list, doc: YamlDocument, base: tuple, problems: list[Problem],
         if ident in seen:
             first = doc.mark(seen[ident].path + ("id",))
             problems.append(placed.problem(f"{what} id '{ident}' is used twice in this list "
-                                           f"(first at line {first.line}); ids must be unique", ("id",)))
+                                           f"(first at line {first.line}); ids must be unique", ("id",), code="R004"))
             continue
         seen[ident] = placed
     return seen
@@ -148,7 +148,7 @@ def _add_own(merged: Resolved, doc: YamlDocument, problems: list[Problem]) -> No
     grades = tuple(data.get("grades", DEFAULT_GRADES))
     if merged.files and grades != merged.grades:
         where = ("grades",) if "grades" in data else ("ruleset",)
-        problems.append(doc.problem(where, _ladder_mismatch(merged.grades, grades)))
+        problems.append(doc.problem(where, _ladder_mismatch(merged.grades, grades), code="R005"))
     merged.grades = grades
     for name in ("ruleset", "version", "title", "notice", "description"):
         if name in data:
@@ -170,7 +170,7 @@ def _add_own(merged: Resolved, doc: YamlDocument, problems: list[Problem]) -> No
             else:
                 problems.append(doc.problem(("classes", name, "drop", i),
                                             f"drop names rule '{dropped}', but no extended rule set gives "
-                                            f"class '{name}' a rule with that id"))
+                                            f"class '{name}' a rule with that id", code="R006"))
         own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), problems, "rule")
         target.update(own)
     merged.rules.update(_by_id(data.get("rules", []), doc, ("rules",), problems, "rule"))

@@ -83,17 +83,17 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
             close = difflib.get_close_matches(key, allowed, n=1)
             hint = f"did you mean '{close[0]}'?" if close else ""
             out.append(doc.problem(path + (key,), f"unknown key '{key}'; expected one of: {', '.join(allowed)}",
-                                   key=True, hint=hint))
+                                   key=True, hint=hint, code="S001"))
         return out
     if kind == "required":
         missing = [k for k in error.validator_value if k not in value]
-        return [doc.problem(path, f"this mapping needs the key '{k}'") for k in missing]
+        return [doc.problem(path, f"this mapping needs the key '{k}'", code="S002") for k in missing]
     if kind == "type":
         return [doc.problem(path, f"expected {_expected_types(error.validator_value)} here, found {_kind(value)} "
-                                  f"{_shown(value)}")]
+                                  f"{_shown(value)}", code="S003")]
     if kind == "enum":
         options = ", ".join(str(v) for v in error.validator_value)
-        return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}")]
+        return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}", code="S004")]
     if kind == "pattern":
         if "+" in error.validator_value:
             what = "a base stock name such as mineral, pao, ester or mineral+ester"
@@ -101,30 +101,30 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
             what = "a name of letters, digits and '_' that does not start with a digit"
         else:
             what = "an id of lower-case letters, digits and '-'"
-        return [doc.problem(path, f"{_shown(value)} is not {what}")]
+        return [doc.problem(path, f"{_shown(value)} is not {what}", code="S005")]
     if kind == "propertyNames":
         return [doc.problem(path + (str(value),), f"{_shown(value)} is not a valid name here: use lower-case letters, "
-                                                  f"digits and '-'", key=True)]
+                                                  f"digits and '-'", key=True, code="S006")]
     if kind in ("minItems", "maxItems") and schema.get("minItems") == schema.get("maxItems") == 2:
-        return [doc.problem(path, f"expected a pair [low, high], found {_shown(value)}")]
+        return [doc.problem(path, f"expected a pair [low, high], found {_shown(value)}", code="S007")]
     if kind == "minItems":
-        return [doc.problem(path, f"expected a list of at least {error.validator_value} item(s)")]
+        return [doc.problem(path, f"expected a list of at least {error.validator_value} item(s)", code="S007")]
     if kind == "maxItems":
-        return [doc.problem(path, f"expected a list of at most {error.validator_value} item(s)")]
+        return [doc.problem(path, f"expected a list of at most {error.validator_value} item(s)", code="S007")]
     if kind == "minProperties":
-        return [doc.problem(path, "this mapping must not be empty")]
+        return [doc.problem(path, "this mapping must not be empty", code="S008")]
     if kind == "minLength":
-        return [doc.problem(path, "this text must not be empty")]
+        return [doc.problem(path, "this text must not be empty", code="S008")]
     if kind == "uniqueItems":
-        return [doc.problem(path, "this list repeats an item")]
+        return [doc.problem(path, "this list repeats an item", code="S009")]
     if kind == "minimum":
-        return [doc.problem(path, f"expected a number of at least {error.validator_value}, found {_shown(value)}")]
+        return [doc.problem(path, f"expected a number of at least {error.validator_value}, found {_shown(value)}", code="S010")]
     if kind == "exclusiveMinimum":
-        return [doc.problem(path, f"expected a number above {error.validator_value}, found {_shown(value)}")]
+        return [doc.problem(path, f"expected a number above {error.validator_value}, found {_shown(value)}", code="S010")]
     if kind in ("oneOf", "anyOf"):
         choices = [_describe(s) for s in error.validator_value]
-        return [doc.problem(path, f"expected {' or '.join(choices)}, found {_kind(value)} {_shown(value)}")]
-    return [doc.problem(path, error.message)]
+        return [doc.problem(path, f"expected {' or '.join(choices)}, found {_kind(value)} {_shown(value)}", code="S011")]
+    return [doc.problem(path, error.message, code="S000")]
 
 
 def _describe(schema: dict) -> str:

@@ -83,7 +83,7 @@ class _Builder:
             if not isinstance(key, (str, int, float, bool)) or key is None:
                 mark = _mark(key_node)
                 self.problems.append(Problem(self.file, mark.line, mark.column,
-                                             "a mapping key must be a plain scalar", json_path(path)))
+                                             "a mapping key must be a plain scalar", json_path(path), code="Y003"))
                 continue
             key = str(key) if not isinstance(key, str) else key
             if key in first_seen:
@@ -92,7 +92,7 @@ class _Builder:
                     self.file, mark.line, mark.column,
                     f"key '{key}' is given twice in this mapping, at lines "
                     f"{first_seen[key].line} and {mark.line}; keep one",
-                    json_path(path + (key,))))
+                    json_path(path + (key,)), code="Y004"))
                 continue
             first_seen[key] = _mark(key_node)
             self.key_marks[path + (key,)] = _mark(key_node)
@@ -110,18 +110,18 @@ def parse_yaml(text: str, file: str) -> YamlDocument:
             mark = exc.problem_mark or exc.context_mark
             line, column = (mark.line + 1, mark.column + 1) if mark else (0, 0)
             reason = exc.problem or exc.context or "not valid YAML"
-            raise InvalidFile([Problem(file, line, column, f"not valid YAML: {reason}")]) from None
+            raise InvalidFile([Problem(file, line, column, f"not valid YAML: {reason}", code="Y001")]) from None
         except yaml.YAMLError as exc:
-            raise InvalidFile([Problem(file, 0, 0, f"not valid YAML: {exc}")]) from None
+            raise InvalidFile([Problem(file, 0, 0, f"not valid YAML: {exc}", code="Y001")]) from None
         if root is None:
-            raise InvalidFile([Problem(file, 0, 0, "the file is empty")])
+            raise InvalidFile([Problem(file, 0, 0, "the file is empty", code="Y002")])
         builder = _Builder(file, loader)
         try:
             data = builder.build(root, ())
         except yaml.constructor.ConstructorError as exc:
             mark = exc.problem_mark
             raise InvalidFile([Problem(file, mark.line + 1 if mark else 0, mark.column + 1 if mark else 0,
-                                       f"not a plain YAML value: {exc.problem}")]) from None
+                                       f"not a plain YAML value: {exc.problem}", code="Y005")]) from None
     finally:
         loader.dispose()
     if builder.problems:
@@ -134,5 +134,5 @@ def load_yaml(path: Path) -> YamlDocument:
     try:
         text = Path(path).read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
-        raise InvalidFile([Problem(str(path), 0, 0, f"cannot read the file: {exc}")]) from None
+        raise InvalidFile([Problem(str(path), 0, 0, f"cannot read the file: {exc}", code="Y006")]) from None
     return parse_yaml(text, str(path))

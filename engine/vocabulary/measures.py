@@ -1,93 +1,140 @@
-"""The measures rules can read: lab values as read, and the values derived from them.
+"""The measures rules can read: lab readings, and the values derived from them.
 
-This is the table every stage reads (what a measure is, its unit, what it needs);
-sumpwise.derive computes the derived ones column-wise.
+This is the one table of what a measure is: its canonical unit, its unit family (the
+`units:` key a rule set may restate), the values it can take at all, whether a low value
+is the bad one, what it is computed from, and whether the trend measures are built on it.
+Every stage reads it: intake validates rows against the domains, derive computes the
+derived measures, the compiler resolves names and units, lint reasons on the domains,
+records and renderers take units and meanings from here.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 
+from sumpwise.vocabulary.intervals import EVERYTHING, INF, Span
 
-# Input measures and their canonical unit (see units.py for the conversions).
-INPUT_MEASURES = {
-    "kv40": "mm2/s",
-    "kv100": "mm2/s",
-    "an": "mg KOH/g",
-    "bn": "mg KOH/g",
-    "oxidation": "abs/cm",
-    "nitration": "abs/cm",
-    "sulfation": "abs/cm",
-    "antiwear": "abs/cm",
-    "soot": "abs/cm",
-    "water": "ppm",
-    "oil_hours": "h",
-    "rpvot": "min",
-}
-
-# New-oil reference values: a row's own `new_<name>` wins over the lubricants table.
-REFERENCE_VALUES = ("kv40", "kv100", "an", "bn", "oxidation", "rpvot")
+# The values a measure can take at all. Intake rejects a reading outside its domain, so a
+# limit test outside it can never hold (lint says so).
+ANY = EVERYTHING
+NOT_NEGATIVE = (Span(0.0, INF, low_in=True),)
+POSITIVE = (Span(0.0, INF),)
+# (used - new) / new x 100 with both viscosities above zero lies above -100 %.
+ABOVE_MINUS_100 = (Span(-100.0, INF),)
 
 
 @dataclass(frozen=True)
-class DerivedMeasure:
+class Measure:
+    """One measure a rule can name.
+
+    `needs` names the columns it is computed from (empty for a lab reading), so "not
+    evaluated" can say what was missing; `scale_of` names the reading whose `units:` entry
+    limits on it are written in; `family` is a lab reading's unit family, when a rule set
+    or column map may give it in another unit.
+    """
+
+    name: str
     unit: str
-    needs: tuple[str, ...]
-    scale_of: str | None  # the input measure whose rule-set unit its limits are written in
     meaning: str
+    needs: tuple[str, ...] = ()
+    scale_of: str | None = None
+    family: str | None = None
+    domain: tuple = ANY
+    low_is_bad: bool = False
+    reference: bool = False  # a new-oil value exists (`new_<name>`, or the lubricants table)
+    trended: bool = False  # the unit's trend measures (`<name>_step`, ...) are built on it
+
+    @property
+    def is_reading(self) -> bool:
+        return not self.needs
+
+
+def _reading(name, unit, meaning, **facts) -> Measure:
+    facts.setdefault("scale_of", name)
+    return Measure(name, unit, meaning, **facts)
+
+
+# Lab readings, as a samples file gives them (after unit conversion to the canonical unit).
+READINGS = (
+    _reading("kv40", "mm2/s", "kinematic viscosity at 40 C", domain=POSITIVE, reference=True, trended=True),
+    _reading("kv100", "mm2/s", "kinematic viscosity at 100 C", domain=POSITIVE, reference=True, trended=True),
+    _reading("an", "mg KOH/g", "acid number", domain=NOT_NEGATIVE, reference=True, trended=True),
+    _reading("bn", "mg KOH/g", "base number", domain=NOT_NEGATIVE, low_is_bad=True, reference=True, trended=True),
+    _reading("oxidation", "abs/cm", "FTIR oxidation (carbonyl, near 1700 cm-1)", family="absorbance",
+             reference=True, trended=True),
+    _reading("nitration", "abs/cm", "FTIR nitration", family="absorbance", trended=True),
+    _reading("sulfation", "abs/cm", "FTIR sulfation", family="absorbance", trended=True),
+    _reading("antiwear", "abs/cm", "FTIR anti-wear additive (phosphate)", family="absorbance", trended=True),
+    _reading("soot", "abs/cm", "FTIR soot", family="absorbance", trended=True),
+    _reading("water", "ppm", "water", family="water", domain=NOT_NEGATIVE, trended=True),
+    _reading("oil_hours", "h", "hours on the oil charge", domain=NOT_NEGATIVE),
+    _reading("rpvot", "min", "RPVOT oxidation stability", domain=NOT_NEGATIVE, low_is_bad=True, reference=True,
+             trended=True),
+)
+
+
+def _derived(name, unit, needs, meaning, scale_of=None, **facts) -> Measure:
+    return Measure(name, unit, meaning, needs=needs, scale_of=scale_of, **facts)
 
 
 # Measures derived from one sample's own values (and its new-oil reference).
-ROW_MEASURES = {
-    "kv40_change_pct": DerivedMeasure("%", ("kv40", "new_kv40"), None,
-                                      "(used - new) / new x 100, viscosity at 40 C"),
-    "kv100_change_pct": DerivedMeasure("%", ("kv100", "new_kv100"), None,
-                                       "(used - new) / new x 100, viscosity at 100 C"),
-    "an_rise": DerivedMeasure("mg KOH/g", ("an", "new_an"), None, "acid number used - new"),
-    "oxidation_rise": DerivedMeasure("abs/cm", ("oxidation", "new_oxidation"), "oxidation",
-                                     "FTIR oxidation used - new-oil reading (a subtraction reading is its own rise)"),
-    "vi": DerivedMeasure("", ("kv40", "kv100"), None, "viscosity index, ASTM D2270"),
-    "oxidation_rise_per_1000h": DerivedMeasure("abs/cm per 1000 h", ("oxidation", "new_oxidation", "oil_hours"),
-                                               "oxidation", "oxidation rise / oil hours x 1000"),
-    "an_rise_per_1000h": DerivedMeasure("mg KOH/g per 1000 h", ("an", "new_an", "oil_hours"), None,
-                                        "acid number rise / oil hours x 1000"),
-    "bn_retained_pct": DerivedMeasure("%", ("bn", "new_bn"), None, "base number / new-oil base number x 100"),
-    "rpvot_retained_pct": DerivedMeasure("%", ("rpvot", "new_rpvot"), None, "RPVOT / new-oil RPVOT x 100"),
-    "bn_minus_an": DerivedMeasure("mg KOH/g", ("bn", "an"), None,
-                                  "base number - acid number of the same sample (engine oils)"),
-}
-
-# Trend measures compare a sample with its unit's previous sample (engine/trends.py computes them).
-# `previous_<base>` and `hours_since_previous` are columns of the measured frame, so "not evaluated"
-# can say that the previous sample was lacking (first sample, oil change, or a trend break).
-TREND_BASES = ("kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation", "antiwear", "soot", "water",
-               "rpvot")
+ROW_DERIVED = (
+    _derived("kv40_change_pct", "%", ("kv40", "new_kv40"), "(used - new) / new x 100, viscosity at 40 C",
+             domain=ABOVE_MINUS_100),
+    _derived("kv100_change_pct", "%", ("kv100", "new_kv100"), "(used - new) / new x 100, viscosity at 100 C",
+             domain=ABOVE_MINUS_100),
+    _derived("an_rise", "mg KOH/g", ("an", "new_an"), "acid number used - new"),
+    _derived("oxidation_rise", "abs/cm", ("oxidation", "new_oxidation"),
+             "FTIR oxidation used - new-oil reading (a subtraction reading is its own rise)", scale_of="oxidation"),
+    _derived("vi", "", ("kv40", "kv100"), "viscosity index, ASTM D2270"),
+    _derived("oxidation_rise_per_1000h", "abs/cm per 1000 h", ("oxidation", "new_oxidation", "oil_hours"),
+             "oxidation rise / oil hours x 1000", scale_of="oxidation"),
+    _derived("an_rise_per_1000h", "mg KOH/g per 1000 h", ("an", "new_an", "oil_hours"),
+             "acid number rise / oil hours x 1000"),
+    _derived("bn_retained_pct", "%", ("bn", "new_bn"), "base number / new-oil base number x 100",
+             domain=NOT_NEGATIVE, low_is_bad=True),
+    _derived("rpvot_retained_pct", "%", ("rpvot", "new_rpvot"), "RPVOT / new-oil RPVOT x 100",
+             domain=NOT_NEGATIVE, low_is_bad=True),
+    _derived("bn_minus_an", "mg KOH/g", ("bn", "an"), "base number - acid number of the same sample (engine oils)",
+             low_is_bad=True),
+)
 
 
-def _trend_vocabulary() -> dict:
-    vocabulary = {}
-    for base in TREND_BASES:
-        unit, previous = INPUT_MEASURES[base], f"previous_{base}"
-        vocabulary[f"{base}_step"] = DerivedMeasure(unit, (base, previous), base,
-                                                    f"{base} minus the unit's previous sample's {base}")
-        vocabulary[f"{base}_step_per_1000h"] = DerivedMeasure(
-            f"{unit} per 1000 h", (base, previous, "hours_since_previous"), base,
-            f"{base}_step / oil hours between the two samples x 1000")
-        vocabulary[f"{base}_rising"] = DerivedMeasure("", (base, previous), None,
-                                                      f"consecutive rises of {base} ending at this sample")
-    return vocabulary
+def _trend_measures(reading: Measure) -> tuple[Measure, ...]:
+    """Trend measures compare a sample with its unit's previous sample (sumpwise.derive.trends).
+
+    `previous_<name>` and `hours_since_previous` are columns of the measured frame, so "not
+    evaluated" can say that the previous sample was lacking (first sample, oil change, or a
+    trend break).
+    """
+    name, unit, previous = reading.name, reading.unit, f"previous_{reading.name}"
+    return (
+        _derived(f"{name}_step", unit, (name, previous), f"{name} minus the unit's previous sample's {name}",
+                 scale_of=name, low_is_bad=reading.low_is_bad),
+        _derived(f"{name}_step_per_1000h", f"{unit} per 1000 h", (name, previous, "hours_since_previous"),
+                 f"{name}_step / oil hours between the two samples x 1000", scale_of=name,
+                 low_is_bad=reading.low_is_bad),
+        _derived(f"{name}_rising", "", (name, previous), f"consecutive rises of {name} ending at this sample",
+                 domain=NOT_NEGATIVE),
+    )
 
 
-TREND_MEASURES = _trend_vocabulary()
+MEASURES: dict[str, Measure] = {m.name: m for m in READINGS + ROW_DERIVED}
+TREND_BASES = tuple(m.name for m in READINGS if m.trended)
+for _reading_measure in READINGS:
+    if _reading_measure.trended:
+        MEASURES.update((m.name, m) for m in _trend_measures(_reading_measure))
 
-# Every derived measure a rule can name.
+# Views of the table, for the stages that need one slice of it.
+INPUT_MEASURES = {m.name: m.unit for m in READINGS}
+REFERENCE_VALUES = tuple(m.name for m in READINGS if m.reference)
+ROW_MEASURES = {m.name: m for m in ROW_DERIVED}
+TREND_MEASURES = {name: m for name, m in MEASURES.items() if m.needs and name not in ROW_MEASURES}
 DERIVED_MEASURES = {**ROW_MEASURES, **TREND_MEASURES}
+UNIT_FAMILY = {m.name: m.family for m in READINGS if m.family}
 
 # Text columns a `field:` condition may read without the rule set declaring them.
 KNOWN_FIELDS = ("sample_id", "unit_id", "class", "lubricant", "base_stock", "method", "lab", "sampled_on")
-
-METHODS = ("direct", "subtraction")
-
 
 # Differences of decimal lab values carry binary noise (0.22 - 0.07 = 0.15000000000000002),
 # which would make "above 0.15" fire on a value that is exactly 0.15. Round it away.
@@ -95,12 +142,24 @@ DECIMALS = 9
 
 
 def measure_needs(measure: str) -> tuple[str, ...]:
-    """The columns a measure is computed from (itself, for an input measure)."""
-    derived = DERIVED_MEASURES.get(measure)
-    return derived.needs if derived else (measure,)
+    """The columns a measure is computed from (itself, for a reading or a declared measure)."""
+    known = MEASURES.get(measure)
+    return known.needs if known and known.needs else (measure,)
 
 
 def unit_key(measure: str) -> str | None:
     """The `units:` key whose unit a limit on this measure is written in, if any."""
-    derived = DERIVED_MEASURES.get(measure)
-    return derived.scale_of if derived else measure
+    known = MEASURES.get(measure)
+    return known.scale_of if known else measure
+
+
+def measure_unit(measure: str) -> str:
+    """The canonical unit of a measure ('' for a declared measure, whose unit the rule set gives)."""
+    known = MEASURES.get(measure)
+    return known.unit if known else ""
+
+
+def domain_of(measure: str) -> tuple:
+    """The values a measure can take at all (a `new_<reading>` column shares its reading's)."""
+    known = MEASURES.get(measure.removeprefix("new_"))
+    return known.domain if known else ANY

@@ -1,8 +1,72 @@
-"""Problems found in a user's file, kept as data so tests assert on fields, not sentences."""
+"""Problems found in a user's file, kept as data so tests assert on codes and fields, not sentences.
+
+Every problem has a stable code from PROBLEM_CODES: the first letter says which input it
+is about (Y YAML, S rule-set schema, R rule-set resolution, C rule-set meaning, W lint
+warning, M column map, D data row, F spectrum, E example), the digits never change meaning
+once released. The README lists them; a new problem gets a new code.
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+
+PROBLEM_CODES = {
+    "Y001": "not valid YAML",
+    "Y002": "the file is empty",
+    "Y003": "a mapping key is not a plain scalar",
+    "Y004": "a key is given twice in one mapping",
+    "Y005": "a YAML tag or value that is not plain data",
+    "Y006": "the file cannot be read",
+    "S000": "the rule set breaks its schema in another way",
+    "S001": "unknown key",
+    "S002": "a required key is missing",
+    "S003": "a value of the wrong type",
+    "S004": "a value that is not one of the allowed ones",
+    "S005": "a name or id that is not spelled as the language requires",
+    "S006": "a key that is not a valid name",
+    "S007": "a list of the wrong length",
+    "S008": "an empty mapping or text",
+    "S009": "a list repeats an item",
+    "S010": "a number below its minimum",
+    "S011": "a value of none of the allowed forms",
+    "R001": "the document is not a rule set",
+    "R002": "extends makes a cycle",
+    "R003": "extends names a file that does not exist",
+    "R004": "an id is used twice in one list",
+    "R005": "grade ladders of the extended rule sets differ",
+    "R006": "drop names a rule no extended rule set gives",
+    "C001": "a grade that is not on the ladder",
+    "C002": "a limit for the lowest grade",
+    "C003": "unknown measure",
+    "C004": "a rule that is neither a ladder nor a condition rule",
+    "C005": "a pair not written [low, high]",
+    "C006": "ladder limits out of order",
+    "C007": "a limit without a source",
+    "C008": "a malformed condition",
+    "C009": "unknown field",
+    "C010": "an example expects a grade that is not on the ladder",
+    "W001": "a rule another rule always shadows",
+    "W002": "a rule that can never fire",
+    "W003": "a caveat that can never apply",
+    "W004": "a cap whose exception can never hold",
+    "W005": "a ladder limit no value reaches",
+    "W006": "a ladder that skips a grade",
+    "W007": "a grade no rule of a class can give",
+    "W008": "a class with no rule on acid number, viscosity or oxidation",
+    "W009": "a limit that looks written in the wrong unit",
+    "W010": "a vague source",
+    "M001": "the column map is not a mapping",
+    "M002": "a column map entry that is not a column name",
+    "M003": "a unit the measure cannot take",
+    "D001": "a row that cannot be read",
+    "D002": "a row without a sample id",
+    "D003": "a sample id seen before in the same input",
+    "D004": "a value that is not a number",
+    "D005": "a value outside what the measure can take",
+    "D006": "an oil-changed flag that is not yes or no",
+    "F001": "a spectrum that cannot be used",
+    "E001": "an example that does not hold",
+}
 
 
 @dataclass(frozen=True, order=True)
@@ -10,7 +74,8 @@ class Problem:
     """One error or warning in a rule set, column map or samples file.
 
     `line` and `column` are 1-based (0 when the problem belongs to the whole file);
-    `path` is where in the document it sits, as a JSON-path-like string ("$.classes.x").
+    `path` is where in the document it sits, as a JSON-path-like string ("$.classes.x");
+    `code` is its stable code (PROBLEM_CODES).
     """
 
     file: str
@@ -20,10 +85,15 @@ class Problem:
     path: str = "$"
     severity: str = "error"
     hint: str = ""
+    code: str = ""
+
+    def __post_init__(self):
+        if self.code not in PROBLEM_CODES:
+            raise ValueError(f"problem code {self.code!r} is not in PROBLEM_CODES")
 
     def render(self) -> str:
         where = f"{self.file}:{self.line}:{self.column}" if self.line else self.file
-        text = f"{where}: {self.severity}: {self.message} (at {self.path})"
+        text = f"{where}: {self.severity} {self.code}: {self.message} (at {self.path})"
         if self.hint:
             text += f"\n    hint: {self.hint}"
         return text

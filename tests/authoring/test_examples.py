@@ -37,7 +37,7 @@ def test_failing_examples_say_where_and_what_differs():
                                  "quiet: expected acid-rise to stay quiet, but it fired (watch)")
     assert wrong.actual == "grade watch; fired: acid-rise (watch)"
     text = wrong.render().splitlines()
-    assert text[0].endswith("examples-fail.yaml:9:5: error: example 'wrong grade and a rule that fired' does not hold")
+    assert text[0].endswith("examples-fail.yaml:9:5: error E001: example 'wrong grade and a rule that fired' does not hold")
     assert text[1:] == ["    - grade: expected normal, got watch",
                         "    - quiet: expected acid-rise to stay quiet, but it fired (watch)",
                         "    actual: grade watch; fired: acid-rise (watch)"]

@@ -14,7 +14,8 @@ from pathlib import Path
 import pytest
 
 from sumpwise.ruleset.compiler import load_ruleset
-from sumpwise.authoring.lint import EVERYTHING, can_hold, covered, lint_ruleset, never_true, region, shadows, unit_trouble, vague_source
+from sumpwise.authoring.lint import lint_ruleset, never_true, region, shadows, unit_trouble, vague_source
+from sumpwise.vocabulary.intervals import EVERYTHING, can_hold, covered
 from sumpwise.ruleset.model import AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest, Origin
 
 DATA = Path(__file__).resolve().parents[1] / "data" / "authoring"

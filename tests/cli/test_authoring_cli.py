@@ -33,7 +33,7 @@ def test_check_clean_rule_set_exit_0_with_examples_counted():
 def test_check_warnings_allowed_unless_strict():
     plain = run_cli("check", DATA / "lint-shadowed.yaml")
     assert plain.code == 0 and "1 warning(s)" in plain.out
-    assert "lint-shadowed.yaml:8:9: warning: in class 'pump', rule 'acid-high' is always shadowed" in plain.err
+    assert "lint-shadowed.yaml:8:9: warning W001: in class 'pump', rule 'acid-high' is always shadowed" in plain.err
     assert "\n    hint: remove 'acid-high'" in plain.err
     strict = run_cli("check", "--strict", DATA / "lint-shadowed.yaml")
     assert strict.code == 2 and ": failed: " in strict.out and "(--strict: warnings are errors)" in strict.out
@@ -44,7 +44,7 @@ def test_check_failed_example_exit_2_with_the_diff():
     run = run_cli("check", DATA / "examples-fail.yaml")
     assert run.code == 2
     assert ": failed: " in run.out and "1 of 5 example(s) hold" in run.out
-    assert "examples-fail.yaml:9:5: error: example 'wrong grade and a rule that fired' does not hold\n" \
+    assert "examples-fail.yaml:9:5: error E001: example 'wrong grade and a rule that fired' does not hold\n" \
            "    - grade: expected normal, got watch\n" in run.err
 
 

@@ -34,7 +34,7 @@ def test_grade_counts_add_up_and_rejects_go_to_a_file(tmp_path):
     assert "read 331 row(s): 326 graded, 1 unrated, 4 rejected" in run.err
     assert len(records) == 327
     reject_rows = rejects.read_text().splitlines()
-    assert reject_rows[0] == "file,row,sample_id,field,reason" and len(reject_rows) == 5
+    assert reject_rows[0] == "file,row,sample_id,field,code,reason" and len(reject_rows) == 5
 
 
 def test_grade_from_stdin_as_json_lines():

@@ -126,7 +126,7 @@ def test_grade_command_with_references(site):
     records = {json.loads(line)["sample_id"]: json.loads(line) for line in run.out.splitlines()}
     assert records["S1"]["method"] == "subtraction"
     assert records["S1"]["spectrum"] == "used-min.jdx"
-    assert "rejected: spectrum" in run.err and "1 rejected" in run.err
+    assert "rejected F001: spectrum" in run.err and "1 rejected" in run.err
 
 
 def test_canonical_form_keeps_the_reference_path_relative(site):

@@ -34,8 +34,8 @@ def test_every_schema_error_is_reported_with_its_line(tmp_path):
     lines = [p.line for p in problems]
     assert lines == sorted(lines)
     text = "\n".join(p.render() for p in problems)
-    assert "rs.yaml:1:10: error: \"Bad_Id\" is not an id of lower-case letters, digits and '-'" in text
-    assert "rs.yaml:3:1: error: unknown key 'colour'" in text
+    assert "rs.yaml:1:10: error S005: \"Bad_Id\" is not an id of lower-case letters, digits and '-'" in text
+    assert "rs.yaml:3:1: error S001: unknown key 'colour'" in text
     assert "this mapping needs the key 'message'" in text
     assert "this mapping needs the key 'source'" in text
     assert "expected a number here, found text \"high\"" in text
