@@ -99,6 +99,7 @@ STEP_3 = """
         row INTEGER,
         sample_id TEXT,
         field TEXT NOT NULL,
+        code TEXT NOT NULL,
         reason TEXT NOT NULL
     );
     CREATE INDEX rejects_batch ON rejects(batch);
@@ -118,7 +119,7 @@ DIGEST_QUERIES = (
     "content_sha256, corrects FROM samples WHERE batch = ? ORDER BY entry",
     "SELECT v.entry, v.grade, v.level, sh.sha256, sh.facts, v.vals FROM samples s JOIN verdicts v ON v.entry = s.entry "
     "JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY v.entry",
-    "SELECT row, sample_id, field, reason FROM rejects WHERE batch = ? ORDER BY rowid",
+    "SELECT row, sample_id, field, code, reason FROM rejects WHERE batch = ? ORDER BY rowid",
 )
 DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chunk is hashed as its repr)
 

@@ -49,6 +49,7 @@ PAUSE_VARIABLE = "SUMPWISE_LEDGER_TEST_PAUSE"  # tests only: seconds to wait ins
 
 _NEEDS_ESCAPE = re.compile(r'["\\\x00-\x1f\x7f\u2028\u2029]')
 _HEADER = b"SQLite format 3\x00"
+CONFLICT_CODE = "L001"  # vocabulary/problems.py
 
 
 class LedgerError(InputError):
@@ -340,7 +341,7 @@ def _conflict_rejects(batch: SampleBatch, conflicts: np.ndarray, stored_batch: n
     ids = batch.frame["sample_id"].to_numpy(dtype=object)[conflicts]
     return [Reject(int(row), sid, "sample_id",
                    f"sample {sid} is already recorded (batch {int(earlier)}) with other values; if these values "
-                   f"correct it, grade this row again with --correction --reason TEXT")
+                   f"correct it, grade this row again with --correction --reason TEXT", CONFLICT_CODE)
             for row, sid, earlier in zip(rows.tolist(), ids.tolist(), stored_batch[conflicts].tolist())]
 
 
@@ -456,8 +457,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
                      zip(range(first, first + len(rows)), facts.grades[rows].tolist(), _nullable(levels[rows]),
                          shapes[facts.shape_of[rows]].tolist(), facts.values[rows].tolist()))
-    conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?)",
-                     ((number, r.row, r.sample_id, r.field, r.reason) for r in batch.rejects))
+    conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
+                     ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
     chain(conn, number)
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
 
@@ -606,6 +607,7 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
 
 def batch_rejects(conn: sqlite3.Connection) -> pd.DataFrame:
     """Every recorded reject, with the file and batch it came from."""
-    rows = conn.execute("SELECT r.batch, b.recorded_at, b.source, r.row, r.sample_id, r.field, r.reason "
+    rows = conn.execute("SELECT r.batch, b.recorded_at, b.source, r.row, r.sample_id, r.field, r.code, r.reason "
                         "FROM rejects r JOIN batches b ON b.batch = r.batch ORDER BY r.batch, r.rowid").fetchall()
-    return pd.DataFrame(rows, columns=["batch", "recorded_at", "source", "row", "sample_id", "field", "reason"])
+    return pd.DataFrame(rows, columns=["batch", "recorded_at", "source", "row", "sample_id", "field", "code",
+                                       "reason"])

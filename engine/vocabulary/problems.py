@@ -2,7 +2,7 @@
 
 Every problem has a stable code from PROBLEM_CODES: the first letter says which input it
 is about (Y YAML, S rule-set schema, R rule-set resolution, C rule-set meaning, W lint
-warning, M column map, D data row, F spectrum, E example), the digits never change meaning
+warning, M column map, D data row, L ledger, F spectrum, E example), the digits never change meaning
 once released. The README lists them; a new problem gets a new code.
 """
 
@@ -64,6 +64,7 @@ PROBLEM_CODES = {
     "D004": "a value that is not a number",
     "D005": "a value outside what the measure can take",
     "D006": "an oil-changed flag that is not yes or no",
+    "L001": "a sample id the ledger already recorded with other values",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
 }

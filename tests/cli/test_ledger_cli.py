@@ -104,7 +104,7 @@ def test_not_a_ledger_exits_2_and_a_conflicting_row_is_rejected_with_exit_3(tmp_
     changed.write_text(SAMPLES.read_text().replace(",47.5,0.21,13.0,", ",47.5,0.21,6.0,"))
     refused = run_cli("grade", changed, "--rules", RULES, "--db", db)
     assert refused.code == 3 and "1 row(s) rejected: their sample id is already recorded" in refused.err
-    assert "row 4 (sample T-04): rejected: sample_id: sample T-04 is already recorded (batch 1)" in refused.err
+    assert "row 4 (sample T-04): rejected L001: sample_id: sample T-04 is already recorded (batch 1)" in refused.err
     assert run_cli("grade", changed, "--rules", RULES, "--db", db, "--correction").code == 2  # no --reason
     accepted = run_cli("grade", changed, "--rules", RULES, "--db", db, "--correction", "--reason", "lab re-ran it")
     assert accepted.code == 0 and "1 correction(s)" in accepted.err
