@@ -9,13 +9,12 @@ from __future__ import annotations
 import argparse
 import getpass
 import re
-import sqlite3
 from datetime import date
 from pathlib import Path
 
 from sumpwise.ledger.audit import (explain_from_ledger, find_samples, ledger_rulesets, recorded_rejects, replay,
                                    replay_lines, stored_ruleset, stored_ruleset_text, unit_history, write_history)
-from sumpwise.ledger.store import DEFAULT_PATH, Correction, LedgerError, grade_into_ledger
+from sumpwise.ledger.store import DEFAULT_PATH, Correction, grade_into_ledger
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.cautions import caution_text
@@ -96,16 +95,6 @@ def _date(option: str, value: str | None) -> str | None:
     return value
 
 
-def _ledger_errors(function):
-    """SQLite's own errors on a damaged ledger become a plain exit-2 message, never a traceback."""
-    def run(*args, **kwargs):
-        try:
-            return function(*args, **kwargs)
-        except sqlite3.DatabaseError as exc:
-            raise LedgerError(f"the ledger cannot be read: {exc} (is the file damaged?)") from None
-    return run
-
-
 def grade(args, batch, ruleset, stderr):
     """Grade the batch; with --db, after the ledger's earlier samples, and record it in one transaction.
 
@@ -142,20 +131,17 @@ def _other_ruleset(db, rules: str | None):
     return stored_ruleset(db, rules)
 
 
-@_ledger_errors
 def run_explain(args, stdout) -> int:
     other = _other_ruleset(args.db, args.rules)
     stdout.write("\n".join(explain_from_ledger(args.db, args.sample_id, other)) + "\n")
     return 0
 
 
-@_ledger_errors
 def run_history(args, stdout, stderr) -> int:
     write_history(unit_history(args.db, args.unit_id), args.unit_id, stdout, args.format)
     return 0
 
 
-@_ledger_errors
 def run_replay(args, stdout, stderr) -> int:
     report = replay(args.db, _date("--since", args.since))
     stdout.write("\n".join(replay_lines(report)) + "\n")
@@ -164,7 +150,6 @@ def run_replay(args, stdout, stderr) -> int:
     return FINDINGS if report.differences else 0
 
 
-@_ledger_errors
 def run_rulesets(args, stdout, stderr) -> int:
     if args.ruleset is None:
         if args.out:
@@ -183,7 +168,6 @@ def run_rulesets(args, stdout, stderr) -> int:
     return 0
 
 
-@_ledger_errors
 def run_find(args, stdout, stderr) -> int:
     if args.rejects:
         found = recorded_rejects(args.db)

@@ -23,7 +23,7 @@ import pandas as pd
 from sumpwise.intake.samples import SampleBatch
 from sumpwise.ledger.schema import batch_digest, fingerprint
 from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch_rejects, current_contents,
-                                   current_verdicts, find_entries, history_frame, open_ledger, ruleset_text,
+                                   current_verdicts, find_entries, history_frame, open_ledger, reads_ledger, ruleset_text,
                                    sample_entries, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.render.narrative import explain_lines
@@ -99,6 +99,7 @@ def _ruleset_of(path, entry: dict) -> RuleSet:
     return ruleset
 
 
+@reads_ledger
 def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> list[str]:
     """The story of a recorded verdict: values, reasons, caveats, rule set, trend, corrections.
 
@@ -160,6 +161,7 @@ def _regrade_one(conn, entry: dict, ruleset: RuleSet) -> SampleResult:
     return replace(graded.result(0), row=None)
 
 
+@reads_ledger
 def unit_history(path, unit_id: str) -> pd.DataFrame:
     """A unit's current samples and grades over time, with what fired and the caveats."""
     conn = _reader(path)
@@ -225,44 +227,44 @@ def _frame_from_contents(contents, columns: list) -> pd.DataFrame:
 _TYPED = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "method", "lab") + TREND_BASES
 
 
-def _typed_mismatch(entries: pd.DataFrame, frame: pd.DataFrame) -> np.ndarray:
-    """Rows whose typed columns (what history and queries read) disagree with their stored content."""
+def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame) -> np.ndarray:
+    """Rows whose typed columns (what history and queries read) differ from what recording them
+    from their stored values would write (the re-graded batch's measured frame)."""
     bad = np.zeros(len(entries), dtype=bool)
     for name in _TYPED:
-        if name not in frame.columns:  # a default the engine filled in (or a value derived): not in the content
-            continue
-        stored = entries[name].to_numpy(dtype=object)
-        content = frame[name].to_numpy(dtype=object)
-        a = pd.Series(stored, dtype=object)
-        b = pd.Series(content, dtype=object)
+        a = pd.Series(entries[name].to_numpy(dtype=object), dtype=object)
+        b = pd.Series(measured[name].to_numpy(dtype=object) if name in measured.columns else None,
+                      index=a.index, dtype=object)
         if name in ("oil_hours",) + TREND_BASES:
             a, b = pd.to_numeric(a, errors="coerce"), pd.to_numeric(b, errors="coerce")
             same = (a == b) | (a.isna() & b.isna())
         else:
-            same = (a.isna() & b.isna()) | (a.astype(str) == b.astype(str))
+            same = (a.isna() & b.isna()) | (a.notna() & b.notna() & (a.astype(str) == b.astype(str)))
         bad |= ~same.to_numpy()
-    flags = frame["oil_changed"].fillna(False).astype(bool).to_numpy() if "oil_changed" in frame.columns \
+    flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
         else np.zeros(len(frame), dtype=bool)
     bad |= pd.to_numeric(entries["oil_changed"], errors="coerce").to_numpy() != flags.astype(int)
     return bad
 
 
-def _facts_differ(entries: pd.DataFrame, facts, k: int) -> str:
-    stored_grade, stored_level = entries["grade"].iat[k], entries["level"].iat[k]
+def _facts_differ(stored: dict, facts, k: int) -> str:
+    """What differs between row k's stored verdict and its replayed facts (a row known to differ)."""
     level = int(facts.levels[k])
     parts = []
-    if stored_grade != facts.grades[k]:
-        parts.append(f"stored {stored_grade}, replayed {facts.grades[k]}")
-    if pd.isna(stored_level) != (level < 0) or (level >= 0 and stored_level != level):
-        shown = None if pd.isna(stored_level) else int(stored_level)
+    if stored["grade"][k] != facts.grades[k]:
+        parts.append(f"stored {stored['grade'][k]}, replayed {facts.grades[k]}")
+    stored_level = stored["level"][k]
+    if np.isnan(stored_level) != (level < 0) or (level >= 0 and stored_level != level):
+        shown = None if np.isnan(stored_level) else int(stored_level)
         parts.append(f"stored level {shown}, replayed {level if level >= 0 else None}")
-    if entries["facts"].iat[k] != facts.shapes[facts.shape_of[k]]:
+    if stored["facts"][k] != facts.shapes[facts.shape_of[k]]:
         parts.append("its reasons, caveats or gaps differ")
-    if entries["vals"].iat[k] != facts.values[k]:
-        parts.append(f"its values differ (stored {entries['vals'].iat[k]}, replayed {facts.values[k]})")
+    if stored["vals"][k] != facts.values[k]:
+        parts.append(f"its values differ (stored {stored['vals'][k]}, replayed {facts.values[k]})")
     return "; ".join(parts)
 
 
+@reads_ledger
 def replay(path, since: str | None = None) -> ReplayReport:
     """Verify the digest chain and re-grade every recorded sample (dated on or after `since`)."""
     conn = _reader(path)
@@ -320,28 +322,39 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
     number = batch["batch"]
     altered = np.array([fingerprint(c) != s for c, s in zip(entries["content"], entries["content_sha256"])],
                        dtype=bool)
-    frame = _frame_from_contents(entries["content"], json.loads(batch["columns"]))
-    typed = _typed_mismatch(entries, frame)
+    try:
+        frame = _frame_from_contents(entries["content"], json.loads(batch["columns"]))
+    except (ValueError, TypeError):
+        return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
+                                         "recording); its samples were not re-graded")]
     units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
     history = history_frame(conn, units, before_batch=number)
     history = history[~history["sample_id"].isin(entries["sample_id"])]
     graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
+    typed = _typed_mismatch(entries, graded.measured, frame)
     facts = batch_facts(graded)
+    stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
+              "vals": entries["vals"].to_numpy(dtype=object),
+              "level": pd.to_numeric(entries["level"], errors="coerce").to_numpy(dtype=float)}
+    replayed_level = np.where(facts.levels >= 0, facts.levels, np.nan)
+    shapes = np.array(facts.shapes, dtype=object)[facts.shape_of] if len(facts.shapes) else stored["facts"][:0]
+    same_level = (stored["level"] == replayed_level) | (np.isnan(stored["level"]) & np.isnan(replayed_level))
+    differs = ~((stored["grade"] == facts.grades) & same_level & (stored["facts"] == shapes)
+                & (stored["vals"] == facts.values))
+    sids = entries["sample_id"].to_numpy(dtype=object)
     found = []
-    for k in np.flatnonzero(wanted):
-        sid = entries["sample_id"].iat[k]
+    for k in np.flatnonzero(wanted & (altered | typed | differs)):
+        sid = sids[k]
         if altered[k]:
             found.append(Difference(sid, number, "its stored values no longer match their fingerprint "
                                                  "(altered after recording)"))
         elif typed[k]:
             found.append(Difference(sid, number, "its stored columns no longer match its stored values "
                                                  "(altered after recording)"))
-        elif entries["facts"].iat[k] is None:
+        elif stored["facts"][k] is None:
             found.append(Difference(sid, number, "its verdict is missing (deleted, or its shape is gone)"))
         else:
-            what = _facts_differ(entries, facts, k)
-            if what:
-                found.append(Difference(sid, number, what))
+            found.append(Difference(sid, number, _facts_differ(stored, facts, k) or "its verdict differs"))
     return found
 
 
@@ -394,6 +407,7 @@ def replay_lines(report: ReplayReport) -> list[str]:
     return lines
 
 
+@reads_ledger
 def stored_samples(path) -> SampleBatch:
     """The ledger's current samples as a batch, for commands that take `--db` instead of `--samples`."""
     conn = _reader(path)
@@ -407,6 +421,7 @@ def stored_samples(path) -> SampleBatch:
     return SampleBatch(frame, (), len(frame), f"ledger {path}")
 
 
+@reads_ledger
 def stored_results(path, batch: int | None = None) -> tuple[list[SampleResult], dict]:
     """The ledger's current results (or one batch's), each worded from the rule set it was graded
     with, and those rule sets by fingerprint: what a whole-ledger report draws each sample against."""
@@ -425,12 +440,14 @@ def stored_results(path, batch: int | None = None) -> tuple[list[SampleResult], 
             for content, facts, vals, sha, engine, columns in rows], rulesets
 
 
+@reads_ledger
 def stored_records(path, batch: int | None = None) -> list[str]:
     """The ledger's current result records (or one batch's) as self-contained JSON Lines text."""
     results, _ = stored_results(path, batch)
     return [dumps(result.to_record()) for result in results]
 
 
+@reads_ledger
 def stored_ruleset(path, selector: str) -> RuleSet:
     """A rule set the ledger recorded, by fingerprint (or an unambiguous prefix of at least 8 hex
     digits) or ID@VERSION, rebuilt from its canonical form and checked against its fingerprint."""
@@ -441,6 +458,7 @@ def stored_ruleset(path, selector: str) -> RuleSet:
     return ruleset
 
 
+@reads_ledger
 def stored_ruleset_text(path, selector: str) -> tuple[str, str]:
     """(sha256, canonical text) of one stored rule set; the text is a one-file rule set `check` reads."""
     conn = _reader(path)
@@ -457,6 +475,7 @@ def stored_ruleset_text(path, selector: str) -> tuple[str, str]:
     return found[0]
 
 
+@reads_ledger
 def ledger_rulesets(path) -> list[dict]:
     conn = _reader(path)
     try:
@@ -465,6 +484,7 @@ def ledger_rulesets(path) -> list[dict]:
         conn.close()
 
 
+@reads_ledger
 def find_samples(path, **filters) -> pd.DataFrame:
     """The recorded samples matching every filter (see store.find_entries), with the rules that fired."""
     conn = _reader(path)
@@ -477,6 +497,7 @@ def find_samples(path, **filters) -> pd.DataFrame:
     return found.drop(columns=["facts"])
 
 
+@reads_ledger
 def recorded_rejects(path) -> pd.DataFrame:
     conn = _reader(path)
     try:

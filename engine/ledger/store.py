@@ -15,6 +15,7 @@ refused and left untouched.
 
 from __future__ import annotations
 
+import functools
 import json
 import os
 import re
@@ -74,6 +75,17 @@ class Correction:
 
     reason: str
     author: str
+
+
+def reads_ledger(function):
+    """SQLite's own errors on a damaged ledger become a LedgerError (exit 2), never a traceback."""
+    @functools.wraps(function)
+    def run(path, *args, **kwargs):
+        try:
+            return function(path, *args, **kwargs)
+        except sqlite3.DatabaseError as exc:
+            raise LedgerError(f"{path}: the ledger cannot be read: {exc} (is the file damaged?)") from None
+    return run
 
 
 def _header(path: Path) -> tuple[int, int] | None:
