@@ -1,16 +1,75 @@
-"""A ledger written by an earlier sumpwise is migrated in place and replays clean."""
+"""Migrations: released steps never change, and a ledger written before the change (schema 2,
+every result kept as its JSON Lines text) is migrated in place and replays clean.
 
+The reference for step 1 and 2 is tests/data/ledger/brackwater-v1.db itself: a ledger that
+sumpwise wrote with those steps before they were frozen as text.
+"""
+
+import hashlib
 import shutil
+import sqlite3
 from pathlib import Path
 
-from sumpwise.ledger.audit import replay
+from sumpwise.ledger.audit import replay, stored_results
+from sumpwise.ledger.schema import MIGRATIONS
+from sumpwise.ledger.store import SCHEMA_VERSION, migrate, open_ledger
+from sumpwise.vocabulary.measures import TREND_BASES
 
 OLD_LEDGER = Path(__file__).resolve().parents[1] / "data" / "ledger" / "brackwater-v1.db"
 
+# SHA-256 of each released step's text. A failure here means a released step was edited:
+# put the edit back and add a step instead (DEVELOPERS.md, "Change the ledger's schema").
+RELEASED = ("20e63dfeb2b5ce4df369c6b07f49c6e2c1e8b953c9306d8d5cc6b6943b501da2",
+            "05b510c348a44a964fd1f38cba058af3b27a01df55c3bfebb8006a12acc347a1",
+            "a73186e28f10aab0d6224fd7da35a27c0c159e9f54e7bb65eb87df72e051ea9d")
 
-def test_a_ledger_written_before_the_change_replays_clean(tmp_path):
+
+def test_released_steps_are_unchanged():
+    assert len(MIGRATIONS) == SCHEMA_VERSION
+    assert tuple(hashlib.sha256(sql.encode()).hexdigest() for sql, _ in MIGRATIONS[:len(RELEASED)]) == RELEASED
+
+
+def test_steps_1_and_2_make_the_schema_the_old_ledger_has():
+    conn = sqlite3.connect(":memory:", isolation_level=None)
+    migrate(conn, to=2)
+    made = conn.execute("SELECT type, name, sql FROM sqlite_master ORDER BY name").fetchall()
+    old = sqlite3.connect(OLD_LEDGER.resolve().as_uri() + "?mode=ro&immutable=1", uri=True)
+    assert made == old.execute("SELECT type, name, sql FROM sqlite_master ORDER BY name").fetchall()
+    assert old.execute("PRAGMA user_version").fetchone()[0] == 2
+
+
+def test_every_trend_base_has_its_column():
+    conn = sqlite3.connect(":memory:", isolation_level=None)
+    migrate(conn)
+    columns = {row[1] for row in conn.execute("PRAGMA table_info(samples)")}
+    assert set(TREND_BASES) <= columns, "a new trend base needs a migration step that adds its column"
+
+
+def test_a_ledger_written_before_the_change_is_migrated_in_place_and_replays_clean(tmp_path):
     db = tmp_path / "old.db"
     shutil.copyfile(OLD_LEDGER, db)
     report = replay(db)
     assert report.differences == ()
     assert (report.checked, report.batches, report.rulesets) == (329, 4, 2)
+    conn = open_ledger(db)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+    assert conn.execute("SELECT name FROM sqlite_master WHERE name = 'results'").fetchall() == []
+    assert conn.execute("SELECT count(*) FROM verdicts").fetchone()[0] == 329
+    assert conn.execute("SELECT count(*) FROM shapes").fetchone()[0] < 100  # shared, not one a sample
+    conn.close()
+
+
+def test_the_migrated_verdicts_are_the_records_the_old_ledger_held(tmp_path):
+    import json
+
+    from sumpwise.render.jsonl import dumps
+    old = sqlite3.connect(OLD_LEDGER.resolve().as_uri() + "?mode=ro&immutable=1", uri=True)
+    stored = {json.loads(text)["sample_id"]: text for (text,) in old.execute(
+        "SELECT r.record || b.record_tail FROM results r JOIN samples s ON s.entry = r.entry "
+        "JOIN batches b ON b.batch = s.batch WHERE s.superseded_in IS NULL")}
+    db = tmp_path / "old.db"
+    shutil.copyfile(OLD_LEDGER, db)
+    results, _ = stored_results(db)
+    assert len(results) == len(stored) == 327
+    for result in results:
+        assert dumps(result.to_record()) == stored[result.sample_id]
