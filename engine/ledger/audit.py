@@ -214,7 +214,8 @@ class ReplayReport:
 
 def _frame_from_contents(contents, columns: list) -> pd.DataFrame:
     """Stored sample values back into the frame samples.py made of them (floats, text or None, flags)."""
-    frame = pd.DataFrame.from_records([json.loads(text) for text in contents])
+    contents = list(contents)
+    frame = pd.DataFrame.from_records(json.loads("[" + ",".join(contents) + "]") if contents else [])
     frame = frame.reindex(columns=columns)
     for name in frame.columns:
         column = frame[name]
@@ -320,8 +321,8 @@ def replay(path, since: str | None = None) -> ReplayReport:
 
 def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, wanted: np.ndarray) -> list:
     number = batch["batch"]
-    altered = np.array([fingerprint(c) != s for c, s in zip(entries["content"], entries["content_sha256"])],
-                       dtype=bool)
+    altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
+               != entries["content_sha256"].to_numpy(dtype=object))
     try:
         frame = _frame_from_contents(entries["content"], json.loads(batch["columns"]))
     except (ValueError, TypeError):
@@ -381,10 +382,16 @@ def _ledger_findings(conn) -> list:
         for row in conn.execute(query).fetchall():
             note = f" ({row[2][:12]}...)" if len(row) > 2 else ""
             found.append(Difference(row[0], row[1], what + note))
-    for shape, facts in conn.execute("SELECT shape, facts FROM shapes").fetchall():
+    for shape, sha, facts in conn.execute("SELECT shape, sha256, facts FROM shapes").fetchall():
+        if fingerprint(facts) != sha:
+            found.append(Difference(None, None, f"stored shape {shape} no longer matches its fingerprint"))
         stored = conn.execute("SELECT rule, grade FROM shape_rules WHERE shape = ? ORDER BY rule, grade",
                               (shape,)).fetchall()
-        wanted = sorted({(r["rule"], r["grade"]) for r in _parsed(facts)["reasons"]})
+        try:
+            wanted = sorted({(r["rule"], r["grade"]) for r in _parsed(facts)["reasons"]})
+        except (ValueError, KeyError, TypeError):
+            found.append(Difference(None, None, f"stored shape {shape} can no longer be read"))
+            continue
         if sorted(stored) != wanted:
             found.append(Difference(None, None, f"the rule index of stored shape {shape} no longer matches it"))
     return found

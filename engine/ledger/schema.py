@@ -7,7 +7,8 @@ json_extract(content, '$.name')`); a test checks that every trend base has its c
 
 The digest of a batch covers everything the batch recorded, read back from the tables:
 its own row (which holds the previous batch's digest, so the batches form a chain), its
-samples, their verdicts with their shapes' facts, and its rejected rows. It is read back
+samples (their values through the fingerprint of their content), their verdicts (their
+shapes through the shapes' fingerprints), and its rejected rows. It is read back
 rather than computed from what was written so that recording and verifying share one
 definition, and its columns are listed here, frozen like the steps.
 """
@@ -115,9 +116,10 @@ STEP_3 = """
 DIGEST_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
     "known_samples, corrections, rejected, conflicts, reason, author, previous FROM batches WHERE batch = ?",
-    "SELECT entry, batch, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, method, lab, content, "
-    "content_sha256, corrects FROM samples WHERE batch = ? ORDER BY entry",
-    "SELECT v.entry, v.grade, v.level, sh.sha256, sh.facts, v.vals FROM samples s JOIN verdicts v ON v.entry = s.entry "
+    # A sample's content is covered through its fingerprint (replay checks the one against the other,
+    # and the typed columns against the content); a shape's facts through the shape's fingerprint.
+    "SELECT entry, sample_id, content_sha256, corrects FROM samples WHERE batch = ? ORDER BY entry",
+    "SELECT v.entry, v.grade, v.level, sh.sha256, v.vals FROM samples s JOIN verdicts v ON v.entry = s.entry "
     "JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY v.entry",
     "SELECT row, sample_id, field, code, reason FROM rejects WHERE batch = ? ORDER BY rowid",
 )
