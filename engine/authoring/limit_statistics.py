@@ -16,6 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 import yaml
 
+from sumpwise.vocabulary.cautions import CAUTIONS
+
 LEVELS_COMMON_PRACTICE = "common practice, no source"
 LEVELS_FROM_CALLER = "supplied by the caller"
 
@@ -32,11 +34,7 @@ TAIL_RESULTS = 5
 # (a conventional significance level, common practice, no source).
 NORMALITY_ALPHA = 0.05
 
-CAUTIONS = (
-    "Proposed limits are a screening aid, not a substitute for a qualified analyst.",
-    "Manufacturer limits, local codes and site procedures take precedence.",
-    "Confirm a severe finding by resampling before acting on critical equipment.",
-)
+PROPOSAL_CAUTIONS = ("Proposed limits. " + CAUTIONS[0], *CAUTIONS[1:])
 
 
 class NotEnoughData(ValueError):
@@ -277,7 +275,7 @@ def proposal_yaml(proposal: Proposal, rule_id: str, measure: str, message: str,
         "message": message,
         "source": proposal.source + f" Limits rounded to {significant} significant figures.",
     }
-    header = "".join(f"# {line}\n" for line in CAUTIONS)
+    header = "".join(f"# {line}\n" for line in PROPOSAL_CAUTIONS)
     body = yaml.safe_dump([rule], sort_keys=False, default_flow_style=None,
                           allow_unicode=True, width=88)
     return header + body

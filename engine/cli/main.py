@@ -17,7 +17,7 @@ from pathlib import Path
 
 from sumpwise.version import __version__
 from sumpwise.cli import authoring as authoring_cli
-from sumpwise.vocabulary.cautions import caution_text
+from sumpwise.vocabulary.cautions import CAUTIONS, caution_text
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.render.narrative import explain_lines
 from sumpwise.results.pipeline import grade_batch
@@ -69,8 +69,7 @@ def _parser(stdout) -> _Parser:
     parser = _Parser(prog="sumpwise", out=stdout,
                      description="Grade in-service lubricating oil samples against a site's YAML limits.",
                      epilog="Exit codes: 0 done, 1 internal fault, 2 usage or input error, 3 findings "
-                            "(--fail-at reached). Screening aid only; manufacturer limits and site "
-                            "procedures take precedence.")
+                            "(--fail-at reached). " + " ".join(CAUTIONS))
     parser.add_argument("--version", action="version", version=f"sumpwise {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     commands.required = True

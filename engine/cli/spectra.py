@@ -16,12 +16,9 @@ from pathlib import Path
 from sumpwise.intake.spectra.bands import BandFileError, load_bands
 from sumpwise.intake.spectra.batch import expand_inputs, measure_spectra, read_spectrum
 from sumpwise.intake.spectra.spectrum import SpectrumError
+from sumpwise.vocabulary.cautions import CAUTIONS
 
-CAUTION = (
-    "sumpwise spectra: a screening aid, not a substitute for a qualified analyst. Manufacturer limits, "
-    "local codes and site procedures take precedence. Confirm a severe finding by resampling before "
-    "acting on critical equipment."
-)
+CAUTION = "sumpwise spectra: " + " ".join(CAUTIONS)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:

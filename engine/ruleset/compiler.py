@@ -22,16 +22,13 @@ from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Ex
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
 from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset
 from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.cautions import DEFAULT_NOTICE
+from sumpwise.vocabulary.limit_tests import LADDER_TESTS, LIMIT_TESTS
 from sumpwise.vocabulary.units import FACTORS, factor_to_canonical
 
-DEFAULT_NOTICE = (
-    "Screening aid only, not a substitute for a qualified lubricant analyst. Limits from the equipment "
-    "manufacturer and the lubricant supplier, local codes and site procedures take precedence. Confirm a "
-    "severe finding by resampling before acting on critical equipment."
-)
 
-_LADDER_TESTS = ("above", "below", "outside")
-_MEASURE_TESTS = ("above", "below", "outside", "between", "missing")
+_LADDER_TESTS = LADDER_TESTS
+_MEASURE_TESTS = (*LIMIT_TESTS, "missing")
 _COMBINERS = ("all", "any", "not")
 
 
@@ -176,26 +173,14 @@ class _Compiler:
                           origin)
 
     def _check_monotone(self, placed: Placed, test: str, steps: list, written: dict) -> None:
+        order = LIMIT_TESTS[test]
         for (lo_level, lo), (hi_level, hi) in zip(steps, steps[1:]):
-            lower, higher = self.grades[lo_level], self.grades[hi_level]
-            if isinstance(lo, tuple) != isinstance(hi, tuple) and test == "outside":
-                continue  # a symmetric limit beside a pair is compared as the pair (-x, x)
-            if test == "above":
-                ok = hi > lo
-                want = "higher"
-            elif test == "below":
-                ok = hi < lo
-                want = "lower"
-            else:
-                lo_pair = lo if isinstance(lo, tuple) else (-lo, lo)
-                hi_pair = hi if isinstance(hi, tuple) else (-hi, hi)
-                ok = hi_pair[0] < lo_pair[0] and hi_pair[1] > lo_pair[1]
-                want = "wider"
-            if not ok:
+            if not order.stricter(lo, hi):
+                lower, higher = self.grades[lo_level], self.grades[hi_level]
                 self.problems.append(placed.problem(
-                    f"the '{test}' limits are not in ladder order: the limit for '{higher}' must be {want} "
-                    f"than the limit for '{lower}' ({written[higher]!r} vs {written[lower]!r})", (test, higher),
-                    key=True, code="C006"))
+                    f"the '{test}' limits are not in ladder order: the limit for '{higher}' must be "
+                    f"{order.stricter_word} than the limit for '{lower}' ({written[higher]!r} vs {written[lower]!r})",
+                    (test, higher), key=True, code="C006"))
 
     def _source(self, placed: Placed) -> str:
         source = (placed.data.get("source") or "").strip()

@@ -220,7 +220,3 @@ def condition_measures(condition) -> list[str]:
     """Every measure a condition reads, in the order written."""
     return [leaf.measure for leaf in leaves(condition) if leaf.kind != "field"]
 
-
-def condition_fields(condition) -> list[str]:
-    """Every text field a condition reads, in the order written."""
-    return [leaf.field for leaf in leaves(condition) if leaf.kind == "field"]

@@ -29,6 +29,16 @@ def _outside_region(limit) -> tuple:
     return Span(-INF, low), Span(high, INF)
 
 
+def _as_pair(limit) -> tuple:
+    return limit if isinstance(limit, tuple) else (-limit, limit)
+
+
+def _wider(lower, higher) -> bool:
+    """An `outside` limit for a higher grade must lie wider on both sides (x compares as (-x, x))."""
+    lo, hi = _as_pair(lower), _as_pair(higher)
+    return hi[0] < lo[0] and hi[1] > lo[1]
+
+
 def _outside_phrase(limit, number: Callable, unit: str) -> str:
     if isinstance(limit, (tuple, list)):
         return f"outside {number(limit[0])} to {number(limit[1])}{unit}"
@@ -40,6 +50,8 @@ class LimitTest:
     """One test a rule can apply to a measure.
 
     `pair` says what the limit is: "no" a number, "yes" a (low, high) pair, "either".
+    `in_ladder` says how a ladder's limits must move from grade to grade (`stricter(lower,
+    higher)` and the word for it); a test with none cannot be a ladder.
     """
 
     name: str
@@ -47,18 +59,23 @@ class LimitTest:
     crossed: Callable  # (values array, limit) -> bool array; NaN compares false
     region: Callable  # limit -> tuple of Span: where the test holds
     phrase: Callable  # (limit, number formatter, unit text) -> words
+    stricter: Callable | None = None  # (limit for the lower grade, for the higher) -> in ladder order
+    stricter_word: str = ""
 
 
 LIMIT_TESTS = {test.name: test for test in (
     LimitTest("above", "no", lambda values, limit: values > limit, lambda limit: (Span(limit, INF),),
-              lambda limit, number, unit: f"above {number(limit)}{unit}"),
+              lambda limit, number, unit: f"above {number(limit)}{unit}", lambda lo, hi: hi > lo, "higher"),
     LimitTest("below", "no", lambda values, limit: values < limit, lambda limit: (Span(-INF, limit),),
-              lambda limit, number, unit: f"below {number(limit)}{unit}"),
-    LimitTest("outside", "either", _outside, _outside_region, _outside_phrase),
+              lambda limit, number, unit: f"below {number(limit)}{unit}", lambda lo, hi: hi < lo, "lower"),
+    LimitTest("outside", "either", _outside, _outside_region, _outside_phrase, _wider, "wider"),
     LimitTest("between", "yes", lambda values, limit: (values >= limit[0]) & (values <= limit[1]),
               lambda limit: (Span(limit[0], limit[1], True, True),),
               lambda limit, number, unit: f"between {number(limit[0])} and {number(limit[1])}{unit}"),
 )}
+
+# The tests a ladder rule can use, in the order the language lists them.
+LADDER_TESTS = tuple(name for name, test in LIMIT_TESTS.items() if test.stricter is not None)
 
 # How the text tests of `field:` conditions and the `missing:` test read.
 TEXT_TEST_WORDS = {"in": "one of", "equals": "equal to", "missing": "missing"}

@@ -44,10 +44,6 @@ class Measure:
     reference: bool = False  # a new-oil value exists (`new_<name>`, or the lubricants table)
     trended: bool = False  # the unit's trend measures (`<name>_step`, ...) are built on it
 
-    @property
-    def is_reading(self) -> bool:
-        return not self.needs
-
 
 def _reading(name, unit, meaning, **facts) -> Measure:
     facts.setdefault("scale_of", name)

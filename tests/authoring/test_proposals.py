@@ -14,7 +14,7 @@ import yaml
 from scipy import stats
 
 from sumpwise.authoring.limit_statistics import (
-    CAUTIONS,
+    PROPOSAL_CAUTIONS,
     NotEnoughData,
     jarque_bera_p,
     moments,
@@ -177,7 +177,7 @@ def test_coinciding_limits_refused():
 def test_yaml_round_trips(lognormal_sample, direction):
     p = propose_ladder(lognormal_sample, LADDER, direction)
     text = proposal_yaml(p, "water-high", "water", "Water: above the site's usual spread")
-    assert all(f"# {line}" in text for line in CAUTIONS)
+    assert all(f"# {line}" in text for line in PROPOSAL_CAUTIONS)
     rules = yaml.safe_load(text)
     assert isinstance(rules, list) and len(rules) == 1
     rule = rules[0]

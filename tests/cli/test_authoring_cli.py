@@ -126,7 +126,7 @@ def test_propose_limits_spc_equals_numpy_mean_plus_k_sd(tmp_path):
     assert f"mean {mean:.6g}, SD {sd:.6g}" in run.out
     assert "Proposed from 400 results" in rule["source"] and "ASTM D7720 approach (§1.2 SPC)" in rule["source"]
     assert "class pump, lubricant PUMP-46-M, sampled 2025-01-01 to 2026-02-04" in rule["source"]
-    assert "# Proposed limits are a screening aid, not a substitute for a qualified analyst." in run.out
+    assert "# Proposed limits. Screening aid only, not a substitute for a qualified lubricant analyst." in run.out
     assert "note: the normality test rejects" not in run.out  # seeded normal data pass Jarque-Bera here
 
 

@@ -40,7 +40,7 @@ def test_folder_read_directly_one_row_per_spectrum_and_rejection_on_stderr(folde
     assert float(rows[1]["oxidation"]) > float(rows[0]["oxidation"])
     assert rows[2]["rejection"].endswith(":3: file ends without ##END=")
     assert "rejected: " in err and "c_bad.jdx:3" in err
-    assert "not a substitute for a qualified analyst" in err  # house cautions on the human-facing stream
+    assert "not a substitute for a qualified lubricant analyst" in err  # house cautions on the human-facing stream
 
 
 def test_reference_switches_every_row_to_subtraction(folder, tmp_path):
