@@ -23,8 +23,8 @@ import pandas as pd
 from sumpwise.intake.samples import SampleBatch
 from sumpwise.ledger.schema import batch_digest, fingerprint
 from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch_rejects, current_contents,
-                                   current_verdicts, find_entries, history_frame, open_ledger, reads_ledger, ruleset_text,
-                                   sample_entries, stored_rulesets, unit_entries)
+                                   current_verdicts, find_entries, history_frame, open_ledger, reads_ledger,
+                                   ruleset_text, sample_entries, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.render.narrative import explain_lines
 from sumpwise.results.facts import batch_facts, carried_values, result_from_facts

@@ -51,7 +51,8 @@ def test_replay_finds_altered_results_values_and_rule_sets(tmp_path, ruleset):
     assert found.pop(None).startswith("its stored rows no longer match the batch's digest")
     assert found["T-04"] == "stored normal, replayed alert"
     assert "altered after recording" in found["T-02"]
-    assert found["T-03"].startswith("stored watch, replayed normal")  # its acid step was taken from T-02's altered value
+    # T-03's acid step was taken from T-02's altered value:
+    assert found["T-03"].startswith("stored watch, replayed normal")
     assert set(found) == {"T-02", "T-03", "T-04"}
     assert {d.sample_id for d in replay(db, since="2026-03-10").differences} == {"T-04", None}
     with sqlite3.connect(db) as conn:
