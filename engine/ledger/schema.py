@@ -126,13 +126,23 @@ DIGEST_QUERIES = (
 DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chunk is hashed as its repr)
 
 
-def batch_digest(conn: sqlite3.Connection, batch: int) -> str:
-    """SHA-256 over the batch's rows as stored, in a fixed order and spelling (Python's repr)."""
+def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = None) -> str:
+    """SHA-256 over the batch's rows as stored, in a fixed order and spelling (Python's repr).
+
+    `written` maps a query's index to the rows it would return, when the caller has just
+    written them and holds them with the types SQLite gives back (recording a batch);
+    replay always reads them back.
+    """
     digest = hashlib.sha256()
-    for query in DIGEST_QUERIES:
-        cursor = conn.execute(query, (batch,))
-        while rows := cursor.fetchmany(DIGEST_ROWS):
-            digest.update(repr(rows).encode("utf-8"))
+    for k, query in enumerate(DIGEST_QUERIES):
+        if written is not None and k in written:
+            rows = written[k]
+            for start in range(0, len(rows), DIGEST_ROWS):
+                digest.update(repr(rows[start:start + DIGEST_ROWS]).encode("utf-8"))
+        else:
+            cursor = conn.execute(query, (batch,))
+            while chunk := cursor.fetchmany(DIGEST_ROWS):
+                digest.update(repr(chunk).encode("utf-8"))
         digest.update(b"\x1e")
     return digest.hexdigest()
 

@@ -31,7 +31,7 @@ import pandas as pd
 
 from sumpwise.derive.trends import CHAIN_COLUMNS, read_oil_changes
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import MIGRATIONS, chain, fingerprint, shape_ids
+from sumpwise.ledger.schema import MIGRATIONS, batch_digest, fingerprint, shape_ids
 from sumpwise.results.facts import batch_facts
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
@@ -465,13 +465,19 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
 
     facts = batch_facts(graded)
     shapes = np.array(shape_ids(conn, facts.shapes), dtype=np.int64)
-    levels = np.where(facts.levels >= 0, facts.levels, np.nan)
+    levels = facts.levels[rows].astype(object)
+    levels[facts.levels[rows] < 0] = None
+    entries, grades, levels, values = list(range(first, first + len(rows))), facts.grades[rows].tolist(), \
+        levels.tolist(), facts.values[rows].tolist()
     conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
-                     zip(range(first, first + len(rows)), facts.grades[rows].tolist(), _nullable(levels[rows]),
-                         shapes[facts.shape_of[rows]].tolist(), facts.values[rows].tolist()))
+                     zip(entries, grades, levels, shapes[facts.shape_of[rows]].tolist(), values))
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
-    chain(conn, number)
+    # The digest of the rows just written, as SQLite gives them back (replay reads them back).
+    shape_shas = np.array([fingerprint(text) for text in facts.shapes], dtype=object)
+    written = {1: list(zip(entries, columns[1], shas[rows].tolist(), corrects[rows].tolist())),
+               2: list(zip(entries, grades, levels, shape_shas[facts.shape_of[rows]].tolist(), values))}
+    conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, written), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
 
 
