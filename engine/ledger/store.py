@@ -44,6 +44,7 @@ DEFAULT_PATH = "sumpwise.db"
 APPLICATION_ID = 0x53574C47  # "SWLG": marks the file as a sumpwise ledger
 SCHEMA_VERSION = 3
 PAGE_SIZE = 16384  # bytes; a new ledger only (SQLite keeps a file's page size): bulk imports write faster
+CACHE_KIB = 262144  # page cache of a writing run: index pages stay in memory while a large batch is stored
 BUSY_SECONDS = 60.0  # how long a run waits for another run's transaction before giving up
 _BEGIN_TRIES = 5
 PAUSE_VARIABLE = "SUMPWISE_LEDGER_TEST_PAUSE"  # tests only: seconds to wait inside the write transaction
@@ -171,6 +172,7 @@ def open_ledger(path, create: bool = True, write: bool = True) -> sqlite3.Connec
             conn.execute("PRAGMA journal_mode=WAL")
             conn.execute("PRAGMA synchronous=NORMAL")  # WAL: a crash never corrupts; power loss may drop the last batch
             conn.execute("PRAGMA foreign_keys=ON")
+            conn.execute(f"PRAGMA cache_size=-{CACHE_KIB}")  # a batch of a million samples grows five indexes
             if version < SCHEMA_VERSION:
                 migrate(conn)
         except BaseException:
