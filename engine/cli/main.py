@@ -130,9 +130,10 @@ def _parser(stdout) -> _Parser:
                                                           "date order (table, CSV or JSON Lines).")
     ledger_cli.add_history_arguments(history)
 
-    replay = commands.add_parser("replay", help="re-grade the ledger's samples and report differences (exit 3)",
-                                 out=stdout, description="Re-grade every recorded sample with the rule set it "
-                                                         "was graded with; exit 3 if any result differs.")
+    replay = commands.add_parser("replay", help="verify the ledger: digests, stored values, every verdict re-graded",
+                                 out=stdout, description="Check the batches' digest chain and stored values, and "
+                                                         "re-grade every recorded sample with the rule set it was "
+                                                         "graded with; exit 3 on any finding.")
     ledger_cli.add_replay_arguments(replay)
 
     rulesets = commands.add_parser("rulesets", help="list the ledger's rule sets, or print one as a rule-set file",

@@ -368,8 +368,8 @@ def _ledger_findings(conn) -> list:
          "a verdict of no sample (added, or its sample deleted)"),
         ("SELECT r.sample_id, r.batch FROM rejects r LEFT JOIN batches b ON b.batch = r.batch WHERE b.batch IS NULL",
          "a rejected row of a batch that is not in the ledger"),
-        ("SELECT s.sample_id, s.batch FROM samples s WHERE s.superseded_in IS NOT NULL AND NOT EXISTS "
-         "(SELECT 1 FROM samples c WHERE c.corrects = s.entry AND c.batch = s.superseded_in)",
+        ("SELECT s.sample_id, s.batch FROM samples s WHERE s.superseded_in IS NOT NULL AND (s.entry, s.superseded_in) "
+         "NOT IN (SELECT c.corrects, c.batch FROM samples c WHERE c.corrects IS NOT NULL)",
          "marked as corrected, but no correction of it was recorded"),
         ("SELECT c.sample_id, c.batch FROM samples c WHERE c.corrects IS NOT NULL AND NOT EXISTS "
          "(SELECT 1 FROM samples s WHERE s.entry = c.corrects AND s.superseded_in = c.batch)",
