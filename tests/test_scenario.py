@@ -65,3 +65,41 @@ def test_ftir_walkthrough():
     assert [c["caveat"] for c in records["FT-007"]["caveats"]] == ["ester-subtracted", "base-stock-inferred"]
     assert "FT-009" not in records and "rejected F001: spectrum" in run.err
     assert records["FT-004"]["grade"] == "alert"
+
+
+def test_swp3_iron_climbs_and_is_forecast_to_reach_watch(graded):
+    # scenarios/brackwater/README.md: SWP-3's gear pitting. iron_rising counts steps above the
+    # site's 3 ppm noise margin; three in a row from BP-0317.
+    climbing = [r.sample_id for r in graded.results() if any(x.rule == "iron-climbing" for x in r.reasons)]
+    assert climbing == ["BP-0317", "BP-0330"]
+    forecast = [f for f in graded.forecasts if f.unit_id == "SWP-3" and f.rule == "iron"]
+    assert len(forecast) == 1
+    f = forecast[0]
+    assert (f.sample_id, f.grade, f.limit, f.samples) == ("BP-0330", "watch", 100.0, 26)
+    assert 19000 < f.at_hours_low < f.at_hours < f.at_hours_high < f.horizon_hours
+    assert f.on.startswith("2027-")
+
+
+def test_hpu2_filter_bypass_is_a_cleanliness_problem(graded):
+    # The return filter in bypass from September until the element change of 3 November.
+    def cleanliness(sample_id):
+        return sorted({x.grade for x in graded.find(sample_id).reasons if x.rule.startswith("cleanliness")})
+    assert cleanliness("BP-0223") == []
+    assert cleanliness("BP-0236") == ["watch"]
+    assert cleanliness("BP-0262") == ["alert"] and graded.find("BP-0262").grade == "alert"
+    assert cleanliness("BP-0287") == []
+    # HPU-1's lab sends particle counts: the engine computes the code (ISO 4406 table).
+    measured = graded.measured.set_index("sample_id")
+    assert measured.loc["BP-0004", ["iso4406_4um", "iso4406_6um", "iso4406_14um"]].tolist() == [15, 13, 10]
+    # HPU-3's lab writes the two-number form: the 4 um(c) rule is not evaluated, never passed.
+    assert "cleanliness-4um" in [n.rule for n in graded.find("BP-0006").not_evaluated]
+
+
+def test_explain_tells_the_forecast_made_from_the_units_latest_sample():
+    from conftest import run_cli
+    run = run_cli("explain", "BP-0330", "--samples", SCENARIO / "samples.csv", "--rules", SCENARIO / "site.yaml")
+    assert run.code == 0, run.err
+    paragraph = run.out[run.out.index("When will it cross?"):run.out.index("Rule set ")]
+    assert "iron: iron reaches the watch limit (above 100 ppm)" in paragraph and "Method: ordinary least" in paragraph
+    earlier = run_cli("explain", "BP-0317", "--samples", SCENARIO / "samples.csv", "--rules", SCENARIO / "site.yaml")
+    assert "When will it cross?" not in earlier.out  # forecasts are made from the latest sample only

@@ -276,7 +276,8 @@ def _explain(args, stdin, stdout, stderr) -> int:
             reasons = "; ".join(f"row {r.row}: {r.field}: {r.reason}" for r in rejected)
             raise InputError(f"sample {args.sample_id} was rejected, not graded: {reasons}")
         raise InputError(f"no sample '{args.sample_id}' in {batch.source}")
-    stdout.write("\n".join(explain_lines(result, ruleset.grades)) + "\n")
+    forecasts = [f for f in graded.forecasts if f.sample_id == args.sample_id]
+    stdout.write("\n".join(explain_lines(result, ruleset.grades, forecasts=forecasts)) + "\n")
     return OK
 
 

@@ -9,8 +9,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sumpwise.derive.cleanliness import cleanliness_measures
 from sumpwise.derive.viscosity import viscosity_index
-from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES, ROW_MEASURES
+from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
+                                         ROW_MEASURES)
 
 
 
@@ -93,6 +95,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
             values = np.round(out[name], DECIMALS)
             out[name] = np.where(np.isfinite(values), values, np.nan)
     out["vi"] = viscosity_index(out["kv40"], out["kv100"])
+    out.update(cleanliness_measures(fields["iso4406"].to_numpy(dtype=object),
+                                    {size: out[f"particles_{size}"] for size in ISO4406_SIZES}))
 
     frame = pd.DataFrame(out, index=samples.index, copy=False)
     for name, series in fields.items():

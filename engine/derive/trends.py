@@ -5,6 +5,10 @@ same units first, so they come before the batch's on a tie). A unit's chain rest
 change: the `oil_changed` flag, or oil hours going down. A step across a change of method
 (direct vs subtraction) or of lab is not computed: the two readings are not comparable. All of
 it is one sort plus shifted arrays; there is no loop over units.
+
+A step counts towards a rising run only when it exceeds the measure's noise margin: the rule
+set's `noise_margins:` entry where it gives one, else the test method's published repeatability
+at the mean of the two readings (vocabulary.measures.Repeatability), else zero (any rise counts).
 """
 
 from __future__ import annotations
@@ -14,7 +18,8 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from sumpwise.vocabulary.measures import DECIMALS, TREND_BASES, TREND_MEASURES
+from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, TREND_BASES, TREND_MEASURES, TRENDED,
+                                         declared_trend_measures)
 from sumpwise.ruleset.model import RuleSet, condition_measures
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.intake.samples import Reject, SampleBatch
@@ -74,8 +79,23 @@ def trend_bases(ruleset: RuleSet) -> tuple[str, ...]:
         read |= set(condition_measures(caveat.when))
         if caveat.cap is not None and caveat.cap.unless is not None:
             read |= set(condition_measures(caveat.cap.unless))
-    wanted = {TREND_MEASURES[name].needs[0] for name in read if name in TREND_MEASURES}
-    return tuple(base for base in TREND_BASES if base in wanted)
+    known = {**TREND_MEASURES, **declared_trend_measures(ruleset.measures)}
+    wanted = {known[name].needs[0] for name in read if name in known}
+    return tuple(base for base in TRENDED if base in wanted) + tuple(sorted(wanted - set(TRENDED)))
+
+
+def noise_margins(ruleset: RuleSet, bases: tuple) -> dict:
+    """Each base's noise margin as (absolute, factor, offset): a step above absolute + factor x
+    (mean of the two readings + offset) is a rise. The rule set's margin replaces a published one."""
+    margins = {}
+    for base in bases:
+        given = getattr(ruleset, "noise_margins", {}).get(base)
+        published = MEASURES[base].repeatability if base in MEASURES else None
+        if given is not None:
+            margins[base] = (float(given), 0.0, 0.0)
+        elif published is not None:
+            margins[base] = (0.0, published.factor, published.offset)
+    return margins
 
 
 def chain_frame(measured: pd.DataFrame, oil_changed) -> pd.DataFrame:
@@ -100,7 +120,9 @@ def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | N
     own.update({base: measured[base].to_numpy(dtype=float) for base in bases})
     if history is None or not len(history):
         return own
-    return {name: np.concatenate([history[name].to_numpy(dtype=values.dtype), values]) for name, values in own.items()}
+    # A base the history does not carry (a ledger stores TREND_BASES only) has no earlier value there.
+    return {name: np.concatenate([history[name].to_numpy(dtype=values.dtype) if name in history.columns
+                                  else np.full(len(history), np.nan), values]) for name, values in own.items()}
 
 
 def _dense_rank(values: np.ndarray) -> tuple[np.ndarray, int]:
@@ -147,12 +169,14 @@ def trend_columns(bases: tuple) -> list[str]:
 
 
 def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.DataFrame | None = None,
-                       bases: tuple = TREND_BASES) -> pd.DataFrame:
+                       bases: tuple = TREND_BASES, margins: dict | None = None) -> pd.DataFrame:
     """`measured` with trend measures for `bases`, previous-sample columns and the two caveat notes.
 
     `history` holds earlier samples (CHAIN_COLUMNS plus the bases), e.g. from a ledger; it only
-    supplies predecessors. A note column is text where its caveat applies and None elsewhere.
+    supplies predecessors. `margins` (noise_margins) gives each base's noise margin; a base
+    without one counts every rise. A note column is text where its caveat applies and None elsewhere.
     """
+    margins = margins or {}
     chain = _chain_arrays(measured, oil_changed, history, bases)
     total = len(chain["oil_hours"])
     earlier = total - len(measured)
@@ -203,19 +227,27 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         with np.errstate(divide="ignore", invalid="ignore"):
             np.divide(step, span, out=rate)
         np.round(np.multiply(rate, 1000.0, out=rate), DECIMALS, out=rate)
-        np.maximum.accumulate(np.where(step > 0, 0, positions), out=rising)  # the last reset, as float
+        absolute, factor, offset = margins.get(base, (0.0, 0.0, 0.0))
+        margin = absolute + factor * np.abs((values + previous) / 2.0 + offset) if factor else absolute
+        with np.errstate(invalid="ignore"):
+            risen = step > margin
+        np.maximum.accumulate(np.where(risen, 0, positions), out=rising)  # the last reset, as float
         np.subtract(positions, rising, out=rising)
         rising[np.isnan(step)] = np.nan
         np.take(scratch, mine, axis=1, out=out[1 + 4 * k: 5 + 4 * k])
     numbers = pd.DataFrame(out.T, index=measured.index, columns=names, copy=False)
 
     before = _shifted(order, 0)[mine]  # chain row of each incoming row's predecessor
+    # Each row's unbroken run (one unit, one oil charge, one method and lab: a forecast fits over
+    # it) and its place in the trend order; a run id never spans two units.
+    run = np.cumsum(~comparable)
+    runs = pd.DataFrame({"trend_run": run[mine], "trend_position": mine}, index=measured.index)
     notes = pd.DataFrame({
         "trend_break_note": _break_notes(chain, before, method_changed[mine], lab_changed[mine],
                                          np.arange(earlier, total)),
         "oil_change_note": _oil_notes(chain, before, flagged[mine], hours_fell[mine], h_before[mine], h[mine]),
     }, index=measured.index, dtype=object)
-    return pd.concat([measured, numbers, notes], axis=1)
+    return pd.concat([measured, numbers, runs, notes], axis=1)
 
 
 def _text(values: np.ndarray) -> np.ndarray:

@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.trends import CHAIN_COLUMNS, read_oil_changes
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.ledger.schema import MIGRATIONS, batch_digest, fingerprint, shape_ids
@@ -370,7 +371,8 @@ def grade_into_ledger(path, batch: SampleBatch, ruleset: RuleSet, correction: Co
     try:
         begin(conn)
         try:
-            graded, recorded = _record(conn, path, read_oil_changes(batch), ruleset, correction, reuse_version)
+            graded, recorded = _record(conn, path, read_cleanliness_codes(read_oil_changes(batch)), ruleset,
+                                       correction, reuse_version)
             _test_pause()
             conn.execute("COMMIT")
         except BaseException:

@@ -33,8 +33,29 @@ def _clause_line(clause) -> str:
     return f"{name} = {_number(clause.value)}, test {_limit_phrase(clause.test, clause.limit, None)}: {held}"
 
 
-def explain_lines(result: SampleResult, grades: tuple, width: int = 88) -> list[str]:
-    """The narrative of one sample's grade, reason by reason, with sources and cautions."""
+def forecast_lines(forecasts, wrap) -> list[str]:
+    """The forecast paragraph: when the unit's current oil charge reaches each rule's next limit."""
+    if not forecasts:
+        return []
+    lines = ["", "When will it cross? (this unit's current oil charge, fitted up to this sample):"]
+    for f in forecasts:
+        unit = f" {f.unit}" if f.unit else ""
+        low = f"{_number(f.at_hours_low)} h" if f.at_hours_low is not None else "now"
+        high = f"{_number(f.at_hours_high)} h" if f.at_hours_high is not None else "beyond the horizon"
+        when = f" (about {f.on}; {f.on_low or 'now'} to {f.on_high or 'later'})" if f.on else ""
+        lines.extend(wrap(
+            f"{f.rule}: {f.measure} reaches the {f.grade} limit ({_limit_phrase(f.test, f.limit, f.unit or None)}) "
+            f"at about {_number(f.at_hours)} oil hours, {_number(f.hours_to_go)} h from this sample's "
+            f"{_number(f.oil_hours)} h{when}; 95 % prediction band {low} to {high} (horizon "
+            f"{_number(f.horizon_hours)} h). Fit over {f.samples} samples: {_number(f.slope_per_1000h)}{unit} per "
+            f"1000 h, t = {_number(f.slope_t)}.", "  - "))
+    lines.extend(wrap(f"Method: {forecasts[0].method}.", "  "))
+    return lines
+
+
+def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecasts=()) -> list[str]:
+    """The narrative of one sample's grade, reason by reason, with sources and cautions;
+    `forecasts` (derive.forecast.Forecast, made from this sample) add their paragraph."""
     def wrap(text: str, indent: str = "") -> list[str]:
         # A bullet ("- ") starts the first line only; continuation lines line up under its text.
         following = indent.replace("-", " ")
@@ -76,6 +97,7 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88) -> list[
                 lines.extend(wrap(f"Its cap stays in force because the exception that would lift it could not "
                                   f"be checked: it lacks {', '.join(caveat.unless_missing)}. Measure that before "
                                   f"trusting a capped grade.", "    "))
+    lines.extend(forecast_lines(forecasts, wrap))
     if result.not_evaluated:
         lines.append("")
         lines.append("Not evaluated (a missing value is never a pass):")

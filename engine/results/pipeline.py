@@ -14,7 +14,10 @@ from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
 from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, spectrum_caveat_flags
-from sumpwise.derive.trends import TREND_CAVEATS, add_trend_measures, read_oil_changes, trend_bases, trend_caveat_flags
+from sumpwise.derive.cleanliness import read_cleanliness_codes
+from sumpwise.derive.forecast import forecast
+from sumpwise.derive.trends import (TREND_CAVEATS, add_trend_measures, noise_margins, read_oil_changes, trend_bases,
+                                    trend_caveat_flags)
 
 
 def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None) -> GradedBatch:
@@ -23,9 +26,11 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     Trend measures compare each sample with its unit's previous one: within the batch, after the
     earlier samples in `history` (trends.CHAIN_COLUMNS and the measures; a ledger supplies it).
     """
-    batch = read_oil_changes(batch)
+    batch = read_cleanliness_codes(read_oil_changes(batch))
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
-    measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, trend_bases(ruleset))
+    bases = trend_bases(ruleset)
+    measured = add_trend_measures(measured, batch.frame.get("oil_changed"), history, bases,
+                                  noise_margins(ruleset, bases))
     for column in SPECTRUM_COLUMNS:
         measured[column] = batch.frame[column] if column in batch.frame.columns else None
     outcome = evaluate(ruleset, measured)
@@ -33,7 +38,7 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
                                                   spectrum_caveat_flags(measured)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
-                       TREND_CAVEATS + SPECTRUM_CAVEATS)
+                       TREND_CAVEATS + SPECTRUM_CAVEATS, forecast(measured, ruleset))
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:

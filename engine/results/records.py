@@ -174,6 +174,7 @@ class GradedBatch:
     source: str = ""
     value_columns: tuple = ()  # input measures the samples file carried, recorded with each result
     engine_caveats: tuple = ()  # caveats the engine raises itself; their outcome columns follow the rule set's
+    forecasts: tuple = ()  # derive.forecast.Forecast: when each unit's current charge reaches a rule's next limit
 
     def __len__(self) -> int:
         return len(self.measured)

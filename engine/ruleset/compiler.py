@@ -16,7 +16,8 @@ import os
 from dataclasses import replace
 from pathlib import Path
 
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, INPUT_MEASURES, KNOWN_FIELDS, unit_key
+from sumpwise.vocabulary.measures import (DERIVED_MEASURES, INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, MEASURES,
+                                         TRENDED, declared_trend_measures, read_iso4406, unit_key)
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
@@ -47,13 +48,15 @@ class _Compiler:
         self.grades = resolved.grades
         self.problems: list[Problem] = []
         self.measures = set(INPUT_MEASURES) | set(DERIVED_MEASURES) | set(resolved.measures)
+        self.measures |= set(declared_trend_measures(resolved.measures))
         self.fields = set(KNOWN_FIELDS) | set(resolved.fields)
 
     def run(self) -> RuleSet:
         r = self.r
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
-        classes = {name: tuple(self._rule(p) for p in rules.values()) for name, rules in sorted(r.classes.items())}
-        common = tuple(self._rule(p) for p in r.rules.values())
+        classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
+        common = self._rules(r.rules.values())
+        margins = {name: self._noise_margin(name, placed) for name, placed in sorted(r.noise_margins.items())}
         caveats = tuple(self._caveat(p) for p in r.caveats.values())
         examples = tuple(self._example(p) for p in r.examples)
         if self.problems:
@@ -65,6 +68,7 @@ class _Compiler:
             lubricants=lubricants, classes=classes, rules=common, caveats=caveats,
             measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
             canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
+            noise_margins=margins,
         )
         canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
         digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
@@ -127,6 +131,60 @@ class _Compiler:
         if spectrum is not None:
             data["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
         return Lubricant(code=code, **data)
+
+    def _rules(self, places) -> tuple:
+        """The compiled rules of a list; an `iso4406` rule becomes one ladder rule per size it limits."""
+        rules = []
+        for placed in places:
+            if "iso4406" in placed.data:
+                rules.extend(self._iso4406_rules(placed))
+            else:
+                rules.append(self._rule(placed))
+        return tuple(rules)
+
+    def _iso4406_rules(self, placed: Placed) -> list:
+        """`iso4406: {watch: 17/15/12, alert: 19/17/14}`: a code above the grade's code at any size
+        gives that grade. Compiled as ladder rules `<id>-4um`, `<id>-6um`, `<id>-14um` on the scale
+        numbers, one per size that some grade limits ('-' or '*' leaves a size unlimited)."""
+        data = placed.data
+        if "measure" in data or "when" in data or "grade" in data or any(k in data for k in _LADDER_TESTS):
+            self.problems.append(placed.problem(
+                f"rule '{data['id']}' has `iso4406` limits: it takes no `measure`, `when`, `grade` or "
+                f"{'/'.join(_LADDER_TESTS)}", ("id",), code="C004"))
+            return []
+        per_size: dict[int, list] = {k: [] for k in range(len(ISO4406_SIZES))}
+        for grade, code in data["iso4406"].items():
+            level = self._level(placed, ("iso4406", grade), grade, key=True)
+            try:
+                numbers = read_iso4406(code)
+            except ValueError as error:
+                self.problems.append(placed.problem(str(error), ("iso4406", grade), code="C015"))
+                continue
+            if level is None:
+                continue
+            for k, number in enumerate(numbers):
+                if number is not None:
+                    per_size[k].append((level, float(number)))
+        rules = []
+        for k, steps in per_size.items():
+            if not steps:
+                continue
+            steps.sort(key=lambda s: s[0])
+            written = {self.grades[level]: int(limit) for level, limit in steps}
+            self._check_monotone(placed, "above", steps, written)
+            size = ISO4406_SIZES[k]
+            rules.append(LadderRule(f"{data['id']}-{size}", f"iso4406_{size}", "above", tuple(steps),
+                                    data["message"].strip(), self._source(placed), self._origin(placed)))
+        return rules
+
+    def _noise_margin(self, name: str, placed: Placed) -> float | None:
+        if name not in TRENDED and (name not in self.r.measures or name in MEASURES):
+            known = ", ".join(list(TRENDED) + sorted(self.r.measures))
+            self.problems.append(placed.problem(
+                f"noise margin for '{name}', which has no trend measures; trended measures are: {known}",
+                (), key=True, code="C014"))
+            return None
+        return placed.data * self._scale(placed, name)
 
     def _rule(self, placed: Placed):
         data = placed.data
@@ -329,6 +387,8 @@ def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
     }
     if measure_specs:
         doc["measures"] = {name: dict(spec) for name, spec in sorted(measure_specs.items())}
+    if ruleset.noise_margins:
+        doc["noise_margins"] = {name: _number(margin) for name, margin in sorted(ruleset.noise_margins.items())}
     if ruleset.fields:
         doc["fields"] = list(ruleset.fields)
     return doc

@@ -191,6 +191,8 @@ class RuleSet:
     canonical: str = field(repr=False)
     sha256: str = ""
     examples: tuple = ()
+    # measure -> the step (canonical unit) a trend must exceed to count as a rise (`noise_margins:`)
+    noise_margins: dict = field(default_factory=dict)
     # Where each class was last declared, and each file's `units:`: marks for lint messages.
     class_origins: dict = field(default_factory=dict, compare=False, repr=False)
     file_units: dict = field(default_factory=dict, compare=False, repr=False)

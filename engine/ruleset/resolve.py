@@ -47,6 +47,7 @@ class Resolved:
     rules: dict = field(default_factory=dict)
     caveats: dict = field(default_factory=dict)
     measures: dict = field(default_factory=dict)
+    noise_margins: dict = field(default_factory=dict)
     fields: dict = field(default_factory=dict)
     examples: list = field(default_factory=list)
     files: list = field(default_factory=list)
@@ -113,6 +114,7 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     merged.header_marks.update(parent.header_marks)
     merged.lubricants.update(parent.lubricants)
     merged.measures.update(parent.measures)
+    merged.noise_margins.update(parent.noise_margins)
     merged.fields.update(parent.fields)
     for name, rules in parent.classes.items():
         target = merged.classes.setdefault(name, {})
@@ -158,6 +160,8 @@ def _add_own(merged: Resolved, doc: YamlDocument, problems: list[Problem]) -> No
         merged.lubricants[code] = Placed(lub, doc, ("lubricants", code))
     for name, spec in data.get("measures", {}).items():
         merged.measures[name] = Placed(spec, doc, ("measures", name))
+    for name, margin in data.get("noise_margins", {}).items():
+        merged.noise_margins[name] = Placed(margin, doc, ("noise_margins", name))
     for i, name in enumerate(data.get("fields", [])):
         merged.fields[name] = Placed(name, doc, ("fields", i))
 

@@ -24,6 +24,25 @@ ABOVE_MINUS_100 = (Span(-100.0, INF),)
 
 
 @dataclass(frozen=True)
+class Repeatability:
+    """A test method's published repeatability r = factor x (mean of the two results + offset).
+
+    Two results on the same oil by the same operator differ by more than r in only one case in
+    twenty, so a step between two samples no larger than r is not counted as a rise.
+    """
+
+    factor: float
+    offset: float
+    source: str
+
+
+# Figures checked against the published text (see the README's trends section).
+D664_USED = Repeatability(0.117, 0.0, "ASTM D664 15.1.1, used oils, buffer end point: r = 0.117 X")
+ISO3104_FORMULATED = Repeatability(0.0026, 0.0, "ISO 3104 14.2 (ASTM D445), formulated oils at 40 and 100 C: "
+                                                "r = 0.0026 x; used oils are expected to be poorer (D445 17.3)")
+
+
+@dataclass(frozen=True)
 class Measure:
     """One measure a rule can name.
 
@@ -43,6 +62,7 @@ class Measure:
     low_is_bad: bool = False
     reference: bool = False  # a new-oil value exists (`new_<name>`, or the lubricants table)
     trended: bool = False  # the unit's trend measures (`<name>_step`, ...) are built on it
+    repeatability: Repeatability | None = None  # a published figure: a smaller step is not a rise
 
 
 def _reading(name, unit, meaning, **facts) -> Measure:
@@ -52,9 +72,12 @@ def _reading(name, unit, meaning, **facts) -> Measure:
 
 # Lab readings, as a samples file gives them (after unit conversion to the canonical unit).
 READINGS = (
-    _reading("kv40", "mm2/s", "kinematic viscosity at 40 C", domain=POSITIVE, reference=True, trended=True),
-    _reading("kv100", "mm2/s", "kinematic viscosity at 100 C", domain=POSITIVE, reference=True, trended=True),
-    _reading("an", "mg KOH/g", "acid number", domain=NOT_NEGATIVE, reference=True, trended=True),
+    _reading("kv40", "mm2/s", "kinematic viscosity at 40 C", domain=POSITIVE, reference=True, trended=True,
+             repeatability=ISO3104_FORMULATED),
+    _reading("kv100", "mm2/s", "kinematic viscosity at 100 C", domain=POSITIVE, reference=True, trended=True,
+             repeatability=ISO3104_FORMULATED),
+    _reading("an", "mg KOH/g", "acid number", domain=NOT_NEGATIVE, reference=True, trended=True,
+             repeatability=D664_USED),
     _reading("bn", "mg KOH/g", "base number", domain=NOT_NEGATIVE, low_is_bad=True, reference=True, trended=True),
     _reading("oxidation", "abs/cm", "FTIR oxidation (carbonyl, near 1700 cm-1)", family="absorbance",
              reference=True, trended=True),
@@ -66,6 +89,10 @@ READINGS = (
     _reading("oil_hours", "h", "hours on the oil charge", domain=NOT_NEGATIVE),
     _reading("rpvot", "min", "RPVOT oxidation stability", domain=NOT_NEGATIVE, low_is_bad=True, reference=True,
              trended=True),
+    # Particle counts per mL at the three ISO 4406 sizes (optical counter calibrated to ISO 11171).
+    _reading("particles_4um", "/mL", "particles >= 4 um(c) per mL", domain=NOT_NEGATIVE, trended=True),
+    _reading("particles_6um", "/mL", "particles >= 6 um(c) per mL", domain=NOT_NEGATIVE, trended=True),
+    _reading("particles_14um", "/mL", "particles >= 14 um(c) per mL", domain=NOT_NEGATIVE, trended=True),
 )
 
 
@@ -96,6 +123,47 @@ ROW_DERIVED = (
 )
 
 
+# ISO 4406 scale numbers, one per size: from the code as the lab wrote it (the text field
+# `iso4406`), or else from the particle count (sumpwise.derive.cleanliness).
+ISO4406_SIZES = ("4um", "6um", "14um")
+ISO4406_TOP = 28  # the published table's last row; a count above it is given 29 (the standard writes >28)
+
+
+def read_iso4406(text: str) -> tuple:
+    """A cleanliness code as labs write it -> (scale number or None) at >= 4, 6 and 14 um(c).
+
+    `18/16/13`; the two-number form `16/13` (>= 6 and >= 14 um(c) only) or `-/16/13`; `-` or
+    `*` for a size not reported; `>=7` or the sign U+2265 before a number (fewer than 20 particles
+    counted) is read as that number. Raises ValueError saying what was expected.
+    """
+    parts = [part.strip() for part in str(text).strip().split("/")]
+    if len(parts) == 2:
+        parts = ["-"] + parts
+    if len(parts) != 3:
+        raise ValueError(f"expected an ISO 4406 code such as 18/16/13, 16/13 or -/16/13, found '{text}'")
+    numbers = []
+    for part in parts:
+        if part in ("-", "*"):
+            numbers.append(None)
+            continue
+        digits = part.removeprefix(">=").removeprefix("\u2265").strip()
+        if not digits.isdigit() or int(digits) > ISO4406_TOP + 1:
+            raise ValueError(f"expected scale numbers 0 to {ISO4406_TOP + 1}, '-' or '*' in an ISO 4406 code "
+                             f"such as 18/16/13, found '{text}'")
+        numbers.append(int(digits))
+    if all(n is None for n in numbers):
+        raise ValueError(f"the ISO 4406 code '{text}' reports no size")
+    return tuple(numbers)
+
+CLEANLINESS = tuple(
+    _derived(f"iso4406_{size}", "", ("iso4406", f"particles_{size}"),
+             f"ISO 4406 scale number at >= {size[:-2]} um(c): the lab's code, or from particles_{size}",
+             domain=NOT_NEGATIVE, trended=True)
+    for size in ISO4406_SIZES)
+
+TREND_SUFFIXES = ("_step_per_1000h", "_step", "_rising")
+
+
 def _trend_measures(reading: Measure) -> tuple[Measure, ...]:
     """Trend measures compare a sample with its unit's previous sample (sumpwise.derive.trends).
 
@@ -115,37 +183,74 @@ def _trend_measures(reading: Measure) -> tuple[Measure, ...]:
     )
 
 
-MEASURES: dict[str, Measure] = {m.name: m for m in READINGS + ROW_DERIVED}
-TREND_BASES = tuple(m.name for m in READINGS if m.trended)
-for _reading_measure in READINGS:
-    if _reading_measure.trended:
-        MEASURES.update((m.name, m) for m in _trend_measures(_reading_measure))
+MEASURES: dict[str, Measure] = {m.name: m for m in READINGS + ROW_DERIVED + CLEANLINESS}
+# The readings whose values a ledger stores for trends (its table columns: keep this list as it is).
+TREND_BASES = ("kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation", "antiwear", "soot", "water",
+               "rpvot")
+# Every measure the trend measures are built on; declared measures get them too (declared_trend_measure).
+TRENDED = tuple(m.name for m in READINGS + CLEANLINESS if m.trended)
+for _trended_measure in READINGS + CLEANLINESS:
+    if _trended_measure.trended:
+        MEASURES.update((m.name, m) for m in _trend_measures(_trended_measure))
 
 # Views of the table, for the stages that need one slice of it.
 INPUT_MEASURES = {m.name: m.unit for m in READINGS}
 REFERENCE_VALUES = tuple(m.name for m in READINGS if m.reference)
 ROW_MEASURES = {m.name: m for m in ROW_DERIVED}
-TREND_MEASURES = {name: m for name, m in MEASURES.items() if m.needs and name not in ROW_MEASURES}
-DERIVED_MEASURES = {**ROW_MEASURES, **TREND_MEASURES}
+CLEANLINESS_MEASURES = {m.name: m for m in CLEANLINESS}
+TREND_MEASURES = {name: m for name, m in MEASURES.items()
+                  if m.needs and name not in ROW_MEASURES and name not in CLEANLINESS_MEASURES}
+DERIVED_MEASURES = {**ROW_MEASURES, **CLEANLINESS_MEASURES, **TREND_MEASURES}
 UNIT_FAMILY = {m.name: m.family for m in READINGS if m.family}
 
 # Text columns a `field:` condition may read without the rule set declaring them.
-KNOWN_FIELDS = ("sample_id", "unit_id", "class", "lubricant", "base_stock", "method", "lab", "sampled_on")
+# `iso4406` is the cleanliness code as the lab wrote it (18/16/13); derive reads it into numbers.
+KNOWN_FIELDS = ("sample_id", "unit_id", "class", "lubricant", "base_stock", "method", "lab", "sampled_on", "iso4406")
 
 # Differences of decimal lab values carry binary noise (0.22 - 0.07 = 0.15000000000000002),
 # which would make "above 0.15" fire on a value that is exactly 0.15. Round it away.
 DECIMALS = 9
 
 
+def trend_base(name: str) -> str | None:
+    """The measure a trend measure's name is built on (`iron_step` -> `iron`), else None."""
+    for suffix in TREND_SUFFIXES:
+        if name.endswith(suffix) and len(name) > len(suffix):
+            return name[: -len(suffix)]
+    return None
+
+
+def declared_trend_measures(declared) -> dict[str, Measure]:
+    """The trend measures of a rule set's declared measures (`measures:`), by name.
+
+    A declared measure's unit is the rule set's to give, so its trend measures carry none.
+    A name the rule set declares itself is its own input column, not a trend measure.
+    """
+    out: dict[str, Measure] = {}
+    for name in declared:
+        if name in MEASURES:
+            continue
+        out.update((m.name, m) for m in _trend_measures(Measure(name, "", f"declared measure {name}"))
+                   if m.name not in declared)
+    return out
+
+
+def _lookup(measure: str) -> Measure | None:
+    known = MEASURES.get(measure)
+    if known is None and trend_base(measure):
+        known = declared_trend_measures((trend_base(measure),)).get(measure)
+    return known
+
+
 def measure_needs(measure: str) -> tuple[str, ...]:
     """The columns a measure is computed from (itself, for a reading or a declared measure)."""
-    known = MEASURES.get(measure)
+    known = _lookup(measure)
     return known.needs if known and known.needs else (measure,)
 
 
 def unit_key(measure: str) -> str | None:
     """The `units:` key whose unit a limit on this measure is written in, if any."""
-    known = MEASURES.get(measure)
+    known = _lookup(measure)
     return known.scale_of if known else measure
 
 
@@ -157,5 +262,5 @@ def measure_unit(measure: str) -> str:
 
 def domain_of(measure: str) -> tuple:
     """The values a measure can take at all (a `new_<reading>` column shares its reading's)."""
-    known = MEASURES.get(measure.removeprefix("new_"))
+    known = _lookup(measure.removeprefix("new_"))
     return known.domain if known else ANY

@@ -24,6 +24,10 @@ YEAR_START = pd.Timestamp("2026-01-01")
 
 COLUMNS = ["sample_id", "unit_id", "class", "lubricant", "sampled_on", "oil_hours", "kv40", "kv100",
            "an", "bn", "oxidation", "nitration", "water", "rpvot", "method", "lab", "oil_changed"]
+# Wear metals and cleanliness came later; they are drawn from their own seed, after everything
+# else, so the columns above keep the values they had.
+LATER_COLUMNS = ["iron", "iso4406", "particles_4um", "particles_6um", "particles_14um"]
+LATER_SEED = SEED + 4406
 
 
 @dataclass(frozen=True)
@@ -255,6 +259,58 @@ def rounded(frame: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
+def iron_ppm(unit: str, hours: np.ndarray, year: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Iron (ASTM D5185, ppm) on the gear drives: steady on SWP-1 and SWP-2; on SWP-3 a gear
+    pitting from the spring on, climbing faster as the year goes on."""
+    base = {"SWP-1": 14.0, "SWP-2": 18.0, "SWP-3": 22.0}[unit]
+    wear = 75.0 * np.clip(year - 0.25, 0, None) ** 1.6 if unit == "SWP-3" else 0.0
+    return base + wear + 0.0004 * hours + rng.normal(0, 1.5, len(hours))
+
+
+def cleanliness(unit: str, days: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """ISO 4406 scale numbers (>= 4, 6, 14 um(c)) on the hydraulics, around the site's 17/15/12
+    target; HPU-2's return filter goes into bypass in September until its element is changed
+    on 3 November."""
+    codes = np.array([16, 14, 11]) + rng.integers(-1, 2, size=(len(days), 1))
+    if unit == "HPU-2":
+        bypass = (days >= 245) & (days < 307)
+        codes = codes + np.where(bypass, np.minimum(1 + (days - 245) // 14, 3), 0)[:, None]
+    return codes
+
+
+def counts_for(codes: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Particle counts per mL inside each code's range (ISO 4406:1999 Table 1: code N holds more
+    than 0.01 x 2^(N-1) up to 0.01 x 2^N, the table rounding aside)."""
+    return np.round(0.01 * 2.0 ** (codes - 1 + rng.uniform(0.15, 0.85, codes.shape)), 1)
+
+
+def later_columns(samples: pd.DataFrame) -> pd.DataFrame:
+    """Iron on the gear drives; cleanliness on the hydraulics: HPU-2 and HPU-3 as codes (HPU-3's
+    lab writes the two-number form, -/15/12), HPU-1 as particle counts per mL from which the
+    engine computes the code."""
+    rng = np.random.default_rng(LATER_SEED)
+    out = samples.copy()
+    for column in LATER_COLUMNS:
+        out[column] = np.nan if column != "iso4406" else None
+    days = day_of_year(out["sampled_on"])
+    for unit in ("SWP-1", "SWP-2", "SWP-3"):
+        rows = (out["unit_id"] == unit).to_numpy()
+        hours = out.loc[rows, "oil_hours"].to_numpy(dtype=float)
+        out.loc[rows, "iron"] = np.round(iron_ppm(unit, hours, days[rows] / 365.0, rng))
+    for unit in ("HPU-1", "HPU-2", "HPU-3"):
+        rows = (out["unit_id"] == unit).to_numpy()
+        codes = cleanliness(unit, days[rows], rng)
+        if unit == "HPU-1":
+            counts = counts_for(codes, rng)
+            for k, size in enumerate(("4um", "6um", "14um")):
+                out.loc[rows, f"particles_{size}"] = counts[:, k]
+        elif unit == "HPU-2":
+            out.loc[rows, "iso4406"] = [f"{a}/{b}/{c}" for a, b, c in codes]
+        else:
+            out.loc[rows, "iso4406"] = [f"-/{b}/{c}" for _, b, c in codes]
+    return out
+
+
 def unrated_sample() -> pd.DataFrame:
     """One sample from a class no Brackwater rule set knows: it must come out `unrated`."""
     return pd.DataFrame([{"unit_id": "HPP-1", "class": "ro-high-pressure-pump", "lubricant": "TURB-68-M",
@@ -324,7 +380,7 @@ def build(site_file: Path) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
     samples = pd.concat(frames + [unrated_sample()], ignore_index=True)
     samples = samples.sort_values(["sampled_on", "unit_id"], kind="stable", ignore_index=True)
     samples.insert(0, "sample_id", [f"BP-{i:04d}" for i in range(1, len(samples) + 1)])
-    samples = rounded(samples.reindex(columns=COLUMNS))
+    samples = later_columns(rounded(samples.reindex(columns=COLUMNS)))
     samples, notes = with_bad_rows(samples)
     return samples, lab_export(PLANS, table, rng), notes
 

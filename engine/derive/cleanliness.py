@@ -1,0 +1,89 @@
+"""ISO 4406 cleanliness: codes as labs write them, and codes from particle counts per mL.
+
+A code such as 18/16/13 gives one scale number per size (>= 4, >= 6 and >= 14 um(c)); the
+measures `iso4406_4um`, `iso4406_6um` and `iso4406_14um` hold them. Where the lab wrote a
+code, its number is used as written; where it did not (or left a size out), the number is
+computed from that size's particle count with the standard's scale-number table. The record
+keeps the code as written in the `iso4406` field.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.intake.samples import Reject, SampleBatch
+from sumpwise.vocabulary.measures import ISO4406_SIZES, ISO4406_TOP, read_iso4406
+
+# ISO 4406:1999 Table 1, particles per mL: scale number N holds counts more than MORE_THAN[N]
+# and up to and including UP_TO[N]. The scale doubles per number, but the published table
+# rounds (17 is 640 to 1,300, not 655.36 to 1,310.72): the table, not the doubling, is the rule.
+UP_TO = np.array([0.01, 0.02, 0.04, 0.08, 0.16, 0.32, 0.64, 1.3, 2.5, 5.0, 10.0, 20.0, 40.0, 80.0, 160.0,
+                  320.0, 640.0, 1300.0, 2500.0, 5000.0, 10000.0, 20000.0, 40000.0, 80000.0, 160000.0,
+                  320000.0, 640000.0, 1300000.0, 2500000.0])
+MORE_THAN = np.concatenate([[0.0], UP_TO[:-1]])
+assert len(UP_TO) == ISO4406_TOP + 1
+
+
+def scale_numbers(counts) -> np.ndarray:
+    """The ISO 4406 scale number of each count per mL (NaN where the count is missing).
+
+    A count above the table's last row (2,500,000 per mL) gets ISO4406_TOP + 1: the standard
+    writes such a code as >28, and a rule on it must still fire.
+    """
+    counts = np.asarray(counts, dtype=float)
+    numbers = np.searchsorted(UP_TO, counts, side="left").astype(float)
+    numbers[np.isnan(counts)] = np.nan
+    return numbers
+
+
+def read_codes(codes) -> np.ndarray:
+    """float [rows, 3]: each code's scale numbers as written (NaN for a size not reported,
+    a missing code, or one that cannot be read: read_cleanliness_codes rejects those first)."""
+    values = pd.Series(codes, dtype=object).to_numpy(dtype=object)
+    out = np.full((len(values), len(ISO4406_SIZES)), np.nan)
+    present = pd.notna(values)
+    if not present.any():
+        return out
+    index, uniques = pd.factorize(values[present])  # each distinct code is read once
+    table = np.full((len(uniques), len(ISO4406_SIZES)), np.nan)
+    for k, text in enumerate(uniques):
+        try:
+            table[k] = [np.nan if n is None else n for n in read_iso4406(text)]
+        except ValueError:
+            continue
+    out[present] = table[index]
+    return out
+
+
+def cleanliness_measures(codes, counts: dict) -> dict:
+    """`iso4406_<size>` columns: the code's number where written, else the count's."""
+    written = read_codes(codes)
+    return {f"iso4406_{size}": np.where(np.isnan(written[:, k]), scale_numbers(counts[size]), written[:, k])
+            for k, size in enumerate(ISO4406_SIZES)}
+
+
+def read_cleanliness_codes(batch: SampleBatch) -> SampleBatch:
+    """The batch without the rows whose `iso4406` code cannot be read; each such row is rejected."""
+    if "iso4406" not in batch.frame.columns:
+        return batch
+    column = batch.frame["iso4406"].astype(object)
+    codes, uniques = pd.factorize(column.where(column.notna(), None).to_numpy(dtype=object))  # None -> -1
+    problems = {}
+    for k, value in enumerate(uniques):
+        if str(value).strip():
+            try:
+                read_iso4406(value)
+            except ValueError as error:
+                problems[k] = str(error)
+    if not problems:
+        return batch
+    bad = np.isin(codes, list(problems))
+    frame = batch.frame[~bad].copy()
+    ids = batch.frame["sample_id"].to_numpy(dtype=object)[bad]
+    rejects = [Reject(int(row), sid, "iso4406", problems[code], "D012")
+               for row, sid, code in zip(batch.frame.index[bad], ids, codes[bad])]
+    rejects = tuple(sorted(batch.rejects + tuple(rejects), key=lambda r: (r.row, r.field)))
+    return replace(batch, frame=frame, rejects=rejects)

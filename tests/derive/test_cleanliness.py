@@ -1,0 +1,94 @@
+"""ISO 4406 cleanliness: codes as labs write them, and codes from particle counts per mL.
+
+The scale-number table is checked row by row against ISO 4406:1999 Table 1 ("Allocation of
+scale numbers", particles per mL, more than / up to and including), as reproduced in a filter
+maker's published appendix (Schroeder Industries, "Contamination Classification in accordance
+with ISO 4406:1999", scale numbers 0 to 28); the worked example there, 14/12/>=7, is checked too.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from sumpwise.derive.cleanliness import MORE_THAN, UP_TO, cleanliness_measures, read_cleanliness_codes, scale_numbers
+from sumpwise.intake.samples import SampleBatch
+from sumpwise.vocabulary.measures import read_iso4406
+
+# ISO 4406:1999 Table 1 (scale number: more than, up to and including), particles per mL.
+PUBLISHED = {
+    0: (0.00, 0.01), 1: (0.01, 0.02), 2: (0.02, 0.04), 3: (0.04, 0.08), 4: (0.08, 0.16), 5: (0.16, 0.32),
+    6: (0.32, 0.64), 7: (0.64, 1.3), 8: (1.3, 2.5), 9: (2.5, 5), 10: (5, 10), 11: (10, 20), 12: (20, 40),
+    13: (40, 80), 14: (80, 160), 15: (160, 320), 16: (320, 640), 17: (640, 1300), 18: (1300, 2500),
+    19: (2500, 5000), 20: (5000, 10000), 21: (10000, 20000), 22: (20000, 40000), 23: (40000, 80000),
+    24: (80000, 160000), 25: (160000, 320000), 26: (320000, 640000), 27: (640000, 1300000),
+    28: (1300000, 2500000),
+}
+
+
+def test_every_row_of_the_table_is_the_published_one():
+    assert len(UP_TO) == len(PUBLISHED)
+    for number, (more_than, up_to) in PUBLISHED.items():
+        assert (MORE_THAN[number], UP_TO[number]) == (more_than, up_to), number
+
+
+@pytest.mark.parametrize("number", sorted(PUBLISHED))
+def test_each_row_gives_its_scale_number_at_its_edges(number):
+    more_than, up_to = PUBLISHED[number]
+    inside = [up_to, (more_than + up_to) / 2] + ([more_than * 1.0001] if more_than else [0.0])
+    assert scale_numbers(inside).tolist() == [number] * 3
+    if number < 28:
+        assert scale_numbers([up_to * 1.0001]).tolist() == [number + 1]
+
+
+def test_the_scale_doubles_per_number_within_the_tables_rounding():
+    # ISO 4406 4.1: "an increase in one code generally represents a doubling"; the table rounds
+    # (1.3 and 2.5 after 0.64, restarting at 5 and 10), so each step is a doubling within 5 %.
+    ratios = UP_TO[1:] / UP_TO[:-1]
+    assert np.all((ratios > 1.9) & (ratios < 2.1))
+
+
+def test_beyond_the_table_and_missing_counts():
+    assert scale_numbers([2_500_001.0, np.nan]).tolist()[0] == 29  # written >28 by the standard
+    assert np.isnan(scale_numbers([np.nan])[0])
+
+
+def test_the_published_worked_example():
+    # 14/12/>=7: more than 80 up to 160 at 4 um(c), 20 to 40 at 6 um(c), 0.64 to 1.3 at 14 um(c).
+    assert scale_numbers([120.0, 33.0, 1.0]).tolist() == [14, 12, 7]
+    assert read_iso4406("14/12/\u22657") == (14, 12, 7)
+
+
+@pytest.mark.parametrize("written, numbers", [
+    ("18/16/13", (18, 16, 13)), (" 18 / 16 / 13 ", (18, 16, 13)), ("16/13", (None, 16, 13)),
+    ("-/16/13", (None, 16, 13)), ("*/16/13", (None, 16, 13)), ("18/-/13", (18, None, 13)),
+    ("20/18/>=14", (20, 18, 14)),
+])
+def test_codes_as_labs_write_them(written, numbers):
+    assert read_iso4406(written) == numbers
+
+
+@pytest.mark.parametrize("written", ["18-16-13", "18/16/13/11", "18", "a/b/c", "31/16/13", "-/-/-", ""])
+def test_codes_that_cannot_be_read(written):
+    with pytest.raises(ValueError):
+        read_iso4406(written)
+
+
+def test_the_written_code_wins_and_counts_fill_what_it_leaves_out():
+    codes = np.array(["18/16/13", "-/16/13", None, None], dtype=object)
+    counts = {"4um": np.array([100.0, 2000.0, 2000.0, np.nan]), "6um": np.array([50.0, 600.0, 600.0, np.nan]),
+              "14um": np.array([5.0, 60.0, 60.0, np.nan])}
+    out = cleanliness_measures(codes, counts)
+    assert out["iso4406_4um"].tolist()[:3] == [18, 18, 18]  # as written; then from 2000 /mL (1300 to 2500)
+    assert out["iso4406_6um"].tolist()[:3] == [16, 16, 16]
+    assert out["iso4406_14um"].tolist()[:3] == [13, 13, 13]
+    assert all(np.isnan(out[name][3]) for name in out)
+
+
+def test_an_unreadable_code_rejects_its_row_with_field_and_code():
+    frame = pd.DataFrame({"sample_id": ["A", "B", "C"], "iso4406": ["18/16/13", "18-16-13", None]},
+                         index=[1, 2, 3])
+    batch = read_cleanliness_codes(SampleBatch(frame, (), 3, "t.csv"))
+    assert batch.frame["sample_id"].tolist() == ["A", "C"]
+    assert [(r.row, r.sample_id, r.field, r.code) for r in batch.rejects] == [(2, "B", "iso4406", "D012")]
