@@ -187,7 +187,9 @@ def run_find(args, stdout, stderr) -> int:
 
 
 def grade_demo(out_dir: Path, batch, ruleset):
-    """The demo's year of samples through a ledger in its out folder; a regenerated scenario is a correction."""
+    """The demo's year of samples through a ledger in its out folder; a regenerated scenario is a correction,
+    and the shipped site rule set may have changed under its version with the engine (a demo, not a site)."""
     path = out_dir / "brackwater.db"
-    graded, _ = grade_into_ledger(path, batch, ruleset, Correction("the demo scenario was generated again", "demo"))
+    graded, _ = grade_into_ledger(path, batch, ruleset, Correction("the demo scenario was generated again", "demo"),
+                                  reuse_version=True)
     return graded, path

@@ -119,7 +119,9 @@ def test_rejected_rows_and_conflicts_are_recorded_with_their_origin(db, tmp_path
                        "BP-0001,ST-1,steam-turbine,TURB-46-M,2026-01-05,38090,46.75,0.15,9999,direct,lab-a\n"
                        "BP-9002,ST-1,steam-turbine,TURB-46-M,2027-01-11,45100,abc,0.31,70,direct,lab-a\n"
                        "BP-9003,ST-1,steam-turbine,TURB-46-M,2027-01-18,45200,47.2,0.32,1500,direct,lab-a\n")
-    run = run_cli("grade", samples, "--rules", SITE, "--db", db, "--format", "csv")
+    rules = tmp_path / "recorded-v3.json"  # the rule set as the ledger recorded it
+    assert run_cli("rulesets", "brackwater-site@3", "--db", db, "--out", rules).code == 0
+    run = run_cli("grade", samples, "--rules", rules, "--db", db, "--format", "csv")
     assert run.code == 3 and "BP-9003" in run.out and "urgent" in run.out  # the rest is graded
     assert "read 3 row(s): 1 graded, 0 unrated, 2 rejected" in run.err
     rejects = run_cli("find", "--db", db, "--rejects", "--format", "jsonl")
