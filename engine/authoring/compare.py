@@ -104,6 +104,15 @@ def _changes(before: pd.Series, after: pd.Series, old_grades: tuple, new_grades:
     return tuple(changes)
 
 
+def same_name_differs(old: RuleSet, new: RuleSet) -> str | None:
+    """Two rule sets with one id and version but different content: results would name them alike."""
+    if (old.id, str(old.version)) != (new.id, str(new.version)) or old.sha256 == new.sha256:
+        return None
+    return (f"warning W013: both rule sets are '{old.id}' version {old.version}, but their content differs "
+            f"(sha256 {old.sha256[:12]} vs {new.sha256[:12]}); results record the id and version, so raise the "
+            f"new one's `version` before grading with it")
+
+
 def comparison_lines(comparison: Comparison, old_name: str, new_name: str) -> list[str]:
     """The report: the counts, the from-to table, then each sample that moved and the rules behind it."""
     c = comparison

@@ -9,6 +9,7 @@ abs/cm), whatever the rule set's `units:` says about its limits.
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
 
 import pandas as pd
@@ -76,7 +77,7 @@ def _differences(ruleset: RuleSet, example: Example, result: SampleResult) -> tu
         differences.append(f"grade: expected {wanted}, got {result.grade}{why}")
     for rule in expect.get("fires", []):
         if rule not in known_rules:
-            differences.append(_unknown_rule(rule, result, "fires"))
+            differences.append(_unknown_rule(rule, result, "fires", known_rules))
         elif rule in lacking:
             differences.append(f"fires: expected {rule} to fire, but it could not be evaluated "
                                f"(missing {', '.join(lacking[rule])})")
@@ -84,7 +85,7 @@ def _differences(ruleset: RuleSet, example: Example, result: SampleResult) -> tu
             differences.append(f"fires: expected {rule} to fire, but it stayed quiet")
     for rule in expect.get("quiet", []):
         if rule not in known_rules:
-            differences.append(_unknown_rule(rule, result, "quiet"))
+            differences.append(_unknown_rule(rule, result, "quiet", known_rules))
         elif rule in lacking:
             differences.append(f"quiet: expected {rule} to be evaluated and stay quiet, but it could not be "
                                f"evaluated (missing {', '.join(lacking[rule])})")
@@ -94,16 +95,21 @@ def _differences(ruleset: RuleSet, example: Example, result: SampleResult) -> tu
     known_caveats = {caveat.id for caveat in ruleset.caveats}
     for caveat in expect.get("caveats", []):
         if caveat not in known_caveats:
-            differences.append(f"caveats: the rule set has no caveat '{caveat}' "
+            differences.append(f"caveats: the rule set has no caveat '{caveat}'{_did_you_mean(caveat, known_caveats)} "
                                f"(it has: {', '.join(sorted(known_caveats)) or 'none'})")
         elif caveat not in raised:
             differences.append(f"caveats: expected caveat {caveat} on the sample, but it was not raised")
     return tuple(differences)
 
 
-def _unknown_rule(rule: str, result: SampleResult, key: str) -> str:
+def _unknown_rule(rule: str, result: SampleResult, key: str, known: set) -> str:
     """A misspelt id would make `quiet` hold for ever: name it as a difference instead."""
-    return f"{key}: class '{result.class_name}' has no rule '{rule}'"
+    return f"{key}: class '{result.class_name}' has no rule '{rule}'{_did_you_mean(rule, known)}"
+
+
+def _did_you_mean(ident: str, known) -> str:
+    close = difflib.get_close_matches(ident, sorted(known), n=1)
+    return f"; did you mean '{close[0]}'?" if close else ""
 
 
 def _reason_text(reason) -> str:

@@ -21,13 +21,15 @@ from sumpwise.vocabulary.cautions import CAUTIONS
 LEVELS_COMMON_PRACTICE = "common practice, no source"
 LEVELS_FROM_CALLER = "supplied by the caller"
 
-# Defaults, common practice, no source: the last n entries serve an n-grade ladder.
-DEFAULT_SD_MULTIPLIERS = (1.0, 2.0, 3.0)
-DEFAULT_PERCENTILES = (90.0, 95.0, 98.0)
+# Defaults, common practice, no source: the first n entries serve an n-grade ladder, so the
+# first level flags no more than about 5 % of in-control samples (2 SD: 2.3 % of a normal
+# population, one-sided; the 95th percentile: 5 %).
+DEFAULT_SD_MULTIPLIERS = (2.0, 2.5, 3.0)
+DEFAULT_PERCENTILES = (95.0, 97.5, 99.0)
 
 # A percentile limit needs results beyond it: with TAIL_RESULTS results past the
-# highest level, a 98th percentile needs 250 results, matching the common-practice
-# "a few hundred for a 98th percentile" (common practice, no source).
+# highest level, a 98th percentile needs 250 results and a 99th 500, matching the
+# common-practice "a few hundred for a 98th percentile" (common practice, no source).
 TAIL_RESULTS = 5
 
 # "auto" calls the data non-normal when the Jarque-Bera test rejects at this level
@@ -80,16 +82,24 @@ class Proposal:
 
 
 def moments(values: np.ndarray) -> tuple[float, float, float, float]:
-    """Mean, sample SD (ddof=1), skewness g1 and excess kurtosis g2 (biased moments)."""
-    mean = float(np.mean(values))
-    deviations = values - mean
+    """Mean, sample SD (ddof=1), skewness g1 and excess kurtosis g2 (biased moments).
+
+    Computed on the values divided by their largest size, so one huge outlier (1e200)
+    cannot overflow the squares and cubes into inf or nan; the shape figures do not
+    depend on the scale, the mean and SD are scaled back.
+    """
+    scale = float(np.max(np.abs(values))) if values.size else 0.0
+    scale = scale if scale > 0 and np.isfinite(scale) else 1.0
+    scaled = values / scale
+    mean = float(np.mean(scaled))
+    deviations = scaled - mean
     m2 = float(np.mean(deviations**2))
-    sd = float(np.std(values, ddof=1))
+    sd = float(np.std(scaled, ddof=1))
     if m2 == 0.0:
-        return mean, sd, 0.0, 0.0
+        return mean * scale, sd * scale, 0.0, 0.0
     skewness = float(np.mean(deviations**3)) / m2**1.5
     excess_kurtosis = float(np.mean(deviations**4)) / m2**2 - 3.0
-    return mean, sd, skewness, excess_kurtosis
+    return mean * scale, sd * scale, skewness, excess_kurtosis
 
 
 def jarque_bera_p(count: int, skewness: float, excess_kurtosis: float) -> float:
@@ -140,7 +150,7 @@ def _levels(method: str, levels, grades: tuple[str, ...]) -> tuple[tuple[float, 
                 f"levels: no default {method} levels for {len(grades)} grades "
                 f"(defaults cover up to {len(defaults)}); pass levels="
             )
-        return defaults[-len(grades):], LEVELS_COMMON_PRACTICE
+        return defaults[:len(grades)], LEVELS_COMMON_PRACTICE
     chosen = tuple(float(level) for level in levels)
     if len(chosen) != len(grades):
         raise ValueError(f"levels: {len(chosen)} given for {len(grades)} grades {grades!r}")

@@ -16,6 +16,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 
+from sumpwise.derive.viscosity import ISO_VG_GRADES
 from sumpwise.vocabulary.intervals import can_hold, covered
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 from sumpwise.vocabulary.measures import domain_of, measure_unit, unit_key
@@ -135,10 +136,17 @@ def shadows(strong, weak) -> bool:
 
 # -- the checks -----------------------------------------------------------------------------------
 
-def lint_ruleset(ruleset: RuleSet) -> tuple[Problem, ...]:
-    """Every warning for a compiled rule set, by file and line."""
+def lint_ruleset(ruleset: RuleSet, partial: bool = False) -> tuple[Problem, ...]:
+    """Every warning for a compiled rule set, by file and line.
+
+    `partial`: the rule set lacks the pieces that had errors, so the checks on a class as a
+    whole (grades it cannot give, signs it does not watch) would only echo those errors.
+    """
     found: dict = {}
-    for check in (_shadowed, _impossible, _ladders, _unreached_grades, _coverage, _units, _vague_sources):
+    checks = [_shadowed, _impossible, _ladders, _units, _raw_viscosity, _viscosity_grades, _vague_sources]
+    if not partial:
+        checks += [_unreached_grades, _coverage]
+    for check in checks:
         for problem in check(ruleset):
             found.setdefault(problem, None)
     return tuple(sorted(found, key=lambda p: (p.file, p.line, p.column, p.message)))
@@ -268,11 +276,8 @@ def _written(ruleset: RuleSet, origin: Origin, measure: str, value: float) -> tu
 def unit_trouble(measure: str, canonical: float) -> str | None:
     """Why a limit of this size (canonical units) looks written in the wrong unit, if it does."""
     key = unit_key(measure)
-    if measure == "water":
-        if canonical > 1_000_000:
-            return "water cannot exceed 100 % (1 000 000 ppm)"
-        if 0 < canonical < 1:
-            return "below 1 ppm, smaller than any Karl Fischer result"
+    if measure == "water" and 0 < canonical < 1:  # above 100 % is impossible: a compile error (C011)
+        return "below 1 ppm, smaller than any Karl Fischer result"
     if UNIT_FAMILY.get(key) == "absorbance" and measure in (key, "oxidation_rise") and abs(canonical) > 500:
         return ("above 500 abs/cm, which is 5 absorbance units through a 0.1 mm cell: 0.001 % of the light "
                 "through, beyond any FTIR reading")
@@ -319,6 +324,63 @@ def _units(ruleset: RuleSet):
                                          f"in the wrong unit: {why}",
                            f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
                            if declared else f"write the limit in {unit}")
+
+
+# -- implausible viscosity ------------------------------------------------------------------------
+
+# The lowest kv40 of any ISO 3448 grade (VG 2: 1.98 mm2/s): a raw kv40 limit below it is crossed by every oil.
+_LOWEST_KV40 = 1.98
+_RAW_VISCOSITY = {"kv40": "kv40_change_pct", "kv100": "kv100_change_pct"}
+
+
+def _viscosity_tests(rule) -> list:
+    if isinstance(rule, LadderRule):
+        return [(rule.test, limit) for _, limit in rule.steps] if rule.measure in _RAW_VISCOSITY else []
+    return [(leaf.test, leaf.limit) for leaf in leaves(rule.when)
+            if leaf.kind == "measure" and leaf.measure in _RAW_VISCOSITY]
+
+
+def _raw_viscosity(ruleset: RuleSet):
+    """`kv40 outside 5` reads |kv40| > 5, true for every oil: a change limit written on the raw viscosity."""
+    for rule in _all_rules(ruleset):
+        for test, limit in _viscosity_tests(rule):
+            symmetric = test == "outside" and not isinstance(limit, tuple)
+            tiny = test == "above" and limit < _LOWEST_KV40
+            if symmetric or tiny:
+                measure = rule.measure if isinstance(rule, LadderRule) else next(
+                    leaf.measure for leaf in leaves(rule.when) if leaf.kind == "measure" and leaf.measure in _RAW_VISCOSITY)
+                written = f"{measure} {test} {_num(limit)}"
+                why = (f"{measure} is a viscosity in mm2/s, never negative, so `outside {_num(limit)}` means above "
+                       f"{_num(limit)} mm2/s" if symmetric else
+                       f"every lubricating oil has {measure} above {_num(limit)} mm2/s (ISO 3448's lowest grade, "
+                       f"VG 2, starts at {_LOWEST_KV40})")
+                yield _warning("W011", rule.origin, f"rule '{rule.id}': {written} is crossed by every oil: {why}",
+                               f"for a change from new use {_RAW_VISCOSITY[measure]} (e.g. outside {{watch: 5}}); for "
+                               f"a band in mm2/s write a pair [low, high]")
+                break
+
+
+def _viscosity_grades(ruleset: RuleSet):
+    """A lubricant's ISO VG and its new-oil kv40 must agree within the grade's ISO 3448 band (midpoint +/-10 %)."""
+    for code, lub in ruleset.lubricants.items():
+        origin = ruleset.lubricant_origins.get(code)
+        if lub.iso_vg is None or origin is None:
+            continue
+        band = ISO_VG_GRADES.get(int(lub.iso_vg)) if float(lub.iso_vg).is_integer() else None
+        fits = [g for g, b in ISO_VG_GRADES.items() if lub.kv40 is not None and b.minimum <= lub.kv40 <= b.maximum]
+        if band is None:
+            near = min(ISO_VG_GRADES, key=lambda g: abs(g - lub.iso_vg))
+            kv40 = "" if lub.kv40 is None else (f"; its kv40 {_num(lub.kv40)} mm2/s fits ISO VG {fits[0]}" if fits
+                                                else f"; its kv40 {_num(lub.kv40)} mm2/s fits no ISO VG band")
+            yield _warning("W012", origin, f"lubricant '{code}': iso_vg {_num(lub.iso_vg)} is not an ISO 3448 grade"
+                                           f"{kv40}",
+                           f"did you mean {near}? (grades: {', '.join(str(g) for g in ISO_VG_GRADES)})")
+        elif lub.kv40 is not None and not band.minimum <= lub.kv40 <= band.maximum:
+            yield _warning("W012", origin,
+                           f"lubricant '{code}': kv40 {_num(lub.kv40)} mm2/s lies outside ISO VG {int(lub.iso_vg)}'s "
+                           f"band {_num(band.minimum)} to {_num(band.maximum)} mm2/s (ISO 3448: midpoint +/-10 %)",
+                           f"check both values; kv40 {_num(lub.kv40)} fits ISO VG {fits[0]}" if fits else
+                           "check both values against the supplier's data sheet")
 
 
 # -- sources --------------------------------------------------------------------------------------

@@ -91,6 +91,7 @@ def _parser(stdout) -> _Parser:
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
     grade.add_argument("--fail-at", metavar="GRADE",
                        help="exit 3 when any sample reaches this grade or higher")
+    authoring_cli.add_example_guard(grade)
     ledger_cli.add_grade_arguments(grade)
 
     explain = commands.add_parser("explain", help="tell the story of one sample's grade", out=stdout,
@@ -241,6 +242,8 @@ def _summary(graded) -> str:
 
 def _grade(args, stdin, stdout, stderr) -> int:
     ruleset, batch = _read(args, stdin)
+    if not authoring_cli.examples_hold(ruleset, args, stderr):
+        return USAGE
     fail_level = None
     if args.fail_at is not None:
         if args.fail_at not in ruleset.grades:

@@ -241,10 +241,13 @@ def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: st
         domain = domain_of(column)
         if domain == POSITIVE and (values <= 0).any():
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
-        elif domain == NOT_NEGATIVE and (values < 0).any():
+        elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column in columns.units:
             values = values * factor_to_canonical(UNIT_FAMILY[column], columns.units[column])
+        if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
+            reject(beyond, column, _found(f"cannot be above {domain[-1].high:g} {INPUT_MEASURES.get(column, '')}, "
+                                          f"found ", raw[column], beyond), "D005")
         raw[column] = values
 
     rejects.sort(key=lambda r: (r.row, r.field))

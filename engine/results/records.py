@@ -14,7 +14,7 @@ import pandas as pd
 
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED, Outcome
-from sumpwise.vocabulary.measures import measure_needs, measure_unit
+from sumpwise.vocabulary.measures import measure_needs
 from sumpwise.ruleset.model import LadderRule, RuleSet, leaves
 
 UNRATED = "unrated"
@@ -247,7 +247,7 @@ def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
     if isinstance(rule, LadderRule):
         limit = dict(rule.steps)[raw]
         return Reason(rule.id, grades[final], final, rule.message, rule.source, measure=rule.measure,
-                      value=values.number(rule.measure, i), unit=measure_unit(rule.measure) or None,
+                      value=values.number(rule.measure, i), unit=rs.unit_of(rule.measure) or None,
                       test=rule.test, limit=_limit_value(limit), capped_from=capped_from, capped_by=capped_by)
     rows, found = out.leaves[j]
     at = int(np.searchsorted(rows, i))

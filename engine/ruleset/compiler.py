@@ -12,16 +12,18 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import math
 import os
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from sumpwise.vocabulary.measures import (DERIVED_MEASURES, INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, MEASURES,
-                                         TRENDED, declared_trend_measures, read_iso4406, unit_key)
+                                         TRENDED, declared_trend_measures, domain_of, measure_unit, read_iso4406,
+                                         unit_key)
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
-from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset
+from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset, resolve_with_problems
 from sumpwise.vocabulary.measures import UNIT_FAMILY
 from sumpwise.vocabulary.cautions import DEFAULT_NOTICE
 from sumpwise.vocabulary.limit_tests import LADDER_TESTS, LIMIT_TESTS
@@ -35,11 +37,59 @@ _COMBINERS = ("all", "any", "not")
 
 def load_ruleset(path) -> RuleSet:
     """Load, resolve, validate and compile a rule set; raise InvalidFile listing every problem."""
-    return compile_ruleset(resolve_ruleset(Path(path)))
+    checked = check_ruleset(path)
+    if checked.errors or checked.ruleset is None:
+        raise InvalidFile(list(checked.problems))
+    return checked.ruleset
 
 
 def compile_ruleset(resolved: Resolved) -> RuleSet:
     return _Compiler(resolved).run()
+
+
+@dataclass(frozen=True)
+class RulesetCheck:
+    """Everything one run finds in a rule-set chain: schema, resolution and meaning together.
+
+    `ruleset` is the compiled rule set when there is no error; with errors it is `partial`,
+    built from the pieces that compiled cleanly (no fingerprint), so lint can still run on
+    them; None when the top file cannot be read as a rule set at all.
+    """
+
+    ruleset: RuleSet | None
+    problems: tuple
+    partial: bool
+
+    @property
+    def errors(self) -> tuple:
+        return tuple(p for p in self.problems if p.severity == "error")
+
+
+def check_ruleset(path) -> RulesetCheck:
+    """Resolve and compile a rule set, keeping on past problems so one run reports them all."""
+    resolved, problems = resolve_with_problems(Path(path))
+    if resolved is None:
+        first = min(problems, key=_order)
+        hidden = Problem(first.file, first.line, first.column, "this file could not be read as a rule set, so "
+                         "nothing in it (or in the files it extends) was checked", code="R009", severity="note",
+                         hint="fix the error reported here; the next run checks the rest")
+        return RulesetCheck(None, tuple(sorted(problems + [hidden], key=_order)), True)
+    compiler = _Compiler(resolved)
+    ruleset = compiler.build()
+    problems = problems + compiler.problems
+    partial = any(p.severity == "error" for p in problems)
+    if partial:
+        ruleset = replace(ruleset, canonical="", sha256="")
+    return RulesetCheck(ruleset, tuple(sorted(problems, key=_order)), partial)
+
+
+SEVERITY_RANK = {"error": 0, "warning": 1, "note": 2}
+
+
+def _order(problem: Problem) -> tuple:
+    """By file, line and column; at one place errors first, then warnings, then notes."""
+    return problem.file, problem.line, problem.column, SEVERITY_RANK.get(problem.severity, 3), problem.code, \
+        problem.message
 
 
 class _Compiler:
@@ -52,27 +102,52 @@ class _Compiler:
         self.fields = set(KNOWN_FIELDS) | set(resolved.fields)
 
     def run(self) -> RuleSet:
+        ruleset = self.build()
+        if self.problems:
+            raise InvalidFile(self.problems)
+        return ruleset
+
+    def build(self) -> RuleSet:
+        """The rule set from every piece that compiles cleanly; problems are collected, not raised."""
         r = self.r
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
         classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
         common = self._rules(r.rules.values())
         margins = {name: self._noise_margin(name, placed) for name, placed in sorted(r.noise_margins.items())}
-        caveats = tuple(self._caveat(p) for p in r.caveats.values())
+        caveats = self._clean(self._caveat, r.caveats.values(), "caveat")
         examples = tuple(self._example(p) for p in r.examples)
-        if self.problems:
-            raise InvalidFile(self.problems)
         header = r.header
+        name = header.get("ruleset", "(no id)")
         ruleset = RuleSet(
-            id=header["ruleset"], version=header["version"], title=header.get("title", header["ruleset"]),
+            id=name, version=header.get("version", "(no version)"), title=header.get("title", name),
             grades=tuple(self.grades), notice=header.get("notice", DEFAULT_NOTICE).strip(),
             lubricants=lubricants, classes=classes, rules=common, caveats=caveats,
             measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
             canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
+            measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
+            lubricant_origins={code: self._origin(placed) for code, placed in r.lubricants.items()},
             noise_margins=margins,
         )
+        if self.problems:
+            return ruleset
         canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
         digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
         return replace(ruleset, canonical=canonical, sha256=digest)
+
+    def _clean(self, compile_one, places, what: str) -> tuple:
+        """Compile each piece; one with a problem is left out, and its problems name its id."""
+        out = []
+        for placed in places:
+            before = len(self.problems)
+            item = compile_one(placed)
+            found = self.problems[before:]
+            if found:
+                ident = placed.data.get("id")
+                self.problems[before:] = [p if f"'{ident}'" in p.message else
+                                          replace(p, message=f"{what} '{ident}': {p.message}") for p in found]
+            else:
+                out.extend(piece for piece in (item if isinstance(item, list) else [item]) if piece is not None)
+        return tuple(out)
 
     # -- pieces --------------------------------------------------------------------------
 
@@ -134,13 +209,10 @@ class _Compiler:
 
     def _rules(self, places) -> tuple:
         """The compiled rules of a list; an `iso4406` rule becomes one ladder rule per size it limits."""
-        rules = []
-        for placed in places:
-            if "iso4406" in placed.data:
-                rules.extend(self._iso4406_rules(placed))
-            else:
-                rules.append(self._rule(placed))
-        return tuple(rules)
+        return self._clean(self._rule_pieces, places, "rule")
+
+    def _rule_pieces(self, placed: Placed) -> list:
+        return self._iso4406_rules(placed) if "iso4406" in placed.data else [self._rule(placed)]
 
     def _iso4406_rules(self, placed: Placed) -> list:
         """`iso4406: {watch: 17/15/12, alert: 19/17/14}`: a code above the grade's code at any size
@@ -221,8 +293,11 @@ class _Compiler:
                     self.problems.append(placed.problem(
                         f"the pair [{limit[0]}, {limit[1]}] for '{grade}' must be written [low, high] "
                         f"with low below high", (test, grade), code="C005"))
+                self._check_domain(placed, (test, grade), measure, limit, scale, f"'{grade}' limit")
                 limit = (limit[0] * scale, limit[1] * scale)
             else:
+                if test != "outside":  # |value| > x: a size, checked by lint
+                    self._check_domain(placed, (test, grade), measure, [limit], scale, f"'{grade}' limit")
                 limit = limit * scale
             steps.append((level, limit))
         steps.sort(key=lambda s: s[0])
@@ -239,6 +314,25 @@ class _Compiler:
                     f"the '{test}' limits are not in ladder order: the limit for '{higher}' must be "
                     f"{order.stricter_word} than the limit for '{lower}' ({written[higher]!r} vs {written[lower]!r})",
                     (test, higher), key=True, code="C006"))
+
+    def _check_domain(self, placed: Placed, sub: tuple, measure: str, written: list, scale: float, what: str) -> None:
+        """A limit no value of the measure can reach or pass is impossible: an error, not a warning."""
+        domain = domain_of(measure)
+        low, high = domain[0].low, domain[-1].high
+        if low == -math.inf and high == math.inf:
+            return
+        bad = [w for w in written if not (low <= w * scale <= high)]
+        if not bad:
+            return
+        unit_key_ = unit_key(measure)
+        written_unit = placed.units.get(unit_key_) if unit_key_ in UNIT_FAMILY else None
+        unit = written_unit or measure_unit(measure)
+        self.problems.append(placed.problem(
+            f"{what} {', '.join(_plain(w) for w in bad)}{_unit_words(unit)} lies outside what {measure} can take "
+            f"({domain_words(domain, measure_unit(measure))})", sub, key=False,
+            hint=("this file writes it in " + written_unit + "; was the limit written in another unit?"
+                  if written_unit and written_unit != measure_unit(measure) else
+                  "a limit there can never be crossed, or is crossed by every sample"), code="C011"))
 
     def _source(self, placed: Placed) -> str:
         source = (placed.data.get("source") or "").strip()
@@ -274,6 +368,9 @@ class _Compiler:
                 return MissingTest(measure, data["missing"])
             scale = self._scale(placed, measure)
             limit = data[test]
+            if test != "outside" or isinstance(limit, list):
+                self._check_domain(placed, sub + (test,), measure, limit if isinstance(limit, list) else [limit],
+                                   scale, f"'{test}' limit")
             if isinstance(limit, list):
                 if limit[0] > limit[1] or (test == "outside" and limit[0] == limit[1]):
                     self.problems.append(placed.problem(
@@ -324,7 +421,47 @@ class _Compiler:
             self.problems.append(placed.problem(
                 f"expected grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}] nor 'unrated'",
                 ("expect", "grade"), code="C010"))
+        self._check_example_ids(placed)
         return Example(data["name"], dict(data["sample"]), dict(data["expect"]), self._origin(placed))
+
+    def _check_example_ids(self, placed: Placed) -> None:
+        """A misspelt id in `fires` or `quiet` is caught here, with the ids it may have meant."""
+        class_name = placed.data["sample"].get("class")
+        if not isinstance(class_name, str) or class_name not in self.r.classes:
+            return  # an unknown class leaves the sample unrated; running the example says so
+        rules = set()
+        for ident, rule in {**self.r.rules, **self.r.classes[class_name]}.items():
+            # an `iso4406` rule compiles to one rule per size: `<id>-4um`, `<id>-6um`, `<id>-14um`
+            rules |= {f"{ident}-{size}" for size in ISO4406_SIZES} if "iso4406" in rule.data else {ident}
+        known = {"fires": rules, "quiet": rules, "caveats": set(self.r.caveats)}
+        for key, ids in known.items():
+            for i, ident in enumerate(placed.data["expect"].get(key, [])):
+                if ident in ids:
+                    continue
+                close = difflib.get_close_matches(ident, sorted(ids), n=1)
+                what = "caveat" if key == "caveats" else f"rule of class '{class_name}'"
+                self.problems.append(placed.problem(
+                    f"example '{placed.data['name']}': `{key}` names '{ident}', but there is no such {what}",
+                    ("expect", key, i), hint=f"did you mean '{close[0]}'?" if close else "", code="C012"))
+
+
+def _plain(value) -> str:
+    value = float(value)
+    return f"{int(value):,}" if value.is_integer() and abs(value) < 1e15 else f"{value:g}"
+
+
+def _unit_words(unit: str) -> str:
+    return "" if not unit else ("%" if unit == "%" else f" {unit}")
+
+
+def domain_words(domain: tuple, unit: str) -> str:
+    """What a measure can take, in words: 'not negative', 'from 0 to 1e+06 ppm', 'above -100%'."""
+    low, high = domain[0], domain[-1]
+    if high.high == math.inf:
+        if low.low == 0:
+            return "not negative" if low.low_in else "above 0"
+        return f"{'at least' if low.low_in else 'above'} {_plain(low.low)}{_unit_words(unit)}"
+    return f"from {_plain(low.low)} to {_plain(high.high)}{_unit_words(unit)}"
 
 
 def _as_text(value) -> str:

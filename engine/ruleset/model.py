@@ -9,6 +9,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import ClassVar, Union
 
+from sumpwise.vocabulary.measures import measure_unit
+
 
 @dataclass(frozen=True)
 class Origin:
@@ -196,6 +198,13 @@ class RuleSet:
     # Where each class was last declared, and each file's `units:`: marks for lint messages.
     class_origins: dict = field(default_factory=dict, compare=False, repr=False)
     file_units: dict = field(default_factory=dict, compare=False, repr=False)
+    # The unit each declared measure is written in (`measures: {iron: {unit: ppm}}`), for records.
+    measure_units: dict = field(default_factory=dict, compare=False, repr=False)
+    lubricant_origins: dict = field(default_factory=dict, compare=False, repr=False)
+
+    def unit_of(self, measure: str) -> str:
+        """A measure's unit: the vocabulary's, or the one the rule set declares for it."""
+        return measure_unit(measure) or self.measure_units.get(measure, "")
 
     def level_of(self, grade: str) -> int:
         return self.grades.index(grade)

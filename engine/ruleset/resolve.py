@@ -7,12 +7,13 @@ from: its marks for later errors, its `units:` for converting its limits.
 
 from __future__ import annotations
 
+import difflib
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from sumpwise.vocabulary.problems import InvalidFile, Problem
-from sumpwise.ruleset.schema import schema_problems
+from sumpwise.ruleset.schema import schema_findings
 from sumpwise.ruleset.yaml_source import YamlDocument, load_yaml
 
 DEFAULT_GRADES = ("normal", "watch", "alert", "urgent")
@@ -52,22 +53,59 @@ class Resolved:
     examples: list = field(default_factory=list)
     files: list = field(default_factory=list)
     class_places: dict = field(default_factory=dict)  # class name -> where it was last declared
+    # A file of the chain could not be read, or pieces were left out for schema errors: checks
+    # that need the whole chain (drop, a class's base) would only report what that hides.
+    incomplete: bool = False
 
 
 def resolve_ruleset(path: Path) -> Resolved:
     """Load `path` and everything it extends; raise InvalidFile with every problem found."""
-    problems: list[Problem] = []
-    resolved = _resolve(Path(path), (), {}, problems)
+    resolved, problems = resolve_with_problems(Path(path))
     if problems or resolved is None:
         raise InvalidFile(problems)
     return resolved
 
 
-def _extends_list(doc: YamlDocument) -> list[tuple[str, tuple]]:
-    value = doc.data.get("extends", [])
+def resolve_with_problems(path: Path) -> tuple[Resolved | None, list[Problem]]:
+    """Load `path` and everything it extends, keeping on past problems so one run finds them all.
+
+    Pieces with schema errors are left out of the merge (and so of the later checks); a
+    file that cannot be read at all is a note naming what it hides. None only when the
+    top file itself cannot be read as a rule set.
+    """
+    problems: list[Problem] = []
+    resolved = _resolve(Path(path), (), {}, problems)
+    return resolved, problems
+
+
+def _extends_list(data: dict) -> list[tuple[str, tuple]]:
+    value = data.get("extends", [])
     if isinstance(value, str):
         return [(value, ("extends",))]
     return [(item, ("extends", i)) for i, item in enumerate(value)]
+
+
+def _sanitized(doc: YamlDocument, spoiled: set) -> YamlDocument:
+    """The document without the keyed pieces that broke the schema (listed ones are skipped by index)."""
+    if not spoiled:
+        return doc
+    data = dict(doc.data)
+    for piece in sorted(spoiled, key=len):
+        head = piece[0]
+        if len(piece) == 1:
+            data.pop(head, None)
+        elif head in ("classes", "lubricants", "measures", "units", "noise_margins") and isinstance(data.get(head), dict):
+            if head == "classes" and len(piece) == 4:
+                continue  # one rule of a class: skipped by index
+            data[head] = {k: v for k, v in data[head].items() if k != piece[1]}
+    return replace(doc, data=data)
+
+
+def _hidden(doc: YamlDocument, at: tuple, target: str, why: str) -> Problem:
+    return doc.problem(at, f"'{target}' {why}, so nothing in it was checked, and problems in this file that "
+                           f"depend on it (a dropped rule, a class it gives) are not reported",
+                       severity="note", code="R009",
+                       hint="fix that file first; the next run checks what it hides")
 
 
 def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> Resolved | None:
@@ -82,25 +120,32 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
     if not isinstance(doc.data, dict):
         problems.append(doc.problem((), "a rule set must be a mapping with at least `ruleset` and `version`", code="R001"))
         return None
-    own_problems = schema_problems(doc)
-    if own_problems:
-        problems.extend(own_problems)
-        return None
+    own_problems, spoiled = schema_findings(doc)
+    problems.extend(own_problems)
+    doc_clean = _sanitized(doc, spoiled)
+    skipped = {piece for piece in spoiled if piece[0] in ("rules", "caveats", "examples", "fields")
+               or (piece[0] == "classes" and len(piece) == 4)}
 
-    merged = Resolved(top=doc)
-    for target, at in _extends_list(doc):
+    doc = doc_clean  # same file and marks; pieces that broke the schema are gone
+    merged = Resolved(top=doc, incomplete=bool(spoiled))
+    for target, at in _extends_list(doc_clean.data):
         parent_path = Path(os.path.normpath(path.parent / target))
         if parent_path.resolve() in stack + (key,):
             chain = " -> ".join(str(p) for p in stack + (key, parent_path.resolve()))
             problems.append(doc.problem(at, f"extends makes a cycle: {chain}", code="R002"))
             continue
         if not parent_path.is_file():
-            problems.append(doc.problem(at, f"extends names '{target}', but there is no file {parent_path}", code="R003"))
+            problems.append(doc.problem(at, f"extends names '{target}', but there is no file {parent_path}", code="R003",
+                                        hint="the rules that file would give were not checked"))
+            merged.incomplete = True
             continue
         parent = _resolve(parent_path, stack + (key,), cache, problems)
-        if parent is not None:
+        if parent is None:
+            problems.append(_hidden(doc, at, target, "could not be read as a rule set"))
+            merged.incomplete = True
+        else:
             _overlay(merged, parent, problems)
-    _add_own(merged, doc, problems)
+    _add_own(merged, doc, doc.data, skipped, problems)
     cache[key] = merged
     return merged
 
@@ -110,6 +155,7 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     if merged.files and merged.grades != parent.grades:
         problems.append(parent.top.problem(("grades",), _ladder_mismatch(merged.grades, parent.grades), code="R005"))
     merged.grades = parent.grades
+    merged.incomplete = merged.incomplete or parent.incomplete
     merged.header.update(parent.header)
     merged.header_marks.update(parent.header_marks)
     merged.lubricants.update(parent.lubricants)
@@ -130,10 +176,13 @@ def _ladder_mismatch(a: tuple, b: tuple) -> str:
             f"[{', '.join(b)}] but another has [{', '.join(a)}]")
 
 
-def _by_id(items: list, doc: YamlDocument, base: tuple, problems: list[Problem], what: str) -> dict:
+def _by_id(items: list, doc: YamlDocument, base: tuple, problems: list[Problem], what: str,
+           skipped: set = frozenset()) -> dict:
     """Items of one list by id, refusing an id given twice in the same list."""
     seen: dict[str, Placed] = {}
     for i, item in enumerate(items):
+        if base + (i,) in skipped:
+            continue
         placed = Placed(item, doc, base + (i,))
         ident = item["id"]
         if ident in seen:
@@ -145,8 +194,7 @@ def _by_id(items: list, doc: YamlDocument, base: tuple, problems: list[Problem],
     return seen
 
 
-def _add_own(merged: Resolved, doc: YamlDocument, problems: list[Problem]) -> None:
-    data = doc.data
+def _add_own(merged: Resolved, doc: YamlDocument, data: dict, skipped: set, problems: list[Problem]) -> None:
     grades = tuple(data.get("grades", DEFAULT_GRADES))
     if merged.files and grades != merged.grades:
         where = ("grades",) if "grades" in data else ("ruleset",)
@@ -163,22 +211,82 @@ def _add_own(merged: Resolved, doc: YamlDocument, problems: list[Problem]) -> No
     for name, margin in data.get("noise_margins", {}).items():
         merged.noise_margins[name] = Placed(margin, doc, ("noise_margins", name))
     for i, name in enumerate(data.get("fields", [])):
-        merged.fields[name] = Placed(name, doc, ("fields", i))
+        if ("fields", i) not in skipped:
+            merged.fields[name] = Placed(name, doc, ("fields", i))
 
-    for name, spec in data.get("classes", {}).items():
-        merged.class_places[name] = Placed(spec, doc, ("classes", name))
-        target = merged.classes.setdefault(name, {})
+    _ClassBuilder(merged, doc, data.get("classes", {}), skipped, problems).build_all()
+    merged.rules.update(_by_id(data.get("rules", []), doc, ("rules",), problems, "rule", skipped))
+    merged.caveats.update(_by_id(data.get("caveats", []), doc, ("caveats",), problems, "caveat", skipped))
+    merged.examples = [Placed(item, doc, ("examples", i)) for i, item in enumerate(data.get("examples", []))
+                       if ("examples", i) not in skipped]
+    merged.top = doc
+    merged.files.append(doc.file)
+
+
+class _ClassBuilder:
+    """One file's classes, each after the class it `extends` (of this file or a parent).
+
+    A class with `extends: other` starts from the other class's rules as resolved so far,
+    then any rules it had from a parent rule set, then its `drop`, then its own `rules`.
+    """
+
+    def __init__(self, merged: Resolved, doc: YamlDocument, specs: dict, skipped: set, problems: list[Problem]):
+        self.merged, self.doc, self.specs, self.skipped, self.problems = merged, doc, specs, skipped, problems
+        self.done: set = set()
+        self.visiting: list = []
+
+    def build_all(self) -> None:
+        for name in self.specs:
+            self.build(name)
+
+    def build(self, name: str) -> bool:
+        """Resolve class `name` of this file; False when it sits on a cycle of `extends`."""
+        if name in self.done:
+            return True
+        if name in self.visiting:
+            return False
+        self.visiting.append(name)
+        spec = self.specs[name]
+        base = spec.get("extends")
+        start: dict = {}
+        if base is not None:
+            start = self._base_rules(name, base)
+        self.visiting.pop()
+        self.done.add(name)
+        self._apply(name, spec, start)
+        return True
+
+    def _base_rules(self, name: str, base: str) -> dict:
+        at = ("classes", name, "extends")
+        if base in self.specs and not self.build(base):
+            cycle = " -> ".join([*self.visiting[self.visiting.index(base):], base])
+            self.problems.append(self.doc.problem(at, f"class '{name}' extends '{base}', which leads back to it: "
+                                                      f"a cycle ({cycle})", code="R008",
+                                                  hint="a class can build on another, never on itself"))
+            return {}
+        if base not in self.merged.classes:
+            if not self.merged.incomplete:
+                known = sorted(set(self.merged.classes) | set(self.specs))
+                close = difflib.get_close_matches(base, known, n=1)
+                self.problems.append(self.doc.problem(
+                    at, f"class '{name}' extends '{base}', but neither this file nor the rule sets it extends give "
+                        f"a class '{base}' (classes: {', '.join(known) or 'none'})", code="R007",
+                    hint=f"did you mean '{close[0]}'?" if close else ""))
+            return {}
+        return dict(self.merged.classes[base])
+
+    def _apply(self, name: str, spec: dict, start: dict) -> None:
+        doc = self.doc
+        self.merged.class_places[name] = Placed(spec, doc, ("classes", name))
+        target = {**start, **self.merged.classes.get(name, {})}
         for i, dropped in enumerate(spec.get("drop", [])):
             if dropped in target:
                 del target[dropped]
-            else:
-                problems.append(doc.problem(("classes", name, "drop", i),
-                                            f"drop names rule '{dropped}', but no extended rule set gives "
-                                            f"class '{name}' a rule with that id", code="R006"))
-        own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), problems, "rule")
+            elif not self.merged.incomplete:
+                gives = f"class '{spec['extends']}' or " if "extends" in spec else ""
+                self.problems.append(doc.problem(("classes", name, "drop", i),
+                                                 f"drop names rule '{dropped}', but neither {gives}an extended rule "
+                                                 f"set gives class '{name}' a rule with that id", code="R006"))
+        own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), self.problems, "rule", self.skipped)
         target.update(own)
-    merged.rules.update(_by_id(data.get("rules", []), doc, ("rules",), problems, "rule"))
-    merged.caveats.update(_by_id(data.get("caveats", []), doc, ("caveats",), problems, "caveat"))
-    merged.examples = [Placed(item, doc, ("examples", i)) for i, item in enumerate(data.get("examples", []))]
-    merged.top = doc
-    merged.files.append(doc.file)
+        self.merged.classes[name] = target

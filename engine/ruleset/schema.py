@@ -33,10 +33,42 @@ def _validator() -> jsonschema.Draft202012Validator:
 
 def schema_problems(doc: YamlDocument) -> list[Problem]:
     """Every schema violation in the document, one plain sentence each."""
+    return schema_findings(doc)[0]
+
+
+def schema_findings(doc: YamlDocument) -> tuple[list[Problem], set]:
+    """Every schema violation, and the pieces of the document they spoil.
+
+    A spoiled piece (a rule, a caveat, a lubricant, a class, a top-level key) is left out
+    of the later checks, so the rest of the file is still checked in the same run.
+    """
     problems: list[Problem] = []
+    spoiled: set = set()
     for error in _validator().iter_errors(doc.data):
         problems.extend(_explain(doc, error))
-    return problems
+        path = tuple(error.absolute_path)
+        if error.validator == "additionalProperties" and isinstance(error.instance, dict):
+            allowed = (error.schema or {}).get("properties", {}) if isinstance(error.schema, dict) else {}
+            spoiled.update(piece_of(path + (key,)) for key in error.instance if key not in allowed)
+        else:
+            spoiled.add(piece_of(path))
+    spoiled.discard(())
+    return problems, spoiled
+
+
+_KEYED = ("classes", "lubricants", "measures", "units", "noise_margins")
+_LISTED = ("rules", "caveats", "examples", "fields")
+
+
+def piece_of(path: tuple) -> tuple:
+    """The smallest piece of a rule-set document that is checked on its own and holds `path`."""
+    if not path:
+        return ()
+    if path[0] == "classes" and len(path) >= 4 and path[2] == "rules":
+        return path[:4]
+    if path[0] in _KEYED + _LISTED and len(path) >= 2:
+        return path[:2]
+    return path[:1]
 
 
 def _kind(value) -> str:

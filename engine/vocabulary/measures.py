@@ -21,6 +21,8 @@ NOT_NEGATIVE = (Span(0.0, INF, low_in=True),)
 POSITIVE = (Span(0.0, INF),)
 # (used - new) / new x 100 with both viscosities above zero lies above -100 %.
 ABOVE_MINUS_100 = (Span(-100.0, INF),)
+# Water is a share of the sample: at most 100 % (1 000 000 ppm).
+WATER_DOMAIN = (Span(0.0, 1_000_000.0, low_in=True, high_in=True),)
 
 
 @dataclass(frozen=True)
@@ -85,7 +87,7 @@ READINGS = (
     _reading("sulfation", "abs/cm", "FTIR sulfation", family="absorbance", trended=True),
     _reading("antiwear", "abs/cm", "FTIR anti-wear additive (phosphate)", family="absorbance", trended=True),
     _reading("soot", "abs/cm", "FTIR soot", family="absorbance", trended=True),
-    _reading("water", "ppm", "water", family="water", domain=NOT_NEGATIVE, trended=True),
+    _reading("water", "ppm", "water", family="water", domain=WATER_DOMAIN, trended=True),
     _reading("oil_hours", "h", "hours on the oil charge", domain=NOT_NEGATIVE),
     _reading("rpvot", "min", "RPVOT oxidation stability", domain=NOT_NEGATIVE, low_is_bad=True, reference=True,
              trended=True),

@@ -35,6 +35,9 @@ PROBLEM_CODES = {
     "R004": "an id is used twice in one list",
     "R005": "grade ladders of the extended rule sets differ",
     "R006": "drop names a rule no extended rule set gives",
+    "R007": "a class extends a class no file of the chain gives",
+    "R008": "class extends makes a cycle",
+    "R009": "a file that cannot be read hides what it would have checked (a note)",
     "C001": "a grade that is not on the ladder",
     "C002": "a limit for the lowest grade",
     "C003": "unknown measure",
@@ -45,6 +48,8 @@ PROBLEM_CODES = {
     "C008": "a malformed condition",
     "C009": "unknown field",
     "C010": "an example expects a grade that is not on the ladder",
+    "C011": "a limit outside what the measure can take",
+    "C012": "an example names a rule or caveat its class does not have",
     "C014": "a noise margin for a measure without trend measures",
     "C015": "an ISO 4406 code that cannot be read",
     "W001": "a rule another rule always shadows",
@@ -57,6 +62,9 @@ PROBLEM_CODES = {
     "W008": "a class with no rule on acid number, viscosity or oxidation",
     "W009": "a limit that looks written in the wrong unit",
     "W010": "a vague source",
+    "W011": "a raw viscosity limit every oil crosses",
+    "W012": "a lubricant whose ISO VG disagrees with its kv40",
+    "W013": "two rule sets share id and version but differ",
     "M001": "the column map is not a mapping",
     "M002": "a column map entry that is not a column name",
     "M003": "a unit the measure cannot take",
@@ -70,6 +78,7 @@ PROBLEM_CODES = {
     "L001": "a sample id the ledger already recorded with other values",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
+    "E002": "examples not run because the rule set has errors (a note)",
 }
 
 

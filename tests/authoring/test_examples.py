@@ -28,7 +28,7 @@ def test_clean_fixture_examples_hold():
 
 def test_failing_examples_say_where_and_what_differs():
     failures = {f.name: f for f in check_examples(load_ruleset(DATA / "examples-fail.yaml"))}
-    assert set(failures) == {"wrong grade and a rule that fired", "a misspelt rule and a missing value",
+    assert set(failures) == {"wrong grade and a rule that fired", "a rule that lacks a value",
                              "cap not raised on mineral oil", "a sample that cannot be read"}
     wrong = failures["wrong grade and a rule that fired"]
     assert (Path(wrong.file).name, wrong.line) == ("examples-fail.yaml", 9)
@@ -41,9 +41,8 @@ def test_failing_examples_say_where_and_what_differs():
     assert text[1:] == ["    - grade: expected normal, got watch",
                         "    - quiet: expected acid-rise to stay quiet, but it fired (watch)",
                         "    actual: grade watch; fired: acid-rise (watch)"]
-    assert failures["a misspelt rule and a missing value"].differences == (
-        "fires: class 'pump' has no rule 'acid-rsie'",
-        "fires: expected visc-drift to fire, but it could not be evaluated (missing kv40)")
+    assert failures["a rule that lacks a value"].differences == (
+        "fires: expected visc-drift to fire, but it could not be evaluated (missing kv40)",)
     assert "caveats: expected caveat ester-carbonyl on the sample, but it was not raised" in \
         failures["cap not raised on mineral oil"].differences
     assert failures["a sample that cannot be read"].differences == (

@@ -53,7 +53,7 @@ def test_ladder_gap_unreachable_step_and_unreached_grade():
         (14, "rule 'acid-low'"),
     ]
     assert "limits for watch, urgent but none for alert" in found[1][2]
-    assert "no value reaches its 'alert' limit (an below -1" in found[2][2]
+    assert "no value reaches its 'alert' limit (kv100_change_pct below -100" in found[2][2]
 
 
 def test_class_without_acid_viscosity_or_oxidation_rules():
@@ -69,8 +69,9 @@ def test_limits_in_the_wrong_unit():
     found = warnings_of("lint-units.yaml")
     assert [line for _, line, _ in found] == [9, 14, 19]
     water, oxidation, viscosity = (message for _, _, message in found)
-    # 200 % is 2 000 000 ppm: more water than oil (1 % = 10 000 ppm).
-    assert "water limit(s) 200, 500 %" in water and "cannot exceed 100 %" in water
+    # 0.00005 % is 0.5 ppm (1 % = 10 000 ppm), below what a Karl Fischer titration reports.
+    # (A water limit above 100 % is impossible, an error: tests/ruleset/test_one_pass.py.)
+    assert "water limit(s) 5e-05, 8e-05 %" in water and "below 1 ppm" in water
     # 8 abs/0.1mm = 800 abs/cm: absorbance 8 through 0.1 mm, 10^-8 of the light.
     assert "oxidation limit(s) 8, 15 abs/0.1mm" in oxidation
     assert "kv100_change_pct limit(s) 460 %" in viscosity
@@ -165,10 +166,39 @@ def test_interval_helpers():
 
 
 @pytest.mark.parametrize("measure, limit, troubled", [
-    ("water", 2_000_000.0, True), ("water", 1_000_000.0, False), ("water", 0.5, True), ("water", 200.0, False),
+    ("water", 1_000_000.0, False), ("water", 0.5, True), ("water", 200.0, False),
     ("oxidation", 800.0, True), ("oxidation", 180.0, False), ("oxidation_rise", 1500.0, True),
     ("kv40_change_pct", 150.0, True), ("kv40_change_pct", -10.0, False),
     ("rpvot_retained_pct", 0.5, True), ("rpvot_retained_pct", 25.0, False), ("an_rise", 900.0, False),
 ])
 def test_unit_trouble_thresholds(measure, limit, troubled):
     assert (unit_trouble(measure, limit) is not None) == troubled
+
+
+@pytest.mark.parametrize("iso_vg, kv40, warned, words", [
+    (46, 45.9, False, None),                   # ISO 3448: VG 46 is 41.4 to 50.6 mm2/s
+    (46, 80.0, True, "outside ISO VG 46's band 41.4 to 50.6"),
+    (45, 80.0, True, "45 is not an ISO 3448 grade; its kv40 80 mm2/s fits no ISO VG band"),  # 68: 61.2-74.8
+    (45, 44.0, True, "fits ISO VG 46"),
+    (68, 74.8, False, None),                   # the band's upper end belongs to it
+])
+def test_iso_vg_and_kv40_must_agree(tmp_path, iso_vg, kv40, warned, words):
+    path = tmp_path / "r.yaml"
+    path.write_text(f"ruleset: r\nversion: 1\nlubricants:\n  OIL: {{iso_vg: {iso_vg}, kv40: {kv40}}}\n")
+    found = [p for p in lint_ruleset(load_ruleset(path)) if p.code == "W012"]
+    assert bool(found) == warned
+    if words:
+        assert words in found[0].message and found[0].line == 4
+
+
+@pytest.mark.parametrize("rule, warned", [
+    ("measure: kv40, outside: {watch: 5}", True),        # |kv40| > 5: every oil above VG 5
+    ("measure: kv40, above: {watch: 1.5}", True),        # below ISO VG 2's lowest kv40, 1.98
+    ("measure: kv40, outside: {watch: [41.4, 50.6]}", False),
+    ("measure: kv40_change_pct, outside: {watch: 5}", False),
+])
+def test_raw_viscosity_limits_every_oil_crosses(tmp_path, rule, warned):
+    path = tmp_path / "r.yaml"
+    path.write_text(f"ruleset: r\nversion: 1\nclasses:\n  pump:\n    rules:\n"
+                    f"      - {{id: v, {rule}, message: m, source: site practice}}\n")
+    assert ("W011" in [p.code for p in lint_ruleset(load_ruleset(path))]) == warned

@@ -2,7 +2,8 @@
 
 Method sources: ASTM D7720 §1.2 (SPC limits for normal, in-control data) and §1.3
 (cumulative-distribution percentiles for data that are not), as the fact sheet
-reports them. The level choices (1/2/3 SD; 90th/95th/98th percentile) and the
+reports them. The level choices (2/2.5/3 SD; 95th/97.5th/99th percentile, so the first level
+flags no more than about 5 % of in-control samples) and the
 minimum counts are common practice, no source. The samples are seeded random data.
 """
 
@@ -27,33 +28,33 @@ LADDER = ["watch", "alert", "urgent"]
 
 @pytest.fixture
 def normal_sample():
-    # Acid-number rise like values, mg KOH/g: seeded normal, 400 results.
-    return np.random.default_rng(20240601).normal(0.10, 0.03, 400)
+    # Acid-number rise like values, mg KOH/g: seeded normal, 600 results.
+    return np.random.default_rng(20240601).normal(0.10, 0.03, 600)
 
 
 @pytest.fixture
 def lognormal_sample():
-    # Water-in-oil like values, ppm: seeded lognormal (skewed), 400 results.
-    return np.random.default_rng(20240602).lognormal(np.log(120.0), 0.6, 400)
+    # Water-in-oil like values, ppm: seeded lognormal (skewed), 600 results.
+    return np.random.default_rng(20240602).lognormal(np.log(120.0), 0.6, 600)
 
 
 def test_spc_limits_equal_numpy_mean_and_sd(normal_sample):
-    # ASTM D7720 §1.2 SPC approach: mean + k*SD; k = 1, 2, 3 is common practice, no source.
+    # ASTM D7720 §1.2 SPC approach: mean + k*SD; k = 2, 2.5, 3 is common practice, no source.
     p = propose_ladder(normal_sample, LADDER, "above", method="spc")
     mean, sd = np.mean(normal_sample), np.std(normal_sample, ddof=1)
-    np.testing.assert_allclose(p.limits, [mean + sd, mean + 2 * sd, mean + 3 * sd], rtol=1e-12)
-    assert p.method == "spc" and p.levels == (1.0, 2.0, 3.0) and p.percentiles == ()
+    np.testing.assert_allclose(p.limits, [mean + 2 * sd, mean + 2.5 * sd, mean + 3 * sd], rtol=1e-12)
+    assert p.method == "spc" and p.levels == (2.0, 2.5, 3.0) and p.percentiles == ()
     assert p.mean == pytest.approx(mean, rel=1e-12) and p.sd == pytest.approx(sd, rel=1e-12)
-    assert p.count == 400 and p.dropped_missing == 0
+    assert p.count == 600 and p.dropped_missing == 0
     assert p.ladder() == dict(zip(LADDER, p.limits))
 
 
 def test_percentile_limits_equal_numpy_percentile(lognormal_sample):
-    # ASTM D7720 §1.3 percentile approach: 90th/95th/98th is common practice, no source.
+    # ASTM D7720 §1.3 percentile approach: 95th/97.5th/99th is common practice, no source.
     p = propose_ladder(lognormal_sample, LADDER, "above", method="percentile")
-    expected = np.percentile(lognormal_sample, [90, 95, 98])
+    expected = np.percentile(lognormal_sample, [95, 97.5, 99])
     np.testing.assert_allclose(p.limits, expected, rtol=1e-12)
-    assert p.method == "percentile" and p.percentiles == (90.0, 95.0, 98.0)
+    assert p.method == "percentile" and p.percentiles == (95.0, 97.5, 99.0)
 
 
 def test_auto_picks_percentile_for_lognormal_and_spc_for_normal(normal_sample, lognormal_sample):
@@ -78,13 +79,13 @@ def test_moments_and_normality_match_scipy(lognormal_sample):
 
 
 def test_below_direction_gives_descending_limits(normal_sample, lognormal_sample):
-    # §1.2: mean - k*SD; §1.3: the 10th/5th/2nd percentiles (levels common practice, no source).
+    # §1.2: mean - k*SD; §1.3: the 5th/2.5th/1st percentiles (levels common practice, no source).
     spc = propose_ladder(normal_sample, LADDER, "below", method="spc")
     mean, sd = np.mean(normal_sample), np.std(normal_sample, ddof=1)
-    np.testing.assert_allclose(spc.limits, [mean - sd, mean - 2 * sd, mean - 3 * sd], rtol=1e-12)
+    np.testing.assert_allclose(spc.limits, [mean - 2 * sd, mean - 2.5 * sd, mean - 3 * sd], rtol=1e-12)
     pct = propose_ladder(lognormal_sample, LADDER, "below", method="percentile")
-    np.testing.assert_allclose(pct.limits, np.percentile(lognormal_sample, [10, 5, 2]), rtol=1e-12)
-    assert pct.percentiles == (10.0, 5.0, 2.0)
+    np.testing.assert_allclose(pct.limits, np.percentile(lognormal_sample, [5, 2.5, 1]), rtol=1e-12)
+    assert pct.percentiles == (5.0, 2.5, 1.0)
     for p in (spc, pct):
         assert all(b < a for a, b in zip(p.limits, p.limits[1:]))
 
@@ -100,7 +101,7 @@ def test_missing_values_dropped_and_counted(normal_sample):
     values[[3, 50, 77]] = np.nan
     p = propose_ladder(values, LADDER, "above", method="spc")
     kept = values[~np.isnan(values)]
-    assert p.count == 397 and p.dropped_missing == 3
+    assert p.count == 597 and p.dropped_missing == 3
     assert p.mean == pytest.approx(np.mean(kept), rel=1e-12)
     assert "3 missing dropped" in p.source
 
@@ -114,11 +115,11 @@ def test_too_little_data_refused_spc():
 
 
 def test_too_little_data_refused_percentile(lognormal_sample):
-    # A 98th percentile needs 5 results beyond it, so 250 (common practice "a few
+    # A 99th percentile needs 5 results beyond it, so 500 (common practice "a few
     # hundred", no source); a 90th alone needs 50.
-    with pytest.raises(NotEnoughData, match="249 results found, at least 250 needed"):
-        propose_ladder(lognormal_sample[:249], LADDER, "above", method="percentile")
-    assert propose_ladder(lognormal_sample[:250], LADDER, "above", method="percentile").needed == 250
+    with pytest.raises(NotEnoughData, match="499 results found, at least 500 needed"):
+        propose_ladder(lognormal_sample[:499], LADDER, "above", method="percentile")
+    assert propose_ladder(lognormal_sample[:500], LADDER, "above", method="percentile").needed == 500
     with pytest.raises(NotEnoughData, match="at least 50 needed"):
         propose_ladder(lognormal_sample[:49], ["watch"], "above", method="percentile", levels=[90])
 
@@ -131,7 +132,7 @@ def test_nans_do_not_count_toward_the_minimum():
 
 def test_default_levels_marked_and_overridable(normal_sample):
     default = propose_ladder(normal_sample, ["watch", "alert"], "above", method="spc")
-    assert default.levels == (2.0, 3.0)
+    assert default.levels == (2.0, 2.5)
     assert default.levels_source == "common practice, no source"
     assert "ASTM D7720 approach" in default.source
     assert "levels: common practice, no source" in default.source
@@ -209,7 +210,7 @@ def test_yaml_refuses_rounding_that_merges_limits():
 
 
 def test_auto_says_why_it_needs_more_data(lognormal_sample):
-    # 100 skewed results: auto picks percentiles, which need 250 for the 98th.
-    with pytest.raises(NotEnoughData, match="100 results found, at least 250 needed") as info:
+    # 100 skewed results: auto picks percentiles, which need 500 for the 99th.
+    with pytest.raises(NotEnoughData, match="100 results found, at least 500 needed") as info:
         propose_ladder(lognormal_sample[:100], LADDER, "above")
     assert info.value.method == "percentile" and "Jarque-Bera" in str(info.value)

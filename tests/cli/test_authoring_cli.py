@@ -3,8 +3,8 @@
 propose-limits is checked against numpy on seeded data of a known distribution.
 Method source: ASTM D7720 §1.2 (SPC limits, mean + k SD, for normal, in-control
 data) and §1.3 (percentiles of the sorted data for data that are not), as the
-project's fact sheet (../shared/reference/limits.md) gives them. The levels (1/2/3
-SD; 90th/95th/98th percentile) and the minimum counts are common practice, no
+project's fact sheet (../shared/reference/limits.md) gives them. The levels (2/2.5/3
+SD; 95th/97.5th/99th percentile) and the minimum counts are common practice, no
 source: D7720's own were not found.
 """
 
@@ -19,6 +19,7 @@ import pytest
 import yaml
 
 from conftest import ROOT, run_cli
+from sumpwise.ruleset.compiler import load_ruleset
 
 DATA = ROOT / "tests" / "data" / "authoring"
 
@@ -91,11 +92,11 @@ def test_compare_bad_rule_set_is_exit_2(tmp_path):
     assert run.code == 2 and "unknown measure 'nope'" in run.err
 
 
-def _write_samples(path, an_values, water_values=None, lubricant="PUMP-46-M"):
+def _write_samples(path, an_values, water_values=None, lubricant="PUMP-46-M", measure="an"):
     n = len(an_values)
     dates = pd.date_range("2025-01-01", periods=n, freq="D").strftime("%Y-%m-%d")
     frame = pd.DataFrame({"sample_id": [f"S-{i:04d}" for i in range(n)], "class": "pump", "lubricant": lubricant,
-                          "sampled_on": dates, "an": an_values})
+                          "sampled_on": dates, measure: an_values})
     if water_values is not None:
         frame["water"] = water_values
     # Rows of another class and lubricant must not be used.
@@ -111,16 +112,18 @@ def _snippet_rule(text: str) -> dict:
 
 
 def test_propose_limits_spc_equals_numpy_mean_plus_k_sd(tmp_path):
-    values = np.round(np.random.default_rng(7720).normal(0.30, 0.04, 400), 4)
-    samples = _write_samples(tmp_path / "s.csv", values)
-    run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "an",
+    # kv40 of an ISO VG 320 gear oil, mm2/s: its spread (SD 4) is far wider than D445's repeatability,
+    # so no step is widened and the limits are the statistics' own.
+    values = np.round(np.random.default_rng(7720).normal(320.0, 4.0, 400), 2)
+    samples = _write_samples(tmp_path / "s.csv", values, measure="kv40")
+    run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "kv40",
                   "--lubricant", "PUMP-46-M", "--method", "spc")
     assert run.code == 0, run.err
-    # ASTM D7720 §1.2 approach: mean + k * SD (sample SD, ddof=1), k = 1, 2, 3 (common practice, no source).
+    # ASTM D7720 §1.2 approach: mean + k * SD (sample SD, ddof=1), k = 2, 2.5, 3 (common practice, no source).
     mean, sd = np.mean(values), np.std(values, ddof=1)
-    expected = [float(f"{mean + k * sd:.4g}") for k in (1, 2, 3)]
+    expected = [float(f"{mean + k * sd:.4g}") for k in (2, 2.5, 3)]
     rule = _snippet_rule(run.out)
-    assert rule["measure"] == "an" and list(rule["above"]) == ["watch", "alert", "urgent"]
+    assert rule["measure"] == "kv40" and list(rule["above"]) == ["watch", "alert", "urgent"]
     assert list(rule["above"].values()) == expected
     assert "count: 400 result(s) used" in run.out and "dates: 2025-01-01 to 2026-02-04" in run.out
     assert f"mean {mean:.6g}, SD {sd:.6g}" in run.out
@@ -139,13 +142,13 @@ def test_propose_limits_spc_on_skewed_data_says_percentiles_would_suit(tmp_path)
 
 
 def test_propose_limits_auto_takes_percentiles_of_skewed_data(tmp_path):
-    water = np.round(np.random.default_rng(7721).lognormal(np.log(120.0), 0.6, 400), 1)
-    samples = _write_samples(tmp_path / "s.csv", np.full(400, 0.3), water)
+    water = np.round(np.random.default_rng(7721).lognormal(np.log(120.0), 0.6, 600), 1)
+    samples = _write_samples(tmp_path / "s.csv", np.full(600, 0.3), water)
     out = tmp_path / "water.yaml"
     run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "water", "--out", out)
     assert run.code == 0, run.err
     # ASTM D7720 §1.3 approach: percentiles of the sorted data; numpy's default (linear) interpolation.
-    expected = [float(f"{q:.4g}") for q in np.percentile(water, [90, 95, 98])]
+    expected = [float(f"{q:.4g}") for q in np.percentile(water, [95, 97.5, 99])]
     text = out.read_text(encoding="utf-8")
     assert list(_snippet_rule(text)["above"].values()) == expected
     assert "method: percentiles of the sorted data" in run.out and f"wrote {out}" in run.out
@@ -159,8 +162,13 @@ def test_propose_limits_derived_measure_uses_the_rule_set_new_oil_value(tmp_path
     assert run.code == 0, run.err
     rise = values - 0.10  # clean.yaml: PUMP-46-M new-oil acid number 0.10
     mean, sd = np.mean(rise), np.std(rise, ddof=1)
-    # clean.yaml's ladder is [normal, watch, alert]: two limits, mean + 2 SD and + 3 SD.
-    assert list(_snippet_rule(run.out)["above"].values()) == [float(f"{mean + k * sd:.4g}") for k in (2, 3)]
+    # clean.yaml's ladder is [normal, watch, alert]: watch at mean + 2 SD; alert at mean + 2.5 SD would be
+    # 0.02 mg KOH/g higher, under ASTM D664's used-oil repeatability r = 0.117 X (about 0.047 at an acid
+    # number of 0.4), so alert is widened to watch + r.
+    watch, alert = _snippet_rule(run.out)["above"].values()
+    assert watch == float(f"{mean + 2 * sd:.4g}")
+    assert alert - watch >= 0.117 * (alert + 0.10) > (mean + 2.5 * sd) - (mean + 2 * sd)
+    assert "# note: alert widened from" in run.out and "ASTM D664" in run.out
 
 
 @pytest.mark.parametrize("rows, needed", [(29, 30), (0, 30)])
@@ -176,3 +184,46 @@ def test_propose_limits_unknown_measure_is_a_clear_error(tmp_path):
     samples = _write_samples(tmp_path / "s.csv", np.linspace(0.2, 0.4, 40))
     run = run_cli("propose-limits", "--samples", samples, "--class", "pump", "--measure", "acid")
     assert run.code == 2 and "unknown measure 'acid'" in run.err
+
+
+def test_grade_refuses_a_rule_set_whose_examples_fail_unless_allowed(tmp_path):
+    samples = DATA / "compare-samples.csv"
+    refused = run_cli("grade", samples, "--rules", DATA / "examples-fail.yaml")
+    assert refused.code == 2 and refused.out == ""
+    assert "error E001: example 'wrong grade and a rule that fired' does not hold" in refused.err
+    assert "nothing was graded" in refused.err and "--allow-failing-examples" in refused.err
+    # The ledger import is the same command with --db: nothing is recorded either.
+    ledger = tmp_path / "l.db"
+    assert run_cli("grade", samples, "--rules", DATA / "examples-fail.yaml", "--db", ledger).code == 2
+    assert not ledger.exists()
+    allowed = run_cli("grade", samples, "--rules", DATA / "examples-fail.yaml", "--allow-failing-examples")
+    assert allowed.code == 0 and allowed.out.count("\n") > 0
+    assert "grading anyway (--allow-failing-examples)" in allowed.err
+    assert run_cli("grade", samples, "--rules", DATA / "clean.yaml").code == 0
+
+
+def test_compare_warns_when_id_and_version_match_but_content_differs(tmp_path):
+    changed = tmp_path / "same-name.yaml"
+    changed.write_text((DATA / "compare-new.yaml").read_text().replace("version: 2", "version: 1")
+                       .replace("extends: compare-old.yaml", f"extends: {DATA / 'compare-old.yaml'}")
+                       .replace("ruleset: compare-pump-next", "ruleset: compare-pump"))
+    run = run_cli("compare", DATA / "compare-old.yaml", changed, "--samples", DATA / "compare-samples.csv")
+    assert "warning W013: both rule sets are 'compare-pump' version 1, but their content differs" in run.err
+    same = run_cli("compare", DATA / "compare-old.yaml", DATA / "compare-old.yaml",
+                   "--samples", DATA / "compare-samples.csv")
+    assert "W013" not in same.err
+
+
+def test_compare_a_rule_set_stored_in_the_ledger_with_a_file(tmp_path):
+    ledger = tmp_path / "l.db"
+    samples = DATA / "compare-samples.csv"
+    assert run_cli("grade", samples, "--rules", DATA / "compare-old.yaml", "--db", ledger).code == 0
+    stored = load_ruleset(DATA / "compare-old.yaml").sha256
+    run = run_cli("compare", f"sha256:{stored}", DATA / "compare-new.yaml", "--db", ledger)
+    assert run.code == 3 and f"sha256 {stored[:12]}" in run.out
+    file_run = run_cli("compare", DATA / "compare-old.yaml", DATA / "compare-new.yaml", "--samples", samples)
+    assert run.out.split("\n", 2)[2] == file_run.out.split("\n", 2)[2]  # same moves as from the file
+    missing = run_cli("compare", "sha256:" + "0" * 64, DATA / "compare-new.yaml", "--db", ledger)
+    assert missing.code == 2 and "not stored intact" in missing.err
+    no_db = run_cli("compare", f"sha256:{stored}", DATA / "compare-new.yaml", "--samples", samples)
+    assert no_db.code == 2 and "needs --db" in no_db.err
