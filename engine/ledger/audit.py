@@ -474,8 +474,9 @@ def stored_ruleset_text(path, selector: str) -> tuple[str, str]:
     finally:
         conn.close()
     if not found:
-        raise InputError(f"{path}: no stored rule set '{selector}' (give a fingerprint, at least its first 8 hex "
-                         f"digits, or ID@VERSION; `sumpwise rulesets --db {path}` lists them)")
+        raise InputError(f"{path}: rule set '{selector}' is not stored intact in the ledger: none has that "
+                         f"fingerprint or ID@VERSION (give a fingerprint, at least its first 8 hex digits, or "
+                         f"ID@VERSION; `sumpwise rulesets --db {path}` lists them)")
     if len(found) > 1:
         raise InputError(f"{path}: '{selector}' names {len(found)} stored rule sets: "
                          + ", ".join(sha[:16] for sha, _ in found) + "; give more of the fingerprint")

@@ -48,7 +48,7 @@ def test_rule_sets_are_listed_and_exported_as_files_check_and_compare_accept(db,
     assert moved.code == 3 and "water" in moved.out  # BP-0001 and others, 50 to 100 ppm
     assert stored_ruleset(db, "brackwater-site@2").sha256 == V2
     unknown = run_cli("rulesets", "brackwater-site@9", "--db", db)
-    assert unknown.code == 2 and "no stored rule set 'brackwater-site@9'" in unknown.err
+    assert unknown.code == 2 and "rule set 'brackwater-site@9' is not stored intact" in unknown.err
 
 
 def _tighter(tmp_path):
