@@ -128,7 +128,7 @@ def _other_ruleset(db, rules: str | None):
         return None
     if Path(rules).exists():
         return load_ruleset(rules)
-    return stored_ruleset(db, rules)
+    return stored_ruleset(db, rules.removeprefix("sha256:"))  # compare's spelling of a stored rule set
 
 
 def run_explain(args, stdout) -> int:

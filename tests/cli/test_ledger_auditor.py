@@ -67,6 +67,7 @@ def test_explain_re_grades_one_sample_under_other_limits_and_changes_nothing(db,
     stored = run_cli("explain", "BP-0001", "--db", db, "--rules", "brackwater-site@3")
     assert stored.code == 0 and "not recorded, the ledger is unchanged: normal as recorded, normal under" in stored.out
     assert "Re-graded under rule set brackwater-site version 3" in stored.out
+    assert run_cli("explain", "BP-0001", "--db", db, "--rules", f"sha256:{V3}").out == stored.out
     from_file = run_cli("explain", "BP-0001", "--db", db, "--rules", _tighter(tmp_path))
     assert from_file.code == 0 and "normal as recorded, watch under this rule set" in from_file.out
     assert "water = 65 ppm, above 50 ppm (the watch limit)" in " ".join(from_file.out.split())
