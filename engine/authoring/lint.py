@@ -19,7 +19,8 @@ from dataclasses import dataclass
 from sumpwise.derive.viscosity import ISO_VG_GRADES
 from sumpwise.vocabulary.intervals import can_hold, covered
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
-from sumpwise.vocabulary.measures import domain_of, measure_unit, unit_key
+from sumpwise.vocabulary.base_stocks import family_of
+from sumpwise.vocabulary.measures import domain_of, measure_needs, measure_unit, unit_key
 from sumpwise.vocabulary.problems import Problem
 from sumpwise.ruleset.model import (AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest,
                                     Origin, RuleSet, leaves)
@@ -143,7 +144,8 @@ def lint_ruleset(ruleset: RuleSet, partial: bool = False) -> tuple[Problem, ...]
     whole (grades it cannot give, signs it does not watch) would only echo those errors.
     """
     found: dict = {}
-    checks = [_shadowed, _impossible, _ladders, _units, _raw_viscosity, _viscosity_grades, _vague_sources]
+    checks = [_shadowed, _impossible, _ladders, _units, _raw_viscosity, _viscosity_grades, _vague_sources,
+              _ester_caps]
     if not partial:
         checks += [_unreached_grades, _coverage]
     for check in checks:
@@ -278,9 +280,13 @@ def unit_trouble(measure: str, canonical: float) -> str | None:
     key = unit_key(measure)
     if measure == "water" and 0 < canonical < 1:  # above 100 % is impossible: a compile error (C011)
         return "below 1 ppm, smaller than any Karl Fischer result"
-    if UNIT_FAMILY.get(key) == "absorbance" and measure in (key, "oxidation_rise") and abs(canonical) > 500:
+    if UNIT_FAMILY.get(key) == "absorbance" and measure == key and abs(canonical) > 500:
         return ("above 500 abs/cm, which is 5 absorbance units through a 0.1 mm cell: 0.001 % of the light "
                 "through, beyond any FTIR reading")
+    if UNIT_FAMILY.get(key) == "absorbance" and measure != key and abs(canonical) > 150:
+        # rises, steps and differential readings: what the oil gained, per convention (README, FTIR conventions)
+        return ("above 150 abs/cm, a gain of 1.5 absorbance through a 0.1 mm cell: beyond the saturation threshold "
+                "of a reading, so no rise, step or differential reading gets there")
     if measure in ("kv40_change_pct", "kv100_change_pct") and abs(canonical) > 100:
         return "a change of more than 100 % means the viscosity doubled; a viscosity in mm2/s written here?"
     if measure in ("bn_retained_pct", "rpvot_retained_pct") and 0 < canonical <= 1:
@@ -306,7 +312,7 @@ def _units(ruleset: RuleSet):
     owners = [(rule, "rule", _limits(rule)) for rule in _all_rules(ruleset)]
     for caveat in ruleset.caveats:
         limits = _condition_limits(caveat.when)
-        if caveat.cap is not None:
+        if caveat.cap is not None and caveat.cap.unless is not None:  # a cap without `unless` has no limits
             limits += _condition_limits(caveat.cap.unless)
         owners.append((caveat, "caveat", limits))
     for owner, kind, limits in owners:
@@ -422,3 +428,53 @@ def _num(value) -> str:
     if isinstance(value, list):
         return "[" + ", ".join(_num(v) for v in value) + "]"
     return f"{value:.6g}"
+
+
+# -- ester caps -----------------------------------------------------------------------------------
+
+def _ester_caps(ruleset: RuleSet):
+    """Rules reading a measure built on FTIR oxidation that a cap meant for esters leaves uncovered.
+
+    Why: an ester's own carbonyl inflates every oxidation-derived value (rise, step, rate,
+    differential), so a cap that lists `oxidation_rise` but not `oxidation_step` lets a site
+    rule on the step grade an ester uncapped.
+    """
+    for caveat in ruleset.caveats:
+        named = _ester_names(caveat.when)
+        if named:
+            yield _warning("W015", caveat.origin,
+                           f"caveat '{caveat.id}' names ester base stocks one by one ({', '.join(named)}); "
+                           "diesters, polyol esters and mixtures not listed escape it",
+                           "write {field: base_stock_family, equals: ester} to match the whole ester family")
+        if caveat.cap is None or not _about_esters(caveat.when):
+            continue
+        for rule in _all_rules(ruleset):
+            uncovered = sorted(m for m in rule.reads - caveat.cap.measures if _built_on_oxidation(m))
+            if uncovered:
+                yield _warning("W014", rule.origin,
+                               f"rule '{rule.id}' reads {', '.join(uncovered)}, built on FTIR oxidation, which the "
+                               f"ester cap of caveat '{caveat.id}' does not cover",
+                               f"add {', '.join(uncovered)} to the cap's measures of caveat '{caveat.id}'")
+
+
+def _about_esters(condition) -> bool:
+    if condition is None:
+        return False
+    for leaf in leaves(condition):
+        if isinstance(leaf, FieldTest) and leaf.field == "base_stock_family" and "ester" in leaf.values:
+            return True
+        if isinstance(leaf, FieldTest) and leaf.field == "base_stock" and any(
+                family_of(v) == "ester" for v in leaf.values):
+            return True
+    return False
+
+
+def _ester_names(condition) -> list:
+    if condition is None:
+        return []
+    return sorted({v for leaf in leaves(condition) if isinstance(leaf, FieldTest) and leaf.field == "base_stock"
+                   for v in leaf.values if family_of(v) == "ester"})
+
+
+def _built_on_oxidation(measure: str) -> bool:
+    return bool({"oxidation", "oxidation_differential"} & set(measure_needs(measure)))

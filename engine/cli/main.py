@@ -28,6 +28,7 @@ from sumpwise.render.table import write_table
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
+from sumpwise.intake.spectra.batch import check_path_length
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
 
@@ -163,12 +164,9 @@ def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True)
 
 def _positive_mm(text: str) -> float:
     try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a path length in mm, found {text!r}") from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"the path length must be above 0 mm, found {text!r}")
-    return value
+        return check_path_length(text, "--path-length")
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:

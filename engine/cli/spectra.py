@@ -1,6 +1,8 @@
-"""`sumpwise spectra FILES_OR_DIRS... [--reference FILE] [--path-length MM] [--out FILE] [--bands FILE]`.
+"""`sumpwise spectra FILES_OR_DIRS... [--reference FILE] [--path-length MM] [--dilution F] [--out FILE] [--bands FILE]`.
 
-Writes one CSV row per spectrum. Exit status:
+Writes exactly one CSV row per spectrum file, whatever its damage: measured
+(bands that could not be measured are empty, with a note) or rejected with its
+reason. Exit status:
 - 0: at least one spectrum was measured; each rejected spectrum is a row
   with its reason in `rejection` and a line on stderr;
 - 2: nothing could be measured: no input files, an unreadable band file or
@@ -14,7 +16,8 @@ import argparse
 from pathlib import Path
 
 from sumpwise.intake.spectra.bands import BandFileError, load_bands
-from sumpwise.intake.spectra.batch import expand_inputs, measure_spectra, read_spectrum
+from sumpwise.intake.spectra.batch import (check_dilution, check_path_length, expand_inputs, measure_spectra,
+                                           read_spectrum)
 from sumpwise.intake.spectra.spectrum import SpectrumError
 from sumpwise.vocabulary.cautions import CAUTIONS
 
@@ -27,16 +30,26 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="JCAMP-DX (.jdx .dx .jcm .jcamp) or two-column CSV spectra, or folders of them")
     parser.add_argument("--reference", metavar="FILE",
                         help="new-oil spectrum of the same lubricant: read every spectrum by spectral subtraction")
-    parser.add_argument("--path-length", metavar="MM", type=float, default=0.1, dest="path_length",
-                        help="cell path length in mm (default 0.100); values are normalised to 0.100 mm")
+    parser.add_argument("--path-length", metavar="MM", default="0.1", dest="path_length",
+                        help="cell path length in mm for files without their own ##PATH LENGTH= (default 0.100); "
+                             "values are normalised to 0.100 mm")
+    parser.add_argument("--reference-path-length", metavar="MM", default=None, dest="reference_path_length",
+                        help="the reference's cell path length in mm, if its file does not say (default: --path-length)")
+    parser.add_argument("--dilution", metavar="FACTOR", default="1",
+                        help="dilution factor of the used-oil samples (volume diluted / volume of oil; default 1)")
     parser.add_argument("--out", metavar="FILE", help="write the CSV here instead of standard output")
     parser.add_argument("--bands", metavar="FILE", help="band definitions to use instead of the packaged set")
 
 
 def run(args, stdout, stderr) -> int:
     """Measure the spectra named in args; write CSV to --out or stdout, problems to stderr."""
-    if not args.path_length > 0:
-        print(f"sumpwise spectra: --path-length must be a positive number of mm, got {args.path_length}", file=stderr)
+    try:
+        path_length = check_path_length(args.path_length, "--path-length")
+        reference_path_length = (None if args.reference_path_length is None
+                                 else check_path_length(args.reference_path_length, "--reference-path-length"))
+        dilution = check_dilution(args.dilution, "--dilution")
+    except ValueError as exc:
+        print(f"sumpwise spectra: {exc}", file=stderr)
         return 2
     try:
         bands = load_bands(args.bands)
@@ -59,7 +72,8 @@ def run(args, stdout, stderr) -> int:
             print(f"sumpwise spectra: reference spectrum unusable: {exc}", file=stderr)
             return 2
         references = {str(p): Path(args.reference) for p in paths}
-    frame, rejections = measure_spectra(paths, references, args.path_length, bands)
+    frame, rejections = measure_spectra(paths, references, path_length, bands, reference_path_length,
+                                        dilutions=[dilution] * len(paths))
     for rejection in rejections:
         print(f"rejected: {rejection.message}", file=stderr)
     text = frame.to_csv(index=False, float_format="%.6g", lineterminator="\n")

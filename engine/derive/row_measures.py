@@ -11,6 +11,7 @@ import pandas as pd
 
 from sumpwise.derive.cleanliness import cleanliness_measures
 from sumpwise.derive.viscosity import viscosity_index
+from sumpwise.vocabulary.base_stocks import family_of
 from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
                                          ROW_MEASURES)
 
@@ -72,11 +73,21 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
     method_codes, method_names = pd.factorize(fields["method"].to_numpy(dtype=object))
     method = pd.Series(np.array([str(m).lower() for m in method_names] + ["direct"], dtype=object)[method_codes],
                        index=samples.index, dtype=object)
+    # a row giving only a differential reading (a column mapped to it) and no method is a differential one
+    only_differential = (method_codes < 0) & np.isnan(out["oxidation"]) & ~np.isnan(out["oxidation_differential"])
+    method[only_differential] = "subtraction"
     fields["method"] = method
 
+    # FTIR conventions never mix: a differential (subtraction) reading is its own measure,
+    # and the direct `oxidation`, its rise and its trends stay empty on that row.
     subtraction = (method == "subtraction").to_numpy()
-    # A subtraction reading has the new oil removed already: its reference is zero by construction.
-    out["new_oxidation"] = np.where(subtraction, 0.0, out["new_oxidation"])
+    given = subtraction & ~np.isnan(out["oxidation"])
+    out["oxidation_differential"] = np.where(given, out["oxidation"], out["oxidation_differential"])
+    out["oxidation"] = np.where(subtraction, np.nan, out["oxidation"])
+    family_codes, family_names = pd.factorize(fields["base_stock"].to_numpy(dtype=object))
+    families = [family_of(n) for n in family_names] + [None]
+    fields["base_stock_family"] = pd.Series(np.array(families, dtype=object)[family_codes], index=samples.index,
+                                            dtype=object)
 
     hours = out["oil_hours"]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -87,6 +98,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         per_hour = np.where(hours > 0, 1000.0 / np.where(hours > 0, hours, 1.0), np.nan)
         out["oxidation_rise_per_1000h"] = out["oxidation_rise"] * per_hour
         out["an_rise_per_1000h"] = out["an_rise"] * per_hour
+        out["oxidation_differential_per_1000h"] = out["oxidation_differential"] * per_hour
         out["bn_retained_pct"] = out["bn"] / out["new_bn"] * 100.0
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]

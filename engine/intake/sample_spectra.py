@@ -3,19 +3,22 @@
 A sample row may name its used-oil spectrum in a `spectrum` column (a JCAMP-DX or
 two-column CSV file, relative to the samples file). With a new-oil reference spectrum
 for the row's lubricant (`--reference LUBRICANT=FILE`, or `reference_spectrum` in the
-rule set's lubricants table) the bands are read by spectral subtraction (abs/cm, the new
-oil is zero by construction); without one, directly (abs/0.1 mm, converted to the
-engine's abs/cm). The row's FTIR measures and `method` then come from the spectrum, and
-the record names the spectrum and the reference.
+rule set's lubricants table) the bands are read by differential trend (spectral
+subtraction, abs/cm; `method` subtraction, graded as `oxidation_differential`); without
+one, by direct trend (abs/0.1 mm, converted to the engine's abs/cm; graded as
+`oxidation`). Each row is read against its own lubricant's reference, even when rows
+share a spectrum file. A row may give `path_length_mm` (used when the file has no
+`##PATH LENGTH=`) and `dilution`.
 
-A reference spectrum also tells the base stock: a strong band near 1740 cm-1 is an
-ester's own carbonyl. Where no base stock is declared, sumpwise infers `ester` from it
-(so the rule set's ester caveat applies) and says so, with the evidence; a declared
+A reference spectrum also tells whether the oil carries an ester carbonyl. Where no base
+stock is declared, sumpwise infers "ester carbonyl present (an ester base stock or an
+ester additive)" from it, so the rule set's ester caveats apply, and says so; a declared
 base stock always wins, and a disagreement is a caveat of its own.
 """
 
 from __future__ import annotations
 
+import math
 import os
 from dataclasses import replace
 from pathlib import Path
@@ -23,25 +26,45 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sumpwise.vocabulary.measures import OXIDATION_CONVENTIONS
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.intake.spectra.batch import SUBTRACTION, measure_spectra, read_spectrum
+from sumpwise.intake.spectra.batch import (SUBTRACTION, check_dilution, check_path_length, measure_spectra,
+                                           read_spectrum)
 from sumpwise.intake.spectra.ester import detect_ester, resolve_base_stock
 from sumpwise.intake.spectra.spectrum import SpectrumError
 from sumpwise.vocabulary.units import factor_to_canonical
 
 # Band columns that are engine measures; the band file's water and fuel bands are
-# absorbances, not ppm or percent, so they stay out of the grading.
+# absorbances, not ppm or percent, and oxidation_area is D7214's quantity, so they stay
+# out of the grading.
 GRADED_BANDS = ("oxidation", "nitration", "sulfation", "antiwear", "soot")
+
+# A differential carbonyl area this far below zero is not noise: the reference is not this
+# oil's new oil. Read on the area, since a peak height (a maximum) of a band that went
+# negative stays near zero. -0.5 absorbance x cm-1 at 0.1 mm is about 100 times the SD
+# the area takes from white noise of SD 2e-4 absorbance in both spectra (2.8e-4 x 2 cm-1 x
+# sqrt(65 points) ~ 0.005). Our choice, no source.
+REFERENCE_MISMATCH_AREA = -0.5
 
 SPECTRUM_CAVEATS = (
     EngineCaveat("base-stock-inferred", "base_stock_inferred_note",
                  "sumpwise engine: ester carbonyl band of the lubricant's new-oil reference spectrum "
-                 "(band position: standard IR correlation tables, from memory; threshold: our own choice)"),
+                 "(band position: Tormos et al. 2012 and IR correlation tables; threshold: our estimate, "
+                 "see the band file)"),
     EngineCaveat("base-stock-conflict", "base_stock_conflict_note",
                  "sumpwise engine: declared base stock against the new-oil reference spectrum"),
+    EngineCaveat("ftir-band-not-measured", "ftir_band_note",
+                 "sumpwise engine: a band left empty (saturated, or outside the spectrum's range); saturation "
+                 "threshold: common practice, no source (see the band file)"),
+    EngineCaveat("reference-mismatch", "reference_mismatch_note",
+                 "sumpwise engine: a differential carbonyl area far below zero means the subtracted reference "
+                 "is not this oil's new oil; the -0.5 absorbance x cm-1 figure is our choice, no source"),
+    EngineCaveat("ftir-other-convention", "ftir_convention_note",
+                 "sumpwise engine: FTIR conventions (README, FTIR conventions): direct and differential "
+                 "readings are never compared with each other's limits"),
 )
 
 # Columns a spectrum-read batch carries into the measured frame and the records.
@@ -91,10 +114,13 @@ def measure_sample_spectra(batch: SampleBatch, ruleset: RuleSet, references: dic
     rejects = list(batch.rejects)
     evidence = _ester_evidence(refs, path_length_mm)
     frame = _base_stocks(frame, ruleset, evidence)
+    for column in ("ftir_band_note", "reference_mismatch_note"):
+        frame[column] = None
     if "spectrum" in frame.columns and frame["spectrum"].notna().any():
         frame, bad = _measure(frame, refs, Path(batch.source).parent if batch.source != "<stdin>" else Path("."),
                               path_length_mm)
         rejects.extend(bad)
+    frame["ftir_convention_note"] = _convention_notes(frame, ruleset)
     rejects.sort(key=lambda r: (r.row, r.field))
     return replace(batch, frame=frame, rejects=tuple(rejects))
 
@@ -106,7 +132,7 @@ def _ester_evidence(refs: dict[str, Path], path_length_mm: float) -> dict:
             spectrum = read_spectrum(path)
         except (SpectrumError, OSError) as exc:
             raise InputError(f"new-oil reference spectrum for {code}: {exc}") from None
-        evidence[code] = detect_ester(spectrum, path_length_mm)
+        evidence[code] = detect_ester(spectrum, spectrum.path_length_mm or path_length_mm)
     return evidence
 
 
@@ -142,34 +168,119 @@ def _text(frame: pd.DataFrame, column: str) -> np.ndarray:
     return values.where(values.notna(), "").to_numpy(dtype=object)
 
 
+def _per_row_numbers(frame, rows, column, check, default):
+    """A per-row option column (path_length_mm, dilution) checked, as (values, reasons: "" where fine)."""
+    values = np.full(len(rows), default, dtype=float)
+    reasons = np.full(len(rows), "", dtype=object)
+    if column not in frame.columns:
+        return values, reasons
+    for k, cell in enumerate(frame.loc[rows, column].to_numpy(dtype=object)):
+        if cell is None or (isinstance(cell, float) and math.isnan(cell)) or cell == "":
+            continue
+        try:
+            values[k] = check(cell, column)
+        except ValueError as exc:
+            reasons[k] = str(exc)
+    return values, reasons
+
+
 def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length_mm: float):
     has = frame["spectrum"].notna().to_numpy()
-    named = frame.loc[has, "spectrum"].astype(str)
-    paths = [base / p for p in named]
-    lubricant = frame.loc[has, "lubricant"] if "lubricant" in frame.columns else pd.Series(None, index=named.index)
-    references = {str(path): refs[code] for path, code in zip(paths, lubricant) if code in refs}
-    measured, rejections = measure_spectra(paths, references, path_length_mm)
-    why = {r.spectrum: r.message for r in rejections}
-
     rows = frame.index[has]
-    ok = measured["rejection"].to_numpy() == ""
-    for column in GRADED_BANDS:
-        values = measured[column].to_numpy(dtype=float)
-        direct = measured["method"].to_numpy() != SUBTRACTION
-        values = np.where(direct, values * factor_to_canonical("absorbance", "abs/0.1mm"), values)
-        # 0.0001 abs/cm is far below FTIR repeatability (D7624: 0.078 abs/cm); finer digits are noise
-        values = np.round(values, 4)
-        if column not in frame.columns:
-            frame[column] = np.nan
-        frame.loc[rows[ok], column] = values[ok]
-    frame["method"] = frame["method"].astype(object) if "method" in frame.columns else None
-    frame.loc[rows[ok], "method"] = measured["method"].to_numpy(dtype=object)[ok]
-    reference = measured["reference"].replace("", None).to_numpy(dtype=object)
-    frame["reference_spectrum"] = None
-    frame.loc[rows[ok], "reference_spectrum"] = reference[ok]
+    named = frame.loc[has, "spectrum"].astype(str)
+    lubricant = _text(frame, "lubricant")[has]
+    paths_lengths, bad_length = _per_row_numbers(frame, rows, "path_length_mm", check_path_length, math.nan)
+    dilutions, bad_dilution = _per_row_numbers(frame, rows, "dilution", check_dilution, 1.0)
+    option_bad = (bad_length != "") | (bad_dilution != "")
+    paths = [base / p for p in named]
+    references = [refs.get(code) for code in lubricant]
 
-    bad = [Reject(int(row), sid, "spectrum", why.get(str(path), "spectrum rejected"), "F001")
-           for row, sid, path, good in zip(rows, frame.loc[has, "sample_id"], paths, ok) if not good]
+    ok = np.zeros(len(rows), dtype=bool)
+    why = np.full(len(rows), "", dtype=object)
+    measured = {}
+    # one call per distinct fallback path length (usually one): the file's own ##PATH LENGTH= wins
+    fallback = np.where(np.isnan(paths_lengths), path_length_mm, paths_lengths)
+    for length in pd.unique(fallback):
+        pick = np.flatnonzero((fallback == length) & ~option_bad)
+        if not pick.size:
+            continue
+        part, _ = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
+                                  dilutions=dilutions[pick], needed=GRADED_BANDS)
+        part.index = pick
+        measured[float(length)] = part
+        ok[pick] = part["rejection"].to_numpy() == ""
+        why[pick] = part["rejection"].to_numpy(dtype=object)
+    table = pd.concat(measured.values()).sort_index() if measured else None
+
+    good = np.flatnonzero(ok)
+    band_note = np.full(len(frame), None, dtype=object)
+    mismatch = np.full(len(frame), None, dtype=object)
+    if table is not None and good.size:
+        picked = table.loc[good]
+        differential = picked["method"].to_numpy() == SUBTRACTION
+        for column in GRADED_BANDS:
+            values = picked[column].to_numpy(dtype=float)
+            values = np.where(differential, values, values * factor_to_canonical("absorbance", "abs/0.1mm"))
+            # 0.0001 abs/cm is far below FTIR repeatability (D7624: 0.078 abs/cm); finer digits are noise
+            values = np.round(values, 4)
+            if column == "oxidation":
+                area = picked["oxidation_area"].to_numpy(dtype=float) / 100.0  # back to abs x cm-1 at 0.1 mm
+                far = differential & (area < REFERENCE_MISMATCH_AREA)
+                at = np.flatnonzero(has)[good[far]]
+                mismatch[at] = [f"differential carbonyl area {a:.2f} absorbance x cm-1 at 0.1 mm against reference "
+                                f"{r}: far below zero, so the reference does not match this oil; the oxidation "
+                                "rules are not evaluated" for a, r in zip(area[far], picked["reference"].to_numpy()[far])]
+                values = np.where(far, np.nan, values)
+            if column not in frame.columns:
+                frame[column] = np.nan
+            frame[column] = frame[column].astype(float)
+            frame.loc[rows[good], column] = values
+        frame["method"] = frame["method"].astype(object) if "method" in frame.columns else None
+        frame.loc[rows[good], "method"] = picked["method"].to_numpy(dtype=object)
+        frame["reference_spectrum"] = None
+        frame.loc[rows[good], "reference_spectrum"] = picked["reference"].replace("", None).to_numpy(dtype=object)
+        notes = picked["notes"].to_numpy(dtype=object)
+        graded_notes = ["; ".join(n for n in note.split("; ") if n.split(":")[0] in GRADED_BANDS) or None
+                        for note in notes]
+        band_note[np.flatnonzero(has)[good]] = graded_notes
+    else:
+        frame["reference_spectrum"] = None
+    frame["ftir_band_note"] = band_note
+    frame["reference_mismatch_note"] = mismatch
+
+    sample_ids = frame.loc[has, "sample_id"].to_numpy(dtype=object)
+    bad = []
+    for k in np.flatnonzero(~ok):
+        if bad_length[k]:
+            bad.append(Reject(int(rows[k]), sample_ids[k], "path_length_mm", bad_length[k], "F001"))
+        elif bad_dilution[k]:
+            bad.append(Reject(int(rows[k]), sample_ids[k], "dilution", bad_dilution[k], "F001"))
+        else:
+            bad.append(Reject(int(rows[k]), sample_ids[k], "spectrum", why[k] or "spectrum rejected", "F001"))
     keep = np.ones(len(frame), dtype=bool)
     keep[np.flatnonzero(has)[~ok]] = False
     return frame[keep], bad
+
+
+def _convention_notes(frame: pd.DataFrame, ruleset: RuleSet) -> np.ndarray:
+    """Per row: which of its class's rules read FTIR oxidation in the other convention (not evaluated on it)."""
+    notes = np.full(len(frame), None, dtype=object)
+    if "oxidation" not in frame.columns or "class" not in frame.columns:
+        return notes
+    present = pd.to_numeric(frame["oxidation"], errors="coerce").notna().to_numpy()
+    method = _text(frame, "method")
+    classes = _text(frame, "class")
+    for cls in pd.unique(classes[present]):
+        if cls not in ruleset.classes:
+            continue
+        for convention, other in (("direct", "subtraction"), ("subtraction", "direct")):
+            reading = (method == convention) | ((method == "") & (convention == "direct"))
+            at = present & (classes == cls) & reading
+            if not at.any():
+                continue
+            ids = [rule.id for rule in ruleset.rules_for(cls) if rule.reads & set(OXIDATION_CONVENTIONS[other])]
+            if ids:
+                words = {"direct": "direct-trend", "subtraction": "differential (spectral subtraction)"}
+                notes[at] = (f"the FTIR oxidation reading is {words[convention]}; rule(s) {', '.join(ids)} are "
+                             f"written for {words[other]} readings and are not evaluated on it")
+    return notes

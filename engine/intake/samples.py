@@ -20,6 +20,7 @@ import pandas as pd
 
 from sumpwise.vocabulary.measures import INPUT_MEASURES, NOT_NEGATIVE, POSITIVE, REFERENCE_VALUES, domain_of
 from sumpwise.vocabulary.problems import InputError, InvalidFile
+from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
 from sumpwise.vocabulary.measures import UNIT_FAMILY
 from sumpwise.vocabulary.units import factor_to_canonical, known_units
 from sumpwise.ruleset.yaml_source import load_yaml
@@ -249,6 +250,12 @@ def validate_samples(raw: pd.DataFrame, skipped: list[tuple[int, str]], name: st
             reject(beyond, column, _found(f"cannot be above {domain[-1].high:g} {INPUT_MEASURES.get(column, '')}, "
                                           f"found ", raw[column], beyond), "D005")
         raw[column] = values
+
+    for column, canonical in TEXT_VOCABULARIES.items():  # closed vocabularies: canonical spelling, or reject
+        if column in raw.columns:
+            spelled, why = canonical_texts(raw[column], canonical)
+            reject(why != "", column, why, "D011")
+            raw[column] = spelled
 
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]

@@ -37,6 +37,10 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
                                                   spectrum_caveat_flags(measured)]))
     carried = tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in batch.frame.columns)
+    if "oxidation" in carried and "method" in batch.frame.columns and "oxidation_differential" not in carried:
+        # a differential reading is recorded under its own name (issue 11); decided by the columns, not the
+        # values, so a record's shape does not depend on the other rows of its batch (replay re-grades subsets)
+        carried += ("oxidation_differential",)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
                        TREND_CAVEATS + SPECTRUM_CAVEATS, forecast(measured, ruleset))
 

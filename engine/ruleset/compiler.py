@@ -25,6 +25,7 @@ from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Ex
                       MeasureTest, MissingTest, Not, Origin, RuleSet)
 from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset, resolve_with_problems
 from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.base_stocks import FAMILIES as BASE_STOCK_FAMILIES, BaseStockError, canonical_base_stock
 from sumpwise.vocabulary.cautions import DEFAULT_NOTICE
 from sumpwise.vocabulary.limit_tests import LADDER_TESTS, LIMIT_TESTS
 from sumpwise.vocabulary.units import FACTORS, factor_to_canonical
@@ -198,10 +199,20 @@ class _Compiler:
                 f"or one declared under `measures:`", sub,
                 hint=f"did you mean '{close[0]}'?" if close else "declare it under the top-level `measures:`", code="C003"))
 
+    def _base_stock(self, placed: Placed, sub: tuple, text) -> str:
+        """The canonical base stock (sumpwise.vocabulary.base_stocks), or a problem at its line."""
+        try:
+            return canonical_base_stock(str(text))
+        except BaseStockError as exc:
+            self.problems.append(placed.problem(str(exc), sub, code="C013"))
+            return str(text)
+
     def _lubricant(self, code: str, placed: Placed) -> Lubricant:
         data = dict(placed.data)
         if "oxidation" in data:
             data["oxidation"] = data["oxidation"] * self._scale(placed, "oxidation")
+        if "base_stock" in data:
+            data["base_stock"] = self._base_stock(placed, ("base_stock",), data["base_stock"])
         spectrum = data.get("reference_spectrum")
         if spectrum is not None:
             data["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
@@ -395,7 +406,16 @@ class _Compiler:
                     f"under the top-level `fields:`", sub + ("field",),
                     hint=f"did you mean '{close[0]}'?" if close else "", code="C009"))
             values = data["in"] if tests[0] == "in" else [data["equals"]]
-            return FieldTest(name, tests[0], tuple(_as_text(v) for v in values))
+            values = [_as_text(v) for v in values]
+            if name == "base_stock":
+                values = [self._base_stock(placed, sub + (tests[0],), v) for v in values]
+            elif name == "base_stock_family":
+                for v in values:
+                    if not set(v.split("+")) <= set(BASE_STOCK_FAMILIES):
+                        self.problems.append(placed.problem(
+                            f"unknown base stock family {v!r}: expected {', '.join(BASE_STOCK_FAMILIES)}",
+                            sub + (tests[0],), code="C013"))
+            return FieldTest(name, tests[0], tuple(values))
         self.problems.append(placed.problem(
             "a condition needs `measure`, `field`, `all`, `any` or `not`", sub, code="C008"))
         return None

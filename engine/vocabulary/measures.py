@@ -81,8 +81,11 @@ READINGS = (
     _reading("an", "mg KOH/g", "acid number", domain=NOT_NEGATIVE, reference=True, trended=True,
              repeatability=D664_USED),
     _reading("bn", "mg KOH/g", "base number", domain=NOT_NEGATIVE, low_is_bad=True, reference=True, trended=True),
-    _reading("oxidation", "abs/cm", "FTIR oxidation (carbonyl, near 1700 cm-1)", family="absorbance",
-             reference=True, trended=True),
+    _reading("oxidation", "abs/cm", "FTIR oxidation by direct trend: carbonyl peak height, 1800-1670 cm-1, "
+             "on the used oil itself (ASTM D7414 Procedure A)", family="absorbance", reference=True, trended=True),
+    _reading("oxidation_differential", "abs/cm", "FTIR oxidation by differential trend: carbonyl peak height, "
+             "1800-1670 cm-1, after subtracting the new oil (ASTM D7414 Procedure B, D7418); a row gives it "
+             "as `oxidation` with `method` subtraction or differential", scale_of="oxidation"),
     _reading("nitration", "abs/cm", "FTIR nitration", family="absorbance", trended=True),
     _reading("sulfation", "abs/cm", "FTIR sulfation", family="absorbance", trended=True),
     _reading("antiwear", "abs/cm", "FTIR anti-wear additive (phosphate)", family="absorbance", trended=True),
@@ -110,10 +113,13 @@ ROW_DERIVED = (
              domain=ABOVE_MINUS_100),
     _derived("an_rise", "mg KOH/g", ("an", "new_an"), "acid number used - new"),
     _derived("oxidation_rise", "abs/cm", ("oxidation", "new_oxidation"),
-             "FTIR oxidation used - new-oil reading (a subtraction reading is its own rise)", scale_of="oxidation"),
+             "FTIR oxidation by direct trend, used - new-oil reading (a differential reading is "
+             "oxidation_differential, never this)", scale_of="oxidation"),
     _derived("vi", "", ("kv40", "kv100"), "viscosity index, ASTM D2270"),
     _derived("oxidation_rise_per_1000h", "abs/cm per 1000 h", ("oxidation", "new_oxidation", "oil_hours"),
              "oxidation rise / oil hours x 1000", scale_of="oxidation"),
+    _derived("oxidation_differential_per_1000h", "abs/cm per 1000 h", ("oxidation_differential", "oil_hours"),
+             "differential oxidation / oil hours x 1000", scale_of="oxidation"),
     _derived("an_rise_per_1000h", "mg KOH/g per 1000 h", ("an", "new_an", "oil_hours"),
              "acid number rise / oil hours x 1000"),
     _derived("bn_retained_pct", "%", ("bn", "new_bn"), "base number / new-oil base number x 100",
@@ -207,7 +213,29 @@ UNIT_FAMILY = {m.name: m.family for m in READINGS if m.family}
 
 # Text columns a `field:` condition may read without the rule set declaring them.
 # `iso4406` is the cleanliness code as the lab wrote it (18/16/13); derive reads it into numbers.
-KNOWN_FIELDS = ("sample_id", "unit_id", "class", "lubricant", "base_stock", "method", "lab", "sampled_on", "iso4406")
+KNOWN_FIELDS = ("sample_id", "unit_id", "class", "lubricant", "base_stock", "base_stock_family", "method", "lab",
+                "sampled_on", "iso4406")
+
+# FTIR trend approaches (ASTM D7418): `method` of a row. "differential" is D7418's word for
+# spectral subtraction; both are read as the canonical "subtraction". Anything else is refused.
+METHODS = {"direct": "direct", "subtraction": "subtraction", "differential": "subtraction",
+           "spectral-subtraction": "subtraction"}
+# Every measure that reads FTIR oxidation, by the convention its value was obtained in: a
+# rule's limits on one are never compared with a reading in the other.
+OXIDATION_CONVENTIONS = {
+    "direct": ("oxidation", "oxidation_rise", "oxidation_rise_per_1000h", "oxidation_step",
+               "oxidation_step_per_1000h", "oxidation_rising"),
+    "subtraction": ("oxidation_differential", "oxidation_differential_per_1000h"),
+}
+
+
+def canonical_method(text: str) -> str:
+    """The canonical FTIR method of a row's `method` text; ValueError naming what is accepted."""
+    key = str(text).strip().lower().replace(" ", "-").replace("_", "-")
+    if key not in METHODS:
+        raise ValueError(f"unknown FTIR method {text!r}: expected direct, subtraction or differential "
+                         "(differential is ASTM D7418's word for spectral subtraction)")
+    return METHODS[key]
 
 # Differences of decimal lab values carry binary noise (0.22 - 0.07 = 0.15000000000000002),
 # which would make "above 0.15" fire on a value that is exactly 0.15. Round it away.

@@ -31,12 +31,17 @@ def test_changes_rises_and_rates(draft):
     assert m["an_rise_per_1000h"].iat[0] == 0.05
 
 
-def test_subtraction_reading_is_its_own_rise(draft):
+def test_a_differential_reading_is_its_own_measure_never_the_direct_rise(draft):
+    # issue 11: conventions never mix; `differential` is ASTM D7418's word for spectral subtraction
     m = _derive(draft, "sample_id,class,lubricant,oxidation,method\n"
                        "a,steam-turbine,TURB-46-M,3.5,subtraction\n"
                        "b,steam-turbine,TURB-46-M,3.5,direct\n"
-                       "c,steam-turbine,TURB-46-M,3.5,\n")
-    assert list(m["oxidation_rise"]) == [3.5, 2.1, 2.1]
+                       "c,steam-turbine,TURB-46-M,3.5,\n"
+                       "d,steam-turbine,TURB-46-M,3.5,differential\n")
+    assert np.isnan(m["oxidation_rise"].iat[0]) and np.isnan(m["oxidation_rise"].iat[3])
+    assert list(m["oxidation_rise"].iloc[1:3]) == [2.1, 2.1]
+    assert m["oxidation_differential"].iat[0] == 3.5 and m["oxidation_differential"].iat[3] == 3.5
+    assert m["oxidation_differential"].iloc[1:3].isna().all()
 
 
 def test_row_reference_values_win(draft):

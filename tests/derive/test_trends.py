@@ -93,15 +93,17 @@ def test_chain_restarts_at_an_oil_change_flag_or_falling_hours():
 
 
 def test_method_or_lab_change_is_a_trend_break():
-    rows = [_row("A", "01-05", 1000, 5.0, lab="lab-a"), _row("B", "02-05", 1500, 2.0, method="subtraction",
-                                                              lab="lab-a"),
-            _row("C", "03-05", 2000, 2.5, method="subtraction", lab="lab-b"),
-            _row("D", "04-05", 2500, 3.0, method="subtraction", lab="lab-b")]
+    # A is a differential reading, the others direct ones (a differential reading has no direct
+    # `oxidation`, so its own steps are empty: issue 11)
+    rows = [_row("A", "01-05", 1000, 5.0, method="subtraction", lab="lab-a"),
+            _row("B", "02-05", 1500, 2.0, method="direct", lab="lab-a"),
+            _row("C", "03-05", 2000, 2.5, method="direct", lab="lab-b"),
+            _row("D", "04-05", 2500, 3.0, method="direct", lab="lab-b")]
     out = _trends(rows).set_index("sample_id")
     assert math.isnan(out.at["B", "oxidation_step"]) and math.isnan(out.at["C", "oxidation_step"])
     assert out.at["D", "oxidation_step"] == 0.5
     assert out.at["B", "trend_break_note"] == (
-        "method changed from direct to subtraction since the previous sample of unit U-1 (A, 2026-01-05); "
+        "method changed from subtraction to direct since the previous sample of unit U-1 (A, 2026-01-05); "
         "step measures across the change are not evaluated")
     assert out.at["C", "trend_break_note"].startswith("lab changed from lab-a to lab-b since")
     assert out.at["D", "trend_break_note"] is None
@@ -125,7 +127,8 @@ def _loop_oracle(frame: pd.DataFrame) -> dict:
         for row in unit.itertuples():
             step = rate = rising = math.nan
             fresh = previous is None or row.oil_changed or row.oil_hours < previous.oil_hours
-            if not fresh and row.method == previous.method:
+            missing = math.isnan(row.oxidation) or math.isnan(previous.oxidation) if previous is not None else True
+            if not fresh and row.method == previous.method and not missing:
                 step = round(row.oxidation - previous.oxidation, 9)
                 span = row.oil_hours - previous.oil_hours
                 rate = round(step / span * 1000, 9) if span > 0 else math.nan

@@ -8,6 +8,7 @@ ASTM D7412 §12.1-12.2 (abs/cm = abs/0.100 mm x 100), per reference/ftir.md.
 
 import json
 
+import numpy as np
 import pytest
 from conftest import DATA, run_cli
 
@@ -27,10 +28,12 @@ classes:
   pump:
     rules:
       - {id: carbonyl, measure: oxidation_rise, above: {watch: 8, alert: 15}, message: m, source: test fixture}
+      - {id: carbonyl-differential, measure: oxidation_differential, above: {watch: 8, alert: 15}, message: m,
+         source: test fixture}
 caveats:
   - id: ester-carbonyl
-    when: {field: base_stock, in: [ester]}
-    cap: {measures: [oxidation_rise], grade: watch}
+    when: {field: base_stock_family, equals: ester}
+    cap: {measures: [oxidation_rise, oxidation_differential], grade: watch}
     message: ester carbonyl
 """
 
@@ -39,9 +42,12 @@ caveats:
 def site(tmp_path):
     x = wavenumber_grid()
     write_jcampdx(tmp_path / "new-min.jdx", x, oil_spectrum(x), form="AFFN")
-    write_jcampdx(tmp_path / "new-syn.jdx", x, oil_spectrum(x, base_stock="ester"), form="DIF")
+    # the ester oil in a 0.025 mm cell (its carbonyl saturates 0.1 mm), said by ##PATH LENGTH=
+    write_jcampdx(tmp_path / "new-syn.jdx", x, 0.25 * oil_spectrum(x, base_stock="ester"), form="DIF",
+                  path_length="0.025 MM")
     write_jcampdx(tmp_path / "used-min.jdx", x, oil_spectrum(x, oxidation=0.12), form="DIFDUP")
-    write_jcampdx(tmp_path / "used-syn.jdx", x, oil_spectrum(x, base_stock="ester", oxidation=0.20), form="SQZ")
+    write_jcampdx(tmp_path / "used-syn.jdx", x, 0.25 * oil_spectrum(x, base_stock="ester", oxidation=0.20), form="SQZ",
+                  path_length="0.025 MM")
     (tmp_path / "broken.jdx").write_text((tmp_path / "used-min.jdx").read_text()[:900])
     (tmp_path / "rules.yaml").write_text(RULES)
     (tmp_path / "samples.csv").write_text(
@@ -62,19 +68,21 @@ def _grade(site, references=None):
 def test_subtraction_reading_is_the_added_carbonyl_in_abs_per_cm(site):
     batch, graded = _grade(site, {"MIN-46": site / "new-min.jdx"})
     s1 = graded.find("S1")
-    # area 0.12 abs*cm-1 added at 0.100 mm; x 100 to abs/cm (ASTM D7412 §12): about 12
-    assert graded.measured.loc[1, "oxidation"] == pytest.approx(12.0, abs=0.2)
+    # peak 0.12 absorbance added at 0.100 mm; x 100 to abs/cm (ASTM D7412 §12): 12, graded as the
+    # differential measure only (the direct rule is not evaluated on it, issue 11)
+    assert graded.measured.loc[1, "oxidation_differential"] == pytest.approx(12.0, abs=0.2)
+    assert np.isnan(graded.measured.loc[1, "oxidation"])
     assert s1.method == "subtraction" and s1.reference_spectrum.endswith("new-min.jdx")
     assert s1.spectrum == "used-min.jdx"
-    assert [r.rule for r in s1.reasons] == ["carbonyl"] and s1.grade == "watch"
+    assert [r.rule for r in s1.reasons] == ["carbonyl-differential"] and s1.grade == "watch"
 
 
 def test_direct_reading_is_converted_from_per_tenth_mm(site):
     batch, graded = _grade(site)
     s1 = graded.find("S1")
     assert s1.method == "direct" and s1.reference_spectrum is None
-    # the new mineral oil of the synthetic set has no carbonyl band, so direct ~ subtraction here
-    assert graded.measured.loc[1, "oxidation"] == pytest.approx(12.0, abs=0.7)
+    # the new mineral oil of the synthetic set has a carbonyl 0.01 high: direct = 12 + 1 abs/cm
+    assert graded.measured.loc[1, "oxidation"] == pytest.approx(13.0, abs=0.2)
 
 
 def test_bad_spectrum_rejects_only_its_row(site):
@@ -91,10 +99,10 @@ def test_ester_inferred_from_the_reference_spectrum_where_none_is_declared(site)
     s2 = graded.find("S2")
     caveats = {c.caveat: c.message for c in s2.caveats}
     assert "ester-carbonyl" in caveats
-    assert "inferred from the spectrum" in caveats["base-stock-inferred"]
+    assert "ester carbonyl present (an ester base stock or an ester additive)" in caveats["base-stock-inferred"]
     assert "1740 cm-1" in caveats["base-stock-inferred"] or "cm-1" in caveats["base-stock-inferred"]
     assert s2.method == "subtraction"  # the rule set's reference_spectrum applies
-    assert graded.measured.loc[2, "oxidation"] == pytest.approx(20.0, abs=0.3)
+    assert graded.measured.loc[2, "oxidation_differential"] == pytest.approx(20.0, abs=0.3)
     carbonyl = s2.reasons[0]
     assert carbonyl.capped_from == "alert" and carbonyl.grade == "watch"
 

@@ -44,9 +44,16 @@ def derive_row(row: dict, lubricants: dict) -> dict:
         return getattr(lub, name) if lub is not None else None
 
     method = (_text(row.get("method")) or "direct").lower()
+    if _text(row.get("method")) is None and out.get("oxidation") is None and out.get("oxidation_differential") is not None:
+        method = "subtraction"  # only a differential reading given (a column mapped to it)
+    if method == "differential":  # ASTM D7418's word for spectral subtraction
+        method = "subtraction"
     new = {name: reference(name) for name in ("kv40", "kv100", "an", "bn", "oxidation", "rpvot")}
     if method == "subtraction":
-        new["oxidation"] = 0.0
+        # a differential reading is its own measure; the direct one and its rise stay empty (issue 11)
+        if out.get("oxidation") is not None:
+            out["oxidation_differential"] = out["oxidation"]
+        out["oxidation"] = None
 
     def diff(a, b):
         return None if a is None or b is None else round(a - b, 9)
@@ -62,9 +69,10 @@ def derive_row(row: dict, lubricants: dict) -> dict:
     out["kv100_change_pct"] = pct(out.get("kv100"), new["kv100"])
     out["an_rise"] = diff(out.get("an"), new["an"])
     out["oxidation_rise"] = diff(out.get("oxidation"), new["oxidation"])
-    for rate, rise in (("oxidation_rise_per_1000h", "oxidation_rise"), ("an_rise_per_1000h", "an_rise")):
+    for rate, rise in (("oxidation_rise_per_1000h", "oxidation_rise"), ("an_rise_per_1000h", "an_rise"),
+                       ("oxidation_differential_per_1000h", "oxidation_differential")):
         unrounded = None
-        if out[rise] is not None and hours is not None and hours > 0:
+        if out.get(rise) is not None and hours is not None and hours > 0:
             unrounded = round(out[rise] * (1000.0 / hours), 9)
         out[rate] = unrounded
     out["bn_retained_pct"] = ratio(out.get("bn"), new["bn"])
@@ -80,7 +88,21 @@ def derive_row(row: dict, lubricants: dict) -> dict:
     base = texts.get("base_stock") or (lub.base_stock if lub is not None else None)
     texts["base_stock"] = base
     texts["method"] = method
+    texts["base_stock_family"] = _family(base)
     return {"numbers": out, "texts": texts}
+
+
+# Written out here, not read from sumpwise.vocabulary.base_stocks: any carbonyl ester part makes the
+# family "ester"; a phosphate ester has no carbonyl (IR correlation tables, from memory).
+_FAMILIES = {"mineral": "hydrocarbon", "pao": "hydrocarbon", "ester": "ester", "diester": "ester",
+             "polyol-ester": "ester", "phosphate-ester": "phosphate-ester", "pag": "pag"}
+
+
+def _family(base):
+    if base is None or any(part not in _FAMILIES for part in base.split("+")):
+        return None
+    families = [_FAMILIES[part] for part in base.split("+")]
+    return "ester" if "ester" in families else "+".join(dict.fromkeys(families))
 
 
 def _test(test, value, limit) -> bool:

@@ -1,9 +1,12 @@
-"""Synthetic oil spectra with bands of known area, and a JCAMP-DX writer.
+"""Synthetic oil spectra with bands of known height and area, and a JCAMP-DX writer.
 
 For tests, the benchmark and the demo scenario: every band is a Gaussian or
-Lorentzian of given area, so a measured area can be checked in closed form.
-The band set below is invented for the demo (positions follow common IR
-correlation values, strengths are made up); it is not a measured oil.
+Lorentzian, so a measured height or area can be checked in closed form.
+The band set below is invented (positions follow common IR correlation values),
+with magnitudes chosen to look like real oils at 0.100 mm (common practice, no
+source): a new mineral oil shows a small carbonyl (about 0.01 absorbance), used
+oils carbonyl peaks of about 0.05-0.5, and a new ester oil's own carbonyl
+saturates (about 2 absorbance, above the 1.5 threshold of the band file).
 """
 
 from __future__ import annotations
@@ -36,8 +39,10 @@ def lorentzian(x, centre: float, area: float, gamma: float):
 
 
 # (centre cm-1, area abs*cm-1 at 0.1 mm, sigma cm-1): invented, demo only.
-_HYDROCARBON = ((2920, 60.0, 25), (2855, 30.0, 18), (1460, 6.0, 12), (1377, 2.5, 8), (722, 1.2, 8))
-_ESTER = ((1740, 60.0, 12), (1240, 12.0, 25), (1170, 18.0, 22))
+_HYDROCARBON = ((2920, 60.0, 25), (2855, 30.0, 18), (1460, 6.0, 12), (1377, 2.5, 8), (722, 1.2, 8),
+                (1712, 0.35, 14))  # the last: a new mineral oil's small carbonyl, 0.01 high
+_ESTER = ((1740, 60.0, 12), (1240, 12.0, 25), (1170, 18.0, 22))  # carbonyl 2.0 high at 0.1 mm: saturated
+ESTER_CARBONYL_HEIGHT = 60.0 / (12 * np.sqrt(2 * np.pi))
 _ADDITIVE = ((990, 1.5, 15),)  # phosphate anti-wear, new oil
 _DEGRADATION = {
     "oxidation": (1712, 14),
@@ -63,9 +68,11 @@ def oil_spectrum(
 ):
     """Absorbance at 0.100 mm of a made-up oil: base stock bands, additive, degradation, soot.
 
-    `oxidation` etc. are band areas (abs*cm-1) added to the new oil;
-    `soot` lifts the whole spectrum (a flat offset, as soot scatters
-    broadly); `antiwear_left` is the fraction of anti-wear band remaining.
+    `oxidation`, `nitration`, `sulfation`, `water` are peak heights (absorbance
+    at 0.1 mm) added to the new oil; a Gaussian of height h and width sigma has
+    area h * sigma * sqrt(2 pi). `soot` lifts the whole spectrum (a flat offset,
+    as soot scatters broadly); `antiwear_left` is the fraction of anti-wear band
+    remaining.
     """
     x = np.asarray(x, dtype=float)
     y = offset + slope * (x - x.min()) + soot
@@ -74,20 +81,25 @@ def oil_spectrum(
         y = y + gaussian(x, centre, area, sigma)
     for centre, area, sigma in _ADDITIVE:
         y = y + gaussian(x, centre, area * antiwear_left, sigma)
-    for name, area in (("oxidation", oxidation), ("nitration", nitration), ("sulfation", sulfation), ("water", water)):
+    for name, height in (("oxidation", oxidation), ("nitration", nitration), ("sulfation", sulfation),
+                         ("water", water)):
         centre, sigma = _DEGRADATION[name]
-        y = y + gaussian(x, centre, area, sigma)
+        y = y + gaussian(x, centre, height * sigma * np.sqrt(2 * np.pi), sigma)
     if noise:
         y = y + np.random.default_rng(seed).normal(0.0, noise, size=x.size)
     return y
 
 
 def random_used_oils(x, count: int, seed: int = 0, base_stock: str = "mineral"):
-    """A (count, points) block of used-oil spectra with random degradation: for the benchmark."""
+    """A (count, points) block of used-oil spectra with random degradation: for the benchmark.
+
+    Peak heights at 0.1 mm drawn uniformly: carbonyl 0-0.5, nitration and sulfation
+    0-0.2, water 0-0.3 (realistic used-oil magnitudes, common practice, no source).
+    """
     rng = np.random.default_rng(seed)
     new = oil_spectrum(x, base_stock)
-    shapes = np.stack([gaussian(x, c, 1.0, s) for c, s in _DEGRADATION.values()])
-    amounts = rng.uniform(0.0, [20.0, 5.0, 5.0, 30.0], size=(count, len(_DEGRADATION)))
+    shapes = np.stack([gaussian(x, c, s * np.sqrt(2 * np.pi), s) for c, s in _DEGRADATION.values()])  # height 1
+    amounts = rng.uniform(0.0, [0.5, 0.2, 0.2, 0.3], size=(count, len(_DEGRADATION)))
     soot = rng.uniform(0.0, 0.3, size=(count, 1))
     return new[None, :] + amounts @ shapes + soot
 
@@ -102,6 +114,7 @@ def write_jcampdx(
     y_units: str = "ABSORBANCE",
     significant: int = 6,
     values_per_line: int | None = None,
+    path_length: str | None = None,
 ) -> Path:
     """Write an evenly spaced spectrum as JCAMP-DX 4.24.
 
@@ -109,6 +122,7 @@ def write_jcampdx(
     XYPOINTS. Y is stored as integers times a YFACTOR chosen to keep
     `significant` digits; the Y values written are therefore rounded.
     values_per_line defaults to what keeps lines near 80 characters.
+    path_length: written as `##PATH LENGTH=` (e.g. "0.025 MM") when given.
     """
     values_per_line = values_per_line or {"AFFN": 8, "PAC": 8, "SQZ": 12}.get(form, 14)
     path = Path(path)
@@ -132,6 +146,8 @@ def write_jcampdx(
         f"##NPOINTS= {x.size}",
         f"##FIRSTY= {stored[0] * y_factor:.10g}",
     ]
+    if path_length is not None:
+        header.insert(4, f"##PATH LENGTH= {path_length}")
     if form == "XYPOINTS":
         body = ["##XYPOINTS=(XY..XY)"] + [f"{xi:.10g}, {yi}" for xi, yi in zip(x, stored)]
     else:

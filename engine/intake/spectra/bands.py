@@ -27,13 +27,28 @@ class BandFileError(ValueError):
 
 @dataclass(frozen=True)
 class Anchor:
-    """One end of a straight baseline: a fixed abscissa, or the minimum within a window."""
+    """One end of a straight baseline: a fixed abscissa, the mean of a window, or its minimum.
+
+    Why the mean: the minimum of raw points is biased low by noise (the lowest of
+    many noisy points), so a new oil subtracted from itself would read as
+    oxidation; the mean of a window is unbiased, and for a straight baseline
+    it sits exactly on the line at the mean abscissa of the window's points.
+    `minimum_in` stays readable for band files written for it.
+    """
 
     at: float | None = None
     minimum_in: tuple[float, float] | None = None
+    mean_in: tuple[float, float] | None = None
 
     def span(self):
-        return (self.at, self.at) if self.at is not None else self.minimum_in
+        if self.at is not None:
+            return (self.at, self.at)
+        return self.mean_in if self.mean_in is not None else self.minimum_in
+
+    def key(self):
+        if self.at is not None:
+            return ("at", self.at)
+        return ("mean", self.mean_in) if self.mean_in is not None else ("minimum", self.minimum_in)
 
 
 @dataclass(frozen=True)
@@ -44,6 +59,7 @@ class Band:
     baseline: tuple[Anchor, ...]
     source: str
     status: str
+    saturation_window: tuple[float, float] | None = None  # where absorbance above the threshold voids the band
 
     def span(self):
         """Lowest and highest wavenumber the band reads, baseline included."""
@@ -60,6 +76,8 @@ class BandSet:
     ester_threshold: float
     ester_source: str
     origin: str
+    saturation_absorbance: float = 1.5
+    saturation_source: str = ""
 
     @property
     def names(self):
@@ -70,7 +88,7 @@ def load_bands(path: Path | str | None = None) -> BandSet:
     """Load a band file (the packaged engine/data/ftir_bands.yaml when path is None)."""
     if path is None:
         text = resources.files("sumpwise.intake.spectra").joinpath(DEFAULT_BANDS_RESOURCE).read_text(encoding="utf-8")
-        origin = f"engine/data/{DEFAULT_BANDS_RESOURCE}"
+        origin = f"engine/intake/spectra/{DEFAULT_BANDS_RESOURCE}"
     else:
         origin = str(path)
         try:
@@ -97,9 +115,16 @@ def parse_bands(document, origin: str) -> BandSet:
         raise BandFileError(f"{origin}: 'ester_detection' mapping missing")
     ester_band = _parse_band({**ester, "name": "ester_carbonyl", "measure": "height"}, origin, "ester_detection")
     threshold = ester.get("threshold")
-    if not isinstance(threshold, (int, float)) or isinstance(threshold, bool) or threshold <= 0:
+    if not isinstance(threshold, (int, float)) or isinstance(threshold, bool) or not 0 < threshold < 10:
         raise BandFileError(f"{origin}: ester_detection.threshold: expected a positive number, got {threshold!r}")
-    return BandSet(bands, ester_band, float(threshold), str(ester.get("source", "")), origin)
+    saturation = document.get("saturation", {"absorbance": 1.5})
+    if not isinstance(saturation, dict):
+        raise BandFileError(f"{origin}: saturation: expected a mapping with 'absorbance' and 'source'")
+    limit = saturation.get("absorbance")
+    if not isinstance(limit, (int, float)) or isinstance(limit, bool) or not 0 < limit < 10:
+        raise BandFileError(f"{origin}: saturation.absorbance: expected a number between 0 and 10, got {limit!r}")
+    return BandSet(bands, ester_band, float(threshold), str(ester.get("source", "")), origin, float(limit),
+                   str(saturation.get("source", "")))
 
 
 def _parse_band(item, origin, where):
@@ -125,15 +150,24 @@ def _parse_band(item, origin, where):
     baseline = tuple(_anchor(a, origin, f"{where}.baseline[{i}]") for i, a in enumerate(raw_baseline))
     if len(baseline) == 2 and _anchor_centre(baseline[0]) == _anchor_centre(baseline[1]):
         raise BandFileError(f"{origin}: {where}.baseline: the two anchors must lie at different wavenumbers")
-    return Band(name, measure, region, baseline, str(item.get("source", "")), str(item.get("status", "")))
+    saturation_window = None
+    if measure != "point":
+        saturation_window = region
+        if "saturation_window" in item:
+            saturation_window = _window(item["saturation_window"], origin, f"{where}.saturation_window")
+    return Band(name, measure, region, baseline, str(item.get("source", "")), str(item.get("status", "")),
+                saturation_window)
 
 
 def _anchor(item, origin, where):
     if isinstance(item, dict) and set(item) == {"at"}:
         return Anchor(at=_number(item["at"], origin, f"{where}.at"))
+    if isinstance(item, dict) and set(item) == {"mean_in"}:
+        return Anchor(mean_in=_window(item["mean_in"], origin, f"{where}.mean_in"))
     if isinstance(item, dict) and set(item) == {"minimum_in"}:
         return Anchor(minimum_in=_window(item["minimum_in"], origin, f"{where}.minimum_in"))
-    raise BandFileError(f"{origin}: {where}: expected {{at: x}} or {{minimum_in: [low, high]}}, got {item!r}")
+    raise BandFileError(f"{origin}: {where}: expected {{at: x}}, {{mean_in: [low, high]}} or "
+                        f"{{minimum_in: [low, high]}}, got {item!r}")
 
 
 def _anchor_centre(anchor):
@@ -142,8 +176,8 @@ def _anchor_centre(anchor):
 
 
 def _number(value, origin, where):
-    if not isinstance(value, (int, float)) or isinstance(value, bool):
-        raise BandFileError(f"{origin}: {where}: expected a number of cm-1, got {value!r}")
+    if not isinstance(value, (int, float)) or isinstance(value, bool) or not np.isfinite(value):
+        raise BandFileError(f"{origin}: {where}: expected a finite number of cm-1, got {value!r}")
     return float(value)
 
 
@@ -181,7 +215,8 @@ class BandPlan:
 
     areas: band region -> (column slice, weights on that slice);
     points: abscissa -> (left index, fraction towards the right one);
-    windows: window -> column slice; uncovered: band name -> sentence.
+    windows: window -> column slice; uncovered: band name -> sentence;
+    saturation: band name -> column slice of its saturation window.
     Only the columns a band reads are touched, which is what makes a block
     of spectra cheap: most of a spectrum is never read.
     """
@@ -192,11 +227,12 @@ class BandPlan:
     points: dict
     windows: dict
     uncovered: dict
+    saturation: dict
 
 
 def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
     """Precompute weights and index windows for one ascending wavenumber grid."""
-    areas, points, windows, uncovered = {}, {}, {}, {}
+    areas, points, windows, uncovered, saturation = {}, {}, {}, {}, {}
     for band in bands:
         low, high = band.span()
         if low < x[0] or high > x[-1]:
@@ -218,8 +254,10 @@ def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
             if anchor.at is not None:
                 points[anchor.at] = _interpolation_point(x, anchor.at)
             else:
-                windows[anchor.minimum_in] = _index_window(x, anchor.minimum_in, band.name)
-    return BandPlan(x, bands, areas, points, windows, uncovered)
+                windows[anchor.span()] = _index_window(x, anchor.span(), band.name)
+        if band.saturation_window is not None:
+            saturation[band.name] = _index_window(x, band.saturation_window, band.name)
+    return BandPlan(x, bands, areas, points, windows, uncovered, saturation)
 
 
 def _interpolation_point(x, at):
@@ -248,24 +286,25 @@ class BlockMeasures:
     peak_positions: dict
 
 
-def measure_block(plan: BandPlan, spectra: np.ndarray) -> BlockMeasures:
+def measure_block(plan: BandPlan, spectra: np.ndarray, with_positions: bool = True) -> BlockMeasures:
     """Band values for a block of spectra given as rows (one spectrum per row).
 
     The block is copied once to wavenumber-major order and measured by
     measure_columns; a caller that can build that order directly saves the copy.
     """
     spectra = np.atleast_2d(np.asarray(spectra))
-    return measure_columns(plan, np.ascontiguousarray(spectra.T))
+    return measure_columns(plan, np.ascontiguousarray(spectra.T), with_positions)
 
 
-def measure_columns(plan: BandPlan, columns: np.ndarray) -> BlockMeasures:
+def measure_columns(plan: BandPlan, columns: np.ndarray, with_positions: bool = False) -> BlockMeasures:
     """Band values for a block stored wavenumber-major: one row per grid point, one column per spectrum.
 
     Why that order: every band reads a narrow wavenumber range, which is then
     a contiguous slab of memory; minima, maxima and weighted sums run down
     its rows with whole-row numpy operations, never a per-spectrum loop.
     float32 blocks stay float32 (half the memory traffic); anything else is
-    read as float64. NaN propagates, never hides.
+    read as float64. NaN propagates, never hides. with_positions: also the
+    wavenumber of each height band's maximum (slower; the ester inference uses it).
     """
     columns = np.asarray(columns)
     if columns.dtype not in (np.float32, np.float64):
@@ -275,10 +314,13 @@ def measure_columns(plan: BandPlan, columns: np.ndarray) -> BlockMeasures:
     anchors = {}
 
     def anchor_value(anchor):
-        key = anchor.at if anchor.at is not None else anchor.minimum_in
+        key = anchor.key()
         if key not in anchors:
             if anchor.at is not None:
                 anchors[key] = (np.full(spectra.size, anchor.at), _point_value(columns, plan.points[anchor.at]))
+            elif anchor.mean_in is not None:
+                window = plan.windows[anchor.mean_in]
+                anchors[key] = (np.full(spectra.size, x[window].mean()), columns[window].mean(axis=0))
             else:
                 slab = columns[plan.windows[anchor.minimum_in]]
                 j = _first_extreme_row(slab, slab.min(axis=0), np.argmin)
@@ -304,11 +346,46 @@ def measure_columns(plan: BandPlan, columns: np.ndarray) -> BlockMeasures:
             values[band.name] = value - (ya + (at - xa) * slope) if band.baseline else value
         else:
             window = plan.windows[band.region]
-            above = columns[window] - (ya[None, :] + (x[window][:, None] - xa[None, :]) * slope[None, :])
-            j = _first_extreme_row(above, above.max(axis=0), np.argmax)
-            values[band.name] = above[j, spectra]
-            positions[band.name] = x[window][j]
+            if with_positions:
+                above = columns[window] - (ya[None, :] + (x[window][:, None] - xa[None, :]) * slope[None, :])
+                j = _first_extreme_row(above, above.max(axis=0), np.argmax)
+                values[band.name] = above[j, spectra]
+                positions[band.name] = x[window][j]
+            else:
+                values[band.name] = _height_above_line(columns[window], x[window], xa, ya, slope)
     return BlockMeasures(values, positions)
+
+
+def _height_above_line(slab, xs, xa, ya, slope):
+    """max over rows of slab - (ya + (x - xa) slope), one whole-row operation per grid row.
+
+    Why row by row: the line's value at x is ya - xa slope + x slope, so each row needs
+    only its own x times the slope; no (rows x spectra) temporary is built. NaN propagates.
+    """
+    best = np.full(slab.shape[1], -np.inf, dtype=slab.dtype)
+    row = np.empty_like(best)
+    slope = slope.astype(slab.dtype, copy=False)
+    for k in range(slab.shape[0]):
+        np.multiply(slope, xs[k], out=row)
+        np.subtract(slab[k], row, out=row)
+        np.maximum(best, row, out=best)
+    return best - (ya - xa * slope)
+
+
+def saturated_bands(plan: BandPlan, columns: np.ndarray, threshold: float) -> dict:
+    """Band name -> bool per spectrum: absorbance above `threshold` somewhere in the band's saturation window.
+
+    Read on the spectrum as recorded (before path normalisation or subtraction):
+    saturation is a property of the light that reached the detector. NaN (no
+    light at all, transmittance <= 0) counts as saturated.
+    """
+    found, by_window = {}, {}
+    for name, window in plan.saturation.items():
+        key = (window.start, window.stop)
+        if key not in by_window:  # bands sharing a window (oxidation and its area) read it once
+            by_window[key] = ~(columns[window].max(axis=0) <= threshold)
+        found[name] = by_window[key]
+    return found
 
 
 def _first_extreme_row(slab, extreme, arg_extreme):

@@ -1,23 +1,29 @@
 """Measure many spectra at once: read at the edge, group by grid, measure in blocks.
 
 Direct trend: bands on the used-oil spectrum itself, in abs/0.1 mm.
-Spectral subtraction (differential trend, ASTM D7418): the new-oil
-reference of the same lubricant is interpolated onto the used spectrum's
-grid, both are normalised to 0.100 mm, the reference is subtracted, and the
-bands are read on the difference, in abs/cm = abs/0.1 mm x 100 (ASTM D7412
-12.1-12.2). Spectra sharing a grid are stacked and measured as 2-D arrays
-in blocks of `block_size`, which bounds memory.
+Differential trend (spectral subtraction, ASTM D7418): the new-oil reference
+of the same lubricant is interpolated onto the used spectrum's grid, both are
+normalised to 0.100 mm of neat oil (each by its own path length and dilution),
+the reference is subtracted, and the bands are read on the difference, in
+abs/cm = abs/0.1 mm x 100 (ASTM D7412 12.1-12.2). Spectra sharing a grid and a
+reference are stacked and measured as 2-D arrays in blocks of `block_size`,
+which bounds memory.
+
+Bands are measured one by one: a band the spectrum's range does not cover, or
+one saturated in the sample or the reference, is left empty with a note; a
+spectrum is rejected only when none of the bands the run needs is measured.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_columns, plan_bands
+from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_columns, plan_bands, saturated_bands
 from sumpwise.intake.spectra.jcampdx import read_jcampdx, read_jcampdx_many
 from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError
 from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
@@ -25,7 +31,8 @@ from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
 REFERENCE_PATH_MM = 0.1
 ABS_PER_CM_PER_ABS_PER_01MM = 100.0  # ASTM D7412 12.1-12.2
 DIRECT, SUBTRACTION = "direct", "subtraction"
-UNITS = {DIRECT: "abs/0.1mm", SUBTRACTION: "abs/cm"}
+UNITS = {DIRECT: "abs/0.1mm", SUBTRACTION: "abs/cm"}  # heights and points
+AREA_UNITS = {DIRECT: "abs*cm-1/0.1mm", SUBTRACTION: "abs*cm-1/cm"}  # areas: the same path normalisation
 SPECTRUM_SUFFIXES = (".jdx", ".dx", ".jcm", ".jcamp", ".csv")
 DEFAULT_BLOCK = 4096
 
@@ -42,6 +49,28 @@ class Rejection:
     def message(self) -> str:
         where = f"{self.spectrum}:{self.line}" if self.line is not None else self.spectrum
         return f"{where}: {self.reason}"
+
+
+def check_path_length(value, what: str = "path length") -> float:
+    """A cell path length in mm: finite and above zero, else ValueError naming it."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise ValueError(f"{what}: expected a number of mm, got {value!r}") from None
+    if not (math.isfinite(number) and 0 < number <= 10):
+        raise ValueError(f"{what}: expected a finite number of mm above 0 and at most 10, got {value!r}")
+    return number
+
+
+def check_dilution(value, what: str = "dilution") -> float:
+    """A dilution factor (volume of the diluted sample / volume of oil in it): finite, 1 or more."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise ValueError(f"{what}: expected a number of 1 or more, got {value!r}") from None
+    if not (math.isfinite(number) and 1 <= number <= 1000):
+        raise ValueError(f"{what}: expected a finite dilution factor from 1 to 1000, got {value!r}")
+    return number
 
 
 def read_spectrum(path: Path | str) -> Spectrum:
@@ -68,39 +97,46 @@ def read_spectra(paths) -> list:
     return results
 
 
-def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm: float = 0.1,
+def measure_matrix(x, absorbance, bands: BandSet | None = None, path_length_mm=0.1,
                    reference=None, reference_path_length_mm: float | None = None,
                    block_size: int = DEFAULT_BLOCK):
     """Band values for rows of `absorbance` on grid x (ascending), direct or by subtraction.
 
     reference: None (direct) or one absorbance row on the same grid, or a
-    matrix with one row per spectrum. Returns (values, peak_positions,
-    uncovered): dicts of arrays in abs/0.1 mm (direct) or abs/cm, NaN where a
-    band met a non-finite point; and the bands the grid does not reach.
-    Rows are copied once to wavenumber-major order; for many spectra that
-    copy costs more than the measures, so measure_spectra stacks columns.
+    matrix with one row per spectrum. path_length_mm: one figure or one per
+    row. Returns (values, peak_positions, uncovered): dicts of arrays in
+    abs/0.1 mm (direct) or abs/cm, NaN where a band met a non-finite point;
+    and the bands the grid does not reach. Saturation is not checked here
+    (measure_spectra does).
     """
     columns = np.ascontiguousarray(np.atleast_2d(np.asarray(absorbance, dtype=float)).T)
     if reference is not None:
         reference = np.ascontiguousarray(np.atleast_2d(np.asarray(reference, dtype=float)).T)
     return _measure_columns_matrix(x, columns, bands, path_length_mm, reference, reference_path_length_mm,
-                                   block_size)
+                                   block_size, with_positions=True)
 
 
-def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, reference_path_length_mm, block_size):
-    """measure_matrix on wavenumber-major data: one column per spectrum (reference: one column, or one per spectrum)."""
+def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, reference_path_length_mm, block_size,
+                            plan=None, with_positions=False):
+    """measure_matrix on wavenumber-major data: one column per spectrum (reference: one column, or one per spectrum).
+
+    path_length_mm may be one figure or one per column (a path already divided by
+    its dilution factor: what matters is the neat-oil thickness the light crossed).
+    """
     bands = bands or load_bands()
-    plan = plan_bands(np.asarray(x, dtype=float), bands.bands)
-    scale = REFERENCE_PATH_MM / path_length_mm
-    ref_scale = REFERENCE_PATH_MM / (reference_path_length_mm or path_length_mm)
+    plan = plan or plan_bands(np.asarray(x, dtype=float), bands.bands)
+    scale = REFERENCE_PATH_MM / np.broadcast_to(np.asarray(path_length_mm, dtype=float), (columns.shape[1],))
+    if reference_path_length_mm is None:
+        reference_path_length_mm = path_length_mm if np.ndim(path_length_mm) == 0 else REFERENCE_PATH_MM
+    ref_scale = REFERENCE_PATH_MM / reference_path_length_mm
     factor = 1.0 if reference is None else ABS_PER_CM_PER_ABS_PER_01MM
     parts = []
     for start in range(0, columns.shape[1], block_size):
-        block = columns[:, start : start + block_size] * scale
+        block = columns[:, start : start + block_size] * scale[None, start : start + block_size]
         if reference is not None:
             ref = reference if reference.shape[1] == 1 else reference[:, start : start + block_size]
             block -= ref * ref_scale
-        parts.append(measure_columns(plan, block))
+        parts.append(measure_columns(plan, block, with_positions))
     names = plan.bands
     values = {b.name: np.concatenate([p.values[b.name] for p in parts]) * factor for b in names}
     positions = {k: np.concatenate([p.peak_positions[k] for p in parts]) for k in parts[0].peak_positions} if parts else {}
@@ -108,28 +144,39 @@ def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, refere
 
 
 def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: BandSet | None = None,
-                    reference_path_length_mm: float | None = None, block_size: int = DEFAULT_BLOCK):
-    """Read and measure spectra; one row per path, in order, plus the list of rejections.
+                    reference_path_length_mm: float | None = None, block_size: int = DEFAULT_BLOCK,
+                    dilutions=None, needed=None):
+    """Read and measure spectra; exactly one row per path, in order, plus the list of rejections.
 
-    references: None for all direct, or a mapping from a path (as given, str
-    or Path) to its new-oil reference file; paths without an entry are read
-    directly. Columns: spectrum, one per band, method, unit,
-    path_length_mm, reference, rejection. A bad file rejects that spectrum
-    only.
+    references: None for all direct; a sequence aligned with `paths` (a reference
+    file or None per spectrum: two samples naming the same spectrum file may have
+    different references); or a mapping from a path to its reference file.
+    path_length_mm / reference_path_length_mm: used for a file that has no
+    `##PATH LENGTH=` of its own. dilutions: None or one factor per path.
+    needed: the band names the caller needs (default: all); a spectrum none of
+    whose needed bands can be measured is rejected. Columns: spectrum, one per
+    band, method, unit (of heights and points), area_unit (of areas),
+    path_length_mm, dilution, reference, notes, rejection.
+    A bad file rejects that spectrum only.
     """
     bands = bands or load_bands()
-    references = {str(Path(k)): Path(v) for k, v in (references or {}).items()}
     paths = [Path(p) for p in paths]
+    refs = _aligned_references(paths, references)
+    dilutions = [1.0] * len(paths) if dilutions is None else [float(d) for d in dilutions]
+    needed = tuple(needed) if needed is not None else bands.names
     rejections = {}
     spectra = {}
-    for i, result in zip(range(len(paths)), read_spectra(paths)):
+    unique = list(dict.fromkeys(paths))
+    read = dict(zip(unique, read_spectra(unique)))
+    for i, path in enumerate(paths):
+        result = read[path]
         if isinstance(result, SpectrumError):
-            rejections[i] = Rejection(str(paths[i]), result.line, result.reason)
+            rejections[i] = Rejection(str(path), result.line, result.reason)
         else:
             spectra[i] = result
     loaded_refs = {}
-    for i, spectrum in list(spectra.items()):
-        ref_path = references.get(str(paths[i]))
+    for i in list(spectra):
+        ref_path = refs[i]
         if ref_path is None:
             continue
         if ref_path not in loaded_refs:
@@ -141,53 +188,91 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             rejections[i] = Rejection(str(paths[i]), None, f"reference spectrum unusable: {loaded_refs[ref_path]}")
             del spectra[i]
 
+    used_path = {i: (s.path_length_mm or path_length_mm) for i, s in spectra.items()}
     groups = {}
     for i, spectrum in spectra.items():
-        ref_path = references.get(str(paths[i]))
-        groups.setdefault((spectrum.wavenumber.tobytes(), ref_path), []).append(i)
+        groups.setdefault((spectrum.wavenumber.tobytes(), refs[i]), []).append(i)
 
-    rows = {}
+    rows, notes = {}, {}
     for (_, ref_path), members in groups.items():
         x = spectra[members[0]].wavenumber
+        plan = plan_bands(x, bands.bands)
         columns = np.stack([spectra[i].absorbance for i in members], axis=1)  # as cheap as rows, no later copy
-        reference = None
+        neat = np.array([used_path[i] / dilutions[i] for i in members])
+        reference, ref_path_mm = None, None
+        saturated = saturated_bands(plan, columns, bands.saturation_absorbance)
+        ref_saturated = {}
         if ref_path is not None:
             ref = loaded_refs[ref_path]
+            ref_path_mm = ref.path_length_mm or reference_path_length_mm or path_length_mm
             reference = np.interp(x, ref.wavenumber, ref.absorbance, left=np.nan, right=np.nan)[:, None]
+            # NaN here is outside the reference's range (its own message below), not saturation
+            ref_saturated = saturated_bands(plan, np.nan_to_num(reference, nan=0.0), bands.saturation_absorbance)
         values, _, uncovered = _measure_columns_matrix(
-            x, columns, bands, path_length_mm, reference, reference_path_length_mm, block_size)
+            x, columns, bands, neat, reference, ref_path_mm, block_size, plan)
         method = DIRECT if ref_path is None else SUBTRACTION
         for k, i in enumerate(members):
-            spectrum = spectra[i]
-            if uncovered:
-                reason = next(iter(uncovered.values()))
-                if len(uncovered) > 1:
-                    reason += "; nor bands " + ", ".join(list(uncovered)[1:])
-                rejections[i] = Rejection(str(paths[i]), spectrum.range_line, reason)
+            row, why = {}, []
+            for band in bands.bands:
+                value = float(values[band.name][k])
+                if band.name in uncovered:
+                    why.append(f"{band.name}: not measured: {uncovered[band.name]}")
+                elif band.name in ref_saturated and ref_saturated[band.name][0]:
+                    why.append(f"{band.name}: not measured: the reference is saturated "
+                               f"{_saturation_words(band, bands)}")
+                elif saturated.get(band.name, np.zeros(len(members), bool))[k]:
+                    why.append(f"{band.name}: not measured: saturated {_saturation_words(band, bands)}")
+                elif not math.isfinite(value):
+                    what = "reference or spectrum" if ref_path is not None else "spectrum"
+                    why.append(f"{band.name}: not measured: the {what} has no finite absorbance inside the band "
+                               "(e.g. transmittance <= 0 or outside the reference range)")
+                else:
+                    row[band.name] = value
+                    continue
+                row[band.name] = math.nan
+            if not any(math.isfinite(row[name]) for name in needed if name in row):
+                first = next((w for w in why if w.split(":")[0] in needed), why[0] if why else "no band measured")
+                line = spectra[i].range_line if any(n in uncovered for n in needed) else None
+                rejections[i] = Rejection(str(paths[i]), line, "none of the needed bands could be measured; " + first)
                 continue
-            bad = [name for name in bands.names if not np.isfinite(values[name][k])]
-            if bad:
-                what = "reference or spectrum" if ref_path is not None else "spectrum"
-                rejections[i] = Rejection(str(paths[i]), None,
-                                          f"{what} has no finite absorbance (e.g. transmittance <= 0 or outside "
-                                          f"the reference range) inside band {bad[0]}")
-                continue
-            rows[i] = {name: float(values[name][k]) for name in bands.names} | {
-                "method": method, "unit": UNITS[method]}
+            rows[i] = row | {"method": method, "unit": UNITS[method]}
+            notes[i] = "; ".join(why)
 
     records = []
     for i, path in enumerate(paths):
-        ref_path = references.get(str(path))
+        ref_path = refs[i]
         record = {"spectrum": str(path)}
         record |= rows.get(i, {name: np.nan for name in bands.names} | {"method": DIRECT if ref_path is None else SUBTRACTION})
         record["unit"] = UNITS[record["method"]] if i in rows else ""
-        record["path_length_mm"] = path_length_mm
+        record["area_unit"] = AREA_UNITS[record["method"]] if i in rows else ""
+        record["path_length_mm"] = used_path.get(i, path_length_mm)
+        record["dilution"] = dilutions[i]
         record["reference"] = "" if ref_path is None else str(ref_path)
+        record["notes"] = notes.get(i, "")
         record["rejection"] = rejections[i].message if i in rejections else ""
         records.append(record)
-    columns = ["spectrum", *bands.names, "method", "unit", "path_length_mm", "reference", "rejection"]
+    columns = ["spectrum", *bands.names, "method", "unit", "area_unit", "path_length_mm", "dilution", "reference",
+               "notes", "rejection"]
     frame = pd.DataFrame.from_records(records, columns=columns)
     return frame, [rejections[i] for i in sorted(rejections)]
+
+
+def _saturation_words(band, bands: BandSet) -> str:
+    low, high = band.saturation_window
+    return (f"(absorbance above {bands.saturation_absorbance:g} as recorded within {low:g}-{high:g} cm-1): "
+            "dilute the sample or use a thinner cell")
+
+
+def _aligned_references(paths, references) -> list:
+    if references is None:
+        return [None] * len(paths)
+    if isinstance(references, dict):
+        by_path = {str(Path(k)): Path(v) for k, v in references.items()}
+        return [by_path.get(str(p)) for p in paths]
+    refs = [None if r is None else Path(r) for r in references]
+    if len(refs) != len(paths):
+        raise ValueError(f"references: expected one entry per spectrum ({len(paths)}), got {len(refs)}")
+    return refs
 
 
 def expand_inputs(items) -> list[Path]:

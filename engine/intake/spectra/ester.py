@@ -12,8 +12,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_block, plan_bands
+from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_block, plan_bands, saturated_bands
 from sumpwise.intake.spectra.spectrum import Spectrum
+from sumpwise.vocabulary.base_stocks import BaseStockError, canonical_base_stock, has_ester_carbonyl
+
+PRESENT = "ester carbonyl present (an ester base stock or an ester additive)"
 
 REFERENCE_PATH_MM = 0.1
 
@@ -53,34 +56,44 @@ def detect_ester(reference_spectrum: Spectrum, path_length_mm: float = 0.1, band
         return EsterEvidence(False, float("nan"), float("nan"), bands.ester_threshold, "abs/0.1mm", rule.region,
                              bands.ester_source,
                              f"{reference_spectrum.source}: not inferred: {plan.uncovered[rule.name]}")
+    saturated = bool(saturated_bands(plan, reference_spectrum.absorbance[:, None], bands.saturation_absorbance)
+                     .get(rule.name, [False])[0])
     scaled = reference_spectrum.absorbance[None, :] * (REFERENCE_PATH_MM / path_length_mm)
     measures = measure_block(plan, scaled)
     height = float(measures.values[rule.name][0])
     position = float(measures.peak_positions[rule.name][0])
-    inferred = bool(np.isfinite(height) and height >= bands.ester_threshold)
-    verdict = "at or above" if inferred else "below"
-    sentence = (
-        f"{reference_spectrum.source}: carbonyl peak {height:.3g} abs/0.1mm above baseline at {position:.0f} cm-1 "
-        f"(window {low:g}-{high:g} cm-1), {verdict} the ester threshold {bands.ester_threshold:g} abs/0.1mm: "
-        + ("ester base stock inferred from the spectrum" if inferred else "no ester base stock inferred")
-    )
+    inferred = saturated or bool(np.isfinite(height) and height >= bands.ester_threshold)
+    if saturated:
+        found = (f"carbonyl band saturated (absorbance above {bands.saturation_absorbance:g} as recorded) "
+                 f"within {low:g}-{high:g} cm-1")
+    else:
+        verdict = "at or above" if inferred else "below"
+        found = (f"carbonyl peak {height:.3g} abs/0.1mm above baseline at {position:.0f} cm-1 (window {low:g}-"
+                 f"{high:g} cm-1), {verdict} the threshold {bands.ester_threshold:g} abs/0.1mm")
+    sentence = f"{reference_spectrum.source}: {found}: " + (PRESENT if inferred else "no ester carbonyl")
     return EsterEvidence(inferred, position, height, bands.ester_threshold, "abs/0.1mm", rule.region,
                          bands.ester_source, sentence)
 
 
 def resolve_base_stock(declared: str | None, evidence: EsterEvidence | None) -> BaseStockFinding:
-    """Declared wins; otherwise 'ester' if the spectrum shows it; a disagreement is flagged, not hidden."""
+    """Declared wins; otherwise 'ester' if the spectrum shows an ester carbonyl; a disagreement is flagged.
+
+    A phosphate ester has no carbonyl, so a declared phosphate ester without one agrees.
+    """
     declared = declared.strip() if isinstance(declared, str) and declared.strip() else None
     if declared is not None:
-        conflict = evidence is not None and np.isfinite(evidence.peak_absorbance) and (
-            evidence.inferred != ("ester" in declared.lower())
-        )
+        try:
+            carbonyl = has_ester_carbonyl(canonical_base_stock(declared))
+        except BaseStockError:
+            carbonyl = None
+        known = evidence is not None and (evidence.inferred or np.isfinite(evidence.peak_absorbance))
+        conflict = carbonyl is not None and known and evidence.inferred != carbonyl
         sentence = f"base stock {declared!r} as declared"
         if conflict:
             sentence += f"; the reference spectrum disagrees: {evidence.sentence}"
         return BaseStockFinding(declared, "declared", bool(conflict), evidence, sentence)
     if evidence is not None and evidence.inferred:
         return BaseStockFinding("ester", "inferred from spectrum", False, evidence,
-                                f"base stock 'ester' inferred from the spectrum: {evidence.sentence}")
+                                f"{PRESENT}, so graded with the ester caveats: {evidence.sentence}")
     reason = evidence.sentence if evidence is not None else "no reference spectrum"
     return BaseStockFinding(None, "unknown", False, evidence, f"base stock not declared and not inferred: {reason}")

@@ -8,6 +8,7 @@ so the band code downstream never sees units.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -43,6 +44,7 @@ class Spectrum:
     y_units: str
     range_line: int | None = None
     notes: tuple[str, ...] = field(default=())
+    path_length_mm: float | None = None  # from the file's ##PATH LENGTH=, when it has one
 
     def __post_init__(self):
         for array in (self.wavenumber, self.absorbance):
@@ -75,7 +77,8 @@ def absorbance_from_transmittance(transmittance, percent: bool):
         return np.where(t > 0, -np.log10(np.where(t > 0, t, 1.0)), np.nan)
 
 
-def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), evenly_spaced=False):
+def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), evenly_spaced=False,
+                  path_length_mm=None):
     """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity.
 
     evenly_spaced: x was built as first + k * delta, so two points settle its order.
@@ -86,7 +89,7 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
         x = wavenumber_from_micrometres(x)
     elif unit == "nm":
         x = wavenumber_from_nanometres(x)
-    y_kind, percent_label = _y_unit_kind(source, y_units)
+    y_kind, percent_label = y_unit_kind(source, y_units)
     y = np.asarray(y, dtype=float)
     notes = list(notes)
     if y_kind == "T":
@@ -100,7 +103,8 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
         x, y = x[::-1], y[::-1]
     if x.size < 2 or not (x[1] > x[0] and (unit == "cm1" and evenly_spaced or np.all(np.diff(x) > 0))):
         raise SpectrumError(source, range_line, "abscissa is not strictly monotonic (or has fewer than 2 points)")
-    return Spectrum(source, np.ascontiguousarray(x), np.ascontiguousarray(y), x_units, y_units, range_line, tuple(notes))
+    return Spectrum(source, np.ascontiguousarray(x), np.ascontiguousarray(y), x_units, y_units, range_line, tuple(notes),
+                    path_length_mm)
 
 
 def _x_unit_kind(source, text, line):
@@ -114,10 +118,36 @@ def _x_unit_kind(source, text, line):
     raise SpectrumError(source, line, f"x units {text!r} are not 1/CM, MICROMETERS or NANOMETERS")
 
 
-def _y_unit_kind(source, text):
+def y_unit_kind(source, text, line=None):
+    """("A" or "T", whether percent) for an ordinate unit; any other unit is refused by name.
+
+    Why refuse: an absorption coefficient, a Kubelka-Munk or a reflectance ordinate
+    read as absorbance would give band values of a wholly different scale.
+    """
     key = text.upper().replace(" ", "")
-    if "ABSORBANCE" in key:
+    if key in {"ABSORBANCE", "ABSORBANCEUNITS", "A", "AU", "ABS"}:
         return "A", False
-    if "TRANSMITTANCE" in key or key in {"%T", "T"}:
+    if key in {"TRANSMITTANCE", "T", "%T", "%TRANSMITTANCE", "PERCENTTRANSMITTANCE", "TRANSMITTANCE(%)",
+               "TRANSMITTANCE%", "TRANSMITTANCE,%", "%TRANSMISSION", "TRANSMISSION"}:
         return "T", "%" in key or "PERCENT" in key
-    raise SpectrumError(source, None, f"y units {text!r} are not ABSORBANCE or TRANSMITTANCE")
+    raise SpectrumError(source, line, f"y units {text!r} are refused: only ABSORBANCE or TRANSMITTANCE "
+                                      "(fraction or percent) are read")
+
+
+_PATH_UNITS_MM = {"MM": 1.0, "CM": 10.0, "UM": 1.0e-3, "MICROMETERS": 1.0e-3, "MICROMETRES": 1.0e-3,
+                  "MICRONS": 1.0e-3, "MILLIMETERS": 1.0, "MILLIMETRES": 1.0, "CENTIMETERS": 10.0,
+                  "CENTIMETRES": 10.0}
+
+
+def parse_path_length(source, line, text):
+    """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `5 CM` or `18 CM CELL` (a number, then its unit)."""
+    parts = text.replace(",", " ").split()
+    try:
+        value = float(parts[0])
+    except (ValueError, IndexError):
+        value = float("nan")
+    unit = parts[1].upper().rstrip(".") if len(parts) > 1 else ""
+    if not (math.isfinite(value) and value > 0) or unit not in _PATH_UNITS_MM:
+        raise SpectrumError(source, line, f"##PATH LENGTH={text!r}: expected a positive number and its unit "
+                                          "(MM, CM or UM), e.g. 0.1 MM")
+    return value * _PATH_UNITS_MM[unit]

@@ -1,7 +1,10 @@
 """Write the Brackwater Point FTIR demo: synthetic spectra and the samples that point to them.
 
 All invented: the spectra are sums of Gaussian bands (synthetic_spectra), with the
-carbonyl band area growing as the oil ages. Deterministic; run with the project's venv:
+carbonyl peak growing as the oil ages, at realistic heights (0.03-0.25 absorbance at
+0.1 mm). The ester oils' own carbonyl saturates a 0.1 mm cell, so their spectra (and
+their new-oil references) are recorded in a 0.025 mm cell and say so in
+`##PATH LENGTH=`; sumpwise normalises them to 0.1 mm. Deterministic; run with the project's venv:
 
     .venv/bin/python scenarios/brackwater/ftir/make_spectra.py
 """
@@ -19,9 +22,9 @@ HERE = Path(__file__).resolve().parent
 SPECTRA = HERE / "spectra"
 
 # (sample id, unit, class, lubricant, date, oil hours, kv40, an, base stock of the spectrum,
-#  carbonyl area added to the new oil (abs*cm-1 at 0.1 mm), nitration area, JCAMP-DX form)
+#  carbonyl peak height added to the new oil (absorbance at 0.1 mm), nitration height, JCAMP-DX form)
 SAMPLES = [
-    ("FT-001", "ST-1", "steam-turbine", "TURB-46-M", "2026-02-02", 40100, 46.4, 0.12, "mineral", 0.02, 0.0, "SQZ"),
+    ("FT-001", "ST-1", "steam-turbine", "TURB-46-M", "2026-02-02", 40100, 46.4, 0.12, "mineral", 0.03, 0.0, "SQZ"),
     ("FT-002", "ST-1", "steam-turbine", "TURB-46-M", "2026-05-04", 42300, 46.9, 0.19, "mineral", 0.06, 0.01, "DIF"),
     ("FT-003", "ST-1", "steam-turbine", "TURB-46-M", "2026-08-03", 44500, 47.6, 0.29, "mineral", 0.11, 0.02,
      "DIFDUP"),
@@ -35,26 +38,36 @@ SAMPLES = [
     ("FT-008", "AC-4", "screw-compressor", "COMP-46-SYN", "2026-11-09", 1600, 46.4, 0.33, "ester", 0.18, 0.0,
      "DIF"),
 ]
+THIN_CELL_MM = 0.025  # the ester oils: a quarter of the 0.1 mm path keeps their carbonyl below saturation
 REFERENCES = [("new-TURB-46-M.jdx", "mineral", "AFFN"), ("new-COMP-46-PE.jdx", "ester", "DIF"),
               ("new-COMP-46-SYN.jdx", "ester", "DIFDUP")]
 BROKEN = ("FT-009", "AC-3", "screw-compressor", "COMP-46-PE", "2026-11-16", 6500, 47.1, 0.36)
+
+
+def _cell(base: str) -> float:
+    return THIN_CELL_MM if base == "ester" else 0.1
 
 
 def main() -> None:
     SPECTRA.mkdir(exist_ok=True)
     x = wavenumber_grid()
     for name, base, form in REFERENCES:
-        write_jcampdx(SPECTRA / name, x, oil_spectrum(x, base_stock=base), form=form,
-                      title=f"Brackwater Point new-oil reference {name[4:-4]} (synthetic)")
+        cell = _cell(base)
+        write_jcampdx(SPECTRA / name, x, oil_spectrum(x, base_stock=base) * cell / 0.1, form=form,
+                      title=f"Brackwater Point new-oil reference {name[4:-4]} (synthetic)",
+                      path_length=f"{cell:g} MM")
     rows = []
     for sid, unit, cls, lub, date, hours, kv40, an, base, oxidation, nitration, form in SAMPLES:
         name = f"{unit}-{date}.jdx"
-        y = oil_spectrum(x, base_stock=base, oxidation=oxidation, nitration=nitration)
-        write_jcampdx(SPECTRA / name, x, y, form=form, title=f"Brackwater Point {unit} {date} (synthetic)")
+        cell = _cell(base)
+        y = oil_spectrum(x, base_stock=base, oxidation=oxidation, nitration=nitration) * cell / 0.1
+        write_jcampdx(SPECTRA / name, x, y, form=form, title=f"Brackwater Point {unit} {date} (synthetic)",
+                      path_length=f"{cell:g} MM")
         rows.append([sid, unit, cls, lub, date, hours, kv40, an, f"spectra/{name}"])
     sid, unit, cls, lub, date, hours, kv40, an = BROKEN
     whole = SPECTRA / "whole.tmp"
-    write_jcampdx(whole, x, oil_spectrum(x, base_stock="ester", oxidation=0.2), form="DIFDUP")
+    write_jcampdx(whole, x, oil_spectrum(x, base_stock="ester", oxidation=0.2) * THIN_CELL_MM / 0.1, form="DIFDUP",
+                  path_length=f"{THIN_CELL_MM:g} MM")
     text = whole.read_text()
     whole.unlink()
     broken = f"{unit}-{date}-truncated.jdx"

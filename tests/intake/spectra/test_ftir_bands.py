@@ -67,12 +67,12 @@ def test_gaussian_carbonyl_area_and_height_match_closed_form():
     values, positions, _ = measure_matrix(X, y[None, :], bands)
     expected_area = _gaussian_area_between(1670, 1800, centre, area, sigma)
     correction = _trapezoid_term(lambda v: _gaussian_slope(v, centre, area, sigma), 1670, 1800)
-    assert values["oxidation"][0] == pytest.approx(expected_area, rel=1e-4)
-    assert values["oxidation"][0] == pytest.approx(expected_area + correction, rel=1e-7)
-    assert values["oxidation_peak"][0] == pytest.approx(area / (sigma * math.sqrt(2 * math.pi)), rel=1e-9)
-    assert positions["oxidation_peak"][0] == centre
+    assert values["oxidation_area"][0] == pytest.approx(expected_area, rel=1e-4)
+    assert values["oxidation_area"][0] == pytest.approx(expected_area + correction, rel=1e-7)
+    assert values["oxidation"][0] == pytest.approx(area / (sigma * math.sqrt(2 * math.pi)), rel=1e-9)
+    assert positions["oxidation"][0] == centre
     quad, _ = integrate.quad(lambda v: gaussian(v, centre, area, sigma), 1670, 1800, points=[centre])
-    assert values["oxidation"][0] == pytest.approx(quad, rel=1e-4)
+    assert values["oxidation_area"][0] == pytest.approx(quad, rel=1e-4)
     assert quad == pytest.approx(expected_area, rel=1e-12)
 
 
@@ -131,8 +131,8 @@ def test_subtraction_reports_abs_per_cm_as_100_times_abs_per_01mm():
     used = new + gaussian(X, 1712, 6.0, 14)
     direct, _, _ = measure_matrix(X, (used - new)[None, :], load_bands())
     differential, _, _ = measure_matrix(X, used[None, :], load_bands(), reference=new)
-    assert differential["oxidation"][0] == pytest.approx(100 * direct["oxidation"][0], rel=1e-12)
-    assert differential["oxidation"][0] == pytest.approx(100 * _gaussian_area_between(1670, 1800, 1712, 6.0, 14), rel=1e-4)
+    assert differential["oxidation_area"][0] == pytest.approx(100 * direct["oxidation_area"][0], rel=1e-12)
+    assert differential["oxidation_area"][0] == pytest.approx(100 * _gaussian_area_between(1670, 1800, 1712, 6.0, 14), rel=1e-4)
 
 
 def test_path_length_normalisation_to_01mm():
@@ -140,7 +140,7 @@ def test_path_length_normalisation_to_01mm():
     y = OFFSET + SLOPE * X + gaussian(X, 1712, 6.0, 14)
     at_01, _, _ = measure_matrix(X, y[None, :], load_bands(), path_length_mm=0.1)
     at_025, _, _ = measure_matrix(X, (0.25 * y)[None, :], load_bands(), path_length_mm=0.025)
-    assert at_025["oxidation"][0] == pytest.approx(at_01["oxidation"][0], rel=1e-12)
+    assert at_025["oxidation_area"][0] == pytest.approx(at_01["oxidation_area"][0], rel=1e-12)
 
 
 def test_block_of_many_spectra_equals_one_at_a_time():
@@ -149,8 +149,8 @@ def test_block_of_many_spectra_equals_one_at_a_time():
     block = OFFSET + SLOPE * X + areas[:, None] * gaussian(X, 1712, 1.0, 14)[None, :]
     bands = load_bands()
     plan = plan_bands(X, bands.bands)
-    together = measure_block(plan, block).values["oxidation"]
-    alone = [measure_block(plan, row[None, :]).values["oxidation"][0] for row in block]
+    together = measure_block(plan, block).values["oxidation_area"]
+    alone = [measure_block(plan, row[None, :]).values["oxidation_area"][0] for row in block]
     np.testing.assert_allclose(together, alone, rtol=1e-12)
     unit = _gaussian_area_between(1670, 1800, 1712, 1.0, 14)
     unit += _trapezoid_term(lambda v: _gaussian_slope(v, 1712, 1.0, 14), 1670, 1800)
@@ -161,13 +161,13 @@ def test_nan_inside_a_band_gives_nan_for_that_band_only():
     y = OFFSET + SLOPE * X
     y[np.searchsorted(X, 1710)] = np.nan
     values, _, _ = measure_matrix(X, y[None, :], load_bands())
-    assert np.isnan(values["oxidation"][0]) and np.isfinite(values["water"][0])
+    assert np.isnan(values["oxidation_area"][0]) and np.isfinite(values["water"][0])
 
 
 def test_grid_not_covering_a_band_is_reported():
     x = wavenumber_grid(700, 4000, 2.0)
     _, _, uncovered = measure_matrix(x, (OFFSET + SLOPE * x)[None, :], load_bands())
-    assert "oxidation" in uncovered and "550-2200" in uncovered["oxidation"]
+    assert "oxidation_area" in uncovered and "550-2200" in uncovered["oxidation_area"]
 
 
 @pytest.mark.parametrize(
@@ -183,10 +183,11 @@ def test_wavenumber_wavelength_conversions(wavenumber, micrometres):
 
 def test_packaged_band_file_names_the_published_set_and_marks_its_sources():
     bands = load_bands()
-    assert bands.names[:8] == ("oxidation", "oxidation_peak", "nitration", "sulfation", "antiwear", "water", "soot",
+    assert bands.names[:8] == ("oxidation", "oxidation_area", "nitration", "sulfation", "antiwear", "water", "soot",
                                "fuel_gasoline")
     oxidation = bands.bands[0]
-    assert oxidation.region == (1670.0, 1800.0) and "D7414" in oxidation.source  # ASTM D7414 5.1
+    # ASTM D7414 5.1 region; graded as a peak height (the direct unit, abs/0.1 mm, is D7414 1.4.1's)
+    assert oxidation.region == (1670.0, 1800.0) and "D7414" in oxidation.source and oxidation.measure == "height"
     assert all(band.status for band in bands.bands)
 
 

@@ -121,13 +121,55 @@ def test_dup_count_read_short_fails_the_y_check():
 
 
 def test_value_lost_mid_file_without_y_check_is_caught_at_the_next_line(tmp_path):
-    # AFFN has no Y-check: drop the last value of data line 5; line 6's X then sits one point (2 cm-1) off.
+    # AFFN has no Y-check: drop the last two values of data line 5; line 6's X then sits two points off,
+    # beyond the one DELTAX a checkpoint may be off (issue 11).
+    x = wavenumber_grid(550, 4000, 2.0)
+    lines = write_jcampdx(tmp_path / "a.jdx", x, oil_spectrum(x), form="AFFN").read_text().split("\n")
+    data = lines.index("##XYDATA=(X++(Y..Y))")
+    lines[data + 5] = lines[data + 5].rsplit(" ", 2)[0]
+    error = _error("\n".join(lines))
+    assert error.line == data + 7 and "missing or extra" in error.reason
+
+
+def test_one_value_lost_is_caught_by_the_count(tmp_path):
     x = wavenumber_grid(550, 4000, 2.0)
     lines = write_jcampdx(tmp_path / "a.jdx", x, oil_spectrum(x), form="AFFN").read_text().split("\n")
     data = lines.index("##XYDATA=(X++(Y..Y))")
     lines[data + 5] = lines[data + 5].rsplit(" ", 1)[0]
     error = _error("\n".join(lines))
-    assert error.line == data + 7 and "missing or extra" in error.reason
+    assert "NPOINTS=1726" in error.reason and "1725 points" in error.reason
+
+
+def test_checkpoints_one_deltax_early_are_read_when_the_count_matches(tmp_path):
+    # issue 11: a public collection writes each line's X one DELTAX before the count read so far.
+    x = wavenumber_grid(550, 4000, 2.0)
+    text = write_jcampdx(tmp_path / "a.jdx", x, oil_spectrum(x), form="AFFN").read_text()
+    lines = text.split("\n")
+    data = lines.index("##XYDATA=(X++(Y..Y))")
+    for k in range(data + 2, len(lines) - 2):
+        first, rest = lines[k].split(" ", 1)
+        lines[k] = f"{float(first) - 2.0:.10g} {rest}"
+    shifted = parse_jcampdx("\n".join(lines), "shifted.jdx")
+    np.testing.assert_array_equal(shifted.wavenumber, x)
+    np.testing.assert_array_equal(shifted.absorbance, parse_jcampdx(text, "a.jdx").absorbance)
+
+
+@pytest.mark.parametrize("npoints", ["nan", "1e400", "inf", "2.5", "-3"])
+def test_non_finite_or_non_whole_npoints_is_a_located_error(npoints):
+    error = _error(HAND.replace("##NPOINTS=", f"##NPOINTS= {npoints} $$").replace("$$ ", "$$", 1))
+    assert "NPOINTS" in error.reason and error.line is not None
+
+
+@pytest.mark.parametrize("unit", ["(micromol/mol)-1m-1", "KUBELKA-MUNK", "REFLECTANCE"])
+def test_other_y_units_are_refused_by_name(unit):
+    error = _error(HAND.replace("##YUNITS= ABSORBANCE", f"##YUNITS= {unit}"))
+    assert unit in error.reason and "refused" in error.reason
+
+
+def test_path_length_label_is_read_in_mm():
+    spectrum = parse_jcampdx(HAND.replace("##YUNITS= ABSORBANCE", "##YUNITS= ABSORBANCE\n##PATH LENGTH= 18 CM CELL"),
+                             "p.jdx")
+    assert spectrum.path_length_mm == 180.0
 
 
 def test_missing_end_names_the_last_line():
@@ -210,7 +252,7 @@ def test_decimal_line_abscissae_are_checked():
     spectrum = parse_jcampdx(DECIMAL_X, "d.jdx")
     np.testing.assert_allclose(spectrum.wavenumber, 1e4 / np.array([4.0, 3.75, 3.5, 3.25, 3.0, 2.75]))
     np.testing.assert_allclose(spectrum.absorbance, [6, 5, 4, 3, 2, 1])
-    error = _error(DECIMAL_X.replace("3.75 5 6", "3.50 5 6"))
+    error = _error(DECIMAL_X.replace("3.75 5 6", "3.25 5 6"))
     assert error.line == 10 and "missing or extra" in error.reason
 
 
@@ -252,3 +294,17 @@ def test_integer_fast_path_and_general_path_agree(tmp_path, form):
     fast_error = _error("\n".join(lines))
     general_error = _error("\n".join(lines).replace("##XYDATA=(X++(Y..Y))\n", "##XYDATA=(X++(Y..Y))\n\n"))
     assert fast_error.reason == general_error.reason and general_error.line == fast_error.line + 1
+
+
+def test_hand_file_with_early_checkpoints_is_read_from_firstx_lastx_npoints():
+    # tests/data/spectra/README.md: checkpoints one DELTAX (2 cm-1) early, count matching NPOINTS
+    spectrum = read_jcampdx(DATA / "hand_checkpoints_early.jdx")
+    np.testing.assert_array_equal(spectrum.wavenumber, 1000 + 2 * np.arange(10))
+    np.testing.assert_allclose(spectrum.absorbance, 0.01 * np.arange(1, 11))
+    assert spectrum.path_length_mm == 0.05
+
+
+def test_hand_file_in_absorption_coefficient_is_refused_by_its_unit():
+    with pytest.raises(SpectrumError) as caught:
+        read_jcampdx(DATA / "hand_absorption_coefficient.jdx")
+    assert "(micromol/mol)-1m-1" in caught.value.reason and caught.value.line == 7

@@ -15,12 +15,13 @@ from sumpwise.intake.spectra.spectrum_csv import parse_spectrum_csv
 from synthetic_spectra import oil_spectrum, wavenumber_grid, write_jcampdx
 
 X = wavenumber_grid()
-CARBONYL = 5.0  # added carbonyl area, abs*cm-1 at 0.1 mm
+CARBONYL = 0.2  # added carbonyl peak height, absorbance at 0.1 mm (a realistic used oil)
 
 
 def _carbonyl_area():
+    area = CARBONYL * 14 * math.sqrt(2 * math.pi)  # Gaussian of height h, sigma 14: area h sigma sqrt(2 pi)
     z = lambda v: (v - 1712) / (14 * math.sqrt(2))
-    return CARBONYL / 2 * (math.erf(z(1800)) - math.erf(z(1670)))
+    return area / 2 * (math.erf(z(1800)) - math.erf(z(1670)))
 
 
 @pytest.fixture
@@ -43,13 +44,20 @@ def test_a_bad_file_rejects_only_itself(files):
     assert "without ##END=" in rejections[0].reason and rejections[0].line is not None
     assert frame.loc[1, "rejection"].startswith(f"{files['broken']}:")
     assert frame.loc[0, "rejection"] == "" and frame.loc[2, "rejection"] == ""
-    assert frame.loc[0, "oxidation"] == pytest.approx(frame.loc[2, "oxidation"], rel=1e-6)
+    assert frame.loc[0, "oxidation_area"] == pytest.approx(frame.loc[2, "oxidation_area"], rel=1e-6)
 
 
-def test_x_range_not_covering_a_band_rejects_naming_the_file_and_line(files):
-    frame, rejections = measure_spectra([files["short"]])
-    assert len(rejections) == 1 and "does not cover band" in rejections[0].reason
-    assert rejections[0].line is not None and np.isnan(frame.loc[0, "oxidation"])
+def test_a_band_outside_the_x_range_is_left_empty_with_a_note_and_the_rest_measured(files):
+    # issue 11: bands one by one; the short file (700-4000 cm-1) misses the 550-650 baseline window
+    frame, rejections = measure_spectra([files["short"]], needed=("water",))
+    assert not rejections and np.isnan(frame.loc[0, "oxidation"]) and np.isfinite(frame.loc[0, "water"])
+    assert "oxidation: not measured: x range 702-4000 cm-1 does not cover" in frame.loc[0, "notes"]
+
+
+def test_x_range_covering_none_of_the_needed_bands_rejects_naming_the_file_and_line(files):
+    frame, rejections = measure_spectra([files["short"]], needed=("oxidation",))
+    assert len(rejections) == 1 and "does not cover band oxidation" in rejections[0].reason
+    assert rejections[0].line is not None and np.isnan(frame.loc[0, "oxidation_area"])
 
 
 def test_direct_method_and_unit_are_recorded(files):
@@ -63,9 +71,9 @@ def test_subtraction_against_the_same_lubricants_new_oil(files):
     assert not rejections
     assert (frame.loc[0, "method"], frame.loc[0, "unit"]) == ("subtraction", "abs/cm")
     # ASTM D7412 12.1-12.2: abs/cm = 100 x abs/0.1 mm; tolerance covers the 2 cm-1 trapezoid error.
-    assert frame.loc[0, "oxidation"] == pytest.approx(100 * _carbonyl_area(), rel=1e-4)
+    assert frame.loc[0, "oxidation_area"] == pytest.approx(100 * _carbonyl_area(), rel=1e-4)
     # a reference measured against itself reads zero
-    for name in ("oxidation", "oxidation_peak", "nitration", "sulfation", "antiwear", "water", "soot"):
+    for name in ("oxidation_area", "oxidation", "nitration", "sulfation", "antiwear", "water", "soot"):
         assert abs(frame.loc[1, name]) < 1e-9, name
 
 
@@ -84,8 +92,10 @@ def test_transmittance_zero_inside_a_band_rejects_that_spectrum(tmp_path):
     t = 10 ** -oil_spectrum(X)
     t[np.searchsorted(X, 1700)] = 0.0
     path = write_jcampdx(tmp_path / "t.jdx", X, t, form="AFFN", y_units="TRANSMITTANCE", significant=9)
-    _, rejections = measure_spectra([path])
-    assert "inside band oxidation" in rejections[0].reason
+    frame, _ = measure_spectra([path], needed=("water",))
+    # no light at 1700 cm-1: the carbonyl bands are not measured (saturated), the spectrum's other bands are
+    assert np.isnan(frame.loc[0, "oxidation"]) and "oxidation: not measured: saturated" in frame.loc[0, "notes"]
+    assert np.isfinite(frame.loc[0, "water"])
 
 
 def test_csv_reader_errors_name_the_line():

@@ -1,0 +1,29 @@
+"""Text columns with a closed vocabulary (FTIR `method`, `base_stock`): canonical spelling per row, or why not."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.vocabulary.base_stocks import canonical_base_stock
+from sumpwise.vocabulary.measures import canonical_method
+
+# column -> function from a cell's text to its canonical spelling (ValueError: refused, with the reason)
+TEXT_VOCABULARIES = {"method": canonical_method, "base_stock": canonical_base_stock}
+
+
+def canonical_texts(column: pd.Series, canonical) -> tuple[pd.Series, np.ndarray]:
+    """(canonical values, reason per row: "" where accepted). Missing cells stay missing; each distinct value is read once."""
+    values = column.to_numpy(dtype=object)
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    spelled, reasons = [], []
+    for text in uniques:
+        try:
+            spelled.append(canonical(text))
+            reasons.append("")
+        except ValueError as exc:
+            spelled.append(text)
+            reasons.append(str(exc))
+    spelled = np.array(spelled + [None], dtype=object)[codes]
+    reasons = np.array(reasons + [""], dtype=object)[codes]
+    return pd.Series(spelled, index=column.index, dtype=object), reasons
