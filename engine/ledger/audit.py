@@ -27,7 +27,7 @@ from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch
                                    ruleset_text, sample_entries, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.render.narrative import explain_lines
-from sumpwise.results.facts import batch_facts, carried_values, result_from_facts
+from sumpwise.results.facts import batch_facts, result_from_facts
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import SampleResult
 from sumpwise.ruleset.compiler import load_ruleset
@@ -63,10 +63,11 @@ def _sample(content: str) -> dict:
     return json.loads(content)
 
 
-def rebuilt_result(content: str, facts: str, vals: str, ruleset: RuleSet, engine: str, columns: str) -> SampleResult:
+def rebuilt_result(content: str, facts: str, vals: str, ruleset: RuleSet, engine: str,
+                   value_names: str) -> SampleResult:
     """A stored verdict with its wording put back from its rule set."""
     return result_from_facts(_parsed(facts), json.loads(vals), _sample(content), ruleset, engine,
-                             carried_values(json.loads(columns), ruleset))
+                             json.loads(value_names))
 
 
 def _number(value) -> str:
@@ -118,7 +119,7 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
         conn.close()
     ruleset = _ruleset_of(path, current)
     result = rebuilt_result(current["content"], current["facts"], current["vals"], ruleset, current["engine"],
-                            current["columns"])
+                            current["value_names"])
     story = explain_lines(result, ruleset.grades)
     values = ", ".join(f"{name} {_number(value)}" for name, value in result.values if value is not None)
     story[1:1] = [f"Values as recorded: {values or '(none)'}; method {result.method}"]
@@ -229,23 +230,32 @@ _TYPED = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "method", 
 
 
 def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame) -> np.ndarray:
-    """Rows whose typed columns (what history and queries read) differ from what recording them
-    from their stored values would write (the re-graded batch's measured frame)."""
+    """Rows whose typed columns (what history and queries read) hold a value that is neither the
+    stored input value nor what recording them now would write (the re-graded measured frame):
+    an engine that derives a column differently since is not an alteration, a value from
+    nowhere is."""
     bad = np.zeros(len(entries), dtype=bool)
     for name in _TYPED:
-        a = pd.Series(entries[name].to_numpy(dtype=object), dtype=object)
-        b = pd.Series(measured[name].to_numpy(dtype=object) if name in measured.columns else None,
-                      index=a.index, dtype=object)
-        if name in ("oil_hours",) + TREND_BASES:
-            a, b = pd.to_numeric(a, errors="coerce"), pd.to_numeric(b, errors="coerce")
-            same = (a == b) | (a.isna() & b.isna())
-        else:
-            same = (a.isna() & b.isna()) | (a.notna() & b.notna() & (a.astype(str) == b.astype(str)))
-        bad |= ~same.to_numpy()
+        stored = pd.Series(entries[name].to_numpy(dtype=object), dtype=object)
+        same = np.zeros(len(entries), dtype=bool)
+        for source in (measured, frame):
+            if name in source.columns:
+                same |= _same(stored, pd.Series(source[name].to_numpy(dtype=object), index=stored.index,
+                                                dtype=object), numeric=name in ("oil_hours",) + TREND_BASES)
+            elif source is measured:
+                same |= stored.isna().to_numpy()
+        bad |= ~same
     flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
         else np.zeros(len(frame), dtype=bool)
     bad |= pd.to_numeric(entries["oil_changed"], errors="coerce").to_numpy() != flags.astype(int)
     return bad
+
+
+def _same(a: pd.Series, b: pd.Series, numeric: bool) -> np.ndarray:
+    if numeric:
+        a, b = pd.to_numeric(a, errors="coerce"), pd.to_numeric(b, errors="coerce")
+        return ((a == b) | (a.isna() & b.isna())).to_numpy()
+    return ((a.isna() & b.isna()) | (a.notna() & b.notna() & (a.astype(str) == b.astype(str)))).to_numpy()
 
 
 def _facts_differ(stored: dict, facts, k: int) -> str:
@@ -333,7 +343,7 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
     history = history[~history["sample_id"].isin(entries["sample_id"])]
     graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
     typed = _typed_mismatch(entries, graded.measured, frame)
-    facts = batch_facts(graded)
+    facts = batch_facts(graded, json.loads(batch["value_names"]))
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
               "vals": entries["vals"].to_numpy(dtype=object),
               "level": pd.to_numeric(entries["level"], errors="coerce").to_numpy(dtype=float)}
@@ -443,8 +453,8 @@ def stored_results(path, batch: int | None = None) -> tuple[list[SampleResult], 
     rulesets = {}
     for sha in dict.fromkeys(row[3] for row in rows):
         rulesets[sha] = _ruleset_of(path, {"canonical": canonical.get(sha, ""), "ruleset_sha256": sha})
-    return [rebuilt_result(content, facts, vals, rulesets[sha], engine, columns)
-            for content, facts, vals, sha, engine, columns in rows], rulesets
+    return [rebuilt_result(content, facts, vals, rulesets[sha], engine, names)
+            for content, facts, vals, sha, engine, names in rows], rulesets
 
 
 @reads_ledger

@@ -111,11 +111,13 @@ STEP_3 = """
     ALTER TABLE batches ADD COLUMN author TEXT;
     ALTER TABLE batches ADD COLUMN previous TEXT NOT NULL DEFAULT '';
     ALTER TABLE batches ADD COLUMN digest TEXT NOT NULL DEFAULT '';
+    ALTER TABLE batches ADD COLUMN value_names TEXT NOT NULL DEFAULT '[]';
 """
 
 DIGEST_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
-    "known_samples, corrections, rejected, conflicts, reason, author, previous FROM batches WHERE batch = ?",
+    "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names FROM batches "
+    "WHERE batch = ?",
     # A sample's content is covered through its fingerprint (replay checks the one against the other,
     # and the typed columns against the content); a shape's facts through the shape's fingerprint.
     "SELECT entry, sample_id, content_sha256, corrects FROM samples WHERE batch = ? ORDER BY entry",
@@ -207,14 +209,21 @@ def _step_3_data(conn: sqlite3.Connection) -> None:
     """Schema-2 record texts become verdicts (shape and values); then the chain is computed."""
     grades = {sha: tuple(json.loads(text).get("grades", ())) for sha, text in
               conn.execute("SELECT sha256, canonical FROM rulesets").fetchall()}
-    cursor = conn.execute("SELECT r.entry, r.grade, r.level, r.record || b.record_tail, b.ruleset_sha256 "
+    names = {}  # batch -> the value names its records carry (one batch's records all carry the same)
+    for batch, record in conn.execute("SELECT s.batch, r.record FROM samples s JOIN results r ON r.entry = s.entry "
+                                      "GROUP BY s.batch").fetchall():
+        names[batch] = list(json.loads(record + "}")["values"])
+    conn.executemany("UPDATE batches SET value_names = ? WHERE batch = ?",
+                     [(json.dumps(value_names), batch) for batch, value_names in names.items()])
+    cursor = conn.execute("SELECT r.entry, r.grade, r.level, r.record || b.record_tail, b.ruleset_sha256, b.batch "
                           "FROM results r JOIN samples s ON s.entry = r.entry JOIN batches b ON b.batch = s.batch "
                           "ORDER BY r.entry")
     while rows := cursor.fetchmany(DIGEST_ROWS):
-        facts = [result_facts(v2_result(json.loads(record), grades[sha])) for _, _, _, record, sha in rows]
+        facts = [result_facts(v2_result(json.loads(record), grades[sha]), names[batch])
+                 for _, _, _, record, sha, batch in rows]
         shapes = shape_ids(conn, [shape for shape, _ in facts])
         conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
-                         [(entry, grade, level, shape, values) for (entry, grade, level, _, _), shape, (_, values)
+                         [(entry, grade, level, shape, values) for (entry, grade, level, *_), shape, (_, values)
                           in zip(rows, shapes, facts)])
     conn.execute("DROP TABLE results")
     conn.execute("UPDATE batches SET record_tail = ''")

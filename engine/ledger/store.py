@@ -440,12 +440,13 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     n_new, n_corrections = int(fresh.sum() - differs.sum()), int(differs.sum())
     cursor = conn.execute(
         "INSERT INTO batches (recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, "
-        "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous) "
-        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous, value_names) "
+        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (datetime.now(timezone.utc).isoformat(timespec="seconds"), batch.source, ruleset.sha256, engine_name(),
          json.dumps(list(frame.columns)), batch.rows_read, n_new, int(known.sum()), n_corrections,
          len(batch.rejects), n_conflicts, correction.reason if correction else None,
-         correction.author if correction else None, previous[0] if previous else ""))
+         correction.author if correction else None, previous[0] if previous else "",
+         json.dumps(list(graded.value_columns))))
     number = cursor.lastrowid
     corrected = by_id["entry"].reindex(ids[differs]).astype(int).tolist()
     conn.executemany("UPDATE samples SET superseded_in = ? WHERE entry = ?", ((number, e) for e in corrected))
@@ -498,12 +499,13 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
     """Every recorded version of a sample, oldest first, with its verdict, batch and rule set."""
     cursor = conn.execute(
         f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
-        f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.reason, b.author, rs.canonical "
+        f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
+        f"rs.canonical "
         f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.sample_id = ? ORDER BY s.entry",
         (sample_id,))
     names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
-             "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "reason", "author",
-             "canonical")
+             "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
+             "author", "canonical")
     return [dict(zip(names, row)) for row in cursor.fetchall()]
 
 
@@ -520,8 +522,8 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
     """Every batch in order, with its rule set's stored text (None when that row is gone)."""
     names = ("batch", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "rows_read", "new_samples",
              "known_samples", "corrections", "rejected", "conflicts", "reason", "author", "previous", "digest",
-             "canonical", "ruleset_id", "version")
-    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:16])}, rs.canonical, rs.ruleset_id, rs.version "
+             "value_names", "canonical", "ruleset_id", "version")
+    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:17])}, rs.canonical, rs.ruleset_id, rs.version "
                         "FROM batches b LEFT JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 ORDER BY b.batch")
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
@@ -552,9 +554,9 @@ def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
 
 
 def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list[tuple]:
-    """(content, facts, vals, ruleset sha256, engine, batch columns) of the current samples, or of one batch."""
+    """(content, facts, vals, ruleset sha256, engine, value names) of the current samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    return conn.execute(f"SELECT s.content, sh.facts, v.vals, b.ruleset_sha256, b.engine, b.columns {_JOINS} "
+    return conn.execute(f"SELECT s.content, sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names {_JOINS} "
                         f"WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ()).fetchall()
 
 

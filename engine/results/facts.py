@@ -15,7 +15,8 @@ identity and input values are not part of either: the ledger keeps them with the
 `batch_facts` finds the distinct shapes of a graded batch from its outcome arrays, builds
 each shape once, and fills the values column by column; `result_facts` does the same for
 one SampleResult (a stored record being migrated, or a test's oracle); both give the same
-text for the same result.
+text for the same result. The values array ends with the record's own values (its input
+measures with their conventions), in the order of names the caller keeps once a batch.
 """
 
 from __future__ import annotations
@@ -31,7 +32,6 @@ from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS
 from sumpwise.results.records import (CaveatNote, Clause, GradedBatch, NotEvaluated, Reason, SampleResult, build_result,
                                       condition_inputs, rule_inputs)
 from sumpwise.ruleset.model import RuleSet
-from sumpwise.vocabulary.measures import INPUT_MEASURES
 
 ENGINE_CAVEATS = {c.id: c for c in TREND_CAVEATS + SPECTRUM_CAVEATS}
 SLOT = "$"  # the key of a per-sample value's place in a shape
@@ -121,10 +121,12 @@ def values_text(values: list) -> str:
     return json.dumps(values, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
 
 
-def result_facts(result: SampleResult) -> tuple[str, str]:
+def result_facts(result: SampleResult, value_names) -> tuple[str, str]:
     """(shape text, values text) of one result: the per-result counterpart of batch_facts."""
     text, placed = _dump(_shape(result, _Value))
-    return text, values_text([_plain(item.value) for item in placed])
+    recorded = dict(result.values)
+    return text, values_text([_plain(item.value) for item in placed] + [_plain(recorded.get(name))
+                                                                         for name in value_names])
 
 
 def _plain(value):
@@ -177,9 +179,14 @@ def _text_literals(values: np.ndarray) -> np.ndarray:
     return table[codes]
 
 
-def batch_facts(batch: GradedBatch) -> BatchFacts:
-    """Every row's shape and values, one template a shape, values filled a column at a time."""
+def batch_facts(batch: GradedBatch, value_names=None) -> BatchFacts:
+    """Every row's shape and values, one template a shape, values filled a column at a time.
+
+    The values array ends with the record's input values, of `value_names` (default: the
+    batch's value columns; replay passes the names a stored batch recorded).
+    """
     n = len(batch)
+    names = list(batch.value_columns if value_names is None else value_names)
     first, group = _shape_groups(batch) if n else (np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp))
     columns: dict = {}
 
@@ -203,6 +210,7 @@ def batch_facts(batch: GradedBatch) -> BatchFacts:
         text, placed = _dump(_shape(build_result(batch, rep, _Slots()), _as_placed))
         shape_index[g] = texts.setdefault(text, len(texts))
         rows = order[bounds[g]:bounds[g + 1]]
+        placed = placed + [_Slot("number", name) for name in names]
         if not placed:
             values[rows] = "[]"
             continue
@@ -224,12 +232,14 @@ def _filled(item, values: list):
 
 
 def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet, engine: str,
-                      value_columns: tuple) -> SampleResult:
+                      value_names) -> SampleResult:
     """A stored result with its wording put back from the rule set it was graded with.
 
-    `shape` is a parsed shape, `values` its parsed values array, `sample` the sample's stored
-    input values (name -> value), `value_columns` the input measures its batch carried.
+    `shape` is a parsed shape, `values` its parsed values array (ending with the values of
+    `value_names`), `sample` the sample's stored input fields (name -> value).
     """
+    value_names = list(value_names)
+    recorded = tuple(zip(value_names, values[len(values) - len(value_names):]))
     class_name = sample.get("class")
     rules = {rule.id: rule for rule in ruleset.rules_for(class_name)} if class_name in ruleset.classes else {}
     caveats = {caveat.id: caveat for caveat in ruleset.caveats}
@@ -257,7 +267,7 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
         not_evaluated=tuple(NotEvaluated(rule, tuple(missing)) for rule, missing in shape["not_evaluated"]),
         notice=ruleset.notice, ruleset_id=ruleset.id, ruleset_version=ruleset.version,
         ruleset_sha256=ruleset.sha256, engine=engine, unrated_because=shape.get("unrated_because"),
-        values=tuple((name, _number(sample.get(name))) for name in value_columns),
+        values=tuple((name, _number(value)) for name, value in recorded),
         method=_text(sample.get("method")), spectrum=_text(sample.get("spectrum")),
         reference_spectrum=_text(sample.get("reference_spectrum")))
 
@@ -268,11 +278,6 @@ def _text(value):
 
 def _number(value):
     return None if value is None else float(value)
-
-
-def carried_values(columns, ruleset: RuleSet) -> tuple:
-    """The input measures a batch with these columns carries into its records (as grade_batch decides)."""
-    return tuple(name for name in list(INPUT_MEASURES) + list(ruleset.measures) if name in columns)
 
 
 def shape_rules(shape: dict) -> list[tuple[str, str]]:

