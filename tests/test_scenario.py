@@ -62,9 +62,8 @@ def test_ftir_walkthrough():
     records = {r["sample_id"]: r for r in map(json.loads, run.out.splitlines())}
     assert records["FT-001"]["method"] == "subtraction"
     # Read by subtraction against its own new-oil spectrum: the subtraction form of the ester caveat; the
-    # class's direct-trend rules are not evaluated on a differential reading, and a caveat says so (issue 11).
-    assert [c["caveat"] for c in records["FT-007"]["caveats"]] == ["ester-subtracted", "base-stock-inferred",
-                                                                   "ftir-other-convention"]
+    # class's direct-trend rules are not evaluated on a differential reading, which its differential rule grades.
+    assert [c["caveat"] for c in records["FT-007"]["caveats"]] == ["ester-subtracted", "base-stock-inferred"]
     # Realistic carbonyl heights (issue 11): ST-1's differential reading climbs 2-17 abs/cm over the year.
     assert [records[s]["grade"] for s in ("FT-001", "FT-002", "FT-003", "FT-004")] == ["normal", "watch", "alert",
                                                                                      "alert"]

@@ -9,6 +9,8 @@ from __future__ import annotations
 import argparse
 import datetime as dt
 
+from sumpwise.cli.options import output_file
+from sumpwise.render.safe_text import terminal_lines
 from sumpwise.ledger.audit import stored_ruleset, stored_samples
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.authoring.compare import compare_rulesets, comparison_lines, same_name_differs
@@ -109,7 +111,7 @@ def run_compare(args, stdout, stderr) -> int:
     numeric = tuple(dict.fromkeys([*old.measures, *new.measures]))
     batch = _read(args, numeric)
     comparison = compare_rulesets(old, new, batch)
-    stdout.write("\n".join(comparison_lines(comparison, args.old, args.new)) + "\n\n")
+    stdout.write("\n".join(terminal_lines(comparison_lines(comparison, args.old, args.new))) + "\n\n")
     stdout.write(caution_text("! ") + "\n")
     return FINDINGS if comparison.moved else OK
 
@@ -147,7 +149,8 @@ def add_propose_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", choices=("auto", "spc", "percentile"), default="auto",
                         help="auto (default): a normality test picks spc or percentile")
     parser.add_argument("--rule-id", metavar="ID", help="id of the proposed rule")
-    parser.add_argument("--out", metavar="PATH", help="write the YAML snippet here instead of standard output")
+    parser.add_argument("--out", metavar="PATH", type=output_file,
+                        help="write the YAML snippet here instead of standard output")
     _sample_options(parser)
 
 

@@ -8,20 +8,20 @@ from __future__ import annotations
 
 import argparse
 import getpass
-import re
-from datetime import date
+import json
 from pathlib import Path
 
+from sumpwise.cli.options import iso_date
 from sumpwise.ledger.audit import (explain_from_ledger, find_samples, ledger_rulesets, recorded_rejects, replay,
                                    replay_lines, stored_ruleset, stored_ruleset_text, unit_history, write_history)
 from sumpwise.ledger.store import DEFAULT_PATH, Correction, grade_into_ledger
+from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.vocabulary.problems import InputError
 
 FINDINGS = 3
-_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 
 
 def add_db_argument(parser: argparse.ArgumentParser, optional_value: bool) -> None:
@@ -55,7 +55,7 @@ def add_history_arguments(parser: argparse.ArgumentParser) -> None:
 
 def add_replay_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser, optional_value=False)
-    parser.add_argument("--since", metavar="DATE", help="only samples taken on or after this ISO date")
+    parser.add_argument("--since", metavar="DATE", type=iso_date, help="only samples taken on or after this ISO date")
 
 
 def add_rulesets_arguments(parser: argparse.ArgumentParser) -> None:
@@ -72,8 +72,8 @@ def add_find_arguments(parser: argparse.ArgumentParser) -> None:
                         help="samples graded exactly this (repeatable)")
     parser.add_argument("--at-least", metavar="LEVEL", type=int, help="samples at this ladder level or higher")
     parser.add_argument("--unit", metavar="UNIT_ID", help="samples of this unit")
-    parser.add_argument("--since", metavar="DATE", help="sampled on or after this ISO date")
-    parser.add_argument("--until", metavar="DATE", help="sampled on or before this ISO date")
+    parser.add_argument("--since", metavar="DATE", type=iso_date, help="sampled on or after this ISO date")
+    parser.add_argument("--until", metavar="DATE", type=iso_date, help="sampled on or before this ISO date")
     parser.add_argument("--ruleset", metavar="FINGERPRINT", help="graded under this rule set (a prefix will do)")
     parser.add_argument("--version", metavar="VERSION", dest="ruleset_version",
                         help="graded under this rule-set version")
@@ -81,18 +81,6 @@ def add_find_arguments(parser: argparse.ArgumentParser) -> None:
                         help="include versions of samples that were later corrected")
     parser.add_argument("--rejects", action="store_true", help="list the recorded rejected rows instead")
     parser.add_argument("--format", choices=("table", "csv", "jsonl"), default="table")
-
-
-def _date(option: str, value: str | None) -> str | None:
-    if value is None:
-        return None
-    if not _DATE.fullmatch(value):
-        raise InputError(f"{option} {value!r}: expected an ISO date, YYYY-MM-DD")
-    try:
-        date.fromisoformat(value)
-    except ValueError:
-        raise InputError(f"{option} {value!r}: not a calendar date") from None
-    return value
 
 
 def grade(args, batch, ruleset, stderr):
@@ -133,7 +121,7 @@ def _other_ruleset(db, rules: str | None):
 
 def run_explain(args, stdout) -> int:
     other = _other_ruleset(args.db, args.rules)
-    stdout.write("\n".join(explain_from_ledger(args.db, args.sample_id, other)) + "\n")
+    stdout.write("\n".join(terminal_lines(explain_from_ledger(args.db, args.sample_id, other))) + "\n")
     return 0
 
 
@@ -143,8 +131,8 @@ def run_history(args, stdout, stderr) -> int:
 
 
 def run_replay(args, stdout, stderr) -> int:
-    report = replay(args.db, _date("--since", args.since))
-    stdout.write("\n".join(replay_lines(report)) + "\n")
+    report = replay(args.db, args.since)
+    stdout.write("\n".join(terminal_lines(replay_lines(report))) + "\n")
     if report.differences:
         stdout.write(caution_text("! ") + "\n")
     return FINDINGS if report.differences else 0
@@ -155,16 +143,17 @@ def run_rulesets(args, stdout, stderr) -> int:
         if args.out:
             raise InputError("sumpwise rulesets: --out needs a FINGERPRINT or ID@VERSION")
         stdout.write(f"{'sha256':<16}  {'id':<24} {'version':>8} {'batches':>8} {'samples':>8}  first recorded\n")
-        for r in ledger_rulesets(args.db):
-            stdout.write(f"{r['sha256'][:16]}  {r['id']:<24} {r['version']:>8} {r['batches']:>8} {r['samples']:>8}  "
-                         f"{r['first'] or '-'}\n")
+        lines = [f"{r['sha256'][:16]}  {r['id']:<24} {r['version']:>8} {r['batches']:>8} {r['samples']:>8}  "
+                 f"{r['first'] or '-'}" for r in ledger_rulesets(args.db)]
+        stdout.write("".join(line + "\n" for line in terminal_lines(lines)))
         return 0
     sha, canonical = stored_ruleset_text(args.db, args.ruleset)
+    text = json.dumps(json.loads(canonical), indent=1, ensure_ascii=False) + "\n"  # one value a line: loadable
     if args.out:
-        Path(args.out).write_text(canonical + "\n", encoding="utf-8")
+        Path(args.out).write_text(text, encoding="utf-8")
         stderr.write(f"sumpwise: rule set {sha} written to {args.out}\n")
     else:
-        stdout.write(canonical + "\n")
+        stdout.write(text)
     return 0
 
 
@@ -173,15 +162,15 @@ def run_find(args, stdout, stderr) -> int:
         found = recorded_rejects(args.db)
     else:
         found = find_samples(args.db, rule=args.rule, grade_at_least=args.at_least, grades=args.grade,
-                             unit=args.unit, since=_date("--since", args.since), until=_date("--until", args.until),
+                             unit=args.unit, since=args.since, until=args.until,
                              ruleset=args.ruleset, version=args.ruleset_version, everything=args.all_versions)
         found = found.drop(columns=["level", "superseded_in"] if not args.all_versions else ["level"])
     if args.format == "csv":
-        found.to_csv(stdout, index=False, lineterminator="\n")
+        spreadsheet_frame(found).to_csv(stdout, index=False, lineterminator="\n")
     elif args.format == "jsonl":
         stdout.write(found.to_json(orient="records", lines=True, force_ascii=False))
     else:
-        stdout.write(found.to_string(index=False) + "\n" if len(found) else "")
+        stdout.write("\n".join(terminal_lines(found.to_string(index=False).splitlines())) + "\n" if len(found) else "")
         stdout.write(f"{len(found)} {'rejected row' if args.rejects else 'sample'}(s)\n")
     return 0
 

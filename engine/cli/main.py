@@ -25,12 +25,13 @@ from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
 from sumpwise.render.table import write_table
+from sumpwise.render.safe_text import spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
-from sumpwise.intake.spectra.batch import check_path_length
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
+from sumpwise.cli.options import output_file, output_folder, positive_mm
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
 
@@ -87,8 +88,9 @@ def _parser(stdout) -> _Parser:
     _common_inputs(grade)
     grade.add_argument("--format", choices=("jsonl", "csv", "table"), default="jsonl",
                        help="output format (default jsonl)")
-    grade.add_argument("--out", metavar="PATH", help="write results here instead of standard output")
-    grade.add_argument("--rejects", metavar="PATH",
+    grade.add_argument("--out", metavar="PATH", type=output_file,
+                       help="write results here instead of standard output")
+    grade.add_argument("--rejects", metavar="PATH", type=output_file,
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
     grade.add_argument("--fail-at", metavar="GRADE",
                        help="exit 3 when any sample reaches this grade or higher")
@@ -105,7 +107,8 @@ def _parser(stdout) -> _Parser:
 
     demo = commands.add_parser("demo", help="grade the shipped Brackwater Point scenario", out=stdout,
                                description="Grade the invented Brackwater Point scenario and print counts.")
-    demo.add_argument("--out", metavar="DIR", default="out", help="folder for the results (default ./out)")
+    demo.add_argument("--out", metavar="DIR", default="out", type=output_folder,
+                      help="folder for the results (default ./out)")
 
     spectra = commands.add_parser("spectra", help="compute FTIR measures from spectra files", out=stdout,
                                   description="Read JCAMP-DX or CSV spectra and write band measures as CSV.")
@@ -158,15 +161,8 @@ def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True)
     parser.add_argument("--reference", action="append", metavar="LUBRICANT=FILE", default=[],
                         help="new-oil reference spectrum of a lubricant: samples of it with a `spectrum` "
                              "are read by spectral subtraction (repeatable; wins over the rule set's)")
-    parser.add_argument("--path-length", type=_positive_mm, default=0.1, metavar="MM",
+    parser.add_argument("--path-length", type=positive_mm, default=0.1, metavar="MM",
                         help="FTIR cell path length of the spectra, mm (default 0.100)")
-
-
-def _positive_mm(text: str) -> float:
-    try:
-        return check_path_length(text, "--path-length")
-    except ValueError as exc:
-        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
@@ -180,21 +176,30 @@ def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
     except _Exit as done:
         return done.status
     except UsageError as exc:
-        stderr.write(f"{exc}\n")
+        stderr.write(_safe_lines(str(exc)))
         return USAGE
     except InvalidFile as exc:
-        stderr.write(f"{exc}\n")
+        stderr.write(_safe_lines(str(exc)))
         stderr.write(f"sumpwise: {len(exc.problems)} problem(s); nothing was graded\n")
         return USAGE
     except InputError as exc:
-        stderr.write(f"sumpwise: {exc}\n")
+        stderr.write(_safe_lines(f"sumpwise: {exc}"))
         return USAGE
     except BrokenPipeError:
         return OK
+    except OSError as exc:  # a file that cannot be opened, read or written: the environment, not a bug
+        where = f" {exc.filename}" if exc.filename else ""
+        stderr.write(_safe_lines(f"sumpwise: cannot use{where}: {exc.strerror or exc}"))
+        return USAGE
     except Exception as exc:  # a bug: say so plainly, and keep it apart from findings
         stderr.write(f"sumpwise: internal error (a bug, please report it): {exc!r}\n")
         traceback.print_exc(file=stderr)
         return INTERNAL
+
+
+def _safe_lines(text: str) -> str:
+    """A message for standard error: its lines kept, input text in it escaped for the terminal."""
+    return "\n".join(terminal_text(line) for line in text.split("\n")) + "\n"
 
 
 def _check(args, stdin, stdout, stderr) -> int:
@@ -216,14 +221,16 @@ def _write_rejects(batch, path, stderr) -> None:
     if path is None:
         for r in batch.rejects:
             who = f" (sample {r.sample_id})" if r.sample_id else ""
-            stderr.write(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}\n")
+            stderr.write(terminal_text(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}")
+                         + "\n")
         return
     with open(path, "w", encoding="utf-8", newline="") as out:
         if str(path).endswith(".csv"):
             writer = csv.writer(out, lineterminator="\n")
             writer.writerow(["file", "row", "sample_id", "field", "code", "reason"])
             for r in batch.rejects:
-                writer.writerow([batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason])
+                writer.writerow([spreadsheet_text(cell) for cell in
+                                 (batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason)])
         else:
             for r in batch.rejects:
                 out.write(dumps({"file": batch.source, "row": r.row, "sample_id": r.sample_id, "field": r.field,

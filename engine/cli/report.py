@@ -7,6 +7,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from sumpwise.cli.options import batch_number, output_file
 from sumpwise.ledger.audit import stored_records, stored_ruleset
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
@@ -18,13 +19,13 @@ def add_arguments(parser) -> None:
     source.add_argument("--results", metavar="FILE", help="JSON Lines results written by `sumpwise grade`")
     source.add_argument("--db", metavar="PATH",
                         help="a ledger: the current result of every recorded sample (or one --batch)")
-    parser.add_argument("--batch", type=int, metavar="N", help="with --db: only the samples batch N recorded")
+    parser.add_argument("--batch", type=batch_number, metavar="N", help="with --db: only the samples batch N recorded")
     parser.add_argument("--rejects", metavar="FILE",
                         help="rejected rows written by `grade --rejects` (.csv or JSON Lines), to count them")
     parser.add_argument("--rules", metavar="RULESET",
                         help="the rule set the results were graded with: draws its limits on the plots")
     parser.add_argument("--title", metavar="TEXT", help="report title (default: the rule set's title)")
-    parser.add_argument("--out", required=True, metavar="PATH", help="the HTML file to write")
+    parser.add_argument("--out", required=True, metavar="PATH", type=output_file, help="the HTML file to write")
 
 
 def _text(path) -> str:

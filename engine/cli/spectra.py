@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from sumpwise.cli.options import output_file
 from sumpwise.intake.spectra.bands import BandFileError, load_bands
 from sumpwise.intake.spectra.batch import (check_dilution, check_path_length, expand_inputs, measure_spectra,
                                            read_spectrum)
@@ -37,7 +38,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="the reference's cell path length in mm, if its file does not say (default: --path-length)")
     parser.add_argument("--dilution", metavar="FACTOR", default="1",
                         help="dilution factor of the used-oil samples (volume diluted / volume of oil; default 1)")
-    parser.add_argument("--out", metavar="FILE", help="write the CSV here instead of standard output")
+    parser.add_argument("--out", metavar="FILE", type=output_file,
+                        help="write the CSV here instead of standard output")
     parser.add_argument("--bands", metavar="FILE", help="band definitions to use instead of the packaged set")
 
 

@@ -52,7 +52,7 @@ REFERENCE_MISMATCH_AREA = -0.5
 SPECTRUM_CAVEATS = (
     EngineCaveat("base-stock-inferred", "base_stock_inferred_note",
                  "sumpwise engine: ester carbonyl band of the lubricant's new-oil reference spectrum "
-                 "(band position: Tormos et al. 2012 and IR correlation tables; threshold: our estimate, "
+                 "(band position: Tribology Transactions 55 (2012) 872 and IR correlation tables; threshold: our estimate, "
                  "see the band file)"),
     EngineCaveat("base-stock-conflict", "base_stock_conflict_note",
                  "sumpwise engine: declared base stock against the new-oil reference spectrum"),
@@ -120,7 +120,6 @@ def measure_sample_spectra(batch: SampleBatch, ruleset: RuleSet, references: dic
         frame, bad = _measure(frame, refs, Path(batch.source).parent if batch.source != "<stdin>" else Path("."),
                               path_length_mm)
         rejects.extend(bad)
-    frame["ftir_convention_note"] = _convention_notes(frame, ruleset)
     rejects.sort(key=lambda r: (r.row, r.field))
     return replace(batch, frame=frame, rejects=tuple(rejects))
 
@@ -262,25 +261,33 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     return frame[keep], bad
 
 
-def _convention_notes(frame: pd.DataFrame, ruleset: RuleSet) -> np.ndarray:
-    """Per row: which of its class's rules read FTIR oxidation in the other convention (not evaluated on it)."""
-    notes = np.full(len(frame), None, dtype=object)
-    if "oxidation" not in frame.columns or "class" not in frame.columns:
+def convention_notes(measured: pd.DataFrame, ruleset: RuleSet) -> np.ndarray:
+    """Per row: the class's rules written for the other FTIR convention, when none of its rules grades the
+    row's own reading, so the reading would otherwise go ungraded without a word.
+
+    Read from the measured frame (a differential reading sits in `oxidation_differential`, a direct
+    one in `oxidation`), so a DataFrame graded through the API gets the same caveat as a file. Where
+    the class has rules for both conventions, the other convention's rules are simply not this
+    reading's: a caveat on every FTIR sample would be noise that hides the caveats that matter.
+    """
+    notes = np.full(len(measured), None, dtype=object)
+    if "class" not in measured.columns:
         return notes
-    present = pd.to_numeric(frame["oxidation"], errors="coerce").notna().to_numpy()
-    method = _text(frame, "method")
-    classes = _text(frame, "class")
-    for cls in pd.unique(classes[present]):
-        if cls not in ruleset.classes:
+    classes = measured["class"].to_numpy(dtype=object)
+    words = {"direct": "direct-trend", "subtraction": "differential (spectral subtraction)"}
+    for convention, other, column in (("direct", "subtraction", "oxidation"),
+                                      ("subtraction", "direct", "oxidation_differential")):
+        if column not in measured.columns:
             continue
-        for convention, other in (("direct", "subtraction"), ("subtraction", "direct")):
-            reading = (method == convention) | ((method == "") & (convention == "direct"))
-            at = present & (classes == cls) & reading
-            if not at.any():
+        present = measured[column].notna().to_numpy()
+        for cls in pd.unique(classes[present]):
+            if cls not in ruleset.classes:
                 continue
-            ids = [rule.id for rule in ruleset.rules_for(cls) if rule.reads & set(OXIDATION_CONVENTIONS[other])]
-            if ids:
-                words = {"direct": "direct-trend", "subtraction": "differential (spectral subtraction)"}
-                notes[at] = (f"the FTIR oxidation reading is {words[convention]}; rule(s) {', '.join(ids)} are "
-                             f"written for {words[other]} readings and are not evaluated on it")
+            rules = ruleset.rules_for(cls)
+            ids = [rule.id for rule in rules if rule.reads & set(OXIDATION_CONVENTIONS[other])]
+            graded = [rule.id for rule in rules if rule.reads & set(OXIDATION_CONVENTIONS[convention])]
+            if ids and not graded:
+                notes[present & (classes == cls)] = (
+                    f"the FTIR oxidation reading is {words[convention]}; rule(s) {', '.join(ids)} are "
+                    f"written for {words[other]} readings and are not evaluated on it")
     return notes

@@ -27,6 +27,7 @@ from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch
                                    ruleset_text, sample_entries, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.render.narrative import explain_lines
+from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.facts import batch_facts, result_from_facts
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import SampleResult
@@ -46,8 +47,8 @@ def ruleset_from_canonical(canonical: str, sha256: str) -> RuleSet | None:
         return None
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "ruleset.json"
-        path.write_text(canonical, encoding="utf-8")
-        try:
+        try:  # one value a line: the canonical text is one long line, over the rule-set loader's line limit
+            path.write_text(json.dumps(json.loads(canonical), indent=0), encoding="utf-8")
             ruleset = load_ruleset(path)
         except Exception:  # a stored text that no longer loads is as good as altered
             return None
@@ -183,16 +184,16 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
 
 def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table") -> None:
     if fmt == "csv":
-        unit.to_csv(stream, index=False, lineterminator="\n")
+        spreadsheet_frame(unit).to_csv(stream, index=False, lineterminator="\n")
     elif fmt == "jsonl":
         stream.write(unit.to_json(orient="records", lines=True, force_ascii=False))
     else:
-        stream.write(f"Unit {unit_id}: {len(unit)} sample(s) in the ledger\n")
-        stream.write("\n".join(trend_table(unit)) + "\n")
+        lines = [f"Unit {unit_id}: {len(unit)} sample(s) in the ledger", *trend_table(unit)]
         fired = unit[unit["fired"] != ""]
         for row in fired.itertuples():
-            stream.write(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
-                         + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else "") + "\n")
+            lines.append(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
+                         + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else ""))
+        stream.write("\n".join(terminal_lines(lines)) + "\n")
         stream.write("\n" + caution_text("! ") + "\n")
 
 

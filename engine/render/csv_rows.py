@@ -14,6 +14,7 @@ import pandas as pd
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.render.jsonl import states
+from sumpwise.render.safe_text import spreadsheet_frame
 from sumpwise.results.records import UNRATED, GradedBatch, gap_at, record_shape_groups, rule_inputs
 
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "grade", "level", "fired", "caveats",
@@ -109,4 +110,4 @@ def csv_frame(batch: GradedBatch) -> pd.DataFrame:
 
 
 def write_csv(batch: GradedBatch, stream) -> None:
-    csv_frame(batch).to_csv(stream, index=False, lineterminator="\n")
+    spreadsheet_frame(csv_frame(batch)).to_csv(stream, index=False, lineterminator="\n")

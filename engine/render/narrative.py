@@ -7,6 +7,8 @@ import textwrap
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.results.records import SampleResult
+from sumpwise.render.safe_text import terminal_lines
+
 
 def _number(value) -> str:
     if value is None:
@@ -109,4 +111,4 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
     lines.extend(wrap(f"Notice: {result.notice}"))
     lines.append("")
     lines.extend(wrap("Cautions: " + " ".join(CAUTIONS)))
-    return lines
+    return terminal_lines(lines)  # ids and values come from a lab's file

@@ -18,6 +18,7 @@ import pandas as pd
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.version import engine_name
 from sumpwise.results.records import UNRATED, GradedBatch, record_shape_groups
+from sumpwise.render.safe_text import terminal_column, terminal_text
 
 WIDTH = 100
 PROGRESS_MIN_ROWS = 50_000  # a shorter table is written in a blink: no progress
@@ -60,7 +61,8 @@ def _why(result) -> str:
 def _text_column(measured: pd.DataFrame, name: str) -> pd.Series:
     if name not in measured.columns:
         return pd.Series([""] * len(measured), dtype=object)
-    return measured[name].astype(object).where(measured[name].notna(), "").astype(str).reset_index(drop=True)
+    text = measured[name].astype(object).where(measured[name].notna(), "").astype(str).reset_index(drop=True)
+    return terminal_column(text)  # a lab's text, escaped before widths are measured
 
 
 def table_rows(batch: GradedBatch, width: int = WIDTH) -> tuple[str, pd.Series]:
@@ -83,7 +85,7 @@ def table_rows(batch: GradedBatch, width: int = WIDTH) -> tuple[str, pd.Series]:
     shapes = [batch.result(int(i)) for i in firsts]  # one record per shape, not per row
     grade_text = np.array([_cut(f"{_cut(r.grade, name_w)} {grade_marker(r.level)}", grade_w).ljust(grade_w)
                            for r in shapes], dtype=object)
-    why_text = np.array([_cut(_why(r), rest) for r in shapes], dtype=object)
+    why_text = np.array([_cut(terminal_text(_why(r)), rest) for r in shapes], dtype=object)
     lines = (_cut_column(sample_ids, sid) + "  " + _cut_column(units, unit) + "  " + _cut_column(classes, cls)
              + "  " + pd.Series(grade_text[group]) + "  " + pd.Series(why_text[group]))
     return head + "why", lines.str.rstrip()

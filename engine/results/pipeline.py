@@ -13,7 +13,7 @@ from sumpwise.vocabulary.measures import INPUT_MEASURES
 from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
-from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, spectrum_caveat_flags
+from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
 from sumpwise.derive.trends import (TREND_CAVEATS, add_trend_measures, noise_margins, read_oil_changes, trend_bases,
@@ -33,6 +33,7 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
                                   noise_margins(ruleset, bases))
     for column in SPECTRUM_COLUMNS:
         measured[column] = batch.frame[column] if column in batch.frame.columns else None
+    measured["ftir_convention_note"] = convention_notes(measured, ruleset)
     outcome = evaluate(ruleset, measured)
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
                                                   spectrum_caveat_flags(measured)]))

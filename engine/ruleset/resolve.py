@@ -130,6 +130,12 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
     merged = Resolved(top=doc, incomplete=bool(spoiled))
     for target, at in _extends_list(doc_clean.data):
         parent_path = Path(os.path.normpath(path.parent / target))
+        try:
+            parent_path.resolve().is_file()
+        except (OSError, ValueError) as exc:  # a name too long, or holding a NUL byte
+            problems.append(doc.problem(at, f"extends names '{target[:80]}', which cannot be a file name: "
+                                            f"{getattr(exc, 'strerror', None) or exc}", code="R003"))
+            continue
         if parent_path.resolve() in stack + (key,):
             chain = " -> ".join(str(p) for p in stack + (key, parent_path.resolve()))
             problems.append(doc.problem(at, f"extends makes a cycle: {chain}", code="R002"))

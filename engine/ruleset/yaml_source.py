@@ -4,17 +4,37 @@ Plain loaders forget line numbers and silently keep the last of two equal keys;
 both would leave the person writing limits guessing. Here every mapping key and
 value keeps its 1-based line and column, and a repeated key is a problem naming
 both lines.
+
+A rule set may come from anyone, so loading is bounded whatever the content: the
+limits below are checked on the raw text and on the parser's events, before any
+value is built, so an alias bomb, a recursive alias or deep nesting ends in a
+problem with its line instead of a hang or a RecursionError. Numbers must be
+finite and text must be printable: a `.nan` limit would never be crossed, and a
+control character would reach a terminal.
 """
 
 from __future__ import annotations
 
 import datetime as dt
+import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import yaml
 
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
+
+
+# Limits for one YAML file (the README's "Limits" section states them). The shipped
+# rule sets are under 8 kB, 111 characters a line and 400 values each.
+MAX_FILE_BYTES = 1_000_000
+MAX_LINE_CHARS = 4_000
+MAX_DEPTH = 64
+MAX_VALUES = 50_000  # values after expanding every alias: bounds "billion laughs"
+
+# C0 controls but tab, LF and CR; DEL and C1 controls but NEL; lone surrogates; non-characters.
+_UNPRINTABLE = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x84\x86-\x9f\ud800-\udfff\ufffe\uffff]")
 
 
 @dataclass(frozen=True)
@@ -52,8 +72,70 @@ def _mark(node: yaml.Node) -> Mark:
 _PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
 
 
+class _TooBig(Exception):
+    """A limit crossed while reading events: carries the problem to report."""
+
+    def __init__(self, mark, message: str, code: str):
+        self.mark, self.message, self.code = mark, message, code
+
+
+# libyaml when present: the pure-Python parser is much slower, and loading time is one of
+# the bounds. Both give nodes with marks; some error messages differ.
+_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+
+
+def _check_events(text: str) -> None:
+    """Walk the parser's events once, counting depth and values with aliases expanded.
+
+    The parser is iterative, so this pass cannot recurse; the composer and the builder
+    that follow do recurse and expand aliases, so they run only once this pass found
+    the document within MAX_DEPTH and MAX_VALUES (raises _TooBig otherwise).
+    """
+    open_: list[list] = []  # per open collection: [anchor, values inside, height]
+    sizes: dict = {}  # anchor -> (values, height) of the node it names
+    total = 0
+    for event in yaml.parse(text, Loader=_LOADER):
+        if isinstance(event, yaml.CollectionStartEvent):
+            if len(open_) >= MAX_DEPTH:
+                raise _TooBig(event.start_mark, f"nesting deeper than {MAX_DEPTH} levels", "Y009")
+            values, height = 1, 0
+            open_.append([event.anchor, 0, 0])
+            parent = open_[-2] if len(open_) > 1 else None
+        elif isinstance(event, yaml.CollectionEndEvent):
+            anchor, inside, height = open_.pop()
+            if anchor is not None:
+                sizes[anchor] = (inside + 1, height + 1)
+            if open_:
+                open_[-1][1] += inside  # the collection itself was counted at its start
+                open_[-1][2] = max(open_[-1][2], height + 1)
+            continue
+        elif isinstance(event, yaml.ScalarEvent):
+            values, height = 1, 0
+            if event.anchor is not None:
+                sizes[event.anchor] = (1, 0)
+            parent = open_[-1] if open_ else None
+        elif isinstance(event, yaml.AliasEvent):
+            if any(entry[0] == event.anchor for entry in open_):
+                raise _TooBig(event.start_mark, f"the alias *{event.anchor} refers to a value that holds it "
+                                                "(a recursive alias)", "Y010")
+            values, height = sizes.get(event.anchor, (1, 0))
+            if len(open_) + height > MAX_DEPTH:
+                raise _TooBig(event.start_mark, f"the alias *{event.anchor} nests values deeper than "
+                                                f"{MAX_DEPTH} levels", "Y009")
+            parent = open_[-1] if open_ else None
+        else:
+            continue
+        total += values
+        if total > MAX_VALUES:
+            raise _TooBig(event.start_mark, f"more than {MAX_VALUES:,} values once aliases are expanded "
+                                            "(an alias bomb?)", "Y009")
+        if parent is not None:
+            parent[1] += values
+            parent[2] = max(parent[2], height)
+
+
 class _Builder:
-    def __init__(self, file: str, loader: yaml.SafeLoader):
+    def __init__(self, file: str, loader):
         self.file = file
         self.loader = loader
         self.value_marks: dict = {}
@@ -69,9 +151,31 @@ class _Builder:
             return self._mapping(node, path)
         if isinstance(node, yaml.SequenceNode):
             return [self.build(item, path + (i,)) for i, item in enumerate(node.value)]
-        value = self.loader.construct_object(node, deep=True)
+        value = self._scalar(node, path)
         if isinstance(value, (dt.date, dt.datetime)):
             return value.isoformat()
+        return value
+
+    def _scalar(self, node: yaml.Node, path: tuple):
+        """Construct one scalar, refusing what would mislead later: non-finite numbers, unprintable text."""
+        try:
+            value = self.loader.construct_object(node, deep=True)
+        except (ValueError, OverflowError) as exc:  # e.g. an integer of more digits than Python converts
+            raise yaml.constructor.ConstructorError(None, None, f"cannot be read as a value: {exc}",
+                                                    node.start_mark) from None
+        if isinstance(value, bytes):
+            raise yaml.constructor.ConstructorError(None, None, "binary data is not allowed", node.start_mark)
+        mark = _mark(node)
+        if isinstance(value, float) and not math.isfinite(value):
+            self.problems.append(Problem(self.file, mark.line, mark.column,
+                                         f"a number must be finite, found {node.value!r}", json_path(path),
+                                         code="Y007"))
+        elif isinstance(value, int) and not isinstance(value, bool) and abs(value) > _LARGEST_INT:
+            self.problems.append(Problem(self.file, mark.line, mark.column,
+                                         f"the number {_short(node.value)} is too large for a float",
+                                         json_path(path), code="Y007"))
+        elif isinstance(value, str) and _UNPRINTABLE.search(value):
+            self.problems.append(_unprintable(self.file, mark, value, json_path(path)))
         return value
 
     def _mapping(self, node: yaml.MappingNode, path: tuple) -> dict:
@@ -79,7 +183,7 @@ class _Builder:
         result: dict = {}
         first_seen: dict = {}
         for key_node, value_node in node.value:
-            key = self.loader.construct_object(key_node, deep=True)
+            key = self._scalar(key_node, path) if isinstance(key_node, yaml.ScalarNode) else None
             if not isinstance(key, (str, int, float, bool)) or key is None:
                 mark = _mark(key_node)
                 self.problems.append(Problem(self.file, mark.line, mark.column,
@@ -100,12 +204,50 @@ class _Builder:
         return result
 
 
+_LARGEST_INT = int(1.7976931348623157e308)  # the largest finite float, as an integer
+
+
+def _short(text: str) -> str:
+    return text if len(text) <= 24 else f"{text[:12]}...{text[-6:]} ({len(text)} characters)"
+
+
+def _unprintable(file: str, mark: Mark, text: str, path: str) -> Problem:
+    found = _UNPRINTABLE.search(text).group()
+    return Problem(file, mark.line, mark.column,
+                   f"text may not hold the control character or lone surrogate U+{ord(found):04X}",
+                   path, code="Y008")
+
+
+def _text_problem(text: str, file: str) -> Problem | None:
+    """A limit the raw text crosses (size, line length, an unprintable character), with its line."""
+    if len(text) > MAX_FILE_BYTES:
+        return Problem(file, 0, 0, f"the file is larger than {MAX_FILE_BYTES:,} characters", code="Y009")
+    for number, line in enumerate(text.split("\n"), start=1):
+        if len(line) > MAX_LINE_CHARS:
+            return Problem(file, number, MAX_LINE_CHARS + 1,
+                           f"line {number} is longer than {MAX_LINE_CHARS:,} characters", code="Y009")
+    found = _UNPRINTABLE.search(text)
+    if found:
+        line = text.count("\n", 0, found.start()) + 1
+        column = found.start() - (text.rfind("\n", 0, found.start()) + 1) + 1
+        return _unprintable(file, Mark(line, column), found.group(), "$")
+    return None
+
+
 def parse_yaml(text: str, file: str) -> YamlDocument:
-    """Parse one YAML document safely; raise InvalidFile listing every problem found."""
-    loader = yaml.SafeLoader(text)
+    """Parse one YAML document safely and within the limits; raise InvalidFile listing the problems."""
+    problem = _text_problem(text, file)
+    if problem is not None:
+        raise InvalidFile([problem])
+    loader = None
     try:
         try:
+            _check_events(text)
+            loader = _LOADER(text)
             root = loader.get_single_node()
+        except _TooBig as exc:
+            raise InvalidFile([Problem(file, exc.mark.line + 1, exc.mark.column + 1, exc.message,
+                                       code=exc.code)]) from None
         except yaml.MarkedYAMLError as exc:
             mark = exc.problem_mark or exc.context_mark
             line, column = (mark.line + 1, mark.column + 1) if mark else (0, 0)
@@ -123,16 +265,29 @@ def parse_yaml(text: str, file: str) -> YamlDocument:
             raise InvalidFile([Problem(file, mark.line + 1 if mark else 0, mark.column + 1 if mark else 0,
                                        f"not a plain YAML value: {exc.problem}", code="Y005")]) from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
     if builder.problems:
         raise InvalidFile(builder.problems)
     return YamlDocument(file, data, builder.value_marks, builder.key_marks)
 
 
 def load_yaml(path: Path) -> YamlDocument:
-    """Read and parse a YAML file; an unreadable file is a problem, not a traceback."""
+    """Read and parse a YAML file; an unreadable, oversized or non-UTF-8 file is a problem, not a traceback."""
     try:
-        text = Path(path).read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
+        with open(path, "rb") as handle:
+            raw = handle.read(MAX_FILE_BYTES + 1)
+    except (OSError, ValueError) as exc:  # ValueError: a NUL byte in the path
         raise InvalidFile([Problem(str(path), 0, 0, f"cannot read the file: {exc}", code="Y006")]) from None
+    if len(raw) > MAX_FILE_BYTES:
+        raise InvalidFile([Problem(str(path), 0, 0, f"the file is larger than {MAX_FILE_BYTES:,} bytes",
+                                   code="Y009")])
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw.count(b"\n", 0, exc.start) + 1
+        column = exc.start - (raw.rfind(b"\n", 0, exc.start) + 1) + 1
+        raise InvalidFile([Problem(str(path), line, column,
+                                   f"the byte 0x{raw[exc.start]:02X} is not UTF-8 (save the file as UTF-8)",
+                                   code="Y011")]) from None
     return parse_yaml(text, str(path))

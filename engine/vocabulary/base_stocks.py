@@ -7,7 +7,7 @@ mixture is written with `+` (`mineral+ester`) and kept in this vocabulary's orde
 
 The family a rule set's caveats test (`base_stock_family`) groups the names by what
 matters to FTIR oxidation: any carbonyl ester (diester, polyol ester, or an ester not
-further named) puts its own C=O band in the oxidation window (Tormos et al., Tribology
+further named) puts its own C=O band in the oxidation window (Tribology
 Transactions 55 (2012) 872); a phosphate ester has no carbonyl (P=O and P-O-C bands,
 standard IR correlation tables, from memory), so it is not in that family.
 """

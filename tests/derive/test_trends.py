@@ -180,7 +180,8 @@ def test_rules_on_trend_measures_grade_and_say_what_was_lacking():
     assert [(r.rule, r.grade, r.value) for r in fourth.reasons][0] == ("carbonyl-jump", "alert", 7.5)
     assert "viscosity-keeps-rising" in {r.rule for r in fourth.reasons}  # 46.0, 46.5, 47.0, 47.5: three rises
     broken = graded.find("T-05")
-    assert [c.caveat for c in broken.caveats] == ["trend-break"]
+    # its reading is now differential, and this class grades only direct-trend oxidation: said, not silent
+    assert [c.caveat for c in broken.caveats] == ["trend-break", "ftir-other-convention"]
     assert "method changed from direct to subtraction and lab changed from lab-a to lab-b" in broken.caveats[0].message
     changed = graded.find("T-06")
     assert [c.caveat for c in changed.caveats] == ["oil-changed"]

@@ -94,9 +94,23 @@ def test_a_differential_reading_is_never_graded_by_a_direct_limit_and_the_revers
     assert "carbonyl-differential" in {n.rule for n in direct.not_evaluated}
     assert [r.rule for r in differential.reasons] == ["carbonyl-differential"]
     assert "carbonyl-rise" in {n.rule for n in differential.not_evaluated}
-    notes = {c.caveat: c.message for c in differential.caveats}
-    assert "carbonyl-rise are written for direct-trend readings" in notes["ftir-other-convention"]
+    # the class grades both conventions, so neither reading goes ungraded: no caveat on every FTIR sample
+    assert "ftir-other-convention" not in {c.caveat for c in direct.caveats + differential.caveats}
     assert [(r.rule, r.grade, r.capped_from) for r in ester.reasons] == [("carbonyl-differential", "watch", "alert")]
+
+
+def test_a_reading_no_rule_of_its_convention_grades_is_said_on_the_sample(tmp_path):
+    (tmp_path / "rules.yaml").write_text(RULES.replace(
+        "      - {id: carbonyl-differential, measure: oxidation_differential, above: {watch: 8, alert: 15}, message: m,\n"
+        "         source: test fixture}\n", ""))
+    (tmp_path / "samples.csv").write_text("sample_id,class,lubricant,oxidation,an,method\n"
+                                          "S,pump,MIN-46,40,0.1,differential\n")
+    rs = load_ruleset(tmp_path / "rules.yaml")
+    graded = grade_batch(measure_sample_spectra(read_samples(tmp_path / "samples.csv"), rs, None), rs)
+    result = graded.find("S")
+    notes = {c.caveat: c.message for c in result.caveats}
+    assert "carbonyl-rise are written for direct-trend readings" in notes["ftir-other-convention"]
+    assert "carbonyl-rise" in {n.rule for n in result.not_evaluated}
 
 
 def test_ester_caveat_matches_every_member_of_the_family(tmp_path):

@@ -1,6 +1,6 @@
 """Ester base stock inference from a new-oil spectrum.
 
-Source: ester carbonyl bands at 1770-1725 cm-1 (Tormos et al., Tribology
+Source: ester carbonyl bands at 1770-1725 cm-1 (Tribology
 Transactions 55 (2012) 872, per ftir.md, confirmed). The 0.5 abs/0.1 mm
 threshold is the packaged band file's choice (no published source); the
 synthetic spectra are invented for the test.

@@ -1,0 +1,72 @@
+"""Option value types shared by the commands: each refuses a bad value while the command line is read.
+
+argparse turns an ArgumentTypeError into a usage error (exit 2) naming the option, so a
+bad value stops the command before any input is read or any ledger is written.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import re
+from pathlib import Path
+
+from sumpwise.intake.spectra.batch import check_path_length
+
+
+def positive_mm(text: str) -> float:
+    """A cell path length in mm, by the spectra reader's own rule (finite, above 0, at most 10)."""
+    try:
+        return check_path_length(text, "path length")
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def batch_number(text: str) -> int:
+    """A ledger batch number: a whole number from 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a batch number (1, 2, ...), found {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"batch numbers start at 1, found {text!r}")
+    return value
+
+
+def iso_date(text: str) -> str:
+    """A calendar date written YYYY-MM-DD; kept as text, the form the ledger compares."""
+    try:
+        if not re.fullmatch(r"\d{4}-\d{2}-\d{2}", text):
+            raise ValueError
+        dt.date.fromisoformat(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a calendar date YYYY-MM-DD, found {text!r}") from None
+    return text
+
+
+def output_file(text: str) -> str:
+    """A file the command may create or replace: not a folder, in a folder that exists."""
+    if not text or "\x00" in text:
+        raise argparse.ArgumentTypeError(f"expected a file name, found {text!r}")
+    path = Path(text)
+    try:
+        if path.is_dir():
+            raise argparse.ArgumentTypeError(f"{text} is a folder; name a file to write")
+        parent = path.parent
+        if not parent.is_dir():
+            raise argparse.ArgumentTypeError(f"cannot write {text}: the folder {parent} does not exist")
+    except OSError as exc:  # a name too long for the file system
+        raise argparse.ArgumentTypeError(f"cannot write {text[:80]}: {exc.strerror}") from None
+    return text
+
+
+def output_folder(text: str) -> str:
+    """A folder the command may create: not an existing file."""
+    if not text or "\x00" in text:
+        raise argparse.ArgumentTypeError(f"expected a folder name, found {text!r}")
+    try:
+        if Path(text).exists() and not Path(text).is_dir():
+            raise argparse.ArgumentTypeError(f"{text} is a file; name a folder")
+    except OSError as exc:
+        raise argparse.ArgumentTypeError(f"cannot use {text[:80]}: {exc.strerror}") from None
+    return text
