@@ -24,6 +24,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_grade.py
 	$(BIN)/python benchmarks/bench_spectra.py
 	$(BIN)/python benchmarks/bench_ledger.py
+	$(BIN)/python benchmarks/bench_report.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache

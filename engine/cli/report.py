@@ -1,6 +1,6 @@
 """The `report` command: read results (and rejects, and the rule set), write one HTML file.
 
-The file reading lives here; engine/report_html.py turns records into HTML.
+The file reading lives here; sumpwise.render.html_report turns records into HTML.
 """
 
 from __future__ import annotations
@@ -23,7 +23,8 @@ def add_arguments(parser) -> None:
     parser.add_argument("--rejects", metavar="FILE",
                         help="rejected rows written by `grade --rejects` (.csv or JSON Lines), to count them")
     parser.add_argument("--rules", metavar="RULESET",
-                        help="the rule set the results were graded with: draws its limits on the plots")
+                        help="the rule set the results were graded with: plots what each class's rules read, "
+                             "with its limits")
     parser.add_argument("--title", metavar="TEXT", help="report title (default: the rule set's title)")
     parser.add_argument("--out", required=True, metavar="PATH", type=output_file, help="the HTML file to write")
 
@@ -37,11 +38,13 @@ def _text(path) -> str:
         raise InputError(f"{path}: not UTF-8 text (byte {exc.start})") from None
 
 
-def write_report(results, out, rejects=None, rules=None, title: str = "", db=None, batch=None) -> dict:
+def write_report(results, out, rejects=None, rules=None, title: str = "", db=None, batch=None,
+                 forecasts=()) -> dict:
     """Read the inputs, write the report; returns counts for the command's summary line.
 
     From a ledger (`db`), the rule set the results were graded with comes from the ledger
-    too, unless `rules` names one.
+    too, unless `rules` names one. `forecasts` are the grading's own (Forecast records), when
+    the caller graded the samples itself; results files do not carry them.
     """
     if db is not None:
         records = parse_results(stored_records(db, batch), f"ledger {db}")
@@ -54,7 +57,8 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
         ruleset = stored_ruleset(db, records[0]["ruleset"]["sha256"])
     else:
         ruleset = None
-    html = render_report(records, rejected, ruleset, title=title or "", rejects_given=rejects is not None)
+    html = render_report(records, rejected, ruleset, title=title or "", rejects_given=rejects is not None,
+                         forecasts=forecasts)
     Path(out).write_text(html, encoding="utf-8")
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
     return {"records": len(records), "flagged": flagged, "rejected": len(rejected), "bytes": len(html.encode())}

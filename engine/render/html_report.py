@@ -1,10 +1,12 @@
 """One self-contained HTML report of a graded batch: records in, HTML text out.
 
 No scripts, fonts, images or links to anything outside the file: it opens from a USB
-stick and prints. Trend plots are inline SVG (svg_plot.py). When the rule set is given,
-the plots show the quantities its limits apply to (rise over new oil, change from new
-oil), computed with the rule set's new-oil values, with the limits drawn as lines;
-without it they show the lab values as reported and draw no limits.
+stick and prints. The report renders, it does not compute: every plotted value, grade,
+oil change and next step is read from the records the engine wrote (`derived` and
+`values`, `oil_changed` and the `oil-changed` caveat, the reasons). The rule set, when
+given, says which measures each class's rules read (those are plotted) and where its
+ladder limits lie (those are drawn); without it the plots follow the records' findings.
+Trend plots are inline SVG (svg_plot.py), always against the sample date.
 """
 
 from __future__ import annotations
@@ -15,37 +17,24 @@ import json
 from collections import Counter
 from dataclasses import dataclass
 from datetime import date
+from functools import lru_cache
 from html import escape
 
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
+from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
-from sumpwise.ruleset.model import LadderRule, RuleSet
-from sumpwise.render.svg_plot import LimitLine, Mark, Plot, Point, grade_look, marker_icon, render_plot
+from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
+from sumpwise.render.narrative import step_phrase
+from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
+                                      render_plot)
 
 UNRATED = "unrated"
+OIL_CHANGED_CAVEAT = "oil-changed"  # the caveat the engine raises on the first sample of a new charge
 
-_REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "notice": str,
-             "ruleset": dict, "engine": str}
-
-
-@dataclass(frozen=True)
-class Trend:
-    """What one trend plot shows: the lab value, the derived measure its limits apply to."""
-
-    raw: str
-    derived: str
-    derived_title: str
-    derived_unit: str
-    raw_title: str
-    raw_unit: str
-
-
-TRENDS = (
-    Trend("oxidation", "oxidation_rise", "Oxidation rise over new oil", "abs/cm", "Oxidation (FTIR)", "abs/cm"),
-    Trend("an", "an_rise", "Acid number rise over new oil", "mg KOH/g", "Acid number", "mg KOH/g"),
-    Trend("kv40", "kv40_change_pct", "Viscosity change at 40 °C", "%", "Viscosity at 40 °C", "mm2/s"),
-)
+_REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "ruleset": dict, "engine": str}
+# Keys a record may lack (older formats, the compact form) but that must have this type when present.
+_OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool}
 
 
 def parse_results(lines, name: str) -> tuple:
@@ -65,6 +54,10 @@ def parse_results(lines, name: str) -> tuple:
             if not isinstance(record.get(key), kind):
                 found = "nothing" if key not in record else type(record[key]).__name__
                 raise InputError(f"{name}: line {number}: field '{key}': expected {kind.__name__}, found {found}")
+        for key, kind in _OPTIONAL.items():
+            if key in record and record[key] is not None and not isinstance(record[key], kind):
+                raise InputError(f"{name}: line {number}: field '{key}': expected {kind.__name__}, "
+                                 f"found {type(record[key]).__name__}")
         level = record.get("level", "absent")
         if not (level is None or (isinstance(level, int) and not isinstance(level, bool) and level >= 0)):
             raise InputError(f"{name}: line {number}: field 'level': expected a whole number >= 0 or null, "
@@ -116,140 +109,140 @@ def _reject(row: dict, name: str, number: int) -> dict:
             "field": str(row["field"]), "reason": str(row["reason"])}
 
 
+# -- what the records say ----------------------------------------------------------------------
+
 @dataclass(frozen=True)
-class UnitView:
-    """One unit's samples in date order and where it stands."""
+class Ladder:
+    """The grade ladder, lowest first: from the rule set, else the (level, grade) pairs the records show.
 
-    unit_id: str
-    class_name: str
-    lubricant: str
-    samples: tuple
-    latest_level: int | None
-    trend: str  # worsening, steady, improving, single sample
-    worst_level: int | None
-    flagged: int
+    Records need not show every grade (a quiet batch has no urgent sample, a batch may have no
+    normal one); a level no record shows is named 'level N', so the ladder never has holes.
+    """
+
+    names: tuple
+
+    @classmethod
+    def of(cls, records, ruleset: RuleSet | None) -> "Ladder":
+        if ruleset is not None:
+            return cls(tuple(ruleset.grades))
+        seen: dict[int, str] = {}
+        for record in records:
+            level = record.get("level")
+            if level is None:
+                continue
+            if seen.setdefault(level, record["grade"]) != record["grade"]:
+                raise InputError(f"records name level {level} both '{seen[level]}' and '{record['grade']}'; "
+                                 f"they cannot come from one rule set")
+        top = max(seen, default=-1)
+        return cls(tuple(seen.get(level, f"level {level}") for level in range(top + 1)))
+
+    def name(self, level: int | None) -> str:
+        return UNRATED if level is None else self.names[level]
+
+    def level(self, grade: str) -> int | None:
+        """The level of a grade name, or None (unrated, or a grade no record placed on the ladder)."""
+        return self.names.index(grade) if grade in self.names else None
 
 
-_TREND_RANK = {"worsening": 2, "steady": 1, "single sample": 1, "improving": 0}
+def recorded_value(record: dict, measure: str):
+    """The value the engine recorded for a measure on this sample, or None.
+
+    `derived` (the derived measures the engine computed and graded), then `values` (the lab
+    readings), then a reason or clause that names the measure (older records carry derived
+    values only where a rule fired). Nothing is computed here.
+    """
+    for block in (record.get("derived"), record.get("values")):
+        if block and measure in block:
+            return _number_or_none(block[measure])
+    for reason in record["reasons"]:
+        if reason.get("measure") == measure:
+            return _number_or_none(reason.get("value"))
+        for clause in reason.get("clauses") or ():
+            if clause.get("measure") == measure and clause.get("test") != "missing":
+                return _number_or_none(clause.get("value"))
+    return None
 
 
-def _rank(level: int | None) -> float:
-    """Unrated sits above the lowest grade: an unknown state needs a look, but less than a finding."""
-    return 0.5 if level is None else float(level)
+def _number_or_none(value):
+    return float(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else None
+
+
+def starts_charge(record: dict) -> bool:
+    """The engine marked this sample as the first of a new oil charge: the flag it read, or its caveat."""
+    return record.get("oil_changed") is True or any(c.get("caveat") == OIL_CHANGED_CAVEAT for c in record["caveats"])
+
+
+def _reason_measures(reason: dict) -> list[str]:
+    if reason.get("measure"):
+        return [reason["measure"]]
+    return [c["measure"] for c in reason.get("clauses") or () if c.get("measure")]
+
+
+def _day(text) -> int | None:
+    """An ISO date as a day number (the plots' x), or None when there is none."""
+    try:
+        return date.fromisoformat(str(text)[:10]).toordinal()
+    except ValueError:
+        return None
+
+
+def _sample_date(record: dict) -> int | None:
+    return _day(record.get("sampled_on"))
 
 
 def _sample_key(record: dict) -> tuple:
     return (record.get("sampled_on") or "9999", record["sample_id"])
 
 
-def unit_views(records) -> list[UnitView]:
-    """Units ordered for attention: latest grade, then worsening first, then the batch's worst grade."""
-    by_unit: dict[str, list] = {}
-    for record in records:
-        by_unit.setdefault(record.get("unit_id") or "(no unit)", []).append(record)
-    views = []
-    for unit_id, samples in by_unit.items():
-        samples = sorted(samples, key=_sample_key)
-        latest = samples[-1].get("level")
-        if len(samples) == 1:
-            trend = "single sample"
-        else:
-            before = _rank(samples[-2].get("level"))
-            trend = "worsening" if _rank(latest) > before else "improving" if _rank(latest) < before else "steady"
-        levels = [s["level"] for s in samples if s.get("level") is not None]
-        views.append(UnitView(unit_id, samples[-1].get("class") or "", samples[-1].get("lubricant") or "",
-                              tuple(samples), latest, trend, max(levels) if levels else None,
-                              sum(1 for s in samples if (s.get("level") or 0) > 0)))
-    return sorted(views, key=lambda v: (-_rank(v.latest_level), -_TREND_RANK[v.trend],
-                                        -_rank(v.worst_level), v.unit_id))
+# -- what each unit's plots show ---------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Watched:
+    """A measure a class's rules read, and what the report knows about it."""
+
+    measure: str
+    limits: tuple  # LimitLine, from the class's ladder rules on it
+    worse: int  # +1 when a higher value is worse, -1 when lower is, 0 when both ways or unknown
+    unit: str = ""
 
 
-def grade_names(records, ruleset: RuleSet | None) -> tuple:
-    """The ladder: from the rule set, else the grades the records show, by level."""
+def watched_measures(ruleset: RuleSet | None, class_name: str, samples) -> list[Watched]:
+    """The measures to plot for a unit, in rule order; oil hours are on every plot's tooltip instead.
+
+    With the rule set: every measure its class's rules read. Without it: the measures the
+    unit's findings name, then the derived measures its records carry.
+    """
     if ruleset is not None:
-        return tuple(ruleset.grades)
-    seen = {r["level"]: r["grade"] for r in records if r.get("level") is not None}
-    return tuple(seen[level] for level in sorted(seen))
+        names: list[str] = []
+        for rule in ruleset.rules_for(class_name):
+            names.extend([rule.measure] if isinstance(rule, LadderRule) else condition_measures(rule.when))
+    else:
+        names = [m for s in samples for r in s["reasons"] for m in _reason_measures(r)]
+        names += [m for s in samples for m, v in (s.get("derived") or {}).items() if v is not None]
+    watched = []
+    for name in dict.fromkeys(names):
+        if name == "oil_hours":
+            continue
+        lines = tuple(limit_lines(ruleset, class_name, name)) if ruleset is not None else ()
+        unit = ruleset.unit_of(name) if ruleset is not None else next(
+            (r["unit"] for s in samples for r in s["reasons"] if r.get("measure") == name and r.get("unit")),
+            measure_unit(name))
+        watched.append(Watched(name, lines, _worse_way(ruleset, class_name, name, samples), unit))
+    return watched
 
 
-def _level_of(grades: tuple, grade: str) -> int | None:
-    return grades.index(grade) if grade in grades else None
-
-
-def _number(value) -> str:
-    if value is None:
-        return "missing"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, float):
-        return f"{value:.6g}"
-    if isinstance(value, list):
-        return " to ".join(_number(v) for v in value)
-    return str(value)
-
-
-def limit_text(test: str | None, limit, unit: str | None = None) -> str:
-    """A limit as words: 'above 0.2 mg KOH/g', 'between 40 and 60', 'one of a, b'."""
-    return limit_phrase(test, limit, _number, unit)
-
-
-def _x_axis(samples) -> tuple[str, list]:
-    """Sample date when every sample has one, else oil hours, else the order in the batch."""
-    try:
-        return "date", [date.fromisoformat(str(s.get("sampled_on"))[:10]).toordinal() for s in samples]
-    except ValueError:
-        pass
-    hours = [(s.get("values") or {}).get("oil_hours") for s in samples]
-    if all(isinstance(h, (int, float)) for h in hours):
-        return "hours", [float(h) for h in hours]
-    return "order", [float(k + 1) for k in range(len(samples))]
-
-
-def oil_changes(samples) -> list[int]:
-    """Indexes of samples that start a new oil charge: flagged oil_changed, or oil hours going down."""
-    starts = []
-    for k in range(1, len(samples)):
-        values, before = samples[k].get("values") or {}, samples[k - 1].get("values") or {}
-        flagged = values.get("oil_changed") in (True, 1, "true", "yes")
-        hours, prior = values.get("oil_hours"), before.get("oil_hours")
-        went_down = isinstance(hours, (int, float)) and isinstance(prior, (int, float)) and hours < prior
-        if flagged or went_down:
-            starts.append(k)
-    return starts
-
-
-def _new_oil(ruleset: RuleSet, record: dict, name: str):
-    lubricant = ruleset.lubricants.get(record.get("lubricant") or "")
-    return getattr(lubricant, name) if lubricant is not None else None
-
-
-def plotted_value(trend: Trend, record: dict, ruleset: RuleSet | None):
-    """The y value of one sample on a trend plot, or None when it cannot be drawn."""
-    values = record.get("values") or {}
-    raw = values.get(trend.raw)
-    if not isinstance(raw, (int, float)) or isinstance(raw, bool):
-        return None
-    subtraction = (record.get("method") or "direct") == "subtraction"
-    if ruleset is None:
-        return None if trend.raw == "oxidation" and subtraction else float(raw)
-    for reason in record["reasons"]:
-        if reason.get("measure") == trend.derived and isinstance(reason.get("value"), (int, float)):
-            return float(reason["value"])
-    new = 0.0 if trend.raw == "oxidation" and subtraction else _new_oil(ruleset, record, trend.raw)
-    if new is None:
-        return None
-    if trend.derived == "kv40_change_pct":
-        return round((raw - new) / new * 100.0, 9) if new else None
-    return round(raw - new, 9)
-
-
-def _point_level(trend: Trend, record: dict, grades: tuple) -> int | None:
-    """The grade this plot's own rule gave the sample (the lowest grade when it did not fire)."""
-    if record.get("level") is None:
-        return None
-    fired = [_level_of(grades, r["grade"]) for r in record["reasons"] if r.get("measure") == trend.derived]
-    fired = [level for level in fired if level is not None]
-    return max(fired) if fired else 0
+def _worse_way(ruleset: RuleSet | None, class_name: str, measure: str, samples) -> int:
+    """Which way is worse for a measure: from the class's ladder rules, else from the tests its findings name."""
+    if ruleset is not None:
+        tests = {rule.test for rule in ruleset.rules_for(class_name)
+                 if isinstance(rule, LadderRule) and rule.measure == measure}
+    else:
+        tests = {r.get("test") for s in samples for r in s["reasons"] if r.get("measure") == measure}
+    if tests == {"above"}:
+        return 1
+    if tests == {"below"}:
+        return -1
+    return 0
 
 
 def limit_lines(ruleset: RuleSet, class_name: str, measure: str) -> list[LimitLine]:
@@ -270,127 +263,271 @@ def limit_lines(ruleset: RuleSet, class_name: str, measure: str) -> list[LimitLi
     return lines
 
 
-def unit_plots(view: UnitView, ruleset: RuleSet | None, grades: tuple) -> list[Plot]:
+def moving_worse(series: list, charge_start: int, worse: int) -> bool:
+    """The last three recorded values of the current oil charge each moved the way the limits call worse.
+
+    Two moves in a row, not one, so a single noisy reading does not call a trend.
+    """
+    if worse == 0:
+        return False
+    values = [v for v in series[charge_start:] if v is not None][-3:]
+    return len(values) == 3 and all((b - a) * worse > 0 for a, b in zip(values, values[1:]))
+
+
+@dataclass(frozen=True)
+class UnitView:
+    """One unit's samples in date order, the measures its rules read, and where it stands."""
+
+    unit_id: str
+    class_name: str
+    lubricant: str
+    samples: tuple
+    watched: tuple  # Watched, flagged measures first
+    series: dict  # measure -> the recorded value of each sample (None where the record has none)
+    latest_level: int | None
+    grade_move: str  # up, down, same, single sample
+    rising: tuple  # measures whose recorded values are moving toward their limits
+    worst_level: int | None
+    flagged: int
+
+    @property
+    def worsening(self) -> bool:
+        return self.grade_move == "up" or bool(self.rising)
+
+    @property
+    def trend(self) -> str:
+        """The trend column: what the grades and the values say, in words."""
+        words = {"up": "grade up", "down": "grade down", "same": "grade steady", "single sample": "one sample"}
+        text = words[self.grade_move]
+        if self.rising:
+            text += "; worsening: " + ", ".join(self.rising)
+        return text
+
+
+def _rank(level: int | None) -> float:
+    """Unrated sits above the lowest grade: an unknown state needs a look, but less than a finding."""
+    return 0.5 if level is None else float(level)
+
+
+def unit_views(records, ruleset: RuleSet | None = None) -> list[UnitView]:
+    """Units ordered for attention: latest grade, then worsening (grade or values) first, then the worst grade."""
+    by_unit: dict[str, list] = {}
+    for record in records:
+        by_unit.setdefault(record.get("unit_id") or "(no unit)", []).append(record)
+    views = []
+    for unit_id, samples in by_unit.items():
+        samples = sorted(samples, key=_sample_key)
+        latest = samples[-1]
+        class_name = latest.get("class") or ""
+        watched = watched_measures(ruleset, class_name, samples)
+        fired = [m for s in reversed(samples) for r in s["reasons"] for m in _reason_measures(r)]
+        order = {m: k for k, m in enumerate(dict.fromkeys(fired))}
+        watched = sorted(watched, key=lambda w: order.get(w.measure, len(order)))
+        if len(samples) == 1:
+            move = "single sample"
+        else:
+            before, now = _rank(samples[-2].get("level")), _rank(latest.get("level"))
+            move = "up" if now > before else "down" if now < before else "same"
+        series = {w.measure: [recorded_value(s, w.measure) for s in samples] for w in watched}
+        charge = max([k for k, s in enumerate(samples) if starts_charge(s)], default=0)
+        rising = tuple(w.measure for w in watched if moving_worse(series[w.measure], charge, w.worse))
+        levels = [s["level"] for s in samples if s.get("level") is not None]
+        views.append(UnitView(unit_id, class_name, latest.get("lubricant") or "", tuple(samples), tuple(watched),
+                              series, latest.get("level"), move, rising, max(levels) if levels else None,
+                              sum(1 for s in samples if (s.get("level") or 0) > 0)))
+    return sorted(views, key=lambda v: (-_rank(v.latest_level), not v.worsening, -_rank(v.worst_level), v.unit_id))
+
+
+def _point_level(measure: str, record: dict, ladder: Ladder) -> int | None:
+    """The grade the rules reading this measure gave the sample (the lowest grade when none fired)."""
+    if record.get("level") is None:
+        return None
+    fired = [ladder.level(r["grade"]) for r in record["reasons"] if measure in _reason_measures(r)]
+    fired = [level for level in fired if level is not None]
+    return max(fired) if fired else 0
+
+
+def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
+    hours = (record.get("values") or {}).get("oil_hours")
+    parts = [record["sample_id"], record.get("sampled_on") or ""]
+    if isinstance(hours, (int, float)) and not isinstance(hours, bool):
+        parts.append(f"oil hours {hours:g}")
+    return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}"
+
+
+def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: dict) -> tuple:
+    """The engine's forecasts for this unit and measure as lines to the limit (dated ones only:
+    the x axis is the sample date). A forecast is a dict as derive.forecast.Forecast.to_record gives;
+    `dates` maps the unit's sample ids to their day numbers."""
+    drawn = []
+    for f in forecasts:
+        if f.get("unit_id") != view.unit_id or f.get("measure") != measure:
+            continue
+        x0, x1 = dates.get(f.get("sample_id")), _day(f.get("on"))
+        if x0 is None or x1 is None:
+            continue
+        drawn.append(Projection(x0, float(f["value"]), x1, float(f["limit"]), ladder.level(f["grade"]) or 0,
+                                forecast_text(f), _day(f.get("on_low")), _day(f.get("on_high"))))
+    return tuple(drawn)
+
+
+def forecast_text(f: dict) -> str:
+    """A forecast in words, with its band and the number of samples it was fitted on."""
+    unit = f" {f['unit']}" if f.get("unit") else ""
+    return (f"{f['rule']}: {f['measure']} reaches the {f['grade']} limit ({_number(f['limit'])}{unit}) about "
+            f"{f.get('on') or _number(f.get('at_hours')) + ' oil hours'}; band {f.get('on_low') or 'now'} to "
+            f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge")
+
+
+def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
+    """One plot per watched measure, against the sample date; each oil charge is its own line."""
     samples = view.samples
-    x_kind, xs = _x_axis(samples)
-    starts = oil_changes(samples)
+    xs = [_sample_date(s) for s in samples]
+    dates = dict(zip((s["sample_id"] for s in samples), xs))
+    forecasts = [f for f in forecasts if f.get("unit_id") == view.unit_id]
+    starts = [k for k in range(1, len(samples)) if starts_charge(samples[k])]
     bounds = [0] + starts + [len(samples)]
-    marks = ()
-    if x_kind != "hours":
-        marks = tuple(Mark((xs[k - 1] + xs[k]) / 2, "oil changed") for k in starts)
+    marks = tuple(Mark((xs[k - 1] + xs[k]) / 2, "oil changed") for k in starts
+                  if xs[k] is not None and xs[k - 1] is not None)
+    undated = sum(1 for x in xs if x is None)
     plots = []
-    for trend in TRENDS:
-        ys = [plotted_value(trend, s, ruleset) for s in samples]
+    for watched in view.watched:
+        unit = watched.unit
+        ys = view.series[watched.measure]
         runs = []
         for first, end in zip(bounds, bounds[1:]):
-            run = tuple(Point(xs[k], ys[k], _point_level(trend, samples[k], grades),
-                              f"{samples[k]['sample_id']} {samples[k].get('sampled_on') or ''}: {ys[k]:.4g}")
-                        for k in range(first, end) if ys[k] is not None)
+            run = tuple(Point(xs[k], ys[k], _point_level(watched.measure, samples[k], ladder),
+                              _tooltip(samples[k], watched.measure, ys[k], unit))
+                        for k in range(first, end) if ys[k] is not None and xs[k] is not None)
             if run:
                 runs.append(run)
-        skipped = sum(1 for s, y in zip(samples, ys) if y is None and
-                      isinstance((s.get("values") or {}).get(trend.raw), (int, float)))
-        note = f"{skipped} value(s) not drawn: " + (
-            "no new-oil value in the rule set" if ruleset is not None else
-            "subtraction readings are rises, not lab values") if skipped else ""
-        if ruleset is not None:
-            plots.append(Plot(trend.derived_title, trend.derived_unit, x_kind, tuple(runs),
-                              tuple(limit_lines(ruleset, view.class_name, trend.derived)), marks, 0.0, note))
-        else:
-            plots.append(Plot(trend.raw_title, trend.raw_unit, x_kind, tuple(runs), (), marks, None, note))
+        notes = []
+        if undated and any(y is not None for y in ys):
+            notes.append(f"{undated} sample(s) without a date not drawn")
+        if any("derived" not in s and watched.measure not in (s.get("values") or {}) for s in samples):
+            notes.append("these records carry this value only where a rule on it fired")
+        note = "; ".join(notes)
+        plots.append(Plot(watched.measure, unit, tuple(runs), watched.limits, marks, note,
+                          projections(view, watched.measure, forecasts, ladder, dates)))
     return plots
 
 
 _CSS = """
-@page { size: A4; margin: 12mm 12mm 12mm 12mm; }
+@page { size: A4; margin: 11mm 11mm 11mm 11mm; }
 * { box-sizing: border-box; }
 html { color: #1f1f1c; background: #ffffff; }
 body { margin: 0; font: 10.5pt/1.45 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; }
 .frame { width: 100%; border-collapse: collapse; }
 .frame > thead td, .frame > tfoot td { padding: 0; }
-.frame > tbody > tr > td { padding: 0 0 0 0; vertical-align: top; }
+.frame > tbody > tr > td { padding: 0; vertical-align: top; }
 .wrap { max-width: 1180px; margin: 0 auto; padding: 0 22px; }
-.band { border-bottom: 2px solid #4f7390; padding: 8px 0 6px; font-size: 8.5pt; color: #3b3b37;
-        display: flex; justify-content: space-between; gap: 12px; flex-wrap: wrap; }
-.band.foot { border-bottom: 0; border-top: 1px solid #b9b5aa; margin-top: 16px; }
-.band code { font-size: 8pt; word-break: break-all; }
+.band { border-bottom: 2px solid #4f7390; padding: 6px 0 5px; font-size: 8pt; color: #3b3b37;
+        display: flex; justify-content: space-between; gap: 4px 12px; flex-wrap: wrap; }
+.band.foot { border-bottom: 0; border-top: 1px solid #b9b5aa; margin-top: 14px; }
+.band code { font-size: 7.5pt; word-break: break-all; }
+.band .notice { flex-basis: 100%; font-size: 7.5pt; }
 h1 { font-size: 19pt; font-weight: 600; margin: 14px 0 2px; letter-spacing: 0.01em; }
-h2 { font-size: 13.5pt; font-weight: 600; margin: 22px 0 8px; padding-bottom: 3px;
+h2 { font-size: 13.5pt; font-weight: 600; margin: 20px 0 8px; padding-bottom: 3px;
      border-bottom: 1px solid #d8d4ca; }
-h3 { font-size: 11.5pt; margin: 0 0 4px; }
+h3 { font-size: 11.5pt; margin: 0; }
+h4 { font-size: 9.5pt; margin: 8px 0 2px; letter-spacing: 0.02em; color: #3b3b37; }
 .sub { color: #55534c; margin: 0 0 10px; }
 .cautions { border: 1.5px solid #6b1d4a; background: #fbf6f8; padding: 8px 14px; margin: 12px 0; }
 .cautions ul { margin: 4px 0 0 0; padding-left: 18px; }
 .cautions strong { letter-spacing: 0.03em; }
 .notice { font-size: 9pt; color: #44423c; }
-table.grid { border-collapse: collapse; margin: 4px 0 10px; font-size: 9.5pt; }
-table.grid th, table.grid td { border-bottom: 1px solid #e2dfd6; padding: 3px 9px 3px 0; text-align: left;
+table.grid { border-collapse: collapse; margin: 2px 0 8px; font-size: 9pt; }
+table.grid th, table.grid td { border-bottom: 1px solid #e2dfd6; padding: 2px 9px 2px 0; text-align: left;
                                vertical-align: top; }
 table.grid th { font-weight: 600; color: #3b3b37; border-bottom: 1.5px solid #8c887e; }
 table.grid td.n, table.grid th.n { text-align: right; padding-left: 10px; }
 .grade { white-space: nowrap; font-weight: 600; }
+table.grid td.when { white-space: nowrap; }
+table.attention { font-size: 8.5pt; }
+table.earlier { font-size: 8.5pt; }
 .mk { vertical-align: -2px; margin-right: 4px; }
 .legend { display: flex; flex-wrap: wrap; gap: 6px 18px; font-size: 9pt; margin: 6px 0 10px; }
 .stats { display: flex; flex-wrap: wrap; gap: 10px; margin: 6px 0 12px; }
 .stat { border: 1px solid #d8d4ca; padding: 6px 12px; min-width: 110px; }
 .stat b { display: block; font-size: 15pt; font-weight: 600; }
-.unit { border-top: 1.5px solid #8c887e; padding-top: 10px; margin-top: 18px; }
-.unit-head { display: flex; justify-content: space-between; flex-wrap: wrap; gap: 8px; }
-.plots { display: grid; grid-template-columns: repeat(3, 1fr); gap: 10px; margin: 8px 0; }
+.unit { border-top: 1.5px solid #8c887e; padding-top: 8px; margin-top: 16px; }
+.unit-head { display: flex; justify-content: space-between; align-items: baseline; flex-wrap: wrap; gap: 8px; }
+.latest { border-left: 4px solid #b9b5aa; padding: 2px 0 2px 12px; margin: 6px 0 4px; }
+.todo { margin: 4px 0 6px; padding-left: 20px; }
+.todo li { margin: 1px 0; }
+.plots { display: grid; grid-template-columns: repeat(4, 1fr); gap: 8px; margin: 6px 0; }
 .plots figure { margin: 0; break-inside: avoid; }
-.plots figcaption { font-size: 8pt; color: #55534c; }
+.plots figcaption { font-size: 7.5pt; color: #55534c; }
 svg.plot { width: 100%; height: auto; display: block; font-family: "DejaVu Sans", Arial, sans-serif; }
-.sample { border-left: 4px solid #b9b5aa; padding: 4px 0 4px 12px; margin: 10px 0 12px; break-inside: avoid; }
-.sample .reason-msg { color: #33322e; }
-.sample .src { color: #55534c; font-size: 9pt; }
+.reason-msg { color: #33322e; }
+.src { color: #55534c; font-size: 8.5pt; }
 .capped { font-weight: 400; color: #55534c; }
 ul.tight { margin: 2px 0 4px; padding-left: 18px; }
 .muted { color: #66645c; }
 @media print {
-  body { font-size: 9.5pt; }
+  body { font-size: 9pt; }
   .wrap { max-width: none; padding: 0; }
-  h2 { break-after: avoid; }
-  .unit { break-before: auto; }
-  .unit-head, .plots { break-inside: avoid; }
+  h2, h4 { break-after: avoid; }
+  .unit-head, .plots figure, .latest, tr { break-inside: avoid; }
   a { color: inherit; text-decoration: none; }
 }
 """
 
 
+def _number(value) -> str:
+    if value is None:
+        return "missing"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    if isinstance(value, list):
+        return " to ".join(_number(v) for v in value)
+    return str(value)
+
+
+def limit_text(test: str | None, limit, unit: str | None = None) -> str:
+    """A limit as words: 'above 0.2 mg KOH/g', 'between 40 and 60', 'one of a, b'."""
+    return limit_phrase(test, limit, _number, unit)
+
+
+@lru_cache(maxsize=256)
 def _grade_cell(grade: str, level: int | None) -> str:
     return f'<span class="grade">{marker_icon(level)}{escape(grade)}</span>'
 
 
-def _band(meta: dict, cls: str) -> str:
-    return (f'<div class="band {cls}"><span>sumpwise report · rule set <b>{escape(meta["id"])}</b> '
-            f'version {escape(str(meta.get("version")))} · {escape(meta["engine"])}</span>'
-            f'<span>fingerprint sha256 <code>{escape(meta["sha256"])}</code></span>'
-            + (f'<span class="muted">{escape(CAUTIONS[0])} Limits of the manufacturer, the supplier and the site '
-               f'take precedence.</span>' if cls == "foot" else "") + '</div>')
+def _band(meta: dict, cls: str, notice: str) -> str:
+    """The band printed at the top and the foot of every page; the foot carries the notice, once a page."""
+    parts = [f'<div class="band {cls}"><span>sumpwise report · rule set <b>{escape(meta["id"])}</b> '
+             f'version {escape(str(meta.get("version")))} · {escape(meta["engine"])}</span>'
+             f'<span>fingerprint sha256 <code>{escape(meta["sha256"])}</code></span>']
+    if cls == "foot":
+        parts.append(f'<span class="notice">Notice: {escape(notice)} {escape(CAUTIONS[0])}</span>')
+    return "".join(parts) + "</div>"
 
 
-def _legend(grades: tuple) -> str:
+def _legend(ladder: Ladder) -> str:
     items = [f"<span>{_grade_cell(g, k)} <span class='muted'>{grade_look(k).shape_name}</span></span>"
-             for k, g in enumerate(grades)]
+             for k, g in enumerate(ladder.names)]
     items.append(f"<span>{_grade_cell(UNRATED, None)} <span class='muted'>{grade_look(None).shape_name}</span>"
                  f"</span>")
     return '<div class="legend" aria-label="grade markers">' + "".join(items) + "</div>"
 
 
-def _summary(records, rejects, grades: tuple, rejects_given: bool) -> str:
+def _summary(records, rejects, ladder: Ladder, rejects_given: bool) -> str:
     by_grade = Counter(r["grade"] for r in records)
     unrated = by_grade.get(UNRATED, 0)
     rejected_rows = len({(r["file"], r["row"]) for r in rejects})
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
-    stats = [("samples graded", len(records) - unrated), ("flagged (above " + escape(grades[0]) + ")"
-              if grades else "flagged", flagged), ("unrated", unrated)]
-    stats.append(("rejected rows", rejected_rows) if rejects_given else ("rejected rows", "not given"))
+    lowest = ladder.names[0] if ladder.names else "the lowest grade"
+    stats = [("samples graded", len(records) - unrated), (f"flagged (above {escape(lowest)})", flagged),
+             ("unrated", unrated), ("rejected rows", rejected_rows if rejects_given else "not given")]
     parts = ['<div class="stats">'] + [f'<div class="stat"><b>{v}</b>{k}</div>' for k, v in stats] + ["</div>"]
-    columns = list(grades) + [UNRATED]
+    columns = list(ladder.names) + [UNRATED]
     table = Counter((r.get("class") or "(none)", r["grade"]) for r in records)
     classes = sorted({c for c, _ in table})
     parts.append('<table class="grid"><thead><tr><th>class</th>' + "".join(
-        f'<th class="n">{_grade_cell(g, _level_of(grades, g))}</th>' for g in columns) + '<th class="n">all</th>'
+        f'<th class="n">{_grade_cell(g, ladder.level(g))}</th>' for g in columns) + '<th class="n">all</th>'
         '</tr></thead><tbody>')
     for name in classes:
         cells = "".join(f'<td class="n">{table.get((name, g), 0)}</td>' for g in columns)
@@ -405,28 +542,30 @@ def _summary(records, rejects, grades: tuple, rejects_given: bool) -> str:
     return "".join(parts)
 
 
-def _attention(views, grades: tuple) -> str:
+def _attention(views, ladder: Ladder) -> str:
     rows = []
     for v in views:
         latest = v.samples[-1]
-        worst = grades[v.worst_level] if v.worst_level is not None else UNRATED
-        rows.append(f'<tr><td><a href="#unit-{escape(v.unit_id)}">{escape(v.unit_id)}</a></td>'
-                    f"<td>{escape(v.class_name)}</td>"
-                    f"<td>{_grade_cell(latest['grade'], v.latest_level)}</td><td>{escape(v.trend)}</td>"
-                    f"<td>{_grade_cell(worst, v.worst_level)}</td>"
-                    f"<td>{escape(latest['sample_id'])} · {escape(latest.get('sampled_on') or 'no date')}</td>"
-                    f'<td class="n">{v.flagged}</td><td class="n">{len(v.samples)}</td></tr>')
-    return ('<p class="sub">Ordered by the grade of the latest sample, then worsening before steady before '
-            'improving (latest sample against the one before), then by the highest grade in the batch.</p>'
+        rows.append(f'<tr data-unit="{escape(v.unit_id)}"><td><a href="#unit-{escape(v.unit_id)}">'
+                    f'{escape(v.unit_id)}</a></td><td>{escape(v.class_name)}</td>'
+                    f"<td>{_grade_cell(latest['grade'], v.latest_level)}</td><td class='trend'>{escape(v.trend)}</td>"
+                    f"<td>{_grade_cell(ladder.name(v.worst_level), v.worst_level)}</td>"
+                    f"<td class='when'>{escape(latest['sample_id'])} · {escape(latest.get('sampled_on') or 'no date')}</td>"
+                    f'<td class="n">{v.flagged}</td><td class="n">{len(v.samples)}</td>'
+                    f"<td class='steps'>{escape('; '.join(text for text, _ in next_steps(latest)))}</td></tr>")
+    return ('<p class="sub">Ordered by the grade of the latest sample, then units that are worsening (the grade '
+            'went up from the sample before, or a watched value moved toward its limit in each of the last two '
+            'samples of the current oil charge), then by the highest grade in the batch.</p>'
             '<table class="grid attention"><thead><tr><th>unit</th><th>class</th><th>latest grade</th>'
             '<th>trend</th><th>highest in batch</th><th>latest sample</th><th class="n">flagged</th>'
-            '<th class="n">samples</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table>")
+            '<th class="n">samples</th><th>what to do (latest sample)</th></tr></thead><tbody>' + "".join(rows)
+            + "</tbody></table>")
 
 
-def _reason_rows(record: dict, grades: tuple) -> str:
+def _reason_rows(record: dict, ladder: Ladder) -> str:
     rows = []
     for reason in record["reasons"]:
-        grade = _grade_cell(reason["grade"], _level_of(grades, reason["grade"]))
+        grade = _grade_cell(reason["grade"], ladder.level(reason["grade"]))
         if reason.get("capped_from"):
             grade += (f'<br><span class="capped">capped from {escape(reason["capped_from"])} by caveat '
                       f'{escape(reason.get("capped_by") or "")}</span>')
@@ -449,23 +588,37 @@ def _reason_rows(record: dict, grades: tuple) -> str:
             "<th>source</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
 
 
-def _sample_card(record: dict, grades: tuple) -> str:
+def next_steps(record: dict) -> list[tuple[str, str]]:
+    """(what to do, which rule or caveat asks it) for a sample, highest finding first, each step once."""
+    steps: dict[str, list[str]] = {}
+    for item in record["reasons"] + record["caveats"]:
+        step = item.get("next_step")
+        if step:
+            steps.setdefault(step_phrase(step["task"], step.get("within_days")), []).append(
+                item.get("rule") or item.get("caveat") or "")
+    return [(text, ", ".join(by)) for text, by in steps.items()]
+
+
+def _latest(record: dict, ladder: Ladder) -> str:
+    """The latest sample of a unit: its findings, caveats, gaps and what to do."""
     level = record.get("level")
-    look = grade_look(level)
     values = record.get("values") or {}
     hours = values.get("oil_hours")
-    facts = [f"class {record.get('class') or '(none)'}", f"lubricant {record.get('lubricant') or '(none)'}",
-             f"sampled {record.get('sampled_on') or '(no date)'}"]
-    if isinstance(hours, (int, float)):
+    facts = [f"sampled {record.get('sampled_on') or '(no date)'}"]
+    if isinstance(hours, (int, float)) and not isinstance(hours, bool):
         facts.append(f"oil hours {hours:g}")
     if record.get("method") and record["method"] != "direct":
         facts.append(f"oxidation by {record['method']}")
-    parts = [f'<article class="sample" id="sample-{escape(record["sample_id"])}" '
-             f'data-sample="{escape(record["sample_id"])}" style="border-left-color:{look.colour}">',
-             f'<h3>{_grade_cell(record["grade"], level)} {escape(record["sample_id"])}</h3>',
-             f'<div class="muted">{escape(" · ".join(facts))}</div>']
+    parts = [f'<article class="latest" data-sample="{escape(record["sample_id"])}" '
+             f'style="border-left-color:{grade_look(level).colour}">',
+             f'<h4>Latest sample {escape(record["sample_id"])}: {_grade_cell(record["grade"], level)} '
+             f'<span class="muted">{escape(" · ".join(facts))}</span></h4>']
     if record["reasons"]:
-        parts.append(_reason_rows(record, grades))
+        parts.append(_reason_rows(record, ladder))
+    elif level is not None:
+        parts.append('<p class="muted">No limit crossed.</p>')
+    else:
+        parts.append(f'<p class="muted">No grade: {escape(record.get("unrated_because") or "")}</p>')
     if record["caveats"]:
         parts.append("<div><b>Caveats</b><ul class='tight caveats'>" + "".join(
             f"<li class='caveat'><b>{escape(c.get('caveat') or '')}</b>: {escape(c.get('message') or '')}"
@@ -475,42 +628,102 @@ def _sample_card(record: dict, grades: tuple) -> str:
     if gaps:
         parts.append("<div class='muted'>Not evaluated (a missing value is never a pass): " + escape("; ".join(
             f"{g.get('rule')} lacks {', '.join(g.get('missing') or [])}" for g in gaps)) + "</div>")
-    parts.append(f'<p class="notice">Notice: {escape(record["notice"])}</p></article>')
-    return "".join(parts)
+    steps = next_steps(record)
+    if steps:
+        parts.append("<h4>What to do</h4><ul class='todo'>" + "".join(
+            f"<li class='step'>{escape(text)} <span class='src'>({escape(by)})</span></li>" for text, by in steps)
+            + "</ul>")
+    elif (level or 0) > 0:
+        parts.append("<p class='muted'>The rule set gives no next step for these findings.</p>")
+    return "".join(parts) + "</article>"
 
 
-def _unit_section(view: UnitView, ruleset: RuleSet | None, grades: tuple) -> str:
-    plots = unit_plots(view, ruleset, grades)
-    changes = oil_changes(view.samples)
+def _finding_text(reason: dict) -> str:
+    """One finding in a few words: the rule, its grade and the value (the limits are on the plots)."""
+    capped = f" (capped from {reason['capped_from']})" if reason.get("capped_from") else ""
+    if "measure" in reason:
+        return f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))}"
+    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}"
+                     for c in reason.get("clauses") or () if c.get("held"))
+    return f"{reason['rule']} {reason['grade']}{capped}: {held}"
+
+
+def _earlier(samples, ladder: Ladder) -> str:
+    """Earlier flagged samples of a unit, newest first, one compact row each."""
+    rows = []
+    for record in reversed(samples):
+        if (record.get("level") or 0) <= 0:
+            continue
+        hours = (record.get("values") or {}).get("oil_hours")
+        rows.append(f"<tr class='earlier' data-sample='{escape(record['sample_id'])}'>"
+                    f"<td class='when'>{escape(record.get('sampled_on') or '')}</td>"
+                    f"<td class='when'>{escape(record['sample_id'])}</td>"
+                    f"<td class='n'>{escape(f'{hours:g}' if isinstance(hours, (int, float)) else '')}</td>"
+                    f"<td>{_grade_cell(record['grade'], record.get('level'))}</td>"
+                    f"<td>{escape('; '.join(_finding_text(r) for r in record['reasons']))}</td>"
+                    f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td></tr>")
+    if not rows:
+        return ""
+    return ("<h4>Earlier flagged samples</h4><table class='grid earlier'><thead><tr><th>sampled</th><th>sample</th>"
+            "<th class='n'>oil h</th><th>grade</th><th>findings (rule, grade: value)</th><th>caveats</th></tr>"
+            "</thead><tbody>" + "".join(rows) + "</tbody></table>")
+
+
+def _sources(samples) -> str:
+    """Each rule that fired on the unit and its source, once (the compact rows leave them out)."""
+    seen: dict[str, str] = {}
+    for record in samples:
+        for reason in record["reasons"]:
+            seen.setdefault(reason["rule"], reason.get("source") or "")
+    if not seen:
+        return ""
+    return ("<p class='src sources'>Sources: " + "; ".join(
+        f"<b>{escape(rule)}</b>: {escape(source)}" for rule, source in seen.items()) + "</p>")
+
+
+def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
+    plots = unit_plots(view, ladder, forecasts)
+    mine = [f for f in forecasts if f.get("unit_id") == view.unit_id]
+    changes = sum(1 for s in view.samples[1:] if starts_charge(s))
+    latest = view.samples[-1]
     head = (f'<section class="unit" id="unit-{escape(view.unit_id)}" data-unit="{escape(view.unit_id)}">'
             f'<div class="unit-head"><h3>{escape(view.unit_id)} <span class="muted">· {escape(view.class_name)} · '
-            f'{escape(view.lubricant)}</span></h3><span>latest {_grade_cell(view.samples[-1]["grade"], view.latest_level)}'
+            f'{escape(view.lubricant)}</span></h3><span>latest {_grade_cell(latest["grade"], view.latest_level)}'
             f' · {escape(view.trend)} · {len(view.samples)} samples'
-            + (f" · {len(changes)} oil change(s)" if changes else "") + "</span></div>")
-    figures = "".join(f"<figure>{render_plot(p)}<figcaption>{escape(p.note)}</figcaption></figure>" for p in plots)
-    flagged = [s for s in reversed(view.samples) if (s.get("level") or 0) > 0]
-    body = "".join(_sample_card(s, grades) for s in flagged)
-    if not flagged:
-        body = f'<p class="muted">No sample of this unit is above {escape(grades[0]) if grades else "the lowest grade"}.</p>'
-    return head + f'<div class="plots">{figures}</div>' + body + "</section>"
+            + (f" · {changes} oil change(s)" if changes else "") + "</span></div>")
+    figures = "".join(f"<figure>{render_plot(p)}"
+                      + (f"<figcaption>{escape(p.note)}</figcaption>" if p.note else "") + "</figure>" for p in plots)
+    earlier = _earlier(view.samples[:-1], ladder)
+    ahead = ""
+    if mine:
+        ahead = ("<h4>When will it cross?</h4><ul class='todo forecasts'>" + "".join(
+            f"<li class='forecast'>{escape(forecast_text(f))}</li>" for f in mine) + "</ul>"
+            f"<p class='src'>Method: {escape(str(mine[0].get('method') or ''))}</p>")
+    return (head + _latest(latest, ladder) + ahead + (f'<div class="plots">{figures}</div>' if figures else "")
+            + earlier + _sources(view.samples) + "</section>")
 
 
 def _plot_key(ruleset: RuleSet | None) -> str:
+    common = ("Every plot is against the sample date; a point's tooltip gives the sample, its oil hours and the "
+              "value. Values are those the engine recorded (derived measures as it computed and graded them); a "
+              "dotted vertical line marks an oil change the engine recorded, and each oil charge is its own line. "
+              "Each point's marker is the grade the rules reading that measure gave the sample.")
     if ruleset is not None:
-        return ("<p class='sub'>Plots show the quantities the rule set's limits apply to: the rise of oxidation "
-                "and acid number over new oil, and the change of viscosity at 40 °C from new oil in percent, "
-                "computed with the new-oil values of the rule set's lubricants table (a subtraction reading is "
-                "its own rise). Coloured dashed lines are the limits, each labelled with its grade; the grey "
-                "line at 0 is new oil; a dotted vertical line marks an oil change (flagged, or oil hours going "
-                "down). Each point's marker is the grade that plot's own rule gave the sample.</p>")
-    return ("<p class='sub'>Plots show the lab values as reported; no rule set was given (<code>--rules</code>), "
-            "so no limits are drawn. A dotted vertical line marks an oil change. Each point's marker is the "
-            "grade that plot's own rule gave the sample.</p>")
+        return ("<p class='sub'>Each unit shows the measures its class's rules read, the ones with findings "
+                "first; coloured dashed lines are the ladder limits, each labelled with its grade. " + common
+                + "</p>")
+    return ("<p class='sub'>No rule set was given (<code>--rules</code>), so no limits are drawn and the plots "
+            "show the measures the unit's findings name, then the derived measures the records carry. "
+            + common + "</p>")
 
 
 def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: str = "",
-                  rejects_given: bool = True) -> str:
-    """The whole report as one HTML document; `records` are result records as `grade` writes them."""
+                  rejects_given: bool = True, forecasts=()) -> str:
+    """The whole report as one HTML document; `records` are result records as `grade` writes them.
+
+    `forecasts` are the engine's forecasts of when a unit's charge reaches a limit, as dicts
+    (derive.forecast.Forecast.to_record); each is drawn on its unit's plot and listed in its card.
+    """
     if not records:
         raise InputError("a report needs at least one result record")
     first = records[0]
@@ -520,8 +733,10 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
         raise InputError(f"the rule set given ({ruleset.id} sha256 {ruleset.sha256[:12]}...) is not the one the "
                          f"results were graded with ({meta['id']} sha256 {meta['sha256'][:12]}...); its limits "
                          f"would be drawn wrongly")
-    grades = grade_names(records, ruleset)
-    views = unit_views(records)
+    ladder = Ladder.of(records, ruleset)
+    notice = first.get("notice") or (ruleset.notice if ruleset is not None else
+                                     "the records do not carry the rule set's notice; read it in the rule set")
+    views = unit_views(records, ruleset)
     heading = title or (ruleset.title if ruleset is not None else f"Graded samples, rule set {meta['id']}")
     dates = sorted(r["sampled_on"] for r in records if r.get("sampled_on"))
     span = f"samples from {dates[0]} to {dates[-1]}" if dates else "sample dates not given"
@@ -530,11 +745,11 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
                 + "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
     body = [f"<h1>{escape(heading)}</h1>",
             f'<p class="sub">{escape(span)} · {len(records)} result records · {len(views)} units</p>',
-            cautions, f'<p class="notice">Notice of the rule set: {escape(first["notice"])}</p>',
-            "<h2>The batch</h2>", _legend(grades), _summary(records, rejects, grades, rejects_given),
-            "<h2>Units needing attention first</h2>", _attention(views, grades),
-            "<h2>Units: trends and flagged samples</h2>", _plot_key(ruleset)]
-    body.extend(_unit_section(v, ruleset, grades) for v in views)
+            cautions, f'<p class="notice">Notice of the rule set: {escape(notice)}</p>',
+            "<h2>The batch</h2>", _legend(ladder), _summary(records, rejects, ladder, rejects_given),
+            "<h2>Units needing attention first</h2>", _attention(views, ladder),
+            "<h2>Units: latest findings, what to do, trends</h2>", _plot_key(ruleset)]
+    body.extend(_unit_section(v, ladder, forecasts) for v in views)
     if unrated:
         body.append("<h2>Unrated samples</h2><table class='grid unrated'><thead><tr><th>sample</th><th>unit</th>"
                     "<th>class</th><th>why no grade</th></tr></thead><tbody>" + "".join(
@@ -549,9 +764,9 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
     body.append(cautions)
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
-            f"<title>{escape(heading)} · sumpwise report</title><style>{_CSS}</style></head><body>"
+            f"<title>{escape(heading)} · sumpwise report</title><style>{_CSS}{marker_css()}</style></head><body>"
             "<table class=\"frame\" role=\"presentation\">"
-            f"<thead><tr><td><div class=\"wrap\">{_band(meta, 'head')}</div></td></tr></thead>"
-            f"<tfoot><tr><td><div class=\"wrap\">{_band(meta, 'foot')}</div></td></tr></tfoot>"
+            f"<thead><tr><td><div class=\"wrap\">{_band(meta, 'head', notice)}</div></td></tr></thead>"
+            f"<tfoot><tr><td><div class=\"wrap\">{_band(meta, 'foot', notice)}</div></td></tr></tfoot>"
             f"<tbody><tr><td><main class=\"wrap\">{''.join(body)}</main></td></tr></tbody></table>"
             "</body></html>\n")

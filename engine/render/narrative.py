@@ -22,6 +22,13 @@ def _number(value) -> str:
     return str(value)
 
 
+def step_phrase(task: str, within_days: int | None) -> str:
+    """A next step in words: 'Resample (within 7 days of sampling)'."""
+    if within_days is None:
+        return task
+    return f"{task} (within {within_days} day{'s' if within_days != 1 else ''} of sampling)"
+
+
 def _limit_phrase(test: str, limit, unit: str | None) -> str:
     return limit_phrase(test, limit, _number, unit)
 
@@ -88,6 +95,9 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
             for clause in reason.clauses:
                 lines.extend(wrap(_clause_line(clause), "     - "))
             lines.extend(wrap(f"Source: {reason.source}", "     "))
+            if reason.next_step is not None:
+                lines.extend(wrap(f"Next step: {step_phrase(reason.next_step.task, reason.next_step.within_days)}",
+                                  "     "))
     elif result.level is not None:
         lines.append("No limit was crossed.")
     if result.caveats:
@@ -99,6 +109,9 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
                 lines.extend(wrap(f"Its cap stays in force because the exception that would lift it could not "
                                   f"be checked: it lacks {', '.join(caveat.unless_missing)}. Measure that before "
                                   f"trusting a capped grade.", "    "))
+            if caveat.next_step is not None:
+                lines.extend(wrap(f"Next step: {step_phrase(caveat.next_step.task, caveat.next_step.within_days)}",
+                                  "    "))
     lines.extend(forecast_lines(forecasts, wrap))
     if result.not_evaluated:
         lines.append("")

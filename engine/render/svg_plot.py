@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from datetime import date
+from functools import lru_cache
 from html import escape
 
 
@@ -42,11 +43,27 @@ def grade_look(level: int | None) -> GradeLook:
     return _LOOKS[min(level, len(_LOOKS) - 1)]
 
 
+def _paint_class(level: int | None) -> str:
+    return "g-u" if level is None else f"g-{min(level, len(_LOOKS) - 1)}"
+
+
+def marker_css() -> str:
+    """The paint of each grade's marker, once in the page's style sheet instead of on every point."""
+    rules = []
+    for level in list(range(len(_LOOKS))) + [None]:
+        look = grade_look(level)
+        fill = look.colour if look.filled else "#ffffff"
+        if look.shape == "cross":
+            fill = "none"
+        rules.append(f".{_paint_class(level)} {{ fill: {fill}; stroke: {look.colour}; stroke-width: "
+                     f"{1.6 if look.shape == 'cross' else 1.3}; }}")
+    return "\n".join(rules) + "\n"
+
+
 def marker(level: int | None, cx: float, cy: float, size: float = 4.0) -> str:
-    """One grade marker as an SVG element centred on (cx, cy)."""
+    """One grade marker as an SVG element centred on (cx, cy); its paint comes from marker_css()."""
     look = grade_look(level)
-    fill = look.colour if look.filled else "#ffffff"
-    paint = f'fill="{fill}" stroke="{look.colour}" stroke-width="1.3"'
+    paint = f'class="{_paint_class(level)}"'
     s = size
     if look.shape == "circle":
         return f'<circle cx="{cx:.1f}" cy="{cy:.1f}" r="{s:.1f}" {paint}/>'
@@ -63,11 +80,12 @@ def marker(level: int | None, cx: float, cy: float, size: float = 4.0) -> str:
     else:
         d = s * 0.9
         return (f'<path d="M{cx - d:.1f},{cy - d:.1f}L{cx + d:.1f},{cy + d:.1f}M{cx - d:.1f},{cy + d:.1f}'
-                f'L{cx + d:.1f},{cy - d:.1f}" stroke="{look.colour}" stroke-width="1.6" fill="none"/>')
+                f'L{cx + d:.1f},{cy - d:.1f}" {paint}/>')
     text = " ".join(f"{x:.1f},{y:.1f}" for x, y in points)
     return f'<polygon points="{text}" {paint}/>'
 
 
+@lru_cache(maxsize=64)
 def marker_icon(level: int | None, size: int = 14) -> str:
     """A marker alone in a tiny inline SVG, for tables and legends."""
     half = size / 2
@@ -137,17 +155,35 @@ class Mark:
 
 
 @dataclass(frozen=True)
+class Projection:
+    """A forecast drawn on a plot: from the last sample (x0, y0) to where the fit meets a limit (x1, y1).
+
+    `x_low`/`x_high` bound the crossing (a prediction band); None where that bound lies beyond
+    the forecast's horizon. Nothing here is computed: the engine's forecast gives every number.
+    """
+
+    x0: float
+    y0: float
+    x1: float
+    y1: float
+    level: int
+    label: str
+    x_low: float | None = None
+    x_high: float | None = None
+
+
+@dataclass(frozen=True)
 class Plot:
-    """A trend plot: runs of points (one run per oil charge), limit lines and event marks."""
+    """A trend plot against the sample date (x is a date ordinal): runs of points (one run per
+    oil charge), limit lines, event marks and forecasts."""
 
     title: str
     unit: str
-    x_kind: str  # "date" (x is a date ordinal), "hours" or "order"
     runs: tuple
     limits: tuple = ()
     marks: tuple = ()
-    baseline: float | None = None  # a thin reference line, e.g. 0 = new oil
     note: str = ""
+    projections: tuple = ()  # Projection: forecasts of when a limit will be reached
 
 
 WIDTH, HEIGHT = 300, 190
@@ -166,15 +202,14 @@ def render_plot(plot: Plot) -> str:
             f'xmlns="http://www.w3.org/2000/svg" font-size="9">'
             f'<title>{label}</title>'
             f'<text x="{_LEFT}" y="12" font-size="10" font-weight="600" fill="#222">{label}</text>')
-    if not points:
+    if not points and not plot.projections:
         return (head + f'<rect x="{_LEFT}" y="{_TOP}" width="{WIDTH - _LEFT - _RIGHT}" '
                 f'height="{HEIGHT - _TOP - _BOTTOM}" fill="#f6f5f1" stroke="#c9c6bd"/>'
                 f'<text x="{WIDTH / 2:.0f}" y="{HEIGHT / 2:.0f}" text-anchor="middle" fill="#555">'
-                f'no values in this batch</text></svg>')
+                f'no values recorded</text></svg>')
     xs = [p.x for p in points] + [m.x for m in plot.marks]
-    ys = [p.y for p in points] + [lim.y for lim in plot.limits]
-    if plot.baseline is not None:
-        ys.append(plot.baseline)
+    xs += [x for f in plot.projections for x in (f.x0, f.x1, f.x_low, f.x_high) if x is not None]
+    ys = [p.y for p in points] + [lim.y for lim in plot.limits] + [y for f in plot.projections for y in (f.y0, f.y1)]
     y_ticks = nice_ticks(min(ys), max(ys), 5)
     y_low, y_high = y_ticks[0], y_ticks[-1]
     x_low, x_high = min(xs), max(xs)
@@ -197,22 +232,16 @@ def render_plot(plot: Plot) -> str:
         parts.append(f'<line x1="{_LEFT}" x2="{_LEFT + inner_w}" y1="{y:.1f}" y2="{y:.1f}" stroke="#e6e3db" '
                      f'stroke-width="0.6"/><text x="{_LEFT - 4}" y="{y + 3:.1f}" text-anchor="end" '
                      f'fill="#444">{_format(tick)}</text>')
-    if plot.x_kind == "date":
-        x_ticks = date_ticks(int(math.ceil(x_low)), int(math.floor(x_high)))
-    else:
-        x_ticks = [(t, _format(t)) for t in nice_ticks(x_low, x_high, 5) if x_low <= t <= x_high]
+    x_ticks = [(t, text) for t, text in date_ticks(int(math.ceil(x_low)), int(math.floor(x_high)))
+               if x_low <= t <= x_high]  # a short span's 1-2-5 steps may start before the frame
     for tick, text in x_ticks:
         x = sx(tick)
         parts.append(f'<line x1="{x:.1f}" x2="{x:.1f}" y1="{_TOP + inner_h}" y2="{_TOP + inner_h + 3}" '
                      f'stroke="#777"/><text x="{x:.1f}" y="{_TOP + inner_h + 12}" text-anchor="middle" '
                      f'fill="#444" font-size="8">{escape(text)}</text>')
-    axis = {"date": "sample date", "hours": "oil hours (h)", "order": "sample order"}[plot.x_kind]
+    axis = "sample date"
     parts.append(f'<text x="{_LEFT + inner_w / 2:.0f}" y="{HEIGHT - 3}" text-anchor="middle" fill="#555" '
                  f'font-size="8">{axis}</text>')
-    if plot.baseline is not None:
-        y = sy(plot.baseline)
-        parts.append(f'<line class="baseline" x1="{_LEFT}" x2="{_LEFT + inner_w}" y1="{y:.1f}" y2="{y:.1f}" '
-                     f'stroke="#8c887e" stroke-width="0.8"/>')
     for limit in plot.limits:
         look = grade_look(limit.level)
         y = sy(limit.y)
@@ -226,12 +255,24 @@ def render_plot(plot: Plot) -> str:
                      f'stroke="#3a3a3a" stroke-width="0.9" stroke-dasharray="2 3"/>'
                      f'<text x="{x + 2:.1f}" y="{_TOP + 8}" fill="#3a3a3a" font-size="7.5">'
                      f'{escape(mark.label)}</text></g>')
+    for f in plot.projections:
+        look = grade_look(f.level)
+        y1 = sy(f.y1)
+        band = ""
+        if f.x_low is not None or f.x_high is not None:
+            low = sx(f.x_low if f.x_low is not None else f.x0)
+            high = sx(f.x_high) if f.x_high is not None else _LEFT + inner_w
+            band = (f'<rect class="band" x="{low:.1f}" y="{y1 - 3:.1f}" width="{max(high - low, 1):.1f}" height="6" '
+                    f'fill="{look.colour}" fill-opacity="0.22" stroke="none"/>')
+        parts.append(f'<g class="projection"><title>{escape(f.label)}</title>{band}'
+                     f'<line x1="{sx(f.x0):.1f}" y1="{sy(f.y0):.1f}" x2="{sx(f.x1):.1f}" y2="{y1:.1f}" '
+                     f'stroke="{look.colour}" stroke-width="1.2" stroke-dasharray="4 2"/>'
+                     f'<circle cx="{sx(f.x1):.1f}" cy="{y1:.1f}" r="2.2" fill="{look.colour}"/></g>')
     for run in plot.runs:
         if len(run) > 1:
             path = " ".join(f"{sx(p.x):.1f},{sy(p.y):.1f}" for p in run)
             parts.append(f'<polyline points="{path}" fill="none" stroke="#6d6a62" stroke-width="1"/>')
     for p in points:
-        parts.append(f'<g class="pt" data-level="{"" if p.level is None else p.level}">'
-                     f'<title>{escape(p.label)}</title>{marker(p.level, sx(p.x), sy(p.y), 3.2)}</g>')
+        parts.append(f'<g class="pt"><title>{escape(p.label)}</title>{marker(p.level, sx(p.x), sy(p.y), 3.2)}</g>')
     parts.append("</svg>")
     return "".join(parts)

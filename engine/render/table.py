@@ -18,6 +18,7 @@ import pandas as pd
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.version import engine_name
 from sumpwise.results.records import UNRATED, GradedBatch, record_shape_groups
+from sumpwise.render.narrative import step_phrase
 from sumpwise.render.safe_text import terminal_column, terminal_text
 
 WIDTH = 100
@@ -55,6 +56,9 @@ def _why(result) -> str:
         why = "no limit crossed"
     if result.caveats:
         why += " | caveat: " + ", ".join(c.caveat for c in result.caveats)
+    steps = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
+    if steps:
+        why += " | next: " + "; ".join(dict.fromkeys(step_phrase(s.task, s.within_days) for s in steps))
     return why
 
 

@@ -252,14 +252,15 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
         reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), rule.message, rule.source,
                               measure=r.get("measure"), value=_filled(r.get("value"), values), unit=r.get("unit"),
                               test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
-                              capped_by=r.get("capped_by"), clauses=clauses))
+                              capped_by=r.get("capped_by"), clauses=clauses, next_step=rule.next_step))
     notes = []
     for c in shape["caveats"]:
         if c["caveat"] in ENGINE_CAVEATS:
             notes.append(CaveatNote(c["caveat"], _filled(c["message"], values), ENGINE_CAVEATS[c["caveat"]].source))
         else:
             caveat = caveats[c["caveat"]]
-            notes.append(CaveatNote(caveat.id, caveat.message, caveat.source, tuple(c.get("unless_missing", ()))))
+            notes.append(CaveatNote(caveat.id, caveat.message, caveat.source, tuple(c.get("unless_missing", ())),
+                                    caveat.next_step))
     return SampleResult(
         sample_id=sample.get("sample_id"), unit_id=_text(sample.get("unit_id")), class_name=_text(class_name),
         lubricant=_text(sample.get("lubricant")), sampled_on=_text(sample.get("sampled_on")),

@@ -15,7 +15,7 @@ import pandas as pd
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED, Outcome
 from sumpwise.vocabulary.measures import measure_needs
-from sumpwise.ruleset.model import LadderRule, RuleSet, leaves
+from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, leaves
 
 UNRATED = "unrated"
 
@@ -54,6 +54,7 @@ class Reason:
     capped_from: str | None = None
     capped_by: str | None = None
     clauses: tuple = ()
+    next_step: NextStep | None = None  # the rule's own `next_step`, named by the rule id
 
     def to_record(self) -> dict:
         record: dict = {"rule": self.rule}
@@ -68,6 +69,8 @@ class Reason:
         record.update(message=self.message, source=self.source)
         if self.clauses:
             record["clauses"] = [c.to_record() for c in self.clauses]
+        if self.next_step is not None:
+            record["next_step"] = next_step_record(self.next_step)
         return record
 
 
@@ -80,6 +83,7 @@ class CaveatNote:
     message: str
     source: str = ""
     unless_missing: tuple = ()
+    next_step: NextStep | None = None  # the caveat's own `next_step`, named by the caveat id
 
     def to_record(self) -> dict:
         record = {"caveat": self.caveat, "message": self.message}
@@ -87,7 +91,22 @@ class CaveatNote:
             record["source"] = self.source
         if self.unless_missing:
             record["unless_missing"] = list(self.unless_missing)
+        if self.next_step is not None:
+            record["next_step"] = next_step_record(self.next_step)
         return record
+
+
+def next_step_record(step: NextStep) -> dict:
+    """A next step in a record: the task and, when the rule set gives one, the days to do it in."""
+    record: dict = {"task": step.task}
+    if step.within_days is not None:
+        record["within_days"] = step.within_days
+    return record
+
+
+def next_step_from_record(record: dict | None) -> NextStep | None:
+    """A record's next step back as the rule set's NextStep (for records read from a ledger)."""
+    return None if not record else NextStep(record["task"], record.get("within_days"))
 
 
 @dataclass(frozen=True)
@@ -248,7 +267,8 @@ def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
         limit = dict(rule.steps)[raw]
         return Reason(rule.id, grades[final], final, rule.message, rule.source, measure=rule.measure,
                       value=values.number(rule.measure, i), unit=rs.unit_of(rule.measure) or None,
-                      test=rule.test, limit=_limit_value(limit), capped_from=capped_from, capped_by=capped_by)
+                      test=rule.test, limit=_limit_value(limit), capped_from=capped_from, capped_by=capped_by,
+                      next_step=rule.next_step)
     rows, found = out.leaves[j]
     at = int(np.searchsorted(rows, i))
     clauses = []
@@ -265,7 +285,7 @@ def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
             value = values.number(leaf.measure, i) if known[at] else None
             clauses.append(Clause(leaf.test, _limit_value(leaf.limit), held, value, measure=leaf.measure))
     return Reason(rule.id, grades[final], final, rule.message, rule.source,
-                  capped_from=capped_from, capped_by=capped_by, clauses=tuple(clauses))
+                  capped_from=capped_from, capped_by=capped_by, clauses=tuple(clauses), next_step=rule.next_step)
 
 
 def caveat_at(batch: GradedBatch, i: int, k: int, values) -> CaveatNote:
@@ -277,7 +297,7 @@ def caveat_at(batch: GradedBatch, i: int, k: int, values) -> CaveatNote:
         if batch.outcome.unchecked[i, k]:
             needs = condition_inputs(caveat.cap.unless)
             lacking = tuple(name for name in needs if _is_missing(batch.measured, name, i)) or tuple(needs)
-        return CaveatNote(caveat.id, caveat.message, caveat.source, lacking)
+        return CaveatNote(caveat.id, caveat.message, caveat.source, lacking, caveat.next_step)
     caveat = batch.engine_caveats[k - len(rs.caveats)]
     return CaveatNote(caveat.id, values.text(caveat.message_column, i), caveat.source)
 

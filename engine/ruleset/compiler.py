@@ -22,7 +22,7 @@ from sumpwise.vocabulary.measures import (DERIVED_MEASURES, INPUT_MEASURES, ISO4
                                          unit_key)
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
-                      MeasureTest, MissingTest, Not, Origin, RuleSet)
+                      MeasureTest, MissingTest, NextStep, Not, Origin, RuleSet)
 from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset, resolve_with_problems
 from sumpwise.vocabulary.measures import UNIT_FAMILY
 from sumpwise.vocabulary.base_stocks import FAMILIES as BASE_STOCK_FAMILIES, BaseStockError, canonical_base_stock
@@ -257,7 +257,8 @@ class _Compiler:
             self._check_monotone(placed, "above", steps, written)
             size = ISO4406_SIZES[k]
             rules.append(LadderRule(f"{data['id']}-{size}", f"iso4406_{size}", "above", tuple(steps),
-                                    data["message"].strip(), self._source(placed), self._origin(placed)))
+                                    data["message"].strip(), self._source(placed), self._origin(placed),
+                                    _next_step(data)))
         return rules
 
     def _noise_margin(self, name: str, placed: Placed) -> float | None:
@@ -285,7 +286,8 @@ class _Compiler:
                 return None
             when = self._condition(placed, ("when",), data["when"])
             level = self._level(placed, ("grade",), data["grade"])
-            return ConditionRule(data["id"], when, level, data["message"].strip(), self._source(placed), origin)
+            return ConditionRule(data["id"], when, level, data["message"].strip(), self._source(placed), origin,
+                                 _next_step(data))
         if "measure" not in data or len(ladder_keys) != 1:
             self.problems.append(placed.problem(
                 f"rule '{data['id']}' needs either `measure` with exactly one of above/below/outside "
@@ -314,7 +316,7 @@ class _Compiler:
         steps.sort(key=lambda s: s[0])
         self._check_monotone(placed, test, steps, data[test])
         return LadderRule(data["id"], measure, test, tuple(steps), data["message"].strip(), self._source(placed),
-                          origin)
+                          origin, _next_step(data))
 
     def _check_monotone(self, placed: Placed, test: str, steps: list, written: dict) -> None:
         order = LIMIT_TESTS[test]
@@ -432,7 +434,7 @@ class _Compiler:
             level = self._level(placed, ("cap", "grade"), spec["grade"])
             cap = Cap(frozenset(spec["measures"]), level, unless)
         return Caveat(data["id"], when, cap, data["message"].strip(), (data.get("source") or "").strip(),
-                      self._origin(placed))
+                      self._origin(placed), _next_step(data))
 
     def _example(self, placed: Placed) -> Example:
         data = placed.data
@@ -484,6 +486,23 @@ def domain_words(domain: tuple, unit: str) -> str:
     return f"from {_plain(low.low)} to {_plain(high.high)}{_unit_words(unit)}"
 
 
+def _next_step(data: dict) -> NextStep | None:
+    """`next_step:` as written (text, or task with within_days); the schema has checked its shape."""
+    step = data.get("next_step")
+    if step is None:
+        return None
+    if isinstance(step, str):
+        return NextStep(" ".join(step.split()))
+    return NextStep(" ".join(step["task"].split()), step.get("within_days"))
+
+
+def next_step_doc(step: NextStep) -> dict:
+    doc = {"task": step.task}
+    if step.within_days is not None:
+        doc["within_days"] = step.within_days
+    return doc
+
+
 def _as_text(value) -> str:
     if isinstance(value, bool):
         return "true" if value else "false"
@@ -526,6 +545,8 @@ def rule_doc(rule, grades: tuple) -> dict:
     else:
         doc = {"id": rule.id, "when": condition_doc(rule.when), "grade": grades[rule.level]}
     doc.update(message=rule.message, source=rule.source)
+    if rule.next_step is not None:
+        doc["next_step"] = next_step_doc(rule.next_step)
     return doc
 
 
@@ -578,6 +599,8 @@ def _caveat_doc(caveat: Caveat, grades: tuple) -> dict:
     doc["message"] = caveat.message
     if caveat.source:
         doc["source"] = caveat.source
+    if caveat.next_step is not None:
+        doc["next_step"] = next_step_doc(caveat.next_step)
     return doc
 
 

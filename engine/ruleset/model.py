@@ -89,6 +89,17 @@ Condition = Union[MeasureTest, MissingTest, FieldTest, AllOf, AnyOf, Not]
 
 
 @dataclass(frozen=True)
+class NextStep:
+    """What the site wants done when a rule fires or a caveat applies (`next_step:`).
+
+    `task` is the site's own words; `within_days`, when given, is how soon after the sample.
+    """
+
+    task: str
+    within_days: int | None = None
+
+
+@dataclass(frozen=True)
 class LadderRule:
     """One measure, one limit per grade; the highest grade whose limit is crossed fires.
 
@@ -103,6 +114,7 @@ class LadderRule:
     message: str
     source: str
     origin: Origin = field(compare=False)
+    next_step: NextStep | None = None
 
     @property
     def reads(self) -> frozenset:
@@ -119,6 +131,7 @@ class ConditionRule:
     message: str
     source: str
     origin: Origin = field(compare=False)
+    next_step: NextStep | None = None
 
     @property
     def reads(self) -> frozenset:
@@ -145,6 +158,7 @@ class Caveat:
     message: str
     source: str
     origin: Origin = field(compare=False)
+    next_step: NextStep | None = None
 
 
 @dataclass(frozen=True)

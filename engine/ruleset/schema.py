@@ -129,6 +129,8 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
     if kind == "pattern":
         if "+" in error.validator_value:
             what = "a base stock name such as mineral, pao, ester or mineral+ester"
+        elif error.validator_value == "\\S":
+            what = "text with more than spaces in it"
         elif "A-Z" in error.validator_value:
             what = "a name of letters, digits and '_' that does not start with a digit"
         else:

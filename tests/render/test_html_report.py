@@ -22,12 +22,14 @@ import yaml
 from sumpwise.cli.main import main
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
-from sumpwise.render.html_report import TRENDS, limit_lines, oil_changes, parse_rejects, parse_results, plotted_value, unit_views
+from sumpwise.render.html_report import (Ladder, limit_lines, parse_rejects, parse_results, recorded_value,
+                                         render_report, starts_charge, unit_plots, unit_views)
 from sumpwise.render.svg_plot import _LOOKS, UNRATED_LOOK, date_ticks, nice_ticks
 
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIO = ROOT / "scenarios" / "brackwater"
 RULES = SCENARIO / "site.yaml"
+DATA = ROOT / "tests" / "data" / "report"
 
 
 def cli(*argv) -> tuple[int, str, str]:
@@ -94,27 +96,76 @@ def parse(html: str) -> _Tree:
     return tree
 
 
+def _sections(html: str) -> dict[str, str]:
+    """Each unit's section of the report, by unit id."""
+    parts = html.split('<section class="unit" id="unit-')[1:]
+    return {part.split('"', 1)[0]: part.split("</section>", 1)[0] for part in parts}
+
+
+def _flat(html: str) -> str:
+    return " ".join(" ".join(parse(html).text).split())
+
+
 def test_every_flagged_sample_is_there_with_every_reason_and_its_source(graded):
     tree = parse(graded["html"])
+    sections = _sections(graded["html"])
     flagged = [r for r in graded["records"] if (r["level"] or 0) > 0]
     assert len(flagged) > 50  # the demo batch has many findings; the check below must cover them
     for record in flagged:
-        assert record["sample_id"] in tree.articles, record["sample_id"]
-        text = " ".join(" ".join(tree.articles[record["sample_id"]]).split())
-        assert record["grade"] in text
+        unit_text = _flat(sections[record["unit_id"]])
+        if record["sample_id"] in tree.articles:  # the unit's latest sample: every detail
+            text = " ".join(" ".join(tree.articles[record["sample_id"]]).split())
+            for reason in record["reasons"]:
+                assert reason["rule"] in text and " ".join(reason["source"].split()) in text
+                if "measure" in reason:
+                    shown = reason["limit"] if isinstance(reason["limit"], list) else [reason["limit"]]
+                    assert all(f"{float(v):.6g}" in text for v in shown)
+            for caveat in record["caveats"]:
+                assert " ".join(caveat["message"].split()) in text
+        else:  # an earlier flagged sample: one compact row, the sources once per unit
+            row = sections[record["unit_id"]].split(f"data-sample='{record['sample_id']}'", 1)[1].split("</tr>")[0]
+            row_text = _flat("<tr " + row)
+            assert record["grade"] in row_text
+            for reason in record["reasons"]:
+                assert reason["rule"] in row_text
+                if "measure" in reason:
+                    assert reason["measure"] in row_text and f"{float(reason['value']):.6g}" in row_text
+            for caveat in record["caveats"]:
+                assert caveat["caveat"] in row_text
         for reason in record["reasons"]:
-            assert reason["rule"] in text
-            assert " ".join(reason["source"].split()) in text, (record["sample_id"], reason["rule"])
-            if "measure" in reason:
-                assert reason["measure"] in text
-                limit = reason["limit"]
-                shown = [limit] if not isinstance(limit, list) else limit
-                assert all(f"{float(v):.6g}" in text for v in shown)
-        for caveat in record["caveats"]:
-            assert " ".join(caveat["message"].split()) in text
-        assert " ".join(record["notice"].split()) in text
-    normal = {r["sample_id"] for r in graded["records"] if r["level"] == 0}
-    assert not normal & set(tree.articles)
+            assert " ".join(reason["source"].split()) in unit_text, (record["sample_id"], reason["rule"])
+    latest_ids = set(tree.articles)
+    assert len(latest_ids) == len({r["unit_id"] for r in graded["records"]})  # one card per unit
+
+
+def test_the_notice_is_printed_once_a_page_not_once_a_sample(graded):
+    html = graded["html"]
+    notice = graded["records"][0]["notice"]
+    foot = html.split("<tfoot>", 1)[1].split("</tfoot>", 1)[0]
+    assert notice in foot  # the foot band repeats on every printed page
+    assert html.count(notice) == 2  # the foot band and the report's opening
+
+
+def test_each_unit_lists_what_to_do_from_its_latest_findings(graded):
+    sections = _sections(graded["html"])
+    site = yaml.safe_load(RULES.read_text())
+    water = next(r for r in site["classes"]["steam-turbine"]["rules"] if r["id"] == "water")
+    task = water["next_step"]["task"]
+    for unit in {r["unit_id"] for r in graded["records"]}:
+        samples = sorted((r for r in graded["records"] if r["unit_id"] == unit), key=lambda r: r["sampled_on"])
+        fired = {x["rule"] for x in samples[-1]["reasons"]}
+        text = _flat(sections[unit].split("<h4>What to do</h4>", 1)[-1].split("</ul>", 1)[0])
+        if samples[-1]["unit_id"].startswith("ST-") and "water" in fired:
+            assert task in text and f"within {water['next_step']['within_days']} days" in text
+        steps = [x["next_step"]["task"] for x in samples[-1]["reasons"] + samples[-1]["caveats"] if x.get("next_step")]
+        for step in steps:
+            assert step in text, (unit, step)
+        if not steps:
+            assert "<h4>What to do</h4>" not in sections[unit]
+        row = graded["html"].split(f'<tr data-unit="{unit}">', 1)[1].split("</tr>", 1)[0]
+        assert all(step in _flat(row) for step in steps), (unit, steps)  # the attention table says it too
+    # the demo's latest samples ask for at least one step (AC-3's ester caveat asks for an RPVOT)
+    assert any("<h4>What to do</h4>" in section for section in sections.values())
 
 
 def test_nothing_outside_the_file_is_referenced(graded):
@@ -166,17 +217,37 @@ def test_cautions_are_on_the_report(graded):
         assert caution in text
 
 
-def test_each_unit_has_three_plots_and_the_site_limits_are_drawn(graded):
-    tree = parse(graded["html"])
-    units = {r["unit_id"] for r in graded["records"]}
-    plots = [a for tag, a in tree.tags if tag == "svg" and a.get("class") == "plot"]
-    assert len(plots) == 3 * len(units)
-    assert any("Acid number rise" in a["aria-label"] for a in plots)
+def _class_reads(ruleset, class_name: str) -> list[str]:
+    """Measures a class's rules read, straight from the compiled rules (oil hours go on the tooltip)."""
+    from sumpwise.ruleset.model import LadderRule, condition_measures
+    names = []
+    for rule in ruleset.rules_for(class_name):
+        names += [rule.measure] if isinstance(rule, LadderRule) else condition_measures(rule.when)
+    return [n for n in dict.fromkeys(names) if n != "oil_hours"]
+
+
+def test_each_unit_plots_what_its_class_rules_read_flagged_first_with_the_site_limits(graded):
+    ruleset = load_ruleset(RULES)
+    views = {v.unit_id: v for v in unit_views(graded["records"], ruleset)}
+    sections = _sections(graded["html"])
+    for unit, view in views.items():
+        labels = [a["aria-label"].split(" (")[0] for tag, a in parse(sections[unit]).tags
+                  if tag == "svg" and a.get("class") == "plot"]
+        assert sorted(labels) == sorted(_class_reads(ruleset, view.class_name)), unit
+        fired = [m for r in view.samples[-1]["reasons"]
+                 for m in ([r["measure"]] if "measure" in r else [c["measure"] for c in r["clauses"] if "measure" in c])
+                 if m != "oil_hours"]
+        if fired:
+            assert labels[0] in fired, (unit, labels, fired)  # the latest findings' measures come first
+    # the demo site's seawater leak is plotted on the steam turbines (the issue: water was never plotted)
+    assert "water" in [w.measure for w in views["ST-2"].watched]
     site = yaml.safe_load(RULES.read_text())
     acid = next(r for r in site["classes"]["steam-turbine"]["rules"] if r["id"] == "acid-rise")
-    ruleset = load_ruleset(RULES)
     drawn = sorted((line.level, line.y) for line in limit_lines(ruleset, "steam-turbine", "an_rise"))
     assert drawn == [(ruleset.grades.index(g), float(v)) for g, v in acid["above"].items()]
+    water = next(r for r in site["classes"]["steam-turbine"]["rules"] if r["id"] == "water")
+    on_plot = next(w for w in views["ST-2"].watched if w.measure == "water").limits
+    assert sorted(line.y for line in on_plot) == sorted(float(v) for v in water["above"].values())
     # gas-turbine visc-drift: outside ±5 watch, ±10 alert (rules/gas-turbine.yaml), drawn as two lines each
     shipped = yaml.safe_load((ROOT / "rules" / "gas-turbine.yaml").read_text())
     drift = next(r for r in shipped["classes"]["gas-turbine"]["rules"] if r["id"] == "visc-drift")
@@ -185,32 +256,75 @@ def test_each_unit_has_three_plots_and_the_site_limits_are_drawn(graded):
     assert ys == expected
 
 
-def test_plotted_rise_is_the_lab_value_less_the_site_new_oil_value(graded):
+def test_every_plotted_value_is_the_engines_own_and_the_x_axis_is_the_date(graded):
+    from sumpwise import grade, read_samples
     ruleset = load_ruleset(RULES)
-    new_an = yaml.safe_load(RULES.read_text())["lubricants"]["TURB-46-M"]["an"]
-    acid = next(t for t in TRENDS if t.raw == "an")
-    st1 = [r for r in graded["records"] if r["unit_id"] == "ST-1" and r["values"].get("an") is not None]
-    for record in st1:
-        assert plotted_value(acid, record, ruleset) == pytest.approx(record["values"]["an"] - new_an, abs=1e-9)
-    # a subtraction reading is its own rise (scenarios/brackwater/README.md: BP-0260 reads 41.0)
-    oxidation = next(t for t in TRENDS if t.raw == "oxidation")
-    split = next(r for r in graded["records"] if r["sample_id"] == "BP-0260")
-    assert split["method"] == "subtraction"
-    assert plotted_value(oxidation, split, ruleset) == pytest.approx(split["values"]["oxidation"])
+    batch = grade(read_samples(SCENARIO / "samples.csv"), ruleset)
+    engine = batch.measured.set_index("sample_id")
+    records = {r["sample_id"]: r for r in graded["records"]}
+    ladder = Ladder.of(graded["records"], ruleset)
+    checked = 0
+    for view in unit_views(graded["records"], ruleset):
+        for plot in unit_plots(view, ladder):
+            for point in (p for run in plot.runs for p in run):
+                sample = point.label.split(" · ")[0]
+                assert point.x == date.fromisoformat(records[sample]["sampled_on"]).toordinal()
+                assert point.y == pytest.approx(float(engine.at[sample, plot.title]), abs=1e-12), (sample, plot.title)
+                checked += 1
+            drawn = {p.label.split(" · ")[0] for run in plot.runs for p in run}
+            carried = {s["sample_id"] for s in view.samples if recorded_value(s, plot.title) is not None}
+            assert drawn == carried  # every value a record carries is drawn, and nothing else
+    assert checked > 400
 
 
-def test_oil_changes_are_found_where_the_scenario_says(graded):
-    views = {v.unit_id: v for v in unit_views(graded["records"])}
+def test_the_plot_uses_the_rows_own_new_oil_value_as_the_engine_did(tmp_path):
+    # The issue's case: the lubricants table says new an 0.04, the row's own new_an says 0.07; the engine
+    # grades an_rise = 0.09 - 0.07 = 0.02 (the row wins: README, "New-oil values"), never 0.05.
+    rules = DATA / "new-an.yaml"
+    results = tmp_path / "r.jsonl"
+    code, _, err = cli("grade", DATA / "new-an.csv", "--rules", rules, "--out", results)
+    assert code == 0, err
+    records = parse_results(results.read_text().splitlines(), "r.jsonl")
+    ruleset = load_ruleset(rules)
+    (view,) = unit_views(records, ruleset)
+    plot = next(p for p in unit_plots(view, Ladder.of(records, ruleset)) if p.title == "an_rise")
+    points = {p.label.split(" · ")[0]: p.y for run in plot.runs for p in run}
+    assert points["N2"] == pytest.approx(0.35 - 0.07)  # fired: the reason's value
+    quiet = next(r for r in records if r["sample_id"] == "N1")
+    if "derived" in quiet:  # records that carry the engine's derived values: drawn as graded
+        assert points["N1"] == pytest.approx(0.02)
+    else:  # older records: not drawn rather than recomputed from the lubricants table
+        assert "N1" not in points
+    assert all(abs(y - 0.05) > 1e-9 for y in points.values())
+
+
+def test_oil_changes_are_the_ones_the_engine_recorded(graded):
+    views = {v.unit_id: v for v in unit_views(graded["records"], load_ruleset(RULES))}
     # scenarios/brackwater/README.md: ST-2 changed 18 July, BP-0182 first after; AC-1 in May, BP-0111
     for unit, first_after in (("ST-2", "BP-0182"), ("AC-1", "BP-0111")):
         samples = views[unit].samples
-        assert [samples[k]["sample_id"] for k in oil_changes(samples)] == [first_after]
-    tree = parse(graded["html"])
-    assert sum(1 for tag, a in tree.tags if tag == "g" and a.get("class") == "event") >= 6  # 2 changes x 3 plots
+        assert [s["sample_id"] for s in samples if starts_charge(s)] == [first_after]
+        plots = unit_plots(views[unit], Ladder.of(graded["records"], None))
+        for plot in plots:
+            assert len(plot.marks) == 1
+            if len(plot.runs) == 2:  # values on both sides of the change: two lines, split at the change
+                before, after = plot.runs
+                assert max(p.x for p in before) < plot.marks[0].x < min(p.x for p in after)
+    sections = _sections(graded["html"])
+    drawn = [p for p in unit_plots(views["ST-2"], Ladder.of(graded["records"], None)) if p.runs]
+    assert sections["ST-2"].count('class="event"') == len(drawn) > 0
+
+
+def test_an_oil_change_flag_is_drawn_from_the_record(tmp_path):
+    records = [_record("F1", "2026-01-05", 0, {"water": 80.0}), _record("F2", "2026-02-05", 0, {"water": 90.0}),
+               dict(_record("F3", "2026-03-05", 0, {"water": 30.0}), oil_changed=True)]
+    (view,) = unit_views(records, load_ruleset(DATA / "new-an.yaml"))
+    plot = next(p for p in unit_plots(view, Ladder.of(records, None)) if p.title == "water")
+    assert [len(run) for run in plot.runs] == [2, 1] and len(plot.marks) == 1
 
 
 def test_units_needing_attention_come_first(graded):
-    views = unit_views(graded["records"])
+    views = unit_views(graded["records"], load_ruleset(RULES))
     ranks = [(-1 if v.latest_level is None else v.latest_level) for v in views]
     top = max(r["level"] or 0 for r in graded["records"])
     assert views[0].latest_level == top
@@ -218,13 +332,69 @@ def test_units_needing_attention_come_first(graded):
     assert graded_ranks == sorted(graded_ranks, reverse=True)
 
 
-def test_without_the_rule_set_the_plots_show_lab_values_and_no_limits(graded, tmp_path):
+def _record(sample_id, sampled_on, level, values, grade=None, reasons=(), unit="U-1"):
+    grades = ("normal", "watch", "alert", "urgent")
+    return {"sample_id": sample_id, "unit_id": unit, "class": "steam-turbine", "lubricant": "TURB-46-M",
+            "sampled_on": sampled_on, "values": values, "method": "direct",
+            "grade": grade or grades[level], "level": level, "reasons": list(reasons), "caveats": [],
+            "not_evaluated": [], "notice": "n", "ruleset": {"id": "r", "version": 1, "sha256": "ab"}, "engine": "e"}
+
+
+def test_the_trend_column_follows_the_values_not_only_the_grades(tmp_path):
+    # water climbs 40, 60, 85 ppm under a watch limit of 100: the grade stays normal, the values do not
+    rules = DATA / "new-an.yaml"
+    ruleset = load_ruleset(rules)
+    climbing = [_record(f"W{k}", f"2026-0{k}-01", 0, {"water": w}, unit="ST-9") for k, w in ((1, 40.0), (2, 60.0),
+                                                                                          (3, 85.0))]
+    noisy = [_record(f"Q{k}", f"2026-0{k}-01", 0, {"water": w}, unit="ST-8") for k, w in ((1, 40.0), (2, 70.0),
+                                                                                       (3, 55.0))]
+    views = {v.unit_id: v for v in unit_views(climbing + noisy, ruleset)}
+    assert views["ST-9"].grade_move == "same" and views["ST-9"].rising == ("water",)
+    assert "worsening: water" in views["ST-9"].trend
+    assert views["ST-8"].rising == () and views["ST-8"].trend == "grade steady"
+    assert [v.unit_id for v in unit_views(climbing + noisy, ruleset)] == ["ST-9", "ST-8"]
+
+
+@pytest.mark.parametrize("levels", [[0], [2], [1, 3], [2, 2, 3]])
+def test_any_valid_results_render_without_the_rule_set(levels, tmp_path):
+    # issue 10: one sample; issue 14: results that do not hold every grade from the lowest up
+    names = {0: "normal", 1: "watch", 2: "alert", 3: "urgent"}
+    reason = {"rule": "water", "measure": "water", "value": 500.0, "unit": "ppm", "test": "above", "limit": 300,
+              "grade": "alert", "message": "m", "source": "s"}
+    records = [_record(f"L{k}", f"2026-0{k + 1}-01", level, {"water": 500.0},
+                       reasons=[dict(reason, grade=names[level])] if level else ()) for k, level in enumerate(levels)]
+    path = tmp_path / "few.jsonl"
+    path.write_text("".join(json.dumps(r) + "\n" for r in records))
+    code, _, err = cli("report", "--results", path, "--out", tmp_path / "few.html")
+    assert code == 0, err
+    html = (tmp_path / "few.html").read_text()
+    for level in levels:
+        assert names[level] in html
+    ladder = Ladder.of(parse_results(path.read_text().splitlines(), "few.jsonl"), None)
+    assert ladder.names[max(levels)] == names[max(levels)] and len(ladder.names) == max(levels) + 1
+
+
+def test_a_one_sample_file_renders_from_the_real_grader(tmp_path):
+    one = tmp_path / "one.csv"
+    lines = (SCENARIO / "samples.csv").read_text().splitlines()
+    one.write_text(lines[0] + "\n" + lines[1] + "\n")
+    results = tmp_path / "one.jsonl"
+    assert cli("grade", one, "--rules", RULES, "--out", results)[0] == 0
+    for extra in ((), ("--rules", RULES)):
+        code, _, err = cli("report", "--results", results, "--out", tmp_path / "one.html", *extra)
+        assert code == 0, err
+
+
+def test_without_the_rule_set_the_plots_follow_the_findings_and_draw_no_limits(graded, tmp_path):
     out = tmp_path / "raw.html"
     code, _, err = cli("report", "--results", graded["results"], "--out", out)
     assert code == 0, err
     html = out.read_text()
     assert 'class="limit"' not in html and "no limits are drawn" in html
     assert "rows the grader rejected are not counted" in html
+    views = {v.unit_id: v for v in unit_views(graded["records"])}
+    fired = {m for s in views["ST-2"].samples for r in s["reasons"] if "measure" in r for m in [r["measure"]]}
+    assert fired <= {w.measure for w in views["ST-2"].watched}
 
 
 def test_a_rule_set_other_than_the_grading_one_is_refused(graded, tmp_path):
@@ -258,9 +428,23 @@ def test_demo_writes_the_report(tmp_path):
     assert code == 0, err
     report = tmp_path / "brackwater-report.html"
     assert f"report: {report}" in out
-    tree = parse(report.read_text())
+    html = report.read_text()
     records = [json.loads(x) for x in (tmp_path / "brackwater-results.jsonl").read_text().splitlines()]
-    assert {r["sample_id"] for r in records if (r["level"] or 0) > 0} <= set(tree.articles)
+    for record in records:
+        if (record["level"] or 0) > 0:
+            assert f"data-sample=\"{record['sample_id']}\"" in html or f"data-sample='{record['sample_id']}'" in html
+    # the demo grades in-process, so its report draws the engine's own forecasts, each in its unit's card
+    from sumpwise import grade, read_samples
+    ruleset = load_ruleset(RULES)
+    forecasts = grade(read_samples(SCENARIO / "samples.csv", None, None, None, ruleset.measures), ruleset).forecasts
+    dated = [f for f in forecasts if f.on]
+    assert dated  # scenarios/brackwater/README.md walks through SWP-3's iron forecast
+    sections = _sections(html)
+    for unit in {f.unit_id for f in dated}:
+        mine = [f for f in dated if f.unit_id == unit]
+        assert sections[unit].count('class="projection"') == len(mine), unit
+        for f in mine:
+            assert f"{f.rule}: {f.measure} reaches the {f.grade} limit" in _flat(sections[unit])
 
 
 def test_report_runs_as_a_subprocess(graded, tmp_path):
@@ -314,3 +498,72 @@ def test_date_ticks_fall_on_month_starts():
         assert day.day == 1 and label == f"{day.year}-{day.month:02d}"
         assert calendar.monthrange(day.year, day.month)[1] >= 28
     assert [date.fromordinal(t).month for t, _ in ticks] == [3, 5, 7, 9, 11]
+
+
+def test_a_forecast_is_drawn_from_the_last_sample_to_the_limit_it_reaches(graded):
+    # The forecast's numbers are given here in the shape derive.forecast.Forecast.to_record writes; the
+    # report only places them: from the unit's latest sample to the limit on the forecast's date.
+    ruleset = load_ruleset(RULES)
+    view = next(v for v in unit_views(graded["records"], ruleset) if v.unit_id == "ST-1")
+    latest = view.samples[-1]
+    ahead = {"unit_id": "ST-1", "sample_id": latest["sample_id"], "rule": "water", "measure": "water",
+             "unit": "ppm", "grade": "alert", "test": "above", "limit": 300.0, "samples": 5, "value": 120.0,
+             "on": "2027-03-01", "on_low": "2027-01-15", "on_high": None, "method": "a stated method"}
+    undated = dict(ahead, on=None, on_low=None, rule="acid-rise", measure="an_rise")
+    ladder = Ladder.of(graded["records"], ruleset)
+    plots = {p.title: p for p in unit_plots(view, ladder, [ahead, undated])}
+    (drawn,) = plots["water"].projections
+    assert (drawn.x0, drawn.y0) == (date.fromisoformat(latest["sampled_on"]).toordinal(), 120.0)
+    assert (drawn.x1, drawn.y1) == (date(2027, 3, 1).toordinal(), 300.0)
+    assert drawn.x_low == date(2027, 1, 15).toordinal() and drawn.x_high is None
+    assert drawn.level == ruleset.grades.index("alert")
+    assert plots["an_rise"].projections == ()  # no date to place it on an axis of dates
+    html = render_report(graded["records"], (), ruleset, forecasts=[ahead])
+    section = _sections(html)["ST-1"]
+    assert section.count('class="projection"') == 1
+    assert "water reaches the alert limit (300 ppm) about 2027-03-01" in _flat(section)
+    assert all('class="projection"' not in s for unit, s in _sections(html).items() if unit != "ST-1")
+
+
+def test_without_the_rule_set_the_way_to_worse_comes_from_the_findings():
+    # water 320 ppm crossed an `above` limit of 300 (alert); then 120, 150, 190 ppm after a fix: normal but climbing
+    finding = {"rule": "water", "measure": "water", "value": 320.0, "unit": "ppm", "test": "above", "limit": 300,
+               "grade": "alert", "message": "m", "source": "s"}
+    records = [_record("A1", "2026-01-01", 2, {"water": 320.0}, reasons=[finding])]
+    records += [_record(f"A{k}", f"2026-0{k}-01", 0, {"water": w}) for k, w in ((2, 120.0), (3, 150.0), (4, 190.0))]
+    (view,) = unit_views(records)
+    assert view.rising == ("water",) and view.grade_move == "same"
+    falling = records[:1] + [_record(f"B{k}", f"2026-0{k}-01", 0, {"water": w})
+                             for k, w in ((2, 190.0), (3, 150.0), (4, 120.0))]
+    assert unit_views(falling)[0].rising == ()
+
+
+def test_records_that_name_one_level_twice_are_refused_not_drawn_wrongly(tmp_path):
+    records = [_record("C1", "2026-01-01", 1, {"water": 150.0}), _record("C2", "2026-02-01", 1, {"water": 160.0},
+                                                                           grade="caution")]
+    path = tmp_path / "mixed.jsonl"
+    path.write_text("".join(json.dumps(r) + "\n" for r in records))
+    code, _, err = cli("report", "--results", path, "--out", tmp_path / "mixed.html")
+    assert code == 2 and "level 1 both 'watch' and 'caution'" in err
+
+
+def test_text_from_the_records_is_escaped_in_steps_and_findings():
+    hostile = "<script>alert(1)</script>"
+    finding = {"rule": "water", "measure": "water", "value": 500.0, "unit": "ppm", "test": "above", "limit": 300,
+               "grade": "alert", "message": hostile, "source": hostile, "next_step": {"task": hostile}}
+    records = [_record("H1", "2026-01-01", 2, {"water": 500.0}, reasons=[finding], unit=hostile)]
+    html = render_report(records)
+    assert "<script>" not in html and "&lt;script&gt;" in html
+
+
+def test_an_oil_change_flagged_in_the_samples_file_is_drawn(tmp_path):
+    # issue 10: a change flagged with `oil_changed` (oil hours still climbing, so only the flag says so)
+    results = tmp_path / "r.jsonl"
+    code, _, err = cli("grade", DATA / "oil-change.csv", "--rules", DATA / "new-an.yaml", "--out", results)
+    assert code == 0, err
+    records = parse_results(results.read_text().splitlines(), "r.jsonl")
+    ruleset = load_ruleset(DATA / "new-an.yaml")
+    (view,) = unit_views(records, ruleset)
+    water = next(p for p in unit_plots(view, Ladder.of(records, ruleset)) if p.title == "water")
+    assert [[p.label.split(" · ")[0] for p in run] for run in water.runs] == [["A", "B"], ["C"]]
+    assert len(water.marks) == 1 and water.marks[0].label == "oil changed"

@@ -76,7 +76,7 @@ def report(tmp_path_factory) -> Path:
     return target
 
 
-def test_page_lays_out_with_the_plots_in_rows_of_three(report, tmp_path):
+def test_page_lays_out_with_the_plots_in_rows_of_four(report, tmp_path):
     browser = _chromium()
     probe = tmp_path / "probe.html"
     probe.write_text(report.read_text().replace("</body>", _PROBE + "</body>"))
@@ -85,15 +85,17 @@ def test_page_lays_out_with_the_plots_in_rows_of_three(report, tmp_path):
     assert found, "the layout probe did not run: " + done.stdout[-500:]
     facts = json.loads(found.group(1).replace("&quot;", '"').replace("&amp;", "&"))
     assert facts["units"] == 14  # scenarios/brackwater/README.md: fourteen units
-    assert len(facts["plots"]) == 3 * facts["units"]
+    assert len(facts["plots"]) >= 3 * facts["units"]  # each unit plots every measure its class's rules read
     assert facts["points"] > 300
     assert facts["scroll"] <= facts["inner"], "the page scrolls sideways"
     assert facts["band"][1] > 10
-    for k in range(0, len(facts["plots"]), 3):
-        row = facts["plots"][k:k + 3]
-        assert all(w > 200 and h > 120 for _, _, w, h in row), row
-        assert len({round(top) for _, top, _, _ in row}) == 1, row  # side by side
-        assert row[0][0] < row[1][0] < row[2][0]
+    rows: dict[int, list] = {}
+    for left, top, width, height in facts["plots"]:
+        assert width > 200 and height > 120, (width, height)
+        rows.setdefault(round(top), []).append(left)
+    assert max(len(lefts) for lefts in rows.values()) == 4  # four side by side
+    for lefts in rows.values():
+        assert lefts == sorted(lefts) and len(set(lefts)) == len(lefts)
 
 
 def _png_size(path: Path) -> tuple[int, int]:
@@ -116,4 +118,5 @@ def test_screenshot_and_print(report):
     data = pdf.read_bytes()
     assert data.startswith(b"%PDF-")
     pages = len(re.findall(rb"/Type\s*/Page[^s]", data))
-    assert pages >= 5, pages
+    # the demo year: one card per unit (fourteen), not one per flagged sample; it printed 68 pages before
+    assert 5 <= pages <= 24, pages
