@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.ledger.schema import batch_digest, fingerprint
+from sumpwise.ledger.schema import batch_digest, fingerprint, result_from_record  # noqa: F401 (API)
 from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch_rejects, current_contents,
                                    current_verdicts, find_entries, history_frame, open_ledger, reads_ledger,
                                    ruleset_text, sample_entries, stored_rulesets, unit_entries)

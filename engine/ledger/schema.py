@@ -20,7 +20,8 @@ import json
 import sqlite3
 
 from sumpwise.results.facts import result_facts, shape_rules
-from sumpwise.results.records import CaveatNote, Clause, NotEvaluated, Reason, SampleResult
+from sumpwise.results.records import (CaveatNote, Clause, NotEvaluated, Reason, SampleResult,
+                                      next_step_from_record)
 
 STEP_1 = """
     CREATE TABLE rulesets (
@@ -182,8 +183,9 @@ def chain(conn: sqlite3.Connection, first: int) -> None:
         conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (previous, batch))
 
 
-def v2_result(record: dict, grades: tuple) -> SampleResult:
-    """A schema-2 record (the JSON Lines record of that time) as the SampleResult it was written from."""
+def result_from_record(record: dict, grades: tuple) -> SampleResult:
+    """A self-contained JSON Lines record (a schema-2 ledger's stored text, or a line `grade`
+    wrote) as the SampleResult it was written from."""
     reasons = []
     for r in record["reasons"]:
         clauses = tuple(Clause(c["test"], c["limit"], c["held"], c["value"], measure=c.get("measure"),
@@ -191,14 +193,15 @@ def v2_result(record: dict, grades: tuple) -> SampleResult:
         reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), r["message"], r["source"],
                               measure=r.get("measure"), value=r.get("value"), unit=r.get("unit"),
                               test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
-                              capped_by=r.get("capped_by"), clauses=clauses))
+                              capped_by=r.get("capped_by"), clauses=clauses,
+                              next_step=next_step_from_record(r.get("next_step"))))
     ruleset = record["ruleset"]
     return SampleResult(
         sample_id=record["sample_id"], unit_id=record["unit_id"], class_name=record["class"],
         lubricant=record["lubricant"], sampled_on=record["sampled_on"], grade=record["grade"],
         level=record["level"], reasons=tuple(reasons),
-        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())))
-                      for c in record["caveats"]),
+        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())),
+                                 next_step_from_record(c.get("next_step"))) for c in record["caveats"]),
         not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"])) for n in record["not_evaluated"]),
         notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
         ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),
@@ -219,7 +222,7 @@ def _step_3_data(conn: sqlite3.Connection) -> None:
                           "FROM results r JOIN samples s ON s.entry = r.entry JOIN batches b ON b.batch = s.batch "
                           "ORDER BY r.entry")
     while rows := cursor.fetchmany(DIGEST_ROWS):
-        facts = [result_facts(v2_result(json.loads(record), grades[sha]), names[batch])
+        facts = [result_facts(result_from_record(json.loads(record), grades[sha]), names[batch])
                  for _, _, _, record, sha, batch in rows]
         shapes = shape_ids(conn, [shape for shape, _ in facts])
         conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
