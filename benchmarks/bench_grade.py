@@ -1,11 +1,15 @@
-"""Benchmark: grade synthetic samples end to end and print figures per stage.
+"""Benchmark: grade synthetic samples end to end and print each figure beside its floor or target.
 
-Prints seconds, samples/s and peak resident memory for each stage (read CSV, derive
-measures, evaluate, build reasons, write JSON Lines) on N samples (default 1,000,000)
-against the shipped rules of all six classes, then the same rules through the plain
-per-row evaluator (row_evaluator.py) on a smaller batch, and the speed ratio.
+On N samples (default 1,000,000) against the shipped rules of all six classes: the stages
+in one process (read CSV, derive + evaluate, render compact and full JSON Lines, the
+per-record API `graded.results()`, and the per-row evaluator against derive + evaluate); then whole processes: `sumpwise grade` to compact and
+to full records, and the per-row peer script (peer_per_row.py: csv module + the per-row
+oracle) on a smaller file, whose output must equal sumpwise's byte for byte. With
+--chunked-rows M it also grades an M-row file in chunks and prints the process's peak
+memory. Figures only: nothing here is asserted.
 
-    .venv/bin/python benchmarks/bench_grade.py [--rows N] [--baseline-rows M]
+    .venv/bin/python benchmarks/bench_grade.py [--rows N] [--peer-rows M] [--api-rows K] [--baseline-rows B]
+                                               [--chunked-rows R [--chunk-rows C]]
 """
 
 from __future__ import annotations
@@ -13,6 +17,7 @@ from __future__ import annotations
 import argparse
 import os
 import resource
+import subprocess
 import sys
 import tempfile
 import time
@@ -22,17 +27,16 @@ import numpy as np
 import pandas as pd
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent / "tests" / "support"))  # the per-row evaluator
+RULES = HERE / "all-classes.yaml"
 
-from row_evaluator import grade_row  # noqa: E402
-
-from sumpwise.ruleset.compiler import load_ruleset  # noqa: E402
-from sumpwise.evaluation.evaluator import evaluate  # noqa: E402
-from sumpwise.derive.row_measures import derive_measures
- # noqa: E402
-from sumpwise.render.jsonl import jsonl_lines  # noqa: E402
-from sumpwise.results.records import GradedBatch  # noqa: E402
 from sumpwise.intake.samples import read_samples  # noqa: E402
+from sumpwise.render.jsonl import jsonl_lines  # noqa: E402
+from sumpwise.results.pipeline import grade_batch  # noqa: E402
+from sumpwise.ruleset.compiler import load_ruleset  # noqa: E402
+
+TARGETS = {"compact": 4.0, "full": 10.0}  # seconds per 1,000,000 samples, CSV in to JSON Lines out
+PEER_RATIO = 5.0  # sumpwise grade at least this many times faster than the per-row peer, whole process
+MEMORY_MB = 2048  # peak resident memory of a chunked 10,000,000-row grade
 
 
 def peak_mb() -> float:
@@ -69,94 +73,174 @@ def synthetic(ruleset, n: int, seed: int = 7) -> pd.DataFrame:
     return frame
 
 
-def stage(name: str, n: int, started: float, figures: list) -> float:
-    now = time.perf_counter()
-    seconds = now - started
-    figures.append((name, seconds, n / seconds if seconds else float("inf"), peak_mb()))
-    return now
+def write_csv(ruleset, n: int, path: Path, seed: int = 7, block: int = 1_000_000, dated: bool = False) -> Path:
+    """The synthetic CSV, written a block at a time (a 10,000,000-row file never sits in memory).
+
+    `dated`: a new sampling day every 100,000 rows, so each unit's samples come in date order
+    across the chunks `grade` reads (a file graded in chunks must be in that order).
+    """
+    with open(path, "w", encoding="utf-8", newline="") as out:
+        for start in range(0, n, block):
+            frame = synthetic(ruleset, min(block, n - start), seed + start)
+            numbers = np.arange(start, start + len(frame))
+            frame["sample_id"] = np.char.add("S", numbers.astype(str))
+            if dated:
+                days = pd.Timestamp("2020-01-01") + pd.to_timedelta(numbers // 100_000, unit="D")
+                frame["sampled_on"] = days.strftime("%Y-%m-%d")
+            frame.to_csv(out, index=False, header=start == 0)
+    return path
+
+
+def children_cpu() -> float:
+    usage = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return usage.ru_utime + usage.ru_stime
+
+
+def run(argv: list) -> tuple[float, float, float]:
+    """Wall seconds, CPU seconds and the children's peak resident MB of one whole process."""
+    started, cpu = time.perf_counter(), children_cpu()
+    subprocess.run([sys.executable] + [str(a) for a in argv], check=True, stdout=subprocess.DEVNULL,
+                   stderr=subprocess.PIPE)
+    seconds = time.perf_counter() - started
+    return seconds, children_cpu() - cpu, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
+
+
+class Clock:
+    """Wall and CPU time of a stage: on a shared machine the CPU time is the steadier figure."""
+
+    def __init__(self):
+        self.wall, self.cpu = time.perf_counter(), time.process_time()
+
+    def lap(self) -> tuple[float, float]:
+        wall, cpu = time.perf_counter() - self.wall, time.process_time() - self.cpu
+        self.wall, self.cpu = time.perf_counter(), time.process_time()
+        return wall, cpu
+
+
+def row(name: str, times: tuple, n: int, note: str = "") -> None:
+    wall, cpu = times
+    scale = 1_000_000 / n
+    print(f"{name:<40} wall {wall:>7.2f} s  cpu {cpu:>7.2f} s  per 1,000,000: wall {wall * scale:>7.2f} s, "
+          f"cpu {cpu * scale:>7.2f} s  {note}")
+
+
+def evaluator_baseline(ruleset, m: int) -> None:
+    """The per-row oracle (tests/support/row_evaluator.py) against derive + evaluate on the same rows."""
+    sys.path.insert(0, str(HERE.parent / "tests" / "support"))
+    from row_evaluator import grade_row
+    from sumpwise.derive.row_measures import derive_measures
+    from sumpwise.evaluation.evaluator import evaluate
+    small = synthetic(ruleset, m, seed=11)
+    rows = small.to_dict("records")
+    clock = Clock()
+    for one in rows:
+        grade_row(ruleset, one)
+    loop = clock.lap()
+    evaluate(ruleset, derive_measures(small, ruleset.lubricants))
+    engine = clock.lap()
+    row(f"per-row evaluator, {m:,} samples", loop, m)
+    row(f"derive + evaluate, the same {m:,}", engine, m,
+        f"{loop[0] / engine[0]:.0f} times faster (wall), {loop[1] / engine[1]:.0f} (CPU); target at least 100")
 
 
 def main() -> None:
+    sys.stdout.reconfigure(line_buffering=True)
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rows", type=int, default=1_000_000)
+    parser.add_argument("--peer-rows", type=int, default=100_000)
+    parser.add_argument("--api-rows", type=int, default=100_000)
     parser.add_argument("--baseline-rows", type=int, default=100_000)
+    parser.add_argument("--chunked-rows", type=int, default=0, help="also grade this many rows in chunks")
+    parser.add_argument("--chunk-rows", type=int, default=0,
+                        help="the chunked grade's --chunk-rows (default: grade's); a multiple of 100,000, since the "
+                             "chunked file's samples are dated a day per 100,000 rows")
     args = parser.parse_args()
 
-    ruleset = load_ruleset(HERE / "all-classes.yaml")
+    ruleset = load_ruleset(RULES)
     rules = sum(len(ruleset.rules_for(c)) for c in ruleset.classes)
     with tempfile.TemporaryDirectory() as folder:
-        csv_path = Path(folder) / "samples.csv"
-        synthetic(ruleset, args.rows).to_csv(csv_path, index=False)
-        out_path = Path(folder) / "results.jsonl"
-        print(f"{args.rows:,} samples, {len(ruleset.classes)} classes, {rules} rules in all "
-              f"({len(ruleset.caveats)} caveats); CSV {csv_path.stat().st_size / 1e6:.0f} MB; "
-              f"numpy {np.__version__}, pandas {pd.__version__}, {os.cpu_count()} cores")
-        figures: list = []
-        t = time.perf_counter()
+        folder = Path(folder)
+        csv_path = write_csv(ruleset, args.rows, folder / "samples.csv")
+        n = args.rows
+        print(f"{n:,} samples, {len(ruleset.classes)} classes, {rules} rules in all ({len(ruleset.caveats)} "
+              f"caveats); CSV {csv_path.stat().st_size / 1e6:.0f} MB; numpy {np.__version__}, pandas "
+              f"{pd.__version__}, {os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
+
+        print("\nin one process (stages):")
+        clock = Clock()
         batch = read_samples(csv_path)
-        t = stage("read CSV", args.rows, t, figures)
-        measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
-        t = stage("derive measures", args.rows, t, figures)
-        outcome = evaluate(ruleset, measured)
-        t = stage("evaluate", args.rows, t, figures)
-        graded = GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source,
-                             ("kv40", "kv100", "an", "oxidation", "water", "oil_hours"))
-        size = sum(len(block) for block in jsonl_lines(graded))  # rendered block by block, then dropped
-        t = stage("build reasons", args.rows, t, figures)
-        with open(out_path, "w", encoding="utf-8") as out:
-            for block in jsonl_lines(graded):
-                out.write(block)
-        t = stage("write JSON Lines", args.rows, t, figures)
-        print(f"{'stage':<18} {'seconds':>8} {'samples/s':>12} {'peak MB':>9}")
-        for name, seconds, rate, peak in figures:
-            print(f"{name:<18} {seconds:>8.3f} {rate:>12,.0f} {peak:>9.0f}")
-        # 'build reasons' renders every record's reasons to JSON text and drops it; 'write JSON
-        # Lines' renders again and writes to disk, so end to end counts the write stage only.
-        total = sum(seconds for name, seconds, _, _ in figures if name != "build reasons")
-        print(f"{'end to end':<18} {total:>8.3f} {args.rows / total:>12,.0f} {peak_mb():>9.0f}")
-        print(f"JSON Lines output: {size / 1e6:.0f} MB, {size / args.rows:.0f} characters a sample "
-              f"(end to end = read + derive + evaluate + write; 'write' includes rendering)")
-        print(f"evaluation (reasons as arrays: each rule's level, cap and caveat per sample): "
-              f"{figures[2][1]:.3f} s; with reasons rendered to JSON text: {figures[2][1] + figures[3][1]:.3f} s")
-        print_floors(csv_path, graded, size, Path(folder) / "floor.jsonl")
+        row("read CSV and validate rows", clock.lap(), n)
+        pd.read_csv(csv_path)
+        row("floor: pandas.read_csv alone", clock.lap(), n)
+        graded = grade_batch(batch, ruleset)
+        row("derive, trends, evaluate", clock.lap(), n)
+        sizes = {}
+        for form in ("compact", "full"):
+            target = folder / f"{form}.jsonl"
+            clock = Clock()
+            with open(target, "w", encoding="utf-8") as out:
+                for block in jsonl_lines(graded, form=form):
+                    out.write(block)
+            sizes[form] = target.stat().st_size
+            row(f"render + write {form} JSON Lines", clock.lap(), n,
+                f"{sizes[form] / 1e6:,.0f} MB, {sizes[form] / n:,.0f} bytes a sample")
+            block = next(jsonl_lines(graded, form=form))
+            clock = Clock()
+            with open(folder / "floor.jsonl", "w", encoding="utf-8") as out:
+                for _ in range(max(1, round(sizes[form] / len(block.encode())))):
+                    out.write(block)
+            row(f"floor: writing {sizes[form] / 1e6:,.0f} MB of ready text", clock.lap(), n)
+            (folder / "floor.jsonl").unlink()
+            target.unlink()
+        evaluator_baseline(ruleset, min(args.baseline_rows, n))
+        api = min(args.api_rows, n)
+        values = graded.results()
+        clock = Clock()
+        for _ in range(api):
+            next(values)
+        row(f"graded.results(), first {api:,} records", clock.lap(), api)
+        print(f"peak memory of this process so far: {peak_mb():,.0f} MB")
+        del graded, batch, values
 
-        small = synthetic(ruleset, args.baseline_rows, seed=11)
-        rows = small.to_dict("records")
-        t0 = time.perf_counter()
-        for row in rows:
-            grade_row(ruleset, row)
-        loop = time.perf_counter() - t0
-        small_batch = read_samples(_to_csv(small, Path(folder) / "small.csv"))
-        t0 = time.perf_counter()
-        small_measured = derive_measures(small_batch.frame, ruleset.lubricants)
-        small_outcome = evaluate(ruleset, small_measured)
-        engine_seconds = time.perf_counter() - t0
-        print(f"per-row evaluator: {args.baseline_rows:,} samples in {loop:.2f} s "
-              f"({args.baseline_rows / loop:,.0f} samples/s); engine derive+evaluate on the same rows: "
-              f"{engine_seconds:.3f} s; ratio {loop / engine_seconds:.0f}x")
-        del small_outcome
+        print("\nwhole process, `sumpwise grade SAMPLES --rules all-classes.yaml --out ...`:")
+        for form in ("compact", "full"):
+            seconds, cpu, peak = run(["-m", "sumpwise", "grade", csv_path, "--rules", RULES, "--record", form,
+                                      "--out", folder / f"{form}.jsonl"])
+            verdict = "met" if seconds * 1_000_000 / n <= TARGETS[form] else "NOT met"
+            row(f"--record {form}", (seconds, cpu), n, f"target {TARGETS[form]:.0f} s per 1,000,000 (wall): "
+                                                       f"{verdict}; peak of any child so far {peak:,.0f} MB")
+            (folder / f"{form}.jsonl").unlink()
 
+        m = args.peer_rows
+        peer_csv = write_csv(ruleset, m, folder / "peer.csv", seed=11)
+        ours = run(["-m", "sumpwise", "grade", peer_csv, "--rules", RULES, "--record", "compact",
+                    "--out", folder / "ours.jsonl"])[:2]
+        theirs = run([HERE / "peer_per_row.py", peer_csv, "--rules", RULES, "--out", folder / "peer.jsonl"])[:2]
+        same = (folder / "ours.jsonl").read_bytes() == (folder / "peer.jsonl").read_bytes()
+        print(f"\nper-row peer (peer_per_row.py) on {m:,} samples, whole process, compact records:")
+        row("sumpwise grade --record compact", ours, m)
+        row("peer_per_row.py", theirs, m, f"same bytes as sumpwise: {same}")
+        ratio, cpu_ratio = theirs[0] / ours[0], theirs[1] / ours[1]
+        print(f"sumpwise is {ratio:.1f} times faster by wall time, {cpu_ratio:.1f} by CPU time "
+              f"(target at least {PEER_RATIO:.0f}: {'met' if ratio >= PEER_RATIO else 'NOT met'} by wall time)")
 
-def print_floors(csv_path: Path, graded: GradedBatch, size: int, out_path: Path) -> None:
-    """What the two ends cost with no sumpwise work at all: the same CSV parsed by pandas with
-    default options, and the same number of characters of already rendered text written out."""
-    t = time.perf_counter()
-    pd.read_csv(csv_path)
-    parse = time.perf_counter() - t
-    block = next(jsonl_lines(graded))
-    t = time.perf_counter()
-    with open(out_path, "w", encoding="utf-8") as out:
-        for _ in range(max(1, round(size / len(block)))):
-            out.write(block)
-    write = time.perf_counter() - t
-    out_path.unlink()
-    print(f"floors: pandas.read_csv alone {parse:.3f} s; writing {size / 1e6:,.0f} MB of ready text "
-          f"(one block, written over and over) {write:.3f} s; together {parse + write:.3f} s")
-
-
-def _to_csv(frame: pd.DataFrame, path: Path) -> Path:
-    frame.to_csv(path, index=False)
-    return path
+        if args.chunked_rows:
+            big = write_csv(ruleset, args.chunked_rows, folder / "big.csv", seed=23, dated=True)
+            chunking = ["--chunk-rows", str(args.chunk_rows)] if args.chunk_rows else []
+            print(f"\nchunked grade of {args.chunked_rows:,} samples ({big.stat().st_size / 1e9:.2f} GB CSV), "
+                  f"compact records, --chunk-rows {args.chunk_rows or 'default'}:")
+            clock = Clock()
+            cpu = children_cpu()
+            result = subprocess.run(["/usr/bin/time", "-f", "%M", sys.executable, "-m", "sumpwise", "grade", str(big),
+                                     "--rules", str(RULES), "--record", "compact", "--out", str(folder / "big.jsonl")]
+                                    + chunking,
+                                    check=True, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+            seconds = clock.lap()[0], children_cpu() - cpu
+            peak = int(result.stderr.strip().splitlines()[-1]) / 1024.0
+            lines = sum(1 for _ in open(folder / "big.jsonl", "rb"))
+            row("sumpwise grade, chunked", seconds, args.chunked_rows,
+                f"peak {peak:,.0f} MB (target within {MEMORY_MB:,} MB: {'met' if peak <= MEMORY_MB else 'NOT met'});"
+                f" {lines:,} records")
 
 
 if __name__ == "__main__":

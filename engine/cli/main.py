@@ -9,6 +9,7 @@ or a ledger import rejected rows whose sample id was recorded with other values)
 from __future__ import annotations
 
 import argparse
+import contextlib
 import csv
 import sys
 import traceback
@@ -20,11 +21,13 @@ from sumpwise.cli import authoring as authoring_cli
 from sumpwise.vocabulary.cautions import CAUTIONS, caution_text
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.render.narrative import explain_lines
-from sumpwise.results.pipeline import grade_batch
+from sumpwise.results.pipeline import grade_batch, grade_in_chunks
+from sumpwise.intake.chunked import sample_chunks
 from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
 from sumpwise.render.table import write_table
+from sumpwise.results.records import FORMS, FULL
 from sumpwise.render.safe_text import spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.cli import spectra as spectra_command
@@ -34,6 +37,7 @@ from sumpwise.cli import report as report_command
 from sumpwise.cli.options import output_file, output_folder, positive_mm
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
+CHUNK_ROWS = 1_000_000  # rows `grade` reads, grades and writes at a time (see the README: large files)
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater"
 
@@ -88,6 +92,12 @@ def _parser(stdout) -> _Parser:
     _common_inputs(grade)
     grade.add_argument("--format", choices=("jsonl", "csv", "table"), default="jsonl",
                        help="output format (default jsonl)")
+    grade.add_argument("--record", choices=FORMS, default=FULL,
+                       help="JSON Lines record form: full (default; self-contained, every message, source and "
+                            "the notice) or compact (every fact; texts by reference to the rule set it names)")
+    grade.add_argument("--chunk-rows", type=_positive_rows, default=CHUNK_ROWS, metavar="N",
+                       help=f"read, grade and write the samples N rows at a time, so memory stays bounded "
+                            f"(default {CHUNK_ROWS:,}; not with --db or --format table, which take the whole file)")
     grade.add_argument("--out", metavar="PATH", type=output_file,
                        help="write results here instead of standard output")
     grade.add_argument("--rejects", metavar="PATH", type=output_file,
@@ -165,6 +175,16 @@ def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True)
                         help="FTIR cell path length of the spectra, mm (default 0.100)")
 
 
+def _positive_rows(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number of rows, found {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected at least 1 row, found {text!r}")
+    return value
+
+
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:
     """Run one command; streams are arguments so tests need no patching."""
     stdin = stdin or sys.stdin
@@ -219,44 +239,100 @@ def _read(args, stdin):
 
 def _write_rejects(batch, path, stderr) -> None:
     if path is None:
-        for r in batch.rejects:
-            who = f" (sample {r.sample_id})" if r.sample_id else ""
-            stderr.write(terminal_text(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}")
-                         + "\n")
+        _put_rejects(batch, stderr, None)
         return
     with open(path, "w", encoding="utf-8", newline="") as out:
-        if str(path).endswith(".csv"):
-            writer = csv.writer(out, lineterminator="\n")
+        _put_rejects(batch, out, str(path), header=True)
+
+
+def _put_rejects(batch, out, path: str | None, header: bool = False) -> None:
+    """Rejected rows: as CSV for a .csv path, JSON Lines for another path, sentences without one."""
+    if path is None:
+        for r in batch.rejects:
+            who = f" (sample {r.sample_id})" if r.sample_id else ""
+            out.write(terminal_text(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}")
+                      + "\n")
+    elif path.endswith(".csv"):
+        writer = csv.writer(out, lineterminator="\n")
+        if header:
             writer.writerow(["file", "row", "sample_id", "field", "code", "reason"])
-            for r in batch.rejects:
-                writer.writerow([spreadsheet_text(cell) for cell in
-                                 (batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason)])
-        else:
-            for r in batch.rejects:
-                out.write(dumps({"file": batch.source, "row": r.row, "sample_id": r.sample_id, "field": r.field,
-                                 "code": r.code, "reason": r.reason}) + "\n")
+        for r in batch.rejects:
+            writer.writerow([spreadsheet_text(cell) for cell in
+                             (batch.source, r.row, r.sample_id or "", r.field, r.code, r.reason)])
+    else:
+        for r in batch.rejects:
+            out.write(dumps({"file": batch.source, "row": r.row, "sample_id": r.sample_id, "field": r.field,
+                             "code": r.code, "reason": r.reason}) + "\n")
 
 
 def _summary(graded) -> str:
-    counts = graded.counts()
-    by_grade = Counter(graded.grades())
-    ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(graded.ruleset.grades) + ["unrated"])
-    return (f"sumpwise: {graded.source}: read {counts['read']} row(s): {counts['graded']} graded, "
+    return _summary_line(graded.source, graded.counts(), Counter(graded.grades()), graded.ruleset.grades)
+
+
+def _summary_line(source: str, counts: dict, by_grade: Counter, grades: tuple) -> str:
+    ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(grades) + ["unrated"])
+    return (f"sumpwise: {source}: read {counts['read']} row(s): {counts['graded']} graded, "
             f"{counts['unrated']} unrated, {counts['rejected']} rejected ({ladder})\n")
 
 
 def _grade(args, stdin, stdout, stderr) -> int:
+    if args.record != FULL and args.format != "jsonl":
+        raise UsageError(f"sumpwise grade: --record {args.record} is a JSON Lines form; --format is {args.format}")
+    if args.format == "table" or getattr(args, "db", None) is not None:
+        return _grade_whole(args, stdin, stdout, stderr)
+    return _grade_chunks(args, stdin, stdout, stderr)
+
+
+def _fail_level(args, ruleset):
+    if args.fail_at is None:
+        return None
+    if args.fail_at not in ruleset.grades:
+        raise UsageError(f"sumpwise grade: --fail-at {args.fail_at!r} is not on the grade ladder "
+                         f"[{', '.join(ruleset.grades)}]")
+    return ruleset.level_of(args.fail_at)
+
+
+def _grade_chunks(args, stdin, stdout, stderr) -> int:
+    """Read, grade and write --chunk-rows rows at a time (trends carried across; see grade_in_chunks)."""
+    if getattr(args, "correction", False):
+        raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
+    ruleset = load_ruleset(args.rules)
+    if not authoring_cli.examples_hold(ruleset, args, stderr):
+        return USAGE
+    fail_level = _fail_level(args, ruleset)
+    columns = load_column_map(args.columns) if args.columns else None
+    if args.samples == "-":
+        chunks = sample_chunks(stdin, "<stdin>", columns, args.input_format or "csv", ruleset.measures, args.chunk_rows)
+    else:
+        chunks = sample_chunks(args.samples, None, columns, args.input_format, ruleset.measures, args.chunk_rows)
+    references = parse_references(args.reference)
+    chunks = (measure_sample_spectra(batch, ruleset, references, args.path_length) for batch in chunks)
+    counts, by_grade, failed, source = Counter(), Counter(), False, ""
+    with contextlib.ExitStack() as stack:
+        out = stack.enter_context(open(args.out, "w", encoding="utf-8", newline="")) if args.out else stdout
+        rejects = (stack.enter_context(open(args.rejects, "w", encoding="utf-8", newline="")) if args.rejects
+                   else stderr)
+        for k, graded in enumerate(grade_in_chunks(chunks, ruleset)):
+            if args.format == "jsonl":
+                write_jsonl(graded, out, args.record)
+            else:
+                write_csv(graded, out, header=k == 0)
+            _put_rejects(graded, rejects, args.rejects, header=k == 0)
+            counts.update(graded.counts())
+            by_grade.update(graded.grades())
+            failed = failed or (fail_level is not None and bool((graded.outcome.level >= fail_level).any()))
+            source = graded.source
+    stderr.write(_summary_line(source, counts, by_grade, ruleset.grades))
+    return FINDINGS if failed else OK
+
+
+def _grade_whole(args, stdin, stdout, stderr) -> int:
     ruleset, batch = _read(args, stdin)
     if not authoring_cli.examples_hold(ruleset, args, stderr):
         return USAGE
-    fail_level = None
-    if args.fail_at is not None:
-        if args.fail_at not in ruleset.grades:
-            raise UsageError(f"sumpwise grade: --fail-at {args.fail_at!r} is not on the grade ladder "
-                             f"[{', '.join(ruleset.grades)}]")
-        fail_level = ruleset.level_of(args.fail_at)
+    fail_level = _fail_level(args, ruleset)
     graded, conflicts = ledger_cli.grade(args, batch, ruleset, stderr)
-    writer = {"jsonl": write_jsonl, "csv": write_csv,
+    writer = {"jsonl": lambda graded, out: write_jsonl(graded, out, args.record), "csv": write_csv,
               "table": lambda graded, out: write_table(graded, out, progress=stderr)}[args.format]
     if args.out:
         with open(args.out, "w", encoding="utf-8", newline="") as out:

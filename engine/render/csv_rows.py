@@ -109,5 +109,6 @@ def csv_frame(batch: GradedBatch) -> pd.DataFrame:
     return frame[list(COLUMNS)]
 
 
-def write_csv(batch: GradedBatch, stream) -> None:
-    spreadsheet_frame(csv_frame(batch)).to_csv(stream, index=False, lineterminator="\n")
+def write_csv(batch: GradedBatch, stream, header: bool = True) -> None:
+    """The CSV rows; `header=False` for the second and later chunks of one file."""
+    spreadsheet_frame(csv_frame(batch)).to_csv(stream, index=False, header=header, lineterminator="\n")

@@ -21,8 +21,8 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
-from sumpwise.results.records import (UNRATED, GradedBatch, build_result, caveat_at, condition_inputs, gap_at, reason_at,
-                      record_shape_groups, rule_inputs)
+from sumpwise.results.records import (FORMAT_1, FORMS, FULL, UNRATED, ColumnArrays, GradedBatch, build_result,
+                                      caveat_at, condition_inputs, gap_at, reason_at, record_shape_groups, rule_inputs)
 
 _TOKEN = re.compile(r'"\\u0000sw(\d+)\\u0000"')
 _ESCAPED = re.compile(r'["\\\x00-\x1f]')
@@ -39,7 +39,7 @@ class _Piece:
     def __init__(self, placeholder: _Placeholder):
         self.placeholder = placeholder
 
-    def to_record(self):
+    def to_record(self, form):
         return self.placeholder
 
 
@@ -58,6 +58,9 @@ class _TemplateValues:
 
     def text(self, name: str, i: int):
         return self.slot("text", name)
+
+    def flag(self, name: str, i: int):
+        return self.slot("flag", name)
 
 
 def dumps(record: dict) -> str:
@@ -89,8 +92,9 @@ def _text_literals(values: np.ndarray) -> np.ndarray:
 
 
 def _number_literals(values: np.ndarray) -> np.ndarray:
-    """JSON number literals (or null), spelled as Python's float repr, each distinct value once."""
-    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    """JSON number literals (or null), spelled as Python's float repr, each distinct value once
+    (-0.0 is spelled 0.0, as records.RowValues gives it: factorize takes the two as one value)."""
+    codes, uniques = pd.factorize(values + 0.0, use_na_sentinel=True)
     table = np.array(list(map(repr, uniques.tolist())) + ["null"], dtype=object)
     table[:-1][~np.isfinite(uniques)] = "null"
     return table[codes]
@@ -98,21 +102,21 @@ def _number_literals(values: np.ndarray) -> np.ndarray:
 
 class _Literals:
     """JSON literals of a column, for the rows asked (one block at a time, so memory stays
-    bounded by the block, not the batch)."""
+    bounded by the block, not the batch), from the batch's arrays (each column converted once)."""
 
-    def __init__(self, measured: pd.DataFrame):
-        self.measured = measured
-        self.arrays: dict = {}  # each column converted to numpy once, not once a request
+    def __init__(self, columns: ColumnArrays):
+        self.columns = columns
 
     def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
-        if name not in self.measured.columns:
+        if kind == "flag":
+            values = self.columns.number(name)
+            if values is None:
+                return np.full(len(rows), "false", dtype=object)
+            return np.where(values[rows] == 1.0, "true", "false").astype(object)
+        values = self.columns.number(name) if kind == "number" else self.columns.text(name)
+        if values is None:
             return np.full(len(rows), "null", dtype=object)
-        if (kind, name) not in self.arrays:
-            column = self.measured[name]
-            self.arrays[kind, name] = (column.to_numpy(dtype=float, na_value=np.nan) if kind == "number"
-                                       else column.to_numpy(dtype=object))
-        values = self.arrays[kind, name][rows]
-        return _number_literals(values) if kind == "number" else _text_literals(values)
+        return _number_literals(values[rows]) if kind == "number" else _text_literals(values[rows])
 
 
 def states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
@@ -212,12 +216,13 @@ def _split_at_lists(template: tuple[list[str], list], drop_tail: str) -> tuple[l
 
 
 class _Writer:
-    def __init__(self, batch: GradedBatch, drop_tail: str = ""):
-        self.batch, self.drop_tail = batch, drop_tail
-        self.literals = _Literals(batch.measured)
+    def __init__(self, batch: GradedBatch, drop_tail: str = "", form: str = FULL):
+        if form not in FORMS + (FORMAT_1,):
+            raise ValueError(f"no record form {form!r}; expected one of {', '.join(FORMS)}")
+        self.batch, self.drop_tail, self.form = batch, drop_tail, form
+        self.literals = _Literals(batch.columns)
         self.out = batch.outcome
         self.templates: dict = {}  # (kind, index, state...) -> template of a reason, gap or caveat
-        self.missing: dict = {}  # each input's missing cells, found once for all rules and blocks
         self.skeletons: dict = {}
         rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
         self.list_sizes = {"reasons": top * rules, "caveats": self.out.caveats.shape[1], "gaps": rules}
@@ -253,7 +258,7 @@ class _Writer:
             found = tuple(int(c[first[s]]) for c in columns)
             if key + found not in self.templates:
                 values = _TemplateValues()
-                self.templates[key + found] = _template(dumps(piece(int(rep), values).to_record()), values)
+                self.templates[key + found] = _template(dumps(piece(int(rep), values).to_record(self.form)), values)
             block.add(slot(found), local[state == s], self.templates[key + found], True)
 
     def _reasons(self, block: _Block, j: int, local: np.ndarray) -> None:
@@ -286,11 +291,7 @@ class _Writer:
 
     def _missing(self, name: str) -> np.ndarray:
         """Each row's missing cell of an input (all missing when the column is absent), found once."""
-        if name not in self.missing:
-            measured = self.batch.measured
-            self.missing[name] = (measured[name].isna().to_numpy() if name in measured.columns
-                                  else np.ones(len(measured), dtype=bool))
-        return self.missing[name]
+        return self.batch.columns.missing(name)
 
     def _skeleton(self, rep: int, unrated: bool) -> list:
         """The record's own parts around its lists, once for rated and once for unrated rows."""
@@ -302,7 +303,7 @@ class _Writer:
                              reasons=pieces["reasons"], caveats=pieces["caveats"],
                              not_evaluated=pieces["gaps"],
                              unrated_because=values.slot("raw", "unrated_because") if unrated else None)
-            parts, names = _split_at_lists(_template(dumps(result.to_record()), values), self.drop_tail)
+            parts, names = _split_at_lists(_template(dumps(result.to_record(self.form)), values), self.drop_tail)
             if not self.list_slots:
                 self._lay_out(names)
             elif names != list(self.list_slots):
@@ -358,17 +359,18 @@ class _Writer:
         return np.array(table, dtype=object)[group_of]
 
 
-def jsonl_lines(batch: GradedBatch, block: int = 100_000, drop_tail: str = ""):
+def jsonl_lines(batch: GradedBatch, block: int = 100_000, drop_tail: str = "", form: str = FULL):
     """Yield the JSON Lines text of the batch, a block of rows at a time, in input order.
 
-    With `drop_tail`, the text every record ends with (the ledger stores it once) is left out.
+    `form` is the record form (records.FORMS; FORMAT_1 only to replay a ledger written before
+    formats). With `drop_tail`, the text every record ends with (the ledger stores it once) is left out.
     """
-    writer = _Writer(batch, drop_tail)
+    writer = _Writer(batch, drop_tail, form)
     n = len(batch)
     for start in range(0, n, block):
         yield writer.block_text(np.arange(start, min(n, start + block)))
 
 
-def write_jsonl(batch: GradedBatch, stream) -> None:
-    for text in jsonl_lines(batch):
+def write_jsonl(batch: GradedBatch, stream, form: str = FULL) -> None:
+    for text in jsonl_lines(batch, form=form):
         stream.write(text)

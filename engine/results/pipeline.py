@@ -10,14 +10,17 @@ import pandas as pd
 from sumpwise.evaluation.evaluator import evaluate
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.vocabulary.measures import INPUT_MEASURES
-from sumpwise.results.records import GradedBatch
+from sumpwise.results.records import GradedBatch, recorded_derived
 from sumpwise.ruleset.model import RuleSet
+
+_LAST = np.iinfo(np.int64).max  # sort key of a missing or unreadable date: after every real one
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
 from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
-from sumpwise.derive.trends import (TREND_CAVEATS, add_trend_measures, noise_margins, read_oil_changes, trend_bases,
-                                    trend_caveat_flags)
+from sumpwise.derive.trends import (CHAIN_COLUMNS, TREND_CAVEATS, add_trend_measures, noise_margins, read_oil_changes,
+                                    trend_bases, trend_caveat_flags)
+from sumpwise.vocabulary.problems import InputError
 
 
 def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None) -> GradedBatch:
@@ -33,6 +36,8 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
                                   noise_margins(ruleset, bases))
     for column in SPECTRUM_COLUMNS:
         measured[column] = batch.frame[column] if column in batch.frame.columns else None
+    measured["oil_changed"] = (batch.frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in batch.frame.columns
+                               else np.zeros(len(measured), dtype=bool))
     measured["ftir_convention_note"] = convention_notes(measured, ruleset)
     outcome = evaluate(ruleset, measured)
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
@@ -43,7 +48,7 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
         # values, so a record's shape does not depend on the other rows of its batch (replay re-grades subsets)
         carried += ("oxidation_differential",)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
-                       TREND_CAVEATS + SPECTRUM_CAVEATS, forecast(measured, ruleset))
+                       TREND_CAVEATS + SPECTRUM_CAVEATS, forecast(measured, ruleset), recorded_derived(ruleset, measured))
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:
@@ -53,3 +58,80 @@ def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> Graded
     if isinstance(samples, pd.DataFrame):
         samples = validate_samples(samples, [], "<DataFrame>", columns or ColumnMap(), ruleset.measures)
     return grade_batch(samples, ruleset)
+
+
+def grade_in_chunks(batches, ruleset: RuleSet):
+    """Grade SampleBatches one after another (a large file read in chunks); yield each GradedBatch.
+
+    Trend measures and the engine's trend caveats compare a sample with its unit's previous
+    one, so each unit's latest sample (in trend order: date, then oil hours) is carried from
+    chunk to chunk as history: memory grows with the number of units, not rows. The results
+    equal grading the whole file at once when each unit's samples in a chunk come after its
+    samples in earlier chunks; a sample that would sort before its unit's carried sample is
+    refused with an InputError (sort the file by date, or use larger chunks), never graded
+    against the wrong predecessor.
+    """
+    bases = trend_bases(ruleset)
+    history = None
+    for batch in batches:
+        batch = read_oil_changes(batch)
+        if history is not None and len(history):
+            _check_order(batch, history)
+        graded = grade_batch(batch, ruleset, history)
+        history = _latest_per_unit(history, graded.measured, bases)
+        yield graded
+
+
+def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """(date, oil hours) sort keys as trends order samples: unreadable dates and missing hours last."""
+    dates = pd.to_datetime(pd.Series(frame["sampled_on"].to_numpy(dtype=object), dtype=object), errors="coerce",
+                           format="ISO8601")
+    keys = np.where(dates.isna().to_numpy(), _LAST, dates.to_numpy(dtype="datetime64[ns]").view(np.int64))
+    hours = frame["oil_hours"].to_numpy(dtype=float) if "oil_hours" in frame else np.full(len(frame), np.nan)
+    return keys, np.where(np.isnan(hours), np.inf, hours)
+
+
+def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases: tuple) -> pd.DataFrame:
+    """Each unit's samples a later chunk's trends need: its latest, and before it the run of
+    rising samples a `<base>_rising` count of the latest goes back over."""
+    names = list(CHAIN_COLUMNS) + list(bases)
+    own = pd.DataFrame({name: (measured[name].to_numpy() if name in measured else None) for name in names})
+    rising = [measured[f"{base}_rising"].to_numpy(dtype=float) for base in bases if f"{base}_rising" in measured]
+    with np.errstate(invalid="ignore"):
+        run = np.nanmax(np.stack(rising), axis=0, initial=0.0) if rising else np.zeros(len(own))
+    own["_keep"] = 1.0 + np.nan_to_num(run)
+    if history is not None:
+        history = history.assign(_keep=np.inf)  # a unit not seen in this chunk keeps what it had
+    frame = own if history is None else pd.concat([history[names + ["_keep"]], own], ignore_index=True)
+    frame = frame[frame["unit_id"].notna()].reset_index(drop=True)
+    dates, hours = _trend_keys(frame)
+    units = frame["unit_id"].to_numpy(dtype=object).astype(str)
+    ordered = frame.iloc[np.lexsort((np.arange(len(frame)), hours, dates, units))].reset_index(drop=True)
+    groups = ordered.groupby("unit_id", sort=False)
+    from_end = groups.cumcount(ascending=False).to_numpy()
+    keep = groups["_keep"].transform("last").to_numpy()
+    return ordered[from_end < keep][names].reset_index(drop=True)
+
+
+def _check_order(batch: SampleBatch, history: pd.DataFrame) -> None:
+    frame = batch.frame
+    if "unit_id" not in frame or not len(frame):
+        return
+    carried = history.drop_duplicates("unit_id", keep="last").set_index("unit_id")  # each unit's latest
+    where = carried.index.get_indexer(frame["unit_id"].to_numpy(dtype=object))
+    has = where >= 0
+    if not has.any():
+        return
+    dates, hours = _trend_keys(frame)
+    before_dates, before_hours = _trend_keys(carried)
+    early = np.zeros(len(frame), dtype=bool)
+    b_dates, b_hours = before_dates[where[has]], before_hours[where[has]]
+    early[has] = (dates[has] < b_dates) | ((dates[has] == b_dates) & (hours[has] < b_hours))
+    if early.any():
+        k = int(np.flatnonzero(early)[0])
+        unit = frame["unit_id"].iat[k]
+        earlier = carried["sample_id"].iat[where[k]]
+        raise InputError(f"{batch.source}: row {frame.index[k]}: sample {frame['sample_id'].iat[k]} of unit {unit} "
+                         f"sorts before that unit's sample {earlier} in an earlier chunk of the file; a file graded "
+                         f"in chunks must list each unit's samples in date order (sort it by date, or give a larger "
+                         f"--chunk-rows)")

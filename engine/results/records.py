@@ -3,6 +3,11 @@
 A reason is a small record (rule, measure, value, test, limit, grade, source, ...);
 sentences are rendered from it later. One builder makes every record, both for the
 Python API and for the bulk JSON Lines writer, so the two cannot drift apart.
+
+A record comes in two forms of one format (FORMAT): `full`, self-contained, with every
+message, source and the notice; and `compact`, every fact with the texts left to the
+fingerprinted rule set it names. `format-1` is the record before formats existed,
+kept only so that a ledger written then replays as it was written.
 """
 
 from __future__ import annotations
@@ -14,10 +19,17 @@ import pandas as pd
 
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED, Outcome
-from sumpwise.vocabulary.measures import measure_needs
-from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, leaves
+from sumpwise.vocabulary.measures import DERIVED_MEASURES, measure_needs
+from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, condition_measures, leaves
 
 UNRATED = "unrated"
+
+FORMAT = 2  # the record's format version; it grows when a record gains or loses a key
+FULL, COMPACT, FORMAT_1 = "full", "compact", "format-1"
+FORMS = (FULL, COMPACT)  # the forms a user may ask for; FORMAT_1 is for replaying old ledgers
+
+# Derived values every record carries, graded or not: the ones the HTML report plots.
+PLOTTED_DERIVED = ("kv40_change_pct", "an_rise", "oxidation_rise")
 
 
 @dataclass(frozen=True)
@@ -56,7 +68,7 @@ class Reason:
     clauses: tuple = ()
     next_step: NextStep | None = None  # the rule's own `next_step`, named by the rule id
 
-    def to_record(self) -> dict:
+    def to_record(self, form: str = FULL) -> dict:
         record: dict = {"rule": self.rule}
         if self.measure is not None:
             record.update(measure=self.measure, value=self.value)
@@ -66,10 +78,11 @@ class Reason:
         record["grade"] = self.grade
         if self.capped_from is not None:
             record.update(capped_from=self.capped_from, capped_by=self.capped_by)
-        record.update(message=self.message, source=self.source)
+        if form != COMPACT:
+            record.update(message=self.message, source=self.source)
         if self.clauses:
             record["clauses"] = [c.to_record() for c in self.clauses]
-        if self.next_step is not None:
+        if self.next_step is not None and form == FULL:  # the rule set's text: by reference in compact
             record["next_step"] = next_step_record(self.next_step)
         return record
 
@@ -84,14 +97,17 @@ class CaveatNote:
     source: str = ""
     unless_missing: tuple = ()
     next_step: NextStep | None = None  # the caveat's own `next_step`, named by the caveat id
+    by_engine: bool = False  # raised by the engine itself: its message is this sample's facts, not the rule set's
 
-    def to_record(self) -> dict:
-        record = {"caveat": self.caveat, "message": self.message}
-        if self.source:
+    def to_record(self, form: str = FULL) -> dict:
+        record = {"caveat": self.caveat}
+        if form != COMPACT or self.by_engine:
+            record["message"] = self.message
+        if self.source and form != COMPACT:
             record["source"] = self.source
         if self.unless_missing:
             record["unless_missing"] = list(self.unless_missing)
-        if self.next_step is not None:
+        if self.next_step is not None and form == FULL:  # the rule set's text: by reference in compact
             record["next_step"] = next_step_record(self.next_step)
         return record
 
@@ -114,7 +130,7 @@ class NotEvaluated:
     rule: str
     missing: tuple
 
-    def to_record(self) -> dict:
+    def to_record(self, form: str = FULL) -> dict:
         return {"rule": self.rule, "missing": list(self.missing)}
 
 
@@ -143,21 +159,32 @@ class SampleResult:
     method: str | None = None
     spectrum: str | None = None  # the used-oil spectrum its FTIR measures were read from
     reference_spectrum: str | None = None  # the new-oil spectrum subtracted from it
+    oil_changed: bool = False  # the sample's `oil_changed` flag as read (False when the file has none)
+    derived: tuple = ()  # (name, value) of derived measures, as the engine computed and graded them
 
-    def to_record(self) -> dict:
-        """The JSON Lines record; key names are the contract, key order is fixed."""
-        record = {"sample_id": self.sample_id, "unit_id": self.unit_id, "class": self.class_name,
-                  "lubricant": self.lubricant, "sampled_on": self.sampled_on,
-                  "values": dict(self.values), "method": self.method,
-                  "spectrum": self.spectrum, "reference_spectrum": self.reference_spectrum,
-                  "grade": self.grade, "level": self.level,
-                  "reasons": [r.to_record() for r in self.reasons],
-                  "caveats": [c.to_record() for c in self.caveats],
-                  "not_evaluated": [n.to_record() for n in self.not_evaluated]}
+    def to_record(self, form: str = FULL) -> dict:
+        """The JSON Lines record; key names are the contract, key order is fixed per form."""
+        if form not in (FULL, COMPACT, FORMAT_1):
+            raise ValueError(f"no record form {form!r}; expected one of {', '.join(FORMS)}")
+        record: dict = {} if form == FORMAT_1 else {"format": FORMAT, "form": form}
+        record.update(sample_id=self.sample_id, unit_id=self.unit_id)
+        record["class"] = self.class_name
+        record.update(lubricant=self.lubricant, sampled_on=self.sampled_on)
+        if form != FORMAT_1:
+            record["oil_changed"] = self.oil_changed
+        record["values"] = dict(self.values)
+        if form != FORMAT_1:
+            record["derived"] = dict(self.derived)
+        record.update(method=self.method, spectrum=self.spectrum, reference_spectrum=self.reference_spectrum,
+                      grade=self.grade, level=self.level,
+                      reasons=[r.to_record(form) for r in self.reasons],
+                      caveats=[c.to_record(form) for c in self.caveats],
+                      not_evaluated=[n.to_record(form) for n in self.not_evaluated])
         if self.unrated_because is not None:
             record["unrated_because"] = self.unrated_because
-        record.update(notice=self.notice,
-                      ruleset={"id": self.ruleset_id, "version": self.ruleset_version, "sha256": self.ruleset_sha256},
+        if form != COMPACT:
+            record["notice"] = self.notice
+        record.update(ruleset={"id": self.ruleset_id, "version": self.ruleset_version, "sha256": self.ruleset_sha256},
                       engine=self.engine)
         return record
 
@@ -194,6 +221,11 @@ class GradedBatch:
     value_columns: tuple = ()  # input measures the samples file carried, recorded with each result
     engine_caveats: tuple = ()  # caveats the engine raises itself; their outcome columns follow the rule set's
     forecasts: tuple = ()  # derive.forecast.Forecast: when each unit's current charge reaches a rule's next limit
+    derived_columns: tuple = ()  # derived measures recorded with each result (see recorded_derived)
+    columns: "ColumnArrays" = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self):
+        object.__setattr__(self, "columns", ColumnArrays(self.measured))
 
     def __len__(self) -> int:
         return len(self.measured)
@@ -211,53 +243,155 @@ class GradedBatch:
 
     def result(self, i: int) -> SampleResult:
         """The record of the i-th accepted row."""
-        return build_result(self, i, _RealValues(self.measured))
+        return build_result(self, i, RowValues(self.columns))
 
     def results(self):
+        values = BlockValues(self.columns)
         for i in range(len(self)):
-            yield self.result(i)
+            yield build_result(self, i, values)
 
     def find(self, sample_id: str) -> SampleResult | None:
-        hits = np.flatnonzero(self.measured["sample_id"].to_numpy(dtype=object) == sample_id)
+        hits = np.flatnonzero(self.columns.text("sample_id") == sample_id)
         return self.result(int(hits[0])) if len(hits) else None
 
 
-class _RealValues:
-    """Values of a row as Python scalars (None for missing)."""
+def recorded_derived(ruleset: RuleSet, measured: pd.DataFrame) -> tuple:
+    """The derived measures a batch's records carry: those the rule set's rules and caveats read,
+    and those the report plots, in vocabulary order. One list per rule set, so one record shape."""
+    read = set(PLOTTED_DERIVED)
+    for rule in list(ruleset.rules) + [rule for rules in ruleset.classes.values() for rule in rules]:
+        read |= rule.reads
+    for caveat in ruleset.caveats:
+        read |= set(condition_measures(caveat.when))
+        if caveat.cap is not None and caveat.cap.unless is not None:
+            read |= set(condition_measures(caveat.cap.unless))
+    return tuple(name for name in DERIVED_MEASURES if name in read and name in measured.columns)
+
+
+class ColumnArrays:
+    """Each column of a measured frame as a numpy array, converted once on first use.
+
+    Reading records cell by cell from pandas cost about 0.3 ms a sample; every record reader
+    (the per-record API and the bulk writers) takes its values from here instead.
+    """
 
     def __init__(self, measured: pd.DataFrame):
         self.measured = measured
+        self._numbers: dict = {}
+        self._texts: dict = {}
+        self._missing: dict = {}
+        self.index = measured.index.to_numpy() if measured.index.dtype.kind in "iu" else None
+
+    def number(self, name: str) -> np.ndarray | None:
+        """float64 values, NaN where missing; None when the frame has no such column."""
+        if name not in self._numbers:
+            self._numbers[name] = (self.measured[name].to_numpy(dtype=float, na_value=np.nan)
+                                   if name in self.measured.columns else None)
+        return self._numbers[name]
+
+    def text(self, name: str) -> np.ndarray | None:
+        """str-or-None values; None when the frame has no such column."""
+        if name not in self._texts:
+            if name in self.measured.columns:
+                values = self.measured[name].to_numpy(dtype=object).copy()
+                values[self.missing(name)] = None
+                self._texts[name] = values
+            else:
+                self._texts[name] = None
+        return self._texts[name]
+
+    def missing(self, name: str) -> np.ndarray:
+        """Each row's missing cell of a column (all missing when the column is absent)."""
+        if name not in self._missing:
+            self._missing[name] = (self.measured[name].isna().to_numpy() if name in self.measured.columns
+                                   else np.ones(len(self.measured), dtype=bool))
+        return self._missing[name]
+
+
+class RowValues:
+    """Values of a row as Python scalars (None for missing), read from the cached column arrays."""
+
+    def __init__(self, columns: ColumnArrays):
+        self.columns = columns
 
     def number(self, name: str, i: int):
-        if name not in self.measured.columns:
+        values = self.columns.number(name)
+        if values is None:
             return None
-        value = self.measured[name].iat[i]
-        return None if pd.isna(value) else float(value)
+        value = values[i]
+        return None if value != value else float(value) + 0.0  # -0.0 is recorded as 0.0
 
     def text(self, name: str, i: int):
-        if name not in self.measured.columns:
+        values = self.columns.text(name)
+        if values is None:
             return None
-        value = self.measured[name].iat[i]
-        return None if value is None or (isinstance(value, float) and np.isnan(value)) else str(value)
+        value = values[i]
+        return None if value is None else str(value)
+
+    def flag(self, name: str, i: int) -> bool:
+        values = self.columns.number(name)
+        return bool(values is not None and values[i] == 1.0)
 
 
-def _is_missing(measured: pd.DataFrame, name: str, i: int) -> bool:
-    if name not in measured.columns:
-        return True
-    value = measured[name].iat[i]
-    return value is None or (isinstance(value, float) and np.isnan(value))
+class BlockValues(RowValues):
+    """RowValues for rows read in order: each column's values for a block of rows become one
+    Python list at a time, so a row's value is a list index, not a numpy scalar conversion."""
+
+    BLOCK = 4096
+
+    def __init__(self, columns: ColumnArrays):
+        super().__init__(columns)
+        self.start = -1
+        self.lists: dict = {}
+
+    def _value(self, kind: str, name: str, i: int):
+        start = i - i % self.BLOCK
+        if start != self.start:
+            self.start, self.lists = start, {}
+        values = self.lists.get((kind, name))
+        if values is None:
+            values = self.lists[kind, name] = self._block(kind, name, start, start + self.BLOCK)
+        return values[i - start]
+
+    def _block(self, kind: str, name: str, start: int, stop: int) -> list:
+        if kind == "text":
+            values = self.columns.text(name)
+            return [None] * (stop - start) if values is None else values[start:stop].tolist()
+        values = self.columns.number(name)
+        if values is None:
+            return [False if kind == "flag" else None] * (stop - start)
+        part = values[start:stop]
+        if kind == "flag":
+            return (part == 1.0).tolist()
+        listed = (part + 0.0).astype(object)
+        listed[np.isnan(part)] = None
+        return listed.tolist()
+
+    def number(self, name: str, i: int):
+        return self._value("number", name, i)
+
+    def text(self, name: str, i: int):
+        value = self._value("text", name, i)
+        return None if value is None else str(value)
+
+    def flag(self, name: str, i: int) -> bool:
+        return self._value("flag", name, i)
+
+
+def _is_missing(batch: GradedBatch, name: str, i: int) -> bool:
+    return bool(batch.columns.missing(name)[i])
 
 
 def gap_at(batch: GradedBatch, i: int, j: int) -> NotEvaluated:
     """What rule slot j lacked for row i (it was not evaluated)."""
     rule = batch.outcome.slots[j].rule
-    missing = [name for name in rule_inputs(rule) if _is_missing(batch.measured, name, i)]
+    missing = [name for name in rule_inputs(rule) if _is_missing(batch, name, i)]
     return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]))
 
 
 def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
     """Why rule slot j fired for row i (its final level is above 0)."""
-    rs, out, measured = batch.ruleset, batch.outcome, batch.measured
+    rs, out = batch.ruleset, batch.outcome
     grades = rs.grades
     rule = out.slots[j].rule
     final, raw = int(out.final[i, j]), int(out.raw[i, j])
@@ -279,7 +413,7 @@ def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
             clauses.append(Clause(leaf.test, list(leaf.values) if leaf.test == "in" else leaf.values[0],
                                   held, value, field=leaf.field))
         elif leaf.kind == "missing":
-            value = values.number(leaf.measure, i) if not _is_missing(measured, leaf.measure, i) else None
+            value = values.number(leaf.measure, i) if not _is_missing(batch, leaf.measure, i) else None
             clauses.append(Clause("missing", leaf.missing, held, value, measure=leaf.measure))
         else:
             value = values.number(leaf.measure, i) if known[at] else None
@@ -296,26 +430,21 @@ def caveat_at(batch: GradedBatch, i: int, k: int, values) -> CaveatNote:
         lacking = ()
         if batch.outcome.unchecked[i, k]:
             needs = condition_inputs(caveat.cap.unless)
-            lacking = tuple(name for name in needs if _is_missing(batch.measured, name, i)) or tuple(needs)
+            lacking = tuple(name for name in needs if _is_missing(batch, name, i)) or tuple(needs)
         return CaveatNote(caveat.id, caveat.message, caveat.source, lacking, caveat.next_step)
     caveat = batch.engine_caveats[k - len(rs.caveats)]
-    return CaveatNote(caveat.id, values.text(caveat.message_column, i), caveat.source)
+    return CaveatNote(caveat.id, values.text(caveat.message_column, i), caveat.source, by_engine=True)
 
 
 def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
     """One sample's record; `values` supplies per-row values (real ones, or template slots)."""
-    rs, out, measured = batch.ruleset, batch.outcome, batch.measured
+    rs, out = batch.ruleset, batch.outcome
     grades = rs.grades
-    reasons, not_evaluated = [], []
-    for j in range(len(out.slots)):
-        final = int(out.final[i, j])
-        if final == NOT_EVALUATED:
-            not_evaluated.append(gap_at(batch, i, j))
-        elif final > 0:
-            reasons.append(reason_at(batch, i, j, values))
-    order = sorted(range(len(reasons)), key=lambda k: -reasons[k].level)
-    reasons = [reasons[k] for k in order]
-    caveats = [caveat_at(batch, i, k, values) for k in range(out.caveats.shape[1]) if out.caveats[i, k]]
+    finals = out.final[i]
+    not_evaluated = [gap_at(batch, i, int(j)) for j in np.flatnonzero(finals == NOT_EVALUATED)]
+    reasons = [reason_at(batch, i, int(j), values) for j in np.flatnonzero(finals > 0)]
+    reasons.sort(key=lambda reason: -reason.level)  # stable: rule order within a grade
+    caveats = [caveat_at(batch, i, int(k), values) for k in np.flatnonzero(out.caveats[i])]
 
     level = int(out.level[i])
     class_name = values.text("class", i)
@@ -328,11 +457,12 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
         grade=grades[level] if level >= 0 else UNRATED, level=level if level >= 0 else None,
         reasons=tuple(reasons), caveats=tuple(caveats), not_evaluated=tuple(not_evaluated), notice=rs.notice,
         ruleset_id=rs.id, ruleset_version=rs.version, ruleset_sha256=rs.sha256, engine=engine_name(),
-        row=int(measured.index[i]) if measured.index.dtype.kind in "iu" else None,
+        row=int(batch.columns.index[i]) if batch.columns.index is not None else None,
         unrated_because=unrated_because,
         values=tuple((name, values.number(name, i)) for name in batch.value_columns),
         method=values.text("method", i), spectrum=values.text("spectrum", i),
-        reference_spectrum=values.text("reference_spectrum", i))
+        reference_spectrum=values.text("reference_spectrum", i), oil_changed=values.flag("oil_changed", i),
+        derived=tuple((name, values.number(name, i)) for name in batch.derived_columns))
 
 
 def _capped_by(rs: RuleSet, out: Outcome, i: int, rule, final: int) -> str | None:
@@ -347,9 +477,9 @@ def _capped_by(rs: RuleSet, out: Outcome, i: int, rule, final: int) -> str | Non
 def _unrated_because(batch: GradedBatch, i: int, class_name, not_evaluated: list) -> str:
     rs = batch.ruleset
     if not batch.outcome.known_class[i]:
-        if _is_missing(batch.measured, "class", i):
+        if _is_missing(batch, "class", i):
             return "the sample has no class, so no rules apply to it"
-        return (f"the rule set '{rs.id}' has no class '{batch.measured['class'].iat[i]}'; "
+        return (f"the rule set '{rs.id}' has no class '{batch.columns.text('class')[i]}'; "
                 f"it knows: {', '.join(rs.classes) or 'none'}")
     if not not_evaluated:
         return "the class has no rules"

@@ -60,9 +60,9 @@ def test_trends_across_batches_equal_one_batch(tmp_path, ruleset):
     grade_into_ledger(db, _batch(first), ruleset)
     later, _ = grade_into_ledger(db, _batch(second), ruleset)
     whole = sumpwise.grade(sumpwise.read_samples(SAMPLES), ruleset)
-    wanted = {line.split('"')[3]: line for line in "".join(jsonl_lines(whole)).splitlines()}
+    wanted = {json.loads(line)["sample_id"]: line for line in "".join(jsonl_lines(whole)).splitlines()}
     for line in "".join(jsonl_lines(later)).splitlines():
-        assert line == wanted[line.split('"')[3]]
+        assert line == wanted[json.loads(line)["sample_id"]]
     assert later.find("T-04").reasons[0].rule == "carbonyl-jump"  # its previous sample came from the ledger
 
 

@@ -8,7 +8,7 @@ import sys
 from conftest import DATA, ROOT
 
 from sumpwise import grade, load_ruleset, read_samples
-from sumpwise.render.jsonl import dumps, write_jsonl
+from sumpwise.render.jsonl import dumps, jsonl_lines, write_jsonl
 
 SITE = ROOT / "scenarios" / "brackwater" / "site.yaml"
 SAMPLES = ROOT / "scenarios" / "brackwater" / "samples.csv"
@@ -88,3 +88,96 @@ def test_bulk_writer_spells_unchecked_cap_exceptions_like_the_records():
     assert lines == [dumps(r.to_record()) for r in graded.results()]
     missing = [[c.get("unless_missing") for c in json.loads(line)["caveats"]] for line in lines]
     assert missing == [[None], [["an"]], [["an"]], []]
+
+
+def test_both_forms_match_each_record_on_random_samples_of_every_class():
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    graded = grade(random_samples(ruleset, 2000, seed=13), ruleset)
+    results = list(graded.results())
+    for form in ("full", "compact"):
+        out = io.StringIO()
+        write_jsonl(graded, out, form)
+        lines = out.getvalue().splitlines()
+        assert len(lines) == 2000
+        for line, result in zip(lines, results):
+            assert line == dumps(result.to_record(form))
+
+
+def _without_texts(record: dict) -> dict:
+    """A full record with the texts the compact form leaves to the rule set taken out."""
+    record = dict(record, form="compact")
+    del record["notice"]
+    record["reasons"] = [{k: v for k, v in r.items() if k not in ("message", "source", "next_step")}
+                         for r in record["reasons"]]
+    record["caveats"] = [{k: v for k, v in c.items()
+                          if k not in ("source", "next_step") and (k != "message" or c["caveat"] in ENGINE)}
+                         for c in record["caveats"]]
+    return record
+
+
+ENGINE = ("trend-break", "oil-changed", "base-stock-inferred", "base-stock-conflict")
+
+
+def test_the_compact_record_keeps_every_fact_and_its_texts_are_the_rule_sets():
+    from sumpwise.results.records import next_step_record
+    # Facts by value, text by reference: the compact record is the full one without the rule
+    # set's texts, and those texts are found again in the rule set by rule and caveat id.
+    ruleset = load_ruleset(SITE)
+    graded = grade(read_samples(SAMPLES), ruleset)
+    full, compact = ("".join(jsonl_lines(graded, form=form)).splitlines() for form in ("full", "compact"))
+    caveats = {caveat.id: caveat for caveat in ruleset.caveats}
+    reasons = 0
+    for whole, short in zip(full, compact):
+        whole, short = json.loads(whole), json.loads(short)
+        assert short == _without_texts(whole)
+        assert whole["notice"] == ruleset.notice
+        assert short["ruleset"] == {"id": ruleset.id, "version": ruleset.version, "sha256": ruleset.sha256}
+        for reason in whole["reasons"]:
+            rule = {rule.id: rule for rule in ruleset.rules_for(whole["class"])}[reason["rule"]]
+            assert (reason["message"], reason["source"]) == (rule.message, rule.source)
+            assert reason.get("next_step") == (next_step_record(rule.next_step) if rule.next_step else None)
+            reasons += 1
+        for note in whole["caveats"]:
+            if note["caveat"] in caveats:
+                caveat = caveats[note["caveat"]]
+                assert note["message"] == caveat.message
+                assert note.get("next_step") == (next_step_record(caveat.next_step) if caveat.next_step else None)
+    assert reasons > 50
+    assert sum(map(len, compact)) < sum(map(len, full))
+
+
+def test_compact_records_are_the_same_bytes_across_processes(tmp_path):
+    outputs = []
+    for name, seed in (("a.jsonl", "3"), ("b.jsonl", "4")):
+        target = tmp_path / name
+        subprocess.run([sys.executable, "-m", "sumpwise", "grade", str(SAMPLES), "--rules", str(SITE),
+                        "--record", "compact", "--out", str(target)], check=True, capture_output=True,
+                       cwd=tmp_path, env={"PYTHONHASHSEED": seed, "PATH": "/usr/bin:/bin"})
+        outputs.append(target.read_bytes())
+    assert outputs[0] == outputs[1]
+    first = json.loads(outputs[0].splitlines()[0])
+    assert first["format"] == 2 and first["form"] == "compact" and "notice" not in first
+
+
+def test_the_record_option_names_a_json_lines_form():
+    from conftest import run_cli
+    run = run_cli("grade", SAMPLES, "--rules", SITE, "--record", "compact", "--format", "csv")
+    assert run.code == 2 and "--record compact is a JSON Lines form" in run.err and run.out == ""
+    run = run_cli("grade", SAMPLES, "--rules", SITE, "--record", "short")
+    assert run.code == 2 and "invalid choice: 'short'" in run.err
+
+
+def test_compact_records_equal_the_per_row_peers_on_random_samples_of_every_class(tmp_path):
+    # The benchmark's peer builds each compact record on its own from the per-row oracle
+    # (tests/support/row_evaluator.py), with no code of sumpwise's writers or records.
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    random_samples(ruleset, 1500, seed=21).to_csv(tmp_path / "s.csv", index=False)
+    subprocess.run([sys.executable, str(ROOT / "benchmarks" / "peer_per_row.py"), str(tmp_path / "s.csv"),
+                    "--rules", str(ROOT / "benchmarks" / "all-classes.yaml"), "--out", str(tmp_path / "peer.jsonl")],
+                   check=True, capture_output=True)
+    graded = grade(read_samples(tmp_path / "s.csv"), ruleset)
+    ours = "".join(jsonl_lines(graded, form="compact"))
+    assert ours.count("\n") == 1500
+    assert (tmp_path / "peer.jsonl").read_text(encoding="utf-8") == ours

@@ -43,3 +43,62 @@ def test_find_and_grades_agree_with_the_records():
     assert len(grades) == len(graded)
     assert [r.grade for r in graded.results()] == grades
     assert graded.find("no-such-sample") is None
+
+
+def test_records_have_a_format_and_a_fixed_key_order_per_form():
+    graded = grade(read_samples(SAMPLES), load_ruleset(SITE))
+    result = graded.find("BP-0013")
+    full, compact, old = (list(result.to_record(form)) for form in ("full", "compact", "format-1"))
+    assert full[:3] == ["format", "form", "sample_id"] and result.to_record()["format"] == 2
+    assert full[-3:] == ["notice", "ruleset", "engine"]
+    assert compact == [key for key in full if key != "notice"]
+    # format 1 is the record as it was before formats: what a ledger of that time stored
+    assert old == [key for key in full if key not in ("format", "form", "oil_changed", "derived")]
+
+
+def test_a_record_carries_the_oil_change_flag_and_the_acid_rise_from_its_own_new_oil_value():
+    # The row's own new_an (0.30) wins over the lubricant table's: 0.32 - 0.30 = 0.02 by hand
+    # arithmetic, below the draft's 0.1 watch limit; the table's new-oil value would give more.
+    import io
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,an,new_an,oil_changed\n"
+            "A1,ST-9,steam-turbine,TURB-46-M,2026-01-05,0.32,0.30,no\n"
+            "A2,ST-9,steam-turbine,TURB-46-M,2026-02-05,0.45,,yes\n")
+    ruleset = load_ruleset(DATA / "rulesets" / "draft.yaml")
+    graded = grade(read_samples(io.StringIO(text)), ruleset)
+    first, second = (r.to_record() for r in graded.results())
+    assert first["oil_changed"] is False and second["oil_changed"] is True
+    assert first["derived"]["an_rise"] == 0.02
+    assert first["grade"] == "normal" and first["reasons"] == []  # 0.02 was graded, not 0.25
+    new_an = ruleset.lubricants["TURB-46-M"].an
+    assert second["derived"]["an_rise"] == round(0.45 - new_an, 9)
+    assert list(first["derived"]) == list(second["derived"])  # one shape for the whole batch
+
+
+def test_derived_values_are_the_values_the_engine_graded():
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    graded = grade(random_samples(ruleset, 1500, seed=3), ruleset)
+    checked = 0
+    for result in graded.results():
+        derived = dict(result.derived)
+        for reason in result.reasons:
+            if reason.measure in derived:
+                assert reason.value == derived[reason.measure], (result.sample_id, reason.rule)
+                checked += 1
+            for clause in reason.clauses:
+                if clause.measure in derived and clause.value is not None:
+                    assert clause.value == derived[clause.measure], (result.sample_id, reason.rule)
+    assert checked > 100
+    for name in ("kv40_change_pct", "an_rise", "oxidation_rise"):  # the report's plots
+        assert name in graded.derived_columns
+
+
+def test_results_in_order_equal_each_record_read_alone():
+    # results() reads values a block of 4,096 rows at a time; result(i) one cell at a time.
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    graded = grade(random_samples(ruleset, 4500, seed=8), ruleset)
+    listed = list(graded.results())
+    assert len(listed) == 4500
+    for i in (0, 1, 4095, 4096, 4097, 4499) + tuple(range(100, 4500, 97)):
+        assert listed[i] == graded.result(i), i

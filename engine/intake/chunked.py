@@ -1,0 +1,136 @@
+"""Read a samples file in chunks of rows, so that a file larger than memory can be graded.
+
+Each chunk is read by read_samples exactly as a whole file would be (the CSV header is put
+in front of every chunk), then its row numbers are moved to where the rows stand in the
+whole file. A CSV chunk ends only at a line end outside quotes, so a quoted field that
+spans lines stays in one chunk. Sample ids repeated across chunks are rejected as within a
+file, found by a 64-bit hash of each id seen (8 bytes and a row number a row, not the ids).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import re
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, read_samples
+from sumpwise.vocabulary.problems import InputError
+
+DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
+_SEEN_AT = re.compile(r"^(sample id '.*' already seen at row )(\d+)$", re.S)
+
+
+def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
+                  numeric: tuple = (), rows: int = 200_000):
+    """Yield SampleBatches of about `rows` data rows each, numbered as in the whole file."""
+    if isinstance(source, (str, Path)):
+        name = name or str(source)
+        try:
+            stream = open(source, encoding="utf-8-sig", newline="")
+        except OSError as exc:
+            raise InputError(f"{name}: cannot read the file: {exc}") from None
+    else:
+        name, stream = name or "<stdin>", source
+    fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
+    seen = _SeenIds()
+    offset = 0
+    try:
+        for text in _chunk_texts(stream, fmt, rows, name):
+            # as UTF-8 bytes: a StringIO of the chunk would hold 4 bytes a character
+            data, text = text.encode("utf-8"), None
+            batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name, columns,
+                                 fmt, numeric)
+            data = None
+            batch = _moved(batch, offset)
+            batch = seen.check(batch)
+            offset += batch.rows_read
+            yield batch
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{name}: cannot read the file: {exc}") from None
+    finally:
+        if stream is not source:
+            stream.close()
+
+
+def _chunk_texts(stream, fmt: str, rows: int, name: str):
+    """The file's text a chunk at a time; CSV chunks each start with the header line.
+
+    A CSV chunk never starts with a row of more fields than the header: pandas would take
+    such a first row's extra field as an index column and shift every row of the chunk.
+    """
+    first = stream.readline().removeprefix("\ufeff")
+    header, fields = "", 0
+    if fmt == "csv":
+        header, first = first, ""
+        if not header.strip():
+            raise InputError(f"{name}: the file is empty: expected a header row and data rows")
+        fields = len(next(csv.reader([header]), []))
+    lines, quotes, yielded = [first] if first else [], 0, False
+    for line in stream:
+        if len(lines) >= rows and quotes % 2 == 0 and (fmt != "csv" or _starts_well(line, fields)):
+            text = header + "".join(lines)
+            lines, quotes, yielded = [], 0, True  # the lines go before the chunk is graded
+            yield text
+        lines.append(line)
+        if fmt == "csv":
+            quotes += line.count('"')
+    if lines or not yielded:
+        yield header + "".join(lines)
+
+
+def _starts_well(line: str, fields: int) -> bool:
+    """Whether a CSV line can open a chunk: no open quote, no more fields than the header."""
+    return line.count('"') % 2 == 0 and len(next(csv.reader([line]), [])) <= fields
+
+
+def _moved(batch: SampleBatch, offset: int) -> SampleBatch:
+    """The chunk's row numbers (from 1 in each chunk) moved to the whole file's."""
+    if not offset:
+        return batch
+    frame = batch.frame.copy()
+    frame.index = frame.index + offset
+    rejects = []
+    for r in batch.rejects:
+        found = _SEEN_AT.match(r.reason) if r.code == DUPLICATE_ID else None
+        reason = f"{found.group(1)}{int(found.group(2)) + offset}" if found else r.reason
+        rejects.append(replace(r, row=r.row + offset, reason=reason))
+    return replace(batch, frame=frame, rejects=tuple(rejects))
+
+
+class _SeenIds:
+    """Hashes and first rows of the sample ids of earlier chunks."""
+
+    def __init__(self):
+        self.hashes = np.empty(0, dtype=np.uint64)  # sorted
+        self.rows = np.empty(0, dtype=np.int64)
+
+    def check(self, batch: SampleBatch) -> SampleBatch:
+        ids = batch.frame["sample_id"].to_numpy(dtype=object) if "sample_id" in batch.frame else np.empty(0, object)
+        hashes = pd.util.hash_array(ids.astype(str)) if len(ids) else np.empty(0, dtype=np.uint64)
+        at = np.searchsorted(self.hashes, hashes)
+        known = (at < len(self.hashes)) & (self.hashes[np.minimum(at, len(self.hashes) - 1)] == hashes) \
+            if len(self.hashes) else np.zeros(len(ids), dtype=bool)
+        if known.any():
+            first = self.rows[at[known]]
+            extra = [Reject(int(row), sid, "sample_id", f"sample id '{sid}' already seen at row {int(before)}",
+                            DUPLICATE_ID)
+                     for row, sid, before in zip(batch.frame.index[known], ids[known], first)]
+            rejects = tuple(sorted(batch.rejects + tuple(extra), key=lambda r: (r.row, r.field)))
+            batch = replace(batch, frame=batch.frame[~known], rejects=rejects)
+            hashes = hashes[~known]
+        # rows rejected for other reasons still count as the first of their id, as in a whole file
+        first_rejects = {r.row: r.sample_id for r in batch.rejects
+                         if r.sample_id is not None and r.code != DUPLICATE_ID}
+        rows = np.concatenate([batch.frame.index.to_numpy(dtype=np.int64),
+                               np.fromiter(first_rejects, dtype=np.int64, count=len(first_rejects))])
+        if first_rejects:
+            hashes = np.concatenate([hashes, pd.util.hash_array(np.array(list(first_rejects.values()), dtype=str))])
+        order = np.argsort(np.concatenate([self.hashes, hashes]), kind="stable")
+        self.hashes = np.concatenate([self.hashes, hashes])[order]
+        self.rows = np.concatenate([self.rows, rows])[order]
+        return batch
