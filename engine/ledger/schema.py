@@ -19,7 +19,7 @@ import hashlib
 import json
 import sqlite3
 
-from sumpwise.results.facts import result_facts, shape_rules
+from sumpwise.results.facts import ENGINE_CAVEATS, result_facts, shape_rules
 from sumpwise.results.records import (CaveatNote, Clause, NotEvaluated, Reason, SampleResult,
                                       next_step_from_record)
 
@@ -201,7 +201,8 @@ def result_from_record(record: dict, grades: tuple) -> SampleResult:
         lubricant=record["lubricant"], sampled_on=record["sampled_on"], grade=record["grade"],
         level=record["level"], reasons=tuple(reasons),
         caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())),
-                                 next_step_from_record(c.get("next_step"))) for c in record["caveats"]),
+                                 next_step_from_record(c.get("next_step")), by_engine=c["caveat"] in ENGINE_CAVEATS)
+                      for c in record["caveats"]),
         not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"])) for n in record["not_evaluated"]),
         notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
         ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),
@@ -216,6 +217,7 @@ def _step_3_data(conn: sqlite3.Connection) -> None:
     for batch, record in conn.execute("SELECT s.batch, r.record FROM samples s JOIN results r ON r.entry = s.entry "
                                       "GROUP BY s.batch").fetchall():
         names[batch] = list(json.loads(record + "}")["values"])
+    names = {batch: {"values": values, "derived": [], "oil_changed": False} for batch, values in names.items()}
     conn.executemany("UPDATE batches SET value_names = ? WHERE batch = ?",
                      [(json.dumps(value_names), batch) for batch, value_names in names.items()])
     cursor = conn.execute("SELECT r.entry, r.grade, r.level, r.record || b.record_tail, b.ruleset_sha256, b.batch "

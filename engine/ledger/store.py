@@ -33,7 +33,7 @@ from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.trends import CHAIN_COLUMNS, read_oil_changes
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.ledger.schema import MIGRATIONS, batch_digest, fingerprint, shape_ids
-from sumpwise.results.facts import batch_facts
+from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
@@ -446,7 +446,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
          json.dumps(list(frame.columns)), batch.rows_read, n_new, int(known.sum()), n_corrections,
          len(batch.rejects), n_conflicts, correction.reason if correction else None,
          correction.author if correction else None, previous[0] if previous else "",
-         json.dumps(list(graded.value_columns))))
+         json.dumps(record_names(graded))))
     number = cursor.lastrowid
     corrected = by_id["entry"].reindex(ids[differs]).astype(int).tolist()
     conn.executemany("UPDATE samples SET superseded_in = ? WHERE entry = ?", ((number, e) for e in corrected))

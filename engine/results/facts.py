@@ -64,6 +64,9 @@ class _Slots:
     def text(self, name: str, i: int) -> _Slot:
         return _Slot("text", name)
 
+    def flag(self, name: str, i: int) -> _Slot:
+        return _Slot("flag", name)
+
 
 class _Value:
     """A real per-sample value, marked so it lands in the values array, not in the shape."""
@@ -121,12 +124,22 @@ def values_text(values: list) -> str:
     return json.dumps(values, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
 
 
-def result_facts(result: SampleResult, value_names) -> tuple[str, str]:
+def record_names(batch: GradedBatch) -> dict:
+    """The names a batch's records carry beyond the shape: kept once a batch by the ledger."""
+    return {"values": list(batch.value_columns), "derived": list(batch.derived_columns), "oil_changed": True}
+
+
+def _tail(names: dict, values: dict, derived: dict, oil_changed: bool) -> list:
+    tail = [_plain(values.get(name)) for name in names.get("values", ())]
+    tail += [_plain(derived.get(name)) for name in names.get("derived", ())]
+    return tail + ([bool(oil_changed)] if names.get("oil_changed") else [])
+
+
+def result_facts(result: SampleResult, names: dict) -> tuple[str, str]:
     """(shape text, values text) of one result: the per-result counterpart of batch_facts."""
     text, placed = _dump(_shape(result, _Value))
-    recorded = dict(result.values)
-    return text, values_text([_plain(item.value) for item in placed] + [_plain(recorded.get(name))
-                                                                         for name in value_names])
+    return text, values_text([_plain(item.value) for item in placed]
+                             + _tail(names, dict(result.values), dict(result.derived), result.oil_changed))
 
 
 def _plain(value):
@@ -168,9 +181,15 @@ def _shape_groups(batch: GradedBatch) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _number_literals(values: np.ndarray) -> np.ndarray:
-    codes, uniques = pd.factorize(values, use_na_sentinel=True)
-    table = np.array([repr(u) if np.isfinite(u) else "null" for u in uniques.tolist()] + ["null"], dtype=object)
+    """Factorized by bit pattern, so -0.0 keeps its own spelling; missing and infinite are null."""
+    codes, uniques = pd.factorize(np.ascontiguousarray(values, dtype=float).view(np.int64))
+    table = np.array([repr(u) if np.isfinite(u) else "null" for u in uniques.view(float).tolist()], dtype=object)
     return table[codes]
+
+
+def _flag_literals(values: np.ndarray) -> np.ndarray:
+    """true where the column holds 1 (as RowValues.flag reads it), false elsewhere."""
+    return np.where(values == 1.0, "true", "false").astype(object)
 
 
 def _text_literals(values: np.ndarray) -> np.ndarray:
@@ -179,14 +198,16 @@ def _text_literals(values: np.ndarray) -> np.ndarray:
     return table[codes]
 
 
-def batch_facts(batch: GradedBatch, value_names=None) -> BatchFacts:
+def batch_facts(batch: GradedBatch, names: dict | None = None) -> BatchFacts:
     """Every row's shape and values, one template a shape, values filled a column at a time.
 
-    The values array ends with the record's input values, of `value_names` (default: the
-    batch's value columns; replay passes the names a stored batch recorded).
+    The values array ends with the record's own values, derived values and oil-changed flag,
+    of `names` (default: record_names(batch); replay passes what a stored batch recorded).
     """
     n = len(batch)
-    names = list(batch.value_columns if value_names is None else value_names)
+    names = record_names(batch) if names is None else names
+    tail = [_Slot("number", name) for name in list(names.get("values", ())) + list(names.get("derived", ()))]
+    tail += [_Slot("flag", "oil_changed")] if names.get("oil_changed") else []
     first, group = _shape_groups(batch) if n else (np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp))
     columns: dict = {}
 
@@ -210,11 +231,12 @@ def batch_facts(batch: GradedBatch, value_names=None) -> BatchFacts:
         text, placed = _dump(_shape(build_result(batch, rep, _Slots()), _as_placed))
         shape_index[g] = texts.setdefault(text, len(texts))
         rows = order[bounds[g]:bounds[g + 1]]
-        placed = placed + [_Slot("number", name) for name in names]
+        placed = placed + tail
         if not placed:
             values[rows] = "[]"
             continue
         literals = [np.full(len(rows), values_text([_plain(s.value)])[1:-1], dtype=object) if isinstance(s, _Value)
+                    else _flag_literals(column("number", s.name)[rows]) if s.kind == "flag"
                     else (_number_literals if s.kind == "number" else _text_literals)(column(s.kind, s.name)[rows])
                     for s in placed]
         form = "[" + ",".join(["%s"] * len(placed)) + "]"
@@ -232,14 +254,18 @@ def _filled(item, values: list):
 
 
 def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet, engine: str,
-                      value_names) -> SampleResult:
+                      names: dict) -> SampleResult:
     """A stored result with its wording put back from the rule set it was graded with.
 
-    `shape` is a parsed shape, `values` its parsed values array (ending with the values of
-    `value_names`), `sample` the sample's stored input fields (name -> value).
+    `shape` is a parsed shape, `values` its parsed values array (ending with what `names`
+    lists, see record_names), `sample` the sample's stored input fields (name -> value).
     """
-    value_names = list(value_names)
-    recorded = tuple(zip(value_names, values[len(values) - len(value_names):]))
+    value_names, derived_names = list(names.get("values", ())), list(names.get("derived", ()))
+    oil_changed = bool(values[-1]) if names.get("oil_changed") else False
+    end = len(values) - (1 if names.get("oil_changed") else 0)
+    start = end - len(value_names) - len(derived_names)
+    recorded = tuple(zip(value_names, values[start:start + len(value_names)]))
+    derived = tuple((name, _number(value)) for name, value in zip(derived_names, values[start + len(value_names):end]))
     class_name = sample.get("class")
     rules = {rule.id: rule for rule in ruleset.rules_for(class_name)} if class_name in ruleset.classes else {}
     caveats = {caveat.id: caveat for caveat in ruleset.caveats}
@@ -256,7 +282,8 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
     notes = []
     for c in shape["caveats"]:
         if c["caveat"] in ENGINE_CAVEATS:
-            notes.append(CaveatNote(c["caveat"], _filled(c["message"], values), ENGINE_CAVEATS[c["caveat"]].source))
+            notes.append(CaveatNote(c["caveat"], _filled(c["message"], values), ENGINE_CAVEATS[c["caveat"]].source,
+                                    by_engine=True))
         else:
             caveat = caveats[c["caveat"]]
             notes.append(CaveatNote(caveat.id, caveat.message, caveat.source, tuple(c.get("unless_missing", ())),
@@ -270,7 +297,7 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
         ruleset_sha256=ruleset.sha256, engine=engine, unrated_because=shape.get("unrated_because"),
         values=tuple((name, _number(value)) for name, value in recorded),
         method=_text(sample.get("method")), spectrum=_text(sample.get("spectrum")),
-        reference_spectrum=_text(sample.get("reference_spectrum")))
+        reference_spectrum=_text(sample.get("reference_spectrum")), oil_changed=oil_changed, derived=derived)
 
 
 def _text(value):
