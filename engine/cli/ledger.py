@@ -1,19 +1,24 @@
-"""The ledger's part of the command line: --db on grade and explain, and `history` and `replay`.
+"""The ledger's part of the command line: --db on grade and explain, and `history`, `replay`,
+`rulesets` and `find`.
 
-cli.py keeps one short handler a command; the work is here and in ledger.py / audit.py.
+main.py keeps one short handler a command; the work is here and in ledger/store.py and audit.py.
 """
 
 from __future__ import annotations
 
 import argparse
+import getpass
+import json
 from pathlib import Path
 
 from sumpwise.cli.options import iso_date
-from sumpwise.render.safe_text import terminal_lines
-from sumpwise.ledger.audit import explain_from_ledger, replay, replay_lines, unit_history, write_history
-from sumpwise.vocabulary.cautions import caution_text
+from sumpwise.ledger.audit import (explain_from_ledger, find_samples, ledger_rulesets, recorded_rejects, replay,
+                                   replay_lines, stored_ruleset, stored_ruleset_text, unit_history, write_history)
+from sumpwise.ledger.store import DEFAULT_PATH, Correction, grade_into_ledger
+from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.pipeline import grade_batch
-from sumpwise.ledger.store import DEFAULT_PATH, grade_into_ledger
+from sumpwise.ruleset.compiler import load_ruleset
+from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.vocabulary.problems import InputError
 
 FINDINGS = 3
@@ -32,7 +37,13 @@ def add_grade_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser, optional_value=True)
     parser.add_argument("--correction", action="store_true",
                         help="with --db: record samples whose id is already in the ledger with other values as "
-                             "corrections (both are kept; the new one is current)")
+                             "corrections (both are kept; the new one is current); needs --reason")
+    parser.add_argument("--reason", metavar="TEXT", help="with --correction: why the recorded values were wrong")
+    parser.add_argument("--author", metavar="NAME",
+                        help="with --correction: who makes the correction (default: the login name)")
+    parser.add_argument("--same-version", action="store_true",
+                        help="with --db: record a rule set although its id and version are already recorded "
+                             "with other content (normally refused: raise the version instead)")
 
 
 def add_history_arguments(parser: argparse.ArgumentParser) -> None:
@@ -47,21 +58,70 @@ def add_replay_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--since", metavar="DATE", type=iso_date, help="only samples taken on or after this ISO date")
 
 
+def add_rulesets_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("ruleset", metavar="FINGERPRINT|ID@VERSION", nargs="?",
+                        help="print this stored rule set as a one-file rule set (check and compare read it)")
+    add_db_argument(parser, optional_value=False)
+    parser.add_argument("--out", metavar="PATH", help="write the rule set to this file instead")
+
+
+def add_find_arguments(parser: argparse.ArgumentParser) -> None:
+    add_db_argument(parser, optional_value=False)
+    parser.add_argument("--rule", metavar="RULE_ID", help="samples on which this rule fired")
+    parser.add_argument("--grade", metavar="GRADE", action="append",
+                        help="samples graded exactly this (repeatable)")
+    parser.add_argument("--at-least", metavar="LEVEL", type=int, help="samples at this ladder level or higher")
+    parser.add_argument("--unit", metavar="UNIT_ID", help="samples of this unit")
+    parser.add_argument("--since", metavar="DATE", type=iso_date, help="sampled on or after this ISO date")
+    parser.add_argument("--until", metavar="DATE", type=iso_date, help="sampled on or before this ISO date")
+    parser.add_argument("--ruleset", metavar="FINGERPRINT", help="graded under this rule set (a prefix will do)")
+    parser.add_argument("--version", metavar="VERSION", dest="ruleset_version",
+                        help="graded under this rule-set version")
+    parser.add_argument("--all-versions", action="store_true",
+                        help="include versions of samples that were later corrected")
+    parser.add_argument("--rejects", action="store_true", help="list the recorded rejected rows instead")
+    parser.add_argument("--format", choices=("table", "csv", "jsonl"), default="table")
+
+
 def grade(args, batch, ruleset, stderr):
-    """Grade the batch; with --db, after the ledger's earlier samples, and record it in one transaction."""
+    """Grade the batch; with --db, after the ledger's earlier samples, and record it in one transaction.
+
+    Returns the graded batch and whether rows were refused for conflicting with recorded samples.
+    """
     if getattr(args, "db", None) is None:
-        if getattr(args, "correction", False):
+        if getattr(args, "correction", False) or getattr(args, "reason", None):
             raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
-        return grade_batch(batch, ruleset)
-    graded, recorded = grade_into_ledger(args.db, batch, ruleset, args.correction)
+        return grade_batch(batch, ruleset), False
+    correction = None
+    if args.correction:
+        if not args.reason or not args.reason.strip():
+            raise InputError("--correction needs --reason TEXT: the ledger keeps why recorded values were replaced")
+        correction = Correction(args.reason.strip(), (args.author or getpass.getuser()).strip())
+    elif args.reason or args.author:
+        raise InputError("--reason and --author go with --correction")
+    graded, recorded = grade_into_ledger(args.db, batch, ruleset, correction, args.same_version)
     where = f"batch {recorded.batch}" if recorded.batch is not None else "nothing new"
     stderr.write(f"sumpwise: ledger {args.db}: {where}: {recorded.new} new sample(s), {recorded.known} already "
                  f"recorded, {recorded.corrections} correction(s)\n")
-    return graded
+    if recorded.conflicts:
+        stderr.write(f"sumpwise: ledger {args.db}: {recorded.conflicts} row(s) rejected: their sample id is already "
+                     f"recorded with other values (the rejects name the batch; if the new values are right, grade "
+                     f"those rows again with --correction --reason TEXT); the other rows were graded and recorded\n")
+    return graded, recorded.conflicts > 0
+
+
+def _other_ruleset(db, rules: str | None):
+    """--rules with explain --db: a rule-set file, or a stored rule set by fingerprint or ID@VERSION."""
+    if rules is None:
+        return None
+    if Path(rules).exists():
+        return load_ruleset(rules)
+    return stored_ruleset(db, rules.removeprefix("sha256:"))  # compare's spelling of a stored rule set
 
 
 def run_explain(args, stdout) -> int:
-    stdout.write("\n".join(terminal_lines(explain_from_ledger(args.db, args.sample_id))) + "\n")
+    other = _other_ruleset(args.db, args.rules)
+    stdout.write("\n".join(terminal_lines(explain_from_ledger(args.db, args.sample_id, other))) + "\n")
     return 0
 
 
@@ -78,8 +138,47 @@ def run_replay(args, stdout, stderr) -> int:
     return FINDINGS if report.differences else 0
 
 
+def run_rulesets(args, stdout, stderr) -> int:
+    if args.ruleset is None:
+        if args.out:
+            raise InputError("sumpwise rulesets: --out needs a FINGERPRINT or ID@VERSION")
+        stdout.write(f"{'sha256':<16}  {'id':<24} {'version':>8} {'batches':>8} {'samples':>8}  first recorded\n")
+        lines = [f"{r['sha256'][:16]}  {r['id']:<24} {r['version']:>8} {r['batches']:>8} {r['samples']:>8}  "
+                 f"{r['first'] or '-'}" for r in ledger_rulesets(args.db)]
+        stdout.write("".join(line + "\n" for line in terminal_lines(lines)))
+        return 0
+    sha, canonical = stored_ruleset_text(args.db, args.ruleset)
+    text = json.dumps(json.loads(canonical), indent=1, ensure_ascii=False) + "\n"  # one value a line: loadable
+    if args.out:
+        Path(args.out).write_text(text, encoding="utf-8")
+        stderr.write(f"sumpwise: rule set {sha} written to {args.out}\n")
+    else:
+        stdout.write(text)
+    return 0
+
+
+def run_find(args, stdout, stderr) -> int:
+    if args.rejects:
+        found = recorded_rejects(args.db)
+    else:
+        found = find_samples(args.db, rule=args.rule, grade_at_least=args.at_least, grades=args.grade,
+                             unit=args.unit, since=args.since, until=args.until,
+                             ruleset=args.ruleset, version=args.ruleset_version, everything=args.all_versions)
+        found = found.drop(columns=["level", "superseded_in"] if not args.all_versions else ["level"])
+    if args.format == "csv":
+        spreadsheet_frame(found).to_csv(stdout, index=False, lineterminator="\n")
+    elif args.format == "jsonl":
+        stdout.write(found.to_json(orient="records", lines=True, force_ascii=False))
+    else:
+        stdout.write("\n".join(terminal_lines(found.to_string(index=False).splitlines())) + "\n" if len(found) else "")
+        stdout.write(f"{len(found)} {'rejected row' if args.rejects else 'sample'}(s)\n")
+    return 0
+
+
 def grade_demo(out_dir: Path, batch, ruleset):
-    """The demo's year of samples through a ledger in its out folder; a regenerated scenario is a correction."""
+    """The demo's year of samples through a ledger in its out folder; a regenerated scenario is a correction,
+    and the shipped site rule set may have changed under its version with the engine (a demo, not a site)."""
     path = out_dir / "brackwater.db"
-    graded, _ = grade_into_ledger(path, batch, ruleset, correction=True)
+    graded, _ = grade_into_ledger(path, batch, ruleset, Correction("the demo scenario was generated again", "demo"),
+                                  reuse_version=True)
     return graded, path

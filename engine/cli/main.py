@@ -2,7 +2,8 @@
 
 Exit codes keep findings apart from failures, so a pipeline can tell them apart:
 0 done; 1 internal fault (a bug); 2 usage error, unreadable input or invalid rule
-set; 3 findings: a sample reached the `--fail-at` grade (or `compare` saw a move).
+set; 3 findings: a sample reached the `--fail-at` grade (or `compare` saw a move, replay a difference,
+or a ledger import rejected rows whose sample id was recorded with other values).
 """
 
 from __future__ import annotations
@@ -153,10 +154,21 @@ def _parser(stdout) -> _Parser:
                                                           "date order (table, CSV or JSON Lines).")
     ledger_cli.add_history_arguments(history)
 
-    replay = commands.add_parser("replay", help="re-grade the ledger's samples and report differences (exit 3)",
-                                 out=stdout, description="Re-grade every recorded sample with the rule set it "
-                                                         "was graded with; exit 3 if any result differs.")
+    replay = commands.add_parser("replay", help="verify the ledger: digests, stored values, every verdict re-graded",
+                                 out=stdout, description="Check the batches' digest chain and stored values, and "
+                                                         "re-grade every recorded sample with the rule set it was "
+                                                         "graded with; exit 3 on any finding.")
     ledger_cli.add_replay_arguments(replay)
+
+    rulesets = commands.add_parser("rulesets", help="list the ledger's rule sets, or print one as a rule-set file",
+                                   out=stdout, description="List the rule sets a ledger recorded, or write one "
+                                                           "(by fingerprint or ID@VERSION) as a one-file rule set.")
+    ledger_cli.add_rulesets_arguments(rulesets)
+
+    find = commands.add_parser("find", help="list recorded samples by rule fired, grade, unit, dates, rule set",
+                               out=stdout, description="List the ledger's samples that match every filter given "
+                                                       "(or its recorded rejected rows).")
+    ledger_cli.add_find_arguments(find)
     return parser
 
 
@@ -320,14 +332,15 @@ def _grade(args, stdin, stdout, stderr) -> int:
         return USAGE
     fail_levels, fail_unrated = _fail_at(args, ruleset)
     sources = _sources(args.samples)
-    files, found_grade, found_unrated = [], False, False
+    files, found_grade, found_unrated, conflicts = [], False, False, 0
     with contextlib.ExitStack() as stack:
         out = _opened(stack, args.out, "--out") if args.out else stdout
         rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
         first = True
         for source in sources:
             tally = _Tally(ruleset)
-            for graded, notes in _graded_batches(args, stdin, source, ruleset, columns, stderr):
+            for graded, notes, refused in _graded_batches(args, stdin, source, ruleset, columns, stderr):
+                conflicts += refused
                 for note in notes:
                     stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
                 _write_records(args, graded, out, stderr, header=first)
@@ -349,7 +362,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
     for warning in warnings:
         stderr.write(terminal_text(f"sumpwise: warning: {warning}") + "\n")
     code = OK
-    if fail_levels and found_grade or fail_unrated and found_unrated:
+    if fail_levels and found_grade or fail_unrated and found_unrated or conflicts:
         code = FINDINGS
     if args.max_rejects is not None and total["rejected"] > args.max_rejects:
         stderr.write(f"sumpwise: {total['rejected']} row(s) rejected, more than --max-rejects {args.max_rejects}\n")
@@ -397,11 +410,13 @@ def _chunked(args, source, columns) -> bool:
 
 
 def _graded_batches(args, stdin, source, ruleset, columns, stderr):
-    """A source's graded batches with the reader's notes: the whole file at once, or in chunks whose
-    trends are carried from chunk to chunk (pipeline.grade_in_chunks)."""
+    """A source's graded batches with the reader's notes and the rows a ledger refused as conflicts:
+    the whole file at once, or in chunks whose trends are carried from chunk to chunk
+    (pipeline.grade_in_chunks)."""
     if not _chunked(args, source, columns):
         batch = _read_one(args, stdin, source, ruleset, columns)
-        yield ledger_cli.grade(args, batch, ruleset, stderr), batch.notes
+        graded, conflicts = ledger_cli.grade(args, batch, ruleset, stderr)
+        yield graded, batch.notes, conflicts
         return
     if getattr(args, "correction", False):
         raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
@@ -414,7 +429,7 @@ def _graded_batches(args, stdin, source, ruleset, columns, stderr):
     read = (measure_sample_spectra(batch, ruleset, references, args.path_length) for batch in chunks)
     for graded in grade_in_chunks(_noting(read, said), ruleset):
         notes, said[:] = tuple(said), []
-        yield graded, notes
+        yield graded, notes, 0
 
 
 def _noting(batches, said: list):
@@ -541,7 +556,9 @@ def _replay(args, stdin, stdout, stderr) -> int:
 
 _COMMANDS = {"check": _check, "grade": _grade, "explain": _explain, "demo": _demo, "spectra": _spectra,
              "compare": _compare, "propose-limits": _propose_limits, "report": _report,
-             "history": _history, "replay": _replay}
+             "history": _history, "replay": _replay,
+             "rulesets": lambda args, stdin, stdout, stderr: ledger_cli.run_rulesets(args, stdout, stderr),
+             "find": lambda args, stdin, stdout, stderr: ledger_cli.run_find(args, stdout, stderr)}
 
 
 def entry() -> None:

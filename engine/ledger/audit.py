@@ -1,63 +1,75 @@
-"""Reading the ledger back: the story of one verdict, a unit's history, and a replay of every grade.
+"""Reading the ledger back: the story of one verdict, a unit's history, queries, and a replay.
 
-Replay re-grades each recorded batch with the rule set it was graded with (rebuilt from
-its stored canonical text, whose SHA-256 must still match), after the samples that were
-in the ledger when the batch was recorded, and compares the new records byte for byte
-with the stored ones. Any difference means the ledger, the rule set text or the engine
-changed what a verdict would be.
+Stored verdicts are facts (results/facts.py); their wording is put back from the rule set
+the batch was graded with, rebuilt from its stored canonical text (whose SHA-256 must
+still match). Replay (the verify command) checks the digest chain, each batch's counts,
+every sample's content against its fingerprint and its typed columns against its
+content, then re-grades each batch after the samples that were in the ledger when it
+was recorded and compares every fact. Any difference means the ledger, the rule set text
+or the engine changed what a verdict would be.
 """
 
 from __future__ import annotations
 
 import json
 import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from sumpwise.vocabulary.cautions import caution_text
-from sumpwise.ruleset.compiler import load_ruleset
+from sumpwise.intake.samples import SampleBatch
+from sumpwise.ledger.schema import batch_digest, fingerprint, result_from_record  # noqa: F401 (API)
+from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch_rejects, current_contents,
+                                   current_verdicts, find_entries, history_frame, open_ledger, reads_ledger,
+                                   ruleset_text, sample_entries, stored_rulesets, unit_entries)
+from sumpwise.render.jsonl import dumps
+from sumpwise.version import engine_name
 from sumpwise.render.narrative import explain_lines
 from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
+from sumpwise.results.facts import batch_facts, result_from_facts
 from sumpwise.results.pipeline import grade_batch
-from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, current_contents, current_records, fingerprint,
-                     history_frame, open_ledger, sample_entries, unit_entries)
-from sumpwise.vocabulary.problems import InputError
-from sumpwise.render.jsonl import jsonl_lines
-from sumpwise.results.records import (FORMAT_1, FULL, CaveatNote, Clause, NotEvaluated, Reason, SampleResult,
-                                      next_step_from_record)
+from sumpwise.results.records import SampleResult
+from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.ruleset.model import RuleSet
-from sumpwise.intake.samples import SampleBatch
+from sumpwise.vocabulary.cautions import caution_text
+from sumpwise.vocabulary.measures import TREND_BASES
+from sumpwise.vocabulary.problems import InputError
 
 TREND_TABLE_ROWS = 6  # the sample itself and up to five before it
 
 
-def result_from_record(record: dict, grades: tuple) -> SampleResult:
-    """A stored JSON Lines record as the frozen SampleResult it was written from."""
-    reasons = []
-    for r in record["reasons"]:
-        clauses = tuple(Clause(c["test"], c["limit"], c["held"], c["value"], measure=c.get("measure"),
-                               field=c.get("field")) for c in r.get("clauses", ()))
-        reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), r["message"], r["source"],
-                              measure=r.get("measure"), value=r.get("value"), unit=r.get("unit"),
-                              test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
-                              capped_by=r.get("capped_by"), clauses=clauses,
-                              next_step=next_step_from_record(r.get("next_step"))))
-    ruleset = record["ruleset"]
-    return SampleResult(
-        sample_id=record["sample_id"], unit_id=record["unit_id"], class_name=record["class"],
-        lubricant=record["lubricant"], sampled_on=record["sampled_on"], grade=record["grade"],
-        level=record["level"], reasons=tuple(reasons),
-        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())),
-                                 next_step_from_record(c.get("next_step"))) for c in record["caveats"]),
-        not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"]), tuple(n.get("undecided", {}).items()))
-                            for n in record["not_evaluated"]),
-        notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
-        ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),
-        values=tuple(record["values"].items()), method=record["method"],
-        comment=record.get("comment"), comment_given="comment" in record)
+@lru_cache(maxsize=64)
+def ruleset_from_canonical(canonical: str, sha256: str) -> RuleSet | None:
+    """Rebuild a rule set from its canonical text; None when the text no longer has its fingerprint."""
+    if fingerprint(canonical) != sha256:
+        return None
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "ruleset.json"
+        try:  # one value a line: the canonical text is one long line, over the rule-set loader's line limit
+            path.write_text(json.dumps(json.loads(canonical), indent=0), encoding="utf-8")
+            ruleset = load_ruleset(path)
+        except Exception:  # a stored text that no longer loads is as good as altered
+            return None
+    return ruleset if ruleset.sha256 == sha256 else None
+
+
+@lru_cache(maxsize=4096)
+def _parsed(text: str):
+    return json.loads(text)
+
+
+def _sample(content: str) -> dict:
+    return json.loads(content)
+
+
+def rebuilt_result(content: str, facts: str, vals: str, ruleset: RuleSet, engine: str,
+                   value_names: str) -> SampleResult:
+    """A stored verdict with its wording put back from its rule set."""
+    return result_from_facts(_parsed(facts), json.loads(vals), _sample(content), ruleset, engine,
+                             json.loads(value_names))
 
 
 def _number(value) -> str:
@@ -80,26 +92,47 @@ def trend_table(unit: pd.DataFrame) -> list[str]:
     return lines
 
 
-def explain_from_ledger(path, sample_id: str) -> list[str]:
-    """The story of a recorded verdict: values, reasons, caveats, rule set, trend, corrections."""
-    conn = open_ledger(path, create=False)
+def _reader(path):
+    return open_ledger(path, create=False, write=False)
+
+
+def _ruleset_of(path, entry: dict) -> RuleSet:
+    ruleset = ruleset_from_canonical(entry["canonical"], entry["ruleset_sha256"])
+    if ruleset is None:
+        raise LedgerError(f"{path}: rule set {entry['ruleset_sha256'][:12]}... is not stored intact in the ledger "
+                          f"(run `sumpwise replay --db {path}`)")
+    return ruleset
+
+
+@reads_ledger
+def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> list[str]:
+    """The story of a recorded verdict: values, reasons, caveats, rule set, trend, corrections.
+
+    With `other`, the sample is also graded under that rule set (after the same earlier
+    samples of its unit) and that story is told too; nothing is written to the ledger.
+    """
+    conn = _reader(path)
     try:
         versions = sample_entries(conn, sample_id)
         if not versions:
             raise LedgerError(f"{path}: no sample '{sample_id}' in the ledger")
-        current = next(v for v in versions if v["superseded_in"] is None)
+        current = next((v for v in versions if v["superseded_in"] is None), versions[-1])
         unit = unit_entries(conn, current["unit_id"]) if current["unit_id"] else None
+        regraded = _regrade_one(conn, current, other) if other is not None else None
     finally:
         conn.close()
-    record = json.loads(current["record"])
-    grades = tuple(json.loads(current["canonical"])["grades"])
-    story = explain_lines(result_from_record(record, grades), grades)
-    values = ", ".join(f"{name} {_number(value)}" for name, value in record["values"].items() if value is not None)
-    story[1:1] = [f"Values as recorded: {values or '(none)'}; method {record['method']}"]
+    ruleset = _ruleset_of(path, current)
+    result = rebuilt_result(current["content"], current["facts"], current["vals"], ruleset, current["engine"],
+                            current["value_names"])
+    story = explain_lines(result, ruleset.grades)
+    values = ", ".join(f"{name} {_number(value)}" for name, value in result.values if value is not None)
+    story[1:1] = [f"Values as recorded: {values or '(none)'}; method {result.method}"]
     at = next(i for i, line in enumerate(story) if line.startswith("Rule set "))
-    lines = []
-    lines.append(f"Recorded {current['recorded_at']} in batch {current['batch']} from {current['source']}; "
-                 f"rule set sha256 {current['ruleset_sha256']}.")
+    lines = [f"Recorded {current['recorded_at']} in batch {current['batch']} from {current['source']}; "
+             f"rule set sha256 {current['ruleset_sha256']}."]
+    if current["corrects"] is not None:
+        lines.append(f"This version is a correction by {current['author'] or '(no author recorded)'}: "
+                     f"{current['reason'] or '(no reason recorded)'}.")
     if len(versions) > 1:
         older = [v for v in versions if v is not current]
         lines.append(f"This is the current record; {len(older)} earlier version(s) were corrected: " + "; ".join(
@@ -111,21 +144,41 @@ def explain_from_ledger(path, sample_id: str) -> list[str]:
         lines.append("")
         lines.append(f"Unit {current['unit_id']}: this sample and the ones before it")
         lines.extend("  " + line for line in trend_table(shown))
-    return story[:at] + lines + [""] + story[at:]
+    told = story[:at] + lines + [""] + story[at:]
+    if regraded is not None:
+        told += ["", f"Re-graded under rule set {other.id} version {other.version} (sha256 {other.sha256}); "
+                     f"not recorded, the ledger is unchanged: {result.grade} as recorded, {regraded.grade} under "
+                     f"this rule set.", ""]
+        told += explain_lines(regraded, other.grades)
+    return told
 
 
+def _regrade_one(conn, entry: dict, ruleset: RuleSet) -> SampleResult:
+    """One stored sample graded under another rule set, after the unit's samples recorded before it."""
+    frame = _frame_from_contents([entry["content"]], json.loads(entry["columns"]))
+    history = None
+    if entry["unit_id"] is not None:
+        history = history_frame(conn, [entry["unit_id"]])
+        entries = conn.execute("SELECT sample_id FROM samples WHERE unit_id = ? AND superseded_in IS NULL "
+                               "AND entry >= ?", (entry["unit_id"], entry["entry"])).fetchall()
+        history = history[~history["sample_id"].isin([sid for (sid,) in entries])]
+    graded = grade_batch(SampleBatch(frame, (), 1, entry["source"]), ruleset, history)
+    return replace(graded.result(0), row=None)
+
+
+@reads_ledger
 def unit_history(path, unit_id: str) -> pd.DataFrame:
     """A unit's current samples and grades over time, with what fired and the caveats."""
-    conn = open_ledger(path, create=False)
+    conn = _reader(path)
     try:
         unit = unit_entries(conn, unit_id)
     finally:
         conn.close()
     if not len(unit):
         raise LedgerError(f"{path}: no samples of unit '{unit_id}' in the ledger")
-    records = [json.loads(text) for text in unit["record"]]
-    unit["fired"] = [";".join(f"{r['rule']}={r['grade']}" for r in rec["reasons"]) for rec in records]
-    unit["caveats"] = [";".join(c["caveat"] for c in rec["caveats"]) for rec in records]
+    shapes = [_parsed(text) for text in unit["facts"]]
+    unit["fired"] = [";".join(f"{r['rule']}={r['grade']}" for r in shape["reasons"]) for shape in shapes]
+    unit["caveats"] = [";".join(c["caveat"] for c in shape["caveats"]) for shape in shapes]
     unit["corrected"] = unit["corrects"].notna()
     unit["oil_changed"] = unit["oil_changed"].astype(bool)
     return unit[["sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40", "an", "oxidation",
@@ -149,8 +202,8 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table") 
 
 @dataclass(frozen=True)
 class Difference:
-    sample_id: str
-    batch: int
+    sample_id: str | None  # None for a finding about a whole batch or the ledger
+    batch: int | None
     what: str
 
 
@@ -160,23 +213,14 @@ class ReplayReport:
     batches: int
     rulesets: int
     differences: tuple
-
-
-def _ruleset_from_canonical(canonical: str, sha256: str) -> RuleSet | None:
-    """Rebuild a rule set from its canonical text; None when the text no longer has its fingerprint."""
-    if fingerprint(canonical) != sha256:
-        return None
-    with tempfile.TemporaryDirectory() as folder:
-        path = Path(folder) / "ruleset.json"
-        # one value a line: the canonical text is one long line, over the rule-set loader's line limit
-        path.write_text(json.dumps(json.loads(canonical), indent=0), encoding="utf-8")
-        ruleset = load_ruleset(path)
-    return ruleset if ruleset.sha256 == sha256 else None
+    head: str = ""  # the last batch's digest: note it down to detect a later deletion of the newest batches
+    last_batch: int | None = None
 
 
 def _frame_from_contents(contents, columns: list) -> pd.DataFrame:
     """Stored sample values back into the frame samples.py made of them (floats, text or None, flags)."""
-    frame = pd.DataFrame.from_records([json.loads(text) for text in contents])
+    contents = list(contents)
+    frame = pd.DataFrame.from_records(json.loads("[" + ",".join(contents) + "]") if contents else [])
     frame = frame.reindex(columns=columns)
     for name in frame.columns:
         column = frame[name]
@@ -186,22 +230,83 @@ def _frame_from_contents(contents, columns: list) -> pd.DataFrame:
     return frame
 
 
-def _differing_keys(stored: str, replayed: str) -> str:
-    a, b = json.loads(stored), json.loads(replayed)
-    keys = [k for k in dict.fromkeys(list(a) + list(b)) if a.get(k) != b.get(k)]
-    grade = f"stored {a.get('grade')}, replayed {b.get('grade')}; " if a.get("grade") != b.get("grade") else ""
-    return f"{grade}differs in: {', '.join(keys) or 'spelling only'}"
+_TYPED = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "method", "lab") + TREND_BASES
 
 
+def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame) -> np.ndarray:
+    """Rows whose typed columns (what history and queries read) hold a value that is neither the
+    stored input value nor what recording them now would write (the re-graded measured frame):
+    an engine that derives a column differently since is not an alteration, a value from
+    nowhere is."""
+    bad = np.zeros(len(entries), dtype=bool)
+    for name in _TYPED:
+        stored = pd.Series(entries[name].to_numpy(dtype=object), dtype=object)
+        same = np.zeros(len(entries), dtype=bool)
+        for source in (measured, frame):
+            if name in source.columns:
+                same |= _same(stored, pd.Series(source[name].to_numpy(dtype=object), index=stored.index,
+                                                dtype=object), numeric=name in ("oil_hours",) + TREND_BASES)
+            elif source is measured:
+                same |= stored.isna().to_numpy()
+        bad |= ~same
+    flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
+        else np.zeros(len(frame), dtype=bool)
+    bad |= pd.to_numeric(entries["oil_changed"], errors="coerce").to_numpy() != flags.astype(int)
+    return bad
+
+
+def _same(a: pd.Series, b: pd.Series, numeric: bool) -> np.ndarray:
+    if numeric:
+        a, b = pd.to_numeric(a, errors="coerce"), pd.to_numeric(b, errors="coerce")
+        return ((a == b) | (a.isna() & b.isna())).to_numpy()
+    return ((a.isna() & b.isna()) | (a.notna() & b.notna() & (a.astype(str) == b.astype(str)))).to_numpy()
+
+
+def _facts_differ(stored: dict, facts, k: int) -> str:
+    """What differs between row k's stored verdict and its replayed facts (a row known to differ)."""
+    level = int(facts.levels[k])
+    parts = []
+    if stored["grade"][k] != facts.grades[k]:
+        parts.append(f"stored {stored['grade'][k]}, replayed {facts.grades[k]}")
+    stored_level = stored["level"][k]
+    if np.isnan(stored_level) != (level < 0) or (level >= 0 and stored_level != level):
+        shown = None if np.isnan(stored_level) else int(stored_level)
+        parts.append(f"stored level {shown}, replayed {level if level >= 0 else None}")
+    if stored["facts"][k] != facts.shapes[facts.shape_of[k]]:
+        parts.append("its reasons, caveats or gaps differ")
+    if stored["vals"][k] != facts.values[k]:
+        parts.append(f"its values differ (stored {stored['vals'][k]}, replayed {facts.values[k]})")
+    return "; ".join(parts)
+
+
+@reads_ledger
 def replay(path, since: str | None = None) -> ReplayReport:
-    """Re-grade every recorded sample (dated on or after `since`) and list the results that differ."""
-    conn = open_ledger(path, create=False)
+    """Verify the digest chain and re-grade every recorded sample (dated on or after `since`)."""
+    conn = _reader(path)
     differences: list[Difference] = []
     checked = batches_seen = 0
     rulesets: dict = {}
+    previous, head, last = "", "", None
     try:
+        differences += _ledger_findings(conn)
         for batch in batch_list(conn):
-            entries = batch_entries(conn, batch["batch"])
+            number = batch["batch"]
+            if batch["previous"] != previous:
+                differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
+                                                            "one before it (a batch was deleted, added or altered)"))
+            digest = batch_digest(conn, number)
+            if digest != batch["digest"]:
+                differences.append(Difference(None, number, "its stored rows no longer match the batch's digest "
+                                                            "(a row altered, added or deleted after recording)"))
+            previous, head, last = batch["digest"], batch["digest"], number
+            entries = batch_entries(conn, number)
+            if len(entries) != batch["new_samples"] + batch["corrections"]:
+                differences.append(Difference(None, number, f"it holds {len(entries)} sample(s) but recorded "
+                                                            f"{batch['new_samples'] + batch['corrections']}"))
+            rejected = conn.execute("SELECT count(*) FROM rejects WHERE batch = ?", (number,)).fetchone()[0]
+            if rejected != batch["rejected"]:
+                differences.append(Difference(None, number, f"it holds {rejected} rejected row(s) but recorded "
+                                                            f"{batch['rejected']}"))
             wanted = entries["sampled_on"].fillna("").to_numpy(dtype=object) >= since if since else \
                 np.ones(len(entries), dtype=bool)
             if not wanted.any():
@@ -209,49 +314,130 @@ def replay(path, since: str | None = None) -> ReplayReport:
             batches_seen += 1
             sha = batch["ruleset_sha256"]
             if sha not in rulesets:
-                rulesets[sha] = _ruleset_from_canonical(batch["canonical"], sha)
+                rulesets[sha] = ruleset_from_canonical(batch["canonical"], sha) if batch["canonical"] else None
+                if rulesets[sha] is not None and (batch["ruleset_id"] != rulesets[sha].id or
+                                                  batch["version"] != json.dumps(rulesets[sha].version)):
+                    differences.append(Difference(None, number, f"the stored id or version of rule set {sha[:12]}... "
+                                                                f"no longer match its text"))
             ruleset = rulesets[sha]
             if ruleset is None:
-                differences.extend(Difference(sid, batch["batch"], f"the stored rule set text no longer has its "
-                                                                    f"fingerprint {sha}") for sid in
-                                   entries["sample_id"][wanted])
+                differences.extend(Difference(sid, number, f"the stored rule set text no longer has its "
+                                                           f"fingerprint {sha} (or is gone)")
+                                   for sid in entries["sample_id"][wanted])
                 checked += int(wanted.sum())
                 continue
-            altered = np.array([fingerprint(c) != s for c, s in zip(entries["content"], entries["content_sha256"])],
-                               dtype=bool)
-            frame = _frame_from_contents(entries["content"], json.loads(batch["columns"]))
-            units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
-            history = history_frame(conn, units, before_batch=batch["batch"])
-            history = history[~history["sample_id"].isin(entries["sample_id"])]
-            graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
-            # A batch recorded before records had a format is replayed in the form it was written in.
-            form = FULL if entries["record"].iat[0].startswith('{"format": ') else FORMAT_1
-            replayed = "".join(jsonl_lines(graded, form=form)).split("\n")[:-1]
-            for k in np.flatnonzero(wanted):
-                checked += 1
-                stored = entries["record"].iat[k] + batch["record_tail"]
-                sid = entries["sample_id"].iat[k]
-                if altered[k]:
-                    differences.append(Difference(sid, batch["batch"], "its stored values no longer match their "
-                                                                       "fingerprint (altered after recording)"))
-                elif stored != replayed[k]:
-                    differences.append(Difference(sid, batch["batch"], _differing_keys(stored, replayed[k])))
+            differences += _batch_findings(conn, batch, entries, ruleset, wanted)
+            checked += int(wanted.sum())
     finally:
         conn.close()
-    return ReplayReport(checked, batches_seen, len(rulesets), tuple(differences))
+    return ReplayReport(checked, batches_seen, len(rulesets), tuple(differences), head, last)
+
+
+def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, wanted: np.ndarray) -> list:
+    number = batch["batch"]
+    altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
+               != entries["content_sha256"].to_numpy(dtype=object))
+    try:
+        frame = _frame_from_contents(entries["content"], json.loads(batch["columns"]))
+    except (ValueError, TypeError):
+        return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
+                                         "recording); its samples were not re-graded")]
+    units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
+    history = history_frame(conn, units, before_batch=number)
+    history = history[~history["sample_id"].isin(entries["sample_id"])]
+    graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
+    typed = _typed_mismatch(entries, graded.measured, frame)
+    facts = batch_facts(graded, json.loads(batch["value_names"]))
+    stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
+              "vals": entries["vals"].to_numpy(dtype=object),
+              "level": pd.to_numeric(entries["level"], errors="coerce").to_numpy(dtype=float)}
+    replayed_level = np.where(facts.levels >= 0, facts.levels, np.nan)
+    shapes = np.array(facts.shapes, dtype=object)[facts.shape_of] if len(facts.shapes) else stored["facts"][:0]
+    same_level = (stored["level"] == replayed_level) | (np.isnan(stored["level"]) & np.isnan(replayed_level))
+    differs = ~((stored["grade"] == facts.grades) & same_level & (stored["facts"] == shapes)
+                & (stored["vals"] == facts.values))
+    sids = entries["sample_id"].to_numpy(dtype=object)
+    found = []
+    for k in np.flatnonzero(wanted & (altered | typed | differs)):
+        sid = sids[k]
+        if altered[k]:
+            found.append(Difference(sid, number, "its stored values no longer match their fingerprint "
+                                                 "(altered after recording)"))
+        elif typed[k]:
+            found.append(Difference(sid, number, "its stored columns no longer match its stored values "
+                                                 "(altered after recording)"))
+        elif stored["facts"][k] is None:
+            found.append(Difference(sid, number, "its verdict is missing (deleted, or its shape is gone)"))
+        else:
+            why = _facts_differ(stored, facts, k) or "its verdict differs"
+            if batch["engine"] != engine_name():
+                # untouched rows (their fingerprints hold) that today's engine grades otherwise: an
+                # auditor must see them, told apart from an alteration
+                why += (f" (graded by {batch['engine']} when recorded; {engine_name()} grades it otherwise: "
+                        f"an engine change, not an alteration, as its fingerprints hold)")
+            found.append(Difference(sid, number, why))
+    return found
+
+
+def _ledger_findings(conn) -> list:
+    """Rows that belong to no batch, verdicts of no sample, and corrections that do not pair up."""
+    checks = (
+        ("SELECT s.sample_id, s.batch FROM samples s LEFT JOIN batches b ON b.batch = s.batch WHERE b.batch IS NULL",
+         "recorded in a batch that is not in the ledger (its batch was deleted)"),
+        ("SELECT NULL, v.entry FROM verdicts v LEFT JOIN samples s ON s.entry = v.entry WHERE s.entry IS NULL",
+         "a verdict of no sample (added, or its sample deleted)"),
+        ("SELECT r.sample_id, r.batch FROM rejects r LEFT JOIN batches b ON b.batch = r.batch WHERE b.batch IS NULL",
+         "a rejected row of a batch that is not in the ledger"),
+        ("SELECT s.sample_id, s.batch FROM samples s WHERE s.superseded_in IS NOT NULL AND (s.entry, s.superseded_in) "
+         "NOT IN (SELECT c.corrects, c.batch FROM samples c WHERE c.corrects IS NOT NULL)",
+         "marked as corrected, but no correction of it was recorded"),
+        ("SELECT c.sample_id, c.batch FROM samples c WHERE c.corrects IS NOT NULL AND NOT EXISTS "
+         "(SELECT 1 FROM samples s WHERE s.entry = c.corrects AND s.superseded_in = c.batch)",
+         "a correction whose corrected version is not marked as corrected by it"),
+        ("SELECT NULL, NULL, sha256 FROM rulesets WHERE sha256 NOT IN (SELECT ruleset_sha256 FROM batches)",
+         "a stored rule set that no batch was graded with (added after recording?)"),
+    )
+    found = []
+    for query, what in checks:
+        for row in conn.execute(query).fetchall():
+            note = f" ({row[2][:12]}...)" if len(row) > 2 else ""
+            found.append(Difference(row[0], row[1], what + note))
+    for shape, sha, facts in conn.execute("SELECT shape, sha256, facts FROM shapes").fetchall():
+        if fingerprint(facts) != sha:
+            found.append(Difference(None, None, f"stored shape {shape} no longer matches its fingerprint"))
+        stored = conn.execute("SELECT rule, grade FROM shape_rules WHERE shape = ? ORDER BY rule, grade",
+                              (shape,)).fetchall()
+        try:
+            wanted = sorted({(r["rule"], r["grade"]) for r in _parsed(facts)["reasons"]})
+        except (ValueError, KeyError, TypeError):
+            found.append(Difference(None, None, f"stored shape {shape} can no longer be read"))
+            continue
+        if sorted(stored) != wanted:
+            found.append(Difference(None, None, f"the rule index of stored shape {shape} no longer matches it"))
+    return found
 
 
 def replay_lines(report: ReplayReport) -> list[str]:
-    lines = [f"{d.sample_id} (batch {d.batch}): {d.what}" for d in report.differences]
+    lines = []
+    for d in report.differences:
+        where = f"{d.sample_id} (batch {d.batch})" if d.sample_id is not None else (
+            f"batch {d.batch}" if d.batch is not None else "ledger")
+        lines.append(f"{where}: {d.what}")
     summary = (f"replayed {report.checked} result(s) from {report.batches} batch(es) under {report.rulesets} "
                f"rule set(s): ")
-    summary += (f"{len(report.differences)} differ" if report.differences else "every result matches its record")
-    return lines + [summary]
+    summary += (f"{len(report.differences)} finding(s)" if report.differences
+                else "every result matches its record and every batch its digest")
+    lines.append(summary)
+    if report.last_batch is not None:
+        lines.append(f"ledger head: batch {report.last_batch}, digest {report.head} (keep it elsewhere: a later "
+                     f"replay that shows another head for this batch means batches were removed or rewritten)")
+    return lines
 
 
+@reads_ledger
 def stored_samples(path) -> SampleBatch:
     """The ledger's current samples as a batch, for commands that take `--db` instead of `--samples`."""
-    conn = open_ledger(path, create=False)
+    conn = _reader(path)
     try:
         contents, columns = current_contents(conn)
     finally:
@@ -262,26 +448,87 @@ def stored_samples(path) -> SampleBatch:
     return SampleBatch(frame, (), len(frame), f"ledger {path}")
 
 
-def stored_records(path, batch: int | None = None) -> list[str]:
-    """The ledger's current result records (or one batch's), as JSON Lines text."""
-    conn = open_ledger(path, create=False)
+@reads_ledger
+def stored_results(path, batch: int | None = None) -> tuple[list[SampleResult], dict]:
+    """The ledger's current results (or one batch's), each worded from the rule set it was graded
+    with, and those rule sets by fingerprint: what a whole-ledger report draws each sample against."""
+    conn = _reader(path)
     try:
-        records = current_records(conn, batch)
+        rows = current_verdicts(conn, batch)
+        canonical = dict(conn.execute("SELECT sha256, canonical FROM rulesets").fetchall())
     finally:
         conn.close()
-    if not records:
+    if not rows:
         raise InputError(f"{path}: the ledger holds no results" + (f" for batch {batch}" if batch else ""))
-    return records
+    rulesets = {}
+    for sha in dict.fromkeys(row[3] for row in rows):
+        rulesets[sha] = _ruleset_of(path, {"canonical": canonical.get(sha, ""), "ruleset_sha256": sha})
+    return [rebuilt_result(content, facts, vals, rulesets[sha], engine, names)
+            for content, facts, vals, sha, engine, names in rows], rulesets
 
 
-def stored_ruleset(path, sha256: str) -> RuleSet:
-    """A rule set the ledger recorded, rebuilt from its canonical form and checked against its fingerprint."""
-    conn = open_ledger(path, create=False)
+@reads_ledger
+def stored_records(path, batch: int | None = None) -> list[str]:
+    """The ledger's current result records (or one batch's) as self-contained JSON Lines text."""
+    results, _ = stored_results(path, batch)
+    return [dumps(result.to_record()) for result in results]
+
+
+@reads_ledger
+def stored_ruleset(path, selector: str) -> RuleSet:
+    """A rule set the ledger recorded, by fingerprint (or an unambiguous prefix of at least 8 hex
+    digits) or ID@VERSION, rebuilt from its canonical form and checked against its fingerprint."""
+    sha, canonical = stored_ruleset_text(path, selector)
+    ruleset = ruleset_from_canonical(canonical, sha)
+    if ruleset is None:
+        raise InputError(f"{path}: rule set {sha[:12]}... is not stored intact in the ledger")
+    return ruleset
+
+
+@reads_ledger
+def stored_ruleset_text(path, selector: str) -> tuple[str, str]:
+    """(sha256, canonical text) of one stored rule set; the text is a one-file rule set `check` reads."""
+    conn = _reader(path)
     try:
-        row = conn.execute("SELECT canonical FROM rulesets WHERE sha256 = ?", (sha256,)).fetchone()
+        found = ruleset_text(conn, selector)
     finally:
         conn.close()
-    ruleset = _ruleset_from_canonical(row[0], sha256) if row else None
-    if ruleset is None:
-        raise InputError(f"{path}: rule set {sha256[:12]}... is not stored intact in the ledger")
-    return ruleset
+    if not found:
+        raise InputError(f"{path}: rule set '{selector}' is not stored intact in the ledger: none has that "
+                         f"fingerprint or ID@VERSION (give a fingerprint, at least its first 8 hex digits, or "
+                         f"ID@VERSION; `sumpwise rulesets --db {path}` lists them)")
+    if len(found) > 1:
+        raise InputError(f"{path}: '{selector}' names {len(found)} stored rule sets: "
+                         + ", ".join(sha[:16] for sha, _ in found) + "; give more of the fingerprint")
+    return found[0]
+
+
+@reads_ledger
+def ledger_rulesets(path) -> list[dict]:
+    conn = _reader(path)
+    try:
+        return stored_rulesets(conn)
+    finally:
+        conn.close()
+
+
+@reads_ledger
+def find_samples(path, **filters) -> pd.DataFrame:
+    """The recorded samples matching every filter (see store.find_entries), with the rules that fired."""
+    conn = _reader(path)
+    try:
+        found = find_entries(conn, **filters)
+    finally:
+        conn.close()
+    found["fired"] = [";".join(f"{r['rule']}={r['grade']}" for r in _parsed(text)["reasons"])
+                      for text in found["facts"]]
+    return found.drop(columns=["facts"])
+
+
+@reads_ledger
+def recorded_rejects(path) -> pd.DataFrame:
+    conn = _reader(path)
+    try:
+        return batch_rejects(conn)
+    finally:
+        conn.close()

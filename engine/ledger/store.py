@@ -1,18 +1,21 @@
 """The ledger: an SQLite file that remembers every sample, every verdict and every rule set used.
 
-All of sumpwise's SQLite I/O lives here. A graded batch is recorded in one transaction
-(BEGIN IMMEDIATE, so two runs on one file take turns instead of interleaving), in WAL
-mode so readers never wait for a writer. A sample is stored with its input values as
-canonical JSON and that text's SHA-256: the same sample with the same content adds
-nothing; the same id with other content is refused unless recorded as a correction,
-which keeps both. The schema is versioned (PRAGMA user_version) and migrated step by
-step; a file that is not a ledger, or is from a newer sumpwise, is refused, never
-recreated.
+All of sumpwise's SQLite I/O lives here (the schema and digest in schema.py). A graded
+batch is recorded in one transaction (BEGIN IMMEDIATE, so two runs on one file take turns
+instead of interleaving), in WAL mode so readers never wait for a writer. A sample is
+stored with its input values as canonical JSON and that text's SHA-256: the same sample
+with the same content adds nothing; the same id with other content is rejected (and the
+reject recorded) unless the batch is a correction, which keeps both. A verdict is stored
+as facts (results/facts.py): a shape shared by many samples and the sample's own values;
+the wording comes back from the stored rule set. Each batch ends with a digest of what it
+recorded, chained to the previous batch's. The schema is versioned (PRAGMA user_version)
+and migrated step by step; a file that is not a ledger, or is from a newer sumpwise, is
+refused and left untouched.
 """
 
 from __future__ import annotations
 
-import hashlib
+import functools
 import json
 import os
 import re
@@ -26,83 +29,30 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.version import engine_name
-from sumpwise.results.pipeline import grade_batch
-from sumpwise.vocabulary.measures import TREND_BASES
-from sumpwise.vocabulary.problems import InputError
-from sumpwise.render.jsonl import dumps, jsonl_lines
-from sumpwise.results.records import GradedBatch
-from sumpwise.ruleset.model import RuleSet
-from sumpwise.intake.samples import SampleBatch
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.trends import CHAIN_COLUMNS, read_oil_changes
+from sumpwise.intake.samples import Reject, SampleBatch
+from sumpwise.ledger.schema import MIGRATIONS, batch_digest, fingerprint, shape_ids
+from sumpwise.results.facts import batch_facts, record_names
+from sumpwise.results.pipeline import grade_batch
+from sumpwise.results.records import GradedBatch
+from sumpwise.ruleset.model import RuleSet
+from sumpwise.version import engine_name
+from sumpwise.vocabulary.measures import TREND_BASES
+from sumpwise.vocabulary.problems import InputError
 
 DEFAULT_PATH = "sumpwise.db"
 APPLICATION_ID = 0x53574C47  # "SWLG": marks the file as a sumpwise ledger
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 PAGE_SIZE = 16384  # bytes; a new ledger only (SQLite keeps a file's page size): bulk imports write faster
+CACHE_KIB = 262144  # page cache of a writing run: index pages stay in memory while a large batch is stored
 BUSY_SECONDS = 60.0  # how long a run waits for another run's transaction before giving up
 _BEGIN_TRIES = 5
 PAUSE_VARIABLE = "SUMPWISE_LEDGER_TEST_PAUSE"  # tests only: seconds to wait inside the write transaction
 
 _NEEDS_ESCAPE = re.compile(r'["\\\x00-\x1f\x7f\u2028\u2029]')
-_VALUE_COLUMNS = ", ".join(f"{base} REAL" for base in TREND_BASES)
-
-# Step n brings a ledger from schema version n - 1 to n. Never edit a step once released: add one.
-MIGRATIONS = (
-    # 1: the tables.
-    f"""
-    CREATE TABLE rulesets (
-        sha256 TEXT PRIMARY KEY,
-        ruleset_id TEXT NOT NULL,
-        version TEXT NOT NULL,
-        canonical TEXT NOT NULL
-    );
-    CREATE TABLE batches (
-        batch INTEGER PRIMARY KEY,
-        recorded_at TEXT NOT NULL,
-        source TEXT NOT NULL,
-        ruleset_sha256 TEXT NOT NULL REFERENCES rulesets(sha256),
-        engine TEXT NOT NULL,
-        columns TEXT NOT NULL,
-        record_tail TEXT NOT NULL,
-        rows_read INTEGER NOT NULL,
-        new_samples INTEGER NOT NULL,
-        known_samples INTEGER NOT NULL,
-        corrections INTEGER NOT NULL
-    );
-    CREATE TABLE samples (
-        entry INTEGER PRIMARY KEY,
-        batch INTEGER NOT NULL REFERENCES batches(batch),
-        sample_id TEXT NOT NULL,
-        unit_id TEXT,
-        class TEXT,
-        sampled_on TEXT,
-        oil_hours REAL,
-        oil_changed INTEGER NOT NULL,
-        method TEXT NOT NULL,
-        lab TEXT,
-        {_VALUE_COLUMNS},
-        content TEXT NOT NULL,
-        content_sha256 TEXT NOT NULL,
-        corrects INTEGER REFERENCES samples(entry),
-        superseded_in INTEGER REFERENCES batches(batch)
-    );
-    CREATE UNIQUE INDEX samples_current ON samples(sample_id) WHERE superseded_in IS NULL;
-    CREATE TABLE results (
-        entry INTEGER PRIMARY KEY REFERENCES samples(entry),
-        grade TEXT NOT NULL,
-        level INTEGER,
-        record TEXT NOT NULL
-    );
-    """,
-    # 2: indexes that keep history and explain fast on a large ledger.
-    """
-    CREATE INDEX samples_unit ON samples(unit_id, sampled_on);
-    CREATE INDEX samples_sample ON samples(sample_id);
-    CREATE INDEX samples_batch ON samples(batch);
-    """,
-)
+_HEADER = b"SQLite format 3\x00"
+CONFLICT_CODE = "L001"  # vocabulary/problems.py
 
 
 class LedgerError(InputError):
@@ -117,47 +67,155 @@ class Recorded:
     new: int
     known: int
     corrections: int
+    conflicts: int = 0  # rows refused because their id was recorded with other values
+    rejected: int = 0  # rejected rows recorded with the batch (conflicts included)
 
 
-def open_ledger(path, create: bool = True) -> sqlite3.Connection:
-    """A connection to a ledger, migrated to SCHEMA_VERSION; refuse anything that is not one."""
-    path = Path(path)
-    if not path.exists() and not create:
-        raise LedgerError(f"{path}: no ledger here (grade with --db {path} first)")
-    if path.exists() and path.stat().st_size:
-        with open(path, "rb") as head:
-            if head.read(16) != b"SQLite format 3\x00":
-                raise LedgerError(f"{path}: not a sumpwise ledger: the file is not an SQLite database")
+@dataclass(frozen=True)
+class Correction:
+    """Why a batch corrects recorded samples, and who says so."""
+
+    reason: str
+    author: str
+
+
+def reads_ledger(function):
+    """SQLite's own errors on a damaged ledger become a LedgerError (exit 2), never a traceback."""
+    @functools.wraps(function)
+    def run(path, *args, **kwargs):
+        try:
+            return function(path, *args, **kwargs)
+        except sqlite3.DatabaseError as exc:
+            raise LedgerError(f"{path}: the ledger cannot be read: {exc} (is the file damaged?)") from None
+    return run
+
+
+def _header(path: Path) -> tuple[int, int] | None:
+    """(user_version, application_id) from an SQLite file's header, read without SQLite; None when empty."""
+    with open(path, "rb") as head:
+        header = head.read(100)
+    if not header:
+        return None
+    if len(header) < 100 or header[:16] != _HEADER:
+        raise LedgerError(f"{path}: not a sumpwise ledger: the file is not an SQLite database")
+    return int.from_bytes(header[60:64], "big"), int.from_bytes(header[68:72], "big")
+
+
+def _usable_path(path: Path, create: bool) -> tuple[int, int] | None:
+    if path.is_dir():
+        raise LedgerError(f"{path}: is a folder, not a ledger file")
+    if not path.exists():
+        if not create:
+            raise LedgerError(f"{path}: no ledger here (grade with --db {path} first)")
+        if not path.parent.is_dir():
+            raise LedgerError(f"{path}: the folder {path.parent} does not exist")
+        return None
     try:
+        identity = _header(path)
+    except OSError as exc:
+        raise LedgerError(f"{path}: cannot read the ledger: {exc.strerror or exc}") from None
+    if identity is not None:
+        version, app = identity
+        if app != APPLICATION_ID and (app != 0 or version != 0 or _has_tables(path)):
+            raise LedgerError(f"{path}: not a sumpwise ledger: it is an SQLite database of another kind "
+                              f"(application id {app:#x}); sumpwise will not change it")
+        if version > SCHEMA_VERSION:
+            raise LedgerError(f"{path}: the ledger has schema version {version}, newer than this sumpwise "
+                              f"understands ({SCHEMA_VERSION}); use a newer sumpwise")
+    return identity
+
+
+def _has_tables(path: Path) -> bool:
+    """Whether an SQLite file with no application id holds anything (read without touching it)."""
+    try:
+        conn = sqlite3.connect(path.resolve().as_uri() + "?mode=ro&immutable=1", uri=True)
+        try:
+            return conn.execute("SELECT count(*) FROM sqlite_master").fetchone()[0] > 0
+        finally:
+            conn.close()
+    except sqlite3.DatabaseError:
+        return True
+
+
+def _writable(path: Path) -> bool:
+    folder = path.parent if str(path.parent) else Path(".")
+    return os.access(folder, os.W_OK) and (not path.exists() or os.access(path, os.W_OK))
+
+
+def open_ledger(path, create: bool = True, write: bool = True) -> sqlite3.Connection:
+    """A connection to a ledger at SCHEMA_VERSION; refuse anything that is not one, untouched.
+
+    The file's header is read before SQLite opens it, so a foreign or damaged file is never
+    switched to WAL or migrated. Readers (`write=False`) open the file read-only; an older
+    ledger is migrated in place when it can be written, and in memory when it cannot (an
+    archived ledger in a read-only folder). A writer needs the file and its folder writable.
+    """
+    path = Path(path)
+    identity = _usable_path(path, create and write)
+    try:
+        if not write and identity is not None:
+            conn = _read_only(path)
+            version = _check_identity(conn, path)
+            if version == SCHEMA_VERSION:
+                return conn
+            if not _writable(path):
+                conn = _in_memory(conn)
+                migrate(conn)
+                return conn
+            conn.close()
+        if not _writable(path):
+            raise LedgerError(f"{path}: the ledger (or its folder) is read-only: reading commands (history, "
+                              f"explain, replay, report) work, recording needs write permission")
         conn = sqlite3.connect(path, timeout=BUSY_SECONDS, isolation_level=None)
-        conn.execute(f"PRAGMA page_size={PAGE_SIZE}")  # before WAL; no effect on an existing database
-        conn.execute("PRAGMA journal_mode=WAL")
-        conn.execute("PRAGMA synchronous=NORMAL")  # WAL: a crash never corrupts; power loss may drop the last batch
-        conn.execute("PRAGMA foreign_keys=ON")
-        _check_and_migrate(conn, path)
+        try:
+            version = _check_identity(conn, path)  # reads only: a refused file is left as it was
+            conn.execute(f"PRAGMA page_size={PAGE_SIZE}")  # before WAL; no effect on an existing database
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute("PRAGMA synchronous=NORMAL")  # WAL: a crash never corrupts; power loss may drop the last batch
+            conn.execute("PRAGMA foreign_keys=ON")
+            conn.execute(f"PRAGMA cache_size=-{CACHE_KIB}")  # a batch of a million samples grows five indexes
+            if version < SCHEMA_VERSION:
+                migrate(conn)
+        except BaseException:
+            conn.close()
+            raise
     except sqlite3.DatabaseError as exc:
         raise LedgerError(f"{path}: not a usable sumpwise ledger: {exc}") from None
     return conn
 
 
-def _identity(conn: sqlite3.Connection) -> tuple[int, int, int]:
+def _check_identity(conn: sqlite3.Connection, path: Path) -> int:
+    """The ledger's schema version, from SQLite (the header may lag behind a WAL file); refuse others."""
     app = conn.execute("PRAGMA application_id").fetchone()[0]
     version = conn.execute("PRAGMA user_version").fetchone()[0]
     tables = conn.execute("SELECT count(*) FROM sqlite_master").fetchone()[0]
-    return app, version, tables
-
-
-def _check_and_migrate(conn: sqlite3.Connection, path: Path) -> None:
-    app, version, tables = _identity(conn)
-    fresh = app == 0 and version == 0 and tables == 0
-    if not fresh and app != APPLICATION_ID:
+    if app != APPLICATION_ID and (app != 0 or version != 0 or tables != 0):
         raise LedgerError(f"{path}: not a sumpwise ledger: it is an SQLite database of another kind "
                           f"(application id {app:#x}, {tables} schema object(s)); sumpwise will not change it")
     if version > SCHEMA_VERSION:
         raise LedgerError(f"{path}: the ledger has schema version {version}, newer than this sumpwise "
                           f"understands ({SCHEMA_VERSION}); use a newer sumpwise")
-    if version < SCHEMA_VERSION:
-        migrate(conn)
+    return version
+
+
+def _read_only(path: Path) -> sqlite3.Connection:
+    """Read-only; immutable when SQLite cannot keep its shared-memory file beside it (a read-only folder)."""
+    uri = path.resolve().as_uri()
+    try:
+        conn = sqlite3.connect(uri + "?mode=ro", uri=True, timeout=BUSY_SECONDS, isolation_level=None)
+        conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+        return conn
+    except sqlite3.OperationalError:
+        conn = sqlite3.connect(uri + "?mode=ro&immutable=1", uri=True, isolation_level=None)
+        conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+        return conn
+
+
+def _in_memory(conn: sqlite3.Connection) -> sqlite3.Connection:
+    memory = sqlite3.connect(":memory:", isolation_level=None)
+    conn.backup(memory)
+    conn.close()
+    return memory
 
 
 def migrate(conn: sqlite3.Connection, to: int = SCHEMA_VERSION) -> None:
@@ -166,9 +224,12 @@ def migrate(conn: sqlite3.Connection, to: int = SCHEMA_VERSION) -> None:
     try:
         version = conn.execute("PRAGMA user_version").fetchone()[0]
         for step in range(version, to):
-            for statement in MIGRATIONS[step].split(";"):
+            sql, data = MIGRATIONS[step]
+            for statement in sql.split(";"):
                 if statement.strip():
                     conn.execute(statement)
+            if data is not None:
+                data(conn)
         conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
         conn.execute(f"PRAGMA user_version = {max(version, to)}")
         conn.execute("COMMIT")
@@ -290,30 +351,35 @@ def history_frame(conn: sqlite3.Connection, units, before_batch: int | None = No
     return frame
 
 
-def _conflict_message(path, batch: SampleBatch, conflicts: pd.DataFrame) -> str:
-    rows = pd.Series(batch.frame.index, index=batch.frame["sample_id"].to_numpy(dtype=object))
-    shown = [f"{sid} (row {rows[sid]}, recorded in batch {b})" for sid, b in
-             zip(conflicts["sample_id"][:5], conflicts["batch"][:5])]
-    more = f" and {len(conflicts) - 5} more" if len(conflicts) > 5 else ""
-    return (f"{path}: {len(conflicts)} sample id(s) of {batch.source} are already in the ledger with different "
-            f"values: {', '.join(shown)}{more}. Nothing was recorded. If the new values are a correction, "
-            f"run again with --correction to record them as the current version (the old one is kept)")
+def _conflict_rejects(batch: SampleBatch, conflicts: np.ndarray, stored_batch: np.ndarray) -> list[Reject]:
+    rows = batch.frame.index.to_numpy()[conflicts]
+    ids = batch.frame["sample_id"].to_numpy(dtype=object)[conflicts]
+    return [Reject(int(row), sid, "sample_id",
+                   f"sample {sid} is already recorded (batch {int(earlier)}) with other values; if these values "
+                   f"correct it, grade this row again with --correction --reason TEXT", CONFLICT_CODE)
+            for row, sid, earlier in zip(rows.tolist(), ids.tolist(), stored_batch[conflicts].tolist())]
 
 
-def grade_into_ledger(path, batch: SampleBatch, ruleset: RuleSet, correction: bool = False
-                      ) -> tuple[GradedBatch, Recorded]:
-    """Grade `batch` after the ledger's earlier samples of its units and record it, all or nothing."""
+def grade_into_ledger(path, batch: SampleBatch, ruleset: RuleSet, correction: Correction | None = None,
+                      reuse_version: bool = False) -> tuple[GradedBatch, Recorded]:
+    """Grade `batch` after the ledger's earlier samples of its units and record it, all or nothing.
+
+    A row whose id is recorded with other values is rejected (and the reject recorded)
+    unless `correction` says why and who; the other rows are graded and recorded.
+    """
     conn = open_ledger(path)
     try:
         begin(conn)
         try:
             graded, recorded = _record(conn, path, read_cleanliness_codes(read_oil_changes(batch)), ruleset,
-                                       correction)
+                                       correction, reuse_version)
             _test_pause()
             conn.execute("COMMIT")
         except BaseException:
             conn.execute("ROLLBACK")
             raise
+    except sqlite3.DatabaseError as exc:
+        raise LedgerError(f"{path}: the ledger could not be written: {exc}") from None
     finally:
         conn.close()
     return graded, recorded
@@ -327,7 +393,20 @@ def _test_pause() -> None:
         time.sleep(seconds)
 
 
-def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: bool) -> tuple[GradedBatch, Recorded]:
+def _check_version(conn, path, ruleset: RuleSet, reuse_version: bool) -> None:
+    """One id and version, one fingerprint: a changed rule set needs a new version number."""
+    other = conn.execute("SELECT sha256 FROM rulesets WHERE ruleset_id = ? AND version = ? AND sha256 != ?",
+                         (ruleset.id, json.dumps(ruleset.version), ruleset.sha256)).fetchone()
+    if other is not None and not reuse_version:
+        raise LedgerError(f"{path}: rule set '{ruleset.id}' version {ruleset.version} is already recorded with "
+                          f"other content (sha256 {other[0][:12]}..., this one {ruleset.sha256[:12]}...): two rule "
+                          f"sets under one version could not be told apart in the ledger's reports. Raise "
+                          f"`version:` in the rule set, or pass --same-version to record it anyway")
+
+
+def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correction | None,
+            reuse_version: bool) -> tuple[GradedBatch, Recorded]:
+    _check_version(conn, path, ruleset, reuse_version)
     frame = batch.frame
     ids = frame["sample_id"].to_numpy(dtype=object)
     contents = sample_contents(frame)
@@ -337,26 +416,37 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: bool) 
     stored_sha = by_id["content_sha256"].reindex(ids).to_numpy(dtype=object)
     known = pd.notna(stored_sha) & (stored_sha == shas)
     differs = pd.notna(stored_sha) & ~known
-    if differs.any() and not correction:
-        raise LedgerError(_conflict_message(path, batch, stored[stored["sample_id"].isin(ids[differs])]))
+    conflicts = differs if correction is None else np.zeros(len(frame), dtype=bool)
+    if conflicts.any():
+        stored_batch = by_id["batch"].reindex(ids).to_numpy()
+        batch = SampleBatch(frame[~conflicts], tuple(batch.rejects) + tuple(_conflict_rejects(batch, conflicts,
+                                                                                                stored_batch)),
+                            batch.rows_read, batch.source)
+        frame, ids, contents, shas = batch.frame, ids[~conflicts], contents[~conflicts], shas[~conflicts]
+        known, differs = known[~conflicts], differs[~conflicts]
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
     history = history_frame(conn, units)
     history = history[~history["sample_id"].isin(ids)]
     graded = grade_batch(batch, ruleset, history)
     fresh = ~known
-    if not fresh.any():
+    n_conflicts = int(conflicts.sum())
+    if not fresh.any() and not n_conflicts:
         return graded, Recorded(None, 0, int(known.sum()), 0)
 
     conn.execute("INSERT OR IGNORE INTO rulesets VALUES (?, ?, ?, ?)",
                  (ruleset.sha256, ruleset.id, json.dumps(ruleset.version), ruleset.canonical))
-    tail = record_tail(ruleset)
+    previous = conn.execute("SELECT digest FROM batches ORDER BY batch DESC LIMIT 1").fetchone()
+    n_new, n_corrections = int(fresh.sum() - differs.sum()), int(differs.sum())
     cursor = conn.execute(
         "INSERT INTO batches (recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, "
-        "new_samples, known_samples, corrections) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous, value_names) "
+        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (datetime.now(timezone.utc).isoformat(timespec="seconds"), batch.source, ruleset.sha256, engine_name(),
-         json.dumps(list(frame.columns)), tail, batch.rows_read, int(fresh.sum() - differs.sum()), int(known.sum()),
-         int(differs.sum())))
+         json.dumps(list(frame.columns)), batch.rows_read, n_new, int(known.sum()), n_corrections,
+         len(batch.rejects), n_conflicts, correction.reason if correction else None,
+         correction.author if correction else None, previous[0] if previous else "",
+         json.dumps(record_names(graded))))
     number = cursor.lastrowid
     corrected = by_id["entry"].reindex(ids[differs]).astype(int).tolist()
     conn.executemany("UPDATE samples SET superseded_in = ? WHERE entry = ?", ((number, e) for e in corrected))
@@ -378,79 +468,78 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: bool) 
     conn.executemany(f"INSERT INTO samples ({', '.join(names)}) VALUES ({', '.join('?' * len(names))})",
                      zip(*columns))
 
-    entries = np.full(len(frame), -1, dtype=np.int64)
-    entries[rows] = np.arange(first, first + len(rows))
-    grades = np.array(graded.grades(), dtype=object)
-    levels = np.where(graded.outcome.level >= 0, graded.outcome.level, np.nan)
-    start = 0
-    for block in jsonl_lines(graded, drop_tail=tail):
-        heads = block.split("\n")
-        heads.pop()
-        span = np.arange(start, start + len(heads))
-        start += len(heads)
-        keep = fresh[span]
-        if not keep.all():
-            heads = np.array(heads, dtype=object)[keep].tolist()
-        picked = span[keep]
-        conn.executemany("INSERT INTO results VALUES (?, ?, ?, ?)",
-                         zip(entries[picked].tolist(), grades[picked].tolist(), _nullable(levels[picked]), heads))
-    return graded, Recorded(number, int(fresh.sum() - differs.sum()), int(known.sum()), int(differs.sum()))
-
-
-def record_tail(ruleset: RuleSet) -> str:
-    """The end every result record of a rule set shares (notice, rule set, engine): stored once a batch."""
-    shared = dumps({"notice": ruleset.notice,
-                    "ruleset": {"id": ruleset.id, "version": ruleset.version, "sha256": ruleset.sha256},
-                    "engine": engine_name()})
-    return ", " + shared[1:]
+    facts = batch_facts(graded)
+    shapes = np.array(shape_ids(conn, facts.shapes), dtype=np.int64)
+    levels = facts.levels[rows].astype(object)
+    levels[facts.levels[rows] < 0] = None
+    entries, grades, levels, values = list(range(first, first + len(rows))), facts.grades[rows].tolist(), \
+        levels.tolist(), facts.values[rows].tolist()
+    conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
+                     zip(entries, grades, levels, shapes[facts.shape_of[rows]].tolist(), values))
+    conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
+                     ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
+    # The digest of the rows just written, as SQLite gives them back (replay reads them back).
+    shape_shas = np.array([fingerprint(text) for text in facts.shapes], dtype=object)
+    written = {1: list(zip(entries, columns[1], shas[rows].tolist(), corrects[rows].tolist())),
+               2: list(zip(entries, grades, levels, shape_shas[facts.shape_of[rows]].tolist(), values))}
+    conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, written), number))
+    return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
 
 
 # -- reading the ledger back ---------------------------------------------------------------------
 
 _UNIT_COLUMNS = ("entry", "batch", "sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40",
                  "an", "oxidation", "water", "corrects")
+_VERDICT = "v.grade, v.level, sh.facts, v.vals"
+_JOINS = ("FROM samples s JOIN verdicts v ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape "
+          "JOIN batches b ON b.batch = s.batch")
 
 
 def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
-    """Every recorded version of a sample, oldest first, with its result record and batch."""
+    """Every recorded version of a sample, oldest first, with its verdict, batch and rule set."""
     cursor = conn.execute(
-        "SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, r.grade, "
-        "r.record || b.record_tail, b.recorded_at, b.source, b.ruleset_sha256, rs.canonical "
-        "FROM samples s JOIN results r ON r.entry = s.entry JOIN batches b ON b.batch = s.batch "
-        "JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.sample_id = ? ORDER BY s.entry", (sample_id,))
-    names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "grade", "record",
-             "recorded_at", "source", "ruleset_sha256", "canonical")
+        f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
+        f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
+        f"rs.canonical "
+        f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.sample_id = ? ORDER BY s.entry",
+        (sample_id,))
+    names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
+             "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
+             "author", "canonical")
     return [dict(zip(names, row)) for row in cursor.fetchall()]
 
 
 def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
-    """The current samples of a unit with their grades, in trend order (date, then oil hours)."""
+    """The current samples of a unit with their verdicts, in trend order (date, then oil hours)."""
     rows = conn.execute(
-        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, r.grade, r.level, r.record || b.record_tail "
-        "FROM samples s JOIN results r ON r.entry = s.entry JOIN batches b ON b.batch = s.batch "
+        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT} {_JOINS} "
         "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry",
         (unit_id,)).fetchall()
-    return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "record"])
+    return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals"])
 
 
 def batch_list(conn: sqlite3.Connection) -> list[dict]:
-    names = ("batch", "source", "ruleset_sha256", "columns", "record_tail", "canonical")
-    rows = conn.execute("SELECT b.batch, b.source, b.ruleset_sha256, b.columns, b.record_tail, rs.canonical "
-                        "FROM batches b JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 ORDER BY b.batch")
+    """Every batch in order, with its rule set's stored text (None when that row is gone)."""
+    names = ("batch", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "rows_read", "new_samples",
+             "known_samples", "corrections", "rejected", "conflicts", "reason", "author", "previous", "digest",
+             "value_names", "canonical", "ruleset_id", "version")
+    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:17])}, rs.canonical, rs.ruleset_id, rs.version "
+                        "FROM batches b LEFT JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 ORDER BY b.batch")
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
 
+_BATCH_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method", "lab",
+                  *TREND_BASES, "content", "content_sha256", "corrects", "superseded_in")
+
+
 def batch_entries(conn: sqlite3.Connection, batch: int) -> pd.DataFrame:
-    """The samples a batch recorded, in the order it recorded them, with their stored results."""
-    rows = conn.execute("SELECT s.entry, s.sample_id, s.unit_id, s.sampled_on, s.content, s.content_sha256, "
-                        "r.record FROM samples s JOIN results r ON r.entry = s.entry WHERE s.batch = ? "
-                        "ORDER BY s.entry", (batch,)).fetchall()
-    return pd.DataFrame(rows, columns=["entry", "sample_id", "unit_id", "sampled_on", "content", "content_sha256",
-                                       "record"])
-
-
-def fingerprint(text: str) -> str:
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    """The samples a batch recorded, in the order it recorded them, with their stored verdicts
+    (None where a sample has no verdict row)."""
+    rows = conn.execute(f"SELECT {', '.join('s.' + c for c in _BATCH_COLUMNS)}, v.grade, v.level, sh.facts, v.vals "
+                        "FROM samples s LEFT JOIN verdicts v ON v.entry = s.entry "
+                        "LEFT JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY s.entry",
+                        (batch,)).fetchall()
+    return pd.DataFrame(rows, columns=list(_BATCH_COLUMNS) + ["grade", "level", "facts", "vals"])
 
 
 def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
@@ -464,10 +553,85 @@ def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
     return [text for (text,) in rows], columns
 
 
-def current_records(conn: sqlite3.Connection, batch: int | None = None) -> list[str]:
-    """The stored result records (JSON Lines text) of the current samples, or of one batch."""
+def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list[tuple]:
+    """(content, facts, vals, ruleset sha256, engine, value names) of the current samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    rows = conn.execute("SELECT r.record || b.record_tail FROM samples s JOIN results r ON r.entry = s.entry "
-                        f"JOIN batches b ON b.batch = s.batch WHERE {where} ORDER BY s.entry",
-                        (batch,) if batch is not None else ()).fetchall()
-    return [text for (text,) in rows]
+    return conn.execute(f"SELECT s.content, sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names {_JOINS} "
+                        f"WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ()).fetchall()
+
+
+def stored_rulesets(conn: sqlite3.Connection) -> list[dict]:
+    """Every stored rule set: fingerprint, id, version, its batches and samples, first and last use."""
+    rows = conn.execute(
+        "SELECT rs.sha256, rs.ruleset_id, rs.version, count(DISTINCT b.batch), "
+        "(SELECT count(*) FROM samples s JOIN batches c ON c.batch = s.batch WHERE c.ruleset_sha256 = rs.sha256), "
+        "min(b.recorded_at), max(b.recorded_at) FROM rulesets rs LEFT JOIN batches b ON b.ruleset_sha256 = rs.sha256 "
+        "GROUP BY rs.sha256 ORDER BY min(b.batch)").fetchall()
+    names = ("sha256", "id", "version", "batches", "samples", "first", "last")
+    return [dict(zip(names, row)) for row in rows]
+
+
+def ruleset_text(conn: sqlite3.Connection, selector: str) -> list[tuple[str, str]]:
+    """(sha256, canonical) of the stored rule sets a selector names: a fingerprint or a prefix of
+    one (at least 8 hex digits), or ID@VERSION."""
+    if "@" in selector:
+        ruleset_id, version = selector.rsplit("@", 1)
+        rows = conn.execute("SELECT sha256, canonical, version FROM rulesets WHERE ruleset_id = ?",
+                            (ruleset_id,)).fetchall()
+        return [(sha, text) for sha, text, stored in rows if _version_text(stored) == version]
+    if re.fullmatch(r"[0-9a-fA-F]{8,64}", selector):
+        return conn.execute("SELECT sha256, canonical FROM rulesets WHERE sha256 LIKE ?",
+                            (selector.lower() + "%",)).fetchall()
+    return []
+
+
+def _version_text(stored: str) -> str:
+    value = json.loads(stored)
+    return value if isinstance(value, str) else json.dumps(value)
+
+
+def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grades=None, unit=None, since=None,
+                 until=None, ruleset=None, version=None, everything: bool = False) -> pd.DataFrame:
+    """The recorded samples that match every filter given (current versions unless `everything`).
+
+    `grade_at_least` is a level; `grades` names grades exactly; `ruleset` a fingerprint prefix;
+    `version` the rule-set version as written. Dates compare as ISO text.
+    """
+    where, params = [] if everything else ["s.superseded_in IS NULL"], []
+    if rule is not None:
+        where.append("v.shape IN (SELECT shape FROM shape_rules WHERE rule = ?)")
+        params.append(rule)
+    if grade_at_least is not None:
+        where.append("v.level >= ?")
+        params.append(grade_at_least)
+    if grades:
+        where.append(f"v.grade IN ({', '.join('?' * len(grades))})")
+        params.extend(grades)
+    for column, value, test in (("s.unit_id", unit, "="), ("s.sampled_on", since, ">="),
+                                ("s.sampled_on", until, "<=")):
+        if value is not None:
+            where.append(f"{column} {test} ?")
+            params.append(value)
+    if ruleset is not None:
+        where.append("b.ruleset_sha256 LIKE ?")
+        params.append(ruleset.lower() + "%")
+    names = ["sample_id", "unit_id", "class", "sampled_on", "grade", "level", "facts", "ruleset_id", "version",
+             "ruleset_sha256", "batch", "superseded_in"]
+    rows = conn.execute(
+        "SELECT s.sample_id, s.unit_id, s.class, s.sampled_on, v.grade, v.level, sh.facts, rs.ruleset_id, rs.version, "
+        f"b.ruleset_sha256, s.batch, s.superseded_in {_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 "
+        f"{'WHERE ' + ' AND '.join(where) if where else ''} ORDER BY s.sampled_on, s.unit_id, s.entry",
+        params).fetchall()
+    frame = pd.DataFrame(rows, columns=names)
+    frame["version"] = [_version_text(v) for v in frame["version"]]
+    if version is not None:
+        frame = frame[frame["version"] == version].reset_index(drop=True)
+    return frame
+
+
+def batch_rejects(conn: sqlite3.Connection) -> pd.DataFrame:
+    """Every recorded reject, with the file and batch it came from."""
+    rows = conn.execute("SELECT r.batch, b.recorded_at, b.source, r.row, r.sample_id, r.field, r.code, r.reason "
+                        "FROM rejects r JOIN batches b ON b.batch = r.batch ORDER BY r.batch, r.rowid").fetchall()
+    return pd.DataFrame(rows, columns=["batch", "recorded_at", "source", "row", "sample_id", "field", "code",
+                                       "reason"])

@@ -2,7 +2,7 @@
 
 Every problem has a stable code from PROBLEM_CODES: the first letter says which input it
 is about (Y YAML, S rule-set schema, R rule-set resolution, C rule-set meaning, W lint
-warning, M column map, D data row, F spectrum, E example), the digits never change meaning
+warning, M column map, D data row, L ledger, F spectrum, E example), the digits never change meaning
 once released. The README lists them; a new problem gets a new code.
 """
 
@@ -91,6 +91,7 @@ PROBLEM_CODES = {
     "D014": "a number that is not finite (nan, inf, an overflow)",
     "D015": "a date that is not ISO 8601 or does not fit the declared date format",
     "D016": "a list or object where one value was expected",
+    "L001": "a sample id the ledger already recorded with other values",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",

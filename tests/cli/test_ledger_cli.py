@@ -44,7 +44,7 @@ def _state(db):
     with sqlite3.connect(db) as conn:
         return (conn.execute("PRAGMA integrity_check").fetchone()[0],
                 conn.execute("SELECT count(*) FROM samples").fetchone()[0],
-                conn.execute("SELECT count(*) FROM results").fetchone()[0],
+                conn.execute("SELECT count(*) FROM verdicts").fetchone()[0],
                 conn.execute("SELECT count(*) FROM batches").fetchone()[0])
 
 
@@ -68,9 +68,9 @@ def test_grade_explain_history_replay(tmp_path):
     assert [json.loads(line)["oil_changed"] for line in lines] == [False, True]
     assert run_cli("replay", "--db", db).code == 0
     with sqlite3.connect(db) as conn:
-        conn.execute("UPDATE results SET record = replace(record, '\"level\": 2', '\"level\": 1')")
+        conn.execute("UPDATE verdicts SET level = 1 WHERE level = 2")
     replayed = run_cli("replay", "--db", db)
-    assert replayed.code == 3 and "T-04 (batch 1): differs in: level" in replayed.out
+    assert replayed.code == 3 and "T-04 (batch 1): stored level 1, replayed 2" in replayed.out
     assert run_cli("replay", "--db", db, "--since", "May 2026").code == 2
 
 
@@ -93,7 +93,7 @@ def test_explain_needs_a_ledger_or_samples_and_rules(tmp_path):
     assert not (tmp_path / "none.db").exists()
 
 
-def test_not_a_ledger_and_a_refused_correction_exit_2(tmp_path):
+def test_not_a_ledger_exits_2_and_a_conflicting_row_is_rejected_with_exit_3(tmp_path):
     notes = tmp_path / "notes.db"
     notes.write_text("hello\n")
     result = run_cli("grade", SAMPLES, "--rules", RULES, "--db", notes)
@@ -103,8 +103,10 @@ def test_not_a_ledger_and_a_refused_correction_exit_2(tmp_path):
     changed = tmp_path / "changed.csv"
     changed.write_text(SAMPLES.read_text().replace(",47.5,0.21,13.0,", ",47.5,0.21,6.0,"))
     refused = run_cli("grade", changed, "--rules", RULES, "--db", db)
-    assert refused.code == 2 and "already in the ledger with different values: T-04" in refused.err
-    accepted = run_cli("grade", changed, "--rules", RULES, "--db", db, "--correction")
+    assert refused.code == 3 and "1 row(s) rejected: their sample id is already recorded" in refused.err
+    assert "row 4 (sample T-04): rejected L001: sample_id: sample T-04 is already recorded (batch 1)" in refused.err
+    assert run_cli("grade", changed, "--rules", RULES, "--db", db, "--correction").code == 2  # no --reason
+    accepted = run_cli("grade", changed, "--rules", RULES, "--db", db, "--correction", "--reason", "lab re-ran it")
     assert accepted.code == 0 and "1 correction(s)" in accepted.err
     assert run_cli("grade", SAMPLES, "--rules", RULES, "--correction").code == 2
 

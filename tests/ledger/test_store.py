@@ -15,7 +15,7 @@ import pytest
 
 import sumpwise
 from sumpwise.ledger.audit import explain_from_ledger, replay, unit_history
-from sumpwise.ledger.store import SCHEMA_VERSION, LedgerError, grade_into_ledger, migrate, open_ledger
+from sumpwise.ledger.store import SCHEMA_VERSION, Correction, LedgerError, grade_into_ledger, migrate, open_ledger
 from sumpwise.render.jsonl import jsonl_lines
 from tests.conftest import DATA
 
@@ -50,7 +50,7 @@ def test_same_sample_same_content_adds_nothing(tmp_path, ruleset):
     assert (first.new, first.known, first.corrections) == (9, 0, 0)
     _, again = grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     assert (again.batch, again.new, again.known) == (None, 0, 9)
-    assert _count(db) == 9 and _count(db, "results") == 9 and _count(db, "batches") == 1
+    assert _count(db) == 9 and _count(db, "verdicts") == 9 and _count(db, "batches") == 1
     assert _count(db, "rulesets") == 1  # the rule set is stored once, by fingerprint
 
 
@@ -66,27 +66,39 @@ def test_trends_across_batches_equal_one_batch(tmp_path, ruleset):
     assert later.find("T-04").reasons[0].rule == "carbonyl-jump"  # its previous sample came from the ledger
 
 
-def test_same_id_other_content_is_refused_then_recorded_as_a_correction(tmp_path, ruleset):
+def test_same_id_other_content_is_rejected_and_recorded_then_recorded_as_a_correction(tmp_path, ruleset):
     db = tmp_path / "l.db"
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     changed = SAMPLES.read_text().replace("T-04,ST-1,steam-turbine,TEST-46,2026-04-05,3000,47.5,0.21,13.0",
                                           "T-04,ST-1,steam-turbine,TEST-46,2026-04-05,3000,47.5,0.21,6.0")
-    with pytest.raises(LedgerError) as refused:
-        grade_into_ledger(db, _batch(changed, "fixed.csv"), ruleset)
-    message = str(refused.value)
-    assert "T-04 (row 4, recorded in batch 1)" in message and "--correction" in message
-    assert "Nothing was recorded" in message and _count(db) == 9
-    _, recorded = grade_into_ledger(db, _batch(changed, "fixed.csv"), ruleset, correction=True)
-    assert (recorded.new, recorded.known, recorded.corrections) == (0, 8, 1)
-    assert _count(db) == 10  # both versions are kept
+    changed += "T-10,ST-2,steam-turbine,TEST-46,2026-03-06,1600,46.2,0.10,3.0,direct,lab-a,false\n"
+    graded, refused = grade_into_ledger(db, _batch(changed, "fixed.csv"), ruleset)
+    assert (refused.batch, refused.new, refused.known, refused.conflicts) == (2, 1, 8, 1)
+    [reject] = graded.rejects
+    assert (reject.row, reject.sample_id, reject.field) == (4, "T-04", "sample_id")
+    assert "batch 1" in reject.reason and "--correction" in reject.reason
+    counts = graded.counts()
+    assert (counts["read"], counts["graded"] + counts["unrated"], counts["rejected"]) == (10, 9, 1)
+    assert graded.find("T-10") is not None and graded.find("T-04") is None  # the rest is graded
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("SELECT batch, row, sample_id, field FROM rejects").fetchall() == [(2, 4, "T-04",
+                                                                                               "sample_id")]
+    assert _count(db) == 10
+    _, recorded = grade_into_ledger(db, _batch(changed, "fixed.csv"), ruleset, Correction("typo in oxidation", "ana"))
+    assert (recorded.new, recorded.known, recorded.corrections) == (0, 9, 1)
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("SELECT reason, author FROM batches WHERE batch = 3").fetchone() == ("typo in oxidation",
+                                                                                                  "ana")
+    assert _count(db) == 11  # both versions are kept
     story = "\n".join(explain_from_ledger(db, "T-04"))
+    assert "This version is a correction by ana: typo in oxidation." in story
     assert "This is the current record; 1 earlier version(s) were corrected: batch 1" in story
     assert "graded alert" in story  # the old verdict, from the old values
     history = unit_history(db, "ST-1")
     assert history.loc[history["sample_id"] == "T-04", "corrected"].tolist() == [True]
     assert len(history) == 7
     report = replay(db)
-    assert report.checked == 10 and report.differences == ()
+    assert report.checked == 11 and report.differences == ()
 
 
 def test_a_file_that_is_not_a_ledger_is_refused_and_left_alone(tmp_path):
@@ -184,8 +196,8 @@ def test_missing_values_are_stored_as_null(tmp_path, ruleset):
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     with sqlite3.connect(db) as conn:
         kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(level) FROM samples "
-                             "JOIN results USING (entry) WHERE sample_id = 'T-04'").fetchone()
-        unrated = conn.execute("SELECT typeof(level) FROM samples JOIN results USING (entry) "
+                             "JOIN verdicts USING (entry) WHERE sample_id = 'T-04'").fetchone()
+        unrated = conn.execute("SELECT typeof(level) FROM samples JOIN verdicts USING (entry) "
                                "WHERE sample_id = 'T-01'").fetchone()
     assert kinds == ("null", "real", "integer") and unrated == ("null",)
 

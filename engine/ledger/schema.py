@@ -1,0 +1,239 @@
+"""The ledger's schema: its migration steps as frozen SQL text, and the batch digest.
+
+Step n brings a ledger from schema version n - 1 to n. A released step never changes,
+not even through a constant it reads: each is literal text. Adding a trend base adds a
+step (`ALTER TABLE samples ADD COLUMN name REAL` and `UPDATE samples SET name =
+json_extract(content, '$.name')`); a test checks that every trend base has its column.
+
+The digest of a batch covers everything the batch recorded, read back from the tables:
+its own row (which holds the previous batch's digest, so the batches form a chain), its
+samples (their values through the fingerprint of their content), their verdicts (their
+shapes through the shapes' fingerprints), and its rejected rows. It is read back
+rather than computed from what was written so that recording and verifying share one
+definition, and its columns are listed here, frozen like the steps.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import sqlite3
+
+from sumpwise.results.facts import ENGINE_CAVEATS, result_facts, shape_rules
+from sumpwise.results.records import (CaveatNote, Clause, NotEvaluated, Reason, SampleResult,
+                                      next_step_from_record)
+
+STEP_1 = """
+    CREATE TABLE rulesets (
+        sha256 TEXT PRIMARY KEY,
+        ruleset_id TEXT NOT NULL,
+        version TEXT NOT NULL,
+        canonical TEXT NOT NULL
+    );
+    CREATE TABLE batches (
+        batch INTEGER PRIMARY KEY,
+        recorded_at TEXT NOT NULL,
+        source TEXT NOT NULL,
+        ruleset_sha256 TEXT NOT NULL REFERENCES rulesets(sha256),
+        engine TEXT NOT NULL,
+        columns TEXT NOT NULL,
+        record_tail TEXT NOT NULL,
+        rows_read INTEGER NOT NULL,
+        new_samples INTEGER NOT NULL,
+        known_samples INTEGER NOT NULL,
+        corrections INTEGER NOT NULL
+    );
+    CREATE TABLE samples (
+        entry INTEGER PRIMARY KEY,
+        batch INTEGER NOT NULL REFERENCES batches(batch),
+        sample_id TEXT NOT NULL,
+        unit_id TEXT,
+        class TEXT,
+        sampled_on TEXT,
+        oil_hours REAL,
+        oil_changed INTEGER NOT NULL,
+        method TEXT NOT NULL,
+        lab TEXT,
+        kv40 REAL, kv100 REAL, an REAL, bn REAL, oxidation REAL, nitration REAL, sulfation REAL, antiwear REAL, soot REAL, water REAL, rpvot REAL,
+        content TEXT NOT NULL,
+        content_sha256 TEXT NOT NULL,
+        corrects INTEGER REFERENCES samples(entry),
+        superseded_in INTEGER REFERENCES batches(batch)
+    );
+    CREATE UNIQUE INDEX samples_current ON samples(sample_id) WHERE superseded_in IS NULL;
+    CREATE TABLE results (
+        entry INTEGER PRIMARY KEY REFERENCES samples(entry),
+        grade TEXT NOT NULL,
+        level INTEGER,
+        record TEXT NOT NULL
+    );
+"""
+
+STEP_2 = """
+    CREATE INDEX samples_unit ON samples(unit_id, sampled_on);
+    CREATE INDEX samples_sample ON samples(sample_id);
+    CREATE INDEX samples_batch ON samples(batch);
+"""
+
+# 3: facts by value (verdicts and their shapes) instead of record text; rejects; who and why
+# of a correction; the digest chain; what queries by rule and date read.
+STEP_3 = """
+    CREATE TABLE shapes (
+        shape INTEGER PRIMARY KEY,
+        sha256 TEXT NOT NULL UNIQUE,
+        facts TEXT NOT NULL
+    );
+    CREATE TABLE shape_rules (
+        shape INTEGER NOT NULL REFERENCES shapes(shape),
+        rule TEXT NOT NULL,
+        grade TEXT NOT NULL,
+        PRIMARY KEY (rule, shape)
+    ) WITHOUT ROWID;
+    CREATE TABLE verdicts (
+        entry INTEGER PRIMARY KEY REFERENCES samples(entry),
+        grade TEXT NOT NULL,
+        level INTEGER,
+        shape INTEGER NOT NULL REFERENCES shapes(shape),
+        vals TEXT NOT NULL
+    );
+    CREATE TABLE rejects (
+        batch INTEGER NOT NULL REFERENCES batches(batch),
+        row INTEGER,
+        sample_id TEXT,
+        field TEXT NOT NULL,
+        code TEXT NOT NULL,
+        reason TEXT NOT NULL
+    );
+    CREATE INDEX rejects_batch ON rejects(batch);
+    CREATE INDEX samples_date ON samples(sampled_on);
+    ALTER TABLE batches ADD COLUMN rejected INTEGER NOT NULL DEFAULT 0;
+    ALTER TABLE batches ADD COLUMN conflicts INTEGER NOT NULL DEFAULT 0;
+    ALTER TABLE batches ADD COLUMN reason TEXT;
+    ALTER TABLE batches ADD COLUMN author TEXT;
+    ALTER TABLE batches ADD COLUMN previous TEXT NOT NULL DEFAULT '';
+    ALTER TABLE batches ADD COLUMN digest TEXT NOT NULL DEFAULT '';
+    ALTER TABLE batches ADD COLUMN value_names TEXT NOT NULL DEFAULT '[]';
+"""
+
+DIGEST_QUERIES = (
+    "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
+    "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names FROM batches "
+    "WHERE batch = ?",
+    # A sample's content is covered through its fingerprint (replay checks the one against the other,
+    # and the typed columns against the content); a shape's facts through the shape's fingerprint.
+    "SELECT entry, sample_id, content_sha256, corrects FROM samples WHERE batch = ? ORDER BY entry",
+    "SELECT v.entry, v.grade, v.level, sh.sha256, v.vals FROM samples s JOIN verdicts v ON v.entry = s.entry "
+    "JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY v.entry",
+    "SELECT row, sample_id, field, code, reason FROM rejects WHERE batch = ? ORDER BY rowid",
+)
+DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chunk is hashed as its repr)
+
+
+def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = None) -> str:
+    """SHA-256 over the batch's rows as stored, in a fixed order and spelling (Python's repr).
+
+    `written` maps a query's index to the rows it would return, when the caller has just
+    written them and holds them with the types SQLite gives back (recording a batch);
+    replay always reads them back.
+    """
+    digest = hashlib.sha256()
+    for k, query in enumerate(DIGEST_QUERIES):
+        if written is not None and k in written:
+            rows = written[k]
+            for start in range(0, len(rows), DIGEST_ROWS):
+                digest.update(repr(rows[start:start + DIGEST_ROWS]).encode("utf-8"))
+        else:
+            cursor = conn.execute(query, (batch,))
+            while chunk := cursor.fetchmany(DIGEST_ROWS):
+                digest.update(repr(chunk).encode("utf-8"))
+        digest.update(b"\x1e")
+    return digest.hexdigest()
+
+
+def fingerprint(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def shape_ids(conn: sqlite3.Connection, texts) -> list[int]:
+    """The row of each shape text, stored once by fingerprint (with its rules, for queries)."""
+    ids, known = [], {}
+    for text in texts:
+        if text in known:
+            ids.append(known[text])
+            continue
+        sha = fingerprint(text)
+        row = conn.execute("SELECT shape FROM shapes WHERE sha256 = ?", (sha,)).fetchone()
+        if row is None:
+            shape = conn.execute("INSERT INTO shapes (sha256, facts) VALUES (?, ?)", (sha, text)).lastrowid
+            conn.executemany("INSERT OR IGNORE INTO shape_rules VALUES (?, ?, ?)",
+                             ((shape, rule, grade) for rule, grade in shape_rules(json.loads(text))))
+            row = (shape,)
+        known[text] = row[0]
+        ids.append(row[0])
+    return ids
+
+
+def chain(conn: sqlite3.Connection, first: int) -> None:
+    """Set `previous` and `digest` of batch `first` and every later one, in order."""
+    row = conn.execute("SELECT digest FROM batches WHERE batch < ? ORDER BY batch DESC LIMIT 1", (first,)).fetchone()
+    previous = row[0] if row else ""
+    for (batch,) in conn.execute("SELECT batch FROM batches WHERE batch >= ? ORDER BY batch", (first,)).fetchall():
+        conn.execute("UPDATE batches SET previous = ? WHERE batch = ?", (previous, batch))
+        previous = batch_digest(conn, batch)
+        conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (previous, batch))
+
+
+def result_from_record(record: dict, grades: tuple) -> SampleResult:
+    """A self-contained JSON Lines record (a schema-2 ledger's stored text, or a line `grade`
+    wrote) as the SampleResult it was written from."""
+    reasons = []
+    for r in record["reasons"]:
+        clauses = tuple(Clause(c["test"], c["limit"], c["held"], c["value"], measure=c.get("measure"),
+                               field=c.get("field")) for c in r.get("clauses", ()))
+        reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), r["message"], r["source"],
+                              measure=r.get("measure"), value=r.get("value"), unit=r.get("unit"),
+                              test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
+                              capped_by=r.get("capped_by"), clauses=clauses,
+                              next_step=next_step_from_record(r.get("next_step"))))
+    ruleset = record["ruleset"]
+    return SampleResult(
+        sample_id=record["sample_id"], unit_id=record["unit_id"], class_name=record["class"],
+        lubricant=record["lubricant"], sampled_on=record["sampled_on"], grade=record["grade"],
+        level=record["level"], reasons=tuple(reasons),
+        caveats=tuple(CaveatNote(c["caveat"], c["message"], c.get("source", ""), tuple(c.get("unless_missing", ())),
+                                 next_step_from_record(c.get("next_step")), by_engine=c["caveat"] in ENGINE_CAVEATS)
+                      for c in record["caveats"]),
+        not_evaluated=tuple(NotEvaluated(n["rule"], tuple(n["missing"])) for n in record["not_evaluated"]),
+        notice=record["notice"], ruleset_id=ruleset["id"], ruleset_version=ruleset["version"],
+        ruleset_sha256=ruleset["sha256"], engine=record["engine"], unrated_because=record.get("unrated_because"),
+        values=tuple(record["values"].items()), method=record["method"])
+
+
+def _step_3_data(conn: sqlite3.Connection) -> None:
+    """Schema-2 record texts become verdicts (shape and values); then the chain is computed."""
+    grades = {sha: tuple(json.loads(text).get("grades", ())) for sha, text in
+              conn.execute("SELECT sha256, canonical FROM rulesets").fetchall()}
+    names = {}  # batch -> the value names its records carry (one batch's records all carry the same)
+    for batch, record in conn.execute("SELECT s.batch, r.record FROM samples s JOIN results r ON r.entry = s.entry "
+                                      "GROUP BY s.batch").fetchall():
+        names[batch] = list(json.loads(record + "}")["values"])
+    names = {batch: {"values": values, "derived": [], "oil_changed": False} for batch, values in names.items()}
+    conn.executemany("UPDATE batches SET value_names = ? WHERE batch = ?",
+                     [(json.dumps(value_names), batch) for batch, value_names in names.items()])
+    cursor = conn.execute("SELECT r.entry, r.grade, r.level, r.record || b.record_tail, b.ruleset_sha256, b.batch "
+                          "FROM results r JOIN samples s ON s.entry = r.entry JOIN batches b ON b.batch = s.batch "
+                          "ORDER BY r.entry")
+    while rows := cursor.fetchmany(DIGEST_ROWS):
+        facts = [result_facts(result_from_record(json.loads(record), grades[sha]), names[batch])
+                 for _, _, _, record, sha, batch in rows]
+        shapes = shape_ids(conn, [shape for shape, _ in facts])
+        conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
+                         [(entry, grade, level, shape, values) for (entry, grade, level, *_), shape, (_, values)
+                          in zip(rows, shapes, facts)])
+    conn.execute("DROP TABLE results")
+    conn.execute("UPDATE batches SET record_tail = ''")
+    chain(conn, 1)
+
+
+# (SQL, then a data step or None), in order.
+MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data))

@@ -1,0 +1,334 @@
+"""A graded sample's facts, apart from its texts: what a ledger stores and what replay compares.
+
+A result's facts are its grade and level, each reason's rule, measure or clauses, value,
+test, limit, grade and caps, the caveats raised (with what an unchecked `unless` lacked),
+what was not evaluated and why. Messages, sources and the notice are not facts: they live
+once in the fingerprinted rule set and are put back by `result_from_facts`.
+
+Facts come in two parts. The *shape* is everything two samples can share (which rules
+fired at which grade, which caveats, which gaps), as compact JSON in which each per-sample
+value is a numbered slot, `{"$": k}`; a batch of a million samples has a few hundred
+shapes. The *values* are a JSON array holding, in slot order, the values the shape leaves
+open (a reason's measured value, a clause's value, an engine caveat's message). Sample
+identity and input values are not part of either: the ledger keeps them with the sample.
+
+`batch_facts` finds the distinct shapes of a graded batch from its outcome arrays, builds
+each shape once, and fills the values column by column; `result_facts` does the same for
+one SampleResult (a stored record being migrated, or a test's oracle); both give the same
+text for the same result. The values array ends with the record's own values (its input
+measures with their conventions), in the order of names the caller keeps once a batch.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from sumpwise.derive.row_measures import LUBRICANT_CAVEATS
+from sumpwise.derive.trends import TREND_CAVEATS
+from sumpwise.evaluation.evaluator import COVERAGE_CAVEATS
+from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS
+from sumpwise.results.records import (CaveatNote, Clause, GradedBatch, NotEvaluated, Reason, SampleResult, build_result,
+                                      condition_inputs, rule_inputs)
+from sumpwise.ruleset.model import RuleSet
+
+# Every caveat the engine raises itself, in the order a graded batch's caveat columns hold them.
+ENGINE_CAVEAT_ORDER = TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS
+ENGINE_CAVEATS = {c.id: c for c in ENGINE_CAVEAT_ORDER}
+SLOT = "$"  # the key of a per-sample value's place in a shape
+
+
+@dataclass(frozen=True)
+class BatchFacts:
+    """The facts of every row of a graded batch: its shape (an index into `shapes`) and values."""
+
+    shapes: tuple  # distinct shape texts
+    shape_of: np.ndarray  # int, per row
+    values: np.ndarray  # object (str), per row: a JSON array
+    grades: np.ndarray  # object (str), per row
+    levels: np.ndarray  # int, per row; -1 for unrated
+
+
+class _Slot:
+    """A per-sample value's place: `kind` says how to spell it, `name` which column it reads."""
+
+    def __init__(self, kind: str, name: str):
+        self.kind, self.name = kind, name
+
+
+class _Slots:
+    """Stands in for a row's values while build_result makes a shape's template."""
+
+    def number(self, name: str, i: int) -> _Slot:
+        return _Slot("number", name)
+
+    def text(self, name: str, i: int) -> _Slot:
+        return _Slot("text", name)
+
+    def flag(self, name: str, i: int) -> _Slot:
+        return _Slot("flag", name)
+
+
+class _Value:
+    """A real per-sample value, marked so it lands in the values array, not in the shape."""
+
+    def __init__(self, value):
+        self.value = value
+
+
+def _shape(result: SampleResult, value) -> dict:
+    """A result's facts without its texts; `value` wraps each per-sample value."""
+    reasons = []
+    for r in result.reasons:
+        reason: dict = {"rule": r.rule, "grade": r.grade}
+        if r.measure is not None:
+            reason.update(measure=r.measure, value=value(r.value), unit=r.unit, test=r.test, limit=r.limit)
+        if r.capped_from is not None:
+            reason.update(capped_from=r.capped_from, capped_by=r.capped_by)
+        if r.clauses:
+            reason["clauses"] = [{"measure": c.measure, "field": c.field, "value": value(c.value), "test": c.test,
+                                  "limit": c.limit, "held": c.held} for c in r.clauses]
+        reasons.append(reason)
+    caveats = []
+    for c in result.caveats:
+        caveat: dict = {"caveat": c.caveat}
+        if c.caveat in ENGINE_CAVEATS:
+            caveat["message"] = value(c.message)
+        if c.unless_missing:
+            caveat["unless_missing"] = list(c.unless_missing)
+        caveats.append(caveat)
+    shape = {"grade": result.grade, "level": result.level, "reasons": reasons, "caveats": caveats,
+             "not_evaluated": [[n.rule, list(n.missing)] + ([[[name, value(written)] for name, written in n.undecided]]
+                                                            if n.undecided else [])
+                               for n in result.not_evaluated]}
+    if result.unrated_because is not None:
+        shape["unrated_because"] = result.unrated_because
+    return shape
+
+
+def _as_placed(item):
+    """In a template, a value the row supplies is a slot; any other (None: not known) is a constant."""
+    return item if isinstance(item, _Slot) else _Value(item)
+
+
+def _dump(shape: dict) -> tuple[str, list]:
+    """The shape's text, and the per-sample values (or slots) in the order of their places."""
+    placed: list = []
+
+    def place(item):
+        placed.append(item)
+        return {SLOT: len(placed) - 1}
+
+    text = json.dumps(shape, ensure_ascii=False, separators=(",", ":"), allow_nan=False, default=place)
+    return text, placed
+
+
+def values_text(values: list) -> str:
+    return json.dumps(values, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
+
+
+def record_names(batch: GradedBatch) -> dict:
+    """The names a batch's records carry beyond the shape: kept once a batch by the ledger."""
+    return {"values": list(batch.value_columns), "derived": list(batch.derived_columns), "oil_changed": True}
+
+
+def _tail(names: dict, values: dict, derived: dict, oil_changed: bool) -> list:
+    tail = [_plain(values.get(name)) for name in names.get("values", ())]
+    tail += [_plain(derived.get(name)) for name in names.get("derived", ())]
+    return tail + ([bool(oil_changed)] if names.get("oil_changed") else [])
+
+
+def result_facts(result: SampleResult, names: dict) -> tuple[str, str]:
+    """(shape text, values text) of one result: the per-result counterpart of batch_facts."""
+    text, placed = _dump(_shape(result, _Value))
+    return text, values_text([_plain(item.value) for item in placed]
+                             + _tail(names, dict(result.values), dict(result.derived), result.oil_changed))
+
+
+def _plain(value):
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value
+
+
+def _shape_groups(batch: GradedBatch) -> tuple[np.ndarray, np.ndarray]:
+    """(representative row of each distinct shape, shape group of each row), from the outcome arrays.
+
+    Rows fall in one group when everything their shape says is the same: each rule's raw and
+    final level, caveats and caps, each condition leaf's truth, which inputs are missing
+    (for gaps and unchecked exceptions) and the class (the unrated sentence names it).
+    """
+    out, measured = batch.outcome, batch.measured
+    n = len(measured)
+    parts = [out.final, out.raw, out.caveats.astype(np.int8), out.capping.astype(np.int8),
+             out.unchecked.astype(np.int8), out.known_class.astype(np.int8).reshape(n, 1)]
+    classes = pd.factorize(measured["class"].to_numpy(dtype=object), use_na_sentinel=True)[0]
+    parts.append(classes.astype(np.int32).view(np.int8).reshape(n, 4))
+    for j, (members, found) in sorted(out.leaves.items()):
+        inside = np.zeros(n, dtype=bool)
+        inside[members] = True
+        for truth, known in found:
+            code = np.zeros(n, dtype=np.int8)
+            code[members] = truth.astype(np.int8) + 2 * known.astype(np.int8)
+            parts.append(code.reshape(n, 1))
+    names = {name for slot in out.slots for name in rule_inputs(slot.rule)}
+    names |= {name for caveat in batch.ruleset.caveats if caveat.cap is not None and caveat.cap.unless is not None
+              for name in condition_inputs(caveat.cap.unless)}
+    for name in sorted(names):
+        if name in measured.columns:
+            parts.append(measured[name].isna().to_numpy().astype(np.int8).reshape(n, 1))
+    matrix = np.ascontiguousarray(np.concatenate(parts, axis=1).astype(np.int8))
+    keys = matrix.view(np.dtype((np.void, matrix.shape[1]))).ravel()
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    return first, inverse.ravel()
+
+
+def _number_literals(values: np.ndarray) -> np.ndarray:
+    """Factorized by bit pattern, so -0.0 keeps its own spelling; missing and infinite are null."""
+    codes, uniques = pd.factorize(np.ascontiguousarray(values, dtype=float).view(np.int64))
+    table = np.array([repr(u) if np.isfinite(u) else "null" for u in uniques.view(float).tolist()], dtype=object)
+    return table[codes]
+
+
+def _flag_literals(values: np.ndarray) -> np.ndarray:
+    """true where the column holds 1 (as RowValues.flag reads it), false elsewhere."""
+    return np.where(values == 1.0, "true", "false").astype(object)
+
+
+def _text_literals(values: np.ndarray) -> np.ndarray:
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    table = np.array([json.dumps(str(u), ensure_ascii=False) for u in uniques.tolist()] + ["null"], dtype=object)
+    return table[codes]
+
+
+def batch_facts(batch: GradedBatch, names: dict | None = None) -> BatchFacts:
+    """Every row's shape and values, one template a shape, values filled a column at a time.
+
+    The values array ends with the record's own values, derived values and oil-changed flag,
+    of `names` (default: record_names(batch); replay passes what a stored batch recorded).
+    """
+    n = len(batch)
+    names = record_names(batch) if names is None else names
+    tail = [_Slot("number", name) for name in list(names.get("values", ())) + list(names.get("derived", ()))]
+    tail += [_Slot("flag", "oil_changed")] if names.get("oil_changed") else []
+    first, group = _shape_groups(batch) if n else (np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp))
+    columns: dict = {}
+
+    def column(kind: str, name: str) -> np.ndarray:
+        if (kind, name) not in columns:
+            present = name in batch.measured.columns
+            if kind == "number":
+                columns[kind, name] = (batch.measured[name].to_numpy(dtype=float, na_value=np.nan) if present
+                                       else np.full(n, np.nan))
+            else:
+                columns[kind, name] = (batch.measured[name].to_numpy(dtype=object) if present
+                                       else np.full(n, None, dtype=object))
+        return columns[kind, name]
+
+    def reading(name: str, rows: np.ndarray) -> np.ndarray:
+        """A number column's literals, a censored reading spelled as the lab wrote it (`<50`)."""
+        literals = _number_literals(column("number", name)[rows])
+        written = batch.columns.written(name)
+        if written is not None:
+            shown = written[rows]
+            here = pd.notna(shown)
+            literals[here] = _text_literals(shown[here])
+        return literals
+
+    texts: dict = {}
+    shape_index = np.empty(len(first), dtype=np.int64)
+    values = np.empty(n, dtype=object)
+    order = np.argsort(group, kind="stable")
+    bounds = np.searchsorted(group[order], np.arange(len(first) + 1))
+    for g, rep in enumerate(first.tolist()):
+        text, placed = _dump(_shape(build_result(batch, rep, _Slots()), _as_placed))
+        shape_index[g] = texts.setdefault(text, len(texts))
+        rows = order[bounds[g]:bounds[g + 1]]
+        placed = placed + tail
+        if not placed:
+            values[rows] = "[]"
+            continue
+        literals = [np.full(len(rows), values_text([_plain(s.value)])[1:-1], dtype=object) if isinstance(s, _Value)
+                    else _flag_literals(column("number", s.name)[rows]) if s.kind == "flag"
+                    else reading(s.name, rows) if s.kind == "number"
+                    else _text_literals(column(s.kind, s.name)[rows])
+                    for s in placed]
+        form = "[" + ",".join(["%s"] * len(placed)) + "]"
+        values[rows] = [form % row for row in zip(*(c.tolist() for c in literals))]
+    levels = batch.outcome.level.astype(np.int64)
+    names = np.array(list(batch.ruleset.grades) + ["unrated"], dtype=object)
+    return BatchFacts(tuple(texts), shape_index[group] if n else np.zeros(0, dtype=np.int64), values,
+                      names[levels], levels)
+
+
+def _filled(item, values: list):
+    if isinstance(item, dict) and set(item) == {SLOT}:
+        return values[item[SLOT]]
+    return item
+
+
+def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet, engine: str,
+                      names: dict) -> SampleResult:
+    """A stored result with its wording put back from the rule set it was graded with.
+
+    `shape` is a parsed shape, `values` its parsed values array (ending with what `names`
+    lists, see record_names), `sample` the sample's stored input fields (name -> value).
+    """
+    value_names, derived_names = list(names.get("values", ())), list(names.get("derived", ()))
+    oil_changed = bool(values[-1]) if names.get("oil_changed") else False
+    end = len(values) - (1 if names.get("oil_changed") else 0)
+    start = end - len(value_names) - len(derived_names)
+    recorded = tuple(zip(value_names, values[start:start + len(value_names)]))
+    derived = tuple((name, _number(value)) for name, value in zip(derived_names, values[start + len(value_names):end]))
+    class_name = sample.get("class")
+    rules = {rule.id: rule for rule in ruleset.rules_for(class_name)} if class_name in ruleset.classes else {}
+    caveats = {caveat.id: caveat for caveat in ruleset.caveats}
+    grades = ruleset.grades
+    reasons = []
+    for r in shape["reasons"]:
+        rule = rules[r["rule"]]
+        clauses = tuple(Clause(c["test"], c["limit"], c["held"], _filled(c["value"], values), measure=c["measure"],
+                               field=c["field"]) for c in r.get("clauses", ()))
+        reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), rule.message, rule.source,
+                              measure=r.get("measure"), value=_filled(r.get("value"), values), unit=r.get("unit"),
+                              test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
+                              capped_by=r.get("capped_by"), clauses=clauses, next_step=rule.next_step))
+    notes = []
+    for c in shape["caveats"]:
+        if c["caveat"] in ENGINE_CAVEATS:
+            notes.append(CaveatNote(c["caveat"], _filled(c["message"], values), ENGINE_CAVEATS[c["caveat"]].source,
+                                    by_engine=True))
+        else:
+            caveat = caveats[c["caveat"]]
+            notes.append(CaveatNote(caveat.id, caveat.message, caveat.source, tuple(c.get("unless_missing", ())),
+                                    caveat.next_step))
+    return SampleResult(
+        sample_id=sample.get("sample_id"), unit_id=_text(sample.get("unit_id")), class_name=_text(class_name),
+        lubricant=_text(sample.get("lubricant")), sampled_on=_text(sample.get("sampled_on")),
+        grade=shape["grade"], level=shape["level"], reasons=tuple(reasons), caveats=tuple(notes),
+        not_evaluated=tuple(NotEvaluated(gap[0], tuple(gap[1]),
+                                         tuple((name, _filled(shown, values)) for name, shown in gap[2])
+                                         if len(gap) > 2 else ()) for gap in shape["not_evaluated"]),
+        notice=ruleset.notice, ruleset_id=ruleset.id, ruleset_version=ruleset.version,
+        ruleset_sha256=ruleset.sha256, engine=engine, unrated_because=shape.get("unrated_because"),
+        values=tuple((name, _number(value)) for name, value in recorded),
+        method=_text(sample.get("method")), spectrum=_text(sample.get("spectrum")),
+        reference_spectrum=_text(sample.get("reference_spectrum")), oil_changed=oil_changed, derived=derived,
+        comment=_text(sample.get("comment")), comment_given="comment" in sample)
+
+
+def _text(value):
+    return None if value is None else str(value)
+
+
+def _number(value):
+    """A stored number, or a censored reading's text as written."""
+    return None if value is None else value if isinstance(value, str) else float(value)
+
+
+def shape_rules(shape: dict) -> list[tuple[str, str]]:
+    """(rule, grade) of each reason in a shape: what queries by rule fired read."""
+    return [(r["rule"], r["grade"]) for r in shape["reasons"]]

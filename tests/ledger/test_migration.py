@@ -1,0 +1,90 @@
+"""Migrations: released steps never change, and a ledger written before the change (schema 2,
+every result kept as its JSON Lines text) is migrated in place and replays clean, but for the
+verdicts a later engine change re-decides (ENGINE_CHANGES).
+
+The reference for step 1 and 2 is tests/data/ledger/brackwater-v1.db itself: a ledger that
+sumpwise wrote with those steps before they were frozen as text.
+"""
+
+import hashlib
+import shutil
+import sqlite3
+from pathlib import Path
+
+from sumpwise.ledger.audit import replay, stored_results
+from sumpwise.ledger.schema import MIGRATIONS
+from sumpwise.ledger.store import SCHEMA_VERSION, migrate, open_ledger
+from sumpwise.vocabulary.measures import TREND_BASES
+
+OLD_LEDGER = Path(__file__).resolve().parents[1] / "data" / "ledger" / "brackwater-v1.db"
+
+# Verdicts of the old ledger that today's engine grades otherwise, and why. Replay must name
+# these and nothing else. Since FTIR conventions became distinct measures, an oxidation value
+# read by spectral subtraction (method "subtraction") is the measure `oxidation_differential`,
+# which the 2026 site rule set has no limit on; in 2026 it was graded as `oxidation`. And a
+# sample of a class the rule set lacks now carries the `unknown-class` caveat (no silent pass).
+ENGINE_CHANGES = {"BP-0059": "screw-compressor, oxidation 19.6 by subtraction",
+                  "BP-0148": "screw-compressor, oxidation 27.7 by subtraction",
+                  "BP-0225": "class ro-high-pressure-pump, not in the rule set: unknown-class caveat",
+                  "BP-0260": "screw-compressor, oxidation 41.0 by subtraction"}
+
+# SHA-256 of each released step's text. A failure here means a released step was edited:
+# put the edit back and add a step instead (DEVELOPERS.md, "Change the ledger's schema").
+RELEASED = ("20e63dfeb2b5ce4df369c6b07f49c6e2c1e8b953c9306d8d5cc6b6943b501da2",
+            "05b510c348a44a964fd1f38cba058af3b27a01df55c3bfebb8006a12acc347a1",
+            "376b66162183b588b4409b300e787dff7418101af80174cf986feab65bea33c1")
+
+
+def test_released_steps_are_unchanged():
+    assert len(MIGRATIONS) == SCHEMA_VERSION
+    assert tuple(hashlib.sha256(sql.encode()).hexdigest() for sql, _ in MIGRATIONS[:len(RELEASED)]) == RELEASED
+
+
+def test_steps_1_and_2_make_the_schema_the_old_ledger_has():
+    conn = sqlite3.connect(":memory:", isolation_level=None)
+    migrate(conn, to=2)
+    made = conn.execute("SELECT type, name, sql FROM sqlite_master ORDER BY name").fetchall()
+    old = sqlite3.connect(OLD_LEDGER.resolve().as_uri() + "?mode=ro&immutable=1", uri=True)
+    assert made == old.execute("SELECT type, name, sql FROM sqlite_master ORDER BY name").fetchall()
+    assert old.execute("PRAGMA user_version").fetchone()[0] == 2
+
+
+def test_every_trend_base_has_its_column():
+    conn = sqlite3.connect(":memory:", isolation_level=None)
+    migrate(conn)
+    columns = {row[1] for row in conn.execute("PRAGMA table_info(samples)")}
+    assert set(TREND_BASES) <= columns, "a new trend base needs a migration step that adds its column"
+
+
+def test_a_ledger_written_before_the_change_is_migrated_in_place_and_replays_clean_but_for_engine_changes(tmp_path):
+    db = tmp_path / "old.db"
+    shutil.copyfile(OLD_LEDGER, db)
+    report = replay(db)
+    assert {d.sample_id for d in report.differences} == set(ENGINE_CHANGES)
+    assert all("its reasons, caveats or gaps differ" in d.what and "an engine change, not an alteration" in d.what
+               for d in report.differences)  # told apart from tampering: the rows' fingerprints hold
+    assert (report.checked, report.batches, report.rulesets) == (329, 4, 2)
+    conn = open_ledger(db)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+    assert conn.execute("SELECT name FROM sqlite_master WHERE name = 'results'").fetchall() == []
+    assert conn.execute("SELECT count(*) FROM verdicts").fetchone()[0] == 329
+    assert conn.execute("SELECT count(*) FROM shapes").fetchone()[0] < 100  # shared, not one a sample
+    conn.close()
+
+
+def test_the_migrated_verdicts_are_the_records_the_old_ledger_held(tmp_path):
+    import json
+
+    from sumpwise.render.jsonl import dumps
+    old = sqlite3.connect(OLD_LEDGER.resolve().as_uri() + "?mode=ro&immutable=1", uri=True)
+    stored = {json.loads(text)["sample_id"]: text for (text,) in old.execute(
+        "SELECT r.record || b.record_tail FROM results r JOIN samples s ON s.entry = r.entry "
+        "JOIN batches b ON b.batch = s.batch WHERE s.superseded_in IS NULL")}
+    db = tmp_path / "old.db"
+    shutil.copyfile(OLD_LEDGER, db)
+    results, _ = stored_results(db)
+    assert len(results) == len(stored) == 327
+    for result in results:
+        record, old_record = json.loads(dumps(result.to_record())), json.loads(stored[result.sample_id])
+        # Every key the old record had, with the same value (a newer record may carry more keys).
+        assert {key: record.get(key) for key in old_record} == old_record, result.sample_id

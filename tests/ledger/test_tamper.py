@@ -1,0 +1,145 @@
+"""Tamper evidence: every stored column altered in turn, a batch deleted, a row inserted.
+
+The alterations are made with sqlite3 from the standard library, behind sumpwise's back,
+the way someone with the file and a SQLite shell could; replay must name each one.
+"""
+
+from __future__ import annotations
+
+import io
+import sqlite3
+
+import pytest
+
+import sumpwise
+from sumpwise.ledger.audit import replay, replay_lines
+from sumpwise.ledger.store import Correction, grade_into_ledger, migrate, open_ledger
+from tests.conftest import DATA
+
+RULES = DATA / "ledger" / "trend-rules.yaml"
+SAMPLES = DATA / "ledger" / "samples.csv"
+TABLES = ("rulesets", "batches", "samples", "verdicts", "shapes", "shape_rules", "rejects")
+
+
+def _batch(text: str, name: str):
+    return sumpwise.read_samples(io.StringIO(text), name)
+
+
+@pytest.fixture(scope="module")
+def clean(tmp_path_factory):
+    """Three batches: one with a rejected row, a correction with reason and author, a conflict."""
+    db = tmp_path_factory.mktemp("ledger") / "clean.db"
+    ruleset = sumpwise.load_ruleset(RULES)
+    header, *rows = SAMPLES.read_text().splitlines()
+    bad = "T-99,ST-2,steam-turbine,TEST-46,2026-03-06,1700,not-a-number,0.1,2.0,direct,lab-a,false"
+    grade_into_ledger(db, _batch("\n".join([header] + rows[:6] + [bad]) + "\n", "first.csv"), ruleset)
+    fixed = rows[3].replace(",13.0,", ",6.0,")
+    grade_into_ledger(db, _batch("\n".join([header, fixed] + rows[6:]) + "\n", "second.csv"), ruleset,
+                      Correction("oxidation was typed as 13.0", "lab desk"))
+    conflict = rows[0].replace(",46.0,", ",46.9,")
+    _, third = grade_into_ledger(db, _batch("\n".join([header, conflict]) + "\n", "third.csv"), ruleset)
+    assert third.conflicts == 1
+    assert replay(db).differences == ()
+    return db
+
+
+def _schema_columns() -> list[str]:
+    """Every column of every table of a new ledger, read from SQLite itself."""
+    conn = sqlite3.connect(":memory:", isolation_level=None)
+    migrate(conn)
+    return [f"{table}.{row[1]}" for table in TABLES for row in conn.execute(f"PRAGMA table_info({table})")]
+
+
+def _altered(value):
+    if value is None:
+        return 1
+    if isinstance(value, int):
+        return value + 1000  # clear of every key in use
+    if isinstance(value, float):
+        return value * 1.5 + 1
+    return value + " "
+
+
+def _copy(clean, tmp_path):
+    db = tmp_path / "ledger.db"
+    with sqlite3.connect(clean) as source, sqlite3.connect(db) as target:
+        source.backup(target)
+    return db
+
+
+def test_the_clean_ledger_has_every_table_filled(clean):
+    with sqlite3.connect(clean) as conn:
+        for table in TABLES:
+            assert conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0] > 0, table
+
+
+@pytest.mark.parametrize("stored", _schema_columns())
+def test_altering_any_stored_column_is_caught(clean, tmp_path, stored):
+    table, column = stored.split(".")
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        key = "rowid" if table != "shape_rules" else "shape"
+        first, value = conn.execute(f"SELECT {key}, {column} FROM {table} ORDER BY {key} LIMIT 1").fetchone()
+        conn.execute(f"UPDATE {table} SET {column} = ? WHERE {key} = ?", (_altered(value), first))
+    found = replay(db).differences
+    assert found, f"{stored}: {value!r} -> {_altered(value)!r} went unnoticed"
+
+
+def test_a_deleted_batch_is_caught(clean, tmp_path):
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("PRAGMA foreign_keys = OFF")
+        conn.execute("DELETE FROM verdicts WHERE entry IN (SELECT entry FROM samples WHERE batch = 2)")
+        conn.execute("DELETE FROM samples WHERE batch = 2")
+        conn.execute("UPDATE samples SET superseded_in = NULL WHERE superseded_in = 2")
+        conn.execute("DELETE FROM rejects WHERE batch = 2")
+        conn.execute("DELETE FROM batches WHERE batch = 2")
+    found = [d for d in replay(db).differences if d.batch == 3]
+    assert any("the chain is broken" in d.what for d in found)
+
+
+def test_the_newest_batch_deleted_changes_the_head_a_reader_noted(clean, tmp_path):
+    before = replay(clean)
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("DELETE FROM rejects WHERE batch = 3")
+        conn.execute("DELETE FROM batches WHERE batch = 3")
+    after = replay(db)
+    assert after.differences == ()  # nothing inside the file can show it ...
+    assert (after.last_batch, after.head) != (before.last_batch, before.head)  # ... the noted head does
+    assert f"ledger head: batch {before.last_batch}, digest {before.head}" in "\n".join(replay_lines(before))
+
+
+def test_an_inserted_sample_is_caught(clean, tmp_path):
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)") if row[1] != "entry"]
+        picked = ["'T-50'" if c == "sample_id" else "replace(content, 'T-02', 'T-50')" if c == "content" else c
+                  for c in columns]
+        conn.execute(f"INSERT INTO samples ({', '.join(columns)}) SELECT {', '.join(picked)} FROM samples "
+                     f"WHERE sample_id = 'T-02'")
+    found = [(d.sample_id, d.batch, d.what) for d in replay(db).differences]
+    assert (None, 1, "its stored rows no longer match the batch's digest (a row altered, added or deleted after "
+                     "recording)") in found
+    assert (None, 1, "it holds 7 sample(s) but recorded 6") in found
+    assert ("T-50", 1, "its stored values no longer match their fingerprint (altered after recording)") in found
+
+
+def test_an_inserted_verdict_and_rule_set_are_caught(clean, tmp_path):
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("INSERT INTO verdicts SELECT entry + 1000, grade, level, shape, vals FROM verdicts LIMIT 1")
+        conn.execute("INSERT INTO rulesets SELECT 'f' || substr(sha256, 2), ruleset_id, version, canonical "
+                     "FROM rulesets")
+    whats = [d.what for d in replay(db).differences]
+    assert any(w.startswith("a verdict of no sample") for w in whats)
+    assert any(w.startswith("a stored rule set that no batch was graded with") for w in whats)
+
+
+def test_replay_reads_without_writing(clean, tmp_path):
+    db = _copy(clean, tmp_path)
+    conn = open_ledger(db)
+    conn.close()
+    before = db.read_bytes()
+    replay(db)
+    assert db.read_bytes() == before
