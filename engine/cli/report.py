@@ -8,7 +8,8 @@ from __future__ import annotations
 from pathlib import Path
 
 from sumpwise.cli.options import batch_number, output_file
-from sumpwise.ledger.audit import stored_records, stored_ruleset
+from sumpwise.ledger.audit import stored_results
+from sumpwise.render.jsonl import dumps
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.render.html_report import parse_rejects, parse_results, render_report
@@ -42,23 +43,24 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
                  forecasts=()) -> dict:
     """Read the inputs, write the report; returns counts for the command's summary line.
 
-    From a ledger (`db`), the rule set the results were graded with comes from the ledger
-    too, unless `rules` names one. `forecasts` are the grading's own (Forecast records), when
+    From a ledger (`db`), the rule sets the results were graded with come from the ledger too,
+    each sample with its own; `rules`, if given, must be one of them. `forecasts` are the grading's own (Forecast records), when
     the caller graded the samples itself; results files do not carry them.
     """
+    rulesets = None
+    ruleset = load_ruleset(rules) if rules else None
     if db is not None:
-        records = parse_results(stored_records(db, batch), f"ledger {db}")
+        stored, rulesets = stored_results(db, batch)
+        records = parse_results([dumps(r.to_record()) for r in stored], f"ledger {db}", one_ruleset=False)
+        if ruleset is not None and ruleset.sha256 not in rulesets:
+            raise InputError(f"{rules}: rule set {ruleset.id} sha256 {ruleset.sha256[:12]}... graded none of the "
+                             f"ledger's results; its limits would be drawn wrongly (leave out --rules: the "
+                             f"ledger holds the rule sets it graded with)")
     else:
         records = parse_results(_text(results).splitlines(), str(results))
     rejected = parse_rejects(_text(rejects), str(rejects)) if rejects else ()
-    if rules:
-        ruleset = load_ruleset(rules)
-    elif db is not None and records:
-        ruleset = stored_ruleset(db, records[0]["ruleset"]["sha256"])
-    else:
-        ruleset = None
     html = render_report(records, rejected, ruleset, title=title or "", rejects_given=rejects is not None,
-                         forecasts=forecasts)
+                         forecasts=forecasts, rulesets=rulesets)
     Path(out).write_text(html, encoding="utf-8")
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
     return {"records": len(records), "flagged": flagged, "rejected": len(rejected), "bytes": len(html.encode())}

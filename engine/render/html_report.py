@@ -37,8 +37,12 @@ _REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "
 _OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool}
 
 
-def parse_results(lines, name: str) -> tuple:
-    """Result records from JSON Lines text (as `grade` writes them), checked field by field."""
+def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
+    """Result records from JSON Lines text (as `grade` writes them), checked field by field.
+
+    A results file must come from one rule set (`one_ruleset`); a ledger's records may come
+    from several, because the ledger hands over each rule set with them.
+    """
     records = []
     for number, line in enumerate(lines, 1):
         if not line.strip():
@@ -66,7 +70,7 @@ def parse_results(lines, name: str) -> tuple:
             if not isinstance(record["ruleset"].get(key), str):
                 raise InputError(f"{name}: line {number}: field 'ruleset.{key}': expected text")
         first = records[0] if records else record
-        if record["ruleset"]["sha256"] != first["ruleset"]["sha256"]:
+        if one_ruleset and record["ruleset"]["sha256"] != first["ruleset"]["sha256"]:
             raise InputError(f"{name}: line {number}: graded by rule set {record['ruleset']['id']} "
                              f"sha256 {record['ruleset']['sha256'][:12]}..., earlier lines by "
                              f"{first['ruleset']['id']} sha256 {first['ruleset']['sha256'][:12]}...; "
@@ -289,6 +293,7 @@ class UnitView:
     rising: tuple  # measures whose recorded values are moving toward their limits
     worst_level: int | None
     flagged: int
+    graded_by: tuple = ()  # the (id, version, sha256) of each rule set that graded the unit's samples, in order
 
     @property
     def worsening(self) -> bool:
@@ -309,8 +314,16 @@ def _rank(level: int | None) -> float:
     return 0.5 if level is None else float(level)
 
 
-def unit_views(records, ruleset: RuleSet | None = None) -> list[UnitView]:
-    """Units ordered for attention: latest grade, then worsening (grade or values) first, then the worst grade."""
+def _graded_by(record: dict) -> tuple:
+    return (record["ruleset"]["id"], record["ruleset"].get("version"), record["ruleset"]["sha256"])
+
+
+def unit_views(records, ruleset: RuleSet | None = None, rulesets: dict | None = None) -> list[UnitView]:
+    """Units ordered for attention: latest grade, then worsening (grade or values) first, then the worst grade.
+
+    With `rulesets` (by fingerprint), each unit's limits come from the rule set that graded its
+    latest sample; otherwise from `ruleset`.
+    """
     by_unit: dict[str, list] = {}
     for record in records:
         by_unit.setdefault(record.get("unit_id") or "(no unit)", []).append(record)
@@ -319,7 +332,8 @@ def unit_views(records, ruleset: RuleSet | None = None) -> list[UnitView]:
         samples = sorted(samples, key=_sample_key)
         latest = samples[-1]
         class_name = latest.get("class") or ""
-        watched = watched_measures(ruleset, class_name, samples)
+        own = rulesets.get(latest["ruleset"]["sha256"]) if rulesets else ruleset
+        watched = watched_measures(own, class_name, samples)
         fired = [m for s in reversed(samples) for r in s["reasons"] for m in _reason_measures(r)]
         order = {m: k for k, m in enumerate(dict.fromkeys(fired))}
         watched = sorted(watched, key=lambda w: order.get(w.measure, len(order)))
@@ -334,7 +348,8 @@ def unit_views(records, ruleset: RuleSet | None = None) -> list[UnitView]:
         levels = [s["level"] for s in samples if s.get("level") is not None]
         views.append(UnitView(unit_id, class_name, latest.get("lubricant") or "", tuple(samples), tuple(watched),
                               series, latest.get("level"), move, rising, max(levels) if levels else None,
-                              sum(1 for s in samples if (s.get("level") or 0) > 0)))
+                              sum(1 for s in samples if (s.get("level") or 0) > 0),
+                              tuple(dict.fromkeys(_graded_by(s) for s in samples))))
     return sorted(views, key=lambda v: (-_rank(v.latest_level), not v.worsening, -_rank(v.worst_level), v.unit_id))
 
 
@@ -498,12 +513,23 @@ def _grade_cell(grade: str, level: int | None) -> str:
 
 def _band(meta: dict, cls: str, notice: str) -> str:
     """The band printed at the top and the foot of every page; the foot carries the notice, once a page."""
-    parts = [f'<div class="band {cls}"><span>sumpwise report · rule set <b>{escape(meta["id"])}</b> '
-             f'version {escape(str(meta.get("version")))} · {escape(meta["engine"])}</span>'
-             f'<span>fingerprint sha256 <code>{escape(meta["sha256"])}</code></span>']
+    if len(meta["rulesets"]) == 1:
+        parts = [f'<div class="band {cls}"><span>sumpwise report · rule set <b>{escape(meta["id"])}</b> '
+                 f'version {escape(str(meta.get("version")))} · {escape(meta["engine"])}</span>'
+                 f'<span>fingerprint sha256 <code>{escape(meta["sha256"])}</code></span>']
+    else:
+        parts = [f'<div class="band {cls}"><span>sumpwise report · {len(meta["rulesets"])} rule sets: '
+                 + "; ".join(_ruleset_label(entry) for entry in meta["rulesets"])
+                 + f' · {escape(meta["engine"])}</span>']
     if cls == "foot":
         parts.append(f'<span class="notice">Notice: {escape(notice)} {escape(CAUTIONS[0])}</span>')
     return "".join(parts) + "</div>"
+
+
+def _ruleset_label(entry: tuple) -> str:
+    """A rule set as the report names it: id, version, the start of its fingerprint."""
+    rid, version, sha = entry
+    return f"<b>{escape(rid)}</b> version {escape(str(version))} (sha256 <code>{escape(sha[:12])}</code>…)"
 
 
 def _legend(ladder: Ladder) -> str:
@@ -694,6 +720,13 @@ def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
     figures = "".join(f"<figure>{render_plot(p)}"
                       + (f"<figcaption>{escape(p.note)}</figcaption>" if p.note else "") + "</figure>" for p in plots)
     earlier = _earlier(view.samples[:-1], ladder)
+    if len(view.graded_by) > 1:
+        earlier = ("<p class='muted graded-by'>This unit's samples were graded under "
+                   f"{len(view.graded_by)} rule sets ("
+                   + "; ".join(_ruleset_label(entry) for entry in view.graded_by)
+                   + "); the limits drawn are those of " + _ruleset_label(view.graded_by[-1])
+                   + ", which graded the latest sample; each sample's grade is the one its own rule set "
+                   "gave.</p>" + earlier)
     ahead = ""
     if mine:
         ahead = ("<h4>When will it cross?</h4><ul class='todo forecasts'>" + "".join(
@@ -718,26 +751,41 @@ def _plot_key(ruleset: RuleSet | None) -> str:
 
 
 def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: str = "",
-                  rejects_given: bool = True, forecasts=()) -> str:
+                  rejects_given: bool = True, forecasts=(), rulesets: dict | None = None) -> str:
     """The whole report as one HTML document; `records` are result records as `grade` writes them.
 
     `forecasts` are the engine's forecasts of when a unit's charge reaches a limit, as dicts
     (derive.forecast.Forecast.to_record); each is drawn on its unit's plot and listed in its card.
+    Records graded under several rule sets need `rulesets`, every one of them by fingerprint
+    (as a ledger hands them over); each unit is then drawn against its latest sample's own.
     """
     if not records:
         raise InputError("a report needs at least one result record")
     first = records[0]
+    graded_by = list(dict.fromkeys(_graded_by(r) for r in records))
     meta = {"id": first["ruleset"]["id"], "version": first["ruleset"].get("version"),
-            "sha256": first["ruleset"]["sha256"], "engine": first["engine"]}
-    if ruleset is not None and ruleset.sha256 != meta["sha256"]:
-        raise InputError(f"the rule set given ({ruleset.id} sha256 {ruleset.sha256[:12]}...) is not the one the "
-                         f"results were graded with ({meta['id']} sha256 {meta['sha256'][:12]}...); its limits "
-                         f"would be drawn wrongly")
-    ladder = Ladder.of(records, ruleset)
-    notice = first.get("notice") or (ruleset.notice if ruleset is not None else
-                                     "the records do not carry the rule set's notice; read it in the rule set")
-    views = unit_views(records, ruleset)
-    heading = title or (ruleset.title if ruleset is not None else f"Graded samples, rule set {meta['id']}")
+            "sha256": first["ruleset"]["sha256"], "engine": first["engine"], "rulesets": graded_by}
+    if rulesets is None:
+        if len(graded_by) > 1:
+            raise InputError(f"the records were graded under {len(graded_by)} rule sets; a report of them needs "
+                             f"each rule set (a ledger gives them)")
+        if ruleset is not None and ruleset.sha256 != meta["sha256"]:
+            raise InputError(f"the rule set given ({ruleset.id} sha256 {ruleset.sha256[:12]}...) is not the one "
+                             f"the results were graded with ({meta['id']} sha256 {meta['sha256'][:12]}...); its "
+                             f"limits would be drawn wrongly")
+    else:
+        missing = [sha for _, _, sha in graded_by if sha not in rulesets]
+        if missing:
+            raise InputError(f"no rule set given for the records graded under sha256 {missing[0][:12]}...")
+        ruleset = rulesets[meta["sha256"]] if len(graded_by) == 1 else None
+    grade_names = {tuple(rs.grades) for rs in (rulesets or {}).values()}
+    ladder = Ladder(grade_names.pop()) if len(grade_names) == 1 else Ladder.of(records, ruleset)
+    notices = dict.fromkeys(r["notice"] for r in records if r.get("notice"))
+    notice = " ".join(notices) or (ruleset.notice if ruleset is not None else
+                                   "the records do not carry the rule set's notice; read it in the rule set")
+    views = unit_views(records, ruleset, rulesets)
+    heading = title or (ruleset.title if ruleset is not None else f"Graded samples, rule set {meta['id']}"
+                        if len(graded_by) == 1 else f"Graded samples, {len(graded_by)} rule sets")
     dates = sorted(r["sampled_on"] for r in records if r.get("sampled_on"))
     span = f"samples from {dates[0]} to {dates[-1]}" if dates else "sample dates not given"
     unrated = [r for r in records if r.get("level") is None]
@@ -745,10 +793,15 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
                 + "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
     body = [f"<h1>{escape(heading)}</h1>",
             f'<p class="sub">{escape(span)} · {len(records)} result records · {len(views)} units</p>',
+            *(["<p class='sub rulesets'>Graded under " + str(len(graded_by)) + " rule sets: "
+               + "; ".join(_ruleset_label(entry) for entry in graded_by)
+               + ". Each unit's limits are those of the rule set that graded its latest sample.</p>"]
+              if len(graded_by) > 1 else []),
             cautions, f'<p class="notice">Notice of the rule set: {escape(notice)}</p>',
             "<h2>The batch</h2>", _legend(ladder), _summary(records, rejects, ladder, rejects_given),
             "<h2>Units needing attention first</h2>", _attention(views, ladder),
-            "<h2>Units: latest findings, what to do, trends</h2>", _plot_key(ruleset)]
+            "<h2>Units: latest findings, what to do, trends</h2>",
+            _plot_key(ruleset or next(iter((rulesets or {}).values()), None))]
     body.extend(_unit_section(v, ladder, forecasts) for v in views)
     if unrated:
         body.append("<h2>Unrated samples</h2><table class='grid unrated'><thead><tr><th>sample</th><th>unit</th>"
