@@ -10,6 +10,8 @@ from pathlib import Path
 from sumpwise.cli.options import batch_number, output_file
 from sumpwise.ledger.audit import stored_results
 from sumpwise.render.jsonl import dumps
+from sumpwise.results.facts import ENGINE_CAVEATS
+from sumpwise.results.records import COMPACT, next_step_record
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.render.html_report import parse_rejects, parse_results, render_report
@@ -39,13 +41,50 @@ def _text(path) -> str:
         raise InputError(f"{path}: not UTF-8 text (byte {exc.start})") from None
 
 
+def with_texts(records, ruleset, name: str) -> tuple:
+    """Compact records with their texts (notice, messages, sources, next steps) put back from
+    the rule set they were graded with, which must be the one given: compact records carry
+    those texts by reference to its fingerprint."""
+    sha = records[0]["ruleset"]["sha256"]
+    if ruleset is None or ruleset.sha256 != sha:
+        given = "no --rules" if ruleset is None else f"--rules is {ruleset.id} sha256 {ruleset.sha256[:12]}..."
+        raise InputError(f"{name}: compact records (grade --record compact) carry no notice, messages or sources; "
+                         f"they need the rule set they were graded with, {records[0]['ruleset']['id']} sha256 "
+                         f"{sha[:12]}... ({given}): give it with --rules")
+    caveats = {c.id: c for c in ruleset.caveats}
+    filled = []
+    for record in records:
+        if record.get("form") != COMPACT:
+            filled.append(record)
+            continue
+        rules = ({rule.id: rule for rule in ruleset.rules_for(record["class"])}
+                 if record.get("class") in ruleset.classes else {})
+        reasons = [_texts_of(r, rules.get(r["rule"]), name, record["sample_id"]) for r in record["reasons"]]
+        notes = [dict(c, source=ENGINE_CAVEATS[c["caveat"]].source) if c["caveat"] in ENGINE_CAVEATS
+                 else _texts_of(c, caveats.get(c["caveat"]), name, record["sample_id"]) for c in record["caveats"]]
+        filled.append(dict(record, notice=ruleset.notice, reasons=reasons, caveats=notes))
+    return tuple(filled)
+
+
+def _texts_of(entry: dict, source, name: str, sample_id: str) -> dict:
+    """A reason or caveat with its rule's (or caveat's) message, source and next step."""
+    key = "rule" if "rule" in entry else "caveat"
+    if source is None:
+        raise InputError(f"{name}: sample {sample_id}: {key} '{entry[key]}' is not in the rule set given")
+    texts = {"message": source.message, "source": source.source}
+    if source.next_step is not None:
+        texts["next_step"] = next_step_record(source.next_step)
+    return {**entry, **texts}
+
+
 def write_report(results, out, rejects=None, rules=None, title: str = "", db=None, batch=None,
                  forecasts=()) -> dict:
     """Read the inputs, write the report; returns counts for the command's summary line.
 
     From a ledger (`db`), the rule sets the results were graded with come from the ledger too,
-    each sample with its own; `rules`, if given, must be one of them. `forecasts` are the grading's own (Forecast records), when
-    the caller graded the samples itself; results files do not carry them.
+    each sample with its own; `rules`, if given, must be one of them. Compact records need
+    `rules`: their texts come from it. `forecasts` are the grading's own (Forecast records),
+    when the caller graded the samples itself; results files do not carry them.
     """
     rulesets = None
     ruleset = load_ruleset(rules) if rules else None
@@ -58,6 +97,8 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
                              f"ledger holds the rule sets it graded with)")
     else:
         records = parse_results(_text(results).splitlines(), str(results))
+        if any(r.get("form") == COMPACT for r in records):
+            records = with_texts(records, ruleset, str(results))
     rejected = parse_rejects(_text(rejects), str(rejects)) if rejects else ()
     html = render_report(records, rejected, ruleset, title=title or "", rejects_given=rejects is not None,
                          forecasts=forecasts, rulesets=rulesets)
