@@ -16,7 +16,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 
-from sumpwise.derive.viscosity import ISO_VG_GRADES
+from sumpwise.derive.viscosity import ISO_VG_GRADES, iso_vg_of
 from sumpwise.vocabulary.intervals import can_hold, covered
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 from sumpwise.vocabulary.base_stocks import family_of
@@ -373,7 +373,8 @@ def _viscosity_grades(ruleset: RuleSet):
         if lub.iso_vg is None or origin is None:
             continue
         band = ISO_VG_GRADES.get(int(lub.iso_vg)) if float(lub.iso_vg).is_integer() else None
-        fits = [g for g, b in ISO_VG_GRADES.items() if lub.kv40 is not None and b.minimum <= lub.kv40 <= b.maximum]
+        grade_of_kv40 = iso_vg_of([lub.kv40])[0] if lub.kv40 is not None else float("nan")
+        fits = [] if grade_of_kv40 != grade_of_kv40 else [int(grade_of_kv40)]
         if band is None:
             near = min(ISO_VG_GRADES, key=lambda g: abs(g - lub.iso_vg))
             kv40 = "" if lub.kv40 is None else (f"; its kv40 {_num(lub.kv40)} mm2/s fits ISO VG {fits[0]}" if fits

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import difflib
 import csv
 import json
 import sys
@@ -28,6 +29,7 @@ from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import dumps, write_jsonl
 from sumpwise.render.table import FIRST_CAVEATS, write_table
+from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import FORMS, FULL
 from sumpwise.render.safe_text import spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
@@ -109,6 +111,9 @@ def _parser(stdout) -> _Parser:
     grade.add_argument("--fail-at", metavar="GRADE", action="append", default=[],
                        help="exit 3 when any sample reaches this grade or higher; `unrated`: when any sample "
                             "is unrated (repeatable)")
+    grade.add_argument("--fail-on-caveat", metavar="CAVEAT", action="append", default=[],
+                       help="exit 3 when any sample carries this caveat, e.g. unknown-lubricant: a sample graded "
+                            "on less than it should can still grade normal (repeatable)")
     grade.add_argument("--max-rejects", metavar="N", type=_count,
                        help="exit 2 when more than N rows in all are rejected (results are still written)")
     grade.add_argument("--summary", metavar="FILE",
@@ -331,6 +336,12 @@ def _grade(args, stdin, stdout, stderr) -> int:
     if not authoring_cli.examples_hold(ruleset, args, stderr):
         return USAGE
     fail_levels, fail_unrated = _fail_at(args, ruleset)
+    known = {c.id for c in ruleset.caveats} | set(ENGINE_CAVEATS)
+    for caveat in args.fail_on_caveat:
+        if caveat not in known:
+            close = difflib.get_close_matches(caveat, sorted(known), n=1)
+            raise UsageError(f"sumpwise grade: --fail-on-caveat {caveat!r} is no caveat of the rule set or the engine"
+                             + (f"; did you mean {close[0]!r}?" if close else ""))
     sources = _sources(args.samples)
     files, found_grade, found_unrated, conflicts = [], False, False, 0
     with contextlib.ExitStack() as stack:
@@ -362,7 +373,11 @@ def _grade(args, stdin, stdout, stderr) -> int:
     for warning in warnings:
         stderr.write(terminal_text(f"sumpwise: warning: {warning}") + "\n")
     code = OK
-    if fail_levels and found_grade or fail_unrated and found_unrated or conflicts:
+    caveated = sorted(c for c in args.fail_on_caveat if any(f["caveats"].get(c) for f in files))
+    for caveat in caveated:
+        stderr.write(terminal_text(f"sumpwise: --fail-on-caveat {caveat}: "
+                                   f"{sum(f['caveats'].get(caveat, 0) for f in files)} sample(s) carry it") + "\n")
+    if fail_levels and found_grade or fail_unrated and found_unrated or conflicts or caveated:
         code = FINDINGS
     if args.max_rejects is not None and total["rejected"] > args.max_rejects:
         stderr.write(f"sumpwise: {total['rejected']} row(s) rejected, more than --max-rejects {args.max_rejects}\n")

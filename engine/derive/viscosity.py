@@ -1,5 +1,4 @@
-"""Viscosity index (ASTM D2270), ISO viscosity grades (ISO 3448 / ASTM D2422)
-and the Walther viscosity-temperature line (ASTM D341).
+"""Viscosity index (ASTM D2270), ISO viscosity grades (ISO 3448 / ASTM D2422).
 
 All functions are pure and vectorized: they take array-likes (numpy arrays,
 pandas Series, lists or scalars) in mm2/s and return float ndarrays, with NaN
@@ -65,7 +64,7 @@ def reference_l_h(kv100) -> tuple[np.ndarray, np.ndarray]:
     §5.1.2 / §6.1.2 equations above 70, NaN below 2.0 or for NaN input.
     """
     y = _as_float_array(kv100, "kv100")
-    grid, l_grid, h_grid = _table1()
+    grid, l_grid, h_grid = d2270_table1()
     in_table = (y >= VI_KV100_MIN) & (y <= VI_TABLE_KV100_MAX)
     above_table = y > VI_TABLE_KV100_MAX
     low = np.where(
@@ -163,51 +162,3 @@ def iso_vg_of(kv40) -> np.ndarray:
     index = np.clip(np.searchsorted(minima, u, side="right") - 1, 0, len(grades) - 1)
     inside = (u >= minima[index]) & (u <= maxima[index])
     return np.where(inside, grades[index], np.nan)
-
-
-# ASTM D341 Walther line, in the form valid for viscosities of 2 mm2/s or more.
-_KELVIN = 273.15
-_WALTHER_MIN_KV = 2.0
-
-
-class WaltherLine(NamedTuple):
-    """log10(log10(kv + 0.7)) = a - b * log10(T in kelvin), kv in mm2/s (ASTM D341)."""
-
-    a: np.ndarray
-    b: np.ndarray
-
-
-def _loglog(kv: np.ndarray) -> np.ndarray:
-    return np.log10(np.log10(kv + 0.7))
-
-
-def walther_fit(kv40, kv100) -> WaltherLine:
-    """The ASTM D341 line through KV40 (at 313.15 K) and KV100 (at 373.15 K).
-
-    Uses Z = kv + 0.7, the form for kv >= 2 mm2/s; NaN coefficients where an
-    input is below 2 mm2/s, NaN or infinite.
-    """
-    u, y = _broadcast(kv40, kv100)
-    valid = np.isfinite(u) & np.isfinite(y) & (u >= _WALTHER_MIN_KV) & (y >= _WALTHER_MIN_KV)
-    log_t40, log_t100 = np.log10(40.0 + _KELVIN), np.log10(100.0 + _KELVIN)
-    with np.errstate(invalid="ignore"):
-        z40 = _loglog(np.where(valid, u, np.nan))
-        z100 = _loglog(np.where(valid, y, np.nan))
-    b = (z40 - z100) / (log_t100 - log_t40)
-    a = z40 + b * log_t40
-    return WaltherLine(a, b)
-
-
-def kv_at(temperature_c, kv40, kv100) -> np.ndarray:
-    """Kinematic viscosity (mm2/s) at temperature_c from KV40 and KV100 (ASTM D341).
-
-    NaN where the line is undefined or the result falls below 2 mm2/s, where
-    Z = kv + 0.7 no longer holds. Far outside 40-100 C the line loses accuracy
-    (common practice).
-    """
-    t = _as_float_array(temperature_c, "temperature_c")
-    line = walther_fit(kv40, kv100)
-    with np.errstate(invalid="ignore", over="ignore"):
-        loglog = line.a - line.b * np.log10(t + _KELVIN)
-        kv = np.power(10.0, np.power(10.0, loglog)) - 0.7
-    return np.where(np.isfinite(kv) & (kv >= _WALTHER_MIN_KV), kv, np.nan)

@@ -118,21 +118,17 @@ def footer_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
     return lines
 
 
-def table_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
-    """The table's lines: one per sample, then counts, the notice and the cautions."""
-    head, rows = table_rows(batch, width)
-    return [head, "-" * width] + rows.tolist() + footer_lines(batch, width)
-
-
 def _wrap(text: str, width: int) -> list[str]:
     return textwrap.wrap(text, width) or [""]
 
 
-def write_table(batch: GradedBatch, stream, progress=None, min_rows: int = PROGRESS_MIN_ROWS) -> None:
-    """Write the table in chunks; `progress` (standard error) gets a counter if wants_progress says so."""
+def write_table(batch: GradedBatch, stream, progress=None, min_rows: int = PROGRESS_MIN_ROWS,
+                width: int = WIDTH) -> None:
+    """Write the table in chunks: one line per sample, then counts, the notice and the cautions;
+    `progress` (standard error) gets a counter if wants_progress says so."""
     shown = progress if wants_progress(progress, len(batch), min_rows) else None
-    head, rows = table_rows(batch)
-    stream.write(head + "\n" + "-" * WIDTH + "\n")
+    head, rows = table_rows(batch, width)
+    stream.write(head + "\n" + "-" * width + "\n")
     total = len(rows)
     for start in range(0, total, CHUNK_ROWS):
         chunk = rows.iloc[start:start + CHUNK_ROWS]
@@ -144,4 +140,4 @@ def write_table(batch: GradedBatch, stream, progress=None, min_rows: int = PROGR
     if shown is not None:
         shown.write("\n")
         shown.flush()
-    stream.write("\n".join(footer_lines(batch)) + "\n")
+    stream.write("\n".join(footer_lines(batch, width)) + "\n")

@@ -23,7 +23,7 @@ from sumpwise.vocabulary.measures import (DERIVED_MEASURES, INPUT_MEASURES, ISO4
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, NextStep, Not, Origin, RuleSet)
-from sumpwise.ruleset.resolve import Placed, Resolved, resolve_ruleset, resolve_with_problems
+from sumpwise.ruleset.resolve import Placed, Resolved, resolve_with_problems
 from sumpwise.vocabulary.measures import UNIT_FAMILY
 from sumpwise.vocabulary.base_stocks import FAMILIES as BASE_STOCK_FAMILIES, BaseStockError, canonical_base_stock
 from sumpwise.vocabulary.cautions import DEFAULT_NOTICE
@@ -42,10 +42,6 @@ def load_ruleset(path) -> RuleSet:
     if checked.errors or checked.ruleset is None:
         raise InvalidFile(list(checked.problems))
     return checked.ruleset
-
-
-def compile_ruleset(resolved: Resolved) -> RuleSet:
-    return _Compiler(resolved).run()
 
 
 @dataclass(frozen=True)

@@ -58,14 +58,6 @@ class Resolved:
     incomplete: bool = False
 
 
-def resolve_ruleset(path: Path) -> Resolved:
-    """Load `path` and everything it extends; raise InvalidFile with every problem found."""
-    resolved, problems = resolve_with_problems(Path(path))
-    if problems or resolved is None:
-        raise InvalidFile(problems)
-    return resolved
-
-
 def resolve_with_problems(path: Path) -> tuple[Resolved | None, list[Problem]]:
     """Load `path` and everything it extends, keeping on past problems so one run finds them all.
 

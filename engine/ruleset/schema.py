@@ -31,11 +31,6 @@ def _validator() -> jsonschema.Draft202012Validator:
     return jsonschema.Draft202012Validator(schema)
 
 
-def schema_problems(doc: YamlDocument) -> list[Problem]:
-    """Every schema violation in the document, one plain sentence each."""
-    return schema_findings(doc)[0]
-
-
 def schema_findings(doc: YamlDocument) -> tuple[list[Problem], set]:
     """Every schema violation, and the pieces of the document they spoil.
 

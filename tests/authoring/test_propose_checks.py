@@ -13,7 +13,6 @@ import math
 
 import numpy as np
 import pandas as pd
-import pytest
 import yaml
 
 from conftest import ROOT, run_cli

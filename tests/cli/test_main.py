@@ -107,3 +107,23 @@ def test_the_installed_console_script_runs():
     done = subprocess.run(command + ["check", str(DRAFT)], capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
     assert "ok: rule set brackwater-site version 4" in done.stdout
+
+
+def test_a_pipeline_can_fail_on_a_caveat_such_as_a_misspelt_lubricant():
+    # Issue #12's row: with the lubricant code misspelt, most rules lack their new-oil value and the
+    # sample grades normal; the caveat says so, and --fail-on-caveat lets a pipeline stop on it.
+    rules = ROOT / "rules" / "steam-turbine.yaml"
+    row = "sample_id,unit_id,class,lubricant,kv40,an,water,oxidation\nT1,ST-1,steam-turbine,{},49.0,0.5,50,20\n"
+    misspelt = run_cli("grade", "-", "--rules", rules, "--fail-at", "alert", stdin=row.format("TURB-46M"))
+    record = json.loads(misspelt.out)
+    assert misspelt.code == 0 and record["grade"] == "normal"
+    assert [c["caveat"] for c in record["caveats"]] == ["unknown-lubricant", "few-rules-evaluated"]
+    assert "nearest: TURB-46-M" in record["caveats"][0]["message"]
+    failed = run_cli("grade", "-", "--rules", rules, "--fail-on-caveat", "unknown-lubricant",
+                     stdin=row.format("TURB-46M"))
+    assert failed.code == 3 and "--fail-on-caveat unknown-lubricant: 1 sample(s)" in failed.err
+    spelt = run_cli("grade", "-", "--rules", rules, "--fail-on-caveat", "unknown-lubricant", "--fail-at", "alert",
+                    stdin=row.format("TURB-46-M"))
+    assert spelt.code == 3 and json.loads(spelt.out)["grade"] == "alert" and "carry it" not in spelt.err
+    typo = run_cli("grade", "-", "--rules", rules, "--fail-on-caveat", "unknown-lubricnt", stdin=row.format("X"))
+    assert typo.code == 2 and "did you mean 'unknown-lubricant'" in typo.err

@@ -13,10 +13,8 @@ from sumpwise.derive.viscosity import (
     d2270_table1,
     iso_vg_band,
     iso_vg_of,
-    kv_at,
     reference_l_h,
     viscosity_index,
-    walther_fit,
 )
 
 
@@ -226,31 +224,7 @@ def test_iso_vg_of_band_edges_inclusive_and_gaps_nan():
     assert iso_vg_of(pd.Series(midpoints)).tolist() == [float(g) for g, *_ in FACT_SHEET_VG]
 
 
-# --- ASTM D341 Walther line ------------------------------------------------------
-
-
-def test_walther_line_returns_both_inputs():
-    # Property (fact sheet, D341): the line through two points returns both of them.
-    rng = np.random.default_rng(341)
-    kv100 = rng.uniform(2.0, 60.0, 500)
-    kv40 = kv100 * rng.uniform(1.5, 15.0, 500)
-    np.testing.assert_allclose(kv_at(40.0, kv40, kv100), kv40, rtol=1e-12)
-    np.testing.assert_allclose(kv_at(100.0, kv40, kv100), kv100, rtol=1e-12)
-
-
-def test_walther_line_is_the_d341_form():
-    # Source: D341 form log10 log10(v + 0.7) = A - B log10(T/K); check a midpoint by hand.
-    a, b = walther_fit([46.0], [6.8])
-    expected = 10 ** 10 ** (a[0] - b[0] * np.log10(333.15)) - 0.7
-    assert kv_at(60.0, [46.0], [6.8])[0] == pytest.approx(expected, rel=1e-12)
-    assert 6.8 < expected < 46.0
-    lhs = np.log10(np.log10(np.array([46.7, 7.5])))
-    np.testing.assert_allclose(lhs, a[0] - b[0] * np.log10([313.15, 373.15]), rtol=1e-12)
-
-
-def test_walther_undefined_below_2_mm2s():
-    assert np.isnan(kv_at(40.0, [10.0], [1.5])).all()
-    assert np.isnan(kv_at(200.0, [10.0], [2.6])).all()   # result below 2 mm2/s
+# --- dependencies ----------------------------------------------------------------
 
 
 def test_runtime_does_not_import_chemicals():

@@ -104,7 +104,7 @@ def test_history_and_explain_from_the_ledger_escape_input_text(tmp_path):
 
 
 def test_a_rejected_row_is_escaped_on_standard_error_and_neutralised_in_a_rejects_csv(tmp_path):
-    bad = HOSTILE + f"=1+1\x1b[5m,GB-1,gearbox,GEAR-320-PAO,2026-03-23,oops,0.9,100\n"
+    bad = HOSTILE + "=1+1\x1b[5m,GB-1,gearbox,GEAR-320-PAO,2026-03-23,oops,0.9,100\n"
     rejects = tmp_path / "rejects.csv"
     on_stderr = run_cli("grade", "-", "--rules", GEARBOX, stdin=bad)
     assert on_stderr.code == 0 and "rejected" in on_stderr.err and "\x1b" not in on_stderr.err

@@ -9,11 +9,13 @@ import pty
 
 import pytest
 from conftest import ROOT
+from table_text import table_lines
 
 from sumpwise import grade, grade_batch, load_ruleset, read_samples
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.cli.main import main
-from sumpwise.render.table import WIDTH, _why, grade_marker, table_lines, wants_progress, write_table
+from sumpwise.render.table import WIDTH, _why, grade_marker, wants_progress, write_table
+
 
 SITE = ROOT / "scenarios" / "brackwater" / "site.yaml"
 SAMPLES = ROOT / "scenarios" / "brackwater" / "samples.csv"

@@ -16,7 +16,8 @@ from conftest import run_cli
 from sumpwise import grade, load_ruleset, read_samples
 from sumpwise.ledger.audit import result_from_record
 from sumpwise.render.narrative import explain_lines
-from sumpwise.render.table import table_lines
+from table_text import table_lines
+
 from sumpwise.ruleset.model import NextStep
 from sumpwise.vocabulary.problems import InvalidFile
 

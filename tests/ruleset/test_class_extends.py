@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import pandas as pd
-import pytest
 
 from sumpwise.ruleset.compiler import check_ruleset, load_ruleset
 from sumpwise.results.pipeline import grade

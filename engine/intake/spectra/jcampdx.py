@@ -85,7 +85,7 @@ _DATA_LABEL = re.compile(r"^##(XYDATA|XYPOINTS|PEAKTABLE|NTUPLES|DATATABLE)=(.*)
 
 def read_jcampdx(path: Path | str) -> Spectrum:
     """Read one single-spectrum JCAMP-DX file; raise SpectrumError naming file and line."""
-    return _decode([_prepare(_read_text(path), str(path))])[0]
+    return parse_jcampdx(_read_text(path), str(path))
 
 
 def read_jcampdx_many(paths, chunk: int = 32) -> list:

@@ -56,16 +56,8 @@ def wavenumber_from_micrometres(wavelength_um):
     return MICROMETRES_PER_CM1 / np.asarray(wavelength_um, dtype=float)
 
 
-def micrometres_from_wavenumber(wavenumber_cm1):
-    return MICROMETRES_PER_CM1 / np.asarray(wavenumber_cm1, dtype=float)
-
-
 def wavenumber_from_nanometres(wavelength_nm):
     return NANOMETRES_PER_CM1 / np.asarray(wavelength_nm, dtype=float)
-
-
-def nanometres_from_wavenumber(wavenumber_cm1):
-    return NANOMETRES_PER_CM1 / np.asarray(wavenumber_cm1, dtype=float)
 
 
 def absorbance_from_transmittance(transmittance, percent: bool):

@@ -18,8 +18,6 @@ from scipy import integrate
 from sumpwise.intake.spectra.bands import BandFileError, load_bands, measure_block, parse_bands, plan_bands, trapezoid_weights
 from sumpwise.intake.spectra.batch import ABS_PER_CM_PER_ABS_PER_01MM, measure_matrix
 from sumpwise.intake.spectra.spectrum import (
-    micrometres_from_wavenumber,
-    nanometres_from_wavenumber,
     wavenumber_from_micrometres,
     wavenumber_from_nanometres,
 )
@@ -176,9 +174,7 @@ def test_grid_not_covering_a_band_is_reported():
 )
 def test_wavenumber_wavelength_conversions(wavenumber, micrometres):
     assert wavenumber_from_micrometres(micrometres) == pytest.approx(wavenumber)
-    assert micrometres_from_wavenumber(wavenumber) == pytest.approx(micrometres)
     assert wavenumber_from_nanometres(micrometres * 1000) == pytest.approx(wavenumber)
-    assert nanometres_from_wavenumber(wavenumber) == pytest.approx(micrometres * 1000)
 
 
 def test_packaged_band_file_names_the_published_set_and_marks_its_sources():
