@@ -13,7 +13,8 @@ from pathlib import Path
 
 from sumpwise.cli.options import iso_date
 from sumpwise.ledger.audit import (explain_from_ledger, find_samples, ledger_rulesets, recorded_rejects, replay,
-                                   replay_lines, stored_ruleset, stored_ruleset_text, unit_history, write_history)
+                                   replay_lines, stored_ruleset, stored_ruleset_text, unit_forecasts, unit_history,
+                                   write_history)
 from sumpwise.ledger.store import DEFAULT_PATH, Correction, grade_into_ledger
 from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.pipeline import grade_batch
@@ -126,7 +127,11 @@ def run_explain(args, stdout) -> int:
 
 
 def run_history(args, stdout, stderr) -> int:
-    write_history(unit_history(args.db, args.unit_id), args.unit_id, stdout, args.format)
+    unit = unit_history(args.db, args.unit_id)
+    ruleset, forecasts = None, ()
+    if args.format == "table":
+        ruleset, forecasts = unit_forecasts(args.db, args.unit_id)
+    write_history(unit, args.unit_id, stdout, args.format, forecasts, ruleset)
     return 0
 
 

@@ -27,7 +27,7 @@ from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch
                                    ruleset_text, sample_entries, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.version import engine_name
-from sumpwise.render.narrative import explain_lines
+from sumpwise.render.narrative import explain_lines, forecast_lines, wrapper
 from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.facts import batch_facts, result_from_facts
 from sumpwise.results.pipeline import grade_batch
@@ -185,7 +185,31 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
                  "water", "grade", "level", "fired", "caveats", "corrected"]].reset_index(drop=True)
 
 
-def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table") -> None:
+@reads_ledger
+def unit_forecasts(path, unit_id: str) -> tuple[RuleSet | None, tuple]:
+    """When the unit's current oil charge reaches each rule's next limit: its stored samples
+    re-graded (nothing written) under the rule set that graded its latest sample, as `grade`
+    forecasts them. Returns that rule set and the forecasts."""
+    conn = _reader(path)
+    try:
+        unit = unit_entries(conn, unit_id)
+        if not len(unit):
+            return None, ()
+        latest = next(v for v in sample_entries(conn, unit["sample_id"].iloc[-1]) if v["superseded_in"] is None)
+        rows = conn.execute("SELECT s.content, b.columns FROM samples s JOIN batches b ON b.batch = s.batch "
+                            "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.entry", (unit_id,)).fetchall()
+    finally:
+        conn.close()
+    ruleset = _ruleset_of(path, latest)
+    columns = list(dict.fromkeys(name for _, names in rows for name in json.loads(names)))
+    frame = _frame_from_contents([content for content, _ in rows], columns)
+    graded = grade_batch(SampleBatch(frame, (), 1, f"ledger {path}"), ruleset, None)
+    return ruleset, tuple(f for f in graded.forecasts if f.unit_id == unit_id)
+
+
+def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", forecasts=(),
+                  ruleset: RuleSet | None = None) -> None:
+    """The unit's samples; in the table, then the forecasts (made under `ruleset`) if given."""
     if fmt == "csv":
         spreadsheet_frame(unit).to_csv(stream, index=False, lineterminator="\n")
     elif fmt == "jsonl":
@@ -196,6 +220,13 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table") 
         for row in fired.itertuples():
             lines.append(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
                          + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else ""))
+        if ruleset is not None:
+            told = forecast_lines(forecasts)
+            lines.extend(told or ["", "When will it cross? No forecast: no rule's next limit is forecast within the "
+                                      "horizon from this unit's current oil charge."])
+            lines.extend(wrapper()(f"(\"This sample\" is the latest, {unit['sample_id'].iloc[-1]}; the unit's "
+                                   f"samples were re-graded under rule set {ruleset.id} version {ruleset.version}, "
+                                   f"which graded it; nothing is recorded.)", "  "))
         stream.write("\n".join(terminal_lines(lines)) + "\n")
         stream.write("\n" + caution_text("! ") + "\n")
 

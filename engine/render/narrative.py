@@ -42,10 +42,22 @@ def _clause_line(clause) -> str:
     return f"{name} = {_number(clause.value)}, test {_limit_phrase(clause.test, clause.limit, None)}: {held}"
 
 
-def forecast_lines(forecasts, wrap) -> list[str]:
-    """The forecast paragraph: when the unit's current oil charge reaches each rule's next limit."""
+def wrapper(width: int = 88):
+    """Wraps a paragraph to `width`; a bullet ("- ") starts the first line only, continuation
+    lines line up under its text."""
+    def wrap(text: str, indent: str = "") -> list[str]:
+        following = indent.replace("-", " ")
+        return textwrap.wrap(text, width, initial_indent=indent, subsequent_indent=following) or [indent]
+    return wrap
+
+
+def forecast_lines(forecasts, wrap=None) -> list[str]:
+    """The forecast paragraph: when the unit's current oil charge reaches each rule's next limit.
+
+    `explain` and `history` both print it."""
     if not forecasts:
         return []
+    wrap = wrap or wrapper()
     lines = ["", "When will it cross? (this unit's current oil charge, fitted up to this sample):"]
     for f in forecasts:
         unit = f" {f.unit}" if f.unit else ""
@@ -65,10 +77,7 @@ def forecast_lines(forecasts, wrap) -> list[str]:
 def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecasts=()) -> list[str]:
     """The narrative of one sample's grade, reason by reason, with sources and cautions;
     `forecasts` (derive.forecast.Forecast, made from this sample) add their paragraph."""
-    def wrap(text: str, indent: str = "") -> list[str]:
-        # A bullet ("- ") starts the first line only; continuation lines line up under its text.
-        following = indent.replace("-", " ")
-        return textwrap.wrap(text, width, initial_indent=indent, subsequent_indent=following) or [indent]
+    wrap = wrapper(width)
 
     lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
              f"lubricant {result.lubricant or '(none)'}, sampled {result.sampled_on or '(date not given)'}"]
