@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
-from sumpwise.results.records import (FORMAT_1, FORMS, FULL, UNRATED, ColumnArrays, GradedBatch, build_result,
+from sumpwise.results.records import (FORMS, FULL, UNRATED, ColumnArrays, GradedBatch, build_result,
                                       caveat_at, condition_inputs, gap_at, reason_at, record_shape_groups, rule_inputs)
 
 _TOKEN = re.compile(r'"\\u0000sw(\d+)\\u0000"')
@@ -202,11 +202,9 @@ class _Block:
         return "".join(flat.tolist())
 
 
-def _split_at_lists(template: tuple[list[str], list], drop_tail: str) -> tuple[list, list[str]]:
-    """A record skeleton cut where its lists (reasons, caveats, gaps) go: the parts, the list names.
-
-    The line ends with a newline, after `drop_tail` (the record's last characters) is cut off.
-    """
+def _split_at_lists(template: tuple[list[str], list]) -> tuple[list, list[str]]:
+    """A record skeleton cut where its lists (reasons, caveats, gaps) go: the parts, the list names;
+    the last part ends the line."""
     chunks, wanted = template
     parts, names, start = [], [], 0
     for k, (kind, name) in enumerate(wanted):
@@ -214,18 +212,15 @@ def _split_at_lists(template: tuple[list[str], list], drop_tail: str) -> tuple[l
             parts.append((chunks[start:k + 1], wanted[start:k]))
             names.append(name)
             start = k + 1
-    end = chunks[-1]
-    if not end.endswith(drop_tail):
-        raise RuntimeError("a result record does not end with the tail it was asked to leave out")
-    parts.append((chunks[start:-1] + [end[:len(end) - len(drop_tail)] + "\n"], wanted[start:]))
+    parts.append((chunks[start:-1] + [chunks[-1] + "\n"], wanted[start:]))
     return parts, names
 
 
 class _Writer:
-    def __init__(self, batch: GradedBatch, drop_tail: str = "", form: str = FULL):
-        if form not in FORMS + (FORMAT_1,):
+    def __init__(self, batch: GradedBatch, form: str = FULL):
+        if form not in FORMS:
             raise ValueError(f"no record form {form!r}; expected one of {', '.join(FORMS)}")
-        self.batch, self.drop_tail, self.form = batch, drop_tail, form
+        self.batch, self.form = batch, form
         self.literals = _Literals(batch.columns)
         self.out = batch.outcome
         self.templates: dict = {}  # (kind, index, state...) -> template of a reason, gap or caveat
@@ -311,7 +306,7 @@ class _Writer:
                              reasons=pieces["reasons"], caveats=pieces["caveats"],
                              not_evaluated=pieces["gaps"],
                              unrated_because=values.slot("raw", "unrated_because") if unrated else None)
-            parts, names = _split_at_lists(_template(dumps(result.to_record(self.form)), values), self.drop_tail)
+            parts, names = _split_at_lists(_template(dumps(result.to_record(self.form)), values))
             if not self.list_slots:
                 self._lay_out(names)
             elif names != list(self.list_slots):
@@ -367,13 +362,12 @@ class _Writer:
         return np.array(table, dtype=object)[group_of]
 
 
-def jsonl_lines(batch: GradedBatch, block: int = 100_000, drop_tail: str = "", form: str = FULL):
+def jsonl_lines(batch: GradedBatch, block: int = 100_000, form: str = FULL):
     """Yield the JSON Lines text of the batch, a block of rows at a time, in input order.
 
-    `form` is the record form (records.FORMS; FORMAT_1 only to replay a ledger written before
-    formats). With `drop_tail`, the text every record ends with (the ledger stores it once) is left out.
+    `form` is the record form (records.FORMS).
     """
-    writer = _Writer(batch, drop_tail, form)
+    writer = _Writer(batch, form)
     n = len(batch)
     for start in range(0, n, block):
         yield writer.block_text(np.arange(start, min(n, start + block)))

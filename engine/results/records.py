@@ -6,8 +6,8 @@ Python API and for the bulk JSON Lines writer, so the two cannot drift apart.
 
 A record comes in two forms of one format (FORMAT): `full`, self-contained, with every
 message, source and the notice; and `compact`, every fact with the texts left to the
-fingerprinted rule set it names. `format-1` is the record before formats existed,
-kept only so that a ledger written then replays as it was written.
+fingerprinted rule set it names. (The ledger stores facts, not record text: ledgers of the
+record before formats are migrated to facts.)
 """
 
 from __future__ import annotations
@@ -25,8 +25,8 @@ from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, condition_meas
 UNRATED = "unrated"
 
 FORMAT = 2  # the record's format version; it grows when a record gains or loses a key
-FULL, COMPACT, FORMAT_1 = "full", "compact", "format-1"
-FORMS = (FULL, COMPACT)  # the forms a user may ask for; FORMAT_1 is for replaying old ledgers
+FULL, COMPACT = "full", "compact"
+FORMS = (FULL, COMPACT)
 
 # Derived values every record carries, graded or not: the ones the HTML report plots.
 PLOTTED_DERIVED = ("kv40_change_pct", "an_rise", "oxidation_rise")
@@ -173,17 +173,12 @@ class SampleResult:
 
     def to_record(self, form: str = FULL) -> dict:
         """The JSON Lines record; key names are the contract, key order is fixed per form."""
-        if form not in (FULL, COMPACT, FORMAT_1):
+        if form not in FORMS:
             raise ValueError(f"no record form {form!r}; expected one of {', '.join(FORMS)}")
-        record: dict = {} if form == FORMAT_1 else {"format": FORMAT, "form": form}
-        record.update(sample_id=self.sample_id, unit_id=self.unit_id)
+        record: dict = {"format": FORMAT, "form": form, "sample_id": self.sample_id, "unit_id": self.unit_id}
         record["class"] = self.class_name
-        record.update(lubricant=self.lubricant, sampled_on=self.sampled_on)
-        if form != FORMAT_1:
-            record["oil_changed"] = self.oil_changed
-        record["values"] = dict(self.values)
-        if form != FORMAT_1:
-            record["derived"] = dict(self.derived)
+        record.update(lubricant=self.lubricant, sampled_on=self.sampled_on, oil_changed=self.oil_changed,
+                      values=dict(self.values), derived=dict(self.derived))
         record.update(method=self.method, spectrum=self.spectrum, reference_spectrum=self.reference_spectrum,
                       grade=self.grade, level=self.level,
                       reasons=[r.to_record(form) for r in self.reasons],

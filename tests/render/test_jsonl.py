@@ -58,23 +58,6 @@ def test_bulk_writer_matches_records_on_random_samples_of_every_class():
     assert len(lines) == 2000
 
 
-def test_the_ledger_form_leaves_out_the_shared_tail_and_nothing_else():
-    import pytest
-
-    from sumpwise.render.jsonl import jsonl_lines
-    from sumpwise.version import engine_name
-    ruleset = load_ruleset(SITE)
-    graded = grade(read_samples(SAMPLES), ruleset)
-    tail = ", " + dumps({"notice": ruleset.notice, "ruleset": {"id": ruleset.id, "version": ruleset.version,
-                                                              "sha256": ruleset.sha256}, "engine": engine_name()})[1:]
-    full = "".join(jsonl_lines(graded)).splitlines()
-    heads = "".join(jsonl_lines(graded, drop_tail=tail)).splitlines()
-    assert len(heads) == len(full) == len(graded)
-    assert [head + tail for head in heads] == full
-    with pytest.raises(RuntimeError, match="does not end with the tail"):
-        next(jsonl_lines(graded, drop_tail=', "engine": "another"}'))
-
-
 def test_bulk_writer_spells_unchecked_cap_exceptions_like_the_records():
     # Ester rows with and without an acid number, and one without the new-oil value the
     # acid rise needs: each pattern of what the cap's exception lacked is its own shape.

@@ -4,6 +4,7 @@ The key list is the rule-language draft's "What a graded sample records"
 (../shared/rule-language.md); the counts are checked against the fixture's own rows.
 """
 
+import pytest
 from conftest import DATA, ROOT
 
 from sumpwise import grade, load_ruleset, read_samples
@@ -48,12 +49,12 @@ def test_find_and_grades_agree_with_the_records():
 def test_records_have_a_format_and_a_fixed_key_order_per_form():
     graded = grade(read_samples(SAMPLES), load_ruleset(SITE))
     result = graded.find("BP-0013")
-    full, compact, old = (list(result.to_record(form)) for form in ("full", "compact", "format-1"))
+    full, compact = (list(result.to_record(form)) for form in ("full", "compact"))
     assert full[:3] == ["format", "form", "sample_id"] and result.to_record()["format"] == 2
     assert full[-3:] == ["notice", "ruleset", "engine"]
     assert compact == [key for key in full if key != "notice"]
-    # format 1 is the record as it was before formats: what a ledger of that time stored
-    assert old == [key for key in full if key not in ("format", "form", "oil_changed", "derived")]
+    with pytest.raises(ValueError, match="no record form 'format-1'"):
+        result.to_record("format-1")
 
 
 def test_a_record_carries_the_oil_change_flag_and_the_acid_rise_from_its_own_new_oil_value():
