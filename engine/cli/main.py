@@ -38,7 +38,7 @@ from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
-from sumpwise.cli.options import output_file, output_folder, positive_mm
+from sumpwise.cli.options import output_file, output_folder, positive_mm, reject_count, row_count
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
 CHUNK_ROWS = 1_000_000  # rows `grade` reads, grades and writes at a time (see the README: large files)
@@ -101,7 +101,7 @@ def _parser(stdout) -> _Parser:
     grade.add_argument("--record", choices=FORMS, default=FULL,
                        help="JSON Lines record form: full (default; self-contained, every message, source and "
                             "the notice) or compact (every fact; texts by reference to the rule set it names)")
-    grade.add_argument("--chunk-rows", type=_positive_rows, default=CHUNK_ROWS, metavar="N",
+    grade.add_argument("--chunk-rows", type=row_count, default=CHUNK_ROWS, metavar="N",
                        help=f"read, grade and write the samples N rows at a time, so memory stays bounded "
                             f"(default {CHUNK_ROWS:,}; not with --db or --format table, which take the whole file)")
     grade.add_argument("--out", metavar="PATH", type=output_file,
@@ -114,7 +114,7 @@ def _parser(stdout) -> _Parser:
     grade.add_argument("--fail-on-caveat", metavar="CAVEAT", action="append", default=[],
                        help="exit 3 when any sample carries this caveat, e.g. unknown-lubricant: a sample graded "
                             "on less than it should can still grade normal (repeatable)")
-    grade.add_argument("--max-rejects", metavar="N", type=_count,
+    grade.add_argument("--max-rejects", metavar="N", type=reject_count,
                        help="exit 2 when more than N rows in all are rejected (results are still written)")
     grade.add_argument("--summary", metavar="FILE",
                        help="write the run's counts per file and in total, notes and warnings as JSON")
@@ -187,22 +187,6 @@ def _common_inputs(parser: argparse.ArgumentParser, rules_required: bool = True)
                              "are read by spectral subtraction (repeatable; wins over the rule set's)")
     parser.add_argument("--path-length", type=positive_mm, default=0.1, metavar="MM",
                         help="FTIR cell path length of the spectra, mm (default 0.100)")
-
-
-def _positive_rows(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number of rows, found {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected at least 1 row, found {text!r}")
-    return value
-
-
-def _count(text: str) -> int:
-    if not text.isdigit():
-        raise argparse.ArgumentTypeError(f"expected a whole number of rows (0 or more), found {text!r}")
-    return int(text)
 
 
 def main(argv=None, stdin=None, stdout=None, stderr=None) -> int:

@@ -22,15 +22,29 @@ def positive_mm(text: str) -> float:
         raise argparse.ArgumentTypeError(str(exc)) from None
 
 
-def batch_number(text: str) -> int:
-    """A ledger batch number: a whole number from 1."""
+def _whole_number(text: str, what: str, minimum: int) -> int:
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a batch number (1, 2, ...), found {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"batch numbers start at 1, found {text!r}")
+        raise argparse.ArgumentTypeError(f"expected {what}, found {text!r}") from None
+    if value < minimum:
+        raise argparse.ArgumentTypeError(f"expected {what} of at least {minimum}, found {text!r}")
     return value
+
+
+def batch_number(text: str) -> int:
+    """A ledger batch number: a whole number from 1."""
+    return _whole_number(text, "a batch number (1, 2, ...)", 1)
+
+
+def row_count(text: str) -> int:
+    """A number of rows a chunk holds: a whole number from 1."""
+    return _whole_number(text, "a whole number of rows", 1)
+
+
+def reject_count(text: str) -> int:
+    """How many rejected rows a run may have: a whole number from 0."""
+    return _whole_number(text, "a whole number of rows", 0)
 
 
 def iso_date(text: str) -> str:
