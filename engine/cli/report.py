@@ -8,7 +8,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from sumpwise.cli.options import batch_number, output_file
-from sumpwise.ledger.audit import stored_results
+from sumpwise.ledger.audit import stored_results, unit_forecasts
 from sumpwise.render.jsonl import dumps
 from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import COMPACT, next_step_record
@@ -84,7 +84,8 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
     From a ledger (`db`), the rule sets the results were graded with come from the ledger too,
     each sample with its own; `rules`, if given, must be one of them. Compact records need
     `rules`: their texts come from it. `forecasts` are the grading's own (Forecast records),
-    when the caller graded the samples itself; results files do not carry them.
+    when the caller graded the samples itself; from a ledger, each unit's stored samples are
+    re-graded for them (nothing is written); results files do not carry them.
     """
     rulesets = None
     ruleset = load_ruleset(rules) if rules else None
@@ -95,6 +96,9 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
             raise InputError(f"{rules}: rule set {ruleset.id} sha256 {ruleset.sha256[:12]}... graded none of the "
                              f"ledger's results; its limits would be drawn wrongly (leave out --rules: the "
                              f"ledger holds the rule sets it graded with)")
+        if not forecasts:  # the engine's own, from each unit's stored samples re-graded (as `history` shows them)
+            units = dict.fromkeys(r.unit_id for r in stored if r.unit_id is not None)
+            forecasts = [f.to_record() for unit in units for f in unit_forecasts(db, unit)[1]]
     else:
         records = parse_results(_text(results).splitlines(), str(results))
         if any(r.get("form") == COMPACT for r in records):
