@@ -91,10 +91,10 @@ PROBLEM_CODES = {
     "D014": "a number that is not finite (nan, inf, an overflow)",
     "D015": "a date that is not ISO 8601 or does not fit the declared date format",
     "D016": "a list or object where one value was expected",
-    "L001": "a sample id the ledger already recorded with other values",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",
+    "L001": "a sample id the ledger already recorded with other values",
 }
 
 
