@@ -37,6 +37,20 @@ _REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "
 _OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool}
 
 
+def _json_objects(lines, name: str, what: str):
+    """(line number, object) of each non-blank JSON Lines line; anything else is an InputError naming the line."""
+    for number, line in enumerate(lines, 1):
+        if not line.strip():
+            continue
+        try:
+            found = json.loads(line)
+        except json.JSONDecodeError as exc:
+            raise InputError(f"{name}: line {number}: not a JSON object: {exc.msg} at column {exc.colno}") from None
+        if not isinstance(found, dict):
+            raise InputError(f"{name}: line {number}: expected a JSON object ({what}), found {type(found).__name__}")
+        yield number, found
+
+
 def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
     """Result records from JSON Lines text (as `grade` writes them), checked field by field.
 
@@ -44,16 +58,7 @@ def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
     from several, because the ledger hands over each rule set with them.
     """
     records = []
-    for number, line in enumerate(lines, 1):
-        if not line.strip():
-            continue
-        try:
-            record = json.loads(line)
-        except json.JSONDecodeError as exc:
-            raise InputError(f"{name}: line {number}: not a JSON object: {exc.msg} at column {exc.colno}") from None
-        if not isinstance(record, dict):
-            raise InputError(f"{name}: line {number}: expected a JSON object (a result record), "
-                             f"found {type(record).__name__}")
+    for number, record in _json_objects(lines, name, "a result record"):
         for key, kind in _REQUIRED.items():
             if not isinstance(record.get(key), kind):
                 found = "nothing" if key not in record else type(record[key]).__name__
@@ -92,15 +97,7 @@ def parse_rejects(text: str, name: str) -> tuple:
         for number, row in enumerate(reader, 2):
             rows.append(_reject(row, name, number))
         return tuple(rows)
-    for number, line in enumerate(text.splitlines(), 1):
-        if not line.strip():
-            continue
-        try:
-            row = json.loads(line)
-        except json.JSONDecodeError as exc:
-            raise InputError(f"{name}: line {number}: not a JSON object: {exc.msg} at column {exc.colno}") from None
-        if not isinstance(row, dict):
-            raise InputError(f"{name}: line {number}: expected a JSON object (a rejected row)")
+    for number, row in _json_objects(text.splitlines(), name, "a rejected row"):
         rows.append(_reject(row, name, number))
     return tuple(rows)
 
