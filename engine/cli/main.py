@@ -41,7 +41,7 @@ from sumpwise.cli import report as report_command
 from sumpwise.cli.options import output_file, output_folder, positive_mm, reject_count, row_count
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
-CHUNK_ROWS = 1_000_000  # rows `grade` reads, grades and writes at a time (see the README: large files)
+CHUNK_ROWS = 200_000  # rows `grade` reads, grades and writes at a time: about 1 GB at most (README: large files)
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater"
 
