@@ -91,7 +91,7 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
         else:
             text = decode(data, columns.option("encoding"))
             utf8 = columns.option("encoding", "utf-8").replace("_", "-").lower() in ("utf-8", "utf8")
-            raw = (read_jsonl(text) if fmt == "jsonl" else
+            raw = (read_jsonl(text, lab_numeric) if fmt == "jsonl" else
                    read_csv(text, lab_numeric, columns.option("delimiter"), columns.option("decimal"),
                             data if utf8 else None))
     except InputError as exc:
