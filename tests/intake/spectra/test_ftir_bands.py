@@ -231,6 +231,8 @@ def test_packaged_band_file_names_the_published_set_and_marks_its_sources():
     # ASTM D7414 5.1 region; graded as a peak height (the direct unit, abs/0.1 mm, is D7414 1.4.1's)
     assert oxidation.region == (1670.0, 1800.0) and "D7414" in oxidation.source and oxidation.measure == "height"
     assert all(band.status for band in bands.bands)
+    # the peak fit's reach is our choice, justified against the methods' 4 cm-1 resolution (D7214 7.1)
+    assert "our choice" in bands.smoothing_source and "D7214" in bands.smoothing_source
 
 
 def test_user_band_file_overrides_the_packaged_one(tmp_path):
