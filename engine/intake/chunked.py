@@ -22,6 +22,7 @@ from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, read_samples
 from sumpwise.vocabulary.problems import InputError
 
 DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
+_BATCH_CHARS = 1 << 22  # lines read at a time while looking for a chunk's end
 _SEEN_AT = re.compile(r"^(sample id '.*' already seen at row )(\d+)$", re.S)
 
 
@@ -71,14 +72,26 @@ def _chunk_texts(stream, fmt: str, rows: int, name: str):
             raise InputError(f"{name}: the file is empty: expected a header row and data rows")
         fields = len(next(csv.reader([header]), []))
     lines, quotes, yielded = [first] if first else [], 0, False
-    for line in stream:
-        if len(lines) >= rows and quotes % 2 == 0 and (fmt != "csv" or _starts_well(line, fields)):
-            text = header + "".join(lines)
-            lines, quotes, yielded = [], 0, True  # the lines go before the chunk is graded
-            yield text
-        lines.append(line)
-        if fmt == "csv":
-            quotes += line.count('"')
+    while batch := stream.readlines(_BATCH_CHARS):  # lines split in C; a Python step only where a chunk may end
+        at = 0
+        while at < len(batch):
+            cut = at + max(rows - len(lines), 0)  # the first line before which this chunk may end
+            if cut >= len(batch):
+                cut = len(batch)
+            lines.extend(batch[at:cut])
+            if fmt == "csv":
+                quotes += "".join(batch[at:cut]).count('"')
+            if cut == len(batch):
+                break
+            line = batch[cut]
+            if quotes % 2 == 0 and (fmt != "csv" or _starts_well(line, fields)):
+                text = header + "".join(lines)
+                lines, quotes, yielded = [], 0, True  # the lines go before the chunk is graded
+                yield text
+            lines.append(line)
+            if fmt == "csv":
+                quotes += line.count('"')
+            at = cut + 1
     if lines or not yielded:
         yield header + "".join(lines)
 
