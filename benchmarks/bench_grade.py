@@ -160,7 +160,8 @@ def main() -> None:
     rules = sum(len(ruleset.rules_for(c)) for c in ruleset.classes)
     with tempfile.TemporaryDirectory() as folder:
         folder = Path(folder)
-        csv_path = write_csv(ruleset, args.rows, folder / "samples.csv")
+        # dated a day per 100,000 rows: each unit's samples in date order across grade's default chunks
+        csv_path = write_csv(ruleset, args.rows, folder / "samples.csv", dated=True)
         n = args.rows
         print(f"{n:,} samples, {len(ruleset.classes)} classes, {rules} rules in all ({len(ruleset.caveats)} "
               f"caveats); CSV {csv_path.stat().st_size / 1e6:.0f} MB; numpy {np.__version__}, pandas "

@@ -345,6 +345,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 levels = graded.outcome.level
                 found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
                 found_unrated |= bool((levels < 0).any())
+                graded = levels = None  # before the next chunk is read
             stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades))
             files.append(tally.summary())
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
@@ -425,10 +426,11 @@ def _graded_batches(args, stdin, source, ruleset, columns, stderr):
         chunks = sample_chunks(source, None, columns, args.input_format, ruleset.measures, args.chunk_rows)
     references = parse_references(args.reference)
     said: list = []
-    read = (measure_sample_spectra(batch, ruleset, references, args.path_length) for batch in chunks)
+    read = map(lambda batch: measure_sample_spectra(batch, ruleset, references, args.path_length), chunks)
     for graded in grade_in_chunks(_noting(read, said), ruleset):
         notes, said[:] = tuple(said), []
         yield graded, notes, 0
+        graded = None  # memory holds one chunk at a time: each reference to it goes before the next is read
 
 
 def _noting(batches, said: list):
@@ -438,6 +440,7 @@ def _noting(batches, said: list):
         said.extend(note for note in batch.notes if note not in seen)
         seen.update(batch.notes)
         yield batch
+        batch = None
 
 
 def _write_records(args, graded, out, stderr, header: bool) -> None:

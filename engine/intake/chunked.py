@@ -51,6 +51,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             batch = seen.check(batch)
             offset += batch.rows_read
             yield batch
+            batch = None  # let the chunk go before the next one is read (memory holds one chunk, not two)
     except UnicodeDecodeError as exc:
         raise InputError(f"{name}: cannot read the file: {exc}") from None
     finally:

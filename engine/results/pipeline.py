@@ -87,6 +87,7 @@ def grade_in_chunks(batches, ruleset: RuleSet):
         graded = grade_batch(batch, ruleset, history)
         history = _latest_per_unit(history, graded.measured, bases)
         yield graded
+        graded = batch = None  # let the chunk go before the next one is read
 
 
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
