@@ -5,7 +5,9 @@ It reads the samples CSV with the csv module, grades each row with the per-row o
 at a time: what someone would write without sumpwise's column-wise engine. It writes the
 same bytes as sumpwise for clean CSV input without trend measures or spectra (the
 benchmark's data; bench_grade.py checks that the two outputs are equal), and validates
-nothing: bad rows, unit maps, trends and spectra are out of its scope.
+nothing: bad rows, unit maps, trends, forecasts and spectra are out of its scope. Each record
+names its origin (the file as given and the row: the N-th line after the header) and makes
+no forecast (`forecasts: []`): the benchmark's samples have no dated oil charge to fit.
 
     .venv/bin/python benchmarks/peer_per_row.py SAMPLES.csv --rules RULESET --out RESULTS.jsonl
 """
@@ -73,6 +75,20 @@ def limit_of(limit):
     return list(limit) if isinstance(limit, tuple) else limit
 
 
+def unit_of(measure: str):
+    return DERIVED_MEASURES[measure].unit if measure in DERIVED_MEASURES else INPUT_MEASURES.get(measure)
+
+
+def with_unit(record: dict, measure: str) -> dict:
+    """A clause with its measure's unit after the value, when the measure has one."""
+    unit = unit_of(measure)
+    if not unit:
+        return record
+    items = list(record.items())
+    at = [key for key, _ in items].index("value") + 1
+    return dict(items[:at] + [("unit", unit)] + items[at:])
+
+
 def clause(leaf, sample: dict) -> dict:
     held = truth(leaf, sample) is True
     if isinstance(leaf, FieldTest):
@@ -81,11 +97,13 @@ def clause(leaf, sample: dict) -> dict:
         return {"field": leaf.field, "value": value, "test": leaf.test, "limit": limit, "held": held}
     value = _plain(sample["numbers"].get(leaf.measure))
     if isinstance(leaf, MissingTest):
-        return {"measure": leaf.measure, "value": value, "test": "missing", "limit": leaf.missing, "held": held}
-    return {"measure": leaf.measure, "value": value, "test": leaf.test, "limit": limit_of(leaf.limit), "held": held}
+        return with_unit({"measure": leaf.measure, "value": value, "test": "missing", "limit": leaf.missing,
+                          "held": held}, leaf.measure)
+    return with_unit({"measure": leaf.measure, "value": value, "test": leaf.test, "limit": limit_of(leaf.limit),
+                      "held": held}, leaf.measure)
 
 
-def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
+def record(ruleset, row: dict, value_names: list, derived_names: list, origin: dict) -> dict:
     sample = derive_row(row, ruleset.lubricants)
     numbers, texts = sample["numbers"], sample["texts"]
     lubricant = ruleset.lubricants.get(texts.get("lubricant"))
@@ -136,8 +154,7 @@ def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
         reason = {"rule": rule.id}
         if isinstance(rule, LadderRule):
             reason.update(measure=rule.measure, value=_plain(value))
-            unit = DERIVED_MEASURES[rule.measure].unit if rule.measure in DERIVED_MEASURES else \
-                INPUT_MEASURES.get(rule.measure)
+            unit = unit_of(rule.measure)
             if unit:
                 reason["unit"] = unit
             reason.update(test=rule.test, limit=limit_of(dict(rule.steps)[raw]))
@@ -152,16 +169,17 @@ def record(ruleset, row: dict, value_names: list, derived_names: list) -> dict:
     levels = [-key for key, _, _ in reasons]
     level = max(levels + [0]) if evaluated else None
     caveats.extend(engine_caveats(ruleset, texts.get("lubricant"), class_name, gaps))
-    out = {"format": 2, "form": "compact", "sample_id": texts.get("sample_id"), "unit_id": texts.get("unit_id"),
+    out = {"format": 3, "form": "compact", "sample_id": texts.get("sample_id"), "unit_id": texts.get("unit_id"),
            "class": class_name, "lubricant": texts.get("lubricant"), "sampled_on": texts.get("sampled_on"),
-           "oil_changed": FLAGS.get((texts.get("oil_changed") or "").lower(), False),
+           "origin": origin, "oil_changed": FLAGS.get((texts.get("oil_changed") or "").lower(), False),
            "values": {name: _plain(numbers.get(name)) for name in value_names},
+           "iso4406": texts.get("iso4406"),
            "derived": {name: _plain(numbers.get(name)) for name in derived_names},
            "method": texts["method"], "spectrum": texts.get("spectrum"),
            "reference_spectrum": texts.get("reference_spectrum"),
            "grade": ruleset.grades[level] if level is not None else "unrated", "level": level,
            "reasons": [reason for _, _, reason in sorted(reasons, key=lambda item: item[:2])],
-           "caveats": caveats, "not_evaluated": gaps}
+           "caveats": caveats, "not_evaluated": gaps, "forecasts": []}
     if level is None:
         out["unrated_because"] = unrated_because(ruleset, class_name, gaps)
     out.update(ruleset={"id": ruleset.id, "version": ruleset.version, "sha256": ruleset.sha256},
@@ -227,7 +245,8 @@ def main(argv=None) -> None:
         if "oxidation" in value_names and "method" in reader.fieldnames and "oxidation_differential" not in value_names:
             value_names.append("oxidation_differential")  # a subtraction reading is recorded under its own name
         for row in reader:
-            out.write(json.dumps(record(ruleset, row, value_names, derived_names), ensure_ascii=False,
+            origin = {"file": args.samples, "row": reader.line_num - 1}  # the line after the header
+            out.write(json.dumps(record(ruleset, row, value_names, derived_names, origin), ensure_ascii=False,
                                  separators=(", ", ": "), allow_nan=False) + "\n")
 
 

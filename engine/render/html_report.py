@@ -3,7 +3,8 @@
 No scripts, fonts, images or links to anything outside the file: it opens from a USB
 stick and prints. The report renders, it does not compute: every plotted value, grade,
 oil change and next step is read from the records the engine wrote (`derived` and
-`values`, `oil_changed` and the `oil-changed` caveat, the reasons). The rule set, when
+`values`, `oil_changed` and the `oil-changed` caveat, the reasons, the forecasts a record
+carries, the ISO 4406 code as the lab wrote it). The rule set, when
 given, says which measures each class's rules read (those are plotted) and where its
 ladder limits lie (those are drawn); without it the plots follow the records' findings.
 Trend plots are inline SVG (svg_plot.py), always against the sample date.
@@ -25,7 +26,7 @@ from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
-from sumpwise.render.narrative import step_phrase
+from sumpwise.render.narrative import rounded, step_phrase
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
                                       render_plot)
 
@@ -34,7 +35,8 @@ OIL_CHANGED_CAVEAT = "oil-changed"  # the caveat the engine raises on the first 
 
 _REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "ruleset": dict, "engine": str}
 # Keys a record may lack (older formats, the compact form) but that must have this type when present.
-_OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool}
+_OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool, "origin": dict, "iso4406": str,
+             "forecasts": list}
 
 
 def _json_objects(lines, name: str, what: str):
@@ -364,7 +366,15 @@ def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
     parts = [record["sample_id"], record.get("sampled_on") or ""]
     if isinstance(hours, (int, float)) and not isinstance(hours, bool):
         parts.append(f"oil hours {hours:g}")
-    return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}"
+    code = f" (code as written {record['iso4406']})" if measure.startswith("iso4406_") and record.get("iso4406") else ""
+    return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}{code}"
+
+
+def recorded_forecasts(records) -> list[dict]:
+    """The forecasts the records carry (format 3: each on the sample it was made from; older
+    records carry none), each with its unit and sample as the carrying record names them."""
+    return [dict(f, unit_id=record.get("unit_id"), sample_id=record["sample_id"])
+            for record in records for f in record.get("forecasts") or ()]
 
 
 def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: dict) -> tuple:
@@ -384,10 +394,13 @@ def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: 
 
 
 def forecast_text(f: dict) -> str:
-    """A forecast in words, with its band and the number of samples it was fitted on."""
+    """A forecast in words, with its band and the number of samples it was fitted on (oil hours
+    to 3 significant figures: the record keeps them in full)."""
     unit = f" {f['unit']}" if f.get("unit") else ""
+    hours = f"{rounded(f['at_hours'])} oil hours" if f.get("at_hours") is not None else ""
+    when = f"{f['on']} ({hours})" if f.get("on") and hours else f.get("on") or hours or "(no date or hours)"
     return (f"{f['rule']}: {f['measure']} reaches the {f['grade']} limit ({_number(f['limit'])}{unit}) about "
-            f"{f.get('on') or _number(f.get('at_hours')) + ' oil hours'}; band {f.get('on_low') or 'now'} to "
+            f"{when}; band {f.get('on_low') or 'now'} to "
             f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge")
 
 
@@ -598,17 +611,21 @@ def _reason_rows(record: dict, ladder: Ladder) -> str:
             limit = escape(limit_text(reason.get("test"), reason.get("limit"), unit))
         else:
             clauses = reason.get("clauses") or []
-            value = "<ul class='tight'>" + "".join(
+            value = "<ul class='tight'>" + "".join(  # each clause's unit is its measure's (format 3)
                 f"<li>{escape(c.get('measure') or c.get('field') or '')} = <b>{escape(_number(c.get('value')))}"
-                f"</b></li>" for c in clauses) + "</ul>"
+                f"</b>{escape(_unit_after(c))}</li>" for c in clauses) + "</ul>"
             limit = "<ul class='tight'>" + "".join(
-                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit')))}"
+                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit'), c.get('unit')))}"
                 f": {'holds' if c.get('held') else 'does not hold'}</li>" for c in clauses) + "</ul>"
         rows.append(f"<tr class='reason'><td><b>{escape(reason['rule'])}</b><br><span class='reason-msg'>"
                     f"{escape(reason.get('message') or '')}</span></td><td>{grade}</td><td>{value}</td>"
                     f"<td>{limit}</td><td class='src'>{escape(reason.get('source') or '')}</td></tr>")
     return ("<table class='grid reasons'><thead><tr><th>rule</th><th>grade</th><th>value</th><th>limit</th>"
             "<th>source</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+
+
+def _unit_after(clause: dict) -> str:
+    return f" {clause['unit']}" if clause.get("unit") and clause.get("value") is not None else ""
 
 
 def next_steps(record: dict) -> list[tuple[str, str]]:
@@ -632,6 +649,11 @@ def _latest(record: dict, ladder: Ladder) -> str:
         facts.append(f"oil hours {hours:g}")
     if record.get("method") and record["method"] != "direct":
         facts.append(f"oxidation by {record['method']}")
+    if record.get("iso4406"):
+        facts.append(f"ISO 4406 {record['iso4406']} as written")
+    origin = record.get("origin") or {}
+    if origin.get("file"):
+        facts.append(f"from {origin['file']}" + (f" row {origin['row']}" if origin.get("row") is not None else ""))
     parts = [f'<article class="latest" data-sample="{escape(record["sample_id"])}" '
              f'style="border-left-color:{grade_look(level).colour}">',
              f'<h4>Latest sample {escape(record["sample_id"])}: {_grade_cell(record["grade"], level)} '
@@ -666,7 +688,7 @@ def _finding_text(reason: dict) -> str:
     capped = f" (capped from {reason['capped_from']})" if reason.get("capped_from") else ""
     if "measure" in reason:
         return f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))}"
-    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}"
+    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}{_unit_after(c)}"
                      for c in reason.get("clauses") or () if c.get("held"))
     return f"{reason['rule']} {reason['grade']}{capped}: {held}"
 
@@ -748,11 +770,11 @@ def _plot_key(ruleset: RuleSet | None) -> str:
 
 
 def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: str = "",
-                  rejects_given: bool = True, forecasts=(), rulesets: dict | None = None) -> str:
+                  rejects_given: bool = True, rulesets: dict | None = None) -> str:
     """The whole report as one HTML document; `records` are result records as `grade` writes them.
 
-    `forecasts` are the engine's forecasts of when a unit's charge reaches a limit, as dicts
-    (derive.forecast.Forecast.to_record); each is drawn on its unit's plot and listed in its card.
+    The engine's forecasts of when a unit's charge reaches a limit are those the records carry
+    (recorded_forecasts); each is drawn on its unit's plot and listed in its card.
     Records graded under several rule sets need `rulesets`, every one of them by fingerprint
     (as a ledger hands them over); each unit is then drawn against its latest sample's own.
     """
@@ -781,6 +803,7 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
     notice = " ".join(notices) or (ruleset.notice if ruleset is not None else
                                    "the records do not carry the rule set's notice; read it in the rule set")
     views = unit_views(records, ruleset, rulesets)
+    forecasts = recorded_forecasts(records)
     heading = title or (ruleset.title if ruleset is not None else f"Graded samples, rule set {meta['id']}"
                         if len(graded_by) == 1 else f"Graded samples, {len(graded_by)} rule sets")
     dates = sorted(r["sampled_on"] for r in records if r.get("sampled_on"))

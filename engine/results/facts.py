@@ -71,6 +71,9 @@ class _Slots:
     def flag(self, name: str, i: int) -> _Slot:
         return _Slot("flag", name)
 
+    def row(self, i: int) -> _Slot:  # not a fact: the ledger keeps no row of a graded sample
+        return _Slot("row", "row")
+
 
 class _Value:
     """A real per-sample value, marked so it lands in the values array, not in the shape."""
@@ -271,11 +274,15 @@ def _filled(item, values: list):
 
 
 def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet, engine: str,
-                      names: dict) -> SampleResult:
+                      names: dict, source: str | None = None) -> SampleResult:
     """A stored result with its wording put back from the rule set it was graded with.
 
     `shape` is a parsed shape, `values` its parsed values array (ending with what `names`
-    lists, see record_names), `sample` the sample's stored input fields (name -> value).
+    lists, see record_names), `sample` the sample's stored input fields (name -> value),
+    `source` the file its batch was read from. What the facts do not hold, the result says so:
+    its row is None (a ledger keeps no row of a graded sample) and its forecasts None (none
+    are stored; `report --db` re-grades a unit's samples for them). Clause units are the rule
+    set's, as grading gives them.
     """
     value_names, derived_names = list(names.get("values", ())), list(names.get("derived", ()))
     oil_changed = bool(values[-1]) if names.get("oil_changed") else False
@@ -291,7 +298,8 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
     for r in shape["reasons"]:
         rule = rules[r["rule"]]
         clauses = tuple(Clause(c["test"], c["limit"], c["held"], _filled(c["value"], values), measure=c["measure"],
-                               field=c["field"]) for c in r.get("clauses", ()))
+                               field=c["field"], unit=(ruleset.unit_of(c["measure"]) or None) if c["measure"] else None)
+                        for c in r.get("clauses", ()))
         reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), rule.message, rule.source,
                               measure=r.get("measure"), value=_filled(r.get("value"), values), unit=r.get("unit"),
                               test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),
@@ -317,7 +325,8 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
         values=tuple((name, _number(value)) for name, value in recorded),
         method=_text(sample.get("method")), spectrum=_text(sample.get("spectrum")),
         reference_spectrum=_text(sample.get("reference_spectrum")), oil_changed=oil_changed, derived=derived,
-        comment=_text(sample.get("comment")), comment_given="comment" in sample)
+        comment=_text(sample.get("comment")), comment_given="comment" in sample, file=source,
+        iso4406=_text(sample.get("iso4406")), forecasts=None)
 
 
 def _text(value):

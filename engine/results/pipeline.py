@@ -23,11 +23,13 @@ from sumpwise.derive.trends import (CHAIN_COLUMNS, TREND_CAVEATS, add_trend_meas
 from sumpwise.vocabulary.problems import InputError
 
 
-def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None) -> GradedBatch:
+def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None,
+                forecasts: bool = True) -> GradedBatch:
     """Derive measures for the accepted rows and evaluate the rule set over them.
 
     Trend measures compare each sample with its unit's previous one: within the batch, after the
     earlier samples in `history` (trends.CHAIN_COLUMNS and the measures; a ledger supplies it).
+    `forecasts=False` makes none (its records then say null, not an empty list).
     """
     batch = read_cleanliness_codes(read_oil_changes(batch))
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
@@ -55,7 +57,8 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
         carried += ("oxidation_differential",)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
                        TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS,
-                       forecast(measured, ruleset), recorded_derived(ruleset, measured))
+                       forecast(measured, ruleset) if forecasts else (), recorded_derived(ruleset, measured),
+                       forecasts)
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:
@@ -77,16 +80,26 @@ def grade_in_chunks(batches, ruleset: RuleSet):
     samples in earlier chunks; a sample that would sort before its unit's carried sample is
     refused with an InputError (sort the file by date, or use larger chunks), never graded
     against the wrong predecessor.
+
+    Forecasts are made only when the file is one chunk: a forecast is fitted over a unit's
+    whole current oil charge and carried by the unit's latest sample, which an earlier chunk
+    cannot know. So the next chunk is read before a chunk is graded, and the records of a file
+    of several chunks say `forecasts: null` (forecasts not made), never a partial fit.
     """
     bases = trend_bases(ruleset)
     history = None
-    for batch in batches:
+    batches = iter(batches)
+    batch, whole = next(batches, None), True
+    while batch is not None:
+        following = next(batches, None)
+        whole = whole and following is None
         batch = read_oil_changes(batch)
         if history is not None and len(history):
             _check_order(batch, history)
-        graded = grade_batch(batch, ruleset, history)
+        graded = grade_batch(batch, ruleset, history, forecasts=whole)
         history = _latest_per_unit(history, graded.measured, bases)
         yield graded
+        batch = following
 
 
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:

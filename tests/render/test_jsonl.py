@@ -23,6 +23,13 @@ def test_bulk_writer_matches_each_record_byte_for_byte():
     for line, result in zip(lines, graded.results()):
         assert line == dumps(result.to_record())
         assert json.loads(line)["sample_id"] == result.sample_id
+    # the scenario's forecasts and cleanliness codes are in it: each forecast on the one record it was made from
+    records = [json.loads(line) for line in lines]
+    assert sum(len(r["forecasts"]) for r in records) == len(graded.forecasts) > 0
+    assert all(f["sample_id"] == r["sample_id"] for r in records for f in r["forecasts"])
+    assert any(r["iso4406"] for r in records)
+    compact = "".join(jsonl_lines(graded, form="compact")).splitlines()
+    assert compact == [dumps(result.to_record("compact")) for result in graded.results()]
 
 
 def test_awkward_text_is_escaped():
@@ -139,7 +146,7 @@ def test_compact_records_are_the_same_bytes_across_processes(tmp_path):
         outputs.append(target.read_bytes())
     assert outputs[0] == outputs[1]
     first = json.loads(outputs[0].splitlines()[0])
-    assert first["format"] == 2 and first["form"] == "compact" and "notice" not in first
+    assert first["format"] == 3 and first["form"] == "compact" and "notice" not in first
 
 
 def test_the_record_option_names_a_json_lines_form():
