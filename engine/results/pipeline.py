@@ -104,8 +104,8 @@ def grade_in_chunks(batches, ruleset: RuleSet):
 
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """(date, oil hours) sort keys as trends order samples: unreadable dates and missing hours last."""
-    dates = pd.to_datetime(pd.Series(frame["sampled_on"].to_numpy(dtype=object), dtype=object), errors="coerce",
-                           format="ISO8601")
+    written = frame["sampled_on"].to_numpy(dtype=object) if "sampled_on" in frame else np.full(len(frame), None)
+    dates = pd.to_datetime(pd.Series(written, dtype=object), errors="coerce", format="ISO8601")
     keys = np.where(dates.isna().to_numpy(), _LAST, dates.to_numpy(dtype="datetime64[ns]").view(np.int64))
     hours = frame["oil_hours"].to_numpy(dtype=float) if "oil_hours" in frame else np.full(len(frame), np.nan)
     return keys, np.where(np.isnan(hours), np.inf, hours)
