@@ -611,11 +611,11 @@ def _reason_rows(record: dict, ladder: Ladder) -> str:
             limit = escape(limit_text(reason.get("test"), reason.get("limit"), unit))
         else:
             clauses = reason.get("clauses") or []
-            value = "<ul class='tight'>" + "".join(  # each clause's unit is its measure's (format 3)
+            value = "<ul class='tight'>" + "".join(  # each clause's value with its measure's unit (vocabulary)
                 f"<li>{escape(c.get('measure') or c.get('field') or '')} = <b>{escape(_number(c.get('value')))}"
                 f"</b>{escape(_unit_after(c))}</li>" for c in clauses) + "</ul>"
             limit = "<ul class='tight'>" + "".join(
-                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit'), c.get('unit')))}"
+                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit'), _clause_unit(c)))}"
                 f": {'holds' if c.get('held') else 'does not hold'}</li>" for c in clauses) + "</ul>"
         rows.append(f"<tr class='reason'><td><b>{escape(reason['rule'])}</b><br><span class='reason-msg'>"
                     f"{escape(reason.get('message') or '')}</span></td><td>{grade}</td><td>{value}</td>"
@@ -624,8 +624,14 @@ def _reason_rows(record: dict, ladder: Ladder) -> str:
             "<th>source</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
 
 
+def _clause_unit(clause: dict) -> str | None:
+    """A clause's unit: its measure's, from the vocabulary (a clause record names no unit)."""
+    return (measure_unit(clause["measure"]) or None) if clause.get("measure") else None
+
+
 def _unit_after(clause: dict) -> str:
-    return f" {clause['unit']}" if clause.get("unit") and clause.get("value") is not None else ""
+    unit = _clause_unit(clause)
+    return f" {unit}" if unit and isinstance(clause.get("value"), (int, float)) else ""
 
 
 def next_steps(record: dict) -> list[tuple[str, str]]:

@@ -7,6 +7,7 @@ import textwrap
 
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
+from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.results.records import SampleResult
 from sumpwise.render.safe_text import terminal_lines
 
@@ -52,7 +53,7 @@ def _limit_phrase(test: str, limit, unit: str | None) -> str:
 def _clause_line(clause) -> str:
     name = clause.measure or clause.field
     held = "holds" if clause.held else "does not hold"
-    unit = getattr(clause, "unit", None)
+    unit = measure_unit(clause.measure) if clause.measure else None  # the vocabulary's unit of the measure
     shown = f"{_number(clause.value)} {unit}" if unit and clause.value is not None else _number(clause.value)
     if clause.test == "missing":
         wanted = "is missing" if clause.limit else "is present"

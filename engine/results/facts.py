@@ -281,8 +281,7 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
     lists, see record_names), `sample` the sample's stored input fields (name -> value),
     `source` the file its batch was read from. What the facts do not hold, the result says so:
     its row is None (a ledger keeps no row of a graded sample) and its forecasts None (none
-    are stored; `report --db` re-grades a unit's samples for them). Clause units are the rule
-    set's, as grading gives them.
+    are stored; `report --db` re-grades a unit's samples for them).
     """
     value_names, derived_names = list(names.get("values", ())), list(names.get("derived", ()))
     oil_changed = bool(values[-1]) if names.get("oil_changed") else False
@@ -298,8 +297,7 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
     for r in shape["reasons"]:
         rule = rules[r["rule"]]
         clauses = tuple(Clause(c["test"], c["limit"], c["held"], _filled(c["value"], values), measure=c["measure"],
-                               field=c["field"], unit=(ruleset.unit_of(c["measure"]) or None) if c["measure"] else None)
-                        for c in r.get("clauses", ()))
+                               field=c["field"]) for c in r.get("clauses", ()))
         reasons.append(Reason(r["rule"], r["grade"], grades.index(r["grade"]), rule.message, rule.source,
                               measure=r.get("measure"), value=_filled(r.get("value"), values), unit=r.get("unit"),
                               test=r.get("test"), limit=r.get("limit"), capped_from=r.get("capped_from"),

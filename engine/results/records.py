@@ -10,8 +10,8 @@ fingerprinted rule set it names. (The ledger stores facts, not record text: ledg
 record before formats are migrated to facts.)
 
 Format 3 added `origin` (the file and row a sample came from, spelt as the rejects file
-spells them), `iso4406` (the cleanliness code as the lab wrote it, or null), `forecasts`
-(the engine's forecasts made from this sample: see `forecast_rows`) and each clause's `unit`.
+spells them), `iso4406` (the cleanliness code as the lab wrote it, or null) and `forecasts`
+(the engine's forecasts made from this sample: see `forecast_rows`).
 A reader of records takes format 2 records too: they lack those keys.
 """
 
@@ -48,14 +48,10 @@ class Clause:
     value: object = None
     measure: str | None = None
     field: str | None = None
-    unit: str | None = None  # the measure's unit (as a reason's), so a clause's value is read with it
 
     def to_record(self) -> dict:
         record = {"measure": self.measure} if self.measure else {"field": self.field}
-        record["value"] = self.value
-        if self.unit:
-            record["unit"] = self.unit
-        record.update(test=self.test, limit=self.limit, held=self.held)
+        record.update(value=self.value, test=self.test, limit=self.limit, held=self.held)
         return record
 
 
@@ -470,12 +466,10 @@ def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
                                   held, value, field=leaf.field))
         elif leaf.kind == "missing":
             value = values.number(leaf.measure, i) if not _is_missing(batch, leaf.measure, i) else None
-            clauses.append(Clause("missing", leaf.missing, held, value, measure=leaf.measure,
-                                  unit=rs.unit_of(leaf.measure) or None))
+            clauses.append(Clause("missing", leaf.missing, held, value, measure=leaf.measure))
         else:
             value = values.number(leaf.measure, i) if known[at] else None
-            clauses.append(Clause(leaf.test, _limit_value(leaf.limit), held, value, measure=leaf.measure,
-                                  unit=rs.unit_of(leaf.measure) or None))
+            clauses.append(Clause(leaf.test, _limit_value(leaf.limit), held, value, measure=leaf.measure))
     return Reason(rule.id, grades[final], final, rule.message, rule.source,
                   capped_from=capped_from, capped_by=capped_by, clauses=tuple(clauses), next_step=rule.next_step)
 

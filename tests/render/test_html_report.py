@@ -571,3 +571,16 @@ def test_an_oil_change_flagged_in_the_samples_file_is_drawn(tmp_path):
     water = next(p for p in unit_plots(view, Ladder.of(records, ruleset)) if p.title == "water")
     assert [[p.label.split(" · ")[0] for p in run] for run in water.runs] == [["A", "B"], ["C"]]
     assert len(water.marks) == 1 and water.marks[0].label == "oil changed"
+
+
+def test_condition_clauses_show_each_value_and_limit_with_its_measures_unit():
+    # BP-0412 of the rule-language draft: young-oil-oxidising holds on oil_hours 1500 h (below 2000 h) and
+    # oxidation_rise 19 abs/cm (above 10 abs/cm); the units are the measure table's (engine/vocabulary/measures.py)
+    from sumpwise import grade, read_samples
+    from sumpwise.render.jsonl import dumps
+    ruleset = load_ruleset(ROOT / "tests" / "data" / "rulesets" / "draft.yaml")
+    record = json.loads(dumps(grade(read_samples(ROOT / "tests" / "data" / "samples" / "draft-record.csv"), ruleset)
+                              .result(0).to_record()))
+    html = _flat(render_report([record], (), ruleset))
+    assert "oil_hours = 1500 h" in html and "below 2000 h: holds" in html
+    assert "oxidation_rise = 19 abs/cm" in html and "above 10 abs/cm: holds" in html
