@@ -151,3 +151,19 @@ def test_the_report_shows_the_cleanliness_code_as_written(demo):
     for unit, record in latest.items():
         assert record["iso4406"]  # the demo's hydraulic units carry codes as the lab wrote them
         assert f"ISO 4406 {record['iso4406']} as written" in sections[unit]
+
+
+def test_records_rebuilt_from_the_ledger_say_what_it_holds(demo):
+    # a ledger keeps the batch's source and the sample's fields, not its row or forecasts: the rebuilt
+    # record names the file with "row": null and says "forecasts": null (not made), never an empty list
+    from sumpwise.ledger.audit import stored_results
+    from sumpwise.render.jsonl import dumps
+    results, _ = stored_results(demo["ledger"])
+    written = {r["sample_id"]: r for r in demo["records"]}
+    assert len(results) == len(written)
+    for result in results:
+        record = json.loads(dumps(result.to_record()))
+        assert record["format"] == 3 and record["forecasts"] is None
+        assert record["origin"] == {"file": written[record["sample_id"]]["origin"]["file"], "row": None}
+        assert record["iso4406"] == written[record["sample_id"]]["iso4406"]
+    assert any(r["iso4406"] for r in written.values())
