@@ -69,6 +69,8 @@ def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
             if key in record and record[key] is not None and not isinstance(record[key], kind):
                 raise InputError(f"{name}: line {number}: field '{key}': expected {kind.__name__}, "
                                  f"found {type(record[key]).__name__}")
+        for k, forecast in enumerate(record.get("forecasts") or ()):
+            _check_forecast(forecast, f"{name}: line {number}", f"forecasts[{k}]")
         level = record.get("level", "absent")
         if not (level is None or (isinstance(level, int) and not isinstance(level, bool) and level >= 0)):
             raise InputError(f"{name}: line {number}: field 'level': expected a whole number >= 0 or null, "
@@ -86,6 +88,30 @@ def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
     if not records:
         raise InputError(f"{name}: no result records in the file")
     return tuple(records)
+
+
+_FORECAST_NUMBERS = ("limit", "value")
+_FORECAST_TEXTS = ("rule", "measure", "grade")
+_FORECAST_OPTIONAL = {"on": str, "on_low": str, "on_high": str, "at_hours": (int, float), "unit": str}
+
+
+def _check_forecast(forecast, where: str, field: str) -> None:
+    """A forecast as a record carries it (derive.forecast.Forecast.to_record): what the report reads."""
+    if not isinstance(forecast, dict):
+        raise InputError(f"{where}: field '{field}': expected an object, found {type(forecast).__name__}")
+    for key in _FORECAST_TEXTS:
+        if not isinstance(forecast.get(key), str):
+            raise InputError(f"{where}: field '{field}.{key}': expected text, "
+                             f"found {type(forecast.get(key)).__name__}")
+    for key in _FORECAST_NUMBERS:
+        if isinstance(forecast.get(key), bool) or not isinstance(forecast.get(key), (int, float)):
+            raise InputError(f"{where}: field '{field}.{key}': expected a number, "
+                             f"found {type(forecast.get(key)).__name__}")
+    for key, kind in _FORECAST_OPTIONAL.items():
+        value = forecast.get(key)
+        if value is not None and (isinstance(value, bool) or not isinstance(value, kind)):
+            raise InputError(f"{where}: field '{field}.{key}': expected {'a number' if kind != str else 'text'} "
+                             f"or null, found {type(value).__name__}")
 
 
 def parse_rejects(text: str, name: str) -> tuple:

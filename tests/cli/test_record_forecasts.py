@@ -167,3 +167,14 @@ def test_records_rebuilt_from_the_ledger_say_what_it_holds(demo):
         assert record["origin"] == {"file": written[record["sample_id"]]["origin"]["file"], "row": None}
         assert record["iso4406"] == written[record["sample_id"]]["iso4406"]
     assert any(r["iso4406"] for r in written.values())
+
+
+@pytest.mark.parametrize("forecasts, field", [([1], "forecasts[0]"), ([{"rule": "iron", "measure": "iron"}],
+                                                                    "forecasts[0].grade"),
+                                             ("soon", "forecasts")])
+def test_a_malformed_forecast_in_a_results_file_is_an_error_naming_line_and_field(demo, tmp_path, forecasts, field):
+    records = [dict(r) for r in demo["records"][:3]]
+    records[1]["forecasts"] = forecasts
+    (tmp_path / "bad.jsonl").write_text("".join(json.dumps(r) + "\n" for r in records), encoding="utf-8")
+    run = run_cli("report", "--results", tmp_path / "bad.jsonl", "--out", tmp_path / "bad.html")
+    assert run.code == 2 and f"bad.jsonl: line 2: field '{field}" in run.err and "Traceback" not in run.err
