@@ -235,6 +235,9 @@ class _Writer:
         rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
         self.list_sizes = {"reasons": top * rules, "caveats": self.out.caveats.shape[1], "gaps": rules}
         self.list_slots: dict = {}  # list name -> its items' slots in the line, set with the first skeleton
+        carried = sorted(batch.forecast_rows.items())  # the rows whose records carry forecasts, in order
+        self.forecast_rows = np.array([row for row, _ in carried], dtype=np.int64)
+        self.forecast_texts = [", ".join(dumps(f.to_record()) for f in found) for _, found in carried]
         self.part_slots: list = []  # skeleton part p -> its slot
 
     def _reason_state(self, j: int, rows: np.ndarray) -> list[np.ndarray]:
@@ -367,11 +370,7 @@ class _Writer:
 
     def _forecast_items(self, rows: np.ndarray) -> np.ndarray:
         """The items of each row's `forecasts` list: empty but for each unit's latest sample."""
-        if not hasattr(self, "_forecasts"):  # each carrying row's text once, in row order
-            carried = sorted(self.batch.forecast_rows.items())
-            self._forecasts = (np.array([row for row, _ in carried], dtype=np.int64),
-                               [", ".join(dumps(f.to_record()) for f in found) for _, found in carried])
-        carriers, texts = self._forecasts
+        carriers, texts = self.forecast_rows, self.forecast_texts
         items = np.full(len(rows), "", dtype=object)
         if len(rows) and len(carriers):  # rows: a block, in order
             start, stop = np.searchsorted(carriers, [rows[0], rows[-1] + 1])
