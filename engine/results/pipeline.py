@@ -83,23 +83,26 @@ def grade_in_chunks(batches, ruleset: RuleSet):
 
     Forecasts are made only when the file is one chunk: a forecast is fitted over a unit's
     whole current oil charge and carried by the unit's latest sample, which an earlier chunk
-    cannot know. So the next chunk is read before a chunk is graded, and the records of a file
-    of several chunks say `forecasts: null` (forecasts not made), never a partial fit.
+    cannot know. So the next chunk is read after a chunk is graded and before it is yielded
+    (its samples are held while the chunk is written: about one chunk's input more memory),
+    and the records of a file of several chunks say `forecasts: null` (forecasts not made),
+    never a partial fit.
     """
     bases = trend_bases(ruleset)
     history = None
     batches = iter(batches)
-    batch, whole = next(batches, None), True
+    batch, first = next(batches, None), True
     while batch is not None:
-        following = next(batches, None)
-        whole = whole and following is None
         batch = read_oil_changes(batch)
         if history is not None and len(history):
             _check_order(batch, history)
-        graded = grade_batch(batch, ruleset, history, forecasts=whole)
+        graded = grade_batch(batch, ruleset, history, forecasts=False)
         history = _latest_per_unit(history, graded.measured, bases)
+        following = next(batches, None)
+        if first and following is None:  # the whole file in one chunk: its forecasts are whole
+            graded = replace(graded, forecasts=forecast(graded.measured, ruleset), forecasts_made=True)
         yield graded
-        batch = following
+        batch, first = following, False
 
 
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
