@@ -102,6 +102,10 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
 
     lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
              f"lubricant {result.lubricant or '(none)'}, sampled {result.sampled_on or '(date not given)'}"]
+    read = ([f"Read from {result.file}, row {result.row}"] if result.row is not None else []) + (
+        [f"ISO 4406 code as written {result.iso4406}"] if result.iso4406 else [])
+    if read:
+        lines.extend(wrap("; ".join(read) + ".", "  "))
     if result.comment:
         lines.extend(wrap(f"Lab comment: {result.comment}", "  "))
     if result.level is None:

@@ -128,3 +128,11 @@ def test_the_cleanliness_code_is_recorded_as_the_lab_wrote_it(tmp_path):
     assert records["W4"]["iso4406"] is None  # an empty cell: no code, and the key is still there
     # beside it, the scale numbers the engine derived from it (ISO 4406: one number per size, '-' not reported)
     assert [records["W3"]["derived"].get(f"iso4406_{size}") for size in ("4um", "6um", "14um")] == [None, 19.0, 16.0]
+
+
+def test_explain_says_where_the_sample_was_read_and_its_code_as_written(tmp_path):
+    a, _ = _files(tmp_path)
+    run = run_cli("explain", "W3", "--samples", a, "--rules", SITE)
+    assert run.code == 0, run.err
+    text = " ".join(run.out.split())
+    assert f"Read from {a}, row 4; ISO 4406 code as written -/19/16." in text
