@@ -345,7 +345,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 levels = graded.outcome.level
                 found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
                 found_unrated |= bool((levels < 0).any())
-                graded = levels = None  # before the next chunk is read
+                graded = levels = None  # before the next chunk is graded
             stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades))
             files.append(tally.summary())
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
@@ -430,7 +430,7 @@ def _graded_batches(args, stdin, source, ruleset, columns, stderr):
     for graded in grade_in_chunks(_noting(read, said), ruleset):
         notes, said[:] = tuple(said), []
         yield graded, notes, 0
-        graded = None  # memory holds one chunk at a time: each reference to it goes before the next is read
+        graded = None  # each reference to a graded chunk goes before the next chunk is graded
 
 
 def _noting(batches, said: list):
@@ -511,8 +511,7 @@ def _demo(args, stdin, stdout, stderr) -> int:
     rejects_path = out_dir / "brackwater-rejects.jsonl"
     _write_rejects(batch, rejects_path, stderr)
     report_path = out_dir / "brackwater-report.html"
-    report_command.write_report(results_path, report_path, rejects_path, rules,
-                                forecasts=[f.to_record() for f in graded.forecasts])
+    report_command.write_report(results_path, report_path, rejects_path, rules)
 
     grades = list(ruleset.grades) + ["unrated"]
     table = Counter(zip(graded.measured["class"].fillna("(none)"), graded.grades()))

@@ -554,9 +554,11 @@ def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
 
 
 def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list[tuple]:
-    """(content, facts, vals, ruleset sha256, engine, value names) of the current samples, or of one batch."""
+    """(content, facts, vals, ruleset sha256, engine, value names, batch source) of the current samples, or of
+    one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    return conn.execute(f"SELECT s.content, sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names {_JOINS} "
+    return conn.execute(f"SELECT s.content, sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names, b.source "
+                        f"{_JOINS} "
                         f"WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ()).fetchall()
 
 
