@@ -99,7 +99,8 @@ def _records(text: str, delimiter: str) -> tuple[np.ndarray, np.ndarray]:
         if not len(ends) or ends[-1] != len(data) - 1:
             ends = np.append(ends, len(data))
         starts = np.concatenate([[0], ends[:-1] + 1])
-        counts = np.add.reduceat(data == ord(delimiter), starts, dtype=np.int64) + 1  # delimiters a line, + 1
+        before = np.searchsorted(np.flatnonzero(data == ord(delimiter)), ends)  # delimiters before each line end
+        counts = np.diff(before, prepend=0) + 1
         for k in np.flatnonzero(counts == 1):  # no delimiter: blank (or spaces only) or one field
             if not data[starts[k]:ends[k]].tobytes().strip():
                 counts[k] = 0
