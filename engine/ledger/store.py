@@ -30,7 +30,8 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.derive.cleanliness import read_cleanliness_codes
-from sumpwise.derive.trends import CHAIN_COLUMNS, read_oil_changes
+from sumpwise.derive.row_measures import derive_measures
+from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.ledger.schema import MIGRATIONS, batch_digest, fingerprint, shape_ids
 from sumpwise.results.facts import batch_facts, record_names
@@ -328,26 +329,51 @@ def _current_entries(conn: sqlite3.Connection, sample_ids) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=columns)
 
 
-def history_frame(conn: sqlite3.Connection, units, before_batch: int | None = None) -> pd.DataFrame:
-    """Earlier samples of `units` as trends read them (trends.CHAIN_COLUMNS and the trend bases).
+def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batch: int | None = None) -> pd.DataFrame:
+    """Earlier samples of `units` as trends read them: trends.CHAIN_COLUMNS and every measure
+    `ruleset` trends (its declared measures, particle counts and ISO 4406 numbers, differential
+    oxidation included).
 
-    With `before_batch`, the ledger as it stood when that batch was recorded (for replay).
+    Each sample's values are derived again from its stored input values (its fingerprinted
+    content), under `ruleset`, as the batch being graded is: a fixed set of table columns
+    cannot hold the measures rule sets declare. With `before_batch`, the ledger as it stood
+    when that batch was recorded (for replay).
     """
     _fill_temp(conn, "wanted_units", units)
-    columns = list(CHAIN_COLUMNS) + list(TREND_BASES)
-    sql = (f"SELECT {', '.join('s.' + c for c in columns)} FROM samples s "
-           f"JOIN temp.wanted_units u ON s.unit_id = u.value ")
+    sql = ("SELECT s.content, b.columns FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
+           "JOIN batches b ON b.batch = s.batch ")
     if before_batch is None:
         rows = conn.execute(sql + "WHERE s.superseded_in IS NULL ORDER BY s.entry").fetchall()
     else:
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
-    frame = pd.DataFrame(rows, columns=columns)
-    frame["oil_changed"] = frame["oil_changed"].astype(bool)
-    for name in ("oil_hours",) + TREND_BASES:
-        frame[name] = pd.to_numeric(frame[name], errors="coerce").astype(float)
-    for name in ("sample_id", "unit_id", "sampled_on", "method", "lab"):
-        frame[name] = frame[name].astype(object).where(frame[name].notna(), None)
+    return stored_measures([content for content, _ in rows],
+                           list(dict.fromkeys(name for _, names in rows for name in json.loads(names))), ruleset)
+
+
+def stored_measures(contents: list, columns: list, ruleset: RuleSet) -> pd.DataFrame:
+    """Stored samples' trend inputs (CHAIN_COLUMNS and the rule set's trend bases), derived from
+    their stored input values exactly as grading derives them."""
+    bases = trend_bases(ruleset)
+    if not contents:
+        return pd.DataFrame({name: pd.Series(dtype=float if name in ("oil_hours",) + bases else object)
+                             for name in list(CHAIN_COLUMNS) + list(bases)}).astype({"oil_changed": bool})
+    batch = read_cleanliness_codes(read_oil_changes(SampleBatch(frame_from_contents(contents, columns), (),
+                                                                len(contents), "ledger")))
+    measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
+    return chain_frame(measured, batch.frame.get("oil_changed"), bases).reset_index(drop=True)
+
+
+def frame_from_contents(contents, columns: list) -> pd.DataFrame:
+    """Stored sample values back into the frame samples.py made of them (floats, text or None, flags)."""
+    contents = list(contents)
+    frame = pd.DataFrame.from_records(json.loads("[" + ",".join(contents) + "]") if contents else [])
+    frame = frame.reindex(columns=columns)
+    for name in frame.columns:
+        column = frame[name]
+        if column.dtype == object:
+            frame[name] = column.where(column.notna(), None)
+    frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
     return frame
 
 
@@ -426,7 +452,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
         known, differs = known[~conflicts], differs[~conflicts]
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
-    history = history_frame(conn, units)
+    history = history_frame(conn, units, ruleset)
     history = history[~history["sample_id"].isin(ids)]
     graded = grade_batch(batch, ruleset, history)
     fresh = ~known
@@ -510,12 +536,14 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
 
 
 def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
-    """The current samples of a unit with their verdicts, in trend order (date, then oil hours)."""
+    """The current samples of a unit with their verdicts, stored values and batch columns, in
+    trend order (date, then oil hours)."""
     rows = conn.execute(
-        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT} {_JOINS} "
-        "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry",
+        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, s.content, b.columns, b.ruleset_sha256 "
+        f"{_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry",
         (unit_id,)).fetchall()
-    return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals"])
+    return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",
+                                                             "ruleset_sha256"])
 
 
 def batch_list(conn: sqlite3.Connection) -> list[dict]:

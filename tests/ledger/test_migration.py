@@ -60,9 +60,14 @@ def test_a_ledger_written_before_the_change_is_migrated_in_place_and_replays_cle
     db = tmp_path / "old.db"
     shutil.copyfile(OLD_LEDGER, db)
     report = replay(db)
-    assert {d.sample_id for d in report.differences} == set(ENGINE_CHANGES)
-    assert all("its reasons, caveats or gaps differ" in d.what and "an engine change, not an alteration" in d.what
-               for d in report.differences)  # told apart from tampering: the rows' fingerprints hold
+    assert report.differences == () and report.integrity == ()  # nothing altered, nothing failing
+    assert {d.sample_id for d in report.engine_changes} == set(ENGINE_CHANGES)
+    assert all("recorded by sumpwise 0.1.0" in d.what and "an engine change, not an alteration" in d.what
+               for d in report.engine_changes)  # told apart from tampering: the batch's digest holds
+    what = {d.sample_id: d.what for d in report.engine_changes}
+    assert "caveats: recorded none, now unknown-class" in what["BP-0225"]
+    assert "fired: recorded carbonyl-rise=urgent, acid-rise=watch, carbonyl-rising-fast=watch, now acid-rise=watch" \
+        in what["BP-0260"]
     assert (report.checked, report.batches, report.rulesets) == (329, 4, 2)
     conn = open_ledger(db)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
@@ -88,3 +93,16 @@ def test_the_migrated_verdicts_are_the_records_the_old_ledger_held(tmp_path):
         record, old_record = json.loads(dumps(result.to_record())), json.loads(stored[result.sample_id])
         # Every key the old record had, with the same value (a newer record may carry more keys).
         assert {key: record.get(key) for key in old_record} == old_record, result.sample_id
+
+
+def test_replay_of_the_old_ledger_exits_clean_and_lists_the_engine_changes_strict_fails(tmp_path):
+    from tests.conftest import run_cli
+    db = tmp_path / "old.db"
+    shutil.copyfile(OLD_LEDGER, db)
+    run = run_cli("replay", "--db", db)
+    assert run.code == 0, run.out
+    assert "integrity: clean" in run.out
+    listed = [line.split(" (batch ")[0] for line in run.out.splitlines() if line.startswith("engine change: ")]
+    assert listed == [f"engine change: {sid}" for sid in sorted(ENGINE_CHANGES)]
+    assert "reproducibility: 325 result(s) graded as recorded; 4 graded otherwise than an older engine" in run.out
+    assert run_cli("replay", "--db", db, "--strict").code == 3
