@@ -24,10 +24,10 @@ import pandas as pd
 from sumpwise.derive.trends import trend_bases
 from sumpwise.intake.samples import SampleBatch
 from sumpwise.ledger.schema import batch_digest, fingerprint, result_from_record  # noqa: F401 (API)
-from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch_rejects, current_contents,
-                                   current_verdicts, find_entries, frame_from_contents, history_frame, open_ledger,
-                                   reads_ledger, ruleset_text, sample_entries, stored_measures, stored_rulesets,
-                                   unit_entries)
+from sumpwise.ledger.store import (BATCH_COLUMNS, LedgerError, batch_entries, batch_list, batch_rejects,
+                                   current_contents, current_verdicts, find_entries, frame_from_arrays,
+                                   frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
+                                   ruleset_text, sample_entries, stored_measures, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.version import engine_name
 from sumpwise.render.narrative import explain_lines, forecast_lines, wrapper
@@ -103,12 +103,13 @@ def trend_table(unit: pd.DataFrame, extra: tuple = ()) -> list[str]:
 def _trended_values(unit: pd.DataFrame, ruleset: RuleSet) -> tuple[pd.DataFrame, tuple]:
     """The unit with a column for each measure `ruleset` trends beyond the key values (a declared
     wear metal, a particle count, a differential reading), derived from the stored input values."""
-    extra = tuple(base for base in trend_bases(ruleset) if base not in dict((k, 0) for k, _, _ in _KEY_VALUES))
-    if not extra or not len(unit):
+    key = tuple(name for name, _, _ in _KEY_VALUES)
+    extra = tuple(base for base in trend_bases(ruleset) if base not in key)
+    if not len(unit):
         return unit, ()
     columns = list(dict.fromkeys(name for names in unit["columns"] for name in json.loads(names)))
-    measured = stored_measures(unit["content"].tolist(), columns, ruleset)
-    unit = unit.assign(**{name: measured[name].to_numpy() for name in extra})
+    measured = stored_measures(unit["content"].tolist(), columns, ruleset, key)
+    unit = unit.assign(**{name: measured[name].to_numpy() for name in key + extra})
     return unit, tuple(name for name in extra if unit[name].notna().any())
 
 
@@ -221,8 +222,9 @@ def unit_forecasts(path, unit_id: str) -> tuple[RuleSet | None, tuple]:
         if not len(unit):
             return None, ()
         latest = next(v for v in sample_entries(conn, unit["sample_id"].iloc[-1]) if v["superseded_in"] is None)
-        rows = conn.execute("SELECT s.content, b.columns FROM samples s JOIN batches b ON b.batch = s.batch "
-                            "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.entry", (unit_id,)).fetchall()
+        rows = [(object_text(content, form, names), names) for content, form, names in conn.execute(
+            "SELECT s.content, b.form, b.columns FROM samples s JOIN batches b ON b.batch = s.batch "
+            "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.entry", (unit_id,))]
     finally:
         conn.close()
     ruleset = _ruleset_of(path, latest)
@@ -310,21 +312,23 @@ def older_engine(recorded) -> bool:
 _TYPED = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "method", "lab") + TREND_BASES
 
 
-def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame) -> np.ndarray:
+def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame, form: int) -> np.ndarray:
     """Rows whose typed columns (what history and queries read) hold a value that is neither the
     stored input value nor what recording them now would write (the re-graded measured frame):
     an engine that derives a column differently since is not an alteration, a value from
-    nowhere is."""
+    nowhere is. A form-2 batch leaves the reading columns empty."""
     bad = np.zeros(len(entries), dtype=bool)
-    for name in _TYPED:
-        stored = pd.Series(entries[name].to_numpy(dtype=object), dtype=object)
+    if form != 1:
+        for name in TREND_BASES:
+            bad |= entries[name].notna().to_numpy()
+    for name in _TYPED if form == 1 else _TYPED[:-len(TREND_BASES)]:
+        stored = entries[name].to_numpy(dtype=object)
         same = np.zeros(len(entries), dtype=bool)
         for source in (measured, frame):
             if name in source.columns:
-                same |= _same(stored, pd.Series(source[name].to_numpy(dtype=object), index=stored.index,
-                                                dtype=object), numeric=name in ("oil_hours",) + TREND_BASES)
+                same |= _same(stored, source[name].to_numpy(dtype=object), numeric=name in ("oil_hours",) + TREND_BASES)
             elif source is measured:
-                same |= stored.isna().to_numpy()
+                same |= pd.isna(stored)
         bad |= ~same
     flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
         else np.zeros(len(frame), dtype=bool)
@@ -332,11 +336,19 @@ def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.Dat
     return bad
 
 
-def _same(a: pd.Series, b: pd.Series, numeric: bool) -> np.ndarray:
+def _same(a: np.ndarray, b: np.ndarray, numeric: bool) -> np.ndarray:
+    """Equal values, or both missing; text compares as text (a value of another type by its str())."""
     if numeric:
-        a, b = pd.to_numeric(a, errors="coerce"), pd.to_numeric(b, errors="coerce")
+        a, b = pd.to_numeric(pd.Series(a), errors="coerce"), pd.to_numeric(pd.Series(b), errors="coerce")
         return ((a == b) | (a.isna() & b.isna())).to_numpy()
-    return ((a.isna() & b.isna()) | (a.notna() & b.notna() & (a.astype(str) == b.astype(str)))).to_numpy()
+    gone_a, gone_b = pd.isna(a), pd.isna(b)
+    both = ~gone_a & ~gone_b
+    equal = np.zeros(len(a), dtype=bool)
+    equal[both] = a[both] == b[both]
+    other = both & ~equal
+    if other.any():
+        equal[other] = [str(x) == str(y) for x, y in zip(a[other], b[other])]
+    return (gone_a & gone_b) | equal
 
 
 def _facts_differ(stored: dict, facts, k: int) -> str:
@@ -390,7 +402,14 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
             if batch["previous"] != previous:
                 differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
                                                             "one before it (a batch was deleted, added or altered)"))
-            digest = batch_digest(conn, number)
+            entries, columns = batch_entries(conn, number)
+            if batch["form"] == 1:
+                written = {1: list(zip(*(columns[BATCH_COLUMNS.index(n)] for n in
+                                         ("entry", "sample_id", "content_sha256", "corrects"))))}
+            else:
+                written = {1: columns[:BATCH_COLUMNS.index("superseded_in")]}
+            del columns
+            digest = batch_digest(conn, number, written)
             if digest != batch["digest"]:
                 differences.append(Difference(None, number, "its stored rows no longer match the batch's digest "
                                                             "(a row altered, added or deleted after recording)"))
@@ -399,7 +418,6 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
             if head is not None and number == head[0] and batch["digest"] != head[1]:
                 differences.append(Difference(None, number, f"its digest is not the one noted ({head[1][:16]}...): "
                                                             f"the chain was rewritten at or before this batch"))
-            entries = batch_entries(conn, number)
             if len(entries) != batch["new_samples"] + batch["corrections"]:
                 differences.append(Difference(None, number, f"it holds {len(entries)} sample(s) but recorded "
                                                             f"{batch['new_samples'] + batch['corrections']}"))
@@ -443,19 +461,23 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
 
     A re-grade that differs is an engine change only when an older engine recorded it and the
     batch is intact (its digest and place in the chain hold); else it fails the replay."""
-    number = batch["batch"]
-    altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
-               != entries["content_sha256"].to_numpy(dtype=object))
+    number, form = batch["batch"], batch["form"]
+    if form == 1:
+        altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
+                   != entries["content_sha256"].to_numpy(dtype=object))
+    else:  # form 2: the digest covers the values themselves
+        altered = np.zeros(len(entries), dtype=bool)
     try:
-        frame = frame_from_contents(entries["content"], json.loads(batch["columns"]))
-    except (ValueError, TypeError):
+        read = frame_from_contents if form == 1 else frame_from_arrays
+        frame = read(entries["content"], json.loads(batch["columns"]))
+    except (ValueError, TypeError, AssertionError):
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
                                          "recording); its samples were not re-graded")]
     units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
     history = history_frame(conn, units, ruleset, before_batch=number)
     history = history[~history["sample_id"].isin(entries["sample_id"])]
     graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
-    typed = _typed_mismatch(entries, graded.measured, frame)
+    typed = _typed_mismatch(entries, graded.measured, frame, form)
     facts = batch_facts(graded, json.loads(batch["value_names"]))
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
               "vals": entries["vals"].to_numpy(dtype=object),
@@ -475,7 +497,7 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
         elif typed[k]:
             found.append(Difference(sid, number, "its stored columns no longer match its stored values "
                                                  "(altered after recording)"))
-        elif stored["facts"][k] is None:
+        elif pd.isna(stored["facts"][k]):
             found.append(Difference(sid, number, "its verdict is missing (deleted, or its shape is gone)"))
         else:
             why = _facts_differ(stored, facts, k) or "its verdict differs"
@@ -487,11 +509,13 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
             elif intact and batch["engine"] == engine_name():
                 found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}, the engine replaying "
                                                      f"it: not reproduced)", REPRODUCIBILITY))
-            else:
+            elif not intact:
                 found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}; the batch's digest or "
-                                                     f"its place in the chain does not hold, or that engine is not "
-                                                     f"older than {engine_name()}: not reproduced)",
-                                        REPRODUCIBILITY))
+                                                     f"its place in the chain does not hold: altered after "
+                                                     f"recording?)", REPRODUCIBILITY))
+            else:
+                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}, which is not older "
+                                                     f"than {engine_name()}: not reproduced)", REPRODUCIBILITY))
     return found
 
 

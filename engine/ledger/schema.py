@@ -115,6 +115,17 @@ STEP_3 = """
     ALTER TABLE batches ADD COLUMN value_names TEXT NOT NULL DEFAULT '[]';
 """
 
+# 4: a batch's storage form. Form 1 (every batch before this step): a sample's values as a
+# canonical JSON object with its SHA-256, the readings also in typed columns, digest 1. Form 2:
+# a sample's values as a JSON array in the order of the batch's `columns` (the names once a
+# batch), no per-sample fingerprint and no typed reading columns (the digest covers the values
+# themselves), digest 2. Explain finds a sample's versions through the current one's
+# corrections, so the index on every sample id goes.
+STEP_4 = """
+    ALTER TABLE batches ADD COLUMN form INTEGER NOT NULL DEFAULT 1;
+    DROP INDEX samples_sample;
+"""
+
 DIGEST_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
     "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names FROM batches "
@@ -128,14 +139,38 @@ DIGEST_QUERIES = (
 )
 DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chunk is hashed as its repr)
 
+# Digest 2 (form-2 batches): every column a batch writes, the batch's own row with its form,
+# spelled column by column as JSON (exact for SQLite's values, escaped, and C-fast), a chunk
+# of DIGEST_2_ROWS rows at a time: per column, json.dumps(list of values) then 0x1f; 0x1e
+# after each query. Frozen like the steps.
+DIGEST_2_QUERIES = (
+    "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
+    "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form FROM batches "
+    "WHERE batch = ?",
+    "SELECT entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, method, lab, kv40, kv100, an, bn, "
+    "oxidation, nitration, sulfation, antiwear, soot, water, rpvot, content, content_sha256, corrects FROM samples "
+    "WHERE batch = ? ORDER BY entry",
+    DIGEST_QUERIES[2],
+    DIGEST_QUERIES[3],
+)
+DIGEST_2_ROWS = 100_000
+DIGEST_2_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
+                           "method", "lab", "kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation",
+                           "antiwear", "soot", "water", "rpvot", "content", "content_sha256", "corrects")
+
 
 def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = None) -> str:
-    """SHA-256 over the batch's rows as stored, in a fixed order and spelling (Python's repr).
+    """SHA-256 over the batch's rows as stored, in a fixed order and spelling: digest 1 (Python's
+    repr of row chunks) for a form-1 batch, digest 2 (JSON, column by column) for any other.
 
-    `written` maps a query's index to the rows it would return, when the caller has just
-    written them and holds them with the types SQLite gives back (recording a batch);
-    replay always reads them back.
+    `written` maps a query's index to the rows it would return (digest 1) or to its columns as
+    lists (digest 2), when the caller has just written them and holds them with the types
+    SQLite gives back (recording a batch); replay always reads them back.
     """
+    has_form = any(row[1] == "form" for row in conn.execute("PRAGMA table_info(batches)"))  # from step 4 on
+    row = conn.execute("SELECT form FROM batches WHERE batch = ?", (batch,)).fetchone() if has_form else None
+    if row is not None and row[0] != 1:
+        return _digest_2(conn, batch, written)
     digest = hashlib.sha256()
     for k, query in enumerate(DIGEST_QUERIES):
         if written is not None and k in written:
@@ -148,6 +183,28 @@ def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = No
                 digest.update(repr(chunk).encode("utf-8"))
         digest.update(b"\x1e")
     return digest.hexdigest()
+
+
+def _digest_2(conn: sqlite3.Connection, batch: int, written: dict | None) -> str:
+    digest = hashlib.sha256()
+    for k, query in enumerate(DIGEST_2_QUERIES):
+        if written is not None and k in written:
+            columns = written[k]
+            n = len(columns[0]) if columns else 0
+            for start in range(0, n, DIGEST_2_ROWS):
+                for column in columns:
+                    digest.update(_spelled(column[start:start + DIGEST_2_ROWS]))
+        else:
+            cursor = conn.execute(query, (batch,))
+            while chunk := cursor.fetchmany(DIGEST_2_ROWS):
+                for column in zip(*chunk):
+                    digest.update(_spelled(list(column)))
+        digest.update(b"\x1e")
+    return digest.hexdigest()
+
+
+def _spelled(values: list) -> bytes:
+    return json.dumps(values, ensure_ascii=False).encode("utf-8", "surrogatepass") + b"\x1f"
 
 
 def fingerprint(text: str) -> str:
@@ -236,4 +293,4 @@ def _step_3_data(conn: sqlite3.Connection) -> None:
 
 
 # (SQL, then a data step or None), in order.
-MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data))
+MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data), (STEP_4, None))

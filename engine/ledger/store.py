@@ -33,7 +33,7 @@ from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import MIGRATIONS, batch_digest, fingerprint, shape_ids
+from sumpwise.ledger.schema import DIGEST_2_SAMPLE_COLUMNS, MIGRATIONS, batch_digest, fingerprint, shape_ids
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
@@ -44,7 +44,7 @@ from sumpwise.vocabulary.problems import InputError
 
 DEFAULT_PATH = "sumpwise.db"
 APPLICATION_ID = 0x53574C47  # "SWLG": marks the file as a sumpwise ledger
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 PAGE_SIZE = 16384  # bytes; a new ledger only (SQLite keeps a file's page size): bulk imports write faster
 CACHE_KIB = 262144  # page cache of a writing run: index pages stay in memory while a large batch is stored
 BUSY_SECONDS = 60.0  # how long a run waits for another run's transaction before giving up
@@ -262,30 +262,40 @@ def sample_contents(frame: pd.DataFrame, block: int = 50_000) -> np.ndarray:
     Each column gives every row one piece, `"name": value, ` or "" where the value is missing,
     each distinct value spelled once; a block of rows' pieces is joined in one pass and split
     at the row ends (blocks keep each joined text small, which keeps this linear in the rows).
+    This is a form-1 sample's stored text, and what tells a known sample from a changed one.
     """
-    n = len(frame)
-    pieces = [np.full(n, "{", dtype=object)]
-    pieces += [_content_pieces(name, frame[name]) for name in sorted(frame.columns)]
-    pieces.append(np.full(n, "}\n", dtype=object))
-    table = np.stack(pieces, axis=1)
+    pieces = [_content_pieces(json.dumps(name, ensure_ascii=False) + ": ", ", ", "", frame[name])
+              for name in sorted(frame.columns)]
+    return _rows(len(frame), "{", pieces, ", }\n", "}\n", block)
+
+
+def sample_arrays(frame: pd.DataFrame, block: int = 50_000) -> np.ndarray:
+    """Each row's input values as a JSON array in the frame's column order, null where missing:
+    a form-2 sample's stored text (the names are kept once, in the batch's `columns`)."""
+    pieces = [_content_pieces("", ",", "null,", frame[name]) for name in frame.columns]
+    return _rows(len(frame), "[", pieces, ",]\n", "]\n", block)
+
+
+def _rows(n: int, opening: str, pieces: list, trailing: str, closing: str, block: int) -> np.ndarray:
+    table = np.stack([np.full(n, opening, dtype=object), *pieces, np.full(n, closing, dtype=object)], axis=1)
     contents = np.empty(n, dtype=object)
     for start in range(0, n, block):
         text = "".join(table[start:start + block].ravel().tolist())
-        # A raw newline only ends a row (JSON escapes it elsewhere), so ", }\n" is always a row's trailing comma.
-        contents[start:start + block] = text.replace(", }\n", "}\n").split("\n")[:-1]
+        # A raw newline only ends a row (JSON escapes it elsewhere), so `trailing` is always a row's last comma.
+        contents[start:start + block] = text.replace(trailing, closing).split("\n")[:-1]
     return contents
 
 
-def _content_pieces(name: str, column: pd.Series) -> np.ndarray:
-    key = json.dumps(name, ensure_ascii=False) + ": "
+def _content_pieces(key: str, comma: str, missing: str, column: pd.Series) -> np.ndarray:
+    """Every row's piece of one column: `key`, the value as JSON and `comma`, or `missing`."""
     if column.dtype == bool:
-        return np.array([key + "false, ", key + "true, "], dtype=object)[column.to_numpy().astype(np.intp)]
+        return np.array([key + "false" + comma, key + "true" + comma], dtype=object)[column.to_numpy().astype(np.intp)]
     if column.dtype.kind in "fiu":
         values = column.to_numpy(dtype=float)
         # Factorized by bit pattern, so -0.0 keeps its own spelling; missing and infinite values are left out.
         codes, uniques = pd.factorize(np.where(np.isfinite(values), values, np.nan).view(np.int64))
-        spelled = [key + repr(v) + ", " if np.isfinite(v) else "" for v in uniques.view(float).tolist()]
-        return np.array(spelled + [""], dtype=object)[codes]
+        spelled = [key + repr(v) + comma if np.isfinite(v) else missing for v in uniques.view(float).tolist()]
+        return np.array(spelled + [missing], dtype=object)[codes]
     values = column.astype(object)
     present = values.notna().to_numpy()
     codes, uniques = pd.factorize(values.to_numpy(dtype=object))
@@ -294,20 +304,33 @@ def _content_pieces(name: str, column: pd.Series) -> np.ndarray:
     codes[~present] = -1
     uniques = np.asarray(uniques, dtype=object)
     if _NEEDS_ESCAPE.search("".join(uniques)):
-        spelled = np.array([key + json.dumps(u, ensure_ascii=False) + ", " for u in uniques], dtype=object)
+        spelled = np.array([key + json.dumps(u, ensure_ascii=False) + comma for u in uniques], dtype=object)
     else:
-        spelled = key + '"' + uniques + '", '
-    return np.append(spelled, "").astype(object)[codes]
+        spelled = key + '"' + uniques + '"' + comma
+    return np.append(spelled, missing).astype(object)[codes]
 
 
-def _fingerprints(contents: np.ndarray) -> np.ndarray:
-    return np.array(list(map(fingerprint, contents.tolist())), dtype=object)
+def canonical_text(values: dict) -> str:
+    """A sample's values (missing ones left out) as sample_contents spells them."""
+    return json.dumps(values, sort_keys=True, ensure_ascii=False)
+
+
+def sample_object(content: str, form: int, columns: str) -> dict:
+    """A stored sample's values by name, whatever its batch's form."""
+    if form == 1:
+        return json.loads(content)
+    return {name: value for name, value in zip(json.loads(columns), json.loads(content)) if value is not None}
+
+
+def object_text(content: str, form: int, columns: str) -> str:
+    """A stored sample's values as canonical JSON text (a form-1 sample's content as stored)."""
+    return content if form == 1 else canonical_text(sample_object(content, form, columns))
 
 
 def _nullable(values: np.ndarray) -> list:
-    """Values ready to bind: SQLite itself stores a NaN float as NULL, so floats go as they are."""
+    """Values to bind, as SQLite gives them back: None for a missing value (a NaN float included)."""
     values = np.asarray(values)
-    if values.dtype.kind == "f":
+    if values.dtype.kind == "f" and not np.isnan(values).any():
         return values.tolist()
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
 
@@ -319,14 +342,17 @@ def _fill_temp(conn: sqlite3.Connection, table: str, values) -> None:
 
 
 def _current_entries(conn: sqlite3.Connection, sample_ids) -> pd.DataFrame:
-    """The current entries of these ids: one join on a temporary table, skipped on an empty ledger."""
-    columns = ["sample_id", "entry", "content_sha256", "batch"]
+    """The current entries of these ids with their values as canonical JSON text: one join on a
+    temporary table, skipped on an empty ledger."""
+    columns = ["sample_id", "entry", "content", "batch"]
     if conn.execute("SELECT NOT EXISTS (SELECT 1 FROM samples)").fetchone()[0]:
         return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
     _fill_temp(conn, "wanted_ids", sample_ids)
-    rows = conn.execute("SELECT s.sample_id, s.entry, s.content_sha256, s.batch FROM samples s "
-                        "JOIN temp.wanted_ids w ON s.sample_id = w.value WHERE s.superseded_in IS NULL").fetchall()
-    return pd.DataFrame(rows, columns=columns)
+    rows = conn.execute("SELECT s.sample_id, s.entry, s.content, s.batch, b.form, b.columns FROM samples s "
+                        "JOIN temp.wanted_ids w ON s.sample_id = w.value JOIN batches b ON b.batch = s.batch "
+                        "WHERE s.superseded_in IS NULL").fetchall()
+    return pd.DataFrame([(sid, entry, object_text(content, form, names), number)
+                         for sid, entry, content, number, form, names in rows], columns=columns)
 
 
 def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batch: int | None = None) -> pd.DataFrame:
@@ -340,21 +366,22 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
     when that batch was recorded (for replay).
     """
     _fill_temp(conn, "wanted_units", units)
-    sql = ("SELECT s.content, b.columns FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
+    sql = ("SELECT s.content, b.form, b.columns FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
            "JOIN batches b ON b.batch = s.batch ")
     if before_batch is None:
         rows = conn.execute(sql + "WHERE s.superseded_in IS NULL ORDER BY s.entry").fetchall()
     else:
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
-    return stored_measures([content for content, _ in rows],
-                           list(dict.fromkeys(name for _, names in rows for name in json.loads(names))), ruleset)
+    return stored_measures([object_text(*row) for row in rows],
+                           list(dict.fromkeys(name for *_, names in rows for name in json.loads(names))), ruleset)
 
 
-def stored_measures(contents: list, columns: list, ruleset: RuleSet) -> pd.DataFrame:
-    """Stored samples' trend inputs (CHAIN_COLUMNS and the rule set's trend bases), derived from
-    their stored input values exactly as grading derives them."""
+def stored_measures(contents: list, columns: list, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
+    """Stored samples' trend inputs (CHAIN_COLUMNS and the rule set's trend bases, then the
+    readings `also` names), derived from their stored input values exactly as grading derives them."""
     bases = trend_bases(ruleset)
+    bases += tuple(name for name in also if name not in bases)
     if not contents:
         return pd.DataFrame({name: pd.Series(dtype=float if name in ("oil_hours",) + bases else object)
                              for name in list(CHAIN_COLUMNS) + list(bases)}).astype({"oil_changed": bool})
@@ -362,6 +389,20 @@ def stored_measures(contents: list, columns: list, ruleset: RuleSet) -> pd.DataF
                                                                 len(contents), "ledger")))
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
     return chain_frame(measured, batch.frame.get("oil_changed"), bases).reset_index(drop=True)
+
+
+def frame_from_arrays(contents, columns: list) -> pd.DataFrame:
+    """A form-2 batch's stored value arrays back into the frame frame_from_contents makes of the
+    same values as objects (a column no row has is float NaN; text and flags keep None)."""
+    contents = list(contents)
+    frame = pd.DataFrame(json.loads("[" + ",".join(contents) + "]") if contents else [], columns=columns,
+                         index=pd.RangeIndex(1, len(contents) + 1, name="row"))
+    for name in frame.columns:
+        column = frame[name]
+        if column.dtype == object:
+            present = column.notna()
+            frame[name] = column.where(present, None) if present.any() else np.nan
+    return frame
 
 
 def frame_from_contents(contents, columns: list) -> pd.DataFrame:
@@ -435,20 +476,22 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     _check_version(conn, path, ruleset, reuse_version)
     frame = batch.frame
     ids = frame["sample_id"].to_numpy(dtype=object)
-    contents = sample_contents(frame)
-    shas = _fingerprints(contents)
+    contents = sample_arrays(frame)
     stored = _current_entries(conn, ids)
     by_id = stored.set_index("sample_id")
-    stored_sha = by_id["content_sha256"].reindex(ids).to_numpy(dtype=object)
-    known = pd.notna(stored_sha) & (stored_sha == shas)
-    differs = pd.notna(stored_sha) & ~known
+    stored_text = by_id["content"].reindex(ids).to_numpy(dtype=object)
+    recorded = pd.notna(stored_text)
+    known = np.zeros(len(frame), dtype=bool)  # the same values as recorded: compared as canonical text
+    if recorded.any():
+        known[recorded] = sample_contents(frame[recorded]) == stored_text[recorded]
+    differs = recorded & ~known
     conflicts = differs if correction is None else np.zeros(len(frame), dtype=bool)
     if conflicts.any():
         stored_batch = by_id["batch"].reindex(ids).to_numpy()
         batch = SampleBatch(frame[~conflicts], tuple(batch.rejects) + tuple(_conflict_rejects(batch, conflicts,
                                                                                                 stored_batch)),
                             batch.rows_read, batch.source)
-        frame, ids, contents, shas = batch.frame, ids[~conflicts], contents[~conflicts], shas[~conflicts]
+        frame, ids, contents = batch.frame, ids[~conflicts], contents[~conflicts]
         known, differs = known[~conflicts], differs[~conflicts]
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
@@ -466,8 +509,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     n_new, n_corrections = int(fresh.sum() - differs.sum()), int(differs.sum())
     cursor = conn.execute(
         "INSERT INTO batches (recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, "
-        "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous, value_names) "
-        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form) "
+        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 2)",
         (datetime.now(timezone.utc).isoformat(timespec="seconds"), batch.source, ruleset.sha256, engine_name(),
          json.dumps(list(frame.columns)), batch.rows_read, n_new, int(known.sum()), n_corrections,
          len(batch.rejects), n_conflicts, correction.reason if correction else None,
@@ -482,33 +525,34 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     corrects = np.full(len(frame), None, dtype=object)
     corrects[differs] = corrected
     flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame else np.zeros(len(frame), bool)
-    columns = [[number] * len(rows)]
-    columns += [_nullable(measured[name].to_numpy()[rows]) for name in
-                ("sample_id", "unit_id", "class", "sampled_on", "oil_hours")]
-    columns.append(flags[rows].astype(int).tolist())
-    columns += [_nullable(measured[name].to_numpy()[rows]) for name in ("method", "lab") + TREND_BASES]
-    columns += [contents[rows].tolist(), shas[rows].tolist(), corrects[rows].tolist()]
-    names = ("batch", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method", "lab",
-             *TREND_BASES, "content", "content_sha256", "corrects")
     first = conn.execute("SELECT coalesce(max(entry), 0) + 1 FROM samples").fetchone()[0]
-    conn.executemany(f"INSERT INTO samples ({', '.join(names)}) VALUES ({', '.join('?' * len(names))})",
-                     zip(*columns))
+    entries = list(range(first, first + len(rows)))
+    # Form 2: the typed columns queries and history read, the values once (an array), no reading columns.
+    typed = [_nullable(measured[name].to_numpy()[rows]) for name in ("sample_id", "unit_id", "class", "sampled_on",
+                                                                      "oil_hours")]
+    typed.append(flags[rows].astype(int).tolist())
+    typed += [_nullable(measured[name].to_numpy()[rows]) for name in ("method", "lab")]
+    values, nothing = contents[rows].tolist(), [None] * len(rows)
+    written = [entries, *typed, *([nothing] * len(TREND_BASES)), values, [""] * len(rows),
+               corrects[rows].tolist()]
+    conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
+                     "method, lab, content, content_sha256, corrects, batch) "
+                     "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', ?, ?)",
+                     zip(entries, *typed, values, written[-1], [number] * len(rows)))
 
     facts = batch_facts(graded)
     shapes = np.array(shape_ids(conn, facts.shapes), dtype=np.int64)
     levels = facts.levels[rows].astype(object)
     levels[facts.levels[rows] < 0] = None
-    entries, grades, levels, values = list(range(first, first + len(rows))), facts.grades[rows].tolist(), \
-        levels.tolist(), facts.values[rows].tolist()
+    grades, levels, vals = facts.grades[rows].tolist(), levels.tolist(), facts.values[rows].tolist()
     conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
-                     zip(entries, grades, levels, shapes[facts.shape_of[rows]].tolist(), values))
+                     zip(entries, grades, levels, shapes[facts.shape_of[rows]].tolist(), vals))
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
     # The digest of the rows just written, as SQLite gives them back (replay reads them back).
     shape_shas = np.array([fingerprint(text) for text in facts.shapes], dtype=object)
-    written = {1: list(zip(entries, columns[1], shas[rows].tolist(), corrects[rows].tolist())),
-               2: list(zip(entries, grades, levels, shape_shas[facts.shape_of[rows]].tolist(), values))}
-    conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, written), number))
+    conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, {
+        1: written, 2: [entries, grades, levels, shape_shas[facts.shape_of[rows]].tolist(), vals]}), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
 
 
@@ -522,26 +566,34 @@ _JOINS = ("FROM samples s JOIN verdicts v ON v.entry = s.entry JOIN shapes sh ON
 
 
 def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
-    """Every recorded version of a sample, oldest first, with its verdict, batch and rule set."""
+    """Every recorded version of a sample, oldest first, with its verdict, batch and rule set (its
+    values as canonical JSON text): the current version and the ones its corrections replaced."""
     cursor = conn.execute(
+        "WITH RECURSIVE versions(entry) AS (SELECT entry FROM samples WHERE sample_id = ? AND superseded_in IS NULL "
+        "UNION SELECT c.corrects FROM samples c JOIN versions v ON c.entry = v.entry WHERE c.corrects IS NOT NULL) "
         f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
         f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
-        f"rs.canonical "
-        f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.sample_id = ? ORDER BY s.entry",
+        f"rs.canonical, b.form "
+        f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.entry IN versions ORDER BY s.entry",
         (sample_id,))
     names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
              "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
-             "author", "canonical")
-    return [dict(zip(names, row)) for row in cursor.fetchall()]
+             "author", "canonical", "form")
+    found = [dict(zip(names, row)) for row in cursor.fetchall()]
+    for entry in found:
+        entry["content"] = object_text(entry["content"], entry.pop("form"), entry["columns"])
+    return found
 
 
 def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
     """The current samples of a unit with their verdicts, stored values and batch columns, in
     trend order (date, then oil hours)."""
     rows = conn.execute(
-        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, s.content, b.columns, b.ruleset_sha256 "
-        f"{_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry",
+        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, s.content, b.columns, b.ruleset_sha256, "
+        f"b.form {_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry",
         (unit_id,)).fetchall()
+    at = len(_UNIT_COLUMNS) + 4
+    rows = [row[:at] + (object_text(row[at], row[-1], row[at + 1]),) + row[at + 1:-1] for row in rows]
     return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",
                                                              "ruleset_sha256"])
 
@@ -550,42 +602,54 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
     """Every batch in order, with its rule set's stored text (None when that row is gone)."""
     names = ("batch", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "rows_read", "new_samples",
              "known_samples", "corrections", "rejected", "conflicts", "reason", "author", "previous", "digest",
-             "value_names", "canonical", "ruleset_id", "version")
-    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:17])}, rs.canonical, rs.ruleset_id, rs.version "
+             "value_names", "form", "canonical", "ruleset_id", "version")
+    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:18])}, rs.canonical, rs.ruleset_id, rs.version "
                         "FROM batches b LEFT JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 ORDER BY b.batch")
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
 
-_BATCH_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method", "lab",
-                  *TREND_BASES, "content", "content_sha256", "corrects", "superseded_in")
+# What replay reads of a batch's samples: the columns digest 2 covers, in its order, then whether corrected.
+BATCH_COLUMNS = DIGEST_2_SAMPLE_COLUMNS + ("superseded_in",)
 
 
-def batch_entries(conn: sqlite3.Connection, batch: int) -> pd.DataFrame:
+def batch_entries(conn: sqlite3.Connection, batch: int) -> tuple[pd.DataFrame, list]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
-    (None where a sample has no verdict row)."""
-    rows = conn.execute(f"SELECT {', '.join('s.' + c for c in _BATCH_COLUMNS)}, v.grade, v.level, sh.facts, v.vals "
-                        "FROM samples s LEFT JOIN verdicts v ON v.entry = s.entry "
-                        "LEFT JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY s.entry",
+    (None where a sample has no verdict row); and the samples' columns as SQLite gave them
+    (BATCH_COLUMNS, lists), which the batch's digest covers: each row is read once."""
+    rows = conn.execute(f"SELECT {', '.join(BATCH_COLUMNS)} FROM samples WHERE batch = ? ORDER BY entry",
                         (batch,)).fetchall()
-    return pd.DataFrame(rows, columns=list(_BATCH_COLUMNS) + ["grade", "level", "facts", "vals"])
+    columns = [list(column) for column in zip(*rows)] if rows else [[] for _ in BATCH_COLUMNS]
+    del rows
+    verdicts = conn.execute("SELECT v.entry, v.grade, v.level, sh.facts, v.vals FROM samples s "
+                            "JOIN verdicts v ON v.entry = s.entry LEFT JOIN shapes sh ON sh.shape = v.shape "
+                            "WHERE s.batch = ? ORDER BY v.entry", (batch,)).fetchall()
+    names = ["grade", "level", "facts", "vals"]
+    verdicts = pd.DataFrame(verdicts, columns=["entry"] + names).set_index("entry").reindex(columns[0])
+    frame = pd.DataFrame({name: pd.Series(values, dtype=object) for name, values in zip(BATCH_COLUMNS, columns)})
+    for name in names:
+        frame[name] = verdicts[name].to_numpy(dtype=object)
+    return frame, columns
 
 
 def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
     """The stored values of every current sample (corrections applied), in trend order, and the
     union of the columns their batches carried."""
-    rows = conn.execute("SELECT s.content FROM samples s WHERE s.superseded_in IS NULL "
-                        "ORDER BY s.unit_id, s.sampled_on, s.oil_hours, s.entry").fetchall()
+    rows = conn.execute("SELECT s.content, b.form, b.columns FROM samples s JOIN batches b ON b.batch = s.batch "
+                        "WHERE s.superseded_in IS NULL ORDER BY s.unit_id, s.sampled_on, s.oil_hours, s.entry")
     columns: list[str] = []
     for (text,) in conn.execute("SELECT columns FROM batches ORDER BY batch").fetchall():
         columns.extend(c for c in json.loads(text) if c not in columns)
-    return [text for (text,) in rows], columns
+    return [object_text(*row) for row in rows], columns
 
 
 def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list[tuple]:
-    """(content, facts, vals, ruleset sha256, engine, value names) of the current samples, or of one batch."""
+    """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names) of the current
+    samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    return conn.execute(f"SELECT s.content, sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names {_JOINS} "
-                        f"WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ()).fetchall()
+    rows = conn.execute(f"SELECT s.content, b.form, b.columns, sh.facts, v.vals, b.ruleset_sha256, b.engine, "
+                        f"b.value_names {_JOINS} WHERE {where} ORDER BY s.entry",
+                        (batch,) if batch is not None else ())
+    return [(object_text(*row[:3]),) + row[3:] for row in rows]
 
 
 def stored_rulesets(conn: sqlite3.Connection) -> list[dict]:

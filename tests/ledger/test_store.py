@@ -136,22 +136,30 @@ def test_an_older_schema_is_migrated_keeping_its_data(tmp_path, ruleset):
     conn = open_ledger(db)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
     names = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'index'")}
-    assert {"samples_unit", "samples_sample"} <= names
+    assert {"samples_unit", "samples_current", "samples_batch", "samples_date"} <= names
+    assert "samples_sample" not in names  # step 4: versions are found through the current one's corrections
     assert conn.execute("SELECT count(*) FROM rulesets").fetchone()[0] == 1
     assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     conn.close()
 
 
-def test_sample_values_are_stored_as_canonical_json(tmp_path, ruleset):
+def test_sample_values_are_stored_once_as_an_array_in_the_batch_column_order(tmp_path, ruleset):
     db = tmp_path / "l.db"
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     with sqlite3.connect(db) as conn:
-        content, = conn.execute("SELECT content FROM samples WHERE sample_id = 'T-09'").fetchone()
-    assert json.loads(content) == {"an": 0.09, "class": "steam-turbine", "kv40": 46.1, "lab": "lab-a",
-                                   "lubricant": "TEST-46", "method": "direct", "oil_changed": True,
-                                   "oil_hours": 1300.0, "oxidation": 2.5, "sample_id": "T-09",
-                                   "sampled_on": "2026-02-06", "unit_id": "ST-2"}
-    assert list(json.loads(content)) == sorted(json.loads(content))
+        content, columns, form, sha = conn.execute(
+            "SELECT s.content, b.columns, b.form, s.content_sha256 FROM samples s JOIN batches b USING (batch) "
+            "WHERE sample_id = 'T-09'").fetchone()
+    assert (form, sha) == (2, "")
+    values = dict(zip(json.loads(columns), json.loads(content)))
+    assert values == {"an": 0.09, "class": "steam-turbine", "kv40": 46.1, "lab": "lab-a",
+                      "lubricant": "TEST-46", "method": "direct", "oil_changed": True,
+                      "oil_hours": 1300.0, "oxidation": 2.5, "sample_id": "T-09",
+                      "sampled_on": "2026-02-06", "unit_id": "ST-2"}
+    # Reference: Python's json module spells the same values as sample_contents does (what tells a
+    # known sample from a changed one, and a form-1 sample's stored text).
+    from sumpwise.ledger.store import object_text
+    assert object_text(content, 2, columns) == json.dumps(values, sort_keys=True, ensure_ascii=False)
 
 
 def test_sample_contents_equal_the_standard_json_module_row_by_row():
@@ -195,11 +203,12 @@ def test_missing_values_are_stored_as_null(tmp_path, ruleset):
     db = tmp_path / "l.db"
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     with sqlite3.connect(db) as conn:
-        kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(level) FROM samples "
+        kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(oil_hours), typeof(level) FROM samples "
                              "JOIN verdicts USING (entry) WHERE sample_id = 'T-04'").fetchone()
         unrated = conn.execute("SELECT typeof(level) FROM samples JOIN verdicts USING (entry) "
                                "WHERE sample_id = 'T-01'").fetchone()
-    assert kinds == ("null", "real", "integer") and unrated == ("null",)
+    # form 2 leaves the reading columns empty: the values are in the sample's array
+    assert kinds == ("null", "null", "real", "integer") and unrated == ("null",)
 
 
 def test_a_new_ledger_gets_the_larger_page_and_an_old_one_keeps_its_own(tmp_path, ruleset):

@@ -124,7 +124,7 @@ def test_an_inserted_sample_is_caught(clean, tmp_path):
     assert (None, 1, "its stored rows no longer match the batch's digest (a row altered, added or deleted after "
                      "recording)") in found
     assert (None, 1, "it holds 7 sample(s) but recorded 6") in found
-    assert ("T-50", 1, "its stored values no longer match their fingerprint (altered after recording)") in found
+    assert ("T-50", 1, "its verdict is missing (deleted, or its shape is gone)") in found
 
 
 def test_an_inserted_verdict_and_rule_set_are_caught(clean, tmp_path):
