@@ -8,6 +8,8 @@ readings (`<0.05`, `>5000`, `ND`) are kept as intervals beside the number (censo
 
 from __future__ import annotations
 
+import difflib
+
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -106,6 +108,15 @@ def _row_numbers(raw: pd.DataFrame, skipped: list) -> np.ndarray:
     return rows[~np.isin(rows, skipped_rows)][: len(raw)]
 
 
+def unused_columns_note(unused: list, unread: set) -> str:
+    """Columns nobody reads, said once: a misspelt `wter` must not vanish without a word."""
+    named = []
+    for column in unused:
+        near = difflib.get_close_matches(column.lower(), sorted(unread), n=1, cutoff=0.75)
+        named.append(f"{column} (did you mean {near[0]}?)" if near else column)
+    return f"lab columns not used: {', '.join(named)}"
+
+
 def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: ColumnMap, numeric: tuple = (),
                      rows: np.ndarray | None = None, notes=()) -> SampleBatch:
     """Map, convert and check rows; pure apart from its arguments.
@@ -147,8 +158,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         raw["method"] = methods[0]
     known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
     unused = [c for c in raw.columns if c not in known and c not in mapped]
-    if unused and (columns.columns or columns.constants):
-        notes.append(f"lab columns not used: {', '.join(unused)}")
+    if unused:
+        notes.append(unused_columns_note(unused, known - set(raw.columns)))
     missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
     if missing:
         raise InputError(f"{name}: missing required column(s) {', '.join(missing)}; the file has: "

@@ -126,3 +126,13 @@ def test_every_line_ending_reads_the_same(tmp_path, newline):
     batch = read_samples(path)
     assert list(batch.frame.columns) == ["sample_id", "class", "an"]
     assert batch.frame["an"].tolist() == [0.2, 0.3] and batch.rows_read == 2 and not batch.rejects
+
+
+def test_a_column_nobody_reads_is_named_once_with_the_name_it_resembles():
+    # A misspelt header must not vanish without a word: `wter` holds the sample's water reading,
+    # which the engine would otherwise never see (the row then grades on fewer rules).
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,kv40,wter,Remarks\n"
+            "W-1,HPU-1,hydraulic,HYD-46-M,2026-03-01,46.2,5000,ok\n")
+    batch = read_samples(io.StringIO(text), name="week.csv")
+    assert batch.notes == ("lab columns not used: wter (did you mean water?), Remarks",)
+    assert "water" not in batch.frame.columns or np.isnan(batch.frame["water"]).all()

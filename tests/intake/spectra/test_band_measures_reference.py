@@ -2,10 +2,12 @@
 
 Reference: numpy.interp for values between grid points, numpy.trapezoid for
 the area of (spectrum - straight baseline) over the region with the region
-ends interpolated, numpy.argmin / numpy.argmax for the first minimum and
-maximum, numpy.mean for a window's mean (the definitions in the band file: "the
-mean of the spectrum's points in that window", "the spectrum's minimum"). Nothing here shares code with sumpwise.intake.spectra.bands
-except the band file itself. Data include quantised spectra (ties between
+ends interpolated, numpy.argmin for the first minimum, numpy.mean for a
+window's mean, numpy.polyfit for a peak height's local quadratic fit (the
+definitions in the band file: "the mean of the spectrum's points in that
+window", "the spectrum's minimum", "a quadratic least-squares fit through the
+grid points within half_width cm-1 of each point"). Nothing here shares code
+with sumpwise.intake.spectra.bands except the band file itself. Data include quantised spectra (ties between
 equal minima, as stored JCAMP-DX integers give) and NaN points.
 """
 
@@ -46,9 +48,11 @@ def _reference(x, y, band):
         xs = np.concatenate(([low], inner, [high]))
         return np.trapezoid(np.interp(xs, x, y) - line(xs), xs), None
     inside = np.flatnonzero((x >= low) & (x <= high))
-    above = y[inside] - line(x[inside])
-    k = np.argmax(above)
-    return above[k], x[inside][k]
+    m = int(round(band.smoothing / (x[1] - x[0])))  # the grid here is even
+    fitted = np.array([np.polyval(np.polyfit(x[i - m : i + m + 1] - x[i], y[i - m : i + m + 1], 2), 0.0)
+                       for i in inside])
+    above = fitted - line(x[inside])
+    return np.max(above), dict(zip(x[inside], above))
 
 
 def _spectra(count, seed):
@@ -67,8 +71,10 @@ def test_block_measures_equal_the_per_spectrum_reference(seed):
             value, position = _reference(X, y, band)
             # floating-point noise only: summation order differs; scale is the band's own magnitude
             assert measured.values[band.name][k] == pytest.approx(value, rel=1e-10, abs=1e-12), (band.name, k)
-            if position is not None:
-                assert measured.peak_positions[band.name][k] == position, (band.name, k)
+            if position is not None:  # at a maximum of the reference fit (quantised spectra tie, and
+                # polyfit rounds differently from the band plan's weights, so the first of ties may differ)
+                at = position[measured.peak_positions[band.name][k]]
+                assert at == pytest.approx(value, rel=1e-10, abs=1e-12), (band.name, k)
 
 
 def test_column_order_and_row_order_give_the_same_numbers():
@@ -110,3 +116,14 @@ def test_blocks_split_across_block_size_equal_one_block():
     split, _, _ = measure_matrix(X, spectra, BANDS, block_size=7)
     for name in BANDS.names:
         np.testing.assert_allclose(split[name], whole[name], rtol=1e-13, atol=1e-15)
+
+
+def test_float32_blocks_give_the_float64_numbers_within_float32_rounding():
+    # float32 is the benchmark's other path: the peak fit's weights follow the block's type.
+    spectra = random_used_oils(X, 20, seed=6)
+    plan = plan_bands(X, BANDS.bands)
+    wide = measure_columns(plan, np.ascontiguousarray(spectra.T))
+    narrow = measure_columns(plan, np.ascontiguousarray(spectra.T, dtype=np.float32))
+    for name in BANDS.names:
+        # absorbances of order 1 held to ~7 digits; areas sum ~100 such terms
+        np.testing.assert_allclose(narrow.values[name], wide.values[name], rtol=0, atol=2e-4, err_msg=name)
