@@ -24,8 +24,8 @@ import pandas as pd
 from sumpwise.derive.trends import trend_bases
 from sumpwise.intake.samples import SampleBatch
 from sumpwise.ledger.schema import batch_digest, fingerprint, result_from_record  # noqa: F401 (API)
-from sumpwise.ledger.store import (BATCH_COLUMNS, LedgerError, batch_entries, batch_list, batch_rejects,
-                                   current_contents, current_verdicts, find_entries, frame_from_arrays,
+from sumpwise.ledger.store import (BATCH_COLUMNS, STORED_VALUES, LedgerError, batch_entries, batch_list,
+                                   batch_rejects, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
                                    ruleset_text, sample_entries, stored_measures, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
@@ -222,8 +222,8 @@ def unit_forecasts(path, unit_id: str) -> tuple[RuleSet | None, tuple]:
         if not len(unit):
             return None, ()
         latest = next(v for v in sample_entries(conn, unit["sample_id"].iloc[-1]) if v["superseded_in"] is None)
-        rows = [(object_text(content, form, names), names) for content, form, names in conn.execute(
-            "SELECT s.content, b.form, b.columns FROM samples s JOIN batches b ON b.batch = s.batch "
+        rows = [(object_text(*row), row[2]) for row in conn.execute(
+            f"SELECT {STORED_VALUES} FROM samples s JOIN batches b ON b.batch = s.batch "
             "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.entry", (unit_id,))]
     finally:
         conn.close()
@@ -468,8 +468,12 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
     else:  # form 2: the digest covers the values themselves
         altered = np.zeros(len(entries), dtype=bool)
     try:
-        read = frame_from_contents if form == 1 else frame_from_arrays
-        frame = read(entries["content"], json.loads(batch["columns"]))
+        if form == 1:
+            frame = frame_from_contents(entries["content"], json.loads(batch["columns"]))
+        else:
+            held = json.loads(batch["held"])
+            frame = frame_from_arrays(entries["content"], json.loads(batch["columns"]), held,
+                                      {name: entries[name].tolist() for name in held})
     except (ValueError, TypeError, AssertionError):
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
                                          "recording); its samples were not re-graded")]

