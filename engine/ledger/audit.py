@@ -23,8 +23,9 @@ import pandas as pd
 
 from sumpwise.derive.trends import trend_bases
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.ledger.schema import batch_digest, fingerprint, result_from_record  # noqa: F401 (API)
-from sumpwise.ledger.store import (BATCH_COLUMNS, STORED_VALUES, LedgerError, batch_entries, batch_list,
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, batch_digest, fingerprint,  # noqa: F401 (API)
+                                    result_from_record)
+from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, batch_list,
                                    batch_rejects, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
                                    ruleset_text, sample_entries, stored_measures, stored_rulesets, unit_entries)
@@ -402,12 +403,13 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
             if batch["previous"] != previous:
                 differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
                                                             "one before it (a batch was deleted, added or altered)"))
-            entries, columns = batch_entries(conn, number)
+            entries, columns = batch_entries(conn, number, batch["form"])
             if batch["form"] == 1:
-                written = {1: list(zip(*(columns[BATCH_COLUMNS.index(n)] for n in
-                                         ("entry", "sample_id", "content_sha256", "corrects"))))}
+                written = {1: list(zip(*(columns[n] for n in ("entry", "sample_id", "content_sha256", "corrects"))))}
             else:
-                written = {1: columns[:BATCH_COLUMNS.index("superseded_in")]}
+                written = {1: [columns[n] for n in DIGEST_2_SAMPLE_COLUMNS],
+                           3: [columns[n] for n in ("verdict_entry", "grade", "level", "shape", "vals")],
+                           4: columns["used_shapes"]}
             del columns
             digest = batch_digest(conn, number, written)
             if digest != batch["digest"]:

@@ -142,24 +142,34 @@ DIGEST_QUERIES = (
 )
 DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chunk is hashed as its repr)
 
-# Digest 2 (form-2 batches): every column a batch writes, the batch's own row with its form,
-# spelled column by column as JSON (exact for SQLite's values, escaped, and C-fast), a chunk
-# of DIGEST_2_ROWS rows at a time: per column, json.dumps(list of values) then 0x1f; 0x1e
-# after each query. Frozen like the steps.
+# Digest 2 (form-2 batches): the batch's own row with its form and held names; its samples'
+# columns; that the columns form 2 leaves empty are empty (a count); its verdicts with their
+# shape ids, and each shape used with its fingerprint; its rejected rows. Spelled column by
+# column as JSON (exact for SQLite's values, escaped, and C-fast), a chunk of DIGEST_2_ROWS
+# rows at a time: per column, json.dumps(list of values) then 0x1f; 0x1e after each query.
+# Frozen like the steps.
 DIGEST_2_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
     "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form, held FROM batches "
     "WHERE batch = ?",
-    "SELECT entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, method, lab, kv40, kv100, an, bn, "
-    "oxidation, nitration, sulfation, antiwear, soot, water, rpvot, content, content_sha256, corrects FROM samples "
-    "WHERE batch = ? ORDER BY entry",
-    DIGEST_QUERIES[2],
+    "SELECT entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, method, lab, content, corrects "
+    "FROM samples WHERE batch = ? ORDER BY entry",
+    "SELECT count(*) FROM samples WHERE batch = ? AND (kv40 IS NOT NULL OR kv100 IS NOT NULL OR an IS NOT NULL OR "
+    "bn IS NOT NULL OR oxidation IS NOT NULL OR nitration IS NOT NULL OR sulfation IS NOT NULL OR antiwear IS NOT "
+    "NULL OR soot IS NOT NULL OR water IS NOT NULL OR rpvot IS NOT NULL OR content_sha256 != '')",
+    "SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s JOIN verdicts v ON v.entry = s.entry "
+    "WHERE s.batch = ? ORDER BY v.entry",
+    "SELECT DISTINCT sh.shape, sh.sha256 FROM samples s JOIN verdicts v ON v.entry = s.entry "
+    "JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY sh.shape",
     DIGEST_QUERIES[3],
 )
 DIGEST_2_ROWS = 100_000
 DIGEST_2_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
-                           "method", "lab", "kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation",
-                           "antiwear", "soot", "water", "rpvot", "content", "content_sha256", "corrects")
+                           "method", "lab", "content", "corrects")
+# What a form-1 batch's samples hold (digest 1 covers some through the content fingerprint).
+FORM_1_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
+                         "method", "lab", "kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation",
+                         "antiwear", "soot", "water", "rpvot", "content", "content_sha256", "corrects")
 
 
 def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = None) -> str:

@@ -33,13 +33,13 @@ from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import DIGEST_2_SAMPLE_COLUMNS, MIGRATIONS, batch_digest, fingerprint, shape_ids
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, FORM_1_SAMPLE_COLUMNS, MIGRATIONS, batch_digest,
+                                    fingerprint, shape_ids)
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.version import engine_name
-from sumpwise.vocabulary.measures import TREND_BASES
 from sumpwise.vocabulary.problems import InputError
 
 DEFAULT_PATH = "sumpwise.db"
@@ -365,7 +365,8 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             continue
         values = column.to_numpy(dtype=object)
         missing = pd.isna(values)
-        if not all(type(v) is str for v in values[~missing]) or not (missing == pd.isna(written)).all():
+        if (not all(type(v) is str for v in pd.unique(values[~missing]))  # each distinct value once
+                or not (missing == pd.isna(written)).all()):
             continue
         if (values[~missing] == written[~missing]).all():
             held.append(name)
@@ -591,12 +592,11 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     conn.execute("UPDATE batches SET held = ? WHERE batch = ?", (json.dumps(held), number))
     typed = [typed[name] for name in HELD]
     nothing = [None] * len(rows)
-    written = [entries, *typed, *([nothing] * len(TREND_BASES)), values, [""] * len(rows),
-               corrects[rows].tolist()]
+    written = [entries, *typed, values, corrects[rows].tolist()]  # DIGEST_2_SAMPLE_COLUMNS
     conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
                      "method, lab, content, content_sha256, corrects, batch) "
                      "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', ?, ?)",
-                     zip(entries, *typed, values, written[-1], [number] * len(rows)))
+                     zip(*written, [number] * len(rows)))
 
     facts = batch_facts(graded)
     shapes = np.array(shape_ids(conn, facts.shapes), dtype=np.int64)
@@ -608,9 +608,12 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
     # The digest of the rows just written, as SQLite gives them back (replay reads them back).
-    shape_shas = np.array([fingerprint(text) for text in facts.shapes], dtype=object)
+    shape_of = shapes[facts.shape_of[rows]]
+    used = np.unique(shape_of)
+    sha_of = dict(zip(shapes.tolist(), (fingerprint(text) for text in facts.shapes)))
     conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, {
-        1: written, 2: [entries, grades, levels, shape_shas[facts.shape_of[rows]].tolist(), vals]}), number))
+        1: written, 2: [[0]], 3: [entries, grades, levels, shape_of.tolist(), vals],
+        4: [used.tolist(), [sha_of[shape] for shape in used.tolist()]]}), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
 
 
@@ -663,25 +666,32 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
 
-# What replay reads of a batch's samples: the columns digest 2 covers, in its order, then whether corrected.
-BATCH_COLUMNS = DIGEST_2_SAMPLE_COLUMNS + ("superseded_in",)
-
-
-def batch_entries(conn: sqlite3.Connection, batch: int) -> tuple[pd.DataFrame, list]:
+def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.DataFrame, dict]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
-    (None where a sample has no verdict row); and the samples' columns as SQLite gave them
-    (BATCH_COLUMNS, lists), which the batch's digest covers: each row is read once."""
-    rows = conn.execute(f"SELECT {', '.join(BATCH_COLUMNS)} FROM samples WHERE batch = ? ORDER BY entry",
-                        (batch,)).fetchall()
-    columns = [list(column) for column in zip(*rows)] if rows else [[] for _ in BATCH_COLUMNS]
+    (None where a sample has no verdict row); and the columns its digest covers, as lists of
+    what SQLite gave (each row is read once). A form-2 batch's reading columns are None here:
+    its digest counts any that are not."""
+    names = (FORM_1_SAMPLE_COLUMNS if form == 1 else DIGEST_2_SAMPLE_COLUMNS) + ("superseded_in",)
+    rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
+    columns = dict(zip(names, ([list(column) for column in zip(*rows)] if rows else [[] for _ in names])))
     del rows
-    verdicts = conn.execute("SELECT v.entry, v.grade, v.level, sh.facts, v.vals FROM samples s "
-                            "JOIN verdicts v ON v.entry = s.entry LEFT JOIN shapes sh ON sh.shape = v.shape "
-                            "WHERE s.batch = ? ORDER BY v.entry", (batch,)).fetchall()
-    names = ["grade", "level", "facts", "vals"]
-    verdicts = pd.DataFrame(verdicts, columns=["entry"] + names).set_index("entry").reindex(columns[0])
-    frame = pd.DataFrame({name: pd.Series(values, dtype=object) for name, values in zip(BATCH_COLUMNS, columns)})
-    for name in names:
+    rows = conn.execute("SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s "
+                        "JOIN verdicts v ON v.entry = s.entry WHERE s.batch = ? ORDER BY v.entry", (batch,)).fetchall()
+    verdict = ("verdict_entry", "grade", "level", "shape", "vals")
+    columns.update(zip(verdict, ([list(column) for column in zip(*rows)] if rows else [[] for _ in verdict])))
+    del rows
+    used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN verdicts v "
+                        "ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? "
+                        "ORDER BY sh.shape", (batch,)).fetchall()
+    columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
+    facts = {shape: text for shape, _, text in used}
+    verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in verdict})
+    verdicts["facts"] = verdicts["shape"].map(facts)  # None where the shape is gone
+    verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
+    n = len(columns["entry"])
+    frame = pd.DataFrame({name: pd.Series(columns[name] if name in columns else [None] * n, dtype=object)
+                          for name in FORM_1_SAMPLE_COLUMNS + ("superseded_in",)})
+    for name in ("grade", "level", "facts", "vals"):
         frame[name] = verdicts[name].to_numpy(dtype=object)
     return frame, columns
 
