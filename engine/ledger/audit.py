@@ -313,16 +313,15 @@ def older_engine(recorded) -> bool:
 _TYPED = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "method", "lab") + TREND_BASES
 
 
-def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame, form: int) -> np.ndarray:
+def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame, form: int,
+                    held: list) -> np.ndarray:
     """Rows whose typed columns (what history and queries read) hold a value that is neither the
     stored input value nor what recording them now would write (the re-graded measured frame):
     an engine that derives a column differently since is not an alteration, a value from
-    nowhere is. A form-2 batch leaves the reading columns empty."""
+    nowhere is. A form-2 batch leaves the reading columns empty (its digest counts any that are
+    not), and the columns it `held` are the stored input values themselves."""
     bad = np.zeros(len(entries), dtype=bool)
-    if form != 1:
-        for name in TREND_BASES:
-            bad |= entries[name].notna().to_numpy()
-    for name in _TYPED if form == 1 else _TYPED[:-len(TREND_BASES)]:
+    for name in _TYPED if form == 1 else [n for n in _TYPED[:-len(TREND_BASES)] if n not in held]:
         stored = entries[name].to_numpy(dtype=object)
         same = np.zeros(len(entries), dtype=bool)
         for source in (measured, frame):
@@ -331,9 +330,10 @@ def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.Dat
             elif source is measured:
                 same |= pd.isna(stored)
         bad |= ~same
-    flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
-        else np.zeros(len(frame), dtype=bool)
-    bad |= pd.to_numeric(entries["oil_changed"], errors="coerce").to_numpy() != flags.astype(int)
+    if "oil_changed" not in held:
+        flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
+            else np.zeros(len(frame), dtype=bool)
+        bad |= pd.to_numeric(entries["oil_changed"], errors="coerce").to_numpy() != flags.astype(int)
     return bad
 
 
@@ -483,7 +483,7 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
     history = history_frame(conn, units, ruleset, before_batch=number)
     history = history[~history["sample_id"].isin(entries["sample_id"])]
     graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
-    typed = _typed_mismatch(entries, graded.measured, frame, form)
+    typed = _typed_mismatch(entries, graded.measured, frame, form, json.loads(batch["held"]) if form != 1 else [])
     facts = batch_facts(graded, json.loads(batch["value_names"]))
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
               "vals": entries["vals"].to_numpy(dtype=object),
