@@ -1,16 +1,17 @@
-"""The ledger's schema: its migration steps as frozen SQL text, and the batch digest.
+"""The ledger's schema: its migration steps as frozen SQL text, and the batch digests.
 
 Step n brings a ledger from schema version n - 1 to n. A released step never changes,
-not even through a constant it reads: each is literal text. Adding a trend base adds a
-step (`ALTER TABLE samples ADD COLUMN name REAL` and `UPDATE samples SET name =
-json_extract(content, '$.name')`); a test checks that every trend base has its column.
+not even through a constant it reads: each is literal text. A new trended measure needs no
+step: the trend inputs of earlier samples are derived from their stored values.
 
 The digest of a batch covers everything the batch recorded, read back from the tables:
 its own row (which holds the previous batch's digest, so the batches form a chain), its
-samples (their values through the fingerprint of their content), their verdicts (their
-shapes through the shapes' fingerprints), and its rejected rows. It is read back
-rather than computed from what was written so that recording and verifying share one
-definition, and its columns are listed here, frozen like the steps.
+samples, their verdicts with their shapes' fingerprints, and its rejected rows. Digest 1
+(form-1 batches, recorded before step 4) covers a sample's values through their
+fingerprint and spells chunks of rows as Python's repr; digest 2 (form 2) covers the
+values themselves, spelled column by column as JSON. It is read back rather than computed
+from what was written so that recording and verifying share one definition, and its
+queries are listed here, frozen like the steps.
 """
 
 from __future__ import annotations

@@ -2,10 +2,12 @@
 
 All of sumpwise's SQLite I/O lives here (the schema and digest in schema.py). A graded
 batch is recorded in one transaction (BEGIN IMMEDIATE, so two runs on one file take turns
-instead of interleaving), in WAL mode so readers never wait for a writer. A sample is
-stored with its input values as canonical JSON and that text's SHA-256: the same sample
-with the same content adds nothing; the same id with other content is rejected (and the
-reject recorded) unless the batch is a correction, which keeps both. A verdict is stored
+instead of interleaving), in WAL mode so readers never wait for a writer. A sample's input
+values are stored once (a batch's storage form, schema.py): in the typed columns that give
+them back exactly, the rest as a JSON array under the batch's column names. The same
+sample with the same values (compared as canonical JSON) adds nothing; the same id with
+other values is rejected (and the reject recorded) unless the batch is a correction, which
+keeps both. A verdict is stored
 as facts (results/facts.py): a shape shared by many samples and the sample's own values;
 the wording comes back from the stored rule set. Each batch ends with a digest of what it
 recorded, chained to the previous batch's. The schema is versioned (PRAGMA user_version)

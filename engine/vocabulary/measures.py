@@ -192,7 +192,7 @@ def _trend_measures(reading: Measure) -> tuple[Measure, ...]:
 
 
 MEASURES: dict[str, Measure] = {m.name: m for m in READINGS + ROW_DERIVED + CLEANLINESS}
-# The readings whose values a ledger stores for trends (its table columns: keep this list as it is).
+# The readings a ledger's form-1 batches keep in typed columns (its table columns: keep this list as it is).
 TREND_BASES = ("kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation", "antiwear", "soot", "water",
                "rpvot")
 # Every measure the trend measures are built on; declared measures get them too (declared_trend_measure).
