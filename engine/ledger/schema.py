@@ -146,8 +146,8 @@ DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chun
 # Digest 2 (form-2 batches): the batch's own row with its form and held names; its samples'
 # columns; that the columns form 2 leaves empty are empty (a count); its verdicts with their
 # shape ids, and each shape used with its fingerprint; its rejected rows. Spelled column by
-# column as JSON (exact for SQLite's values, escaped, and C-fast), a chunk of DIGEST_2_ROWS
-# rows at a time: per column, json.dumps(list of values) then 0x1f; 0x1e after each query.
+# column (_spelled: text joined by NUL, else JSON; exact for SQLite's values and C-fast), a
+# chunk of DIGEST_2_ROWS rows at a time, 0x1f after each column, 0x1e after each query.
 # Frozen like the steps.
 DIGEST_2_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
@@ -218,7 +218,16 @@ def _digest_2(conn: sqlite3.Connection, batch: int, written: dict | None) -> str
 
 
 def _spelled(values: list) -> bytes:
-    return json.dumps(values, ensure_ascii=False).encode("utf-8", "surrogatepass") + b"\x1f"
+    """One column's values, exactly: tag S and the texts joined by NUL when every value is text
+    and none holds a NUL (so the join splits back into the same n values), else tag J and JSON."""
+    if values:
+        try:
+            joined = "\x00".join(values)
+        except TypeError:  # a value that is not text
+            joined = None
+        if joined is not None and joined.count("\x00") == len(values) - 1:
+            return b"S" + joined.encode("utf-8", "surrogatepass") + b"\x1f"
+    return b"J" + json.dumps(values, ensure_ascii=False).encode("utf-8", "surrogatepass") + b"\x1f"
 
 
 def fingerprint(text: str) -> str:
