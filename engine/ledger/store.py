@@ -18,6 +18,7 @@ refused and left untouched.
 from __future__ import annotations
 
 import functools
+import itertools
 import json
 import os
 import re
@@ -327,13 +328,19 @@ def sample_object(content: str, form: int, columns: str, held: str, *typed) -> d
     """A stored sample's values by name, whatever its batch's form (a row read as STORED_VALUES)."""
     if form == 1:
         return json.loads(content)
-    held = json.loads(held)
-    values = {name: value for name, value in zip([c for c in json.loads(columns) if c not in held],
-                                                 json.loads(content)) if value is not None}
+    rest, held = _layout(columns, held)
+    values = {name: value for name, value in zip(rest, json.loads(content)) if value is not None}
     for name, value in zip(HELD, typed):
-        if name in held and value is not None:
+        if value is not None and name in held:
             values[name] = bool(value) if name == "oil_changed" else value
     return values
+
+
+@functools.lru_cache(maxsize=256)
+def _layout(columns: str, held: str) -> tuple[list, frozenset]:
+    """A form-2 batch's array names and held names, read once per batch rather than per sample."""
+    held = frozenset(json.loads(held))
+    return [name for name in json.loads(columns) if name not in held], held
 
 
 def object_text(content: str, form: int, *rest) -> str:
@@ -417,27 +424,54 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
     when that batch was recorded (for replay).
     """
     _fill_temp(conn, "wanted_units", units)
-    sql = (f"SELECT {STORED_VALUES} FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
+    sql = (f"SELECT s.batch, {STORED_VALUES} FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
            "JOIN batches b ON b.batch = s.batch ")
     if before_batch is None:
         rows = conn.execute(sql + "WHERE s.superseded_in IS NULL ORDER BY s.entry").fetchall()
     else:
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
-    return stored_measures([object_text(*row) for row in rows],
-                           list(dict.fromkeys(name for row in rows for name in json.loads(row[2]))), ruleset)
+    return measures_of(stored_frame(rows), ruleset)
+
+
+def stored_frame(rows: list) -> pd.DataFrame | None:
+    """Stored samples (rows of s.batch then STORED_VALUES, in entry order) as one frame, each
+    batch's values read its own way (a form-2 batch's arrays all at once); None for no rows."""
+    frames = []
+    for (_, form), group in itertools.groupby(rows, key=lambda row: (row[0], row[2])):
+        group = list(group)
+        columns, contents = json.loads(group[0][3]), [row[1] for row in group]
+        if form == 1:
+            frames.append(frame_from_contents(contents, columns))
+            continue
+        held = json.loads(group[0][4])
+        frames.append(frame_from_arrays(contents, columns, held,
+                                        {name: [row[5 + HELD.index(name)] for row in group] for name in held}))
+    if len(frames) < 2:
+        return frames[0] if frames else None
+    frame = pd.concat(frames, ignore_index=True)
+    for name in frame.columns:
+        column = frame[name]
+        if column.dtype == object:  # a flag or text one batch lacks: None there, as a missing value reads
+            frame[name] = column.where(column.notna(), None)
+    frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
+    return frame
 
 
 def stored_measures(contents: list, columns: list, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
     """Stored samples' trend inputs (CHAIN_COLUMNS and the rule set's trend bases, then the
     readings `also` names), derived from their stored input values exactly as grading derives them."""
+    return measures_of(frame_from_contents(contents, columns) if contents else None, ruleset, also)
+
+
+def measures_of(frame: pd.DataFrame | None, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
+    """stored_measures of a frame of stored values (None: no samples)."""
     bases = trend_bases(ruleset)
     bases += tuple(name for name in also if name not in bases)
-    if not contents:
+    if frame is None or not len(frame):
         return pd.DataFrame({name: pd.Series(dtype=float if name in ("oil_hours",) + bases else object)
                              for name in list(CHAIN_COLUMNS) + list(bases)}).astype({"oil_changed": bool})
-    batch = read_cleanliness_codes(read_oil_changes(SampleBatch(frame_from_contents(contents, columns), (),
-                                                                len(contents), "ledger")))
+    batch = read_cleanliness_codes(read_oil_changes(SampleBatch(frame, (), len(frame), "ledger")))
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
     return chain_frame(measured, batch.frame.get("oil_changed"), bases).reset_index(drop=True)
 
