@@ -2,11 +2,12 @@
 
 Stored verdicts are facts (results/facts.py); their wording is put back from the rule set
 the batch was graded with, rebuilt from its stored canonical text (whose SHA-256 must
-still match). Replay (the verify command) checks the digest chain, each batch's counts,
-every sample's content against its fingerprint and its typed columns against its
-content, then re-grades each batch after the samples that were in the ledger when it
-was recorded and compares every fact. Any difference means the ledger, the rule set text
-or the engine changed what a verdict would be.
+still match). Replay (the verify command) answers two questions apart. Integrity: the
+digest chain, each batch's counts, every sample's typed columns against its stored values
+(and a form-1 sample's values against their fingerprint), the rule sets. Reproducibility:
+each batch re-graded after the samples that were in the ledger when it was recorded, every
+fact compared; a difference under the recording engine fails, one an older engine recorded
+in an intact batch is an engine change, listed apart.
 """
 
 from __future__ import annotations
@@ -261,7 +262,7 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", 
 
 
 # What a replay finding is about. Integrity: was anything altered, added or deleted (digest
-# chain, content fingerprints, typed columns against content, rule sets). Reproducibility:
+# chain, stored values, typed columns against values, rule sets). Reproducibility:
 # today's engine grades a stored sample otherwise than the same engine version recorded.
 # An engine change: it grades otherwise than an older engine version recorded, in an intact batch.
 INTEGRITY, REPRODUCIBILITY, ENGINE_CHANGE = "integrity", "reproducibility", "engine change"
@@ -576,7 +577,7 @@ def replay_lines(report: ReplayReport, strict: bool = False) -> list[str]:
                  f"rule set(s)")
     lines.append("integrity: " + (f"{len(report.integrity)} finding(s): rows, batches or rule sets altered, added or "
                                   f"deleted" if report.integrity else
-                                  "clean (digest chain, content fingerprints, typed columns against content, "
+                                  "clean (digest chain, stored values, typed columns against values, "
                                   "rule sets)"))
     same = report.checked - len({(d.sample_id, d.batch) for d in report.reproducibility + report.engine_changes
                                  if d.sample_id is not None})
