@@ -508,8 +508,7 @@ def _demo(args, stdin, stdout, stderr) -> int:
     rejects_path = out_dir / "brackwater-rejects.jsonl"
     _write_rejects(batch, rejects_path, stderr)
     report_path = out_dir / "brackwater-report.html"
-    report_command.write_report(results_path, report_path, rejects_path, rules,
-                                forecasts=[f.to_record() for f in graded.forecasts])
+    report_command.write_report(results_path, report_path, rejects_path, rules)
 
     grades = list(ruleset.grades) + ["unrated"]
     table = Counter(zip(graded.measured["class"].fillna("(none)"), graded.grades()))

@@ -77,15 +77,15 @@ def _texts_of(entry: dict, source, name: str, sample_id: str) -> dict:
     return {**entry, **texts}
 
 
-def write_report(results, out, rejects=None, rules=None, title: str = "", db=None, batch=None,
-                 forecasts=()) -> dict:
+def write_report(results, out, rejects=None, rules=None, title: str = "", db=None, batch=None) -> dict:
     """Read the inputs, write the report; returns counts for the command's summary line.
 
     From a ledger (`db`), the rule sets the results were graded with come from the ledger too,
     each sample with its own; `rules`, if given, must be one of them. Compact records need
-    `rules`: their texts come from it. `forecasts` are the grading's own (Forecast records),
-    when the caller graded the samples itself; from a ledger, each unit's stored samples are
-    re-graded for them (nothing is written); results files do not carry them.
+    `rules`: their texts come from it. Forecasts are those the records carry (a results file
+    of format 3); a ledger stores none, so each unit's stored samples are re-graded for them
+    (nothing is written) and each forecast is put on the record of the sample it was made
+    from, as `grade` writes it.
     """
     rulesets = None
     ruleset = load_ruleset(rules) if rules else None
@@ -96,19 +96,29 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
             raise InputError(f"{rules}: rule set {ruleset.id} sha256 {ruleset.sha256[:12]}... graded none of the "
                              f"ledger's results; its limits would be drawn wrongly (leave out --rules: the "
                              f"ledger holds the rule sets it graded with)")
-        if not forecasts:  # the engine's own, from each unit's stored samples re-graded (as `history` shows them)
-            units = dict.fromkeys(r.unit_id for r in stored if r.unit_id is not None)
-            forecasts = [f.to_record() for unit in units for f in unit_forecasts(db, unit)[1]]
+        records = with_forecasts(records, db, stored)
     else:
         records = parse_results(_text(results).splitlines(), str(results))
         if any(r.get("form") == COMPACT for r in records):
             records = with_texts(records, ruleset, str(results))
     rejected = parse_rejects(_text(rejects), str(rejects)) if rejects else ()
     html = render_report(records, rejected, ruleset, title=title or "", rejects_given=rejects is not None,
-                         forecasts=forecasts, rulesets=rulesets)
+                         rulesets=rulesets)
     Path(out).write_text(html, encoding="utf-8")
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
     return {"records": len(records), "flagged": flagged, "rejected": len(rejected), "bytes": len(html.encode())}
+
+
+def with_forecasts(records, db, stored) -> tuple:
+    """Ledger records with the engine's forecasts put on the samples they were made from: each
+    unit's stored samples re-graded, as `history` shows them (records rebuilt from a ledger say
+    null: it stores none)."""
+    units = dict.fromkeys(r.unit_id for r in stored if r.unit_id is not None)
+    made: dict = {}
+    for unit in units:
+        for f in unit_forecasts(db, unit)[1]:
+            made.setdefault(f.sample_id, []).append(f.to_record())
+    return tuple(dict(r, forecasts=made.get(r["sample_id"], [])) for r in records)
 
 
 def run(args, stdout, stderr) -> int:

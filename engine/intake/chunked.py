@@ -40,7 +40,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     seen = _SeenIds()
     offset = 0
     try:
-        for text in _chunk_texts(stream, fmt, rows, name):
+        for text, lines in _chunk_texts(stream, fmt, rows, name):
             # as UTF-8 bytes: a StringIO of the chunk would hold 4 bytes a character
             data, text = text.encode("utf-8"), None
             batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name, columns,
@@ -48,7 +48,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             data = None
             batch = _moved(batch, offset)
             batch = seen.check(batch)
-            offset += batch.rows_read
+            offset += lines  # the chunk's lines, blank ones included: rows are numbered by line
             yield batch
     except UnicodeDecodeError as exc:
         raise InputError(f"{name}: cannot read the file: {exc}") from None
@@ -58,10 +58,13 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
 
 
 def _chunk_texts(stream, fmt: str, rows: int, name: str):
-    """The file's text a chunk at a time; CSV chunks each start with the header line.
+    """The file's text a chunk at a time, with the number of its lines after any header; CSV chunks
+    each start with the header line.
 
     A CSV chunk never starts with a row of more fields than the header: pandas would take
-    such a first row's extra field as an index column and shift every row of the chunk.
+    such a first row's extra field as an index column and shift every row of the chunk. No
+    chunk starts with a blank line (blank lines stay with the chunk before), so none holds
+    only blank lines, which a reader takes for an empty file.
     """
     first = stream.readline().removeprefix("\ufeff")
     header, fields = "", 0
@@ -72,15 +75,16 @@ def _chunk_texts(stream, fmt: str, rows: int, name: str):
         fields = len(next(csv.reader([header]), []))
     lines, quotes, yielded = [first] if first else [], 0, False
     for line in stream:
-        if len(lines) >= rows and quotes % 2 == 0 and (fmt != "csv" or _starts_well(line, fields)):
-            text = header + "".join(lines)
+        if (len(lines) >= rows and quotes % 2 == 0 and line.strip()
+                and (fmt != "csv" or _starts_well(line, fields))):
+            text, count = header + "".join(lines), len(lines)
             lines, quotes, yielded = [], 0, True  # the lines go before the chunk is graded
-            yield text
+            yield text, count
         lines.append(line)
         if fmt == "csv":
             quotes += line.count('"')
     if lines or not yielded:
-        yield header + "".join(lines)
+        yield header + "".join(lines), len(lines)
 
 
 def _starts_well(line: str, fields: int) -> bool:

@@ -744,12 +744,12 @@ def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
 
 
 def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list[tuple]:
-    """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names) of the current
-    samples, or of one batch."""
+    """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names, batch source)
+    of the current samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    rows = conn.execute(f"SELECT sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names, {STORED_VALUES} "
-                        f"{_JOINS} WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ())
-    return [(object_text(*row[5:]),) + row[:5] for row in rows]
+    rows = conn.execute(f"SELECT sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names, b.source, "
+                        f"{STORED_VALUES} {_JOINS} WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ())
+    return [(object_text(*row[6:]),) + row[:6] for row in rows]
 
 
 def stored_rulesets(conn: sqlite3.Connection) -> list[dict]:

@@ -1,8 +1,9 @@
 """Write graded samples as CSV: one row a sample, reasons folded into short text columns.
 
 CSV suits spreadsheets and simple pipelines; the full reason records are in JSON Lines.
-`fired` lists rule=grade (with <capped-from where a caveat lowered it), highest grade
-first; `not_evaluated` lists rule(missing,...). Built column-wise like the JSON Lines
+`file` and `row` say where each sample was read (as the rejects file says it); `fired`
+lists rule=grade (with <capped-from where a caveat lowered it), highest grade first;
+`not_evaluated` lists rule(missing,...). Built column-wise like the JSON Lines
 writer: each rule's text once per state, joined over the rows.
 """
 
@@ -17,7 +18,7 @@ from sumpwise.render.jsonl import states
 from sumpwise.render.safe_text import spreadsheet_frame
 from sumpwise.results.records import UNRATED, GradedBatch, gap_at, record_shape_groups, rule_inputs
 
-COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "grade", "level", "fired", "caveats",
+COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "file", "row", "grade", "level", "fired", "caveats",
            "not_evaluated", "unrated_because", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
 
 
@@ -96,6 +97,9 @@ def csv_frame(batch: GradedBatch) -> pd.DataFrame:
     frame = pd.DataFrame({name: (measured[name].to_numpy(dtype=object) if name in measured.columns
                                  else np.full(n, None, dtype=object))
                           for name in ("sample_id", "unit_id", "class", "lubricant", "sampled_on")})
+    frame["file"] = batch.source  # the sample's origin, spelt as the rejects file spells it
+    index = batch.columns.index
+    frame["row"] = index.astype(str) if index is not None else ""
     frame["grade"] = np.array(list(rs.grades) + [UNRATED], dtype=object)[level]
     frame["level"] = np.array([str(k) for k in range(len(rs.grades))] + [""], dtype=object)[level]
     frame["fired"] = _fired(batch)

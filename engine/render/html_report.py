@@ -3,7 +3,8 @@
 No scripts, fonts, images or links to anything outside the file: it opens from a USB
 stick and prints. The report renders, it does not compute: every plotted value, grade,
 oil change and next step is read from the records the engine wrote (`derived` and
-`values`, `oil_changed` and the `oil-changed` caveat, the reasons). The rule set, when
+`values`, `oil_changed` and the `oil-changed` caveat, the reasons, the forecasts a record
+carries, the ISO 4406 code as the lab wrote it). The rule set, when
 given, says which measures each class's rules read (those are plotted) and where its
 ladder limits lie (those are drawn); without it the plots follow the records' findings.
 Trend plots are inline SVG (svg_plot.py), always against the sample date.
@@ -25,7 +26,7 @@ from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
-from sumpwise.render.narrative import step_phrase
+from sumpwise.render.narrative import rounded, step_phrase
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
                                       render_plot)
 
@@ -34,7 +35,8 @@ OIL_CHANGED_CAVEAT = "oil-changed"  # the caveat the engine raises on the first 
 
 _REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "ruleset": dict, "engine": str}
 # Keys a record may lack (older formats, the compact form) but that must have this type when present.
-_OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool}
+_OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool, "origin": dict, "iso4406": str,
+             "forecasts": list}
 
 
 def _json_objects(lines, name: str, what: str):
@@ -67,6 +69,8 @@ def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
             if key in record and record[key] is not None and not isinstance(record[key], kind):
                 raise InputError(f"{name}: line {number}: field '{key}': expected {kind.__name__}, "
                                  f"found {type(record[key]).__name__}")
+        for k, forecast in enumerate(record.get("forecasts") or ()):
+            _check_forecast(forecast, f"{name}: line {number}", f"forecasts[{k}]")
         level = record.get("level", "absent")
         if not (level is None or (isinstance(level, int) and not isinstance(level, bool) and level >= 0)):
             raise InputError(f"{name}: line {number}: field 'level': expected a whole number >= 0 or null, "
@@ -84,6 +88,30 @@ def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
     if not records:
         raise InputError(f"{name}: no result records in the file")
     return tuple(records)
+
+
+_FORECAST_NUMBERS = ("limit", "value")
+_FORECAST_TEXTS = ("rule", "measure", "grade")
+_FORECAST_OPTIONAL = {"on": str, "on_low": str, "on_high": str, "at_hours": (int, float), "unit": str}
+
+
+def _check_forecast(forecast, where: str, field: str) -> None:
+    """A forecast as a record carries it (derive.forecast.Forecast.to_record): what the report reads."""
+    if not isinstance(forecast, dict):
+        raise InputError(f"{where}: field '{field}': expected an object, found {type(forecast).__name__}")
+    for key in _FORECAST_TEXTS:
+        if not isinstance(forecast.get(key), str):
+            raise InputError(f"{where}: field '{field}.{key}': expected text, "
+                             f"found {type(forecast.get(key)).__name__}")
+    for key in _FORECAST_NUMBERS:
+        if isinstance(forecast.get(key), bool) or not isinstance(forecast.get(key), (int, float)):
+            raise InputError(f"{where}: field '{field}.{key}': expected a number, "
+                             f"found {type(forecast.get(key)).__name__}")
+    for key, kind in _FORECAST_OPTIONAL.items():
+        value = forecast.get(key)
+        if value is not None and (isinstance(value, bool) or not isinstance(value, kind)):
+            raise InputError(f"{where}: field '{field}.{key}': expected {'a number' if kind != str else 'text'} "
+                             f"or null, found {type(value).__name__}")
 
 
 def parse_rejects(text: str, name: str) -> tuple:
@@ -364,7 +392,15 @@ def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
     parts = [record["sample_id"], record.get("sampled_on") or ""]
     if isinstance(hours, (int, float)) and not isinstance(hours, bool):
         parts.append(f"oil hours {hours:g}")
-    return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}"
+    code = f" (code as written {record['iso4406']})" if measure.startswith("iso4406_") and record.get("iso4406") else ""
+    return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}{code}"
+
+
+def recorded_forecasts(records) -> list[dict]:
+    """The forecasts the records carry (format 3: each on the sample it was made from; older
+    records carry none), each with its unit and sample as the carrying record names them."""
+    return [dict(f, unit_id=record.get("unit_id"), sample_id=record["sample_id"])
+            for record in records for f in record.get("forecasts") or ()]
 
 
 def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: dict) -> tuple:
@@ -384,10 +420,13 @@ def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: 
 
 
 def forecast_text(f: dict) -> str:
-    """A forecast in words, with its band and the number of samples it was fitted on."""
+    """A forecast in words, with its band and the number of samples it was fitted on (oil hours
+    to 3 significant figures: the record keeps them in full)."""
     unit = f" {f['unit']}" if f.get("unit") else ""
+    hours = f"{rounded(f['at_hours'])} oil hours" if f.get("at_hours") is not None else ""
+    when = f"{f['on']} ({hours})" if f.get("on") and hours else f.get("on") or hours or "(no date or hours)"
     return (f"{f['rule']}: {f['measure']} reaches the {f['grade']} limit ({_number(f['limit'])}{unit}) about "
-            f"{f.get('on') or _number(f.get('at_hours')) + ' oil hours'}; band {f.get('on_low') or 'now'} to "
+            f"{when}; band {f.get('on_low') or 'now'} to "
             f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge")
 
 
@@ -598,17 +637,27 @@ def _reason_rows(record: dict, ladder: Ladder) -> str:
             limit = escape(limit_text(reason.get("test"), reason.get("limit"), unit))
         else:
             clauses = reason.get("clauses") or []
-            value = "<ul class='tight'>" + "".join(
+            value = "<ul class='tight'>" + "".join(  # each clause's value with its measure's unit (vocabulary)
                 f"<li>{escape(c.get('measure') or c.get('field') or '')} = <b>{escape(_number(c.get('value')))}"
-                f"</b></li>" for c in clauses) + "</ul>"
+                f"</b>{escape(_unit_after(c))}</li>" for c in clauses) + "</ul>"
             limit = "<ul class='tight'>" + "".join(
-                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit')))}"
+                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit'), _clause_unit(c)))}"
                 f": {'holds' if c.get('held') else 'does not hold'}</li>" for c in clauses) + "</ul>"
         rows.append(f"<tr class='reason'><td><b>{escape(reason['rule'])}</b><br><span class='reason-msg'>"
                     f"{escape(reason.get('message') or '')}</span></td><td>{grade}</td><td>{value}</td>"
                     f"<td>{limit}</td><td class='src'>{escape(reason.get('source') or '')}</td></tr>")
     return ("<table class='grid reasons'><thead><tr><th>rule</th><th>grade</th><th>value</th><th>limit</th>"
             "<th>source</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+
+
+def _clause_unit(clause: dict) -> str | None:
+    """A clause's unit: its measure's, from the vocabulary (a clause record names no unit)."""
+    return (measure_unit(clause["measure"]) or None) if clause.get("measure") else None
+
+
+def _unit_after(clause: dict) -> str:
+    unit = _clause_unit(clause)
+    return f" {unit}" if unit and isinstance(clause.get("value"), (int, float)) else ""
 
 
 def next_steps(record: dict) -> list[tuple[str, str]]:
@@ -632,6 +681,11 @@ def _latest(record: dict, ladder: Ladder) -> str:
         facts.append(f"oil hours {hours:g}")
     if record.get("method") and record["method"] != "direct":
         facts.append(f"oxidation by {record['method']}")
+    if record.get("iso4406"):
+        facts.append(f"ISO 4406 {record['iso4406']} as written")
+    origin = record.get("origin") or {}
+    if origin.get("file"):
+        facts.append(f"from {origin['file']}" + (f" row {origin['row']}" if origin.get("row") is not None else ""))
     parts = [f'<article class="latest" data-sample="{escape(record["sample_id"])}" '
              f'style="border-left-color:{grade_look(level).colour}">',
              f'<h4>Latest sample {escape(record["sample_id"])}: {_grade_cell(record["grade"], level)} '
@@ -666,7 +720,7 @@ def _finding_text(reason: dict) -> str:
     capped = f" (capped from {reason['capped_from']})" if reason.get("capped_from") else ""
     if "measure" in reason:
         return f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))}"
-    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}"
+    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}{_unit_after(c)}"
                      for c in reason.get("clauses") or () if c.get("held"))
     return f"{reason['rule']} {reason['grade']}{capped}: {held}"
 
@@ -748,11 +802,11 @@ def _plot_key(ruleset: RuleSet | None) -> str:
 
 
 def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: str = "",
-                  rejects_given: bool = True, forecasts=(), rulesets: dict | None = None) -> str:
+                  rejects_given: bool = True, rulesets: dict | None = None) -> str:
     """The whole report as one HTML document; `records` are result records as `grade` writes them.
 
-    `forecasts` are the engine's forecasts of when a unit's charge reaches a limit, as dicts
-    (derive.forecast.Forecast.to_record); each is drawn on its unit's plot and listed in its card.
+    The engine's forecasts of when a unit's charge reaches a limit are those the records carry
+    (recorded_forecasts); each is drawn on its unit's plot and listed in its card.
     Records graded under several rule sets need `rulesets`, every one of them by fingerprint
     (as a ledger hands them over); each unit is then drawn against its latest sample's own.
     """
@@ -781,6 +835,7 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
     notice = " ".join(notices) or (ruleset.notice if ruleset is not None else
                                    "the records do not carry the rule set's notice; read it in the rule set")
     views = unit_views(records, ruleset, rulesets)
+    forecasts = recorded_forecasts(records)
     heading = title or (ruleset.title if ruleset is not None else f"Graded samples, rule set {meta['id']}"
                         if len(graded_by) == 1 else f"Graded samples, {len(graded_by)} rule sets")
     dates = sorted(r["sampled_on"] for r in records if r.get("sampled_on"))

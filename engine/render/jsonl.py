@@ -39,7 +39,7 @@ class _Piece:
     def __init__(self, placeholder: _Placeholder):
         self.placeholder = placeholder
 
-    def to_record(self, form):
+    def to_record(self, form=None):  # forecasts' to_record takes no form
         return self.placeholder
 
 
@@ -61,6 +61,9 @@ class _TemplateValues:
 
     def flag(self, name: str, i: int):
         return self.slot("flag", name)
+
+    def row(self, i: int):
+        return self.slot("row", "row")
 
 
 def dumps(record: dict) -> str:
@@ -108,6 +111,10 @@ class _Literals:
         self.columns = columns
 
     def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
+        if kind == "row":  # the sample's row in its file (records.RowValues.row)
+            index = self.columns.index
+            return (np.full(len(rows), "null", dtype=object) if index is None
+                    else index[rows].astype(str).astype(object))
         if kind == "flag":
             values = self.columns.number(name)
             if values is None:
@@ -228,6 +235,9 @@ class _Writer:
         rules, top = len(self.out.slots), len(batch.ruleset.grades) - 1
         self.list_sizes = {"reasons": top * rules, "caveats": self.out.caveats.shape[1], "gaps": rules}
         self.list_slots: dict = {}  # list name -> its items' slots in the line, set with the first skeleton
+        carried = sorted(batch.forecast_rows.items())  # the rows whose records carry forecasts, in order
+        self.forecast_rows = np.array([row for row, _ in carried], dtype=np.int64)
+        self.forecast_texts = [", ".join(dumps(f.to_record()) for f in found) for _, found in carried]
         self.part_slots: list = []  # skeleton part p -> its slot
 
     def _reason_state(self, j: int, rows: np.ndarray) -> list[np.ndarray]:
@@ -305,7 +315,9 @@ class _Writer:
             result = replace(result, grade=values.slot("raw", "grade"), level=values.slot("raw", "level"),
                              reasons=pieces["reasons"], caveats=pieces["caveats"],
                              not_evaluated=pieces["gaps"],
-                             unrated_because=values.slot("raw", "unrated_because") if unrated else None)
+                             unrated_because=values.slot("raw", "unrated_because") if unrated else None,
+                             forecasts=(_Piece(values.slot("raw", "forecasts")),) if self.batch.forecasts_made
+                             else None)
             parts, names = _split_at_lists(_template(dumps(result.to_record(self.form)), values))
             if not self.list_slots:
                 self._lay_out(names)
@@ -332,6 +344,7 @@ class _Writer:
         block.raw["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
         block.raw["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"], dtype=object)[level]
         block.raw["unrated_because"] = np.full(len(rows), "", dtype=object)
+        block.raw["forecasts"] = self._forecast_items(rows)
         if unrated.any():
             block.raw["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
         for is_unrated in (False, True):
@@ -354,6 +367,18 @@ class _Writer:
             if len(noted):
                 self._caveats(block, k, noted)
         return block.text(list(self.list_slots.values()))
+
+    def _forecast_items(self, rows: np.ndarray) -> np.ndarray:
+        """The items of each row's `forecasts` list: empty but for each unit's latest sample."""
+        carriers, texts = self.forecast_rows, self.forecast_texts
+        items = np.full(len(rows), "", dtype=object)
+        if len(rows) and len(carriers):  # rows: a block, in order
+            start, stop = np.searchsorted(carriers, [rows[0], rows[-1] + 1])
+            inside = carriers[start:stop]
+            at = np.searchsorted(rows, inside)
+            here = rows[np.minimum(at, len(rows) - 1)] == inside
+            items[at[here]] = np.array(texts[start:stop], dtype=object)[here]
+        return items
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import math
 import textwrap
 
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
+from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.results.records import SampleResult
 from sumpwise.render.safe_text import terminal_lines
 
@@ -22,6 +24,21 @@ def _number(value) -> str:
     return str(value)
 
 
+def rounded(value, figures: int = 3) -> str:
+    """A number for people: `figures` significant figures, never an exponent, thousands grouped
+    (53348.339 -> 53,300; 276.614 -> 277; 0.04567 -> 0.0457). Records keep full precision."""
+    if value is None:
+        return "missing"
+    value = float(value)
+    if value == 0 or not math.isfinite(value):
+        return f"{value:g}"
+    digits = figures - 1 - math.floor(math.log10(abs(value)))
+    value = round(value, digits)
+    if digits <= 0:
+        return f"{value:,.0f}"
+    return f"{value:,.{digits}f}".rstrip("0").rstrip(".")
+
+
 def step_phrase(task: str, within_days: int | None) -> str:
     """A next step in words: 'Resample (within 7 days of sampling)'."""
     if within_days is None:
@@ -36,10 +53,12 @@ def _limit_phrase(test: str, limit, unit: str | None) -> str:
 def _clause_line(clause) -> str:
     name = clause.measure or clause.field
     held = "holds" if clause.held else "does not hold"
+    unit = measure_unit(clause.measure) if clause.measure else None  # the vocabulary's unit of the measure
+    shown = f"{_number(clause.value)} {unit}" if unit and clause.value is not None else _number(clause.value)
     if clause.test == "missing":
         wanted = "is missing" if clause.limit else "is present"
-        return f"{name} {wanted}: {held} (value {_number(clause.value)})"
-    return f"{name} = {_number(clause.value)}, test {_limit_phrase(clause.test, clause.limit, None)}: {held}"
+        return f"{name} {wanted}: {held} (value {shown})"
+    return f"{name} = {shown}, test {_limit_phrase(clause.test, clause.limit, unit)}: {held}"
 
 
 def wrapper(width: int = 88):
@@ -59,28 +78,34 @@ def forecast_lines(forecasts, wrap=None) -> list[str]:
         return []
     wrap = wrap or wrapper()
     lines = ["", "When will it cross? (this unit's current oil charge, fitted up to this sample):"]
-    for f in forecasts:
+    for f in forecasts:  # hours and the fit to 3 significant figures: the record keeps them in full
         unit = f" {f.unit}" if f.unit else ""
-        low = f"{_number(f.at_hours_low)} h" if f.at_hours_low is not None else "now"
-        high = f"{_number(f.at_hours_high)} h" if f.at_hours_high is not None else "beyond the horizon"
+        low = f"{rounded(f.at_hours_low)} h" if f.at_hours_low is not None else "now"
+        high = f"{rounded(f.at_hours_high)} h" if f.at_hours_high is not None else "beyond the horizon"
         when = f" (about {f.on}; {f.on_low or 'now'} to {f.on_high or 'later'})" if f.on else ""
         lines.extend(wrap(
             f"{f.rule}: {f.measure} reaches the {f.grade} limit ({_limit_phrase(f.test, f.limit, f.unit or None)}) "
-            f"at about {_number(f.at_hours)} oil hours, {_number(f.hours_to_go)} h from this sample's "
+            f"at about {rounded(f.at_hours)} oil hours, {rounded(f.hours_to_go)} h from this sample's "
             f"{_number(f.oil_hours)} h{when}; 95 % prediction band {low} to {high} (horizon "
-            f"{_number(f.horizon_hours)} h). Fit over {f.samples} samples: {_number(f.slope_per_1000h)}{unit} per "
-            f"1000 h, t = {_number(f.slope_t)}.", "  - "))
+            f"{rounded(f.horizon_hours)} h). Fit over {f.samples} samples: {rounded(f.slope_per_1000h)}{unit} per "
+            f"1000 h, t = {rounded(f.slope_t)}.", "  - "))
     lines.extend(wrap(f"Method: {forecasts[0].method}.", "  "))
     return lines
 
 
 def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecasts=()) -> list[str]:
     """The narrative of one sample's grade, reason by reason, with sources and cautions;
-    `forecasts` (derive.forecast.Forecast, made from this sample) add their paragraph."""
+    `forecasts` (derive.forecast.Forecast, made from this sample; by default the result's own)
+    add their paragraph."""
     wrap = wrapper(width)
+    forecasts = forecasts or result.forecasts or ()
 
     lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
              f"lubricant {result.lubricant or '(none)'}, sampled {result.sampled_on or '(date not given)'}"]
+    read = ([f"Read from {result.file}, row {result.row}"] if result.row is not None else []) + (
+        [f"ISO 4406 code as written {result.iso4406}"] if result.iso4406 else [])
+    if read:
+        lines.extend(wrap("; ".join(read) + ".", "  "))
     if result.comment:
         lines.extend(wrap(f"Lab comment: {result.comment}", "  "))
     if result.level is None:

@@ -3,7 +3,8 @@
 Grades are told apart by a marker as well as by name, so the table reads the same
 without colour: one more '+' for each step up the ladder. Rows whose records have the
 same shape share one 'why' text, so the table is built column-wise like the JSON Lines
-writer. Long runs report progress on a terminal's standard error, and stay quiet when
+writer. Each line gives the sample's row in its file (as the rejects number it); the footer
+names the file. Long runs report progress on a terminal's standard error, and stay quiet when
 it is a file or a pipe.
 """
 
@@ -80,13 +81,16 @@ def table_rows(batch: GradedBatch, width: int = WIDTH) -> tuple[str, pd.Series]:
     sample_ids = _text_column(measured, "sample_id")
     units = _text_column(measured, "unit_id")
     classes = _text_column(measured, "class")
+    index = batch.columns.index  # each sample's row in its file; the footer names the file
+    rows = pd.Series(index.astype(str) if index is not None else np.full(len(measured), ""), dtype=object)
+    row_w = max([len("row")] + rows.str.len().tolist())
     sid = min(max([len("sample")] + sample_ids.str.len().tolist()), 16)
     unit = min(max([len("unit")] + units.str.len().tolist()), 10)
     cls = min(max([len("class")] + classes.str.len().tolist()), 16)
     grades = list(batch.ruleset.grades)
     name_w = min(max(len(g) for g in grades + [UNRATED]), 12)
     grade_w = min(name_w + 1 + max(1, len(grades) - 1), 24)
-    head = f"{'sample':<{sid}}  {'unit':<{unit}}  {'class':<{cls}}  {'grade':<{grade_w}}  "
+    head = f"{'sample':<{sid}}  {'row':>{row_w}}  {'unit':<{unit}}  {'class':<{cls}}  {'grade':<{grade_w}}  "
     rest = width - len(head)
     if len(batch) == 0:
         return head + "why", pd.Series([], dtype=object)
@@ -95,7 +99,7 @@ def table_rows(batch: GradedBatch, width: int = WIDTH) -> tuple[str, pd.Series]:
     grade_text = np.array([_cut(f"{_cut(r.grade, name_w)} {grade_marker(r.level)}", grade_w).ljust(grade_w)
                            for r in shapes], dtype=object)
     why_text = np.array([_cut(terminal_text(_why(r)), rest) for r in shapes], dtype=object)
-    lines = (_cut_column(sample_ids, sid) + "  " + _cut_column(units, unit) + "  " + _cut_column(classes, cls)
+    lines = (_cut_column(sample_ids, sid) + "  " + rows.str.rjust(row_w) + "  " + _cut_column(units, unit) + "  " + _cut_column(classes, cls)
              + "  " + pd.Series(grade_text[group]) + "  " + pd.Series(why_text[group]))
     return head + "why", lines.str.rstrip()
 
@@ -107,7 +111,7 @@ def footer_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
     ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(batch.ruleset.grades) + [UNRATED])
     rs = batch.ruleset
     lines = ["-" * width]
-    lines.extend(_wrap(f"read {counts['read']}: graded {counts['graded']}, unrated {counts['unrated']}, "
+    lines.extend(_wrap(f"{terminal_text(batch.source)}: read {counts['read']}: graded {counts['graded']}, unrated {counts['unrated']}, "
                        f"rejected {counts['rejected']}  ({ladder})", width))
     lines.extend(_wrap(f"rule set {rs.id} version {rs.version}, sha256 {rs.sha256[:16]}..., {engine_name()}",
                        width))

@@ -71,6 +71,9 @@ class _Slots:
     def flag(self, name: str, i: int) -> _Slot:
         return _Slot("flag", name)
 
+    def row(self, i: int) -> _Slot:  # not a fact: the ledger keeps no row of a graded sample
+        return _Slot("row", "row")
+
 
 class _Value:
     """A real per-sample value, marked so it lands in the values array, not in the shape."""
@@ -271,11 +274,14 @@ def _filled(item, values: list):
 
 
 def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet, engine: str,
-                      names: dict) -> SampleResult:
+                      names: dict, source: str | None = None) -> SampleResult:
     """A stored result with its wording put back from the rule set it was graded with.
 
     `shape` is a parsed shape, `values` its parsed values array (ending with what `names`
-    lists, see record_names), `sample` the sample's stored input fields (name -> value).
+    lists, see record_names), `sample` the sample's stored input fields (name -> value),
+    `source` the file its batch was read from. What the facts do not hold, the result says so:
+    its row is None (a ledger keeps no row of a graded sample) and its forecasts None (none
+    are stored; `report --db` re-grades a unit's samples for them).
     """
     value_names, derived_names = list(names.get("values", ())), list(names.get("derived", ()))
     oil_changed = bool(values[-1]) if names.get("oil_changed") else False
@@ -317,7 +323,8 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
         values=tuple((name, _number(value)) for name, value in recorded),
         method=_text(sample.get("method")), spectrum=_text(sample.get("spectrum")),
         reference_spectrum=_text(sample.get("reference_spectrum")), oil_changed=oil_changed, derived=derived,
-        comment=_text(sample.get("comment")), comment_given="comment" in sample)
+        comment=_text(sample.get("comment")), comment_given="comment" in sample, file=source,
+        iso4406=_text(sample.get("iso4406")), forecasts=None)
 
 
 def _text(value):

@@ -23,11 +23,13 @@ from sumpwise.derive.trends import (CHAIN_COLUMNS, TREND_CAVEATS, add_trend_meas
 from sumpwise.vocabulary.problems import InputError
 
 
-def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None) -> GradedBatch:
+def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | None = None,
+                forecasts: bool = True) -> GradedBatch:
     """Derive measures for the accepted rows and evaluate the rule set over them.
 
     Trend measures compare each sample with its unit's previous one: within the batch, after the
     earlier samples in `history` (trends.CHAIN_COLUMNS and the measures; a ledger supplies it).
+    `forecasts=False` makes none (its records then say null, not an empty list).
     """
     batch = read_cleanliness_codes(read_oil_changes(batch))
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
@@ -55,7 +57,8 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
         carried += ("oxidation_differential",)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
                        TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS,
-                       forecast(measured, ruleset), recorded_derived(ruleset, measured))
+                       forecast(measured, ruleset) if forecasts else (), recorded_derived(ruleset, measured),
+                       forecasts)
 
 
 def grade(samples, ruleset: RuleSet, columns: ColumnMap | None = None) -> GradedBatch:
@@ -77,22 +80,35 @@ def grade_in_chunks(batches, ruleset: RuleSet):
     samples in earlier chunks; a sample that would sort before its unit's carried sample is
     refused with an InputError (sort the file by date, or use larger chunks), never graded
     against the wrong predecessor.
+
+    Forecasts are made only when the file is one chunk: a forecast is fitted over a unit's
+    whole current oil charge and carried by the unit's latest sample, which an earlier chunk
+    cannot know. So the next chunk is read after a chunk is graded and before it is yielded
+    (its samples are held while the chunk is written: about one chunk's input more memory),
+    and the records of a file of several chunks say `forecasts: null` (forecasts not made),
+    never a partial fit.
     """
     bases = trend_bases(ruleset)
     history = None
-    for batch in batches:
+    batches = iter(batches)
+    batch, first = next(batches, None), True
+    while batch is not None:
         batch = read_oil_changes(batch)
         if history is not None and len(history):
             _check_order(batch, history)
-        graded = grade_batch(batch, ruleset, history)
+        graded = grade_batch(batch, ruleset, history, forecasts=False)
         history = _latest_per_unit(history, graded.measured, bases)
+        following = next(batches, None)
+        if first and following is None:  # the whole file in one chunk: its forecasts are whole
+            graded = replace(graded, forecasts=forecast(graded.measured, ruleset), forecasts_made=True)
         yield graded
+        batch, first = following, False
 
 
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """(date, oil hours) sort keys as trends order samples: unreadable dates and missing hours last."""
-    dates = pd.to_datetime(pd.Series(frame["sampled_on"].to_numpy(dtype=object), dtype=object), errors="coerce",
-                           format="ISO8601")
+    written = frame["sampled_on"].to_numpy(dtype=object) if "sampled_on" in frame else np.full(len(frame), None)
+    dates = pd.to_datetime(pd.Series(written, dtype=object), errors="coerce", format="ISO8601")
     keys = np.where(dates.isna().to_numpy(), _LAST, dates.to_numpy(dtype="datetime64[ns]").view(np.int64))
     hours = frame["oil_hours"].to_numpy(dtype=float) if "oil_hours" in frame else np.full(len(frame), np.nan)
     return keys, np.where(np.isnan(hours), np.inf, hours)

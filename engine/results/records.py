@@ -8,11 +8,17 @@ A record comes in two forms of one format (FORMAT): `full`, self-contained, with
 message, source and the notice; and `compact`, every fact with the texts left to the
 fingerprinted rule set it names. (The ledger stores facts, not record text: ledgers of the
 record before formats are migrated to facts.)
+
+Format 3 added `origin` (the file and row a sample came from, spelt as the rejects file
+spells them), `iso4406` (the cleanliness code as the lab wrote it, or null) and `forecasts`
+(the engine's forecasts made from this sample: see `forecast_rows`).
+A reader of records takes format 2 records too: they lack those keys.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -24,7 +30,7 @@ from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, condition_meas
 
 UNRATED = "unrated"
 
-FORMAT = 2  # the record's format version; it grows when a record gains or loses a key
+FORMAT = 3  # the record's format version; it grows when a record gains or loses a key
 FULL, COMPACT = "full", "compact"
 FORMS = (FULL, COMPACT)
 
@@ -170,6 +176,9 @@ class SampleResult:
     derived: tuple = ()  # (name, value) of derived measures, as the engine computed and graded them
     comment: str | None = None  # the lab's free-text remark, when the samples file has a comment column
     comment_given: bool = False
+    file: str | None = None  # the file the sample came from, as the rejects name it (`row` is its row there)
+    iso4406: str | None = None  # the ISO 4406 cleanliness code as the lab wrote it (18/16/13)
+    forecasts: tuple | None = ()  # derive.forecast.Forecast made from this sample; None: no forecasts were made
 
     def to_record(self, form: str = FULL) -> dict:
         """The JSON Lines record; key names are the contract, key order is fixed per form."""
@@ -177,13 +186,15 @@ class SampleResult:
             raise ValueError(f"no record form {form!r}; expected one of {', '.join(FORMS)}")
         record: dict = {"format": FORMAT, "form": form, "sample_id": self.sample_id, "unit_id": self.unit_id}
         record["class"] = self.class_name
-        record.update(lubricant=self.lubricant, sampled_on=self.sampled_on, oil_changed=self.oil_changed,
-                      values=dict(self.values), derived=dict(self.derived))
+        record.update(lubricant=self.lubricant, sampled_on=self.sampled_on,
+                      origin={"file": self.file, "row": self.row}, oil_changed=self.oil_changed,
+                      values=dict(self.values), iso4406=self.iso4406, derived=dict(self.derived))
         record.update(method=self.method, spectrum=self.spectrum, reference_spectrum=self.reference_spectrum,
                       grade=self.grade, level=self.level,
                       reasons=[r.to_record(form) for r in self.reasons],
                       caveats=[c.to_record(form) for c in self.caveats],
-                      not_evaluated=[n.to_record(form) for n in self.not_evaluated])
+                      not_evaluated=[n.to_record(form) for n in self.not_evaluated],
+                      forecasts=None if self.forecasts is None else [f.to_record() for f in self.forecasts])
         if self.unrated_because is not None:
             record["unrated_because"] = self.unrated_because
         if self.comment_given:
@@ -228,6 +239,7 @@ class GradedBatch:
     engine_caveats: tuple = ()  # caveats the engine raises itself; their outcome columns follow the rule set's
     forecasts: tuple = ()  # derive.forecast.Forecast: when each unit's current charge reaches a rule's next limit
     derived_columns: tuple = ()  # derived measures recorded with each result (see recorded_derived)
+    forecasts_made: bool = True  # False: no forecasts were made (a file graded in several chunks); records say null
     columns: "ColumnArrays" = field(init=False, repr=False, compare=False)
 
     def __post_init__(self):
@@ -255,6 +267,19 @@ class GradedBatch:
         values = BlockValues(self.columns)
         for i in range(len(self)):
             yield build_result(self, i, values)
+
+    @cached_property
+    def forecast_rows(self) -> dict:
+        """Row -> the forecasts made from that row's sample. A forecast is made from its unit's
+        latest sample of the batch (Forecast.sample_id), so that record carries it; sample ids
+        are unique within a batch (intake rejects a repeated one)."""
+        if not self.forecasts:
+            return {}
+        rows = dict(zip(self.columns.text("sample_id").tolist(), range(len(self))))
+        found: dict = {}
+        for f in self.forecasts:
+            found.setdefault(rows[f.sample_id], []).append(f)
+        return {row: tuple(items) for row, items in found.items()}
 
     def find(self, sample_id: str) -> SampleResult | None:
         hits = np.flatnonzero(self.columns.text("sample_id") == sample_id)
@@ -345,6 +370,11 @@ class RowValues:
     def flag(self, name: str, i: int) -> bool:
         values = self.columns.number(name)
         return bool(values is not None and values[i] == 1.0)
+
+    def row(self, i: int) -> int | None:
+        """The sample's row in its file (the rejects' numbering), None when the frame has no row index."""
+        index = self.columns.index
+        return None if index is None else int(index[i])
 
 
 class BlockValues(RowValues):
@@ -479,14 +509,14 @@ def build_result(batch: GradedBatch, i: int, values) -> SampleResult:
         grade=grades[level] if level >= 0 else UNRATED, level=level if level >= 0 else None,
         reasons=tuple(reasons), caveats=tuple(caveats), not_evaluated=tuple(not_evaluated), notice=rs.notice,
         ruleset_id=rs.id, ruleset_version=rs.version, ruleset_sha256=rs.sha256, engine=engine_name(),
-        row=int(batch.columns.index[i]) if batch.columns.index is not None else None,
-        unrated_because=unrated_because,
+        row=values.row(i), file=batch.source, unrated_because=unrated_because,
         values=tuple((name, values.number(name, i)) for name in batch.value_columns),
         method=values.text("method", i), spectrum=values.text("spectrum", i),
         reference_spectrum=values.text("reference_spectrum", i), oil_changed=values.flag("oil_changed", i),
         derived=tuple((name, values.number(name, i)) for name in batch.derived_columns),
         comment=values.text("comment", i) if "comment" in batch.measured.columns else None,
-        comment_given="comment" in batch.measured.columns)
+        comment_given="comment" in batch.measured.columns, iso4406=values.text("iso4406", i),
+        forecasts=batch.forecast_rows.get(i, ()) if batch.forecasts_made else None)
 
 
 def _capped_by(rs: RuleSet, out: Outcome, i: int, rule, final: int) -> str | None:

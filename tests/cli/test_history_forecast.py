@@ -37,13 +37,15 @@ def test_history_says_when_a_steadily_rising_value_crosses_its_limit(tmp_path):
     assert run.code == 0, run.err
     text = " ".join(run.out.split())
     assert "When will it cross?" in text and "brackwater-site version" in text
-    found = re.search(r"water: water reaches the (\w+) limit \(above ([\d.]+) ppm\) at about ([\d.]+) oil hours",
+    found = re.search(r"water: water reaches the (\w+) limit \(above ([\d.]+) ppm\) at about ([\d,.]+) oil hours",
                       text)
     assert found, run.out
-    limit, at_hours = float(found.group(2)), float(found.group(3))
+    limit, at_hours = float(found.group(2)), float(found.group(3).replace(",", ""))
     assert limit > WATER[-1]
     slope, intercept = np.polyfit(HOURS, WATER, 1)  # ordinary least squares, numpy's own
-    assert abs(at_hours - (limit - intercept) / slope) < 1.0  # printed to 6 significant figures
+    expected = (limit - intercept) / slope
+    assert abs(at_hours - expected) <= 0.005 * expected  # printed for people, to 3 significant figures
+    assert found.group(3) == f"{float(f'{expected:.3g}'):,.0f}"
     assert at_hours > HOURS[-1]
     # the table is still there, and the cautions follow the forecasts
     assert all(f"ST9-{k:02d}" in run.out for k in range(5))

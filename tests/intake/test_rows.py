@@ -3,6 +3,7 @@ rows too long and too short rejected alike, non-finite numbers and duplicate col
 file and standard input alike, nested JSON values rejected with the field."""
 
 import io
+import json
 
 import pytest
 from conftest import ROOT, run_cli
@@ -80,7 +81,9 @@ def test_file_and_standard_input_give_the_same_results_and_counts(tmp_path):
     path.write_text(text, encoding="utf-8")
     from_file = run_cli("grade", path, "--rules", SITE)
     from_stdin = run_cli("grade", "-", "--rules", SITE, stdin=text)
-    assert from_file.out == from_stdin.out
+    # the same records, each naming its origin as the rejects do: the file, or <stdin>
+    assert '"origin": {"file": "<stdin>", "row": 3}' in from_stdin.out
+    assert from_file.out.replace(json.dumps(str(path)), '"<stdin>"') == from_stdin.out
     assert from_file.err.replace(str(path), "<stdin>") == from_stdin.err
     assert "read 4 row(s): 1 graded, 0 unrated, 3 rejected" in from_file.err
 

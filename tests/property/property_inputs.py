@@ -73,15 +73,16 @@ def to_csv(rows, header=HEADER) -> str:
 
 
 class Graded:
-    """One grade run: exit code, verdict by sample id, rejected ids and the summary counts."""
+    """One grade run: exit code, verdict and origin (file, row) by sample id, and the summary counts."""
 
     def __init__(self, run):
         self.code, self.err = run.code, run.err
-        self.verdicts = {}
+        self.verdicts, self.origins = {}, {}
         for line in run.out.splitlines():
             record = json.loads(line)
             self.verdicts[record["sample_id"]] = (record["grade"], record["level"],
                                                   tuple(r["rule"] for r in record["reasons"]))
+            self.origins[record["sample_id"]] = (record["origin"]["file"], record["origin"]["row"])
         found = SUMMARY.search(run.err)
         self.counts = tuple(int(x) for x in found.groups()) if found else None
 

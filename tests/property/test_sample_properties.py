@@ -18,6 +18,9 @@ def test_any_export_is_graded_without_a_bug_and_the_counts_add_up(rows):
     assert read == len(rows) and graded + unrated + rejected == read
     assert len(result.verdicts) == graded + unrated
     assert all(grade_ == "unrated" for grade_, level, _ in result.verdicts.values() if level is None)
+    # each record names the row its sample was written on (the N-th line after the header)
+    assert result.origins == {row["sample_id"]: ("<stdin>", n) for n, row in enumerate(rows, 1)
+                              if row["sample_id"] in result.verdicts}
 
 
 @given(rows=sample_rows(min_rows=2, max_rows=8), seed=st.integers(0, 2**16))
@@ -70,5 +73,6 @@ def test_rows_too_short_or_too_long_never_misname_a_sample(rows, ragged):
     assert_no_bug(result.code, result.err)
     written = {row["sample_id"] for row in rows}
     assert set(result.verdicts) <= written
+    assert all(damaged[row].split(",")[0] == sid for sid, (_, row) in result.origins.items())  # its own line
     read, graded, unrated, rejected = result.counts
     assert read == len(rows) and graded + unrated + rejected == read

@@ -518,7 +518,11 @@ def test_a_forecast_is_drawn_from_the_last_sample_to_the_limit_it_reaches(graded
     assert drawn.x_low == date(2027, 1, 15).toordinal() and drawn.x_high is None
     assert drawn.level == ruleset.grades.index("alert")
     assert plots["an_rise"].projections == ()  # no date to place it on an axis of dates
-    html = render_report(graded["records"], (), ruleset, forecasts=[ahead])
+    # the report draws the forecasts the records carry: this one alone, on the latest sample's record, as `grade`
+    # puts a forecast on the sample it was made from (the engine's own forecasts taken off)
+    records = [dict(r, forecasts=[ahead] if r["sample_id"] == latest["sample_id"] else [])
+               for r in graded["records"]]
+    html = render_report(records, (), ruleset)
     section = _sections(html)["ST-1"]
     assert section.count('class="projection"') == 1
     assert "water reaches the alert limit (300 ppm) about 2027-03-01" in _flat(section)
@@ -567,3 +571,16 @@ def test_an_oil_change_flagged_in_the_samples_file_is_drawn(tmp_path):
     water = next(p for p in unit_plots(view, Ladder.of(records, ruleset)) if p.title == "water")
     assert [[p.label.split(" · ")[0] for p in run] for run in water.runs] == [["A", "B"], ["C"]]
     assert len(water.marks) == 1 and water.marks[0].label == "oil changed"
+
+
+def test_condition_clauses_show_each_value_and_limit_with_its_measures_unit():
+    # BP-0412 of the rule-language draft: young-oil-oxidising holds on oil_hours 1500 h (below 2000 h) and
+    # oxidation_rise 19 abs/cm (above 10 abs/cm); the units are the measure table's (engine/vocabulary/measures.py)
+    from sumpwise import grade, read_samples
+    from sumpwise.render.jsonl import dumps
+    ruleset = load_ruleset(ROOT / "tests" / "data" / "rulesets" / "draft.yaml")
+    record = json.loads(dumps(grade(read_samples(ROOT / "tests" / "data" / "samples" / "draft-record.csv"), ruleset)
+                              .result(0).to_record()))
+    html = _flat(render_report([record], (), ruleset))
+    assert "oil_hours = 1500 h" in html and "below 2000 h: holds" in html
+    assert "oxidation_rise = 19 abs/cm" in html and "above 10 abs/cm: holds" in html

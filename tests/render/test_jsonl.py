@@ -23,6 +23,13 @@ def test_bulk_writer_matches_each_record_byte_for_byte():
     for line, result in zip(lines, graded.results()):
         assert line == dumps(result.to_record())
         assert json.loads(line)["sample_id"] == result.sample_id
+    # the scenario's forecasts and cleanliness codes are in it: each forecast on the one record it was made from
+    records = [json.loads(line) for line in lines]
+    assert sum(len(r["forecasts"]) for r in records) == len(graded.forecasts) > 0
+    assert all(f["sample_id"] == r["sample_id"] for r in records for f in r["forecasts"])
+    assert any(r["iso4406"] for r in records)
+    compact = "".join(jsonl_lines(graded, form="compact")).splitlines()
+    assert compact == [dumps(result.to_record("compact")) for result in graded.results()]
 
 
 def test_awkward_text_is_escaped():
@@ -139,7 +146,7 @@ def test_compact_records_are_the_same_bytes_across_processes(tmp_path):
         outputs.append(target.read_bytes())
     assert outputs[0] == outputs[1]
     first = json.loads(outputs[0].splitlines()[0])
-    assert first["format"] == 2 and first["form"] == "compact" and "notice" not in first
+    assert first["format"] == 3 and first["form"] == "compact" and "notice" not in first
 
 
 def test_the_record_option_names_a_json_lines_form():
@@ -164,4 +171,37 @@ def test_compact_records_equal_the_per_row_peers_on_random_samples_of_every_clas
     graded = grade(read_samples(tmp_path / "s.csv"), ruleset)
     ours = "".join(jsonl_lines(graded, form="compact"))
     assert ours.count("\n") == 1500
+    assert (tmp_path / "peer.jsonl").read_text(encoding="utf-8") == ours
+
+
+def test_forecasts_in_compact_records_equal_the_per_row_peers_on_dated_units(tmp_path):
+    # Units sampled weekly with oil hours climbing, a few rising acid numbers and viscosities among noisy
+    # readings, some oil hours missing: the engine forecasts some of them, and the peer, fitting each unit's
+    # charge the long way in plain Python, must write the very same forecasts on the very same records
+    # (invented data; the forecast method itself is checked against scipy in tests/derive/test_forecast.py).
+    import numpy as np
+    import pandas as pd
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    rng = np.random.default_rng(5)
+    n, units = 2400, 120
+    k = np.arange(n)
+    classes = np.array(sorted(ruleset.classes))[(k % units) % len(ruleset.classes)]
+    lubricants = {name: next(iter(sorted(ruleset.lubricants))) for name in ruleset.classes}
+    frame = pd.DataFrame({
+        "sample_id": np.char.add("S", k.astype(str)), "unit_id": np.char.add("U", (k % units).astype(str)),
+        "class": classes, "lubricant": [lubricants[c] for c in classes],
+        "sampled_on": (pd.Timestamp("2026-01-01") + pd.to_timedelta(k // units * 7, unit="D")).strftime("%Y-%m-%d"),
+        "oil_hours": (k // units * 150 + (k % units) * 10).astype(float),
+        "kv40": (46.0 * rng.normal(1.0, 0.01, n) * (1 + (k // units) * 0.004 * (k % 4 == 0))).round(2),
+        "an": (0.1 + np.abs(rng.normal(0, 0.03, n)) + (k // units) * 0.01 * (k % 3 == 0)).round(2),
+        "water": np.abs(rng.normal(150, 40, n)).round(0),
+    })
+    frame.loc[k % 37 == 0, "oil_hours"] = np.nan
+    frame.to_csv(tmp_path / "s.csv", index=False)
+    subprocess.run([sys.executable, str(ROOT / "benchmarks" / "peer_per_row.py"), str(tmp_path / "s.csv"),
+                    "--rules", str(ROOT / "benchmarks" / "all-classes.yaml"), "--out", str(tmp_path / "peer.jsonl")],
+                   check=True, capture_output=True)
+    graded = grade(read_samples(tmp_path / "s.csv"), ruleset)
+    assert len(graded.forecasts) >= 10 and all(f.on for f in graded.forecasts)
+    ours = "".join(jsonl_lines(graded, form="compact"))
     assert (tmp_path / "peer.jsonl").read_text(encoding="utf-8") == ours

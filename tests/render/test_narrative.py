@@ -14,7 +14,8 @@ def test_explain_tells_the_whole_story():
     assert "Grade: WATCH (level 1 on the ladder normal < watch < alert < urgent)" in text
     assert "an_rise = 0.15 mg KOH/g, above 0.1 mg KOH/g (the watch limit)." in text
     assert "carbonyl-rise: watch (would be alert; capped by caveat ester-carbonyl)" in text
-    assert "oil_hours = 1500, test below 2000: holds" in text
+    assert "oil_hours = 1500 h, test below 2000 h: holds" in text  # each clause read with its measure's unit
+    assert "Read from " in text and "draft-record.csv, row 1." in text  # where the sample came from
     assert "Source: site practice" in text
     assert "ester-carbonyl: Ester base stock" in text
     assert "visc-drift: lacks kv40" in text

@@ -50,7 +50,11 @@ def test_records_have_a_format_and_a_fixed_key_order_per_form():
     graded = grade(read_samples(SAMPLES), load_ruleset(SITE))
     result = graded.find("BP-0013")
     full, compact = (list(result.to_record(form)) for form in ("full", "compact"))
-    assert full[:3] == ["format", "form", "sample_id"] and result.to_record()["format"] == 2
+    assert full[:3] == ["format", "form", "sample_id"] and result.to_record()["format"] == 3
+    assert full == ["format", "form", "sample_id", "unit_id", "class", "lubricant", "sampled_on", "origin",
+                    "oil_changed", "values", "iso4406", "derived", "method", "spectrum", "reference_spectrum",
+                    "grade", "level", "reasons", "caveats", "not_evaluated", "forecasts", "notice", "ruleset",
+                    "engine"]
     assert full[-3:] == ["notice", "ruleset", "engine"]
     assert compact == [key for key in full if key != "notice"]
     with pytest.raises(ValueError, match="no record form 'format-1'"):
