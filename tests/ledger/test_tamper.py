@@ -110,6 +110,8 @@ def test_the_newest_batch_deleted_changes_the_head_a_reader_noted(clean, tmp_pat
     assert after.differences == ()  # nothing inside the file can show it ...
     assert (after.last_batch, after.head) != (before.last_batch, before.head)  # ... the noted head does
     assert f"ledger head: batch {before.last_batch}, digest {before.head}" in "\n".join(replay_lines(before))
+    noted = run_cli("replay", "--db", db, "--head", f"{before.last_batch}:{before.head}")  # the auditor's note
+    assert noted.code == 3 and f"batch {before.last_batch}: the noted head batch is not in the ledger" in noted.out
 
 
 def test_an_inserted_sample_is_caught(clean, tmp_path):
@@ -195,3 +197,15 @@ def test_a_recomputed_chain_shows_against_the_noted_head_and_strict_fails_on_eng
     assert checked.code == 3 and f"batch {noted.last_batch}: its digest is not the one noted" in checked.out
     assert run_cli("replay", "--db", clean, "--head", head).code == 0
     assert run_cli("replay", "--db", clean, "--head", "3:abc").code == 2  # a usage error, not a finding
+
+
+@pytest.mark.parametrize("form", [1, 3])
+def test_a_batch_passed_off_as_another_storage_form_is_caught(clean, tmp_path, form):
+    # Form 1 would verify the batch under digest 1 and read its values as JSON objects; an
+    # unknown form under digest 2: either way the digest no longer holds, and nothing crashes.
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("UPDATE batches SET form = ? WHERE batch = 2", (form,))
+    run = run_cli("replay", "--db", db)
+    assert run.code == 3, run.err
+    assert "integrity: batch 2: its stored rows no longer match the batch's digest" in run.out
