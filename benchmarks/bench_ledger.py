@@ -1,8 +1,9 @@
 """Benchmark: samples over units through trends, grading and the ledger, each figure beside
 its target and, where one exists, its floor.
 
-Prints wall time and the process's peak resident memory after each stage. Not a test:
-figures vary by machine (and on a shared machine, by load). Targets per 1,000,000 samples on
+Prints wall time, this process's CPU time and its peak resident memory after each stage.
+Not a test: figures vary by machine (and on a shared machine, by load: CPU time is the
+steadier figure there). Targets per 1,000,000 samples on
 2 cores, scaled linearly to --samples: import and grade into a new ledger 10 s, the ledger
 at most 300 MB, replay 15 s; `history` and `explain` under 0.2 s at any size. Floors: the
 same grading without a ledger, and SQLite alone storing the rows the import stored. The
