@@ -209,3 +209,15 @@ def test_a_batch_passed_off_as_another_storage_form_is_caught(clean, tmp_path, f
     run = run_cli("replay", "--db", db)
     assert run.code == 3, run.err
     assert "integrity: batch 2: its stored rows no longer match the batch's digest" in run.out
+
+
+def test_digest_2_spells_different_columns_differently():
+    # A text column is joined by NUL only when the join splits back into the same values; any
+    # other column is JSON (the standard json module). Values moved across a row boundary, or a
+    # text that looks like a number, must not spell alike.
+    from sumpwise.ledger.schema import _spelled
+    columns = (["a\x00b", "c"], ["a", "b\x00c"], ["a", "b", "c"], ["ab", "c"], ["1", "2"], [1, 2], ["1", None],
+               [None, "1"], [], [""], ["", ""], [1.0, 2.0], [True, False], ["null"], [None])
+    spelled = [_spelled(list(column)) for column in columns]
+    assert len(set(spelled)) == len(columns)
+    assert _spelled(["a", "b"]) == b"Sa\x00b\x1f" and _spelled(["a", None]) == b'J["a", null]\x1f'
