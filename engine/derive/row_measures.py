@@ -187,7 +187,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]
     found = {}
-    for name in INPUT_MEASURES:
+    for name in list(INPUT_MEASURES) + [m for m in extra_measures if m not in INPUT_MEASURES]:  # declared too
         if name + CENSORED_SUFFIX in samples.columns:
             texts = samples[name + CENSORED_SUFFIX].to_numpy(dtype=object)
             found[name] = bounds(name, texts, samples[name + WRITTEN_SUFFIX].to_numpy(dtype=object))

@@ -239,6 +239,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if censored is not None:
             raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)
             written = np.where(censored != None, text.to_numpy(dtype=object), None)  # noqa: E711
+            if factor != 1.0:  # a bound in the lab's unit beside the engine's unit would misread: spell it converted
+                at = np.flatnonzero(censored != None)  # noqa: E711 (the censored cells only: a few)
+                bound = np.array([str(written[k])[:1] in "<>\u2264\u2265" for k in at], dtype=bool)
+                written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
 
     if "sampled_on" in raw.columns:

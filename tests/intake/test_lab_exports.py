@@ -145,3 +145,21 @@ def test_censored_readings_and_comments_go_through_the_ledger(tmp_path):
     assert told.code == 0
     assert "kv40 >50" in told.out and "Lab comment: oil changed last week" in told.out
     assert "oil_hours written '>20000' does" in told.out
+
+
+def test_a_censored_reading_in_a_converted_unit_is_shown_in_the_engine_unit(site, tmp_path):
+    # Water declared in % (1 % = 10 000 ppm, the README's unit table): '>0.5' % is above 5000 ppm.
+    # The record's values and the reason carry ppm beside the number, so the reading must be
+    # spelt in ppm (">5000"), never ">0.5" beside "ppm": that would read as half a ppm.
+    cmap = tmp_path / "map.yaml"
+    cmap.write_text('water: {column: "Water %", unit: "%"}\n', encoding="utf-8")
+    text = "sample_id,class,lubricant,Water %\nP1,gearbox,GEAR-320-PAO,>0.5\nP2,gearbox,GEAR-320-PAO,<0.01\n" \
+           "P3,gearbox,GEAR-320-PAO,ND\n"
+    got = _records(grade(read_samples(io.StringIO(text), columns=load_column_map(cmap)), site))
+    # gearbox water ladder: watch above 300, alert above 1000, urgent above 2000 ppm
+    assert [(r.rule, r.value, r.unit, r.grade) for r in got["P1"].reasons] == [("water", ">5000", "ppm", "urgent")]
+    assert dict(got["P1"].values)["water"] == ">5000"
+    # '<0.01' % is below 100 ppm: known under the watch step, so the rule is evaluated and quiet
+    assert "water" not in {n.rule for n in got["P2"].not_evaluated}
+    assert got["P2"].grade == "normal" and dict(got["P2"].values)["water"] == "<100"
+    assert dict(got["P3"].values)["water"] is None  # ND without a detection limit: missing
