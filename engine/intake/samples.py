@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import difflib
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -19,7 +19,8 @@ import pandas as pd
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
-from sumpwise.intake.readers import RawTable, check_header, decode, nested_cells, read_csv, read_jsonl, read_xlsx
+from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, nested_cells,
+                                     read_csv, read_jsonl, read_xlsx)
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
@@ -93,12 +94,27 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
         else:
             text = decode(data, columns.option("encoding"))
             utf8 = columns.option("encoding", "utf-8").replace("_", "-").lower() in ("utf-8", "utf8")
-            raw = (read_jsonl(text) if fmt == "jsonl" else
-                   read_csv(text, lab_numeric, columns.option("delimiter"), columns.option("decimal"),
-                            data if utf8 else None))
+            if fmt == "jsonl":
+                raw = read_jsonl(text)
+            else:
+                decimal = columns.option("decimal") or _detected_decimal(text, columns.option("delimiter"))
+                raw = read_csv(text, lab_numeric, columns.option("delimiter"), decimal, data if utf8 else None)
+                if columns.option("decimal") is None and decimal != ".":
+                    raw.notes.append(f"detected the decimal mark {decimal!r} from the data")
+                    # every cell is read with it, the ones the CSV parser left as text (`<0,05`) too
+                    columns = replace(columns, options={**columns.options, "decimal": decimal})
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
+
+
+def _detected_decimal(text: str, delimiter: str | None) -> str:
+    """The decimal mark the data show (readers.detect_decimal), found once here so that the cells
+    the CSV parser leaves as text are read with the same mark as the numbers it parses."""
+    head = text[: 1 << 16].splitlines()
+    if not head:
+        return "."
+    return detect_decimal(head, delimiter or detect_delimiter(head[0]))
 
 
 def _row_numbers(raw: pd.DataFrame, skipped: list) -> np.ndarray:
@@ -221,8 +237,14 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
                                   None if limit is None else limit * factor)
             if cells.bad.any():
-                reject(cells.bad, column, _found("expected a number or a censored reading such as <0.05, found ",
-                                                 text, cells.bad, quoted=True), "D004")
+                reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
+                                 quoted=True)
+                if decimal != ".":
+                    pointed = cells.bad & (np.strings.find(text.fillna("").to_numpy(dtype=str), ".") >= 0)
+                    reasons[pointed] = _found("", text, pointed, quoted=True)[pointed] + (
+                        f": the decimal mark is {decimal!r}, so a '.' could be a thousands separator or a slip; "
+                        f"the value is not guessed")
+                reject(cells.bad, column, reasons, "D004")
             if (cells.censored != None).any():  # noqa: E711 (elementwise)
                 censored = cells.censored
         domain = domain_of(column)
@@ -337,6 +359,11 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     text = np.strings.strip(np.where(present & ~is_bool, values, "").astype(str))
     spelled = np.strings.replace(text, decimal, ".") if decimal != "." else text
     looks = np.isin(np.strings.slice(spelled, 0, 1), _NUMBER_LEADS)
+    if decimal != ".":  # a '.' written where ',' is the decimal mark (`1.500`) is not read: 1.5 or 1500?
+        kind = pd.api.types.infer_dtype(values, skipna=True)
+        written = present if kind == "string" else np.fromiter((isinstance(v, str) for v in values), dtype=bool,
+                                                               count=len(values))
+        looks &= ~(written & (np.strings.find(text, ".") >= 0))
     parsed = np.full(len(values), np.nan)
     try:
         parsed[looks] = np.array(spelled[looks].tolist(), dtype=float)  # Python's float(), twice numpy's speed

@@ -163,3 +163,32 @@ def test_a_censored_reading_in_a_converted_unit_is_shown_in_the_engine_unit(site
     assert "water" not in {n.rule for n in got["P2"].not_evaluated}
     assert got["P2"].grade == "normal" and dict(got["P2"].values)["water"] == "<100"
     assert dict(got["P3"].values)["water"] is None  # ND without a detection limit: missing
+
+
+def test_a_detected_decimal_comma_reads_every_cell_of_the_column(site):
+    # Detected, not declared: '46,1' beside a censored '<50' (which keeps the column as text) must
+    # read as 46.1, and '<0,05' as below 0.05, exactly as with `file: {decimal: ","}`.
+    text = ("sample_id;class;lubricant;kv40;an;water\n"
+            "D1;hydraulic;HYD-46-M;46,1;<0,05;<50\nD2;hydraulic;HYD-46-M;>50;0,35;120\n")
+    batch = read_samples(io.StringIO(text))
+    assert batch.rejects == ()
+    assert batch.notes == ("detected the delimiter ';' from the header", "detected the decimal mark ',' from the data")
+    assert batch.frame["kv40"].iat[0] == 46.1 and batch.frame["an"].iat[1] == 0.35
+    assert batch.frame["an:censored"].iat[0] == "<0.05"
+
+
+@pytest.mark.parametrize("declared", [True, False])
+def test_a_point_in_a_decimal_comma_file_is_refused_not_guessed(site, tmp_path, declared):
+    # Where ',' is the decimal mark, '1.500' is a thousands separator (1500 ppm) or a slip for 1,5:
+    # either reading could be a wrong grade (1.5 ppm water passes the hydraulic watch step of
+    # 200 ppm, 1500 crosses urgent at 1000), so the row is rejected with the field, never guessed.
+    text = ("sample_id;class;lubricant;kv40;water\n"
+            "D1;hydraulic;HYD-46-M;46,1;1.500\nD2;hydraulic;HYD-46-M;46,3;<1.000\nD3;hydraulic;HYD-46-M;46,2;90\n")
+    columns = None
+    if declared:
+        (tmp_path / "map.yaml").write_text('file: {delimiter: ";", decimal: ","}\n', encoding="utf-8")
+        columns = load_column_map(tmp_path / "map.yaml")
+    graded = grade(read_samples(io.StringIO(text), columns=columns), site)
+    assert [(r.row, r.field, r.code) for r in graded.rejects] == [(1, "water", "D004"), (2, "water", "D004")]
+    assert "decimal mark is ','" in graded.rejects[0].reason
+    assert graded.counts() == {"read": 3, "graded": 1, "unrated": 0, "rejected": 2}
