@@ -36,7 +36,7 @@ OIL_CHANGED_CAVEAT = "oil-changed"  # the caveat the engine raises on the first 
 _REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "ruleset": dict, "engine": str}
 # Keys a record may lack (older formats, the compact form) but that must have this type when present.
 _OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool, "origin": dict, "iso4406": str,
-             "forecasts": list}
+             "forecasts": list, "comment": str}
 
 
 def _json_objects(lines, name: str, what: str):
@@ -686,6 +686,8 @@ def _latest(record: dict, ladder: Ladder) -> str:
     origin = record.get("origin") or {}
     if origin.get("file"):
         facts.append(f"from {origin['file']}" + (f" row {origin['row']}" if origin.get("row") is not None else ""))
+    if record.get("comment"):  # the lab's own remark, as written
+        facts.append(f"lab comment: {record['comment']}")
     parts = [f'<article class="latest" data-sample="{escape(record["sample_id"])}" '
              f'style="border-left-color:{grade_look(level).colour}">',
              f'<h4>Latest sample {escape(record["sample_id"])}: {_grade_cell(record["grade"], level)} '
@@ -704,7 +706,7 @@ def _latest(record: dict, ladder: Ladder) -> str:
     gaps = record.get("not_evaluated") or []
     if gaps:
         parts.append("<div class='muted'>Not evaluated (a missing value is never a pass): " + escape("; ".join(
-            f"{g.get('rule')} lacks {', '.join(g.get('missing') or [])}" for g in gaps)) + "</div>")
+            f"{g.get('rule')} lacks {', '.join(g.get('missing') or [])}" + _undecided(g) for g in gaps)) + "</div>")
     steps = next_steps(record)
     if steps:
         parts.append("<h4>What to do</h4><ul class='todo'>" + "".join(
@@ -713,6 +715,13 @@ def _latest(record: dict, ladder: Ladder) -> str:
     elif (level or 0) > 0:
         parts.append("<p class='muted'>The rule set gives no next step for these findings.</p>")
     return "".join(parts) + "</article>"
+
+
+def _undecided(gap: dict) -> str:
+    """Readings written as bounds that did not decide a rule, as the lab wrote them (as explain says)."""
+    undecided = gap.get("undecided") if isinstance(gap.get("undecided"), dict) else {}
+    told = "; ".join(f"{name} written '{text}' does not decide it" for name, text in undecided.items())
+    return f" ({told})" if told else ""
 
 
 def _finding_text(reason: dict) -> str:

@@ -584,3 +584,19 @@ def test_condition_clauses_show_each_value_and_limit_with_its_measures_unit():
     html = _flat(render_report([record], (), ruleset))
     assert "oil_hours = 1500 h" in html and "below 2000 h: holds" in html
     assert "oxidation_rise = 19 abs/cm" in html and "above 10 abs/cm: holds" in html
+
+
+def test_the_latest_sample_shows_the_lab_comment_and_what_an_undecided_reading_was(tmp_path):
+    # The invented semicolon export (tests/data/samples/lab-semicolon.csv) carries a remarks column
+    # and censored readings: BP-S3's oil hours '>20000' and carbonyl '<1' leave carbonyl-rising-fast
+    # undecided. Issue 12: a lab's comment reaches the record, explain and the report; a reading
+    # written as a bound is present, so the report names it as written, as explain does.
+    export, cmap = ROOT / "tests/data/samples/lab-semicolon.csv", ROOT / "tests/data/samples/lab-semicolon.yaml"
+    results, report = tmp_path / "results.jsonl", tmp_path / "report.html"
+    assert cli("grade", export, "--columns", cmap, "--rules", RULES, "--out", results)[0] == 0
+    assert cli("report", "--results", results, "--rules", RULES, "--out", report)[0] == 0
+    tree = _Tree()
+    tree.feed(report.read_text())
+    latest = " ".join(tree.articles["BP-S3"])
+    assert "lab comment: oil changed last week" in latest
+    assert "oil_hours written '>20000'" in latest and "oxidation written '<1'" in latest
