@@ -15,6 +15,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import re
 from collections import Counter
 from dataclasses import dataclass
 from datetime import date
@@ -190,6 +191,20 @@ def recorded_value(record: dict, measure: str):
             if clause.get("measure") == measure and clause.get("test") != "missing":
                 return _number_or_none(clause.get("value"))
     return None
+
+
+_BOUND = re.compile(r"^(<=|>=|<|>|\u2264|\u2265)\s*(\d+(?:\.\d*)?(?:[eE][-+]?\d+)?)$")
+
+
+def recorded_bound(record: dict, measure: str):
+    """(sign, bound) of a lab reading the record carries as written as a bound (`>5000` in `values`),
+    else None. Only the record's own text is read; a bound in a lab's decimal comma is not drawn."""
+    text = (record.get("values") or {}).get(measure)
+    found = _BOUND.match(text.strip()) if isinstance(text, str) else None
+    if not found:
+        return None
+    sign = {"\u2264": "<=", "\u2265": ">="}.get(found.group(1), found.group(1))
+    return sign, float(found.group(2))
 
 
 def _number_or_none(value):
@@ -387,13 +402,18 @@ def _point_level(measure: str, record: dict, ladder: Ladder) -> int | None:
     return max(fired) if fired else 0
 
 
-def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
+def _tooltip(record: dict, measure: str, value: float | None, unit: str) -> str:
+    """The point's tooltip; `value` None for a reading written as a bound, quoted as the record has it."""
     hours = (record.get("values") or {}).get("oil_hours")
     parts = [record["sample_id"], record.get("sampled_on") or ""]
     if isinstance(hours, (int, float)) and not isinstance(hours, bool):
         parts.append(f"oil hours {hours:g}")
     code = f" (code as written {record['iso4406']})" if measure.startswith("iso4406_") and record.get("iso4406") else ""
-    return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}{code}"
+    if value is None:
+        shown = f"{str(record['values'][measure]).strip()}{(' ' + unit) if unit else ''} as written: a bound, not a value"
+    else:
+        shown = f"{value:.4g}{(' ' + unit) if unit else ''}"
+    return " · ".join(p for p in parts if p) + f": {measure} {shown}{code}"
 
 
 def recorded_forecasts(records) -> list[dict]:
@@ -452,6 +472,10 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
                         for k in range(first, end) if ys[k] is not None and xs[k] is not None)
             if run:
                 runs.append(run)
+        written = tuple(Point(xs[k], b[1], _point_level(watched.measure, samples[k], ladder),
+                              _tooltip(samples[k], watched.measure, None, unit), b[0])
+                        for k, b in enumerate(recorded_bound(s, watched.measure) for s in samples)
+                        if b is not None and xs[k] is not None)
         notes = []
         if undated and any(y is not None for y in ys):
             notes.append(f"{undated} sample(s) without a date not drawn")
@@ -459,7 +483,7 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
             notes.append("these records carry this value only where a rule on it fired")
         note = "; ".join(notes)
         plots.append(Plot(watched.measure, unit, tuple(runs), watched.limits, marks, note,
-                          projections(view, watched.measure, forecasts, ladder, dates)))
+                          projections(view, watched.measure, forecasts, ladder, dates), written))
     return plots
 
 

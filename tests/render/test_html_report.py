@@ -24,7 +24,7 @@ from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.render.html_report import (Ladder, limit_lines, parse_rejects, parse_results, recorded_value,
                                          render_report, starts_charge, unit_plots, unit_views)
-from sumpwise.render.svg_plot import _LOOKS, UNRATED_LOOK, date_ticks, nice_ticks
+from sumpwise.render.svg_plot import _LOOKS, UNRATED_LOOK, date_ticks, nice_ticks, render_plot
 
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIO = ROOT / "scenarios" / "brackwater"
@@ -600,3 +600,22 @@ def test_the_latest_sample_shows_the_lab_comment_and_what_an_undecided_reading_w
     latest = " ".join(tree.articles["BP-S3"])
     assert "lab comment: oil changed last week" in latest
     assert "oil_hours written '>20000'" in latest and "oxidation written '<1'" in latest
+
+
+def test_a_reading_written_as_a_bound_is_drawn_as_a_bound_not_left_off(tmp_path):
+    # ST-1 in lab-semicolon.csv (invented): BP-S1's water '<50' and BP-S2's '>5000', which fires the
+    # site's urgent water rule. The plot must show both (at the bound, an arrow pointing the way the
+    # reading lies, the tooltip quoting it as written and saying it is a bound), never an empty
+    # panel; no line joins a bound, since it is not a value.
+    export, cmap = ROOT / "tests/data/samples/lab-semicolon.csv", ROOT / "tests/data/samples/lab-semicolon.yaml"
+    results = tmp_path / "results.jsonl"
+    assert cli("grade", export, "--columns", cmap, "--rules", RULES, "--out", results)[0] == 0
+    records = parse_results(results.read_text().splitlines(), "results.jsonl")
+    ruleset = load_ruleset(RULES)
+    (view,) = [v for v in unit_views(records, ruleset) if v.unit_id == "ST-1"]
+    water = next(p for p in unit_plots(view, Ladder.of(records, ruleset)) if p.title == "water")
+    assert [(b.y, b.bound, b.level) for b in water.bounds] == [(50.0, "<", 0), (5000.0, ">", 3)]
+    assert water.bounds[1].label.endswith("water >5000 ppm as written: a bound, not a value")
+    assert [p.y for run in water.runs for p in run] == []
+    svg = render_plot(water)
+    assert svg.count('class="bound"') == 2 and "no values recorded" not in svg
