@@ -28,6 +28,7 @@ from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
 from sumpwise.render.narrative import rounded, step_phrase
+from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
                                       render_plot)
 
@@ -539,6 +540,7 @@ svg.plot { width: 100%; height: auto; display: block; font-family: "DejaVu Sans"
 .capped { font-weight: 400; color: #55534c; }
 ul.tight { margin: 2px 0 4px; padding-left: 18px; }
 .muted { color: #66645c; }
+.warn { color: #6b3a00; }
 @media print {
   body { font-size: 9pt; }
   .wrap { max-width: none; padding: 0; }
@@ -622,6 +624,11 @@ def _summary(records, rejects, ladder: Ladder, rejects_given: bool) -> str:
     totals = "".join(f'<td class="n"><b>{by_grade.get(g, 0)}</b></td>' for g in columns)
     parts.append(f"<tr><td><b>all classes</b></td>{totals}<td class='n'><b>{len(records)}</b></td></tr>")
     parts.append("</tbody></table>")
+    short = Counter(c.get("caveat") for r in records for c in r["caveats"] if c.get("caveat") in FIRST_CAVEATS)
+    if short:  # no silent pass: samples that may be graded on less than they should, counted for the batch
+        parts.append("<p class='warn'><b>Graded on less than their rules:</b> " + escape("; ".join(
+            f"{short[c]} sample(s) with caveat {c}" for c in FIRST_CAVEATS if short[c])) + " (each is listed on "
+            "its unit's card)</p>")
     if not rejects_given:
         parts.append('<p class="muted">No rejects file was given (<code>--rejects</code>), so rows the grader '
                      'rejected are not counted here.</p>')
@@ -759,10 +766,11 @@ def _finding_text(reason: dict) -> str:
 
 
 def _earlier(samples, ladder: Ladder) -> str:
-    """Earlier flagged samples of a unit, newest first, one compact row each."""
+    """Earlier flagged samples of a unit, newest first, one compact row each; an earlier sample that
+    may be graded on less than it should (FIRST_CAVEATS: an unknown lubricant, ...) is listed too."""
     rows = []
     for record in reversed(samples):
-        if (record.get("level") or 0) <= 0:
+        if (record.get("level") or 0) <= 0 and not any(c.get("caveat") in FIRST_CAVEATS for c in record["caveats"]):
             continue
         hours = (record.get("values") or {}).get("oil_hours")
         rows.append(f"<tr class='earlier' data-sample='{escape(record['sample_id'])}'>"
@@ -774,7 +782,7 @@ def _earlier(samples, ladder: Ladder) -> str:
                     f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td></tr>")
     if not rows:
         return ""
-    return ("<h4>Earlier flagged samples</h4><table class='grid earlier'><thead><tr><th>sampled</th><th>sample</th>"
+    return ("<h4>Earlier flagged samples, and any graded on less than their rules</h4><table class='grid earlier'><thead><tr><th>sampled</th><th>sample</th>"
             "<th class='n'>oil h</th><th>grade</th><th>findings (rule, grade: value)</th><th>caveats</th></tr>"
             "</thead><tbody>" + "".join(rows) + "</tbody></table>")
 

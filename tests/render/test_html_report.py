@@ -619,3 +619,23 @@ def test_a_reading_written_as_a_bound_is_drawn_as_a_bound_not_left_off(tmp_path)
     assert [p.y for run in water.runs for p in run] == []
     svg = render_plot(water)
     assert svg.count('class="bound"') == 2 and "no values recorded" not in svg
+
+
+def test_a_sample_graded_on_less_than_it_should_is_in_the_report_even_when_not_latest(tmp_path):
+    # Issue 12's misspelt lubricant code: U1's 'TURB-46M' leaves its new-oil values missing, so an
+    # acid number of 0.5 (a rise of 0.43 on TURB-46-M's 0.07, urgent above 0.4 at this site) grades
+    # normal. U2, the unit's next sample, is the card's latest. The report must still show U1 with
+    # its caveat (the unit's earlier samples) and count the caveat for the batch.
+    samples = tmp_path / "unk.csv"
+    samples.write_text("sample_id,unit_id,class,lubricant,sampled_on,oil_hours,an,water\n"
+                       "U1,ST-1,steam-turbine,TURB-46M,2026-03-01,38000,0.5,50\n"
+                       "U2,ST-1,steam-turbine,TURB-46-M,2026-03-15,38300,0.1,50\n", encoding="utf-8")
+    results, report = tmp_path / "results.jsonl", tmp_path / "report.html"
+    assert cli("grade", samples, "--rules", RULES, "--out", results)[0] == 0
+    assert cli("report", "--results", results, "--rules", RULES, "--out", report)[0] == 0
+    html = report.read_text()
+    tree = parse(html)
+    rows = [attrs for tag, attrs in tree.tags if tag == "tr" and attrs.get("data-sample") == "U1"]
+    assert rows, "U1 is not in ST-1's table of earlier samples"
+    text = " ".join(tree.text)
+    assert "unknown-lubricant" in text and "1 sample(s) with caveat unknown-lubricant" in text
