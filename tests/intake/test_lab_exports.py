@@ -192,3 +192,16 @@ def test_a_point_in_a_decimal_comma_file_is_refused_not_guessed(site, tmp_path, 
     assert [(r.row, r.field, r.code) for r in graded.rejects] == [(1, "water", "D004"), (2, "water", "D004")]
     assert "decimal mark is ','" in graded.rejects[0].reason
     assert graded.counts() == {"read": 3, "graded": 1, "unrated": 0, "rejected": 2}
+
+
+def test_the_readme_column_map_reads_the_export_it_names(site, tmp_path):
+    # The README's example map, copied out as written, on the file it says it is for: every lab
+    # column but the lab's own reference is read, and every row is graded or rejected.
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    start = readme.index("**A column map for a real export.**")
+    block = readme[readme.index("```yaml", start) + len("```yaml\n"):]
+    (tmp_path / "map.yaml").write_text(block[:block.index("```")], encoding="utf-8")
+    batch = read_samples(EXPORT, columns=load_column_map(tmp_path / "map.yaml"))
+    assert batch.notes == ("lab columns not used: Lab ref",)
+    graded = grade(batch, site)
+    assert graded.counts() == {"read": 6, "graded": 5, "unrated": 0, "rejected": 1}
