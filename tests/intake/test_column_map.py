@@ -102,3 +102,17 @@ def test_grade_reads_a_detection_limit_for_a_declared_measure():
     rows = {line.split(",")[0]: line for line in run.out.splitlines()[1:]}
     # the site's gear-drive iron ladder: watch above 100 ppm; ND (below 1 ppm) is known under it
     assert "iron=watch" in rows["F2"] and "iron(" not in rows["F1"] and "iron=" not in rows["F1"]
+
+
+@pytest.mark.parametrize("command", ["compare", "propose-limits"])
+def test_compare_and_propose_limits_read_a_map_that_names_a_declared_measure(tmp_path, command):
+    from conftest import ROOT, run_cli
+    site = ROOT / "scenarios" / "brackwater" / "site.yaml"
+    (tmp_path / "map.yaml").write_text("sample_id: Nr\nclass: {value: gearbox}\nlubricant: {value: GEAR-320-PAO}\n"
+                                       "iron: {column: Fe, detection_limit: 1}\n", encoding="utf-8")
+    (tmp_path / "fe.csv").write_text("Nr,Fe\nF1,ND\nF2,150\n", encoding="utf-8")
+    args = ([site, site] if command == "compare" else ["--class", "gearbox", "--measure", "iron", "--rules", site])
+    run = run_cli(command, *args, "--samples", tmp_path / "fe.csv", "--columns", tmp_path / "map.yaml")
+    assert "M004" not in run.err
+    # compare: nothing moves (exit 0); propose-limits: two results are too few, refused (exit 2) with the count
+    assert (run.code, command) in ((0, "compare"), (2, "propose-limits")), run.err
