@@ -154,8 +154,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     renames = {}
     for measure, column in columns.columns.items():
         if column not in raw.columns:
+            read = f"; {'; '.join(notes)}" if notes else ""  # e.g. which sheet of a workbook was read
             raise InputError(f"{name}: the column map names column '{column}' for {measure}, but the file has "
-                             f"no such column (it has: {', '.join(raw.columns)})")
+                             f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
     mapped = set(renames)
     clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]

@@ -205,3 +205,19 @@ def test_the_readme_column_map_reads_the_export_it_names(site, tmp_path):
     assert batch.notes == ("lab columns not used: Lab ref",)
     graded = grade(batch, site)
     assert graded.counts() == {"read": 6, "graded": 5, "unrated": 0, "rejected": 1}
+
+
+def test_a_map_column_missing_from_the_first_sheet_names_the_sheets(tmp_path):
+    # A lab's workbook often opens on a cover sheet; the results are on another. The error must
+    # say which sheet was read and how to choose another, not only the cover's one "column".
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    book.active.title = "Cover"
+    book.active["A1"] = "Results for Brackwater Point"
+    results = book.create_sheet("Results")
+    results.append(["Sample", "Component"])
+    results.append(["XL-1", "gearbox"])
+    book.save(tmp_path / "export.xlsx")
+    (tmp_path / "map.yaml").write_text("sample_id: Sample\nclass: Component\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"no such column.*read sheet 'Cover' of \['Cover', 'Results'\]"):
+        read_samples(tmp_path / "export.xlsx", columns=load_column_map(tmp_path / "map.yaml"))
