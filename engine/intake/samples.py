@@ -179,8 +179,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         notes.append(unused_columns_note(unused, known - set(raw.columns)))
     missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
     if missing:
+        detected = [n for n in notes if not n.startswith("lab columns not used")]  # which sheet was read, ...
+        read = f"; {'; '.join(detected)}" if detected else ""
         raise InputError(f"{name}: missing required column(s) {', '.join(missing)}; the file has: "
-                         f"{', '.join(raw.columns) or 'no columns'}")
+                         f"{', '.join(raw.columns) or 'no columns'}{read}")
 
     rejects: list[Reject] = [Reject(row, None, "(row)", why, code) for row, why, code in skipped]
     numeric_names = [c for c in raw.columns if c in NUMERIC_COLUMNS or c in numeric]

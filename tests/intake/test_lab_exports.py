@@ -221,3 +221,14 @@ def test_a_map_column_missing_from_the_first_sheet_names_the_sheets(tmp_path):
     (tmp_path / "map.yaml").write_text("sample_id: Sample\nclass: Component\n", encoding="utf-8")
     with pytest.raises(InputError, match=r"no such column.*read sheet 'Cover' of \['Cover', 'Results'\]"):
         read_samples(tmp_path / "export.xlsx", columns=load_column_map(tmp_path / "map.yaml"))
+
+
+def test_a_workbook_without_a_map_whose_first_sheet_is_a_cover_names_the_sheets(tmp_path):
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    book.active.title = "Cover"
+    book.active["A1"] = "Results for Brackwater Point"
+    book.create_sheet("Results").append(["sample_id", "class"])
+    book.save(tmp_path / "export.xlsx")
+    with pytest.raises(InputError, match=r"missing required column\(s\) sample_id, class.*read sheet 'Cover'"):
+        read_samples(tmp_path / "export.xlsx")
