@@ -199,9 +199,12 @@ _BOUND = re.compile(r"^(<=|>=|<|>|\u2264|\u2265)\s*(\d+(?:\.\d*)?(?:[eE][-+]?\d+
 
 def recorded_bound(record: dict, measure: str):
     """(sign, bound) of a lab reading the record carries as written as a bound (`>5000` in `values`),
-    else None. Only the record's own text is read; a bound in a lab's decimal comma is not drawn."""
+    else None. Only the record's own text is read; a comma in it is the lab's decimal mark (intake
+    refuses a point where the mark is a comma, so the two never meet in one reading)."""
     text = (record.get("values") or {}).get(measure)
-    found = _BOUND.match(text.strip()) if isinstance(text, str) else None
+    if not isinstance(text, str):
+        return None
+    found = _BOUND.match(text.strip() if "." in text else text.strip().replace(",", "."))
     if not found:
         return None
     sign = {"\u2264": "<=", "\u2265": ">="}.get(found.group(1), found.group(1))

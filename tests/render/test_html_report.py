@@ -22,8 +22,8 @@ import yaml
 from sumpwise.cli.main import main
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
-from sumpwise.render.html_report import (Ladder, limit_lines, parse_rejects, parse_results, recorded_value,
-                                         render_report, starts_charge, unit_plots, unit_views)
+from sumpwise.render.html_report import (Ladder, limit_lines, parse_rejects, parse_results, recorded_bound,
+                                         recorded_value, render_report, starts_charge, unit_plots, unit_views)
 from sumpwise.render.svg_plot import _LOOKS, UNRATED_LOOK, date_ticks, nice_ticks, render_plot
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -619,6 +619,11 @@ def test_a_reading_written_as_a_bound_is_drawn_as_a_bound_not_left_off(tmp_path)
     assert [p.y for run in water.runs for p in run] == []
     svg = render_plot(water)
     assert svg.count('class="bound"') == 2 and "no values recorded" not in svg
+    # a decimal-comma export's bound as written ('<0,05': intake refuses a point there) and the forms
+    # that are not bounds (a word, a decimal comma beside a point)
+    assert recorded_bound({"values": {"an": "<0,05"}}, "an") == ("<", 0.05)
+    assert recorded_bound({"values": {"an": "\u22651,5"}}, "an") == (">=", 1.5)
+    assert [recorded_bound({"values": {"an": t}}, "an") for t in ("ND", "<1.000,5", None, 0.05)] == [None] * 4
 
 
 def test_a_sample_graded_on_less_than_it_should_is_in_the_report_even_when_not_latest(tmp_path):
