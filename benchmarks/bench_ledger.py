@@ -1,8 +1,9 @@
 """Benchmark: samples over units through trends, grading and the ledger, each figure beside
 its target and, where one exists, its floor.
 
-Prints wall time and the process's peak resident memory after each stage. Not a test:
-figures vary by machine (and on a shared machine, by load). Targets per 1,000,000 samples on
+Prints wall time, this process's CPU time and its peak resident memory after each stage.
+Not a test: figures vary by machine (and on a shared machine, by load: CPU time is the
+steadier figure there). Targets per 1,000,000 samples on
 2 cores, scaled linearly to --samples: import and grade into a new ledger 10 s, the ledger
 at most 300 MB, replay 15 s; `history` and `explain` under 0.2 s at any size. Floors: the
 same grading without a ledger, and SQLite alone storing the rows the import stored. The
@@ -65,17 +66,23 @@ def synthetic(n: int, units: int, seed: int = 20260101) -> pd.DataFrame:
     return frame
 
 
+def clock() -> tuple[float, float]:
+    """(wall, CPU of this process): on a shared machine the CPU figure is the steadier one."""
+    return time.perf_counter(), time.process_time()
+
+
 class Stages:
     def __init__(self, n: int):
         self.scale = n / 1_000_000
 
-    def report(self, name: str, started: float, target: float | None = None, per_million: bool = True) -> float:
-        seconds = time.perf_counter() - started
+    def report(self, name: str, started: tuple, target: float | None = None, per_million: bool = True) -> float:
+        seconds, cpu = time.perf_counter() - started[0], time.process_time() - started[1]
         peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
         aim = ""
         if target is not None:
             aim = f"target {target * (self.scale if per_million else 1):.2f} s"
-        print(f"{name:<52} {seconds:8.3f} s  {aim:<18} peak RSS so far {peak:6.0f} MB", flush=True)
+        print(f"{name:<52} {seconds:8.3f} s wall {cpu:8.3f} s CPU  {aim:<18} peak RSS so far {peak:6.0f} MB",
+              flush=True)
         return seconds
 
 
@@ -89,7 +96,7 @@ def main() -> None:
     stages = Stages(args.samples)
     ruleset = load_ruleset(RULES)
 
-    t = time.perf_counter()
+    t = clock()
     raw = synthetic(args.samples, args.units)
     stages.report(f"generate {len(raw):,} samples, {args.units:,} units", t)
     if args.trends:
@@ -97,11 +104,11 @@ def main() -> None:
 
     with tempfile.TemporaryDirectory() as folder:
         db = Path(args.db or Path(folder) / "bench.db")
-        t = time.perf_counter()
+        t = clock()
         graded = grade_batch(validate_samples(raw, [], "<synthetic>", ColumnMap()), ruleset)
         stages.report("floor: validate + grade, no ledger", t)
         del graded
-        t = time.perf_counter()
+        t = clock()
         batch = validate_samples(raw, [], "<synthetic>", ColumnMap())
         graded, recorded = grade_into_ledger(db, batch, ruleset)
         stages.report(f"import + grade into a new ledger ({recorded.new:,} new)", t, PER_MILLION["import"])
@@ -111,25 +118,25 @@ def main() -> None:
         del graded, batch
 
         unit, sample = f"U-{args.units // 2}", f"S{args.samples // 2}"
-        t = time.perf_counter()
+        t = clock()
         rows = unit_history(db, unit)
         stages.report(f"history {unit} ({len(rows)} samples)", t, QUERY_TARGET, per_million=False)
-        t = time.perf_counter()
+        t = clock()
         lines = explain_from_ledger(db, sample)
         stages.report(f"explain {sample} ({len(lines)} lines)", t, QUERY_TARGET, per_million=False)
 
-        t = time.perf_counter()
+        t = clock()
         report = replay(db)
         stages.report(f"replay ({report.checked:,} results, {len(report.differences)} findings)", t,
                       PER_MILLION["replay"])
 
         again = validate_samples(raw.iloc[: len(raw) // 10], [], "<synthetic>", ColumnMap())
-        t = time.perf_counter()
+        t = clock()
         _, recorded = grade_into_ledger(db, again, ruleset)
         stages.report(f"re-import {len(again.frame):,} known samples ({recorded.known:,} known)", t)
         del again, raw
-        seconds = sqlite_floor(db, Path(folder) / "floor.db")
-        print(f"{'floor: SQLite alone storing the same rows':<52} {seconds:8.3f} s  (read back from the ledger, "
+        seconds, cpu = sqlite_floor(db, Path(folder) / "floor.db")
+        print(f"{'floor: SQLite alone storing the same rows':<52} {seconds:8.3f} s wall {cpu:8.3f} s CPU  (read back from the ledger, "
               f"inserted into a new one in one transaction, no sumpwise work)", flush=True)
 
 
@@ -137,14 +144,14 @@ def trend_stages(raw: pd.DataFrame, ruleset, stages: Stages) -> None:
     batch = validate_samples(raw, [], "<synthetic>", ColumnMap())
     measured = derive_measures(batch.frame, ruleset.lubricants)
     flags = batch.frame["oil_changed"].eq("true").to_numpy()
-    t = time.perf_counter()
+    t = clock()
     add_trend_measures(measured, flags, None, TREND_BASES)
     stages.report(f"trend measures, all {len(TREND_BASES)} bases", t)
-    t = time.perf_counter()
+    t = clock()
     add_trend_measures(measured, flags, None, ("kv40", "an", "oxidation"))
     stages.report("trend measures, kv40 + an + oxidation", t)
     shuffle = np.random.default_rng(1).permutation(len(measured))  # input not in unit and date order
-    t = time.perf_counter()
+    t = clock()
     add_trend_measures(measured.iloc[shuffle], flags[shuffle], None, ("kv40", "an", "oxidation"))
     stages.report("trend measures, 3 bases, shuffled input", t)
 
@@ -152,20 +159,20 @@ def trend_stages(raw: pd.DataFrame, ruleset, stages: Stages) -> None:
 TABLES = ("rulesets", "batches", "samples", "shapes", "shape_rules", "verdicts", "rejects")
 
 
-def sqlite_floor(source: Path, target: Path) -> float:
+def sqlite_floor(source: Path, target: Path) -> tuple[float, float]:
     """Seconds SQLite takes to store exactly what the import stored, with the same schema and
     settings: the part of the import no change to sumpwise's own code can take away."""
     with sqlite3.connect(source) as conn:
         tables = {name: conn.execute(f"SELECT * FROM {name}").fetchall() for name in TABLES}
     conn = open_ledger(target)
-    started = time.perf_counter()
+    started = clock()
     begin(conn)
     for name, rows in tables.items():
         if rows:
             conn.executemany(f"INSERT INTO {name} VALUES ({', '.join('?' * len(rows[0]))})", rows)
     conn.execute("COMMIT")
     conn.close()
-    return time.perf_counter() - started
+    return time.perf_counter() - started[0], time.process_time() - started[1]
 
 
 if __name__ == "__main__":

@@ -57,6 +57,21 @@ def add_history_arguments(parser: argparse.ArgumentParser) -> None:
 def add_replay_arguments(parser: argparse.ArgumentParser) -> None:
     add_db_argument(parser, optional_value=False)
     parser.add_argument("--since", metavar="DATE", type=iso_date, help="only samples taken on or after this ISO date")
+    parser.add_argument("--strict", action="store_true",
+                        help="also fail (exit 3) when today's engine grades a sample otherwise than the older "
+                             "engine that recorded it (an engine change; listed either way)")
+    parser.add_argument("--head", metavar="BATCH:DIGEST", type=_head,
+                        help="the head an earlier replay printed: a different digest for that batch, or the batch "
+                             "gone, is a finding (a chain recomputed after an alteration)")
+
+
+def _head(text: str) -> tuple[int, str]:
+    batch, _, digest = text.partition(":")
+    digest = digest.strip().lower()
+    if not batch.strip().isdigit() or len(digest) != 64 or any(c not in "0123456789abcdef" for c in digest):
+        raise argparse.ArgumentTypeError(f"expected BATCH:DIGEST as replay prints it (a batch number, a colon and "
+                                         f"64 hex digits), found '{text}'")
+    return int(batch), digest
 
 
 def add_rulesets_arguments(parser: argparse.ArgumentParser) -> None:
@@ -136,11 +151,13 @@ def run_history(args, stdout, stderr) -> int:
 
 
 def run_replay(args, stdout, stderr) -> int:
-    report = replay(args.db, args.since)
-    stdout.write("\n".join(terminal_lines(replay_lines(report))) + "\n")
-    if report.differences:
+    """Exit 3 on any integrity finding or re-grade the recording engine does not reproduce; engine
+    changes (an older engine recorded otherwise) are listed and fail only with --strict."""
+    report = replay(args.db, args.since, args.head)
+    stdout.write("\n".join(terminal_lines(replay_lines(report, args.strict))) + "\n")
+    if report.differences or report.engine_changes:
         stdout.write(caution_text("! ") + "\n")
-    return FINDINGS if report.differences else 0
+    return FINDINGS if report.failed(args.strict) else 0
 
 
 def run_rulesets(args, stdout, stderr) -> int:

@@ -98,16 +98,16 @@ def noise_margins(ruleset: RuleSet, bases: tuple) -> dict:
     return margins
 
 
-def chain_frame(measured: pd.DataFrame, oil_changed) -> pd.DataFrame:
-    """The columns of `measured` trends read, with `oil_changed` as booleans (False when absent)."""
+def chain_frame(measured: pd.DataFrame, oil_changed, bases: tuple = TREND_BASES) -> pd.DataFrame:
+    """The columns of `measured` trends read for `bases`, with `oil_changed` as booleans (False when absent)."""
     frame = pd.DataFrame({name: measured[name].to_numpy(dtype=object) for name in CHAIN_COLUMNS
                           if name not in ("oil_hours", "oil_changed")})
     frame["oil_hours"] = measured["oil_hours"].to_numpy(dtype=float)
     flags = np.zeros(len(measured), dtype=bool) if oil_changed is None else np.asarray(oil_changed, dtype=bool)
     frame["oil_changed"] = flags
-    for base in TREND_BASES:
+    for base in bases:
         frame[base] = measured[base].to_numpy(dtype=float)
-    return frame[list(CHAIN_COLUMNS) + list(TREND_BASES)]
+    return frame[list(CHAIN_COLUMNS) + list(bases)]
 
 
 def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | None, bases: tuple) -> dict:
@@ -120,7 +120,7 @@ def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | N
     own.update({base: measured[base].to_numpy(dtype=float) for base in bases})
     if history is None or not len(history):
         return own
-    # A base the history does not carry (a ledger stores TREND_BASES only) has no earlier value there.
+    # A base the history does not carry has no earlier value there.
     return {name: np.concatenate([history[name].to_numpy(dtype=values.dtype) if name in history.columns
                                   else np.full(len(history), np.nan), values]) for name, values in own.items()}
 

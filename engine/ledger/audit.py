@@ -2,16 +2,18 @@
 
 Stored verdicts are facts (results/facts.py); their wording is put back from the rule set
 the batch was graded with, rebuilt from its stored canonical text (whose SHA-256 must
-still match). Replay (the verify command) checks the digest chain, each batch's counts,
-every sample's content against its fingerprint and its typed columns against its
-content, then re-grades each batch after the samples that were in the ledger when it
-was recorded and compares every fact. Any difference means the ledger, the rule set text
-or the engine changed what a verdict would be.
+still match). Replay (the verify command) answers two questions apart. Integrity: the
+digest chain, each batch's counts, every sample's typed columns against its stored values
+(and a form-1 sample's values against their fingerprint), the rule sets. Reproducibility:
+each batch re-graded after the samples that were in the ledger when it was recorded, every
+fact compared; a difference under the recording engine fails, one an older engine recorded
+in an intact batch is an engine change, listed apart.
 """
 
 from __future__ import annotations
 
 import json
+import re
 import tempfile
 from dataclasses import dataclass, replace
 from functools import lru_cache
@@ -20,11 +22,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sumpwise.derive.trends import trend_bases
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.ledger.schema import batch_digest, fingerprint, result_from_record  # noqa: F401 (API)
-from sumpwise.ledger.store import (LedgerError, batch_entries, batch_list, batch_rejects, current_contents,
-                                   current_verdicts, find_entries, history_frame, open_ledger, reads_ledger,
-                                   ruleset_text, sample_entries, stored_rulesets, unit_entries)
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, batch_digest, fingerprint,  # noqa: F401 (API)
+                                    result_from_record)
+from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, batch_list,
+                                   batch_rejects, current_contents, current_verdicts, find_entries, frame_from_arrays,
+                                   frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
+                                   ruleset_text, sample_entries, stored_measures, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.version import engine_name
 from sumpwise.render.narrative import explain_lines, forecast_lines, wrapper
@@ -80,16 +85,34 @@ def _number(value) -> str:
     return f"{value:.6g}"
 
 
-def trend_table(unit: pd.DataFrame) -> list[str]:
-    """A short fixed-width table of a unit's samples: date, id, oil hours, key values, grade."""
-    head = f"{'sampled':<10}  {'sample':<12} {'oil h':>8} {'kv40':>7} {'an':>6} {'oxid.':>7} {'water':>6}  grade"
-    lines = [head]
-    for row in unit.itertuples():
-        note = " (oil changed)" if row.oil_changed else ""
-        lines.append(f"{row.sampled_on or '-':<10}  {row.sample_id:<12} {_number(row.oil_hours):>8} "
-                     f"{_number(row.kv40):>7} {_number(row.an):>6} {_number(row.oxidation):>7} "
-                     f"{_number(row.water):>6}  {row.grade}{note}")
+_KEY_VALUES = (("kv40", "kv40", 7), ("an", "an", 6), ("oxidation", "oxid.", 7), ("water", "water", 6))
+
+
+def trend_table(unit: pd.DataFrame, extra: tuple = ()) -> list[str]:
+    """A short fixed-width table of a unit's samples: date, id, oil hours, key values, then the
+    `extra` measures (columns of `unit`: what the rules trend beyond the key values), grade."""
+    shown = list(_KEY_VALUES) + [(name, name, max(len(name), 7)) for name in extra]
+    head = f"{'sampled':<10}  {'sample':<12} {'oil h':>8} " + " ".join(f"{title:>{width}}" for _, title, width in shown)
+    lines = [head + "  grade"]
+    for row in unit.to_dict("records"):
+        note = " (oil changed)" if row["oil_changed"] else ""
+        values = " ".join(f"{_number(row[name]):>{width}}" for name, _, width in shown)
+        lines.append(f"{row['sampled_on'] or '-':<10}  {row['sample_id']:<12} {_number(row['oil_hours']):>8} "
+                     f"{values}  {row['grade']}{note}")
     return lines
+
+
+def _trended_values(unit: pd.DataFrame, ruleset: RuleSet) -> tuple[pd.DataFrame, tuple]:
+    """The unit with a column for each measure `ruleset` trends beyond the key values (a declared
+    wear metal, a particle count, a differential reading), derived from the stored input values."""
+    key = tuple(name for name, _, _ in _KEY_VALUES)
+    extra = tuple(base for base in trend_bases(ruleset) if base not in key)
+    if not len(unit):
+        return unit, ()
+    columns = list(dict.fromkeys(name for names in unit["columns"] for name in json.loads(names)))
+    measured = stored_measures(unit["content"].tolist(), columns, ruleset, key)
+    unit = unit.assign(**{name: measured[name].to_numpy() for name in key + extra})
+    return unit, tuple(name for name in extra if unit[name].notna().any())
 
 
 def _reader(path):
@@ -140,10 +163,10 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
     if unit is not None and len(unit):
         mine = unit.index[unit["entry"] == current["entry"]]
         upto = int(mine[0]) + 1 if len(mine) else len(unit)
-        shown = unit.iloc[max(0, upto - TREND_TABLE_ROWS):upto]
+        shown, extra = _trended_values(unit.iloc[max(0, upto - TREND_TABLE_ROWS):upto], ruleset)
         lines.append("")
         lines.append(f"Unit {current['unit_id']}: this sample and the ones before it")
-        lines.extend("  " + line for line in trend_table(shown))
+        lines.extend("  " + line for line in trend_table(shown, extra))
     told = story[:at] + lines + [""] + story[at:]
     if regraded is not None:
         told += ["", f"Re-graded under rule set {other.id} version {other.version} (sha256 {other.sha256}); "
@@ -155,10 +178,10 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
 
 def _regrade_one(conn, entry: dict, ruleset: RuleSet) -> SampleResult:
     """One stored sample graded under another rule set, after the unit's samples recorded before it."""
-    frame = _frame_from_contents([entry["content"]], json.loads(entry["columns"]))
+    frame = frame_from_contents([entry["content"]], json.loads(entry["columns"]))
     history = None
     if entry["unit_id"] is not None:
-        history = history_frame(conn, [entry["unit_id"]])
+        history = history_frame(conn, [entry["unit_id"]], ruleset)
         entries = conn.execute("SELECT sample_id FROM samples WHERE unit_id = ? AND superseded_in IS NULL "
                                "AND entry >= ?", (entry["unit_id"], entry["entry"])).fetchall()
         history = history[~history["sample_id"].isin([sid for (sid,) in entries])]
@@ -172,17 +195,22 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
     conn = _reader(path)
     try:
         unit = unit_entries(conn, unit_id)
+        canonical = conn.execute("SELECT canonical FROM rulesets WHERE sha256 = ?",
+                                 (unit["ruleset_sha256"].iloc[-1] if len(unit) else "",)).fetchone()
+        canonical = canonical[0] if canonical else ""
     finally:
         conn.close()
     if not len(unit):
         raise LedgerError(f"{path}: no samples of unit '{unit_id}' in the ledger")
+    sha = unit["ruleset_sha256"].iloc[-1]
+    unit, extra = _trended_values(unit, _ruleset_of(path, {"canonical": canonical, "ruleset_sha256": sha}))
     shapes = [_parsed(text) for text in unit["facts"]]
     unit["fired"] = [";".join(f"{r['rule']}={r['grade']}" for r in shape["reasons"]) for shape in shapes]
     unit["caveats"] = [";".join(c["caveat"] for c in shape["caveats"]) for shape in shapes]
     unit["corrected"] = unit["corrects"].notna()
     unit["oil_changed"] = unit["oil_changed"].astype(bool)
     return unit[["sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40", "an", "oxidation",
-                 "water", "grade", "level", "fired", "caveats", "corrected"]].reset_index(drop=True)
+                 "water", *extra, "grade", "level", "fired", "caveats", "corrected"]].reset_index(drop=True)
 
 
 @reads_ledger
@@ -196,13 +224,14 @@ def unit_forecasts(path, unit_id: str) -> tuple[RuleSet | None, tuple]:
         if not len(unit):
             return None, ()
         latest = next(v for v in sample_entries(conn, unit["sample_id"].iloc[-1]) if v["superseded_in"] is None)
-        rows = conn.execute("SELECT s.content, b.columns FROM samples s JOIN batches b ON b.batch = s.batch "
-                            "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.entry", (unit_id,)).fetchall()
+        rows = [(object_text(*row), row[2]) for row in conn.execute(
+            f"SELECT {STORED_VALUES} FROM samples s JOIN batches b ON b.batch = s.batch "
+            "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.entry", (unit_id,))]
     finally:
         conn.close()
     ruleset = _ruleset_of(path, latest)
     columns = list(dict.fromkeys(name for _, names in rows for name in json.loads(names)))
-    frame = _frame_from_contents([content for content, _ in rows], columns)
+    frame = frame_from_contents([content for content, _ in rows], columns)
     graded = grade_batch(SampleBatch(frame, (), 1, f"ledger {path}"), ruleset, None)
     return ruleset, tuple(f for f in graded.forecasts if f.unit_id == unit_id)
 
@@ -215,7 +244,8 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", 
     elif fmt == "jsonl":
         stream.write(unit.to_json(orient="records", lines=True, force_ascii=False))
     else:
-        lines = [f"Unit {unit_id}: {len(unit)} sample(s) in the ledger", *trend_table(unit)]
+        extra = tuple(unit.columns[unit.columns.get_loc("water") + 1:unit.columns.get_loc("grade")])
+        lines = [f"Unit {unit_id}: {len(unit)} sample(s) in the ledger", *trend_table(unit, extra)]
         fired = unit[unit["fired"] != ""]
         for row in fired.itertuples():
             lines.append(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
@@ -231,11 +261,19 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", 
         stream.write("\n" + caution_text("! ") + "\n")
 
 
+# What a replay finding is about. Integrity: was anything altered, added or deleted (digest
+# chain, stored values, typed columns against values, rule sets). Reproducibility:
+# today's engine grades a stored sample otherwise than the same engine version recorded.
+# An engine change: it grades otherwise than an older engine version recorded, in an intact batch.
+INTEGRITY, REPRODUCIBILITY, ENGINE_CHANGE = "integrity", "reproducibility", "engine change"
+
+
 @dataclass(frozen=True)
 class Difference:
     sample_id: str | None  # None for a finding about a whole batch or the ledger
     batch: int | None
     what: str
+    kind: str = INTEGRITY
 
 
 @dataclass(frozen=True)
@@ -243,54 +281,76 @@ class ReplayReport:
     checked: int
     batches: int
     rulesets: int
-    differences: tuple
+    differences: tuple  # the findings that fail a replay: integrity, and reproducibility by the recording engine
     head: str = ""  # the last batch's digest: note it down to detect a later deletion of the newest batches
     last_batch: int | None = None
+    engine_changes: tuple = ()  # re-grades that differ from what an older engine recorded: listed, failing only
+    # when the auditor asks (`replay --strict`)
+
+    @property
+    def integrity(self) -> tuple:
+        return tuple(d for d in self.differences if d.kind == INTEGRITY)
+
+    @property
+    def reproducibility(self) -> tuple:
+        return tuple(d for d in self.differences if d.kind == REPRODUCIBILITY)
+
+    def failed(self, strict: bool = False) -> bool:
+        return bool(self.differences) or (strict and bool(self.engine_changes))
 
 
-def _frame_from_contents(contents, columns: list) -> pd.DataFrame:
-    """Stored sample values back into the frame samples.py made of them (floats, text or None, flags)."""
-    contents = list(contents)
-    frame = pd.DataFrame.from_records(json.loads("[" + ",".join(contents) + "]") if contents else [])
-    frame = frame.reindex(columns=columns)
-    for name in frame.columns:
-        column = frame[name]
-        if column.dtype == object:
-            frame[name] = column.where(column.notna(), None)
-    frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
-    return frame
+def _engine_version(name) -> tuple | None:
+    """(0, 2, 0) from "sumpwise 0.2.0"; None for any other spelling."""
+    found = re.fullmatch(r"sumpwise (\d+(?:\.\d+)*)", str(name or ""))
+    return tuple(int(part) for part in found.group(1).split(".")) if found else None
+
+
+def older_engine(recorded) -> bool:
+    """Whether `recorded` names an engine version older than this one."""
+    then, now = _engine_version(recorded), _engine_version(engine_name())
+    return then is not None and now is not None and then < now
 
 
 _TYPED = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "method", "lab") + TREND_BASES
 
 
-def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame) -> np.ndarray:
+def _typed_mismatch(entries: pd.DataFrame, measured: pd.DataFrame, frame: pd.DataFrame, form: int,
+                    held: list) -> np.ndarray:
     """Rows whose typed columns (what history and queries read) hold a value that is neither the
     stored input value nor what recording them now would write (the re-graded measured frame):
     an engine that derives a column differently since is not an alteration, a value from
-    nowhere is."""
+    nowhere is. A form-2 batch leaves the reading columns empty (its digest counts any that are
+    not), and the columns it `held` are the stored input values themselves."""
     bad = np.zeros(len(entries), dtype=bool)
-    for name in _TYPED:
-        stored = pd.Series(entries[name].to_numpy(dtype=object), dtype=object)
+    for name in _TYPED if form == 1 else [n for n in _TYPED[:-len(TREND_BASES)] if n not in held]:
+        stored = entries[name].to_numpy(dtype=object)
         same = np.zeros(len(entries), dtype=bool)
         for source in (measured, frame):
             if name in source.columns:
-                same |= _same(stored, pd.Series(source[name].to_numpy(dtype=object), index=stored.index,
-                                                dtype=object), numeric=name in ("oil_hours",) + TREND_BASES)
+                same |= _same(stored, source[name].to_numpy(dtype=object), numeric=name in ("oil_hours",) + TREND_BASES)
             elif source is measured:
-                same |= stored.isna().to_numpy()
+                same |= pd.isna(stored)
         bad |= ~same
-    flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
-        else np.zeros(len(frame), dtype=bool)
-    bad |= pd.to_numeric(entries["oil_changed"], errors="coerce").to_numpy() != flags.astype(int)
+    if "oil_changed" not in held:
+        flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame.columns \
+            else np.zeros(len(frame), dtype=bool)
+        bad |= pd.to_numeric(entries["oil_changed"], errors="coerce").to_numpy() != flags.astype(int)
     return bad
 
 
-def _same(a: pd.Series, b: pd.Series, numeric: bool) -> np.ndarray:
+def _same(a: np.ndarray, b: np.ndarray, numeric: bool) -> np.ndarray:
+    """Equal values, or both missing; text compares as text (a value of another type by its str())."""
     if numeric:
-        a, b = pd.to_numeric(a, errors="coerce"), pd.to_numeric(b, errors="coerce")
+        a, b = pd.to_numeric(pd.Series(a), errors="coerce"), pd.to_numeric(pd.Series(b), errors="coerce")
         return ((a == b) | (a.isna() & b.isna())).to_numpy()
-    return ((a.isna() & b.isna()) | (a.notna() & b.notna() & (a.astype(str) == b.astype(str)))).to_numpy()
+    gone_a, gone_b = pd.isna(a), pd.isna(b)
+    both = ~gone_a & ~gone_b
+    equal = np.zeros(len(a), dtype=bool)
+    equal[both] = a[both] == b[both]
+    other = both & ~equal
+    if other.any():
+        equal[other] = [str(x) == str(y) for x, y in zip(a[other], b[other])]
+    return (gone_a & gone_b) | equal
 
 
 def _facts_differ(stored: dict, facts, k: int) -> str:
@@ -304,20 +364,39 @@ def _facts_differ(stored: dict, facts, k: int) -> str:
         shown = None if np.isnan(stored_level) else int(stored_level)
         parts.append(f"stored level {shown}, replayed {level if level >= 0 else None}")
     if stored["facts"][k] != facts.shapes[facts.shape_of[k]]:
-        parts.append("its reasons, caveats or gaps differ")
+        parts.append(_shape_changes(stored["facts"][k], facts.shapes[facts.shape_of[k]]))
     if stored["vals"][k] != facts.values[k]:
         parts.append(f"its values differ (stored {stored['vals'][k]}, replayed {facts.values[k]})")
     return "; ".join(parts)
 
 
+def _shape_changes(stored: str, replayed: str) -> str:
+    """Which rules fired, which caveats were raised and which rules were not evaluated, recorded
+    against replayed, where they differ."""
+    try:
+        was, now = _parsed(stored), _parsed(replayed)
+        lists = (("fired", lambda s: [f"{r['rule']}={r['grade']}" for r in s["reasons"]]),
+                 ("caveats", lambda s: [c["caveat"] for c in s["caveats"]]),
+                 ("not evaluated", lambda s: [n[0] for n in s["not_evaluated"]]))
+        parts = [f"{name}: recorded {', '.join(read(was)) or 'none'}, now {', '.join(read(now)) or 'none'}"
+                 for name, read in lists if read(was) != read(now)]
+    except (ValueError, KeyError, TypeError, IndexError):
+        parts = []
+    return "; ".join(parts) or "its reasons, caveats or gaps differ in their details"
+
+
 @reads_ledger
-def replay(path, since: str | None = None) -> ReplayReport:
-    """Verify the digest chain and re-grade every recorded sample (dated on or after `since`)."""
+def replay(path, since: str | None = None, head: tuple[int, str] | None = None) -> ReplayReport:
+    """Verify the digest chain and re-grade every recorded sample (dated on or after `since`).
+
+    `head` is a (batch, digest) an auditor noted from an earlier replay: a ledger whose chain
+    was recomputed after an alteration, or cut short, no longer shows it.
+    """
     conn = _reader(path)
     differences: list[Difference] = []
     checked = batches_seen = 0
     rulesets: dict = {}
-    previous, head, last = "", "", None
+    previous, last = "", None
     try:
         differences += _ledger_findings(conn)
         for batch in batch_list(conn):
@@ -325,12 +404,23 @@ def replay(path, since: str | None = None) -> ReplayReport:
             if batch["previous"] != previous:
                 differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
                                                             "one before it (a batch was deleted, added or altered)"))
-            digest = batch_digest(conn, number)
+            entries, columns = batch_entries(conn, number, batch["form"])
+            if batch["form"] == 1:
+                written = {1: list(zip(*(columns[n] for n in ("entry", "sample_id", "content_sha256", "corrects"))))}
+            else:
+                written = {1: [columns[n] for n in DIGEST_2_SAMPLE_COLUMNS],
+                           3: [columns[n] for n in ("verdict_entry", "grade", "level", "shape", "vals")],
+                           4: columns["used_shapes"]}
+            del columns
+            digest = batch_digest(conn, number, written)
             if digest != batch["digest"]:
                 differences.append(Difference(None, number, "its stored rows no longer match the batch's digest "
                                                             "(a row altered, added or deleted after recording)"))
-            previous, head, last = batch["digest"], batch["digest"], number
-            entries = batch_entries(conn, number)
+            intact = batch["previous"] == previous and digest == batch["digest"]
+            previous, last = batch["digest"], number
+            if head is not None and number == head[0] and batch["digest"] != head[1]:
+                differences.append(Difference(None, number, f"its digest is not the one noted ({head[1][:16]}...): "
+                                                            f"the chain was rewritten at or before this batch"))
             if len(entries) != batch["new_samples"] + batch["corrections"]:
                 differences.append(Difference(None, number, f"it holds {len(entries)} sample(s) but recorded "
                                                             f"{batch['new_samples'] + batch['corrections']}"))
@@ -357,27 +447,44 @@ def replay(path, since: str | None = None) -> ReplayReport:
                                    for sid in entries["sample_id"][wanted])
                 checked += int(wanted.sum())
                 continue
-            differences += _batch_findings(conn, batch, entries, ruleset, wanted)
+            differences += _batch_findings(conn, batch, entries, ruleset, wanted, intact)
             checked += int(wanted.sum())
+        if head is not None and (last is None or last < head[0]):
+            differences.append(Difference(None, head[0], "the noted head batch is not in the ledger (batches were "
+                                                         "deleted from the end)"))
     finally:
         conn.close()
-    return ReplayReport(checked, batches_seen, len(rulesets), tuple(differences), head, last)
+    return ReplayReport(checked, batches_seen, len(rulesets), tuple(d for d in differences if d.kind != ENGINE_CHANGE),
+                        previous, last, tuple(d for d in differences if d.kind == ENGINE_CHANGE))
 
 
-def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, wanted: np.ndarray) -> list:
-    number = batch["batch"]
-    altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
-               != entries["content_sha256"].to_numpy(dtype=object))
+def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, wanted: np.ndarray,
+                    intact: bool) -> list:
+    """Each sample's integrity (fingerprint, typed columns, verdict present), then its re-grade.
+
+    A re-grade that differs is an engine change only when an older engine recorded it and the
+    batch is intact (its digest and place in the chain hold); else it fails the replay."""
+    number, form = batch["batch"], batch["form"]
+    if form == 1:
+        altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
+                   != entries["content_sha256"].to_numpy(dtype=object))
+    else:  # form 2: the digest covers the values themselves
+        altered = np.zeros(len(entries), dtype=bool)
     try:
-        frame = _frame_from_contents(entries["content"], json.loads(batch["columns"]))
-    except (ValueError, TypeError):
+        if form == 1:
+            frame = frame_from_contents(entries["content"], json.loads(batch["columns"]))
+        else:
+            held = json.loads(batch["held"])
+            frame = frame_from_arrays(entries["content"], json.loads(batch["columns"]), held,
+                                      {name: entries[name].tolist() for name in held})
+    except (ValueError, TypeError, AssertionError):
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
                                          "recording); its samples were not re-graded")]
     units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
-    history = history_frame(conn, units, before_batch=number)
+    history = history_frame(conn, units, ruleset, before_batch=number)
     history = history[~history["sample_id"].isin(entries["sample_id"])]
     graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
-    typed = _typed_mismatch(entries, graded.measured, frame)
+    typed = _typed_mismatch(entries, graded.measured, frame, form, json.loads(batch["held"]) if form != 1 else [])
     facts = batch_facts(graded, json.loads(batch["value_names"]))
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
               "vals": entries["vals"].to_numpy(dtype=object),
@@ -397,16 +504,25 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
         elif typed[k]:
             found.append(Difference(sid, number, "its stored columns no longer match its stored values "
                                                  "(altered after recording)"))
-        elif stored["facts"][k] is None:
+        elif pd.isna(stored["facts"][k]):
             found.append(Difference(sid, number, "its verdict is missing (deleted, or its shape is gone)"))
         else:
             why = _facts_differ(stored, facts, k) or "its verdict differs"
-            if batch["engine"] != engine_name():
-                # untouched rows (their fingerprints hold) that today's engine grades otherwise: an
-                # auditor must see them, told apart from an alteration
-                why += (f" (graded by {batch['engine']} when recorded; {engine_name()} grades it otherwise: "
-                        f"an engine change, not an alteration, as its fingerprints hold)")
-            found.append(Difference(sid, number, why))
+            if intact and older_engine(batch["engine"]):
+                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}; {engine_name()} grades "
+                                                     f"it otherwise: an engine change, not an alteration, as the "
+                                                     f"batch's digest and the sample's fingerprint hold)",
+                                        ENGINE_CHANGE))
+            elif intact and batch["engine"] == engine_name():
+                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}, the engine replaying "
+                                                     f"it: not reproduced)", REPRODUCIBILITY))
+            elif not intact:
+                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}; the batch's digest or "
+                                                     f"its place in the chain does not hold: altered after "
+                                                     f"recording?)", REPRODUCIBILITY))
+            else:
+                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}, which is not older "
+                                                     f"than {engine_name()}: not reproduced)", REPRODUCIBILITY))
     return found
 
 
@@ -448,20 +564,36 @@ def _ledger_findings(conn) -> list:
     return found
 
 
-def replay_lines(report: ReplayReport) -> list[str]:
+def replay_lines(report: ReplayReport, strict: bool = False) -> list[str]:
+    """Integrity findings, then re-grades not reproduced, then engine changes, then the verdicts."""
     lines = []
-    for d in report.differences:
-        where = f"{d.sample_id} (batch {d.batch})" if d.sample_id is not None else (
-            f"batch {d.batch}" if d.batch is not None else "ledger")
-        lines.append(f"{where}: {d.what}")
-    summary = (f"replayed {report.checked} result(s) from {report.batches} batch(es) under {report.rulesets} "
-               f"rule set(s): ")
-    summary += (f"{len(report.differences)} finding(s)" if report.differences
-                else "every result matches its record and every batch its digest")
-    lines.append(summary)
+    for label, found in (("integrity", report.integrity), ("not reproduced", report.reproducibility),
+                         ("engine change", report.engine_changes)):
+        for d in found:
+            where = f"{d.sample_id} (batch {d.batch})" if d.sample_id is not None else (
+                f"batch {d.batch}" if d.batch is not None else "ledger")
+            lines.append(f"{label}: {where}: {d.what}")
+    lines.append(f"replayed {report.checked} result(s) from {report.batches} batch(es) under {report.rulesets} "
+                 f"rule set(s)")
+    lines.append("integrity: " + (f"{len(report.integrity)} finding(s): rows, batches or rule sets altered, added or "
+                                  f"deleted" if report.integrity else
+                                  "clean (digest chain, stored values, typed columns against values, "
+                                  "rule sets)"))
+    same = report.checked - len({(d.sample_id, d.batch) for d in report.reproducibility + report.engine_changes
+                                 if d.sample_id is not None})
+    told = (f"reproducibility: {same} result(s) graded as recorded" if same < report.checked else
+            f"reproducibility: every result matches its record ({same} re-graded)")
+    if report.reproducibility:
+        told += f"; {len(report.reproducibility)} not reproduced"
+    if report.engine_changes:
+        told += (f"; {len(report.engine_changes)} graded otherwise than an older engine recorded them (engine "
+                 f"changes, listed above" + ("; --strict fails on them)" if strict else
+                                             "; not a failure without --strict)"))
+    lines.append(told)
     if report.last_batch is not None:
-        lines.append(f"ledger head: batch {report.last_batch}, digest {report.head} (keep it elsewhere: a later "
-                     f"replay that shows another head for this batch means batches were removed or rewritten)")
+        lines.append(f"ledger head: batch {report.last_batch}, digest {report.head} (keep it elsewhere and give it "
+                     f"to a later replay as --head {report.last_batch}:DIGEST: another digest for this batch means "
+                     f"batches were removed or rewritten)")
     return lines
 
 
@@ -475,7 +607,7 @@ def stored_samples(path) -> SampleBatch:
         conn.close()
     if not contents:
         raise InputError(f"{path}: the ledger holds no samples")
-    frame = _frame_from_contents(contents, columns)
+    frame = frame_from_contents(contents, columns)
     return SampleBatch(frame, (), len(frame), f"ledger {path}")
 
 

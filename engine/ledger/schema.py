@@ -1,16 +1,17 @@
-"""The ledger's schema: its migration steps as frozen SQL text, and the batch digest.
+"""The ledger's schema: its migration steps as frozen SQL text, and the batch digests.
 
 Step n brings a ledger from schema version n - 1 to n. A released step never changes,
-not even through a constant it reads: each is literal text. Adding a trend base adds a
-step (`ALTER TABLE samples ADD COLUMN name REAL` and `UPDATE samples SET name =
-json_extract(content, '$.name')`); a test checks that every trend base has its column.
+not even through a constant it reads: each is literal text. A new trended measure needs no
+step: the trend inputs of earlier samples are derived from their stored values.
 
 The digest of a batch covers everything the batch recorded, read back from the tables:
 its own row (which holds the previous batch's digest, so the batches form a chain), its
-samples (their values through the fingerprint of their content), their verdicts (their
-shapes through the shapes' fingerprints), and its rejected rows. It is read back
-rather than computed from what was written so that recording and verifying share one
-definition, and its columns are listed here, frozen like the steps.
+samples, their verdicts with their shapes' fingerprints, and its rejected rows. Digest 1
+(form-1 batches, recorded before step 4) covers a sample's values through their
+fingerprint and spells chunks of rows as Python's repr; digest 2 (form 2) covers the
+values themselves, spelled column by column as JSON. It is read back rather than computed
+from what was written so that recording and verifying share one definition, and its
+queries are listed here, frozen like the steps.
 """
 
 from __future__ import annotations
@@ -115,6 +116,20 @@ STEP_3 = """
     ALTER TABLE batches ADD COLUMN value_names TEXT NOT NULL DEFAULT '[]';
 """
 
+# 4: a batch's storage form. Form 1 (every batch before this step): a sample's values as a
+# canonical JSON object with its SHA-256, the readings also in typed columns, digest 1. Form 2:
+# each value once. The values the typed identity columns hold exactly (the batch's `held`
+# names) stay there; the others are a JSON array in the order of the batch's `columns` less
+# `held`. No per-sample fingerprint and no typed reading columns: digest 2 covers the values
+# themselves. Explain finds a sample's versions through the current one's corrections, and
+# `find` by date reads the dates, so the indexes on every sample id and on the date go.
+STEP_4 = """
+    ALTER TABLE batches ADD COLUMN form INTEGER NOT NULL DEFAULT 1;
+    ALTER TABLE batches ADD COLUMN held TEXT NOT NULL DEFAULT '[]';
+    DROP INDEX samples_sample;
+    DROP INDEX samples_date;
+"""
+
 DIGEST_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
     "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names FROM batches "
@@ -128,14 +143,48 @@ DIGEST_QUERIES = (
 )
 DIGEST_ROWS = 10_000  # rows hashed at a time; part of the definition (each chunk is hashed as its repr)
 
+# Digest 2 (form-2 batches): the batch's own row with its form and held names; its samples'
+# columns; that the columns form 2 leaves empty are empty (a count); its verdicts with their
+# shape ids, and each shape used with its fingerprint; its rejected rows. Spelled column by
+# column (_spelled: text joined by NUL, else JSON; exact for SQLite's values and C-fast), a
+# chunk of DIGEST_2_ROWS rows at a time, 0x1f after each column, 0x1e after each query.
+# Frozen like the steps.
+DIGEST_2_QUERIES = (
+    "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
+    "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form, held FROM batches "
+    "WHERE batch = ?",
+    "SELECT entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, method, lab, content, corrects "
+    "FROM samples WHERE batch = ? ORDER BY entry",
+    "SELECT count(*) FROM samples WHERE batch = ? AND (kv40 IS NOT NULL OR kv100 IS NOT NULL OR an IS NOT NULL OR "
+    "bn IS NOT NULL OR oxidation IS NOT NULL OR nitration IS NOT NULL OR sulfation IS NOT NULL OR antiwear IS NOT "
+    "NULL OR soot IS NOT NULL OR water IS NOT NULL OR rpvot IS NOT NULL OR content_sha256 != '')",
+    "SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s JOIN verdicts v ON v.entry = s.entry "
+    "WHERE s.batch = ? ORDER BY v.entry",
+    "SELECT DISTINCT sh.shape, sh.sha256 FROM samples s JOIN verdicts v ON v.entry = s.entry "
+    "JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY sh.shape",
+    DIGEST_QUERIES[3],
+)
+DIGEST_2_ROWS = 100_000
+DIGEST_2_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
+                           "method", "lab", "content", "corrects")
+# What a form-1 batch's samples hold (digest 1 covers some through the content fingerprint).
+FORM_1_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
+                         "method", "lab", "kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation",
+                         "antiwear", "soot", "water", "rpvot", "content", "content_sha256", "corrects")
+
 
 def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = None) -> str:
-    """SHA-256 over the batch's rows as stored, in a fixed order and spelling (Python's repr).
+    """SHA-256 over the batch's rows as stored, in a fixed order and spelling: digest 1 (Python's
+    repr of row chunks) for a form-1 batch, digest 2 (JSON, column by column) for any other.
 
-    `written` maps a query's index to the rows it would return, when the caller has just
-    written them and holds them with the types SQLite gives back (recording a batch);
-    replay always reads them back.
+    `written` maps a query's index to the rows it would return (digest 1) or to its columns as
+    lists (digest 2), when the caller has just written them and holds them with the types
+    SQLite gives back (recording a batch); replay always reads them back.
     """
+    has_form = any(row[1] == "form" for row in conn.execute("PRAGMA table_info(batches)"))  # from step 4 on
+    row = conn.execute("SELECT form FROM batches WHERE batch = ?", (batch,)).fetchone() if has_form else None
+    if row is not None and row[0] != 1:
+        return _digest_2(conn, batch, written)
     digest = hashlib.sha256()
     for k, query in enumerate(DIGEST_QUERIES):
         if written is not None and k in written:
@@ -148,6 +197,37 @@ def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = No
                 digest.update(repr(chunk).encode("utf-8"))
         digest.update(b"\x1e")
     return digest.hexdigest()
+
+
+def _digest_2(conn: sqlite3.Connection, batch: int, written: dict | None) -> str:
+    digest = hashlib.sha256()
+    for k, query in enumerate(DIGEST_2_QUERIES):
+        if written is not None and k in written:
+            columns = written[k]
+            n = len(columns[0]) if columns else 0
+            for start in range(0, n, DIGEST_2_ROWS):
+                for column in columns:
+                    digest.update(_spelled(column[start:start + DIGEST_2_ROWS]))
+        else:
+            cursor = conn.execute(query, (batch,))
+            while chunk := cursor.fetchmany(DIGEST_2_ROWS):
+                for column in zip(*chunk):
+                    digest.update(_spelled(list(column)))
+        digest.update(b"\x1e")
+    return digest.hexdigest()
+
+
+def _spelled(values: list) -> bytes:
+    """One column's values, exactly: tag S and the texts joined by NUL when every value is text
+    and none holds a NUL (so the join splits back into the same n values), else tag J and JSON."""
+    if values:
+        try:
+            joined = "\x00".join(values)
+        except TypeError:  # a value that is not text
+            joined = None
+        if joined is not None and joined.count("\x00") == len(values) - 1:
+            return b"S" + joined.encode("utf-8", "surrogatepass") + b"\x1f"
+    return b"J" + json.dumps(values, ensure_ascii=False).encode("utf-8", "surrogatepass") + b"\x1f"
 
 
 def fingerprint(text: str) -> str:
@@ -236,4 +316,4 @@ def _step_3_data(conn: sqlite3.Connection) -> None:
 
 
 # (SQL, then a data step or None), in order.
-MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data))
+MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data), (STEP_4, None))

@@ -2,10 +2,12 @@
 
 All of sumpwise's SQLite I/O lives here (the schema and digest in schema.py). A graded
 batch is recorded in one transaction (BEGIN IMMEDIATE, so two runs on one file take turns
-instead of interleaving), in WAL mode so readers never wait for a writer. A sample is
-stored with its input values as canonical JSON and that text's SHA-256: the same sample
-with the same content adds nothing; the same id with other content is rejected (and the
-reject recorded) unless the batch is a correction, which keeps both. A verdict is stored
+instead of interleaving), in WAL mode so readers never wait for a writer. A sample's input
+values are stored once (a batch's storage form, schema.py): in the typed columns that give
+them back exactly, the rest as a JSON array under the batch's column names. The same
+sample with the same values (compared as canonical JSON) adds nothing; the same id with
+other values is rejected (and the reject recorded) unless the batch is a correction, which
+keeps both. A verdict is stored
 as facts (results/facts.py): a shape shared by many samples and the sample's own values;
 the wording comes back from the stored rule set. Each batch ends with a digest of what it
 recorded, chained to the previous batch's. The schema is versioned (PRAGMA user_version)
@@ -16,6 +18,7 @@ refused and left untouched.
 from __future__ import annotations
 
 import functools
+import itertools
 import json
 import os
 import re
@@ -30,20 +33,21 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.derive.cleanliness import read_cleanliness_codes
-from sumpwise.derive.trends import CHAIN_COLUMNS, read_oil_changes
+from sumpwise.derive.row_measures import derive_measures
+from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import MIGRATIONS, batch_digest, fingerprint, shape_ids
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, FORM_1_SAMPLE_COLUMNS, MIGRATIONS, batch_digest,
+                                    fingerprint, shape_ids)
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.version import engine_name
-from sumpwise.vocabulary.measures import TREND_BASES
 from sumpwise.vocabulary.problems import InputError
 
 DEFAULT_PATH = "sumpwise.db"
 APPLICATION_ID = 0x53574C47  # "SWLG": marks the file as a sumpwise ledger
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 PAGE_SIZE = 16384  # bytes; a new ledger only (SQLite keeps a file's page size): bulk imports write faster
 CACHE_KIB = 262144  # page cache of a writing run: index pages stay in memory while a large batch is stored
 BUSY_SECONDS = 60.0  # how long a run waits for another run's transaction before giving up
@@ -261,30 +265,40 @@ def sample_contents(frame: pd.DataFrame, block: int = 50_000) -> np.ndarray:
     Each column gives every row one piece, `"name": value, ` or "" where the value is missing,
     each distinct value spelled once; a block of rows' pieces is joined in one pass and split
     at the row ends (blocks keep each joined text small, which keeps this linear in the rows).
+    This is a form-1 sample's stored text, and what tells a known sample from a changed one.
     """
-    n = len(frame)
-    pieces = [np.full(n, "{", dtype=object)]
-    pieces += [_content_pieces(name, frame[name]) for name in sorted(frame.columns)]
-    pieces.append(np.full(n, "}\n", dtype=object))
-    table = np.stack(pieces, axis=1)
+    pieces = [_content_pieces(json.dumps(name, ensure_ascii=False) + ": ", ", ", "", frame[name])
+              for name in sorted(frame.columns)]
+    return _rows(len(frame), "{", pieces, ", }\n", "}\n", block)
+
+
+def sample_arrays(frame: pd.DataFrame, block: int = 50_000) -> np.ndarray:
+    """Each row's input values as a JSON array in the frame's column order, null where missing:
+    a form-2 sample's stored text (the names are kept once, in the batch's `columns`)."""
+    pieces = [_content_pieces("", ",", "null,", frame[name]) for name in frame.columns]
+    return _rows(len(frame), "[", pieces, ",]\n", "]\n", block)
+
+
+def _rows(n: int, opening: str, pieces: list, trailing: str, closing: str, block: int) -> np.ndarray:
+    table = np.stack([np.full(n, opening, dtype=object), *pieces, np.full(n, closing, dtype=object)], axis=1)
     contents = np.empty(n, dtype=object)
     for start in range(0, n, block):
         text = "".join(table[start:start + block].ravel().tolist())
-        # A raw newline only ends a row (JSON escapes it elsewhere), so ", }\n" is always a row's trailing comma.
-        contents[start:start + block] = text.replace(", }\n", "}\n").split("\n")[:-1]
+        # A raw newline only ends a row (JSON escapes it elsewhere), so `trailing` is always a row's last comma.
+        contents[start:start + block] = text.replace(trailing, closing).split("\n")[:-1]
     return contents
 
 
-def _content_pieces(name: str, column: pd.Series) -> np.ndarray:
-    key = json.dumps(name, ensure_ascii=False) + ": "
+def _content_pieces(key: str, comma: str, missing: str, column: pd.Series) -> np.ndarray:
+    """Every row's piece of one column: `key`, the value as JSON and `comma`, or `missing`."""
     if column.dtype == bool:
-        return np.array([key + "false, ", key + "true, "], dtype=object)[column.to_numpy().astype(np.intp)]
+        return np.array([key + "false" + comma, key + "true" + comma], dtype=object)[column.to_numpy().astype(np.intp)]
     if column.dtype.kind in "fiu":
         values = column.to_numpy(dtype=float)
         # Factorized by bit pattern, so -0.0 keeps its own spelling; missing and infinite values are left out.
         codes, uniques = pd.factorize(np.where(np.isfinite(values), values, np.nan).view(np.int64))
-        spelled = [key + repr(v) + ", " if np.isfinite(v) else "" for v in uniques.view(float).tolist()]
-        return np.array(spelled + [""], dtype=object)[codes]
+        spelled = [key + repr(v) + comma if np.isfinite(v) else missing for v in uniques.view(float).tolist()]
+        return np.array(spelled + [missing], dtype=object)[codes]
     values = column.astype(object)
     present = values.notna().to_numpy()
     codes, uniques = pd.factorize(values.to_numpy(dtype=object))
@@ -293,21 +307,89 @@ def _content_pieces(name: str, column: pd.Series) -> np.ndarray:
     codes[~present] = -1
     uniques = np.asarray(uniques, dtype=object)
     if _NEEDS_ESCAPE.search("".join(uniques)):
-        spelled = np.array([key + json.dumps(u, ensure_ascii=False) + ", " for u in uniques], dtype=object)
+        spelled = np.array([key + json.dumps(u, ensure_ascii=False) + comma for u in uniques], dtype=object)
     else:
-        spelled = key + '"' + uniques + '", '
-    return np.append(spelled, "").astype(object)[codes]
+        spelled = key + '"' + uniques + '"' + comma
+    return np.append(spelled, missing).astype(object)[codes]
 
 
-def _fingerprints(contents: np.ndarray) -> np.ndarray:
-    return np.array(list(map(fingerprint, contents.tolist())), dtype=object)
+def canonical_text(values: dict) -> str:
+    """A sample's values (missing ones left out) as sample_contents spells them."""
+    return json.dumps(values, sort_keys=True, ensure_ascii=False)
+
+
+# The typed columns a form-2 batch may keep a sample's values in (its `held` names), and the SQL
+# that reads a stored sample's values whatever its form (object_text and sample_object take it).
+HELD = ("sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method", "lab")
+STORED_VALUES = "s.content, b.form, b.columns, b.held, " + ", ".join(f"s.{name}" for name in HELD)
+
+
+def sample_object(content: str, form: int, columns: str, held: str, *typed) -> dict:
+    """A stored sample's values by name, whatever its batch's form (a row read as STORED_VALUES)."""
+    if form == 1:
+        return json.loads(content)
+    rest, held = _layout(columns, held)
+    values = {name: value for name, value in zip(rest, json.loads(content)) if value is not None}
+    for name, value in zip(HELD, typed):
+        if value is not None and name in held:
+            values[name] = bool(value) if name == "oil_changed" else value
+    return values
+
+
+@functools.lru_cache(maxsize=256)
+def _layout(columns: str, held: str) -> tuple[list, frozenset]:
+    """A form-2 batch's array names and held names, read once per batch rather than per sample."""
+    held = frozenset(json.loads(held))
+    return [name for name in json.loads(columns) if name not in held], held
+
+
+def object_text(content: str, form: int, *rest) -> str:
+    """A stored sample's values as canonical JSON text (a form-1 sample's content as stored)."""
+    return content if form == 1 else canonical_text(sample_object(content, form, *rest))
+
+
+def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
+    """The HELD columns whose typed values (as written) give back the frame's values exactly, so
+    the sample's array can leave them out: text or missing, finite numbers, or flags."""
+    held = []
+    for name in HELD:
+        if name not in frame.columns:
+            continue
+        column = frame[name]
+        if name == "oil_changed":
+            if column.dtype == bool:
+                held.append(name)
+            continue
+        written = np.array(typed[name], dtype=object)
+        if name == "oil_hours":
+            if column.dtype.kind not in "fiu":
+                continue
+            values = column.to_numpy(dtype=float)
+            finite = np.isfinite(values)
+            back = np.array([np.nan if v is None else v for v in typed[name]], dtype=float)
+            if (np.isinf(values).any() or np.signbit(values[finite & (values == 0)]).any()
+                    or not np.array_equal(np.where(finite, values, np.nan), back, equal_nan=True)):
+                continue
+            held.append(name)
+            continue
+        values = column.to_numpy(dtype=object)
+        missing = pd.isna(values)
+        if (not all(type(v) is str for v in pd.unique(values[~missing]))  # each distinct value once
+                or not (missing == pd.isna(written)).all()):
+            continue
+        if (values[~missing] == written[~missing]).all():
+            held.append(name)
+    return held
 
 
 def _nullable(values: np.ndarray) -> list:
-    """Values ready to bind: SQLite itself stores a NaN float as NULL, so floats go as they are."""
+    """Values to bind, as SQLite gives them back: None for a missing value (a NaN float included),
+    0.0 for -0.0."""
     values = np.asarray(values)
     if values.dtype.kind == "f":
-        return values.tolist()
+        values = values + 0.0  # -0.0 + 0.0 is 0.0
+        if not np.isnan(values).any():
+            return values.tolist()
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
 
 
@@ -318,36 +400,113 @@ def _fill_temp(conn: sqlite3.Connection, table: str, values) -> None:
 
 
 def _current_entries(conn: sqlite3.Connection, sample_ids) -> pd.DataFrame:
-    """The current entries of these ids: one join on a temporary table, skipped on an empty ledger."""
-    columns = ["sample_id", "entry", "content_sha256", "batch"]
+    """The current entries of these ids with their values as canonical JSON text: one join on a
+    temporary table, skipped on an empty ledger."""
+    columns = ["sample_id", "entry", "content", "batch"]
     if conn.execute("SELECT NOT EXISTS (SELECT 1 FROM samples)").fetchone()[0]:
         return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
     _fill_temp(conn, "wanted_ids", sample_ids)
-    rows = conn.execute("SELECT s.sample_id, s.entry, s.content_sha256, s.batch FROM samples s "
-                        "JOIN temp.wanted_ids w ON s.sample_id = w.value WHERE s.superseded_in IS NULL").fetchall()
-    return pd.DataFrame(rows, columns=columns)
+    rows = conn.execute(f"SELECT s.sample_id, s.entry, s.batch, {STORED_VALUES} FROM samples s "
+                        "JOIN temp.wanted_ids w ON s.sample_id = w.value JOIN batches b ON b.batch = s.batch "
+                        "WHERE s.superseded_in IS NULL").fetchall()
+    return pd.DataFrame([(sid, entry, object_text(*stored), number) for sid, entry, number, *stored in rows],
+                        columns=columns)
 
 
-def history_frame(conn: sqlite3.Connection, units, before_batch: int | None = None) -> pd.DataFrame:
-    """Earlier samples of `units` as trends read them (trends.CHAIN_COLUMNS and the trend bases).
+def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batch: int | None = None) -> pd.DataFrame:
+    """Earlier samples of `units` as trends read them: trends.CHAIN_COLUMNS and every measure
+    `ruleset` trends (its declared measures, particle counts and ISO 4406 numbers, differential
+    oxidation included).
 
-    With `before_batch`, the ledger as it stood when that batch was recorded (for replay).
+    Each sample's values are derived again from its stored input values (its fingerprinted
+    content), under `ruleset`, as the batch being graded is: a fixed set of table columns
+    cannot hold the measures rule sets declare. With `before_batch`, the ledger as it stood
+    when that batch was recorded (for replay).
     """
     _fill_temp(conn, "wanted_units", units)
-    columns = list(CHAIN_COLUMNS) + list(TREND_BASES)
-    sql = (f"SELECT {', '.join('s.' + c for c in columns)} FROM samples s "
-           f"JOIN temp.wanted_units u ON s.unit_id = u.value ")
+    sql = (f"SELECT s.batch, {STORED_VALUES} FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
+           "JOIN batches b ON b.batch = s.batch ")
     if before_batch is None:
         rows = conn.execute(sql + "WHERE s.superseded_in IS NULL ORDER BY s.entry").fetchall()
     else:
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
-    frame = pd.DataFrame(rows, columns=columns)
-    frame["oil_changed"] = frame["oil_changed"].astype(bool)
-    for name in ("oil_hours",) + TREND_BASES:
-        frame[name] = pd.to_numeric(frame[name], errors="coerce").astype(float)
-    for name in ("sample_id", "unit_id", "sampled_on", "method", "lab"):
-        frame[name] = frame[name].astype(object).where(frame[name].notna(), None)
+    return measures_of(stored_frame(rows), ruleset)
+
+
+def stored_frame(rows: list) -> pd.DataFrame | None:
+    """Stored samples (rows of s.batch then STORED_VALUES, in entry order) as one frame, each
+    batch's values read its own way (a form-2 batch's arrays all at once); None for no rows."""
+    frames = []
+    for (_, form), group in itertools.groupby(rows, key=lambda row: (row[0], row[2])):
+        group = list(group)
+        columns, contents = json.loads(group[0][3]), [row[1] for row in group]
+        if form == 1:
+            frames.append(frame_from_contents(contents, columns))
+            continue
+        held = json.loads(group[0][4])
+        frames.append(frame_from_arrays(contents, columns, held,
+                                        {name: [row[5 + HELD.index(name)] for row in group] for name in held}))
+    if len(frames) < 2:
+        return frames[0] if frames else None
+    frame = pd.concat(frames, ignore_index=True)
+    for name in frame.columns:
+        column = frame[name]
+        if column.dtype == object:  # a flag or text one batch lacks: None there, as a missing value reads
+            frame[name] = column.where(column.notna(), None)
+    frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
+    return frame
+
+
+def stored_measures(contents: list, columns: list, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
+    """Stored samples' trend inputs (CHAIN_COLUMNS and the rule set's trend bases, then the
+    readings `also` names), derived from their stored input values exactly as grading derives them."""
+    return measures_of(frame_from_contents(contents, columns) if contents else None, ruleset, also)
+
+
+def measures_of(frame: pd.DataFrame | None, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
+    """stored_measures of a frame of stored values (None: no samples)."""
+    bases = trend_bases(ruleset)
+    bases += tuple(name for name in also if name not in bases)
+    if frame is None or not len(frame):
+        return pd.DataFrame({name: pd.Series(dtype=float if name in ("oil_hours",) + bases else object)
+                             for name in list(CHAIN_COLUMNS) + list(bases)}).astype({"oil_changed": bool})
+    batch = read_cleanliness_codes(read_oil_changes(SampleBatch(frame, (), len(frame), "ledger")))
+    measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
+    return chain_frame(measured, batch.frame.get("oil_changed"), bases).reset_index(drop=True)
+
+
+def frame_from_arrays(contents, columns: list, held: list, typed: dict) -> pd.DataFrame:
+    """A form-2 batch's stored values (its arrays, and its `held` columns from `typed`: lists as
+    SQLite gave them) back into the frame frame_from_contents makes of the same values as
+    objects (a column no row has is float NaN; text and flags keep None)."""
+    contents = list(contents)
+    index = pd.RangeIndex(1, len(contents) + 1, name="row")
+    frame = pd.DataFrame(json.loads("[" + ",".join(contents) + "]") if contents else [],
+                         columns=[c for c in columns if c not in held], index=index)
+    for name in held:
+        values = typed[name]
+        frame[name] = (np.array(values, dtype=bool) if name == "oil_changed" else
+                       pd.Series(values, index=index, dtype=float if name == "oil_hours" else None))
+    frame = frame[columns]
+    for name in frame.columns:
+        column = frame[name]
+        if column.dtype == object:
+            present = column.notna()
+            frame[name] = column.where(present, None) if present.any() else np.nan
+    return frame
+
+
+def frame_from_contents(contents, columns: list) -> pd.DataFrame:
+    """Stored sample values back into the frame samples.py made of them (floats, text or None, flags)."""
+    contents = list(contents)
+    frame = pd.DataFrame.from_records(json.loads("[" + ",".join(contents) + "]") if contents else [])
+    frame = frame.reindex(columns=columns)
+    for name in frame.columns:
+        column = frame[name]
+        if column.dtype == object:
+            frame[name] = column.where(column.notna(), None)
+    frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
     return frame
 
 
@@ -409,24 +568,25 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     _check_version(conn, path, ruleset, reuse_version)
     frame = batch.frame
     ids = frame["sample_id"].to_numpy(dtype=object)
-    contents = sample_contents(frame)
-    shas = _fingerprints(contents)
     stored = _current_entries(conn, ids)
     by_id = stored.set_index("sample_id")
-    stored_sha = by_id["content_sha256"].reindex(ids).to_numpy(dtype=object)
-    known = pd.notna(stored_sha) & (stored_sha == shas)
-    differs = pd.notna(stored_sha) & ~known
+    stored_text = by_id["content"].reindex(ids).to_numpy(dtype=object)
+    recorded = pd.notna(stored_text)
+    known = np.zeros(len(frame), dtype=bool)  # the same values as recorded: compared as canonical text
+    if recorded.any():
+        known[recorded] = sample_contents(frame[recorded]) == stored_text[recorded]
+    differs = recorded & ~known
     conflicts = differs if correction is None else np.zeros(len(frame), dtype=bool)
     if conflicts.any():
         stored_batch = by_id["batch"].reindex(ids).to_numpy()
         batch = SampleBatch(frame[~conflicts], tuple(batch.rejects) + tuple(_conflict_rejects(batch, conflicts,
                                                                                                 stored_batch)),
                             batch.rows_read, batch.source)
-        frame, ids, contents, shas = batch.frame, ids[~conflicts], contents[~conflicts], shas[~conflicts]
+        frame, ids = batch.frame, ids[~conflicts]
         known, differs = known[~conflicts], differs[~conflicts]
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
-    history = history_frame(conn, units)
+    history = history_frame(conn, units, ruleset)
     history = history[~history["sample_id"].isin(ids)]
     graded = grade_batch(batch, ruleset, history)
     fresh = ~known
@@ -440,8 +600,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     n_new, n_corrections = int(fresh.sum() - differs.sum()), int(differs.sum())
     cursor = conn.execute(
         "INSERT INTO batches (recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, "
-        "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous, value_names) "
-        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form) "
+        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 2)",
         (datetime.now(timezone.utc).isoformat(timespec="seconds"), batch.source, ruleset.sha256, engine_name(),
          json.dumps(list(frame.columns)), batch.rows_read, n_new, int(known.sum()), n_corrections,
          len(batch.rejects), n_conflicts, correction.reason if correction else None,
@@ -456,33 +616,40 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     corrects = np.full(len(frame), None, dtype=object)
     corrects[differs] = corrected
     flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame else np.zeros(len(frame), bool)
-    columns = [[number] * len(rows)]
-    columns += [_nullable(measured[name].to_numpy()[rows]) for name in
-                ("sample_id", "unit_id", "class", "sampled_on", "oil_hours")]
-    columns.append(flags[rows].astype(int).tolist())
-    columns += [_nullable(measured[name].to_numpy()[rows]) for name in ("method", "lab") + TREND_BASES]
-    columns += [contents[rows].tolist(), shas[rows].tolist(), corrects[rows].tolist()]
-    names = ("batch", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method", "lab",
-             *TREND_BASES, "content", "content_sha256", "corrects")
     first = conn.execute("SELECT coalesce(max(entry), 0) + 1 FROM samples").fetchone()[0]
-    conn.executemany(f"INSERT INTO samples ({', '.join(names)}) VALUES ({', '.join('?' * len(names))})",
-                     zip(*columns))
+    entries = list(range(first, first + len(rows)))
+    # Form 2: the typed columns queries and history read; each value once (those columns, or the
+    # sample's array); no reading columns.
+    typed = {name: _nullable(measured[name].to_numpy()[rows]) for name in HELD if name != "oil_changed"}
+    typed["oil_changed"] = flags[rows].astype(int).tolist()
+    fresh_frame = frame.iloc[rows]
+    held = _held(fresh_frame, typed)
+    values = sample_arrays(fresh_frame[[c for c in frame.columns if c not in held]]).tolist()
+    conn.execute("UPDATE batches SET held = ? WHERE batch = ?", (json.dumps(held), number))
+    typed = [typed[name] for name in HELD]
+    nothing = [None] * len(rows)
+    written = [entries, *typed, values, corrects[rows].tolist()]  # DIGEST_2_SAMPLE_COLUMNS
+    conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
+                     "method, lab, content, content_sha256, corrects, batch) "
+                     "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', ?, ?)",
+                     zip(*written, [number] * len(rows)))
 
     facts = batch_facts(graded)
     shapes = np.array(shape_ids(conn, facts.shapes), dtype=np.int64)
     levels = facts.levels[rows].astype(object)
     levels[facts.levels[rows] < 0] = None
-    entries, grades, levels, values = list(range(first, first + len(rows))), facts.grades[rows].tolist(), \
-        levels.tolist(), facts.values[rows].tolist()
+    grades, levels, vals = facts.grades[rows].tolist(), levels.tolist(), facts.values[rows].tolist()
     conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
-                     zip(entries, grades, levels, shapes[facts.shape_of[rows]].tolist(), values))
+                     zip(entries, grades, levels, shapes[facts.shape_of[rows]].tolist(), vals))
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
     # The digest of the rows just written, as SQLite gives them back (replay reads them back).
-    shape_shas = np.array([fingerprint(text) for text in facts.shapes], dtype=object)
-    written = {1: list(zip(entries, columns[1], shas[rows].tolist(), corrects[rows].tolist())),
-               2: list(zip(entries, grades, levels, shape_shas[facts.shape_of[rows]].tolist(), values))}
-    conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, written), number))
+    shape_of = shapes[facts.shape_of[rows]]
+    used = np.unique(shape_of)
+    sha_of = dict(zip(shapes.tolist(), (fingerprint(text) for text in facts.shapes)))
+    conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, {
+        1: written, 2: [[0]], 3: [entries, grades, levels, shape_of.tolist(), vals],
+        4: [used.tolist(), [sha_of[shape] for shape in used.tolist()]]}), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
 
 
@@ -496,70 +663,93 @@ _JOINS = ("FROM samples s JOIN verdicts v ON v.entry = s.entry JOIN shapes sh ON
 
 
 def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
-    """Every recorded version of a sample, oldest first, with its verdict, batch and rule set."""
+    """Every recorded version of a sample, oldest first, with its verdict, batch and rule set (its
+    values as canonical JSON text): the current version and the ones its corrections replaced."""
     cursor = conn.execute(
+        "WITH RECURSIVE versions(entry) AS (SELECT entry FROM samples WHERE sample_id = ? AND superseded_in IS NULL "
+        "UNION SELECT c.corrects FROM samples c JOIN versions v ON c.entry = v.entry WHERE c.corrects IS NOT NULL) "
         f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
         f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
-        f"rs.canonical "
-        f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.sample_id = ? ORDER BY s.entry",
+        f"rs.canonical, {STORED_VALUES} "
+        f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.entry IN versions ORDER BY s.entry",
         (sample_id,))
     names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
              "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
              "author", "canonical")
-    return [dict(zip(names, row)) for row in cursor.fetchall()]
+    return [dict(zip(names, row[:len(names)]), content=object_text(*row[len(names):])) for row in cursor.fetchall()]
 
 
 def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
-    """The current samples of a unit with their verdicts, in trend order (date, then oil hours)."""
+    """The current samples of a unit with their verdicts, stored values and batch columns, in
+    trend order (date, then oil hours)."""
     rows = conn.execute(
-        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT} {_JOINS} "
-        "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry",
-        (unit_id,)).fetchall()
-    return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals"])
+        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, "
+        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL "
+        f"ORDER BY s.sampled_on, s.oil_hours, s.entry", (unit_id,)).fetchall()
+    at = len(_UNIT_COLUMNS) + 4
+    rows = [row[:at] + (object_text(*row[at + 2:]),) + row[at:at + 2] for row in rows]
+    return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",
+                                                             "ruleset_sha256"])
 
 
 def batch_list(conn: sqlite3.Connection) -> list[dict]:
     """Every batch in order, with its rule set's stored text (None when that row is gone)."""
     names = ("batch", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "rows_read", "new_samples",
              "known_samples", "corrections", "rejected", "conflicts", "reason", "author", "previous", "digest",
-             "value_names", "canonical", "ruleset_id", "version")
-    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:17])}, rs.canonical, rs.ruleset_id, rs.version "
+             "value_names", "form", "held", "canonical", "ruleset_id", "version")
+    rows = conn.execute(f"SELECT {', '.join('b.' + n for n in names[:19])}, rs.canonical, rs.ruleset_id, rs.version "
                         "FROM batches b LEFT JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 ORDER BY b.batch")
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
 
-_BATCH_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method", "lab",
-                  *TREND_BASES, "content", "content_sha256", "corrects", "superseded_in")
-
-
-def batch_entries(conn: sqlite3.Connection, batch: int) -> pd.DataFrame:
+def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.DataFrame, dict]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
-    (None where a sample has no verdict row)."""
-    rows = conn.execute(f"SELECT {', '.join('s.' + c for c in _BATCH_COLUMNS)}, v.grade, v.level, sh.facts, v.vals "
-                        "FROM samples s LEFT JOIN verdicts v ON v.entry = s.entry "
-                        "LEFT JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? ORDER BY s.entry",
-                        (batch,)).fetchall()
-    return pd.DataFrame(rows, columns=list(_BATCH_COLUMNS) + ["grade", "level", "facts", "vals"])
+    (None where a sample has no verdict row); and the columns its digest covers, as lists of
+    what SQLite gave (each row is read once). A form-2 batch's reading columns are None here:
+    its digest counts any that are not."""
+    names = (FORM_1_SAMPLE_COLUMNS if form == 1 else DIGEST_2_SAMPLE_COLUMNS) + ("superseded_in",)
+    rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
+    columns = dict(zip(names, ([list(column) for column in zip(*rows)] if rows else [[] for _ in names])))
+    del rows
+    rows = conn.execute("SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s "
+                        "JOIN verdicts v ON v.entry = s.entry WHERE s.batch = ? ORDER BY v.entry", (batch,)).fetchall()
+    verdict = ("verdict_entry", "grade", "level", "shape", "vals")
+    columns.update(zip(verdict, ([list(column) for column in zip(*rows)] if rows else [[] for _ in verdict])))
+    del rows
+    used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN verdicts v "
+                        "ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? "
+                        "ORDER BY sh.shape", (batch,)).fetchall()
+    columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
+    facts = {shape: text for shape, _, text in used}
+    verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in verdict})
+    verdicts["facts"] = verdicts["shape"].map(facts)  # None where the shape is gone
+    verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
+    n = len(columns["entry"])
+    frame = pd.DataFrame({name: pd.Series(columns[name] if name in columns else [None] * n, dtype=object)
+                          for name in FORM_1_SAMPLE_COLUMNS + ("superseded_in",)})
+    for name in ("grade", "level", "facts", "vals"):
+        frame[name] = verdicts[name].to_numpy(dtype=object)
+    return frame, columns
 
 
 def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
     """The stored values of every current sample (corrections applied), in trend order, and the
     union of the columns their batches carried."""
-    rows = conn.execute("SELECT s.content FROM samples s WHERE s.superseded_in IS NULL "
-                        "ORDER BY s.unit_id, s.sampled_on, s.oil_hours, s.entry").fetchall()
+    rows = conn.execute(f"SELECT {STORED_VALUES} FROM samples s JOIN batches b ON b.batch = s.batch "
+                        "WHERE s.superseded_in IS NULL ORDER BY s.unit_id, s.sampled_on, s.oil_hours, s.entry")
     columns: list[str] = []
     for (text,) in conn.execute("SELECT columns FROM batches ORDER BY batch").fetchall():
         columns.extend(c for c in json.loads(text) if c not in columns)
-    return [text for (text,) in rows], columns
+    return [object_text(*row) for row in rows], columns
 
 
 def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list[tuple]:
-    """(content, facts, vals, ruleset sha256, engine, value names, batch source) of the current samples, or of
-    one batch."""
+    """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names, batch source)
+    of the current samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    return conn.execute(f"SELECT s.content, sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names, b.source "
-                        f"{_JOINS} "
-                        f"WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ()).fetchall()
+    rows = conn.execute(f"SELECT sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names, b.source, "
+                        f"{STORED_VALUES} {_JOINS} WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ())
+    return [(object_text(*row[6:]),) + row[:6] for row in rows]
 
 
 def stored_rulesets(conn: sqlite3.Connection) -> list[dict]:

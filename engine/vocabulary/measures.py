@@ -85,7 +85,7 @@ READINGS = (
              "on the used oil itself (ASTM D7414 Procedure A)", family="absorbance", reference=True, trended=True),
     _reading("oxidation_differential", "abs/cm", "FTIR oxidation by differential trend: carbonyl peak height, "
              "1800-1670 cm-1, after subtracting the new oil (ASTM D7414 Procedure B, D7418); a row gives it "
-             "as `oxidation` with `method` subtraction or differential", scale_of="oxidation"),
+             "as `oxidation` with `method` subtraction or differential", scale_of="oxidation", trended=True),
     _reading("nitration", "abs/cm", "FTIR nitration", family="absorbance", trended=True),
     _reading("sulfation", "abs/cm", "FTIR sulfation", family="absorbance", trended=True),
     _reading("antiwear", "abs/cm", "FTIR anti-wear additive (phosphate)", family="absorbance", trended=True),
@@ -182,9 +182,9 @@ def _trend_measures(reading: Measure) -> tuple[Measure, ...]:
     name, unit, previous = reading.name, reading.unit, f"previous_{reading.name}"
     return (
         _derived(f"{name}_step", unit, (name, previous), f"{name} minus the unit's previous sample's {name}",
-                 scale_of=name, low_is_bad=reading.low_is_bad),
+                 scale_of=reading.scale_of, low_is_bad=reading.low_is_bad),
         _derived(f"{name}_step_per_1000h", f"{unit} per 1000 h", (name, previous, "hours_since_previous"),
-                 f"{name}_step / oil hours between the two samples x 1000", scale_of=name,
+                 f"{name}_step / oil hours between the two samples x 1000", scale_of=reading.scale_of,
                  low_is_bad=reading.low_is_bad),
         _derived(f"{name}_rising", "", (name, previous), f"consecutive rises of {name} ending at this sample",
                  domain=NOT_NEGATIVE),
@@ -192,7 +192,7 @@ def _trend_measures(reading: Measure) -> tuple[Measure, ...]:
 
 
 MEASURES: dict[str, Measure] = {m.name: m for m in READINGS + ROW_DERIVED + CLEANLINESS}
-# The readings whose values a ledger stores for trends (its table columns: keep this list as it is).
+# The readings a ledger's form-1 batches keep in typed columns (its table columns: keep this list as it is).
 TREND_BASES = ("kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation", "antiwear", "soot", "water",
                "rpvot")
 # Every measure the trend measures are built on; declared measures get them too (declared_trend_measure).
@@ -225,7 +225,8 @@ METHODS = {"direct": "direct", "subtraction": "subtraction", "differential": "su
 OXIDATION_CONVENTIONS = {
     "direct": ("oxidation", "oxidation_rise", "oxidation_rise_per_1000h", "oxidation_step",
                "oxidation_step_per_1000h", "oxidation_rising"),
-    "subtraction": ("oxidation_differential", "oxidation_differential_per_1000h"),
+    "subtraction": ("oxidation_differential", "oxidation_differential_per_1000h", "oxidation_differential_step",
+                    "oxidation_differential_step_per_1000h", "oxidation_differential_rising"),
 }
 
 

@@ -32,7 +32,8 @@ ENGINE_CHANGES = {"BP-0059": "screw-compressor, oxidation 19.6 by subtraction",
 # put the edit back and add a step instead (DEVELOPERS.md, "Change the ledger's schema").
 RELEASED = ("20e63dfeb2b5ce4df369c6b07f49c6e2c1e8b953c9306d8d5cc6b6943b501da2",
             "05b510c348a44a964fd1f38cba058af3b27a01df55c3bfebb8006a12acc347a1",
-            "376b66162183b588b4409b300e787dff7418101af80174cf986feab65bea33c1")
+            "376b66162183b588b4409b300e787dff7418101af80174cf986feab65bea33c1",
+            "2dd8a471c4733d99c0b45ed2ceef20ad7b501725909150bbf4401ce84c1fd18e")
 
 
 def test_released_steps_are_unchanged():
@@ -60,9 +61,14 @@ def test_a_ledger_written_before_the_change_is_migrated_in_place_and_replays_cle
     db = tmp_path / "old.db"
     shutil.copyfile(OLD_LEDGER, db)
     report = replay(db)
-    assert {d.sample_id for d in report.differences} == set(ENGINE_CHANGES)
-    assert all("its reasons, caveats or gaps differ" in d.what and "an engine change, not an alteration" in d.what
-               for d in report.differences)  # told apart from tampering: the rows' fingerprints hold
+    assert report.differences == () and report.integrity == ()  # nothing altered, nothing failing
+    assert {d.sample_id for d in report.engine_changes} == set(ENGINE_CHANGES)
+    assert all("recorded by sumpwise 0.1.0" in d.what and "an engine change, not an alteration" in d.what
+               for d in report.engine_changes)  # told apart from tampering: the batch's digest holds
+    what = {d.sample_id: d.what for d in report.engine_changes}
+    assert "caveats: recorded none, now unknown-class" in what["BP-0225"]
+    assert "fired: recorded carbonyl-rise=urgent, acid-rise=watch, carbonyl-rising-fast=watch, now acid-rise=watch" \
+        in what["BP-0260"]
     assert (report.checked, report.batches, report.rulesets) == (329, 4, 2)
     conn = open_ledger(db)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
@@ -88,3 +94,16 @@ def test_the_migrated_verdicts_are_the_records_the_old_ledger_held(tmp_path):
         record, old_record = json.loads(dumps(result.to_record())), json.loads(stored[result.sample_id])
         # Every key the old record had, with the same value (a newer record may carry more keys).
         assert {key: record.get(key) for key in old_record} == old_record, result.sample_id
+
+
+def test_replay_of_the_old_ledger_exits_clean_and_lists_the_engine_changes_strict_fails(tmp_path):
+    from tests.conftest import run_cli
+    db = tmp_path / "old.db"
+    shutil.copyfile(OLD_LEDGER, db)
+    run = run_cli("replay", "--db", db)
+    assert run.code == 0, run.out
+    assert "integrity: clean" in run.out
+    listed = [line.split(" (batch ")[0] for line in run.out.splitlines() if line.startswith("engine change: ")]
+    assert listed == [f"engine change: {sid}" for sid in sorted(ENGINE_CHANGES)]
+    assert "reproducibility: 325 result(s) graded as recorded; 4 graded otherwise than an older engine" in run.out
+    assert run_cli("replay", "--db", db, "--strict").code == 3

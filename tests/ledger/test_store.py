@@ -140,22 +140,38 @@ def test_an_older_schema_is_migrated_keeping_its_data(tmp_path, ruleset):
     conn = open_ledger(db)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
     names = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'index'")}
-    assert {"samples_unit", "samples_sample"} <= names
+    assert {"samples_unit", "samples_current", "samples_batch"} <= names
+    # step 4: versions are found through the current one's corrections; `find` by date reads the dates
+    assert not {"samples_sample", "samples_date"} & names
     assert conn.execute("SELECT count(*) FROM rulesets").fetchone()[0] == 1
     assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     conn.close()
 
 
-def test_sample_values_are_stored_as_canonical_json(tmp_path, ruleset):
+def test_sample_values_are_stored_once(tmp_path, ruleset):
     db = tmp_path / "l.db"
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     with sqlite3.connect(db) as conn:
-        content, = conn.execute("SELECT content FROM samples WHERE sample_id = 'T-09'").fetchone()
-    assert json.loads(content) == {"an": 0.09, "class": "steam-turbine", "kv40": 46.1, "lab": "lab-a",
-                                   "lubricant": "TEST-46", "method": "direct", "oil_changed": True,
-                                   "oil_hours": 1300.0, "oxidation": 2.5, "sample_id": "T-09",
-                                   "sampled_on": "2026-02-06", "unit_id": "ST-2"}
-    assert list(json.loads(content)) == sorted(json.loads(content))
+        content, columns, held, form, sha, typed = conn.execute(
+            "SELECT s.content, b.columns, b.held, b.form, s.content_sha256, json_array(s.sample_id, s.unit_id, "
+            "s.class, s.sampled_on, s.oil_hours, s.oil_changed, s.method, s.lab) "
+            "FROM samples s JOIN batches b USING (batch) WHERE sample_id = 'T-09'").fetchone()
+    assert (form, sha) == (2, "")
+    # the identity columns hold their values; the rest are one array, in the batch's column order
+    assert json.loads(held) == ["sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method",
+                                "lab"]
+    assert json.loads(typed) == ["T-09", "ST-2", "steam-turbine", "2026-02-06", 1300.0, 1, "direct", "lab-a"]
+    rest = [name for name in json.loads(columns) if name not in json.loads(held)]
+    assert dict(zip(rest, json.loads(content))) == {"an": 0.09, "kv40": 46.1, "lubricant": "TEST-46",
+                                                    "oxidation": 2.5}
+    # Reference: Python's json module spells the whole sample as sample_contents does (what tells a
+    # known sample from a changed one, and a form-1 sample's stored text).
+    from sumpwise.ledger.store import object_text
+    values = {"an": 0.09, "class": "steam-turbine", "kv40": 46.1, "lab": "lab-a", "lubricant": "TEST-46",
+              "method": "direct", "oil_changed": True, "oil_hours": 1300.0, "oxidation": 2.5, "sample_id": "T-09",
+              "sampled_on": "2026-02-06", "unit_id": "ST-2"}
+    assert object_text(content, 2, columns, held, *json.loads(typed)) == json.dumps(values, sort_keys=True,
+                                                                                    ensure_ascii=False)
 
 
 def test_sample_contents_equal_the_standard_json_module_row_by_row():
@@ -199,11 +215,12 @@ def test_missing_values_are_stored_as_null(tmp_path, ruleset):
     db = tmp_path / "l.db"
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     with sqlite3.connect(db) as conn:
-        kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(level) FROM samples "
+        kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(oil_hours), typeof(level) FROM samples "
                              "JOIN verdicts USING (entry) WHERE sample_id = 'T-04'").fetchone()
         unrated = conn.execute("SELECT typeof(level) FROM samples JOIN verdicts USING (entry) "
                                "WHERE sample_id = 'T-01'").fetchone()
-    assert kinds == ("null", "real", "integer") and unrated == ("null",)
+    # form 2 leaves the reading columns empty: the values are in the sample's array
+    assert kinds == ("null", "null", "real", "integer") and unrated == ("null",)
 
 
 def test_a_new_ledger_gets_the_larger_page_and_an_old_one_keeps_its_own(tmp_path, ruleset):
@@ -223,3 +240,27 @@ def test_a_new_ledger_gets_the_larger_page_and_an_old_one_keeps_its_own(tmp_path
         assert conn.execute("PRAGMA page_size").fetchone()[0] == 4096
         assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     assert recorded.new == 9 and _count(old) == 9
+
+
+def test_values_the_typed_columns_do_not_hold_as_written_stay_in_the_array(tmp_path):
+    # A batch given through the API with `method` DIRECT (the typed column holds it as read,
+    # "direct") and -0.0 oil hours (SQLite would give back 0.0) keeps those two in the array as
+    # written; a unit-less row and a missing lab keep the rest held. Re-importing the same batch
+    # adds nothing and the ledger replays clean: the values come back exactly.
+    from sumpwise.intake.samples import SampleBatch
+    ruleset = sumpwise.load_ruleset(DATA / "ledger" / "wear-rules.yaml")
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,oil_hours,iron,oxidation,method,lab,oil_changed\n"
+            "M-1,HPU-1,hydraulic,HYD-46,2026-03-02,1000,10,4.0,Differential,lab-a,no\n"
+            "M-2,,hydraulic,HYD-46,2026-03-09,1168,22,9.0,differential,,yes\n"
+            "M-3,HPU-1,hydraulic,HYD-46,2026-03-16,-0.0,23,9.5,direct,lab-a,no\n")
+    frame = _batch(text).frame
+    frame.loc[frame["sample_id"] == "M-3", "method"] = "DIRECT"
+    db = tmp_path / "l.db"
+    _, first = grade_into_ledger(db, SampleBatch(frame.copy(), (), 3, "api"), ruleset)
+    _, again = grade_into_ledger(db, SampleBatch(frame.copy(), (), 3, "api"), ruleset)
+    assert (first.new, again.new, again.known) == (3, 0, 3)
+    with sqlite3.connect(db) as conn:
+        held, = conn.execute("SELECT held FROM batches").fetchone()
+    assert json.loads(held) == ["sample_id", "unit_id", "class", "sampled_on", "oil_changed", "lab"]
+    report = replay(db)
+    assert (report.checked, report.differences, report.engine_changes) == (3, (), ())

@@ -13,8 +13,10 @@ import pytest
 
 import sumpwise
 from sumpwise.ledger.audit import replay, replay_lines
+from sumpwise.ledger.schema import chain
 from sumpwise.ledger.store import Correction, grade_into_ledger, migrate, open_ledger
-from tests.conftest import DATA
+from sumpwise.version import engine_name
+from tests.conftest import DATA, run_cli
 
 RULES = DATA / "ledger" / "trend-rules.yaml"
 SAMPLES = DATA / "ledger" / "samples.csv"
@@ -108,6 +110,8 @@ def test_the_newest_batch_deleted_changes_the_head_a_reader_noted(clean, tmp_pat
     assert after.differences == ()  # nothing inside the file can show it ...
     assert (after.last_batch, after.head) != (before.last_batch, before.head)  # ... the noted head does
     assert f"ledger head: batch {before.last_batch}, digest {before.head}" in "\n".join(replay_lines(before))
+    noted = run_cli("replay", "--db", db, "--head", f"{before.last_batch}:{before.head}")  # the auditor's note
+    assert noted.code == 3 and f"batch {before.last_batch}: the noted head batch is not in the ledger" in noted.out
 
 
 def test_an_inserted_sample_is_caught(clean, tmp_path):
@@ -122,7 +126,7 @@ def test_an_inserted_sample_is_caught(clean, tmp_path):
     assert (None, 1, "its stored rows no longer match the batch's digest (a row altered, added or deleted after "
                      "recording)") in found
     assert (None, 1, "it holds 7 sample(s) but recorded 6") in found
-    assert ("T-50", 1, "its stored values no longer match their fingerprint (altered after recording)") in found
+    assert ("T-50", 1, "its verdict is missing (deleted, or its shape is gone)") in found
 
 
 def test_an_inserted_verdict_and_rule_set_are_caught(clean, tmp_path):
@@ -143,3 +147,77 @@ def test_replay_reads_without_writing(clean, tmp_path):
     before = db.read_bytes()
     replay(db)
     assert db.read_bytes() == before
+
+
+def _forge(db, engine: str, rechain: bool) -> None:
+    """T-04's current verdict (not normal) rewritten as normal, the batch's engine string set to
+    `engine`; with `rechain`, every digest recomputed as someone who knows the definition could."""
+    with sqlite3.connect(db, isolation_level=None) as conn:
+        entry, batch = conn.execute("SELECT entry, batch FROM samples WHERE sample_id = 'T-04' "
+                                    "AND superseded_in IS NULL").fetchone()
+        conn.execute("UPDATE verdicts SET grade = 'normal', level = 0 WHERE entry = ?", (entry,))
+        conn.execute("UPDATE batches SET engine = ? WHERE batch = ?", (engine, batch))
+        if rechain:
+            chain(conn, 1)
+
+
+def test_a_forged_grade_under_a_faked_older_engine_is_caught_by_the_digest(clean, tmp_path):
+    db = _copy(clean, tmp_path)
+    _forge(db, "sumpwise 0.0.1", rechain=False)
+    report = replay(db)
+    assert [d.what for d in report.integrity if d.sample_id is None][:1] == [
+        "its stored rows no longer match the batch's digest (a row altered, added or deleted after recording)"]
+    assert report.engine_changes == ()  # a batch whose digest fails never excuses a difference as an engine change
+    assert [d.sample_id for d in report.reproducibility] == ["T-04"]
+    run = run_cli("replay", "--db", db)
+    assert run.code == 3 and "integrity: 1 finding(s)" in run.out
+
+
+def test_a_difference_under_the_recording_engine_fails_even_with_the_chain_recomputed(clean, tmp_path):
+    db = _copy(clean, tmp_path)
+    _forge(db, engine_name(), rechain=True)
+    report = replay(db)
+    assert report.integrity == ()  # the chain was made to hold ...
+    assert [d.sample_id for d in report.reproducibility] == ["T-04"]  # ... but the same engine grades it alert
+    assert run_cli("replay", "--db", db).code == 3
+
+
+def test_a_recomputed_chain_shows_against_the_noted_head_and_strict_fails_on_engine_changes(clean, tmp_path):
+    noted = replay(clean)
+    db = _copy(clean, tmp_path)
+    _forge(db, "sumpwise 0.0.1", rechain=True)
+    report = replay(db)
+    # Inside the file this now reads as an older engine's verdict: only the head noted elsewhere, or
+    # --strict, tells it from an engine change.
+    assert report.differences == () and [d.sample_id for d in report.engine_changes] == ["T-04"]
+    assert run_cli("replay", "--db", db).code == 0
+    assert run_cli("replay", "--db", db, "--strict").code == 3
+    head = f"{noted.last_batch}:{noted.head}"
+    checked = run_cli("replay", "--db", db, "--head", head)
+    assert checked.code == 3 and f"batch {noted.last_batch}: its digest is not the one noted" in checked.out
+    assert run_cli("replay", "--db", clean, "--head", head).code == 0
+    assert run_cli("replay", "--db", clean, "--head", "3:abc").code == 2  # a usage error, not a finding
+
+
+@pytest.mark.parametrize("form", [1, 3])
+def test_a_batch_passed_off_as_another_storage_form_is_caught(clean, tmp_path, form):
+    # Form 1 would verify the batch under digest 1 and read its values as JSON objects; an
+    # unknown form under digest 2: either way the digest no longer holds, and nothing crashes.
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("UPDATE batches SET form = ? WHERE batch = 2", (form,))
+    run = run_cli("replay", "--db", db)
+    assert run.code == 3, run.err
+    assert "integrity: batch 2: its stored rows no longer match the batch's digest" in run.out
+
+
+def test_digest_2_spells_different_columns_differently():
+    # A text column is joined by NUL only when the join splits back into the same values; any
+    # other column is JSON (the standard json module). Values moved across a row boundary, or a
+    # text that looks like a number, must not spell alike.
+    from sumpwise.ledger.schema import _spelled
+    columns = (["a\x00b", "c"], ["a", "b\x00c"], ["a", "b", "c"], ["ab", "c"], ["1", "2"], [1, 2], ["1", None],
+               [None, "1"], [], [""], ["", ""], [1.0, 2.0], [True, False], ["null"], [None])
+    spelled = [_spelled(list(column)) for column in columns]
+    assert len(set(spelled)) == len(columns)
+    assert _spelled(["a", "b"]) == b"Sa\x00b\x1f" and _spelled(["a", None]) == b'J["a", null]\x1f'
