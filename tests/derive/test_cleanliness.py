@@ -2,8 +2,8 @@
 
 The scale-number table is checked row by row against ISO 4406:1999 Table 1 ("Allocation of
 scale numbers", particles per mL, more than / up to and including), as reproduced in a filter
-maker's published appendix (Schroeder Industries, "Contamination Classification in accordance
-with ISO 4406:1999", scale numbers 0 to 28); the worked example there, 14/12/>=7, is checked too.
+maker's published appendix ("Contamination Classification in accordance with ISO 4406:1999",
+scale numbers 0 to 28); the worked example there, 14/12/>=7, is checked too.
 """
 
 from __future__ import annotations
