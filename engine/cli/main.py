@@ -233,7 +233,7 @@ def _check(args, stdin, stdout, stderr) -> int:
 def _rules_and_map(args):
     ruleset = load_ruleset(args.rules)
     extra = tuple(ruleset.measures) + tuple(ruleset.fields)
-    columns = load_column_map(args.columns, extra) if args.columns else None
+    columns = load_column_map(args.columns, extra, ruleset.measures) if args.columns else None
     return ruleset, columns
 
 

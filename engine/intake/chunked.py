@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from sumpwise.intake.readers import ENCODING_HINT
 from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, read_samples
 from sumpwise.vocabulary.problems import InputError
 
@@ -32,7 +33,8 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     if isinstance(source, (str, Path)):
         name = name or str(source)
         try:
-            stream = open(source, encoding="utf-8-sig", newline="")
+            # a byte that is not UTF-8 is kept as a surrogate, so the chunk can say on which line it is
+            stream = open(source, encoding="utf-8-sig", errors="surrogateescape", newline="")
         except OSError as exc:
             raise InputError(f"{name}: cannot read the file: {exc}") from None
     else:
@@ -43,7 +45,10 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     try:
         for text, lines in _chunk_texts(stream, fmt, rows, name):
             # as UTF-8 bytes: a StringIO of the chunk would hold 4 bytes a character
-            data, text = text.encode("utf-8"), None
+            try:
+                data, text = text.encode("utf-8"), None
+            except UnicodeEncodeError as exc:  # a surrogate: a byte the file's UTF-8 could not read
+                raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv")) from None
             batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name, columns,
                                  fmt, numeric)
             data = None
@@ -52,11 +57,24 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             offset += lines  # the chunk's lines, blank ones included: rows are numbered by line
             yield batch
             batch = None  # let the chunk go before the next one is read
-    except UnicodeDecodeError as exc:
-        raise InputError(f"{name}: cannot read the file: {exc}") from None
+    except UnicodeDecodeError as exc:  # a stream that decodes strictly: the line is not known
+        raise _not_utf8(name, exc.object[exc.start], None) from None
     finally:
         if stream is not source:
             stream.close()
+
+
+def _not_utf8(name: str, byte: int, line: int | None) -> InputError:
+    """The whole-file reader's error for a byte that is not UTF-8, naming the encodings to declare."""
+    where = f"line {line}: " if line else ""
+    return InputError(f"{name}: {where}byte 0x{byte & 0xFF:02x} is not utf-8 text; {ENCODING_HINT}")
+
+
+def _file_line(text: str, at: int, offset: int, header: bool) -> int:
+    """The file line of character `at` of a chunk's text: a CSV chunk's first line is the header
+    (line 1); the others follow the `offset` lines of earlier chunks."""
+    index = text.count("\n", 0, at)
+    return 1 if header and index == 0 else 1 + index + offset
 
 
 def _chunk_texts(stream, fmt: str, rows: int, name: str):
