@@ -50,7 +50,8 @@ def test_same_sample_same_content_adds_nothing(tmp_path, ruleset):
     assert (first.new, first.known, first.corrections) == (9, 0, 0)
     _, again = grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     assert (again.batch, again.new, again.known) == (None, 0, 9)
-    assert _count(db) == 9 and _count(db, "verdicts") == 9 and _count(db, "batches") == 1
+    assert _count(db) == 9 and _count(db, "batches") == 1
+    assert _count(db, "verdicts") == 0  # form 3: each verdict in its sample's row, one row per sample
     assert _count(db, "rulesets") == 1  # the rule set is stored once, by fingerprint
 
 
@@ -156,7 +157,7 @@ def test_sample_values_are_stored_once(tmp_path, ruleset):
             "SELECT s.content, b.columns, b.held, b.form, s.content_sha256, json_array(s.sample_id, s.unit_id, "
             "s.class, s.sampled_on, s.oil_hours, s.oil_changed, s.method, s.lab) "
             "FROM samples s JOIN batches b USING (batch) WHERE sample_id = 'T-09'").fetchone()
-    assert (form, sha) == (2, "")
+    assert (form, sha) == (3, "")
     # the identity columns hold their values; the rest are one array, in the batch's column order
     assert json.loads(held) == ["sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method",
                                 "lab"]
@@ -216,10 +217,9 @@ def test_missing_values_are_stored_as_null(tmp_path, ruleset):
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     with sqlite3.connect(db) as conn:
         kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(oil_hours), typeof(level) FROM samples "
-                             "JOIN verdicts USING (entry) WHERE sample_id = 'T-04'").fetchone()
-        unrated = conn.execute("SELECT typeof(level) FROM samples JOIN verdicts USING (entry) "
-                               "WHERE sample_id = 'T-01'").fetchone()
-    # form 2 leaves the reading columns empty: the values are in the sample's array
+                             "WHERE sample_id = 'T-04'").fetchone()
+        unrated = conn.execute("SELECT typeof(level) FROM samples WHERE sample_id = 'T-01'").fetchone()
+    # forms 2 and 3 leave the reading columns empty: the values are in the sample's array
     assert kinds == ("null", "null", "real", "integer") and unrated == ("null",)
 
 
