@@ -366,7 +366,7 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
                 continue
             values = column.to_numpy(dtype=float)
             finite = np.isfinite(values)
-            back = np.array([np.nan if v is None else v for v in typed[name]], dtype=float)
+            back = np.array(typed[name], dtype=float)  # None reads as NaN
             if (np.isinf(values).any() or np.signbit(values[finite & (values == 0)]).any()
                     or not np.array_equal(np.where(finite, values, np.nan), back, equal_nan=True)):
                 continue
@@ -374,7 +374,7 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             continue
         values = column.to_numpy(dtype=object)
         missing = pd.isna(values)
-        if (not all(type(v) is str for v in pd.unique(values[~missing]))  # each distinct value once
+        if (not set(map(type, values[~missing].tolist())) <= {str}  # every present value text
                 or not (missing == pd.isna(written)).all()):
             continue
         if (values[~missing] == written[~missing]).all():
