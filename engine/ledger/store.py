@@ -703,8 +703,8 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.D
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
     (from `verdicts` for forms 1 and 2, None where a sample has none; from the sample's row for
     form 3); and the columns its digest covers, as lists of what SQLite gave (each row is read
-    once). A form-2 or form-3 batch's reading columns are None here: its digest counts any that
-    are not."""
+    once). The frame has only the columns its form stores (a form-2 or form-3 batch's digest
+    counts any reading column that is not empty)."""
     names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS)
     names += ("superseded_in",)
     rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
@@ -725,9 +725,7 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.D
                             "ON sh.shape = s.shape WHERE s.batch = ? ORDER BY sh.shape", (batch,)).fetchall()
     columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
     facts = {shape: text for shape, _, text in used}
-    n = len(columns["entry"])
-    frame = pd.DataFrame({name: pd.Series(columns[name] if name in columns else [None] * n, dtype=object)
-                          for name in FORM_1_SAMPLE_COLUMNS + ("superseded_in",)})
+    frame = pd.DataFrame({name: np.array(columns[name], dtype=object) for name in names if name not in verdict})
     if form in (1, 2):
         verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in ("verdict_entry",) + verdict})
         verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
