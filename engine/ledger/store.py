@@ -17,6 +17,7 @@ refused and left untouched.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import itertools
 import json
@@ -50,6 +51,7 @@ APPLICATION_ID = 0x53574C47  # "SWLG": marks the file as a sumpwise ledger
 SCHEMA_VERSION = 5
 PAGE_SIZE = 16384  # bytes; a new ledger only (SQLite keeps a file's page size): bulk imports write faster
 CACHE_KIB = 262144  # page cache of a writing run: index pages stay in memory while a large batch is stored
+BULK_ROWS = 50_000  # a batch this large, and at least as large as the ledger, builds its indexes after the rows
 BUSY_SECONDS = 60.0  # how long a run waits for another run's transaction before giving up
 _BEGIN_TRIES = 5
 PAUSE_VARIABLE = "SUMPWISE_LEDGER_TEST_PAUSE"  # tests only: seconds to wait inside the write transaction
@@ -393,6 +395,22 @@ def _nullable(values: np.ndarray) -> list:
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
 
 
+@contextlib.contextmanager
+def _indexes_built_after(conn: sqlite3.Connection, bulk: bool):
+    """With `bulk` (a batch at least as large as what the ledger holds), the indexes on samples
+    are dropped before the rows go in and created again, from their stored SQL, after: sorting
+    once costs less than keeping three indexes in order row by row. All inside the batch's
+    transaction, so a failure or a crash leaves the indexes as they were; the unique index on
+    current sample ids is checked in full when it is created again."""
+    saved = conn.execute("SELECT name, sql FROM sqlite_master WHERE type = 'index' AND tbl_name = 'samples' "
+                         "AND sql IS NOT NULL ORDER BY name").fetchall() if bulk else []
+    for name, _ in saved:
+        conn.execute(f'DROP INDEX "{name}"')
+    yield
+    for _, sql in saved:
+        conn.execute(sql)
+
+
 def _fill_temp(conn: sqlite3.Connection, table: str, values) -> None:
     conn.execute(f"CREATE TEMP TABLE IF NOT EXISTS {table} (value TEXT PRIMARY KEY)")
     conn.execute(f"DELETE FROM {table}")
@@ -634,9 +652,10 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     shape_of = shapes[facts.shape_of[rows]]
     written = [entries, *typed, values, corrects[rows].tolist(), facts.grades[rows].tolist(), levels.tolist(),
                shape_of.tolist(), facts.values[rows].tolist()]  # DIGEST_3_SAMPLE_COLUMNS, as lists (one bind each)
-    conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
-                     "method, lab, content, corrects, grade, level, shape, vals, content_sha256, batch) "
-                     f"VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', {int(number)})", zip(*written))
+    with _indexes_built_after(conn, len(rows) >= max(BULK_ROWS, first - 1)):
+        conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
+                         "method, lab, content, corrects, grade, level, shape, vals, content_sha256, batch) "
+                         f"VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', {int(number)})", zip(*written))
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
     # The digest of the rows just written, as SQLite gives them back (replay reads them back).

@@ -264,3 +264,25 @@ def test_values_the_typed_columns_do_not_hold_as_written_stay_in_the_array(tmp_p
     assert json.loads(held) == ["sample_id", "unit_id", "class", "sampled_on", "oil_changed", "lab"]
     report = replay(db)
     assert (report.checked, report.differences, report.engine_changes) == (3, (), ())
+
+
+def test_a_bulk_batch_builds_the_same_indexes_after_its_rows(tmp_path, ruleset, monkeypatch):
+    # A batch at least as large as the ledger (and BULK_ROWS) drops the indexes on samples and
+    # creates them again after its rows: the schema must come out as incremental recording leaves it.
+    import sumpwise.ledger.store as store
+    plain, bulk = tmp_path / "plain.db", tmp_path / "bulk.db"
+    grade_into_ledger(plain, sumpwise.read_samples(SAMPLES), ruleset)
+    monkeypatch.setattr(store, "BULK_ROWS", 0)
+    grade_into_ledger(bulk, sumpwise.read_samples(SAMPLES), ruleset)
+    schema = "SELECT type, name, sql FROM sqlite_master ORDER BY name"
+    with sqlite3.connect(plain) as a, sqlite3.connect(bulk) as b:
+        assert a.execute(schema).fetchall() == b.execute(schema).fetchall()
+        assert {"samples_unit", "samples_current", "samples_batch"} <= {
+            row[1] for row in b.execute(schema).fetchall() if row[0] == "index"}
+        assert b.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    from sumpwise.ledger.audit import replay
+    assert replay(bulk).differences == ()
+    # The unique index on current ids still refuses a second current row of an id, bulk or not.
+    with sqlite3.connect(bulk) as conn, pytest.raises(sqlite3.IntegrityError):
+        conn.execute("INSERT INTO samples (batch, sample_id, oil_changed, method, content, content_sha256) "
+                     "SELECT batch, sample_id, oil_changed, method, content, '' FROM samples LIMIT 1")
