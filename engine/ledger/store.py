@@ -744,7 +744,7 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.D
                             "ON sh.shape = s.shape WHERE s.batch = ? ORDER BY sh.shape", (batch,)).fetchall()
     columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
     facts = {shape: text for shape, _, text in used}
-    frame = pd.DataFrame({name: np.array(columns[name], dtype=object) for name in names if name not in verdict})
+    frame = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in names if name not in verdict})
     if form in (1, 2):
         verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in ("verdict_entry",) + verdict})
         verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
