@@ -191,5 +191,6 @@ def _sample_options(parser: argparse.ArgumentParser) -> None:
 def _read(args, numeric: tuple):
     if args.db is not None:
         return stored_samples(args.db)
-    columns = load_column_map(args.columns) if args.columns else None
+    numeric = tuple(numeric)  # the rule sets' declared measures: a map may name them, as grade's may
+    columns = load_column_map(args.columns, numeric, numeric) if args.columns else None
     return read_samples(args.samples, None, columns, args.input_format, numeric)

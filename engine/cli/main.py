@@ -41,7 +41,7 @@ from sumpwise.cli import report as report_command
 from sumpwise.cli.options import output_file, output_folder, positive_mm, reject_count, row_count
 
 OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
-CHUNK_ROWS = 1_000_000  # rows `grade` reads, grades and writes at a time (see the README: large files)
+CHUNK_ROWS = 200_000  # rows `grade` reads, grades and writes at a time: about 1 GB at most (README: large files)
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater"
 
@@ -233,7 +233,7 @@ def _check(args, stdin, stdout, stderr) -> int:
 def _rules_and_map(args):
     ruleset = load_ruleset(args.rules)
     extra = tuple(ruleset.measures) + tuple(ruleset.fields)
-    columns = load_column_map(args.columns, extra) if args.columns else None
+    columns = load_column_map(args.columns, extra, ruleset.measures) if args.columns else None
     return ruleset, columns
 
 
@@ -345,6 +345,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 levels = graded.outcome.level
                 found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
                 found_unrated |= bool((levels < 0).any())
+                graded = levels = None  # before the next chunk is graded
             stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades))
             files.append(tally.summary())
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
@@ -425,10 +426,11 @@ def _graded_batches(args, stdin, source, ruleset, columns, stderr):
         chunks = sample_chunks(source, None, columns, args.input_format, ruleset.measures, args.chunk_rows)
     references = parse_references(args.reference)
     said: list = []
-    read = (measure_sample_spectra(batch, ruleset, references, args.path_length) for batch in chunks)
+    read = map(lambda batch: measure_sample_spectra(batch, ruleset, references, args.path_length), chunks)
     for graded in grade_in_chunks(_noting(read, said), ruleset):
         notes, said[:] = tuple(said), []
         yield graded, notes, 0
+        graded = None  # each reference to a graded chunk goes before the next chunk is graded
 
 
 def _noting(batches, said: list):
@@ -438,6 +440,7 @@ def _noting(batches, said: list):
         said.extend(note for note in batch.notes if note not in seen)
         seen.update(batch.notes)
         yield batch
+        batch = None
 
 
 def _write_records(args, graded, out, stderr, header: bool) -> None:

@@ -39,6 +39,14 @@ def scale_numbers(counts) -> np.ndarray:
     return numbers
 
 
+def scale_number_range(low, high, low_open) -> tuple[np.ndarray, np.ndarray]:
+    """The least and greatest scale number of counts in an interval (a censored count per mL,
+    `>2500000` or `<0.5`): the table applied to each end (an open-ended top is ISO4406_TOP + 1)."""
+    low = np.where(np.isfinite(low), low, 0.0)
+    least = np.where(low_open, np.searchsorted(UP_TO, low, side="right"), np.searchsorted(UP_TO, low, side="left"))
+    return least.astype(float), np.searchsorted(UP_TO, high, side="left").astype(float)
+
+
 def read_codes(codes) -> np.ndarray:
     """float [rows, 3]: each code's scale numbers as written (NaN for a size not reported,
     a missing code, or one that cannot be read: read_cleanliness_codes rejects those first)."""

@@ -11,7 +11,7 @@ import pandas as pd
 
 import difflib
 
-from sumpwise.derive.cleanliness import cleanliness_measures
+from sumpwise.derive.cleanliness import cleanliness_measures, scale_number_range
 from sumpwise.derive.viscosity import viscosity_index
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
 from sumpwise.vocabulary.base_stocks import family_of
@@ -187,7 +187,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]
     found = {}
-    for name in INPUT_MEASURES:
+    for name in list(INPUT_MEASURES) + [m for m in extra_measures if m not in INPUT_MEASURES]:  # declared too
         if name + CENSORED_SUFFIX in samples.columns:
             texts = samples[name + CENSORED_SUFFIX].to_numpy(dtype=object)
             found[name] = bounds(name, texts, samples[name + WRITTEN_SUFFIX].to_numpy(dtype=object))
@@ -215,6 +215,20 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
     out["vi"] = viscosity_index(out["kv40"], out["kv100"])
     out.update(cleanliness_measures(fields["iso4406"].to_numpy(dtype=object),
                                     {size: out[f"particles_{size}"] for size in ISO4406_SIZES}))
+    for size in ISO4406_SIZES:  # a censored count where no code was written: the scale numbers it can have
+        count, scale = f"particles_{size}", f"iso4406_{size}"
+        if count in found:
+            b = found[count]
+            rows = b.censored & np.isnan(out[scale])
+            least, most = scale_number_range(b.low, b.high, b.low_open)
+            out[scale] = np.where(rows & (least == most), least, out[scale])  # '<=0.01' is scale 0, known
+            rows &= least < most
+            if rows.any():
+                spelled = np.full(len(rows), None, dtype=object)
+                for k in np.flatnonzero(rows):  # censored cells only: a few in a batch
+                    spelled[k] = f"[{least[k]:.0f}, {most[k]:.0f}] from {count} '{b.written[k]}'"
+                found[scale] = Bounds(rows, least, most, np.zeros(len(rows), dtype=bool),
+                                      np.zeros(len(rows), dtype=bool), spelled)
 
     for name, b in found.items():
         out.update(_bound_columns(name, b))

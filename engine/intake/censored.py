@@ -89,6 +89,8 @@ def _classify(cell: str, decimal: str, factor: float, detection_limit: float | N
         return 0, None
     number = found.group(2).strip()
     if decimal != ".":
+        if "." in number:  # `<1.000` where ',' is the decimal mark: 1 or 1000? not guessed
+            return 0, None
         number = number.replace(decimal, ".")
     try:
         bound = float(number)

@@ -58,8 +58,9 @@ class ColumnMap:
         return self.options.get(name, default)
 
 
-def load_column_map(path, extra_names=()) -> ColumnMap:
-    """Read and check a column map; `extra_names` are measures and fields a rule set declares."""
+def load_column_map(path, extra_names=(), measures=()) -> ColumnMap:
+    """Read and check a column map; `extra_names` are measures and fields a rule set declares,
+    `measures` the declared measures among them (they take a detection limit, as readings do)."""
     doc = load_yaml(Path(path))
     if not isinstance(doc.data, dict):
         raise InvalidFile([doc.problem((), "a column map must be a mapping of engine names to columns", code="M001")])
@@ -87,13 +88,13 @@ def load_column_map(path, extra_names=()) -> ColumnMap:
                                                  + (f" (unknown: {', '.join(map(str, extra))})" if extra else ""),
                                         code="M002"))
             continue
-        _entry(doc, name, spec, found, problems)
+        _entry(doc, name, spec, found, problems, tuple(NUMERIC_NAMES) + tuple(measures))
     if problems:
         raise InvalidFile(problems)
     return found
 
 
-def _entry(doc, name: str, spec: dict, found: ColumnMap, problems: list) -> None:
+def _entry(doc, name: str, spec: dict, found: ColumnMap, problems: list, numeric: tuple) -> None:
     if "column" in spec and "value" in spec:
         problems.append(doc.problem((name,), f"'{name}' gives both a column and a constant value; give one",
                                     code="M002"))
@@ -142,7 +143,7 @@ def _entry(doc, name: str, spec: dict, found: ColumnMap, problems: list) -> None
             found.units[name] = spec["unit"]
     if "detection_limit" in spec:
         limit = spec["detection_limit"]
-        if name not in NUMERIC_NAMES or isinstance(limit, bool) or not isinstance(limit, (int, float)) \
+        if name not in numeric or isinstance(limit, bool) or not isinstance(limit, (int, float)) \
                 or not limit > 0 or limit == float("inf"):
             problems.append(doc.problem((name, "detection_limit"), "a detection limit is a finite number above 0, "
                                                                    "for a measure", code="M006"))

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import difflib
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -19,7 +19,8 @@ import pandas as pd
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
-from sumpwise.intake.readers import RawTable, check_header, decode, nested_cells, read_csv, read_jsonl, read_xlsx
+from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, nested_cells,
+                                     read_csv, read_jsonl, read_xlsx)
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
@@ -93,12 +94,27 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
         else:
             text = decode(data, columns.option("encoding"))
             utf8 = columns.option("encoding", "utf-8").replace("_", "-").lower() in ("utf-8", "utf8")
-            raw = (read_jsonl(text) if fmt == "jsonl" else
-                   read_csv(text, lab_numeric, columns.option("delimiter"), columns.option("decimal"),
-                            data if utf8 else None))
+            if fmt == "jsonl":
+                raw = read_jsonl(text, lab_numeric)
+            else:
+                decimal = columns.option("decimal") or _detected_decimal(text, columns.option("delimiter"))
+                raw = read_csv(text, lab_numeric, columns.option("delimiter"), decimal, data if utf8 else None)
+                if columns.option("decimal") is None and decimal != ".":
+                    raw.notes.append(f"detected the decimal mark {decimal!r} from the data")
+                    # every cell is read with it, the ones the CSV parser left as text (`<0,05`) too
+                    columns = replace(columns, options={**columns.options, "decimal": decimal})
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
+
+
+def _detected_decimal(text: str, delimiter: str | None) -> str:
+    """The decimal mark the data show (readers.detect_decimal), found once here so that the cells
+    the CSV parser leaves as text are read with the same mark as the numbers it parses."""
+    head = text[: 1 << 16].splitlines()
+    if not head:
+        return "."
+    return detect_decimal(head, delimiter or detect_delimiter(head[0]))
 
 
 def _row_numbers(raw: pd.DataFrame, skipped: list) -> np.ndarray:
@@ -138,8 +154,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     renames = {}
     for measure, column in columns.columns.items():
         if column not in raw.columns:
+            read = f"; {'; '.join(notes)}" if notes else ""  # e.g. which sheet of a workbook was read
             raise InputError(f"{name}: the column map names column '{column}' for {measure}, but the file has "
-                             f"no such column (it has: {', '.join(raw.columns)})")
+                             f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
     mapped = set(renames)
     clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]
@@ -162,8 +179,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         notes.append(unused_columns_note(unused, known - set(raw.columns)))
     missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
     if missing:
+        detected = [n for n in notes if not n.startswith("lab columns not used")]  # which sheet was read, ...
+        read = f"; {'; '.join(detected)}" if detected else ""
         raise InputError(f"{name}: missing required column(s) {', '.join(missing)}; the file has: "
-                         f"{', '.join(raw.columns) or 'no columns'}")
+                         f"{', '.join(raw.columns) or 'no columns'}{read}")
 
     rejects: list[Reject] = [Reject(row, None, "(row)", why, code) for row, why, code in skipped]
     numeric_names = [c for c in raw.columns if c in NUMERIC_COLUMNS or c in numeric]
@@ -221,8 +240,14 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
                                   None if limit is None else limit * factor)
             if cells.bad.any():
-                reject(cells.bad, column, _found("expected a number or a censored reading such as <0.05, found ",
-                                                 text, cells.bad, quoted=True), "D004")
+                reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
+                                 quoted=True)
+                if decimal != ".":
+                    pointed = cells.bad & (np.strings.find(text.fillna("").to_numpy(dtype=str), ".") >= 0)
+                    reasons[pointed] = _found("", text, pointed, quoted=True)[pointed] + (
+                        f": the decimal mark is {decimal!r}, so a '.' could be a thousands separator or a slip; "
+                        f"the value is not guessed")
+                reject(cells.bad, column, reasons, "D004")
             if (cells.censored != None).any():  # noqa: E711 (elementwise)
                 censored = cells.censored
         domain = domain_of(column)
@@ -239,6 +264,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if censored is not None:
             raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)
             written = np.where(censored != None, text.to_numpy(dtype=object), None)  # noqa: E711
+            if factor != 1.0:  # a bound in the lab's unit beside the engine's unit would misread: spell it converted
+                at = np.flatnonzero(censored != None)  # noqa: E711 (the censored cells only: a few)
+                bound = np.array([str(written[k])[:1] in "<>\u2264\u2265" for k in at], dtype=bool)
+                written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
 
     if "sampled_on" in raw.columns:
@@ -333,6 +362,11 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     text = np.strings.strip(np.where(present & ~is_bool, values, "").astype(str))
     spelled = np.strings.replace(text, decimal, ".") if decimal != "." else text
     looks = np.isin(np.strings.slice(spelled, 0, 1), _NUMBER_LEADS)
+    if decimal != ".":  # a '.' written where ',' is the decimal mark (`1.500`) is not read: 1.5 or 1500?
+        kind = pd.api.types.infer_dtype(values, skipna=True)
+        written = present if kind == "string" else np.fromiter((isinstance(v, str) for v in values), dtype=bool,
+                                                               count=len(values))
+        looks &= ~(written & (np.strings.find(text, ".") >= 0))
     parsed = np.full(len(values), np.nan)
     try:
         parsed[looks] = np.array(spelled[looks].tolist(), dtype=float)  # Python's float(), twice numpy's speed

@@ -15,6 +15,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import re
 from collections import Counter
 from dataclasses import dataclass
 from datetime import date
@@ -27,6 +28,7 @@ from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
 from sumpwise.render.narrative import rounded, step_phrase
+from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
                                       render_plot)
 
@@ -36,7 +38,7 @@ OIL_CHANGED_CAVEAT = "oil-changed"  # the caveat the engine raises on the first 
 _REQUIRED = {"sample_id": str, "grade": str, "reasons": list, "caveats": list, "ruleset": dict, "engine": str}
 # Keys a record may lack (older formats, the compact form) but that must have this type when present.
 _OPTIONAL = {"notice": str, "values": dict, "derived": dict, "oil_changed": bool, "origin": dict, "iso4406": str,
-             "forecasts": list}
+             "forecasts": list, "comment": str}
 
 
 def _json_objects(lines, name: str, what: str):
@@ -190,6 +192,23 @@ def recorded_value(record: dict, measure: str):
             if clause.get("measure") == measure and clause.get("test") != "missing":
                 return _number_or_none(clause.get("value"))
     return None
+
+
+_BOUND = re.compile(r"^(<=|>=|<|>|\u2264|\u2265)\s*(\d+(?:\.\d*)?(?:[eE][-+]?\d+)?)$")
+
+
+def recorded_bound(record: dict, measure: str):
+    """(sign, bound) of a lab reading the record carries as written as a bound (`>5000` in `values`),
+    else None. Only the record's own text is read; a comma in it is the lab's decimal mark (intake
+    refuses a point where the mark is a comma, so the two never meet in one reading)."""
+    text = (record.get("values") or {}).get(measure)
+    if not isinstance(text, str):
+        return None
+    found = _BOUND.match(text.strip() if "." in text else text.strip().replace(",", "."))
+    if not found:
+        return None
+    sign = {"\u2264": "<=", "\u2265": ">="}.get(found.group(1), found.group(1))
+    return sign, float(found.group(2))
 
 
 def _number_or_none(value):
@@ -387,13 +406,18 @@ def _point_level(measure: str, record: dict, ladder: Ladder) -> int | None:
     return max(fired) if fired else 0
 
 
-def _tooltip(record: dict, measure: str, value: float, unit: str) -> str:
+def _tooltip(record: dict, measure: str, value: float | None, unit: str) -> str:
+    """The point's tooltip; `value` None for a reading written as a bound, quoted as the record has it."""
     hours = (record.get("values") or {}).get("oil_hours")
     parts = [record["sample_id"], record.get("sampled_on") or ""]
     if isinstance(hours, (int, float)) and not isinstance(hours, bool):
         parts.append(f"oil hours {hours:g}")
     code = f" (code as written {record['iso4406']})" if measure.startswith("iso4406_") and record.get("iso4406") else ""
-    return " · ".join(p for p in parts if p) + f": {measure} {value:.4g}{(' ' + unit) if unit else ''}{code}"
+    if value is None:
+        shown = f"{str(record['values'][measure]).strip()}{(' ' + unit) if unit else ''} as written: a bound, not a value"
+    else:
+        shown = f"{value:.4g}{(' ' + unit) if unit else ''}"
+    return " · ".join(p for p in parts if p) + f": {measure} {shown}{code}"
 
 
 def recorded_forecasts(records) -> list[dict]:
@@ -452,6 +476,10 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
                         for k in range(first, end) if ys[k] is not None and xs[k] is not None)
             if run:
                 runs.append(run)
+        written = tuple(Point(xs[k], b[1], _point_level(watched.measure, samples[k], ladder),
+                              _tooltip(samples[k], watched.measure, None, unit), b[0])
+                        for k, b in enumerate(recorded_bound(s, watched.measure) for s in samples)
+                        if b is not None and xs[k] is not None)
         notes = []
         if undated and any(y is not None for y in ys):
             notes.append(f"{undated} sample(s) without a date not drawn")
@@ -459,7 +487,7 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
             notes.append("these records carry this value only where a rule on it fired")
         note = "; ".join(notes)
         plots.append(Plot(watched.measure, unit, tuple(runs), watched.limits, marks, note,
-                          projections(view, watched.measure, forecasts, ladder, dates)))
+                          projections(view, watched.measure, forecasts, ladder, dates), written))
     return plots
 
 
@@ -515,6 +543,7 @@ svg.plot { width: 100%; height: auto; display: block; font-family: "DejaVu Sans"
 .capped { font-weight: 400; color: #55534c; }
 ul.tight { margin: 2px 0 4px; padding-left: 18px; }
 .muted { color: #66645c; }
+.warn { color: #6b3a00; }
 @media print {
   body { font-size: 9pt; }
   .wrap { max-width: none; padding: 0; }
@@ -598,6 +627,11 @@ def _summary(records, rejects, ladder: Ladder, rejects_given: bool) -> str:
     totals = "".join(f'<td class="n"><b>{by_grade.get(g, 0)}</b></td>' for g in columns)
     parts.append(f"<tr><td><b>all classes</b></td>{totals}<td class='n'><b>{len(records)}</b></td></tr>")
     parts.append("</tbody></table>")
+    short = Counter(c.get("caveat") for r in records for c in r["caveats"] if c.get("caveat") in FIRST_CAVEATS)
+    if short:  # no silent pass: samples that may be graded on less than they should, counted for the batch
+        parts.append("<p class='warn'><b>Graded on less than their rules:</b> " + escape("; ".join(
+            f"{short[c]} sample(s) with caveat {c}" for c in FIRST_CAVEATS if short[c])) + " (each is listed on "
+            "its unit's card)</p>")
     if not rejects_given:
         parts.append('<p class="muted">No rejects file was given (<code>--rejects</code>), so rows the grader '
                      'rejected are not counted here.</p>')
@@ -686,6 +720,8 @@ def _latest(record: dict, ladder: Ladder) -> str:
     origin = record.get("origin") or {}
     if origin.get("file"):
         facts.append(f"from {origin['file']}" + (f" row {origin['row']}" if origin.get("row") is not None else ""))
+    if record.get("comment"):  # the lab's own remark, as written
+        facts.append(f"lab comment: {record['comment']}")
     parts = [f'<article class="latest" data-sample="{escape(record["sample_id"])}" '
              f'style="border-left-color:{grade_look(level).colour}">',
              f'<h4>Latest sample {escape(record["sample_id"])}: {_grade_cell(record["grade"], level)} '
@@ -704,7 +740,7 @@ def _latest(record: dict, ladder: Ladder) -> str:
     gaps = record.get("not_evaluated") or []
     if gaps:
         parts.append("<div class='muted'>Not evaluated (a missing value is never a pass): " + escape("; ".join(
-            f"{g.get('rule')} lacks {', '.join(g.get('missing') or [])}" for g in gaps)) + "</div>")
+            f"{g.get('rule')} lacks {', '.join(g.get('missing') or [])}" + _undecided(g) for g in gaps)) + "</div>")
     steps = next_steps(record)
     if steps:
         parts.append("<h4>What to do</h4><ul class='todo'>" + "".join(
@@ -713,6 +749,13 @@ def _latest(record: dict, ladder: Ladder) -> str:
     elif (level or 0) > 0:
         parts.append("<p class='muted'>The rule set gives no next step for these findings.</p>")
     return "".join(parts) + "</article>"
+
+
+def _undecided(gap: dict) -> str:
+    """Readings written as bounds that did not decide a rule, as the lab wrote them (as explain says)."""
+    undecided = gap.get("undecided") if isinstance(gap.get("undecided"), dict) else {}
+    told = "; ".join(f"{name} written '{text}' does not decide it" for name, text in undecided.items())
+    return f" ({told})" if told else ""
 
 
 def _finding_text(reason: dict) -> str:
@@ -726,10 +769,11 @@ def _finding_text(reason: dict) -> str:
 
 
 def _earlier(samples, ladder: Ladder) -> str:
-    """Earlier flagged samples of a unit, newest first, one compact row each."""
+    """Earlier flagged samples of a unit, newest first, one compact row each; an earlier sample that
+    may be graded on less than it should (FIRST_CAVEATS: an unknown lubricant, ...) is listed too."""
     rows = []
     for record in reversed(samples):
-        if (record.get("level") or 0) <= 0:
+        if (record.get("level") or 0) <= 0 and not any(c.get("caveat") in FIRST_CAVEATS for c in record["caveats"]):
             continue
         hours = (record.get("values") or {}).get("oil_hours")
         rows.append(f"<tr class='earlier' data-sample='{escape(record['sample_id'])}'>"
@@ -741,7 +785,7 @@ def _earlier(samples, ladder: Ladder) -> str:
                     f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td></tr>")
     if not rows:
         return ""
-    return ("<h4>Earlier flagged samples</h4><table class='grid earlier'><thead><tr><th>sampled</th><th>sample</th>"
+    return ("<h4>Earlier flagged samples, and any graded on less than their rules</h4><table class='grid earlier'><thead><tr><th>sampled</th><th>sample</th>"
             "<th class='n'>oil h</th><th>grade</th><th>findings (rule, grade: value)</th><th>caveats</th></tr>"
             "</thead><tbody>" + "".join(rows) + "</tbody></table>")
 

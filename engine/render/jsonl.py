@@ -155,12 +155,18 @@ class _Block:
         self.literals, self.rows = literals, rows
         self.raw: dict = {}  # per-row texts the records' own fields take (grade, level, ...)
         self.groups: list[_Group] = []
+        self.whole: dict = {}  # (kind, name) -> literals of every row of the block, once converted
 
     def literal(self, kind: str, name: str, local: np.ndarray) -> np.ndarray:
         """Literals of these rows only: many columns are read by a few rows' reasons."""
         if kind == "raw":
             return self.raw[name][local]
-        return self.literals.get(kind, name, self.rows[local])
+        if (kind, name) in self.whole:  # reasons and clauses repeat the record's own values
+            return self.whole[kind, name][local]
+        literals = self.literals.get(kind, name, self.rows[local])
+        if len(local) == len(self.rows):
+            self.whole[kind, name] = literals
+        return literals
 
     def add(self, slot: int, local: np.ndarray, template: tuple[list[str], list], listed: bool = False) -> None:
         self.groups.append(_Group(slot, local, template, listed))

@@ -61,6 +61,18 @@ def _clause_line(clause) -> str:
     return f"{name} = {shown}, test {_limit_phrase(clause.test, clause.limit, unit)}: {held}"
 
 
+def _bound_note(reason) -> str:
+    """A ladder finding on a reading the lab wrote as a bound beyond the limit (`>1500` above 1000):
+    a higher step may be crossed too, undecided, so the grade is the least the rule gives."""
+    value = reason.value.strip() if isinstance(reason.value, str) else ""
+    way = {"above": (">", "\u2265"), "below": ("<", "\u2264")}.get(reason.test)
+    if not way or not value.startswith(way):
+        return ""
+    side = "above" if reason.test == "above" else "below"
+    return (f"The lab wrote a bound ({value}): the reading lies somewhere {side} it, so {reason.grade} is the least "
+            f"this rule gives the sample.")
+
+
 def wrapper(width: int = 88):
     """Wraps a paragraph to `width`; a bullet ("- ") starts the first line only, continuation
     lines line up under its text."""
@@ -128,6 +140,9 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
                                   + f", {_limit_phrase(reason.test, reason.limit, reason.unit)} "
                                     f"(the {reason.grade if not reason.capped_from else reason.capped_from} limit).",
                                   "     "))
+            bound = _bound_note(reason)
+            if bound:
+                lines.extend(wrap(bound, "     "))
             for clause in reason.clauses:
                 lines.extend(wrap(_clause_line(clause), "     - "))
             lines.extend(wrap(f"Source: {reason.source}", "     "))

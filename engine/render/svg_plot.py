@@ -137,6 +137,7 @@ class Point:
     y: float
     level: int | None
     label: str  # shown as the point's tooltip: sample id, date, value
+    bound: str = ""  # "<" or ">" (also "<=", ">="): a reading the lab wrote as a bound, drawn at it with an arrow
 
 
 @dataclass(frozen=True)
@@ -184,6 +185,7 @@ class Plot:
     marks: tuple = ()
     note: str = ""
     projections: tuple = ()  # Projection: forecasts of when a limit will be reached
+    bounds: tuple = ()  # Points of readings written as bounds (`>5000`): drawn apart, never joined by a line
 
 
 WIDTH, HEIGHT = 300, 190
@@ -196,7 +198,7 @@ def _format(value: float) -> str:
 
 def render_plot(plot: Plot) -> str:
     """The plot as one <svg> element; empty runs give a framed 'no values' panel."""
-    points = [p for run in plot.runs for p in run]
+    points = [p for run in plot.runs for p in run] + list(plot.bounds)
     label = escape(f"{plot.title} ({plot.unit})" if plot.unit else plot.title)
     head = (f'<svg class="plot" viewBox="0 0 {WIDTH} {HEIGHT}" role="img" aria-label="{label}" '
             f'xmlns="http://www.w3.org/2000/svg" font-size="9">'
@@ -273,6 +275,12 @@ def render_plot(plot: Plot) -> str:
             path = " ".join(f"{sx(p.x):.1f},{sy(p.y):.1f}" for p in run)
             parts.append(f'<polyline points="{path}" fill="none" stroke="#6d6a62" stroke-width="1"/>')
     for p in points:
-        parts.append(f'<g class="pt"><title>{escape(p.label)}</title>{marker(p.level, sx(p.x), sy(p.y), 3.2)}</g>')
+        arrow = ""
+        if p.bound:  # the way the reading lies from its bound: up for above, down for below
+            x, y, way = sx(p.x), sy(p.y), -1 if p.bound.startswith(">") else 1
+            arrow = (f'<path class="bound" d="M{x:.1f},{y + way * 4:.1f} v{way * 9} m-3,{-way * 3} l3,{way * 3} '
+                     f'l3,{-way * 3}" fill="none" stroke="#444" stroke-width="1"/>')
+        parts.append(f'<g class="pt"><title>{escape(p.label)}</title>{arrow}{marker(p.level, sx(p.x), sy(p.y), 3.2)}'
+                     f'</g>')
     parts.append("</svg>")
     return "".join(parts)

@@ -110,7 +110,7 @@ def footer_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
     by_grade = Counter(batch.grades())
     ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(batch.ruleset.grades) + [UNRATED])
     rs = batch.ruleset
-    lines = ["-" * width]
+    lines = ["-" * width] + next_step_lines(batch, width)
     lines.extend(_wrap(f"{terminal_text(batch.source)}: read {counts['read']}: graded {counts['graded']}, unrated {counts['unrated']}, "
                        f"rejected {counts['rejected']}  ({ladder})", width))
     lines.extend(_wrap(f"rule set {rs.id} version {rs.version}, sha256 {rs.sha256[:16]}..., {engine_name()}",
@@ -120,6 +120,32 @@ def footer_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
     for caution in CAUTIONS:
         lines.extend(_wrap("! " + caution, width))
     return lines
+
+
+SAMPLES_PER_STEP = 12  # sample ids named beside a next step; the rest are counted
+
+
+def next_step_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
+    """Each next step the findings ask, once and whole (the why column cuts it), with its samples."""
+    if len(batch) == 0:
+        return []
+    firsts, group, _ = record_shape_groups(batch, np.arange(len(batch)))
+    asked: dict[str, list] = {}
+    for shape, first in enumerate(firsts):  # one record per shape, not per row
+        result = batch.result(int(first))
+        steps = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
+        for step in dict.fromkeys(step_phrase(s.task, s.within_days) for s in steps):
+            asked.setdefault(step, []).append(shape)
+    if not asked:
+        return []
+    ids = _text_column(batch.measured, "sample_id").to_numpy(dtype=object)
+    lines = ["What to do (the rule set's next steps, each with the samples that ask it):"]
+    for step, shapes in asked.items():
+        named = ids[np.isin(group, shapes)]
+        more = f" and {len(named) - SAMPLES_PER_STEP} more" if len(named) > SAMPLES_PER_STEP else ""
+        lines.extend(textwrap.wrap(f"- {terminal_text(step)}: {', '.join(named[:SAMPLES_PER_STEP])}{more}", width,
+                                   subsequent_indent="  ", break_on_hyphens=False))
+    return lines + ["-" * width]
 
 
 def _wrap(text: str, width: int) -> list[str]:

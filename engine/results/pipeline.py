@@ -102,6 +102,7 @@ def grade_in_chunks(batches, ruleset: RuleSet):
         if first and following is None:  # the whole file in one chunk: its forecasts are whole
             graded = replace(graded, forecasts=forecast(graded.measured, ruleset), forecasts_made=True)
         yield graded
+        graded = None  # let the graded chunk go before the next one is graded
         batch, first = following, False
 
 

@@ -2,8 +2,8 @@
 
 The scale-number table is checked row by row against ISO 4406:1999 Table 1 ("Allocation of
 scale numbers", particles per mL, more than / up to and including), as reproduced in a filter
-maker's published appendix (Schroeder Industries, "Contamination Classification in accordance
-with ISO 4406:1999", scale numbers 0 to 28); the worked example there, 14/12/>=7, is checked too.
+maker's published appendix ("Contamination Classification in accordance with ISO 4406:1999",
+scale numbers 0 to 28); the worked example there, 14/12/>=7, is checked too.
 """
 
 from __future__ import annotations
@@ -92,3 +92,42 @@ def test_an_unreadable_code_rejects_its_row_with_field_and_code():
     batch = read_cleanliness_codes(SampleBatch(frame, (), 3, "t.csv"))
     assert batch.frame["sample_id"].tolist() == ["A", "C"]
     assert [(r.row, r.sample_id, r.field, r.code) for r in batch.rejects] == [(2, "B", "iso4406", "D012")]
+
+
+def test_a_censored_particle_count_gives_the_scale_numbers_it_can_be():
+    # ISO 4406:1999 Table 1 (above): '>2500000' per mL is beyond scale 28, the standard's >28 (29 here);
+    # '<0.5' per mL lies in scale 0 to 6 (6 holds more than 0.32 up to 0.64); '<=0.01' is scale 0
+    # exactly (0 holds up to and including 0.01), so it is known. A code the lab wrote wins.
+    import io
+    from sumpwise.derive.row_measures import derive_measures
+    from sumpwise.intake.samples import read_samples
+    text = ("sample_id,class,particles_4um,particles_14um,iso4406\n"
+            "P1,hydraulic,>2500000,<0.5,\nP2,hydraulic,1000,<=0.01,\nP3,hydraulic,>2500000,<0.5,18/16/13\n")
+    m = derive_measures(read_samples(io.StringIO(text)).frame, {})
+    assert m["iso4406_4um"].iloc[0] == 29 and m["iso4406_4um"].iloc[1] == 17  # 1000 is in 640..1300
+    assert np.isnan(m["iso4406_14um"].iloc[0])
+    assert (m["iso4406_14um:low"].iloc[0], m["iso4406_14um:high"].iloc[0]) == (0.0, 6.0)
+    assert m["iso4406_14um:written"].iloc[0] == "[0, 6] from particles_14um '<0.5'"
+    assert m["iso4406_14um"].iloc[1] == 0
+    assert list(m[["iso4406_4um", "iso4406_14um"]].iloc[2]) == [18, 13]
+    assert np.isnan(m["iso4406_14um:low"].iloc[2])
+
+
+def test_censored_counts_grade_against_the_site_target_cleanliness():
+    # The Brackwater site's hydraulic target (scenarios/brackwater/site.yaml, invented): watch above
+    # 17/15/12, alert above 19/17/14. '<0.5' per mL at 14 um(c) is scale 0 to 6: known under 12, quiet;
+    # '<100' is scale 0 to 14: undecided against 12, not evaluated (never a pass); '>2500000' at 4 um(c)
+    # is above scale 28: alert.
+    import io
+    from conftest import ROOT
+    from sumpwise import grade, load_ruleset
+    from sumpwise.intake.samples import read_samples
+    site = load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml")
+    text = ("sample_id,class,lubricant,particles_4um,particles_6um,particles_14um\n"
+            "C1,hydraulic,HYD-46-M,100,20,<0.5\nC2,hydraulic,HYD-46-M,100,20,<100\n"
+            "C3,hydraulic,HYD-46-M,>2500000,20,5\n")
+    got = {r.sample_id: r for r in grade(read_samples(io.StringIO(text)), site).results()}
+    gaps = {r: {n.rule for n in got[r].not_evaluated} for r in got}
+    assert "cleanliness-14um" not in gaps["C1"] and not [x for x in got["C1"].reasons if x.rule.startswith("clean")]
+    assert "cleanliness-14um" in gaps["C2"]
+    assert [(x.rule, x.grade) for x in got["C3"].reasons if x.rule.startswith("clean")] == [("cleanliness-4um", "alert")]

@@ -107,3 +107,19 @@ def test_a_censored_reading_on_a_differential_row_is_a_differential_reading(site
     m = graded.measured
     assert m["oxidation_differential:high"].tolist()[0] == 3.0 and np.isnan(m["oxidation_differential:high"].iat[1])
     assert np.isnan(m["oxidation:high"].iat[0]) and m["oxidation:high"].iat[1] == 3.0
+
+
+def test_a_censored_declared_measure_is_an_interval_not_missing(site):
+    # The site declares iron (ppm) and limits it on the gear drives: watch above 100, alert
+    # above 200. A lab writes '>100' when iron is over its calibrated range: known above the
+    # watch limit, undecided against alert, so watch is the lower bound it is known to reach
+    # (the README's ladder rule for censored readings); '<20' is known under every step.
+    text = ("sample_id,class,lubricant,iron\n"
+            "F1,gearbox,GEAR-320-PAO,>100\nF2,gearbox,GEAR-320-PAO,<20\nF3,gearbox,GEAR-320-PAO,<150\n")
+    graded = grade(read_samples(io.StringIO(text), numeric=("iron",)), site)
+    j = [(s.class_name, s.rule.id) for s in graded.outcome.slots].index(("gearbox", "iron"))
+    assert graded.outcome.raw[:, j].tolist() == [1, 0, NOT_EVALUATED]
+    records = list(graded.results())
+    assert dict(records[0].values)["iron"] == ">100"
+    assert [(r.rule, r.grade) for r in records[0].reasons if r.rule == "iron"] == [("iron", "watch")]
+    assert [dict(n.undecided) for n in records[2].not_evaluated if n.rule == "iron"] == [{"iron": "<150"}]

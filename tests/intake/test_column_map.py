@@ -72,3 +72,47 @@ def test_two_ftir_methods_for_one_sample_are_refused(tmp_path):
                                              "nitration: {column: Nit, method: direct}\n"))
     with pytest.raises(InputError, match="declares FTIR methods direct and subtraction"):
         read_samples(io.StringIO("Id,Ox,Nit\nA,12,3\n"), columns=columns)
+
+
+def test_a_declared_measure_takes_a_detection_limit_and_a_declared_field_does_not(tmp_path):
+    # Issue 12: "a map can give a detection limit". Iron is a measure once a rule set declares it
+    # (the Brackwater site declares iron, ppm); a lab writes ND below its ICP detection limit.
+    path = _map(tmp_path, 'iron: {column: Fe, detection_limit: 1}\n')
+    found = load_column_map(path, ("iron", "site_area"), measures=("iron",))
+    assert found.detection_limits == {"iron": 1.0}
+    batch = read_samples(io.StringIO("sample_id,class,Fe\nF1,gearbox,ND\n"), columns=found, numeric=("iron",))
+    assert batch.frame["iron:censored"].tolist() == ["<1"]
+    with pytest.raises(InvalidFile) as caught:
+        load_column_map(_map(tmp_path, 'site_area: {column: Area, detection_limit: 1}\n'), ("iron", "site_area"),
+                        measures=("iron",))
+    assert [p.code for p in caught.value.problems] == ["M006"]
+
+
+def test_grade_reads_a_detection_limit_for_a_declared_measure():
+    from conftest import ROOT, run_cli
+    import tempfile, pathlib
+    with tempfile.TemporaryDirectory() as folder:
+        folder = pathlib.Path(folder)
+        (folder / "map.yaml").write_text("sample_id: Nr\nclass: {value: gearbox}\nlubricant: {value: GEAR-320-PAO}\n"
+                                         "iron: {column: Fe, detection_limit: 1}\n", encoding="utf-8")
+        (folder / "fe.csv").write_text("Nr,Fe\nF1,ND\nF2,150\n", encoding="utf-8")
+        run = run_cli("grade", folder / "fe.csv", "--columns", folder / "map.yaml", "--rules",
+                      ROOT / "scenarios" / "brackwater" / "site.yaml", "--format", "csv")
+    assert run.code == 0, run.err
+    rows = {line.split(",")[0]: line for line in run.out.splitlines()[1:]}
+    # the site's gear-drive iron ladder: watch above 100 ppm; ND (below 1 ppm) is known under it
+    assert "iron=watch" in rows["F2"] and "iron(" not in rows["F1"] and "iron=" not in rows["F1"]
+
+
+@pytest.mark.parametrize("command", ["compare", "propose-limits"])
+def test_compare_and_propose_limits_read_a_map_that_names_a_declared_measure(tmp_path, command):
+    from conftest import ROOT, run_cli
+    site = ROOT / "scenarios" / "brackwater" / "site.yaml"
+    (tmp_path / "map.yaml").write_text("sample_id: Nr\nclass: {value: gearbox}\nlubricant: {value: GEAR-320-PAO}\n"
+                                       "iron: {column: Fe, detection_limit: 1}\n", encoding="utf-8")
+    (tmp_path / "fe.csv").write_text("Nr,Fe\nF1,ND\nF2,150\n", encoding="utf-8")
+    args = ([site, site] if command == "compare" else ["--class", "gearbox", "--measure", "iron", "--rules", site])
+    run = run_cli(command, *args, "--samples", tmp_path / "fe.csv", "--columns", tmp_path / "map.yaml")
+    assert "M004" not in run.err
+    # compare: nothing moves (exit 0); propose-limits: two results are too few, refused (exit 2) with the count
+    assert (run.code, command) in ((0, "compare"), (2, "propose-limits")), run.err

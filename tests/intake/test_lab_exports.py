@@ -145,3 +145,90 @@ def test_censored_readings_and_comments_go_through_the_ledger(tmp_path):
     assert told.code == 0
     assert "kv40 >50" in told.out and "Lab comment: oil changed last week" in told.out
     assert "oil_hours written '>20000' does" in told.out
+
+
+def test_a_censored_reading_in_a_converted_unit_is_shown_in_the_engine_unit(site, tmp_path):
+    # Water declared in % (1 % = 10 000 ppm, the README's unit table): '>0.5' % is above 5000 ppm.
+    # The record's values and the reason carry ppm beside the number, so the reading must be
+    # spelt in ppm (">5000"), never ">0.5" beside "ppm": that would read as half a ppm.
+    cmap = tmp_path / "map.yaml"
+    cmap.write_text('water: {column: "Water %", unit: "%"}\n', encoding="utf-8")
+    text = "sample_id,class,lubricant,Water %\nP1,gearbox,GEAR-320-PAO,>0.5\nP2,gearbox,GEAR-320-PAO,<0.01\n" \
+           "P3,gearbox,GEAR-320-PAO,ND\n"
+    got = _records(grade(read_samples(io.StringIO(text), columns=load_column_map(cmap)), site))
+    # gearbox water ladder: watch above 300, alert above 1000, urgent above 2000 ppm
+    assert [(r.rule, r.value, r.unit, r.grade) for r in got["P1"].reasons] == [("water", ">5000", "ppm", "urgent")]
+    assert dict(got["P1"].values)["water"] == ">5000"
+    # '<0.01' % is below 100 ppm: known under the watch step, so the rule is evaluated and quiet
+    assert "water" not in {n.rule for n in got["P2"].not_evaluated}
+    assert got["P2"].grade == "normal" and dict(got["P2"].values)["water"] == "<100"
+    assert dict(got["P3"].values)["water"] is None  # ND without a detection limit: missing
+
+
+def test_a_detected_decimal_comma_reads_every_cell_of_the_column(site):
+    # Detected, not declared: '46,1' beside a censored '<50' (which keeps the column as text) must
+    # read as 46.1, and '<0,05' as below 0.05, exactly as with `file: {decimal: ","}`.
+    text = ("sample_id;class;lubricant;kv40;an;water\n"
+            "D1;hydraulic;HYD-46-M;46,1;<0,05;<50\nD2;hydraulic;HYD-46-M;>50;0,35;120\n")
+    batch = read_samples(io.StringIO(text))
+    assert batch.rejects == ()
+    assert batch.notes == ("detected the delimiter ';' from the header", "detected the decimal mark ',' from the data")
+    assert batch.frame["kv40"].iat[0] == 46.1 and batch.frame["an"].iat[1] == 0.35
+    assert batch.frame["an:censored"].iat[0] == "<0.05"
+
+
+@pytest.mark.parametrize("declared", [True, False])
+def test_a_point_in_a_decimal_comma_file_is_refused_not_guessed(site, tmp_path, declared):
+    # Where ',' is the decimal mark, '1.500' is a thousands separator (1500 ppm) or a slip for 1,5:
+    # either reading could be a wrong grade (1.5 ppm water passes the hydraulic watch step of
+    # 200 ppm, 1500 crosses urgent at 1000), so the row is rejected with the field, never guessed.
+    text = ("sample_id;class;lubricant;kv40;water\n"
+            "D1;hydraulic;HYD-46-M;46,1;1.500\nD2;hydraulic;HYD-46-M;46,3;<1.000\nD3;hydraulic;HYD-46-M;46,2;90\n")
+    columns = None
+    if declared:
+        (tmp_path / "map.yaml").write_text('file: {delimiter: ";", decimal: ","}\n', encoding="utf-8")
+        columns = load_column_map(tmp_path / "map.yaml")
+    graded = grade(read_samples(io.StringIO(text), columns=columns), site)
+    assert [(r.row, r.field, r.code) for r in graded.rejects] == [(1, "water", "D004"), (2, "water", "D004")]
+    assert "decimal mark is ','" in graded.rejects[0].reason
+    assert graded.counts() == {"read": 3, "graded": 1, "unrated": 0, "rejected": 2}
+
+
+def test_the_readme_column_map_reads_the_export_it_names(site, tmp_path):
+    # The README's example map, copied out as written, on the file it says it is for: every lab
+    # column but the lab's own reference is read, and every row is graded or rejected.
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    start = readme.index("**A column map for a real export.**")
+    block = readme[readme.index("```yaml", start) + len("```yaml\n"):]
+    (tmp_path / "map.yaml").write_text(block[:block.index("```")], encoding="utf-8")
+    batch = read_samples(EXPORT, columns=load_column_map(tmp_path / "map.yaml"))
+    assert batch.notes == ("lab columns not used: Lab ref",)
+    graded = grade(batch, site)
+    assert graded.counts() == {"read": 6, "graded": 5, "unrated": 0, "rejected": 1}
+
+
+def test_a_map_column_missing_from_the_first_sheet_names_the_sheets(tmp_path):
+    # A lab's workbook often opens on a cover sheet; the results are on another. The error must
+    # say which sheet was read and how to choose another, not only the cover's one "column".
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    book.active.title = "Cover"
+    book.active["A1"] = "Results for Brackwater Point"
+    results = book.create_sheet("Results")
+    results.append(["Sample", "Component"])
+    results.append(["XL-1", "gearbox"])
+    book.save(tmp_path / "export.xlsx")
+    (tmp_path / "map.yaml").write_text("sample_id: Sample\nclass: Component\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"no such column.*read sheet 'Cover' of \['Cover', 'Results'\]"):
+        read_samples(tmp_path / "export.xlsx", columns=load_column_map(tmp_path / "map.yaml"))
+
+
+def test_a_workbook_without_a_map_whose_first_sheet_is_a_cover_names_the_sheets(tmp_path):
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    book.active.title = "Cover"
+    book.active["A1"] = "Results for Brackwater Point"
+    book.create_sheet("Results").append(["sample_id", "class"])
+    book.save(tmp_path / "export.xlsx")
+    with pytest.raises(InputError, match=r"missing required column\(s\) sample_id, class.*read sheet 'Cover'"):
+        read_samples(tmp_path / "export.xlsx")

@@ -22,9 +22,9 @@ import yaml
 from sumpwise.cli.main import main
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
-from sumpwise.render.html_report import (Ladder, limit_lines, parse_rejects, parse_results, recorded_value,
-                                         render_report, starts_charge, unit_plots, unit_views)
-from sumpwise.render.svg_plot import _LOOKS, UNRATED_LOOK, date_ticks, nice_ticks
+from sumpwise.render.html_report import (Ladder, limit_lines, parse_rejects, parse_results, recorded_bound,
+                                         recorded_value, render_report, starts_charge, unit_plots, unit_views)
+from sumpwise.render.svg_plot import _LOOKS, UNRATED_LOOK, date_ticks, nice_ticks, render_plot
 
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIO = ROOT / "scenarios" / "brackwater"
@@ -584,3 +584,63 @@ def test_condition_clauses_show_each_value_and_limit_with_its_measures_unit():
     html = _flat(render_report([record], (), ruleset))
     assert "oil_hours = 1500 h" in html and "below 2000 h: holds" in html
     assert "oxidation_rise = 19 abs/cm" in html and "above 10 abs/cm: holds" in html
+
+
+def test_the_latest_sample_shows_the_lab_comment_and_what_an_undecided_reading_was(tmp_path):
+    # The invented semicolon export (tests/data/samples/lab-semicolon.csv) carries a remarks column
+    # and censored readings: BP-S3's oil hours '>20000' and carbonyl '<1' leave carbonyl-rising-fast
+    # undecided. Issue 12: a lab's comment reaches the record, explain and the report; a reading
+    # written as a bound is present, so the report names it as written, as explain does.
+    export, cmap = ROOT / "tests/data/samples/lab-semicolon.csv", ROOT / "tests/data/samples/lab-semicolon.yaml"
+    results, report = tmp_path / "results.jsonl", tmp_path / "report.html"
+    assert cli("grade", export, "--columns", cmap, "--rules", RULES, "--out", results)[0] == 0
+    assert cli("report", "--results", results, "--rules", RULES, "--out", report)[0] == 0
+    tree = _Tree()
+    tree.feed(report.read_text())
+    latest = " ".join(tree.articles["BP-S3"])
+    assert "lab comment: oil changed last week" in latest
+    assert "oil_hours written '>20000'" in latest and "oxidation written '<1'" in latest
+
+
+def test_a_reading_written_as_a_bound_is_drawn_as_a_bound_not_left_off(tmp_path):
+    # ST-1 in lab-semicolon.csv (invented): BP-S1's water '<50' and BP-S2's '>5000', which fires the
+    # site's urgent water rule. The plot must show both (at the bound, an arrow pointing the way the
+    # reading lies, the tooltip quoting it as written and saying it is a bound), never an empty
+    # panel; no line joins a bound, since it is not a value.
+    export, cmap = ROOT / "tests/data/samples/lab-semicolon.csv", ROOT / "tests/data/samples/lab-semicolon.yaml"
+    results = tmp_path / "results.jsonl"
+    assert cli("grade", export, "--columns", cmap, "--rules", RULES, "--out", results)[0] == 0
+    records = parse_results(results.read_text().splitlines(), "results.jsonl")
+    ruleset = load_ruleset(RULES)
+    (view,) = [v for v in unit_views(records, ruleset) if v.unit_id == "ST-1"]
+    water = next(p for p in unit_plots(view, Ladder.of(records, ruleset)) if p.title == "water")
+    assert [(b.y, b.bound, b.level) for b in water.bounds] == [(50.0, "<", 0), (5000.0, ">", 3)]
+    assert water.bounds[1].label.endswith("water >5000 ppm as written: a bound, not a value")
+    assert [p.y for run in water.runs for p in run] == []
+    svg = render_plot(water)
+    assert svg.count('class="bound"') == 2 and "no values recorded" not in svg
+    # a decimal-comma export's bound as written ('<0,05': intake refuses a point there) and the forms
+    # that are not bounds (a word, a decimal comma beside a point)
+    assert recorded_bound({"values": {"an": "<0,05"}}, "an") == ("<", 0.05)
+    assert recorded_bound({"values": {"an": "\u22651,5"}}, "an") == (">=", 1.5)
+    assert [recorded_bound({"values": {"an": t}}, "an") for t in ("ND", "<1.000,5", None, 0.05)] == [None] * 4
+
+
+def test_a_sample_graded_on_less_than_it_should_is_in_the_report_even_when_not_latest(tmp_path):
+    # Issue 12's misspelt lubricant code: U1's 'TURB-46M' leaves its new-oil values missing, so an
+    # acid number of 0.5 (a rise of 0.43 on TURB-46-M's 0.07, urgent above 0.4 at this site) grades
+    # normal. U2, the unit's next sample, is the card's latest. The report must still show U1 with
+    # its caveat (the unit's earlier samples) and count the caveat for the batch.
+    samples = tmp_path / "unk.csv"
+    samples.write_text("sample_id,unit_id,class,lubricant,sampled_on,oil_hours,an,water\n"
+                       "U1,ST-1,steam-turbine,TURB-46M,2026-03-01,38000,0.5,50\n"
+                       "U2,ST-1,steam-turbine,TURB-46-M,2026-03-15,38300,0.1,50\n", encoding="utf-8")
+    results, report = tmp_path / "results.jsonl", tmp_path / "report.html"
+    assert cli("grade", samples, "--rules", RULES, "--out", results)[0] == 0
+    assert cli("report", "--results", results, "--rules", RULES, "--out", report)[0] == 0
+    html = report.read_text()
+    tree = parse(html)
+    rows = [attrs for tag, attrs in tree.tags if tag == "tr" and attrs.get("data-sample") == "U1"]
+    assert rows, "U1 is not in ST-1's table of earlier samples"
+    text = " ".join(tree.text)
+    assert "unknown-lubricant" in text and "1 sample(s) with caveat unknown-lubricant" in text

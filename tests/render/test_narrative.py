@@ -31,3 +31,20 @@ def test_explain_says_when_a_cap_held_because_its_exception_went_unchecked():
     result = grade(read_samples(io.StringIO(csv)), rs).result(0)
     text = " ".join(explain_lines(result, rs.grades))
     assert "could not be checked: it lacks an." in " ".join(text.split())
+
+
+def test_explain_says_a_grade_from_a_reading_written_as_a_bound_is_the_least_it_can_be():
+    # The README's example: water '>1500' against the site's gearbox water steps (watch above 300,
+    # alert above 1000, urgent above 2000 ppm; scenarios/brackwater/site.yaml, invented) is known above
+    # the alert step and undecided against urgent: alert is a lower bound, and explain must say so.
+    import io
+    from conftest import ROOT
+    rs = load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml")
+    csv = "sample_id,class,lubricant,water\nW1,gearbox,GEAR-320-PAO,>1500\nW2,gearbox,GEAR-320-PAO,1500\n"
+    graded = grade(read_samples(io.StringIO(csv)), rs)
+    told = " ".join(" ".join(explain_lines(graded.result(0), rs.grades)).split())
+    assert "water = >1500 ppm, above 1000 ppm (the alert limit)." in told
+    assert "The lab wrote a bound (>1500): the reading lies somewhere above it, so alert is the least this rule " \
+           "gives the sample." in told
+    plain = " ".join(" ".join(explain_lines(graded.result(1), rs.grades)).split())
+    assert "The lab wrote a bound" not in plain

@@ -14,6 +14,7 @@ from table_text import table_lines
 from sumpwise import grade, grade_batch, load_ruleset, read_samples
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.cli.main import main
+from sumpwise.render.narrative import step_phrase
 from sumpwise.render.table import WIDTH, _why, grade_marker, wants_progress, write_table
 
 
@@ -112,3 +113,20 @@ def test_cli_table_keeps_stderr_to_the_summary_when_not_a_terminal():
     assert code == 0
     assert "rows (" not in err.getvalue() and err.getvalue().startswith("sumpwise: ")
     assert max(len(line) for line in out.getvalue().splitlines()) <= WIDTH
+
+
+def test_each_next_step_is_in_the_table_in_full_with_its_samples():
+    # The site's water rule on the steam turbines asks (scenarios/brackwater/site.yaml, invented):
+    # "Resample, and pressure-test the seawater-cooled lube oil cooler for a tube leak", within 7
+    # days. The why column cuts it at 100 columns, so the foot lists each step once, whole, with
+    # the samples that ask it; ST-2's wet samples BP-0154 and BP-0157 among them.
+    graded = grade(read_samples(SAMPLES, None, None, None, load_ruleset(SITE).measures), load_ruleset(SITE))
+    lines = table_lines(graded)
+    assert max(len(line) for line in lines) <= 100
+    foot = "\n".join(lines[lines.index("What to do (the rule set's next steps, each with the samples that ask it):"):])
+    joined = " ".join(foot.split())
+    assert ("Resample, and pressure-test the seawater-cooled lube oil cooler for a tube leak (within 7 days of "
+            "sampling): BP-0154, BP-0157") in joined
+    asked = {step_phrase(x.next_step.task, x.next_step.within_days) for r in graded.results()
+             for x in r.reasons + r.caveats if x.next_step is not None}
+    assert len(asked) >= 3 and all(" ".join(step.split()) + ":" in joined for step in asked)

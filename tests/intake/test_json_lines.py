@@ -1,0 +1,117 @@
+"""JSON Lines input read by its fast routes gives what Python's own json module reads.
+
+The reader parses a file in one call: into one small record a line when every line has the
+first line's keys, else into dicts, and with the json module when the fast parser refuses
+the file (NaN, Infinity). Each route is checked here against json.loads of each line, the
+reference (Python standard library), on realistic lab rows."""
+
+import io
+import json
+
+import numpy as np
+import pytest
+
+from sumpwise.intake.column_map import load_column_map
+from sumpwise.intake.samples import read_samples
+
+LAB_ROWS = [
+    {"sample_id": "BP-0001", "unit_id": "GB-1", "class": "gearbox", "lubricant": "GEAR-320-PAO",
+     "sampled_on": "2026-03-02", "kv40": 318.4, "an": 0.82, "water": 140},
+    {"sample_id": "BP-0002", "unit_id": "GB-2", "class": "gearbox", "lubricant": "GEAR-320-PAO",
+     "sampled_on": "2026-03-02", "kv40": 331.0, "an": None, "water": 95},
+    {"sample_id": "BP-0003", "unit_id": "HY-7", "class": "hydraulic", "lubricant": "HYD-46-M",
+     "sampled_on": "2026-03-03", "kv40": 44.12, "an": 0.41},  # no water key: a missing cell
+]
+
+
+def _lines(rows) -> str:
+    return "".join(json.dumps(row) + "\n" for row in rows)
+
+
+def _reference(text: str) -> list[dict]:
+    """Each line by json.loads, cells as the table gives them: text as text, numbers as floats."""
+    rows = []
+    for line in text.splitlines():
+        if line.strip():
+            rows.append(json.loads(line))
+    return rows
+
+
+def _check_against_reference(batch, text: str) -> None:
+    reference = _reference(text)
+    assert len(batch.frame) == len(reference)
+    for (row_number, got), want in zip(batch.frame.iterrows(), reference):
+        for name in ("sample_id", "unit_id", "class", "lubricant", "sampled_on"):
+            assert got[name] == want.get(name), (row_number, name)
+        for name in ("kv40", "an", "water"):
+            value = want.get(name)
+            if value is None:
+                assert np.isnan(got[name]), (row_number, name)
+            else:
+                assert got[name] == float(value), (row_number, name)
+
+
+def test_lines_with_the_first_lines_keys_read_as_json_reads_them():
+    text = _lines(LAB_ROWS)
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    assert batch.rejects == ()
+    _check_against_reference(batch, text)
+
+
+def test_a_key_the_first_line_lacks_is_read_too():
+    rows = LAB_ROWS + [dict(LAB_ROWS[0], sample_id="BP-0004", oxidation=12.5)]
+    text = _lines(rows)
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    _check_against_reference(batch, text)
+    assert batch.frame["oxidation"].isna().tolist() == [True, True, True, False]
+    assert batch.frame["oxidation"].iloc[3] == 12.5
+
+
+def test_a_file_with_nan_is_read_by_the_json_module_and_the_row_rejected():
+    text = _lines(LAB_ROWS[:2]) + '{"sample_id": "BP-0009", "class": "gearbox", "water": NaN}\n'
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    assert [(r.row, r.sample_id, r.field, r.code) for r in batch.rejects] == [(3, "BP-0009", "water", "D014")]
+    _check_against_reference(batch, _lines(LAB_ROWS[:2]))
+
+
+def test_an_integer_sample_id_beyond_64_bits_is_kept_exactly():
+    # A float would spell it 1.2345678901234568e+29: another sample's id, silently.
+    text = _lines([dict(LAB_ROWS[0], sample_id=123456789012345678901234567890)])
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    assert batch.frame["sample_id"].tolist() == ["123456789012345678901234567890"]
+
+
+def test_two_objects_on_one_line_reject_that_line_by_number():
+    text = _lines(LAB_ROWS[:1]) + json.dumps(LAB_ROWS[1]) + "," + json.dumps(LAB_ROWS[2]) + "\n"
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    assert [(r.row, r.field, r.code) for r in batch.rejects] == [(2, "(row)", "D001")]
+    assert "not valid JSON" in batch.rejects[0].reason
+    assert batch.frame["sample_id"].tolist() == ["BP-0001"]
+
+
+def test_a_nested_value_in_a_line_of_the_first_lines_keys_rejects_its_row_with_the_field():
+    rows = [LAB_ROWS[0], dict(LAB_ROWS[1], an={"value": 0.5, "unit": "mg KOH/g"})]
+    batch = read_samples(io.StringIO(_lines(rows)), "x.jsonl")
+    assert [(r.row, r.sample_id, r.field, r.code) for r in batch.rejects] == [(2, "BP-0002", "an", "D016")]
+
+
+@pytest.mark.parametrize("count", [3, 2500])
+def test_repeated_codes_and_lab_column_names_read_as_json_reads_them(tmp_path, count):
+    # Lab names with spaces and signs (not identifiers); 2,500 rows take the path that keeps
+    # one text object per distinct code.
+    (tmp_path / "map.yaml").write_text('sample_id: "Probe Nr"\nclass: Equipment\nlubricant: Oil\n'
+                                       'water: {column: "H2O %", unit: "%"}\n', encoding="utf-8")
+    rng = np.random.default_rng(4)
+    rows = [{"Probe Nr": f"BP-{k:05d}", "unit_id": f"GB-{k % 40}", "Equipment": "gearbox",
+             "Oil": "GEAR-320-PAO", "sampled_on": "2026-03-02", "kv40": round(float(rng.uniform(290, 350)), 2),
+             "an": None if k % 7 == 0 else round(float(rng.uniform(0.3, 1.2)), 2),
+             "H2O %": round(float(rng.uniform(0.001, 0.05)), 4)} for k in range(count)]
+    text = _lines(rows)
+    batch = read_samples(io.StringIO(text), "x.jsonl", columns=load_column_map(tmp_path / "map.yaml"))
+    assert batch.rejects == ()
+    assert batch.frame["sample_id"].tolist() == [r["Probe Nr"] for r in rows]
+    assert batch.frame["unit_id"].tolist() == [r["unit_id"] for r in rows]
+    assert batch.frame["class"].tolist() == ["gearbox"] * count
+    assert batch.frame["an"].isna().tolist() == [r["an"] is None for r in rows]
+    # 1 % = 10,000 ppm (the unit's definition)
+    assert batch.frame["water"].tolist() == pytest.approx([r["H2O %"] * 10_000 for r in rows])
