@@ -123,9 +123,9 @@ def test_a_step_4_ledger_is_migrated_in_place_keeps_its_digests_and_takes_form_3
     digests = old.execute("SELECT batch, form, digest FROM batches ORDER BY batch").fetchall()
     verdicts = old.execute("SELECT * FROM verdicts ORDER BY entry").fetchall()
     assert old.execute("PRAGMA user_version").fetchone()[0] == 4 and {form for _, form, _ in digests} == {2}
-    report = replay(db)  # read-only: migrated in memory
+    report = replay(db)  # the file is writable: migrated in place first
     assert report.differences == () and report.engine_changes == () and report.checked == 10
-    conn = open_ledger(db)  # migrated in place
+    conn = open_ledger(db)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
     assert conn.execute("SELECT batch, form, digest FROM batches ORDER BY batch").fetchall() == digests
     assert conn.execute("SELECT * FROM verdicts ORDER BY entry").fetchall() == verdicts  # kept where they were
