@@ -427,7 +427,11 @@ def _graded_batches(args, stdin, source, ruleset, columns, stderr):
     references = parse_references(args.reference)
     said: list = []
     read = map(lambda batch: measure_sample_spectra(batch, ruleset, references, args.path_length), chunks)
-    for graded in grade_in_chunks(_noting(read, said), ruleset):
+    for number, graded in enumerate(grade_in_chunks(_noting(read, said), ruleset)):
+        if number == 0 and not graded.forecasts_made and args.format == "jsonl":  # only records carry them
+            said.append(f"forecasts not made: the file is read in chunks of {args.chunk_rows:,} rows and a forecast "
+                        f"needs each unit's whole oil charge (records say forecasts null); give --chunk-rows "
+                        f"above the file's row count, or grade into a ledger and use history")
         notes, said[:] = tuple(said), []
         yield graded, notes, 0
         graded = None  # each reference to a graded chunk goes before the next chunk is graded

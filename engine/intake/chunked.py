@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.readers import ENCODING_HINT
+from sumpwise.intake.readers import ENCODING_HINT, detect_decimal, detect_delimiter
 from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, read_samples
 from sumpwise.vocabulary.problems import InputError
 
@@ -44,13 +44,17 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     offset = 0
     try:
         for text, lines in _chunk_texts(stream, fmt, rows, name):
+            if offset == 0 and fmt == "csv":
+                chunk_columns, columns = columns, _marks_of_the_file(columns, text)  # later chunks: the first's
+            else:
+                chunk_columns = columns
             # as UTF-8 bytes: a StringIO of the chunk would hold 4 bytes a character
             try:
                 data, text = text.encode("utf-8"), None
             except UnicodeEncodeError as exc:  # a surrogate: a byte the file's UTF-8 could not read
                 raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv")) from None
-            batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name, columns,
-                                 fmt, numeric)
+            batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name,
+                                 chunk_columns, fmt, numeric)
             data = None
             batch = _moved(batch, offset)
             batch = seen.check(batch)
@@ -62,6 +66,17 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     finally:
         if stream is not source:
             stream.close()
+
+
+def _marks_of_the_file(columns: ColumnMap | None, text: str) -> ColumnMap:
+    """The column map with the delimiter and decimal mark the first chunk shows, for the chunks
+    after it: a later chunk whose first lines hold no `46,1` would otherwise take '.' and
+    reject its decimal-comma numbers."""
+    columns = columns or ColumnMap()
+    head = text[: 1 << 16].splitlines()
+    delimiter = columns.option("delimiter") or (detect_delimiter(head[0]) if head else ",")
+    decimal = columns.option("decimal") or detect_decimal(head, delimiter)
+    return replace(columns, options={**columns.options, "delimiter": delimiter, "decimal": decimal})
 
 
 def _not_utf8(name: str, byte: int, line: int | None) -> InputError:

@@ -17,7 +17,7 @@ import warnings
 from dataclasses import dataclass, field
 from datetime import date, datetime, time
 from itertools import chain, repeat
-from operator import attrgetter
+from operator import attrgetter, methodcaller
 from typing import Any
 
 import msgspec
@@ -189,6 +189,10 @@ def read_jsonl(text: str, numeric: set = frozenset()) -> RawTable:
         raise InputError("the file is empty: expected one JSON object a line")
     kept = lines if len(numbers) == len(lines) else [lines[k - 1] for k in numbers]
     joined = "[" + ",".join(kept) + "]"
+    return _without_twice_given_keys(_parsed_lines(joined, kept, numbers, numeric), joined, lines)
+
+
+def _parsed_lines(joined: str, kept: list, numbers: np.ndarray, numeric: set) -> RawTable:
     table = _same_keys_table(joined, kept, numbers, numeric)
     if table is not None:
         return table
@@ -213,6 +217,58 @@ def read_jsonl(text: str, numeric: set = frozenset()) -> RawTable:
             except json.JSONDecodeError as exc:
                 skipped.append((int(numbers[k]), f"not valid JSON: {exc.msg} at column {exc.colno}", "D001"))
     return _objects_table(records, numbers[good], skipped, numeric)
+
+
+def _without_twice_given_keys(table: RawTable, joined: str, lines: list) -> RawTable:
+    """Rows whose object gives a key twice with different values are set aside (D017).
+
+    Parsers keep the last value without a word, so `"water": 120, "water": 9000` would be
+    graded on 9000 when the lab may have meant 120. Each key takes a colon, so a file whose
+    colons are no more than its cells with a value plus its `null` literals gives no key
+    twice: that count, a few passes in C over the text, clears the usual file. Otherwise
+    each line is counted so, and a line that could hold more keys than the table found is
+    parsed again pair by pair. This catches every key given twice with two values, unless
+    a text value elsewhere in the file spells `:null` (which lowers the count); a key given
+    null and then a value (or twice null) is read as its value (or missing).
+    """
+    if not len(table.frame) or joined.count(":") <= table.frame.count().sum() + _null_literals(joined):
+        return table
+    text = [lines[k - 1] for k in table.rows]
+    colons = np.fromiter(map(methodcaller("count", ":"), text), dtype=np.int64, count=len(text))
+    nulls = np.fromiter(map(_null_literals, text), dtype=np.int64, count=len(text))
+    filled = table.frame.notna().sum(axis=1).to_numpy()
+    twice = np.zeros(len(text), dtype=bool)
+    skipped = list(table.skipped)
+    for k in np.flatnonzero(colons > filled + nulls):
+        found = _key_given_twice(text[k])
+        if found is not None:
+            twice[k] = True
+            key, values = found
+            skipped.append((int(table.rows[k]), f"key '{key}' given twice in one object "
+                                                f"({' and '.join(values)}): which one the lab meant cannot be known",
+                            "D017", key))
+    if not twice.any():
+        return table
+    return RawTable(table.frame[~twice].reset_index(drop=True), table.rows[~twice], skipped, table.notes,
+                    table.header)
+
+
+def _null_literals(text: str) -> int:
+    """`null` values as writers space them (`"k":null`, `"k": null`); another spacing counts
+    none, which only makes the check above look closer."""
+    return text.count(":null") + text.count(": null")
+
+
+def _key_given_twice(line: str) -> tuple[str, list] | None:
+    """The first top-level key a line gives twice with different values, and those values."""
+    pairs = json.loads(line, object_pairs_hook=list, parse_constant=str)
+    seen: dict = {}
+    for key, value in pairs:
+        seen.setdefault(key, []).append(value)
+    for key, values in seen.items():
+        if len(values) > 1 and any(v != values[0] for v in values[1:]):
+            return key, [json.dumps(v) for v in values]
+    return None
 
 
 def _same_keys_table(joined: str, kept: list, numbers: np.ndarray, numeric: set) -> RawTable | None:

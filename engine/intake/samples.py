@@ -137,11 +137,12 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                      rows: np.ndarray | None = None, notes=()) -> SampleBatch:
     """Map, convert and check rows; pure apart from its arguments.
 
-    `skipped` holds (row, reason[, code]) of rows the reader could not use; `rows` the row
+    `skipped` holds (row, reason[, code[, field]]) of rows the reader could not use; `rows` the row
     number of each frame row (1, 2, ... when not given).
     """
     columns = columns or ColumnMap()
-    skipped = [s if len(s) == 3 else (s[0], s[1], "D001") for s in skipped]
+    skipped = [s if len(s) == 4 else (*s[:3], "(row)") if len(s) == 3 else (s[0], s[1], "D001", "(row)")
+               for s in skipped]
     rows = _row_numbers(raw, skipped) if rows is None else np.asarray(rows, dtype=np.int64)
     notes = list(notes)
     try:
@@ -184,7 +185,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         raise InputError(f"{name}: missing required column(s) {', '.join(missing)}; the file has: "
                          f"{', '.join(raw.columns) or 'no columns'}{read}")
 
-    rejects: list[Reject] = [Reject(row, None, "(row)", why, code) for row, why, code in skipped]
+    rejects: list[Reject] = [Reject(row, None, where, why, code) for row, why, code, where in skipped]
     numeric_names = [c for c in raw.columns if c in NUMERIC_COLUMNS or c in numeric]
     for column in raw.columns:
         nested = nested_cells(raw[column])

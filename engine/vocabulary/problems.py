@@ -91,6 +91,7 @@ PROBLEM_CODES = {
     "D014": "a number that is not finite (nan, inf, an overflow)",
     "D015": "a date that is not ISO 8601 or does not fit the declared date format",
     "D016": "a list or object where one value was expected",
+    "D017": "a key given twice with different values in one JSON object",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",

@@ -115,3 +115,20 @@ def test_repeated_codes_and_lab_column_names_read_as_json_reads_them(tmp_path, c
     assert batch.frame["an"].isna().tolist() == [r["an"] is None for r in rows]
     # 1 % = 10,000 ppm (the unit's definition)
     assert batch.frame["water"].tolist() == pytest.approx([r["H2O %"] * 10_000 for r in rows])
+
+
+def test_a_key_given_twice_with_two_values_rejects_its_row_naming_the_key():
+    # RFC 8259 section 4: names within an object SHOULD be unique, and with duplicates "the
+    # behavior of software that receives such an object is unpredictable"; Python's json
+    # module (the reference here) keeps the last value, which would grade water 9000 ppm.
+    rows = [dict(LAB_ROWS[0]), dict(LAB_ROWS[1])]
+    text = _lines(rows)
+    text += text.splitlines()[0].replace('"sample_id": "BP-0001"', '"sample_id": "BP-0009"')[:-1] \
+        + ', "water": 9000}\n'  # row 3: water 140 then 9000
+    text += json.dumps({**LAB_ROWS[2], "sample_id": "BP-0010"})[:-1] + ', "an": 0.41}\n'  # the same value twice
+    assert json.loads(text.splitlines()[2])["water"] == 9000  # what a silent reader would grade
+    batch = read_samples(io.StringIO(text), name="week.jsonl", fmt="jsonl")
+    assert [(r.row, r.field, r.code) for r in batch.rejects] == [(3, "water", "D017")]
+    assert "140 and 9000" in batch.rejects[0].reason
+    assert sorted(batch.frame["sample_id"]) == ["BP-0001", "BP-0002", "BP-0010"]
+    assert batch.rows_read == 4 and batch.rejected_rows + len(batch.frame) == batch.rows_read
