@@ -9,7 +9,8 @@ its own row (which holds the previous batch's digest, so the batches form a chai
 samples, their verdicts with their shapes' fingerprints, and its rejected rows. Digest 1
 (form-1 batches, recorded before step 4) covers a sample's values through their
 fingerprint and spells chunks of rows as Python's repr; digest 2 (form 2) covers the
-values themselves, spelled column by column as JSON. It is read back rather than computed
+values themselves, spelled column by column as JSON; digest 3 (form 3, from step 5)
+spells them the same way, with each verdict read from its sample's row. It is read back rather than computed
 from what was written so that recording and verifying share one definition, and its
 queries are listed here, frozen like the steps.
 """
@@ -130,6 +131,15 @@ STEP_4 = """
     DROP INDEX samples_date;
 """
 
+# 5: form 3, a sample's verdict in its own row (grade, level, shape, vals), so a batch stores one
+# row per sample; form-1 and form-2 batches keep theirs in `verdicts` and leave these empty.
+STEP_5 = """
+    ALTER TABLE samples ADD COLUMN grade TEXT;
+    ALTER TABLE samples ADD COLUMN level INTEGER;
+    ALTER TABLE samples ADD COLUMN shape INTEGER REFERENCES shapes(shape);
+    ALTER TABLE samples ADD COLUMN vals TEXT
+"""
+
 DIGEST_QUERIES = (
     "SELECT batch, recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, new_samples, "
     "known_samples, corrections, rejected, conflicts, reason, author, previous, value_names FROM batches "
@@ -168,6 +178,21 @@ DIGEST_2_ROWS = 100_000
 DIGEST_2_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
                            "method", "lab", "content", "corrects")
 # What a form-1 batch's samples hold (digest 1 covers some through the content fingerprint).
+# Digest 3 (form-3 batches): digest 2 with the verdict read from the sample's row; the count
+# of what form 3 leaves empty covers any `verdicts` row of its samples too. Frozen like the steps.
+DIGEST_3_QUERIES = (
+    DIGEST_2_QUERIES[0],
+    "SELECT entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, method, lab, content, corrects, "
+    "grade, level, shape, vals FROM samples WHERE batch = ? ORDER BY entry",
+    "SELECT count(*) FROM samples s WHERE s.batch = ? AND (kv40 IS NOT NULL OR kv100 IS NOT NULL OR an IS NOT NULL "
+    "OR bn IS NOT NULL OR oxidation IS NOT NULL OR nitration IS NOT NULL OR sulfation IS NOT NULL OR antiwear IS NOT "
+    "NULL OR soot IS NOT NULL OR water IS NOT NULL OR rpvot IS NOT NULL OR content_sha256 != '' OR EXISTS "
+    "(SELECT 1 FROM verdicts v WHERE v.entry = s.entry))",
+    "SELECT DISTINCT sh.shape, sh.sha256 FROM samples s JOIN shapes sh ON sh.shape = s.shape WHERE s.batch = ? "
+    "ORDER BY sh.shape",
+    DIGEST_QUERIES[3],
+)
+DIGEST_3_SAMPLE_COLUMNS = DIGEST_2_SAMPLE_COLUMNS + ("grade", "level", "shape", "vals")
 FORM_1_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
                          "method", "lab", "kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation",
                          "antiwear", "soot", "water", "rpvot", "content", "content_sha256", "corrects")
@@ -175,7 +200,8 @@ FORM_1_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on",
 
 def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = None) -> str:
     """SHA-256 over the batch's rows as stored, in a fixed order and spelling: digest 1 (Python's
-    repr of row chunks) for a form-1 batch, digest 2 (JSON, column by column) for any other.
+    repr of row chunks) for a form-1 batch, digest 2 (JSON, column by column) for a form-2 one,
+    digest 3 (digest 2's spelling, the verdict in the sample's row) for any other.
 
     `written` maps a query's index to the rows it would return (digest 1) or to its columns as
     lists (digest 2), when the caller has just written them and holds them with the types
@@ -184,7 +210,7 @@ def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = No
     has_form = any(row[1] == "form" for row in conn.execute("PRAGMA table_info(batches)"))  # from step 4 on
     row = conn.execute("SELECT form FROM batches WHERE batch = ?", (batch,)).fetchone() if has_form else None
     if row is not None and row[0] != 1:
-        return _digest_2(conn, batch, written)
+        return _digest_2(conn, batch, written, DIGEST_2_QUERIES if row[0] == 2 else DIGEST_3_QUERIES)
     digest = hashlib.sha256()
     for k, query in enumerate(DIGEST_QUERIES):
         if written is not None and k in written:
@@ -199,9 +225,9 @@ def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = No
     return digest.hexdigest()
 
 
-def _digest_2(conn: sqlite3.Connection, batch: int, written: dict | None) -> str:
+def _digest_2(conn: sqlite3.Connection, batch: int, written: dict | None, queries: tuple) -> str:
     digest = hashlib.sha256()
-    for k, query in enumerate(DIGEST_2_QUERIES):
+    for k, query in enumerate(queries):
         if written is not None and k in written:
             columns = written[k]
             n = len(columns[0]) if columns else 0
@@ -316,4 +342,4 @@ def _step_3_data(conn: sqlite3.Connection) -> None:
 
 
 # (SQL, then a data step or None), in order.
-MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data), (STEP_4, None))
+MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data), (STEP_4, None), (STEP_5, None))

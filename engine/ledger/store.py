@@ -17,6 +17,7 @@ refused and left untouched.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import itertools
 import json
@@ -36,8 +37,8 @@ from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, FORM_1_SAMPLE_COLUMNS, MIGRATIONS, batch_digest,
-                                    fingerprint, shape_ids)
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_SAMPLE_COLUMNS, FORM_1_SAMPLE_COLUMNS,
+                                    MIGRATIONS, batch_digest, fingerprint, shape_ids)
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
@@ -47,9 +48,10 @@ from sumpwise.vocabulary.problems import InputError
 
 DEFAULT_PATH = "sumpwise.db"
 APPLICATION_ID = 0x53574C47  # "SWLG": marks the file as a sumpwise ledger
-SCHEMA_VERSION = 4
+SCHEMA_VERSION = 5
 PAGE_SIZE = 16384  # bytes; a new ledger only (SQLite keeps a file's page size): bulk imports write faster
 CACHE_KIB = 262144  # page cache of a writing run: index pages stay in memory while a large batch is stored
+BULK_ROWS = 50_000  # a batch this large, and at least as large as the ledger, builds its indexes after the rows
 BUSY_SECONDS = 60.0  # how long a run waits for another run's transaction before giving up
 _BEGIN_TRIES = 5
 PAUSE_VARIABLE = "SUMPWISE_LEDGER_TEST_PAUSE"  # tests only: seconds to wait inside the write transaction
@@ -366,7 +368,7 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
                 continue
             values = column.to_numpy(dtype=float)
             finite = np.isfinite(values)
-            back = np.array([np.nan if v is None else v for v in typed[name]], dtype=float)
+            back = np.array(typed[name], dtype=float)  # None reads as NaN
             if (np.isinf(values).any() or np.signbit(values[finite & (values == 0)]).any()
                     or not np.array_equal(np.where(finite, values, np.nan), back, equal_nan=True)):
                 continue
@@ -374,7 +376,7 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             continue
         values = column.to_numpy(dtype=object)
         missing = pd.isna(values)
-        if (not all(type(v) is str for v in pd.unique(values[~missing]))  # each distinct value once
+        if (not set(map(type, values[~missing].tolist())) <= {str}  # every present value text
                 or not (missing == pd.isna(written)).all()):
             continue
         if (values[~missing] == written[~missing]).all():
@@ -391,6 +393,22 @@ def _nullable(values: np.ndarray) -> list:
         if not np.isnan(values).any():
             return values.tolist()
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
+
+
+@contextlib.contextmanager
+def _indexes_built_after(conn: sqlite3.Connection, bulk: bool):
+    """With `bulk` (a batch at least as large as what the ledger holds), the indexes on samples
+    are dropped before the rows go in and created again, from their stored SQL, after: sorting
+    once costs less than keeping three indexes in order row by row. All inside the batch's
+    transaction, so a failure or a crash leaves the indexes as they were; the unique index on
+    current sample ids is checked in full when it is created again."""
+    saved = conn.execute("SELECT name, sql FROM sqlite_master WHERE type = 'index' AND tbl_name = 'samples' "
+                         "AND sql IS NOT NULL ORDER BY name").fetchall() if bulk else []
+    for name, _ in saved:
+        conn.execute(f'DROP INDEX "{name}"')
+    yield
+    for _, sql in saved:
+        conn.execute(sql)
 
 
 def _fill_temp(conn: sqlite3.Connection, table: str, values) -> None:
@@ -601,7 +619,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     cursor = conn.execute(
         "INSERT INTO batches (recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, "
         "new_samples, known_samples, corrections, rejected, conflicts, reason, author, previous, value_names, form) "
-        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 2)",
+        "VALUES (?, ?, ?, ?, ?, '', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 3)",
         (datetime.now(timezone.utc).isoformat(timespec="seconds"), batch.source, ruleset.sha256, engine_name(),
          json.dumps(list(frame.columns)), batch.rows_read, n_new, int(known.sum()), n_corrections,
          len(batch.rejects), n_conflicts, correction.reason if correction else None,
@@ -618,8 +636,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     flags = frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame else np.zeros(len(frame), bool)
     first = conn.execute("SELECT coalesce(max(entry), 0) + 1 FROM samples").fetchone()[0]
     entries = list(range(first, first + len(rows)))
-    # Form 2: the typed columns queries and history read; each value once (those columns, or the
-    # sample's array); no reading columns.
+    # Form 3: the typed columns queries and history read; each value once (those columns, or the
+    # sample's array); no reading columns; the verdict in the same row (one row per sample).
     typed = {name: _nullable(measured[name].to_numpy()[rows]) for name in HELD if name != "oil_changed"}
     typed["oil_changed"] = flags[rows].astype(int).tolist()
     fresh_frame = frame.iloc[rows]
@@ -627,29 +645,24 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     values = sample_arrays(fresh_frame[[c for c in frame.columns if c not in held]]).tolist()
     conn.execute("UPDATE batches SET held = ? WHERE batch = ?", (json.dumps(held), number))
     typed = [typed[name] for name in HELD]
-    nothing = [None] * len(rows)
-    written = [entries, *typed, values, corrects[rows].tolist()]  # DIGEST_2_SAMPLE_COLUMNS
-    conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
-                     "method, lab, content, content_sha256, corrects, batch) "
-                     "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', ?, ?)",
-                     zip(*written, [number] * len(rows)))
-
     facts = batch_facts(graded)
     shapes = np.array(shape_ids(conn, facts.shapes), dtype=np.int64)
     levels = facts.levels[rows].astype(object)
     levels[facts.levels[rows] < 0] = None
-    grades, levels, vals = facts.grades[rows].tolist(), levels.tolist(), facts.values[rows].tolist()
-    conn.executemany("INSERT INTO verdicts VALUES (?, ?, ?, ?, ?)",
-                     zip(entries, grades, levels, shapes[facts.shape_of[rows]].tolist(), vals))
+    shape_of = shapes[facts.shape_of[rows]]
+    written = [entries, *typed, values, corrects[rows].tolist(), facts.grades[rows].tolist(), levels.tolist(),
+               shape_of.tolist(), facts.values[rows].tolist()]  # DIGEST_3_SAMPLE_COLUMNS, as lists (one bind each)
+    with _indexes_built_after(conn, len(rows) >= max(BULK_ROWS, first - 1)):
+        conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
+                         "method, lab, content, corrects, grade, level, shape, vals, content_sha256, batch) "
+                         f"VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', {int(number)})", zip(*written))
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
     # The digest of the rows just written, as SQLite gives them back (replay reads them back).
-    shape_of = shapes[facts.shape_of[rows]]
     used = np.unique(shape_of)
     sha_of = dict(zip(shapes.tolist(), (fingerprint(text) for text in facts.shapes)))
     conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, {
-        1: written, 2: [[0]], 3: [entries, grades, levels, shape_of.tolist(), vals],
-        4: [used.tolist(), [sha_of[shape] for shape in used.tolist()]]}), number))
+        1: written, 2: [[0]], 3: [used.tolist(), [sha_of[shape] for shape in used.tolist()]]}), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
 
 
@@ -657,9 +670,12 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
 
 _UNIT_COLUMNS = ("entry", "batch", "sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40",
                  "an", "oxidation", "water", "corrects")
-_VERDICT = "v.grade, v.level, sh.facts, v.vals"
-_JOINS = ("FROM samples s JOIN verdicts v ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape "
-          "JOIN batches b ON b.batch = s.batch")
+# A sample's verdict where its batch's form keeps it: its own row (form 3) or `verdicts`.
+_GRADE, _LEVEL, _SHAPE, _VALS = (f"(CASE WHEN b.form >= 3 THEN s.{name} ELSE v.{name} END)"
+                                 for name in ("grade", "level", "shape", "vals"))
+_VERDICT = f"{_GRADE}, {_LEVEL}, sh.facts, {_VALS}"
+_JOINS = (f"FROM samples s JOIN batches b ON b.batch = s.batch LEFT JOIN verdicts v ON v.entry = s.entry "
+          f"JOIN shapes sh ON sh.shape = {_SHAPE}")
 
 
 def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
@@ -704,31 +720,40 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
 
 def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.DataFrame, dict]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
-    (None where a sample has no verdict row); and the columns its digest covers, as lists of
-    what SQLite gave (each row is read once). A form-2 batch's reading columns are None here:
-    its digest counts any that are not."""
-    names = (FORM_1_SAMPLE_COLUMNS if form == 1 else DIGEST_2_SAMPLE_COLUMNS) + ("superseded_in",)
+    (from `verdicts` for forms 1 and 2, None where a sample has none; from the sample's row for
+    form 3); and the columns its digest covers, as lists of what SQLite gave (each row is read
+    once). The frame has only the columns its form stores (a form-2 or form-3 batch's digest
+    counts any reading column that is not empty)."""
+    names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS)
+    names += ("superseded_in",)
     rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
     columns = dict(zip(names, ([list(column) for column in zip(*rows)] if rows else [[] for _ in names])))
     del rows
-    rows = conn.execute("SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s "
-                        "JOIN verdicts v ON v.entry = s.entry WHERE s.batch = ? ORDER BY v.entry", (batch,)).fetchall()
-    verdict = ("verdict_entry", "grade", "level", "shape", "vals")
-    columns.update(zip(verdict, ([list(column) for column in zip(*rows)] if rows else [[] for _ in verdict])))
-    del rows
-    used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN verdicts v "
-                        "ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? "
-                        "ORDER BY sh.shape", (batch,)).fetchall()
+    verdict = ("grade", "level", "shape", "vals")
+    if form in (1, 2):
+        rows = conn.execute("SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s JOIN verdicts v "
+                            "ON v.entry = s.entry WHERE s.batch = ? ORDER BY v.entry", (batch,)).fetchall()
+        columns.update(zip(("verdict_entry",) + verdict,
+                           ([list(column) for column in zip(*rows)] if rows else [[] for _ in range(5)])))
+        del rows
+        used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN verdicts v "
+                            "ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? "
+                            "ORDER BY sh.shape", (batch,)).fetchall()
+    else:
+        used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN shapes sh "
+                            "ON sh.shape = s.shape WHERE s.batch = ? ORDER BY sh.shape", (batch,)).fetchall()
     columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
     facts = {shape: text for shape, _, text in used}
-    verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in verdict})
-    verdicts["facts"] = verdicts["shape"].map(facts)  # None where the shape is gone
-    verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
-    n = len(columns["entry"])
-    frame = pd.DataFrame({name: pd.Series(columns[name] if name in columns else [None] * n, dtype=object)
-                          for name in FORM_1_SAMPLE_COLUMNS + ("superseded_in",)})
-    for name in ("grade", "level", "facts", "vals"):
-        frame[name] = verdicts[name].to_numpy(dtype=object)
+    frame = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in names if name not in verdict})
+    if form in (1, 2):
+        verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in ("verdict_entry",) + verdict})
+        verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
+        stored = {name: verdicts[name].to_numpy(dtype=object) for name in verdict}
+    else:
+        stored = {name: np.array(columns[name], dtype=object) for name in verdict}
+    for name in ("grade", "level", "vals"):
+        frame[name] = stored[name]
+    frame["facts"] = pd.Series(stored["shape"], dtype=object).map(facts).to_numpy(dtype=object)  # NaN: shape gone
     return frame, columns
 
 
@@ -747,7 +772,7 @@ def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list
     """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names, batch source)
     of the current samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    rows = conn.execute(f"SELECT sh.facts, v.vals, b.ruleset_sha256, b.engine, b.value_names, b.source, "
+    rows = conn.execute(f"SELECT sh.facts, {_VALS}, b.ruleset_sha256, b.engine, b.value_names, b.source, "
                         f"{STORED_VALUES} {_JOINS} WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ())
     return [(object_text(*row[6:]),) + row[:6] for row in rows]
 
@@ -791,13 +816,13 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     """
     where, params = [] if everything else ["s.superseded_in IS NULL"], []
     if rule is not None:
-        where.append("v.shape IN (SELECT shape FROM shape_rules WHERE rule = ?)")
+        where.append(f"{_SHAPE} IN (SELECT shape FROM shape_rules WHERE rule = ?)")
         params.append(rule)
     if grade_at_least is not None:
-        where.append("v.level >= ?")
+        where.append(f"{_LEVEL} >= ?")
         params.append(grade_at_least)
     if grades:
-        where.append(f"v.grade IN ({', '.join('?' * len(grades))})")
+        where.append(f"{_GRADE} IN ({', '.join('?' * len(grades))})")
         params.extend(grades)
     for column, value, test in (("s.unit_id", unit, "="), ("s.sampled_on", since, ">="),
                                 ("s.sampled_on", until, "<=")):
@@ -810,7 +835,7 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     names = ["sample_id", "unit_id", "class", "sampled_on", "grade", "level", "facts", "ruleset_id", "version",
              "ruleset_sha256", "batch", "superseded_in"]
     rows = conn.execute(
-        "SELECT s.sample_id, s.unit_id, s.class, s.sampled_on, v.grade, v.level, sh.facts, rs.ruleset_id, rs.version, "
+        f"SELECT s.sample_id, s.unit_id, s.class, s.sampled_on, {_GRADE}, {_LEVEL}, sh.facts, rs.ruleset_id, rs.version, "
         f"b.ruleset_sha256, s.batch, s.superseded_in {_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 "
         f"{'WHERE ' + ' AND '.join(where) if where else ''} ORDER BY s.sampled_on, s.unit_id, s.entry",
         params).fetchall()

@@ -44,7 +44,8 @@ def _state(db):
     with sqlite3.connect(db) as conn:
         return (conn.execute("PRAGMA integrity_check").fetchone()[0],
                 conn.execute("SELECT count(*) FROM samples").fetchone()[0],
-                conn.execute("SELECT count(*) FROM verdicts").fetchone()[0],
+                conn.execute("SELECT count(*) FROM samples WHERE grade IS NOT NULL").fetchone()[0]  # form 3
+                + conn.execute("SELECT count(*) FROM verdicts").fetchone()[0],
                 conn.execute("SELECT count(*) FROM batches").fetchone()[0])
 
 
@@ -68,7 +69,7 @@ def test_grade_explain_history_replay(tmp_path):
     assert [json.loads(line)["oil_changed"] for line in lines] == [False, True]
     assert run_cli("replay", "--db", db).code == 0
     with sqlite3.connect(db) as conn:
-        conn.execute("UPDATE verdicts SET level = 1 WHERE level = 2")
+        conn.execute("UPDATE samples SET level = 1 WHERE level = 2")
     replayed = run_cli("replay", "--db", db)
     assert replayed.code == 3 and "T-04 (batch 1): stored level 1, replayed 2" in replayed.out
     assert run_cli("replay", "--db", db, "--since", "May 2026").code == 2

@@ -17,6 +17,7 @@ from sumpwise.ledger.store import SCHEMA_VERSION, migrate, open_ledger
 from sumpwise.vocabulary.measures import TREND_BASES
 
 OLD_LEDGER = Path(__file__).resolve().parents[1] / "data" / "ledger" / "brackwater-v1.db"
+STEP_4_LEDGER = OLD_LEDGER.with_name("brackwater-v4.db")  # form-2 batches (tests/data/ledger/README.md)
 
 # Verdicts of the old ledger that today's engine grades otherwise, and why. Replay must name
 # these and nothing else. Since FTIR conventions became distinct measures, an oxidation value
@@ -33,7 +34,8 @@ ENGINE_CHANGES = {"BP-0059": "screw-compressor, oxidation 19.6 by subtraction",
 RELEASED = ("20e63dfeb2b5ce4df369c6b07f49c6e2c1e8b953c9306d8d5cc6b6943b501da2",
             "05b510c348a44a964fd1f38cba058af3b27a01df55c3bfebb8006a12acc347a1",
             "376b66162183b588b4409b300e787dff7418101af80174cf986feab65bea33c1",
-            "2dd8a471c4733d99c0b45ed2ceef20ad7b501725909150bbf4401ce84c1fd18e")
+            "2dd8a471c4733d99c0b45ed2ceef20ad7b501725909150bbf4401ce84c1fd18e",
+            "83820988ad987dda9b4315155f17ffeec039596d5058fb1bb80e9b33b42abd96")
 
 
 def test_released_steps_are_unchanged():
@@ -107,3 +109,48 @@ def test_replay_of_the_old_ledger_exits_clean_and_lists_the_engine_changes_stric
     assert listed == [f"engine change: {sid}" for sid in sorted(ENGINE_CHANGES)]
     assert "reproducibility: 325 result(s) graded as recorded; 4 graded otherwise than an older engine" in run.out
     assert run_cli("replay", "--db", db, "--strict").code == 3
+
+
+def test_a_step_4_ledger_is_migrated_in_place_keeps_its_digests_and_takes_form_3_batches(tmp_path):
+    import io
+
+    import sumpwise
+    from sumpwise.ledger.audit import explain_from_ledger, find_samples, recorded_rejects, unit_history
+    from sumpwise.ledger.store import grade_into_ledger
+    db = tmp_path / "v4.db"
+    shutil.copyfile(STEP_4_LEDGER, db)
+    old = sqlite3.connect(STEP_4_LEDGER.resolve().as_uri() + "?mode=ro&immutable=1", uri=True)
+    digests = old.execute("SELECT batch, form, digest FROM batches ORDER BY batch").fetchall()
+    verdicts = old.execute("SELECT * FROM verdicts ORDER BY entry").fetchall()
+    assert old.execute("PRAGMA user_version").fetchone()[0] == 4 and {form for _, form, _ in digests} == {2}
+    report = replay(db)  # the file is writable: migrated in place first
+    assert report.differences == () and report.engine_changes == () and report.checked == 10
+    conn = open_ledger(db)
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+    assert conn.execute("SELECT batch, form, digest FROM batches ORDER BY batch").fetchall() == digests
+    assert conn.execute("SELECT * FROM verdicts ORDER BY entry").fetchall() == verdicts  # kept where they were
+    assert conn.execute("SELECT count(*) FROM samples WHERE grade IS NOT NULL OR shape IS NOT NULL").fetchone() == (0,)
+    conn.close()
+    assert replay(db).differences == ()
+    # A new batch on top is form 3 (one row a sample), chained to the last form-2 batch.
+    ruleset = sumpwise.load_ruleset(STEP_4_LEDGER.with_name("trend-rules.yaml"))
+    header, *rows = STEP_4_LEDGER.with_name("samples.csv").read_text().splitlines()
+    later = rows[8].replace("T-09", "T-10").replace("2026-02-06", "2026-03-06").replace(",1300,", ",1800,")
+    fix = rows[4].replace(",2.0,", ",2.2,")  # T-05's oxidation retyped
+    _, recorded = grade_into_ledger(db, sumpwise.read_samples(io.StringIO("\n".join([header, later, fix]) + "\n"),
+                                                              "fourth.csv"), ruleset,
+                                    sumpwise.ledger.store.Correction("retyped", "lab desk"))
+    assert (recorded.batch, recorded.new, recorded.corrections) == (4, 1, 1)
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("SELECT form, previous FROM batches WHERE batch = 4").fetchone() == (3, digests[-1][2])
+        assert conn.execute("SELECT count(*) FROM verdicts v JOIN samples s USING (entry) WHERE s.batch = 4"
+                            ).fetchone() == (0,)
+    report = replay(db)
+    assert report.differences == () and report.checked == 12 and report.last_batch == 4
+    # The auditor's queries read both forms alike.
+    assert set(find_samples(db, unit="ST-2")["sample_id"]) >= {"T-09", "T-10"}
+    assert len(unit_history(db, "ST-2")) == len(find_samples(db, unit="ST-2"))
+    fixed_id = fix.split(",")[0]
+    lines = "\n".join(explain_from_ledger(db, fixed_id))
+    assert "retyped" in lines and "lab desk" in lines
+    assert len(recorded_rejects(db)) == 2  # the step-4 reject and conflict, kept

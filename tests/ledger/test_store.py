@@ -50,7 +50,8 @@ def test_same_sample_same_content_adds_nothing(tmp_path, ruleset):
     assert (first.new, first.known, first.corrections) == (9, 0, 0)
     _, again = grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     assert (again.batch, again.new, again.known) == (None, 0, 9)
-    assert _count(db) == 9 and _count(db, "verdicts") == 9 and _count(db, "batches") == 1
+    assert _count(db) == 9 and _count(db, "batches") == 1
+    assert _count(db, "verdicts") == 0  # form 3: each verdict in its sample's row, one row per sample
     assert _count(db, "rulesets") == 1  # the rule set is stored once, by fingerprint
 
 
@@ -156,7 +157,7 @@ def test_sample_values_are_stored_once(tmp_path, ruleset):
             "SELECT s.content, b.columns, b.held, b.form, s.content_sha256, json_array(s.sample_id, s.unit_id, "
             "s.class, s.sampled_on, s.oil_hours, s.oil_changed, s.method, s.lab) "
             "FROM samples s JOIN batches b USING (batch) WHERE sample_id = 'T-09'").fetchone()
-    assert (form, sha) == (2, "")
+    assert (form, sha) == (3, "")
     # the identity columns hold their values; the rest are one array, in the batch's column order
     assert json.loads(held) == ["sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed", "method",
                                 "lab"]
@@ -216,10 +217,9 @@ def test_missing_values_are_stored_as_null(tmp_path, ruleset):
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     with sqlite3.connect(db) as conn:
         kinds = conn.execute("SELECT typeof(kv100), typeof(oxidation), typeof(oil_hours), typeof(level) FROM samples "
-                             "JOIN verdicts USING (entry) WHERE sample_id = 'T-04'").fetchone()
-        unrated = conn.execute("SELECT typeof(level) FROM samples JOIN verdicts USING (entry) "
-                               "WHERE sample_id = 'T-01'").fetchone()
-    # form 2 leaves the reading columns empty: the values are in the sample's array
+                             "WHERE sample_id = 'T-04'").fetchone()
+        unrated = conn.execute("SELECT typeof(level) FROM samples WHERE sample_id = 'T-01'").fetchone()
+    # forms 2 and 3 leave the reading columns empty: the values are in the sample's array
     assert kinds == ("null", "null", "real", "integer") and unrated == ("null",)
 
 
@@ -264,3 +264,25 @@ def test_values_the_typed_columns_do_not_hold_as_written_stay_in_the_array(tmp_p
     assert json.loads(held) == ["sample_id", "unit_id", "class", "sampled_on", "oil_changed", "lab"]
     report = replay(db)
     assert (report.checked, report.differences, report.engine_changes) == (3, (), ())
+
+
+def test_a_bulk_batch_builds_the_same_indexes_after_its_rows(tmp_path, ruleset, monkeypatch):
+    # A batch at least as large as the ledger (and BULK_ROWS) drops the indexes on samples and
+    # creates them again after its rows: the schema must come out as incremental recording leaves it.
+    import sumpwise.ledger.store as store
+    plain, bulk = tmp_path / "plain.db", tmp_path / "bulk.db"
+    grade_into_ledger(plain, sumpwise.read_samples(SAMPLES), ruleset)
+    monkeypatch.setattr(store, "BULK_ROWS", 0)
+    grade_into_ledger(bulk, sumpwise.read_samples(SAMPLES), ruleset)
+    schema = "SELECT type, name, sql FROM sqlite_master ORDER BY name"
+    with sqlite3.connect(plain) as a, sqlite3.connect(bulk) as b:
+        assert a.execute(schema).fetchall() == b.execute(schema).fetchall()
+        assert {"samples_unit", "samples_current", "samples_batch"} <= {
+            row[1] for row in b.execute(schema).fetchall() if row[0] == "index"}
+        assert b.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    from sumpwise.ledger.audit import replay
+    assert replay(bulk).differences == ()
+    # The unique index on current ids still refuses a second current row of an id, bulk or not.
+    with sqlite3.connect(bulk) as conn, pytest.raises(sqlite3.IntegrityError):
+        conn.execute("INSERT INTO samples (batch, sample_id, oil_changed, method, content, content_sha256) "
+                     "SELECT batch, sample_id, oil_changed, method, content, '' FROM samples LIMIT 1")

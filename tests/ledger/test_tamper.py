@@ -1,5 +1,9 @@
 """Tamper evidence: every stored column altered in turn, a batch deleted, a row inserted.
 
+Both storage forms a ledger holds today are covered: a new ledger (form-3 batches, each
+verdict in its sample's row) and a ledger written at schema step 4 (form-2 batches, verdicts
+in their own table; tests/data/ledger/brackwater-v4.db) migrated, with a form-3 batch on top.
+
 The alterations are made with sqlite3 from the standard library, behind sumpwise's back,
 the way someone with the file and a SQLite shell could; replay must name each one.
 """
@@ -7,6 +11,7 @@ the way someone with the file and a SQLite shell could; replay must name each on
 from __future__ import annotations
 
 import io
+import shutil
 import sqlite3
 
 import pytest
@@ -21,6 +26,8 @@ from tests.conftest import DATA, run_cli
 RULES = DATA / "ledger" / "trend-rules.yaml"
 SAMPLES = DATA / "ledger" / "samples.csv"
 TABLES = ("rulesets", "batches", "samples", "verdicts", "shapes", "shape_rules", "rejects")
+NEW_TABLES = tuple(t for t in TABLES if t != "verdicts")  # a new ledger keeps every verdict in its sample's row
+STEP_4_LEDGER = DATA / "ledger" / "brackwater-v4.db"
 
 
 def _batch(text: str, name: str):
@@ -45,11 +52,28 @@ def clean(tmp_path_factory):
     return db
 
 
-def _schema_columns() -> list[str]:
-    """Every column of every table of a new ledger, read from SQLite itself."""
+@pytest.fixture(scope="module")
+def mixed(tmp_path_factory):
+    """The step-4 ledger migrated, then a form-3 batch on top: a new sample, a correction of a
+    form-2 sample and a rejected row."""
+    db = tmp_path_factory.mktemp("ledger") / "mixed.db"
+    shutil.copyfile(STEP_4_LEDGER, db)
+    ruleset = sumpwise.load_ruleset(RULES)
+    header, *rows = SAMPLES.read_text().splitlines()
+    later = rows[8].replace("T-09", "T-10").replace("2026-02-06", "2026-03-06").replace(",1300,", ",1800,")
+    bad = "T-98,ST-2,steam-turbine,TEST-46,2026-04-06,2000,46.2,x,2.0,direct,lab-a,false"
+    _, fourth = grade_into_ledger(db, _batch("\n".join([header, later, rows[4].replace(",2.0,", ",2.2,"), bad]) + "\n",
+                                             "fourth.csv"), ruleset, Correction("retyped", "lab desk"))
+    assert (fourth.batch, fourth.new, fourth.corrections, fourth.rejected) == (4, 1, 1, 1)
+    assert replay(db).differences == ()
+    return db
+
+
+def _schema_columns(tables) -> list[str]:
+    """Every column of these tables of a new ledger, read from SQLite itself."""
     conn = sqlite3.connect(":memory:", isolation_level=None)
     migrate(conn)
-    return [f"{table}.{row[1]}" for table in TABLES for row in conn.execute(f"PRAGMA table_info({table})")]
+    return [f"{table}.{row[1]}" for table in tables for row in conn.execute(f"PRAGMA table_info({table})")]
 
 
 def _altered(value):
@@ -69,22 +93,60 @@ def _copy(clean, tmp_path):
     return db
 
 
-def test_the_clean_ledger_has_every_table_filled(clean):
+def test_the_clean_ledgers_have_every_table_filled(clean, mixed):
     with sqlite3.connect(clean) as conn:
+        for table in NEW_TABLES:
+            assert conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0] > 0, table
+        assert conn.execute("SELECT count(*) FROM verdicts").fetchone()[0] == 0
+        assert conn.execute("SELECT count(*) FROM samples WHERE grade IS NULL OR shape IS NULL").fetchone()[0] == 0
+    with sqlite3.connect(mixed) as conn:
         for table in TABLES:
             assert conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0] > 0, table
+        assert conn.execute("SELECT form, count(*) FROM batches GROUP BY form").fetchall() == [(2, 3), (3, 1)]
 
 
-@pytest.mark.parametrize("stored", _schema_columns())
-def test_altering_any_stored_column_is_caught(clean, tmp_path, stored):
+def _alter_first(db, stored: str, where: str = "1"):
+    """The first row's (of those `where` picks) value of `stored` altered; (before, after)."""
     table, column = stored.split(".")
-    db = _copy(clean, tmp_path)
     with sqlite3.connect(db) as conn:
         key = "rowid" if table != "shape_rules" else "shape"
-        first, value = conn.execute(f"SELECT {key}, {column} FROM {table} ORDER BY {key} LIMIT 1").fetchone()
+        first, value = conn.execute(f"SELECT {key}, {column} FROM {table} WHERE {where} ORDER BY {key} "
+                                    f"LIMIT 1").fetchone()
         conn.execute(f"UPDATE {table} SET {column} = ? WHERE {key} = ?", (_altered(value), first))
+    return value, _altered(value)
+
+
+@pytest.mark.parametrize("stored", _schema_columns(NEW_TABLES))
+def test_altering_any_stored_column_is_caught(clean, tmp_path, stored):
+    db = _copy(clean, tmp_path)
+    before, after = _alter_first(db, stored)
+    assert replay(db).differences, f"{stored}: {before!r} -> {after!r} went unnoticed"
+
+
+@pytest.mark.parametrize("stored", _schema_columns(TABLES))
+def test_altering_any_stored_column_of_a_migrated_step_4_ledger_is_caught(mixed, tmp_path, stored):
+    # The first row of each table is a form-2 one: its verdict columns in `samples` are empty.
+    db = _copy(mixed, tmp_path)
+    before, after = _alter_first(db, stored)
+    assert replay(db).differences, f"{stored}: {before!r} -> {after!r} went unnoticed"
+
+
+@pytest.mark.parametrize("column", ["grade", "level", "shape", "vals", "sample_id", "content", "corrects"])
+def test_altering_a_form_3_sample_of_a_migrated_ledger_is_caught(mixed, tmp_path, column):
+    db = _copy(mixed, tmp_path)
+    before, after = _alter_first(db, f"samples.{column}", "batch = 4")
     found = replay(db).differences
-    assert found, f"{stored}: {value!r} -> {_altered(value)!r} went unnoticed"
+    assert any(d.batch == 4 for d in found), f"{column}: {before!r} -> {after!r} went unnoticed"
+
+
+def test_a_form_2_verdict_copied_into_its_sample_row_is_caught(mixed, tmp_path):
+    # Readers take a form-2 sample's verdict from `verdicts`; a verdict put in its row is named anyway.
+    db = _copy(mixed, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("UPDATE samples SET grade = 'urgent' WHERE entry = (SELECT min(entry) FROM samples)")
+    found = [(d.batch, d.what) for d in replay(db).differences]
+    assert (1, "a verdict in the sample's row, which its batch's storage form keeps in the verdicts table "
+               "(added?)") in found
 
 
 def test_a_deleted_batch_is_caught(clean, tmp_path):
@@ -117,7 +179,8 @@ def test_the_newest_batch_deleted_changes_the_head_a_reader_noted(clean, tmp_pat
 def test_an_inserted_sample_is_caught(clean, tmp_path):
     db = _copy(clean, tmp_path)
     with sqlite3.connect(db) as conn:
-        columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)") if row[1] != "entry"]
+        columns = [row[1] for row in conn.execute("PRAGMA table_info(samples)")
+                   if row[1] not in ("entry", "grade", "level", "shape", "vals")]  # a sample with no verdict
         picked = ["'T-50'" if c == "sample_id" else "replace(content, 'T-02', 'T-50')" if c == "content" else c
                   for c in columns]
         conn.execute(f"INSERT INTO samples ({', '.join(columns)}) SELECT {', '.join(picked)} FROM samples "
@@ -132,12 +195,23 @@ def test_an_inserted_sample_is_caught(clean, tmp_path):
 def test_an_inserted_verdict_and_rule_set_are_caught(clean, tmp_path):
     db = _copy(clean, tmp_path)
     with sqlite3.connect(db) as conn:
-        conn.execute("INSERT INTO verdicts SELECT entry + 1000, grade, level, shape, vals FROM verdicts LIMIT 1")
+        conn.execute("INSERT INTO verdicts SELECT entry + 1000, grade, level, shape, vals FROM samples LIMIT 1")
         conn.execute("INSERT INTO rulesets SELECT 'f' || substr(sha256, 2), ruleset_id, version, canonical "
                      "FROM rulesets")
     whats = [d.what for d in replay(db).differences]
     assert any(w.startswith("a verdict of no sample") for w in whats)
     assert any(w.startswith("a stored rule set that no batch was graded with") for w in whats)
+
+
+def test_a_verdicts_row_added_for_a_form_3_sample_is_caught(clean, tmp_path):
+    # Form 3 keeps the verdict in the sample's row; digest 3 counts any `verdicts` row of its samples.
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("INSERT INTO verdicts SELECT entry, 'normal', 0, shape, vals FROM samples WHERE batch = 2 "
+                     "LIMIT 1")
+    found = [(d.batch, d.what) for d in replay(db).differences]
+    assert (2, "its stored rows no longer match the batch's digest (a row altered, added or deleted after "
+               "recording)") in found
 
 
 def test_replay_reads_without_writing(clean, tmp_path):
@@ -155,7 +229,7 @@ def _forge(db, engine: str, rechain: bool) -> None:
     with sqlite3.connect(db, isolation_level=None) as conn:
         entry, batch = conn.execute("SELECT entry, batch FROM samples WHERE sample_id = 'T-04' "
                                     "AND superseded_in IS NULL").fetchone()
-        conn.execute("UPDATE verdicts SET grade = 'normal', level = 0 WHERE entry = ?", (entry,))
+        conn.execute("UPDATE samples SET grade = 'normal', level = 0 WHERE entry = ?", (entry,))
         conn.execute("UPDATE batches SET engine = ? WHERE batch = ?", (engine, batch))
         if rechain:
             chain(conn, 1)
@@ -199,10 +273,11 @@ def test_a_recomputed_chain_shows_against_the_noted_head_and_strict_fails_on_eng
     assert run_cli("replay", "--db", clean, "--head", "3:abc").code == 2  # a usage error, not a finding
 
 
-@pytest.mark.parametrize("form", [1, 3])
+@pytest.mark.parametrize("form", [1, 2, 4])
 def test_a_batch_passed_off_as_another_storage_form_is_caught(clean, tmp_path, form):
-    # Form 1 would verify the batch under digest 1 and read its values as JSON objects; an
-    # unknown form under digest 2: either way the digest no longer holds, and nothing crashes.
+    # Form 1 would verify the batch under digest 1 and read its values as JSON objects, form 2
+    # read its verdicts from `verdicts`; an unknown form is verified under digest 3: either way
+    # the digest (which covers the form) no longer holds, and nothing crashes.
     db = _copy(clean, tmp_path)
     with sqlite3.connect(db) as conn:
         conn.execute("UPDATE batches SET form = ? WHERE batch = 2", (form,))
