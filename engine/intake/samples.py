@@ -342,7 +342,15 @@ def _text_column(column: pd.Series) -> pd.Series:
     return pd.Series(cleaned[codes], index=column.index, dtype=object)
 
 
-_NUMBER_LEADS = list("0123456789.-+")
+_NUMBER_LEADS = np.array([ord(c) for c in "0123456789.-+"], dtype=np.uint32)
+
+
+def _first_characters(text: np.ndarray) -> np.ndarray:
+    """Each cell's first character as its code point (0 for an empty cell), read from the
+    fixed-width array's buffer: a slice of every cell would copy the column."""
+    if text.dtype.itemsize == 0 or not len(text):
+        return np.zeros(len(text), dtype=np.uint32)
+    return np.ascontiguousarray(text).view(np.uint32).reshape(len(text), -1)[:, 0]
 
 
 def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, pd.Series | None, np.ndarray]:
@@ -362,7 +370,7 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
         is_bool = np.fromiter((isinstance(v, bool) for v in values), dtype=bool, count=len(values))
     text = np.strings.strip(np.where(present & ~is_bool, values, "").astype(str))
     spelled = np.strings.replace(text, decimal, ".") if decimal != "." else text
-    looks = np.isin(np.strings.slice(spelled, 0, 1), _NUMBER_LEADS)
+    looks = np.isin(_first_characters(spelled), _NUMBER_LEADS)
     if decimal != ".":  # a '.' written where ',' is the decimal mark (`1.500`) is not read: 1.5 or 1500?
         kind = pd.api.types.infer_dtype(values, skipna=True)
         written = present if kind == "string" else np.fromiter((isinstance(v, str) for v in values), dtype=bool,
@@ -370,7 +378,8 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
         looks &= ~(written & (np.strings.find(text, ".") >= 0))
     parsed = np.full(len(values), np.nan)
     try:
-        parsed[looks] = np.array(spelled[looks].tolist(), dtype=float)  # Python's float(), twice numpy's speed
+        cells = spelled[looks].tolist()  # Python's float() a cell: twice numpy's own parse, and what it accepts
+        parsed[looks] = np.fromiter(map(float, cells), dtype=float, count=len(cells))
     except ValueError:  # a cell like `1.2.3` or `12 ppm`: convert cell by cell, badly formed ones become NaN
         parsed[looks] = pd.to_numeric(spelled[looks].astype(object), errors="coerce")
     not_a_number = ((text != "") | is_bool) & np.isnan(parsed)
