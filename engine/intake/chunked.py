@@ -18,8 +18,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.readers import ENCODING_HINT, detect_decimal, detect_delimiter
-from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, read_samples
+from sumpwise.intake.readers import ENCODING_HINT, detect_delimiter
+from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, detected_decimal, read_samples
 from sumpwise.vocabulary.problems import InputError
 
 DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
@@ -73,9 +73,9 @@ def _marks_of_the_file(columns: ColumnMap | None, text: str) -> ColumnMap:
     after it: a later chunk whose first lines hold no `46,1` would otherwise take '.' and
     reject its decimal-comma numbers."""
     columns = columns or ColumnMap()
-    head = text[: 1 << 16].splitlines()
+    head = text[: 1 << 16].splitlines()  # line ends of any kind, as the readers take them
     delimiter = columns.option("delimiter") or (detect_delimiter(head[0]) if head else ",")
-    decimal = columns.option("decimal") or detect_decimal(head, delimiter)
+    decimal = columns.option("decimal") or detected_decimal(text, delimiter)
     return replace(columns, options={**columns.options, "delimiter": delimiter, "decimal": decimal})
 
 

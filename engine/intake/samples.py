@@ -97,7 +97,7 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
             if fmt == "jsonl":
                 raw = read_jsonl(text, lab_numeric)
             else:
-                decimal = columns.option("decimal") or _detected_decimal(text, columns.option("delimiter"))
+                decimal = columns.option("decimal") or detected_decimal(text, columns.option("delimiter"))
                 raw = read_csv(text, lab_numeric, columns.option("delimiter"), decimal, data if utf8 else None)
                 if columns.option("decimal") is None and decimal != ".":
                     raw.notes.append(f"detected the decimal mark {decimal!r} from the data")
@@ -108,9 +108,10 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
 
 
-def _detected_decimal(text: str, delimiter: str | None) -> str:
+def detected_decimal(text: str, delimiter: str | None) -> str:
     """The decimal mark the data show (readers.detect_decimal), found once here so that the cells
-    the CSV parser leaves as text are read with the same mark as the numbers it parses."""
+    the CSV parser leaves as text are read with the same mark as the numbers it parses (and
+    so that the chunks of a file all take the mark its first chunk shows)."""
     head = text[: 1 << 16].splitlines()
     if not head:
         return "."
