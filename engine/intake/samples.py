@@ -142,8 +142,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     number of each frame row (1, 2, ... when not given).
     """
     columns = columns or ColumnMap()
-    skipped = [s if len(s) == 4 else (*s[:3], "(row)") if len(s) == 3 else (s[0], s[1], "D001", "(row)")
-               for s in skipped]
+    skipped = [(*s, *("D001", "(row)")[len(s) - 2:]) for s in skipped]  # code and field where not given
     rows = _row_numbers(raw, skipped) if rows is None else np.asarray(rows, dtype=np.int64)
     notes = list(notes)
     try:

@@ -93,13 +93,19 @@ def _pretend_read_only(monkeypatch, folder):
     monkeypatch.setattr(store.os, "access", access)
 
 
-def test_a_read_only_ledger_is_read_and_writing_to_it_exits_2(tmp_path, monkeypatch):
-    db = _ledger(tmp_path)
+def _ledger_in_one_file(folder):
+    """A ledger whose write-ahead log is checkpointed and gone, as an archived copy is kept."""
+    db = _ledger(folder)
     with sqlite3.connect(db) as conn:
         conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     conn.close()
     for side in ("-wal", "-shm"):
-        (tmp_path / f"ledger.db{side}").unlink(missing_ok=True)
+        (folder / f"ledger.db{side}").unlink(missing_ok=True)
+    return db
+
+
+def test_a_read_only_ledger_is_read_and_writing_to_it_exits_2(tmp_path, monkeypatch):
+    db = _ledger_in_one_file(tmp_path)
     before = db.read_bytes()
     _pretend_read_only(monkeypatch, tmp_path)
     for command in READERS:
@@ -115,12 +121,7 @@ def test_a_read_only_ledger_is_read_and_writing_to_it_exits_2(tmp_path, monkeypa
 def test_a_ledger_in_a_truly_read_only_folder_is_read(tmp_path):
     folder = tmp_path / "archive"
     folder.mkdir()
-    db = _ledger(folder)
-    with sqlite3.connect(db) as conn:
-        conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
-    conn.close()
-    for side in ("-wal", "-shm"):
-        (folder / f"ledger.db{side}").unlink(missing_ok=True)
+    db = _ledger_in_one_file(folder)
     db.chmod(stat.S_IRUSR)
     folder.chmod(stat.S_IRUSR | stat.S_IXUSR)
     try:

@@ -120,21 +120,24 @@ def test_dup_count_read_short_fails_the_y_check():
     assert error.line == 15 and "Y-check failed" in error.reason and "202" in error.reason
 
 
+def _affn_lines(tmp_path):
+    """An oil spectrum written as AFFN JCAMP-DX: its lines, and the index of its ##XYDATA line."""
+    x = wavenumber_grid(550, 4000, 2.0)
+    lines = write_jcampdx(tmp_path / "a.jdx", x, oil_spectrum(x), form="AFFN").read_text().split("\n")
+    return lines, lines.index("##XYDATA=(X++(Y..Y))")
+
+
 def test_value_lost_mid_file_without_y_check_is_caught_at_the_next_line(tmp_path):
     # AFFN has no Y-check: drop the last two values of data line 5; line 6's X then sits two points off,
     # beyond the one DELTAX a checkpoint may be off (issue 11).
-    x = wavenumber_grid(550, 4000, 2.0)
-    lines = write_jcampdx(tmp_path / "a.jdx", x, oil_spectrum(x), form="AFFN").read_text().split("\n")
-    data = lines.index("##XYDATA=(X++(Y..Y))")
+    lines, data = _affn_lines(tmp_path)
     lines[data + 5] = lines[data + 5].rsplit(" ", 2)[0]
     error = _error("\n".join(lines))
     assert error.line == data + 7 and "missing or extra" in error.reason
 
 
 def test_one_value_lost_is_caught_by_the_count(tmp_path):
-    x = wavenumber_grid(550, 4000, 2.0)
-    lines = write_jcampdx(tmp_path / "a.jdx", x, oil_spectrum(x), form="AFFN").read_text().split("\n")
-    data = lines.index("##XYDATA=(X++(Y..Y))")
+    lines, data = _affn_lines(tmp_path)
     lines[data + 5] = lines[data + 5].rsplit(" ", 1)[0]
     error = _error("\n".join(lines))
     assert "NPOINTS=1726" in error.reason and "1725 points" in error.reason
