@@ -118,8 +118,8 @@ def test_repeated_codes_and_lab_column_names_read_as_json_reads_them(tmp_path, c
 
 
 def test_a_key_given_twice_with_two_values_rejects_its_row_naming_the_key():
-    # RFC 8259 section 4: names within an object SHOULD be unique, and with duplicates "the
-    # behavior of software that receives such an object is unpredictable"; Python's json
+    # RFC 8259 section 4 (wording from memory): names within an object SHOULD be unique, and with
+    # duplicates the behaviour of software that receives such an object is unpredictable; Python's json
     # module (the reference here) keeps the last value, which would grade water 9000 ppm.
     rows = [dict(LAB_ROWS[0]), dict(LAB_ROWS[1])]
     text = _lines(rows)
