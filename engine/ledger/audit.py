@@ -26,8 +26,8 @@ import pandas as pd
 
 from sumpwise.derive.trends import trend_bases
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_SAMPLE_COLUMNS, batch_digest, fingerprint,  # noqa: F401 (API)
-                                    result_from_record)
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_SAMPLE_COLUMNS,  # noqa: F401 (API)
+                                    batch_digest, fingerprint, result_from_record)
 from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, batch_list,
                                    batch_rejects, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
@@ -355,6 +355,14 @@ def _same(a: np.ndarray, b: np.ndarray, numeric: bool) -> np.ndarray:
     return (gone_a & gone_b) | equal
 
 
+def _levels(stored: np.ndarray) -> np.ndarray:
+    """Stored levels as floats, NaN for none: integers (and None) directly, anything else (an
+    altered row) as pandas reads a number, NaN where it reads none."""
+    if set(map(type, stored.tolist())) <= {int, type(None)}:
+        return np.array(stored, dtype=float)  # None reads as NaN
+    return pd.to_numeric(pd.Series(stored, dtype=object), errors="coerce").to_numpy(dtype=float)
+
+
 def _facts_differ(stored: dict, facts, k: int) -> str:
     """What differs between row k's stored verdict and its replayed facts (a row known to differ)."""
     level = int(facts.levels[k])
@@ -416,12 +424,14 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
     previous, last = "", None
     try:
         differences += _ledger_findings(conn)
+        shapes = {shape: (sha, facts) for shape, sha, facts in conn.execute("SELECT shape, sha256, facts FROM shapes")}
+        no_verdicts = conn.execute("SELECT NOT EXISTS (SELECT 1 FROM verdicts)").fetchone()[0]
         for batch in batch_list(conn):
             number = batch["batch"]
             if batch["previous"] != previous:
                 differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
                                                             "one before it (a batch was deleted, added or altered)"))
-            entries, columns = batch_entries(conn, number, batch["form"])
+            entries, columns = batch_entries(conn, number, batch["form"], shapes)
             if batch["form"] == 1:
                 written = {1: list(zip(*(columns[n] for n in ("entry", "sample_id", "content_sha256", "corrects"))))}
             elif batch["form"] == 2:
@@ -430,6 +440,8 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                            4: columns["used_shapes"]}
             else:
                 written = {1: [columns[n] for n in DIGEST_3_SAMPLE_COLUMNS], 3: columns["used_shapes"]}
+                if no_verdicts:
+                    written[2] = [[conn.execute(DIGEST_3_FILLED, (number,)).fetchone()[0]]]
             del columns
             digest = batch_digest(conn, number, written)
             if digest != batch["digest"]:
@@ -494,20 +506,22 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
             frame = frame_from_contents(entries["content"], json.loads(batch["columns"]))
         else:
             held = json.loads(batch["held"])
-            frame = frame_from_arrays(entries["content"], json.loads(batch["columns"]), held,
-                                      {name: entries[name].tolist() for name in held})
+            frame = frame_from_arrays(entries["content"].tolist(), json.loads(batch["columns"]), held,
+                                      {name: entries[name].to_numpy(dtype=object) for name in held})
     except (ValueError, TypeError, AssertionError):
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
                                          "recording); its samples were not re-graded")]
     units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
     history = history_frame(conn, units, ruleset, before_batch=number)
-    history = history[~history["sample_id"].isin(entries["sample_id"])]
-    graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
+    if len(history):
+        history = history[~history["sample_id"].isin(entries["sample_id"])]
+    # No forecasts: a verdict's facts hold none, and replay compares facts.
+    graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history, forecasts=False)
     typed = _typed_mismatch(entries, graded.measured, frame, form, json.loads(batch["held"]) if form != 1 else [])
     facts = batch_facts(graded, json.loads(batch["value_names"]))
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
               "vals": entries["vals"].to_numpy(dtype=object),
-              "level": pd.to_numeric(entries["level"], errors="coerce").to_numpy(dtype=float)}
+              "level": _levels(entries["level"].to_numpy(dtype=object))}
     replayed_level = np.where(facts.levels >= 0, facts.levels, np.nan)
     shapes = np.array(facts.shapes, dtype=object)[facts.shape_of] if len(facts.shapes) else stored["facts"][:0]
     same_level = (stored["level"] == replayed_level) | (np.isnan(stored["level"]) & np.isnan(replayed_level))

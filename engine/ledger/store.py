@@ -495,15 +495,18 @@ def measures_of(frame: pd.DataFrame | None, ruleset: RuleSet, also: tuple = ()) 
 
 
 def frame_from_arrays(contents, columns: list, held: list, typed: dict) -> pd.DataFrame:
-    """A form-2 batch's stored values (its arrays, and its `held` columns from `typed`: lists as
-    SQLite gave them) back into the frame frame_from_contents makes of the same values as
-    objects (a column no row has is float NaN; text and flags keep None)."""
+    """A form-2 batch's stored values (its arrays, and its `held` columns from `typed`: lists or
+    object arrays of what SQLite gave) back into the frame frame_from_contents makes of the same
+    values as objects (a column no row has is float NaN; text and flags keep None)."""
     contents = list(contents)
     index = pd.RangeIndex(1, len(contents) + 1, name="row")
     frame = pd.DataFrame(json.loads("[" + ",".join(contents) + "]") if contents else [],
                          columns=[c for c in columns if c not in held], index=index)
     for name in held:
         values = typed[name]
+        if name != "oil_hours" and isinstance(values, np.ndarray) and \
+                pd.api.types.infer_dtype(values, skipna=True) not in ("string", "empty"):
+            values = values.tolist()  # read as a list is: pandas keeps an object array's numbers as objects
         frame[name] = (np.array(values, dtype=bool) if name == "oil_changed" else
                        pd.Series(values, index=index, dtype=float if name == "oil_hours" else None))
     frame = frame[columns]
@@ -718,17 +721,20 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
 
-def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.DataFrame, dict]:
+def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
+                  shapes: dict | None = None) -> tuple[pd.DataFrame, dict]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
     (from `verdicts` for forms 1 and 2, None where a sample has none; from the sample's row for
-    form 3); and the columns its digest covers, as lists of what SQLite gave (each row is read
-    once). The frame has only the columns its form stores (a form-2 or form-3 batch's digest
-    counts any reading column that is not empty)."""
+    form 3); and the columns its digest covers, as object arrays of what SQLite gave (each row
+    is read once, into one table the frame's columns are views of). The frame has only the
+    columns its form stores (a form-2 or form-3 batch's digest counts any reading column that
+    is not empty). `shapes` (shape -> (sha256, facts), the whole table, read once by the
+    caller) spares a form-3 batch the join that finds the shapes its samples use."""
     names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS)
-    names += ("superseded_in",)
     rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
-    columns = dict(zip(names, ([list(column) for column in zip(*rows)] if rows else [[] for _ in names])))
+    table = np.array(rows, dtype=object) if rows else np.empty((0, len(names)), dtype=object)
     del rows
+    columns = {name: table[:, k] for k, name in enumerate(names)}
     verdict = ("grade", "level", "shape", "vals")
     if form in (1, 2):
         rows = conn.execute("SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s JOIN verdicts v "
@@ -739,18 +745,21 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.D
         used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN verdicts v "
                             "ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? "
                             "ORDER BY sh.shape", (batch,)).fetchall()
+    elif shapes is not None:  # as the join below: the distinct shape ids that name a stored shape, in order
+        used = [(shape, *shapes[shape]) for shape in sorted(s for s in set(columns["shape"].tolist()) if s in shapes)]
     else:
         used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN shapes sh "
                             "ON sh.shape = s.shape WHERE s.batch = ? ORDER BY sh.shape", (batch,)).fetchall()
     columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
     facts = {shape: text for shape, _, text in used}
-    frame = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in names if name not in verdict})
+    kept = [name for name in names if name not in verdict]  # the verdict's columns, if any, come last
+    frame = pd.DataFrame(table[:, :len(kept)], columns=kept, dtype=object, copy=False)
     if form in (1, 2):
         verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in ("verdict_entry",) + verdict})
         verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
         stored = {name: verdicts[name].to_numpy(dtype=object) for name in verdict}
     else:
-        stored = {name: np.array(columns[name], dtype=object) for name in verdict}
+        stored = {name: columns[name] for name in verdict}
     for name in ("grade", "level", "vals"):
         frame[name] = stored[name]
     frame["facts"] = pd.Series(stored["shape"], dtype=object).map(facts).to_numpy(dtype=object)  # NaN: shape gone
