@@ -296,3 +296,32 @@ def test_digest_2_spells_different_columns_differently():
     spelled = [_spelled(list(column)) for column in columns]
     assert len(set(spelled)) == len(columns)
     assert _spelled(["a", "b"]) == b"Sa\x00b\x1f" and _spelled(["a", None]) == b'J["a", null]\x1f'
+
+
+@pytest.mark.parametrize("shape", [None, 10_000, "x", 2.5, "1"])
+def test_replay_reads_a_batch_as_the_frozen_digest_queries_do(clean, tmp_path, shape):
+    # Replay finds a form-3 batch's used shapes from the shapes table read once, and counts its
+    # filled reading columns without the verdicts clause while `verdicts` is empty: each must give
+    # what the frozen digest-3 query gives, whatever a sample's shape id was altered to (None:
+    # a reading column filled instead).
+    from sumpwise.ledger.schema import DIGEST_3_FILLED, DIGEST_3_QUERIES
+    from sumpwise.ledger.store import batch_entries
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        if shape is None:
+            conn.execute("UPDATE samples SET kv40 = 46.0 WHERE entry = (SELECT min(entry) FROM samples WHERE batch = 2)")
+        else:
+            conn.execute("UPDATE samples SET shape = ? WHERE entry = (SELECT min(entry) FROM samples WHERE batch = 2)",
+                         (shape,))
+        shapes = {row[0]: row[1:] for row in conn.execute("SELECT shape, sha256, facts FROM shapes")}
+        for batch in (1, 2, 3):
+            frame, columns = batch_entries(conn, batch, 3, shapes)
+            joined, joined_columns = batch_entries(conn, batch, 3)
+            used = conn.execute(DIGEST_3_QUERIES[3], (batch,)).fetchall()
+            assert columns["used_shapes"] == joined_columns["used_shapes"] == [[k for k, _ in used],
+                                                                              [sha for _, sha in used]]
+            assert frame["facts"].equals(joined["facts"])
+            assert (conn.execute(DIGEST_3_FILLED, (batch,)).fetchone()
+                    == conn.execute(DIGEST_3_QUERIES[2], (batch,)).fetchone())
+        assert conn.execute(DIGEST_3_FILLED, (2,)).fetchone()[0] == (1 if shape is None else 0)
+    assert replay(db).differences
