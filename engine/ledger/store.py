@@ -375,6 +375,10 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             held.append(name)
             continue
         values = column.to_numpy(dtype=object)
+        if pd.api.types.infer_dtype(values, skipna=False) == "string":  # every value text, none missing
+            if (values == written).all():
+                held.append(name)
+            continue
         missing = pd.isna(values)
         if (not set(map(type, values[~missing].tolist())) <= {str}  # every present value text
                 or not (missing == pd.isna(written)).all()):
@@ -392,6 +396,8 @@ def _nullable(values: np.ndarray) -> list:
         values = values + 0.0  # -0.0 + 0.0 is 0.0
         if not np.isnan(values).any():
             return values.tolist()
+    elif values.dtype == object and pd.api.types.infer_dtype(values, skipna=False) == "string":
+        return values.tolist()  # every value text: none missing
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
 
 
@@ -608,7 +614,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
     history = history_frame(conn, units, ruleset)
-    history = history[~history["sample_id"].isin(ids)]
+    if len(history):
+        history = history[~history["sample_id"].isin(ids)]
     graded = grade_batch(batch, ruleset, history)
     fresh = ~known
     n_conflicts = int(conflicts.sum())
