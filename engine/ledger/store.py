@@ -362,7 +362,6 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             if column.dtype == bool:
                 held.append(name)
             continue
-        written = np.array(typed[name], dtype=object)
         if name == "oil_hours":
             if column.dtype.kind not in "fiu":
                 continue
@@ -376,9 +375,10 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             continue
         values = column.to_numpy(dtype=object)
         if pd.api.types.infer_dtype(values, skipna=False) == "string":  # every value text, none missing
-            if (values == written).all():
+            if values.tolist() == typed[name]:
                 held.append(name)
             continue
+        written = np.array(typed[name], dtype=object)
         missing = pd.isna(values)
         if (not set(map(type, values[~missing].tolist())) <= {str}  # every present value text
                 or not (missing == pd.isna(written)).all()):
