@@ -728,6 +728,11 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
 
+# Text columns with few distinct values among many rows: replay keeps one object a value (SQLite gives
+# a TEXT column back as text, NULL or a blob, so values that compare equal are the same value).
+_REPEATED = ("unit_id", "class", "sampled_on", "method", "lab", "grade")
+
+
 def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
                   shapes: dict | None = None) -> tuple[pd.DataFrame, dict]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
@@ -741,6 +746,10 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
     rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
     table = np.array(rows, dtype=object) if rows else np.empty((0, len(names)), dtype=object)
     del rows
+    for k, name in enumerate(names):
+        if name in _REPEATED:
+            once: dict = {}
+            table[:, k] = [once.setdefault(value, value) for value in table[:, k].tolist()]
     columns = {name: table[:, k] for k, name in enumerate(names)}
     verdict = ("grade", "level", "shape", "vals")
     if form in (1, 2):
