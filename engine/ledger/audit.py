@@ -561,26 +561,37 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
 
 def _ledger_findings(conn) -> list:
     """Rows that belong to no batch, verdicts of no sample, and corrections that do not pair up."""
+    # One pass over the samples finds those of no batch and every row a correction involves (the
+    # pairing is checked below, as the SQL `(entry, superseded_in) NOT IN (corrects, batch)` and
+    # `NOT EXISTS` would: SQLite gives these INTEGER columns back as numbers, or as text that
+    # equals no number, and Python compares them alike).
+    rows = conn.execute("SELECT s.sample_id, s.batch, b.batch IS NULL, s.entry, s.superseded_in, s.corrects "
+                        "FROM samples s LEFT JOIN batches b ON b.batch = s.batch WHERE b.batch IS NULL OR "
+                        "s.superseded_in IS NOT NULL OR s.corrects IS NOT NULL ORDER BY s.entry").fetchall()
+    pairs = {(corrects, batch) for _, batch, _, _, _, corrects in rows if corrects is not None}
+    superseded = {entry: later for _, _, _, entry, later, _ in rows if later is not None}
+    no_batch = "recorded in a batch that is not in the ledger (its batch was deleted)"
+    found = [Difference(sid, batch, no_batch) for sid, batch, orphan, *_ in rows if orphan]
     checks = (
-        ("SELECT s.sample_id, s.batch FROM samples s LEFT JOIN batches b ON b.batch = s.batch WHERE b.batch IS NULL",
-         "recorded in a batch that is not in the ledger (its batch was deleted)"),
         ("SELECT NULL, v.entry FROM verdicts v LEFT JOIN samples s ON s.entry = v.entry WHERE s.entry IS NULL",
          "a verdict of no sample (added, or its sample deleted)"),
         ("SELECT r.sample_id, r.batch FROM rejects r LEFT JOIN batches b ON b.batch = r.batch WHERE b.batch IS NULL",
          "a rejected row of a batch that is not in the ledger"),
-        ("SELECT s.sample_id, s.batch FROM samples s WHERE s.superseded_in IS NOT NULL AND (s.entry, s.superseded_in) "
-         "NOT IN (SELECT c.corrects, c.batch FROM samples c WHERE c.corrects IS NOT NULL)",
-         "marked as corrected, but no correction of it was recorded"),
-        ("SELECT c.sample_id, c.batch FROM samples c WHERE c.corrects IS NOT NULL AND NOT EXISTS "
-         "(SELECT 1 FROM samples s WHERE s.entry = c.corrects AND s.superseded_in = c.batch)",
-         "a correction whose corrected version is not marked as corrected by it"),
+    )
+    for query, what in checks:
+        found.extend(Difference(row[0], row[1], what) for row in conn.execute(query).fetchall())
+    found.extend(Difference(sid, batch, "marked as corrected, but no correction of it was recorded")
+                 for sid, batch, _, entry, later, _ in rows if later is not None and (entry, later) not in pairs)
+    found.extend(Difference(sid, batch, "a correction whose corrected version is not marked as corrected by it")
+                 for sid, batch, _, _, _, corrects in rows
+                 if corrects is not None and (corrects not in superseded or superseded[corrects] != batch))
+    checks = (
         ("SELECT s.sample_id, s.batch FROM samples s WHERE s.batch IN (SELECT batch FROM batches WHERE form < 3) "
          "AND (s.grade IS NOT NULL OR s.level IS NOT NULL OR s.shape IS NOT NULL OR s.vals IS NOT NULL)",
          "a verdict in the sample's row, which its batch's storage form keeps in the verdicts table (added?)"),
         ("SELECT NULL, NULL, sha256 FROM rulesets WHERE sha256 NOT IN (SELECT ruleset_sha256 FROM batches)",
          "a stored rule set that no batch was graded with (added after recording?)"),
     )
-    found = []
     for query, what in checks:
         for row in conn.execute(query).fetchall():
             note = f" ({row[2][:12]}...)" if len(row) > 2 else ""

@@ -325,3 +325,34 @@ def test_replay_reads_a_batch_as_the_frozen_digest_queries_do(clean, tmp_path, s
                     == conn.execute(DIGEST_3_QUERIES[2], (batch,)).fetchone())
         assert conn.execute(DIGEST_3_FILLED, (2,)).fetchone()[0] == (1 if shape is None else 0)
     assert replay(db).differences
+
+
+@pytest.mark.parametrize("alteration", [
+    "UPDATE samples SET superseded_in = 2 WHERE entry = 2",  # marked as corrected, by no correction
+    "UPDATE samples SET corrects = 1 WHERE entry = (SELECT max(entry) FROM samples)",  # corrects a current sample
+    "UPDATE samples SET corrects = 'x' WHERE corrects IS NOT NULL",
+    "UPDATE samples SET superseded_in = 3.5 WHERE superseded_in IS NOT NULL",
+    "DELETE FROM batches WHERE batch = 2",
+])
+def test_the_ledger_wide_checks_find_what_their_sql_finds(clean, tmp_path, alteration):
+    # Replay finds the samples of no batch and the corrections that do not pair up in one pass over
+    # the samples; each finding must be what these queries (the checks as SQL) return, in order.
+    from sumpwise.ledger.audit import _ledger_findings
+    queries = (
+        ("SELECT s.sample_id, s.batch FROM samples s LEFT JOIN batches b ON b.batch = s.batch WHERE b.batch IS NULL "
+         "ORDER BY s.entry", "recorded in a batch that is not in the ledger"),
+        ("SELECT s.sample_id, s.batch FROM samples s WHERE s.superseded_in IS NOT NULL AND (s.entry, s.superseded_in) "
+         "NOT IN (SELECT c.corrects, c.batch FROM samples c WHERE c.corrects IS NOT NULL) ORDER BY s.entry",
+         "marked as corrected, but no correction"),
+        ("SELECT c.sample_id, c.batch FROM samples c WHERE c.corrects IS NOT NULL AND NOT EXISTS "
+         "(SELECT 1 FROM samples s WHERE s.entry = c.corrects AND s.superseded_in = c.batch) ORDER BY c.entry",
+         "a correction whose corrected version"),
+    )
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("PRAGMA foreign_keys = OFF")
+        conn.execute(alteration)
+        found = _ledger_findings(conn)
+        expected = [(sid, batch, what) for query, what in queries for sid, batch in conn.execute(query).fetchall()]
+    got = [(d.sample_id, d.batch, what) for d in found for _, what in queries if d.what.startswith(what)]
+    assert got == expected and expected
