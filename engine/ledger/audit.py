@@ -444,6 +444,7 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                     written[2] = [[conn.execute(DIGEST_3_FILLED, (number,)).fetchone()[0]]]
             del columns
             digest = batch_digest(conn, number, written)
+            del written  # views of the batch's rows, as `entries` is until its stored values are read
             if digest != batch["digest"]:
                 differences.append(Difference(None, number, "its stored rows no longer match the batch's digest "
                                                             "(a row altered, added or deleted after recording)"))
@@ -478,7 +479,9 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                                    for sid in entries["sample_id"][wanted])
                 checked += int(wanted.sum())
                 continue
-            differences += _batch_findings(conn, batch, entries, ruleset, wanted, intact)
+            frame, altered = _stored_values(batch, entries)
+            entries = entries.drop(columns="content").copy()  # a copy: the rows read back, and their texts, can go
+            differences += _batch_findings(conn, batch, entries, frame, altered, ruleset, wanted, intact)
             checked += int(wanted.sum())
         if head is not None and (last is None or last < head[0]):
             differences.append(Difference(None, head[0], "the noted head batch is not in the ledger (batches were "
@@ -489,26 +492,33 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                         previous, last, tuple(d for d in differences if d.kind == ENGINE_CHANGE))
 
 
-def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, wanted: np.ndarray,
-                    intact: bool) -> list:
+def _stored_values(batch: dict, entries: pd.DataFrame) -> tuple[pd.DataFrame | None, np.ndarray]:
+    """A batch's stored input values as the frame grading reads (None: they can no longer be
+    read), and which samples' values no longer match their fingerprint (form 1; the digests of
+    later forms cover the values themselves)."""
+    if batch["form"] == 1:
+        altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
+                   != entries["content_sha256"].to_numpy(dtype=object))
+    else:
+        altered = np.zeros(len(entries), dtype=bool)
+    try:
+        if batch["form"] == 1:
+            return frame_from_contents(entries["content"], json.loads(batch["columns"])), altered
+        held = json.loads(batch["held"])
+        return frame_from_arrays(entries["content"].tolist(), json.loads(batch["columns"]), held,
+                                 {name: entries[name].to_numpy(dtype=object) for name in held}), altered
+    except (ValueError, TypeError, AssertionError):
+        return None, altered
+
+
+def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFrame | None, altered: np.ndarray,
+                    ruleset: RuleSet, wanted: np.ndarray, intact: bool) -> list:
     """Each sample's integrity (fingerprint, typed columns, verdict present), then its re-grade.
 
     A re-grade that differs is an engine change only when an older engine recorded it and the
     batch is intact (its digest and place in the chain hold); else it fails the replay."""
     number, form = batch["batch"], batch["form"]
-    if form == 1:
-        altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
-                   != entries["content_sha256"].to_numpy(dtype=object))
-    else:  # form 2: the digest covers the values themselves
-        altered = np.zeros(len(entries), dtype=bool)
-    try:
-        if form == 1:
-            frame = frame_from_contents(entries["content"], json.loads(batch["columns"]))
-        else:
-            held = json.loads(batch["held"])
-            frame = frame_from_arrays(entries["content"].tolist(), json.loads(batch["columns"]), held,
-                                      {name: entries[name].to_numpy(dtype=object) for name in held})
-    except (ValueError, TypeError, AssertionError):
+    if frame is None:
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
                                          "recording); its samples were not re-graded")]
     units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))

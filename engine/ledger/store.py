@@ -738,11 +738,6 @@ def _object_table(rows: list) -> np.ndarray:
     return to_object_array_tuples(rows)
 
 
-# Text columns with few distinct values among many rows: replay keeps one object a value (SQLite gives
-# a TEXT column back as text, NULL or a blob, so values that compare equal are the same value).
-_REPEATED = ("unit_id", "class", "sampled_on", "method", "lab", "grade")
-
-
 def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
                   shapes: dict | None = None) -> tuple[pd.DataFrame, dict]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
@@ -756,10 +751,6 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
     rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
     table = _object_table(rows) if rows else np.empty((0, len(names)), dtype=object)
     del rows
-    for k, name in enumerate(names):
-        if name in _REPEATED:
-            once: dict = {}
-            table[:, k] = [once.setdefault(value, value) for value in table[:, k].tolist()]
     columns = {name: table[:, k] for k, name in enumerate(names)}
     verdict = ("grade", "level", "shape", "vals")
     if form in (1, 2):
