@@ -432,6 +432,7 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                 differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
                                                             "one before it (a batch was deleted, added or altered)"))
             entries, columns = batch_entries(conn, number, batch["form"], shapes)
+            contents = columns["content"]
             if batch["form"] == 1:
                 written = {1: list(zip(*(columns[n] for n in ("entry", "sample_id", "content_sha256", "corrects"))))}
             elif batch["form"] == 2:
@@ -444,7 +445,7 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                     written[2] = [[conn.execute(DIGEST_3_FILLED, (number,)).fetchone()[0]]]
             del columns
             digest = batch_digest(conn, number, written)
-            del written  # views of the batch's rows, as `entries` is until its stored values are read
+            del written  # views of the batch's rows, as `contents` is until the values frame is built
             if digest != batch["digest"]:
                 differences.append(Difference(None, number, "its stored rows no longer match the batch's digest "
                                                             "(a row altered, added or deleted after recording)"))
@@ -479,8 +480,8 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                                    for sid in entries["sample_id"][wanted])
                 checked += int(wanted.sum())
                 continue
-            frame, altered = _stored_values(batch, entries)
-            entries = entries.drop(columns="content").copy()  # a copy: the rows read back, and their texts, can go
+            frame, altered = _stored_values(batch, entries, contents)
+            del contents  # the rows read back, and their texts, go before the re-grade
             differences += _batch_findings(conn, batch, entries, frame, altered, ruleset, wanted, intact)
             checked += int(wanted.sum())
         if head is not None and (last is None or last < head[0]):
@@ -492,20 +493,21 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                         previous, last, tuple(d for d in differences if d.kind == ENGINE_CHANGE))
 
 
-def _stored_values(batch: dict, entries: pd.DataFrame) -> tuple[pd.DataFrame | None, np.ndarray]:
+def _stored_values(batch: dict, entries: pd.DataFrame, contents: np.ndarray) -> tuple[pd.DataFrame | None,
+                                                                                     np.ndarray]:
     """A batch's stored input values as the frame grading reads (None: they can no longer be
     read), and which samples' values no longer match their fingerprint (form 1; the digests of
     later forms cover the values themselves)."""
     if batch["form"] == 1:
-        altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
+        altered = (np.array(list(map(fingerprint, contents.tolist())), dtype=object)
                    != entries["content_sha256"].to_numpy(dtype=object))
     else:
         altered = np.zeros(len(entries), dtype=bool)
     try:
         if batch["form"] == 1:
-            return frame_from_contents(entries["content"], json.loads(batch["columns"])), altered
+            return frame_from_contents(contents.tolist(), json.loads(batch["columns"])), altered
         held = json.loads(batch["held"])
-        return frame_from_arrays(entries["content"].tolist(), json.loads(batch["columns"]), held,
+        return frame_from_arrays(contents.tolist(), json.loads(batch["columns"]), held,
                                  {name: entries[name].to_numpy(dtype=object) for name in held}), altered
     except (ValueError, TypeError, AssertionError):
         return None, altered

@@ -743,9 +743,10 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
     (from `verdicts` for forms 1 and 2, None where a sample has none; from the sample's row for
     form 3); and the columns its digest covers, as object arrays of what SQLite gave (each row
-    is read once, into one table the frame's columns are views of). The frame has only the
-    columns its form stores (a form-2 or form-3 batch's digest counts any reading column that
-    is not empty). `shapes` (shape -> (sha256, facts), the whole table, read once by the
+    is read once, into one table these columns are views of). The frame has the columns its
+    form stores (a form-2 or form-3 batch's digest counts any reading column that is not
+    empty) but the stored values' texts, which are only in `columns`: once the caller has let
+    go of those, the rows read back can go. `shapes` (shape -> (sha256, facts), the whole table, read once by the
     caller) spares a form-3 batch the join that finds the shapes its samples use."""
     names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS)
     rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
@@ -769,8 +770,8 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
                             "ON sh.shape = s.shape WHERE s.batch = ? ORDER BY sh.shape", (batch,)).fetchall()
     columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
     facts = {shape: text for shape, _, text in used}
-    kept = [name for name in names if name not in verdict]  # the verdict's columns, if any, come last
-    frame = pd.DataFrame(table[:, :len(kept)], columns=kept, dtype=object, copy=False)
+    kept = [k for k, name in enumerate(names) if name not in verdict + ("content",)]
+    frame = pd.DataFrame(table[:, kept], columns=[names[k] for k in kept], dtype=object)  # a copy: not a view
     if form in (1, 2):
         verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in ("verdict_entry",) + verdict})
         verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
