@@ -523,7 +523,7 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
     if frame is None:
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
                                          "recording); its samples were not re-graded")]
-    units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
+    units = [unit for unit in pd.unique(entries["unit_id"].to_numpy(dtype=object)) if not pd.isna(unit)]
     history = history_frame(conn, units, ruleset, before_batch=number)
     if len(history):
         history = history[~history["sample_id"].isin(entries["sample_id"])]
