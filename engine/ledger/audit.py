@@ -26,8 +26,8 @@ import pandas as pd
 
 from sumpwise.derive.trends import trend_bases
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_SAMPLE_COLUMNS,  # noqa: F401 (API)
-                                    batch_digest, fingerprint, result_from_record)
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_SAMPLE_COLUMNS, batch_digest, fingerprint,  # noqa: F401 (API)
+                                    result_from_record)
 from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, batch_list,
                                    batch_rejects, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
@@ -441,8 +441,8 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                            4: columns["used_shapes"]}
             else:
                 written = {1: [columns[n] for n in DIGEST_3_SAMPLE_COLUMNS], 3: columns["used_shapes"]}
-                if no_verdicts:
-                    written[2] = [[conn.execute(DIGEST_3_FILLED, (number,)).fetchone()[0]]]
+                if no_verdicts:  # digest 3's count of what form 3 leaves empty, from the rows just read
+                    written[2] = [[len(columns["filled"]) - columns["filled"].tolist().count(None)]]
             del columns
             digest = batch_digest(conn, number, written)
             del written  # views of the batch's rows, as `contents` is until the values frame is built

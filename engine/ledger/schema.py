@@ -193,12 +193,12 @@ DIGEST_3_QUERIES = (
     DIGEST_QUERIES[3],
 )
 DIGEST_3_SAMPLE_COLUMNS = DIGEST_2_SAMPLE_COLUMNS + ("grade", "level", "shape", "vals")
-# What DIGEST_3_QUERIES[2] counts while `verdicts` is empty (its EXISTS clause can then hold for no
-# row): replay's cheaper way to the same count, not part of the definition.
-DIGEST_3_FILLED = (
-    "SELECT count(*) FROM samples s WHERE s.batch = ? AND (kv40 IS NOT NULL OR kv100 IS NOT NULL OR an IS NOT NULL "
-    "OR bn IS NOT NULL OR oxidation IS NOT NULL OR nitration IS NOT NULL OR sulfation IS NOT NULL OR antiwear IS NOT "
-    "NULL OR soot IS NOT NULL OR water IS NOT NULL OR rpvot IS NOT NULL OR content_sha256 != '')")
+# A sample row's reading columns and fingerprint as one SQL value, NULL when all are empty (as
+# form 3 leaves them): while `verdicts` is empty, DIGEST_3_QUERIES[2] counts the rows of a batch
+# where it is not NULL (its EXISTS clause can then hold for no row). Replay reads it with each
+# row instead of counting in a second pass over the batch; not part of the definition.
+DIGEST_3_FILLED = ("coalesce(kv40, kv100, an, bn, oxidation, nitration, sulfation, antiwear, soot, water, rpvot, "
+                   "nullif(content_sha256, ''))")
 FORM_1_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
                          "method", "lab", "kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation",
                          "antiwear", "soot", "water", "rpvot", "content", "content_sha256", "corrects")

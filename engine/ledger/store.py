@@ -37,8 +37,8 @@ from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_SAMPLE_COLUMNS, FORM_1_SAMPLE_COLUMNS,
-                                    MIGRATIONS, batch_digest, fingerprint, shape_ids)
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_SAMPLE_COLUMNS,
+                                    FORM_1_SAMPLE_COLUMNS, MIGRATIONS, batch_digest, fingerprint, shape_ids)
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
@@ -753,9 +753,11 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
     form stores (a form-2 or form-3 batch's digest counts any reading column that is not
     empty) but the stored values' texts, which are only in `columns`: once the caller has let
     go of those, the rows read back can go. `shapes` (shape -> (sha256, facts), the whole table, read once by the
-    caller) spares a form-3 batch the join that finds the shapes its samples use."""
-    names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS)
-    rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
+    caller) spares a form-3 batch the join that finds the shapes its samples use. A form-3
+    batch's `columns` also hold each row's schema.DIGEST_3_FILLED ("filled")."""
+    names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS + ("filled",))
+    read = ", ".join(names) if form in (1, 2) else ", ".join(DIGEST_3_SAMPLE_COLUMNS) + ", " + DIGEST_3_FILLED
+    rows = conn.execute(f"SELECT {read} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
     table = _object_table(rows) if rows else np.empty((0, len(names)), dtype=object)
     del rows
     for k, name in enumerate(names):
@@ -780,7 +782,7 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
                             "ON sh.shape = s.shape WHERE s.batch = ? ORDER BY sh.shape", (batch,)).fetchall()
     columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
     facts = {shape: text for shape, _, text in used}
-    kept = [k for k, name in enumerate(names) if name not in verdict + ("content",)]
+    kept = [k for k, name in enumerate(names) if name not in verdict + ("content", "filled")]
     frame = pd.DataFrame(table[:, kept], columns=[names[k] for k in kept], dtype=object)  # a copy: not a view
     if form in (1, 2):
         verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in ("verdict_entry",) + verdict})

@@ -298,18 +298,21 @@ def test_digest_2_spells_different_columns_differently():
     assert _spelled(["a", "b"]) == b"Sa\x00b\x1f" and _spelled(["a", None]) == b'J["a", null]\x1f'
 
 
-@pytest.mark.parametrize("shape", [None, 10_000, "x", 2.5, "1"])
+@pytest.mark.parametrize("shape", [None, "sha", 10_000, "x", 2.5, "1"])
 def test_replay_reads_a_batch_as_the_frozen_digest_queries_do(clean, tmp_path, shape):
     # Replay finds a form-3 batch's used shapes from the shapes table read once, and counts its
-    # filled reading columns without the verdicts clause while `verdicts` is empty: each must give
-    # what the frozen digest-3 query gives, whatever a sample's shape id was altered to (None:
-    # a reading column filled instead).
-    from sumpwise.ledger.schema import DIGEST_3_FILLED, DIGEST_3_QUERIES
+    # filled reading columns from the rows it reads (schema.DIGEST_3_FILLED) while `verdicts` is
+    # empty: each must give what the frozen digest-3 query gives, whatever a sample's shape id was
+    # altered to (None: a reading column filled instead; "sha": a fingerprint).
+    from sumpwise.ledger.schema import DIGEST_3_QUERIES
     from sumpwise.ledger.store import batch_entries
     db = _copy(clean, tmp_path)
     with sqlite3.connect(db) as conn:
         if shape is None:
             conn.execute("UPDATE samples SET kv40 = 46.0 WHERE entry = (SELECT min(entry) FROM samples WHERE batch = 2)")
+        elif shape == "sha":
+            conn.execute("UPDATE samples SET content_sha256 = 0 WHERE entry = (SELECT min(entry) FROM samples "
+                         "WHERE batch = 2)")
         else:
             conn.execute("UPDATE samples SET shape = ? WHERE entry = (SELECT min(entry) FROM samples WHERE batch = 2)",
                          (shape,))
@@ -321,9 +324,10 @@ def test_replay_reads_a_batch_as_the_frozen_digest_queries_do(clean, tmp_path, s
             assert columns["used_shapes"] == joined_columns["used_shapes"] == [[k for k, _ in used],
                                                                               [sha for _, sha in used]]
             assert frame["facts"].equals(joined["facts"])
-            assert (conn.execute(DIGEST_3_FILLED, (batch,)).fetchone()
-                    == conn.execute(DIGEST_3_QUERIES[2], (batch,)).fetchone())
-        assert conn.execute(DIGEST_3_FILLED, (2,)).fetchone()[0] == (1 if shape is None else 0)
+            filled = columns["filled"].tolist()
+            assert (len(filled) - filled.count(None),) == conn.execute(DIGEST_3_QUERIES[2], (batch,)).fetchone()
+            if batch == 2:
+                assert len(filled) - filled.count(None) == (1 if shape in (None, "sha") else 0)
     assert replay(db).differences
 
 
