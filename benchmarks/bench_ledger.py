@@ -169,8 +169,8 @@ def sqlite_floor(source: Path, target: Path) -> tuple[tuple[float, float], tuple
     settings and way (a sample row's columns bound as the import binds them, the indexes on
     samples dropped first and built after, as the import does for a batch this large): the
     part of the import no change to sumpwise's own code can take away; and to read back what
-    replay reads (every column a digest covers; the reading columns a form-3 batch leaves
-    empty are only counted), the part of replay no change can take away, besides grading."""
+    replay reads (every column a digest covers, not the reading columns a form-3 batch leaves
+    empty), the part of replay no change can take away, besides grading."""
     started = clock()
     with sqlite3.connect(source) as conn:
         tables = {name: conn.execute(f"SELECT {', '.join(SAMPLE_COLUMNS) if name == 'samples' else '*'} "
