@@ -3,7 +3,9 @@ one on every row, and the facts with the rule set's texts give back the very sam
 
 The reference is the per-record API (GradedBatch.result), which the JSON Lines tests check
 against the rule-language draft; random samples of every class cover caps, unchecked
-exceptions, gaps and unrated rows, the trend rule set covers engine caveats.
+exceptions, gaps, censored readings and unrated rows, the trend rule set covers engine
+caveats. A values text is also held to its bytes: it must be what Python's json module
+writes for the array it holds (ledgers already written store those bytes and digest them).
 """
 
 from __future__ import annotations
@@ -11,10 +13,12 @@ from __future__ import annotations
 import json
 from dataclasses import replace
 
+import numpy as np
 import pandas as pd
+import pytest
 
 from sumpwise.intake.samples import read_samples
-from sumpwise.results.facts import batch_facts, record_names, result_facts, result_from_facts
+from sumpwise.results.facts import _distinct_rows, batch_facts, record_names, result_facts, result_from_facts, values_text
 from sumpwise.results.pipeline import grade
 from sumpwise.ruleset.compiler import load_ruleset
 from tests.conftest import DATA, ROOT
@@ -34,6 +38,7 @@ def _check(graded, frame: pd.DataFrame) -> int:
         assert shape == facts.shapes[facts.shape_of[i]], result.sample_id
         # equal as numbers: the per-record reader may spell a zero -0.0 where the column holds 0.0
         assert json.loads(values) == json.loads(facts.values[i]), result.sample_id
+        assert values_text(json.loads(facts.values[i])) == facts.values[i], result.sample_id  # the json module's bytes
         assert (facts.grades[i], facts.levels[i]) == (result.grade, -1 if result.level is None else result.level)
         back = result_from_facts(json.loads(shape), json.loads(values), _sample(frame, i), graded.ruleset,
                                  result.engine, columns, graded.source)
@@ -69,3 +74,52 @@ def test_an_empty_batch_has_no_facts():
     graded = grade(batch.frame.iloc[:0], ruleset)
     facts = batch_facts(graded)
     assert facts.shapes == () and len(facts.values) == 0
+
+
+@pytest.mark.parametrize("names", [{}, {"values": ["kv40", "no-such-column", "water"], "oil_changed": True},
+                                   {"derived": ["no-such-measure"]}])
+def test_facts_of_any_recorded_names(names):
+    """Replay passes the names a stored batch recorded: none (the values end with the shape's),
+    or columns the batch does not hold (null in every row)."""
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    graded = grade(random_samples(ruleset, 300, seed=11), ruleset)
+    facts = batch_facts(graded, names)
+    for i, result in enumerate(graded.results()):
+        shape, values = result_facts(result, names)
+        assert shape == facts.shapes[facts.shape_of[i]]
+        assert json.loads(values) == json.loads(facts.values[i]), result.sample_id
+        assert values_text(json.loads(facts.values[i])) == facts.values[i], result.sample_id
+    if not names:
+        assert "[]" in set(facts.values)  # a normal row with nothing to record
+
+
+@pytest.mark.parametrize("rows, width, seed", [(1, 5, 0), (2_000, 9, 1), (2_000, 40, 2), (5_000, 12, 3)])
+def test_distinct_rows_are_what_numpy_unique_gives(rows, width, seed):
+    """_distinct_rows (hashed keys) against np.unique of the rows' bytes, the general route whose
+    order of groups fixes the order, and so the stored ids, of a batch's shapes. Wide matrices of
+    cells from -1 to 120 overflow one int64 key, so the key is factorized again on the way."""
+    rng = np.random.default_rng(seed)
+    pool = rng.integers(-1, 121, size=(max(1, rows // 20), width)).astype(np.int8)
+    matrix = pool[rng.integers(0, len(pool), rows)]
+    matrix[:, 0] = rng.integers(-1, 2, rows)  # some columns with few values, as levels and flags have
+    first, group = _distinct_rows(matrix)
+    keys = matrix.view(np.dtype((np.void, width))).ravel()
+    _, expected_first, expected_group = np.unique(keys, return_index=True, return_inverse=True)
+    assert first.tolist() == expected_first.tolist()
+    assert group.tolist() == expected_group.ravel().tolist()
+
+
+@pytest.mark.xfail(strict=True, reason="known defect, left for the lead: a censored reading (undecided) and a missing "
+                   "one fall in one shape group, so a row takes the other's gap")
+def test_a_censored_and_a_missing_input_do_not_share_a_shape():
+    """Seed 5: row 42's water is written `<2438.24` (its gaps hold it as undecided), row 212's is
+    missing (no undecided value); _shape_groups keys both on the number column being NaN, and
+    row 212's stored shape says its water was undecided, null. Fixing it changes the stored
+    shape of such rows, so ledgers holding one would no longer replay clean: a lead's call."""
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    graded = grade(random_samples(ruleset, 300, seed=5), ruleset)
+    facts = batch_facts(graded)
+    result = graded.result(212)
+    assert result_facts(result, record_names(graded))[0] == facts.shapes[facts.shape_of[212]]
