@@ -149,7 +149,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         check_header(list(raw.columns))
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
-    raw = raw.copy()
+    raw = raw.copy(deep=False)  # copy-on-write (pandas 3): the caller's frame stays as it was, nothing copied now
     raw.columns = [str(c).strip() for c in raw.columns]
     raw.index = pd.Index(rows, name="row")
     renames = {}
