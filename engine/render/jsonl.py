@@ -85,14 +85,38 @@ def _encoded(texts, errors: str) -> list[bytes]:
     return "\x00".join(texts).encode("utf-8", errors).split(b"\x00")
 
 
-def _text_literals(values: np.ndarray, errors: str) -> np.ndarray:
+class _Column:
+    """A column's literals for some rows, or the one literal all those rows share (`same`): a
+    shared literal (a column the file lacks, one method, no date) is written into the form once
+    instead of passed to every row's %-call."""
+
+    def __init__(self, literals: np.ndarray | None, same: bytes | None = None):
+        self.literals, self.same = literals, same
+
+    def array(self, n: int) -> np.ndarray:
+        return self.literals if self.same is None else np.full(n, self.same, dtype=object)
+
+    def take(self, local: np.ndarray) -> "_Column":
+        return self if self.same is not None else _Column(self.literals[local])
+
+
+def _shared(codes: np.ndarray, table) -> _Column | None:
+    """The column as one literal when all its rows hold the same value (or all are missing)."""
+    if len(table) == 1:  # no value at all: the table holds only null
+        return _Column(None, table[-1])
+    if len(table) == 2 and codes.min(initial=0) >= 0:
+        return _Column(None, table[0])
+    return None
+
+
+def _text_literals(values: np.ndarray, errors: str) -> _Column:
     """JSON string literals (or null) for a column of str-or-None, as UTF-8 bytes."""
     if not len(values):
-        return np.empty(0, dtype=object)
+        return _Column(np.empty(0, dtype=object))
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     if len(uniques) < len(values) // 2:
         table = [json.dumps(str(u), ensure_ascii=False).encode("utf-8", errors) for u in uniques] + [b"null"]
-        return np.array(table, dtype=object)[codes]
+        return _shared(codes, table) or _Column(np.array(table, dtype=object)[codes])
     present = codes >= 0
     texts = np.where(present, values, "").astype(object)
     joined = "\x00".join(texts)
@@ -102,17 +126,17 @@ def _text_literals(values: np.ndarray, errors: str) -> np.ndarray:
     else:
         literal[:] = _encoded([json.dumps(str(t), ensure_ascii=False) for t in texts], errors)
     literal[~present] = b"null"
-    return literal
+    return _Column(literal)
 
 
-def _number_literals(values: np.ndarray) -> np.ndarray:
+def _number_literals(values: np.ndarray) -> _Column:
     """JSON number literals (or null), spelled as Python's float repr, each distinct value once
     (-0.0 is spelled 0.0, as records.RowValues gives it: factorize takes the two as one value)."""
     codes, uniques = pd.factorize(values + 0.0, use_na_sentinel=True)
     table = np.empty(len(uniques) + 1, dtype=object)
     table[:] = ",".join(map(repr, uniques.tolist())).encode().split(b",") + [b"null"] if len(uniques) else [b"null"]
     table[:-1][~np.isfinite(uniques)] = b"null"
-    return table[codes]
+    return _shared(codes, table) or _Column(table[codes])
 
 
 class _Literals:
@@ -122,26 +146,28 @@ class _Literals:
     def __init__(self, columns: ColumnArrays, errors: str):
         self.columns, self.errors = columns, errors
 
-    def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
+    def get(self, kind: str, name: str, rows: np.ndarray) -> _Column:
         if kind == "row":  # the sample's row in its file (records.RowValues.row)
             index = self.columns.index
-            return (np.full(len(rows), b"null", dtype=object) if index is None
-                    else index[rows].astype(bytes).astype(object))
+            return _Column(None, b"null") if index is None else _Column(index[rows].astype(bytes).astype(object))
         if kind == "flag":
             values = self.columns.number(name)
-            if values is None:
-                return np.full(len(rows), b"false", dtype=object)
-            return np.where(values[rows] == 1.0, b"true", b"false").astype(object)
+            flags = np.zeros(len(rows), dtype=bool) if values is None else values[rows] == 1.0
+            if flags.all() or not flags.any():
+                return _Column(None, b"true" if len(flags) and flags[0] else b"false")
+            return _Column(np.where(flags, b"true", b"false").astype(object))
         values = self.columns.number(name) if kind == "number" else self.columns.text(name)
         if values is None:
-            return np.full(len(rows), b"null", dtype=object)
+            return _Column(None, b"null")
         literals = (_number_literals(values[rows]) if kind == "number"
                     else _text_literals(values[rows], self.errors))
         written = self.columns.written(name) if kind == "number" else None
         if written is not None:  # censored readings, as the lab wrote them
             shown = written[rows]
             here = pd.notna(shown)
-            literals[here] = _text_literals(shown[here], self.errors)
+            if here.any():
+                literals = _Column(literals.array(len(rows)).copy())
+                literals.literals[here] = _text_literals(shown[here], self.errors).array(int(here.sum()))
         return literals
 
 
@@ -170,12 +196,12 @@ class _Block:
         self.groups: list[_Group] = []
         self.whole: dict = {}  # (kind, name) -> literals of every row of the block, once converted
 
-    def literal(self, kind: str, name: str, local: np.ndarray) -> np.ndarray:
+    def literal(self, kind: str, name: str, local: np.ndarray) -> _Column:
         """Literals of these rows only: many columns are read by a few rows' reasons."""
         if kind == "raw":
-            return self.raw[name][local]
+            return self.raw[name].take(local)
         if (kind, name) in self.whole:  # reasons and clauses repeat the record's own values
-            return self.whole[kind, name][local]
+            return self.whole[kind, name].take(local)
         literals = self.literals.get(kind, name, self.rows[local])
         if len(local) == len(self.rows):
             self.whole[kind, name] = literals
@@ -187,13 +213,20 @@ class _Block:
     def _filled(self, template: tuple[list[str], list], local: np.ndarray, lead: str):
         """The template's text for each of these rows: one C-level %-format call a row, on bytes
         (bytes formatting finds each `%` with memchr; str formatting reads the form a character
-        at a time, which for forms of mostly fixed text costs a third more)."""
+        at a time, which for forms of mostly fixed text costs a third more). A literal all these
+        rows share goes into the form; the form is the whole text when no literal differs."""
         chunks, wanted = template
-        if not wanted:
-            return (lead + chunks[0]).encode("utf-8", self.errors)
-        form = (lead.replace("%", "%%") + "%s".join(chunk.replace("%", "%%") for chunk in chunks)).encode(
-            "utf-8", self.errors)
-        columns = [self.literal(kind, name, local).tolist() for kind, name in wanted]
+        parts, columns = [(lead + chunks[0]).encode("utf-8", self.errors)], []
+        for (kind, name), chunk in zip(wanted, chunks[1:]):
+            column, text = self.literal(kind, name, local), chunk.encode("utf-8", self.errors)
+            if column.same is not None:
+                parts[-1] += column.same + text
+            else:
+                columns.append(column.literals.tolist())
+                parts.append(text)
+        if not columns:
+            return parts[0]
+        form = b"%s".join(part.replace(b"%", b"%%") for part in parts)
         return [form % args for args in zip(*columns)]
 
     def text(self, lists: list[range]) -> list[bytes]:
@@ -365,13 +398,14 @@ class _Writer:
         level = out.level[rows]
         unrated = level < 0
         names = list(rs.grades) + [UNRATED]
-        block.raw["grade"] = np.array([json.dumps(n).encode() for n in names], dtype=object)[level]
-        block.raw["level"] = np.array([str(k).encode() for k in range(len(rs.grades))] + [b"null"],
-                                      dtype=object)[level]
-        block.raw["unrated_because"] = np.full(len(rows), b"", dtype=object)
-        block.raw["forecasts"] = self._forecast_items(rows)
+        block.raw["grade"] = _Column(np.array([json.dumps(n).encode() for n in names], dtype=object)[level])
+        block.raw["level"] = _Column(np.array([str(k).encode() for k in range(len(rs.grades))] + [b"null"],
+                                              dtype=object)[level])
+        because = np.full(len(rows), b"", dtype=object)
         if unrated.any():
-            block.raw["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
+            because[unrated] = self._unrated_sentences(rows[unrated])
+        block.raw["unrated_because"] = _Column(because)
+        block.raw["forecasts"] = self._forecast_items(rows)
         for is_unrated in (False, True):
             members = np.flatnonzero(unrated == is_unrated)
             if len(members):
@@ -379,31 +413,33 @@ class _Writer:
                 for slot, part in zip(self.part_slots, parts):
                     block.add(slot, members, part)
 
-        final = out.final[rows]
-        for j in range(final.shape[1]):
-            fired = np.flatnonzero(final[:, j] > 0)
+        final = np.ascontiguousarray(out.final[rows].T)  # a rule's outcomes side by side: one read a rule
+        for j in range(len(final)):
+            fired = np.flatnonzero(final[j] > 0)
             if len(fired):
                 self._reasons(block, j, fired)
-            gaps = np.flatnonzero(final[:, j] == NOT_EVALUATED)
+            gaps = np.flatnonzero(final[j] == NOT_EVALUATED)
             if len(gaps):
                 self._gaps(block, j, gaps)
-        for k in range(out.caveats.shape[1]):
-            noted = np.flatnonzero(out.caveats[rows, k])
+        caveats = np.ascontiguousarray(out.caveats[rows].T)
+        for k in range(len(caveats)):
+            noted = np.flatnonzero(caveats[k])
             if len(noted):
                 self._caveats(block, k, noted)
         return block.text(list(self.list_slots.values()))
 
-    def _forecast_items(self, rows: np.ndarray) -> np.ndarray:
+    def _forecast_items(self, rows: np.ndarray) -> _Column:
         """The items of each row's `forecasts` list: empty but for each unit's latest sample."""
         carriers, texts = self.forecast_rows, self.forecast_texts
+        if not len(rows) or not len(carriers):  # rows: a block, in order
+            return _Column(None, b"")
         items = np.full(len(rows), b"", dtype=object)
-        if len(rows) and len(carriers):  # rows: a block, in order
-            start, stop = np.searchsorted(carriers, [rows[0], rows[-1] + 1])
-            inside = carriers[start:stop]
-            at = np.searchsorted(rows, inside)
-            here = rows[np.minimum(at, len(rows) - 1)] == inside
-            items[at[here]] = np.array(texts[start:stop], dtype=object)[here]
-        return items
+        start, stop = np.searchsorted(carriers, [rows[0], rows[-1] + 1])
+        inside = carriers[start:stop]
+        at = np.searchsorted(rows, inside)
+        here = rows[np.minimum(at, len(rows) - 1)] == inside
+        items[at[here]] = np.array(texts[start:stop], dtype=object)[here]
+        return _Column(items)
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)
