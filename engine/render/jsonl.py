@@ -109,22 +109,30 @@ def _shared(codes: np.ndarray, table) -> _Column | None:
     return None
 
 
+def _quoted(texts, errors: str) -> list[bytes]:
+    """JSON string literals of texts as UTF-8 bytes: quotes put around them all
+    in one pass when none needs escaping (the usual case), json.dumps of each otherwise."""
+    try:
+        joined = "\x00".join(texts)
+    except TypeError:  # a value that is not str (a caller's own frame): spelled as str, as records do
+        texts = [str(t) for t in texts]
+        joined = "\x00".join(texts)
+    if joined.count("\x00") == len(texts) - 1 and not _ESCAPED.search(joined.replace("\x00", "")):
+        return ('"' + joined.replace("\x00", '"\x00"') + '"').encode("utf-8", errors).split(b"\x00")
+    return _encoded([json.dumps(t, ensure_ascii=False) for t in texts], errors)
+
+
 def _text_literals(values: np.ndarray, errors: str) -> _Column:
     """JSON string literals (or null) for a column of str-or-None, as UTF-8 bytes."""
     if not len(values):
         return _Column(np.empty(0, dtype=object))
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     if len(uniques) < len(values) // 2:
-        table = [json.dumps(str(u), ensure_ascii=False).encode("utf-8", errors) for u in uniques] + [b"null"]
+        table = (_quoted([str(u) for u in uniques], errors) if len(uniques) else []) + [b"null"]
         return _shared(codes, table) or _Column(np.array(table, dtype=object)[codes])
     present = codes >= 0
-    texts = np.where(present, values, "").astype(object)
-    joined = "\x00".join(texts)
-    literal = np.empty(len(texts), dtype=object)
-    if joined.count("\x00") == len(texts) - 1 and not _ESCAPED.search(joined.replace("\x00", "")):
-        literal[:] = ('"' + joined.replace("\x00", '"\x00"') + '"').encode("utf-8", errors).split(b"\x00")
-    else:
-        literal[:] = _encoded([json.dumps(str(t), ensure_ascii=False) for t in texts], errors)
+    literal = np.empty(len(values), dtype=object)
+    literal[:] = _quoted(np.where(present, values, "").astype(object).tolist(), errors)
     literal[~present] = b"null"
     return _Column(literal)
 
