@@ -129,8 +129,8 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     frame = own if history is None else pd.concat([history[names + ["_keep"]], own], ignore_index=True)
     frame = frame[frame["unit_id"].notna()].reset_index(drop=True)
     dates, hours = _trend_keys(frame)
-    units = frame["unit_id"].to_numpy(dtype=object).astype(str)
-    ordered = frame.iloc[np.lexsort((np.arange(len(frame)), hours, dates, units))].reset_index(drop=True)
+    units = pd.factorize(frame["unit_id"].to_numpy(dtype=object), sort=True)[0]  # unit ids are str: ranks sort alike
+    ordered = frame.iloc[np.lexsort((hours, dates, units))].reset_index(drop=True)  # stable: ties keep their order
     groups = ordered.groupby("unit_id", sort=False)
     from_end = groups.cumcount(ascending=False).to_numpy()
     keep = groups["_keep"].transform("last").to_numpy()
