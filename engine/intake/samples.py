@@ -215,8 +215,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             rejects.append(Reject(int(row), sid or None, field_name, str(why), code))
         bad |= mask
 
-    reject(sample_id == "", "sample_id", "no sample id: every row needs one", "D002")
-    dup = (sample_id.duplicated(keep="first") & (sample_id != "")).to_numpy()
+    no_id = (sample_id == "").to_numpy()
+    reject(no_id, "sample_id", "no sample id: every row needs one", "D002")
+    dup = sample_id.duplicated(keep="first").to_numpy() & ~no_id
     if dup.any():
         first_row = pd.Series(raw.index, index=raw.index).groupby(sample_id.to_numpy()).transform("first")
         reject(dup, "sample_id", ("sample id '" + sample_id + "' already seen at row "
@@ -321,6 +322,11 @@ def _padded(joined: str) -> bool:
                for space in _ASCII_SPACE)  # one fast single-character scan each, mostly
 
 
+def _has_empty(joined: str, any_present: bool) -> bool:
+    """Whether one of the \\x00-joined texts is empty: two separators side by side, or one at an end."""
+    return any_present and (not joined or joined[0] == "\x00" or joined[-1] == "\x00" or "\x00\x00" in joined)
+
+
 def _text_column(column: pd.Series) -> pd.Series:
     """Text as Python str or None: stripped, empty cells missing.
 
@@ -335,7 +341,9 @@ def _text_column(column: pd.Series) -> pd.Series:
         joined = None
     if joined is not None and joined.count("\x00") == present.sum() - 1 and not _padded(joined):
         cleaned = values.copy()
-        cleaned[~present | (values == "")] = None
+        cleaned[~present] = None
+        if _has_empty(joined, present.any()):  # found by one scan of the joined text, not a comparison a cell
+            cleaned[cleaned == ""] = None
         return pd.Series(cleaned, index=column.index, dtype=object)
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     cleaned = np.array([str(u).strip() or None for u in uniques] + [None], dtype=object)
