@@ -13,6 +13,7 @@ import pytest
 
 from sumpwise.intake.column_map import load_column_map
 from sumpwise.intake.samples import read_samples
+from sumpwise.vocabulary.problems import InputError
 
 LAB_ROWS = [
     {"sample_id": "BP-0001", "unit_id": "GB-1", "class": "gearbox", "lubricant": "GEAR-320-PAO",
@@ -37,13 +38,13 @@ def _reference(text: str) -> list[dict]:
     return rows
 
 
-def _check_against_reference(batch, text: str) -> None:
+def _check_against_reference(batch, text: str, numbers=("kv40", "an", "water")) -> None:
     reference = _reference(text)
     assert len(batch.frame) == len(reference)
     for (row_number, got), want in zip(batch.frame.iterrows(), reference):
         for name in ("sample_id", "unit_id", "class", "lubricant", "sampled_on"):
             assert got[name] == want.get(name), (row_number, name)
-        for name in ("kv40", "an", "water"):
+        for name in numbers:
             value = want.get(name)
             if value is None:
                 assert np.isnan(got[name]), (row_number, name)
@@ -132,3 +133,60 @@ def test_a_key_given_twice_with_two_values_rejects_its_row_naming_the_key():
     assert "140 and 9000" in batch.rejects[0].reason
     assert sorted(batch.frame["sample_id"]) == ["BP-0001", "BP-0002", "BP-0010"]
     assert batch.rows_read == 4 and batch.rejected_rows + len(batch.frame) == batch.rows_read
+
+
+def test_a_blank_line_and_a_line_of_two_objects_keep_every_row_at_its_own_line():
+    # The counts balance (three lines with an object, three objects in all), so a reader that
+    # skipped the blank line and took both objects of line 4 would shift row 3 onto line 4.
+    text = (json.dumps(LAB_ROWS[0]) + "\n\n" + json.dumps(LAB_ROWS[1]) + "\n"
+            + json.dumps(LAB_ROWS[2]) + " " + json.dumps(dict(LAB_ROWS[2], sample_id="BP-0004")) + "\n")
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    assert batch.frame.index.tolist() == [1, 3]
+    assert batch.frame["sample_id"].tolist() == ["BP-0001", "BP-0002"]
+    assert [(r.row, r.code) for r in batch.rejects] == [(4, "D001")]
+
+
+@pytest.mark.parametrize("spelling", ["indented", "crlf", "pretty"])
+def test_lines_spelled_otherwise_read_as_json_reads_them_or_are_rejected_by_line(spelling):
+    if spelling == "pretty":  # one object over several lines: not JSON Lines, no line an object
+        text = json.dumps(LAB_ROWS[0], indent=1) + "\n"
+        with pytest.raises(InputError, match="missing required column"):
+            read_samples(io.StringIO(text), "x.jsonl")
+        return
+    text = _lines(LAB_ROWS)
+    text = "".join("  " + line + "\n" for line in text.splitlines()) if spelling == "indented" \
+        else text.replace("\n", "\r\n")
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    assert batch.rejects == ()
+    _check_against_reference(batch, text)
+
+
+def test_a_key_given_null_then_a_value_is_caught_when_every_line_gives_every_key():
+    # Every line gives each of the file's keys (as exports write them, null where empty), so a
+    # line with more keys than that repeats one: water null then 9000 is not read as 9000.
+    rows = [dict(LAB_ROWS[0]), dict(LAB_ROWS[1], water=None)]
+    lines = [json.dumps(row) for row in rows]
+    lines[1] = lines[1][:-1] + ', "water": 9000}'
+    assert json.loads(lines[1])["water"] == 9000  # what a silent reader would grade
+    batch = read_samples(io.StringIO("\n".join(lines) + "\n"), "x.jsonl")
+    assert [(r.row, r.field, r.code) for r in batch.rejects] == [(2, "water", "D017")]
+    assert "null and 9000" in batch.rejects[0].reason
+    assert batch.frame["sample_id"].tolist() == ["BP-0001"]
+
+
+@pytest.mark.parametrize("route", ["every key, numbers in numeric columns", "every key, a censored reading",
+                                   "a key left out"])
+def test_each_route_of_the_one_pass_parse_reads_as_json_reads_them(route):
+    rows = [dict(LAB_ROWS[0]), dict(LAB_ROWS[1]), dict(LAB_ROWS[2], water=60)]
+    if route == "every key, a censored reading":
+        rows[2]["an"] = "<0.05"  # text in a numeric column: the parse that takes any value
+    if route == "a key left out":
+        del rows[2]["water"]
+    text = _lines(rows)
+    batch = read_samples(io.StringIO(text), "x.jsonl")
+    assert batch.rejects == ()
+    if route == "every key, a censored reading":
+        assert batch.frame["an:written"].tolist()[2] == "<0.05"  # as the lab wrote it, for validation
+        _check_against_reference(batch, text, numbers=("kv40", "water"))
+    else:
+        _check_against_reference(batch, text)
