@@ -253,3 +253,19 @@ def test_grade_out_file_holds_the_writers_bytes(tmp_path):
     assert written.count("\n") == 2 and "Kompressor \u00d6l" in written
     assert [json.loads(line)["sample_id"] for line in written.splitlines()] == ["S1", "S2"]
     assert written == expected
+
+
+def test_grade_to_standard_output_writes_the_same_bytes_as_to_a_file(tmp_path):
+    # Standard output in UTF-8 takes the records' bytes on its binary stream, after what its text
+    # layer holds; in another encoding it takes text. Either way the records are the --out file's.
+    csv = tmp_path / "s.csv"
+    csv.write_text("sample_id,unit_id,class,lubricant,an,kv40\nS1,Kompressor \u00d6l,steam-turbine,ISO46,0.9,47\n"
+                   "S2,U2,steam-turbine,ISO46,0.1,46\n", encoding="utf-8")
+    command = [sys.executable, "-m", "sumpwise", "grade", str(csv), "--rules", str(DATA / "rulesets" / "draft.yaml")]
+    subprocess.run(command + ["--out", str(tmp_path / "o.jsonl")], capture_output=True, cwd=tmp_path)
+    wanted = (tmp_path / "o.jsonl").read_bytes()
+    assert wanted.count(b"\n") == 2 and "Kompressor \u00d6l".encode() in wanted
+    for encoding in ("utf-8", "latin-1"):
+        shown = subprocess.run(command, capture_output=True, cwd=tmp_path,
+                               env={"PATH": "/usr/bin:/bin", "PYTHONIOENCODING": encoding}).stdout
+        assert shown.decode(encoding) == wanted.decode("utf-8")
