@@ -334,15 +334,20 @@ def _text_column(column: pd.Series) -> pd.Series:
     as it is; otherwise each distinct value is cleaned once (codes repeat a lot).
     """
     values = column.to_numpy(dtype=object)
-    present = ~pd.isna(values)
     try:
-        joined = "\x00".join(values[present])
-    except TypeError:  # not all text (JSON Lines numbers): spelled as text below
-        joined = None
-    if joined is not None and joined.count("\x00") == present.sum() - 1 and not _padded(joined):
+        joined, present = "\x00".join(values), None  # every cell is text, so none is missing (None, NaN raise)
+    except TypeError:
+        present = ~pd.isna(values)
+        try:
+            joined = "\x00".join(values[present])
+        except TypeError:  # not all text (JSON Lines numbers): spelled as text below
+            joined = None
+    count = len(values) if present is None else int(present.sum())
+    if joined is not None and joined.count("\x00") == count - 1 and not _padded(joined):
         cleaned = values.copy()
-        cleaned[~present] = None
-        if _has_empty(joined, present.any()):  # found by one scan of the joined text, not a comparison a cell
+        if present is not None:
+            cleaned[~present] = None
+        if _has_empty(joined, count > 0):  # found by one scan of the joined text, not a comparison a cell
             cleaned[cleaned == ""] = None
         return pd.Series(cleaned, index=column.index, dtype=object)
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
