@@ -114,9 +114,10 @@ def _texts(frame: pd.DataFrame, column: str) -> pd.Series:
     """A text column as str-or-None; samples.py has already stripped it and blanked empty cells."""
     if column in frame.columns:
         values = frame[column].to_numpy(dtype=object)
-        missing = pd.isna(values)
-        if missing.any():  # NaN from a reader becomes None, in a copy: the frame stays as it is
-            values = np.where(missing, None, values)
+        if pd.api.types.infer_dtype(values, skipna=False) != "string":  # str in every cell: none missing
+            missing = pd.isna(values)
+            if missing.any():  # NaN from a reader becomes None, in a copy: the frame stays as it is
+                values = np.where(missing, None, values)
         return pd.Series(values, index=frame.index, dtype=object, copy=False)
     return pd.Series(np.full(len(frame), None, dtype=object), index=frame.index, dtype=object, copy=False)
 
