@@ -118,7 +118,7 @@ def _texts(frame: pd.DataFrame, column: str) -> pd.Series:
             missing = pd.isna(values)
             if missing.any():  # NaN from a reader becomes None, in a copy: the frame stays as it is
                 values = np.where(missing, None, values)
-        return pd.Series(values, index=frame.index, dtype=object, copy=False)
+        return pd.Series(values, index=frame.index, dtype=object)  # copied: the samples frame is not shared
     return pd.Series(np.full(len(frame), None, dtype=object), index=frame.index, dtype=object, copy=False)
 
 
