@@ -355,6 +355,14 @@ def _same(a: np.ndarray, b: np.ndarray, numeric: bool) -> np.ndarray:
     return (gone_a & gone_b) | equal
 
 
+def _levels(stored: np.ndarray) -> np.ndarray:
+    """Stored levels as floats, NaN for none: integers (and None) directly, anything else (an
+    altered row) as pandas reads a number, NaN where it reads none."""
+    if set(map(type, stored.tolist())) <= {int, type(None)}:
+        return np.array(stored, dtype=float)  # None reads as NaN
+    return pd.to_numeric(pd.Series(stored, dtype=object), errors="coerce").to_numpy(dtype=float)
+
+
 def _facts_differ(stored: dict, facts, k: int) -> str:
     """What differs between row k's stored verdict and its replayed facts (a row known to differ)."""
     level = int(facts.levels[k])
@@ -416,12 +424,15 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
     previous, last = "", None
     try:
         differences += _ledger_findings(conn)
+        shapes = {shape: (sha, facts) for shape, sha, facts in conn.execute("SELECT shape, sha256, facts FROM shapes")}
+        no_verdicts = conn.execute("SELECT NOT EXISTS (SELECT 1 FROM verdicts)").fetchone()[0]
         for batch in batch_list(conn):
             number = batch["batch"]
             if batch["previous"] != previous:
                 differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
                                                             "one before it (a batch was deleted, added or altered)"))
-            entries, columns = batch_entries(conn, number, batch["form"])
+            entries, columns = batch_entries(conn, number, batch["form"], shapes)
+            contents = columns["content"]
             if batch["form"] == 1:
                 written = {1: list(zip(*(columns[n] for n in ("entry", "sample_id", "content_sha256", "corrects"))))}
             elif batch["form"] == 2:
@@ -430,8 +441,11 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                            4: columns["used_shapes"]}
             else:
                 written = {1: [columns[n] for n in DIGEST_3_SAMPLE_COLUMNS], 3: columns["used_shapes"]}
+                if no_verdicts:  # digest 3's count of what form 3 leaves empty, from the rows just read
+                    written[2] = [[len(columns["filled"]) - columns["filled"].tolist().count(None)]]
             del columns
             digest = batch_digest(conn, number, written)
+            del written  # views of the batch's rows, as `contents` is until the values frame is built
             if digest != batch["digest"]:
                 differences.append(Difference(None, number, "its stored rows no longer match the batch's digest "
                                                             "(a row altered, added or deleted after recording)"))
@@ -466,7 +480,9 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                                    for sid in entries["sample_id"][wanted])
                 checked += int(wanted.sum())
                 continue
-            differences += _batch_findings(conn, batch, entries, ruleset, wanted, intact)
+            frame, altered = _stored_values(batch, entries, contents)
+            del contents  # the rows read back, and their texts, go before the re-grade
+            differences += _batch_findings(conn, batch, entries, frame, altered, ruleset, wanted, intact)
             checked += int(wanted.sum())
         if head is not None and (last is None or last < head[0]):
             differences.append(Difference(None, head[0], "the noted head batch is not in the ledger (batches were "
@@ -477,37 +493,47 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
                         previous, last, tuple(d for d in differences if d.kind == ENGINE_CHANGE))
 
 
-def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, wanted: np.ndarray,
-                    intact: bool) -> list:
+def _stored_values(batch: dict, entries: pd.DataFrame, contents: np.ndarray) -> tuple[pd.DataFrame | None,
+                                                                                     np.ndarray]:
+    """A batch's stored input values as the frame grading reads (None: they can no longer be
+    read), and which samples' values no longer match their fingerprint (form 1; the digests of
+    later forms cover the values themselves)."""
+    if batch["form"] == 1:
+        altered = (np.array(list(map(fingerprint, contents.tolist())), dtype=object)
+                   != entries["content_sha256"].to_numpy(dtype=object))
+    else:
+        altered = np.zeros(len(entries), dtype=bool)
+    try:
+        if batch["form"] == 1:
+            return frame_from_contents(contents.tolist(), json.loads(batch["columns"])), altered
+        held = json.loads(batch["held"])
+        return frame_from_arrays(contents.tolist(), json.loads(batch["columns"]), held,
+                                 {name: entries[name].to_numpy(dtype=object) for name in held}), altered
+    except (ValueError, TypeError, AssertionError):
+        return None, altered
+
+
+def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFrame | None, altered: np.ndarray,
+                    ruleset: RuleSet, wanted: np.ndarray, intact: bool) -> list:
     """Each sample's integrity (fingerprint, typed columns, verdict present), then its re-grade.
 
     A re-grade that differs is an engine change only when an older engine recorded it and the
     batch is intact (its digest and place in the chain hold); else it fails the replay."""
     number, form = batch["batch"], batch["form"]
-    if form == 1:
-        altered = (np.array(list(map(fingerprint, entries["content"].tolist())), dtype=object)
-                   != entries["content_sha256"].to_numpy(dtype=object))
-    else:  # form 2: the digest covers the values themselves
-        altered = np.zeros(len(entries), dtype=bool)
-    try:
-        if form == 1:
-            frame = frame_from_contents(entries["content"], json.loads(batch["columns"]))
-        else:
-            held = json.loads(batch["held"])
-            frame = frame_from_arrays(entries["content"], json.loads(batch["columns"]), held,
-                                      {name: entries[name].tolist() for name in held})
-    except (ValueError, TypeError, AssertionError):
+    if frame is None:
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
                                          "recording); its samples were not re-graded")]
-    units = pd.unique(entries["unit_id"].dropna().to_numpy(dtype=object))
+    units = [unit for unit in pd.unique(entries["unit_id"].to_numpy(dtype=object)) if not pd.isna(unit)]
     history = history_frame(conn, units, ruleset, before_batch=number)
-    history = history[~history["sample_id"].isin(entries["sample_id"])]
-    graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history)
+    if len(history):
+        history = history[~history["sample_id"].isin(entries["sample_id"])]
+    # No forecasts: a verdict's facts hold none, and replay compares facts.
+    graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history, forecasts=False)
     typed = _typed_mismatch(entries, graded.measured, frame, form, json.loads(batch["held"]) if form != 1 else [])
     facts = batch_facts(graded, json.loads(batch["value_names"]))
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
               "vals": entries["vals"].to_numpy(dtype=object),
-              "level": pd.to_numeric(entries["level"], errors="coerce").to_numpy(dtype=float)}
+              "level": _levels(entries["level"].to_numpy(dtype=object))}
     replayed_level = np.where(facts.levels >= 0, facts.levels, np.nan)
     shapes = np.array(facts.shapes, dtype=object)[facts.shape_of] if len(facts.shapes) else stored["facts"][:0]
     same_level = (stored["level"] == replayed_level) | (np.isnan(stored["level"]) & np.isnan(replayed_level))
@@ -547,26 +573,37 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, ruleset: RuleSet, 
 
 def _ledger_findings(conn) -> list:
     """Rows that belong to no batch, verdicts of no sample, and corrections that do not pair up."""
+    # One pass over the samples finds those of no batch and every row a correction involves (the
+    # pairing is checked below, as the SQL `(entry, superseded_in) NOT IN (corrects, batch)` and
+    # `NOT EXISTS` would: SQLite gives these INTEGER columns back as numbers, or as text that
+    # equals no number, and Python compares them alike).
+    rows = conn.execute("SELECT s.sample_id, s.batch, b.batch IS NULL, s.entry, s.superseded_in, s.corrects "
+                        "FROM samples s LEFT JOIN batches b ON b.batch = s.batch WHERE b.batch IS NULL OR "
+                        "s.superseded_in IS NOT NULL OR s.corrects IS NOT NULL ORDER BY s.entry").fetchall()
+    pairs = {(corrects, batch) for _, batch, _, _, _, corrects in rows if corrects is not None}
+    superseded = {entry: later for _, _, _, entry, later, _ in rows if later is not None}
+    no_batch = "recorded in a batch that is not in the ledger (its batch was deleted)"
+    found = [Difference(sid, batch, no_batch) for sid, batch, orphan, *_ in rows if orphan]
     checks = (
-        ("SELECT s.sample_id, s.batch FROM samples s LEFT JOIN batches b ON b.batch = s.batch WHERE b.batch IS NULL",
-         "recorded in a batch that is not in the ledger (its batch was deleted)"),
         ("SELECT NULL, v.entry FROM verdicts v LEFT JOIN samples s ON s.entry = v.entry WHERE s.entry IS NULL",
          "a verdict of no sample (added, or its sample deleted)"),
         ("SELECT r.sample_id, r.batch FROM rejects r LEFT JOIN batches b ON b.batch = r.batch WHERE b.batch IS NULL",
          "a rejected row of a batch that is not in the ledger"),
-        ("SELECT s.sample_id, s.batch FROM samples s WHERE s.superseded_in IS NOT NULL AND (s.entry, s.superseded_in) "
-         "NOT IN (SELECT c.corrects, c.batch FROM samples c WHERE c.corrects IS NOT NULL)",
-         "marked as corrected, but no correction of it was recorded"),
-        ("SELECT c.sample_id, c.batch FROM samples c WHERE c.corrects IS NOT NULL AND NOT EXISTS "
-         "(SELECT 1 FROM samples s WHERE s.entry = c.corrects AND s.superseded_in = c.batch)",
-         "a correction whose corrected version is not marked as corrected by it"),
+    )
+    for query, what in checks:
+        found.extend(Difference(row[0], row[1], what) for row in conn.execute(query).fetchall())
+    found.extend(Difference(sid, batch, "marked as corrected, but no correction of it was recorded")
+                 for sid, batch, _, entry, later, _ in rows if later is not None and (entry, later) not in pairs)
+    found.extend(Difference(sid, batch, "a correction whose corrected version is not marked as corrected by it")
+                 for sid, batch, _, _, _, corrects in rows
+                 if corrects is not None and (corrects not in superseded or superseded[corrects] != batch))
+    checks = (
         ("SELECT s.sample_id, s.batch FROM samples s WHERE s.batch IN (SELECT batch FROM batches WHERE form < 3) "
          "AND (s.grade IS NOT NULL OR s.level IS NOT NULL OR s.shape IS NOT NULL OR s.vals IS NOT NULL)",
          "a verdict in the sample's row, which its batch's storage form keeps in the verdicts table (added?)"),
         ("SELECT NULL, NULL, sha256 FROM rulesets WHERE sha256 NOT IN (SELECT ruleset_sha256 FROM batches)",
          "a stored rule set that no batch was graded with (added after recording?)"),
     )
-    found = []
     for query, what in checks:
         for row in conn.execute(query).fetchall():
             note = f" ({row[2][:12]}...)" if len(row) > 2 else ""

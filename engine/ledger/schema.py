@@ -193,6 +193,12 @@ DIGEST_3_QUERIES = (
     DIGEST_QUERIES[3],
 )
 DIGEST_3_SAMPLE_COLUMNS = DIGEST_2_SAMPLE_COLUMNS + ("grade", "level", "shape", "vals")
+# A sample row's reading columns and fingerprint as one SQL value, NULL when all are empty (as
+# form 3 leaves them): while `verdicts` is empty, DIGEST_3_QUERIES[2] counts the rows of a batch
+# where it is not NULL (its EXISTS clause can then hold for no row). Replay reads it with each
+# row instead of counting in a second pass over the batch; not part of the definition.
+DIGEST_3_FILLED = ("coalesce(kv40, kv100, an, bn, oxidation, nitration, sulfation, antiwear, soot, water, rpvot, "
+                   "nullif(content_sha256, ''))")
 FORM_1_SAMPLE_COLUMNS = ("entry", "sample_id", "unit_id", "class", "sampled_on", "oil_hours", "oil_changed",
                          "method", "lab", "kv40", "kv100", "an", "bn", "oxidation", "nitration", "sulfation",
                          "antiwear", "soot", "water", "rpvot", "content", "content_sha256", "corrects")
@@ -233,7 +239,8 @@ def _digest_2(conn: sqlite3.Connection, batch: int, written: dict | None, querie
             n = len(columns[0]) if columns else 0
             for start in range(0, n, DIGEST_2_ROWS):
                 for column in columns:
-                    digest.update(_spelled(column[start:start + DIGEST_2_ROWS]))
+                    part = column[start:start + DIGEST_2_ROWS]  # a list, or an object array (replay)
+                    digest.update(_spelled(part if isinstance(part, list) else part.tolist()))
         else:
             cursor = conn.execute(query, (batch,))
             while chunk := cursor.fetchmany(DIGEST_2_ROWS):

@@ -37,8 +37,8 @@ from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_SAMPLE_COLUMNS, FORM_1_SAMPLE_COLUMNS,
-                                    MIGRATIONS, batch_digest, fingerprint, shape_ids)
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_SAMPLE_COLUMNS,
+                                    FORM_1_SAMPLE_COLUMNS, MIGRATIONS, batch_digest, fingerprint, shape_ids)
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
@@ -362,7 +362,6 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             if column.dtype == bool:
                 held.append(name)
             continue
-        written = np.array(typed[name], dtype=object)
         if name == "oil_hours":
             if column.dtype.kind not in "fiu":
                 continue
@@ -375,6 +374,11 @@ def _held(frame: pd.DataFrame, typed: dict) -> list[str]:
             held.append(name)
             continue
         values = column.to_numpy(dtype=object)
+        if pd.api.types.infer_dtype(values, skipna=False) == "string":  # every value text, none missing
+            if values.tolist() == typed[name]:
+                held.append(name)
+            continue
+        written = np.array(typed[name], dtype=object)
         missing = pd.isna(values)
         if (not set(map(type, values[~missing].tolist())) <= {str}  # every present value text
                 or not (missing == pd.isna(written)).all()):
@@ -392,6 +396,8 @@ def _nullable(values: np.ndarray) -> list:
         values = values + 0.0  # -0.0 + 0.0 is 0.0
         if not np.isnan(values).any():
             return values.tolist()
+    elif values.dtype == object and pd.api.types.infer_dtype(values, skipna=False) == "string":
+        return values.tolist()  # every value text: none missing
     return pd.Series(values, dtype=object).where(pd.notna(values), None).tolist()
 
 
@@ -495,15 +501,22 @@ def measures_of(frame: pd.DataFrame | None, ruleset: RuleSet, also: tuple = ()) 
 
 
 def frame_from_arrays(contents, columns: list, held: list, typed: dict) -> pd.DataFrame:
-    """A form-2 batch's stored values (its arrays, and its `held` columns from `typed`: lists as
-    SQLite gave them) back into the frame frame_from_contents makes of the same values as
-    objects (a column no row has is float NaN; text and flags keep None)."""
+    """A form-2 batch's stored values (its arrays, and its `held` columns from `typed`: lists or
+    object arrays of what SQLite gave) back into the frame frame_from_contents makes of the same
+    values as objects (a column no row has is float NaN; text and flags keep None)."""
     contents = list(contents)
     index = pd.RangeIndex(1, len(contents) + 1, name="row")
     frame = pd.DataFrame(json.loads("[" + ",".join(contents) + "]") if contents else [],
                          columns=[c for c in columns if c not in held], index=index)
+    for name in list(frame.columns):  # one object a distinct text (JSON gives one a row): hashed once when graded
+        if frame[name].dtype == "str":
+            values = frame[name].to_numpy(dtype=object).tolist()
+            frame[name] = pd.Series(list(map({}.setdefault, values, values)), index=index, dtype=frame[name].dtype)
     for name in held:
         values = typed[name]
+        if name != "oil_hours" and isinstance(values, np.ndarray) and \
+                pd.api.types.infer_dtype(values, skipna=True) not in ("string", "empty"):
+            values = values.tolist()  # read as a list is: pandas keeps an object array's numbers as objects
         frame[name] = (np.array(values, dtype=bool) if name == "oil_changed" else
                        pd.Series(values, index=index, dtype=float if name == "oil_hours" else None))
     frame = frame[columns]
@@ -605,7 +618,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
     history = history_frame(conn, units, ruleset)
-    history = history[~history["sample_id"].isin(ids)]
+    if len(history):
+        history = history[~history["sample_id"].isin(ids)]
     graded = grade_batch(batch, ruleset, history)
     fresh = ~known
     n_conflicts = int(conflicts.sum())
@@ -718,17 +732,43 @@ def batch_list(conn: sqlite3.Connection) -> list[dict]:
     return [dict(zip(names, row)) for row in rows.fetchall()]
 
 
-def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.DataFrame, dict]:
+def _object_table(rows: list) -> np.ndarray:
+    """Rows of tuples as a 2-D object array: pandas' own routine for records (a quarter of the time
+    numpy's general conversion takes, which probes every value for nesting), numpy's if it is gone."""
+    try:
+        from pandas._libs.lib import to_object_array_tuples
+    except ImportError:
+        return np.array(rows, dtype=object)
+    return to_object_array_tuples(rows)
+
+
+# Text columns of few distinct values that grading hashes anyway (to group units, classes, methods
+# and dates): replay keeps one object a value, so each is hashed once and held once. SQLite gives a
+# TEXT column back as text, NULL or a blob, so values that compare equal are the same value.
+_SHARED_TEXTS = ("unit_id", "class", "sampled_on", "method")
+
+
+def batch_entries(conn: sqlite3.Connection, batch: int, form: int,
+                  shapes: dict | None = None) -> tuple[pd.DataFrame, dict]:
     """The samples a batch recorded, in the order it recorded them, with their stored verdicts
     (from `verdicts` for forms 1 and 2, None where a sample has none; from the sample's row for
-    form 3); and the columns its digest covers, as lists of what SQLite gave (each row is read
-    once). The frame has only the columns its form stores (a form-2 or form-3 batch's digest
-    counts any reading column that is not empty)."""
-    names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS)
-    names += ("superseded_in",)
-    rows = conn.execute(f"SELECT {', '.join(names)} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
-    columns = dict(zip(names, ([list(column) for column in zip(*rows)] if rows else [[] for _ in names])))
+    form 3); and the columns its digest covers, as object arrays of what SQLite gave (each row
+    is read once, into one table these columns are views of). The frame has the columns its
+    form stores (a form-2 or form-3 batch's digest counts any reading column that is not
+    empty) but the stored values' texts, which are only in `columns`: once the caller has let
+    go of those, the rows read back can go. `shapes` (shape -> (sha256, facts), the whole table, read once by the
+    caller) spares a form-3 batch the join that finds the shapes its samples use. A form-3
+    batch's `columns` also hold each row's schema.DIGEST_3_FILLED ("filled")."""
+    names = {1: FORM_1_SAMPLE_COLUMNS, 2: DIGEST_2_SAMPLE_COLUMNS}.get(form, DIGEST_3_SAMPLE_COLUMNS + ("filled",))
+    read = ", ".join(names) if form in (1, 2) else ", ".join(DIGEST_3_SAMPLE_COLUMNS) + ", " + DIGEST_3_FILLED
+    rows = conn.execute(f"SELECT {read} FROM samples WHERE batch = ? ORDER BY entry", (batch,)).fetchall()
+    table = _object_table(rows) if rows else np.empty((0, len(names)), dtype=object)
     del rows
+    for k, name in enumerate(names):
+        if name in _SHARED_TEXTS:
+            values = table[:, k].tolist()
+            table[:, k] = list(map({}.setdefault, values, values))
+    columns = {name: table[:, k] for k, name in enumerate(names)}
     verdict = ("grade", "level", "shape", "vals")
     if form in (1, 2):
         rows = conn.execute("SELECT v.entry, v.grade, v.level, v.shape, v.vals FROM samples s JOIN verdicts v "
@@ -739,18 +779,21 @@ def batch_entries(conn: sqlite3.Connection, batch: int, form: int) -> tuple[pd.D
         used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN verdicts v "
                             "ON v.entry = s.entry JOIN shapes sh ON sh.shape = v.shape WHERE s.batch = ? "
                             "ORDER BY sh.shape", (batch,)).fetchall()
+    elif shapes is not None:  # as the join below: the distinct shape ids that name a stored shape, in order
+        used = [(shape, *shapes[shape]) for shape in sorted(s for s in set(columns["shape"].tolist()) if s in shapes)]
     else:
         used = conn.execute("SELECT DISTINCT sh.shape, sh.sha256, sh.facts FROM samples s JOIN shapes sh "
                             "ON sh.shape = s.shape WHERE s.batch = ? ORDER BY sh.shape", (batch,)).fetchall()
     columns["used_shapes"] = [[shape for shape, _, _ in used], [sha for _, sha, _ in used]]
     facts = {shape: text for shape, _, text in used}
-    frame = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in names if name not in verdict})
+    kept = [k for k, name in enumerate(names) if name not in verdict + ("content", "filled")]
+    frame = pd.DataFrame(table[:, kept], columns=[names[k] for k in kept], dtype=object)  # a copy: not a view
     if form in (1, 2):
         verdicts = pd.DataFrame({name: pd.Series(columns[name], dtype=object) for name in ("verdict_entry",) + verdict})
         verdicts = verdicts.set_index("verdict_entry").reindex(columns["entry"])
         stored = {name: verdicts[name].to_numpy(dtype=object) for name in verdict}
     else:
-        stored = {name: np.array(columns[name], dtype=object) for name in verdict}
+        stored = {name: columns[name] for name in verdict}
     for name in ("grade", "level", "vals"):
         frame[name] = stored[name]
     frame["facts"] = pd.Series(stored["shape"], dtype=object).map(facts).to_numpy(dtype=object)  # NaN: shape gone

@@ -296,3 +296,67 @@ def test_digest_2_spells_different_columns_differently():
     spelled = [_spelled(list(column)) for column in columns]
     assert len(set(spelled)) == len(columns)
     assert _spelled(["a", "b"]) == b"Sa\x00b\x1f" and _spelled(["a", None]) == b'J["a", null]\x1f'
+
+
+@pytest.mark.parametrize("shape", [None, "sha", 10_000, "x", 2.5, "1"])
+def test_replay_reads_a_batch_as_the_frozen_digest_queries_do(clean, tmp_path, shape):
+    # Replay finds a form-3 batch's used shapes from the shapes table read once, and counts its
+    # filled reading columns from the rows it reads (schema.DIGEST_3_FILLED) while `verdicts` is
+    # empty: each must give what the frozen digest-3 query gives, whatever a sample's shape id was
+    # altered to (None: a reading column filled instead; "sha": a fingerprint).
+    from sumpwise.ledger.schema import DIGEST_3_QUERIES
+    from sumpwise.ledger.store import batch_entries
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        if shape is None:
+            conn.execute("UPDATE samples SET kv40 = 46.0 WHERE entry = (SELECT min(entry) FROM samples WHERE batch = 2)")
+        elif shape == "sha":
+            conn.execute("UPDATE samples SET content_sha256 = 0 WHERE entry = (SELECT min(entry) FROM samples "
+                         "WHERE batch = 2)")
+        else:
+            conn.execute("UPDATE samples SET shape = ? WHERE entry = (SELECT min(entry) FROM samples WHERE batch = 2)",
+                         (shape,))
+        shapes = {row[0]: row[1:] for row in conn.execute("SELECT shape, sha256, facts FROM shapes")}
+        for batch in (1, 2, 3):
+            frame, columns = batch_entries(conn, batch, 3, shapes)
+            joined, joined_columns = batch_entries(conn, batch, 3)
+            used = conn.execute(DIGEST_3_QUERIES[3], (batch,)).fetchall()
+            assert columns["used_shapes"] == joined_columns["used_shapes"] == [[k for k, _ in used],
+                                                                              [sha for _, sha in used]]
+            assert frame["facts"].equals(joined["facts"])
+            filled = columns["filled"].tolist()
+            assert (len(filled) - filled.count(None),) == conn.execute(DIGEST_3_QUERIES[2], (batch,)).fetchone()
+            if batch == 2:
+                assert len(filled) - filled.count(None) == (1 if shape in (None, "sha") else 0)
+    assert replay(db).differences
+
+
+@pytest.mark.parametrize("alteration", [
+    "UPDATE samples SET superseded_in = 2 WHERE entry = 2",  # marked as corrected, by no correction
+    "UPDATE samples SET corrects = 1 WHERE entry = (SELECT max(entry) FROM samples)",  # corrects a current sample
+    "UPDATE samples SET corrects = 'x' WHERE corrects IS NOT NULL",
+    "UPDATE samples SET superseded_in = 3.5 WHERE superseded_in IS NOT NULL",
+    "DELETE FROM batches WHERE batch = 2",
+])
+def test_the_ledger_wide_checks_find_what_their_sql_finds(clean, tmp_path, alteration):
+    # Replay finds the samples of no batch and the corrections that do not pair up in one pass over
+    # the samples; each finding must be what these queries (the checks as SQL) return, in order.
+    from sumpwise.ledger.audit import _ledger_findings
+    queries = (
+        ("SELECT s.sample_id, s.batch FROM samples s LEFT JOIN batches b ON b.batch = s.batch WHERE b.batch IS NULL "
+         "ORDER BY s.entry", "recorded in a batch that is not in the ledger"),
+        ("SELECT s.sample_id, s.batch FROM samples s WHERE s.superseded_in IS NOT NULL AND (s.entry, s.superseded_in) "
+         "NOT IN (SELECT c.corrects, c.batch FROM samples c WHERE c.corrects IS NOT NULL) ORDER BY s.entry",
+         "marked as corrected, but no correction"),
+        ("SELECT c.sample_id, c.batch FROM samples c WHERE c.corrects IS NOT NULL AND NOT EXISTS "
+         "(SELECT 1 FROM samples s WHERE s.entry = c.corrects AND s.superseded_in = c.batch) ORDER BY c.entry",
+         "a correction whose corrected version"),
+    )
+    db = _copy(clean, tmp_path)
+    with sqlite3.connect(db) as conn:
+        conn.execute("PRAGMA foreign_keys = OFF")
+        conn.execute(alteration)
+        found = _ledger_findings(conn)
+        expected = [(sid, batch, what) for query, what in queries for sid, batch in conn.execute(query).fetchall()]
+    got = [(d.sample_id, d.batch, what) for d in found for _, what in queries if d.what.startswith(what)]
+    assert got == expected and expected
