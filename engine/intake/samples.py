@@ -230,13 +230,13 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         infinite = np.isinf(values)
         if text is not None and not_a_number.any():
             at = np.flatnonzero(not_a_number)
-            spelled = [str(t).casefold().strip("+-") for t in text.to_numpy(dtype=object)[at]]
+            spelled = np.strings.strip(np.strings.lower(text.to_numpy(dtype=object)[at].astype(str)), "+-")
             infinite[at[np.isin(spelled, ("nan", "inf", "infinity"))]] = True
         if infinite.any():
             reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D014")
             values = np.where(infinite, np.nan, values)
             not_a_number &= ~infinite
-        censored = None
+        censored = held = None
         if not_a_number.any():
             limit = columns.detection_limits.get(column)
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
@@ -250,8 +250,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                         f": the decimal mark is {decimal!r}, so a '.' could be a thousands separator or a slip; "
                         f"the value is not guessed")
                 reject(cells.bad, column, reasons, "D004")
-            if (cells.censored != None).any():  # noqa: E711 (elementwise)
-                censored = cells.censored
+            if cells.held.any():
+                censored, held = cells.censored, cells.held
         domain = domain_of(column)
         if domain == POSITIVE and (values <= 0).any():
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
@@ -265,9 +265,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         raw[column] = values
         if censored is not None:
             raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)
-            written = np.where(censored != None, text.to_numpy(dtype=object), None)  # noqa: E711
+            written = np.where(held, text.to_numpy(dtype=object), None)
             if factor != 1.0:  # a bound in the lab's unit beside the engine's unit would misread: spell it converted
-                at = np.flatnonzero(censored != None)  # noqa: E711 (the censored cells only: a few)
+                at = np.flatnonzero(held)  # the censored cells only: a few
                 bound = np.array([str(written[k])[:1] in "<>\u2264\u2265" for k in at], dtype=bool)
                 written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
