@@ -1,9 +1,10 @@
 """Benchmark: grade synthetic samples end to end and print each figure beside its floor or target.
 
 On N samples (default 1,000,000) against the shipped rules of all six classes: the stages
-in one process (read CSV, derive + evaluate, render compact and full JSON Lines, the
-per-record API `graded.results()`, and the per-row evaluator against derive + evaluate); then whole processes: `sumpwise grade` to compact and
-to full records, and the per-row peer script (peer_per_row.py: csv module + the per-row
+in one process (read CSV, derive + evaluate without and with forecasts, render compact and
+full JSON Lines as UTF-8 bytes as `grade` writes them, the per-record API `graded.results()`,
+and the per-row evaluator against derive + evaluate); then whole processes: the start-up
+(imports), `sumpwise grade` to compact and to full records, and the per-row peer script (peer_per_row.py: csv module + the per-row
 oracle) on a smaller file, whose output must equal sumpwise's byte for byte. With
 --chunked-rows M it also grades an M-row file in chunks and prints the process's peak
 memory. Figures only: nothing here is asserted.
@@ -30,7 +31,7 @@ HERE = Path(__file__).resolve().parent
 RULES = HERE / "all-classes.yaml"
 
 from sumpwise.intake.samples import read_samples  # noqa: E402
-from sumpwise.render.jsonl import jsonl_lines  # noqa: E402
+from sumpwise.render.jsonl import jsonl_bytes, write_jsonl_bytes  # noqa: E402
 from sumpwise.results.pipeline import grade_batch  # noqa: E402
 from sumpwise.ruleset.compiler import load_ruleset  # noqa: E402
 
@@ -174,22 +175,23 @@ def main() -> None:
         row("read CSV and validate rows", clock.lap(), n)
         pd.read_csv(csv_path)
         row("floor: pandas.read_csv alone", clock.lap(), n)
+        grade_batch(batch, ruleset, forecasts=False)
+        row("derive, trends, evaluate, no forecasts", clock.lap(), n, "(what a grade read in chunks does)")
         graded = grade_batch(batch, ruleset)
-        row("derive, trends, evaluate", clock.lap(), n)
+        row("derive, trends, evaluate, forecasts", clock.lap(), n)
         sizes = {}
         for form in ("compact", "full"):
             target = folder / f"{form}.jsonl"
             clock = Clock()
-            with open(target, "w", encoding="utf-8") as out:
-                for block in jsonl_lines(graded, form=form):
-                    out.write(block)
+            with open(target, "wb") as out:  # UTF-8 bytes, as `grade` writes them
+                write_jsonl_bytes(graded, out, form)
             sizes[form] = target.stat().st_size
             row(f"render + write {form} JSON Lines", clock.lap(), n,
                 f"{sizes[form] / 1e6:,.0f} MB, {sizes[form] / n:,.0f} bytes a sample")
-            block = next(jsonl_lines(graded, form=form))
+            block = next(jsonl_bytes(graded, form=form))
             clock = Clock()
-            with open(folder / "floor.jsonl", "w", encoding="utf-8") as out:
-                for _ in range(max(1, round(sizes[form] / len(block.encode())))):
+            with open(folder / "floor.jsonl", "wb") as out:
+                for _ in range(max(1, round(sizes[form] / len(block)))):
                     out.write(block)
             row(f"floor: writing {sizes[form] / 1e6:,.0f} MB of ready text", clock.lap(), n)
             (folder / "floor.jsonl").unlink()
@@ -204,6 +206,11 @@ def main() -> None:
         print(f"peak memory of this process so far: {peak_mb():,.0f} MB")
         del graded, batch, values
 
+        print("\nwhole process, start-up (once a process, not scaled):")
+        for name, code in (("import numpy and pandas (floor)", "import numpy, pandas"),
+                           ("import sumpwise's command line", "import sumpwise.cli.main")):
+            seconds, cpu, _ = run(["-c", code])
+            print(f"{name:<40} wall {seconds:>7.2f} s  cpu {cpu:>7.2f} s")
         print("\nwhole process, `sumpwise grade SAMPLES --rules all-classes.yaml --out ...`:")
         for form in ("compact", "full"):
             seconds, cpu, peak = run(["-m", "sumpwise", "grade", csv_path, "--rules", RULES, "--record", form,
@@ -243,6 +250,7 @@ def main() -> None:
             row("sumpwise grade, chunked", seconds, args.chunked_rows,
                 f"peak {peak:,.0f} MB (target within {MEMORY_MB:,} MB: {'met' if peak <= MEMORY_MB else 'NOT met'});"
                 f" {lines:,} records")
+    print(f"\nload average at the end: {os.getloadavg()[0]:.1f}")
 
 
 if __name__ == "__main__":

@@ -9,10 +9,13 @@ or a ledger import rejected rows whose sample id was recorded with other values)
 from __future__ import annotations
 
 import argparse
+import codecs
 import contextlib
 import difflib
+import io
 import csv
 import json
+import os
 import sys
 import traceback
 from collections import Counter
@@ -27,7 +30,7 @@ from sumpwise.results.pipeline import grade_batch, grade_in_chunks
 from sumpwise.intake.chunked import sample_chunks
 from sumpwise.vocabulary.problems import InputError, InvalidFile
 from sumpwise.render.csv_rows import write_csv
-from sumpwise.render.jsonl import dumps, write_jsonl
+from sumpwise.render.jsonl import dumps, write_jsonl, write_jsonl_bytes
 from sumpwise.render.table import FIRST_CAVEATS, write_table
 from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import FORMS, FULL
@@ -331,6 +334,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
     with contextlib.ExitStack() as stack:
         out = _opened(stack, args.out, "--out") if args.out else stdout
         rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
+        binary = _utf8_bytes_under(out, own=bool(args.out))
         first = True
         for source in sources:
             tally = _Tally(ruleset)
@@ -338,7 +342,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 conflicts += refused
                 for note in notes:
                     stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
-                _write_records(args, graded, out, stderr, header=first)
+                _write_records(args, graded, out, stderr, header=first, binary=binary)
                 _put_rejects(graded, rejects, args.rejects, header=first)
                 first = False
                 tally.add(graded, notes)
@@ -447,8 +451,21 @@ def _noting(batches, said: list):
         batch = None
 
 
-def _write_records(args, graded, out, stderr, header: bool) -> None:
-    if args.format == "jsonl":
+def _utf8_bytes_under(out, own: bool):
+    """The binary stream under `out` when UTF-8 bytes written there are what text written to `out`
+    gives (an --out file opened here: UTF-8, no newline translation; or standard output in strict
+    UTF-8 where a line ends in \\n), else None. Records are made as bytes: writing them as text
+    would decode and encode each block again."""
+    if not isinstance(out, io.TextIOWrapper) or out.errors != "strict" or codecs.lookup(out.encoding).name != "utf-8":
+        return None
+    return out.buffer if own or (out is sys.stdout and os.linesep == "\n") else None
+
+
+def _write_records(args, graded, out, stderr, header: bool, binary=None) -> None:
+    if args.format == "jsonl" and binary is not None:
+        out.flush()  # what the text layer holds goes first
+        write_jsonl_bytes(graded, binary, args.record)
+    elif args.format == "jsonl":
         write_jsonl(graded, out, args.record)
     elif args.format == "csv":
         write_csv(graded, out, header=header)

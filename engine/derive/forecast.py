@@ -173,12 +173,13 @@ def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
 
     hours = measured["oil_hours"].to_numpy(dtype=float)
     days = _days(measured["sampled_on"].to_numpy(dtype=object))
-    classes = measured["class"].to_numpy(dtype=object)
+    class_codes, class_names = pd.factorize(measured["class"].to_numpy(dtype=object))
+    class_of = {name: k for k, name in enumerate(class_names)}  # compared as codes, not as text a row
     names = (measured["unit_id"].to_numpy(dtype=object), measured["sample_id"].to_numpy(dtype=object))
     declared = json.loads(ruleset.canonical).get("measures", {}) if ruleset.measures and ruleset.canonical else {}
     found = []
     for class_name in ruleset.classes:
-        in_class = current & (classes == class_name)
+        in_class = current & (class_codes == class_of.get(class_name, -2))
         if not in_class.any():
             continue
         for rule in ruleset.rules_for(class_name):
@@ -249,7 +250,10 @@ def _fit_rule(rule, unit, names, run, runs, use, x, y, days, last_row, ruleset) 
     end = x_now + horizon
     low = np.maximum(low, x_now)
     high = np.where(high > end, np.nan, np.maximum(high, x_now))
-    per_hour = _pace(days[use], r, xs, runs)[g]
+    wanted = np.zeros(runs, dtype=bool)
+    wanted[g] = True
+    inside = wanted[r]  # the pace of the runs forecast only: a sort of their samples, not of all the rule's
+    per_hour = _pace(days[use][inside], r[inside], xs[inside], runs)[g]
 
     def dated(hours):
         return _dates(days[rows] + (hours - x_now) * per_hour)

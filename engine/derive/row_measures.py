@@ -113,9 +113,13 @@ def _numbers(frame: pd.DataFrame, column: str) -> np.ndarray:
 def _texts(frame: pd.DataFrame, column: str) -> pd.Series:
     """A text column as str-or-None; samples.py has already stripped it and blanked empty cells."""
     if column in frame.columns:
-        series = frame[column].astype(object)
-        return series.where(series.notna(), None)
-    return pd.Series([None] * len(frame), index=frame.index, dtype=object)
+        values = frame[column].to_numpy(dtype=object)
+        if pd.api.types.infer_dtype(values, skipna=False) != "string":  # str in every cell: none missing
+            missing = pd.isna(values)
+            if missing.any():  # NaN from a reader becomes None, in a copy: the frame stays as it is
+                values = np.where(missing, None, values)
+        return pd.Series(values, index=frame.index, dtype=object)  # copied: the samples frame is not shared
+    return pd.Series(np.full(len(frame), None, dtype=object), index=frame.index, dtype=object, copy=False)
 
 
 def _by_code(lookup: np.ndarray, values: list, fill) -> np.ndarray:

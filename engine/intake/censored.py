@@ -38,12 +38,14 @@ _SIGN = {"<": "<", ">": ">", "<=": "<=", ">=": ">=", "\u2264": "<=", "\u2265": "
 class CensoredCells:
     """What the cells that are not plain numbers of one column turned out to be.
 
-    Arrays are aligned with the column: `censored` text (or None) and `bad` (neither censored
-    nor a spelling of "no reading", or a bound that is not a finite number: the row is
-    rejected). The rest (`N/A`, ND without a detection limit) stay missing.
+    Arrays are aligned with the column: `censored` text (or None), `held` (where that text
+    is: a mask, so callers need not compare a million objects with None) and `bad` (neither
+    censored nor a spelling of "no reading", or a bound that is not a finite number: the row
+    is rejected). The rest (`N/A`, ND without a detection limit) stay missing.
     """
 
     censored: np.ndarray
+    held: np.ndarray
     bad: np.ndarray
 
 
@@ -61,9 +63,9 @@ def read_censored(text: np.ndarray, candidates: np.ndarray, decimal: str, factor
     """
     n = len(text)
     censored = np.full(n, None, dtype=object)
-    bad = np.zeros(n, dtype=bool)
+    held, bad = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
     if not candidates.any():
-        return CensoredCells(censored, bad)
+        return CensoredCells(censored, held, bad)
     at = np.flatnonzero(candidates)
     codes, uniques = pd.factorize(text[at])
     kinds = np.zeros(len(uniques), dtype=np.int8)  # 0 bad, 1 censored, 2 missing
@@ -72,8 +74,9 @@ def read_censored(text: np.ndarray, candidates: np.ndarray, decimal: str, factor
         kinds[k], spelled[k] = _classify(str(cell), decimal, factor, detection_limit)
     kind = kinds[codes]
     censored[at[kind == 1]] = spelled[codes][kind == 1]
+    held[at[kind == 1]] = True
     bad[at[kind == 0]] = True
-    return CensoredCells(censored, bad)
+    return CensoredCells(censored, held, bad)
 
 
 def _classify(cell: str, decimal: str, factor: float, detection_limit: float | None) -> tuple[int, str | None]:

@@ -140,7 +140,7 @@ def _moved(batch: SampleBatch, offset: int) -> SampleBatch:
     """The chunk's row numbers (from 1 in each chunk) moved to the whole file's."""
     if not offset:
         return batch
-    frame = batch.frame.copy()
+    frame = batch.frame.copy(deep=False)  # copy-on-write: a new index, the columns shared
     frame.index = frame.index + offset
     rejects = []
     for r in batch.rejects:

@@ -196,18 +196,21 @@ def read_jsonl(text: str, numeric: set = frozenset()) -> RawTable:
     return _without_twice_given_keys(table, text, every_key)
 
 
+_BLANK_LINE = re.compile(r"\n[ \t\r]*\n")  # inside the text; a blank first or last line fails below
+
+
 def _plain_lines_table(text: str, numeric: set) -> tuple[RawTable | None, bool]:
-    """The table of a file whose every line starts with `{` and holds one object of the first
-    line's keys (or some of them), in one pass of msgspec over the text, and whether every
-    line gave every one of them; (None, False) otherwise.
+    """The table of a file whose every line holds one object of the first line's keys (or
+    some of them), in one pass of msgspec over the text, and whether every line gave every
+    one of them; (None, False) otherwise.
 
     A valid JSON text holds no raw line end (strings escape it), so every line end of such a
-    file ends a line, and a line that starts with `{` holds at least one value: as many
+    file ends a line. With no blank line, every line holds at least one value, and as many
     objects as lines then means one object a line, row N on line N (msgspec's line reader
     alone would skip a blank line or take two objects from one line without a word).
     """
     lines = text.count("\n") + (not text.endswith("\n"))
-    if not text.startswith("{") or text.count("\n{") != lines - 1:
+    if _BLANK_LINE.search(text):
         return None, False
     names = _first_keys(text[:text.find("\n")] if lines > 1 else text)
     if names is None:

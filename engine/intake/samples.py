@@ -149,7 +149,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         check_header(list(raw.columns))
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
-    raw = raw.copy()
+    raw = raw.copy(deep=False)  # copy-on-write (pandas 3): the caller's frame stays as it was, nothing copied now
     raw.columns = [str(c).strip() for c in raw.columns]
     raw.index = pd.Index(rows, name="row")
     renames = {}
@@ -215,8 +215,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             rejects.append(Reject(int(row), sid or None, field_name, str(why), code))
         bad |= mask
 
-    reject(sample_id == "", "sample_id", "no sample id: every row needs one", "D002")
-    dup = (sample_id.duplicated(keep="first") & (sample_id != "")).to_numpy()
+    no_id = (sample_id == "").to_numpy()
+    reject(no_id, "sample_id", "no sample id: every row needs one", "D002")
+    dup = sample_id.duplicated(keep="first").to_numpy() & ~no_id
     if dup.any():
         first_row = pd.Series(raw.index, index=raw.index).groupby(sample_id.to_numpy()).transform("first")
         reject(dup, "sample_id", ("sample id '" + sample_id + "' already seen at row "
@@ -229,13 +230,13 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         infinite = np.isinf(values)
         if text is not None and not_a_number.any():
             at = np.flatnonzero(not_a_number)
-            spelled = [str(t).casefold().strip("+-") for t in text.to_numpy(dtype=object)[at]]
+            spelled = np.strings.strip(np.strings.lower(text.to_numpy(dtype=object)[at].astype(str)), "+-")
             infinite[at[np.isin(spelled, ("nan", "inf", "infinity"))]] = True
         if infinite.any():
             reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D014")
             values = np.where(infinite, np.nan, values)
             not_a_number &= ~infinite
-        censored = None
+        censored = held = None
         if not_a_number.any():
             limit = columns.detection_limits.get(column)
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
@@ -249,8 +250,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                         f": the decimal mark is {decimal!r}, so a '.' could be a thousands separator or a slip; "
                         f"the value is not guessed")
                 reject(cells.bad, column, reasons, "D004")
-            if (cells.censored != None).any():  # noqa: E711 (elementwise)
-                censored = cells.censored
+            if cells.held.any():
+                censored, held = cells.censored, cells.held
         domain = domain_of(column)
         if domain == POSITIVE and (values <= 0).any():
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
@@ -264,9 +265,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         raw[column] = values
         if censored is not None:
             raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)
-            written = np.where(censored != None, text.to_numpy(dtype=object), None)  # noqa: E711
+            written = np.where(held, text.to_numpy(dtype=object), None)
             if factor != 1.0:  # a bound in the lab's unit beside the engine's unit would misread: spell it converted
-                at = np.flatnonzero(censored != None)  # noqa: E711 (the censored cells only: a few)
+                at = np.flatnonzero(held)  # the censored cells only: a few
                 bound = np.array([str(written[k])[:1] in "<>\u2264\u2265" for k in at], dtype=bool)
                 written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
@@ -321,6 +322,11 @@ def _padded(joined: str) -> bool:
                for space in _ASCII_SPACE)  # one fast single-character scan each, mostly
 
 
+def _has_empty(joined: str, any_present: bool) -> bool:
+    """Whether one of the \\x00-joined texts is empty: two separators side by side, or one at an end."""
+    return any_present and (not joined or joined[0] == "\x00" or joined[-1] == "\x00" or "\x00\x00" in joined)
+
+
 def _text_column(column: pd.Series) -> pd.Series:
     """Text as Python str or None: stripped, empty cells missing.
 
@@ -328,14 +334,21 @@ def _text_column(column: pd.Series) -> pd.Series:
     as it is; otherwise each distinct value is cleaned once (codes repeat a lot).
     """
     values = column.to_numpy(dtype=object)
-    present = ~pd.isna(values)
     try:
-        joined = "\x00".join(values[present])
-    except TypeError:  # not all text (JSON Lines numbers): spelled as text below
-        joined = None
-    if joined is not None and joined.count("\x00") == present.sum() - 1 and not _padded(joined):
+        joined, present = "\x00".join(values), None  # every cell is text, so none is missing (None, NaN raise)
+    except TypeError:
+        present = ~pd.isna(values)
+        try:
+            joined = "\x00".join(values[present])
+        except TypeError:  # not all text (JSON Lines numbers): spelled as text below
+            joined = None
+    count = len(values) if present is None else int(present.sum())
+    if joined is not None and joined.count("\x00") == count - 1 and not _padded(joined):
         cleaned = values.copy()
-        cleaned[~present | (values == "")] = None
+        if present is not None:
+            cleaned[~present] = None
+        if _has_empty(joined, count > 0):  # found by one scan of the joined text, not a comparison a cell
+            cleaned[cleaned == ""] = None
         return pd.Series(cleaned, index=column.index, dtype=object)
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     cleaned = np.array([str(u).strip() or None for u in uniques] + [None], dtype=object)

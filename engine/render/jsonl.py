@@ -24,6 +24,8 @@ from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.results.records import (FORMS, FULL, UNRATED, ColumnArrays, GradedBatch, build_result,
                                       caveat_at, condition_inputs, gap_at, reason_at, record_shape_groups, rule_inputs)
 
+JOINED_ROWS = 8192  # lines joined into one bytes object: about 10 MB of full records
+
 _TOKEN = re.compile(r'"\\u0000sw(\d+)\\u0000"')
 _ESCAPED = re.compile(r'["\\\x00-\x1f]')
 
@@ -77,58 +79,112 @@ def _template(text: str, values: _TemplateValues) -> tuple[list[str], list]:
     return pieces[0::2], [values.wanted[int(k)] for k in pieces[1::2]]
 
 
-def _text_literals(values: np.ndarray) -> np.ndarray:
-    """JSON string literals (or null) for a column of str-or-None."""
+def _encoded(texts, errors: str) -> list[bytes]:
+    """UTF-8 bytes of each text, in three C-level calls (join, encode, split) instead of one
+    encode a text; JSON literals never hold a raw NUL (json.dumps escapes it)."""
+    return "\x00".join(texts).encode("utf-8", errors).split(b"\x00")
+
+
+class _Column:
+    """A column's literals for some rows, or the one literal all those rows share (`same`): a
+    shared literal (a column the file lacks, one method, no date) is written into the form once
+    instead of passed to every row's %-call."""
+
+    def __init__(self, literals: np.ndarray | None, same: bytes | None = None):
+        self.literals, self.same = literals, same
+
+    def array(self, n: int) -> np.ndarray:
+        return self.literals if self.same is None else np.full(n, self.same, dtype=object)
+
+    def take(self, local: np.ndarray) -> "_Column":
+        return self if self.same is not None else _Column(self.literals[local])
+
+
+def _shared(codes: np.ndarray, table) -> _Column | None:
+    """The column as one literal when all its rows hold the same value (or all are missing)."""
+    if len(table) == 1:  # no value at all: the table holds only null
+        return _Column(None, table[-1])
+    if len(table) == 2 and codes.min(initial=0) >= 0:
+        return _Column(None, table[0])
+    return None
+
+
+def _quoted(texts, errors: str) -> list[bytes]:
+    """JSON string literals of texts as UTF-8 bytes: quotes put around them all
+    in one pass when none needs escaping (the usual case), json.dumps of each otherwise."""
+    try:
+        joined = "\x00".join(texts)
+    except TypeError:  # a value that is not str (a caller's own frame): spelled as str, as records do
+        texts = [str(t) for t in texts]
+        joined = "\x00".join(texts)
+    if joined.count("\x00") == len(texts) - 1 and not _ESCAPED.search(joined.replace("\x00", "")):
+        return ('"' + joined.replace("\x00", '"\x00"') + '"').encode("utf-8", errors).split(b"\x00")
+    return _encoded([json.dumps(t, ensure_ascii=False) for t in texts], errors)
+
+
+def _text_literals(values: np.ndarray, errors: str) -> _Column:
+    """JSON string literals (or null) for a column of str-or-None, as UTF-8 bytes."""
+    if not len(values):
+        return _Column(np.empty(0, dtype=object))
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     if len(uniques) < len(values) // 2:
-        table = [json.dumps(str(u), ensure_ascii=False) for u in uniques] + ["null"]
-        return np.array(table, dtype=object)[codes]
+        table = (_quoted([str(u) for u in uniques], errors) if len(uniques) else []) + [b"null"]
+        return _shared(codes, table) or _Column(np.array(table, dtype=object)[codes])
     present = codes >= 0
-    texts = np.where(present, values, "").astype(object)
-    joined = "\x00".join(texts)
-    if joined.count("\x00") == len(texts) - 1 and not _ESCAPED.search(joined.replace("\x00", "")):
-        literal = '"' + texts + '"'
-    else:
-        literal = np.array([json.dumps(str(t), ensure_ascii=False) for t in texts], dtype=object)
-    literal[~present] = "null"
-    return literal
+    literal = np.empty(len(values), dtype=object)
+    literal[:] = _quoted(np.where(present, values, "").astype(object).tolist(), errors)
+    literal[~present] = b"null"
+    return _Column(literal)
 
 
-def _number_literals(values: np.ndarray) -> np.ndarray:
+def _number_literals(values: np.ndarray) -> _Column:
     """JSON number literals (or null), spelled as Python's float repr, each distinct value once
     (-0.0 is spelled 0.0, as records.RowValues gives it: factorize takes the two as one value)."""
     codes, uniques = pd.factorize(values + 0.0, use_na_sentinel=True)
-    table = np.array(list(map(repr, uniques.tolist())) + ["null"], dtype=object)
-    table[:-1][~np.isfinite(uniques)] = "null"
-    return table[codes]
+    table = np.empty(len(uniques) + 1, dtype=object)
+    table[:] = ",".join(map(repr, uniques.tolist())).encode().split(b",") + [b"null"] if len(uniques) else [b"null"]
+    table[:-1][~np.isfinite(uniques)] = b"null"
+    return _shared(codes, table) or _Column(table[codes])
+
+
+def _integer_literals(values: np.ndarray) -> np.ndarray:
+    """Decimal literals of integers: one bytes %-format over them all, split (half numpy's
+    conversion to fixed-width bytes and back to objects)."""
+    literals = np.empty(len(values), dtype=object)
+    if len(values):
+        literals[:] = (b"%d," * len(values) % tuple(values.tolist()))[:-1].split(b",")
+    return literals
 
 
 class _Literals:
-    """JSON literals of a column, for the rows asked (one block at a time, so memory stays
-    bounded by the block, not the batch), from the batch's arrays (each column converted once)."""
+    """JSON literals of a column as UTF-8 bytes, for the rows asked (one block at a time, so memory
+    stays bounded by the block, not the batch), from the batch's arrays (each column converted once)."""
 
-    def __init__(self, columns: ColumnArrays):
-        self.columns = columns
+    def __init__(self, columns: ColumnArrays, errors: str):
+        self.columns, self.errors = columns, errors
 
-    def get(self, kind: str, name: str, rows: np.ndarray) -> np.ndarray:
+    def get(self, kind: str, name: str, rows: np.ndarray) -> _Column:
         if kind == "row":  # the sample's row in its file (records.RowValues.row)
             index = self.columns.index
-            return (np.full(len(rows), "null", dtype=object) if index is None
-                    else index[rows].astype(str).astype(object))
+            return _Column(None, b"null") if index is None else _Column(_integer_literals(index[rows]))
         if kind == "flag":
             values = self.columns.number(name)
-            if values is None:
-                return np.full(len(rows), "false", dtype=object)
-            return np.where(values[rows] == 1.0, "true", "false").astype(object)
+            flags = np.zeros(len(rows), dtype=bool) if values is None else values[rows] == 1.0
+            if flags.all() or not flags.any():
+                return _Column(None, b"true" if len(flags) and flags[0] else b"false")
+            return _Column(np.where(flags, b"true", b"false").astype(object))
         values = self.columns.number(name) if kind == "number" else self.columns.text(name)
         if values is None:
-            return np.full(len(rows), "null", dtype=object)
-        literals = _number_literals(values[rows]) if kind == "number" else _text_literals(values[rows])
+            return _Column(None, b"null")
+        literals = (_number_literals(values[rows]) if kind == "number"
+                    else _text_literals(values[rows], self.errors))
         written = self.columns.written(name) if kind == "number" else None
         if written is not None:  # censored readings, as the lab wrote them
             shown = written[rows]
             here = pd.notna(shown)
-            literals[here] = _text_literals(shown[here])
+            if here.any():
+                literals = _Column(literals.array(len(rows)).copy())
+                literals.literals[here] = _text_literals(shown[here], self.errors).array(int(here.sum()))
         return literals
 
 
@@ -152,17 +208,17 @@ class _Block:
     """One block of rows: literals of each column once, and the groups that make its lines."""
 
     def __init__(self, literals: _Literals, rows: np.ndarray):
-        self.literals, self.rows = literals, rows
+        self.literals, self.rows, self.errors = literals, rows, literals.errors
         self.raw: dict = {}  # per-row texts the records' own fields take (grade, level, ...)
         self.groups: list[_Group] = []
         self.whole: dict = {}  # (kind, name) -> literals of every row of the block, once converted
 
-    def literal(self, kind: str, name: str, local: np.ndarray) -> np.ndarray:
+    def literal(self, kind: str, name: str, local: np.ndarray) -> _Column:
         """Literals of these rows only: many columns are read by a few rows' reasons."""
         if kind == "raw":
-            return self.raw[name][local]
+            return self.raw[name].take(local)
         if (kind, name) in self.whole:  # reasons and clauses repeat the record's own values
-            return self.whole[kind, name][local]
+            return self.whole[kind, name].take(local)
         literals = self.literals.get(kind, name, self.rows[local])
         if len(local) == len(self.rows):
             self.whole[kind, name] = literals
@@ -172,47 +228,58 @@ class _Block:
         self.groups.append(_Group(slot, local, template, listed))
 
     def _filled(self, template: tuple[list[str], list], local: np.ndarray, lead: str):
-        """The template's text for each of these rows: one C-level %-format call a row."""
+        """The template's text for each of these rows: one C-level %-format call a row, on bytes
+        (bytes formatting finds each `%` with memchr; str formatting reads the form a character
+        at a time, which for forms of mostly fixed text costs a third more). A literal all these
+        rows share goes into the form; the form is the whole text when no literal differs."""
         chunks, wanted = template
-        if not wanted:
-            return lead + chunks[0]
-        form = lead.replace("%", "%%") + "%s".join(chunk.replace("%", "%%") for chunk in chunks)
-        columns = [self.literal(kind, name, local).tolist() for kind, name in wanted]
+        parts, columns = [(lead + chunks[0]).encode("utf-8", self.errors)], []
+        for (kind, name), chunk in zip(wanted, chunks[1:]):
+            column, text = self.literal(kind, name, local), chunk.encode("utf-8", self.errors)
+            if column.same is not None:
+                parts[-1] += column.same + text
+            else:
+                columns.append(column.literals.tolist())
+                parts.append(text)
+        if not columns:
+            return parts[0]
+        form = b"%s".join(part.replace(b"%", b"%%") for part in parts)
         return [form % args for args in zip(*columns)]
 
-    def text(self, lists: list[range]) -> str:
-        """Lay the pieces out in line order and join the block in one call.
+    def text(self, lists: list[range]) -> list[bytes]:
+        """Lay the pieces out in line order and join them, JOINED_ROWS lines at a time.
 
-        A row's occupied slots, counted cumulatively, give each piece its place in one flat
-        array, so no line is ever built by repeated concatenation. The first item of each
-        list (reasons, caveats, gaps) in a row is written without the separator.
+        Groups are placed in slot order, so each row's next piece goes after the pieces it
+        already has: a running count a row gives every piece its place in one flat array
+        (no line is built by repeated concatenation, and no rows x slots matrix is made). The
+        first item of each list (reasons, caveats, gaps) in a row is written without the separator.
+        Joined a few megabytes at a time, the memory of one join is reused by the next; a
+        block's hundred megabytes at once would be new pages each time (half the join's cost).
         """
         n = len(self.rows)
-        used = np.unique([group.slot for group in self.groups])  # in order; most slots are empty in a block
-        column = {int(slot): k for k, slot in enumerate(used)}
-        occupied = np.zeros((n, len(used)), dtype=bool)
-        for group in self.groups:
-            occupied[group.rows, column[group.slot]] = True
-        first = np.zeros_like(occupied)
-        for span in lists:
-            start, stop = np.searchsorted(used, [span.start, span.stop])
-            if start == stop:
-                continue
-            present = occupied[:, start:stop]
-            listed = np.flatnonzero(present.any(axis=1))
-            first[listed, start + present[listed].argmax(axis=1)] = True
-        places = np.cumsum(occupied, dtype=np.int32).reshape(occupied.shape) - 1
-        flat = np.empty(int(places[-1, -1]) + 1 if n else 0, dtype=object)
-        for group in self.groups:
-            at = places[group.rows, column[group.slot]]
+        groups = sorted(self.groups, key=lambda group: group.slot)  # stable: rated and unrated parts keep apart
+        count = np.zeros(n, dtype=np.int64)
+        for group in groups:
+            count[group.rows] += 1
+        starts = np.cumsum(count) - count  # where each row's first piece goes
+        place = starts.copy()
+        flat = np.empty(int(count.sum()), dtype=object)
+        listed = np.zeros((len(lists), n), dtype=bool)  # a row has an item in the list already
+        for group in groups:
+            at = place[group.rows]
+            place[group.rows] += 1
             if not group.listed:
                 flat[at] = self._filled(group.template, group.rows, "")
                 continue
-            leads = first[group.rows, column[group.slot]]
-            for lead, mask in (("", leads), (", ", ~leads)):
+            within = next(k for k, span in enumerate(lists) if group.slot in span)
+            later = listed[within, group.rows]
+            listed[within, group.rows] = True
+            for lead, mask in (("", ~later), (", ", later)):
                 if mask.any():
                     flat[at[mask]] = self._filled(group.template, group.rows[mask], lead)
-        return "".join(flat.tolist())
+        pieces = flat.tolist()
+        cuts = starts[::JOINED_ROWS].tolist() + [len(pieces)]
+        return [b"".join(pieces[a:b]) for a, b in zip(cuts, cuts[1:])]
 
 
 def _split_at_lists(template: tuple[list[str], list]) -> tuple[list, list[str]]:
@@ -230,11 +297,11 @@ def _split_at_lists(template: tuple[list[str], list]) -> tuple[list, list[str]]:
 
 
 class _Writer:
-    def __init__(self, batch: GradedBatch, form: str = FULL):
+    def __init__(self, batch: GradedBatch, form: str = FULL, errors: str = "strict"):
         if form not in FORMS:
             raise ValueError(f"no record form {form!r}; expected one of {', '.join(FORMS)}")
-        self.batch, self.form = batch, form
-        self.literals = _Literals(batch.columns)
+        self.batch, self.form, self.errors = batch, form, errors
+        self.literals = _Literals(batch.columns, errors)
         self.out = batch.outcome
         self.templates: dict = {}  # (kind, index, state...) -> template of a reason, gap or caveat
         self.skeletons: dict = {}
@@ -243,7 +310,8 @@ class _Writer:
         self.list_slots: dict = {}  # list name -> its items' slots in the line, set with the first skeleton
         carried = sorted(batch.forecast_rows.items())  # the rows whose records carry forecasts, in order
         self.forecast_rows = np.array([row for row, _ in carried], dtype=np.int64)
-        self.forecast_texts = [", ".join(dumps(f.to_record()) for f in found) for _, found in carried]
+        self.forecast_texts = [", ".join(dumps(f.to_record()) for f in found).encode("utf-8", errors)
+                               for _, found in carried]
         self.part_slots: list = []  # skeleton part p -> its slot
 
     def _reason_state(self, j: int, rows: np.ndarray) -> list[np.ndarray]:
@@ -341,18 +409,20 @@ class _Writer:
             slot = self.list_slots[name].stop
         self.part_slots.append(slot)
 
-    def block_text(self, rows: np.ndarray) -> str:
+    def block_text(self, rows: np.ndarray) -> list[bytes]:
         out, rs = self.out, self.batch.ruleset
         block = _Block(self.literals, rows)
         level = out.level[rows]
         unrated = level < 0
         names = list(rs.grades) + [UNRATED]
-        block.raw["grade"] = np.array([json.dumps(n) for n in names], dtype=object)[level]
-        block.raw["level"] = np.array([str(k) for k in range(len(rs.grades))] + ["null"], dtype=object)[level]
-        block.raw["unrated_because"] = np.full(len(rows), "", dtype=object)
-        block.raw["forecasts"] = self._forecast_items(rows)
+        block.raw["grade"] = _Column(np.array([json.dumps(n).encode() for n in names], dtype=object)[level])
+        block.raw["level"] = _Column(np.array([str(k).encode() for k in range(len(rs.grades))] + [b"null"],
+                                              dtype=object)[level])
+        because = np.full(len(rows), b"", dtype=object)
         if unrated.any():
-            block.raw["unrated_because"][unrated] = self._unrated_sentences(rows[unrated])
+            because[unrated] = self._unrated_sentences(rows[unrated])
+        block.raw["unrated_because"] = _Column(because)
+        block.raw["forecasts"] = self._forecast_items(rows)
         for is_unrated in (False, True):
             members = np.flatnonzero(unrated == is_unrated)
             if len(members):
@@ -360,37 +430,51 @@ class _Writer:
                 for slot, part in zip(self.part_slots, parts):
                     block.add(slot, members, part)
 
-        final = out.final[rows]
-        for j in range(final.shape[1]):
-            fired = np.flatnonzero(final[:, j] > 0)
+        final = np.ascontiguousarray(out.final[rows].T)  # a rule's outcomes side by side: one read a rule
+        for j in range(len(final)):
+            fired = np.flatnonzero(final[j] > 0)
             if len(fired):
                 self._reasons(block, j, fired)
-            gaps = np.flatnonzero(final[:, j] == NOT_EVALUATED)
+            gaps = np.flatnonzero(final[j] == NOT_EVALUATED)
             if len(gaps):
                 self._gaps(block, j, gaps)
-        for k in range(out.caveats.shape[1]):
-            noted = np.flatnonzero(out.caveats[rows, k])
+        caveats = np.ascontiguousarray(out.caveats[rows].T)
+        for k in range(len(caveats)):
+            noted = np.flatnonzero(caveats[k])
             if len(noted):
                 self._caveats(block, k, noted)
         return block.text(list(self.list_slots.values()))
 
-    def _forecast_items(self, rows: np.ndarray) -> np.ndarray:
+    def _forecast_items(self, rows: np.ndarray) -> _Column:
         """The items of each row's `forecasts` list: empty but for each unit's latest sample."""
         carriers, texts = self.forecast_rows, self.forecast_texts
-        items = np.full(len(rows), "", dtype=object)
-        if len(rows) and len(carriers):  # rows: a block, in order
-            start, stop = np.searchsorted(carriers, [rows[0], rows[-1] + 1])
-            inside = carriers[start:stop]
-            at = np.searchsorted(rows, inside)
-            here = rows[np.minimum(at, len(rows) - 1)] == inside
-            items[at[here]] = np.array(texts[start:stop], dtype=object)[here]
-        return items
+        if not len(rows) or not len(carriers):  # rows: a block, in order
+            return _Column(None, b"")
+        items = np.full(len(rows), b"", dtype=object)
+        start, stop = np.searchsorted(carriers, [rows[0], rows[-1] + 1])
+        inside = carriers[start:stop]
+        at = np.searchsorted(rows, inside)
+        here = rows[np.minimum(at, len(rows) - 1)] == inside
+        items[at[here]] = np.array(texts[start:stop], dtype=object)[here]
+        return _Column(items)
 
     def _unrated_sentences(self, members: np.ndarray) -> np.ndarray:
         representatives, group_of, _ = record_shape_groups(self.batch, members)
         table = [json.dumps(self.batch.result(int(rep)).unrated_because,
-                            ensure_ascii=False) for rep in representatives]
+                            ensure_ascii=False).encode("utf-8", self.errors) for rep in representatives]
         return np.array(table, dtype=object)[group_of]
+
+
+def jsonl_bytes(batch: GradedBatch, block: int = 100_000, form: str = FULL, errors: str = "strict"):
+    """Yield the JSON Lines of the batch as UTF-8 bytes, a block of rows at a time, in input order.
+
+    `form` is the record form (records.FORMS); `errors` the encoder's handling of a lone
+    surrogate (a JSON Lines input may carry one): "strict" refuses it, as a UTF-8 text stream would.
+    """
+    writer = _Writer(batch, form, errors)
+    n = len(batch)
+    for start in range(0, n, block):
+        yield from writer.block_text(np.arange(start, min(n, start + block)))
 
 
 def jsonl_lines(batch: GradedBatch, block: int = 100_000, form: str = FULL):
@@ -398,12 +482,17 @@ def jsonl_lines(batch: GradedBatch, block: int = 100_000, form: str = FULL):
 
     `form` is the record form (records.FORMS).
     """
-    writer = _Writer(batch, form)
-    n = len(batch)
-    for start in range(0, n, block):
-        yield writer.block_text(np.arange(start, min(n, start + block)))
+    for text in jsonl_bytes(batch, block, form, "surrogatepass"):  # str in, the same str out
+        yield text.decode("utf-8", "surrogatepass")
 
 
 def write_jsonl(batch: GradedBatch, stream, form: str = FULL) -> None:
+    """Write the batch's records to a text stream; use write_jsonl_bytes for a binary one."""
     for text in jsonl_lines(batch, form=form):
         stream.write(text)
+
+
+def write_jsonl_bytes(batch: GradedBatch, stream, form: str = FULL) -> None:
+    """Write the batch's records as UTF-8 to a binary stream: no decoding and encoding again of each block."""
+    for data in jsonl_bytes(batch, form=form):
+        stream.write(data)

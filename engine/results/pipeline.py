@@ -127,14 +127,20 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     if history is not None:
         history = history.assign(_keep=np.inf)  # a unit not seen in this chunk keeps what it had
     frame = own if history is None else pd.concat([history[names + ["_keep"]], own], ignore_index=True)
-    frame = frame[frame["unit_id"].notna()].reset_index(drop=True)
+    # The rows to keep are found on arrays; only they are taken from the frame (a few per unit).
+    units = frame["unit_id"].to_numpy(dtype=object)
+    present = np.flatnonzero(pd.notna(units))
+    if not len(present):
+        return frame.iloc[present][names].reset_index(drop=True)
     dates, hours = _trend_keys(frame)
-    units = frame["unit_id"].to_numpy(dtype=object).astype(str)
-    ordered = frame.iloc[np.lexsort((np.arange(len(frame)), hours, dates, units))].reset_index(drop=True)
-    groups = ordered.groupby("unit_id", sort=False)
-    from_end = groups.cumcount(ascending=False).to_numpy()
-    keep = groups["_keep"].transform("last").to_numpy()
-    return ordered[from_end < keep][names].reset_index(drop=True)
+    codes = pd.factorize(units[present], sort=True)[0]  # unit ids are str: their ranks sort as they do
+    by = np.lexsort((hours[present], dates[present], codes))  # stable: ties keep their order
+    order, unit_of = present[by], codes[by]
+    last = np.r_[np.flatnonzero(unit_of[1:] != unit_of[:-1]), len(order) - 1]  # each unit's latest
+    unit_last = np.repeat(last, np.diff(np.r_[-1, last]))
+    from_end = unit_last - np.arange(len(order))
+    keep = frame["_keep"].to_numpy()[order][unit_last]
+    return frame.iloc[order[from_end < keep]][names].reset_index(drop=True)
 
 
 def _check_order(batch: SampleBatch, history: pd.DataFrame) -> None:

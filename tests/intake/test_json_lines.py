@@ -135,11 +135,13 @@ def test_a_key_given_twice_with_two_values_rejects_its_row_naming_the_key():
     assert batch.rows_read == 4 and batch.rejected_rows + len(batch.frame) == batch.rows_read
 
 
-def test_a_blank_line_and_a_line_of_two_objects_keep_every_row_at_its_own_line():
-    # The counts balance (three lines with an object, three objects in all), so a reader that
-    # skipped the blank line and took both objects of line 4 would shift row 3 onto line 4.
-    text = (json.dumps(LAB_ROWS[0]) + "\n\n" + json.dumps(LAB_ROWS[1]) + "\n"
-            + json.dumps(LAB_ROWS[2]) + " " + json.dumps(dict(LAB_ROWS[2], sample_id="BP-0004")) + "\n")
+@pytest.mark.parametrize("blank", ["\n", " \t\n", "\r\n"])
+def test_a_blank_line_and_a_line_of_two_objects_keep_every_row_at_its_own_line(blank):
+    # The counts balance (four lines, four objects), so a reader that skipped the blank line
+    # and took both objects of line 4 would shift row 3 onto line 4.
+    end = "\r\n" if blank == "\r\n" else "\n"
+    text = (json.dumps(LAB_ROWS[0]) + end + blank + json.dumps(LAB_ROWS[1]) + end
+            + json.dumps(LAB_ROWS[2]) + " " + json.dumps(dict(LAB_ROWS[2], sample_id="BP-0004")) + end)
     batch = read_samples(io.StringIO(text), "x.jsonl")
     assert batch.frame.index.tolist() == [1, 3]
     assert batch.frame["sample_id"].tolist() == ["BP-0001", "BP-0002"]

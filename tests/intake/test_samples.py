@@ -136,3 +136,17 @@ def test_a_column_nobody_reads_is_named_once_with_the_name_it_resembles():
     batch = read_samples(io.StringIO(text), name="week.csv")
     assert batch.notes == ("lab columns not used: wter (did you mean water?), Remarks",)
     assert "water" not in batch.frame.columns or np.isnan(batch.frame["water"]).all()
+
+
+def test_validating_a_frame_leaves_the_callers_frame_as_it_was():
+    """Validation works on a copy-on-write view of the caller's DataFrame (nothing is copied up
+    front): the caller's cells, column names and index must come out unchanged."""
+    import pandas as pd
+    from sumpwise.intake.samples import ColumnMap, validate_samples
+    frame = pd.DataFrame({" sample_id ": ["B-1", "B-2", "B-2", "  "], "class": [" pump", "pump", "pump", "pump"],
+                          "kv40": ["46.2", "<0.5", "pending", "44"], "water": [120.0, -3.0, 80.0, 60.0]})
+    before = frame.copy(deep=True)
+    batch = validate_samples(frame, [], "<DataFrame>", ColumnMap())
+    assert {r.code for r in batch.rejects} == {"D002", "D003", "D004", "D005"}  # the rows were worked on
+    assert list(batch.frame["class"]) == ["pump"]
+    pd.testing.assert_frame_equal(frame, before)

@@ -205,3 +205,67 @@ def test_forecasts_in_compact_records_equal_the_per_row_peers_on_dated_units(tmp
     assert len(graded.forecasts) >= 10 and all(f.on for f in graded.forecasts)
     ours = "".join(jsonl_lines(graded, form="compact"))
     assert (tmp_path / "peer.jsonl").read_text(encoding="utf-8") == ours
+
+
+def test_blocks_where_a_column_holds_one_value_write_what_each_record_says():
+    # The writer puts a literal that every row of a piece shares into the piece's form once. Blocks of
+    # 40 rows over random samples of every class, each block with its own pattern: a reading missing
+    # throughout, one value throughout, one value but a censored reading, one method, every oil
+    # changed, a unit id with '%' and non-ASCII text, an escaped quote. Each line must be the
+    # per-record API's record, byte for byte, in both forms.
+    import numpy as np
+    from random_samples import random_samples
+    ruleset = load_ruleset(ROOT / "benchmarks" / "all-classes.yaml")
+    frame = random_samples(ruleset, 240, seed=13)
+    frame["oil_changed"] = "no"
+    frame.loc[0:39, "kv100"] = np.nan
+    frame.loc[40:79, "water"] = 250.0
+    frame.loc[80:119, "an"] = 0.4
+    frame.loc[95, "an"] = "<0.05"
+    frame.loc[120:159, "method"] = "direct"
+    frame.loc[160:199, "oil_changed"] = "yes"
+    frame.loc[200:239, "unit_id"] = "Pump 7 % \u00e9tage \"B\""
+    graded = grade(frame, ruleset)
+    assert len(graded) == 240
+    for form in ("full", "compact"):
+        lines = "".join(jsonl_lines(graded, block=40, form=form)).splitlines()
+        assert lines == [dumps(result.to_record(form)) for result in graded.results()]
+    records = [json.loads(line) for line in lines]
+    assert {r["values"].get("an") for r in records[80:120]} == {0.4, "<0.05"}
+    assert all(r["oil_changed"] for r in records[160:200]) and not any(r["oil_changed"] for r in records[:160])
+    assert records[200]["unit_id"] == 'Pump 7 % \u00e9tage "B"'
+
+
+def test_grade_out_file_holds_the_writers_bytes(tmp_path):
+    # `grade --out` writes the records as UTF-8 bytes straight to the file; they must be the text
+    # the writer gives, with a non-ASCII unit id in it.
+    from sumpwise.cli.main import main
+    csv = tmp_path / "s.csv"
+    csv.write_text("sample_id,unit_id,class,lubricant,an,kv40\nS1,Kompressor \u00d6l,steam-turbine,ISO46,0.9,47\n"
+                   "S2,U2,steam-turbine,ISO46,0.1,46\n", encoding="utf-8")
+    rules = DATA / "rulesets" / "draft.yaml"
+    code = main(["grade", str(csv), "--rules", str(rules), "--record", "compact", "--out", str(tmp_path / "o.jsonl")],
+                stdout=io.StringIO(), stderr=io.StringIO())
+    assert code in (0, 3)
+    graded = grade(read_samples(csv), load_ruleset(rules))
+    expected = "".join(jsonl_lines(graded, form="compact"))
+    written = (tmp_path / "o.jsonl").read_bytes().decode("utf-8")
+    assert written.count("\n") == 2 and "Kompressor \u00d6l" in written
+    assert [json.loads(line)["sample_id"] for line in written.splitlines()] == ["S1", "S2"]
+    assert written == expected
+
+
+def test_grade_to_standard_output_writes_the_same_bytes_as_to_a_file(tmp_path):
+    # Standard output in UTF-8 takes the records' bytes on its binary stream, after what its text
+    # layer holds; in another encoding it takes text. Either way the records are the --out file's.
+    csv = tmp_path / "s.csv"
+    csv.write_text("sample_id,unit_id,class,lubricant,an,kv40\nS1,Kompressor \u00d6l,steam-turbine,ISO46,0.9,47\n"
+                   "S2,U2,steam-turbine,ISO46,0.1,46\n", encoding="utf-8")
+    command = [sys.executable, "-m", "sumpwise", "grade", str(csv), "--rules", str(DATA / "rulesets" / "draft.yaml")]
+    subprocess.run(command + ["--out", str(tmp_path / "o.jsonl")], capture_output=True, cwd=tmp_path)
+    wanted = (tmp_path / "o.jsonl").read_bytes()
+    assert wanted.count(b"\n") == 2 and "Kompressor \u00d6l".encode() in wanted
+    for encoding in ("utf-8", "latin-1"):
+        shown = subprocess.run(command, capture_output=True, cwd=tmp_path,
+                               env={"PATH": "/usr/bin:/bin", "PYTHONIOENCODING": encoding}).stdout
+        assert shown.decode(encoding) == wanted.decode("utf-8")
