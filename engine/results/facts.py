@@ -274,10 +274,10 @@ def batch_facts(batch: GradedBatch, names: dict | None = None) -> BatchFacts:
                 numbers = batch.columns.number(slot.name) if present else np.full(n, np.nan)
                 spelled[key] = (_flag_literals(numbers) if slot.kind == "flag"
                                 else _reading_literals(numbers, batch.columns.written(slot.name)))
-        codes, texts = spelled[key]
+        codes, spelling = spelled[key]
         if lead and key + (lead,) not in led:
-            led[key + (lead,)] = lead + texts
-        return (led[key + (lead,)] if lead else texts)[codes[rows]].tolist()
+            led[key + (lead,)] = lead + spelling
+        return (led[key + (lead,)] if lead else spelling)[codes[rows]].tolist()
 
     texts: dict = {}
     shape_index = np.empty(len(first), dtype=np.int64)

@@ -18,7 +18,8 @@ import pandas as pd
 import pytest
 
 from sumpwise.intake.samples import read_samples
-from sumpwise.results.facts import _distinct_rows, batch_facts, record_names, result_facts, result_from_facts, values_text
+from sumpwise.results.facts import (_distinct_rows, batch_facts, record_names, result_facts, result_from_facts,
+                                    values_text)
 from sumpwise.results.pipeline import grade
 from sumpwise.ruleset.compiler import load_ruleset
 from tests.conftest import DATA, ROOT
