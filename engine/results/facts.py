@@ -32,6 +32,7 @@ import pandas as pd
 from sumpwise.derive.row_measures import LUBRICANT_CAVEATS
 from sumpwise.derive.trends import TREND_CAVEATS
 from sumpwise.evaluation.evaluator import COVERAGE_CAVEATS
+from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS
 from sumpwise.results.records import (CaveatNote, Clause, GradedBatch, NotEvaluated, Reason, SampleResult, build_result,
                                       condition_inputs, rule_inputs)
@@ -163,8 +164,8 @@ def _shape_groups(batch: GradedBatch) -> tuple[np.ndarray, np.ndarray]:
     """(representative row of each distinct shape, shape group of each row), from the outcome arrays.
 
     Rows fall in one group when everything their shape says is the same: each rule's raw and
-    final level, caveats and caps, each condition leaf's truth, which inputs are missing
-    (for gaps and unchecked exceptions) and the class (the unrated sentence names it).
+    final level, caveats and caps, each condition leaf's truth, which inputs are missing or
+    censored (for gaps and unchecked exceptions) and the class (the unrated sentence names it).
     """
     out, measured = batch.outcome, batch.measured
     n = len(measured)
@@ -183,6 +184,11 @@ def _shape_groups(batch: GradedBatch) -> tuple[np.ndarray, np.ndarray]:
     for name in sorted(names):
         if name in measured.columns:
             parts.append(measured[name].isna().to_numpy().astype(np.int8).reshape(n, 1))
+    # A censored reading (undecided) and a missing one both leave the number empty; what the
+    # lab wrote tells them apart. Last, so a batch's shapes keep their order otherwise.
+    for name in sorted(names):
+        if name + WRITTEN_SUFFIX in measured.columns:
+            parts.append(measured[name + WRITTEN_SUFFIX].notna().to_numpy().astype(np.int8).reshape(n, 1))
     return _distinct_rows(np.concatenate(parts, axis=1).astype(np.int8))
 
 
