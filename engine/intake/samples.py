@@ -366,6 +366,19 @@ def _first_characters(text: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(text).view(np.uint32).reshape(len(text), -1)[:, 0]
 
 
+def _with_decimal_point(text: np.ndarray, decimal: str) -> np.ndarray:
+    """The fixed-width texts with their decimal mark written as '.': one character for another,
+    swapped in the array's buffer (np.strings.replace takes four times as long)."""
+    if decimal == "." or not len(text) or text.dtype.itemsize == 0:
+        return text
+    if len(decimal) != 1:
+        return np.strings.replace(text, decimal, ".")
+    swapped = text.copy()
+    points = swapped.view(np.uint32)
+    points[points == ord(decimal)] = ord(".")
+    return swapped
+
+
 def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, pd.Series | None, np.ndarray]:
     """(float values, the text as written where not a number, cells that are not numbers).
 
@@ -382,7 +395,7 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     else:
         is_bool = np.fromiter((isinstance(v, bool) for v in values), dtype=bool, count=len(values))
     text = np.strings.strip(np.where(present & ~is_bool, values, "").astype(str))
-    spelled = np.strings.replace(text, decimal, ".") if decimal != "." else text
+    spelled = _with_decimal_point(text, decimal)
     looks = np.isin(_first_characters(spelled), _NUMBER_LEADS)
     if decimal != ".":  # a '.' written where ',' is the decimal mark (`1.500`) is not read: 1.5 or 1500?
         kind = pd.api.types.infer_dtype(values, skipna=True)

@@ -150,3 +150,13 @@ def test_validating_a_frame_leaves_the_callers_frame_as_it_was():
     assert {r.code for r in batch.rejects} == {"D002", "D003", "D004", "D005"}  # the rows were worked on
     assert list(batch.frame["class"]) == ["pump"]
     pd.testing.assert_frame_equal(frame, before)
+
+
+@pytest.mark.parametrize("decimal", [",", ".", ";;"])
+def test_the_decimal_mark_is_swapped_as_numpys_string_replace_swaps_it(decimal):
+    # Reference: numpy's own np.strings.replace (a general-purpose library), on cells as labs
+    # write them, non-ASCII and empty ones too.
+    from sumpwise.intake.samples import _with_decimal_point
+    cells = np.array(["12,5", " 0,05 ", "<0,05", "1.500", "", "ND", "2,5,1", "µ,3", "1;;5"], dtype=str)
+    assert _with_decimal_point(cells, decimal).tolist() == np.strings.replace(cells, decimal, ".").tolist()
+    assert _with_decimal_point(np.array([], dtype=str), decimal).tolist() == []
