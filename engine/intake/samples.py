@@ -19,8 +19,8 @@ import pandas as pd
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
-from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, nested_cells,
-                                     read_csv, read_jsonl, read_xlsx)
+from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
+                                     nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
@@ -91,18 +91,17 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
     try:
         if fmt == "xlsx":
             raw = read_xlsx(data, columns.option("sheet"))
+        elif fmt == "jsonl":
+            raw = read_jsonl(data, lab_numeric, columns.option("encoding"))
         else:
             text = decode(data, columns.option("encoding"))
-            utf8 = columns.option("encoding", "utf-8").replace("_", "-").lower() in ("utf-8", "utf8")
-            if fmt == "jsonl":
-                raw = read_jsonl(text, lab_numeric)
-            else:
-                decimal = columns.option("decimal") or detected_decimal(text, columns.option("delimiter"))
-                raw = read_csv(text, lab_numeric, columns.option("delimiter"), decimal, data if utf8 else None)
-                if columns.option("decimal") is None and decimal != ".":
-                    raw.notes.append(f"detected the decimal mark {decimal!r} from the data")
-                    # every cell is read with it, the ones the CSV parser left as text (`<0,05`) too
-                    columns = replace(columns, options={**columns.options, "decimal": decimal})
+            utf8 = is_utf8(columns.option("encoding"))
+            decimal = columns.option("decimal") or detected_decimal(text, columns.option("delimiter"))
+            raw = read_csv(text, lab_numeric, columns.option("delimiter"), decimal, data if utf8 else None)
+            if columns.option("decimal") is None and decimal != ".":
+                raw.notes.append(f"detected the decimal mark {decimal!r} from the data")
+                # every cell is read with it, the ones the CSV parser left as text (`<0,05`) too
+                columns = replace(columns, options={**columns.options, "decimal": decimal})
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
@@ -389,8 +388,8 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
         return column.to_numpy(dtype=float), None, np.zeros(len(column), dtype=bool)
     values = column.to_numpy(dtype=object)
     present = pd.notna(values)
-    if pd.api.types.infer_dtype(values, skipna=True) in ("string", "empty", "floating", "integer",
-                                                         "mixed-integer-float"):
+    kind = pd.api.types.infer_dtype(values, skipna=True)
+    if kind in ("string", "empty", "floating", "integer", "mixed-integer-float"):
         is_bool = np.zeros(len(values), dtype=bool)
     else:
         is_bool = np.fromiter((isinstance(v, bool) for v in values), dtype=bool, count=len(values))
@@ -398,7 +397,6 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     spelled = _with_decimal_point(text, decimal)
     looks = np.isin(_first_characters(spelled), _NUMBER_LEADS)
     if decimal != ".":  # a '.' written where ',' is the decimal mark (`1.500`) is not read: 1.5 or 1500?
-        kind = pd.api.types.infer_dtype(values, skipna=True)
         written = present if kind == "string" else np.fromiter((isinstance(v, str) for v in values), dtype=bool,
                                                                count=len(values))
         looks &= ~(written & (np.strings.find(text, ".") >= 0))

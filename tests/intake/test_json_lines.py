@@ -192,3 +192,24 @@ def test_each_route_of_the_one_pass_parse_reads_as_json_reads_them(route):
         _check_against_reference(batch, text, numbers=("kv40", "water"))
     else:
         _check_against_reference(batch, text)
+
+
+@pytest.mark.parametrize("spelling", ["byte-order mark", "not UTF-8", "declared cp1252"])
+def test_bytes_read_straight_or_decoded_give_the_same_rows_and_errors(tmp_path, spelling):
+    # The usual file is parsed from its bytes; a BOM, a byte that is not UTF-8 and a declared
+    # encoding take the decoded text, as the json module (the reference) would need.
+    rows = [dict(row, water=row.get("water")) for row in LAB_ROWS]  # every key on every line
+    text = _lines(rows)
+    path = tmp_path / "x.jsonl"
+    if spelling == "byte-order mark":
+        path.write_bytes(b"\xef\xbb\xbf" + text.encode("utf-8"))
+        _check_against_reference(read_samples(path), text)
+    elif spelling == "not UTF-8":
+        path.write_bytes(text.encode("utf-8") + b'{"sample_id": "BP-0009", "class": "gear\xb0"}\n')
+        with pytest.raises(InputError, match="line 4: byte 0xb0 is not utf-8"):
+            read_samples(path)
+    else:
+        path.write_bytes(text.replace("HY-7", "HY-7\u00b0").encode("cp1252"))
+        (tmp_path / "map.yaml").write_text("file: {encoding: cp1252}\n", encoding="utf-8")
+        batch = read_samples(path, columns=load_column_map(tmp_path / "map.yaml"))
+        assert batch.frame["unit_id"].tolist()[2] == "HY-7\u00b0"
