@@ -229,8 +229,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         infinite = np.isinf(values)
         if text is not None and not_a_number.any():
             at = np.flatnonzero(not_a_number)
-            spelled = np.strings.strip(np.strings.lower(text.to_numpy(dtype=object)[at].astype(str)), "+-")
-            infinite[at[np.isin(spelled, ("nan", "inf", "infinity"))]] = True
+            codes, spellings = pd.factorize(text.to_numpy(dtype=object)[at])  # a few: `<0,05`, `ND`, ...
+            folded = [str(cell).casefold().strip("+-") for cell in spellings]
+            infinite[at[np.isin(folded, ("nan", "inf", "infinity"))[codes]]] = True
         if infinite.any():
             reject(infinite, column, _found("expected a finite number, found ", raw[column], infinite), "D014")
             values = np.where(infinite, np.nan, values)
@@ -266,8 +267,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             raw[column + CENSORED_SUFFIX] = pd.Series(censored, index=raw.index, dtype=object)
             written = np.where(held, text.to_numpy(dtype=object), None)
             if factor != 1.0:  # a bound in the lab's unit beside the engine's unit would misread: spell it converted
-                at = np.flatnonzero(held)  # the censored cells only: a few
-                bound = np.array([str(written[k])[:1] in "<>\u2264\u2265" for k in at], dtype=bool)
+                at = np.flatnonzero(held)  # the censored cells only
+                codes, spellings = pd.factorize(written[at])  # each spelling once: a few
+                bound = np.array([str(cell)[:1] in "<>\u2264\u2265" for cell in spellings], dtype=bool)[codes]
                 written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
 
