@@ -73,10 +73,11 @@ def _sample(content: str) -> dict:
 
 
 def rebuilt_result(content: str, facts: str, vals: str, ruleset: RuleSet, engine: str,
-                   value_names: str, source: str | None = None) -> SampleResult:
-    """A stored verdict with its wording put back from its rule set; `source`: its batch's."""
+                   value_names: str, source: str | None = None, method: str | None = None) -> SampleResult:
+    """A stored verdict with its wording put back from its rule set; `source`: its batch's;
+    `method`: the sample's stored FTIR method, as the engine read it (a row may name none)."""
     return result_from_facts(_parsed(facts), json.loads(vals), _sample(content), ruleset, engine,
-                             json.loads(value_names), source)
+                             json.loads(value_names), source, method)
 
 
 def _number(value) -> str:
@@ -148,7 +149,7 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
         conn.close()
     ruleset = _ruleset_of(path, current)
     result = rebuilt_result(current["content"], current["facts"], current["vals"], ruleset, current["engine"],
-                            current["value_names"], current["source"])
+                            current["value_names"], current["source"], current["method"])
     story = explain_lines(result, ruleset.grades)
     values = ", ".join(f"{name} {_number(value)}" for name, value in result.values if value is not None)
     story[1:1] = [f"Values as recorded: {values or '(none)'}; method {result.method}"]
@@ -685,8 +686,8 @@ def stored_results(path, batch: int | None = None) -> tuple[list[SampleResult], 
     rulesets = {}
     for sha in dict.fromkeys(row[3] for row in rows):
         rulesets[sha] = _ruleset_of(path, {"canonical": canonical.get(sha, ""), "ruleset_sha256": sha})
-    return [rebuilt_result(content, facts, vals, rulesets[sha], engine, names, source)
-            for content, facts, vals, sha, engine, names, source in rows], rulesets
+    return [rebuilt_result(content, facts, vals, rulesets[sha], engine, names, source, method)
+            for content, facts, vals, sha, engine, names, source, method in rows], rulesets
 
 
 @reads_ledger

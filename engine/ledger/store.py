@@ -700,12 +700,12 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
         "UNION SELECT c.corrects FROM samples c JOIN versions v ON c.entry = v.entry WHERE c.corrects IS NOT NULL) "
         f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
         f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
-        f"rs.canonical, {STORED_VALUES} "
+        f"rs.canonical, s.method, {STORED_VALUES} "
         f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.entry IN versions ORDER BY s.entry",
         (sample_id,))
     names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
              "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
-             "author", "canonical")
+             "author", "canonical", "method")
     return [dict(zip(names, row[:len(names)]), content=object_text(*row[len(names):])) for row in cursor.fetchall()]
 
 
@@ -812,12 +812,12 @@ def current_contents(conn: sqlite3.Connection) -> tuple[list[str], list[str]]:
 
 
 def current_verdicts(conn: sqlite3.Connection, batch: int | None = None) -> list[tuple]:
-    """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names, batch source)
-    of the current samples, or of one batch."""
+    """(content as canonical JSON text, facts, vals, ruleset sha256, engine, value names, batch source,
+    the FTIR method the engine read the sample in) of the current samples, or of one batch."""
     where = "s.batch = ?" if batch is not None else "s.superseded_in IS NULL"
-    rows = conn.execute(f"SELECT sh.facts, {_VALS}, b.ruleset_sha256, b.engine, b.value_names, b.source, "
+    rows = conn.execute(f"SELECT sh.facts, {_VALS}, b.ruleset_sha256, b.engine, b.value_names, b.source, s.method, "
                         f"{STORED_VALUES} {_JOINS} WHERE {where} ORDER BY s.entry", (batch,) if batch is not None else ())
-    return [(object_text(*row[6:]),) + row[:6] for row in rows]
+    return [(object_text(*row[7:]),) + row[:7] for row in rows]
 
 
 def stored_rulesets(conn: sqlite3.Connection) -> list[dict]:

@@ -322,12 +322,13 @@ def _filled(item, values: list):
 
 
 def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet, engine: str,
-                      names: dict, source: str | None = None) -> SampleResult:
+                      names: dict, source: str | None = None, method: str | None = None) -> SampleResult:
     """A stored result with its wording put back from the rule set it was graded with.
 
     `shape` is a parsed shape, `values` its parsed values array (ending with what `names`
     lists, see record_names), `sample` the sample's stored input fields (name -> value),
-    `source` the file its batch was read from. What the facts do not hold, the result says so:
+    `source` the file its batch was read from, `method` the FTIR method the engine read the
+    sample in (stored beside it; else the sample's own). What the facts do not hold, the result says so:
     its row is None (a ledger keeps no row of a graded sample) and its forecasts None (none
     are stored; `report --db` re-grades a unit's samples for them).
     """
@@ -369,7 +370,7 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
         notice=ruleset.notice, ruleset_id=ruleset.id, ruleset_version=ruleset.version,
         ruleset_sha256=ruleset.sha256, engine=engine, unrated_because=shape.get("unrated_because"),
         values=tuple((name, _number(value)) for name, value in recorded),
-        method=_text(sample.get("method")), spectrum=_text(sample.get("spectrum")),
+        method=method or _text(sample.get("method")), spectrum=_text(sample.get("spectrum")),
         reference_spectrum=_text(sample.get("reference_spectrum")), oil_changed=oil_changed, derived=derived,
         comment=_text(sample.get("comment")), comment_given="comment" in sample, file=source,
         iso4406=_text(sample.get("iso4406")), forecasts=None)

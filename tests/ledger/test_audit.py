@@ -11,7 +11,7 @@ import sqlite3
 import pytest
 
 import sumpwise
-from sumpwise.ledger.audit import explain_from_ledger, replay
+from sumpwise.ledger.audit import explain_from_ledger, replay, stored_results
 from sumpwise.ledger.store import LedgerError, grade_into_ledger
 from tests.conftest import DATA
 
@@ -60,3 +60,18 @@ def test_replay_finds_altered_results_values_and_rule_sets(tmp_path, ruleset):
     with sqlite3.connect(db) as conn:
         conn.execute("UPDATE rulesets SET canonical = replace(canonical, '0.05', '0.06')")
     assert all("no longer has its fingerprint" in d.what for d in replay(db).differences if d.sample_id)
+
+
+def test_a_sample_that_names_no_method_is_told_from_the_ledger_in_the_method_it_was_graded_in(tmp_path, ruleset):
+    # The same samples without their `method` column: the engine reads each in the direct
+    # convention (its record says so), and the ledger's story and records must say the same.
+    text = SAMPLES.read_text(encoding="utf-8").splitlines()
+    at = text[0].split(",").index("method")
+    unnamed = tmp_path / "unnamed.csv"
+    unnamed.write_text("\n".join(",".join(c for k, c in enumerate(line.split(",")) if k != at) for line in text)
+                       + "\n", encoding="utf-8")
+    db = tmp_path / "l.db"
+    graded = grade_into_ledger(db, sumpwise.read_samples(unnamed), ruleset)[0]
+    assert {r.method for r in graded.results()} == {"direct"}
+    assert "; method direct" in "\n".join(explain_from_ledger(db, "T-04"))
+    assert {r.method for r in stored_results(db)[0]} == {"direct"}
