@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
+from sumpwise.results.facts import distinct_rows
 from sumpwise.results.records import (FORMS, FULL, UNRATED, ColumnArrays, GradedBatch, build_result,
                                       caveat_at, condition_inputs, gap_at, reason_at, record_shape_groups, rule_inputs)
 
@@ -190,10 +191,7 @@ class _Literals:
 
 def states(columns: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     """(first index of each distinct state, state of each row) for rows described by int columns."""
-    matrix = np.ascontiguousarray(np.stack(columns, axis=1).astype(np.int8))
-    keys = matrix.view(np.dtype((np.void, matrix.shape[1]))).ravel()
-    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
-    return first, inverse.ravel()
+    return distinct_rows(np.stack(columns, axis=1).astype(np.int8))
 
 
 class _Group:

@@ -189,12 +189,13 @@ def _shape_groups(batch: GradedBatch) -> tuple[np.ndarray, np.ndarray]:
     for name in sorted(names):
         if name + WRITTEN_SUFFIX in measured.columns:
             parts.append(measured[name + WRITTEN_SUFFIX].notna().to_numpy().astype(np.int8).reshape(n, 1))
-    return _distinct_rows(np.concatenate(parts, axis=1).astype(np.int8))
+    return distinct_rows(np.concatenate(parts, axis=1).astype(np.int8))
 
 
-def _distinct_rows(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def distinct_rows(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(first row of each distinct row of an int8 matrix, group of each row): what np.unique of
-    the rows' bytes gives (its order of groups is the order of a batch's shapes), in half its time.
+    the rows' bytes gives (its order of groups is the order of a batch's shapes, and of the
+    JSON Lines writer's pieces), in half its time.
 
     A row's cells are the digits of a mixed-radix key (factorized again whenever the next
     digit would overflow an int64) and the keys are hashed; only the distinct rows are sorted.

@@ -18,7 +18,7 @@ import pandas as pd
 import pytest
 
 from sumpwise.intake.samples import read_samples
-from sumpwise.results.facts import (_distinct_rows, batch_facts, record_names, result_facts, result_from_facts,
+from sumpwise.results.facts import (batch_facts, distinct_rows, record_names, result_facts, result_from_facts,
                                     values_text)
 from sumpwise.results.pipeline import grade
 from sumpwise.ruleset.compiler import load_ruleset
@@ -97,14 +97,14 @@ def test_facts_of_any_recorded_names(names):
 
 @pytest.mark.parametrize("rows, width, seed", [(1, 5, 0), (2_000, 9, 1), (2_000, 40, 2), (5_000, 12, 3)])
 def test_distinct_rows_are_what_numpy_unique_gives(rows, width, seed):
-    """_distinct_rows (hashed keys) against np.unique of the rows' bytes, the general route whose
+    """distinct_rows (hashed keys) against np.unique of the rows' bytes, the general route whose
     order of groups fixes the order, and so the stored ids, of a batch's shapes. Wide matrices of
     cells from -1 to 120 overflow one int64 key, so the key is factorized again on the way."""
     rng = np.random.default_rng(seed)
     pool = rng.integers(-1, 121, size=(max(1, rows // 20), width)).astype(np.int8)
     matrix = pool[rng.integers(0, len(pool), rows)]
     matrix[:, 0] = rng.integers(-1, 2, rows)  # some columns with few values, as levels and flags have
-    first, group = _distinct_rows(matrix)
+    first, group = distinct_rows(matrix)
     keys = matrix.view(np.dtype((np.void, width))).ravel()
     _, expected_first, expected_group = np.unique(keys, return_index=True, return_inverse=True)
     assert first.tolist() == expected_first.tolist()
