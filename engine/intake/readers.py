@@ -187,24 +187,22 @@ def read_jsonl(data: bytes, numeric: set = frozenset(), encoding: str | None = N
     not UTF-8) is parsed again by the json module, line by line when needed to name each bad
     line. Columns named in `numeric` whose cells are all numbers (or null) become floats.
     """
-    table, every_key = None, False
     if is_utf8(encoding):
-        table, every_key = _plain_lines_table(data.removeprefix(codecs.BOM_UTF8), numeric)
-        if table is not None and every_key and data.count(b":") <= table.frame.size:
-            return table
+        plain = data.removeprefix(codecs.BOM_UTF8)
+        table, every_key = _plain_lines_table(plain, numeric)
+        if table is not None:
+            return _without_twice_given_keys(table, plain, every_key)
     text = decode(data, encoding)
-    if table is None:
-        lines = text.split("\n")
-        if lines[-1] == "":  # the file's last line end
-            lines.pop()
-        blank = np.fromiter(map(str.isspace, lines), dtype=bool, count=len(lines))  # C loops, no strip a line
-        blank |= np.fromiter(map(len, lines), dtype=np.int64, count=len(lines)) == 0
-        numbers = np.flatnonzero(~blank) + 1
-        if not len(numbers):
-            raise InputError("the file is empty: expected one JSON object a line")
-        kept = lines if len(numbers) == len(lines) else [lines[k - 1] for k in numbers]
-        table = _parsed_lines("[" + ",".join(kept) + "]", kept, numbers, numeric)
-    return _without_twice_given_keys(table, text, every_key)
+    lines = text.split("\n")
+    if lines[-1] == "":  # the file's last line end
+        lines.pop()
+    blank = np.fromiter(map(str.isspace, lines), dtype=bool, count=len(lines))  # C loops, no strip a line
+    blank |= np.fromiter(map(len, lines), dtype=np.int64, count=len(lines)) == 0
+    numbers = np.flatnonzero(~blank) + 1
+    if not len(numbers):
+        raise InputError("the file is empty: expected one JSON object a line")
+    kept = lines if len(numbers) == len(lines) else [lines[k - 1] for k in numbers]
+    return _without_twice_given_keys(_parsed_lines("[" + ",".join(kept) + "]", kept, numbers, numeric), text)
 
 
 _BLANK_LINE = re.compile(rb"\n[ \t\r]*\n")  # inside the file; a blank first or last line fails below
@@ -271,7 +269,7 @@ def _parsed_lines(joined: str, kept: list, numbers: np.ndarray, numeric: set) ->
     return _objects_table(records, numbers[good], skipped, numeric)
 
 
-def _without_twice_given_keys(table: RawTable, whole: str, every_key: bool = False) -> RawTable:
+def _without_twice_given_keys(table: RawTable, whole: str | bytes, every_key: bool = False) -> RawTable:
     """Rows whose object gives a key twice with different values are set aside (D017).
 
     Parsers keep the last value without a word, so `"water": 120, "water": 9000` would be
@@ -282,13 +280,17 @@ def _without_twice_given_keys(table: RawTable, whole: str, every_key: bool = Fal
     are counted as its cells with a value plus its `null` literals (as writers space them):
     every key given twice with two values is found, but a key given null and then a value
     (or twice null) is read as its value (or missing). The whole file is counted first, a
-    few passes in C over the text, so a clean file costs no work a line.
+    few passes in C over the text, so a clean file costs no work a line. `whole` is the
+    file's text, or its UTF-8 bytes, decoded only when more than its colons must be read.
     """
     if not len(table.frame):
         return table
     keys = len(table.frame.columns)
-    given = keys * len(table.frame) if every_key else table.frame.count().sum() + _null_literals(whole)
-    if whole.count(":") <= given:
+    if every_key and whole.count(b":") <= keys * len(table.frame):  # every_key: known of bytes parsed whole
+        return table
+    if isinstance(whole, bytes):
+        whole = whole.decode("utf-8")  # valid UTF-8: the parse read it
+    if not every_key and whole.count(":") <= table.frame.count().sum() + _null_literals(whole):
         return table
     lines = whole.split("\n")
     text = [lines[k - 1] for k in table.rows]
