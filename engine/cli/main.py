@@ -1,9 +1,6 @@
 """The `sumpwise` command: a thin layer over the Python API.
 
-Exit codes keep findings apart from failures, so a pipeline can tell them apart:
-0 done; 1 internal fault (a bug); 2 usage error, unreadable input or invalid rule
-set; 3 findings: a sample reached the `--fail-at` grade (or `compare` saw a move, replay a difference,
-or a ledger import rejected rows whose sample id was recorded with other values).
+Exit codes keep findings apart from failures, so a pipeline can tell them apart (exit_codes.py).
 """
 
 from __future__ import annotations
@@ -40,10 +37,10 @@ from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
+from sumpwise.cli.exit_codes import FINDINGS, INTERNAL, OK, USAGE
 from sumpwise.cli.record_output import RecordOutput, default_jobs
 from sumpwise.cli.options import output_file, output_folder, positive_mm, reject_count, row_count
 
-OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
 CHUNK_ROWS = 200_000  # rows `grade` reads, grades and writes at a time: about 1 GB at most (README: large files)
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater"

@@ -13,7 +13,7 @@ import sys
 import pandas as pd
 import pytest
 
-from conftest import DATA, ROOT, run_cli
+from conftest import ROOT, run_cli
 from random_samples import random_samples
 from sumpwise.cli import record_output
 from sumpwise.ruleset.compiler import load_ruleset
