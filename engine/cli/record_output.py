@@ -113,16 +113,21 @@ class _Shares:
         self.memory = mmap.mmap(-1, 16)  # MAP_SHARED: the forked process sees the same two counters
         struct.pack_into("qq", self.memory, 0, 0, blocks)
         self.lock_out, self.lock_in = os.pipe()
+        os.set_blocking(self.lock_out, False)
         os.write(self.lock_in, b"\0")
 
-    def take(self, front: bool, other: "_Child | None" = None) -> int | None:
-        if other is None:
-            os.read(self.lock_out, 1)
-        else:  # never wait forever on a lock the other process died holding
-            while not select.select([self.lock_out], [], [], 0.5)[0]:
-                if other.ended():
-                    return self._taken(front)
-            os.read(self.lock_out, 1)
+    def take(self, front: bool, other_ended) -> int | None:
+        """The next block from the front or the back; None when none is left. `other_ended()`
+        says whether the other process is gone: a lock it died holding is never waited for."""
+        while True:
+            if select.select([self.lock_out], [], [], 0.5)[0]:
+                try:
+                    os.read(self.lock_out, 1)  # non-blocking: the other may have taken the byte first
+                    break
+                except BlockingIOError:
+                    continue
+            if other_ended():
+                return self._taken(front)
         try:
             return self._taken(front)
         finally:
@@ -214,7 +219,7 @@ class _Handed:
         render = None
         try:
             while rows < HELD_ROWS:
-                block = self.shares.take(front=False, other=self.child)
+                block = self.shares.take(False, self.child.ended)
                 if block is None:
                     break
                 render = render or block_renderer(self.graded, self.form)
@@ -242,10 +247,10 @@ class _Handed:
 def _render_front(graded, binary, form: str, shares: _Shares, said: int) -> None:
     """The forked process: render and write blocks from the front, in order, then leave at once
     (os._exit: none of the parent's clean-up, buffers or exit handlers run twice)."""
-    code = 0
+    code, parent = 0, os.getppid()
     try:
         render = block_renderer(graded, form)
-        while (block := shares.take(front=True)) is not None:
+        while (block := shares.take(True, lambda: os.getppid() != parent)) is not None:
             for piece in render(block * BLOCK_ROWS, min(len(graded), (block + 1) * BLOCK_ROWS)):
                 binary.write(piece)
         binary.flush()

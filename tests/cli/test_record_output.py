@@ -7,6 +7,9 @@ in either process must end the command with its exit code, never a hang or lost 
 
 from __future__ import annotations
 
+import errno
+import os
+import signal
 import subprocess
 import sys
 
@@ -56,21 +59,44 @@ def test_two_processes_write_the_bytes_one_writes(tmp_path, small_blocks, form, 
     assert len(small_blocks) == -(-331 // int(chunk))  # every chunk went through the two processes
 
 
-def test_a_failure_in_the_other_process_ends_the_command_as_a_bug(tmp_path, small_blocks, monkeypatch):
+def _failing_first_block(monkeypatch, fault):
+    """The renderer, but the first block (the forked process takes it) meets `fault` instead."""
     renderer = record_output.block_renderer
 
     def failing(graded, form):
         render = renderer(graded, form)
 
         def block(start, stop):
-            if start == 0:  # the first block: the forked process takes it
-                raise ValueError("a rendering fault")
+            if start == 0:
+                fault()
             return render(start, stop)
         return block
     monkeypatch.setattr(record_output, "block_renderer", failing)
+
+
+def test_a_failure_in_the_other_process_ends_the_command_as_a_bug(tmp_path, small_blocks, monkeypatch):
+    def fault():
+        raise ValueError("a rendering fault")
+    _failing_first_block(monkeypatch, fault)
     run = run_cli("grade", SAMPLES, "--rules", SITE, "--jobs", "2", "--out", tmp_path / "out.jsonl")
     assert run.code == 1
     assert "internal error" in run.err and "a rendering fault" in run.err
+
+
+def test_the_other_process_killed_ends_the_command_without_a_hang(tmp_path, small_blocks, monkeypatch):
+    _failing_first_block(monkeypatch, lambda: os.kill(os.getpid(), signal.SIGKILL))
+    run = run_cli("grade", SAMPLES, "--rules", SITE, "--jobs", "2", "--out", tmp_path / "out.jsonl")
+    assert run.code == 1
+    assert "ended by signal 9" in run.err
+
+
+def test_a_full_disk_in_the_other_process_is_an_error_of_the_environment(tmp_path, small_blocks, monkeypatch):
+    def fault():
+        raise OSError(errno.ENOSPC, "No space left on device")
+    _failing_first_block(monkeypatch, fault)
+    run = run_cli("grade", SAMPLES, "--rules", SITE, "--jobs", "2", "--out", tmp_path / "out.jsonl")
+    assert run.code == 2
+    assert "No space left on device" in run.err and "internal error" not in run.err
 
 
 def test_a_bad_later_chunk_leaves_the_earlier_chunks_written_as_one_process_does(tmp_path, small_blocks):
