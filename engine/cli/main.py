@@ -108,7 +108,8 @@ def _parser(stdout) -> _Parser:
                        help="write results here instead of standard output")
     grade.add_argument("--jobs", type=int, choices=(1, 2), default=default_jobs(),
                        help="processes that write JSON Lines records: 2 renders a chunk's records while the next "
-                            "chunk is graded, the same bytes as 1 (default: 2 on a machine with two cores or more)")
+                            "chunk is graded, the same bytes as 1 (default: 2 on two cores or more; on Linux only, "
+                            "elsewhere one process writes)")
     grade.add_argument("--rejects", metavar="PATH", type=output_file,
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
     grade.add_argument("--fail-at", metavar="GRADE", action="append", default=[],
