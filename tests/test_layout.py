@@ -56,3 +56,20 @@ def test_the_package_uses_absolute_imports_only():
                 for n in ast.walk(ast.parse(p.read_text(encoding="utf-8")))
                 if isinstance(n, ast.ImportFrom) and n.level > 0]
     assert relative == []
+
+
+def test_exit_codes_are_defined_once():
+    """Every command returns the names of cli/exit_codes.py, never a number of its own."""
+    found = []
+    for path in sorted((PACKAGE / "cli").glob("*.py")):
+        if path.name == "exit_codes.py":
+            continue
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.Assign) and any(isinstance(t, (ast.Name, ast.Tuple)) and
+                                                    {"OK", "INTERNAL", "USAGE", "FINDINGS"} &
+                                                    {n.id for n in ast.walk(t) if isinstance(n, ast.Name)}
+                                                    for t in node.targets):
+                found.append(f"{path.name}:{node.lineno} defines an exit code")
+            if isinstance(node, ast.Return) and isinstance(node.value, ast.Constant) and type(node.value.value) is int:
+                found.append(f"{path.name}:{node.lineno} returns a bare number")
+    assert found == []

@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import datetime as dt
 
+from sumpwise.cli.exit_codes import FINDINGS, OK, USAGE
 from sumpwise.cli.options import output_file
 from sumpwise.render.safe_text import terminal_lines
 from sumpwise.ledger.audit import stored_ruleset, stored_samples
@@ -22,7 +23,6 @@ from sumpwise.authoring.limit_statistics import NotEnoughData
 from sumpwise.authoring.proposals import Filters, Refused, figure_lines, propose_from_samples, snippet
 from sumpwise.intake.samples import load_column_map, read_samples
 
-OK, USAGE, FINDINGS = 0, 2, 3
 
 
 def run_check(paths, strict: bool, stdout, stderr) -> int:

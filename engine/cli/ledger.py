@@ -11,6 +11,7 @@ import getpass
 import json
 from pathlib import Path
 
+from sumpwise.cli.exit_codes import FINDINGS, OK
 from sumpwise.cli.options import iso_date
 from sumpwise.ledger.audit import (explain_from_ledger, find_samples, ledger_rulesets, recorded_rejects, replay,
                                    replay_lines, stored_ruleset, stored_ruleset_text, unit_forecasts, unit_history,
@@ -22,7 +23,6 @@ from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.vocabulary.problems import InputError
 
-FINDINGS = 3
 
 
 def add_db_argument(parser: argparse.ArgumentParser, optional_value: bool) -> None:
@@ -138,7 +138,7 @@ def _other_ruleset(db, rules: str | None):
 def run_explain(args, stdout) -> int:
     other = _other_ruleset(args.db, args.rules)
     stdout.write("\n".join(terminal_lines(explain_from_ledger(args.db, args.sample_id, other))) + "\n")
-    return 0
+    return OK
 
 
 def run_history(args, stdout, stderr) -> int:
@@ -147,7 +147,7 @@ def run_history(args, stdout, stderr) -> int:
     if args.format == "table":
         ruleset, forecasts = unit_forecasts(args.db, args.unit_id)
     write_history(unit, args.unit_id, stdout, args.format, forecasts, ruleset)
-    return 0
+    return OK
 
 
 def run_replay(args, stdout, stderr) -> int:
@@ -157,7 +157,7 @@ def run_replay(args, stdout, stderr) -> int:
     stdout.write("\n".join(terminal_lines(replay_lines(report, args.strict))) + "\n")
     if report.differences or report.engine_changes:
         stdout.write(caution_text("! ") + "\n")
-    return FINDINGS if report.failed(args.strict) else 0
+    return FINDINGS if report.failed(args.strict) else OK
 
 
 def run_rulesets(args, stdout, stderr) -> int:
@@ -168,7 +168,7 @@ def run_rulesets(args, stdout, stderr) -> int:
         lines = [f"{r['sha256'][:16]}  {r['id']:<24} {r['version']:>8} {r['batches']:>8} {r['samples']:>8}  "
                  f"{r['first'] or '-'}" for r in ledger_rulesets(args.db)]
         stdout.write("".join(line + "\n" for line in terminal_lines(lines)))
-        return 0
+        return OK
     sha, canonical = stored_ruleset_text(args.db, args.ruleset)
     text = json.dumps(json.loads(canonical), indent=1, ensure_ascii=False) + "\n"  # one value a line: loadable
     if args.out:
@@ -176,7 +176,7 @@ def run_rulesets(args, stdout, stderr) -> int:
         stderr.write(f"sumpwise: rule set {sha} written to {args.out}\n")
     else:
         stdout.write(text)
-    return 0
+    return OK
 
 
 def run_find(args, stdout, stderr) -> int:
@@ -194,7 +194,7 @@ def run_find(args, stdout, stderr) -> int:
     else:
         stdout.write("\n".join(terminal_lines(found.to_string(index=False).splitlines())) + "\n" if len(found) else "")
         stdout.write(f"{len(found)} {'rejected row' if args.rejects else 'sample'}(s)\n")
-    return 0
+    return OK
 
 
 def grade_demo(out_dir: Path, batch, ruleset):

@@ -1,9 +1,6 @@
 """The `sumpwise` command: a thin layer over the Python API.
 
-Exit codes keep findings apart from failures, so a pipeline can tell them apart:
-0 done; 1 internal fault (a bug); 2 usage error, unreadable input or invalid rule
-set; 3 findings: a sample reached the `--fail-at` grade (or `compare` saw a move, replay a difference,
-or a ledger import rejected rows whose sample id was recorded with other values).
+Exit codes keep findings apart from failures, so a pipeline can tell them apart (exit_codes.py).
 """
 
 from __future__ import annotations
@@ -29,9 +26,8 @@ from sumpwise.render.narrative import explain_lines
 from sumpwise.results.pipeline import grade_batch, grade_in_chunks
 from sumpwise.intake.chunked import sample_chunks
 from sumpwise.vocabulary.problems import InputError, InvalidFile
-from sumpwise.render.csv_rows import write_csv
-from sumpwise.render.jsonl import dumps, write_jsonl, write_jsonl_bytes
-from sumpwise.render.table import FIRST_CAVEATS, write_table
+from sumpwise.render.jsonl import dumps, write_jsonl
+from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import FORMS, FULL
 from sumpwise.render.safe_text import spreadsheet_text, terminal_text
@@ -41,9 +37,10 @@ from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
+from sumpwise.cli.exit_codes import FINDINGS, INTERNAL, OK, USAGE
+from sumpwise.cli.record_output import RecordOutput, default_jobs
 from sumpwise.cli.options import output_file, output_folder, positive_mm, reject_count, row_count
 
-OK, INTERNAL, USAGE, FINDINGS = 0, 1, 2, 3
 CHUNK_ROWS = 200_000  # rows `grade` reads, grades and writes at a time: about 1 GB at most (README: large files)
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater"
@@ -109,6 +106,10 @@ def _parser(stdout) -> _Parser:
                             f"(default {CHUNK_ROWS:,}; not with --db or --format table, which take the whole file)")
     grade.add_argument("--out", metavar="PATH", type=output_file,
                        help="write results here instead of standard output")
+    grade.add_argument("--jobs", type=int, choices=(1, 2), default=default_jobs(),
+                       help="processes that write JSON Lines records: 2 renders a chunk's records while the next "
+                            "chunk is graded, the same bytes as 1 (default: 2 on two cores or more; on Linux only, "
+                            "elsewhere one process writes)")
     grade.add_argument("--rejects", metavar="PATH", type=output_file,
                        help="write rejected rows here (.csv for CSV, else JSON Lines); default: standard error")
     grade.add_argument("--fail-at", metavar="GRADE", action="append", default=[],
@@ -334,7 +335,8 @@ def _grade(args, stdin, stdout, stderr) -> int:
     with contextlib.ExitStack() as stack:
         out = _opened(stack, args.out, "--out") if args.out else stdout
         rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
-        binary = _utf8_bytes_under(out, own=bool(args.out))
+        records = stack.enter_context(RecordOutput(out, _utf8_bytes_under(out, own=bool(args.out)), args.format,
+                                                   args.record, stderr, args.jobs))
         first = True
         for source in sources:
             tally = _Tally(ruleset)
@@ -342,7 +344,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 conflicts += refused
                 for note in notes:
                     stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
-                _write_records(args, graded, out, stderr, header=first, binary=binary)
+                records.write(graded, header=first)
                 _put_rejects(graded, rejects, args.rejects, header=first)
                 first = False
                 tally.add(graded, notes)
@@ -350,6 +352,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
                 found_unrated |= bool((levels < 0).any())
                 graded = levels = None  # before the next chunk is graded
+            records.settle()  # the file's records are all out before its summary line
             stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades))
             files.append(tally.summary())
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
@@ -459,18 +462,6 @@ def _utf8_bytes_under(out, own: bool):
     if not isinstance(out, io.TextIOWrapper) or out.errors != "strict" or codecs.lookup(out.encoding).name != "utf-8":
         return None
     return out.buffer if own or (out is sys.stdout and os.linesep == "\n") else None
-
-
-def _write_records(args, graded, out, stderr, header: bool, binary=None) -> None:
-    if args.format == "jsonl" and binary is not None:
-        out.flush()  # what the text layer holds goes first
-        write_jsonl_bytes(graded, binary, args.record)
-    elif args.format == "jsonl":
-        write_jsonl(graded, out, args.record)
-    elif args.format == "csv":
-        write_csv(graded, out, header=header)
-    else:
-        write_table(graded, out, progress=stderr)
 
 
 class _Tally:

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from sumpwise.cli.exit_codes import OK
 from sumpwise.cli.options import batch_number, output_file
 from sumpwise.ledger.audit import stored_results, unit_forecasts
 from sumpwise.render.jsonl import dumps
@@ -128,4 +129,4 @@ def run(args, stdout, stderr) -> int:
     limits = "with the rule set's limits" if args.rules or args.db else "without limits (no --rules)"
     stderr.write(f"sumpwise: report {args.out}: {counts['records']} result(s), {counts['flagged']} flagged, "
                  f"{counts['rejected']} rejected row(s), plots {limits}\n")
-    return 0
+    return OK

@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from sumpwise.cli.exit_codes import OK, USAGE
 from sumpwise.cli.options import output_file
 from sumpwise.intake.spectra.bands import BandFileError, load_bands
 from sumpwise.intake.spectra.batch import (check_dilution, check_path_length, expand_inputs, measure_spectra,
@@ -52,27 +53,27 @@ def run(args, stdout, stderr) -> int:
         dilution = check_dilution(args.dilution, "--dilution")
     except ValueError as exc:
         print(f"sumpwise spectra: {exc}", file=stderr)
-        return 2
+        return USAGE
     try:
         bands = load_bands(args.bands)
     except BandFileError as exc:
         print(f"sumpwise spectra: {exc}", file=stderr)
-        return 2
+        return USAGE
     missing = [item for item in args.inputs if not Path(item).exists()]
     if missing:
         print(f"sumpwise spectra: no such file or folder: {', '.join(missing)}", file=stderr)
-        return 2
+        return USAGE
     paths = expand_inputs(args.inputs)
     if not paths:
         print("sumpwise spectra: no spectrum files found in " + ", ".join(args.inputs), file=stderr)
-        return 2
+        return USAGE
     references = None
     if args.reference:
         try:
             read_spectrum(args.reference)
         except SpectrumError as exc:
             print(f"sumpwise spectra: reference spectrum unusable: {exc}", file=stderr)
-            return 2
+            return USAGE
         references = {str(p): Path(args.reference) for p in paths}
     frame, rejections = measure_spectra(paths, references, path_length, bands, reference_path_length,
                                         dilutions=[dilution] * len(paths))
@@ -84,11 +85,11 @@ def run(args, stdout, stderr) -> int:
             Path(args.out).write_text(text, encoding="utf-8")
         except OSError as exc:
             print(f"sumpwise spectra: cannot write {args.out}: {exc.strerror}", file=stderr)
-            return 2
+            return USAGE
     else:
         stdout.write(text)
     measured = len(paths) - len(rejections)
     print(f"sumpwise spectra: {measured} of {len(paths)} spectra measured, {len(rejections)} rejected "
           f"(bands: {bands.origin})", file=stderr)
     print(CAUTION, file=stderr)
-    return 0 if measured else 2
+    return OK if measured else USAGE

@@ -463,16 +463,24 @@ class _Writer:
         return np.array(table, dtype=object)[group_of]
 
 
-def jsonl_bytes(batch: GradedBatch, block: int = 100_000, form: str = FULL, errors: str = "strict"):
-    """Yield the JSON Lines of the batch as UTF-8 bytes, a block of rows at a time, in input order.
+def block_renderer(batch: GradedBatch, form: str = FULL, errors: str = "strict"):
+    """A function giving the JSON Lines of rows start..stop of the batch as UTF-8 bytes (a list of
+    pieces to write in order): blocks can be rendered in any order, or by two processes.
 
     `form` is the record form (records.FORMS); `errors` the encoder's handling of a lone
     surrogate (a JSON Lines input may carry one): "strict" refuses it, as a UTF-8 text stream would.
     """
     writer = _Writer(batch, form, errors)
+    return lambda start, stop: writer.block_text(np.arange(start, stop))
+
+
+def jsonl_bytes(batch: GradedBatch, block: int = 100_000, form: str = FULL, errors: str = "strict"):
+    """Yield the JSON Lines of the batch as UTF-8 bytes, a block of rows at a time, in input order
+    (`form`, `errors`: as block_renderer's)."""
+    render = block_renderer(batch, form, errors)
     n = len(batch)
     for start in range(0, n, block):
-        yield from writer.block_text(np.arange(start, min(n, start + block)))
+        yield from render(start, min(n, start + block))
 
 
 def jsonl_lines(batch: GradedBatch, block: int = 100_000, form: str = FULL):
