@@ -436,39 +436,68 @@ def _struct_table(records: list, names: list, numbers: np.ndarray, numeric: set)
 
 
 class _Columns:
-    """Columns filled from slotted records, a part of the rows at a time. `typed` (by
-    _row_type's promise): numeric columns are floats as they are filled, and a text column
-    whose first cells repeat keeps one object per distinct text (see _repeats) as it is
-    filled; otherwise _column finishes each column once it is full."""
+    """Columns filled from slotted records, a part of the rows at a time.
+
+    Given `typed` (by _row_type's promise), each column takes its final form as it is
+    filled: numeric columns floats; a text column whose first cells repeat one object per
+    distinct text (see _repeats); any other text column (ids) its parts' texts joined by
+    NUL, split into new texts once all parts are in, so that they lie side by side in
+    memory rather than scattered among the freed records (validating 1,000,000 rows then
+    takes two thirds of the time). A part with a null, or a NUL in a text, turns that
+    column into cells from then on. Otherwise _column finishes each column once it is full.
+    """
 
     def __init__(self, names: list, rows: int, numeric: set, typed: bool):
         self.names, self.getters, self.rows, self.typed = names, list(map(attrgetter, _slots(names))), rows, typed
         self.numeric = [name.strip() in numeric for name in names]
         self.cells = [np.empty(rows, dtype=float if typed and number else object) for number in self.numeric]
         self.texts: list[dict | None] = [None] * len(names)  # a repeated text column's objects, by text
+        self.joined: list[list | None] = [None] * len(names)  # a text column's parts, each joined by NUL
         self.filled = 0
 
     def add(self, records: list) -> None:
         """The next records' cells (nothing when there are more rows than the columns hold)."""
         at, n = self.filled, len(records)
         self.filled += n
-        if self.filled > self.rows:
+        if not n or self.filled > self.rows:
             return
         for k, (cells, getter) in enumerate(zip(self.cells, self.getters)):
             if cells.dtype == float:  # floats or None (the parser's promise): numpy takes None as NaN
                 cells[at:at + n] = np.fromiter(map(getter, records), dtype=float, count=n)
                 continue
+            if self.typed and at == 0:
+                if self.rows > 1000 and _repeats(list(map(getter, records[:1000]))):
+                    self.texts[k] = {}
+                else:
+                    self.joined[k] = []
+            if self.joined[k] is not None:
+                try:
+                    text = "\x00".join(map(getter, records))
+                except TypeError:  # a null
+                    text = None
+                if text is not None and text.count("\x00") == n - 1:
+                    self.joined[k].append(text)
+                    continue
+                self._split(k)
             piece = np.fromiter(map(getter, records), dtype=object, count=n)
-            if self.typed and at == 0 and self.rows > 1000 and _repeats(piece):
-                self.texts[k] = {}
             if self.texts[k] is not None:
                 codes, uniques = pd.factorize(piece, use_na_sentinel=True)
                 known = self.texts[k]
                 piece = np.array([known.setdefault(u, u) for u in uniques] + [None], dtype=object)[codes]
             cells[at:at + n] = piece
 
+    def _split(self, k: int) -> None:
+        """Column k's joined parts into its cells; the column is filled cell by cell from then on."""
+        parts, self.joined[k] = self.joined[k], None
+        if parts:
+            texts = "\x00".join(parts).split("\x00")
+            self.cells[k][:len(texts)] = np.fromiter(texts, dtype=object, count=len(texts))
+
     def frame(self) -> pd.DataFrame:
-        return pd.DataFrame({name: pd.Series(cells, copy=False) if cells.dtype == float or self.typed
+        for k, parts in enumerate(self.joined):
+            if parts is not None:
+                self._split(k)
+        return pd.DataFrame({name: pd.Series(cells, dtype=cells.dtype, copy=False) if self.typed
                              else _column(cells, number) for name, cells, number in
                              zip(self.names, self.cells, self.numeric)}, copy=False)
 

@@ -6,13 +6,16 @@ The shortcuts checked here: line ends, colons and the "every line end lies betwe
 objects" test counted a block at a time in numpy (against bytes.count and a plain reading
 of each line end); the lines parsed a part at a time (against the json module, with parts
 and blocks small enough that every file here spans many); numeric columns built straight
-into floats (a null as NaN); repeated texts kept as one object each across parts."""
+into floats (a null as NaN); repeated texts kept as one object each across parts; id texts
+joined a part at a time and split at the end (against the slower route, which builds each
+column cell by cell)."""
 
 import json
 from contextlib import contextmanager
 from unittest import mock
 
 import numpy as np
+import pandas as pd
 import pytest
 from hypothesis import example, given, settings, strategies as st
 
@@ -171,6 +174,7 @@ def test_a_file_read_in_many_parts_gives_the_rows_the_whole_file_gives(null_at):
     with _sizes(1 << 12, 1 << 12):
         parts = readers.read_jsonl(data, NUMERIC)
     whole = readers.read_jsonl(data, NUMERIC)
+    pd.testing.assert_frame_equal(parts.frame, readers.read_jsonl(data, NUMERIC, encoding="cp1252").frame)
     assert parts.rows.tolist() == whole.rows.tolist() == list(range(1, 3001))
     for table in (parts, whole):
         assert table.frame["an"].dtype == float and table.frame["kv40"].dtype == float
@@ -181,6 +185,31 @@ def test_a_file_read_in_many_parts_gives_the_rows_the_whole_file_gives(null_at):
         # one object per distinct text across all parts (why the route keeps them so: see readers._repeats)
         assert len({id(v) for v in table.frame["class"]}) == 2
         assert len({id(v) for v in table.frame["sample_id"]}) == 3000
+
+
+@pytest.mark.parametrize("changed", [
+    {"unit_id": {0: None}},  # a null in an id column: in the first part
+    {"sample_id": {1700: None}, "unit_id": {2999: None}},  # ... in a middle part, in the last
+    {"sample_id": {40: "BP-\u0000-40"}, "unit_id": {2000: "GB-\u0000"}},  # a NUL in a text (JSON: \u0000)
+    {"class": {3: None, 2500: "turbine"}, "lubricant": {0: None}},  # a null, a new text in a repeated column
+])
+def test_text_columns_with_a_null_or_a_nul_read_as_the_slower_route_reads_them(changed):
+    # The fast route joins an id column's texts by NUL a part at a time; a part with a null or
+    # a NUL inside a text turns the column into cells. The slower route (the text decoded
+    # first, as for a declared encoding) builds every column cell by cell once all lines are
+    # parsed: both tables must be the same, cell for cell and type for type.
+    rows = _lab_lines(3000)
+    for name, cells in changed.items():
+        for k, value in cells.items():
+            rows[k][name] = value
+    data = "".join(json.dumps(row) + "\n" for row in rows).encode("utf-8")
+    with _sizes(1 << 12, 1 << 12):
+        fast = readers.read_jsonl(data, NUMERIC)
+    slow = readers.read_jsonl(data, NUMERIC, encoding="cp1252")  # ASCII bytes: the same text
+    pd.testing.assert_frame_equal(fast.frame, slow.frame)
+    assert fast.rows.tolist() == slow.rows.tolist() == list(range(1, 3001))
+    for name in ("sample_id", "unit_id", "class", "lubricant"):
+        assert fast.frame[name].tolist() == [row[name] for row in rows], name
 
 
 def test_a_value_running_from_one_line_onto_the_next_rejects_both_lines():
