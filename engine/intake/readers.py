@@ -520,7 +520,7 @@ def _objects_table(records: list, numbers: np.ndarray, skipped: list, numeric: s
     return RawTable(frame, numbers[objects], skipped, [], [str(c) for c in frame.columns])
 
 
-def _repeats(cells: np.ndarray) -> bool:
+def _repeats(cells: np.ndarray | list) -> bool:
     """Whether the column's first cells repeat (codes, names, dates), so that keeping one object
     per distinct text pays: later passes over the column then read a few objects, not one
     scattered object a row (twice as fast), as they do over pandas' CSV parser's columns."""
