@@ -141,7 +141,8 @@ def read_iso4406(text: str) -> tuple:
     """A cleanliness code as labs write it -> (scale number or None) at >= 4, 6 and 14 um(c).
 
     `18/16/13`; the two-number form `16/13` (>= 6 and >= 14 um(c) only) or `-/16/13`; `-` or
-    `*` for a size not reported. A number written `>=7` or with the sign U+2265 (fewer than 20
+    `*` for a size not reported; `>28` (beyond the standard's table) is 29, as scale_numbers
+    gives a count above 2,500,000 per mL. A number written `>=7` or with the sign U+2265 (fewer than 20
     particles counted) gives that number here; iso4406_at_least says which were so written,
     since the true code may be higher. Raises ValueError saying what was expected.
     """
@@ -165,6 +166,9 @@ def _iso4406_parts(text: str) -> list:
     for part in parts:
         if part in ("-", "*"):
             found.append((None, False))
+            continue
+        if part.replace(" ", "") == f">{ISO4406_TOP}":  # the standard's spelling beyond its table: 29 here
+            found.append((ISO4406_TOP + 1, False))
             continue
         digits = part.removeprefix(">=").removeprefix("\u2265").strip()
         if not digits.isdigit() or int(digits) > ISO4406_TOP + 1:
