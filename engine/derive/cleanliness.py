@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.vocabulary.measures import ISO4406_SIZES, ISO4406_TOP, read_iso4406
+from sumpwise.vocabulary.measures import ISO4406_SIZES, ISO4406_TOP, iso4406_at_least, read_iso4406
 
 # ISO 4406:1999 Table 1, particles per mL: scale number N holds counts more than MORE_THAN[N]
 # and up to and including UP_TO[N]. The scale doubles per number, but the published table
@@ -47,30 +47,36 @@ def scale_number_range(low, high, low_open) -> tuple[np.ndarray, np.ndarray]:
     return least.astype(float), np.searchsorted(UP_TO, high, side="left").astype(float)
 
 
-def read_codes(codes) -> np.ndarray:
-    """float [rows, 3]: each code's scale numbers as written (NaN for a size not reported,
-    a missing code, or one that cannot be read: read_cleanliness_codes rejects those first)."""
+def read_codes(codes) -> tuple[np.ndarray, np.ndarray]:
+    """(float [rows, 3], bool [rows, 3]): each code's scale numbers as written (NaN for a size not
+    reported, a missing code, or one that cannot be read: read_cleanliness_codes rejects those
+    first), and which of them were written `>=n` (n or higher: iso4406_at_least)."""
     values = pd.Series(codes, dtype=object).to_numpy(dtype=object)
     out = np.full((len(values), len(ISO4406_SIZES)), np.nan)
+    at_least = np.zeros((len(values), len(ISO4406_SIZES)), dtype=bool)
     present = pd.notna(values)
     if not present.any():
-        return out
+        return out, at_least
     index, uniques = pd.factorize(values[present])  # each distinct code is read once
     table = np.full((len(uniques), len(ISO4406_SIZES)), np.nan)
+    marks = np.zeros((len(uniques), len(ISO4406_SIZES)), dtype=bool)
     for k, text in enumerate(uniques):
         try:
             table[k] = [np.nan if n is None else n for n in read_iso4406(text)]
+            marks[k] = iso4406_at_least(text)
         except ValueError:
             continue
     out[present] = table[index]
-    return out
+    at_least[present] = marks[index]
+    return out, at_least
 
 
-def cleanliness_measures(codes, counts: dict) -> dict:
-    """`iso4406_<size>` columns: the code's number where written, else the count's."""
-    written = read_codes(codes)
-    return {f"iso4406_{size}": np.where(np.isnan(written[:, k]), scale_numbers(counts[size]), written[:, k])
-            for k, size in enumerate(ISO4406_SIZES)}
+def cleanliness_measures(codes, counts: dict) -> tuple[dict, np.ndarray]:
+    """`iso4406_<size>` columns: the code's number where written, else the count's; and which
+    numbers the code wrote `>=n` (bool [rows, 3]), for derivation to take as n or higher."""
+    written, at_least = read_codes(codes)
+    return ({f"iso4406_{size}": np.where(np.isnan(written[:, k]), scale_numbers(counts[size]), written[:, k])
+             for k, size in enumerate(ISO4406_SIZES)}, at_least)
 
 
 def read_cleanliness_codes(batch: SampleBatch) -> SampleBatch:

@@ -16,7 +16,7 @@ from sumpwise.derive.viscosity import viscosity_index
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
 from sumpwise.vocabulary.base_stocks import family_of
 from sumpwise.vocabulary.caveats import EngineCaveat
-from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
+from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, ISO4406_TOP, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
                                          ROW_MEASURES)
 
 # A lubricant code the rule set does not know: its new-oil values are missing, and the
@@ -100,6 +100,27 @@ def _bound_columns(name: str, b: Bounds) -> dict:
     return {name + ":low": np.where(rows, b.low, np.nan), name + ":high": np.where(rows, b.high, np.nan),
             name + ":low_open": b.low_open & rows, name + ":high_open": b.high_open & rows,
             name + WRITTEN_SUFFIX: np.where(rows, b.written, None)}
+
+def _at_least_bounds(numbers: np.ndarray, rows: np.ndarray, codes: np.ndarray, counted: Bounds | None) -> Bounds:
+    """Scale numbers a code wrote `>=n` as the interval [n, >28] (ISO 4406:1999: fewer than 20
+    particles counted, so the true code may be higher), beside the bounds a censored count gave
+    other rows (`counted`: only rows with no number in the code, so never these)."""
+    n = len(rows)
+    spelled = np.full(n, None, dtype=object)
+    at = np.flatnonzero(rows)
+    index, uniques = pd.factorize(codes[at])  # each distinct code spelled once: it fixes the number
+    first = np.empty(len(uniques), dtype=np.intp)
+    first[index[::-1]] = at[::-1]
+    spelled[at] = np.array([f"[{numbers[k]:.0f}, {ISO4406_TOP + 1}] from iso4406 '{code}'"
+                            for k, code in zip(first, uniques)], dtype=object)[index]
+    low, high = np.where(rows, numbers, -np.inf), np.where(rows, float(ISO4406_TOP + 1), np.inf)
+    closed = np.zeros(n, dtype=bool)
+    if counted is None:
+        return Bounds(rows, low, high, closed, closed, spelled)
+    return Bounds(rows | counted.censored, np.where(rows, low, counted.low), np.where(rows, high, counted.high),
+                  np.where(rows, False, counted.low_open), np.where(rows, False, counted.high_open),
+                  np.where(rows, spelled, counted.written))
+
 
 def _numbers(frame: pd.DataFrame, column: str) -> np.ndarray:
     if column in frame.columns:
@@ -217,8 +238,9 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
             values = np.round(out[name], DECIMALS)
             out[name] = np.where(np.isfinite(values), values, np.nan)
     out["vi"] = viscosity_index(out["kv40"], out["kv100"])
-    out.update(cleanliness_measures(fields["iso4406"].to_numpy(dtype=object),
-                                    {size: out[f"particles_{size}"] for size in ISO4406_SIZES}))
+    codes = fields["iso4406"].to_numpy(dtype=object)
+    scales, at_least = cleanliness_measures(codes, {size: out[f"particles_{size}"] for size in ISO4406_SIZES})
+    out.update(scales)
     for size in ISO4406_SIZES:  # a censored count where no code was written: the scale numbers it can have
         count, scale = f"particles_{size}", f"iso4406_{size}"
         if count in found:
@@ -233,6 +255,14 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
                     spelled[k] = f"[{least[k]:.0f}, {most[k]:.0f}] from {count} '{b.written[k]}'"
                 found[scale] = Bounds(rows, least, most, np.zeros(len(rows), dtype=bool),
                                       np.zeros(len(rows), dtype=bool), spelled)
+
+    for k, size in enumerate(ISO4406_SIZES):  # a number the code wrote `>=n`: n or higher, censored
+        if at_least[:, k].any():
+            scale = f"iso4406_{size}"
+            found[scale] = _at_least_bounds(out[scale], at_least[:, k], codes, found.get(scale))
+            out[scale] = np.where(at_least[:, k], np.nan, out[scale])
+    if at_least.any():  # the code as written, for saying which reading left a rule undecided
+        out["iso4406" + WRITTEN_SUFFIX] = np.where(at_least.any(axis=1), codes, None)
 
     for name, b in found.items():
         out.update(_bound_columns(name, b))

@@ -24,8 +24,9 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.version import engine_name
+from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.evaluation.evaluator import NOT_EVALUATED, Outcome
-from sumpwise.vocabulary.measures import DERIVED_MEASURES, measure_needs
+from sumpwise.vocabulary.measures import DERIVED_MEASURES, KNOWN_FIELDS, measure_needs
 from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, condition_measures, leaves
 
 UNRATED = "unrated"
@@ -435,7 +436,9 @@ def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
     """What rule slot j lacked for row i (it was not evaluated)."""
     rule = batch.outcome.slots[j].rule
     values = RowValues(batch.columns) if values is None else values
-    undecided = tuple((name, values.number(name, i)) for name in rule_inputs(rule)
+    undecided = tuple((name, values.text(name + WRITTEN_SUFFIX, i) if name in KNOWN_FIELDS  # a code with `>=`
+                       else values.number(name, i))  # a number's censored spelling
+                      for name in rule_inputs(rule)
                       if (written := batch.columns.written(name)) is not None and written[i] is not None)
     missing = [name for name in rule_inputs(rule) if _is_missing(batch, name, i)]
     return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]), undecided)

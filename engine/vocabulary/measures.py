@@ -141,27 +141,43 @@ def read_iso4406(text: str) -> tuple:
     """A cleanliness code as labs write it -> (scale number or None) at >= 4, 6 and 14 um(c).
 
     `18/16/13`; the two-number form `16/13` (>= 6 and >= 14 um(c) only) or `-/16/13`; `-` or
-    `*` for a size not reported; `>=7` or the sign U+2265 before a number (fewer than 20 particles
-    counted) is read as that number. Raises ValueError saying what was expected.
+    `*` for a size not reported; `>28` (beyond the standard's table) is 29, as scale_numbers
+    gives a count above 2,500,000 per mL. A number written `>=7` or with the sign U+2265 (fewer than 20
+    particles counted) gives that number here; iso4406_at_least says which were so written,
+    since the true code may be higher. Raises ValueError saying what was expected.
     """
+    return tuple(number for number, _ in _iso4406_parts(text))
+
+
+def iso4406_at_least(text: str) -> tuple:
+    """Which of a readable code's three sizes were written `>=n` or with U+2265: fewer than 20
+    particles counted, so the true scale number is n or higher (ISO 4406:1999; a censored
+    value, not the number n)."""
+    return tuple(at_least for _, at_least in _iso4406_parts(text))
+
+
+def _iso4406_parts(text: str) -> list:
     parts = [part.strip() for part in str(text).strip().split("/")]
     if len(parts) == 2:
         parts = ["-"] + parts
     if len(parts) != 3:
         raise ValueError(f"expected an ISO 4406 code such as 18/16/13, 16/13 or -/16/13, found '{text}'")
-    numbers = []
+    found = []
     for part in parts:
         if part in ("-", "*"):
-            numbers.append(None)
+            found.append((None, False))
+            continue
+        if part.replace(" ", "") == f">{ISO4406_TOP}":  # the standard's spelling beyond its table: 29 here
+            found.append((ISO4406_TOP + 1, False))
             continue
         digits = part.removeprefix(">=").removeprefix("\u2265").strip()
         if not digits.isdigit() or int(digits) > ISO4406_TOP + 1:
             raise ValueError(f"expected scale numbers 0 to {ISO4406_TOP + 1}, '-' or '*' in an ISO 4406 code "
                              f"such as 18/16/13, found '{text}'")
-        numbers.append(int(digits))
-    if all(n is None for n in numbers):
+        found.append((int(digits), digits != part))
+    if all(number is None for number, _ in found):
         raise ValueError(f"the ISO 4406 code '{text}' reports no size")
-    return tuple(numbers)
+    return found
 
 CLEANLINESS = tuple(
     _derived(f"iso4406_{size}", "", ("iso4406", f"particles_{size}"),

@@ -8,13 +8,15 @@ scale numbers 0 to 28); the worked example there, 14/12/>=7, is checked too.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
 
 from sumpwise.derive.cleanliness import MORE_THAN, UP_TO, cleanliness_measures, read_cleanliness_codes, scale_numbers
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.vocabulary.measures import read_iso4406
+from sumpwise.vocabulary.measures import iso4406_at_least, read_iso4406
 
 # ISO 4406:1999 Table 1 (scale number: more than, up to and including), particles per mL.
 PUBLISHED = {
@@ -58,12 +60,25 @@ def test_the_published_worked_example():
     # 14/12/>=7: more than 80 up to 160 at 4 um(c), 20 to 40 at 6 um(c), 0.64 to 1.3 at 14 um(c).
     assert scale_numbers([120.0, 33.0, 1.0]).tolist() == [14, 12, 7]
     assert read_iso4406("14/12/\u22657") == (14, 12, 7)
+    # ISO 4406:1999 (the shared fact sheet, limits.md): the sign marks fewer than 20 particles
+    # counted, so 7 is the least the code can be, not the code.
+    assert iso4406_at_least("14/12/\u22657") == (False, False, True)
+
+
+@pytest.mark.parametrize("written, marks", [
+    ("18/16/13", (False, False, False)), ("20/18/>=14", (False, False, True)), (">=16/13", (False, True, False)),
+    ("\u2265 18/-/\u226513", (True, False, True)),
+])
+def test_which_numbers_are_written_as_at_least(written, marks):
+    assert iso4406_at_least(written) == marks
 
 
 @pytest.mark.parametrize("written, numbers", [
     ("18/16/13", (18, 16, 13)), (" 18 / 16 / 13 ", (18, 16, 13)), ("16/13", (None, 16, 13)),
     ("-/16/13", (None, 16, 13)), ("*/16/13", (None, 16, 13)), ("18/-/13", (18, None, 13)),
     ("20/18/>=14", (20, 18, 14)),
+    (">28/27/24", (29, 27, 24)),  # ISO 4406:1999 (shared fact sheet limits.md): above 2,500,000 per mL is ">28"
+    ("> 28/>28/-", (29, 29, None)),
 ])
 def test_codes_as_labs_write_them(written, numbers):
     assert read_iso4406(written) == numbers
@@ -79,7 +94,8 @@ def test_the_written_code_wins_and_counts_fill_what_it_leaves_out():
     codes = np.array(["18/16/13", "-/16/13", None, None], dtype=object)
     counts = {"4um": np.array([100.0, 2000.0, 2000.0, np.nan]), "6um": np.array([50.0, 600.0, 600.0, np.nan]),
               "14um": np.array([5.0, 60.0, 60.0, np.nan])}
-    out = cleanliness_measures(codes, counts)
+    out, at_least = cleanliness_measures(codes, counts)
+    assert not at_least.any()
     assert out["iso4406_4um"].tolist()[:3] == [18, 18, 18]  # as written; then from 2000 /mL (1300 to 2500)
     assert out["iso4406_6um"].tolist()[:3] == [16, 16, 16]
     assert out["iso4406_14um"].tolist()[:3] == [13, 13, 13]
@@ -131,3 +147,31 @@ def test_censored_counts_grade_against_the_site_target_cleanliness():
     assert "cleanliness-14um" not in gaps["C1"] and not [x for x in got["C1"].reasons if x.rule.startswith("clean")]
     assert "cleanliness-14um" in gaps["C2"]
     assert [(x.rule, x.grade) for x in got["C3"].reasons if x.rule.startswith("clean")] == [("cleanliness-4um", "alert")]
+
+
+SITE = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater" / "site.yaml"
+
+
+@pytest.mark.parametrize("code, grade, fired, undecided", [
+    ("16/14/12", "normal", [], False),  # 12 is not above the site's 14 um(c) target of 12
+    ("16/14/\u226512", "normal", [], True),  # 12 or more: above 12 or not cannot be known
+    ("16/14/>=12", "normal", [], True),
+    ("16/14/\u226513", "watch", ["cleanliness-14um"], False),  # 13 or more is above 12 whatever it is
+    ("16/14/\u226515", "alert", ["cleanliness-14um"], False),  # 15 or more is above the alert code's 14
+])
+def test_a_code_written_at_least_is_graded_as_the_interval_it_is(code, grade, fired, undecided):
+    """Once graded: `>=12` at 14 um(c) against the site's hydraulic target 17/15/12 (alert 19/17/14)
+    must not pass as a plain 12 (it once did, graded normal without a word)."""
+    import io
+    from sumpwise.intake.samples import read_samples
+    from sumpwise.results.pipeline import grade_batch
+    from sumpwise.ruleset.compiler import load_ruleset
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,oil_hours,kv40,kv100,an,water,iso4406\n"
+            f"H1,HPU-9,hydraulic,HYD-46-M,2026-03-01,1000,46,6.9,0.5,100,{code}\n")
+    (result,) = list(grade_batch(read_samples(io.StringIO(text), "h.csv"), load_ruleset(SITE)).results())
+    assert result.grade == grade
+    assert [r.rule for r in result.reasons] == fired
+    gaps = {n.rule: n for n in result.not_evaluated}
+    assert ("cleanliness-14um" in gaps) == undecided
+    if undecided:
+        assert dict(gaps["cleanliness-14um"].undecided) == {"iso4406": code}
