@@ -178,10 +178,20 @@ class _SeenIds:
                                np.fromiter(first_rejects, dtype=np.int64, count=len(first_rejects))])
         if first_rejects:
             hashes = np.concatenate([hashes, _hashes(np.array(list(first_rejects.values()), dtype=object))])
-        order = np.argsort(np.concatenate([self.hashes, hashes]), kind="stable")
-        self.hashes = np.concatenate([self.hashes, hashes])[order]
-        self.rows = np.concatenate([self.rows, rows])[order]
+        self.hashes, self.rows = merged(self.hashes, self.rows, hashes, rows)
         return batch
+
+
+def merged(hashes: np.ndarray, rows: np.ndarray, more: np.ndarray, more_rows: np.ndarray) -> tuple[np.ndarray,
+                                                                                                     np.ndarray]:
+    """Sorted `hashes` (with their `rows`) and `more` in one sorted array, an equal hash after
+    those already there and in its own order: what a stable sort of the two end to end gives,
+    by sorting only the chunk's and inserting it (the earlier ids' sort, growing with the
+    file, is never redone: 10,000,000 ids would be sorted again at every chunk)."""
+    order = np.argsort(more, kind="stable")
+    more, more_rows = more[order], more_rows[order]
+    at = np.searchsorted(hashes, more, side="right")
+    return np.insert(hashes, at, more), np.insert(rows, at, more_rows)
 
 
 def _hashes(ids: np.ndarray) -> np.ndarray:

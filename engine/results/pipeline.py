@@ -13,13 +13,12 @@ from sumpwise.vocabulary.measures import INPUT_MEASURES
 from sumpwise.results.records import GradedBatch, recorded_derived
 from sumpwise.ruleset.model import RuleSet
 
-_LAST = np.iinfo(np.int64).max  # sort key of a missing or unreadable date: after every real one
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
 from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
-from sumpwise.derive.trends import (CHAIN_COLUMNS, TREND_CAVEATS, add_trend_measures, noise_margins, read_oil_changes,
-                                    trend_bases, trend_caveat_flags)
+from sumpwise.derive.trends import (CHAIN_COLUMNS, TREND_CAVEATS, add_trend_measures, date_keys, noise_margins,
+                                    read_oil_changes, trend_bases, trend_caveat_flags)
 from sumpwise.vocabulary.problems import InputError
 
 
@@ -109,8 +108,7 @@ def grade_in_chunks(batches, ruleset: RuleSet):
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """(date, oil hours) sort keys as trends order samples: unreadable dates and missing hours last."""
     written = frame["sampled_on"].to_numpy(dtype=object) if "sampled_on" in frame else np.full(len(frame), None)
-    dates = pd.to_datetime(pd.Series(written, dtype=object), errors="coerce", format="ISO8601")
-    keys = np.where(dates.isna().to_numpy(), _LAST, dates.to_numpy(dtype="datetime64[ns]").view(np.int64))
+    keys = date_keys(written)
     hours = frame["oil_hours"].to_numpy(dtype=float) if "oil_hours" in frame else np.full(len(frame), np.nan)
     return keys, np.where(np.isnan(hours), np.inf, hours)
 

@@ -225,11 +225,11 @@ def test_oil_changed_spellings(value, flag):
 
 def test_packed_sort_key_gives_numpy_lexsort_order():
     # Reference: numpy.lexsort (stable, last key first): unit, then date, then oil hours with missing hours last.
-    from sumpwise.derive.trends import _date_keys, _trend_order
+    from sumpwise.derive.trends import _trend_order, date_keys
     rng = np.random.default_rng(11)
     n = 5000
     units = rng.integers(-1, 30, n)
-    dates = _date_keys(np.array(["2026-01-05", "2026-01-06", None, "not a date", "2025-12-31"],
+    dates = date_keys(np.array(["2026-01-05", "2026-01-06", None, "not a date", "2025-12-31"],
                                 dtype=object)[rng.integers(0, 5, n)])
     hours = rng.choice([0.0, -0.0, 10.0, 25.5, np.nan, np.inf, 1e9], n)
     expected = np.lexsort((np.arange(n), np.where(np.isnan(hours), np.inf, hours), dates, units))
