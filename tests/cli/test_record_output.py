@@ -8,6 +8,7 @@ in either process must end the command with its exit code, never a hang or lost 
 from __future__ import annotations
 
 import errno
+import json
 import os
 import signal
 import subprocess
@@ -59,19 +60,36 @@ def test_two_processes_write_the_bytes_one_writes(tmp_path, small_blocks, form, 
     assert len(small_blocks) == -(-331 // int(chunk))  # every chunk went through the two processes
 
 
-def _failing_first_block(monkeypatch, fault):
-    """The renderer, but the first block (the forked process takes it) meets `fault` instead."""
+def _failing_first_block(monkeypatch, fault, from_row: int = 0):
+    """The renderer, but the first block (the forked process takes it) of a batch whose first
+    sample is at file row `from_row` or later meets `fault` instead."""
     renderer = record_output.block_renderer
 
     def failing(graded, form):
         render = renderer(graded, form)
 
         def block(start, stop):
-            if start == 0:
+            if start == 0 and graded.columns.index[0] >= from_row:
                 fault()
             return render(start, stop)
         return block
     monkeypatch.setattr(record_output, "block_renderer", failing)
+
+
+def test_a_failure_in_a_middle_chunk_leaves_the_chunks_before_it_and_nothing_after(tmp_path, small_blocks,
+                                                                                  monkeypatch):
+    whole = tmp_path / "whole.jsonl"
+    assert run_cli("grade", SAMPLES, "--rules", SITE, "--chunk-rows", "50", "--jobs", "1", "--out", whole).code == 0
+
+    def fault():
+        raise ValueError("a rendering fault")
+    _failing_first_block(monkeypatch, fault, from_row=101)  # the third chunk of 50 rows
+    out = tmp_path / "out.jsonl"
+    run = run_cli("grade", SAMPLES, "--rules", SITE, "--chunk-rows", "50", "--jobs", "2", "--out", out)
+    assert run.code == 1 and "a rendering fault" in run.err
+    before = [line for line in whole.read_text(encoding="utf-8").splitlines()
+              if json.loads(line)["origin"]["row"] <= 100]
+    assert out.read_text(encoding="utf-8").splitlines() == before  # the first two chunks whole, then nothing
 
 
 def test_a_failure_in_the_other_process_ends_the_command_as_a_bug(tmp_path, small_blocks, monkeypatch):
