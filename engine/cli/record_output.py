@@ -115,12 +115,14 @@ class _Shares:
         self.lock_out, self.lock_in = os.pipe()
         os.set_blocking(self.lock_out, False)
         os.write(self.lock_in, b"\0")
+        self.ready = select.poll()  # poll, not select: any descriptor number will do
+        self.ready.register(self.lock_out, select.POLLIN)
 
     def take(self, front: bool, other_ended) -> int | None:
         """The next block from the front or the back; None when none is left. `other_ended()`
         says whether the other process is gone: a lock it died holding is never waited for."""
         while True:
-            if select.select([self.lock_out], [], [], 0.5)[0]:
+            if self.ready.poll(500):
                 try:
                     os.read(self.lock_out, 1)  # non-blocking: the other may have taken the byte first
                     break
