@@ -29,7 +29,8 @@ _SEEN_AT = re.compile(r"^(sample id '.*' already seen at row )(\d+)$", re.S)
 
 def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
                   numeric: tuple = (), rows: int = 200_000):
-    """Yield SampleBatches of about `rows` data rows each, numbered as in the whole file."""
+    """Yield SampleBatches of about `rows` data rows each, numbered as in the whole file, each
+    saying whether the file goes on after it (`more`)."""
     if isinstance(source, (str, Path)):
         name = name or str(source)
         try:
@@ -43,7 +44,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     seen = _SeenIds()
     offset = 0
     try:
-        for text, lines in _chunk_texts(stream, fmt, rows, name):
+        for text, lines, more in _chunk_texts(stream, fmt, rows, name):
             if offset == 0 and fmt == "csv":
                 chunk_columns, columns = columns, _marks_of_the_file(columns, text)  # later chunks: the first's
             else:
@@ -57,7 +58,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
                                  chunk_columns, fmt, numeric)
             data = None
             batch = _moved(batch, offset)
-            batch = seen.check(batch)
+            batch = replace(seen.check(batch), more=more)
             offset += lines  # the chunk's lines, blank ones included: rows are numbered by line
             yield batch
             batch = None  # let the chunk go before the next one is read
@@ -93,8 +94,8 @@ def _file_line(text: str, at: int, offset: int, header: bool) -> int:
 
 
 def _chunk_texts(stream, fmt: str, rows: int, name: str):
-    """The file's text a chunk at a time, with the number of its lines after any header; CSV chunks
-    each start with the header line.
+    """The file's text a chunk at a time, with the number of its lines after any header and whether
+    another chunk follows; CSV chunks each start with the header line.
 
     A CSV chunk never starts with a row of more fields than the header: pandas would take
     such a first row's extra field as an index column and shift every row of the chunk. No
@@ -122,13 +123,13 @@ def _chunk_texts(stream, fmt: str, rows: int, name: str):
             if quotes % 2 == 0 and line.strip() and (fmt != "csv" or _starts_well(line, fields)):
                 text, count = header + "".join(lines), len(lines)
                 lines, quotes, yielded = [], 0, True  # the lines go before the chunk is graded
-                yield text, count
+                yield text, count, True  # the line that opens the next chunk is in hand
             lines.append(line)
             if fmt == "csv":
                 quotes += line.count('"')
             at = cut + 1
     if lines or not yielded:
-        yield header + "".join(lines), len(lines)
+        yield header + "".join(lines), len(lines), False
 
 
 def _starts_well(line: str, fields: int) -> bool:

@@ -57,6 +57,7 @@ class SampleBatch:
     rows_read: int
     source: str
     notes: tuple = ()  # what the reader detected or left unused, said once on standard error
+    more: bool | None = None  # a chunk of a file: whether the file goes on after it (None: not known)
 
     @property
     def rejected_rows(self) -> int:

@@ -82,27 +82,29 @@ def grade_in_chunks(batches, ruleset: RuleSet):
 
     Forecasts are made only when the file is one chunk: a forecast is fitted over a unit's
     whole current oil charge and carried by the unit's latest sample, which an earlier chunk
-    cannot know. So the next chunk is read after a chunk is graded and before it is yielded
-    (its samples are held while the chunk is written: about one chunk's input more memory),
-    and the records of a file of several chunks say `forecasts: null` (forecasts not made),
-    never a partial fit.
+    cannot know. A chunk says whether the file goes on after it (SampleBatch.more, set by
+    intake.chunked); from a source that cannot say, the next batch is read after a chunk is
+    graded and before it is yielded, to know. The records of a file of several chunks say
+    `forecasts: null` (forecasts not made), never a partial fit.
     """
     bases = trend_bases(ruleset)
     history = None
     batches = iter(batches)
     batch, first = next(batches, None), True
     while batch is not None:
+        told = batch.more
         batch = read_oil_changes(batch)
         if history is not None and len(history):
             _check_order(batch, history)
         graded = grade_batch(batch, ruleset, history, forecasts=False)
+        batch = None
         history = _latest_per_unit(history, graded.measured, bases)
-        following = next(batches, None)
-        if first and following is None:  # the whole file in one chunk: its forecasts are whole
+        following = next(batches, None) if told is None else None
+        if first and (following is None if told is None else not told):  # the whole file in one chunk
             graded = replace(graded, forecasts=forecast(graded.measured, ruleset), forecasts_made=True)
         yield graded
         graded = None  # let the graded chunk go before the next one is graded
-        batch, first = following, False
+        batch, first = (following if told is None else next(batches, None)), False
 
 
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:

@@ -92,3 +92,34 @@ def test_a_quoted_field_across_lines_stays_in_one_chunk(tmp_path):
     code, out, _, err = _grade(tmp_path, tmp_path / "s.csv", BAD_ROWS[1], 1)
     assert code == 0 and [json.loads(line)["unit_id"] for line in out.splitlines()] == ["U\n1", "U2"]
     assert "read 2 row(s): 2 graded" in err
+
+
+@pytest.mark.parametrize("lines, rows, told", [
+    (["S1", "S2", "S3", "S4", "S5"], 2, [True, True, False]),
+    (["S1", "S2"], 2, [False]),  # exactly one chunk: nothing follows
+    (["S1", "S2", "", ""], 2, [False]),  # blank lines stay with the chunk before: still one
+    (["S1", "S2", "S3"], 2, [True, False]),
+])
+def test_a_chunk_says_whether_the_file_goes_on(lines, rows, told):
+    import io
+    from sumpwise.intake.chunked import sample_chunks
+    text = "sample_id,unit_id,class,lubricant\n" + "".join(
+        (f"{sid},U1,hydraulic,HYD-46-M" if sid else "") + "\n" for sid in lines)
+    assert [c.more for c in sample_chunks(io.StringIO(text), "t.csv", rows=rows)] == told
+
+
+def test_forecasts_follow_the_file_s_one_chunk_whether_or_not_a_chunk_says_so():
+    # batches that do not say (more=None, as read_samples gives them) are read one ahead to know
+    from dataclasses import replace
+    from sumpwise.intake.chunked import sample_chunks
+    from sumpwise.intake.samples import read_samples
+    from sumpwise.results.pipeline import grade_in_chunks
+    from sumpwise.ruleset.compiler import load_ruleset
+    samples, rules = SITE
+    ruleset = load_ruleset(rules)
+    for rows, whole in ((10_000, True), (100, False)):
+        told = list(grade_in_chunks(sample_chunks(samples, rows=rows), ruleset))
+        untold = list(grade_in_chunks((replace(b, more=None) for b in sample_chunks(samples, rows=rows)), ruleset))
+        assert [g.forecasts_made for g in told] == [g.forecasts_made for g in untold] == [whole] * len(told)
+    (alone,) = list(grade_in_chunks([read_samples(samples)], ruleset))
+    assert alone.forecasts_made and len(alone.forecasts) >= 5  # the demo's rising units (test above)
