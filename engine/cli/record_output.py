@@ -212,9 +212,6 @@ class _Handed:
         os.close(said_in)
         self.child = _Child(pid, said_out)
 
-    def _rows(self, block: int) -> tuple[int, int]:
-        return block * BLOCK_ROWS, min(len(self.graded), (block + 1) * BLOCK_ROWS)
-
     def finish(self) -> None:
         """Render blocks from the back while the other renders from the front, then write them after its own."""
         held, rows = [], 0
@@ -225,7 +222,7 @@ class _Handed:
                 if block is None:
                     break
                 render = render or block_renderer(self.graded, self.form)
-                start, stop = self._rows(block)
+                start, stop = _rows(block, len(self.graded))
                 held.append(render(start, stop))
                 rows += stop - start
             self.child.raise_failure()
@@ -246,6 +243,11 @@ class _Handed:
         self.shares.close()
 
 
+def _rows(block: int, n: int) -> tuple[int, int]:
+    """The rows (start, stop) of block number `block` of a batch of n rows."""
+    return block * BLOCK_ROWS, min(n, (block + 1) * BLOCK_ROWS)
+
+
 def _render_front(graded, binary, form: str, shares: _Shares, said: int) -> None:
     """The forked process: render and write blocks from the front, in order, then leave at once
     (os._exit: none of the parent's clean-up, buffers or exit handlers run twice)."""
@@ -253,7 +255,7 @@ def _render_front(graded, binary, form: str, shares: _Shares, said: int) -> None
     try:
         render = block_renderer(graded, form)
         while (block := shares.take(True, lambda: os.getppid() != parent)) is not None:
-            for piece in render(block * BLOCK_ROWS, min(len(graded), (block + 1) * BLOCK_ROWS)):
+            for piece in render(*_rows(block, len(graded))):
                 binary.write(piece)
         binary.flush()
     except BrokenPipeError:

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.vocabulary.measures import ISO4406_SIZES, ISO4406_TOP, iso4406_at_least, read_iso4406
+from sumpwise.vocabulary.measures import ISO4406_SIZES, ISO4406_TOP, iso4406_parts, read_iso4406
 
 # ISO 4406:1999 Table 1, particles per mL: scale number N holds counts more than MORE_THAN[N]
 # and up to and including UP_TO[N]. The scale doubles per number, but the published table
@@ -50,7 +50,7 @@ def scale_number_range(low, high, low_open) -> tuple[np.ndarray, np.ndarray]:
 def read_codes(codes) -> tuple[np.ndarray, np.ndarray]:
     """(float [rows, 3], bool [rows, 3]): each code's scale numbers as written (NaN for a size not
     reported, a missing code, or one that cannot be read: read_cleanliness_codes rejects those
-    first), and which of them were written `>=n` (n or higher: iso4406_at_least)."""
+    first), and which of them were written `>=n` (n or higher: iso4406_parts)."""
     values = pd.Series(codes, dtype=object).to_numpy(dtype=object)
     out = np.full((len(values), len(ISO4406_SIZES)), np.nan)
     at_least = np.zeros((len(values), len(ISO4406_SIZES)), dtype=bool)
@@ -62,10 +62,11 @@ def read_codes(codes) -> tuple[np.ndarray, np.ndarray]:
     marks = np.zeros((len(uniques), len(ISO4406_SIZES)), dtype=bool)
     for k, text in enumerate(uniques):
         try:
-            table[k] = [np.nan if n is None else n for n in read_iso4406(text)]
-            marks[k] = iso4406_at_least(text)
+            parts = iso4406_parts(text)  # one reading of each distinct code gives both
         except ValueError:
             continue
+        table[k] = [np.nan if number is None else number for number, _ in parts]
+        marks[k] = [at_least for _, at_least in parts]
     out[present] = table[index]
     at_least[present] = marks[index]
     return out, at_least

@@ -16,8 +16,8 @@ from sumpwise.derive.viscosity import viscosity_index
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
 from sumpwise.vocabulary.base_stocks import family_of
 from sumpwise.vocabulary.caveats import EngineCaveat
-from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, ISO4406_TOP, KNOWN_FIELDS, DECIMALS, REFERENCE_VALUES,
-                                         ROW_MEASURES)
+from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, ISO4406_TOP, KNOWN_FIELDS, DECIMALS,
+                                         REFERENCE_VALUES, ROW_MEASURES)
 
 # A lubricant code the rule set does not know: its new-oil values are missing, and the
 # sample must say so where people look, not only in its not-evaluated list.
@@ -100,6 +100,7 @@ def _bound_columns(name: str, b: Bounds) -> dict:
     return {name + ":low": np.where(rows, b.low, np.nan), name + ":high": np.where(rows, b.high, np.nan),
             name + ":low_open": b.low_open & rows, name + ":high_open": b.high_open & rows,
             name + WRITTEN_SUFFIX: np.where(rows, b.written, None)}
+
 
 def _at_least_bounds(numbers: np.ndarray, rows: np.ndarray, codes: np.ndarray, counted: Bounds | None) -> Bounds:
     """Scale numbers a code wrote `>=n` as the interval [n, >28] (ISO 4406:1999: fewer than 20

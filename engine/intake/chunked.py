@@ -183,8 +183,7 @@ class _SeenIds:
         return batch
 
 
-def merged(hashes: np.ndarray, rows: np.ndarray, more: np.ndarray, more_rows: np.ndarray) -> tuple[np.ndarray,
-                                                                                                     np.ndarray]:
+def merged(hashes: np.ndarray, rows: np.ndarray, more: np.ndarray, more_rows: np.ndarray) -> tuple:
     """Sorted `hashes` (with their `rows`) and `more` in one sorted array, an equal hash after
     those already there and in its own order: what a stable sort of the two end to end gives,
     by sorting only the chunk's and inserting it (the earlier ids' sort, growing with the

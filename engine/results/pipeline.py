@@ -99,12 +99,13 @@ def grade_in_chunks(batches, ruleset: RuleSet):
         graded = grade_batch(batch, ruleset, history, forecasts=False)
         batch = None
         history = _latest_per_unit(history, graded.measured, bases)
-        following = next(batches, None) if told is None else None
-        if first and (following is None if told is None else not told):  # the whole file in one chunk
+        following = next(batches, None) if told is None else None  # read ahead only when not told
+        last = following is None if told is None else not told
+        if first and last:  # the whole file in one chunk: its forecasts are whole
             graded = replace(graded, forecasts=forecast(graded.measured, ruleset), forecasts_made=True)
         yield graded
         graded = None  # let the graded chunk go before the next one is graded
-        batch, first = (following if told is None else next(batches, None)), False
+        batch, first = (following if told is None else next(batches, None)), False  # the source ends itself
 
 
 def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:

@@ -143,20 +143,16 @@ def read_iso4406(text: str) -> tuple:
     `18/16/13`; the two-number form `16/13` (>= 6 and >= 14 um(c) only) or `-/16/13`; `-` or
     `*` for a size not reported; `>28` (beyond the standard's table) is 29, as scale_numbers
     gives a count above 2,500,000 per mL. A number written `>=7` or with the sign U+2265 (fewer than 20
-    particles counted) gives that number here; iso4406_at_least says which were so written,
+    particles counted) gives that number here; iso4406_parts says which were so written,
     since the true code may be higher. Raises ValueError saying what was expected.
     """
-    return tuple(number for number, _ in _iso4406_parts(text))
+    return tuple(number for number, _ in iso4406_parts(text))
 
 
-def iso4406_at_least(text: str) -> tuple:
-    """Which of a readable code's three sizes were written `>=n` or with U+2265: fewer than 20
-    particles counted, so the true scale number is n or higher (ISO 4406:1999; a censored
-    value, not the number n)."""
-    return tuple(at_least for _, at_least in _iso4406_parts(text))
-
-
-def _iso4406_parts(text: str) -> list:
+def iso4406_parts(text: str) -> list:
+    """A readable code's three sizes as (scale number or None, written `>=n` or with U+2265):
+    fewer than 20 particles counted, so the true number is n or higher (ISO 4406:1999; a
+    censored value, not the number n). Raises ValueError as read_iso4406 does."""
     parts = [part.strip() for part in str(text).strip().split("/")]
     if len(parts) == 2:
         parts = ["-"] + parts

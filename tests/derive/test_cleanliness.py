@@ -16,7 +16,7 @@ import pytest
 
 from sumpwise.derive.cleanliness import MORE_THAN, UP_TO, cleanliness_measures, read_cleanliness_codes, scale_numbers
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.vocabulary.measures import iso4406_at_least, read_iso4406
+from sumpwise.vocabulary.measures import iso4406_parts, read_iso4406
 
 # ISO 4406:1999 Table 1 (scale number: more than, up to and including), particles per mL.
 PUBLISHED = {
@@ -54,6 +54,10 @@ def test_the_scale_doubles_per_number_within_the_tables_rounding():
 def test_beyond_the_table_and_missing_counts():
     assert scale_numbers([2_500_001.0, np.nan]).tolist()[0] == 29  # written >28 by the standard
     assert np.isnan(scale_numbers([np.nan])[0])
+
+
+def iso4406_at_least(text: str) -> tuple:
+    return tuple(at_least for _, at_least in iso4406_parts(text))
 
 
 def test_the_published_worked_example():
