@@ -19,7 +19,8 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.intake.readers import ENCODING_HINT, detect_delimiter
-from sumpwise.intake.samples import ColumnMap, Reject, SampleBatch, detected_decimal, read_samples
+from sumpwise.intake.samples import (ColumnMap, Reject, SampleBatch, detected_decimal, lab_numeric_columns,
+                                     read_samples)
 from sumpwise.vocabulary.problems import InputError
 
 DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
@@ -46,7 +47,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     try:
         for text, lines, more in _chunk_texts(stream, fmt, rows, name):
             if offset == 0 and fmt == "csv":
-                chunk_columns, columns = columns, _marks_of_the_file(columns, text)  # later chunks: the first's
+                chunk_columns, columns = columns, _marks_of_the_file(columns, text, numeric, name)  # later: the first's
             else:
                 chunk_columns = columns
             # as UTF-8 bytes: a StringIO of the chunk would hold 4 bytes a character
@@ -69,14 +70,17 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             stream.close()
 
 
-def _marks_of_the_file(columns: ColumnMap | None, text: str) -> ColumnMap:
+def _marks_of_the_file(columns: ColumnMap | None, text: str, numeric: tuple, name: str) -> ColumnMap:
     """The column map with the delimiter and decimal mark the first chunk shows, for the chunks
     after it: a later chunk whose first lines hold no `46,1` would otherwise take '.' and
     reject its decimal-comma numbers."""
     columns = columns or ColumnMap()
     head = text[: 1 << 16].splitlines()  # line ends of any kind, as the readers take them
     delimiter = columns.option("delimiter") or (detect_delimiter(head[0]) if head else ",")
-    decimal = columns.option("decimal") or detected_decimal(text, delimiter)
+    try:
+        decimal = columns.option("decimal") or detected_decimal(text, delimiter, lab_numeric_columns(columns, numeric))
+    except InputError as exc:
+        raise InputError(f"{name}: {exc}") from None
     return replace(columns, options={**columns.options, "delimiter": delimiter, "decimal": decimal})
 
 

@@ -84,15 +84,48 @@ def detect_delimiter(header: str) -> str:
     return max(DELIMITERS, key=lambda d: (counts[d], d == ","))
 
 
-_COMMA_NUMBER = r"-?\d+,\d+"
+_DECIMAL = re.compile(r"\s*[<>]?\s*-?\d+([,.])\d+\s*")  # a number with one mark in it: 46,1 or 46.1
+_GROUPED = re.compile(r"\s*[<>]?\s*[1-9]\d{0,2}[,.]\d{3}\s*")  # 1,250 or 1.250: a thousands group, or not
 
 
-def detect_decimal(lines: list, delimiter: str) -> str:
-    """A comma is the decimal mark when the delimiter is not one and a field reads like `46,1`."""
+def detect_decimal(lines: list, delimiter: str, numeric: set | None = None) -> str:
+    """The decimal mark the data show: ',' when the delimiter is not one and a field reads like
+    `46,1`, '.' when one reads like `46.1` (or none does). Only the columns named in `numeric`
+    are looked at (all, when None): a sample id `26.041` is no evidence.
+
+    A field like `1,250` or `1.250` (one mark, then three digits) is read either way (1.25, or
+    1250 with a thousands separator) and decides nothing. When the only marks are such fields,
+    or the data show both `46,1` and `46.1`, the mark is not guessed: InputError, naming the
+    field, asks for it to be declared (a semicolon export with `1,250` ppm water read as 1.25
+    ppm would be a silent wrong grade)."""
     if delimiter == ",":
         return "."
-    pattern = re.compile(rf"(^|{re.escape(delimiter)})\s*[<>]?\s*{_COMMA_NUMBER}\s*({re.escape(delimiter)}|$)")
-    return "," if any(pattern.search(line) for line in lines[1:200]) else "."
+    rows = list(csv.reader(lines, delimiter=delimiter))
+    if not rows:
+        return "."
+    header = [name.strip() for name in rows[0]]
+    looked = [k for k, name in enumerate(header) if numeric is None or name in numeric]
+    first: dict = {}  # mark (',' '.' or 'grouped') -> (row, column, cell) where first seen
+    for number, fields in enumerate(rows[1:200], start=1):
+        for k in looked:
+            cell = fields[k] if k < len(fields) else ""
+            found = _DECIMAL.fullmatch(cell)
+            if found:
+                kind = "grouped" if _GROUPED.fullmatch(cell) else found.group(1)
+                first.setdefault(kind, (number, header[k], cell.strip()))
+    if "," in first and "." in first:
+        (r1, c1, v1), (r2, c2, v2) = first[","], first["."]
+        raise InputError(f"the data show both a decimal comma ({v1!r}, row {r1}, column {c1!r}) and a decimal point "
+                         f"({v2!r}, row {r2}, column {c2!r}); declare the decimal mark in the column map "
+                         f"(file: {{decimal: ','}} or {{decimal: '.'}})")
+    if "," in first or "." in first:
+        return "," if "," in first else "."
+    if "grouped" in first:
+        row, column, cell = first["grouped"]
+        raise InputError(f"row {row}, column {column!r}: {cell!r} reads as a decimal number or as a thousands "
+                         f"group, and no other number shows the decimal mark; declare it in the column map "
+                         f"(file: {{decimal: ','}} or {{decimal: '.'}})")
+    return "."
 
 
 def _records(text: str, delimiter: str) -> tuple[np.ndarray, np.ndarray]:
@@ -141,7 +174,7 @@ def read_csv(text: str, numeric: set, delimiter: str | None, decimal: str | None
     check_header(header)
     starts, counts = _records(text, delimiter)
     if decimal is None:
-        decimal = detect_decimal(text[: 1 << 16].splitlines(), delimiter)
+        decimal = detect_decimal(text[: 1 << 16].splitlines(), delimiter, numeric)
         if decimal != ".":
             notes.append(f"detected the decimal mark {decimal!r} from the data")
     blank = counts == 0
@@ -573,7 +606,7 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
         raise InputError(f"no sheet {sheet!r}; the workbook has: {', '.join(names)}")
     else:
         chosen = sheet
-    cells = list(book[chosen].iter_rows(values_only=True))
+    cells = [[_cell(c.value, getattr(c, "number_format", None)) for c in row] for row in book[chosen].iter_rows()]
     book.close()
     if not cells or not any(v is not None for v in cells[0]):
         raise InputError(f"sheet {chosen!r} is empty: expected a header row and data rows")
@@ -592,14 +625,20 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
             skipped.append((number, f"has cells beyond the header's {width} columns: a row too long is rejected, "
                                     f"its values cannot be matched to columns", "D013"))
             continue
-        kept.append([_cell(v) for v in (values + [None] * width)[:width]])
+        kept.append((values + [None] * width)[:width])
         rows.append(number)
     frame = pd.DataFrame(kept, columns=[h.strip() for h in header], dtype=object)
     return RawTable(frame, np.asarray(rows, dtype=np.int64), skipped, notes, [h.strip() for h in header])
 
 
-def _cell(value):
-    """A workbook cell as the text/number a CSV would give: dates as ISO 8601 text."""
+def _cell(value, number_format: str | None = None):
+    """A workbook cell as the text/number a CSV would give: dates as ISO 8601 text, and a number
+    shown as a percentage (stored 0.0012, shown `0.12%`) as the text shown, with its sign, for
+    validation to read in a % column and refuse elsewhere (read as the stored number, 0.12 %
+    water in a % column would be 0.0012 %, a hundred times too small)."""
+    if isinstance(value, (int, float)) and not isinstance(value, bool) and number_format \
+            and "%" in number_format.replace('"%"', "").replace("\\%", ""):
+        return f"{round(value * 100, 9)!r}%"
     if isinstance(value, datetime):
         return value.date().isoformat() if value.time() == time(0) else value.isoformat(timespec="seconds")
     if isinstance(value, date):

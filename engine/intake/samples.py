@@ -19,6 +19,7 @@ import pandas as pd
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
+from sumpwise.intake.header_units import SPELLINGS, named_unit, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
@@ -86,9 +87,7 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
     columns = columns or ColumnMap()
     suffix = name.lower().rsplit(".", 1)[-1] if "." in name else ""
     fmt = fmt or {"jsonl": "jsonl", "ndjson": "jsonl", "json": "jsonl", "xlsx": "xlsx"}.get(suffix, "csv")
-    wanted = set(NUMERIC_COLUMNS) | set(numeric)
-    lab_numeric = {c for c in wanted if c not in columns.columns} | {c for m, c in columns.columns.items()
-                                                                       if m in wanted}
+    lab_numeric = lab_numeric_columns(columns, numeric)
     try:
         if fmt == "xlsx":
             raw = read_xlsx(data, columns.option("sheet"))
@@ -97,7 +96,7 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
         else:
             text = decode(data, columns.option("encoding"))
             utf8 = is_utf8(columns.option("encoding"))
-            decimal = columns.option("decimal") or detected_decimal(text, columns.option("delimiter"))
+            decimal = columns.option("decimal") or detected_decimal(text, columns.option("delimiter"), lab_numeric)
             raw = read_csv(text, lab_numeric, columns.option("delimiter"), decimal, data if utf8 else None)
             if columns.option("decimal") is None and decimal != ".":
                 raw.notes.append(f"detected the decimal mark {decimal!r} from the data")
@@ -108,14 +107,20 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
 
 
-def detected_decimal(text: str, delimiter: str | None) -> str:
+def lab_numeric_columns(columns: ColumnMap, numeric: tuple = ()) -> set:
+    """The file's own names of the columns read as numbers (the map's lab columns, or engine names)."""
+    wanted = set(NUMERIC_COLUMNS) | set(numeric)
+    return {c for c in wanted if c not in columns.columns} | {c for m, c in columns.columns.items() if m in wanted}
+
+
+def detected_decimal(text: str, delimiter: str | None, numeric: set | None = None) -> str:
     """The decimal mark the data show (readers.detect_decimal), found once here so that the cells
     the CSV parser leaves as text are read with the same mark as the numbers it parses (and
     so that the chunks of a file all take the mark its first chunk shows)."""
     head = text[: 1 << 16].splitlines()
     if not head:
         return "."
-    return detect_decimal(head, delimiter or detect_delimiter(head[0]))
+    return detect_decimal(head, delimiter or detect_delimiter(head[0]), numeric)
 
 
 def _row_numbers(raw: pd.DataFrame, skipped: list) -> np.ndarray:
@@ -160,6 +165,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                              f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
     mapped = set(renames)
+    _check_header_units(name, columns)
     clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]
     raw = raw.drop(columns=clash).rename(columns=renames)
     if clash:
@@ -227,6 +233,14 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     for column in numeric_names:
         factor = factor_to_canonical(UNIT_FAMILY[column], columns.units[column]) if column in columns.units else 1.0
         values, text, not_a_number = _number_column(raw[column], decimal)
+        if text is not None and not_a_number.any():
+            percent = _percent_cells(values, text, not_a_number, decimal, columns.units.get(column) == "%")
+            if percent.any():
+                reasons = _found("written as a percentage (", text, percent, quoted=True)
+                reasons[percent] += (f"), but {column} is read in {_read_in(column, columns, 'its own unit')}; a "
+                                     f"water column in % needs unit: '%' in the column map")
+                reject(percent, column, reasons, "D018")
+                not_a_number &= ~percent
         infinite = np.isinf(values)
         if text is not None and not_a_number.any():
             at = np.flatnonzero(not_a_number)
@@ -243,6 +257,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
                                   None if limit is None else limit * factor)
             if cells.bad.any():
+                _check_units_line(name, column, columns, text, cells.bad, raw.index)
                 reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
                                  quoted=True)
                 if decimal != ".":
@@ -291,6 +306,70 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
     return SampleBatch(accepted, tuple(rejects), len(raw) + len({s[0] for s in skipped}), name, tuple(notes))
+
+
+def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> str:
+    """The unit a column of this measure is read in: the map's `unit:`, else the canonical one
+    (`otherwise` for a measure a rule set declares)."""
+    return columns.units.get(measure) or INPUT_MEASURES.get(measure.removeprefix("new_"), otherwise)
+
+
+def _percent_cells(values: np.ndarray, text: pd.Series, not_a_number: np.ndarray, decimal: str,
+                   in_percent: bool) -> np.ndarray:
+    """Cells written with a percent sign (`0.12%`, `<0,01 %`, and a workbook cell shown as a
+    percentage, which readers.read_xlsx spells so): in a column read in %, the sign is dropped
+    (the number is read into `values`, a censored one left in `text` without it, both in place);
+    in any other column they are returned, to be rejected: 0.12 % read as ppm is 10,000 times
+    too small."""
+    at = np.flatnonzero(not_a_number)
+    cells = text.to_numpy(dtype=object)[at]
+    signed = np.array([str(cell).endswith("%") and bool(str(cell)[:-1].strip()) for cell in cells], dtype=bool)
+    found = np.zeros(len(values), dtype=bool)
+    if not signed.any():
+        return found
+    if not in_percent:
+        found[at[signed]] = True
+        return found
+    for k in at[signed]:
+        cell = str(text.iat[k])[:-1].strip()
+        number = cell.replace(decimal, ".") if "." not in cell or decimal == "." else ""
+        try:
+            if not np.isfinite(float(number)):
+                raise ValueError(number)
+            values[k] = float(number)
+            not_a_number[k] = False
+            text.iat[k] = None
+        except ValueError:  # a censored reading (`<0.01%`) or not a number: read on as the rest
+            text.iat[k] = cell
+    return found
+
+
+def _check_header_units(name: str, columns: ColumnMap) -> None:
+    """A mapped column whose header names another unit than it is read in (`Water (Karl Fischer) %`
+    mapped without `unit: '%'`) is refused: every value of it would be graded at the wrong scale."""
+    why = [unit_conflict(measure, named_unit(measure, column), _read_in(measure, columns),
+                         f"the header of column {column!r}", column)
+           for measure, column in columns.columns.items() if measure in SPELLINGS]
+    if any(why):
+        raise InputError(f"{name}: " + "; ".join(w for w in why if w))
+
+
+def _check_units_line(name: str, column: str, columns: ColumnMap, text: pd.Series, bad: np.ndarray,
+                      rows: pd.Index) -> None:
+    """A units line under the header (`%` under `water`) that names another unit than the column is
+    read in refuses the file; one that agrees is rejected as the text it is. Only cells that are
+    neither numbers nor censored readings are looked at (a few)."""
+    if column not in SPELLINGS:
+        return
+    at = np.flatnonzero(bad)
+    codes, spellings = pd.factorize(text.to_numpy(dtype=object)[at])
+    for k, cell in enumerate(spellings):
+        where = f"row {int(rows[at[np.argmax(codes == k)]])}, a units line under the header,"
+        why = unit_conflict(column, named_unit(column, str(cell), whole=True), _read_in(column, columns),
+                            f"{where} in column {columns.columns.get(column, column)!r}",
+                            columns.columns.get(column, column))
+        if why:
+            raise InputError(f"{name}: {why}")
 
 
 def _translated(column: pd.Series, table: dict) -> pd.Series:

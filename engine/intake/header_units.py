@@ -1,0 +1,93 @@
+"""Units a lab writes in a column's header (`Water (Karl Fischer) %`, `Visc 40C [mPa.s]`) or on a
+units line under the header, read only to catch a column read in another unit.
+
+A column map names a lab column for a measure; the values are then read in the measure's
+canonical unit, or the map's `unit:`. When the header itself names a different unit, every
+value of the column would be graded at the wrong scale (0.12 % water read as 0.12 ppm, a factor
+of 10,000) or as another quantity (a dynamic viscosity in mPa.s read as a kinematic one, particles
+per 100 mL read per mL): the file is refused with what to declare, never guessed.
+
+Each measure is checked only against the spellings of its own quantity and a few clear foreign
+ones (so `Visc 40C cSt` is not read as a temperature unit, nor `Oxid 1710 cm-1` as abs/cm).
+Spellings: SI and the trade's usual ones (ASTM D445 reports mm2/s, also written cSt; ASTM D664
+and D974 mg KOH/g; ASTM D6304 ppm or mass %; ISO 4406:1999 counts per mL; ASTM D7414 absorbance
+per 0.1 mm; ASTM D2272 minutes); the foreign ones are common practice, no source.
+"""
+
+from __future__ import annotations
+
+import re
+
+from sumpwise.vocabulary.measures import INPUT_MEASURES, UNIT_FAMILY
+from sumpwise.vocabulary.units import known_units
+
+# (pattern on the normalised text, the unit as the engine (or, foreign, the trade) spells it).
+_PERCENT = (r"%|\bpercent\b|\bpct\b", "%")
+_PPM = (r"\bppm\b|\bmg/kg\b", "ppm")
+_PER_01MM = (r"(?:\b(?:a|abs|au|absorbance))?/0[.,]1 ?mm\b|\bper 0[.,]1 ?mm\b", "abs/0.1mm")
+_PER_CM = (r"\b(?:a|abs|au|absorbance)/cm\b(?![-^\u207b])|\bper cm\b(?![-^\u207b])", "abs/cm")
+_KINEMATIC = (r"\bcst\b|\bmm2/s\b|\bmm\^2/s\b", "mm2/s")
+_DYNAMIC = (r"\bcp\b|\bmpa\.? ?s\b|\bcentipoise\b", "mPa.s (a dynamic viscosity)")
+_SAYBOLT = (r"\bsus\b|\bssu\b|\bsfs\b|\bsaybolt\b", "Saybolt seconds")
+_ACID = (r"\bmg ?koh/g\b", "mg KOH/g")
+_PER_100ML = (r"(?:/|\bper) ?100 ?ml\b", "/100mL")
+_PER_10ML = (r"(?:/|\bper) ?10 ?ml\b", "/10mL")
+_PER_ML = (r"(?:/|\bper) ?ml\b", "/mL")
+_HOURS = (r"\b(?:h|hr|hrs|hour|hours)\b", "h")
+_MINUTES = (r"\b(?:min|mins|minutes)\b", "min")
+_OTHER_SPANS = (r"\b(?:days?|weeks?|months?|years?|km|kms|kilomet(?:er|re)s?|mi|miles?)\b",
+                "a distance or calendar time")
+_PPB = (r"\bppb\b", "ppb")
+
+_VISCOSITY = (_KINEMATIC, _DYNAMIC, _SAYBOLT, _PERCENT)
+_NUMBER = (_ACID, _PERCENT)
+_ABSORBANCE = (_PER_01MM, _PER_CM, _PERCENT)
+_COUNTS = (_PER_100ML, _PER_10ML, _PER_ML)
+# The spellings each measure is checked against, most specific first.
+SPELLINGS = {
+    "kv40": _VISCOSITY, "kv100": _VISCOSITY, "an": _NUMBER, "bn": _NUMBER,
+    "oxidation": _ABSORBANCE, "oxidation_differential": _ABSORBANCE, "nitration": _ABSORBANCE,
+    "sulfation": _ABSORBANCE, "antiwear": _ABSORBANCE, "soot": _ABSORBANCE,
+    "water": (_PPM, _PERCENT, _PPB), "oil_hours": (_HOURS, _OTHER_SPANS), "rpvot": (_MINUTES, _HOURS, _PERCENT),
+    "particles_4um": _COUNTS, "particles_6um": _COUNTS, "particles_14um": _COUNTS,
+}
+SPELLINGS.update({f"new_{name}": SPELLINGS[name] for name in ("kv40", "kv100", "an", "bn", "oxidation", "rpvot")})
+_COMPILED = {name: tuple((re.compile(pattern), unit) for pattern, unit in table) for name, table in SPELLINGS.items()}
+
+
+def _normalised(text: str) -> str:
+    text = str(text).casefold().replace("\u00b2", "2").replace("\u00b5", "u").replace("\u03bc", "u")
+    text = text.replace("\u00b7", ".").replace("\u22c5", ".")
+    return re.sub(r"\s*/\s*", "/", re.sub(r"\s+", " ", text))
+
+
+def named_unit(measure: str, text: str, whole: bool = False) -> str | None:
+    """The unit `text` names for `measure` (a header; `whole`: a cell of a units line, which must be
+    a unit and nothing else, brackets aside), or None."""
+    text = _normalised(text).strip()
+    if whole:
+        text = text.strip("[]() ")
+    for pattern, unit in _COMPILED.get(measure, ()):
+        found = pattern.search(text)
+        if found and (not whole or (found.start() == 0 and found.end() == len(text))):
+            return unit
+    return None
+
+
+def readable_units(measure: str) -> list[str]:
+    """The units a column of this measure (or of its new-oil value) can be read in."""
+    measure = measure.removeprefix("new_")
+    return known_units(UNIT_FAMILY[measure]) if measure in UNIT_FAMILY else [INPUT_MEASURES[measure]]
+
+
+def unit_conflict(measure: str, named: str | None, read_in: str, where: str, column: str) -> str | None:
+    """Why a column whose header or units line names `named` cannot be read in `read_in`; None when
+    it can. `where` says where the unit was seen, `column` the map's entry to change."""
+    if named is None or named == read_in:
+        return None
+    if named in readable_units(measure):
+        return (f"{where} names the unit {named}, but {measure} is read in {read_in}: declare it in the column map "
+                f"({measure}: {{column: {column!r}, unit: {named!r}}}) so the values are converted")
+    return (f"{where} names {named}, which is not a unit {measure} can be read in ({', '.join(readable_units(measure))}): "
+            f"convert the values, or leave the column out of the map; read as it is, every value would be graded "
+            f"at the wrong scale")

@@ -1,0 +1,186 @@
+"""Lab exports whose values would be read at the wrong scale: units in the header or on a line
+under it, a percentage-formatted workbook cell, thousands separators in a semicolon export.
+
+Each case grades realistic Brackwater Point hydraulic samples (HYD-46-M, new kv40 45.6 mm2/s,
+acid number 0.50) against the shipped hydraulic limits in scenarios/brackwater/site.yaml: water
+watch above 200, alert above 500, urgent above 1000 ppm (common practice, no source, as the rule
+says). Sources of the facts checked: 1 % = 10,000 ppm by definition of the units (ASTM D6304
+reports water in mass % or mg/kg = ppm, from memory); a kinematic viscosity is in mm2/s (cSt),
+a dynamic one in mPa.s, kinematic = dynamic / density (ASTM D445 §1, D7042); ISO 4406:1999
+counts are per mL (shared fact sheet limits.md); a spreadsheet cell formatted as a percentage
+stores a hundredth of the number it shows (ECMA-376 number formats, from memory).
+"""
+
+from __future__ import annotations
+
+import io
+
+import pytest
+from conftest import DATA, ROOT, run_cli
+
+from sumpwise import grade, load_ruleset
+from sumpwise.intake.column_map import load_column_map
+from sumpwise.intake.header_units import named_unit
+from sumpwise.intake.samples import read_samples
+from sumpwise.vocabulary.problems import InputError
+
+SITE = ROOT / "scenarios" / "brackwater" / "site.yaml"
+EXPORTS = DATA / "samples" / "exports2"
+
+
+@pytest.fixture(scope="module")
+def site():
+    return load_ruleset(SITE)
+
+
+def _grades(graded) -> dict:
+    return {r.sample_id: r.grade for r in graded.results()}
+
+
+def test_water_in_percent_in_the_header_is_converted_when_declared(site):
+    # 'Water (Karl Fischer) %' with unit '%': 0.12 % = 1200 ppm (urgent above 1000), 0.03 % = 300 ppm
+    # (watch above 200), 0.008 % = 80 ppm (normal).
+    batch = read_samples(EXPORTS / "water-percent-header.csv",
+                         columns=load_column_map(EXPORTS / "water-percent-header.yaml"))
+    graded = grade(batch, site)
+    assert batch.frame["water"].tolist() == [1200.0, 300.0, 80.0]
+    assert _grades(graded) == {"BW-7101": "urgent", "BW-7102": "watch", "BW-7103": "normal"}
+
+
+def test_a_header_in_percent_mapped_without_its_unit_is_refused_not_read_as_ppm():
+    # Was: the three samples graded normal (0.12 read as 0.12 ppm, 10,000 times too small).
+    run = run_cli("grade", EXPORTS / "water-percent-header.csv", "--rules", SITE,
+                  "--columns", EXPORTS / "water-percent-header-no-unit.yaml")
+    assert run.code == 2 and run.out == ""
+    assert "'Water (Karl Fischer) %'" in run.err and "unit: '%'" in run.err
+
+
+def test_a_dynamic_viscosity_or_counts_per_100_ml_are_refused():
+    # Was: BW-7201 graded alert on visc-drift (39.8 mPa.s read as 39.8 mm2/s, -12.7 % from 45.6)
+    # and on cleanliness-4um (1,850,000 per 100 mL read as per mL: ISO 4406 scale 28 instead of 21).
+    run = run_cli("grade", EXPORTS / "other-quantities.csv", "--rules", SITE,
+                  "--columns", EXPORTS / "other-quantities.yaml")
+    assert run.code == 2 and run.out == ""
+    assert "'Dyn. visc 40 °C [mPa·s]'" in run.err and "mPa.s" in run.err
+    assert "'Particles >4 µm(c) /100 mL'" in run.err and "/100mL" in run.err
+
+
+def test_a_units_line_in_percent_refuses_the_file_unless_the_map_declares_it(site):
+    # Was: water read as ppm under a '%' units line, so 0.12 % graded normal.
+    with pytest.raises(InputError, match=r"row 1, a units line .* column 'water' names the unit %"):
+        read_samples(EXPORTS / "units-line.csv")
+    graded = grade(read_samples(EXPORTS / "units-line.csv", columns=load_column_map(EXPORTS / "units-line.yaml")),
+                   site)
+    assert _grades(graded) == {"BW-7301": "urgent", "BW-7302": "normal"}  # 1200 and 80 ppm
+    # The units line itself is rejected with its row, as before; the counts add up.
+    assert {(r.row, r.field, r.code) for r in graded.rejects} >= {(1, "kv40", "D004"), (1, "sample_id", "D002")}
+    assert graded.counts() == {"read": 3, "graded": 2, "unrated": 0, "rejected": 1}
+
+
+def test_a_units_line_that_agrees_with_the_engine_is_only_rejected():
+    text = "sample_id,class,lubricant,kv40,water\n,,,cSt,ppm\nU1,hydraulic,HYD-46-M,46.1,120\n"
+    batch = read_samples(io.StringIO(text))
+    assert [(r.row, r.field, r.code) for r in batch.rejects] == [(1, "kv40", "D004"), (1, "sample_id", "D002"),
+                                                                 (1, "water", "D004")]
+    assert batch.frame["water"].tolist() == [120.0]
+
+
+def test_thousands_separators_in_a_semicolon_export_are_not_read_as_decimal_commas(site):
+    # '1,250' ppm water beside '46.2' (a decimal point) in a ';' export. Was: the comma detected as
+    # the decimal mark, so BW-7401 graded on 1.25 ppm water (alert on its acid rise alone instead of
+    # urgent) and BW-7402 rejected for its points. Now the point is the mark and '1,250' is refused.
+    graded = grade(read_samples(EXPORTS / "thousands-semicolon.csv"), site)
+    assert {(r.row, r.field, r.code) for r in graded.rejects} == {(1, "water", "D004"), (1, "particles_4um", "D004")}
+    assert _grades(graded) == {"BW-7402": "normal"}
+    assert graded.counts() == {"read": 2, "graded": 1, "unrated": 0, "rejected": 1}
+
+
+def test_a_mark_shown_only_by_thousands_like_numbers_is_not_guessed():
+    # Was: '1,250' read as 1.25 ppm (the comma taken as the decimal mark), both rows graded alert.
+    run = run_cli("grade", EXPORTS / "thousands-only.csv", "--rules", SITE)
+    assert run.code == 2 and run.out == ""
+    assert "row 1, column 'water': '1,250'" in run.err and "decimal" in run.err
+    with pytest.raises(InputError, match="declare it"):
+        list(__import__("sumpwise.intake.chunked", fromlist=["sample_chunks"]).sample_chunks(
+            EXPORTS / "thousands-only.csv", rows=1))
+
+
+@pytest.mark.parametrize("text, expected", [
+    # a decimal comma with a point in a text column is still a decimal comma (the id is no evidence)
+    ("sample_id;class;kv40\nBW.26.1;hydraulic;46,1\n", ","),
+    ("sample_id;class;kv40;water\nA;hydraulic;46,1;1.250\n", ","),   # '1.250' then rejected, as before
+    ("sample_id;class;kv40;water\nA;hydraulic;46.1;1,250\n", "."),   # '1,250' then rejected
+    ("sample_id;class;an\nA;hydraulic;0,125\n", ","),                # a leading 0 is no thousands group
+])
+def test_the_decimal_mark_is_read_from_numbers_that_show_it(text, expected):
+    batch = read_samples(io.StringIO(text))
+    detected = "," if any("decimal mark ','" in note for note in batch.notes) else "."
+    assert detected == expected
+
+
+def test_both_decimal_marks_in_one_export_are_refused():
+    with pytest.raises(InputError, match="both a decimal comma"):
+        read_samples(io.StringIO("sample_id;class;kv40;an\nA;hydraulic;46,1;0.5\n"))
+
+
+def _workbook(tmp_path, header: str):
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.append(["Sample No", "Asset", "Equipment type", "Oil", "Date sampled", header])
+    for sample, water in (("BW-7601", 0.0012), ("BW-7602", 0.0003), ("BW-7603", 0.00008)):
+        sheet.append([sample, "HPU-1" if sample.endswith("1") else sample, "hydraulic", "HYD-46-M", "2026-04-06",
+                      water])
+        sheet.cell(sheet.max_row, 6).number_format = "0.00%"  # shown 0.12%, 0.03%, 0.01%
+    book.save(tmp_path / "export.xlsx")
+    (tmp_path / "map.yaml").write_text(
+        'sample_id: "Sample No"\nunit_id: Asset\nclass: "Equipment type"\nlubricant: Oil\n'
+        f'sampled_on: "Date sampled"\nwater: {{column: "{header}"{", unit: " + repr("%") if "%" in header else ""}}}\n',
+        encoding="utf-8")
+    return tmp_path / "export.xlsx", load_column_map(tmp_path / "map.yaml")
+
+
+def test_a_percentage_cell_of_a_workbook_is_read_as_the_percentage_it_shows(site, tmp_path):
+    # Was: the stored 0.0012 read as 0.0012 % = 12 ppm, so a sample shown as 0.12 % water graded normal.
+    path, columns = _workbook(tmp_path, "Water %")
+    batch = read_samples(path, columns=columns)
+    assert batch.frame["water"].tolist() == [1200.0, 300.0, 80.0]
+    assert _grades(grade(batch, site)) == {"BW-7601": "urgent", "BW-7602": "watch", "BW-7603": "normal"}
+
+
+def test_a_percentage_cell_in_a_column_read_in_ppm_is_rejected(site, tmp_path):
+    path, columns = _workbook(tmp_path, "Water")
+    graded = grade(read_samples(path, columns=columns), site)
+    assert [(r.row, r.field, r.code) for r in graded.rejects] == [(1, "water", "D018"), (2, "water", "D018"),
+                                                                  (3, "water", "D018")]
+    assert graded.counts() == {"read": 3, "graded": 0, "unrated": 0, "rejected": 3}
+
+
+def test_a_percent_sign_in_a_csv_cell_is_read_in_a_percent_column_only(site, tmp_path):
+    text = "sample_id,class,lubricant,water\nP1,hydraulic,HYD-46-M,0.12%\nP2,hydraulic,HYD-46-M,<0.01 %\n"
+    (tmp_path / "map.yaml").write_text('water: {column: water, unit: "%"}\n', encoding="utf-8")
+    graded = grade(read_samples(io.StringIO(text), columns=load_column_map(tmp_path / "map.yaml")), site)
+    assert _grades(graded) == {"P1": "urgent", "P2": "normal"}  # 1200 ppm; below 100 ppm, under watch at 200
+    plain = read_samples(io.StringIO(text))
+    assert [(r.row, r.field, r.code) for r in plain.rejects] == [(1, "water", "D018"), (2, "water", "D018")]
+
+
+@pytest.mark.parametrize("measure, header, unit", [
+    ("water", "Water (Karl Fischer) %", "%"), ("water", "H2O ppm", "ppm"), ("water", "Water, mg/kg", "ppm"),
+    ("kv40", "Visc 40C cSt", "mm2/s"), ("kv40", "KV 40 °C [mm²/s]", "mm2/s"), ("kv100", "Visc 100C", None),
+    ("kv40", "Visc 40 °C (cP)", "mPa.s (a dynamic viscosity)"), ("kv40", "Visc 40C SUS", "Saybolt seconds"),
+    ("an", "TAN mgKOH/g", "mg KOH/g"), ("oxidation", "Oxid A/0.1mm", "abs/0.1mm"),
+    ("oxidation", "Oxid A/cm", "abs/cm"), ("oxidation", "Oxidation 1710 cm-1", None), ("soot", "Soot wt%", "%"),
+    ("oil_hours", "Hrs on oil", "h"), ("oil_hours", "Oil km", "a distance or calendar time"),
+    ("rpvot", "RPVOT % of new", "%"), ("particles_4um", ">4um(c)/mL", "/mL"),
+    ("particles_4um", ">4 µm(c) per 100 ml", "/100mL"),
+])
+def test_units_named_in_headers_as_labs_write_them(measure, header, unit):
+    assert named_unit(measure, header) == unit
+
+
+def test_the_shipped_lab_exports_and_their_maps_still_read():
+    for export, names in ((ROOT / "scenarios" / "brackwater" / "lab-export.csv",
+                           ROOT / "scenarios" / "brackwater" / "columns.yaml"),
+                          (DATA / "samples" / "lab-columns.csv", DATA / "samples" / "lab-columns.yaml")):
+        assert read_samples(export, columns=load_column_map(names)).rejects == ()
