@@ -24,17 +24,34 @@ class Dates:
     text: np.ndarray  # ISO 8601 text or None, per row
     bad: np.ndarray
     reasons: np.ndarray
+    swapped: tuple | None = None  # (row position, cell) of a date that fits only with day and month swapped
 
 
 def read_dates(values: np.ndarray, date_format: str | None) -> Dates:
-    """Each distinct spelling read once; empty cells stay missing (a date is not required)."""
+    """Each distinct spelling read once; empty cells stay missing (a date is not required).
+
+    A date the declared format does not fit but fits with its day and month swapped (`03/15/2026`
+    under '%d/%m/%Y') is reported in `swapped`: the lab writes the other order (or both), so every
+    date that fits both orders (`03/04/2026`) would be read a month or more off, breaking trends;
+    the caller refuses the file rather than grade them."""
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     text = np.full(len(uniques) + 1, None, dtype=object)
     why = np.full(len(uniques) + 1, "", dtype=object)
+    swap = _swapped_format(date_format)
+    swapped = None
     for k, cell in enumerate(uniques):
         text[k], why[k] = _one(str(cell).strip(), date_format)
+        if why[k] and swap and swapped is None and _one(str(cell).strip(), swap)[1] == "":
+            swapped = (int(np.argmax(codes == k)), str(cell).strip())
     bad = (why != "")[codes]
-    return Dates(text[codes], bad, why[codes])
+    return Dates(text[codes], bad, why[codes], swapped)
+
+
+def _swapped_format(date_format: str | None) -> str | None:
+    """The format with its day and month swapped (%d and %m), when it has both."""
+    if not date_format or "%d" not in date_format or "%m" not in date_format:
+        return None
+    return date_format.replace("%d", "\x00").replace("%m", "%d").replace("\x00", "%m")
 
 
 def _one(cell: str, date_format: str | None) -> tuple[str | None, str]:

@@ -260,11 +260,11 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                 _check_units_line(name, column, columns, text, cells.bad, raw.index)
                 reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
                                  quoted=True)
-                if decimal != ".":
-                    pointed = cells.bad & (np.strings.find(text.fillna("").to_numpy(dtype=str), ".") >= 0)
-                    reasons[pointed] = _found("", text, pointed, quoted=True)[pointed] + (
-                        f": the decimal mark is {decimal!r}, so a '.' could be a thousands separator or a slip; "
-                        f"the value is not guessed")
+                other = "." if decimal != "." else ","  # `1.500` where ',' is the mark, `1,250` where '.' is
+                pointed = cells.bad & (np.strings.find(text.fillna("").to_numpy(dtype=str), other) >= 0)
+                reasons[pointed] = _found("", text, pointed, quoted=True)[pointed] + (
+                    f": the decimal mark is {decimal!r}, so a {other!r} could be a thousands separator or a slip; "
+                    f"the value is not guessed")
                 reject(cells.bad, column, reasons, "D004")
             if cells.held.any():
                 censored, held = cells.censored, cells.held
@@ -291,6 +291,12 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
 
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
+        if dates.swapped is not None:
+            at, cell = dates.swapped
+            raise InputError(f"{name}: row {int(raw.index[at])}, sampled_on: {cell!r} does not fit the declared "
+                             f"date_format {columns.option('date_format')!r} but fits it with day and month swapped: "
+                             f"the lab writes the other order, or both, so a date such as 03/04 cannot be read "
+                             f"safely; declare the order the file uses")
         reject(dates.bad, "sampled_on", dates.reasons, "D015")
         raw["sampled_on"] = pd.Series(dates.text, index=raw.index, dtype=object)
     for flag in FLAG_FIELDS:

@@ -91,6 +91,7 @@ def test_thousands_separators_in_a_semicolon_export_are_not_read_as_decimal_comm
     # urgent) and BW-7402 rejected for its points. Now the point is the mark and '1,250' is refused.
     graded = grade(read_samples(EXPORTS / "thousands-semicolon.csv"), site)
     assert {(r.row, r.field, r.code) for r in graded.rejects} == {(1, "water", "D004"), (1, "particles_4um", "D004")}
+    assert all("could be a thousands separator" in r.reason for r in graded.rejects)
     assert _grades(graded) == {"BW-7402": "normal"}
     assert graded.counts() == {"read": 2, "graded": 1, "unrated": 0, "rejected": 1}
 
@@ -184,3 +185,32 @@ def test_the_shipped_lab_exports_and_their_maps_still_read():
                            ROOT / "scenarios" / "brackwater" / "columns.yaml"),
                           (DATA / "samples" / "lab-columns.csv", DATA / "samples" / "lab-columns.yaml")):
         assert read_samples(export, columns=load_column_map(names)).rejects == ()
+
+
+def _csv_grades(run) -> dict:
+    rows = list(__import__("csv").DictReader(io.StringIO(run.out)))
+    return {row["sample_id"]: (row["sampled_on"], row["grade"]) for row in rows}
+
+
+def test_dates_the_declared_order_cannot_read_refuse_the_file_rather_than_misdate_the_rest():
+    # A month-first lab (03/30/2026 exists only month first) under a day-first date_format. Was: the
+    # three other dates read day first (01/05 as 1 May), so GB-1's samples ran 2 Mar, 3 Apr, 1 May:
+    # the iron trend (40, 52, 64, 77 ppm, each step above the site's 3 ppm noise margin) lost its
+    # three rises and iron-climbing (watch, iron_rising above 2) never fired. Dates: ISO 8601 order.
+    run = run_cli("grade", EXPORTS / "month-first-dates.csv", "--rules", SITE, "--format", "csv",
+                  "--columns", EXPORTS / "day-first.yaml")
+    assert run.code == 2 and run.out == ""
+    assert "row 4, sampled_on: '03/30/2026'" in run.err and "day and month swapped" in run.err
+    run = run_cli("grade", EXPORTS / "month-first-dates.csv", "--rules", SITE, "--format", "csv",
+                  "--columns", EXPORTS / "month-first.yaml")
+    assert run.code == 0
+    assert _csv_grades(run) == {"BW-7701": ("2026-01-05", "normal"), "BW-7702": ("2026-02-03", "normal"),
+                                "BW-7703": ("2026-03-04", "normal"), "BW-7704": ("2026-03-30", "watch")}
+
+
+def test_a_date_that_fits_no_order_is_still_only_its_rows_reject(tmp_path):
+    (tmp_path / "map.yaml").write_text('file: {date_format: "%d/%m/%Y"}\n', encoding="utf-8")
+    text = "sample_id,class,sampled_on\nA,hydraulic,15/03/2026\nB,hydraulic,31/02/2026\nC,hydraulic,yesterday\n"
+    batch = read_samples(io.StringIO(text), columns=load_column_map(tmp_path / "map.yaml"))
+    assert [(r.row, r.field, r.code) for r in batch.rejects] == [(2, "sampled_on", "D015"), (3, "sampled_on", "D015")]
+    assert batch.frame["sampled_on"].tolist() == ["2026-03-15"]
