@@ -39,16 +39,18 @@ _OTHER_SPANS = (r"\b(?:days?|weeks?|months?|years?|km|kms|kilomet(?:er|re)s?|mi|
                 "a distance or calendar time")
 _PPB = (r"\bppb\b", "ppb")
 
-_VISCOSITY = (_KINEMATIC, _DYNAMIC, _SAYBOLT, _PERCENT)
-_NUMBER = (_ACID, _PERCENT)
-_ABSORBANCE = (_PER_01MM, _PER_CM, _PERCENT)
+# A percent sign first: beside a measure's own unit (`KV40 cSt % chg`) it says the column is a change
+# or a share, not the reading.
+_VISCOSITY = (_PERCENT, _KINEMATIC, _DYNAMIC, _SAYBOLT)
+_NUMBER = (_PERCENT, _ACID)
+_ABSORBANCE = (_PERCENT, _PER_01MM, _PER_CM)
 _COUNTS = (_PER_100ML, _PER_10ML, _PER_ML)
-# The spellings each measure is checked against, most specific first.
+# The spellings each measure is checked against, in the order tried (the first found is the unit).
 SPELLINGS = {
     "kv40": _VISCOSITY, "kv100": _VISCOSITY, "an": _NUMBER, "bn": _NUMBER,
     "oxidation": _ABSORBANCE, "oxidation_differential": _ABSORBANCE, "nitration": _ABSORBANCE,
     "sulfation": _ABSORBANCE, "antiwear": _ABSORBANCE, "soot": _ABSORBANCE,
-    "water": (_PPM, _PERCENT, _PPB), "oil_hours": (_HOURS, _OTHER_SPANS), "rpvot": (_MINUTES, _HOURS, _PERCENT),
+    "water": (_PPM, _PERCENT, _PPB), "oil_hours": (_HOURS, _OTHER_SPANS), "rpvot": (_PERCENT, _MINUTES, _HOURS),
     "particles_4um": _COUNTS, "particles_6um": _COUNTS, "particles_14um": _COUNTS,
 }
 SPELLINGS.update({f"new_{name}": SPELLINGS[name] for name in ("kv40", "kv100", "an", "bn", "oxidation", "rpvot")})
@@ -71,6 +73,30 @@ def named_unit(measure: str, text: str, whole: bool = False) -> str | None:
         found = pattern.search(text)
         if found and (not whole or (found.start() == 0 and found.end() == len(text))):
             return unit
+    return None
+
+
+_SIZE = r"(\d+(?:[.,]\d+)?) ?(?:um|microns?)\b"
+_SIZE_RANGE = re.compile(r"(\d+(?:[.,]\d+)?) ?(?:um)? ?(?:-|\u2013|\bto\b) ?" + _SIZE)
+
+
+def size_conflict(measure: str, header: str) -> str | None:
+    """Why a column of particle counts whose header names sizes cannot be read as `measure`
+    (`particles_4um`): a size range is a differential count (ISO 4406:1999 codes take the count
+    of particles of the size and larger), and another size is another count (`>5 um` is the
+    older calibration's size; `>6 um(c)` mapped to particles_4um a map's slip). None when it can."""
+    if not measure.startswith("particles_"):
+        return None
+    text = _normalised(header)
+    size = measure.removeprefix("particles_").removesuffix("um")
+    ranged = _SIZE_RANGE.search(text)
+    if ranged:
+        return (f"names the size range {ranged.group(0)!r}: a count within a range, but {measure} is the count "
+                f"of particles of {size} um(c) and larger (ISO 4406); add the ranges up, or leave it out of the map")
+    sizes = [found.replace(",", ".") for found in re.findall(_SIZE, text)]
+    if sizes and not any(float(found) == float(size) for found in sizes):
+        return (f"names particles of {' and '.join(sizes)} um, but {measure} counts particles of {size} um(c) "
+                f"and larger: map the column of that size")
     return None
 
 

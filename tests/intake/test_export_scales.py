@@ -173,7 +173,7 @@ def test_a_percent_sign_in_a_csv_cell_is_read_in_a_percent_column_only(site, tmp
     ("an", "TAN mgKOH/g", "mg KOH/g"), ("oxidation", "Oxid A/0.1mm", "abs/0.1mm"),
     ("oxidation", "Oxid A/cm", "abs/cm"), ("oxidation", "Oxidation 1710 cm-1", None), ("soot", "Soot wt%", "%"),
     ("oil_hours", "Hrs on oil", "h"), ("oil_hours", "Oil km", "a distance or calendar time"),
-    ("rpvot", "RPVOT % of new", "%"), ("particles_4um", ">4um(c)/mL", "/mL"),
+    ("rpvot", "RPVOT % of new", "%"), ("kv40", "KV40 cSt % chg", "%"), ("particles_4um", ">4um(c)/mL", "/mL"),
     ("particles_4um", ">4 µm(c) per 100 ml", "/100mL"),
 ])
 def test_units_named_in_headers_as_labs_write_them(measure, header, unit):
@@ -214,3 +214,29 @@ def test_a_date_that_fits_no_order_is_still_only_its_rows_reject(tmp_path):
     batch = read_samples(io.StringIO(text), columns=load_column_map(tmp_path / "map.yaml"))
     assert [(r.row, r.field, r.code) for r in batch.rejects] == [(2, "sampled_on", "D015"), (3, "sampled_on", "D015")]
     assert batch.frame["sampled_on"].tolist() == ["2026-03-15"]
+
+
+def test_a_particle_counters_size_ranges_are_not_read_as_iso_4406_counts():
+    # ISO 4406:1999 codes take counts per mL of particles of each size AND LARGER (fact sheet
+    # limits.md). The counter's cumulative counts 5200 / 1200 / 70 per mL are scale numbers 20/17/13
+    # (5,000-10,000; 640-1,300; 40-80): above the site's alert code 19/17/14 at 4 um, so alert. Was:
+    # the map that took its ranges (4-6 um: 4000, 6-14 um: 1130) graded 19/17/13, watch.
+    run = run_cli("grade", EXPORTS / "particle-counter.csv", "--rules", SITE, "--format", "csv",
+                  "--columns", EXPORTS / "particle-counter-ranges.yaml")
+    assert run.code == 2 and run.out == ""
+    assert "'4-6 µm(c) /mL'" in run.err and "'6-14 µm(c) /mL'" in run.err and "size range" in run.err
+    run = run_cli("grade", EXPORTS / "particle-counter.csv", "--rules", SITE, "--format", "csv",
+                  "--columns", EXPORTS / "particle-counter.yaml")
+    assert run.code == 0
+    assert {k: v[1] for k, v in _csv_grades(run).items()} == {"BW-7801": "alert"}
+
+
+@pytest.mark.parametrize("measure, header, refused", [
+    ("particles_4um", "Particles >4 µm(c) /100 mL", False), ("particles_6um", ">6um(c)/mL", False),
+    ("particles_4um", "4-6 µm", True), ("particles_4um", "Part. 4 to 6 um", True),
+    ("particles_6um", "Particles 6\u201314 µm (c)", True), ("particles_6um", ">5 micron", True),
+    ("particles_14um", "ISO 4406 >=14µm(c)", False), ("kv40", "Visc 4-6um", False),
+])
+def test_particle_sizes_named_in_headers(measure, header, refused):
+    from sumpwise.intake.header_units import size_conflict
+    assert (size_conflict(measure, header) is not None) == refused
