@@ -100,6 +100,22 @@ def size_conflict(measure: str, header: str) -> str | None:
     return None
 
 
+_TEMPERATURE = re.compile(r"(\d+) ?(?:\u00b0|\u00ba|deg\.?)? ?c\b")
+_AT = {"kv40": 40, "kv100": 100, "new_kv40": 40, "new_kv100": 100}
+
+
+def temperature_conflict(measure: str, header: str) -> str | None:
+    """Why a viscosity column whose header names another temperature (`Visc 100C cSt` mapped to
+    kv40) cannot be read as `measure`; None when it can (or names none)."""
+    if measure not in _AT:
+        return None
+    named = {int(t) for t in _TEMPERATURE.findall(_normalised(header))}
+    if named and _AT[measure] not in named:
+        return (f"names {' and '.join(f'{t} °C' for t in sorted(named))}, but {measure} is the kinematic viscosity "
+                f"at {_AT[measure]} °C: map the column of that temperature")
+    return None
+
+
 def readable_units(measure: str) -> list[str]:
     """The units a column of this measure (or of its new-oil value) can be read in."""
     measure = measure.removeprefix("new_")

@@ -240,3 +240,25 @@ def test_a_particle_counters_size_ranges_are_not_read_as_iso_4406_counts():
 def test_particle_sizes_named_in_headers(measure, header, refused):
     from sumpwise.intake.header_units import size_conflict
     assert (size_conflict(measure, header) is not None) == refused
+
+
+@pytest.mark.parametrize("measure, header, refused", [
+    ("kv40", "Visc 40C cSt", False), ("kv40", "Visc 100C cSt", True), ("kv100", "KV 100 °C [mm²/s]", False),
+    ("kv100", "Viscosity @ 40°C (cSt)", True), ("kv40", "Visc 40 deg C", False), ("kv40", "KV40", False),
+])
+def test_viscosity_temperatures_named_in_headers(measure, header, refused):
+    from sumpwise.intake.header_units import temperature_conflict
+    assert (temperature_conflict(measure, header) is not None) == refused
+
+
+def test_ftir_per_0_1_mm_in_the_header_needs_its_unit(tmp_path):
+    # ASTM D7414 §1.4.1: direct readings in absorbance per 0.1 mm; 1 abs/0.1mm = 100 abs/cm (D7412
+    # §12.1-12.2). The shipped lab-columns export maps 'Oxid A/0.1mm' with its unit; without it, 0.12
+    # per 0.1 mm (12 abs/cm, above the shipped carbonyl watch steps of 8-10) would be read as 0.12 abs/cm.
+    names = (DATA / "samples" / "lab-columns.yaml").read_text(encoding="utf-8")
+    (tmp_path / "map.yaml").write_text(names.replace('{column: "Oxid A/0.1mm", unit: abs/0.1mm}', '"Oxid A/0.1mm"'),
+                                       encoding="utf-8")
+    with pytest.raises(InputError, match=r"'Oxid A/0.1mm' names the unit abs/0.1mm, but oxidation is read in abs/cm"):
+        read_samples(DATA / "samples" / "lab-columns.csv", columns=load_column_map(tmp_path / "map.yaml"))
+    batch = read_samples(DATA / "samples" / "lab-columns.csv", columns=load_column_map(DATA / "samples" / "lab-columns.yaml"))
+    assert batch.frame["oxidation"].tolist() == [12.0]
