@@ -608,6 +608,7 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
         chosen = sheet
     cells = [[_cell(c.value, getattr(c, "number_format", None)) for c in row] for row in book[chosen].iter_rows()]
     book.close()
+    unsaved = _unsaved_formulas(data, chosen, cells)
     if not cells or not any(v is not None for v in cells[0]):
         raise InputError(f"sheet {chosen!r} is empty: expected a header row and data rows")
     header = list(cells[0])
@@ -625,10 +626,37 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
             skipped.append((number, f"has cells beyond the header's {width} columns: a row too long is rejected, "
                                     f"its values cannot be matched to columns", "D013"))
             continue
+        for k, formula in unsaved.get(number, {}).items():
+            values[k] = formula
         kept.append((values + [None] * width)[:width])
         rows.append(number)
     frame = pd.DataFrame(kept, columns=[h.strip() for h in header], dtype=object)
     return RawTable(frame, np.asarray(rows, dtype=np.int64), skipped, notes, [h.strip() for h in header])
+
+
+def _unsaved_formulas(data: bytes, sheet: str, cells: list) -> dict:
+    """{sheet row - 1: {column index: formula}} of the cells holding a formula whose result the
+    file does not hold (saved by a program that does not calculate): openpyxl reads such a cell
+    as empty, so a lab's value would go missing without a word; given as the formula instead, a
+    number column rejects it (D004) and says why. The workbook is read a second time, for its
+    formulas, only when a worksheet has one."""
+    import zipfile
+
+    from openpyxl import load_workbook
+
+    with zipfile.ZipFile(io.BytesIO(data)) as archive:
+        if not any(b"<f" in archive.read(item) for item in archive.namelist()
+                   if item.startswith("xl/worksheets/") and item.endswith(".xml")):
+            return {}
+    book = load_workbook(io.BytesIO(data), read_only=True, data_only=False)
+    found: dict = {}
+    for number, row in enumerate(book[sheet].iter_rows()):
+        for k, cell in enumerate(row):
+            if getattr(cell, "data_type", None) == "f" and number < len(cells) and k < len(cells[number]) \
+                    and cells[number][k] is None:
+                found.setdefault(number, {})[k] = str(cell.value)
+    book.close()
+    return found
 
 
 def _cell(value, number_format: str | None = None):

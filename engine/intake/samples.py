@@ -260,8 +260,12 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                 _check_units_line(name, column, columns, text, cells.bad, raw.index)
                 reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
                                  quoted=True)
+                formula = cells.bad & (np.strings.startswith(text.fillna("").to_numpy(dtype=str), "="))
+                reasons[formula] = _found("", text, formula, quoted=True)[formula] + (
+                    ": a formula whose result the workbook does not hold (saved by a program that does not "
+                    "calculate); open and save it in a spreadsheet, or export the values")
                 other = "." if decimal != "." else ","  # `1.500` where ',' is the mark, `1,250` where '.' is
-                pointed = cells.bad & (np.strings.find(text.fillna("").to_numpy(dtype=str), other) >= 0)
+                pointed = cells.bad & ~formula & (np.strings.find(text.fillna("").to_numpy(dtype=str), other) >= 0)
                 reasons[pointed] = _found("", text, pointed, quoted=True)[pointed] + (
                     f": the decimal mark is {decimal!r}, so a {other!r} could be a thousands separator or a slip; "
                     f"the value is not guessed")

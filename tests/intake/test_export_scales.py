@@ -262,3 +262,21 @@ def test_ftir_per_0_1_mm_in_the_header_needs_its_unit(tmp_path):
         read_samples(DATA / "samples" / "lab-columns.csv", columns=load_column_map(tmp_path / "map.yaml"))
     batch = read_samples(DATA / "samples" / "lab-columns.csv", columns=load_column_map(DATA / "samples" / "lab-columns.yaml"))
     assert batch.frame["oxidation"].tolist() == [12.0]
+
+
+def test_a_workbook_formula_without_a_saved_result_is_rejected_not_read_as_empty(site, tmp_path):
+    # A workbook written by a script (openpyxl, like many lab systems' exporters, saves formulas
+    # without computing them): the water cell '=1200*1' holds no result. Was: read as an empty cell,
+    # the sample graded normal with its water rule "not evaluated" while the lab had given a value.
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.append(["sample_id", "class", "lubricant", "water", "note"])
+    sheet.append(["F1", "hydraulic", "HYD-46-M", "=1200*1", "retest"])
+    sheet.append(["F2", "hydraulic", "HYD-46-M", 150, "=CONCAT(\"re\", \"test\")"])  # a column nobody reads
+    book.save(tmp_path / "export.xlsx")
+    graded = grade(read_samples(tmp_path / "export.xlsx"), site)
+    assert [(r.row, r.sample_id, r.field, r.code) for r in graded.rejects] == [(1, "F1", "water", "D004")]
+    assert "formula" in graded.rejects[0].reason
+    assert _grades(graded) == {"F2": "normal"}
+    assert graded.counts() == {"read": 2, "graded": 1, "unrated": 0, "rejected": 1}
