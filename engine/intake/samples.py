@@ -181,7 +181,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     if methods and "method" not in raw.columns:
         raw["method"] = methods[0]
     known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
-    unused = [c for c in raw.columns if c not in known and c not in mapped]
+    unit_columns = _unit_columns(list(raw.columns), columns)
+    unused = [c for c in raw.columns if c not in known and c not in mapped and c not in unit_columns.values()]
     if unused:
         notes.append(unused_columns_note(unused, known - set(raw.columns)))
     missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
@@ -228,6 +229,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         first_row = pd.Series(raw.index, index=raw.index).groupby(sample_id.to_numpy()).transform("first")
         reject(dup, "sample_id", ("sample id '" + sample_id + "' already seen at row "
                                   + first_row.astype(str)).to_numpy(dtype=object), "D003")
+
+    for measure, unit_column in unit_columns.items():
+        why = _row_units(measure, raw[unit_column], columns)
+        reject(why != "", measure, why, "D018")
 
     decimal = columns.option("decimal", ".")
     for column in numeric_names:
@@ -322,6 +327,36 @@ def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> 
     """The unit a column of this measure is read in: the map's `unit:`, else the canonical one
     (`otherwise` for a measure a rule set declares)."""
     return columns.units.get(measure) or INPUT_MEASURES.get(measure.removeprefix("new_"), otherwise)
+
+
+def _unit_columns(names: list, columns: ColumnMap) -> dict:
+    """{measure: column} of the columns that give a measure's unit row by row, named after its
+    column (`water unit`, `Water (KF)_units`, `unit water`): LIMS exports write them beside results."""
+    found = {}
+    for measure in SPELLINGS:
+        lab = str(columns.columns.get(measure, measure)).strip().casefold()
+        spelled = {f"{lab} {word}" for word in ("unit", "units", "(unit)", "[unit]")} | {
+            f"{lab}_unit", f"{lab}_units", f"unit {lab}", f"units {lab}"}
+        for name in names:
+            if str(name).strip().casefold() in spelled:
+                found[measure] = name
+    return found
+
+
+def _row_units(measure: str, units: pd.Series, columns: ColumnMap) -> np.ndarray:
+    """Why each row's unit (from its unit column) cannot be read in the column's unit; "" where it
+    can, or where the row gives none. A unit not recognised is not assumed to agree."""
+    codes, spellings = pd.factorize(units.to_numpy(dtype=object), use_na_sentinel=True)
+    read_in = _read_in(measure, columns)
+    why = []
+    for cell in spellings:
+        named = named_unit(measure, str(cell), whole=True)
+        if named is None:
+            why.append(f"the row's unit {str(cell)!r} is not one {measure} is known in; it is read in {read_in}")
+        else:
+            why.append(unit_conflict(measure, named, read_in, f"the row's unit column ({units.name!r})",
+                                     columns.columns.get(measure, measure)) or "")
+    return np.array(why + [""], dtype=object)[codes]
 
 
 def _percent_cells(values: np.ndarray, text: pd.Series, not_a_number: np.ndarray, decimal: str,

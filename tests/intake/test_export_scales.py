@@ -280,3 +280,21 @@ def test_a_workbook_formula_without_a_saved_result_is_rejected_not_read_as_empty
     assert "formula" in graded.rejects[0].reason
     assert _grades(graded) == {"F2": "normal"}
     assert graded.counts() == {"read": 2, "graded": 1, "unrated": 0, "rejected": 1}
+
+
+def test_a_unit_column_beside_a_result_is_read_row_by_row(site):
+    # Was: every row graded, 0.12 % water as 0.12 ppm (BW-7902 normal, truly 1200 ppm: urgent) and
+    # 39.8 mPa.s as a kinematic viscosity (BW-7904 alert on visc-drift, -12.7 % from 45.6).
+    graded = grade(read_samples(EXPORTS / "unit-columns.csv",
+                                columns=load_column_map(EXPORTS / "unit-columns.yaml")), site)
+    assert [(r.row, r.field, r.code) for r in graded.rejects] == [(2, "water", "D018"), (3, "water", "D018"),
+                                                                  (4, "kv40", "D018")]
+    assert _grades(graded) == {"BW-7901": "normal"}
+    assert graded.counts() == {"read": 4, "graded": 1, "unrated": 0, "rejected": 3}
+    # Read in %, the rows in % grade on 1200 and 80 ppm; the ppm rows are refused instead.
+    graded = grade(read_samples(EXPORTS / "unit-columns.csv",
+                                columns=load_column_map(EXPORTS / "unit-columns-percent.yaml")), site)
+    assert _grades(graded) == {"BW-7902": "urgent", "BW-7903": "normal"}
+    assert {(r.row, r.field, r.code) for r in graded.rejects} >= {(1, "water", "D018"), (4, "kv40", "D018"),
+                                                                  (4, "water", "D018")}
+    assert graded.counts() == {"read": 4, "graded": 2, "unrated": 0, "rejected": 2}
