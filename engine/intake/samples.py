@@ -367,25 +367,23 @@ def _percent_cells(values: np.ndarray, text: pd.Series, not_a_number: np.ndarray
     in any other column they are returned, to be rejected: 0.12 % read as ppm is 10,000 times
     too small."""
     at = np.flatnonzero(not_a_number)
-    cells = text.to_numpy(dtype=object)[at]
-    signed = np.array([str(cell).endswith("%") and bool(str(cell)[:-1].strip()) for cell in cells], dtype=bool)
+    codes, spellings = pd.factorize(text.to_numpy(dtype=object)[at])  # each spelling once: `<0.05`, `ND`, ...
+    signed = np.array([str(cell).endswith("%") and bool(str(cell)[:-1].strip()) for cell in spellings] + [False],
+                      dtype=bool)[codes]
     found = np.zeros(len(values), dtype=bool)
     if not signed.any():
         return found
     if not in_percent:
         found[at[signed]] = True
         return found
-    for k in at[signed]:
-        cell = str(text.iat[k])[:-1].strip()
-        number = cell.replace(decimal, ".") if "." not in cell or decimal == "." else ""
-        try:
-            if not np.isfinite(float(number)):
-                raise ValueError(number)
-            values[k] = float(number)
-            not_a_number[k] = False
-            text.iat[k] = None
-        except ValueError:  # a censored reading (`<0.01%`) or not a number: read on as the rest
-            text.iat[k] = cell
+    k = at[signed]
+    written = text.to_numpy(dtype=object)[k].astype(str)
+    stripped = pd.Series(np.strings.strip(np.strings.rstrip(written, "%")).astype(object), dtype=object)
+    parsed, _, still = _number_column(stripped, decimal)  # the same rules as any cell (a '.' where ',' is the mark)
+    still |= np.isinf(parsed)  # `inf%`: left to the finite-number check as written
+    values[k[~still]] = parsed[~still]
+    not_a_number[k[~still]] = False
+    text.iloc[k] = np.where(still, stripped.to_numpy(dtype=object), None)  # a censored `<0.01%` read on as `<0.01`
     return found
 
 
