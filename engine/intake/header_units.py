@@ -38,6 +38,9 @@ _MINUTES = (r"\b(?:min|mins|minutes)\b", "min")
 _OTHER_SPANS = (r"\b(?:days?|weeks?|months?|years?|km|kms|kilomet(?:er|re)s?|mi|miles?)\b",
                 "a distance or calendar time")
 _PPB = (r"\bppb\b", "ppb")
+# A header that scales its values (`Oil hrs x1000`, `Oil age (kh)`, `Particles >4um (x1000)/mL`).
+_MULTIPLE = (r"(?:\bx|\u00d7|\*) ?(?:1[ ,.]?000|10\^?\d+|1e\d+)(?!\d)|\bk(?:h|hrs?)\b|'000|\(k\)|\bthousands?\b",
+             "a multiple of the unit (x1000)")
 
 # A percent sign first: beside a measure's own unit (`KV40 cSt % chg`) it says the column is a change
 # or a share, not the reading.
@@ -53,6 +56,7 @@ SPELLINGS = {
     "water": (_PPM, _PERCENT, _PPB), "oil_hours": (_HOURS, _OTHER_SPANS), "rpvot": (_PERCENT, _MINUTES, _HOURS),
     "particles_4um": _COUNTS, "particles_6um": _COUNTS, "particles_14um": _COUNTS,
 }
+SPELLINGS = {name: (_MULTIPLE, *table) for name, table in SPELLINGS.items()}
 SPELLINGS.update({f"new_{name}": SPELLINGS[name] for name in ("kv40", "kv100", "an", "bn", "oxidation", "rpvot")})
 _COMPILED = {name: tuple((re.compile(pattern), unit) for pattern, unit in table) for name, table in SPELLINGS.items()}
 

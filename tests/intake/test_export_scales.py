@@ -175,6 +175,10 @@ def test_a_percent_sign_in_a_csv_cell_is_read_in_a_percent_column_only(site, tmp
     ("oil_hours", "Hrs on oil", "h"), ("oil_hours", "Oil km", "a distance or calendar time"),
     ("rpvot", "RPVOT % of new", "%"), ("kv40", "KV40 cSt % chg", "%"), ("particles_4um", ">4um(c)/mL", "/mL"),
     ("particles_4um", ">4 µm(c) per 100 ml", "/100mL"),
+    ("oil_hours", "Oil age (kh)", "a multiple of the unit (x1000)"),
+    ("oil_hours", "Oil hrs x1000", "a multiple of the unit (x1000)"),
+    ("particles_4um", ">4um(c) (x1000)/mL", "a multiple of the unit (x1000)"),
+    ("particles_4um", ">4um(c) /mL", "/mL"), ("kv40", "Visc 40C x 1.0", None),
 ])
 def test_units_named_in_headers_as_labs_write_them(measure, header, unit):
     assert named_unit(measure, header) == unit
