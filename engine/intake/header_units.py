@@ -137,3 +137,12 @@ def unit_conflict(measure: str, named: str | None, read_in: str, where: str, col
     return (f"{where} names {named}, which is not a unit {measure} can be read in ({', '.join(readable_units(measure))}): "
             f"convert the values, or leave the column out of the map; read as it is, every value would be graded "
             f"at the wrong scale")
+
+
+def header_conflict(measure: str, header: str, read_in: str | None) -> str | None:
+    """Why a column with this header cannot be read as `measure` in `read_in` (its unit, particle
+    size or temperature says otherwise); None when nothing in the header contradicts it."""
+    named = named_unit(measure, header) if measure in SPELLINGS else None
+    why = unit_conflict(measure, named, read_in, f"the header of column {header!r}", header) if named else None
+    other = size_conflict(measure, header) or temperature_conflict(measure, header)
+    return why or (f"the header of column {header!r} {other}" if other else None)

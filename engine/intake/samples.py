@@ -19,7 +19,7 @@ import pandas as pd
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
-from sumpwise.intake.header_units import SPELLINGS, named_unit, size_conflict, temperature_conflict, unit_conflict
+from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
@@ -391,11 +391,8 @@ def _check_header_units(name: str, columns: ColumnMap) -> None:
     """A mapped column whose header names another unit than it is read in (`Water (Karl Fischer) %`
     mapped without `unit: '%'`), particle counts of another size or a viscosity at another
     temperature, is refused: every value of it would be graded at the wrong scale."""
-    why = [unit_conflict(measure, named_unit(measure, column), _read_in(measure, columns),
-                         f"the header of column {column!r}", column)
-           for measure, column in columns.columns.items() if measure in SPELLINGS]
-    why += [f"the header of column {column!r} {other}" for measure, column in columns.columns.items()
-            if (other := size_conflict(measure, column) or temperature_conflict(measure, column))]
+    why = [header_conflict(measure, column, _read_in(measure, columns) if measure in SPELLINGS else None)
+           for measure, column in columns.columns.items()]
     if any(why):
         raise InputError(f"{name}: " + "; ".join(w for w in why if w))
 
