@@ -47,7 +47,9 @@ _MULTIPLE = (r"(?:\bx|\u00d7|\*) ?(?:1[ ,.]?000|10\^?\d+|1e\d+)(?!\d)|\bk(?:h|hr
 _VISCOSITY = (_PERCENT, _KINEMATIC, _DYNAMIC, _SAYBOLT)
 _NUMBER = (_PERCENT, _ACID)
 _ABSORBANCE = (_PERCENT, _PER_01MM, _PER_CM)
-_COUNTS = (_PER_100ML, _PER_10ML, _PER_ML)
+# A particle column named for a code or class holds scale numbers (18), not counts per mL.
+_CODE = (r"\bcodes?\b|\bscale\b|\bclass(?:es)?\b|\bnas\b|\bas ?4059\b|\bsae\b", "a cleanliness code or class")
+_COUNTS = (_CODE, _PER_100ML, _PER_10ML, _PER_ML)
 # The spellings each measure is checked against, in the order tried (the first found is the unit).
 SPELLINGS = {
     "kv40": _VISCOSITY, "kv100": _VISCOSITY, "an": _NUMBER, "bn": _NUMBER,

@@ -179,6 +179,8 @@ def test_a_percent_sign_in_a_csv_cell_is_read_in_a_percent_column_only(site, tmp
     ("oil_hours", "Oil hrs x1000", "a multiple of the unit (x1000)"),
     ("particles_4um", ">4um(c) (x1000)/mL", "a multiple of the unit (x1000)"),
     ("particles_4um", ">4um(c) /mL", "/mL"), ("kv40", "Visc 40C x 1.0", None),
+    ("particles_4um", "ISO code >4um(c)", "a cleanliness code or class"),
+    ("particles_6um", "ISO 4406 >=6 µm(c)", None), ("particles_14um", "NAS 1638 15-25um", "a cleanliness code or class"),
 ])
 def test_units_named_in_headers_as_labs_write_them(measure, header, unit):
     assert named_unit(measure, header) == unit
@@ -302,3 +304,18 @@ def test_a_unit_column_beside_a_result_is_read_row_by_row(site):
     assert {(r.row, r.field, r.code) for r in graded.rejects} >= {(1, "water", "D018"), (4, "kv40", "D018"),
                                                                   (4, "water", "D018")}
     assert graded.counts() == {"read": 4, "graded": 2, "unrated": 0, "rejected": 2}
+
+
+def test_scale_numbers_in_particle_columns_are_not_read_as_counts(site, tmp_path):
+    # A lab that writes the code 20/18/15 as three columns of scale numbers. Read as counts per mL,
+    # 20, 18 and 15 particles are scale numbers 12/11/10 (ISO 4406:1999 table, limits.md): clean, normal.
+    # The code itself is above the site's alert code 19/17/14 at 4 um: alert.
+    text = "sample_id,class,lubricant,ISO code >4um(c),ISO code >6um(c),ISO code >14um(c)\nC1,hydraulic,HYD-46-M,20,18,15\n"
+    (tmp_path / "lab.csv").write_text(text, encoding="utf-8")
+    (tmp_path / "map.yaml").write_text('particles_4um: "ISO code >4um(c)"\nparticles_6um: "ISO code >6um(c)"\n'
+                                       'particles_14um: "ISO code >14um(c)"\n', encoding="utf-8")
+    run = run_cli("grade", tmp_path / "lab.csv", "--rules", SITE, "--columns", tmp_path / "map.yaml")
+    assert run.code == 2 and "a cleanliness code or class" in run.err
+    (tmp_path / "code.csv").write_text("sample_id,class,lubricant,iso4406\nC1,hydraulic,HYD-46-M,20/18/15\n",
+                                       encoding="utf-8")
+    assert _grades(grade(read_samples(tmp_path / "code.csv"), site)) == {"C1": "alert"}
