@@ -581,6 +581,9 @@ def record_shape_groups(batch: GradedBatch, rows: np.ndarray) -> tuple[np.ndarra
         if name not in measured.columns:
             continue
         leaf_columns.append(measured[name].isna().to_numpy()[rows].astype(np.int8))
+        written = batch.columns.written(name)  # a censored reading that left a rule undecided, or none
+        if written is not None:
+            leaf_columns.append(pd.notna(written[rows]).astype(np.int8))
     if leaf_columns:
         parts.append(np.stack(leaf_columns, axis=1))
     matrix = np.ascontiguousarray(np.concatenate(parts, axis=1).astype(np.int8))
