@@ -89,6 +89,11 @@ def load_column_map(path, extra_names=(), measures=()) -> ColumnMap:
                                         code="M002"))
             continue
         _entry(doc, name, spec, found, problems, tuple(NUMERIC_NAMES) + tuple(measures))
+    first: dict = {}
+    for name, column in found.columns.items():  # a column is read as one name: the last would win without a word
+        if first.setdefault(column, name) != name:
+            problems.append(doc.problem((name,), f"column '{column}' is already read as '{first[column]}'; a lab "
+                                                 f"column can be read as one engine name only", code="M002"))
     if problems:
         raise InvalidFile(problems)
     return found

@@ -319,3 +319,15 @@ def test_scale_numbers_in_particle_columns_are_not_read_as_counts(site, tmp_path
     (tmp_path / "code.csv").write_text("sample_id,class,lubricant,iso4406\nC1,hydraulic,HYD-46-M,20/18/15\n",
                                        encoding="utf-8")
     assert _grades(grade(read_samples(tmp_path / "code.csv"), site)) == {"C1": "alert"}
+
+
+def test_one_lab_column_named_for_two_measures_is_a_map_error(tmp_path):
+    # 'Viscosity' (at 40 C, 105 mm2/s for an SAE 15W-40 engine oil, from memory) named for kv40 and
+    # kv100 by a slip. Was: the last entry won without a word: kv40 went missing and kv100 read 105
+    # against ENG-15W40-M's new 14.4, so visc100-drift graded alert (+629 %). Now: M002 at its line.
+    (tmp_path / "map.yaml").write_text("sample_id: Nr\nclass: {value: diesel-engine}\nlubricant: {value: ENG-15W40-M}\n"
+                                       "kv40: Viscosity\nkv100: Viscosity\n", encoding="utf-8")
+    (tmp_path / "lab.csv").write_text("Nr,Viscosity\nE1,105\n", encoding="utf-8")
+    run = run_cli("grade", tmp_path / "lab.csv", "--rules", SITE, "--columns", tmp_path / "map.yaml")
+    assert run.code == 2 and run.out == ""
+    assert "map.yaml:5:" in run.err and "M002" in run.err and "'Viscosity' is already read as 'kv40'" in run.err
