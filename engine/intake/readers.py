@@ -606,7 +606,7 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
         raise InputError(f"no sheet {sheet!r}; the workbook has: {', '.join(names)}")
     else:
         chosen = sheet
-    cells = [[_cell(c.value, getattr(c, "number_format", None)) for c in row] for row in book[chosen].iter_rows()]
+    cells = [list(map(_cell, row)) for row in book[chosen].iter_rows()]
     book.close()
     unsaved = _unsaved_formulas(data, chosen, cells)
     if not cells or not any(v is not None for v in cells[0]):
@@ -659,14 +659,18 @@ def _unsaved_formulas(data: bytes, sheet: str, cells: list) -> dict:
     return found
 
 
-def _cell(value, number_format: str | None = None):
+def _cell(cell):
     """A workbook cell as the text/number a CSV would give: dates as ISO 8601 text, and a number
     shown as a percentage (stored 0.0012, shown `0.12%`) as the text shown, with its sign, for
     validation to read in a % column and refuse elsewhere (read as the stored number, 0.12 %
-    water in a % column would be 0.0012 %, a hundred times too small)."""
-    if isinstance(value, (int, float)) and not isinstance(value, bool) and number_format \
-            and "%" in number_format.replace('"%"', "").replace("\\%", ""):
-        return f"{round(value * 100, 9)!r}%"
+    water in a % column would be 0.0012 %, a hundred times too small). A number's format is
+    looked up only for numbers."""
+    value = cell.value
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        number_format = getattr(cell, "number_format", None) or ""
+        if "%" in number_format and "%" in number_format.replace('"%"', "").replace("\\%", ""):
+            return f"{round(value * 100, 9)!r}%"
+        return value
     if isinstance(value, datetime):
         return value.date().isoformat() if value.time() == time(0) else value.isoformat(timespec="seconds")
     if isinstance(value, date):
