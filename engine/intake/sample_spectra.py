@@ -197,14 +197,17 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     ok = np.zeros(len(rows), dtype=bool)
     why = np.full(len(rows), "", dtype=object)
     measured = {}
-    # one call per distinct fallback path length (usually one): the file's own ##PATH LENGTH= wins
+    # one call per distinct fallback path length (usually one): the file's own ##PATH LENGTH= wins.
+    # A row's path_length_mm is its sample's cell, not the reference's: a reference file without
+    # its own ##PATH LENGTH= is read at the run's path length, as its ester check is.
     fallback = np.where(np.isnan(paths_lengths), path_length_mm, paths_lengths)
     for length in pd.unique(fallback):
         pick = np.flatnonzero((fallback == length) & ~option_bad)
         if not pick.size:
             continue
         part, _ = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
-                                  dilutions=dilutions[pick], needed=GRADED_BANDS)
+                                  reference_path_length_mm=path_length_mm, dilutions=dilutions[pick],
+                                  needed=GRADED_BANDS)
         part.index = pick
         measured[float(length)] = part
         ok[pick] = part["rejection"].to_numpy() == ""

@@ -323,8 +323,53 @@ def _decode_xydata(items):
     spectra = []
     for k, item in enumerate(items):
         x = first_x[k] + np.arange(npoints[k]) * delta[k]
-        spectra.append(_spectrum(item.ctx, x, y[file_start[k] : file_start[k + 1]] * y_factor[k], evenly_spaced=True))
+        values = y[file_start[k] : file_start[k + 1]] * y_factor[k]
+        _check_first_y(item.ctx, values)
+        spectra.append(_spectrum(item.ctx, x, values, evenly_spaced=True))
     return spectra
+
+
+# FIRSTY is the first Y in true units (stored value x YFACTOR; McDonald & Wilks 1988). Written
+# with fewer digits than the data, it still agrees within 1e-4 of the largest |Y| in every
+# public file read for this check but two; a YFACTOR mistyped by a power of ten, or data
+# already in true units under a factor meant for integers, misses by far more.
+FIRST_Y_TOLERANCE = 1e-3  # of the largest |Y|; our choice
+
+
+def _check_first_y(ctx, values):
+    """The decoded first Y times YFACTOR must be the header's FIRSTY: else the factor or the data are wrong.
+
+    Why: a wrong YFACTOR scales every absorbance, and a band height with it, without any
+    other sign; FIRSTY is the one label that states a Y in true units. A FIRSTY of 0 says
+    nothing about the scale (one public file writes 0 before a first Y of 0.03) and is not
+    compared.
+    """
+    text = ctx.header.get("FIRSTY", "").split()
+    if not text or values.size == 0:
+        return
+    stated, last_digit = _number_and_last_digit(text[0])
+    if stated is None:
+        raise SpectrumError(ctx.source, ctx.line("FIRSTY"), f"##FIRSTY= {ctx.header['FIRSTY']!r} is not a number")
+    if stated == 0 or not math.isfinite(values[0]):
+        return
+    largest = float(np.nanmax(np.abs(values)))
+    if abs(values[0] - stated) > FIRST_Y_TOLERANCE * largest + 0.5 * last_digit:
+        raise SpectrumError(
+            ctx.source, ctx.line("FIRSTY"),
+            f"##FIRSTY={text[0]} but the first Y read is {values[0]:.6g} (stored value x ##YFACTOR="
+            f"{ctx.header.get('YFACTOR', '1')}): the factor or the data are wrong, so every value would be "
+            "misscaled")
+
+
+def _number_and_last_digit(text):
+    """(value, the size of one unit in its last written digit), or (None, 0) when not a finite number."""
+    match = re.fullmatch(r"[+-]?(\d*)(?:\.(\d*))?(?:[EeDd]([+-]?\d+))?", text)
+    if match is None or not (match.group(1) or match.group(2)):
+        return None, 0.0
+    value = float(text.replace("D", "E").replace("d", "e"))
+    if not math.isfinite(value):
+        return None, 0.0
+    return value, 10.0 ** (int(match.group(3) or 0) - len(match.group(2) or ""))
 
 
 def _line_tables(items):
@@ -654,4 +699,5 @@ def _read_xypoints(block, ctx):
     if "NPOINTS" in ctx.header and int(ctx.number("NPOINTS")) != pairs.shape[0]:
         raise SpectrumError(ctx.source, ctx.line("NPOINTS"),
                             f"##NPOINTS={int(ctx.number('NPOINTS'))} but the data block holds {pairs.shape[0]} points")
+    _check_first_y(ctx, pairs[:, 1] * y_factor)
     return pairs[:, 0] * x_factor, pairs[:, 1] * y_factor

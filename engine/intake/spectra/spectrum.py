@@ -86,9 +86,13 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
     notes = list(notes)
     if y_kind == "T":
         finite = y[np.isfinite(y)]
-        percent = percent_label or (finite.size > 0 and finite.max() > 1.5)
+        # Fraction or percent, when the label does not say: judged on the median, not the largest value.
+        # A fraction spectrum can reach past 1.5 at a few points (a public test file peaks at 1.505),
+        # and read as percent every absorbance gains 2 and every band reads as saturated; a percent
+        # spectrum with a median of 1.5 % or less passes almost no light anywhere. Common practice, no source.
+        percent = percent_label or (finite.size > 0 and float(np.median(finite)) > 1.5)
         if percent and not percent_label:
-            notes.append("transmittance above 1.5 read as percent")
+            notes.append("transmittance read as percent (median above 1.5)")
         notes.append("absorbance = -log10(transmittance)")
         y = absorbance_from_transmittance(y, percent)
     if x.size >= 2 and x[0] > x[-1]:

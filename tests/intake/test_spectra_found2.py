@@ -1,0 +1,187 @@
+"""Silent wrong grades found by feeding the FTIR path spectra nobody on the project wrote.
+
+Each test grades through the real command line (`sumpwise grade`, `sumpwise spectra`) and asks
+what the grade is, with the old grade named beside it. Public files are the R. J. Lancashire
+JCAMP-DX test set (public domain; see tests/data/spectra/README.md); the rest are synthetic
+oils with realistic magnitudes at 0.100 mm (tests/support/synthetic_spectra.py).
+
+Sources: absorbance A = -log10(T), T the fraction of light transmitted (the definition of
+absorbance; from memory, it is also the conversion the reader documents); ##FIRSTY= is the
+first Y in true units, stored value x ##YFACTOR (McDonald & Wilks, Applied Spectroscopy 42
+(1988) 151, via shared/reference/ftir.md's label list; the product rule from memory);
+differential trend subtracts the same lubricant's new oil after both are path-normalised
+(ASTM D7418, confirmed; normalising both first is common practice, ftir.md); abs/cm = 100 x
+abs/0.1 mm (ASTM D7412 12.1-12.2, confirmed).
+"""
+
+import csv
+import io
+import json
+import re
+
+import numpy as np
+import pytest
+from conftest import DATA, ROOT, run_cli
+
+from synthetic_spectra import gaussian, oil_spectrum, wavenumber_grid, write_jcampdx
+
+X = wavenumber_grid()
+FOUND = DATA / "spectra" / "found2"
+SCREW = ROOT / "rules" / "screw-compressor.yaml"  # COMP-46-M: new-oil oxidation 1.5 abs/cm; carbonyl-rise 8/15/30
+HEADER = "sample_id,unit_id,class,lubricant,sampled_on,oil_hours,an,spectrum"
+
+
+def _grade(folder, rows, *options, rules=SCREW):
+    (folder / "samples.csv").write_text("\n".join(rows) + "\n")
+    run = run_cli("grade", folder / "samples.csv", "--rules", rules, *options)
+    records = {json.loads(line)["sample_id"]: json.loads(line) for line in run.out.splitlines()}
+    return run, records
+
+
+def _export(path, header, x, y, digits):
+    """A two-column lab export, descending wavenumbers as instruments write them."""
+    lines = [header] + [f"{a:.1f},{b:.{digits}f}" for a, b in zip(x[::-1], y[::-1])]
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def test_a_transmittance_csv_export_grades_as_its_absorbance_twin(tmp_path):
+    # a used mineral oil that gained 0.20 absorbance of carbonyl at 0.1 mm: 20 abs/cm (D7412 12.1-12.2)
+    used = oil_spectrum(X, oxidation=0.20, noise=2e-4, seed=3)
+    _export(tmp_path / "abs.csv", "Wavenumber (cm-1),Absorbance", X, used, 6)
+    _export(tmp_path / "frac.csv", "Wavenumber (cm-1),Transmittance", X, 10 ** -used, 7)  # A = -log10(T)
+    _export(tmp_path / "pct.csv", "cm-1,%T", X, 100 * 10 ** -used, 5)
+    _export(tmp_path / "what.csv", "Wavenumber,Intensity", X, 10 ** -used, 7)
+    rows = [HEADER] + [f"{name},C{k},screw-compressor,COMP-46-M,2026-11-0{k + 1},3000,0.15,{name}.csv"
+                       for k, name in enumerate(("abs", "frac", "pct", "what"))]
+    run, records = _grade(tmp_path, rows)
+    assert run.code == 0, run.err
+    # before: frac.csv was read as absorbance (every band upside down) and graded normal
+    assert {name: records[name]["grade"] for name in ("abs", "frac", "pct")} == {"abs": "alert", "frac": "alert",
+                                                                               "pct": "alert"}
+    read = [records[name]["values"]["oxidation"] for name in ("abs", "frac", "pct")]
+    # 1.0 abs/cm of new-oil carbonyl + 20 gained; the three files differ only by rounding
+    assert read[0] == pytest.approx(21.0, abs=0.3) and max(read) - min(read) < 0.01
+    # a header that names no known ordinate: the scale is unknown, so the row is rejected, not guessed
+    assert "what" not in records
+    assert re.search(r"rejected F001: spectrum: .*what\.csv:1: second column 'Intensity'", run.err), run.err
+    assert "read 4 row(s): 3 graded, 0 unrated, 1 rejected" in run.err
+
+
+def _yfactor_times(path, factor):
+    text = path.read_text()
+    written = re.search(r"##YFACTOR= (\S+)", text).group(1)
+    return text.replace(f"##YFACTOR= {written}", f"##YFACTOR= {float(written) * factor:.10g}")
+
+
+def test_a_yfactor_that_disagrees_with_firsty_rejects_the_spectrum(tmp_path):
+    used = oil_spectrum(X, oxidation=0.05, noise=2e-4, seed=3)  # 5 abs/cm gained: below carbonyl-rise's watch 8
+    good = write_jcampdx(tmp_path / "good.jdx", X[::-1], used[::-1], form="DIFDUP")
+    (tmp_path / "typo.jdx").write_text(_yfactor_times(good, 10.0))  # a power of ten lost in ##YFACTOR=
+    rows = [HEADER, "G,C1,screw-compressor,COMP-46-M,2026-11-02,3000,0.15,good.jdx",
+            "T,C2,screw-compressor,COMP-46-M,2026-11-02,3000,0.15,typo.jdx"]
+    run, records = _grade(tmp_path, rows)
+    assert run.code == 0, run.err
+    assert records["G"]["grade"] == "normal"
+    # before: every absorbance ten times too large, oxidation 60 abs/cm, graded urgent without a word
+    assert "T" not in records
+    firsty_line = next(n for n, line in enumerate(good.read_text().splitlines(), 1) if line.startswith("##FIRSTY"))
+    assert f"typo.jdx:{firsty_line}: ##FIRSTY=" in run.err and "rejected F001: spectrum" in run.err
+    assert "read 2 row(s): 1 graded, 0 unrated, 1 rejected" in run.err
+
+
+def test_a_public_file_whose_yfactor_was_mistyped_is_refused_and_its_twin_read():
+    # jtpolys.jdx (FIX form) and jtpolysd.jdx (DIF/DUP form) hold the same polystyrene spectrum;
+    # jtpolysd's YFACTOR reads 2.3884185791e-09 where jtpolys has 2.384185791e-09 (a digit
+    # inserted), while its FIRSTY, 0.9816..., is the true first value, as jtpolys's is.
+    run = run_cli("spectra", FOUND / "jtpolys.jdx", FOUND / "jtpolysd.jdx")
+    rows = list(csv.DictReader(io.StringIO(run.out)))
+    assert rows[0]["rejection"] == ""
+    assert re.match(r".*jtpolysd\.jdx:18: ##FIRSTY=9\.81633484363556E-0001 but the first Y read is 0\.98337",
+                    rows[1]["rejection"])
+
+
+def test_the_mistyped_public_file_decodes_to_its_twin_once_its_factor_is_mended(tmp_path):
+    # independent of our FIRSTY rule: with jtpolys's factor, the DIF/DUP decoding equals the FIX form's
+    mended = (FOUND / "jtpolysd.jdx").read_bytes().replace(b"2.3884185791e-09", b"2.384185791e-09")
+    (tmp_path / "mended.jdx").write_bytes(mended)
+    run = run_cli("spectra", FOUND / "jtpolys.jdx", tmp_path / "mended.jdx")
+    fix, dif = list(csv.DictReader(io.StringIO(run.out)))
+    assert fix["rejection"] == dif["rejection"] == ""
+    for band in ("oxidation", "oxidation_area", "soot", "water"):
+        assert float(dif[band]) == pytest.approx(float(fix[band]), rel=1e-5, abs=1e-7), band
+
+
+def test_a_rows_thicker_cell_does_not_thin_the_subtracted_reference(tmp_path):
+    # a mineral oil with a polymethacrylate viscosity modifier: a new-oil carbonyl 0.5 high at 1730
+    # (below the 1.5 ester threshold, as in test_ftir_conventions), read by subtraction
+    new = oil_spectrum(X, noise=2e-4, seed=4) + gaussian(X, 1730, 0.5 * 12 * np.sqrt(2 * np.pi), 12)
+    used = oil_spectrum(X, oxidation=0.05, noise=2e-4, seed=5) + gaussian(X, 1730, 0.5 * 12 * np.sqrt(2 * np.pi), 12)
+    write_jcampdx(tmp_path / "new.jdx", X[::-1], new[::-1], form="DIFDUP")  # the run's 0.100 mm cell
+    write_jcampdx(tmp_path / "thick.jdx", X[::-1], 2.0 * used[::-1], form="DIFDUP")  # the same oil in 0.200 mm
+    write_jcampdx(tmp_path / "thin.jdx", X[::-1], 0.5 * used[::-1], form="DIFDUP")  # and in 0.050 mm
+    rows = [HEADER + ",path_length_mm",
+            "K,C1,screw-compressor,COMP-46-M,2026-11-02,3000,0.15,thick.jdx,0.2",
+            "N,C2,screw-compressor,COMP-46-M,2026-11-02,3000,0.15,thin.jdx,0.05"]
+    run, records = _grade(tmp_path, rows, "--reference", f"COMP-46-M={tmp_path / 'new.jdx'}")
+    assert run.code == 0, run.err
+    # 0.05 absorbance gained at 0.1 mm is 5 abs/cm whatever the cell (D7418, D7412 12.1-12.2);
+    # before: the reference was scaled by the row's cell too, so K read 5 + half the modifier's band
+    # (about 26 abs/cm, alert) and N read 5 minus all of it (far below zero, reference-mismatch)
+    for sample in ("K", "N"):
+        assert records[sample]["values"]["oxidation_differential"] == pytest.approx(5.0, abs=0.3), sample
+        assert records[sample]["grade"] == "normal"
+        assert "reference-mismatch" not in {c["caveat"] for c in records[sample]["caveats"]}
+
+
+SOOT_RULES = """ruleset: soot-fixture
+version: 1
+lubricants:
+  ENG-40: {base_stock: mineral, kv100: 14.0, an: 1.0}
+classes:
+  engine:
+    rules:
+      - {id: soot-high, measure: soot, above: {watch: 50, alert: 100}, message: soot, source: test fixture}
+"""
+
+
+def test_a_fraction_transmittance_file_with_a_spike_past_1_5_is_not_read_as_percent(tmp_path):
+    # sqzdupd1.jdx (public domain): ##YUNITS=TRANSMITTANCE as a fraction (FIRSTY 0.98) whose
+    # largest value is 1.505 (MAXY). Read as percent, every absorbance gained 2: each band read
+    # as saturated, and the one-point soot band as 2.0 abs/0.1 mm, 200 abs/cm once graded.
+    (tmp_path / "rules.yaml").write_text(SOOT_RULES)
+    (tmp_path / "sqzdupd1.jdx").write_bytes((FOUND / "sqzdupd1.jdx").read_bytes())
+    rows = ["sample_id,unit_id,class,lubricant,spectrum", "Q,E1,engine,ENG-40,sqzdupd1.jdx"]
+    run, records = _grade(tmp_path, rows, rules=tmp_path / "rules.yaml")
+    assert run.code == 0, run.err
+    # the file is near full transmission at 2000 cm-1 (T about 0.99-1.0): soot near 0
+    assert records["Q"]["values"]["soot"] == pytest.approx(0.0, abs=1.0)
+    assert records["Q"]["grade"] == "normal"  # before: alert, from a soot reading of 199.7 abs/cm
+    (row,) = list(csv.DictReader(io.StringIO(run_cli("spectra", FOUND / "sqzdupd1.jdx").out)))
+    # before: the water band (3150-3500 cm-1) was "saturated" too; read as a fraction it is measured
+    assert float(row["soot"]) == pytest.approx(0.0, abs=0.01) and row["water"] != ""
+    assert "water: not measured" not in row["notes"]
+
+
+def test_a_percent_file_is_still_read_as_percent_without_its_sign(tmp_path):
+    # the same used oil as % transmittance under a bare TRANSMITTANCE label reads as its absorbance file
+    used = oil_spectrum(X, oxidation=0.20)
+    write_jcampdx(tmp_path / "a.jdx", X, used, form="SQZ", significant=7)
+    write_jcampdx(tmp_path / "t.jdx", X, 100 * 10 ** -used, form="SQZ", significant=7, y_units="TRANSMITTANCE")
+    rows = list(csv.DictReader(io.StringIO(run_cli("spectra", tmp_path / "a.jdx", tmp_path / "t.jdx").out)))
+    for band in ("oxidation", "water", "soot"):  # read as a fraction, every absorbance would be 2 lower
+        assert float(rows[1][band]) == pytest.approx(float(rows[0][band]), rel=1e-3, abs=1e-5), band
+
+
+def test_the_carbonyl_area_is_the_trapezoid_area_above_the_window_mean_baseline(tmp_path):
+    # a worked example, checked with numpy.trapezoid: a sloping straight baseline (the mean of each
+    # baseline window lies on it, so the band file's baseline is that line) and a triangle of
+    # height 0.3 and half-width 40 cm-1 centred at 1730: area 0.3 x 40 = 12 absorbance x cm-1
+    baseline = 0.03 + 1.5e-5 * (X - 550)
+    triangle = np.clip(0.3 * (1 - np.abs(X - 1730) / 40), 0, None)
+    inside = (X >= 1670) & (X <= 1800)
+    assert np.trapezoid(triangle[inside], X[inside]) == pytest.approx(12.0, rel=1e-9)
+    write_jcampdx(tmp_path / "t.jdx", X, baseline + triangle, form="AFFN", significant=9)
+    (row,) = list(csv.DictReader(io.StringIO(run_cli("spectra", tmp_path / "t.jdx").out)))
+    assert float(row["oxidation_area"]) == pytest.approx(12.0, rel=1e-5)
+    assert row["area_unit"] == "abs*cm-1/0.1mm"
