@@ -42,6 +42,14 @@ from sumpwise.vocabulary.units import factor_to_canonical
 # out of the grading.
 GRADED_BANDS = ("oxidation", "nitration", "sulfation", "antiwear", "soot")
 
+# Only oxidation has a measure per convention (oxidation, oxidation_differential). The others
+# hold one convention, the direct reading on the used oil (soot is a direct-trend figure,
+# ASTM WK35480 scope; a row's `method` speaks for its oxidation only), so they are read
+# directly even when the row's oxidation is read by subtraction: a differential nitration
+# under the same name would be held to limits written for direct readings, and the grade
+# would change with whether a reference was given.
+DIRECT_ONLY_BANDS = ("nitration", "sulfation", "antiwear", "soot")
+
 # A differential carbonyl area this far below zero is not noise: the reference is not this
 # oil's new oil. Read on the area, since a peak height (a maximum) of a band that went
 # negative stays near zero. -0.5 absorbance x cm-1 at 0.1 mm is about 100 times the SD
@@ -207,7 +215,7 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
             continue
         part, _ = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
                                   reference_path_length_mm=path_length_mm, dilutions=dilutions[pick],
-                                  needed=GRADED_BANDS)
+                                  needed=GRADED_BANDS, direct_bands=DIRECT_ONLY_BANDS)
         part.index = pick
         measured[float(length)] = part
         ok[pick] = part["rejection"].to_numpy() == ""

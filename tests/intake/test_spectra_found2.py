@@ -185,3 +185,31 @@ def test_the_carbonyl_area_is_the_trapezoid_area_above_the_window_mean_baseline(
     (row,) = list(csv.DictReader(io.StringIO(run_cli("spectra", tmp_path / "t.jdx").out)))
     assert float(row["oxidation_area"]) == pytest.approx(12.0, rel=1e-5)
     assert row["area_unit"] == "abs*cm-1/0.1mm"
+
+
+DIESEL = ROOT / "rules" / "diesel-engine.yaml"  # nitration: above watch 10, alert 20 abs/cm, as reported
+
+
+def test_nitration_soot_and_antiwear_keep_the_direct_convention_when_oxidation_is_read_by_subtraction(tmp_path):
+    # an engine oil whose new oil already absorbs 0.06 in the nitration window (an invented additive
+    # band at 1630 cm-1, our choice) and which gained 0.08 of nitration (D7624's quantity, 8 abs/cm)
+    additive = gaussian(X, 1630, 0.06 * 10 * np.sqrt(2 * np.pi), 10)
+    write_jcampdx(tmp_path / "new.jdx", X[::-1], (oil_spectrum(X, noise=2e-4, seed=4) + additive)[::-1], form="DIFDUP")
+    used = oil_spectrum(X, nitration=0.08, oxidation=0.03, noise=2e-4, seed=5) + additive
+    write_jcampdx(tmp_path / "used.jdx", X[::-1], used[::-1], form="DIFDUP")
+    rows = ["sample_id,unit_id,class,lubricant,sampled_on,oil_hours,spectrum",
+            "N,G1,diesel-engine,ENG-15W40-M,2026-11-02,300,used.jdx"]
+    _, alone = _grade(tmp_path, rows, rules=DIESEL)
+    _, against = _grade(tmp_path, rows, "--reference", f"ENG-15W40-M={tmp_path / 'new.jdx'}", rules=DIESEL)
+    alone, against = alone["N"], against["N"]
+    assert (alone["method"], against["method"]) == ("direct", "subtraction")
+    # the oxidation reading changes convention and measure (D7418): 4.0 direct, 3.0 gained
+    assert alone["values"]["oxidation"] == pytest.approx(4.0, abs=0.2)
+    assert against["values"]["oxidation_differential"] == pytest.approx(3.0, abs=0.2)
+    # the single-convention bands do not: 6 + 8 = 14 abs/cm of nitration, direct (D7412 12.1-12.2 for x100)
+    for band in ("nitration", "sulfation", "antiwear", "soot"):
+        assert against["values"][band] == alone["values"][band], band
+    assert alone["values"]["nitration"] == pytest.approx(14.0, abs=0.3)
+    # before: with the reference the nitration read 7.95 (the gain only) and the sample graded normal
+    assert alone["grade"] == against["grade"] == "watch"
+    assert [r["rule"] for r in against["reasons"]] == ["nitration"]
