@@ -213,3 +213,22 @@ def test_nitration_soot_and_antiwear_keep_the_direct_convention_when_oxidation_i
     # before: with the reference the nitration read 7.95 (the gain only) and the sample graded normal
     assert alone["grade"] == against["grade"] == "watch"
     assert [r["rule"] for r in against["reasons"]] == ["nitration"]
+
+
+@pytest.mark.parametrize("name, encode", [
+    ("bom.jdx", lambda text: b"\xef\xbb\xbf" + text.encode("ascii")),  # UTF-8 byte-order mark
+    ("utf16.jdx", lambda text: text.encode("utf-16")),  # UTF-16 with its mark, as some Windows tools save
+    ("cr.jdx", lambda text: text.replace("\n", "\r").encode("ascii")),  # carriage returns only
+    ("crlf.jdx", lambda text: text.replace("\n", "\r\n").encode("ascii")),
+    ("path.jdx", lambda text: text.replace("##PATH LENGTH= 0.1 MM", "##PATH LENGTH=0.1MM").encode("ascii")),
+])
+def test_a_good_spectrum_saved_another_way_reads_the_same(tmp_path, name, encode):
+    # before: the byte-order marks were refused for a missing ##TITLE= or data block, lone carriage
+    # returns for a missing data block, and 0.1MM (no space) as a path length without a unit
+    plain = write_jcampdx(tmp_path / "plain.jdx", X[::-1], oil_spectrum(X, oxidation=0.1)[::-1], form="DIFDUP",
+                          path_length="0.1 MM")
+    (tmp_path / name).write_bytes(encode(plain.read_text()))
+    first, second = list(csv.DictReader(io.StringIO(run_cli("spectra", plain, tmp_path / name).out)))
+    assert second["rejection"] == "" and second["path_length_mm"] == "0.1"
+    assert [second[band] for band in ("oxidation", "nitration", "soot")] == [first[band] for band in
+                                                                              ("oxidation", "nitration", "soot")]

@@ -119,11 +119,28 @@ def parse_jcampdx(text: str, source: str) -> Spectrum:
 
 
 def _read_text(path):
+    """The file as text: Latin-1 (any byte reads; the data are ASCII), a UTF-8 or UTF-16 byte-order mark
+    honoured, lone carriage returns taken as line ends.
+
+    Why: a file saved with a byte-order mark, in UTF-16, or with old carriage-return line ends
+    holds a good spectrum; read as plain Latin-1 it was refused for a missing ##TITLE= or data
+    block that is there.
+    """
     try:
         with open(path, "rb", buffering=0) as file:  # unbuffered: one read of the whole file, no buffer copy
-            return file.read().decode("latin-1")
+            data = file.read()
     except OSError as exc:
         raise SpectrumError(str(path), None, f"cannot read file: {exc.strerror}") from exc
+    if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        try:
+            text = data.decode("utf-16")
+        except UnicodeDecodeError:
+            raise SpectrumError(str(path), None, "starts with a UTF-16 byte-order mark but is not UTF-16 text") from None
+    else:
+        text = data[3:].decode("latin-1") if data.startswith(b"\xef\xbb\xbf") else data.decode("latin-1")
+    if "\n" not in text and "\r" in text:
+        text = text.replace("\r", "\n")
+    return text
 
 
 def _decode_or_error(item):

@@ -9,6 +9,7 @@ so the band code downstream never sees units.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -135,14 +136,14 @@ _PATH_UNITS_MM = {"MM": 1.0, "CM": 10.0, "UM": 1.0e-3, "MICROMETERS": 1.0e-3, "M
                   "CENTIMETRES": 10.0}
 
 
+_NUMBER_THEN_UNIT = re.compile(r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*([A-Za-z]+\.?)?")
+
+
 def parse_path_length(source, line, text):
-    """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `5 CM` or `18 CM CELL` (a number, then its unit)."""
-    parts = text.replace(",", " ").split()
-    try:
-        value = float(parts[0])
-    except (ValueError, IndexError):
-        value = float("nan")
-    unit = parts[1].upper().rstrip(".") if len(parts) > 1 else ""
+    """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `0.1MM`, `5 CM` or `18 CM CELL` (a number, then its unit)."""
+    match = _NUMBER_THEN_UNIT.match(text.replace(",", " "))
+    value = float(match.group(1)) if match else float("nan")
+    unit = (match.group(2) or "").upper().rstrip(".") if match else ""
     if not (math.isfinite(value) and value > 0) or unit not in _PATH_UNITS_MM:
         raise SpectrumError(source, line, f"##PATH LENGTH={text!r}: expected a positive number and its unit "
                                           "(MM, CM or UM), e.g. 0.1 MM")
