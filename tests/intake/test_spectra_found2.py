@@ -232,3 +232,23 @@ def test_a_good_spectrum_saved_another_way_reads_the_same(tmp_path, name, encode
     assert second["rejection"] == "" and second["path_length_mm"] == "0.1"
     assert [second[band] for band in ("oxidation", "nitration", "soot")] == [first[band] for band in
                                                                               ("oxidation", "nitration", "soot")]
+
+
+def test_transmittance_under_an_absorbance_label_is_refused_not_graded_clean(tmp_path):
+    # the used oil of the CSV test (20 abs/cm gained, alert), as fraction transmittance under labels that
+    # say absorbance: a headerless CSV (documented as wavenumber, absorbance) and ##YUNITS=ABSORBANCE
+    used = oil_spectrum(X, oxidation=0.20, noise=2e-4, seed=3)
+    _export(tmp_path / "bare.csv", "", X, 10 ** -used, 7)
+    (tmp_path / "bare.csv").write_text((tmp_path / "bare.csv").read_text().lstrip("\n"))
+    write_jcampdx(tmp_path / "label.jdx", X[::-1], (10 ** -used)[::-1], form="DIFDUP", y_units="ABSORBANCE")
+    write_jcampdx(tmp_path / "right.jdx", X[::-1], (10 ** -used)[::-1], form="DIFDUP", y_units="TRANSMITTANCE")
+    rows = [HEADER] + [f"{name},C{k},screw-compressor,COMP-46-M,2026-11-0{k + 1},3000,0.15,{name}.{ext}"
+                       for k, (name, ext) in enumerate((("bare", "csv"), ("label", "jdx"), ("right", "jdx")))]
+    run, records = _grade(tmp_path, rows)
+    assert run.code == 0, run.err
+    # before: bands upside down, the carbonyl read as nothing, both graded normal
+    assert set(records) == {"right"} and records["right"]["grade"] == "alert"
+    for name in ("bare.csv", "label.jdx"):
+        assert re.search(rf"rejected F001: spectrum: .*{re.escape(name)}:\d+: the C-H stretch \(2800-3000 cm-1\) "
+                         r"lies 0\.\d\d on average below", run.err), name
+    assert "read 3 row(s): 1 graded, 0 unrated, 2 rejected" in run.err

@@ -100,8 +100,40 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
         x, y = x[::-1], y[::-1]
     if x.size < 2 or not (x[1] > x[0] and (unit == "cm1" and evenly_spaced or np.all(np.diff(x) > 0))):
         raise SpectrumError(source, range_line, "abscissa is not strictly monotonic (or has fewer than 2 points)")
+    dip = _c_h_dip(x, y)
+    if dip is not None:
+        raise SpectrumError(source, range_line, (
+            f"the C-H stretch ({C_H_STRETCH[0]:g}-{C_H_STRETCH[1]:g} cm-1) lies {dip:.2f} on average below the "
+            f"{C_H_BASELINE[0]:g}-{C_H_BASELINE[1]:g} cm-1 level as read ({y_units!r}): every oil absorbs most "
+            "there, so the values look like transmittance read as absorbance (or the reverse); give the y "
+            "unit (##YUNITS=, or a CSV header such as '%T')"))
     return Spectrum(source, np.ascontiguousarray(x), np.ascontiguousarray(y), x_units, y_units, range_line, tuple(notes),
                     path_length_mm)
+
+
+# The C-H stretch of any hydrocarbon or ester oil is its strongest infrared band (IR correlation
+# tables, from memory), so in absorbance it stands above the band-free 2200-1900 cm-1 region;
+# in transmittance it is the deepest dip. Read the wrong way, every band points down and a
+# carbonyl gain reads as nothing. 0.1 absorbance of margin keeps a spectrum without that band
+# (a flat test line, a gas) from being refused; transmittance read as absorbance misses by 0.4-0.9.
+C_H_STRETCH = (2800.0, 3000.0)
+C_H_BASELINE = (1900.0, 2200.0)
+C_H_MARGIN = 0.1
+
+
+def _c_h_dip(x, y):
+    """How far the C-H stretch region's mean lies below the band-free window's mean, when beyond the
+    margin; None when it does not, or when the spectrum does not reach both. Means, not extremes:
+    in transmittance the region's edges sit near the level, so its highest point says nothing."""
+    stretch = y[np.searchsorted(x, C_H_STRETCH[0]) : np.searchsorted(x, C_H_STRETCH[1], side="right")]
+    level = y[np.searchsorted(x, C_H_BASELINE[0]) : np.searchsorted(x, C_H_BASELINE[1], side="right")]
+    if x[0] > C_H_BASELINE[0] or x[-1] < C_H_STRETCH[1] or not stretch.size or not level.size:
+        return None
+    stretch, level = stretch[np.isfinite(stretch)], level[np.isfinite(level)]
+    if not stretch.size or not level.size:
+        return None
+    dip = float(level.mean() - stretch.mean())
+    return dip if dip > C_H_MARGIN else None
 
 
 def _x_unit_kind(source, text, line):
