@@ -252,3 +252,16 @@ def test_transmittance_under_an_absorbance_label_is_refused_not_graded_clean(tmp
         assert re.search(rf"rejected F001: spectrum: .*{re.escape(name)}:\d+: the C-H stretch \(2800-3000 cm-1\) "
                          r"lies 0\.\d\d on average below", run.err), name
     assert "read 3 row(s): 1 graded, 0 unrated, 2 rejected" in run.err
+
+
+def test_an_atr_spectrum_is_refused_not_read_as_a_tenth_of_a_millimetre(tmp_path):
+    # the 20 abs/cm used oil measured by ATR: about 2 um of oil (from memory), 1/50 of 0.1 mm
+    atr = 0.02 * oil_spectrum(X, oxidation=0.20, noise=2e-4, seed=3)
+    path = write_jcampdx(tmp_path / "atr.jdx", X[::-1], atr[::-1], form="DIFDUP")
+    path.write_text(path.read_text().replace("##XUNITS", "##SAMPLING PROCEDURE= MODE=ATR, diamond\n##XUNITS"))
+    rows = [HEADER, "R,C1,screw-compressor,COMP-46-M,2026-11-02,3000,0.15,atr.jdx"]
+    run, records = _grade(tmp_path, rows)
+    # before: read as 0.1 mm, the carbonyl gain was 0.4 abs/cm and the sample graded normal
+    assert records == {}
+    line = next(n for n, text in enumerate(path.read_text().splitlines(), 1) if text.startswith("##SAMPLING"))
+    assert f"atr.jdx:{line}: ##SAMPLING PROCEDURE='MODE=ATR, diamond' names ATR" in run.err

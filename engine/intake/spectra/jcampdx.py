@@ -190,6 +190,7 @@ def _prepare(text, source):
     ctx = _Context(source, header, header_lines, data_line)
     ctx.required("XUNITS")
     y_unit_kind(source, ctx.required("YUNITS"), ctx.line("YUNITS"))  # refused by name before any decoding
+    _check_sampling(ctx)
     if label == "XYPOINTS":
         if form not in ("(XY..XY)", "(XY,XY)"):
             raise SpectrumError(source, data_line, f"##XYPOINTS={form} is not read; expected (XY..XY)")
@@ -207,6 +208,23 @@ def _prepare(text, source):
     if not raw.strip():
         raise SpectrumError(source, data_line, "data block is empty")
     return _Prepared(ctx, raw, None, numbers=numbers)
+
+
+# Sampling without a cell: the FTIR oil methods read transmission cells of 0.025-0.1 mm (ASTM
+# D7214, confirmed; ftir.md), and every band here is put per 0.1 mm of oil. An ATR or
+# reflectance absorbance has no path length (the light enters the oil by a few micrometres,
+# from memory), so per 0.1 mm it would read tens of times too small: a used oil graded clean.
+_NO_CELL = re.compile(r"\b(ATR|ATTENUATED|REFLECT\w*|DRIFTS?|PHOTOACOUSTIC|PAS)\b")
+
+
+def _check_sampling(ctx):
+    """Refuse a ##SAMPLING PROCEDURE= that names a method without a cell path length (ATR, reflectance)."""
+    said = ctx.header.get("SAMPLINGPROCEDURE", "")
+    found = _NO_CELL.search(said.upper())
+    if found:
+        raise SpectrumError(ctx.source, ctx.line("SAMPLINGPROCEDURE"),
+                            f"##SAMPLING PROCEDURE={said!r} names {found.group(1)}: such absorbances have no cell "
+                            "path length, so they cannot be put per 0.1 mm as transmission-cell readings are")
 
 
 def _next_label_line(text, start):
