@@ -265,3 +265,21 @@ def test_an_atr_spectrum_is_refused_not_read_as_a_tenth_of_a_millimetre(tmp_path
     assert records == {}
     line = next(n for n, text in enumerate(path.read_text().splitlines(), 1) if text.startswith("##SAMPLING"))
     assert f"atr.jdx:{line}: ##SAMPLING PROCEDURE='MODE=ATR, diamond' names ATR" in run.err
+
+
+@pytest.mark.parametrize("form", ["AFFN", "PAC", "SQZ", "DIF", "DIFDUP", "XYPOINTS"])
+@pytest.mark.parametrize("order", ["ascending", "descending"])
+@pytest.mark.parametrize("ordinate", ["ABSORBANCE", "TRANSMITTANCE", "%T"])
+def test_one_oil_written_every_way_reads_the_same_bands(tmp_path, form, order, ordinate):
+    # metamorphic: the compression form (JCAMP-DX 4.24), the x order and the ordinate (A = -log10 T)
+    # change how a spectrum is written, never what its bands read
+    used = oil_spectrum(X, oxidation=0.15, nitration=0.04, sulfation=0.03, noise=2e-4, seed=7)
+    write_jcampdx(tmp_path / "plain.jdx", X, used, form="AFFN", significant=9)
+    x, y = (X, used) if order == "ascending" else (X[::-1], used[::-1])
+    y = {"ABSORBANCE": y, "TRANSMITTANCE": 10 ** -y, "%T": 100 * 10 ** -y}[ordinate]
+    write_jcampdx(tmp_path / "other.jdx", x, y, form=form, significant=9, y_units=ordinate)
+    plain, other = list(csv.DictReader(io.StringIO(run_cli("spectra", tmp_path / "plain.jdx",
+                                                               tmp_path / "other.jdx").out)))
+    assert other["rejection"] == ""
+    for band in ("oxidation", "oxidation_area", "nitration", "sulfation", "antiwear", "soot"):
+        assert float(other[band]) == pytest.approx(float(plain[band]), rel=1e-5, abs=1e-6), band
