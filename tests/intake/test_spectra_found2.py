@@ -283,3 +283,22 @@ def test_one_oil_written_every_way_reads_the_same_bands(tmp_path, form, order, o
     assert other["rejection"] == ""
     for band in ("oxidation", "oxidation_area", "nitration", "sulfation", "antiwear", "soot"):
         assert float(other[band]) == pytest.approx(float(plain[band]), rel=1e-5, abs=1e-6), band
+
+
+def test_a_coarse_grid_leaves_out_the_bands_it_cannot_read_and_grades_the_rest(tmp_path):
+    # 16 cm-1 between points (a low-resolution export): no point falls in the diesel band's 805-815
+    # cm-1 window. Before: a traceback (BandFileError) ended both commands for every file
+    coarse = wavenumber_grid(544, 4000, 16)
+    write_jcampdx(tmp_path / "coarse.jdx", coarse, oil_spectrum(coarse, oxidation=0.20), form="DIFDUP")
+    write_jcampdx(tmp_path / "fine.jdx", X, oil_spectrum(X, oxidation=0.20), form="DIFDUP")
+    run = run_cli("spectra", tmp_path / "coarse.jdx", tmp_path / "fine.jdx")
+    assert run.code == 0, run.err
+    coarse_row, fine_row = list(csv.DictReader(io.StringIO(run.out)))
+    assert coarse_row["rejection"] == "" and coarse_row["fuel_diesel"] == ""
+    assert "fuel_diesel: not measured: the grid (points 16 cm-1 apart) has no point within 805-815" in coarse_row["notes"]
+    # the carbonyl (sigma 14 cm-1) is still read on raw points, within 5 % of the fine grid's
+    assert float(coarse_row["oxidation"]) == pytest.approx(float(fine_row["oxidation"]), rel=0.05)
+    rows = [HEADER, "A,C1,screw-compressor,COMP-46-M,2026-11-02,3000,0.15,coarse.jdx"]
+    graded, records = _grade(tmp_path, rows)
+    assert graded.code == 0, graded.err
+    assert records["A"]["grade"] == "alert"  # 21 abs/cm direct, rise 19.5 over COMP-46-M's 1.5
