@@ -119,20 +119,26 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
 C_H_STRETCH = (2800.0, 3000.0)
 C_H_BASELINE = (1900.0, 2200.0)
 C_H_MARGIN = 0.1
+_C_H_LOWS = np.array([C_H_BASELINE[0], C_H_STRETCH[0]])
+_C_H_HIGHS = np.array([C_H_BASELINE[1], C_H_STRETCH[1]])
 
 
 def _c_h_dip(x, y):
     """How far the C-H stretch region's mean lies below the band-free window's mean, when beyond the
     margin; None when it does not, or when the spectrum does not reach both. Means, not extremes:
     in transmittance the region's edges sit near the level, so its highest point says nothing."""
-    stretch = y[np.searchsorted(x, C_H_STRETCH[0]) : np.searchsorted(x, C_H_STRETCH[1], side="right")]
-    level = y[np.searchsorted(x, C_H_BASELINE[0]) : np.searchsorted(x, C_H_BASELINE[1], side="right")]
-    if x[0] > C_H_BASELINE[0] or x[-1] < C_H_STRETCH[1] or not stretch.size or not level.size:
+    if x[0] > C_H_BASELINE[0] or x[-1] < C_H_STRETCH[1]:
         return None
-    stretch, level = stretch[np.isfinite(stretch)], level[np.isfinite(level)]
-    if not stretch.size or not level.size:
+    (a, b), (c, d) = np.searchsorted(x, _C_H_LOWS).tolist(), np.searchsorted(x, _C_H_HIGHS, side="right").tolist()
+    level, stretch = y[a:c], y[b:d]
+    if not level.size or not stretch.size:
         return None
     dip = float(level.mean() - stretch.mean())
+    if math.isnan(dip):  # transmittance <= 0 somewhere: judge on the finite points
+        level, stretch = level[np.isfinite(level)], stretch[np.isfinite(stretch)]
+        if not level.size or not stretch.size:
+            return None
+        dip = float(level.mean() - stretch.mean())
     return dip if dip > C_H_MARGIN else None
 
 
