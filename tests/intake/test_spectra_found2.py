@@ -302,3 +302,33 @@ def test_a_coarse_grid_leaves_out_the_bands_it_cannot_read_and_grades_the_rest(t
     graded, records = _grade(tmp_path, rows)
     assert graded.code == 0, graded.err
     assert records["A"]["grade"] == "alert"  # 21 abs/cm direct, rise 19.5 over COMP-46-M's 1.5
+
+
+def test_a_reference_diluted_like_its_samples_but_read_neat_is_a_mismatch_not_an_urgent_oil(tmp_path):
+    # a polyol ester compressor oil, new and used (0.10 of carbonyl gained at 0.1 mm: 10 abs/cm), both
+    # diluted 1:4 in a 0.1 mm cell (ASTM D7214 asks esters to be diluted, confirmed); the samples file
+    # gives the sample's dilution, the reference has no place to say it and is read as neat oil
+    write_jcampdx(tmp_path / "new.jdx", X[::-1], (0.25 * oil_spectrum(X, "ester"))[::-1], form="DIFDUP")
+    write_jcampdx(tmp_path / "used.jdx", X[::-1], (0.25 * oil_spectrum(X, "ester", oxidation=0.10))[::-1],
+                  form="DIFDUP")
+    rows = [HEADER + ",dilution", "P,C1,screw-compressor,COMP-46-X,2026-11-02,3000,0.15,used.jdx,4"]
+    run, records = _grade(tmp_path, rows, "--reference", f"COMP-46-X={tmp_path / 'new.jdx'}")
+    assert run.code == 0, run.err
+    record = records["P"]
+    # before: 4 x 0.25 x used - 0.25 x new left three quarters of the ester's 2.0 carbonyl in the
+    # difference, 151 abs/cm, graded urgent by carbonyl-differential (and the diluted reference's ester
+    # band, 0.5 as read, fell below the 1.5 that infers an ester, so no ester caveat either)
+    assert record["grade"] != "urgent" and record["values"]["oxidation_differential"] is None
+    notes = {c["caveat"]: c["message"] for c in record["caveats"]}
+    assert "differential carbonyl 151 abs/cm" in notes["reference-mismatch"]
+    assert "does not match this oil, its cell or its dilution" in notes["reference-mismatch"]
+    assert "carbonyl-differential" in {n["rule"] for n in record["not_evaluated"]}
+    # the way to say it: the reference's neat-oil thickness as its path length (0.1 mm / 4), which
+    # reads the 10 abs/cm gained and infers the ester (its caveat caps and explains)
+    text = (tmp_path / "new.jdx").read_text().replace("##OWNER", "##PATH LENGTH= 0.025 MM\n##OWNER")
+    (tmp_path / "new.jdx").write_text(text)
+    run, records = _grade(tmp_path, rows, "--reference", f"COMP-46-X={tmp_path / 'new.jdx'}")
+    record = records["P"]
+    assert record["values"]["oxidation_differential"] == pytest.approx(10.0, abs=0.3)
+    assert {"base-stock-inferred", "ester-subtracted"} <= {c["caveat"] for c in record["caveats"]}
+    assert record["grade"] == "watch"  # carbonyl-differential watch 8, alert 15
