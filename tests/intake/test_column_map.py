@@ -101,11 +101,9 @@ def test_grade_reads_a_detection_limit_for_a_declared_measure():
     assert run.code == 0, run.err
     import csv, io
     rows = {row["sample_id"]: row for row in csv.DictReader(io.StringIO(run.out))}
-    # the site's gear-drive iron ladder: watch above 100 ppm; ND (below 1 ppm) is known under it, so
-    # the `iron` rule neither fires nor is listed as not evaluated (iron-climbing lacks a previous sample)
-    assert "iron=watch" in rows["F2"]["fired"].split(";")
-    assert rows["F1"]["fired"] == "" and not any(entry.startswith("iron(")
-                                                 for entry in rows["F1"]["not_evaluated"].split(";"))
+    # the site's gear-drive iron ladder: watch above 100 ppm; ND (below 1 ppm) is known under it
+    assert "iron=watch" in rows["F2"]["fired"].split(";") and rows["F1"]["fired"] == ""
+    assert not any(gap.startswith("iron(") for gap in rows["F1"]["not_evaluated"].split(";"))
 
 
 @pytest.mark.parametrize("command", ["compare", "propose-limits"])
