@@ -206,7 +206,7 @@ class _Compiler:
     def _lubricant(self, code: str, placed: Placed) -> Lubricant:
         data = dict(placed.data)
         if "oxidation" in data:
-            data["oxidation"] = data["oxidation"] * self._scale(placed, "oxidation")
+            data["oxidation"] = in_canonical_unit(data["oxidation"], self._scale(placed, "oxidation"))
         if "base_stock" in data:
             data["base_stock"] = self._base_stock(placed, ("base_stock",), data["base_stock"])
         spectrum = data.get("reference_spectrum")
@@ -264,7 +264,7 @@ class _Compiler:
                 f"noise margin for '{name}', which has no trend measures; trended measures are: {known}",
                 (), key=True, code="C014"))
             return None
-        return placed.data * self._scale(placed, name)
+        return in_canonical_unit(placed.data, self._scale(placed, name))
 
     def _rule(self, placed: Placed):
         data = placed.data
@@ -303,11 +303,11 @@ class _Compiler:
                         f"the pair [{limit[0]}, {limit[1]}] for '{grade}' must be written [low, high] "
                         f"with low below high", (test, grade), code="C005"))
                 self._check_domain(placed, (test, grade), measure, limit, scale, f"'{grade}' limit")
-                limit = (limit[0] * scale, limit[1] * scale)
+                limit = (in_canonical_unit(limit[0], scale), in_canonical_unit(limit[1], scale))
             else:
                 if test != "outside":  # |value| > x: a size, checked by lint
                     self._check_domain(placed, (test, grade), measure, [limit], scale, f"'{grade}' limit")
-                limit = limit * scale
+                limit = in_canonical_unit(limit, scale)
             steps.append((level, limit))
         steps.sort(key=lambda s: s[0])
         self._check_monotone(placed, test, steps, data[test])
@@ -384,9 +384,9 @@ class _Compiler:
                 if limit[0] > limit[1] or (test == "outside" and limit[0] == limit[1]):
                     self.problems.append(placed.problem(
                         f"the pair [{limit[0]}, {limit[1]}] must be written [low, high]", sub + (test,), code="C005"))
-                limit = (limit[0] * scale, limit[1] * scale)
+                limit = (in_canonical_unit(limit[0], scale), in_canonical_unit(limit[1], scale))
             else:
-                limit = limit * scale
+                limit = in_canonical_unit(limit, scale)
             return MeasureTest(measure, test, limit)
         if "field" in data:
             tests = [k for k in ("in", "equals") if k in data]
@@ -461,6 +461,14 @@ class _Compiler:
                 self.problems.append(placed.problem(
                     f"example '{placed.data['name']}': `{key}` names '{ident}', but there is no such {what}",
                     ("expect", key, i), hint=f"did you mean '{close[0]}'?" if close else "", code="C012"))
+
+
+def in_canonical_unit(value, scale: float) -> float:
+    """A limit or reference value written in a file's unit, in the canonical unit, to the 12
+    significant digits the canonical form keeps: 0.29 abs/0.1mm is 29 abs/cm, not the
+    28.999999999999996 a bare product gives (which a reading of exactly 29 is above), and the
+    rule set grades as its canonical form reloaded does."""
+    return float(f"{value * scale:.12g}")
 
 
 def _plain(value) -> str:
