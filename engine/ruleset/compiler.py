@@ -122,7 +122,7 @@ class _Compiler:
             measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
             canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
             measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
-            lubricant_origins={code: self._origin(placed) for code, placed in r.lubricants.items()},
+            lubricant_origins={code: self._origin(entries[-1]) for code, entries in r.lubricants.items()},
             noise_margins=margins,
         )
         if self.problems:
@@ -203,15 +203,27 @@ class _Compiler:
             self.problems.append(placed.problem(str(exc), sub, code="C013"))
             return str(text)
 
-    def _lubricant(self, code: str, placed: Placed) -> Lubricant:
-        data = dict(placed.data)
-        if "oxidation" in data:
-            data["oxidation"] = in_canonical_unit(data["oxidation"], self._scale(placed, "oxidation"))
-        if "base_stock" in data:
-            data["base_stock"] = self._base_stock(placed, ("base_stock",), data["base_stock"])
-        spectrum = data.get("reference_spectrum")
-        if spectrum is not None:
-            data["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
+    def _lubricant(self, code: str, entries: tuple) -> Lubricant:
+        """A lubricant merged field by field over the files of the chain that give its code.
+
+        A child giving its own new-oil sample's acid number keeps the parent's base stock and
+        viscosities (replacing the whole entry lost them, and an ester lost its caveat's cap);
+        each value is read in the units of the file that wrote it. An entry that names another
+        base stock is another oil: nothing of the earlier entries carries over to it.
+        """
+        data: dict = {}
+        for placed in entries:
+            own = dict(placed.data)
+            if "oxidation" in own:
+                own["oxidation"] = in_canonical_unit(own["oxidation"], self._scale(placed, "oxidation"))
+            if "base_stock" in own:
+                own["base_stock"] = self._base_stock(placed, ("base_stock",), own["base_stock"])
+                if own["base_stock"] != data.get("base_stock", own["base_stock"]):
+                    data = {}
+            spectrum = own.get("reference_spectrum")
+            if spectrum is not None:
+                own["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
+            data.update(own)
         return Lubricant(code=code, **data)
 
     def _rules(self, places) -> tuple:

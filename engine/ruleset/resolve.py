@@ -43,7 +43,7 @@ class Resolved:
     header: dict = field(default_factory=dict)
     header_marks: dict = field(default_factory=dict)
     grades: tuple = DEFAULT_GRADES
-    lubricants: dict = field(default_factory=dict)
+    lubricants: dict = field(default_factory=dict)  # code -> its Placed entries, the chain's oldest first
     classes: dict = field(default_factory=dict)
     rules: dict = field(default_factory=dict)
     caveats: dict = field(default_factory=dict)
@@ -156,7 +156,10 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     merged.incomplete = merged.incomplete or parent.incomplete
     merged.header.update(parent.header)
     merged.header_marks.update(parent.header_marks)
-    merged.lubricants.update(parent.lubricants)
+    for code, entries in parent.lubricants.items():
+        # the parent's view of the code comes last; an entry both have (a shared grandparent) once
+        earlier = tuple(e for e in merged.lubricants.get(code, ()) if not any(e is p for p in entries))
+        merged.lubricants[code] = earlier + entries
     merged.measures.update(parent.measures)
     merged.noise_margins.update(parent.noise_margins)
     merged.fields.update(parent.fields)
@@ -203,7 +206,7 @@ def _add_own(merged: Resolved, doc: YamlDocument, data: dict, skipped: set, prob
             merged.header[name] = data[name]
             merged.header_marks[name] = Placed(data[name], doc, (name,))
     for code, lub in data.get("lubricants", {}).items():
-        merged.lubricants[code] = Placed(lub, doc, ("lubricants", code))
+        merged.lubricants[code] = merged.lubricants.get(code, ()) + (Placed(lub, doc, ("lubricants", code)),)
     for name, spec in data.get("measures", {}).items():
         merged.measures[name] = Placed(spec, doc, ("measures", name))
     for name, margin in data.get("noise_margins", {}).items():
