@@ -176,7 +176,7 @@ def sqlite_floor(source: Path, target: Path) -> tuple[tuple[float, float], tuple
         tables = {name: conn.execute(f"SELECT {', '.join(SAMPLE_COLUMNS) if name == 'samples' else '*'} "
                                      f"FROM {name}").fetchall() for name in TABLES}
     read = time.perf_counter() - started[0], time.process_time() - started[1]
-    conn = open_ledger(target)
+    conn = open_ledger(target, building=True)  # a new ledger's settings: built aside, no journal
     started = clock()
     begin(conn)
     indexes = conn.execute("SELECT name, sql FROM sqlite_master WHERE type = 'index' AND tbl_name = 'samples' "

@@ -148,13 +148,15 @@ def _writable(path: Path) -> bool:
     return os.access(folder, os.W_OK) and (not path.exists() or os.access(path, os.W_OK))
 
 
-def open_ledger(path, create: bool = True, write: bool = True) -> sqlite3.Connection:
+def open_ledger(path, create: bool = True, write: bool = True, building: bool = False) -> sqlite3.Connection:
     """A connection to a ledger at SCHEMA_VERSION; refuse anything that is not one, untouched.
 
     The file's header is read before SQLite opens it, so a foreign or damaged file is never
     switched to WAL or migrated. Readers (`write=False`) open the file read-only; an older
     ledger is migrated in place when it can be written, and in memory when it cannot (an
     archived ledger in a read-only folder). A writer needs the file and its folder writable.
+    `building`: a new file no other run can see yet (see _grade_into_new), written with no
+    journal and no syncs.
     """
     path = Path(path)
     identity = _usable_path(path, create and write)
@@ -176,8 +178,12 @@ def open_ledger(path, create: bool = True, write: bool = True) -> sqlite3.Connec
         try:
             version = _check_identity(conn, path)  # reads only: a refused file is left as it was
             conn.execute(f"PRAGMA page_size={PAGE_SIZE}")  # before WAL; no effect on an existing database
-            conn.execute("PRAGMA journal_mode=WAL")
-            conn.execute("PRAGMA synchronous=NORMAL")  # WAL: a crash never corrupts; power loss may drop the last batch
+            if building:
+                conn.execute("PRAGMA journal_mode=OFF")
+                conn.execute("PRAGMA synchronous=OFF")
+            else:
+                conn.execute("PRAGMA journal_mode=WAL")
+                conn.execute("PRAGMA synchronous=NORMAL")  # WAL: a crash never corrupts; power loss may drop the last batch
             conn.execute("PRAGMA foreign_keys=ON")
             conn.execute(f"PRAGMA cache_size=-{CACHE_KIB}")  # a batch of a million samples grows five indexes
             if version < SCHEMA_VERSION:
@@ -557,12 +563,17 @@ def grade_into_ledger(path, batch: SampleBatch, ruleset: RuleSet, correction: Co
     A row whose id is recorded with other values is rejected (and the reject recorded)
     unless `correction` says why and who; the other rows are graded and recorded.
     """
+    path = Path(path)
+    batch = read_cleanliness_codes(read_oil_changes(batch))
+    if not path.exists() and path.parent.is_dir() and _writable(path):
+        built = _grade_into_new(path, batch, ruleset, correction, reuse_version)
+        if built is not None:
+            return built
     conn = open_ledger(path)
     try:
         begin(conn)
         try:
-            graded, recorded = _record(conn, path, read_cleanliness_codes(read_oil_changes(batch)), ruleset,
-                                       correction, reuse_version)
+            graded, recorded = _record(conn, path, batch, ruleset, correction, reuse_version)
             _test_pause()
             conn.execute("COMMIT")
         except BaseException:
@@ -573,6 +584,55 @@ def grade_into_ledger(path, batch: SampleBatch, ruleset: RuleSet, correction: Co
     finally:
         conn.close()
     return graded, recorded
+
+
+def _grade_into_new(path: Path, batch: SampleBatch, ruleset: RuleSet, correction: Correction | None,
+                    reuse_version: bool) -> tuple[GradedBatch, Recorded] | None:
+    """A new ledger is built beside its place, with no journal (about 2 s less a million samples:
+    nothing is written twice), and hard-linked into place only when whole. No run can see the
+    file while it is built, so no reader waits and nothing half-written is ever a ledger: a
+    failure or a crash leaves no ledger (a crash leaves the hidden side file). None when the
+    ledger cannot be put in place this way (another run created it meanwhile, or the file
+    system has no hard links): the caller then records into the ledger as it is, as always."""
+    side = path.with_name(f".{path.name}.building-{os.getpid()}")
+    side.unlink(missing_ok=True)  # a crashed run's file under this process id
+    try:
+        try:
+            conn = open_ledger(side, building=True)
+            try:
+                begin(conn)
+                graded, recorded = _record(conn, path, batch, ruleset, correction, reuse_version)
+                _test_pause()
+                conn.execute("COMMIT")
+                conn.execute("PRAGMA journal_mode=WAL")  # as every ledger is: readers never wait for a writer
+            finally:
+                conn.close()
+        except sqlite3.DatabaseError as exc:
+            raise LedgerError(f"{path}: the ledger could not be written: {exc}") from None
+        with open(side, "rb") as built:
+            os.fsync(built.fileno())
+        try:
+            os.link(side, path)
+        except OSError:
+            return None
+        _sync_folder(path.parent)
+        return graded, recorded
+    finally:
+        side.unlink(missing_ok=True)
+
+
+def _sync_folder(folder: Path) -> None:
+    """The new name made durable (POSIX); a no-op where folders cannot be opened."""
+    try:
+        handle = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(handle)
+    except OSError:
+        pass
+    finally:
+        os.close(handle)
 
 
 def _test_pause() -> None:

@@ -151,3 +151,18 @@ def test_demo_records_the_year_in_a_ledger(tmp_path):
     assert grades[0] == "normal" and grades[-1] == "urgent" and len(grades) == 27
     assert run_cli("demo", "--out", out).code == 0  # a second run records nothing new
     assert _state(db)[1:] == (327, 327, 1)
+
+
+def test_a_run_killed_while_building_a_new_ledger_leaves_no_ledger(tmp_path):
+    # A new ledger is built in a hidden side file and linked into place only when whole.
+    db = tmp_path / "new.db"
+    first, _ = _halves(tmp_path)
+    victim = _grade_process(first, db, pause=30)
+    assert "pausing 30 s inside the transaction" in victim.stderr.readline()
+    victim.send_signal(signal.SIGKILL)
+    victim.wait(timeout=30)
+    assert not db.exists()
+    assert [p.name for p in tmp_path.glob(".new.db.building-*")] == [f".new.db.building-{victim.pid}"]
+    assert _grade_process(first, db).wait(timeout=120) == 0
+    assert _grade_process(first, tmp_path / "reference.db").wait(timeout=120) == 0
+    assert _state(db) == _state(tmp_path / "reference.db") == ("ok", 158, 158, 1)  # rows 71 and 118 rejected

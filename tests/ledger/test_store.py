@@ -286,3 +286,75 @@ def test_a_bulk_batch_builds_the_same_indexes_after_its_rows(tmp_path, ruleset, 
     with sqlite3.connect(bulk) as conn, pytest.raises(sqlite3.IntegrityError):
         conn.execute("INSERT INTO samples (batch, sample_id, oil_changed, method, content, content_sha256) "
                      "SELECT batch, sample_id, oil_changed, method, content, '' FROM samples LIMIT 1")
+
+
+def _files(folder) -> list[str]:
+    return sorted(p.name for p in folder.iterdir())
+
+
+def test_a_new_ledger_is_built_aside_and_comes_out_as_one_recorded_in_place(tmp_path, ruleset):
+    # The same batch recorded into a new ledger (built beside its place, no journal) and into an
+    # empty file (recorded in place, WAL): the same rows, digest chain and journal mode, no side file.
+    new, in_place = tmp_path / "new" / "l.db", tmp_path / "old" / "l.db"
+    new.parent.mkdir()
+    in_place.parent.mkdir()
+    in_place.touch()
+    for db in (new, in_place):
+        _, recorded = grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+        assert (recorded.batch, recorded.new) == (1, 9)
+    assert _files(new.parent) == ["l.db"]
+    rows = "SELECT entry, sample_id, grade, level, shape, vals, content FROM samples ORDER BY entry"
+    with sqlite3.connect(new) as a, sqlite3.connect(in_place) as b:
+        assert a.execute(rows).fetchall() == b.execute(rows).fetchall()
+        assert a.execute("SELECT digest FROM batches").fetchone() != ("",)
+        assert a.execute("PRAGMA journal_mode").fetchone() == b.execute("PRAGMA journal_mode").fetchone() == ("wal",)
+        assert a.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    report = replay(new)
+    assert (report.checked, report.differences) == (9, ())
+
+
+def test_a_failure_while_a_new_ledger_is_built_leaves_no_ledger(tmp_path, ruleset, monkeypatch):
+    import sumpwise.ledger.store as store
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("disk trouble")
+
+    monkeypatch.setattr(store, "_record", broken)
+    with pytest.raises(RuntimeError):
+        grade_into_ledger(tmp_path / "l.db", sumpwise.read_samples(SAMPLES), ruleset)
+    assert _files(tmp_path) == []
+
+
+def test_a_ledger_created_meanwhile_by_another_run_gets_this_batch_too(tmp_path, ruleset, monkeypatch):
+    # Another run puts a ledger in place while this one builds its own: this run's side file is
+    # dropped and its batch recorded into that ledger, after the other's, with nothing lost.
+    import os
+
+    import sumpwise.ledger.store as store
+    db = tmp_path / "l.db"
+    first, second = _split()
+    link = os.link
+
+    def beaten(source, target):
+        monkeypatch.setattr(store.os, "link", link)
+        grade_into_ledger(db, _batch(first), ruleset)  # the other run, landing first
+        return link(source, target)
+
+    monkeypatch.setattr(store.os, "link", beaten)
+    _, recorded = grade_into_ledger(db, _batch(second), ruleset)
+    assert (recorded.batch, recorded.new) == (2, 6) and _files(tmp_path) == ["l.db"]
+    assert _count(db) == 9 and _count(db, "batches") == 2
+    assert replay(db).differences == ()
+
+
+def test_without_hard_links_a_new_ledger_is_recorded_in_place(tmp_path, ruleset, monkeypatch):
+    import sumpwise.ledger.store as store
+
+    def unsupported(source, target):
+        raise PermissionError(1, "Operation not permitted")
+
+    monkeypatch.setattr(store.os, "link", unsupported)
+    _, recorded = grade_into_ledger(tmp_path / "l.db", sumpwise.read_samples(SAMPLES), ruleset)
+    assert (recorded.batch, recorded.new) == (1, 9) and _files(tmp_path) == ["l.db"]
+    assert _count(tmp_path / "l.db") == 9
+    assert replay(tmp_path / "l.db").differences == ()
