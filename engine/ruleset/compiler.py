@@ -107,6 +107,12 @@ class _Compiler:
     def build(self) -> RuleSet:
         """The rule set from every piece that compiles cleanly; problems are collected, not raised."""
         r = self.r
+        if "unrated" in self.grades:  # a finding would read, and be counted, as a sample not graded
+            at = ("grades", self.grades.index("unrated")) if "grades" in r.top.data else ("ruleset",)
+            self.problems.append(r.top.problem(
+                at, "'unrated' cannot be a grade: it is what a sample the engine could not grade is called, so a "
+                    "finding at that grade would read and count as a sample that was not graded", code="C016",
+                hint="name the grade otherwise, e.g. 'caution'"))
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
         classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
         common = self._rules(r.rules.values())

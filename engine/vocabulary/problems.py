@@ -58,6 +58,7 @@ PROBLEM_CODES = {
     "C013": "a base stock or base stock family outside the vocabulary",
     "C014": "a noise margin for a measure without trend measures",
     "C015": "an ISO 4406 code that cannot be read",
+    "C016": "a grade named unrated, the engine's word for a sample it could not grade",
     "W001": "a rule another rule always shadows",
     "W002": "a rule that can never fire",
     "W003": "a caveat that can never apply",
