@@ -19,7 +19,7 @@ from pathlib import Path
 
 from sumpwise.vocabulary.measures import (DERIVED_MEASURES, INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, MEASURES,
                                          TRENDED, declared_trend_measures, domain_of, measure_unit, read_iso4406,
-                                         unit_key)
+                                         trend_base, unit_key)
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, NextStep, Not, Origin, RuleSet)
@@ -171,12 +171,33 @@ class _Compiler:
         return {placed.doc.file: dict(placed.units) for placed in places}
 
     def _scale(self, placed: Placed, measure: str) -> float:
+        self._check_declared_unit(placed, measure)
         key = unit_key(measure)
         if key not in UNIT_FAMILY:
             return 1.0
         family = UNIT_FAMILY[key]
         unit = placed.units.get(key)
         return factor_to_canonical(family, unit) if unit else 1.0
+
+    def _check_declared_unit(self, placed: Placed, measure: str) -> None:
+        """A limit on a declared measure is written in the unit its own file (or that file's parents)
+        declares; the engine does not convert declared units, so a child that declares the measure
+        in another unit leaves that limit read against data in the child's unit."""
+        base = measure if measure in self.r.measures else trend_base(measure)
+        if base not in self.r.measures or measure.endswith("_rising"):  # a run count has no unit
+            return
+        final = self.r.measures[base]
+        written = self.r.declared_units.get(placed.doc.file, {}).get(base)
+        if written == final.data.get("unit"):
+            return
+        mark = final.doc.mark(final.path, key=True)
+        self.problems.append(placed.problem(
+            f"this limit on {measure} is written in {written or 'no unit'}, as {placed.doc.file} declares "
+            f"{base}, but the rule set declares {base} in {final.data.get('unit') or 'no unit'} "
+            f"({final.doc.file}:{mark.line}); declared units are not converted, so the limit would be read "
+            f"against data in the other unit", code="C017",
+            hint=f"give the rule again, same id, with limits in {final.data.get('unit')} (or drop it) where {base} "
+                 f"is declared anew, or keep one unit for {base} across the chain"))
 
     def _level(self, placed: Placed, sub: tuple, grade: str, key: bool = False) -> int | None:
         if grade not in self.grades:

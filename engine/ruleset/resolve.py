@@ -48,6 +48,9 @@ class Resolved:
     rules: dict = field(default_factory=dict)
     caveats: dict = field(default_factory=dict)
     measures: dict = field(default_factory=dict)
+    # file -> {declared measure: its unit} as that file and its parents declare it: the unit
+    # the file's own limits on the measure are written in
+    declared_units: dict = field(default_factory=dict)
     noise_margins: dict = field(default_factory=dict)
     fields: dict = field(default_factory=dict)
     examples: list = field(default_factory=list)
@@ -161,6 +164,7 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
         earlier = tuple(e for e in merged.lubricants.get(code, ()) if not any(e is p for p in entries))
         merged.lubricants[code] = earlier + entries
     merged.measures.update(parent.measures)
+    merged.declared_units.update(parent.declared_units)
     merged.noise_margins.update(parent.noise_margins)
     merged.fields.update(parent.fields)
     for name, rules in parent.classes.items():
@@ -222,6 +226,7 @@ def _add_own(merged: Resolved, doc: YamlDocument, data: dict, skipped: set, prob
                        if ("examples", i) not in skipped]
     merged.top = doc
     merged.files.append(doc.file)
+    merged.declared_units[doc.file] = {name: p.data.get("unit") for name, p in merged.measures.items()}
 
 
 class _ClassBuilder:

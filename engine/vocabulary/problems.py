@@ -59,6 +59,7 @@ PROBLEM_CODES = {
     "C014": "a noise margin for a measure without trend measures",
     "C015": "an ISO 4406 code that cannot be read",
     "C016": "a grade named unrated, the engine's word for a sample it could not grade",
+    "C017": "a limit on a declared measure written in another unit than the rule set declares it",
     "W001": "a rule another rule always shadows",
     "W002": "a rule that can never fire",
     "W003": "a caveat that can never apply",
