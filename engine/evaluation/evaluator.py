@@ -176,15 +176,16 @@ def condition_truth(condition, columns: _Columns, leaves: list | None = None,
                     masked: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(truth, known) of a condition; `leaves` collects each leaf test's (truth, known) in order.
 
-    `masked` maps a measure to the rows where its tests are taken as unknown (a cap keeps
-    that measure from contributing there), so a condition still known true does not rest on it.
+    `masked` maps a measure to the rows where its limit tests are taken as unknown (a cap keeps
+    that measure's values from contributing there), so a condition still known true does not
+    rest on them; a `missing:` test reads no value and stays as it is.
     """
     if condition.parts:
         return COMBINED_TRUTH[condition.kind]([condition_truth(p, columns, leaves, masked) for p in condition.parts])
     truth, known = LEAF_TRUTH[condition.kind](condition, columns)
     if leaves is not None:
         leaves.append((truth, known))
-    hidden = masked.get(getattr(condition, "measure", None)) if masked else None
+    hidden = masked.get(condition.measure) if masked and condition.kind == "measure" else None
     if hidden is not None:
         truth, known = truth & ~hidden, known & ~hidden
     return truth, known

@@ -75,6 +75,15 @@ def test_a_rule_reading_no_capped_measure_is_untouched(ruleset):
     assert result.grade == "alert"
 
 
+def test_a_missing_test_reads_no_value_and_is_not_capped(ruleset):
+    # no FTIR reading and an acid rise of 0.17 (the cap's 0.2 exception does not hold): the
+    # rule rests on the reading's absence, which an ester's carbonyl cannot inflate
+    result = _one(ruleset, water=100, an=0.25)
+    assert _fired(result)["acidic-without-ftir"] == ("alert", None, None)
+    assert "ester-carbonyl" in [c.caveat for c in result.caveats]  # beside few-rules-evaluated: no FTIR
+    assert result.grade == "alert"
+
+
 def test_two_caps_each_hold_their_own_measure(ruleset):
     # lab B caps water at alert, the ester cap holds carbonyl at watch: an `any` fired by both
     # can give what its water may give (alert) and no more

@@ -220,9 +220,9 @@ def measure_truth(sample, measure, test, limit) -> bool | None:
 
 
 def truth(condition, sample, masked=frozenset()) -> bool | None:
-    """True, False, or None for unknown (Kleene logic); tests of `masked` measures are unknown."""
+    """True, False, or None for unknown (Kleene logic); limit tests of `masked` measures are unknown."""
     numbers, texts = sample["numbers"], sample["texts"]
-    if isinstance(condition, (MeasureTest, MissingTest)) and condition.measure in masked:
+    if isinstance(condition, MeasureTest) and condition.measure in masked:
         return None
     if isinstance(condition, MeasureTest):
         return measure_truth(sample, condition.measure, condition.test, condition.limit)
