@@ -22,6 +22,7 @@ PROBLEM_CODES = {
     "Y009": "a loading limit crossed: file size, line length, nesting depth or values after aliases",
     "Y010": "a recursive alias",
     "Y011": "a byte that is not UTF-8",
+    "Y012": "a number not written in plain decimal (0200, 0x1F, 1:30), which YAML 1.1 reads otherwise",
     "S000": "the rule set breaks its schema in another way",
     "S001": "unknown key",
     "S002": "a required key is missing",
