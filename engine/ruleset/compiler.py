@@ -131,7 +131,8 @@ class _Compiler:
             lubricant_origins={code: self._origin(entries[-1]) for code, entries in r.lubricants.items()},
             noise_margins=margins,
         )
-        if self.problems:
+        self._check_replacements()
+        if any(p.severity == "error" for p in self.problems):
             return ruleset
         canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
         digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
@@ -178,6 +179,37 @@ class _Compiler:
         family = UNIT_FAMILY[key]
         unit = placed.units.get(key)
         return factor_to_canonical(family, unit) if unit else 1.0
+
+    def _top_grade(self, data: dict) -> int | None:
+        """The highest ladder level a rule as written can give (None when it names no known grade)."""
+        if "grade" in data:
+            written = [data["grade"]]
+        else:
+            written = [grade for key in (*_LADDER_TESTS, "iso4406") if isinstance(data.get(key), dict)
+                       for grade in data[key]]
+        levels = [self.grades.index(g) for g in written if g in self.grades]
+        return max(levels) if levels else None
+
+    def _check_replacements(self) -> None:
+        """A rule that replaces an inherited one of the same id and gives less than it could: a
+        warning, since a child restating one limit (`above: {watch: 100}`) silently loses the
+        parent's higher grades for that measure."""
+        in_force = {id(p) for p in self.r.rules.values()} | {id(p) for rules in self.r.classes.values()
+                                                               for p in rules.values()}
+        for new, old in self.r.replaced:
+            if id(new) not in in_force:
+                continue
+            now, before = self._top_grade(new.data), self._top_grade(old.data)
+            if now is None or before is None or now >= before:
+                continue
+            mark = old.doc.mark(old.path)
+            self.problems.append(new.problem(
+                f"rule '{new.data['id']}' replaces the rule of the same id at {old.doc.file}:{mark.line}, which "
+                f"could give {self.grades[before]}; this one gives at most {self.grades[now]}, so a sample that "
+                f"rule graded {self.grades[before]} is now {self.grades[now]} at most", ("id",), code="W016",
+                severity="warning",
+                hint=f"a rule replaces its parent's whole: restate every grade you keep "
+                     f"(up to {self.grades[before]}), or give the new limit another id to add to the parent's"))
 
     def _check_declared_unit(self, placed: Placed, measure: str) -> None:
         """A limit on a declared measure is written in the unit its own file (or that file's parents)

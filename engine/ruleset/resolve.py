@@ -51,6 +51,8 @@ class Resolved:
     # file -> {declared measure: its unit} as that file and its parents declare it: the unit
     # the file's own limits on the measure are written in
     declared_units: dict = field(default_factory=dict)
+    # (rule, the inherited rule of the same id it replaces), for the compiler's W016
+    replaced: list = field(default_factory=list)
     noise_margins: dict = field(default_factory=dict)
     fields: dict = field(default_factory=dict)
     examples: list = field(default_factory=list)
@@ -173,6 +175,7 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     merged.class_places.update(parent.class_places)
     merged.rules.update(parent.rules)
     merged.caveats.update(parent.caveats)
+    merged.replaced.extend(pair for pair in parent.replaced if not any(pair[0] is p[0] for p in merged.replaced))
     merged.files.extend(f for f in parent.files if f not in merged.files)
 
 
@@ -220,7 +223,9 @@ def _add_own(merged: Resolved, doc: YamlDocument, data: dict, skipped: set, prob
             merged.fields[name] = Placed(name, doc, ("fields", i))
 
     _ClassBuilder(merged, doc, data.get("classes", {}), skipped, problems).build_all()
-    merged.rules.update(_by_id(data.get("rules", []), doc, ("rules",), problems, "rule", skipped))
+    own_rules = _by_id(data.get("rules", []), doc, ("rules",), problems, "rule", skipped)
+    merged.replaced.extend((rule, merged.rules[ident]) for ident, rule in own_rules.items() if ident in merged.rules)
+    merged.rules.update(own_rules)
     merged.caveats.update(_by_id(data.get("caveats", []), doc, ("caveats",), problems, "caveat", skipped))
     merged.examples = [Placed(item, doc, ("examples", i)) for i, item in enumerate(data.get("examples", []))
                        if ("examples", i) not in skipped]
@@ -294,5 +299,6 @@ class _ClassBuilder:
                                                  f"drop names rule '{dropped}', but neither {gives}an extended rule "
                                                  f"set gives class '{name}' a rule with that id", code="R006"))
         own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), self.problems, "rule", self.skipped)
+        self.merged.replaced.extend((rule, target[ident]) for ident, rule in own.items() if ident in target)
         target.update(own)
         self.merged.classes[name] = target

@@ -76,6 +76,7 @@ PROBLEM_CODES = {
     "W013": "two rule sets share id and version but differ",
     "W014": "a rule on a measure built on FTIR oxidation that an ester cap does not cover",
     "W015": "a caveat that names ester base stocks one by one instead of their family",
+    "W016": "a rule that replaces an inherited one of the same id and gives a lower top grade than it did",
     "M001": "the column map is not a mapping",
     "M002": "a column map entry that is not a column name",
     "M003": "a unit the measure cannot take",
