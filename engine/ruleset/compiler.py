@@ -131,7 +131,7 @@ class _Compiler:
             lubricant_origins={code: self._origin(entries[-1]) for code, entries in r.lubricants.items()},
             noise_margins=margins,
         )
-        self._check_replacements()
+        self._check_overrides()
         if any(p.severity == "error" for p in self.problems):
             return ruleset
         canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
@@ -190,10 +190,18 @@ class _Compiler:
         levels = [self.grades.index(g) for g in written if g in self.grades]
         return max(levels) if levels else None
 
-    def _check_replacements(self) -> None:
-        """A rule that replaces an inherited one of the same id and gives less than it could: a
-        warning, since a child restating one limit (`above: {watch: 100}`) silently loses the
-        parent's higher grades for that measure."""
+    def _check_overrides(self) -> None:
+        """Warnings where an override by id quietly takes a grade away: a top-level rule every class
+        overrides with its own rule of that id (it applies nowhere), and a rule that replaces an
+        inherited one and gives less than it could (a child restating one limit, `above: {watch:
+        100}`, loses the parent's higher grades for that measure)."""
+        for ident, placed in self.r.rules.items():
+            owners = [name for name, rules in self.r.classes.items() if ident in rules]
+            if owners and len(owners) == len(self.r.classes):
+                self.problems.append(placed.problem(
+                    f"top-level rule '{ident}' applies to no class: every class ({', '.join(sorted(owners))}) has its "
+                    f"own rule '{ident}', which wins over it", ("id",), code="W002", severity="warning",
+                    hint=f"to change '{ident}' for a class, write it under that class (same id)"))
         in_force = {id(p) for p in self.r.rules.values()} | {id(p) for rules in self.r.classes.values()
                                                                for p in rules.values()}
         for new, old in self.r.replaced:

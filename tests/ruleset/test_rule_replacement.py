@@ -37,3 +37,13 @@ def test_a_replacement_that_keeps_the_top_grade_says_nothing(tmp_path):
                     "      - id: water\n        measure: water\n        above: {watch: 100, alert: 300, urgent: 800}\n"
                     "        message: Water\n        source: site practice\n", encoding="utf-8")
     assert [p for p in check_ruleset(path).problems if p.code == "W016"] == []
+
+
+def test_a_top_level_rule_every_class_overrides_is_a_warning():
+    # the site's 100 ppm watch never applies: 150 ppm stays normal under the shipped 200 ppm rule
+    checked = check_ruleset(FOUND / "top-level-water.yaml")
+    found = [(p.file.rsplit("/", 1)[-1], p.line, p.severity) for p in checked.problems
+             if p.code == "W002" and "top-level" in p.message]
+    assert found == [("top-level-water.yaml", 8, "warning")]
+    rows = pd.DataFrame([{"sample_id": "H-3", "unit_id": "HPU-2", "class": "hydraulic", "water": 150}])
+    assert grade(rows, checked.ruleset).result(0).grade == "normal"
