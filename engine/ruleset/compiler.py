@@ -207,6 +207,18 @@ class _Compiler:
         for new, old in self.r.replaced:
             if id(new) not in in_force:
                 continue
+            # the class it was written in changes it; a class built on that one keeps the old rule (a class
+            # that overrides a rule it took from its base is not such a change: the base keeps its own)
+            written_in = old.path[1] if old.path[0] == "classes" else None
+            holders = sorted(name for name, rules in self.r.classes.items()
+                             if name != written_in and any(p is old for p in rules.values()))
+            if holders and new.path[:2] == ("classes", written_in):
+                mark = old.doc.mark(old.path)
+                self.problems.append(new.problem(
+                    f"rule '{new.data['id']}' replaces the rule of the same id at {old.doc.file}:{mark.line}, but "
+                    f"class {', '.join(repr(h) for h in holders)} still grades with that one (a class that extends "
+                    f"another takes its rules as they were when it was declared)", ("id",), code="W017",
+                    severity="warning", hint=f"write the rule under {', '.join(holders)} too, if it is meant there"))
             now, before = self._top_grade(new.data), self._top_grade(old.data)
             if now is None or before is None or now >= before:
                 continue

@@ -77,6 +77,7 @@ PROBLEM_CODES = {
     "W014": "a rule on a measure built on FTIR oxidation that an ester cap does not cover",
     "W015": "a caveat that names ester base stocks one by one instead of their family",
     "W016": "a rule that replaces an inherited one of the same id and gives a lower top grade than it did",
+    "W017": "a rule replaced in one class that a class built on it still grades with",
     "M001": "the column map is not a mapping",
     "M002": "a column map entry that is not a column name",
     "M003": "a unit the measure cannot take",

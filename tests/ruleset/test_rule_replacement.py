@@ -47,3 +47,32 @@ def test_a_top_level_rule_every_class_overrides_is_a_warning():
     assert found == [("top-level-water.yaml", 8, "warning")]
     rows = pd.DataFrame([{"sample_id": "H-3", "unit_id": "HPU-2", "class": "hydraulic", "water": 150}])
     assert grade(rows, checked.ruleset).result(0).grade == "normal"
+
+
+def test_a_class_built_on_a_changed_class_keeps_the_old_rule_and_check_says_so():
+    # pump extends hydraulic in the parent; the child tightens hydraulic's water only, so 150 ppm
+    # is watch on a hydraulic unit and normal on a pump
+    checked = check_ruleset(FOUND / "class-base-child.yaml")
+    found = [(p.file.rsplit("/", 1)[-1], p.line, p.severity, "'pump'" in p.message) for p in checked.problems
+             if p.code == "W017"]
+    assert found == [("class-base-child.yaml", 9, "warning", True)]
+    rows = pd.DataFrame([{"sample_id": f"W-{c}", "unit_id": c, "class": c, "water": 150}
+                         for c in ("hydraulic", "pump")])
+    assert [r.grade for r in grade(rows, checked.ruleset).results()] == ["watch", "normal"]
+
+
+def test_a_class_overriding_a_rule_it_took_from_its_base_says_nothing(tmp_path):
+    # as in the language reference's parent/site example: pump replaces hydraulic's water for
+    # pumps only, and hydraulic keeps its own
+    (tmp_path / "parent.yaml").write_text((FOUND / "class-base-parent.yaml").read_text(encoding="utf-8"),
+                                          encoding="utf-8")
+    site = tmp_path / "site.yaml"
+    site.write_text("ruleset: site\nversion: 1\nextends: parent.yaml\nclasses:\n  pump:\n    extends: hydraulic\n"
+                    "    rules:\n      - id: water\n        measure: water\n"
+                    "        above: {watch: 100, alert: 300, urgent: 1000}\n        message: Water in a pump\n"
+                    "        source: site practice\n", encoding="utf-8")
+    checked = check_ruleset(site)
+    assert [p for p in checked.problems if p.code in ("W016", "W017")] == []
+    rows = pd.DataFrame([{"sample_id": f"W-{c}", "unit_id": c, "class": c, "water": 150}
+                         for c in ("hydraulic", "pump")])
+    assert [r.grade for r in grade(rows, checked.ruleset).results()] == ["normal", "watch"]
