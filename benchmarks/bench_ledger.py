@@ -176,6 +176,13 @@ def sqlite_floor(source: Path, target: Path) -> tuple[tuple[float, float], tuple
         tables = {name: conn.execute(f"SELECT {', '.join(SAMPLE_COLUMNS) if name == 'samples' else '*'} "
                                      f"FROM {name}").fetchall() for name in TABLES}
     read = time.perf_counter() - started[0], time.process_time() - started[1]
+    for name, rows in tables.items():
+        names = ""
+        if name == "samples" and rows:  # as the import binds them: a column NULL in every row is left out
+            kept = [k for k, column in enumerate(zip(*rows)) if column.count(None) < len(rows)]
+            rows = [tuple(row[k] for k in kept) for row in rows]
+            names = f" ({', '.join(SAMPLE_COLUMNS[k] for k in kept)})"
+        tables[name] = names, rows
     conn = open_ledger(target, building=True)  # a new ledger's settings: built aside, no journal
     started = clock()
     begin(conn)
@@ -183,9 +190,8 @@ def sqlite_floor(source: Path, target: Path) -> tuple[tuple[float, float], tuple
                            "AND sql IS NOT NULL").fetchall()
     for name, _ in indexes:
         conn.execute(f"DROP INDEX {name}")
-    for name, rows in tables.items():
+    for name, (names, rows) in tables.items():
         if rows:
-            names = f" ({', '.join(SAMPLE_COLUMNS)})" if name == "samples" else ""
             conn.executemany(f"INSERT INTO {name}{names} VALUES ({', '.join('?' * len(rows[0]))})", rows)
     for _, sql in indexes:
         conn.execute(sql)

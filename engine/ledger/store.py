@@ -726,10 +726,19 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     shape_of = shapes[facts.shape_of[rows]]
     written = [entries, *typed, values, corrects[rows].tolist(), facts.grades[rows].tolist(), levels.tolist(),
                shape_of.tolist(), facts.values[rows].tolist()]  # DIGEST_3_SAMPLE_COLUMNS, as lists (one bind each)
+    # The sqlite3 module binds None through its adapter lookup (about 1 s a million values): a
+    # column this batch leaves empty in every row is left out of the insert (NULL), and
+    # `corrects`, empty but in corrections, is set afterwards on the corrected rows only.
+    bound = [(name, column) for name, column in zip(DIGEST_3_SAMPLE_COLUMNS, written)
+             if name == "entry" or (name != "corrects" and column.count(None) < len(column))]
+    names = ", ".join(name for name, _ in bound)
     with _indexes_built_after(conn, len(rows) >= max(BULK_ROWS, first - 1)):
-        conn.executemany("INSERT INTO samples (entry, sample_id, unit_id, class, sampled_on, oil_hours, oil_changed, "
-                         "method, lab, content, corrects, grade, level, shape, vals, content_sha256, batch) "
-                         f"VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, '', {int(number)})", zip(*written))
+        conn.executemany(f"INSERT INTO samples ({names}, content_sha256, batch) "
+                         f"VALUES ({', '.join('?' * len(bound))}, '', {int(number)})",
+                         zip(*(column for _, column in bound)))
+        fixing = np.flatnonzero(differs[rows])
+        conn.executemany("UPDATE samples SET corrects = ? WHERE entry = ?",
+                         zip(corrects[rows[fixing]].tolist(), (first + fixing).tolist()))
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
     # The digest of the rows just written, as SQLite gives them back (replay reads them back).

@@ -3,7 +3,9 @@
 CSV suits spreadsheets and simple pipelines; the full reason records are in JSON Lines.
 `file` and `row` say where each sample was read (as the rejects file says it); `fired`
 lists rule=grade (with <capped-from where a caveat lowered it), highest grade first;
-`not_evaluated` lists rule(missing,...). Built column-wise like the JSON Lines
+`not_evaluated` lists rule(missing,...), a censored input that did not decide the rule
+as name=reading as written (`water(water=<500)`: present, but not below or above the limit,
+where a bare `water(water)` means no value). Built column-wise like the JSON Lines
 writer: each rule's text once per state, joined over the rows.
 """
 
@@ -16,7 +18,7 @@ from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.render.jsonl import states
 from sumpwise.render.safe_text import spreadsheet_frame
-from sumpwise.results.records import UNRATED, GradedBatch, gap_at, record_shape_groups, rule_inputs
+from sumpwise.results.records import UNRATED, GradedBatch, gap_at, gap_states, record_shape_groups
 
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "file", "row", "grade", "level", "fired", "caveats",
            "not_evaluated", "unrated_because", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
@@ -52,21 +54,27 @@ def _fired(batch: GradedBatch) -> np.ndarray:
 
 
 def _gaps(batch: GradedBatch) -> np.ndarray:
-    out, measured = batch.outcome, batch.measured
+    out = batch.outcome
     parts = []
     for j, slot in enumerate(out.slots):
         mask = out.final[:, j] == NOT_EVALUATED
         if not mask.any():
             continue
         rows = np.flatnonzero(mask)
-        names = [name for name in rule_inputs(slot.rule) if name in measured.columns]
-        columns = [measured[name].isna().to_numpy()[rows] for name in names] or [np.zeros(len(rows), bool)]
-        first, state = states(columns)
-        table = []
-        for rep in rows[first]:
+        first, state = states(gap_states(batch, j, rows))
+        text = np.empty(len(rows), dtype=object)
+        for s, rep in enumerate(rows[first]):
             gap = gap_at(batch, int(rep), j)
-            table.append(f"{gap.rule}({','.join(gap.missing)})")
-        parts.append((mask, np.array(table, dtype=object)[state]))
+            undecided = dict(gap.undecided)
+            members = state == s
+            # a censored reading differs row by row within a state: each row's own, as written
+            pieces = [f"{name}=" + batch.columns.written(name)[rows[members]].astype(object) if name in undecided
+                      else name for name in gap.missing]
+            joined = pieces[0]
+            for piece in pieces[1:]:
+                joined = joined + "," + piece
+            text[members] = f"{gap.rule}(" + np.asarray(joined, dtype=object) + ")"
+        parts.append((mask, text))
     return join_parts(len(batch), parts, ";")
 
 

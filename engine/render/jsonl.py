@@ -23,7 +23,7 @@ import pandas as pd
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.results.facts import distinct_rows
 from sumpwise.results.records import (FORMS, FULL, UNRATED, ColumnArrays, GradedBatch, build_result,
-                                      caveat_at, condition_inputs, gap_at, reason_at, record_shape_groups, rule_inputs)
+                                      caveat_at, condition_inputs, gap_at, gap_states, reason_at, record_shape_groups)
 
 JOINED_ROWS = 8192  # lines joined into one bytes object: about 10 MB of full records
 
@@ -352,13 +352,8 @@ class _Writer:
                        lambda found: base + (top - found[0]) * rules + j)  # found[0]: the final level
 
     def _gaps(self, block: _Block, j: int, local: np.ndarray) -> None:
-        measured = self.batch.measured
-        names = [n for n in rule_inputs(self.out.slots[j].rule) if n in measured.columns]
-        rows = block.rows[local]
-        columns = [self._missing(n)[rows] for n in names] or [np.zeros(len(rows), dtype=bool)]
-        columns += [measured[n + ":written"].notna().to_numpy()[rows] for n in names  # censored, undecided
-                    if n + ":written" in measured.columns]
-        self._by_state(block, local, ("gap", j), columns, lambda rep, values: gap_at(self.batch, rep, j, values),
+        self._by_state(block, local, ("gap", j), gap_states(self.batch, j, block.rows[local]),
+                       lambda rep, values: gap_at(self.batch, rep, j, values),
                        lambda found: self.list_slots["gaps"].start + j)
 
     def _caveats(self, block: _Block, k: int, local: np.ndarray) -> None:

@@ -59,6 +59,9 @@ def _why(result) -> str:
         why = result.unrated_because
     else:
         why = "no limit crossed"
+    undecided = [gap.rule for gap in result.not_evaluated if gap.undecided]
+    if undecided:  # a censored reading that may lie on either side of a limit: the grade may be too mild
+        why += " | undecided: " + ", ".join(undecided)
     if result.caveats:  # what may make the grade too mild first, so a cut line still shows it
         names = sorted((c.caveat for c in result.caveats), key=lambda name: name not in FIRST_CAVEATS)
         why += " | caveat: " + ", ".join(names)

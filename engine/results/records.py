@@ -444,6 +444,16 @@ def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
     return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]), undecided)
 
 
+def gap_states(batch: GradedBatch, j: int, rows: np.ndarray) -> list[np.ndarray]:
+    """What decides the shape of gap_at's record for rule slot j at these rows (rows of one
+    state share it): each input missing or not, and each censored input's spelling present
+    or not (`<50` that did not decide the rule, against a cell that was empty)."""
+    names = rule_inputs(batch.outcome.slots[j].rule)
+    columns = [batch.columns.missing(name)[rows] for name in names]
+    columns += [pd.notna(written[rows]) for name in names if (written := batch.columns.written(name)) is not None]
+    return columns or [np.zeros(len(rows), dtype=bool)]
+
+
 def reason_at(batch: GradedBatch, i: int, j: int, values) -> Reason:
     """Why rule slot j fired for row i (its final level is above 0)."""
     rs, out = batch.ruleset, batch.outcome
@@ -571,6 +581,9 @@ def record_shape_groups(batch: GradedBatch, rows: np.ndarray) -> tuple[np.ndarra
         if name not in measured.columns:
             continue
         leaf_columns.append(measured[name].isna().to_numpy()[rows].astype(np.int8))
+        written = batch.columns.written(name)  # a censored reading that left a rule undecided, or none
+        if written is not None:
+            leaf_columns.append(pd.notna(written[rows]).astype(np.int8))
     if leaf_columns:
         parts.append(np.stack(leaf_columns, axis=1))
     matrix = np.ascontiguousarray(np.concatenate(parts, axis=1).astype(np.int8))

@@ -37,5 +37,26 @@ def test_csv_agrees_with_every_record_on_random_samples():
         assert row.fired == ";".join(f"{r.rule}={r.grade}" + (f"<{r.capped_from}" if r.capped_from else "")
                                      for r in result.reasons)
         assert row.caveats == ";".join(c.caveat for c in result.caveats)
-        assert row.not_evaluated == ";".join(f"{n.rule}({','.join(n.missing)})" for n in result.not_evaluated)
+        assert row.not_evaluated == ";".join(
+            f"{n.rule}({','.join(f'{m}={dict(n.undecided)[m]}' if m in dict(n.undecided) else m for m in n.missing)})"
+            for n in result.not_evaluated)
         assert row.unrated_because == (result.unrated_because or "")
+
+
+def test_a_censored_reading_that_decides_nothing_is_told_apart_from_no_value():
+    # Water `<500` ppm against the Brackwater steam-turbine ladder (watch 100, alert 300): the
+    # reading may be anywhere below 500, so the rule is not evaluated, and the CSV says which
+    # reading left it open; an empty cell is a missing value (ISO 80000-1 sense of `<`: below).
+    from conftest import ROOT
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation\n"
+            "C-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,<500,46,0.1,2\n"
+            "C-2,ST-8,steam-turbine,TURB-46-M,2026-03-02,,46,0.1,2\n"
+            "C-3,ST-7,steam-turbine,TURB-46-M,2026-03-02,<50,46,0.1,2\n")
+    graded = grade(read_samples(io.StringIO(text), "cens.csv"),
+                   load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml"))
+    out = io.StringIO()
+    write_csv(graded, out)
+    gaps = {row["sample_id"]: row["not_evaluated"].split(";") for row in csv.DictReader(io.StringIO(out.getvalue()))}
+    assert "water(water=<500)" in gaps["C-1"]
+    assert "water(water)" in gaps["C-2"]
+    assert not any(gap.startswith("water(") for gap in gaps["C-3"])  # below 50 decides it: below watch

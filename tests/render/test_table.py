@@ -130,3 +130,16 @@ def test_each_next_step_is_in_the_table_in_full_with_its_samples():
     asked = {step_phrase(x.next_step.task, x.next_step.within_days) for r in graded.results()
              for x in r.reasons + r.caveats if x.next_step is not None}
     assert len(asked) >= 3 and all(" ".join(step.split()) + ":" in joined for step in asked)
+
+
+def test_a_censored_reading_that_leaves_a_rule_undecided_is_named_on_its_line():
+    # Water `<500` ppm against the site's steam-turbine ladder (watch 100): the reading may be
+    # above the watch limit or below it, so "no limit crossed" alone would read as a clean sample.
+    # The row with no water value comes first, so a shared line would lose the note.
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation\n"
+            "C-2,ST-8,steam-turbine,TURB-46-M,2026-03-02,,46,0.1,2\n"
+            "C-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,<500,46,0.1,2\n")
+    lines = table_lines(grade(read_samples(io.StringIO(text), "cens.csv"), load_ruleset(SITE)))
+    by_id = {line.split()[0]: line for line in lines if line.startswith("C-")}
+    assert "no limit crossed | undecided: water" in by_id["C-1"]
+    assert "undecided" not in by_id["C-2"]
