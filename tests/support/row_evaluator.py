@@ -22,6 +22,7 @@ from sumpwise.derive.viscosity import viscosity_index
 
 _FROM_ZERO = {"an", "bn", "water", "oil_hours", "rpvot"}
 _ABOVE_ZERO = {"kv40", "kv100"}
+_AT_MOST = {"water": 1_000_000.0}  # ppm: water is at most the whole sample
 _CENSORED = re.compile(r"^(<=|>=|<|>)\s*([0-9.eE+-]+)$")
 
 
@@ -52,7 +53,7 @@ def _censored(name, value):
     floor = 0.0 if name in _FROM_ZERO | _ABOVE_ZERO else -math.inf
     if sign.startswith("<"):
         return Interval(floor, bound, name in _FROM_ZERO, sign == "<=")
-    return Interval(bound, math.inf, sign == ">=", False)
+    return Interval(bound, _AT_MOST.get(name, math.inf), sign == ">=", name in _AT_MOST)
 
 
 def _map(interval, f, rising=True):
