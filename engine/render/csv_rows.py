@@ -5,7 +5,8 @@ CSV suits spreadsheets and simple pipelines; the full reason records are in JSON
 lists rule=grade (with <capped-from where a caveat lowered it), highest grade first;
 `not_evaluated` lists rule(missing,...), a censored input that did not decide the rule
 as name=reading as written (`water(water=<500)`: present, but not below or above the limit,
-where a bare `water(water)` means no value). Built column-wise like the JSON Lines
+where a bare `water(water)` means no value); `next_steps` the rule set's steps for what
+applies, each once, as the table words them. Built column-wise like the JSON Lines
 writer: each rule's text once per state, joined over the rows.
 """
 
@@ -17,11 +18,12 @@ import pandas as pd
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.render.jsonl import states
+from sumpwise.render.narrative import step_phrases
 from sumpwise.render.safe_text import spreadsheet_frame
 from sumpwise.results.records import UNRATED, GradedBatch, gap_at, gap_states, record_shape_groups
 
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "file", "row", "grade", "level", "fired", "caveats",
-           "not_evaluated", "unrated_because", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
+           "not_evaluated", "unrated_because", "next_steps", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
 
 
 def join_parts(n: int, parts, sep: str = ", ") -> np.ndarray:
@@ -97,6 +99,16 @@ def _unrated(batch: GradedBatch) -> np.ndarray:
     return text
 
 
+def _next_steps(batch: GradedBatch) -> np.ndarray:
+    """What the rule set says to do, from the rules and caveats that apply, each step once: the
+    same for every row of a record shape, so worded once a shape."""
+    representatives, group_of, _ = record_shape_groups(batch, np.arange(len(batch)))
+    table = []
+    for rep in representatives:
+        table.append("; ".join(step_phrases(batch.result(int(rep)))))
+    return np.array(table, dtype=object)[group_of] if len(batch) else np.empty(0, dtype=object)
+
+
 def csv_frame(batch: GradedBatch) -> pd.DataFrame:
     """The CSV table as a DataFrame."""
     n = len(batch)
@@ -114,6 +126,7 @@ def csv_frame(batch: GradedBatch) -> pd.DataFrame:
     frame["caveats"] = _caveats(batch)
     frame["not_evaluated"] = _gaps(batch)
     frame["unrated_because"] = _unrated(batch)
+    frame["next_steps"] = _next_steps(batch)
     frame["ruleset"] = rs.id
     frame["ruleset_version"] = str(rs.version)
     frame["ruleset_sha256"] = rs.sha256

@@ -46,6 +46,12 @@ def step_phrase(task: str, within_days: int | None) -> str:
     return f"{task} (within {within_days} day{'s' if within_days != 1 else ''} of sampling)"
 
 
+def step_phrases(result) -> list[str]:
+    """A result's next steps in words, each once, in the order its reasons and caveats ask them."""
+    steps = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
+    return list(dict.fromkeys(step_phrase(s.task, s.within_days) for s in steps))
+
+
 def _limit_phrase(test: str, limit, unit: str | None) -> str:
     return limit_phrase(test, limit, _number, unit)
 

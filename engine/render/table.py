@@ -19,7 +19,7 @@ import pandas as pd
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.version import engine_name
 from sumpwise.results.records import UNRATED, GradedBatch, record_shape_groups
-from sumpwise.render.narrative import step_phrase
+from sumpwise.render.narrative import step_phrases
 from sumpwise.render.safe_text import terminal_column, terminal_text
 
 WIDTH = 100
@@ -65,9 +65,9 @@ def _why(result) -> str:
     if result.caveats:  # what may make the grade too mild first, so a cut line still shows it
         names = sorted((c.caveat for c in result.caveats), key=lambda name: name not in FIRST_CAVEATS)
         why += " | caveat: " + ", ".join(names)
-    steps = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
+    steps = step_phrases(result)
     if steps:
-        why += " | next: " + "; ".join(dict.fromkeys(step_phrase(s.task, s.within_days) for s in steps))
+        why += " | next: " + "; ".join(steps)
     return why
 
 
@@ -135,9 +135,7 @@ def next_step_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
     firsts, group, _ = record_shape_groups(batch, np.arange(len(batch)))
     asked: dict[str, list] = {}
     for shape, first in enumerate(firsts):  # one record per shape, not per row
-        result = batch.result(int(first))
-        steps = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
-        for step in dict.fromkeys(step_phrase(s.task, s.within_days) for s in steps):
+        for step in step_phrases(batch.result(int(first))):
             asked.setdefault(step, []).append(shape)
     if not asked:
         return []

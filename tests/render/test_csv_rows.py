@@ -41,6 +41,10 @@ def test_csv_agrees_with_every_record_on_random_samples():
             f"{n.rule}({','.join(f'{m}={dict(n.undecided)[m]}' if m in dict(n.undecided) else m for m in n.missing)})"
             for n in result.not_evaluated)
         assert row.unrated_because == (result.unrated_because or "")
+        asked = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
+        assert row.next_steps == "; ".join(dict.fromkeys(
+            x.task + (f" (within {x.within_days} day{'s' * (x.within_days != 1)} of sampling)"
+                      if x.within_days is not None else "") for x in asked))
 
 
 def test_a_censored_reading_that_decides_nothing_is_told_apart_from_no_value():
@@ -60,3 +64,19 @@ def test_a_censored_reading_that_decides_nothing_is_told_apart_from_no_value():
     assert "water(water=<500)" in gaps["C-1"]
     assert "water(water)" in gaps["C-2"]
     assert not any(gap.startswith("water(") for gap in gaps["C-3"])  # below 50 decides it: below watch
+
+
+def test_next_steps_are_the_rule_sets_own_for_what_applies():
+    # Brackwater's steam-turbine water rule asks a cooler pressure test within 7 days; 150 ppm
+    # fires it at watch (the site's example in site.yaml), 40 ppm does not.
+    from conftest import ROOT
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation\n"
+            "W-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,150,46,0.1,2\n"
+            "W-2,ST-8,steam-turbine,TURB-46-M,2026-03-02,40,46,0.1,2\n")
+    graded = grade(read_samples(io.StringIO(text), "water.csv"),
+                   load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml"))
+    out = io.StringIO()
+    write_csv(graded, out)
+    steps = {row["sample_id"]: row["next_steps"] for row in csv.DictReader(io.StringIO(out.getvalue()))}
+    assert steps == {"W-1": "Resample, and pressure-test the seawater-cooled lube oil cooler for a tube leak "
+                            "(within 7 days of sampling)", "W-2": ""}
