@@ -217,7 +217,7 @@ def _capped_condition(rule, column: np.ndarray, caps: list, measured: pd.DataFra
     A cap limits what its measures can contribute, not what the rule gives for other reasons
     (`any: [water above 1000, oxidation_rise above 30]` fired by its water alone is not an
     oxidation finding). The rule keeps the highest level l, its own or a cap's below it, at
-    which it is still known true with the tests of every measure capped below l taken as
+    which it is still known true with the limit tests of every measure capped below l taken as
     unknown; at the lowest cap's level nothing is masked, so a fired rule always has one.
     """
     out = column.copy()
