@@ -335,3 +335,57 @@ def coverage_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -
         few[most & (gaps == pair[0]) & (applicable == pair[1])] = (
             f"{pair[0]} of the {pair[1]} rules of its class could not be evaluated; the grade rests on the rest")
     return {"unknown_class_note": unknown, "few_rules_note": few}
+
+
+# A censored reading may leave a limit above the sample's grade undecided (water `>500` ppm
+# against an urgent limit of 1000, or `<500` against a watch limit of 100): the grade is then
+# the least the sample can have, and whoever triages by grade must be told so.
+BOUND_CAVEATS = (
+    EngineCaveat("grade-may-be-higher", "grade_bound_note",
+                 "sumpwise engine: censored readings against the rule set's ladder limits"),
+)
+
+
+def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> dict:
+    """The bound caveat's per-row note: each ladder rule whose undecided step (after the caps in
+    force) lies above the sample's grade, with the reading as written; None elsewhere."""
+    n = len(measured)
+    notes = np.full(n, None, dtype=object)
+    for j, slot in enumerate(outcome.slots):
+        rule = slot.rule
+        if not isinstance(rule, LadderRule) or rule.measure + ":low" not in measured.columns:
+            continue
+        rows = np.flatnonzero(outcome.raw[:, j] != NOT_APPLICABLE)
+        columns = _Columns(measured, rows)
+        interval = columns.interval(rule.measure)
+        if interval is None:
+            continue
+        possible = np.full(len(rows), -1, dtype=np.int8)  # the highest step whose crossing is undecided
+        limit_of = {}
+        for level, limit in rule.steps:
+            _, known = _limit_truth(rule.measure, rule.test, limit, columns)
+            possible[~known & interval.censored] = level  # a missing value is a gap, not a bound
+            limit_of[level] = limit
+        for k, caveat in enumerate(ruleset.caveats):
+            if caveat.cap is not None and rule.reads & caveat.cap.measures:
+                capped = outcome.capping[rows, k] & (possible > caveat.cap.level)
+                possible[capped] = caveat.cap.level
+        higher = possible > outcome.level[rows]
+        if not higher.any():
+            continue
+        written = measured[rule.measure + ":written"].to_numpy(dtype=object)[rows] \
+            if rule.measure + ":written" in measured.columns else np.full(len(rows), None, dtype=object)
+        unit = ruleset.unit_of(rule.measure)
+        for level in np.unique(possible[higher]).tolist():
+            at = rows[higher & (possible == level)]
+            limit = limit_of[level]
+            shown = f"{limit:g}" if isinstance(limit, (int, float)) else str(limit)
+            reading = written[higher & (possible == level)].astype(str).astype(object)
+            as_written = np.array([w[:1] in "<>\u2264\u2265" for w in reading.tolist()], dtype=bool)
+            reading[as_written] = "written '" + reading[as_written] + "'"  # a derived one says its own source
+            text = (f"{rule.id}: {rule.measure} " + reading + f" may be {rule.test} its {ruleset.grades[level]} "
+                    f"limit ({shown}{' ' + unit if unit else ''})")
+            first = pd.isna(notes[at])
+            notes[at[first]] = text[first]
+            notes[at[~first]] = notes[at[~first]] + "; " + text[~first]
+    return {"grade_bound_note": notes}

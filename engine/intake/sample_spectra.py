@@ -31,6 +31,7 @@ from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import Reject, SampleBatch
+from sumpwise.intake.spectra.bands import load_bands
 from sumpwise.intake.spectra.batch import (SUBTRACTION, check_dilution, check_path_length, measure_spectra,
                                            read_spectrum)
 from sumpwise.intake.spectra.ester import detect_ester, resolve_base_stock
@@ -41,6 +42,14 @@ from sumpwise.vocabulary.units import factor_to_canonical
 # absorbances, not ppm or percent, and oxidation_area is D7214's quantity, so they stay
 # out of the grading.
 GRADED_BANDS = ("oxidation", "nitration", "sulfation", "antiwear", "soot")
+
+# Only oxidation has a measure per convention (oxidation, oxidation_differential). The others
+# hold one convention, the direct reading on the used oil (soot is a direct-trend figure,
+# ASTM WK35480 scope; a row's `method` speaks for its oxidation only), so they are read
+# directly even when the row's oxidation is read by subtraction: a differential nitration
+# under the same name would be held to limits written for direct readings, and the grade
+# would change with whether a reference was given.
+DIRECT_ONLY_BANDS = ("nitration", "sulfation", "antiwear", "soot")
 
 # A differential carbonyl area this far below zero is not noise: the reference is not this
 # oil's new oil. Read on the area, since a peak height (a maximum) of a band that went
@@ -60,8 +69,10 @@ SPECTRUM_CAVEATS = (
                  "sumpwise engine: a band left empty (saturated, or outside the spectrum's range); saturation "
                  "threshold: common practice, no source (see the band file)"),
     EngineCaveat("reference-mismatch", "reference_mismatch_note",
-                 "sumpwise engine: a differential carbonyl area far below zero means the subtracted reference "
-                 "is not this oil's new oil; the -0.5 absorbance x cm-1 figure is our choice, no source"),
+                 "sumpwise engine: a differential carbonyl area far below zero, or a height above the saturation "
+                 "threshold at 0.1 mm, means the subtracted reference is not this oil's new oil at this cell and "
+                 "dilution; the -0.5 absorbance x cm-1 figure is our choice, no source, the threshold is the band "
+                 "file's"),
     EngineCaveat("ftir-other-convention", "ftir_convention_note",
                  "sumpwise engine: FTIR conventions (README, FTIR conventions): direct and differential "
                  "readings are never compared with each other's limits"),
@@ -197,14 +208,17 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     ok = np.zeros(len(rows), dtype=bool)
     why = np.full(len(rows), "", dtype=object)
     measured = {}
-    # one call per distinct fallback path length (usually one): the file's own ##PATH LENGTH= wins
+    # one call per distinct fallback path length (usually one): the file's own ##PATH LENGTH= wins.
+    # A row's path_length_mm is its sample's cell, not the reference's: a reference file without
+    # its own ##PATH LENGTH= is read at the run's path length, as its ester check is.
     fallback = np.where(np.isnan(paths_lengths), path_length_mm, paths_lengths)
     for length in pd.unique(fallback):
         pick = np.flatnonzero((fallback == length) & ~option_bad)
         if not pick.size:
             continue
         part, _ = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
-                                  dilutions=dilutions[pick], needed=GRADED_BANDS)
+                                  reference_path_length_mm=path_length_mm, dilutions=dilutions[pick],
+                                  needed=GRADED_BANDS, direct_bands=DIRECT_ONLY_BANDS)
         part.index = pick
         measured[float(length)] = part
         ok[pick] = part["rejection"].to_numpy() == ""
@@ -212,6 +226,11 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     table = pd.concat(measured.values()).sort_index() if measured else None
 
     good = np.flatnonzero(ok)
+    # A differential carbonyl above the band file's saturation threshold at 0.1 mm (1.5 absorbance,
+    # 150 abs/cm) is a gain no 0.1 mm cell could read: used oils gain 0.05-0.5 (common practice, no
+    # source). It comes from a reference of another oil, cell or dilution (a new ester diluted 1:4 like
+    # its samples but read as neat left three quarters of its carbonyl in: 150 abs/cm, urgent).
+    gain_limit = load_bands().saturation_absorbance * factor_to_canonical("absorbance", "abs/0.1mm")
     band_note = np.full(len(frame), None, dtype=object)
     mismatch = np.full(len(frame), None, dtype=object)
     if table is not None and good.size:
@@ -230,6 +249,13 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
                                 f"{r}: far below zero, so the reference does not match this oil; the oxidation "
                                 "rules are not evaluated" for a, r in zip(area[far], picked["reference"].to_numpy()[far])]
                 values = np.where(far, np.nan, values)
+                over = differential & ~far & (values > gain_limit)
+                at = np.flatnonzero(has)[good[over]]
+                mismatch[at] = [f"differential carbonyl {v:.0f} abs/cm against reference {r}: above {gain_limit:.0f} "
+                                "abs/cm, past the saturation threshold at 0.1 mm, so the reference does not match "
+                                "this oil, its cell or its dilution; the oxidation rules are not evaluated"
+                                for v, r in zip(values[over], picked["reference"].to_numpy()[over])]
+                values = np.where(over, np.nan, values)
             if column not in frame.columns:
                 frame[column] = np.nan
             frame[column] = frame[column].astype(float)

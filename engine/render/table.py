@@ -47,8 +47,9 @@ def wants_progress(stream, rows: int, min_rows: int = PROGRESS_MIN_ROWS) -> bool
     return stream is not None and rows > min_rows and callable(isatty) and bool(isatty())
 
 
-# Caveats meaning a sample was graded on less than it should be (the intake's no-silent-pass ones).
-FIRST_CAVEATS = ("unknown-lubricant", "unknown-class", "few-rules-evaluated")
+# Caveats meaning a sample was graded on less than it should be, or may deserve a higher grade
+# (the no-silent-pass ones).
+FIRST_CAVEATS = ("unknown-lubricant", "unknown-class", "few-rules-evaluated", "grade-may-be-higher")
 
 
 def _why(result) -> str:

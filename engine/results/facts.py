@@ -31,7 +31,7 @@ import pandas as pd
 
 from sumpwise.derive.row_measures import LUBRICANT_CAVEATS
 from sumpwise.derive.trends import TREND_CAVEATS
-from sumpwise.evaluation.evaluator import COVERAGE_CAVEATS
+from sumpwise.evaluation.evaluator import BOUND_CAVEATS, COVERAGE_CAVEATS
 from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS
 from sumpwise.results.records import (CaveatNote, Clause, GradedBatch, NotEvaluated, Reason, SampleResult, build_result,
@@ -39,7 +39,7 @@ from sumpwise.results.records import (CaveatNote, Clause, GradedBatch, NotEvalua
 from sumpwise.ruleset.model import RuleSet
 
 # Every caveat the engine raises itself, in the order a graded batch's caveat columns hold them.
-ENGINE_CAVEAT_ORDER = TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS
+ENGINE_CAVEAT_ORDER = TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS + BOUND_CAVEATS
 ENGINE_CAVEATS = {c.id: c for c in ENGINE_CAVEAT_ORDER}
 SLOT = "$"  # the key of a per-sample value's place in a shape
 

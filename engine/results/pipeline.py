@@ -7,17 +7,18 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from sumpwise.evaluation.evaluator import COVERAGE_CAVEATS, coverage_notes, evaluate
+from sumpwise.evaluation.evaluator import BOUND_CAVEATS, COVERAGE_CAVEATS, bound_notes, coverage_notes, evaluate
 from sumpwise.derive.row_measures import LUBRICANT_CAVEATS, derive_measures
 from sumpwise.vocabulary.measures import INPUT_MEASURES
+from sumpwise.results.facts import ENGINE_CAVEAT_ORDER
 from sumpwise.results.records import GradedBatch, recorded_derived
 from sumpwise.ruleset.model import RuleSet
 
 from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
-from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS, SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
+from sumpwise.intake.sample_spectra import SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
-from sumpwise.derive.trends import (CHAIN_COLUMNS, TREND_CAVEATS, add_trend_measures, date_keys, noise_margins,
+from sumpwise.derive.trends import (CHAIN_COLUMNS, add_trend_measures, date_keys, noise_margins,
                                     read_oil_changes, trend_bases, trend_caveat_flags)
 from sumpwise.vocabulary.problems import InputError
 
@@ -43,9 +44,10 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     measured = pd.concat([measured.drop(columns=[c for c in added if c in measured.columns]),
                           pd.DataFrame(added, index=measured.index)], axis=1)  # one insert, not many
     outcome = evaluate(ruleset, measured)
-    measured = pd.concat([measured, pd.DataFrame(coverage_notes(ruleset, measured, outcome), index=measured.index)],
-                         axis=1)
-    intake_flags = [measured[c.message_column].notna().to_numpy() for c in LUBRICANT_CAVEATS + COVERAGE_CAVEATS]
+    notes = {**coverage_notes(ruleset, measured, outcome), **bound_notes(ruleset, measured, outcome)}
+    measured = pd.concat([measured, pd.DataFrame(notes, index=measured.index)], axis=1)
+    engine_caveats = LUBRICANT_CAVEATS + COVERAGE_CAVEATS + BOUND_CAVEATS
+    intake_flags = [measured[c.message_column].notna().to_numpy() for c in engine_caveats]
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
                                                   spectrum_caveat_flags(measured),
                                                   np.stack(intake_flags, axis=1)]))
@@ -55,7 +57,7 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
         # values, so a record's shape does not depend on the other rows of its batch (replay re-grades subsets)
         carried += ("oxidation_differential",)
     return GradedBatch(ruleset, measured, outcome, batch.rejects, batch.rows_read, batch.source, carried,
-                       TREND_CAVEATS + SPECTRUM_CAVEATS + LUBRICANT_CAVEATS + COVERAGE_CAVEATS,
+                       ENGINE_CAVEAT_ORDER,
                        forecast(measured, ruleset) if forecasts else (), recorded_derived(ruleset, measured),
                        forecasts)
 

@@ -9,8 +9,7 @@ from __future__ import annotations
 
 import math
 
-from sumpwise.derive.trends import TREND_CAVEATS
-from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS
+from sumpwise.results.facts import ENGINE_CAVEAT_ORDER
 from sumpwise.ruleset.compiler import domain_words
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS, TEXT_TEST_WORDS
 from sumpwise.vocabulary.measures import READINGS, ROW_DERIVED, TREND_BASES
@@ -68,7 +67,7 @@ def units() -> str:
 
 def caveats() -> str:
     rows = ["| engine caveat | why |", "|---|---|"]
-    for caveat in TREND_CAVEATS + SPECTRUM_CAVEATS:
+    for caveat in ENGINE_CAVEAT_ORDER:
         rows.append(f"| `{caveat.id}` | {caveat.source.removeprefix('sumpwise engine: ')} |")
     return "\n".join(rows)
 

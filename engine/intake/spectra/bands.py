@@ -257,6 +257,13 @@ def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
                 f"({low:g}-{high:g} cm-1 with its baseline)"
             )
             continue
+        empty = next((w for w in _windows_read(band) if _holds_no_point(x, w)), None)
+        if empty is not None:  # a coarse or gapped grid: this band is not measured, the others are
+            uncovered[band.name] = (
+                f"the grid (points {np.median(np.diff(x)):.3g} cm-1 apart) has no point within "
+                f"{empty[0]:g}-{empty[1]:g} cm-1, which band {band.name} reads"
+            )
+            continue
         if band.measure == "height":
             window = _index_window(x, band.region, band.name)
             peak = _peak_fit(x, window, band.smoothing)
@@ -283,6 +290,18 @@ def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
         if band.saturation_window is not None:
             saturation[band.name] = _index_window(x, band.saturation_window, band.name)
     return BandPlan(x, bands, areas, points, windows, uncovered, saturation, peaks)
+
+
+def _windows_read(band):
+    """The windows of a band that must each hold a grid point: a height's region, mean or minimum
+    anchors, the saturation window (an area's region and an `at` are interpolated)."""
+    found = [band.region] if band.measure == "height" else []
+    found += [anchor.span() for anchor in band.baseline if anchor.at is None]
+    return found + ([band.saturation_window] if band.saturation_window is not None else [])
+
+
+def _holds_no_point(x, window):
+    return np.searchsorted(x, window[1], side="right") <= np.searchsorted(x, window[0], side="left")
 
 
 def _peak_fit(x, window, half_width):

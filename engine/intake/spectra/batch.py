@@ -145,7 +145,7 @@ def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, refere
 
 def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: BandSet | None = None,
                     reference_path_length_mm: float | None = None, block_size: int = DEFAULT_BLOCK,
-                    dilutions=None, needed=None):
+                    dilutions=None, needed=None, direct_bands=()):
     """Read and measure spectra; exactly one row per path, in order, plus the list of rejections.
 
     references: None for all direct; a sequence aligned with `paths` (a reference
@@ -154,7 +154,9 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     path_length_mm / reference_path_length_mm: used for a file that has no
     `##PATH LENGTH=` of its own. dilutions: None or one factor per path.
     needed: the band names the caller needs (default: all); a spectrum none of
-    whose needed bands can be measured is rejected. Columns: spectrum, one per
+    whose needed bands can be measured is rejected. direct_bands: bands read on
+    the used spectrum itself even when it has a reference (in the row's abs/cm),
+    for measures that hold one convention whatever the row's method. Columns: spectrum, one per
     band, method, unit (of heights and points), area_unit (of areas),
     path_length_mm, dilution, reference, notes, rejection.
     A bad file rejects that spectrum only.
@@ -210,6 +212,11 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             ref_saturated = saturated_bands(plan, np.nan_to_num(reference, nan=0.0), bands.saturation_absorbance)
         values, _, uncovered = _measure_columns_matrix(
             x, columns, bands, neat, reference, ref_path_mm, block_size, plan)
+        direct = set(direct_bands) if ref_path is not None else set()
+        if direct:
+            own, _, _ = _measure_columns_matrix(x, columns, bands, neat, None, None, block_size, plan)
+            values |= {name: own[name] * ABS_PER_CM_PER_ABS_PER_01MM for name in direct}
+            ref_saturated = {name: flags for name, flags in ref_saturated.items() if name not in direct}
         method = DIRECT if ref_path is None else SUBTRACTION
         for k, i in enumerate(members):
             row, why = {}, []

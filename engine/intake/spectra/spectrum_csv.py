@@ -1,16 +1,32 @@
-"""Plain two-column CSV spectra: wavenumber (cm-1), absorbance; an optional header row."""
+"""Plain two-column CSV spectra: wavenumber (cm-1), absorbance; an optional header row.
+
+A header row says what the columns hold, and is read, not skipped: lab exports write
+`Wavenumber (cm-1),%T` or `cm-1,Transmittance` as often as `absorbance`, and transmittance
+read as absorbance turns every band upside down (a carbonyl band reads as a dip, so a badly
+oxidised oil grades as clean). A second column named transmittance (fraction or percent) is
+converted; one named absorbance is read as it is; one that names neither is refused by name,
+since its scale is unknown. A first column named for a wavelength in micrometres or
+nanometres is converted to wavenumbers. Without a header the columns are wavenumber (cm-1)
+and absorbance, as documented.
+"""
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
 
 from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, make_spectrum
 
+# Second-column headers, lower-cased with spaces, brackets and punctuation other than % removed.
+_ABSORBANCE_WORDS = ("a", "abs", "au", "log1t")  # and any name that starts with "absorbance"
+_TRANSMITTANCE_WORDS = ("transmittance", "transmission", "t")
+_PERCENT_MARKS = ("%", "percent", "pct")
+
 
 def read_spectrum_csv(path: Path | str) -> Spectrum:
-    """Read `wavenumber,absorbance` rows; a first row that is not numeric is taken as a header."""
+    """Read `wavenumber,absorbance` rows; a first row that is not numeric is a header that names the units."""
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8-sig")
@@ -22,6 +38,7 @@ def read_spectrum_csv(path: Path | str) -> Spectrum:
 def parse_spectrum_csv(text: str, source: str) -> Spectrum:
     xs, ys = [], []
     first_data_line = None
+    x_units, y_units = "1/CM", "ABSORBANCE"
     for number, raw in enumerate(text.splitlines(), start=1):
         line = raw.strip()
         if not line or line.startswith("#"):
@@ -33,7 +50,8 @@ def parse_spectrum_csv(text: str, source: str) -> Spectrum:
             x, y = float(fields[0]), float(fields[1])
         except ValueError:
             if first_data_line is None and not xs:
-                first_data_line = -1  # the header row: skipped once
+                first_data_line = -1  # the header row: read once for its units
+                x_units, y_units = _header_units(fields, source, number)
                 continue
             raise SpectrumError(source, number, f"expected two numbers, found {fields[0]!r}, {fields[1]!r}") from None
         if first_data_line in (None, -1):
@@ -42,4 +60,29 @@ def parse_spectrum_csv(text: str, source: str) -> Spectrum:
         ys.append(y)
     if len(xs) < 2:
         raise SpectrumError(source, None, "fewer than 2 data rows")
-    return make_spectrum(source, np.array(xs), np.array(ys), "1/CM", "ABSORBANCE", first_data_line)
+    return make_spectrum(source, np.array(xs), np.array(ys), x_units, y_units, first_data_line)
+
+
+def _header_units(fields, source, line):
+    """(x units, y units) in the JCAMP-DX spellings make_spectrum reads, from a header row's two names."""
+    x_name, y_name = (f.strip().strip('"').strip("'") for f in fields)
+    x_key = x_name.lower().replace("µ", "u").replace("μ", "u")
+    if re.search(r"\b(um|micrometres?|micrometers?|microns?)\b", x_key):
+        x_units = "MICROMETERS"
+    elif re.search(r"\b(nm|nanometres?|nanometers?)\b", x_key):
+        x_units = "NANOMETERS"
+    else:
+        x_units = "1/CM"
+    y_key = re.sub(r"[^a-z0-9%]", "", y_name.lower())
+    percent = any(mark in y_key for mark in _PERCENT_MARKS)
+    bare = y_key
+    for mark in _PERCENT_MARKS:
+        bare = bare.replace(mark, "")
+    if not percent and (y_key in _ABSORBANCE_WORDS or y_key.startswith("absorbance")):
+        return x_units, "ABSORBANCE"
+    if bare in _TRANSMITTANCE_WORDS or bare.startswith(("transmittance", "transmission")):
+        return x_units, "%T" if percent else "TRANSMITTANCE"
+    raise SpectrumError(source, line, f"second column {y_name!r}: the header does not say absorbance or "
+                                      "transmittance, so the scale of the values is unknown; name it "
+                                      "'absorbance', 'transmittance' or '%T' (a file without a header is read as "
+                                      "wavenumber, absorbance)")

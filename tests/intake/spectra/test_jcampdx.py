@@ -27,7 +27,7 @@ def test_dupdec1_public_domain_ir_dif_dup_matches_its_header():
     transmittance_percent = 100 * 10 ** (-spectrum.absorbance)
     assert transmittance_percent[-1] == pytest.approx(82.25, abs=1e-9)  # FIRSTY, at FIRSTX = 4400
     assert transmittance_percent.max() == pytest.approx(87.1, abs=1e-9)  # MAXY
-    assert "transmittance above 1.5 read as percent" in spectrum.notes
+    assert "transmittance read as percent (median above 1.5)" in spectrum.notes
 
 
 def test_dupinc1_public_domain_nanometres_matches_its_header():
