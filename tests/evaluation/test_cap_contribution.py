@@ -1,6 +1,6 @@
 """A cap limits what its measures contribute to a grade, never what a rule gives for other reasons.
 
-Up to engine 0.3.2 a condition rule that merely mentioned a capped measure was capped whatever
+Up to engine 0.3.3 a condition rule that merely mentioned a capped measure was capped whatever
 made it fire: on a polyol-ester compressor oil, `any: [water above 1000, oxidation_rise above 30]`
 fired by 2,500 ppm of water alone was held at watch by the ester-carbonyl cap, and the record
 blamed the ester. Sources: the ester carbonyl sits in the FTIR oxidation window (Tribology

@@ -129,7 +129,7 @@ def test_a_censored_declared_measure_is_an_interval_not_missing(site):
 def test_water_above_a_bound_lies_inside_a_band_that_reaches_the_whole_sample(tmp_path):
     # the language reference's `between: [500, 1000000]` (500 ppm up to all water): a Karl Fischer
     # result written >1000 (above the titrator's range) lies in it, since water is at most the whole
-    # sample, 1,000,000 ppm. Up to engine 0.3.2 the interval ran to infinity, so the clause was
+    # sample, 1,000,000 ppm. Up to engine 0.3.3 the interval ran to infinity, so the clause was
     # undecided and the sample graded normal with the rule not evaluated. Source: 1 % = 10,000 ppm
     # by definition; limits.md (common practice, no source): water critical above 500-1000 ppm.
     path = tmp_path / "wet.yaml"

@@ -1,7 +1,7 @@
 """A limit on a declared measure is read in the unit its own file declares, never in another.
 
 Declared measures (`measures: {iron: {unit: ppm}}`) are not converted: the unit is the lab's.
-Up to engine 0.3.2 a child that declared iron in ppb kept its parent's limits written in ppm,
+Up to engine 0.3.3 a child that declared iron in ppb kept its parent's limits written in ppm,
 so 150 ppb of iron (0.15 ppm, nothing) fired the parent's 100 ppm watch limit, and 150 ppm
 written as 150,000 ppb would fire watch where the parent meant alert past 200 ppm; `check` said
 ok. Unit relation: 1 ppm = 1,000 ppb by definition; iron by ICP per ASTM D5185 (reported in

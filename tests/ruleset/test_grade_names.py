@@ -1,6 +1,6 @@
 """A ladder cannot name a grade `unrated`, the engine's word for a sample it could not grade.
 
-Up to engine 0.3.2 `grades: [normal, unrated, alert]` was accepted: 300 ppm of water past a
+Up to engine 0.3.3 `grades: [normal, unrated, alert]` was accepted: 300 ppm of water past a
 200 ppm limit (limits.md, common practice, no source: water caution above 200 ppm) was graded
 `unrated`, and the summary counted it twice over with the samples that were not graded.
 """

@@ -1,7 +1,7 @@
 """Limits written in a lab's units grade a reading exactly at the limit as the test says.
 
 `above` and `below` are strict and `between` includes its ends (the rule language). Up to
-engine 0.3.2 a limit was converted to the canonical unit by a bare float product, so 0.29
+engine 0.3.3 a limit was converted to the canonical unit by a bare float product, so 0.29
 abs/0.1mm became 28.999999999999996 abs/cm and a reading of exactly 0.29 abs/0.1mm (29 abs/cm)
 fired `above 0.29`; 0.07 % became 700.0000000000001 ppm, so exactly 0.07 % fell outside
 `between [0.07, 0.14]` and exactly 0.07 abs/0.1mm fired `below 0.07`. Unit relations: 1

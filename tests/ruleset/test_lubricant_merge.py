@@ -1,6 +1,6 @@
 """A child rule set that gives some of a lubricant's new-oil values keeps the rest from its parent.
 
-Up to engine 0.3.2 a child's entry for a lubricant code replaced the parent's whole: a site that
+Up to engine 0.3.3 a child's entry for a lubricant code replaced the parent's whole: a site that
 wrote only its own new-oil acid number and carbonyl for a polyol-ester oil lost the base stock
 (so the ester caveat's cap no longer applied and the ester's own carbonyl graded alert) and the
 viscosities (so viscosity drift went unevaluated), with `check` saying nothing. Sources: the ester

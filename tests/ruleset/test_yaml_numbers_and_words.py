@@ -1,6 +1,6 @@
 """Rule-set YAML is read as people write it, not by YAML 1.1's older rules.
 
-Up to engine 0.3.2 PyYAML's YAML 1.1 resolution applied: `above: {watch: 0200}` was octal, a
+Up to engine 0.3.3 PyYAML's YAML 1.1 resolution applied: `above: {watch: 0200}` was octal, a
 128 ppm limit, so 150 ppm of water graded watch against a limit written as 200; `1:30` was 90
 (base 60); and `{field: topped_up, equals: yes}` compared with the text "true", so a sample whose
 lab wrote `yes` never matched and 300 ppm of water on a topped-up pump graded normal. YAML 1.2
