@@ -172,13 +172,22 @@ LEAF_TRUTH = {"measure": _measure_test, "missing": _missing_test, "field": _fiel
 COMBINED_TRUTH = {"all": _all, "any": _any, "not": _not}
 
 
-def condition_truth(condition, columns: _Columns, leaves: list | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """(truth, known) of a condition; `leaves` collects each leaf test's (truth, known) in order."""
+def condition_truth(condition, columns: _Columns, leaves: list | None = None,
+                    masked: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """(truth, known) of a condition; `leaves` collects each leaf test's (truth, known) in order.
+
+    `masked` maps a measure to the rows where its limit tests are taken as unknown (a cap keeps
+    that measure's values from contributing there), so a condition still known true does not
+    rest on them; a `missing:` test reads no value and stays as it is.
+    """
     if condition.parts:
-        return COMBINED_TRUTH[condition.kind]([condition_truth(p, columns, leaves) for p in condition.parts])
+        return COMBINED_TRUTH[condition.kind]([condition_truth(p, columns, leaves, masked) for p in condition.parts])
     truth, known = LEAF_TRUTH[condition.kind](condition, columns)
     if leaves is not None:
         leaves.append((truth, known))
+    hidden = masked.get(condition.measure) if masked and condition.kind == "measure" else None
+    if hidden is not None:
+        truth, known = truth & ~hidden, known & ~hidden
     return truth, known
 
 
@@ -200,6 +209,36 @@ def _ladder_levels(rule: LadderRule, columns: _Columns) -> np.ndarray:
         undecided |= ~known
     levels[undecided & (levels == 0)] = NOT_EVALUATED
     return levels
+
+
+def _capped_condition(rule, column: np.ndarray, caps: list, measured: pd.DataFrame) -> np.ndarray:
+    """A condition rule's levels under the caps in force (cap, bool rows) on measures it reads.
+
+    A cap limits what its measures can contribute, not what the rule gives for other reasons
+    (`any: [water above 1000, oxidation_rise above 30]` fired by its water alone is not an
+    oxidation finding). The rule keeps the highest level l, its own or a cap's below it, at
+    which it is still known true with the limit tests of every measure capped below l taken as
+    unknown; at the lowest cap's level nothing is masked, so a fired rule always has one.
+    """
+    out = column.copy()
+    in_force = np.logical_or.reduce([capping for _, capping in caps])
+    todo = np.flatnonzero((column > 0) & in_force)
+    if not len(todo):
+        return out
+    columns = _Columns(measured, todo)
+    pending = np.ones(len(todo), dtype=bool)
+    lower = sorted({cap.level for cap, _ in caps if cap.level < rule.level}, reverse=True)
+    for level in [rule.level] + lower:
+        masked: dict = {}
+        for cap, capping in caps:
+            if cap.level < level:
+                for measure in cap.measures:
+                    masked[measure] = masked.get(measure, False) | capping[todo]
+        holds, _ = condition_truth(rule.when, columns, masked=masked)
+        settled = pending & holds
+        out[todo[settled]] = level
+        pending &= ~settled
+    return out
 
 
 def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
@@ -248,10 +287,17 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
             capping = truth & ~lifted
             unchecked[:, k] = truth & ~lift_known
         capping_all[:, k] = capping
-        for j, slot in enumerate(slots):
-            if slot.rule.reads & caveat.cap.measures:
-                column = final[:, j]
-                column[capping & (column > caveat.cap.level)] = caveat.cap.level
+    for j, slot in enumerate(slots):
+        caps = [(caveat.cap, capping_all[:, k]) for k, caveat in enumerate(ruleset.caveats)
+                if caveat.cap is not None and slot.rule.reads & caveat.cap.measures]
+        if not caps:
+            continue
+        if isinstance(slot.rule, LadderRule):
+            column = final[:, j]
+            for cap, capping in caps:
+                column[capping & (column > cap.level)] = cap.level
+        else:
+            final[:, j] = _capped_condition(slot.rule, raw[:, j], caps, measured)
 
     level = final.max(axis=1, initial=NOT_APPLICABLE) if len(slots) else np.full(n, NOT_APPLICABLE)
     level = np.where(level >= 0, level, -1).astype(np.int8)

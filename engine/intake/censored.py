@@ -118,21 +118,23 @@ class Bounds:
 
 
 def bounds(measure: str, censored_text: np.ndarray, written: np.ndarray) -> Bounds:
-    """Intervals from the `:censored` texts of a reading; the other end is the measure's domain."""
+    """Intervals from the `:censored` texts of a reading; the other end is the measure's domain
+    (water `>1000` is (1000, 1,000,000] ppm: inside `between: [500, 1000000]`, not undecided)."""
     n = len(censored_text)
     low, high = np.full(n, -np.inf), np.full(n, np.inf)
     low_open, high_open = np.ones(n, dtype=bool), np.ones(n, dtype=bool)
     codes, uniques = pd.factorize(censored_text, use_na_sentinel=True)
-    domain = domain_of(measure)[0]
+    floor, top = domain_of(measure)[0], domain_of(measure)[-1]
     for k, text in enumerate(uniques):
         rows = codes == k
         found = _BOUND.match(str(text))
         sign, bound = _SIGN[found.group(1)], float(found.group(2))
         if sign in ("<", "<="):
             high[rows], high_open[rows] = bound, sign == "<"
-            low[rows], low_open[rows] = domain.low, not domain.low_in
+            low[rows], low_open[rows] = floor.low, not floor.low_in
         else:
             low[rows], low_open[rows] = bound, sign == ">"
+            high[rows], high_open[rows] = top.high, not top.high_in
     return Bounds(codes >= 0, low, high, low_open, high_open, np.asarray(written, dtype=object))
 
 

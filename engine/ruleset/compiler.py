@@ -19,7 +19,7 @@ from pathlib import Path
 
 from sumpwise.vocabulary.measures import (DERIVED_MEASURES, INPUT_MEASURES, ISO4406_SIZES, KNOWN_FIELDS, MEASURES,
                                          TRENDED, declared_trend_measures, domain_of, measure_unit, read_iso4406,
-                                         unit_key)
+                                         trend_base, unit_key)
 from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, NextStep, Not, Origin, RuleSet)
@@ -107,6 +107,12 @@ class _Compiler:
     def build(self) -> RuleSet:
         """The rule set from every piece that compiles cleanly; problems are collected, not raised."""
         r = self.r
+        if "unrated" in self.grades:  # a finding would read, and be counted, as a sample not graded
+            at = ("grades", self.grades.index("unrated")) if "grades" in r.top.data else ("ruleset",)
+            self.problems.append(r.top.problem(
+                at, "'unrated' cannot be a grade: it is what a sample the engine could not grade is called, so a "
+                    "finding at that grade would read and count as a sample that was not graded", code="C016",
+                hint="name the grade otherwise, e.g. 'caution'"))
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
         classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
         common = self._rules(r.rules.values())
@@ -122,10 +128,11 @@ class _Compiler:
             measures=tuple(sorted(r.measures)), fields=tuple(sorted(r.fields)), files=tuple(r.files),
             canonical="", examples=examples, class_origins=self._class_origins(), file_units=self._file_units(),
             measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
-            lubricant_origins={code: self._origin(placed) for code, placed in r.lubricants.items()},
+            lubricant_origins={code: self._origin(entries[-1]) for code, entries in r.lubricants.items()},
             noise_margins=margins,
         )
-        if self.problems:
+        self._check_overrides()
+        if any(p.severity == "error" for p in self.problems):
             return ruleset
         canonical = canonical_json(ruleset, {name: p.data for name, p in r.measures.items()})
         digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
@@ -165,12 +172,84 @@ class _Compiler:
         return {placed.doc.file: dict(placed.units) for placed in places}
 
     def _scale(self, placed: Placed, measure: str) -> float:
+        self._check_declared_unit(placed, measure)
         key = unit_key(measure)
         if key not in UNIT_FAMILY:
             return 1.0
         family = UNIT_FAMILY[key]
         unit = placed.units.get(key)
         return factor_to_canonical(family, unit) if unit else 1.0
+
+    def _top_grade(self, data: dict) -> int | None:
+        """The highest ladder level a rule as written can give (None when it names no known grade)."""
+        if "grade" in data:
+            written = [data["grade"]]
+        else:
+            written = [grade for key in (*_LADDER_TESTS, "iso4406") if isinstance(data.get(key), dict)
+                       for grade in data[key]]
+        levels = [self.grades.index(g) for g in written if g in self.grades]
+        return max(levels) if levels else None
+
+    def _check_overrides(self) -> None:
+        """Warnings where an override by id quietly takes a grade away: a top-level rule every class
+        overrides with its own rule of that id (it applies nowhere), and a rule that replaces an
+        inherited one and gives less than it could (a child restating one limit, `above: {watch:
+        100}`, loses the parent's higher grades for that measure)."""
+        for ident, placed in self.r.rules.items():
+            owners = [name for name, rules in self.r.classes.items() if ident in rules]
+            if owners and len(owners) == len(self.r.classes):
+                self.problems.append(placed.problem(
+                    f"top-level rule '{ident}' applies to no class: every class ({', '.join(sorted(owners))}) has its "
+                    f"own rule '{ident}', which wins over it", ("id",), code="W002", severity="warning",
+                    hint=f"to change '{ident}' for a class, write it under that class (same id)"))
+        in_force = {id(p) for p in self.r.rules.values()} | {id(p) for rules in self.r.classes.values()
+                                                               for p in rules.values()}
+        for new, old in self.r.replaced:
+            if id(new) not in in_force:
+                continue
+            # the class it was written in changes it; a class built on that one keeps the old rule (a class
+            # that overrides a rule it took from its base is not such a change: the base keeps its own)
+            written_in = old.path[1] if old.path[0] == "classes" else None
+            holders = sorted(name for name, rules in self.r.classes.items()
+                             if name != written_in and any(p is old for p in rules.values()))
+            if holders and new.path[:2] == ("classes", written_in):
+                mark = old.doc.mark(old.path)
+                self.problems.append(new.problem(
+                    f"rule '{new.data['id']}' replaces the rule of the same id at {old.doc.file}:{mark.line}, but "
+                    f"class {', '.join(repr(h) for h in holders)} still grades with that one (a class that extends "
+                    f"another takes its rules as they were when it was declared)", ("id",), code="W017",
+                    severity="warning", hint=f"write the rule under {', '.join(holders)} too, if it is meant there"))
+            now, before = self._top_grade(new.data), self._top_grade(old.data)
+            if now is None or before is None or now >= before:
+                continue
+            mark = old.doc.mark(old.path)
+            self.problems.append(new.problem(
+                f"rule '{new.data['id']}' replaces the rule of the same id at {old.doc.file}:{mark.line}, which "
+                f"could give {self.grades[before]}; this one gives at most {self.grades[now]}, so a sample that "
+                f"rule graded {self.grades[before]} is now {self.grades[now]} at most", ("id",), code="W016",
+                severity="warning",
+                hint=f"a rule replaces its parent's whole: restate every grade you keep "
+                     f"(up to {self.grades[before]}), or give the new limit another id to add to the parent's"))
+
+    def _check_declared_unit(self, placed: Placed, measure: str) -> None:
+        """A limit on a declared measure is written in the unit its own file (or that file's parents)
+        declares; the engine does not convert declared units, so a child that declares the measure
+        in another unit leaves that limit read against data in the child's unit."""
+        base = measure if measure in self.r.measures else trend_base(measure)
+        if base not in self.r.measures or measure.endswith("_rising"):  # a run count has no unit
+            return
+        final = self.r.measures[base]
+        written = self.r.declared_units.get(placed.doc.file, {}).get(base)
+        if written == final.data.get("unit"):
+            return
+        mark = final.doc.mark(final.path, key=True)
+        self.problems.append(placed.problem(
+            f"this limit on {measure} is written in {written or 'no unit'}, as {placed.doc.file} declares "
+            f"{base}, but the rule set declares {base} in {final.data.get('unit') or 'no unit'} "
+            f"({final.doc.file}:{mark.line}); declared units are not converted, so the limit would be read "
+            f"against data in the other unit", code="C017",
+            hint=f"give the rule again, same id, with limits in {final.data.get('unit')} (or drop it) where {base} "
+                 f"is declared anew, or keep one unit for {base} across the chain"))
 
     def _level(self, placed: Placed, sub: tuple, grade: str, key: bool = False) -> int | None:
         if grade not in self.grades:
@@ -203,15 +282,27 @@ class _Compiler:
             self.problems.append(placed.problem(str(exc), sub, code="C013"))
             return str(text)
 
-    def _lubricant(self, code: str, placed: Placed) -> Lubricant:
-        data = dict(placed.data)
-        if "oxidation" in data:
-            data["oxidation"] = data["oxidation"] * self._scale(placed, "oxidation")
-        if "base_stock" in data:
-            data["base_stock"] = self._base_stock(placed, ("base_stock",), data["base_stock"])
-        spectrum = data.get("reference_spectrum")
-        if spectrum is not None:
-            data["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
+    def _lubricant(self, code: str, entries: tuple) -> Lubricant:
+        """A lubricant merged field by field over the files of the chain that give its code.
+
+        A child giving its own new-oil sample's acid number keeps the parent's base stock and
+        viscosities (replacing the whole entry lost them, and an ester lost its caveat's cap);
+        each value is read in the units of the file that wrote it. An entry that names another
+        base stock is another oil: nothing of the earlier entries carries over to it.
+        """
+        data: dict = {}
+        for placed in entries:
+            own = dict(placed.data)
+            if "oxidation" in own:
+                own["oxidation"] = in_canonical_unit(own["oxidation"], self._scale(placed, "oxidation"))
+            if "base_stock" in own:
+                own["base_stock"] = self._base_stock(placed, ("base_stock",), own["base_stock"])
+                if own["base_stock"] != data.get("base_stock", own["base_stock"]):
+                    data = {}
+            spectrum = own.get("reference_spectrum")
+            if spectrum is not None:
+                own["reference_spectrum"] = str((Path(placed.doc.file).parent / spectrum).resolve())
+            data.update(own)
         return Lubricant(code=code, **data)
 
     def _rules(self, places) -> tuple:
@@ -264,7 +355,7 @@ class _Compiler:
                 f"noise margin for '{name}', which has no trend measures; trended measures are: {known}",
                 (), key=True, code="C014"))
             return None
-        return placed.data * self._scale(placed, name)
+        return in_canonical_unit(placed.data, self._scale(placed, name))
 
     def _rule(self, placed: Placed):
         data = placed.data
@@ -303,11 +394,11 @@ class _Compiler:
                         f"the pair [{limit[0]}, {limit[1]}] for '{grade}' must be written [low, high] "
                         f"with low below high", (test, grade), code="C005"))
                 self._check_domain(placed, (test, grade), measure, limit, scale, f"'{grade}' limit")
-                limit = (limit[0] * scale, limit[1] * scale)
+                limit = (in_canonical_unit(limit[0], scale), in_canonical_unit(limit[1], scale))
             else:
                 if test != "outside":  # |value| > x: a size, checked by lint
                     self._check_domain(placed, (test, grade), measure, [limit], scale, f"'{grade}' limit")
-                limit = limit * scale
+                limit = in_canonical_unit(limit, scale)
             steps.append((level, limit))
         steps.sort(key=lambda s: s[0])
         self._check_monotone(placed, test, steps, data[test])
@@ -384,9 +475,9 @@ class _Compiler:
                 if limit[0] > limit[1] or (test == "outside" and limit[0] == limit[1]):
                     self.problems.append(placed.problem(
                         f"the pair [{limit[0]}, {limit[1]}] must be written [low, high]", sub + (test,), code="C005"))
-                limit = (limit[0] * scale, limit[1] * scale)
+                limit = (in_canonical_unit(limit[0], scale), in_canonical_unit(limit[1], scale))
             else:
-                limit = limit * scale
+                limit = in_canonical_unit(limit, scale)
             return MeasureTest(measure, test, limit)
         if "field" in data:
             tests = [k for k in ("in", "equals") if k in data]
@@ -461,6 +552,14 @@ class _Compiler:
                 self.problems.append(placed.problem(
                     f"example '{placed.data['name']}': `{key}` names '{ident}', but there is no such {what}",
                     ("expect", key, i), hint=f"did you mean '{close[0]}'?" if close else "", code="C012"))
+
+
+def in_canonical_unit(value, scale: float) -> float:
+    """A limit or reference value written in a file's unit, in the canonical unit, to the 12
+    significant digits the canonical form keeps: 0.29 abs/0.1mm is 29 abs/cm, not the
+    28.999999999999996 a bare product gives (which a reading of exactly 29 is above), and the
+    rule set grades as its canonical form reloaded does."""
+    return float(f"{value * scale:.12g}")
 
 
 def _plain(value) -> str:

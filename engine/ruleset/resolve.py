@@ -43,11 +43,16 @@ class Resolved:
     header: dict = field(default_factory=dict)
     header_marks: dict = field(default_factory=dict)
     grades: tuple = DEFAULT_GRADES
-    lubricants: dict = field(default_factory=dict)
+    lubricants: dict = field(default_factory=dict)  # code -> its Placed entries, the chain's oldest first
     classes: dict = field(default_factory=dict)
     rules: dict = field(default_factory=dict)
     caveats: dict = field(default_factory=dict)
     measures: dict = field(default_factory=dict)
+    # file -> {declared measure: its unit} as that file and its parents declare it: the unit
+    # the file's own limits on the measure are written in
+    declared_units: dict = field(default_factory=dict)
+    # (rule, the inherited rule of the same id it replaces), for the compiler's W016
+    replaced: list = field(default_factory=list)
     noise_margins: dict = field(default_factory=dict)
     fields: dict = field(default_factory=dict)
     examples: list = field(default_factory=list)
@@ -156,8 +161,12 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     merged.incomplete = merged.incomplete or parent.incomplete
     merged.header.update(parent.header)
     merged.header_marks.update(parent.header_marks)
-    merged.lubricants.update(parent.lubricants)
+    for code, entries in parent.lubricants.items():
+        # the parent's view of the code comes last; an entry both have (a shared grandparent) once
+        earlier = tuple(e for e in merged.lubricants.get(code, ()) if not any(e is p for p in entries))
+        merged.lubricants[code] = earlier + entries
     merged.measures.update(parent.measures)
+    merged.declared_units.update(parent.declared_units)
     merged.noise_margins.update(parent.noise_margins)
     merged.fields.update(parent.fields)
     for name, rules in parent.classes.items():
@@ -166,6 +175,7 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
     merged.class_places.update(parent.class_places)
     merged.rules.update(parent.rules)
     merged.caveats.update(parent.caveats)
+    merged.replaced.extend(pair for pair in parent.replaced if not any(pair[0] is p[0] for p in merged.replaced))
     merged.files.extend(f for f in parent.files if f not in merged.files)
 
 
@@ -203,7 +213,7 @@ def _add_own(merged: Resolved, doc: YamlDocument, data: dict, skipped: set, prob
             merged.header[name] = data[name]
             merged.header_marks[name] = Placed(data[name], doc, (name,))
     for code, lub in data.get("lubricants", {}).items():
-        merged.lubricants[code] = Placed(lub, doc, ("lubricants", code))
+        merged.lubricants[code] = merged.lubricants.get(code, ()) + (Placed(lub, doc, ("lubricants", code)),)
     for name, spec in data.get("measures", {}).items():
         merged.measures[name] = Placed(spec, doc, ("measures", name))
     for name, margin in data.get("noise_margins", {}).items():
@@ -213,12 +223,15 @@ def _add_own(merged: Resolved, doc: YamlDocument, data: dict, skipped: set, prob
             merged.fields[name] = Placed(name, doc, ("fields", i))
 
     _ClassBuilder(merged, doc, data.get("classes", {}), skipped, problems).build_all()
-    merged.rules.update(_by_id(data.get("rules", []), doc, ("rules",), problems, "rule", skipped))
+    own_rules = _by_id(data.get("rules", []), doc, ("rules",), problems, "rule", skipped)
+    merged.replaced.extend((rule, merged.rules[ident]) for ident, rule in own_rules.items() if ident in merged.rules)
+    merged.rules.update(own_rules)
     merged.caveats.update(_by_id(data.get("caveats", []), doc, ("caveats",), problems, "caveat", skipped))
     merged.examples = [Placed(item, doc, ("examples", i)) for i, item in enumerate(data.get("examples", []))
                        if ("examples", i) not in skipped]
     merged.top = doc
     merged.files.append(doc.file)
+    merged.declared_units[doc.file] = {name: p.data.get("unit") for name, p in merged.measures.items()}
 
 
 class _ClassBuilder:
@@ -286,5 +299,6 @@ class _ClassBuilder:
                                                  f"drop names rule '{dropped}', but neither {gives}an extended rule "
                                                  f"set gives class '{name}' a rule with that id", code="R006"))
         own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), self.problems, "rule", self.skipped)
+        self.merged.replaced.extend((rule, target[ident]) for ident, rule in own.items() if ident in target)
         target.update(own)
         self.merged.classes[name] = target

@@ -166,6 +166,16 @@ class _Builder:
         if isinstance(value, bytes):
             raise yaml.constructor.ConstructorError(None, None, "binary data is not allowed", node.start_mark)
         mark = _mark(node)
+        plain = not node.style and isinstance(node, yaml.ScalarNode)  # None (pure Python) or "" (the C loader)
+        if plain and isinstance(value, bool) and node.value.lower() not in ("true", "false"):
+            return node.value  # YAML 1.1's yes/no/on/off are text here, as YAML 1.2 and people read them
+        if plain and isinstance(value, (int, float)) and not isinstance(value, bool) \
+                and (isinstance(value, int) or math.isfinite(value)) and not _DECIMAL.fullmatch(node.value):
+            self.problems.append(Problem(
+                self.file, mark.line, mark.column,
+                f"the number {_short(node.value)} is not written in plain decimal: YAML 1.1 reads it as {value!r} "
+                f"(a leading 0 makes it octal, 0x hexadecimal, a colon base 60)", json_path(path), code="Y012",
+                hint="write the number in decimal without leading zeros (200, 0.05), or quote it if it is text"))
         if isinstance(value, float) and not math.isfinite(value):
             self.problems.append(Problem(self.file, mark.line, mark.column,
                                          f"a number must be finite, found {node.value!r}", json_path(path),
@@ -205,6 +215,9 @@ class _Builder:
 
 
 _LARGEST_INT = int(1.7976931348623157e308)  # the largest finite float, as an integer
+# A number as people write it: no leading zeros (0200 is octal 128 to YAML 1.1), no base prefix
+# (0x, 0b), no base-60 colons (1:30 is 90); underscores as digit separators are read as written.
+_DECIMAL = re.compile(r"[-+]?(?:(?:0|[1-9][0-9_]*)(?:\.[0-9_]*)?|\.[0-9_]+)(?:[eE][-+]?[0-9]+)?")
 
 
 def _short(text: str) -> str:

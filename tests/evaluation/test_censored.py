@@ -6,6 +6,7 @@ its bound's number."""
 import io
 
 import numpy as np
+import pandas as pd
 import pytest
 from conftest import DATA, ROOT
 
@@ -123,3 +124,20 @@ def test_a_censored_declared_measure_is_an_interval_not_missing(site):
     assert dict(records[0].values)["iron"] == ">100"
     assert [(r.rule, r.grade) for r in records[0].reasons if r.rule == "iron"] == [("iron", "watch")]
     assert [dict(n.undecided) for n in records[2].not_evaluated if n.rule == "iron"] == [{"iron": "<150"}]
+
+
+def test_water_above_a_bound_lies_inside_a_band_that_reaches_the_whole_sample(tmp_path):
+    # the language reference's `between: [500, 1000000]` (500 ppm up to all water): a Karl Fischer
+    # result written >1000 (above the titrator's range) lies in it, since water is at most the whole
+    # sample, 1,000,000 ppm. Up to engine 0.3.3 the interval ran to infinity, so the clause was
+    # undecided and the sample graded normal with the rule not evaluated. Source: 1 % = 10,000 ppm
+    # by definition; limits.md (common practice, no source): water critical above 500-1000 ppm.
+    path = tmp_path / "wet.yaml"
+    path.write_text("ruleset: wet\nversion: 1\nclasses:\n  steam-turbine:\n    rules:\n      - id: wet\n"
+                    "        when: {measure: water, between: [500, 1000000]}\n        grade: watch\n"
+                    "        message: Water in the oil\n        source: site practice\n", encoding="utf-8")
+    rows = pd.DataFrame([{"sample_id": f"T-{i}", "unit_id": "ST-1", "class": "steam-turbine", "water": w}
+                         for i, w in enumerate([">1000", ">=500", "<400", "<600"])])
+    results = list(grade(rows, load_ruleset(path)).results())
+    assert [r.grade for r in results] == ["watch", "watch", "normal", "unrated"]
+    assert [g.rule for g in results[3].not_evaluated] == ["wet"]  # [0, 600) straddles 500

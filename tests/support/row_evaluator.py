@@ -22,6 +22,7 @@ from sumpwise.derive.viscosity import viscosity_index
 
 _FROM_ZERO = {"an", "bn", "water", "oil_hours", "rpvot"}
 _ABOVE_ZERO = {"kv40", "kv100"}
+_AT_MOST = {"water": 1_000_000.0}  # ppm: water is at most the whole sample
 _CENSORED = re.compile(r"^(<=|>=|<|>)\s*([0-9.eE+-]+)$")
 
 
@@ -52,7 +53,7 @@ def _censored(name, value):
     floor = 0.0 if name in _FROM_ZERO | _ABOVE_ZERO else -math.inf
     if sign.startswith("<"):
         return Interval(floor, bound, name in _FROM_ZERO, sign == "<=")
-    return Interval(bound, math.inf, sign == ">=", False)
+    return Interval(bound, _AT_MOST.get(name, math.inf), sign == ">=", name in _AT_MOST)
 
 
 def _map(interval, f, rising=True):
@@ -219,9 +220,11 @@ def measure_truth(sample, measure, test, limit) -> bool | None:
     return None if value is None else _test(test, value, limit)
 
 
-def truth(condition, sample) -> bool | None:
-    """True, False, or None for unknown (Kleene logic)."""
+def truth(condition, sample, masked=frozenset()) -> bool | None:
+    """True, False, or None for unknown (Kleene logic); limit tests of `masked` measures are unknown."""
     numbers, texts = sample["numbers"], sample["texts"]
+    if isinstance(condition, MeasureTest) and condition.measure in masked:
+        return None
     if isinstance(condition, MeasureTest):
         return measure_truth(sample, condition.measure, condition.test, condition.limit)
     if isinstance(condition, MissingTest):
@@ -233,16 +236,16 @@ def truth(condition, sample) -> bool | None:
             return None
         return value.casefold() in {v.strip().casefold() for v in condition.values}
     if isinstance(condition, AllOf):
-        parts = [truth(p, sample) for p in condition.parts]
+        parts = [truth(p, sample, masked) for p in condition.parts]
         if any(p is False for p in parts):
             return False
         return True if all(p is True for p in parts) else None
     if isinstance(condition, AnyOf):
-        parts = [truth(p, sample) for p in condition.parts]
+        parts = [truth(p, sample, masked) for p in condition.parts]
         if any(p is True for p in parts):
             return True
         return False if all(p is False for p in parts) else None
-    inner = truth(condition.part, sample)
+    inner = truth(condition.part, sample, masked)
     return None if inner is None else not inner
 
 
@@ -273,12 +276,24 @@ def grade_row(ruleset, row: dict):
                 continue
             level = rule.level if outcome else 0
         evaluated = True
-        final = level
-        for cap in caps:
-            if rule.reads & cap.measures:
-                final = min(final, cap.level)
+        final = _capped(rule, level, [cap for cap in caps if rule.reads & cap.measures], sample)
         if final > 0:
             fired[rule.id] = (final, level)
     if not evaluated:
         return None, {}
     return max([0] + [f for f, _ in fired.values()]), fired
+
+
+def _capped(rule, level: int, caps: list, sample) -> int:
+    """A fired rule's level under the caps in force on measures it reads: the highest of its own
+    level and the caps' lower levels at which its outcome still holds with every measure capped
+    below that level unknown (a ladder reads its one measure: the lowest cap's level)."""
+    if level == 0 or not caps:
+        return level
+    if isinstance(rule, LadderRule):
+        return min([level] + [cap.level for cap in caps])
+    for candidate in sorted({level} | {cap.level for cap in caps if cap.level < level}, reverse=True):
+        masked = {m for cap in caps if cap.level < candidate for m in cap.measures}
+        if truth(rule.when, sample, masked) is True:
+            return candidate
+    raise AssertionError("a fired rule holds with nothing masked")
