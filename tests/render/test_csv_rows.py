@@ -47,20 +47,25 @@ def test_csv_agrees_with_every_record_on_random_samples():
                       if x.within_days is not None else "") for x in asked))
 
 
-def test_a_censored_reading_that_decides_nothing_is_told_apart_from_no_value():
-    # Water `<500` ppm against the Brackwater steam-turbine ladder (watch 100, alert 300): the
-    # reading may be anywhere below 500, so the rule is not evaluated, and the CSV says which
-    # reading left it open; an empty cell is a missing value (ISO 80000-1 sense of `<`: below).
+def _site_csv(rows: list[str]) -> list[dict]:
+    """The CSV rows of steam-turbine samples graded by the Brackwater site's rule set."""
     from conftest import ROOT
-    text = ("sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation\n"
-            "C-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,<500,46,0.1,2\n"
-            "C-2,ST-8,steam-turbine,TURB-46-M,2026-03-02,,46,0.1,2\n"
-            "C-3,ST-7,steam-turbine,TURB-46-M,2026-03-02,<50,46,0.1,2\n")
-    graded = grade(read_samples(io.StringIO(text), "cens.csv"),
+    text = "sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation\n" + "\n".join(rows) + "\n"
+    graded = grade(read_samples(io.StringIO(text), "site.csv"),
                    load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml"))
     out = io.StringIO()
     write_csv(graded, out)
-    gaps = {row["sample_id"]: row["not_evaluated"].split(";") for row in csv.DictReader(io.StringIO(out.getvalue()))}
+    return list(csv.DictReader(io.StringIO(out.getvalue())))
+
+
+def test_a_censored_reading_that_decides_nothing_is_told_apart_from_no_value():
+    # Water `<500` ppm against the Brackwater steam-turbine ladder (watch 100, alert 300): the
+    # reading may be anywhere below 500 (a lab's `<`: common practice, no source), so the rule is
+    # not evaluated, and the CSV says which reading left it open; an empty cell is a missing value.
+    rows = _site_csv(["C-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,<500,46,0.1,2",
+                      "C-2,ST-8,steam-turbine,TURB-46-M,2026-03-02,,46,0.1,2",
+                      "C-3,ST-7,steam-turbine,TURB-46-M,2026-03-02,<50,46,0.1,2"])
+    gaps = {row["sample_id"]: row["not_evaluated"].split(";") for row in rows}
     assert "water(water=<500)" in gaps["C-1"]
     assert "water(water)" in gaps["C-2"]
     assert not any(gap.startswith("water(") for gap in gaps["C-3"])  # below 50 decides it: below watch
@@ -69,14 +74,8 @@ def test_a_censored_reading_that_decides_nothing_is_told_apart_from_no_value():
 def test_next_steps_are_the_rule_sets_own_for_what_applies():
     # Brackwater's steam-turbine water rule asks a cooler pressure test within 7 days; 150 ppm
     # fires it at watch (the site's example in site.yaml), 40 ppm does not.
-    from conftest import ROOT
-    text = ("sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation\n"
-            "W-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,150,46,0.1,2\n"
-            "W-2,ST-8,steam-turbine,TURB-46-M,2026-03-02,40,46,0.1,2\n")
-    graded = grade(read_samples(io.StringIO(text), "water.csv"),
-                   load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml"))
-    out = io.StringIO()
-    write_csv(graded, out)
-    steps = {row["sample_id"]: row["next_steps"] for row in csv.DictReader(io.StringIO(out.getvalue()))}
+    rows = _site_csv(["W-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,150,46,0.1,2",
+                      "W-2,ST-8,steam-turbine,TURB-46-M,2026-03-02,40,46,0.1,2"])
+    steps = {row["sample_id"]: row["next_steps"] for row in rows}
     assert steps == {"W-1": "Resample, and pressure-test the seawater-cooled lube oil cooler for a tube leak "
                             "(within 7 days of sampling)", "W-2": ""}
