@@ -18,7 +18,7 @@ import pandas as pd
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.render.jsonl import states
-from sumpwise.render.narrative import step_phrases
+from sumpwise.render.narrative import step_phrase
 from sumpwise.render.safe_text import spreadsheet_frame
 from sumpwise.results.records import UNRATED, GradedBatch, gap_at, gap_states, record_shape_groups
 
@@ -100,13 +100,23 @@ def _unrated(batch: GradedBatch) -> np.ndarray:
 
 
 def _next_steps(batch: GradedBatch) -> np.ndarray:
-    """What the rule set says to do, from the rules and caveats that apply, each step once: the
-    same for every row of a record shape, so worded once a shape."""
-    representatives, group_of, _ = record_shape_groups(batch, np.arange(len(batch)))
+    """What the rule set says to do, from the rules that fired and the caveats that apply, each
+    step once, in the order a record lists them (reasons highest grade first, then caveats):
+    worded once a distinct state of the rules and caveats that carry a step."""
+    out, rs, n = batch.outcome, batch.ruleset, len(batch)
+    rules = [j for j, slot in enumerate(out.slots) if slot.rule.next_step is not None]
+    caveats = [k for k, caveat in enumerate(rs.caveats) if caveat.next_step is not None]
+    if not n or not (rules or caveats):
+        return np.full(n, "", dtype=object)
+    columns = [np.maximum(out.final[:, j], 0) for j in rules] + [out.caveats[:, k] for k in caveats]
+    first, state = states(columns)
     table = []
-    for rep in representatives:
-        table.append("; ".join(step_phrases(batch.result(int(rep)))))
-    return np.array(table, dtype=object)[group_of] if len(batch) else np.empty(0, dtype=object)
+    for rep in first.tolist():
+        fired = sorted((-int(out.final[rep, j]), j) for j in rules if out.final[rep, j] > 0)
+        steps = [out.slots[j].rule.next_step for _, j in fired]
+        steps += [rs.caveats[k].next_step for k in caveats if out.caveats[rep, k]]
+        table.append("; ".join(dict.fromkeys(step_phrase(x.task, x.within_days) for x in steps)))
+    return np.array(table, dtype=object)[state]
 
 
 def csv_frame(batch: GradedBatch) -> pd.DataFrame:
