@@ -31,7 +31,7 @@ from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_SAMPLE_COL
 from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, batch_list,
                                    batch_rejects, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
-                                   ruleset_text, sample_entries, stored_measures, stored_rulesets, unit_entries)
+                                   measures_of, ruleset_text, sample_entries, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
 from sumpwise.version import engine_name
 from sumpwise.render.narrative import explain_lines, forecast_lines, wrapper
@@ -113,8 +113,15 @@ def _trended_values(unit: pd.DataFrame, ruleset: RuleSet) -> tuple[pd.DataFrame,
     if not len(unit):
         return unit, ()
     columns = list(dict.fromkeys(name for names in unit["columns"] for name in json.loads(names)))
-    measured = stored_measures(unit["content"].tolist(), columns, ruleset, key)
-    unit = unit.assign(**{name: measured[name].to_numpy() for name in key + extra})
+    recorded = frame_from_contents(unit["content"].tolist(), columns)
+    measured = measures_of(recorded, ruleset, key)
+    shown = {name: measured[name].to_numpy(dtype=object) for name in key + extra}
+    for name in key:  # a censored reading as the lab wrote it (`>500`), not as a missing value
+        if name + ":written" in recorded.columns:
+            written = recorded[name + ":written"].to_numpy(dtype=object)
+            censored = pd.notna(written)
+            shown[name][censored] = written[censored]
+    unit = unit.assign(**shown)
     return unit, tuple(name for name in extra if unit[name].notna().any())
 
 

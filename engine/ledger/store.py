@@ -488,14 +488,10 @@ def stored_frame(rows: list) -> pd.DataFrame | None:
     return frame
 
 
-def stored_measures(contents: list, columns: list, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
-    """Stored samples' trend inputs (CHAIN_COLUMNS and the rule set's trend bases, then the
-    readings `also` names), derived from their stored input values exactly as grading derives them."""
-    return measures_of(frame_from_contents(contents, columns) if contents else None, ruleset, also)
-
-
 def measures_of(frame: pd.DataFrame | None, ruleset: RuleSet, also: tuple = ()) -> pd.DataFrame:
-    """stored_measures of a frame of stored values (None: no samples)."""
+    """Stored samples' trend inputs (CHAIN_COLUMNS and the rule set's trend bases, then the
+    readings `also` names), derived from a frame of their stored input values (None: no samples)
+    exactly as grading derives them."""
     bases = trend_bases(ruleset)
     bases += tuple(name for name in also if name not in bases)
     if frame is None or not len(frame):

@@ -75,3 +75,24 @@ def test_a_sample_that_names_no_method_is_told_from_the_ledger_in_the_method_it_
     assert {r.method for r in graded.results()} == {"direct"}
     assert "; method direct" in "\n".join(explain_from_ledger(db, "T-04"))
     assert {r.method for r in stored_results(db)[0]} == {"direct"}
+
+
+def test_history_shows_a_censored_reading_as_the_lab_wrote_it(tmp_path):
+    # Water `>500` ppm (above a Karl Fischer range) is a reading, not a missing value: the unit's
+    # table must not show it as '-' beside an alert it caused (Brackwater steam-turbine water limits).
+    import io
+
+    from sumpwise.ledger.audit import unit_history, write_history
+    from tests.conftest import ROOT
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation\n"
+            "B-3,ST-6,steam-turbine,TURB-46-M,2026-02-02,80,46,0.1,2\n"
+            "B-4,ST-6,steam-turbine,TURB-46-M,2026-03-02,>500,46,0.1,2\n")
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(io.StringIO(text), "w.csv"),
+                      sumpwise.load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml"))
+    unit = unit_history(db, "ST-6")
+    assert unit["water"].tolist() == [80.0, ">500"]
+    out = io.StringIO()
+    write_history(unit, "ST-6", out)
+    line = next(row for row in out.getvalue().splitlines() if row.startswith("2026-03-02"))
+    assert line.split()[-2:] == [">500", "alert"]
