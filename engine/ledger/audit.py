@@ -115,11 +115,12 @@ def _trended_values(unit: pd.DataFrame, ruleset: RuleSet) -> tuple[pd.DataFrame,
     columns = list(dict.fromkeys(name for names in unit["columns"] for name in json.loads(names)))
     recorded = frame_from_contents(unit["content"].tolist(), columns)
     measured = measures_of(recorded, ruleset, key)
-    shown = {name: measured[name].to_numpy(dtype=object) for name in key + extra}
+    shown = {name: measured[name].to_numpy() for name in key + extra}
     for name in key:  # a censored reading as the lab wrote it (`>500`), not as a missing value
-        if name + ":written" in recorded.columns:
-            written = recorded[name + ":written"].to_numpy(dtype=object)
+        written = recorded[name + ":written"].to_numpy(dtype=object) if name + ":written" in recorded.columns else None
+        if written is not None and pd.notna(written).any():
             censored = pd.notna(written)
+            shown[name] = shown[name].astype(object)
             shown[name][censored] = written[censored]
     unit = unit.assign(**shown)
     return unit, tuple(name for name in extra if unit[name].notna().any())

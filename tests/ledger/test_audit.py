@@ -96,3 +96,6 @@ def test_history_shows_a_censored_reading_as_the_lab_wrote_it(tmp_path):
     write_history(unit, "ST-6", out)
     line = next(row for row in out.getvalue().splitlines() if row.startswith("2026-03-02"))
     assert line.split()[-2:] == [">500", "alert"]
+    as_csv = io.StringIO()
+    write_history(unit, "ST-6", as_csv, "csv")
+    assert [row.split(",")[9] for row in as_csv.getvalue().splitlines()] == ["water", "80.0", ">500"]
