@@ -726,7 +726,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     # column this batch leaves empty in every row is left out of the insert (NULL), and
     # `corrects`, empty but in corrections, is set afterwards on the corrected rows only.
     bound = [(name, column) for name, column in zip(DIGEST_3_SAMPLE_COLUMNS, written)
-             if name == "entry" or (name != "corrects" and column.count(None) < len(column))]
+             if name == "entry" or (name != "corrects" and any(value is not None for value in column))]
     names = ", ".join(name for name, _ in bound)
     with _indexes_built_after(conn, len(rows) >= max(BULK_ROWS, first - 1)):
         conn.executemany(f"INSERT INTO samples ({names}, content_sha256, batch) "
