@@ -441,15 +441,24 @@ def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
                       for name in rule_inputs(rule)
                       if (written := batch.columns.written(name)) is not None and written[i] is not None)
     missing = [name for name in rule_inputs(rule) if _is_missing(batch, name, i)]
-    return NotEvaluated(rule.id, tuple(missing or [getattr(rule, "measure", rule.id)]), undecided)
+    if not missing:  # every input is there: a measure derived from them is undefined (VI of kv100 below 2)
+        missing = ([rule.measure] if isinstance(rule, LadderRule) else
+                   [name for name in _condition_measures(rule) if _is_missing(batch, name, i)] or [rule.id])
+    return NotEvaluated(rule.id, tuple(missing), undecided)
+
+
+def _condition_measures(rule) -> list[str]:
+    """The measures a condition rule tests (not the inputs they are derived from), once each."""
+    return [] if isinstance(rule, LadderRule) else list(dict.fromkeys(condition_measures(rule.when)))
 
 
 def gap_states(batch: GradedBatch, j: int, rows: np.ndarray) -> list[np.ndarray]:
     """What decides the shape of gap_at's record for rule slot j at these rows (rows of one
     state share it): each input missing or not, and each censored input's spelling present
     or not (`<50` that did not decide the rule, against a cell that was empty)."""
-    names = rule_inputs(batch.outcome.slots[j].rule)
-    columns = [batch.columns.missing(name)[rows] for name in names]
+    rule = batch.outcome.slots[j].rule
+    names = rule_inputs(rule)
+    columns = [batch.columns.missing(name)[rows] for name in names + _condition_measures(rule)]
     columns += [pd.notna(written[rows]) for name in names if (written := batch.columns.written(name)) is not None]
     return columns or [np.zeros(len(rows), dtype=bool)]
 

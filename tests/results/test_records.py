@@ -107,3 +107,23 @@ def test_results_in_order_equal_each_record_read_alone():
     assert len(listed) == 4500
     for i in (0, 1, 4095, 4096, 4097, 4499) + tuple(range(100, 4500, 97)):
         assert listed[i] == graded.result(i), i
+
+
+def test_a_condition_rule_on_a_measure_that_cannot_be_derived_names_that_measure():
+    # ASTM D2270 defines the viscosity index for kv100 of 2 mm2/s and above: a high-VI hydraulic
+    # fluid read at kv100 1.5 has no VI, so the shipped hv-shear-loss rule (VI below 130) is not
+    # evaluated. Its inputs (kv40, kv100) are all there: the record names the measure, vi, not the
+    # rule's own id as if it were an input.
+    import io
+
+    from conftest import ROOT
+
+    from sumpwise import grade, load_ruleset, read_samples
+    text = ("sample_id,unit_id,class,lubricant,sampled_on,kv40,kv100,an\n"
+            "V-1,HPU-1,hydraulic,HYD-46-HV,2026-03-02,6.0,1.5,0.3\n"
+            "V-2,HPU-2,hydraulic,HYD-46-HV,2026-03-02,46.0,,0.3\n")
+    results = {r.sample_id: r for r in grade(read_samples(io.StringIO(text), "vi.csv"),
+                                             load_ruleset(ROOT / "rules" / "hydraulic.yaml")).results()}
+    gaps = {r: {g.rule: g.missing for g in results[r].not_evaluated} for r in results}
+    assert gaps["V-1"]["hv-shear-loss"] == ("vi",)
+    assert gaps["V-2"]["hv-shear-loss"] == ("kv100",)  # an input missing is named as before
