@@ -241,6 +241,18 @@ def _capped_condition(rule, column: np.ndarray, caps: list, measured: pd.DataFra
     return out
 
 
+def _caps_on(ruleset: RuleSet, rule, capping: np.ndarray) -> list:
+    """(cap, rows where it is in force) of each caveat's cap on a measure the rule reads."""
+    return [(caveat.cap, capping[:, k]) for k, caveat in enumerate(ruleset.caveats)
+            if caveat.cap is not None and rule.reads & caveat.cap.measures]
+
+
+def _cap_levels(levels: np.ndarray, caps: list) -> None:
+    """A ladder rule's levels held down, in place, to each cap's level where it is in force."""
+    for cap, capping in caps:
+        levels[capping & (levels > cap.level)] = cap.level
+
+
 def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
     """Grade every row of `measured` (the output of derive_measures) under `ruleset`."""
     n = len(measured)
@@ -288,14 +300,11 @@ def evaluate(ruleset: RuleSet, measured: pd.DataFrame) -> Outcome:
             unchecked[:, k] = truth & ~lift_known
         capping_all[:, k] = capping
     for j, slot in enumerate(slots):
-        caps = [(caveat.cap, capping_all[:, k]) for k, caveat in enumerate(ruleset.caveats)
-                if caveat.cap is not None and slot.rule.reads & caveat.cap.measures]
+        caps = _caps_on(ruleset, slot.rule, capping_all)
         if not caps:
             continue
         if isinstance(slot.rule, LadderRule):
-            column = final[:, j]
-            for cap, capping in caps:
-                column[capping & (column > cap.level)] = cap.level
+            _cap_levels(final[:, j], caps)
         else:
             final[:, j] = _capped_condition(slot.rule, raw[:, j], caps, measured)
 
@@ -366,10 +375,7 @@ def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> d
             _, known = _limit_truth(rule.measure, rule.test, limit, columns)
             possible[~known & interval.censored] = level  # a missing value is a gap, not a bound
             limit_of[level] = limit
-        for k, caveat in enumerate(ruleset.caveats):
-            if caveat.cap is not None and rule.reads & caveat.cap.measures:
-                capped = outcome.capping[rows, k] & (possible > caveat.cap.level)
-                possible[capped] = caveat.cap.level
+        _cap_levels(possible, _caps_on(ruleset, rule, outcome.capping[rows]))
         higher = possible > outcome.level[rows]
         if not higher.any():
             continue
@@ -381,7 +387,7 @@ def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> d
             limit = limit_of[level]
             shown = f"{limit:g}" if isinstance(limit, (int, float)) else str(limit)
             reading = written[higher & (possible == level)].astype(str).astype(object)
-            as_written = np.array([w[:1] in "<>\u2264\u2265" for w in reading.tolist()], dtype=bool)
+            as_written = np.isin(reading.astype("U1"), ["<", ">", "\u2264", "\u2265"])  # first characters
             reading[as_written] = "written '" + reading[as_written] + "'"  # a derived one says its own source
             text = (f"{rule.id}: {rule.measure} " + reading + f" may be {rule.test} its {ruleset.grades[level]} "
                     f"limit ({shown}{' ' + unit if unit else ''})")

@@ -18,7 +18,7 @@ import pandas as pd
 from sumpwise.version import engine_name
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.render.jsonl import states
-from sumpwise.render.narrative import step_phrase
+from sumpwise.render.narrative import phrases_of
 from sumpwise.render.safe_text import spreadsheet_frame
 from sumpwise.results.records import UNRATED, GradedBatch, gap_at, gap_states, record_shape_groups
 
@@ -115,7 +115,7 @@ def _next_steps(batch: GradedBatch) -> np.ndarray:
         fired = sorted((-int(out.final[rep, j]), j) for j in rules if out.final[rep, j] > 0)
         steps = [out.slots[j].rule.next_step for _, j in fired]
         steps += [rs.caveats[k].next_step for k in caveats if out.caveats[rep, k]]
-        table.append("; ".join(dict.fromkeys(step_phrase(x.task, x.within_days) for x in steps)))
+        table.append("; ".join(phrases_of(steps)))
     return np.array(table, dtype=object)[state]
 
 

@@ -48,7 +48,11 @@ def step_phrase(task: str, within_days: int | None) -> str:
 
 def step_phrases(result) -> list[str]:
     """A result's next steps in words, each once, in the order its reasons and caveats ask them."""
-    steps = [x.next_step for x in result.reasons + result.caveats if x.next_step is not None]
+    return phrases_of([x.next_step for x in result.reasons + result.caveats if x.next_step is not None])
+
+
+def phrases_of(steps) -> list[str]:
+    """Next steps in words, each once, in the order given."""
     return list(dict.fromkeys(step_phrase(s.task, s.within_days) for s in steps))
 
 
