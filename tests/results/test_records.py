@@ -110,9 +110,9 @@ def test_results_in_order_equal_each_record_read_alone():
 
 
 def test_a_condition_rule_on_a_measure_that_cannot_be_derived_names_that_measure():
-    # ASTM D2270 defines the viscosity index for kv100 of 2 mm2/s and above: a high-VI hydraulic
-    # fluid read at kv100 1.5 has no VI, so the shipped hv-shear-loss rule (VI below 130) is not
-    # evaluated. Its inputs (kv40, kv100) are all there: the record names the measure, vi, not the
+    # ASTM D2270 defines the viscosity index for kv100 of 2 mm2/s and above (D2270 §1.2, shared
+    # fact sheet viscosity.md): a high-VI hydraulic fluid read at kv100 1.5 has no VI, so the
+    # shipped hv-shear-loss rule (VI below 130) is not evaluated. Its inputs (kv40, kv100) are all there: the record names the measure, vi, not the
     # rule's own id as if it were an input.
     import io
 
