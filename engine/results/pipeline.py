@@ -120,9 +120,13 @@ def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
 
 def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases: tuple) -> pd.DataFrame:
     """Each unit's samples a later chunk's trends need: its latest, and before it the run of
-    rising samples a `<base>_rising` count of the latest goes back over."""
+    rising samples a `<base>_rising` count of the latest goes back over, its last sample with oil
+    hours, its last with a lubricant code and its last oil change (an oil change is looked for
+    back to them: trends._oil_charges). An oil change the engine found is carried as a flag."""
     names = list(CHAIN_COLUMNS) + list(bases)
     own = pd.DataFrame({name: (measured[name].to_numpy() if name in measured else None) for name in names})
+    if "oil_change_note" in measured:
+        own["oil_changed"] = measured["oil_change_note"].notna().to_numpy()
     rising = [measured[f"{base}_rising"].to_numpy(dtype=float) for base in bases if f"{base}_rising" in measured]
     with np.errstate(invalid="ignore"):
         run = np.nanmax(np.stack(rising), axis=0, initial=0.0) if rising else np.zeros(len(own))
@@ -143,7 +147,14 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     unit_last = np.repeat(last, np.diff(np.r_[-1, last]))
     from_end = unit_last - np.arange(len(order))
     keep = frame["_keep"].to_numpy()[order][unit_last]
-    return frame.iloc[order[from_end < keep]][names].reset_index(drop=True)
+    kept = from_end < keep
+    first = np.r_[0, last[:-1] + 1]
+    lubricant = frame["lubricant"].to_numpy(dtype=object)[order] if "lubricant" in frame else np.full(len(order), None)
+    changed = frame["oil_changed"].to_numpy()[order].astype(bool)
+    for evidence in (np.isfinite(hours[order]), pd.notna(lubricant), changed):
+        latest = np.maximum.accumulate(np.where(evidence, np.arange(len(order)), -1))[last]
+        kept[latest[latest >= first]] = True
+    return frame.iloc[order[kept]][names].reset_index(drop=True)
 
 
 def _check_order(batch: SampleBatch, history: pd.DataFrame) -> None:

@@ -1,0 +1,124 @@
+"""Silent wrong grades in trends, found with realistic unit histories (fixtures in
+tests/data/derive_found3/), each checked through the real grade: the grade, the rules that
+fired or were not evaluated, and the caveats that say why.
+
+Sources of the expectations: oil hours restart at an oil change and no rate is taken across
+it (shared/reference/limits.md "Service hours", common practice, no source); a trend step
+compares two samples of one oil charge (common practice, no source).
+"""
+
+from __future__ import annotations
+
+import json
+
+import sumpwise
+from conftest import DATA, run_cli
+
+FOUND = DATA / "derive_found3"
+RULES = FOUND / "rules.yaml"
+
+
+def _graded(name, history=None):
+    return sumpwise.grade(sumpwise.read_samples(FOUND / name), sumpwise.load_ruleset(RULES))
+
+
+def _caveats(result):
+    return [c.caveat for c in result.caveats if c.caveat != "few-rules-evaluated"]
+
+
+def _fired(result):
+    return {(r.rule, r.grade) for r in result.reasons}
+
+
+def _unevaluated(result):
+    return {n.rule for n in result.not_evaluated}
+
+
+def test_an_oil_change_behind_a_sample_without_oil_hours_restarts_the_trend():
+    # ST-7 sampled monthly: 7300, 8000, (no hours: old oil), 400 after an unflagged change.
+    # Before: S-104 (fresh oil, kv40 31.5) was stepped against S-103 (old oil, 33.1): -1.6 mm2/s
+    # fired viscosity-jump at watch on a fresh charge.
+    graded = _graded("missing-hours.csv")
+    fresh = graded.find("S-104")
+    assert fresh.grade == "normal"
+    assert _fired(fresh) == set()
+    assert {"viscosity-jump", "acid-jump"} <= _unevaluated(fresh)
+    assert _caveats(fresh) == ["oil-changed"]
+    assert fresh.caveats[0].message.startswith(
+        "first sample after an oil change (oil hours fell from 8000 to 400 since the previous sample of unit "
+        "ST-7 with oil hours (S-102, 2026-02-09))")
+    # the sample without oil hours may be of either charge: no step to it or from it, and it says so
+    between = graded.find("S-103")
+    assert _caveats(between) == ["oil-charge-unknown"]
+    assert "between samples S-102 and S-104 of unit ST-7" in between.caveats[0].message
+    assert "viscosity-jump" in _unevaluated(between)
+    # the new charge trends from its own first sample
+    after = graded.find("S-105")
+    assert _caveats(after) == [] and after.grade == "normal"
+    assert graded.measured.set_index("sample_id").at["S-105", "kv40_step"] == 0.1
+
+
+def test_a_fresh_sample_without_oil_hours_is_not_stepped_against_the_old_oil():
+    # ST-8: the oil was changed before S-203, whose oil hours are missing. Before: S-203's kv40
+    # step against S-202 (old oil) was -1.7 mm2/s and fired viscosity-jump at watch.
+    graded = _graded("missing-hours-fresh.csv")
+    unplaced = graded.find("S-203")
+    assert unplaced.grade == "normal" and _fired(unplaced) == set()
+    assert _caveats(unplaced) == ["oil-charge-unknown"]
+    assert "viscosity-jump" in _unevaluated(unplaced)
+    assert _caveats(graded.find("S-204")) == ["oil-changed"]  # 8000 -> 1100: said where it shows
+
+
+def test_a_lubricant_code_change_is_an_oil_change():
+    # ST-9 keeps no oil hours; its oil went from ISO VG 32 to VG 46 at S-403 (flag left empty).
+    # Before: kv40 step 46.1 - 32.6 = 13.5 mm2/s fired viscosity-jump at alert on new oil.
+    graded = _graded("lubricant-change.csv")
+    changed = graded.find("S-403")
+    assert changed.grade == "normal" and _fired(changed) == set()
+    assert _caveats(changed) == ["oil-changed"]
+    assert "lubricant changed from TURB-32-M to TURB-46-M since the previous sample of unit ST-9 (S-402" in \
+        changed.caveats[0].message
+    assert graded.measured.set_index("sample_id").at["S-404", "kv40_step"] == 0.1
+
+
+def _records(path):
+    return {r["sample_id"]: r for r in map(json.loads, path.read_text().splitlines())}
+
+
+def _said(record):
+    return [c["caveat"] for c in record["caveats"] if c["caveat"] != "few-rules-evaluated"]
+
+
+def test_the_look_back_holds_across_chunks(tmp_path):
+    # ST-6: 7300, 8000, (no hours, readings steady so no rising run is carried), then 400 after an
+    # unflagged change. In chunks of one row, S-304's look-back to S-302 crosses two chunk
+    # boundaries: the carried history must hold the unit's last sample with oil hours.
+    # Before: only S-303 was carried, and S-304 (fresh, kv40 31.5) was stepped against it: watch.
+    both = tmp_path / "both.csv"
+    lines = (FOUND / "steady-after-change.csv").read_text().splitlines(True)[1:]
+    both.write_text((FOUND / "steady-missing-hours.csv").read_text() + "".join(lines))
+    out = tmp_path / "chunked.jsonl"
+    run = run_cli("grade", both, "--rules", RULES, "--chunk-rows", 1, "--out", out)
+    assert run.code == 0, run.err
+    records = _records(out)
+    assert records["S-304"]["grade"] == "normal" and _said(records["S-304"]) == ["oil-changed"]
+    # in one chunk, S-303 is seen to lie between the change's two sides; in chunks of one row it
+    # was graded before S-304 was read (a stated limit of chunks, README "Trend measures")
+    whole = tmp_path / "whole.jsonl"
+    assert run_cli("grade", both, "--rules", RULES, "--out", whole).code == 0
+    assert _said(_records(whole)["S-303"]) == ["oil-charge-unknown"]
+    assert _said(records["S-303"]) == []
+
+
+def test_the_look_back_holds_from_a_ledger(tmp_path):
+    # The same unit imported in two batches: the ledger's history gives S-304 its look-back.
+    db, out = tmp_path / "ledger.db", tmp_path / "second.jsonl"
+    assert run_cli("grade", FOUND / "steady-missing-hours.csv", "--rules", RULES, "--db", db,
+                   "--out", tmp_path / "first.jsonl").code == 0
+    run = run_cli("grade", FOUND / "steady-after-change.csv", "--rules", RULES, "--db", db, "--out", out)
+    assert run.code == 0, run.err
+    records = _records(out)
+    assert records["S-304"]["grade"] == "normal" and _said(records["S-304"]) == ["oil-changed"]
+    assert "since the previous sample of unit ST-6 with oil hours (S-302, 2026-02-09)" in \
+        records["S-304"]["caveats"][0]["message"]
+    assert records["S-305"]["grade"] == "normal" and _said(records["S-305"]) == []
