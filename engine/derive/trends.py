@@ -1,7 +1,8 @@
 """Trend measures: each sample against its unit's previous sample, for a whole batch at once.
 
-Samples are put in order by unit, sample date and oil hours (a ledger's earlier samples of the
-same units first, so they come before the batch's on a tie). A unit's chain restarts at an oil
+Samples are put in order by unit, sample date and oil hours (on one date, a sample flagged
+`oil_changed` after the others; a ledger's earlier samples of the same units first, so they
+come before the batch's on a tie). A unit's chain restarts at an oil
 change: the `oil_changed` flag, the lubricant code changing, or oil hours going down against
 the unit's last sample that has oil hours (a sample without them in between hides nothing). A
 sample without oil hours between an oil change's two sides cannot be placed on either charge:
@@ -31,6 +32,10 @@ from sumpwise.intake.samples import Reject, SampleBatch
 CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant")
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing date: after every real one
+HOURS_A_DAY = 24.0  # the most oil hours a calendar day can add
+# A quarter more, for oil hours read off a meter on another day than the sample was taken
+# (our margin, no source): only hours the calendar cannot hold by far are refused.
+HOURS_MARGIN = 1.25
 
 
 TREND_CAVEATS = (
@@ -150,18 +155,24 @@ def date_keys(dates: np.ndarray) -> np.ndarray:
     return np.where(codes >= 0, keys[np.maximum(codes, 0)] if len(keys) else _LAST, _LAST)
 
 
-def _trend_order(unit_codes: np.ndarray, day_keys: np.ndarray, hours: np.ndarray) -> np.ndarray:
-    """The stable order by unit, date, then oil hours (missing hours last).
+def _trend_order(unit_codes: np.ndarray, day_keys: np.ndarray, hours: np.ndarray,
+                 flags: np.ndarray | None = None) -> np.ndarray:
+    """The stable order by unit, date, the `oil_changed` flag (on one date a flagged sample
+    comes after the others: the oil was changed that day, after the old oil was sampled), then
+    oil hours (missing hours last).
 
-    The three ranks are packed into one integer key when it fits: one stable argsort is
-    cheaper than lexsort's pass per key, and gives the same order.
+    The ranks are packed into one integer key when it fits: one stable argsort is cheaper than
+    lexsort's pass per key, and gives the same order.
     """
+    flag = np.zeros(len(hours), dtype=np.int64) if flags is None else np.asarray(flags, dtype=np.int64)
     date_rank, dates = _dense_rank(day_keys)
     hour_rank, hour_values = _dense_rank(np.where(np.isnan(hours), np.inf, hours) + 0.0)  # + 0.0: -0.0 ties 0.0
     units = int(unit_codes.max(initial=-1)) + 2  # codes run from -1 (no unit)
-    if units * max(dates, 1) * max(hour_values, 1) >= 2 ** 63:
-        return np.lexsort((hour_rank, date_rank, unit_codes))
-    return np.argsort((unit_codes + 1) * (dates * hour_values) + date_rank * hour_values + hour_rank, kind="stable")
+    within = 2 * max(hour_values, 1)
+    if units * max(dates, 1) * within >= 2 ** 63:
+        return np.lexsort((hour_rank, flag, date_rank, unit_codes))
+    return np.argsort((unit_codes + 1) * (dates * within) + date_rank * within + flag * hour_values + hour_rank,
+                      kind="stable")
 
 
 def _shifted(values: np.ndarray, fill) -> np.ndarray:
@@ -193,7 +204,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     unit_codes, _ = pd.factorize(chain["unit_id"])
     dates = date_keys(chain["sampled_on"])
     hours = chain["oil_hours"]
-    order = _trend_order(unit_codes, dates, hours)
+    order = _trend_order(unit_codes, dates, hours, chain["oil_changed"])
 
     unit = unit_codes[order]
     dated = dates[order] != _LAST
@@ -201,7 +212,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
     flagged = chain["oil_changed"][order]
-    charges = _oil_charges(unit, same_unit, h, flagged, pd.factorize(chain["lubricant"])[0][order])
+    charges = _oil_charges(unit, same_unit, h, flagged, pd.factorize(chain["lubricant"])[0][order], dates[order])
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
     linked = same_unit & dated & _shifted(dated, False) & ~new_oil & ~unplaced & ~_shifted(unplaced, False)
 
@@ -294,7 +305,7 @@ def _break_notes(chain: dict, before: np.ndarray, method_changed: np.ndarray, la
 
 
 def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged: np.ndarray,
-                 lubricant: np.ndarray) -> dict:
+                 lubricant: np.ndarray, day_keys: np.ndarray) -> dict:
     """Where each unit's oil charges start, in trend order (all arrays sorted).
 
     A charge starts at the `oil_changed` flag, at a lubricant code other than the unit's last
@@ -302,7 +313,9 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     (looked back past samples without oil hours, common practice, no source: oil hours restart
     at an oil change, shared/reference/limits.md "Service hours"). `unplaced` marks the samples
     without oil hours (and, for a lubricant change, without a lubricant code) that lie between
-    the two sides of such a change: they may be of either charge.
+    the two sides of such a change: they may be of either charge. So does a sample whose oil hours
+    rose since the charge's last ones by more than the calendar holds (_most_hours): its hours or
+    a date are wrong, or the two are not of one charge, and no step or rate is taken to or from it.
     """
     n = len(unit)
     positions = np.arange(n)
@@ -344,9 +357,14 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     unplaced &= ~new_oil
     # what placed nothing: the change it lies before, and that change's other side
     change_of = np.where(~timed & (fall >= 0) & hours_fell[fall_at], fall, change)
+    from_at = np.maximum(hours_from, 0)
+    dated = day_keys != _LAST
+    days = np.where(dated & dated[from_at], (day_keys - day_keys[from_at]) / 86_400e9, np.nan)
+    with np.errstate(invalid="ignore"):
+        outrun = timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days))
     return {"new_oil": new_oil, "hours_fell": hours_fell, "hours_from": hours_from,
             "lubricant_changed": lubricant_changed, "lubricant_from": lubricant_from,
-            "unplaced": unplaced, "change_of": change_of}
+            "unplaced": unplaced | outrun, "outrun": outrun, "days": days, "change_of": change_of}
 
 
 def _oil_notes(chain: dict, order: np.ndarray, mine: np.ndarray, flagged: np.ndarray, charges: dict,
@@ -388,7 +406,19 @@ def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dic
     sample after such a one (no step to it either) that starts no charge itself."""
     notes = np.full(len(mine), None, dtype=object)
     after = _shifted(unplaced, False) & ~unplaced & ~new_oil
-    hit = np.flatnonzero(unplaced[mine])
+    outrun = charges["outrun"]
+    hit = np.flatnonzero(outrun[mine])
+    if len(hit):
+        at = mine[hit]
+        base = order[charges["hours_from"][at]]
+        days = charges["days"][at]
+        notes[hit] = ("oil hours rose from " + _hours(h[charges["hours_from"][at]]) + " ("
+                      + _text(chain["sample_id"][base]) + ", " + _text(chain["sampled_on"][base]) + ") to "
+                      + _hours(h[at]) + " in " + _hours(days) + " days, more than the calendar holds (at most "
+                      + _hours(_most_hours(days)) + " h: 24 h a day and a quarter more): the oil hours or a date "
+                      "are wrong, or the two "
+                      "samples are not of one oil charge; trend measures are not computed on it")
+    hit = np.flatnonzero(unplaced[mine] & ~outrun[mine])
     if len(hit):
         at = mine[hit]
         change = charges["change_of"][at]
@@ -408,6 +438,12 @@ def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dic
                       + _text(chain["sample_id"][before]) + ", " + _text(chain["sampled_on"][before])
                       + ") cannot be placed on one oil charge; trend measures restart here, with no step")
     return notes
+
+
+def _most_hours(days: np.ndarray) -> np.ndarray:
+    """The most oil hours a unit can run between two dates `days` apart: both dates' days in full
+    (a date carries no time of day), 24 h each, with HOURS_MARGIN."""
+    return HOURS_A_DAY * (days + 1.0) * HOURS_MARGIN
 
 
 def _hours(values: np.ndarray) -> np.ndarray:

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import json
 
+import pytest
+
 import sumpwise
 from conftest import DATA, run_cli
 
@@ -46,7 +48,7 @@ def test_an_oil_change_behind_a_sample_without_oil_hours_restarts_the_trend():
     assert _caveats(fresh) == ["oil-changed"]
     assert fresh.caveats[0].message.startswith(
         "first sample after an oil change (oil hours fell from 8000 to 400 since the previous sample of unit "
-        "ST-7 with oil hours (S-102, 2026-02-09))")
+        "ST-7 with oil hours (S-102, 2026-02-05))")
     # the sample without oil hours may be of either charge: no step to it or from it, and it says so
     between = graded.find("S-103")
     assert _caveats(between) == ["oil-charge-unknown"]
@@ -119,6 +121,52 @@ def test_the_look_back_holds_from_a_ledger(tmp_path):
     assert run.code == 0, run.err
     records = _records(out)
     assert records["S-304"]["grade"] == "normal" and _said(records["S-304"]) == ["oil-changed"]
-    assert "since the previous sample of unit ST-6 with oil hours (S-302, 2026-02-09)" in \
+    assert "since the previous sample of unit ST-6 with oil hours (S-302, 2026-02-05)" in \
         records["S-304"]["caveats"][0]["message"]
     assert records["S-305"]["grade"] == "normal" and _said(records["S-305"]) == []
+
+
+def test_the_old_oil_sampled_on_the_day_of_an_oil_change_comes_before_the_new():
+    # ST-3: the old oil sampled at the drain (S-602, 8000 h) and the new fill the same day
+    # (S-603, 0 h, flagged). Ordered by oil hours alone, the old oil came after the new: S-602
+    # was stepped against fresh oil (an +0.20: acid-jump at watch)
+    # and S-604 (700 h on the new oil) was taken for another oil change, losing its step.
+    graded = _graded("same-day-change.csv")
+    old = graded.find("S-602")
+    assert old.grade == "normal" and _fired(old) == set() and _caveats(old) == []
+    assert graded.measured.set_index("sample_id").at["S-602", "an_step"] == 0.02  # against S-601
+    assert _caveats(graded.find("S-603")) == ["oil-changed"]
+    later = graded.find("S-604")
+    assert _caveats(later) == [] and "viscosity-jump" not in _unevaluated(later)
+    assert graded.measured.set_index("sample_id").at["S-604", "an_step"] == 0.02  # against S-603
+
+
+def test_oil_hours_that_outrun_the_calendar_give_no_rate(tmp_path):
+    # ST-4: S-502's oil hours were keyed 80000 for 8000. Between 2026-01-05 and 2026-02-05 (31
+    # days) a unit can run at most 32 x 24 = 768 h (a calendar day holds 24 h; the dates carry no
+    # time of day); the engine allows a quarter more, 960 h (its margin, no source). Before: iron
+    # +8 ppm over 72,700 h was 0.11 ppm per 1000 h and iron-rate passed without a word (over the
+    # real ~700 h it is about 11, above the alert 10).
+    graded = _graded("hours-typo.csv")
+    typo = graded.find("S-502")
+    assert "iron-rate" in _unevaluated(typo)
+    assert _caveats(typo) == ["oil-charge-unknown"]
+    assert typo.caveats[0].message.startswith(
+        "oil hours rose from 7300 (S-501, 2026-01-05) to 80000 in 31 days, more than the calendar holds (at most "
+        "960 h")
+    assert all("iron-rate" not in {r.rule for r in graded.find(s).reasons} for s in ("S-502", "S-503"))
+
+
+def _without_forecasts(text):
+    return [dict(json.loads(line), forecasts=None) for line in text.splitlines()]
+
+
+@pytest.mark.parametrize("name", ["same-day-change.csv", "lubricant-change.csv", "hours-typo.csv"])
+@pytest.mark.parametrize("rows", [1, 2])
+def test_chunks_grade_these_histories_as_the_whole_file(tmp_path, name, rows):
+    # The project's rule for chunks (tests/results/test_chunks.py): the records of the whole file,
+    # forecasts aside, when no sample needs a later chunk to be placed on its oil charge.
+    whole, chunked = tmp_path / "whole.jsonl", tmp_path / "chunked.jsonl"
+    assert run_cli("grade", FOUND / name, "--rules", RULES, "--out", whole).code == 0
+    assert run_cli("grade", FOUND / name, "--rules", RULES, "--chunk-rows", rows, "--out", chunked).code == 0
+    assert _without_forecasts(chunked.read_text()) == _without_forecasts(whole.read_text())

@@ -224,7 +224,8 @@ def test_oil_changed_spellings(value, flag):
 
 
 def test_packed_sort_key_gives_numpy_lexsort_order():
-    # Reference: numpy.lexsort (stable, last key first): unit, then date, then oil hours with missing hours last.
+    # Reference: numpy.lexsort (stable, last key first): unit, then date, then the oil-changed flag,
+    # then oil hours with missing hours last.
     from sumpwise.derive.trends import _trend_order, date_keys
     rng = np.random.default_rng(11)
     n = 5000
@@ -234,4 +235,7 @@ def test_packed_sort_key_gives_numpy_lexsort_order():
     hours = rng.choice([0.0, -0.0, 10.0, 25.5, np.nan, np.inf, 1e9], n)
     expected = np.lexsort((np.arange(n), np.where(np.isnan(hours), np.inf, hours), dates, units))
     assert np.array_equal(_trend_order(units, dates, hours), expected)
+    flags = rng.random(n) < 0.3  # on one date, a flagged sample after the others, then by oil hours
+    expected = np.lexsort((np.arange(n), np.where(np.isnan(hours), np.inf, hours), flags, dates, units))
+    assert np.array_equal(_trend_order(units, dates, hours, flags), expected)
     assert len(_trend_order(units[:0], dates[:0], hours[:0])) == 0
