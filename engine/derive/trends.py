@@ -33,9 +33,10 @@ CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing date: after every real one
 HOURS_A_DAY = 24.0  # the most oil hours a calendar day can add
-# A quarter more, for oil hours read off a meter on another day than the sample was taken
-# (our margin, no source): only hours the calendar cannot hold by far are refused.
-HOURS_MARGIN = 1.25
+# Twice that, for oil hours estimated or read off a meter on another day than the sample was
+# taken (our margin, no source): only hours the calendar cannot hold by far (a digit too many,
+# a wrong year or month) are refused.
+HOURS_MARGIN = 2.0
 
 
 TREND_CAVEATS = (
@@ -47,8 +48,8 @@ TREND_CAVEATS = (
                  "(common practice, no source)"),
     EngineCaveat("oil-charge-unknown", "oil_charge_note",
                  "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
-                 "code to tell which side of an oil change it lies) is not compared step by step "
-                 "(common practice, no source)"),
+                 "code to tell which side of an oil change it lies, or oil hours the calendar cannot hold) is "
+                 "not compared step by step or by rate (common practice, no source)"),
 )
 
 
@@ -234,7 +235,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     names = trend_columns(bases)
     out = np.empty((len(names), len(measured)))
     span = h - h_before
-    span = np.where(comparable & (span > 0), span, np.nan)
+    span = np.where(comparable & (span > 0) & ~charges["outrun"], span, np.nan)
     np.take(span, mine, out=out[0])
     scratch = np.empty((4, total))
     previous, step, rate, rising = scratch
@@ -314,8 +315,9 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     at an oil change, shared/reference/limits.md "Service hours"). `unplaced` marks the samples
     without oil hours (and, for a lubricant change, without a lubricant code) that lie between
     the two sides of such a change: they may be of either charge. So does a sample whose oil hours
-    rose since the charge's last ones by more than the calendar holds (_most_hours): its hours or
-    a date are wrong, or the two are not of one charge, and no step or rate is taken to or from it.
+    rose since the charge's last ones by more than the calendar holds (_most_hours) is `outrun`:
+    its hours or a date are wrong, or the two are not of one charge. No rate is taken to it; on
+    one date (an oil change that day, unflagged, puts the new fill first) no step either.
     """
     n = len(unit)
     positions = np.arange(n)
@@ -364,7 +366,7 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
         outrun = timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days))
     return {"new_oil": new_oil, "hours_fell": hours_fell, "hours_from": hours_from,
             "lubricant_changed": lubricant_changed, "lubricant_from": lubricant_from,
-            "unplaced": unplaced | outrun, "outrun": outrun, "days": days, "change_of": change_of}
+            "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of}
 
 
 def _oil_notes(chain: dict, order: np.ndarray, mine: np.ndarray, flagged: np.ndarray, charges: dict,
@@ -415,9 +417,10 @@ def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dic
         notes[hit] = ("oil hours rose from " + _hours(h[charges["hours_from"][at]]) + " ("
                       + _text(chain["sample_id"][base]) + ", " + _text(chain["sampled_on"][base]) + ") to "
                       + _hours(h[at]) + " in " + _hours(days) + " days, more than the calendar holds (at most "
-                      + _hours(_most_hours(days)) + " h: 24 h a day and a quarter more): the oil hours or a date "
-                      "are wrong, or the two "
-                      "samples are not of one oil charge; trend measures are not computed on it")
+                      + _hours(_most_hours(days)) + " h: 24 h a day, twice over): the oil hours or a date "
+                      "are wrong, or the two samples are not of one oil charge; "
+                      + np.where(days == 0, "trend measures are not computed on it",
+                                 "no rate per 1000 h is taken to it"))
     hit = np.flatnonzero(unplaced[mine] & ~outrun[mine])
     if len(hit):
         at = mine[hit]

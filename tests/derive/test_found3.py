@@ -144,7 +144,7 @@ def test_the_old_oil_sampled_on_the_day_of_an_oil_change_comes_before_the_new():
 def test_oil_hours_that_outrun_the_calendar_give_no_rate(tmp_path):
     # ST-4: S-502's oil hours were keyed 80000 for 8000. Between 2026-01-05 and 2026-02-05 (31
     # days) a unit can run at most 32 x 24 = 768 h (a calendar day holds 24 h; the dates carry no
-    # time of day); the engine allows a quarter more, 960 h (its margin, no source). Before: iron
+    # time of day); the engine allows twice that, 1536 h (its margin, no source). Before: iron
     # +8 ppm over 72,700 h was 0.11 ppm per 1000 h and iron-rate passed without a word (over the
     # real ~700 h it is about 11, above the alert 10).
     graded = _graded("hours-typo.csv")
@@ -153,7 +153,7 @@ def test_oil_hours_that_outrun_the_calendar_give_no_rate(tmp_path):
     assert _caveats(typo) == ["oil-charge-unknown"]
     assert typo.caveats[0].message.startswith(
         "oil hours rose from 7300 (S-501, 2026-01-05) to 80000 in 31 days, more than the calendar holds (at most "
-        "960 h")
+        "1536 h")
     assert all("iron-rate" not in {r.rule for r in graded.find(s).reasons} for s in ("S-502", "S-503"))
 
 
@@ -170,3 +170,17 @@ def test_chunks_grade_these_histories_as_the_whole_file(tmp_path, name, rows):
     assert run_cli("grade", FOUND / name, "--rules", RULES, "--out", whole).code == 0
     assert run_cli("grade", FOUND / name, "--rules", RULES, "--chunk-rows", rows, "--out", chunked).code == 0
     assert _without_forecasts(chunked.read_text()) == _without_forecasts(whole.read_text())
+
+
+def test_an_unflagged_oil_change_on_the_day_the_old_oil_was_sampled_is_not_stepped():
+    # ST-2: as ST-3, but nobody set oil_changed on the new fill (S-703, 0 h). By oil hours the new
+    # fill comes first on that date, and the old oil (S-702, 8000 h) after it: 8000 h in one day is
+    # more than the calendar holds, so S-702 is not stepped against the new fill. Before: its
+    # step (an +0.20) fired acid-jump at watch.
+    graded = _graded("same-day-change-unflagged.csv")
+    old = graded.find("S-702")
+    assert old.grade == "normal" and _fired(old) == set()
+    assert _caveats(old) == ["oil-charge-unknown"]
+    assert {"acid-jump", "viscosity-jump"} <= _unevaluated(old)
+    assert "rose from 0 (S-703, 2026-02-05) to 8000 in 0 days" in old.caveats[0].message
+    assert _caveats(graded.find("S-703")) == ["oil-changed"]

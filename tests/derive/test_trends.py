@@ -64,7 +64,7 @@ def test_order_is_by_date_then_hours_not_by_input_order():
     out = _trends(rows).set_index("sample_id")
     assert out.at["B", "oxidation_step"] == 1.0
     assert out.at["C", "oxidation_step"] == -0.5
-    same_day = [_row("X2", "01-05", 1200, 7.0), _row("X1", "01-05", 1100, 6.0)]
+    same_day = [_row("X2", "01-05", 1120, 7.0), _row("X1", "01-05", 1100, 6.0)]  # 20 h apart: one day holds them
     tied = _trends(same_day).set_index("sample_id")
     assert tied.at["X2", "oxidation_step"] == 1.0  # same date: oil hours decide
 
