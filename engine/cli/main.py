@@ -34,12 +34,12 @@ from sumpwise.render.safe_text import spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.results.records import UNRATED
 from sumpwise.cli import spectra as spectra_command
-from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
+from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references, reference_files
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
 from sumpwise.cli.exit_codes import FINDINGS, INTERNAL, OK, USAGE
 from sumpwise.cli.record_output import RecordOutput, default_jobs
-from sumpwise.cli.options import output_file, output_folder, positive_mm, reject_count, row_count
+from sumpwise.cli.options import output_file, output_folder, positive_mm, refuse_overwriting, reject_count, row_count
 
 CHUNK_ROWS = 200_000  # rows `grade` reads, grades and writes at a time: about 1 GB at most (README: large files)
 
@@ -331,6 +331,12 @@ def _grade(args, stdin, stdout, stderr) -> int:
             raise UsageError(f"sumpwise grade: --fail-on-caveat {caveat!r} is no caveat of the rule set or the engine"
                              + (f"; did you mean {close[0]!r}?" if close else ""))
     sources = _sources(args.samples)
+    refuse_overwriting([("--out", args.out), ("--rejects", args.rejects), ("--summary", args.summary)],
+                       [("the samples file", source) for source in sources]
+                       + [("the rule set", path) for path in ruleset.files] + [("--columns", args.columns)]
+                       + [("the reference spectrum", path) for path in
+                          reference_files(ruleset, parse_references(args.reference)).values()]
+                       + [("the ledger --db", args.db)])
     files, found_grade, found_unrated, conflicts = [], False, False, 0
     with contextlib.ExitStack() as stack:
         out = _opened(stack, args.out, "--out") if args.out else stdout
