@@ -26,7 +26,6 @@ from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, TREND_BASES, TREND
                                          declared_trend_measures)
 from sumpwise.ruleset.model import RuleSet, condition_measures
 from sumpwise.vocabulary.caveats import EngineCaveat
-from sumpwise.intake.censored import WRITTEN_SUFFIX, number_text
 from sumpwise.intake.samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
@@ -240,7 +239,6 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     np.take(span, mine, out=out[0])
     scratch = np.empty((4, total))
     previous, step, rate, rising = scratch
-    bounds = {}  # a rate whose step is within the noise margin: its interval's columns (the evaluator reads them)
     for k, base in enumerate(bases):
         values = chain[base][order]
         if total:
@@ -255,21 +253,11 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         margin = absolute + factor * np.abs((values + previous) / 2.0 + offset) if factor else absolute
         with np.errstate(invalid="ignore"):
             risen = step > margin
-            noise = (np.abs(step) <= margin) & (margin > 0) & np.isfinite(rate)
-        noise = noise[mine]
-        if noise.any():
-            bounds[f"{base}_step_per_1000h"] = _noise_bounds(base, noise, step[mine], np.broadcast_to(margin, total)[mine],
-                                                           span[mine])
         np.maximum.accumulate(np.where(risen, 0, positions), out=rising)  # the last reset, as float
         np.subtract(positions, rising, out=rising)
         rising[np.isnan(step)] = np.nan
         np.take(scratch, mine, axis=1, out=out[1 + 4 * k: 5 + 4 * k])
-        out[3 + 4 * k][noise] = np.nan  # the rate is its interval, not a number
     numbers = pd.DataFrame(out.T, index=measured.index, columns=names, copy=False)
-    if bounds:
-        numbers = pd.concat([numbers, pd.DataFrame({column: values for name, found in bounds.items()
-                                                    for column, values in found.items()}, index=measured.index)],
-                            axis=1)
 
     before = _shifted(order, 0)[mine]  # chain row of each incoming row's predecessor
     # Each row's unbroken run (one unit, one oil charge, one method and lab: a forecast fits over
@@ -283,24 +271,6 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, new_oil),
     }, index=measured.index, dtype=object)
     return pd.concat([measured, numbers, runs, notes], axis=1)
-
-
-def _noise_bounds(base: str, rows: np.ndarray, step: np.ndarray, margin: np.ndarray, span: np.ndarray) -> dict:
-    """A rate whose step is no larger than the noise margin, as the interval of rates the two
-    readings allow: (step - margin, step + margin) / hours x 1000, closed. Over a short span a
-    step of test scatter is a steep rate; the interval says the rate may be nothing at all
-    (a rule's limit inside it is undecided: not evaluated, and the bound caveat says so)."""
-    name = f"{base}_step_per_1000h"
-    with np.errstate(invalid="ignore", divide="ignore"):
-        low = np.where(rows, np.round((step - margin) / span * 1000.0, DECIMALS), np.nan)
-        high = np.where(rows, np.round((step + margin) / span * 1000.0, DECIMALS), np.nan)
-    written = np.full(len(rows), None, dtype=object)
-    for k in np.flatnonzero(rows):  # the rows whose step is within the margin: a few in a batch
-        written[k] = (f"[{number_text(low[k])}, {number_text(high[k])}] from {base} step {number_text(step[k])}, "
-                      f"within its noise margin {number_text(margin[k])}, over {number_text(span[k])} h")
-    closed = np.zeros(len(rows), dtype=bool)
-    return {name + ":low": low, name + ":high": high, name + ":low_open": closed, name + ":high_open": closed.copy(),
-            name + WRITTEN_SUFFIX: written}
 
 
 def _text(values: np.ndarray) -> np.ndarray:

@@ -184,23 +184,3 @@ def test_an_unflagged_oil_change_on_the_day_the_old_oil_was_sampled_is_not_stepp
     assert {"acid-jump", "viscosity-jump"} <= _unevaluated(old)
     assert "rose from 0 (S-703, 2026-02-05) to 8000 in 0 days" in old.caveats[0].message
     assert _caveats(graded.find("S-703")) == ["oil-changed"]
-
-
-def test_a_resample_next_day_is_not_a_steep_rate_made_of_test_scatter():
-    # ST-5: iron steady at 30-31 ppm, then resampled the next day (20 h later) at 33 ppm: a step
-    # of 2 ppm, no larger than the rule set's noise margin for iron (2 ppm, "steps of 2 ppm or
-    # less are noise"). Over 20 h it is 100 ppm per 1000 h. Before: iron-rate fired at alert on
-    # test scatter. The rate the two readings allow is 0 to 200 per 1000 h: the limit (10) lies
-    # inside, so the rule is not evaluated and the grade-may-be-higher caveat says why.
-    graded = _graded("resample-next-day.csv")
-    resample = graded.find("S-803")
-    assert resample.grade == "normal" and _fired(resample) == set()
-    assert "iron-rate" in _unevaluated(resample)
-    assert _caveats(resample) == ["grade-may-be-higher"]
-    assert "iron_step_per_1000h [0, 200] from iron step 2, within its noise margin 2, over 20 h" in \
-        resample.caveats[0].message
-    # a step beyond the margin keeps its rate: 8 ppm over 740 h is 10.8 per 1000 h, above 10
-    month = graded.find("S-804")
-    assert ("iron-rate", "alert") in _fired(month)
-    # and one inside it over a month decides the rule: (1 +- 2) / 700 h x 1000 is at most 4.3
-    assert "iron-rate" not in _unevaluated(graded.find("S-802")) and graded.find("S-802").grade == "normal"
