@@ -22,10 +22,11 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, TREND_BASES, TREND_MEASURES, TRENDED,
+from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, ROW_DERIVED, TREND_BASES, TREND_MEASURES, TRENDED,
                                          declared_trend_measures)
 from sumpwise.ruleset.model import RuleSet, condition_measures
 from sumpwise.vocabulary.caveats import EngineCaveat
+from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.intake.samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
@@ -33,6 +34,8 @@ CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing date: after every real one
 HOURS_A_DAY = 24.0  # the most oil hours a calendar day can add
+# Row measures taken per 1000 of the sample's own oil hours.
+PER_OIL_HOUR = tuple(m.name for m in ROW_DERIVED if "oil_hours" in m.needs)
 # Twice that, for oil hours estimated or read off a meter on another day than the sample was
 # taken (our margin, no source): only hours the calendar cannot hold by far (a digit too many,
 # a wrong year or month) are refused.
@@ -270,7 +273,15 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "oil_change_note": _oil_notes(chain, order, mine, flagged, charges, h),
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, new_oil),
     }, index=measured.index, dtype=object)
-    return pd.concat([measured, numbers, runs, notes], axis=1)
+    out = pd.concat([measured, numbers, runs, notes], axis=1)
+    outrun = charges["outrun"][mine]
+    if outrun.any():  # its own oil hours may be the wrong ones: no rate per 1000 oil hours on it either
+        for name in PER_OIL_HOUR:
+            for column, empty in ((name, np.nan), (name + ":low", np.nan), (name + ":high", np.nan),
+                                  (name + WRITTEN_SUFFIX, None)):
+                if column in out.columns:
+                    out[column] = out[column].where(~outrun, empty)
+    return out
 
 
 def _text(values: np.ndarray) -> np.ndarray:
@@ -420,7 +431,7 @@ def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dic
                       + _hours(_most_hours(days)) + " h: 24 h a day, twice over): the oil hours or a date "
                       "are wrong, or the two samples are not of one oil charge; "
                       + np.where(days == 0, "trend measures are not computed on it",
-                                 "no rate per 1000 h is taken to it"))
+                                 "no rate per 1000 h is taken to it, nor one per 1000 of its own oil hours"))
     hit = np.flatnonzero(unplaced[mine] & ~outrun[mine])
     if len(hit):
         at = mine[hit]

@@ -184,3 +184,16 @@ def test_an_unflagged_oil_change_on_the_day_the_old_oil_was_sampled_is_not_stepp
     assert {"acid-jump", "viscosity-jump"} <= _unevaluated(old)
     assert "rose from 0 (S-703, 2026-02-05) to 8000 in 0 days" in old.caveats[0].message
     assert _caveats(graded.find("S-703")) == ["oil-changed"]
+
+
+def test_oil_hours_that_outrun_the_calendar_give_no_rate_on_the_sample_itself():
+    # ST-10, a young charge: S-903's oil hours keyed 20000 for 2000 (18,700 h in 28 days).
+    # oxidation_rise_per_1000h is the rise over the sample's own oil hours: 4.2 abs/cm over
+    # 20,000 h is 0.21 and carbonyl-rising-fast (above 2 after 1000 h, the shipped steam-turbine
+    # limit) passed without a word; over the real ~2000 h it is 2.1, above it.
+    graded = _graded("young-charge-typo.csv")
+    typo = graded.find("S-903")
+    assert "carbonyl-rising-fast" in _unevaluated(typo)
+    assert _caveats(typo) == ["oil-charge-unknown"]
+    assert typo.caveats[0].message.endswith("nor one per 1000 of its own oil hours")
+    assert "carbonyl-rising-fast" not in _unevaluated(graded.find("S-902"))  # 2.3 / 1.3 = 1.8: decided
