@@ -197,3 +197,17 @@ def test_oil_hours_that_outrun_the_calendar_give_no_rate_on_the_sample_itself():
     assert _caveats(typo) == ["oil-charge-unknown"]
     assert typo.caveats[0].message.endswith("nor one per 1000 of its own oil hours")
     assert "carbonyl-rising-fast" not in _unevaluated(graded.find("S-902"))  # 2.3 / 1.3 = 1.8: decided
+
+
+def test_a_forecast_fits_only_the_charge_after_a_change_seen_past_a_sample_without_oil_hours():
+    # ST-11: four samples of the old charge (3000-5100 h), one without oil hours, then the new
+    # charge (300-2400 h) climbing. Before: one run held both charges, the fit mixed them and no
+    # forecast was made. The forecast is the new charge's own least-squares line: checked against
+    # scipy.stats.linregress on those four samples (oxidation_rise = oxidation - 1.2 abs/cm new).
+    from scipy import stats
+    graded = _graded("forecast-across-change.csv")
+    [made] = [f for f in graded.forecasts if f.rule == "carbonyl-rise"]
+    fit = stats.linregress([300.0, 1000.0, 1700.0, 2400.0], [0.4, 2.6, 4.7, 6.8])
+    assert made.sample_id == "S-959" and made.samples == 4 and made.grade == "watch"
+    assert made.slope_per_1000h == pytest.approx(fit.slope * 1000.0, rel=1e-9)
+    assert made.at_hours == pytest.approx((8.0 - fit.intercept) / fit.slope, abs=1e-3)
