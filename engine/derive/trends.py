@@ -292,7 +292,7 @@ def _text(values: np.ndarray) -> np.ndarray:
     return np.array([str(v) for v in text], dtype=object)
 
 
-def _since(chain: dict, before: np.ndarray, which: str = "") -> np.ndarray:
+def _since(chain: dict, before: np.ndarray, which="") -> np.ndarray:
     """" since the previous sample of unit U[which] (ID, DATE)" for the given predecessor rows."""
     def column(name):
         return _text(chain[name][before])
@@ -395,22 +395,28 @@ def _oil_notes(chain: dict, order: np.ndarray, mine: np.ndarray, flagged: np.nda
 
 def _why(chain: dict, order: np.ndarray, at: np.ndarray, flagged: np.ndarray, charges: dict,
          h: np.ndarray) -> np.ndarray:
-    """What tells an oil change at the sorted positions `at` (each one of them is a change)."""
-    fell, changed = charges["hours_fell"][at], charges["lubricant_changed"][at]
-    hours_from = np.maximum(charges["hours_from"][at], 0)
-    lubricant_from = np.maximum(charges["lubricant_from"][at], 0)
-    adjacent = hours_from == at - 1
-    fell_text = ("oil hours fell from " + _hours(h[hours_from]) + " to " + _hours(h[at])
-                 + np.where(adjacent, _since(chain, order[hours_from]),
-                            _since(chain, order[hours_from], " with oil hours")))
-    lubricant = chain["lubricant"]
-    changed_text = ("lubricant changed from " + _text(lubricant[order[lubricant_from]]) + " to "
-                    + _text(lubricant[order[at]])
-                    + np.where(lubricant_from == at - 1, _since(chain, order[lubricant_from]),
-                               _since(chain, order[lubricant_from], " with a lubricant code")))
-    why = np.where(fell, fell_text, "")
-    why = np.where(changed, np.where(fell, changed_text + " and " + why, changed_text), why)
-    return np.where(flagged[at], "oil_changed is set on this sample", why)
+    """What tells an oil change at the sorted positions `at` (each one of them is a change); each
+    phrase is built only for the rows it describes."""
+    why = np.full(len(at), "oil_changed is set on this sample", dtype=object)
+    told = flagged[at]
+    fell = np.flatnonzero(charges["hours_fell"][at] & ~told)
+    if len(fell):
+        to = at[fell]
+        start = charges["hours_from"][to]
+        which = np.where(start == to - 1, "", " with oil hours").astype(object)
+        why[fell] = ("oil hours fell from " + _hours(h[start]) + " to " + _hours(h[to])
+                     + _since(chain, order[start], which))
+    changed = np.flatnonzero(charges["lubricant_changed"][at] & ~told)
+    if len(changed):
+        to = at[changed]
+        start = charges["lubricant_from"][to]
+        which = np.where(start == to - 1, "", " with a lubricant code").astype(object)
+        lubricant = chain["lubricant"]
+        text = ("lubricant changed from " + _text(lubricant[order[start]]) + " to " + _text(lubricant[order[to]])
+                + _since(chain, order[start], which))
+        both = charges["hours_fell"][to]
+        why[changed] = np.where(both, text + " and " + why[changed], text)
+    return why
 
 
 def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray,
