@@ -377,7 +377,8 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
         outrun = timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days))
     return {"new_oil": new_oil, "hours_fell": hours_fell, "hours_from": hours_from,
             "lubricant_changed": lubricant_changed, "lubricant_from": lubricant_from,
-            "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of}
+            "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of,
+            "same_unit": same_unit}
 
 
 def _oil_notes(chain: dict, order: np.ndarray, mine: np.ndarray, flagged: np.ndarray, charges: dict,
@@ -424,7 +425,7 @@ def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dic
     """The oil-charge-unknown note: on a sample that cannot be placed on one charge, and on the
     sample after such a one (no step to it either) that starts no charge itself."""
     notes = np.full(len(mine), None, dtype=object)
-    after = _shifted(unplaced, False) & ~unplaced & ~new_oil
+    after = _shifted(unplaced, False) & ~unplaced & ~new_oil & charges["same_unit"]
     outrun = charges["outrun"]
     hit = np.flatnonzero(outrun[mine])
     if len(hit):
