@@ -35,7 +35,7 @@ from sumpwise.intake.spectra.bands import load_bands
 from sumpwise.intake.spectra.batch import (SUBTRACTION, check_dilution, check_path_length, measure_spectra,
                                            read_spectrum)
 from sumpwise.intake.spectra.ester import detect_ester, resolve_base_stock
-from sumpwise.intake.spectra.spectrum import SpectrumError
+from sumpwise.intake.spectra.spectrum import SpectrumError, sampling_problem
 from sumpwise.vocabulary.units import factor_to_canonical
 
 # Band columns that are engine measures; the band file's water and fuel bands are
@@ -142,7 +142,12 @@ def _ester_evidence(refs: dict[str, Path], path_length_mm: float) -> dict:
             spectrum = read_spectrum(path)
         except (SpectrumError, OSError) as exc:
             raise InputError(f"new-oil reference spectrum for {code}: {exc}") from None
-        evidence[code] = detect_ester(spectrum, spectrum.path_length_mm or path_length_mm)
+        length = spectrum.path_length_mm or path_length_mm
+        problem = ("a difference spectrum is not a new oil" if spectrum.difference else
+                   sampling_problem(spectrum, length, load_bands().saturation_absorbance))
+        if problem is not None:  # it would misread every sample of that lubricant, as an unreadable one would
+            raise InputError(f"new-oil reference spectrum for {code}: {path}: {problem}")
+        evidence[code] = detect_ester(spectrum, length)
     return evidence
 
 

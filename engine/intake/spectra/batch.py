@@ -25,7 +25,7 @@ import pandas as pd
 
 from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_columns, plan_bands, saturated_bands
 from sumpwise.intake.spectra.jcampdx import read_jcampdx, read_jcampdx_many
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError
+from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, sampling_problem
 from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
 
 REFERENCE_PATH_MM = 0.1
@@ -179,24 +179,38 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     loaded_refs = {}
     for i in list(spectra):
         ref_path = refs[i]
-        if ref_path is None:
+        if ref_path is None or spectra[i].difference:
             continue
         if ref_path not in loaded_refs:
             try:
                 loaded_refs[ref_path] = read_spectrum(ref_path)
             except SpectrumError as exc:
                 loaded_refs[ref_path] = exc
+            else:
+                ref = loaded_refs[ref_path]
+                problem = ("a difference spectrum is not a new oil" if ref.difference else
+                           sampling_problem(ref, ref.path_length_mm or reference_path_length_mm or path_length_mm,
+                                            bands.saturation_absorbance))
+                if problem is not None:
+                    loaded_refs[ref_path] = SpectrumError(ref.source, None, problem)
         if isinstance(loaded_refs[ref_path], SpectrumError):
             rejections[i] = Rejection(str(paths[i]), None, f"reference spectrum unusable: {loaded_refs[ref_path]}")
             del spectra[i]
 
     used_path = {i: (s.path_length_mm or path_length_mm) for i, s in spectra.items()}
+    for i in list(spectra):  # a whole oil thinner than its cell, or a difference spectrum that does not say so
+        problem = sampling_problem(spectra[i], used_path[i] / dilutions[i], bands.saturation_absorbance)
+        if problem is not None:
+            rejections[i] = Rejection(str(paths[i]), None, problem)
+            del spectra[i]
     groups = {}
     for i, spectrum in spectra.items():
-        groups.setdefault((spectrum.wavenumber.tobytes(), refs[i]), []).append(i)
+        # a declared difference spectrum is read as it is: the lab's instrument already subtracted the new oil
+        ref_path = None if spectrum.difference else refs[i]
+        groups.setdefault((spectrum.wavenumber.tobytes(), ref_path, spectrum.difference), []).append(i)
 
     rows, notes = {}, {}
-    for (_, ref_path), members in groups.items():
+    for (_, ref_path, difference), members in groups.items():
         x = spectra[members[0]].wavenumber
         plan = plan_bands(x, bands.bands)
         columns = np.stack([spectra[i].absorbance for i in members], axis=1)  # as cheap as rows, no later copy
@@ -212,18 +226,25 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             ref_saturated = saturated_bands(plan, np.nan_to_num(reference, nan=0.0), bands.saturation_absorbance)
         values, _, uncovered = _measure_columns_matrix(
             x, columns, bands, neat, reference, ref_path_mm, block_size, plan)
+        if difference:  # already used minus new: abs/cm as a subtraction reads it (ASTM D7412 12.1-12.2)
+            values = {name: value * ABS_PER_CM_PER_ABS_PER_01MM for name, value in values.items()}
         direct = set(direct_bands) if ref_path is not None else set()
         if direct:
             own, _, _ = _measure_columns_matrix(x, columns, bands, neat, None, None, block_size, plan)
             values |= {name: own[name] * ABS_PER_CM_PER_ABS_PER_01MM for name in direct}
             ref_saturated = {name: flags for name, flags in ref_saturated.items() if name not in direct}
-        method = DIRECT if ref_path is None else SUBTRACTION
+        method = DIRECT if ref_path is None and not difference else SUBTRACTION
         for k, i in enumerate(members):
             row, why = {}, []
+            if difference and refs[i] is not None:
+                why.append(f"reference {refs[i]} not subtracted: the file is already a difference spectrum")
             for band in bands.bands:
                 value = float(values[band.name][k])
                 if band.name in uncovered:
                     why.append(f"{band.name}: not measured: {uncovered[band.name]}")
+                elif difference and band.name in direct_bands:
+                    why.append(f"{band.name}: not measured: the spectrum is a difference spectrum, and {band.name} "
+                               "is read directly on the used oil only")
                 elif band.name in ref_saturated and ref_saturated[band.name][0]:
                     why.append(f"{band.name}: not measured: the reference is saturated "
                                f"{_saturation_words(band, bands)}")
@@ -247,7 +268,7 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
 
     records = []
     for i, path in enumerate(paths):
-        ref_path = refs[i]
+        ref_path = None if i in spectra and spectra[i].difference else refs[i]
         record = {"spectrum": str(path)}
         record |= rows.get(i, {name: np.nan for name in bands.names} | {"method": DIRECT if ref_path is None else SUBTRACTION})
         record["unit"] = UNITS[record["method"]] if i in rows else ""

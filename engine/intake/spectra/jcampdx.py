@@ -31,7 +31,8 @@ from pathlib import Path
 
 import numpy as np
 
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, make_spectrum, parse_path_length, y_unit_kind
+from sumpwise.intake.spectra.spectrum import (Spectrum, SpectrumError, declares_difference, make_spectrum,
+                                              parse_path_length, y_unit_kind)
 
 # A mid-infrared spectrum at 0.5 cm-1 over 4000-400 cm-1 has 7 201 points; a million bounds
 # the memory one damaged NPOINTS could ask for.
@@ -257,7 +258,8 @@ def _spectrum(ctx, x, y, evenly_spaced=False):
         path_length = parse_path_length(ctx.source, ctx.line("PATHLENGTH"), ctx.header["PATHLENGTH"])
     return make_spectrum(ctx.source, x, y, ctx.header["XUNITS"], ctx.header["YUNITS"],
                          ctx.line("FIRSTX") or ctx.data_line, evenly_spaced=evenly_spaced,
-                         path_length_mm=path_length)
+                         path_length_mm=path_length,
+                         difference=declares_difference(ctx.header.get("DATAPROCESSING", "")))
 
 
 def _decode(items):
