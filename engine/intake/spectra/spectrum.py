@@ -226,6 +226,7 @@ C_H_CORE = (2850.0, 2960.0)  # the stretch region all four CH2/CH3 stretches cov
 C_H_BEND = (1450.0, 1470.0)  # the CH2 scissor / CH3 asymmetric bend, for spectra that stop below 2850
 C_H_FLOOR = 1.0  # absorbance at 0.1 mm of neat oil above the 1900-2200 level: our choice, see above
 DIFFERENCE_CEILING = 0.3  # |C-H| at 0.1 mm that a declared difference spectrum may keep: our choice
+CANCELLED = 0.03  # below this |C-H| at 0.1 mm the refusal calls the bands cancelled, not weak (wording only)
 REFERENCE_MM = 0.1
 
 
@@ -285,8 +286,8 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
     found = c_h_strength(spectrum, neat_path_mm, saturation)
     if found is None:
         return None
-    where = (f"its {found.band} ({_span(found.band)} cm-1) stands {found.recorded:.3g} above the "
-             f"{C_H_BASELINE[0]:g}-{C_H_BASELINE[1]:g} cm-1 level as recorded, {found.at_01mm:.3g} at 0.1 mm of neat "
+    where = (f"its {found.band} ({_span(found.band)} cm-1) stands {found.recorded:.3f} above the "
+             f"{C_H_BASELINE[0]:g}-{C_H_BASELINE[1]:g} cm-1 level as recorded, {found.at_01mm:.3f} at 0.1 mm of neat "
              f"oil ({neat_path_mm:g} mm read)")
     if spectrum.difference:
         if found.ceiling or abs(found.at_01mm) > DIFFERENCE_CEILING:
@@ -295,7 +296,7 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
         return None
     if found.ceiling or found.at_01mm >= C_H_FLOOR:
         return None
-    if abs(found.at_01mm) <= DIFFERENCE_CEILING:
+    if abs(found.at_01mm) < CANCELLED:
         kind = ("the C-H bands every oil has are absent or cancelled: not an oil, or a difference spectrum (used "
                 "minus new oil, already subtracted), which read as a used oil would grade its gain as a direct "
                 "reading or have the new oil subtracted twice; if it is one, say so (##DATA PROCESSING=SPECTRAL SUBTRACTION OF "
@@ -303,7 +304,7 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
     else:
         kind = ("too weak for any transmission cell of the FTIR oil methods: an ATR or other short-path "
                 "spectrum (say so in ##SAMPLING PROCEDURE=; it is refused, having no path length), or a "
-                "wrong path length or dilution")
+                f"wrong path length or dilution (a difference spectrum keeps less than {CANCELLED:g})")
     return (f"{where}; any oil through a transmission cell reads at least {C_H_FLOOR:g} there (or sits at the "
             f"{saturation:g} absorbance ceiling): {kind}")
 
