@@ -107,7 +107,9 @@ def test_an_unlabelled_atr_spectrum_is_refused_not_read_as_a_tenth_of_a_millimet
 def test_an_atr_or_difference_spectrum_given_as_the_new_oil_stops_the_run(tmp_path):
     for reference in ("atr10-C7.jdx", "used-minus-new-C7.jdx", "used-minus-new-C7-declared.jdx"):
         run, _ = _grade(tmp_path, {"W": FOUND / "used-C7.jdx"}, "--reference", f"COMP-46-M={FOUND / reference}")
-        # before: subtracted as the new oil; the 10-reflection ATR took almost nothing away (9.4 abs/cm)
+        # before: each was subtracted as the new oil: the 10-reflection ATR took almost nothing away (8.4
+        # abs/cm, watch, right only because this mineral oil's own carbonyl is small), the difference
+        # spectrum took the gain itself away (1.0 abs/cm: normal, for a watch oil)
         assert run.code == 2 and run.out == ""
         assert f"new-oil reference spectrum for COMP-46-M: {FOUND / reference}:" in run.err, run.err
 
