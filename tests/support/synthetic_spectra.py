@@ -119,6 +119,18 @@ def atr_spectrum(x, reflections: int = 1, noise: float = 0.0, seed: int = 0, **o
     return y
 
 
+def at_resolution(x, y, resolution: float):
+    """The spectrum as an instrument of `resolution` cm-1 records it: y convolved with a line shape
+    approximated by a Gaussian of that full width at half height (our simplification; real
+    apodised line shapes differ in their wings). x evenly spaced; the ends are padded flat."""
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    sigma = resolution / (2 * np.sqrt(2 * np.log(2)))
+    step = x[1] - x[0]
+    reach = int(np.ceil(4 * sigma / abs(step)))
+    kernel = np.exp(-0.5 * (np.arange(-reach, reach + 1) * step / sigma) ** 2)
+    return np.convolve(np.pad(y, reach, mode="edge"), kernel / kernel.sum(), mode="valid")
+
+
 def _true_absorbance(x, base_stock, oxidation, nitration, sulfation, water, soot, antiwear_left, slope, offset):
     y = offset + slope * (x - x.min()) + soot
     bands = _HYDROCARBON + (_ESTER if base_stock == "ester" else ())

@@ -259,7 +259,16 @@ def _spectrum(ctx, x, y, evenly_spaced=False):
     return make_spectrum(ctx.source, x, y, ctx.header["XUNITS"], ctx.header["YUNITS"],
                          ctx.line("FIRSTX") or ctx.data_line, evenly_spaced=evenly_spaced,
                          path_length_mm=path_length,
-                         difference=declares_difference(ctx.header.get("DATAPROCESSING", "")))
+                         difference=declares_difference(ctx.header.get("DATAPROCESSING", "")),
+                         resolution_cm1=_resolution(ctx.header.get("RESOLUTION", "")))
+
+
+def _resolution(text):
+    """cm-1 from a ##RESOLUTION= such as `4`, `4.0 CM-1` or `0.5`; None when it starts with no positive number
+    (a free-text resolution is not compared)."""
+    match = re.match(r"\s*(\d+\.?\d*|\.\d+)", text)
+    value = float(match.group(1)) if match else 0.0
+    return value if value > 0 else None
 
 
 def _decode(items):

@@ -49,6 +49,7 @@ class Spectrum:
     # The file says it holds a difference spectrum (used minus new oil, subtracted by the lab's
     # instrument): ##DATA PROCESSING= naming a spectral subtraction, or a CSV column so named.
     difference: bool = False
+    resolution_cm1: float | None = None  # from the file's ##RESOLUTION=, when it gives a number
 
     def __post_init__(self):
         for array in (self.wavenumber, self.absorbance):
@@ -74,7 +75,7 @@ def absorbance_from_transmittance(transmittance, percent: bool):
 
 
 def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), evenly_spaced=False,
-                  path_length_mm=None, difference=False):
+                  path_length_mm=None, difference=False, resolution_cm1=None):
     """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity.
 
     evenly_spaced: x was built as first + k * delta, so two points settle its order.
@@ -111,7 +112,7 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
             "there, so the values look like transmittance read as absorbance (or the reverse); give the y "
             "unit (##YUNITS=, or a CSV header such as '%T')"))
     return Spectrum(source, np.ascontiguousarray(x), np.ascontiguousarray(y), x_units, y_units, range_line, tuple(notes),
-                    path_length_mm, difference)
+                    path_length_mm, difference, resolution_cm1)
 
 
 # The C-H stretch of any hydrocarbon or ester oil is its strongest infrared band (IR correlation

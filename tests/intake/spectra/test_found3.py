@@ -13,6 +13,8 @@ defaults, no source. The C-H figures that tell a whole oil through a cell from a
 ATR spectrum are in engine/intake/spectra/spectrum.py (from memory and our choice, with figures).
 """
 
+import csv
+import io
 import json
 import re
 
@@ -146,3 +148,46 @@ def test_a_thick_cell_and_a_heavy_dilution_still_read_as_whole_oils(tmp_path):
     for sid in rows:
         assert records[sid]["values"]["oxidation_differential"] == pytest.approx(8.5, abs=0.3), sid
         assert records[sid]["grade"] == "watch"
+
+
+def _grade_pe(folder, reference):
+    # AC-3's polyol ester (COMP-46-PE): 0.065 of carbonyl gained at 0.1 mm, 6.5 abs/cm; its acid number has
+    # not risen, so the ester caveat caps a carbonyl finding at watch
+    rows = ["sample_id,unit_id,class,lubricant,sampled_on,oil_hours,an,spectrum",
+            f"P,AC-3,screw-compressor,COMP-46-PE,2026-11-02,3000,0.10,{FOUND / 'used-PE-res4.jdx'}"]
+    (folder / "samples.csv").write_text("\n".join(rows) + "\n")
+    run = run_cli("grade", folder / "samples.csv", "--rules", SCREW, "--reference", f"COMP-46-PE={FOUND / reference}")
+    return run, {r["sample_id"]: r for r in map(json.loads, run.out.splitlines())}
+
+
+def test_the_ester_oil_against_a_reference_recorded_alike_is_the_right_grade(tmp_path):
+    run, records = _grade_pe(tmp_path, "new-PE-res4.jdx")
+    assert run.code == 0, run.err
+    assert records["P"]["values"]["oxidation_differential"] == pytest.approx(6.5, abs=0.3)
+    assert records["P"]["grade"] == "normal"
+
+
+def test_a_reference_on_a_coarser_grid_is_subtracted_on_its_own_points(tmp_path):
+    # the same new-oil recording, written every 8 cm-1 (a low-density export) where the sample has 2
+    run, records = _grade_pe(tmp_path, "new-PE-res4-grid8.jdx")
+    assert run.code == 0, run.err
+    record = records["P"]
+    # before: the reference interpolated onto the 2 cm-1 grid lost the top of its ester carbonyl (2.0 at
+    # 0.1 mm), and the difference read 6.5 + 1.6 = 8.1 abs/cm: watch, for a normal oil (the residue, 1.6
+    # here, 2.0-4.4 with other noise draws or gains, moves an oil within a few abs/cm of a limit across it)
+    assert record["values"]["oxidation_differential"] == pytest.approx(6.5, abs=0.3)
+    assert record["grade"] == "normal"
+    (row,) = csv.DictReader(io.StringIO(run_cli("spectra", FOUND / "used-PE-res4.jdx", "--reference",
+                                                FOUND / "new-PE-res4-grid8.jdx").out))
+    assert "subtracted on the reference's grid (points 8 cm-1 apart" in row["notes"]
+    assert float(row["oxidation"]) == pytest.approx(6.5, abs=0.3)
+
+
+def test_a_reference_recorded_at_another_resolution_is_refused(tmp_path):
+    run, records = _grade_pe(tmp_path, "new-PE-res16.jdx")
+    assert run.code == 0, run.err
+    # before: the 16 cm-1 reference's lower, wider ester band left a residue of about 18 abs/cm in the
+    # difference (its area near zero, so no reference-mismatch caveat): 24.7 abs/cm, watch under the cap
+    assert records == {}
+    assert re.search(r"rejected F001: spectrum: .*used-PE-res4\.jdx: recorded at 4 cm-1 resolution \(##RESOLUTION=\), "
+                     r"its reference .*new-PE-res16\.jdx at 16", run.err), run.err
