@@ -276,7 +276,8 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             if not any(math.isfinite(row[name]) for name in needed if name in row):
                 first = next((w for w in why if w.split(":")[0] in needed), why[0] if why else "no band measured")
                 line = spectra[i].range_line if any(n in uncovered for n in needed) else None
-                rejections[i] = Rejection(str(paths[i]), line, "none of the needed bands could be measured; " + first)
+                rejections[i] = Rejection(str(paths[i]), line, "none of the needed bands could be measured; " + first
+                                          + _unit_hint(spectra[i]))
                 continue
             rows[i] = row | {"method": method, "unit": UNITS[method]}
             notes[i] = "; ".join(why)
@@ -340,6 +341,22 @@ def _resolution_problem(spectrum: Spectrum, reference: Spectrum) -> str | None:
     return (f"recorded at {mine:g} cm-1 resolution (##RESOLUTION=), its reference {reference.source} at {theirs:g}: "
             "a subtraction of spectra recorded at different resolutions leaves a residue of every sharp band (an "
             "ester's own carbonyl reads as 5-24 abs/cm gained); record both alike")
+
+
+def _unit_hint(spectrum: Spectrum) -> str:
+    """A hint when an x axis read as cm-1 lies wholly outside the mid-infrared (4000-400 cm-1 is 2.5-25 um;
+    ftir.md): wavelengths written under a wavenumber label or none."""
+    x = spectrum.wavenumber
+    if spectrum.x_units.upper().replace(" ", "") not in ("1/CM", "CM-1", "CM^-1", "WAVENUMBERS", "WAVENUMBER"):
+        return ""
+    if x[-1] < 400:
+        kind = "micrometres (2.5-25 um is 4000-400 cm-1)"
+    elif x[0] > 1000 and x[-1] > 10000:
+        kind = "nanometres (2500-25000 nm is 4000-400 cm-1)"
+    else:
+        return ""
+    return (f"; x values {x[0]:g}-{x[-1]:g} read as cm-1 lie outside the mid-infrared: wavelengths in {kind}? say "
+            "so (##XUNITS=MICROMETERS or NANOMETERS, or a CSV header such as 'wavelength (um)')")
 
 
 def _saturation_words(band, bands: BandSet) -> str:

@@ -191,3 +191,20 @@ def test_a_reference_recorded_at_another_resolution_is_refused(tmp_path):
     assert records == {}
     assert re.search(r"rejected F001: spectrum: .*used-PE-res4\.jdx: recorded at 4 cm-1 resolution \(##RESOLUTION=\), "
                      r"its reference .*new-PE-res16\.jdx at 16", run.err), run.err
+
+
+def test_a_difference_spectrum_that_stops_at_2200_is_judged_on_its_c_h_bend(tmp_path):
+    # without the C-H stretch region the CH2 bend near 1460 cm-1 speaks: cancelled too
+    run, records = _grade(tmp_path, {"D": FOUND / "used-minus-new-C7-2200.jdx"})
+    assert run.code == 0, run.err
+    # before: read as a direct reading, 8.5 abs/cm, a rise of 7.0: normal
+    assert records == {}
+    assert re.search(r"used-minus-new-C7-2200\.jdx: its C-H bend \(1450-1470 cm-1\) stands -?0\.00\d above", run.err)
+
+
+def test_wavelengths_in_micrometres_under_no_header_are_refused_with_a_hint(tmp_path):
+    # not a silent grade before either (no band lies in 2.5-18 "cm-1"); the refusal now says why
+    run, records = _grade(tmp_path, {"U": FOUND / "used-C7-micrometres.csv"})
+    assert run.code == 0, run.err
+    assert records == {}
+    assert "x values 2.5-18.1818 read as cm-1 lie outside the mid-infrared: wavelengths in micrometres" in run.err
