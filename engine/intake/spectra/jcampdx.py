@@ -218,14 +218,25 @@ def _prepare(text, source):
 _NO_CELL = re.compile(r"\b(ATR|ATTENUATED|REFLECT\w*|DRIFTS?|PHOTOACOUSTIC|PAS)\b")
 
 
+# Where files say ATR: the standard's sampling label first; then a processing note (instrument
+# software writes "ATR correction" there) and the title (labs name the accessory in it).
+# A title is free text about the sample too ("PAS-3 compressor", "reflects..."), so only the
+# unambiguous words count there.
+_NO_CELL_IN_TITLE = re.compile(r"\b(ATR|ATTENUATED TOTAL REFLECT\w*|DRIFTS|DIFFUSE REFLECT\w*|PHOTOACOUSTIC)\b")
+_SAMPLING_LABELS = (("SAMPLINGPROCEDURE", "SAMPLING PROCEDURE", _NO_CELL), ("DATAPROCESSING", "DATA PROCESSING", _NO_CELL),
+                    ("TITLE", "TITLE", _NO_CELL_IN_TITLE))
+
+
 def _check_sampling(ctx):
-    """Refuse a ##SAMPLING PROCEDURE= that names a method without a cell path length (ATR, reflectance)."""
-    said = ctx.header.get("SAMPLINGPROCEDURE", "")
-    found = _NO_CELL.search(said.upper())
-    if found:
-        raise SpectrumError(ctx.source, ctx.line("SAMPLINGPROCEDURE"),
-                            f"##SAMPLING PROCEDURE={said!r} names {found.group(1)}: such absorbances have no cell "
-                            "path length, so they cannot be put per 0.1 mm as transmission-cell readings are")
+    """Refuse a file whose ##SAMPLING PROCEDURE=, ##DATA PROCESSING= or ##TITLE= names a method without a cell
+    path length (ATR, reflectance)."""
+    for key, label, words in _SAMPLING_LABELS:
+        said = ctx.header.get(key, "")
+        found = words.search(said.upper())
+        if found:
+            raise SpectrumError(ctx.source, ctx.line(key),
+                                f"##{label}={said!r} names {found.group(1)}: such absorbances have no cell "
+                                "path length, so they cannot be put per 0.1 mm as transmission-cell readings are")
 
 
 def _next_label_line(text, start):

@@ -75,6 +75,11 @@ def _header_units(fields, source, line):
         x_units = "NANOMETERS"
     else:
         x_units = "1/CM"
+    no_cell = re.search(r"\b(atr|attenuated|reflect\w*|drifts?|photoacoustic)\b", y_name.lower())
+    if no_cell:  # as ##SAMPLING PROCEDURE= in JCAMP-DX (jcampdx._check_sampling)
+        raise SpectrumError(source, line, f"second column {y_name!r} names {no_cell.group(1).upper()}: such absorbances "
+                                          "have no cell path length, so they cannot be put per 0.1 mm as "
+                                          "transmission-cell readings are")
     difference = declares_difference(y_name) or bool(re.search(r"used\s*-\s*(new|reference|fresh)", y_name.lower()))
     if difference:
         y_name = re.sub(r"(?i)\bdifference\b|\(.*\)|\bsubtracted\b", "", y_name).strip() or "absorbance"

@@ -208,3 +208,37 @@ def test_wavelengths_in_micrometres_under_no_header_are_refused_with_a_hint(tmp_
     assert run.code == 0, run.err
     assert records == {}
     assert "x values 2.5-18.1818 read as cm-1 lie outside the mid-infrared: wavelengths in micrometres" in run.err
+
+
+@pytest.mark.parametrize("where, text", [
+    ("##TITLE=", "##TITLE= Brackwater Point C7 used oil, diamond ATR"),
+    ("##DATA PROCESSING=", "##DATA PROCESSING= ATR CORRECTION"),
+])
+def test_an_atr_spectrum_that_says_so_outside_the_sampling_label_is_refused_by_that_line(tmp_path, where, text):
+    lines = (FOUND / "atr10-C7.jdx").read_text().splitlines()
+    if where == "##TITLE=":
+        lines[0] = text
+    else:
+        lines.insert(4, text)
+    (tmp_path / "atr.jdx").write_text("\n".join(lines) + "\n")
+    run, records = _grade(tmp_path, {"A": "atr.jdx"})
+    assert records == {}
+    line = lines.index(text) + 1
+    assert f"atr.jdx:{line}: {where}" in run.err and "names ATR" in run.err, run.err
+
+
+def test_an_atr_csv_column_is_refused_by_its_header(tmp_path):
+    text = (FOUND / "atr-C7.csv").read_text().replace("cm-1,Absorbance", "cm-1,ATR absorbance", 1)
+    (tmp_path / "atr.csv").write_text(text)
+    run, records = _grade(tmp_path, {"A": "atr.csv"})
+    assert records == {}
+    assert re.search(r"atr\.csv:1: second column 'ATR absorbance' names ATR", run.err), run.err
+
+
+def test_a_title_that_only_looks_like_a_sampling_word_is_read(tmp_path):
+    # "PAS" is a photoacoustic sampling word in ##SAMPLING PROCEDURE=, and a unit name in a title
+    text = (FOUND / "used-C7.jdx").read_text().replace("##TITLE= Brackwater Point C7 used oil (synthetic)",
+                                                        "##TITLE= Brackwater Point PAS-3 used oil (synthetic)")
+    (tmp_path / "pas.jdx").write_text(text)
+    run, records = _grade(tmp_path, {"P": "pas.jdx"}, "--reference", NEW)
+    assert records["P"]["grade"] == "watch"
