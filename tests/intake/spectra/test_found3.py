@@ -242,3 +242,15 @@ def test_a_title_that_only_looks_like_a_sampling_word_is_read(tmp_path):
     (tmp_path / "pas.jdx").write_text(text)
     run, records = _grade(tmp_path, {"P": "pas.jdx"}, "--reference", NEW)
     assert records["P"]["grade"] == "watch"
+
+
+def test_an_x_column_sorted_apart_from_its_absorbances_is_refused(tmp_path):
+    # the wavenumbers ascending, the absorbances still in the instrument's descending order: every band
+    # mirrored about 2275 cm-1, so the C-H stretch lands on the carbonyl window and nothing on its own
+    run, records = _grade(tmp_path, {"M": FOUND / "used-C7-x-sorted.csv"})
+    assert run.code == 0, run.err
+    # before: normal, with oxidation and nitration "saturated" (the mirrored C-H stretch) and an antiwear
+    # of 0.02 abs/cm for the oil's 4.0, soot 6.0 for 4.9
+    assert records == {}
+    assert re.search(r"used-C7-x-sorted\.csv: its C-H stretch \(2850-2960 cm-1\) stands -?0\.0\d\d above .*absent or "
+                     r"cancelled", run.err), run.err
