@@ -25,7 +25,7 @@ import pandas as pd
 
 from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_columns, plan_bands, saturated_bands
 from sumpwise.intake.spectra.jcampdx import read_jcampdx, read_jcampdx_many
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, sampling_problem
+from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, plausible_sampling, sampling_problem
 from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
 
 REFERENCE_PATH_MM = 0.1
@@ -201,11 +201,6 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             del spectra[i]
 
     used_path = {i: (s.path_length_mm or path_length_mm) for i, s in spectra.items()}
-    for i in list(spectra):  # a whole oil thinner than its cell, or a difference spectrum that does not say so
-        problem = sampling_problem(spectra[i], used_path[i] / dilutions[i], bands.saturation_absorbance)
-        if problem is not None:
-            rejections[i] = Rejection(str(paths[i]), None, problem)
-            del spectra[i]
     groups = {}
     for i, spectrum in spectra.items():
         # a declared difference spectrum is read as it is: the lab's instrument already subtracted the new oil
@@ -215,9 +210,21 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     rows, notes = {}, {}
     for (_, ref_path, difference), members in groups.items():
         x = spectra[members[0]].wavenumber
-        plan = plan_bands(x, bands.bands)
         columns = np.stack([spectra[i].absorbance for i in members], axis=1)  # as cheap as rows, no later copy
         neat = np.array([used_path[i] / dilutions[i] for i in members])
+        # a whole oil thinner than its cell, or a difference spectrum that does not say so: one block test,
+        # worded spectrum by spectrum only for those it refuses
+        fine = plausible_sampling(x, columns, neat, difference, bands.saturation_absorbance)
+        if not fine.all():
+            for k in np.flatnonzero(~fine):
+                i = members[k]
+                rejections[i] = Rejection(str(paths[i]), None,
+                                          sampling_problem(spectra[i], neat[k], bands.saturation_absorbance))
+                del spectra[i]
+            members, columns, neat = [members[k] for k in np.flatnonzero(fine)], columns[:, fine], neat[fine]
+            if not members:
+                continue
+        plan = plan_bands(x, bands.bands)
         reference, ref_path_mm = None, None
         saturated = saturated_bands(plan, columns, bands.saturation_absorbance)
         ref_saturated = {}

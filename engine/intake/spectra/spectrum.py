@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 import re
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -252,29 +253,55 @@ class CHStrength:
 def c_h_strength(spectrum: Spectrum, neat_path_mm: float, saturation: float = 1.5) -> CHStrength | None:
     """The C-H strength of a spectrum read through `neat_path_mm` of neat oil; None when it reaches
     neither the stretch core nor the bend together with the 1900-2200 cm-1 window."""
-    x, y = spectrum.wavenumber, spectrum.absorbance
-    level = _window(x, y, C_H_BASELINE)
-    if level is None:
+    band, recorded, top = c_h_block(spectrum.wavenumber, spectrum.absorbance[:, None])
+    if band is None or not np.isfinite(recorded[0]):
         return None
-    core = _window(x, y, C_H_CORE, np.median)
-    if core is not None:
-        band, top = "C-H stretch", core
-    else:
-        bend = _window(x, y, C_H_BEND, np.max)
-        if bend is None:
-            return None
-        band, top = "C-H bend", bend
-    recorded = top - level
-    return CHStrength(band, recorded, bool(top >= saturation), recorded * REFERENCE_MM / neat_path_mm)
+    return CHStrength(band, float(recorded[0]), bool(top[0] >= saturation),
+                      float(recorded[0]) * REFERENCE_MM / neat_path_mm)
 
 
-def _window(x, y, window, reduce=np.mean):
-    """reduce() of the finite points within [low, high], or None when the spectrum has none there."""
+def c_h_block(x, columns):
+    """(band read, C-H excess as recorded, its absolute level) per column of a wavenumber-major block;
+    band None when the grid reaches neither region with the 1900-2200 cm-1 window; NaN where a column
+    has no finite point in a window. Whole-block reductions, no per-spectrum loop."""
+    level = _slab(x, columns, C_H_BASELINE, np.mean, np.nanmean)
+    if level is None:
+        return None, None, None
+    top, band = _slab(x, columns, C_H_CORE, np.median, np.nanmedian), "C-H stretch"
+    if top is None:
+        top, band = _slab(x, columns, C_H_BEND, np.max, np.nanmax), "C-H bend"
+    if top is None:
+        return None, None, None
+    return band, top - level, top
+
+
+def plausible_sampling(x, columns, neat_path_mm, difference: bool, saturation: float = 1.5) -> np.ndarray:
+    """bool per column: whether sampling_problem finds nothing (the same rule, for a whole block)."""
+    band, recorded, top = c_h_block(x, columns)
+    if band is None:
+        return np.ones(columns.shape[1], dtype=bool)
+    at_01mm = recorded * REFERENCE_MM / np.asarray(neat_path_mm, dtype=float)
+    ceiling = top >= saturation
+    unjudged = ~np.isfinite(recorded)
+    if difference:
+        return unjudged | (~ceiling & (np.abs(at_01mm) <= DIFFERENCE_CEILING))
+    return unjudged | ceiling | (at_01mm >= C_H_FLOOR)
+
+
+def _slab(x, columns, window, reduce, nan_reduce):
+    """reduce() down the rows of `columns` within [low, high] (NaN skipped), or None when the grid has no
+    point there."""
     if x[0] > window[0] or x[-1] < window[1]:
         return None
     a, b = np.searchsorted(x, window[0]), np.searchsorted(x, window[1], side="right")
-    values = y[a:b][np.isfinite(y[a:b])]
-    return float(reduce(values)) if values.size else None
+    if b <= a:
+        return None
+    slab = columns[a:b]
+    if np.isfinite(slab).all():
+        return reduce(slab, axis=0)
+    with warnings.catch_warnings():  # a column with no finite point gives NaN: "not judged"
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return nan_reduce(slab, axis=0)
 
 
 def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float = 1.5) -> str | None:
