@@ -227,8 +227,12 @@ def parse_path_length(source, line, text):
 C_H_CORE = (2850.0, 2960.0)  # the stretch region all four CH2/CH3 stretches cover
 C_H_BEND = (1450.0, 1470.0)  # the CH2 scissor / CH3 asymmetric bend, for spectra that stop below 2850
 C_H_FLOOR = 1.0  # absorbance at 0.1 mm of neat oil above the 1900-2200 level: our choice, see above
-DIFFERENCE_CEILING = 0.3  # |C-H| at 0.1 mm that a declared difference spectrum may keep: our choice
-CANCELLED = 0.03  # below this |C-H| at 0.1 mm the refusal calls the bands cancelled, not weak (wording only)
+# A declared difference spectrum may keep at most this C-H at 0.1 mm above the level: our choice. One-sided:
+# below the level is what a difference shows where both recordings sat at the ceiling while the rest of the
+# spectrum rose (soot lifts every wavenumber but the saturated ones: 0.5 of soot gained puts the C-H core
+# 0.5 below the level), or where the used oil's cell was the thinner.
+DIFFERENCE_CEILING = 0.3
+CANCELLED = 0.03  # below this C-H at 0.1 mm the refusal calls the bands cancelled, not weak (wording only)
 REFERENCE_MM = 0.1
 
 
@@ -284,7 +288,7 @@ def plausible_sampling(x, columns, neat_path_mm, difference: bool, saturation: f
     ceiling = top >= saturation
     unjudged = ~np.isfinite(recorded)
     if difference:
-        return unjudged | (~ceiling & (np.abs(at_01mm) <= DIFFERENCE_CEILING))
+        return unjudged | (~ceiling & (at_01mm <= DIFFERENCE_CEILING))
     return unjudged | ceiling | (at_01mm >= C_H_FLOOR)
 
 
@@ -318,13 +322,13 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
              f"{C_H_BASELINE[0]:g}-{C_H_BASELINE[1]:g} cm-1 level as recorded, {found.at_01mm:.3f} at 0.1 mm of neat "
              f"oil ({neat_path_mm:g} mm read)")
     if spectrum.difference:
-        if found.ceiling or abs(found.at_01mm) > DIFFERENCE_CEILING:
+        if found.ceiling or found.at_01mm > DIFFERENCE_CEILING:
             return (f"the file declares a difference spectrum, but {where}: the C-H bands of a whole oil, which "
                     f"a subtraction cancels to within {DIFFERENCE_CEILING:g}; it is not a difference spectrum")
         return None
     if found.ceiling or found.at_01mm >= C_H_FLOOR:
         return None
-    if abs(found.at_01mm) < CANCELLED:
+    if found.at_01mm < CANCELLED:
         kind = ("the C-H bands every oil has are absent or cancelled: not an oil, or a difference spectrum (used "
                 "minus new oil, already subtracted), which read as a used oil would grade its gain as a direct "
                 "reading or have the new oil subtracted twice; if it is one, say so (##DATA PROCESSING=SPECTRAL SUBTRACTION OF "

@@ -19,10 +19,11 @@ import json
 import re
 
 import pytest
+from hypothesis import given, settings, strategies as st
 from conftest import DATA, ROOT, run_cli
 
 from sumpwise.intake.spectra.batch import read_spectra
-from sumpwise.intake.spectra.spectrum import c_h_strength
+from sumpwise.intake.spectra.spectrum import c_h_strength, plausible_sampling
 from synthetic_spectra import atr_spectrum, oil_spectrum, wavenumber_grid, write_jcampdx
 
 FOUND = DATA / "spectra" / "found3"
@@ -254,3 +255,20 @@ def test_an_x_column_sorted_apart_from_its_absorbances_is_refused(tmp_path):
     assert records == {}
     assert re.search(r"used-C7-x-sorted\.csv: its C-H stretch \(2850-2960 cm-1\) stands -?0\.0\d\d above .*absent or "
                      r"cancelled", run.err), run.err
+
+
+@settings(max_examples=60, deadline=None)
+@given(path_mm=st.floats(0.01, 0.5), dilution=st.floats(1.0, 20.0), base=st.sampled_from(["mineral", "ester"]),
+       oxidation=st.floats(0.0, 0.5), soot=st.floats(0.0, 1.0), mismatch=st.floats(0.98, 1.02))
+def test_the_c_h_check_reads_every_whole_oil_and_refuses_every_difference(path_mm, dilution, base, oxidation, soot,
+                                                                            mismatch):
+    # no false refusal: cells of 0.01-0.5 mm, diluted up to 1:20 (0.5 um to 0.5 mm of neat oil), soot up
+    # to 1.0 absorbance at 0.1 mm (the C-H ceiling then stands less high above the level)
+    neat = path_mm / dilution
+    used = oil_spectrum(X, base, oxidation=oxidation, soot=soot, path_mm=neat)
+    assert plausible_sampling(X, used[:, None], [neat], False).all()
+    # and every difference of two spectra through cells within 2 % of each other is refused unless declared
+    new = oil_spectrum(X, base, path_mm=neat * mismatch)
+    difference = used - new
+    assert not plausible_sampling(X, difference[:, None], [neat], False).any()
+    assert plausible_sampling(X, difference[:, None], [neat], True).all()
