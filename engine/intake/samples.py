@@ -9,6 +9,7 @@ readings (`<0.05`, `>5000`, `ND`) are kept as intervals beside the number (censo
 from __future__ import annotations
 
 import difflib
+import itertools
 
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -22,7 +23,7 @@ from sumpwise.intake.dates import read_dates
 from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
-from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
+from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
 from sumpwise.vocabulary.units import factor_to_canonical
@@ -298,6 +299,31 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                 written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
 
+    for cold, hot in VISCOSITY_PAIRS:  # viscosity falls as the oil warms (ASTM D341): kv100 below kv40
+        if cold in raw.columns and hot in raw.columns:
+            plain = [raw[c + CENSORED_SUFFIX].isna().to_numpy() if c + CENSORED_SUFFIX in raw.columns
+                     else np.ones(len(raw), dtype=bool) for c in (cold, hot)]
+            upside = ((raw[hot].to_numpy(dtype=float) >= raw[cold].to_numpy(dtype=float)) & plain[0] & plain[1]
+                      & ~bad)  # a row already refused (a negative kv40) keeps its one reason
+            if upside.any():
+                reasons = _found(f"{hot} ", raw[hot], upside)
+                reasons[upside] += _found(f" mm²/s is not below {cold} ", raw[cold], upside)[upside] + (
+                    " mm²/s: an oil's viscosity falls as it warms (ASTM D341), so the two columns are swapped or "
+                    "one is misread; the sample is not graded")
+                reject(upside, hot, reasons, "D021")
+
+    counted = [f"particles_{size}" for size in ISO4406_SIZES if f"particles_{size}" in raw.columns]
+    for small, large in itertools.combinations(counted, 2):  # cumulative counts never rise with size (ISO 4406)
+        plain = [raw[c + CENSORED_SUFFIX].isna().to_numpy() if c + CENSORED_SUFFIX in raw.columns
+                 else np.ones(len(raw), dtype=bool) for c in (small, large)]
+        rising = (raw[large].to_numpy(dtype=float) > raw[small].to_numpy(dtype=float)) & plain[0] & plain[1] & ~bad
+        if rising.any():
+            reasons = _found(f"{large} ", raw[large], rising)
+            reasons[rising] += _found(f" per mL is above {small} ", raw[small], rising)[rising] + (
+                " per mL: counts at a size include every larger particle (ISO 4406), so these are counts per "
+                "size range or in another order; the sample is not graded")
+            reject(rising, large, reasons, "D022")
+
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
         if dates.swapped is not None:
@@ -321,6 +347,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
     return SampleBatch(accepted, tuple(rejects), len(raw) + len({s[0] for s in skipped}), name, tuple(notes))
+
+
+# Viscosities of one oil at 40 and 100 °C, in the same unit (mm²/s) once converted.
+VISCOSITY_PAIRS = (("kv40", "kv100"), ("new_kv40", "new_kv100"))
 
 
 def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> str:

@@ -173,7 +173,22 @@ def iso4406_parts(text: str) -> list:
         found.append((int(digits), digits != part))
     if all(number is None for number, _ in found):
         raise ValueError(f"the ISO 4406 code '{text}' reports no size")
+    _check_cumulative(text, found)
     return found
+
+
+def _check_cumulative(text: str, found: list) -> None:
+    """Counts are cumulative (particles >= 4 um(c) include those >= 6 and >= 14), so a scale
+    number never rises with size (ISO 4406:1999): `14/16/18`, written smallest last, would be
+    graded on 18 at 14 um(c). A smaller size written `>=n` may truly be higher: no contradiction."""
+    for k in range(len(found)):
+        for larger in range(k + 1, len(found)):
+            (small, small_open), (big, _) = found[k], found[larger]
+            if small is not None and big is not None and big > small and not small_open:
+                raise ValueError(f"the ISO 4406 code '{text}' rises with particle size ({small} at >= "
+                                 f"{ISO4406_SIZES[k][:-2]} um(c), {big} at >= {ISO4406_SIZES[larger][:-2]} um(c)): "
+                                 f"counts at a size include every larger particle, so its numbers cannot rise; "
+                                 f"written in another order?")
 
 CLEANLINESS = tuple(
     _derived(f"iso4406_{size}", "", ("iso4406", f"particles_{size}"),

@@ -79,7 +79,7 @@ def test_kleene_logic_of_any_all_not():
     rs = load_ruleset(DATA / "rulesets" / "logic.yaml")
     # columns: a, b; rules: any(a>1, b>1) watch; all(a>1, b>1) alert; not(a>1) -> watch
     graded = _grade_csv(rs, "sample_id,class,kv40,kv100\n"
-                            "tt,x,2,2\n"
+                            "tt,x,3,2\n"  # kv100 below kv40, as in any oil (D021)
                             "tn,x,2,\n"
                             "fn,x,0.5,\n"
                             "nn,x,,\n")
