@@ -323,12 +323,12 @@ def _coarser(reference_x, x) -> bool:
 
 
 def _onto(reference_x, x, columns):
-    """(the reference's grid within the sample's range, the sample's columns at those points)."""
+    """(the reference's grid within the sample's range, the sample's columns linearly interpolated at those
+    points): one pair of neighbouring rows and one weight per point, shared by every column of the block."""
     inside = reference_x[(reference_x >= x[0]) & (reference_x <= x[-1])]
-    resampled = np.empty((inside.size, columns.shape[1]))
-    for k in range(columns.shape[1]):  # one interpolation per spectrum of the group; np.interp takes 1-D rows
-        resampled[:, k] = np.interp(inside, x, columns[:, k])
-    return inside, resampled
+    right = np.clip(np.searchsorted(x, inside, side="right"), 1, x.size - 1)
+    weight = ((inside - x[right - 1]) / (x[right] - x[right - 1]))[:, None]
+    return inside, columns[right - 1] * (1.0 - weight) + columns[right] * weight
 
 
 # Spectral subtraction needs both spectra recorded alike (common practice, no source): the same

@@ -324,21 +324,23 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
     if spectrum.difference:
         if found.ceiling or found.at_01mm > DIFFERENCE_CEILING:
             return (f"the file declares a difference spectrum, but {where}: the C-H bands of a whole oil, which "
-                    f"a subtraction cancels to within {DIFFERENCE_CEILING:g}; it is not a difference spectrum")
+                    f"a subtraction leaves no more than {DIFFERENCE_CEILING:g} above that level; it is not a "
+                    "difference spectrum")
         return None
     if found.ceiling or found.at_01mm >= C_H_FLOOR:
         return None
     if found.at_01mm < CANCELLED:
         kind = ("the C-H bands every oil has are absent or cancelled: not an oil, or a difference spectrum (used "
                 "minus new oil, already subtracted), which read as a used oil would grade its gain as a direct "
-                "reading or have the new oil subtracted twice; if it is one, say so (##DATA PROCESSING=SPECTRAL SUBTRACTION OF "
-                "THE NEW OIL, or a CSV column named 'difference absorbance') and it is read as differential")
+                "reading or have the new oil subtracted twice; if it is one, say so (##DATA PROCESSING="
+                "SPECTRAL SUBTRACTION OF THE NEW OIL, or a CSV column named 'difference absorbance') and it is "
+                "read as differential")
     else:
         kind = ("too weak for any transmission cell of the FTIR oil methods: an ATR or other short-path "
                 "spectrum (say so in ##SAMPLING PROCEDURE=; it is refused, having no path length), or a "
                 f"wrong path length or dilution (a difference spectrum keeps less than {CANCELLED:g})")
-    return (f"{where}; any oil through a transmission cell reads at least {C_H_FLOOR:g} there (or sits at the "
-            f"{saturation:g} absorbance ceiling): {kind}")
+    return (f"{where}; any oil through a transmission cell reads at least {C_H_FLOOR:g} there (or reaches the "
+            f"{saturation:g} saturation threshold as recorded): {kind}")
 
 
 def _span(band):
