@@ -272,3 +272,28 @@ def test_the_c_h_check_reads_every_whole_oil_and_refuses_every_difference(path_m
     difference = used - new
     assert not plausible_sampling(X, difference[:, None], [neat], False).any()
     assert plausible_sampling(X, difference[:, None], [neat], True).all()
+
+
+@pytest.mark.parametrize("reference, before", [
+    ("new-PE-res4-shift2.jdx", 19.8),  # the new oil from an instrument whose axis reads 2 cm-1 low
+    ("new-PE-res16-unlabelled.jdx", 24.7),  # the 16 cm-1 reference without its ##RESOLUTION= line
+])
+def test_a_reference_recorded_otherwise_leaves_a_residue_that_is_not_graded(tmp_path, reference, before):
+    if reference == "new-PE-res16-unlabelled.jdx":
+        text = (FOUND / "new-PE-res16.jdx").read_text()
+        (tmp_path / reference).write_text("\n".join(line for line in text.splitlines()
+                                                    if not line.startswith("##RESOLUTION")) + "\n")
+        path = tmp_path / reference
+    else:
+        path = FOUND / reference
+    run, records = _grade_pe(tmp_path, path)
+    assert run.code == 0, run.err
+    record = records["P"]
+    # before: the ester's own sharp carbonyl left a residue whose lobes cancel in area; the height read
+    # `before` abs/cm for the 6.5 gained: watch under the ester cap, alert once the acid number rises
+    assert record["values"]["oxidation_differential"] is None
+    notes = {c["caveat"]: c["message"] for c in record["caveats"]}
+    assert re.search(rf"differential carbonyl {before:.1f} abs/cm .* with an area of 2\d\d abs/cm x cm-1, \d+ cm-1 per "
+                     r"unit of height, where a band gained has at least 25", notes["reference-mismatch"]), notes
+    assert "carbonyl-differential" in {n["rule"] for n in record["not_evaluated"]}
+    assert record["grade"] == "normal"
