@@ -129,7 +129,8 @@ def test_row_base_stock_wins_over_the_lubricants_table(draft):
     graded = _grade_csv(draft, "sample_id,class,lubricant,base_stock,oxidation,oil_hours\n"
                                "x,steam-turbine,TURB-46-M,ester,30,5000\n")
     result = graded.result(0)
-    assert [c.caveat for c in result.caveats] == ["ester-carbonyl"]
+    # The cap follows the row; the table calls TURB-46-M mineral, so the sample says the two disagree.
+    assert [c.caveat for c in result.caveats] == ["ester-carbonyl", "base-stock-disagrees"]
     assert result.grade == "watch"
 
 
