@@ -1,4 +1,4 @@
-"""Silent wrong grades in trends, found with realistic unit histories (fixtures in
+"""Oil charges and trends: silent wrong grades found with realistic unit histories (fixtures in
 tests/data/derive_found3/), each checked through the real grade: the grade, the rules that
 fired or were not evaluated, and the caveats that say why.
 
