@@ -512,7 +512,7 @@ def _explain(args, stdin, stdout, stderr) -> int:
     graded = grade_batch(batch, ruleset)
     result = graded.find(args.sample_id)
     if result is None:
-        rejected = [r for r in batch.rejects if r.sample_id == args.sample_id]
+        rejected = [r for r in graded.rejects if r.sample_id == args.sample_id]  # grading's refusals too
         if rejected:
             reasons = "; ".join(f"row {r.row}: {r.field}: {r.reason}" for r in rejected)
             raise InputError(f"sample {args.sample_id} was rejected, not graded: {reasons}")
