@@ -22,6 +22,7 @@ from sumpwise.intake.dates import read_dates
 from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
+from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
@@ -208,10 +209,18 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     for column in raw.columns:
         if column not in numeric_names:
             raw[column] = _text_column(raw[column])
+    sample_id = raw["sample_id"].fillna("")
+    repeated = sample_id.duplicated(keep="first").to_numpy()  # a repeated `Average` is looked at whatever its row holds
+    summary = summary_rows(raw, set(numeric_names), sample_id.to_numpy(dtype=object)[repeated])
+    if len(summary.at):  # rejected as what they are, and kept out of every other check (a second `Average` is no D003)
+        rejects.extend(Reject(int(raw.index[k]), None, field_name, why, "D019")
+                       for k, field_name, why in zip(summary.at, summary.fields, summary.reasons()))
+        kept = np.ones(len(raw), dtype=bool)
+        kept[summary.at] = False
+        raw, bad, sample_id, repeated = raw[kept], bad[kept], sample_id[kept], repeated[kept]
     for column, table in columns.translations.items():
         if column in raw.columns:
             raw[column] = _translated(raw[column], table)
-    sample_id = raw["sample_id"].fillna("")
 
     def reject(mask, field_name: str, reasons, code: str) -> None:
         nonlocal bad
@@ -224,7 +233,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
 
     no_id = (sample_id == "").to_numpy()
     reject(no_id, "sample_id", "no sample id: every row needs one", "D002")
-    dup = sample_id.duplicated(keep="first").to_numpy() & ~no_id
+    dup = repeated & ~no_id
     if dup.any():
         first_row = pd.Series(raw.index, index=raw.index).groupby(sample_id.to_numpy()).transform("first")
         reject(dup, "sample_id", ("sample id '" + sample_id + "' already seen at row "
@@ -320,7 +329,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
 
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
-    return SampleBatch(accepted, tuple(rejects), len(raw) + len({s[0] for s in skipped}), name, tuple(notes))
+    read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
+    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes))
 
 
 def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> str:

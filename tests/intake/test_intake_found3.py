@@ -91,3 +91,107 @@ def test_an_offset_date_keeps_its_day_and_the_trend_its_order_workbook(tmp_path)
     _workbook(path, book_rows)
     got, _ = _graded(path, "--rules", GEAR_IRON)
     _check_offset_trend(got)
+
+
+# --- 1. Summary lines of an export rejected as what they are (D019) -----------------------------
+
+def _rejects(err: str) -> list:
+    """(row, code, field) of the rejects `grade` writes on standard error."""
+    import re
+    return [(int(row), code, field) for row, code, field in
+            re.findall(r": row (\d+): rejected (D\d{3}): ([^:]+):", err)]
+
+
+def _counts(err: str) -> tuple:
+    import re
+    found = re.findall(r"read (\d+) row\(s\): (\d+) graded, (\d+) unrated, (\d+) rejected", err)
+    (read, graded, unrated, rejected), = found
+    return int(read), int(graded), int(unrated), int(rejected)
+
+
+def test_a_footer_of_statistics_and_a_limit_line_is_rejected_not_graded():
+    # A semicolon, decimal-comma export (BOM, CRLF) whose footer gives the mean, maximum,
+    # standard deviation and count of the four samples and the operator's limit line. Was: the
+    # five lines graded as hydraulic samples, `Max` and `Grenzwert` (water 260 and 500 ppm above
+    # the 200 ppm watch step) at watch. A statistic or a limit is not a sample (common practice,
+    # no source).
+    got, err = _graded(FOUND / "summary-semicolon.csv", "--rules", HYDRAULIC,
+                       "--columns", FOUND / "summary-semicolon.yaml")
+    assert set(got) == {"HY-2026-0311", "HY-2026-0312", "MAX-PUMP-03", "HY-2026-0314"}
+    assert _rejects(err) == [(5, "D019", "sample_id"), (6, "D019", "sample_id"), (7, "D019", "sample_id"),
+                             (8, "D019", "sample_id"), (9, "D019", "sample_id")]
+    assert _counts(err) == (9, 4, 0, 5)  # read = graded + unrated + rejected
+    # MAX-PUMP-03 merely contains a label: a sample, graded on hydraulic.yaml's rules: kv40 47.9
+    # against new 45.6 is +5.0 % (> 5: watch), acid number 0.71 - 0.50 = 0.21 (> 0.2: watch), water
+    # 260 ppm (> 200: watch) (common practice, no source, as the rules say).
+    assert (got["MAX-PUMP-03"]["grade"], _fired(got["MAX-PUMP-03"])) == ("watch", {"visc-drift", "acid-rise", "water"})
+
+
+def test_summary_objects_in_json_lines_are_rejected_each_time_they_come():
+    # A LIMS JSON export with an `Average` object after each unit's samples (unit given, no date),
+    # then the new oil's typical values and a limit line. Was: both averages, the new oil and the
+    # limit graded (the limit line alert: water 500 ppm, acid rise 0.4, kv40 +10.1 %), and the
+    # second `Average` would have been a D003 repeat at best.
+    got, err = _graded(FOUND / "summary-lines.jsonl", "--rules", HYDRAULIC)
+    assert set(got) == {"HY-2026-0402", "HY-2026-0403", "HY-2026-0404"}
+    assert _rejects(err) == [(3, "D019", "sample_id"), (5, "D019", "sample_id"), (6, "D019", "sample_id"),
+                             (7, "D019", "sample_id")]
+    assert _counts(err) == (7, 3, 0, 4)
+
+
+def test_a_label_column_beside_an_empty_or_counted_sample_id_in_a_workbook(tmp_path):
+    # A workbook whose first column names the sampling point and carries the group's labels, the
+    # sample number beside it: `Average` with no sample number, and `Count` with the count (3) in
+    # the sample number's column and in every result column. Was: `Count` graded as sample "3"
+    # (normal) and each `Average` rejected as a row without a sample id (D002).
+    rows = [["Point", "Sample No.", "Date", "Oil", "Visc 40", "TAN", "Water"],
+            ["HPU-1", 260411, "2026-04-02", "HYD-46-M", 46.4, 0.61, 150],
+            ["HPU-1", 260412, "2026-04-16", "HYD-46-M", 46.6, 0.63, 170],
+            ["Average", None, None, None, 46.5, 0.62, 160],
+            ["HPU-2", 260413, "2026-04-02", "HYD-46-M", 45.3, 0.56, 110],
+            ["Average", None, None, None, 45.3, 0.56, 110],
+            ["Count", 3, None, None, 3, 3, 3]]
+    path = tmp_path / "labels.xlsx"
+    _workbook(path, rows)
+    (tmp_path / "map.yaml").write_text(
+        'sample_id: "Sample No."\nunit_id: Point\nclass: {value: hydraulic}\nlubricant: Oil\nsampled_on: Date\n'
+        'kv40: "Visc 40"\nan: TAN\nwater: Water\n', encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert set(got) == {"260411", "260412", "260413"}
+    assert _rejects(err) == [(3, "D019", "unit_id"), (5, "D019", "unit_id"), (6, "D019", "unit_id")]
+    assert _counts(err) == (6, 3, 0, 3)
+
+
+def test_per_unit_average_lines_that_repeat_the_unit_and_a_date_are_rejected():
+    # A LIMS report grouped by unit: after each unit's samples an `Average` line that repeats the
+    # unit and carries the report's date. Was: the first `Average` graded as a sample of HPU-1 (and
+    # taken into its trend as the latest sample), the second rejected as a repeated id (D003).
+    # A lone `Max` line that gives a unit and a date is not told from a sample (README, "Summary
+    # lines"): it is still graded, and this test holds that limit in view.
+    got, err = _graded(FOUND / "summary-grouped.csv", "--rules", HYDRAULIC)
+    assert set(got) == {"HY-2026-0501", "HY-2026-0502", "HY-2026-0503", "HY-2026-0504", "Max"}
+    assert _rejects(err) == [(3, "D019", "sample_id"), (6, "D019", "sample_id")]
+    assert _counts(err) == (7, 5, 0, 2)
+
+
+@pytest.mark.parametrize("cell", ["MAX-PUMP-03", "Total-Lube-Tank-A", "MEAN CREEK PUMP", "Limit switch gearbox",
+                                  "Countershaft GB", "Average-line-2B"])
+def test_a_sample_id_that_contains_a_label_is_graded(tmp_path, cell):
+    # Whole-cell matches only: each of these is a sample (common practice, no source): water 260 ppm
+    # is watch on hydraulic.yaml (above 200).
+    path = tmp_path / "one.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,water\n"
+                    f"{cell},HPU-1,hydraulic,HYD-46-M,260\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert got[cell]["grade"] == "watch" and _counts(err) == (1, 1, 0, 0)
+
+
+@pytest.mark.parametrize("cell", ["Average", "AVERAGE:", " mean ", "Std. Dev.", "std-dev", "Min.", "MAXIMUM",
+                                  "Count", "n", "Total", "Limit", "Limits", "Typical new oil", "TYPICAL NEW OIL",
+                                  "Mean (n=12)", "% RSD"])
+def test_summary_labels_are_matched_whatever_their_case_spaces_and_punctuation(tmp_path, cell):
+    path = tmp_path / "one.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,water\n"
+                    f"HY-1,HPU-1,hydraulic,HYD-46-M,120\n\"{cell}\",,hydraulic,,500\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert set(got) == {"HY-1"} and _rejects(err) == [(2, "D019", "sample_id")] and _counts(err) == (2, 1, 0, 1)
