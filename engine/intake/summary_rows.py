@@ -21,8 +21,6 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
-from itertools import repeat
-from operator import methodcaller
 
 import numpy as np
 import pandas as pd
@@ -55,7 +53,6 @@ _LABELS = {
 _ID_ONLY = ("n",)
 _BRACKETED_TAIL = re.compile(r"\s*[(\[][^()\[\]]*[)\]]\s*$")
 _NOT_A_LETTER_OR_DIGIT = re.compile(r"[\W_]+")
-_DIGITS = tuple("0123456789")
 
 
 def label_key(cell) -> str:
@@ -134,16 +131,16 @@ def _present(raw: pd.DataFrame, column: str, n: int) -> np.ndarray:
 
 def _labels(cells: np.ndarray, known: dict) -> np.ndarray:
     """What each cell says its row is (a kind of `known`), None where it is no label. Each
-    distinct text is keyed once, and only texts that do not end in a digit (no label does): ids
-    such as `BP-0001` are passed over by one C-level test each."""
-    kinds = np.full(len(cells), None, dtype=object)
-    text = np.fromiter(map(isinstance, cells, repeat(str, len(cells))), dtype=bool, count=len(cells))
-    at = np.flatnonzero(text)
-    if not len(at):
-        return kinds
-    ending = np.fromiter(map(methodcaller("endswith", _DIGITS), cells[at]), dtype=bool, count=len(at))
-    at = at[~ending]
-    codes, uniques = pd.factorize(cells[at])
-    kind = np.array([known.get(label_key(u)) for u in uniques] + [None], dtype=object)
-    kinds[at] = kind[codes]
-    return kinds
+    distinct text is keyed once; when there are many (ids), only those that do not end in a
+    digit (no label does), found in one numpy pass over their characters."""
+    codes, uniques = pd.factorize(cells, use_na_sentinel=True)
+    kinds = np.full(len(uniques) + 1, None, dtype=object)  # the last for a missing cell
+    at = np.arange(len(uniques))
+    if len(uniques) > 1000:
+        text = np.asarray(uniques, dtype=object).astype(str)
+        ends = np.maximum(np.strings.str_len(text) - 1, 0)
+        last = text.view(np.uint32).reshape(len(text), -1)[at, ends] if text.dtype.itemsize else np.zeros(len(at))
+        at = at[(last < ord("0")) | (last > ord("9"))]
+    for k in at:
+        kinds[k] = known.get(label_key(uniques[k]))
+    return kinds[codes]
