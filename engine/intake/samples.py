@@ -19,6 +19,7 @@ import pandas as pd
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
+from sumpwise.intake.header_lines import header_key, header_lines
 from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
@@ -59,6 +60,7 @@ class SampleBatch:
     rows_read: int
     source: str
     notes: tuple = ()  # what the reader detected or left unused, said once on standard error
+    layout_break: tuple | None = None  # (row, columns moved) of a header line in another layout still in force
     more: bool | None = None  # a chunk of a file: whether the file goes on after it (None: not known)
 
     @property
@@ -67,11 +69,12 @@ class SampleBatch:
 
 
 def read_samples(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
-                 numeric: tuple = ()) -> SampleBatch:
+                 numeric: tuple = (), layout_break: tuple | None = None) -> SampleBatch:
     """Read samples from a path or a stream; `fmt` is csv, jsonl or xlsx (guessed from the name).
 
     A file and the same bytes on a stream give the same rows, numbers and rejects.
-    `numeric` names extra numeric columns (measures a rule set declares).
+    `numeric` names extra numeric columns (measures a rule set declares); `layout_break` is for a
+    chunk of a file (validate_samples).
     """
     if isinstance(source, (str, Path)):
         name = name or str(source)
@@ -105,7 +108,8 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
                 columns = replace(columns, options={**columns.options, "decimal": decimal})
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
-    return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
+    return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes,
+                            layout_break=layout_break)
 
 
 def lab_numeric_columns(columns: ColumnMap, numeric: tuple = ()) -> set:
@@ -141,11 +145,12 @@ def unused_columns_note(unused: list, unread: set) -> str:
 
 
 def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: ColumnMap, numeric: tuple = (),
-                     rows: np.ndarray | None = None, notes=()) -> SampleBatch:
+                     rows: np.ndarray | None = None, notes=(), layout_break: tuple | None = None) -> SampleBatch:
     """Map, convert and check rows; pure apart from its arguments.
 
     `skipped` holds (row, reason[, code[, field]]) of rows the reader could not use; `rows` the row
-    number of each frame row (1, 2, ... when not given).
+    number of each frame row (1, 2, ... when not given); `layout_break` a header line in another
+    layout that an earlier part of the file left in force (see header_lines.py).
     """
     columns = columns or ColumnMap()
     skipped = [(*s, *("D001", "(row)")[len(s) - 2:]) for s in skipped]  # code and field where not given
@@ -166,6 +171,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                              f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
     mapped = set(renames)
+    header = {renames.get(c, c): c for c in raw.columns}  # each column's name in the file's header
     _check_header_units(name, columns)
     clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]
     raw = raw.drop(columns=clash).rename(columns=renames)
@@ -175,6 +181,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if measure in raw.columns:
             notes.append(f"column {measure} not used: the column map gives it the value {value!r} for every row")
         raw[measure] = str(value) if measure not in NUMERIC_COLUMNS and measure not in numeric else value
+        header.pop(measure, None)
     methods = sorted(set(columns.methods.values()))
     if len(methods) > 1 and "method" not in raw.columns:
         raise InputError(f"{name}: the column map declares FTIR methods {' and '.join(methods)} for different "
@@ -244,9 +251,14 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         reject(why != "", measure, why, "D018")
 
     decimal = columns.option("decimal", ".")
+    header_names = {header_key(name) for name in header.values()}
+    written_cells, named = {}, np.zeros(len(raw), dtype=bool)  # the cells of number columns that are not numbers
     for column in numeric_names:
         factor = factor_to_canonical(UNIT_FAMILY[column], columns.units[column]) if column in columns.units else 1.0
         values, text, not_a_number = _number_column(raw[column], decimal)
+        if text is not None and not_a_number.any():
+            written_cells[column] = text.to_numpy(dtype=object)
+            named |= _header_names(written_cells[column], not_a_number, header_names)
         if text is not None and not_a_number.any():
             percent = _percent_cells(values, text, not_a_number, decimal, columns.units.get(column) == "%")
             if percent.any():
@@ -327,10 +339,32 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             reject(why != "", column, why, "D011")
             raw[column] = spelled
 
+    if named.any() or layout_break is not None:
+        candidates = np.flatnonzero(named)
+        cells = {column: (written_cells[column][candidates] if column in written_cells else
+                          np.full(len(candidates), None, dtype=object) if column in numeric_names else
+                          raw[column].to_numpy(dtype=object)[candidates]) for column in header}
+        lines = header_lines(raw.index.to_numpy(), candidates, cells, header, layout_break)
+        layout_break = lines.open_break
+        if len(lines.rejected):  # one reason a row: what else its cells hold does not matter
+            gone = set(raw.index[lines.rejected].tolist())
+            rejects = [r for r in rejects if r.row not in gone] + [
+                Reject(int(raw.index[k]), None, "(row)", why, "D020") for k, why in zip(lines.rejected, lines.reasons)]
+            bad[lines.rejected] = True
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
     read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
-    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes))
+    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break)
+
+
+def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:
+    """Cells that are a name of the file's header, among those that are not numbers (each distinct
+    text looked at once: a few)."""
+    at = np.flatnonzero(not_a_number)
+    codes, spellings = pd.factorize(text[at])
+    found = np.zeros(len(text), dtype=bool)
+    found[at] = np.array([header_key(cell) in names for cell in spellings] + [False], dtype=bool)[codes]
+    return found
 
 
 def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> str:

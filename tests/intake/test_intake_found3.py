@@ -195,3 +195,54 @@ def test_summary_labels_are_matched_whatever_their_case_spaces_and_punctuation(t
                     f"HY-1,HPU-1,hydraulic,HYD-46-M,120\n\"{cell}\",,hydraulic,,500\n", encoding="utf-8")
     got, err = _graded(path, "--rules", HYDRAULIC)
     assert set(got) == {"HY-1"} and _rejects(err) == [(2, "D019", "sample_id")] and _counts(err) == (2, 1, 0, 1)
+
+
+# --- 3. Exports joined end to end: a header line among the data (D020) -------------------------
+
+JOINED_MAP = FOUND / "summary-semicolon.yaml"  # the same lab's column names
+
+
+@pytest.mark.parametrize("chunk_rows", [None, 1, 3])
+def test_rows_under_a_header_line_in_another_layout_are_rejected_not_graded(chunk_rows):
+    # January's and February's exports joined (each with its BOM, CRLF); February's has water and
+    # TAN in the other order. Was: February's rows read under January's header, HY-2026-0211
+    # (water 150 ppm, TAN 0.60) graded alert on acid-rise with an acid number of 150, and
+    # HY-2026-0212's 850 ppm water (alert above 500 in hydraulic.yaml, common practice, no
+    # source) read as 0.55 ppm. A value is only what its column says it is (common practice, no
+    # source): rows whose columns cannot be matched with certainty are not graded.
+    chunks = () if chunk_rows is None else ("--chunk-rows", chunk_rows)
+    got, err = _graded(FOUND / "joined-reordered.csv", "--rules", HYDRAULIC, "--columns", JOINED_MAP, *chunks)
+    assert set(got) == {"HY-2026-0111", "HY-2026-0112"}
+    assert _rejects(err) == [(3, "D020", "(row)"), (4, "D020", "(row)"), (5, "D020", "(row)")]
+    assert "header line at row 3" in err and "'TAN' under 'Wasser ppm'" in err
+    assert _counts(err) == (5, 2, 0, 3)
+
+
+def test_a_header_line_repeated_in_the_same_layout_is_rejected_alone():
+    # The same exports joined, both in January's layout: the second header line is rejected once
+    # (D020, not four D004/D015 rejects of a "sample" named 'Probe Nr'), and the rows after it
+    # grade as written: HY-2026-0212's water 850 ppm is alert (above 500), HY-2026-0211 normal.
+    got, err = _graded(FOUND / "joined-same.csv", "--rules", HYDRAULIC, "--columns", JOINED_MAP)
+    assert _rejects(err) == [(3, "D020", "(row)")]
+    assert (got["HY-2026-0212"]["grade"], _fired(got["HY-2026-0212"])) == ("alert", {"water"})
+    assert got["HY-2026-0211"]["grade"] == "normal"
+    assert _counts(err) == (5, 4, 0, 1)
+
+
+def test_sheets_pasted_one_under_the_other_in_a_workbook(tmp_path):
+    # The same in a workbook: a second header row in another order, then a header row in the
+    # first order again, after which rows grade as usual.
+    head = ["Sample", "Unit", "Oil", "Date", "Visc 40", "TAN", "Water"]
+    moved = ["Sample", "Unit", "Oil", "Date", "Visc 40", "Water", "TAN"]
+    rows = [head, ["HY-11", "HPU-1", "HYD-46-M", "2026-01-12", 46.1, 0.56, 120],
+            moved, ["HY-21", "HPU-1", "HYD-46-M", "2026-02-09", 46.2, 150, 0.60],
+            head, ["HY-31", "HPU-1", "HYD-46-M", "2026-03-09", 46.3, 0.61, 620]]
+    path = tmp_path / "pasted.xlsx"
+    _workbook(path, rows)
+    (tmp_path / "map.yaml").write_text('sample_id: Sample\nunit_id: Unit\nclass: {value: hydraulic}\nlubricant: Oil\n'
+                                       'sampled_on: Date\nkv40: "Visc 40"\nan: TAN\nwater: Water\n', encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert set(got) == {"HY-11", "HY-31"}
+    assert _rejects(err) == [(2, "D020", "(row)"), (3, "D020", "(row)"), (4, "D020", "(row)")]
+    assert (got["HY-31"]["grade"], _fired(got["HY-31"])) == ("alert", {"water"})  # 620 ppm > 500
+    assert _counts(err) == (5, 2, 0, 3)
