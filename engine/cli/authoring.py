@@ -10,7 +10,7 @@ import argparse
 import datetime as dt
 
 from sumpwise.cli.exit_codes import FINDINGS, OK, USAGE
-from sumpwise.cli.options import output_file
+from sumpwise.cli.options import output_file, refuse_overwriting
 from sumpwise.render.safe_text import terminal_lines
 from sumpwise.ledger.audit import stored_ruleset, stored_samples
 from sumpwise.vocabulary.cautions import caution_text
@@ -156,6 +156,8 @@ def add_propose_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run_propose_limits(args, stdout, stderr) -> int:
     """Print the figures and a YAML ladder snippet; refuse (exit 2) when there is too little data."""
+    refuse_overwriting([("--out", args.out)], [("the samples file", args.samples), ("the ledger --db", args.db),
+                                               ("the rule set", args.rules), ("--columns", args.columns)])
     ruleset = load_ruleset(args.rules) if args.rules else None
     batch = _read(args, ruleset.measures if ruleset else ())
     filters = Filters(args.lubricant, tuple(args.unit), args.since, args.until, args.pool_lubricants)

@@ -12,7 +12,7 @@ import json
 from pathlib import Path
 
 from sumpwise.cli.exit_codes import FINDINGS, OK
-from sumpwise.cli.options import iso_date
+from sumpwise.cli.options import iso_date, refuse_overwriting
 from sumpwise.ledger.audit import (explain_from_ledger, find_samples, ledger_rulesets, recorded_rejects, replay,
                                    replay_lines, stored_ruleset, stored_ruleset_text, unit_forecasts, unit_history,
                                    write_history)
@@ -169,6 +169,7 @@ def run_rulesets(args, stdout, stderr) -> int:
                  f"{r['first'] or '-'}" for r in ledger_rulesets(args.db)]
         stdout.write("".join(line + "\n" for line in terminal_lines(lines)))
         return OK
+    refuse_overwriting([("--out", args.out)], [("the ledger --db", args.db)])
     sha, canonical = stored_ruleset_text(args.db, args.ruleset)
     text = json.dumps(json.loads(canonical), indent=1, ensure_ascii=False) + "\n"  # one value a line: loadable
     if args.out:

@@ -34,12 +34,13 @@ from sumpwise.render.safe_text import spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.results.records import UNRATED
 from sumpwise.cli import spectra as spectra_command
-from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references
+from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references, reference_files
 from sumpwise.cli import ledger as ledger_cli
 from sumpwise.cli import report as report_command
 from sumpwise.cli.exit_codes import FINDINGS, INTERNAL, OK, USAGE
 from sumpwise.cli.record_output import RecordOutput, default_jobs
-from sumpwise.cli.options import output_file, output_folder, positive_mm, reject_count, row_count
+from sumpwise.cli.repeated_ids import RepeatedIds
+from sumpwise.cli.options import output_file, output_folder, positive_mm, refuse_overwriting, reject_count, row_count
 
 CHUNK_ROWS = 200_000  # rows `grade` reads, grades and writes at a time: about 1 GB at most (README: large files)
 
@@ -331,7 +332,14 @@ def _grade(args, stdin, stdout, stderr) -> int:
             raise UsageError(f"sumpwise grade: --fail-on-caveat {caveat!r} is no caveat of the rule set or the engine"
                              + (f"; did you mean {close[0]!r}?" if close else ""))
     sources = _sources(args.samples)
+    refuse_overwriting([("--out", args.out), ("--rejects", args.rejects), ("--summary", args.summary)],
+                       [("the samples file", source) for source in sources]
+                       + [("the rule set", path) for path in ruleset.files] + [("--columns", args.columns)]
+                       + [("the reference spectrum", path) for path in
+                          reference_files(ruleset, parse_references(args.reference)).values()]
+                       + [("the ledger --db", args.db)])
     files, found_grade, found_unrated, conflicts = [], False, False, 0
+    repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
     with contextlib.ExitStack() as stack:
         out = _opened(stack, args.out, "--out") if args.out else stdout
         rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
@@ -348,6 +356,8 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 _put_rejects(graded, rejects, args.rejects, header=first)
                 first = False
                 tally.add(graded, notes)
+                if repeated is not None and "sample_id" in graded.measured:
+                    repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
                 levels = graded.outcome.level
                 found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
                 found_unrated |= bool((levels < 0).any())
@@ -355,10 +365,12 @@ def _grade(args, stdin, stdout, stderr) -> int:
             records.settle()  # the file's records are all out before its summary line
             stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades))
             files.append(tally.summary())
+            files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
     warnings = [f"{f['file']}: {f['caveats'][c]} sample(s) with caveat {c}" for f in files for c in WARNING_CAVEATS
                 if c in f["caveats"]]
     warnings += [f"{f['file']}: {f['unrated']} sample(s) unrated" for f in files if f["unrated"]]
+    warnings += [f["repeated_ids"] for f in files if f["repeated_ids"]]
     if len(files) > 1:
         stderr.write(f"sumpwise: in total: read {total['read']} row(s): {total['graded']} graded, "
                      f"{total['unrated']} unrated, {total['rejected']} rejected\n")

@@ -8,10 +8,12 @@ from __future__ import annotations
 
 import argparse
 import datetime as dt
+import os
 import re
 from pathlib import Path
 
 from sumpwise.intake.spectra.batch import check_path_length
+from sumpwise.vocabulary.problems import InputError
 
 
 def positive_mm(text: str) -> float:
@@ -84,3 +86,29 @@ def output_folder(text: str) -> str:
     except OSError as exc:
         raise argparse.ArgumentTypeError(f"cannot use {text[:80]}: {exc.strerror}") from None
     return text
+
+
+def _same_file(a, b) -> bool:
+    """Two names of one regular file: the same inode when both exist (links, `./x`), else the same
+    real path. A device or pipe (/dev/null) is no file that writing empties."""
+    try:
+        if os.path.exists(a) and os.path.exists(b):
+            return os.path.isfile(a) and os.path.samefile(a, b)
+    except OSError:
+        pass
+    return os.path.realpath(a) == os.path.realpath(b)
+
+
+def refuse_overwriting(outputs, inputs) -> None:
+    """Stop before any file is opened for writing when it is one the command reads, or another it
+    writes: opening it empties it, so the samples, the rule set or a whole ledger would be lost.
+
+    `outputs` and `inputs`: (what, path) pairs, e.g. ("--out", "x.jsonl"), ("the ledger --db", "l.db");
+    a None path is skipped, and so is "-" (a standard stream)."""
+    outputs = [(what, str(path)) for what, path in outputs if path is not None and str(path) != "-"]
+    inputs = [(what, str(path)) for what, path in inputs if path is not None and str(path) != "-"]
+    for k, (what, path) in enumerate(outputs):
+        for other, read in inputs + outputs[:k]:
+            if _same_file(path, read):
+                raise InputError(f"{what} {path} is the same file as {other} {read}: writing it would first "
+                                 f"empty it; name another file to write")

@@ -20,10 +20,9 @@ import os
 import select
 import signal
 import struct
-import sys
-import threading
 import traceback
 
+from sumpwise.ledger.aside import two_processes_possible
 from sumpwise.render.csv_rows import write_csv
 from sumpwise.render.jsonl import block_renderer, write_jsonl, write_jsonl_bytes
 from sumpwise.render.table import write_table
@@ -32,11 +31,6 @@ BLOCK_ROWS = 25_000  # rows rendered at a time when two processes share a chunk 
 HELD_ROWS = 100_000  # rows of rendered text this process holds while the other writes: about 220 MB of full records
 _BROKEN_PIPE, _OS_ERROR, _FAILED = 3, 4, 5  # exit statuses of the other process, read back here
 _MESSAGE_BYTES = 4000  # under a pipe's atomic write: the other process never blocks writing why it failed
-
-
-def two_processes_possible() -> bool:
-    """Fork is safe only without other threads; only Linux is relied on (macOS frameworks refuse fork)."""
-    return sys.platform.startswith("linux") and hasattr(os, "fork") and threading.active_count() == 1
 
 
 def default_jobs() -> int:

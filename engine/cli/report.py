@@ -8,7 +8,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from sumpwise.cli.exit_codes import OK
-from sumpwise.cli.options import batch_number, output_file
+from sumpwise.cli.options import batch_number, output_file, refuse_overwriting
 from sumpwise.ledger.audit import stored_results, unit_forecasts
 from sumpwise.render.jsonl import dumps
 from sumpwise.results.facts import ENGINE_CAVEATS
@@ -125,6 +125,8 @@ def with_forecasts(records, db, stored) -> tuple:
 def run(args, stdout, stderr) -> int:
     if args.batch is not None and args.db is None:
         raise InputError("sumpwise report: --batch goes with --db")
+    refuse_overwriting([("--out", args.out)], [("--results", args.results), ("the ledger --db", args.db),
+                                               ("--rejects", args.rejects), ("the rule set", args.rules)])
     counts = write_report(args.results, args.out, args.rejects, args.rules, args.title or "", args.db, args.batch)
     limits = "with the rule set's limits" if args.rules or args.db else "without limits (no --rules)"
     stderr.write(f"sumpwise: report {args.out}: {counts['records']} result(s), {counts['flagged']} flagged, "

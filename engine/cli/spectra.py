@@ -16,7 +16,7 @@ import argparse
 from pathlib import Path
 
 from sumpwise.cli.exit_codes import OK, USAGE
-from sumpwise.cli.options import output_file
+from sumpwise.cli.options import output_file, refuse_overwriting
 from sumpwise.intake.spectra.bands import BandFileError, load_bands
 from sumpwise.intake.spectra.batch import (check_dilution, check_path_length, expand_inputs, measure_spectra,
                                            read_spectrum)
@@ -67,6 +67,8 @@ def run(args, stdout, stderr) -> int:
     if not paths:
         print("sumpwise spectra: no spectrum files found in " + ", ".join(args.inputs), file=stderr)
         return USAGE
+    refuse_overwriting([("--out", args.out)], [("the spectrum", path) for path in paths]
+                       + [("--reference", args.reference), ("--bands", args.bands)])
     references = None
     if args.reference:
         try:

@@ -319,6 +319,19 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                 written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
 
+    for cold, hot in VISCOSITY_PAIRS:  # viscosity falls as the oil warms (ASTM D341): kv100 below kv40
+        if cold in raw.columns and hot in raw.columns:
+            plain = [raw[c + CENSORED_SUFFIX].isna().to_numpy() if c + CENSORED_SUFFIX in raw.columns
+                     else np.ones(len(raw), dtype=bool) for c in (cold, hot)]
+            upside = ((raw[hot].to_numpy(dtype=float) >= raw[cold].to_numpy(dtype=float)) & plain[0] & plain[1]
+                      & ~bad)  # a row already refused (a negative kv40) keeps its one reason
+            if upside.any():
+                reasons = _found(f"{hot} ", raw[hot], upside)
+                reasons[upside] += _found(f" mm²/s is not below {cold} ", raw[cold], upside)[upside] + (
+                    " mm²/s: an oil's viscosity falls as it warms (ASTM D341), so the two columns are swapped or "
+                    "one is misread; the sample is not graded")
+                reject(upside, hot, reasons, "D021")
+
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
         if dates.swapped is not None:
@@ -365,6 +378,10 @@ def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.
     found = np.zeros(len(text), dtype=bool)
     found[at] = np.array([header_key(cell) in names for cell in spellings] + [False], dtype=bool)[codes]
     return found
+
+
+# Viscosities of one oil at 40 and 100 °C, in the same unit (mm²/s) once converted.
+VISCOSITY_PAIRS = (("kv40", "kv100"), ("new_kv40", "new_kv100"))
 
 
 def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> str:

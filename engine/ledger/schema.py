@@ -231,6 +231,14 @@ def batch_digest(conn: sqlite3.Connection, batch: int, written: dict | None = No
     return digest.hexdigest()
 
 
+def written_digest_3(written: dict) -> str:
+    """Digest 3 of a form-3 batch from every query's columns as written (no file read): what
+    batch_digest gives for it, computable where no connection may be used (another process)."""
+    if set(written) != set(range(len(DIGEST_3_QUERIES))):
+        raise ValueError("digest 3 from written rows needs the columns of every one of its queries")
+    return _digest_2(None, 0, written, DIGEST_3_QUERIES)
+
+
 def _digest_2(conn: sqlite3.Connection, batch: int, written: dict | None, queries: tuple) -> str:
     digest = hashlib.sha256()
     for k, query in enumerate(queries):

@@ -37,8 +37,10 @@ from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
 from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
 from sumpwise.intake.samples import Reject, SampleBatch
-from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_SAMPLE_COLUMNS,
-                                    FORM_1_SAMPLE_COLUMNS, MIGRATIONS, batch_digest, fingerprint, shape_ids)
+from sumpwise.ledger.aside import Aside
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_QUERIES, DIGEST_3_SAMPLE_COLUMNS,
+                                    FORM_1_SAMPLE_COLUMNS, MIGRATIONS, fingerprint, shape_ids,
+                                    written_digest_3)
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import GradedBatch
@@ -728,21 +730,29 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     bound = [(name, column) for name, column in zip(DIGEST_3_SAMPLE_COLUMNS, written)
              if name == "entry" or (name != "corrects" and any(value is not None for value in column))]
     names = ", ".join(name for name, _ in bound)
-    with _indexes_built_after(conn, len(rows) >= max(BULK_ROWS, first - 1)):
-        conn.executemany(f"INSERT INTO samples ({names}, content_sha256, batch) "
-                         f"VALUES ({', '.join('?' * len(bound))}, '', {int(number)})",
-                         zip(*(column for _, column in bound)))
-        fixing = np.flatnonzero(differs[rows])
-        conn.executemany("UPDATE samples SET corrects = ? WHERE entry = ?",
-                         zip(corrects[rows[fixing]].tolist(), (first + fixing).tolist()))
     conn.executemany("INSERT INTO rejects VALUES (?, ?, ?, ?, ?, ?)",
                      ((number, r.row, r.sample_id, r.field, r.code, r.reason) for r in batch.rejects))
-    # The digest of the rows just written, as SQLite gives them back (replay reads them back).
-    used = np.unique(shape_of)
+    # The digest of the rows as written, with the types SQLite gives back (replay reads them
+    # back): the batch's row and rejects are final now, so it is computed beside the insert.
+    used = np.unique(shape_of).tolist()
     sha_of = dict(zip(shapes.tolist(), (fingerprint(text) for text in facts.shapes)))
-    conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (batch_digest(conn, number, {
-        1: written, 2: [[0]], 3: [used.tolist(), [sha_of[shape] for shape in used.tolist()]]}), number))
+    rows_written = {0: _columns(conn, DIGEST_3_QUERIES[0], number), 1: written, 2: [[0]],
+                    3: [used, [sha_of[shape] for shape in used]], 4: _columns(conn, DIGEST_3_QUERIES[4], number)}
+    with Aside(lambda: written_digest_3(rows_written)) as digest:
+        with _indexes_built_after(conn, len(rows) >= max(BULK_ROWS, first - 1)):
+            conn.executemany(f"INSERT INTO samples ({names}, content_sha256, batch) "
+                             f"VALUES ({', '.join('?' * len(bound))}, '', {int(number)})",
+                             zip(*(column for _, column in bound)))
+            fixing = np.flatnonzero(differs[rows])
+            conn.executemany("UPDATE samples SET corrects = ? WHERE entry = ?",
+                             zip(corrects[rows[fixing]].tolist(), (first + fixing).tolist()))
+        conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (digest.result(), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
+
+
+def _columns(conn: sqlite3.Connection, query: str, batch: int) -> list[list]:
+    """A digest query's rows for one batch as columns (lists), as the digest spells them."""
+    return [list(column) for column in zip(*conn.execute(query, (batch,)).fetchall())]
 
 
 # -- reading the ledger back ---------------------------------------------------------------------

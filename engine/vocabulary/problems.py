@@ -100,6 +100,7 @@ PROBLEM_CODES = {
     "D018": "a value written in a unit other than the one its column is read in",
     "D019": "a summary line of an export (a statistic, limit or reference value such as Average, Max, Limit), not a sample",
     "D020": "a header line inside the data (exports joined end to end), or a row under one in another layout",
+    "D021": "a viscosity at 100 °C not below the same oil's viscosity at 40 °C (columns swapped or misread)",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",

@@ -127,3 +127,28 @@ def test_a_pipeline_can_fail_on_a_caveat_such_as_a_misspelt_lubricant():
     assert spelt.code == 3 and json.loads(spelt.out)["grade"] == "alert" and "carry it" not in spelt.err
     typo = run_cli("grade", "-", "--rules", rules, "--fail-on-caveat", "unknown-lubricnt", stdin=row.format("X"))
     assert typo.code == 2 and "did you mean 'unknown-lubricant'" in typo.err
+
+
+def test_a_sample_id_repeated_in_a_later_file_is_named(tmp_path):
+    """A lab's re-issued result (last week's sample id in this week's export, with other values):
+    each file is graded on its own, so the run has two records for it; it must say so. Grades
+    from the draft rule set's acid-rise ladder (a rise of 0.03 is normal, 0.83 urgent)."""
+    earlier, later = tmp_path / "week-48.csv", tmp_path / "week-49.csv"
+    earlier.write_text("sample_id,class,lubricant,an\nS1,steam-turbine,TURB-46-M,0.1\n"
+                       "S2,steam-turbine,TURB-46-M,0.1\n")
+    later.write_text("sample_id,class,lubricant,an\nS3,steam-turbine,TURB-46-M,0.1\n"
+                     "S1,steam-turbine,TURB-46-M,0.9\n")
+    summary = tmp_path / "summary.json"
+    run = run_cli("grade", earlier, later, "--rules", DRAFT, "--summary", summary, "--chunk-rows", "1")
+    assert run.code == 0, run.err
+    grades = [(r["sample_id"], r["grade"]) for r in map(json.loads, run.out.splitlines())]
+    assert grades == [("S1", "normal"), ("S2", "normal"), ("S3", "normal"), ("S1", "urgent")]
+    warned = [line for line in run.err.splitlines() if "earlier file" in line]
+    assert len(warned) == 1 and f"{later}: 1 sample id(s)" in warned[0] and f"'S1' (also in {earlier})" in warned[0]
+    files = json.loads(summary.read_text())["files"]
+    assert [f["repeated_ids"] is not None for f in files] == [False, True]
+    # One file alone, or the two in a ledger, say nothing of it: the ledger decides (L001).
+    assert "earlier file" not in run_cli("grade", later, "--rules", DRAFT).err
+    db = tmp_path / "l.db"
+    in_ledger = run_cli("grade", earlier, later, "--rules", DRAFT, "--db", db)
+    assert "earlier file" not in in_ledger.err and "L001" in in_ledger.err
