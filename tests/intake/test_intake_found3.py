@@ -246,3 +246,58 @@ def test_sheets_pasted_one_under_the_other_in_a_workbook(tmp_path):
     assert _rejects(err) == [(2, "D020", "(row)"), (3, "D020", "(row)"), (4, "D020", "(row)")]
     assert (got["HY-31"]["grade"], _fired(got["HY-31"])) == ("alert", {"water"})  # 620 ppm > 500
     assert _counts(err) == (5, 2, 0, 3)
+
+
+# --- 4. Workbooks: every row the sheet holds, merged cells as the sheet shows them -------------
+
+def _gear_book(path, unit_cells: list) -> None:
+    """GB-7's three samples: iron 30, 34, then 80 ppm (a step of 46 > 30: alert on iron-step)."""
+    rows = [["Unit", "Sample", "Class", "Oil", "Date", "Hours", "Visc 40", "TAN", "Iron"],
+            [unit_cells[0], "GB7-1", "gearbox", "GEAR-320-M", "2026-01-05", 5000, 319.0, 1.00, 30],
+            [unit_cells[1], "GB7-2", "gearbox", "GEAR-320-M", "2026-02-05", 5700, 319.5, 1.02, 34],
+            [unit_cells[2], "GB7-3", "gearbox", "GEAR-320-M", "2026-03-05", 6400, 320.0, 1.04, 80]]
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    for row in rows:
+        book.active.append(row)
+    if unit_cells[1] is None:
+        book.active.merge_cells("A2:A4")  # the unit written once for its group of rows
+    book.save(path)
+
+
+GEAR_MAP = ('sample_id: Sample\nunit_id: Unit\nclass: Class\nlubricant: Oil\nsampled_on: Date\noil_hours: Hours\n'
+            'kv40: "Visc 40"\nan: TAN\niron: Iron\n')
+
+
+def test_a_unit_merged_down_its_group_of_rows_applies_to_each(tmp_path):
+    # The unit GB-7 in one cell merged over its three rows, as lab workbooks group samples. Was:
+    # openpyxl's read-only mode gives the value to the top cell only, so GB7-2 and GB7-3 had no unit
+    # and no trend: GB7-3's iron step of 46 ppm (alert above 30 in gear-iron.yaml, common practice,
+    # no source) was not evaluated and the sample graded normal. A merged cell shows its value over
+    # the whole range (ECMA-376 Part 1, mergeCell: from memory).
+    _gear_book(tmp_path / "merged.xlsx", ["GB-7", None, None])
+    (tmp_path / "map.yaml").write_text(GEAR_MAP, encoding="utf-8")
+    got, _ = _graded(tmp_path / "merged.xlsx", "--rules", GEAR_IRON, "--columns", tmp_path / "map.yaml")
+    assert {k: r["unit_id"] for k, r in got.items()} == {"GB7-1": "GB-7", "GB7-2": "GB-7", "GB7-3": "GB-7"}
+    assert (got["GB7-3"]["grade"], _fired(got["GB7-3"])) == ("alert", {"iron-step"})
+
+
+def test_rows_beyond_a_stale_sheet_dimension_are_read(tmp_path):
+    # A workbook whose <dimension> says A1:I3 while its rows run to 4 (written by a program that
+    # set it before the last row). openpyxl's read-only mode reads only the rows the dimension
+    # names unless reset (openpyxl documentation, "Optimised Modes", Worksheet dimensions). Was:
+    # "read 2", GB7-3 (alert) left out without a word.
+    import zipfile
+    _gear_book(tmp_path / "whole.xlsx", ["GB-7", "GB-7", "GB-7"])
+    stale = tmp_path / "stale.xlsx"
+    with zipfile.ZipFile(tmp_path / "whole.xlsx") as source, zipfile.ZipFile(stale, "w") as target:
+        for item in source.infolist():
+            data = source.read(item.filename)
+            if item.filename == "xl/worksheets/sheet1.xml":
+                assert b'<dimension ref="A1:I4"' in data
+                data = data.replace(b'<dimension ref="A1:I4"', b'<dimension ref="A1:I3"')
+            target.writestr(item, data)
+    (tmp_path / "map.yaml").write_text(GEAR_MAP, encoding="utf-8")
+    got, err = _graded(stale, "--rules", GEAR_IRON, "--columns", tmp_path / "map.yaml")
+    assert set(got) == {"GB7-1", "GB7-2", "GB7-3"} and _counts(err) == (3, 3, 0, 0)
+    assert (got["GB7-3"]["grade"], _fired(got["GB7-3"])) == ("alert", {"iron-step"})
