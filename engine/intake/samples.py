@@ -190,7 +190,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         raw["method"] = methods[0]
     known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
     unit_columns = _unit_columns(list(raw.columns), columns)
-    unused = [c for c in raw.columns if c not in known and c not in mapped and c not in unit_columns.values()]
+    qualifiers = _qualifier_columns(list(raw.columns), columns, [c for c in raw.columns if c in NUMERIC_COLUMNS
+                                                                 or c in numeric])
+    beside = set(unit_columns.values()) | set(qualifiers.values())
+    unused = [c for c in raw.columns if c not in known and c not in mapped and c not in beside]
     if unused:
         notes.append(unused_columns_note(unused, known - set(raw.columns)))
     missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
@@ -251,6 +254,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         reject(why != "", measure, why, "D018")
 
     decimal = columns.option("decimal", ".")
+    for measure, qualifier in qualifiers.items():
+        raw[measure] = _qualified(raw[measure], raw[qualifier], decimal)
     header_names = {header_key(name) for name in header.values()}
     written_cells, named = {}, np.zeros(len(raw), dtype=bool)  # the cells of number columns that are not numbers
     for column in numeric_names:
@@ -402,6 +407,53 @@ def _unit_columns(names: list, columns: ColumnMap) -> dict:
             if str(name).strip().casefold() in spelled:
                 found[measure] = name
     return found
+
+
+# A result's qualifier column, named after the result's column (`Water qualifier`, `TAN_qual`,
+# `Visc 40C <>`), as LIMS exports write the `<` of a result below the reporting limit apart from
+# its number; and the qualifiers that make the number a bound (common practice, no source).
+_QUALIFIER_WORDS = ("qualifier", "qual", "qual.", "operator", "modifier", "sign", "prefix", "flag", "<>", "< >")
+_BOUNDS = {"<": "<", "<=": "<=", "\u2264": "\u2264", ">": ">", ">=": ">=", "\u2265": "\u2265",
+           "nd": "<", "n.d.": "<", "bdl": "<", "<dl": "<", "<lod": "<", "<loq": "<", "<rl": "<"}
+
+
+def _qualifier_columns(names: list, columns: ColumnMap, numeric_names: list) -> dict:
+    """{measure: column} of the columns that give a result's qualifier (`<`, `>`) row by row."""
+    found = {}
+    for measure in numeric_names:
+        lab = str(columns.columns.get(measure, measure)).strip().casefold()
+        spelled = {form.format(lab=lab, word=word) for word in _QUALIFIER_WORDS
+                   for form in ("{lab} {word}", "{lab}_{word}", "{word} {lab}", "{lab} ({word})", "{lab} [{word}]")}
+        for name in names:
+            if str(name).strip().casefold() in spelled:
+                found[measure] = name
+    return found
+
+
+def _qualified(values: pd.Series, qualifier: pd.Series, decimal: str) -> pd.Series:
+    """The result column with each qualified number written as the bound it is (`<` and 0.05 as
+    `<0.05`, in the file's decimal mark), for the censored reading to read: taken as the plain
+    number, a `>1000` ppm water (the top of the method's range) was 1000, not above the 1000 ppm
+    urgent step. Other qualifiers (`=`, a lab's H or L flag) leave the number as it is."""
+    codes, uniques = pd.factorize(qualifier.to_numpy(dtype=object), use_na_sentinel=True)
+    marks = np.array([_BOUNDS.get(str(u).strip().casefold(), "") for u in uniques] + [""], dtype=object)[codes]
+    cells = values.to_numpy(dtype=object)
+    at = np.flatnonzero(marks != "")
+    out = None
+    for k in at:
+        cell = cells[k]
+        if isinstance(cell, float) and np.isfinite(cell):
+            text = repr(cell).replace(".", decimal)
+        elif isinstance(cell, (int, float)) and not isinstance(cell, bool) and np.isfinite(cell):
+            text = str(cell)
+        elif isinstance(cell, str) and cell.strip() and cell.strip()[0] not in "<>\u2264\u2265":
+            text = cell.strip()
+        else:
+            continue  # no number to bound, or written as a bound already
+        if out is None:
+            out = cells.copy()
+        out[k] = marks[k] + text
+    return values if out is None else pd.Series(out, index=values.index, dtype=object)
 
 
 def _row_units(measure: str, units: pd.Series, columns: ColumnMap) -> np.ndarray:

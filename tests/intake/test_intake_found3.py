@@ -301,3 +301,39 @@ def test_rows_beyond_a_stale_sheet_dimension_are_read(tmp_path):
     got, err = _graded(stale, "--rules", GEAR_IRON, "--columns", tmp_path / "map.yaml")
     assert set(got) == {"GB7-1", "GB7-2", "GB7-3"} and _counts(err) == (3, 3, 0, 0)
     assert (got["GB7-3"]["grade"], _fired(got["GB7-3"])) == ("alert", {"iron-step"})
+
+
+# --- 5. A result's qualifier in a column of its own (LIMS exports) ----------------------------
+
+def _check_qualified(got: dict, decimal: str) -> None:
+    # HY-2026-0601: water '>' 1000 (the top of the Karl Fischer range the lab ran) lies above the
+    # 1000 ppm urgent step of hydraulic.yaml (common practice, no source): urgent. Was: the
+    # qualifier column was left unused and 1000 read as the reading: alert.
+    assert (got["HY-2026-0601"]["grade"], got["HY-2026-0601"]["values"]["water"]) == ("urgent", ">1000")
+    # HY-2026-0605: water '>' 500 is above the 500 ppm alert step, undecided against urgent: alert, with
+    # the grade-may-be-higher caveat (README, "No silent pass"). Was: 500, not above 500: watch.
+    assert got["HY-2026-0605"]["grade"] == "alert"
+    assert "grade-may-be-higher" in {c["caveat"] for c in got["HY-2026-0605"]["caveats"]}
+    # '<' makes the number a bound below it; '=' and a lab's H flag leave it as it is.
+    assert got["HY-2026-0602"]["values"]["an"] == f"<0{decimal}05"
+    assert got["HY-2026-0603"]["values"]["water"] == "<10"
+    assert got["HY-2026-0604"]["values"]["water"] == 180.0 and got["HY-2026-0604"]["grade"] == "normal"
+
+
+def test_a_qualifier_column_makes_its_result_a_bound_csv():
+    got, err = _graded(FOUND / "lims-qualifiers.csv", "--rules", HYDRAULIC, "--columns", FOUND / "lims-qualifiers.yaml")
+    _check_qualified(got, ",")
+    assert "not used" not in err  # the qualifier columns are read, not listed as unused
+
+
+def test_a_qualifier_column_makes_its_result_a_bound_workbook(tmp_path):
+    rows = [line.split(";") for line in (FOUND / "lims-qualifiers.csv").read_text(encoding="utf-8").splitlines()]
+    numbers = {4, 5, 6, 8}
+    book = [rows[0]] + [[float(v.replace(",", ".")) if k in numbers else (v or None) for k, v in enumerate(row)]
+                        for row in rows[1:]]
+    _workbook(tmp_path / "lims.xlsx", book)
+    (tmp_path / "map.yaml").write_text((FOUND / "lims-qualifiers.yaml").read_text(encoding="utf-8").replace(
+        'file: {delimiter: ";", decimal: ",", date_format: "%d.%m.%Y"}', 'file: {date_format: "%d.%m.%Y"}'),
+        encoding="utf-8")
+    got, _ = _graded(tmp_path / "lims.xlsx", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    _check_qualified(got, ".")
