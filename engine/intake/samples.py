@@ -308,6 +308,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
+        if column == "water" and column not in columns.units:
+            _check_water_scale(name, columns.columns.get(column, column), values)
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -373,6 +375,23 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     accepted = raw[~bad]
     read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
     return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break)
+
+
+def _check_water_scale(name: str, lab: str, values: np.ndarray) -> None:
+    """A water column read in ppm whose readings are mostly below 1 ppm is refused: no Karl Fischer
+    titration reports so little (ASTM D6304 §1.1: from 10 mg/kg), so they are percentages written
+    without a unit in the header, and read as ppm every one would grade 10,000 times too dry."""
+    with np.errstate(invalid="ignore"):
+        positive = values > 0
+        tiny = positive & (values < 1)
+    found = int(np.count_nonzero(tiny))
+    if found and 2 * found >= int(np.count_nonzero(positive)):
+        example = f"{values[np.argmax(tiny)]:g}"
+        raise InputError(f"{name}: column {lab!r} (water, read in ppm): {found} of its "
+                         f"{int(np.count_nonzero(positive))} readings above 0 are below 1 ppm (such as {example}), "
+                         f"under what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg): they look written "
+                         f"in percent ({example} % is {float(example) * 10000:g} ppm); declare water: "
+                         f"{{column: {lab!r}, unit: '%'}} in the column map, or correct the export")
 
 
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:

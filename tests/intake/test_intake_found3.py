@@ -337,3 +337,22 @@ def test_a_qualifier_column_makes_its_result_a_bound_workbook(tmp_path):
         encoding="utf-8")
     got, _ = _graded(tmp_path / "lims.xlsx", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     _check_qualified(got, ".")
+
+
+# --- 6. Water in percent under a header that does not say so ----------------------------------
+
+def test_water_readings_below_what_karl_fischer_reports_are_refused_not_read_as_ppm(tmp_path):
+    # Water in %, the header only 'Water'. Was: read as ppm, HY-2026-0702's 0.12 % (1200 ppm, urgent
+    # above 1000 in hydraulic.yaml) graded normal at 0.12 ppm. Coulometric Karl Fischer reports water
+    # from 10 mg/kg (ASTM D6304 §1.1), so readings below 1 ppm are not ppm: the file is refused.
+    run = run_cli("grade", FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC,
+                  "--columns", FOUND / "water-percent-unlabelled.yaml")
+    assert run.code == 2 and run.out == ""
+    assert "'Water'" in run.err and "unit: '%'" in run.err
+    # Declared in %, the same file grades: 0.12 % = 1200 ppm urgent, 0.035 % = 350 ppm watch,
+    # 0.012 % = 120 ppm normal (1 % = 10,000 ppm by definition; steps of hydraulic.yaml).
+    (tmp_path / "map.yaml").write_text((FOUND / "water-percent-unlabelled.yaml").read_text(encoding="utf-8")
+                                       .replace("water: Water", "water: {column: Water, unit: '%'}"), encoding="utf-8")
+    got, _ = _graded(FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert {k: r["grade"] for k, r in got.items()} == {"HY-2026-0701": "normal", "HY-2026-0702": "urgent",
+                                                       "HY-2026-0703": "watch"}
