@@ -102,12 +102,14 @@ def add_find_arguments(parser: argparse.ArgumentParser) -> None:
 def grade(args, batch, ruleset, stderr):
     """Grade the batch; with --db, after the ledger's earlier samples, and record it in one transaction.
 
-    Returns the graded batch and whether rows were refused for conflicting with recorded samples.
+    Returns the graded batch, whether rows were refused for conflicting with recorded samples,
+    warnings, and the levels recorded samples dated after the new ones would now grade at
+    (Recorded.regraded), for --fail-at.
     """
     if getattr(args, "db", None) is None:
         if getattr(args, "correction", False) or getattr(args, "reason", None):
             raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
-        return grade_batch(batch, ruleset), False
+        return grade_batch(batch, ruleset), False, [], []
     correction = None
     if args.correction:
         if not args.reason or not args.reason.strip():
@@ -123,7 +125,25 @@ def grade(args, batch, ruleset, stderr):
         stderr.write(f"sumpwise: ledger {args.db}: {recorded.conflicts} row(s) rejected: their sample id is already "
                      f"recorded with other values (the rejects name the batch; if the new values are right, grade "
                      f"those rows again with --correction --reason TEXT); the other rows were graded and recorded\n")
-    return graded, recorded.conflicts > 0
+    return graded, recorded.conflicts > 0, _regraded_warnings(args.db, recorded, ruleset.grades), \
+        [after for *_, after in recorded.regraded]
+
+
+SHOWN_REGRADED = 5  # samples named in the warning; the count says how many in all
+
+
+def _regraded_warnings(db, recorded, grades: tuple) -> list[str]:
+    """Recorded samples a late result changes: their verdicts stand, but a pipeline must know."""
+    if not recorded.regraded:
+        return []
+    names = list(grades) + ["unrated"]
+    shown = "; ".join(f"{sid} (unit {unit}): {names[before]} as graded without them, {names[after]} with them"
+                      for sid, unit, before, after in recorded.regraded[:SHOWN_REGRADED])
+    more = f"; and {len(recorded.regraded) - SHOWN_REGRADED} more" if len(recorded.regraded) > SHOWN_REGRADED else ""
+    return [f"ledger {db}: batch {recorded.batch} recorded samples dated before {len(recorded.regraded)} recorded "
+            f"sample(s) of their units whose trends were graded without them, and would now grade otherwise: "
+            f"{shown}{more}. Their recorded verdicts stand, as recorded (replay grades each batch after what the "
+            f"ledger held then); look at these units again"]
 
 
 def _other_ruleset(db, rules: str | None):

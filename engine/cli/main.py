@@ -348,8 +348,11 @@ def _grade(args, stdin, stdout, stderr) -> int:
         first = True
         for source in sources:
             tally = _Tally(ruleset)
-            for graded, notes, refused in _graded_batches(args, stdin, source, ruleset, columns, stderr):
+            for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
+                                                                               columns, stderr):
                 conflicts += refused
+                tally.warnings.extend(warned)
+                found_grade |= any(level >= fail for level in regraded for fail in fail_levels)
                 for note in notes:
                     stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
                 records.write(graded, header=first)
@@ -371,6 +374,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 if c in f["caveats"]]
     warnings += [f"{f['file']}: {f['unrated']} sample(s) unrated" for f in files if f["unrated"]]
     warnings += [f["repeated_ids"] for f in files if f["repeated_ids"]]
+    warnings += [warning for f in files for warning in f.pop("ledger_warnings")]
     if len(files) > 1:
         stderr.write(f"sumpwise: in total: read {total['read']} row(s): {total['graded']} graded, "
                      f"{total['unrated']} unrated, {total['rejected']} rejected\n")
@@ -429,13 +433,13 @@ def _chunked(args, source, columns) -> bool:
 
 
 def _graded_batches(args, stdin, source, ruleset, columns, stderr):
-    """A source's graded batches with the reader's notes and the rows a ledger refused as conflicts:
-    the whole file at once, or in chunks whose trends are carried from chunk to chunk
-    (pipeline.grade_in_chunks)."""
+    """A source's graded batches with the reader's notes, whether a ledger refused rows as conflicts,
+    and (warnings, levels) of recorded samples a late result changes: the whole file at once, or
+    in chunks whose trends are carried from chunk to chunk (pipeline.grade_in_chunks)."""
     if not _chunked(args, source, columns):
         batch = _read_one(args, stdin, source, ruleset, columns)
-        graded, conflicts = ledger_cli.grade(args, batch, ruleset, stderr)
-        yield graded, batch.notes, conflicts
+        graded, conflicts, warnings, regraded = ledger_cli.grade(args, batch, ruleset, stderr)
+        yield graded, batch.notes, conflicts, (warnings, regraded)
         return
     if getattr(args, "correction", False):
         raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
@@ -452,7 +456,7 @@ def _graded_batches(args, stdin, source, ruleset, columns, stderr):
                         f"needs each unit's whole oil charge (records say forecasts null); give --chunk-rows "
                         f"above the file's row count, or grade into a ledger and use history")
         notes, said[:] = tuple(said), []
-        yield graded, notes, 0
+        yield graded, notes, 0, ([], [])
         graded = None  # each reference to a graded chunk goes before the next chunk is graded
 
 
@@ -481,7 +485,7 @@ class _Tally:
     the exit code."""
 
     def __init__(self, ruleset):
-        self.ruleset, self.source, self.notes = ruleset, "", []
+        self.ruleset, self.source, self.notes, self.warnings = ruleset, "", [], []
         self.counts, self.grades, self.caveats = Counter(), Counter(), Counter()
 
     def add(self, graded, notes) -> None:
@@ -498,7 +502,8 @@ class _Tally:
         counts = {key: self.counts.get(key, 0) for key in ("read", "graded", "unrated", "rejected")}
         return {"file": self.source, **counts,
                 "grades": {g: self.grades.get(g, 0) for g in list(self.ruleset.grades) + [UNRATED]},
-                "caveats": dict(sorted(self.caveats.items())), "notes": list(self.notes)}
+                "caveats": dict(sorted(self.caveats.items())), "notes": list(self.notes),
+                "ledger_warnings": list(self.warnings)}
 
 
 def _explain(args, stdin, stdout, stderr) -> int:

@@ -14,15 +14,21 @@ import difflib
 from sumpwise.derive.cleanliness import cleanliness_measures, scale_number_range
 from sumpwise.derive.viscosity import viscosity_index
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
-from sumpwise.vocabulary.base_stocks import family_of
+from sumpwise.vocabulary.base_stocks import ESTER_FAMILY, family_of
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, ISO4406_TOP, KNOWN_FIELDS, DECIMALS,
                                          REFERENCE_VALUES, ROW_MEASURES)
 
 # A lubricant code the rule set does not know: its new-oil values are missing, and the
 # sample must say so where people look, not only in its not-evaluated list.
+# A row's base stock that disagrees with its lubricant's on the ester carbonyl: the ester caveats
+# follow the row, the new-oil values (an ester's own carbonyl among them) the table, so the
+# grade rests on two accounts of one oil and may be wrong either way.
 LUBRICANT_CAVEATS = (
     EngineCaveat("unknown-lubricant", "unknown_lubricant_note", "sumpwise engine: the rule set's lubricants table"),
+    EngineCaveat("base-stock-disagrees", "base_stock_disagrees_note",
+                 "sumpwise engine: the row's base_stock against the rule set's lubricants table (an ester's own "
+                 "carbonyl inflates a direct FTIR oxidation reading: Tribology Transactions 55 (2012) 872)"),
 )
 
 
@@ -39,6 +45,27 @@ def _unknown_lubricant_notes(codes: np.ndarray, known: list) -> np.ndarray:
                      + (f" (nearest: {', '.join(near)})" if near else "")
                      + "; its new-oil values are missing, so rules on change from new oil are not evaluated")
     return np.array(notes + [None], dtype=object)[row_codes]
+
+
+def _base_stock_disagreements(given: np.ndarray, from_table: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """A note per row whose own base stock and its lubricant's differ on the ester carbonyl
+    (each distinct pair worded once)."""
+    notes = np.full(len(given), None, dtype=object)
+    both = pd.notna(given) & pd.notna(from_table)
+    if not both.any():
+        return notes
+    at = np.flatnonzero(both)
+    pairs, uniques = pd.MultiIndex.from_arrays([given[at], from_table[at], codes[at]]).factorize()
+    worded = []
+    for row, table, code in uniques:
+        if (family_of(row) == ESTER_FAMILY) == (family_of(table) == ESTER_FAMILY):
+            worded.append(None)
+            continue
+        worded.append(f"the row gives base stock '{row}', the rule set's lubricants table gives {code} as "
+                      f"'{table}': the ester caveats follow the row, the new-oil values the table, and only one "
+                      f"of them is this oil; check the lubricant code and the base stock before trusting the grade")
+    notes[at] = np.array(worded, dtype=object)[pairs]
+    return notes
 
 
 # Derived measures that carry a censored input's bounds: how each is computed, and whether it
@@ -178,6 +205,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
     carried = {"comment"} & set(samples.columns)  # a lab's remark, carried into the record as written
     fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields) | carried}
     base_from_table = _by_code(lookup, [lub.base_stock for lub in lubricants.values()], None)
+    disagrees_notes = _base_stock_disagreements(fields["base_stock"].to_numpy(dtype=object), base_from_table,
+                                                lubricant.to_numpy(dtype=object))
     fields["base_stock"] = fields["base_stock"].where(fields["base_stock"].notna(),
                                                       pd.Series(base_from_table, index=samples.index))
     method_codes, method_names = pd.factorize(fields["method"].to_numpy(dtype=object))
@@ -268,6 +297,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
     for name, b in found.items():
         out.update(_bound_columns(name, b))
     out["unknown_lubricant_note"] = _unknown_lubricant_notes(lubricant.to_numpy(dtype=object), list(lubricants))
+    out["base_stock_disagrees_note"] = disagrees_notes
     for name, series in fields.items():
         out[name] = series.astype(object).to_numpy(dtype=object)
     return pd.DataFrame(out, index=samples.index, copy=False)

@@ -9,6 +9,7 @@ readings (`<0.05`, `>5000`, `ND`) are kept as intervals beside the number (censo
 from __future__ import annotations
 
 import difflib
+import itertools
 
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -24,7 +25,7 @@ from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit,
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
-from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, POSITIVE, UNIT_FAMILY, domain_of
+from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
 from sumpwise.vocabulary.units import factor_to_canonical
@@ -338,6 +339,18 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                     " mm²/s: an oil's viscosity falls as it warms (ASTM D341), so the two columns are swapped or "
                     "one is misread; the sample is not graded")
                 reject(upside, hot, reasons, "D021")
+
+    counted = [f"particles_{size}" for size in ISO4406_SIZES if f"particles_{size}" in raw.columns]
+    for small, large in itertools.combinations(counted, 2):  # cumulative counts never rise with size (ISO 4406)
+        plain = [raw[c + CENSORED_SUFFIX].isna().to_numpy() if c + CENSORED_SUFFIX in raw.columns
+                 else np.ones(len(raw), dtype=bool) for c in (small, large)]
+        rising = (raw[large].to_numpy(dtype=float) > raw[small].to_numpy(dtype=float)) & plain[0] & plain[1] & ~bad
+        if rising.any():
+            reasons = _found(f"{large} ", raw[large], rising)
+            reasons[rising] += _found(f" per mL is above {small} ", raw[small], rising)[rising] + (
+                " per mL: counts at a size include every larger particle (ISO 4406), so these are counts per "
+                "size range or in another order; the sample is not graded")
+            reject(rising, large, reasons, "D022")
 
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))

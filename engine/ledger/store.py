@@ -77,6 +77,9 @@ class Recorded:
     corrections: int
     conflicts: int = 0  # rows refused because their id was recorded with other values
     rejected: int = 0  # rejected rows recorded with the batch (conflicts included)
+    # Recorded samples dated after a new sample of their unit whose grade the new samples change:
+    # (sample id, unit, level without them, level with them), both under this batch's rule set.
+    regraded: tuple = ()
 
 
 @dataclass(frozen=True)
@@ -455,6 +458,11 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
     cannot hold the measures rule sets declare. With `before_batch`, the ledger as it stood
     when that batch was recorded (for replay).
     """
+    return measures_of(history_inputs(conn, units, before_batch), ruleset)
+
+
+def history_inputs(conn: sqlite3.Connection, units, before_batch: int | None = None) -> pd.DataFrame | None:
+    """The stored input values of those samples, as samples.py read them (None: no samples)."""
     _fill_temp(conn, "wanted_units", units)
     sql = (f"SELECT s.batch, {STORED_VALUES} FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
            "JOIN batches b ON b.batch = s.batch ")
@@ -463,7 +471,7 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
     else:
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
-    return measures_of(stored_frame(rows), ruleset)
+    return stored_frame(rows)
 
 
 def stored_frame(rows: list) -> pd.DataFrame | None:
@@ -675,10 +683,13 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
         known, differs = known[~conflicts], differs[~conflicts]
 
     units = pd.unique(frame["unit_id"].dropna().to_numpy(dtype=object)) if "unit_id" in frame else []
-    history = history_frame(conn, units, ruleset)
+    inputs = history_inputs(conn, units)
+    history = measures_of(inputs, ruleset)
     if len(history):
         history = history[~history["sample_id"].isin(ids)]
+        inputs = inputs[~inputs["sample_id"].isin(ids).to_numpy()]
     graded = grade_batch(batch, ruleset, history)
+    regraded = _regraded_later(frame, inputs, history, ruleset)
     fresh = ~known
     n_conflicts = int(conflicts.sum())
     if not fresh.any() and not n_conflicts:
@@ -747,7 +758,34 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
             conn.executemany("UPDATE samples SET corrects = ? WHERE entry = ?",
                              zip(corrects[rows[fixing]].tolist(), (first + fixing).tolist()))
         conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (digest.result(), number))
-    return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects))
+    return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects),
+                            regraded)
+
+
+def _regraded_later(new: pd.DataFrame, inputs: pd.DataFrame | None, history: pd.DataFrame,
+                    ruleset: RuleSet) -> tuple:
+    """Recorded samples dated after a new sample of their unit (a late result, a backfill) whose
+    grade the new samples change: their trends were graded without them. Each is graded now
+    without and with the batch's samples of its unit, under this rule set, so a rule-set
+    change is not mistaken for the backfill. Their recorded verdicts stand (replay grades each
+    batch after what the ledger held then); the run says which would now differ."""
+    if inputs is None or not len(inputs) or not {"unit_id", "sampled_on"} <= set(new.columns):
+        return ()
+    first_new = new.dropna(subset=["unit_id", "sampled_on"]).groupby("unit_id")["sampled_on"].min()
+    since = inputs["unit_id"].map(first_new)
+    later = inputs[(since.notna() & inputs["sampled_on"].notna()).to_numpy()]
+    later = later[(later["sampled_on"] > later["unit_id"].map(first_new)).to_numpy()]
+    if not len(later):
+        return ()
+    before = history[~history["sample_id"].isin(later["sample_id"])]
+    alone = grade_batch(SampleBatch(later.reset_index(drop=True), (), len(later), "ledger"), ruleset, before)
+    joined = pd.concat([new[new["unit_id"].isin(later["unit_id"]).to_numpy()], later], ignore_index=True)
+    joined.index = pd.RangeIndex(1, len(joined) + 1, name="row")
+    together = grade_batch(SampleBatch(joined, (), len(joined), "ledger"), ruleset, before)
+    now = dict(zip(together.measured["sample_id"], together.outcome.level.tolist()))
+    return tuple((sid, unit, level, now[sid]) for sid, unit, level in
+                 zip(alone.measured["sample_id"], alone.measured["unit_id"], alone.outcome.level.tolist())
+                 if now.get(sid, level) != level)
 
 
 def _columns(conn: sqlite3.Connection, query: str, batch: int) -> list[list]:

@@ -7,7 +7,7 @@ import textwrap
 
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
-from sumpwise.vocabulary.measures import measure_unit
+from sumpwise.vocabulary.measures import MEASURES, measure_unit
 from sumpwise.results.records import SampleResult
 from sumpwise.render.safe_text import terminal_lines
 
@@ -81,6 +81,14 @@ def _bound_note(reason) -> str:
     side = "above" if reason.test == "above" else "below"
     return (f"The lab wrote a bound ({value}): the reading lies somewhere {side} it, so {reason.grade} is the least "
             f"this rule gives the sample.")
+
+
+def undefined_phrase(names) -> str:
+    """A derived measure a rule lacked although its inputs were there (the record names the
+    measure then, not a reading): where that measure has no value, from the measure table."""
+    said = [f"{name} has no value where {MEASURES[name].undefined_when}" for name in names
+            if name in MEASURES and MEASURES[name].undefined_when]
+    return f" ({'; '.join(said)})" if said else ""
 
 
 def wrapper(width: int = 88):
@@ -179,8 +187,8 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
         lines.append("Not evaluated (a missing value is never a pass):")
         for gap in result.not_evaluated:
             undecided = "; ".join(f"{name} written '{text}' does not decide it" for name, text in gap.undecided)
-            lines.extend(wrap(f"{gap.rule}: lacks {', '.join(gap.missing)}" + (f" ({undecided})" if undecided else ""),
-                              "  - "))
+            lines.extend(wrap(f"{gap.rule}: lacks {', '.join(gap.missing)}" + (f" ({undecided})" if undecided else "")
+                              + undefined_phrase(gap.missing), "  - "))
     lines.append("")
     lines.append(f"Rule set {result.ruleset_id} version {result.ruleset_version}, "
                  f"sha256 {result.ruleset_sha256}; {result.engine}.")

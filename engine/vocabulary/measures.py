@@ -65,6 +65,9 @@ class Measure:
     reference: bool = False  # a new-oil value exists (`new_<name>`, or the lubricants table)
     trended: bool = False  # the unit's trend measures (`<name>_step`, ...) are built on it
     repeatability: Repeatability | None = None  # a published figure: a smaller step is not a rise
+    # Where a derived measure has no value although its inputs are present, said where a rule
+    # it left unevaluated is explained ("lacks vi" alone leaves a reader looking for a reading).
+    undefined_when: str = ""
 
 
 def _reading(name, unit, meaning, **facts) -> Measure:
@@ -105,6 +108,8 @@ def _derived(name, unit, needs, meaning, scale_of=None, **facts) -> Measure:
     return Measure(name, unit, meaning, needs=needs, scale_of=scale_of, **facts)
 
 
+_NO_HOURS = "the oil has 0 hours (no rate over no time)"
+
 # Measures derived from one sample's own values (and its new-oil reference).
 ROW_DERIVED = (
     _derived("kv40_change_pct", "%", ("kv40", "new_kv40"), "(used - new) / new x 100, viscosity at 40 C",
@@ -115,17 +120,18 @@ ROW_DERIVED = (
     _derived("oxidation_rise", "abs/cm", ("oxidation", "new_oxidation"),
              "FTIR oxidation by direct trend, used - new-oil reading (a differential reading is "
              "oxidation_differential, never this)", scale_of="oxidation"),
-    _derived("vi", "", ("kv40", "kv100"), "viscosity index, ASTM D2270"),
+    _derived("vi", "", ("kv40", "kv100"), "viscosity index, ASTM D2270",
+             undefined_when="kv100 is below 2 mm2/s, the lower end of ASTM D2270 (section 1.2)"),
     _derived("oxidation_rise_per_1000h", "abs/cm per 1000 h", ("oxidation", "new_oxidation", "oil_hours"),
-             "oxidation rise / oil hours x 1000", scale_of="oxidation"),
+             "oxidation rise / oil hours x 1000", scale_of="oxidation", undefined_when=_NO_HOURS),
     _derived("oxidation_differential_per_1000h", "abs/cm per 1000 h", ("oxidation_differential", "oil_hours"),
-             "differential oxidation / oil hours x 1000", scale_of="oxidation"),
+             "differential oxidation / oil hours x 1000", scale_of="oxidation", undefined_when=_NO_HOURS),
     _derived("an_rise_per_1000h", "mg KOH/g per 1000 h", ("an", "new_an", "oil_hours"),
-             "acid number rise / oil hours x 1000"),
+             "acid number rise / oil hours x 1000", undefined_when=_NO_HOURS),
     _derived("bn_retained_pct", "%", ("bn", "new_bn"), "base number / new-oil base number x 100",
-             domain=NOT_NEGATIVE, low_is_bad=True),
+             domain=NOT_NEGATIVE, low_is_bad=True, undefined_when="the new oil's base number is 0"),
     _derived("rpvot_retained_pct", "%", ("rpvot", "new_rpvot"), "RPVOT / new-oil RPVOT x 100",
-             domain=NOT_NEGATIVE, low_is_bad=True),
+             domain=NOT_NEGATIVE, low_is_bad=True, undefined_when="the new oil's RPVOT is 0"),
     _derived("bn_minus_an", "mg KOH/g", ("bn", "an"), "base number - acid number of the same sample (engine oils)",
              low_is_bad=True),
 )
@@ -173,7 +179,22 @@ def iso4406_parts(text: str) -> list:
         found.append((int(digits), digits != part))
     if all(number is None for number, _ in found):
         raise ValueError(f"the ISO 4406 code '{text}' reports no size")
+    _check_cumulative(text, found)
     return found
+
+
+def _check_cumulative(text: str, found: list) -> None:
+    """Counts are cumulative (particles >= 4 um(c) include those >= 6 and >= 14), so a scale
+    number never rises with size (ISO 4406:1999): `14/16/18`, written smallest last, would be
+    graded on 18 at 14 um(c). A smaller size written `>=n` may truly be higher: no contradiction."""
+    for k in range(len(found)):
+        for larger in range(k + 1, len(found)):
+            (small, small_open), (big, _) = found[k], found[larger]
+            if small is not None and big is not None and big > small and not small_open:
+                raise ValueError(f"the ISO 4406 code '{text}' rises with particle size ({small} at >= "
+                                 f"{ISO4406_SIZES[k][:-2]} um(c), {big} at >= {ISO4406_SIZES[larger][:-2]} um(c)): "
+                                 f"counts at a size include every larger particle, so its numbers cannot rise; "
+                                 f"written in another order?")
 
 CLEANLINESS = tuple(
     _derived(f"iso4406_{size}", "", ("iso4406", f"particles_{size}"),
@@ -197,7 +218,8 @@ def _trend_measures(reading: Measure) -> tuple[Measure, ...]:
                  scale_of=reading.scale_of, low_is_bad=reading.low_is_bad),
         _derived(f"{name}_step_per_1000h", f"{unit} per 1000 h", (name, previous, "hours_since_previous"),
                  f"{name}_step / oil hours between the two samples x 1000", scale_of=reading.scale_of,
-                 low_is_bad=reading.low_is_bad),
+                 low_is_bad=reading.low_is_bad,
+                 undefined_when="the oil hours did not rise since the previous sample (no rate over no time)"),
         _derived(f"{name}_rising", "", (name, previous), f"consecutive rises of {name} ending at this sample",
                  domain=NOT_NEGATIVE),
     )

@@ -101,6 +101,7 @@ PROBLEM_CODES = {
     "D019": "a summary line of an export (a statistic, limit or reference value such as Average, Max, Limit), not a sample",
     "D020": "a header line inside the data (exports joined end to end), or a row under one in another layout",
     "D021": "a viscosity at 100 °C not below the same oil's viscosity at 40 °C (columns swapped or misread)",
+    "D022": "particle counts that rise with particle size (cumulative counts cannot: per size range, or swapped)",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",

@@ -161,7 +161,8 @@ SITE = Path(__file__).resolve().parents[2] / "scenarios" / "brackwater" / "site.
     ("16/14/\u226512", "normal", [], True),  # 12 or more: above 12 or not cannot be known
     ("16/14/>=12", "normal", [], True),
     ("16/14/\u226513", "watch", ["cleanliness-14um"], False),  # 13 or more is above 12 whatever it is
-    ("16/14/\u226515", "alert", ["cleanliness-14um"], False),  # 15 or more is above the alert code's 14
+    ("17/15/\u226515", "alert", ["cleanliness-14um"], False),  # 15 or more is above the alert code's 14
+    # (16/14/>=15 was here: 14 um(c) particles are among the 6 um(c) ones, so no code reads so; now refused)
 ])
 def test_a_code_written_at_least_is_graded_as_the_interval_it_is(code, grade, fired, undecided):
     """Once graded: `>=12` at 14 um(c) against the site's hydraulic target 17/15/12 (alert 19/17/14)

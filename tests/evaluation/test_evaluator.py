@@ -79,7 +79,7 @@ def test_kleene_logic_of_any_all_not():
     rs = load_ruleset(DATA / "rulesets" / "logic.yaml")
     # columns: a, b; rules: any(a>1, b>1) watch; all(a>1, b>1) alert; not(a>1) -> watch
     graded = _grade_csv(rs, "sample_id,class,kv40,kv100\n"
-                            "tt,x,2,2\n"
+                            "tt,x,3,2\n"  # kv100 below kv40, as in any oil (D021)
                             "tn,x,2,\n"
                             "fn,x,0.5,\n"
                             "nn,x,,\n")
@@ -129,7 +129,8 @@ def test_row_base_stock_wins_over_the_lubricants_table(draft):
     graded = _grade_csv(draft, "sample_id,class,lubricant,base_stock,oxidation,oil_hours\n"
                                "x,steam-turbine,TURB-46-M,ester,30,5000\n")
     result = graded.result(0)
-    assert [c.caveat for c in result.caveats] == ["ester-carbonyl"]
+    # The cap follows the row; the table calls TURB-46-M mineral, so the sample says the two disagree.
+    assert [c.caveat for c in result.caveats] == ["ester-carbonyl", "base-stock-disagrees"]
     assert result.grade == "watch"
 
 

@@ -23,6 +23,7 @@ import numpy as np
 import pytest
 from conftest import DATA, ROOT, run_cli
 
+from sumpwise.intake.spectra.batch import measure_matrix, read_spectra
 from synthetic_spectra import gaussian, oil_spectrum, wavenumber_grid, write_jcampdx
 
 X = wavenumber_grid()
@@ -94,22 +95,25 @@ def test_a_public_file_whose_yfactor_was_mistyped_is_refused_and_its_twin_read()
     # jtpolys.jdx (FIX form) and jtpolysd.jdx (DIF/DUP form) hold the same polystyrene spectrum;
     # jtpolysd's YFACTOR reads 2.3884185791e-09 where jtpolys has 2.384185791e-09 (a digit
     # inserted), while its FIRSTY, 0.9816..., is the true first value, as jtpolys's is.
-    run = run_cli("spectra", FOUND / "jtpolys.jdx", FOUND / "jtpolysd.jdx")
-    rows = list(csv.DictReader(io.StringIO(run.out)))
-    assert rows[0]["rejection"] == ""
-    assert re.match(r".*jtpolysd\.jdx:18: ##FIRSTY=9\.81633484363556E-0001 but the first Y read is 0\.98337",
-                    rows[1]["rejection"])
+    fix, dif = read_spectra([FOUND / "jtpolys.jdx", FOUND / "jtpolysd.jdx"])
+    assert fix.wavenumber.size == 1844  # ##NPOINTS
+    assert re.match(r".*jtpolysd\.jdx:18: ##FIRSTY=9\.81633484363556E-0001 but the first Y read is 0\.98337", str(dif))
+    # a thin polystyrene film is no oil through a cell: its C-H stretch core stands 0.05 above the
+    # 1900-2200 cm-1 level, where an oil through any cell of the methods sits at its ceiling
+    run = run_cli("spectra", FOUND / "jtpolys.jdx")
+    (row,) = list(csv.DictReader(io.StringIO(run.out)))
+    assert re.search(r"its C-H stretch \(2850-2960 cm-1\) stands 0\.050 above", row["rejection"]), row["rejection"]
 
 
 def test_the_mistyped_public_file_decodes_to_its_twin_once_its_factor_is_mended(tmp_path):
     # independent of our FIRSTY rule: with jtpolys's factor, the DIF/DUP decoding equals the FIX form's
     mended = (FOUND / "jtpolysd.jdx").read_bytes().replace(b"2.3884185791e-09", b"2.384185791e-09")
     (tmp_path / "mended.jdx").write_bytes(mended)
-    run = run_cli("spectra", FOUND / "jtpolys.jdx", tmp_path / "mended.jdx")
-    fix, dif = list(csv.DictReader(io.StringIO(run.out)))
-    assert fix["rejection"] == dif["rejection"] == ""
+    fix, dif = read_spectra([FOUND / "jtpolys.jdx", tmp_path / "mended.jdx"])
+    assert fix.wavenumber == pytest.approx(dif.wavenumber, rel=1e-7)  # the two files' LASTX differ in the 7th digit
+    (fix_bands, _, _), (dif_bands, _, _) = (measure_matrix(s.wavenumber, s.absorbance) for s in (fix, dif))
     for band in ("oxidation", "oxidation_area", "soot", "water"):
-        assert float(dif[band]) == pytest.approx(float(fix[band]), rel=1e-5, abs=1e-7), band
+        assert dif_bands[band][0] == pytest.approx(fix_bands[band][0], rel=1e-5, abs=1e-7), band
 
 
 def test_a_rows_thicker_cell_does_not_thin_the_subtracted_reference(tmp_path):
@@ -149,18 +153,23 @@ def test_a_fraction_transmittance_file_with_a_spike_past_1_5_is_not_read_as_perc
     # sqzdupd1.jdx (public domain): ##YUNITS=TRANSMITTANCE as a fraction (FIRSTY 0.98) whose
     # largest value is 1.505 (MAXY). Read as percent, every absorbance gained 2: each band read
     # as saturated, and the one-point soot band as 2.0 abs/0.1 mm, 200 abs/cm once graded.
+    (spectrum,) = read_spectra([FOUND / "sqzdupd1.jdx"])
+    ours, _, _ = measure_matrix(spectrum.wavenumber, spectrum.absorbance)
+    # the file is near full transmission at 2000 cm-1 (T about 0.99-1.0): soot near 0; before: 2.0
+    assert ours["soot"][0] == pytest.approx(0.0, abs=0.01)
+    # before: the water band (3150-3500 cm-1) read as saturated too; read as a fraction it is measured
+    assert 0 <= spectrum.absorbance[(spectrum.wavenumber > 3150) & (spectrum.wavenumber < 3500)].max() < 1.5
+    # Graded as an oil sample: first (wrong scale) an alert from a soot reading of 199.7 abs/cm; then
+    # normal; now refused, since its C-H stretch is absent (0.0006 above the 1900-2200 cm-1 level,
+    # where an oil through a cell sits at its ceiling): whatever it holds, it is not a used oil
     (tmp_path / "rules.yaml").write_text(SOOT_RULES)
     (tmp_path / "sqzdupd1.jdx").write_bytes((FOUND / "sqzdupd1.jdx").read_bytes())
     rows = ["sample_id,unit_id,class,lubricant,spectrum", "Q,E1,engine,ENG-40,sqzdupd1.jdx"]
     run, records = _grade(tmp_path, rows, rules=tmp_path / "rules.yaml")
     assert run.code == 0, run.err
-    # the file is near full transmission at 2000 cm-1 (T about 0.99-1.0): soot near 0
-    assert records["Q"]["values"]["soot"] == pytest.approx(0.0, abs=1.0)
-    assert records["Q"]["grade"] == "normal"  # before: alert, from a soot reading of 199.7 abs/cm
-    (row,) = list(csv.DictReader(io.StringIO(run_cli("spectra", FOUND / "sqzdupd1.jdx").out)))
-    # before: the water band (3150-3500 cm-1) was "saturated" too; read as a fraction it is measured
-    assert float(row["soot"]) == pytest.approx(0.0, abs=0.01) and row["water"] != ""
-    assert "water: not measured" not in row["notes"]
+    assert records == {}
+    assert re.search(r"rejected F001: spectrum: .*sqzdupd1\.jdx: its C-H stretch .* stands 0\.001 above", run.err)
+    assert "read 1 row(s): 0 graded, 0 unrated, 1 rejected" in run.err
 
 
 def test_a_percent_file_is_still_read_as_percent_without_its_sign(tmp_path):
@@ -181,7 +190,9 @@ def test_the_carbonyl_area_is_the_trapezoid_area_above_the_window_mean_baseline(
     triangle = np.clip(0.3 * (1 - np.abs(X - 1730) / 40), 0, None)
     inside = (X >= 1670) & (X <= 1800)
     assert np.trapezoid(triangle[inside], X[inside]) == pytest.approx(12.0, rel=1e-9)
-    write_jcampdx(tmp_path / "t.jdx", X, baseline + triangle, form="AFFN", significant=9)
+    # and an oil's C-H stretch at its 4.0 ceiling over 2800-3000 cm-1, far from every window read
+    stretch = np.where((X >= 2800) & (X <= 3000), 4.0, 0.0)
+    write_jcampdx(tmp_path / "t.jdx", X, baseline + triangle + stretch, form="AFFN", significant=9)
     (row,) = list(csv.DictReader(io.StringIO(run_cli("spectra", tmp_path / "t.jdx").out)))
     assert float(row["oxidation_area"]) == pytest.approx(12.0, rel=1e-5)
     assert row["area_unit"] == "abs*cm-1/0.1mm"
@@ -308,8 +319,8 @@ def test_a_reference_diluted_like_its_samples_but_read_neat_is_a_mismatch_not_an
     # a polyol ester compressor oil, new and used (0.10 of carbonyl gained at 0.1 mm: 10 abs/cm), both
     # diluted 1:4 in a 0.1 mm cell (ASTM D7214 asks esters to be diluted, confirmed); the samples file
     # gives the sample's dilution, the reference has no place to say it and is read as neat oil
-    write_jcampdx(tmp_path / "new.jdx", X[::-1], (0.25 * oil_spectrum(X, "ester"))[::-1], form="DIFDUP")
-    write_jcampdx(tmp_path / "used.jdx", X[::-1], (0.25 * oil_spectrum(X, "ester", oxidation=0.10))[::-1],
+    write_jcampdx(tmp_path / "new.jdx", X[::-1], oil_spectrum(X, "ester", path_mm=0.025)[::-1], form="DIFDUP")
+    write_jcampdx(tmp_path / "used.jdx", X[::-1], oil_spectrum(X, "ester", oxidation=0.10, path_mm=0.025)[::-1],
                   form="DIFDUP")
     rows = [HEADER + ",dilution", "P,C1,screw-compressor,COMP-46-X,2026-11-02,3000,0.15,used.jdx,4"]
     run, records = _grade(tmp_path, rows, "--reference", f"COMP-46-X={tmp_path / 'new.jdx'}")

@@ -48,3 +48,24 @@ def test_explain_says_a_grade_from_a_reading_written_as_a_bound_is_the_least_it_
            "gives the sample." in told
     plain = " ".join(" ".join(explain_lines(graded.result(1), rs.grades)).split())
     assert "The lab wrote a bound" not in plain
+
+
+def test_a_measure_without_a_value_says_where_it_has_none(tmp_path):
+    """`lacks vi` beside kv40 and kv100 both present sent a reader looking for a missing reading.
+    ASTM D2270 section 1.2 (the shared viscosity fact sheet): VI is defined for kv100 of 2 mm2/s
+    and up; a rate per 1000 h has no value over 0 oil hours. The narrative says both, from the
+    measure table; a rule that lacks a reading keeps the plain sentence."""
+    import io
+    from conftest import ROOT
+    site = load_ruleset(ROOT / "scenarios" / "brackwater" / "site.yaml")
+    csv = "sample_id,class,lubricant,kv40,kv100\nV1,hydraulic,HYD-46-HV,4.1,1.5\n"  # a thin fluid, not an HV oil
+    text = "\n".join(explain_lines(grade(read_samples(io.StringIO(csv)), site).result(0), site.grades, width=200))
+    assert "hv-shear-loss: lacks vi (vi has no value where kv100 is below 2 mm2/s" in text
+    assert "water: lacks water\n" in text + "\n"
+    rules = tmp_path / "rate.yaml"
+    rules.write_text("ruleset: rate\nversion: 1\nlubricants:\n  T-46: {an: 0.05}\nclasses:\n  turbine:\n    rules:\n"
+                     "      - {id: acid-fast, measure: an_rise_per_1000h, above: {watch: 0.1}, message: m, source: s}\n")
+    rate = load_ruleset(rules)
+    csv = "sample_id,class,lubricant,an,oil_hours\nR1,turbine,T-46,0.3,0\n"
+    text = "\n".join(explain_lines(grade(read_samples(io.StringIO(csv)), rate).result(0), rate.grades, width=200))
+    assert "acid-fast: lacks an_rise_per_1000h (an_rise_per_1000h has no value where the oil has 0 hours" in text

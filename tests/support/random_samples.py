@@ -22,8 +22,12 @@ def random_samples(ruleset, n: int, seed: int, censored: float = 0.05) -> pd.Dat
     spreads = {"kv40": (20, 400), "kv100": (1.5, 40), "an": (0, 3), "bn": (0, 15), "oxidation": (0, 300),
                "nitration": (0, 40), "water": (0, 3000), "oil_hours": (0, 40000), "rpvot": (10, 1500),
                "soot": (0, 5), "sulfation": (0, 40)}
+    numbers = {}
     for name, (lo, hi) in spreads.items():
         values = rng.uniform(lo, hi, n).round(3)
+        if name == "kv100":  # below kv40, as in every oil (ASTM D341; intake refuses the rest, D021)
+            values = np.fmin(values, (numbers["kv40"] * rng.uniform(0.04, 0.3, n)).round(3))
+        numbers[name] = values.copy()
         values[rng.random(n) < 0.15] = np.nan
         frame[name] = values
         cut = (rng.random(n) < censored) & ~np.isnan(values)

@@ -7,6 +7,15 @@ with magnitudes chosen to look like real oils at 0.100 mm (common practice, no
 source): a new mineral oil shows a small carbonyl (about 0.01 absorbance), used
 oils carbonyl peaks of about 0.05-0.5, and a new ester oil's own carbonyl
 saturates (about 2 absorbance, above the 1.5 threshold of the band file).
+
+The hydrocarbon C-H bands are as strong as a transmission cell makes them: about
+55 mol/L of CH2 in a hydrocarbon oil at a peak molar absorptivity of tens of
+L/(mol cm) (from memory) puts the C-H stretch near 2925 cm-1 at 20-30 absorbance
+through 0.1 mm, far past what any spectrometer records. The recorded absorbance is
+limited by stray light: A = -log10((10^-A_true + s) / (1 + s)), s = 0.01 % of the
+light (common practice, no source), so the stretch region sits at a ceiling near
+4.0 and the bending bands at 1460 and 1377 cm-1 read about 2.9 and 1.2. Below
+0.5 absorbance the ceiling changes a reading by under 0.03 %, at 2 by 0.2 %.
 """
 
 from __future__ import annotations
@@ -38,8 +47,14 @@ def lorentzian(x, centre: float, area: float, gamma: float):
     return area / np.pi * gamma / ((np.asarray(x) - centre) ** 2 + gamma**2)
 
 
-# (centre cm-1, area abs*cm-1 at 0.1 mm, sigma cm-1): invented, demo only.
-_HYDROCARBON = ((2920, 60.0, 25), (2855, 30.0, 18), (1460, 6.0, 12), (1377, 2.5, 8), (722, 1.2, 8),
+ROOT_2PI = np.sqrt(2 * np.pi)
+STRAY_LIGHT = 1.0e-4  # fraction of the light that reaches the detector whatever the sample absorbs
+# (centre cm-1, area abs*cm-1 at 0.1 mm, sigma cm-1): invented, demo only. The C-H stretch and
+# bending heights at 0.1 mm (25, 15, 8, 5; 3.0, 1.2; 0.4 at 722) are from memory, as the
+# module docstring says; the widths (sigma 6-12 cm-1) are our choice.
+_HYDROCARBON = ((2925, 25.0 * 12 * ROOT_2PI, 12), (2855, 15.0 * 10 * ROOT_2PI, 10), (2955, 8.0 * 8 * ROOT_2PI, 8),
+                (2870, 5.0 * 8 * ROOT_2PI, 8), (1460, 3.0 * 10 * ROOT_2PI, 10), (1377, 1.2 * 6 * ROOT_2PI, 6),
+                (722, 0.4 * 8 * ROOT_2PI, 8),
                 (1712, 0.35, 14))  # the last: a new mineral oil's small carbonyl, 0.01 high
 _ESTER = ((1740, 60.0, 12), (1240, 12.0, 25), (1170, 18.0, 22))  # carbonyl 2.0 high at 0.1 mm: saturated
 ESTER_CARBONYL_HEIGHT = 60.0 / (12 * np.sqrt(2 * np.pi))
@@ -65,16 +80,58 @@ def oil_spectrum(
     offset: float = 0.02,
     noise: float = 0.0,
     seed: int = 0,
+    path_mm: float = 0.1,
+    stray_light: float = STRAY_LIGHT,
 ):
-    """Absorbance at 0.100 mm of a made-up oil: base stock bands, additive, degradation, soot.
+    """Recorded absorbance of a made-up oil in a transmission cell of `path_mm` of neat oil.
 
     `oxidation`, `nitration`, `sulfation`, `water` are peak heights (absorbance
     at 0.1 mm) added to the new oil; a Gaussian of height h and width sigma has
     area h * sigma * sqrt(2 pi). `soot` lifts the whole spectrum (a flat offset,
     as soot scatters broadly); `antiwear_left` is the fraction of anti-wear band
-    remaining.
+    remaining. Every band scales with path_mm (Beer-Lambert), then the stray-light
+    ceiling applies (stray_light=0: the true absorbance, unlimited).
     """
     x = np.asarray(x, dtype=float)
+    y = _true_absorbance(x, base_stock, oxidation, nitration, sulfation, water, soot, antiwear_left, slope, offset)
+    y = y * (path_mm / 0.1)
+    if stray_light:
+        y = -np.log10((10.0 ** -y + stray_light) / (1.0 + stray_light))
+    if noise:
+        y = y + np.random.default_rng(seed).normal(0.0, noise, size=x.size)
+    return y
+
+
+# Effective thickness of one ATR reflection (diamond or ZnSe crystal, 45 degrees, oil of refractive
+# index about 1.48): about 2 um at 1000 cm-1, growing with the wavelength (from memory).
+ATR_MICROMETRES_AT_1000 = 2.0
+
+
+def atr_spectrum(x, reflections: int = 1, noise: float = 0.0, seed: int = 0, **oil):
+    """An ATR spectrum of the same made-up oil: the true absorbance per 0.1 mm times the effective
+    thickness of `reflections` reflections over 100 um, that thickness growing as 1/wavenumber."""
+    x = np.asarray(x, dtype=float)
+    true = oil_spectrum(x, stray_light=0.0, **oil)
+    microns = reflections * ATR_MICROMETRES_AT_1000 * 1000.0 / x
+    y = true * microns / 100.0
+    if noise:
+        y = y + np.random.default_rng(seed).normal(0.0, noise, size=x.size)
+    return y
+
+
+def at_resolution(x, y, resolution: float):
+    """The spectrum as an instrument of `resolution` cm-1 records it: y convolved with a line shape
+    approximated by a Gaussian of that full width at half height (our simplification; real
+    apodised line shapes differ in their wings). x evenly spaced; the ends are padded flat."""
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    sigma = resolution / (2 * np.sqrt(2 * np.log(2)))
+    step = x[1] - x[0]
+    reach = int(np.ceil(4 * sigma / abs(step)))
+    kernel = np.exp(-0.5 * (np.arange(-reach, reach + 1) * step / sigma) ** 2)
+    return np.convolve(np.pad(y, reach, mode="edge"), kernel / kernel.sum(), mode="valid")
+
+
+def _true_absorbance(x, base_stock, oxidation, nitration, sulfation, water, soot, antiwear_left, slope, offset):
     y = offset + slope * (x - x.min()) + soot
     bands = _HYDROCARBON + (_ESTER if base_stock == "ester" else ())
     for centre, area, sigma in bands:
@@ -85,8 +142,6 @@ def oil_spectrum(
                          ("water", water)):
         centre, sigma = _DEGRADATION[name]
         y = y + gaussian(x, centre, height * sigma * np.sqrt(2 * np.pi), sigma)
-    if noise:
-        y = y + np.random.default_rng(seed).normal(0.0, noise, size=x.size)
     return y
 
 

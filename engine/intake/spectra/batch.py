@@ -25,7 +25,7 @@ import pandas as pd
 
 from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_columns, plan_bands, saturated_bands
 from sumpwise.intake.spectra.jcampdx import read_jcampdx, read_jcampdx_many
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError
+from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, plausible_sampling, sampling_problem
 from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
 
 REFERENCE_PATH_MM = 0.1
@@ -179,51 +179,94 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     loaded_refs = {}
     for i in list(spectra):
         ref_path = refs[i]
-        if ref_path is None:
+        if ref_path is None or spectra[i].difference:
             continue
         if ref_path not in loaded_refs:
             try:
                 loaded_refs[ref_path] = read_spectrum(ref_path)
             except SpectrumError as exc:
                 loaded_refs[ref_path] = exc
+            else:
+                ref = loaded_refs[ref_path]
+                problem = ("a difference spectrum is not a new oil" if ref.difference else
+                           sampling_problem(ref, ref.path_length_mm or reference_path_length_mm or path_length_mm,
+                                            bands.saturation_absorbance))
+                if problem is not None:
+                    loaded_refs[ref_path] = SpectrumError(ref.source, None, problem)
         if isinstance(loaded_refs[ref_path], SpectrumError):
             rejections[i] = Rejection(str(paths[i]), None, f"reference spectrum unusable: {loaded_refs[ref_path]}")
+            del spectra[i]
+        elif (problem := _resolution_problem(spectra[i], loaded_refs[ref_path])) is not None:
+            rejections[i] = Rejection(str(paths[i]), None, problem)
             del spectra[i]
 
     used_path = {i: (s.path_length_mm or path_length_mm) for i, s in spectra.items()}
     groups = {}
     for i, spectrum in spectra.items():
-        groups.setdefault((spectrum.wavenumber.tobytes(), refs[i]), []).append(i)
+        # a declared difference spectrum is read as it is: the lab's instrument already subtracted the new oil
+        ref_path = None if spectrum.difference else refs[i]
+        groups.setdefault((spectrum.wavenumber.tobytes(), ref_path, spectrum.difference), []).append(i)
 
     rows, notes = {}, {}
-    for (_, ref_path), members in groups.items():
+    for (_, ref_path, difference), members in groups.items():
         x = spectra[members[0]].wavenumber
-        plan = plan_bands(x, bands.bands)
         columns = np.stack([spectra[i].absorbance for i in members], axis=1)  # as cheap as rows, no later copy
         neat = np.array([used_path[i] / dilutions[i] for i in members])
+        # a whole oil thinner than its cell, or a difference spectrum that does not say so: one block test,
+        # worded spectrum by spectrum only for those it refuses
+        fine = plausible_sampling(x, columns, neat, difference, bands.saturation_absorbance)
+        if not fine.all():
+            for k in np.flatnonzero(~fine):
+                i = members[k]
+                rejections[i] = Rejection(str(paths[i]), None,
+                                          sampling_problem(spectra[i], neat[k], bands.saturation_absorbance))
+                del spectra[i]
+            members, columns, neat = [members[k] for k in np.flatnonzero(fine)], columns[:, fine], neat[fine]
+            if not members:
+                continue
+        plan = plan_bands(x, bands.bands)
         reference, ref_path_mm = None, None
         saturated = saturated_bands(plan, columns, bands.saturation_absorbance)
         ref_saturated = {}
+        direct = set(direct_bands) if ref_path is not None else set()
+        if direct:  # on the used spectrum's own grid, as without a reference
+            own, _, own_uncovered = _measure_columns_matrix(x, columns, bands, neat, None, None, block_size, plan)
+        regridded = None
         if ref_path is not None:
             ref = loaded_refs[ref_path]
             ref_path_mm = ref.path_length_mm or reference_path_length_mm or path_length_mm
+            if _coarser(ref.wavenumber, x):
+                regridded = float(np.median(np.diff(ref.wavenumber)))
+                x, columns = _onto(ref.wavenumber, x, columns)
+                plan = plan_bands(x, bands.bands)
             reference = np.interp(x, ref.wavenumber, ref.absorbance, left=np.nan, right=np.nan)[:, None]
             # NaN here is outside the reference's range (its own message below), not saturation
             ref_saturated = saturated_bands(plan, np.nan_to_num(reference, nan=0.0), bands.saturation_absorbance)
         values, _, uncovered = _measure_columns_matrix(
             x, columns, bands, neat, reference, ref_path_mm, block_size, plan)
-        direct = set(direct_bands) if ref_path is not None else set()
+        if difference:  # already used minus new: abs/cm as a subtraction reads it (ASTM D7412 12.1-12.2)
+            values = {name: value * ABS_PER_CM_PER_ABS_PER_01MM for name, value in values.items()}
         if direct:
-            own, _, _ = _measure_columns_matrix(x, columns, bands, neat, None, None, block_size, plan)
             values |= {name: own[name] * ABS_PER_CM_PER_ABS_PER_01MM for name in direct}
+            uncovered = ({name: why for name, why in uncovered.items() if name not in direct}
+                         | {name: why for name, why in own_uncovered.items() if name in direct})
             ref_saturated = {name: flags for name, flags in ref_saturated.items() if name not in direct}
-        method = DIRECT if ref_path is None else SUBTRACTION
+        method = DIRECT if ref_path is None and not difference else SUBTRACTION
         for k, i in enumerate(members):
             row, why = {}, []
+            if regridded is not None:
+                why.append(f"subtracted on the reference's grid (points {regridded:.3g} cm-1 apart, coarser than the "
+                           "sample's): the sample's values at the reference's points, so no band loses height to "
+                           "interpolation")
+            if difference and refs[i] is not None:
+                why.append(f"reference {refs[i]} not subtracted: the file is already a difference spectrum")
             for band in bands.bands:
                 value = float(values[band.name][k])
                 if band.name in uncovered:
                     why.append(f"{band.name}: not measured: {uncovered[band.name]}")
+                elif difference and band.name in direct_bands:
+                    why.append(f"{band.name}: not measured: the spectrum is a difference spectrum, and {band.name} "
+                               "is read directly on the used oil only")
                 elif band.name in ref_saturated and ref_saturated[band.name][0]:
                     why.append(f"{band.name}: not measured: the reference is saturated "
                                f"{_saturation_words(band, bands)}")
@@ -240,14 +283,15 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             if not any(math.isfinite(row[name]) for name in needed if name in row):
                 first = next((w for w in why if w.split(":")[0] in needed), why[0] if why else "no band measured")
                 line = spectra[i].range_line if any(n in uncovered for n in needed) else None
-                rejections[i] = Rejection(str(paths[i]), line, "none of the needed bands could be measured; " + first)
+                rejections[i] = Rejection(str(paths[i]), line, "none of the needed bands could be measured; " + first
+                                          + _unit_hint(spectra[i]))
                 continue
             rows[i] = row | {"method": method, "unit": UNITS[method]}
             notes[i] = "; ".join(why)
 
     records = []
     for i, path in enumerate(paths):
-        ref_path = refs[i]
+        ref_path = None if i in spectra and spectra[i].difference else refs[i]
         record = {"spectrum": str(path)}
         record |= rows.get(i, {name: np.nan for name in bands.names} | {"method": DIRECT if ref_path is None else SUBTRACTION})
         record["unit"] = UNITS[record["method"]] if i in rows else ""
@@ -262,6 +306,64 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
                "notes", "rejection"]
     frame = pd.DataFrame.from_records(records, columns=columns)
     return frame, [rejections[i] for i in sorted(rejections)]
+
+
+# Why the coarser grid: linear interpolation cuts the top of every peak between grid points, by
+# about h (d/2)^2 / (2 sigma^2) for a Gaussian of height h and width sigma at spacing d. An ester's
+# own carbonyl (2.0 at 0.1 mm, sigma 12) interpolated from a reference on an 8 cm-1 grid onto a
+# 2 cm-1 one left 7.0 abs/cm in the difference of a new oil with itself (1.6 from a 4 cm-1 grid):
+# a band the oil never gained. Sampling the finer spectrum at the coarser one's points leaves none.
+GRID_TOLERANCE = 1.05  # spacings within 5 % are one grid (rounding of FIRSTX/LASTX): our choice
+
+
+def _coarser(reference_x, x) -> bool:
+    """Whether the reference's points lie further apart than the sample's (median spacing)."""
+    inside = reference_x[(reference_x >= x[0]) & (reference_x <= x[-1])]
+    return inside.size >= 2 and np.median(np.diff(inside)) > GRID_TOLERANCE * np.median(np.diff(x))
+
+
+def _onto(reference_x, x, columns):
+    """(the reference's grid within the sample's range, the sample's columns linearly interpolated at those
+    points): one pair of neighbouring rows and one weight per point, shared by every column of the block."""
+    inside = reference_x[(reference_x >= x[0]) & (reference_x <= x[-1])]
+    right = np.clip(np.searchsorted(x, inside, side="right"), 1, x.size - 1)
+    weight = ((inside - x[right - 1]) / (x[right] - x[right - 1]))[:, None]
+    return inside, columns[right - 1] * (1.0 - weight) + columns[right] * weight
+
+
+# Spectral subtraction needs both spectra recorded alike (common practice, no source): the same
+# resolution. At another resolution every sharp band has another height and width, and the
+# difference keeps a residue whose positive and negative lobes cancel in area, so the area check
+# cannot see it: an ester oil's own carbonyl (2.0 at 0.1 mm, sigma 12) read 10.6 abs/cm of gained
+# carbonyl with the sample at 16 cm-1 and its reference at 4, 23.8 the other way round, 5.5 at 4
+# against 8 (tests/support/synthetic_spectra.py, line shapes as Gaussians of FWHM the resolution).
+RESOLUTION_TOLERANCE = 1.01  # our choice: ##RESOLUTION= values are written as round figures
+
+
+def _resolution_problem(spectrum: Spectrum, reference: Spectrum) -> str | None:
+    """Why this sample cannot be subtracted against this reference, when both files give ##RESOLUTION=."""
+    mine, theirs = spectrum.resolution_cm1, reference.resolution_cm1
+    if mine is None or theirs is None or max(mine, theirs) <= RESOLUTION_TOLERANCE * min(mine, theirs):
+        return None
+    return (f"recorded at {mine:g} cm-1 resolution (##RESOLUTION=), its reference {reference.source} at {theirs:g}: "
+            "a subtraction of spectra recorded at different resolutions leaves a residue of every sharp band (an "
+            "ester's own carbonyl reads as 5-24 abs/cm gained); record both alike")
+
+
+def _unit_hint(spectrum: Spectrum) -> str:
+    """A hint when an x axis read as cm-1 lies wholly outside the mid-infrared (4000-400 cm-1 is 2.5-25 um;
+    ftir.md): wavelengths written under a wavenumber label or none."""
+    x = spectrum.wavenumber
+    if spectrum.x_units.upper().replace(" ", "") not in ("1/CM", "CM-1", "CM^-1", "WAVENUMBERS", "WAVENUMBER"):
+        return ""
+    if x[-1] < 400:
+        kind = "micrometres (2.5-25 um is 4000-400 cm-1)"
+    elif x[0] > 1000 and x[-1] > 10000:
+        kind = "nanometres (2500-25000 nm is 4000-400 cm-1)"
+    else:
+        return ""
+    return (f"; x values {x[0]:g}-{x[-1]:g} read as cm-1 lie outside the mid-infrared: wavelengths in {kind}? say "
+            "so (##XUNITS=MICROMETERS or NANOMETERS, or a CSV header such as 'wavelength (um)')")
 
 
 def _saturation_words(band, bands: BandSet) -> str:

@@ -31,7 +31,8 @@ from pathlib import Path
 
 import numpy as np
 
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, make_spectrum, parse_path_length, y_unit_kind
+from sumpwise.intake.spectra.spectrum import (Spectrum, SpectrumError, declares_difference, make_spectrum,
+                                              parse_path_length, y_unit_kind)
 
 # A mid-infrared spectrum at 0.5 cm-1 over 4000-400 cm-1 has 7 201 points; a million bounds
 # the memory one damaged NPOINTS could ask for.
@@ -217,14 +218,25 @@ def _prepare(text, source):
 _NO_CELL = re.compile(r"\b(ATR|ATTENUATED|REFLECT\w*|DRIFTS?|PHOTOACOUSTIC|PAS)\b")
 
 
+# Where files say ATR: the standard's sampling label first; then a processing note (instrument
+# software writes "ATR correction" there) and the title (labs name the accessory in it).
+# A title is free text about the sample too ("PAS-3 compressor", "reflects..."), so only the
+# unambiguous words count there.
+_NO_CELL_IN_TITLE = re.compile(r"\b(ATR|ATTENUATED TOTAL REFLECT\w*|DRIFTS|DIFFUSE REFLECT\w*|PHOTOACOUSTIC)\b")
+_SAMPLING_LABELS = (("SAMPLINGPROCEDURE", "SAMPLING PROCEDURE", _NO_CELL), ("DATAPROCESSING", "DATA PROCESSING", _NO_CELL),
+                    ("TITLE", "TITLE", _NO_CELL_IN_TITLE))
+
+
 def _check_sampling(ctx):
-    """Refuse a ##SAMPLING PROCEDURE= that names a method without a cell path length (ATR, reflectance)."""
-    said = ctx.header.get("SAMPLINGPROCEDURE", "")
-    found = _NO_CELL.search(said.upper())
-    if found:
-        raise SpectrumError(ctx.source, ctx.line("SAMPLINGPROCEDURE"),
-                            f"##SAMPLING PROCEDURE={said!r} names {found.group(1)}: such absorbances have no cell "
-                            "path length, so they cannot be put per 0.1 mm as transmission-cell readings are")
+    """Refuse a file whose ##SAMPLING PROCEDURE=, ##DATA PROCESSING= or ##TITLE= names a method without a cell
+    path length (ATR, reflectance)."""
+    for key, label, words in _SAMPLING_LABELS:
+        said = ctx.header.get(key, "")
+        found = words.search(said.upper())
+        if found:
+            raise SpectrumError(ctx.source, ctx.line(key),
+                                f"##{label}={said!r} names {found.group(1)}: such absorbances have no cell "
+                                "path length, so they cannot be put per 0.1 mm as transmission-cell readings are")
 
 
 def _next_label_line(text, start):
@@ -257,7 +269,17 @@ def _spectrum(ctx, x, y, evenly_spaced=False):
         path_length = parse_path_length(ctx.source, ctx.line("PATHLENGTH"), ctx.header["PATHLENGTH"])
     return make_spectrum(ctx.source, x, y, ctx.header["XUNITS"], ctx.header["YUNITS"],
                          ctx.line("FIRSTX") or ctx.data_line, evenly_spaced=evenly_spaced,
-                         path_length_mm=path_length)
+                         path_length_mm=path_length,
+                         difference=declares_difference(ctx.header.get("DATAPROCESSING", "")),
+                         resolution_cm1=_resolution(ctx.header.get("RESOLUTION", "")))
+
+
+def _resolution(text):
+    """cm-1 from a ##RESOLUTION= such as `4`, `4.0 CM-1` or `0.5`; None when it starts with no positive number
+    (a free-text resolution is not compared)."""
+    match = re.match(r"\s*(\d+\.?\d*|\.\d+)", text)
+    value = float(match.group(1)) if match else 0.0
+    return value if value > 0 else None
 
 
 def _decode(items):

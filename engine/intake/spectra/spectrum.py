@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 import re
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -46,6 +47,10 @@ class Spectrum:
     range_line: int | None = None
     notes: tuple[str, ...] = field(default=())
     path_length_mm: float | None = None  # from the file's ##PATH LENGTH=, when it has one
+    # The file says it holds a difference spectrum (used minus new oil, subtracted by the lab's
+    # instrument): ##DATA PROCESSING= naming a spectral subtraction, or a CSV column so named.
+    difference: bool = False
+    resolution_cm1: float | None = None  # from the file's ##RESOLUTION=, when it gives a number
 
     def __post_init__(self):
         for array in (self.wavenumber, self.absorbance):
@@ -71,7 +76,7 @@ def absorbance_from_transmittance(transmittance, percent: bool):
 
 
 def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), evenly_spaced=False,
-                  path_length_mm=None):
+                  path_length_mm=None, difference=False, resolution_cm1=None):
     """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity.
 
     evenly_spaced: x was built as first + k * delta, so two points settle its order.
@@ -108,7 +113,7 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
             "there, so the values look like transmittance read as absorbance (or the reverse); give the y "
             "unit (##YUNITS=, or a CSV header such as '%T')"))
     return Spectrum(source, np.ascontiguousarray(x), np.ascontiguousarray(y), x_units, y_units, range_line, tuple(notes),
-                    path_length_mm)
+                    path_length_mm, difference, resolution_cm1)
 
 
 # The C-H stretch of any hydrocarbon or ester oil is its strongest infrared band (IR correlation
@@ -179,6 +184,20 @@ _PATH_UNITS_MM = {"MM": 1.0, "CM": 10.0, "UM": 1.0e-3, "MICROMETERS": 1.0e-3, "M
 _NUMBER_THEN_UNIT = re.compile(r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*([A-Za-z]+\.?)?")
 
 
+# A processing note that says the new (reference) oil was subtracted. "Background subtracted"
+# (the usual single-beam ratio, or a baseline correction) is not one, so SUBTRACT needs a word
+# for the oil beside it. ##DATA PROCESSING= is JCAMP-DX 4.24's free-text label for background
+# correction, smoothing, subtraction and the like (McDonald & Wilks 1988; from memory).
+_DIFFERENCE_WORDS = re.compile(r"\bDIFFERENCE\b|\bSPECTRAL\s+SUBTRACTION\b|"
+                               r"\bSUBTRACT\w*\b.*\b(REFERENCE|NEW|FRESH|UNUSED)\b|"
+                               r"\b(REFERENCE|NEW|FRESH|UNUSED)\b.*\bSUBTRACT\w*")
+
+
+def declares_difference(text: str) -> bool:
+    """Whether a processing note or column name says the spectrum is used minus new oil."""
+    return _DIFFERENCE_WORDS.search(text.upper()) is not None
+
+
 def parse_path_length(source, line, text):
     """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `0.1MM`, `5 CM` or `18 CM CELL` (a number, then its unit)."""
     match = _NUMBER_THEN_UNIT.match(text.replace(",", " "))
@@ -188,3 +207,142 @@ def parse_path_length(source, line, text):
         raise SpectrumError(source, line, f"##PATH LENGTH={text!r}: expected a positive number and its unit "
                                           "(MM, CM or UM), e.g. 0.1 MM")
     return value * _PATH_UNITS_MM[unit]
+
+
+# What tells a transmission spectrum of a whole oil from a difference spectrum or an ATR one.
+# Every lubricant base stock but a perfluorinated one is mostly CH2 and CH3: about 55 mol/L of
+# CH2 in a hydrocarbon oil, at a peak molar absorptivity of tens of L/(mol cm), puts the C-H
+# stretch near 2925 cm-1 at 20-30 absorbance through 0.1 mm and the CH2 bend near 1460 cm-1 at
+# about 3 (from memory). Through any cell of the FTIR oil methods (0.025-0.1 mm, ASTM D7214,
+# confirmed; ftir.md) the stretch region is therefore at the instrument's stray-light ceiling,
+# 2-4 absorbance (common practice, no source). A difference spectrum (used minus new oil, both
+# through the same cell) cancels those bands to within the residue of a path mismatch (a 2 %
+# mismatch leaves a median of 0.001 in the stretch core of our synthetic oils, 0.05 at its most).
+# An ATR spectrum reads them through the micrometres the evanescent wave reaches (about 2 um at
+# 1000 cm-1 per reflection, shorter at higher wavenumbers; from memory): a stretch-core median of
+# 0.07 (one reflection) to 0.7 (ten). Measured on tests/support/synthetic_spectra.py (the figures
+# are the stretch-core median above the 1900-2200 cm-1 level): a used oil at 0.1 mm 3.95 (its
+# ceiling); at 0.025 mm 2.50 as recorded, 10 at 0.1 mm; 1:10 in a 0.1 mm cell 1.0, 10 at 0.1 mm.
+# An ATR of 25 reflections (1.7) passes for a transmission spectrum: that is the limit of the check.
+C_H_CORE = (2850.0, 2960.0)  # the stretch region all four CH2/CH3 stretches cover
+C_H_BEND = (1450.0, 1470.0)  # the CH2 scissor / CH3 asymmetric bend, for spectra that stop below 2850
+C_H_FLOOR = 1.0  # absorbance at 0.1 mm of neat oil above the 1900-2200 level: our choice, see above
+# A declared difference spectrum may keep at most this C-H at 0.1 mm above the level: our choice. One-sided:
+# below the level is what a difference shows where both recordings sat at the ceiling while the rest of the
+# spectrum rose (soot lifts every wavenumber but the saturated ones: 0.5 of soot gained puts the C-H core
+# 0.5 below the level), or where the used oil's cell was the thinner.
+DIFFERENCE_CEILING = 0.3
+CANCELLED = 0.03  # below this C-H at 0.1 mm the refusal calls the bands cancelled, not weak (wording only)
+REFERENCE_MM = 0.1
+
+
+@dataclass(frozen=True)
+class CHStrength:
+    """How strongly a spectrum shows the C-H bands every oil has, to judge what kind of spectrum it is.
+
+    recorded: the stretch core's median (or the bend's highest point, when the spectrum stops below
+    the stretch) above the mean of the band-free 1900-2200 cm-1 window, as recorded; ceiling: the same
+    band's absolute level as recorded reached `saturation` (the light was gone: a whole oil through a
+    cell, whatever its length); at_01mm: recorded x 0.1 / the neat-oil path. Median, not maximum: a
+    difference spectrum is noisy where both recordings sat at the ceiling, and its spikes must not pass
+    for a band.
+    """
+
+    band: str
+    recorded: float
+    ceiling: bool
+    at_01mm: float
+
+
+def c_h_strength(spectrum: Spectrum, neat_path_mm: float, saturation: float = 1.5) -> CHStrength | None:
+    """The C-H strength of a spectrum read through `neat_path_mm` of neat oil; None when it reaches
+    neither the stretch core nor the bend together with the 1900-2200 cm-1 window."""
+    band, recorded, top = c_h_block(spectrum.wavenumber, spectrum.absorbance[:, None])
+    if band is None or not np.isfinite(recorded[0]):
+        return None
+    return CHStrength(band, float(recorded[0]), bool(top[0] >= saturation),
+                      float(recorded[0]) * REFERENCE_MM / neat_path_mm)
+
+
+def c_h_block(x, columns):
+    """(band read, C-H excess as recorded, its absolute level) per column of a wavenumber-major block;
+    band None when the grid reaches neither region with the 1900-2200 cm-1 window; NaN where a column
+    has no finite point in a window. Whole-block reductions, no per-spectrum loop."""
+    level = _slab(x, columns, C_H_BASELINE, np.mean, np.nanmean)
+    if level is None:
+        return None, None, None
+    top, band = _slab(x, columns, C_H_CORE, np.median, np.nanmedian), "C-H stretch"
+    if top is None:
+        top, band = _slab(x, columns, C_H_BEND, np.max, np.nanmax), "C-H bend"
+    if top is None:
+        return None, None, None
+    return band, top - level, top
+
+
+def plausible_sampling(x, columns, neat_path_mm, difference: bool, saturation: float = 1.5) -> np.ndarray:
+    """bool per column: whether sampling_problem finds nothing (the same rule, for a whole block)."""
+    band, recorded, top = c_h_block(x, columns)
+    if band is None:
+        return np.ones(columns.shape[1], dtype=bool)
+    at_01mm = recorded * REFERENCE_MM / np.asarray(neat_path_mm, dtype=float)
+    ceiling = top >= saturation
+    unjudged = ~np.isfinite(recorded)
+    if difference:
+        return unjudged | (~ceiling & (at_01mm <= DIFFERENCE_CEILING))
+    return unjudged | ceiling | (at_01mm >= C_H_FLOOR)
+
+
+def _slab(x, columns, window, reduce, nan_reduce):
+    """reduce() down the rows of `columns` within [low, high] (NaN skipped), or None when the grid has no
+    point there."""
+    if x[0] > window[0] or x[-1] < window[1]:
+        return None
+    a, b = np.searchsorted(x, window[0]), np.searchsorted(x, window[1], side="right")
+    if b <= a:
+        return None
+    slab = columns[a:b]
+    if np.isfinite(slab).all():
+        return reduce(slab, axis=0)
+    with warnings.catch_warnings():  # a column with no finite point gives NaN: "not judged"
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return nan_reduce(slab, axis=0)
+
+
+def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float = 1.5) -> str | None:
+    """Why this spectrum cannot be read as it claims to be, or None.
+
+    A whole-oil spectrum (the default) must show C-H bands no thinner than the path allows; one the
+    file declares a difference spectrum must show them cancelled. Without either window nothing is
+    judged (the band code then leaves the bands it cannot reach empty).
+    """
+    found = c_h_strength(spectrum, neat_path_mm, saturation)
+    if found is None:
+        return None
+    where = (f"its {found.band} ({_span(found.band)} cm-1) stands {found.recorded:.3f} above the "
+             f"{C_H_BASELINE[0]:g}-{C_H_BASELINE[1]:g} cm-1 level as recorded, {found.at_01mm:.3f} at 0.1 mm of neat "
+             f"oil ({neat_path_mm:g} mm read)")
+    if spectrum.difference:
+        if found.ceiling or found.at_01mm > DIFFERENCE_CEILING:
+            return (f"the file declares a difference spectrum, but {where}: the C-H bands of a whole oil, which "
+                    f"a subtraction leaves no more than {DIFFERENCE_CEILING:g} above that level; it is not a "
+                    "difference spectrum")
+        return None
+    if found.ceiling or found.at_01mm >= C_H_FLOOR:
+        return None
+    if found.at_01mm < CANCELLED:
+        kind = ("the C-H bands every oil has are absent or cancelled: not an oil, or a difference spectrum (used "
+                "minus new oil, already subtracted), which read as a used oil would grade its gain as a direct "
+                "reading or have the new oil subtracted twice; if it is one, say so (##DATA PROCESSING="
+                "SPECTRAL SUBTRACTION OF THE NEW OIL, or a CSV column named 'difference absorbance') and it is "
+                "read as differential")
+    else:
+        kind = ("too weak for any transmission cell of the FTIR oil methods: an ATR or other short-path "
+                "spectrum (say so in ##SAMPLING PROCEDURE=; it is refused, having no path length), or a "
+                f"wrong path length or dilution (a difference spectrum keeps less than {CANCELLED:g})")
+    return (f"{where}; any oil through a transmission cell reads at least {C_H_FLOOR:g} there (or reaches the "
+            f"{saturation:g} saturation threshold as recorded): {kind}")
+
+
+def _span(band):
+    low, high = C_H_CORE if band == "C-H stretch" else C_H_BEND
+    return f"{low:g}-{high:g}"

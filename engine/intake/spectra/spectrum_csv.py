@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, make_spectrum
+from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, declares_difference, make_spectrum
 
 # Second-column headers, lower-cased with spaces, brackets and punctuation other than % removed.
 _ABSORBANCE_WORDS = ("a", "abs", "au", "log1t")  # and any name that starts with "absorbance"
@@ -38,7 +38,7 @@ def read_spectrum_csv(path: Path | str) -> Spectrum:
 def parse_spectrum_csv(text: str, source: str) -> Spectrum:
     xs, ys = [], []
     first_data_line = None
-    x_units, y_units = "1/CM", "ABSORBANCE"
+    x_units, y_units, difference = "1/CM", "ABSORBANCE", False
     for number, raw in enumerate(text.splitlines(), start=1):
         line = raw.strip()
         if not line or line.startswith("#"):
@@ -51,7 +51,7 @@ def parse_spectrum_csv(text: str, source: str) -> Spectrum:
         except ValueError:
             if first_data_line is None and not xs:
                 first_data_line = -1  # the header row: read once for its units
-                x_units, y_units = _header_units(fields, source, number)
+                x_units, y_units, difference = _header_units(fields, source, number)
                 continue
             raise SpectrumError(source, number, f"expected two numbers, found {fields[0]!r}, {fields[1]!r}") from None
         if first_data_line in (None, -1):
@@ -60,11 +60,13 @@ def parse_spectrum_csv(text: str, source: str) -> Spectrum:
         ys.append(y)
     if len(xs) < 2:
         raise SpectrumError(source, None, "fewer than 2 data rows")
-    return make_spectrum(source, np.array(xs), np.array(ys), x_units, y_units, first_data_line)
+    return make_spectrum(source, np.array(xs), np.array(ys), x_units, y_units, first_data_line, difference=difference)
 
 
 def _header_units(fields, source, line):
-    """(x units, y units) in the JCAMP-DX spellings make_spectrum reads, from a header row's two names."""
+    """(x units, y units in the JCAMP-DX spellings make_spectrum reads, whether the second column says it
+    holds a difference spectrum) from a header row's two names: `difference absorbance`,
+    `absorbance (used - new)`... read as absorbance of a spectrum already subtracted."""
     x_name, y_name = (f.strip().strip('"').strip("'") for f in fields)
     x_key = x_name.lower().replace("µ", "u").replace("μ", "u")
     if re.search(r"\b(um|micrometres?|micrometers?|microns?)\b", x_key):
@@ -73,15 +75,26 @@ def _header_units(fields, source, line):
         x_units = "NANOMETERS"
     else:
         x_units = "1/CM"
+    no_cell = re.search(r"\b(atr|attenuated|reflect\w*|drifts?|photoacoustic)\b", y_name.lower())
+    if no_cell:  # as ##SAMPLING PROCEDURE= in JCAMP-DX (jcampdx._check_sampling)
+        raise SpectrumError(source, line, f"second column {y_name!r} names {no_cell.group(1).upper()}: such absorbances "
+                                          "have no cell path length, so they cannot be put per 0.1 mm as "
+                                          "transmission-cell readings are")
+    difference = declares_difference(y_name) or bool(re.search(r"used\s*-\s*(new|reference|fresh)", y_name.lower()))
+    if difference:
+        y_name = re.sub(r"(?i)\bdifference\b|\(.*\)|\bsubtracted\b", "", y_name).strip() or "absorbance"
     y_key = re.sub(r"[^a-z0-9%]", "", y_name.lower())
     percent = any(mark in y_key for mark in _PERCENT_MARKS)
     bare = y_key
     for mark in _PERCENT_MARKS:
         bare = bare.replace(mark, "")
     if not percent and (y_key in _ABSORBANCE_WORDS or y_key.startswith("absorbance")):
-        return x_units, "ABSORBANCE"
+        return x_units, "ABSORBANCE", difference
+    if difference:  # a transmittance has no difference spectrum: subtraction is done in absorbance
+        raise SpectrumError(source, line, f"second column {fields[1].strip()!r}: a difference spectrum is read in "
+                                          "absorbance only; name it 'difference absorbance'")
     if bare in _TRANSMITTANCE_WORDS or bare.startswith(("transmittance", "transmission")):
-        return x_units, "%T" if percent else "TRANSMITTANCE"
+        return x_units, "%T" if percent else "TRANSMITTANCE", False
     raise SpectrumError(source, line, f"second column {y_name!r}: the header does not say absorbance or "
                                       "transmittance, so the scale of the values is unknown; name it "
                                       "'absorbance', 'transmittance' or '%T' (a file without a header is read as "

@@ -53,20 +53,20 @@ def main() -> None:
     x = wavenumber_grid()
     for name, base, form in REFERENCES:
         cell = _cell(base)
-        write_jcampdx(SPECTRA / name, x, oil_spectrum(x, base_stock=base) * cell / 0.1, form=form,
+        write_jcampdx(SPECTRA / name, x, oil_spectrum(x, base_stock=base, path_mm=cell), form=form,
                       title=f"Brackwater Point new-oil reference {name[4:-4]} (synthetic)",
                       path_length=f"{cell:g} MM")
     rows = []
     for sid, unit, cls, lub, date, hours, kv40, an, base, oxidation, nitration, form in SAMPLES:
         name = f"{unit}-{date}.jdx"
         cell = _cell(base)
-        y = oil_spectrum(x, base_stock=base, oxidation=oxidation, nitration=nitration) * cell / 0.1
+        y = oil_spectrum(x, base_stock=base, oxidation=oxidation, nitration=nitration, path_mm=cell)
         write_jcampdx(SPECTRA / name, x, y, form=form, title=f"Brackwater Point {unit} {date} (synthetic)",
                       path_length=f"{cell:g} MM")
         rows.append([sid, unit, cls, lub, date, hours, kv40, an, f"spectra/{name}"])
     sid, unit, cls, lub, date, hours, kv40, an = BROKEN
     whole = SPECTRA / "whole.tmp"
-    write_jcampdx(whole, x, oil_spectrum(x, base_stock="ester", oxidation=0.2) * THIN_CELL_MM / 0.1, form="DIFDUP",
+    write_jcampdx(whole, x, oil_spectrum(x, base_stock="ester", oxidation=0.2, path_mm=THIN_CELL_MM), form="DIFDUP",
                   path_length=f"{THIN_CELL_MM:g} MM")
     text = whole.read_text()
     whole.unlink()

@@ -24,16 +24,21 @@ def _carbonyl_area():
     return area / 2 * (math.erf(z(1800)) - math.erf(z(1670)))
 
 
+def _oil(x, **kw):
+    """The synthetic oil's true absorbance (no stray-light ceiling), so band areas stay closed-form."""
+    return oil_spectrum(x, stray_light=0.0, **kw)
+
+
 @pytest.fixture
 def files(tmp_path):
-    new = write_jcampdx(tmp_path / "new.jdx", X[::-1], oil_spectrum(X)[::-1], form="DIFDUP", significant=9)
-    used = write_jcampdx(tmp_path / "used.jdx", X[::-1], oil_spectrum(X, oxidation=CARBONYL)[::-1], form="SQZ",
+    new = write_jcampdx(tmp_path / "new.jdx", X[::-1], _oil(X)[::-1], form="DIFDUP", significant=9)
+    used = write_jcampdx(tmp_path / "used.jdx", X[::-1], _oil(X, oxidation=CARBONYL)[::-1], form="SQZ",
                          significant=9)
     broken = tmp_path / "broken.jdx"
     broken.write_text(used.read_text().replace("##END=\n", ""))
-    short = write_jcampdx(tmp_path / "short.jdx", X[X > 700], oil_spectrum(X[X > 700]), form="AFFN")
+    short = write_jcampdx(tmp_path / "short.jdx", X[X > 700], _oil(X[X > 700]), form="AFFN")
     csv = tmp_path / "used.csv"
-    csv.write_text("wavenumber,absorbance\n" + "\n".join(f"{a},{float(b)!r}" for a, b in zip(X, oil_spectrum(X, oxidation=CARBONYL))))
+    csv.write_text("wavenumber,absorbance\n" + "\n".join(f"{a},{float(b)!r}" for a, b in zip(X, _oil(X, oxidation=CARBONYL))))
     return {"new": new, "used": used, "broken": broken, "short": short, "csv": csv}
 
 
