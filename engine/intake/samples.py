@@ -309,8 +309,6 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
-        if column == "water" and column not in columns.units:
-            _check_water_scale(name, columns.columns.get(column, column), values)
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -384,6 +382,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             rejects = [r for r in rejects if r.row not in gone] + [
                 Reject(int(raw.index[k]), None, "(row)", why, "D020") for k, why in zip(lines.rejected, lines.reasons)]
             bad[lines.rejected] = True
+    if "water" in numeric_names and "water" not in columns.units:  # the rows kept: a % row of a unit column is out
+        _check_water_scale(name, columns.columns.get("water", "water"), raw["water"].to_numpy(dtype=float)[~bad])
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
     read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
