@@ -309,6 +309,12 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
+        if column == "water" and column not in columns.units:
+            with np.errstate(invalid="ignore"):
+                tiny = (values > 0) & (values < 1) & ~bad  # a row its unit column rejects already is not asked
+            if tiny.any():
+                reject(tiny, column, _found("", raw[column], tiny, quoted=True) + _BELOW_KARL_FISCHER.format(
+                    lab=columns.columns.get(column, column)), "D018")
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -382,29 +388,18 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             rejects = [r for r in rejects if r.row not in gone] + [
                 Reject(int(raw.index[k]), None, "(row)", why, "D020") for k, why in zip(lines.rejected, lines.reasons)]
             bad[lines.rejected] = True
-    if "water" in numeric_names and "water" not in columns.units:  # the rows kept: a % row of a unit column is out
-        _check_water_scale(name, columns.columns.get("water", "water"), raw["water"].to_numpy(dtype=float)[~bad])
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
     read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
     return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break)
 
 
-def _check_water_scale(name: str, lab: str, values: np.ndarray) -> None:
-    """A water column read in ppm whose readings are mostly below 1 ppm is refused: no Karl Fischer
-    titration reports so little (ASTM D6304 §1.1: from 10 mg/kg), so they are percentages written
-    without a unit in the header, and read as ppm every one would grade 10,000 times too dry."""
-    with np.errstate(invalid="ignore"):
-        positive = values > 0
-        tiny = positive & (values < 1)
-    found = int(np.count_nonzero(tiny))
-    if found and 2 * found >= int(np.count_nonzero(positive)):
-        example = f"{values[np.argmax(tiny)]:g}"
-        raise InputError(f"{name}: column {lab!r} (water, read in ppm): {found} of its "
-                         f"{int(np.count_nonzero(positive))} readings above 0 are below 1 ppm (such as {example}), "
-                         f"under what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg): they look written "
-                         f"in percent ({example} % is {float(example) * 10000:g} ppm); declare water: "
-                         f"{{column: {lab!r}, unit: '%'}} in the column map, or correct the export")
+# Why a water reading between 0 and 1 in a column read in ppm is rejected: no Karl Fischer titration
+# reports so little (ASTM D6304 1.1: from 10 mg/kg), so it is a percentage under a header that does
+# not say so; read as ppm, 0.12 % (1200 ppm) would grade as 0.12 ppm, 10,000 times too dry.
+_BELOW_KARL_FISCHER = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg): a "
+                       "percentage? the column is read in ppm; declare water: {{column: {lab!r}, unit: '%'}} in the "
+                       "column map, or correct the export")
 
 
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:

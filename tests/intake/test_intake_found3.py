@@ -99,7 +99,7 @@ def _rejects(err: str) -> list:
     """(row, code, field) of the rejects `grade` writes on standard error."""
     import re
     return [(int(row), code, field) for row, code, field in
-            re.findall(r": row (\d+): rejected (D\d{3}): ([^:]+):", err)]
+            re.findall(r": row (\d+)(?: \(sample [^)]*\))?: rejected (D\d{3}): ([^:]+):", err)]
 
 
 def _counts(err: str) -> tuple:
@@ -341,14 +341,14 @@ def test_a_qualifier_column_makes_its_result_a_bound_workbook(tmp_path):
 
 # --- 6. Water in percent under a header that does not say so ----------------------------------
 
-def test_water_readings_below_what_karl_fischer_reports_are_refused_not_read_as_ppm(tmp_path):
+def test_water_readings_below_what_karl_fischer_reports_are_rejected_not_read_as_ppm(tmp_path):
     # Water in %, the header only 'Water'. Was: read as ppm, HY-2026-0702's 0.12 % (1200 ppm, urgent
     # above 1000 in hydraulic.yaml) graded normal at 0.12 ppm. Coulometric Karl Fischer reports water
-    # from 10 mg/kg (ASTM D6304 §1.1), so readings below 1 ppm are not ppm: the file is refused.
-    run = run_cli("grade", FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC,
-                  "--columns", FOUND / "water-percent-unlabelled.yaml")
-    assert run.code == 2 and run.out == ""
-    assert "'Water'" in run.err and "unit: '%'" in run.err
+    # from 10 mg/kg (ASTM D6304 §1.1), so a reading between 0 and 1 ppm is not ppm: rejected, D018.
+    got, err = _graded(FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC,
+                       "--columns", FOUND / "water-percent-unlabelled.yaml")
+    assert got == {} and _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
+    assert _counts(err) == (3, 0, 0, 3) and "unit: '%'" in err
     # Declared in %, the same file grades: 0.12 % = 1200 ppm urgent, 0.035 % = 350 ppm watch,
     # 0.012 % = 120 ppm normal (1 % = 10,000 ppm by definition; steps of hydraulic.yaml).
     (tmp_path / "map.yaml").write_text((FOUND / "water-percent-unlabelled.yaml").read_text(encoding="utf-8")
