@@ -53,6 +53,7 @@ class Comparison:
     table: dict  # (from grade, to grade) -> number of samples
     grades: tuple  # row and column order of the table
     moves: tuple
+    rejects: tuple = ()  # the rows not graded, each with its reason (intake.samples.Reject)
 
     @property
     def moved(self) -> int:
@@ -67,13 +68,17 @@ def compare_rulesets(old: RuleSet, new: RuleSet, batch: SampleBatch) -> Comparis
     order = tuple(dict.fromkeys([*old.grades, *new.grades, UNRATED]))
     old_rules, new_rules = _rule_levels(before), _rule_levels(after)
     moved_rows = np.flatnonzero(old_grades != new_grades)
-    ids = batch.frame["sample_id"].to_numpy(dtype=object)
-    classes = batch.frame["class"].to_numpy(dtype=object)
+    # The graded rows, not the batch's: grading may refuse a row the reader kept (an ISO 4406
+    # code that cannot be read), and positions in the batch would then name the wrong sample.
+    ids = before.measured["sample_id"].to_numpy(dtype=object)
+    classes = before.measured["class"].to_numpy(dtype=object)
     moves = tuple(
         Move(str(ids[i]), classes[i], old_grades[i], new_grades[i],
              _changes(old_rules.iloc[i], new_rules.iloc[i], old.grades, new.grades))
         for i in moved_rows)
-    return Comparison(old, new, len(batch.frame), batch.rejected_rows, dict(table), order, moves)
+    rejects = tuple({(r.row, r.field, r.code): r for r in before.rejects + after.rejects}.values())
+    return Comparison(old, new, len(before), len({r.row for r in rejects}), dict(table), order, moves,
+                      tuple(sorted(rejects, key=lambda r: (r.row, r.field))))
 
 
 def _rule_levels(graded: GradedBatch) -> pd.DataFrame:

@@ -11,7 +11,7 @@ import datetime as dt
 
 from sumpwise.cli.exit_codes import FINDINGS, OK, USAGE
 from sumpwise.cli.options import output_file, refuse_overwriting
-from sumpwise.render.safe_text import terminal_lines
+from sumpwise.render.safe_text import reject_line, terminal_lines
 from sumpwise.ledger.audit import stored_ruleset, stored_samples
 from sumpwise.vocabulary.cautions import caution_text
 from sumpwise.authoring.compare import compare_rulesets, comparison_lines, same_name_differs
@@ -111,6 +111,7 @@ def run_compare(args, stdout, stderr) -> int:
     numeric = tuple(dict.fromkeys([*old.measures, *new.measures]))
     batch = _read(args, numeric)
     comparison = compare_rulesets(old, new, batch)
+    stderr.write("".join(reject_line(batch.source, r) + "\n" for r in comparison.rejects))
     stdout.write("\n".join(terminal_lines(comparison_lines(comparison, args.old, args.new))) + "\n\n")
     stdout.write(caution_text("! ") + "\n")
     return FINDINGS if comparison.moved else OK

@@ -30,7 +30,7 @@ from sumpwise.render.jsonl import dumps, write_jsonl
 from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import FORMS, FULL
-from sumpwise.render.safe_text import spreadsheet_text, terminal_text
+from sumpwise.render.safe_text import reject_line, spreadsheet_text, terminal_text
 from sumpwise.intake.samples import load_column_map, read_samples
 from sumpwise.results.records import UNRATED
 from sumpwise.cli import spectra as spectra_command
@@ -287,10 +287,7 @@ def _write_rejects(batch, path, stderr) -> None:
 def _put_rejects(batch, out, path: str | None, header: bool = False) -> None:
     """Rejected rows: as CSV for a .csv path, JSON Lines for another path, sentences without one."""
     if path is None:
-        for r in batch.rejects:
-            who = f" (sample {r.sample_id})" if r.sample_id else ""
-            out.write(terminal_text(f"{batch.source}: row {r.row}{who}: rejected {r.code}: {r.field}: {r.reason}")
-                      + "\n")
+        out.write("".join(reject_line(batch.source, r) + "\n" for r in batch.rejects))
     elif path.endswith(".csv"):
         writer = csv.writer(out, lineterminator="\n")
         if header:
@@ -515,7 +512,7 @@ def _explain(args, stdin, stdout, stderr) -> int:
     graded = grade_batch(batch, ruleset)
     result = graded.find(args.sample_id)
     if result is None:
-        rejected = [r for r in batch.rejects if r.sample_id == args.sample_id]
+        rejected = [r for r in graded.rejects if r.sample_id == args.sample_id]  # grading's refusals too
         if rejected:
             reasons = "; ".join(f"row {r.row}: {r.field}: {r.reason}" for r in rejected)
             raise InputError(f"sample {args.sample_id} was rejected, not graded: {reasons}")

@@ -1,10 +1,14 @@
 """Trend measures: each sample against its unit's previous sample, for a whole batch at once.
 
-Samples are put in order by unit, sample date and oil hours (a ledger's earlier samples of the
-same units first, so they come before the batch's on a tie). A unit's chain restarts at an oil
-change: the `oil_changed` flag, or oil hours going down. A step across a change of method
-(direct vs subtraction) or of lab is not computed: the two readings are not comparable. All of
-it is one sort plus shifted arrays; there is no loop over units.
+Samples are put in order by unit, sample date and oil hours (on one date, a sample flagged
+`oil_changed` after the others; a ledger's earlier samples of the same units first, so they
+come before the batch's on a tie). A unit's chain restarts at an oil
+change: the `oil_changed` flag, the lubricant code changing, or oil hours going down against
+the unit's last sample that has oil hours (a sample without them in between hides nothing). A
+sample without oil hours between an oil change's two sides cannot be placed on either charge:
+no step is taken to or from it, and it says so. A step across a change of method (direct vs
+subtraction) or of lab is not computed: the two readings are not comparable. All of it is one
+sort plus shifted and accumulated arrays; there is no loop over units.
 
 A step counts towards a rising run only when it exceeds the measure's noise margin: the rule
 set's `noise_margins:` entry where it gives one, else the test method's published repeatability
@@ -18,16 +22,24 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, TREND_BASES, TREND_MEASURES, TRENDED,
+from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, ROW_DERIVED, TREND_BASES, TREND_MEASURES, TRENDED,
                                          declared_trend_measures)
 from sumpwise.ruleset.model import RuleSet, condition_measures
 from sumpwise.vocabulary.caveats import EngineCaveat
+from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.intake.samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
-CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab")
+CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant")
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing date: after every real one
+HOURS_A_DAY = 24.0  # the most oil hours a calendar day can add
+# Row measures taken per 1000 of the sample's own oil hours.
+PER_OIL_HOUR = tuple(m.name for m in ROW_DERIVED if "oil_hours" in m.needs)
+# Twice that, for oil hours estimated or read off a meter on another day than the sample was
+# taken (our margin, no source): only hours the calendar cannot hold by far (a digit too many,
+# a wrong year or month) are refused.
+HOURS_MARGIN = 2.0
 
 
 TREND_CAVEATS = (
@@ -37,6 +49,10 @@ TREND_CAVEATS = (
     EngineCaveat("oil-changed", "oil_change_note",
                  "sumpwise engine: oil hours restart at an oil change and no rate is taken across it "
                  "(common practice, no source)"),
+    EngineCaveat("oil-charge-unknown", "oil_charge_note",
+                 "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
+                 "code to tell which side of an oil change it lies, or oil hours the calendar cannot hold) is "
+                 "not compared step by step or by rate (common practice, no source)"),
 )
 
 
@@ -112,8 +128,9 @@ def chain_frame(measured: pd.DataFrame, oil_changed, bases: tuple = TREND_BASES)
 
 def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | None, bases: tuple) -> dict:
     """CHAIN_COLUMNS and the bases as plain arrays, `history`'s rows before the batch's."""
-    own = {name: measured[name].to_numpy(dtype=object) for name in ("sample_id", "unit_id", "sampled_on", "method",
-                                                                    "lab")}
+    own = {name: measured[name].to_numpy(dtype=object) if name in measured.columns
+           else np.full(len(measured), None, dtype=object)
+           for name in ("sample_id", "unit_id", "sampled_on", "method", "lab", "lubricant")}
     own["oil_hours"] = measured["oil_hours"].to_numpy(dtype=float)
     own["oil_changed"] = (np.zeros(len(measured), dtype=bool) if oil_changed is None
                           else np.asarray(oil_changed, dtype=bool))
@@ -142,18 +159,24 @@ def date_keys(dates: np.ndarray) -> np.ndarray:
     return np.where(codes >= 0, keys[np.maximum(codes, 0)] if len(keys) else _LAST, _LAST)
 
 
-def _trend_order(unit_codes: np.ndarray, day_keys: np.ndarray, hours: np.ndarray) -> np.ndarray:
-    """The stable order by unit, date, then oil hours (missing hours last).
+def _trend_order(unit_codes: np.ndarray, day_keys: np.ndarray, hours: np.ndarray,
+                 flags: np.ndarray | None = None) -> np.ndarray:
+    """The stable order by unit, date, the `oil_changed` flag (on one date a flagged sample
+    comes after the others: the oil was changed that day, after the old oil was sampled), then
+    oil hours (missing hours last).
 
-    The three ranks are packed into one integer key when it fits: one stable argsort is
-    cheaper than lexsort's pass per key, and gives the same order.
+    The ranks are packed into one integer key when it fits: one stable argsort is cheaper than
+    lexsort's pass per key, and gives the same order.
     """
+    flag = np.zeros(len(hours), dtype=np.int64) if flags is None else np.asarray(flags, dtype=np.int64)
     date_rank, dates = _dense_rank(day_keys)
     hour_rank, hour_values = _dense_rank(np.where(np.isnan(hours), np.inf, hours) + 0.0)  # + 0.0: -0.0 ties 0.0
     units = int(unit_codes.max(initial=-1)) + 2  # codes run from -1 (no unit)
-    if units * max(dates, 1) * max(hour_values, 1) >= 2 ** 63:
-        return np.lexsort((hour_rank, date_rank, unit_codes))
-    return np.argsort((unit_codes + 1) * (dates * hour_values) + date_rank * hour_values + hour_rank, kind="stable")
+    within = 2 * max(hour_values, 1)
+    if units * max(dates, 1) * within >= 2 ** 63:
+        return np.lexsort((hour_rank, flag, date_rank, unit_codes))
+    return np.argsort((unit_codes + 1) * (dates * within) + date_rank * within + flag * hour_values + hour_rank,
+                      kind="stable")
 
 
 def _shifted(values: np.ndarray, fill) -> np.ndarray:
@@ -185,7 +208,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     unit_codes, _ = pd.factorize(chain["unit_id"])
     dates = date_keys(chain["sampled_on"])
     hours = chain["oil_hours"]
-    order = _trend_order(unit_codes, dates, hours)
+    order = _trend_order(unit_codes, dates, hours, chain["oil_changed"])
 
     unit = unit_codes[order]
     dated = dates[order] != _LAST
@@ -193,9 +216,9 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
     flagged = chain["oil_changed"][order]
-    hours_fell = same_unit & (h < h_before)
-    new_oil = flagged | hours_fell
-    linked = same_unit & dated & _shifted(dated, False) & ~new_oil
+    charges = _oil_charges(unit, same_unit, h, flagged, pd.factorize(chain["lubricant"])[0][order], dates[order])
+    new_oil, unplaced = charges["new_oil"], charges["unplaced"]
+    linked = same_unit & dated & _shifted(dated, False) & ~new_oil & ~unplaced & ~_shifted(unplaced, False)
 
     method_codes, _ = pd.factorize(chain["method"])
     lab_codes, _ = pd.factorize(chain["lab"])
@@ -215,7 +238,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     names = trend_columns(bases)
     out = np.empty((len(names), len(measured)))
     span = h - h_before
-    span = np.where(comparable & (span > 0), span, np.nan)
+    span = np.where(comparable & (span > 0) & ~charges["outrun"], span, np.nan)
     np.take(span, mine, out=out[0])
     scratch = np.empty((4, total))
     previous, step, rate, rising = scratch
@@ -247,9 +270,18 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     notes = pd.DataFrame({
         "trend_break_note": _break_notes(chain, before, method_changed[mine], lab_changed[mine],
                                          np.arange(earlier, total)),
-        "oil_change_note": _oil_notes(chain, before, flagged[mine], hours_fell[mine], h_before[mine], h[mine]),
+        "oil_change_note": _oil_notes(chain, order, mine, flagged, charges, h),
+        "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, new_oil),
     }, index=measured.index, dtype=object)
-    return pd.concat([measured, numbers, runs, notes], axis=1)
+    out = pd.concat([measured, numbers, runs, notes], axis=1)
+    outrun = charges["outrun"][mine]
+    if outrun.any():  # its own oil hours may be the wrong ones: no rate per 1000 oil hours on it either
+        for name in PER_OIL_HOUR:
+            for column, empty in ((name, np.nan), (name + ":low", np.nan), (name + ":high", np.nan),
+                                  (name + WRITTEN_SUFFIX, None)):
+                if column in out.columns:
+                    out[column] = out[column].where(~outrun, empty)
+    return out
 
 
 def _text(values: np.ndarray) -> np.ndarray:
@@ -260,11 +292,11 @@ def _text(values: np.ndarray) -> np.ndarray:
     return np.array([str(v) for v in text], dtype=object)
 
 
-def _since(chain: dict, before: np.ndarray) -> np.ndarray:
-    """" since the previous sample of unit U (ID, DATE)" for the given predecessor rows."""
+def _since(chain: dict, before: np.ndarray, which="") -> np.ndarray:
+    """" since the previous sample of unit U[which] (ID, DATE)" for the given predecessor rows."""
     def column(name):
         return _text(chain[name][before])
-    return (" since the previous sample of unit " + column("unit_id") + " (" + column("sample_id") + ", "
+    return (" since the previous sample of unit " + column("unit_id") + which + " (" + column("sample_id") + ", "
             + column("sampled_on") + ")")
 
 
@@ -284,17 +316,155 @@ def _break_notes(chain: dict, before: np.ndarray, method_changed: np.ndarray, la
     return notes
 
 
-def _oil_notes(chain: dict, before: np.ndarray, flagged: np.ndarray, hours_fell: np.ndarray,
-               hours_before: np.ndarray, hours: np.ndarray) -> np.ndarray:
-    notes = np.full(len(flagged), None, dtype=object)
-    hit = np.flatnonzero(flagged | hours_fell)
+def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged: np.ndarray,
+                 lubricant: np.ndarray, day_keys: np.ndarray) -> dict:
+    """Where each unit's oil charges start, in trend order (all arrays sorted).
+
+    A charge starts at the `oil_changed` flag, at a lubricant code other than the unit's last
+    one given, or at oil hours below the unit's last oil hours given since the charge began
+    (looked back past samples without oil hours, common practice, no source: oil hours restart
+    at an oil change, shared/reference/limits.md "Service hours"). `unplaced` marks the samples
+    without oil hours (and, for a lubricant change, without a lubricant code) that lie between
+    the two sides of such a change: they may be of either charge. So does a sample whose oil hours
+    rose since the charge's last ones by more than the calendar holds (_most_hours) is `outrun`:
+    its hours or a date are wrong, or the two are not of one charge. No rate is taken to it; on
+    one date (an oil change that day, unflagged, puts the new fill first) no step either.
+    """
+    n = len(unit)
+    positions = np.arange(n)
+    first = ~same_unit
+    unit_start = np.maximum.accumulate(np.where(first, positions, 0)) if n else positions
+
+    def last_before(known):
+        """The position of the unit's previous row where `known`, -1 where none."""
+        last = _shifted(np.maximum.accumulate(np.where(known, positions, -1)) if n else positions, -1)
+        return np.where(same_unit & (last >= unit_start), last, -1)
+
+    def next_from(known):
+        """The position of the first row at or after each row where `known` in the same unit, -1 where none."""
+        ahead = np.minimum.accumulate(np.where(known, positions, n)[::-1])[::-1] if n else positions
+        at = np.minimum(ahead, max(n - 1, 0))
+        return np.where((ahead < n) & (unit >= 0) & (unit[at] == unit), ahead, -1)
+
+    named = lubricant >= 0
+    lubricant_from = last_before(named)
+    lubricant_changed = named & (lubricant_from >= 0) & (lubricant != lubricant[np.maximum(lubricant_from, 0)])
+    restart = flagged | lubricant_changed | first
+    charge_start = np.maximum.accumulate(np.where(restart, positions, 0)) if n else positions
+    timed = np.isfinite(h)
+    hours_from = last_before(timed)
+    hours_from = np.where(hours_from >= charge_start, hours_from, -1)  # looked back within the charge only
+    hours_fell = timed & (hours_from >= 0) & (h < h[np.maximum(hours_from, 0)])
+    new_oil = flagged | lubricant_changed | hours_fell
+
+    # A sample without oil hours before a fall in them, with no restart in between, lies between
+    # the fall's two sides; one without a lubricant code either, before a change of code, too.
+    fall = next_from(timed)
+    fall_at = np.maximum(fall, 0)
+    unplaced = ~timed & (fall >= 0) & hours_fell[fall_at] & (charge_start[fall_at] <= positions)
+    change = next_from(named)
+    change_at = np.maximum(change, 0)
+    last_change = np.maximum.accumulate(np.where(new_oil | first, positions, -1)) if n else positions
+    unplaced |= (~timed & ~named & (change >= 0) & lubricant_changed[change_at]
+                 & (last_change[np.maximum(change_at - 1, 0)] <= positions))
+    unplaced &= ~new_oil
+    # what placed nothing: the change it lies before, and that change's other side
+    change_of = np.where(~timed & (fall >= 0) & hours_fell[fall_at], fall, change)
+    from_at = np.maximum(hours_from, 0)
+    dated = day_keys != _LAST
+    days = np.where(dated & dated[from_at], (day_keys - day_keys[from_at]) / 86_400e9, np.nan)
+    with np.errstate(invalid="ignore"):
+        outrun = timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days))
+    return {"new_oil": new_oil, "hours_fell": hours_fell, "hours_from": hours_from,
+            "lubricant_changed": lubricant_changed, "lubricant_from": lubricant_from,
+            "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of,
+            "same_unit": same_unit}
+
+
+def _oil_notes(chain: dict, order: np.ndarray, mine: np.ndarray, flagged: np.ndarray, charges: dict,
+               h: np.ndarray) -> np.ndarray:
+    """The oil-changed note of each incoming row (sorted arrays, `mine` their sorted positions)."""
+    notes = np.full(len(mine), None, dtype=object)
+    hit = np.flatnonzero(charges["new_oil"][mine])
     if not len(hit):
         return notes
-    fell = ("oil hours fell from " + _hours(hours_before[hit]) + " to " + _hours(hours[hit])
-            + _since(chain, before[hit]))
-    why = np.where(flagged[hit], "oil_changed is set on this sample", fell)
-    notes[hit] = "first sample after an oil change (" + why + "); trend measures restart here, with no step"
+    at = mine[hit]
+    notes[hit] = ("first sample after an oil change (" + _why(chain, order, at, flagged, charges, h)
+                  + "); trend measures restart here, with no step")
     return notes
+
+
+def _why(chain: dict, order: np.ndarray, at: np.ndarray, flagged: np.ndarray, charges: dict,
+         h: np.ndarray) -> np.ndarray:
+    """What tells an oil change at the sorted positions `at` (each one of them is a change); each
+    phrase is built only for the rows it describes."""
+    why = np.full(len(at), "oil_changed is set on this sample", dtype=object)
+    told = flagged[at]
+    fell = np.flatnonzero(charges["hours_fell"][at] & ~told)
+    if len(fell):
+        to = at[fell]
+        start = charges["hours_from"][to]
+        which = np.where(start == to - 1, "", " with oil hours").astype(object)
+        why[fell] = ("oil hours fell from " + _hours(h[start]) + " to " + _hours(h[to])
+                     + _since(chain, order[start], which))
+    changed = np.flatnonzero(charges["lubricant_changed"][at] & ~told)
+    if len(changed):
+        to = at[changed]
+        start = charges["lubricant_from"][to]
+        which = np.where(start == to - 1, "", " with a lubricant code").astype(object)
+        lubricant = chain["lubricant"]
+        text = ("lubricant changed from " + _text(lubricant[order[start]]) + " to " + _text(lubricant[order[to]])
+                + _since(chain, order[start], which))
+        both = charges["hours_fell"][to]
+        why[changed] = np.where(both, text + " and " + why[changed], text)
+    return why
+
+
+def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray,
+                  unplaced: np.ndarray, new_oil: np.ndarray) -> np.ndarray:
+    """The oil-charge-unknown note: on a sample that cannot be placed on one charge, and on the
+    sample after such a one (no step to it either) that starts no charge itself."""
+    notes = np.full(len(mine), None, dtype=object)
+    after = _shifted(unplaced, False) & ~unplaced & ~new_oil & charges["same_unit"]
+    outrun = charges["outrun"]
+    hit = np.flatnonzero(outrun[mine])
+    if len(hit):
+        at = mine[hit]
+        base = order[charges["hours_from"][at]]
+        days = charges["days"][at]
+        notes[hit] = ("oil hours rose from " + _hours(h[charges["hours_from"][at]]) + " ("
+                      + _text(chain["sample_id"][base]) + ", " + _text(chain["sampled_on"][base]) + ") to "
+                      + _hours(h[at]) + " in " + _hours(days) + " days, more than the calendar holds (at most "
+                      + _hours(_most_hours(days)) + " h: 24 h a day, twice over): the oil hours or a date "
+                      "are wrong, or the two samples are not of one oil charge; "
+                      + np.where(days == 0, "trend measures are not computed on it",
+                                 "no rate per 1000 h is taken to it, nor one per 1000 of its own oil hours"))
+    hit = np.flatnonzero(unplaced[mine] & ~outrun[mine])
+    if len(hit):
+        at = mine[hit]
+        change = charges["change_of"][at]
+        no_hours_fall = ~charges["hours_fell"][change]
+        other = np.where(no_hours_fall, charges["lubricant_from"][change], charges["hours_from"][change])
+        charge_why = _why(chain, order, change, np.zeros(len(order), dtype=bool), charges, h)
+        lacking = np.where(no_hours_fall, "no oil hours or lubricant code", "no oil hours")
+        notes[hit] = ("an oil change came between samples " + _text(chain["sample_id"][order[other]]) + " and "
+                      + _text(chain["sample_id"][order[change]]) + " of unit " + _text(chain["unit_id"][order[at]])
+                      + " (" + charge_why + ") and this sample has " + lacking
+                      + " to tell which charge it is from; trend measures are not computed on it")
+    hit = np.flatnonzero(after[mine])
+    if len(hit):
+        at = mine[hit]
+        before = order[at - 1]
+        notes[hit] = ("the previous sample of unit " + _text(chain["unit_id"][before]) + " ("
+                      + _text(chain["sample_id"][before]) + ", " + _text(chain["sampled_on"][before])
+                      + ") cannot be placed on one oil charge; trend measures restart here, with no step")
+    return notes
+
+
+def _most_hours(days: np.ndarray) -> np.ndarray:
+    """The most oil hours a unit can run between two dates `days` apart: both dates' days in full
+    (a date carries no time of day), 24 h each, with HOURS_MARGIN."""
+    return HOURS_A_DAY * (days + 1.0) * HOURS_MARGIN
 
 
 def _hours(values: np.ndarray) -> np.ndarray:

@@ -331,30 +331,19 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                 written[at[bound]] = censored[at[bound]]
             raw[column + WRITTEN_SUFFIX] = pd.Series(written, index=raw.index, dtype=object)
 
+    # Two readings of one sample that physics orders; a row already refused keeps its one reason.
     for cold, hot in VISCOSITY_PAIRS:  # viscosity falls as the oil warms (ASTM D341): kv100 below kv40
         if cold in raw.columns and hot in raw.columns:
-            plain = [raw[c + CENSORED_SUFFIX].isna().to_numpy() if c + CENSORED_SUFFIX in raw.columns
-                     else np.ones(len(raw), dtype=bool) for c in (cold, hot)]
-            upside = ((raw[hot].to_numpy(dtype=float) >= raw[cold].to_numpy(dtype=float)) & plain[0] & plain[1]
-                      & ~bad)  # a row already refused (a negative kv40) keeps its one reason
-            if upside.any():
-                reasons = _found(f"{hot} ", raw[hot], upside)
-                reasons[upside] += _found(f" mm²/s is not below {cold} ", raw[cold], upside)[upside] + (
-                    " mm²/s: an oil's viscosity falls as it warms (ASTM D341), so the two columns are swapped or "
-                    "one is misread; the sample is not graded")
-                reject(upside, hot, reasons, "D021")
-
+            upside = _out_of_order(raw, cold, hot, np.greater_equal) & ~bad
+            reject(upside, hot, _order_reasons(raw, cold, hot, upside, "mm²/s is not below", (
+                "mm²/s: an oil's viscosity falls as it warms (ASTM D341), so the two columns are swapped or one is "
+                "misread; the sample is not graded")), "D021")
     counted = [f"particles_{size}" for size in ISO4406_SIZES if f"particles_{size}" in raw.columns]
     for small, large in itertools.combinations(counted, 2):  # cumulative counts never rise with size (ISO 4406)
-        plain = [raw[c + CENSORED_SUFFIX].isna().to_numpy() if c + CENSORED_SUFFIX in raw.columns
-                 else np.ones(len(raw), dtype=bool) for c in (small, large)]
-        rising = (raw[large].to_numpy(dtype=float) > raw[small].to_numpy(dtype=float)) & plain[0] & plain[1] & ~bad
-        if rising.any():
-            reasons = _found(f"{large} ", raw[large], rising)
-            reasons[rising] += _found(f" per mL is above {small} ", raw[small], rising)[rising] + (
-                " per mL: counts at a size include every larger particle (ISO 4406), so these are counts per "
-                "size range or in another order; the sample is not graded")
-            reject(rising, large, reasons, "D022")
+        rising = _out_of_order(raw, small, large, np.greater) & ~bad
+        reject(rising, large, _order_reasons(raw, small, large, rising, "per mL is above", (
+            "per mL: counts at a size include every larger particle (ISO 4406), so these are counts per size range "
+            "or in another order; the sample is not graded")), "D022")
 
     if "sampled_on" in raw.columns:
         dates = read_dates(raw["sampled_on"].to_numpy(dtype=object), columns.option("date_format"))
@@ -410,6 +399,21 @@ def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.
     found = np.zeros(len(text), dtype=bool)
     found[at] = np.array([header_key(cell) in names for cell in spellings] + [False], dtype=bool)[codes]
     return found
+
+
+def _out_of_order(raw: pd.DataFrame, first: str, second: str, wrong) -> np.ndarray:
+    """Rows whose `second` reading stands to the `first` as `wrong` says it never can; a
+    censored cell (a bound, not a reading) and a missing one decide nothing."""
+    plain = [raw[c + CENSORED_SUFFIX].isna().to_numpy() if c + CENSORED_SUFFIX in raw.columns
+             else np.ones(len(raw), dtype=bool) for c in (first, second)]
+    return wrong(raw[second].to_numpy(dtype=float), raw[first].to_numpy(dtype=float)) & plain[0] & plain[1]
+
+
+def _order_reasons(raw: pd.DataFrame, first: str, second: str, rows: np.ndarray, relation: str, why: str):
+    """`second X <relation> first Y <why>` for the rows, quoting both cells."""
+    reasons = _found(f"{second} ", raw[second], rows)
+    reasons[rows] += _found(f" {relation} {first} ", raw[first], rows)[rows] + f" {why}"
+    return reasons
 
 
 # Viscosities of one oil at 40 and 100 °C, in the same unit (mm²/s) once converted.

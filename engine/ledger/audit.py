@@ -197,6 +197,10 @@ def _regrade_one(conn, entry: dict, ruleset: RuleSet) -> SampleResult:
                                "AND entry >= ?", (entry["unit_id"], entry["entry"])).fetchall()
         history = history[~history["sample_id"].isin([sid for (sid,) in entries])]
     graded = grade_batch(SampleBatch(frame, (), 1, entry["source"]), ruleset, history)
+    if graded.rejects:
+        r = graded.rejects[0]
+        raise LedgerError(f"sample {r.sample_id}: this engine refuses its stored values, so it cannot be "
+                          f"graded again under another rule set ({r.code}, {r.field}: {r.reason})")
     return replace(graded.result(0), row=None)
 
 
@@ -538,6 +542,18 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
         history = history[~history["sample_id"].isin(entries["sample_id"])]
     # No forecasts: a verdict's facts hold none, and replay compares facts.
     graded = grade_batch(SampleBatch(frame, (), len(frame), batch["source"]), ruleset, history, forecasts=False)
+    found = []
+    if graded.rejects:  # stored values this engine refuses (an ISO 4406 code it no longer reads): no verdict to compare
+        refused = {r.row: r for r in graded.rejects}
+        rows = frame.index.to_numpy()
+        for k in np.flatnonzero(np.isin(rows, list(refused)) & wanted):
+            reject = refused[int(rows[k])]
+            found.append(_unreproduced(batch, intact, entries["sample_id"].iat[k],
+                                       f"this engine refuses its stored values ({reject.code}, {reject.field}: "
+                                       f"{reject.reason})"))
+        kept = ~np.isin(rows, list(refused))
+        entries, frame = entries[kept].reset_index(drop=True), frame[kept]
+        altered, wanted = altered[kept], wanted[kept]
     typed = _typed_mismatch(entries, graded.measured, frame, form, json.loads(batch["held"]) if form != 1 else [])
     facts = batch_facts(graded, json.loads(batch["value_names"]))
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
@@ -549,7 +565,6 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
     differs = ~((stored["grade"] == facts.grades) & same_level & (stored["facts"] == shapes)
                 & (stored["vals"] == facts.values))
     sids = entries["sample_id"].to_numpy(dtype=object)
-    found = []
     for k in np.flatnonzero(wanted & (altered | typed | differs)):
         sid = sids[k]
         if altered[k]:
@@ -561,23 +576,26 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
         elif pd.isna(stored["facts"][k]):
             found.append(Difference(sid, number, "its verdict is missing (deleted, or its shape is gone)"))
         else:
-            why = _facts_differ(stored, facts, k) or "its verdict differs"
-            if intact and older_engine(batch["engine"]):
-                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}; {engine_name()} grades "
-                                                     f"it otherwise: an engine change, not an alteration, as the "
-                                                     f"batch's digest and the sample's fingerprint hold)",
-                                        ENGINE_CHANGE))
-            elif intact and batch["engine"] == engine_name():
-                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}, the engine replaying "
-                                                     f"it: not reproduced)", REPRODUCIBILITY))
-            elif not intact:
-                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}; the batch's digest or "
-                                                     f"its place in the chain does not hold: altered after "
-                                                     f"recording?)", REPRODUCIBILITY))
-            else:
-                found.append(Difference(sid, number, f"{why} (recorded by {batch['engine']}, which is not older "
-                                                     f"than {engine_name()}: not reproduced)", REPRODUCIBILITY))
+            found.append(_unreproduced(batch, intact, sid, _facts_differ(stored, facts, k) or "its verdict differs"))
     return found
+
+
+def _unreproduced(batch: dict, intact: bool, sid, why: str) -> Difference:
+    """A recorded verdict this engine does not give again: an engine change only when an older
+    engine recorded it and the batch is intact; else the replay fails on it."""
+    number, engine = batch["batch"], batch["engine"]
+    if intact and older_engine(engine):
+        return Difference(sid, number, f"{why} (recorded by {engine}; {engine_name()} grades it otherwise: an "
+                                       f"engine change, not an alteration, as the batch's digest and the sample's "
+                                       f"fingerprint hold)", ENGINE_CHANGE)
+    if intact and engine == engine_name():
+        return Difference(sid, number, f"{why} (recorded by {engine}, the engine replaying it: not reproduced)",
+                          REPRODUCIBILITY)
+    if not intact:
+        return Difference(sid, number, f"{why} (recorded by {engine}; the batch's digest or its place in the chain "
+                                       f"does not hold: altered after recording?)", REPRODUCIBILITY)
+    return Difference(sid, number, f"{why} (recorded by {engine}, which is not older than {engine_name()}: not "
+                                   f"reproduced)", REPRODUCIBILITY)
 
 
 def _ledger_findings(conn) -> list:

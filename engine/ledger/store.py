@@ -26,7 +26,7 @@ import re
 import sqlite3
 import sys
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -507,7 +507,12 @@ def measures_of(frame: pd.DataFrame | None, ruleset: RuleSet, also: tuple = ()) 
     if frame is None or not len(frame):
         return pd.DataFrame({name: pd.Series(dtype=float if name in ("oil_hours",) + bases else object)
                              for name in list(CHAIN_COLUMNS) + list(bases)}).astype({"oil_changed": bool})
-    batch = read_cleanliness_codes(read_oil_changes(SampleBatch(frame, (), len(frame), "ledger")))
+    batch = read_oil_changes(SampleBatch(frame, (), len(frame), "ledger"))
+    refused = read_cleanliness_codes(batch).rejects  # a stored code this engine no longer reads
+    if refused:  # the sample stays in the unit's history, without that code (its other readings hold)
+        frame = batch.frame.copy()
+        frame.loc[[r.row for r in refused], "iso4406"] = None
+        batch = replace(batch, frame=frame)
     measured = derive_measures(batch.frame, ruleset.lubricants, ruleset.measures, ruleset.fields)
     return chain_frame(measured, batch.frame.get("oil_changed"), bases).reset_index(drop=True)
 

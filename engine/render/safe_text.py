@@ -80,3 +80,9 @@ def _matches(found, n: int) -> np.ndarray:
     if found is None:
         return np.zeros(n, dtype=bool)
     return found.fillna(False).astype(bool).to_numpy()
+
+
+def reject_line(source: str, reject) -> str:
+    """A rejected row as one line for a terminal: where, which sample, the code, field and reason."""
+    who = f" (sample {reject.sample_id})" if reject.sample_id else ""
+    return terminal_text(f"{source}: row {reject.row}{who}: rejected {reject.code}: {reject.field}: {reject.reason}")

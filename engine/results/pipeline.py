@@ -110,17 +110,24 @@ def grade_in_chunks(batches, ruleset: RuleSet):
         batch, first = (following if told is None else next(batches, None)), False  # the source ends itself
 
 
-def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
-    """(date, oil hours) sort keys as trends order samples: unreadable dates and missing hours last."""
+def _trend_keys(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(date, oil-changed flag, oil hours) sort keys as trends order samples: unreadable dates
+    and missing hours last; on one date a flagged sample after the others."""
     written = frame["sampled_on"].to_numpy(dtype=object) if "sampled_on" in frame else np.full(len(frame), None)
     keys = date_keys(written)
+    flags = (frame["oil_changed"].to_numpy(dtype=bool) if "oil_changed" in frame
+             else np.zeros(len(frame), dtype=bool)).astype(np.int64)
     hours = frame["oil_hours"].to_numpy(dtype=float) if "oil_hours" in frame else np.full(len(frame), np.nan)
-    return keys, np.where(np.isnan(hours), np.inf, hours)
+    return keys, flags, np.where(np.isnan(hours), np.inf, hours)
 
 
 def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases: tuple) -> pd.DataFrame:
     """Each unit's samples a later chunk's trends need: its latest, and before it the run of
-    rising samples a `<base>_rising` count of the latest goes back over."""
+    rising samples a `<base>_rising` count of the latest goes back over, its last sample with oil
+    hours, its last with a lubricant code, its last flagged oil change and its last change of
+    lubricant code with the sample before it (an oil change is looked for back to them:
+    trends._oil_charges). Those are carried for their oil hours, flag and code only: their
+    readings are left empty, so no step is taken from them."""
     names = list(CHAIN_COLUMNS) + list(bases)
     own = pd.DataFrame({name: (measured[name].to_numpy() if name in measured else None) for name in names})
     rising = [measured[f"{base}_rising"].to_numpy(dtype=float) for base in bases if f"{base}_rising" in measured]
@@ -135,15 +142,40 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     present = np.flatnonzero(pd.notna(units))
     if not len(present):
         return frame.iloc[present][names].reset_index(drop=True)
-    dates, hours = _trend_keys(frame)
+    dates, flags, hours = _trend_keys(frame)
     codes = pd.factorize(units[present], sort=True)[0]  # unit ids are str: their ranks sort as they do
-    by = np.lexsort((hours[present], dates[present], codes))  # stable: ties keep their order
+    by = np.lexsort((hours[present], flags[present], dates[present], codes))  # stable: ties keep their order
     order, unit_of = present[by], codes[by]
     last = np.r_[np.flatnonzero(unit_of[1:] != unit_of[:-1]), len(order) - 1]  # each unit's latest
     unit_last = np.repeat(last, np.diff(np.r_[-1, last]))
     from_end = unit_last - np.arange(len(order))
     keep = frame["_keep"].to_numpy()[order][unit_last]
-    return frame.iloc[order[from_end < keep]][names].reset_index(drop=True)
+    kept = from_end < keep
+    at = np.arange(len(order))
+    first = np.r_[0, last[:-1] + 1]
+    unit_first = np.repeat(first, np.diff(np.r_[-1, last]))
+    lubricant = frame["lubricant"].to_numpy(dtype=object)[order] if "lubricant" in frame else np.full(len(order), None)
+    named = pd.notna(lubricant)
+    named_before = _shifted_back(np.maximum.accumulate(np.where(named, at, -1)))  # the unit's previous code
+    named_before = np.where(named_before >= unit_first, named_before, -1)
+    code_changed = named & (named_before >= 0) & (lubricant != lubricant[np.maximum(named_before, 0)])
+    context = np.zeros(len(order), dtype=bool)
+    for evidence in (np.isfinite(hours[order]), named, flags[order].astype(bool), code_changed):
+        latest = np.maximum.accumulate(np.where(evidence, at, -1))[last]
+        context[latest[latest >= first]] = True
+        if evidence is code_changed:
+            before = named_before[latest[latest >= first]]
+            context[before[before >= 0]] = True
+    context &= ~kept
+    carried = frame.iloc[order[kept | context]][names].reset_index(drop=True)
+    for base in bases:  # a sample kept for its oil hours, flag or code only gives no step
+        carried.loc[context[kept | context], base] = np.nan
+    return carried
+
+
+def _shifted_back(values: np.ndarray) -> np.ndarray:
+    """Each element's predecessor, -1 for the first."""
+    return np.r_[-1, values[:-1]] if len(values) else values
 
 
 def _check_order(batch: SampleBatch, history: pd.DataFrame) -> None:
@@ -155,11 +187,12 @@ def _check_order(batch: SampleBatch, history: pd.DataFrame) -> None:
     has = where >= 0
     if not has.any():
         return
-    dates, hours = _trend_keys(frame)
-    before_dates, before_hours = _trend_keys(carried)
+    dates, flags, hours = _trend_keys(frame)
+    before_dates, before_flags, before_hours = _trend_keys(carried)
     early = np.zeros(len(frame), dtype=bool)
-    b_dates, b_hours = before_dates[where[has]], before_hours[where[has]]
-    early[has] = (dates[has] < b_dates) | ((dates[has] == b_dates) & (hours[has] < b_hours))
+    b_dates, b_flags, b_hours = before_dates[where[has]], before_flags[where[has]], before_hours[where[has]]
+    d, f, h = dates[has], flags[has], hours[has]
+    early[has] = (d < b_dates) | ((d == b_dates) & ((f < b_flags) | ((f == b_flags) & (h < b_hours))))
     if early.any():
         k = int(np.flatnonzero(early)[0])
         unit = frame["unit_id"].iat[k]

@@ -55,3 +55,24 @@ def test_report_lines_table_and_moves():
     assert header[-4:] == ["normal", "watch", "alert", "unrated"]
     assert lines[5].split() == ["normal", "3", "3", ".", "."]
     assert "  P-03 (pump): normal -> watch: acid-rise quiet -> watch" in lines
+
+
+
+def test_a_row_grading_refuses_is_counted_and_the_moves_name_the_right_samples(tmp_path):
+    """A row the reader keeps but grading refuses (an ISO 4406 code that cannot be read, D012)
+    shifted every later position: the moves named the sample before the one that moved, and
+    the counts said 0 rejected. The same file with such a row first must give the same moves."""
+    text = (DATA / "compare-samples.csv").read_text().splitlines()
+    header, rows = text[0], text[1:]
+    columns = header.split(",")
+    bad = dict.fromkeys(columns, "")
+    bad.update(sample_id="P-00", **{"class": "pump"})
+    broken = tmp_path / "with-a-bad-code.csv"
+    broken.write_text("\n".join([header + ",iso4406", ",".join(bad[c] for c in columns) + ",18/16/x"]
+                                + [row + "," for row in rows]) + "\n")
+    plain = _compare("compare-old.yaml", "compare-new.yaml")
+    found = compare_rulesets(load_ruleset(DATA / "compare-old.yaml"), load_ruleset(DATA / "compare-new.yaml"),
+                             read_samples(broken))
+    assert [m.sample_id for m in found.moves] == [m.sample_id for m in plain.moves] == ["P-02", "P-03", "P-10"]
+    assert (found.graded, found.rejected) == (plain.graded, plain.rejected + 1)
+    assert [(r.sample_id, r.code) for r in found.rejects] == [("P-00", "D012")]

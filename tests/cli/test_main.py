@@ -88,6 +88,15 @@ def test_explain_command_and_a_rejected_sample():
     assert rejected.code == 2 and "was rejected, not graded" in rejected.err
 
 
+def test_explain_of_a_sample_grading_refused_says_why(tmp_path):
+    """An ISO 4406 code that cannot be read is refused when graded, not when read: explain said
+    "no sample 'H1' in" the file that holds it."""
+    samples = tmp_path / "s.csv"
+    samples.write_text("sample_id,class,lubricant,iso4406\nH1,hydraulic,HYD-46-M,18/16/x\n")
+    run = run_cli("explain", "H1", "--samples", samples, "--rules", SITE)
+    assert run.code == 2 and "sample H1 was rejected, not graded: row 1: iso4406:" in run.err, run.err
+
+
 def test_every_command_has_help():
     for command in ("check", "grade", "explain", "demo", "spectra"):
         run = run_cli(command, "--help")

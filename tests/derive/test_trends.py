@@ -64,7 +64,7 @@ def test_order_is_by_date_then_hours_not_by_input_order():
     out = _trends(rows).set_index("sample_id")
     assert out.at["B", "oxidation_step"] == 1.0
     assert out.at["C", "oxidation_step"] == -0.5
-    same_day = [_row("X2", "01-05", 1200, 7.0), _row("X1", "01-05", 1100, 6.0)]
+    same_day = [_row("X2", "01-05", 1120, 7.0), _row("X1", "01-05", 1100, 6.0)]  # 20 h apart: one day holds them
     tied = _trends(same_day).set_index("sample_id")
     assert tied.at["X2", "oxidation_step"] == 1.0  # same date: oil hours decide
 
@@ -224,7 +224,8 @@ def test_oil_changed_spellings(value, flag):
 
 
 def test_packed_sort_key_gives_numpy_lexsort_order():
-    # Reference: numpy.lexsort (stable, last key first): unit, then date, then oil hours with missing hours last.
+    # Reference: numpy.lexsort (stable, last key first): unit, then date, then the oil-changed flag,
+    # then oil hours with missing hours last.
     from sumpwise.derive.trends import _trend_order, date_keys
     rng = np.random.default_rng(11)
     n = 5000
@@ -234,4 +235,7 @@ def test_packed_sort_key_gives_numpy_lexsort_order():
     hours = rng.choice([0.0, -0.0, 10.0, 25.5, np.nan, np.inf, 1e9], n)
     expected = np.lexsort((np.arange(n), np.where(np.isnan(hours), np.inf, hours), dates, units))
     assert np.array_equal(_trend_order(units, dates, hours), expected)
+    flags = rng.random(n) < 0.3  # on one date, a flagged sample after the others, then by oil hours
+    expected = np.lexsort((np.arange(n), np.where(np.isnan(hours), np.inf, hours), flags, dates, units))
+    assert np.array_equal(_trend_order(units, dates, hours, flags), expected)
     assert len(_trend_order(units[:0], dates[:0], hours[:0])) == 0
