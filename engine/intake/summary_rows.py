@@ -104,8 +104,8 @@ def summary_rows(raw: pd.DataFrame, numeric: set, repeated: np.ndarray) -> Summa
     for k in np.flatnonzero(ids != None):  # noqa: E711 (numpy element-wise)
         found[int(looked[k])] = ("sample_id", raw["sample_id"].iat[looked[k]], ids[k])
     plain = ~np.isin(looked, list(found))  # the others: a label elsewhere, with no date or unit of their own
-    labels = {column: _labels(raw[column].to_numpy(dtype=object)[looked], _ELSEWHERE) for column in ("sampled_on", "unit_id")
-              if column in raw.columns}
+    labels = {column: _labels(raw[column].to_numpy(dtype=object)[looked], _ELSEWHERE)
+              for column in ("sampled_on", "unit_id") if column in raw.columns}
     for column in ("sampled_on", "unit_id"):
         present = (date if column == "sampled_on" else unit)[looked]
         plain &= ~present | (labels[column] != None if column in labels else False)  # noqa: E711
