@@ -55,7 +55,7 @@ def synthetic(n: int, seed: int = 11) -> pd.DataFrame:
         "kv40": rng.uniform(30, 340, n).round(2),
         "kv100": rng.uniform(5, 35, n).round(2),
         "an": rng.uniform(0.05, 2, n).round(2),
-        "water": rng.uniform(0.001, 0.5, n).round(4),
+        "water": rng.uniform(10, 5000, n).round(0),  # ppm (Karl Fischer reports from 10 mg/kg); the lab export writes %
         "oxidation": rng.uniform(0.01, 0.3, n).round(3),
     })
 
@@ -69,6 +69,7 @@ def lab_export(frame: pd.DataFrame, seed: int = 12) -> pd.DataFrame:
     """The same rows as a lab writes them: decimal commas, 5 % of numeric cells censored."""
     rng = np.random.default_rng(seed)
     out = frame.copy()
+    out["water"] = (out["water"] / 10000).round(4)  # its "H2O %" column, read with unit: '%'
     for name in NUMERIC:
         text = out[name].astype(str).str.replace(".", ",", regex=False).to_numpy(dtype=object)
         cut = rng.random(len(out)) < 0.05

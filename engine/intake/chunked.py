@@ -26,6 +26,7 @@ from sumpwise.vocabulary.problems import InputError
 DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
 _BATCH_CHARS = 1 << 22  # lines read at a time while looking for a chunk's end
 _SEEN_AT = re.compile(r"^(sample id '.*' already seen at row )(\d+)$", re.S)
+_UNDER = re.compile(r"^(read under the header line at row )(-?\d+)(,.*)$", re.S)  # a D020 naming its header line
 
 
 def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
@@ -44,6 +45,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
     seen = _SeenIds()
     offset = 0
+    layout_break = None  # a header line in another layout, in force from an earlier chunk
     try:
         for text, lines, more in _chunk_texts(stream, fmt, rows, name):
             if offset == 0 and fmt == "csv":
@@ -56,9 +58,11 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             except UnicodeEncodeError as exc:  # a surrogate: a byte the file's UTF-8 could not read
                 raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv")) from None
             batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name,
-                                 chunk_columns, fmt, numeric)
+                                 chunk_columns, fmt, numeric,
+                                 layout_break and (layout_break[0] - offset, layout_break[1]))  # the chunk's rows
             data = None
             batch = _moved(batch, offset)
+            layout_break = batch.layout_break
             batch = replace(seen.check(batch), more=more)
             offset += lines  # the chunk's lines, blank ones included: rows are numbered by line
             yield batch
@@ -151,8 +155,12 @@ def _moved(batch: SampleBatch, offset: int) -> SampleBatch:
     for r in batch.rejects:
         found = _SEEN_AT.match(r.reason) if r.code == DUPLICATE_ID else None
         reason = f"{found.group(1)}{int(found.group(2)) + offset}" if found else r.reason
+        under = _UNDER.match(r.reason) if r.code == "D020" else None
+        if under:
+            reason = f"{under.group(1)}{int(under.group(2)) + offset}{under.group(3)}"
         rejects.append(replace(r, row=r.row + offset, reason=reason))
-    return replace(batch, frame=frame, rejects=tuple(rejects))
+    moved = batch.layout_break and (batch.layout_break[0] + offset, batch.layout_break[1])
+    return replace(batch, frame=frame, rejects=tuple(rejects), layout_break=moved)
 
 
 class _SeenIds:

@@ -1,6 +1,9 @@
 """Sample dates: ISO 8601 read as dates; any other form only with the column map's `date_format`.
 
-ISO 8601 (year first) is read even where a format is declared: it cannot be misread.
+ISO 8601 (year first) is read even where a format is declared: it cannot be misread. A UTC
+offset (`2026-03-02T23:30:00-05:00`, `Z`) is dropped, not applied: the date and time a lab
+writes are the site's own, and converting to UTC moves an evening sample to the next day
+(ahead of a next-morning resample written as a date, which reverses the unit's trend).
 
 A date is kept as ISO 8601 text (`2026-01-15`, or `2026-01-15T08:30:00` with a time), so
 text order is date order everywhere downstream (trends, the ledger, report ranges). A
@@ -69,7 +72,7 @@ def _one(cell: str, date_format: str | None) -> tuple[str | None, str]:
         except (ValueError, TypeError):
             return None, f"'{cell}' does not fit the declared date_format '{date_format}' or is not a real date"
     if stamp.tzinfo is not None:
-        stamp = stamp.tz_convert("UTC").tz_localize(None)
+        stamp = stamp.tz_localize(None)  # the wall time as written: the offset is not applied
     if stamp.hour == stamp.minute == stamp.second == 0 and stamp.microsecond == 0 and len(cell) <= 10:
         return stamp.date().isoformat(), ""
     return stamp.isoformat(timespec="seconds"), ""

@@ -606,9 +606,14 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
         raise InputError(f"no sheet {sheet!r}; the workbook has: {', '.join(names)}")
     else:
         chosen = sheet
-    cells = [list(map(_cell, row)) for row in book[chosen].iter_rows()]
+    worksheet = book[chosen]
+    worksheet.reset_dimensions()  # every row and column the file holds, whatever its <dimension> says
+    cells = [list(map(_cell, row)) for row in worksheet.iter_rows()]
+    path = getattr(worksheet, "_worksheet_path", None)  # the sheet's part in the archive, for its merged cells
     book.close()
     unsaved = _unsaved_formulas(data, chosen, cells)
+    if path:
+        _fill_merged(data, path, cells)
     if not cells or not any(v is not None for v in cells[0]):
         raise InputError(f"sheet {chosen!r} is empty: expected a header row and data rows")
     header = list(cells[0])
@@ -649,6 +654,7 @@ def _unsaved_formulas(data: bytes, sheet: str, cells: list) -> dict:
                    if item.startswith("xl/worksheets/") and item.endswith(".xml")):
             return {}
     book = load_workbook(io.BytesIO(data), read_only=True, data_only=False)
+    book[sheet].reset_dimensions()
     found: dict = {}
     for number, row in enumerate(book[sheet].iter_rows()):
         for k, cell in enumerate(row):
@@ -657,6 +663,41 @@ def _unsaved_formulas(data: bytes, sheet: str, cells: list) -> dict:
                 found.setdefault(number, {})[k] = str(cell.value)
     book.close()
     return found
+
+
+_MERGED = re.compile(rb'<(?:\w+:)?mergeCell\s+ref="([A-Z]+[0-9]+(?::[A-Z]+[0-9]+)?)"')
+
+
+def _fill_merged(data: bytes, path: str, cells: list) -> None:
+    """Each merged range's cells given its top-left cell's value, as the sheet shows it (in place).
+
+    openpyxl's read-only mode gives the value to the top-left cell only: a unit or a date merged
+    down a group of rows would leave the rows below it without one (no trend for them), a header
+    merged across two columns would name only the first."""
+    import zipfile
+
+    from openpyxl.utils.cell import range_boundaries
+
+    with zipfile.ZipFile(io.BytesIO(data)) as archive:
+        try:
+            xml = archive.read(path.lstrip("/"))
+        except KeyError:
+            return
+    at = xml.find(b"mergeCells", max(xml.rfind(b"sheetData"), 0))  # the list follows the cells
+    if at < 0:
+        return
+    for ref in _MERGED.findall(xml, at):
+        first_col, first_row, last_col, last_row = range_boundaries(ref.decode("ascii"))
+        if first_row > len(cells):
+            continue
+        top = cells[first_row - 1]
+        value = top[first_col - 1] if first_col <= len(top) else None
+        for row in cells[first_row - 1:last_row]:
+            if len(row) < last_col:
+                row.extend([None] * (last_col - len(row)))
+            for k in range(first_col - 1, last_col):
+                if row[k] is None:
+                    row[k] = value
 
 
 def _cell(cell):

@@ -20,9 +20,11 @@ import pandas as pd
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
 from sumpwise.intake.dates import read_dates
+from sumpwise.intake.header_lines import header_key, header_lines
 from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
+from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
@@ -59,6 +61,7 @@ class SampleBatch:
     rows_read: int
     source: str
     notes: tuple = ()  # what the reader detected or left unused, said once on standard error
+    layout_break: tuple | None = None  # (row, columns moved) of a header line in another layout still in force
     more: bool | None = None  # a chunk of a file: whether the file goes on after it (None: not known)
 
     @property
@@ -67,11 +70,12 @@ class SampleBatch:
 
 
 def read_samples(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
-                 numeric: tuple = ()) -> SampleBatch:
+                 numeric: tuple = (), layout_break: tuple | None = None) -> SampleBatch:
     """Read samples from a path or a stream; `fmt` is csv, jsonl or xlsx (guessed from the name).
 
     A file and the same bytes on a stream give the same rows, numbers and rejects.
-    `numeric` names extra numeric columns (measures a rule set declares).
+    `numeric` names extra numeric columns (measures a rule set declares); `layout_break` is for a
+    chunk of a file (validate_samples).
     """
     if isinstance(source, (str, Path)):
         name = name or str(source)
@@ -105,7 +109,8 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
                 columns = replace(columns, options={**columns.options, "decimal": decimal})
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
-    return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes)
+    return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes,
+                            layout_break=layout_break)
 
 
 def lab_numeric_columns(columns: ColumnMap, numeric: tuple = ()) -> set:
@@ -141,11 +146,12 @@ def unused_columns_note(unused: list, unread: set) -> str:
 
 
 def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: ColumnMap, numeric: tuple = (),
-                     rows: np.ndarray | None = None, notes=()) -> SampleBatch:
+                     rows: np.ndarray | None = None, notes=(), layout_break: tuple | None = None) -> SampleBatch:
     """Map, convert and check rows; pure apart from its arguments.
 
     `skipped` holds (row, reason[, code[, field]]) of rows the reader could not use; `rows` the row
-    number of each frame row (1, 2, ... when not given).
+    number of each frame row (1, 2, ... when not given); `layout_break` a header line in another
+    layout that an earlier part of the file left in force (see header_lines.py).
     """
     columns = columns or ColumnMap()
     skipped = [(*s, *("D001", "(row)")[len(s) - 2:]) for s in skipped]  # code and field where not given
@@ -166,6 +172,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                              f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
     mapped = set(renames)
+    header = {renames.get(c, c): c for c in raw.columns}  # each column's name in the file's header
     _check_header_units(name, columns)
     clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]
     raw = raw.drop(columns=clash).rename(columns=renames)
@@ -175,6 +182,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if measure in raw.columns:
             notes.append(f"column {measure} not used: the column map gives it the value {value!r} for every row")
         raw[measure] = str(value) if measure not in NUMERIC_COLUMNS and measure not in numeric else value
+        header.pop(measure, None)
     methods = sorted(set(columns.methods.values()))
     if len(methods) > 1 and "method" not in raw.columns:
         raise InputError(f"{name}: the column map declares FTIR methods {' and '.join(methods)} for different "
@@ -183,7 +191,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         raw["method"] = methods[0]
     known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
     unit_columns = _unit_columns(list(raw.columns), columns)
-    unused = [c for c in raw.columns if c not in known and c not in mapped and c not in unit_columns.values()]
+    qualifiers = _qualifier_columns(list(raw.columns), columns, [c for c in raw.columns if c in NUMERIC_COLUMNS
+                                                                 or c in numeric])
+    beside = set(unit_columns.values()) | set(qualifiers.values())
+    unused = [c for c in raw.columns if c not in known and c not in mapped and c not in beside]
     if unused:
         notes.append(unused_columns_note(unused, known - set(raw.columns)))
     missing = [c for c in REQUIRED_COLUMNS if c not in raw.columns]
@@ -209,10 +220,18 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     for column in raw.columns:
         if column not in numeric_names:
             raw[column] = _text_column(raw[column])
+    sample_id = raw["sample_id"].fillna("")
+    repeated = sample_id.duplicated(keep="first").to_numpy()  # a repeated `Average` is looked at whatever its row holds
+    summary = summary_rows(raw, set(numeric_names), sample_id.to_numpy(dtype=object)[repeated])
+    if len(summary.at):  # rejected as what they are, and kept out of every other check (a second `Average` is no D003)
+        rejects.extend(Reject(int(raw.index[k]), None, field_name, why, "D019")
+                       for k, field_name, why in zip(summary.at, summary.fields, summary.reasons()))
+        kept = np.ones(len(raw), dtype=bool)
+        kept[summary.at] = False
+        raw, bad, sample_id, repeated = raw[kept], bad[kept], sample_id[kept], repeated[kept]
     for column, table in columns.translations.items():
         if column in raw.columns:
             raw[column] = _translated(raw[column], table)
-    sample_id = raw["sample_id"].fillna("")
 
     def reject(mask, field_name: str, reasons, code: str) -> None:
         nonlocal bad
@@ -225,7 +244,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
 
     no_id = (sample_id == "").to_numpy()
     reject(no_id, "sample_id", "no sample id: every row needs one", "D002")
-    dup = sample_id.duplicated(keep="first").to_numpy() & ~no_id
+    dup = repeated & ~no_id
     if dup.any():
         first_row = pd.Series(raw.index, index=raw.index).groupby(sample_id.to_numpy()).transform("first")
         reject(dup, "sample_id", ("sample id '" + sample_id + "' already seen at row "
@@ -236,9 +255,16 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         reject(why != "", measure, why, "D018")
 
     decimal = columns.option("decimal", ".")
+    for measure, qualifier in qualifiers.items():
+        raw[measure] = _qualified(raw[measure], raw[qualifier], decimal)
+    header_names = {header_key(name) for name in header.values()}
+    written_cells, named = {}, np.zeros(len(raw), dtype=bool)  # the cells of number columns that are not numbers
     for column in numeric_names:
         factor = factor_to_canonical(UNIT_FAMILY[column], columns.units[column]) if column in columns.units else 1.0
         values, text, not_a_number = _number_column(raw[column], decimal)
+        if text is not None and not_a_number.any():
+            written_cells[column] = text.to_numpy(dtype=object)
+            named |= _header_names(written_cells[column], not_a_number, header_names)
         if text is not None and not_a_number.any():
             percent = _percent_cells(values, text, not_a_number, decimal, columns.units.get(column) == "%")
             if percent.any():
@@ -283,6 +309,12 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             reject(values <= 0, column, _found("must be above 0, found ", raw[column], values <= 0), "D005")
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
+        if column == "water" and column not in columns.units:
+            with np.errstate(invalid="ignore"):
+                tiny = (values > 0) & (values < 1) & ~bad  # a row its unit column rejects already is not asked
+            if tiny.any():
+                reject(tiny, column, _found("", raw[column], tiny, quoted=True) + _BELOW_KARL_FISCHER.format(
+                    lab=columns.columns.get(column, column)), "D018")
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -333,9 +365,40 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             reject(why != "", column, why, "D011")
             raw[column] = spelled
 
+    if named.any() or layout_break is not None:
+        candidates = np.flatnonzero(named)
+        cells = {column: (written_cells[column][candidates] if column in written_cells else
+                          np.full(len(candidates), None, dtype=object) if column in numeric_names else
+                          raw[column].to_numpy(dtype=object)[candidates]) for column in header}
+        lines = header_lines(raw.index.to_numpy(), candidates, cells, header, layout_break)
+        layout_break = lines.open_break
+        if len(lines.rejected):  # one reason a row: what else its cells hold does not matter
+            gone = set(raw.index[lines.rejected].tolist())
+            rejects = [r for r in rejects if r.row not in gone] + [
+                Reject(int(raw.index[k]), None, "(row)", why, "D020") for k, why in zip(lines.rejected, lines.reasons)]
+            bad[lines.rejected] = True
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
-    return SampleBatch(accepted, tuple(rejects), len(raw) + len({s[0] for s in skipped}), name, tuple(notes))
+    read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
+    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break)
+
+
+# Why a water reading between 0 and 1 in a column read in ppm is rejected: no Karl Fischer titration
+# reports so little (ASTM D6304 1.1: from 10 mg/kg), so it is a percentage under a header that does
+# not say so; read as ppm, 0.12 % (1200 ppm) would grade as 0.12 ppm, 10,000 times too dry.
+_BELOW_KARL_FISCHER = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg): a "
+                       "percentage? the column is read in ppm; declare water: {{column: {lab!r}, unit: '%'}} in the "
+                       "column map, or correct the export")
+
+
+def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:
+    """Cells that are a name of the file's header, among those that are not numbers (each distinct
+    text looked at once: a few)."""
+    at = np.flatnonzero(not_a_number)
+    codes, spellings = pd.factorize(text[at])
+    found = np.zeros(len(text), dtype=bool)
+    found[at] = np.array([header_key(cell) in names for cell in spellings] + [False], dtype=bool)[codes]
+    return found
 
 
 def _out_of_order(raw: pd.DataFrame, first: str, second: str, wrong) -> np.ndarray:
@@ -375,6 +438,53 @@ def _unit_columns(names: list, columns: ColumnMap) -> dict:
             if str(name).strip().casefold() in spelled:
                 found[measure] = name
     return found
+
+
+# A result's qualifier column, named after the result's column (`Water qualifier`, `TAN_qual`,
+# `Visc 40C <>`), as LIMS exports write the `<` of a result below the reporting limit apart from
+# its number; and the qualifiers that make the number a bound (common practice, no source).
+_QUALIFIER_WORDS = ("qualifier", "qual", "qual.", "operator", "modifier", "sign", "prefix", "flag", "<>", "< >")
+_BOUNDS = {"<": "<", "<=": "<=", "\u2264": "\u2264", ">": ">", ">=": ">=", "\u2265": "\u2265",
+           "nd": "<", "n.d.": "<", "bdl": "<", "<dl": "<", "<lod": "<", "<loq": "<", "<rl": "<"}
+
+
+def _qualifier_columns(names: list, columns: ColumnMap, numeric_names: list) -> dict:
+    """{measure: column} of the columns that give a result's qualifier (`<`, `>`) row by row."""
+    found = {}
+    for measure in numeric_names:
+        lab = str(columns.columns.get(measure, measure)).strip().casefold()
+        spelled = {form.format(lab=lab, word=word) for word in _QUALIFIER_WORDS
+                   for form in ("{lab} {word}", "{lab}_{word}", "{word} {lab}", "{lab} ({word})", "{lab} [{word}]")}
+        for name in names:
+            if str(name).strip().casefold() in spelled:
+                found[measure] = name
+    return found
+
+
+def _qualified(values: pd.Series, qualifier: pd.Series, decimal: str) -> pd.Series:
+    """The result column with each qualified number written as the bound it is (`<` and 0.05 as
+    `<0.05`, in the file's decimal mark), for the censored reading to read: taken as the plain
+    number, a `>1000` ppm water (the top of the method's range) was 1000, not above the 1000 ppm
+    urgent step. Other qualifiers (`=`, a lab's H or L flag) leave the number as it is."""
+    codes, uniques = pd.factorize(qualifier.to_numpy(dtype=object), use_na_sentinel=True)
+    marks = np.array([_BOUNDS.get(str(u).strip().casefold(), "") for u in uniques] + [""], dtype=object)[codes]
+    cells = values.to_numpy(dtype=object)
+    at = np.flatnonzero(marks != "")
+    out = None
+    for k in at:
+        cell = cells[k]
+        if isinstance(cell, float) and np.isfinite(cell):
+            text = repr(cell).replace(".", decimal)
+        elif isinstance(cell, (int, float)) and not isinstance(cell, bool) and np.isfinite(cell):
+            text = str(cell)
+        elif isinstance(cell, str) and cell.strip() and cell.strip()[0] not in "<>\u2264\u2265":
+            text = cell.strip()
+        else:
+            continue  # no number to bound, or written as a bound already
+        if out is None:
+            out = cells.copy()
+        out[k] = marks[k] + text
+    return values if out is None else pd.Series(out, index=values.index, dtype=object)
 
 
 def _row_units(measure: str, units: pd.Series, columns: ColumnMap) -> np.ndarray:

@@ -98,6 +98,8 @@ PROBLEM_CODES = {
     "D016": "a list or object where one value was expected",
     "D017": "a key given twice with different values in one JSON object",
     "D018": "a value written in a unit other than the one its column is read in",
+    "D019": "a summary line of an export (a statistic, limit or reference value such as Average, Max, Limit), not a sample",
+    "D020": "a header line inside the data (exports joined end to end), or a row under one in another layout",
     "D021": "a viscosity at 100 °C not below the same oil's viscosity at 40 °C (columns swapped or misread)",
     "D022": "particle counts that rise with particle size (cumulative counts cannot: per size range, or swapped)",
     "F001": "a spectrum that cannot be used",

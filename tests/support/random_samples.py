@@ -23,7 +23,7 @@ def random_samples(ruleset, n: int, seed: int, censored: float = 0.05) -> pd.Dat
     # each unit keeps one lubricant (a change of code is an oil change, which would break every trend)
     frame["unit_id"] = frame["unit_id"] + "-" + frame["lubricant"]
     spreads = {"kv40": (20, 400), "kv100": (1.5, 40), "an": (0, 3), "bn": (0, 15), "oxidation": (0, 300),
-               "nitration": (0, 40), "water": (0, 3000), "oil_hours": (0, 40000), "rpvot": (10, 1500),
+               "nitration": (0, 40), "water": (1, 3000), "oil_hours": (0, 40000), "rpvot": (10, 1500),
                "soot": (0, 5), "sulfation": (0, 40)}
     numbers = {}
     for name, (lo, hi) in spreads.items():

@@ -1,0 +1,146 @@
+"""Summary rows of a lab export: statistics, limits and reference values written among the samples.
+
+Lab exports end with, or interleave, rows such as `Average`, `Std. Dev.`, `Count`, `Limit` or
+`Typical new oil`. Such a row holds numbers in the measure columns, so graded as a sample it
+would take a grade (a `Limit` row of water 500 ppm grades watch or alert), or come out unrated
+as a sample without a class; either way a line that is not a sample would be counted and
+trended as one. Such rows are rejected (D019), each naming the column and the label found.
+
+A row is a summary row when its sample id is a summary label, or when another text cell of it
+is (a label column beside an empty or counted id) and it has neither a date nor a unit of its
+own (an empty cell, or the label itself). Labels are matched on the whole cell, case, spaces and
+punctuation aside (`Std. Dev.` is `std dev`, `Max:` is `max`), and a trailing note in brackets
+is ignored (`Mean (n=12)`): a sample id that only contains such a word (`MAX-PUMP-03`,
+`Average-line-2`) is a sample. Only rows lacking a date or a unit, or whose id is repeated, are
+looked at (a per-unit `Average` line that repeats the unit and a date is found by its repeated
+id), so the usual export, every row dated and naming its unit, costs two passes for missing
+cells beside the check for repeated ids it has anyway.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+# What a label says the row is, and the labels (as labs write them; matched as label_key gives
+# them). Common practice, no source: the statistic and limit lines spreadsheet and LIMS exports
+# write, in English and a few other languages labs export in.
+_LABELS = {
+    "a statistic over other rows": (
+        "average", "avg", "mean", "mean value", "average value", "arithmetic mean", "median", "mode",
+        "min", "minimum", "max", "maximum", "min/max", "range", "std dev", "std. dev.", "stdev", "std",
+        "standard deviation", "sd", "s.d.", "sigma", "variance", "var", "cv", "rsd", "% rsd",
+        "coefficient of variation", "count", "n", "no. of samples", "number of samples",
+        "total", "sum", "subtotal", "grand total",
+        "mittelwert", "durchschnitt", "summe", "anzahl", "gesamt", "standardabweichung", "stabw", "std. abw.",
+        "moyenne", "somme", "nombre", "écart type", "écart-type", "promedio", "media", "suma",
+        "desviación estándar"),
+    "a limit": (
+        "limit", "limits", "limit value", "alarm limit", "warning limit", "caution limit",
+        "critical limit", "action limit", "condemning limit", "upper limit",
+        "lower limit", "ucl", "lcl", "usl", "lsl", "spec", "specification", "spec limit", "target",
+        "grenzwert", "warngrenze", "limite", "límite"),
+    "a reference value": (
+        "typical", "typical new oil", "typical values", "typical value", "new oil", "new oil typical",
+        "fresh oil", "reference", "reference oil", "reference value", "baseline", "new oil baseline",
+        "frischöl", "neuöl", "huile neuve", "aceite nuevo"),
+}
+# Severity words alone (`Warning`, `Critical`) are left out: a lab's status column writes them
+# on samples. `n` is a label only as a sample id: `N` is also a yes/no flag.
+_ID_ONLY = ("n",)
+_BRACKETED_TAIL = re.compile(r"\s*[(\[][^()\[\]]*[)\]]\s*$")
+_NOT_A_LETTER_OR_DIGIT = re.compile(r"[\W_]+")
+
+
+def label_key(cell) -> str:
+    """A cell as a label is compared: casefolded, a trailing bracketed note dropped, only letters
+    and digits kept (`Std. Dev.` -> `stddev`, `Mean (n=12)` -> `mean`)."""
+    text = _BRACKETED_TAIL.sub("", str(cell).strip())
+    return _NOT_A_LETTER_OR_DIGIT.sub("", text.casefold())
+
+
+SUMMARY_LABELS = {label_key(label): what for what, labels in _LABELS.items() for label in labels}
+_ELSEWHERE = {key: what for key, what in SUMMARY_LABELS.items() if key not in _ID_ONLY}
+# Columns that hold a closed vocabulary or a flag, where no label is looked for.
+_NOT_LABELS = ("sample_id", "oil_changed", "method", "base_stock", "iso4406", "spectrum")
+
+
+@dataclass(frozen=True)
+class SummaryRows:
+    """Positions of the summary rows in the frame, with the field and cell that give each away."""
+
+    at: np.ndarray
+    fields: list
+    cells: list
+    kinds: list
+
+    def reasons(self) -> list:
+        return [f"{cell!r} is a summary label ({kind})"
+                + ("" if field == "sample_id" else " and the row has no date or unit of its own")
+                + ": a summary line of the export, not a sample; not graded"
+                for field, cell, kind in zip(self.fields, self.cells, self.kinds)]
+
+
+def summary_rows(raw: pd.DataFrame, numeric: set, repeated: np.ndarray) -> SummaryRows:
+    """The rows of `raw` (text cleaned: str or None) that are summary lines (see the module);
+    `repeated` holds the sample ids given more than once (their rows are looked at too)."""
+    n = len(raw)
+    date = _present(raw, "sampled_on", n)
+    unit = _present(raw, "unit_id", n)
+    looked = ~(date & unit)
+    if len(repeated):
+        labelled = pd.unique(repeated)
+        labelled = labelled[_labels(labelled, SUMMARY_LABELS) != None]  # noqa: E711
+        if len(labelled):
+            looked |= raw["sample_id"].isin(labelled).to_numpy()
+    looked = np.flatnonzero(looked)
+    if not len(looked):
+        return SummaryRows(np.empty(0, dtype=np.int64), [], [], [])
+    found = {}  # position -> (field, cell, kind)
+    ids = _labels(raw["sample_id"].to_numpy(dtype=object)[looked], SUMMARY_LABELS)
+    for k in np.flatnonzero(ids != None):  # noqa: E711 (numpy element-wise)
+        found[int(looked[k])] = ("sample_id", raw["sample_id"].iat[looked[k]], ids[k])
+    plain = ~np.isin(looked, list(found))  # the others: a label elsewhere, with no date or unit of their own
+    labels = {column: _labels(raw[column].to_numpy(dtype=object)[looked], _ELSEWHERE)
+              for column in ("sampled_on", "unit_id") if column in raw.columns}
+    for column in ("sampled_on", "unit_id"):
+        present = (date if column == "sampled_on" else unit)[looked]
+        plain &= ~present | (labels[column] != None if column in labels else False)  # noqa: E711
+    for column in raw.columns:
+        if column in _NOT_LABELS or column in numeric or not plain.any():
+            continue
+        kinds = labels.get(column)
+        if kinds is None:
+            kinds = _labels(raw[column].to_numpy(dtype=object)[looked], _ELSEWHERE)
+        for k in np.flatnonzero(plain & (kinds != None)):  # noqa: E711
+            found[int(looked[k])] = (column, raw[column].iat[looked[k]], kinds[k])
+            plain[k] = False
+    at = np.array(sorted(found), dtype=np.int64)
+    return SummaryRows(at, [found[k][0] for k in at], [found[k][1] for k in at], [found[k][2] for k in at])
+
+
+def _present(raw: pd.DataFrame, column: str, n: int) -> np.ndarray:
+    """Rows with a value in the column (none when the file has no such column)."""
+    if column not in raw.columns:
+        return np.zeros(n, dtype=bool)
+    return pd.notna(raw[column].to_numpy(dtype=object))
+
+
+def _labels(cells: np.ndarray, known: dict) -> np.ndarray:
+    """What each cell says its row is (a kind of `known`), None where it is no label. Each
+    distinct text is keyed once; when there are many (ids), only those that do not end in a
+    digit (no label does), found in one numpy pass over their characters."""
+    codes, uniques = pd.factorize(cells, use_na_sentinel=True)
+    kinds = np.full(len(uniques) + 1, None, dtype=object)  # the last for a missing cell
+    at = np.arange(len(uniques))
+    if len(uniques) > 1000:
+        text = np.asarray(uniques, dtype=object).astype(str)
+        ends = np.maximum(np.strings.str_len(text) - 1, 0)
+        last = text.view(np.uint32).reshape(len(text), -1)[at, ends] if text.dtype.itemsize else np.zeros(len(at))
+        at = at[(last < ord("0")) | (last > ord("9"))]
+    for k in at:
+        kinds[k] = known.get(label_key(uniques[k]))
+    return kinds[codes]
