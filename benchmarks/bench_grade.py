@@ -51,7 +51,8 @@ UNITS = 5000
 
 def synthetic(ruleset, n: int, seed: int = 7, start: int = 0) -> pd.DataFrame:
     """Plausible-looking invented samples, rows start..start+n of the file: 5,000 units sampled in
-    turn once a week, each keeping its class and its oil, the oil hours rising 150 h a week.
+    turn once a day, each keeping its class and its oil, the oil hours rising 20 h a day (a
+    10,000,000-row file ends in 2025: a later date than a year ahead is refused as a slip).
 
     A unit's samples come in date order with hours the calendar holds and no change of oil, as
     a site's are: trends run from sample to sample (a lubricant code that changed, or hours
@@ -61,7 +62,7 @@ def synthetic(ruleset, n: int, seed: int = 7, start: int = 0) -> pd.DataFrame:
     classes = np.array(sorted(ruleset.classes))
     codes = np.array(sorted(ruleset.lubricants))
     numbers = np.arange(start, start + n)
-    unit, week = numbers % UNITS, numbers // UNITS
+    unit, day = numbers % UNITS, numbers // UNITS
     units = np.random.default_rng(7)  # the same units in every block of the file
     cls, lubricant = units.choice(classes, UNITS)[unit], units.choice(codes, UNITS)[unit]
     new_kv40 = np.array([ruleset.lubricants[c].kv40 or 46.0 for c in codes])[np.searchsorted(codes, lubricant)]
@@ -71,8 +72,8 @@ def synthetic(ruleset, n: int, seed: int = 7, start: int = 0) -> pd.DataFrame:
         "unit_id": np.char.add("U", unit.astype(str)),
         "class": cls,
         "lubricant": lubricant,
-        "sampled_on": (pd.Timestamp("2020-01-01") + pd.to_timedelta(week * 7, unit="D")).strftime("%Y-%m-%d"),
-        "oil_hours": (100 + 150 * week + rng.integers(0, 20, n)).astype(float),
+        "sampled_on": (pd.Timestamp("2020-01-01") + pd.to_timedelta(day, unit="D")).strftime("%Y-%m-%d"),
+        "oil_hours": (100 + 20 * day + rng.integers(0, 4, n)).astype(float),
         "kv40": (new_kv40 * rng.normal(1.0, 0.05, n)).round(2),
         "kv100": rng.uniform(5, 15, n).round(2),
         "an": (new_an + np.abs(rng.normal(0, 0.15, n))).round(2),

@@ -8,6 +8,7 @@ readings (`<0.05`, `>5000`, `ND`) are kept as intervals beside the number (censo
 
 from __future__ import annotations
 
+import datetime as dt
 import difflib
 import itertools
 
@@ -146,8 +147,10 @@ def unused_columns_note(unused: list, unread: set) -> str:
 
 
 def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: ColumnMap, numeric: tuple = (),
-                     rows: np.ndarray | None = None, notes=(), layout_break: tuple | None = None) -> SampleBatch:
-    """Map, convert and check rows; pure apart from its arguments.
+                     rows: np.ndarray | None = None, notes=(), layout_break: tuple | None = None,
+                     today: dt.date | None = None) -> SampleBatch:
+    """Map, convert and check rows; pure apart from its arguments and the day it runs (`today`,
+    read from the clock when not given: a sampling date far after it is a slip in the year).
 
     `skipped` holds (row, reason[, code[, field]]) of rows the reader could not use; `rows` the row
     number of each frame row (1, 2, ... when not given); `layout_break` a header line in another
@@ -354,7 +357,14 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                              f"the lab writes the other order, or both, so a date such as 03/04 cannot be read "
                              f"safely; declare the order the file uses")
         reject(dates.bad, "sampled_on", dates.reasons, "D015")
-        raw["sampled_on"] = pd.Series(dates.text, index=raw.index, dtype=object)
+        written = pd.Series(dates.text, index=raw.index, dtype=object)
+        latest = ((today or dt.date.today()) + dt.timedelta(days=LATEST_DAYS_AHEAD)).isoformat()
+        iso = written.fillna("").to_numpy(dtype=str)
+        slip = (iso != "") & ((iso < EARLIEST_DATE) | (np.strings.slice(iso, 0, 10) > latest)) & ~dates.bad
+        reject(slip, "sampled_on", _found("", raw["sampled_on"].astype(object), slip, quoted=True) + (
+            f" is before {EARLIEST_DATE[:4]} or more than a year after the day it was read (later than {latest}): "
+            f"a slip in the year (0026 or 2062 for 2026) would put the sample out of its unit's order"), "D023")
+        raw["sampled_on"] = written
     for flag in FLAG_FIELDS:
         if flag in raw.columns:
             raw[flag] = _flag_text(raw[flag], columns.flags.get(flag, {}))
@@ -415,6 +425,12 @@ def _order_reasons(raw: pd.DataFrame, first: str, second: str, rows: np.ndarray,
     reasons[rows] += _found(f" {relation} {first} ", raw[first], rows)[rows] + f" {why}"
     return reasons
 
+
+# Sampling dates outside these are a slip in the year (0026, 2062 for 2026): a date after the day
+# the file is read, by more than a year of lab turnaround and clock skew, or before 1900 (our choice,
+# no source; a file of next year's plan is no samples file).
+EARLIEST_DATE = "1900-01-01"
+LATEST_DAYS_AHEAD = 366
 
 # Viscosities of one oil at 40 and 100 °C, in the same unit (mm²/s) once converted.
 VISCOSITY_PAIRS = (("kv40", "kv100"), ("new_kv40", "new_kv100"))
