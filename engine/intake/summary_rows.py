@@ -48,6 +48,13 @@ _LABELS = {
         "fresh oil", "reference", "reference oil", "reference value", "baseline", "new oil baseline",
         "frischöl", "neuöl", "huile neuve", "aceite nuevo"),
 }
+# Page footers and report lines a printed export repeats (`Page 1 of 3`, `Printed on 2026-03-02
+# by ...`, `End of report`): patterns, not labels, since they carry numbers. Looked for only on
+# rows with no class, as a footer has none (common practice, no source).
+_FOOTER = re.compile(r"(page\s*\d+(\s*(of|/)\s*\d+)?|\d+\s*of\s*\d+\s*pages?|end of (the )?report"
+                     r"|(printed|exported|generated|created)(\s+(on|at|by)\b.*)?|report (printed|generated|created)\b.*"
+                     r"|confidential\b.*)", re.IGNORECASE)
+FOOTER = "a page footer or report line"
 # Severity words alone (`Warning`, `Critical`) are left out: a lab's status column writes them
 # on samples. `n` is a label only as a sample id: `N` is also a yes/no flag.
 _ID_ONLY = ("n",)
@@ -118,8 +125,22 @@ def summary_rows(raw: pd.DataFrame, numeric: set, repeated: np.ndarray) -> Summa
         for k in np.flatnonzero(plain & (kinds != None)):  # noqa: E711
             found[int(looked[k])] = (column, raw[column].iat[looked[k]], kinds[k])
             plain[k] = False
+    _footers(raw, numeric, looked[~_present(raw, "class", n)[looked]], found)
     at = np.array(sorted(found), dtype=np.int64)
     return SummaryRows(at, [found[k][0] for k in at], [found[k][1] for k in at], [found[k][2] for k in at])
+
+
+def _footers(raw: pd.DataFrame, numeric: set, rows: np.ndarray, found: dict) -> None:
+    """Add to `found` the rows (positions, no class) whose text cell is a page footer or report line."""
+    rows = rows[~np.isin(rows, list(found))]
+    for column in raw.columns:
+        if not len(rows) or column in numeric or column in _NOT_LABELS[1:]:
+            continue
+        cells = raw[column].iloc[rows]
+        hit = cells.notna().to_numpy() & cells.astype(str).str.strip().str.fullmatch(_FOOTER).fillna(False).to_numpy()
+        for k in np.flatnonzero(hit):
+            found[int(rows[k])] = (column, cells.iat[k], FOOTER)
+        rows = rows[~hit]
 
 
 def _present(raw: pd.DataFrame, column: str, n: int) -> np.ndarray:
