@@ -203,9 +203,16 @@ def read_csv(text: str, numeric: set, delimiter: str | None, decimal: str | None
             skipped.append((int(line) - 1, f"cannot be read: {why.strip()}", "D001"))
             rows = rows[rows != int(line) - 1]
     if len(rows) != len(frame):
+        if _LONE_CR.search(text) and ("\n" in text):
+            raise InputError(f"cannot number its rows ({len(frame)} parsed, {len(rows)} counted): its lines end in "
+                             f"two ways, some with a carriage return alone (CR, as old Mac files do) and some with "
+                             f"a line feed; save it with one kind of line ending")
         raise InputError(f"cannot number its rows ({len(frame)} parsed, {len(rows)} counted); "
                          f"a quoted field spanning lines may be unbalanced")
     return RawTable(frame, rows, skipped, notes, names)
+
+
+_LONE_CR = re.compile(r"\r(?!\n)")
 
 
 def read_jsonl(data: bytes, numeric: set = frozenset(), encoding: str | None = None) -> RawTable:
