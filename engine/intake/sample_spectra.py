@@ -140,12 +140,35 @@ def measure_sample_spectra(batch: SampleBatch, ruleset: RuleSet, references: dic
     frame = _base_stocks(frame, ruleset, evidence)
     for column in ("ftir_band_note", "reference_mismatch_note"):
         frame[column] = None
+    notes = list(batch.notes)
     if "spectrum" in frame.columns and frame["spectrum"].notna().any():
+        declared = frame["method"].copy() if "method" in frame.columns else None
         frame, bad = _measure(frame, refs, Path(batch.source).parent if batch.source != "<stdin>" else Path("."),
                               path_length_mm)
         rejects.extend(bad)
+        notes += _method_notes(declared, frame)
     rejects.sort(key=lambda r: (r.row, r.field))
-    return replace(batch, frame=frame, rejects=tuple(rejects))
+    return replace(batch, frame=frame, rejects=tuple(rejects), notes=tuple(notes))
+
+
+def _method_notes(declared: pd.Series | None, frame: pd.DataFrame) -> list[str]:
+    """Rows whose `method` said one FTIR convention while their spectrum was read by the other:
+    the spectrum decides (with a reference for the lubricant it is subtracted, without one it is
+    read directly), and the run says so rather than drop the lab's word without one."""
+    if declared is None:
+        return []
+    said = declared.where(declared.notna(), "").astype(str).to_numpy()
+    read = frame["method"].where(frame["method"].notna(), "").astype(str).to_numpy()
+    differs = (said != "") & (read != "") & (said != read) & frame["spectrum"].notna().to_numpy()
+    found = []
+    for (was, now), group in pd.DataFrame({"was": said[differs], "now": read[differs],
+                                           "row": frame.index[differs]}).groupby(["was", "now"], sort=True):
+        why = ("no new-oil reference spectrum is given for their lubricant" if now == "direct"
+               else "a new-oil reference spectrum is given for their lubricant")
+        rows = ", ".join(str(row) for row in group["row"].head(5)) + (" ..." if len(group) > 5 else "")
+        found.append(f"{len(group)} row(s) (row {rows}) say method {was}, but their spectrum was read by {now} "
+                     f"trend: {why}; the record says {now}")
+    return found
 
 
 def _ester_evidence(refs: dict[str, Path], path_length_mm: float) -> dict:
