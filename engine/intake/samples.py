@@ -358,9 +358,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                              f"safely; declare the order the file uses")
         reject(dates.bad, "sampled_on", dates.reasons, "D015")
         written = pd.Series(dates.text, index=raw.index, dtype=object)
-        latest = ((today or dt.date.today()) + dt.timedelta(days=LATEST_DAYS_AHEAD)).isoformat()
-        iso = written.fillna("").to_numpy(dtype=str)
-        slip = (iso != "") & ((iso < EARLIEST_DATE) | (np.strings.slice(iso, 0, 10) > latest)) & ~dates.bad
+        last = (today or dt.date.today()) + dt.timedelta(days=LATEST_DAYS_AHEAD)
+        latest, beyond = last.isoformat(), (last + dt.timedelta(days=1)).isoformat()
+        iso = written.fillna("").to_numpy(dtype=str)  # ISO text: its order is date order, a time after the date
+        slip = (iso != "") & ((iso < EARLIEST_DATE) | (iso >= beyond)) & ~dates.bad
         reject(slip, "sampled_on", _found("", raw["sampled_on"].astype(object), slip, quoted=True) + (
             f" is before {EARLIEST_DATE[:4]} or more than a year after the day it was read (later than {latest}): "
             f"a slip in the year (0026 or 2062 for 2026) would put the sample out of its unit's order"), "D023")
