@@ -11,9 +11,8 @@ record (64-bit hashes of the ids, as the chunked reader keeps within a file).
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 
-from sumpwise.intake.chunked import merged
+from sumpwise.intake.chunked import id_hashes, merged
 
 SHOWN = 3  # ids named in a warning; the count says how many in all
 
@@ -32,7 +31,7 @@ class RepeatedIds:
         """One graded chunk's sample ids (its records, in order)."""
         if not len(ids):
             return
-        hashes = pd.util.hash_array(ids.astype(object), categorize=False)
+        hashes = id_hashes(ids.astype(object))
         if len(self.hashes):
             at = np.minimum(np.searchsorted(self.hashes, hashes), len(self.hashes) - 1)
             repeated = np.flatnonzero(self.hashes[at] == hashes)
