@@ -30,7 +30,8 @@ from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.intake.samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
-CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant")
+CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant",
+                 "class")
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing date: after every real one
 HOURS_A_DAY = 24.0  # the most oil hours a calendar day can add
@@ -48,6 +49,10 @@ TREND_CAVEATS = (
                  "(common practice, no source)"),
     EngineCaveat("oil-changed", "oil_change_note",
                  "sumpwise engine: oil hours restart at an oil change and no rate is taken across it "
+                 "(common practice, no source)"),
+    EngineCaveat("class-changed", "class_change_note",
+                 "sumpwise engine: a unit id whose equipment class changes is another machine under a reused id, or "
+                 "a class written wrong; its trend restarts there, with no step or rate across the change "
                  "(common practice, no source)"),
     EngineCaveat("oil-charge-unknown", "oil_charge_note",
                  "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
@@ -130,7 +135,7 @@ def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | N
     """CHAIN_COLUMNS and the bases as plain arrays, `history`'s rows before the batch's."""
     own = {name: measured[name].to_numpy(dtype=object) if name in measured.columns
            else np.full(len(measured), None, dtype=object)
-           for name in ("sample_id", "unit_id", "sampled_on", "method", "lab", "lubricant")}
+           for name in ("sample_id", "unit_id", "sampled_on", "method", "lab", "lubricant", "class")}
     own["oil_hours"] = measured["oil_hours"].to_numpy(dtype=float)
     own["oil_changed"] = (np.zeros(len(measured), dtype=bool) if oil_changed is None
                           else np.asarray(oil_changed, dtype=bool))
@@ -216,9 +221,11 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
     flagged = chain["oil_changed"][order]
-    charges = _oil_charges(unit, same_unit, h, flagged, pd.factorize(chain["lubricant"])[0][order], dates[order])
+    charges = _oil_charges(unit, same_unit, h, flagged, pd.factorize(chain["lubricant"])[0][order], dates[order],
+                           _class_codes(chain["class"])[order])
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
-    linked = same_unit & dated & _shifted(dated, False) & ~new_oil & ~unplaced & ~_shifted(unplaced, False)
+    restarts = new_oil | charges["class_changed"]
+    linked = same_unit & dated & _shifted(dated, False) & ~restarts & ~unplaced & ~_shifted(unplaced, False)
 
     method_codes, _ = pd.factorize(chain["method"])
     lab_codes, _ = pd.factorize(chain["lab"])
@@ -271,7 +278,8 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "trend_break_note": _break_notes(chain, before, method_changed[mine], lab_changed[mine],
                                          np.arange(earlier, total)),
         "oil_change_note": _oil_notes(chain, order, mine, flagged, charges, h),
-        "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, new_oil),
+        "class_change_note": _class_notes(chain, order, mine, charges),
+        "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, restarts),
     }, index=measured.index, dtype=object)
     out = pd.concat([measured, numbers, runs, notes], axis=1)
     outrun = charges["outrun"][mine]
@@ -316,9 +324,24 @@ def _break_notes(chain: dict, before: np.ndarray, method_changed: np.ndarray, la
     return notes
 
 
+def _class_codes(classes: np.ndarray) -> np.ndarray:
+    """A code per equipment class as compared for a change (stripped, case-folded), -1 where none."""
+    codes, uniques = pd.factorize(classes)
+    folded = np.array([str(u).strip().casefold() for u in uniques], dtype=object)
+    same, _ = pd.factorize(folded)
+    same[folded == ""] = -1  # an empty class tells nothing
+    return np.where(codes >= 0, same[np.maximum(codes, 0)] if len(same) else -1, -1)
+
+
 def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged: np.ndarray,
-                 lubricant: np.ndarray, day_keys: np.ndarray) -> dict:
+                 lubricant: np.ndarray, day_keys: np.ndarray, classes: np.ndarray | None = None) -> dict:
     """Where each unit's oil charges start, in trend order (all arrays sorted).
+
+    A unit's samples are one chain only while its equipment class stays the same: a sample whose
+    class differs from the unit's last one given (`class_changed`) is of another machine under a
+    reused id, or its class is written wrong (common practice, no source). It restarts the chain
+    as an oil change does (nothing is compared across it, oil hours and lubricant included), and
+    is no oil change itself.
 
     A charge starts at the `oil_changed` flag, at a lubricant code other than the unit's last
     one given, or at oil hours below the unit's last oil hours given since the charge began
@@ -346,11 +369,16 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
         at = np.minimum(ahead, max(n - 1, 0))
         return np.where((ahead < n) & (unit >= 0) & (unit[at] == unit), ahead, -1)
 
+    classes = np.full(n, -1, dtype=np.int64) if classes is None else classes
+    classed = classes >= 0
+    class_from = last_before(classed)
+    class_changed = classed & (class_from >= 0) & (classes != classes[np.maximum(class_from, 0)])
     named = lubricant >= 0
     lubricant_from = last_before(named)
+    lubricant_from = np.where(lubricant_from >= _start_at(class_changed | first, positions), lubricant_from, -1)
     lubricant_changed = named & (lubricant_from >= 0) & (lubricant != lubricant[np.maximum(lubricant_from, 0)])
-    restart = flagged | lubricant_changed | first
-    charge_start = np.maximum.accumulate(np.where(restart, positions, 0)) if n else positions
+    restart = flagged | lubricant_changed | class_changed | first
+    charge_start = _start_at(restart, positions)
     timed = np.isfinite(h)
     hours_from = last_before(timed)
     hours_from = np.where(hours_from >= charge_start, hours_from, -1)  # looked back within the charge only
@@ -364,10 +392,10 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     unplaced = ~timed & (fall >= 0) & hours_fell[fall_at] & (charge_start[fall_at] <= positions)
     change = next_from(named)
     change_at = np.maximum(change, 0)
-    last_change = np.maximum.accumulate(np.where(new_oil | first, positions, -1)) if n else positions
+    last_change = np.maximum.accumulate(np.where(new_oil | class_changed | first, positions, -1)) if n else positions
     unplaced |= (~timed & ~named & (change >= 0) & lubricant_changed[change_at]
                  & (last_change[np.maximum(change_at - 1, 0)] <= positions))
-    unplaced &= ~new_oil
+    unplaced &= ~(new_oil | class_changed)
     # what placed nothing: the change it lies before, and that change's other side
     change_of = np.where(~timed & (fall >= 0) & hours_fell[fall_at], fall, change)
     from_at = np.maximum(hours_from, 0)
@@ -378,7 +406,12 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     return {"new_oil": new_oil, "hours_fell": hours_fell, "hours_from": hours_from,
             "lubricant_changed": lubricant_changed, "lubricant_from": lubricant_from,
             "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of,
-            "same_unit": same_unit}
+            "same_unit": same_unit, "class_changed": class_changed, "class_from": class_from}
+
+
+def _start_at(starts: np.ndarray, positions: np.ndarray) -> np.ndarray:
+    """The position of the last row at or before each row where `starts` (0 where none)."""
+    return np.maximum.accumulate(np.where(starts, positions, 0)) if len(starts) else positions
 
 
 def _oil_notes(chain: dict, order: np.ndarray, mine: np.ndarray, flagged: np.ndarray, charges: dict,
@@ -420,12 +453,28 @@ def _why(chain: dict, order: np.ndarray, at: np.ndarray, flagged: np.ndarray, ch
     return why
 
 
-def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray,
-                  unplaced: np.ndarray, new_oil: np.ndarray) -> np.ndarray:
-    """The oil-charge-unknown note: on a sample that cannot be placed on one charge, and on the
-    sample after such a one (no step to it either) that starts no charge itself."""
+def _class_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict) -> np.ndarray:
+    """The class-changed note of each incoming row (sorted arrays, `mine` their sorted positions)."""
     notes = np.full(len(mine), None, dtype=object)
-    after = _shifted(unplaced, False) & ~unplaced & ~new_oil & charges["same_unit"]
+    hit = np.flatnonzero(charges["class_changed"][mine])
+    if not len(hit):
+        return notes
+    at = mine[hit]
+    start = charges["class_from"][at]
+    which = np.where(start == at - 1, "", " with a class").astype(object)
+    classes = chain["class"]
+    notes[hit] = ("class changed from " + _text(classes[order[start]]) + " to " + _text(classes[order[at]])
+                  + _since(chain, order[start], which) + ": another machine under the same id, or a class written "
+                  "wrong; trend measures restart here, with no step")
+    return notes
+
+
+def _charge_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray,
+                  unplaced: np.ndarray, restarts: np.ndarray) -> np.ndarray:
+    """The oil-charge-unknown note: on a sample that cannot be placed on one charge, and on the
+    sample after such a one (no step to it either) that starts no chain itself."""
+    notes = np.full(len(mine), None, dtype=object)
+    after = _shifted(unplaced, False) & ~unplaced & ~restarts & charges["same_unit"]
     outrun = charges["outrun"]
     hit = np.flatnonzero(outrun[mine])
     if len(hit):

@@ -1,6 +1,6 @@
 """Random samples of every class and lubricant of a rule set (and some that no rule set knows),
 with 15 % of each reading missing and 5 % censored: input for the oracle and writer agreement tests.
-Each unit keeps one lubricant."""
+Each unit keeps one lubricant and one class."""
 
 from __future__ import annotations
 
@@ -20,8 +20,9 @@ def random_samples(ruleset, n: int, seed: int, censored: float = 0.05) -> pd.Dat
         "lubricant": rng.choice(lubricants, n),
         "method": rng.choice(["direct", "subtraction", ""], n),
     })
-    # each unit keeps one lubricant (a change of code is an oil change, which would break every trend)
-    frame["unit_id"] = frame["unit_id"] + "-" + frame["lubricant"]
+    # each unit keeps one lubricant and one class (a change of code is an oil change, and a change of
+    # class another machine: either would break every trend)
+    frame["unit_id"] = frame["unit_id"] + "-" + frame["lubricant"] + "-" + frame["class"]
     spreads = {"kv40": (20, 400), "kv100": (1.5, 40), "an": (0, 3), "bn": (0, 15), "oxidation": (0, 300),
                "nitration": (0, 40), "water": (1, 3000), "oil_hours": (0, 40000), "rpvot": (10, 1500),
                "soot": (0, 5), "sulfation": (0, 40)}
