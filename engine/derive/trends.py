@@ -26,7 +26,7 @@ from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, ROW_DERIVED, TREND
                                          declared_trend_measures)
 from sumpwise.ruleset.model import RuleSet, condition_measures
 from sumpwise.vocabulary.caveats import EngineCaveat
-from sumpwise.intake.censored import WRITTEN_SUFFIX
+from sumpwise.intake.censored import WRITTEN_SUFFIX, number_text
 from sumpwise.intake.samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
@@ -41,6 +41,9 @@ PER_OIL_HOUR = tuple(m.name for m in ROW_DERIVED if "oil_hours" in m.needs)
 # taken (our margin, no source): only hours the calendar cannot hold by far (a digit too many,
 # a wrong year or month) are refused.
 HOURS_MARGIN = 2.0
+# The column beside a rate that says why it carries an interval (_noise_bounds); unlike a censored
+# reading's `:written`, the rate's number stays what records show.
+NOISE_SUFFIX = ":noise"
 
 
 TREND_CAVEATS = (
@@ -249,6 +252,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     np.take(span, mine, out=out[0])
     scratch = np.empty((4, total))
     previous, step, rate, rising = scratch
+    noisy: dict = {}  # the interval columns of rates whose step is within the noise margin
     for k, base in enumerate(bases):
         values = chain[base][order]
         if total:
@@ -263,11 +267,18 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         margin = absolute + factor * np.abs((values + previous) / 2.0 + offset) if factor else absolute
         with np.errstate(invalid="ignore"):
             risen = step > margin
+            noise = (np.abs(step) <= margin) & (margin > 0) & np.isfinite(rate)
+        noise = noise[mine]
+        if noise.any():
+            noisy.update(_noise_bounds(base, noise, rate[mine], step[mine], np.broadcast_to(margin, total)[mine],
+                                       span[mine]))
         np.maximum.accumulate(np.where(risen, 0, positions), out=rising)  # the last reset, as float
         np.subtract(positions, rising, out=rising)
         rising[np.isnan(step)] = np.nan
         np.take(scratch, mine, axis=1, out=out[1 + 4 * k: 5 + 4 * k])
     numbers = pd.DataFrame(out.T, index=measured.index, columns=names, copy=False)
+    if noisy:
+        numbers = pd.concat([numbers, pd.DataFrame(noisy, index=measured.index)], axis=1)
 
     before = _shifted(order, 0)[mine]  # chain row of each incoming row's predecessor
     # Each row's unbroken run (one unit, one oil charge, one method and lab: a forecast fits over
@@ -290,6 +301,31 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
                 if column in out.columns:
                     out[column] = out[column].where(~outrun, empty)
     return out
+
+
+def _noise_bounds(base: str, rows: np.ndarray, rate: np.ndarray, step: np.ndarray, margin: np.ndarray,
+                  span: np.ndarray) -> dict:
+    """The rates of `rows`, whose step is no larger than the noise margin, with the interval of
+    rates the two readings allow beside them: (step - margin, step + margin) / hours x 1000.
+
+    Over a short span test scatter reads as a steep rate (+2 ppm in 20 h is 100 per 1000 h). The
+    evaluator decides a limit test on such a rate by its number where the number does not cross
+    the limit (a normal sample stays normal), and by the whole interval where it does: a limit the
+    interval straddles is undecided (not evaluated, and the grade may be higher), never fired on
+    scatter. The interval holds the number and, the step being within the margin, zero.
+    """
+    name = f"{base}_step_per_1000h"
+    with np.errstate(invalid="ignore", divide="ignore"):
+        low = np.where(rows, np.fmin(np.round((step - margin) / span * 1000.0, DECIMALS), rate), np.nan)
+        high = np.where(rows, np.fmax(np.round((step + margin) / span * 1000.0, DECIMALS), rate), np.nan)
+    written = np.full(len(rows), None, dtype=object)
+    for k in np.flatnonzero(rows):  # steps within the margin whose rate is known: a fraction of a batch
+        written[k] = (f"{number_text(rate[k])}, [{number_text(low[k])}, {number_text(high[k])}] from a step of "
+                      f"{number_text(step[k])} within its noise margin of {number_text(margin[k])} over "
+                      f"{number_text(span[k])} h")
+    closed = np.zeros(len(rows), dtype=bool)
+    return {name + ":low": low, name + ":high": high, name + ":low_open": closed, name + ":high_open": closed.copy(),
+            name + NOISE_SUFFIX: written}
 
 
 def _text(values: np.ndarray) -> np.ndarray:

@@ -15,7 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.censored import Bounds, interval_truth
+from sumpwise.intake.censored import WRITTEN_SUFFIX, Bounds, interval_truth
+from sumpwise.derive.trends import NOISE_SUFFIX
 from sumpwise.ruleset.model import LadderRule, RuleSet
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
@@ -119,8 +120,11 @@ def _limit_truth(measure: str, test: str, limit, columns: _Columns) -> tuple[np.
     if interval is not None:
         rows = interval.censored
         inside, decided = interval_truth(LIMIT_TESTS[test].region(limit), _at(interval, rows))
+        # An interval beside a number (a rate from a step within the noise margin, derive.trends):
+        # the number not crossing decides, as without the interval; crossing, the whole interval must.
+        short = known[rows] & ~truth[rows]
         truth, known = truth.copy(), known.copy()
-        truth[rows], known[rows] = inside, decided
+        truth[rows], known[rows] = inside, decided | short
     return truth, known
 
 
@@ -379,8 +383,9 @@ def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> d
         higher = possible > outcome.level[rows]
         if not higher.any():
             continue
-        written = measured[rule.measure + ":written"].to_numpy(dtype=object)[rows] \
-            if rule.measure + ":written" in measured.columns else np.full(len(rows), None, dtype=object)
+        said = next((c for c in (rule.measure + WRITTEN_SUFFIX, rule.measure + NOISE_SUFFIX) if c in measured.columns),
+                    None)  # a censored reading as written, or why a rate carries an interval
+        written = measured[said].to_numpy(dtype=object)[rows] if said else np.full(len(rows), None, dtype=object)
         unit = ruleset.unit_of(rule.measure)
         for level in np.unique(possible[higher]).tolist():
             at = rows[higher & (possible == level)]

@@ -25,6 +25,7 @@ import pandas as pd
 
 from sumpwise.version import engine_name
 from sumpwise.intake.censored import WRITTEN_SUFFIX
+from sumpwise.derive.trends import NOISE_SUFFIX
 from sumpwise.evaluation.evaluator import NOT_EVALUATED, Outcome
 from sumpwise.vocabulary.measures import DERIVED_MEASURES, KNOWN_FIELDS, measure_needs
 from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, condition_measures, leaves
@@ -440,11 +441,20 @@ def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
                        else values.number(name, i))  # a number's censored spelling
                       for name in rule_inputs(rule)
                       if (written := batch.columns.written(name)) is not None and written[i] is not None)
+    undecided += tuple((name, values.text(name + NOISE_SUFFIX, i)) for name in _noisy(batch, rule)
+                       if batch.columns.text(name + NOISE_SUFFIX)[i] is not None)
     missing = [name for name in rule_inputs(rule) if _is_missing(batch, name, i)]
-    if not missing:  # every input is there: a measure derived from them is undefined (VI of kv100 below 2)
+    if not missing and not undecided:  # every input is there: a measure derived from them is undefined (VI of kv100 below 2)
         missing = ([rule.measure] if isinstance(rule, LadderRule) else
                    [name for name in _condition_measures(rule) if _is_missing(batch, name, i)] or [rule.id])
     return NotEvaluated(rule.id, tuple(missing), undecided)
+
+
+def _noisy(batch: GradedBatch, rule) -> list[str]:
+    """The measures the rule tests that may carry an interval beside their number (a rate from a
+    step within the noise margin, derive.trends): undecided by it, the record says why."""
+    tested = [rule.measure] if isinstance(rule, LadderRule) else _condition_measures(rule)
+    return [name for name in tested if batch.columns.text(name + NOISE_SUFFIX) is not None]
 
 
 def _condition_measures(rule) -> list[str]:
@@ -460,6 +470,7 @@ def gap_states(batch: GradedBatch, j: int, rows: np.ndarray) -> list[np.ndarray]
     names = rule_inputs(rule)
     columns = [batch.columns.missing(name)[rows] for name in names + _condition_measures(rule)]
     columns += [pd.notna(written[rows]) for name in names if (written := batch.columns.written(name)) is not None]
+    columns += [pd.notna(batch.columns.text(name + NOISE_SUFFIX)[rows]) for name in _noisy(batch, rule)]
     return columns or [np.zeros(len(rows), dtype=bool)]
 
 
