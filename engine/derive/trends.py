@@ -57,6 +57,10 @@ TREND_CAVEATS = (
                  "sumpwise engine: a unit id whose equipment class changes is another machine under a reused id, or "
                  "a class written wrong; its trend restarts there, with no step or rate across the change "
                  "(common practice, no source)"),
+    EngineCaveat("one-moment", "one_moment_note",
+                 "sumpwise engine: samples of one unit on one date at the same oil hours (two sample points under "
+                 "one unit id, or a resample) have no order but the file's; none of them is stepped, nor the sample "
+                 "after them (common practice, no source)"),
     EngineCaveat("oil-charge-unknown", "oil_charge_note",
                  "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
                  "code to tell which side of an oil change it lies, or oil hours the calendar cannot hold) is "
@@ -228,12 +232,18 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
                            _class_codes(chain["class"])[order])
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
     restarts = new_oil | charges["class_changed"]
-    linked = same_unit & dated & _shifted(dated, False) & ~restarts & ~unplaced & ~_shifted(unplaced, False)
-
     method_codes, _ = pd.factorize(chain["method"])
     lab_codes, _ = pd.factorize(chain["lab"])
     m, lab = method_codes[order], lab_codes[order]
     m_before, lab_before = _shifted(m, -1), _shifted(lab, -1)
+    differs = (m != m_before) | (lab != lab_before)  # from the previous sample in trend order
+    for base in bases:
+        values = chain[base][order]
+        before = _shifted(values, np.nan)
+        differs |= ~((values == before) | (np.isnan(values) & np.isnan(before)))
+    moment = _one_moment(same_unit, dated, dates[order], h, flagged, differs)
+    linked = (same_unit & dated & _shifted(dated, False) & ~restarts & ~unplaced & ~_shifted(unplaced, False)
+              & ~moment["member"] & ~moment["after"])
     method_changed = linked & (m != m_before)
     lab_changed = linked & (lab >= 0) & (lab_before >= 0) & (lab != lab_before)
     comparable = linked & ~method_changed & ~lab_changed
@@ -290,6 +300,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
                                          np.arange(earlier, total)),
         "oil_change_note": _oil_notes(chain, order, mine, flagged, charges, h),
         "class_change_note": _class_notes(chain, order, mine, charges),
+        "one_moment_note": _moment_notes(chain, order, mine, moment, h),
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, restarts),
     }, index=measured.index, dtype=object)
     out = pd.concat([measured, numbers, runs, notes], axis=1)
@@ -502,6 +513,51 @@ def _class_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict
     notes[hit] = ("class changed from " + _text(classes[order[start]]) + " to " + _text(classes[order[at]])
                   + _since(chain, order[start], which) + ": another machine under the same id, or a class written "
                   "wrong; trend measures restart here, with no step")
+    return notes
+
+
+def _one_moment(same_unit: np.ndarray, dated: np.ndarray, day_keys: np.ndarray, h: np.ndarray,
+                flagged: np.ndarray, differs: np.ndarray) -> dict:
+    """Samples of one unit on one date at the same oil hours (or both without), in trend order,
+    whose readings (or method or lab) are not all alike.
+
+    Nothing but the order of the rows in the file puts one before the other: two sample points
+    under one unit id, or a resample of one bottle. A step between them is no change over time,
+    and a step from one of them to the next sample depends on that order (common practice, no
+    source). So none of them (`member`) is stepped, nor the sample after them (`after`). A result
+    filed twice (every reading alike) steps as before: either order gives the same steps.
+    """
+    hours_tie = (h == _shifted(h, np.nan)) | (np.isnan(h) & np.isnan(_shifted(h, np.nan)))
+    tie = same_unit & dated & (day_keys == _shifted(day_keys, _LAST)) & hours_tie & (flagged == _shifted(flagged, False))
+    group = np.cumsum(~tie)  # a tie continues the previous sample's group
+    mixed = np.zeros(len(tie) + 1, dtype=bool)
+    np.logical_or.at(mixed, group, tie & differs)
+    ahead = np.empty_like(tie)
+    if len(tie):
+        ahead[:-1], ahead[-1] = tie[1:], False
+    member = (tie | ahead) & mixed[group]
+    after = same_unit & ~member & _shifted(member, False)
+    return {"tie": tie & mixed[group], "member": member, "after": after}
+
+
+def _moment_notes(chain: dict, order: np.ndarray, mine: np.ndarray, moment: dict, h: np.ndarray) -> np.ndarray:
+    """The one-moment note of each incoming row (sorted arrays, `mine` their sorted positions)."""
+    notes = np.full(len(mine), None, dtype=object)
+    hit = np.flatnonzero(moment["member"][mine])
+    if len(hit):
+        at = mine[hit]
+        other = np.where(moment["tie"][at], at - 1, at + 1)
+        hours = np.where(np.isnan(h[at]), "no oil hours", _hours(h[at]) + " oil hours").astype(object)
+        notes[hit] = ("sample " + _text(chain["sample_id"][order[other]]) + " of unit " + _text(chain["unit_id"][order[at]])
+                      + " was taken on the same date (" + _text(chain["sampled_on"][order[at]]) + ") at " + hours
+                      + ": two sample points under one unit id, or a resample; which came first is not told, so "
+                      "neither is stepped, nor the sample after them (give each sample point its own unit id)")
+    hit = np.flatnonzero(moment["after"][mine])
+    if len(hit):
+        before = order[mine[hit] - 1]
+        notes[hit] = ("the previous samples of unit " + _text(chain["unit_id"][before]) + " (" + _text(chain["sampled_on"][before])
+                      + ", " + _text(chain["sample_id"][before]) + " and another) were taken at one moment, so which "
+                      "one this sample follows is not told; trend measures restart here, with no step")
     return notes
 
 

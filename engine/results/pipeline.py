@@ -134,6 +134,8 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     with np.errstate(invalid="ignore"):
         run = np.nanmax(np.stack(rising), axis=0, initial=0.0) if rising else np.zeros(len(own))
     own["_keep"] = 1.0 + np.nan_to_num(run)
+    if "one_moment_note" in measured:  # of samples at one moment, or after them: the two before it too, to tell so
+        own["_keep"] = np.where(measured["one_moment_note"].notna().to_numpy(), np.fmax(own["_keep"], 3.0), own["_keep"])
     if history is not None:
         history = history.assign(_keep=np.inf)  # a unit not seen in this chunk keeps what it had
     frame = own if history is None else pd.concat([history[names + ["_keep"]], own], ignore_index=True)

@@ -110,7 +110,7 @@ def _class_histories(seed: int, n: int, units: int) -> pd.DataFrame:
         "oil_hours": days * 16.0 + rng.integers(0, 8, n),  # never falls: no oil change but the flag
         "iron": rng.integers(3, 40, n).astype(float),
         "oil_changed": rng.random(n) < 0.03,
-    })
+    }).drop_duplicates(["unit_id", "sampled_on", "oil_hours"])  # samples at one moment: their own test
 
 
 def test_class_changes_agree_with_a_per_unit_loop_on_random_histories():
@@ -215,7 +215,7 @@ def test_rate_rules_agree_with_a_per_unit_loop_on_random_histories():
         "oil_hours": days * 20.0 + rng.integers(0, 4, n) * 5.0,  # resamples days apart and a few on one day
         "iron": rng.integers(5, 12, n).astype(float),
         "an": rng.integers(20, 30, n) / 100.0,
-    })
+    }).drop_duplicates(["unit_id", "sampled_on", "oil_hours"])  # samples at one moment: their own test
     graded = sumpwise.grade(frame, sumpwise.load_ruleset(RULES))
     expected = _rate_oracle(frame, {"iron": lambda a, b: 2.0,  # the rule set's noise_margins
                                     "an": lambda a, b: 0.117 * (a + b) / 2.0})  # ASTM D664 15.1.1
@@ -227,3 +227,99 @@ def test_rate_rules_agree_with_a_per_unit_loop_on_random_histories():
         assert got == levels, sid
     seen = [lv for levels in expected.values() for lv in levels.values()]
     assert seen.count(-1) > 300 and seen.count(1) > 20 and seen.count(2) > 20  # every outcome occurs
+
+
+def test_two_sample_points_under_one_unit_id_on_one_day_are_not_stepped():
+    # HPU-9 sampled at the reservoir (9 ppm iron) and at the return line ahead of the filter
+    # (21 ppm) on one day at 1000 h, under one unit id. A month on, the reservoir reads 20 ppm:
+    # +11 ppm since its own bottle, 44 ppm per 1000 h, above the alert limit of 40. Before: it was
+    # stepped from the return-line bottle (the file's order), -1 ppm, and graded normal without
+    # a word (a silent miss); reversed in the file, the return line's bottle was the reservoir's
+    # base instead. Now no step is taken to either bottle or from them, and all three say so.
+    graded = _graded("two-points.csv")
+    for sid, other in (("B-802", "B-803"), ("B-803", "B-802")):
+        bottle = graded.find(sid)
+        assert _caveats(bottle) == ["one-moment"]
+        assert bottle.caveats[0].message.startswith(f"sample {other} of unit HPU-9 was taken on the same date "
+                                                    "(2026-01-07) at 1000 oil hours")
+        assert {"iron-rate", "iron-climbing"} <= _unevaluated(bottle)
+    after = graded.find("B-804")
+    assert {"iron-rate", "iron-climbing", "acid-rate"} <= _unevaluated(after)
+    assert _caveats(after) == ["one-moment"]
+    assert "trend measures restart here" in after.caveats[0].message
+    assert math.isnan(graded.measured.set_index("sample_id").at["B-804", "iron_step"])
+    # the file's order no longer matters
+    reordered = sumpwise.grade(sumpwise.read_samples(FOUND / "two-points.csv").frame.iloc[[0, 2, 1, 3, 4]],
+                               sumpwise.load_ruleset(RULES))
+    assert ([r.to_record() for r in reordered.results()][3]["derived"]
+            == [r.to_record() for r in graded.results()][3]["derived"])
+    assert graded.find("B-805").grade == "normal" and _caveats(graded.find("B-805")) == []
+    # one result filed twice (every reading alike) is no question of order: it steps as before
+    frame = sumpwise.read_samples(FOUND / "two-points.csv").frame
+    twice = frame.assign(iron=frame["iron"].where(frame["sample_id"] != "B-803", 9.0))
+    again = sumpwise.grade(twice, sumpwise.load_ruleset(RULES))
+    assert [_caveats(again.find(s)) for s in ("B-802", "B-803", "B-804")] == [[], [], []]
+    assert again.measured.set_index("sample_id").at["B-804", "iron_step_per_1000h"] == pytest.approx(44.0)
+    assert _fired(again.find("B-804")) == {("iron-rate", "alert")}
+
+
+def _moment_oracle(frame: pd.DataFrame) -> dict:
+    """Per unit, in date and oil hours order, a plain loop: samples sharing their date and oil
+    hours with another of the unit, their iron readings not all alike, have no step, nor the
+    sample after them."""
+    expected = {}
+    ordered = frame.sort_values(["unit_id", "sampled_on", "oil_hours"], kind="stable")
+    for _, rows in ordered.groupby("unit_id", sort=False):
+        rows = list(rows.itertuples())
+        moments = [(r.sampled_on, r.oil_hours) for r in rows]
+        shared = [len({r.iron for r, m2 in zip(rows, moments) if m2 == m}) > 1 for m in moments]
+        for i, row in enumerate(rows):
+            after = i > 0 and shared[i - 1] and not shared[i]
+            linked = i > 0 and not shared[i] and not after
+            step = round(row.iron - rows[i - 1].iron, 9) if linked else math.nan
+            expected[row.sample_id] = (shared[i] or after, step)
+    return expected
+
+
+def _moment_histories(seed: int, n: int, units: int) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    days = rng.integers(0, 200, n)  # about one sample in seven shares its day with another of its unit
+    return pd.DataFrame({
+        "sample_id": [f"R{i:05d}" for i in range(n)], "unit_id": [f"U-{u}" for u in rng.integers(0, units, n)],
+        "class": "hydraulic", "lubricant": "HYD-46-M",
+        "sampled_on": (pd.Timestamp("2025-01-01") + pd.to_timedelta(days, unit="D")).strftime("%Y-%m-%d"),
+        "oil_hours": days * 20.0 + rng.integers(0, 2, n) * 10.0,  # on a shared day, the same hours or not
+        "iron": rng.integers(3, 40, n).astype(float),
+    })
+
+
+def test_one_moment_samples_agree_with_a_per_unit_loop_on_random_histories():
+    frame = _moment_histories(41, 1500, 20)
+    graded = sumpwise.grade(frame, sumpwise.load_ruleset(RULES))
+    out = graded.measured.set_index("sample_id")
+    expected = _moment_oracle(frame)
+    for sid, (said, step) in expected.items():
+        assert (out.at[sid, "one_moment_note"] is not None) == said, sid
+        np.testing.assert_allclose(out.at[sid, "iron_step"], step, equal_nan=True, err_msg=sid)
+    assert sum(w[0] for w in expected.values()) > 200 and sum(not math.isnan(w[1]) for w in expected.values()) > 200
+
+
+def test_chunks_carry_what_a_one_moment_sample_is_found_against(tmp_path):
+    frame = _moment_histories(42, 400, 6).sort_values(["sampled_on", "oil_hours"], kind="stable")
+    samples = tmp_path / "samples.csv"
+    frame.to_csv(samples, index=False)
+    whole, chunked = tmp_path / "whole.jsonl", tmp_path / "chunked.jsonl"
+    assert run_cli("grade", samples, "--rules", RULES, "--out", whole).code == 0
+    records = _without_forecasts(whole.read_text())
+    moment = list(zip(frame["unit_id"], frame["sampled_on"], frame["oil_hours"]))
+    for rows in (1, 2, 7):
+        run = run_cli("grade", samples, "--rules", RULES, "--chunk-rows", rows, "--out", chunked)
+        assert run.code == 0, run.err
+        # a sample whose twin comes in a later chunk is graded before the twin can be seen, so it keeps
+        # its step (as one without oil hours does before a later oil change); every other record agrees
+        early = {k for k, m in enumerate(moment) if any(moment[j] == m for j in range(k + 1, len(moment))
+                                                       if j // rows > k // rows)}
+        got = _without_forecasts(chunked.read_text())
+        assert [r for k, r in enumerate(got) if k not in early] == [r for k, r in enumerate(records) if k not in early]
+        assert len(early) < len(moment) // 4, rows
+    assert [c["caveat"] for r in records for c in r["caveats"]].count("one-moment") > 40
