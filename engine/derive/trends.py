@@ -41,8 +41,10 @@ PER_OIL_HOUR = tuple(m.name for m in ROW_DERIVED if "oil_hours" in m.needs)
 # taken (our margin, no source): only hours the calendar cannot hold by far (a digit too many,
 # a wrong year or month) are refused.
 HOURS_MARGIN = 2.0
-# The column beside a rate that says why it carries an interval (_noise_bounds); unlike a censored
-# reading's `:written`, the rate's number stays what records show.
+# The columns beside a rate whose step is within the noise margin (_noise_bounds): the margin, and
+# the text that says why it carries an interval (noise_notes); unlike a censored reading's
+# `:written`, the rate's number stays what records show.
+MARGIN_SUFFIX = ":margin"
 NOISE_SUFFIX = ":noise"
 
 
@@ -317,7 +319,8 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
 def _noise_bounds(base: str, rows: np.ndarray, rate: np.ndarray, step: np.ndarray, margin: np.ndarray,
                   span: np.ndarray) -> dict:
     """The rates of `rows`, whose step is no larger than the noise margin, with the interval of
-    rates the two readings allow beside them: (step - margin, step + margin) / hours x 1000.
+    rates the two readings allow beside them: (step - margin, step + margin) / hours x 1000, and
+    the margin itself (`<rate>:margin`).
 
     Over a short span test scatter reads as a steep rate (+2 ppm in 20 h is 100 per 1000 h). The
     evaluator decides a limit test on such a rate by its number where the number does not cross
@@ -329,14 +332,37 @@ def _noise_bounds(base: str, rows: np.ndarray, rate: np.ndarray, step: np.ndarra
     with np.errstate(invalid="ignore", divide="ignore"):
         low = np.where(rows, np.fmin(np.round((step - margin) / span * 1000.0, DECIMALS), rate), np.nan)
         high = np.where(rows, np.fmax(np.round((step + margin) / span * 1000.0, DECIMALS), rate), np.nan)
-    written = np.full(len(rows), None, dtype=object)
-    for k in np.flatnonzero(rows):  # steps within the margin whose rate is known: a fraction of a batch
-        written[k] = (f"{number_text(rate[k])}, [{number_text(low[k])}, {number_text(high[k])}] from a step of "
-                      f"{number_text(step[k])} within its noise margin of {number_text(margin[k])} over "
-                      f"{number_text(span[k])} h")
     closed = np.zeros(len(rows), dtype=bool)
     return {name + ":low": low, name + ":high": high, name + ":low_open": closed, name + ":high_open": closed.copy(),
-            name + NOISE_SUFFIX: written}
+            name + MARGIN_SUFFIX: np.where(rows, np.round(margin, DECIMALS), np.nan)}
+
+
+def noise_notes(measured: pd.DataFrame, reads: list, quiet: np.ndarray) -> dict:
+    """The `<rate>:noise` text of each rate with a noise interval, on the rows where a rule slot j
+    reading it (`reads[j]`, its measures) is not `quiet[:, j]` (it fired or was not evaluated):
+    what a record's `undecided` and the grade-may-be-higher note say. Only there: a step within
+    the margin is common, and its rate usually decides nothing."""
+    notes = {}
+    for column in measured.columns:
+        if not column.endswith(MARGIN_SUFFIX):
+            continue
+        name = column[: -len(MARGIN_SUFFIX)]
+        margin = measured[column].to_numpy(dtype=float)
+        wanted = np.zeros(len(measured), dtype=bool)
+        for j, measures in enumerate(reads):
+            if name in measures:
+                wanted |= ~quiet[:, j]
+        text = np.full(len(measured), None, dtype=object)
+        at = np.flatnonzero(wanted & ~np.isnan(margin))
+        if len(at):
+            base = name[: -len("_step_per_1000h")]
+            parts = [measured[c].to_numpy(dtype=float)[at].tolist() for c in
+                     (name, name + ":low", name + ":high", f"{base}_step", column, "hours_since_previous")]
+            text[at] = [f"{number_text(r)}, [{number_text(lo)}, {number_text(hi)}] from a step of {number_text(d)} "
+                        f"within its noise margin of {number_text(m)} over {number_text(h)} h"
+                        for r, lo, hi, d, m, h in zip(*parts)]
+        notes[name + NOISE_SUFFIX] = text
+    return notes
 
 
 def _text(values: np.ndarray) -> np.ndarray:
