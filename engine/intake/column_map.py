@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import codecs
 import difflib
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -34,6 +35,44 @@ FILE_OPTIONS = ("delimiter", "decimal", "encoding", "date_format", "sheet")
 DELIMITERS = (",", ";", "\t", "|")
 DECIMAL_MARKS = (".", ",")
 _ENTRY_KEYS = {"column", "unit", "value", "map", "true", "false", "detection_limit", "method"}
+
+
+_SEPARATORS = re.compile(r"[\s_-]+")
+
+
+def header_key(text) -> str:
+    """A column name as names are compared, the one place they are normalised: casefolded, a
+    byte-order mark and surrounding spaces dropped, each run of spaces, `-` and `_` one `_`
+    (`Oil-Hours`, ` oil hours ` and `OIL_HOURS` are all `oil_hours`)."""
+    return _SEPARATORS.sub("_", str(text).replace("\ufeff", "").strip().casefold())
+
+
+def engine_columns(header: list, columns: "ColumnMap", known: set) -> tuple[dict, dict, dict]:
+    """How the file's columns not named in the map land on engine names (`known`), matched by
+    header_key: ({header: engine name} to rename, {engine name: [headers]} that land on a name the
+    map reads from another column (not read), {engine name: [headers]} landing on one name twice).
+
+    A lab that writes `AN` or `Water` means `an` and `water`; read only on an exact name, the
+    readings were left out and the sample graded without them (normal, no limit crossed)."""
+    by_key: dict = {}
+    for name in known:
+        by_key.setdefault(header_key(name), []).append(name)
+    mapped = set(columns.columns.values())
+    landing: dict = {}
+    for name in header:
+        names = by_key.get(header_key(name), [])
+        target = name if name in names else names[0] if len(names) == 1 else None
+        if name not in mapped and target is not None:
+            landing.setdefault(target, []).append(name)
+    renames, shadowed, twice = {}, {}, {}
+    for target, names in landing.items():
+        if target in columns.columns:  # the map reads this name from its own column: the map wins
+            shadowed[target] = names
+        elif len(names) > 1:
+            twice[target] = names
+        elif names[0] != target:
+            renames[names[0]] = target
+    return renames, shadowed, twice
 
 
 @dataclass(frozen=True)

@@ -19,15 +19,16 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
-from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
+from sumpwise.intake.column_map import (FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, engine_columns,
+                                        header_key, load_column_map)
 from sumpwise.intake.dates import read_dates
-from sumpwise.intake.header_lines import header_key, header_lines
+from sumpwise.intake.header_lines import header_lines
 from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
-from sumpwise.vocabulary.problems import InputError
+from sumpwise.vocabulary.problems import InputError, InvalidFile, Problem, json_path
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
 from sumpwise.vocabulary.units import factor_to_canonical
 
@@ -174,10 +175,24 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             raise InputError(f"{name}: the column map names column '{column}' for {measure}, but the file has "
                              f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
+    known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
+    matched, shadowed, twice = engine_columns(list(raw.columns), columns, known)
+    if twice:
+        raise InvalidFile([Problem(name, 0, 0, f"columns {' and '.join(map(repr, spelled))} are both read as "
+                                               f"{target} (column names are compared without case, surrounding "
+                                               f"spaces, '-' or '_'): a column is read from one header only",
+                                   path=json_path(("header", target)), code="D024",
+                                   hint=f"rename or drop one, or name the one to read in a column map "
+                                        f"({target}: {spelled[0]!r})")
+                           for target, spelled in twice.items()])
+    if matched:
+        notes.append("read " + ", ".join(f"column {lab!r} as {target}" for lab, target in matched.items())
+                     + " (column names are compared without case, surrounding spaces, '-' or '_')")
+    renames.update(matched)
     mapped = set(renames)
     header = {renames.get(c, c): c for c in raw.columns}  # each column's name in the file's header
     _check_header_units(name, columns)
-    clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]
+    clash = [c for spelled in shadowed.values() for c in spelled]
     raw = raw.drop(columns=clash).rename(columns=renames)
     if clash:
         notes.append(f"columns {', '.join(clash)} not used: the column map reads these names from other columns")
@@ -192,7 +207,6 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                          f"columns, but a sample has one method: map a `method` column instead")
     if methods and "method" not in raw.columns:
         raw["method"] = methods[0]
-    known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
     unit_columns = _unit_columns(list(raw.columns), columns)
     qualifiers = _qualifier_columns(list(raw.columns), columns, [c for c in raw.columns if c in NUMERIC_COLUMNS
                                                                  or c in numeric])

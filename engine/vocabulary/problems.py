@@ -103,6 +103,7 @@ PROBLEM_CODES = {
     "D021": "a viscosity at 100 °C not below the same oil's viscosity at 40 °C (columns swapped or misread)",
     "D022": "particle counts that rise with particle size (cumulative counts cannot: per size range, or swapped)",
     "D023": "a sampling date before 1900 or more than a year after the day it is read (a slip in the year)",
+    "D024": "two columns of the header that read as one engine name (case, spaces, '-' and '_' aside)",
     "F001": "a spectrum that cannot be used",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",
