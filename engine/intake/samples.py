@@ -238,8 +238,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if column not in numeric_names:
             raw[column] = _text_column(raw[column])
     sample_id = raw["sample_id"].fillna("")
-    repeated = sample_id.duplicated(keep="first").to_numpy()  # a repeated `Average` is looked at whatever its row holds
-    summary = summary_rows(raw, set(numeric_names), sample_id.to_numpy(dtype=object)[repeated])
+    repeated = sample_id.duplicated(keep="first").to_numpy()
+    summary = summary_rows(raw, set(numeric_names))
     if len(summary.at):  # rejected as what they are, and kept out of every other check (a second `Average` is no D003)
         rejects.extend(Reject(int(raw.index[k]), None, field_name, why, "D019")
                        for k, field_name, why in zip(summary.at, summary.fields, summary.reasons()))
@@ -462,11 +462,11 @@ def _unit_columns(names: list, columns: ColumnMap) -> dict:
     column (`water unit`, `Water (KF)_units`, `unit water`): LIMS exports write them beside results."""
     found = {}
     for measure in SPELLINGS:
-        lab = str(columns.columns.get(measure, measure)).strip().casefold()
-        spelled = {f"{lab} {word}" for word in ("unit", "units", "(unit)", "[unit]")} | {
-            f"{lab}_unit", f"{lab}_units", f"unit {lab}", f"units {lab}"}
+        lab = str(columns.columns.get(measure, measure))
+        spelled = {header_key(form.format(lab=lab, word=word)) for word in ("unit", "units", "(unit)", "[unit]")
+                   for form in ("{lab} {word}", "{word} {lab}")}
         for name in names:
-            if str(name).strip().casefold() in spelled:
+            if header_key(name) in spelled:
                 found[measure] = name
     return found
 
@@ -483,11 +483,11 @@ def _qualifier_columns(names: list, columns: ColumnMap, numeric_names: list) -> 
     """{measure: column} of the columns that give a result's qualifier (`<`, `>`) row by row."""
     found = {}
     for measure in numeric_names:
-        lab = str(columns.columns.get(measure, measure)).strip().casefold()
-        spelled = {form.format(lab=lab, word=word) for word in _QUALIFIER_WORDS
-                   for form in ("{lab} {word}", "{lab}_{word}", "{word} {lab}", "{lab} ({word})", "{lab} [{word}]")}
+        lab = str(columns.columns.get(measure, measure))
+        spelled = {header_key(form.format(lab=lab, word=word)) for word in _QUALIFIER_WORDS
+                   for form in ("{lab} {word}", "{word} {lab}", "{lab} ({word})", "{lab} [{word}]")}
         for name in names:
-            if str(name).strip().casefold() in spelled:
+            if header_key(name) in spelled:
                 found[measure] = name
     return found
 
