@@ -238,8 +238,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if column not in numeric_names:
             raw[column] = _text_column(raw[column])
     sample_id = raw["sample_id"].fillna("")
-    repeated = sample_id.duplicated(keep="first").to_numpy()
-    summary = summary_rows(raw, set(numeric_names))
+    ids = pd.factorize(sample_id.to_numpy(dtype=object))  # once: for repeated ids and ids that are labels
+    repeated = pd.Series(ids[0]).duplicated(keep="first").to_numpy()
+    summary = summary_rows(raw, set(numeric_names), ids)
     if len(summary.at):  # rejected as what they are, and kept out of every other check (a second `Average` is no D003)
         rejects.extend(Reject(int(raw.index[k]), None, field_name, why, "D019")
                        for k, field_name, why in zip(summary.at, summary.fields, summary.reasons()))

@@ -100,13 +100,14 @@ NO_ID = "no sample id"
 NO_DATE_OR_UNIT = "no date or unit of its own"
 
 
-def summary_rows(raw: pd.DataFrame, numeric: set) -> SummaryRows:
-    """The rows of `raw` (text cleaned: str or None) that are summary lines (see the module)."""
+def summary_rows(raw: pd.DataFrame, numeric: set, ids: tuple | None = None) -> SummaryRows:
+    """The rows of `raw` (text cleaned: str or None) that are summary lines (see the module);
+    `ids`: pd.factorize of the sample ids, when the caller has it."""
     n = len(raw)
     date = _present(raw, "sampled_on", n)
     unit = _present(raw, "unit_id", n)
     no_id = ~_present(raw, "sample_id", n)
-    ids = _labels(raw["sample_id"].to_numpy(dtype=object), SUMMARY_LABELS)
+    ids = _labels(raw["sample_id"].to_numpy(dtype=object), SUMMARY_LABELS, ids)
     looked = np.flatnonzero(~(date & unit) | no_id | (ids != None))  # noqa: E711 (numpy element-wise)
     if not len(looked):
         return SummaryRows(np.empty(0, dtype=np.int64), [], [], [], [])
@@ -179,19 +180,34 @@ def _present(raw: pd.DataFrame, column: str, n: int) -> np.ndarray:
     return pd.notna(raw[column].to_numpy(dtype=object))
 
 
-def _labels(cells: np.ndarray, known: dict) -> np.ndarray:
+def _labels(cells: np.ndarray, known: dict, factorized: tuple | None = None) -> np.ndarray:
     """What each cell says its row is (a kind of `known`), None where it is no label. Each
-    distinct text is keyed once; when there are many (ids), only those without a digit (no
-    label has one, but in a bracketed note at its end), found in numpy passes over their characters."""
-    codes, uniques = pd.factorize(cells, use_na_sentinel=True)
+    distinct text is keyed once (`factorized`: the cells' pd.factorize, when known); when there
+    are many (ids), only those that may be labels (_may_be_labels)."""
+    codes, uniques = factorized or pd.factorize(cells, use_na_sentinel=True)
     kinds = np.full(len(uniques) + 1, None, dtype=object)  # the last for a missing cell
     at = np.arange(len(uniques))
-    text = np.asarray(uniques, dtype=object).astype(str) if len(uniques) > 1000 else None
-    if text is not None and text.dtype.itemsize:
-        points = text.view(np.uint32).reshape(len(text), -1)
-        last = points[at, np.maximum(np.strings.str_len(text) - 1, 0)]
-        digits = ((points >= ord("0")) & (points <= ord("9"))).any(axis=1)
-        at = at[~digits | (last == ord(")")) | (last == ord("]"))]  # a digit only in a bracketed note
+    if len(uniques) > 1000:
+        at = at[_may_be_labels(uniques)]
     for k in at:
         kinds[k] = known.get(label_key(uniques[k]))
     return kinds[codes]
+
+
+def _may_be_labels(texts) -> np.ndarray:
+    """Which texts may be labels: those without a digit (no label has one), or ending in a bracket
+    (a note such as `(n=12)`). One numpy pass over their characters, joined: sample ids have digits."""
+    try:
+        joined = "\x00".join(texts)
+    except TypeError:  # not all text
+        return np.ones(len(texts), dtype=bool)
+    points = (np.frombuffer(joined.encode("ascii"), dtype=np.uint8) if joined.isascii() else
+              np.frombuffer(joined.encode("utf-32-le", "surrogatepass"), dtype=np.uint32))
+    points = np.append(points, 0)  # each text ends at a separator, the last too
+    ends = np.flatnonzero(points == 0)
+    if len(ends) != len(texts):  # a text holds the separator itself
+        return np.ones(len(texts), dtype=bool)
+    starts = np.concatenate([[0], ends[:-1] + 1])  # at its separator when a text is empty: no digit
+    digit = ((points >= ord("0")) & (points <= ord("9"))).view(np.uint8)
+    last = points[np.maximum(ends - 1, 0)] * (ends > starts)
+    return (np.maximum.reduceat(digit, starts) == 0) | (last == ord(")")) | (last == ord("]"))
