@@ -28,11 +28,11 @@ from sumpwise.intake.readers import (RawTable, check_header, decode, detect_deci
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
-from sumpwise.vocabulary.problems import InputError, InvalidFile, Problem, json_path
+from sumpwise.vocabulary.problems import InputError, Problem, json_path
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
 from sumpwise.vocabulary.units import factor_to_canonical
 
-__all__ = ["ColumnMap", "Reject", "SampleBatch", "load_column_map", "read_samples", "validate_samples"]
+__all__ = ["ColumnMap", "HeaderError", "Reject", "SampleBatch", "load_column_map", "read_samples", "validate_samples"]
 
 REQUIRED_COLUMNS = ("sample_id", "class")
 
@@ -41,6 +41,15 @@ NUMERIC_COLUMNS = NUMERIC_NAMES
 # Spellings of a yes/no flag every map accepts (case ignored), besides the map's own.
 FLAG_SPELLINGS = {"y": True, "n": False, "yes": True, "no": False, "true": True, "false": False, "1": True,
                   "0": False, "t": True, "f": False}
+
+
+class HeaderError(InputError):
+    """A samples file whose header cannot be read as columns (D024), with the problem records: an
+    InputError, so a run of several files says it and grades the others."""
+
+    def __init__(self, problems: list):
+        self.problems = tuple(problems)
+        super().__init__("\n".join(p.render() for p in self.problems))
 
 
 @dataclass(frozen=True)
@@ -178,7 +187,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
     matched, shadowed, twice = engine_columns(list(raw.columns), columns, known)
     if twice:
-        raise InvalidFile([Problem(name, 0, 0, f"columns {' and '.join(map(repr, spelled))} are both read as "
+        raise HeaderError([Problem(name, 0, 0, f"columns {' and '.join(map(repr, spelled))} are both read as "
                                                f"{target} (column names are compared without case, surrounding "
                                                f"spaces, '-' or '_'): a column is read from one header only",
                                    path=json_path(("header", target)), code="D024",

@@ -116,7 +116,17 @@ def test_two_headers_that_land_on_one_column_are_refused_with_a_code():
     assert run.code == 2 and run.out == ""
     assert re.search(r"two-water-columns\.csv: error D024: columns 'Water' and 'water' are both read as water",
                      run.err), run.err
-    assert "(at $.header.water)" in run.err and "nothing was graded" in run.err
+    assert "(at $.header.water)" in run.err and "read 0 row(s)" in run.err
+    # the refusal is a record with its code, and an InputError: a run of several files grades the others
+    from sumpwise.intake.samples import HeaderError, read_samples
+    from sumpwise.vocabulary.problems import InputError
+    with pytest.raises(HeaderError) as refused:
+        read_samples(FOUND / "two-water-columns.csv")
+    assert isinstance(refused.value, InputError)
+    assert [(p.code, p.path) for p in refused.value.problems] == [("D024", "$.header.water")]
+    both = run_cli("grade", FOUND / "two-water-columns.csv", FOUND / "mixed-case-headers.csv", "--rules", HYDRAULIC)
+    assert both.code == 2 and {json.loads(line)["sample_id"] for line in both.out.splitlines()} == {
+        "HY-2026-0701", "HY-2026-0702", "HY-2026-0703"}
 
 
 def test_a_column_map_that_names_one_of_them_wins():
