@@ -25,7 +25,7 @@ import msgspec
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.column_map import DELIMITERS, header_key
+from sumpwise.intake.column_map import DELIMITERS, engine_name
 from sumpwise.vocabulary.problems import InputError
 
 ENCODING_HINT = ("declare the file's encoding in the column map (file: {encoding: cp1252}); common ones are "
@@ -75,9 +75,9 @@ def check_header(names: list) -> None:
 
 def numeric_flags(names: list, numeric: set) -> list[bool]:
     """Whether each column is read as numbers: its name is one of `numeric` as column_map.header_key
-    compares names (an `AN` column is the acid number, and parsed as numbers like `an`)."""
-    keys = {header_key(name) for name in numeric}
-    return [header_key(name) in keys for name in names]
+    compares names, or it is one followed by its unit (column_map.engine_name: an `AN` or an
+    `AN (mg KOH/g)` column is the acid number, and parsed as numbers like `an`)."""
+    return [engine_name(name, numeric) is not None for name in names]
 
 
 def _first_line(text: str) -> str:

@@ -23,7 +23,7 @@ from sumpwise.intake.column_map import (FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NA
                                         header_key, load_column_map)
 from sumpwise.intake.dates import read_dates
 from sumpwise.intake.header_lines import header_lines
-from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
+from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, readable_units, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
@@ -185,7 +185,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                              f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
     known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
-    matched, shadowed, twice = engine_columns(list(raw.columns), columns, known)
+    matched, units, shadowed, twice = engine_columns(list(raw.columns), columns, known)
     if twice:
         raise HeaderError([Problem(name, 0, 0, f"columns {' and '.join(map(repr, spelled))} are both read as "
                                                f"{target} (column names are compared without case, surrounding "
@@ -195,8 +195,18 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                                         f"({target}: {spelled[0]!r})")
                            for target, spelled in twice.items()])
     if matched:
-        notes.append("read " + ", ".join(f"column {lab!r} as {target}" for lab, target in matched.items())
-                     + " (column names are compared without case, surrounding spaces, '-' or '_')")
+        notes.append("read " + ", ".join(f"column {lab!r} as {target}" + (f" in {units[target]}" if target in units
+                                                                           else "") for lab, target in matched.items())
+                     + " (column names are compared without case, surrounding spaces, '-' or '_', a unit after them "
+                       "read as the column's)")
+    lab_of = {target: lab for lab, target in matched.items()}
+    for target, unit in units.items():  # the unit a header names is the column's: read in it, or refused
+        read_in = _read_in(target, columns)
+        if unit != read_in and unit in readable_units(target):
+            columns = replace(columns, units={**columns.units, target: unit})
+        elif unit != read_in:
+            raise InputError(f"{name}: " + unit_conflict(target, unit, read_in, f"the header of column "
+                                                                              f"{lab_of[target]!r}", lab_of[target]))
     renames.update(matched)
     mapped = set(renames)
     header = {renames.get(c, c): c for c in raw.columns}  # each column's name in the file's header
@@ -216,8 +226,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                          f"columns, but a sample has one method: map a `method` column instead")
     if methods and "method" not in raw.columns:
         raw["method"] = methods[0]
-    unit_columns = _unit_columns(list(raw.columns), columns)
-    qualifiers = _qualifier_columns(list(raw.columns), columns, [c for c in raw.columns if c in NUMERIC_COLUMNS
+    labs = {measure: lab for lab, measure in renames.items()}  # the file's name of each column renamed
+    unit_columns = _unit_columns(list(raw.columns), labs)
+    qualifiers = _qualifier_columns(list(raw.columns), labs, [c for c in raw.columns if c in NUMERIC_COLUMNS
                                                                  or c in numeric])
     beside = set(unit_columns.values()) | set(qualifiers.values())
     unused = [c for c in raw.columns if c not in known and c not in mapped and c not in beside]
@@ -467,12 +478,12 @@ def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> 
     return columns.units.get(measure) or INPUT_MEASURES.get(measure.removeprefix("new_"), otherwise)
 
 
-def _unit_columns(names: list, columns: ColumnMap) -> dict:
+def _unit_columns(names: list, labs: dict) -> dict:
     """{measure: column} of the columns that give a measure's unit row by row, named after its
     column (`water unit`, `Water (KF)_units`, `unit water`): LIMS exports write them beside results."""
     found = {}
     for measure in SPELLINGS:
-        lab = str(columns.columns.get(measure, measure))
+        lab = str(labs.get(measure, measure))
         spelled = {header_key(form.format(lab=lab, word=word)) for word in ("unit", "units", "(unit)", "[unit]")
                    for form in ("{lab} {word}", "{word} {lab}")}
         for name in names:
@@ -489,11 +500,11 @@ _BOUNDS = {"<": "<", "<=": "<=", "\u2264": "\u2264", ">": ">", ">=": ">=", "\u22
            "nd": "<", "n.d.": "<", "bdl": "<", "<dl": "<", "<lod": "<", "<loq": "<", "<rl": "<"}
 
 
-def _qualifier_columns(names: list, columns: ColumnMap, numeric_names: list) -> dict:
+def _qualifier_columns(names: list, labs: dict, numeric_names: list) -> dict:
     """{measure: column} of the columns that give a result's qualifier (`<`, `>`) row by row."""
     found = {}
     for measure in numeric_names:
-        lab = str(columns.columns.get(measure, measure))
+        lab = str(labs.get(measure, measure))
         spelled = {header_key(form.format(lab=lab, word=word)) for word in _QUALIFIER_WORDS
                    for form in ("{lab} {word}", "{word} {lab}", "{lab} ({word})", "{lab} [{word}]")}
         for name in names:

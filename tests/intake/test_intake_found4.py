@@ -196,3 +196,46 @@ def test_a_sample_id_that_is_a_label_is_found_among_many_ids(tmp_path):
     got, err = _graded(path, "--rules", HYDRAULIC)
     assert _rejects(err) == [(700, "D019", "sample_id")]
     assert len(got) == 1500
+
+
+# --- 3. A header that names the engine column followed by its unit ------------------------------
+
+def test_headers_with_units_are_read_in_the_unit_they_name():
+    # A semicolon, decimal-comma export (BOM, CRLF, day-first dates) whose headers carry the unit:
+    # `Oil Hours (h)`, `KV40 [cSt]`, `AN (mg KOH/g)`, `Water (%)`. Was: none of the four read (a note
+    # "lab columns not used"), every sample graded normal. Now read in the unit named: water 0.09 %
+    # is 900 ppm (1 % = 10,000 ppm: the definition of ppm by mass, ASTM D6304 reports either), alert.
+    got, err = _graded(FOUND / "units-in-headers.csv", "--rules", HYDRAULIC,
+                       "--columns", FOUND / "units-in-headers.yaml")
+    _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
+    assert got["HY-2026-0742"]["values"]["water"] == 120 and got["HY-2026-0741"]["values"]["oil_hours"] == 8800
+    assert "column 'Water (%)' as water in %" in err and "not used" not in err
+
+
+def test_a_qualifier_column_beside_a_header_with_its_unit_is_read(tmp_path):
+    # `>` and 0.1 under `Water (%)` is above 1000 ppm: urgent (above 1000), not 1000 ppm at alert.
+    path = tmp_path / "qualified.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,Water (%),Water (%) Qualifier\n"
+                    "HY-2026-0761,HPU-1,hydraulic,HYD-46-M,2026-08-24,0.1,>\n", encoding="utf-8")
+    got, _ = _graded(path, "--rules", HYDRAULIC)
+    assert (got["HY-2026-0761"]["grade"], _fired(got["HY-2026-0761"])) == ("urgent", {"water"})
+
+
+def test_a_header_naming_a_unit_the_column_cannot_be_read_in_is_refused():
+    # `KV40 (cP)`: a dynamic viscosity in mPa.s is no kinematic one (ASTM D445: kinematic = dynamic /
+    # density); read as mm²/s, 41.5 cP of a 0.87 g/mL oil (47.7 mm²/s) would be a 9 % thinning.
+    # Was: the column unused and the sample graded normal.
+    run = run_cli("grade", FOUND / "dynamic-viscosity-header.csv", "--rules", HYDRAULIC)
+    assert run.code == 2 and run.out == ""
+    assert "the header of column 'KV40 (cP)' names mPa.s (a dynamic viscosity)" in run.err
+
+
+@pytest.mark.parametrize("header", ["Water (KF)", "Water KF ppm", "Water ppb x", "Water Qualifier", "Waterppm"])
+def test_a_header_that_is_more_than_a_name_and_a_unit_is_not_read(tmp_path, header):
+    # Only a measure's name followed by a unit of its own and nothing else is read: the rest stays
+    # unused and is said to be (a column map names it).
+    path = tmp_path / "other.csv"
+    path.write_text(f"sample_id,unit_id,class,lubricant,sampled_on,{header}\n"
+                    "HY-2026-0771,HPU-1,hydraulic,HYD-46-M,2026-08-24,900\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert "water" not in got["HY-2026-0771"]["values"] and f"lab columns not used: {header}" in err
