@@ -239,3 +239,18 @@ def test_a_header_that_is_more_than_a_name_and_a_unit_is_not_read(tmp_path, head
                     "HY-2026-0771,HPU-1,hydraulic,HYD-46-M,2026-08-24,900\n", encoding="utf-8")
     got, err = _graded(path, "--rules", HYDRAULIC)
     assert "water" not in got["HY-2026-0771"]["values"] and f"lab columns not used: {header}" in err
+
+
+def test_headers_with_units_on_standard_input_and_wrapped_in_a_workbook(tmp_path):
+    # The same export piped in (the chunked reader detects the marks from its first chunk), and a
+    # workbook whose header cells wrap the unit onto a second line (`Water\n(%)`, as a spreadsheet
+    # writes a header with a line break in the cell). Was: the four columns unread, all normal.
+    text = (FOUND / "units-in-headers.csv").read_bytes().decode("utf-8-sig")
+    got, _ = _graded("-", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml", stdin=text)
+    _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
+    rows = [line.split(";") for line in text.splitlines()]
+    header = [name.replace(" (", "\n(").replace(" [", "\n[") for name in rows[0]]
+    book = [header] + [[float(c.replace(",", ".")) if k >= 5 else c for k, c in enumerate(row)] for row in rows[1:]]
+    _workbook(tmp_path / "wrapped.xlsx", book)
+    got, _ = _graded(tmp_path / "wrapped.xlsx", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml")
+    _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
