@@ -254,3 +254,30 @@ def test_headers_with_units_on_standard_input_and_wrapped_in_a_workbook(tmp_path
     _workbook(tmp_path / "wrapped.xlsx", book)
     got, _ = _graded(tmp_path / "wrapped.xlsx", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml")
     _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
+
+
+# --- 4. A wet sample's water in % beside smaller percentages, the column read in ppm -------------
+
+def test_a_water_reading_from_1_to_10_beside_percentages_is_rejected_too():
+    # Water in % under the header `Water`; the readings below 1 were rejected as percentages since the
+    # third hunt (D018), but HY-2026-0782's 1.5 (1.5 % = 15,000 ppm: urgent above 1000) was graded
+    # normal as 1.5 ppm. Karl Fischer reports from 10 mg/kg (ASTM D6304 §1.1), so 1.5 is no ppm
+    # reading either, and beside percentages it is one: rejected, D018. A row with no water reading
+    # (HY-2026-0784) is graded, without the water rule.
+    got, err = _graded(FOUND / "water-percent-wet.csv", "--rules", HYDRAULIC,
+                       "--columns", FOUND / "water-percent-wet.yaml")
+    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
+    assert "'1.5' ppm is below what a Karl Fischer titration reports" in err and "(row 1)" in err
+    assert set(got) == {"HY-2026-0784"} and _counts(err) == (4, 1, 0, 3)
+
+
+def test_a_water_reading_from_1_to_10_alone_is_graded(tmp_path):
+    # Without a reading below 1 in the column, 5 ppm is read as written (normal): the check that
+    # rejects it needs the column's other readings to say it is a percentage.
+    path = tmp_path / "dry.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
+                    "HY-2026-0791,HPU-1,hydraulic,HYD-46-M,2026-09-28,5\n"
+                    "HY-2026-0792,HPU-2,hydraulic,HYD-46-M,2026-09-28,260\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert got["HY-2026-0791"]["values"]["water"] == 5 and got["HY-2026-0791"]["grade"] == "normal"
+    assert (got["HY-2026-0792"]["grade"], _fired(got["HY-2026-0792"])) == ("watch", {"water"})
