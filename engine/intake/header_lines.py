@@ -9,9 +9,8 @@ the file's own layout comes back; the rows before it are graded as usual.
 
 A row is a header line when at least two of its cells, and at least half of those it fills,
 are names of the file's header (as column_map.header_key compares names: case, spaces, `-` and
-`_` aside). Only rows with a header name
-in a number column are looked at: such a cell is already set apart as not a number, so a file
-without one costs nothing.
+`_` aside). Only rows with a header name in a number column are looked at: such a cell is
+already set apart as not a number, so a file without one costs nothing.
 """
 
 from __future__ import annotations

@@ -289,7 +289,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                                   + first_row.astype(str)).to_numpy(dtype=object), "D003")
 
     for measure, unit_column in unit_columns.items():
-        why = _row_units(measure, raw[unit_column], columns)
+        why = _row_units(measure, raw[unit_column], columns, labs.get(measure, measure))
         reject(why != "", measure, why, "D018")
 
     decimal = columns.option("decimal", ".")
@@ -327,7 +327,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
                                   None if limit is None else limit * factor)
             if cells.bad.any():
-                _check_units_line(name, column, columns, text, cells.bad, raw.index)
+                _check_units_line(name, column, columns, labs.get(column, column), text, cells.bad, raw.index)
                 reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
                                  quoted=True)
                 formula = cells.bad & (np.strings.startswith(text.fillna("").to_numpy(dtype=str), "="))
@@ -350,9 +350,13 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if column == "water" and column not in columns.units:
             with np.errstate(invalid="ignore"):
                 tiny = (values > 0) & (values < 1) & ~bad  # a row its unit column rejects already is not asked
+                low = (values >= 1) & (values < 10) & ~bad & tiny.any()  # beside such readings, one too
             if tiny.any():
-                reject(tiny, column, _found("", raw[column], tiny, quoted=True) + _BELOW_KARL_FISCHER.format(
-                    lab=columns.columns.get(column, column)), "D018")
+                lab = labs.get(column, column)
+                reasons = _found("", raw[column], tiny | low, quoted=True) + _BELOW_KARL_FISCHER.format(lab=lab)
+                reasons[low] = _found("", raw[column], low, quoted=True)[low] + _BESIDE_PERCENTAGES.format(
+                    lab=lab, row=int(raw.index[np.argmax(tiny)]))
+                reject(tiny | low, column, reasons, "D018")
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -435,6 +439,15 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
 _BELOW_KARL_FISCHER = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg): a "
                        "percentage? the column is read in ppm; declare water: {{column: {lab!r}, unit: '%'}} in the "
                        "column map, or correct the export")
+
+
+# Why a water reading from 1 to 10 ppm is rejected in a column that holds a reading below 1 (a
+# percentage, above): 1.5 there is 1.5 % (15,000 ppm, free water) far more likely than 1.5 ppm, which
+# is below what a Karl Fischer titration reports as well; read as ppm, the wettest sample graded normal.
+_BESIDE_PERCENTAGES = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), and "
+                       "column {lab!r} holds readings below 1 ppm that read as percentages (row {row}): a "
+                       "percentage too? declare water: {{column: {lab!r}, unit: '%'}} in the column map, or "
+                       "correct the export")
 
 
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:
@@ -539,7 +552,7 @@ def _qualified(values: pd.Series, qualifier: pd.Series, decimal: str) -> pd.Seri
     return values if out is None else pd.Series(out, index=values.index, dtype=object)
 
 
-def _row_units(measure: str, units: pd.Series, columns: ColumnMap) -> np.ndarray:
+def _row_units(measure: str, units: pd.Series, columns: ColumnMap, lab: str) -> np.ndarray:
     """Why each row's unit (from its unit column) cannot be read in the column's unit; "" where it
     can, or where the row gives none. A unit not recognised is not assumed to agree."""
     codes, spellings = pd.factorize(units.to_numpy(dtype=object), use_na_sentinel=True)
@@ -551,7 +564,7 @@ def _row_units(measure: str, units: pd.Series, columns: ColumnMap) -> np.ndarray
             why.append(f"the row's unit {str(cell)!r} is not one {measure} is known in; it is read in {read_in}")
         else:
             why.append(unit_conflict(measure, named, read_in, f"the row's unit column ({units.name!r})",
-                                     columns.columns.get(measure, measure)) or "")
+                                     lab) or "")
     return np.array(why + [""], dtype=object)[codes]
 
 
@@ -593,7 +606,7 @@ def _check_header_units(name: str, columns: ColumnMap) -> None:
         raise InputError(f"{name}: " + "; ".join(w for w in why if w))
 
 
-def _check_units_line(name: str, column: str, columns: ColumnMap, text: pd.Series, bad: np.ndarray,
+def _check_units_line(name: str, column: str, columns: ColumnMap, lab: str, text: pd.Series, bad: np.ndarray,
                       rows: pd.Index) -> None:
     """A units line under the header (`%` under `water`) that names another unit than the column is
     read in refuses the file; one that agrees is rejected as the text it is. Only cells that are
@@ -605,8 +618,7 @@ def _check_units_line(name: str, column: str, columns: ColumnMap, text: pd.Serie
     for k, cell in enumerate(spellings):
         where = f"row {int(rows[at[np.argmax(codes == k)]])}, a units line under the header,"
         why = unit_conflict(column, named_unit(column, str(cell), whole=True), _read_in(column, columns),
-                            f"{where} in column {columns.columns.get(column, column)!r}",
-                            columns.columns.get(column, column))
+                            f"{where} in column {lab!r}", lab)
         if why:
             raise InputError(f"{name}: {why}")
 
