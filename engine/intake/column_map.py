@@ -39,13 +39,15 @@ _ENTRY_KEYS = {"column", "unit", "value", "map", "true", "false", "detection_lim
 
 
 _SEPARATORS = re.compile(r"[\s_-]+")
+_BEFORE_DIGITS = re.compile(r"(?<=[^\W\d_])_(?=\d)")
 
 
 def header_key(text) -> str:
     """A column name as names are compared, the one place they are normalised: casefolded, a
-    byte-order mark and surrounding spaces dropped, each run of spaces, `-` and `_` one `_`
-    (`Oil-Hours`, ` oil hours ` and `OIL_HOURS` are all `oil_hours`)."""
-    return _SEPARATORS.sub("_", str(text).replace("\ufeff", "").strip().casefold())
+    byte-order mark and surrounding spaces dropped, each run of spaces, `-` and `_` one `_`, and
+    none left between a letter and a digit (`Oil-Hours`, ` oil hours ` and `OIL_HOURS` are all
+    `oil_hours`; `KV 40` is `kv40`, `ISO 4406` `iso4406`)."""
+    return _BEFORE_DIGITS.sub("", _SEPARATORS.sub("_", str(text).replace("\ufeff", "").strip().casefold()))
 
 
 def engine_name(header, names) -> tuple[str, str | None] | None:

@@ -188,8 +188,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     matched, units, shadowed, twice = engine_columns(list(raw.columns), columns, known)
     if twice:
         raise HeaderError([Problem(name, 0, 0, f"columns {' and '.join(map(repr, spelled))} are both read as "
-                                               f"{target} (column names are compared without case, surrounding "
-                                               f"spaces, '-' or '_'): a column is read from one header only",
+                                               f"{target} (column names are compared without case, spaces, '-' "
+                                               f"or '_'): a column is read from one header only",
                                    path=json_path(("header", target)), code="D024",
                                    hint=f"rename or drop one, or name the one to read in a column map "
                                         f"({target}: {spelled[0]!r})")
@@ -197,8 +197,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     if matched:
         notes.append("read " + ", ".join(f"column {lab!r} as {target}" + (f" in {units[target]}" if target in units
                                                                            else "") for lab, target in matched.items())
-                     + " (column names are compared without case, surrounding spaces, '-' or '_', a unit after them "
-                       "read as the column's)")
+                     + " (column names are compared without case, spaces, '-' or '_'; a unit after a name is the "
+                       "column's)")
     lab_of = {target: lab for lab, target in matched.items()}
     for target, unit in units.items():  # the unit a header names is the column's: read in it, or refused
         read_in = _read_in(target, columns)

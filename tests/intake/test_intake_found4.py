@@ -152,7 +152,9 @@ def test_header_names_are_compared_in_one_place():
     from sumpwise.intake.column_map import header_key
     assert {header_key(n) for n in ("Oil-Hours", " oil hours ", "OIL_HOURS", "Oil  -  Hours", "\ufeffoil_hours")} \
         == {"oil_hours"}
-    assert header_key("kv 40") != header_key("kv40")  # inner spaces are not dropped: `KV 40` is no `kv40`
+    assert header_key("KV 40") == header_key("kv40") and header_key("ISO-4406") == header_key("iso4406")
+    assert header_key("Oil Hours") != header_key("oilhours")  # a space between words stays a separator
+    assert header_key("Water 2") != header_key("water")
 
 
 # --- 2. A lone summary line that names a unit and a date; subtotal lines without a sample id ------
@@ -281,3 +283,15 @@ def test_a_water_reading_from_1_to_10_alone_is_graded(tmp_path):
     got, err = _graded(path, "--rules", HYDRAULIC)
     assert got["HY-2026-0791"]["values"]["water"] == 5 and got["HY-2026-0791"]["grade"] == "normal"
     assert (got["HY-2026-0792"]["grade"], _fired(got["HY-2026-0792"])) == ("watch", {"water"})
+
+
+def test_a_space_between_letters_and_digits_is_no_other_column(tmp_path):
+    # `KV 40` and `ISO 4406` as the standards write them (ISO 4406:1999's own title) are kv40 and
+    # iso4406. kv40 51.0 against the new oil's 45.6 is +11.8 %: alert (outside 10 %, hydraulic.yaml).
+    # Was: both columns unread, the sample normal.
+    path = tmp_path / "spaced.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,KV 40,ISO 4406\n"
+                    "HY-2026-0801,HPU-1,hydraulic,HYD-46-M,2026-10-05,51.0,22/21/18\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert (got["HY-2026-0801"]["grade"], _fired(got["HY-2026-0801"])) == ("alert", {"visc-drift"})
+    assert got["HY-2026-0801"]["iso4406"] == "22/21/18" and "not used" not in err
