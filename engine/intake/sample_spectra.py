@@ -35,7 +35,7 @@ from sumpwise.intake.spectra.bands import load_bands
 from sumpwise.intake.spectra.batch import (SUBTRACTION, check_dilution, check_path_length, measure_spectra,
                                            read_spectrum)
 from sumpwise.intake.spectra.ester import detect_ester, resolve_base_stock
-from sumpwise.intake.spectra.spectrum import SpectrumError, sampling_problem
+from sumpwise.intake.spectra.spectrum import SpectrumError, path_problem, sampling_problem
 from sumpwise.vocabulary.units import factor_to_canonical
 
 # Band columns that are engine measures; the band file's water and fuel bands are
@@ -181,6 +181,9 @@ def _ester_evidence(refs: dict[str, Path], path_length_mm: float) -> dict:
         length = spectrum.path_length_mm or path_length_mm
         problem = ("a difference spectrum is not a new oil" if spectrum.difference else
                    sampling_problem(spectrum, length, load_bands().saturation_absorbance))
+        if problem is None and spectrum.path_length_mm is None:
+            problem = path_problem(spectrum, length, True, load_bands().saturation_absorbance,
+                                   "a path assumed: no ##PATH LENGTH= in the file")
         if problem is not None:  # it would misread every sample of that lubricant, as an unreadable one would
             raise InputError(f"new-oil reference spectrum for {code}: {path}: {problem}")
         evidence[code] = detect_ester(spectrum, length)
@@ -248,6 +251,7 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
 
     ok = np.zeros(len(rows), dtype=bool)
     why = np.full(len(rows), "", dtype=object)
+    codes = np.full(len(rows), "F001", dtype=object)
     measured = {}
     # one call per distinct fallback path length (usually one): the file's own ##PATH LENGTH= wins.
     # A row's path_length_mm is its sample's cell, not the reference's: a reference file without
@@ -257,13 +261,16 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
         pick = np.flatnonzero((fallback == length) & ~option_bad)
         if not pick.size:
             continue
-        part, _ = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
-                                  reference_path_length_mm=path_length_mm, dilutions=dilutions[pick],
-                                  needed=GRADED_BANDS, direct_bands=DIRECT_ONLY_BANDS)
+        # a row's own path_length_mm is a declaration: the C-H bend judges only a path the run assumed
+        part, rejections = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
+                                           reference_path_length_mm=path_length_mm, dilutions=dilutions[pick],
+                                           needed=GRADED_BANDS, direct_bands=DIRECT_ONLY_BANDS,
+                                           declared=~np.isnan(paths_lengths[pick]))
         part.index = pick
         measured[float(length)] = part
         ok[pick] = part["rejection"].to_numpy() == ""
         why[pick] = part["rejection"].to_numpy(dtype=object)
+        codes[pick[~ok[pick]]] = [r.code for r in rejections]  # one per rejected row, in row order
     table = pd.concat(measured.values()).sort_index() if measured else None
 
     good = np.flatnonzero(ok)
@@ -334,7 +341,7 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
         elif bad_dilution[k]:
             bad.append(Reject(int(rows[k]), sample_ids[k], "dilution", bad_dilution[k], "F001"))
         else:
-            bad.append(Reject(int(rows[k]), sample_ids[k], "spectrum", why[k] or "spectrum rejected", "F001"))
+            bad.append(Reject(int(rows[k]), sample_ids[k], "spectrum", why[k] or "spectrum rejected", codes[k]))
     keep = np.ones(len(frame), dtype=bool)
     keep[np.flatnonzero(has)[~ok]] = False
     return frame[keep], bad

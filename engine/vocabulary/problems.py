@@ -104,6 +104,7 @@ PROBLEM_CODES = {
     "D022": "particle counts that rise with particle size (cumulative counts cannot: per size range, or swapped)",
     "D023": "a sampling date before 1900 or more than a year after the day it is read (a slip in the year)",
     "F001": "a spectrum that cannot be used",
+    "F002": "a spectrum whose C-H bend says its cell path length is far from the one assumed (none declared)",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",
     "L001": "a sample id the ledger already recorded with other values",

@@ -22,10 +22,11 @@ NANOMETRES_PER_CM1 = 1.0e7  # wavelength in nm = 10 000 000 / wavenumber in cm-1
 class SpectrumError(ValueError):
     """A spectrum file that cannot be used: names the file, the line (if known) and why."""
 
-    def __init__(self, source: str, line: int | None, reason: str):
+    def __init__(self, source: str, line: int | None, reason: str, code: str = "F001"):
         self.source = source
         self.line = line
         self.reason = reason
+        self.code = code  # PROBLEM_CODES: F001 unusable, F002 path length far from the one assumed
         where = f"{source}:{line}" if line is not None else source
         super().__init__(f"{where}: {reason}")
 
@@ -341,6 +342,63 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
                 f"wrong path length or dilution (a difference spectrum keeps less than {CANCELLED:g})")
     return (f"{where}; any oil through a transmission cell reads at least {C_H_FLOOR:g} there (or reaches the "
             f"{saturation:g} saturation threshold as recorded): {kind}")
+
+
+# The C-H stretch reaches the instrument's ceiling through any cell of the oil methods, so it cannot tell a
+# 0.025 mm cell from a 0.1 mm one: a 0.025 mm spectrum read as 0.1 mm passed the check above while every band
+# read at a quarter. The CH2 bend near 1460 cm-1 does not saturate through thin cells: about 3 absorbance at
+# 0.1 mm of a hydrocarbon oil (from memory: ~45 mol/L of CH2; the synthetic oils of the tests read 2.94),
+# 0.75 through 0.025 mm, so Beer-Lambert puts the path in it. Base stocks differ in CH2 (an ester or a PAG
+# carries perhaps 0.6-0.8 of a hydrocarbon's, from memory), so the bend cannot rescale a reading to 1 %, only
+# show a path far from the one assumed: by more than 3 from the typical figure. Our choice, no source:
+# PATH_FLOOR catches a cell a third or less of the one assumed (0.025 mm read as 0.1 mm: 0.75); a bend at or
+# above the saturation threshold as recorded is a lower bound and never too thin. PATH_CEILING catches a cell
+# three times or more the one assumed (0.1 mm read as 0.025 mm: 11.8); judged on undiluted samples only, since
+# a hydrocarbon solvent brings its own bend. A cell half or twice the one assumed is not caught.
+C_H_BEND_TYPICAL = 3.0  # absorbance of a whole hydrocarbon oil's CH2 bend above the level at 0.1 mm: from memory
+PATH_FLOOR = 1.0
+PATH_CEILING = 8.0
+
+
+def bend_block(x, columns):
+    """(C-H bend's highest point above the 1900-2200 cm-1 level as recorded, that point's own absorbance) per
+    column of a wavenumber-major block, or (None, None) when the grid does not reach both windows."""
+    level = _slab(x, columns, C_H_BASELINE, np.mean, np.nanmean)
+    top = _slab(x, columns, C_H_BEND, np.max, np.nanmax)
+    if level is None or top is None:
+        return None, None
+    return top - level, top
+
+
+def plausible_path(x, columns, neat_path_mm, undiluted, saturation: float = 1.5) -> np.ndarray:
+    """bool per column of a whole-oil block: whether path_problem finds nothing (one rule, whole-block reductions)."""
+    recorded, top = bend_block(x, columns)
+    if recorded is None:
+        return np.ones(columns.shape[1], dtype=bool)
+    at_01mm = recorded * REFERENCE_MM / np.asarray(neat_path_mm, dtype=float)
+    with np.errstate(invalid="ignore"):
+        thin = (top < saturation) & (at_01mm < PATH_FLOOR)
+        thick = np.asarray(undiluted, dtype=bool) & (at_01mm > PATH_CEILING)
+    return ~(thin | thick)
+
+
+def path_problem(spectrum: Spectrum, neat_path_mm: float, undiluted: bool, saturation: float = 1.5,
+                 basis: str = "a path assumed") -> str | None:
+    """Why the path length a whole-oil spectrum is read at cannot be its cell's, or None (see PATH_FLOOR)."""
+    recorded, top = bend_block(spectrum.wavenumber, spectrum.absorbance[:, None])
+    if recorded is None or plausible_path(spectrum.wavenumber, spectrum.absorbance[:, None], [neat_path_mm],
+                                          [undiluted], saturation)[0]:
+        return None
+    at_01mm = float(recorded[0]) * REFERENCE_MM / neat_path_mm
+    estimate = neat_path_mm * at_01mm / C_H_BEND_TYPICAL
+    side = "thinner" if at_01mm < PATH_FLOOR else "thicker"
+    scale = "a third or less of" if side == "thinner" else "several times"
+    return (f"its C-H bend ({_span('C-H bend')} cm-1) stands {float(recorded[0]):.3f} above the "
+            f"{C_H_BASELINE[0]:g}-{C_H_BASELINE[1]:g} cm-1 level as recorded, {at_01mm:.3f} at 0.1 mm of neat oil "
+            f"when read through {neat_path_mm:g} mm ({basis}); a whole oil reads about {C_H_BEND_TYPICAL:g} there at 0.1 mm, "
+            f"so the cell looks {side} (about {estimate:.2g} mm of neat oil) and every band would read at "
+            f"{scale} its value; declare the path length (##PATH LENGTH= in the file, a path_length_mm column, "
+            f"or the path-length option) and the dilution")
 
 
 def _span(band):
