@@ -147,7 +147,7 @@ def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, refere
 
 def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: BandSet | None = None,
                     reference_path_length_mm: float | None = None, block_size: int = DEFAULT_BLOCK,
-                    dilutions=None, needed=None, direct_bands=(), declared=None):
+                    dilutions=None, needed=None, direct_bands=(), declared=None, peaks=()):
     """Read and measure spectra; exactly one row per path, in order, plus the list of rejections.
 
     references: None for all direct; a sequence aligned with `paths` (a reference
@@ -158,6 +158,8 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     bool per path, True where the caller's path_length_mm is that sample's own declaration (a
     row's path_length_mm) rather than a run-wide assumption; a path neither the file nor the caller
     declares is checked against the C-H bend (spectrum.path_problem), a declared one is trusted.
+    peaks: height bands whose peak wavenumber the caller needs, as `<band>_peak_cm1` columns (NaN
+    where the band is not measured).
     needed: the band names the caller needs (default: all); a spectrum none of
     whose needed bands can be measured is rejected. direct_bands: bands read on
     the used spectrum itself even when it has a reference (in the row's abs/cm),
@@ -269,8 +271,8 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             reference = np.interp(x, ref.wavenumber, ref.absorbance, left=np.nan, right=np.nan)[:, None]
             # NaN here is outside the reference's range (its own message below), not saturation
             ref_saturated = saturated_bands(plan, np.nan_to_num(reference, nan=0.0), bands.saturation_absorbance)
-        values, _, uncovered = _measure_columns_matrix(
-            x, columns, bands, neat, reference, ref_path_mm, block_size, plan)
+        values, positions, uncovered = _measure_columns_matrix(
+            x, columns, bands, neat, reference, ref_path_mm, block_size, plan, with_positions=bool(peaks))
         if difference:  # already used minus new: abs/cm as a subtraction reads it (ASTM D7412 12.1-12.2)
             values = {name: value * ABS_PER_CM_PER_ABS_PER_01MM for name, value in values.items()}
         if direct:
@@ -313,14 +315,17 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
                 rejections[i] = Rejection(str(paths[i]), line, "none of the needed bands could be measured; " + first
                                           + _unit_hint(spectra[i]))
                 continue
-            rows[i] = row | {"method": method, "unit": UNITS[method]}
+            rows[i] = row | {"method": method, "unit": UNITS[method]} | {
+                f"{name}_peak_cm1": float(positions[name][k]) if math.isfinite(row[name]) else math.nan
+                for name in peaks}
             notes[i] = "; ".join(why)
 
     records = []
     for i, path in enumerate(paths):
         ref_path = None if i in spectra and spectra[i].difference else refs[i]
         record = {"spectrum": str(path)}
-        record |= rows.get(i, {name: np.nan for name in bands.names} | {"method": DIRECT if ref_path is None else SUBTRACTION})
+        record |= rows.get(i, {name: np.nan for name in bands.names} | {f"{name}_peak_cm1": np.nan for name in peaks}
+                           | {"method": DIRECT if ref_path is None else SUBTRACTION})
         record["unit"] = UNITS[record["method"]] if i in rows else ""
         record["area_unit"] = AREA_UNITS[record["method"]] if i in rows else ""
         record["path_length_mm"] = used_path.get(i, path_length_mm)
@@ -329,8 +334,8 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
         record["notes"] = notes.get(i, "")
         record["rejection"] = rejections[i].message if i in rejections else ""
         records.append(record)
-    columns = ["spectrum", *bands.names, "method", "unit", "area_unit", "path_length_mm", "dilution", "reference",
-               "notes", "rejection"]
+    columns = ["spectrum", *bands.names, *(f"{name}_peak_cm1" for name in peaks), "method", "unit", "area_unit",
+               "path_length_mm", "dilution", "reference", "notes", "rejection"]
     frame = pd.DataFrame.from_records(records, columns=columns)
     return frame, [rejections[i] for i in sorted(rejections)]
 
