@@ -354,7 +354,10 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
 # PATH_FLOOR catches a cell a third or less of the one assumed (0.025 mm read as 0.1 mm: 0.75); a bend at or
 # above the saturation threshold as recorded is a lower bound and never too thin. PATH_CEILING catches a cell
 # three times or more the one assumed (0.1 mm read as 0.025 mm: 11.8); judged on undiluted samples only, since
-# a hydrocarbon solvent brings its own bend. A cell half or twice the one assumed is not caught.
+# a hydrocarbon solvent brings its own bend; a bend weaker than the hydrocarbon's, or one pressed under the
+# stray-light ceiling in a thick cell, may stay under it. A cell half or twice the one assumed is not caught.
+# Only a path nobody declared is judged (batch.measure_spectra): a declared one is trusted, which is the way
+# through for a fluid whose bend is intrinsically weak.
 C_H_BEND_TYPICAL = 3.0  # absorbance of a whole hydrocarbon oil's CH2 bend above the level at 0.1 mm: from memory
 PATH_FLOOR = 1.0
 PATH_CEILING = 8.0
