@@ -18,6 +18,7 @@ refused and left untouched.
 from __future__ import annotations
 
 import contextlib
+import difflib
 import functools
 import itertools
 import json
@@ -43,8 +44,9 @@ from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DI
                                     written_digest_3)
 from sumpwise.results.facts import batch_facts, record_names
 from sumpwise.results.pipeline import grade_batch
-from sumpwise.results.records import GradedBatch
+from sumpwise.results.records import UNRATED, GradedBatch
 from sumpwise.ruleset.model import RuleSet
+from sumpwise.ruleset.resolve import DEFAULT_GRADES
 from sumpwise.version import engine_name
 from sumpwise.vocabulary.problems import InputError
 
@@ -697,7 +699,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     regraded = _regraded_later(frame, inputs, history, ruleset)
     fresh = ~known
     n_conflicts = int(conflicts.sum())
-    if not fresh.any() and not n_conflicts:
+    if not fresh.any() and not n_conflicts and not _unrecorded_rejects(conn, batch.rejects):
         return graded, Recorded(None, 0, int(known.sum()), 0)
 
     conn.execute("INSERT OR IGNORE INTO rulesets VALUES (?, ?, ?, ?)",
@@ -765,6 +767,15 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
         conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (digest.result(), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects),
                             regraded)
+
+
+def _unrecorded_rejects(conn: sqlite3.Connection, rejects) -> bool:
+    """Whether a refused row is not in the ledger's rejects yet: a file whose every row is refused is
+    recorded (the auditor sees the import and why), the same file again adds nothing."""
+    if not rejects:
+        return False
+    recorded = set(conn.execute("SELECT row, sample_id, field, code, reason FROM rejects"))
+    return any((r.row, r.sample_id, r.field, r.code, r.reason) not in recorded for r in rejects)
 
 
 def _regraded_later(new: pd.DataFrame, inputs: pd.DataFrame | None, history: pd.DataFrame,
@@ -975,6 +986,9 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     `grade_at_least` is a level; `grades` names grades exactly; `ruleset` a fingerprint prefix;
     `version` the rule-set version as written. Dates compare as ISO text.
     """
+    refused = _unknown_filter(conn, rule, grades, grade_at_least, ruleset, version)
+    if refused:
+        raise LedgerError(refused)
     where, params = [] if everything else ["s.superseded_in IS NULL"], []
     if rule is not None:
         where.append(f"{_SHAPE} IN (SELECT shape FROM shape_rules WHERE rule = ?)")
@@ -1005,6 +1019,44 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     if version is not None:
         frame = frame[frame["version"] == version].reset_index(drop=True)
     return frame
+
+
+def _unknown_filter(conn: sqlite3.Connection, rule, grades, grade_at_least, ruleset, version) -> str | None:
+    """Why a filter can match nothing in this ledger, whatever it holds: a rule id, grade, ladder level,
+    fingerprint or version that no stored rule set has (a typo, `Alert` for `alert`). An auditor told "0 samples" would
+    take it for "none flagged". None when every filter names something stored, or nothing is stored yet."""
+    stored = conn.execute("SELECT sha256, version, canonical FROM rulesets").fetchall()
+    if not stored:
+        return None
+    known = {"rule": {}, "grade": {}, "version": {}}  # dicts: ladder and recording order kept
+    top = None  # the highest ladder level of any stored rule set
+    for _, stored_version, canonical in stored:
+        known["version"][_version_text(stored_version)] = None
+        try:
+            text = json.loads(canonical)
+        except ValueError:  # a damaged rule set: replay reports it; its names are not known here
+            continue
+        ladder = text.get("grades", DEFAULT_GRADES)
+        known["grade"].update(dict.fromkeys(ladder))
+        top = max(top or 0, len(ladder) - 1)
+        for rules in [text.get("rules", [])] + [c.get("rules", []) for c in text.get("classes", {}).values()]:
+            known["rule"].update((r["id"], None) for r in rules if isinstance(r, dict) and "id" in r)
+    known["grade"][UNRATED] = None
+    known["rule"] = dict.fromkeys(sorted(known["rule"]))
+    asked = [("rule", rule)] + [("grade", g) for g in grades or ()] + [("version", version)]
+    for kind, value in asked:
+        if value is not None and value not in known[kind]:
+            close = difflib.get_close_matches(value, list(known[kind]), n=1)
+            hint = f" (did you mean '{close[0]}'?)" if close else ""
+            return (f"no rule set recorded in this ledger has the {kind} '{value}'{hint}, so it can match no "
+                    f"sample; the recorded {kind}s: {', '.join(known[kind])}")
+    if grade_at_least is not None and top is not None and not 0 <= grade_at_least <= top:
+        return (f"--at-least {grade_at_least}: the recorded ladders run from level 0 ({next(iter(known['grade']))}) "
+                f"to level {top}, so it can match no sample")
+    if ruleset is not None and not any(sha.startswith(ruleset.lower()) for sha, _, _ in stored):
+        return (f"no rule set recorded in this ledger has a fingerprint starting '{ruleset}'; `sumpwise rulesets "
+                f"--db PATH` lists them")
+    return None
 
 
 def batch_rejects(conn: sqlite3.Connection) -> pd.DataFrame:

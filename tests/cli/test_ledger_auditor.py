@@ -17,6 +17,7 @@ import shutil
 import pytest
 
 from sumpwise.ledger.audit import stored_results, stored_ruleset
+from sumpwise.ledger.store import open_ledger
 from tests.conftest import DATA, ROOT, run_cli
 
 V2 = "ddde04dac6492f6184827892cc540880541903b1e2a2795f0af5eef2057e9a2a"
@@ -146,3 +147,44 @@ def test_results_of_several_rule_sets_each_come_with_their_own(db):
             rule = next(r for r in ruleset.rules_for(result.class_name) if r.id == reason.rule)
             assert (reason.message, reason.source) == (rule.message, rule.source)
         assert result.notice == ruleset.notice
+
+
+@pytest.mark.parametrize("options, named", [
+    (("--grade", "Alert"), "the grade 'Alert' (did you mean 'alert'?)"),
+    (("--grade", "watch", "--grade", "critical"), "the grade 'critical'"),
+    (("--rule", "watr"), "the rule 'watr' (did you mean 'water'?)"),
+    (("--version", "9"), "the version '9'"),
+    (("--at-least", "4"), "--at-least 4: the recorded ladders run from level 0 (normal) to level 3"),
+    (("--ruleset", "ffff0000"), "a fingerprint starting 'ffff0000'"),
+])
+def test_find_refuses_a_filter_no_recorded_rule_set_can_match(db, options, named):
+    """A typo in a filter is an error naming what the ledger holds, not "0 sample(s)": an auditor
+    would read that as "nothing flagged". The ladder and rule ids are the ledger's own
+    (tests/data/ledger/brackwater-v1.db: the default ladder, a rule `water`)."""
+    run = run_cli("find", "--db", db, *options)
+    assert run.code == 2 and named in run.err and run.out == ""
+    assert run_cli("find", "--db", db, "--grade", "alert", "--rule", "water", "--version", "3").code == 0
+
+
+def test_find_on_a_ledger_with_no_rule_set_yet_lists_nothing_without_refusing(tmp_path):
+    db = tmp_path / "new.db"
+    open_ledger(db).close()  # a new, empty ledger: nothing to check a filter against
+    found = run_cli("find", "--db", db, "--rule", "any-rule-id")
+    assert found.code == 0 and found.out.endswith("0 sample(s)\n"), found.err
+
+
+def test_a_file_whose_every_row_is_rejected_is_recorded_with_its_rejects(tmp_path):
+    """A nightly export in a changed layout can be refused row by row; the auditor must still find
+    that import, its rows and why (issue 13: rejected rows are recorded with reason and origin)."""
+    samples = tmp_path / "all-rejected.csv"
+    samples.write_text("sample_id,unit_id,class,lubricant,sampled_on,oil_hours,kv40\n"
+                       "BP-1,ST-1,steam-turbine,TURB-46-M,2026-01-05,100,abc\n")
+    db = tmp_path / "ledger.db"
+    assert run_cli("grade", samples, "--rules", ROOT / "rules" / "steam-turbine.yaml", "--db", db).code == 0
+    found = [json.loads(line) for line in run_cli("find", "--db", db, "--rejects", "--format", "jsonl").out.splitlines()]
+    assert [(r["source"], r["row"], r["sample_id"], r["field"], r["code"]) for r in found] == [
+        (str(samples), 1, "BP-1", "kv40", "D004")]
+    assert run_cli("replay", "--db", db).code == 0
+    again = run_cli("grade", samples, "--rules", ROOT / "rules" / "steam-turbine.yaml", "--db", db)
+    assert again.code == 0 and "nothing new" in again.err  # the same refusals are not recorded twice
+    assert run_cli("find", "--db", db, "--rejects").out.endswith("1 rejected row(s)\n")
