@@ -25,7 +25,7 @@ import pandas as pd
 
 from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_columns, plan_bands, saturated_bands
 from sumpwise.intake.spectra.jcampdx import read_jcampdx, read_jcampdx_many
-from sumpwise.intake.spectra.spectrum import (Spectrum, SpectrumError, path_problem, plausible_path,
+from sumpwise.intake.spectra.spectrum import (MAX_PATH_MM, Spectrum, SpectrumError, path_problem, plausible_path,
                                               plausible_sampling, sampling_problem)
 from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
 
@@ -59,8 +59,8 @@ def check_path_length(value, what: str = "path length") -> float:
         number = float(value)
     except (TypeError, ValueError):
         raise ValueError(f"{what}: expected a number of mm, got {value!r}") from None
-    if not (math.isfinite(number) and 0 < number <= 10):
-        raise ValueError(f"{what}: expected a finite number of mm above 0 and at most 10, got {value!r}")
+    if not (math.isfinite(number) and 0 < number <= MAX_PATH_MM):
+        raise ValueError(f"{what}: expected a finite number of mm above 0 and at most {MAX_PATH_MM:g}, got {value!r}")
     return number
 
 

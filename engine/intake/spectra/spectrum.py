@@ -177,6 +177,12 @@ def y_unit_kind(source, text, line=None):
                                       "(fraction or percent) are read")
 
 
+# The longest path read as an oil's (the path-length options' bound too): whole oils are read through cells of
+# 0.025-0.1 mm (ASTM D7214, confirmed); gas cells are centimetres long (public infrared files of gases say 5-18 CM).
+# A gas spectrum's C-H stretch reaches the saturation threshold as recorded, which the C-H check takes for a
+# whole oil through any cell: read per 0.1 mm at its 5 cm, every band was 500 times too small. Our choice.
+MAX_PATH_MM = 10.0
+
 _PATH_UNITS_MM = {"MM": 1.0, "CM": 10.0, "UM": 1.0e-3, "MICROMETERS": 1.0e-3, "MICROMETRES": 1.0e-3,
                   "MICRONS": 1.0e-3, "MILLIMETERS": 1.0, "MILLIMETRES": 1.0, "CENTIMETERS": 10.0,
                   "CENTIMETRES": 10.0}
@@ -207,7 +213,13 @@ def parse_path_length(source, line, text):
     if not (math.isfinite(value) and value > 0) or unit not in _PATH_UNITS_MM:
         raise SpectrumError(source, line, f"##PATH LENGTH={text!r}: expected a positive number and its unit "
                                           "(MM, CM or UM), e.g. 0.1 MM")
-    return value * _PATH_UNITS_MM[unit]
+    mm = value * _PATH_UNITS_MM[unit]
+    if mm > MAX_PATH_MM:
+        raise SpectrumError(source, line, (
+            f"##PATH LENGTH={text!r} is {mm:g} mm: an oil is read through a cell of 0.025-0.1 mm (ASTM D7214), and a "
+            f"path above {MAX_PATH_MM:g} mm is a gas cell's, so this is not an oil spectrum (per 0.1 mm every band "
+            f"would read {mm / REFERENCE_MM:g} times too small)"))
+    return mm
 
 
 # What tells a transmission spectrum of a whole oil from a difference spectrum or an ATR one.
