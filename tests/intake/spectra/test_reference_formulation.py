@@ -77,3 +77,30 @@ def test_a_large_gain_over_a_small_additive_residue_is_still_graded(oils):
     record = _grade(oils, {"U": "used-urgent.jdx"}, "new-plain.jdx")["U"]
     assert record["values"]["oxidation_differential"] == pytest.approx(30.6, abs=0.4)
     assert record["grade"] == "urgent"
+
+
+@pytest.mark.parametrize("real_mm", [0.024, 0.0225])
+def test_an_ester_oils_reference_through_a_thinner_cell_than_declared_is_a_mismatch(tmp_path, real_mm):
+    # a polyol ester oil in a 0.025 mm cell (##PATH LENGTH= 0.025 MM) that gained 0.065 of carbonyl at 0.1 mm
+    # (6.5 abs/cm, normal); its new oil recorded through a cell 4 % or 10 % thinner, labelled 0.025 MM too.
+    # The ester's own carbonyl (2.0 at 0.1 mm) is left 4-10 % in the difference, at the ester's 1740 cm-1
+    X25 = X[::-1]
+    write_jcampdx(tmp_path / "used.jdx", X25, oil_spectrum(X, "ester", oxidation=0.065, noise=2e-4, seed=71,
+                                                           path_mm=0.025)[::-1], form="DIFDUP", path_length="0.025 MM")
+    write_jcampdx(tmp_path / "new.jdx", X25, oil_spectrum(X, "ester", noise=2e-4, seed=72, path_mm=real_mm)[::-1],
+                  form="DIFDUP", path_length="0.025 MM")
+    rows = [HEADER + ",base_stock", "E,C7,screw-compressor,COMP-46-M,2026-11-02,3000,0.15,used.jdx,polyol-ester"]
+    (tmp_path / "samples.csv").write_text("\n".join(rows) + "\n")
+    run = run_cli("grade", tmp_path / "samples.csv", "--rules", SCREW, "--reference", f"COMP-46-M={tmp_path / 'new.jdx'}")
+    assert run.code == 0, run.err
+    (record,) = map(json.loads, run.out.splitlines())
+    # before: read as gained, 9.1 abs/cm (watch) at 0.024 mm, 21.0 (alert) at 0.0225, for 6.5 gained
+    assert record["values"]["oxidation_differential"] is None
+    note = {c["caveat"]: c["message"] for c in record["caveats"]}["reference-mismatch"]
+    assert "within the ester carbonyl band" in note and "thinner cell" in note
+    # and the reference recorded through the declared cell reads the gain
+    write_jcampdx(tmp_path / "new.jdx", X25, oil_spectrum(X, "ester", noise=2e-4, seed=72, path_mm=0.025)[::-1],
+                  form="DIFDUP", path_length="0.025 MM")
+    run = run_cli("grade", tmp_path / "samples.csv", "--rules", SCREW, "--reference", f"COMP-46-M={tmp_path / 'new.jdx'}")
+    (record,) = map(json.loads, run.out.splitlines())
+    assert record["values"]["oxidation_differential"] == pytest.approx(6.5, abs=0.3)
