@@ -76,6 +76,14 @@ def absorbance_from_transmittance(transmittance, percent: bool):
         return np.where(t > 0, -np.log10(np.where(t > 0, t, 1.0)), np.nan)
 
 
+# A percent transmittance spectrum can pass 100 % where the background absorbed more than the sample (a few
+# percent: common practice, no source), never over most of its points. A median above 120 is not a
+# transmittance: a single-beam intensity spectrum labelled TRANSMITTANCE (a public JCAMP-DX reader's example
+# header reads ##YUNITS=TRANSMITTANCE with ##MAXY=3.75e+006) read as percent put an oil's carbonyl on the
+# source's curve: 0.085 gained read -0.6 abs/cm, normal. Our choice, no source.
+MAX_PERCENT_MEDIAN = 120.0
+
+
 def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), evenly_spaced=False,
                   path_length_mm=None, difference=False, resolution_cm1=None):
     """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity.
@@ -97,7 +105,14 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
         # A fraction spectrum can reach past 1.5 at a few points (a public test file peaks at 1.505),
         # and read as percent every absorbance gains 2 and every band reads as saturated; a percent
         # spectrum with a median of 1.5 % or less passes almost no light anywhere. Common practice, no source.
-        percent = percent_label or (finite.size > 0 and float(np.median(finite)) > 1.5)
+        median = float(np.median(finite)) if finite.size else math.nan
+        percent = percent_label or (finite.size > 0 and median > 1.5)
+        if median > MAX_PERCENT_MEDIAN:
+            raise SpectrumError(source, range_line, (
+                f"y values labelled {y_units!r} have a median of {median:.4g}: a transmittance is the light through "
+                f"the sample over the light through the background, at most 1 (or 100 %) almost everywhere, so "
+                "these are a single-beam or raw intensity spectrum, whose bands sit on the instrument's own "
+                "curve; export the sample's transmittance or absorbance spectrum (ratioed against its background)"))
         if percent and not percent_label:
             notes.append("transmittance read as percent (median above 1.5)")
         notes.append("absorbance = -log10(transmittance)")
