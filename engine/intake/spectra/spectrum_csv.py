@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
+from sumpwise.intake.spectra.jcampdx import check_sampling_labels
 from sumpwise.intake.spectra.spectrum import (Spectrum, SpectrumError, declares_difference, make_spectrum,
                                               parse_path_length, y_unit_kind)
 
@@ -46,7 +47,8 @@ def read_spectrum_csv(path: Path | str) -> Spectrum:
 
 _XYDATA_LINE = re.compile(r"^XYDATA\b[\s,;]*$", re.I)
 _SEPARATOR = re.compile(r"\s*[,;\t]\s*")  # a labelled block's rows: comma, semicolon or tab
-_USED_LABELS = ("DATATYPE", "XUNITS", "YUNITS", "PATHLENGTH", "NPOINTS")
+_USED_LABELS = ("DATATYPE", "XUNITS", "YUNITS", "PATHLENGTH", "NPOINTS", "TITLE", "STATE", "SAMPLINGPROCEDURE",
+                "DATAPROCESSING")
 _NOT_UTF8 = re.compile("[\udc80-\udcff]")
 
 
@@ -91,6 +93,7 @@ def _parse_labelled(lines, start, source):
     if not labels.get("YUNITS"):
         raise SpectrumError(source, start + 1, "a labelled block without YUNITS: the scale of the values is unknown")
     y_unit_kind(source, labels["YUNITS"], where["YUNITS"])
+    check_sampling_labels(source, labels, where.get, mark="")  # ATR, reflectance or a gas, as in JCAMP-DX
     xs, ys = [], []
     for number, raw in enumerate(lines[start + 1 :], start=start + 2):
         line = raw.strip()
@@ -112,7 +115,8 @@ def _parse_labelled(lines, start, source):
     path_length = (parse_path_length(source, where["PATHLENGTH"], labels["PATHLENGTH"])
                    if labels.get("PATHLENGTH") else None)
     return make_spectrum(source, np.array(xs), np.array(ys), labels.get("XUNITS") or "1/CM", labels["YUNITS"],
-                         start + 2, path_length_mm=path_length)
+                         start + 2, path_length_mm=path_length,
+                         difference=declares_difference(labels.get("DATAPROCESSING", "")))
 
 
 def _check_text(raw, source, number):

@@ -77,3 +77,23 @@ def test_a_byte_that_is_not_utf8_on_a_row_that_is_read_is_refused_with_its_line(
     with pytest.raises(SpectrumError) as caught:
         read_spectrum_csv(path)
     assert caught.value.line == 8 and "not UTF-8" in caught.value.reason
+
+
+@pytest.mark.parametrize("extra, line, words", [
+    ("SAMPLING PROCEDURE,ATR (diamond)", 14, "names ATR"),
+    ("DATA PROCESSING,ATR correction", 14, "names ATR"),
+    ("STATE,GAS", 14, "names GAS"),
+])
+def test_a_labelled_export_that_names_atr_or_a_gas_is_refused_as_jcamp_dx_is(tmp_path, extra, line, words):
+    # the labels JCAMP-DX files are refused by (an ATR spectrum per 0.1 mm reads tens of times too small)
+    path = _export(tmp_path / "atr.csv", X[::-1], oil_spectrum(X)[::-1], extra=extra)
+    with pytest.raises(SpectrumError) as caught:
+        read_spectrum_csv(path)
+    assert caught.value.line == line and words in caught.value.reason
+
+
+def test_a_labelled_export_that_declares_a_difference_is_read_as_one(tmp_path):
+    difference = oil_spectrum(X, oxidation=0.085) - oil_spectrum(X)
+    spectrum = read_spectrum_csv(_export(tmp_path / "d.csv", X[::-1], difference[::-1],
+                                         extra="DATA PROCESSING,SPECTRAL SUBTRACTION OF THE NEW OIL"))
+    assert spectrum.difference
