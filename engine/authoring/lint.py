@@ -13,6 +13,7 @@ and what a measure can take come from the vocabulary's limit-test and measure ta
 
 from __future__ import annotations
 
+import difflib
 import re
 from dataclasses import dataclass
 
@@ -145,7 +146,7 @@ def lint_ruleset(ruleset: RuleSet, partial: bool = False) -> tuple[Problem, ...]
     """
     found: dict = {}
     checks = [_shadowed, _impossible, _ladders, _units, _raw_viscosity, _viscosity_grades, _vague_sources,
-              _ester_caps]
+              _ester_caps, _unknown_names]
     if not partial:
         checks += [_unreached_grades, _coverage]
     for check in checks:
@@ -456,6 +457,33 @@ def _ester_caps(ruleset: RuleSet):
                                f"rule '{rule.id}' reads {', '.join(uncovered)}, built on FTIR oxidation, which the "
                                f"ester cap of caveat '{caveat.id}' does not cover",
                                f"add {', '.join(uncovered)} to the cap's measures of caveat '{caveat.id}'")
+
+
+def _unknown_names(ruleset: RuleSet):
+    """A `class` or `lubricant` condition naming what the rule set lacks (a typo, `hydraulics`): a
+    sample of a class the rule set lacks is unrated, so such a test never holds on a graded one;
+    a lubricant code outside the table only on rows that bring their own new-oil values."""
+    known = {"class": set(ruleset.classes), "lubricant": set(ruleset.lubricants)}
+    owners = [(rule, rule.when) for rule in _all_rules(ruleset) if isinstance(rule, ConditionRule)]
+    owners += [(caveat, caveat.when) for caveat in ruleset.caveats]
+    owners += [(caveat, caveat.cap.unless) for caveat in ruleset.caveats if caveat.cap and caveat.cap.unless]
+    for owner, condition in owners:
+        for leaf in leaves(condition) if condition is not None else ():
+            if not isinstance(leaf, FieldTest) or leaf.field not in known:
+                continue
+            folded = {name.casefold(): name for name in known[leaf.field]}  # field tests ignore case
+            for value in leaf.values:
+                if value.strip().casefold() in folded:
+                    continue
+                close = difflib.get_close_matches(value, sorted(known[leaf.field]), n=1)
+                kind = "rule" if isinstance(owner, ConditionRule) else "caveat"
+                yield _warning("W018", owner.origin,
+                               f"{kind} '{owner.id}' tests {leaf.field} '{value}', which the rule set does not have "
+                               f"(its {'classes' if leaf.field == 'class' else 'lubricant codes'}: "
+                               f"{', '.join(sorted(known[leaf.field]))})",
+                               f"did you mean '{close[0]}'?" if close else
+                               f"add '{value}' under `{'classes' if leaf.field == 'class' else 'lubricants'}:`, or "
+                               f"correct the name")
 
 
 def _about_esters(condition) -> bool:

@@ -201,6 +201,8 @@ def run_rulesets(args, stdout, stderr) -> int:
 
 
 def run_find(args, stdout, stderr) -> int:
+    if args.since and args.until and args.since > args.until:
+        raise InputError(f"find: --since {args.since} is after --until {args.until}: no date is both")
     if args.rejects:
         found = recorded_rejects(args.db)
     else:

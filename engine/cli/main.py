@@ -36,6 +36,7 @@ from sumpwise.results.records import UNRATED
 from sumpwise.cli import spectra as spectra_command
 from sumpwise.intake.sample_spectra import measure_sample_spectra, parse_references, reference_files
 from sumpwise.cli import ledger as ledger_cli
+from sumpwise.ledger.store import LedgerError
 from sumpwise.cli import report as report_command
 from sumpwise.cli.exit_codes import FINDINGS, INTERNAL, OK, USAGE
 from sumpwise.cli.record_output import RecordOutput, default_jobs
@@ -305,9 +306,10 @@ def _summary(graded) -> str:
     return _summary_line(graded.source, graded.counts(), Counter(graded.grades()), graded.ruleset.grades)
 
 
-def _summary_line(source: str, counts: dict, by_grade: Counter, grades: tuple) -> str:
+def _summary_line(source: str, counts: dict, by_grade: Counter, grades: tuple, stopped: bool = False) -> str:
     ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(grades) + ["unrated"])
-    return (f"sumpwise: {source}: read {counts['read']} row(s): {counts['graded']} graded, "
+    read = "stopped by the error above; before it, read" if stopped else "read"
+    return (f"sumpwise: {source}: {read} {counts['read']} row(s): {counts['graded']} graded, "
             f"{counts['unrated']} unrated, {counts['rejected']} rejected ({ladder})\n")
 
 
@@ -344,26 +346,33 @@ def _grade(args, stdin, stdout, stderr) -> int:
                                                    args.record, stderr, args.jobs))
         first = True
         for source in sources:
-            tally = _Tally(ruleset)
-            for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
-                                                                               columns, stderr):
-                conflicts += refused
-                tally.warnings.extend(warned)
-                found_grade |= any(level >= fail for level in regraded for fail in fail_levels)
-                for note in notes:
-                    stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
-                records.write(graded, header=first)
-                _put_rejects(graded, rejects, args.rejects, header=first)
-                first = False
-                tally.add(graded, notes)
-                if repeated is not None and "sample_id" in graded.measured:
-                    repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
-                levels = graded.outcome.level
-                found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
-                found_unrated |= bool((levels < 0).any())
-                graded = levels = None  # before the next chunk is graded
+            tally = _Tally(ruleset, "<stdin>" if source == "-" else str(source))
+            try:
+                for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
+                                                                                   columns, stderr):
+                    conflicts += refused
+                    tally.warnings.extend(warned)
+                    found_grade |= any(level >= fail for level in regraded for fail in fail_levels)
+                    for note in notes:
+                        stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
+                    records.write(graded, header=first)
+                    _put_rejects(graded, rejects, args.rejects, header=first)
+                    first = False
+                    tally.add(graded, notes)
+                    if repeated is not None and "sample_id" in graded.measured:
+                        repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
+                    levels = graded.outcome.level
+                    found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
+                    found_unrated |= bool((levels < 0).any())
+                    graded = levels = None  # before the next chunk is graded
+            except LedgerError:
+                raise  # the ledger or the rule set refused: every file would meet it
+            except InputError as exc:  # this file cannot be read (on): the next files are graded all the same
+                records.settle()  # what it gave before is written, as it was
+                stderr.write(_safe_lines(f"sumpwise: {exc}"))
+                tally.error = str(exc)
             records.settle()  # the file's records are all out before its summary line
-            stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades))
+            stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, tally.error is not None))
             files.append(tally.summary())
             files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
@@ -384,6 +393,11 @@ def _grade(args, stdin, stdout, stderr) -> int:
                                    f"{sum(f['caveats'].get(caveat, 0) for f in files)} sample(s) carry it") + "\n")
     if fail_levels and found_grade or fail_unrated and found_unrated or conflicts or caveated:
         code = FINDINGS
+    failed = [f["file"] for f in files if f["error"] is not None]
+    if failed:
+        stderr.write(terminal_text(f"sumpwise: {len(failed)} of {len(files)} file(s) could not be read to the end: "
+                                   f"{', '.join(failed)}") + "\n")
+        code = USAGE
     if args.max_rejects is not None and total["rejected"] > args.max_rejects:
         stderr.write(f"sumpwise: {total['rejected']} row(s) rejected, more than --max-rejects {args.max_rejects}\n")
         code = USAGE
@@ -439,7 +453,7 @@ def _graded_batches(args, stdin, source, ruleset, columns, stderr):
         yield graded, batch.notes, conflicts, (warnings, regraded)
         return
     if getattr(args, "correction", False):
-        raise InputError("--correction needs --db PATH: corrections are recorded in a ledger")
+        raise UsageError("sumpwise grade: --correction needs --db PATH: corrections are recorded in a ledger")
     if source == "-":
         chunks = sample_chunks(stdin, "<stdin>", columns, args.input_format or "csv", ruleset.measures, args.chunk_rows)
     else:
@@ -481,9 +495,10 @@ class _Tally:
     """One file's counts, grades and caveats over its chunks, for its summary line, --summary and
     the exit code."""
 
-    def __init__(self, ruleset):
-        self.ruleset, self.source, self.notes, self.warnings = ruleset, "", [], []
+    def __init__(self, ruleset, source: str):
+        self.ruleset, self.source, self.notes, self.warnings = ruleset, source, [], []
         self.counts, self.grades, self.caveats = Counter(), Counter(), Counter()
+        self.error: str | None = None  # why the file could not be read to the end
 
     def add(self, graded, notes) -> None:
         self.source = graded.source
@@ -500,7 +515,7 @@ class _Tally:
         return {"file": self.source, **counts,
                 "grades": {g: self.grades.get(g, 0) for g in list(self.ruleset.grades) + [UNRATED]},
                 "caveats": dict(sorted(self.caveats.items())), "notes": list(self.notes),
-                "ledger_warnings": list(self.warnings)}
+                "error": self.error, "ledger_warnings": list(self.warnings)}
 
 
 def _explain(args, stdin, stdout, stderr) -> int:

@@ -986,7 +986,7 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     `grade_at_least` is a level; `grades` names grades exactly; `ruleset` a fingerprint prefix;
     `version` the rule-set version as written. Dates compare as ISO text.
     """
-    refused = _unknown_filter(conn, rule, grades, grade_at_least, ruleset, version)
+    refused = _unknown_filter(conn, rule, grades, grade_at_least, ruleset, version) or _unknown_unit(conn, unit)
     if refused:
         raise LedgerError(refused)
     where, params = [] if everything else ["s.superseded_in IS NULL"], []
@@ -1057,6 +1057,18 @@ def _unknown_filter(conn: sqlite3.Connection, rule, grades, grade_at_least, rule
         return (f"no rule set recorded in this ledger has a fingerprint starting '{ruleset}'; `sumpwise rulesets "
                 f"--db PATH` lists them")
     return None
+
+
+def _unknown_unit(conn: sqlite3.Connection, unit) -> str | None:
+    """Why `--unit` can match nothing: no sample of that unit was ever recorded (`U9` for `U-9`)."""
+    if unit is None or conn.execute("SELECT 1 FROM samples WHERE unit_id = ? LIMIT 1", (unit,)).fetchone():
+        return None
+    units = [row[0] for row in conn.execute("SELECT DISTINCT unit_id FROM samples WHERE unit_id IS NOT NULL")]
+    if not units:
+        return None
+    close = difflib.get_close_matches(unit, units, n=3)
+    hint = f" (did you mean {', '.join(repr(u) for u in close)}?)" if close else ""
+    return f"no sample of unit '{unit}' is recorded in this ledger{hint}; `sumpwise find --db PATH` lists every sample"
 
 
 def batch_rejects(conn: sqlite3.Connection) -> pd.DataFrame:

@@ -24,7 +24,7 @@ from sumpwise.vocabulary.problems import InvalidFile, Problem, json_path
 from sumpwise.ruleset.model import (AllOf, AnyOf, Cap, Caveat, ConditionRule, Example, FieldTest, LadderRule, Lubricant,
                       MeasureTest, MissingTest, NextStep, Not, Origin, RuleSet)
 from sumpwise.ruleset.resolve import Placed, Resolved, resolve_with_problems
-from sumpwise.vocabulary.measures import UNIT_FAMILY
+from sumpwise.vocabulary.measures import UNIT_FAMILY, canonical_method
 from sumpwise.vocabulary.base_stocks import FAMILIES as BASE_STOCK_FAMILIES, BaseStockError, canonical_base_stock
 from sumpwise.vocabulary.cautions import DEFAULT_NOTICE
 from sumpwise.vocabulary.limit_tests import LADDER_TESTS, LIMIT_TESTS
@@ -282,6 +282,15 @@ class _Compiler:
             self.problems.append(placed.problem(str(exc), sub, code="C013"))
             return str(text)
 
+    def _method(self, placed: Placed, sub: tuple, text) -> str:
+        """The canonical FTIR method, as intake reads a row's `method`: a rule's `differential` then
+        meets a row's `differential` (both read as subtraction) instead of never matching it."""
+        try:
+            return canonical_method(text)
+        except ValueError as exc:
+            self.problems.append(placed.problem(str(exc), sub, code="C018"))
+            return str(text)
+
     def _lubricant(self, code: str, entries: tuple) -> Lubricant:
         """A lubricant merged field by field over the files of the chain that give its code.
 
@@ -498,6 +507,8 @@ class _Compiler:
             values = [_as_text(v) for v in values]
             if name == "base_stock":
                 values = [self._base_stock(placed, sub + (tests[0],), v) for v in values]
+            elif name == "method":
+                values = [self._method(placed, sub + (tests[0],), v) for v in values]
             elif name == "base_stock_family":
                 for v in values:
                     if not set(v.split("+")) <= set(BASE_STOCK_FAMILIES):

@@ -45,6 +45,19 @@ def test_condition_that_can_never_be_true():
     assert "'impossible-water' can never fire" in message and "water above 10 and water below 5" in message
 
 
+def test_class_or_lubricant_the_rule_set_lacks_is_named_with_the_nearest():
+    # `pumps` for class `pump`, `PUMP-46-EE` for `PUMP-46-E`: the rule never fires on a graded sample.
+    # Field tests ignore case (rule-language draft: compared as text; the evaluator folds case),
+    # so `pump-46-m` and `PUMP` name what the rule set has.
+    found = warnings_of("lint-unknown-names.yaml")
+    assert [(line, message.split(",")[0]) for _, line, message in found] == [
+        (8, "rule 'pumps-only' tests class 'pumps'"),
+        (13, "rule 'ester-fill-wet' tests lubricant 'PUMP-46-EE'"),
+    ]
+    hints = [p.hint for p in lint_ruleset(load_ruleset(DATA / "lint-unknown-names.yaml"))]
+    assert hints == ["did you mean 'pump'?", "did you mean 'PUMP-46-E'?"]
+
+
 def test_ladder_gap_unreachable_step_and_unreached_grade():
     found = warnings_of("lint-ladder.yaml")
     assert [(line, message.split(":")[0]) for _, line, message in found] == [

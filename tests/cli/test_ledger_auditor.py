@@ -156,6 +156,8 @@ def test_results_of_several_rule_sets_each_come_with_their_own(db):
     (("--version", "9"), "the version '9'"),
     (("--at-least", "4"), "--at-least 4: the recorded ladders run from level 0 (normal) to level 3"),
     (("--ruleset", "ffff0000"), "a fingerprint starting 'ffff0000'"),
+    (("--unit", "ST1"), "no sample of unit 'ST1' is recorded in this ledger (did you mean 'ST-1'"),
+    (("--since", "2026-12-01", "--until", "2026-11-30"), "--since 2026-12-01 is after --until 2026-11-30"),
 ])
 def test_find_refuses_a_filter_no_recorded_rule_set_can_match(db, options, named):
     """A typo in a filter is an error naming what the ledger holds, not "0 sample(s)": an auditor
