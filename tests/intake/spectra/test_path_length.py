@@ -157,3 +157,15 @@ def test_the_realistic_spectra_of_the_tests_and_the_demo_pass_at_their_own_path(
     public = read_spectrum(ROOT / "tests" / "data" / "spectra" / "dupdec1.jdx")
     assert plausible_path(public.wavenumber, public.absorbance[:, None], [0.1], [True]).all()
 
+
+
+def test_each_refused_row_keeps_its_own_code(quarter):
+    # three rows in one run: a good 0.1 mm oil, the unlabelled quarter cell (F002), a difference spectrum (F001)
+    _write(quarter / "good.jdx", oil_spectrum(X, oxidation=0.05, noise=2e-4, seed=58))
+    _write(quarter / "diff.jdx", oil_spectrum(X, oxidation=0.05) - oil_spectrum(X))
+    run, records = _grade(quarter, [HEADER, _row("A", "diff.jdx"), _row("B", "used-0025.jdx"), _row("C", "good.jdx")])
+    assert run.code == 0, run.err
+    assert set(records) == {"C"}
+    assert re.search(r"row 1 \(sample A\): rejected F001: spectrum: ", run.err), run.err
+    assert re.search(r"row 2 \(sample B\): rejected F002: spectrum: ", run.err), run.err
+    assert "read 3 row(s): 1 graded, 0 unrated, 2 rejected" in run.err
