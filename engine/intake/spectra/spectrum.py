@@ -221,8 +221,9 @@ def declares_difference(text: str) -> bool:
 
 
 def parse_path_length(source, line, text):
-    """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `0.1MM`, `5 CM` or `18 CM CELL` (a number, then its unit)."""
-    match = _NUMBER_THEN_UNIT.match(text.replace(",", " "))
+    """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `0.1MM`, `5 CM`, `18 CM CELL` or `100 µm` (a number,
+    then its unit; the micro sign or Greek mu read as u)."""
+    match = _NUMBER_THEN_UNIT.match(text.replace(",", " ").replace("\u00b5", "u").replace("\u03bc", "u"))
     value = float(match.group(1)) if match else float("nan")
     unit = (match.group(2) or "").upper().rstrip(".") if match else ""
     if not (math.isfinite(value) and value > 0) or unit not in _PATH_UNITS_MM:
