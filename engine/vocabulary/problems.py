@@ -107,6 +107,7 @@ PROBLEM_CODES = {
     "D023": "a sampling date before 1900 or more than a year after the day it is read (a slip in the year)",
     "D024": "two columns of the header that read as one engine name (case, spaces, '-' and '_' aside)",
     "F001": "a spectrum that cannot be used",
+    "F002": "a spectrum whose C-H bend says its cell path length is far from the one assumed (none declared)",
     "E001": "an example that does not hold",
     "E002": "examples not run because the rule set has errors (a note)",
     "L001": "a sample id the ledger already recorded with other values",
