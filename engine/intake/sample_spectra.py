@@ -29,6 +29,7 @@ import pandas as pd
 from sumpwise.vocabulary.measures import OXIDATION_CONVENTIONS
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.caveats import EngineCaveat
+from sumpwise.vocabulary.texts import lubricant_key
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.intake.spectra.bands import load_bands
@@ -199,9 +200,12 @@ def _base_stocks(frame: pd.DataFrame, ruleset: RuleSet, evidence: dict) -> pd.Da
         lubricant = _text(frame, "lubricant")
         own = _text(frame, "base_stock")
         base = own.copy()
+        keys = np.array([lubricant_key(code) if code else "" for code in lubricant], dtype=object)
+        table_codes = {lubricant_key(code): code for code in ruleset.lubricants}
         for code, found in evidence.items():
-            rows = lubricant == code
-            table = ruleset.lubricants[code].base_stock if code in ruleset.lubricants else None
+            rows = keys == lubricant_key(code)
+            listed = ruleset.lubricants.get(code) or ruleset.lubricants.get(table_codes.get(lubricant_key(code)))
+            table = listed.base_stock if listed else None
             for declared in pd.unique(own[rows]):
                 at = rows & (own == declared)
                 finding = resolve_base_stock(declared or table, found)
@@ -249,7 +253,8 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     dilutions, bad_dilution = _per_row_numbers(frame, rows, "dilution", check_dilution, 1.0)
     option_bad = (bad_length != "") | (bad_dilution != "")
     paths = [base / p for p in named]
-    references = [refs.get(code) for code in lubricant]
+    by_key = {lubricant_key(code): path for code, path in refs.items()}
+    references = [refs.get(code) or (by_key.get(lubricant_key(code)) if code else None) for code in lubricant]
 
     ok = np.zeros(len(rows), dtype=bool)
     why = np.full(len(rows), "", dtype=object)
