@@ -16,6 +16,7 @@ from sumpwise.derive.viscosity import viscosity_index
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, Bounds, bounds, number_text
 from sumpwise.vocabulary.base_stocks import ESTER_FAMILY, family_of
 from sumpwise.vocabulary.caveats import EngineCaveat
+from sumpwise.vocabulary.texts import lubricant_key
 from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, ISO4406_TOP, KNOWN_FIELDS, DECIMALS,
                                          REFERENCE_VALUES, ROW_MEASURES)
 
@@ -35,9 +36,10 @@ LUBRICANT_CAVEATS = (
 def _unknown_lubricant_notes(codes: np.ndarray, known: list) -> np.ndarray:
     """A note per row whose lubricant code is not in the table, naming the nearest known codes."""
     row_codes, uniques = pd.factorize(codes, use_na_sentinel=True)
+    found = _lubricant_lookup(np.asarray(uniques, dtype=object), known) >= 0
     notes = []
-    for code in uniques:
-        if code in known:
+    for code, here in zip(uniques, found):
+        if here:
             notes.append(None)
             continue
         near = difflib.get_close_matches(str(code), known, n=3, cutoff=0.5)
@@ -179,8 +181,15 @@ def _by_code(lookup: np.ndarray, values: list, fill) -> np.ndarray:
 
 
 def _lubricant_lookup(codes: np.ndarray, known: list) -> np.ndarray:
+    """Each row's index into the lubricants table: its code as written, else the one code equal to
+    it by lubricant_key (two table codes equal by it are ambiguous and match only as written)."""
     row_codes, uniques = pd.factorize(codes)
     where = pd.Index(known).get_indexer(uniques) if known else np.full(len(uniques), -1)
+    keys = pd.Series([lubricant_key(code) for code in known], dtype=object)
+    single = keys[~keys.duplicated(keep=False)]
+    by_key = pd.Index(single.to_numpy()).get_indexer([lubricant_key(code) for code in uniques])
+    where = np.where(where >= 0, where, np.where(by_key >= 0, single.index.to_numpy()[by_key], -1)) if len(single) \
+        else where
     return np.append(where, -1)[row_codes]  # factorize's -1 (no lubricant) stays -1
 
 

@@ -18,9 +18,11 @@ from __future__ import annotations
 
 import codecs
 import difflib
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from sumpwise.intake.header_units import SPELLINGS, named_unit
 from sumpwise.ruleset.yaml_source import load_yaml
 from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, REFERENCE_VALUES, UNIT_FAMILY, canonical_method
 from sumpwise.vocabulary.problems import InvalidFile
@@ -34,6 +36,68 @@ FILE_OPTIONS = ("delimiter", "decimal", "encoding", "date_format", "sheet")
 DELIMITERS = (",", ";", "\t", "|")
 DECIMAL_MARKS = (".", ",")
 _ENTRY_KEYS = {"column", "unit", "value", "map", "true", "false", "detection_limit", "method"}
+
+
+_SEPARATORS = re.compile(r"[\s_-]+")
+_BEFORE_DIGITS = re.compile(r"(?<=[^\W\d_])_(?=\d)")
+
+
+def header_key(text) -> str:
+    """A column name as names are compared, the one place they are normalised: casefolded, a
+    byte-order mark and surrounding spaces dropped, each run of spaces, `-` and `_` one `_`, and
+    none left between a letter and a digit (`Oil-Hours`, ` oil hours ` and `OIL_HOURS` are all
+    `oil_hours`; `KV 40` is `kv40`, `ISO 4406` `iso4406`)."""
+    return _BEFORE_DIGITS.sub("", _SEPARATORS.sub("_", str(text).replace("\ufeff", "").strip().casefold()))
+
+
+def engine_name(header, names) -> tuple[str, str | None] | None:
+    """(engine name, unit named) a header is read as among `names`, or None: the name itself, the
+    name as header_key compares it (unit None), or the name of a measure followed by a unit of
+    that measure and nothing else (`Water (ppm)`, `KV40 [cSt]`, `Oil Hours h`: header_units)."""
+    by_key: dict = {}
+    for name in names:
+        by_key.setdefault(header_key(name), []).append(name)
+    text = str(header).strip()
+    found = by_key.get(header_key(text), [])
+    if text in found or len(found) == 1:
+        return (text if text in found else found[0]), None
+    for split in _UNIT_SPLIT.finditer(text):
+        found = by_key.get(header_key(text[:split.start()]), [])
+        if len(found) == 1 and found[0] in SPELLINGS:
+            unit = named_unit(found[0], text[split.start():], whole=True)
+            if unit is not None:
+                return found[0], unit
+    return None
+
+
+_UNIT_SPLIT = re.compile(r"\s*[(\[]|\s+")
+
+
+def engine_columns(header: list, columns: "ColumnMap", known: set) -> tuple[dict, dict, dict, dict]:
+    """How the file's columns not named in the map land on engine names (`known`, engine_name):
+    ({header: engine name} to rename, {engine name: unit its header names}, {engine name:
+    [headers]} that land on a name the map reads from another column (not read), {engine name:
+    [headers]} landing on one name twice).
+
+    A lab that writes `AN`, `Water` or `Water (ppm)` means `an` and `water`; read only on an exact
+    name, the readings were left out and the sample graded without them (normal, no limit crossed)."""
+    mapped = set(columns.columns.values())
+    landing: dict = {}
+    for name in header:
+        found = engine_name(name, known) if name not in mapped else None
+        if found is not None:
+            landing.setdefault(found[0], []).append((name, found[1]))
+    renames, units, shadowed, twice = {}, {}, {}, {}
+    for target, spelled in landing.items():
+        if target in columns.columns:  # the map reads this name from its own column: the map wins
+            shadowed[target] = [name for name, _ in spelled]
+        elif len(spelled) > 1:
+            twice[target] = [name for name, _ in spelled]
+        elif spelled[0][0] != target:
+            renames[spelled[0][0]] = target
+            if spelled[0][1] is not None:
+                units[target] = spelled[0][1]
+    return renames, units, shadowed, twice
 
 
 @dataclass(frozen=True)

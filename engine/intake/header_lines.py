@@ -8,9 +8,9 @@ rejected (D020, each naming the header line and the columns that moved) until a 
 the file's own layout comes back; the rows before it are graded as usual.
 
 A row is a header line when at least two of its cells, and at least half of those it fills,
-are names of the file's header (case and surrounding spaces aside). Only rows with a header name
-in a number column are looked at: such a cell is already set apart as not a number, so a file
-without one costs nothing.
+are names of the file's header (as column_map.header_key compares names: case, spaces, `-` and
+`_` aside). Only rows with a header name in a number column are looked at: such a cell is
+already set apart as not a number, so a file without one costs nothing.
 """
 
 from __future__ import annotations
@@ -19,11 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-
-def header_key(text) -> str:
-    """A header name or cell as they are compared: casefolded, spaces collapsed, a byte-order mark
-    dropped (the second file's, in the middle of the joined file)."""
-    return " ".join(str(text).replace("\ufeff", "").split()).casefold()
+from sumpwise.intake.column_map import header_key
 
 
 @dataclass(frozen=True)

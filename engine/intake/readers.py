@@ -25,7 +25,7 @@ import msgspec
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.column_map import DELIMITERS
+from sumpwise.intake.column_map import DELIMITERS, engine_name
 from sumpwise.vocabulary.problems import InputError
 
 ENCODING_HINT = ("declare the file's encoding in the column map (file: {encoding: cp1252}); common ones are "
@@ -73,6 +73,13 @@ def check_header(names: list) -> None:
         raise InputError("the header has a column without a name")
 
 
+def numeric_flags(names: list, numeric: set) -> list[bool]:
+    """Whether each column is read as numbers: its name is one of `numeric` as column_map.header_key
+    compares names, or it is one followed by its unit (column_map.engine_name: an `AN` or an
+    `AN (mg KOH/g)` column is the acid number, and parsed as numbers like `an`)."""
+    return [engine_name(name, numeric) is not None for name in names]
+
+
 def _first_line(text: str) -> str:
     ends = [at for at in (text.find("\n"), text.find("\r")) if at >= 0]  # \n, \r\n or a lone \r
     return text[: min(ends, default=len(text))]
@@ -104,7 +111,8 @@ def detect_decimal(lines: list, delimiter: str, numeric: set | None = None) -> s
     if not rows:
         return "."
     header = [name.strip() for name in rows[0]]
-    looked = [k for k, name in enumerate(header) if numeric is None or name in numeric]
+    looked = range(len(header)) if numeric is None else [
+        k for k, number in enumerate(numeric_flags(header, numeric)) if number]
     first: dict = {}  # mark (',' '.' or 'grouped') -> (row, column, cell) where first seen
     for number, fields in enumerate(rows[1:200], start=1):
         for k in looked:
@@ -184,8 +192,9 @@ def read_csv(text: str, numeric: set, delimiter: str | None, decimal: str | None
                for line, count in zip(starts[wrong], counts[wrong])]
     rows = starts[~blank & ~wrong] - 1
     names = [h.strip() for h in header]
-    text_columns = {raw: object for raw, name in zip(header, names) if name not in numeric}
-    blanks = {raw: [""] for raw, name in zip(header, names) if name in numeric}
+    numbers = numeric_flags(names, numeric)
+    text_columns = {raw: object for raw, number in zip(header, numbers) if not number}
+    blanks = {raw: [""] for raw, number in zip(header, numbers) if number}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
@@ -462,7 +471,8 @@ def _row_type(names: list, every_key: bool = False, numeric: set | None = None):
     object that leaves one out): each line becomes one, not a dict. Given `numeric`, its
     columns take only a number or null and the others only text or null."""
     slots = _slots(names)
-    kinds = [Any if numeric is None else float | None if name.strip() in numeric else str | None for name in names]
+    kinds = [Any] * len(names) if numeric is None else [
+        float | None if number else str | None for number in numeric_flags(names, numeric)]
     fields = [(slot, kind) if every_key else (slot, kind, None) for slot, kind in zip(slots, kinds)]
     return msgspec.defstruct("Row", fields, rename=dict(zip(slots, names)), forbid_unknown_fields=True, gc=False)
 
@@ -489,7 +499,7 @@ class _Columns:
 
     def __init__(self, names: list, rows: int, numeric: set, typed: bool):
         self.names, self.getters, self.rows, self.typed = names, list(map(attrgetter, _slots(names))), rows, typed
-        self.numeric = [name.strip() in numeric for name in names]
+        self.numeric = numeric_flags(names, numeric)
         self.cells = [np.empty(rows, dtype=float if typed and number else object) for number in self.numeric]
         self.texts: list[dict | None] = [None] * len(names)  # a repeated text column's objects, by text
         self.joined: list[list | None] = [None] * len(names)  # a text column's parts, each joined by NUL
@@ -554,8 +564,8 @@ def _objects_table(records: list, numbers: np.ndarray, skipped: list, numeric: s
         names = list(dict.fromkeys(chain.from_iterable(records)))
         n = len(records)
         frame = pd.DataFrame({name: _column(np.fromiter(map(dict.get, records, repeat(name, n)), dtype=object,
-                                                        count=n), name.strip() in numeric) for name in names},
-                             copy=False)
+                                                        count=n), number)
+                              for name, number in zip(names, numeric_flags(names, numeric))}, copy=False)
     check_header(list(frame.columns))
     return RawTable(frame, numbers[objects], skipped, [], [str(c) for c in frame.columns])
 

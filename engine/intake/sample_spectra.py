@@ -29,13 +29,14 @@ import pandas as pd
 from sumpwise.vocabulary.measures import OXIDATION_CONVENTIONS
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.caveats import EngineCaveat
+from sumpwise.vocabulary.texts import lubricant_key
 from sumpwise.ruleset.model import RuleSet
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.intake.spectra.bands import load_bands
 from sumpwise.intake.spectra.batch import (SUBTRACTION, check_dilution, check_path_length, measure_spectra,
                                            read_spectrum)
 from sumpwise.intake.spectra.ester import detect_ester, resolve_base_stock
-from sumpwise.intake.spectra.spectrum import SpectrumError, sampling_problem
+from sumpwise.intake.spectra.spectrum import SpectrumError, path_problem, sampling_problem
 from sumpwise.vocabulary.units import factor_to_canonical
 
 # Band columns that are engine measures; the band file's water and fuel bands are
@@ -84,8 +85,10 @@ SPECTRUM_CAVEATS = (
                  "sumpwise engine: a differential carbonyl area far below zero, or a height above the saturation "
                  "threshold at 0.1 mm, means the subtracted reference is not this oil's new oil at this cell and "
                  "dilution, and a height with less than 25 cm-1 of area per unit of it is the residue of a reference "
-                 "recorded otherwise (shifted axis, another resolution); the -0.5 absorbance x cm-1 and 25 cm-1 "
-                 "figures are our choice, no source, the threshold is the band file's"),
+                 "recorded otherwise (shifted axis, another resolution), and one peaking in the ester carbonyl band "
+                 "(1725-1770 cm-1, above the oxidation products: Tribology Transactions 55 (2012) 872) is an ester "
+                 "carbonyl the reference lacks; the -0.5 absorbance x cm-1 and 25 cm-1 figures are our choice, no "
+                 "source, the threshold is the band file's"),
     EngineCaveat("ftir-other-convention", "ftir_convention_note",
                  "sumpwise engine: FTIR conventions (README, FTIR conventions): direct and differential "
                  "readings are never compared with each other's limits"),
@@ -181,6 +184,9 @@ def _ester_evidence(refs: dict[str, Path], path_length_mm: float) -> dict:
         length = spectrum.path_length_mm or path_length_mm
         problem = ("a difference spectrum is not a new oil" if spectrum.difference else
                    sampling_problem(spectrum, length, load_bands().saturation_absorbance))
+        if problem is None and spectrum.path_length_mm is None:
+            problem = path_problem(spectrum, length, True, load_bands().saturation_absorbance,
+                                   "a path assumed: no ##PATH LENGTH= in the file")
         if problem is not None:  # it would misread every sample of that lubricant, as an unreadable one would
             raise InputError(f"new-oil reference spectrum for {code}: {path}: {problem}")
         evidence[code] = detect_ester(spectrum, length)
@@ -194,9 +200,12 @@ def _base_stocks(frame: pd.DataFrame, ruleset: RuleSet, evidence: dict) -> pd.Da
         lubricant = _text(frame, "lubricant")
         own = _text(frame, "base_stock")
         base = own.copy()
+        keys = np.array([lubricant_key(code) if code else "" for code in lubricant], dtype=object)
+        table_codes = {lubricant_key(code): code for code in ruleset.lubricants}
         for code, found in evidence.items():
-            rows = lubricant == code
-            table = ruleset.lubricants[code].base_stock if code in ruleset.lubricants else None
+            rows = keys == lubricant_key(code)
+            listed = ruleset.lubricants.get(code) or ruleset.lubricants.get(table_codes.get(lubricant_key(code)))
+            table = listed.base_stock if listed else None
             for declared in pd.unique(own[rows]):
                 at = rows & (own == declared)
                 finding = resolve_base_stock(declared or table, found)
@@ -244,10 +253,12 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     dilutions, bad_dilution = _per_row_numbers(frame, rows, "dilution", check_dilution, 1.0)
     option_bad = (bad_length != "") | (bad_dilution != "")
     paths = [base / p for p in named]
-    references = [refs.get(code) for code in lubricant]
+    by_key = {lubricant_key(code): path for code, path in refs.items()}
+    references = [refs.get(code) or (by_key.get(lubricant_key(code)) if code else None) for code in lubricant]
 
     ok = np.zeros(len(rows), dtype=bool)
     why = np.full(len(rows), "", dtype=object)
+    codes = np.full(len(rows), "F001", dtype=object)
     measured = {}
     # one call per distinct fallback path length (usually one): the file's own ##PATH LENGTH= wins.
     # A row's path_length_mm is its sample's cell, not the reference's: a reference file without
@@ -257,13 +268,16 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
         pick = np.flatnonzero((fallback == length) & ~option_bad)
         if not pick.size:
             continue
-        part, _ = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
-                                  reference_path_length_mm=path_length_mm, dilutions=dilutions[pick],
-                                  needed=GRADED_BANDS, direct_bands=DIRECT_ONLY_BANDS)
+        # a row's own path_length_mm is a declaration: the C-H bend judges only a path the run assumed
+        part, rejections = measure_spectra([paths[k] for k in pick], [references[k] for k in pick], float(length),
+                                           reference_path_length_mm=path_length_mm, dilutions=dilutions[pick],
+                                           needed=GRADED_BANDS, direct_bands=DIRECT_ONLY_BANDS,
+                                           declared=~np.isnan(paths_lengths[pick]), peaks=("oxidation",))
         part.index = pick
         measured[float(length)] = part
         ok[pick] = part["rejection"].to_numpy() == ""
         why[pick] = part["rejection"].to_numpy(dtype=object)
+        codes[pick[~ok[pick]]] = [r.code for r in rejections]  # one per rejected row, in row order
     table = pd.concat(measured.values()).sort_index() if measured else None
 
     good = np.flatnonzero(ok)
@@ -272,6 +286,16 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
     # source). It comes from a reference of another oil, cell or dilution (a new ester diluted 1:4 like
     # its samples but read as neat left three quarters of its carbonyl in: 150 abs/cm, urgent).
     gain_limit = load_bands().saturation_absorbance * factor_to_canonical("absorbance", "abs/0.1mm")
+    # Where a differential carbonyl peaks tells what was gained: oxidation products absorb at 1725-1650 cm-1,
+    # ester carbonyls at 1770-1725 (Tribology Transactions 55 (2012) 872, confirmed; the band file's ester
+    # window). A gain from RESIDUE_MIN_HEIGHT up that peaks in the ester band is an ester carbonyl the sample's
+    # oil has and its reference has not (a polymethacrylate viscosity modifier at a few percent carries up to
+    # about 1 absorbance of it at 0.1 mm: the band file's note, from memory): a mineral oil with 0.1 of it,
+    # against a new oil without it, read 10.4 abs/cm (watch) for 3.0 gained, with 0.5 of it 50 (urgent), both
+    # peaking at 1738-1740 cm-1 (tests/support/synthetic_spectra.py), while a carbonyl gained alone peaks at 1712.
+    # So does an ester oil's own carbonyl when its reference's cell was thinner than declared: 4 % (0.024 mm read
+    # as 0.025) read 9.1 abs/cm for 6.5 gained, 10 % read 21.0, peaking at 1738-1740.
+    ester_low, ester_high = load_bands().ester.region
     band_note = np.full(len(frame), None, dtype=object)
     mismatch = np.full(len(frame), None, dtype=object)
     if table is not None and good.size:
@@ -309,6 +333,19 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
                                 for v, a, r in zip(values[residue], area[residue],
                                                    picked["reference"].to_numpy()[residue])]
                 values = np.where(residue, np.nan, values)
+                peak = picked["oxidation_peak_cm1"].to_numpy(dtype=float)
+                with np.errstate(invalid="ignore"):
+                    ester = differential & (values >= RESIDUE_MIN_HEIGHT) & (peak >= ester_low) & (peak <= ester_high)
+                at = np.flatnonzero(has)[good[ester]]
+                mismatch[at] = [f"differential carbonyl {v:.1f} abs/cm against reference {r} peaks at {p:.0f} cm-1, "
+                                f"within the ester carbonyl band ({ester_low:g}-{ester_high:g} cm-1), not among the "
+                                "oxidation products below it (Tribology Transactions 55 (2012) 872): the oil carries more "
+                                "ester carbonyl than its reference (an ester additive the reference lacks, such as a "
+                                "viscosity modifier; a reference of another formulation; or one recorded through a "
+                                "thinner cell or more diluted than its path length and dilution say); subtract the "
+                                "same formulation's new oil, recorded alike; the oxidation rules are not evaluated"
+                                for v, p, r in zip(values[ester], peak[ester], picked["reference"].to_numpy()[ester])]
+                values = np.where(ester, np.nan, values)
             if column not in frame.columns:
                 frame[column] = np.nan
             frame[column] = frame[column].astype(float)
@@ -334,7 +371,7 @@ def _measure(frame: pd.DataFrame, refs: dict[str, Path], base: Path, path_length
         elif bad_dilution[k]:
             bad.append(Reject(int(rows[k]), sample_ids[k], "dilution", bad_dilution[k], "F001"))
         else:
-            bad.append(Reject(int(rows[k]), sample_ids[k], "spectrum", why[k] or "spectrum rejected", "F001"))
+            bad.append(Reject(int(rows[k]), sample_ids[k], "spectrum", why[k] or "spectrum rejected", codes[k]))
     keep = np.ones(len(frame), dtype=bool)
     keep[np.flatnonzero(has)[~ok]] = False
     return frame[keep], bad

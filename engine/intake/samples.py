@@ -19,19 +19,20 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
-from sumpwise.intake.column_map import FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, load_column_map
+from sumpwise.intake.column_map import (FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, engine_columns,
+                                        header_key, load_column_map)
 from sumpwise.intake.dates import read_dates
-from sumpwise.intake.header_lines import header_key, header_lines
-from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, unit_conflict
+from sumpwise.intake.header_lines import header_lines
+from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, readable_units, unit_conflict
 from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
                                      nested_cells, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
-from sumpwise.vocabulary.problems import InputError
+from sumpwise.vocabulary.problems import InputError, Problem, json_path
 from sumpwise.vocabulary.texts import TEXT_VOCABULARIES, canonical_texts
 from sumpwise.vocabulary.units import factor_to_canonical
 
-__all__ = ["ColumnMap", "Reject", "SampleBatch", "load_column_map", "read_samples", "validate_samples"]
+__all__ = ["ColumnMap", "HeaderError", "Reject", "SampleBatch", "load_column_map", "read_samples", "validate_samples"]
 
 REQUIRED_COLUMNS = ("sample_id", "class")
 
@@ -40,6 +41,15 @@ NUMERIC_COLUMNS = NUMERIC_NAMES
 # Spellings of a yes/no flag every map accepts (case ignored), besides the map's own.
 FLAG_SPELLINGS = {"y": True, "n": False, "yes": True, "no": False, "true": True, "false": False, "1": True,
                   "0": False, "t": True, "f": False}
+
+
+class HeaderError(InputError):
+    """A samples file whose header cannot be read as columns (D024), with the problem records: an
+    InputError, so a run of several files says it and grades the others."""
+
+    def __init__(self, problems: list):
+        self.problems = tuple(problems)
+        super().__init__("\n".join(p.render() for p in self.problems))
 
 
 @dataclass(frozen=True)
@@ -174,10 +184,34 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             raise InputError(f"{name}: the column map names column '{column}' for {measure}, but the file has "
                              f"no such column (it has: {', '.join(raw.columns)}){read}")
         renames[column] = measure
+    known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
+    matched, units, shadowed, twice = engine_columns(list(raw.columns), columns, known)
+    if twice:
+        raise HeaderError([Problem(name, 0, 0, f"columns {' and '.join(map(repr, spelled))} are both read as "
+                                               f"{target} (column names are compared without case, spaces, '-' "
+                                               f"or '_'): a column is read from one header only",
+                                   path=json_path(("header", target)), code="D024",
+                                   hint=f"rename or drop one, or name the one to read in a column map "
+                                        f"({target}: {spelled[0]!r})")
+                           for target, spelled in twice.items()])
+    if matched:
+        notes.append("read " + ", ".join(f"column {lab!r} as {target}" + (f" in {units[target]}" if target in units
+                                                                           else "") for lab, target in matched.items())
+                     + " (column names are compared without case, spaces, '-' or '_'; a unit after a name is the "
+                       "column's)")
+    lab_of = {target: lab for lab, target in matched.items()}
+    for target, unit in units.items():  # the unit a header names is the column's: read in it, or refused
+        read_in = _read_in(target, columns)
+        if unit != read_in and unit in readable_units(target):
+            columns = replace(columns, units={**columns.units, target: unit})
+        elif unit != read_in:
+            raise InputError(f"{name}: " + unit_conflict(target, unit, read_in, f"the header of column "
+                                                                              f"{lab_of[target]!r}", lab_of[target]))
+    renames.update(matched)
     mapped = set(renames)
     header = {renames.get(c, c): c for c in raw.columns}  # each column's name in the file's header
     _check_header_units(name, columns)
-    clash = [c for c in raw.columns if c in set(renames.values()) and c not in renames]
+    clash = [c for spelled in shadowed.values() for c in spelled]
     raw = raw.drop(columns=clash).rename(columns=renames)
     if clash:
         notes.append(f"columns {', '.join(clash)} not used: the column map reads these names from other columns")
@@ -192,9 +226,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                          f"columns, but a sample has one method: map a `method` column instead")
     if methods and "method" not in raw.columns:
         raw["method"] = methods[0]
-    known = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(numeric)
-    unit_columns = _unit_columns(list(raw.columns), columns)
-    qualifiers = _qualifier_columns(list(raw.columns), columns, [c for c in raw.columns if c in NUMERIC_COLUMNS
+    labs = {measure: lab for lab, measure in renames.items()}  # the file's name of each column renamed
+    unit_columns = _unit_columns(list(raw.columns), labs)
+    qualifiers = _qualifier_columns(list(raw.columns), labs, [c for c in raw.columns if c in NUMERIC_COLUMNS
                                                                  or c in numeric])
     beside = set(unit_columns.values()) | set(qualifiers.values())
     unused = [c for c in raw.columns if c not in known and c not in mapped and c not in beside]
@@ -224,8 +258,9 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if column not in numeric_names:
             raw[column] = _text_column(raw[column])
     sample_id = raw["sample_id"].fillna("")
-    repeated = sample_id.duplicated(keep="first").to_numpy()  # a repeated `Average` is looked at whatever its row holds
-    summary = summary_rows(raw, set(numeric_names), sample_id.to_numpy(dtype=object)[repeated])
+    ids = pd.factorize(sample_id.to_numpy(dtype=object))  # once: for repeated ids and ids that are labels
+    repeated = pd.Series(ids[0]).duplicated(keep="first").to_numpy()
+    summary = summary_rows(raw, set(numeric_names), ids)
     if len(summary.at):  # rejected as what they are, and kept out of every other check (a second `Average` is no D003)
         rejects.extend(Reject(int(raw.index[k]), None, field_name, why, "D019")
                        for k, field_name, why in zip(summary.at, summary.fields, summary.reasons()))
@@ -254,7 +289,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                                   + first_row.astype(str)).to_numpy(dtype=object), "D003")
 
     for measure, unit_column in unit_columns.items():
-        why = _row_units(measure, raw[unit_column], columns)
+        why = _row_units(measure, raw[unit_column], columns, labs.get(measure, measure))
         reject(why != "", measure, why, "D018")
 
     decimal = columns.option("decimal", ".")
@@ -292,7 +327,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
                                   None if limit is None else limit * factor)
             if cells.bad.any():
-                _check_units_line(name, column, columns, text, cells.bad, raw.index)
+                _check_units_line(name, column, columns, labs.get(column, column), text, cells.bad, raw.index)
                 reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
                                  quoted=True)
                 formula = cells.bad & (np.strings.startswith(text.fillna("").to_numpy(dtype=str), "="))
@@ -315,9 +350,13 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if column == "water" and column not in columns.units:
             with np.errstate(invalid="ignore"):
                 tiny = (values > 0) & (values < 1) & ~bad  # a row its unit column rejects already is not asked
+                low = (values >= 1) & (values < 10) & ~bad & tiny.any()  # beside such readings, one too
             if tiny.any():
-                reject(tiny, column, _found("", raw[column], tiny, quoted=True) + _BELOW_KARL_FISCHER.format(
-                    lab=columns.columns.get(column, column)), "D018")
+                lab = labs.get(column, column)
+                reasons = _found("", raw[column], tiny | low, quoted=True) + _BELOW_KARL_FISCHER.format(lab=lab)
+                reasons[low] = _found("", raw[column], low, quoted=True)[low] + _BESIDE_PERCENTAGES.format(
+                    lab=lab, row=int(raw.index[np.argmax(tiny)]))
+                reject(tiny | low, column, reasons, "D018")
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -402,6 +441,15 @@ _BELOW_KARL_FISCHER = (" ppm is below what a Karl Fischer titration reports (AST
                        "column map, or correct the export")
 
 
+# Why a water reading from 1 to 10 ppm is rejected in a column that holds a reading below 1 (a
+# percentage, above): 1.5 there is 1.5 % (15,000 ppm, free water) far more likely than 1.5 ppm, which
+# is below what a Karl Fischer titration reports as well; read as ppm, the wettest sample graded normal.
+_BESIDE_PERCENTAGES = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), and "
+                       "column {lab!r} holds readings below 1 ppm that read as percentages (row {row}): a "
+                       "percentage too? declare water: {{column: {lab!r}, unit: '%'}} in the column map, or "
+                       "correct the export")
+
+
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:
     """Cells that are a name of the file's header, among those that are not numbers (each distinct
     text looked at once: a few)."""
@@ -443,16 +491,16 @@ def _read_in(measure: str, columns: ColumnMap, otherwise: str | None = None) -> 
     return columns.units.get(measure) or INPUT_MEASURES.get(measure.removeprefix("new_"), otherwise)
 
 
-def _unit_columns(names: list, columns: ColumnMap) -> dict:
+def _unit_columns(names: list, labs: dict) -> dict:
     """{measure: column} of the columns that give a measure's unit row by row, named after its
     column (`water unit`, `Water (KF)_units`, `unit water`): LIMS exports write them beside results."""
     found = {}
     for measure in SPELLINGS:
-        lab = str(columns.columns.get(measure, measure)).strip().casefold()
-        spelled = {f"{lab} {word}" for word in ("unit", "units", "(unit)", "[unit]")} | {
-            f"{lab}_unit", f"{lab}_units", f"unit {lab}", f"units {lab}"}
+        lab = str(labs.get(measure, measure))
+        spelled = {header_key(form.format(lab=lab, word=word)) for word in ("unit", "units", "(unit)", "[unit]")
+                   for form in ("{lab} {word}", "{word} {lab}")}
         for name in names:
-            if str(name).strip().casefold() in spelled:
+            if header_key(name) in spelled:
                 found[measure] = name
     return found
 
@@ -465,15 +513,15 @@ _BOUNDS = {"<": "<", "<=": "<=", "\u2264": "\u2264", ">": ">", ">=": ">=", "\u22
            "nd": "<", "n.d.": "<", "bdl": "<", "<dl": "<", "<lod": "<", "<loq": "<", "<rl": "<"}
 
 
-def _qualifier_columns(names: list, columns: ColumnMap, numeric_names: list) -> dict:
+def _qualifier_columns(names: list, labs: dict, numeric_names: list) -> dict:
     """{measure: column} of the columns that give a result's qualifier (`<`, `>`) row by row."""
     found = {}
     for measure in numeric_names:
-        lab = str(columns.columns.get(measure, measure)).strip().casefold()
-        spelled = {form.format(lab=lab, word=word) for word in _QUALIFIER_WORDS
-                   for form in ("{lab} {word}", "{lab}_{word}", "{word} {lab}", "{lab} ({word})", "{lab} [{word}]")}
+        lab = str(labs.get(measure, measure))
+        spelled = {header_key(form.format(lab=lab, word=word)) for word in _QUALIFIER_WORDS
+                   for form in ("{lab} {word}", "{word} {lab}", "{lab} ({word})", "{lab} [{word}]")}
         for name in names:
-            if str(name).strip().casefold() in spelled:
+            if header_key(name) in spelled:
                 found[measure] = name
     return found
 
@@ -504,7 +552,7 @@ def _qualified(values: pd.Series, qualifier: pd.Series, decimal: str) -> pd.Seri
     return values if out is None else pd.Series(out, index=values.index, dtype=object)
 
 
-def _row_units(measure: str, units: pd.Series, columns: ColumnMap) -> np.ndarray:
+def _row_units(measure: str, units: pd.Series, columns: ColumnMap, lab: str) -> np.ndarray:
     """Why each row's unit (from its unit column) cannot be read in the column's unit; "" where it
     can, or where the row gives none. A unit not recognised is not assumed to agree."""
     codes, spellings = pd.factorize(units.to_numpy(dtype=object), use_na_sentinel=True)
@@ -516,7 +564,7 @@ def _row_units(measure: str, units: pd.Series, columns: ColumnMap) -> np.ndarray
             why.append(f"the row's unit {str(cell)!r} is not one {measure} is known in; it is read in {read_in}")
         else:
             why.append(unit_conflict(measure, named, read_in, f"the row's unit column ({units.name!r})",
-                                     columns.columns.get(measure, measure)) or "")
+                                     lab) or "")
     return np.array(why + [""], dtype=object)[codes]
 
 
@@ -558,7 +606,7 @@ def _check_header_units(name: str, columns: ColumnMap) -> None:
         raise InputError(f"{name}: " + "; ".join(w for w in why if w))
 
 
-def _check_units_line(name: str, column: str, columns: ColumnMap, text: pd.Series, bad: np.ndarray,
+def _check_units_line(name: str, column: str, columns: ColumnMap, lab: str, text: pd.Series, bad: np.ndarray,
                       rows: pd.Index) -> None:
     """A units line under the header (`%` under `water`) that names another unit than the column is
     read in refuses the file; one that agrees is rejected as the text it is. Only cells that are
@@ -570,8 +618,7 @@ def _check_units_line(name: str, column: str, columns: ColumnMap, text: pd.Serie
     for k, cell in enumerate(spellings):
         where = f"row {int(rows[at[np.argmax(codes == k)]])}, a units line under the header,"
         why = unit_conflict(column, named_unit(column, str(cell), whole=True), _read_in(column, columns),
-                            f"{where} in column {columns.columns.get(column, column)!r}",
-                            columns.columns.get(column, column))
+                            f"{where} in column {lab!r}", lab)
         if why:
             raise InputError(f"{name}: {why}")
 

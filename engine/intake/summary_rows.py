@@ -6,15 +6,18 @@ would take a grade (a `Limit` row of water 500 ppm grades watch or alert), or co
 as a sample without a class; either way a line that is not a sample would be counted and
 trended as one. Such rows are rejected (D019), each naming the column and the label found.
 
-A row is a summary row when its sample id is a summary label, or when another text cell of it
-is (a label column beside an empty or counted id) and it has neither a date nor a unit of its
-own (an empty cell, or the label itself). Labels are matched on the whole cell, case, spaces and
-punctuation aside (`Std. Dev.` is `std dev`, `Max:` is `max`), and a trailing note in brackets
-is ignored (`Mean (n=12)`): a sample id that only contains such a word (`MAX-PUMP-03`,
-`Average-line-2`) is a sample. Only rows lacking a date or a unit, or whose id is repeated, are
-looked at (a per-unit `Average` line that repeats the unit and a date is found by its repeated
-id), so the usual export, every row dated and naming its unit, costs two passes for missing
-cells beside the check for repeated ids it has anyway.
+A row is a summary row when its sample id is a summary label, whatever else the row holds (a
+lone `Max` or `Limit` line that repeats a unit and a date, as a per-unit footer does), or when
+another text cell of it is a label (a label column beside an empty or counted id) and it has no
+sample id, or neither a date nor a unit of its own (an empty cell, or the label itself). Labels
+are matched on the whole cell, case, spaces and punctuation aside (`Std. Dev.` is `std dev`,
+`Max:` is `max`), and a trailing note in brackets is ignored (`Mean (n=12)`): a sample id that
+only contains such a word (`MAX-PUMP-03`, `Average-line-2`, `Average 2`) is a sample, and so is
+a sample whose unit is named `Max` or `Average 2`, as long as it has its id and its date. On a
+row without a sample id, a spreadsheet's subtotal line (`HPU-1 Average`, `Grand Total`) is
+found too. Only rows lacking an id, a date or a unit, or whose id has no digit, are looked at
+closely (sample ids have digits), so the usual export, every row dated and naming its unit, costs
+a few numpy passes over its distinct ids.
 """
 
 from __future__ import annotations
@@ -56,7 +59,8 @@ _FOOTER = re.compile(r"(page\s*\d+(\s*(of|/)\s*\d+)?|\d+\s*of\s*\d+\s*pages?|end
                      r"|confidential\b.*)", re.IGNORECASE)
 FOOTER = "a page footer or report line"
 # Severity words alone (`Warning`, `Critical`) are left out: a lab's status column writes them
-# on samples. `n` is a label only as a sample id: `N` is also a yes/no flag.
+# on samples. `n` is a label only as a sample id (`N` is also a yes/no flag), and only on a row
+# without a date or a unit (a one-letter id `N` names samples too).
 _ID_ONLY = ("n",)
 _BRACKETED_TAIL = re.compile(r"\s*[(\[][^()\[\]]*[)\]]\s*$")
 _NOT_A_LETTER_OR_DIGIT = re.compile(r"[\W_]+")
@@ -77,57 +81,83 @@ _NOT_LABELS = ("sample_id", "oil_changed", "method", "base_stock", "iso4406", "s
 
 @dataclass(frozen=True)
 class SummaryRows:
-    """Positions of the summary rows in the frame, with the field and cell that give each away."""
+    """Positions of the summary rows in the frame, with the field and cell that give each away and
+    what else of the row says it is no sample (`lacks`: "" when the label is its sample id)."""
 
     at: np.ndarray
     fields: list
     cells: list
     kinds: list
+    lacks: list
 
     def reasons(self) -> list:
-        return [f"{cell!r} is a summary label ({kind})"
-                + ("" if field == "sample_id" else " and the row has no date or unit of its own")
+        return [f"{cell!r} is a summary label ({kind})" + (f" and the row has {lacks}" if lacks else "")
                 + ": a summary line of the export, not a sample; not graded"
-                for field, cell, kind in zip(self.fields, self.cells, self.kinds)]
+                for cell, kind, lacks in zip(self.cells, self.kinds, self.lacks)]
 
 
-def summary_rows(raw: pd.DataFrame, numeric: set, repeated: np.ndarray) -> SummaryRows:
+NO_ID = "no sample id"
+NO_DATE_OR_UNIT = "no date or unit of its own"
+
+
+def summary_rows(raw: pd.DataFrame, numeric: set, ids: tuple | None = None) -> SummaryRows:
     """The rows of `raw` (text cleaned: str or None) that are summary lines (see the module);
-    `repeated` holds the sample ids given more than once (their rows are looked at too)."""
+    `ids`: pd.factorize of the sample ids, when the caller has it."""
     n = len(raw)
     date = _present(raw, "sampled_on", n)
     unit = _present(raw, "unit_id", n)
-    looked = ~(date & unit)
-    if len(repeated):
-        labelled = pd.unique(repeated)
-        labelled = labelled[_labels(labelled, SUMMARY_LABELS) != None]  # noqa: E711
-        if len(labelled):
-            looked |= raw["sample_id"].isin(labelled).to_numpy()
-    looked = np.flatnonzero(looked)
+    no_id = ~_present(raw, "sample_id", n)
+    ids = _labels(raw["sample_id"].to_numpy(dtype=object), SUMMARY_LABELS, ids)
+    looked = np.flatnonzero(~(date & unit) | no_id | (ids != None))  # noqa: E711 (numpy element-wise)
     if not len(looked):
-        return SummaryRows(np.empty(0, dtype=np.int64), [], [], [])
-    found = {}  # position -> (field, cell, kind)
-    ids = _labels(raw["sample_id"].to_numpy(dtype=object)[looked], SUMMARY_LABELS)
-    for k in np.flatnonzero(ids != None):  # noqa: E711 (numpy element-wise)
-        found[int(looked[k])] = ("sample_id", raw["sample_id"].iat[looked[k]], ids[k])
-    plain = ~np.isin(looked, list(found))  # the others: a label elsewhere, with no date or unit of their own
+        return SummaryRows(np.empty(0, dtype=np.int64), [], [], [], [])
+    found = {}  # position -> (field, cell, kind, what the row lacks besides)
+    for k in looked[ids[looked] != None]:  # noqa: E711
+        cell = raw["sample_id"].iat[k]
+        if date[k] and unit[k] and label_key(cell) in _ID_ONLY:
+            continue  # `N` beside a date and a unit is a sample's id as much as a count's label
+        found[int(k)] = ("sample_id", cell, ids[k], "")
+    plain = ~np.isin(looked, list(found))  # the others: a label elsewhere, with no id, or no date or unit
     labels = {column: _labels(raw[column].to_numpy(dtype=object)[looked], _ELSEWHERE)
               for column in ("sampled_on", "unit_id") if column in raw.columns}
+    own = np.ones(len(looked), dtype=bool)  # no date or unit of its own: an empty cell, or the label itself
     for column in ("sampled_on", "unit_id"):
         present = (date if column == "sampled_on" else unit)[looked]
-        plain &= ~present | (labels[column] != None if column in labels else False)  # noqa: E711
+        own &= ~present | (labels[column] != None if column in labels else False)  # noqa: E711
+    lacks = np.where(no_id[looked], NO_ID, np.where(own, NO_DATE_OR_UNIT, ""))
+    plain &= lacks != ""
     for column in raw.columns:
         if column in _NOT_LABELS or column in numeric or not plain.any():
             continue
         kinds = labels.get(column)
         if kinds is None:
             kinds = _labels(raw[column].to_numpy(dtype=object)[looked], _ELSEWHERE)
+        subtotals = _subtotals(raw[column].to_numpy(dtype=object)[looked], plain & no_id[looked])
+        kinds = np.where(kinds != None, kinds, subtotals)  # noqa: E711
         for k in np.flatnonzero(plain & (kinds != None)):  # noqa: E711
-            found[int(looked[k])] = (column, raw[column].iat[looked[k]], kinds[k])
+            found[int(looked[k])] = (column, raw[column].iat[looked[k]], kinds[k], lacks[k])
             plain[k] = False
     _footers(raw, numeric, looked[~_present(raw, "class", n)[looked]], found)
     at = np.array(sorted(found), dtype=np.int64)
-    return SummaryRows(at, [found[k][0] for k in at], [found[k][1] for k in at], [found[k][2] for k in at])
+    return SummaryRows(at, *(list(part) for part in zip(*(found[k] for k in at))) if len(at) else ([],) * 4)
+
+
+# The line a spreadsheet's subtotal command writes under each group: the group's value and the
+# function (`HPU-1 Average`, `HPU-1 Total`, `Grand Max`), the row's other text cells left empty, so
+# without a sample id (spreadsheet subtotal wording, from memory). Looked for only on rows without
+# a sample id: a unit named `Line Max` on a sample keeps its grade.
+_SUBTOTAL = re.compile(r"\S.*\s(total|average|count|count nums|max|min|product|std ?dev|std ?devp|var|varp)",
+                       re.IGNORECASE)
+SUBTOTAL = "a spreadsheet subtotal line"
+
+
+def _subtotals(cells: np.ndarray, looked: np.ndarray) -> np.ndarray:
+    """SUBTOTAL where a cell (at `looked`, a few) is a subtotal line's label, else None."""
+    kinds = np.full(len(cells), None, dtype=object)
+    for k in np.flatnonzero(looked):
+        if isinstance(cells[k], str) and _SUBTOTAL.fullmatch(cells[k].strip()):
+            kinds[k] = SUBTOTAL
+    return kinds
 
 
 def _footers(raw: pd.DataFrame, numeric: set, rows: np.ndarray, found: dict) -> None:
@@ -139,7 +169,7 @@ def _footers(raw: pd.DataFrame, numeric: set, rows: np.ndarray, found: dict) -> 
         cells = raw[column].iloc[rows]
         hit = cells.notna().to_numpy() & cells.astype(str).str.strip().str.fullmatch(_FOOTER).fillna(False).to_numpy()
         for k in np.flatnonzero(hit):
-            found[int(rows[k])] = (column, cells.iat[k], FOOTER)
+            found[int(rows[k])] = (column, cells.iat[k], FOOTER, "no class")
         rows = rows[~hit]
 
 
@@ -150,18 +180,34 @@ def _present(raw: pd.DataFrame, column: str, n: int) -> np.ndarray:
     return pd.notna(raw[column].to_numpy(dtype=object))
 
 
-def _labels(cells: np.ndarray, known: dict) -> np.ndarray:
+def _labels(cells: np.ndarray, known: dict, factorized: tuple | None = None) -> np.ndarray:
     """What each cell says its row is (a kind of `known`), None where it is no label. Each
-    distinct text is keyed once; when there are many (ids), only those that do not end in a
-    digit (no label does), found in one numpy pass over their characters."""
-    codes, uniques = pd.factorize(cells, use_na_sentinel=True)
+    distinct text is keyed once (`factorized`: the cells' pd.factorize, when known); when there
+    are many (ids), only those that may be labels (_may_be_labels)."""
+    codes, uniques = factorized or pd.factorize(cells, use_na_sentinel=True)
     kinds = np.full(len(uniques) + 1, None, dtype=object)  # the last for a missing cell
     at = np.arange(len(uniques))
     if len(uniques) > 1000:
-        text = np.asarray(uniques, dtype=object).astype(str)
-        ends = np.maximum(np.strings.str_len(text) - 1, 0)
-        last = text.view(np.uint32).reshape(len(text), -1)[at, ends] if text.dtype.itemsize else np.zeros(len(at))
-        at = at[(last < ord("0")) | (last > ord("9"))]
+        at = at[_may_be_labels(uniques)]
     for k in at:
         kinds[k] = known.get(label_key(uniques[k]))
     return kinds[codes]
+
+
+def _may_be_labels(texts) -> np.ndarray:
+    """Which texts may be labels: those without a digit (no label has one), or ending in a bracket
+    (a note such as `(n=12)`). One numpy pass over their characters, joined: sample ids have digits."""
+    try:
+        joined = "\x00".join(texts)
+    except TypeError:  # not all text
+        return np.ones(len(texts), dtype=bool)
+    points = (np.frombuffer(joined.encode("ascii"), dtype=np.uint8) if joined.isascii() else
+              np.frombuffer(joined.encode("utf-32-le", "surrogatepass"), dtype=np.uint32))
+    points = np.append(points, 0)  # each text ends at a separator, the last too
+    ends = np.flatnonzero(points == 0)
+    if len(ends) != len(texts):  # a text holds the separator itself
+        return np.ones(len(texts), dtype=bool)
+    starts = np.concatenate([[0], ends[:-1] + 1])  # at its separator when a text is empty: no digit
+    digit = ((points >= ord("0")) & (points <= ord("9"))).view(np.uint8)
+    last = points[np.maximum(ends - 1, 0)] * (ends > starts)
+    return (np.maximum.reduceat(digit, starts) == 0) | (last == ord(")")) | (last == ord("]"))

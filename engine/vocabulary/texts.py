@@ -1,4 +1,5 @@
-"""Text columns with a closed vocabulary (FTIR `method`, `base_stock`): canonical spelling per row, or why not."""
+"""Text columns with a closed vocabulary (FTIR `method`, `base_stock`): canonical spelling per row, or why not;
+and how an open one, the lubricant code, is compared."""
 
 from __future__ import annotations
 
@@ -10,6 +11,13 @@ from sumpwise.vocabulary.measures import canonical_method
 
 # column -> function from a cell's text to its canonical spelling (ValueError: refused, with the reason)
 TEXT_VOCABULARIES = {"method": canonical_method, "base_stock": canonical_base_stock}
+
+
+def lubricant_key(code) -> str:
+    """A lubricant code as compared with the rule set's: case and surrounding spaces ignored, as field
+    tests compare text (a lab's `hyd-46-m` is the table's HYD-46-M, not an unknown oil graded
+    without its new-oil values, its ester cap or its reference spectrum)."""
+    return str(code).strip().casefold()
 
 
 def canonical_texts(column: pd.Series, canonical) -> tuple[pd.Series, np.ndarray]:

@@ -190,8 +190,9 @@ def test_the_carbonyl_area_is_the_trapezoid_area_above_the_window_mean_baseline(
     triangle = np.clip(0.3 * (1 - np.abs(X - 1730) / 40), 0, None)
     inside = (X >= 1670) & (X <= 1800)
     assert np.trapezoid(triangle[inside], X[inside]) == pytest.approx(12.0, rel=1e-9)
-    # and an oil's C-H stretch at its 4.0 ceiling over 2800-3000 cm-1, far from every window read
-    stretch = np.where((X >= 2800) & (X <= 3000), 4.0, 0.0)
+    # and an oil's C-H stretch at its 4.0 ceiling over 2800-3000 cm-1 and its CH2 bend (3.0 over
+    # 1440-1480 cm-1, a 0.1 mm cell's), far from every window read
+    stretch = np.where((X >= 2800) & (X <= 3000), 4.0, 0.0) + np.where((X >= 1440) & (X <= 1480), 3.0, 0.0)
     write_jcampdx(tmp_path / "t.jdx", X, baseline + triangle + stretch, form="AFFN", significant=9)
     (row,) = list(csv.DictReader(io.StringIO(run_cli("spectra", tmp_path / "t.jdx").out)))
     assert float(row["oxidation_area"]) == pytest.approx(12.0, rel=1e-5)
@@ -324,6 +325,15 @@ def test_a_reference_diluted_like_its_samples_but_read_neat_is_a_mismatch_not_an
                   form="DIFDUP")
     rows = [HEADER + ",dilution", "P,C1,screw-compressor,COMP-46-X,2026-11-02,3000,0.15,used.jdx,4"]
     run, records = _grade(tmp_path, rows, "--reference", f"COMP-46-X={tmp_path / 'new.jdx'}")
+    # now: its CH2 bend (0.74 as recorded, about 3 through 0.1 mm of neat oil: from memory, see
+    # spectrum.py) says the reference was not read through 0.1 mm of neat oil, so the run stops on it
+    assert run.code == 2 and run.out == ""
+    assert re.search(r"new-oil reference spectrum for COMP-46-X: .*new\.jdx: its C-H bend \(1450-1470 cm-1\) stands "
+                     r"0\.7\d\d .*cell looks thinner \(about 0\.025 mm of neat oil\)", run.err), run.err
+    # a reference whose file says 0.1 mm is trusted, and the differential reading shows the mismatch
+    original = (tmp_path / "new.jdx").read_text()
+    (tmp_path / "new.jdx").write_text(original.replace("##OWNER", "##PATH LENGTH= 0.1 MM\n##OWNER"))
+    run, records = _grade(tmp_path, rows, "--reference", f"COMP-46-X={tmp_path / 'new.jdx'}")
     assert run.code == 0, run.err
     record = records["P"]
     # before: 4 x 0.25 x used - 0.25 x new left three quarters of the ester's 2.0 carbonyl in the
@@ -336,7 +346,7 @@ def test_a_reference_diluted_like_its_samples_but_read_neat_is_a_mismatch_not_an
     assert "carbonyl-differential" in {n["rule"] for n in record["not_evaluated"]}
     # the way to say it: the reference's neat-oil thickness as its path length (0.1 mm / 4), which
     # reads the 10 abs/cm gained and infers the ester (its caveat caps and explains)
-    text = (tmp_path / "new.jdx").read_text().replace("##OWNER", "##PATH LENGTH= 0.025 MM\n##OWNER")
+    text = original.replace("##OWNER", "##PATH LENGTH= 0.025 MM\n##OWNER")
     (tmp_path / "new.jdx").write_text(text)
     run, records = _grade(tmp_path, rows, "--reference", f"COMP-46-X={tmp_path / 'new.jdx'}")
     record = records["P"]

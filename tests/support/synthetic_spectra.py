@@ -82,6 +82,8 @@ def oil_spectrum(
     seed: int = 0,
     path_mm: float = 0.1,
     stray_light: float = STRAY_LIGHT,
+    c_h: float = 1.0,
+    ester_additive: float = 0.0,
 ):
     """Recorded absorbance of a made-up oil in a transmission cell of `path_mm` of neat oil.
 
@@ -90,10 +92,15 @@ def oil_spectrum(
     area h * sigma * sqrt(2 pi). `soot` lifts the whole spectrum (a flat offset,
     as soot scatters broadly); `antiwear_left` is the fraction of anti-wear band
     remaining. Every band scales with path_mm (Beer-Lambert), then the stray-light
-    ceiling applies (stray_light=0: the true absorbance, unlimited).
+    ceiling applies (stray_light=0: the true absorbance, unlimited). `c_h` scales the
+    hydrocarbon C-H bands (a base stock with less CH2, such as a PAG: about 0.7, from
+    memory); `ester_additive` adds that fraction of an ester base stock's bands (its
+    carbonyl 2.0 high at 0.1 mm, and its C-O bands): 0.05-0.25 is an ester additive such
+    as a polymethacrylate viscosity modifier at a few percent (from memory).
     """
     x = np.asarray(x, dtype=float)
-    y = _true_absorbance(x, base_stock, oxidation, nitration, sulfation, water, soot, antiwear_left, slope, offset)
+    y = _true_absorbance(x, base_stock, oxidation, nitration, sulfation, water, soot, antiwear_left, slope, offset,
+                         c_h, ester_additive)
     y = y * (path_mm / 0.1)
     if stray_light:
         y = -np.log10((10.0 ** -y + stray_light) / (1.0 + stray_light))
@@ -131,11 +138,16 @@ def at_resolution(x, y, resolution: float):
     return np.convolve(np.pad(y, reach, mode="edge"), kernel / kernel.sum(), mode="valid")
 
 
-def _true_absorbance(x, base_stock, oxidation, nitration, sulfation, water, soot, antiwear_left, slope, offset):
+def _true_absorbance(x, base_stock, oxidation, nitration, sulfation, water, soot, antiwear_left, slope, offset,
+                     c_h=1.0, ester_additive=0.0):
     y = offset + slope * (x - x.min()) + soot
-    bands = _HYDROCARBON + (_ESTER if base_stock == "ester" else ())
+    for centre, area, sigma in _HYDROCARBON[:-1]:
+        y = y + gaussian(x, centre, area * c_h, sigma)
+    bands = _HYDROCARBON[-1:] + (_ESTER if base_stock == "ester" else ())
     for centre, area, sigma in bands:
         y = y + gaussian(x, centre, area, sigma)
+    for centre, area, sigma in _ESTER if ester_additive else ():
+        y = y + gaussian(x, centre, area * ester_additive, sigma)
     for centre, area, sigma in _ADDITIVE:
         y = y + gaussian(x, centre, area * antiwear_left, sigma)
     for name, height in (("oxidation", oxidation), ("nitration", nitration), ("sulfation", sulfation),

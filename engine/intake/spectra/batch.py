@@ -25,7 +25,8 @@ import pandas as pd
 
 from sumpwise.intake.spectra.bands import BandSet, load_bands, measure_columns, plan_bands, saturated_bands
 from sumpwise.intake.spectra.jcampdx import read_jcampdx, read_jcampdx_many
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, plausible_sampling, sampling_problem
+from sumpwise.intake.spectra.spectrum import (MAX_PATH_MM, Spectrum, SpectrumError, path_problem, plausible_path,
+                                              plausible_sampling, sampling_problem)
 from sumpwise.intake.spectra.spectrum_csv import read_spectrum_csv
 
 REFERENCE_PATH_MM = 0.1
@@ -44,6 +45,7 @@ class Rejection:
     spectrum: str
     line: int | None
     reason: str
+    code: str = "F001"  # PROBLEM_CODES
 
     @property
     def message(self) -> str:
@@ -57,8 +59,8 @@ def check_path_length(value, what: str = "path length") -> float:
         number = float(value)
     except (TypeError, ValueError):
         raise ValueError(f"{what}: expected a number of mm, got {value!r}") from None
-    if not (math.isfinite(number) and 0 < number <= 10):
-        raise ValueError(f"{what}: expected a finite number of mm above 0 and at most 10, got {value!r}")
+    if not (math.isfinite(number) and 0 < number <= MAX_PATH_MM):
+        raise ValueError(f"{what}: expected a finite number of mm above 0 and at most {MAX_PATH_MM:g}, got {value!r}")
     return number
 
 
@@ -145,14 +147,19 @@ def _measure_columns_matrix(x, columns, bands, path_length_mm, reference, refere
 
 def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: BandSet | None = None,
                     reference_path_length_mm: float | None = None, block_size: int = DEFAULT_BLOCK,
-                    dilutions=None, needed=None, direct_bands=()):
+                    dilutions=None, needed=None, direct_bands=(), declared=None, peaks=()):
     """Read and measure spectra; exactly one row per path, in order, plus the list of rejections.
 
     references: None for all direct; a sequence aligned with `paths` (a reference
     file or None per spectrum: two samples naming the same spectrum file may have
     different references); or a mapping from a path to its reference file.
     path_length_mm / reference_path_length_mm: used for a file that has no
-    `##PATH LENGTH=` of its own. dilutions: None or one factor per path.
+    `##PATH LENGTH=` of its own. dilutions: None or one factor per path. declared: None or one
+    bool per path, True where the caller's path_length_mm is that sample's own declaration (a
+    row's path_length_mm) rather than a run-wide assumption; a path neither the file nor the caller
+    declares is checked against the C-H bend (spectrum.path_problem), a declared one is trusted.
+    peaks: height bands whose peak wavenumber the caller needs, as `<band>_peak_cm1` columns (NaN
+    where the band is not measured).
     needed: the band names the caller needs (default: all); a spectrum none of
     whose needed bands can be measured is rejected. direct_bands: bands read on
     the used spectrum itself even when it has a reference (in the row's abs/cm),
@@ -165,6 +172,7 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     paths = [Path(p) for p in paths]
     refs = _aligned_references(paths, references)
     dilutions = [1.0] * len(paths) if dilutions is None else [float(d) for d in dilutions]
+    declared = [False] * len(paths) if declared is None else [bool(d) for d in declared]
     needed = tuple(needed) if needed is not None else bands.names
     rejections = {}
     spectra = {}
@@ -173,7 +181,7 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
     for i, path in enumerate(paths):
         result = read[path]
         if isinstance(result, SpectrumError):
-            rejections[i] = Rejection(str(path), result.line, result.reason)
+            rejections[i] = Rejection(str(path), result.line, result.reason, result.code)
         else:
             spectra[i] = result
     loaded_refs = {}
@@ -188,13 +196,17 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
                 loaded_refs[ref_path] = exc
             else:
                 ref = loaded_refs[ref_path]
+                ref_mm = ref.path_length_mm or reference_path_length_mm or path_length_mm
                 problem = ("a difference spectrum is not a new oil" if ref.difference else
-                           sampling_problem(ref, ref.path_length_mm or reference_path_length_mm or path_length_mm,
-                                            bands.saturation_absorbance))
+                           sampling_problem(ref, ref_mm, bands.saturation_absorbance))
                 if problem is not None:
                     loaded_refs[ref_path] = SpectrumError(ref.source, None, problem)
+                elif ref.path_length_mm is None and (problem := path_problem(
+                        ref, ref_mm, True, bands.saturation_absorbance, "a path assumed: no ##PATH LENGTH= in the file")):
+                    loaded_refs[ref_path] = SpectrumError(ref.source, None, problem, "F002")
         if isinstance(loaded_refs[ref_path], SpectrumError):
-            rejections[i] = Rejection(str(paths[i]), None, f"reference spectrum unusable: {loaded_refs[ref_path]}")
+            rejections[i] = Rejection(str(paths[i]), None, f"reference spectrum unusable: {loaded_refs[ref_path]}",
+                                      loaded_refs[ref_path].code)
             del spectra[i]
         elif (problem := _resolution_problem(spectra[i], loaded_refs[ref_path])) is not None:
             rejections[i] = Rejection(str(paths[i]), None, problem)
@@ -224,6 +236,23 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             members, columns, neat = [members[k] for k in np.flatnonzero(fine)], columns[:, fine], neat[fine]
             if not members:
                 continue
+        # a whole oil read at a path neither its file nor the caller declared: the C-H bend must not say the
+        # cell is far thinner or thicker (a 0.025 mm cell read as 0.1 mm put every band at a quarter)
+        assumed = np.array([spectra[i].path_length_mm is None and not declared[i] for i in members])
+        if not difference and assumed.any():
+            undiluted = np.array([dilutions[i] == 1.0 for i in members])
+            fine = ~assumed | plausible_path(x, columns, neat, undiluted, bands.saturation_absorbance)
+            if not fine.all():
+                for k in np.flatnonzero(~fine):
+                    i = members[k]
+                    basis = "a path assumed: no ##PATH LENGTH= in the file" + (
+                        "" if dilutions[i] == 1.0 else f", diluted {dilutions[i]:g} times")
+                    rejections[i] = Rejection(str(paths[i]), None, path_problem(
+                        spectra[i], neat[k], bool(undiluted[k]), bands.saturation_absorbance, basis), "F002")
+                    del spectra[i]
+                members, columns, neat = [members[k] for k in np.flatnonzero(fine)], columns[:, fine], neat[fine]
+                if not members:
+                    continue
         plan = plan_bands(x, bands.bands)
         reference, ref_path_mm = None, None
         saturated = saturated_bands(plan, columns, bands.saturation_absorbance)
@@ -242,8 +271,8 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
             reference = np.interp(x, ref.wavenumber, ref.absorbance, left=np.nan, right=np.nan)[:, None]
             # NaN here is outside the reference's range (its own message below), not saturation
             ref_saturated = saturated_bands(plan, np.nan_to_num(reference, nan=0.0), bands.saturation_absorbance)
-        values, _, uncovered = _measure_columns_matrix(
-            x, columns, bands, neat, reference, ref_path_mm, block_size, plan)
+        values, positions, uncovered = _measure_columns_matrix(
+            x, columns, bands, neat, reference, ref_path_mm, block_size, plan, with_positions=bool(peaks))
         if difference:  # already used minus new: abs/cm as a subtraction reads it (ASTM D7412 12.1-12.2)
             values = {name: value * ABS_PER_CM_PER_ABS_PER_01MM for name, value in values.items()}
         if direct:
@@ -286,14 +315,17 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
                 rejections[i] = Rejection(str(paths[i]), line, "none of the needed bands could be measured; " + first
                                           + _unit_hint(spectra[i]))
                 continue
-            rows[i] = row | {"method": method, "unit": UNITS[method]}
+            rows[i] = row | {"method": method, "unit": UNITS[method]} | {
+                f"{name}_peak_cm1": float(positions[name][k]) if math.isfinite(row[name]) else math.nan
+                for name in peaks}
             notes[i] = "; ".join(why)
 
     records = []
     for i, path in enumerate(paths):
         ref_path = None if i in spectra and spectra[i].difference else refs[i]
         record = {"spectrum": str(path)}
-        record |= rows.get(i, {name: np.nan for name in bands.names} | {"method": DIRECT if ref_path is None else SUBTRACTION})
+        record |= rows.get(i, {name: np.nan for name in bands.names} | {f"{name}_peak_cm1": np.nan for name in peaks}
+                           | {"method": DIRECT if ref_path is None else SUBTRACTION})
         record["unit"] = UNITS[record["method"]] if i in rows else ""
         record["area_unit"] = AREA_UNITS[record["method"]] if i in rows else ""
         record["path_length_mm"] = used_path.get(i, path_length_mm)
@@ -302,8 +334,8 @@ def measure_spectra(paths, references=None, path_length_mm: float = 0.1, bands: 
         record["notes"] = notes.get(i, "")
         record["rejection"] = rejections[i].message if i in rejections else ""
         records.append(record)
-    columns = ["spectrum", *bands.names, "method", "unit", "area_unit", "path_length_mm", "dilution", "reference",
-               "notes", "rejection"]
+    columns = ["spectrum", *bands.names, *(f"{name}_peak_cm1" for name in peaks), "method", "unit", "area_unit",
+               "path_length_mm", "dilution", "reference", "notes", "rejection"]
     frame = pd.DataFrame.from_records(records, columns=columns)
     return frame, [rejections[i] for i in sorted(rejections)]
 

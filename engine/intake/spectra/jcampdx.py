@@ -227,15 +227,31 @@ _SAMPLING_LABELS = (("SAMPLINGPROCEDURE", "SAMPLING PROCEDURE", _NO_CELL), ("DAT
                     ("TITLE", "TITLE", _NO_CELL_IN_TITLE))
 
 
+# ##STATE= is JCAMP-DX's label for the sample's physical state (McDonald & Wilks 1988; from memory). An oil
+# is a liquid; a gas spectrum's C-H stretch still reaches the saturation threshold, so the C-H check alone
+# took a public gas-phase spectrum of butane (##STATE=GAS) for a whole oil.
+_NOT_AN_OIL_STATE = re.compile(r"\b(GAS|VAPOU?R)\b")
+
+
 def _check_sampling(ctx):
-    """Refuse a file whose ##SAMPLING PROCEDURE=, ##DATA PROCESSING= or ##TITLE= names a method without a cell
-    path length (ATR, reflectance)."""
+    check_sampling_labels(ctx.source, ctx.header, ctx.line)
+
+
+def check_sampling_labels(source, header, line_of, mark="##"):
+    """Refuse labels (keys upper case without spaces) whose ##SAMPLING PROCEDURE=, ##DATA PROCESSING= or
+    ##TITLE= names a method without a cell path length (ATR, reflectance), or whose ##STATE= names a gas.
+    line_of(key) gives a label's line; `mark` how the file writes a label in the message."""
+    state = header.get("STATE", "")
+    if (found := _NOT_AN_OIL_STATE.search(state.upper())) is not None:
+        raise SpectrumError(source, line_of("STATE"),
+                            f"{mark}STATE={state!r} names {found.group(1)}: an oil spectrum is of a liquid; a gas's "
+                            "absorbance per 0.1 mm says nothing of an oil")
     for key, label, words in _SAMPLING_LABELS:
-        said = ctx.header.get(key, "")
+        said = header.get(key, "")
         found = words.search(said.upper())
         if found:
-            raise SpectrumError(ctx.source, ctx.line(key),
-                                f"##{label}={said!r} names {found.group(1)}: such absorbances have no cell "
+            raise SpectrumError(source, line_of(key),
+                                f"{mark}{label}={said!r} names {found.group(1)}: such absorbances have no cell "
                                 "path length, so they cannot be put per 0.1 mm as transmission-cell readings are")
 
 

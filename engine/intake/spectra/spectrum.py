@@ -22,10 +22,11 @@ NANOMETRES_PER_CM1 = 1.0e7  # wavelength in nm = 10 000 000 / wavenumber in cm-1
 class SpectrumError(ValueError):
     """A spectrum file that cannot be used: names the file, the line (if known) and why."""
 
-    def __init__(self, source: str, line: int | None, reason: str):
+    def __init__(self, source: str, line: int | None, reason: str, code: str = "F001"):
         self.source = source
         self.line = line
         self.reason = reason
+        self.code = code  # PROBLEM_CODES: F001 unusable, F002 path length far from the one assumed
         where = f"{source}:{line}" if line is not None else source
         super().__init__(f"{where}: {reason}")
 
@@ -75,6 +76,14 @@ def absorbance_from_transmittance(transmittance, percent: bool):
         return np.where(t > 0, -np.log10(np.where(t > 0, t, 1.0)), np.nan)
 
 
+# A percent transmittance spectrum can pass 100 % where the background absorbed more than the sample (a few
+# percent: common practice, no source), never over most of its points. A median above 120 is not a
+# transmittance: a single-beam intensity spectrum labelled TRANSMITTANCE (a public JCAMP-DX reader's example
+# header reads ##YUNITS=TRANSMITTANCE with ##MAXY=3.75e+006) read as percent put an oil's carbonyl on the
+# source's curve: 0.085 gained read -0.6 abs/cm, normal. Our choice, no source.
+MAX_PERCENT_MEDIAN = 120.0
+
+
 def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), evenly_spaced=False,
                   path_length_mm=None, difference=False, resolution_cm1=None):
     """Convert abscissa to ascending cm-1 and ordinate to absorbance, checking monotonicity.
@@ -96,7 +105,14 @@ def make_spectrum(source, x, y, x_units, y_units, range_line=None, notes=(), eve
         # A fraction spectrum can reach past 1.5 at a few points (a public test file peaks at 1.505),
         # and read as percent every absorbance gains 2 and every band reads as saturated; a percent
         # spectrum with a median of 1.5 % or less passes almost no light anywhere. Common practice, no source.
-        percent = percent_label or (finite.size > 0 and float(np.median(finite)) > 1.5)
+        median = float(np.median(finite)) if finite.size else math.nan
+        percent = percent_label or (finite.size > 0 and median > 1.5)
+        if median > MAX_PERCENT_MEDIAN:
+            raise SpectrumError(source, range_line, (
+                f"y values labelled {y_units!r} have a median of {median:.4g}: a transmittance is the light through "
+                f"the sample over the light through the background, at most 1 (or 100 %) almost everywhere, so "
+                "these are a single-beam or raw intensity spectrum, whose bands sit on the instrument's own "
+                "curve; export the sample's transmittance or absorbance spectrum (ratioed against its background)"))
         if percent and not percent_label:
             notes.append("transmittance read as percent (median above 1.5)")
         notes.append("absorbance = -log10(transmittance)")
@@ -176,6 +192,12 @@ def y_unit_kind(source, text, line=None):
                                       "(fraction or percent) are read")
 
 
+# The longest path read as an oil's (the path-length options' bound too): whole oils are read through cells of
+# 0.025-0.1 mm (ASTM D7214, confirmed); gas cells are centimetres long (public infrared files of gases say 5-18 CM).
+# A gas spectrum's C-H stretch reaches the saturation threshold as recorded, which the C-H check takes for a
+# whole oil through any cell: read per 0.1 mm at its 5 cm, every band was 500 times too small. Our choice.
+MAX_PATH_MM = 10.0
+
 _PATH_UNITS_MM = {"MM": 1.0, "CM": 10.0, "UM": 1.0e-3, "MICROMETERS": 1.0e-3, "MICROMETRES": 1.0e-3,
                   "MICRONS": 1.0e-3, "MILLIMETERS": 1.0, "MILLIMETRES": 1.0, "CENTIMETERS": 10.0,
                   "CENTIMETRES": 10.0}
@@ -199,14 +221,21 @@ def declares_difference(text: str) -> bool:
 
 
 def parse_path_length(source, line, text):
-    """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `0.1MM`, `5 CM` or `18 CM CELL` (a number, then its unit)."""
-    match = _NUMBER_THEN_UNIT.match(text.replace(",", " "))
+    """mm from a `##PATH LENGTH=` value such as `0.1 MM`, `0.1MM`, `5 CM`, `18 CM CELL` or `100 µm` (a number,
+    then its unit; the micro sign or Greek mu read as u)."""
+    match = _NUMBER_THEN_UNIT.match(text.replace(",", " ").replace("\u00b5", "u").replace("\u03bc", "u"))
     value = float(match.group(1)) if match else float("nan")
     unit = (match.group(2) or "").upper().rstrip(".") if match else ""
     if not (math.isfinite(value) and value > 0) or unit not in _PATH_UNITS_MM:
         raise SpectrumError(source, line, f"##PATH LENGTH={text!r}: expected a positive number and its unit "
                                           "(MM, CM or UM), e.g. 0.1 MM")
-    return value * _PATH_UNITS_MM[unit]
+    mm = value * _PATH_UNITS_MM[unit]
+    if mm > MAX_PATH_MM:
+        raise SpectrumError(source, line, (
+            f"##PATH LENGTH={text!r} is {mm:g} mm: an oil is read through a cell of 0.025-0.1 mm (ASTM D7214), and a "
+            f"path above {MAX_PATH_MM:g} mm is a gas cell's, so this is not an oil spectrum (per 0.1 mm every band "
+            f"would read {mm / REFERENCE_MM:g} times too small)"))
+    return mm
 
 
 # What tells a transmission spectrum of a whole oil from a difference spectrum or an ATR one.
@@ -341,6 +370,66 @@ def sampling_problem(spectrum: Spectrum, neat_path_mm: float, saturation: float 
                 f"wrong path length or dilution (a difference spectrum keeps less than {CANCELLED:g})")
     return (f"{where}; any oil through a transmission cell reads at least {C_H_FLOOR:g} there (or reaches the "
             f"{saturation:g} saturation threshold as recorded): {kind}")
+
+
+# The C-H stretch reaches the instrument's ceiling through any cell of the oil methods, so it cannot tell a
+# 0.025 mm cell from a 0.1 mm one: a 0.025 mm spectrum read as 0.1 mm passed the check above while every band
+# read at a quarter. The CH2 bend near 1460 cm-1 does not saturate through thin cells: about 3 absorbance at
+# 0.1 mm of a hydrocarbon oil (from memory: ~45 mol/L of CH2; the synthetic oils of the tests read 2.94),
+# 0.75 through 0.025 mm, so Beer-Lambert puts the path in it. Base stocks differ in CH2 (an ester or a PAG
+# carries perhaps 0.6-0.8 of a hydrocarbon's, from memory), so the bend cannot rescale a reading to 1 %, only
+# show a path far from the one assumed: by more than 3 from the typical figure. Our choice, no source:
+# PATH_FLOOR catches a cell a third or less of the one assumed (0.025 mm read as 0.1 mm: 0.75); a bend at or
+# above the saturation threshold as recorded is a lower bound and never too thin. PATH_CEILING catches a cell
+# three times or more the one assumed (0.1 mm read as 0.025 mm: 11.8); judged on undiluted samples only, since
+# a hydrocarbon solvent brings its own bend; a bend weaker than the hydrocarbon's, or one pressed under the
+# stray-light ceiling in a thick cell, may stay under it. A cell half or twice the one assumed is not caught.
+# Only a path nobody declared is judged (batch.measure_spectra): a declared one is trusted, which is the way
+# through for a fluid whose bend is intrinsically weak.
+C_H_BEND_TYPICAL = 3.0  # absorbance of a whole hydrocarbon oil's CH2 bend above the level at 0.1 mm: from memory
+PATH_FLOOR = 1.0
+PATH_CEILING = 8.0
+
+
+def bend_block(x, columns):
+    """(C-H bend's highest point above the 1900-2200 cm-1 level as recorded, that point's own absorbance) per
+    column of a wavenumber-major block, or (None, None) when the grid does not reach both windows."""
+    level = _slab(x, columns, C_H_BASELINE, np.mean, np.nanmean)
+    top = _slab(x, columns, C_H_BEND, np.max, np.nanmax)
+    if level is None or top is None:
+        return None, None
+    return top - level, top
+
+
+def plausible_path(x, columns, neat_path_mm, undiluted, saturation: float = 1.5) -> np.ndarray:
+    """bool per column of a whole-oil block: whether path_problem finds nothing (one rule, whole-block reductions)."""
+    recorded, top = bend_block(x, columns)
+    if recorded is None:
+        return np.ones(columns.shape[1], dtype=bool)
+    at_01mm = recorded * REFERENCE_MM / np.asarray(neat_path_mm, dtype=float)
+    with np.errstate(invalid="ignore"):
+        thin = (top < saturation) & (at_01mm < PATH_FLOOR)
+        thick = np.asarray(undiluted, dtype=bool) & (at_01mm > PATH_CEILING)
+    return ~(thin | thick)
+
+
+def path_problem(spectrum: Spectrum, neat_path_mm: float, undiluted: bool, saturation: float = 1.5,
+                 basis: str = "a path assumed") -> str | None:
+    """Why the path length a whole-oil spectrum is read at cannot be its cell's, or None (see PATH_FLOOR)."""
+    recorded, top = bend_block(spectrum.wavenumber, spectrum.absorbance[:, None])
+    if recorded is None or plausible_path(spectrum.wavenumber, spectrum.absorbance[:, None], [neat_path_mm],
+                                          [undiluted], saturation)[0]:
+        return None
+    at_01mm = float(recorded[0]) * REFERENCE_MM / neat_path_mm
+    estimate = neat_path_mm * at_01mm / C_H_BEND_TYPICAL
+    side = "thinner" if at_01mm < PATH_FLOOR else "thicker"
+    scale = "a third or less of" if side == "thinner" else "several times"
+    return (f"its C-H bend ({_span('C-H bend')} cm-1) stands {float(recorded[0]):.3f} above the "
+            f"{C_H_BASELINE[0]:g}-{C_H_BASELINE[1]:g} cm-1 level as recorded, {at_01mm:.3f} at 0.1 mm of neat oil "
+            f"when read through {neat_path_mm:g} mm ({basis}); a whole oil reads about {C_H_BEND_TYPICAL:g} there at 0.1 mm, "
+            f"so the cell looks {side} (about {estimate:.2g} mm of neat oil) and every band would read at "
+            f"{scale} its value; declare the path length (##PATH LENGTH= in the file, a path_length_mm column, "
+            f"or the path-length option) and the dilution")
 
 
 def _span(band):

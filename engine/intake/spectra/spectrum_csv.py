@@ -8,6 +8,12 @@ converted; one named absorbance is read as it is; one that names neither is refu
 since its scale is unknown. A first column named for a wavelength in micrometres or
 nanometres is converted to wavenumbers. Without a header the columns are wavenumber (cm-1)
 and absorbance, as documented.
+
+Some instruments export a labelled block instead: `LABEL,value` rows in JCAMP-DX's names
+(`DATA TYPE,INFRARED SPECTRUM`, `XUNITS,1/CM`, `YUNITS,ABSORBANCE`, `NPOINTS,12447`), a line
+`XYDATA`, the rows, a blank line and free text (a public instrument-export test file carries
+its settings there in a legacy Japanese encoding). Those labels are read as JCAMP-DX's are;
+the rows end at the first blank line, and what follows is not read.
 """
 
 from __future__ import annotations
@@ -17,7 +23,9 @@ from pathlib import Path
 
 import numpy as np
 
-from sumpwise.intake.spectra.spectrum import Spectrum, SpectrumError, declares_difference, make_spectrum
+from sumpwise.intake.spectra.jcampdx import check_sampling_labels
+from sumpwise.intake.spectra.spectrum import (Spectrum, SpectrumError, declares_difference, make_spectrum,
+                                              parse_path_length, y_unit_kind)
 
 # Second-column headers, lower-cased with spaces, brackets and punctuation other than % removed.
 _ABSORBANCE_WORDS = ("a", "abs", "au", "log1t")  # and any name that starts with "absorbance"
@@ -29,20 +37,102 @@ def read_spectrum_csv(path: Path | str) -> Spectrum:
     """Read `wavenumber,absorbance` rows; a first row that is not numeric is a header that names the units."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8-sig")
-    except (OSError, UnicodeDecodeError) as exc:
+        raw = path.read_bytes()
+    except OSError as exc:
         raise SpectrumError(str(path), None, f"cannot read file: {exc}") from exc
-    return parse_spectrum_csv(text, str(path))
+    # undecodable bytes are kept as lone surrogates: an error on any line that is read, none in free text
+    # after a labelled block's rows, which is never read
+    return parse_spectrum_csv(raw.decode("utf-8-sig", errors="surrogateescape"), str(path))
+
+
+_XYDATA_LINE = re.compile(r"^XYDATA\b[\s,;]*$", re.I)
+_SEPARATOR = re.compile(r"\s*[,;\t]\s*")  # a labelled block's rows: comma, semicolon or tab
+_USED_LABELS = ("DATATYPE", "XUNITS", "YUNITS", "PATHLENGTH", "NPOINTS", "TITLE", "STATE", "SAMPLINGPROCEDURE",
+                "DATAPROCESSING")
+_NOT_UTF8 = re.compile("[\udc80-\udcff]")
 
 
 def parse_spectrum_csv(text: str, source: str) -> Spectrum:
+    lines = text.splitlines()
+    start = _labelled_block_end(lines)
+    if start is not None:
+        return _parse_labelled(lines, start, source)
+    return _parse_plain(lines, source)
+
+
+def _labelled_block_end(lines):
+    """Index of the `XYDATA` line when a labelled block comes before any data row, else None."""
+    for index, raw in enumerate(lines):
+        line = raw.strip()
+        if _XYDATA_LINE.match(line):
+            return index
+        fields = _SEPARATOR.split(line)
+        if len(fields) == 2 and all(_is_number(f) for f in fields):
+            return None
+    return None
+
+
+def _is_number(text):
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _parse_labelled(lines, start, source):
+    labels, where = {}, {}
+    for number, raw in enumerate(lines[:start], start=1):
+        label, *value = _SEPARATOR.split(raw.strip(), maxsplit=1)
+        key = label.upper().replace(" ", "")
+        if key in _USED_LABELS:  # other labels (free text, names in other scripts) are not read
+            _check_text(raw, source, number)
+            labels[key], where[key] = (value[0] if value else "").strip().strip('"'), number
+    if labels.get("DATATYPE") and "INFRARED" not in labels["DATATYPE"].upper():
+        raise SpectrumError(source, where["DATATYPE"], f"DATA TYPE {labels['DATATYPE']!r} is not an infrared spectrum")
+    if not labels.get("YUNITS"):
+        raise SpectrumError(source, start + 1, "a labelled block without YUNITS: the scale of the values is unknown")
+    y_unit_kind(source, labels["YUNITS"], where["YUNITS"])
+    check_sampling_labels(source, labels, where.get, mark="")  # ATR, reflectance or a gas, as in JCAMP-DX
+    xs, ys = [], []
+    for number, raw in enumerate(lines[start + 1 :], start=start + 2):
+        line = raw.strip()
+        if not line:
+            if xs:
+                break  # the rows end here; free text may follow
+            continue
+        _check_text(raw, source, number)
+        fields = _SEPARATOR.split(line)
+        if len(fields) != 2 or not all(_is_number(f) for f in fields):
+            raise SpectrumError(source, number, f"expected two numbers (wavenumber, {labels['YUNITS']}), found {line!r}")
+        xs.append(float(fields[0]))
+        ys.append(float(fields[1]))
+    if len(xs) < 2:
+        raise SpectrumError(source, start + 1, "fewer than 2 data rows after XYDATA")
+    if "NPOINTS" in labels and _is_number(labels["NPOINTS"]) and float(labels["NPOINTS"]) != len(xs):
+        raise SpectrumError(source, where["NPOINTS"], f"NPOINTS says {labels['NPOINTS']}, but {len(xs)} rows follow "
+                                                      "XYDATA before the first blank line")
+    path_length = (parse_path_length(source, where["PATHLENGTH"], labels["PATHLENGTH"])
+                   if labels.get("PATHLENGTH") else None)
+    return make_spectrum(source, np.array(xs), np.array(ys), labels.get("XUNITS") or "1/CM", labels["YUNITS"],
+                         start + 2, path_length_mm=path_length,
+                         difference=declares_difference(labels.get("DATAPROCESSING", "")))
+
+
+def _check_text(raw, source, number):
+    if _NOT_UTF8.search(raw):
+        raise SpectrumError(source, number, "a byte that is not UTF-8 on a line that is read")
+
+
+def _parse_plain(lines, source):
     xs, ys = [], []
     first_data_line = None
     x_units, y_units, difference = "1/CM", "ABSORBANCE", False
-    for number, raw in enumerate(text.splitlines(), start=1):
+    for number, raw in enumerate(lines, start=1):
         line = raw.strip()
         if not line or line.startswith("#"):
             continue
+        _check_text(raw, source, number)
         fields = [f.strip() for f in line.replace(";", ",").split(",")]
         if len(fields) != 2:
             raise SpectrumError(source, number, f"expected 2 columns (wavenumber, absorbance), found {len(fields)}")

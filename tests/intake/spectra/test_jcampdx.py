@@ -170,9 +170,26 @@ def test_other_y_units_are_refused_by_name(unit):
 
 
 def test_path_length_label_is_read_in_mm():
-    spectrum = parse_jcampdx(HAND.replace("##YUNITS= ABSORBANCE", "##YUNITS= ABSORBANCE\n##PATH LENGTH= 18 CM CELL"),
+    spectrum = parse_jcampdx(HAND.replace("##YUNITS= ABSORBANCE", "##YUNITS= ABSORBANCE\n##PATH LENGTH= 0.018 CM CELL"),
                              "p.jdx")
-    assert spectrum.path_length_mm == 180.0
+    assert spectrum.path_length_mm == pytest.approx(0.18)
+
+
+@pytest.mark.parametrize("value", ["100 \u00b5m", "100 \u03bcm", "25 um"])
+def test_a_path_length_in_micrometres_with_a_micro_sign_is_read(value):
+    # the micro sign (U+00B5) and the Greek mu (U+03BC) both write micrometres; before, refused as unitless
+    spectrum = parse_jcampdx(HAND.replace("##YUNITS= ABSORBANCE", f"##YUNITS= ABSORBANCE\n##PATH LENGTH= {value}"),
+                             "p.jdx")
+    assert spectrum.path_length_mm == pytest.approx(float(value.split()[0]) / 1000)
+
+
+@pytest.mark.parametrize("label, value", [("PATH LENGTH", "5 CM"), ("PATH LENGTH", "18 CM CELL"), ("STATE", "GAS"),
+                                          ("STATE", "gas"), ("STATE", "VAPOR")])
+def test_a_gas_cell_or_a_gas_is_refused_with_its_line(label, value):
+    # public gas-phase infrared files (a collection shipped with the `jcamp` package's repository) say
+    # ##STATE=GAS and ##PATH LENGTH=5 CM (to 18 CM CELL); a liquid oil is read through 0.025-0.1 mm (ASTM D7214)
+    error = _error(HAND.replace("##YUNITS= ABSORBANCE", f"##YUNITS= ABSORBANCE\n##{label}= {value}"))
+    assert error.line == 8 and value in error.reason
 
 
 def test_missing_end_names_the_last_line():
