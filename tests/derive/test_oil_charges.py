@@ -294,7 +294,7 @@ def test_oil_charges_agree_with_a_per_unit_loop_on_random_histories(seed, no_cod
         "oil_hours": np.where(rng.random(n) < no_hours, np.nan, hours),
         "iron": rng.integers(5, 60, n).astype(float),
         "oil_changed": rng.random(n) < 0.03,
-    }).drop_duplicates(["unit_id", "sampled_on", "oil_hours"])  # samples at one moment: tests/derive/test_found4.py
+    }).drop_duplicates(["unit_id", "sampled_on", "oil_hours"])  # samples at one moment: tests/derive/test_trends_found4.py
     graded = sumpwise.grade(frame.assign(oil_changed=np.where(frame["oil_changed"], "yes", "no")),
                             sumpwise.load_ruleset(RULES))
     out = graded.measured.set_index("sample_id")
