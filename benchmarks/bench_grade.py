@@ -67,6 +67,7 @@ def synthetic(ruleset, n: int, seed: int = 7, start: int = 0) -> pd.DataFrame:
     cls, lubricant = units.choice(classes, UNITS)[unit], units.choice(codes, UNITS)[unit]
     new_kv40 = np.array([ruleset.lubricants[c].kv40 or 46.0 for c in codes])[np.searchsorted(codes, lubricant)]
     new_an = np.array([ruleset.lubricants[c].an or 0.1 for c in codes])[np.searchsorted(codes, lubricant)]
+    new_oxidation = np.array([ruleset.lubricants[c].oxidation or 1.0 for c in codes])[np.searchsorted(codes, lubricant)]
     frame = pd.DataFrame({
         "sample_id": np.char.add("S", np.arange(n).astype(str)),
         "unit_id": np.char.add("U", unit.astype(str)),
@@ -78,7 +79,7 @@ def synthetic(ruleset, n: int, seed: int = 7, start: int = 0) -> pd.DataFrame:
         "kv100": rng.uniform(5, 15, n).round(2),
         "an": (new_an + np.abs(rng.normal(0, 0.15, n))).round(2),
         "bn": rng.uniform(2, 12, n).round(1),
-        "oxidation": rng.uniform(0, 40, n).round(1),
+        "oxidation": (new_oxidation + rng.uniform(0, 40, n)).round(1),  # direct: the new oil's carbonyl and more
         "nitration": rng.uniform(0, 20, n).round(1),
         "water": np.abs(rng.normal(150, 150, n)).round(0),
         "rpvot": rng.uniform(100, 1200, n).round(0),

@@ -59,7 +59,8 @@ def synthetic(n: int, units: int, seed: int = 20260101) -> pd.DataFrame:
         "oil_hours": hours,
         "kv40": np.round(46.0 + k * 0.004 + rng.normal(0, 0.2, len(k)), 2),
         "an": np.round(0.05 + k * 0.001 + rng.normal(0, 0.01, len(k)), 3).clip(0),
-        "oxidation": np.round(1.0 + k * 0.03 + rng.normal(0, 0.3, len(k)), 1),
+        # direct carbonyl from the rule set's new-oil 1.0 abs/0.1 mm (100 abs/cm) upwards, in abs/cm
+        "oxidation": np.round(100.0 + k * 0.03 + rng.normal(0, 0.3, len(k)), 1),
         "water": np.round(rng.normal(80, 20, len(k)).clip(0)),
         "method": np.where(rng.random(len(k)) < 0.02, "subtraction", "direct").astype(object),
         "lab": "lab-a",

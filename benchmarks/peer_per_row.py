@@ -164,7 +164,8 @@ def record(ruleset, row: dict, value_names: list, derived_names: list, origin: d
         reasons.append((-final, len(reasons), reason))
     levels = [-key for key, _, _ in reasons]
     level = max(levels + [0]) if evaluated else None
-    caveats.extend(engine_caveats(ruleset, texts.get("lubricant"), class_name, gaps))
+    caveats.extend(engine_caveats(ruleset, texts.get("lubricant"), class_name, gaps, numbers.get("oxidation"),
+                                  sample["new"]["oxidation"]))
     out = {"format": 3, "form": "compact", "sample_id": texts.get("sample_id"), "unit_id": texts.get("unit_id"),
            "class": class_name, "lubricant": texts.get("lubricant"), "sampled_on": texts.get("sampled_on"),
            "origin": origin, "oil_changed": FLAGS.get((texts.get("oil_changed") or "").lower(), False),
@@ -183,17 +184,27 @@ def record(ruleset, row: dict, value_names: list, derived_names: list, origin: d
     return out
 
 
-def engine_caveats(ruleset, lubricant, class_name, gaps: list) -> list:
+def engine_caveats(ruleset, lubricant, class_name, gaps: list, oxidation=None, new_oxidation=None) -> list:
     """The caveats the engine raises itself on a row: a lubricant code or a class the rule set does not
-    know, and a class most of whose rules could not be evaluated (each with its message)."""
+    know, a direct carbonyl reading under half its new oil's, and a class most of whose rules could not
+    be evaluated (each with its message)."""
     notes = []
-    if lubricant is not None and lubricant not in ruleset.lubricants:
+    known = lubricant is None or lubricant in ruleset.lubricants or len(
+        [code for code in ruleset.lubricants if code.casefold() == lubricant.casefold()]) == 1
+    if not known:
         near = difflib.get_close_matches(lubricant, list(ruleset.lubricants), n=3, cutoff=0.5)
         notes.append({"caveat": "unknown-lubricant",
                       "message": f"lubricant code '{lubricant}' is not in the rule set's lubricants table"
                                  + (f" (nearest: {', '.join(near)})" if near else "")
                                  + "; its new-oil values are missing, so rules on change from new oil are not "
                                    "evaluated"})
+    if oxidation is not None and new_oxidation is not None and new_oxidation >= 1.0 and oxidation < new_oxidation / 2:
+        code = f" ({lubricant})" if lubricant else ""
+        notes.append({"caveat": "oxidation-below-new",
+                      "message": f"FTIR oxidation {oxidation:g} abs/cm is under half its new oil's {new_oxidation:g} "
+                                 f"abs/cm{code}, and oxidation only adds carbonyl: a reading in abs/0.1 mm taken as "
+                                 f"abs/cm reads 100 times low, and so does another oil's new-oil value; its rise "
+                                 f"below zero is no sign of health. Check the reading's unit and the lubricant"})
     if class_name is not None and class_name not in ruleset.classes:
         near = difflib.get_close_matches(class_name, list(ruleset.classes), n=3, cutoff=0.5)
         notes.append({"caveat": "unknown-class",

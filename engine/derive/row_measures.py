@@ -30,7 +30,16 @@ LUBRICANT_CAVEATS = (
     EngineCaveat("base-stock-disagrees", "base_stock_disagrees_note",
                  "sumpwise engine: the row's base_stock against the rule set's lubricants table (an ester's own "
                  "carbonyl inflates a direct FTIR oxidation reading: Tribology Transactions 55 (2012) 872)"),
+    EngineCaveat("oxidation-below-new", "oxidation_below_new_note",
+                 "sumpwise engine: a direct FTIR carbonyl reading against its new oil's (oxidation adds carbonyl, "
+                 "ASTM E2412; under half the new oil's reading: common practice, no source)"),
 )
+# A direct carbonyl reading under this share of its new oil's, where the new oil reads at least
+# BELOW_NEW_FLOOR abs/cm: oxidation only adds carbonyl and a top-up only brings the reading back
+# toward new, so such a reading is a unit slip (abs/0.1 mm taken as abs/cm reads 100 times low)
+# or another oil's new-oil value, and a rise below zero would pass as health.
+BELOW_NEW_SHARE = 0.5  # common practice, no source
+BELOW_NEW_FLOOR = 1.0  # abs/cm: a new oil reading less leaves too little to halve (our choice, no source)
 
 
 def _unknown_lubricant_notes(codes: np.ndarray, known: list) -> np.ndarray:
@@ -67,6 +76,19 @@ def _base_stock_disagreements(given: np.ndarray, from_table: np.ndarray, codes: 
                       f"'{table}': the ester caveats follow the row, the new-oil values the table, and only one "
                       f"of them is this oil; check the lubricant code and the base stock before trusting the grade")
     notes[at] = np.array(worded, dtype=object)[pairs]
+    return notes
+
+
+def _oxidation_below_new_notes(oxidation: np.ndarray, new: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """A note per row whose direct carbonyl reading is under BELOW_NEW_SHARE of its new oil's."""
+    notes = np.full(len(oxidation), None, dtype=object)
+    with np.errstate(invalid="ignore"):
+        low = (new >= BELOW_NEW_FLOOR) & (oxidation < BELOW_NEW_SHARE * new)
+    for k in np.flatnonzero(low):  # rare rows: each worded with its own figures
+        notes[k] = (f"FTIR oxidation {oxidation[k]:g} abs/cm is under half its new oil's {new[k]:g} abs/cm"
+                    f"{f' ({codes[k]})' if codes[k] else ''}, and oxidation only adds carbonyl: a reading in "
+                    f"abs/0.1 mm taken as abs/cm reads 100 times low, and so does another oil's new-oil value; "
+                    f"its rise below zero is no sign of health. Check the reading's unit and the lubricant")
     return notes
 
 
@@ -307,6 +329,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out.update(_bound_columns(name, b))
     out["unknown_lubricant_note"] = _unknown_lubricant_notes(lubricant.to_numpy(dtype=object), list(lubricants))
     out["base_stock_disagrees_note"] = disagrees_notes
+    out["oxidation_below_new_note"] = _oxidation_below_new_notes(out["oxidation"], out["new_oxidation"],
+                                                                 lubricant.to_numpy(dtype=object))
     for name, series in fields.items():
         out[name] = series.astype(object).to_numpy(dtype=object)
     return pd.DataFrame(out, index=samples.index, copy=False)

@@ -124,7 +124,14 @@ def test_a_step_4_ledger_is_migrated_in_place_keeps_its_digests_and_takes_form_3
     verdicts = old.execute("SELECT * FROM verdicts ORDER BY entry").fetchall()
     assert old.execute("PRAGMA user_version").fetchone()[0] == 4 and {form for _, form, _ in digests} == {2}
     report = replay(db)  # the file is writable: migrated in place first
-    assert report.differences == () and report.engine_changes == () and report.checked == 10
+    # Engine 0.6.0 adds `oxidation-below-new` to every direct reading of this file: its rule set writes
+    # TEST-46's new-oil carbonyl 1.0 in abs/0.1 mm (100 abs/cm) while the readings are 1.2-13 abs/cm.
+    # The recorded verdicts stand; replay lists the new caveat as an engine change, nothing else.
+    assert report.differences == () and report.checked == 10
+    assert {d.sample_id for d in report.engine_changes} == {"T-01", "T-02", "T-03", "T-04", "T-06", "T-07",
+                                                            "T-08", "T-09"}
+    assert all(d.kind == "engine change" and "now" in d.what and "oxidation-below-new" in d.what.split("now")[1]
+               and "oxidation-below-new" not in d.what.split("now")[0] for d in report.engine_changes)
     conn = open_ledger(db)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
     assert conn.execute("SELECT batch, form, digest FROM batches ORDER BY batch").fetchall() == digests

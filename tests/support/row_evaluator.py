@@ -86,7 +86,7 @@ def _text(value):
 def derive_row(row: dict, lubricants: dict) -> dict:
     """Measures of one sample, computed the long way."""
     out = {k: _num(v) for k, v in row.items()}
-    lub = lubricants.get(_text(row.get("lubricant")))
+    lub = _lubricant(lubricants, _text(row.get("lubricant")))
 
     def reference(name):
         own = _num(row.get(f"new_{name}"))
@@ -178,7 +178,15 @@ def derive_row(row: dict, lubricants: dict) -> dict:
     texts["base_stock"] = base
     texts["method"] = method
     texts["base_stock_family"] = _family(base)
-    return {"numbers": out, "texts": texts, "intervals": intervals}
+    return {"numbers": out, "texts": texts, "intervals": intervals, "new": new}
+
+
+def _lubricant(lubricants: dict, code):
+    """The table's entry for a code as written, else for the one code equal to it ignoring case."""
+    if code is None or code in lubricants:
+        return lubricants.get(code)
+    same = [name for name in lubricants if name.casefold() == code.casefold()]
+    return lubricants[same[0]] if len(same) == 1 else None
 
 
 # Written out here, not read from sumpwise.vocabulary.base_stocks: any carbonyl ester part makes the
