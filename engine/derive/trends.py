@@ -26,6 +26,7 @@ from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, ROW_DERIVED, TREND
                                          declared_trend_measures)
 from sumpwise.ruleset.model import RuleSet, condition_measures
 from sumpwise.vocabulary.caveats import EngineCaveat
+from sumpwise.vocabulary.texts import lubricant_key
 from sumpwise.intake.censored import WRITTEN_SUFFIX, number_text
 from sumpwise.intake.samples import Reject, SampleBatch
 
@@ -230,8 +231,8 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
     flagged = chain["oil_changed"][order]
-    charges = _oil_charges(unit, same_unit, h, flagged, pd.factorize(chain["lubricant"])[0][order], dates[order],
-                           _class_codes(chain["class"])[order])
+    charges = _oil_charges(unit, same_unit, h, flagged, _text_codes(chain["lubricant"])[order], dates[order],
+                           _text_codes(chain["class"])[order])
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
     restarts = new_oil | charges["class_changed"]
     method_codes, _ = pd.factorize(chain["method"])
@@ -397,10 +398,11 @@ def _break_notes(chain: dict, before: np.ndarray, method_changed: np.ndarray, la
     return notes
 
 
-def _class_codes(classes: np.ndarray) -> np.ndarray:
-    """A code per equipment class as compared for a change (stripped, case-folded), -1 where none."""
-    codes, uniques = pd.factorize(classes)
-    folded = np.array([str(u).strip().casefold() for u in uniques], dtype=object)
+def _text_codes(texts: np.ndarray) -> np.ndarray:
+    """A code per equipment class or lubricant code as compared for a change (stripped, case-folded,
+    as vocabulary.texts.lubricant_key: `hyd-46-m` after HYD-46-M is no oil change), -1 where none."""
+    codes, uniques = pd.factorize(texts)
+    folded = np.array([lubricant_key(u) for u in uniques], dtype=object)
     same, _ = pd.factorize(folded)
     same[folded == ""] = -1  # an empty class tells nothing
     return np.where(codes >= 0, same[np.maximum(codes, 0)] if len(same) else -1, -1)

@@ -49,3 +49,17 @@ def test_two_table_codes_equal_but_for_case_match_only_as_written():
     lookup = _lubricant_lookup(np.array(["OIL-A", "oil-a", "OIL-a", "OIL-B ", "oil-b"], dtype=object),
                                ["OIL-A", "oil-a", "OIL-B"])
     assert lookup.tolist() == [0, 1, -1, 2, 2]  # surrounding spaces are ignored too
+
+
+def test_a_code_in_another_case_on_the_next_sample_is_no_oil_change(tmp_path):
+    """A lubricant code that changes is an oil change (the trend restarts); the same code in
+    another case is the same oil, and the acid number keeps its step (ASTM D664 margin 0.024 in
+    the shipped rule set's noise table; the step here, 0.10, is well beyond it)."""
+    rows = ("SC-1,SC-1,screw-compressor,COMP-46-PE,2026-01-05,1000,46.5,0.20,190.0\n"
+            "SC-2,SC-1,screw-compressor,comp-46-pe,2026-02-05,1700,46.6,0.30,191.0\n")
+    path = tmp_path / "samples.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,oil_hours,kv40,an,oxidation\n" + rows)
+    run = run_cli("grade", path, "--rules", RULES, "--record", "compact")
+    second = [json.loads(line) for line in run.out.splitlines()][1]
+    assert not {"oil-changed", "oil-charge-unknown"} & {c["caveat"] for c in second["caveats"]}
+    assert second["oil_changed"] is False and second["derived"]["an_rise"] == 0.22
