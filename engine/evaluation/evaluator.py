@@ -394,8 +394,12 @@ def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> d
             reading = written[higher & (possible == level)].astype(str).astype(object)
             as_written = np.isin(reading.astype("U1"), ["<", ">", "\u2264", "\u2265"])  # first characters
             reading[as_written] = "written '" + reading[as_written] + "'"  # a derived one says its own source
+            why = ""
+            if said is not None and said.endswith(NOISE_SUFFIX):  # the interval is the gap's: said once, there
+                reading = np.array([r.split(", [", 1)[0] for r in reading], dtype=object)
+                why = ", its step being within the noise margin"
             text = (f"{rule.id}: {rule.measure} " + reading + f" may be {rule.test} its {ruleset.grades[level]} "
-                    f"limit ({shown}{' ' + unit if unit else ''})")
+                    f"limit ({shown}{' ' + unit if unit else ''}){why}")
             first = pd.isna(notes[at])
             notes[at[first]] = text[first]
             notes[at[~first]] = notes[at[~first]] + "; " + text[~first]
