@@ -27,7 +27,7 @@ from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
-from sumpwise.render.narrative import rounded, step_phrase
+from sumpwise.render.narrative import gap_phrase, rounded, step_phrase
 from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
                                       render_plot)
@@ -740,7 +740,7 @@ def _latest(record: dict, ladder: Ladder) -> str:
     gaps = record.get("not_evaluated") or []
     if gaps:
         parts.append("<div class='muted'>Not evaluated (a missing value is never a pass): " + escape("; ".join(
-            f"{g.get('rule')} lacks {', '.join(g.get('missing') or [])}" + _undecided(g) for g in gaps)) + "</div>")
+            gap_phrase(g.get("rule"), g.get("missing") or [], _undecided(g)) for g in gaps)) + "</div>")
     steps = next_steps(record)
     if steps:
         parts.append("<h4>What to do</h4><ul class='todo'>" + "".join(
@@ -751,11 +751,10 @@ def _latest(record: dict, ladder: Ladder) -> str:
     return "".join(parts) + "</article>"
 
 
-def _undecided(gap: dict) -> str:
-    """Readings written as bounds that did not decide a rule, as the lab wrote them (as explain says)."""
+def _undecided(gap: dict) -> list:
+    """(measure, text) of the readings that left a rule undecided, as a record gives them."""
     undecided = gap.get("undecided") if isinstance(gap.get("undecided"), dict) else {}
-    told = "; ".join(f"{name} written '{text}' does not decide it" for name, text in undecided.items())
-    return f" ({told})" if told else ""
+    return [(name, str(text)) for name, text in undecided.items()]
 
 
 def _finding_text(reason: dict) -> str:

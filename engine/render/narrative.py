@@ -83,6 +83,20 @@ def _bound_note(reason) -> str:
             f"this rule gives the sample.")
 
 
+def gap_phrase(rule: str, missing, undecided) -> str:
+    """Why a rule was not evaluated: the inputs it lacked, and readings that left it undecided, a
+    bound as the lab wrote it (`<5`) or a rate's interval from a step within the noise margin."""
+    told = "; ".join(_undecided_reading(name, text) for name, text in undecided)
+    if not missing:
+        return f"{rule}: {told}"
+    return f"{rule}: lacks {', '.join(missing)}" + (f" ({told})" if told else "")
+
+
+def _undecided_reading(name: str, text: str) -> str:
+    shown = f"written '{text}'" if text[:1] in "<>\u2264\u2265" else text  # a bound as written, else why
+    return f"{name} {shown} does not decide it"
+
+
 def undefined_phrase(names) -> str:
     """A derived measure a rule lacked although its inputs were there (the record names the
     measure then, not a reading): where that measure has no value, from the measure table."""
@@ -186,9 +200,7 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
         lines.append("")
         lines.append("Not evaluated (a missing value is never a pass):")
         for gap in result.not_evaluated:
-            undecided = "; ".join(f"{name} written '{text}' does not decide it" for name, text in gap.undecided)
-            lines.extend(wrap(f"{gap.rule}: lacks {', '.join(gap.missing)}" + (f" ({undecided})" if undecided else "")
-                              + undefined_phrase(gap.missing), "  - "))
+            lines.extend(wrap(gap_phrase(gap.rule, gap.missing, gap.undecided) + undefined_phrase(gap.missing), "  - "))
     lines.append("")
     lines.append(f"Rule set {result.ruleset_id} version {result.ruleset_version}, "
                  f"sha256 {result.ruleset_sha256}; {result.engine}.")
