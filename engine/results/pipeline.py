@@ -48,9 +48,9 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     said = noise_notes(measured, [slot.rule.reads for slot in outcome.slots], (outcome.final == 0)
                        | (outcome.final == NOT_APPLICABLE))  # why a rate within the noise margin decided nothing
     if said:
-        measured = pd.concat([measured, pd.DataFrame(said, index=measured.index)], axis=1)
+        measured = pd.concat([measured, pd.DataFrame(said, index=measured.index, dtype=object)], axis=1)
     notes = {**coverage_notes(ruleset, measured, outcome), **bound_notes(ruleset, measured, outcome)}
-    measured = pd.concat([measured, pd.DataFrame(notes, index=measured.index)], axis=1)
+    measured = pd.concat([measured, pd.DataFrame(notes, index=measured.index, dtype=object)], axis=1)  # text or None: no str inference
     engine_caveats = LUBRICANT_CAVEATS + COVERAGE_CAVEATS + BOUND_CAVEATS
     intake_flags = [measured[c.message_column].notna().to_numpy() for c in engine_caveats]
     outcome = replace(outcome, caveats=np.hstack([outcome.caveats, trend_caveat_flags(measured),
