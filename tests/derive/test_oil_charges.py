@@ -16,6 +16,7 @@ import pytest
 
 import sumpwise
 from conftest import DATA, run_cli
+from result_views import caveats_of, fired, unevaluated
 
 FOUND = DATA / "derive_found3"
 RULES = FOUND / "rules.yaml"
@@ -25,18 +26,6 @@ def _graded(name, history=None):
     return sumpwise.grade(sumpwise.read_samples(FOUND / name), sumpwise.load_ruleset(RULES))
 
 
-def _caveats(result):
-    return [c.caveat for c in result.caveats if c.caveat != "few-rules-evaluated"]
-
-
-def _fired(result):
-    return {(r.rule, r.grade) for r in result.reasons}
-
-
-def _unevaluated(result):
-    return {n.rule for n in result.not_evaluated}
-
-
 def test_an_oil_change_behind_a_sample_without_oil_hours_restarts_the_trend():
     # ST-7 sampled monthly: 7300, 8000, (no hours: old oil), 400 after an unflagged change.
     # Before: S-104 (fresh oil, kv40 31.5) was stepped against S-103 (old oil, 33.1): -1.6 mm2/s
@@ -44,20 +33,20 @@ def test_an_oil_change_behind_a_sample_without_oil_hours_restarts_the_trend():
     graded = _graded("missing-hours.csv")
     fresh = graded.find("S-104")
     assert fresh.grade == "normal"
-    assert _fired(fresh) == set()
-    assert {"viscosity-jump", "acid-jump"} <= _unevaluated(fresh)
-    assert _caveats(fresh) == ["oil-changed"]
+    assert fired(fresh) == set()
+    assert {"viscosity-jump", "acid-jump"} <= unevaluated(fresh)
+    assert caveats_of(fresh) == ["oil-changed"]
     assert fresh.caveats[0].message.startswith(
         "first sample after an oil change (oil hours fell from 8000 to 400 since the previous sample of unit "
         "ST-7 with oil hours (S-102, 2026-02-05))")
     # the sample without oil hours may be of either charge: no step to it or from it, and it says so
     between = graded.find("S-103")
-    assert _caveats(between) == ["oil-charge-unknown"]
+    assert caveats_of(between) == ["oil-charge-unknown"]
     assert "between samples S-102 and S-104 of unit ST-7" in between.caveats[0].message
-    assert "viscosity-jump" in _unevaluated(between)
+    assert "viscosity-jump" in unevaluated(between)
     # the new charge trends from its own first sample
     after = graded.find("S-105")
-    assert _caveats(after) == [] and after.grade == "normal"
+    assert caveats_of(after) == [] and after.grade == "normal"
     assert graded.measured.set_index("sample_id").at["S-105", "kv40_step"] == 0.1
 
 
@@ -66,10 +55,10 @@ def test_a_fresh_sample_without_oil_hours_is_not_stepped_against_the_old_oil():
     # step against S-202 (old oil) was -1.7 mm2/s and fired viscosity-jump at watch.
     graded = _graded("missing-hours-fresh.csv")
     unplaced = graded.find("S-203")
-    assert unplaced.grade == "normal" and _fired(unplaced) == set()
-    assert _caveats(unplaced) == ["oil-charge-unknown"]
-    assert "viscosity-jump" in _unevaluated(unplaced)
-    assert _caveats(graded.find("S-204")) == ["oil-changed"]  # 8000 -> 1100: said where it shows
+    assert unplaced.grade == "normal" and fired(unplaced) == set()
+    assert caveats_of(unplaced) == ["oil-charge-unknown"]
+    assert "viscosity-jump" in unevaluated(unplaced)
+    assert caveats_of(graded.find("S-204")) == ["oil-changed"]  # 8000 -> 1100: said where it shows
 
 
 def test_a_lubricant_code_change_is_an_oil_change():
@@ -77,8 +66,8 @@ def test_a_lubricant_code_change_is_an_oil_change():
     # Before: kv40 step 46.1 - 32.6 = 13.5 mm2/s fired viscosity-jump at alert on new oil.
     graded = _graded("lubricant-change.csv")
     changed = graded.find("S-403")
-    assert changed.grade == "normal" and _fired(changed) == set()
-    assert _caveats(changed) == ["oil-changed"]
+    assert changed.grade == "normal" and fired(changed) == set()
+    assert caveats_of(changed) == ["oil-changed"]
     assert "lubricant changed from TURB-32-M to TURB-46-M since the previous sample of unit ST-9 (S-402" in \
         changed.caveats[0].message
     assert graded.measured.set_index("sample_id").at["S-404", "kv40_step"] == 0.1
@@ -134,11 +123,11 @@ def test_the_old_oil_sampled_on_the_day_of_an_oil_change_comes_before_the_new():
     # and S-604 (700 h on the new oil) was taken for another oil change, losing its step.
     graded = _graded("same-day-change.csv")
     old = graded.find("S-602")
-    assert old.grade == "normal" and _fired(old) == set() and _caveats(old) == []
+    assert old.grade == "normal" and fired(old) == set() and caveats_of(old) == []
     assert graded.measured.set_index("sample_id").at["S-602", "an_step"] == 0.02  # against S-601
-    assert _caveats(graded.find("S-603")) == ["oil-changed"]
+    assert caveats_of(graded.find("S-603")) == ["oil-changed"]
     later = graded.find("S-604")
-    assert _caveats(later) == [] and "viscosity-jump" not in _unevaluated(later)
+    assert caveats_of(later) == [] and "viscosity-jump" not in unevaluated(later)
     assert graded.measured.set_index("sample_id").at["S-604", "an_step"] == 0.02  # against S-603
 
 
@@ -150,8 +139,8 @@ def test_oil_hours_that_outrun_the_calendar_give_no_rate(tmp_path):
     # real ~700 h it is about 11, above the alert 10).
     graded = _graded("hours-typo.csv")
     typo = graded.find("S-502")
-    assert "iron-rate" in _unevaluated(typo)
-    assert _caveats(typo) == ["oil-charge-unknown"]
+    assert "iron-rate" in unevaluated(typo)
+    assert caveats_of(typo) == ["oil-charge-unknown"]
     assert typo.caveats[0].message.startswith(
         "oil hours rose from 7300 (S-501, 2026-01-05) to 80000 in 31 days, more than the calendar holds (at most "
         "1536 h")
@@ -180,11 +169,11 @@ def test_an_unflagged_oil_change_on_the_day_the_old_oil_was_sampled_is_not_stepp
     # step (an +0.20) fired acid-jump at watch.
     graded = _graded("same-day-change-unflagged.csv")
     old = graded.find("S-702")
-    assert old.grade == "normal" and _fired(old) == set()
-    assert _caveats(old) == ["oil-charge-unknown"]
-    assert {"acid-jump", "viscosity-jump"} <= _unevaluated(old)
+    assert old.grade == "normal" and fired(old) == set()
+    assert caveats_of(old) == ["oil-charge-unknown"]
+    assert {"acid-jump", "viscosity-jump"} <= unevaluated(old)
     assert "rose from 0 (S-703, 2026-02-05) to 8000 in 0 days" in old.caveats[0].message
-    assert _caveats(graded.find("S-703")) == ["oil-changed"]
+    assert caveats_of(graded.find("S-703")) == ["oil-changed"]
 
 
 def test_oil_hours_that_outrun_the_calendar_give_no_rate_on_the_sample_itself():
@@ -194,10 +183,10 @@ def test_oil_hours_that_outrun_the_calendar_give_no_rate_on_the_sample_itself():
     # limit) passed without a word; over the real ~2000 h it is 2.1, above it.
     graded = _graded("young-charge-typo.csv")
     typo = graded.find("S-903")
-    assert "carbonyl-rising-fast" in _unevaluated(typo)
-    assert _caveats(typo) == ["oil-charge-unknown"]
+    assert "carbonyl-rising-fast" in unevaluated(typo)
+    assert caveats_of(typo) == ["oil-charge-unknown"]
     assert typo.caveats[0].message.endswith("nor one per 1000 of its own oil hours")
-    assert "carbonyl-rising-fast" not in _unevaluated(graded.find("S-902"))  # 2.3 / 1.3 = 1.8: decided
+    assert "carbonyl-rising-fast" not in unevaluated(graded.find("S-902"))  # 2.3 / 1.3 = 1.8: decided
 
 
 def test_a_forecast_fits_only_the_charge_after_a_change_seen_past_a_sample_without_oil_hours():

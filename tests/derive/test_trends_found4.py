@@ -20,6 +20,7 @@ import pytest
 
 import sumpwise
 from conftest import DATA, run_cli
+from result_views import caveats_of, fired, unevaluated
 
 FOUND = DATA / "derive_found4"
 RULES = FOUND / "rules.yaml"
@@ -27,18 +28,6 @@ RULES = FOUND / "rules.yaml"
 
 def _graded(name):
     return sumpwise.grade(sumpwise.read_samples(FOUND / name), sumpwise.load_ruleset(RULES))
-
-
-def _caveats(result):
-    return [c.caveat for c in result.caveats if c.caveat != "few-rules-evaluated"]
-
-
-def _fired(result):
-    return {(r.rule, r.grade) for r in result.reasons}
-
-
-def _unevaluated(result):
-    return {n.rule for n in result.not_evaluated}
 
 
 def test_a_unit_id_reused_for_another_machine_restarts_its_trend():
@@ -49,15 +38,15 @@ def test_a_unit_id_reused_for_another_machine_restarts_its_trend():
     graded = _graded("id-reused.csv")
     gearbox = graded.find("B-404")
     assert gearbox.grade == "normal"
-    assert _fired(gearbox) == set()
-    assert _unevaluated(gearbox) == {"gear-iron-rate"}
-    assert _caveats(gearbox) == ["class-changed"]
+    assert fired(gearbox) == set()
+    assert unevaluated(gearbox) == {"gear-iron-rate"}
+    assert caveats_of(gearbox) == ["class-changed"]
     assert gearbox.caveats[0].message.startswith(
         "class changed from hydraulic to gearbox since the previous sample of unit PK-4 (B-403, 2026-01-06)")
     assert math.isnan(graded.measured.set_index("sample_id").at["B-404", "iron_step"])
     # the gearbox trends from its own first sample: +4 ppm over 500 h
     after = graded.find("B-405")
-    assert _caveats(after) == [] and after.grade == "normal"
+    assert caveats_of(after) == [] and after.grade == "normal"
     assert graded.measured.set_index("sample_id").at["B-405", "iron_step_per_1000h"] == pytest.approx(8.0)
 
 
@@ -66,13 +55,13 @@ def test_a_class_typed_wrong_once_is_said_on_it_and_on_the_sample_after():
     # rules (iron 57 ppm above their watch limit of 30): the caveat is what tells the reader.
     graded = _graded("class-typo.csv")
     typo = graded.find("B-503")
-    assert typo.grade == "watch" and _fired(typo) == {("iron", "watch")}
-    assert _caveats(typo) == ["class-changed"]
-    assert {"iron-rate", "acid-rate", "iron-climbing"} <= _unevaluated(typo)
+    assert typo.grade == "watch" and fired(typo) == {("iron", "watch")}
+    assert caveats_of(typo) == ["class-changed"]
+    assert {"iron-rate", "acid-rate", "iron-climbing"} <= unevaluated(typo)
     back = graded.find("B-504")
-    assert _caveats(back) == ["class-changed"]
+    assert caveats_of(back) == ["class-changed"]
     assert "from hydraulic to gearbox" in back.caveats[0].message
-    assert [_caveats(graded.find(s)) for s in ("B-501", "B-502", "B-505")] == [[], [], []]
+    assert [caveats_of(graded.find(s)) for s in ("B-501", "B-502", "B-505")] == [[], [], []]
 
 
 def _without_forecasts(text):
@@ -146,13 +135,13 @@ def test_a_resample_within_the_noise_margin_is_no_rate_alert():
     # set's 2 ppm noise margin. Before: 100 ppm per 1000 h fired iron-rate at alert on test scatter.
     graded = _graded("resample.csv")
     resample = graded.find("B-603")
-    assert resample.grade == "normal" and _fired(resample) == set()
+    assert resample.grade == "normal" and fired(resample) == set()
     gap = {n.rule: n for n in resample.not_evaluated}["iron-rate"]
     # the record says why: the rate, the interval the two readings allow and the margin
     assert gap.missing == ()
     assert gap.undecided == (("iron_step_per_1000h",
                               "100, [0, 200] from a step of 2 within its noise margin of 2 over 20 h"),)
-    assert _caveats(resample) == ["grade-may-be-higher"]
+    assert caveats_of(resample) == ["grade-may-be-higher"]
     assert "may be above its alert limit (40)" in resample.caveats[0].message
     out = graded.measured.set_index("sample_id")
     assert out.at["B-603", "iron_step_per_1000h"] == 100.0  # the number is still recorded as computed
@@ -164,18 +153,18 @@ def test_acid_number_rates_within_the_d664_repeatability():
     # 0.20 -> 0.21 over 500 h (an ordinary interval): 0.02 per 1000 h, under the 0.05 limit, is
     # decided as before although the step is within r = 0.117 x 0.205 = 0.024: normal, no gap.
     ordinary = graded.find("B-702")
-    assert ordinary.grade == "normal" and "acid-rate" not in _unevaluated(ordinary) and _caveats(ordinary) == []
+    assert ordinary.grade == "normal" and "acid-rate" not in unevaluated(ordinary) and caveats_of(ordinary) == []
     # 0.21 -> 0.23 over 100 h: 0.2 per 1000 h crosses 0.05, but the step 0.02 is within
     # r = 0.117 x 0.22 = 0.02574: the rate may be anything from -0.0574 to 0.4574. Before: watch.
     resample = graded.find("B-703")
-    assert resample.grade == "normal" and _fired(resample) == set()
+    assert resample.grade == "normal" and fired(resample) == set()
     assert {n.rule: n.undecided for n in resample.not_evaluated}["acid-rate"] == (
         ("an_step_per_1000h", "0.2, [-0.0574, 0.4574] from a step of 0.02 within its noise margin of 0.02574 "
                               "over 100 h"),)
-    assert _caveats(resample) == ["grade-may-be-higher"]
+    assert caveats_of(resample) == ["grade-may-be-higher"]
     # 0.23 -> 0.30 over 500 h: a step of 0.07 beyond r = 0.031 is a change; 0.14 per 1000 h fires
     risen = graded.find("B-704")
-    assert _fired(risen) == {("acid-rate", "watch")} and _caveats(risen) == []
+    assert fired(risen) == {("acid-rate", "watch")} and caveats_of(risen) == []
 
 
 def _rate_oracle(frame: pd.DataFrame, margins) -> dict:
@@ -239,13 +228,13 @@ def test_two_sample_points_under_one_unit_id_on_one_day_are_not_stepped():
     graded = _graded("two-points.csv")
     for sid, other in (("B-802", "B-803"), ("B-803", "B-802")):
         bottle = graded.find(sid)
-        assert _caveats(bottle) == ["one-moment"]
+        assert caveats_of(bottle) == ["one-moment"]
         assert bottle.caveats[0].message.startswith(f"sample {other} of unit HPU-9 was taken on the same date "
                                                     "(2026-01-07) at 1000 oil hours")
-        assert {"iron-rate", "iron-climbing"} <= _unevaluated(bottle)
+        assert {"iron-rate", "iron-climbing"} <= unevaluated(bottle)
     after = graded.find("B-804")
-    assert {"iron-rate", "iron-climbing", "acid-rate"} <= _unevaluated(after)
-    assert _caveats(after) == ["one-moment"]
+    assert {"iron-rate", "iron-climbing", "acid-rate"} <= unevaluated(after)
+    assert caveats_of(after) == ["one-moment"]
     assert "trend measures restart here" in after.caveats[0].message
     assert math.isnan(graded.measured.set_index("sample_id").at["B-804", "iron_step"])
     # the file's order no longer matters
@@ -253,14 +242,14 @@ def test_two_sample_points_under_one_unit_id_on_one_day_are_not_stepped():
                                sumpwise.load_ruleset(RULES))
     assert ([r.to_record() for r in reordered.results()][3]["derived"]
             == [r.to_record() for r in graded.results()][3]["derived"])
-    assert graded.find("B-805").grade == "normal" and _caveats(graded.find("B-805")) == []
+    assert graded.find("B-805").grade == "normal" and caveats_of(graded.find("B-805")) == []
     # one result filed twice (every reading alike) is no question of order: it steps as before
     frame = sumpwise.read_samples(FOUND / "two-points.csv").frame
     twice = frame.assign(iron=frame["iron"].where(frame["sample_id"] != "B-803", 9.0))
     again = sumpwise.grade(twice, sumpwise.load_ruleset(RULES))
-    assert [_caveats(again.find(s)) for s in ("B-802", "B-803", "B-804")] == [[], [], []]
+    assert [caveats_of(again.find(s)) for s in ("B-802", "B-803", "B-804")] == [[], [], []]
     assert again.measured.set_index("sample_id").at["B-804", "iron_step_per_1000h"] == pytest.approx(44.0)
-    assert _fired(again.find("B-804")) == {("iron-rate", "alert")}
+    assert fired(again.find("B-804")) == {("iron-rate", "alert")}
 
 
 def _moment_oracle(frame: pd.DataFrame) -> dict:

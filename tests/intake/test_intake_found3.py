@@ -12,6 +12,7 @@ import json
 
 import pytest
 from conftest import DATA, ROOT, run_cli
+from workbooks import write_workbook
 
 FOUND = DATA / "intake_found3"
 GEAR_IRON = FOUND / "gear-iron.yaml"
@@ -27,15 +28,6 @@ def _graded(*argv) -> tuple[dict, str]:
 
 def _fired(record: dict) -> set:
     return {reason["rule"] for reason in record["reasons"]}
-
-
-def _workbook(path, rows: list) -> None:
-    """A workbook of these rows (the first the header) on its first sheet, cells as given."""
-    openpyxl = pytest.importorskip("openpyxl")
-    book = openpyxl.Workbook()
-    for row in rows:
-        book.active.append(row)
-    book.save(path)
 
 
 def _csv_rows(path) -> list:
@@ -79,7 +71,7 @@ def test_an_offset_date_keeps_its_day_and_the_trend_its_order_json_lines(tmp_pat
     _check_offset_trend(got)
 
 
-def test_an_offset_date_keeps_its_day_and_the_trend_its_order_workbook(tmp_path):
+def test_an_offset_date_keeps_its_day_and_the_trend_its_orderwrite_workbook(tmp_path):
     # A workbook written by a lab system keeps an ISO date-time with offset as text (a spreadsheet
     # date has no offset); the resample's date typed in as a spreadsheet date.
     from datetime import datetime
@@ -88,7 +80,7 @@ def test_an_offset_date_keeps_its_day_and_the_trend_its_order_workbook(tmp_path)
     book_rows = [rows[0]] + [[float(v) if k in numeric else v for k, v in enumerate(row)] for row in rows[1:]]
     book_rows[3][4] = datetime(2026, 3, 3)
     path = tmp_path / "offset-dates.xlsx"
-    _workbook(path, book_rows)
+    write_workbook(path, book_rows)
     got, _ = _graded(path, "--rules", GEAR_IRON)
     _check_offset_trend(got)
 
@@ -139,7 +131,7 @@ def test_summary_objects_in_json_lines_are_rejected_each_time_they_come():
     assert _counts(err) == (7, 3, 0, 4)
 
 
-def test_a_label_column_beside_an_empty_or_counted_sample_id_in_a_workbook(tmp_path):
+def test_a_label_column_beside_an_empty_or_counted_sample_id_in_awrite_workbook(tmp_path):
     # A workbook whose first column names the sampling point and carries the group's labels, the
     # sample number beside it: `Average` with no sample number, and `Count` with the count (3) in
     # the sample number's column and in every result column. Was: `Count` graded as sample "3"
@@ -152,7 +144,7 @@ def test_a_label_column_beside_an_empty_or_counted_sample_id_in_a_workbook(tmp_p
             ["Average", None, None, None, 45.3, 0.56, 110],
             ["Count", 3, None, None, 3, 3, 3]]
     path = tmp_path / "labels.xlsx"
-    _workbook(path, rows)
+    write_workbook(path, rows)
     (tmp_path / "map.yaml").write_text(
         'sample_id: "Sample No."\nunit_id: Point\nclass: {value: hydraulic}\nlubricant: Oil\nsampled_on: Date\n'
         'kv40: "Visc 40"\nan: TAN\nwater: Water\n', encoding="utf-8")
@@ -230,7 +222,7 @@ def test_a_header_line_repeated_in_the_same_layout_is_rejected_alone():
     assert _counts(err) == (5, 4, 0, 1)
 
 
-def test_sheets_pasted_one_under_the_other_in_a_workbook(tmp_path):
+def test_sheets_pasted_one_under_the_other_in_awrite_workbook(tmp_path):
     # The same in a workbook: a second header row in another order, then a header row in the
     # first order again, after which rows grade as usual.
     head = ["Sample", "Unit", "Oil", "Date", "Visc 40", "TAN", "Water"]
@@ -239,7 +231,7 @@ def test_sheets_pasted_one_under_the_other_in_a_workbook(tmp_path):
             moved, ["HY-21", "HPU-1", "HYD-46-M", "2026-02-09", 46.2, 150, 0.60],
             head, ["HY-31", "HPU-1", "HYD-46-M", "2026-03-09", 46.3, 0.61, 620]]
     path = tmp_path / "pasted.xlsx"
-    _workbook(path, rows)
+    write_workbook(path, rows)
     (tmp_path / "map.yaml").write_text('sample_id: Sample\nunit_id: Unit\nclass: {value: hydraulic}\nlubricant: Oil\n'
                                        'sampled_on: Date\nkv40: "Visc 40"\nan: TAN\nwater: Water\n', encoding="utf-8")
     got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
@@ -257,7 +249,7 @@ def _gear_book(path, unit_cells: list) -> None:
             [unit_cells[0], "GB7-1", "gearbox", "GEAR-320-M", "2026-01-05", 5000, 319.0, 1.00, 30],
             [unit_cells[1], "GB7-2", "gearbox", "GEAR-320-M", "2026-02-05", 5700, 319.5, 1.02, 34],
             [unit_cells[2], "GB7-3", "gearbox", "GEAR-320-M", "2026-03-05", 6400, 320.0, 1.04, 80]]
-    openpyxl = pytest.importorskip("openpyxl")
+    import openpyxl
     book = openpyxl.Workbook()
     for row in rows:
         book.active.append(row)
@@ -327,12 +319,12 @@ def test_a_qualifier_column_makes_its_result_a_bound_csv():
     assert "not used" not in err  # the qualifier columns are read, not listed as unused
 
 
-def test_a_qualifier_column_makes_its_result_a_bound_workbook(tmp_path):
+def test_a_qualifier_column_makes_its_result_a_boundwrite_workbook(tmp_path):
     rows = [line.split(";") for line in (FOUND / "lims-qualifiers.csv").read_text(encoding="utf-8").splitlines()]
     numbers = {4, 5, 6, 8}
     book = [rows[0]] + [[float(v.replace(",", ".")) if k in numbers else (v or None) for k, v in enumerate(row)]
                         for row in rows[1:]]
-    _workbook(tmp_path / "lims.xlsx", book)
+    write_workbook(tmp_path / "lims.xlsx", book)
     (tmp_path / "map.yaml").write_text((FOUND / "lims-qualifiers.yaml").read_text(encoding="utf-8").replace(
         'file: {delimiter: ";", decimal: ",", date_format: "%d.%m.%Y"}', 'file: {date_format: "%d.%m.%Y"}'),
         encoding="utf-8")

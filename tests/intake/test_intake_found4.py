@@ -15,6 +15,7 @@ import re
 
 import pytest
 from conftest import DATA, ROOT, run_cli
+from workbooks import write_workbook
 
 FOUND = DATA / "intake_found4"
 HYDRAULIC = ROOT / "rules" / "hydraulic.yaml"
@@ -40,14 +41,6 @@ def _rejects(err: str) -> list:
 def _counts(err: str) -> tuple:
     (found,) = re.findall(r"read (\d+) row\(s\): (\d+) graded, (\d+) unrated, (\d+) rejected", err)
     return tuple(map(int, found))
-
-
-def _workbook(path, rows: list) -> None:
-    openpyxl = pytest.importorskip("openpyxl")
-    book = openpyxl.Workbook()
-    for row in rows:
-        book.active.append(row)
-    book.save(path)
 
 
 # --- 1. A header that is an engine name but for case, spaces, '-' or '_' ------------------------
@@ -101,7 +94,7 @@ def test_title_case_headers_of_a_workbook_and_on_standard_input(tmp_path):
     text = (FOUND / "mixed-case-headers.csv").read_text(encoding="utf-8")
     rows = [line.split(",") for line in text.splitlines()]
     book = [rows[0]] + [[float(c) if k >= 5 else c for k, c in enumerate(row)] for row in rows[1:]]
-    _workbook(tmp_path / "mixed.xlsx", book)
+    write_workbook(tmp_path / "mixed.xlsx", book)
     got, _ = _graded(tmp_path / "mixed.xlsx", "--rules", HYDRAULIC)
     _check_mixed_case(got, "HY-2026-0701", "HY-2026-0702", "HY-2026-0703")
     got, _ = _graded("-", "--rules", HYDRAULIC, stdin=text)
@@ -243,7 +236,7 @@ def test_a_header_that_is_more_than_a_name_and_a_unit_is_not_read(tmp_path, head
     assert "water" not in got["HY-2026-0771"]["values"] and f"lab columns not used: {header}" in err
 
 
-def test_headers_with_units_on_standard_input_and_wrapped_in_a_workbook(tmp_path):
+def test_headers_with_units_on_standard_input_and_wrapped_in_awrite_workbook(tmp_path):
     # The same export piped in (the chunked reader detects the marks from its first chunk), and a
     # workbook whose header cells wrap the unit onto a second line (`Water\n(%)`, as a spreadsheet
     # writes a header with a line break in the cell). Was: the four columns unread, all normal.
@@ -253,7 +246,7 @@ def test_headers_with_units_on_standard_input_and_wrapped_in_a_workbook(tmp_path
     rows = [line.split(";") for line in text.splitlines()]
     header = [name.replace(" (", "\n(").replace(" [", "\n[") for name in rows[0]]
     book = [header] + [[float(c.replace(",", ".")) if k >= 5 else c for k, c in enumerate(row)] for row in rows[1:]]
-    _workbook(tmp_path / "wrapped.xlsx", book)
+    write_workbook(tmp_path / "wrapped.xlsx", book)
     got, _ = _graded(tmp_path / "wrapped.xlsx", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml")
     _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
 
