@@ -84,11 +84,17 @@ def _oxidation_below_new_notes(oxidation: np.ndarray, new: np.ndarray, codes: np
     notes = np.full(len(oxidation), None, dtype=object)
     with np.errstate(invalid="ignore"):
         low = (new >= BELOW_NEW_FLOOR) & (oxidation < BELOW_NEW_SHARE * new)
-    for k in np.flatnonzero(low):  # rare rows: each worded with its own figures
-        notes[k] = (f"FTIR oxidation {oxidation[k]:g} abs/cm is under half its new oil's {new[k]:g} abs/cm"
-                    f"{f' ({codes[k]})' if codes[k] else ''}, and oxidation only adds carbonyl: a reading in "
-                    f"abs/0.1 mm taken as abs/cm reads 100 times low, and so does another oil's new-oil value; "
-                    f"its rise below zero is no sign of health. Check the reading's unit and the lubricant")
+    at = np.flatnonzero(low)
+    if not len(at):
+        return notes
+    named = np.where(pd.notna(codes[at]), codes[at], "").astype(object)
+    triples, uniques = pd.MultiIndex.from_arrays([oxidation[at], new[at], named]).factorize()
+    worded = [f"FTIR oxidation {reading:g} abs/cm is under half its new oil's {reference:g} abs/cm"
+              f"{f' ({code})' if code else ''}, and oxidation only adds carbonyl: a reading in abs/0.1 mm taken "
+              f"as abs/cm reads 100 times low, and so does another oil's new-oil value; its rise below zero is "
+              f"no sign of health. Check the reading's unit and the lubricant"
+              for reading, reference, code in uniques]  # each distinct reading worded once
+    notes[at] = np.array(worded, dtype=object)[triples]
     return notes
 
 

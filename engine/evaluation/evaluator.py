@@ -396,7 +396,7 @@ def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> d
             reading[as_written] = "written '" + reading[as_written] + "'"  # a derived one says its own source
             why = ""
             if said is not None and said.endswith(NOISE_SUFFIX):  # the interval is the gap's: said once, there
-                reading = np.array([r.split(", [", 1)[0] for r in reading], dtype=object)
+                reading = pd.Series(reading, dtype=object).str.partition(", [")[0].to_numpy(dtype=object)
                 why = ", its step being within the noise margin"
             text = (f"{rule.id}: {rule.measure} " + reading + f" may be {rule.test} its {ruleset.grades[level]} "
                     f"limit ({shown}{' ' + unit if unit else ''}){why}")

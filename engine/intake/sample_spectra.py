@@ -200,7 +200,8 @@ def _base_stocks(frame: pd.DataFrame, ruleset: RuleSet, evidence: dict) -> pd.Da
         lubricant = _text(frame, "lubricant")
         own = _text(frame, "base_stock")
         base = own.copy()
-        keys = np.array([lubricant_key(code) if code else "" for code in lubricant], dtype=object)
+        codes, uniques = pd.factorize(lubricant)  # each distinct code keyed once
+        keys = np.array([lubricant_key(code) if code else "" for code in uniques] + [""], dtype=object)[codes]
         table_codes = {lubricant_key(code): code for code in ruleset.lubricants}
         for code, found in evidence.items():
             rows = keys == lubricant_key(code)
