@@ -154,9 +154,10 @@ SUBTOTAL = "a spreadsheet subtotal line"
 def _subtotals(cells: np.ndarray, looked: np.ndarray) -> np.ndarray:
     """SUBTOTAL where a cell (at `looked`, a few) is a subtotal line's label, else None."""
     kinds = np.full(len(cells), None, dtype=object)
-    for k in np.flatnonzero(looked):
-        if isinstance(cells[k], str) and _SUBTOTAL.fullmatch(cells[k].strip()):
-            kinds[k] = SUBTOTAL
+    at = np.flatnonzero(looked)
+    if len(at):
+        matched = pd.Series(cells[at], dtype=object).str.strip().str.fullmatch(_SUBTOTAL)  # not text: NaN
+        kinds[at[matched.eq(True).to_numpy(dtype=bool)]] = SUBTOTAL
     return kinds
 
 
