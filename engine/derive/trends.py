@@ -4,7 +4,9 @@ Samples are put in order by unit, sample date and oil hours (on one date, a samp
 `oil_changed` after the others; a ledger's earlier samples of the same units first, so they
 come before the batch's on a tie). A unit's chain restarts at an oil
 change: the `oil_changed` flag, the lubricant code changing, or oil hours going down against
-the unit's last sample that has oil hours (a sample without them in between hides nothing). A
+the unit's last sample that has oil hours (a sample without them in between hides nothing),
+unless the oil's aged readings stayed aged: then the hours meter was reset without an oil change
+(an overhaul, a meter changed), the chain goes on and the `oil-hours-reset` caveat says so. A
 sample without oil hours between an oil change's two sides cannot be placed on either charge:
 no step is taken to or from it, and it says so. A step across a change of method (direct vs
 subtraction) or of lab is not computed: the two readings are not comparable. All of it is one
@@ -64,6 +66,12 @@ TREND_CAVEATS = (
                  "sumpwise engine: samples of one unit on one date at the same oil hours (two sample points under "
                  "one unit id, or a resample) have no order but the file's; none of them is stepped, nor the sample "
                  "after them (common practice, no source)"),
+    EngineCaveat("oil-hours-reset", "hours_reset_note",
+                 "sumpwise engine: oil hours that fall with no oil_changed flag and no change of lubricant code, "
+                 "while the old oil's aged readings stay aged (none back at least halfway to the new oil's), "
+                 "are a meter reset without an oil change: the trend goes on, and no rate per 1000 oil hours is "
+                 "taken to the sample, nor one per 1000 of its own oil hours for the rest of the charge "
+                 "(common practice, no source)"),
     EngineCaveat("oil-charge-unknown", "oil_charge_note",
                  "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
                  "code to tell which side of an oil change it lies, or oil hours the calendar cannot hold) is "
@@ -73,6 +81,23 @@ TREND_CAVEATS = (
 
 # Spellings of the `oil_changed` flag (case ignored); an empty cell means no change.
 _FLAGS = {"true": True, "false": False, "yes": True, "no": False, "1": True, "0": False}
+
+# The readings that tell an oil change from an hours meter reset when oil hours fall unflagged:
+# those with a new-oil value (`new_<name>`, from the lubricants table or the row) move back
+# toward it when the oil is changed and stay where the aged oil had them when it is not; a
+# differential reading is the carbonyl gained over the new oil, whose own is 0 (ASTM D7414
+# Procedure B). A declared wear metal has no new-oil value and tells nothing here.
+# Each with the way it ages from new: acid number and carbonyl rise, base number and RPVOT fall
+# (ASTM D4378, D6224), viscosity either way (0: the distance either side).
+RESET_EVIDENCE = {"kv40": 0, "kv100": 0, "an": 1, "bn": -1, "oxidation": 1, "oxidation_differential": 1, "rpvot": -1}
+NEW_ZERO = ("oxidation_differential",)
+# A reading is aged when it lies more than twice its noise margin from the new oil's: the noise
+# margin (noise_margins), else the method's published repeatability, else this share of the new
+# oil's value (our choice, no source).
+AGED_SHARE = 0.05
+# An oil change brings an aged reading at least halfway back to the new oil's: a drain leaves
+# some old oil in lines, coolers and the sump (common practice, no source).
+BACK_SHARE = 0.5
 
 
 def read_oil_changes(batch: SampleBatch) -> SampleBatch:
@@ -138,7 +163,15 @@ def chain_frame(measured: pd.DataFrame, oil_changed, bases: tuple = TREND_BASES)
     frame["oil_changed"] = flags
     for base in bases:
         frame[base] = measured[base].to_numpy(dtype=float)
-    return frame[list(CHAIN_COLUMNS) + list(bases)]
+    evidence = [name for name in _evidence_columns() if name not in bases and name in measured.columns]
+    for name in evidence:  # to tell an hours meter reset from an oil change (RESET_EVIDENCE)
+        frame[name] = measured[name].to_numpy(dtype=float)
+    return frame[list(CHAIN_COLUMNS) + list(bases) + evidence]
+
+
+def _evidence_columns() -> tuple:
+    """RESET_EVIDENCE's readings and their new-oil values' columns."""
+    return tuple(RESET_EVIDENCE) + tuple(f"new_{name}" for name in RESET_EVIDENCE if name not in NEW_ZERO)
 
 
 def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | None, bases: tuple) -> dict:
@@ -150,6 +183,10 @@ def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | N
     own["oil_changed"] = (np.zeros(len(measured), dtype=bool) if oil_changed is None
                           else np.asarray(oil_changed, dtype=bool))
     own.update({base: measured[base].to_numpy(dtype=float) for base in bases})
+    for name in _evidence_columns():
+        if name not in own:
+            own[name] = (measured[name].to_numpy(dtype=float) if name in measured.columns
+                         else np.full(len(measured), np.nan))
     if history is None or not len(history):
         return own
     # A base the history does not carry has no earlier value there.
@@ -231,8 +268,10 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
     flagged = chain["oil_changed"][order]
+    evidence = {name: (chain[name][order], np.zeros(total) if name in NEW_ZERO else chain[f"new_{name}"][order],
+                       _evidence_margin(name, margins)) for name in RESET_EVIDENCE}
     charges = _oil_charges(unit, same_unit, h, flagged, _text_codes(chain["lubricant"])[order], dates[order],
-                           _text_codes(chain["class"])[order])
+                           _text_codes(chain["class"])[order], evidence)
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
     restarts = new_oil | charges["class_changed"]
     method_codes, _ = pd.factorize(chain["method"])
@@ -296,7 +335,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     before = _shifted(order, 0)[mine]  # chain row of each incoming row's predecessor
     # Each row's unbroken run (one unit, one oil charge, one method and lab: a forecast fits over
     # it) and its place in the trend order; a run id never spans two units.
-    run = np.cumsum(~comparable)
+    run = np.cumsum(~comparable | charges["reset"])  # a forecast fits on oil hours: none across a meter reset
     runs = pd.DataFrame({"trend_run": run[mine], "trend_position": mine}, index=measured.index)
     notes = pd.DataFrame({
         "trend_break_note": _break_notes(chain, before, method_changed[mine], lab_changed[mine],
@@ -304,11 +343,14 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "oil_change_note": _oil_notes(chain, order, mine, flagged, charges, h),
         "class_change_note": _class_notes(chain, order, mine, charges),
         "one_moment_note": _moment_notes(chain, order, mine, moment, h),
+        "hours_reset_note": _reset_notes(chain, order, mine, charges, h, evidence),
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, restarts),
     }, index=measured.index, dtype=object)
     out = pd.concat([measured, numbers, runs, notes], axis=1)
-    outrun = charges["outrun"][mine]
-    if outrun.any():  # its own oil hours may be the wrong ones: no rate per 1000 oil hours on it either
+    # its own oil hours may be the wrong ones, or count from a meter reset, not the fill: no rate
+    # per 1000 oil hours on it either
+    outrun = charges["outrun"][mine] | (charges["reset_at"][mine] >= 0)
+    if outrun.any():
         for name in PER_OIL_HOUR:
             for column, empty in ((name, np.nan), (name + ":low", np.nan), (name + ":high", np.nan),
                                   (name + WRITTEN_SUFFIX, None)):
@@ -414,7 +456,8 @@ def _text_codes(texts: np.ndarray) -> np.ndarray:
 
 
 def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged: np.ndarray,
-                 lubricant: np.ndarray, day_keys: np.ndarray, classes: np.ndarray | None = None) -> dict:
+                 lubricant: np.ndarray, day_keys: np.ndarray, classes: np.ndarray | None = None,
+                 evidence: dict | None = None) -> dict:
     """Where each unit's oil charges start, in trend order (all arrays sorted).
 
     A unit's samples are one chain only while its equipment class stays the same: a sample whose
@@ -432,6 +475,12 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     rose since the charge's last ones by more than the calendar holds (_most_hours) is `outrun`:
     its hours or a date are wrong, or the two are not of one charge. No rate is taken to it; on
     one date (an oil change that day, unflagged, puts the new fill first) no step either.
+
+    Oil hours that fall with neither the flag nor a change of code, where `evidence` (each
+    RESET_EVIDENCE reading, its new-oil value and noise margin, sorted) shows the old oil aged and
+    none of its aged readings back toward new (_stayed_aged), are a `reset` of the hours meter
+    without an oil change: no charge starts there. `reset_at` is, for each sample of a charge from
+    such a reset on, the reset's position (-1 elsewhere): its oil hours no longer count from the fill.
     """
     n = len(unit)
     positions = np.arange(n)
@@ -460,10 +509,26 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     restart = flagged | lubricant_changed | class_changed | first
     charge_start = _start_at(restart, positions)
     timed = np.isfinite(h)
+    dated = day_keys != _LAST
+
+    def outrunning(hours_from):
+        """Where oil hours rose since `hours_from` by more than the calendar holds, and the days between."""
+        from_at = np.maximum(hours_from, 0)
+        days = np.where(dated & dated[from_at], (day_keys - day_keys[from_at]) / 86_400e9, np.nan)
+        with np.errstate(invalid="ignore"):
+            return timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days)), days
+
     hours_from = last_before(timed)
     hours_from = np.where(hours_from >= charge_start, hours_from, -1)  # looked back within the charge only
+    outrun, days = outrunning(hours_from)
     hours_fell = timed & (hours_from >= 0) & (h < h[np.maximum(hours_from, 0)])
+    # a fall from oil hours the calendar cannot hold is that slip's other side, no meter reset
+    reset = hours_fell & ~flagged & ~lubricant_changed & ~outrun[np.maximum(hours_from, 0)]
+    reset &= _stayed_aged(evidence, np.maximum(hours_from, 0)) if evidence else False
+    hours_fell &= ~reset  # a fall in oil hours that tells an oil change
     new_oil = flagged | lubricant_changed | hours_fell
+    last_reset = np.maximum.accumulate(np.where(reset, positions, -1)) if n else positions
+    reset_at = np.where(last_reset >= _start_at(new_oil | class_changed | first, positions), last_reset, -1)
 
     # A sample without oil hours before a fall in them, with no restart in between, lies between
     # the fall's two sides; one without a lubricant code either, before a change of code, too.
@@ -478,15 +543,57 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     unplaced &= ~(new_oil | class_changed)
     # what placed nothing: the change it lies before, and that change's other side
     change_of = np.where(~timed & (fall >= 0) & hours_fell[fall_at], fall, change)
-    from_at = np.maximum(hours_from, 0)
-    dated = day_keys != _LAST
-    days = np.where(dated & dated[from_at], (day_keys - day_keys[from_at]) / 86_400e9, np.nan)
-    with np.errstate(invalid="ignore"):
-        outrun = timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days))
     return {"new_oil": new_oil, "hours_fell": hours_fell, "hours_from": hours_from,
             "lubricant_changed": lubricant_changed, "lubricant_from": lubricant_from,
             "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of,
-            "same_unit": same_unit, "class_changed": class_changed, "class_from": class_from}
+            "same_unit": same_unit, "class_changed": class_changed, "class_from": class_from,
+            "reset": reset, "reset_at": reset_at}
+
+
+def _evidence_margin(name: str, margins: dict) -> tuple:
+    """The noise margin (absolute, factor, offset) a RESET_EVIDENCE reading is judged aged by:
+    the rule set's or published one (noise_margins), else AGED_SHARE of the new oil's value
+    (factor None)."""
+    if name in margins:
+        return margins[name]
+    published = MEASURES[name].repeatability if name in MEASURES else None
+    return (0.0, published.factor, published.offset) if published is not None else (0.0, None, 0.0)
+
+
+def _distances(evidence: dict, now: np.ndarray, before: np.ndarray) -> dict:
+    """For each evidence reading, at the positions `now` and their earlier sample `before`: the
+    earlier reading's distance from new oil the way it ages, the later's, and whether the earlier
+    one was aged (a reading on the other side of new, such as carbonyl under the new oil's, is not)."""
+    out = {}
+    for name, (values, new, (absolute, factor, offset)) in evidence.items():
+        way = RESET_EVIDENCE[name]
+        reference = np.where(np.isnan(new[now]), new[before], new[now])
+        old, current = values[before], values[now]
+        if factor is None:
+            margin = AGED_SHARE * np.abs(reference)
+        else:
+            margin = absolute + factor * np.abs((old + reference) / 2.0 + offset)
+        was = way * (old - reference) if way else np.abs(old - reference)
+        now_at = way * (current - reference) if way else np.abs(current - reference)
+        with np.errstate(invalid="ignore"):
+            aged = was > 2.0 * margin
+        out[name] = (old, current, reference, was, now_at, aged)
+    return out
+
+
+def _stayed_aged(evidence: dict, before: np.ndarray) -> np.ndarray:
+    """Where the old oil (at `before`) had an aged reading and none of its aged readings came back
+    at least BACK_SHARE of the way to the new oil's: no oil change between (common practice, no
+    source). NaN anywhere is no evidence either way."""
+    now = np.arange(len(before))
+    aged_any = np.zeros(len(before), dtype=bool)
+    back_any = np.zeros(len(before), dtype=bool)
+    for _, _, _, was, current, aged in _distances(evidence, now, before).values():
+        with np.errstate(invalid="ignore"):
+            aged &= np.isfinite(current)
+            aged_any |= aged
+            back_any |= aged & (current <= (1.0 - BACK_SHARE) * was)
+    return aged_any & ~back_any
 
 
 def _start_at(starts: np.ndarray, positions: np.ndarray) -> np.ndarray:
@@ -531,6 +638,44 @@ def _why(chain: dict, order: np.ndarray, at: np.ndarray, flagged: np.ndarray, ch
         both = charges["hours_fell"][to]
         why[changed] = np.where(both, text + " and " + why[changed], text)
     return why
+
+
+def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray,
+                 evidence: dict) -> np.ndarray:
+    """The oil-hours-reset note of each incoming row (sorted arrays, `mine` their sorted positions):
+    on the sample where the meter was reset, what told it; on the charge's later samples, where."""
+    notes = np.full(len(mine), None, dtype=object)
+    reset_at = charges["reset_at"][mine]
+    hit = np.flatnonzero(reset_at >= 0)
+    if not len(hit):
+        return notes
+    at = mine[hit]
+    here = charges["reset"][at]
+    if here.any():
+        now = at[here]
+        before = charges["hours_from"][now]
+        told = np.full(len(now), "", dtype=object)
+        for name, (old, current, reference, _, _, aged) in _distances(evidence, now, before).items():
+            with np.errstate(invalid="ignore"):
+                shown = aged & np.isfinite(current)
+            phrase = (name + " " + _hours(old) + " to " + _hours(current) + " (new oil " + _hours(reference) + ")")
+            told = np.where(shown, told + np.where(told == "", "", ", ") + phrase, told)
+        which = np.where(before == now - 1, "", " with oil hours").astype(object)
+        notes[hit[here]] = ("oil hours fell from " + _hours(h[before]) + " to " + _hours(h[now])
+                            + _since(chain, order[before], which) + " with no oil_changed flag, and the aged readings "
+                            "stayed aged (" + told + "): taken as the hours meter reset without an oil change (an "
+                            "overhaul, a meter changed); the trend goes on across it, with no rate per 1000 h to this "
+                            "sample, and no rate per 1000 of its own oil hours on it or on the later samples of this "
+                            "charge, whose oil hours no longer count from the fill; if the oil was changed, set "
+                            "oil_changed on this sample")
+    later = ~here
+    if later.any():
+        start = order[reset_at[hit[later]]]
+        notes[hit[later]] = ("the oil hours of unit " + _text(chain["unit_id"][start]) + " were taken as reset "
+                             "without an oil change at sample " + _text(chain["sample_id"][start]) + " ("
+                             + _text(chain["sampled_on"][start]) + "), so they no longer count from the fill: no "
+                             "rate per 1000 of this sample's own oil hours is taken")
+    return notes
 
 
 def _class_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict) -> np.ndarray:

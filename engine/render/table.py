@@ -50,7 +50,8 @@ def wants_progress(stream, rows: int, min_rows: int = PROGRESS_MIN_ROWS) -> bool
 # Caveats meaning a sample was graded on less than it should be, or may deserve a higher grade
 # (the no-silent-pass ones).
 FIRST_CAVEATS = ("unknown-lubricant", "base-stock-disagrees", "oxidation-below-new", "unknown-class",
-                 "few-rules-evaluated", "grade-may-be-higher", "oil-charge-unknown", "class-changed", "one-moment")
+                 "few-rules-evaluated", "grade-may-be-higher", "oil-charge-unknown", "class-changed", "one-moment",
+                 "oil-hours-reset")
 
 
 def _why(result) -> str:
