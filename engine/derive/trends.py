@@ -33,8 +33,6 @@ from sumpwise.intake.censored import WRITTEN_SUFFIX, number_text
 from sumpwise.intake.samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
-CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant",
-                 "class")
 
 _LAST = np.iinfo(np.int64).max  # sort key of a missing date: after every real one
 HOURS_A_DAY = 24.0  # the most oil hours a calendar day can add
@@ -98,6 +96,16 @@ AGED_SHARE = 0.05
 # An oil change brings an aged reading at least halfway back to the new oil's: a drain leaves
 # some old oil in lines, coolers and the sump (common practice, no source).
 BACK_SHARE = 0.5
+# A sample's evidence readings under their own names, and the sample an hours meter reset of its
+# charge was taken at ("ID (DATE)", None elsewhere): so a file graded in chunks carries them
+# with each unit's latest samples (results.pipeline) and tells a reset across a chunk boundary.
+EVIDENCE_PREFIX = "aged:"
+RESET_COLUMN = "hours_reset_at"
+EVIDENCE_COLUMNS = tuple(EVIDENCE_PREFIX + name for name in RESET_EVIDENCE)
+
+# The columns a sample contributes to trends; a ledger's history frame has these.
+CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant",
+                 "class", RESET_COLUMN) + EVIDENCE_COLUMNS
 
 
 def read_oil_changes(batch: SampleBatch) -> SampleBatch:
@@ -157,21 +165,25 @@ def noise_margins(ruleset: RuleSet, bases: tuple) -> dict:
 def chain_frame(measured: pd.DataFrame, oil_changed, bases: tuple = TREND_BASES) -> pd.DataFrame:
     """The columns of `measured` trends read for `bases`, with `oil_changed` as booleans (False when absent)."""
     frame = pd.DataFrame({name: measured[name].to_numpy(dtype=object) for name in CHAIN_COLUMNS
-                          if name not in ("oil_hours", "oil_changed")})
+                          if name not in ("oil_hours", "oil_changed", RESET_COLUMN) + EVIDENCE_COLUMNS})
     frame["oil_hours"] = measured["oil_hours"].to_numpy(dtype=float)
     flags = np.zeros(len(measured), dtype=bool) if oil_changed is None else np.asarray(oil_changed, dtype=bool)
     frame["oil_changed"] = flags
+    frame[RESET_COLUMN] = None  # a ledger gives every earlier sample: the reset is found again
+    for name, values in _evidence(measured).items():
+        frame[name] = values
     for base in bases:
         frame[base] = measured[base].to_numpy(dtype=float)
-    evidence = [name for name in _evidence_columns() if name not in bases and name in measured.columns]
-    for name in evidence:  # to tell an hours meter reset from an oil change (RESET_EVIDENCE)
+    new = [f"new_{name}" for name in RESET_EVIDENCE if f"new_{name}" in measured.columns]
+    for name in new:  # the new-oil values a reset is judged against (RESET_EVIDENCE)
         frame[name] = measured[name].to_numpy(dtype=float)
-    return frame[list(CHAIN_COLUMNS) + list(bases) + evidence]
+    return frame[list(CHAIN_COLUMNS) + list(bases) + new]
 
 
-def _evidence_columns() -> tuple:
-    """RESET_EVIDENCE's readings and their new-oil values' columns."""
-    return tuple(RESET_EVIDENCE) + tuple(f"new_{name}" for name in RESET_EVIDENCE if name not in NEW_ZERO)
+def _evidence(measured: pd.DataFrame) -> dict:
+    """EVIDENCE_COLUMNS from a measured frame's readings (NaN where it has none)."""
+    return {EVIDENCE_PREFIX + name: (measured[name].to_numpy(dtype=float) if name in measured.columns
+                                     else np.full(len(measured), np.nan)) for name in RESET_EVIDENCE}
 
 
 def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | None, bases: tuple) -> dict:
@@ -183,15 +195,16 @@ def _chain_arrays(measured: pd.DataFrame, oil_changed, history: pd.DataFrame | N
     own["oil_changed"] = (np.zeros(len(measured), dtype=bool) if oil_changed is None
                           else np.asarray(oil_changed, dtype=bool))
     own.update({base: measured[base].to_numpy(dtype=float) for base in bases})
-    for name in _evidence_columns():
-        if name not in own:
-            own[name] = (measured[name].to_numpy(dtype=float) if name in measured.columns
-                         else np.full(len(measured), np.nan))
+    own.update(_evidence(measured))
+    own.update({f"new_{name}": measured[f"new_{name}"].to_numpy(dtype=float) if f"new_{name}" in measured.columns
+                else np.full(len(measured), np.nan) for name in RESET_EVIDENCE if name not in NEW_ZERO})
+    own[RESET_COLUMN] = np.full(len(measured), None, dtype=object)
     if history is None or not len(history):
         return own
     # A base the history does not carry has no earlier value there.
     return {name: np.concatenate([history[name].to_numpy(dtype=values.dtype) if name in history.columns
-                                  else np.full(len(history), np.nan), values]) for name, values in own.items()}
+                                  else np.full(len(history), None if values.dtype == object else np.nan,
+                                               dtype=values.dtype), values]) for name, values in own.items()}
 
 
 def _dense_rank(values: np.ndarray) -> tuple[np.ndarray, int]:
@@ -268,10 +281,12 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
     flagged = chain["oil_changed"][order]
-    evidence = {name: (chain[name][order], np.zeros(total) if name in NEW_ZERO else chain[f"new_{name}"][order],
+    evidence = {name: (chain[EVIDENCE_PREFIX + name][order],
+                       np.zeros(total) if name in NEW_ZERO else chain[f"new_{name}"][order],
                        _evidence_margin(name, margins)) for name in RESET_EVIDENCE}
+    reset_told = pd.notna(chain[RESET_COLUMN][order])  # a reset an earlier chunk found
     charges = _oil_charges(unit, same_unit, h, flagged, _text_codes(chain["lubricant"])[order], dates[order],
-                           _text_codes(chain["class"])[order], evidence)
+                           _text_codes(chain["class"])[order], evidence, reset_told)
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
     restarts = new_oil | charges["class_changed"]
     method_codes, _ = pd.factorize(chain["method"])
@@ -346,10 +361,15 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "hours_reset_note": _reset_notes(chain, order, mine, charges, h, evidence),
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, restarts),
     }, index=measured.index, dtype=object)
-    out = pd.concat([measured, numbers, runs, notes], axis=1)
+    reset_at = charges["reset_at"][mine]
+    place = np.full(len(mine), None, dtype=object)
+    if (reset_at >= 0).any():
+        place[reset_at >= 0] = _reset_places(chain, order[reset_at[reset_at >= 0]])
+    carried = pd.DataFrame({RESET_COLUMN: place, **_evidence(measured)}, index=measured.index)
+    out = pd.concat([measured, numbers, runs, notes, carried], axis=1)
     # its own oil hours may be the wrong ones, or count from a meter reset, not the fill: no rate
     # per 1000 oil hours on it either
-    outrun = charges["outrun"][mine] | (charges["reset_at"][mine] >= 0)
+    outrun = charges["outrun"][mine] | (reset_at >= 0)
     if outrun.any():
         for name in PER_OIL_HOUR:
             for column, empty in ((name, np.nan), (name + ":low", np.nan), (name + ":high", np.nan),
@@ -457,7 +477,7 @@ def _text_codes(texts: np.ndarray) -> np.ndarray:
 
 def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged: np.ndarray,
                  lubricant: np.ndarray, day_keys: np.ndarray, classes: np.ndarray | None = None,
-                 evidence: dict | None = None) -> dict:
+                 evidence: dict | None = None, reset_told: np.ndarray | None = None) -> dict:
     """Where each unit's oil charges start, in trend order (all arrays sorted).
 
     A unit's samples are one chain only while its equipment class stays the same: a sample whose
@@ -481,6 +501,7 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     none of its aged readings back toward new (_stayed_aged), are a `reset` of the hours meter
     without an oil change: no charge starts there. `reset_at` is, for each sample of a charge from
     such a reset on, the reset's position (-1 elsewhere): its oil hours no longer count from the fill.
+    A sample of `reset_told` (an earlier chunk's, in a charge from such a reset on) carries its reset on.
     """
     n = len(unit)
     positions = np.arange(n)
@@ -527,7 +548,8 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     reset &= _stayed_aged(evidence, np.maximum(hours_from, 0)) if evidence else False
     hours_fell &= ~reset  # a fall in oil hours that tells an oil change
     new_oil = flagged | lubricant_changed | hours_fell
-    last_reset = np.maximum.accumulate(np.where(reset, positions, -1)) if n else positions
+    told = reset if reset_told is None else reset | (reset_told & ~(new_oil | class_changed))
+    last_reset = np.maximum.accumulate(np.where(told, positions, -1)) if n else positions
     reset_at = np.where(last_reset >= _start_at(new_oil | class_changed | first, positions), last_reset, -1)
 
     # A sample without oil hours before a fall in them, with no restart in between, lies between
@@ -672,10 +694,16 @@ def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict
     if later.any():
         start = order[reset_at[hit[later]]]
         notes[hit[later]] = ("the oil hours of unit " + _text(chain["unit_id"][start]) + " were taken as reset "
-                             "without an oil change at sample " + _text(chain["sample_id"][start]) + " ("
-                             + _text(chain["sampled_on"][start]) + "), so they no longer count from the fill: no "
-                             "rate per 1000 of this sample's own oil hours is taken")
+                             "without an oil change at sample " + _reset_places(chain, start) + ", so they no "
+                             "longer count from the fill: no rate per 1000 of this sample's own oil hours is taken")
     return notes
+
+
+def _reset_places(chain: dict, rows: np.ndarray) -> np.ndarray:
+    """"ID (DATE)" of the reset samples at chain `rows`, or what an earlier chunk carried for them."""
+    told = chain[RESET_COLUMN][rows]
+    own = _text(chain["sample_id"][rows]) + " (" + _text(chain["sampled_on"][rows]) + ")"
+    return np.where(pd.notna(told), told, own).astype(object)
 
 
 def _class_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict) -> np.ndarray:
