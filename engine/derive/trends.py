@@ -6,7 +6,7 @@ come before the batch's on a tie). A unit's chain restarts at an oil
 change: the `oil_changed` flag, the lubricant code changing, or oil hours going down against
 the unit's last sample that has oil hours (a sample without them in between hides nothing),
 unless the oil's aged readings stayed aged: then the hours meter was reset without an oil change
-(an overhaul, a meter changed), the chain goes on and the `oil-hours-reset` caveat says so. A
+(an overhaul, a meter changed), the chain goes on and the `oil-hours-not-from-fill` caveat says so. A
 sample without oil hours between an oil change's two sides cannot be placed on either charge:
 no step is taken to or from it, and it says so. A step across a change of method (direct vs
 subtraction) or of lab is not computed: the two readings are not comparable. All of it is one
@@ -64,12 +64,13 @@ TREND_CAVEATS = (
                  "sumpwise engine: samples of one unit on one date at the same oil hours (two sample points under "
                  "one unit id, or a resample) have no order but the file's; none of them is stepped, nor the sample "
                  "after them (common practice, no source)"),
-    EngineCaveat("oil-hours-reset", "hours_reset_note",
-                 "sumpwise engine: oil hours that fall with no oil_changed flag and no change of lubricant code, "
-                 "while the old oil's aged readings stay aged (none back at least halfway to the new oil's), "
-                 "are a meter reset without an oil change: the trend goes on, and no rate per 1000 oil hours is "
-                 "taken to the sample, nor one per 1000 of its own oil hours for the rest of the charge "
-                 "(common practice, no source)"),
+    EngineCaveat("oil-hours-not-from-fill", "hours_reset_note",
+                 "sumpwise engine: oil hours count from the oil's fill; where they do not (they fall with no "
+                 "oil_changed flag and no change of lubricant code while the old oil's aged readings stay aged, none "
+                 "back at least halfway to the new oil's: a meter reset without an oil change, and the trend goes "
+                 "on across it; or at an oil change they are more than the calendar holds since the old oil's last "
+                 "sample: the unit's hours), no rate per 1000 of a sample's own oil hours is taken for the rest of "
+                 "that charge (common practice, no source)"),
     EngineCaveat("oil-charge-unknown", "oil_charge_note",
                  "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
                  "code to tell which side of an oil change it lies, or oil hours the calendar cannot hold) is "
@@ -102,6 +103,8 @@ BACK_SHARE = 0.5
 EVIDENCE_PREFIX = "aged:"
 RESET_COLUMN = "hours_reset_at"
 EVIDENCE_COLUMNS = tuple(EVIDENCE_PREFIX + name for name in RESET_EVIDENCE)
+# RESET_COLUMN of a history sample whose neighbours are all given (a ledger's): found again from them.
+NOT_TOLD = ""
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
 CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant",
@@ -169,7 +172,7 @@ def chain_frame(measured: pd.DataFrame, oil_changed, bases: tuple = TREND_BASES)
     frame["oil_hours"] = measured["oil_hours"].to_numpy(dtype=float)
     flags = np.zeros(len(measured), dtype=bool) if oil_changed is None else np.asarray(oil_changed, dtype=bool)
     frame["oil_changed"] = flags
-    frame[RESET_COLUMN] = None  # a ledger gives every earlier sample: the reset is found again
+    frame[RESET_COLUMN] = NOT_TOLD  # a ledger gives every earlier sample: what it says is found again
     for name, values in _evidence(measured).items():
         frame[name] = values
     for base in bases:
@@ -284,7 +287,12 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     evidence = {name: (chain[EVIDENCE_PREFIX + name][order],
                        np.zeros(total) if name in NEW_ZERO else chain[f"new_{name}"][order],
                        _evidence_margin(name, margins)) for name in RESET_EVIDENCE}
-    reset_told = pd.notna(chain[RESET_COLUMN][order])  # a reset an earlier chunk found
+    # a charge whose hours an earlier chunk found not counting from the fill, told by the unit's
+    # latest carried sample (an older one, carried for its oil hours or flag, may be of an earlier charge)
+    told = chain[RESET_COLUMN][order]
+    carried = (order < earlier) & (told != NOT_TOLD)
+    latest = carried & ~np.r_[same_unit[1:] & carried[1:], False]
+    reset_told = (latest & pd.notna(told), ~carried)
     charges = _oil_charges(unit, same_unit, h, flagged, _text_codes(chain["lubricant"])[order], dates[order],
                            _text_codes(chain["class"])[order], evidence, reset_told)
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
@@ -477,7 +485,7 @@ def _text_codes(texts: np.ndarray) -> np.ndarray:
 
 def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged: np.ndarray,
                  lubricant: np.ndarray, day_keys: np.ndarray, classes: np.ndarray | None = None,
-                 evidence: dict | None = None, reset_told: np.ndarray | None = None) -> dict:
+                 evidence: dict | None = None, reset_told: tuple | None = None) -> dict:
     """Where each unit's oil charges start, in trend order (all arrays sorted).
 
     A unit's samples are one chain only while its equipment class stays the same: a sample whose
@@ -501,7 +509,11 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     none of its aged readings back toward new (_stayed_aged), are a `reset` of the hours meter
     without an oil change: no charge starts there. `reset_at` is, for each sample of a charge from
     such a reset on, the reset's position (-1 elsewhere): its oil hours no longer count from the fill.
-    A sample of `reset_told` (an earlier chunk's, in a charge from such a reset on) carries its reset on.
+    So is, from it on, an oil change (flag or code) whose oil hours are more than the calendar holds
+    since the unit's last sample with oil hours before it (`unit_hours`: the unit's hours, not the
+    new oil's). `reset_told` is (the samples an earlier chunk carried in such a charge, the samples
+    whose own neighbours are given): only the latter are judged here, a chunk's carried samples
+    being too few to judge.
     """
     n = len(unit)
     positions = np.arange(n)
@@ -548,7 +560,15 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     reset &= _stayed_aged(evidence, np.maximum(hours_from, 0)) if evidence else False
     hours_fell &= ~reset  # a fall in oil hours that tells an oil change
     new_oil = flagged | lubricant_changed | hours_fell
-    told = reset if reset_told is None else reset | (reset_told & ~(new_oil | class_changed))
+    # At an oil change (flag or code) the new oil's hours are at most what the calendar holds since
+    # the old oil's last sample with oil hours: more are the unit's hours, not the oil's.
+    across = last_before(timed)
+    across_at = np.maximum(across, 0)
+    days_across = np.where(dated & dated[across_at], (day_keys - day_keys[across_at]) / 86_400e9, np.nan)
+    with np.errstate(invalid="ignore"):
+        unit_hours = ((flagged | lubricant_changed) & timed & (across >= 0) & ~class_changed
+                      & (h > _most_hours(days_across)))
+    told = reset | unit_hours if reset_told is None else ((reset | unit_hours) & reset_told[1]) | reset_told[0]
     last_reset = np.maximum.accumulate(np.where(told, positions, -1)) if n else positions
     reset_at = np.where(last_reset >= _start_at(new_oil | class_changed | first, positions), last_reset, -1)
 
@@ -569,7 +589,8 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
             "lubricant_changed": lubricant_changed, "lubricant_from": lubricant_from,
             "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of,
             "same_unit": same_unit, "class_changed": class_changed, "class_from": class_from,
-            "reset": reset, "reset_at": reset_at}
+            "reset": reset, "reset_at": reset_at, "unit_hours": unit_hours, "across": across,
+            "days_across": days_across}
 
 
 def _evidence_margin(name: str, margins: dict) -> tuple:
@@ -664,8 +685,9 @@ def _why(chain: dict, order: np.ndarray, at: np.ndarray, flagged: np.ndarray, ch
 
 def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray,
                  evidence: dict) -> np.ndarray:
-    """The oil-hours-reset note of each incoming row (sorted arrays, `mine` their sorted positions):
-    on the sample where the meter was reset, what told it; on the charge's later samples, where."""
+    """The oil-hours-not-from-fill note of each incoming row (sorted arrays, `mine` their sorted
+    positions): where the charge's hours stopped counting from the fill, what told it; on the
+    charge's later samples, where."""
     notes = np.full(len(mine), None, dtype=object)
     reset_at = charges["reset_at"][mine]
     hit = np.flatnonzero(reset_at >= 0)
@@ -690,12 +712,23 @@ def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict
                             "sample, and no rate per 1000 of its own oil hours on it or on the later samples of this "
                             "charge, whose oil hours no longer count from the fill; if the oil was changed, set "
                             "oil_changed on this sample")
-    later = ~here
+    unit_hours = charges["unit_hours"][at] & ~here
+    if unit_hours.any():
+        now = at[unit_hours]
+        before = charges["across"][now]
+        days = charges["days_across"][now]
+        which = np.where(before == now - 1, "", " with oil hours").astype(object)
+        notes[hit[unit_hours]] = ("an oil change, yet its oil hours, " + _hours(h[now]) + ", are more than the "
+                                  "calendar holds" + _since(chain, order[before], which) + " (" + _hours(h[before]) + " h, " + _hours(days) + " days "
+                                  "earlier: at most " + _hours(_most_hours(days)) + " h, 24 h a day, twice over): they "
+                                  "count the unit's hours, not the new oil's; no rate per 1000 of its own oil hours is "
+                                  "taken on it or on the later samples of this charge (give oil hours from the fill)")
+    later = ~here & ~unit_hours
     if later.any():
         start = order[reset_at[hit[later]]]
-        notes[hit[later]] = ("the oil hours of unit " + _text(chain["unit_id"][start]) + " were taken as reset "
-                             "without an oil change at sample " + _reset_places(chain, start) + ", so they no "
-                             "longer count from the fill: no rate per 1000 of this sample's own oil hours is taken")
+        notes[hit[later]] = ("the oil hours of unit " + _text(chain["unit_id"][start]) + " do not count from the "
+                             "fill since sample " + _reset_places(chain, start) + " (its caveat says why): no rate "
+                             "per 1000 of this sample's own oil hours is taken")
     return notes
 
 
@@ -703,7 +736,7 @@ def _reset_places(chain: dict, rows: np.ndarray) -> np.ndarray:
     """"ID (DATE)" of the reset samples at chain `rows`, or what an earlier chunk carried for them."""
     told = chain[RESET_COLUMN][rows]
     own = _text(chain["sample_id"][rows]) + " (" + _text(chain["sampled_on"][rows]) + ")"
-    return np.where(pd.notna(told), told, own).astype(object)
+    return np.where(pd.notna(told) & (told != NOT_TOLD), told, own).astype(object)
 
 
 def _class_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict) -> np.ndarray:

@@ -1,4 +1,5 @@
-"""Oil hours that fall without an oil change: an hours meter reset at an overhaul, the oil kept.
+"""Oil hours that do not count from the oil's fill: an hours meter reset at an overhaul with the
+oil kept, and a unit's running hours given as oil hours across an oil change.
 
 Fixtures in tests/data/trends/ (see its README.md): a steam turbine sampled monthly and a
 hydraulic press sampled weekly, each overhauled with its hours meter reset while the oil stayed
@@ -28,6 +29,7 @@ from result_views import caveats_of, fired, unevaluated
 TRENDS = DATA / "trends"
 TURBINE = TRENDS / "overhaul-reset-turbine.csv"
 PRESS = TRENDS / "overhaul-reset-hydraulic.csv"
+UNIT_HOURS = TRENDS / "unit-hours-turbine.csv"
 STEAM = ROOT / "rules" / "steam-turbine.yaml"  # the shipped rule set
 TREND_RULES = TRENDS / "rules.yaml"
 
@@ -44,7 +46,7 @@ def _frame(path):
 def test_a_meter_reset_at_an_overhaul_is_no_oil_change_and_fires_no_rate_on_the_reset_hours():
     graded = _graded(TURBINE, STEAM)
     reset = graded.find("BP-T4-2604")
-    assert caveats_of(reset) == ["oil-hours-reset"]
+    assert caveats_of(reset) == ["oil-hours-not-from-fill"]
     message = reset.caveats[0].message
     assert message.startswith("oil hours fell from 31140 to 150 since the previous sample of unit ST-4 "
                               "(BP-T4-2603, 2026-03-03) with no oil_changed flag")
@@ -59,10 +61,10 @@ def test_a_meter_reset_at_an_overhaul_is_no_oil_change_and_fires_no_rate_on_the_
         result = graded.find(sample_id)
         assert result.grade == "normal" and fired(result) == set(), sample_id
         assert pd.isna(measured.at[sample_id, "oxidation_rise_per_1000h"]), sample_id
-        assert caveats_of(result) == ["oil-hours-reset"], sample_id
+        assert caveats_of(result) == ["oil-hours-not-from-fill"], sample_id
     # from 1000 oil hours on the rule reads the rate (under 1000 h its other clause decides it)
     assert {"carbonyl-rising-fast"} <= unevaluated(graded.find("BP-T4-2606")) & unevaluated(graded.find("BP-T4-2607"))
-    assert "taken as reset without an oil change at sample BP-T4-2604 (2026-04-07)" in \
+    assert "do not count from the fill since sample BP-T4-2604 (2026-04-07)" in \
         graded.find("BP-T4-2607").caveats[0].message
     # the old charge keeps its rate: 5.4 abs/cm rise over 31140 h
     assert measured.at["BP-T4-2603", "oxidation_rise_per_1000h"] == pytest.approx(5.4 / 31.14, abs=1e-9)  # rounded to 9 decimals (DECIMALS)
@@ -82,7 +84,7 @@ def test_the_trend_goes_on_across_a_meter_reset():
     assert pd.isna(measured.at["BP-HP2-04", "iron_step_per_1000h"])
     assert measured.at["BP-HP2-05", "iron_step_per_1000h"] == pytest.approx(4 / 120 * 1000, rel=1e-9)
     assert "iron-rate" in unevaluated(graded.find("BP-HP2-04"))
-    assert caveats_of(graded.find("BP-HP2-04")) == ["oil-hours-reset"]
+    assert caveats_of(graded.find("BP-HP2-04")) == ["oil-hours-not-from-fill"]
     assert "an 0.43 to 0.43 (new oil 0.1)" in graded.find("BP-HP2-04").caveats[0].message
 
 
@@ -97,10 +99,10 @@ def test_a_flag_or_a_change_of_lubricant_code_is_still_an_oil_change(how):
     rules = sumpwise.load_ruleset(TREND_RULES)
     graded = sumpwise.grade(frame, rules)
     changed = graded.find("BP-HP2-04")
-    assert caveats_of(changed)[:1] == ["oil-changed"] and "oil-hours-reset" not in caveats_of(changed)
+    assert caveats_of(changed)[:1] == ["oil-changed"] and "oil-hours-not-from-fill" not in caveats_of(changed)
     assert pd.isna(graded.measured.set_index("sample_id").at["BP-HP2-04", "iron_step"])
     assert graded.find("BP-HP2-05").grade == "normal"  # the run starts again on the new charge
-    assert "oil-hours-reset" not in [c for s in graded.results() for c in caveats_of(s)]
+    assert "oil-hours-not-from-fill" not in [c for s in graded.results() for c in caveats_of(s)]
 
 
 def test_an_unflagged_oil_change_whose_readings_fall_back_to_new_is_still_an_oil_change():
@@ -115,7 +117,7 @@ def test_an_unflagged_oil_change_whose_readings_fall_back_to_new_is_still_an_oil
     changed = graded.find("BP-HP2-04")
     assert caveats_of(changed) == ["oil-changed"]
     assert "oil hours fell from 6360 to 40" in changed.caveats[0].message
-    assert "oil-hours-reset" not in [c for s in graded.results() for c in caveats_of(s)]
+    assert "oil-hours-not-from-fill" not in [c for s in graded.results() for c in caveats_of(s)]
 
 
 def test_mixed_evidence_is_read_as_an_oil_change():
@@ -144,20 +146,22 @@ def _records(path):
     return {r["sample_id"]: r for r in map(json.loads, path.read_text().splitlines())}
 
 
+@pytest.mark.parametrize("path", [TURBINE, UNIT_HOURS])
 @pytest.mark.parametrize("rows", [1, 3])
-def test_chunks_tell_the_reset_as_the_whole_file_does(tmp_path, rows):
+def test_chunks_tell_the_reset_as_the_whole_file_does(tmp_path, rows, path):
     # Across a chunk boundary the reset is judged on the carried readings, and a later chunk's
     # samples of the charge still get no rate on the reset hours (the project's rule for chunks:
     # the records of the whole file, forecasts aside).
     whole, chunked = tmp_path / "whole.jsonl", tmp_path / "chunked.jsonl"
-    assert run_cli("grade", TURBINE, "--rules", STEAM, "--out", whole).code == 0
-    run = run_cli("grade", TURBINE, "--rules", STEAM, "--chunk-rows", rows, "--out", chunked)
+    assert run_cli("grade", path, "--rules", STEAM, "--out", whole).code == 0
+    run = run_cli("grade", path, "--rules", STEAM, "--chunk-rows", rows, "--out", chunked)
     assert run.code == 0, run.err
     got, want = _records(chunked), _records(whole)
     for record in list(got.values()) + list(want.values()):
         record["forecasts"] = None
     assert got == want
-    assert got["BP-T4-2607"]["grade"] == "normal"
+    said = [c["caveat"] for r in got.values() for c in r["caveats"]]
+    assert said.count("oil-hours-not-from-fill") == 4
 
 
 def test_a_ledger_tells_the_reset_in_a_later_batch(tmp_path):
@@ -173,10 +177,46 @@ def test_a_ledger_tells_the_reset_in_a_later_batch(tmp_path):
     records = _records(out)
     for sample_id in ("BP-T4-2605", "BP-T4-2606", "BP-T4-2607"):
         assert records[sample_id]["grade"] == "normal", sample_id
-        assert [c["caveat"] for c in records[sample_id]["caveats"]
-                if c["caveat"] != "few-rules-evaluated"] == ["oil-hours-reset"]
+        [said] = [c for c in records[sample_id]["caveats"] if c["caveat"] != "few-rules-evaluated"]
+        assert said["caveat"] == "oil-hours-not-from-fill", sample_id
+        assert "since sample BP-T4-2604 (2026-04-07)" in said["message"], sample_id
+        assert records[sample_id]["derived"]["oxidation_rise_per_1000h"] is None, sample_id
 
 
 def test_the_reset_is_counted_as_a_warning(tmp_path):
     run = run_cli("grade", TURBINE, "--rules", STEAM, "--out", tmp_path / "out.jsonl")
-    assert run.code == 0 and "4 sample(s) with caveat oil-hours-reset" in run.err
+    assert run.code == 0 and "4 sample(s) with caveat oil-hours-not-from-fill" in run.err
+
+
+
+def test_oil_hours_that_run_on_past_an_oil_change_are_the_units_not_the_oils():
+    # ST-5's oil_hours column counts the turbine's running hours: the flagged oil change at
+    # BP-T5-2604 (2026-03-10) reads 42700 h, 7 days after the old oil's 42540 h. Oil filled since
+    # then can hold at most 8 days x 24 h x 2 = 384 h (limits.md "Service hours": oil hours restart
+    # at an oil change; our calendar margin, no source). Before: the new oil's carbonyl rise over
+    # 44040 h read 0.07 abs/cm per 1000 h, and carbonyl-rising-fast passed without a word; over
+    # the ~1340 h since the fill it is (4.3 - 1.2) / 1.34 = 2.3, above the shipped 2.
+    graded = _graded(UNIT_HOURS, STEAM)
+    change = graded.find("BP-T5-2604")
+    assert caveats_of(change) == ["oil-changed", "oil-hours-not-from-fill"]
+    assert change.caveats[1].message.startswith(
+        "an oil change, yet its oil hours, 42700, are more than the calendar holds since the previous sample of "
+        "unit ST-5 (BP-T5-2603, 2026-03-03) (42540 h, 7 days earlier: at most 384 h")
+    measured = graded.measured.set_index("sample_id")
+    for sample_id in ("BP-T5-2605", "BP-T5-2606", "BP-T5-2607"):
+        assert caveats_of(graded.find(sample_id)) == ["oil-hours-not-from-fill"], sample_id
+        assert pd.isna(measured.at[sample_id, "oxidation_rise_per_1000h"]), sample_id
+        assert "carbonyl-rising-fast" in unevaluated(graded.find(sample_id)), sample_id
+    # the old charge is untouched
+    assert caveats_of(graded.find("BP-T5-2603")) == [] and measured.at["BP-T5-2603", "oxidation_rise_per_1000h"] > 0
+
+
+def test_oil_hours_from_the_fill_at_an_oil_change_are_left_alone():
+    # The same history written with oil hours from the fill (160 h a week after the change): no caveat.
+    frame = _frame(UNIT_HOURS)
+    new = frame.index >= frame.index[frame["sample_id"] == "BP-T5-2604"][0]
+    frame.loc[new, "oil_hours"] = ["160", "830", "1500", "2170"]
+    graded = _graded(frame, STEAM)
+    assert "oil-hours-not-from-fill" not in [c for s in graded.results() for c in caveats_of(s)]
+    late = graded.find("BP-T5-2606")
+    assert fired(late) == {("carbonyl-rising-fast", "watch")}  # (4.3 - 1.2) / 1.5 = 2.07 per 1000 h
