@@ -627,14 +627,17 @@ def _distances(evidence: dict, now: np.ndarray, before: np.ndarray) -> dict:
 def _stayed_aged(evidence: dict, before: np.ndarray) -> np.ndarray:
     """Where the old oil (at `before`) had an aged reading and none of its aged readings came back
     at least BACK_SHARE of the way to the new oil's: no oil change between (common practice, no
-    source). NaN anywhere is no evidence either way."""
+    source). NaN anywhere is no evidence either way. Viscosity alone tells no reset: it ages
+    little, and new oil of one grade may lie anywhere in its ISO VG band (ISO 3448: +-10 %), so a
+    fresh fill can sit as far from the table's value as the old oil did; it can still tell a change."""
     now = np.arange(len(before))
     aged_any = np.zeros(len(before), dtype=bool)
     back_any = np.zeros(len(before), dtype=bool)
-    for _, _, _, was, current, aged in _distances(evidence, now, before).values():
+    for name, (_, _, _, was, current, aged) in _distances(evidence, now, before).items():
         with np.errstate(invalid="ignore"):
             aged &= np.isfinite(current)
-            aged_any |= aged
+            if RESET_EVIDENCE[name]:
+                aged_any |= aged
             back_any |= aged & (current <= (1.0 - BACK_SHARE) * was)
     return aged_any & ~back_any
 
@@ -722,7 +725,9 @@ def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict
                                   "calendar holds" + _since(chain, order[before], which) + " (" + _hours(h[before]) + " h, " + _hours(days) + " days "
                                   "earlier: at most " + _hours(_most_hours(days)) + " h, 24 h a day, twice over): they "
                                   "count the unit's hours, not the new oil's; no rate per 1000 of its own oil hours is "
-                                  "taken on it or on the later samples of this charge (give oil hours from the fill)")
+                                  "taken on it or on the later samples of this charge (give oil hours from the fill; or, if "
+                                  "oil_changed marks the old oil sampled at the drain, set it on the new oil's first "
+                                  "sample instead)")
     later = ~here & ~unit_hours
     if later.any():
         start = order[reset_at[hit[later]]]

@@ -220,3 +220,15 @@ def test_oil_hours_from_the_fill_at_an_oil_change_are_left_alone():
     assert "oil-hours-not-from-fill" not in [c for s in graded.results() for c in caveats_of(s)]
     late = graded.find("BP-T5-2606")
     assert fired(late) == {("carbonyl-rising-fast", "watch")}  # (4.3 - 1.2) / 1.5 = 2.07 per 1000 h
+
+
+def test_viscosity_alone_tells_no_meter_reset():
+    # An unflagged oil change whose only readings are viscosities: the new fill reads 46.9 mm2/s
+    # against the table's 46.0 (a grade's new oil lies anywhere in its ISO VG band, ISO 3448), the
+    # old oil 47.2, so the fill is not halfway back; viscosity alone is no evidence of a reset, and
+    # the fall in oil hours is an oil change as before.
+    frame = _frame(PRESS).drop(columns=["an"])
+    fresh = frame["sample_id"].isin(["BP-HP2-04", "BP-HP2-05", "BP-HP2-06"])
+    frame.loc[fresh, "kv40"] = ["46.9", "46.9", "47.0"]
+    graded = _graded(frame, TREND_RULES)
+    assert caveats_of(graded.find("BP-HP2-04")) == ["oil-changed"]
