@@ -249,10 +249,10 @@ class BandPlan:
 def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
     """Precompute weights and index windows for one ascending wavenumber grid."""
     areas, points, windows, uncovered, saturation, peaks = {}, {}, {}, {}, {}, {}
-    step = float(np.median(np.diff(x))) if x.size > 1 else 0.0
+    steps = (float(x[1] - x[0]), float(x[-1] - x[-2])) if x.size > 1 else (0.0, 0.0)
     for band in bands:
         low, high = band.span()
-        need_low, need_high = _required_span(band, step)
+        need_low, need_high = _required_span(band, *steps)
         if need_low < x[0] or need_high > x[-1]:
             uncovered[band.name] = (
                 f"x range {x[0]:g}-{x[-1]:g} cm-1 does not cover band {band.name} "
@@ -294,9 +294,9 @@ def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
     return BandPlan(x, bands, areas, points, windows, uncovered, saturation, peaks)
 
 
-def _required_span(band, step):
-    """The wavenumbers the grid must reach for a band: its span, less up to one grid step at an outer
-    mean or minimum window.
+def _required_span(band, first_step, last_step):
+    """The wavenumbers the grid must reach for a band: its span, less up to the grid's step at that end
+    where an outer mean or minimum window lies.
 
     Why: an instrument's grid is set by its laser, so an export of 4000-400 cm-1 often ends a fraction of
     a step short (3999.84 in a public export at 1.93 cm-1, 3999.79 at 0.96); the water band's 3680-4000
@@ -305,8 +305,8 @@ def _required_span(band, step):
     """
     strict = [band.region] + [anchor.span() for anchor in band.baseline if anchor.at is not None]
     windows = [anchor.span() for anchor in band.baseline if anchor.at is None]
-    low = min([w[0] for w in strict] + [min(w[0] + step, w[1]) for w in windows])
-    high = max([w[1] for w in strict] + [max(w[1] - step, w[0]) for w in windows])
+    low = min([w[0] for w in strict] + [min(w[0] + first_step, w[1]) for w in windows])
+    high = max([w[1] for w in strict] + [max(w[1] - last_step, w[0]) for w in windows])
     return low, high
 
 
