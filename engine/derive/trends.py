@@ -6,7 +6,8 @@ come before the batch's on a tie). A unit's chain restarts at an oil
 change: the `oil_changed` flag, the lubricant code changing, or oil hours going down against
 the unit's last sample that has oil hours (a sample without them in between hides nothing),
 unless the oil's aged readings stayed aged: then the hours meter was reset without an oil change
-(an overhaul, a meter changed), the chain goes on and the `oil-hours-not-from-fill` caveat says so. A
+(an overhaul, a meter changed), the chain goes on and the `oil-hours-not-from-fill` caveat says so;
+so it does where an oil change's oil hours are more than the calendar holds (the unit's hours). A
 sample without oil hours between an oil change's two sides cannot be placed on either charge:
 no step is taken to or from it, and it says so. A step across a change of method (direct vs
 subtraction) or of lab is not computed: the two readings are not comparable. All of it is one
@@ -86,7 +87,7 @@ _FLAGS = {"true": True, "false": False, "yes": True, "no": False, "1": True, "0"
 # differential reading is the carbonyl gained over the new oil, whose own is 0 (ASTM D7414
 # Procedure B). A declared wear metal has no new-oil value and tells nothing here.
 # Each with the way it ages from new: acid number and carbonyl rise, base number and RPVOT fall
-# (ASTM D4378, D6224), viscosity either way (0: the distance either side).
+# (ASTM D4378, D6224, from memory), viscosity either way (0: the distance either side).
 RESET_EVIDENCE = {"kv40": 0, "kv100": 0, "an": 1, "bn": -1, "oxidation": 1, "oxidation_differential": 1, "rpvot": -1}
 NEW_ZERO = ("oxidation_differential",)
 # A reading is aged when it lies more than twice its noise margin from the new oil's: the noise
@@ -96,8 +97,8 @@ AGED_SHARE = 0.05
 # An oil change brings an aged reading at least halfway back to the new oil's: a drain leaves
 # some old oil in lines, coolers and the sump (common practice, no source).
 BACK_SHARE = 0.5
-# A sample's evidence readings under their own names, and the sample an hours meter reset of its
-# charge was taken at ("ID (DATE)", None elsewhere): so a file graded in chunks carries them
+# A sample's evidence readings under their own names, and the sample from which its charge's oil
+# hours stopped counting from the fill ("ID (DATE)", None elsewhere): so a file graded in chunks carries them
 # with each unit's latest samples (results.pipeline) and tells a reset across a chunk boundary.
 EVIDENCE_PREFIX = "aged:"
 RESET_COLUMN = "hours_reset_at"
