@@ -524,7 +524,11 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     hours_fell = timed & (hours_from >= 0) & (h < h[np.maximum(hours_from, 0)])
     # a fall from oil hours the calendar cannot hold is that slip's other side, no meter reset
     reset = hours_fell & ~flagged & ~lubricant_changed & ~outrun[np.maximum(hours_from, 0)]
-    reset &= _stayed_aged(evidence, np.maximum(hours_from, 0)) if evidence else False
+    if evidence and reset.any():  # judged only where oil hours fell unflagged: a few samples
+        at = np.flatnonzero(reset)
+        reset[at] = _stayed_aged(evidence, at, hours_from[at])
+    else:
+        reset[:] = False
     hours_fell &= ~reset  # a fall in oil hours that tells an oil change
     new_oil = flagged | lubricant_changed | hours_fell
     # At an oil change (flag or code) the new oil's hours are at most what the calendar holds since
@@ -591,13 +595,13 @@ def _distances(evidence: dict, now: np.ndarray, before: np.ndarray) -> dict:
     return out
 
 
-def _stayed_aged(evidence: dict, before: np.ndarray) -> np.ndarray:
+def _stayed_aged(evidence: dict, now: np.ndarray, before: np.ndarray) -> np.ndarray:
     """Where the old oil (at `before`) had an aged reading and none of its aged readings came back
     at least BACK_SHARE of the way to the new oil's: no oil change between (common practice, no
     source). NaN anywhere is no evidence either way. Viscosity alone tells no reset: it ages
     little, and new oil of one grade may lie anywhere in its ISO VG band (ISO 3448: +-10 %), so a
-    fresh fill can sit as far from the table's value as the old oil did; it can still tell a change."""
-    now = np.arange(len(before))
+    fresh fill can sit as far from the table's value as the old oil did; it can still tell a change.
+    `now` are the positions judged, `before` their old oil's."""
     aged_any = np.zeros(len(before), dtype=bool)
     back_any = np.zeros(len(before), dtype=bool)
     for name, (_, _, _, was, current, aged) in _distances(evidence, now, before).items():
