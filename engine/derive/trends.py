@@ -97,9 +97,10 @@ AGED_SHARE = 0.05
 # An oil change brings an aged reading at least halfway back to the new oil's: a drain leaves
 # some old oil in lines, coolers and the sump (common practice, no source).
 BACK_SHARE = 0.5
-# A sample's evidence readings under their own names, and the sample from which its charge's oil
-# hours stopped counting from the fill ("ID (DATE)", None elsewhere): so a file graded in chunks carries them
-# with each unit's latest samples (results.pipeline) and tells a reset across a chunk boundary.
+# A sample's evidence readings under their own names, and the sample from which its charge's
+# oil hours stopped counting from the fill ("ID (DATE)", None elsewhere): a file graded in
+# chunks carries them with each unit's latest samples (results.pipeline), so a reset or the
+# unit's hours are told across a chunk boundary.
 EVIDENCE_PREFIX = "aged:"
 RESET_COLUMN = "hours_reset_at"
 EVIDENCE_COLUMNS = tuple(EVIDENCE_PREFIX + name for name in RESET_EVIDENCE)
@@ -510,20 +511,15 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     charge_start = _start_at(restart, positions)
     timed = np.isfinite(h)
     dated = day_keys != _LAST
-
-    def outrunning(hours_from):
-        """Where oil hours rose since `hours_from` by more than the calendar holds, and the days between."""
-        from_at = np.maximum(hours_from, 0)
-        days = np.where(dated & dated[from_at], (day_keys - day_keys[from_at]) / 86_400e9, np.nan)
-        with np.errstate(invalid="ignore"):
-            return timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days)), days
-
     hours_from = last_before(timed)
     hours_from = np.where(hours_from >= charge_start, hours_from, -1)  # looked back within the charge only
-    outrun, days = outrunning(hours_from)
+    from_at = np.maximum(hours_from, 0)
+    days = np.where(dated & dated[from_at], (day_keys - day_keys[from_at]) / 86_400e9, np.nan)
+    with np.errstate(invalid="ignore"):
+        outrun = timed & (hours_from >= 0) & (h - h[from_at] > _most_hours(days))
     hours_fell = timed & (hours_from >= 0) & (h < h[np.maximum(hours_from, 0)])
     # a fall from oil hours the calendar cannot hold is that slip's other side, no meter reset
-    reset = hours_fell & ~flagged & ~lubricant_changed & ~outrun[np.maximum(hours_from, 0)]
+    reset = hours_fell & ~flagged & ~lubricant_changed & ~outrun[from_at]
     if evidence and reset.any():  # judged only where oil hours fell unflagged: a few samples
         at = np.flatnonzero(reset)
         reset[at] = _stayed_aged(evidence, at, hours_from[at])
@@ -686,19 +682,19 @@ def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict
                             "sample, and no rate per 1000 of its own oil hours on it or on the later samples of this "
                             "charge, whose oil hours no longer count from the fill; if the oil was changed, set "
                             "oil_changed on this sample")
-    unit_hours = charges["unit_hours"][at] & ~here
+    unit_hours = charges["unit_hours"][at]  # an oil change: never a reset too
     if unit_hours.any():
         now = at[unit_hours]
         before = charges["across"][now]
         days = charges["days_across"][now]
         which = np.where(before == now - 1, "", " with oil hours").astype(object)
-        notes[hit[unit_hours]] = ("an oil change, yet its oil hours, " + _hours(h[now]) + ", are more than the "
-                                  "calendar holds" + _since(chain, order[before], which) + " (" + _hours(h[before]) + " h, " + _hours(days) + " days "
-                                  "earlier: at most " + _hours(_most_hours(days)) + " h, 24 h a day, twice over): they "
-                                  "count the unit's hours, not the new oil's; no rate per 1000 of its own oil hours is "
-                                  "taken on it or on the later samples of this charge (give oil hours from the fill; or, if "
-                                  "oil_changed marks the old oil sampled at the drain, set it on the new oil's first "
-                                  "sample instead)")
+        notes[hit[unit_hours]] = (
+            "an oil change, yet its oil hours, " + _hours(h[now]) + ", are more than the calendar holds"
+            + _since(chain, order[before], which) + " (" + _hours(h[before]) + " h, " + _hours(days)
+            + " days earlier: at most " + _hours(_most_hours(days)) + " h, 24 h a day, twice over): they count the "
+            "unit's hours, not the new oil's; no rate per 1000 of its own oil hours is taken on it or on the later "
+            "samples of this charge (give oil hours from the fill; or, if oil_changed marks the old oil sampled at "
+            "the drain, set it on the new oil's first sample instead)")
     later = ~here & ~unit_hours
     if later.any():
         start = order[reset_at[hit[later]]]

@@ -67,7 +67,8 @@ def test_a_meter_reset_at_an_overhaul_is_no_oil_change_and_fires_no_rate_on_the_
     assert "do not count from the fill since sample BP-T4-2604 (2026-04-07)" in \
         graded.find("BP-T4-2607").caveats[0].message
     # the old charge keeps its rate: 5.4 abs/cm rise over 31140 h
-    assert measured.at["BP-T4-2603", "oxidation_rise_per_1000h"] == pytest.approx(5.4 / 31.14, abs=1e-9)  # rounded to 9 decimals (DECIMALS)
+    # (rounded to 9 decimals, vocabulary.measures.DECIMALS)
+    assert measured.at["BP-T4-2603", "oxidation_rise_per_1000h"] == pytest.approx(5.4 / 31.14, abs=1e-9)
     assert "carbonyl-rising-fast" not in unevaluated(graded.find("BP-T4-2603"))
 
 
