@@ -693,8 +693,8 @@ def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict
             + _since(chain, order[before], which) + " (" + _hours(h[before]) + " h, " + _hours(days)
             + " days earlier: at most " + _hours(_most_hours(days)) + " h, 24 h a day, twice over): they count the "
             "unit's hours, not the new oil's; no rate per 1000 of its own oil hours is taken on it or on the later "
-            "samples of this charge (give oil hours from the fill; or, if oil_changed marks the old oil sampled at "
-            "the drain, set it on the new oil's first sample instead)")
+            "samples of this charge (give oil hours from the fill; if oil_changed marks a top-up, clear it; if it "
+            "marks the old oil sampled at the drain, set it on the new oil's first sample instead)")
     later = ~here & ~unit_hours
     if later.any():
         start = order[reset_at[hit[later]]]

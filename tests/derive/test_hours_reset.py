@@ -233,3 +233,17 @@ def test_viscosity_alone_tells_no_meter_reset():
     frame.loc[fresh, "kv40"] = ["46.9", "46.9", "47.0"]
     graded = _graded(frame, TREND_RULES)
     assert caveats_of(graded.find("BP-HP2-04")) == ["oil-changed"]
+
+
+def test_a_top_up_flagged_as_an_oil_change_is_said():
+    # HP-2's oil was topped up before BP-HP2-03 and the site set oil_changed there: oil hours run on
+    # (6360 h, 120 h after the week before, but 6360 since no fill the calendar could hold). The flag
+    # is kept (an oil change restarts the trend as asked), and the sample says what its hours tell.
+    frame = _frame(PRESS)
+    frame = frame[frame["sample_id"] <= "BP-HP2-03"].copy()
+    frame.loc[frame["sample_id"] == "BP-HP2-03", "oil_changed"] = "yes"
+    graded = _graded(frame, TREND_RULES)
+    flagged = graded.find("BP-HP2-03")
+    assert caveats_of(flagged) == ["oil-changed", "oil-hours-not-from-fill"]
+    assert "if oil_changed marks a top-up, clear it" in flagged.caveats[1].message
+    assert pd.isna(graded.measured.set_index("sample_id").at["BP-HP2-03", "iron_step"])  # the flag still restarts
