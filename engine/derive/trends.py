@@ -71,11 +71,6 @@ TREND_CAVEATS = (
                  "on across it; or at an oil change they are more than the calendar holds since the old oil's last "
                  "sample: the unit's hours), no rate per 1000 of a sample's own oil hours is taken for the rest of "
                  "that charge (common practice, no source)"),
-    EngineCaveat("oil-change-untold", "untold_change_note",
-                 "sumpwise engine: every aged reading back at least halfway to the new oil's since the unit's "
-                 "previous sample (not viscosity alone), with no oil change told by the flag, the lubricant code or "
-                 "oil hours: an oil change or a large top-up the file does not say, and the trend is stepped across "
-                 "it as told (common practice, no source)"),
     EngineCaveat("oil-charge-unknown", "oil_charge_note",
                  "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
                  "code to tell which side of an oil change it lies, or oil hours the calendar cannot hold) is "
@@ -373,13 +368,13 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "class_change_note": _class_notes(chain, order, mine, charges),
         "one_moment_note": _moment_notes(chain, order, mine, moment, h),
         "hours_reset_note": _reset_notes(chain, order, mine, charges, h, evidence),
-        "untold_change_note": _untold_notes(chain, order, mine, comparable, evidence),
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, restarts),
     }, index=measured.index, dtype=object)
     reset_at = charges["reset_at"][mine]
     place = np.full(len(mine), None, dtype=object)
-    if (reset_at >= 0).any():
-        place[reset_at >= 0] = _reset_places(chain, order[reset_at[reset_at >= 0]])
+    if (reset_at >= 0).any():  # one text per charge, gathered to its samples
+        starts, which = np.unique(reset_at[reset_at >= 0], return_inverse=True)
+        place[reset_at >= 0] = _reset_places(chain, order[starts])[which.ravel()]
     carried = pd.DataFrame({RESET_COLUMN: place, **_evidence(measured)}, index=measured.index)
     out = pd.concat([measured, numbers, runs, notes, carried], axis=1)
     # its own oil hours may be the wrong ones, or count from a meter reset, not the fill: no rate
@@ -702,44 +697,13 @@ def _reset_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict
             "samples of this charge (give oil hours from the fill; if oil_changed marks a top-up, clear it; if it "
             "marks the old oil sampled at the drain, set it on the new oil's first sample instead)")
     later = ~here & ~unit_hours
-    if later.any():
-        start = order[reset_at[hit[later]]]
-        notes[hit[later]] = ("the oil hours of unit " + _text(chain["unit_id"][start]) + " do not count from the "
-                             "fill since sample " + _reset_places(chain, start) + " (its caveat says why): no rate "
-                             "per 1000 of this sample's own oil hours is taken")
-    return notes
-
-
-def _untold_notes(chain: dict, order: np.ndarray, mine: np.ndarray, stepped: np.ndarray,
-                  evidence: dict) -> np.ndarray:
-    """The oil-change-untold note of each incoming row stepped from its previous sample (`stepped`,
-    sorted) whose every aged reading came back at least BACK_SHARE of the way to the new oil's."""
-    notes = np.full(len(mine), None, dtype=object)
-    hit = np.flatnonzero(stepped[mine])
-    if not len(hit):
-        return notes
-    now = mine[hit]
-    aged_any = np.zeros(len(now), dtype=bool)
-    stayed_any = np.zeros(len(now), dtype=bool)
-    told = np.full(len(now), "", dtype=object)
-    for name, (old, current, reference, was, at_now, aged) in _distances(evidence, now, now - 1).items():
-        with np.errstate(invalid="ignore"):
-            aged &= np.isfinite(at_now)
-            if RESET_EVIDENCE[name]:
-                aged_any |= aged
-            stayed_any |= aged & ~(at_now <= (1.0 - BACK_SHARE) * was)
-        phrase = name + " " + _hours(old) + " to " + _hours(current) + " (new oil " + _hours(reference) + ")"
-        told = np.where(aged, told + np.where(told == "", "", ", ") + phrase, told)
-    back = aged_any & ~stayed_any
-    if back.any():
-        before = order[now[back] - 1]
-        notes[hit[back]] = ("the aged readings came back toward the new oil's since the previous sample of unit "
-                            + _text(chain["unit_id"][before]) + " (" + _text(chain["sample_id"][before]) + ", "
-                            + _text(chain["sampled_on"][before]) + "): " + told[back] + ", with no oil change "
-                            "told (no oil_changed flag, the same lubricant code, oil hours not falling): an oil "
-                            "change or a large top-up the file does not say; steps are taken from the old oil as "
-                            "told, and the oil hours may not count from the fill; set oil_changed on this sample "
-                            "if the oil was changed")
+    if later.any():  # one wording per charge, gathered to its samples
+        starts, which = np.unique(reset_at[hit[later]], return_inverse=True)
+        start = order[starts]
+        worded = ("the oil hours of unit " + _text(chain["unit_id"][start]) + " do not count from the fill since "
+                  "sample " + _reset_places(chain, start) + " (its caveat says why): no rate per 1000 of this "
+                  "sample's own oil hours is taken")
+        notes[hit[later]] = worded[which.ravel()]
     return notes
 
 

@@ -51,7 +51,7 @@ def wants_progress(stream, rows: int, min_rows: int = PROGRESS_MIN_ROWS) -> bool
 # (the no-silent-pass ones).
 FIRST_CAVEATS = ("unknown-lubricant", "base-stock-disagrees", "oxidation-below-new", "unknown-class",
                  "few-rules-evaluated", "grade-may-be-higher", "oil-charge-unknown", "class-changed", "one-moment",
-                 "oil-hours-not-from-fill", "oil-change-untold")
+                 "oil-hours-not-from-fill")
 
 
 def _why(result) -> str:

@@ -247,24 +247,3 @@ def test_a_top_up_flagged_as_an_oil_change_is_said():
     assert caveats_of(flagged) == ["oil-changed", "oil-hours-not-from-fill"]
     assert "if oil_changed marks a top-up, clear it" in flagged.caveats[1].message
     assert pd.isna(graded.measured.set_index("sample_id").at["BP-HP2-03", "iron_step"])  # the flag still restarts
-
-
-def test_readings_back_to_new_oil_with_no_oil_change_told_are_said():
-    # ST-7 keeps the turbine's running hours as oil hours and nobody set oil_changed: between
-    # BP-T7-2603 and BP-T7-2604 acid number went 0.21 -> 0.07 (new 0.06), carbonyl 8.0 -> 1.6
-    # (new 1.2), RPVOT 520 -> 1130 min (new 1150): a fresh charge, which nothing in the file tells.
-    # Before: stepped from the old oil and its rates taken over 43,050 h, without a word.
-    graded = _graded(TRENDS / "untold-change-turbine.csv", STEAM)
-    fresh = graded.find("BP-T7-2604")
-    assert caveats_of(fresh) == ["oil-change-untold"]
-    message = fresh.caveats[0].message
-    assert "an 0.21 to 0.07 (new oil 0.06)" in message and "rpvot 520 to 1130 (new oil 1150)" in message
-    assert caveats_of(graded.find("BP-T7-2605")) == []  # stepped from the fresh oil: nothing to say
-    # the same change flagged says nothing of the kind
-    frame = _frame(TRENDS / "untold-change-turbine.csv")
-    frame.loc[frame["sample_id"] == "BP-T7-2604", "oil_changed"] = "yes"
-    flagged = _graded(frame, STEAM).find("BP-T7-2604")
-    assert "oil-change-untold" not in caveats_of(flagged)
-    # nor does the aged oil of the meter-reset fixture, nor the press, sample after sample
-    for path, rules in ((TURBINE, STEAM), (PRESS, TREND_RULES)):
-        assert "oil-change-untold" not in [c for s in _graded(path, rules).results() for c in caveats_of(s)]
