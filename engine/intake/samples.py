@@ -348,15 +348,17 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column == "water" and column not in columns.units:
-            with np.errstate(invalid="ignore"):
-                tiny = (values > 0) & (values < 1) & ~bad  # a row its unit column rejects already is not asked
-                low = (values >= 1) & (values < 10) & ~bad & tiny.any()  # beside such readings, one too
-            if tiny.any():
-                lab = labs.get(column, column)
-                reasons = _found("", raw[column], tiny | low, quoted=True) + _BELOW_KARL_FISCHER.format(lab=lab)
-                reasons[low] = _found("", raw[column], low, quoted=True)[low] + _BESIDE_PERCENTAGES.format(
-                    lab=lab, row=int(raw.index[np.argmax(tiny)]))
-                reject(tiny | low, column, reasons, "D018")
+            scale = _percent_sized(values, censored, held, bad,
+                                   named_unit("water", labs.get(column, column)) == "ppm")
+            if scale is not None:
+                tiny, low, ambiguous, first = scale
+                lab, row = labs.get(column, column), int(raw.index[first])
+                said = tiny | low | ambiguous
+                reasons = _found("", raw[column], said, quoted=True)
+                reasons[tiny] += _BELOW_KARL_FISCHER.format(lab=lab)
+                reasons[low] += (_BESIDE_PERCENTAGES if tiny.any() else _NO_PPM_BESIDE).format(lab=lab, row=row)
+                reasons[ambiguous] += _PERCENT_OR_PPM.format(lab=lab, row=row)
+                reject(said, column, reasons, "D018")
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -448,6 +450,49 @@ _BESIDE_PERCENTAGES = (" ppm is below what a Karl Fischer titration reports (AST
                        "column {lab!r} holds readings below 1 ppm that read as percentages (row {row}): a "
                        "percentage too? declare water: {{column: {lab!r}, unit: '%'}} in the column map, or "
                        "correct the export")
+
+
+# Why a water reading from 1 to 10 ppm is rejected in a column with no reading above 100 ppm: below
+# what Karl Fischer reports as ppm, and nothing in the column says it is in ppm, while every reading of
+# it could be a percentage (a column of 2, 5 and 12: a wet sample's 12 % graded normal as 12 ppm).
+_NO_PPM_BESIDE = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), and column "
+                  "{lab!r} holds no reading above 100 ppm to say it is in ppm: a percentage? declare water: "
+                  "{{column: {lab!r}, unit: '%'}} in the column map, or correct the export")
+
+
+# Why a water reading from 10 to 100 is rejected in a column that reads as percentages (a reading
+# below 1, or below 10 with none above 100): it is a reading Karl Fischer reports in ppm and a
+# percentage a wet sample has (emulsified or free water), and which one is not guessed; read as ppm,
+# a 12 % reading (120,000 ppm, far above any urgent step) graded normal as 12 ppm.
+_PERCENT_OR_PPM = (" could be ppm or a percentage, and column {lab!r} holds readings that read as percentages "
+                   "(row {row}): which one is not guessed; declare water: {{column: {lab!r}, unit: '%'}} in the "
+                   "column map, or correct the export")
+
+
+def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.ndarray | None,
+                   bad: np.ndarray, header_says_ppm: bool) -> tuple | None:
+    """Where a water column read in ppm (no unit declared) reads as percentages: (tiny, low,
+    ambiguous, first), the rows below 1, from 1 to 10 and from 10 to 100 to reject and the first
+    row that gives the column away; None when nothing does. A censored cell counts by its bound
+    (`<0.05` ppm is no bound Karl Fischer writes either). Karl Fischer reports from 10 mg/kg
+    (ASTM D6304 §1.1), so a reading below 1 is a percentage, and one below 10 is one too when no
+    reading of the column is above 100 (no percentage is); beside them, 10 to 100 is either. A header
+    that names ppm (`Water ppm`) says what 10 to 100 is: there only a reading below 1, and one below
+    10 beside it, is rejected."""
+    sized = values
+    if held is not None and held.any():
+        at = np.flatnonzero(held)
+        codes, spellings = pd.factorize(censored[at])  # a few: `<0.05`, `>1000`
+        sized = values.copy()
+        sized[at] = np.array([float(str(cell).lstrip("<>=")) for cell in spellings], dtype=float)[codes]
+    with np.errstate(invalid="ignore"):
+        sized = np.where(bad, np.nan, sized)  # a row rejected already is not asked
+        tiny = (sized > 0) & (sized < 1)
+        below = (sized > 0) & (sized < 10)
+        if not (tiny.any() or (not header_says_ppm and below.any() and not (sized > 100).any())):
+            return None
+        ambiguous = (sized >= 10) & (sized <= 100) & (not header_says_ppm)
+    return tiny, below & ~tiny, ambiguous, int(np.argmax(tiny if tiny.any() else below))
 
 
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:

@@ -11,12 +11,13 @@ lone `Max` or `Limit` line that repeats a unit and a date, as a per-unit footer 
 another text cell of it is a label (a label column beside an empty or counted id) and it has no
 sample id, or neither a date nor a unit of its own (an empty cell, or the label itself). Labels
 are matched on the whole cell, case, spaces and punctuation aside (`Std. Dev.` is `std dev`,
-`Max:` is `max`), and a trailing note in brackets is ignored (`Mean (n=12)`): a sample id that
-only contains such a word (`MAX-PUMP-03`, `Average-line-2`, `Average 2`) is a sample, and so is
+`Max:` is `max`), and a trailing note in brackets is ignored (`Mean (n=12)`); a sample id that is
+a label numbered or named for its group (`Average 2`, `Max of 3`, `Average for HPU-2`) is one too.
+A sample id that only contains such a word (`MAX-PUMP-03`, `Average-line-2`) is a sample, and so is
 a sample whose unit is named `Max` or `Average 2`, as long as it has its id and its date. On a
 row without a sample id, a spreadsheet's subtotal line (`HPU-1 Average`, `Grand Total`) is
-found too. Only rows lacking an id, a date or a unit, or whose id has no digit, are looked at
-closely (sample ids have digits), so the usual export, every row dated and naming its unit, costs
+found too. Only rows lacking an id, a date or a unit, or whose id may be a label (no digit, a
+space, a bracket at the end), are looked at closely, so the usual export, every row dated and naming its unit, costs
 a few numpy passes over its distinct ids.
 """
 
@@ -66,6 +67,15 @@ _BRACKETED_TAIL = re.compile(r"\s*[(\[][^()\[\]]*[)\]]\s*$")
 _NOT_A_LETTER_OR_DIGIT = re.compile(r"[\W_]+")
 
 
+# A label numbered or named for its group as a statistic line is (`Average 2`, `Mean of 3`, `Std dev
+# #2`, `Total: 12`, `Average for HPU-1`, `Max of all samples`): the label, a space (or `#`, `:`), then
+# an optional `of`, `no.`, `n=` and a number and nothing else, or `for`, `of`, `over`, `per` and
+# anything. A label joined to a code by `-` (`MAX-PUMP-03`, `Average-line-2`) or followed by other
+# words (`MEAN CREEK PUMP`) is an id. Common practice, no source.
+_NUMBERED = re.compile(r"(?P<label>[^\d-]*?[^\d\s-])(?:(?:\s+|\s*[#:]\s*)(?:(?:of|no\.?|nr\.?|n\s*=)\s*)?\d{1,4}"
+                       r"|\s+(?:for|of|over|per)\s+\S.*)", re.IGNORECASE)
+
+
 def label_key(cell) -> str:
     """A cell as a label is compared: casefolded, a trailing bracketed note dropped, only letters
     and digits kept (`Std. Dev.` -> `stddev`, `Mean (n=12)` -> `mean`)."""
@@ -75,6 +85,14 @@ def label_key(cell) -> str:
 
 SUMMARY_LABELS = {label_key(label): what for what, labels in _LABELS.items() for label in labels}
 _ELSEWHERE = {key: what for key, what in SUMMARY_LABELS.items() if key not in _ID_ONLY}
+
+
+def id_label(cell) -> str | None:
+    """What a sample id says its row is when it is a label, or a numbered one (`Average 2`), else None."""
+    kind = SUMMARY_LABELS.get(label_key(cell))
+    if kind is None and (numbered := _NUMBERED.fullmatch(str(cell).strip())):
+        kind = _ELSEWHERE.get(label_key(numbered.group("label")))
+    return kind
 # Columns that hold a closed vocabulary or a flag, where no label is looked for.
 _NOT_LABELS = ("sample_id", "oil_changed", "method", "base_stock", "iso4406", "spectrum")
 
@@ -107,7 +125,7 @@ def summary_rows(raw: pd.DataFrame, numeric: set, ids: tuple | None = None) -> S
     date = _present(raw, "sampled_on", n)
     unit = _present(raw, "unit_id", n)
     no_id = ~_present(raw, "sample_id", n)
-    ids = _labels(raw["sample_id"].to_numpy(dtype=object), SUMMARY_LABELS, ids)
+    ids = _labels(raw["sample_id"].to_numpy(dtype=object), id_label, ids)
     looked = np.flatnonzero(~(date & unit) | no_id | (ids != None))  # noqa: E711 (numpy element-wise)
     if not len(looked):
         return SummaryRows(np.empty(0, dtype=np.int64), [], [], [], [])
@@ -181,8 +199,8 @@ def _present(raw: pd.DataFrame, column: str, n: int) -> np.ndarray:
     return pd.notna(raw[column].to_numpy(dtype=object))
 
 
-def _labels(cells: np.ndarray, known: dict, factorized: tuple | None = None) -> np.ndarray:
-    """What each cell says its row is (a kind of `known`), None where it is no label. Each
+def _labels(cells: np.ndarray, known, factorized: tuple | None = None) -> np.ndarray:
+    """What each cell says its row is (`known`: a dict of label keys, or id_label), None where it is no label. Each
     distinct text is keyed once (`factorized`: the cells' pd.factorize, when known); when there
     are many (ids), only those that may be labels (_may_be_labels)."""
     codes, uniques = factorized or pd.factorize(cells, use_na_sentinel=True)
@@ -191,13 +209,15 @@ def _labels(cells: np.ndarray, known: dict, factorized: tuple | None = None) -> 
     if len(uniques) > 1000:
         at = at[_may_be_labels(uniques)]
     for k in at:
-        kinds[k] = known.get(label_key(uniques[k]))
+        kinds[k] = known(uniques[k]) if callable(known) else known.get(label_key(uniques[k]))
     return kinds[codes]
 
 
 def _may_be_labels(texts) -> np.ndarray:
-    """Which texts may be labels: those without a digit (no label has one), or ending in a bracket
-    (a note such as `(n=12)`). One numpy pass over their characters, joined: sample ids have digits."""
+    """Which texts may be labels: those without a digit (no label has one), ending in a bracket (a
+    note such as `(n=12)`), holding a space (`Average for HPU-1`), or whose digits are one run at
+    the end after `#` or `:` (`Total:12`). A few numpy passes over their characters, joined: sample
+    ids have digits among other characters and seldom a space (`HY-2026-0803`)."""
     try:
         joined = "\x00".join(texts)
     except TypeError:  # not all text
@@ -211,4 +231,9 @@ def _may_be_labels(texts) -> np.ndarray:
     starts = np.concatenate([[0], ends[:-1] + 1])  # at its separator when a text is empty: no digit
     digit = ((points >= ord("0")) & (points <= ord("9"))).view(np.uint8)
     last = points[np.maximum(ends - 1, 0)] * (ends > starts)
-    return (np.maximum.reduceat(digit, starts) == 0) | (last == ord(")")) | (last == ord("]"))
+    first = np.minimum.reduceat(np.where(digit, np.arange(len(points)), len(points)), starts)
+    before = points[np.clip(first - 1, 0, len(points) - 1)]
+    numbered = ((first < ends) & (first > starts) & (np.add.reduceat(digit.astype(np.int64), starts) == ends - first)
+                & np.isin(before, [ord("#"), ord(":"), ord("=")]))
+    spaced = np.maximum.reduceat(np.isin(points, [ord(" "), ord("\t")]).view(np.uint8), starts) == 1
+    return (np.maximum.reduceat(digit, starts) == 0) | (last == ord(")")) | (last == ord("]")) | numbered | spaced
