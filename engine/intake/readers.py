@@ -631,16 +631,21 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
     unsaved = _unsaved_formulas(data, chosen, cells)
     if path:
         _fill_merged(data, path, cells)
-    if not cells or not any(v is not None for v in cells[0]):
+    top = _title_rows(cells)
+    if top:
+        titles = [next(str(v) for v in cells[k] if v is not None) for k in range(top) if any(v is not None for v in cells[k])]
+        notes.append(f"read the header from sheet row {top + 1}; the rows above it hold one text each, a title, "
+                     f"not a header ({'; '.join(repr(t) for t in titles)}), and are not read")
+    if len(cells) <= top or not any(v is not None for v in cells[top]):
         raise InputError(f"sheet {chosen!r} is empty: expected a header row and data rows")
-    header = list(cells[0])
+    header = list(cells[top])
     while header and header[-1] is None:
         header.pop()
     header = ["" if h is None else str(h) for h in header]
     check_header(header)
     width = len(header)
     kept, rows, skipped = [], [], []
-    for number, values in enumerate(cells[1:], start=1):
+    for number, values in enumerate(cells[top + 1:], start=top + 1):
         values = list(values)
         if all(v is None or (isinstance(v, str) and not v.strip()) for v in values):
             continue
@@ -654,6 +659,19 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
         rows.append(number)
     frame = pd.DataFrame(kept, columns=[h.strip() for h in header], dtype=object)
     return RawTable(frame, np.asarray(rows, dtype=np.int64), skipped, notes, [h.strip() for h in header])
+
+
+def _title_rows(cells: list) -> int:
+    """How many rows above the header are a title: a workbook report's heading (`Brackwater Point:
+    oil analysis, November`, merged across the table or in one cell), a printed-on line, blank rows.
+    Such rows hold one text at most (a merged title gives it to each cell); the header is the first
+    row with two different names. 0 when the first row is one, or no row is (common practice, no
+    source)."""
+    for k, row in enumerate(cells):
+        texts = {str(v).strip() for v in row if v is not None and str(v).strip()}
+        if len(texts) > 1:
+            return k
+    return 0
 
 
 def _unsaved_formulas(data: bytes, sheet: str, cells: list) -> dict:

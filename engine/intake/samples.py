@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
+from sumpwise.intake.censored import CENSORED_SUFFIX, NOT_DETECTED_SPELLINGS, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import (FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, engine_columns,
                                         header_key, load_column_map)
 from sumpwise.intake.dates import read_dates
@@ -348,7 +348,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column == "water" and column not in columns.units:
-            scale = _percent_sized(values, censored, held, bad,
+            scale = _percent_sized(values, censored, held, text, bad,
                                    named_unit("water", labs.get(column, column)) == "ppm")
             if scale is not None:
                 tiny, low, ambiguous, first = scale
@@ -457,7 +457,7 @@ _BESIDE_PERCENTAGES = (" ppm is below what a Karl Fischer titration reports (AST
 # it could be a percentage (a column of 2, 5 and 12: a wet sample's 12 % graded normal as 12 ppm).
 _NO_PPM_BESIDE = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), and column "
                   "{lab!r} holds no reading above 100 ppm to say it is in ppm: a percentage? declare water: "
-                  "{{column: {lab!r}, unit: '%'}} in the column map, or correct the export")
+                  "{{column: {lab!r}, unit: '%'}} in the column map (unit: ppm if it is ppm), or correct the export")
 
 
 # Why a water reading from 10 to 100 is rejected in a column that reads as percentages (a reading
@@ -466,15 +466,16 @@ _NO_PPM_BESIDE = (" ppm is below what a Karl Fischer titration reports (ASTM D63
 # a 12 % reading (120,000 ppm, far above any urgent step) graded normal as 12 ppm.
 _PERCENT_OR_PPM = (" could be ppm or a percentage, and column {lab!r} holds readings that read as percentages "
                    "(row {row}): which one is not guessed; declare water: {{column: {lab!r}, unit: '%'}} in the "
-                   "column map, or correct the export")
+                   "column map (unit: ppm if it is ppm), or correct the export")
 
 
 def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.ndarray | None,
-                   bad: np.ndarray, header_says_ppm: bool) -> tuple | None:
+                   written: pd.Series | None, bad: np.ndarray, header_says_ppm: bool) -> tuple | None:
     """Where a water column read in ppm (no unit declared) reads as percentages: (tiny, low,
     ambiguous, first), the rows below 1, from 1 to 10 and from 10 to 100 to reject and the first
-    row that gives the column away; None when nothing does. A censored cell counts by its bound
-    (`<0.05` ppm is no bound Karl Fischer writes either). Karl Fischer reports from 10 mg/kg
+    row that gives the column away; None when nothing does. A censored cell counts by the bound
+    the lab wrote (`<0.05` ppm is no bound Karl Fischer writes either), an `ND` not: its bound is
+    the map's detection limit, not a reading of the column (`written`: the cells as text, stripped). Karl Fischer reports from 10 mg/kg
     (ASTM D6304 §1.1), so a reading below 1 is a percentage, and one below 10 is one too when no
     reading of the column is above 100 (no percentage is); beside them, 10 to 100 is either. A header
     that names ppm (`Water ppm`) says what 10 to 100 is: there only a reading below 1, and one below
@@ -482,6 +483,8 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
     sized = values
     if held is not None and held.any():
         at = np.flatnonzero(held)
+        spelled = written.to_numpy(dtype=object)[at].astype(str)
+        at = at[~np.isin(np.strings.lower(spelled), NOT_DETECTED_SPELLINGS)]  # an ND's bound: the map's limit
         codes, spellings = pd.factorize(censored[at])  # a few: `<0.05`, `>1000`
         sized = values.copy()
         sized[at] = np.array([float(str(cell).lstrip("<>=")) for cell in spellings], dtype=float)[codes]

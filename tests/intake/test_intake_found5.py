@@ -164,3 +164,78 @@ def test_a_censored_water_bound_below_1_is_a_percentage_too(tmp_path):
     got, err = _graded(path, "--rules", HYDRAULIC)
     assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water")] and "'<0.05' ppm is below" in err
     assert (got["HY-2026-0953"]["grade"], _fired(got["HY-2026-0953"])) == ("watch", {"water"})
+
+
+# --- 3. A workbook report with a title above its table -------------------------------------------
+
+def _titled_workbook(path, merged: bool) -> None:
+    import openpyxl  # a runtime dependency
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.append(["Brackwater Point: hydraulic oil analysis, November 2026"])
+    if merged:
+        sheet.merge_cells("A1:H1")
+    sheet.append(["Printed on 2026-11-09 by the site laboratory"])
+    sheet.append([])
+    sheet.append(["sample_id", "unit_id", "class", "lubricant", "sampled_on", "kv40", "an", "water"])
+    sheet.append(["HY-2026-0961", "HPU-1", "hydraulic", "HYD-46-M", "2026-11-02", 46.1, 0.56, 900])
+    sheet.append(["HY-2026-0962", "HPU-2", "hydraulic", "HYD-46-M", "2026-11-02", 45.9, 0.55, "0,12"])
+    sheet.append(["HY-2026-0963", "HPU-3", "hydraulic", "HYD-46-M", "2026-11-02", 46.0, 0.57, 120])
+    book.save(path)
+
+
+@pytest.mark.parametrize("merged", [True, False])
+def test_a_title_above_a_workbook_table_is_skipped_and_rows_keep_their_sheet_numbers(tmp_path, merged):
+    # A report workbook: a title (merged across the table, or in A1 alone), a printed-on line and a
+    # blank row above the header. Was: refused ("duplicate column names", the merged title read as the
+    # header) or, unmerged, a one-column header and no sample read. Now the header is read from sheet
+    # row 4, said in a note, and rows keep the README's numbering (row N is sheet row N + 1): the
+    # decimal-comma text `0,12` is rejected at row 5 (sheet row 6). Water 900 ppm: alert (above 500).
+    _titled_workbook(tmp_path / "report.xlsx", merged)
+    got, err = _graded(tmp_path / "report.xlsx", "--rules", HYDRAULIC)
+    assert "read the header from sheet row 4" in err and "Brackwater Point: hydraulic oil analysis" in err
+    assert _rejects(err) == [(5, "D004", "water")] and _counts(err) == (3, 2, 0, 1)
+    assert (got["HY-2026-0961"]["grade"], _fired(got["HY-2026-0961"])) == ("alert", {"water"})
+    assert got["HY-2026-0963"]["grade"] == "normal"
+
+
+# --- 4. `<LOD` written for a reading below the limit of detection ------------------------------
+
+def test_below_the_limit_of_detection_reads_as_not_detected(tmp_path):
+    # `<LOD` is `<DL` in the limit-of-detection words (IUPAC's term). Was: rejected as no number
+    # (D004). Now the map's detection limit makes it `<10` ppm water, known to be below the 200 ppm
+    # watch step: normal, the water rule evaluated.
+    path = tmp_path / "lod.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
+                    "HY-2026-0971,HPU-1,hydraulic,HYD-46-M,2026-11-02,<LOD\n"
+                    "HY-2026-0972,HPU-2,hydraulic,HYD-46-M,2026-11-02,< LOD\n"
+                    "HY-2026-0973,HPU-3,hydraulic,HYD-46-M,2026-11-02,260\n", encoding="utf-8")
+    (tmp_path / "map.yaml").write_text("water: {column: water, detection_limit: 10}\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert _counts(err) == (3, 3, 0, 0)
+    for sample in ("HY-2026-0971", "HY-2026-0972"):
+        assert got[sample]["values"]["water"] in ("<LOD", "< LOD") and got[sample]["grade"] == "normal"
+        assert "water" not in {gap["rule"] for gap in got[sample]["not_evaluated"]}
+    assert got["HY-2026-0973"]["grade"] == "watch"
+
+
+def test_not_detected_at_a_declared_limit_below_10_ppm_is_no_percentage(tmp_path):
+    # `ND` with the map's detection_limit 5 (ppm) beside 40 and 80 ppm: the bound is the map's, not
+    # a reading the lab wrote, so it says nothing of the column's scale; all three graded normal
+    # (below the 200 ppm watch step).
+    path = tmp_path / "nd.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
+                    "HY-2026-0981,HPU-1,hydraulic,HYD-46-M,2026-11-02,ND\n"
+                    "HY-2026-0982,HPU-2,hydraulic,HYD-46-M,2026-11-02,40\n"
+                    "HY-2026-0983,HPU-3,hydraulic,HYD-46-M,2026-11-02,80\n", encoding="utf-8")
+    (tmp_path / "map.yaml").write_text("water: {column: water, detection_limit: 5}\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert _counts(err) == (3, 3, 0, 0) and {r["grade"] for r in got.values()} == {"normal"}
+
+
+def test_a_column_declared_in_ppm_is_read_as_declared():
+    # The map's `unit: ppm` says what the column is: 2, 5, 12 and 0 ppm, all below the 200 ppm watch
+    # step (hydraulic.yaml): normal, nothing rejected. The declaration is the user's answer to D018.
+    got, err = _graded(FOUND / "water-percent-small.csv", "--rules", HYDRAULIC,
+                       "--columns", FOUND / "water-percent-small-ppm.yaml")
+    assert _counts(err) == (4, 4, 0, 0) and got["HY-2026-0923"]["values"]["water"] == 12
