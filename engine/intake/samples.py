@@ -303,6 +303,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if text is not None and not_a_number.any():
             written_cells[column] = text.to_numpy(dtype=object)
             named |= _header_names(written_cells[column], not_a_number, header_names)
+        percent = None
         if text is not None and not_a_number.any():
             percent = _percent_cells(values, text, not_a_number, decimal, columns.units.get(column) == "%")
             if percent.any():
@@ -349,7 +350,7 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column == "water" and column not in columns.units:
             scale = _percent_sized(values, censored, held, text, bad,
-                                   named_unit("water", labs.get(column, column)) == "ppm")
+                                   named_unit("water", labs.get(column, column)) == "ppm", percent)
             if scale is not None:
                 tiny, low, ambiguous, first = scale
                 lab, row = labs.get(column, column), int(raw.index[first])
@@ -470,16 +471,18 @@ _PERCENT_OR_PPM = (" could be ppm or a percentage, and column {lab!r} holds read
 
 
 def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.ndarray | None,
-                   written: pd.Series | None, bad: np.ndarray, header_says_ppm: bool) -> tuple | None:
+                   written: pd.Series | None, bad: np.ndarray, header_says_ppm: bool,
+                   signed: np.ndarray | None) -> tuple | None:
     """Where a water column read in ppm (no unit declared) reads as percentages: (tiny, low,
     ambiguous, first), the rows below 1, from 1 to 10 and from 10 to 100 to reject and the first
     row that gives the column away; None when nothing does. A censored cell counts by the bound
     the lab wrote (`<0.05` ppm is no bound Karl Fischer writes either), an `ND` not: its bound is
-    the map's detection limit, not a reading of the column (`written`: the cells as text, stripped). Karl Fischer reports from 10 mg/kg
-    (ASTM D6304 §1.1), so a reading below 1 is a percentage, and one below 10 is one too when no
-    reading of the column is above 100 (no percentage is); beside them, 10 to 100 is either. A header
-    that names ppm (`Water ppm`) says what 10 to 100 is: there only a reading below 1, and one below
-    10 beside it, is rejected."""
+    the map's detection limit, not a reading of the column (`written`: the cells as text, stripped).
+    Cells written with a percent sign (`signed`, rejected already) give the column away as well.
+    Karl Fischer reports from 10 mg/kg (ASTM D6304 §1.1), so a reading below 1 is a percentage, and
+    one below 10 is one too when no reading of the column is above 100 (no percentage is); beside
+    them, 10 to 100 is either. A header that names ppm (`Water ppm`) says what 10 to 100 is: there
+    only a reading below 1, and one below 10 beside it, is rejected."""
     sized = values
     if held is not None and held.any():
         at = np.flatnonzero(held)
@@ -492,10 +495,12 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
         sized = np.where(bad, np.nan, sized)  # a row rejected already is not asked
         tiny = (sized > 0) & (sized < 1)
         below = (sized > 0) & (sized < 10)
-        if not (tiny.any() or (not header_says_ppm and below.any() and not (sized > 100).any())):
+        signed = signed if signed is not None and signed.any() else None
+        if not (tiny.any() or signed is not None or (not header_says_ppm and below.any() and not (sized > 100).any())):
             return None
         ambiguous = (sized >= 10) & (sized <= 100) & (not header_says_ppm)
-    return tiny, below & ~tiny, ambiguous, int(np.argmax(tiny if tiny.any() else below))
+    first = tiny if tiny.any() else signed if signed is not None else below
+    return tiny, below & ~tiny, ambiguous, int(np.argmax(first))
 
 
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:

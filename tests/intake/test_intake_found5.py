@@ -239,3 +239,19 @@ def test_a_column_declared_in_ppm_is_read_as_declared():
     got, err = _graded(FOUND / "water-percent-small.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-small-ppm.yaml")
     assert _counts(err) == (4, 4, 0, 0) and got["HY-2026-0923"]["values"]["water"] == 12
+
+
+def test_percent_signs_on_some_cells_give_the_water_column_away(tmp_path):
+    # `0.05 %` and `0.3%` written with the sign (rejected, D018, since the third hunt) and an emulsion's
+    # `12` without it, in a column read in ppm. Was: 12 graded normal as 12 ppm (12 % is 120,000 ppm,
+    # urgent above 1000); beside percentages it could be one: D018, naming the row of the first sign.
+    path = tmp_path / "signs.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
+                    "HY-2026-0991,HPU-1,hydraulic,HYD-46-M,2026-11-02,0.05 %\n"
+                    "HY-2026-0992,HPU-2,hydraulic,HYD-46-M,2026-11-02,0.3%\n"
+                    "HY-2026-0993,HPU-3,hydraulic,HYD-46-M,2026-11-02,12\n"
+                    "HY-2026-0994,HPU-4,hydraulic,HYD-46-M,2026-11-02,450\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
+    assert "'12' could be ppm or a percentage" in err and "(row 1)" in err
+    assert (got["HY-2026-0994"]["grade"], _fired(got["HY-2026-0994"])) == ("watch", {"water"})
