@@ -255,3 +255,25 @@ def test_percent_signs_on_some_cells_give_the_water_column_away(tmp_path):
     assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
     assert "'12' could be ppm or a percentage" in err and "(row 1)" in err
     assert (got["HY-2026-0994"]["grade"], _fired(got["HY-2026-0994"])) == ("watch", {"water"})
+
+
+# --- 5. Rows hidden in a workbook -----------------------------------------------------------------
+
+def test_rows_hidden_in_a_workbook_are_graded_and_said(tmp_path):
+    # A lab's sheet with a superseded result hidden by hand (HY-2026-0962, water 900 ppm) above its
+    # retest. Was: graded like the others without a word, its alert beside the retest's normal. A
+    # hidden row is still a row of the file (it is read, so the counts add up), but the run says
+    # which rows were hidden (row N is sheet row N + 1), so a user who sees fewer rows in the sheet
+    # than in the results knows why.
+    import openpyxl  # a runtime dependency
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.append(["sample_id", "unit_id", "class", "lubricant", "sampled_on", "water"])
+    sheet.append(["HY-2026-0961", "HPU-1", "hydraulic", "HYD-46-M", "2026-11-02", 120])
+    sheet.append(["HY-2026-0962", "HPU-2", "hydraulic", "HYD-46-M", "2026-11-02", 900])
+    sheet.append(["HY-2026-0962R", "HPU-2", "hydraulic", "HYD-46-M", "2026-11-02", 110])
+    sheet.row_dimensions[3].hidden = True
+    book.save(tmp_path / "hidden.xlsx")
+    got, err = _graded(tmp_path / "hidden.xlsx", "--rules", HYDRAULIC)
+    assert "note: row 2 hidden in the sheet" in err and _counts(err) == (3, 3, 0, 0)
+    assert got["HY-2026-0962"]["grade"] == "alert" and got["HY-2026-0962R"]["grade"] == "normal"
