@@ -277,3 +277,23 @@ def test_rows_hidden_in_a_workbook_are_graded_and_said(tmp_path):
     got, err = _graded(tmp_path / "hidden.xlsx", "--rules", HYDRAULIC)
     assert "note: row 2 hidden in the sheet" in err and _counts(err) == (3, 3, 0, 0)
     assert got["HY-2026-0962"]["grade"] == "alert" and got["HY-2026-0962R"]["grade"] == "normal"
+
+
+# --- 6. A units line that says what the percentage is a share of -------------------------------
+
+@pytest.mark.parametrize("unit", ["% m/m", "%(m/m)", "% w/w", "% mass", "%wt"])
+def test_a_units_line_in_mass_percent_refuses_the_file_like_percent(tmp_path, unit):
+    # A units line under the header naming the water column `% m/m` (a mass fraction, as a lab writes
+    # it). Was: the cell rejected as no number (D004) and 12 (12 % = 120,000 ppm, urgent) graded
+    # normal as 12 ppm beside a 450 ppm sample. `% m/m` is % (what the share is of aside, ISO 80000-1
+    # would put it in the quantity): the file is refused, as for `%`, saying what to declare.
+    path = tmp_path / "units.csv"
+    path.write_text(f"sample_id,unit_id,class,lubricant,sampled_on,kv40,water\n,,,,,mm²/s,{unit}\n"
+                    "HY-2026-1001,HPU-1,hydraulic,HYD-46-M,2026-11-02,46.0,12\n"
+                    "HY-2026-1002,HPU-2,hydraulic,HYD-46-M,2026-11-02,46.1,450\n", encoding="utf-8")
+    run = run_cli("grade", path, "--rules", HYDRAULIC)
+    assert run.code == 2 and run.out == ""
+    assert "a units line under the header, in column 'water' names the unit %" in run.err and "unit: '%'" in run.err
+    (tmp_path / "map.yaml").write_text("water: {column: water, unit: '%'}\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert (got["HY-2026-1001"]["grade"], got["HY-2026-1001"]["values"]["water"]) == ("urgent", 120000)
