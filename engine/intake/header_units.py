@@ -75,12 +75,23 @@ def _normalised(text: str) -> str:
 _SHARE_OF = re.compile(r"\b(?:m/m|w/w|v/v|wt|mass|vol|volume|weight|gew|by mass|by weight|by volume)\b")
 
 
+# What is counted, written before a count's volume on a units line (`counts/100 mL`, `particles per
+# mL`, `n/mL`, `#/mL`): the cell still names the volume (common practice, no source).
+_COUNTED = re.compile(r"^(?:particle counts?|counts?|cts|particles?|n|#|no\.?|number)\s*(?=/|per\b)")
+
+
+# The temperature a viscosity's unit is given at, after it on a units line (`cSt @ 40 °C`, `mPa.s at
+# 40C`): the cell still names the unit (common practice, no source).
+_AT_TEMPERATURE = re.compile(r"\s*(?:@|\bat\b)?\s*[(\[]?\d+ ?(?:\u00b0|\u00ba|deg\.?)? ?[cf][)\]]?$")
+
+
 def named_unit(measure: str, text: str, whole: bool = False) -> str | None:
     """The unit `text` names for `measure` (a header; `whole`: a cell of a units line, which must be
-    a unit and nothing else, brackets aside, and a percentage's `m/m` or `wt` beside it), or None."""
+    a unit and nothing else, brackets aside, a percentage's `m/m` or `wt` beside it, what a count
+    counts before its volume and a viscosity's temperature after it), or None."""
     text = _normalised(text).strip()
     if whole:
-        text = text.strip("[]() ")
+        text = _AT_TEMPERATURE.sub("", _COUNTED.sub("", text.strip("[]() "))).strip("[]() ")
         if "%" in text and not _SHARE_OF.sub("", text).strip("[]()%.,- "):
             text = "%"
     for pattern, unit in _COMPILED.get(measure, ()):

@@ -297,3 +297,29 @@ def test_a_units_line_in_mass_percent_refuses_the_file_like_percent(tmp_path, un
     (tmp_path / "map.yaml").write_text("water: {column: water, unit: '%'}\n", encoding="utf-8")
     got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert (got["HY-2026-1001"]["grade"], got["HY-2026-1001"]["values"]["water"]) == ("urgent", 120000)
+
+
+@pytest.mark.parametrize("unit", ["counts/100 mL", "particles/100 mL", "n/100ml", "#/100 mL", "counts per 100 mL"])
+def test_a_units_line_in_counts_per_100_ml_refuses_the_file(tmp_path, unit):
+    # Particle counts per 100 mL (as some counters report them) under a units line that says what is
+    # counted. Was: the cells rejected as no number (D004), the counts graded per mL, 100 times too
+    # many (ISO 4406:1999 codes count per mL: 250,000/100 mL is 2,500/mL, code 18, not 25).
+    path = tmp_path / "counts.csv"
+    path.write_text(f"sample_id,unit_id,class,lubricant,sampled_on,particles_4um,particles_6um,particles_14um\n"
+                    f",,,,,{unit},{unit},{unit}\n"
+                    "HY-2026-1011,HPU-1,hydraulic,HYD-46-M,2026-11-02,250000,64000,4000\n", encoding="utf-8")
+    run = run_cli("grade", path, "--rules", HYDRAULIC)
+    assert run.code == 2 and run.out == "" and "names /100mL, which is not a unit particles_4um can be read in" in run.err
+
+
+@pytest.mark.parametrize("unit", ["mPa.s @ 40°C", "cP (40 °C)", "mPa·s at 40C"])
+def test_a_units_line_naming_a_dynamic_viscosity_at_its_temperature_refuses_the_file(tmp_path, unit):
+    # A dynamic viscosity (mPa·s) is the kinematic one times the density (ASTM D445's terminology,
+    # from memory), about 0.87 g/mL for a mineral hydraulic oil (from memory): 40.0 mPa·s is about
+    # 46 mm²/s, read as kv40 12 % below the new oil's 45.6. Was: the cell, with its temperature, read
+    # as no unit (D004), and 40.0 graded as kv40.
+    path = tmp_path / "dynamic.csv"
+    path.write_text(f"sample_id,unit_id,class,lubricant,sampled_on,kv40\n,,,,,{unit}\n"
+                    "HY-2026-1021,HPU-1,hydraulic,HYD-46-M,2026-11-02,40.0\n", encoding="utf-8")
+    run = run_cli("grade", path, "--rules", HYDRAULIC)
+    assert run.code == 2 and run.out == "" and "mPa.s (a dynamic viscosity)" in run.err
