@@ -215,25 +215,67 @@ def _labels(cells: np.ndarray, known, factorized: tuple | None = None) -> np.nda
 
 def _may_be_labels(texts) -> np.ndarray:
     """Which texts may be labels: those without a digit (no label has one), ending in a bracket (a
-    note such as `(n=12)`), holding a space (`Average for HPU-1`), or whose digits are one run at
-    the end after `#` or `:` (`Total:12`). A few numpy passes over their characters, joined: sample
-    ids have digits among other characters and seldom a space (`HY-2026-0803`)."""
-    try:
-        joined = "\x00".join(texts)
-    except TypeError:  # not all text
+    note such as `(n=12)`), holding a space after a first word that begins a label (`Average 2`,
+    `Max of 3`), or a number after `#` or `:` (`Total:12`). A few numpy passes over their
+    characters, joined: sample ids have digits among other characters, and seldom a label's word
+    before a space (`HY-2026-0803`, `BW 104233`)."""
+    points = _code_points(texts)
+    if points is None:  # not all text, or a text holds the separator
         return np.ones(len(texts), dtype=bool)
-    points = (np.frombuffer(joined.encode("ascii"), dtype=np.uint8) if joined.isascii() else
-              np.frombuffer(joined.encode("utf-32-le", "surrogatepass"), dtype=np.uint32))
-    points = np.append(points, 0)  # each text ends at a separator, the last too
     ends = np.flatnonzero(points == 0)
-    if len(ends) != len(texts):  # a text holds the separator itself
-        return np.ones(len(texts), dtype=bool)
     starts = np.concatenate([[0], ends[:-1] + 1])  # at its separator when a text is empty: no digit
     digit = ((points >= ord("0")) & (points <= ord("9"))).view(np.uint8)
     last = points[np.maximum(ends - 1, 0)] * (ends > starts)
-    first = np.minimum.reduceat(np.where(digit, np.arange(len(points)), len(points)), starts)
-    before = points[np.clip(first - 1, 0, len(points) - 1)]
-    numbered = ((first < ends) & (first > starts) & (np.add.reduceat(digit.astype(np.int64), starts) == ends - first)
-                & np.isin(before, [ord("#"), ord(":"), ord("=")]))
-    spaced = np.maximum.reduceat(np.isin(points, [ord(" "), ord("\t")]).view(np.uint8), starts) == 1
-    return (np.maximum.reduceat(digit, starts) == 0) | (last == ord(")")) | (last == ord("]")) | numbered | spaced
+    candidates = (np.maximum.reduceat(digit, starts) == 0) | (last == ord(")")) | (last == ord("]"))
+    spaced = np.maximum.reduceat(((points == ord(" ")) | (points == ord("\t"))).view(np.uint8), starts) == 1
+    at = np.flatnonzero(spaced & ~candidates)
+    candidates[at] = np.isin(_first_words(points, starts[at]), _LABEL_WORDS)
+    marked = np.maximum.reduceat(((points == ord("#")) | (points == ord(":"))).view(np.uint8), starts) == 1
+    for k in np.flatnonzero(marked & ~candidates):  # a few: ids seldom hold `#` or `:`
+        candidates[k] = _MARKED_NUMBER.fullmatch(texts[k]) is not None
+    return candidates
+
+
+def _code_points(texts) -> np.ndarray | None:
+    """The texts' characters joined, each text ended by a 0 (None when one is not text or holds a 0)."""
+    try:
+        joined = "\x00".join(texts)
+    except TypeError:
+        return None
+    points = (np.frombuffer(joined.encode("ascii"), dtype=np.uint8) if joined.isascii() else
+              np.frombuffer(joined.encode("utf-32-le", "surrogatepass"), dtype=np.uint32))
+    points = np.append(points, 0)
+    return points if np.count_nonzero(points == 0) == len(texts) else None
+
+
+_MARKED_NUMBER = re.compile(r"\D*[#:]\s*\d+")  # `Total:12`, `Average#2`
+_WORD = 18  # the letters of a label's first word at most (`standardabweichung`)
+
+
+def _first_words(points: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """A key of the first word of each text starting at `starts` (its leading letters, case folded;
+    Latin-1 letters too): its length and first three letters, 0 for none or one longer than any
+    label's. Equal words key alike; two that differ further only let a text through to the exact
+    check. Only the first letters of each text are looked at."""
+    chars = points[np.minimum(starts[:, None] + np.arange(_WORD + 1), len(points) - 1)].astype(np.uint32)
+    upper = ((chars >= 65) & (chars <= 90)) | ((chars >= 192) & (chars <= 222) & (chars != 215))
+    chars[upper] += 32
+    letter = ((chars >= 97) & (chars <= 122)) | (chars >= 223)
+    length = np.where(letter.all(axis=1), _WORD + 1, np.argmin(letter, axis=1))  # the separator 0 ends a text
+    chars[np.arange(_WORD + 1) >= length[:, None]] = 0
+    key = length.astype(np.uint64)
+    for k in range(3):  # 16 bits each: a code point beyond them only makes two words alike
+        key = (key << np.uint64(16)) | (chars[:, k] & 0xFFFF).astype(np.uint64)
+    return np.where((length == 0) | (length > _WORD), np.uint64(0), key)
+
+
+def _label_words() -> np.ndarray:
+    """The first words of the labels, hashed as _first_words hashes a text's (none empty)."""
+    labels = [label for labels in _LABELS.values() for label in labels]
+    points = _code_points(labels)
+    ends = np.flatnonzero(points == 0)
+    words = _first_words(points, np.concatenate([[0], ends[:-1] + 1]))
+    return np.unique(words[words != 0])
+
+
+_LABEL_WORDS = _label_words()
