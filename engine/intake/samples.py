@@ -349,8 +349,14 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column == "water" and column not in columns.units:
+            stated = np.zeros(len(raw), dtype=bool)  # rows whose unit column says ppm
+            if column in unit_columns:
+                cells = raw[unit_columns[column]].to_numpy(dtype=object)
+                codes, spellings = pd.factorize(cells)  # a few spellings
+                stated = np.array([named_unit(column, str(cell), whole=True) == "ppm" for cell in spellings] + [False],
+                                  dtype=bool)[codes]
             scale = _percent_sized(values, censored, held, text, bad,
-                                   named_unit("water", labs.get(column, column)) == "ppm", percent)
+                                   named_unit("water", labs.get(column, column)) == "ppm", percent, stated)
             if scale is not None:
                 tiny, low, ambiguous, first = scale
                 lab, row = labs.get(column, column), int(raw.index[first])
@@ -472,7 +478,7 @@ _PERCENT_OR_PPM = (" could be ppm or a percentage, and column {lab!r} holds read
 
 def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.ndarray | None,
                    written: pd.Series | None, bad: np.ndarray, header_says_ppm: bool,
-                   signed: np.ndarray | None) -> tuple | None:
+                   signed: np.ndarray | None, stated: np.ndarray) -> tuple | None:
     """Where a water column read in ppm (no unit declared) reads as percentages: (tiny, low,
     ambiguous, first), the rows below 1, from 1 to 10 and from 10 to 100 to reject and the first
     row that gives the column away; None when nothing does. A censored cell counts by the bound
@@ -482,7 +488,8 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
     Karl Fischer reports from 10 mg/kg (ASTM D6304 §1.1), so a reading below 1 is a percentage, and
     one below 10 is one too when no reading of the column is above 100 (no percentage is); beside
     them, 10 to 100 is either. A header that names ppm (`Water ppm`) says what 10 to 100 is: there
-    only a reading below 1, and one below 10 beside it, is rejected."""
+    only a reading below 1, and one below 10 beside it, is rejected; so does a row's unit column
+    (`stated`: the rows whose unit cell names ppm), for its row."""
     sized = values
     if held is not None and held.any():
         at = np.flatnonzero(held)
@@ -496,9 +503,12 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
         tiny = (sized > 0) & (sized < 1)
         below = (sized > 0) & (sized < 10)
         signed = signed if signed is not None and signed.any() else None
-        if not (tiny.any() or signed is not None or (not header_says_ppm and below.any() and not (sized > 100).any())):
+        if not (tiny.any() or signed is not None
+                or (not header_says_ppm and (below & ~stated).any() and not (sized > 100).any())):
             return None
-        ambiguous = (sized >= 10) & (sized <= 100) & (not header_says_ppm)
+        ambiguous = (sized >= 10) & (sized <= 100) & ~stated & (not header_says_ppm)
+    if not tiny.any() and signed is None:  # the column gives itself away by readings below 10 alone
+        below &= ~stated
     first = tiny if tiny.any() else signed if signed is not None else below
     return tiny, below & ~tiny, ambiguous, int(np.argmax(first))
 

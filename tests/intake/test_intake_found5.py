@@ -323,3 +323,19 @@ def test_a_units_line_naming_a_dynamic_viscosity_at_its_temperature_refuses_the_
                     "HY-2026-1021,HPU-1,hydraulic,HYD-46-M,2026-11-02,40.0\n", encoding="utf-8")
     run = run_cli("grade", path, "--rules", HYDRAULIC)
     assert run.code == 2 and run.out == "" and "mPa.s (a dynamic viscosity)" in run.err
+
+
+def test_a_row_whose_unit_column_says_ppm_keeps_its_reading_from_10_to_100(tmp_path):
+    # A LIMS export with a unit column beside water: HY-2026-1031's 0.3 is written with `%` (rejected,
+    # D018: the column is read in ppm), HY-2026-1032's 0.4 with no unit (below what Karl Fischer
+    # reports as ppm, ASTM D6304 §1.1: D018), HY-2026-1033's 45 says `ppm`: read as 45 ppm (normal,
+    # below 200), and HY-2026-1034's 12 without a unit beside the percentages: D018.
+    path = tmp_path / "lims.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water,water unit\n"
+                    "HY-2026-1031,HPU-1,hydraulic,HYD-46-M,2026-11-02,0.3,%\n"
+                    "HY-2026-1032,HPU-2,hydraulic,HYD-46-M,2026-11-02,0.4,\n"
+                    "HY-2026-1033,HPU-3,hydraulic,HYD-46-M,2026-11-02,45,ppm\n"
+                    "HY-2026-1034,HPU-4,hydraulic,HYD-46-M,2026-11-02,12,\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (4, "D018", "water")]
+    assert set(got) == {"HY-2026-1033"} and got["HY-2026-1033"]["values"]["water"] == 45
