@@ -166,7 +166,7 @@ def record(ruleset, row: dict, value_names: list, derived_names: list, origin: d
     level = max(levels + [0]) if evaluated else None
     caveats.extend(engine_caveats(ruleset, texts.get("lubricant"), class_name, gaps, numbers.get("oxidation"),
                                   sample["new"]["oxidation"]))
-    out = {"format": 3, "form": "compact", "sample_id": texts.get("sample_id"), "unit_id": texts.get("unit_id"),
+    out = {"format": 4, "form": "compact", "sample_id": texts.get("sample_id"), "unit_id": texts.get("unit_id"),
            "class": class_name, "lubricant": texts.get("lubricant"), "sampled_on": texts.get("sampled_on"),
            "origin": origin, "oil_changed": FLAGS.get((texts.get("oil_changed") or "").lower(), False),
            "values": {name: _plain(numbers.get(name)) for name in value_names},

@@ -27,7 +27,7 @@ from sumpwise.vocabulary.measures import (DECIMALS, MEASURES, ROW_DERIVED, TREND
 from sumpwise.ruleset.model import RuleSet, condition_measures
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.texts import lubricant_key
-from sumpwise.intake.censored import WRITTEN_SUFFIX, number_text
+from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.intake.samples import Reject, SampleBatch
 
 # The columns a sample contributes to trends; a ledger's history frame has these.
@@ -42,11 +42,10 @@ PER_OIL_HOUR = tuple(m.name for m in ROW_DERIVED if "oil_hours" in m.needs)
 # taken (our margin, no source): only hours the calendar cannot hold by far (a digit too many,
 # a wrong year or month) are refused.
 HOURS_MARGIN = 2.0
-# The columns beside a rate whose step is within the noise margin (_noise_bounds): the margin, and
-# the text that says why it carries an interval (noise_notes); unlike a censored reading's
+# The column beside a rate whose step is within the noise margin (_noise_bounds): the margin, set
+# on exactly those rows (records give the rate's interval there); unlike a censored reading's
 # `:written`, the rate's number stays what records show.
 MARGIN_SUFFIX = ":margin"
-NOISE_SUFFIX = ":noise"
 
 
 TREND_CAVEATS = (
@@ -336,39 +335,6 @@ def _noise_bounds(base: str, rows: np.ndarray, rate: np.ndarray, step: np.ndarra
     closed = np.zeros(len(rows), dtype=bool)
     return {name + ":low": low, name + ":high": high, name + ":low_open": closed, name + ":high_open": closed.copy(),
             name + MARGIN_SUFFIX: np.where(rows, np.round(margin, DECIMALS), np.nan)}
-
-
-def noise_notes(measured: pd.DataFrame, reads: list, quiet: np.ndarray) -> dict:
-    """The `<rate>:noise` text of each rate with a noise interval, on the rows where a rule slot j
-    reading it (`reads[j]`, its measures) is not `quiet[:, j]` (it fired or was not evaluated):
-    what a record's `undecided` and the grade-may-be-higher note say. Only there: a step within
-    the margin is common, and its rate usually decides nothing."""
-    notes = {}
-    for column in measured.columns:
-        if not column.endswith(MARGIN_SUFFIX):
-            continue
-        name = column[: -len(MARGIN_SUFFIX)]
-        margin = measured[column].to_numpy(dtype=float)
-        wanted = np.zeros(len(measured), dtype=bool)
-        for j, measures in enumerate(reads):
-            if name in measures:
-                wanted |= ~quiet[:, j]
-        text = np.full(len(measured), None, dtype=object)
-        at = np.flatnonzero(wanted & ~np.isnan(margin))
-        if len(at):
-            base = name[: -len("_step_per_1000h")]
-            r, lo, hi, d, m, h = (_spelled(measured[c].to_numpy(dtype=float)[at]) for c in
-                                  (name, name + ":low", name + ":high", f"{base}_step", column, "hours_since_previous"))
-            text[at] = (r + ", [" + lo + ", " + hi + "] from a step of " + d + " within its noise margin of " + m
-                        + " over " + h + " h")  # object arrays: one C loop a piece, no Python a row
-        notes[name + NOISE_SUFFIX] = text
-    return notes
-
-
-def _spelled(values: np.ndarray) -> np.ndarray:
-    """number_text of each value, each distinct value spelled once (steps, spans and margins repeat)."""
-    codes, uniques = pd.factorize(values)
-    return np.array([number_text(u) for u in uniques.tolist()] + ["(none)"], dtype=object)[codes]
 
 
 def _text(values: np.ndarray) -> np.ndarray:

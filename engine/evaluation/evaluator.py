@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.censored import WRITTEN_SUFFIX, Bounds, interval_truth
-from sumpwise.derive.trends import NOISE_SUFFIX
+from sumpwise.intake.censored import WRITTEN_SUFFIX, Bounds, interval_truth, numbers_text
+from sumpwise.derive.trends import MARGIN_SUFFIX
 from sumpwise.ruleset.model import LadderRule, RuleSet
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
@@ -383,9 +383,13 @@ def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> d
         higher = possible > outcome.level[rows]
         if not higher.any():
             continue
-        said = next((c for c in (rule.measure + WRITTEN_SUFFIX, rule.measure + NOISE_SUFFIX) if c in measured.columns),
-                    None)  # a censored reading as written, or why a rate carries an interval
-        written = measured[said].to_numpy(dtype=object)[rows] if said else np.full(len(rows), None, dtype=object)
+        noisy = rule.measure + WRITTEN_SUFFIX not in measured.columns and rule.measure + MARGIN_SUFFIX in measured.columns
+        if noisy:  # a rate from a step within the noise margin: its number (the gap gives the interval)
+            written = numbers_text(measured[rule.measure].to_numpy(dtype=float)[rows])
+        elif rule.measure + WRITTEN_SUFFIX in measured.columns:  # a censored reading as written
+            written = measured[rule.measure + WRITTEN_SUFFIX].to_numpy(dtype=object)[rows]
+        else:
+            written = np.full(len(rows), None, dtype=object)
         unit = ruleset.unit_of(rule.measure)
         for level in np.unique(possible[higher]).tolist():
             at = rows[higher & (possible == level)]
@@ -394,10 +398,7 @@ def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> d
             reading = written[higher & (possible == level)].astype(str).astype(object)
             as_written = np.isin(reading.astype("U1"), ["<", ">", "\u2264", "\u2265"])  # first characters
             reading[as_written] = "written '" + reading[as_written] + "'"  # a derived one says its own source
-            why = ""
-            if said is not None and said.endswith(NOISE_SUFFIX):  # the interval is the gap's: said once, there
-                reading = pd.Series(reading, dtype=object).str.partition(", [")[0].to_numpy(dtype=object)
-                why = ", its step being within the noise margin"
+            why = ", its step being within the noise margin" if noisy else ""
             text = (f"{rule.id}: {rule.measure} " + reading + f" may be {rule.test} its {ruleset.grades[level]} "
                     f"limit ({shown}{' ' + unit if unit else ''}){why}")
             first = pd.isna(notes[at])

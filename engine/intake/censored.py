@@ -56,6 +56,12 @@ def number_text(value: float) -> str:
     return repr(int(value)) if value.is_integer() and abs(value) < 1e15 else repr(value)
 
 
+def numbers_text(values: np.ndarray) -> np.ndarray:
+    """number_text of each value, each distinct value spelled once (readings repeat), "(none)" where missing."""
+    codes, uniques = pd.factorize(values)
+    return np.array([number_text(u) for u in uniques.tolist()] + ["(none)"], dtype=object)[codes]
+
+
 def read_censored(text: np.ndarray, candidates: np.ndarray, decimal: str, factor: float,
                   detection_limit: float | None) -> CensoredCells:
     """Classify the `candidates` cells of `text` (stripped cell texts) that are not numbers.

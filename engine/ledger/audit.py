@@ -36,7 +36,7 @@ from sumpwise.render.jsonl import dumps
 from sumpwise.version import engine_name
 from sumpwise.render.narrative import explain_lines, forecast_lines, wrapper
 from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
-from sumpwise.results.facts import batch_facts, result_from_facts
+from sumpwise.results.facts import batch_facts, result_from_facts, same_as_stored
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import SampleResult
 from sumpwise.ruleset.compiler import load_ruleset
@@ -555,7 +555,11 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
         entries, frame = entries[kept].reset_index(drop=True), frame[kept]
         altered, wanted = altered[kept], wanted[kept]
     typed = _typed_mismatch(entries, graded.measured, frame, form, json.loads(batch["held"]) if form != 1 else [])
-    facts = batch_facts(graded, json.loads(batch["value_names"]))
+    names = json.loads(batch["value_names"])
+    facts = batch_facts(graded, names)
+    read_otherwise = np.zeros(len(entries), dtype=bool)  # a value the batch reads back from the sample's stored ones
+    for name in names.get("from_content", ()):
+        read_otherwise |= ~same_as_stored(graded, frame, name)
     stored = {"grade": entries["grade"].to_numpy(dtype=object), "facts": entries["facts"].to_numpy(dtype=object),
               "vals": entries["vals"].to_numpy(dtype=object),
               "level": _levels(entries["level"].to_numpy(dtype=object))}
@@ -565,7 +569,7 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
     differs = ~((stored["grade"] == facts.grades) & same_level & (stored["facts"] == shapes)
                 & (stored["vals"] == facts.values))
     sids = entries["sample_id"].to_numpy(dtype=object)
-    for k in np.flatnonzero(wanted & (altered | typed | differs)):
+    for k in np.flatnonzero(wanted & (altered | typed | differs | read_otherwise)):
         sid = sids[k]
         if altered[k]:
             found.append(Difference(sid, number, "its stored values no longer match their fingerprint "
@@ -575,6 +579,10 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
                                                  "(altered after recording)"))
         elif pd.isna(stored["facts"][k]):
             found.append(Difference(sid, number, "its verdict is missing (deleted, or its shape is gone)"))
+        elif read_otherwise[k] and not differs[k]:
+            found.append(_unreproduced(batch, intact, sid, "its record's values, which the ledger reads back from its "
+                                                           "stored input values, are not those values as this engine "
+                                                           "reads them"))
         else:
             found.append(_unreproduced(batch, intact, sid, _facts_differ(stored, facts, k) or "its verdict differs"))
     return found

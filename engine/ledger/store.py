@@ -42,7 +42,7 @@ from sumpwise.ledger.aside import Aside
 from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_QUERIES, DIGEST_3_SAMPLE_COLUMNS,
                                     FORM_1_SAMPLE_COLUMNS, MIGRATIONS, fingerprint, shape_ids,
                                     written_digest_3)
-from sumpwise.results.facts import batch_facts, record_names
+from sumpwise.results.facts import batch_facts, record_names, same_as_stored
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import UNRATED, GradedBatch
 from sumpwise.ruleset.model import RuleSet
@@ -705,6 +705,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     conn.execute("INSERT OR IGNORE INTO rulesets VALUES (?, ?, ?, ?)",
                  (ruleset.sha256, ruleset.id, json.dumps(ruleset.version), ruleset.canonical))
     previous = conn.execute("SELECT digest FROM batches ORDER BY batch DESC LIMIT 1").fetchone()
+    names = record_names(graded, [name for name in graded.value_columns if same_as_stored(graded, frame, name).all()])
     n_new, n_corrections = int(fresh.sum() - differs.sum()), int(differs.sum())
     cursor = conn.execute(
         "INSERT INTO batches (recorded_at, source, ruleset_sha256, engine, columns, record_tail, rows_read, "
@@ -714,7 +715,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
          json.dumps(list(frame.columns)), batch.rows_read, n_new, int(known.sum()), n_corrections,
          len(batch.rejects), n_conflicts, correction.reason if correction else None,
          correction.author if correction else None, previous[0] if previous else "",
-         json.dumps(record_names(graded))))
+         json.dumps(names)))
     number = cursor.lastrowid
     corrected = by_id["entry"].reindex(ids[differs]).astype(int).tolist()
     conn.executemany("UPDATE samples SET superseded_in = ? WHERE entry = ?", ((number, e) for e in corrected))
@@ -735,7 +736,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     values = sample_arrays(fresh_frame[[c for c in frame.columns if c not in held]]).tolist()
     conn.execute("UPDATE batches SET held = ? WHERE batch = ?", (json.dumps(held), number))
     typed = [typed[name] for name in HELD]
-    facts = batch_facts(graded)
+    facts = batch_facts(graded, names)
     shapes = np.array(shape_ids(conn, facts.shapes), dtype=np.int64)
     levels = facts.levels[rows].astype(object)
     levels[facts.levels[rows] < 0] = None

@@ -27,6 +27,7 @@ from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
+from sumpwise.results.records import undecided_from_record
 from sumpwise.render.narrative import gap_phrase, rounded, step_phrase
 from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
@@ -752,9 +753,18 @@ def _latest(record: dict, ladder: Ladder) -> str:
 
 
 def _undecided(gap: dict) -> list:
-    """(measure, text) of the readings that left a rule undecided, as a record gives them."""
+    """(measure, reading) of the readings that left a rule undecided, as a record gives them: a
+    bound as written, or a rate's interval (format 4; a format-3 record words it)."""
     undecided = gap.get("undecided") if isinstance(gap.get("undecided"), dict) else {}
-    return [(name, str(text)) for name, text in undecided.items()]
+    return [(name, _reading(shown)) for name, shown in undecided.items()]
+
+
+def _reading(shown):
+    """A record's undecided reading; one not of a record's shapes is shown as text, never a traceback."""
+    try:
+        return undecided_from_record(shown)
+    except (KeyError, TypeError, ValueError):
+        return str(shown)
 
 
 def _finding_text(reason: dict) -> str:

@@ -8,7 +8,8 @@ import textwrap
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.vocabulary.measures import MEASURES, measure_unit
-from sumpwise.results.records import SampleResult
+from sumpwise.intake.censored import number_text
+from sumpwise.results.records import RateInterval, SampleResult
 from sumpwise.render.safe_text import terminal_lines
 
 
@@ -86,15 +87,23 @@ def _bound_note(reason) -> str:
 def gap_phrase(rule: str, missing, undecided) -> str:
     """Why a rule was not evaluated: the inputs it lacked, and readings that left it undecided, a
     bound as the lab wrote it (`<5`) or a rate's interval from a step within the noise margin."""
-    told = "; ".join(_undecided_reading(name, text) for name, text in undecided)
+    told = "; ".join(_undecided_reading(name, shown) for name, shown in undecided)
     if not missing:
         return f"{rule}: {told}"
     return f"{rule}: lacks {', '.join(missing)}" + (f" ({told})" if told else "")
 
 
-def _undecided_reading(name: str, text: str) -> str:
-    shown = f"written '{text}'" if text[:1] in "<>\u2264\u2265" else text  # a bound as written, else why
-    return f"{name} {shown} does not decide it"
+def _undecided_reading(name: str, shown) -> str:
+    if isinstance(shown, RateInterval):
+        said = (f"{_number(shown.rate)}, [{_number(shown.low)}, {_number(shown.high)}] from a step of "
+                f"{_number(shown.step)} within its noise margin of {_number(shown.margin)} over {_number(shown.hours)} h")
+    else:  # a bound as the lab wrote it; a format-3 record or ledger says the interval in words
+        said = f"written '{shown}'" if str(shown)[:1] in "<>\u2264\u2265" else str(shown)
+    return f"{name} {said} does not decide it"
+
+
+def _number(value) -> str:
+    return "(none)" if value is None else value if isinstance(value, str) else number_text(value)
 
 
 def undefined_phrase(names) -> str:

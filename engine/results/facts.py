@@ -16,7 +16,8 @@ identity and input values are not part of either: the ledger keeps them with the
 each shape once, and fills the values column by column; `result_facts` does the same for
 one SampleResult (a stored record being migrated, or a test's oracle); both give the same
 text for the same result. The values array ends with the record's own values (its input
-measures with their conventions), in the order of names the caller keeps once a batch.
+measures with their conventions), in the order of names the caller keeps once a batch; a
+value the sample's stored inputs hold exactly is left out and read back from them.
 """
 
 from __future__ import annotations
@@ -34,8 +35,8 @@ from sumpwise.derive.trends import TREND_CAVEATS
 from sumpwise.evaluation.evaluator import BOUND_CAVEATS, COVERAGE_CAVEATS
 from sumpwise.intake.censored import WRITTEN_SUFFIX
 from sumpwise.intake.sample_spectra import SPECTRUM_CAVEATS
-from sumpwise.results.records import (CaveatNote, Clause, GradedBatch, NotEvaluated, Reason, SampleResult, build_result,
-                                      condition_inputs, rule_inputs)
+from sumpwise.results.records import (CaveatNote, Clause, GradedBatch, NotEvaluated, RateInterval, Reason, SampleResult,
+                                      build_result, condition_inputs, rule_inputs, undecided_from_record)
 from sumpwise.ruleset.model import RuleSet
 
 # Every caveat the engine raises itself, in the order a graded batch's caveat columns hold them.
@@ -106,8 +107,14 @@ def _shape(result: SampleResult, value) -> dict:
         if c.unless_missing:
             caveat["unless_missing"] = list(c.unless_missing)
         caveats.append(caveat)
+    def reading(shown):  # a censored reading's text, or each number of a rate's interval
+        if not isinstance(shown, RateInterval):
+            return value(shown)
+        return {key: [value(v) for v in item] if isinstance(item, list) else value(item)
+                for key, item in shown.to_record().items()}
+
     shape = {"grade": result.grade, "level": result.level, "reasons": reasons, "caveats": caveats,
-             "not_evaluated": [[n.rule, list(n.missing)] + ([[[name, value(written)] for name, written in n.undecided]]
+             "not_evaluated": [[n.rule, list(n.missing)] + ([[[name, reading(shown)] for name, shown in n.undecided]]
                                                             if n.undecided else [])
                                for n in result.not_evaluated]}
     if result.unrated_because is not None:
@@ -136,13 +143,50 @@ def values_text(values: list) -> str:
     return json.dumps(values, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
 
 
-def record_names(batch: GradedBatch) -> dict:
-    """The names a batch's records carry beyond the shape: kept once a batch by the ledger."""
-    return {"values": list(batch.value_columns), "derived": list(batch.derived_columns), "oil_changed": True}
+def record_names(batch: GradedBatch, from_content=()) -> dict:
+    """The names a batch's records carry beyond the shape: kept once a batch by the ledger.
+
+    `from_content` names the record values the ledger reads back from the sample's stored
+    input values instead of storing them again (see same_as_stored): each value once."""
+    names = {"values": list(batch.value_columns), "derived": list(batch.derived_columns), "oil_changed": True}
+    if from_content:
+        names["from_content"] = [name for name in batch.value_columns if name in from_content]
+    return names
+
+
+def _tail_values(names: dict) -> list[str]:
+    """The record values a values array holds: those not read back from the sample's stored values."""
+    in_content = set(names.get("from_content", ()))
+    return [name for name in names.get("values", ()) if name not in in_content]
+
+
+def same_as_stored(batch: GradedBatch, frame: pd.DataFrame, name: str) -> np.ndarray:
+    """Each row's record value of `name` is exactly the number the sample's stored input values
+    hold (frame: the samples as the ledger stores them, row for row with the batch): no censored
+    spelling, no -0.0 (a record says 0.0), not a value derived from a spectrum. Where every row
+    holds, the ledger need not store the value twice; replay checks it holds again."""
+    n = len(batch)
+    numbers = batch.columns.number(name)
+    numbers = np.full(n, np.nan) if numbers is None else numbers
+    if name in frame.columns:
+        column = frame[name]
+        if column.dtype.kind not in "fiu" and pd.api.types.infer_dtype(column, skipna=True) not in (
+                "floating", "integer", "mixed-integer-float", "empty"):
+            return np.zeros(n, dtype=bool)  # text or flags: stored as such, not as the record's number
+        stored = pd.to_numeric(column, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    else:
+        stored = np.full(n, np.nan)
+    finite = np.isfinite(stored)
+    same = np.where(finite, stored == numbers, ~np.isfinite(numbers))  # missing and infinite: null in both
+    same &= ~(finite & (stored == 0) & np.signbit(stored))
+    written = batch.columns.written(name)
+    if written is not None:
+        same &= pd.isna(written)
+    return same
 
 
 def _tail(names: dict, values: dict, derived: dict, oil_changed: bool) -> list:
-    tail = [_plain(values.get(name)) for name in names.get("values", ())]
+    tail = [_plain(values.get(name)) for name in _tail_values(names)]
     tail += [_plain(derived.get(name)) for name in names.get("derived", ())]
     return tail + ([bool(oil_changed)] if names.get("oil_changed") else [])
 
@@ -263,7 +307,7 @@ def batch_facts(batch: GradedBatch, names: dict | None = None) -> BatchFacts:
     """
     n = len(batch)
     names = record_names(batch) if names is None else names
-    tail = [_Slot("number", name) for name in list(names.get("values", ())) + list(names.get("derived", ()))]
+    tail = [_Slot("number", name) for name in _tail_values(names) + list(names.get("derived", ()))]
     tail += [_Slot("flag", "oil_changed")] if names.get("oil_changed") else []
     first, group = _shape_groups(batch) if n else (np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp))
     spelled: dict = {}  # (kind, name) -> (codes, texts): a column's literal in row i is texts[codes[i]]
@@ -319,6 +363,9 @@ def _joined(pieces: list, n: int) -> np.ndarray:
 def _filled(item, values: list):
     if isinstance(item, dict) and set(item) == {SLOT}:
         return values[item[SLOT]]
+    if isinstance(item, dict):  # a rate's interval: each number its slot
+        return {key: [_filled(v, values) for v in part] if isinstance(part, list) else _filled(part, values)
+                for key, part in item.items()}
     return item
 
 
@@ -333,12 +380,13 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
     its row is None (a ledger keeps no row of a graded sample) and its forecasts None (none
     are stored; `report --db` re-grades a unit's samples for them).
     """
-    value_names, derived_names = list(names.get("values", ())), list(names.get("derived", ()))
+    kept, derived_names = _tail_values(names), list(names.get("derived", ()))
     oil_changed = bool(values[-1]) if names.get("oil_changed") else False
     end = len(values) - (1 if names.get("oil_changed") else 0)
-    start = end - len(value_names) - len(derived_names)
-    recorded = tuple(zip(value_names, values[start:start + len(value_names)]))
-    derived = tuple((name, _number(value)) for name, value in zip(derived_names, values[start + len(value_names):end]))
+    start = end - len(kept) - len(derived_names)
+    tail = dict(zip(kept, values[start:start + len(kept)]))
+    recorded = tuple((name, tail[name] if name in tail else sample.get(name)) for name in names.get("values", ()))
+    derived = tuple((name, _number(value)) for name, value in zip(derived_names, values[start + len(kept):end]))
     class_name = sample.get("class")
     rules = {rule.id: rule for rule in ruleset.rules_for(class_name)} if class_name in ruleset.classes else {}
     caveats = {caveat.id: caveat for caveat in ruleset.caveats}
@@ -366,7 +414,8 @@ def result_from_facts(shape: dict, values: list, sample: dict, ruleset: RuleSet,
         lubricant=_text(sample.get("lubricant")), sampled_on=_text(sample.get("sampled_on")),
         grade=shape["grade"], level=shape["level"], reasons=tuple(reasons), caveats=tuple(notes),
         not_evaluated=tuple(NotEvaluated(gap[0], tuple(gap[1]),
-                                         tuple((name, _filled(shown, values)) for name, shown in gap[2])
+                                         tuple((name, undecided_from_record(_filled(shown, values)))
+                                               for name, shown in gap[2])
                                          if len(gap) > 2 else ()) for gap in shape["not_evaluated"]),
         notice=ruleset.notice, ruleset_id=ruleset.id, ruleset_version=ruleset.version,
         ruleset_sha256=ruleset.sha256, engine=engine, unrated_because=shape.get("unrated_because"),

@@ -7,7 +7,7 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from sumpwise.evaluation.evaluator import (BOUND_CAVEATS, COVERAGE_CAVEATS, NOT_APPLICABLE, bound_notes, coverage_notes,
+from sumpwise.evaluation.evaluator import (BOUND_CAVEATS, COVERAGE_CAVEATS, bound_notes, coverage_notes,
                                            evaluate)
 from sumpwise.derive.row_measures import LUBRICANT_CAVEATS, derive_measures
 from sumpwise.vocabulary.measures import INPUT_MEASURES
@@ -19,7 +19,7 @@ from sumpwise.intake.samples import ColumnMap, SampleBatch, validate_samples
 from sumpwise.intake.sample_spectra import SPECTRUM_COLUMNS, convention_notes, spectrum_caveat_flags
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
-from sumpwise.derive.trends import (CHAIN_COLUMNS, add_trend_measures, date_keys, noise_margins, noise_notes,
+from sumpwise.derive.trends import (CHAIN_COLUMNS, add_trend_measures, date_keys, noise_margins,
                                     read_oil_changes, trend_bases, trend_caveat_flags)
 from sumpwise.vocabulary.problems import InputError
 
@@ -45,10 +45,6 @@ def grade_batch(batch: SampleBatch, ruleset: RuleSet, history: pd.DataFrame | No
     measured = pd.concat([measured.drop(columns=[c for c in added if c in measured.columns]),
                           pd.DataFrame(added, index=measured.index)], axis=1)  # one insert, not many
     outcome = evaluate(ruleset, measured)
-    said = noise_notes(measured, [slot.rule.reads for slot in outcome.slots], (outcome.final == 0)
-                       | (outcome.final == NOT_APPLICABLE))  # why a rate within the noise margin decided nothing
-    if said:
-        measured = pd.concat([measured, pd.DataFrame(said, index=measured.index, dtype=object)], axis=1)
     notes = {**coverage_notes(ruleset, measured, outcome), **bound_notes(ruleset, measured, outcome)}
     measured = pd.concat([measured, pd.DataFrame(notes, index=measured.index, dtype=object)], axis=1)  # text or None: no str inference
     engine_caveats = LUBRICANT_CAVEATS + COVERAGE_CAVEATS + BOUND_CAVEATS

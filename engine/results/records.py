@@ -13,6 +13,10 @@ Format 3 added `origin` (the file and row a sample came from, spelt as the rejec
 spells them), `iso4406` (the cleanliness code as the lab wrote it, or null) and `forecasts`
 (the engine's forecasts made from this sample: see `forecast_rows`).
 A reader of records takes format 2 records too: they lack those keys.
+
+Format 4 gives a rate left undecided by a step within its noise margin as numbers (its rate,
+the interval the two readings allow, the step, the margin and the hours: RateInterval)
+where format 3 gave a sentence; a censored reading stays the text the lab wrote.
 """
 
 from __future__ import annotations
@@ -25,14 +29,14 @@ import pandas as pd
 
 from sumpwise.version import engine_name
 from sumpwise.intake.censored import WRITTEN_SUFFIX
-from sumpwise.derive.trends import NOISE_SUFFIX
+from sumpwise.derive.trends import MARGIN_SUFFIX
 from sumpwise.evaluation.evaluator import NOT_EVALUATED, Outcome
 from sumpwise.vocabulary.measures import DERIVED_MEASURES, KNOWN_FIELDS, measure_needs
 from sumpwise.ruleset.model import LadderRule, NextStep, RuleSet, condition_measures, leaves
 
 UNRATED = "unrated"
 
-FORMAT = 3  # the record's format version; it grows when a record gains or loses a key
+FORMAT = 4  # the record's format version; it grows when a record gains or loses a key, or a value its type
 FULL, COMPACT = "full", "compact"
 FORMS = (FULL, COMPACT)
 
@@ -134,18 +138,48 @@ def next_step_from_record(record: dict | None) -> NextStep | None:
 
 
 @dataclass(frozen=True)
+class RateInterval:
+    """A rate whose step lies within its measure's noise margin (derive.trends): the rate, the
+    interval of rates the two readings allow (step -/+ margin over the hours), and what that
+    interval comes from. A limit inside the interval is undecided by it."""
+
+    rate: object
+    low: object
+    high: object
+    step: object
+    margin: object
+    hours: object
+
+    def to_record(self) -> dict:
+        return {"rate": self.rate, "interval": [self.low, self.high], "step": self.step, "margin": self.margin,
+                "hours": self.hours}
+
+    @classmethod
+    def from_record(cls, record: dict) -> "RateInterval":
+        low, high = record["interval"]
+        return cls(record["rate"], low, high, record["step"], record["margin"], record["hours"])
+
+
+def undecided_from_record(shown):
+    """An undecided reading as a record holds it: a censored reading's text, or a rate's interval."""
+    return RateInterval.from_record(shown) if isinstance(shown, dict) else shown
+
+
+@dataclass(frozen=True)
 class NotEvaluated:
-    """A rule not evaluated: the inputs it had no number for, and of those the censored
-    readings (as written) that did not decide it (`<50` against `above 20`)."""
+    """A rule not evaluated: the inputs it had no number for, and the readings that did not
+    decide it: a censored reading as written (`<50` against `above 20`), or a rate from a step
+    within the noise margin whose interval holds the limit (a RateInterval)."""
 
     rule: str
     missing: tuple
-    undecided: tuple = ()  # (measure, reading as written)
+    undecided: tuple = ()  # (measure, reading as written or RateInterval)
 
     def to_record(self, form: str = FULL) -> dict:
         record = {"rule": self.rule, "missing": list(self.missing)}
         if self.undecided:
-            record["undecided"] = dict(self.undecided)
+            record["undecided"] = {name: shown.to_record() if isinstance(shown, RateInterval) else shown
+                                   for name, shown in self.undecided}
         return record
 
 
@@ -441,8 +475,8 @@ def gap_at(batch: GradedBatch, i: int, j: int, values=None) -> NotEvaluated:
                        else values.number(name, i))  # a number's censored spelling
                       for name in rule_inputs(rule)
                       if (written := batch.columns.written(name)) is not None and written[i] is not None)
-    undecided += tuple((name, values.text(name + NOISE_SUFFIX, i)) for name in _noisy(batch, rule)
-                       if batch.columns.text(name + NOISE_SUFFIX)[i] is not None)
+    undecided += tuple((name, _rate_interval(name, i, values)) for name in _noisy(batch, rule)
+                       if _within_noise(batch, name)[i])
     missing = [name for name in rule_inputs(rule) if _is_missing(batch, name, i)]
     if not missing and not undecided:  # every input is there: a measure derived from them is undefined (VI of kv100 below 2)
         missing = ([rule.measure] if isinstance(rule, LadderRule) else
@@ -454,7 +488,18 @@ def _noisy(batch: GradedBatch, rule) -> list[str]:
     """The measures the rule tests that may carry an interval beside their number (a rate from a
     step within the noise margin, derive.trends): undecided by it, the record says why."""
     tested = [rule.measure] if isinstance(rule, LadderRule) else _condition_measures(rule)
-    return [name for name in tested if batch.columns.text(name + NOISE_SUFFIX) is not None]
+    return [name for name in tested if batch.columns.number(name + MARGIN_SUFFIX) is not None]
+
+
+def _within_noise(batch: GradedBatch, name: str) -> np.ndarray:
+    """The rows whose rate `name` comes from a step within the noise margin (it has a margin)."""
+    return ~np.isnan(batch.columns.number(name + MARGIN_SUFFIX))
+
+
+def _rate_interval(name: str, i: int, values) -> RateInterval:
+    base = name[: -len("_step_per_1000h")]
+    return RateInterval(*(values.number(column, i) for column in (name, name + ":low", name + ":high", base + "_step",
+                                                                  name + MARGIN_SUFFIX, "hours_since_previous")))
 
 
 def _condition_measures(rule) -> list[str]:
@@ -470,7 +515,7 @@ def gap_states(batch: GradedBatch, j: int, rows: np.ndarray) -> list[np.ndarray]
     names = rule_inputs(rule)
     columns = [batch.columns.missing(name)[rows] for name in names + _condition_measures(rule)]
     columns += [pd.notna(written[rows]) for name in names if (written := batch.columns.written(name)) is not None]
-    columns += [pd.notna(batch.columns.text(name + NOISE_SUFFIX)[rows]) for name in _noisy(batch, rule)]
+    columns += [_within_noise(batch, name)[rows] for name in _noisy(batch, rule)]
     return columns or [np.zeros(len(rows), dtype=bool)]
 
 

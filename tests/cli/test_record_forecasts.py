@@ -51,7 +51,7 @@ def _listed(html: str) -> dict:
 
 def test_each_forecast_is_on_the_record_of_the_sample_it_was_made_from(demo):
     records = demo["records"]
-    assert {r["format"] for r in records} == {3}
+    assert {r["format"] for r in records} == {4}
     carried = [(r, f) for r in records for f in r["forecasts"]]
     assert len(carried) >= 5  # the demo year's rising units (scenarios/brackwater/README.md)
     by_unit: dict = {}
@@ -163,7 +163,7 @@ def test_records_rebuilt_from_the_ledger_say_what_it_holds(demo):
     assert len(results) == len(written)
     for result in results:
         record = json.loads(dumps(result.to_record()))
-        assert record["format"] == 3 and record["forecasts"] is None
+        assert record["format"] == 4 and record["forecasts"] is None
         assert record["origin"] == {"file": written[record["sample_id"]]["origin"]["file"], "row": None}
         assert record["iso4406"] == written[record["sample_id"]]["iso4406"]
     assert any(r["iso4406"] for r in written.values())

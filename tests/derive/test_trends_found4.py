@@ -19,6 +19,8 @@ import pandas as pd
 import pytest
 
 import sumpwise
+from sumpwise.render.narrative import gap_phrase
+from sumpwise.results.records import RateInterval
 from conftest import DATA, run_cli
 from result_views import caveats_of, fired, unevaluated
 
@@ -139,8 +141,13 @@ def test_a_resample_within_the_noise_margin_is_no_rate_alert():
     gap = {n.rule: n for n in resample.not_evaluated}["iron-rate"]
     # the record says why: the rate, the interval the two readings allow and the margin
     assert gap.missing == ()
-    assert gap.undecided == (("iron_step_per_1000h",
-                              "100, [0, 200] from a step of 2 within its noise margin of 2 over 20 h"),)
+    assert gap.undecided == (("iron_step_per_1000h", RateInterval(rate=100.0, low=0.0, high=200.0, step=2.0,
+                                                                  margin=2.0, hours=20.0)),)
+    assert gap.to_record()["undecided"] == {"iron_step_per_1000h": {"rate": 100.0, "interval": [0.0, 200.0],
+                                                                    "step": 2.0, "margin": 2.0, "hours": 20.0}}
+    assert gap_phrase(gap.rule, gap.missing, gap.undecided) == (
+        "iron-rate: iron_step_per_1000h 100, [0, 200] from a step of 2 within its noise margin of 2 over 20 h "
+        "does not decide it")
     assert caveats_of(resample) == ["grade-may-be-higher"]
     assert "may be above its alert limit (40)" in resample.caveats[0].message
     out = graded.measured.set_index("sample_id")
@@ -159,8 +166,8 @@ def test_acid_number_rates_within_the_d664_repeatability():
     resample = graded.find("B-703")
     assert resample.grade == "normal" and fired(resample) == set()
     assert {n.rule: n.undecided for n in resample.not_evaluated}["acid-rate"] == (
-        ("an_step_per_1000h", "0.2, [-0.0574, 0.4574] from a step of 0.02 within its noise margin of 0.02574 "
-                              "over 100 h"),)
+        ("an_step_per_1000h", RateInterval(rate=0.2, low=-0.0574, high=0.4574, step=0.02, margin=0.02574,
+                                           hours=100.0)),)
     assert caveats_of(resample) == ["grade-may-be-higher"]
     # 0.23 -> 0.30 over 500 h: a step of 0.07 beyond r = 0.031 is a change; 0.14 per 1000 h fires
     risen = graded.find("B-704")

@@ -14,7 +14,7 @@ import sqlite3
 import pytest
 
 import sumpwise
-from sumpwise.ledger.audit import explain_from_ledger, replay, unit_history
+from sumpwise.ledger.audit import explain_from_ledger, replay, stored_results, unit_history
 from sumpwise.ledger.store import SCHEMA_VERSION, Correction, LedgerError, grade_into_ledger, migrate, open_ledger
 from sumpwise.render.jsonl import jsonl_lines
 from tests.conftest import DATA
@@ -358,3 +358,68 @@ def test_without_hard_links_a_new_ledger_is_recorded_in_place(tmp_path, ruleset,
     assert (recorded.batch, recorded.new) == (1, 9) and _files(tmp_path) == ["l.db"]
     assert _count(tmp_path / "l.db") == 9
     assert replay(tmp_path / "l.db").differences == ()
+
+
+def test_record_values_the_sample_holds_are_read_back_not_stored_twice(tmp_path, ruleset):
+    # Each value once: a record value equal to the sample's stored input is left out of the
+    # verdict's values and read back from the sample; a censored reading (kept as the lab wrote
+    # it) stays with the verdict. Reference: the records `grade` writes for the same file.
+    text = SAMPLES.read_text().replace("T-04,ST-1,steam-turbine,TEST-46,2026-04-05,3000,47.5,0.21,13.0",
+                                       "T-04,ST-1,steam-turbine,TEST-46,2026-04-05,3000,47.5,<0.05,13.0")
+    db = tmp_path / "l.db"
+    graded, _ = grade_into_ledger(db, _batch(text), ruleset)
+    with sqlite3.connect(db) as conn:
+        names, = conn.execute("SELECT value_names FROM batches").fetchone()
+        vals = dict(conn.execute("SELECT sample_id, vals FROM samples").fetchall())
+    names = json.loads(names)
+    assert names["values"] == ["kv40", "an", "oxidation", "oil_hours", "oxidation_differential"]
+    # `an` holds `<0.05` in T-04; T-05's carbonyl is read by subtraction, so the record gives it as
+    # oxidation_differential, not as the stored `oxidation`: both stay with the verdict
+    assert names["from_content"] == ["kv40", "oil_hours"]
+    # T-09's array ends with an, oxidation, oxidation_differential, its derived values and the flag
+    assert json.loads(vals["T-09"])[-len(names["derived"]) - 4:-len(names["derived"]) - 1] == [0.09, 2.5, None]
+    assert 46.1 not in json.loads(vals["T-09"]) and 1300.0 not in json.loads(vals["T-09"])
+    stored, _ = stored_results(db)
+    assert [r.values for r in stored] == [r.values for r in graded.results()]
+    assert dict(stored[3].values)["an"] == "<0.05"
+    assert not replay(db).failed(strict=True)
+
+
+def test_replay_says_when_the_engine_reads_a_read_back_value_otherwise(tmp_path, ruleset, monkeypatch):
+    # The values the ledger reads back from the sample are checked again at replay: an engine
+    # that read the stored kv40 otherwise (here: one that halves it before grading) is not silent.
+    db = tmp_path / "l.db"
+    grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
+    from sumpwise.ledger import audit
+    real = audit.grade_batch
+
+    def halving(batch, *args, **kwargs):
+        graded = real(batch, *args, **kwargs)
+        graded.measured["kv40"] = graded.measured["kv40"] / 2
+        graded.columns._numbers.pop("kv40", None)
+        return graded
+
+    monkeypatch.setattr(audit, "grade_batch", halving)
+    report = replay(db)
+    assert report.failed()
+    said = [d for d in report.differences if "reads back from its stored input values" in d.what]
+    assert len(said) == 9
+
+
+def test_a_rate_within_the_noise_margin_is_stored_as_numbers_and_explained_in_words(tmp_path):
+    # HPU-3 resampled a day later: iron 9 -> 11 ppm over 20 h, within the rule set's 2 ppm margin
+    # (tests/derive/test_trends_found4.py). The ledger keeps the rate's interval as the record's
+    # numbers, not a sentence, and `explain` words it from them.
+    found = DATA / "derive_found4"
+    db = tmp_path / "l.db"
+    graded, _ = grade_into_ledger(db, sumpwise.read_samples(found / "resample.csv"),
+                                  sumpwise.load_ruleset(found / "rules.yaml"))
+    with sqlite3.connect(db) as conn:
+        vals, = conn.execute("SELECT vals FROM samples WHERE sample_id = 'B-603'").fetchone()
+    # after the grade-may-be-higher caveat's message: rate, interval, step, margin, hours
+    assert "from a step of" not in vals and json.loads(vals)[1:7] == [100.0, 0.0, 200.0, 2.0, 2.0, 20.0]
+    stored, _ = stored_results(db)
+    assert [r.not_evaluated for r in stored] == [r.not_evaluated for r in graded.results()]
+    story = " ".join(" ".join(explain_from_ledger(db, "B-603")).split())  # unwrapped
+    assert "iron_step_per_1000h 100, [0, 200] from a step of 2 within its noise margin of 2 over 20 h" in story
+    assert not replay(db).failed(strict=True)

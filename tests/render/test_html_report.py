@@ -644,3 +644,26 @@ def test_a_sample_graded_on_less_than_it_should_is_in_the_report_even_when_not_l
     assert rows, "U1 is not in ST-1's table of earlier samples"
     text = " ".join(tree.text)
     assert "unknown-lubricant" in text and "1 sample(s) with caveat unknown-lubricant" in text
+
+
+def test_a_noisy_rate_is_worded_from_the_records_numbers_in_format_4_and_kept_as_said_in_format_3(tmp_path):
+    # The resample fixture (tests/data/derive_found4, invented): B-603's iron rate 100 per 1000 h
+    # from a step of 2 ppm within its 2 ppm margin. A format-4 record holds the interval as numbers;
+    # the report words them as explain does. A format-3 record (0.6.0) held the sentence itself.
+    found = ROOT / "tests/data/derive_found4"
+    results, report, samples = tmp_path / "results.jsonl", tmp_path / "report.html", tmp_path / "upto-b603.csv"
+    samples.write_text("".join((found / "resample.csv").read_text().splitlines(keepends=True)[:4]))  # B-603 latest
+    assert cli("grade", samples, "--rules", found / "rules.yaml", "--out", results)[0] == 0
+    records = [json.loads(line) for line in results.read_text().splitlines()]
+    (gap,) = [g for r in records if r["sample_id"] == "B-603" for g in r["not_evaluated"] if g["rule"] == "iron-rate"]
+    assert gap["undecided"] == {"iron_step_per_1000h": {"rate": 100.0, "interval": [0.0, 200.0], "step": 2.0,
+                                                        "margin": 2.0, "hours": 20.0}}
+    sentence = "iron_step_per_1000h 100, [0, 200] from a step of 2 within its noise margin of 2 over 20 h"
+    for rewrite in (lambda r: r, lambda r: {**r, "format": 3, "not_evaluated": [
+            {**g, "undecided": {"iron_step_per_1000h": sentence.split(" ", 1)[1]}} if g.get("undecided") else g
+            for g in r["not_evaluated"]]}):
+        results.write_text("".join(json.dumps(rewrite(r)) + "\n" for r in records))
+        assert cli("report", "--results", results, "--rules", found / "rules.yaml", "--out", report)[0] == 0
+        tree = _Tree()
+        tree.feed(report.read_text())
+        assert sentence + " does not decide it" in " ".join(" ".join(tree.articles["B-603"]).split())

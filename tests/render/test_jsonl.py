@@ -146,7 +146,7 @@ def test_compact_records_are_the_same_bytes_across_processes(tmp_path):
         outputs.append(target.read_bytes())
     assert outputs[0] == outputs[1]
     first = json.loads(outputs[0].splitlines()[0])
-    assert first["format"] == 3 and first["form"] == "compact" and "notice" not in first
+    assert first["format"] == 4 and first["form"] == "compact" and "notice" not in first
 
 
 def test_the_record_option_names_a_json_lines_form():

@@ -50,7 +50,7 @@ def test_records_have_a_format_and_a_fixed_key_order_per_form():
     graded = grade(read_samples(SAMPLES), load_ruleset(SITE))
     result = graded.find("BP-0013")
     full, compact = (list(result.to_record(form)) for form in ("full", "compact"))
-    assert full[:3] == ["format", "form", "sample_id"] and result.to_record()["format"] == 3
+    assert full[:3] == ["format", "form", "sample_id"] and result.to_record()["format"] == 4
     assert full == ["format", "form", "sample_id", "unit_id", "class", "lubricant", "sampled_on", "origin",
                     "oil_changed", "values", "iso4406", "derived", "method", "spectrum", "reference_spectrum",
                     "grade", "level", "reasons", "caveats", "not_evaluated", "forecasts", "notice", "ruleset",
