@@ -41,16 +41,19 @@ _LABELS = {
         "total", "sum", "subtotal", "grand total",
         "mittelwert", "durchschnitt", "summe", "anzahl", "gesamt", "standardabweichung", "stabw", "std. abw.",
         "moyenne", "somme", "nombre", "écart type", "écart-type", "promedio", "media", "suma",
-        "desviación estándar"),
+        "desviación estándar", "std deviation", "standard dev", "avg value", "median value", "max value",
+        "maximum value", "min value", "minimum value", "percentile"),
     "a limit": (
         "limit", "limits", "limit value", "alarm limit", "warning limit", "caution limit",
         "critical limit", "action limit", "condemning limit", "upper limit",
         "lower limit", "ucl", "lcl", "usl", "lsl", "spec", "specification", "spec limit", "target",
+        "threshold", "alert level", "warning level", "alarm level", "action level",
         "grenzwert", "warngrenze", "limite", "límite"),
     "a reference value": (
         "typical", "typical new oil", "typical values", "typical value", "new oil", "new oil typical",
         "fresh oil", "reference", "reference oil", "reference value", "baseline", "new oil baseline",
-        "frischöl", "neuöl", "huile neuve", "aceite nuevo"),
+        "frischöl", "neuöl", "huile neuve", "aceite nuevo", "typical new", "new oil value", "new oil reference",
+        "fresh oil reference"),
 }
 # Page footers and report lines a printed export repeats (`Page 1 of 3`, `Printed on 2026-03-02
 # by ...`, `End of report`): patterns, not labels, since they carry numbers. Looked for only on
@@ -87,11 +90,24 @@ SUMMARY_LABELS = {label_key(label): what for what, labels in _LABELS.items() for
 _ELSEWHERE = {key: what for key, what in SUMMARY_LABELS.items() if key not in _ID_ONLY}
 
 
+# A sample id without a digit that names a limit by its last word (`Alert limit`, `Reject limit`,
+# `Upper warning limit`, `Action level`), or a percentile (`95th percentile`): a limit or a
+# statistic line, as no sample id is (common practice, no source).
+_LIMIT_WORDS = re.compile(r"\D*\b(?:limits?|levels?|thresholds?)", re.IGNORECASE)
+_PERCENTILE = re.compile(r"\d{1,2}(?:st|nd|rd|th)? ?percentile|percentile ?\d{1,2}", re.IGNORECASE)
+
+
 def id_label(cell) -> str | None:
-    """What a sample id says its row is when it is a label, or a numbered one (`Average 2`), else None."""
-    kind = SUMMARY_LABELS.get(label_key(cell))
-    if kind is None and (numbered := _NUMBERED.fullmatch(str(cell).strip())):
+    """What a sample id says its row is when it is a label, a numbered one (`Average 2`), a limit
+    named by its last word or a percentile, else None."""
+    text = str(cell).strip()
+    kind = SUMMARY_LABELS.get(label_key(text))
+    if kind is None and (numbered := _NUMBERED.fullmatch(text)):
         kind = _ELSEWHERE.get(label_key(numbered.group("label")))
+    if kind is None and _LIMIT_WORDS.fullmatch(_BRACKETED_TAIL.sub("", text).rstrip(" .:")):
+        kind = "a limit"
+    if kind is None and _PERCENTILE.fullmatch(_BRACKETED_TAIL.sub("", text).rstrip(" .:")):
+        kind = "a statistic over other rows"
     return kind
 # Columns that hold a closed vocabulary or a flag, where no label is looked for.
 _NOT_LABELS = ("sample_id", "oil_changed", "method", "base_stock", "iso4406", "spectrum")

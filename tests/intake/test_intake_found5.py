@@ -339,3 +339,23 @@ def test_a_row_whose_unit_column_says_ppm_keeps_its_reading_from_10_to_100(tmp_p
     got, err = _graded(path, "--rules", HYDRAULIC)
     assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (4, "D018", "water")]
     assert set(got) == {"HY-2026-1033"} and got["HY-2026-1033"]["values"]["water"] == 45
+
+
+@pytest.mark.parametrize("cell", ["Alert limit", "Reject limit", "Upper warning limit", "Action level", "Threshold",
+                                  "Std. deviation", "Median value", "Maximum value", "95th percentile",
+                                  "New oil value", "Typical new"])
+def test_limit_and_statistic_lines_named_as_labs_name_them_are_rejected(tmp_path, cell):
+    # A limit line named by its last word (`Alert limit`), a statistic or a reference named with its
+    # noun (`Median value`, `Typical new`), with the unit and a date. Was: graded as a sample of HPU-1
+    # (the 450 ppm of a limit line watch, above 200 in hydraulic.yaml). Now D019 (common practice, no source).
+    path = tmp_path / "limits.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
+                    "HY-2026-1041,HPU-1,hydraulic,HYD-46-M,2026-11-02,120\n"
+                    f"{cell},HPU-1,hydraulic,HYD-46-M,2026-11-02,450\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert _rejects(err) == [(2, "D019", "sample_id")] and set(got) == {"HY-2026-1041"}
+
+
+@pytest.mark.parametrize("cell", ["Limit switch gearbox", "P1", "P95", "Speed 2 GB", "HPU-1 Level gauge 3"])
+def test_ids_that_end_or_begin_otherwise_stay_samples(cell):
+    assert summary_rows.id_label(cell) is None
