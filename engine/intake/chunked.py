@@ -27,6 +27,8 @@ DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
 _BATCH_CHARS = 1 << 22  # lines read at a time while looking for a chunk's end
 _SEEN_AT = re.compile(r"^(sample id '.*' already seen at row )(\d+)$", re.S)
 _UNDER = re.compile(r"^(read under the header line at row )(-?\d+)(,.*)$", re.S)  # a D020 naming its header line
+# A water reading rejected beside the readings that give its column away names the first one's row.
+_BESIDE_ROW = re.compile(r"(as percentages \(row )(\d+)\)")
 
 
 def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
@@ -158,6 +160,8 @@ def _moved(batch: SampleBatch, offset: int) -> SampleBatch:
         under = _UNDER.match(r.reason) if r.code == "D020" else None
         if under:
             reason = f"{under.group(1)}{int(under.group(2)) + offset}{under.group(3)}"
+        if r.code == "D018":  # the row of a percentage beside it, named in the reason
+            reason = _BESIDE_ROW.sub(lambda m: f"{m.group(1)}{int(m.group(2)) + offset})", reason)
         rejects.append(replace(r, row=r.row + offset, reason=reason))
     moved = batch.layout_break and (batch.layout_break[0] + offset, batch.layout_break[1])
     return replace(batch, frame=frame, rejects=tuple(rejects), layout_break=moved)

@@ -359,3 +359,14 @@ def test_limit_and_statistic_lines_named_as_labs_name_them_are_rejected(tmp_path
 @pytest.mark.parametrize("cell", ["Limit switch gearbox", "P1", "P95", "Speed 2 GB", "HPU-1 Level gauge 3"])
 def test_ids_that_end_or_begin_otherwise_stay_samples(cell):
     assert summary_rows.id_label(cell) is None
+
+
+def test_a_chunk_names_the_percentage_beside_a_reading_by_its_row_in_the_file():
+    # Read two rows at a time: the 12 (row 3) is rejected beside the 0.02 of row 4, the same chunk.
+    # Was: the reason named "row 2", the row within the chunk (the row of another sample).
+    run = run_cli("grade", FOUND / "water-percent-mixed.csv", "--rules", HYDRAULIC,
+                  "--columns", FOUND / "water-percent-mixed.yaml", "--chunk-rows", 2)
+    assert run.code == 0 and _rejects(run.err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
+                                                   (4, "D018", "water")]
+    (line,) = [line for line in run.err.splitlines() if ": row 3 (" in line]
+    assert "as percentages (row 4)" in line
