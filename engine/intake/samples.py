@@ -73,6 +73,7 @@ class SampleBatch:
     source: str
     notes: tuple = ()  # what the reader detected or left unused, said once on standard error
     layout_break: tuple | None = None  # (row, columns moved) of a header line in another layout still in force
+    percent_water: int | None = None  # the row of a water reading that read as a percentage (for later chunks)
     more: bool | None = None  # a chunk of a file: whether the file goes on after it (None: not known)
 
     @property
@@ -81,12 +82,13 @@ class SampleBatch:
 
 
 def read_samples(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
-                 numeric: tuple = (), layout_break: tuple | None = None) -> SampleBatch:
+                 numeric: tuple = (), layout_break: tuple | None = None,
+                 percent_water: int | None = None) -> SampleBatch:
     """Read samples from a path or a stream; `fmt` is csv, jsonl or xlsx (guessed from the name).
 
     A file and the same bytes on a stream give the same rows, numbers and rejects.
-    `numeric` names extra numeric columns (measures a rule set declares); `layout_break` is for a
-    chunk of a file (validate_samples).
+    `numeric` names extra numeric columns (measures a rule set declares); `layout_break` and
+    `percent_water` are for a chunk of a file (validate_samples).
     """
     if isinstance(source, (str, Path)):
         name = name or str(source)
@@ -121,7 +123,7 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes,
-                            layout_break=layout_break)
+                            layout_break=layout_break, percent_water=percent_water)
 
 
 def lab_numeric_columns(columns: ColumnMap, numeric: tuple = ()) -> set:
@@ -158,13 +160,15 @@ def unused_columns_note(unused: list, unread: set) -> str:
 
 def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: ColumnMap, numeric: tuple = (),
                      rows: np.ndarray | None = None, notes=(), layout_break: tuple | None = None,
+                     percent_water: int | None = None,
                      today: dt.date | None = None) -> SampleBatch:
     """Map, convert and check rows; pure apart from its arguments and the day it runs (`today`,
     read from the clock when not given: a sampling date far after it is a slip in the year).
 
     `skipped` holds (row, reason[, code[, field]]) of rows the reader could not use; `rows` the row
     number of each frame row (1, 2, ... when not given); `layout_break` a header line in another
-    layout that an earlier part of the file left in force (see header_lines.py).
+    layout that an earlier part of the file left in force (see header_lines.py); `percent_water`
+    the row (in this part's numbering) of a water reading an earlier part read as a percentage.
     """
     columns = columns or ColumnMap()
     skipped = [(*s, *("D001", "(row)")[len(s) - 2:]) for s in skipped]  # code and field where not given
@@ -356,14 +360,19 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
                 stated = np.array([named_unit(column, str(cell), whole=True) == "ppm" for cell in spellings] + [False],
                                   dtype=bool)[codes]
             scale = _percent_sized(values, censored, held, text, bad,
-                                   named_unit("water", labs.get(column, column)) == "ppm", percent, stated)
+                                   named_unit("water", labs.get(column, column)) == "ppm", percent, stated,
+                                   percent_water is not None)
             if scale is not None:
-                tiny, low, ambiguous, first = scale
-                lab, row = labs.get(column, column), int(raw.index[first])
+                tiny, low, ambiguous, first, strong = scale
+                row = int(raw.index[first]) if first is not None else percent_water
+                if percent_water is None and strong:
+                    percent_water = row  # handed on to the file's later chunks
+                lab = labs.get(column, column)
                 said = tiny | low | ambiguous
                 reasons = _found("", raw[column], said, quoted=True)
                 reasons[tiny] += _BELOW_KARL_FISCHER.format(lab=lab)
-                reasons[low] += (_BESIDE_PERCENTAGES if tiny.any() else _NO_PPM_BESIDE).format(lab=lab, row=row)
+                reasons[low] += (_BESIDE_PERCENTAGES if strong or first is None else _NO_PPM_BESIDE).format(
+                    lab=lab, row=row)
                 reasons[ambiguous] += _PERCENT_OR_PPM.format(lab=lab, row=row)
                 reject(said, column, reasons, "D018")
         if factor != 1.0:
@@ -439,7 +448,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
     read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
-    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break)
+    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break,
+                       percent_water=percent_water)
 
 
 # Why a water reading between 0 and 1 in a column read in ppm is rejected: no Karl Fischer titration
@@ -454,7 +464,7 @@ _BELOW_KARL_FISCHER = (" ppm is below what a Karl Fischer titration reports (AST
 # percentage, above): 1.5 there is 1.5 % (15,000 ppm, free water) far more likely than 1.5 ppm, which
 # is below what a Karl Fischer titration reports as well; read as ppm, the wettest sample graded normal.
 _BESIDE_PERCENTAGES = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), and "
-                       "column {lab!r} holds readings below 1 ppm that read as percentages (row {row}): a "
+                       "column {lab!r} holds readings that read as percentages (row {row}): a "
                        "percentage too? declare water: {{column: {lab!r}, unit: '%'}} in the column map, or "
                        "correct the export")
 
@@ -478,10 +488,11 @@ _PERCENT_OR_PPM = (" could be ppm or a percentage, and column {lab!r} holds read
 
 def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.ndarray | None,
                    written: pd.Series | None, bad: np.ndarray, header_says_ppm: bool,
-                   signed: np.ndarray | None, stated: np.ndarray) -> tuple | None:
+                   signed: np.ndarray | None, stated: np.ndarray, earlier: bool = False) -> tuple | None:
     """Where a water column read in ppm (no unit declared) reads as percentages: (tiny, low,
-    ambiguous, first), the rows below 1, from 1 to 10 and from 10 to 100 to reject and the first
-    row that gives the column away; None when nothing does. A censored cell counts by the bound
+    ambiguous, first, strong), the rows below 1, from 1 to 10 and from 10 to 100 to reject, the
+    first row that gives the column away (None when an earlier chunk of the file did: `earlier`)
+    and whether a reading below 1 or a percent sign did; None when nothing does. A censored cell counts by the bound
     the lab wrote (`<0.05` ppm is no bound Karl Fischer writes either), an `ND` not: its bound is
     the map's detection limit, not a reading of the column (`written`: the cells as text, stripped).
     Cells written with a percent sign (`signed`, rejected already) give the column away as well.
@@ -503,14 +514,14 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
         tiny = (sized > 0) & (sized < 1)
         below = (sized > 0) & (sized < 10)
         signed = signed if signed is not None and signed.any() else None
-        if not (tiny.any() or signed is not None
-                or (not header_says_ppm and (below & ~stated).any() and not (sized > 100).any())):
+        strong = tiny.any() or signed is not None  # what an earlier chunk hands on too
+        if not (strong or earlier or (not header_says_ppm and (below & ~stated).any() and not (sized > 100).any())):
             return None
         ambiguous = (sized >= 10) & (sized <= 100) & ~stated & (not header_says_ppm)
-    if not tiny.any() and signed is None:  # the column gives itself away by readings below 10 alone
+    if not strong and not earlier:  # the column gives itself away by readings below 10 alone
         below &= ~stated
-    first = tiny if tiny.any() else signed if signed is not None else below
-    return tiny, below & ~tiny, ambiguous, int(np.argmax(first))
+    first = tiny if tiny.any() else signed if signed is not None else None if earlier else below
+    return tiny, below & ~tiny, ambiguous, None if first is None else int(np.argmax(first)), strong
 
 
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:

@@ -370,3 +370,17 @@ def test_a_chunk_names_the_percentage_beside_a_reading_by_its_row_in_the_file():
                                                    (4, "D018", "water")]
     (line,) = [line for line in run.err.splitlines() if ": row 3 (" in line]
     assert "as percentages (row 4)" in line
+
+
+@pytest.mark.parametrize("chunk_rows", [1, 2, 3])
+def test_a_percentage_in_an_earlier_chunk_reaches_the_readings_of_later_ones(chunk_rows):
+    # Read a chunk at a time (as a file over 200,000 rows is), the 12 of row 3 may be alone in its
+    # chunk. Was (one row a chunk): graded normal as 12 ppm, the percentages of rows 1 and 2 in
+    # earlier chunks. Now the file's first percentage is handed on: D018 each, as in one read.
+    run = run_cli("grade", FOUND / "water-percent-mixed.csv", "--rules", HYDRAULIC,
+                  "--columns", FOUND / "water-percent-mixed.yaml", "--chunk-rows", chunk_rows)
+    assert run.code == 0 and run.out == ""
+    assert _rejects(run.err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
+                                 (4, "D018", "water")]
+    (line,) = [line for line in run.err.splitlines() if ": row 3 (" in line]
+    assert re.search(r"as percentages \(row [124]\)", line)
