@@ -11,6 +11,7 @@ from __future__ import annotations
 import datetime as dt
 import difflib
 import itertools
+import re
 
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -149,11 +150,25 @@ def _row_numbers(raw: pd.DataFrame, skipped: list) -> np.ndarray:
     return rows[~np.isin(rows, skipped_rows)][: len(raw)]
 
 
+# Words labs head a measure's column with that spelling alone does not bring near its engine name
+# (`Moisture`, `H2O`, `TBN`, `Visc 40`): hints only, the column is never read on them (ASTM D6304 names
+# water content, D664 and D974 acid number, D2896 base number, D445 kinematic viscosity; the short
+# forms are common practice, no source).
+_TRADE_WORDS = tuple((re.compile(pattern, re.IGNORECASE), name) for pattern, name in (
+    (r"\b(?:moisture|h2o|karl ?fischer|kf)\b", "water"),
+    (r"\b(?:tbn|base ?number)\b", "bn"),
+    (r"\b(?:tan|acid ?number|neutrali[sz]ation ?number)\b", "an"),
+    (r"\b(?:kv|visc\w*|v)\W*40\b", "kv40"),
+    (r"\b(?:kv|visc\w*|v)\W*100\b", "kv100"),
+))
+
+
 def unused_columns_note(unused: list, unread: set) -> str:
     """Columns nobody reads, said once: a misspelt `wter` must not vanish without a word."""
     named = []
     for column in unused:
         near = difflib.get_close_matches(column.lower(), sorted(unread), n=1, cutoff=0.75)
+        near = near or [name for pattern, name in _TRADE_WORDS if name in unread and pattern.search(column)][:1]
         named.append(f"{column} (did you mean {near[0]}?)" if near else column)
     return f"lab columns not used: {', '.join(named)}"
 

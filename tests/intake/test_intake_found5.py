@@ -384,3 +384,20 @@ def test_a_percentage_in_an_earlier_chunk_reaches_the_readings_of_later_ones(chu
                                  (4, "D018", "water")]
     (line,) = [line for line in run.err.splitlines() if ": row 3 (" in line]
     assert re.search(r"as percentages \(row [124]\)", line)
+
+
+# --- 7. Columns named in the trade's words, not read, say which engine name they are -------------
+
+def test_columns_named_in_the_trades_words_are_hinted_at_their_engine_names(tmp_path):
+    # `Moisture`, `H2O`, `Visc 40`, `TBN` are not read without a map (a column is read on its engine
+    # name, or that name and a unit). Was: listed as not used with no hint, so a 900 ppm water column
+    # left unread looked unrelated to water. Now each names its engine name (ASTM D6304 water, D2896
+    # base number, D445 kinematic viscosity; the short forms common practice, no source). The sample
+    # is graded without them and says so (few-rules-evaluated), as before.
+    path = tmp_path / "trade.csv"
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,Moisture,Visc 40,TBN,H2O\n"
+                    "HY-2026-1051,HPU-1,hydraulic,HYD-46-M,2026-11-02,900,46.1,5.2,900\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert ("lab columns not used: Moisture (did you mean water?), Visc 40 (did you mean kv40?), "
+            "TBN (did you mean bn?), H2O (did you mean water?)") in err
+    assert "few-rules-evaluated" in err and "water" not in got["HY-2026-1051"]["values"]
