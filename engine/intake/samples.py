@@ -322,6 +322,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if text is not None and not_a_number.any():
             written_cells[column] = text.to_numpy(dtype=object)
             named |= _header_names(written_cells[column], not_a_number, header_names)
+        if text is not None and not_a_number.any():
+            grouped = _grouped_numbers(text, not_a_number, decimal)
+            if (read := ~np.isnan(grouped)).any():
+                values, not_a_number = np.where(read, grouped, values), not_a_number & ~read
         percent = None
         if text is not None and not_a_number.any():
             percent = _percent_cells(values, text, not_a_number, decimal, columns.units.get(column) == "%")
@@ -834,6 +838,24 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     if is_bool.any():  # JSON true/false in a number column: not a number, quoted as written
         shown[is_bool] = [str(v).lower() for v in values[is_bool]]
     return parsed, pd.Series(shown, index=column.index, dtype=object), not_a_number
+
+
+def _grouped_numbers(text: pd.Series, not_a_number: np.ndarray, decimal: str) -> np.ndarray:
+    """Numbers written with thousands groups that cannot be read two ways (NaN elsewhere): the
+    other mark between groups of three digits and the decimal mark after them (`1.234,5` where
+    ',' is the mark, `1,234.5` where '.' is), or a space between groups (`1 234,5`, `12 500`: no
+    file writes a space for its decimal mark). `1.234` alone stays unread where ',' is the mark (a
+    thousands separator, or a slip?). Only the cells that are not numbers are looked at (a few)."""
+    other = "." if decimal == "," else ","
+    mark, group = re.escape(decimal), re.escape(other)
+    pattern = re.compile(rf"[+-]?\d{{1,3}}(?:(?:{group}\d{{3}})+{mark}\d+|(?:[ \u00a0\u202f]\d{{3}})+(?:{mark}\d+)?)")
+    values = np.full(len(text), np.nan)
+    at = np.flatnonzero(not_a_number)
+    codes, spellings = pd.factorize(text.to_numpy(dtype=object)[at])
+    read = [float(re.sub(rf"[{group} \u00a0\u202f]", "", cell).replace(decimal, "."))
+            if isinstance(cell, str) and pattern.fullmatch(cell) else np.nan for cell in spellings]
+    values[at] = np.array(read + [np.nan], dtype=float)[codes]
+    return values
 
 
 def _found(prefix: str, column: pd.Series, mask: np.ndarray, quoted: bool = False) -> np.ndarray:

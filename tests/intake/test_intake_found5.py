@@ -401,3 +401,26 @@ def test_columns_named_in_the_trades_words_are_hinted_at_their_engine_names(tmp_
     assert ("lab columns not used: Moisture (did you mean water?), Visc 40 (did you mean kv40?), "
             "TBN (did you mean bn?), H2O (did you mean water?)") in err
     assert "few-rules-evaluated" in err and "water" not in got["HY-2026-1051"]["values"]
+
+
+# --- 8. Thousands groups that cannot be read two ways -------------------------------------------
+
+def test_numbers_with_both_marks_or_space_groups_are_read_and_one_mark_alone_is_not(tmp_path):
+    # A semicolon, decimal-comma export: `1.234,5` (the point between groups of three, the comma the
+    # mark) is 1234.5 ppm, `1 234` (a space between groups, as ISO 80000-1 writes them, from memory) 1234 ppm:
+    # urgent, above 1000. Was: both rejected (D004). `1.234` alone could be 1.234 or 1234: rejected
+    # as before (D004). A '.'-decimal export's `1,234.5` is 1234.5 likewise.
+    path = tmp_path / "groups.csv"
+    path.write_text("sample_id;unit_id;class;lubricant;sampled_on;kv40;water\n"
+                    "HY-2026-1061;HPU-1;hydraulic;HYD-46-M;2026-11-02;46,3;1.234,5\n"
+                    "HY-2026-1062;HPU-2;hydraulic;HYD-46-M;2026-11-02;45,9;1 234\n"
+                    "HY-2026-1063;HPU-3;hydraulic;HYD-46-M;2026-11-02;46,0;1.234\n", encoding="utf-8")
+    got, err = _graded(path, "--rules", HYDRAULIC)
+    assert _rejects(err) == [(3, "D004", "water")]
+    assert got["HY-2026-1061"]["values"]["water"] == 1234.5 and got["HY-2026-1062"]["values"]["water"] == 1234
+    assert got["HY-2026-1061"]["grade"] == got["HY-2026-1062"]["grade"] == "urgent"
+    point = tmp_path / "point.csv"
+    point.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
+                     "HY-2026-1064,HPU-1,hydraulic,HYD-46-M,2026-11-02,\"1,234.5\"\n", encoding="utf-8")
+    got, _ = _graded(point, "--rules", HYDRAULIC)
+    assert got["HY-2026-1064"]["values"]["water"] == 1234.5
