@@ -322,7 +322,6 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if text is not None and not_a_number.any():
             written_cells[column] = text.to_numpy(dtype=object)
             named |= _header_names(written_cells[column], not_a_number, header_names)
-        if text is not None and not_a_number.any():
             grouped = _grouped_numbers(text, not_a_number, decimal)
             if (read := ~np.isnan(grouped)).any():
                 values, not_a_number = np.where(read, grouped, values), not_a_number & ~read
@@ -511,9 +510,10 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
     """Where a water column read in ppm (no unit declared) reads as percentages: (tiny, low,
     ambiguous, first, strong), the rows below 1, from 1 to 10 and from 10 to 100 to reject, the
     first row that gives the column away (None when an earlier chunk of the file did: `earlier`)
-    and whether a reading below 1 or a percent sign did; None when nothing does. A censored cell counts by the bound
-    the lab wrote (`<0.05` ppm is no bound Karl Fischer writes either), an `ND` not: its bound is
-    the map's detection limit, not a reading of the column (`written`: the cells as text, stripped).
+    and whether a reading below 1 or a percent sign did; None when nothing does. A censored cell
+    counts by the bound the lab wrote (`<0.05` ppm is no bound Karl Fischer writes either), an `ND`
+    not: its bound is the map's detection limit, not a reading of the column (`written`: the
+    cells as text, stripped).
     Cells written with a percent sign (`signed`, rejected already) give the column away as well.
     Karl Fischer reports from 10 mg/kg (ASTM D6304 §1.1), so a reading below 1 is a percentage, and
     one below 10 is one too when no reading of the column is above 100 (no percentage is); beside
