@@ -17,7 +17,7 @@ import pandas as pd
 
 from sumpwise.intake.censored import WRITTEN_SUFFIX, Bounds, interval_truth, numbers_text
 from sumpwise.derive.trends import MARGIN_SUFFIX
-from sumpwise.ruleset.model import LadderRule, RuleSet
+from sumpwise.ruleset.model import LadderRule, RuleSet, leaves
 from sumpwise.vocabulary.caveats import EngineCaveat
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 
@@ -350,58 +350,114 @@ def coverage_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -
     return {"unknown_class_note": unknown, "few_rules_note": few}
 
 
-# A censored reading may leave a limit above the sample's grade undecided (water `>500` ppm
-# against an urgent limit of 1000, or `<500` against a watch limit of 100): the grade is then
-# the least the sample can have, and whoever triages by grade must be told so.
+# A censored reading, or a rate from a step within the noise margin, may leave a limit above the
+# sample's grade undecided (water `>500` ppm against an urgent limit of 1000, or `<500` against a
+# watch limit of 100; a condition rule on oil hours `>1500` below 2000): the grade is then the
+# least the sample can have, and whoever triages by grade must be told so.
 BOUND_CAVEATS = (
     EngineCaveat("grade-may-be-higher", "grade_bound_note",
-                 "sumpwise engine: censored readings against the rule set's ladder limits"),
+                 "sumpwise engine: censored readings and noisy rates against the rule set's limits"),
 )
 
 
 def bound_notes(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome) -> dict:
     """The bound caveat's per-row note: each ladder rule whose undecided step (after the caps in
-    force) lies above the sample's grade, with the reading as written; None elsewhere."""
+    force) lies above the sample's grade, with the reading as written, and each condition rule
+    left undecided by such readings alone whose level lies above it; None elsewhere."""
     n = len(measured)
     notes = np.full(n, None, dtype=object)
     for j, slot in enumerate(outcome.slots):
-        rule = slot.rule
-        if not isinstance(rule, LadderRule) or rule.measure + ":low" not in measured.columns:
-            continue
-        rows = np.flatnonzero(outcome.raw[:, j] != NOT_APPLICABLE)
-        columns = _Columns(measured, rows)
-        interval = columns.interval(rule.measure)
-        if interval is None:
-            continue
-        possible = np.full(len(rows), -1, dtype=np.int8)  # the highest step whose crossing is undecided
-        limit_of = {}
-        for level, limit in rule.steps:
-            _, known = _limit_truth(rule.measure, rule.test, limit, columns)
-            possible[~known & interval.censored] = level  # a missing value is a gap, not a bound
-            limit_of[level] = limit
-        _cap_levels(possible, _caps_on(ruleset, rule, outcome.capping[rows]))
-        higher = possible > outcome.level[rows]
-        if not higher.any():
-            continue
-        noisy = rule.measure + WRITTEN_SUFFIX not in measured.columns and rule.measure + MARGIN_SUFFIX in measured.columns
-        if noisy:  # a rate from a step within the noise margin: its number (the gap gives the interval)
-            written = numbers_text(measured[rule.measure].to_numpy(dtype=float)[rows])
-        elif rule.measure + WRITTEN_SUFFIX in measured.columns:  # a censored reading as written
-            written = measured[rule.measure + WRITTEN_SUFFIX].to_numpy(dtype=object)[rows]
+        if isinstance(slot.rule, LadderRule):
+            _ladder_bound(ruleset, measured, outcome, j, notes)
         else:
-            written = np.full(len(rows), None, dtype=object)
-        unit = ruleset.unit_of(rule.measure)
-        for level in np.unique(possible[higher]).tolist():
-            at = rows[higher & (possible == level)]
-            limit = limit_of[level]
-            shown = f"{limit:g}" if isinstance(limit, (int, float)) else str(limit)
-            reading = written[higher & (possible == level)].astype(str).astype(object)
-            as_written = np.isin(reading.astype("U1"), ["<", ">", "\u2264", "\u2265"])  # first characters
-            reading[as_written] = "written '" + reading[as_written] + "'"  # a derived one says its own source
-            why = ", its step being within the noise margin" if noisy else ""
-            text = (f"{rule.id}: {rule.measure} " + reading + f" may be {rule.test} its {ruleset.grades[level]} "
-                    f"limit ({shown}{' ' + unit if unit else ''}){why}")
-            first = pd.isna(notes[at])
-            notes[at[first]] = text[first]
-            notes[at[~first]] = notes[at[~first]] + "; " + text[~first]
+            _condition_bound(ruleset, measured, outcome, j, notes)
     return {"grade_bound_note": notes}
+
+
+def _ladder_bound(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome, j: int, notes: np.ndarray) -> None:
+    rule = outcome.slots[j].rule
+    if rule.measure + ":low" not in measured.columns:
+        return
+    rows = np.flatnonzero(outcome.raw[:, j] != NOT_APPLICABLE)
+    columns = _Columns(measured, rows)
+    interval = columns.interval(rule.measure)
+    if interval is None:
+        return
+    possible = np.full(len(rows), -1, dtype=np.int8)  # the highest step whose crossing is undecided
+    limit_of = {}
+    for level, limit in rule.steps:
+        _, known = _limit_truth(rule.measure, rule.test, limit, columns)
+        possible[~known & interval.censored] = level  # a missing value is a gap, not a bound
+        limit_of[level] = limit
+    _cap_levels(possible, _caps_on(ruleset, rule, outcome.capping[rows]))
+    higher = possible > outcome.level[rows]
+    if not higher.any():
+        return
+    readings, why = _readings(measured, rule.measure, rows)
+    unit = ruleset.unit_of(rule.measure)
+    for level in np.unique(possible[higher]).tolist():
+        here = higher & (possible == level)
+        limit = limit_of[level]
+        shown = f"{limit:g}" if isinstance(limit, (int, float)) else str(limit)
+        _add_note(notes, rows[here], f"{rule.id}: {rule.measure} " + readings[here]
+                  + f" may be {rule.test} its {ruleset.grades[level]} limit ({shown}{' ' + unit if unit else ''}){why}")
+
+
+def _condition_bound(ruleset: RuleSet, measured: pd.DataFrame, outcome: Outcome, j: int, notes: np.ndarray) -> None:
+    """A condition rule not evaluated while every value it reads is there, some only as a bound
+    or a rate within the noise margin: the condition may hold, and give the rule's level (held
+    down by the caps in force on what it reads). A value missing is a gap, as for a ladder."""
+    rule = outcome.slots[j].rule
+    rows = np.flatnonzero(outcome.raw[:, j] == NOT_EVALUATED)
+    if not len(rows):
+        return
+    columns = _Columns(measured, rows)
+    present = np.ones(len(rows), dtype=bool)
+    undecided = {}  # measure -> rows whose reading is an interval
+    for leaf in leaves(rule.when):
+        if leaf.kind == "field":
+            present &= columns.folded(leaf.field)[0] >= 0
+            continue
+        interval = columns.interval(leaf.measure)
+        censored = interval.censored if interval is not None else np.zeros(len(rows), dtype=bool)
+        present &= ~np.isnan(columns.number(leaf.measure)) | censored
+        if censored.any():
+            undecided[leaf.measure] = censored
+    bounded = np.zeros(len(rows), dtype=bool)
+    for censored in undecided.values():
+        bounded |= censored
+    possible = np.where(present & bounded, rule.level, -1).astype(np.int8)
+    _cap_levels(possible, _caps_on(ruleset, rule, outcome.capping[rows]))
+    higher = possible > outcome.level[rows]
+    if not higher.any():
+        return
+    said = np.full(int(higher.sum()), "", dtype=object)
+    for measure, censored in undecided.items():
+        readings, why = _readings(measured, measure, rows)
+        piece = np.where(censored[higher], measure + " " + readings[higher] + why, "").astype(object)
+        joiner = np.where((said != "") & (piece != ""), "; ", "").astype(object)
+        said = said + joiner + piece
+    for level in np.unique(possible[higher]).tolist():
+        here = possible[higher] == level
+        _add_note(notes, rows[higher][here], f"{rule.id}: its condition may hold (" + said[here]
+                  + f"), which gives {ruleset.grades[level]}")
+
+
+def _readings(measured: pd.DataFrame, measure: str, rows: np.ndarray) -> tuple[np.ndarray, str]:
+    """Each row's reading as a note says it (object array), and why it decides nothing: a bound
+    as the lab wrote it (`written '<5'`), or a rate's number, its step within the noise margin."""
+    if measure + WRITTEN_SUFFIX in measured.columns:  # a censored reading as written
+        reading = measured[measure + WRITTEN_SUFFIX].to_numpy(dtype=object)[rows].astype(str).astype(object)
+        as_written = np.isin(reading.astype("U1"), ["<", ">", "\u2264", "\u2265"])  # first characters
+        reading[as_written] = "written '" + reading[as_written] + "'"  # a derived one says its own source
+        return reading, ""
+    if measure + MARGIN_SUFFIX in measured.columns:  # the rate's number (the gap gives its interval)
+        return numbers_text(measured[measure].to_numpy(dtype=float)[rows]), ", its step being within the noise margin"
+    return np.full(len(rows), "None", dtype=object), ""
+
+
+def _add_note(notes: np.ndarray, at: np.ndarray, text: np.ndarray) -> None:
+    """Each row's note, a later rule's after an earlier one's."""
+    first = pd.isna(notes[at])
+    notes[at[first]] = text[first]
+    notes[at[~first]] = notes[at[~first]] + "; " + text[~first]

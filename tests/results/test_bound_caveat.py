@@ -82,3 +82,37 @@ def test_the_caveat_is_listed_in_compact_records_and_counted(tmp_path):
                   "--fail-on-caveat", CAVEAT)
     assert run.code == 3 and f"1 sample(s) with caveat {CAVEAT}" in run.err
     assert f'"caveat": "{CAVEAT}"' in run.out
+
+
+# Brackwater's steam-turbine young-oil-oxidising: oil_hours below 2000 and oxidation_rise above 10,
+# alert. TURB-46-M's new carbonyl is 0, so 16 abs/cm is a rise of 16 (carbonyl-rise gives watch).
+@pytest.mark.parametrize("hours, grade_, note", [
+    (">1500", "watch", "young-oil-oxidising: its condition may hold (oil_hours written '>1500'), which gives alert"),
+    (">2500", "watch", None),  # the bound decides it: no younger than 2500 h
+    ("<1500", "alert", None),  # decided: the rule fires
+    ("", "watch", None),  # no hours: a gap (not_evaluated), not a bound
+])
+def test_a_condition_rule_left_undecided_by_a_bound_says_the_grade_may_be_higher(hours, grade_, note):
+    result = _graded("sample_id,unit_id,class,lubricant,sampled_on,water,kv40,an,oxidation,oil_hours",
+                     [f"Y-1,ST-9,steam-turbine,TURB-46-M,2026-03-02,50,46,0.1,16,{hours}"])["Y-1"]
+    assert result.grade == grade_ and _bound(result) == note
+
+
+def test_a_condition_rule_left_undecided_by_a_rate_within_the_noise_margin_says_so_too(tmp_path):
+    # The resample fixture (tests/data/derive_found4, invented): B-603's iron rate is 100 per 1000 h
+    # from a step of 2 ppm within the 2 ppm margin. Written as a condition rule (alert above 40),
+    # the rule is not evaluated, and the grade may be higher, as for the ladder rule
+    # (tests/derive/test_trends_found4.py). Before: not evaluated, with no caveat.
+    found = ROOT / "tests" / "data" / "derive_found4"
+    text = (found / "rules.yaml").read_text().replace(
+        """      - id: iron-rate
+        measure: iron_step_per_1000h
+        above: {watch: 20, alert: 40}""", """      - id: iron-rate
+        when: {measure: iron_step_per_1000h, above: 40}
+        grade: alert""")
+    (tmp_path / "rules.yaml").write_text(text)
+    graded = grade(read_samples(found / "resample.csv"), load_ruleset(tmp_path / "rules.yaml"))
+    result = {r.sample_id: r for r in graded.results()}["B-603"]
+    assert result.grade == "normal" and "iron-rate" in {n.rule for n in result.not_evaluated}
+    assert _bound(result) == ("iron-rate: its condition may hold (iron_step_per_1000h 100, its step being within "
+                              "the noise margin), which gives alert")

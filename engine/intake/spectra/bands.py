@@ -249,9 +249,11 @@ class BandPlan:
 def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
     """Precompute weights and index windows for one ascending wavenumber grid."""
     areas, points, windows, uncovered, saturation, peaks = {}, {}, {}, {}, {}, {}
+    steps = (float(x[1] - x[0]), float(x[-1] - x[-2])) if x.size > 1 else (0.0, 0.0)
     for band in bands:
         low, high = band.span()
-        if low < x[0] or high > x[-1]:
+        need_low, need_high = _required_span(band, *steps)
+        if need_low < x[0] or need_high > x[-1]:
             uncovered[band.name] = (
                 f"x range {x[0]:g}-{x[-1]:g} cm-1 does not cover band {band.name} "
                 f"({low:g}-{high:g} cm-1 with its baseline)"
@@ -290,6 +292,22 @@ def plan_bands(x: np.ndarray, bands: tuple[Band, ...]) -> BandPlan:
         if band.saturation_window is not None:
             saturation[band.name] = _index_window(x, band.saturation_window, band.name)
     return BandPlan(x, bands, areas, points, windows, uncovered, saturation, peaks)
+
+
+def _required_span(band, first_step, last_step):
+    """The wavenumbers the grid must reach for a band: its span, less up to the grid's step at that end
+    where an outer mean or minimum window lies.
+
+    Why: an instrument's grid is set by its laser, so an export of 4000-400 cm-1 often ends a fraction of
+    a step short (3999.84 in a public export at 1.93 cm-1, 3999.79 at 0.96); the water band's 3680-4000
+    window then holds all its points but the last, yet the band was left unmeasured. A mean window is
+    read on the points it holds; a region or an `at` anchor is interpolated and is still needed whole.
+    """
+    strict = [band.region] + [anchor.span() for anchor in band.baseline if anchor.at is not None]
+    windows = [anchor.span() for anchor in band.baseline if anchor.at is None]
+    low = min([w[0] for w in strict] + [min(w[0] + first_step, w[1]) for w in windows])
+    high = max([w[1] for w in strict] + [max(w[1] - last_step, w[0]) for w in windows])
+    return low, high
 
 
 def _windows_read(band):

@@ -18,7 +18,7 @@ import math
 
 import numpy as np
 import pytest
-from scipy import integrate, signal
+from scipy import integrate, signal, stats
 
 from sumpwise.intake.spectra.bands import BandFileError, load_bands, measure_block, parse_bands, plan_bands, trapezoid_weights
 from sumpwise.intake.spectra.batch import ABS_PER_CM_PER_ABS_PER_01MM, measure_matrix
@@ -212,6 +212,26 @@ def test_grid_not_covering_a_band_is_reported():
     x = wavenumber_grid(700, 4000, 2.0)
     _, _, uncovered = measure_matrix(x, (OFFSET + SLOPE * x)[None, :], load_bands())
     assert "oxidation_area" in uncovered and "550-2200" in uncovered["oxidation_area"]
+
+
+def test_a_grid_ending_a_fraction_of_a_step_short_of_a_baseline_window_still_measures_the_band():
+    # A public instrument export (a Nicolet spectrum in R. J. Lancashire's readJDX examples, public domain)
+    # runs 399.212341-3999.837646 cm-1 in 1868 points: 0.16 cm-1 short of the water band's 3680-4000 baseline
+    # window, which still holds 166 of its points. Before, water was left unmeasured on such a grid.
+    # Reference: the closed-form area of a Gaussian between the region's ends (scipy.stats.norm), on a flat
+    # baseline; the trapezoid rule at 1.93 cm-1 on sigma 70 cm-1 adds well under 0.1 %.
+    x = np.linspace(399.212341, 3999.837646, 1868)
+    height, centre, sigma = 0.1, 3350.0, 70.0
+    area = height * sigma * math.sqrt(2 * math.pi)
+    y = OFFSET + gaussian(x, centre, area, sigma)
+    values, _, uncovered = measure_matrix(x, y[None, :], load_bands())
+    assert "water" not in uncovered
+    inside = stats.norm.cdf((3500 - centre) / sigma) - stats.norm.cdf((3150 - centre) / sigma)
+    assert values["water"][0] == pytest.approx(area * inside, rel=1e-3)
+    # more than a step short (the grid stops at 3990), the window is cut, not nearly whole: not measured
+    short = x[x <= 3990]
+    _, _, uncovered = measure_matrix(short, y[None, : short.size], load_bands())
+    assert "water" in uncovered and "1900-4000" in uncovered["water"]
 
 
 @pytest.mark.parametrize(

@@ -2,8 +2,8 @@
 
 Sources: McDonald & Wilks, Appl. Spectrosc. 42 (1988) 151 (ASDF forms, Y-check,
 pseudo-digits replace only the leading digit, 5.2); R. J. Lancashire's
-public-domain test files dupdec1.jdx and dupinc1.jdx (their own header
-values FIRSTY, MAXY, NPOINTS, LASTX are the reference).
+public-domain test files dupdec1.jdx, dupdec2.jdx, dupinc1.jdx and fixinc2.jdx (their own
+header values FIRSTY, MAXY, MINY, NPOINTS, LASTX and data lines are the reference).
 """
 
 from pathlib import Path
@@ -40,6 +40,32 @@ def test_dupinc1_public_domain_nanometres_matches_its_header():
     assert wavelength_nm[0] == pytest.approx(469.5)
     assert spectrum.absorbance[-1] == pytest.approx(1.1663)
     assert spectrum.absorbance.max() == pytest.approx(3.3747)
+
+
+def test_dupdec2_public_domain_fraction_data_under_percent_range_labels_is_read_by_its_data():
+    # Lancashire dupdec2.jdx (CR LF, byte for byte): DIF/DUP, YFACTOR=0.0001, FIRSTY=0.5839, so the data are
+    # transmittance as a fraction; its MAXY=79.17 and MINY=0.19 and the instrument line "0.19,79.170 %T" give
+    # the same range in percent. Read by the data (median 0.61: a fraction); read by MAXY as percent, every
+    # absorbance would gain 2 and every band read as saturated.
+    spectrum = read_jcampdx(DATA / "dupdec2.jdx")
+    assert spectrum.wavenumber.size == 3951
+    assert spectrum.wavenumber[[0, -1]] == pytest.approx([450.0, 4400.0])
+    transmittance = 10 ** (-spectrum.absorbance)
+    assert transmittance[-1] == pytest.approx(0.5839, abs=1e-9)  # FIRSTY, at FIRSTX = 4400
+    assert transmittance.max() == pytest.approx(0.7917, abs=1e-9)  # MAXY / 100
+    assert transmittance.min() == pytest.approx(0.0019, abs=1e-9)  # MINY / 100
+    assert "transmittance read as percent (median above 1.5)" not in spectrum.notes
+
+
+def test_fixinc2_public_domain_fixed_form_absorbance_with_an_end_of_file_byte():
+    # Lancashire fixinc2.jdx (CR LF and a DOS end-of-file byte 0x1A after ##END=, byte for byte): AFFN
+    # absorbance, YFACTOR=0.0001, FIRSTX=400, LASTX=4000, NPOINTS=3601, FIRSTY=0.3487; the values below are
+    # the file's own (line "411 4783 ...", last line "3997 1273 1274 1274 1275").
+    assert (DATA / "fixinc2.jdx").read_bytes().endswith(b"##END=\r\n\x1a")
+    spectrum = read_jcampdx(DATA / "fixinc2.jdx")
+    assert spectrum.wavenumber.size == 3601
+    np.testing.assert_allclose(spectrum.wavenumber[[0, 11, -4, -1]], [400.0, 411.0, 3997.0, 4000.0])
+    np.testing.assert_allclose(spectrum.absorbance[[0, 11, -4, -1]], [0.3487, 0.4783, 0.1273, 0.1275], atol=1e-12)
 
 
 def test_dup_count_of_ten_or_more_is_read_in_full():
