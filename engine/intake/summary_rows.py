@@ -90,10 +90,14 @@ SUMMARY_LABELS = {label_key(label): what for what, labels in _LABELS.items() for
 _ELSEWHERE = {key: what for key, what in SUMMARY_LABELS.items() if key not in _ID_ONLY}
 
 
-# A sample id without a digit that names a limit by its last word (`Alert limit`, `Reject limit`,
-# `Upper warning limit`, `Action level`), or a percentile (`95th percentile`): a limit or a
-# statistic line, as no sample id is (common practice, no source).
-_LIMIT_WORDS = re.compile(r"\D*\b(?:limits?|levels?|thresholds?)", re.IGNORECASE)
+# A sample id that is a limit's grade or kind and the word limit or level (`Alert limit`, `Reject
+# limit`, `Upper warning limit`, `Action level`), or a percentile (`95th percentile`): a limit or a
+# statistic line, as no sample id is (common practice, no source). Free text that ends in `limit`
+# (a rule set's example named `iron above its watch limit`) is no such line.
+_LIMIT_WORDS = re.compile(r"(?:(?:upper|lower|max|maximum|min|minimum)\.?\s+)?(?:alert|watch|urgent|reject|"
+                          r"rejection|control|trend|warning|alarm|action|severe|abnormal|caution|critical|"
+                          r"condemning|marginal|max|min|upper|lower)\.?\s+(?:limits?|levels?|thresholds?)",
+                          re.IGNORECASE)
 _PERCENTILE = re.compile(r"\d{1,2}(?:st|nd|rd|th)? ?percentile|percentile ?\d{1,2}", re.IGNORECASE)
 
 
