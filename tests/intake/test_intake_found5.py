@@ -356,8 +356,10 @@ def test_limit_and_statistic_lines_named_as_labs_name_them_are_rejected(tmp_path
     assert _rejects(err) == [(2, "D019", "sample_id")] and set(got) == {"HY-2026-1041"}
 
 
-@pytest.mark.parametrize("cell", ["Limit switch gearbox", "P1", "P95", "Speed 2 GB", "HPU-1 Level gauge 3"])
+@pytest.mark.parametrize("cell", ["Limit switch gearbox", "P1", "P95", "Speed 2 GB", "HPU-1 Level gauge 3",
+                                  "iron above its watch limit", "hydraulics keep their own limit"])
 def test_ids_that_end_or_begin_otherwise_stay_samples(cell):
+    # Free text that ends in `limit` (the names of a rule set's examples) is no limit line.
     assert summary_rows.id_label(cell) is None
 
 
