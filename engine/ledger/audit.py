@@ -18,7 +18,7 @@ import json
 import re
 import tempfile
 from dataclasses import dataclass, replace
-from functools import lru_cache
+from functools import lru_cache, partial
 from pathlib import Path
 
 import numpy as np
@@ -26,10 +26,11 @@ import pandas as pd
 
 from sumpwise.derive.trends import trend_bases
 from sumpwise.intake.samples import SampleBatch
-from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_SAMPLE_COLUMNS, batch_digest, fingerprint,  # noqa: F401 (API)
-                                    result_from_record)
+from sumpwise.ledger.aside import Aside
+from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_QUERIES, DIGEST_3_SAMPLE_COLUMNS,  # noqa: F401 (API)
+                                    batch_digest, fingerprint, result_from_record, written_digest_3)
 from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, batch_list,
-                                   batch_rejects, current_contents, current_verdicts, find_entries, frame_from_arrays,
+                                   batch_rejects, digest_columns, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
                                    measures_of, ruleset_text, sample_entries, stored_rulesets, unit_entries)
 from sumpwise.render.jsonl import dumps
@@ -444,59 +445,16 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
             if batch["previous"] != previous:
                 differences.append(Difference(None, number, "the chain is broken: this batch does not follow the "
                                                             "one before it (a batch was deleted, added or altered)"))
-            entries, columns = batch_entries(conn, number, batch["form"], shapes)
-            contents = columns["content"]
-            if batch["form"] == 1:
-                written = {1: list(zip(*(columns[n] for n in ("entry", "sample_id", "content_sha256", "corrects"))))}
-            elif batch["form"] == 2:
-                written = {1: [columns[n] for n in DIGEST_2_SAMPLE_COLUMNS],
-                           3: [columns[n] for n in ("verdict_entry", "grade", "level", "shape", "vals")],
-                           4: columns["used_shapes"]}
-            else:
-                written = {1: [columns[n] for n in DIGEST_3_SAMPLE_COLUMNS], 3: columns["used_shapes"]}
-                if no_verdicts:  # digest 3's count of what form 3 leaves empty, from the rows just read
-                    written[2] = [[len(columns["filled"]) - columns["filled"].tolist().count(None)]]
-            del columns
-            digest = batch_digest(conn, number, written)
-            del written  # views of the batch's rows, as `contents` is until the values frame is built
-            if digest != batch["digest"]:
-                differences.append(Difference(None, number, "its stored rows no longer match the batch's digest "
-                                                            "(a row altered, added or deleted after recording)"))
-            intact = batch["previous"] == previous and digest == batch["digest"]
-            previous, last = batch["digest"], number
             if head is not None and number == head[0] and batch["digest"] != head[1]:
                 differences.append(Difference(None, number, f"its digest is not the one noted ({head[1][:16]}...): "
                                                             f"the chain was rewritten at or before this batch"))
-            if len(entries) != batch["new_samples"] + batch["corrections"]:
-                differences.append(Difference(None, number, f"it holds {len(entries)} sample(s) but recorded "
-                                                            f"{batch['new_samples'] + batch['corrections']}"))
-            rejected = conn.execute("SELECT count(*) FROM rejects WHERE batch = ?", (number,)).fetchone()[0]
-            if rejected != batch["rejected"]:
-                differences.append(Difference(None, number, f"it holds {rejected} rejected row(s) but recorded "
-                                                            f"{batch['rejected']}"))
-            wanted = entries["sampled_on"].fillna("").to_numpy(dtype=object) >= since if since else \
-                np.ones(len(entries), dtype=bool)
-            if not wanted.any():
-                continue
-            batches_seen += 1
-            sha = batch["ruleset_sha256"]
-            if sha not in rulesets:
-                rulesets[sha] = ruleset_from_canonical(batch["canonical"], sha) if batch["canonical"] else None
-                if rulesets[sha] is not None and (batch["ruleset_id"] != rulesets[sha].id or
-                                                  batch["version"] != json.dumps(rulesets[sha].version)):
-                    differences.append(Difference(None, number, f"the stored id or version of rule set {sha[:12]}... "
-                                                                f"no longer match its text"))
-            ruleset = rulesets[sha]
-            if ruleset is None:
-                differences.extend(Difference(sid, number, f"the stored rule set text no longer has its "
-                                                           f"fingerprint {sha} (or is gone)")
-                                   for sid in entries["sample_id"][wanted])
-                checked += int(wanted.sum())
-                continue
-            frame, altered = _stored_values(batch, entries, contents)
-            del contents  # the rows read back, and their texts, go before the re-grade
-            differences += _batch_findings(conn, batch, entries, frame, altered, ruleset, wanted, intact)
-            checked += int(wanted.sum())
+            found, regraded = _replayed_batch(conn, batch, shapes, no_verdicts, batch["previous"] == previous, since,
+                                              rulesets)
+            differences += found
+            previous, last = batch["digest"], number
+            if regraded is not None:
+                batches_seen += 1
+                checked += regraded
         if head is not None and (last is None or last < head[0]):
             differences.append(Difference(None, head[0], "the noted head batch is not in the ledger (batches were "
                                                          "deleted from the end)"))
@@ -504,6 +462,90 @@ def replay(path, since: str | None = None, head: tuple[int, str] | None = None) 
         conn.close()
     return ReplayReport(checked, batches_seen, len(rulesets), tuple(d for d in differences if d.kind != ENGINE_CHANGE),
                         previous, last, tuple(d for d in differences if d.kind == ENGINE_CHANGE))
+
+
+def _replayed_batch(conn, batch: dict, shapes: dict, no_verdicts: bool, chained: bool, since: str | None,
+                    rulesets: dict) -> tuple[list, int | None]:
+    """One batch's findings (its digest's first) and how many of its samples were re-graded (None
+    when none was wanted). Its digest is computed by another process while this one turns the
+    rows read back into values and re-grades them (_BatchDigest): the two take about as long."""
+    number = batch["batch"]
+    entries, columns = batch_entries(conn, number, batch["form"], shapes)
+    contents = columns["content"]
+    if batch["form"] == 1:
+        written = {1: list(zip(*(columns[n] for n in ("entry", "sample_id", "content_sha256", "corrects"))))}
+    elif batch["form"] == 2:
+        written = {1: [columns[n] for n in DIGEST_2_SAMPLE_COLUMNS],
+                   3: [columns[n] for n in ("verdict_entry", "grade", "level", "shape", "vals")],
+                   4: columns["used_shapes"]}
+    else:
+        written = {1: [columns[n] for n in DIGEST_3_SAMPLE_COLUMNS], 3: columns["used_shapes"]}
+        if no_verdicts:  # digest 3's count of what form 3 leaves empty, from the rows just read
+            written[2] = [[len(columns["filled"]) - columns["filled"].tolist().count(None)]]
+    del columns
+    digest = _BatchDigest(conn, number, batch["form"], written)
+    del written  # views of the batch's rows, as `contents` is until the values frame is built
+    try:
+        found, regraded = [], None
+        if len(entries) != batch["new_samples"] + batch["corrections"]:
+            found.append(Difference(None, number, f"it holds {len(entries)} sample(s) but recorded "
+                                                  f"{batch['new_samples'] + batch['corrections']}"))
+        rejected = conn.execute("SELECT count(*) FROM rejects WHERE batch = ?", (number,)).fetchone()[0]
+        if rejected != batch["rejected"]:
+            found.append(Difference(None, number, f"it holds {rejected} rejected row(s) but recorded "
+                                                  f"{batch['rejected']}"))
+        wanted = entries["sampled_on"].fillna("").to_numpy(dtype=object) >= since if since else \
+            np.ones(len(entries), dtype=bool)
+        if wanted.any():
+            regraded = int(wanted.sum())
+            sha = batch["ruleset_sha256"]
+            if sha not in rulesets:
+                rulesets[sha] = ruleset_from_canonical(batch["canonical"], sha) if batch["canonical"] else None
+                if rulesets[sha] is not None and (batch["ruleset_id"] != rulesets[sha].id or
+                                                  batch["version"] != json.dumps(rulesets[sha].version)):
+                    found.append(Difference(None, number, f"the stored id or version of rule set {sha[:12]}... "
+                                                          f"no longer match its text"))
+            ruleset = rulesets[sha]
+            if ruleset is None:
+                found.extend(Difference(sid, number, f"the stored rule set text no longer has its fingerprint {sha} "
+                                                     f"(or is gone)") for sid in entries["sample_id"][wanted])
+            else:
+                frame, altered = _stored_values(batch, entries, contents)
+                del contents  # the rows read back, and their texts, go before the re-grade
+                found += _batch_findings(conn, batch, entries, frame, altered, ruleset, wanted,
+                                         lambda: chained and digest.result() == batch["digest"])
+        if digest.result() != batch["digest"]:
+            found.insert(0, Difference(None, number, "its stored rows no longer match the batch's digest (a row "
+                                                     "altered, added or deleted after recording)"))
+        return found, regraded
+    finally:
+        digest.close()
+
+
+class _BatchDigest:
+    """A batch's digest: a form-3 batch's computed by another process from the rows already read
+    (ledger.aside; the batch's own row and rejects are read here first, since a connection is not
+    used across fork), any other's here, as batch_digest gives it either way."""
+
+    def __init__(self, conn, number: int, form: int, written: dict):
+        self.value, self.aside = None, None
+        if form not in (1, 2):
+            written = dict(written)
+            for k in (0, 2, 4):
+                if k not in written:
+                    written[k] = digest_columns(conn, DIGEST_3_QUERIES[k], number)
+            self.aside = Aside(partial(written_digest_3, written))
+        if self.aside is None or self.aside.pid is None:
+            self.value = batch_digest(conn, number, written)
+
+    def result(self) -> str:
+        if self.value is None:
+            self.value = self.aside.result()
+        return self.value
+
+    def close(self) -> None:
+        if self.aside is not None:
+            self.aside.close()
 
 
 def _stored_values(batch: dict, entries: pd.DataFrame, contents: np.ndarray) -> tuple[pd.DataFrame | None,
@@ -527,11 +569,12 @@ def _stored_values(batch: dict, entries: pd.DataFrame, contents: np.ndarray) -> 
 
 
 def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFrame | None, altered: np.ndarray,
-                    ruleset: RuleSet, wanted: np.ndarray, intact: bool) -> list:
+                    ruleset: RuleSet, wanted: np.ndarray, intact) -> list:
     """Each sample's integrity (fingerprint, typed columns, verdict present), then its re-grade.
 
     A re-grade that differs is an engine change only when an older engine recorded it and the
-    batch is intact (its digest and place in the chain hold); else it fails the replay."""
+    batch is intact (its digest and place in the chain hold: `intact()`, asked only then, since
+    the digest may still be in the making); else it fails the replay."""
     number, form = batch["batch"], batch["form"]
     if frame is None:
         return [Difference(None, number, "its stored values or columns can no longer be read (altered after "
@@ -548,7 +591,7 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
         rows = frame.index.to_numpy()
         for k in np.flatnonzero(np.isin(rows, list(refused)) & wanted):
             reject = refused[int(rows[k])]
-            found.append(_unreproduced(batch, intact, entries["sample_id"].iat[k],
+            found.append(_unreproduced(batch, intact(), entries["sample_id"].iat[k],
                                        f"this engine refuses its stored values ({reject.code}, {reject.field}: "
                                        f"{reject.reason})"))
         kept = ~np.isin(rows, list(refused))
@@ -580,11 +623,11 @@ def _batch_findings(conn, batch: dict, entries: pd.DataFrame, frame: pd.DataFram
         elif pd.isna(stored["facts"][k]):
             found.append(Difference(sid, number, "its verdict is missing (deleted, or its shape is gone)"))
         elif read_otherwise[k] and not differs[k]:
-            found.append(_unreproduced(batch, intact, sid, "its record's values, which the ledger reads back from its "
+            found.append(_unreproduced(batch, intact(), sid, "its record's values, which the ledger reads back from its "
                                                            "stored input values, are not those values as this engine "
                                                            "reads them"))
         else:
-            found.append(_unreproduced(batch, intact, sid, _facts_differ(stored, facts, k) or "its verdict differs"))
+            found.append(_unreproduced(batch, intact(), sid, _facts_differ(stored, facts, k) or "its verdict differs"))
     return found
 
 

@@ -755,8 +755,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     # back): the batch's row and rejects are final now, so it is computed beside the insert.
     used = np.unique(shape_of).tolist()
     sha_of = dict(zip(shapes.tolist(), (fingerprint(text) for text in facts.shapes)))
-    rows_written = {0: _columns(conn, DIGEST_3_QUERIES[0], number), 1: written, 2: [[0]],
-                    3: [used, [sha_of[shape] for shape in used]], 4: _columns(conn, DIGEST_3_QUERIES[4], number)}
+    rows_written = {0: digest_columns(conn, DIGEST_3_QUERIES[0], number), 1: written, 2: [[0]],
+                    3: [used, [sha_of[shape] for shape in used]], 4: digest_columns(conn, DIGEST_3_QUERIES[4], number)}
     with Aside(lambda: written_digest_3(rows_written)) as digest:
         with _indexes_built_after(conn, len(rows) >= max(BULK_ROWS, first - 1)):
             conn.executemany(f"INSERT INTO samples ({names}, content_sha256, batch) "
@@ -805,7 +805,7 @@ def _regraded_later(new: pd.DataFrame, inputs: pd.DataFrame | None, history: pd.
                  if now.get(sid, level) != level)
 
 
-def _columns(conn: sqlite3.Connection, query: str, batch: int) -> list[list]:
+def digest_columns(conn: sqlite3.Connection, query: str, batch: int) -> list[list]:
     """A digest query's rows for one batch as columns (lists), as the digest spells them."""
     return [list(column) for column in zip(*conn.execute(query, (batch,)).fetchall())]
 

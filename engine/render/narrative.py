@@ -95,14 +95,16 @@ def gap_phrase(rule: str, missing, undecided) -> str:
 
 def _undecided_reading(name: str, shown) -> str:
     if isinstance(shown, RateInterval):
-        said = (f"{_number(shown.rate)}, [{_number(shown.low)}, {_number(shown.high)}] from a step of "
-                f"{_number(shown.step)} within its noise margin of {_number(shown.margin)} over {_number(shown.hours)} h")
+        said = (f"{_rate_number(shown.rate)}, [{_rate_number(shown.low)}, {_rate_number(shown.high)}] from a step "
+                f"of {_rate_number(shown.step)} within its noise margin of {_rate_number(shown.margin)} over "
+                f"{_rate_number(shown.hours)} h")
     else:  # a bound as the lab wrote it; a format-3 record or ledger says the interval in words
         said = f"written '{shown}'" if str(shown)[:1] in "<>\u2264\u2265" else str(shown)
     return f"{name} {said} does not decide it"
 
 
-def _number(value) -> str:
+def _rate_number(value) -> str:
+    """A number of a rate's interval, as the engine spells a bound (no binary noise)."""
     return "(none)" if value is None else value if isinstance(value, str) else number_text(value)
 
 

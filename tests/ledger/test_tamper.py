@@ -360,3 +360,18 @@ def test_the_ledger_wide_checks_find_what_their_sql_finds(clean, tmp_path, alter
         expected = [(sid, batch, what) for query, what in queries for sid, batch in conn.execute(query).fetchall()]
     got = [(d.sample_id, d.batch, what) for d in found for _, what in queries if d.what.startswith(what)]
     assert got == expected and expected
+
+
+@pytest.mark.parametrize("fork", [True, False])
+def test_the_digest_computed_beside_the_re_grade_or_here_catches_the_same(clean, tmp_path, monkeypatch, fork):
+    # Replay computes a form-3 batch's digest in another process while it re-grades the batch, and
+    # here where no process can be had: the findings are the same, the digest's first in its batch.
+    from sumpwise.ledger import aside
+    monkeypatch.setattr(aside, "two_processes_possible", lambda: fork)
+    db = _copy(clean, tmp_path)
+    assert replay(db).differences == ()
+    with sqlite3.connect(db) as conn:
+        conn.execute("UPDATE samples SET vals = replace(vals, 'false', 'true') WHERE sample_id = 'T-02'")
+    found = replay(db).differences
+    assert [d.what for d in found][0].startswith("its stored rows no longer match the batch's digest")
+    assert {d.batch for d in found} == {1} and any(d.sample_id == "T-02" for d in found)
