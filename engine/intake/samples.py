@@ -487,11 +487,12 @@ _BESIDE_PERCENTAGES = (" ppm is below what a Karl Fischer titration reports (AST
                        "correct the export")
 
 
-# Why a water reading from 1 to 10 ppm is rejected in a column with no reading above 100 ppm: below
-# what Karl Fischer reports as ppm, and nothing in the column says it is in ppm, while every reading of
-# it could be a percentage (a column of 2, 5 and 12: a wet sample's 12 % graded normal as 12 ppm).
-_NO_PPM_BESIDE = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), and column "
-                  "{lab!r} holds no reading above 100 ppm to say it is in ppm: a percentage? declare water: "
+# Why a water reading from 1 to 10 ppm is rejected in a column most of whose readings are so and none
+# above 100 ppm: below what Karl Fischer reports as ppm, and nothing in the column says it is in ppm,
+# while every reading of it could be a percentage (a column of 2, 5 and 12: a wet sample's 12 % graded
+# normal as 12 ppm).
+_NO_PPM_BESIDE = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), as most of "
+                  "column {lab!r} is, and none of it is above 100 ppm to say it is in ppm: a percentage? declare water: "
                   "{{column: {lab!r}, unit: '%'}} in the column map (unit: ppm if it is ppm), or correct the export")
 
 
@@ -516,7 +517,8 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
     cells as text, stripped).
     Cells written with a percent sign (`signed`, rejected already) give the column away as well.
     Karl Fischer reports from 10 mg/kg (ASTM D6304 §1.1), so a reading below 1 is a percentage, and
-    one below 10 is one too when no reading of the column is above 100 (no percentage is); beside
+    one below 10 is one too when most readings of the column are below 10 and none is above 100 (no
+    percentage is; a dry column of 8, 25, 40 and 60 ppm is ppm, common practice, no source); beside
     them, 10 to 100 is either. A header that names ppm (`Water ppm`) says what 10 to 100 is: there
     only a reading below 1, and one below 10 beside it, is rejected; so does a row's unit column
     (`stated`: the rows whose unit cell names ppm), for its row."""
@@ -534,7 +536,8 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
         below = (sized > 0) & (sized < 10)
         signed = signed if signed is not None and signed.any() else None
         strong = tiny.any() or signed is not None  # what an earlier chunk hands on too
-        if not (strong or earlier or (not header_says_ppm and (below & ~stated).any() and not (sized > 100).any())):
+        weak = 2 * int((below & ~stated).sum()) > int((sized > 0).sum())  # most readings under Karl Fischer's 10
+        if not (strong or earlier or (not header_says_ppm and weak and not (sized > 100).any())):
             return None
         ambiguous = (sized >= 10) & (sized <= 100) & ~stated & (not header_says_ppm)
     if not strong and not earlier:  # the column gives itself away by readings below 10 alone

@@ -137,7 +137,7 @@ def test_a_column_of_only_percent_sized_water_readings_is_rejected():
     got, err = _graded(FOUND / "water-percent-small.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-mixed.yaml")
     assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
-    assert "holds no reading above 100 ppm" in err and "'12' could be ppm or a percentage" in err
+    assert "none of it is above 100 ppm" in err and "'12' could be ppm or a percentage" in err
     assert set(got) == {"HY-2026-0924"} and got["HY-2026-0924"]["grade"] == "normal"
 
 
@@ -426,3 +426,19 @@ def test_numbers_with_both_marks_or_space_groups_are_read_and_one_mark_alone_is_
                      "HY-2026-1064,HPU-1,hydraulic,HYD-46-M,2026-11-02,\"1,234.5\"\n", encoding="utf-8")
     got, _ = _graded(point, "--rules", HYDRAULIC)
     assert got["HY-2026-1064"]["values"]["water"] == 1234.5
+
+
+def test_a_dry_ppm_column_with_one_reading_below_ten_is_read_as_ppm(tmp_path):
+    # Dry hydraulic oils by Karl Fischer (ASTM D6304 reports from 10 mg/kg; coulometric titrators
+    # read lower): 8, 25, 40 and 60 under a header `Water` that names no unit. One reading below 10
+    # is not a column of percentages (common practice, no source): every row is graded, as ppm.
+    samples = tmp_path / "dry.csv"
+    samples.write_text("Sample No,Unit,Oil,Date Sampled,Visc 40C cSt,Water\n"
+                       "HY-2026-0931,HPU-1,HYD-46-M,2026-10-26,46.2,8\n"
+                       "HY-2026-0932,HPU-2,HYD-46-M,2026-10-26,45.8,25\n"
+                       "HY-2026-0933,HPU-3,HYD-46-M,2026-10-26,47.9,40\n"
+                       "HY-2026-0934,HPU-4,HYD-46-M,2026-10-26,46.1,60\n")
+    got, err = _graded(samples, "--rules", HYDRAULIC, "--columns", FOUND / "water-percent-mixed.yaml")
+    assert _rejects(err) == []
+    assert {sid: r["values"]["water"] for sid, r in got.items()} == {
+        "HY-2026-0931": 8.0, "HY-2026-0932": 25.0, "HY-2026-0933": 40.0, "HY-2026-0934": 60.0}
