@@ -28,7 +28,8 @@ MISSING_SPELLINGS = ("-", "--", "---", "\u2013", "\u2014", "n/a", "na", "n.a.", 
                      "not reported", "nt")
 # Cells that mean "not detected": below the column's detection limit when the column map
 # gives one, else missing.
-NOT_DETECTED_SPELLINGS = ("nd", "n.d.", "n.d", "not detected", "<dl", "< dl", "bdl")
+# `<LOD`: below the limit of detection, as IUPAC names it (a spelling of `<DL`).
+NOT_DETECTED_SPELLINGS = ("nd", "n.d.", "n.d", "not detected", "<dl", "< dl", "bdl", "<lod", "< lod")
 
 _BOUND = re.compile(r"^(<=|>=|<|>|\u2264|\u2265)\s*(\S.*)$")
 _SIGN = {"<": "<", ">": ">", "<=": "<=", ">=": ">=", "\u2264": "<=", "\u2265": ">="}

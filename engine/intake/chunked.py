@@ -27,6 +27,8 @@ DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
 _BATCH_CHARS = 1 << 22  # lines read at a time while looking for a chunk's end
 _SEEN_AT = re.compile(r"^(sample id '.*' already seen at row )(\d+)$", re.S)
 _UNDER = re.compile(r"^(read under the header line at row )(-?\d+)(,.*)$", re.S)  # a D020 naming its header line
+# A water reading rejected beside the readings that give its column away names the first one's row.
+_BESIDE_ROW = re.compile(r"(as percentages \(row )(-?\d+)\)")
 
 
 def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
@@ -46,6 +48,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     seen = _SeenIds()
     offset = 0
     layout_break = None  # a header line in another layout, in force from an earlier chunk
+    percent_water = None  # the row of a water reading an earlier chunk read as a percentage
     try:
         for text, lines, more in _chunk_texts(stream, fmt, rows, name):
             if offset == 0 and fmt == "csv":
@@ -59,10 +62,11 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
                 raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv")) from None
             batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name,
                                  chunk_columns, fmt, numeric,
-                                 layout_break and (layout_break[0] - offset, layout_break[1]))  # the chunk's rows
+                                 layout_break and (layout_break[0] - offset, layout_break[1]),  # the chunk's rows
+                                 None if percent_water is None else percent_water - offset)
             data = None
             batch = _moved(batch, offset)
-            layout_break = batch.layout_break
+            layout_break, percent_water = batch.layout_break, batch.percent_water
             batch = replace(seen.check(batch), more=more)
             offset += lines  # the chunk's lines, blank ones included: rows are numbered by line
             yield batch
@@ -158,9 +162,12 @@ def _moved(batch: SampleBatch, offset: int) -> SampleBatch:
         under = _UNDER.match(r.reason) if r.code == "D020" else None
         if under:
             reason = f"{under.group(1)}{int(under.group(2)) + offset}{under.group(3)}"
+        if r.code == "D018":  # the row of a percentage beside it, named in the reason
+            reason = _BESIDE_ROW.sub(lambda m: f"{m.group(1)}{int(m.group(2)) + offset})", reason)
         rejects.append(replace(r, row=r.row + offset, reason=reason))
     moved = batch.layout_break and (batch.layout_break[0] + offset, batch.layout_break[1])
-    return replace(batch, frame=frame, rejects=tuple(rejects), layout_break=moved)
+    percent = None if batch.percent_water is None else batch.percent_water + offset
+    return replace(batch, frame=frame, rejects=tuple(rejects), layout_break=moved, percent_water=percent)
 
 
 class _SeenIds:

@@ -69,12 +69,31 @@ def _normalised(text: str) -> str:
     return re.sub(r"\s*/\s*", "/", re.sub(r"\s+", " ", text))
 
 
+# What a percentage is a share of, written beside the sign on a units line (`% m/m`, `%(w/w)`,
+# `wt %`, `Gew.-%`, `% v/v`): the cell still names %. ISO 80000-1 would have the quantity say it,
+# not the unit; labs write it beside the sign (common practice, no source).
+_SHARE_OF = re.compile(r"\b(?:m/m|w/w|v/v|wt|mass|vol|volume|weight|gew|by mass|by weight|by volume)\b")
+
+
+# What is counted, written before a count's volume on a units line (`counts/100 mL`, `particles per
+# mL`, `n/mL`, `#/mL`): the cell still names the volume (common practice, no source).
+_COUNTED = re.compile(r"^(?:particle counts?|counts?|cts|particles?|n|#|no\.?|number)\s*(?=/|per\b)")
+
+
+# The temperature a viscosity's unit is given at, after it on a units line (`cSt @ 40 °C`, `mPa.s at
+# 40C`): the cell still names the unit (common practice, no source).
+_AT_TEMPERATURE = re.compile(r"\s*(?:@|\bat\b)?\s*[(\[]?\d+ ?(?:\u00b0|\u00ba|deg\.?)? ?[cf][)\]]?$")
+
+
 def named_unit(measure: str, text: str, whole: bool = False) -> str | None:
     """The unit `text` names for `measure` (a header; `whole`: a cell of a units line, which must be
-    a unit and nothing else, brackets aside), or None."""
+    a unit and nothing else, brackets aside, a percentage's `m/m` or `wt` beside it, what a count
+    counts before its volume and a viscosity's temperature after it), or None."""
     text = _normalised(text).strip()
     if whole:
-        text = text.strip("[]() ")
+        text = _AT_TEMPERATURE.sub("", _COUNTED.sub("", text.strip("[]() "))).strip("[]() ")
+        if "%" in text and not _SHARE_OF.sub("", text).strip("[]()%.,- "):
+            text = "%"
     for pattern, unit in _COMPILED.get(measure, ()):
         found = pattern.search(text)
         if found and (not whole or (found.start() == 0 and found.end() == len(text))):

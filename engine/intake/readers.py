@@ -629,18 +629,31 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
     path = getattr(worksheet, "_worksheet_path", None)  # the sheet's part in the archive, for its merged cells
     book.close()
     unsaved = _unsaved_formulas(data, chosen, cells)
-    if path:
-        _fill_merged(data, path, cells)
-    if not cells or not any(v is not None for v in cells[0]):
+    xml = _sheet_xml(data, path) if path else b""
+    if xml:
+        _fill_merged(xml, cells)
+    top = _title_rows(cells)
+    if top:
+        titles = [next(str(v) for v in cells[k] if v is not None) for k in range(top) if any(v is not None for v in cells[k])]
+        notes.append(f"read the header from sheet row {top + 1}; the rows above it hold one text each, a title, "
+                     f"not a header ({'; '.join(repr(t) for t in titles)}), and are not read")
+    if len(cells) <= top or not any(v is not None for v in cells[top]):
         raise InputError(f"sheet {chosen!r} is empty: expected a header row and data rows")
-    header = list(cells[0])
+    hidden = [row - 1 for row in _hidden_rows(xml)
+              if top + 1 < row <= len(cells) and any(v is not None for v in cells[row - 1])]
+    if hidden:
+        listed = ", ".join(map(str, hidden[:10])) + (f" and {len(hidden) - 10} more" if len(hidden) > 10 else "")
+        notes.append(f"{'rows' if len(hidden) > 1 else 'row'} {listed} hidden in the sheet (by a filter or by hand), "
+                     f"read like the others; a row hidden as no sample to grade (a superseded result) must be "
+                     f"deleted from the sheet")
+    header = list(cells[top])
     while header and header[-1] is None:
         header.pop()
     header = ["" if h is None else str(h) for h in header]
     check_header(header)
     width = len(header)
     kept, rows, skipped = [], [], []
-    for number, values in enumerate(cells[1:], start=1):
+    for number, values in enumerate(cells[top + 1:], start=top + 1):
         values = list(values)
         if all(v is None or (isinstance(v, str) and not v.strip()) for v in values):
             continue
@@ -654,6 +667,19 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
         rows.append(number)
     frame = pd.DataFrame(kept, columns=[h.strip() for h in header], dtype=object)
     return RawTable(frame, np.asarray(rows, dtype=np.int64), skipped, notes, [h.strip() for h in header])
+
+
+def _title_rows(cells: list) -> int:
+    """How many rows above the header are a title: a workbook report's heading (`Brackwater Point:
+    oil analysis, November`, merged across the table or in one cell), a printed-on line, blank rows.
+    Such rows hold one text at most (a merged title gives it to each cell); the header is the first
+    row with two different names. 0 when the first row is one, or no row is (common practice, no
+    source)."""
+    for k, row in enumerate(cells):
+        texts = {str(v).strip() for v in row if v is not None and str(v).strip()}
+        if len(texts) > 1:
+            return k
+    return 0
 
 
 def _unsaved_formulas(data: bytes, sheet: str, cells: list) -> dict:
@@ -685,21 +711,41 @@ def _unsaved_formulas(data: bytes, sheet: str, cells: list) -> dict:
 _MERGED = re.compile(rb'<(?:\w+:)?mergeCell\s+ref="([A-Z]+[0-9]+(?::[A-Z]+[0-9]+)?)"')
 
 
-def _fill_merged(data: bytes, path: str, cells: list) -> None:
+def _sheet_xml(data: bytes, path: str) -> bytes:
+    """The sheet's part of the workbook archive (b"" when absent)."""
+    import zipfile
+
+    with zipfile.ZipFile(io.BytesIO(data)) as archive:
+        try:
+            return archive.read(path.lstrip("/"))
+        except KeyError:
+            return b""
+
+
+_ROW = re.compile(rb"<(?:\w+:)?row\b([^>]*)>")
+_HIDDEN = re.compile(rb"""\bhidden=["'](?:1|true)["']""")
+_ROW_NUMBER = re.compile(rb"""\br=["'](\d+)["']""")
+
+
+def _hidden_rows(xml: bytes) -> list[int]:
+    """Sheet row numbers the sheet marks hidden (openpyxl's read-only mode does not say): the row
+    element's `hidden` attribute (ECMA-376 Part 1, the row element, 18.3.1.73 from memory)."""
+    found = []
+    for match in _ROW.finditer(xml):
+        attributes = match.group(1)
+        if _HIDDEN.search(attributes) and (number := _ROW_NUMBER.search(attributes)):
+            found.append(int(number.group(1)))
+    return found
+
+
+def _fill_merged(xml: bytes, cells: list) -> None:
     """Each merged range's cells given its top-left cell's value, as the sheet shows it (in place).
 
     openpyxl's read-only mode gives the value to the top-left cell only: a unit or a date merged
     down a group of rows would leave the rows below it without one (no trend for them), a header
     merged across two columns would name only the first."""
-    import zipfile
-
     from openpyxl.utils.cell import range_boundaries
 
-    with zipfile.ZipFile(io.BytesIO(data)) as archive:
-        try:
-            xml = archive.read(path.lstrip("/"))
-        except KeyError:
-            return
     at = xml.find(b"mergeCells", max(xml.rfind(b"sheetData"), 0))  # the list follows the cells
     if at < 0:
         return

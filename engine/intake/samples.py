@@ -11,6 +11,7 @@ from __future__ import annotations
 import datetime as dt
 import difflib
 import itertools
+import re
 
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -18,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.censored import CENSORED_SUFFIX, WRITTEN_SUFFIX, read_censored
+from sumpwise.intake.censored import CENSORED_SUFFIX, NOT_DETECTED_SPELLINGS, WRITTEN_SUFFIX, read_censored
 from sumpwise.intake.column_map import (FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, engine_columns,
                                         header_key, load_column_map)
 from sumpwise.intake.dates import read_dates
@@ -73,6 +74,7 @@ class SampleBatch:
     source: str
     notes: tuple = ()  # what the reader detected or left unused, said once on standard error
     layout_break: tuple | None = None  # (row, columns moved) of a header line in another layout still in force
+    percent_water: int | None = None  # the row of a water reading that read as a percentage (for later chunks)
     more: bool | None = None  # a chunk of a file: whether the file goes on after it (None: not known)
 
     @property
@@ -81,12 +83,13 @@ class SampleBatch:
 
 
 def read_samples(source, name: str | None = None, columns: ColumnMap | None = None, fmt: str | None = None,
-                 numeric: tuple = (), layout_break: tuple | None = None) -> SampleBatch:
+                 numeric: tuple = (), layout_break: tuple | None = None,
+                 percent_water: int | None = None) -> SampleBatch:
     """Read samples from a path or a stream; `fmt` is csv, jsonl or xlsx (guessed from the name).
 
     A file and the same bytes on a stream give the same rows, numbers and rejects.
-    `numeric` names extra numeric columns (measures a rule set declares); `layout_break` is for a
-    chunk of a file (validate_samples).
+    `numeric` names extra numeric columns (measures a rule set declares); `layout_break` and
+    `percent_water` are for a chunk of a file (validate_samples).
     """
     if isinstance(source, (str, Path)):
         name = name or str(source)
@@ -121,7 +124,7 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes,
-                            layout_break=layout_break)
+                            layout_break=layout_break, percent_water=percent_water)
 
 
 def lab_numeric_columns(columns: ColumnMap, numeric: tuple = ()) -> set:
@@ -147,24 +150,40 @@ def _row_numbers(raw: pd.DataFrame, skipped: list) -> np.ndarray:
     return rows[~np.isin(rows, skipped_rows)][: len(raw)]
 
 
+# Words labs head a measure's column with that spelling alone does not bring near its engine name
+# (`Moisture`, `H2O`, `TBN`, `Visc 40`): hints only, the column is never read on them (ASTM D6304 names
+# water content, D664 and D974 acid number, D2896 base number, D445 kinematic viscosity; the short
+# forms are common practice, no source).
+_TRADE_WORDS = tuple((re.compile(pattern, re.IGNORECASE), name) for pattern, name in (
+    (r"\b(?:moisture|h2o|karl ?fischer|kf)\b", "water"),
+    (r"\b(?:tbn|base ?number)\b", "bn"),
+    (r"\b(?:tan|acid ?number|neutrali[sz]ation ?number)\b", "an"),
+    (r"\b(?:kv|visc\w*|v)\W*40\b", "kv40"),
+    (r"\b(?:kv|visc\w*|v)\W*100\b", "kv100"),
+))
+
+
 def unused_columns_note(unused: list, unread: set) -> str:
     """Columns nobody reads, said once: a misspelt `wter` must not vanish without a word."""
     named = []
     for column in unused:
         near = difflib.get_close_matches(column.lower(), sorted(unread), n=1, cutoff=0.75)
+        near = near or [name for pattern, name in _TRADE_WORDS if name in unread and pattern.search(column)][:1]
         named.append(f"{column} (did you mean {near[0]}?)" if near else column)
     return f"lab columns not used: {', '.join(named)}"
 
 
 def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: ColumnMap, numeric: tuple = (),
                      rows: np.ndarray | None = None, notes=(), layout_break: tuple | None = None,
+                     percent_water: int | None = None,
                      today: dt.date | None = None) -> SampleBatch:
     """Map, convert and check rows; pure apart from its arguments and the day it runs (`today`,
     read from the clock when not given: a sampling date far after it is a slip in the year).
 
     `skipped` holds (row, reason[, code[, field]]) of rows the reader could not use; `rows` the row
     number of each frame row (1, 2, ... when not given); `layout_break` a header line in another
-    layout that an earlier part of the file left in force (see header_lines.py).
+    layout that an earlier part of the file left in force (see header_lines.py); `percent_water`
+    the row (in this part's numbering) of a water reading an earlier part read as a percentage.
     """
     columns = columns or ColumnMap()
     skipped = [(*s, *("D001", "(row)")[len(s) - 2:]) for s in skipped]  # code and field where not given
@@ -303,6 +322,10 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         if text is not None and not_a_number.any():
             written_cells[column] = text.to_numpy(dtype=object)
             named |= _header_names(written_cells[column], not_a_number, header_names)
+            grouped = _grouped_numbers(text, not_a_number, decimal)
+            if (read := ~np.isnan(grouped)).any():
+                values, not_a_number = np.where(read, grouped, values), not_a_number & ~read
+        percent = None
         if text is not None and not_a_number.any():
             percent = _percent_cells(values, text, not_a_number, decimal, columns.units.get(column) == "%")
             if percent.any():
@@ -348,15 +371,28 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column == "water" and column not in columns.units:
-            with np.errstate(invalid="ignore"):
-                tiny = (values > 0) & (values < 1) & ~bad  # a row its unit column rejects already is not asked
-                low = (values >= 1) & (values < 10) & ~bad & tiny.any()  # beside such readings, one too
-            if tiny.any():
+            stated = np.zeros(len(raw), dtype=bool)  # rows whose unit column says ppm
+            if column in unit_columns:
+                cells = raw[unit_columns[column]].to_numpy(dtype=object)
+                codes, spellings = pd.factorize(cells)  # a few spellings
+                stated = np.array([named_unit(column, str(cell), whole=True) == "ppm" for cell in spellings] + [False],
+                                  dtype=bool)[codes]
+            scale = _percent_sized(values, censored, held, text, bad,
+                                   named_unit("water", labs.get(column, column)) == "ppm", percent, stated,
+                                   percent_water is not None)
+            if scale is not None:
+                tiny, low, ambiguous, first, strong = scale
+                row = int(raw.index[first]) if first is not None else percent_water
+                if percent_water is None and strong:
+                    percent_water = row  # handed on to the file's later chunks
                 lab = labs.get(column, column)
-                reasons = _found("", raw[column], tiny | low, quoted=True) + _BELOW_KARL_FISCHER.format(lab=lab)
-                reasons[low] = _found("", raw[column], low, quoted=True)[low] + _BESIDE_PERCENTAGES.format(
-                    lab=lab, row=int(raw.index[np.argmax(tiny)]))
-                reject(tiny | low, column, reasons, "D018")
+                said = tiny | low | ambiguous
+                reasons = _found("", raw[column], said, quoted=True)
+                reasons[tiny] += _BELOW_KARL_FISCHER.format(lab=lab)
+                reasons[low] += (_BESIDE_PERCENTAGES if strong or first is None else _NO_PPM_BESIDE).format(
+                    lab=lab, row=row)
+                reasons[ambiguous] += _PERCENT_OR_PPM.format(lab=lab, row=row)
+                reject(said, column, reasons, "D018")
         if factor != 1.0:
             values = np.round(values * factor, DECIMALS)  # no binary noise: 0.07 % is 700 ppm exactly
         if (beyond := values > domain[-1].high).any():  # in canonical units: water above 100 %
@@ -430,7 +466,8 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     rejects.sort(key=lambda r: (r.row, r.field))
     accepted = raw[~bad]
     read = len(raw) + len(summary.at) + len({s[0] for s in skipped})
-    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break)
+    return SampleBatch(accepted, tuple(rejects), read, name, tuple(notes), layout_break=layout_break,
+                       percent_water=percent_water)
 
 
 # Why a water reading between 0 and 1 in a column read in ppm is rejected: no Karl Fischer titration
@@ -445,9 +482,68 @@ _BELOW_KARL_FISCHER = (" ppm is below what a Karl Fischer titration reports (AST
 # percentage, above): 1.5 there is 1.5 % (15,000 ppm, free water) far more likely than 1.5 ppm, which
 # is below what a Karl Fischer titration reports as well; read as ppm, the wettest sample graded normal.
 _BESIDE_PERCENTAGES = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), and "
-                       "column {lab!r} holds readings below 1 ppm that read as percentages (row {row}): a "
+                       "column {lab!r} holds readings that read as percentages (row {row}): a "
                        "percentage too? declare water: {{column: {lab!r}, unit: '%'}} in the column map, or "
                        "correct the export")
+
+
+# Why a water reading from 1 to 10 ppm is rejected in a column most of whose readings are so and none
+# above 100 ppm: below what Karl Fischer reports as ppm, and nothing in the column says it is in ppm,
+# while every reading of it could be a percentage (a column of 2, 5 and 12: a wet sample's 12 % graded
+# normal as 12 ppm).
+_NO_PPM_BESIDE = (" ppm is below what a Karl Fischer titration reports (ASTM D6304: from 10 mg/kg), as most of "
+                  "column {lab!r} is, and none of it is above 100 ppm to say it is in ppm: a percentage? declare water: "
+                  "{{column: {lab!r}, unit: '%'}} in the column map (unit: ppm if it is ppm), or correct the export")
+
+
+# Why a water reading from 10 to 100 is rejected in a column that reads as percentages (a reading
+# below 1, or below 10 with none above 100): it is a reading Karl Fischer reports in ppm and a
+# percentage a wet sample has (emulsified or free water), and which one is not guessed; read as ppm,
+# a 12 % reading (120,000 ppm, far above any urgent step) graded normal as 12 ppm.
+_PERCENT_OR_PPM = (" could be ppm or a percentage, and column {lab!r} holds readings that read as percentages "
+                   "(row {row}): which one is not guessed; declare water: {{column: {lab!r}, unit: '%'}} in the "
+                   "column map (unit: ppm if it is ppm), or correct the export")
+
+
+def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.ndarray | None,
+                   written: pd.Series | None, bad: np.ndarray, header_says_ppm: bool,
+                   signed: np.ndarray | None, stated: np.ndarray, earlier: bool = False) -> tuple | None:
+    """Where a water column read in ppm (no unit declared) reads as percentages: (tiny, low,
+    ambiguous, first, strong), the rows below 1, from 1 to 10 and from 10 to 100 to reject, the
+    first row that gives the column away (None when an earlier chunk of the file did: `earlier`)
+    and whether a reading below 1 or a percent sign did; None when nothing does. A censored cell
+    counts by the bound the lab wrote (`<0.05` ppm is no bound Karl Fischer writes either), an `ND`
+    not: its bound is the map's detection limit, not a reading of the column (`written`: the
+    cells as text, stripped).
+    Cells written with a percent sign (`signed`, rejected already) give the column away as well.
+    Karl Fischer reports from 10 mg/kg (ASTM D6304 §1.1), so a reading below 1 is a percentage, and
+    one below 10 is one too when most readings of the column are below 10 and none is above 100 (no
+    percentage is; a dry column of 8, 25, 40 and 60 ppm is ppm, common practice, no source); beside
+    them, 10 to 100 is either. A header that names ppm (`Water ppm`) says what 10 to 100 is: there
+    only a reading below 1, and one below 10 beside it, is rejected; so does a row's unit column
+    (`stated`: the rows whose unit cell names ppm), for its row."""
+    sized = values
+    if held is not None and held.any():
+        at = np.flatnonzero(held)
+        spelled = written.to_numpy(dtype=object)[at].astype(str)
+        at = at[~np.isin(np.strings.lower(spelled), NOT_DETECTED_SPELLINGS)]  # an ND's bound: the map's limit
+        codes, spellings = pd.factorize(censored[at])  # a few: `<0.05`, `>1000`
+        sized = values.copy()
+        sized[at] = np.array([float(str(cell).lstrip("<>=")) for cell in spellings], dtype=float)[codes]
+    with np.errstate(invalid="ignore"):
+        sized = np.where(bad, np.nan, sized)  # a row rejected already is not asked
+        tiny = (sized > 0) & (sized < 1)
+        below = (sized > 0) & (sized < 10)
+        signed = signed if signed is not None and signed.any() else None
+        strong = tiny.any() or signed is not None  # what an earlier chunk hands on too
+        weak = 2 * int((below & ~stated).sum()) > int((sized > 0).sum())  # most readings under Karl Fischer's 10
+        if not (strong or earlier or (not header_says_ppm and weak and not (sized > 100).any())):
+            return None
+        ambiguous = (sized >= 10) & (sized <= 100) & ~stated & (not header_says_ppm)
+    if not strong and not earlier:  # the column gives itself away by readings below 10 alone
+        below &= ~stated
+    first = tiny if tiny.any() else signed if signed is not None else None if earlier else below
+    return tiny, below & ~tiny, ambiguous, None if first is None else int(np.argmax(first)), strong
 
 
 def _header_names(text: np.ndarray, not_a_number: np.ndarray, names: set) -> np.ndarray:
@@ -745,6 +841,24 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     if is_bool.any():  # JSON true/false in a number column: not a number, quoted as written
         shown[is_bool] = [str(v).lower() for v in values[is_bool]]
     return parsed, pd.Series(shown, index=column.index, dtype=object), not_a_number
+
+
+def _grouped_numbers(text: pd.Series, not_a_number: np.ndarray, decimal: str) -> np.ndarray:
+    """Numbers written with thousands groups that cannot be read two ways (NaN elsewhere): the
+    other mark between groups of three digits and the decimal mark after them (`1.234,5` where
+    ',' is the mark, `1,234.5` where '.' is), or a space between groups (`1 234,5`, `12 500`: no
+    file writes a space for its decimal mark). `1.234` alone stays unread where ',' is the mark (a
+    thousands separator, or a slip?). Only the cells that are not numbers are looked at (a few)."""
+    other = "." if decimal == "," else ","
+    mark, group = re.escape(decimal), re.escape(other)
+    pattern = re.compile(rf"[+-]?\d{{1,3}}(?:(?:{group}\d{{3}})+{mark}\d+|(?:[ \u00a0\u202f]\d{{3}})+(?:{mark}\d+)?)")
+    values = np.full(len(text), np.nan)
+    at = np.flatnonzero(not_a_number)
+    codes, spellings = pd.factorize(text.to_numpy(dtype=object)[at])
+    read = [float(re.sub(rf"[{group} \u00a0\u202f]", "", cell).replace(decimal, "."))
+            if isinstance(cell, str) and pattern.fullmatch(cell) else np.nan for cell in spellings]
+    values[at] = np.array(read + [np.nan], dtype=float)[codes]
+    return values
 
 
 def _found(prefix: str, column: pd.Series, mask: np.ndarray, quoted: bool = False) -> np.ndarray:
