@@ -43,13 +43,17 @@ RULES = ROOT / "tests" / "data" / "ledger" / "trend-rules.yaml"
 
 
 def synthetic(n: int, units: int, seed: int = 20260101) -> pd.DataFrame:
-    """n samples, units sampled in turn every few days, oil ageing slowly, an oil change now and then."""
+    """n samples, units sampled in turn every few days, oil ageing slowly, an oil change now and then:
+    the new oil's hours count from its fill and its readings start from new again, as a site's do
+    (hours running on across a flagged change are a unit's hours, which the engine says)."""
     rng = np.random.default_rng(seed)
     per_unit = n // units
     unit = np.repeat(np.arange(units), per_unit)
     k = np.tile(np.arange(per_unit), units)
-    hours = 200.0 + k * 150.0 + rng.integers(0, 20, len(k))
     changed = rng.random(len(k)) < 0.01
+    charge = pd.Series(changed).groupby(unit).cumsum().to_numpy()
+    age = pd.Series(k).groupby([unit, charge]).cumcount().to_numpy()  # samples since the fill
+    hours = 200.0 + age * 150.0 + rng.integers(0, 20, len(k))
     frame = pd.DataFrame({
         "sample_id": np.char.add("S", np.arange(len(k)).astype(str)).astype(object),
         "unit_id": np.char.add("U-", unit.astype(str)).astype(object),
@@ -57,10 +61,10 @@ def synthetic(n: int, units: int, seed: int = 20260101) -> pd.DataFrame:
         "sampled_on": (pd.Timestamp("2020-01-01") + pd.to_timedelta(k * 7, unit="D")).strftime("%Y-%m-%d")
         .to_numpy(dtype=object),
         "oil_hours": hours,
-        "kv40": np.round(46.0 + k * 0.004 + rng.normal(0, 0.2, len(k)), 2),
-        "an": np.round(0.05 + k * 0.001 + rng.normal(0, 0.01, len(k)), 3).clip(0),
+        "kv40": np.round(46.0 + age * 0.004 + rng.normal(0, 0.2, len(k)), 2),
+        "an": np.round(0.05 + age * 0.001 + rng.normal(0, 0.01, len(k)), 3).clip(0),
         # direct carbonyl from the rule set's new-oil 1.0 abs/0.1 mm (100 abs/cm) upwards, in abs/cm
-        "oxidation": np.round(100.0 + k * 0.03 + rng.normal(0, 0.3, len(k)), 1),
+        "oxidation": np.round(100.0 + age * 0.03 + rng.normal(0, 0.3, len(k)), 1),
         "water": np.round(rng.normal(80, 20, len(k)).clip(0)),
         "method": np.where(rng.random(len(k)) < 0.02, "subtraction", "direct").astype(object),
         "lab": "lab-a",
