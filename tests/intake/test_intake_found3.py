@@ -11,7 +11,8 @@ from __future__ import annotations
 import json
 
 import pytest
-from conftest import DATA, ROOT, run_cli
+from conftest import DATA, ROOT
+from grade_runs import counts_said, fired_rules, graded_run, rejects_said
 from workbooks import write_workbook
 
 FOUND = DATA / "intake_found3"
@@ -19,15 +20,8 @@ GEAR_IRON = FOUND / "gear-iron.yaml"
 HYDRAULIC = ROOT / "rules" / "hydraulic.yaml"
 
 
-def _graded(*argv) -> tuple[dict, str]:
-    """{sample id: record} of a `grade` run (JSON Lines) and its standard error; exit 0 required."""
-    run = run_cli("grade", *argv)
-    assert run.code == 0, run.err
-    return {r["sample_id"]: r for r in map(json.loads, run.out.splitlines())}, run.err
 
 
-def _fired(record: dict) -> set:
-    return {reason["rule"] for reason in record["reasons"]}
 
 
 def _csv_rows(path) -> list:
@@ -48,16 +42,16 @@ def _check_offset_trend(got: dict) -> None:
     # evening sample was dated 2026-03-03T04:30, after the resample: the resample took the step
     # of 41 (alert) and the evening sample graded normal with an oil-changed caveat (oil hours
     # 6029 -> 6020 read as a fall).
-    assert (got["GB7-0419"]["grade"], _fired(got["GB7-0419"])) == ("alert", {"iron-step"})
+    assert (got["GB7-0419"]["grade"], fired_rules(got["GB7-0419"])) == ("alert", {"iron-step"})
     assert "oil-changed" not in {c["caveat"] for c in got["GB7-0419"]["caveats"]}
-    assert (got["GB7-0420"]["grade"], _fired(got["GB7-0420"])) == ("normal", set())
+    assert (got["GB7-0420"]["grade"], fired_rules(got["GB7-0420"])) == ("normal", set())
     assert "iron-step" not in {gap["rule"] for gap in got["GB7-0420"]["not_evaluated"]}  # evaluated, quiet
     assert got["GB7-0419"]["sampled_on"] == "2026-03-02T23:30:00"  # the date as the lab wrote it
     assert got["GB7-0412"]["sampled_on"] == "2026-02-02T14:05:00"
 
 
 def test_an_offset_date_keeps_its_day_and_the_trend_its_order_csv():
-    got, _ = _graded(OFFSET_DATES, "--rules", GEAR_IRON)
+    got, _ = graded_run(OFFSET_DATES, "--rules", GEAR_IRON)
     _check_offset_trend(got)
 
 
@@ -67,7 +61,7 @@ def test_an_offset_date_keeps_its_day_and_the_trend_its_order_json_lines(tmp_pat
     lines = [json.dumps({k: float(v) if k in numeric else v for k, v in zip(header, row)}) for row in rows[1:]]
     path = tmp_path / "offset-dates.jsonl"
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
-    got, _ = _graded(path, "--rules", GEAR_IRON)
+    got, _ = graded_run(path, "--rules", GEAR_IRON)
     _check_offset_trend(got)
 
 
@@ -81,24 +75,14 @@ def test_an_offset_date_keeps_its_day_and_the_trend_its_orderwrite_workbook(tmp_
     book_rows[3][4] = datetime(2026, 3, 3)
     path = tmp_path / "offset-dates.xlsx"
     write_workbook(path, book_rows)
-    got, _ = _graded(path, "--rules", GEAR_IRON)
+    got, _ = graded_run(path, "--rules", GEAR_IRON)
     _check_offset_trend(got)
 
 
 # --- 1. Summary lines of an export rejected as what they are (D019) -----------------------------
 
-def _rejects(err: str) -> list:
-    """(row, code, field) of the rejects `grade` writes on standard error."""
-    import re
-    return [(int(row), code, field) for row, code, field in
-            re.findall(r": row (\d+)(?: \(sample [^)]*\))?: rejected (D\d{3}): ([^:]+):", err)]
 
 
-def _counts(err: str) -> tuple:
-    import re
-    found = re.findall(r"read (\d+) row\(s\): (\d+) graded, (\d+) unrated, (\d+) rejected", err)
-    (read, graded, unrated, rejected), = found
-    return int(read), int(graded), int(unrated), int(rejected)
 
 
 def test_a_footer_of_statistics_and_a_limit_line_is_rejected_not_graded():
@@ -107,16 +91,16 @@ def test_a_footer_of_statistics_and_a_limit_line_is_rejected_not_graded():
     # five lines graded as hydraulic samples, `Max` and `Grenzwert` (water 260 and 500 ppm above
     # the 200 ppm watch step) at watch. A statistic or a limit is not a sample (common practice,
     # no source).
-    got, err = _graded(FOUND / "summary-semicolon.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "summary-semicolon.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "summary-semicolon.yaml")
     assert set(got) == {"HY-2026-0311", "HY-2026-0312", "MAX-PUMP-03", "HY-2026-0314"}
-    assert _rejects(err) == [(5, "D019", "sample_id"), (6, "D019", "sample_id"), (7, "D019", "sample_id"),
+    assert rejects_said(err) == [(5, "D019", "sample_id"), (6, "D019", "sample_id"), (7, "D019", "sample_id"),
                              (8, "D019", "sample_id"), (9, "D019", "sample_id")]
-    assert _counts(err) == (9, 4, 0, 5)  # read = graded + unrated + rejected
+    assert counts_said(err) == (9, 4, 0, 5)  # read = graded + unrated + rejected
     # MAX-PUMP-03 merely contains a label: a sample, graded on hydraulic.yaml's rules: kv40 47.9
     # against new 45.6 is +5.0 % (> 5: watch), acid number 0.71 - 0.50 = 0.21 (> 0.2: watch), water
     # 260 ppm (> 200: watch) (common practice, no source, as the rules say).
-    assert (got["MAX-PUMP-03"]["grade"], _fired(got["MAX-PUMP-03"])) == ("watch", {"visc-drift", "acid-rise", "water"})
+    assert (got["MAX-PUMP-03"]["grade"], fired_rules(got["MAX-PUMP-03"])) == ("watch", {"visc-drift", "acid-rise", "water"})
 
 
 def test_summary_objects_in_json_lines_are_rejected_each_time_they_come():
@@ -124,11 +108,11 @@ def test_summary_objects_in_json_lines_are_rejected_each_time_they_come():
     # then the new oil's typical values and a limit line. Was: both averages, the new oil and the
     # limit graded (the limit line alert: water 500 ppm, acid rise 0.4, kv40 +10.1 %), and the
     # second `Average` would have been a D003 repeat at best.
-    got, err = _graded(FOUND / "summary-lines.jsonl", "--rules", HYDRAULIC)
+    got, err = graded_run(FOUND / "summary-lines.jsonl", "--rules", HYDRAULIC)
     assert set(got) == {"HY-2026-0402", "HY-2026-0403", "HY-2026-0404"}
-    assert _rejects(err) == [(3, "D019", "sample_id"), (5, "D019", "sample_id"), (6, "D019", "sample_id"),
+    assert rejects_said(err) == [(3, "D019", "sample_id"), (5, "D019", "sample_id"), (6, "D019", "sample_id"),
                              (7, "D019", "sample_id")]
-    assert _counts(err) == (7, 3, 0, 4)
+    assert counts_said(err) == (7, 3, 0, 4)
 
 
 def test_a_label_column_beside_an_empty_or_counted_sample_id_in_awrite_workbook(tmp_path):
@@ -148,10 +132,10 @@ def test_a_label_column_beside_an_empty_or_counted_sample_id_in_awrite_workbook(
     (tmp_path / "map.yaml").write_text(
         'sample_id: "Sample No."\nunit_id: Point\nclass: {value: hydraulic}\nlubricant: Oil\nsampled_on: Date\n'
         'kv40: "Visc 40"\nan: TAN\nwater: Water\n', encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    got, err = graded_run(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert set(got) == {"260411", "260412", "260413"}
-    assert _rejects(err) == [(3, "D019", "unit_id"), (5, "D019", "unit_id"), (6, "D019", "unit_id")]
-    assert _counts(err) == (6, 3, 0, 3)
+    assert rejects_said(err) == [(3, "D019", "unit_id"), (5, "D019", "unit_id"), (6, "D019", "unit_id")]
+    assert counts_said(err) == (6, 3, 0, 3)
 
 
 def test_per_unit_average_lines_that_repeat_the_unit_and_a_date_are_rejected():
@@ -161,10 +145,10 @@ def test_per_unit_average_lines_that_repeat_the_unit_and_a_date_are_rejected():
     # The lone `Max` line after them, which gives a unit and a date too, was graded as a sample of
     # HPU-2 until the fourth hunt (test_intake_found4.py): a sample id that is a summary label is
     # no sample whatever else the row holds.
-    got, err = _graded(FOUND / "summary-grouped.csv", "--rules", HYDRAULIC)
+    got, err = graded_run(FOUND / "summary-grouped.csv", "--rules", HYDRAULIC)
     assert set(got) == {"HY-2026-0501", "HY-2026-0502", "HY-2026-0503", "HY-2026-0504"}
-    assert _rejects(err) == [(3, "D019", "sample_id"), (6, "D019", "sample_id"), (7, "D019", "sample_id")]
-    assert _counts(err) == (7, 4, 0, 3)
+    assert rejects_said(err) == [(3, "D019", "sample_id"), (6, "D019", "sample_id"), (7, "D019", "sample_id")]
+    assert counts_said(err) == (7, 4, 0, 3)
 
 
 @pytest.mark.parametrize("cell", ["MAX-PUMP-03", "Total-Lube-Tank-A", "MEAN CREEK PUMP", "Limit switch gearbox",
@@ -175,8 +159,8 @@ def test_a_sample_id_that_contains_a_label_is_graded(tmp_path, cell):
     path = tmp_path / "one.csv"
     path.write_text("sample_id,unit_id,class,lubricant,water\n"
                     f"{cell},HPU-1,hydraulic,HYD-46-M,260\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert got[cell]["grade"] == "watch" and _counts(err) == (1, 1, 0, 0)
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert got[cell]["grade"] == "watch" and counts_said(err) == (1, 1, 0, 0)
 
 
 @pytest.mark.parametrize("cell", ["Average", "AVERAGE:", " mean ", "Std. Dev.", "std-dev", "Min.", "MAXIMUM",
@@ -186,8 +170,8 @@ def test_summary_labels_are_matched_whatever_their_case_spaces_and_punctuation(t
     path = tmp_path / "one.csv"
     path.write_text("sample_id,unit_id,class,lubricant,water\n"
                     f"HY-1,HPU-1,hydraulic,HYD-46-M,120\n\"{cell}\",,hydraulic,,500\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert set(got) == {"HY-1"} and _rejects(err) == [(2, "D019", "sample_id")] and _counts(err) == (2, 1, 0, 1)
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert set(got) == {"HY-1"} and rejects_said(err) == [(2, "D019", "sample_id")] and counts_said(err) == (2, 1, 0, 1)
 
 
 # --- 3. Exports joined end to end: a header line among the data (D020) -------------------------
@@ -204,22 +188,22 @@ def test_rows_under_a_header_line_in_another_layout_are_rejected_not_graded(chun
     # source) read as 0.55 ppm. A value is only what its column says it is (common practice, no
     # source): rows whose columns cannot be matched with certainty are not graded.
     chunks = () if chunk_rows is None else ("--chunk-rows", chunk_rows)
-    got, err = _graded(FOUND / "joined-reordered.csv", "--rules", HYDRAULIC, "--columns", JOINED_MAP, *chunks)
+    got, err = graded_run(FOUND / "joined-reordered.csv", "--rules", HYDRAULIC, "--columns", JOINED_MAP, *chunks)
     assert set(got) == {"HY-2026-0111", "HY-2026-0112"}
-    assert _rejects(err) == [(3, "D020", "(row)"), (4, "D020", "(row)"), (5, "D020", "(row)")]
+    assert rejects_said(err) == [(3, "D020", "(row)"), (4, "D020", "(row)"), (5, "D020", "(row)")]
     assert "header line at row 3" in err and "'TAN' under 'Wasser ppm'" in err
-    assert _counts(err) == (5, 2, 0, 3)
+    assert counts_said(err) == (5, 2, 0, 3)
 
 
 def test_a_header_line_repeated_in_the_same_layout_is_rejected_alone():
     # The same exports joined, both in January's layout: the second header line is rejected once
     # (D020, not four D004/D015 rejects of a "sample" named 'Probe Nr'), and the rows after it
     # grade as written: HY-2026-0212's water 850 ppm is alert (above 500), HY-2026-0211 normal.
-    got, err = _graded(FOUND / "joined-same.csv", "--rules", HYDRAULIC, "--columns", JOINED_MAP)
-    assert _rejects(err) == [(3, "D020", "(row)")]
-    assert (got["HY-2026-0212"]["grade"], _fired(got["HY-2026-0212"])) == ("alert", {"water"})
+    got, err = graded_run(FOUND / "joined-same.csv", "--rules", HYDRAULIC, "--columns", JOINED_MAP)
+    assert rejects_said(err) == [(3, "D020", "(row)")]
+    assert (got["HY-2026-0212"]["grade"], fired_rules(got["HY-2026-0212"])) == ("alert", {"water"})
     assert got["HY-2026-0211"]["grade"] == "normal"
-    assert _counts(err) == (5, 4, 0, 1)
+    assert counts_said(err) == (5, 4, 0, 1)
 
 
 def test_sheets_pasted_one_under_the_other_in_awrite_workbook(tmp_path):
@@ -234,11 +218,11 @@ def test_sheets_pasted_one_under_the_other_in_awrite_workbook(tmp_path):
     write_workbook(path, rows)
     (tmp_path / "map.yaml").write_text('sample_id: Sample\nunit_id: Unit\nclass: {value: hydraulic}\nlubricant: Oil\n'
                                        'sampled_on: Date\nkv40: "Visc 40"\nan: TAN\nwater: Water\n', encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    got, err = graded_run(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert set(got) == {"HY-11", "HY-31"}
-    assert _rejects(err) == [(2, "D020", "(row)"), (3, "D020", "(row)"), (4, "D020", "(row)")]
-    assert (got["HY-31"]["grade"], _fired(got["HY-31"])) == ("alert", {"water"})  # 620 ppm > 500
-    assert _counts(err) == (5, 2, 0, 3)
+    assert rejects_said(err) == [(2, "D020", "(row)"), (3, "D020", "(row)"), (4, "D020", "(row)")]
+    assert (got["HY-31"]["grade"], fired_rules(got["HY-31"])) == ("alert", {"water"})  # 620 ppm > 500
+    assert counts_said(err) == (5, 2, 0, 3)
 
 
 # --- 4. Workbooks: every row the sheet holds, merged cells as the sheet shows them -------------
@@ -270,9 +254,9 @@ def test_a_unit_merged_down_its_group_of_rows_applies_to_each(tmp_path):
     # the whole range (ECMA-376 Part 1, mergeCell: from memory).
     _gear_book(tmp_path / "merged.xlsx", ["GB-7", None, None])
     (tmp_path / "map.yaml").write_text(GEAR_MAP, encoding="utf-8")
-    got, _ = _graded(tmp_path / "merged.xlsx", "--rules", GEAR_IRON, "--columns", tmp_path / "map.yaml")
+    got, _ = graded_run(tmp_path / "merged.xlsx", "--rules", GEAR_IRON, "--columns", tmp_path / "map.yaml")
     assert {k: r["unit_id"] for k, r in got.items()} == {"GB7-1": "GB-7", "GB7-2": "GB-7", "GB7-3": "GB-7"}
-    assert (got["GB7-3"]["grade"], _fired(got["GB7-3"])) == ("alert", {"iron-step"})
+    assert (got["GB7-3"]["grade"], fired_rules(got["GB7-3"])) == ("alert", {"iron-step"})
 
 
 def test_rows_beyond_a_stale_sheet_dimension_are_read(tmp_path):
@@ -291,9 +275,9 @@ def test_rows_beyond_a_stale_sheet_dimension_are_read(tmp_path):
                 data = data.replace(b'<dimension ref="A1:I4"', b'<dimension ref="A1:I3"')
             target.writestr(item, data)
     (tmp_path / "map.yaml").write_text(GEAR_MAP, encoding="utf-8")
-    got, err = _graded(stale, "--rules", GEAR_IRON, "--columns", tmp_path / "map.yaml")
-    assert set(got) == {"GB7-1", "GB7-2", "GB7-3"} and _counts(err) == (3, 3, 0, 0)
-    assert (got["GB7-3"]["grade"], _fired(got["GB7-3"])) == ("alert", {"iron-step"})
+    got, err = graded_run(stale, "--rules", GEAR_IRON, "--columns", tmp_path / "map.yaml")
+    assert set(got) == {"GB7-1", "GB7-2", "GB7-3"} and counts_said(err) == (3, 3, 0, 0)
+    assert (got["GB7-3"]["grade"], fired_rules(got["GB7-3"])) == ("alert", {"iron-step"})
 
 
 # --- 5. A result's qualifier in a column of its own (LIMS exports) ----------------------------
@@ -314,7 +298,7 @@ def _check_qualified(got: dict, decimal: str) -> None:
 
 
 def test_a_qualifier_column_makes_its_result_a_bound_csv():
-    got, err = _graded(FOUND / "lims-qualifiers.csv", "--rules", HYDRAULIC, "--columns", FOUND / "lims-qualifiers.yaml")
+    got, err = graded_run(FOUND / "lims-qualifiers.csv", "--rules", HYDRAULIC, "--columns", FOUND / "lims-qualifiers.yaml")
     _check_qualified(got, ",")
     assert "not used" not in err  # the qualifier columns are read, not listed as unused
 
@@ -328,7 +312,7 @@ def test_a_qualifier_column_makes_its_result_a_boundwrite_workbook(tmp_path):
     (tmp_path / "map.yaml").write_text((FOUND / "lims-qualifiers.yaml").read_text(encoding="utf-8").replace(
         'file: {delimiter: ";", decimal: ",", date_format: "%d.%m.%Y"}', 'file: {date_format: "%d.%m.%Y"}'),
         encoding="utf-8")
-    got, _ = _graded(tmp_path / "lims.xlsx", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    got, _ = graded_run(tmp_path / "lims.xlsx", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     _check_qualified(got, ".")
 
 
@@ -338,14 +322,14 @@ def test_water_readings_below_what_karl_fischer_reports_are_rejected_not_read_as
     # Water in %, the header only 'Water'. Was: read as ppm, HY-2026-0702's 0.12 % (1200 ppm, urgent
     # above 1000 in hydraulic.yaml) graded normal at 0.12 ppm. Coulometric Karl Fischer reports water
     # from 10 mg/kg (ASTM D6304 §1.1), so a reading between 0 and 1 ppm is not ppm: rejected, D018.
-    got, err = _graded(FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-unlabelled.yaml")
-    assert got == {} and _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
-    assert _counts(err) == (3, 0, 0, 3) and "unit: '%'" in err
+    assert got == {} and rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
+    assert counts_said(err) == (3, 0, 0, 3) and "unit: '%'" in err
     # Declared in %, the same file grades: 0.12 % = 1200 ppm urgent, 0.035 % = 350 ppm watch,
     # 0.012 % = 120 ppm normal (1 % = 10,000 ppm by definition; steps of hydraulic.yaml).
     (tmp_path / "map.yaml").write_text((FOUND / "water-percent-unlabelled.yaml").read_text(encoding="utf-8")
                                        .replace("water: Water", "water: {column: Water, unit: '%'}"), encoding="utf-8")
-    got, _ = _graded(FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    got, _ = graded_run(FOUND / "water-percent-unlabelled.csv", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert {k: r["grade"] for k, r in got.items()} == {"HY-2026-0701": "normal", "HY-2026-0702": "urgent",
                                                        "HY-2026-0703": "watch"}

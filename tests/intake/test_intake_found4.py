@@ -15,32 +15,19 @@ import re
 
 import pytest
 from conftest import DATA, ROOT, run_cli
+from grade_runs import counts_said, fired_rules, graded_run, rejects_said
 from workbooks import write_workbook
 
 FOUND = DATA / "intake_found4"
 HYDRAULIC = ROOT / "rules" / "hydraulic.yaml"
 
 
-def _graded(*argv, stdin: str = "") -> tuple[dict, str]:
-    """{sample id: record} of a `grade` run (JSON Lines) and its standard error; exit 0 required."""
-    run = run_cli("grade", *argv, stdin=stdin)
-    assert run.code == 0, run.err
-    return {r["sample_id"]: r for r in map(json.loads, run.out.splitlines())}, run.err
 
 
-def _fired(record: dict) -> set:
-    return {reason["rule"] for reason in record["reasons"]}
 
 
-def _rejects(err: str) -> list:
-    """(row, code, field) of the rejects `grade` writes on standard error."""
-    return [(int(row), code, field) for row, code, field in
-            re.findall(r": row (\d+)(?: \(sample [^)]*\))?: rejected (D\d{3}): ([^:]+):", err)]
 
 
-def _counts(err: str) -> tuple:
-    (found,) = re.findall(r"read (\d+) row\(s\): (\d+) graded, (\d+) unrated, (\d+) rejected", err)
-    return tuple(map(int, found))
 
 
 # --- 1. A header that is an engine name but for case, spaces, '-' or '_' ------------------------
@@ -50,16 +37,16 @@ def _check_mixed_case(got: dict, first: str, second: str, third: str) -> None:
     # over the new oil's 0.50: alert (above 0.4); water 150 and a rise of 0.08: normal. Was: `AN`
     # and `Water` were not read (only a note "lab columns not used: AN (did you mean an?)"), and
     # all three graded normal, no limit crossed.
-    assert (got[first]["grade"], _fired(got[first])) == ("alert", {"water"})
+    assert (got[first]["grade"], fired_rules(got[first])) == ("alert", {"water"})
     assert got[first]["values"]["water"] == 900
-    assert (got[second]["grade"], _fired(got[second])) == ("alert", {"acid-rise"})
+    assert (got[second]["grade"], fired_rules(got[second])) == ("alert", {"acid-rise"})
     assert got[second]["derived"]["an_rise"] == pytest.approx(0.48)
-    assert (got[third]["grade"], _fired(got[third])) == ("normal", set())
+    assert (got[third]["grade"], fired_rules(got[third])) == ("normal", set())
     assert "water" not in {gap["rule"] for gap in got[third]["not_evaluated"]}  # evaluated, quiet
 
 
 def test_title_case_and_dashed_headers_are_read_as_the_engine_columns():
-    got, err = _graded(FOUND / "mixed-case-headers.csv", "--rules", HYDRAULIC)
+    got, err = graded_run(FOUND / "mixed-case-headers.csv", "--rules", HYDRAULIC)
     _check_mixed_case(got, "HY-2026-0701", "HY-2026-0702", "HY-2026-0703")
     assert got["HY-2026-0701"]["unit_id"] == "HPU-1" and got["HY-2026-0701"]["values"]["oil_hours"] == 8120
     # said once, naming each header and the column it is read as
@@ -71,7 +58,7 @@ def test_title_case_and_dashed_headers_are_read_as_the_engine_columns():
 def test_upper_case_headers_in_a_semicolon_export_with_decimal_commas():
     # `;`, BOM, CRLF, decimal commas only in the columns whose headers differ in case: the mark is
     # detected from them (46,2 is 46.2, not a reject). Was: graded normal, the three columns unread.
-    got, err = _graded(FOUND / "semicolon-upper.csv", "--rules", HYDRAULIC)
+    got, err = graded_run(FOUND / "semicolon-upper.csv", "--rules", HYDRAULIC)
     _check_mixed_case(got, "HY-2026-0711", "HY-2026-0712", "HY-2026-0713")
     assert got["HY-2026-0711"]["values"]["kv40"] == 46.2
     assert "detected the decimal mark ','" in err
@@ -86,7 +73,7 @@ def test_upper_case_keys_of_json_lines_are_read_as_the_engine_columns(tmp_path):
               "sampled_on": "2026-08-17", "KV40": 45.9, "AN": 0.58, "Water": 150}]
     path = tmp_path / "upper.jsonl"
     path.write_text("".join(json.dumps(line) + "\n" for line in lines), encoding="utf-8")
-    got, _ = _graded(path, "--rules", HYDRAULIC)
+    got, _ = graded_run(path, "--rules", HYDRAULIC)
     _check_mixed_case(got, "HY-2026-0731", "HY-2026-0732", "HY-2026-0733")
 
 
@@ -95,9 +82,9 @@ def test_title_case_headers_of_a_workbook_and_on_standard_input(tmp_path):
     rows = [line.split(",") for line in text.splitlines()]
     book = [rows[0]] + [[float(c) if k >= 5 else c for k, c in enumerate(row)] for row in rows[1:]]
     write_workbook(tmp_path / "mixed.xlsx", book)
-    got, _ = _graded(tmp_path / "mixed.xlsx", "--rules", HYDRAULIC)
+    got, _ = graded_run(tmp_path / "mixed.xlsx", "--rules", HYDRAULIC)
     _check_mixed_case(got, "HY-2026-0701", "HY-2026-0702", "HY-2026-0703")
-    got, _ = _graded("-", "--rules", HYDRAULIC, stdin=text)
+    got, _ = graded_run("-", "--rules", HYDRAULIC, stdin=text)
     _check_mixed_case(got, "HY-2026-0701", "HY-2026-0702", "HY-2026-0703")
 
 
@@ -123,9 +110,9 @@ def test_two_headers_that_land_on_one_column_are_refused_with_a_code():
 
 
 def test_a_column_map_that_names_one_of_them_wins():
-    got, err = _graded(FOUND / "two-water-columns.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "two-water-columns.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "two-water-columns.yaml")
-    assert (got["HY-2026-0721"]["grade"], _fired(got["HY-2026-0721"])) == ("alert", {"water"})
+    assert (got["HY-2026-0721"]["grade"], fired_rules(got["HY-2026-0721"])) == ("alert", {"water"})
     assert got["HY-2026-0722"]["values"].get("water") is None  # `water` is not read
     assert "columns water not used: the column map reads these names from other columns" in err
 
@@ -157,14 +144,14 @@ def test_a_lone_summary_line_with_a_unit_and_a_date_is_rejected():
     # graded as a sample of HPU-2 (the `Limit` line, kv40 50.2 against 45.6 new, +10.1 %, and water
     # 500 ppm, at alert) and taken into HPU-2's trend. A statistic or a limit is no sample (common
     # practice, no source).
-    got, err = _graded(FOUND / "summary-lone.csv", "--rules", HYDRAULIC)
-    assert _rejects(err) == [(3, "D019", "sample_id"), (4, "D019", "sample_id"), (5, "D019", "sample_id")]
+    got, err = graded_run(FOUND / "summary-lone.csv", "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(3, "D019", "sample_id"), (4, "D019", "sample_id"), (5, "D019", "sample_id")]
     # The other side: a unit named `Average 2` or `MAX`, and the one-letter id `N`, with an id and
     # a date, are samples: water 260 ppm is watch (above 200), 120 and 140 normal.
     assert set(got) == {"HY-2026-0801", "HY-2026-0802", "HY-2026-0803", "HY-2026-0804", "N"}
-    assert (got["HY-2026-0803"]["grade"], _fired(got["HY-2026-0803"])) == ("watch", {"water"})
+    assert (got["HY-2026-0803"]["grade"], fired_rules(got["HY-2026-0803"])) == ("watch", {"water"})
     assert got["HY-2026-0804"]["grade"] == got["N"]["grade"] == "normal"
-    assert _counts(err) == (8, 5, 0, 3)
+    assert counts_said(err) == (8, 5, 0, 3)
 
 
 def test_subtotal_lines_without_a_sample_id_are_rejected_as_summary_lines():
@@ -172,12 +159,12 @@ def test_subtotal_lines_without_a_sample_id_are_rejected_as_summary_lines():
     # in the unit column, the id empty; an `Average` line names its unit cell `Average`. Was:
     # rejected as rows without a sample id (D002), which says nothing of what they are. A row
     # without an id and without a label stays D002.
-    got, err = _graded(FOUND / "subtotals.csv", "--rules", HYDRAULIC)
-    assert _rejects(err) == [(3, "D019", "unit_id"), (5, "D019", "unit_id"), (6, "D019", "unit_id"),
+    got, err = graded_run(FOUND / "subtotals.csv", "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(3, "D019", "unit_id"), (5, "D019", "unit_id"), (6, "D019", "unit_id"),
                              (7, "D019", "unit_id"), (8, "D002", "sample_id")]
     assert "'HPU-1 Average' is a summary label (a spreadsheet subtotal line) and the row has no sample id" in err
-    assert (got["HY-2026-0812"]["grade"], _fired(got["HY-2026-0812"])) == ("watch", {"water"})
-    assert _counts(err) == (8, 3, 0, 5)
+    assert (got["HY-2026-0812"]["grade"], fired_rules(got["HY-2026-0812"])) == ("watch", {"water"})
+    assert counts_said(err) == (8, 3, 0, 5)
 
 
 def test_a_sample_id_that_is_a_label_is_found_among_many_ids(tmp_path):
@@ -188,8 +175,8 @@ def test_a_sample_id_that_is_a_label_is_found_among_many_ids(tmp_path):
     rows.insert(700, "Limit,HPU-1,hydraulic,HYD-46-M,2026-09-30,500")
     path = tmp_path / "many.csv"
     path.write_text("\n".join(rows) + "\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(700, "D019", "sample_id")]
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(700, "D019", "sample_id")]
     assert len(got) == 1500
 
 
@@ -200,7 +187,7 @@ def test_headers_with_units_are_read_in_the_unit_they_name():
     # `Oil Hours (h)`, `KV40 [cSt]`, `AN (mg KOH/g)`, `Water (%)`. Was: none of the four read (a note
     # "lab columns not used"), every sample graded normal. Now read in the unit named: water 0.09 %
     # is 900 ppm (1 % = 10,000 ppm: the definition of ppm by mass, ASTM D6304 reports either), alert.
-    got, err = _graded(FOUND / "units-in-headers.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "units-in-headers.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "units-in-headers.yaml")
     _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
     assert got["HY-2026-0742"]["values"]["water"] == 120 and got["HY-2026-0741"]["values"]["oil_hours"] == 8800
@@ -212,8 +199,8 @@ def test_a_qualifier_column_beside_a_header_with_its_unit_is_read(tmp_path):
     path = tmp_path / "qualified.csv"
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,Water (%),Water (%) Qualifier\n"
                     "HY-2026-0761,HPU-1,hydraulic,HYD-46-M,2026-08-24,0.1,>\n", encoding="utf-8")
-    got, _ = _graded(path, "--rules", HYDRAULIC)
-    assert (got["HY-2026-0761"]["grade"], _fired(got["HY-2026-0761"])) == ("urgent", {"water"})
+    got, _ = graded_run(path, "--rules", HYDRAULIC)
+    assert (got["HY-2026-0761"]["grade"], fired_rules(got["HY-2026-0761"])) == ("urgent", {"water"})
 
 
 def test_a_header_naming_a_unit_the_column_cannot_be_read_in_is_refused():
@@ -232,7 +219,7 @@ def test_a_header_that_is_more_than_a_name_and_a_unit_is_not_read(tmp_path, head
     path = tmp_path / "other.csv"
     path.write_text(f"sample_id,unit_id,class,lubricant,sampled_on,{header}\n"
                     "HY-2026-0771,HPU-1,hydraulic,HYD-46-M,2026-08-24,900\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
+    got, err = graded_run(path, "--rules", HYDRAULIC)
     assert "water" not in got["HY-2026-0771"]["values"] and f"lab columns not used: {header}" in err
 
 
@@ -241,13 +228,13 @@ def test_headers_with_units_on_standard_input_and_wrapped_in_awrite_workbook(tmp
     # workbook whose header cells wrap the unit onto a second line (`Water\n(%)`, as a spreadsheet
     # writes a header with a line break in the cell). Was: the four columns unread, all normal.
     text = (FOUND / "units-in-headers.csv").read_bytes().decode("utf-8-sig")
-    got, _ = _graded("-", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml", stdin=text)
+    got, _ = graded_run("-", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml", stdin=text)
     _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
     rows = [line.split(";") for line in text.splitlines()]
     header = [name.replace(" (", "\n(").replace(" [", "\n[") for name in rows[0]]
     book = [header] + [[float(c.replace(",", ".")) if k >= 5 else c for k, c in enumerate(row)] for row in rows[1:]]
     write_workbook(tmp_path / "wrapped.xlsx", book)
-    got, _ = _graded(tmp_path / "wrapped.xlsx", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml")
+    got, _ = graded_run(tmp_path / "wrapped.xlsx", "--rules", HYDRAULIC, "--columns", FOUND / "units-in-headers.yaml")
     _check_mixed_case(got, "HY-2026-0741", "HY-2026-0742", "HY-2026-0743")
 
 
@@ -259,11 +246,11 @@ def test_a_water_reading_from_1_to_10_beside_percentages_is_rejected_too():
     # normal as 1.5 ppm. Karl Fischer reports from 10 mg/kg (ASTM D6304 §1.1), so 1.5 is no ppm
     # reading either, and beside percentages it is one: rejected, D018. A row with no water reading
     # (HY-2026-0784) is graded, without the water rule.
-    got, err = _graded(FOUND / "water-percent-wet.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "water-percent-wet.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-wet.yaml")
-    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
+    assert rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
     assert "'1.5' ppm is below what a Karl Fischer titration reports" in err and "(row 1)" in err
-    assert set(got) == {"HY-2026-0784"} and _counts(err) == (4, 1, 0, 3)
+    assert set(got) == {"HY-2026-0784"} and counts_said(err) == (4, 1, 0, 3)
 
 
 def test_a_water_reading_from_1_to_10_alone_is_graded(tmp_path):
@@ -273,9 +260,9 @@ def test_a_water_reading_from_1_to_10_alone_is_graded(tmp_path):
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
                     "HY-2026-0791,HPU-1,hydraulic,HYD-46-M,2026-09-28,5\n"
                     "HY-2026-0792,HPU-2,hydraulic,HYD-46-M,2026-09-28,260\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
+    got, err = graded_run(path, "--rules", HYDRAULIC)
     assert got["HY-2026-0791"]["values"]["water"] == 5 and got["HY-2026-0791"]["grade"] == "normal"
-    assert (got["HY-2026-0792"]["grade"], _fired(got["HY-2026-0792"])) == ("watch", {"water"})
+    assert (got["HY-2026-0792"]["grade"], fired_rules(got["HY-2026-0792"])) == ("watch", {"water"})
 
 
 def test_a_space_between_letters_and_digits_is_no_other_column(tmp_path):
@@ -285,6 +272,6 @@ def test_a_space_between_letters_and_digits_is_no_other_column(tmp_path):
     path = tmp_path / "spaced.csv"
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,KV 40,ISO 4406\n"
                     "HY-2026-0801,HPU-1,hydraulic,HYD-46-M,2026-10-05,51.0,22/21/18\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert (got["HY-2026-0801"]["grade"], _fired(got["HY-2026-0801"])) == ("alert", {"visc-drift"})
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert (got["HY-2026-0801"]["grade"], fired_rules(got["HY-2026-0801"])) == ("alert", {"visc-drift"})
     assert got["HY-2026-0801"]["iso4406"] == "22/21/18" and "not used" not in err

@@ -9,12 +9,12 @@ common practice, no source there): water above 200 ppm watch, above 500 alert, a
 
 from __future__ import annotations
 
-import json
 import re
 
 import numpy as np
 import pytest
 from conftest import DATA, ROOT, run_cli
+from grade_runs import counts_said, fired_rules, graded_run, rejects_said
 
 from sumpwise.intake import summary_rows
 
@@ -22,26 +22,12 @@ FOUND = DATA / "intake_found5"
 HYDRAULIC = ROOT / "rules" / "hydraulic.yaml"
 
 
-def _graded(*argv) -> tuple[dict, str]:
-    """{sample id: record} of a `grade` run (JSON Lines) and its standard error; exit 0 required."""
-    run = run_cli("grade", *argv)
-    assert run.code == 0, run.err
-    return {r["sample_id"]: r for r in map(json.loads, run.out.splitlines())}, run.err
 
 
-def _fired(record: dict) -> set:
-    return {reason["rule"] for reason in record["reasons"]}
 
 
-def _rejects(err: str) -> list:
-    """(row, code, field) of the rejects `grade` writes on standard error."""
-    return [(int(row), code, field) for row, code, field in
-            re.findall(r": row (\d+)(?: \(sample [^)]*\))?: rejected (D\d{3}): ([^:]+):", err)]
 
 
-def _counts(err: str) -> tuple:
-    (found,) = re.findall(r"read (\d+) row\(s\): (\d+) graded, (\d+) unrated, (\d+) rejected", err)
-    return tuple(map(int, found))
 
 
 # --- 1. Statistic lines numbered or named for their group, with a unit and a date ---------------
@@ -52,18 +38,18 @@ def test_numbered_statistic_lines_with_a_unit_and_a_date_are_rejected_not_graded
     # of HPU-1 and HPU-2 (`Average 2`'s 370 ppm watch, `Max of 3`'s 900 ppm alert, the newest
     # "samples" of HPU-2 after its normal HY-2026-0906), only a bare `Average` was rejected. A
     # statistic is no sample (common practice, no source): D019 each, naming the id.
-    got, err = _graded(FOUND / "summary-numbered.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "summary-numbered.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "summary-numbered.yaml")
-    assert _rejects(err) == [(3, "D019", "sample_id"), (7, "D019", "sample_id"), (8, "D019", "sample_id"),
+    assert rejects_said(err) == [(3, "D019", "sample_id"), (7, "D019", "sample_id"), (8, "D019", "sample_id"),
                              (9, "D019", "sample_id"), (10, "D019", "sample_id")]
     assert "'Average 2' is a summary label" in err and "'Average for HPU-2' is a summary label" in err
-    assert _counts(err) == (11, 6, 0, 5)
+    assert counts_said(err) == (11, 6, 0, 5)
     # The samples grade on their own water: 900 ppm alert (above 500), 260 ppm watch (above 200; the
     # id MAX-PUMP-07 only contains a label), the rest normal; HPU-2's newest sample is HY-2026-0906.
     assert {k: r["grade"] for k, r in got.items()} == {
         "HY-2026-0901": "normal", "HY-2026-0902": "normal", "HY-2026-0904": "alert", "HY-2026-0905": "normal",
         "HY-2026-0906": "normal", "MAX-PUMP-07": "watch"}
-    assert _fired(got["HY-2026-0904"]) == {"water"} and _fired(got["MAX-PUMP-07"]) == {"water"}
+    assert fired_rules(got["HY-2026-0904"]) == {"water"} and fired_rules(got["MAX-PUMP-07"]) == {"water"}
 
 
 @pytest.mark.parametrize("cell", ["Average 2", "Mean 3", "Avg. 1", "Std dev 2", "Std. Dev. #2", "Total: 12",
@@ -77,8 +63,8 @@ def test_a_numbered_label_as_sample_id_is_a_summary_line_in_any_file(tmp_path, c
     rows.insert(700, f"{cell},HPU-1,hydraulic,HYD-46-M,2026-10-05,450")
     path = tmp_path / "many.csv"
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n" + "\n".join(rows) + "\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(701, "D019", "sample_id")] and _counts(err) == (1501, 1500, 0, 1)
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(701, "D019", "sample_id")] and counts_said(err) == (1501, 1500, 0, 1)
     assert {r["grade"] for r in got.values()} == {"normal"}
 
 
@@ -100,22 +86,22 @@ def test_a_water_reading_from_10_to_100_beside_percentages_is_rejected():
     # ppm, far above the 1000 ppm urgent step) was graded normal as 12 ppm. Karl Fischer reports from
     # 10 mg/kg (ASTM D6304 §1.1), so 12 could be ppm; beside percentages it could as well be one,
     # and which is not guessed: D018, naming the row of the first percentage.
-    got, err = _graded(FOUND / "water-percent-mixed.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "water-percent-mixed.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-mixed.yaml")
-    assert got == {} and _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
+    assert got == {} and rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
                                            (4, "D018", "water")]
-    assert "'12' could be ppm or a percentage" in err and "(row 1)" in err and _counts(err) == (4, 0, 0, 4)
+    assert "'12' could be ppm or a percentage" in err and "(row 1)" in err and counts_said(err) == (4, 0, 0, 4)
 
 
 def test_a_header_that_says_percent_reads_the_same_column_as_percentages():
     # The same readings headed `Water %`, the map saying unit '%': read correctly (1 % = 10,000 ppm by
     # definition): 0.05 % = 500 ppm watch (not above 500), 0.3 % = 3000 ppm urgent, 12 % urgent,
     # 0.02 % = 200 ppm normal (not above 200). Mapped without the unit the file is refused (test_export_scales).
-    got, err = _graded(FOUND / "water-percent-headed.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "water-percent-headed.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-headed.yaml")
     assert {k: r["grade"] for k, r in got.items()} == {"HY-2026-0911": "watch", "HY-2026-0912": "urgent",
                                                        "HY-2026-0913": "urgent", "HY-2026-0914": "normal"}
-    assert got["HY-2026-0913"]["values"]["water"] == 120000 and "water" in _fired(got["HY-2026-0913"])
+    assert got["HY-2026-0913"]["values"]["water"] == 120000 and "water" in fired_rules(got["HY-2026-0913"])
 
 
 def test_a_header_named_water_percent_without_a_map_is_read_in_percent(tmp_path):
@@ -124,9 +110,9 @@ def test_a_header_named_water_percent_without_a_map_is_read_in_percent(tmp_path)
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,Water %\n"
                     "HY-2026-0931,HPU-1,hydraulic,HYD-46-M,2026-10-12,0.05\n"
                     "HY-2026-0932,HPU-3,hydraulic,HYD-46-M,2026-10-12,12\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
+    got, err = graded_run(path, "--rules", HYDRAULIC)
     assert (got["HY-2026-0932"]["grade"], got["HY-2026-0932"]["values"]["water"]) == ("urgent", 120000)
-    assert got["HY-2026-0931"]["grade"] == "watch" and _counts(err) == (2, 2, 0, 0)
+    assert got["HY-2026-0931"]["grade"] == "watch" and counts_said(err) == (2, 2, 0, 0)
 
 
 def test_a_column_of_only_percent_sized_water_readings_is_rejected():
@@ -134,9 +120,9 @@ def test_a_column_of_only_percent_sized_water_readings_is_rejected():
     # (12 % is 120,000 ppm). 2 and 5 are below what Karl Fischer reports as ppm (ASTM D6304 §1.1:
     # from 10 mg/kg) and nothing in the column says ppm (no percentage is above 100), so they are
     # percentages, and 12 beside them could be either: D018 each. A reading of 0 is 0 in any unit: graded.
-    got, err = _graded(FOUND / "water-percent-small.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "water-percent-small.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-mixed.yaml")
-    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
+    assert rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
     assert "none of it is above 100 ppm" in err and "'12' could be ppm or a percentage" in err
     assert set(got) == {"HY-2026-0924"} and got["HY-2026-0924"]["grade"] == "normal"
 
@@ -148,8 +134,8 @@ def test_a_header_that_names_ppm_keeps_readings_from_10_to_100(tmp_path):
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,Water ppm\n"
                     "HY-2026-0941,HPU-1,hydraulic,HYD-46-M,2026-10-12,0.3\n"
                     "HY-2026-0942,HPU-2,hydraulic,HYD-46-M,2026-10-12,12\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(1, "D018", "water")] and got["HY-2026-0942"]["values"]["water"] == 12
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(1, "D018", "water")] and got["HY-2026-0942"]["values"]["water"] == 12
 
 
 def test_a_censored_water_bound_below_1_is_a_percentage_too(tmp_path):
@@ -161,9 +147,9 @@ def test_a_censored_water_bound_below_1_is_a_percentage_too(tmp_path):
                     "HY-2026-0951,HPU-1,hydraulic,HYD-46-M,2026-10-12,<0.05\n"
                     "HY-2026-0952,HPU-2,hydraulic,HYD-46-M,2026-10-12,<10\n"
                     "HY-2026-0953,HPU-3,hydraulic,HYD-46-M,2026-10-12,260\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water")] and "'<0.05' ppm is below" in err
-    assert (got["HY-2026-0953"]["grade"], _fired(got["HY-2026-0953"])) == ("watch", {"water"})
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water")] and "'<0.05' ppm is below" in err
+    assert (got["HY-2026-0953"]["grade"], fired_rules(got["HY-2026-0953"])) == ("watch", {"water"})
 
 
 # --- 3. A workbook report with a title above its table -------------------------------------------
@@ -192,10 +178,10 @@ def test_a_title_above_a_workbook_table_is_skipped_and_rows_keep_their_sheet_num
     # row 4, said in a note, and rows keep the README's numbering (row N is sheet row N + 1): the
     # decimal-comma text `0,12` is rejected at row 5 (sheet row 6). Water 900 ppm: alert (above 500).
     _titled_workbook(tmp_path / "report.xlsx", merged)
-    got, err = _graded(tmp_path / "report.xlsx", "--rules", HYDRAULIC)
+    got, err = graded_run(tmp_path / "report.xlsx", "--rules", HYDRAULIC)
     assert "read the header from sheet row 4" in err and "Brackwater Point: hydraulic oil analysis" in err
-    assert _rejects(err) == [(5, "D004", "water")] and _counts(err) == (3, 2, 0, 1)
-    assert (got["HY-2026-0961"]["grade"], _fired(got["HY-2026-0961"])) == ("alert", {"water"})
+    assert rejects_said(err) == [(5, "D004", "water")] and counts_said(err) == (3, 2, 0, 1)
+    assert (got["HY-2026-0961"]["grade"], fired_rules(got["HY-2026-0961"])) == ("alert", {"water"})
     assert got["HY-2026-0963"]["grade"] == "normal"
 
 
@@ -211,8 +197,8 @@ def test_below_the_limit_of_detection_reads_as_not_detected(tmp_path):
                     "HY-2026-0972,HPU-2,hydraulic,HYD-46-M,2026-11-02,< LOD\n"
                     "HY-2026-0973,HPU-3,hydraulic,HYD-46-M,2026-11-02,260\n", encoding="utf-8")
     (tmp_path / "map.yaml").write_text("water: {column: water, detection_limit: 10}\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
-    assert _counts(err) == (3, 3, 0, 0)
+    got, err = graded_run(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert counts_said(err) == (3, 3, 0, 0)
     for sample in ("HY-2026-0971", "HY-2026-0972"):
         assert got[sample]["values"]["water"] in ("<LOD", "< LOD") and got[sample]["grade"] == "normal"
         assert "water" not in {gap["rule"] for gap in got[sample]["not_evaluated"]}
@@ -229,16 +215,16 @@ def test_not_detected_at_a_declared_limit_below_10_ppm_is_no_percentage(tmp_path
                     "HY-2026-0982,HPU-2,hydraulic,HYD-46-M,2026-11-02,40\n"
                     "HY-2026-0983,HPU-3,hydraulic,HYD-46-M,2026-11-02,80\n", encoding="utf-8")
     (tmp_path / "map.yaml").write_text("water: {column: water, detection_limit: 5}\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
-    assert _counts(err) == (3, 3, 0, 0) and {r["grade"] for r in got.values()} == {"normal"}
+    got, err = graded_run(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    assert counts_said(err) == (3, 3, 0, 0) and {r["grade"] for r in got.values()} == {"normal"}
 
 
 def test_a_column_declared_in_ppm_is_read_as_declared():
     # The map's `unit: ppm` says what the column is: 2, 5, 12 and 0 ppm, all below the 200 ppm watch
     # step (hydraulic.yaml): normal, nothing rejected. The declaration is the user's answer to D018.
-    got, err = _graded(FOUND / "water-percent-small.csv", "--rules", HYDRAULIC,
+    got, err = graded_run(FOUND / "water-percent-small.csv", "--rules", HYDRAULIC,
                        "--columns", FOUND / "water-percent-small-ppm.yaml")
-    assert _counts(err) == (4, 4, 0, 0) and got["HY-2026-0923"]["values"]["water"] == 12
+    assert counts_said(err) == (4, 4, 0, 0) and got["HY-2026-0923"]["values"]["water"] == 12
 
 
 def test_percent_signs_on_some_cells_give_the_water_column_away(tmp_path):
@@ -251,10 +237,10 @@ def test_percent_signs_on_some_cells_give_the_water_column_away(tmp_path):
                     "HY-2026-0992,HPU-2,hydraulic,HYD-46-M,2026-11-02,0.3%\n"
                     "HY-2026-0993,HPU-3,hydraulic,HYD-46-M,2026-11-02,12\n"
                     "HY-2026-0994,HPU-4,hydraulic,HYD-46-M,2026-11-02,450\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
     assert "'12' could be ppm or a percentage" in err and "(row 1)" in err
-    assert (got["HY-2026-0994"]["grade"], _fired(got["HY-2026-0994"])) == ("watch", {"water"})
+    assert (got["HY-2026-0994"]["grade"], fired_rules(got["HY-2026-0994"])) == ("watch", {"water"})
 
 
 # --- 5. Rows hidden in a workbook -----------------------------------------------------------------
@@ -274,8 +260,8 @@ def test_rows_hidden_in_a_workbook_are_graded_and_said(tmp_path):
     sheet.append(["HY-2026-0962R", "HPU-2", "hydraulic", "HYD-46-M", "2026-11-02", 110])
     sheet.row_dimensions[3].hidden = True
     book.save(tmp_path / "hidden.xlsx")
-    got, err = _graded(tmp_path / "hidden.xlsx", "--rules", HYDRAULIC)
-    assert "note: row 2 hidden in the sheet" in err and _counts(err) == (3, 3, 0, 0)
+    got, err = graded_run(tmp_path / "hidden.xlsx", "--rules", HYDRAULIC)
+    assert "note: row 2 hidden in the sheet" in err and counts_said(err) == (3, 3, 0, 0)
     assert got["HY-2026-0962"]["grade"] == "alert" and got["HY-2026-0962R"]["grade"] == "normal"
 
 
@@ -295,7 +281,7 @@ def test_a_units_line_in_mass_percent_refuses_the_file_like_percent(tmp_path, un
     assert run.code == 2 and run.out == ""
     assert "a units line under the header, in column 'water' names the unit %" in run.err and "unit: '%'" in run.err
     (tmp_path / "map.yaml").write_text("water: {column: water, unit: '%'}\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
+    got, err = graded_run(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert (got["HY-2026-1001"]["grade"], got["HY-2026-1001"]["values"]["water"]) == ("urgent", 120000)
 
 
@@ -336,8 +322,8 @@ def test_a_row_whose_unit_column_says_ppm_keeps_its_reading_from_10_to_100(tmp_p
                     "HY-2026-1032,HPU-2,hydraulic,HYD-46-M,2026-11-02,0.4,\n"
                     "HY-2026-1033,HPU-3,hydraulic,HYD-46-M,2026-11-02,45,ppm\n"
                     "HY-2026-1034,HPU-4,hydraulic,HYD-46-M,2026-11-02,12,\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(1, "D018", "water"), (2, "D018", "water"), (4, "D018", "water")]
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water"), (4, "D018", "water")]
     assert set(got) == {"HY-2026-1033"} and got["HY-2026-1033"]["values"]["water"] == 45
 
 
@@ -352,8 +338,8 @@ def test_limit_and_statistic_lines_named_as_labs_name_them_are_rejected(tmp_path
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
                     "HY-2026-1041,HPU-1,hydraulic,HYD-46-M,2026-11-02,120\n"
                     f"{cell},HPU-1,hydraulic,HYD-46-M,2026-11-02,450\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(2, "D019", "sample_id")] and set(got) == {"HY-2026-1041"}
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(2, "D019", "sample_id")] and set(got) == {"HY-2026-1041"}
 
 
 @pytest.mark.parametrize("cell", ["Limit switch gearbox", "P1", "P95", "Speed 2 GB", "HPU-1 Level gauge 3",
@@ -368,7 +354,7 @@ def test_a_chunk_names_the_percentage_beside_a_reading_by_its_row_in_the_file():
     # Was: the reason named "row 2", the row within the chunk (the row of another sample).
     run = run_cli("grade", FOUND / "water-percent-mixed.csv", "--rules", HYDRAULIC,
                   "--columns", FOUND / "water-percent-mixed.yaml", "--chunk-rows", 2)
-    assert run.code == 0 and _rejects(run.err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
+    assert run.code == 0 and rejects_said(run.err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
                                                    (4, "D018", "water")]
     (line,) = [line for line in run.err.splitlines() if ": row 3 (" in line]
     assert "as percentages (row 4)" in line
@@ -382,7 +368,7 @@ def test_a_percentage_in_an_earlier_chunk_reaches_the_readings_of_later_ones(chu
     run = run_cli("grade", FOUND / "water-percent-mixed.csv", "--rules", HYDRAULIC,
                   "--columns", FOUND / "water-percent-mixed.yaml", "--chunk-rows", chunk_rows)
     assert run.code == 0 and run.out == ""
-    assert _rejects(run.err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
+    assert rejects_said(run.err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water"),
                                  (4, "D018", "water")]
     (line,) = [line for line in run.err.splitlines() if ": row 3 (" in line]
     assert re.search(r"as percentages \(row [124]\)", line)
@@ -399,7 +385,7 @@ def test_columns_named_in_the_trades_words_are_hinted_at_their_engine_names(tmp_
     path = tmp_path / "trade.csv"
     path.write_text("sample_id,unit_id,class,lubricant,sampled_on,Moisture,Visc 40,TBN,H2O\n"
                     "HY-2026-1051,HPU-1,hydraulic,HYD-46-M,2026-11-02,900,46.1,5.2,900\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
+    got, err = graded_run(path, "--rules", HYDRAULIC)
     assert ("lab columns not used: Moisture (did you mean water?), Visc 40 (did you mean kv40?), "
             "TBN (did you mean bn?), H2O (did you mean water?)") in err
     assert "few-rules-evaluated" in err and "water" not in got["HY-2026-1051"]["values"]
@@ -417,14 +403,14 @@ def test_numbers_with_both_marks_or_space_groups_are_read_and_one_mark_alone_is_
                     "HY-2026-1061;HPU-1;hydraulic;HYD-46-M;2026-11-02;46,3;1.234,5\n"
                     "HY-2026-1062;HPU-2;hydraulic;HYD-46-M;2026-11-02;45,9;1 234\n"
                     "HY-2026-1063;HPU-3;hydraulic;HYD-46-M;2026-11-02;46,0;1.234\n", encoding="utf-8")
-    got, err = _graded(path, "--rules", HYDRAULIC)
-    assert _rejects(err) == [(3, "D004", "water")]
+    got, err = graded_run(path, "--rules", HYDRAULIC)
+    assert rejects_said(err) == [(3, "D004", "water")]
     assert got["HY-2026-1061"]["values"]["water"] == 1234.5 and got["HY-2026-1062"]["values"]["water"] == 1234
     assert got["HY-2026-1061"]["grade"] == got["HY-2026-1062"]["grade"] == "urgent"
     point = tmp_path / "point.csv"
     point.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
                      "HY-2026-1064,HPU-1,hydraulic,HYD-46-M,2026-11-02,\"1,234.5\"\n", encoding="utf-8")
-    got, _ = _graded(point, "--rules", HYDRAULIC)
+    got, _ = graded_run(point, "--rules", HYDRAULIC)
     assert got["HY-2026-1064"]["values"]["water"] == 1234.5
 
 
@@ -438,7 +424,7 @@ def test_a_dry_ppm_column_with_one_reading_below_ten_is_read_as_ppm(tmp_path):
                        "HY-2026-0932,HPU-2,HYD-46-M,2026-10-26,45.8,25\n"
                        "HY-2026-0933,HPU-3,HYD-46-M,2026-10-26,47.9,40\n"
                        "HY-2026-0934,HPU-4,HYD-46-M,2026-10-26,46.1,60\n")
-    got, err = _graded(samples, "--rules", HYDRAULIC, "--columns", FOUND / "water-percent-mixed.yaml")
-    assert _rejects(err) == []
+    got, err = graded_run(samples, "--rules", HYDRAULIC, "--columns", FOUND / "water-percent-mixed.yaml")
+    assert rejects_said(err) == []
     assert {sid: r["values"]["water"] for sid, r in got.items()} == {
         "HY-2026-0931": 8.0, "HY-2026-0932": 25.0, "HY-2026-0933": 40.0, "HY-2026-0934": 60.0}
