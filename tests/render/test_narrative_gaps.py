@@ -26,3 +26,16 @@ def test_a_censored_reading_is_said_as_written_beside_what_the_rule_lacks():
     assert gap_phrase("water", (), (("water", "<200"),)) == "water: water written '<200' does not decide it"
     assert gap_phrase("wet-and-acid", ("an",), (("water", ">500"),)) == (
         "wet-and-acid: lacks an (water written '>500' does not decide it)")
+
+
+def test_clause_values_keep_their_own_spelling_beside_the_rate_wording():
+    # The rate interval's numbers are spelled as the engine spells a bound; a clause's value and limit
+    # keep explain's own spelling (six significant figures, "missing"). A rate-wording helper once
+    # shadowed explain's number spelling: a missing value read "(none)" and a pair limit broke.
+    from sumpwise.render.narrative import _clause_line
+    from sumpwise.results.records import Clause
+    assert _clause_line(Clause("missing", True, True, None, measure="water")) == "water is missing: holds (value missing)"
+    assert _clause_line(Clause("between", [40.0, 50.0], True, 45.5, measure="kv40")) == (
+        "kv40 = 45.5 mm2/s, test between 40 and 50 mm2/s: holds")
+    assert _clause_line(Clause("above", 0.5, True, 0.123456789, measure="an")) == (
+        "an = 0.123457 mg KOH/g, test above 0.5 mg KOH/g: holds")
