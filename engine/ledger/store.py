@@ -36,7 +36,7 @@ import pandas as pd
 
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
-from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
+from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases, unit_id_key
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.ledger.aside import Aside
 from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_QUERIES, DIGEST_3_SAMPLE_COLUMNS,
@@ -464,8 +464,9 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
 
 
 def history_inputs(conn: sqlite3.Connection, units, before_batch: int | None = None) -> pd.DataFrame | None:
-    """The stored input values of those samples, as samples.py read them (None: no samples)."""
-    _fill_temp(conn, "wanted_units", units)
+    """The stored input values of those samples, as samples.py read them (None: no samples).
+    A unit's samples under every spelling of its id that trends take for one (trends.unit_id_key)."""
+    _fill_temp(conn, "wanted_units", _spellings(conn, units))
     sql = (f"SELECT s.batch, {STORED_VALUES} FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
            "JOIN batches b ON b.batch = s.batch ")
     if before_batch is None:
@@ -474,6 +475,18 @@ def history_inputs(conn: sqlite3.Connection, units, before_batch: int | None = N
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
     return stored_frame(rows)
+
+
+def _spellings(conn: sqlite3.Connection, units) -> list:
+    """`units` and every stored unit id that differs from one of them only in case or surrounding
+    spaces. The distinct stored ids are walked on the unit index, one seek each (not a scan of
+    every sample)."""
+    units = [u for u in units if u is not None]
+    keys = {unit_id_key(u) for u in units}
+    stored = conn.execute("WITH RECURSIVE ids(id) AS (SELECT MIN(unit_id) FROM samples UNION ALL "
+                          "SELECT (SELECT MIN(unit_id) FROM samples WHERE unit_id > ids.id) FROM ids "
+                          "WHERE ids.id IS NOT NULL) SELECT id FROM ids WHERE id IS NOT NULL").fetchall()
+    return units + [row[0] for row in stored if unit_id_key(row[0]) in keys]
 
 
 def stored_frame(rows: list) -> pd.DataFrame | None:
@@ -788,15 +801,18 @@ def _regraded_later(new: pd.DataFrame, inputs: pd.DataFrame | None, history: pd.
     batch after what the ledger held then); the run says which would now differ."""
     if inputs is None or not len(inputs) or not {"unit_id", "sampled_on"} <= set(new.columns):
         return ()
-    first_new = new.dropna(subset=["unit_id", "sampled_on"]).groupby("unit_id")["sampled_on"].min()
-    since = inputs["unit_id"].map(first_new)
+    dated = new.dropna(subset=["unit_id", "sampled_on"])
+    first_new = dated.groupby(dated["unit_id"].map(unit_id_key))["sampled_on"].min()  # trends' unit, any spelling
+    since = inputs["unit_id"].map(unit_id_key, na_action="ignore").map(first_new)
     later = inputs[(since.notna() & inputs["sampled_on"].notna()).to_numpy()]
-    later = later[(later["sampled_on"] > later["unit_id"].map(first_new)).to_numpy()]
+    later = later[(later["sampled_on"] > since[later.index]).to_numpy()]
     if not len(later):
         return ()
     before = history[~history["sample_id"].isin(later["sample_id"])]
     alone = grade_batch(SampleBatch(later.reset_index(drop=True), (), len(later), "ledger"), ruleset, before)
-    joined = pd.concat([new[new["unit_id"].isin(later["unit_id"]).to_numpy()], later], ignore_index=True)
+    keys = set(later["unit_id"].map(unit_id_key))
+    joined = pd.concat([new[new["unit_id"].map(unit_id_key, na_action="ignore").isin(keys).to_numpy()], later],
+                       ignore_index=True)
     joined.index = pd.RangeIndex(1, len(joined) + 1, name="row")
     together = grade_batch(SampleBatch(joined, (), len(joined), "ledger"), ruleset, before)
     now = dict(zip(together.measured["sample_id"], together.outcome.level.tolist()))
