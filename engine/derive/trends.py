@@ -1,6 +1,7 @@
 """Trend measures: each sample against its unit's previous sample, for a whole batch at once.
 
-Samples are put in order by unit, sample date and oil hours (on one date, a sample flagged
+Samples are put in order by unit (its id with case and surrounding spaces ignored: unit_keys),
+sample date and oil hours (on one date, a sample flagged
 `oil_changed` after the others; a ledger's earlier samples of the same units first, so they
 come before the batch's on a tie). A unit's chain restarts at an oil
 change: the `oil_changed` flag, the lubricant code changing, or oil hours going down against
@@ -10,7 +11,9 @@ unless the oil's aged readings stayed aged: then the hours meter was reset witho
 so it does where an oil change's oil hours are more than the calendar holds (the unit's hours). A
 sample without oil hours between an oil change's two sides cannot be placed on either charge:
 no step is taken to or from it, and it says so. A step across a change of method (direct vs
-subtraction) or of lab is not computed: the two readings are not comparable. All of it is one
+subtraction) or of lab is not computed: the two readings are not comparable. A fall in oil
+hours whose next sample is back on the run is a slip in that one reading (_slips), and a fall
+that no aged reading tells is taken as an oil change and says it could not tell. All of it is one
 sort plus shifted and accumulated arrays; there is no loop over units.
 
 A step counts towards a rising run only when it exceeds the measure's noise margin: the rule
@@ -139,9 +142,15 @@ def unit_keys(units: np.ndarray) -> np.ndarray:
     is HP-2: a site's lab writes one unit's id several ways, and a trend split by spelling misses
     a rise, common practice, no source), -1 where none or blank. Records keep the id as written;
     the `unit-id-spelling` caveat says where two spellings meet. Each distinct id is read once."""
-    folded = unit_id_texts(units)
-    codes, _ = pd.factorize(np.where(folded == "", None, folded))
-    return codes
+    return _unit_codes(units)[0]
+
+
+def _unit_codes(units: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(unit_keys, a code per spelling as written): one factorize of the ids."""
+    spelled, uniques = pd.factorize(units)
+    folded = np.array([unit_id_key(u) for u in uniques], dtype=object)
+    same, _ = pd.factorize(np.where(folded == "", None, folded))
+    return np.r_[same, -1][spelled], spelled  # code -1 (no unit) takes the last: -1
 
 
 def unit_id_texts(units: np.ndarray) -> np.ndarray:
@@ -313,7 +322,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     chain = _chain_arrays(measured, oil_changed, history, bases)
     total = len(chain["oil_hours"])
     earlier = total - len(measured)
-    unit_codes = unit_keys(chain["unit_id"])
+    unit_codes, spelled = _unit_codes(chain["unit_id"])
     dates = date_keys(chain["sampled_on"])
     hours = chain["oil_hours"]
     order = _trend_order(unit_codes, dates, hours, chain["oil_changed"])
@@ -408,7 +417,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "one_moment_note": _moment_notes(chain, order, mine, moment, h),
         "hours_reset_note": _reset_notes(chain, order, mine, charges, h, evidence),
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, restarts),
-        "unit_spelling_note": _spelling_notes(chain, order, mine, same_unit),
+        "unit_spelling_note": _spelling_notes(chain, order, mine, same_unit, spelled[order]),
         "hours_slip_note": _slip_notes(chain, order, mine, charges, h),
         "hours_untold_note": _untold_notes(chain, order, mine, charges, h),
     }, index=measured.index, dtype=object)
@@ -800,12 +809,12 @@ def _reset_places(chain: dict, rows: np.ndarray) -> np.ndarray:
     return np.where(pd.notna(told) & (told != NOT_TOLD), told, own).astype(object)
 
 
-def _spelling_notes(chain: dict, order: np.ndarray, mine: np.ndarray, same_unit: np.ndarray) -> np.ndarray:
+def _spelling_notes(chain: dict, order: np.ndarray, mine: np.ndarray, same_unit: np.ndarray,
+                    spelled: np.ndarray) -> np.ndarray:
     """The unit-id-spelling note of each incoming row whose unit id is spelled otherwise than its
-    unit's previous sample (unit_keys): both spellings, quoted so spaces show."""
+    unit's previous sample (unit_keys; `spelled`: a code per spelling, sorted): both spellings,
+    quoted so spaces show."""
     notes = np.full(len(mine), None, dtype=object)
-    spelled, _ = pd.factorize(chain["unit_id"])
-    spelled = spelled[order]
     hit = np.flatnonzero((same_unit & (spelled != _shifted(spelled, -1)))[mine])
     if not len(hit):
         return notes

@@ -21,6 +21,7 @@ import pytest
 
 from conftest import DATA
 from grade_runs import graded_run
+from result_views import caveats_of, fired
 
 TRENDS = DATA / "trends"
 RULES = TRENDS / "rules.yaml"
@@ -204,3 +205,111 @@ def test_a_slip_that_looked_like_a_meter_reset_in_its_chunk_leaves_the_charge_co
     assert _said(records["BP-HP3-06"]) == []
     expected = ["oil-hours-slip"] if rows is None else ["oil-hours-not-from-fill"]  # as its chunk showed it
     assert _said(records["BP-HP3-04"]) == expected
+
+
+def _weekly_histories(seed: int, units: int = 30, weeks: int = 20):
+    """Weekly press histories (iron ppm, oil hours 120 a week), an oil change flagged now and
+    then (hours back to the week's, iron back to a few ppm); every sample a week after the last."""
+    import numpy as np
+    import pandas as pd
+    rng = np.random.default_rng(seed)
+    rows = []
+    for u in range(units):
+        hours, iron = float(rng.integers(100, 5000)), float(rng.integers(5, 20))
+        for w in range(weeks):
+            changed = w > 0 and rng.random() < 0.08
+            hours = float(rng.integers(60, 120)) if changed else hours + 120 + float(rng.integers(0, 10))
+            iron = float(rng.integers(2, 6)) if changed else iron + float(rng.integers(-1, 5))
+            rows.append({"sample_id": f"R{u:02d}-{w:02d}", "unit_id": f"HP-{u}", "class": "hydraulic",
+                         "lubricant": "TEST-46", "sampled_on": str(pd.Timestamp("2026-01-05") + pd.Timedelta(weeks=w))[:10],
+                         "oil_hours": hours, "water": 120.0, "iron": iron, "method": "direct", "lab": "lab-a",
+                         "oil_changed": "yes" if changed else ""})
+    return pd.DataFrame(rows)
+
+
+def test_random_spellings_of_unit_ids_grade_as_one_spelling():
+    # Property: writing each sample's unit id in a random case, with or without spaces around it,
+    # changes nothing but the unit-id-spelling caveat; the other's grades are the reference.
+    import numpy as np
+    import sumpwise
+    rules = sumpwise.load_ruleset(RULES)
+    clean = _weekly_histories(11)
+    rng = np.random.default_rng(12)
+    spelled = clean.assign(unit_id=[(" " * int(rng.integers(0, 2)) + (u.lower() if rng.random() < 0.5 else u)
+                                     + " " * int(rng.integers(0, 2))) for u in clean["unit_id"]])
+    want, got = sumpwise.grade(clean, rules), sumpwise.grade(spelled, rules)
+    def view(graded):
+        return {r.sample_id: (r.grade, sorted(fired(r)), [c for c in caveats_of(r) if c != "unit-id-spelling"])
+                for r in graded.results()}
+    assert view(got) == view(want)
+    assert sum("unit-id-spelling" in caveats_of(r) for r in got.results()) > 100
+    assert sum(r.grade == "watch" for r in want.results()) > 10  # the trends graded are not all normal
+
+
+def test_random_oil_hours_slips_leave_every_step_and_rising_run_as_it_was():
+    # Property: dividing one sample's oil hours by ten (a dropped digit) mid-charge changes no
+    # step and no rising run of any sample; rates stay as they were but to and from the slip.
+    import numpy as np
+    import sumpwise
+    rules = sumpwise.load_ruleset(RULES)
+    clean = _weekly_histories(21)
+    rng = np.random.default_rng(22)
+    changed = clean["oil_changed"] == "yes"
+    # mid-charge: neither a change nor the sample before one nor a unit's first or last
+    inner = ~changed & ~changed.shift(-1, fill_value=True) & (clean["sample_id"].str[-2:] != "00") \
+        & (clean["sample_id"].str[-2:] != "19")
+    pick = inner & (rng.random(len(clean)) < 0.1)
+    pick &= ~pick.shift(1, fill_value=False)  # never two in a row
+    slipped = clean.assign(oil_hours=np.where(pick, np.floor(clean["oil_hours"] / 10), clean["oil_hours"]))
+    want, got = sumpwise.grade(clean, rules), sumpwise.grade(slipped, rules)
+    a, b = want.measured.set_index("sample_id"), got.measured.set_index("sample_id")
+    for column in ("iron_step", "iron_rising"):
+        np.testing.assert_array_equal(b[column].to_numpy(), a[column].to_numpy(), err_msg=column)
+    ids = clean["sample_id"].to_numpy()
+    back = np.r_[False, pick.to_numpy()[:-1]]
+    keep = ~pick.to_numpy() & ~back
+    np.testing.assert_array_equal(b["iron_step_per_1000h"].to_numpy()[keep], a["iron_step_per_1000h"].to_numpy()[keep])
+    assert np.isnan(b["iron_step_per_1000h"].to_numpy()[~keep]).all()
+    for sid in ids[pick.to_numpy() | back]:
+        assert "oil-hours-slip" in caveats_of(got.find(sid)), sid
+    # iron-rate (alert above 40 ppm per 1000 h) cannot fire on 120 h weeks of at most +4 ppm, so
+    # every grade is as it was, iron-climbing watches included
+    assert [r.grade for r in got.results()] == [r.grade for r in want.results()]
+    assert sum(r.grade == "watch" for r in want.results()) > 10
+    assert pick.sum() > 20
+
+
+@pytest.mark.parametrize("rows", [7, 30])
+def test_random_slips_and_spellings_in_chunks_grade_as_the_whole_file(tmp_path, rows):
+    # The chunk rule on random histories (the file in date order, 12 samples a week: chunks of 7
+    # rows put every unit's next sample in a later chunk, chunks of 30 some in the same one):
+    # every record as the whole file's, save a slipped sample whose next sample came in a later
+    # chunk (graded as its chunk showed it); the sample back on the run always as the whole file's.
+    import json
+    import numpy as np
+    from conftest import run_cli
+    frame = _weekly_histories(31, units=12, weeks=16)
+    rng = np.random.default_rng(32)
+    changed = frame["oil_changed"] == "yes"
+    inner = ~changed & ~changed.shift(-1, fill_value=True) & (frame["sample_id"].str[-2:] != "00") \
+        & (frame["sample_id"].str[-2:] != "15")
+    pick = inner & (rng.random(len(frame)) < 0.1)
+    pick &= ~pick.shift(1, fill_value=False)
+    frame["oil_hours"] = np.where(pick, np.floor(frame["oil_hours"] / 10), frame["oil_hours"])
+    frame["unit_id"] = [u.lower() if rng.random() < 0.3 else u for u in frame["unit_id"]]
+    frame = frame.sort_values("sampled_on", kind="stable")
+    samples = tmp_path / "samples.csv"
+    frame.to_csv(samples, index=False)
+    whole, chunked = tmp_path / "whole.jsonl", tmp_path / "chunked.jsonl"
+    assert run_cli("grade", samples, "--rules", RULES, "--out", whole).code == 0
+    run = run_cli("grade", samples, "--rules", RULES, "--chunk-rows", rows, "--out", chunked)
+    assert run.code == 0, run.err
+    def records(path):
+        return {r["sample_id"]: dict(r, forecasts=None) for r in map(json.loads, path.read_text().splitlines())}
+    want, got = records(whole), records(chunked)
+    slipped = set(frame["sample_id"][pick])
+    differ = {sid for sid in want if got[sid] != want[sid]}
+    assert differ <= slipped
+    assert differ and (rows == 7 or len(slipped - differ) > 5)  # both cases met
+    said = [c["caveat"] for r in want.values() for c in r["caveats"]]
+    assert said.count("oil-hours-slip") == 2 * len(slipped) and said.count("unit-id-spelling") > 20
