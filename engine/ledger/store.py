@@ -477,6 +477,12 @@ def history_inputs(conn: sqlite3.Connection, units, before_batch: int | None = N
     return stored_frame(rows)
 
 
+def unit_spellings(conn: sqlite3.Connection, unit_id: str) -> None:
+    """Fill temp.wanted_units with every stored spelling of `unit_id` (_spellings): queries on
+    one unit read `s.unit_id IN (SELECT value FROM temp.wanted_units)`."""
+    _fill_temp(conn, "wanted_units", _spellings(conn, [unit_id]))
+
+
 def _spellings(conn: sqlite3.Connection, units) -> list:
     """`units` and every stored unit id that differs from one of them only in case or surrounding
     spaces. The distinct stored ids are walked on the unit index, one seek each (not a scan of
@@ -856,12 +862,13 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
 
 
 def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
-    """The current samples of a unit with their verdicts, stored values and batch columns, in
-    trend order (date, then oil hours)."""
+    """The current samples of a unit (under every spelling of its id: unit_spellings) with their
+    verdicts, stored values and batch columns, in trend order (date, then oil hours)."""
+    unit_spellings(conn, unit_id)
     rows = conn.execute(
         f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, "
-        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL "
-        f"ORDER BY s.sampled_on, s.oil_hours, s.entry", (unit_id,)).fetchall()
+        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id IN (SELECT value FROM temp.wanted_units) "
+        f"AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry").fetchall()
     at = len(_UNIT_COLUMNS) + 4
     rows = [row[:at] + (object_text(*row[at + 2:]),) + row[at:at + 2] for row in rows]
     return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",

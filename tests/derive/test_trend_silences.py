@@ -313,3 +313,16 @@ def test_random_slips_and_spellings_in_chunks_grade_as_the_whole_file(tmp_path, 
     assert differ and (rows == 7 or len(slipped - differ) > 5)  # both cases met
     said = [c["caveat"] for r in want.values() for c in r["caveats"]]
     assert said.count("oil-hours-slip") == 2 * len(slipped) and said.count("unit-id-spelling") > 20
+
+
+def test_a_ledgers_unit_history_holds_every_spelling_of_the_unit(tmp_path):
+    # `history` reads the unit as grading does: HP-4's four samples under hp-4, whichever is asked
+    from conftest import run_cli
+    db = tmp_path / "site.db"
+    graded_run(SPELLINGS, "--rules", RULES, "--db", db)
+    for asked in ("hp-4", "HP-4"):
+        run = run_cli("history", asked, "--db", db, "--format", "csv")
+        assert run.code == 0, run.err
+        rows = run.out.splitlines()[1:]
+        assert [row.split(",")[0] for row in rows] == [f"BP-HP4-0{k}" for k in range(1, 5)], asked
+        assert rows[-1].split(",")[11] == "watch"
