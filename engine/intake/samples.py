@@ -746,44 +746,54 @@ def _unit_cells(measure: str, values: np.ndarray, text: pd.Series, not_a_number:
     if not len(at):
         return refused, codes_out, reasons, carried
     codes, spellings = pd.factorize(text.to_numpy(dtype=object)[at])
-    found = pd.Series(spellings, dtype=object).astype(str).str.fullmatch(_WITH_UNIT.pattern).to_numpy(dtype=bool)
+    parts = pd.Series(spellings, dtype=object).astype(str).str.extract(f"^{_WITH_UNIT.pattern}$")
+    found = parts[1].notna().to_numpy()
     if not found.any():
         return refused, codes_out, reasons, carried
-    number_of = np.full(len(spellings), "", dtype=object)  # the cell without its unit, where it agrees
-    agrees = np.zeros(len(spellings), dtype=bool)
-    code_of, why_of = np.full(len(spellings), "", dtype=object), np.full(len(spellings), "", dtype=object)
-    for k in np.flatnonzero(found):
-        number, unit = _WITH_UNIT.fullmatch(str(spellings[k])).groups()
-        named = named_unit(measure, unit, whole=True)
-        if named == read_in:
-            number_of[k], agrees[k] = number.strip(), True
-            continue
-        cell = str(spellings[k])
-        if named in readable_units(measure):
-            code_of[k] = "D018"
-            why_of[k] = (f"{cell!r}: the cell is in {named}, but column {lab!r} is read in {read_in}; a cell is not "
-                         f"converted on its own: write the column in one unit and declare it in the column map "
-                         f"({measure}: {{column: {lab!r}, unit: ...}})")
-        elif named is not None or any(named_unit(other, unit, whole=True) for other in SPELLINGS):
-            code_of[k] = "D018"
-            why_of[k] = (f"{cell!r}: the cell names {named or repr(unit.strip())}, which is not a unit {measure} can "
-                         f"be read in ({', '.join(readable_units(measure))}); column {lab!r} is read in {read_in}: "
-                         f"a value of another quantity, or in another unit, is not graded")
-        else:
-            code_of[k] = "D004"
-            why_of[k] = (f"{cell!r}: expected a number in {read_in}, found text after the number ({unit.strip()!r}) "
-                         f"that is no unit {measure} is read in")
+    # each distinct unit once (a column holds a few: `cSt`, `mm2/s`), not each distinct cell
+    unit_codes, units = pd.factorize(parts[1].where(parts[1].notna(), None).to_numpy(dtype=object))
+    verdicts = [_cell_unit(measure, str(unit), read_in) for unit in units]
+    kind = np.array([v[0] for v in verdicts] + [""], dtype=object)[unit_codes]  # "" agrees, else a code
+    agrees = found & (kind == "")
+    number_of = parts[0].str.strip().to_numpy(dtype=object)  # the cell without its unit
+    code_of, why_of = np.where(found, kind, "").astype(object), np.full(len(spellings), "", dtype=object)
+    for k in np.flatnonzero(code_of != ""):  # the refused spellings only, for their reasons
+        why_of[k] = f"{str(spellings[k])!r}: " + verdicts[unit_codes[k]][1].replace(_LAB, repr(lab))
     refused[at] = (code_of != "")[codes]
     codes_out[at], reasons[at] = code_of[codes], why_of[codes]
     agree = at[agrees[codes]]
     carried[agree] = True
-    if len(agree):
-        stripped = pd.Series(number_of[codes][agrees[codes]], dtype=object)
-        parsed, _, still = _number_column(stripped, decimal)
-        values[agree[~still]] = parsed[~still]
-        not_a_number[agree[~still]] = False
-        text.iloc[agree] = np.where(still, stripped.to_numpy(dtype=object), None)  # a bound read on without its unit
+    if len(agree):  # each distinct number once, by the same rules as any cell (a '.' where ',' is the mark)
+        parsed, _, still = _number_column(pd.Series(number_of[agrees], dtype=object), decimal)
+        number, bound = np.full(len(spellings), np.nan), np.zeros(len(spellings), dtype=bool)
+        number[agrees], bound[agrees] = parsed, still
+        row_bound = bound[codes][agrees[codes]]
+        values[agree[~row_bound]] = number[codes][agrees[codes]][~row_bound]
+        not_a_number[agree[~row_bound]] = False
+        left = np.where(bound, number_of, None)[codes][agrees[codes]]  # a bound read on without its unit
+        text.iloc[agree] = left
     return refused, codes_out, reasons, carried
+
+
+_LAB = "\x00lab\x00"  # where _cell_unit's reason names the lab's column
+
+
+def _cell_unit(measure: str, unit: str, read_in: str) -> tuple[str, str]:
+    """("", "") when a cell's unit is the one its column is read in, else (code, why), `_LAB` in the
+    why standing for the lab's name of the column."""
+    named = named_unit(measure, unit, whole=True)
+    if named == read_in:
+        return "", ""
+    if named in readable_units(measure):
+        return "D018", (f"the cell is in {named}, but column {_LAB} is read in {read_in}; a cell is not converted "
+                        f"on its own: write the column in one unit and declare it in the column map "
+                        f"({measure}: {{column: {_LAB}, unit: ...}})")
+    if named is not None or any(named_unit(other, unit, whole=True) for other in SPELLINGS):
+        return "D018", (f"the cell names {named or repr(unit.strip())}, which is not a unit {measure} can be read in "
+                        f"({', '.join(readable_units(measure))}); column {_LAB} is read in {read_in}: a value of "
+                        f"another quantity, or in another unit, is not graded")
+    return "D004", (f"expected a number in {read_in}, found text after the number ({unit.strip()!r}) that is no "
+                    f"unit {measure} is read in")
 
 
 def _check_header_units(name: str, columns: ColumnMap) -> None:
@@ -927,8 +937,9 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     try:
         cells = spelled[looks].tolist()  # Python's float() a cell: twice numpy's own parse, and what it accepts
         parsed[looks] = np.fromiter(map(float, cells), dtype=float, count=len(cells))
-    except ValueError:  # a cell like `1.2.3` or `12 ppm`: convert cell by cell, badly formed ones become NaN
-        parsed[looks] = pd.to_numeric(spelled[looks].astype(object), errors="coerce")
+    except ValueError:  # a cell like `1.2.3` or `12 ppm`: each distinct text converted once, bad ones NaN
+        codes, uniques = pd.factorize(spelled[looks].astype(object))
+        parsed[looks] = pd.to_numeric(pd.Series(uniques, dtype=object), errors="coerce").to_numpy(dtype=float)[codes]
     not_a_number = ((text != "") | is_bool) & np.isnan(parsed)
     shown = np.full(len(values), None, dtype=object)  # the text of the cells that are not numbers only
     shown[not_a_number] = text[not_a_number]
