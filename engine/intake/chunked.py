@@ -47,7 +47,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
     seen = _SeenIds()
     offset = 0
-    peeked, note = (), None
+    peeked, note, above_header = (), None, 0  # above_header: lines above the CSV header (a title)
     layout_break = None  # a header line in another layout, in force from an earlier chunk
     percent_water = None  # the row of a water reading an earlier chunk read as a percentage
     try:
@@ -57,7 +57,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
                 above = header_preamble("".join(peeked), columns or ColumnMap(), numeric)
             except InputError as exc:
                 raise InputError(f"{name}: {exc}") from None
-            peeked, note = peeked[above.skip:], above.note
+            peeked, note, above_header = peeked[above.skip:], above.note, above.skip
             if above.delimiter:
                 columns = columns or ColumnMap()
                 columns = replace(columns, options={**columns.options, "delimiter": above.delimiter})
@@ -70,7 +70,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             try:
                 data, text = text.encode("utf-8"), None
             except UnicodeEncodeError as exc:  # a surrogate: a byte the file's UTF-8 could not read
-                raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv")) from None
+                raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv") + above_header) from None
             batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name,
                                  chunk_columns, fmt, numeric,
                                  layout_break and (layout_break[0] - offset, layout_break[1]),  # the chunk's rows

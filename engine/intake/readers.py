@@ -165,8 +165,8 @@ def preamble(text: str, delimiter: str | None, names: set, id_name: str) -> Prea
                                           f"{'is' if len(above) == 1 else 'are'} a title, not read; rows are "
                                           f"numbered from the header (row 1 is line {at + 2})")
         raise InputError(f"line {at + 1} reads as the header, but {', '.join(said(k) for k in above)} above it "
-                         f"fill(s) as many fields as a row, or name a column: whether they are a title or data is "
-                         f"not guessed; delete the lines above the header")
+                         f"fill(s) half as many fields as it has or more ({width}), or name a column: whether they "
+                         f"are a title or data is not guessed; delete the lines above the header")
     first = [f for f in fields(lines[skip]) if f] if skip < len(lines) else []
     below = next((fields(line) for line in lines[skip + 1:] if line.strip()), [])
     if first and len(first) <= 2 and len(below) > max(2, len(first)) and not any(map(known, first)):

@@ -192,3 +192,13 @@ def test_a_hidden_column_that_is_read_is_named_in_a_note(tmp_path):
     got, err = graded_run(tmp_path / "results.xlsx", "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert "column 'Water ppm' hidden in the sheet" in err and "'Visc 40C cSt' hidden" not in err
     assert {k: r["grade"] for k, r in got.items()} == {"HY-2026-1501": "alert", "HY-2026-1502": "normal"}
+
+
+def test_a_byte_not_utf8_below_a_title_is_named_by_its_file_line_whole_and_chunked(tmp_path):
+    # `90 °C` saved in cp1252 on file line 4, under a title line: both readers name line 4.
+    path = tmp_path / "results.csv"
+    path.write_bytes(b"Brackwater Point results, week 48\nsample_id,class,lubricant,sampled_on,water\n"
+                     b"A,hydraulic,HYD-46-M,2026-11-02,120\nB,hydraulic,HYD-46-M,2026-11-02,90 \xb0C\n")
+    for chunked in ((), ("--chunk-rows", "1")):
+        run = run_cli("grade", path, "--rules", HYDRAULIC, *chunked)
+        assert run.code != 0 and "line 4: byte 0xb0 is not utf-8 text" in run.err, (chunked, run.err)
