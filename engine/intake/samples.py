@@ -25,7 +25,8 @@ from sumpwise.intake.column_map import (FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NA
                                         header_key, load_column_map)
 from sumpwise.intake.dates import read_dates
 from sumpwise.intake.header_lines import header_lines
-from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, readable_units, unit_conflict
+from sumpwise.intake.header_units import (SPELLINGS, header_conflict, named_unit, readable_units, size_conflict,
+                                          temperature_conflict, unit_conflict)
 from sumpwise.intake.readers import (Preamble, RawTable, check_header, decode, detect_decimal, detect_delimiter,
                                      is_utf8, line_ends, nested_cells, preamble, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
@@ -782,6 +783,9 @@ def _cell_unit(measure: str, unit: str, read_in: str) -> tuple[str, str]:
     """("", "") when a cell's unit is the one its column is read in, else (code, why), `_LAB` in the
     why standing for the lab's name of the column."""
     named = named_unit(measure, unit, whole=True)
+    other = temperature_conflict(measure, unit) or size_conflict(measure, unit)  # `46.1 cSt @ 100 °C` in kv40
+    if other:
+        return "D018", f"the cell {other}"
     if named == read_in:
         return "", ""
     if named in readable_units(measure):

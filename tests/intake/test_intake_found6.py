@@ -51,7 +51,7 @@ def test_cells_with_the_columns_unit_are_read_and_other_units_refused():
 @pytest.mark.parametrize("cell, column, expected", [
     ("46.1 cSt", "kv40", 46.1), ("46.1 mm\u00b2/s", "kv40", 46.1), ("46.1cSt", "kv40", 46.1),
     ("0.35 mg KOH/g", "an", 0.35), ("120 ppm", "water", 120.0), ("120 mg/kg", "water", 120.0),
-    ("1 250 ppm", "water", 1250.0), ("1850 h", "oil_hours", 1850.0),
+    ("1 250 ppm", "water", 1250.0), ("1850 h", "oil_hours", 1850.0), ("46.1 cSt @ 40 °C", "kv40", 46.1),
 ])
 def test_a_cell_in_the_columns_unit_reads_its_number(cell, column, expected):
     # The units as the trade writes them (ASTM D445 mm2/s = cSt, D664 mg KOH/g, D6304 mg/kg = ppm).
@@ -68,6 +68,7 @@ def test_a_cell_in_the_columns_unit_reads_its_number(cell, column, expected):
     ("0.35 cSt", "an", "D018"),
     ("1.2 abs/0.1mm", "oxidation", "D018"),  # a unit of the family, not the column's: not converted alone
     ("46.1 x1000", "kv40", "D018"),
+    ("6.8 cSt @ 100 °C", "kv40", "D018"),  # the viscosity at 100 °C, in the 40 °C column (ASTM D445 gives both)
     ("0.35 Q", "an", "D004"),  # a lab's flag after the number: not a unit of anything
 ])
 def test_a_cell_in_another_unit_is_refused(cell, column, code):
