@@ -29,7 +29,16 @@ MISSING_SPELLINGS = ("-", "--", "---", "\u2013", "\u2014", "n/a", "na", "n.a.", 
 # Cells that mean "not detected": below the column's detection limit when the column map
 # gives one, else missing.
 # `<LOD`: below the limit of detection, as IUPAC names it (a spelling of `<DL`).
-NOT_DETECTED_SPELLINGS = ("nd", "n.d.", "n.d", "not detected", "<dl", "< dl", "bdl", "<lod", "< lod")
+NOT_DETECTED_SPELLINGS = ("nd", "n.d.", "n.d", "n. d.", "not detected", "<dl", "< dl", "bdl", "<lod", "< lod")
+# Cells that mean "below the limit of quantitation": detected or not, below the lowest value the method
+# reports (the LOQ, as IUPAC and ICH Q2(R1) name it; `BLQ` common practice, no source). The LOQ lies above
+# the detection limit (ICH Q2(R1): about 10 sigma against 3.3), so the map's detection limit cannot bound
+# such a cell: its `quantitation_limit` does, else the reading is missing.
+BELOW_QUANTITATION_SPELLINGS = ("<loq", "< loq", "<lq", "< lq", "blq", "bloq", "below loq")
+# Cells whose meaning is no one value or bound: `trace` is a reading seen but not measured, which labs
+# use both for "below the reporting limit" and for "detected, small" (common practice, no source). The
+# row is refused (D025), not guessed as missing (a water reading that may be well above 0 dropped) or 0.
+AMBIGUOUS_SPELLINGS = ("trace", "traces", "tr", "tr.", "trc", "trace amount", "spur", "spuren")
 
 _BOUND = re.compile(r"^(<=|>=|<|>|\u2264|\u2265)\s*(\S.*)$")
 _SIGN = {"<": "<", ">": ">", "<=": "<=", ">=": ">=", "\u2264": "<=", "\u2265": ">="}
@@ -40,14 +49,16 @@ class CensoredCells:
     """What the cells that are not plain numbers of one column turned out to be.
 
     Arrays are aligned with the column: `censored` text (or None), `held` (where that text
-    is: a mask, so callers need not compare a million objects with None) and `bad` (neither
+    is: a mask, so callers need not compare a million objects with None), `bad` (neither
     censored nor a spelling of "no reading", or a bound that is not a finite number: the row
-    is rejected). The rest (`N/A`, ND without a detection limit) stay missing.
+    is rejected) and `ambiguous` (a word such as `trace` whose meaning is not one bound: the
+    row is rejected). The rest (`N/A`, ND without a detection limit) stay missing.
     """
 
     censored: np.ndarray
     held: np.ndarray
     bad: np.ndarray
+    ambiguous: np.ndarray
 
 
 def number_text(value: float) -> str:
@@ -63,37 +74,42 @@ def numbers_text(values: np.ndarray) -> np.ndarray:
 
 
 def read_censored(text: np.ndarray, candidates: np.ndarray, decimal: str, factor: float,
-                  detection_limit: float | None) -> CensoredCells:
+                  detection_limit: float | None, quantitation_limit: float | None = None) -> CensoredCells:
     """Classify the `candidates` cells of `text` (stripped cell texts) that are not numbers.
 
-    `factor` converts a bound to the engine's unit; `detection_limit` is already in it.
+    `factor` converts a bound to the engine's unit; `detection_limit` and `quantitation_limit`
+    are already in it.
     """
     n = len(text)
     censored = np.full(n, None, dtype=object)
-    held, bad = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
+    held, bad, ambiguous = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
     if not candidates.any():
-        return CensoredCells(censored, held, bad)
+        return CensoredCells(censored, held, bad, ambiguous)
     at = np.flatnonzero(candidates)
     codes, uniques = pd.factorize(text[at])
-    kinds = np.zeros(len(uniques), dtype=np.int8)  # 0 bad, 1 censored, 2 missing
+    kinds = np.zeros(len(uniques), dtype=np.int8)  # 0 bad, 1 censored, 2 missing, 3 ambiguous
     spelled = np.full(len(uniques), None, dtype=object)
     for k, cell in enumerate(uniques):
-        kinds[k], spelled[k] = _classify(str(cell), decimal, factor, detection_limit)
+        kinds[k], spelled[k] = _classify(str(cell), decimal, factor, detection_limit, quantitation_limit)
     kind = kinds[codes]
     censored[at[kind == 1]] = spelled[codes][kind == 1]
     held[at[kind == 1]] = True
     bad[at[kind == 0]] = True
-    return CensoredCells(censored, held, bad)
+    ambiguous[at[kind == 3]] = True
+    return CensoredCells(censored, held, bad, ambiguous)
 
 
-def _classify(cell: str, decimal: str, factor: float, detection_limit: float | None) -> tuple[int, str | None]:
+def _classify(cell: str, decimal: str, factor: float, detection_limit: float | None,
+              quantitation_limit: float | None = None) -> tuple[int, str | None]:
     folded = cell.strip().casefold()
     if folded in MISSING_SPELLINGS or folded == "":
         return 2, None
-    if folded in NOT_DETECTED_SPELLINGS:
-        if detection_limit is None:
-            return 2, None
-        return 1, "<" + number_text(detection_limit)
+    if folded in AMBIGUOUS_SPELLINGS:
+        return 3, None
+    for spellings, limit in ((NOT_DETECTED_SPELLINGS, detection_limit),
+                             (BELOW_QUANTITATION_SPELLINGS, quantitation_limit)):
+        if folded in spellings:
+            return (2, None) if limit is None else (1, "<" + number_text(limit))
     found = _BOUND.match(cell.strip())
     if not found:
         return 0, None

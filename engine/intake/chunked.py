@@ -18,9 +18,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.readers import ENCODING_HINT, detect_delimiter
-from sumpwise.intake.samples import (ColumnMap, Reject, SampleBatch, detected_decimal, lab_numeric_columns,
-                                     read_samples)
+from sumpwise.intake.readers import ENCODING_HINT, PREAMBLE_LINES, detect_delimiter
+from sumpwise.intake.samples import (ColumnMap, Reject, SampleBatch, detected_decimal, header_preamble,
+                                     lab_numeric_columns, read_samples)
 from sumpwise.vocabulary.problems import InputError
 
 DUPLICATE_ID = "D003"  # the reject code of a sample id seen before in the file
@@ -47,10 +47,21 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
     fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
     seen = _SeenIds()
     offset = 0
+    peeked, note, above_header = (), None, 0  # above_header: lines above the CSV header (a title)
     layout_break = None  # a header line in another layout, in force from an earlier chunk
     percent_water = None  # the row of a water reading an earlier chunk read as a percentage
     try:
-        for text, lines, more in _chunk_texts(stream, fmt, rows, name):
+        if fmt == "csv":  # a `sep=;` line or a title above the header: not read, as by the whole-file reader
+            peeked = _peek(stream)
+            try:
+                above = header_preamble("".join(peeked), columns or ColumnMap(), numeric)
+            except InputError as exc:
+                raise InputError(f"{name}: {exc}") from None
+            peeked, note, above_header = peeked[above.skip:], above.note, above.skip
+            if above.delimiter:
+                columns = columns or ColumnMap()
+                columns = replace(columns, options={**columns.options, "delimiter": above.delimiter})
+        for text, lines, more in _chunk_texts(stream, fmt, rows, name, peeked):
             if offset == 0 and fmt == "csv":
                 chunk_columns, columns = columns, _marks_of_the_file(columns, text, numeric, name)  # later: the first's
             else:
@@ -59,7 +70,7 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             try:
                 data, text = text.encode("utf-8"), None
             except UnicodeEncodeError as exc:  # a surrogate: a byte the file's UTF-8 could not read
-                raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv")) from None
+                raise _not_utf8(name, ord(text[exc.start]) - 0xDC00, _file_line(text, exc.start, offset, fmt == "csv") + above_header) from None
             batch = read_samples(io.TextIOWrapper(io.BytesIO(data), encoding="utf-8", newline=""), name,
                                  chunk_columns, fmt, numeric,
                                  layout_break and (layout_break[0] - offset, layout_break[1]),  # the chunk's rows
@@ -68,6 +79,8 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             batch = _moved(batch, offset)
             layout_break, percent_water = batch.layout_break, batch.percent_water
             batch = replace(seen.check(batch), more=more)
+            if note and offset == 0:
+                batch = replace(batch, notes=(note, *batch.notes))
             offset += lines  # the chunk's lines, blank ones included: rows are numbered by line
             yield batch
             batch = None  # let the chunk go before the next one is read
@@ -105,7 +118,17 @@ def _file_line(text: str, at: int, offset: int, header: bool) -> int:
     return 1 if header and index == 0 else 1 + index + offset
 
 
-def _chunk_texts(stream, fmt: str, rows: int, name: str):
+def _peek(stream) -> list:
+    """The stream's first lines (as many as readers.preamble looks at), the byte-order mark dropped."""
+    peeked = []
+    while len(peeked) < PREAMBLE_LINES and (line := stream.readline()):
+        peeked.append(line)
+    if peeked:
+        peeked[0] = peeked[0].removeprefix("\ufeff")
+    return peeked
+
+
+def _chunk_texts(stream, fmt: str, rows: int, name: str, peeked=()):
     """The file's text a chunk at a time, with the number of its lines after any header and whether
     another chunk follows; CSV chunks each start with the header line.
 
@@ -114,7 +137,8 @@ def _chunk_texts(stream, fmt: str, rows: int, name: str):
     chunk starts with a blank line (blank lines stay with the chunk before), so none holds
     only blank lines, which a reader takes for an empty file.
     """
-    first = stream.readline().removeprefix("\ufeff")
+    first = peeked[0] if peeked else stream.readline().removeprefix("\ufeff")
+    rest = list(peeked[1:])  # lines read already, after the header
     header, fields = "", 0
     if fmt == "csv":
         header, first = first, ""
@@ -122,7 +146,7 @@ def _chunk_texts(stream, fmt: str, rows: int, name: str):
             raise InputError(f"{name}: the file is empty: expected a header row and data rows")
         fields = len(next(csv.reader([header]), []))
     lines, quotes, yielded = [first] if first else [], 0, False
-    while batch := stream.readlines(_BATCH_CHARS):  # lines split in C; a Python step only where a chunk may end
+    for batch in _batches(stream, rest):  # lines split in C; a Python step only where a chunk may end
         at = 0
         while at < len(batch):
             cut = min(at + max(rows - len(lines), 0), len(batch))  # the first line before which it may end
@@ -142,6 +166,14 @@ def _chunk_texts(stream, fmt: str, rows: int, name: str):
             at = cut + 1
     if lines or not yielded:
         yield header + "".join(lines), len(lines), False
+
+
+def _batches(stream, rest: list):
+    """The lines read already (`rest`), then the stream's, a batch at a time."""
+    if rest:
+        yield rest
+    while batch := stream.readlines(_BATCH_CHARS):
+        yield batch
 
 
 def _starts_well(line: str, fields: int) -> bool:

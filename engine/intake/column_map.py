@@ -5,6 +5,7 @@ A column map is YAML. Each key is an engine name (a measure, a field, `oil_chang
 
     water: "H2O"                                   # the lab's column
     water: {column: "H2O", unit: "%", detection_limit: 0.01}
+    an: {column: "TAN", quantitation_limit: 0.05}    # what a `<LOQ` cell is below
     class: {value: steam-turbine}                  # a constant for every row
     class: {column: Component, map: {"Pump Bearing Housing": centrifugal-pump}}
     oil_changed: {column: "Oil chg", true: [Y], false: [N]}
@@ -35,7 +36,7 @@ NUMERIC_NAMES = tuple(INPUT_MEASURES) + tuple(f"new_{name}" for name in REFERENC
 FILE_OPTIONS = ("delimiter", "decimal", "encoding", "date_format", "sheet")
 DELIMITERS = (",", ";", "\t", "|")
 DECIMAL_MARKS = (".", ",")
-_ENTRY_KEYS = {"column", "unit", "value", "map", "true", "false", "detection_limit", "method"}
+_ENTRY_KEYS = {"column", "unit", "value", "map", "true", "false", "detection_limit", "quantitation_limit", "method"}
 
 
 _SEPARATORS = re.compile(r"[\s_-]+")
@@ -105,7 +106,8 @@ class ColumnMap:
     """A lab's column names and units mapped onto the engine's names (name -> lab column).
 
     `constants` give a value to every row; `translations` rewrite a column's values;
-    `flags` add spellings of true/false; `detection_limits` are in the engine's unit;
+    `flags` add spellings of true/false; `detection_limits` and `quantitation_limits` are in the unit
+    the column is read in (converted with its values);
     `methods` is the FTIR convention per measure; `options` how the file is written.
     """
 
@@ -115,6 +117,7 @@ class ColumnMap:
     translations: dict = field(default_factory=dict)
     flags: dict = field(default_factory=dict)
     detection_limits: dict = field(default_factory=dict)
+    quantitation_limits: dict = field(default_factory=dict)
     methods: dict = field(default_factory=dict)
     options: dict = field(default_factory=dict)
 
@@ -210,14 +213,17 @@ def _entry(doc, name: str, spec: dict, found: ColumnMap, problems: list, numeric
                                                         f"one of: {', '.join(known_units(family))}", code="M003"))
         else:
             found.units[name] = spec["unit"]
-    if "detection_limit" in spec:
-        limit = spec["detection_limit"]
+    for key, limits, said in (("detection_limit", found.detection_limits, "a detection limit"),
+                              ("quantitation_limit", found.quantitation_limits, "a quantitation limit")):
+        if key not in spec:
+            continue
+        limit = spec[key]
         if name not in numeric or isinstance(limit, bool) or not isinstance(limit, (int, float)) \
                 or not limit > 0 or limit == float("inf"):
-            problems.append(doc.problem((name, "detection_limit"), "a detection limit is a finite number above 0, "
-                                                                   "for a measure", code="M006"))
+            problems.append(doc.problem((name, key), f"{said} is a finite number above 0, for a measure",
+                                        code="M006"))
         else:
-            found.detection_limits[name] = float(limit)
+            limits[name] = float(limit)
     if "method" in spec:  # the one vocabulary of FTIR methods (direct, subtraction, differential)
         try:
             found.methods[name] = canonical_method(spec["method"])

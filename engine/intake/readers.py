@@ -91,6 +91,92 @@ def detect_delimiter(header: str) -> str:
     return max(DELIMITERS, key=lambda d: (counts[d], d == ","))
 
 
+# Excel's first line naming the file's delimiter (`sep=;`), which it writes and reads itself.
+_SEP_LINE = re.compile(r'^\s*"?sep=(.)"?\s*$', re.IGNORECASE)
+PREAMBLE_LINES = 12  # the first lines looked at for a header below a title (a title, a date, blank lines)
+
+
+def line_ends(text: str, count: int) -> list[int]:
+    """Where each of the first `count` lines of `text` ends, its line end included."""
+    ends = []
+    for found in re.finditer(r"\r\n|\n|\r", text):
+        ends.append(found.end())
+        if len(ends) == count:
+            break
+    return ends if len(ends) == count or (ends and ends[-1] == len(text)) else ends + [len(text)]
+
+
+@dataclass(frozen=True)
+class Preamble:
+    """Lines above a CSV file's header: how many (`skip`), the delimiter a `sep=` line gave, and
+    the note that says so (None when the file starts with its header)."""
+
+    skip: int
+    delimiter: str | None
+    note: str | None
+
+
+def preamble(text: str, delimiter: str | None, names: set, id_name: str) -> Preamble:
+    """Lines above the header: Excel's `sep=;` line, and a title (`Brackwater Point, used oil results,
+    week 48`) with blank lines around it, as a spreadsheet or LIMS report writes them (common practice,
+    no source). The header is unmistakable when it names the sample id column (`id_name`, as
+    column_map.engine_name reads names) and another known column (`names`), and every line above it
+    fills fewer than half as many fields as it has, none a known name; then the lines above are not
+    read, with a note. A first line that is not the header where no such header follows is refused,
+    saying what was found: read as a header, the file's columns would be the title's words."""
+    head = text[: 1 << 16]
+    ends = line_ends(head, PREAMBLE_LINES)
+    lines = [head[start:end].rstrip("\r\n") for start, end in zip([0] + ends[:-1], ends)]
+    skip, declared = 0, None
+    found = _SEP_LINE.match(lines[0]) if lines else None
+    if found and found.group(1) in DELIMITERS:
+        declared, skip = found.group(1), 1
+        if delimiter is not None and delimiter != declared:
+            raise InputError(f"line 1 declares the delimiter {declared!r} (sep=), but the column map declares "
+                             f"{delimiter!r}; remove one")
+    delimiter = delimiter or declared
+
+    def fields(line: str) -> list[str]:
+        return [f.strip() for f in next(csv.reader([line], delimiter=delimiter or detect_delimiter(line)), [])]
+
+    def known(cell: str) -> str | None:
+        found = engine_name(cell, names) if cell else None
+        return None if found is None else found[0]
+
+    def is_header(line: str) -> bool:
+        read = [known(f) for f in fields(line)]
+        return id_name in read and any(k is not None and k != id_name for k in read)
+
+    def said(k: int) -> str:
+        return f"line {k + 1} ({lines[k].strip()[:80]!r})"
+
+    if skip < len(lines) and (is_header(lines[skip]) or not lines[skip].strip() and skip == len(lines) - 1):
+        return Preamble(skip, declared, "read the delimiter from line 1 (sep=), not a header" if declared else None)
+    for at in range(skip + 1, len(lines)):
+        if not is_header(lines[at]):
+            continue
+        width = len(fields(lines[at]))
+        above = [k for k in range(skip, at) if lines[k].strip()]
+        if all(2 * sum(bool(f) for f in fields(lines[k])) < width and
+               not any(known(f) for f in fields(lines[k])) for k in above):
+            listed = ", ".join(said(k) for k in above) or "blank lines"
+            sep = "line 1 declares the delimiter (sep=); " if declared else ""
+            return Preamble(at, declared, f"{sep}read the header from line {at + 1}; {listed} above it "
+                                          f"{'is' if len(above) == 1 else 'are'} a title, not read; rows are "
+                                          f"numbered from the header (row 1 is line {at + 2})")
+        raise InputError(f"line {at + 1} reads as the header, but {', '.join(said(k) for k in above)} above it "
+                         f"fill(s) half as many fields as it has or more ({width}), or name a column: whether they "
+                         f"are a title or data is not guessed; delete the lines above the header")
+    first = [f for f in fields(lines[skip]) if f] if skip < len(lines) else []
+    below = next((fields(line) for line in lines[skip + 1:] if line.strip()), [])
+    if first and len(first) <= 2 and len(below) > max(2, len(first)) and not any(map(known, first)):
+        raise InputError(f"{said(skip)} is a title (one or two texts, where the next line has {len(below)} fields), "
+                         f"not a header, and no line below it (up to line {len(lines)}) names the sample id column "
+                         f"and another known column; delete the lines above the header, or name its columns in a "
+                         f"column map")
+    return Preamble(skip, declared, "read the delimiter from line 1 (sep=), not a header" if declared else None)
+
+
 _DECIMAL = re.compile(r"\s*[<>]?\s*-?\d+([,.])\d+\s*")  # a number with one mark in it: 46,1 or 46.1
 _GROUPED = re.compile(r"\s*[<>]?\s*[1-9]\d{0,2}[,.]\d{3}\s*")  # 1,250 or 1.250: a thousands group, or not
 
@@ -651,6 +737,11 @@ def read_xlsx(data: bytes, sheet) -> RawTable:
         header.pop()
     header = ["" if h is None else str(h) for h in header]
     check_header(header)
+    shut = [header[k - 1].strip() for k in _hidden_columns(xml) if k <= len(header) and header[k - 1].strip()]
+    if shut:
+        notes.append(f"{'columns' if len(shut) > 1 else 'column'} {', '.join(map(repr, shut))} hidden in the sheet; "
+                     f"hidden or not, a column is read by its name: one hidden as not to be read (a superseded "
+                     f"result, a working column) must be deleted from the sheet or renamed")
     width = len(header)
     kept, rows, skipped = [], [], []
     for number, values in enumerate(cells[top + 1:], start=top + 1):
@@ -735,6 +826,24 @@ def _hidden_rows(xml: bytes) -> list[int]:
         attributes = match.group(1)
         if _HIDDEN.search(attributes) and (number := _ROW_NUMBER.search(attributes)):
             found.append(int(number.group(1)))
+    return found
+
+
+_COLUMN = re.compile(rb"<(?:\w+:)?col\b([^>]*)>")
+_SPAN = (re.compile(rb"""\bmin=["'](\d+)["']"""), re.compile(rb"""\bmax=["'](\d+)["']"""))
+
+
+def _hidden_columns(xml: bytes) -> list[int]:
+    """1-based column numbers the sheet marks hidden (openpyxl's read-only mode does not say, as
+    for rows): the `col` element's `hidden` attribute over its `min` to `max` columns (ECMA-376
+    Part 1, the col element, 18.3.1.13 from memory). The list comes before the cells."""
+    found = []
+    end = xml.find(b"sheetData")
+    for match in _COLUMN.finditer(xml, 0, end if end >= 0 else len(xml)):
+        attributes = match.group(1)
+        low, high = (pattern.search(attributes) for pattern in _SPAN)
+        if _HIDDEN.search(attributes) and low and high:
+            found.extend(range(int(low.group(1)), int(high.group(1)) + 1))
     return found
 
 

@@ -19,14 +19,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.censored import CENSORED_SUFFIX, NOT_DETECTED_SPELLINGS, WRITTEN_SUFFIX, read_censored
+from sumpwise.intake.censored import (BELOW_QUANTITATION_SPELLINGS, CENSORED_SUFFIX, NOT_DETECTED_SPELLINGS,
+                                     WRITTEN_SUFFIX, read_censored)
 from sumpwise.intake.column_map import (FLAG_FIELDS, MAPPABLE_FIELDS, NUMERIC_NAMES, ColumnMap, engine_columns,
                                         header_key, load_column_map)
 from sumpwise.intake.dates import read_dates
 from sumpwise.intake.header_lines import header_lines
-from sumpwise.intake.header_units import SPELLINGS, header_conflict, named_unit, readable_units, unit_conflict
-from sumpwise.intake.readers import (RawTable, check_header, decode, detect_decimal, detect_delimiter, is_utf8,
-                                     nested_cells, read_csv, read_jsonl, read_xlsx)
+from sumpwise.intake.header_units import (SPELLINGS, header_conflict, named_unit, readable_units, size_conflict,
+                                          temperature_conflict, unit_conflict)
+from sumpwise.intake.readers import (Preamble, RawTable, check_header, decode, detect_decimal, detect_delimiter,
+                                     is_utf8, line_ends, nested_cells, preamble, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError, Problem, json_path
@@ -115,8 +117,15 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
         else:
             text = decode(data, columns.option("encoding"))
             utf8 = is_utf8(columns.option("encoding"))
+            above = header_preamble(text, columns, numeric)
+            if above.skip:  # a `sep=;` line or a title above the header: the rest is read as the file
+                text, utf8 = text[line_ends(text, above.skip)[-1]:], False
+            if above.delimiter:
+                columns = replace(columns, options={**columns.options, "delimiter": above.delimiter})
             decimal = columns.option("decimal") or detected_decimal(text, columns.option("delimiter"), lab_numeric)
             raw = read_csv(text, lab_numeric, columns.option("delimiter"), decimal, data if utf8 else None)
+            if above.note:
+                raw.notes.insert(0, above.note)
             if columns.option("decimal") is None and decimal != ".":
                 raw.notes.append(f"detected the decimal mark {decimal!r} from the data")
                 # every cell is read with it, the ones the CSV parser left as text (`<0,05`) too
@@ -125,6 +134,14 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
         raise InputError(f"{name}: {exc}") from None
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes,
                             layout_break=layout_break, percent_water=percent_water)
+
+
+def header_preamble(text: str, columns: ColumnMap, numeric: tuple = ()) -> Preamble:
+    """The lines above a CSV file's header (readers.preamble), the header told by the names this map
+    and the engine read."""
+    names = set(NUMERIC_COLUMNS) | set(MAPPABLE_FIELDS) | set(REQUIRED_COLUMNS) | set(numeric)
+    names = (names - set(columns.columns)) | set(columns.columns.values())
+    return preamble(text, columns.option("delimiter"), names, columns.columns.get("sample_id", "sample_id"))
 
 
 def lab_numeric_columns(columns: ColumnMap, numeric: tuple = ()) -> set:
@@ -319,9 +336,16 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
     for column in numeric_names:
         factor = factor_to_canonical(UNIT_FAMILY[column], columns.units[column]) if column in columns.units else 1.0
         values, text, not_a_number = _number_column(raw[column], decimal)
+        carried = np.zeros(len(raw), dtype=bool)  # cells read with their unit (`8 ppm`): they say theirs
         if text is not None and not_a_number.any():
             written_cells[column] = text.to_numpy(dtype=object)
             named |= _header_names(written_cells[column], not_a_number, header_names)
+            if column in SPELLINGS:  # `45.2 cSt`: read where the unit is the column's, refused where not
+                refused, codes, reasons, carried = _unit_cells(column, values, text, not_a_number, decimal,
+                                                      _read_in(column, columns), labs.get(column, column))
+                for code in ("D018", "D004"):
+                    reject(refused & (codes == code), column, reasons, code)
+                not_a_number &= ~refused
             grouped = _grouped_numbers(text, not_a_number, decimal)
             if (read := ~np.isnan(grouped)).any():
                 values, not_a_number = np.where(read, grouped, values), not_a_number & ~read
@@ -346,9 +370,15 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
             not_a_number &= ~infinite
         censored = held = None
         if not_a_number.any():
-            limit = columns.detection_limits.get(column)
+            limit, quantified = columns.detection_limits.get(column), columns.quantitation_limits.get(column)
             cells = read_censored(text.to_numpy(dtype=object), not_a_number, decimal, factor,
-                                  None if limit is None else limit * factor)
+                                  None if limit is None else limit * factor,
+                                  None if quantified is None else quantified * factor)
+            if cells.ambiguous.any():
+                reject(cells.ambiguous, column, _found("", text, cells.ambiguous, quoted=True) + (
+                    ": a word for a reading seen but not measured, which labs write both for 'below the reporting "
+                    "limit' and for 'detected, small': not guessed; ask the lab for the number or its bound "
+                    "(<0.05), or write ND if nothing was detected"), "D025")
             if cells.bad.any():
                 _check_units_line(name, column, columns, labs.get(column, column), text, cells.bad, raw.index)
                 reasons = _found("expected a number or a censored reading such as <0.05, found ", text, cells.bad,
@@ -371,12 +401,12 @@ def validate_samples(raw: pd.DataFrame, skipped: list, name: str, columns: Colum
         elif domain[0].low == 0 and domain[0].low_in and (values < 0).any():
             reject(values < 0, column, _found("cannot be negative, found ", raw[column], values < 0), "D005")
         if column == "water" and column not in columns.units:
-            stated = np.zeros(len(raw), dtype=bool)  # rows whose unit column says ppm
+            stated = carried.copy()  # rows whose unit column (or cell, `8 ppm`) says ppm
             if column in unit_columns:
                 cells = raw[unit_columns[column]].to_numpy(dtype=object)
                 codes, spellings = pd.factorize(cells)  # a few spellings
-                stated = np.array([named_unit(column, str(cell), whole=True) == "ppm" for cell in spellings] + [False],
-                                  dtype=bool)[codes]
+                stated |= np.array([named_unit(column, str(cell), whole=True) == "ppm" for cell in spellings] + [False],
+                                   dtype=bool)[codes]
             scale = _percent_sized(values, censored, held, text, bad,
                                    named_unit("water", labs.get(column, column)) == "ppm", percent, stated,
                                    percent_water is not None)
@@ -526,7 +556,7 @@ def _percent_sized(values: np.ndarray, censored: np.ndarray | None, held: np.nda
     if held is not None and held.any():
         at = np.flatnonzero(held)
         spelled = written.to_numpy(dtype=object)[at].astype(str)
-        at = at[~np.isin(np.strings.lower(spelled), NOT_DETECTED_SPELLINGS)]  # an ND's bound: the map's limit
+        at = at[~np.isin(np.strings.lower(spelled), NOT_DETECTED_SPELLINGS + BELOW_QUANTITATION_SPELLINGS)]  # the map's limit
         codes, spellings = pd.factorize(censored[at])  # a few: `<0.05`, `>1000`
         sized = values.copy()
         sized[at] = np.array([float(str(cell).lstrip("<>=")) for cell in spellings], dtype=float)[codes]
@@ -692,6 +722,84 @@ def _percent_cells(values: np.ndarray, text: pd.Series, not_a_number: np.ndarray
     return found
 
 
+# A reading with its unit written after it in the cell (`45.2 cSt`, `0.35 mg KOH/g`, `<0.05 mg KOH/g`,
+# `1 250 /mL`), as LIMS exports and hand-kept sheets write it: a number or a bound, then text that starts
+# like a unit (a letter, `/`, a micro sign, a bracket). A percent sign is _percent_cells' to read.
+_WITH_UNIT = re.compile(r"((?:<=|>=|<|>|\u2264|\u2265)?\s*[+-]?(?:\d[\d.,\u00a0\u202f ]*|[.,]\d+)(?:[eE][+-]?\d+)?)"
+                        r"\s*([A-Za-z\u00b5\u03bc/#\[(].*)")
+
+
+def _unit_cells(measure: str, values: np.ndarray, text: pd.Series, not_a_number: np.ndarray, decimal: str,
+                read_in: str, lab: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Cells that carry their unit, among those that are not numbers (each distinct text looked at once).
+
+    Where the cell's unit is the one the column is read in (cSt and mm2/s are one unit, ASTM D445),
+    the number is read into `values` (a bound is left in `text` without its unit, for the censored
+    reading), both in place. Where it is another unit (`0.12 %` in a ppm column is _percent_cells'), the
+    cell is returned as refused, D018, saying what the column is read in: read as the bare number, 120 ppm
+    in a % column is graded 10,000 times too wet. Text after a number that is no unit of any measure (a
+    lab's `X` flag) is refused D004. Returns (refused, code, reason, read: the cells read with their
+    unit), aligned with the column."""
+    n = len(values)
+    refused, codes_out, reasons = np.zeros(n, dtype=bool), np.full(n, "", dtype=object), np.full(n, "", dtype=object)
+    carried = np.zeros(n, dtype=bool)
+    at = np.flatnonzero(not_a_number)
+    if not len(at):
+        return refused, codes_out, reasons, carried
+    codes, spellings = pd.factorize(text.to_numpy(dtype=object)[at])
+    parts = pd.Series(spellings, dtype=object).astype(str).str.extract(f"^{_WITH_UNIT.pattern}$")
+    found = parts[1].notna().to_numpy()
+    if not found.any():
+        return refused, codes_out, reasons, carried
+    # each distinct unit once (a column holds a few: `cSt`, `mm2/s`), not each distinct cell
+    unit_codes, units = pd.factorize(parts[1].where(parts[1].notna(), None).to_numpy(dtype=object))
+    verdicts = [_cell_unit(measure, str(unit), read_in) for unit in units]
+    kind = np.array([v[0] for v in verdicts] + [""], dtype=object)[unit_codes]  # "" agrees, else a code
+    agrees = found & (kind == "")
+    number_of = parts[0].str.strip().to_numpy(dtype=object)  # the cell without its unit
+    code_of, why_of = np.where(found, kind, "").astype(object), np.full(len(spellings), "", dtype=object)
+    for k in np.flatnonzero(code_of != ""):  # the refused spellings only, for their reasons
+        why_of[k] = f"{str(spellings[k])!r}: " + verdicts[unit_codes[k]][1].replace(_LAB, repr(lab))
+    refused[at] = (code_of != "")[codes]
+    codes_out[at], reasons[at] = code_of[codes], why_of[codes]
+    agree = at[agrees[codes]]
+    carried[agree] = True
+    if len(agree):  # each distinct number once, by the same rules as any cell (a '.' where ',' is the mark)
+        parsed, _, still = _number_column(pd.Series(number_of[agrees], dtype=object), decimal)
+        number, bound = np.full(len(spellings), np.nan), np.zeros(len(spellings), dtype=bool)
+        number[agrees], bound[agrees] = parsed, still
+        row_bound = bound[codes][agrees[codes]]
+        values[agree[~row_bound]] = number[codes][agrees[codes]][~row_bound]
+        not_a_number[agree[~row_bound]] = False
+        left = np.where(bound, number_of, None)[codes][agrees[codes]]  # a bound read on without its unit
+        text.iloc[agree] = left
+    return refused, codes_out, reasons, carried
+
+
+_LAB = "\x00lab\x00"  # where _cell_unit's reason names the lab's column
+
+
+def _cell_unit(measure: str, unit: str, read_in: str) -> tuple[str, str]:
+    """("", "") when a cell's unit is the one its column is read in, else (code, why), `_LAB` in the
+    why standing for the lab's name of the column."""
+    named = named_unit(measure, unit, whole=True)
+    other = temperature_conflict(measure, unit) or size_conflict(measure, unit)  # `46.1 cSt @ 100 °C` in kv40
+    if other:
+        return "D018", f"the cell {other}"
+    if named == read_in:
+        return "", ""
+    if named in readable_units(measure):
+        return "D018", (f"the cell is in {named}, but column {_LAB} is read in {read_in}; a cell is not converted "
+                        f"on its own: write the column in one unit and declare it in the column map "
+                        f"({measure}: {{column: {_LAB}, unit: ...}})")
+    if named is not None or any(named_unit(other, unit, whole=True) for other in SPELLINGS):
+        return "D018", (f"the cell names {named or repr(unit.strip())}, which is not a unit {measure} can be read in "
+                        f"({', '.join(readable_units(measure))}); column {_LAB} is read in {read_in}: a value of "
+                        f"another quantity, or in another unit, is not graded")
+    return "D004", (f"expected a number in {read_in}, found text after the number ({unit.strip()!r}) that is no "
+                    f"unit {measure} is read in")
+
+
 def _check_header_units(name: str, columns: ColumnMap) -> None:
     """A mapped column whose header names another unit than it is read in (`Water (Karl Fischer) %`
     mapped without `unit: '%'`), particle counts of another size or a viscosity at another
@@ -833,8 +941,9 @@ def _number_column(column: pd.Series, decimal: str = ".") -> tuple[np.ndarray, p
     try:
         cells = spelled[looks].tolist()  # Python's float() a cell: twice numpy's own parse, and what it accepts
         parsed[looks] = np.fromiter(map(float, cells), dtype=float, count=len(cells))
-    except ValueError:  # a cell like `1.2.3` or `12 ppm`: convert cell by cell, badly formed ones become NaN
-        parsed[looks] = pd.to_numeric(spelled[looks].astype(object), errors="coerce")
+    except ValueError:  # a cell like `1.2.3` or `12 ppm`: each distinct text converted once, bad ones NaN
+        codes, uniques = pd.factorize(spelled[looks].astype(object))
+        parsed[looks] = pd.to_numeric(pd.Series(uniques, dtype=object), errors="coerce").to_numpy(dtype=float)[codes]
     not_a_number = ((text != "") | is_bool) & np.isnan(parsed)
     shown = np.full(len(values), None, dtype=object)  # the text of the cells that are not numbers only
     shown[not_a_number] = text[not_a_number]

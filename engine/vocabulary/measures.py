@@ -146,7 +146,8 @@ ISO4406_TOP = 28  # the published table's last row; a count above it is given 29
 def read_iso4406(text: str) -> tuple:
     """A cleanliness code as labs write it -> (scale number or None) at >= 4, 6 and 14 um(c).
 
-    `18/16/13`; the two-number form `16/13` (>= 6 and >= 14 um(c) only) or `-/16/13`; `-` or
+    `18/16/13` (spaces around the solidi, or en or em dashes for them, `18–16–13`, read alike);
+    the two-number form `16/13` (>= 6 and >= 14 um(c) only) or `-/16/13`; `-` or
     `*` for a size not reported; `>28` (beyond the standard's table) is 29, as scale_numbers
     gives a count above 2,500,000 per mL. A number written `>=7` or with the sign U+2265 (fewer than 20
     particles counted) gives that number here; iso4406_parts says which were so written,
@@ -159,7 +160,10 @@ def iso4406_parts(text: str) -> list:
     """A readable code's three sizes as (scale number or None, written `>=n` or with U+2265):
     fewer than 20 particles counted, so the true number is n or higher (ISO 4406:1999; a
     censored value, not the number n). Raises ValueError as read_iso4406 does."""
-    parts = [part.strip() for part in str(text).strip().split("/")]
+    written = str(text).strip()
+    if "/" not in written:  # `18–16–13`: ISO 4406 writes solidi (18/16/13); an en or em dash is a typographic slip
+        written = written.replace("\u2013", "/").replace("\u2014", "/")  # (common practice, no source)
+    parts = [part.strip() for part in written.split("/")]
     if len(parts) == 2:
         parts = ["-"] + parts
     if len(parts) != 3:
