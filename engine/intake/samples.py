@@ -27,7 +27,7 @@ from sumpwise.intake.dates import read_dates
 from sumpwise.intake.header_lines import header_lines
 from sumpwise.intake.header_units import (SPELLINGS, header_conflict, named_unit, readable_units, size_conflict,
                                           temperature_conflict, unit_conflict)
-from sumpwise.intake.readers import (Preamble, RawTable, check_header, decode, detect_decimal, detect_delimiter,
+from sumpwise.intake.readers import (Preamble, check_header, decode, detect_decimal, detect_delimiter,
                                      is_utf8, line_ends, nested_cells, preamble, read_csv, read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
