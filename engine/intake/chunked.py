@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.intake.readers import ENCODING_HINT, PREAMBLE_LINES, detect_delimiter
+from sumpwise.intake.readers import ENCODING_HINT, PREAMBLE_LINES, detect_delimiter, marked_encoding, marked_note
 from sumpwise.intake.samples import (ColumnMap, Reject, SampleBatch, detected_decimal, header_preamble,
                                      lab_numeric_columns, read_samples)
 from sumpwise.vocabulary.problems import InputError
@@ -35,15 +35,22 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
                   numeric: tuple = (), rows: int = 200_000):
     """Yield SampleBatches of about `rows` data rows each, numbered as in the whole file, each
     saying whether the file goes on after it (`more`)."""
+    marked = None
     if isinstance(source, (str, Path)):
         name = name or str(source)
         try:
+            with open(source, "rb") as head:
+                marked = marked_encoding(head.read(4))
             # a byte that is not UTF-8 is kept as a surrogate, so the chunk can say on which line it is
-            stream = open(source, encoding="utf-8-sig", errors="surrogateescape", newline="")
+            stream = open(source, encoding=marked or "utf-8-sig", errors="surrogateescape", newline="")
         except OSError as exc:
             raise InputError(f"{name}: cannot read the file: {exc}") from None
     else:
         name, stream = name or "<stdin>", source
+        under = getattr(source, "buffer", None)
+        marked = marked_encoding(under.peek(4)[:4]) if hasattr(under, "peek") else None
+        if marked:  # standard input from a "Unicode text" export: decoded as its mark says
+            stream = io.TextIOWrapper(under, encoding=marked, errors="surrogateescape", newline="")
     fmt = fmt or ("jsonl" if name.endswith((".jsonl", ".ndjson", ".json")) else "csv")
     seen = _SeenIds()
     offset = 0
@@ -79,16 +86,19 @@ def sample_chunks(source, name: str | None = None, columns: ColumnMap | None = N
             batch = _moved(batch, offset)
             layout_break, percent_water = batch.layout_break, batch.percent_water
             batch = replace(seen.check(batch), more=more)
-            if note and offset == 0:
-                batch = replace(batch, notes=(note, *batch.notes))
+            if offset == 0:
+                said = (marked_note(marked),) if marked else ()
+                batch = replace(batch, notes=(*said, *((note,) if note else ()), *batch.notes))
             offset += lines  # the chunk's lines, blank ones included: rows are numbered by line
             yield batch
             batch = None  # let the chunk go before the next one is read
     except UnicodeDecodeError as exc:  # a stream that decodes strictly: the line is not known
         raise _not_utf8(name, exc.object[exc.start], None) from None
     finally:
-        if stream is not source:
+        if isinstance(source, (str, Path)):
             stream.close()
+        elif stream is not source:
+            stream.detach()  # standard input's own buffer stays open
 
 
 def _marks_of_the_file(columns: ColumnMap | None, text: str, numeric: tuple, name: str) -> ColumnMap:

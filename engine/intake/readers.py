@@ -44,6 +44,22 @@ class RawTable:
     header: list = field(default_factory=list)
 
 
+# Byte-order marks of the encodings a spreadsheet's "Unicode text" export writes (UTF-32's first:
+# UTF-16 LE's mark begins it). The codec named consumes the mark.
+_MARKS = ((b"\xff\xfe\x00\x00", "utf-32"), (b"\x00\x00\xfe\xff", "utf-32"), (b"\xff\xfe", "utf-16"),
+          (b"\xfe\xff", "utf-16"))
+
+
+def marked_encoding(head: bytes) -> str | None:
+    """The encoding a file's first bytes name by their byte-order mark (None: no such mark). A mark
+    is the file saying how it is written, so it is followed, not guessed; UTF-8's own is read as UTF-8."""
+    return next((name for mark, name in _MARKS if head.startswith(mark)), None)
+
+
+def marked_note(encoding: str) -> str:
+    return f"read as {encoding.upper()}: the file begins with that encoding's byte-order mark"
+
+
 def is_utf8(encoding: str | None) -> bool:
     """Whether a declared encoding (None: none declared) is UTF-8, however it is spelled."""
     return (encoding or "utf-8").replace("_", "-").lower() in ("utf-8", "utf8")

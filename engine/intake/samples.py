@@ -28,7 +28,8 @@ from sumpwise.intake.header_lines import header_lines
 from sumpwise.intake.header_units import (SPELLINGS, header_conflict, named_unit, readable_units, size_conflict,
                                           temperature_conflict, unit_conflict)
 from sumpwise.intake.readers import (Preamble, check_header, decode, detect_decimal, detect_delimiter,
-                                     is_utf8, line_ends, nested_cells, preamble, read_csv, read_jsonl, read_xlsx)
+                                     is_utf8, line_ends, marked_encoding, marked_note, nested_cells, preamble, read_csv,
+                                     read_jsonl, read_xlsx)
 from sumpwise.intake.summary_rows import summary_rows
 from sumpwise.vocabulary.measures import DECIMALS, INPUT_MEASURES, ISO4406_SIZES, POSITIVE, UNIT_FAMILY, domain_of
 from sumpwise.vocabulary.problems import InputError, Problem, json_path
@@ -109,14 +110,16 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
     suffix = name.lower().rsplit(".", 1)[-1] if "." in name else ""
     fmt = fmt or {"jsonl": "jsonl", "ndjson": "jsonl", "json": "jsonl", "xlsx": "xlsx"}.get(suffix, "csv")
     lab_numeric = lab_numeric_columns(columns, numeric)
+    marked = None if columns.option("encoding") or fmt == "xlsx" else marked_encoding(data[:4])
+    encoding = columns.option("encoding") or marked
     try:
         if fmt == "xlsx":
             raw = read_xlsx(data, columns.option("sheet"))
         elif fmt == "jsonl":
-            raw = read_jsonl(data, lab_numeric, columns.option("encoding"))
+            raw = read_jsonl(data, lab_numeric, encoding)
         else:
-            text = decode(data, columns.option("encoding"))
-            utf8 = is_utf8(columns.option("encoding"))
+            text = decode(data, encoding)
+            utf8 = is_utf8(encoding)
             above = header_preamble(text, columns, numeric)
             if above.skip:  # a `sep=;` line or a title above the header: the rest is read as the file
                 text, utf8 = text[line_ends(text, above.skip)[-1]:], False
@@ -132,6 +135,8 @@ def read_samples(source, name: str | None = None, columns: ColumnMap | None = No
                 columns = replace(columns, options={**columns.options, "decimal": decimal})
     except InputError as exc:
         raise InputError(f"{name}: {exc}") from None
+    if marked:
+        raw.notes.insert(0, marked_note(marked))
     return validate_samples(raw.frame, raw.skipped, name, columns, numeric, rows=raw.rows, notes=raw.notes,
                             layout_break=layout_break, percent_water=percent_water)
 
