@@ -28,7 +28,7 @@ from sumpwise.ruleset.model import RuleSet
 from sumpwise.ruleset.resolve import DEFAULT_GRADES
 from sumpwise.vocabulary.intervals import can_hold
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
-from sumpwise.vocabulary.measures import MEASURES, TREND_MEASURES, domain_of, measure_unit
+from sumpwise.vocabulary.measures import MEASURES, REFERENCE_VALUES, TREND_MEASURES, domain_of, measure_unit
 from sumpwise.vocabulary.problems import InputError
 
 SIGNIFICANT = 4  # limits are written with 4 significant figures, as kinematic viscosity is reported (ISO 3104)
@@ -103,16 +103,19 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     measured = _measured(batch, measure, ruleset)
     chosen = _chosen(measured, class_name, filters)
     values = measured[measure].to_numpy(dtype=float, na_value=np.nan)[chosen]
-    oils = _oils(measured, chosen, values)
+    low, high, censored = _censored(measured, measure, chosen)
+    present = ~np.isnan(values) | censored
+    oils = _oils(measured, chosen, present)
     _refuse_mixed_oils(oils, class_name, filters)
     only = oils.index[0] if len(oils) == 1 and filters.lubricant is None else None
-    if chosen.any() and np.isnan(values).all():
+    if chosen.any() and not present.any():
         raise Refused(_nothing_computed(measured, chosen, measure, ruleset))
     grades = tuple(grades) if grades else tuple((ruleset.grades if ruleset else DEFAULT_GRADES)[1:])
     known = MEASURES.get(measure)
     direction = direction or ("below" if known and known.low_is_bad else "above")
     try:
-        proposal = propose_ladder(values, grades, direction, method=method)
+        proposal = propose_ladder(values[~censored], grades, direction, method=method,
+                                  censored=(low[censored], high[censored]))
     except NotEnoughData:
         raise
     except ValueError as exc:  # limits that coincide, or a ladder the defaults do not cover
@@ -121,10 +124,11 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     data = values[~np.isnan(values)]
     limits, notes = _spaced(proposal, measure, measured, chosen)
     _refuse_impossible(measure, direction, limits, data)
+    _refuse_fresh_oil_flagged(measure, direction, proposal.grades, limits, measured, chosen, present)
     proposal = replace(proposal, limits=limits)
-    expected, observed = _shares(proposal, data)
+    expected, observed = _shares(proposal, data, (low[censored], high[censored]))
 
-    dates = measured["sampled_on"].to_numpy(dtype=object)[chosen][~np.isnan(values)]
+    dates = measured["sampled_on"].to_numpy(dtype=object)[chosen][present]
     dated = sorted(str(d) for d in dates if d is not None and not pd.isna(d))
     first, last = (dated[0], dated[-1]) if dated else (None, None)
     who = f"class {class_name}, {filters.words(only)}"
@@ -167,9 +171,20 @@ def _chosen(measured: pd.DataFrame, class_name: str, filters: Filters) -> np.nda
     return np.asarray(chosen, dtype=bool)
 
 
-def _oils(measured, chosen, values) -> pd.Series:
-    """How many of the results with a value are on each lubricant code."""
-    codes = _column(measured, "lubricant")[chosen][~np.isnan(values)]
+def _censored(measured: pd.DataFrame, measure: str, chosen: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The interval ends of the chosen results and which of them are censored (a bound such as `<50`,
+    kept by derivation as `<measure>:low`/`:high`; the number column holds no value there)."""
+    rows = int(chosen.sum())
+    if measure + ":low" not in measured.columns:
+        return np.full(rows, np.nan), np.full(rows, np.nan), np.zeros(rows, dtype=bool)
+    low = measured[measure + ":low"].to_numpy(dtype=float, na_value=np.nan)[chosen]
+    high = measured[measure + ":high"].to_numpy(dtype=float, na_value=np.nan)[chosen]
+    return low, high, ~np.isnan(low) & ~np.isnan(high)
+
+
+def _oils(measured, chosen, present) -> pd.Series:
+    """How many of the results with a value (a number or a censored reading) are on each lubricant code."""
+    codes = _column(measured, "lubricant")[chosen][present]
     return pd.Series(["(none)" if c is None or pd.isna(c) else str(c) for c in codes], dtype=object).value_counts()
 
 
@@ -275,11 +290,47 @@ def _refuse_impossible(measure: str, direction: str, limits: tuple, data: np.nda
                           f"percentile, or fewer grades")
 
 
-def _shares(proposal: Proposal, data: np.ndarray) -> tuple[tuple, tuple]:
+# Measures of the change from new: the value a fresh charge of the oil has, by construction.
+FRESH_VALUE = {"an_rise": 0.0, "oxidation_rise": 0.0, "kv40_change_pct": 0.0, "kv100_change_pct": 0.0,
+               "bn_retained_pct": 100.0, "rpvot_retained_pct": 100.0}
+
+
+def _refuse_fresh_oil_flagged(measure: str, direction: str, grades, limits: tuple, measured, chosen, present) -> None:
+    """Never a limit the new oil itself is at or beyond: every fresh charge would be flagged. An oil whose
+    reading falls in service (an anti-wear oil's acid number as its additive is used up) puts the site's
+    spread on the far side of the new oil, and limits from that spread below it."""
+    sign = 1.0 if direction == "above" else -1.0
+    if measure in FRESH_VALUE:
+        fresh = {f"a fresh charge ({measure} {FRESH_VALUE[measure]:g})": FRESH_VALUE[measure]}
+    elif measure in REFERENCE_VALUES and f"new_{measure}" in measured.columns:
+        new = measured[f"new_{measure}"].to_numpy(dtype=float, na_value=np.nan)[chosen][present]
+        codes = _column(measured, "lubricant")[chosen][present]
+        known = np.isfinite(new)
+        fresh = {f"the new oil {code} ({measure} {value:g})": float(value)
+                 for code, value in zip(codes[known].tolist(), new[known].tolist())}
+    else:
+        return
+    crossed = [(grade, limit, words) for grade, limit in zip(grades, limits)
+               for words, value in fresh.items() if sign * (value - limit) >= 0]
+    if crossed:
+        grade, limit, words = crossed[0]
+        other = "below" if direction == "above" else "above"
+        raise Refused(f"the {grade} limit '{direction} {limit:g}' is already crossed by {words}: every fresh charge "
+                      f"would be flagged {grade} or higher ({len(crossed)} level(s) so). These results lie on the "
+                      f"other side of the new oil, so {measure} moves the other way in service here: give "
+                      f"--direction {other} for limits on that movement, or write the limits by hand from the new "
+                      f"oil's value")
+
+
+def _shares(proposal: Proposal, data: np.ndarray, censored=(np.empty(0), np.empty(0))) -> tuple[tuple, tuple]:
     """Per level: the share of in-control samples it would flag (normal model for SPC, the data's own
-    distribution for percentiles), and the share of these very results beyond it."""
+    distribution for percentiles), and the share of these very results beyond it (a censored result
+    counts as beyond only where its whole interval is)."""
     sign = 1.0 if proposal.direction == "above" else -1.0
-    observed = tuple(float(np.mean(sign * (data - limit) > 0)) for limit in proposal.limits)
+    near = censored[0] if sign > 0 else censored[1]  # the end of each interval nearest the limit's side
+    total = data.size + near.size
+    observed = tuple(float((np.sum(sign * (data - limit) > 0) + np.sum(sign * (near - limit) > 0)) / total)
+                     for limit in proposal.limits)
     if proposal.method == "spc" and proposal.sd > 0:
         expected = tuple(0.5 * math.erfc(sign * (limit - proposal.mean) / proposal.sd / math.sqrt(2.0))
                          for limit in proposal.limits)
@@ -295,7 +346,9 @@ def figure_lines(found: DataProposal) -> list[str]:
     lines = [f"data: {found.source_name}: class {found.class_name}, {found.filters.words(found.only_lubricant)}, "
              f"measure {found.measure}{unit}",
              f"count: {p.count} result(s) used, {p.dropped_missing} without a value dropped "
-             f"(at least {p.needed} needed for this method; minimum counts: common practice, no source)",
+             f"(at least {p.needed} needed for this method; minimum counts: common practice, no source)"
+             + (f"; {p.censored} of them censored (a bound such as <50): ranked by their bounds, never taken "
+                f"as numbers, and not in the mean, SD and shape figures below" if p.censored else ""),
              f"dates: {found.first_sampled or '-'} to {found.last_sampled or '-'}"
              + (f" ({found.undated} result(s) undated)" if found.undated else ""),
              f"mean {p.mean:.6g}, SD {p.sd:.6g}, skewness {p.skewness:.3g}, excess kurtosis "

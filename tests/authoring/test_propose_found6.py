@@ -1,0 +1,144 @@
+"""propose-limits on realistic site histories: censored readings and oils whose reading falls in service.
+
+Outside sources beside each check: numpy.percentile and scipy.stats (general-purpose reference
+libraries) for the statistics; the censored-reading rule (a `<50` is an interval, never its bound's
+number) is the project's intake contract (README, censored readings). The histories are invented,
+Brackwater Point style: tens of units, a skewed water distribution, one unit contributing most
+samples, a lab that writes water below its reporting limit as `<50`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+from scipy import stats
+
+from conftest import run_cli
+from sumpwise.authoring.limit_statistics import censored_percentiles, moments, jarque_bera_p, propose_ladder
+
+REPORTING_LIMIT = 50.0  # ppm: the lab writes `<50` below it (common practice for KF water, no source)
+
+
+def _history(path, columns: dict, cls="gearbox", lubricant="GEAR-320-M", units=12, busy_share=0.0, seed=0):
+    """A site history: `units` units, one of them (GB-1) taking `busy_share` of the samples."""
+    n = len(next(iter(columns.values())))
+    rng = np.random.default_rng(seed)
+    unit = np.where(rng.random(n) < busy_share, 0, rng.integers(0, units, n))
+    frame = pd.DataFrame({"sample_id": [f"BP-{i:05d}" for i in range(n)], "class": cls,
+                          "unit_id": [f"GB-{u + 1}" for u in unit], "lubricant": lubricant,
+                          "sampled_on": pd.date_range("2021-03-01", periods=n, freq="16h").strftime("%Y-%m-%d"),
+                          "oil_hours": np.round(rng.uniform(100, 8000, n)), **columns})
+    frame.to_csv(path, index=False)
+    return path
+
+
+def _rule(text: str) -> dict:
+    [rule] = yaml.safe_load("\n".join(line for line in text.splitlines() if not line.startswith("#")))
+    return rule
+
+
+def _water(n=1200, seed=1):
+    """Lognormal water (median 60 ppm), as the lab reports it: `<50` below its reporting limit."""
+    water = np.round(np.random.default_rng(seed).lognormal(np.log(60.0), 0.8, n))
+    cells = np.where(water < REPORTING_LIMIT, f"<{REPORTING_LIMIT:g}", water.astype(int).astype(str))
+    return water, cells
+
+
+def test_censored_water_readings_are_ranked_not_dropped(tmp_path):
+    # 507 of 1200 results are `<50`. Engines up to 0.7.0 counted them as "without a value dropped" and took
+    # percentiles of the 693 detected readings alone: watch above 263.6, alert 326.1, urgent 445.7 ppm, where
+    # the site's own 95th / 97.5th / 99th percentiles are 217.2 / 270 / 343 ppm (numpy.percentile of every
+    # result). Each level sat far above what it claims, so about half the samples it should flag went unflagged.
+    water, cells = _water()
+    assert (cells == "<50").sum() == 507
+    run = run_cli("propose-limits", "--samples", _history(tmp_path / "s.csv", {"water": cells}, busy_share=0.4),
+                  "--class", "gearbox", "--measure", "water", "--method", "percentile")
+    assert run.code == 0, run.err
+    expected = np.percentile(water, [95.0, 97.5, 99.0])  # numpy: every result, the censored ones at their truth
+    assert list(_rule(run.out)["above"].values()) == [float(f"{x:.4g}") for x in expected]
+    assert "count: 1200 result(s) used, 0 without a value dropped" in run.out
+    assert "507 of them censored" in run.out
+    # The share each level flags is of all 1200 results: a censored `<50` counts as not beyond.
+    flags = next(line for line in run.out.splitlines() if line.startswith("# flags"))
+    assert "watch 5 % (5 %)" in flags
+
+
+def test_auto_takes_percentiles_when_readings_are_censored_and_spc_refuses(tmp_path):
+    _, cells = _water()
+    samples = _history(tmp_path / "s.csv", {"water": cells})
+    auto = run_cli("propose-limits", "--samples", samples, "--class", "gearbox", "--measure", "water")
+    assert auto.code == 0, auto.err
+    assert "percentiles because 507 results are censored" in _rule(auto.out)["source"]
+    spc = run_cli("propose-limits", "--samples", samples, "--class", "gearbox", "--measure", "water", "--method", "spc")
+    assert spc.code == 2 and spc.out == ""
+    assert "507 of the 1200 results are censored" in spc.err
+
+
+def test_a_percentile_among_the_censored_readings_is_refused(tmp_path):
+    # A dry site: 97 % of results `<50`. The 95th percentile lies somewhere under 50, but where is unknown:
+    # no limit rests on the bound as if it were a reading.
+    rng = np.random.default_rng(3)
+    cells = np.where(rng.random(1000) < 0.97, "<50", np.round(rng.uniform(60, 400, 1000)).astype(int).astype(str))
+    run = run_cli("propose-limits", "--samples", _history(tmp_path / "s.csv", {"water": cells}),
+                  "--class", "gearbox", "--measure", "water", "--method", "percentile")
+    assert run.code == 2 and run.out == ""
+    assert "95th" in run.err and "percentile falls among the" in run.err
+
+
+def test_censored_percentiles_agree_with_numpy_where_the_bounds_cannot_move_them():
+    # Reference: numpy.percentile (linear) of the true values. Censored values are drawn below their bound.
+    rng = np.random.default_rng(11)
+    true = rng.gamma(2.0, 40.0, 800)
+    hidden = true < 30.0
+    low, high = np.zeros(hidden.sum()), np.full(hidden.sum(), 30.0)
+    got = censored_percentiles(true[~hidden], low, high, [90.0, 95.0, 99.0])
+    np.testing.assert_allclose(got, np.percentile(true, [90.0, 95.0, 99.0]), rtol=0, atol=1e-12)
+    with pytest.raises(ValueError, match="the 10th percentile"):
+        censored_percentiles(true[~hidden], low, high, [10.0, 95.0])
+
+
+def test_moments_and_normality_p_agree_with_scipy():
+    # scipy.stats.skew / kurtosis (biased, as the Jarque-Bera statistic takes them) and jarque_bera.
+    water, _ = _water()
+    mean, sd, g1, g2 = moments(water)
+    assert mean == pytest.approx(np.mean(water)) and sd == pytest.approx(np.std(water, ddof=1))
+    assert g1 == pytest.approx(stats.skew(water)) and g2 == pytest.approx(stats.kurtosis(water))
+    normal = np.random.default_rng(5).normal(46.0, 0.4, 300)
+    result = stats.jarque_bera(normal)
+    assert jarque_bera_p(300, *moments(normal)[2:]) == pytest.approx(result.pvalue, rel=1e-9)
+
+
+def test_percentile_limits_are_numpys_on_a_skewed_history_with_one_busy_unit():
+    values = np.random.default_rng(9).lognormal(np.log(0.3), 0.5, 600)
+    proposal = propose_ladder(values, ("watch", "alert", "urgent"), "above", method="percentile")
+    assert proposal.limits == tuple(np.percentile(values, [95.0, 97.5, 99.0]).tolist())
+    low = propose_ladder(values, ("watch", "alert"), "below", method="percentile")
+    assert low.limits == tuple(np.percentile(values, [5.0, 2.5]).tolist())
+
+
+def _anti_wear_history(path):
+    # An anti-wear hydraulic oil: new acid number 0.80 mg KOH/g (its additive titrates as acid); in service
+    # the additive is used up and the acid number falls, here to 0.45 +/- 0.06 across 20 units.
+    an = np.round(np.random.default_rng(7).normal(0.45, 0.06, 300), 2)
+    return _history(path, {"an": an, "new_an": np.full(300, 0.80)}, cls="hydraulic", lubricant="HYD-46-AW", units=20)
+
+
+@pytest.mark.parametrize("measure", ["an", "an_rise"])
+def test_no_limit_that_the_new_oil_itself_crosses(tmp_path, measure):
+    # Engines up to 0.7.0 proposed `an above {watch: 0.553, alert: 0.6263, urgent: 0.7093}` (and an_rise above
+    # -0.247 / -0.1737 / -0.09071): every fresh charge (an 0.80, rise 0) graded urgent at its first sample.
+    run = run_cli("propose-limits", "--samples", _anti_wear_history(tmp_path / "s.csv"), "--class", "hydraulic",
+                  "--measure", measure)
+    assert run.code == 2 and run.out == ""
+    assert "already crossed by" in run.err and "--direction below" in run.err
+
+
+def test_limits_beyond_the_new_oil_still_pass(tmp_path):
+    # The same oil, limits on the fall: the new oil (0.80) is above every `below` limit, so none flags it.
+    run = run_cli("propose-limits", "--samples", _anti_wear_history(tmp_path / "s.csv"), "--class", "hydraulic",
+                  "--measure", "an", "--direction", "below", "--method", "spc")
+    assert run.code == 0, run.err
+    limits = list(_rule(run.out)["below"].values())
+    assert all(limit < 0.80 for limit in limits)
