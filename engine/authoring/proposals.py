@@ -123,6 +123,7 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
 
     data = values[~np.isnan(values)]
     limits, notes = _spaced(proposal, measure, measured, chosen)
+    notes += _busy_unit(measured, chosen, present)
     _refuse_impossible(measure, direction, limits, data)
     _refuse_fresh_oil_flagged(measure, direction, proposal.grades, limits, measured, chosen, present)
     proposal = replace(proposal, limits=limits)
@@ -166,8 +167,8 @@ def _chosen(measured: pd.DataFrame, class_name: str, filters: Filters) -> np.nda
         dates = pd.to_datetime(pd.Series(_column(measured, "sampled_on")), errors="coerce").to_numpy()
         if filters.since:
             chosen &= dates >= np.datetime64(filters.since)
-        if filters.until:
-            chosen &= dates <= np.datetime64(filters.until)
+        if filters.until:  # the whole day: a sample taken at 10:30 on it is "on or before" it
+            chosen &= dates < np.datetime64(filters.until, "D") + np.timedelta64(1, "D")
     return np.asarray(chosen, dtype=bool)
 
 
@@ -180,6 +181,23 @@ def _censored(measured: pd.DataFrame, measure: str, chosen: np.ndarray) -> tuple
     low = measured[measure + ":low"].to_numpy(dtype=float, na_value=np.nan)[chosen]
     high = measured[measure + ":high"].to_numpy(dtype=float, na_value=np.nan)[chosen]
     return low, high, ~np.isnan(low) & ~np.isnan(high)
+
+
+# A pool where one unit gives more than this share of the results describes that unit more than the
+# fleet (common practice, no source).
+BUSY_UNIT_SHARE = 0.5
+
+
+def _busy_unit(measured, chosen, present) -> list[str]:
+    """A note when one unit gives most of the results: its own spread then sets the fleet's limits."""
+    units = pd.Series(_column(measured, "unit_id")[chosen][present], dtype=object).dropna().value_counts()
+    if len(units) < 2 or units.iloc[0] <= BUSY_UNIT_SHARE * units.sum():
+        return []
+    return [f"unit {units.index[0]} gives {units.iloc[0]} of these {units.sum()} results "
+            f"({units.iloc[0] / units.sum():.0%}): the limits describe that unit more than the other "
+            f"{len(units) - 1}; ASTM D7720 sets limits for a fleet or for a single machine (§1.4-1.5): "
+            f"try --unit {units.index[0]}, and the others without it (more than {BUSY_UNIT_SHARE:.0%}: "
+            f"common practice, no source)"]
 
 
 def _oils(measured, chosen, present) -> pd.Series:

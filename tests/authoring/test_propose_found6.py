@@ -142,3 +142,32 @@ def test_limits_beyond_the_new_oil_still_pass(tmp_path):
     assert run.code == 0, run.err
     limits = list(_rule(run.out)["below"].values())
     assert all(limit < 0.80 for limit in limits)
+
+
+def test_until_takes_the_whole_day_of_a_timed_sample(tmp_path):
+    # `--until DATE` is "sampled on or before this date" (its help). Lab exports carry a time of day; engines up
+    # to 0.7.0 compared with midnight and dropped the day's own samples (56 of 60 here, without a word).
+    n = 60
+    kv40 = np.round(np.random.default_rng(2).normal(320.0, 4.0, n), 1)
+    frame = pd.DataFrame({"sample_id": [f"BP-{i:05d}" for i in range(n)], "class": "gearbox", "unit_id": "GB-1",
+                          "lubricant": "GEAR-320-M", "oil_hours": np.arange(n) * 50.0 + 100.0, "kv40": kv40,
+                          "sampled_on": [f"2024-03-{1 + i // 4:02d}T{8 + i % 4:02d}:30" for i in range(n)]})
+    frame.to_csv(tmp_path / "s.csv", index=False)
+    run = run_cli("propose-limits", "--samples", tmp_path / "s.csv", "--class", "gearbox", "--measure", "kv40",
+                  "--method", "spc", "--since", "2024-03-02", "--until", "2024-03-15")
+    assert run.code == 0, run.err
+    assert "count: 56 result(s) used" in run.out  # 2 to 15 March: 14 days x 4 samples
+    mean, sd = np.mean(kv40[4:]), np.std(kv40[4:], ddof=1)
+    assert _rule(run.out)["above"]["watch"] == float(f"{mean + 2 * sd:.4g}")
+
+
+def test_one_unit_giving_most_results_is_said(tmp_path):
+    _, cells = _water(seed=4)
+    busy = run_cli("propose-limits", "--samples", _history(tmp_path / "b.csv", {"water": cells}, busy_share=0.7),
+                   "--class", "gearbox", "--measure", "water")
+    assert busy.code == 0, busy.err
+    note = next(line for line in busy.out.splitlines() if line.startswith("# note: unit "))
+    assert note.startswith("# note: unit GB-1 gives ")
+    spread = run_cli("propose-limits", "--samples", _history(tmp_path / "e.csv", {"water": cells}),
+                     "--class", "gearbox", "--measure", "water")
+    assert spread.code == 0 and "# note: unit " not in spread.out
