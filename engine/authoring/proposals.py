@@ -124,6 +124,10 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     data = values[~np.isnan(values)]
     limits, notes = _spaced(proposal, measure, measured, chosen)
     notes += _busy_unit(measured, chosen, present)
+    if batch.rejects:
+        notes.append(f"{batch.rejected_rows} row(s) of {batch.source} were rejected when read (each listed on "
+                     f"standard error with its reason) and are not in these results: a reading rejected for its "
+                     f"value or unit takes its part of the spread with it; correct them and propose again")
     _refuse_impossible(measure, direction, limits, data)
     _refuse_fresh_oil_flagged(measure, direction, proposal.grades, limits, measured, chosen, present)
     proposal = replace(proposal, limits=limits)
@@ -135,7 +139,8 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     who = f"class {class_name}, {filters.words(only)}"
     when = f"sampled {first} to {last}" if dated else "no sampling dates"
     spacing = " Steps widened to at least the test's repeatability." if notes else ""
-    source = f"{proposal.source}{spacing} Data: {batch.source}, {who}, {when}."
+    rejected = f" ({batch.rejected_rows} rejected rows not in them)" if batch.rejects else ""
+    source = f"{proposal.source}{spacing} Data: {batch.source}{rejected}, {who}, {when}."
     unit = measure_unit(measure) or (ruleset.unit_of(measure) if ruleset else "")
     return DataProposal(replace(proposal, source=source), class_name, filters.lubricant, measure, unit, first, last,
                         len(dates) - len(dated), batch.source, filters, expected, observed, tuple(notes), only)

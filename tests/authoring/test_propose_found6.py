@@ -171,3 +171,20 @@ def test_one_unit_giving_most_results_is_said(tmp_path):
     spread = run_cli("propose-limits", "--samples", _history(tmp_path / "e.csv", {"water": cells}),
                      "--class", "gearbox", "--measure", "water")
     assert spread.code == 0 and "# note: unit " not in spread.out
+
+
+def test_rows_rejected_when_read_are_listed_and_said_beside_the_limits(tmp_path):
+    # A lab export that writes water above 1000 ppm as a percentage (`0.12%`): intake cannot tell whether
+    # the small plain numbers are ppm or per cent and rejects them (D018), with the percentage cells. Engines
+    # up to 0.7.0 proposed from the 1020 rows left without a word: a pool cut at both ends.
+    rng = np.random.default_rng(5)
+    water = np.round(rng.lognormal(np.log(150.0), 0.9, 1500))
+    cells = np.array([f"{w / 10000:.2f}%" if w >= 1000 else f"{w:.0f}" for w in water], dtype=object)
+    run = run_cli("propose-limits", "--samples", _history(tmp_path / "s.csv", {"water": cells}),
+                  "--class", "gearbox", "--measure", "water", "--method", "percentile")
+    assert run.code == 0, run.err
+    rejected = [line for line in run.err.splitlines() if " rejected D018: water: " in line]
+    assert len(rejected) == 480
+    assert "count: 1020 result(s) used" in run.out  # every row is used or rejected: 1020 + 480 = 1500
+    assert "# note: 480 row(s) of " in run.out and "s.csv were rejected when read" in run.out
+    assert "(480 rejected rows not in them)" in " ".join(_rule(run.out)["source"].split())
