@@ -56,7 +56,7 @@ class Filters:
         if self.lubricant:
             parts = [f"lubricant {self.lubricant}"]
         elif only is not None:
-            parts = [f"lubricant {only} (the only one in these results)"]
+            parts = [f"lubricant {only} (the only one whose results have a value)"]
         else:
             parts = ["every lubricant (pooled on request)"]
         if self.units:
@@ -124,6 +124,7 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     data = values[~np.isnan(values)]
     limits, notes = _spaced(proposal, measure, measured, chosen)
     notes += _busy_unit(measured, chosen, present)
+    notes += _oils_without_values(measured, chosen, present, measure, oils)
     if batch.rejects:
         notes.append(f"{batch.rejected_rows} row(s) of {batch.source} were rejected when read (each listed on "
                      f"standard error with its reason) and are not in these results: a reading rejected for its "
@@ -186,6 +187,20 @@ def _censored(measured: pd.DataFrame, measure: str, chosen: np.ndarray) -> tuple
     low = measured[measure + ":low"].to_numpy(dtype=float, na_value=np.nan)[chosen]
     high = measured[measure + ":high"].to_numpy(dtype=float, na_value=np.nan)[chosen]
     return low, high, ~np.isnan(low) & ~np.isnan(high)
+
+
+def _oils_without_values(measured, chosen, present, measure: str, oils: pd.Series) -> list[str]:
+    """A note naming the lubricants of the class whose results all lack a value: the limits are not theirs
+    (a derived measure lacks its new-oil value for them, most often)."""
+    codes = _column(measured, "lubricant")[chosen][~present]
+    dropped = pd.Series(["(none)" if c is None or pd.isna(c) else str(c) for c in codes], dtype=object).value_counts()
+    absent = dropped[~dropped.index.isin(oils.index)]
+    if absent.empty:
+        return []
+    needs = [name for name in (MEASURES[measure].needs if measure in MEASURES else ()) if name.startswith("new_")]
+    why = (f": {', '.join(needs)} is not known for them (from --rules or the samples' own column)" if needs else "")
+    return [f"lubricant(s) {', '.join(f'{code} ({n} results)' for code, n in absent.items())} of this class have no "
+            f"{measure} value in any result{why}; these limits are not theirs"]
 
 
 # A pool where one unit gives more than this share of the results describes that unit more than the

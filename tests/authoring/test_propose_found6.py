@@ -188,3 +188,27 @@ def test_rows_rejected_when_read_are_listed_and_said_beside_the_limits(tmp_path)
     assert "count: 1020 result(s) used" in run.out  # every row is used or rejected: 1020 + 480 = 1500
     assert "# note: 480 row(s) of " in run.out and "s.csv were rejected when read" in run.out
     assert "(480 rejected rows not in them)" in " ".join(_rule(run.out)["source"].split())
+
+
+def test_a_lubricant_without_a_new_oil_value_is_named_not_silently_left_out(tmp_path):
+    # Two gear oils in one class; the rule set knows the new-oil acid number of one only, so an_rise exists for
+    # that oil's results alone. The proposal is that oil's, and says the other oil's results have no value.
+    rng = np.random.default_rng(8)
+    oil = np.where(rng.random(300) < 0.5, "GEAR-320-M", "GEAR-220-S")
+    an = np.round(np.where(oil == "GEAR-320-M", 0.3, 0.9) + np.abs(rng.normal(0.1, 0.05, 300)), 2)
+    samples = _history(tmp_path / "s.csv", {"an": an})
+    frame = pd.read_csv(samples)
+    frame["lubricant"] = oil
+    frame.to_csv(samples, index=False)
+    rules = tmp_path / "rules.yaml"
+    rules.write_text("ruleset: found6-gear\nversion: 1\nlubricants:\n  GEAR-320-M: {base_stock: mineral, "
+                     "iso_vg: 320, kv40: 320.0, an: 0.3}\nclasses:\n  gearbox:\n    rules:\n      - id: acid-rise\n"
+                     "        measure: an_rise\n        above: {watch: 0.2}\n        message: Acid number has risen\n"
+                     "        source: common practice, no source\n", encoding="utf-8")
+    run = run_cli("propose-limits", "--samples", samples, "--class", "gearbox", "--measure", "an_rise",
+                  "--rules", rules)
+    assert run.code == 0, run.err
+    counted = int((oil == "GEAR-220-S").sum())
+    assert f"lubricant(s) GEAR-220-S ({counted} results) of this class have no an_rise value" in run.out
+    assert "new_an is not known for them" in run.out
+    assert "lubricant GEAR-320-M (the only one whose results have a value)" in run.out
