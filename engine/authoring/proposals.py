@@ -123,6 +123,7 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
 
     data = values[~np.isnan(values)]
     limits, notes = _spaced(proposal, measure, measured, chosen)
+    widened = any(" widened from " in note for note in notes)
     notes += _busy_unit(measured, chosen, present)
     notes += _oils_without_values(measured, chosen, present, measure, oils)
     if batch.rejects:
@@ -139,7 +140,7 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     first, last = (dated[0], dated[-1]) if dated else (None, None)
     who = f"class {class_name}, {filters.words(only)}"
     when = f"sampled {first} to {last}" if dated else "no sampling dates"
-    spacing = " Steps widened to at least the test's repeatability." if notes else ""
+    spacing = " Steps widened to at least the test's repeatability." if widened else ""
     rejected = f" ({batch.rejected_rows} rejected rows not in them)" if batch.rejects else ""
     source = f"{proposal.source}{spacing} Data: {batch.source}{rejected}, {who}, {when}."
     unit = measure_unit(measure) or (ruleset.unit_of(measure) if ruleset else "")

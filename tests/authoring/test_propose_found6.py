@@ -212,3 +212,20 @@ def test_a_lubricant_without_a_new_oil_value_is_named_not_silently_left_out(tmp_
     assert f"lubricant(s) GEAR-220-S ({counted} results) of this class have no an_rise value" in run.out
     assert "new_an is not known for them" in run.out
     assert "lubricant GEAR-320-M (the only one whose results have a value)" in run.out
+
+
+def test_the_source_says_steps_were_widened_only_when_one_was(tmp_path):
+    # FTIR oxidation has no published repeatability here, so nothing is widened; engines up to 0.7.0 still
+    # wrote "Steps widened to at least the test's repeatability." into the pasted rule's source, because the
+    # note saying no repeatability applies counted as a widening.
+    oxidation = np.round(np.random.default_rng(12).normal(9.0, 1.5, 400), 2)
+    run = run_cli("propose-limits", "--samples", _history(tmp_path / "s.csv", {"oxidation": oxidation}),
+                  "--class", "gearbox", "--measure", "oxidation", "--method", "spc")
+    assert run.code == 0, run.err
+    assert "no published repeatability applies to oxidation" in run.out
+    assert "widened" not in " ".join(_rule(run.out)["source"].split())
+    an = np.round(np.random.default_rng(664).normal(0.50, 0.02, 400), 3)  # SPC steps under D664's r
+    run = run_cli("propose-limits", "--samples", _history(tmp_path / "a.csv", {"an": an}),
+                  "--class", "gearbox", "--measure", "an", "--method", "spc")
+    assert run.code == 0, run.err
+    assert "Steps widened to at least the test's repeatability." in " ".join(_rule(run.out)["source"].split())
