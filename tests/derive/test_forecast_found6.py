@@ -77,3 +77,46 @@ def test_every_unit_of_an_interleaved_fleet_matches_its_own_recomputed_fit(seed)
         assert f.samples == len(current[unit][0]) and f.limit == limit
         assert f.slope_per_1000h == pytest.approx(slope * 1000.0, rel=1e-9)
         assert f.at_hours == pytest.approx(at, abs=2e-3)  # records round hours to 0.001 h
+
+
+VISCOSITY_RULES = """ruleset: found6-forecast-outside
+version: 1
+lubricants:
+  HYD-46-M: {base_stock: mineral, kv40: 46.0, an: 0.1}
+classes:
+  hydraulic:
+    rules:
+      - id: visc-drift
+        measure: kv40_change_pct
+        outside: {watch: 5, alert: 10}
+        message: Viscosity has moved from new
+        source: common practice, no source
+"""
+
+
+def _viscosity(tmp_path, changes):
+    path = tmp_path / "rules.yaml"
+    path.write_text(VISCOSITY_RULES, encoding="utf-8")
+    kv40 = np.round(46.0 * (1 + np.asarray(changes) / 100.0), 2)
+    frame = pd.DataFrame({"sample_id": [f"H-{k}" for k in range(len(kv40))], "unit_id": "HPU-1",
+                          "class": "hydraulic", "lubricant": "HYD-46-M",
+                          "sampled_on": ["2026-01-01", "2026-01-22", "2026-02-12"],
+                          "oil_hours": [500.0, 1000.0, 1500.0], "kv40": kv40})
+    graded = sumpwise.grade(frame, sumpwise.load_ruleset(path))
+    return graded, frame
+
+
+def test_an_outside_ladder_forecasts_the_grade_above_the_latest_samples_own(tmp_path):
+    # kv40 7 % below new (watch on the low side) and climbing back: the module's rule is the next grade
+    # above the latest sample's, alert at +10 %. Engines up to 0.7.0 forecast "watch at +5 %" for a sample
+    # already at watch (the low side's crossing was not counted).
+    graded, frame = _viscosity(tmp_path, [-25.0, -15.8, -7.1])
+    assert graded.grades()[-1] == "watch"
+    [f] = [f for f in graded.forecasts if f.rule == "visc-drift"]
+    change = (frame["kv40"].to_numpy() - 46.0) / 46.0 * 100.0
+    slope, intercept = np.polyfit(frame["oil_hours"].to_numpy(), change, 1)  # numpy, on the change itself
+    assert (f.grade, f.limit) == ("alert", 10.0)
+    assert f.at_hours == pytest.approx((10.0 - intercept) / slope, abs=0.05)  # change rounded as the engine does
+    # Slower: +10 % lies beyond the horizon, and no forecast of the grade it already has is made.
+    slow, _ = _viscosity(tmp_path, [-20.0, -13.4, -7.1])
+    assert [f for f in slow.forecasts if f.rule == "visc-drift"] == []
