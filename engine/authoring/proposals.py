@@ -30,6 +30,7 @@ from sumpwise.vocabulary.intervals import can_hold
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
 from sumpwise.vocabulary.measures import MEASURES, REFERENCE_VALUES, TREND_MEASURES, domain_of, measure_unit
 from sumpwise.vocabulary.problems import InputError
+from sumpwise.vocabulary.texts import lubricant_key
 
 SIGNIFICANT = 4  # limits are written with 4 significant figures, as kinematic viscosity is reported (ISO 3104)
 
@@ -125,7 +126,7 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     limits, notes = _spaced(proposal, measure, measured, chosen)
     widened = any(" widened from " in note for note in notes)
     notes += _busy_unit(measured, chosen, present)
-    notes += _oils_without_values(measured, chosen, present, measure, oils)
+    notes += _oils_without_values(measured, chosen, present, measure)
     if batch.rejects:
         notes.append(f"{batch.rejected_rows} row(s) of {batch.source} were rejected when read (each listed on "
                      f"standard error with its reason) and are not in these results: a reading rejected for its "
@@ -166,8 +167,8 @@ def _column(measured: pd.DataFrame, name: str) -> np.ndarray:
 
 def _chosen(measured: pd.DataFrame, class_name: str, filters: Filters) -> np.ndarray:
     chosen = _column(measured, "class") == class_name
-    if filters.lubricant is not None:
-        chosen &= _column(measured, "lubricant") == filters.lubricant
+    if filters.lubricant is not None:  # compared as grading compares codes: `gear-320-m` is GEAR-320-M
+        chosen &= _lubricant_keys(measured) == lubricant_key(filters.lubricant)
     if filters.units:
         chosen &= np.isin(_column(measured, "unit_id"), list(filters.units))
     if filters.since or filters.until:
@@ -190,12 +191,13 @@ def _censored(measured: pd.DataFrame, measure: str, chosen: np.ndarray) -> tuple
     return low, high, ~np.isnan(low) & ~np.isnan(high)
 
 
-def _oils_without_values(measured, chosen, present, measure: str, oils: pd.Series) -> list[str]:
+def _oils_without_values(measured, chosen, present, measure: str) -> list[str]:
     """A note naming the lubricants of the class whose results all lack a value: the limits are not theirs
     (a derived measure lacks its new-oil value for them, most often)."""
-    codes = _column(measured, "lubricant")[chosen][~present]
-    dropped = pd.Series(["(none)" if c is None or pd.isna(c) else str(c) for c in codes], dtype=object).value_counts()
-    absent = dropped[~dropped.index.isin(oils.index)]
+    keys = _lubricant_keys(measured)[chosen]
+    lacking = ~present & ~np.isin(keys, keys[present])  # every result of that lubricant lacks a value
+    codes = _column(measured, "lubricant")[chosen][lacking]
+    absent = pd.Series(["(none)" if c is None or pd.isna(c) else str(c) for c in codes], dtype=object).value_counts()
     if absent.empty:
         return []
     needs = [name for name in (MEASURES[measure].needs if measure in MEASURES else ()) if name.startswith("new_")]
@@ -221,10 +223,24 @@ def _busy_unit(measured, chosen, present) -> list[str]:
             f"common practice, no source)"]
 
 
+def _lubricant_keys(measured: pd.DataFrame) -> np.ndarray:
+    """Each row's lubricant code as grading compares it (vocabulary.texts.lubricant_key), None where missing."""
+    codes = _column(measured, "lubricant")
+    found, uniques = pd.factorize(codes)  # each distinct code keyed once
+    keys = np.array([lubricant_key(code) for code in uniques] + [None], dtype=object)
+    return keys[found]
+
+
 def _oils(measured, chosen, present) -> pd.Series:
-    """How many of the results with a value (a number or a censored reading) are on each lubricant code."""
+    """How many of the results with a value (a number or a censored reading) are on each lubricant, codes
+    compared as grading compares them and each named as first written."""
     codes = _column(measured, "lubricant")[chosen][present]
-    return pd.Series(["(none)" if c is None or pd.isna(c) else str(c) for c in codes], dtype=object).value_counts()
+    keys = _lubricant_keys(measured)[chosen][present]
+    named = pd.Series(codes, dtype=object).groupby(pd.Series(keys, dtype=object), sort=False).first()
+    counted = pd.Series(keys, dtype=object).value_counts()
+    missing = int(pd.isna(keys).sum()) if len(keys) else 0
+    oils = pd.Series(counted.to_numpy(), index=[str(named[key]) for key in counted.index], dtype=int)
+    return pd.concat([oils, pd.Series([missing], index=["(none)"])]) if missing else oils
 
 
 def _refuse_mixed_oils(counts: pd.Series, class_name: str, filters: Filters) -> None:

@@ -229,3 +229,22 @@ def test_the_source_says_steps_were_widened_only_when_one_was(tmp_path):
                   "--class", "gearbox", "--measure", "an", "--method", "spc")
     assert run.code == 0, run.err
     assert "Steps widened to at least the test's repeatability." in " ".join(_rule(run.out)["source"].split())
+
+
+def test_a_lubricant_code_in_another_case_is_the_same_oil(tmp_path):
+    # Grading reads a lab's `gear-320-m` as the table's GEAR-320-M (vocabulary.texts.lubricant_key). Engines up
+    # to 0.7.0 proposed `--lubricant GEAR-320-M` from the 120 results spelt that way, leaving out the 80 the lab
+    # spelt in lower case (the later, thicker ones), and without --lubricant refused the class as two oils.
+    kv40 = np.round(np.random.default_rng(9).normal(320.0, 4.0, 200), 1)
+    kv40[120:] += 6.0
+    samples = _history(tmp_path / "s.csv", {"kv40": kv40})
+    frame = pd.read_csv(samples)
+    frame["lubricant"] = np.where(np.arange(200) < 120, "GEAR-320-M", "gear-320-m")
+    frame.to_csv(samples, index=False)
+    mean, sd = np.mean(kv40), np.std(kv40, ddof=1)  # numpy, every result of the oil
+    for extra in (["--lubricant", "GEAR-320-M"], ["--lubricant", "Gear-320-M"], []):
+        run = run_cli("propose-limits", "--samples", samples, "--class", "gearbox", "--measure", "kv40",
+                      "--method", "spc", *extra)
+        assert run.code == 0, (extra, run.err)
+        assert "count: 200 result(s) used" in run.out
+        assert _rule(run.out)["above"]["watch"] == float(f"{mean + 2 * sd:.4g}")
