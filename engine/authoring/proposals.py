@@ -28,9 +28,11 @@ from sumpwise.ruleset.model import RuleSet
 from sumpwise.ruleset.resolve import DEFAULT_GRADES
 from sumpwise.vocabulary.intervals import can_hold
 from sumpwise.vocabulary.limit_tests import LIMIT_TESTS
-from sumpwise.vocabulary.measures import MEASURES, REFERENCE_VALUES, TREND_MEASURES, domain_of, measure_unit
+from sumpwise.vocabulary.measures import (MEASURES, REFERENCE_VALUES, TREND_MEASURES, UNIT_FAMILY, domain_of,
+                                          measure_unit, unit_key)
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.vocabulary.texts import lubricant_key
+from sumpwise.vocabulary.units import CANONICAL, FACTORS
 
 SIGNIFICANT = 4  # limits are written with 4 significant figures, as kinematic viscosity is reported (ISO 3104)
 
@@ -85,6 +87,8 @@ class DataProposal:
     observed_share: tuple = ()  # per level: share of these results beyond it
     notes: tuple = ()
     only_lubricant: str | None = None  # the one lubricant of the results, when none was asked for
+    paste_unit: tuple | None = None  # (file, unit, canonical per unit) when the class's file reads the measure
+                                     # in another unit than the engine's: the snippet's limits are written in it
 
 
 def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubricant: str | None = None,
@@ -146,7 +150,24 @@ def propose_from_samples(batch: SampleBatch, class_name: str, measure: str, lubr
     source = f"{proposal.source}{spacing} Data: {batch.source}{rejected}, {who}, {when}."
     unit = measure_unit(measure) or (ruleset.unit_of(measure) if ruleset else "")
     return DataProposal(replace(proposal, source=source), class_name, filters.lubricant, measure, unit, first, last,
-                        len(dates) - len(dated), batch.source, filters, expected, observed, tuple(notes), only)
+                        len(dates) - len(dated), batch.source, filters, expected, observed, tuple(notes), only,
+                        _paste_unit(ruleset, class_name, measure))
+
+
+def _paste_unit(ruleset: RuleSet | None, class_name: str, measure: str) -> tuple | None:
+    """The unit the class's own rule-set file reads this measure's limits in, when not the engine's: a snippet
+    in abs/cm pasted under `units: {oxidation: abs/0.1mm}` would be read a hundred times too high, one in ppm
+    under `water: '%'` ten thousand times (no error below 100 %)."""
+    key = unit_key(measure)
+    family = UNIT_FAMILY.get(key) if key else None
+    if ruleset is None or family is None:
+        return None
+    origin = ruleset.class_origins.get(class_name)
+    file = origin.file if origin is not None else ruleset.files[-1]
+    unit = ruleset.file_units.get(file, {}).get(key)
+    if unit is None or unit == CANONICAL[family]:
+        return None
+    return file, unit, FACTORS[family][unit]
 
 
 def _measured(batch: SampleBatch, measure: str, ruleset: RuleSet | None) -> pd.DataFrame:
@@ -435,5 +456,12 @@ def snippet(found: DataProposal, rule_id: str | None = None, message: str | None
     rule_id = rule_id or f"{found.measure.replace('_', '-')}-from-data"
     message = message or (f"{found.measure} is {found.proposal.direction} the usual spread of this site's "
                           f"{found.class_name} results")
-    header = "".join(f"# {line}\n" for line in figure_lines(found))
-    return header + proposal_yaml(found.proposal, rule_id, found.measure, message, significant=SIGNIFICANT)
+    lines = figure_lines(found)
+    proposal = found.proposal
+    if found.paste_unit is not None:
+        file, unit, per_unit = found.paste_unit
+        proposal = replace(proposal, limits=tuple(float(f"{limit / per_unit:.12g}") for limit in proposal.limits))
+        lines.append(f"written in {unit}: {file} reads {unit_key(found.measure)} limits in {unit} (its `units:`); "
+                     f"the figures above are in {found.unit}, the engine's unit")
+    header = "".join(f"# {line}\n" for line in lines)
+    return header + proposal_yaml(proposal, rule_id, found.measure, message, significant=SIGNIFICANT)

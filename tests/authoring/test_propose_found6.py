@@ -9,6 +9,8 @@ samples, a lab that writes water below its reporting limit as `<50`.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -17,6 +19,7 @@ from scipy import stats
 
 from conftest import run_cli
 from sumpwise.authoring.limit_statistics import censored_percentiles, moments, jarque_bera_p, propose_ladder
+from sumpwise.ruleset.compiler import load_ruleset
 
 REPORTING_LIMIT = 50.0  # ppm: the lab writes `<50` below it (common practice for KF water, no source)
 
@@ -248,3 +251,31 @@ def test_a_lubricant_code_in_another_case_is_the_same_oil(tmp_path):
         assert run.code == 0, (extra, run.err)
         assert "count: 200 result(s) used" in run.out
         assert _rule(run.out)["above"]["watch"] == float(f"{mean + 2 * sd:.4g}")
+
+
+PASTE = Path(__file__).resolve().parents[1] / "data" / "authoring_found6" / "paste-units.yaml"
+
+
+@pytest.mark.parametrize("measure, values", [
+    ("water", np.round(np.random.default_rng(21).lognormal(np.log(30.0), 0.4, 600))),     # a dry gearbox, ppm
+    ("oxidation_rise", np.round(np.random.default_rng(22).gamma(4.0, 1.5, 600), 2)),       # abs/cm
+])
+def test_a_snippet_pasted_into_its_rules_file_grades_at_the_proposed_limits(tmp_path, measure, values):
+    # The class's file reads water in % and FTIR in abs/0.1mm. Engines up to 0.7.0 wrote the engine's units
+    # (ppm, abs/cm) into the snippet: pasted there, water above 62 ppm read as 62 % (no error below 100 %) and
+    # a carbonyl rise above 12 abs/cm as 12 abs/0.1mm (1200 abs/cm). The check: paste it, load the file, and
+    # the compiled limits (canonical units, by the file's own `units:`) are the proposal's figures.
+    column = "oxidation" if measure == "oxidation_rise" else measure
+    readings = values + 2.0 if measure == "oxidation_rise" else values  # new oil 0.02 abs/0.1mm = 2 abs/cm
+    run = run_cli("propose-limits", "--samples", _history(tmp_path / "s.csv", {column: readings}),
+                  "--class", "gearbox", "--measure", measure, "--rules", PASTE, "--method", "percentile")
+    assert run.code == 0, run.err
+    figures = next(line for line in run.out.splitlines() if line.startswith("# limits: "))
+    proposed = [float(part.split()[-1]) for part in figures.removeprefix("# limits: ").split(", ")]
+    assert "# written in " in run.out
+    rule = _rule(run.out)
+    pasted = PASTE.read_text(encoding="utf-8") + "\n".join(
+        "      " + line for line in yaml.safe_dump([rule], sort_keys=False).splitlines()) + "\n"
+    (tmp_path / "pasted.yaml").write_text(pasted, encoding="utf-8")
+    compiled = next(r for r in load_ruleset(tmp_path / "pasted.yaml").rules_for("gearbox") if r.id == rule["id"])
+    assert [limit for _, limit in compiled.steps] == pytest.approx(proposed, rel=1e-3)  # 4 significant figures
