@@ -463,5 +463,8 @@ def snippet(found: DataProposal, rule_id: str | None = None, message: str | None
         proposal = replace(proposal, limits=tuple(float(f"{limit / per_unit:.12g}") for limit in proposal.limits))
         lines.append(f"written in {unit}: {file} reads {unit_key(found.measure)} limits in {unit} (its `units:`); "
                      f"the figures above are in {found.unit}, the engine's unit")
+    elif UNIT_FAMILY.get(unit_key(found.measure) or ""):
+        lines.append(f"written in {found.unit}, the engine's unit: a file whose `units:` reads "
+                     f"{unit_key(found.measure)} in another unit needs them converted (or give --rules that file)")
     header = "".join(f"# {line}\n" for line in lines)
     return header + proposal_yaml(proposal, rule_id, found.measure, message, significant=SIGNIFICANT)

@@ -272,10 +272,18 @@ def test_a_snippet_pasted_into_its_rules_file_grades_at_the_proposed_limits(tmp_
     assert run.code == 0, run.err
     figures = next(line for line in run.out.splitlines() if line.startswith("# limits: "))
     proposed = [float(part.split()[-1]) for part in figures.removeprefix("# limits: ").split(", ")]
-    assert "# written in " in run.out
+    assert "# written in " in run.out and "the engine's unit:" not in run.out
     rule = _rule(run.out)
     pasted = PASTE.read_text(encoding="utf-8") + "\n".join(
         "      " + line for line in yaml.safe_dump([rule], sort_keys=False).splitlines()) + "\n"
     (tmp_path / "pasted.yaml").write_text(pasted, encoding="utf-8")
     compiled = next(r for r in load_ruleset(tmp_path / "pasted.yaml").rules_for("gearbox") if r.id == rule["id"])
     assert [limit for _, limit in compiled.steps] == pytest.approx(proposed, rel=1e-3)  # 4 significant figures
+
+
+def test_without_rules_the_snippet_says_its_units(tmp_path):
+    water = np.round(np.random.default_rng(21).lognormal(np.log(30.0), 0.4, 600))
+    run = run_cli("propose-limits", "--samples", _history(tmp_path / "s.csv", {"water": water}),
+                  "--class", "gearbox", "--measure", "water", "--method", "percentile")
+    assert run.code == 0, run.err
+    assert "# written in ppm, the engine's unit: a file whose `units:` reads water in another unit" in run.out
