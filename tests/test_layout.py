@@ -7,6 +7,7 @@ imports with the standard library's ast module and fails on an import that point
 from __future__ import annotations
 
 import ast
+import subprocess
 from pathlib import Path
 
 from conftest import ROOT
@@ -14,6 +15,11 @@ from conftest import ROOT
 STAGES = ("version", "vocabulary", "ruleset", "intake", "derive", "evaluation", "results", "render", "ledger",
           "authoring", "cli")
 PACKAGE = ROOT / "engine"
+# The project's top level, fixed by its design (DEVELOPERS.md, "Layout"): anything else there is a slip.
+TOP_LEVEL = {"README.md", "DEVELOPERS.md", "LICENSE", "Makefile", "pyproject.toml", ".gitignore", ".ci", "engine",
+             "rules", "tests", "scenarios", "benchmarks", "docs"}
+# What a run leaves at the top level and .gitignore keeps out of the repository.
+BUILT = {".git", ".venv", ".pytest_cache", ".hypothesis", "out", "build", "sumpwise.egg-info"}
 
 
 def _stage(module_path: Path) -> str:
@@ -34,6 +40,19 @@ def _imports(path: Path) -> list[tuple[int, str]]:
 def test_every_module_lives_in_a_stage_folder():
     loose = sorted(p.name for p in PACKAGE.glob("*.py") if p.stem not in ("__init__", "__main__", "version"))
     assert loose == []
+
+
+def _top_level_entries() -> set[str]:
+    """The repository's own top-level entries: git's list in a clone, the folder's without one."""
+    if (ROOT / ".git").exists():
+        listed = subprocess.run(["git", "ls-files"], cwd=ROOT, capture_output=True, text=True, check=True).stdout
+        return {line.split("/")[0] for line in listed.splitlines()}
+    return {p.name for p in ROOT.iterdir()} - BUILT
+
+
+def test_the_top_level_holds_only_the_designed_entries():
+    """Scratch files committed at the top level (four stray workbooks once were) fail here."""
+    assert _top_level_entries() - TOP_LEVEL == set()
 
 
 def test_no_stage_imports_a_later_stage():
