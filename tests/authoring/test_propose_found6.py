@@ -287,3 +287,36 @@ def test_without_rules_the_snippet_says_its_units(tmp_path):
                   "--class", "gearbox", "--measure", "water", "--method", "percentile")
     assert run.code == 0, run.err
     assert "# written in ppm, the engine's unit: a file whose `units:` reads water in another unit" in run.out
+
+
+def test_acid_steps_are_taken_within_each_oil_charge_as_pandas_recomputes_them(tmp_path):
+    # 20 gearboxes, 40 samples each, the oil changed every 15 samples (oil hours restart). The steps the
+    # proposal pools are recomputed independently with pandas (diff within unit and charge): 740 steps, none
+    # across an oil change; the first level is numpy's 95th percentile of them (the higher two are widened to
+    # D664's repeatability, r = 0.117 X, and say so).
+    rng = np.random.default_rng(31)
+    rows = []
+    for u in range(20):
+        hours, an = 0.0, 0.1
+        start = pd.Timestamp("2022-01-01") + pd.Timedelta(days=int(rng.integers(0, 30)))
+        for k in range(40):
+            if k and k % 15 == 0:
+                hours, an = 0.0, 0.1
+            hours += rng.uniform(200, 400)
+            an += abs(rng.normal(0.01, 0.02))
+            rows.append({"sample_id": f"BP-{u:02d}-{k:02d}", "class": "gearbox", "unit_id": f"GB-{u + 1}",
+                         "lubricant": "GEAR-320-M", "sampled_on": (start + pd.Timedelta(days=30 * k)).strftime("%Y-%m-%d"),
+                         "oil_hours": round(hours), "an": round(an, 3)})
+    frame = pd.DataFrame(rows).sort_values(["sampled_on", "unit_id"]).reset_index(drop=True)  # as a lab lists them
+    frame.to_csv(tmp_path / "s.csv", index=False)
+    by_unit = frame.sort_values(["unit_id", "sampled_on"])
+    charge = (by_unit.groupby("unit_id")["oil_hours"].diff() < 0).groupby(by_unit["unit_id"]).cumsum()
+    steps = by_unit.groupby([by_unit["unit_id"], charge])["an"].diff().dropna().to_numpy()
+    run = run_cli("propose-limits", "--samples", tmp_path / "s.csv", "--class", "gearbox", "--measure", "an_step",
+                  "--method", "percentile")
+    assert run.code == 0, run.err
+    assert steps.size == 740 and "count: 740 result(s) used, 60 without a value dropped" in run.out
+    limits = list(_rule(run.out)["above"].values())
+    assert limits[0] == float(f"{np.percentile(steps, 95.0):.4g}")
+    r = 0.117 * np.median(frame["an"])  # D664 at the readings' median level, as a step of two readings
+    assert all(high - low >= r - 1e-9 for low, high in zip(limits, limits[1:]))
