@@ -25,6 +25,7 @@ from functools import lru_cache
 import numpy as np
 import pandas as pd
 
+from sumpwise.derive.trends import SLIP_COLUMN, unit_keys
 from sumpwise.ruleset.model import LadderRule, RuleSet
 from sumpwise.vocabulary.measures import MEASURES, TREND_MEASURES, measure_unit, trend_base
 
@@ -164,7 +165,7 @@ def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
     is_last = position == last_position[run]
     last_row[run[is_last]] = np.flatnonzero(is_last)
     # The latest run of each unit: the run holding the unit's latest sample in trend order.
-    unit_codes, _ = pd.factorize(measured["unit_id"].to_numpy(dtype=object))
+    unit_codes = unit_keys(measured["unit_id"].to_numpy(dtype=object))  # a unit under any spelling of its id
     unit_last = np.full(unit_codes.max(initial=-1) + 1, -1, dtype=np.int64)
     known_unit = unit_codes >= 0
     np.maximum.at(unit_last, unit_codes[known_unit], position[known_unit])
@@ -172,6 +173,8 @@ def forecast(measured: pd.DataFrame, ruleset: RuleSet) -> tuple[Forecast, ...]:
     current[known_unit] = last_position[run[known_unit]] == unit_last[unit_codes[known_unit]]
 
     hours = measured["oil_hours"].to_numpy(dtype=float)
+    if SLIP_COLUMN in measured.columns:  # a slip in one reading is no point on the charge's line
+        hours = np.where(measured[SLIP_COLUMN].to_numpy(dtype=bool), np.nan, hours)
     days = _days(measured["sampled_on"].to_numpy(dtype=object))
     class_codes, class_names = pd.factorize(measured["class"].to_numpy(dtype=object))
     class_of = {name: k for k, name in enumerate(class_names)}  # compared as codes, not as text a row

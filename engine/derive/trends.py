@@ -1,6 +1,7 @@
 """Trend measures: each sample against its unit's previous sample, for a whole batch at once.
 
-Samples are put in order by unit, sample date and oil hours (on one date, a sample flagged
+Samples are put in order by unit (its id with case and surrounding spaces ignored: unit_keys),
+sample date and oil hours (on one date, a sample flagged
 `oil_changed` after the others; a ledger's earlier samples of the same units first, so they
 come before the batch's on a tie). A unit's chain restarts at an oil
 change: the `oil_changed` flag, the lubricant code changing, or oil hours going down against
@@ -10,7 +11,9 @@ unless the oil's aged readings stayed aged: then the hours meter was reset witho
 so it does where an oil change's oil hours are more than the calendar holds (the unit's hours). A
 sample without oil hours between an oil change's two sides cannot be placed on either charge:
 no step is taken to or from it, and it says so. A step across a change of method (direct vs
-subtraction) or of lab is not computed: the two readings are not comparable. All of it is one
+subtraction) or of lab is not computed: the two readings are not comparable. A fall in oil
+hours whose next sample is back on the run is a slip in that one reading (_slips), and a fall
+that no aged reading tells is taken as an oil change and says it could not tell. All of it is one
 sort plus shifted and accumulated arrays; there is no loop over units.
 
 A step counts towards a rising run only when it exceeds the measure's noise margin: the rule
@@ -47,6 +50,9 @@ HOURS_MARGIN = 2.0
 # on exactly those rows (records give the rate's interval there); unlike a censored reading's
 # `:written`, the rate's number stays what records show.
 MARGIN_SUFFIX = ":margin"
+# The column that marks a sample whose oil hours are a slip in one reading (_slips): a forecast
+# leaves it out, its hours being no point on the charge's line.
+SLIP_COLUMN = "oil_hours_slip"
 
 
 TREND_CAVEATS = (
@@ -75,6 +81,20 @@ TREND_CAVEATS = (
                  "sumpwise engine: a sample that cannot be placed on one oil charge (no oil hours or lubricant "
                  "code to tell which side of an oil change it lies, or oil hours the calendar cannot hold) is "
                  "not compared step by step or by rate (common practice, no source)"),
+    EngineCaveat("unit-id-spelling", "unit_spelling_note",
+                 "sumpwise engine: unit ids that differ only in case or surrounding spaces (HP-2, hp-2, 'HP-2 ') "
+                 "are one unit to trends; records keep each id as the lab wrote it, and a sample whose id is "
+                 "spelled otherwise than its unit's previous sample says so (common practice, no source)"),
+    EngineCaveat("oil-hours-slip", "hours_slip_note",
+                 "sumpwise engine: oil hours that fall with no oil_changed flag or change of lubricant code and "
+                 "are back on the run at the unit's next sample (within what the calendar holds) are a slip in "
+                 "that one reading, not an oil change: the charge and its trend go on, with no rate per 1000 h "
+                 "to or from that sample and none per 1000 of its own oil hours (common practice, no source)"),
+    EngineCaveat("oil-change-untold", "hours_untold_note",
+                 "sumpwise engine: oil hours fell with no oil_changed flag or change of lubricant code, and no "
+                 "aged reading on both samples (acid or base number, carbonyl, RPVOT against the new oil's) "
+                 "tells a meter reset from an unrecorded oil change: taken as an oil change, the trend "
+                 "restarting, and said so (common practice, no source)"),
 )
 
 
@@ -110,6 +130,34 @@ NOT_TOLD = ""
 # The columns a sample contributes to trends; a ledger's history frame has these.
 CHAIN_COLUMNS = ("sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "lubricant",
                  "class", RESET_COLUMN) + EVIDENCE_COLUMNS
+
+
+def unit_id_key(unit) -> str:
+    """A unit id as trends compare it (unit_keys): stripped and case-folded."""
+    return str(unit).strip().casefold()
+
+
+def unit_keys(units: np.ndarray) -> np.ndarray:
+    """A code per unit id as trends group samples: case and surrounding spaces ignored (`hp-2 `
+    is HP-2: a site's lab writes one unit's id several ways, and a trend split by spelling misses
+    a rise, common practice, no source), -1 where none or blank. Records keep the id as written;
+    the `unit-id-spelling` caveat says where two spellings meet. Each distinct id is read once."""
+    return _unit_codes(units)[0]
+
+
+def _unit_codes(units: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(unit_keys, a code per spelling as written): one factorize of the ids."""
+    spelled, uniques = pd.factorize(units)
+    folded = np.array([unit_id_key(u) for u in uniques], dtype=object)
+    same, _ = pd.factorize(np.where(folded == "", None, folded))
+    return np.r_[same, -1][spelled], spelled  # code -1 (no unit) takes the last: -1
+
+
+def unit_id_texts(units: np.ndarray) -> np.ndarray:
+    """Each unit id as unit_id_key gives it, None where none; each distinct id is read once."""
+    codes, uniques = pd.factorize(units)
+    folded = np.array([unit_id_key(u) for u in uniques] + [None], dtype=object)
+    return folded[codes]  # code -1 (no unit) takes the last: None
 
 
 def read_oil_changes(batch: SampleBatch) -> SampleBatch:
@@ -274,7 +322,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     chain = _chain_arrays(measured, oil_changed, history, bases)
     total = len(chain["oil_hours"])
     earlier = total - len(measured)
-    unit_codes, _ = pd.factorize(chain["unit_id"])
+    unit_codes, spelled = _unit_codes(chain["unit_id"])
     dates = date_keys(chain["sampled_on"])
     hours = chain["oil_hours"]
     order = _trend_order(unit_codes, dates, hours, chain["oil_changed"])
@@ -282,7 +330,6 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     unit = unit_codes[order]
     dated = dates[order] != _LAST
     h = hours[order]
-    h_before = _shifted(h, np.nan)
     same_unit = (unit >= 0) & (unit == _shifted(unit, -1))
     flagged = chain["oil_changed"][order]
     evidence = {name: (chain[EVIDENCE_PREFIX + name][order],
@@ -292,8 +339,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     # latest carried sample (an older one, carried for its oil hours or flag, may be of an earlier charge)
     told = chain[RESET_COLUMN][order]
     carried = (order < earlier) & (told != NOT_TOLD)
-    latest = carried & ~np.r_[same_unit[1:] & carried[1:], False]
-    reset_told = (latest & pd.notna(told), ~carried)
+    reset_told = (carried, carried & pd.notna(told))
     charges = _oil_charges(unit, same_unit, h, flagged, _text_codes(chain["lubricant"])[order], dates[order],
                            _text_codes(chain["class"])[order], evidence, reset_told)
     new_oil, unplaced = charges["new_oil"], charges["unplaced"]
@@ -323,7 +369,8 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     # in a reused scratch block, then moved into place with one gather.
     names = trend_columns(bases)
     out = np.empty((len(names), len(measured)))
-    span = h - h_before
+    believed = np.where(charges["slip"], np.nan, h)  # a slip's oil hours: no rate to or from it
+    span = believed - _shifted(believed, np.nan)
     span = np.where(comparable & (span > 0) & ~charges["outrun"], span, np.nan)
     np.take(span, mine, out=out[0])
     scratch = np.empty((4, total))
@@ -360,7 +407,8 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     # Each row's unbroken run (one unit, one oil charge, one method and lab: a forecast fits over
     # it) and its place in the trend order; a run id never spans two units.
     run = np.cumsum(~comparable | charges["reset"])  # a forecast fits on oil hours: none across a meter reset
-    runs = pd.DataFrame({"trend_run": run[mine], "trend_position": mine}, index=measured.index)
+    runs = pd.DataFrame({"trend_run": run[mine], "trend_position": mine, SLIP_COLUMN: charges["slip"][mine]},
+                        index=measured.index)
     notes = pd.DataFrame({
         "trend_break_note": _break_notes(chain, before, method_changed[mine], lab_changed[mine],
                                          np.arange(earlier, total)),
@@ -369,6 +417,9 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
         "one_moment_note": _moment_notes(chain, order, mine, moment, h),
         "hours_reset_note": _reset_notes(chain, order, mine, charges, h, evidence),
         "oil_charge_note": _charge_notes(chain, order, mine, charges, h, unplaced, restarts),
+        "unit_spelling_note": _spelling_notes(chain, order, mine, same_unit, spelled[order]),
+        "hours_slip_note": _slip_notes(chain, order, mine, charges, h),
+        "hours_untold_note": _untold_notes(chain, order, mine, charges, h),
     }, index=measured.index, dtype=object)
     reset_at = charges["reset_at"][mine]
     place = np.full(len(mine), None, dtype=object)
@@ -379,7 +430,7 @@ def add_trend_measures(measured: pd.DataFrame, oil_changed=None, history: pd.Dat
     out = pd.concat([measured, numbers, runs, notes, carried], axis=1)
     # its own oil hours may be the wrong ones, or count from a meter reset, not the fill: no rate
     # per 1000 oil hours on it either
-    outrun = charges["outrun"][mine] | (reset_at >= 0)
+    outrun = charges["outrun"][mine] | (reset_at >= 0) | charges["slip"][mine]
     if outrun.any():
         for name in PER_OIL_HOUR:
             for column, empty in ((name, np.nan), (name + ":low", np.nan), (name + ":high", np.nan),
@@ -480,9 +531,13 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     such a reset on, the reset's position (-1 elsewhere): its oil hours no longer count from the fill.
     So is, from it on, an oil change (flag or code) whose oil hours are more than the calendar holds
     since the unit's last sample with oil hours before it (`unit_hours`: the unit's hours, not the
-    new oil's). `reset_told` is (the samples an earlier chunk carried in such a charge, the samples
-    whose own neighbours are given): only the latter are judged here, a chunk's carried samples
-    being too few to judge.
+    new oil's). `reset_told` is (the samples an earlier chunk carried, those of them that carried
+    such a charge): a carried sample is not judged again here, a chunk's carried samples being
+    too few to judge; the unit's latest one that is no slip says the charge's state.
+
+    A fall whose next sample is back on the run (_slips) is a `slip` in one reading: its oil hours
+    count for nothing here, and the charge goes on. A fall that no reading tells (no aged reading
+    on both sides: _stayed_aged) is `untold`: taken as an oil change, and the caveat says so.
     """
     n = len(unit)
     positions = np.arange(n)
@@ -510,8 +565,10 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     lubricant_changed = named & (lubricant_from >= 0) & (lubricant != lubricant[np.maximum(lubricant_from, 0)])
     restart = flagged | lubricant_changed | class_changed | first
     charge_start = _start_at(restart, positions)
-    timed = np.isfinite(h)
     dated = day_keys != _LAST
+    slip, slip_from, slip_back = _slips(unit, h, flagged | lubricant_changed, charge_start, day_keys, dated,
+                                        last_before, next_from, evidence)
+    timed = np.isfinite(h) & ~slip  # a slip's oil hours are not the charge's
     hours_from = last_before(timed)
     hours_from = np.where(hours_from >= charge_start, hours_from, -1)  # looked back within the charge only
     from_at = np.maximum(hours_from, 0)
@@ -521,11 +578,11 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     hours_fell = timed & (hours_from >= 0) & (h < h[np.maximum(hours_from, 0)])
     # a fall from oil hours the calendar cannot hold is that slip's other side, no meter reset
     reset = hours_fell & ~flagged & ~lubricant_changed & ~outrun[from_at]
-    if evidence and reset.any():  # judged only where oil hours fell unflagged: a few samples
+    untold = np.zeros(n, dtype=bool)
+    if reset.any():  # judged only where oil hours fell unflagged: a few samples
         at = np.flatnonzero(reset)
-        reset[at] = _stayed_aged(evidence, at, hours_from[at])
-    else:
-        reset[:] = False
+        reset[at], told = _stayed_aged(evidence, at, hours_from[at]) if evidence else (False, False)
+        untold[at] = ~np.asarray(told, dtype=bool)
     hours_fell &= ~reset  # a fall in oil hours that tells an oil change
     new_oil = flagged | lubricant_changed | hours_fell
     # At an oil change (flag or code) the new oil's hours are at most what the calendar holds since
@@ -536,7 +593,13 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
     with np.errstate(invalid="ignore"):
         unit_hours = ((flagged | lubricant_changed) & timed & (across >= 0) & ~class_changed
                       & (h > _most_hours(days_across)))
-    told = reset | unit_hours if reset_told is None else ((reset | unit_hours) & reset_told[1]) | reset_told[0]
+    told = reset | unit_hours
+    if reset_told is not None:  # the charge's state as the unit's latest carried sample says (a slip says nothing)
+        carried, present = reset_told
+        kept = carried & ~slip
+        later = np.r_[next_from(kept)[1:], -1] if n else positions
+        later = np.where(later >= 0, unit[np.maximum(later, 0)] == unit, False)
+        told = (told & ~carried) | (kept & ~later & present)
     last_reset = np.maximum.accumulate(np.where(told, positions, -1)) if n else positions
     reset_at = np.where(last_reset >= _start_at(new_oil | class_changed | first, positions), last_reset, -1)
 
@@ -558,7 +621,38 @@ def _oil_charges(unit: np.ndarray, same_unit: np.ndarray, h: np.ndarray, flagged
             "unplaced": unplaced | (outrun & (days == 0)), "outrun": outrun, "days": days, "change_of": change_of,
             "same_unit": same_unit, "class_changed": class_changed, "class_from": class_from,
             "reset": reset, "reset_at": reset_at, "unit_hours": unit_hours, "across": across,
-            "days_across": days_across}
+            "days_across": days_across, "untold": untold, "slip": slip, "slip_from": slip_from,
+            "slip_back": slip_back}
+
+
+def _slips(unit, h, restarted, charge_start, day_keys, dated, last_before, next_from, evidence) -> tuple:
+    """Where oil hours fell with no flag or change of code and the unit's next sample with oil
+    hours, on the same charge and a later date, is back at or above the hours before the fall
+    within what the calendar holds (_most_hours) since them: a slip in that one reading (4300,
+    430, 4500: a digit dropped), not an oil change nor a meter reset (common practice, no
+    source). Not where the aged readings came back toward new at the fall (_stayed_aged): the
+    oil was changed there, whatever the hours after. Not on the fall's own date either: on one
+    date an unflagged new fill at 0 h sorts before the old oil's last sample. Returns (slip, the
+    sample before the fall, the sample back on the run), positions -1 where none. Only the next
+    sample with oil hours is looked at: a fall that later samples agree with stays a fall."""
+    n = len(unit)
+    timed = np.isfinite(h)
+    before = last_before(timed)
+    before = np.where(before >= charge_start, before, -1)
+    at = np.maximum(before, 0)
+    dropped = timed & (before >= 0) & (h < h[at]) & ~restarted
+    back = np.r_[next_from(timed)[1:], -1] if n else np.zeros(0, dtype=np.int64)
+    to = np.maximum(back, 0)
+    back = np.where((back >= 0) & (unit[to] == unit) & (charge_start[to] == charge_start), back, -1)
+    days = np.where(dated[at] & dated[to], (day_keys[to] - day_keys[at]) / 86_400e9, np.nan)
+    with np.errstate(invalid="ignore"):
+        slip = (dropped & (back >= 0) & dated & (day_keys[to] > day_keys) & (h[to] >= h[at])
+                & (h[to] - h[at] <= _most_hours(days)))
+    if evidence and slip.any():
+        now = np.flatnonzero(slip)
+        stayed, told = _stayed_aged(evidence, now, before[now])
+        slip[now] = ~(told & ~stayed)  # told, and not stayed: back toward new
+    return slip, np.where(slip, before, -1), np.where(slip, back, -1)
 
 
 def _evidence_margin(name: str, margins: dict) -> tuple:
@@ -592,13 +686,14 @@ def _distances(evidence: dict, now: np.ndarray, before: np.ndarray) -> dict:
     return out
 
 
-def _stayed_aged(evidence: dict, now: np.ndarray, before: np.ndarray) -> np.ndarray:
+def _stayed_aged(evidence: dict, now: np.ndarray, before: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Where the old oil (at `before`) had an aged reading and none of its aged readings came back
     at least BACK_SHARE of the way to the new oil's: no oil change between (common practice, no
     source). NaN anywhere is no evidence either way. Viscosity alone tells no reset: it ages
     little, and new oil of one grade may lie anywhere in its ISO VG band (ISO 3448: +-10 %), so a
     fresh fill can sit as far from the table's value as the old oil did; it can still tell a change.
-    `now` are the positions judged, `before` their old oil's."""
+    `now` are the positions judged, `before` their old oil's. Also returns where the readings
+    told anything (an aged reading on both sides, stayed or back): elsewhere a fall is not told."""
     aged_any = np.zeros(len(before), dtype=bool)
     back_any = np.zeros(len(before), dtype=bool)
     for name, (_, _, _, was, current, aged) in _distances(evidence, now, before).items():
@@ -607,7 +702,7 @@ def _stayed_aged(evidence: dict, now: np.ndarray, before: np.ndarray) -> np.ndar
             if RESET_EVIDENCE[name]:
                 aged_any |= aged
             back_any |= aged & (current <= (1.0 - BACK_SHARE) * was)
-    return aged_any & ~back_any
+    return aged_any & ~back_any, aged_any | back_any
 
 
 def _start_at(starts: np.ndarray, positions: np.ndarray) -> np.ndarray:
@@ -712,6 +807,74 @@ def _reset_places(chain: dict, rows: np.ndarray) -> np.ndarray:
     told = chain[RESET_COLUMN][rows]
     own = _text(chain["sample_id"][rows]) + " (" + _text(chain["sampled_on"][rows]) + ")"
     return np.where(pd.notna(told) & (told != NOT_TOLD), told, own).astype(object)
+
+
+def _spelling_notes(chain: dict, order: np.ndarray, mine: np.ndarray, same_unit: np.ndarray,
+                    spelled: np.ndarray) -> np.ndarray:
+    """The unit-id-spelling note of each incoming row whose unit id is spelled otherwise than its
+    unit's previous sample (unit_keys; `spelled`: a code per spelling, sorted): both spellings,
+    quoted so spaces show."""
+    notes = np.full(len(mine), None, dtype=object)
+    hit = np.flatnonzero((same_unit & (spelled != _shifted(spelled, -1)))[mine])
+    if not len(hit):
+        return notes
+    now, before = order[mine[hit]], order[mine[hit] - 1]
+    ids = chain["unit_id"]
+    notes[hit] = ("unit id '" + _text(ids[now]) + "' differs from '" + _text(ids[before]) + "', the unit id of the "
+                  "previous sample (" + _text(chain["sample_id"][before]) + ", " + _text(chain["sampled_on"][before])
+                  + "), only in case or surrounding spaces: taken as one unit for trends; the record keeps the id "
+                  "as written (write one spelling)")
+    return notes
+
+
+def _slip_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray) -> np.ndarray:
+    """The oil-hours-slip note: on the sample whose oil hours slipped, and on the sample back on
+    the run after it (which says so even when the slip was graded earlier, in an earlier chunk
+    or import, before its next sample was known)."""
+    notes = np.full(len(mine), None, dtype=object)
+    slip = charges["slip"]
+    hit = np.flatnonzero(slip[mine])
+    ids, dates = chain["sample_id"], chain["sampled_on"]
+    if len(hit):
+        at = mine[hit]
+        before, back = charges["slip_from"][at], charges["slip_back"][at]
+        notes[hit] = ("oil hours fell from " + _hours(h[before]) + " (" + _text(ids[order[before]]) + ", "
+                      + _text(dates[order[before]]) + ") to " + _hours(h[at]) + " with no oil_changed flag or change "
+                      "of lubricant code, and the next sample, " + _text(ids[order[back]]) + " ("
+                      + _text(dates[order[back]]) + "), is back at " + _hours(h[back]) + ": taken as a slip in this "
+                      "reading, not an oil change; the charge and its trend go on, with no rate per 1000 h to or "
+                      "from this sample and none per 1000 of its own oil hours (mend its oil hours)")
+    back_of = np.full(len(slip), -1, dtype=np.int64)
+    back_of[charges["slip_back"][slip]] = np.flatnonzero(slip)
+    hit = np.flatnonzero(back_of[mine] >= 0)
+    if len(hit):
+        at = mine[hit]
+        slipped = back_of[at]
+        before = charges["slip_from"][slipped]
+        notes[hit] = ("the oil hours of sample " + _text(ids[order[slipped]]) + " (" + _text(dates[order[slipped]])
+                      + "), " + _hours(h[slipped]) + ", fell from " + _hours(h[before]) + " and this sample's, "
+                      + _hours(h[at]) + ", are back on the run: taken as a slip in that reading, not an oil change; "
+                      "the charge goes on, with no rate per 1000 h to this sample")
+    return notes
+
+
+def _untold_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict, h: np.ndarray) -> np.ndarray:
+    """The oil-change-untold note of each incoming row where oil hours fell unflagged and no
+    reading told a meter reset from an oil change."""
+    notes = np.full(len(mine), None, dtype=object)
+    hit = np.flatnonzero(charges["untold"][mine])
+    if not len(hit):
+        return notes
+    at = mine[hit]
+    before = charges["hours_from"][at]
+    which = np.where(before == at - 1, "", " with oil hours").astype(object)
+    notes[hit] = ("oil hours fell from " + _hours(h[before]) + " to " + _hours(h[at]) + _since(chain, order[before], which)
+                  + " with no oil_changed flag or change of lubricant code, and no aged reading on both samples "
+                  "(acid or base number, carbonyl, RPVOT against the new oil's) tells an hours meter reset from an "
+                  "unrecorded oil change: could not tell which; taken as an oil change, trend measures restarting "
+                  "here (set oil_changed if the oil was changed; if it was not, the hours meter was reset and the "
+                  "trend was cut here)")
+    return notes
 
 
 def _class_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict) -> np.ndarray:

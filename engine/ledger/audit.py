@@ -24,7 +24,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sumpwise.derive.trends import trend_bases
+from sumpwise.derive.trends import trend_bases, unit_id_key
 from sumpwise.intake.samples import SampleBatch
 from sumpwise.ledger.aside import Aside
 from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_QUERIES, DIGEST_3_SAMPLE_COLUMNS,  # noqa: F401 (API)
@@ -32,7 +32,8 @@ from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_QUERIES, D
 from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, batch_list,
                                    batch_rejects, digest_columns, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
-                                   measures_of, ruleset_text, sample_entries, stored_rulesets, unit_entries)
+                                   measures_of, ruleset_text, sample_entries, stored_rulesets, unit_entries,
+                                   unit_spellings)
 from sumpwise.render.jsonl import dumps
 from sumpwise.version import engine_name
 from sumpwise.render.narrative import explain_lines, forecast_lines, wrapper
@@ -194,8 +195,9 @@ def _regrade_one(conn, entry: dict, ruleset: RuleSet) -> SampleResult:
     history = None
     if entry["unit_id"] is not None:
         history = history_frame(conn, [entry["unit_id"]], ruleset)
-        entries = conn.execute("SELECT sample_id FROM samples WHERE unit_id = ? AND superseded_in IS NULL "
-                               "AND entry >= ?", (entry["unit_id"], entry["entry"])).fetchall()
+        unit_spellings(conn, entry["unit_id"])  # the unit under any spelling of its id, as history_frame
+        entries = conn.execute("SELECT sample_id FROM samples WHERE unit_id IN (SELECT value FROM temp.wanted_units) "
+                               "AND superseded_in IS NULL AND entry >= ?", (entry["entry"],)).fetchall()
         history = history[~history["sample_id"].isin([sid for (sid,) in entries])]
     graded = grade_batch(SampleBatch(frame, (), 1, entry["source"]), ruleset, history)
     if graded.rejects:
@@ -240,16 +242,17 @@ def unit_forecasts(path, unit_id: str) -> tuple[RuleSet | None, tuple]:
         if not len(unit):
             return None, ()
         latest = next(v for v in sample_entries(conn, unit["sample_id"].iloc[-1]) if v["superseded_in"] is None)
+        unit_spellings(conn, unit_id)  # the unit under any spelling of its id, as unit_entries
         rows = [(object_text(*row), row[2]) for row in conn.execute(
             f"SELECT {STORED_VALUES} FROM samples s JOIN batches b ON b.batch = s.batch "
-            "WHERE s.unit_id = ? AND s.superseded_in IS NULL ORDER BY s.entry", (unit_id,))]
+            "WHERE s.unit_id IN (SELECT value FROM temp.wanted_units) AND s.superseded_in IS NULL ORDER BY s.entry")]
     finally:
         conn.close()
     ruleset = _ruleset_of(path, latest)
     columns = list(dict.fromkeys(name for _, names in rows for name in json.loads(names)))
     frame = frame_from_contents([content for content, _ in rows], columns)
     graded = grade_batch(SampleBatch(frame, (), 1, f"ledger {path}"), ruleset, None)
-    return ruleset, tuple(f for f in graded.forecasts if f.unit_id == unit_id)
+    return ruleset, tuple(f for f in graded.forecasts if unit_id_key(f.unit_id) == unit_id_key(unit_id))
 
 
 def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", forecasts=(),

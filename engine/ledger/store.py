@@ -36,7 +36,7 @@ import pandas as pd
 
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.row_measures import derive_measures
-from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases
+from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes, trend_bases, unit_id_key
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.ledger.aside import Aside
 from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_QUERIES, DIGEST_3_SAMPLE_COLUMNS,
@@ -464,8 +464,9 @@ def history_frame(conn: sqlite3.Connection, units, ruleset: RuleSet, before_batc
 
 
 def history_inputs(conn: sqlite3.Connection, units, before_batch: int | None = None) -> pd.DataFrame | None:
-    """The stored input values of those samples, as samples.py read them (None: no samples)."""
-    _fill_temp(conn, "wanted_units", units)
+    """The stored input values of those samples, as samples.py read them (None: no samples).
+    A unit's samples under every spelling of its id that trends take for one (trends.unit_id_key)."""
+    _fill_temp(conn, "wanted_units", _spellings(conn, units))
     sql = (f"SELECT s.batch, {STORED_VALUES} FROM samples s JOIN temp.wanted_units u ON s.unit_id = u.value "
            "JOIN batches b ON b.batch = s.batch ")
     if before_batch is None:
@@ -474,6 +475,24 @@ def history_inputs(conn: sqlite3.Connection, units, before_batch: int | None = N
         rows = conn.execute(sql + "WHERE s.batch < ? AND (s.superseded_in IS NULL OR s.superseded_in >= ?) "
                                   "ORDER BY s.entry", (before_batch, before_batch)).fetchall()
     return stored_frame(rows)
+
+
+def unit_spellings(conn: sqlite3.Connection, unit_id: str) -> None:
+    """Fill temp.wanted_units with every stored spelling of `unit_id` (_spellings): queries on
+    one unit read `s.unit_id IN (SELECT value FROM temp.wanted_units)`."""
+    _fill_temp(conn, "wanted_units", _spellings(conn, [unit_id]))
+
+
+def _spellings(conn: sqlite3.Connection, units) -> list:
+    """`units` and every stored unit id that differs from one of them only in case or surrounding
+    spaces. The distinct stored ids are walked on the unit index, one seek each (not a scan of
+    every sample)."""
+    units = [u for u in units if u is not None]
+    keys = {unit_id_key(u) for u in units}
+    stored = conn.execute("WITH RECURSIVE ids(id) AS (SELECT MIN(unit_id) FROM samples UNION ALL "
+                          "SELECT (SELECT MIN(unit_id) FROM samples WHERE unit_id > ids.id) FROM ids "
+                          "WHERE ids.id IS NOT NULL) SELECT id FROM ids WHERE id IS NOT NULL").fetchall()
+    return units + [row[0] for row in stored if unit_id_key(row[0]) in keys]
 
 
 def stored_frame(rows: list) -> pd.DataFrame | None:
@@ -788,15 +807,18 @@ def _regraded_later(new: pd.DataFrame, inputs: pd.DataFrame | None, history: pd.
     batch after what the ledger held then); the run says which would now differ."""
     if inputs is None or not len(inputs) or not {"unit_id", "sampled_on"} <= set(new.columns):
         return ()
-    first_new = new.dropna(subset=["unit_id", "sampled_on"]).groupby("unit_id")["sampled_on"].min()
-    since = inputs["unit_id"].map(first_new)
+    dated = new.dropna(subset=["unit_id", "sampled_on"])
+    first_new = dated.groupby(dated["unit_id"].map(unit_id_key))["sampled_on"].min()  # trends' unit, any spelling
+    since = inputs["unit_id"].map(unit_id_key, na_action="ignore").map(first_new)
     later = inputs[(since.notna() & inputs["sampled_on"].notna()).to_numpy()]
-    later = later[(later["sampled_on"] > later["unit_id"].map(first_new)).to_numpy()]
+    later = later[(later["sampled_on"] > since[later.index]).to_numpy()]
     if not len(later):
         return ()
     before = history[~history["sample_id"].isin(later["sample_id"])]
     alone = grade_batch(SampleBatch(later.reset_index(drop=True), (), len(later), "ledger"), ruleset, before)
-    joined = pd.concat([new[new["unit_id"].isin(later["unit_id"]).to_numpy()], later], ignore_index=True)
+    keys = set(later["unit_id"].map(unit_id_key))
+    joined = pd.concat([new[new["unit_id"].map(unit_id_key, na_action="ignore").isin(keys).to_numpy()], later],
+                       ignore_index=True)
     joined.index = pd.RangeIndex(1, len(joined) + 1, name="row")
     together = grade_batch(SampleBatch(joined, (), len(joined), "ledger"), ruleset, before)
     now = dict(zip(together.measured["sample_id"], together.outcome.level.tolist()))
@@ -840,12 +862,13 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
 
 
 def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
-    """The current samples of a unit with their verdicts, stored values and batch columns, in
-    trend order (date, then oil hours)."""
+    """The current samples of a unit (under every spelling of its id: unit_spellings) with their
+    verdicts, stored values and batch columns, in trend order (date, then oil hours)."""
+    unit_spellings(conn, unit_id)
     rows = conn.execute(
         f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, "
-        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id = ? AND s.superseded_in IS NULL "
-        f"ORDER BY s.sampled_on, s.oil_hours, s.entry", (unit_id,)).fetchall()
+        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id IN (SELECT value FROM temp.wanted_units) "
+        f"AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry").fetchall()
     at = len(_UNIT_COLUMNS) + 4
     rows = [row[:at] + (object_text(*row[at + 2:]),) + row[at:at + 2] for row in rows]
     return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",

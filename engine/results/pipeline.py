@@ -20,7 +20,7 @@ from sumpwise.intake.sample_spectra import SPECTRUM_COLUMNS, convention_notes, s
 from sumpwise.derive.cleanliness import read_cleanliness_codes
 from sumpwise.derive.forecast import forecast
 from sumpwise.derive.trends import (CHAIN_COLUMNS, add_trend_measures, date_keys, noise_margins,
-                                    read_oil_changes, trend_bases, trend_caveat_flags)
+                                    read_oil_changes, trend_bases, trend_caveat_flags, unit_id_texts, unit_keys)
 from sumpwise.vocabulary.problems import InputError
 
 
@@ -127,8 +127,10 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     rising samples a `<base>_rising` count of the latest goes back over, its last sample with oil
     hours, its last with a lubricant code, its last flagged oil change and its last change of
     lubricant code with the sample before it (an oil change is looked for back to them:
-    trends._oil_charges). Those are carried for their oil hours, flag and code only: their
-    readings are left empty, so no step is taken from them."""
+    trends._oil_charges), and the one with oil hours before its last one with them (a slip in
+    one reading is told by the hours before the fall: trends._slips; where the latest's hours
+    fell, with the rising run before the fall too). Those are carried for their oil hours, flag
+    and code only: their readings are left empty, so no step is taken from them."""
     names = list(CHAIN_COLUMNS) + list(bases)
     own = pd.DataFrame({name: (measured[name].to_numpy() if name in measured else None) for name in names})
     rising = [measured[f"{base}_rising"].to_numpy(dtype=float) for base in bases if f"{base}_rising" in measured]
@@ -141,21 +143,32 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
         history = history.assign(_keep=np.inf)  # a unit not seen in this chunk keeps what it had
     frame = own if history is None else pd.concat([history[names + ["_keep"]], own], ignore_index=True)
     # The rows to keep are found on arrays; only they are taken from the frame (a few per unit).
-    units = frame["unit_id"].to_numpy(dtype=object)
-    present = np.flatnonzero(pd.notna(units))
+    keys = unit_keys(frame["unit_id"].to_numpy(dtype=object))  # a unit under any spelling of its id
+    present = np.flatnonzero(keys >= 0)
     if not len(present):
         return frame.iloc[present][names].reset_index(drop=True)
     dates, flags, hours = _trend_keys(frame)
-    codes = pd.factorize(units[present], sort=True)[0]  # unit ids are str: their ranks sort as they do
+    codes = keys[present]
     by = np.lexsort((hours[present], flags[present], dates[present], codes))  # stable: ties keep their order
     order, unit_of = present[by], codes[by]
     last = np.r_[np.flatnonzero(unit_of[1:] != unit_of[:-1]), len(order) - 1]  # each unit's latest
     unit_last = np.repeat(last, np.diff(np.r_[-1, last]))
     from_end = unit_last - np.arange(len(order))
-    keep = frame["_keep"].to_numpy()[order][unit_last]
-    kept = from_end < keep
     at = np.arange(len(order))
     first = np.r_[0, last[:-1] + 1]
+    # the unit's latest sample with oil hours and the one with oil hours before it: if the
+    # latest's hours fell, the unit's next sample may tell a slip in that one reading
+    # (trends._slips), read by the hours before the fall and going on with that sample's rising run
+    in_order = hours[order]
+    timed = np.isfinite(in_order)
+    latest_timed = np.maximum.accumulate(np.where(timed, at, -1))
+    timed_before = _shifted_back(latest_timed)[np.maximum(latest_timed[last], 0)]
+    has_both = (latest_timed[last] >= first) & (timed_before >= first)
+    fell = has_both & (in_order[np.maximum(latest_timed[last], 0)] < in_order[np.maximum(timed_before, 0)])
+    keep_of = frame["_keep"].to_numpy()[order]
+    keep = np.where(fell, np.fmax(keep_of[last], last - timed_before + keep_of[np.maximum(timed_before, 0)]),
+                    keep_of[last])
+    kept = from_end < np.repeat(keep, np.diff(np.r_[-1, last]))
     unit_first = np.repeat(first, np.diff(np.r_[-1, last]))
     lubricant = frame["lubricant"].to_numpy(dtype=object)[order] if "lubricant" in frame else np.full(len(order), None)
     named = pd.notna(lubricant)
@@ -163,12 +176,13 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     named_before = np.where(named_before >= unit_first, named_before, -1)
     code_changed = named & (named_before >= 0) & (lubricant != lubricant[np.maximum(named_before, 0)])
     context = np.zeros(len(order), dtype=bool)
-    for evidence in (np.isfinite(hours[order]), named, flags[order].astype(bool), code_changed):
+    for evidence in (timed, named, flags[order].astype(bool), code_changed):
         latest = np.maximum.accumulate(np.where(evidence, at, -1))[last]
         context[latest[latest >= first]] = True
         if evidence is code_changed:
             before = named_before[latest[latest >= first]]
             context[before[before >= 0]] = True
+    context[timed_before[has_both]] = True  # for its oil hours, where the fall is no slip (kept above where it is)
     context &= ~kept
     carried = frame.iloc[order[kept | context]][names].reset_index(drop=True)
     for base in bases:  # a sample kept for its oil hours, flag or code only gives no step
@@ -185,8 +199,9 @@ def _check_order(batch: SampleBatch, history: pd.DataFrame) -> None:
     frame = batch.frame
     if "unit_id" not in frame or not len(frame):
         return
-    carried = history.drop_duplicates("unit_id", keep="last").set_index("unit_id")  # each unit's latest
-    where = carried.index.get_indexer(frame["unit_id"].to_numpy(dtype=object))
+    keyed = history.assign(_key=unit_id_texts(history["unit_id"].to_numpy(dtype=object)))
+    carried = keyed.drop_duplicates("_key", keep="last").set_index("_key")  # each unit's latest, any spelling
+    where = carried.index.get_indexer(unit_id_texts(frame["unit_id"].to_numpy(dtype=object)))
     has = where >= 0
     if not has.any():
         return

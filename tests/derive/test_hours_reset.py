@@ -232,7 +232,8 @@ def test_viscosity_alone_tells_no_meter_reset():
     fresh = frame["sample_id"].isin(["BP-HP2-04", "BP-HP2-05", "BP-HP2-06"])
     frame.loc[fresh, "kv40"] = ["46.9", "46.9", "47.0"]
     graded = _graded(frame, TREND_RULES)
-    assert caveats_of(graded.find("BP-HP2-04")) == ["oil-changed"]
+    # ... and it says that nothing told it (oil-change-untold): viscosity cannot tell a reset
+    assert caveats_of(graded.find("BP-HP2-04")) == ["oil-changed", "oil-change-untold"]
 
 
 def test_a_top_up_flagged_as_an_oil_change_is_said():
