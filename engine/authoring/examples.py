@@ -14,6 +14,8 @@ from dataclasses import dataclass
 
 import pandas as pd
 
+from sumpwise.intake.column_map import MAPPABLE_FIELDS
+from sumpwise.intake.samples import NUMERIC_COLUMNS
 from sumpwise.results.pipeline import grade
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.results.records import UNRATED, SampleResult
@@ -56,13 +58,21 @@ def check_example(ruleset: RuleSet, example: Example) -> ExampleFailure | None:
         reasons = tuple(f"the sample cannot be read: {r.field}: {r.reason}" for r in graded.rejects)
         return _failure(example, reasons, "the sample was rejected, nothing was graded")
     result = graded.result(0)
-    differences = _differences(ruleset, example, result)
+    differences = _unread_keys(ruleset, example) + _differences(ruleset, example, result)
     return _failure(example, differences, describe(result)) if differences else None
 
 
 def _failure(example: Example, differences: tuple, actual: str) -> ExampleFailure:
     origin = example.origin
     return ExampleFailure(example.name, origin.file, origin.line, origin.column, tuple(differences), actual)
+
+
+def _unread_keys(ruleset: RuleSet, example: Example) -> tuple:
+    """A sample key the engine does not read: a misspelt `wter: 5000` would leave the example holding while
+    it tests nothing about water (a samples file only notes such a column; an example is a specification)."""
+    known = {*MAPPABLE_FIELDS, *NUMERIC_COLUMNS, *ruleset.measures, *ruleset.fields}
+    return tuple(f"sample: '{key}' is not a value the engine reads{_did_you_mean(str(key), known)} "
+                 f"(so the example says nothing about it)" for key in example.sample if key not in known)
 
 
 def _differences(ruleset: RuleSet, example: Example, result: SampleResult) -> tuple:

@@ -75,6 +75,7 @@ class Proposal:
     excess_kurtosis: float
     normality_p: float
     source: str
+    censored: int = 0  # results that are a bound (`<50`), counted and ranked, never taken as numbers
 
     def ladder(self) -> dict[str, float]:
         """Grade -> limit, lowest grade first, as a ladder rule writes it."""
@@ -170,7 +171,42 @@ def _needed(method: str, levels: tuple[float, ...], min_count: int) -> int:
     return max(min_count, math.ceil(TAIL_RESULTS / tail_share - 1e-9))
 
 
-def _source(method, count, dropped, levels, percentiles, levels_source, direction, auto_note):
+def _bounds_of(censored) -> tuple[np.ndarray, np.ndarray]:
+    """The (low, high) ends of the censored results, as float arrays of one length (±inf where open-ended)."""
+    if censored is None:
+        return np.empty(0), np.empty(0)
+    low, high = (np.asarray(end, dtype=float).ravel() for end in censored)
+    if low.shape != high.shape or np.isnan(low).any() or np.isnan(high).any() or np.any(low > high):
+        raise ValueError("censored: expected (low, high) arrays of one length, low <= high, no NaN")
+    return low, high
+
+
+def censored_percentiles(data: np.ndarray, low: np.ndarray, high: np.ndarray, percentiles) -> np.ndarray:
+    """numpy.percentile of the numbers and the censored results together, when the censored ones
+    cannot move it; ValueError naming the percentile when they can.
+
+    A censored result (`<50`) is only known to lie in [low, high]. The percentile is computed twice,
+    every censored result at its low end and then at its high end (an open end at a value beyond
+    every number); the two agree exactly when the order statistics it interpolates are numbers that
+    lie beyond every censored result, and then that is the percentile of the true values.
+    """
+    finite = np.concatenate([data, low[np.isfinite(low)], high[np.isfinite(high)]])
+    reach = float(np.max(np.abs(finite))) * 2.0 + 1.0 if finite.size else 1.0
+    at_low = np.percentile(np.concatenate([data, np.where(np.isfinite(low), low, -reach)]), percentiles)
+    at_high = np.percentile(np.concatenate([data, np.where(np.isfinite(high), high, reach)]), percentiles)
+    apart = at_low != at_high
+    if np.any(apart):
+        which = ", ".join(f"the {p:g}th" for p, differ in zip(np.atleast_1d(percentiles), np.atleast_1d(apart))
+                          if differ)
+        raise ValueError(
+            f"{which} percentile falls among the {low.size} censored results (a bound such as <50, not a "
+            "number), so these results cannot tell where it lies; a limit there would rest on the bound as if "
+            "it were a reading. Use higher levels, a lab with a lower reporting limit, or more results"
+        )
+    return at_low
+
+
+def _source(method, count, dropped, levels, percentiles, levels_source, direction, auto_note, censored=0):
     if method == "spc":
         sign = "+" if direction == "above" else "-"
         how = "SPC limits, mean " + ", ".join(f"{sign} {k:g} SD" for k in levels)
@@ -178,14 +214,17 @@ def _source(method, count, dropped, levels, percentiles, levels_source, directio
     else:
         how = "percentiles " + ", ".join(f"{p:g}" for p in percentiles) + " of the sorted data"
         clause = "ASTM D7720 approach (§1.3 percentiles)"
-    dropped_note = f" ({dropped} missing dropped)" if dropped else ""
+    notes = ([f"{censored} censored, ranked by their bounds"] if censored else []) + \
+        ([f"{dropped} missing dropped"] if dropped else [])
+    dropped_note = f" ({'; '.join(notes)})" if notes else ""
     return (
         f"Proposed from {count} results{dropped_note}: {how}{auto_note}. "
         f"{clause}; levels: {levels_source}."
     )
 
 
-def propose_ladder(values, grades, direction, method="auto", levels=None, min_count=30) -> Proposal:
+def propose_ladder(values, grades, direction, method="auto", levels=None, min_count=30,
+                   censored=None) -> Proposal:
     """Propose one limit per grade of a ladder from one measure's results for one class.
 
     method "spc": mean +/- k * sample SD, for roughly normal, in-control data (D7720 §1.2).
@@ -194,6 +233,12 @@ def propose_ladder(values, grades, direction, method="auto", levels=None, min_co
     method "auto": Jarque-Bera normality test (see jarque_bera_p); p < NORMALITY_ALPHA
     -> percentile, else spc. It is run on at least min_count results.
 
+    `censored` is (low, high): the results that are a bound, not a number (`<50` is [0, 50)).
+    They count and take their place in the ranking (censored_percentiles), but never as numbers:
+    SPC refuses them (a mean and SD without them would be those of the other results alone),
+    "auto" takes percentiles, and a percentile they could move is refused. The moments and the
+    normality test are those of the numbers.
+
     NaNs are dropped and counted. Too few results raise NotEnoughData: min_count (30,
     common practice, no source) for spc and for auto's test, and for percentiles enough
     that TAIL_RESULTS results lie beyond the highest level. Limits rise along the ladder
@@ -201,12 +246,26 @@ def propose_ladder(values, grades, direction, method="auto", levels=None, min_co
     """
     grades = _check_ladder(grades, direction, method)
     data, dropped = _clean(values)
-    count = int(data.size)
+    censored_low, censored_high = _bounds_of(censored)
+    count = int(data.size + censored_low.size)
     if count < max(min_count, 2):
         raise NotEnoughData(method, count, max(min_count, 2), f"min_count; {LEVELS_COMMON_PRACTICE}")
-    mean, sd, skewness, excess_kurtosis = moments(data)
-    normality_p = jarque_bera_p(count, skewness, excess_kurtosis)
+    if data.size >= 2:  # the numbers' own figures; the censored results have none
+        mean, sd, skewness, excess_kurtosis = moments(data)
+        normality_p = jarque_bera_p(int(data.size), skewness, excess_kurtosis)
+    else:
+        mean = sd = skewness = excess_kurtosis = normality_p = math.nan
     auto_note = ""
+    if censored_low.size and method == "spc":
+        raise ValueError(
+            f"{censored_low.size} of the {count} results are censored (a bound such as <50, not a number): "
+            "SPC limits need every result as a number, and a mean and SD of the others alone would be those of "
+            "a different population; use --method percentile"
+        )
+    if censored_low.size and method == "auto":
+        method = "percentile"
+        auto_note = (f"; percentiles because {censored_low.size} results are censored (bounds, not numbers), "
+                     "which a mean and SD cannot take")
     if method == "auto":
         method = "percentile" if normality_p < NORMALITY_ALPHA else "spc"
         verdict = "<" if method == "percentile" else ">="
@@ -228,7 +287,7 @@ def propose_ladder(values, grades, direction, method="auto", levels=None, min_co
         limits = mean + sign * sd * np.array(chosen)
     else:
         percentiles = chosen if direction == "above" else tuple(100.0 - p for p in chosen)
-        limits = np.percentile(data, percentiles)
+        limits = censored_percentiles(data, censored_low, censored_high, percentiles)
     steps = sign * np.diff(limits)
     if np.any(steps <= 0):
         raise ValueError(
@@ -251,7 +310,9 @@ def propose_ladder(values, grades, direction, method="auto", levels=None, min_co
         skewness=skewness,
         excess_kurtosis=excess_kurtosis,
         normality_p=normality_p,
-        source=_source(method, count, dropped, chosen, percentiles, levels_source, direction, auto_note),
+        source=_source(method, count, dropped, chosen, percentiles, levels_source, direction, auto_note,
+                       censored_low.size),
+        censored=int(censored_low.size),
     )
 
 

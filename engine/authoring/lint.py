@@ -290,6 +290,11 @@ def unit_trouble(measure: str, canonical: float) -> str | None:
                 "of a reading, so no rise, step or differential reading gets there")
     if measure in ("kv40_change_pct", "kv100_change_pct") and abs(canonical) > 100:
         return "a change of more than 100 % means the viscosity doubled; a viscosity in mm2/s written here?"
+    if measure in ("kv40_change_pct", "kv100_change_pct") and 0 < abs(canonical) < 1:
+        # ISO 3104 §14.2: repeatability 0.26 % of the value for formulated oils at 40 and 100 C
+        return ("this measure is a percent of new (10 means 10 %), and a change under 1 % is within a few "
+                "repeatabilities of the test (0.26 % of the value, ISO 3104), so noise alone crosses it: a "
+                "fraction (0.1 for 10 %) written?")
     if measure in ("bn_retained_pct", "rpvot_retained_pct") and 0 < canonical <= 1:
         return "this measure is a percent of new (50 means half), not a fraction"
     return None

@@ -28,13 +28,14 @@ class Repeatability:
                 f"({self.status})").replace("  ", " ")
 
 
-_D445 = ("ASTM D445, formulated oils at 40 and 100 C", "r = 0.0026 X",
-         "from memory; D445 says used-oil precision was not determined and is expected to be poorer")
+_D445 = ("ISO 3104 / ASTM D445, formulated oils at 40 and 100 C", "r = 0.0026 X",
+         "confirmed: ISO 3104 §14.2 as reproduced, and the project's fact sheet; used-oil precision was not "
+         "determined and is expected to be poorer (from memory)")
 
 REPEATABILITY = {
     "an": Repeatability("an", "ASTM D664, used oils (buffer end point)", "r = 0.117 X", lambda x: 0.117 * abs(x),
-                        "confirmed for an older edition as the project's fact sheet reproduces it; D974's own "
-                        "figures were not found"),
+                        "confirmed: D664's precision section in two reproductions (§15.1.1 of an older edition, "
+                        "§16.1.1 of a later one) and the project's fact sheet; D974's own figures were not found"),
     "kv40": Repeatability("kv40", _D445[0], _D445[1], lambda x: 0.0026 * abs(x), _D445[2]),
     "kv100": Repeatability("kv100", _D445[0], _D445[1], lambda x: 0.0026 * abs(x), _D445[2]),
     "water": Repeatability("water", "ASTM D6304 Procedure A", "r = 0.08852 X^0.7 (mg/kg)",

@@ -161,6 +161,7 @@ def run_propose_limits(args, stdout, stderr) -> int:
                                                ("the rule set", args.rules), ("--columns", args.columns)])
     ruleset = load_ruleset(args.rules) if args.rules else None
     batch = _read(args, ruleset.measures if ruleset else ())
+    stderr.write("".join(reject_line(batch.source, r) + "\n" for r in batch.rejects))  # as grade writes them
     filters = Filters(args.lubricant, tuple(args.unit), args.since, args.until, args.pool_lubricants)
     try:
         found = propose_from_samples(batch, args.class_name, args.measure, args.lubricant, ruleset,

@@ -230,6 +230,8 @@ def _fit_rule(rule, unit, names, run, runs, use, x, y, days, last_row, ruleset) 
     levels = np.array([level for level, _ in rule.steps])
     limits = np.stack([_limit_toward(limit, direction, rule.test) for _, limit in rule.steps], axis=1)
     below_limit = ~(y_now[:, None] > limits)  # the ladder is monotone: the crossed steps come first
+    if rule.test == "outside":  # a step crossed on the other side counts too: the next grade is above the latest's
+        below_limit &= ~np.stack([_outside(y[last_row[g]], limit) for _, limit in rule.steps], axis=1)
     has_next = below_limit.any(axis=1)
     k = np.argmax(below_limit, axis=1)
     limit = limits[np.arange(len(g)), k]
@@ -281,6 +283,12 @@ def _limit_toward(limit, direction: np.ndarray, test: str) -> np.ndarray:
         low, high = limit if isinstance(limit, tuple) else (-limit, limit)
         return direction * np.where(direction > 0, high, low)
     return direction * limit
+
+
+def _outside(values: np.ndarray, limit) -> np.ndarray:
+    """Whether each value crosses an `outside` step on either side: |value| > limit, or outside [low, high]."""
+    low, high = limit if isinstance(limit, tuple) else (-limit, limit)
+    return (values < low) | (values > high)
 
 
 def _pace(d, r, xs, runs) -> np.ndarray:

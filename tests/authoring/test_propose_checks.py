@@ -1,8 +1,8 @@
 """propose-limits: what a proposal must pass before anyone pastes it.
 
 Repeatability figures: ASTM D664 used-oil acid number r = 0.117 X (the project's fact sheet,
-../shared/reference/limits.md, confirmed for an older edition); ASTM D445 formulated oils
-r = 0.0026 X and ASTM D6304 r = 0.08852 X^0.7 (from memory). One oil per pool: ASTM E2412
+../shared/reference/limits.md, confirmed); ISO 3104 §14.2 formulated oils r = 0.0026 X (confirmed,
+fact sheet viscosity.md); ASTM D6304 r = 0.08852 X^0.7 (from memory). One oil per pool: ASTM E2412
 Annex A3 (fact sheet). The 5 % first-level default is common practice, no source. Data are
 seeded synthetic results of a known spread (invented, Brackwater Point style).
 """
