@@ -217,6 +217,8 @@ def run_find(args, stdout, stderr) -> int:
     else:
         stdout.write("\n".join(terminal_lines(found.to_string(index=False).splitlines())) + "\n" if len(found) else "")
         stdout.write(f"{len(found)} {'rejected row' if args.rejects else 'sample'}(s)\n")
+        if not args.rejects:  # a list of grades is read by people: it carries the cautions
+            stdout.write(caution_text("! ") + "\n")
     return OK
 
 

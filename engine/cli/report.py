@@ -8,6 +8,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from sumpwise.cli.exit_codes import OK
+from sumpwise.derive.trends import unit_id_key
 from sumpwise.cli.options import batch_number, output_file, refuse_overwriting
 from sumpwise.ledger.audit import stored_results, unit_forecasts
 from sumpwise.render.jsonl import dumps
@@ -114,9 +115,10 @@ def with_forecasts(records, db, stored) -> tuple:
     """Ledger records with the engine's forecasts put on the samples they were made from: each
     unit's stored samples re-graded, as `history` shows them (records rebuilt from a ledger say
     null: it stores none)."""
-    units = dict.fromkeys(r.unit_id for r in stored if r.unit_id is not None)
+    # One unit a spelling of its id (unit_forecasts reads every spelling): each forecast once.
+    units = {unit_id_key(r.unit_id): r.unit_id for r in stored if r.unit_id is not None and r.unit_id.strip()}
     made: dict = {}
-    for unit in units:
+    for unit in units.values():
         for f in unit_forecasts(db, unit)[1]:
             made.setdefault(f.sample_id, []).append(f.to_record())
     return tuple(dict(r, forecasts=made.get(r["sample_id"], [])) for r in records)

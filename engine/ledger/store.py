@@ -1023,8 +1023,10 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     if grades:
         where.append(f"{_GRADE} IN ({', '.join('?' * len(grades))})")
         params.extend(grades)
-    for column, value, test in (("s.unit_id", unit, "="), ("s.sampled_on", since, ">="),
-                                ("s.sampled_on", until, "<=")):
+    if unit is not None:  # every spelling of the unit's id, as grading, history and explain take it
+        unit_spellings(conn, unit)
+        where.append("s.unit_id IN (SELECT value FROM temp.wanted_units)")
+    for column, value, test in (("s.sampled_on", since, ">="), ("s.sampled_on", until, "<=")):
         if value is not None:
             where.append(f"{column} {test} ?")
             params.append(value)
@@ -1084,8 +1086,12 @@ def _unknown_filter(conn: sqlite3.Connection, rule, grades, grade_at_least, rule
 
 
 def _unknown_unit(conn: sqlite3.Connection, unit) -> str | None:
-    """Why `--unit` can match nothing: no sample of that unit was ever recorded (`U9` for `U-9`)."""
-    if unit is None or conn.execute("SELECT 1 FROM samples WHERE unit_id = ? LIMIT 1", (unit,)).fetchone():
+    """Why `--unit` can match nothing: no sample of that unit, under any spelling of its id that
+    grading takes for it (`hp-4 ` for `HP-4`), was ever recorded (`U9` for `U-9`)."""
+    if unit is None:
+        return None
+    unit_spellings(conn, unit)
+    if conn.execute("SELECT 1 FROM samples WHERE unit_id IN (SELECT value FROM temp.wanted_units) LIMIT 1").fetchone():
         return None
     units = [row[0] for row in conn.execute("SELECT DISTINCT unit_id FROM samples WHERE unit_id IS NOT NULL")]
     if not units:

@@ -22,6 +22,7 @@ from datetime import date
 from functools import lru_cache
 from html import escape
 
+from sumpwise.derive.trends import unit_id_key
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
 from sumpwise.vocabulary.measures import measure_unit
@@ -339,6 +340,7 @@ class UnitView:
     worst_level: int | None
     flagged: int
     graded_by: tuple = ()  # the (id, version, sha256) of each rule set that graded the unit's samples, in order
+    spellings: tuple = ()  # the unit id as each sample's record writes it, each spelling once, in date order
 
     @property
     def worsening(self) -> bool:
@@ -367,15 +369,18 @@ def unit_views(records, ruleset: RuleSet | None = None, rulesets: dict | None = 
     """Units ordered for attention: latest grade, then worsening (grade or values) first, then the worst grade.
 
     With `rulesets` (by fingerprint), each unit's limits come from the rule set that graded its
-    latest sample; otherwise from `ruleset`.
+    latest sample; otherwise from `ruleset`. Ids that differ only in case or surrounding spaces
+    are one unit, as grading's trends take them (trends.unit_id_key); the unit is shown as its
+    latest record writes it, with the other spellings.
     """
     by_unit: dict[str, list] = {}
     for record in records:
-        by_unit.setdefault(record.get("unit_id") or "(no unit)", []).append(record)
+        by_unit.setdefault(_unit_key(record.get("unit_id")), []).append(record)
     views = []
-    for unit_id, samples in by_unit.items():
+    for samples in by_unit.values():
         samples = sorted(samples, key=_sample_key)
         latest = samples[-1]
+        unit_id = latest.get("unit_id") or "(no unit)"
         class_name = latest.get("class") or ""
         own = rulesets.get(latest["ruleset"]["sha256"]) if rulesets else ruleset
         watched = watched_measures(own, class_name, samples)
@@ -394,8 +399,14 @@ def unit_views(records, ruleset: RuleSet | None = None, rulesets: dict | None = 
         views.append(UnitView(unit_id, class_name, latest.get("lubricant") or "", tuple(samples), tuple(watched),
                               series, latest.get("level"), move, rising, max(levels) if levels else None,
                               sum(1 for s in samples if (s.get("level") or 0) > 0),
-                              tuple(dict.fromkeys(_graded_by(s) for s in samples))))
+                              tuple(dict.fromkeys(_graded_by(s) for s in samples)),
+                              tuple(dict.fromkeys(s.get("unit_id") for s in samples if s.get("unit_id")))))
     return sorted(views, key=lambda v: (-_rank(v.latest_level), not v.worsening, -_rank(v.worst_level), v.unit_id))
+
+
+def _unit_key(unit_id) -> str:
+    """The unit a record belongs to, as grading groups it (trends.unit_id_key); '' for none or blank."""
+    return unit_id_key(unit_id) if unit_id else ""
 
 
 def _point_level(measure: str, record: dict, ladder: Ladder) -> int | None:
@@ -434,7 +445,7 @@ def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: 
     `dates` maps the unit's sample ids to their day numbers."""
     drawn = []
     for f in forecasts:
-        if f.get("unit_id") != view.unit_id or f.get("measure") != measure:
+        if _unit_key(f.get("unit_id")) != _unit_key(view.unit_id) or f.get("measure") != measure:
             continue
         x0, x1 = dates.get(f.get("sample_id")), _day(f.get("on"))
         if x0 is None or x1 is None:
@@ -460,7 +471,7 @@ def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
     samples = view.samples
     xs = [_sample_date(s) for s in samples]
     dates = dict(zip((s["sample_id"] for s in samples), xs))
-    forecasts = [f for f in forecasts if f.get("unit_id") == view.unit_id]
+    forecasts = [f for f in forecasts if _unit_key(f.get("unit_id")) == _unit_key(view.unit_id)]
     starts = [k for k in range(1, len(samples)) if starts_charge(samples[k])]
     bounds = [0] + starts + [len(samples)]
     marks = tuple(Mark((xs[k - 1] + xs[k]) / 2, "oil changed") for k in starts
@@ -813,14 +824,18 @@ def _sources(samples) -> str:
 
 def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
     plots = unit_plots(view, ladder, forecasts)
-    mine = [f for f in forecasts if f.get("unit_id") == view.unit_id]
+    mine = [f for f in forecasts if _unit_key(f.get("unit_id")) == _unit_key(view.unit_id)]
     changes = sum(1 for s in view.samples[1:] if starts_charge(s))
     latest = view.samples[-1]
     head = (f'<section class="unit" id="unit-{escape(view.unit_id)}" data-unit="{escape(view.unit_id)}">'
             f'<div class="unit-head"><h3>{escape(view.unit_id)} <span class="muted">· {escape(view.class_name)} · '
             f'{escape(view.lubricant)}</span></h3><span>latest {_grade_cell(latest["grade"], view.latest_level)}'
             f' · {escape(view.trend)} · {len(view.samples)} samples'
-            + (f" · {changes} oil change(s)" if changes else "") + "</span></div>")
+            + (f" · {changes} oil change(s)" if changes else "") + "</span></div>"
+            + (f"<p class='muted spellings'>The lab wrote this unit's id {len(view.spellings)} ways ("
+               + ", ".join(f"&lsquo;{escape(u)}&rsquo;" for u in view.spellings)
+               + "): one unit, as grading takes it (case and surrounding spaces ignored); each sample "
+                 "keeps its id as written</p>" if len(view.spellings) > 1 else ""))
     figures = "".join(f"<figure>{render_plot(p)}"
                       + (f"<figcaption>{escape(p.note)}</figcaption>" if p.note else "") + "</figure>" for p in plots)
     earlier = _earlier(view.samples[:-1], ladder)

@@ -89,7 +89,7 @@ def test_a_changed_rule_set_under_a_recorded_version_is_refused_unless_asked(db,
     refused = run_cli("grade", samples, "--rules", changed, "--db", db)
     assert refused.code == 2 and "version 2 is already recorded with other content" in refused.err
     assert "--same-version" in refused.err and "Raise `version:`" in refused.err
-    assert run_cli("find", "--db", db, "--unit", "ST-1", "--since", "2027-01-01").out.endswith("0 sample(s)\n")
+    assert run_cli("find", "--db", db, "--unit", "ST-1", "--since", "2027-01-01").out.startswith("0 sample(s)\n")
     allowed = run_cli("grade", samples, "--rules", changed, "--db", db, "--same-version")
     assert allowed.code == 0
     replayed = run_cli("replay", "--db", db)
@@ -172,7 +172,7 @@ def test_find_on_a_ledger_with_no_rule_set_yet_lists_nothing_without_refusing(tm
     db = tmp_path / "new.db"
     open_ledger(db).close()  # a new, empty ledger: nothing to check a filter against
     found = run_cli("find", "--db", db, "--rule", "any-rule-id")
-    assert found.code == 0 and found.out.endswith("0 sample(s)\n"), found.err
+    assert found.code == 0 and found.out.startswith("0 sample(s)\n"), found.err
 
 
 def test_a_file_whose_every_row_is_rejected_is_recorded_with_its_rejects(tmp_path):
