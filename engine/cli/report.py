@@ -10,7 +10,7 @@ from pathlib import Path
 from sumpwise.cli.exit_codes import OK
 from sumpwise.derive.trends import unit_id_key
 from sumpwise.cli.options import batch_number, output_file, refuse_overwriting
-from sumpwise.ledger.audit import stored_results, unit_forecasts
+from sumpwise.ledger.audit import recorded_rejects, stored_results, unit_forecasts
 from sumpwise.render.jsonl import dumps
 from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import COMPACT, next_step_record
@@ -104,11 +104,24 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
         if any(r.get("form") == COMPACT for r in records):
             records = with_texts(records, ruleset, str(results))
     rejected = parse_rejects(_text(rejects), str(rejects)) if rejects else ()
-    html = render_report(records, rejected, ruleset, title=title or "", rejects_given=rejects is not None,
-                         rulesets=rulesets)
+    if db is not None and rejects is None:  # the ledger recorded its batches' rejected rows: count and list them
+        rejected = ledger_rejects(db, batch)
+    html = render_report(records, rejected, ruleset, title=title or "",
+                         rejects_given=rejects is not None or db is not None, rulesets=rulesets)
     Path(out).write_text(html, encoding="utf-8")
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
     return {"records": len(records), "flagged": flagged, "rejected": len(rejected), "bytes": len(html.encode())}
+
+
+def ledger_rejects(db, batch: int | None = None) -> tuple:
+    """The rejected rows the ledger recorded (of one batch, or of all), as parse_rejects gives them,
+    each with the file its batch read: a ledger's report would otherwise say none were rejected."""
+    found = recorded_rejects(db)
+    if batch is not None:
+        found = found[found["batch"] == batch]
+    return tuple({"file": f"batch {r.batch}: {r.source}", "row": "" if r.row is None else str(r.row),
+                  "sample_id": r.sample_id or "", "field": r.field, "reason": r.reason}
+                 for r in found.itertuples(index=False))
 
 
 def with_forecasts(records, db, stored) -> tuple:

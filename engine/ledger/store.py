@@ -1010,6 +1010,8 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     `grade_at_least` is a level; `grades` names grades exactly; `ruleset` a fingerprint prefix;
     `version` the rule-set version as written. Dates compare as ISO text.
     """
+    if unit is not None:  # every spelling of the unit's id, as grading, history and explain take it
+        unit_spellings(conn, unit)
     refused = _unknown_filter(conn, rule, grades, grade_at_least, ruleset, version) or _unknown_unit(conn, unit)
     if refused:
         raise LedgerError(refused)
@@ -1023,8 +1025,7 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     if grades:
         where.append(f"{_GRADE} IN ({', '.join('?' * len(grades))})")
         params.extend(grades)
-    if unit is not None:  # every spelling of the unit's id, as grading, history and explain take it
-        unit_spellings(conn, unit)
+    if unit is not None:
         where.append("s.unit_id IN (SELECT value FROM temp.wanted_units)")
     for column, value, test in (("s.sampled_on", since, ">="), ("s.sampled_on", until, "<=")):
         if value is not None:
@@ -1087,10 +1088,10 @@ def _unknown_filter(conn: sqlite3.Connection, rule, grades, grade_at_least, rule
 
 def _unknown_unit(conn: sqlite3.Connection, unit) -> str | None:
     """Why `--unit` can match nothing: no sample of that unit, under any spelling of its id that
-    grading takes for it (`hp-4 ` for `HP-4`), was ever recorded (`U9` for `U-9`)."""
+    grading takes for it (`hp-4 ` for `HP-4`), was ever recorded (`U9` for `U-9`). Reads the
+    spellings unit_spellings put in temp.wanted_units."""
     if unit is None:
         return None
-    unit_spellings(conn, unit)
     if conn.execute("SELECT 1 FROM samples WHERE unit_id IN (SELECT value FROM temp.wanted_units) LIMIT 1").fetchone():
         return None
     units = [row[0] for row in conn.execute("SELECT DISTINCT unit_id FROM samples WHERE unit_id IS NOT NULL")]

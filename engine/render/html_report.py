@@ -929,10 +929,13 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
                         f"<tr><td>{escape(r['sample_id'])}</td><td>{escape(r.get('unit_id') or '')}</td>"
                         f"<td>{escape(r.get('class') or '')}</td><td>{escape(r.get('unrated_because') or '')}</td>"
                         "</tr>" for r in unrated) + "</tbody></table>")
-    if rejects:
-        body.append("<h2>Rejected rows (not graded)</h2><table class='grid rejects'><thead><tr><th>row</th>"
+    if rejects:  # the file column when the rejects name theirs: row 3 of which file
+        files = any(r["file"] for r in rejects)
+        body.append("<h2>Rejected rows (not graded)</h2><table class='grid rejects'><thead><tr>"
+                    + ("<th>file</th>" if files else "") + "<th>row</th>"
                     "<th>sample</th><th>field</th><th>why</th></tr></thead><tbody>" + "".join(
-                        f"<tr><td>{escape(r['row'])}</td><td>{escape(r['sample_id'])}</td><td>{escape(r['field'])}"
+                        "<tr>" + (f"<td>{escape(r['file'])}</td>" if files else "")
+                        + f"<td>{escape(r['row'])}</td><td>{escape(r['sample_id'])}</td><td>{escape(r['field'])}"
                         f"</td><td>{escape(r['reason'])}</td></tr>" for r in rejects) + "</tbody></table>")
     body.append(cautions)
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"

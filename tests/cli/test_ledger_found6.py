@@ -189,3 +189,18 @@ def test_rejected_rows_are_recorded_with_reason_code_and_origin(site):
     assert [(r["sample_id"], r["field"], r["code"], r["batch"]) for r in rejects] == [
         ("BW-1012-02", "water", "D004", 4), ("BW-1012-03", "sampled_on", "D015", 4)]
     assert all(r["source"].endswith("week-2026-10-12.csv") and r["row"] in (2, 3) and r["reason"] for r in rejects)
+
+
+def test_report_from_the_ledger_counts_and_lists_the_rejected_rows_it_recorded(site, tmp_path):
+    db, _ = site
+    out, one = tmp_path / "all.html", tmp_path / "batch4.html"
+    made = run_cli("report", "--db", db, "--out", out)
+    assert made.code == 0 and "2 rejected row(s)" in made.err
+    html = out.read_text()
+    assert "<b>2</b>rejected rows" in html and "No rejects file was given" not in html
+    table = html[html.index("<h2>Rejected rows"):]
+    assert table.count("week-2026-10-12.csv") == 2 and "BW-1012-02" in table and "BW-1012-03" in table
+    assert run_cli("report", "--db", db, "--batch", "4", "--out", one).code == 0
+    assert "<b>2</b>rejected rows" in one.read_text()
+    assert run_cli("report", "--db", db, "--batch", "3", "--out", one).code == 0
+    assert "<b>0</b>rejected rows" in one.read_text()  # batch 3 rejected nothing: counted, not "not given"
