@@ -779,18 +779,23 @@ def _reading(shown):
 
 
 def _finding_text(reason: dict) -> str:
-    """One finding in a few words: the rule, its grade and the value (the limits are on the plots)."""
+    """One finding in a few words: the rule, its grade, the value and the limit it crossed, as the
+    sample's own rule set set it (the plots draw the latest sample's limits)."""
     capped = f" (capped from {reason['capped_from']})" if reason.get("capped_from") else ""
     if "measure" in reason:
-        return f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))}"
+        crossed = (f", {limit_text(reason['test'], reason['limit'], reason.get('unit'))}"
+                   if reason.get("test") and reason.get("limit") is not None else "")
+        return (f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))}"
+                f"{crossed}")
     held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}{_unit_after(c)}"
                      for c in reason.get("clauses") or () if c.get("held"))
     return f"{reason['rule']} {reason['grade']}{capped}: {held}"
 
 
-def _earlier(samples, ladder: Ladder) -> str:
+def _earlier(samples, ladder: Ladder, several: bool = False) -> str:
     """Earlier flagged samples of a unit, newest first, one compact row each; an earlier sample that
-    may be graded on less than it should (FIRST_CAVEATS: an unknown lubricant, ...) is listed too."""
+    may be graded on less than it should (FIRST_CAVEATS: an unknown lubricant, ...) is listed too.
+    `several`: the unit's samples were graded under several rule sets, so each row names its own."""
     rows = []
     for record in reversed(samples):
         if (record.get("level") or 0) <= 0 and not any(c.get("caveat") in FIRST_CAVEATS for c in record["caveats"]):
@@ -802,11 +807,13 @@ def _earlier(samples, ladder: Ladder) -> str:
                     f"<td class='n'>{escape(f'{hours:g}' if isinstance(hours, (int, float)) else '')}</td>"
                     f"<td>{_grade_cell(record['grade'], record.get('level'))}</td>"
                     f"<td>{escape('; '.join(_finding_text(r) for r in record['reasons']))}</td>"
-                    f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td></tr>")
+                    + (f"<td class='when'>{_ruleset_label(_graded_by(record))}</td>" if several else "")
+                    + f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td></tr>")
     if not rows:
         return ""
     return ("<h4>Earlier flagged samples, and any graded on less than their rules</h4><table class='grid earlier'><thead><tr><th>sampled</th><th>sample</th>"
-            "<th class='n'>oil h</th><th>grade</th><th>findings (rule, grade: value)</th><th>caveats</th></tr>"
+            "<th class='n'>oil h</th><th>grade</th><th>findings (rule, grade: value, limit)</th>"
+            + ("<th>graded under</th>" if several else "") + "<th>caveats</th></tr>"
             "</thead><tbody>" + "".join(rows) + "</tbody></table>")
 
 
@@ -838,7 +845,7 @@ def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
                  "keeps its id as written</p>" if len(view.spellings) > 1 else ""))
     figures = "".join(f"<figure>{render_plot(p)}"
                       + (f"<figcaption>{escape(p.note)}</figcaption>" if p.note else "") + "</figure>" for p in plots)
-    earlier = _earlier(view.samples[:-1], ladder)
+    earlier = _earlier(view.samples[:-1], ladder, len(view.graded_by) > 1)
     if len(view.graded_by) > 1:
         earlier = ("<p class='muted graded-by'>This unit's samples were graded under "
                    f"{len(view.graded_by)} rule sets ("

@@ -204,3 +204,16 @@ def test_report_from_the_ledger_counts_and_lists_the_rejected_rows_it_recorded(s
     assert "<b>2</b>rejected rows" in one.read_text()
     assert run_cli("report", "--db", db, "--batch", "3", "--out", one).code == 0
     assert "<b>0</b>rejected rows" in one.read_text()  # batch 3 rejected nothing: counted, not "not given"
+
+
+def test_report_names_the_limit_and_rule_set_of_each_earlier_finding_when_the_limits_changed(site, tmp_path):
+    db, _ = site
+    out = tmp_path / "report.html"
+    assert run_cli("report", "--db", db, "--out", out).code == 0
+    html = out.read_text()
+    card = html[html.index('id="unit-Hp-7"'):]
+    card = re.sub(r"<[^>]+>", " ", card[:card.index("</section>")])
+    card = " ".join(card.split())
+    # BW-0907-02: water 240 ppm was watch under version 1 (from 200 ppm); the plot draws version 2's 150 ppm.
+    assert "BW-0907-02 3400 watch water watch: water 240, above 200 ppm brackwater-found6 version 1" in card
+    assert "the limits drawn are those of brackwater-found6 version 2" in card
