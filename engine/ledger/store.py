@@ -28,7 +28,7 @@ import sqlite3
 import sys
 import time
 from dataclasses import dataclass, replace
-from datetime import datetime, timezone
+from datetime import date, datetime, timedelta, timezone
 from pathlib import Path
 
 import numpy as np
@@ -1008,7 +1008,9 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
     """The recorded samples that match every filter given (current versions unless `everything`).
 
     `grade_at_least` is a level; `grades` names grades exactly; `ruleset` a fingerprint prefix;
-    `version` the rule-set version as written. Dates compare as ISO text.
+    `version` the rule-set version as written. Dates compare as ISO text; `until` takes in the
+    whole day, so a sample stored with its time of day (`2026-10-05T08:30:00`) is on or before
+    2026-10-05.
     """
     if unit is not None:  # every spelling of the unit's id, as grading, history and explain take it
         unit_spellings(conn, unit)
@@ -1027,10 +1029,12 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
         params.extend(grades)
     if unit is not None:
         where.append("s.unit_id IN (SELECT value FROM temp.wanted_units)")
-    for column, value, test in (("s.sampled_on", since, ">="), ("s.sampled_on", until, "<=")):
-        if value is not None:
-            where.append(f"{column} {test} ?")
-            params.append(value)
+    if since is not None:
+        where.append("s.sampled_on >= ?")
+        params.append(since)
+    if until is not None:
+        where.append("s.sampled_on < ?")  # before the next day: its times of day included
+        params.append((date.fromisoformat(until) + timedelta(days=1)).isoformat())
     if ruleset is not None:
         where.append("b.ruleset_sha256 LIKE ?")
         params.append(ruleset.lower() + "%")

@@ -217,3 +217,19 @@ def test_report_names_the_limit_and_rule_set_of_each_earlier_finding_when_the_li
     # BW-0907-02: water 240 ppm was watch under version 1 (from 200 ppm); the plot draws version 2's 150 ppm.
     assert "BW-0907-02 3400 watch water watch: water 240, above 200 ppm brackwater-found6 version 1" in card
     assert "the limits drawn are those of brackwater-found6 version 2" in card
+
+
+@pytest.mark.parametrize("since, until", [(None, "2026-10-19"), ("2026-10-19", "2026-10-19"), ("2026-10-20", None),
+                                          ("2026-10-18", "2026-10-18"), (None, "2026-10-18")])
+def test_find_by_dates_takes_in_samples_stored_with_their_time_of_day(tmp_path, since, until):
+    """A lab that writes the time of sampling: `--until D` means sampled on D or before, at any hour
+    (the oracle reads the date part of each record's sampled_on)."""
+    db, out = tmp_path / "site.db", tmp_path / "timed.jsonl"
+    graded = run_cli("grade", HERE / "timed-2026-10-19.csv", "--rules", HERE / "rules-v2.yaml", "--db", db, "--out", out)
+    assert graded.code == 0, graded.err
+    days = {r["sample_id"]: r["sampled_on"][:10] for r in map(json.loads, out.read_text().splitlines())}
+    assert days["BW-1019-02"] == "2026-10-19" and len(days) == 4
+    expected = sorted(sid for sid, day in days.items() if (since is None or day >= since)
+                      and (until is None or day <= until))
+    options = (("--since", since) if since else ()) + (("--until", until) if until else ())
+    assert sorted(r["sample_id"] for r in _found(db, *options)) == expected and expected
