@@ -172,7 +172,8 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
     if len(versions) > 1:
         older = [v for v in versions if v is not current]
         lines.append(f"This is the current record; {len(older)} earlier version(s) were corrected: " + "; ".join(
-            f"batch {v['batch']} ({v['recorded_at']}, {v['source']}) graded {v['grade']}" for v in older) + ".")
+            f"batch {v['batch']} ({v['recorded_at']}, {v['source']}) graded {v['grade']}{_changed(v, current)}"
+            for v in older) + ".")
     if unit is not None and len(unit):
         mine = unit.index[unit["entry"] == current["entry"]]
         upto = int(mine[0]) + 1 if len(mine) else len(unit)
@@ -187,6 +188,19 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
                      f"this rule set.", ""]
         told += explain_lines(regraded, other.grades)
     return told
+
+
+def _changed(older: dict, current: dict) -> str:
+    """What an earlier version of a sample held that the current one does not: the values the
+    correction changed, each with the current value."""
+    was, now = _sample(older["content"]), _sample(current["content"])
+    changed = [f"{name} {_shown(was.get(name))} (now {_shown(now.get(name))})"
+               for name in dict.fromkeys([*was, *now]) if was.get(name) != now.get(name)]
+    return ", with " + ", ".join(changed) if changed else ", with the same values"
+
+
+def _shown(value) -> str:
+    return "(none)" if value is None else _number(value)
 
 
 def _regrade_one(conn, entry: dict, ruleset: RuleSet) -> SampleResult:
