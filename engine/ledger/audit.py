@@ -33,7 +33,7 @@ from sumpwise.ledger.store import (STORED_VALUES, LedgerError, batch_entries, ba
                                    batch_rejects, digest_columns, current_contents, current_verdicts, find_entries, frame_from_arrays,
                                    frame_from_contents, history_frame, object_text, open_ledger, reads_ledger,
                                    measures_of, ruleset_text, sample_entries, stored_rulesets, unit_entries,
-                                   unit_spellings)
+                                   unit_spellings, version_text)
 from sumpwise.render.jsonl import dumps
 from sumpwise.version import engine_name
 from sumpwise.render.narrative import explain_lines, forecast_lines, wrapper
@@ -230,6 +230,8 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
         canonical = conn.execute("SELECT canonical FROM rulesets WHERE sha256 = ?",
                                  (unit["ruleset_sha256"].iloc[-1] if len(unit) else "",)).fetchone()
         canonical = canonical[0] if canonical else ""
+        names = {sha: f"{rid}@{version_text(version)}" for sha, rid, version in
+                 conn.execute("SELECT sha256, ruleset_id, version FROM rulesets").fetchall()}
     finally:
         conn.close()
     if not len(unit):
@@ -241,8 +243,9 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
     unit["caveats"] = [";".join(c["caveat"] for c in shape["caveats"]) for shape in shapes]
     unit["corrected"] = unit["corrects"].notna()
     unit["oil_changed"] = unit["oil_changed"].astype(bool)
+    unit["ruleset"] = unit["ruleset_sha256"].map(names)  # which rule set, in which version, graded each sample
     return unit[["sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40", "an", "oxidation",
-                 "water", *extra, "grade", "level", "fired", "caveats", "corrected"]].reset_index(drop=True)
+                 "water", *extra, "grade", "level", "fired", "caveats", "corrected", "ruleset"]].reset_index(drop=True)
 
 
 @reads_ledger
@@ -280,8 +283,10 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", 
         extra = tuple(unit.columns[unit.columns.get_loc("water") + 1:unit.columns.get_loc("grade")])
         lines = [f"Unit {unit_id}: {len(unit)} sample(s) in the ledger", *trend_table(unit, extra)]
         fired = unit[unit["fired"] != ""]
+        several = unit["ruleset"].nunique() > 1  # the limits changed over the unit's samples: say whose fired
         for row in fired.itertuples():
             lines.append(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
+                         + (f" (rule set {row.ruleset})" if several else "")
                          + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else ""))
         if ruleset is not None:
             told = forecast_lines(forecasts)

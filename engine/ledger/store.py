@@ -991,14 +991,14 @@ def ruleset_text(conn: sqlite3.Connection, selector: str) -> list[tuple[str, str
         ruleset_id, version = selector.rsplit("@", 1)
         rows = conn.execute("SELECT sha256, canonical, version FROM rulesets WHERE ruleset_id = ?",
                             (ruleset_id,)).fetchall()
-        return [(sha, text) for sha, text, stored in rows if _version_text(stored) == version]
+        return [(sha, text) for sha, text, stored in rows if version_text(stored) == version]
     if re.fullmatch(r"[0-9a-fA-F]{8,64}", selector):
         return conn.execute("SELECT sha256, canonical FROM rulesets WHERE sha256 LIKE ?",
                             (selector.lower() + "%",)).fetchall()
     return []
 
 
-def _version_text(stored: str) -> str:
+def version_text(stored: str) -> str:
     value = json.loads(stored)
     return value if isinstance(value, str) else json.dumps(value)
 
@@ -1046,7 +1046,7 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
         f"{'WHERE ' + ' AND '.join(where) if where else ''} ORDER BY s.sampled_on, s.unit_id, s.entry",
         params).fetchall()
     frame = pd.DataFrame(rows, columns=names)
-    frame["version"] = [_version_text(v) for v in frame["version"]]
+    frame["version"] = [version_text(v) for v in frame["version"]]
     if version is not None:
         frame = frame[frame["version"] == version].reset_index(drop=True)
     return frame
@@ -1062,7 +1062,7 @@ def _unknown_filter(conn: sqlite3.Connection, rule, grades, grade_at_least, rule
     known = {"rule": {}, "grade": {}, "version": {}}  # dicts: ladder and recording order kept
     top = None  # the highest ladder level of any stored rule set
     for _, stored_version, canonical in stored:
-        known["version"][_version_text(stored_version)] = None
+        known["version"][version_text(stored_version)] = None
         try:
             text = json.loads(canonical)
         except ValueError:  # a damaged rule set: replay reports it; its names are not known here

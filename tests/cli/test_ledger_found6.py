@@ -234,3 +234,17 @@ def test_find_by_dates_takes_in_samples_stored_with_their_time_of_day(tmp_path, 
                       and (until is None or day <= until))
     options = (("--since", since) if since else ()) + (("--until", until) if until else ())
     assert sorted(r["sample_id"] for r in _found(db, *options)) == expected and expected
+
+
+def test_history_names_the_rule_set_version_that_graded_each_sample(site):
+    db, records = site
+    oracle = _current(records)
+    mine = oracle[oracle["unit_id"].str.casefold() == "hp-7"].set_index("sample_id")
+    listed = run_cli("history", "hp-7", "--db", db, "--format", "csv")
+    frame = pd.read_csv(io.StringIO(listed.out), dtype={"ruleset": str})
+    assert dict(zip(frame["sample_id"], frame["ruleset"])) == {
+        sid: f"brackwater-found6@{v}" for sid, v in mine["version"].items()}
+    table = run_cli("history", "HP-7", "--db", db)
+    # BW-0907-02, water 240 ppm: watch under version 1 (from 200 ppm); the unit's later samples under version 2.
+    assert "BW-0907-02: water=watch (rule set brackwater-found6@1)" in table.out
+    assert all(line in " ".join(table.out.split()) for line in CAUTIONS)
