@@ -248,3 +248,12 @@ def test_history_names_the_rule_set_version_that_graded_each_sample(site):
     # BW-0907-02, water 240 ppm: watch under version 1 (from 200 ppm); the unit's later samples under version 2.
     assert "BW-0907-02: water=watch (rule set brackwater-found6@1)" in table.out
     assert all(line in " ".join(table.out.split()) for line in CAUTIONS)
+
+
+def test_find_all_versions_lists_every_record_written_with_the_superseded_marked(site):
+    db, records = site
+    found = _found(db, "--all-versions", "--unit", "HP-4")
+    every = [r for r in records if r["unit_id"].strip().casefold() == "hp-4"]
+    assert sorted((r["sample_id"], r["grade"]) for r in found) == sorted((r["sample_id"], r["grade"]) for r in every)
+    superseded = [(r["sample_id"], r["batch"], r["superseded_in"]) for r in found if r["superseded_in"] is not None]
+    assert superseded == [("BW-1005-01", 3, 5)]  # the correction (batch 5) replaced batch 3's version
