@@ -10,7 +10,7 @@ from pathlib import Path
 from sumpwise.cli.exit_codes import OK
 from sumpwise.derive.trends import unit_id_key
 from sumpwise.cli.options import batch_number, output_file, refuse_overwriting
-from sumpwise.ledger.audit import recorded_rejects, stored_results, unit_forecasts
+from sumpwise.ledger.audit import corrected_later, recorded_rejects, stored_results, unit_forecasts
 from sumpwise.render.jsonl import dumps
 from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import COMPACT, next_step_record
@@ -106,8 +106,9 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
     rejected = parse_rejects(_text(rejects), str(rejects)) if rejects else ()
     if db is not None and rejects is None:  # the ledger recorded its batches' rejected rows: count and list them
         rejected = ledger_rejects(db, batch)
+    corrected = corrected_later(db, batch) if db is not None and batch is not None else ()
     html = render_report(records, rejected, ruleset, title=title or "",
-                         rejects_given=rejects is not None or db is not None, rulesets=rulesets)
+                         rejects_given=rejects is not None or db is not None, rulesets=rulesets, corrected=corrected)
     Path(out).write_text(html, encoding="utf-8")
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
     return {"records": len(records), "flagged": flagged, "rejected": len(rejected), "bytes": len(html.encode())}

@@ -790,6 +790,18 @@ def stored_results(path, batch: int | None = None) -> tuple[list[SampleResult], 
 
 
 @reads_ledger
+def corrected_later(path, batch: int) -> list[tuple]:
+    """(sample id, the batch that corrected it, its author, its reason) of each sample `batch`
+    recorded that a later batch corrected: a report of that batch shows the replaced version."""
+    conn = _reader(path)
+    try:
+        return conn.execute("SELECT s.sample_id, s.superseded_in, b.author, b.reason FROM samples s JOIN batches b "
+                            "ON b.batch = s.superseded_in WHERE s.batch = ? ORDER BY s.entry", (batch,)).fetchall()
+    finally:
+        conn.close()
+
+
+@reads_ledger
 def stored_records(path, batch: int | None = None) -> list[str]:
     """The ledger's current result records (or one batch's) as self-contained JSON Lines text."""
     results, _ = stored_results(path, batch)

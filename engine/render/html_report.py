@@ -877,13 +877,15 @@ def _plot_key(ruleset: RuleSet | None) -> str:
 
 
 def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: str = "",
-                  rejects_given: bool = True, rulesets: dict | None = None) -> str:
+                  rejects_given: bool = True, rulesets: dict | None = None, corrected=()) -> str:
     """The whole report as one HTML document; `records` are result records as `grade` writes them.
 
     The engine's forecasts of when a unit's charge reaches a limit are those the records carry
     (recorded_forecasts); each is drawn on its unit's plot and listed in its card.
     Records graded under several rule sets need `rulesets`, every one of them by fingerprint
     (as a ledger hands them over); each unit is then drawn against its latest sample's own.
+    `corrected`: (sample id, batch, author, reason) of records a later batch corrected (a report
+    of one ledger batch shows what that batch recorded), named at the top.
     """
     if not records:
         raise InputError("a report needs at least one result record")
@@ -925,6 +927,11 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
                + ". Each unit's limits are those of the rule set that graded its latest sample.</p>"]
               if len(graded_by) > 1 else []),
             cautions, f'<p class="notice">Notice of the rule set: {escape(notice)}</p>',
+            *(["<p class='warn corrected'><b>Corrected since:</b> " + str(len(corrected)) + " sample(s) shown as "
+               "this batch recorded them were corrected by a later batch; their current results differ: "
+               + "; ".join(f"{escape(sid)} (batch {number}, by {escape(author or '(no author recorded)')}: "
+                           f"{escape(reason or '(no reason recorded)')})" for sid, number, author, reason in corrected)
+               + "</p>"] if corrected else []),
             "<h2>The batch</h2>", _legend(ladder), _summary(records, rejects, ladder, rejects_given),
             "<h2>Units needing attention first</h2>", _attention(views, ladder),
             "<h2>Units: latest findings, what to do, trends</h2>",

@@ -257,3 +257,15 @@ def test_find_all_versions_lists_every_record_written_with_the_superseded_marked
     assert sorted((r["sample_id"], r["grade"]) for r in found) == sorted((r["sample_id"], r["grade"]) for r in every)
     superseded = [(r["sample_id"], r["batch"], r["superseded_in"]) for r in found if r["superseded_in"] is not None]
     assert superseded == [("BW-1005-01", 3, 5)]  # the correction (batch 5) replaced batch 3's version
+
+
+def test_report_of_one_batch_says_which_of_its_samples_were_corrected_since(site, tmp_path):
+    db, _ = site
+    out = tmp_path / "batch3.html"
+    assert run_cli("report", "--db", db, "--batch", "3", "--out", out).code == 0
+    text = " ".join(re.sub(r"<[^>]+>", " ", out.read_text()).split())
+    assert "Corrected since: 1 sample(s)" in text and f"BW-1005-01 (batch 5, by {AUTHOR}: {REASON})" in text
+    assert run_cli("report", "--db", db, "--batch", "4", "--out", out).code == 0
+    assert "Corrected since" not in out.read_text()
+    assert run_cli("report", "--db", db, "--out", out).code == 0  # the current results: nothing replaced
+    assert "Corrected since" not in out.read_text()
