@@ -184,9 +184,10 @@ def run_rulesets(args, stdout, stderr) -> int:
     if args.ruleset is None:
         if args.out:
             raise InputError("sumpwise rulesets: --out needs a FINGERPRINT or ID@VERSION")
-        stdout.write(f"{'sha256':<16}  {'id':<24} {'version':>8} {'batches':>8} {'samples':>8}  first recorded\n")
-        lines = [f"{r['sha256'][:16]}  {r['id']:<24} {r['version']:>8} {r['batches']:>8} {r['samples']:>8}  "
-                 f"{r['first'] or '-'}" for r in ledger_rulesets(args.db)]
+        stdout.write(f"{'sha256':<16}  {'id':<24} {'version':>8} {'batches':>8} {'samples':>8} {'current':>8}  "
+                     f"first recorded\n")
+        lines = [f"{r['sha256'][:16]}  {r['id']:<24} {r['version']:>8} {r['batches']:>8} {r['samples']:>8} "
+                 f"{r['current']:>8}  {r['first'] or '-'}" for r in ledger_rulesets(args.db)]
         stdout.write("".join(line + "\n" for line in terminal_lines(lines)))
         return OK
     refuse_overwriting([("--out", args.out)], [("the ledger --db", args.db)])

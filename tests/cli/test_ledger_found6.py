@@ -269,3 +269,16 @@ def test_report_of_one_batch_says_which_of_its_samples_were_corrected_since(site
     assert "Corrected since" not in out.read_text()
     assert run_cli("report", "--db", db, "--out", out).code == 0  # the current results: nothing replaced
     assert "Corrected since" not in out.read_text()
+
+
+def test_rulesets_count_the_samples_each_recorded_and_those_still_current(site):
+    db, records = site
+    listed = run_cli("rulesets", "--db", db)
+    assert listed.code == 0 and listed.out.splitlines()[0].split()[:6] == ["sha256", "id", "version", "batches",
+                                                                           "samples", "current"]
+    rows = {r[2]: (int(r[4]), int(r[5])) for r in (line.split() for line in listed.out.splitlines()[1:])}
+    written = pd.DataFrame([{"version": str(r["ruleset"]["version"])} for r in records])["version"].value_counts()
+    current = _current(records)["version"].value_counts()
+    # Version 2 recorded BW-1005-01 twice (batch 3, then its correction): 7 recorded, 6 current.
+    assert rows == {v: (int(written[v]), int(current[v])) for v in ("1", "2")} == {"1": (6, 6), "2": (7, 6)}
+    assert sum(c for _, c in rows.values()) == len(_found(db))
