@@ -120,8 +120,9 @@ def ledger_rejects(db, batch: int | None = None) -> tuple:
     found = recorded_rejects(db)
     if batch is not None:
         found = found[found["batch"] == batch]
-    return tuple({"file": f"batch {r.batch}: {r.source}", "row": "" if r.row is None else str(r.row),
-                  "sample_id": r.sample_id or "", "field": r.field, "reason": r.reason}
+    found = found.astype(object).where(found.notna(), None)  # a reject of no row or no sample id: None, not NaN
+    return tuple({"file": f"batch {r.batch}: {r.source}", "row": "" if r.row is None else str(int(r.row)),
+                  "sample_id": r.sample_id or "", "field": str(r.field), "reason": str(r.reason)}
                  for r in found.itertuples(index=False))
 
 

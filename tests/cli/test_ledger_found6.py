@@ -282,3 +282,16 @@ def test_rulesets_count_the_samples_each_recorded_and_those_still_current(site):
     # Version 2 recorded BW-1005-01 twice (batch 3, then its correction): 7 recorded, 6 current.
     assert rows == {v: (int(written[v]), int(current[v])) for v in ("1", "2")} == {"1": (6, 6), "2": (7, 6)}
     assert sum(c for _, c in rows.values()) == len(_found(db))
+
+
+def test_report_from_the_ledger_lists_a_rejected_row_that_had_no_sample_id(tmp_path):
+    db, out = tmp_path / "site.db", tmp_path / "report.html"
+    graded = run_cli("grade", HERE / "no-id-2026-10-26.csv", "--rules", HERE / "rules-v2.yaml", "--db", db,
+                     "--out", tmp_path / "r.jsonl", "--rejects", tmp_path / "rejects.csv")
+    assert graded.code == 0, graded.err
+    listed = [json.loads(line) for line in run_cli("find", "--db", db, "--rejects", "--format", "jsonl").out.splitlines()]
+    assert [(r["sample_id"], r["row"], r["field"]) for r in listed] == [(None, 2, "sample_id")]
+    made = run_cli("report", "--db", db, "--out", out)
+    assert made.code == 0 and "1 rejected row(s)" in made.err, made.err
+    table = out.read_text()[out.read_text().index("<h2>Rejected rows"):]
+    assert "<td>2</td><td></td><td>sample_id</td>" in table and "no-id-2026-10-26.csv" in table
