@@ -245,7 +245,8 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
     unit["oil_changed"] = unit["oil_changed"].astype(bool)
     unit["ruleset"] = unit["ruleset_sha256"].map(names)  # which rule set, in which version, graded each sample
     return unit[["sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40", "an", "oxidation",
-                 "water", *extra, "grade", "level", "fired", "caveats", "corrected", "ruleset"]].reset_index(drop=True)
+                 "water", *extra, "grade", "level", "fired", "caveats", "corrected", "ruleset",
+                 "unit_id"]].reset_index(drop=True)
 
 
 @reads_ledger
@@ -281,7 +282,9 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", 
         stream.write(unit.to_json(orient="records", lines=True, force_ascii=False))
     else:
         extra = tuple(unit.columns[unit.columns.get_loc("water") + 1:unit.columns.get_loc("grade")])
-        lines = [f"Unit {unit_id}: {len(unit)} sample(s) in the ledger", *trend_table(unit, extra)]
+        spellings = list(dict.fromkeys(unit["unit_id"]))  # as the lab wrote the id, one unit as grading takes it
+        written = f" (written {', '.join(repr(u) for u in spellings)})" if spellings != [unit_id] else ""
+        lines = [f"Unit {unit_id}{written}: {len(unit)} sample(s) in the ledger", *trend_table(unit, extra)]
         fired = unit[unit["fired"] != ""]
         several = unit["ruleset"].nunique() > 1  # the limits changed over the unit's samples: say whose fired
         for row in fired.itertuples():

@@ -834,7 +834,7 @@ def digest_columns(conn: sqlite3.Connection, query: str, batch: int) -> list[lis
 
 # -- reading the ledger back ---------------------------------------------------------------------
 
-_UNIT_COLUMNS = ("entry", "batch", "sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40",
+_UNIT_COLUMNS = ("entry", "batch", "sample_id", "unit_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40",
                  "an", "oxidation", "water", "corrects")
 # A sample's verdict where its batch's form keeps it: its own row (form 3) or `verdicts`.
 _GRADE, _LEVEL, _SHAPE, _VALS = (f"(CASE WHEN b.form >= 3 THEN s.{name} ELSE v.{name} END)"

@@ -247,6 +247,8 @@ def test_history_names_the_rule_set_version_that_graded_each_sample(site):
     table = run_cli("history", "HP-7", "--db", db)
     # BW-0907-02, water 240 ppm: watch under version 1 (from 200 ppm); the unit's later samples under version 2.
     assert "BW-0907-02: water=watch (rule set brackwater-found6@1)" in table.out
+    assert table.out.startswith("Unit HP-7 (written 'HP-7', 'Hp-7'): 3 sample(s) in the ledger")
+    assert dict(zip(frame["sample_id"], frame["unit_id"])) == dict(zip(mine.index, mine["unit_id"]))  # as written
     assert all(line in " ".join(table.out.split()) for line in CAUTIONS)
 
 
