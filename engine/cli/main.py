@@ -260,12 +260,14 @@ INPUT_SUFFIXES = (".csv", ".jsonl", ".ndjson", ".json", ".xlsx", ".txt")
 
 
 def _sources(items) -> list:
-    """Files in the order given; a folder gives its sample files in name order."""
+    """Files in the order given; a folder gives its sample files in name order, every entry with a
+    samples name but a folder's: a link to a missing file or a pipe is one of the run's files that
+    cannot be read (_unreadable), never left out without a word."""
     found = []
     for item in items:
         path = Path(item)
         if item != "-" and path.is_dir():
-            inside = sorted(p for p in path.iterdir() if p.is_file() and p.suffix.lower() in INPUT_SUFFIXES)
+            inside = sorted(p for p in path.iterdir() if not p.is_dir() and p.suffix.lower() in INPUT_SUFFIXES)
             if not inside:
                 raise InputError(f"{item}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
             found.extend(str(p) for p in inside)
@@ -274,6 +276,17 @@ def _sources(items) -> list:
     if found.count("-") > 1:
         raise UsageError("sumpwise grade: standard input (-) can be read once")
     return found
+
+
+def _unreadable(source: str, listed: bool) -> None:
+    """Refuse a folder's entry that is no regular file before it is opened: a link to a missing file
+    (a share not mounted, a transfer not landed), or a pipe or device, whose read could wait forever."""
+    path = Path(source)
+    if not listed or path.is_file():
+        return
+    if path.is_symlink() and not path.exists():
+        raise InputError(f"{source}: a link to {os.readlink(path)}, which does not exist: nothing read")
+    raise InputError(f"{source}: not a regular file (a pipe, socket or device): not read")
 
 
 def _write_rejects(batch, path, stderr) -> None:
@@ -331,13 +344,14 @@ def _grade(args, stdin, stdout, stderr) -> int:
             raise UsageError(f"sumpwise grade: --fail-on-caveat {caveat!r} is no caveat of the rule set or the engine"
                              + (f"; did you mean {close[0]!r}?" if close else ""))
     sources = _sources(args.samples)
+    listed = set(sources) - set(args.samples)  # found in a folder, not named on the command line
     refuse_overwriting([("--out", args.out), ("--rejects", args.rejects), ("--summary", args.summary)],
                        [("the samples file", source) for source in sources]
                        + [("the rule set", path) for path in ruleset.files] + [("--columns", args.columns)]
                        + [("the reference spectrum", path) for path in
                           reference_files(ruleset, parse_references(args.reference)).values()]
                        + [("the ledger --db", args.db)])
-    files, found_grade, found_unrated, conflicts = [], False, False, 0
+    files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
     with contextlib.ExitStack() as stack:
         out = _opened(stack, args.out, "--out") if args.out else stdout
@@ -348,11 +362,12 @@ def _grade(args, stdin, stdout, stderr) -> int:
         for source in sources:
             tally = _Tally(ruleset, "<stdin>" if source == "-" else str(source))
             try:
+                _unreadable(source, source in listed)
                 for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
                                                                                    columns, stderr):
                     conflicts += refused
                     tally.warnings.extend(warned)
-                    found_grade |= any(level >= fail for level in regraded for fail in fail_levels)
+                    reached.update(fail for fail in fail_levels if any(level >= fail for level in regraded))
                     for note in notes:
                         stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
                     records.write(graded, header=first)
@@ -362,7 +377,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                     if repeated is not None and "sample_id" in graded.measured:
                         repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
                     levels = graded.outcome.level
-                    found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
+                    reached.update(level for level in fail_levels if bool((levels >= level).any()))
                     found_unrated |= bool((levels < 0).any())
                     graded = levels = None  # before the next chunk is graded
             except LedgerError:
@@ -391,18 +406,32 @@ def _grade(args, stdin, stdout, stderr) -> int:
     for caveat in caveated:
         stderr.write(terminal_text(f"sumpwise: --fail-on-caveat {caveat}: "
                                    f"{sum(f['caveats'].get(caveat, 0) for f in files)} sample(s) carry it") + "\n")
-    if fail_levels and found_grade or fail_unrated and found_unrated or conflicts or caveated:
+    for level in sorted(reached):
+        name = ruleset.grades[level]
+        at = sum(f["grades"][g] for f in files for g in ruleset.grades[level:])
+        stderr.write(f"sumpwise: --fail-at {name}: {at} sample(s) at {name} or higher\n" if at else
+                     f"sumpwise: --fail-at {name}: reached by a recorded sample a late result regraded (warnings)\n")
+    if fail_unrated and found_unrated:
+        stderr.write(f"sumpwise: --fail-at unrated: {total['unrated']} sample(s) unrated\n")
+    findings = {"fail_at": [ruleset.grades[level] for level in sorted(reached)]
+                + ([UNRATED] if fail_unrated and found_unrated else []),
+                "fail_on_caveat": caveated, "ledger_conflicts": conflicts}
+    if findings["fail_at"] or conflicts or caveated:
         code = FINDINGS
     failed = [f["file"] for f in files if f["error"] is not None]
     if failed:
         stderr.write(terminal_text(f"sumpwise: {len(failed)} of {len(files)} file(s) could not be read to the end: "
                                    f"{', '.join(failed)}") + "\n")
         code = USAGE
-    if args.max_rejects is not None and total["rejected"] > args.max_rejects:
+    too_many = args.max_rejects is not None and total["rejected"] > args.max_rejects
+    if too_many:
         stderr.write(f"sumpwise: {total['rejected']} row(s) rejected, more than --max-rejects {args.max_rejects}\n")
         code = USAGE
+    if code == USAGE and (findings["fail_at"] or conflicts or caveated):  # exit 2 must not hide them
+        stderr.write("sumpwise: exit 2 (input) outranks exit 3 (findings), and the findings above were reached too\n")
     if args.summary:
-        report = {"files": files, "total": total, "warnings": warnings, "exit": code}
+        report = {"files": files, "total": total, "warnings": warnings, "findings": findings,
+                  "failed_files": failed, "max_rejects_exceeded": too_many, "exit": code}
         try:
             with open(args.summary, "w", encoding="utf-8") as handle:
                 handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")

@@ -45,3 +45,88 @@ def test_the_table_puts_the_trend_caveats_that_may_hide_a_finding_first():
     assert "1 sample(s) with caveat oil-change-untold" in err
     assert "unit-id-spelling" in lines["BP-7102"]  # hpu-7 beside HPU-7: one unit, graded on all it has,
     assert "caveat unit-id-spelling" not in err    # so not a caveat that may hide a finding
+
+
+def _night_folder(tmp_path):
+    """A night's landing folder: every kind of file a lab transfer leaves there."""
+    night = tmp_path / "incoming"
+    night.mkdir()
+    (night / "a-monday.csv").write_bytes((HERE / "monday.csv").read_bytes())
+    (night / "b-tuesday.csv").write_bytes((HERE / "tuesday-report.csv").read_bytes())  # a PDF saved as .csv
+    (night / "c-empty.csv").write_bytes(b"")  # a transfer that wrote nothing
+    (night / "d-header-only.csv").write_text(SAMPLES.read_text().splitlines()[0] + "\n")  # a day with no samples
+    (night / "e-wednesday.csv").write_bytes(b"\xef\xbb\xbf" + (HERE / "wednesday.csv").read_bytes())  # a BOM
+    openpyxl = __import__("openpyxl")
+    book = openpyxl.Workbook()
+    for row in csv.reader(io.StringIO((HERE / "hpu-week.csv").read_text())):
+        book.active.append([float(c) if c.replace(".", "").isdigit() and "-" not in c else c for c in row])
+    book.save(night / "f-friday.xlsx")
+    (night / "g-saturday.csv").symlink_to(tmp_path / "share" / "saturday.csv")  # a share not mounted
+    return night
+
+
+def test_a_night_folder_counts_every_row_once_and_names_every_file_that_failed(tmp_path):
+    night = _night_folder(tmp_path)
+    out, rejects, summary = tmp_path / "results.jsonl", tmp_path / "rejects.csv", tmp_path / "summary.json"
+    done = sumpwise("grade", night, "--rules", SITE, "--record", "compact", "--fail-at", "urgent", "--out", out,
+                    "--rejects", rejects, "--summary", summary)
+    assert done.returncode == 2, done.stderr.decode()
+    report = json.loads(summary.read_text())
+    name = {f"{night / n}": n for n in ("a-monday.csv", "b-tuesday.csv", "c-empty.csv", "d-header-only.csv",
+                                        "e-wednesday.csv", "f-friday.xlsx", "g-saturday.csv")}
+    counts = {name[f["file"]]: (f["read"], f["graded"], f["unrated"], f["rejected"], f["error"] is None)
+              for f in report["files"]}
+    assert counts == {"a-monday.csv": (82, 80, 1, 1, True), "b-tuesday.csv": (0, 0, 0, 0, False),
+                      "c-empty.csv": (0, 0, 0, 0, False), "d-header-only.csv": (0, 0, 0, 0, True),
+                      "e-wednesday.csv": (31, 31, 0, 0, True), "f-friday.xlsx": (8, 8, 0, 0, True),
+                      "g-saturday.csv": (0, 0, 0, 0, False)}  # the broken link was left out without a word
+    for key in ("read", "graded", "unrated", "rejected"):
+        assert report["total"][key] == sum(f[key] for f in report["files"])
+    assert report["total"]["read"] == sum(report["total"][k] for k in ("graded", "unrated", "rejected"))
+    records = [json.loads(line) for line in out.read_text().splitlines()]
+    for f in report["files"]:  # each file's graded and unrated rows are its records, once
+        assert sum(r["origin"]["file"] == f["file"] for r in records) == f["graded"] + f["unrated"]
+    with open(rejects, newline="", encoding="utf-8") as handle:
+        rows = list(csv.DictReader(handle))
+    assert len(rows) == report["total"]["rejected"] == 1
+    assert (rows[0]["file"], rows[0]["row"], rows[0]["field"], rows[0]["code"]) == (
+        str(night / "a-monday.csv"), "42", "sample_id", "D002")
+    assert [name[f] for f in report["failed_files"]] == ["b-tuesday.csv", "c-empty.csv", "g-saturday.csv"]
+    assert report["findings"]["fail_at"] == ["urgent"]  # Monday's urgent samples, under the exit 2
+    assert report["exit"] == 2
+    err = done.stderr.decode()
+    assert "g-saturday.csv: a link to" in err and "which does not exist" in err
+    assert "--fail-at urgent: 5 sample(s) at urgent or higher" in err  # 2 on Monday, 3 on Wednesday
+
+
+# Monday: 2 urgent, 1 unrated (an unknown class), 1 row rejected; the report saved as .csv fails after it.
+# The documented codes (README, Exit codes): 3 a finding, 2 an input failure or --max-rejects exceeded,
+# 2 outranking 3, and --summary keeping the findings either way.
+EXIT_CASES = [
+    ([], False, 0, []),
+    (["--fail-at", "urgent"], False, 3, ["urgent"]),
+    (["--fail-at", "urgent"], True, 2, ["urgent"]),
+    (["--fail-at", "alert", "--fail-at", "unrated"], False, 3, ["alert", "unrated"]),
+    (["--fail-on-caveat", "unknown-class"], True, 2, []),
+    (["--fail-on-caveat", "unknown-lubricant"], False, 0, []),
+    (["--max-rejects", "1", "--fail-at", "urgent"], False, 3, ["urgent"]),
+    (["--max-rejects", "0", "--fail-at", "urgent"], False, 2, ["urgent"]),
+    (["--max-rejects", "0"], True, 2, []),
+]
+
+
+def test_exit_codes_in_every_combination_and_the_summary_keeps_the_findings(tmp_path):
+    for options, later_fails, code, reached in EXIT_CASES:
+        files = [HERE / "monday.csv"] + ([HERE / "tuesday-report.csv"] if later_fails else [])
+        summary = tmp_path / "summary.json"
+        done = sumpwise("grade", *files, "--rules", SITE, "--out", tmp_path / "out.jsonl", "--summary", summary,
+                        *options)
+        report = json.loads(summary.read_text())
+        assert (done.returncode, report["exit"]) == (code, code), (options, later_fails, done.stderr.decode())
+        assert report["findings"]["fail_at"] == reached, options
+        caveats = report["findings"]["fail_on_caveat"]
+        assert caveats == (["unknown-class"] if "unknown-class" in options else []), options
+        assert report["failed_files"] == ([str(HERE / "tuesday-report.csv")] if later_fails else [])
+        assert report["max_rejects_exceeded"] is ("0" in options)
+        if code == 2 and (reached or caveats):
+            assert "exit 2 (input) outranks exit 3 (findings)" in done.stderr.decode()
