@@ -353,43 +353,58 @@ def _grade(args, stdin, stdout, stderr) -> int:
                        + [("the ledger --db", args.db)])
     files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
-    with contextlib.ExitStack() as stack:
-        out = _opened(stack, args.out, "--out") if args.out else stdout
-        rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
-        records = stack.enter_context(RecordOutput(out, _utf8_bytes_under(out, own=bool(args.out)), args.format,
-                                                   args.record, stderr, args.jobs))
-        first = True
-        for source in sources:
-            tally = _Tally(ruleset, "<stdin>" if source == "-" else str(source))
-            try:
-                _unreadable(source, source in listed)
-                for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
-                                                                                   columns, stderr):
-                    conflicts += refused
-                    tally.warnings.extend(warned)
-                    reached.update(fail for fail in fail_levels if any(level >= fail for level in regraded))
-                    for note in notes:
-                        stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
-                    records.write(graded, header=first)
-                    _put_rejects(graded, rejects, args.rejects, header=first)
-                    first = False
-                    tally.add(graded, notes)
-                    if repeated is not None and "sample_id" in graded.measured:
-                        repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
-                    levels = graded.outcome.level
-                    reached.update(level for level in fail_levels if bool((levels >= level).any()))
-                    found_unrated |= bool((levels < 0).any())
-                    graded = levels = None  # before the next chunk is graded
-            except LedgerError:
-                raise  # the ledger or the rule set refused: every file would meet it
-            except InputError as exc:  # this file cannot be read (on): the next files are graded all the same
-                records.settle()  # what it gave before is written, as it was
-                stderr.write(_safe_lines(f"sumpwise: {exc}"))
-                tally.error = str(exc)
-            records.settle()  # the file's records are all out before its summary line
-            stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, tally.error is not None))
+    out_name = f"--out {args.out}" if args.out else "standard output"
+    tally, stopped = None, None  # stopped: why the output could not be written, and the run stopped there
+    try:
+        with contextlib.ExitStack() as stack:
+            out = _opened(stack, args.out, "--out") if args.out else stdout
+            rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
+            records = stack.enter_context(RecordOutput(out, _utf8_bytes_under(out, own=bool(args.out)), args.format,
+                                                       args.record, stderr, args.jobs))
+            first = True
+            for source in sources:
+                tally = _Tally(ruleset, "<stdin>" if source == "-" else str(source))
+                try:
+                    _unreadable(source, source in listed)
+                    for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
+                                                                                       columns, stderr):
+                        conflicts += refused
+                        tally.warnings.extend(warned)
+                        reached.update(fail for fail in fail_levels if any(level >= fail for level in regraded))
+                        for note in notes:
+                            stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
+                        with _writing(out_name):
+                            records.write(graded, header=first)
+                        with _writing(args.rejects and f"--rejects {args.rejects}"):
+                            _put_rejects(graded, rejects, args.rejects, header=first)
+                        first = False
+                        tally.add(graded, notes)
+                        if repeated is not None and "sample_id" in graded.measured:
+                            repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
+                        levels = graded.outcome.level
+                        reached.update(level for level in fail_levels if bool((levels >= level).any()))
+                        found_unrated |= bool((levels < 0).any())
+                        graded = levels = None  # before the next chunk is graded
+                except LedgerError:
+                    raise  # the ledger or the rule set refused: every file would meet it
+                except InputError as exc:  # this file cannot be read (on): the next files are graded all the same
+                    with _writing(out_name):
+                        records.settle()  # what it gave before is written, as it was
+                    stderr.write(_safe_lines(f"sumpwise: {exc}"))
+                    tally.error = str(exc)
+                with _writing(out_name):
+                    records.settle()  # the file's records are all out before its summary line
+                stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, tally.error is not None))
+                files.append(tally.summary())
+                files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
+    except (_OutputFailed, OSError) as exc:  # the output, not an input: a reader fails as InputError
+        stopped = _stopped(exc, out_name, args.out, stdout)
+        stderr.write(_safe_lines(f"sumpwise: {stopped}"))
+        if tally is not None and not (files and files[-1]["file"] == tally.source):
+            tally.error = stopped
+            stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, True))
             files.append(tally.summary())
-            files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
+            files[-1]["repeated_ids"] = None
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
     warnings = [f"{f['file']}: {f['caveats'][c]} sample(s) with caveat {c}" for f in files for c in WARNING_CAVEATS
                 if c in f["caveats"]]
@@ -419,8 +434,14 @@ def _grade(args, stdin, stdout, stderr) -> int:
     if findings["fail_at"] or conflicts or caveated:
         code = FINDINGS
     failed = [f["file"] for f in files if f["error"] is not None]
+    not_graded = sources[len(files):] if stopped else []
+    if not_graded:
+        stderr.write(terminal_text(f"sumpwise: the run stopped: {len(not_graded)} file(s) not read: "
+                                   f"{', '.join(not_graded)}") + "\n")
+    if stopped:
+        code = USAGE
     if failed:
-        stderr.write(terminal_text(f"sumpwise: {len(failed)} of {len(files)} file(s) could not be read to the end: "
+        stderr.write(terminal_text(f"sumpwise: {len(failed)} of {len(sources)} file(s) could not be read to the end: "
                                    f"{', '.join(failed)}") + "\n")
         code = USAGE
     too_many = args.max_rejects is not None and total["rejected"] > args.max_rejects
@@ -431,13 +452,64 @@ def _grade(args, stdin, stdout, stderr) -> int:
         stderr.write("sumpwise: exit 2 (input) outranks exit 3 (findings), and the findings above were reached too\n")
     if args.summary:
         report = {"files": files, "total": total, "warnings": warnings, "findings": findings,
-                  "failed_files": failed, "max_rejects_exceeded": too_many, "exit": code}
+                  "failed_files": failed, "max_rejects_exceeded": too_many, "stopped": stopped,
+                  "not_read": not_graded, "exit": code}
         try:
             with open(args.summary, "w", encoding="utf-8") as handle:
                 handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
         except OSError as exc:
             raise InputError(f"--summary {args.summary}: cannot write it: {exc.strerror or exc}") from None
     return code
+
+
+class _OutputFailed(Exception):
+    """Records or rejects could not be written: which output, and the system's error."""
+
+    def __init__(self, what: str, error: OSError):
+        super().__init__(what)
+        self.what, self.error = what, error
+
+
+@contextlib.contextmanager
+def _writing(what):
+    """Name the output an OSError (a full disk, a closed pipe) came from; `what` None: standard error."""
+    try:
+        yield
+    except OSError as exc:
+        raise _OutputFailed(what or "standard error", exc) from exc
+
+
+def _stopped(exc, out_name: str, out_path, stdout) -> str:
+    """Why the run stopped, in words; a record line cut short in the --out file is taken off, and a
+    standard output its reader closed is pointed at the null device (nothing more can reach it, and
+    Python's flush at exit would otherwise complain)."""
+    what, error = (exc.what, exc.error) if isinstance(exc, _OutputFailed) else (out_name, exc)
+    if out_path and what == out_name:
+        _cut_to_whole_lines(out_path)
+    if isinstance(error, BrokenPipeError) and what == "standard output":
+        with contextlib.suppress(OSError, ValueError, AttributeError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), stdout.fileno())
+        return "standard output was closed by its reader: the run stopped there, not every sample was graded"
+    return f"cannot write {what}: {error.strerror or error}: the run stopped there, not every sample was graded"
+
+
+def _cut_to_whole_lines(path) -> None:
+    """Take off a last line the failed write left without its line end, so every line is a whole record."""
+    with contextlib.suppress(OSError):
+        with open(path, "rb+") as handle:
+            size = handle.seek(0, os.SEEK_END)
+            keep = size
+            while keep > 0:
+                start = max(0, keep - 65536)
+                handle.seek(start)
+                block = handle.read(keep - start)
+                at = block.rfind(b"\n")
+                if at >= 0 or start == 0:
+                    keep = start + at + 1
+                    break
+                keep = start
+            if keep < size:
+                handle.truncate(keep)
 
 
 def _fail_at(args, ruleset) -> tuple[list, bool]:

@@ -130,3 +130,41 @@ def test_exit_codes_in_every_combination_and_the_summary_keeps_the_findings(tmp_
         assert report["max_rejects_exceeded"] is ("0" in options)
         if code == 2 and (reached or caveats):
             assert "exit 2 (input) outranks exit 3 (findings)" in done.stderr.decode()
+
+
+def _file_size_limit(limit: int):
+    """A disk that fills up, for one process: writes past `limit` bytes fail with EFBIG (Python
+    ignores SIGXFSZ, so the write raises OSError as ENOSPC would)."""
+    import resource
+
+    def apply():
+        resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit))
+    return apply
+
+
+def test_a_full_disk_stops_the_run_with_whole_records_and_a_summary_that_says_so(tmp_path):
+    for jobs in ("1", "2"):
+        out, summary = tmp_path / f"results-{jobs}.jsonl", tmp_path / f"summary-{jobs}.json"
+        done = subprocess.run([sys.executable, "-m", "sumpwise", "grade", str(SAMPLES), str(HERE / "monday.csv"),
+                               "--rules", str(SITE), "--chunk-rows", "100", "--jobs", jobs, "--out", str(out),
+                               "--summary", str(summary)],
+                              capture_output=True, timeout=300, preexec_fn=_file_size_limit(150_000))
+        err = done.stderr.decode()
+        assert done.returncode == 2, err
+        assert f"cannot write --out {out}: File too large" in err and "Traceback" not in err
+        written = out.read_bytes()
+        assert 0 < len(written) <= 150_000 and written.endswith(b"\n")  # no record cut short
+        records = [json.loads(line) for line in written.splitlines()]  # each line a whole record
+        assert [r["origin"]["row"] for r in records] == sorted(r["origin"]["row"] for r in records)
+        report = json.loads(summary.read_text())  # the summary is small: written after the output failed
+        assert report["exit"] == 2 and report["stopped"].startswith(f"cannot write --out {out}")
+        assert report["not_read"] == [str(HERE / "monday.csv")]
+        assert report["failed_files"] == [str(SAMPLES)]
+
+
+def test_dev_full_as_the_output_is_exit_2_naming_the_output(tmp_path):
+    done = sumpwise("grade", HERE / "monday.csv", "--rules", SITE, "--format", "csv", "--out", "/dev/full",
+                    "--summary", tmp_path / "summary.json")
+    assert done.returncode == 2
+    assert "cannot write --out /dev/full: No space left on device" in done.stderr.decode()
+    assert json.loads((tmp_path / "summary.json").read_text())["stopped"] is not None
