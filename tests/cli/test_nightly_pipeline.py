@@ -168,3 +168,31 @@ def test_dev_full_as_the_output_is_exit_2_naming_the_output(tmp_path):
     assert done.returncode == 2
     assert "cannot write --out /dev/full: No space left on device" in done.stderr.decode()
     assert json.loads((tmp_path / "summary.json").read_text())["stopped"] is not None
+
+
+def test_jobs_and_chunk_sizes_give_the_same_output_with_rejects_censored_readings_and_caveats(tmp_path):
+    """censored-week.csv: the Brackwater scenario (4 rejected rows, ester caveats, an unknown class)
+    with lab-censored cells: water `<50`, `<500` (undecided against the 100 ppm watch limit, so
+    grade-may-be-higher) and `>1000`, acid number `<0.05`. JSON Lines of --jobs 1 and 2 are the same
+    bytes at each chunk size; across chunk sizes the records differ only in `forecasts` (null in a
+    file read in more than one chunk: README, Large files); CSV and the rejects are the same bytes."""
+    week = HERE / "censored-week.csv"
+    runs = {}
+    for chunk in ("40", "1000"):
+        for jobs in ("1", "2"):
+            for fmt in ("jsonl", "csv"):
+                out, rejects = tmp_path / f"{chunk}-{jobs}.{fmt}", tmp_path / f"{chunk}-{jobs}-{fmt}-rejects.jsonl"
+                done = sumpwise("grade", week, "--rules", SITE, "--format", fmt, "--chunk-rows", chunk, "--jobs", jobs,
+                                "--out", out, "--rejects", rejects)
+                assert done.returncode == 0, done.stderr.decode()
+                runs[chunk, jobs, fmt] = (out.read_bytes(), rejects.read_bytes())
+    for chunk in ("40", "1000"):
+        assert runs[chunk, "2", "jsonl"] == runs[chunk, "1", "jsonl"]
+    assert len({runs[key] for key in runs if key[2] == "csv"}) == 1
+    assert len({runs[key][1] for key in runs}) == 1 and runs["40", "1", "csv"][1].count(b"\n") == 4
+    small = [json.loads(line) for line in runs["40", "1", "jsonl"][0].splitlines()]
+    whole = [json.loads(line) for line in runs["1000", "1", "jsonl"][0].splitlines()]
+    assert {r["forecasts"] is None for r in small} == {True} and any(r["forecasts"] for r in whole)
+    assert [dict(r, forecasts=None) for r in whole] == small
+    assert sum("grade-may-be-higher" in [c["caveat"] for c in r["caveats"]] for r in whole) == 33
+    assert sum(r["values"]["water"] == ">1000" for r in whole) > 10 and len(whole) == 327
