@@ -196,3 +196,36 @@ def test_jobs_and_chunk_sizes_give_the_same_output_with_rejects_censored_reading
     assert [dict(r, forecasts=None) for r in whole] == small
     assert sum("grade-may-be-higher" in [c["caveat"] for c in r["caveats"]] for r in whole) == 33
     assert sum(r["values"]["water"] == ">1000" for r in whole) > 10 and len(whole) == 327
+
+
+def test_csv_output_carries_what_the_records_carry_and_survives_a_round_trip_through_the_csv_module(tmp_path):
+    """A sample id with a comma and quotes (a lab's `BP-0013, "retest"`), one with a line break (a
+    cell pasted from a two-line label) and one a spreadsheet would run as a formula: Python's csv
+    module reads each back as written (the formula with the leading apostrophe of README, Hostile
+    input), and each row carries the record's grade, rules fired, caveats, gaps and rule set."""
+    rows = list(csv.reader(io.StringIO(SAMPLES.read_text())))
+    odd = {1: 'BP-0013, "retest"', 2: "BP-0014\nlabel line 2", 3: "=BP-0015+1"}
+    for k, sample_id in odd.items():
+        rows[k][0] = sample_id
+    week = tmp_path / "week.csv"
+    with open(week, "w", newline="", encoding="utf-8") as handle:
+        csv.writer(handle).writerows(rows)
+    as_csv, as_jsonl = tmp_path / "out.csv", tmp_path / "out.jsonl"
+    for fmt, out in (("csv", as_csv), ("jsonl", as_jsonl)):
+        assert sumpwise("grade", week, "--rules", SITE, "--format", fmt, "--out", out).returncode == 0
+    with open(as_csv, newline="", encoding="utf-8") as handle:
+        table = list(csv.DictReader(handle))
+    records = [json.loads(line) for line in as_jsonl.read_text().splitlines()]
+    assert len(table) == len(records) == 327
+    assert [r["sample_id"] for r in table[:3]] == ['BP-0013, "retest"', "BP-0014\nlabel line 2", "'=BP-0015+1"]
+    for row, record in zip(table, records):
+        assert row["sample_id"] in (record["sample_id"], "'" + record["sample_id"])
+        assert (row["file"], row["row"]) == (record["origin"]["file"], str(record["origin"]["row"]))
+        assert row["grade"] == record["grade"]
+        assert [f.split("=")[0] for f in row["fired"].split(";") if f] == [r["rule"] for r in record["reasons"]]
+        assert sorted(filter(None, row["caveats"].split(";"))) == sorted(c["caveat"] for c in record["caveats"])
+        assert [g.split("(")[0] for g in row["not_evaluated"].split(";") if g] == [
+            g["rule"] for g in record["not_evaluated"]]
+        assert (row["ruleset"], row["ruleset_version"], row["ruleset_sha256"]) == (
+            record["ruleset"]["id"], str(record["ruleset"]["version"]), record["ruleset"]["sha256"])
+        assert row["engine"] == record["engine"]
