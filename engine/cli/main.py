@@ -122,7 +122,7 @@ def _parser(stdout) -> _Parser:
                             "on less than it should can still grade normal (repeatable)")
     grade.add_argument("--max-rejects", metavar="N", type=reject_count,
                        help="exit 2 when more than N rows in all are rejected (results are still written)")
-    grade.add_argument("--summary", metavar="FILE",
+    grade.add_argument("--summary", metavar="FILE", type=output_file,
                        help="write the run's counts per file and in total, notes and warnings as JSON")
     authoring_cli.add_example_guard(grade)
     ledger_cli.add_grade_arguments(grade)

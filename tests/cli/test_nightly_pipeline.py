@@ -229,3 +229,14 @@ def test_csv_output_carries_what_the_records_carry_and_survives_a_round_trip_thr
         assert (row["ruleset"], row["ruleset_version"], row["ruleset_sha256"]) == (
             record["ruleset"]["id"], str(record["ruleset"]["version"]), record["ruleset"]["sha256"])
         assert row["engine"] == record["engine"]
+
+
+def test_a_summary_that_cannot_be_written_is_refused_before_anything_is_graded(tmp_path):
+    """--summary into a folder that does not exist (a typo in the nightly script) was found only at
+    the end: the results and a ledger's batch were written, then exit 2. Now it is refused as
+    --out is, while the command line is read."""
+    out, db = tmp_path / "results.jsonl", tmp_path / "site.db"
+    for summary in (tmp_path / "reports" / "summary.json", tmp_path):
+        done = sumpwise("grade", HERE / "monday.csv", "--rules", SITE, "--out", out, "--db", db, "--summary", summary)
+        assert done.returncode == 2 and "--summary" in done.stderr.decode()
+        assert not out.exists() and not db.exists()
