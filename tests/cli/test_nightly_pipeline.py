@@ -240,3 +240,29 @@ def test_a_summary_that_cannot_be_written_is_refused_before_anything_is_graded(t
         done = sumpwise("grade", HERE / "monday.csv", "--rules", SITE, "--out", out, "--db", db, "--summary", summary)
         assert done.returncode == 2 and "--summary" in done.stderr.decode()
         assert not out.exists() and not db.exists()
+
+
+def test_the_table_says_which_rules_went_unevaluated_and_gives_the_whole_fingerprint(tmp_path):
+    """The table carried the grade, the rules fired and the caveats, but not the rules a sample
+    could not be evaluated on (the records' `not_evaluated`: a grade given on less than the rule
+    set asks), and the rule set's sha256 cut to 16 characters, which cannot be checked against
+    `sumpwise check`. Its footer now lists each such rule with how many samples lacked what,
+    the same counts as the records, and the whole fingerprint."""
+    week = HERE / "censored-week.csv"
+    table = sumpwise("grade", week, "--rules", SITE, "--format", "table").stdout.decode()
+    records = [json.loads(line) for line in sumpwise("grade", week, "--rules", SITE).stdout.decode().splitlines()]
+    expected: dict = {}
+    for record in records:
+        for gap in record["not_evaluated"]:
+            count, names = expected.get(gap["rule"], (0, set()))
+            expected[gap["rule"]] = (count + 1, names | set(gap["missing"]))
+    footer = table.split("Not evaluated (")[1].split("\n-----")[0].replace("\n  ", " ").splitlines()[1:]
+    shown = {}
+    for line in footer:
+        rule, rest = line[2:].split(": ", 1)
+        count, names = rest.split(" sample(s), lacking ")
+        shown[rule] = (int(count), set(names.split(", ")))
+    assert shown == expected and shown["water"][1] == {"water"}  # `<500` against the 100 ppm watch limit
+    assert records[0]["ruleset"]["sha256"] in table
+    for caution in ("Screening aid only", "take precedence", "resampling before acting"):
+        assert caution in table.replace("\n", " ")
