@@ -229,6 +229,9 @@ def test_csv_output_carries_what_the_records_carry_and_survives_a_round_trip_thr
         assert (row["ruleset"], row["ruleset_version"], row["ruleset_sha256"]) == (
             record["ruleset"]["id"], str(record["ruleset"]["version"]), record["ruleset"]["sha256"])
         assert row["engine"] == record["engine"]
+        assert row["notice"] == record["notice"]  # the cautions, as a full record carries them
+    for words in ("not a substitute for a qualified", "take precedence", "resampling before acting on critical"):
+        assert words in table[0]["notice"]  # the cautions (engine/vocabulary/cautions.py), in the site's words
 
 
 def test_a_summary_that_cannot_be_written_is_refused_before_anything_is_graded(tmp_path):
