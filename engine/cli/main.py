@@ -334,8 +334,6 @@ def _grade(args, stdin, stdout, stderr) -> int:
     if args.record != FULL and args.format != "jsonl":
         raise UsageError(f"sumpwise grade: --record {args.record} is a JSON Lines form; --format is {args.format}")
     ruleset, columns = _rules_and_map(args)
-    if not authoring_cli.examples_hold(ruleset, args, stderr):
-        return USAGE
     fail_levels, fail_unrated = _fail_at(args, ruleset)
     known = {c.id for c in ruleset.caveats} | set(ENGINE_CAVEATS)
     for caveat in args.fail_on_caveat:
@@ -351,10 +349,18 @@ def _grade(args, stdin, stdout, stderr) -> int:
                        + [("the reference spectrum", path) for path in
                           reference_files(ruleset, parse_references(args.reference)).values()]
                        + [("the ledger --db", args.db)])
+    if not authoring_cli.examples_hold(ruleset, args, stderr):  # a rule set edited for tonight: say so in --summary
+        _write_summary(args.summary, {"files": [], "total": dict.fromkeys(("read", "graded", "unrated", "rejected"), 0),
+                                      "warnings": [], "findings": {"fail_at": [], "fail_on_caveat": [],
+                                                                   "ledger_conflicts": 0},
+                                      "failed_files": [], "max_rejects_exceeded": False,
+                                      "stopped": f"rule set {ruleset.id} version {ruleset.version}: its own examples "
+                                                 f"do not hold; nothing was graded", "not_read": sources, "exit": USAGE})
+        return USAGE
     files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
     out_name = f"--out {args.out}" if args.out else "standard output"
-    tally, stopped = None, None  # stopped: why the output could not be written, and the run stopped there
+    tally, stopped = None, None  # stopped: why the run stopped (an output, the ledger), with its summary written
     try:
         with contextlib.ExitStack() as stack:
             out = _opened(stack, args.out, "--out") if args.out else stdout
@@ -397,8 +403,8 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, tally.error is not None))
                 files.append(tally.summary())
                 files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
-    except (_OutputFailed, OSError) as exc:  # the output, not an input: a reader fails as InputError
-        stopped = _stopped(exc, out_name, args.out, stdout)
+    except (_OutputFailed, OSError, LedgerError) as exc:  # the output, or the ledger (a reader fails as InputError)
+        stopped = str(exc) if isinstance(exc, LedgerError) else _stopped(exc, out_name, args.out, stdout)
         stderr.write(_safe_lines(f"sumpwise: {stopped}"))
         if tally is not None and not (files and files[-1]["file"] == tally.source):
             tally.error = stopped
@@ -450,16 +456,21 @@ def _grade(args, stdin, stdout, stderr) -> int:
         code = USAGE
     if code == USAGE and (findings["fail_at"] or conflicts or caveated):  # exit 2 must not hide them
         stderr.write("sumpwise: exit 2 (input) outranks exit 3 (findings), and the findings above were reached too\n")
-    if args.summary:
-        report = {"files": files, "total": total, "warnings": warnings, "findings": findings,
-                  "failed_files": failed, "max_rejects_exceeded": too_many, "stopped": stopped,
-                  "not_read": not_graded, "exit": code}
-        try:
-            with open(args.summary, "w", encoding="utf-8") as handle:
-                handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
-        except OSError as exc:
-            raise InputError(f"--summary {args.summary}: cannot write it: {exc.strerror or exc}") from None
+    _write_summary(args.summary, {"files": files, "total": total, "warnings": warnings, "findings": findings,
+                                  "failed_files": failed, "max_rejects_exceeded": too_many, "stopped": stopped,
+                                  "not_read": not_graded, "exit": code})
     return code
+
+
+def _write_summary(path, report: dict) -> None:
+    """--summary: the run's counts and outcome as JSON, written however the run ended once it began."""
+    if not path:
+        return
+    try:
+        with open(path, "w", encoding="utf-8") as handle:
+            handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
+    except OSError as exc:
+        raise InputError(f"--summary {path}: cannot write it: {exc.strerror or exc}") from None
 
 
 class _OutputFailed(Exception):

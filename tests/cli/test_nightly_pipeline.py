@@ -269,3 +269,30 @@ def test_the_table_says_which_rules_went_unevaluated_and_gives_the_whole_fingerp
     assert records[0]["ruleset"]["sha256"] in table
     for caution in ("Screening aid only", "take precedence", "resampling before acting"):
         assert caution in table.replace("\n", " ")
+
+
+def test_a_refused_rule_set_stops_the_run_and_the_summary_says_so(tmp_path):
+    """A rule set whose own examples fail, or that the ledger refuses (changed limits under the same
+    version), stops the run, as every file would meet it; --summary was not written then, so the
+    pipeline read the previous night's. Now it is, with the refusal under `stopped` and the files
+    not read."""
+    db, summary = tmp_path / "site.db", tmp_path / "summary.json"
+    assert sumpwise("grade", HERE / "monday.csv", "--rules", SITE, "--db", db, "--out", tmp_path / "a.jsonl",
+                    "--summary", summary).returncode == 0
+    text = SITE.read_text(encoding="utf-8").replace("../../rules/", f"{ROOT / 'rules'}/")
+    changed = tmp_path / "site.yaml"  # the same id and version, the water watch limit edited: refused
+    changed.write_text(text.replace("{watch: 100, alert: 300, urgent: 1000}", "{watch: 150, alert: 300, urgent: 1000}",
+                                    1), encoding="utf-8")
+    assert "watch: 150, alert: 300" in changed.read_text(encoding="utf-8")
+    night = ("grade", HERE / "wednesday.csv", HERE / "hpu-week.csv", "--rules", changed, "--db", db,
+             "--out", tmp_path / "b.jsonl", "--summary", summary)
+    done = sumpwise(*night)  # the edit breaks the rule set's own example of a 150 ppm watch: refused first
+    assert done.returncode == 2
+    report = json.loads(summary.read_text())
+    assert report["exit"] == 2 and "its own examples do not hold" in report["stopped"]
+    assert report["not_read"] == [str(HERE / "wednesday.csv"), str(HERE / "hpu-week.csv")]
+    done = sumpwise(*night, "--allow-failing-examples")
+    assert done.returncode == 2
+    report = json.loads(summary.read_text())
+    assert report["exit"] == 2 and "already recorded with other content" in report["stopped"]
+    assert report["not_read"] == [str(HERE / "hpu-week.csv")]
