@@ -259,15 +259,27 @@ def _read(args, stdin):
 INPUT_SUFFIXES = (".csv", ".jsonl", ".ndjson", ".json", ".xlsx", ".txt")
 
 
-def _sources(items) -> list:
+# Files a folder may hold beside a lab's export that are not one: another program's companion of
+# a file, named after it. Left out of a folder's files with a note and in --summary's `skipped`.
+COMPANION_FILES = (("._", "a resource-fork companion of the file beside it, as some file-sharing clients leave"),
+                   ("~$", "an office program's owner file, there while someone has the workbook open"))
+
+
+def _sources(items, skipped: list) -> list:
     """Files in the order given; a folder gives its sample files in name order, every entry with a
     samples name but a folder's: a link to a missing file or a pipe is one of the run's files that
-    cannot be read (_unreadable), never left out without a word."""
+    cannot be read (_unreadable), never left out without a word. A companion file (COMPANION_FILES)
+    is left out and added to `skipped` as {"file", "why"}, so it never fails the night's run."""
     found = []
     for item in items:
         path = Path(item)
         if item != "-" and path.is_dir():
             inside = sorted(p for p in path.iterdir() if not p.is_dir() and p.suffix.lower() in INPUT_SUFFIXES)
+            for p in list(inside):
+                why = next((why for start, why in COMPANION_FILES if p.name.startswith(start)), None)
+                if why is not None:
+                    skipped.append({"file": str(p), "why": why})
+                    inside.remove(p)
             if not inside:
                 raise InputError(f"{item}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
             found.extend(str(p) for p in inside)
@@ -341,7 +353,11 @@ def _grade(args, stdin, stdout, stderr) -> int:
             close = difflib.get_close_matches(caveat, sorted(known), n=1)
             raise UsageError(f"sumpwise grade: --fail-on-caveat {caveat!r} is no caveat of the rule set or the engine"
                              + (f"; did you mean {close[0]!r}?" if close else ""))
-    sources = _sources(args.samples)
+    skipped: list = []
+    sources = _sources(args.samples, skipped)
+    for entry in skipped:
+        stderr.write(terminal_text(f"sumpwise: {entry['file']}: note: skipped, not a samples file: {entry['why']}")
+                     + "\n")
     listed = set(sources) - set(args.samples)  # found in a folder, not named on the command line
     refuse_overwriting([("--out", args.out), ("--rejects", args.rejects), ("--summary", args.summary)],
                        [("the samples file", source) for source in sources]
@@ -355,7 +371,8 @@ def _grade(args, stdin, stdout, stderr) -> int:
                                                                    "ledger_conflicts": 0},
                                       "failed_files": [], "max_rejects_exceeded": False,
                                       "stopped": f"rule set {ruleset.id} version {ruleset.version}: its own examples "
-                                                 f"do not hold; nothing was graded", "not_read": sources, "exit": USAGE})
+                                                 f"do not hold; nothing was graded", "not_read": sources, "skipped": skipped,
+                                      "exit": USAGE})
         return USAGE
     files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
@@ -458,7 +475,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
         stderr.write("sumpwise: exit 2 (input) outranks exit 3 (findings), and the findings above were reached too\n")
     _write_summary(args.summary, {"files": files, "total": total, "warnings": warnings, "findings": findings,
                                   "failed_files": failed, "max_rejects_exceeded": too_many, "stopped": stopped,
-                                  "not_read": not_graded, "exit": code})
+                                  "not_read": not_graded, "skipped": skipped, "exit": code})
     return code
 
 

@@ -296,3 +296,25 @@ def test_a_refused_rule_set_stops_the_run_and_the_summary_says_so(tmp_path):
     report = json.loads(summary.read_text())
     assert report["exit"] == 2 and "already recorded with other content" in report["stopped"]
     assert report["not_read"] == [str(HERE / "hpu-week.csv")]
+
+
+def test_a_folder_s_companion_files_are_skipped_with_a_note_not_failed(tmp_path):
+    """A shared landing folder holds, beside the lab's files, `._monday.csv` (a resource-fork
+    companion some file-sharing clients write) and `~$friday.xlsx` (an office program's owner file
+    while the workbook is open): each was read as samples and failed, so the night ended in exit 2
+    every time. They are now left out with a note and listed in --summary's `skipped`; a file
+    named on the command line is still read whatever its name."""
+    night = tmp_path / "incoming"
+    night.mkdir()
+    (night / "monday.csv").write_bytes((HERE / "monday.csv").read_bytes())
+    (night / "._monday.csv").write_bytes(b"\x00\x05\x16\x07\x00\x02\x00\x00" + b"\x00" * 74)  # the format's magic
+    (night / "~$friday.xlsx").write_bytes(b"\x0bsite-lead".ljust(54, b" ") + b"\x00" * 108)
+    summary = tmp_path / "summary.json"
+    done = sumpwise("grade", night, "--rules", SITE, "--out", tmp_path / "out.jsonl", "--summary", summary)
+    assert done.returncode == 0, done.stderr.decode()
+    report = json.loads(summary.read_text())
+    assert [f["file"] for f in report["files"]] == [str(night / "monday.csv")]
+    assert [s["file"] for s in report["skipped"]] == [str(night / "._monday.csv"), str(night / "~$friday.xlsx")]
+    assert done.stderr.decode().count("note: skipped, not a samples file") == 2
+    named = sumpwise("grade", night / "._monday.csv", "--rules", SITE, "--out", tmp_path / "named.jsonl")
+    assert named.returncode == 2  # named on purpose: read, and refused as the samples file it is not
