@@ -318,3 +318,20 @@ def test_a_folder_s_companion_files_are_skipped_with_a_note_not_failed(tmp_path)
     assert done.stderr.decode().count("note: skipped, not a samples file") == 2
     named = sumpwise("grade", night / "._monday.csv", "--rules", SITE, "--out", tmp_path / "named.jsonl")
     assert named.returncode == 2  # named on purpose: read, and refused as the samples file it is not
+
+
+def test_outputs_onto_an_input_or_into_a_missing_folder_are_refused_before_anything_is_written(tmp_path):
+    night = tmp_path / "incoming"
+    night.mkdir()
+    monday = night / "monday.csv"
+    monday.write_bytes((HERE / "monday.csv").read_bytes())
+    before = monday.read_bytes()
+    for options in (["--out", monday], ["--rejects", tmp_path / "incoming" / "." / "monday.csv"],
+                    ["--summary", monday], ["--out", tmp_path / "results" / "night.jsonl"]):
+        done = sumpwise("grade", night, "--rules", SITE, *options)
+        assert done.returncode == 2 and "Traceback" not in done.stderr.decode(), options
+        assert monday.read_bytes() == before and not (tmp_path / "results").exists()
+    first = sumpwise("grade", night, "--rules", SITE, "--out", night / "results.jsonl")
+    assert first.returncode == 0
+    again = sumpwise("grade", night, "--rules", SITE, "--out", night / "results.jsonl")  # the next night, unchanged
+    assert again.returncode == 2 and "is the same file as the samples file" in again.stderr.decode()
