@@ -400,6 +400,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                             records.write(graded, header=first)
                         with _writing(args.rejects and f"--rejects {args.rejects}"):
                             _put_rejects(graded, rejects, args.rejects, header=first)
+                            rejects.flush()  # a full disk is found here, naming --rejects, not at the close
                         first = False
                         tally.add(graded, notes)
                         if repeated is not None and "sample_id" in graded.measured:
@@ -421,7 +422,8 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 files.append(tally.summary())
                 files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
     except (_OutputFailed, OSError, LedgerError) as exc:  # the output, or the ledger (a reader fails as InputError)
-        stopped = str(exc) if isinstance(exc, LedgerError) else _stopped(exc, out_name, args.out, stdout)
+        stopped = (str(exc) if isinstance(exc, LedgerError)
+                   else _stopped(exc, out_name, (args.out, args.rejects), stdout))
         stderr.write(_safe_lines(f"sumpwise: {stopped}"))
         if tally is not None and not (files and files[-1]["file"] == tally.source):
             tally.error = stopped
@@ -507,18 +509,22 @@ def _writing(what):
         raise _OutputFailed(what or "standard error", exc) from exc
 
 
-def _stopped(exc, out_name: str, out_path, stdout) -> str:
-    """Why the run stopped, in words; a record line cut short in the --out file is taken off, and a
+def _stopped(exc, out_name: str, written, stdout) -> str:
+    """Why the run stopped, in words; a line cut short in the --out or --rejects file (`written`) is taken off, and a
     standard output its reader closed is pointed at the null device (nothing more can reach it, and
     Python's flush at exit would otherwise complain)."""
+    failed = exc
+    while failed is not None and not isinstance(failed, _OutputFailed):
+        failed = failed.__context__  # closing the failed file failed again as the run unwound: the first says which
+    exc = failed or exc
     what, error = (exc.what, exc.error) if isinstance(exc, _OutputFailed) else (out_name, exc)
-    if out_path and what == out_name:
-        _cut_to_whole_lines(out_path)
+    for path in filter(None, written):
+        _cut_to_whole_lines(path)
     if isinstance(error, BrokenPipeError) and what == "standard output":
         with contextlib.suppress(OSError, ValueError, AttributeError):
             os.dup2(os.open(os.devnull, os.O_WRONLY), stdout.fileno())
-        return "standard output was closed by its reader: the run stopped there, not every sample was graded"
-    return f"cannot write {what}: {error.strerror or error}: the run stopped there, not every sample was graded"
+        return "standard output was closed by its reader; the run stopped there"
+    return f"cannot write {what}: {error.strerror or error}; the run stopped there"
 
 
 def _cut_to_whole_lines(path) -> None:

@@ -168,6 +168,9 @@ def test_dev_full_as_the_output_is_exit_2_naming_the_output(tmp_path):
     assert done.returncode == 2
     assert "cannot write --out /dev/full: No space left on device" in done.stderr.decode()
     assert json.loads((tmp_path / "summary.json").read_text())["stopped"] is not None
+    done = sumpwise("grade", HERE / "monday.csv", "--rules", SITE, "--out", tmp_path / "out.jsonl",
+                    "--rejects", "/dev/full")  # Monday's one rejected row cannot be written
+    assert done.returncode == 2 and "cannot write --rejects /dev/full: No space left on device" in done.stderr.decode()
 
 
 def test_jobs_and_chunk_sizes_give_the_same_output_with_rejects_censored_readings_and_caveats(tmp_path):
