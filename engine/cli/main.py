@@ -123,7 +123,8 @@ def _parser(stdout) -> _Parser:
     grade.add_argument("--max-rejects", metavar="N", type=reject_count,
                        help="exit 2 when more than N rows in all are rejected (results are still written)")
     grade.add_argument("--summary", metavar="FILE", type=output_file,
-                       help="write the run's counts per file and in total, notes and warnings as JSON")
+                       help="write the run's counts per file and in total, notes, warnings and what decided the "
+                            "exit code (findings, failed files, where the run stopped) as JSON")
     authoring_cli.add_example_guard(grade)
     ledger_cli.add_grade_arguments(grade)
 
