@@ -281,9 +281,9 @@ def _sources(items, skipped: list) -> list:
                 if why is not None:
                     skipped.append({"file": str(p), "why": why})
                     inside.remove(p)
-            if not inside:
-                raise InputError(f"{item}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
             found.extend(str(p) for p in inside)
+            if not inside:  # one of the run's inputs that fails (_unreadable); the other inputs are graded
+                found.append(item)
         else:
             found.append(item)
     if found.count("-") > 1:
@@ -293,8 +293,11 @@ def _sources(items, skipped: list) -> list:
 
 def _unreadable(source: str, listed: bool) -> None:
     """Refuse a folder's entry that is no regular file before it is opened: a link to a missing file
-    (a share not mounted, a transfer not landed), or a pipe or device, whose read could wait forever."""
+    (a share not mounted, a transfer not landed), or a pipe or device, whose read could wait forever;
+    and a folder given that holds no samples file (tonight's lab sent nothing)."""
     path = Path(source)
+    if source != "-" and path.is_dir():
+        raise InputError(f"{source}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
     if not listed or path.is_file():
         return
     if path.is_symlink() and not path.exists():

@@ -338,3 +338,21 @@ def test_outputs_onto_an_input_or_into_a_missing_folder_are_refused_before_anyth
     assert first.returncode == 0
     again = sumpwise("grade", night, "--rules", SITE, "--out", night / "results.jsonl")  # the next night, unchanged
     assert again.returncode == 2 and "is the same file as the samples file" in again.stderr.decode()
+
+
+def test_a_lab_folder_that_is_empty_tonight_fails_alone_and_the_other_labs_are_graded(tmp_path):
+    """`grade lab-east/ lab-west/`: one lab sent nothing tonight. The empty folder stopped the whole
+    run before anything was read (exit 2, no summary), so the other lab's urgent samples never came
+    out. Now the folder is the run's failed input, and the rest is graded."""
+    east, west = tmp_path / "lab-east", tmp_path / "lab-west"
+    east.mkdir()
+    west.mkdir()
+    (west / "monday.csv").write_bytes((HERE / "monday.csv").read_bytes())
+    summary = tmp_path / "summary.json"
+    done = sumpwise("grade", east, west, "--rules", SITE, "--fail-at", "urgent", "--out", tmp_path / "out.jsonl",
+                    "--summary", summary)
+    assert done.returncode == 2
+    report = json.loads(summary.read_text())
+    assert report["failed_files"] == [str(east)] and report["total"]["graded"] == 80
+    assert report["findings"]["fail_at"] == ["urgent"]
+    assert "holds no samples file" in report["files"][0]["error"]
