@@ -370,13 +370,12 @@ def _grade(args, stdin, stdout, stderr) -> int:
                           reference_files(ruleset, parse_references(args.reference)).values()]
                        + [("the ledger --db", args.db)])
     if not authoring_cli.examples_hold(ruleset, args, stderr):  # a rule set edited for tonight: say so in --summary
+        refused = f"rule set {ruleset.id} version {ruleset.version}: its own examples do not hold; nothing was graded"
         _write_summary(args.summary, {"files": [], "total": dict.fromkeys(("read", "graded", "unrated", "rejected"), 0),
                                       "warnings": [], "findings": {"fail_at": [], "fail_on_caveat": [],
                                                                    "ledger_conflicts": 0},
-                                      "failed_files": [], "max_rejects_exceeded": False,
-                                      "stopped": f"rule set {ruleset.id} version {ruleset.version}: its own examples "
-                                                 f"do not hold; nothing was graded", "not_read": sources, "skipped": skipped,
-                                      "exit": USAGE})
+                                      "failed_files": [], "max_rejects_exceeded": False, "stopped": refused,
+                                      "not_read": sources, "skipped": skipped, "exit": USAGE})
         return USAGE
     files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
@@ -514,9 +513,9 @@ def _writing(what):
 
 
 def _stopped(exc, out_name: str, written, stdout) -> str:
-    """Why the run stopped, in words; a line cut short in the --out or --rejects file (`written`) is taken off, and a
-    standard output its reader closed is pointed at the null device (nothing more can reach it, and
-    Python's flush at exit would otherwise complain)."""
+    """Why the run stopped, in words; a line cut short in the --out or --rejects file (`written`) is
+    taken off, and a standard output its reader closed is pointed at the null device (nothing more
+    can reach it, and Python's flush at exit would otherwise complain)."""
     failed = exc
     while failed is not None and not isinstance(failed, _OutputFailed):
         failed = failed.__context__  # closing the failed file failed again as the run unwound: the first says which
@@ -532,7 +531,10 @@ def _stopped(exc, out_name: str, written, stdout) -> str:
 
 
 def _cut_to_whole_lines(path) -> None:
-    """Take off a last line the failed write left without its line end, so every line is a whole record."""
+    """Take off a last line the failed write left without its line end, so every line is a whole record
+    (a regular file only: /dev/full, a pipe or a terminal holds nothing to take off)."""
+    if not os.path.isfile(path):
+        return
     with contextlib.suppress(OSError):
         with open(path, "rb+") as handle:
             size = handle.seek(0, os.SEEK_END)
