@@ -371,11 +371,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                        + [("the ledger --db", args.db)])
     if not authoring_cli.examples_hold(ruleset, args, stderr):  # a rule set edited for tonight: say so in --summary
         refused = f"rule set {ruleset.id} version {ruleset.version}: its own examples do not hold; nothing was graded"
-        _write_summary(args.summary, {"files": [], "total": dict.fromkeys(("read", "graded", "unrated", "rejected"), 0),
-                                      "warnings": [], "findings": {"fail_at": [], "fail_on_caveat": [],
-                                                                   "ledger_conflicts": 0},
-                                      "failed_files": [], "max_rejects_exceeded": False, "stopped": refused,
-                                      "not_read": sources, "skipped": skipped, "exit": USAGE})
+        _write_summary(args.summary, _unfinished([], sources, skipped, refused, USAGE))
         return USAGE
     files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
@@ -433,6 +429,13 @@ def _grade(args, stdin, stdout, stderr) -> int:
             stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, True))
             files.append(tally.summary())
             files[-1]["repeated_ids"] = None
+    except (UsageError, InvalidFile, InputError):
+        raise  # the command line or an output that cannot be opened: said before anything is graded
+    except Exception as exc:  # a bug: main says so (exit 1); the summary says the run did not finish
+        done = [f["file"] for f in files]
+        _write_summary(args.summary, _unfinished(files, [s for s in sources if s not in done], skipped,
+                                                 f"internal error (a bug, please report it): {exc!r}", INTERNAL))
+        raise
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
     warnings = [f"{f['file']}: {f['caveats'][c]} sample(s) with caveat {c}" for f in files for c in WARNING_CAVEATS
                 if c in f["caveats"]]
@@ -482,6 +485,16 @@ def _grade(args, stdin, stdout, stderr) -> int:
                                   "failed_files": failed, "max_rejects_exceeded": too_many, "stopped": stopped,
                                   "not_read": not_graded, "skipped": skipped, "exit": code})
     return code
+
+
+def _unfinished(files: list, not_read: list, skipped: list, stopped: str, code: int) -> dict:
+    """The --summary of a run that ended before its counts were totted up: the files done, and why."""
+    for f in files:
+        f.pop("ledger_warnings", None)
+    return {"files": files, "total": {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")},
+            "warnings": [], "findings": {"fail_at": [], "fail_on_caveat": [], "ledger_conflicts": 0},
+            "failed_files": [], "max_rejects_exceeded": False, "stopped": stopped, "not_read": not_read,
+            "skipped": skipped, "exit": code}
 
 
 def _write_summary(path, report: dict) -> None:

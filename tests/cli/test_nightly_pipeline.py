@@ -356,3 +356,28 @@ def test_a_lab_folder_that_is_empty_tonight_fails_alone_and_the_other_labs_are_g
     assert report["failed_files"] == [str(east)] and report["total"]["graded"] == 80
     assert report["findings"]["fail_at"] == ["urgent"]
     assert "holds no samples file" in report["files"][0]["error"]
+
+
+def test_an_internal_fault_part_way_leaves_a_summary_that_says_the_run_did_not_finish(tmp_path, monkeypatch):
+    """A bug while grading the second file ends the run with exit 1 (README, Exit codes); the summary
+    was not written, so the previous night's stayed. In process: a fault cannot be put into a child."""
+    import importlib
+
+    from conftest import run_cli
+    pipeline = importlib.import_module("sumpwise.results.pipeline")
+    evaluate = pipeline.evaluate
+
+    def fails_on_wednesday(ruleset, measured):
+        if "BP-0231" in set(measured["sample_id"]):  # Wednesday's first sample
+            raise RuntimeError("a grading fault")
+        return evaluate(ruleset, measured)
+    monkeypatch.setattr(pipeline, "evaluate", fails_on_wednesday)
+    summary = tmp_path / "summary.json"
+    summary.write_text('{"exit": 0}')  # last night's
+    run = run_cli("grade", HERE / "monday.csv", HERE / "wednesday.csv", "--rules", SITE, "--out",
+                  tmp_path / "out.jsonl", "--summary", summary)
+    assert run.code == 1 and "internal error" in run.err
+    report = json.loads(summary.read_text())
+    assert report["exit"] == 1 and report["stopped"].startswith("internal error")
+    assert [f["file"] for f in report["files"]] == [str(HERE / "monday.csv")]
+    assert report["not_read"] == [str(HERE / "wednesday.csv")]
