@@ -401,7 +401,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                             _put_rejects(graded, rejects, args.rejects, header=first)
                             rejects.flush()  # a full disk is found here, naming --rejects, not at the close
                         first = False
-                        tally.add(graded, notes)
+                        tally.add(graded, notes, written=records.pending is None)  # write() settled the one before
                         if repeated is not None and "sample_id" in graded.measured:
                             repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
                         levels = graded.outcome.level
@@ -413,10 +413,12 @@ def _grade(args, stdin, stdout, stderr) -> int:
                 except InputError as exc:  # this file cannot be read (on): the next files are graded all the same
                     with _writing(out_name):
                         records.settle()  # what it gave before is written, as it was
+                    tally.confirm()
                     stderr.write(_safe_lines(f"sumpwise: {exc}"))
                     tally.error = str(exc)
                 with _writing(out_name):
                     records.settle()  # the file's records are all out before its summary line
+                tally.confirm()
                 stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, tally.error is not None))
                 files.append(tally.summary())
                 files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
@@ -653,16 +655,30 @@ class _Tally:
         self.ruleset, self.source, self.notes, self.warnings = ruleset, source, [], []
         self.counts, self.grades, self.caveats = Counter(), Counter(), Counter()
         self.error: str | None = None  # why the file could not be read to the end
+        self.held = None  # a chunk handed to the other process, counted once its records are out
 
-    def add(self, graded, notes) -> None:
+    def add(self, graded, notes, written: bool = True) -> None:
+        """Count a graded chunk; one whose records another process is still writing (`written`
+        False) is held until confirm(), so a run stopped by its output counts only chunks written
+        whole, with one process or two alike."""
+        self.confirm()
         self.source = graded.source
-        self.counts.update(graded.counts())
-        self.grades.update(graded.grades())
-        self.notes.extend(notes)
         ids = [c.id for c in graded.ruleset.caveats] + [c.id for c in graded.engine_caveats]
-        for k, count in enumerate(graded.outcome.caveats.sum(axis=0).tolist()):
-            if count:
-                self.caveats[ids[k]] += count
+        caveats = Counter({ids[k]: count for k, count in enumerate(graded.outcome.caveats.sum(axis=0).tolist())
+                           if count})
+        self.held = (Counter(graded.counts()), Counter(graded.grades()), list(notes), caveats)
+        if written:
+            self.confirm()
+
+    def confirm(self) -> None:
+        """The held chunk's records are all written: count it."""
+        if self.held is not None:
+            counts, grades, notes, caveats = self.held
+            self.counts.update(counts)
+            self.grades.update(grades)
+            self.notes.extend(notes)
+            self.caveats.update(caveats)
+            self.held = None
 
     def summary(self) -> dict:
         counts = {key: self.counts.get(key, 0) for key in ("read", "graded", "unrated", "rejected")}

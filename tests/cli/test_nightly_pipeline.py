@@ -143,23 +143,29 @@ def _file_size_limit(limit: int):
 
 
 def test_a_full_disk_stops_the_run_with_whole_records_and_a_summary_that_says_so(tmp_path):
+    reports = {}
     for jobs in ("1", "2"):
         out, summary = tmp_path / f"results-{jobs}.jsonl", tmp_path / f"summary-{jobs}.json"
         done = subprocess.run([sys.executable, "-m", "sumpwise", "grade", str(SAMPLES), str(HERE / "monday.csv"),
                                "--rules", str(SITE), "--chunk-rows", "100", "--jobs", jobs, "--out", str(out),
                                "--summary", str(summary)],
-                              capture_output=True, timeout=300, preexec_fn=_file_size_limit(150_000))
+                              capture_output=True, timeout=300, preexec_fn=_file_size_limit(400_000))
         err = done.stderr.decode()
         assert done.returncode == 2, err
         assert f"cannot write --out {out}: File too large" in err and "Traceback" not in err
         written = out.read_bytes()
-        assert 0 < len(written) <= 150_000 and written.endswith(b"\n")  # no record cut short
+        assert 0 < len(written) <= 400_000 and written.endswith(b"\n")  # no record cut short
         records = [json.loads(line) for line in written.splitlines()]  # each line a whole record
         assert [r["origin"]["row"] for r in records] == sorted(r["origin"]["row"] for r in records)
         report = json.loads(summary.read_text())  # the summary is small: written after the output failed
         assert report["exit"] == 2 and report["stopped"].startswith(f"cannot write --out {out}")
         assert report["not_read"] == [str(HERE / "monday.csv")]
         assert report["failed_files"] == [str(SAMPLES)]
+        read = report["files"][0]["read"]  # chunks of 100 rows written whole; the one cut short not counted
+        assert read % 100 == 0 and read <= records[-1]["origin"]["row"] < read + 100
+        reports[jobs] = [dict(f, error=None) for f in report["files"]]
+        assert read >= 200  # at least two chunks written whole before the disk filled
+    assert reports["2"] == reports["1"]  # two processes count what one does (a handed chunk was counted before)
 
 
 def test_dev_full_as_the_output_is_exit_2_naming_the_output(tmp_path):
