@@ -122,8 +122,9 @@ def _parser(stdout) -> _Parser:
                             "on less than it should can still grade normal (repeatable)")
     grade.add_argument("--max-rejects", metavar="N", type=reject_count,
                        help="exit 2 when more than N rows in all are rejected (results are still written)")
-    grade.add_argument("--summary", metavar="FILE",
-                       help="write the run's counts per file and in total, notes and warnings as JSON")
+    grade.add_argument("--summary", metavar="FILE", type=output_file,
+                       help="write the run's counts per file and in total, notes, warnings and what decided the "
+                            "exit code (findings, failed files, where the run stopped) as JSON")
     authoring_cli.add_example_guard(grade)
     ledger_cli.add_grade_arguments(grade)
 
@@ -259,21 +260,49 @@ def _read(args, stdin):
 INPUT_SUFFIXES = (".csv", ".jsonl", ".ndjson", ".json", ".xlsx", ".txt")
 
 
-def _sources(items) -> list:
-    """Files in the order given; a folder gives its sample files in name order."""
+# Files a folder may hold beside a lab's export that are not one: another program's companion of
+# a file, named after it. Left out of a folder's files with a note and in --summary's `skipped`.
+COMPANION_FILES = (("._", "a resource-fork companion of the file beside it, as some file-sharing clients leave"),
+                   ("~$", "an office program's owner file, there while someone has the workbook open"))
+
+
+def _sources(items, skipped: list) -> list:
+    """Files in the order given; a folder gives its sample files in name order, every entry with a
+    samples name but a folder's: a link to a missing file or a pipe is one of the run's files that
+    cannot be read (_unreadable), never left out without a word. A companion file (COMPANION_FILES)
+    is left out and added to `skipped` as {"file", "why"}, so it never fails the night's run."""
     found = []
     for item in items:
         path = Path(item)
         if item != "-" and path.is_dir():
-            inside = sorted(p for p in path.iterdir() if p.is_file() and p.suffix.lower() in INPUT_SUFFIXES)
-            if not inside:
-                raise InputError(f"{item}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
+            inside = sorted(p for p in path.iterdir() if not p.is_dir() and p.suffix.lower() in INPUT_SUFFIXES)
+            for p in list(inside):
+                why = next((why for start, why in COMPANION_FILES if p.name.startswith(start)), None)
+                if why is not None:
+                    skipped.append({"file": str(p), "why": why})
+                    inside.remove(p)
             found.extend(str(p) for p in inside)
+            if not inside:  # one of the run's inputs that fails (_unreadable); the other inputs are graded
+                found.append(item)
         else:
             found.append(item)
     if found.count("-") > 1:
         raise UsageError("sumpwise grade: standard input (-) can be read once")
     return found
+
+
+def _unreadable(source: str, listed: bool) -> None:
+    """Refuse a folder's entry that is no regular file before it is opened: a link to a missing file
+    (a share not mounted, a transfer not landed), or a pipe or device, whose read could wait forever;
+    and a folder given that holds no samples file (tonight's lab sent nothing)."""
+    path = Path(source)
+    if source != "-" and path.is_dir():
+        raise InputError(f"{source}: the folder holds no samples file ({', '.join(INPUT_SUFFIXES)})")
+    if not listed or path.is_file():
+        return
+    if path.is_symlink() and not path.exists():
+        raise InputError(f"{source}: a link to {os.readlink(path)}, which does not exist: nothing read")
+    raise InputError(f"{source}: not a regular file (a pipe, socket or device): not read")
 
 
 def _write_rejects(batch, path, stderr) -> None:
@@ -321,8 +350,6 @@ def _grade(args, stdin, stdout, stderr) -> int:
     if args.record != FULL and args.format != "jsonl":
         raise UsageError(f"sumpwise grade: --record {args.record} is a JSON Lines form; --format is {args.format}")
     ruleset, columns = _rules_and_map(args)
-    if not authoring_cli.examples_hold(ruleset, args, stderr):
-        return USAGE
     fail_levels, fail_unrated = _fail_at(args, ruleset)
     known = {c.id for c in ruleset.caveats} | set(ENGINE_CAVEATS)
     for caveat in args.fail_on_caveat:
@@ -330,51 +357,87 @@ def _grade(args, stdin, stdout, stderr) -> int:
             close = difflib.get_close_matches(caveat, sorted(known), n=1)
             raise UsageError(f"sumpwise grade: --fail-on-caveat {caveat!r} is no caveat of the rule set or the engine"
                              + (f"; did you mean {close[0]!r}?" if close else ""))
-    sources = _sources(args.samples)
+    skipped: list = []
+    sources = _sources(args.samples, skipped)
+    for entry in skipped:
+        stderr.write(terminal_text(f"sumpwise: {entry['file']}: note: skipped, not a samples file: {entry['why']}")
+                     + "\n")
+    listed = set(sources) - set(args.samples)  # found in a folder, not named on the command line
     refuse_overwriting([("--out", args.out), ("--rejects", args.rejects), ("--summary", args.summary)],
                        [("the samples file", source) for source in sources]
                        + [("the rule set", path) for path in ruleset.files] + [("--columns", args.columns)]
                        + [("the reference spectrum", path) for path in
                           reference_files(ruleset, parse_references(args.reference)).values()]
                        + [("the ledger --db", args.db)])
-    files, found_grade, found_unrated, conflicts = [], False, False, 0
+    if not authoring_cli.examples_hold(ruleset, args, stderr):  # a rule set edited for tonight: say so in --summary
+        refused = f"rule set {ruleset.id} version {ruleset.version}: its own examples do not hold; nothing was graded"
+        _write_summary(args.summary, _unfinished([], sources, skipped, refused, USAGE))
+        return USAGE
+    files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
-    with contextlib.ExitStack() as stack:
-        out = _opened(stack, args.out, "--out") if args.out else stdout
-        rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
-        records = stack.enter_context(RecordOutput(out, _utf8_bytes_under(out, own=bool(args.out)), args.format,
-                                                   args.record, stderr, args.jobs))
-        first = True
-        for source in sources:
-            tally = _Tally(ruleset, "<stdin>" if source == "-" else str(source))
-            try:
-                for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
-                                                                                   columns, stderr):
-                    conflicts += refused
-                    tally.warnings.extend(warned)
-                    found_grade |= any(level >= fail for level in regraded for fail in fail_levels)
-                    for note in notes:
-                        stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
-                    records.write(graded, header=first)
-                    _put_rejects(graded, rejects, args.rejects, header=first)
-                    first = False
-                    tally.add(graded, notes)
-                    if repeated is not None and "sample_id" in graded.measured:
-                        repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
-                    levels = graded.outcome.level
-                    found_grade |= any(bool((levels >= level).any()) for level in fail_levels)
-                    found_unrated |= bool((levels < 0).any())
-                    graded = levels = None  # before the next chunk is graded
-            except LedgerError:
-                raise  # the ledger or the rule set refused: every file would meet it
-            except InputError as exc:  # this file cannot be read (on): the next files are graded all the same
-                records.settle()  # what it gave before is written, as it was
-                stderr.write(_safe_lines(f"sumpwise: {exc}"))
-                tally.error = str(exc)
-            records.settle()  # the file's records are all out before its summary line
-            stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, tally.error is not None))
+    out_name = f"--out {args.out}" if args.out else "standard output"
+    tally, stopped = None, None  # stopped: why the run stopped (an output, the ledger), with its summary written
+    try:
+        with contextlib.ExitStack() as stack:
+            out = _opened(stack, args.out, "--out") if args.out else stdout
+            rejects = _opened(stack, args.rejects, "--rejects") if args.rejects else stderr
+            records = stack.enter_context(RecordOutput(out, _utf8_bytes_under(out, own=bool(args.out)), args.format,
+                                                       args.record, stderr, args.jobs))
+            first = True
+            for source in sources:
+                tally = _Tally(ruleset, "<stdin>" if source == "-" else str(source))
+                try:
+                    _unreadable(source, source in listed)
+                    for graded, notes, refused, (warned, regraded) in _graded_batches(args, stdin, source, ruleset,
+                                                                                       columns, stderr):
+                        conflicts += refused
+                        tally.warnings.extend(warned)
+                        reached.update(fail for fail in fail_levels if any(level >= fail for level in regraded))
+                        for note in notes:
+                            stderr.write(terminal_text(f"sumpwise: {graded.source}: note: {note}") + "\n")  # names from the file
+                        with _writing(out_name):
+                            records.write(graded, header=first)
+                        with _writing(args.rejects and f"--rejects {args.rejects}"):
+                            _put_rejects(graded, rejects, args.rejects, header=first)
+                            rejects.flush()  # a full disk is found here, naming --rejects, not at the close
+                        first = False
+                        tally.add(graded, notes, written=records.pending is None)  # write() settled the one before
+                        if repeated is not None and "sample_id" in graded.measured:
+                            repeated.add(graded.measured["sample_id"].to_numpy(dtype=object))
+                        levels = graded.outcome.level
+                        reached.update(level for level in fail_levels if bool((levels >= level).any()))
+                        found_unrated |= bool((levels < 0).any())
+                        graded = levels = None  # before the next chunk is graded
+                except LedgerError:
+                    raise  # the ledger or the rule set refused: every file would meet it
+                except InputError as exc:  # this file cannot be read (on): the next files are graded all the same
+                    with _writing(out_name):
+                        records.settle()  # what it gave before is written, as it was
+                    tally.confirm()
+                    stderr.write(_safe_lines(f"sumpwise: {exc}"))
+                    tally.error = str(exc)
+                with _writing(out_name):
+                    records.settle()  # the file's records are all out before its summary line
+                tally.confirm()
+                stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, tally.error is not None))
+                files.append(tally.summary())
+                files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
+    except (_OutputFailed, OSError, LedgerError) as exc:  # the output, or the ledger (a reader fails as InputError)
+        stopped = (str(exc) if isinstance(exc, LedgerError)
+                   else _stopped(exc, out_name, (args.out, args.rejects), stdout))
+        stderr.write(_safe_lines(f"sumpwise: {stopped}"))
+        if tally is not None and not (files and files[-1]["file"] == tally.source):
+            tally.error = stopped
+            stderr.write(_summary_line(tally.source, tally.counts, tally.grades, ruleset.grades, True))
             files.append(tally.summary())
-            files[-1]["repeated_ids"] = repeated.end_file(tally.source) if repeated is not None else None
+            files[-1]["repeated_ids"] = None
+    except (UsageError, InvalidFile, InputError):
+        raise  # the command line or an output that cannot be opened: said before anything is graded
+    except Exception as exc:  # a bug: main says so (exit 1); the summary says the run did not finish
+        done = [f["file"] for f in files]
+        _write_summary(args.summary, _unfinished(files, [s for s in sources if s not in done], skipped,
+                                                 f"internal error (a bug, please report it): {exc!r}", INTERNAL))
+        raise
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
     warnings = [f"{f['file']}: {f['caveats'][c]} sample(s) with caveat {c}" for f in files for c in WARNING_CAVEATS
                 if c in f["caveats"]]
@@ -391,24 +454,117 @@ def _grade(args, stdin, stdout, stderr) -> int:
     for caveat in caveated:
         stderr.write(terminal_text(f"sumpwise: --fail-on-caveat {caveat}: "
                                    f"{sum(f['caveats'].get(caveat, 0) for f in files)} sample(s) carry it") + "\n")
-    if fail_levels and found_grade or fail_unrated and found_unrated or conflicts or caveated:
+    for level in sorted(reached):
+        name = ruleset.grades[level]
+        at = sum(f["grades"][g] for f in files for g in ruleset.grades[level:])
+        stderr.write(f"sumpwise: --fail-at {name}: {at} sample(s) at {name} or higher\n" if at else
+                     f"sumpwise: --fail-at {name}: reached by a recorded sample a late result regraded (warnings)\n")
+    if fail_unrated and found_unrated:
+        stderr.write(f"sumpwise: --fail-at unrated: {total['unrated']} sample(s) unrated\n")
+    findings = {"fail_at": [ruleset.grades[level] for level in sorted(reached)]
+                + ([UNRATED] if fail_unrated and found_unrated else []),
+                "fail_on_caveat": caveated, "ledger_conflicts": conflicts}
+    if findings["fail_at"] or conflicts or caveated:
         code = FINDINGS
     failed = [f["file"] for f in files if f["error"] is not None]
+    not_graded = sources[len(files):] if stopped else []
+    if not_graded:
+        stderr.write(terminal_text(f"sumpwise: the run stopped: {len(not_graded)} file(s) not read: "
+                                   f"{', '.join(not_graded)}") + "\n")
+    if stopped:
+        code = USAGE
     if failed:
-        stderr.write(terminal_text(f"sumpwise: {len(failed)} of {len(files)} file(s) could not be read to the end: "
+        stderr.write(terminal_text(f"sumpwise: {len(failed)} of {len(sources)} file(s) could not be read to the end: "
                                    f"{', '.join(failed)}") + "\n")
         code = USAGE
-    if args.max_rejects is not None and total["rejected"] > args.max_rejects:
+    too_many = args.max_rejects is not None and total["rejected"] > args.max_rejects
+    if too_many:
         stderr.write(f"sumpwise: {total['rejected']} row(s) rejected, more than --max-rejects {args.max_rejects}\n")
         code = USAGE
-    if args.summary:
-        report = {"files": files, "total": total, "warnings": warnings, "exit": code}
-        try:
-            with open(args.summary, "w", encoding="utf-8") as handle:
-                handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
-        except OSError as exc:
-            raise InputError(f"--summary {args.summary}: cannot write it: {exc.strerror or exc}") from None
+    if code == USAGE and (findings["fail_at"] or conflicts or caveated):  # exit 2 must not hide them
+        stderr.write("sumpwise: exit 2 (input) outranks exit 3 (findings), and the findings above were reached too\n")
+    _write_summary(args.summary, {"files": files, "total": total, "warnings": warnings, "findings": findings,
+                                  "failed_files": failed, "max_rejects_exceeded": too_many, "stopped": stopped,
+                                  "not_read": not_graded, "skipped": skipped, "exit": code})
     return code
+
+
+def _unfinished(files: list, not_read: list, skipped: list, stopped: str, code: int) -> dict:
+    """The --summary of a run that ended before its counts were totted up: the files done, and why."""
+    for f in files:
+        f.pop("ledger_warnings", None)
+    return {"files": files, "total": {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")},
+            "warnings": [], "findings": {"fail_at": [], "fail_on_caveat": [], "ledger_conflicts": 0},
+            "failed_files": [], "max_rejects_exceeded": False, "stopped": stopped, "not_read": not_read,
+            "skipped": skipped, "exit": code}
+
+
+def _write_summary(path, report: dict) -> None:
+    """--summary: the run's counts and outcome as JSON, written however the run ended once it began."""
+    if not path:
+        return
+    try:
+        with open(path, "w", encoding="utf-8") as handle:
+            handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
+    except OSError as exc:
+        raise InputError(f"--summary {path}: cannot write it: {exc.strerror or exc}") from None
+
+
+class _OutputFailed(Exception):
+    """Records or rejects could not be written: which output, and the system's error."""
+
+    def __init__(self, what: str, error: OSError):
+        super().__init__(what)
+        self.what, self.error = what, error
+
+
+@contextlib.contextmanager
+def _writing(what):
+    """Name the output an OSError (a full disk, a closed pipe) came from; `what` None: standard error."""
+    try:
+        yield
+    except OSError as exc:
+        raise _OutputFailed(what or "standard error", exc) from exc
+
+
+def _stopped(exc, out_name: str, written, stdout) -> str:
+    """Why the run stopped, in words; a line cut short in the --out or --rejects file (`written`) is
+    taken off, and a standard output its reader closed is pointed at the null device (nothing more
+    can reach it, and Python's flush at exit would otherwise complain)."""
+    failed = exc
+    while failed is not None and not isinstance(failed, _OutputFailed):
+        failed = failed.__context__  # closing the failed file failed again as the run unwound: the first says which
+    exc = failed or exc
+    what, error = (exc.what, exc.error) if isinstance(exc, _OutputFailed) else (out_name, exc)
+    for path in filter(None, written):
+        _cut_to_whole_lines(path)
+    if isinstance(error, BrokenPipeError) and what == "standard output":
+        with contextlib.suppress(OSError, ValueError, AttributeError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), stdout.fileno())
+        return "standard output was closed by its reader; the run stopped there"
+    return f"cannot write {what}: {error.strerror or error}; the run stopped there"
+
+
+def _cut_to_whole_lines(path) -> None:
+    """Take off a last line the failed write left without its line end, so every line is a whole record
+    (a regular file only: /dev/full, a pipe or a terminal holds nothing to take off)."""
+    if not os.path.isfile(path):
+        return
+    with contextlib.suppress(OSError):
+        with open(path, "rb+") as handle:
+            size = handle.seek(0, os.SEEK_END)
+            keep = size
+            while keep > 0:
+                start = max(0, keep - 65536)
+                handle.seek(start)
+                block = handle.read(keep - start)
+                at = block.rfind(b"\n")
+                if at >= 0 or start == 0:
+                    keep = start + at + 1
+                    break
+                keep = start
+            if keep < size:
+                handle.truncate(keep)
 
 
 def _fail_at(args, ruleset) -> tuple[list, bool]:
@@ -499,16 +655,30 @@ class _Tally:
         self.ruleset, self.source, self.notes, self.warnings = ruleset, source, [], []
         self.counts, self.grades, self.caveats = Counter(), Counter(), Counter()
         self.error: str | None = None  # why the file could not be read to the end
+        self.held = None  # a chunk handed to the other process, counted once its records are out
 
-    def add(self, graded, notes) -> None:
+    def add(self, graded, notes, written: bool = True) -> None:
+        """Count a graded chunk; one whose records another process is still writing (`written`
+        False) is held until confirm(), so a run stopped by its output counts only chunks written
+        whole, with one process or two alike."""
+        self.confirm()
         self.source = graded.source
-        self.counts.update(graded.counts())
-        self.grades.update(graded.grades())
-        self.notes.extend(notes)
         ids = [c.id for c in graded.ruleset.caveats] + [c.id for c in graded.engine_caveats]
-        for k, count in enumerate(graded.outcome.caveats.sum(axis=0).tolist()):
-            if count:
-                self.caveats[ids[k]] += count
+        caveats = Counter({ids[k]: count for k, count in enumerate(graded.outcome.caveats.sum(axis=0).tolist())
+                           if count})
+        self.held = (Counter(graded.counts()), Counter(graded.grades()), list(notes), caveats)
+        if written:
+            self.confirm()
+
+    def confirm(self) -> None:
+        """The held chunk's records are all written: count it."""
+        if self.held is not None:
+            counts, grades, notes, caveats = self.held
+            self.counts.update(counts)
+            self.grades.update(grades)
+            self.notes.extend(notes)
+            self.caveats.update(caveats)
+            self.held = None
 
     def summary(self) -> dict:
         counts = {key: self.counts.get(key, 0) for key in ("read", "graded", "unrated", "rejected")}

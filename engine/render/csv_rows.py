@@ -6,7 +6,8 @@ lists rule=grade (with <capped-from where a caveat lowered it), highest grade fi
 `not_evaluated` lists rule(missing,...), a censored input that did not decide the rule
 as name=reading as written (`water(water=<500)`: present, but not below or above the limit,
 where a bare `water(water)` means no value); `next_steps` the rule set's steps for what
-applies, each once, as the table words them. Built column-wise like the JSON Lines
+applies, each once, as the table words them; `notice` the rule set's notice (the cautions),
+as a full JSON Lines record carries it. Built column-wise like the JSON Lines
 writer: each rule's text once per state, joined over the rows.
 """
 
@@ -23,7 +24,8 @@ from sumpwise.render.safe_text import spreadsheet_frame
 from sumpwise.results.records import UNRATED, GradedBatch, gap_at, gap_states, record_shape_groups
 
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "file", "row", "grade", "level", "fired", "caveats",
-           "not_evaluated", "unrated_because", "next_steps", "ruleset", "ruleset_version", "ruleset_sha256", "engine")
+           "not_evaluated", "unrated_because", "next_steps", "ruleset", "ruleset_version", "ruleset_sha256", "engine",
+           "notice")
 
 
 def join_parts(n: int, parts, sep: str = ", ") -> np.ndarray:
@@ -141,6 +143,7 @@ def csv_frame(batch: GradedBatch) -> pd.DataFrame:
     frame["ruleset_version"] = str(rs.version)
     frame["ruleset_sha256"] = rs.sha256
     frame["engine"] = engine_name()
+    frame["notice"] = rs.notice  # a spreadsheet is read by a person: the cautions go with every row, as in a full record
     return frame[list(COLUMNS)]
 
 

@@ -18,7 +18,9 @@ import pandas as pd
 
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.version import engine_name
-from sumpwise.results.records import UNRATED, GradedBatch, record_shape_groups
+from sumpwise.evaluation.evaluator import NOT_EVALUATED
+from sumpwise.render.jsonl import states
+from sumpwise.results.records import UNRATED, GradedBatch, gap_at, gap_states, record_shape_groups
 from sumpwise.render.narrative import step_phrases
 from sumpwise.render.safe_text import terminal_column, terminal_text
 
@@ -48,10 +50,12 @@ def wants_progress(stream, rows: int, min_rows: int = PROGRESS_MIN_ROWS) -> bool
 
 
 # Caveats meaning a sample was graded on less than it should be, or may deserve a higher grade
-# (the no-silent-pass ones).
+# (the no-silent-pass ones): a trend cut or a rate not taken counts. Not among them: trend-break,
+# oil-changed (a known new charge: nothing is missing) and unit-id-spelling (the spellings are
+# joined into one unit, so the trend is whole).
 FIRST_CAVEATS = ("unknown-lubricant", "base-stock-disagrees", "oxidation-below-new", "unknown-class",
                  "few-rules-evaluated", "grade-may-be-higher", "oil-charge-unknown", "class-changed", "one-moment",
-                 "oil-hours-not-from-fill")
+                 "oil-hours-not-from-fill", "oil-hours-slip", "oil-change-untold")
 
 
 def _why(result) -> str:
@@ -116,11 +120,11 @@ def footer_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
     by_grade = Counter(batch.grades())
     ladder = ", ".join(f"{g} {by_grade.get(g, 0)}" for g in list(batch.ruleset.grades) + [UNRATED])
     rs = batch.ruleset
-    lines = ["-" * width] + next_step_lines(batch, width)
+    lines = ["-" * width] + next_step_lines(batch, width) + not_evaluated_lines(batch, width)
     lines.extend(_wrap(f"{terminal_text(batch.source)}: read {counts['read']}: graded {counts['graded']}, unrated {counts['unrated']}, "
                        f"rejected {counts['rejected']}  ({ladder})", width))
-    lines.extend(_wrap(f"rule set {rs.id} version {rs.version}, sha256 {rs.sha256[:16]}..., {engine_name()}",
-                       width))
+    lines.extend(_wrap(f"rule set {rs.id} version {rs.version}, sha256 {rs.sha256}, {engine_name()}",
+                       width))  # the whole fingerprint, as records and `check` give it
     lines.append("")
     lines.extend(_wrap("Notice: " + rs.notice, width))
     for caution in CAUTIONS:
@@ -148,6 +152,29 @@ def next_step_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
         named = ids[np.isin(group, shapes)]
         more = f" and {len(named) - SAMPLES_PER_STEP} more" if len(named) > SAMPLES_PER_STEP else ""
         lines.extend(textwrap.wrap(f"- {terminal_text(step)}: {', '.join(named[:SAMPLES_PER_STEP])}{more}", width,
+                                   subsequent_indent="  ", break_on_hyphens=False))
+    return lines + ["-" * width]
+
+
+def not_evaluated_lines(batch: GradedBatch, width: int = WIDTH) -> list[str]:
+    """The rules some samples could not be evaluated on, each once with how many samples and the
+    inputs they lacked (records' `not_evaluated`; the why column has no room for them)."""
+    out = batch.outcome
+    gaps: dict[str, tuple[int, list]] = {}  # rule id -> (samples, inputs lacked); a rule may be in several classes
+    for j, slot in enumerate(out.slots):
+        rows = np.flatnonzero(out.final[:, j] == NOT_EVALUATED)
+        if not len(rows):
+            continue
+        first, _ = states(gap_states(batch, j, rows))
+        count, names = gaps.get(slot.rule.id, (0, []))
+        for rep in rows[first].tolist():
+            names.extend(name for name in gap_at(batch, rep, j).missing if name not in names)
+        gaps[slot.rule.id] = (count + len(rows), names)
+    if not gaps:
+        return []
+    lines = ["Not evaluated (an input missing, or a censored reading that does not decide the rule):"]
+    for rule, (count, names) in gaps.items():
+        lines.extend(textwrap.wrap(f"- {rule}: {count} sample(s), lacking {', '.join(names)}", width,
                                    subsequent_indent="  ", break_on_hyphens=False))
     return lines + ["-" * width]
 

@@ -155,16 +155,25 @@ def test_the_real_command_writes_the_same_bytes_to_a_pipe(tmp_path):
     assert outputs["1"].count(b"\n") > 50_000
 
 
-def test_a_reader_that_stops_early_ends_the_command_quietly(tmp_path):
+@pytest.mark.parametrize("jobs", ["1", "2"])
+def test_a_reader_that_stops_early_ends_the_command_without_a_traceback_and_says_so(tmp_path, jobs):
+    """Exit 2, not 0 ("done"): the later chunks were never graded, so a --fail-at finding among
+    them could not be seen; --summary says where the run stopped (before, it was not written)."""
     path = _many_samples(tmp_path, 60_000)
+    summary = tmp_path / "summary.json"
     process = subprocess.Popen([sys.executable, "-m", "sumpwise", "grade", str(path), "--rules", str(SITE),
-                                "--chunk-rows", "20000", "--jobs", "2"],
+                                "--chunk-rows", "20000", "--jobs", jobs, "--summary", str(summary)],
                                stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     first = process.stdout.readline()
     process.stdout.close()  # like `| head -1`
     err = process.stderr.read()
-    assert process.wait(timeout=600) == 0
+    assert process.wait(timeout=600) == 2
     assert first.startswith(b'{"format"') and b"Traceback" not in err and b"internal error" not in err
+    assert b"Exception ignored" not in err  # no complaint from the interpreter's own flush at exit
+    assert b"standard output was closed by its reader" in err
+    report = json.loads(summary.read_text())
+    assert report["exit"] == 2 and "closed by its reader" in report["stopped"]
+    assert report["total"]["read"] < 60_000
 
 
 def test_jobs_takes_one_or_two():
