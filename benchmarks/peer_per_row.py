@@ -297,9 +297,12 @@ def fit_forecast(ruleset, rule, class_name: str, charge: list):
     b, a = direction * slope, direction * intercept
     x_now, y_now = latest["hours"], direction * latest["values"][rule.measure]
     steps = []
+    value_now = latest["values"][rule.measure]
     for level, limit in rule.steps:
         if rule.test == "outside":
             low, high = limit if isinstance(limit, tuple) else (-limit, limit)
+            if value_now < low or value_now > high:  # crossed on the other side: the grade is already this one
+                continue
             limit = high if direction > 0 else low
         steps.append((level, direction * limit))
     ahead = [(level, limit) for level, limit in steps if not y_now > limit]

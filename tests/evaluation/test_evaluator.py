@@ -1,5 +1,5 @@
 """Evaluation: ladder tests, three-valued conditions, caps, unrated samples, and agreement
-with an independent per-row evaluator (benchmarks/row_evaluator.py) on random data."""
+with an independent per-row evaluator (tests/support/row_evaluator.py) on random data."""
 
 import io
 
