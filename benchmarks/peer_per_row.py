@@ -28,7 +28,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests" / "support"))
 
-from row_evaluator import _test, _text, derive_row, truth  # noqa: E402
+from row_evaluator import _test, derive_row, truth  # noqa: E402
 
 from sumpwise.derive.forecast import (HORIZON_SPANS, METHOD, MIN_SAMPLES, PREDICTION_LEVEL,  # noqa: E402
                                       SLOPE_CONFIDENCE, forecastable, t_quantile)
