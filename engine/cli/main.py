@@ -318,7 +318,7 @@ def _put_rejects(batch, out, path: str | None, header: bool = False) -> None:
     """Rejected rows: as CSV for a .csv path, JSON Lines for another path, sentences without one."""
     if path is None:
         out.write("".join(reject_line(batch.source, r) + "\n" for r in batch.rejects))
-    elif path.endswith(".csv"):
+    elif path.lower().endswith(".csv"):
         writer = csv.writer(out, lineterminator="\n")
         if header:
             writer.writerow(["file", "row", "sample_id", "field", "code", "reason"])

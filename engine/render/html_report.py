@@ -121,7 +121,7 @@ def _check_forecast(forecast, where: str, field: str) -> None:
 def parse_rejects(text: str, name: str) -> tuple:
     """Rejected rows as `grade --rejects` writes them: CSV (by the .csv name) or JSON Lines."""
     rows = []
-    if name.endswith(".csv"):
+    if name.lower().endswith(".csv"):
         reader = csv.DictReader(io.StringIO(text))
         missing = {"row", "field", "reason"} - set(reader.fieldnames or ())
         if missing:

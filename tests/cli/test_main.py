@@ -37,6 +37,19 @@ def test_grade_counts_add_up_and_rejects_go_to_a_file(tmp_path):
     assert reject_rows[0] == "file,row,sample_id,field,code,reason" and len(reject_rows) == 5
 
 
+def test_a_rejects_file_named_in_upper_case_is_csv_too(tmp_path):
+    """`REJECTS.CSV` (a name as some systems write it) was written as JSON Lines under a .CSV name,
+    which a spreadsheet then showed as one column of text; the report reads it back as CSV too."""
+    rejects, results = tmp_path / "REJECTS.CSV", tmp_path / "results.jsonl"
+    run = run_cli("grade", SAMPLES, "--rules", SITE, "--rejects", rejects, "--out", results)
+    assert run.code == 0, run.err
+    lines = rejects.read_text().splitlines()
+    assert lines[0] == "file,row,sample_id,field,code,reason" and len(lines) == 5
+    report = run_cli("report", "--results", results, "--rejects", rejects, "--rules", SITE, "--out",
+                     tmp_path / "report.html")
+    assert report.code == 0, report.err
+
+
 def test_grade_from_stdin_as_json_lines():
     text = '{"sample_id": "S1", "class": "steam-turbine", "lubricant": "TURB-46-M", "an": 0.5}\n'
     run = run_cli("grade", "-", "--rules", DRAFT, "--input-format", "jsonl", stdin=text)
