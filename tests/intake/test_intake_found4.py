@@ -15,7 +15,7 @@ import re
 
 import pytest
 from conftest import DATA, ROOT, run_cli
-from grade_runs import counts_said, fired_rules, graded_run, rejects_said
+from grade_runs import counts_said, fired_rules, graded_run, rejects_said, water_file
 from workbooks import write_workbook
 
 FOUND = DATA / "intake_found4"
@@ -257,9 +257,7 @@ def test_a_water_reading_from_1_to_10_alone_is_graded(tmp_path):
     # Without a reading below 1 in the column, 5 ppm is read as written (normal): the check that
     # rejects it needs the column's other readings to say it is a percentage.
     path = tmp_path / "dry.csv"
-    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
-                    "HY-2026-0791,HPU-1,hydraulic,HYD-46-M,2026-09-28,5\n"
-                    "HY-2026-0792,HPU-2,hydraulic,HYD-46-M,2026-09-28,260\n", encoding="utf-8")
+    water_file(path, [("HY-2026-0791", "HPU-1", "5"), ("HY-2026-0792", "HPU-2", "260")], on="2026-09-28")
     got, err = graded_run(path, "--rules", HYDRAULIC)
     assert got["HY-2026-0791"]["values"]["water"] == 5 and got["HY-2026-0791"]["grade"] == "normal"
     assert (got["HY-2026-0792"]["grade"], fired_rules(got["HY-2026-0792"])) == ("watch", {"water"})

@@ -14,7 +14,7 @@ import re
 import numpy as np
 import pytest
 from conftest import DATA, ROOT, run_cli
-from grade_runs import counts_said, fired_rules, graded_run, rejects_said
+from grade_runs import counts_said, fired_rules, graded_run, rejects_said, water_file
 
 from sumpwise.intake import summary_rows
 
@@ -143,10 +143,9 @@ def test_a_censored_water_bound_below_1_is_a_percentage_too(tmp_path):
     # so it is `<0.05` % (below 500 ppm, which may be watch). Was: read as below 0.05 ppm, known to
     # be under every water step, the sample graded normal with the rule evaluated.
     path = tmp_path / "bound.csv"
-    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
-                    "HY-2026-0951,HPU-1,hydraulic,HYD-46-M,2026-10-12,<0.05\n"
-                    "HY-2026-0952,HPU-2,hydraulic,HYD-46-M,2026-10-12,<10\n"
-                    "HY-2026-0953,HPU-3,hydraulic,HYD-46-M,2026-10-12,260\n", encoding="utf-8")
+    water_file(path, [("HY-2026-0951", "HPU-1", "<0.05"),
+                      ("HY-2026-0952", "HPU-2", "<10"),
+                      ("HY-2026-0953", "HPU-3", "260")], on="2026-10-12")
     got, err = graded_run(path, "--rules", HYDRAULIC)
     assert rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water")] and "'<0.05' ppm is below" in err
     assert (got["HY-2026-0953"]["grade"], fired_rules(got["HY-2026-0953"])) == ("watch", {"water"})
@@ -192,10 +191,9 @@ def test_below_the_limit_of_detection_reads_as_not_detected(tmp_path):
     # (D004). Now the map's detection limit makes it `<10` ppm water, known to be below the 200 ppm
     # watch step: normal, the water rule evaluated.
     path = tmp_path / "lod.csv"
-    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
-                    "HY-2026-0971,HPU-1,hydraulic,HYD-46-M,2026-11-02,<LOD\n"
-                    "HY-2026-0972,HPU-2,hydraulic,HYD-46-M,2026-11-02,< LOD\n"
-                    "HY-2026-0973,HPU-3,hydraulic,HYD-46-M,2026-11-02,260\n", encoding="utf-8")
+    water_file(path, [("HY-2026-0971", "HPU-1", "<LOD"),
+                      ("HY-2026-0972", "HPU-2", "< LOD"),
+                      ("HY-2026-0973", "HPU-3", "260")], on="2026-11-02")
     (tmp_path / "map.yaml").write_text("water: {column: water, detection_limit: 10}\n", encoding="utf-8")
     got, err = graded_run(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert counts_said(err) == (3, 3, 0, 0)
@@ -210,10 +208,9 @@ def test_not_detected_at_a_declared_limit_below_10_ppm_is_no_percentage(tmp_path
     # a reading the lab wrote, so it says nothing of the column's scale; all three graded normal
     # (below the 200 ppm watch step).
     path = tmp_path / "nd.csv"
-    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
-                    "HY-2026-0981,HPU-1,hydraulic,HYD-46-M,2026-11-02,ND\n"
-                    "HY-2026-0982,HPU-2,hydraulic,HYD-46-M,2026-11-02,40\n"
-                    "HY-2026-0983,HPU-3,hydraulic,HYD-46-M,2026-11-02,80\n", encoding="utf-8")
+    water_file(path, [("HY-2026-0981", "HPU-1", "ND"),
+                      ("HY-2026-0982", "HPU-2", "40"),
+                      ("HY-2026-0983", "HPU-3", "80")], on="2026-11-02")
     (tmp_path / "map.yaml").write_text("water: {column: water, detection_limit: 5}\n", encoding="utf-8")
     got, err = graded_run(path, "--rules", HYDRAULIC, "--columns", tmp_path / "map.yaml")
     assert counts_said(err) == (3, 3, 0, 0) and {r["grade"] for r in got.values()} == {"normal"}
@@ -232,11 +229,10 @@ def test_percent_signs_on_some_cells_give_the_water_column_away(tmp_path):
     # `12` without it, in a column read in ppm. Was: 12 graded normal as 12 ppm (12 % is 120,000 ppm,
     # urgent above 1000); beside percentages it could be one: D018, naming the row of the first sign.
     path = tmp_path / "signs.csv"
-    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
-                    "HY-2026-0991,HPU-1,hydraulic,HYD-46-M,2026-11-02,0.05 %\n"
-                    "HY-2026-0992,HPU-2,hydraulic,HYD-46-M,2026-11-02,0.3%\n"
-                    "HY-2026-0993,HPU-3,hydraulic,HYD-46-M,2026-11-02,12\n"
-                    "HY-2026-0994,HPU-4,hydraulic,HYD-46-M,2026-11-02,450\n", encoding="utf-8")
+    water_file(path, [("HY-2026-0991", "HPU-1", "0.05 %"),
+                      ("HY-2026-0992", "HPU-2", "0.3%"),
+                      ("HY-2026-0993", "HPU-3", "12"),
+                      ("HY-2026-0994", "HPU-4", "450")], on="2026-11-02")
     got, err = graded_run(path, "--rules", HYDRAULIC)
     assert rejects_said(err) == [(1, "D018", "water"), (2, "D018", "water"), (3, "D018", "water")]
     assert "'12' could be ppm or a percentage" in err and "(row 1)" in err
@@ -335,9 +331,7 @@ def test_limit_and_statistic_lines_named_as_labs_name_them_are_rejected(tmp_path
     # noun (`Median value`, `Typical new`), with the unit and a date. Was: graded as a sample of HPU-1
     # (the 450 ppm of a limit line watch, above 200 in hydraulic.yaml). Now D019 (common practice, no source).
     path = tmp_path / "limits.csv"
-    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
-                    "HY-2026-1041,HPU-1,hydraulic,HYD-46-M,2026-11-02,120\n"
-                    f"{cell},HPU-1,hydraulic,HYD-46-M,2026-11-02,450\n", encoding="utf-8")
+    water_file(path, [("HY-2026-1041", "HPU-1", "120"), (cell, "HPU-1", "450")], on="2026-11-02")
     got, err = graded_run(path, "--rules", HYDRAULIC)
     assert rejects_said(err) == [(2, "D019", "sample_id")] and set(got) == {"HY-2026-1041"}
 
@@ -408,8 +402,7 @@ def test_numbers_with_both_marks_or_space_groups_are_read_and_one_mark_alone_is_
     assert got["HY-2026-1061"]["values"]["water"] == 1234.5 and got["HY-2026-1062"]["values"]["water"] == 1234
     assert got["HY-2026-1061"]["grade"] == got["HY-2026-1062"]["grade"] == "urgent"
     point = tmp_path / "point.csv"
-    point.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n"
-                     "HY-2026-1064,HPU-1,hydraulic,HYD-46-M,2026-11-02,\"1,234.5\"\n", encoding="utf-8")
+    water_file(point, [("HY-2026-1064", "HPU-1", '"1,234.5"')], on="2026-11-02")
     got, _ = graded_run(point, "--rules", HYDRAULIC)
     assert got["HY-2026-1064"]["values"]["water"] == 1234.5
 

@@ -1,5 +1,6 @@
-"""What the intake tests read from a real `grade` run: its records, the rules they fired, the
-rejects and the counts it writes on standard error (shared by the intake hunts' test files)."""
+"""What the intake tests read from a real `grade` run (its records, the rules they fired, the
+rejects and the counts it writes on standard error) and the small water files many of them grade
+(shared by the intake hunts' test files)."""
 
 from __future__ import annotations
 
@@ -32,3 +33,12 @@ def counts_said(err: str) -> tuple:
     """(read, graded, unrated, rejected) of the run's summary line."""
     (found,) = _COUNTS.findall(err)
     return tuple(map(int, found))
+
+
+def water_file(path, rows, on: str):
+    """A hydraulic lab file of water readings, the shape the intake hunts' tests write: `rows` are
+    (sample id, unit id, water cell as written), all sampled on `on`, HYD-46-M oil. Returns `path`."""
+    lines = [f"{sample},{unit},hydraulic,HYD-46-M,{on},{water}" for sample, unit, water in rows]
+    path.write_text("sample_id,unit_id,class,lubricant,sampled_on,water\n" + "".join(line + "\n" for line in lines),
+                    encoding="utf-8")
+    return path
