@@ -13,7 +13,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from sumpwise.vocabulary.problems import InvalidFile, Problem
-from sumpwise.ruleset.schema import schema_findings
+from sumpwise.ruleset.schema import piece_of, schema_findings
 from sumpwise.ruleset.yaml_source import YamlDocument, load_yaml
 
 DEFAULT_GRADES = ("normal", "watch", "alert", "urgent")
@@ -110,15 +110,18 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
     if key in cache:
         return cache[key]
     try:
-        doc = load_yaml(path)
+        doc = load_yaml(path, keep_going=True)
     except InvalidFile as exc:
         problems.extend(exc.problems)
         return None
+    problems.extend(doc.problems)
     if not isinstance(doc.data, dict):
         problems.append(doc.problem((), "a rule set must be a mapping with at least `ruleset` and `version`", code="R001"))
         return None
     own_problems, spoiled = schema_findings(doc)
     problems.extend(own_problems)
+    # a value the YAML problems are about (a key given twice, 0x10, .inf) leaves its piece out too
+    spoiled |= {piece_of(path) for path in doc.spoiled} - {()}
     doc_clean = _sanitized(doc, spoiled)
     skipped = {piece for piece in spoiled if piece[0] in ("rules", "caveats", "examples", "fields")
                or (piece[0] == "classes" and len(piece) == 4)}

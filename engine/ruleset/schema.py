@@ -35,13 +35,17 @@ def schema_findings(doc: YamlDocument) -> tuple[list[Problem], set]:
     """Every schema violation, and the pieces of the document they spoil.
 
     A spoiled piece (a rule, a caveat, a lubricant, a class, a top-level key) is left out
-    of the later checks, so the rest of the file is still checked in the same run.
+    of the later checks, so the rest of the file is still checked in the same run. A value
+    the YAML reading already reported (doc.spoiled: `-.inf`, `0x10`) is not reported again.
     """
     problems: list[Problem] = []
     spoiled: set = set()
     for error in _validator().iter_errors(doc.data):
-        problems.extend(_explain(doc, error))
         path = tuple(error.absolute_path)
+        if any(path[:len(bad)] == bad for bad in doc.spoiled):
+            spoiled.add(piece_of(path))
+            continue
+        problems.extend(_explain(doc, error))
         if error.validator == "additionalProperties" and isinstance(error.instance, dict):
             allowed = (error.schema or {}).get("properties", {}) if isinstance(error.schema, dict) else {}
             spoiled.update(piece_of(path + (key,)) for key in error.instance if key not in allowed)
@@ -113,7 +117,9 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
                                    key=True, hint=hint, code="S001"))
         return out
     if kind == "required":
-        missing = [k for k in error.validator_value if k not in value]
+        # one error per missing key, and its message names it: "'source' is a required property"
+        missing = [k for k in error.validator_value if k not in value and repr(k) in error.message] or \
+            [k for k in error.validator_value if k not in value][:1]
         return [doc.problem(path, f"this mapping needs the key '{k}'", code="S002") for k in missing]
     if kind == "type":
         return [doc.problem(path, f"expected {_expected_types(error.validator_value)} here, found {_kind(value)} "
