@@ -20,6 +20,8 @@ from sumpwise.results.pipeline import grade
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.results.records import UNRATED, SampleResult
 from sumpwise.ruleset.model import Example, RuleSet
+from sumpwise.vocabulary.measures import UNIT_FAMILY, unit_key
+from sumpwise.vocabulary.units import CANONICAL
 
 
 @dataclass(frozen=True)
@@ -56,15 +58,30 @@ def check_example(ruleset: RuleSet, example: Example) -> ExampleFailure | None:
         return _failure(example, (f"the sample cannot be read: {reason}",), "nothing was graded")
     if graded.rejects:
         reasons = tuple(f"the sample cannot be read: {r.field}: {r.reason}" for r in graded.rejects)
-        return _failure(example, reasons, "the sample was rejected, nothing was graded")
+        return _failure(example, reasons + _units_note(ruleset, example), "the sample was rejected, nothing was graded")
     result = graded.result(0)
     differences = _unread_keys(ruleset, example) + _differences(ruleset, example, result)
-    return _failure(example, differences, describe(result)) if differences else None
+    return _failure(example, differences + _units_note(ruleset, example), describe(result)) if differences else None
 
 
 def _failure(example: Example, differences: tuple, actual: str) -> ExampleFailure:
     origin = example.origin
     return ExampleFailure(example.name, origin.file, origin.line, origin.column, tuple(differences), actual)
+
+
+def _units_note(ruleset: RuleSet, example: Example) -> tuple:
+    """A failed example whose file writes its limits in other units than the engine's: its sample
+    values are read in the engine's units, so `water: 0.03` meant as % is 0.03 ppm. Said beside the
+    failure, since the lead who wrote `units: {water: '%'}` would write the sample in % too."""
+    declared = ruleset.file_units.get(example.origin.file, {})
+    other = {key: unit for key, unit in declared.items() if unit_key(key) in UNIT_FAMILY
+             and unit != CANONICAL[UNIT_FAMILY[unit_key(key)]]}
+    given = sorted({unit_key(str(name)) for name in example.sample} & set(other))
+    if not given:
+        return ()
+    return (f"note: the sample's values are read in the engine's units ("
+            f"{', '.join(f'{key} in {CANONICAL[UNIT_FAMILY[key]]}' for key in given)}), not in this file's "
+            f"`units:` ({', '.join(f'{key} in {other[key]}' for key in given)}), as a samples file's are",)
 
 
 def _unread_keys(ruleset: RuleSet, example: Example) -> tuple:

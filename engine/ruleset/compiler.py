@@ -167,7 +167,7 @@ class _Compiler:
         return origins
 
     def _file_units(self) -> dict:
-        places = [*self.r.class_places.values(), *self.r.rules.values(), *self.r.caveats.values()]
+        places = [*self.r.class_places.values(), *self.r.rules.values(), *self.r.caveats.values(), *self.r.examples]
         places += [p for rules in self.r.classes.values() for p in rules.values()]
         return {placed.doc.file: dict(placed.units) for placed in places}
 
