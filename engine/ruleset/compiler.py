@@ -529,7 +529,16 @@ class _Compiler:
             for i, measure in enumerate(spec["measures"]):
                 self._check_measure(placed, ("cap", "measures", i), measure)
             unless = self._condition(placed, ("cap", "unless"), spec["unless"]) if "unless" in spec else None
-            level = self._level(placed, ("cap", "grade"), spec["grade"])
+            if spec["grade"] == self.grades[0]:
+                self.problems.append(placed.problem(
+                    f"a cap at '{spec['grade']}', the lowest grade, would hide every finding on "
+                    f"{', '.join(spec['measures'])} for these samples: a finding must keep a grade above the lowest",
+                    ("cap", "grade"), code="C002",
+                    hint=f"cap at '{self.grades[1]}' (the finding stays visible at the first grade), or drop the rules "
+                         f"on those measures where they do not apply"))
+                level = None
+            else:
+                level = self._level(placed, ("cap", "grade"), spec["grade"])
             cap = Cap(frozenset(spec["measures"]), level, unless)
         return Caveat(data["id"], when, cap, data["message"].strip(), (data.get("source") or "").strip(),
                       self._origin(placed), _next_step(data))

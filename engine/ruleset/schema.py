@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import difflib
 import json
+import re
 from functools import lru_cache
 from importlib import resources
 
@@ -70,6 +71,30 @@ def piece_of(path: tuple) -> tuple:
     return path[:1]
 
 
+_WRITTEN_NUMBER = re.compile(r"\s*([-+]?(?:\d[\d_]*(?:\.\d*)?|\.\d+))([eE][-+]?\d+)?\s*(.*)")
+
+
+def _number_hint(value, expected) -> str:
+    """Why text that reads as a number to people is text to YAML: `1e3` (YAML 1.1 wants a dot in
+    a float), `5%` or `500 ppm` (a unit beside the number)."""
+    types = [expected] if isinstance(expected, str) else list(expected)
+    if not isinstance(value, str) or "number" not in types:
+        return ""
+    found = _WRITTEN_NUMBER.fullmatch(value)
+    if not found:
+        return ""
+    number, exponent, unit = found.groups()
+    if unit:
+        return (f"write the number alone ({number}); a limit is in its measure's unit, or in the unit this "
+                f"file's `units:` gives (water: ppm or %, FTIR: abs/cm or abs/0.1mm)")
+    if exponent:
+        dotted = number if "." in number else f"{number}.0"
+        signed = exponent if exponent[1] in "+-" else f"{exponent[0]}+{exponent[1:]}"
+        return (f"YAML reads {value.strip()} as text: a number with an exponent needs a dot and a signed "
+                f"exponent (write {dotted}{signed}, or {float(value.replace('_', '')):g})")
+    return ""
+
+
 def _kind(value) -> str:
     if isinstance(value, bool):
         return "true/false"
@@ -123,7 +148,7 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
         return [doc.problem(path, f"this mapping needs the key '{k}'", code="S002") for k in missing]
     if kind == "type":
         return [doc.problem(path, f"expected {_expected_types(error.validator_value)} here, found {_kind(value)} "
-                                  f"{_shown(value)}", code="S003")]
+                                  f"{_shown(value)}", code="S003", hint=_number_hint(value, error.validator_value))]
     if kind == "enum":
         options = ", ".join(str(v) for v in error.validator_value)
         return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}", code="S004")]

@@ -1,0 +1,70 @@
+"""Refusals a site lead meets, with the reason and the fix at the place: YAML's exponent rule, a
+unit written beside a limit, a top-level rule named in `drop`, a cap at the lowest grade.
+
+Up to engine 0.8.0 `1e3` was "expected a number here, found text" with no why (YAML 1.1 reads a
+float only with a dot and a signed exponent: its float resolver, yaml.org/type/float); `drop:
+[water]` on a top-level rule said no extended rule set gives the class that rule; a cap at
+`normal` was refused as "a limit or rule for it can never raise a sample's grade", which is not
+what a cap does. Water figures: limits.md, common practice, no source.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from sumpwise.ruleset.compiler import check_ruleset
+from sumpwise.ruleset.yaml_source import parse_yaml
+
+LADDER = """\
+ruleset: brackwater-hints
+version: 1
+classes:
+  steam-turbine:
+    rules:
+      - id: water
+        measure: water
+        above: {watch: WATCH, alert: 1000}
+        message: Water in the oil
+        source: common practice, no source
+"""
+
+
+@pytest.mark.parametrize("written, fix, value", [("2e3", "2.0e+3", 2000.0), ("2.0e3", "2.0e+3", 2000.0),
+                                                 ("2E-1", "2.0E-1", 0.2)])
+def test_an_exponent_yaml_reads_as_text_is_refused_with_the_spelling_it_reads(tmp_path, written, fix, value):
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("WATCH", written), encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line, problem.path) == ("S003", 8, "$.classes.steam-turbine.rules[0].above.watch")
+    assert f"write {fix}," in problem.hint
+    assert parse_yaml(f"a: {fix}\n", "f.yaml").data["a"] == value  # the fix it gives reads as that number
+
+
+@pytest.mark.parametrize("written", ["200 ppm", "0.02%", "200ppm"])
+def test_a_unit_beside_a_limit_is_refused_with_where_units_go(tmp_path, written):
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("WATCH", written), encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert problem.code == "S003" and problem.hint.startswith(f"write the number alone ({written[:-3].strip()}")
+
+
+def test_drop_of_a_top_level_rule_says_how_to_change_it_for_the_class(tmp_path):
+    (tmp_path / "parent.yaml").write_text(
+        "ruleset: bw-parent\nversion: 1\nrules:\n  - {id: water, measure: water, above: {watch: 200}, "
+        "message: Water in the oil, source: site practice}\n", encoding="utf-8")
+    (tmp_path / "site.yaml").write_text("ruleset: bw-site\nversion: 1\nextends: parent.yaml\nclasses:\n"
+                                        "  gearbox:\n    drop: [water]\n", encoding="utf-8")
+    (problem,) = check_ruleset(tmp_path / "site.yaml").errors
+    assert (problem.code, problem.line) == ("R006", 6)
+    assert "'water' is a top-level rule" in problem.hint
+
+
+def test_a_cap_at_the_lowest_grade_is_refused_for_what_it_would_do(tmp_path):
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("WATCH", "200") + (
+        "caveats:\n  - id: wet-sample-point\n    when: {field: class, equals: steam-turbine}\n"
+        "    cap: {measures: [water], grade: normal}\n    message: The sample point collects condensate\n"),
+        encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line, problem.path) == ("C002", 14, "$.caveats[0].cap.grade")
+    assert "would hide every finding on water" in problem.message and "cap at 'watch'" in problem.hint
