@@ -249,6 +249,23 @@ _LARGEST_INT = int(1.7976931348623157e308)  # the largest finite float, as an in
 _DECIMAL = re.compile(r"[-+]?(?:(?:0|[1-9][0-9_]*)(?:\.[0-9_]*)?|\.[0-9_]+)(?:[eE][-+]?[0-9]+)?")
 
 
+def _indicator_hint(text: str, mark) -> str:
+    """A plain value that starts with `*` or `&` is an alias or an anchor to YAML: an ISO 4406 code
+    written `*/16/13` (a size not reported) fails to load with a message about alias names."""
+    if mark is None:
+        return ""
+    lines = text.split("\n")
+    if mark.line >= len(lines):
+        return ""
+    before = lines[mark.line][:mark.column + 1]
+    found = re.search(r"(?:^|[\s\[{,:])([*&])[^\s,\]}]*$", before)
+    if not found:
+        return ""
+    what = "an alias" if found.group(1) == "*" else "an anchor"
+    return (f"a value that starts with '{found.group(1)}' is {what} to YAML: quote it, "
+            f"e.g. {{watch: '*/16/13'}} for an ISO 4406 code with a size not reported")
+
+
 def _short(text: str) -> str:
     return text if len(text) <= 24 else f"{text[:12]}...{text[-6:]} ({len(text)} characters)"
 
@@ -299,7 +316,8 @@ def parse_yaml(text: str, file: str, keep_going: bool = False) -> YamlDocument:
             mark = exc.problem_mark or exc.context_mark
             line, column = (mark.line + 1, mark.column + 1) if mark else (0, 0)
             reason = exc.problem or exc.context or "not valid YAML"
-            raise InvalidFile([Problem(file, line, column, f"not valid YAML: {reason}", code="Y001")]) from None
+            raise InvalidFile([Problem(file, line, column, f"not valid YAML: {reason}", code="Y001",
+                                       hint=_indicator_hint(text, mark))]) from None
         except yaml.YAMLError as exc:
             raise InvalidFile([Problem(file, 0, 0, f"not valid YAML: {exc}", code="Y001")]) from None
         if root is None:

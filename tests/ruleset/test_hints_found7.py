@@ -68,3 +68,30 @@ def test_a_cap_at_the_lowest_grade_is_refused_for_what_it_would_do(tmp_path):
     (problem,) = check_ruleset(path).errors
     assert (problem.code, problem.line, problem.path) == ("C002", 14, "$.caveats[0].cap.grade")
     assert "would hide every finding on water" in problem.message and "cap at 'watch'" in problem.hint
+
+
+CLEANLINESS = """\
+ruleset: brackwater-cleanliness
+version: 1
+classes:
+  hydraulic:
+    rules:
+      - id: cleanliness
+        iso4406: {watch: CODE, alert: 20/18/15}
+        message: Particle count above the target cleanliness code
+        source: site practice
+"""
+
+
+def test_an_iso_4406_code_starting_with_a_star_is_refused_with_the_quoting_that_fixes_it(tmp_path):
+    """ISO 4406 lets a size go unreported (`*/16/13`, or `-`); unquoted, YAML reads `*` as an alias."""
+    path = tmp_path / "site.yaml"
+    path.write_text(CLEANLINESS.replace("CODE", "*/16/13"), encoding="utf-8")
+    first = check_ruleset(path).errors[0]
+    assert (first.code, first.line) == ("Y001", 7)
+    assert "quote it, e.g. {watch: '*/16/13'}" in first.hint
+    path.write_text(CLEANLINESS.replace("CODE", "'*/16/13'"), encoding="utf-8")
+    quoted = check_ruleset(path)
+    assert not quoted.errors
+    watch = {rule.id: rule.steps for rule in quoted.ruleset.rules_for("hydraulic")}
+    assert watch["cleanliness-6um"] == ((1, 16.0), (2, 18.0)) and watch["cleanliness-4um"] == ((2, 20.0),)
