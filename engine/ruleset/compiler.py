@@ -503,8 +503,11 @@ class _Compiler:
                     f"unknown field '{name}'; known fields are {', '.join(sorted(self.fields))}, or declare it "
                     f"under the top-level `fields:`", sub + ("field",),
                     hint=f"did you mean '{close[0]}'?" if close else "", code="C009"))
+            at = [sub + ("in", i) for i in range(len(data["in"]))] if tests[0] == "in" else [sub + ("equals",)]
             values = data["in"] if tests[0] == "in" else [data["equals"]]
-            values = [_as_text(v) for v in values]
+            # a field is text: `equals: 1.50` is compared as "1.50", as written, not as the float's "1.5"
+            values = [placed.doc.written.get(placed.path + path, _as_text(v)) if isinstance(v, float) else _as_text(v)
+                      for v, path in zip(values, at)]
             if name == "base_stock":
                 values = [self._base_stock(placed, sub + (tests[0],), v) for v in values]
             elif name == "method":

@@ -56,6 +56,9 @@ class YamlDocument:
     # those values, so a reader can leave out what they spoil and check the rest in the same run.
     problems: tuple = field(default=(), repr=False)
     spoiled: frozenset = field(default=frozenset(), repr=False)
+    # path -> the text of a plain decimal fraction as written (`1.50`, which the value reads as 1.5),
+    # for a value compared as text (a field condition), so it is compared as the author wrote it
+    written: dict = field(default_factory=dict, repr=False)
 
     def mark(self, path: tuple, key: bool = False) -> Mark:
         """The mark of `path`, or of its nearest ancestor that has one."""
@@ -147,6 +150,7 @@ class _Builder:
         self.key_marks: dict = {}
         self.problems: list[Problem] = []
         self.spoiled: set = set()  # paths of the values the problems are about
+        self.written: dict = {}  # path -> a plain float's text as written
 
     def _report(self, problem: Problem, path: tuple) -> None:
         self.problems.append(problem)
@@ -164,6 +168,8 @@ class _Builder:
         value = self._scalar(node, path)
         if isinstance(value, (dt.date, dt.datetime)):
             return value.isoformat()
+        if isinstance(value, float) and not node.style:
+            self.written[path] = node.value
         return value
 
     def _scalar(self, node: yaml.Node, path: tuple):
@@ -336,7 +342,8 @@ def parse_yaml(text: str, file: str, keep_going: bool = False) -> YamlDocument:
     problems = tuple({(p.line, p.column, p.code): p for p in builder.problems}.values())
     if problems and not keep_going:
         raise InvalidFile(list(problems))
-    return YamlDocument(file, data, builder.value_marks, builder.key_marks, problems, frozenset(builder.spoiled))
+    return YamlDocument(file, data, builder.value_marks, builder.key_marks, problems, frozenset(builder.spoiled),
+                        builder.written)
 
 
 def load_yaml(path: Path, keep_going: bool = False) -> YamlDocument:
