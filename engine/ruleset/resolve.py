@@ -12,6 +12,7 @@ import os
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
+from sumpwise.vocabulary.measures import UNIT_FAMILY, unit_key
 from sumpwise.vocabulary.problems import InvalidFile, Problem
 from sumpwise.ruleset.schema import piece_of, schema_findings
 from sumpwise.ruleset.yaml_source import YamlDocument, load_yaml
@@ -98,6 +99,46 @@ def _sanitized(doc: YamlDocument, spoiled: set) -> YamlDocument:
     return replace(doc, data=data)
 
 
+def _unit_readers(data: dict, spoiled: set) -> set:
+    """The pieces whose limits are written in a unit the file's `units:` failed to give: without it
+    their numbers cannot be read (0.05 under `water: percent` is not 0.05 ppm), so they are left
+    out of the later checks with the unit's error, not checked, and warned about, in the wrong unit."""
+    if ("units",) in spoiled:
+        lost = set(UNIT_FAMILY)
+    else:
+        lost = {piece[1] for piece in spoiled if piece[0] == "units" and len(piece) == 2}
+    if not lost:
+        return set()
+    pieces = set()
+    for name, spec in (data.get("classes") or {}).items():
+        for i, rule in enumerate((spec or {}).get("rules") or [] if isinstance(spec, dict) else []):
+            if _reads(rule) & lost:
+                pieces.add(("classes", name, "rules", i))
+    for key in ("rules", "caveats"):
+        pieces |= {(key, i) for i, item in enumerate(data.get(key) or []) if _reads(item) & lost}
+    pieces |= {("lubricants", code) for code, lub in (data.get("lubricants") or {}).items()
+               if isinstance(lub, dict) and set(lub) & lost}
+    pieces |= {("noise_margins", name) for name in (data.get("noise_margins") or {}) if unit_key(name) in lost}
+    return pieces
+
+
+def _reads(item) -> set:
+    """The `units:` keys of every measure a rule or caveat names, at any depth, as written."""
+    found = set()
+    if isinstance(item, dict):
+        for key, value in item.items():
+            if key == "measure" and isinstance(value, str):
+                found.add(unit_key(value))
+            elif key == "measures" and isinstance(value, list):
+                found |= {unit_key(m) for m in value if isinstance(m, str)}
+            else:
+                found |= _reads(value)
+    elif isinstance(item, list):
+        for value in item:
+            found |= _reads(value)
+    return found
+
+
 def _hidden(doc: YamlDocument, at: tuple, target: str, why: str) -> Problem:
     return doc.problem(at, f"'{target}' {why}, so nothing in it was checked, and problems in this file that "
                            f"depend on it (a dropped rule, a class it gives) are not reported",
@@ -122,6 +163,7 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
     problems.extend(own_problems)
     # a value the YAML problems are about (a key given twice, 0x10, .inf) leaves its piece out too
     spoiled |= {piece_of(path) for path in doc.spoiled} - {()}
+    spoiled |= _unit_readers(doc.data, spoiled)
     doc_clean = _sanitized(doc, spoiled)
     skipped = {piece for piece in spoiled if piece[0] in ("rules", "caveats", "examples", "fields")
                or (piece[0] == "classes" and len(piece) == 4)}

@@ -1,0 +1,64 @@
+"""A `units:` entry the schema refuses leaves out the limits written in it, instead of reading them in ppm.
+
+Up to engine 0.8.0 `units: {water: percent}` was refused (S004) and then every water limit of the
+file, written in %, was checked as ppm: three warnings (W009) told the lead that 0.05 "ppm" looked
+like the wrong unit and that "this file writes water in ppm", which it does not. The unit's error
+is the one thing to fix; the limits written in it cannot be read until it is. 1 % = 10,000 ppm.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from sumpwise.authoring.lint import lint_ruleset
+from sumpwise.ruleset.compiler import check_ruleset
+
+RULES = """\
+ruleset: brackwater-units
+version: 1
+units: UNITS
+lubricants:
+  TURB-46-M: {base_stock: mineral, kv40: 45.9, an: 0.07, oxidation: 0.014}
+classes:
+  steam-turbine:
+    rules:
+      - id: water
+        measure: water
+        above: {watch: 0.02, alert: 0.05}
+        message: Water in the oil
+        source: common practice, no source
+      - id: acid-rise
+        measure: an_rise
+        above: {watch: 0.1, alert: 0.2}
+        message: Acid number has risen above new oil
+        source: site practice
+      - id: wet-and-acid
+        when:
+          all:
+            - {measure: water, above: 0.01}
+            - {measure: an_rise, above: 0.05}
+        grade: watch
+        message: Water with a rising acid number
+        source: site practice
+"""
+
+
+@pytest.mark.parametrize("units, error", [('{water: percent, oxidation: abs/0.1mm}', (3, "S004")),
+                                          ("[ppm]", (3, "S003"))])
+def test_a_refused_unit_is_the_only_thing_said_about_the_limits_written_in_it(tmp_path, units, error):
+    path = tmp_path / "site.yaml"
+    path.write_text(RULES.replace("UNITS", units), encoding="utf-8")
+    checked = check_ruleset(path)
+    said = list(checked.problems) + list(lint_ruleset(checked.ruleset, partial=checked.partial))
+    assert [(p.line, p.code) for p in said if p.severity != "note"] == [error]
+    assert "acid-rise" in {rule.id for rule in checked.ruleset.rules_for("steam-turbine")}  # still checked
+
+
+def test_with_the_unit_right_the_same_limits_are_read_in_percent(tmp_path):
+    path = tmp_path / "site.yaml"
+    path.write_text(RULES.replace("UNITS", '{water: "%", oxidation: abs/0.1mm}'), encoding="utf-8")
+    checked = check_ruleset(path)
+    assert not checked.errors
+    water = {rule.id: rule for rule in checked.ruleset.rules_for("steam-turbine")}["water"]
+    assert water.steps == ((1, 200.0), (2, 500.0))  # ppm
+    assert checked.ruleset.lubricants["TURB-46-M"].oxidation == 1.4  # abs/cm
