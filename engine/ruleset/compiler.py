@@ -385,9 +385,12 @@ class _Compiler:
             return ConditionRule(data["id"], when, level, data["message"].strip(), self._source(placed), origin,
                                  _next_step(data))
         if "measure" not in data or len(ladder_keys) != 1:
+            band = {"above", "below"} <= set(ladder_keys)
             self.problems.append(placed.problem(
                 f"rule '{data['id']}' needs either `measure` with exactly one of above/below/outside "
-                f"(a ladder rule) or `when` with `grade` (a condition rule)", ("id",), code="C004"))
+                f"(a ladder rule) or `when` with `grade` (a condition rule)", ("id",), code="C004",
+                hint="for a band, write one ladder of pairs, `outside: {watch: [low, high], alert: [low, high]}`, "
+                     "or two rules, one `above` and one `below`" if band else ""))
             return None
         measure, test = data["measure"], ladder_keys[0]
         self._check_measure(placed, ("measure",), measure)

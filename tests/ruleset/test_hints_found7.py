@@ -95,3 +95,12 @@ def test_an_iso_4406_code_starting_with_a_star_is_refused_with_the_quoting_that_
     assert not quoted.errors
     watch = {rule.id: rule.steps for rule in quoted.ruleset.rules_for("hydraulic")}
     assert watch["cleanliness-6um"] == ((1, 16.0), (2, 18.0)) and watch["cleanliness-4um"] == ((2, 20.0),)
+
+
+def test_a_ladder_with_above_and_below_is_refused_with_the_band_spelling(tmp_path):
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("above: {watch: WATCH, alert: 1000}", "above: {watch: 8}\n        below: {watch: -5}")
+                    .replace("measure: water", "measure: kv40_change_pct"), encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line) == ("C004", 6)
+    assert "outside: {watch: [low, high]" in problem.hint
