@@ -113,6 +113,8 @@ class _Compiler:
                 at, "'unrated' cannot be a grade: it is what a sample the engine could not grade is called, so a "
                     "finding at that grade would read and count as a sample that was not graded", code="C016",
                 hint="name the grade otherwise, e.g. 'caution'"))
+        for name, placed in sorted(r.measures.items()):
+            self._check_declared(name, placed)
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
         classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
         common = self._rules(r.rules.values())
@@ -230,6 +232,21 @@ class _Compiler:
                 severity="warning",
                 hint=f"a rule replaces its parent's whole: restate every grade you keep "
                      f"(up to {self.grades[before]}), or give the new limit another id to add to the parent's"))
+
+    def _check_declared(self, name: str, placed: Placed) -> None:
+        """`measures:` declares measures the engine does not know. Declaring `water: {unit: '%'}` does
+        not make water read in %: its limits stay in ppm (0.05 would be 0.05 ppm), so it is an error."""
+        if name not in MEASURES:
+            return
+        key = unit_key(name)
+        family = UNIT_FAMILY.get(key)
+        self.problems.append(placed.problem(
+            f"'{name}' is a measure the engine already knows (in {measure_unit(name) or 'its own unit'}); "
+            f"`measures:` declares only measures it does not know, so this one cannot change how {name} is read",
+            (), key=True, code="C019",
+            hint=(f"to write {name} limits in {' or '.join(u for u in FACTORS[family] if u != measure_unit(name))}, "
+                  f"say so under `units:` ({key}: ...), and remove it from `measures:`" if family else
+                  f"remove it from `measures:`; its limits are written in {measure_unit(name) or 'its own unit'}")))
 
     def _check_declared_unit(self, placed: Placed, measure: str) -> None:
         """A limit on a declared measure is written in the unit its own file (or that file's parents)

@@ -9,6 +9,7 @@ is the one thing to fix; the limits written in it cannot be read until it is. 1 
 from __future__ import annotations
 
 import pytest
+from grade_runs import graded_run
 
 from sumpwise.authoring.lint import lint_ruleset
 from sumpwise.ruleset.compiler import check_ruleset
@@ -62,3 +63,37 @@ def test_with_the_unit_right_the_same_limits_are_read_in_percent(tmp_path):
     water = {rule.id: rule for rule in checked.ruleset.rules_for("steam-turbine")}["water"]
     assert water.steps == ((1, 200.0), (2, 500.0))  # ppm
     assert checked.ruleset.lubricants["TURB-46-M"].oxidation == 1.4  # abs/cm
+
+
+DECLARED = """\
+ruleset: brackwater-declared
+version: 1
+measures:
+  water: {unit: "%"}
+classes:
+  steam-turbine:
+    rules:
+      - id: water
+        measure: water
+        above: {watch: 0.02, alert: 0.05}
+        message: Water in the oil
+        source: common practice, no source
+"""
+
+
+def test_declaring_a_known_measure_in_another_unit_is_an_error_not_a_ppm_limit(tmp_path):
+    """Up to engine 0.8.0 this passed `check` with one warning and graded 300 ppm alert (300 > 0.05
+    "ppm"); the lead meant 0.05 % (500 ppm), so watch. Now it is refused at the declaration."""
+    path = tmp_path / "site.yaml"
+    path.write_text(DECLARED, encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line, problem.column, problem.path) == ("C019", 4, 3, "$.measures.water")
+    assert "under `units:` (water: ...)" in problem.hint
+
+
+def test_the_fix_the_error_gives_grades_300_ppm_watch(tmp_path):
+    path = tmp_path / "site.yaml"
+    path.write_text(DECLARED.replace('measures:\n  water: {unit: "%"}', 'units: {water: "%"}'), encoding="utf-8")
+    records, _ = graded_run("-", "--rules", str(path), stdin=(
+        "sample_id,unit_id,class,lubricant,sampled_on,water\nBP-0601,ST-1,steam-turbine,TURB-46-M,2026-06-01,300\n"))
+    assert records["BP-0601"]["grade"] == "watch"
