@@ -570,9 +570,10 @@ class _Compiler:
         data = placed.data
         grade = data["expect"].get("grade")
         if grade is not None and grade not in self.grades and grade != "unrated":
+            close = difflib.get_close_matches(grade.strip().lower(), [*self.grades, "unrated"], n=1)
             self.problems.append(placed.problem(
                 f"expected grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}] nor 'unrated'",
-                ("expect", "grade"), code="C010"))
+                ("expect", "grade"), code="C010", hint=f"did you mean '{close[0]}'?" if close else ""))
         self._check_example_ids(placed)
         return Example(data["name"], dict(data["sample"]), dict(data["expect"]), self._origin(placed))
 

@@ -104,3 +104,13 @@ def test_a_ladder_with_above_and_below_is_refused_with_the_band_spelling(tmp_pat
     (problem,) = check_ruleset(path).errors
     assert (problem.code, problem.line) == ("C004", 6)
     assert "outside: {watch: [low, high]" in problem.hint
+
+
+@pytest.mark.parametrize("written, meant", [("wacth", "watch"), ("Alert", "alert"), ("unrate", "unrated")])
+def test_a_misspelt_expected_grade_of_an_example_gets_the_nearest(tmp_path, written, meant):
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("WATCH", "200") + (
+        "examples:\n  - name: wet\n    sample: {class: steam-turbine, water: 300}\n"
+        f"    expect: {{grade: {written}}}\n"), encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line, problem.hint) == ("C010", 14, f"did you mean '{meant}'?")
