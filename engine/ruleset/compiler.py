@@ -115,6 +115,8 @@ class _Compiler:
                 hint="name the grade otherwise, e.g. 'caution'"))
         for name, placed in sorted(r.measures.items()):
             self._check_declared(name, placed)
+        for name, placed in sorted(r.fields.items()):
+            self._check_field(name, placed)
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
         classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
         common = self._rules(r.rules.values())
@@ -247,6 +249,17 @@ class _Compiler:
             hint=(f"to write {name} limits in {' or '.join(u for u in FACTORS[family] if u != measure_unit(name))}, "
                   f"say so under `units:` ({key}: ...), and remove it from `measures:`" if family else
                   f"remove it from `measures:`; its limits are written in {measure_unit(name) or 'its own unit'}")))
+
+    def _check_field(self, name: str, placed: Placed) -> None:
+        """A field is text; a measure is a number, read and compared as one. `fields: [water]` with
+        `{field: water, in: [0]}` compared '0' with the reading's text and never matched."""
+        if name not in MEASURES and name not in self.r.measures:
+            return
+        self.problems.append(placed.problem(
+            f"'{name}' is a measure (a number), so it cannot be listed under `fields:`, which are text columns "
+            f"compared as text", (), code="C019",
+            hint=f"test it as a measure: {{measure: {name}, below: x}}, {{measure: {name}, between: [lo, hi]}} or "
+                 f"{{measure: {name}, missing: true}}"))
 
     def _check_declared_unit(self, placed: Placed, measure: str) -> None:
         """A limit on a declared measure is written in the unit its own file (or that file's parents)

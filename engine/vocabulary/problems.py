@@ -62,7 +62,7 @@ PROBLEM_CODES = {
     "C016": "a grade named unrated, the engine's word for a sample it could not grade",
     "C017": "a limit on a declared measure written in another unit than the rule set declares it",
     "C018": "an FTIR method outside the vocabulary in a `method` field condition",
-    "C019": "a measure the engine already knows declared again under `measures:`",
+    "C019": "a measure the engine already knows declared again under `measures:` or `fields:`",
     "W001": "a rule another rule always shadows",
     "W002": "a rule that can never fire",
     "W003": "a caveat that can never apply",

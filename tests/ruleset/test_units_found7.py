@@ -97,3 +97,16 @@ def test_the_fix_the_error_gives_grades_300_ppm_watch(tmp_path):
     records, _ = graded_run("-", "--rules", str(path), stdin=(
         "sample_id,unit_id,class,lubricant,sampled_on,water\nBP-0601,ST-1,steam-turbine,TURB-46-M,2026-06-01,300\n"))
     assert records["BP-0601"]["grade"] == "watch"
+
+
+def test_a_measure_listed_as_a_text_field_is_an_error(tmp_path):
+    """Up to engine 0.8.0 `fields: [water]` passed, and `{field: water, in: [0]}` compared '0' with the
+    reading's text ('0.0') and never fired on a reading of 0 ppm: a silent never-true rule."""
+    path = tmp_path / "site.yaml"
+    path.write_text("ruleset: bw\nversion: 1\nfields: [site_area, water]\nclasses:\n  steam-turbine:\n"
+                    "    rules:\n      - id: water-zero\n        when: {field: water, in: [0]}\n        grade: watch\n"
+                    "        message: A water reading of zero is suspect\n        source: site practice\n",
+                    encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line, problem.path) == ("C019", 3, "$.fields[1]")
+    assert "{measure: water, below: x}" in problem.hint
