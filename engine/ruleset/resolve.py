@@ -12,7 +12,7 @@ import os
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
-from sumpwise.vocabulary.measures import UNIT_FAMILY, unit_key
+from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, UNIT_FAMILY, unit_key
 from sumpwise.vocabulary.problems import InvalidFile, Problem
 from sumpwise.ruleset.schema import piece_of, schema_findings
 from sumpwise.ruleset.yaml_source import YamlDocument, load_yaml
@@ -158,6 +158,12 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
     problems.extend(doc.problems)
     if not isinstance(doc.data, dict):
         problems.append(doc.problem((), "a rule set must be a mapping with at least `ruleset` and `version`", code="R001"))
+        return None
+    columns = set(doc.data) & (set(INPUT_MEASURES) | set(KNOWN_FIELDS))
+    if "ruleset" not in doc.data and len(columns) * 2 >= len(doc.data):
+        problems.append(doc.problem((), f"this is not a rule set: its keys are sample columns "
+                                        f"({', '.join(sorted(columns)[:4])}, ...), as in a column map",
+                                    code="R001", hint="give the column map with --columns and the rule set with --rules"))
         return None
     own_problems, spoiled = schema_findings(doc)
     problems.extend(own_problems)

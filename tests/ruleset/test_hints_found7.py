@@ -114,3 +114,15 @@ def test_a_misspelt_expected_grade_of_an_example_gets_the_nearest(tmp_path, writ
         f"    expect: {{grade: {written}}}\n"), encoding="utf-8")
     (problem,) = check_ruleset(path).errors
     assert (problem.code, problem.line, problem.hint) == ("C010", 14, f"did you mean '{meant}'?")
+
+
+def test_a_column_map_given_as_the_rule_set_is_one_error_that_says_so(tmp_path):
+    """Up to engine 0.8.0 it was fourteen errors, one per column (`unknown key 'kv40'`), and two more for
+    the missing `ruleset` and `version`."""
+    path = tmp_path / "columns.yaml"
+    path.write_text("sample_id: Sample No\nunit_id: Asset\nclass: Equipment class\nlubricant: Oil\n"
+                    "sampled_on: {column: Date sampled, format: '%d/%m/%Y'}\nkv40: V40\nan: TAN\n"
+                    "water: {column: Water KF, unit: ppm}\n", encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line) == ("R001", 1)
+    assert "--columns" in problem.hint
