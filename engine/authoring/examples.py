@@ -16,6 +16,7 @@ import pandas as pd
 
 from sumpwise.intake.column_map import MAPPABLE_FIELDS
 from sumpwise.intake.samples import NUMERIC_COLUMNS
+from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.pipeline import grade
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.results.records import UNRATED, SampleResult
@@ -119,11 +120,12 @@ def _differences(ruleset: RuleSet, example: Example, result: SampleResult) -> tu
         elif rule in fired:
             differences.append(f"quiet: expected {rule} to stay quiet, but it fired ({_reason_text(fired[rule])})")
     raised = {note.caveat for note in result.caveats}
-    known_caveats = {caveat.id for caveat in ruleset.caveats}
+    known_caveats = {caveat.id for caveat in ruleset.caveats} | set(ENGINE_CAVEATS)
     for caveat in expect.get("caveats", []):
         if caveat not in known_caveats:
-            differences.append(f"caveats: the rule set has no caveat '{caveat}'{_did_you_mean(caveat, known_caveats)} "
-                               f"(it has: {', '.join(sorted(known_caveats)) or 'none'})")
+            own = sorted(c.id for c in ruleset.caveats)
+            differences.append(f"caveats: neither the rule set nor the engine has a caveat '{caveat}'"
+                               f"{_did_you_mean(caveat, known_caveats)} (the rule set has: {', '.join(own) or 'none'})")
         elif caveat not in raised:
             differences.append(f"caveats: expected caveat {caveat} on the sample, but it was not raised")
     return tuple(differences)

@@ -46,3 +46,38 @@ def test_a_sample_written_in_the_files_percent_fails_and_says_the_unit_it_is_rea
 
 def test_the_same_sample_in_ppm_holds(tmp_path):
     assert _failures(tmp_path, "300") == ()  # 300 ppm = 0.03 %: above 0.02 %, below 0.05 %
+
+
+LUBRICANTS = """\
+ruleset: brackwater-codes
+version: 1
+lubricants:
+  TURB-46-M: {base_stock: mineral, kv40: 45.9, an: 0.07}
+classes:
+  steam-turbine:
+    rules:
+      - id: acid-rise
+        measure: an_rise
+        above: {watch: 0.1, alert: 0.2}
+        message: Acid number has risen above new oil
+        source: site practice
+examples:
+  - name: a code the table lacks leaves the acid rise unknown, and says so
+    sample: {class: steam-turbine, lubricant: TURB-46-X, an: 0.40}
+    expect: {quiet: [], caveats: [CAVEAT]}
+"""
+
+
+def test_an_example_may_expect_a_caveat_the_engine_raises_itself(tmp_path):
+    """Up to engine 0.8.0 `caveats: [unknown-lubricant]` was refused (C012, "no such caveat"),
+    though the engine raises it on every sample whose code the lubricants table lacks."""
+    path = tmp_path / "site.yaml"
+    path.write_text(LUBRICANTS.replace("CAVEAT", "unknown-lubricant"), encoding="utf-8")
+    assert check_examples(load_ruleset(path)) == ()
+
+
+def test_a_misspelt_engine_caveat_is_still_a_failure_with_the_nearest(tmp_path):
+    path = tmp_path / "site.yaml"
+    path.write_text(LUBRICANTS.replace("CAVEAT", "unknown-lubricants"), encoding="utf-8")
+    (failure,) = check_examples(load_ruleset(path))
+    assert "did you mean 'unknown-lubricant'?" in failure.differences[0]
