@@ -174,6 +174,8 @@ class _Builder:
 
     def _scalar(self, node: yaml.Node, path: tuple):
         """Construct one scalar, refusing what would mislead later: non-finite numbers, unprintable text."""
+        if node.tag == "tag:yaml.org,2002:value":  # YAML 1.1 reads a plain `=` as a "default value" marker
+            return node.value
         try:
             value = self.loader.construct_object(node, deep=True)
         except (ValueError, OverflowError) as exc:  # e.g. an integer of more digits than Python converts

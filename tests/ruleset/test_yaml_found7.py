@@ -131,3 +131,9 @@ def test_a_rule_missing_two_keys_counts_two_problems(tmp_path):
     found = check_ruleset(path)
     assert sorted(p.message for p in found.errors) == ["this mapping needs the key 'message'",
                                                        "this mapping needs the key 'source'"]
+
+
+def test_a_plain_equals_sign_is_text():
+    """YAML 1.1 resolves a plain `=` to its "value" type, which the safe loader cannot build: up to
+    engine 0.8.0 `equals: =` (a lab's flag column) was refused as a tag that is not plain data."""
+    assert parse_yaml("when: {field: flag, equals: =}\n", "f.yaml").data == {"when": {"field": "flag", "equals": "="}}
