@@ -348,12 +348,13 @@ class _ClassBuilder:
                 gives = f"class '{spec['extends']}' or " if "extends" in spec else ""
                 top = dropped in self.merged.rules or any(
                     rule.get("id") == dropped for rule in self.doc.data.get("rules", []) if isinstance(rule, dict))
+                close = difflib.get_close_matches(dropped, sorted(target), n=1)
                 self.problems.append(doc.problem(
                     ("classes", name, "drop", i), f"drop names rule '{dropped}', but neither {gives}an extended rule "
                     f"set gives class '{name}' a rule with that id", code="R006",
                     hint=f"'{dropped}' is a top-level rule, which `drop` does not remove: to change it for this "
                          f"class, give the class its own rule '{dropped}' (it wins over the top-level one)"
-                    if top else ""))
+                    if top else f"did you mean '{close[0]}'?" if close else ""))
         own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), self.problems, "rule", self.skipped)
         self.merged.replaced.extend((rule, target[ident]) for ident, rule in own.items() if ident in target)
         target.update(own)

@@ -126,3 +126,14 @@ def test_a_column_map_given_as_the_rule_set_is_one_error_that_says_so(tmp_path):
     (problem,) = check_ruleset(path).errors
     assert (problem.code, problem.line) == ("R001", 1)
     assert "--columns" in problem.hint
+
+
+def test_drop_of_a_misspelt_class_rule_gets_the_nearest_id(tmp_path):
+    (tmp_path / "parent.yaml").write_text(
+        "ruleset: bw-parent\nversion: 1\nclasses:\n  gearbox:\n    rules:\n"
+        "      - {id: iron-climbing, when: {measure: iron_rising, above: 2}, grade: watch, message: Iron keeps rising,"
+        " source: site practice}\nmeasures:\n  iron: {unit: ppm}\n", encoding="utf-8")
+    (tmp_path / "site.yaml").write_text("ruleset: bw-site\nversion: 1\nextends: parent.yaml\nclasses:\n"
+                                        "  gearbox:\n    drop: [iron-rising]\n", encoding="utf-8")
+    (problem,) = check_ruleset(tmp_path / "site.yaml").errors
+    assert (problem.code, problem.line, problem.hint) == ("R006", 6, "did you mean 'iron-climbing'?")
