@@ -257,6 +257,16 @@ _LARGEST_INT = int(1.7976931348623157e308)  # the largest finite float, as an in
 _DECIMAL = re.compile(r"[-+]?(?:(?:0|[1-9][0-9_]*)(?:\.[0-9_]*)?|\.[0-9_]+)(?:[eE][-+]?[0-9]+)?")
 
 
+def _yaml_hint(text: str, mark, reason: str) -> str:
+    """What a site lead most likely did, for the YAML errors people meet."""
+    if "another document" in reason:
+        return ("a rule set is one YAML document: remove the `---` line, or put the second part in a file "
+                "of its own and name it under `extends`")
+    if "tab character" in reason:
+        return "indent with spaces: YAML does not allow tabs for indentation"
+    return _indicator_hint(text, mark)
+
+
 def _indicator_hint(text: str, mark) -> str:
     """A plain value that starts with `*` or `&` is an alias or an anchor to YAML: an ISO 4406 code
     written `*/16/13` (a size not reported) fails to load with a message about alias names."""
@@ -325,7 +335,7 @@ def parse_yaml(text: str, file: str, keep_going: bool = False) -> YamlDocument:
             line, column = (mark.line + 1, mark.column + 1) if mark else (0, 0)
             reason = exc.problem or exc.context or "not valid YAML"
             raise InvalidFile([Problem(file, line, column, f"not valid YAML: {reason}", code="Y001",
-                                       hint=_indicator_hint(text, mark))]) from None
+                                       hint=_yaml_hint(text, mark, reason))]) from None
         except yaml.YAMLError as exc:
             raise InvalidFile([Problem(file, 0, 0, f"not valid YAML: {exc}", code="Y001")]) from None
         if root is None:

@@ -137,3 +137,14 @@ def test_a_plain_equals_sign_is_text():
     """YAML 1.1 resolves a plain `=` to its "value" type, which the safe loader cannot build: up to
     engine 0.8.0 `equals: =` (a lab's flag column) was refused as a tag that is not plain data."""
     assert parse_yaml("when: {field: flag, equals: =}\n", "f.yaml").data == {"when": {"field": "flag", "equals": "="}}
+
+
+@pytest.mark.parametrize("text, line, hint", [
+    ("ruleset: bw\nversion: 1\n---\nruleset: bw-2\nversion: 2\n", 3, "a rule set is one YAML document"),
+    ("ruleset: bw\nversion: 1\nclasses:\n  pump:\n\trules: []\n", 5, "indent with spaces"),
+])
+def test_a_second_document_or_a_tab_is_refused_with_what_to_do(text, line, hint):
+    with pytest.raises(Exception) as caught:
+        parse_yaml(text, "site.yaml")
+    (problem,) = caught.value.problems
+    assert (problem.code, problem.line) == ("Y001", line) and problem.hint.startswith(hint)
