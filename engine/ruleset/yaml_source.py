@@ -262,7 +262,9 @@ def _yaml_hint(text: str, mark, reason: str) -> str:
     if "another document" in reason:
         return ("a rule set is one YAML document: remove the `---` line, or put the second part in a file "
                 "of its own and name it under `extends`")
-    if "tab character" in reason:
+    lines = text.split("\n")
+    line = lines[mark.line] if mark is not None and mark.line < len(lines) else ""
+    if "tab character" in reason or "\t" in line[:len(line) - len(line.lstrip())]:
         return "indent with spaces: YAML does not allow tabs for indentation"
     return _indicator_hint(text, mark)
 
