@@ -20,10 +20,9 @@ import pandas as pd
 from sumpwise.evaluation.evaluator import NOT_APPLICABLE, NOT_EVALUATED
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import UNRATED, GradedBatch
-from sumpwise.ruleset.compiler import _caveat_doc, rule_doc
+from sumpwise.ruleset.compiler import caveat_doc, rule_doc
 from sumpwise.ruleset.model import Lubricant, RuleSet
 from sumpwise.vocabulary.limit_tests import LADDER_TESTS
-from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.intake.samples import SampleBatch
 
 _ABSENT = NOT_APPLICABLE  # a rule the sample's class does not have in that rule set
@@ -106,7 +105,7 @@ _NONE = "(none)"
 
 
 def ruleset_changes(old: RuleSet, new: RuleSet) -> tuple:
-    """Every limit, rule, caveat, new-oil value and noise margin that differs, piece by piece.
+    """Every limit, rule, caveat, new-oil value, declared unit and noise margin that differs, piece by piece.
 
     Read from the compiled rule sets, so a limit rewritten in another unit (0.08 abs/0.1mm for
     8 abs/cm) is no change, and a limit a child file changes through `extends` is one."""
@@ -120,14 +119,20 @@ def ruleset_changes(old: RuleSet, new: RuleSet) -> tuple:
         before = {rule.id: rule_doc(rule, old.grades) for rule in old_rules}
         after = {rule.id: rule_doc(rule, new.grades) for rule in new_rules}
         for ident in dict.fromkeys([*before, *after]):
-            changes += _piece_changes(f"{scope}, rule {ident}", before.get(ident), after.get(ident))
-    before = {c.id: _caveat_doc(c, old.grades) for c in old.caveats}
-    after = {c.id: _caveat_doc(c, new.grades) for c in new.caveats}
+            changes += _piece_changes(f"{scope}, rule {ident}", before.get(ident), after.get(ident),
+                                      units=(old.unit_of, new.unit_of))
+    before = {c.id: caveat_doc(c, old.grades) for c in old.caveats}
+    after = {c.id: caveat_doc(c, new.grades) for c in new.caveats}
     for ident in dict.fromkeys([*before, *after]):
         changes += _piece_changes(f"caveat {ident}", before.get(ident), after.get(ident))
     for code in sorted(set(old.lubricants) | set(new.lubricants)):
         changes += _piece_changes(f"lubricant {code}", _lubricant_values(old.lubricants.get(code)),
                                   _lubricant_values(new.lubricants.get(code)), prefix="new-oil ")
+    for name in sorted(set(old.measure_units) | set(new.measure_units)):  # a declared measure's unit is the lab's
+        was, now = old.measure_units.get(name), new.measure_units.get(name)
+        if was != now:
+            changes.append(RuleSetChange(f"declared measure {name}", "unit" if was is not None and now is not None
+                                         else "added" if was is None else "removed", _shown(was), _shown(now)))
     for name in sorted(set(old.noise_margins) | set(new.noise_margins)):
         was, now = old.noise_margins.get(name), new.noise_margins.get(name)
         if was != now:
@@ -142,9 +147,10 @@ def _lubricant_values(lubricant: Lubricant | None) -> dict | None:
             if f.name != "code" and getattr(lubricant, f.name) is not None}
 
 
-def _piece_changes(where: str, before: dict | None, after: dict | None, prefix: str = "") -> list:
+def _piece_changes(where: str, before: dict | None, after: dict | None, prefix: str = "", units=None) -> list:
     """A piece added or removed is one change; a piece in both, one change per part that differs,
-    and one per grade of a ladder whose measure and test stayed (`watch above 0.2 -> 0.25`)."""
+    and one per grade of a ladder whose measure and test stayed (`watch above 0.2 -> 0.25`), each
+    limit with its unit in its own rule set (a declared measure's unit may differ between them)."""
     if before == after:
         return []
     if before is None or after is None:
@@ -154,7 +160,8 @@ def _piece_changes(where: str, before: dict | None, after: dict | None, prefix: 
     changes = []
     same_ladder = before.get("measure") == after.get("measure") and \
         [k for k in LADDER_TESTS if k in before] == [k for k in LADDER_TESTS if k in after]
-    unit = measure_unit(after.get("measure", ""))
+    measure = after.get("measure", "")
+    old_unit, new_unit = (units[0](measure), units[1](measure)) if units else ("", "")
     for key in dict.fromkeys([*before, *after]):
         was, now = before.get(key, _NONE), after.get(key, _NONE)
         if was == now:
@@ -162,8 +169,8 @@ def _piece_changes(where: str, before: dict | None, after: dict | None, prefix: 
         if same_ladder and key in LADDER_TESTS:
             for grade in dict.fromkeys([*was, *now]):
                 if was.get(grade) != now.get(grade):
-                    changes.append(RuleSetChange(where, f"{grade} {key}", _shown(was.get(grade), unit),
-                                                 _shown(now.get(grade), unit)))
+                    changes.append(RuleSetChange(where, f"{grade} {key}", _shown(was.get(grade), old_unit),
+                                                 _shown(now.get(grade), new_unit)))
         else:
             changes.append(RuleSetChange(where, f"{prefix}{key}", _shown(was), _shown(now)))
     return changes

@@ -715,7 +715,7 @@ def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
         "classes": {name: {"rules": [rule_doc(r, ruleset.grades) for r in rules]}
                     for name, rules in ruleset.classes.items()},
         "rules": [rule_doc(r, ruleset.grades) for r in ruleset.rules],
-        "caveats": [_caveat_doc(c, ruleset.grades) for c in ruleset.caveats],
+        "caveats": [caveat_doc(c, ruleset.grades) for c in ruleset.caveats],
     }
     if measure_specs:
         doc["measures"] = {name: dict(spec) for name, spec in sorted(measure_specs.items())}
@@ -743,7 +743,7 @@ def _lubricant_doc(lub: Lubricant, top_folder: Path) -> dict:
     return doc
 
 
-def _caveat_doc(caveat: Caveat, grades: tuple) -> dict:
+def caveat_doc(caveat: Caveat, grades: tuple) -> dict:
     doc = {"id": caveat.id, "when": condition_doc(caveat.when)}
     if caveat.cap is not None:
         cap = {"measures": sorted(caveat.cap.measures), "grade": grades[caveat.cap.level]}

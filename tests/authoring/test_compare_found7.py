@@ -65,3 +65,14 @@ def test_compare_prints_the_changes_when_no_sample_moves(data):
     assert "Screening aid only" in run.out
     same = run_cli("compare", old, old, "--samples", samples)
     assert "rule-set changes: none (the two rule sets grade alike)" in same.out
+
+
+def test_a_declared_measures_unit_change_is_listed_with_each_limit_in_its_own_unit(data):
+    """A child declaring iron in ppb over a parent in ppm (1 ppm = 1000 ppb) and restating the limits:
+    the same limits, but every number differs, so each is shown in the unit its rule set reads it in."""
+    folder = data / "rulesets" / "found2"
+    changes = ruleset_changes(load_ruleset(folder / "declared-parent.yaml"),
+                              load_ruleset(folder / "declared-child-restated.yaml"))
+    shown = {(c.where, c.what): (c.before, c.after) for c in changes}
+    assert shown[("class gearbox, rule iron-high", "watch above")] == ("100 ppm", "100000 ppb")
+    assert shown[("declared measure iron", "unit")] == ("ppm", "ppb")
