@@ -137,3 +137,13 @@ def test_drop_of_a_misspelt_class_rule_gets_the_nearest_id(tmp_path):
                                         "  gearbox:\n    drop: [iron-rising]\n", encoding="utf-8")
     (problem,) = check_ruleset(tmp_path / "site.yaml").errors
     assert (problem.code, problem.line, problem.hint) == ("R006", 6, "did you mean 'iron-climbing'?")
+
+
+def test_a_message_of_spaces_only_is_refused(tmp_path):
+    """A result's reason shows the rule's message: up to engine 0.8.0 `message: " "` passed and the
+    record carried an empty message."""
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("WATCH", "200").replace("message: Water in the oil", 'message: " "'),
+                    encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line, problem.path) == ("S005", 9, "$.classes.steam-turbine.rules[0].message")
