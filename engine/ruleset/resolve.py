@@ -18,6 +18,9 @@ from sumpwise.ruleset.schema import piece_of, schema_findings
 from sumpwise.ruleset.yaml_source import YamlDocument, load_yaml
 
 DEFAULT_GRADES = ("normal", "watch", "alert", "urgent")
+# Files in one `extends` chain, the top one included: a site file over a few shipped ones is
+# 2 or 3 deep; a chain of a thousand files would end in a RecursionError, not a problem.
+MAX_EXTENDS_DEPTH = 32
 
 
 @dataclass(frozen=True)
@@ -183,6 +186,12 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
         except (OSError, ValueError) as exc:  # a name too long, or holding a NUL byte
             problems.append(doc.problem(at, f"extends names '{target[:80]}', which cannot be a file name: "
                                             f"{getattr(exc, 'strerror', None) or exc}", code="R003"))
+            continue
+        if len(stack) + 2 > MAX_EXTENDS_DEPTH:
+            problems.append(doc.problem(at, f"extends goes more than {MAX_EXTENDS_DEPTH} files deep here "
+                                            f"(a file extends one that extends another, and so on)", code="R010",
+                                        hint="extend fewer files in a row: merge the middle ones"))
+            merged.incomplete = True
             continue
         if parent_path.resolve() in stack + (key,):
             chain = " -> ".join(str(p) for p in stack + (key, parent_path.resolve()))

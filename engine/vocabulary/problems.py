@@ -44,6 +44,7 @@ PROBLEM_CODES = {
     "R007": "a class extends a class no file of the chain gives",
     "R008": "class extends makes a cycle",
     "R009": "a file that cannot be read hides what it would have checked (a note)",
+    "R010": "an extends chain longer than the loading limit",
     "C001": "a grade that is not on the ladder",
     "C002": "a limit for the lowest grade",
     "C003": "unknown measure",

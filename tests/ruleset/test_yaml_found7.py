@@ -148,3 +148,15 @@ def test_a_second_document_or_a_tab_is_refused_with_what_to_do(text, line, hint)
         parse_yaml(text, "site.yaml")
     (problem,) = caught.value.problems
     assert (problem.code, problem.line) == ("Y001", line) and problem.hint.startswith(hint)
+
+
+def test_an_extends_chain_of_a_thousand_files_is_a_problem_not_a_recursion_error(tmp_path):
+    """Up to engine 0.8.0 a chain of 1,500 files ended in a RecursionError traceback (exit 1)."""
+    from sumpwise.ruleset.resolve import MAX_EXTENDS_DEPTH
+    for i in range(1000):
+        parent = f"extends: c{i + 1}.yaml\n" if i < 999 else ""
+        (tmp_path / f"c{i}.yaml").write_text(f"ruleset: c{i}\nversion: 1\n{parent}", encoding="utf-8")
+    (problem,) = check_ruleset(tmp_path / "c0.yaml").errors
+    assert (problem.code, problem.file, problem.line) == ("R010", str(tmp_path / f"c{MAX_EXTENDS_DEPTH - 1}.yaml"), 3)
+    shallow = check_ruleset(tmp_path / f"c{1000 - MAX_EXTENDS_DEPTH}.yaml")  # exactly the limit: fine
+    assert not shallow.errors
