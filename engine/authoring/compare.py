@@ -112,6 +112,8 @@ def ruleset_changes(old: RuleSet, new: RuleSet) -> tuple:
     changes = []
     if old.grades != new.grades:
         changes.append(RuleSetChange("rule set", "grades", _shown(list(old.grades)), _shown(list(new.grades))))
+    if old.notice != new.notice:  # on every result: an auditor reads it
+        changes.append(RuleSetChange("rule set", "notice", old.notice, new.notice))
     scopes = [(f"class {name}", old.classes.get(name, ()), new.classes.get(name, ()))
               for name in sorted(set(old.classes) | set(new.classes))]
     scopes.append(("every class", old.rules, new.rules))

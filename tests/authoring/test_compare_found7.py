@@ -76,3 +76,14 @@ def test_a_declared_measures_unit_change_is_listed_with_each_limit_in_its_own_un
     shown = {(c.where, c.what): (c.before, c.after) for c in changes}
     assert shown[("class gearbox, rule iron-high", "watch above")] == ("100 ppm", "100000 ppb")
     assert shown[("declared measure iron", "unit")] == ("ppm", "ppb")
+
+
+def test_a_changed_notice_is_listed(tmp_path, data):
+    old, _, _ = _pair(data)
+    new = tmp_path / "v4-notice.yaml"
+    new.write_text(old.read_text(encoding="utf-8").replace(
+        "version: 4\n", "version: 4\nnotice: Screening aid only. Manufacturer limits and site procedures come first.\n"),
+        encoding="utf-8")
+    (change,) = ruleset_changes(load_ruleset(old), load_ruleset(new))
+    assert (change.where, change.what) == ("rule set", "notice")
+    assert change.after == "Screening aid only. Manufacturer limits and site procedures come first."
