@@ -15,7 +15,7 @@ from importlib import resources
 import jsonschema
 
 from sumpwise.vocabulary.problems import Problem
-from sumpwise.ruleset.yaml_source import YamlDocument
+from sumpwise.ruleset.yaml_source import COMMA_SPLIT, YamlDocument
 
 
 @lru_cache(maxsize=1)
@@ -84,6 +84,10 @@ def _number_hint(value, expected) -> str:
     if not found:
         return ""
     number, exponent, unit = found.groups()
+    if re.fullmatch(r",\d+", unit) and not exponent:
+        thousands = len(unit) == 4 and number.lstrip("+-")[:1] not in ("0", "")
+        return (f"YAML numbers take a decimal point and no separators: write {number}.{unit[1:]} for a decimal "
+                f"comma" + (f", {number}{unit[1:]} for a thousands separator" if thousands else ""))
     if unit:
         return (f"write the number alone ({number}); a limit is in its measure's unit, or in the unit this "
                 f"file's `units:` gives (water: ppm or %, FTIR: abs/cm or abs/0.1mm)")
@@ -147,8 +151,11 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
             [k for k in error.validator_value if k not in value][:1]
         return [doc.problem(path, f"this mapping needs the key '{k}'", code="S002") for k in missing]
     if kind == "type":
+        hint = _number_hint(value, error.validator_value)
+        if value is None and path and str(path[-1]).isdigit():
+            hint = COMMA_SPLIT  # `{watch: 0,2}` is {watch: 0, 2: null}
         return [doc.problem(path, f"expected {_expected_types(error.validator_value)} here, found {_kind(value)} "
-                                  f"{_shown(value)}", code="S003", hint=_number_hint(value, error.validator_value))]
+                                  f"{_shown(value)}", code="S003", hint=hint)]
     if kind == "enum":
         options = ", ".join(str(v) for v in error.validator_value)
         return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}", code="S004")]

@@ -172,7 +172,7 @@ class _Builder:
             self.written[path] = node.value
         return value
 
-    def _scalar(self, node: yaml.Node, path: tuple):
+    def _scalar(self, node: yaml.Node, path: tuple, key: bool = False):
         """Construct one scalar, refusing what would mislead later: non-finite numbers, unprintable text."""
         if node.tag == "tag:yaml.org,2002:value":  # YAML 1.1 reads a plain `=` as a "default value" marker
             return node.value
@@ -193,7 +193,8 @@ class _Builder:
                 self.file, mark.line, mark.column,
                 f"the number {_short(node.value)} is not written in plain decimal: YAML 1.1 reads it as {value!r} "
                 f"(a leading 0 makes it octal, 0x hexadecimal, a colon base 60)", json_path(path), code="Y012",
-                hint="write the number in decimal without leading zeros (200, 0.05), or quote it if it is text"), path)
+                hint=COMMA_SPLIT if key else
+                "write the number in decimal without leading zeros (200, 0.05), or quote it if it is text"), path)
         if isinstance(value, float) and not math.isfinite(value):
             self._report(Problem(self.file, mark.line, mark.column,
                                  f"a number must be finite, found {node.value!r}", json_path(path), code="Y007"), path)
@@ -232,7 +233,7 @@ class _Builder:
                     for key, merged_key, merged_value in self._entries(source, path):
                         merged.setdefault(key, (merged_key, merged_value))
                 continue
-            key = self._scalar(key_node, path) if isinstance(key_node, yaml.ScalarNode) else None
+            key = self._scalar(key_node, path, key=True) if isinstance(key_node, yaml.ScalarNode) else None
             if not isinstance(key, (str, int, float, bool)) or key is None:
                 mark = _mark(key_node)
                 self._report(Problem(self.file, mark.line, mark.column,
@@ -251,6 +252,10 @@ class _Builder:
 
 
 _MERGE = "tag:yaml.org,2002:merge"
+# `{watch: 1,000}` and `{watch: 0,2}`: inside braces a comma separates entries, so the digits after
+# it become a key of their own (sumpwise.ruleset.schema says the same of such a key's empty value)
+COMMA_SPLIT = ("inside {...} a comma separates entries, so a thousands separator (1,000) or a decimal "
+                "comma (0,2) splits the number: write 1000 or 0.2")
 _LARGEST_INT = int(1.7976931348623157e308)  # the largest finite float, as an integer
 # A number as people write it: no leading zeros (0200 is octal 128 to YAML 1.1), no base prefix
 # (0x, 0b), no base-60 colons (1:30 is 90); underscores as digit separators are read as written.

@@ -147,3 +147,26 @@ def test_a_message_of_spaces_only_is_refused(tmp_path):
                     encoding="utf-8")
     (problem,) = check_ruleset(path).errors
     assert (problem.code, problem.line, problem.path) == ("S005", 9, "$.classes.steam-turbine.rules[0].message")
+
+
+@pytest.mark.parametrize("written, hint", [
+    ("1,000", "write 1.000 for a decimal comma, 1000 for a thousands separator"),
+    ("0,2", "write 0.2 for a decimal comma"),
+])
+def test_a_comma_in_a_block_limit_is_refused_with_both_readings(tmp_path, written, hint):
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("above: {watch: WATCH, alert: 1000}", f"above:\n          watch: {written}"),
+                    encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert problem.code == "S003" and problem.hint.endswith(hint)
+
+
+@pytest.mark.parametrize("ladder, codes", [("{watch: 0,2, alert: 0,4}", ["S003", "S003"]),
+                                           ("{watch: 1,000, alert: 5,000}", ["Y012", "Y004", "Y012"])])
+def test_a_comma_inside_braces_splits_the_number_and_each_problem_says_so(tmp_path, ladder, codes):
+    """`{watch: 0,2}` is {watch: 0, 2: null} to YAML: a limit of 0 would otherwise be what was read."""
+    path = tmp_path / "site.yaml"
+    path.write_text(LADDER.replace("{watch: WATCH, alert: 1000}", ladder), encoding="utf-8")
+    errors = check_ruleset(path).errors
+    assert [p.code for p in errors] == codes
+    assert all("a comma separates entries" in p.hint for p in errors if p.code != "Y004")
