@@ -113,15 +113,19 @@ def _unit_readers(data: dict, spoiled: set) -> set:
     if not lost:
         return set()
     pieces = set()
-    for name, spec in (data.get("classes") or {}).items():
-        for i, rule in enumerate((spec or {}).get("rules") or [] if isinstance(spec, dict) else []):
+    classes = data.get("classes") if isinstance(data.get("classes"), dict) else {}
+    for name, spec in classes.items():
+        rules = spec.get("rules") if isinstance(spec, dict) else None
+        for i, rule in enumerate(rules if isinstance(rules, list) else []):
             if _reads(rule) & lost:
                 pieces.add(("classes", name, "rules", i))
     for key in ("rules", "caveats"):
-        pieces |= {(key, i) for i, item in enumerate(data.get(key) or []) if _reads(item) & lost}
-    pieces |= {("lubricants", code) for code, lub in (data.get("lubricants") or {}).items()
-               if isinstance(lub, dict) and set(lub) & lost}
-    pieces |= {("noise_margins", name) for name in (data.get("noise_margins") or {}) if unit_key(name) in lost}
+        items = data.get(key) if isinstance(data.get(key), list) else []
+        pieces |= {(key, i) for i, item in enumerate(items) if _reads(item) & lost}
+    for key in ("lubricants", "noise_margins"):
+        entries = data.get(key) if isinstance(data.get(key), dict) else {}
+        pieces |= {(key, name) for name, entry in entries.items()
+                   if (set(entry) if key == "lubricants" and isinstance(entry, dict) else {unit_key(name)}) & lost}
     return pieces
 
 

@@ -110,3 +110,11 @@ def test_a_measure_listed_as_a_text_field_is_an_error(tmp_path):
     (problem,) = check_ruleset(path).errors
     assert (problem.code, problem.line, problem.path) == ("C019", 3, "$.fields[1]")
     assert "{measure: water, below: x}" in problem.hint
+
+
+def test_a_refused_unit_beside_pieces_of_the_wrong_shape_is_still_a_list_of_problems(tmp_path):
+    path = tmp_path / "site.yaml"
+    path.write_text("ruleset: bw\nversion: 1\nunits: {water: percent}\nclasses: [gearbox]\nrules: {a: 1}\n"
+                    "lubricants: [x]\nnoise_margins: {water: 3}\ncaveats: 5\n", encoding="utf-8")
+    assert [(p.line, p.code) for p in check_ruleset(path).errors] == [
+        (3, "S004"), (4, "S003"), (5, "S003"), (6, "S003"), (8, "S003")]
