@@ -43,7 +43,7 @@ def schema_findings(doc: YamlDocument) -> tuple[list[Problem], set]:
     spoiled: set = set()
     for error in _validator().iter_errors(doc.data):
         path = tuple(error.absolute_path)
-        if any(path[:len(bad)] == bad for bad in doc.spoiled):
+        if any(bad and path[:len(bad)] == bad for bad in doc.spoiled):
             spoiled.add(piece_of(path))
             continue
         problems.extend(_explain(doc, error))
