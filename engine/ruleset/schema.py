@@ -99,6 +99,12 @@ def _number_hint(value, expected) -> str:
     return ""
 
 
+# Spellings of the units the rule-set language knows (water content by mass: ASTM D6304 reports
+# mg/kg; percent by mass); the language keeps one spelling of each.
+_SAME_UNIT = {"mg/kg": "ppm", "ppmw": "ppm", "ppm w/w": "ppm", "% w/w": "%", "wt%": "%", "mass %": "%",
+              "percent": "%"}
+
+
 def _kind(value) -> str:
     if isinstance(value, bool):
         return "true/false"
@@ -158,7 +164,9 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
                                   f"{_shown(value)}", code="S003", hint=hint)]
     if kind == "enum":
         options = ", ".join(str(v) for v in error.validator_value)
-        return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}", code="S004")]
+        same = _SAME_UNIT.get(str(value).strip().lower()) if path[:1] == ("units",) else None
+        return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}", code="S004",
+                            hint=f"{value} is {same}: write {same!r}" if same in error.validator_value else "")]
     if kind == "pattern":
         if "+" in error.validator_value:
             what = "a base stock name such as mineral, pao, ester or mineral+ester"

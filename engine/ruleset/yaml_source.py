@@ -271,6 +271,10 @@ def _yaml_hint(text: str, mark, reason: str) -> str:
     line = lines[mark.line] if mark is not None and mark.line < len(lines) else ""
     if "tab character" in reason or "\t" in line[:len(line) - len(line.lstrip())]:
         return "indent with spaces: YAML does not allow tabs for indentation"
+    at = line[mark.column:mark.column + 1] if mark is not None else ""
+    if at in ("%", "@", "`"):
+        example = "{water: '%'}" if at == "%" else f"'{at}...'"
+        return f"a value that starts with {at} must be quoted in YAML, e.g. {example}"
     return _indicator_hint(text, mark)
 
 

@@ -160,3 +160,21 @@ def test_an_extends_chain_of_a_thousand_files_is_a_problem_not_a_recursion_error
     assert (problem.code, problem.file, problem.line) == ("R010", str(tmp_path / f"c{MAX_EXTENDS_DEPTH - 1}.yaml"), 3)
     shallow = check_ruleset(tmp_path / f"c{1000 - MAX_EXTENDS_DEPTH}.yaml")  # exactly the limit: fine
     assert not shallow.errors
+
+
+@pytest.mark.parametrize("text", ["units: {water: %}\n", "units:\n  water: %\n"])
+def test_an_unquoted_percent_unit_is_refused_with_the_quoting_that_fixes_it(text):
+    """`water: %` is how a lead writes it; YAML cannot start a plain value with %."""
+    with pytest.raises(Exception) as caught:
+        parse_yaml("ruleset: bw\nversion: 1\n" + text, "site.yaml")
+    (problem,) = caught.value.problems
+    assert problem.code == "Y001" and problem.hint == "a value that starts with % must be quoted in YAML, e.g. {water: '%'}"
+    assert parse_yaml("units: {water: '%'}\n", "site.yaml").data == {"units": {"water": "%"}}
+
+
+@pytest.mark.parametrize("written, same", [("percent", "'%'"), ("mg/kg", "'ppm'")])
+def test_another_spelling_of_a_known_unit_is_refused_with_the_one_the_language_keeps(tmp_path, written, same):
+    path = tmp_path / "site.yaml"
+    path.write_text(f"ruleset: bw\nversion: 1\nunits: {{water: {written}}}\n", encoding="utf-8")
+    (problem,) = check_ruleset(path).errors
+    assert (problem.code, problem.line) == ("S004", 3) and problem.hint.endswith(f"write {same}")
