@@ -202,8 +202,11 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
             problems.append(doc.problem(at, f"extends makes a cycle: {chain}", code="R002"))
             continue
         if not parent_path.is_file():
+            near = [str(parent_path) + ext for ext in (".yaml", ".yml") if Path(str(parent_path) + ext).is_file()]
             problems.append(doc.problem(at, f"extends names '{target}', but there is no file {parent_path}", code="R003",
-                                        hint="the rules that file would give were not checked"))
+                                        hint=f"did you mean '{target}{near[0][len(str(parent_path)):]}'? (the rules "
+                                             f"that file would give were not checked)" if near else
+                                        "the rules that file would give were not checked"))
             merged.incomplete = True
             continue
         parent = _resolve(parent_path, stack + (key,), cache, problems)

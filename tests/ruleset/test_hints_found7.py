@@ -170,3 +170,10 @@ def test_a_comma_inside_braces_splits_the_number_and_each_problem_says_so(tmp_pa
     errors = check_ruleset(path).errors
     assert [p.code for p in errors] == codes
     assert all("a comma separates entries" in p.hint for p in errors if p.code != "Y004")
+
+
+def test_extends_without_the_yaml_ending_names_the_file_it_meant(tmp_path):
+    (tmp_path / "turbines.yaml").write_text("ruleset: bw-turbines\nversion: 1\n", encoding="utf-8")
+    (tmp_path / "site.yaml").write_text("ruleset: bw-site\nversion: 1\nextends: [turbines]\n", encoding="utf-8")
+    (problem,) = check_ruleset(tmp_path / "site.yaml").errors
+    assert (problem.code, problem.line) == ("R003", 3) and problem.hint.startswith("did you mean 'turbines.yaml'?")
