@@ -356,11 +356,18 @@ def _units(ruleset: RuleSet):
             unit = written[0][1] or measure_unit(measure)
             values = ", ".join(_num(value) for value, _ in written)
             key = unit_key(measure)
-            declared = (f"this file writes {key} in {unit}; " if written[0][1] else "")
+            own = ruleset.file_units.get(owner.origin.file, {})
+            declared = (f"this file writes {key} in {unit}; " if key in own else "")
+            elsewhere = sorted({(file, units[key]) for file, units in ruleset.file_units.items()
+                                if file != owner.origin.file and units.get(key) not in (None, unit)})
             yield _warning("W009", owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
                                          f"in the wrong unit: {why}",
                            f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
-                           if declared else f"write the limit in {unit}")
+                           if declared else
+                           f"this file gives no `units:` for {key}, so its limits are read in {unit}; another file's "
+                           f"`units:` ({elsewhere[0][0]}: {key} in {elsewhere[0][1]}) applies to that file's limits "
+                           f"only: add `units: {{{key}: '{elsewhere[0][1]}'}}` here if the limit is in "
+                           f"{elsewhere[0][1]}" if elsewhere else f"write the limit in {unit}")
 
 
 # -- implausible viscosity ------------------------------------------------------------------------

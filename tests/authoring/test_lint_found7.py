@@ -37,3 +37,23 @@ def test_the_warned_rule_indeed_never_fires_on_a_graded_sample(data):
     records, _ = graded_run("-", "--rules", str(_rules(data)), stdin=samples)
     assert records["GB-0800"]["grade"] == "watch" and fired_rules(records["GB-0800"]) == {"water"}
     assert fired_rules(records["ST-0800"]) == {"water", "turbine-acid"}  # the two rules lint keeps quiet on
+
+
+def test_a_child_writing_in_its_parents_units_is_told_that_units_do_not_carry_over(tmp_path):
+    """A child with no `units:` over a parent in %: its water limits are ppm (rule-language draft:
+    `units` applies to the limits of the file that declares it). 0.05 and 0.1 "ppm" graded every
+    gearbox sample alert; up to engine 0.8.0 the warning's hint said "this file writes water in ppm",
+    which it does not. Karl Fischer reports from 10 mg/kg (ASTM D6304)."""
+    (tmp_path / "parent.yaml").write_text(
+        "ruleset: bw-parent\nversion: 1\nunits: {water: '%'}\nclasses:\n  steam-turbine:\n    rules:\n"
+        "      - {id: water, measure: water, above: {watch: 0.02, alert: 0.05}, message: Water in the oil, "
+        "source: site practice}\n", encoding="utf-8")
+    (tmp_path / "site.yaml").write_text(
+        "ruleset: bw-site\nversion: 1\nextends: parent.yaml\nclasses:\n  gearbox:\n    rules:\n"
+        "      - {id: water, measure: water, above: {watch: 0.05, alert: 0.1}, message: Water in the gear oil, "
+        "source: site practice}\n", encoding="utf-8")
+    checked = check_ruleset(tmp_path / "site.yaml")
+    (warning,) = [p for p in lint_ruleset(checked.ruleset) if p.code == "W009"]
+    assert warning.file == str(tmp_path / "site.yaml") and warning.line == 7
+    assert "this file gives no `units:` for water, so its limits are read in ppm" in warning.hint
+    assert "add `units: {water: '%'}` here" in warning.hint
