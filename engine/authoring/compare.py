@@ -117,6 +117,11 @@ def ruleset_changes(old: RuleSet, new: RuleSet) -> tuple:
     scopes = [(f"class {name}", old.classes.get(name, ()), new.classes.get(name, ()))
               for name in sorted(set(old.classes) | set(new.classes))]
     scopes.append(("every class", old.rules, new.rules))
+    for name in sorted(set(old.class_drops) | set(new.class_drops)):
+        was, now = old.class_drops.get(name, ()), new.class_drops.get(name, ())
+        if was != now:
+            changes.append(RuleSetChange(f"class {name}", "drops top-level rules", _shown(list(was)) if was else _NONE,
+                                         _shown(list(now)) if now else _NONE))
     for scope, old_rules, new_rules in scopes:
         before = {rule.id: rule_doc(rule, old.grades) for rule in old_rules}
         after = {rule.id: rule_doc(rule, new.grades) for rule in new_rules}

@@ -134,6 +134,8 @@ class _Compiler:
             measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
             lubricant_origins={code: self._origin(entries[-1]) for code, entries in r.lubricants.items()},
             noise_margins=margins,
+            class_drops={name: tuple(sorted(ids)) for name, ids in sorted(r.class_drops.items())
+                         if ids and name in r.classes},
         )
         self._check_overrides()
         if any(p.severity == "error" for p in self.problems):
@@ -200,11 +202,12 @@ class _Compiler:
         inherited one and gives less than it could (a child restating one limit, `above: {watch:
         100}`, loses the parent's higher grades for that measure)."""
         for ident, placed in self.r.rules.items():
-            owners = [name for name, rules in self.r.classes.items() if ident in rules]
+            owners = [name for name, rules in self.r.classes.items()
+                      if ident in rules or ident in self.r.class_drops.get(name, ())]
             if owners and len(owners) == len(self.r.classes):
                 self.problems.append(placed.problem(
                     f"top-level rule '{ident}' applies to no class: every class ({', '.join(sorted(owners))}) has its "
-                    f"own rule '{ident}', which wins over it", ("id",), code="W002", severity="warning",
+                    f"own rule '{ident}', which wins over it, or drops it", ("id",), code="W002", severity="warning",
                     hint=f"to change '{ident}' for a class, write it under that class (same id)"))
         in_force = {id(p) for p in self.r.rules.values()} | {id(p) for rules in self.r.classes.values()
                                                                for p in rules.values()}
@@ -712,7 +715,8 @@ def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
         "units": {key: FACTORS_CANONICAL[family] for key, family in sorted(UNIT_FAMILY.items())},
         "lubricants": {code: _lubricant_doc(lub, Path(ruleset.files[-1]).resolve().parent)
                        for code, lub in ruleset.lubricants.items()},
-        "classes": {name: {"rules": [rule_doc(r, ruleset.grades) for r in rules]}
+        "classes": {name: {"rules": [rule_doc(r, ruleset.grades) for r in rules],
+                           **({"drop": list(ruleset.class_drops[name])} if name in ruleset.class_drops else {})}
                     for name, rules in ruleset.classes.items()},
         "rules": [rule_doc(r, ruleset.grades) for r in ruleset.rules],
         "caveats": [caveat_doc(c, ruleset.grades) for c in ruleset.caveats],

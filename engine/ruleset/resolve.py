@@ -62,6 +62,7 @@ class Resolved:
     examples: list = field(default_factory=list)
     files: list = field(default_factory=list)
     class_places: dict = field(default_factory=dict)  # class name -> where it was last declared
+    class_drops: dict = field(default_factory=dict)  # class name -> ids of top-level rules it drops
     # A file of the chain could not be read, or pieces were left out for schema errors: checks
     # that need the whole chain (drop, a class's base) would only report what that hides.
     incomplete: bool = False
@@ -240,6 +241,8 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
         target = merged.classes.setdefault(name, {})
         target.update(rules)
     merged.class_places.update(parent.class_places)
+    for name, ids in parent.class_drops.items():
+        merged.class_drops.setdefault(name, set()).update(ids)
     merged.rules.update(parent.rules)
     merged.caveats.update(parent.caveats)
     merged.replaced.extend(pair for pair in parent.replaced if not any(pair[0] is p[0] for p in merged.replaced))
@@ -358,19 +361,19 @@ class _ClassBuilder:
         self.merged.class_places[name] = Placed(spec, doc, ("classes", name))
         target = {**start, **self.merged.classes.get(name, {})}
         for i, dropped in enumerate(spec.get("drop", [])):
+            top = dropped in self.merged.rules or any(
+                isinstance(rule, dict) and rule.get("id") == dropped for rule in self.doc.data.get("rules", []))
+            if top:  # a top-level rule: this class no longer takes it
+                self.merged.class_drops.setdefault(name, set()).add(dropped)
             if dropped in target:
                 del target[dropped]
-            elif not self.merged.incomplete:
+            elif not top and not self.merged.incomplete:
                 gives = f"class '{spec['extends']}' or " if "extends" in spec else ""
-                top = dropped in self.merged.rules or any(
-                    rule.get("id") == dropped for rule in self.doc.data.get("rules", []) if isinstance(rule, dict))
                 close = difflib.get_close_matches(dropped, sorted(target), n=1)
                 self.problems.append(doc.problem(
                     ("classes", name, "drop", i), f"drop names rule '{dropped}', but neither {gives}an extended rule "
-                    f"set gives class '{name}' a rule with that id", code="R006",
-                    hint=f"'{dropped}' is a top-level rule, which `drop` does not remove: to change it for this "
-                         f"class, give the class its own rule '{dropped}' (it wins over the top-level one)"
-                    if top else f"did you mean '{close[0]}'?" if close else ""))
+                    f"set gives class '{name}' a rule with that id, nor is it a top-level rule", code="R006",
+                    hint=f"did you mean '{close[0]}'?" if close else ""))
         own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), self.problems, "rule", self.skipped)
         self.merged.replaced.extend((rule, target[ident]) for ident, rule in own.items() if ident in target)
         target.update(own)

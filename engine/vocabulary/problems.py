@@ -40,7 +40,7 @@ PROBLEM_CODES = {
     "R003": "extends names a file that does not exist",
     "R004": "an id is used twice in one list",
     "R005": "grade ladders of the extended rule sets differ",
-    "R006": "drop names a rule no extended rule set gives",
+    "R006": "drop names a rule no extended rule set gives and no top-level rule has",
     "R007": "a class extends a class no file of the chain gives",
     "R008": "class extends makes a cycle",
     "R009": "a file that cannot be read hides what it would have checked (a note)",

@@ -1,9 +1,8 @@
 """Refusals a site lead meets, with the reason and the fix at the place: YAML's exponent rule, a
-unit written beside a limit, a top-level rule named in `drop`, a cap at the lowest grade.
+unit written beside a limit, a cap at the lowest grade, and other slips.
 
 Up to engine 0.8.0 `1e3` was "expected a number here, found text" with no why (YAML 1.1 reads a
-float only with a dot and a signed exponent: its float resolver, yaml.org/type/float); `drop:
-[water]` on a top-level rule said no extended rule set gives the class that rule; a cap at
+float only with a dot and a signed exponent: its float resolver, yaml.org/type/float); a cap at
 `normal` was refused as "a limit or rule for it can never raise a sample's grade", which is not
 what a cap does. Water figures: limits.md, common practice, no source.
 """
@@ -46,17 +45,6 @@ def test_a_unit_beside_a_limit_is_refused_with_where_units_go(tmp_path, written)
     path.write_text(LADDER.replace("WATCH", written), encoding="utf-8")
     (problem,) = check_ruleset(path).errors
     assert problem.code == "S003" and problem.hint.startswith(f"write the number alone ({written[:-3].strip()}")
-
-
-def test_drop_of_a_top_level_rule_says_how_to_change_it_for_the_class(tmp_path):
-    (tmp_path / "parent.yaml").write_text(
-        "ruleset: bw-parent\nversion: 1\nrules:\n  - {id: water, measure: water, above: {watch: 200}, "
-        "message: Water in the oil, source: site practice}\n", encoding="utf-8")
-    (tmp_path / "site.yaml").write_text("ruleset: bw-site\nversion: 1\nextends: parent.yaml\nclasses:\n"
-                                        "  gearbox:\n    drop: [water]\n", encoding="utf-8")
-    (problem,) = check_ruleset(tmp_path / "site.yaml").errors
-    assert (problem.code, problem.line) == ("R006", 6)
-    assert "'water' is a top-level rule" in problem.hint
 
 
 def test_a_cap_at_the_lowest_grade_is_refused_for_what_it_would_do(tmp_path):
