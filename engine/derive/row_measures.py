@@ -24,12 +24,16 @@ from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, ISO4406
 # sample must say so where people look, not only in its not-evaluated list.
 # A row's base stock that disagrees with its lubricant's on the ester carbonyl: the ester caveats
 # follow the row, the new-oil values (an ester's own carbonyl among them) the table, so the
-# grade rests on two accounts of one oil and may be wrong either way.
+# grade rests on two accounts of one oil and may be wrong either way. A row whose ISO 4406 code
+# and particle counts disagree has one of them on another scale (sumpwise.derive.cleanliness).
 LUBRICANT_CAVEATS = (
     EngineCaveat("unknown-lubricant", "unknown_lubricant_note", "sumpwise engine: the rule set's lubricants table"),
     EngineCaveat("base-stock-disagrees", "base_stock_disagrees_note",
                  "sumpwise engine: the row's base_stock against the rule set's lubricants table (an ester's own "
                  "carbonyl inflates a direct FTIR oxidation reading: Tribology Transactions 55 (2012) 872)"),
+    EngineCaveat("counts-disagree-with-code", "iso4406_counts_note",
+                 "sumpwise engine: the row's ISO 4406 code against the scale numbers of its own particle counts "
+                 "(ISO 4406:1999 Table 1; two or more numbers apart: our choice, no source)"),
     EngineCaveat("oxidation-below-new", "oxidation_below_new_note",
                  "sumpwise engine: a direct FTIR carbonyl reading against its new oil's (oxidation adds carbonyl, "
                  "ASTM E2412; under half the new oil's reading: common practice, no source)"),
@@ -306,13 +310,14 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
             out[name] = np.where(np.isfinite(values), values, np.nan)
     out["vi"] = viscosity_index(out["kv40"], out["kv100"])
     codes = fields["iso4406"].to_numpy(dtype=object)
-    scales, at_least = cleanliness_measures(codes, {size: out[f"particles_{size}"] for size in ISO4406_SIZES})
+    scales, at_least, counts_notes = cleanliness_measures(codes, {size: out[f"particles_{size}"]
+                                                                  for size in ISO4406_SIZES})
     out.update(scales)
     for size in ISO4406_SIZES:  # a censored count where no code was written: the scale numbers it can have
         count, scale = f"particles_{size}", f"iso4406_{size}"
         if count in found:
             b = found[count]
-            rows = b.censored & np.isnan(out[scale])
+            rows = b.censored & np.isnan(out[scale]) & pd.isna(counts_notes)  # counts at odds with the code fill none
             least, most = scale_number_range(b.low, b.high, b.low_open)
             out[scale] = np.where(rows & (least == most), least, out[scale])  # '<=0.01' is scale 0, known
             rows &= least < most
@@ -335,6 +340,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out.update(_bound_columns(name, b))
     out["unknown_lubricant_note"] = _unknown_lubricant_notes(lubricant.to_numpy(dtype=object), list(lubricants))
     out["base_stock_disagrees_note"] = disagrees_notes
+    out["iso4406_counts_note"] = counts_notes
     out["oxidation_below_new_note"] = _oxidation_below_new_notes(out["oxidation"], out["new_oxidation"],
                                                                  lubricant.to_numpy(dtype=object))
     for name, series in fields.items():
