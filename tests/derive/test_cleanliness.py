@@ -83,6 +83,9 @@ def test_which_numbers_are_written_as_at_least(written, marks):
     ("20/18/>=14", (20, 18, 14)),
     (">28/27/24", (29, 27, 24)),  # ISO 4406:1999 (shared fact sheet limits.md): above 2,500,000 per mL is ">28"
     ("> 28/>28/-", (29, 29, None)),
+    # hyphens between numbers only: nothing else a hyphen could stand for there
+    ("18-16-13", (18, 16, 13)), (" 18 - 16 - 13 ", (18, 16, 13)), ("16-13", (None, 16, 13)),
+    ("*-16-13", (None, 16, 13)), ("20-18->=14", (20, 18, 14)),
 ])
 def test_codes_as_labs_write_them(written, numbers):
     assert read_iso4406(written) == numbers
