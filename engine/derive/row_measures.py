@@ -104,18 +104,20 @@ def _oxidation_below_new_notes(oxidation: np.ndarray, new: np.ndarray, codes: np
 
 # Derived measures that carry a censored input's bounds: how each is computed, and whether it
 # rises (+1) or falls (-1) with each input that may be censored. Each is monotonic in those
-# inputs (new-oil values and hours are positive), so the interval's ends map to the ends.
+# inputs (new-oil values and hours are positive), so the interval's ends map to the ends. A row's
+# own new-oil value may be censored too (`new_an` '<0.05'): it wins over the table as a number does.
 BOUNDED = (
-    ("kv40_change_pct", {"kv40": 1}, lambda v: (v["kv40"] - v["new_kv40"]) / v["new_kv40"] * 100.0),
-    ("kv100_change_pct", {"kv100": 1}, lambda v: (v["kv100"] - v["new_kv100"]) / v["new_kv100"] * 100.0),
-    ("an_rise", {"an": 1}, lambda v: v["an"] - v["new_an"]),
-    ("oxidation_rise", {"oxidation": 1}, lambda v: v["oxidation"] - v["new_oxidation"]),
+    ("kv40_change_pct", {"kv40": 1, "new_kv40": -1}, lambda v: (v["kv40"] - v["new_kv40"]) / v["new_kv40"] * 100.0),
+    ("kv100_change_pct", {"kv100": 1, "new_kv100": -1},
+     lambda v: (v["kv100"] - v["new_kv100"]) / v["new_kv100"] * 100.0),
+    ("an_rise", {"an": 1, "new_an": -1}, lambda v: v["an"] - v["new_an"]),
+    ("oxidation_rise", {"oxidation": 1, "new_oxidation": -1}, lambda v: v["oxidation"] - v["new_oxidation"]),
     ("oxidation_rise_per_1000h", {"oxidation_rise": 1}, lambda v: v["oxidation_rise"] * v["per_hour"]),
     ("an_rise_per_1000h", {"an_rise": 1}, lambda v: v["an_rise"] * v["per_hour"]),
     ("oxidation_differential_per_1000h", {"oxidation_differential": 1},
      lambda v: v["oxidation_differential"] * v["per_hour"]),
-    ("bn_retained_pct", {"bn": 1}, lambda v: v["bn"] / v["new_bn"] * 100.0),
-    ("rpvot_retained_pct", {"rpvot": 1}, lambda v: v["rpvot"] / v["new_rpvot"] * 100.0),
+    ("bn_retained_pct", {"bn": 1, "new_bn": -1}, lambda v: v["bn"] / v["new_bn"] * 100.0),
+    ("rpvot_retained_pct", {"rpvot": 1, "new_rpvot": -1}, lambda v: v["rpvot"] / v["new_rpvot"] * 100.0),
     ("bn_minus_an", {"bn": 1, "an": -1}, lambda v: v["bn"] - v["an"]),
 )
 
@@ -241,7 +243,11 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         reference = [np.nan if getattr(lub, name) is None else getattr(lub, name) for lub in lubricants.values()]
         from_table = _by_code(lookup, reference, np.nan).astype(float)
         own = _numbers(samples, f"new_{name}")
-        out[f"new_{name}"] = np.where(np.isnan(own), from_table, own)
+        # a row's own bound ('<0.05') is its value, not a gap for the table to fill (the table's 0.10
+        # would grade a rise 0.05 or more too small); derivation below carries the bound
+        held = samples[f"new_{name}{CENSORED_SUFFIX}"].notna().to_numpy() \
+            if f"new_{name}{CENSORED_SUFFIX}" in samples.columns else np.zeros(len(samples), dtype=bool)
+        out[f"new_{name}"] = np.where(np.isnan(own) & ~held, from_table, own)
 
     carried = {"comment"} & set(samples.columns)  # a lab's remark, carried into the record as written
     fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields) | carried}
@@ -283,7 +289,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]
     found = {}
-    for name in list(INPUT_MEASURES) + [m for m in extra_measures if m not in INPUT_MEASURES]:  # declared too
+    for name in (list(INPUT_MEASURES) + [m for m in extra_measures if m not in INPUT_MEASURES]  # declared too
+                 + [f"new_{name}" for name in REFERENCE_VALUES]):
         if name + CENSORED_SUFFIX in samples.columns:
             texts = samples[name + CENSORED_SUFFIX].to_numpy(dtype=object)
             found[name] = bounds(name, texts, samples[name + WRITTEN_SUFFIX].to_numpy(dtype=object))
