@@ -13,7 +13,7 @@ reading does. Limits: site practice and ASTM D4378's 25 % of new RPVOT (from mem
 from __future__ import annotations
 
 import pytest
-from conftest import DATA
+from conftest import DATA, run_cli
 
 from support.grade_runs import counts_said, graded_run
 
@@ -53,3 +53,25 @@ def test_a_bound_that_cannot_decide_the_limit_leaves_the_rule_undecided(run):
     assert [(n["rule"], n.get("undecided")) for n in record["not_evaluated"] if n["rule"] == "acid-rise"] == [
         ("acid-rise", {"new_an": "<0.05"})]
     assert counts_said(err) == (6, 5, 1, 0)
+
+
+def test_a_new_oil_base_number_of_0_or_none_leaves_the_share_ungraded(tmp_path):
+    """bn / new bn x 100 has no value over a new BN of 0 (a row's typo, or an oil with no
+    reserve) and none without a new BN: the rule is not evaluated, and `explain` says why, never
+    a pass and never a share of infinity."""
+    rules = tmp_path / "engine.yaml"
+    rules.write_text("ruleset: derive-found7-bn\nversion: 1\nlubricants:\n  DSL-40-M: {base_stock: mineral, bn: 10.2}\n"
+                     "  DSL-40-X: {base_stock: mineral}\nclasses:\n  diesel-engine:\n    rules:\n"
+                     "      - {id: bn-left, measure: bn_retained_pct, below: {alert: 50}, message: Base number "
+                     "depleted, source: site practice}\n", encoding="utf-8")
+    samples = tmp_path / "engines.csv"
+    samples.write_text("sample_id,unit_id,class,lubricant,sampled_on,oil_hours,bn,new_bn\n"
+                       "BN-01,GEN-1,diesel-engine,DSL-40-M,2026-03-02,250,4.1,0\n"
+                       "BN-02,GEN-2,diesel-engine,DSL-40-X,2026-03-02,250,4.1,\n"
+                       "BN-03,GEN-3,diesel-engine,DSL-40-M,2026-03-02,250,4.1,\n", encoding="utf-8")
+    records, err = graded_run(samples, "--rules", rules, "--record", "full")
+    assert [records[s]["grade"] for s in ("BN-01", "BN-02", "BN-03")] == ["unrated", "unrated", "alert"]
+    assert records["BN-01"]["not_evaluated"] == [{"rule": "bn-left", "missing": ["bn_retained_pct"]}]
+    assert records["BN-02"]["not_evaluated"] == [{"rule": "bn-left", "missing": ["new_bn"]}]
+    told = run_cli("explain", "BN-01", "--samples", samples, "--rules", rules)
+    assert "the new oil's base number is 0" in " ".join(told.out.split())
