@@ -72,12 +72,41 @@ def read_codes(codes) -> tuple[np.ndarray, np.ndarray]:
     return out, at_least
 
 
-def cleanliness_measures(codes, counts: dict) -> tuple[dict, np.ndarray]:
-    """`iso4406_<size>` columns: the code's number where written, else the count's; and which
-    numbers the code wrote `>=n` (bool [rows, 3]), for derivation to take as n or higher."""
+# A lab computes its code from its own counts with the same table, so the two agree, give or
+# take one number where a count printed rounded sits at a range's edge. Two or more apart, one of
+# them is on another scale: counts per 100 mL read as per mL give numbers 6 to 7 higher (a factor
+# of 100 is log2(100) = 6.6 doublings), per 10 mL 3 to 4. (Our choice, no source.)
+DISAGREE_BY = 2
+
+
+def cleanliness_measures(codes, counts: dict) -> tuple[dict, np.ndarray, np.ndarray]:
+    """`iso4406_<size>` columns: the code's number where written, else the count's; which
+    numbers the code wrote `>=n` (bool [rows, 3]), for derivation to take as n or higher; and a
+    note per row whose code and counts disagree (None elsewhere). On such a row the counts fill
+    no size the code leaves out: which of the two is on the wrong scale cannot be told, and a
+    count read 100 times high would grade that size several grades too high."""
     written, at_least = read_codes(codes)
-    return ({f"iso4406_{size}": np.where(np.isnan(written[:, k]), scale_numbers(counts[size]), written[:, k])
-             for k, size in enumerate(ISO4406_SIZES)}, at_least)
+    from_counts = np.stack([scale_numbers(counts[size]) for size in ISO4406_SIZES], axis=1)
+    with np.errstate(invalid="ignore"):
+        apart = ~at_least & (np.abs(written - from_counts) >= DISAGREE_BY)  # NaN on either side: False
+    disagree = apart.any(axis=1)
+    filled = np.where(np.isnan(written) & ~disagree[:, None], from_counts, written)
+    notes = np.full(len(filled), None, dtype=object)
+    for row in np.flatnonzero(disagree):  # rows whose code and counts disagree: a few in a batch
+        notes[row] = _disagreement(codes[row], written[row], from_counts[row], counts, row, apart[row])
+    return {f"iso4406_{size}": filled[:, k] for k, size in enumerate(ISO4406_SIZES)}, at_least, notes
+
+
+def _disagreement(code, written, from_counts, counts: dict, row: int, apart: np.ndarray) -> str:
+    sizes = [f"at >= {size[:-2]} um(c) the code gives {written[k]:.0f}, the count {counts[size][row]:g} per mL "
+             f"gives {from_counts[k]:.0f}" for k, size in enumerate(ISO4406_SIZES) if apart[k]]
+    left = [f"{size[:-2]} um(c)" for k, size in enumerate(ISO4406_SIZES)
+            if np.isnan(written[k]) and not np.isnan(from_counts[k])]
+    return (f"the ISO 4406 code '{code}' and the particle counts disagree ({'; '.join(sizes)}): counts per 100 mL "
+            f"read as per mL give numbers 6 to 7 higher, per 10 mL 3 to 4. The code's numbers are graded"
+            + (f"; the counts give no number for the sizes the code leaves out ({', '.join(left)}), so rules on "
+               f"those are not evaluated" if left else "")
+            + "; rules on the counts themselves read them as written. Check the counts' unit and the column map")
 
 
 def read_cleanliness_codes(batch: SampleBatch) -> SampleBatch:

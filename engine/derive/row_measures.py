@@ -24,12 +24,16 @@ from sumpwise.vocabulary.measures import (INPUT_MEASURES, ISO4406_SIZES, ISO4406
 # sample must say so where people look, not only in its not-evaluated list.
 # A row's base stock that disagrees with its lubricant's on the ester carbonyl: the ester caveats
 # follow the row, the new-oil values (an ester's own carbonyl among them) the table, so the
-# grade rests on two accounts of one oil and may be wrong either way.
+# grade rests on two accounts of one oil and may be wrong either way. A row whose ISO 4406 code
+# and particle counts disagree has one of them on another scale (sumpwise.derive.cleanliness).
 LUBRICANT_CAVEATS = (
     EngineCaveat("unknown-lubricant", "unknown_lubricant_note", "sumpwise engine: the rule set's lubricants table"),
     EngineCaveat("base-stock-disagrees", "base_stock_disagrees_note",
                  "sumpwise engine: the row's base_stock against the rule set's lubricants table (an ester's own "
                  "carbonyl inflates a direct FTIR oxidation reading: Tribology Transactions 55 (2012) 872)"),
+    EngineCaveat("counts-disagree-with-code", "iso4406_counts_note",
+                 "sumpwise engine: the row's ISO 4406 code against the scale numbers of its own particle counts "
+                 "(ISO 4406:1999 Table 1; two or more numbers apart: our choice, no source)"),
     EngineCaveat("oxidation-below-new", "oxidation_below_new_note",
                  "sumpwise engine: a direct FTIR carbonyl reading against its new oil's (oxidation adds carbonyl, "
                  "ASTM E2412; under half the new oil's reading: common practice, no source)"),
@@ -100,18 +104,20 @@ def _oxidation_below_new_notes(oxidation: np.ndarray, new: np.ndarray, codes: np
 
 # Derived measures that carry a censored input's bounds: how each is computed, and whether it
 # rises (+1) or falls (-1) with each input that may be censored. Each is monotonic in those
-# inputs (new-oil values and hours are positive), so the interval's ends map to the ends.
+# inputs (new-oil values and hours are positive), so the interval's ends map to the ends. A row's
+# own new-oil value may be censored too (`new_an` '<0.05'): it wins over the table as a number does.
 BOUNDED = (
-    ("kv40_change_pct", {"kv40": 1}, lambda v: (v["kv40"] - v["new_kv40"]) / v["new_kv40"] * 100.0),
-    ("kv100_change_pct", {"kv100": 1}, lambda v: (v["kv100"] - v["new_kv100"]) / v["new_kv100"] * 100.0),
-    ("an_rise", {"an": 1}, lambda v: v["an"] - v["new_an"]),
-    ("oxidation_rise", {"oxidation": 1}, lambda v: v["oxidation"] - v["new_oxidation"]),
+    ("kv40_change_pct", {"kv40": 1, "new_kv40": -1}, lambda v: (v["kv40"] - v["new_kv40"]) / v["new_kv40"] * 100.0),
+    ("kv100_change_pct", {"kv100": 1, "new_kv100": -1},
+     lambda v: (v["kv100"] - v["new_kv100"]) / v["new_kv100"] * 100.0),
+    ("an_rise", {"an": 1, "new_an": -1}, lambda v: v["an"] - v["new_an"]),
+    ("oxidation_rise", {"oxidation": 1, "new_oxidation": -1}, lambda v: v["oxidation"] - v["new_oxidation"]),
     ("oxidation_rise_per_1000h", {"oxidation_rise": 1}, lambda v: v["oxidation_rise"] * v["per_hour"]),
     ("an_rise_per_1000h", {"an_rise": 1}, lambda v: v["an_rise"] * v["per_hour"]),
     ("oxidation_differential_per_1000h", {"oxidation_differential": 1},
      lambda v: v["oxidation_differential"] * v["per_hour"]),
-    ("bn_retained_pct", {"bn": 1}, lambda v: v["bn"] / v["new_bn"] * 100.0),
-    ("rpvot_retained_pct", {"rpvot": 1}, lambda v: v["rpvot"] / v["new_rpvot"] * 100.0),
+    ("bn_retained_pct", {"bn": 1, "new_bn": -1}, lambda v: v["bn"] / v["new_bn"] * 100.0),
+    ("rpvot_retained_pct", {"rpvot": 1, "new_rpvot": -1}, lambda v: v["rpvot"] / v["new_rpvot"] * 100.0),
     ("bn_minus_an", {"bn": 1, "an": -1}, lambda v: v["bn"] - v["an"]),
 )
 
@@ -237,7 +243,11 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         reference = [np.nan if getattr(lub, name) is None else getattr(lub, name) for lub in lubricants.values()]
         from_table = _by_code(lookup, reference, np.nan).astype(float)
         own = _numbers(samples, f"new_{name}")
-        out[f"new_{name}"] = np.where(np.isnan(own), from_table, own)
+        # a row's own bound ('<0.05') is its value, not a gap for the table to fill (the table's 0.10
+        # would grade a rise 0.05 or more too small); derivation below carries the bound
+        held = samples[f"new_{name}{CENSORED_SUFFIX}"].notna().to_numpy() \
+            if f"new_{name}{CENSORED_SUFFIX}" in samples.columns else np.zeros(len(samples), dtype=bool)
+        out[f"new_{name}"] = np.where(np.isnan(own) & ~held, from_table, own)
 
     carried = {"comment"} & set(samples.columns)  # a lab's remark, carried into the record as written
     fields = {name: _texts(samples, name) for name in set(KNOWN_FIELDS) | set(extra_fields) | carried}
@@ -279,7 +289,8 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out["rpvot_retained_pct"] = out["rpvot"] / out["new_rpvot"] * 100.0
         out["bn_minus_an"] = out["bn"] - out["an"]
     found = {}
-    for name in list(INPUT_MEASURES) + [m for m in extra_measures if m not in INPUT_MEASURES]:  # declared too
+    for name in (list(INPUT_MEASURES) + [m for m in extra_measures if m not in INPUT_MEASURES]  # declared too
+                 + [f"new_{name}" for name in REFERENCE_VALUES]):
         if name + CENSORED_SUFFIX in samples.columns:
             texts = samples[name + CENSORED_SUFFIX].to_numpy(dtype=object)
             found[name] = bounds(name, texts, samples[name + WRITTEN_SUFFIX].to_numpy(dtype=object))
@@ -306,13 +317,14 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
             out[name] = np.where(np.isfinite(values), values, np.nan)
     out["vi"] = viscosity_index(out["kv40"], out["kv100"])
     codes = fields["iso4406"].to_numpy(dtype=object)
-    scales, at_least = cleanliness_measures(codes, {size: out[f"particles_{size}"] for size in ISO4406_SIZES})
+    scales, at_least, counts_notes = cleanliness_measures(codes, {size: out[f"particles_{size}"]
+                                                                  for size in ISO4406_SIZES})
     out.update(scales)
     for size in ISO4406_SIZES:  # a censored count where no code was written: the scale numbers it can have
         count, scale = f"particles_{size}", f"iso4406_{size}"
         if count in found:
             b = found[count]
-            rows = b.censored & np.isnan(out[scale])
+            rows = b.censored & np.isnan(out[scale]) & pd.isna(counts_notes)  # counts at odds with the code fill none
             least, most = scale_number_range(b.low, b.high, b.low_open)
             out[scale] = np.where(rows & (least == most), least, out[scale])  # '<=0.01' is scale 0, known
             rows &= least < most
@@ -335,6 +347,7 @@ def derive_measures(samples: pd.DataFrame, lubricants: dict, extra_measures=(), 
         out.update(_bound_columns(name, b))
     out["unknown_lubricant_note"] = _unknown_lubricant_notes(lubricant.to_numpy(dtype=object), list(lubricants))
     out["base_stock_disagrees_note"] = disagrees_notes
+    out["iso4406_counts_note"] = counts_notes
     out["oxidation_below_new_note"] = _oxidation_below_new_notes(out["oxidation"], out["new_oxidation"],
                                                                  lubricant.to_numpy(dtype=object))
     for name, series in fields.items():

@@ -53,9 +53,9 @@ def wants_progress(stream, rows: int, min_rows: int = PROGRESS_MIN_ROWS) -> bool
 # (the no-silent-pass ones): a trend cut or a rate not taken counts. Not among them: trend-break,
 # oil-changed (a known new charge: nothing is missing) and unit-id-spelling (the spellings are
 # joined into one unit, so the trend is whole).
-FIRST_CAVEATS = ("unknown-lubricant", "base-stock-disagrees", "oxidation-below-new", "unknown-class",
-                 "few-rules-evaluated", "grade-may-be-higher", "oil-charge-unknown", "class-changed", "one-moment",
-                 "oil-hours-not-from-fill", "oil-hours-slip", "oil-change-untold")
+FIRST_CAVEATS = ("unknown-lubricant", "base-stock-disagrees", "oxidation-below-new", "counts-disagree-with-code",
+                 "unknown-class", "few-rules-evaluated", "grade-may-be-higher", "oil-charge-unknown", "class-changed",
+                 "one-moment", "oil-hours-not-from-fill", "oil-hours-slip", "oil-change-untold")
 
 
 def _why(result) -> str:

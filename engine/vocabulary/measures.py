@@ -146,7 +146,7 @@ ISO4406_TOP = 28  # the published table's last row; a count above it is given 29
 def read_iso4406(text: str) -> tuple:
     """A cleanliness code as labs write it -> (scale number or None) at >= 4, 6 and 14 um(c).
 
-    `18/16/13` (spaces around the solidi, or en or em dashes for them, `18–16–13`, read alike);
+    `18/16/13` (spaces around the solidi, or hyphens, en or em dashes for them, `18-16-13`, read alike);
     the two-number form `16/13` (>= 6 and >= 14 um(c) only) or `-/16/13`; `-` or
     `*` for a size not reported; `>28` (beyond the standard's table) is 29, as scale_numbers
     gives a count above 2,500,000 per mL. A number written `>=7` or with the sign U+2265 (fewer than 20
@@ -161,9 +161,17 @@ def iso4406_parts(text: str) -> list:
     fewer than 20 particles counted, so the true number is n or higher (ISO 4406:1999; a
     censored value, not the number n). Raises ValueError as read_iso4406 does."""
     written = str(text).strip()
+    hyphens = "/" not in written and "-" in written and any(c.isdigit() for c in written)
     if "/" not in written:  # `18–16–13`: ISO 4406 writes solidi (18/16/13); an en or em dash is a typographic slip
         written = written.replace("\u2013", "/").replace("\u2014", "/")  # (common practice, no source)
+        # `18-16-13`: hyphens between numbers only; where one stands alone it may mean a size not reported
+        # (`-16-13`, `18--13`), so such a code is refused rather than guessed
+        written = written.replace("-", "/") if hyphens else written
     parts = [part.strip() for part in written.split("/")]
+    if hyphens and "" in parts:
+        raise ValueError(f"the ISO 4406 code '{text}' has a hyphen where a number should be: with hyphens between "
+                         f"the numbers, a size not reported cannot be told from a separator; write solidi "
+                         f"(-/16/13 or 18/-/13)")
     if len(parts) == 2:
         parts = ["-"] + parts
     if len(parts) != 3:

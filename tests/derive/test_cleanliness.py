@@ -83,12 +83,15 @@ def test_which_numbers_are_written_as_at_least(written, marks):
     ("20/18/>=14", (20, 18, 14)),
     (">28/27/24", (29, 27, 24)),  # ISO 4406:1999 (shared fact sheet limits.md): above 2,500,000 per mL is ">28"
     ("> 28/>28/-", (29, 29, None)),
+    # hyphens between numbers only: nothing else a hyphen could stand for there
+    ("18-16-13", (18, 16, 13)), (" 18 - 16 - 13 ", (18, 16, 13)), ("16-13", (None, 16, 13)),
+    ("*-16-13", (None, 16, 13)), ("20-18->=14", (20, 18, 14)),
 ])
 def test_codes_as_labs_write_them(written, numbers):
     assert read_iso4406(written) == numbers
 
 
-@pytest.mark.parametrize("written", ["18-16-13", "18/16/13/11", "18", "a/b/c", "31/16/13", "-/-/-", ""])
+@pytest.mark.parametrize("written", ["-16-13", "18--13", "18/16/13/11", "18", "a/b/c", "31/16/13", "-/-/-", ""])
 def test_codes_that_cannot_be_read(written):
     with pytest.raises(ValueError):
         read_iso4406(written)
@@ -98,8 +101,10 @@ def test_the_written_code_wins_and_counts_fill_what_it_leaves_out():
     codes = np.array(["18/16/13", "-/16/13", None, None], dtype=object)
     counts = {"4um": np.array([100.0, 2000.0, 2000.0, np.nan]), "6um": np.array([50.0, 600.0, 600.0, np.nan]),
               "14um": np.array([5.0, 60.0, 60.0, np.nan])}
-    out, at_least = cleanliness_measures(codes, counts)
+    out, at_least, notes = cleanliness_measures(codes, counts)
     assert not at_least.any()
+    # 100/50/5 per mL is 14/13/9, four or more from 18/16/13: the row says so (2000/600/60 is 18/16/13)
+    assert [note is not None for note in notes] == [True, False, False, False]
     assert out["iso4406_4um"].tolist()[:3] == [18, 18, 18]  # as written; then from 2000 /mL (1300 to 2500)
     assert out["iso4406_6um"].tolist()[:3] == [16, 16, 16]
     assert out["iso4406_14um"].tolist()[:3] == [13, 13, 13]
@@ -107,7 +112,7 @@ def test_the_written_code_wins_and_counts_fill_what_it_leaves_out():
 
 
 def test_an_unreadable_code_rejects_its_row_with_field_and_code():
-    frame = pd.DataFrame({"sample_id": ["A", "B", "C"], "iso4406": ["18/16/13", "18-16-13", None]},
+    frame = pd.DataFrame({"sample_id": ["A", "B", "C"], "iso4406": ["18/16/13", "18/16/13/11", None]},
                          index=[1, 2, 3])
     batch = read_cleanliness_codes(SampleBatch(frame, (), 3, "t.csv"))
     assert batch.frame["sample_id"].tolist() == ["A", "C"]

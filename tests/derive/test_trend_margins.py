@@ -115,7 +115,7 @@ def test_a_margin_for_a_measure_without_trends_or_a_bad_code_is_a_problem(tmp_pa
         _compile(tmp_path, "noise_margins: {vi: 1, oil_hours: 5}\n")
     assert sorted(p.code for p in caught.value.problems) == ["C014", "C014"]
     with pytest.raises(InvalidFile) as caught:
-        _compile(tmp_path, "classes:\n  hydraulic:\n    rules:\n      - id: c\n        iso4406: {watch: 17-15-12}\n"
+        _compile(tmp_path, "classes:\n  hydraulic:\n    rules:\n      - id: c\n        iso4406: {watch: 17--12}\n"
                            "        message: m\n        source: s\n")
     assert [(p.code, p.line) for p in caught.value.problems] == [("C015", 7)]
 
