@@ -160,7 +160,7 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
     ruleset = _ruleset_of(path, current)
     result = rebuilt_result(current["content"], current["facts"], current["vals"], ruleset, current["engine"],
                             current["value_names"], current["source"], current["method"])
-    story = explain_lines(result, ruleset.grades)
+    story = explain_lines(result, ruleset.grades, units=ruleset.unit_of)
     values = ", ".join(f"{name} {_number(value)}" for name, value in result.values if value is not None)
     story[1:1] = [f"Values as recorded: {values or '(none)'}; method {result.method}"]
     at = next(i for i, line in enumerate(story) if line.startswith("Rule set "))
@@ -186,7 +186,7 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
         told += ["", f"Re-graded under rule set {other.id} version {other.version} (sha256 {other.sha256}); "
                      f"not recorded, the ledger is unchanged: {result.grade} as recorded, {regraded.grade} under "
                      f"this rule set.", ""]
-        told += explain_lines(regraded, other.grades)
+        told += explain_lines(regraded, other.grades, units=other.unit_of)
     return told
 
 
