@@ -43,7 +43,7 @@ from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import SampleResult
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.ruleset.model import RuleSet
-from sumpwise.vocabulary.cautions import caution_text
+from sumpwise.vocabulary.cautions import CAUTIONS, caution_text
 from sumpwise.vocabulary.measures import TREND_BASES
 from sumpwise.vocabulary.problems import InputError
 
@@ -276,8 +276,8 @@ def unit_forecasts(path, unit_id: str) -> tuple[RuleSet | None, tuple]:
 def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", forecasts=(),
                   ruleset: RuleSet | None = None) -> None:
     """The unit's samples; in the table, then the forecasts (made under `ruleset`) if given."""
-    if fmt == "csv":
-        spreadsheet_frame(unit).to_csv(stream, index=False, lineterminator="\n")
+    if fmt == "csv":  # read by a person in a spreadsheet: the cautions on every row, as grade's CSV has them
+        spreadsheet_frame(unit.assign(cautions=" ".join(CAUTIONS))).to_csv(stream, index=False, lineterminator="\n")
     elif fmt == "jsonl":
         stream.write(unit.to_json(orient="records", lines=True, force_ascii=False))
     else:

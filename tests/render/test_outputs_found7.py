@@ -187,3 +187,28 @@ def test_the_csv_carries_the_cautions_when_the_site_notice_leaves_them_out(tmp_p
     rows = list(csv.DictReader(io.StringIO(run.out)))
     assert rows and "resampling" not in rows[0]["notice"]
     assert all(row["cautions"] == " ".join(CAUTIONS) for row in rows)
+
+
+def test_a_units_history_as_csv_carries_the_cautions(tmp_path):
+    """history --format csv is opened in a spreadsheet like grade's CSV; it carried no caution."""
+    db = tmp_path / "site.db"
+    assert run_cli("grade", FOUND / "dirt-wear.csv", "--rules", FOUND / "dirt-wear.yaml", "--db", db,
+                   "--out", tmp_path / "r.jsonl").code == 0
+    run = run_cli("history", "SWP-4", "--db", db, "--format", "csv")
+    assert run.code == 0
+    rows = list(csv.DictReader(io.StringIO(run.out)))
+    assert [r["sample_id"] for r in rows] == ["BP-7201", "BP-7202"]
+    assert all(r["cautions"] == " ".join(CAUTIONS) for r in rows)
+
+
+def test_check_says_the_cautions_after_its_verdicts_ok_or_failed(tmp_path):
+    """A rule set found "ok" is valid, not right for the machine; check printed the verdict alone."""
+    ok = run_cli("check", FOUND / "dirt-wear.yaml")
+    assert ok.code == 0 and ": ok: rule set brackwater-gear-dirt" in ok.out
+    assert ok.out.splitlines()[1:] == ["! " + c for c in CAUTIONS]
+    broken = tmp_path / "broken.yaml"
+    broken.write_text("ruleset: broken\nversion: 1\nclasses:\n  pump:\n    rules:\n      - id: w\n"
+                      "        measure: wter\n        above: {watch: 100}\n        message: Water\n"
+                      "        source: site practice\n", encoding="utf-8")
+    failed = run_cli("check", broken)
+    assert failed.code == 2 and "C003" in failed.err and all(c in failed.out for c in CAUTIONS)
