@@ -28,8 +28,8 @@ from sumpwise.intake.samples import load_column_map, read_samples
 def run_check(paths, strict: bool, stdout, stderr) -> int:
     """Check each rule set in one pass: schema, extends, meaning, lint and examples, every problem sorted.
 
-    Diagnostics go to stderr, one verdict line per file to stdout, then the cautions ("! " lines). Where errors leave pieces
-    out, lint runs on the rest and the examples are not run (a note says so).
+    Diagnostics go to stderr, one verdict line per file to stdout, then the cautions ("! " lines).
+    Where errors leave pieces out, lint runs on the rest and the examples are not run (a note says so).
     """
     failed = 0
     for path in paths:

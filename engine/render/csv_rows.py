@@ -8,8 +8,8 @@ as name=reading as written (`water(water=<500)`: present, but not below or above
 where a bare `water(water)` means no value); `next_steps` the rule set's steps for what
 applies, each once, as the table words them; `notice` the rule set's notice (the cautions),
 as a full JSON Lines record carries it; `cautions` the engine's cautions
-(engine/vocabulary/cautions.py), which a site's own notice may leave out. Built column-wise like the JSON Lines
-writer: each rule's text once per state, joined over the rows.
+(engine/vocabulary/cautions.py), which a site's own notice may leave out. Built column-wise
+like the JSON Lines writer: each rule's text once per state, joined over the rows.
 """
 
 from __future__ import annotations

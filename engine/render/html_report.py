@@ -17,7 +17,7 @@ import io
 import json
 import re
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import date
 from functools import lru_cache
 from html import escape
@@ -30,7 +30,7 @@ from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
 from sumpwise.results.records import undecided_from_record
-from sumpwise.render.narrative import forecast_limit_phrase, gap_phrase, rounded, step_phrase
+from sumpwise.render.narrative import forecast_cap, forecast_limit_phrase, gap_phrase, rounded, step_phrase
 from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
                                       render_plot)
@@ -343,6 +343,7 @@ class UnitView:
     flagged: int
     graded_by: tuple = ()  # the (id, version, sha256) of each rule set that graded the unit's samples, in order
     spellings: tuple = ()  # the unit id as each sample's record writes it, each spelling once, in date order
+    ruleset: RuleSet | None = field(default=None, repr=False, compare=False)  # its latest sample's, when known
 
     @property
     def worsening(self) -> bool:
@@ -402,7 +403,7 @@ def unit_views(records, ruleset: RuleSet | None = None, rulesets: dict | None = 
                               series, latest.get("level"), move, rising, max(levels) if levels else None,
                               sum(1 for s in samples if (s.get("level") or 0) > 0),
                               tuple(dict.fromkeys(_graded_by(s) for s in samples)),
-                              tuple(dict.fromkeys(s.get("unit_id") for s in samples if s.get("unit_id")))))
+                              tuple(dict.fromkeys(s.get("unit_id") for s in samples if s.get("unit_id"))), own))
     return sorted(views, key=lambda v: (-_rank(v.latest_level), not v.worsening, -_rank(v.worst_level), v.unit_id))
 
 
@@ -453,19 +454,29 @@ def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: 
         if x0 is None or x1 is None:
             continue
         drawn.append(Projection(x0, float(f["value"]), x1, float(f["limit"]), ladder.level(f["grade"]) or 0,
-                                forecast_text(f), _day(f.get("on_low")), _day(f.get("on_high"))))
+                                forecast_text(f, _forecast_cap(view, f)), _day(f.get("on_low")), _day(f.get("on_high"))))
     return tuple(drawn)
 
 
-def forecast_text(f: dict) -> str:
+def forecast_text(f: dict, capped: str = "") -> str:
     """A forecast in words, with its band and the number of samples it was fitted on (oil hours
-    to 3 significant figures: the record keeps them in full)."""
+    to 3 significant figures: the record keeps them in full); `capped`, what a cap on the sample
+    says of the grade it names (narrative.forecast_cap)."""
     crossed = forecast_limit_phrase(f.get("test"), f["limit"], f.get("unit") or None, f.get("slope_per_1000h"))
     hours = f"{rounded(f['at_hours'])} oil hours" if f.get("at_hours") is not None else ""
     when = f"{f['on']} ({hours})" if f.get("on") and hours else f.get("on") or hours or "(no date or hours)"
     return (f"{f['rule']}: {f['measure']} reaches the {f['grade']} limit ({crossed}) about "
             f"{when}; band {f.get('on_low') or 'now'} to "
-            f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge")
+            f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge"
+            + (f". But {capped}" if capped else ""))
+
+
+def _forecast_cap(view: UnitView, f: dict) -> str:
+    """What a cap raised on the forecast's sample says of the grade it names, from the unit's rule set."""
+    carrier = next((s for s in view.samples if s["sample_id"] == f.get("sample_id")), None)
+    if carrier is None:
+        return ""
+    return forecast_cap(f.get("measure"), f.get("grade"), [c.get("caveat") for c in carrier["caveats"]], view.ruleset)
 
 
 def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
@@ -864,7 +875,7 @@ def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
     ahead = ""
     if mine:
         ahead = ("<h4>When will it cross?</h4><ul class='todo forecasts'>" + "".join(
-            f"<li class='forecast'>{escape(forecast_text(f))}</li>" for f in mine) + "</ul>"
+            f"<li class='forecast'>{escape(forecast_text(f, _forecast_cap(view, f)))}</li>" for f in mine) + "</ul>"
             f"<p class='src'>Method: {escape(str(mine[0].get('method') or ''))}</p>")
     return (head + _latest(latest, ladder, units) + ahead + (f'<div class="plots">{figures}</div>' if figures else "")
             + earlier + _sources(view.samples) + "</section>")

@@ -138,10 +138,31 @@ def forecast_limit_phrase(test: str, limit, unit: str | None, slope) -> str:
     return _limit_phrase(test, limit, unit)
 
 
-def forecast_lines(forecasts, wrap=None) -> list[str]:
+def forecast_cap(measure: str, grade: str, caveats, ruleset) -> str:
+    """What a caveat raised on the forecast's sample says of the grade a forecast names: a forecast
+    meets the rule's own limit (before any cap), and the caveat's cap holds the rule's grade below
+    it (an ester oil's carbonyl forecast to reach the alert limit still grades watch). Words from the
+    rule set's caps; '' when none applies or the rule set is not known."""
+    if ruleset is None or grade not in ruleset.grades:
+        return ""
+    raised = set(caveats)
+    for caveat in ruleset.caveats:
+        cap = caveat.cap
+        if (caveat.id in raised and cap is not None and measure in cap.measures
+                and ruleset.grades.index(grade) > cap.level):
+            held = ruleset.grades[cap.level]
+            return (f"caveat {caveat.id}, raised on this sample, caps rules on {measure} at {held}"
+                    + (" unless its exception holds (see the caveat): while the cap holds," if cap.unless is not None
+                       else ":")
+                    + f" crossing this limit grades {held}, not {grade}")
+    return ""
+
+
+def forecast_lines(forecasts, wrap=None, caveats=(), ruleset=None) -> list[str]:
     """The forecast paragraph: when the unit's current oil charge reaches each rule's next limit.
 
-    `explain` and `history` both print it."""
+    `explain` and `history` both print it; `caveats` (ids raised on the sample the forecasts were
+    made from) and its `ruleset` say where a cap keeps a forecast's grade out of reach."""
     if not forecasts:
         return []
     wrap = wrap or wrapper()
@@ -157,17 +178,19 @@ def forecast_lines(forecasts, wrap=None) -> list[str]:
             f"at about {rounded(f.at_hours)} oil hours, {rounded(f.hours_to_go)} h from this sample's "
             f"{_number(f.oil_hours)} h{when}; 95 % prediction band {low} to {high} (horizon "
             f"{rounded(f.horizon_hours)} h). Fit over {f.samples} samples: {rounded(f.slope_per_1000h)}{unit} per "
-            f"1000 h, t = {rounded(f.slope_t)}.", "  - "))
+            f"1000 h, t = {rounded(f.slope_t)}."
+            + (f" But {capped}." if (capped := forecast_cap(f.measure, f.grade, caveats, ruleset)) else ""), "  - "))
     lines.extend(wrap(f"Method: {forecasts[0].method}.", "  "))
     return lines
 
 
-def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecasts=(), units=measure_unit) -> list[str]:
+def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecasts=(), ruleset=None) -> list[str]:
     """The narrative of one sample's grade, reason by reason, with sources and cautions;
     `forecasts` (derive.forecast.Forecast, made from this sample; by default the result's own)
-    add their paragraph; `units` gives a measure's unit (the grading rule set's `unit_of`, which
-    knows the measures it declares)."""
+    add their paragraph. `ruleset`, the one that graded the sample, gives the units of the measures
+    it declares (a clause names none) and its caveats' caps (a forecast beyond a cap says so)."""
     wrap = wrapper(width)
+    units = ruleset.unit_of if ruleset is not None else measure_unit
     forecasts = forecasts or result.forecasts or ()
 
     lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
@@ -221,7 +244,7 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
             if caveat.next_step is not None:
                 lines.extend(wrap(f"Next step: {step_phrase(caveat.next_step.task, caveat.next_step.within_days)}",
                                   "    "))
-    lines.extend(forecast_lines(forecasts, wrap))
+    lines.extend(forecast_lines(forecasts, wrap, [c.caveat for c in result.caveats], ruleset))
     if result.not_evaluated:
         lines.append("")
         lines.append("Not evaluated (a missing value is never a pass):")

@@ -212,3 +212,34 @@ def test_check_says_the_cautions_after_its_verdicts_ok_or_failed(tmp_path):
                       "        source: site practice\n", encoding="utf-8")
     failed = run_cli("check", broken)
     assert failed.code == 2 and "C003" in failed.err and all(c in failed.out for c in CAUTIONS)
+
+
+# -- a forecast beyond an ester cap --------------------------------------------------------------
+
+def test_a_forecast_past_a_cap_says_the_cap_keeps_the_grade(tmp_path):
+    """HPU-3's ester fluid (HYD-46-E, carbonyl of its own, new oil 165 abs/cm): its direct carbonyl
+    rise climbs towards the alert limit of 15 abs/cm, and the forecast said "reaches the alert limit
+    about 2026-07-17" while the sample's own ester-carbonyl caveat holds carbonyl-rise at watch
+    (the method line alone said "limits before any caveat's cap")."""
+    samples = FOUND / "ester-carbonyl-rising.csv"
+    run = run_cli("explain", "BP-7504", "--samples", samples, "--rules", HYDRAULIC)
+    said = " ".join(run.out.split())
+    assert run.code == 0
+    assert ("carbonyl-rise: oxidation_rise reaches the alert limit (above 15 abs/cm) at about 4,630 oil hours"
+            in said)
+    assert ("But caveat ester-carbonyl, raised on this sample, caps rules on oxidation_rise at watch unless its "
+            "exception holds (see the caveat): while the cap holds, crossing this limit grades watch, not alert."
+            in said)
+    results, _ = _graded(tmp_path, samples, HYDRAULIC)
+    html = tmp_path / "report.html"
+    assert run_cli("report", "--results", results, "--rules", HYDRAULIC, "--out", html).code == 0
+    card = re.search(r"<ul class='todo forecasts'>.*?</ul>", html.read_text()).group(0)
+    assert "crossing this limit grades watch, not alert" in _flat(card)
+    db = tmp_path / "site.db"
+    assert run_cli("grade", samples, "--rules", HYDRAULIC, "--db", db, "--out", tmp_path / "r2.jsonl").code == 0
+    history = " ".join(run_cli("history", "HPU-3", "--db", db).out.split())
+    assert "crossing this limit grades watch, not alert" in history
+    # a mineral oil's forecast has no cap to tell of
+    plain = " ".join(run_cli("explain", "BP-7104", "--samples", FOUND / "shear-down.csv", "--rules", HYDRAULIC)
+                     .out.split())
+    assert "reaches the alert limit (below -10%)" in plain and "caps rules on" not in plain
