@@ -243,7 +243,7 @@ def comparison_lines(comparison: Comparison, old_name: str, new_name: str) -> li
              f"{c.graded} sample(s) graded under both ({c.rejected} row(s) rejected); "
              f"{c.moved} moved to another grade", ""]
     used = [g for g in c.grades if any(g in pair for pair, n in c.table.items() if n)]
-    width = max(len(_CORNER), *(len(g) for g in used))
+    width = max([len(_CORNER)] + [len(g) for g in used])  # no grade at all when every row was rejected
     lines.append(f"{_CORNER:<{width}}  " + "  ".join(f"{g:>8}" for g in used))
     for row in used:
         cells = [c.table.get((row, col), 0) for col in used]

@@ -28,8 +28,8 @@ from sumpwise.intake.samples import load_column_map, read_samples
 def run_check(paths, strict: bool, stdout, stderr) -> int:
     """Check each rule set in one pass: schema, extends, meaning, lint and examples, every problem sorted.
 
-    Diagnostics go to stderr, one verdict line per file to stdout. Where errors leave pieces
-    out, lint runs on the rest and the examples are not run (a note says so).
+    Diagnostics go to stderr, one verdict line per file to stdout, then the cautions ("! " lines).
+    Where errors leave pieces out, lint runs on the rest and the examples are not run (a note says so).
     """
     failed = 0
     for path in paths:
@@ -62,6 +62,8 @@ def run_check(paths, strict: bool, stdout, stderr) -> int:
         stdout.write(f"{path}: {verdict}: rule set {rs.id} version {rs.version}, {len(rs.classes)} class(es), "
                      f"{rules} rule(s), {len(rs.caveats)} caveat(s), sha256 {rs.sha256}; "
                      f"{len(warnings)} warning(s){strict_note}; {held} of {len(rs.examples)} example(s) hold\n")
+    # A rule set found "ok" is valid, not right for the machine: the cautions follow the verdicts.
+    stdout.write(caution_text("! ") + "\n")
     return USAGE if failed else OK
 
 

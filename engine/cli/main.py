@@ -757,7 +757,7 @@ def _explain(args, stdin, stdout, stderr) -> int:
             raise InputError(f"sample {args.sample_id} was rejected, not graded: {reasons}")
         raise InputError(f"no sample '{args.sample_id}' in {batch.source}")
     forecasts = [f for f in graded.forecasts if f.sample_id == args.sample_id]
-    stdout.write("\n".join(explain_lines(result, ruleset.grades, forecasts=forecasts)) + "\n")
+    stdout.write("\n".join(explain_lines(result, ruleset.grades, forecasts=forecasts, ruleset=ruleset)) + "\n")
     return OK
 
 

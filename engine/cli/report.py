@@ -16,7 +16,7 @@ from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.records import COMPACT, next_step_record
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.vocabulary.problems import InputError
-from sumpwise.render.html_report import parse_rejects, parse_results, render_report
+from sumpwise.render.html_report import parse_rejects, parse_results, render_report, rejects_only_report
 
 
 def add_arguments(parser) -> None:
@@ -92,7 +92,13 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
     rulesets = None
     ruleset = load_ruleset(rules) if rules else None
     if db is not None:
-        stored, rulesets = stored_results(db, batch)
+        try:
+            stored, rulesets = stored_results(db, batch)
+        except InputError as exc:  # a batch whose every row was rejected recorded no results, only its rejects
+            refused = ledger_rejects(db, batch) if batch is not None and rejects is None else ()
+            if not refused or "holds no results" not in str(exc):
+                raise
+            return _written(rejects_only_report(refused, ruleset, title or ""), out, (), len(refused))
         records = parse_results([dumps(r.to_record()) for r in stored], f"ledger {db}", one_ruleset=False)
         if ruleset is not None and ruleset.sha256 not in rulesets:
             raise InputError(f"{rules}: rule set {ruleset.id} sha256 {ruleset.sha256[:12]}... graded none of the "
@@ -100,18 +106,25 @@ def write_report(results, out, rejects=None, rules=None, title: str = "", db=Non
                              f"ledger holds the rule sets it graded with)")
         records = with_forecasts(records, db, stored)
     else:
-        records = parse_results(_text(results).splitlines(), str(results))
+        records = parse_results(_text(results).splitlines(), str(results), allow_empty=rejects is not None)
         if any(r.get("form") == COMPACT for r in records):
             records = with_texts(records, ruleset, str(results))
     rejected = parse_rejects(_text(rejects), str(rejects)) if rejects else ()
+    if not records and not rejected:
+        raise InputError(f"{results}: no result records in the file, and no rejected rows in {rejects}")
     if db is not None and rejects is None:  # the ledger recorded its batches' rejected rows: count and list them
         rejected = ledger_rejects(db, batch)
     corrected = corrected_later(db, batch) if db is not None and batch is not None else ()
     html = render_report(records, rejected, ruleset, title=title or "",
                          rejects_given=rejects is not None or db is not None, rulesets=rulesets, corrected=corrected)
+    return _written(html, out, records, len(rejected))
+
+
+def _written(html: str, out, records, rejected: int) -> dict:
+    """Write the report; the counts for the command's summary line."""
     Path(out).write_text(html, encoding="utf-8")
     flagged = sum(1 for r in records if (r.get("level") or 0) > 0)
-    return {"records": len(records), "flagged": flagged, "rejected": len(rejected), "bytes": len(html.encode())}
+    return {"records": len(records), "flagged": flagged, "rejected": rejected, "bytes": len(html.encode())}
 
 
 def ledger_rejects(db, batch: int | None = None) -> tuple:
@@ -122,7 +135,8 @@ def ledger_rejects(db, batch: int | None = None) -> tuple:
         found = found[found["batch"] == batch]
     found = found.astype(object).where(found.notna(), None)  # a reject of no row or no sample id: None, not NaN
     return tuple({"file": f"batch {r.batch}: {r.source}", "row": "" if r.row is None else str(int(r.row)),
-                  "sample_id": r.sample_id or "", "field": str(r.field), "reason": str(r.reason)}
+                  "sample_id": r.sample_id or "", "field": str(r.field), "code": str(r.code or ""),
+                  "reason": str(r.reason)}
                  for r in found.itertuples(index=False))
 
 
@@ -145,7 +159,8 @@ def run(args, stdout, stderr) -> int:
     refuse_overwriting([("--out", args.out)], [("--results", args.results), ("the ledger --db", args.db),
                                                ("--rejects", args.rejects), ("the rule set", args.rules)])
     counts = write_report(args.results, args.out, args.rejects, args.rules, args.title or "", args.db, args.batch)
-    limits = "with the rule set's limits" if args.rules or args.db else "without limits (no --rules)"
+    limits = ("with the rule set's limits" if args.rules or args.db else "without limits (no --rules)") if counts[
+        "records"] else "none: no result records, the rejected rows only"
     stderr.write(f"sumpwise: report {args.out}: {counts['records']} result(s), {counts['flagged']} flagged, "
                  f"{counts['rejected']} rejected row(s), plots {limits}\n")
     return OK

@@ -43,7 +43,8 @@ from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import SampleResult
 from sumpwise.ruleset.compiler import load_ruleset
 from sumpwise.ruleset.model import RuleSet
-from sumpwise.vocabulary.cautions import caution_text
+from sumpwise.vocabulary.cautions import CAUTIONS, caution_text
+from sumpwise.vocabulary.limit_tests import unit_text
 from sumpwise.vocabulary.measures import TREND_BASES
 from sumpwise.vocabulary.problems import InputError
 
@@ -160,8 +161,9 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
     ruleset = _ruleset_of(path, current)
     result = rebuilt_result(current["content"], current["facts"], current["vals"], ruleset, current["engine"],
                             current["value_names"], current["source"], current["method"])
-    story = explain_lines(result, ruleset.grades)
-    values = ", ".join(f"{name} {_number(value)}" for name, value in result.values if value is not None)
+    story = explain_lines(result, ruleset.grades, ruleset=ruleset)
+    values = ", ".join(f"{name} {_number(value)}{unit_text(ruleset.unit_of(name))}"  # with its unit, as findings give it
+                       for name, value in result.values if value is not None)
     story[1:1] = [f"Values as recorded: {values or '(none)'}; method {result.method}"]
     at = next(i for i, line in enumerate(story) if line.startswith("Rule set "))
     lines = [f"Recorded {current['recorded_at']} in batch {current['batch']} from {current['source']}; "
@@ -186,7 +188,7 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
         told += ["", f"Re-graded under rule set {other.id} version {other.version} (sha256 {other.sha256}); "
                      f"not recorded, the ledger is unchanged: {result.grade} as recorded, {regraded.grade} under "
                      f"this rule set.", ""]
-        told += explain_lines(regraded, other.grades)
+        told += explain_lines(regraded, other.grades, ruleset=other)
     return told
 
 
@@ -276,8 +278,8 @@ def unit_forecasts(path, unit_id: str) -> tuple[RuleSet | None, tuple]:
 def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", forecasts=(),
                   ruleset: RuleSet | None = None) -> None:
     """The unit's samples; in the table, then the forecasts (made under `ruleset`) if given."""
-    if fmt == "csv":
-        spreadsheet_frame(unit).to_csv(stream, index=False, lineterminator="\n")
+    if fmt == "csv":  # read by a person in a spreadsheet: the cautions on every row, as grade's CSV has them
+        spreadsheet_frame(unit.assign(cautions=" ".join(CAUTIONS))).to_csv(stream, index=False, lineterminator="\n")
     elif fmt == "jsonl":
         stream.write(unit.to_json(orient="records", lines=True, force_ascii=False))
     else:
@@ -292,7 +294,7 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", 
                          + (f" (rule set {row.ruleset})" if several else "")
                          + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else ""))
         if ruleset is not None:
-            told = forecast_lines(forecasts)
+            told = forecast_lines(forecasts, None, str(unit["caveats"].iloc[-1] or "").split(";"), ruleset)
             lines.extend(told or ["", "When will it cross? No forecast: no rule's next limit is forecast within the "
                                       "horizon from this unit's current oil charge."])
             lines.extend(wrapper()(f"(\"This sample\" is the latest, {unit['sample_id'].iloc[-1]}; the unit's "

@@ -7,8 +7,9 @@ lists rule=grade (with <capped-from where a caveat lowered it), highest grade fi
 as name=reading as written (`water(water=<500)`: present, but not below or above the limit,
 where a bare `water(water)` means no value); `next_steps` the rule set's steps for what
 applies, each once, as the table words them; `notice` the rule set's notice (the cautions),
-as a full JSON Lines record carries it. Built column-wise like the JSON Lines
-writer: each rule's text once per state, joined over the rows.
+as a full JSON Lines record carries it; `cautions` the engine's cautions
+(engine/vocabulary/cautions.py), which a site's own notice may leave out. Built column-wise
+like the JSON Lines writer: each rule's text once per state, joined over the rows.
 """
 
 from __future__ import annotations
@@ -17,15 +18,18 @@ import numpy as np
 import pandas as pd
 
 from sumpwise.version import engine_name
+from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.evaluation.evaluator import NOT_EVALUATED
 from sumpwise.render.jsonl import states
 from sumpwise.render.narrative import phrases_of
 from sumpwise.render.safe_text import spreadsheet_frame
 from sumpwise.results.records import UNRATED, GradedBatch, gap_at, gap_states, record_shape_groups
 
+CAUTION_TEXT = " ".join(CAUTIONS)
+
 COLUMNS = ("sample_id", "unit_id", "class", "lubricant", "sampled_on", "file", "row", "grade", "level", "fired", "caveats",
            "not_evaluated", "unrated_because", "next_steps", "ruleset", "ruleset_version", "ruleset_sha256", "engine",
-           "notice")
+           "notice", "cautions")
 
 
 def join_parts(n: int, parts, sep: str = ", ") -> np.ndarray:
@@ -144,6 +148,7 @@ def csv_frame(batch: GradedBatch) -> pd.DataFrame:
     frame["ruleset_sha256"] = rs.sha256
     frame["engine"] = engine_name()
     frame["notice"] = rs.notice  # a spreadsheet is read by a person: the cautions go with every row, as in a full record
+    frame["cautions"] = CAUTION_TEXT  # the engine's own, whatever the rule set's notice says (a site's may leave them out)
     return frame[list(COLUMNS)]
 
 

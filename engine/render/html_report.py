@@ -17,11 +17,12 @@ import io
 import json
 import re
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import date
 from functools import lru_cache
 from html import escape
 
+from sumpwise.version import engine_name
 from sumpwise.derive.trends import unit_id_key
 from sumpwise.vocabulary.cautions import CAUTIONS
 from sumpwise.vocabulary.limit_tests import limit_phrase
@@ -29,7 +30,7 @@ from sumpwise.vocabulary.measures import measure_unit
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.ruleset.model import LadderRule, RuleSet, condition_measures
 from sumpwise.results.records import undecided_from_record
-from sumpwise.render.narrative import gap_phrase, rounded, step_phrase
+from sumpwise.render.narrative import forecast_cap, forecast_limit_phrase, gap_phrase, rounded, step_phrase
 from sumpwise.render.table import FIRST_CAVEATS
 from sumpwise.render.svg_plot import (LimitLine, Mark, Plot, Point, Projection, grade_look, marker_css, marker_icon,
                                       render_plot)
@@ -57,11 +58,12 @@ def _json_objects(lines, name: str, what: str):
         yield number, found
 
 
-def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
+def parse_results(lines, name: str, one_ruleset: bool = True, allow_empty: bool = False) -> tuple:
     """Result records from JSON Lines text (as `grade` writes them), checked field by field.
 
     A results file must come from one rule set (`one_ruleset`); a ledger's records may come
-    from several, because the ledger hands over each rule set with them.
+    from several, because the ledger hands over each rule set with them. `allow_empty`: a
+    file without records is no error (a run whose every row was rejected, reported from its rejects).
     """
     records = []
     for number, record in _json_objects(lines, name, "a result record"):
@@ -89,7 +91,7 @@ def parse_results(lines, name: str, one_ruleset: bool = True) -> tuple:
                              f"{first['ruleset']['id']} sha256 {first['ruleset']['sha256'][:12]}...; "
                              f"a report covers one rule set")
         records.append(record)
-    if not records:
+    if not records and not allow_empty:
         raise InputError(f"{name}: no result records in the file")
     return tuple(records)
 
@@ -139,7 +141,7 @@ def _reject(row: dict, name: str, number: int) -> dict:
         if row.get(key) in (None, ""):
             raise InputError(f"{name}: line {number}: field '{key}': expected a value, found nothing")
     return {"file": row.get("file") or "", "row": str(row["row"]), "sample_id": row.get("sample_id") or "",
-            "field": str(row["field"]), "reason": str(row["reason"])}
+            "field": str(row["field"]), "code": str(row.get("code") or ""), "reason": str(row["reason"])}
 
 
 # -- what the records say ----------------------------------------------------------------------
@@ -341,6 +343,7 @@ class UnitView:
     flagged: int
     graded_by: tuple = ()  # the (id, version, sha256) of each rule set that graded the unit's samples, in order
     spellings: tuple = ()  # the unit id as each sample's record writes it, each spelling once, in date order
+    ruleset: RuleSet | None = field(default=None, repr=False, compare=False)  # its latest sample's, when known
 
     @property
     def worsening(self) -> bool:
@@ -400,7 +403,7 @@ def unit_views(records, ruleset: RuleSet | None = None, rulesets: dict | None = 
                               series, latest.get("level"), move, rising, max(levels) if levels else None,
                               sum(1 for s in samples if (s.get("level") or 0) > 0),
                               tuple(dict.fromkeys(_graded_by(s) for s in samples)),
-                              tuple(dict.fromkeys(s.get("unit_id") for s in samples if s.get("unit_id")))))
+                              tuple(dict.fromkeys(s.get("unit_id") for s in samples if s.get("unit_id"))), own))
     return sorted(views, key=lambda v: (-_rank(v.latest_level), not v.worsening, -_rank(v.worst_level), v.unit_id))
 
 
@@ -428,7 +431,7 @@ def _tooltip(record: dict, measure: str, value: float | None, unit: str) -> str:
     if value is None:
         shown = f"{str(record['values'][measure]).strip()}{(' ' + unit) if unit else ''} as written: a bound, not a value"
     else:
-        shown = f"{value:.4g}{(' ' + unit) if unit else ''}"
+        shown = f"{_number(value)}{(' ' + unit) if unit else ''}"  # as the findings spell it: 10.0044, never 10
     return " · ".join(p for p in parts if p) + f": {measure} {shown}{code}"
 
 
@@ -451,19 +454,29 @@ def projections(view: UnitView, measure: str, forecasts, ladder: Ladder, dates: 
         if x0 is None or x1 is None:
             continue
         drawn.append(Projection(x0, float(f["value"]), x1, float(f["limit"]), ladder.level(f["grade"]) or 0,
-                                forecast_text(f), _day(f.get("on_low")), _day(f.get("on_high"))))
+                                forecast_text(f, _forecast_cap(view, f)), _day(f.get("on_low")), _day(f.get("on_high"))))
     return tuple(drawn)
 
 
-def forecast_text(f: dict) -> str:
+def forecast_text(f: dict, capped: str = "") -> str:
     """A forecast in words, with its band and the number of samples it was fitted on (oil hours
-    to 3 significant figures: the record keeps them in full)."""
-    unit = f" {f['unit']}" if f.get("unit") else ""
+    to 3 significant figures: the record keeps them in full); `capped`, what a cap on the sample
+    says of the grade it names (narrative.forecast_cap)."""
+    crossed = forecast_limit_phrase(f.get("test"), f["limit"], f.get("unit") or None, f.get("slope_per_1000h"))
     hours = f"{rounded(f['at_hours'])} oil hours" if f.get("at_hours") is not None else ""
     when = f"{f['on']} ({hours})" if f.get("on") and hours else f.get("on") or hours or "(no date or hours)"
-    return (f"{f['rule']}: {f['measure']} reaches the {f['grade']} limit ({_number(f['limit'])}{unit}) about "
+    return (f"{f['rule']}: {f['measure']} reaches the {f['grade']} limit ({crossed}) about "
             f"{when}; band {f.get('on_low') or 'now'} to "
-            f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge")
+            f"{f.get('on_high') or 'beyond the horizon'}; fitted on {f.get('samples')} samples of this oil charge"
+            + (f". But {capped}" if capped else ""))
+
+
+def _forecast_cap(view: UnitView, f: dict) -> str:
+    """What a cap raised on the forecast's sample says of the grade it names, from the unit's rule set."""
+    carrier = next((s for s in view.samples if s["sample_id"] == f.get("sample_id")), None)
+    if carrier is None:
+        return ""
+    return forecast_cap(f.get("measure"), f.get("grade"), [c.get("caveat") for c in carrier["caveats"]], view.ruleset)
 
 
 def unit_plots(view: UnitView, ladder: Ladder, forecasts=()) -> list[Plot]:
@@ -670,7 +683,7 @@ def _attention(views, ladder: Ladder) -> str:
             + "</tbody></table>")
 
 
-def _reason_rows(record: dict, ladder: Ladder) -> str:
+def _reason_rows(record: dict, ladder: Ladder, units: dict) -> str:
     rows = []
     for reason in record["reasons"]:
         grade = _grade_cell(reason["grade"], ladder.level(reason["grade"]))
@@ -685,9 +698,9 @@ def _reason_rows(record: dict, ladder: Ladder) -> str:
             clauses = reason.get("clauses") or []
             value = "<ul class='tight'>" + "".join(  # each clause's value with its measure's unit (vocabulary)
                 f"<li>{escape(c.get('measure') or c.get('field') or '')} = <b>{escape(_number(c.get('value')))}"
-                f"</b>{escape(_unit_after(c))}</li>" for c in clauses) + "</ul>"
+                f"</b>{escape(_unit_after(c, units))}</li>" for c in clauses) + "</ul>"
             limit = "<ul class='tight'>" + "".join(
-                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit'), _clause_unit(c)))}"
+                f"<li>{escape('missing' if c.get('test') == 'missing' else limit_text(c.get('test'), c.get('limit'), _clause_unit(c, units)))}"
                 f": {'holds' if c.get('held') else 'does not hold'}</li>" for c in clauses) + "</ul>"
         rows.append(f"<tr class='reason'><td><b>{escape(reason['rule'])}</b><br><span class='reason-msg'>"
                     f"{escape(reason.get('message') or '')}</span></td><td>{grade}</td><td>{value}</td>"
@@ -696,13 +709,17 @@ def _reason_rows(record: dict, ladder: Ladder) -> str:
             "<th>source</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
 
 
-def _clause_unit(clause: dict) -> str | None:
-    """A clause's unit: its measure's, from the vocabulary (a clause record names no unit)."""
-    return (measure_unit(clause["measure"]) or None) if clause.get("measure") else None
+def _clause_unit(clause: dict, units: dict) -> str | None:
+    """A clause's unit (a clause record names none): the unit the unit's plots give its measure (the
+    grading rule set's, which knows the measures it declares, iron in ppm; without the rule set, a
+    finding's), else the vocabulary's."""
+    if not clause.get("measure"):
+        return None
+    return units.get(clause["measure"]) or measure_unit(clause["measure"]) or None
 
 
-def _unit_after(clause: dict) -> str:
-    unit = _clause_unit(clause)
+def _unit_after(clause: dict, units: dict) -> str:
+    unit = _clause_unit(clause, units)
     return f" {unit}" if unit and isinstance(clause.get("value"), (int, float)) else ""
 
 
@@ -717,7 +734,7 @@ def next_steps(record: dict) -> list[tuple[str, str]]:
     return [(text, ", ".join(by)) for text, by in steps.items()]
 
 
-def _latest(record: dict, ladder: Ladder) -> str:
+def _latest(record: dict, ladder: Ladder, units: dict) -> str:
     """The latest sample of a unit: its findings, caveats, gaps and what to do."""
     level = record.get("level")
     values = record.get("values") or {}
@@ -739,7 +756,7 @@ def _latest(record: dict, ladder: Ladder) -> str:
              f'<h4>Latest sample {escape(record["sample_id"])}: {_grade_cell(record["grade"], level)} '
              f'<span class="muted">{escape(" · ".join(facts))}</span></h4>']
     if record["reasons"]:
-        parts.append(_reason_rows(record, ladder))
+        parts.append(_reason_rows(record, ladder, units))
     elif level is not None:
         parts.append('<p class="muted">No limit crossed.</p>')
     else:
@@ -778,21 +795,22 @@ def _reading(shown):
         return str(shown)
 
 
-def _finding_text(reason: dict) -> str:
+def _finding_text(reason: dict, units: dict) -> str:
     """One finding in a few words: the rule, its grade, the value and the limit it crossed, as the
     sample's own rule set set it (the plots draw the latest sample's limits)."""
-    capped = f" (capped from {reason['capped_from']})" if reason.get("capped_from") else ""
+    capped = (f" (capped from {reason['capped_from']} by caveat {reason.get('capped_by') or '(not named)'})"
+              if reason.get("capped_from") else "")
     if "measure" in reason:
         crossed = (f", {limit_text(reason['test'], reason['limit'], reason.get('unit'))}"
                    if reason.get("test") and reason.get("limit") is not None else "")
         return (f"{reason['rule']} {reason['grade']}{capped}: {reason['measure']} {_number(reason.get('value'))}"
                 f"{crossed}")
-    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}{_unit_after(c)}"
+    held = ", ".join(f"{c.get('measure') or c.get('field')} {_number(c.get('value'))}{_unit_after(c, units)}"
                      for c in reason.get("clauses") or () if c.get("held"))
     return f"{reason['rule']} {reason['grade']}{capped}: {held}"
 
 
-def _earlier(samples, ladder: Ladder, several: bool = False) -> str:
+def _earlier(samples, ladder: Ladder, units: dict, several: bool = False) -> str:
     """Earlier flagged samples of a unit, newest first, one compact row each; an earlier sample that
     may be graded on less than it should (FIRST_CAVEATS: an unknown lubricant, ...) is listed too.
     `several`: the unit's samples were graded under several rule sets, so each row names its own."""
@@ -806,7 +824,7 @@ def _earlier(samples, ladder: Ladder, several: bool = False) -> str:
                     f"<td class='when'>{escape(record['sample_id'])}</td>"
                     f"<td class='n'>{escape(f'{hours:g}' if isinstance(hours, (int, float)) else '')}</td>"
                     f"<td>{_grade_cell(record['grade'], record.get('level'))}</td>"
-                    f"<td>{escape('; '.join(_finding_text(r) for r in record['reasons']))}</td>"
+                    f"<td>{escape('; '.join(_finding_text(r, units) for r in record['reasons']))}</td>"
                     + (f"<td class='when'>{_ruleset_label(_graded_by(record))}</td>" if several else "")
                     + f"<td>{escape(', '.join(c.get('caveat') or '' for c in record['caveats']))}</td></tr>")
     if not rows:
@@ -845,7 +863,8 @@ def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
                  "keeps its id as written</p>" if len(view.spellings) > 1 else ""))
     figures = "".join(f"<figure>{render_plot(p)}"
                       + (f"<figcaption>{escape(p.note)}</figcaption>" if p.note else "") + "</figure>" for p in plots)
-    earlier = _earlier(view.samples[:-1], ladder, len(view.graded_by) > 1)
+    units = {w.measure: w.unit for w in view.watched}
+    earlier = _earlier(view.samples[:-1], ladder, units, len(view.graded_by) > 1)
     if len(view.graded_by) > 1:
         earlier = ("<p class='muted graded-by'>This unit's samples were graded under "
                    f"{len(view.graded_by)} rule sets ("
@@ -856,9 +875,9 @@ def _unit_section(view: UnitView, ladder: Ladder, forecasts=()) -> str:
     ahead = ""
     if mine:
         ahead = ("<h4>When will it cross?</h4><ul class='todo forecasts'>" + "".join(
-            f"<li class='forecast'>{escape(forecast_text(f))}</li>" for f in mine) + "</ul>"
+            f"<li class='forecast'>{escape(forecast_text(f, _forecast_cap(view, f)))}</li>" for f in mine) + "</ul>"
             f"<p class='src'>Method: {escape(str(mine[0].get('method') or ''))}</p>")
-    return (head + _latest(latest, ladder) + ahead + (f'<div class="plots">{figures}</div>' if figures else "")
+    return (head + _latest(latest, ladder, units) + ahead + (f'<div class="plots">{figures}</div>' if figures else "")
             + earlier + _sources(view.samples) + "</section>")
 
 
@@ -888,6 +907,8 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
     of one ledger batch shows what that batch recorded), named at the top.
     """
     if not records:
+        if rejects:  # every row was rejected: the report says so, and which rows, with the cautions
+            return rejects_only_report(rejects, ruleset, title)
         raise InputError("a report needs at least one result record")
     first = records[0]
     graded_by = list(dict.fromkeys(_graded_by(r) for r in records))
@@ -918,8 +939,7 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
     dates = sorted(r["sampled_on"] for r in records if r.get("sampled_on"))
     span = f"samples from {dates[0]} to {dates[-1]}" if dates else "sample dates not given"
     unrated = [r for r in records if r.get("level") is None]
-    cautions = ('<div class="cautions" role="note"><strong>Cautions</strong><ul>'
-                + "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
+    cautions = _cautions_box()
     body = [f"<h1>{escape(heading)}</h1>",
             f'<p class="sub">{escape(span)} · {len(records)} result records · {len(views)} units</p>',
             *(["<p class='sub rulesets'>Graded under " + str(len(graded_by)) + " rule sets: "
@@ -943,15 +963,14 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
                         f"<tr><td>{escape(r['sample_id'])}</td><td>{escape(r.get('unit_id') or '')}</td>"
                         f"<td>{escape(r.get('class') or '')}</td><td>{escape(r.get('unrated_because') or '')}</td>"
                         "</tr>" for r in unrated) + "</tbody></table>")
-    if rejects:  # the file column when the rejects name theirs: row 3 of which file
-        files = any(r["file"] for r in rejects)
-        body.append("<h2>Rejected rows (not graded)</h2><table class='grid rejects'><thead><tr>"
-                    + ("<th>file</th>" if files else "") + "<th>row</th>"
-                    "<th>sample</th><th>field</th><th>why</th></tr></thead><tbody>" + "".join(
-                        "<tr>" + (f"<td>{escape(r['file'])}</td>" if files else "")
-                        + f"<td>{escape(r['row'])}</td><td>{escape(r['sample_id'])}</td><td>{escape(r['field'])}"
-                        f"</td><td>{escape(r['reason'])}</td></tr>" for r in rejects) + "</tbody></table>")
+    if rejects:
+        body.append(_rejects_table(rejects))
     body.append(cautions)
+    return _document(heading, meta, notice, body)
+
+
+def _document(heading: str, meta: dict, notice: str, body: list) -> str:
+    """The HTML page: the band at the head and foot of every printed page, the body between."""
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
             f"<title>{escape(heading)} · sumpwise report</title><style>{_CSS}{marker_css()}</style></head><body>"
@@ -960,3 +979,44 @@ def render_report(records, rejects=(), ruleset: RuleSet | None = None, title: st
             f"<tfoot><tr><td><div class=\"wrap\">{_band(meta, 'foot', notice)}</div></td></tr></tfoot>"
             f"<tbody><tr><td><main class=\"wrap\">{''.join(body)}</main></td></tr></tbody></table>"
             "</body></html>\n")
+
+
+def _cautions_box() -> str:
+    return ('<div class="cautions" role="note"><strong>Cautions</strong><ul>'
+            + "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS) + "</ul></div>")
+
+
+def _rejects_table(rejects) -> str:
+    """Rejected rows as the grader refused them: the file when the rejects name theirs (row 3 of which
+    file), the problem code when they carry it (rejects files and ledgers do)."""
+    files = any(r["file"] for r in rejects)
+    codes = any(r.get("code") for r in rejects)
+    return ("<h2>Rejected rows (not graded)</h2><table class='grid rejects'><thead><tr>"
+            + ("<th>file</th>" if files else "") + "<th>row</th><th>sample</th><th>field</th>"
+            + ("<th>code</th>" if codes else "") + "<th>why</th></tr></thead><tbody>" + "".join(
+                "<tr>" + (f"<td>{escape(r['file'])}</td>" if files else "")
+                + f"<td>{escape(r['row'])}</td><td>{escape(r['sample_id'])}</td><td>{escape(r['field'])}</td>"
+                + (f"<td>{escape(r.get('code') or '')}</td>" if codes else "")
+                + f"<td>{escape(r['reason'])}</td></tr>" for r in rejects) + "</tbody></table>")
+
+
+def rejects_only_report(rejects, ruleset: RuleSet | None = None, title: str = "") -> str:
+    """The report of a run in which every row was rejected: nothing was graded, so no grade, unit or
+    plot is shown, only the rows refused and why, with the cautions (an empty results file beside a
+    rejects file used to be refused, and the batch's readers got no report of what went wrong)."""
+    if not rejects:
+        raise InputError("a report needs at least one result record or rejected row")
+    rows = len({(r["file"], r["row"]) for r in rejects})
+    meta = ({"id": ruleset.id, "version": ruleset.version, "sha256": ruleset.sha256,
+             "rulesets": [(ruleset.id, ruleset.version, ruleset.sha256)]} if ruleset is not None
+            else {"id": "(not known: no result records)", "version": "-", "sha256": "-", "rulesets": [None]})
+    meta["engine"] = engine_name()
+    notice = ruleset.notice if ruleset is not None else "no result record carries the rule set's notice"
+    heading = title or "Every row was rejected: nothing was graded"
+    body = [f"<h1>{escape(heading)}</h1>",
+            f'<p class="sub">0 result records · {rows} rejected row(s)</p>', _cautions_box(),
+            f'<p class="notice">Notice of the rule set: {escape(notice)}</p>',
+            "<p class='warn no-results'><b>No sample was graded.</b> Every row read was rejected; mend the rows "
+            "below (or the column map) and grade them again. No grade in this report says a unit is healthy.</p>",
+            _rejects_table(rejects), _cautions_box()]
+    return _document(heading, meta, notice, body)

@@ -6,7 +6,7 @@ import math
 import textwrap
 
 from sumpwise.vocabulary.cautions import CAUTIONS
-from sumpwise.vocabulary.limit_tests import limit_phrase
+from sumpwise.vocabulary.limit_tests import limit_phrase, unit_text
 from sumpwise.vocabulary.measures import MEASURES, measure_unit
 from sumpwise.intake.censored import number_text
 from sumpwise.results.records import RateInterval, SampleResult
@@ -61,10 +61,11 @@ def _limit_phrase(test: str, limit, unit: str | None) -> str:
     return limit_phrase(test, limit, _number, unit)
 
 
-def _clause_line(clause) -> str:
+def _clause_line(clause, units=measure_unit) -> str:
     name = clause.measure or clause.field
     held = "holds" if clause.held else "does not hold"
-    unit = measure_unit(clause.measure) if clause.measure else None  # the vocabulary's unit of the measure
+    # the measure's unit: the vocabulary's, or the one the rule set declares (iron: ppm); a clause record names none
+    unit = (units(clause.measure) or None) if clause.measure else None
     shown = f"{_number(clause.value)} {unit}" if unit and clause.value is not None else _number(clause.value)
     if clause.test == "missing":
         wanted = "is missing" if clause.limit else "is present"
@@ -125,10 +126,43 @@ def wrapper(width: int = 88):
     return wrap
 
 
-def forecast_lines(forecasts, wrap=None) -> list[str]:
+def forecast_limit_phrase(test: str, limit, unit: str | None, slope) -> str:
+    """The limit a forecast meets, in words. A forecast on an `outside` rule records the one side
+    the fit moves to, signed (-10 for a viscosity falling towards a 10 % band): it reads as that
+    side, "below -10 %", never as "more than -10 % either side of zero"."""
+    if test == "outside" and isinstance(limit, (int, float)) and not isinstance(limit, bool):
+        falling = slope < 0 if isinstance(slope, (int, float)) and slope else limit < 0
+        return limit_phrase("below" if falling else "above", limit, _number, unit)
+    if not test:  # a record that names no test: the limit alone
+        return f"{_number(limit)}{unit_text(unit)}"
+    return _limit_phrase(test, limit, unit)
+
+
+def forecast_cap(measure: str, grade: str, caveats, ruleset) -> str:
+    """What a caveat raised on the forecast's sample says of the grade a forecast names: a forecast
+    meets the rule's own limit (before any cap), and the caveat's cap holds the rule's grade below
+    it (an ester oil's carbonyl forecast to reach the alert limit still grades watch). Words from the
+    rule set's caps; '' when none applies or the rule set is not known."""
+    if ruleset is None or grade not in ruleset.grades:
+        return ""
+    raised = set(caveats)
+    for caveat in ruleset.caveats:
+        cap = caveat.cap
+        if (caveat.id in raised and cap is not None and measure in cap.measures
+                and ruleset.grades.index(grade) > cap.level):
+            held = ruleset.grades[cap.level]
+            return (f"caveat {caveat.id}, raised on this sample, caps rules on {measure} at {held}"
+                    + (" unless its exception holds (see the caveat): while the cap holds," if cap.unless is not None
+                       else ":")
+                    + f" crossing this limit grades {held}, not {grade}")
+    return ""
+
+
+def forecast_lines(forecasts, wrap=None, caveats=(), ruleset=None) -> list[str]:
     """The forecast paragraph: when the unit's current oil charge reaches each rule's next limit.
 
-    `explain` and `history` both print it."""
+    `explain` and `history` both print it; `caveats` (ids raised on the sample the forecasts were
+    made from) and its `ruleset` say where a cap keeps a forecast's grade out of reach."""
     if not forecasts:
         return []
     wrap = wrap or wrapper()
@@ -139,20 +173,24 @@ def forecast_lines(forecasts, wrap=None) -> list[str]:
         high = f"{rounded(f.at_hours_high)} h" if f.at_hours_high is not None else "beyond the horizon"
         when = f" (about {f.on}; {f.on_low or 'now'} to {f.on_high or 'later'})" if f.on else ""
         lines.extend(wrap(
-            f"{f.rule}: {f.measure} reaches the {f.grade} limit ({_limit_phrase(f.test, f.limit, f.unit or None)}) "
+            f"{f.rule}: {f.measure} reaches the {f.grade} limit "
+            f"({forecast_limit_phrase(f.test, f.limit, f.unit or None, f.slope_per_1000h)}) "
             f"at about {rounded(f.at_hours)} oil hours, {rounded(f.hours_to_go)} h from this sample's "
             f"{_number(f.oil_hours)} h{when}; 95 % prediction band {low} to {high} (horizon "
             f"{rounded(f.horizon_hours)} h). Fit over {f.samples} samples: {rounded(f.slope_per_1000h)}{unit} per "
-            f"1000 h, t = {rounded(f.slope_t)}.", "  - "))
+            f"1000 h, t = {rounded(f.slope_t)}."
+            + (f" But {capped}." if (capped := forecast_cap(f.measure, f.grade, caveats, ruleset)) else ""), "  - "))
     lines.extend(wrap(f"Method: {forecasts[0].method}.", "  "))
     return lines
 
 
-def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecasts=()) -> list[str]:
+def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecasts=(), ruleset=None) -> list[str]:
     """The narrative of one sample's grade, reason by reason, with sources and cautions;
     `forecasts` (derive.forecast.Forecast, made from this sample; by default the result's own)
-    add their paragraph."""
+    add their paragraph. `ruleset`, the one that graded the sample, gives the units of the measures
+    it declares (a clause names none) and its caveats' caps (a forecast beyond a cap says so)."""
     wrap = wrapper(width)
+    units = ruleset.unit_of if ruleset is not None else measure_unit
     forecasts = forecasts or result.forecasts or ()
 
     lines = [f"Sample {result.sample_id}: unit {result.unit_id or '(none)'}, class {result.class_name or '(none)'}, "
@@ -187,7 +225,7 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
             if bound:
                 lines.extend(wrap(bound, "     "))
             for clause in reason.clauses:
-                lines.extend(wrap(_clause_line(clause), "     - "))
+                lines.extend(wrap(_clause_line(clause, units), "     - "))
             lines.extend(wrap(f"Source: {reason.source}", "     "))
             if reason.next_step is not None:
                 lines.extend(wrap(f"Next step: {step_phrase(reason.next_step.task, reason.next_step.within_days)}",
@@ -206,7 +244,7 @@ def explain_lines(result: SampleResult, grades: tuple, width: int = 88, forecast
             if caveat.next_step is not None:
                 lines.extend(wrap(f"Next step: {step_phrase(caveat.next_step.task, caveat.next_step.within_days)}",
                                   "    "))
-    lines.extend(forecast_lines(forecasts, wrap))
+    lines.extend(forecast_lines(forecasts, wrap, [c.caveat for c in result.caveats], ruleset))
     if result.not_evaluated:
         lines.append("")
         lines.append("Not evaluated (a missing value is never a pass):")

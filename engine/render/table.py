@@ -60,7 +60,7 @@ FIRST_CAVEATS = ("unknown-lubricant", "base-stock-disagrees", "oxidation-below-n
 
 def _why(result) -> str:
     if result.reasons:
-        why = ", ".join(f"{x.rule}" + (f" (capped from {x.capped_from})" if x.capped_from else "")
+        why = ", ".join(f"{x.rule}" + (f" (capped from {x.capped_from} by {x.capped_by})" if x.capped_from else "")
                         for x in result.reasons)
     elif result.unrated_because:
         why = result.unrated_because

@@ -54,7 +54,7 @@ def test_history_says_when_a_steadily_rising_value_crosses_its_limit(tmp_path):
     report = run_cli("report", "--db", db, "--out", tmp_path / "report.html")
     assert report.code == 0, report.err
     html = (tmp_path / "report.html").read_text(encoding="utf-8")
-    assert "When will it cross?" in html and f"water reaches the {found.group(1)} limit ({limit:g} ppm)" in html
+    assert "When will it cross?" in html and f"water reaches the {found.group(1)} limit (above {limit:g} ppm)" in html
 
 
 def test_history_of_a_steady_unit_says_there_is_no_forecast(tmp_path):

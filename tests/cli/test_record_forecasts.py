@@ -18,6 +18,7 @@ import numpy as np
 import pytest
 from conftest import DATA, ROOT, run_cli
 
+from sumpwise.vocabulary.limit_tests import unit_text
 from sumpwise.render.html_report import Ladder, forecast_text, parse_results, unit_plots, unit_views
 from sumpwise.render.narrative import rounded
 from sumpwise.ruleset.compiler import load_ruleset
@@ -106,7 +107,8 @@ def test_report_from_results_draws_the_recorded_forecasts_with_their_own_numbers
             # the printed numbers are the record's: its date, band, limit and samples, its hours for people
             assert f"about {f['on']} ({rounded(f['at_hours'])} oil hours)" in text
             assert f"band {f['on_low'] or 'now'} to {f['on_high'] or 'beyond the horizon'}" in text
-            assert f"fitted on {f['samples']} samples" in text and f"({f['limit']:g} {f['unit']})" in text
+            side = f["test"] if f["test"] != "outside" else ("below" if f["slope_per_1000h"] < 0 else "above")
+            assert f"fitted on {f['samples']} samples" in text and f"({side} {f['limit']:g}{unit_text(f['unit'])})" in text
             # the drawn projection runs from the record's own value on its sample's date to its limit on its date
             (drawn,) = [p for p in plots[f["measure"]].projections if p.label == text]
             assert (drawn.x0, drawn.y0) == (date.fromisoformat(record["sampled_on"]).toordinal(), f["value"])

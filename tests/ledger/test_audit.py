@@ -28,7 +28,7 @@ def test_explain_tells_the_story_from_the_ledger(tmp_path, ruleset):
     db = tmp_path / "l.db"
     grade_into_ledger(db, sumpwise.read_samples(SAMPLES), ruleset)
     story = "\n".join(explain_from_ledger(db, "T-04"))
-    for text in ("Values as recorded: kv40 47.5, an 0.21, oxidation 13, oil_hours 3000; method direct",
+    for text in ("Values as recorded: kv40 47.5 mm2/s, an 0.21 mg KOH/g, oxidation 13 abs/cm, oil_hours 3000 h; method direct",
                  "carbonyl-jump: alert", "above 5 abs/cm", "Source: test limit, invented",
                  f"sha256 {ruleset.sha256}", "Notice:", "Cautions:", "Unit ST-1: this sample and the ones before it",
                  "2026-01-05  T-01"):

@@ -525,7 +525,7 @@ def test_a_forecast_is_drawn_from_the_last_sample_to_the_limit_it_reaches(graded
     html = render_report(records, (), ruleset)
     section = _sections(html)["ST-1"]
     assert section.count('class="projection"') == 1
-    assert "water reaches the alert limit (300 ppm) about 2027-03-01" in _flat(section)
+    assert "water reaches the alert limit (above 300 ppm) about 2027-03-01" in _flat(section)
     assert all('class="projection"' not in s for unit, s in _sections(html).items() if unit != "ST-1")
 
 
