@@ -754,8 +754,8 @@ def replay_lines(report: ReplayReport, strict: bool = False) -> list[str]:
     lines.append(told)
     if report.last_batch is not None:
         lines.append(f"ledger head: batch {report.last_batch}, digest {report.head} (keep it elsewhere and give it "
-                     f"to a later replay as --head {report.last_batch}:DIGEST: another digest for this batch means "
-                     f"batches were removed or rewritten)")
+                     f"to a later replay as --head {report.last_batch}:{report.head}: another digest for this batch "
+                     f"means batches were removed or rewritten)")
     return lines
 
 
