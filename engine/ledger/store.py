@@ -866,12 +866,12 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
         "UNION SELECT c.corrects FROM samples c JOIN versions v ON c.entry = v.entry WHERE c.corrects IS NOT NULL) "
         f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
         f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
-        f"rs.canonical, s.method, {STORED_VALUES} "
+        f"rs.canonical, s.method, rs.ruleset_id, rs.version, {STORED_VALUES} "
         f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.entry IN versions ORDER BY s.entry",
         (sample_id,))
     names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
              "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
-             "author", "canonical", "method")
+             "author", "canonical", "method", "ruleset_id", "version")
     return [dict(zip(names, row[:len(names)]), content=object_text(*row[len(names):])) for row in cursor.fetchall()]
 
 
@@ -880,13 +880,13 @@ def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
     verdicts, stored values and batch columns, in trend order (date, then oil hours)."""
     unit_spellings(conn, unit_id)
     rows = conn.execute(
-        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, "
-        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id IN (SELECT value FROM temp.wanted_units) "
+        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, b.author, "
+        f"b.reason, {STORED_VALUES} {_JOINS} WHERE s.unit_id IN (SELECT value FROM temp.wanted_units) "
         f"AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry").fetchall()
     at = len(_UNIT_COLUMNS) + 4
-    rows = [row[:at] + (object_text(*row[at + 2:]),) + row[at:at + 2] for row in rows]
+    rows = [row[:at] + (object_text(*row[at + 4:]),) + row[at:at + 4] for row in rows]
     return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",
-                                                             "ruleset_sha256"])
+                                                             "ruleset_sha256", "author", "reason"])
 
 
 def batch_list(conn: sqlite3.Connection) -> list[dict]:

@@ -251,3 +251,36 @@ def test_rows_reordered_are_caught_from_the_file_alone(recorded, tmp_path):
         conn.execute("UPDATE samples SET entry = ? WHERE entry = -1", (second,))
     replayed = run_cli("replay", "--db", db)
     assert replayed.code == 3 and "integrity: batch 1: its stored rows no longer match the batch's digest" in replayed.out
+
+
+def test_explain_keeps_every_corrections_author_and_reason_and_each_versions_rule_set(tmp_path):
+    """A sample corrected twice: the middle version was itself a correction (its author and reason
+    were dropped from the story), and the first was graded under version 1 of the rule set (the
+    story did not say so, beside a current version graded under version 2)."""
+    db = tmp_path / "site.db"
+    fixed = tmp_path / "fixed-again.csv"
+    fixed.write_text((WEEKS / "correction-2026-10-14.csv").read_text().replace(",260,", ",310,"))
+    for source, version, extra in ((WEEKS / "week-2026-10-05.csv", 1, ()),
+                                   (WEEKS / "correction-2026-10-14.csv", 2,
+                                    ("--correction", "--reason", "first fix", "--author", "A. Ferro")),
+                                   (fixed, 2, ("--correction", "--reason", "second fix", "--author", "B. Lund"))):
+        graded = run_cli("grade", source, "--rules", WEEKS / f"rules-v{version}.yaml", "--db", db,
+                         "--out", tmp_path / "out.jsonl", *extra)
+        assert graded.code == 0, graded.err
+    text = " ".join(run_cli("explain", "BW-1005-01", "--db", db).out.split())
+    assert "This version is a correction by B. Lund: second fix." in text
+    assert "graded normal (rule set brackwater-found6 version 1), with water 160 (now 310);" in text
+    assert ("graded watch (rule set brackwater-found6 version 2), with water 260 (now 310), itself a correction by "
+            "A. Ferro: first fix.") in text
+    every = _jsonl(run_cli("find", "--db", db, "--all-versions", "--format", "jsonl"))
+    assert [(r["batch"], r["superseded_in"], r["corrects_batch"], r["correction_author"]) for r in every
+            if r["sample_id"] == "BW-1005-01"] == [(1, 2, None, None), (2, 3, 1, "A. Ferro"), (3, None, 2, "B. Lund")]
+
+
+def test_the_history_table_says_which_values_are_a_correction_and_whose(tmp_path):
+    db, _ = _old("0.6.0", tmp_path)
+    table = run_cli("history", "HP-4", "--db", db)
+    assert table.code == 0 and f"  BW-1005-01: a correction (batch 5) by {AUTHOR}: {REASON}" in table.out
+    rows = _jsonl(run_cli("history", "HP-4", "--db", db, "--format", "jsonl"))
+    assert [(r["sample_id"], r["batch"], r["correction_author"], r["correction_reason"]) for r in rows
+            if r["corrected"]] == [("BW-1005-01", 5, AUTHOR, REASON)]
