@@ -1,6 +1,6 @@
 """The engine's version, in a module of its own so that no stage has to import the package root."""
 
-__version__ = "0.8.0"
+__version__ = "0.9.0"
 
 
 def engine_name() -> str:

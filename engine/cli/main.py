@@ -347,6 +347,21 @@ WARNING_CAVEATS = FIRST_CAVEATS
 
 
 def _grade(args, stdin, stdout, stderr) -> int:
+    summary = _Summary(args.summary)
+    try:
+        return _grade_files(args, stdin, stdout, stderr, summary)
+    except (UsageError, InvalidFile, InputError) as exc:  # refused before or instead of grading
+        summary.refused(args, _refusal(exc), stderr)
+        raise
+
+
+def _refusal(exc: Exception) -> str:
+    if isinstance(exc, InvalidFile):
+        return f"{len(exc.problems)} problem(s) in a file the run reads; nothing was graded:\n{exc}"
+    return str(exc)
+
+
+def _grade_files(args, stdin, stdout, stderr, summary: "_Summary") -> int:
     if args.record != FULL and args.format != "jsonl":
         raise UsageError(f"sumpwise grade: --record {args.record} is a JSON Lines form; --format is {args.format}")
     ruleset, columns = _rules_and_map(args)
@@ -371,7 +386,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
                        + [("the ledger --db", args.db)])
     if not authoring_cli.examples_hold(ruleset, args, stderr):  # a rule set edited for tonight: say so in --summary
         refused = f"rule set {ruleset.id} version {ruleset.version}: its own examples do not hold; nothing was graded"
-        _write_summary(args.summary, _unfinished([], sources, skipped, refused, USAGE))
+        summary.write(_unfinished([], sources, skipped, refused, USAGE))
         return USAGE
     files, reached, found_unrated, conflicts = [], set(), False, 0  # reached: the --fail-at levels met
     repeated = RepeatedIds() if len(sources) > 1 and getattr(args, "db", None) is None else None
@@ -435,7 +450,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
         raise  # the command line or an output that cannot be opened: said before anything is graded
     except Exception as exc:  # a bug: main says so (exit 1); the summary says the run did not finish
         done = [f["file"] for f in files]
-        _write_summary(args.summary, _unfinished(files, [s for s in sources if s not in done], skipped,
+        summary.write(_unfinished(files, [s for s in sources if s not in done], skipped,
                                                  f"internal error (a bug, please report it): {exc!r}", INTERNAL))
         raise
     total = {key: sum(f[key] for f in files) for key in ("read", "graded", "unrated", "rejected")}
@@ -483,7 +498,7 @@ def _grade(args, stdin, stdout, stderr) -> int:
         code = USAGE
     if code == USAGE and (findings["fail_at"] or conflicts or caveated):  # exit 2 must not hide them
         stderr.write("sumpwise: exit 2 (input) outranks exit 3 (findings), and the findings above were reached too\n")
-    _write_summary(args.summary, {"files": files, "total": total, "warnings": warnings, "findings": findings,
+    summary.write({"files": files, "total": total, "warnings": warnings, "findings": findings,
                                   "failed_files": failed, "max_rejects_exceeded": too_many, "stopped": stopped,
                                   "not_read": not_graded, "skipped": skipped, "exit": code})
     return code
@@ -499,15 +514,54 @@ def _unfinished(files: list, not_read: list, skipped: list, stopped: str, code: 
             "skipped": skipped, "exit": code}
 
 
-def _write_summary(path, report: dict) -> None:
-    """--summary: the run's counts and outcome as JSON, written however the run ended once it began."""
-    if not path:
-        return
+class _Summary:
+    """--summary: the run's counts and outcome as JSON, written once however the run ended, also
+    when it refused to start (the rule set, the column map, an option): a nightly job must never
+    find the previous night's summary in its place and take it for tonight's."""
+
+    def __init__(self, path):
+        self.path, self.attempted = path, False
+
+    def write(self, report: dict) -> None:
+        if not self.path:
+            return
+        self.attempted = True
+        try:
+            with open(self.path, "w", encoding="utf-8") as handle:
+                handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
+        except OSError as exc:
+            raise InputError(f"--summary {self.path}: cannot write it: {exc.strerror or exc}") from None
+
+    def refused(self, args, why: str, stderr) -> None:
+        """The summary of a run that graded nothing, unless one was written, or the path holds
+        anything but an earlier summary: a run refused this early may not know every file it
+        names (a folder's files, the rule set's parents), and a file it names is never emptied."""
+        if not self.path or self.attempted or not _absent_or_summary(Path(self.path)):
+            return
+        others = ([("the samples file", s) for s in args.samples] + [("the rule set", args.rules)]
+                  + [("--columns", args.columns), ("the ledger --db", getattr(args, "db", None)),
+                     ("--out", args.out), ("--rejects", args.rejects)])
+        try:
+            refuse_overwriting([("--summary", self.path)], others)
+        except InputError:
+            return  # the error that stopped the run may be just this one, and is said
+        try:
+            self.write(_unfinished([], [str(s) for s in args.samples], [], why, USAGE))
+        except InputError as exc:
+            stderr.write(_safe_lines(f"sumpwise: {exc}"))
+
+
+def _absent_or_summary(path: Path) -> bool:
+    """No file there, or one that reads as a --summary (a JSON object with its `exit`)."""
     try:
-        with open(path, "w", encoding="utf-8") as handle:
-            handle.write(json.dumps(report, indent=2, ensure_ascii=False) + "\n")
-    except OSError as exc:
-        raise InputError(f"--summary {path}: cannot write it: {exc.strerror or exc}") from None
+        if not path.exists():
+            return True
+        if not path.is_file() or path.stat().st_size > 64 * 2**20:
+            return False
+        report = json.loads(path.read_bytes())
+    except (OSError, ValueError):
+        return False
+    return isinstance(report, dict) and "exit" in report and "stopped" in report
 
 
 class _OutputFailed(Exception):

@@ -12,7 +12,8 @@ so it does where an oil change's oil hours are more than the calendar holds (the
 sample without oil hours between an oil change's two sides cannot be placed on either charge:
 no step is taken to or from it, and it says so. A step across a change of method (direct vs
 subtraction) or of lab is not computed: the two readings are not comparable. A fall in oil
-hours whose next sample is back on the run is a slip in that one reading (_slips), and a fall
+hours whose next sample is back on the run is a slip in that one reading (_slips), so is a rise
+beyond the calendar that the next sample falls back from onto the run, and a fall
 that no aged reading tells is taken as an oil change and says it could not tell. All of it is one
 sort plus shifted and accumulated arrays; there is no loop over units.
 
@@ -86,8 +87,9 @@ TREND_CAVEATS = (
                  "are one unit to trends; records keep each id as the lab wrote it, and a sample whose id is "
                  "spelled otherwise than its unit's previous sample says so (common practice, no source)"),
     EngineCaveat("oil-hours-slip", "hours_slip_note",
-                 "sumpwise engine: oil hours that fall with no oil_changed flag or change of lubricant code and "
-                 "are back on the run at the unit's next sample (within what the calendar holds) are a slip in "
+                 "sumpwise engine: oil hours that fall, or rise by more than the calendar holds, with no "
+                 "oil_changed flag or change of lubricant code and are back on the run at the unit's next sample "
+                 "(within what the calendar holds) are a slip in "
                  "that one reading, not an oil change: the charge and its trend go on, with no rate per 1000 h "
                  "to or from that sample and none per 1000 of its own oil hours (common practice, no source)"),
     EngineCaveat("oil-change-untold", "hours_untold_note",
@@ -630,29 +632,53 @@ def _slips(unit, h, restarted, charge_start, day_keys, dated, last_before, next_
     hours, on the same charge and a later date, is back at or above the hours before the fall
     within what the calendar holds (_most_hours) since them: a slip in that one reading (4300,
     430, 4500: a digit dropped), not an oil change nor a meter reset (common practice, no
-    source). Not where the aged readings came back toward new at the fall (_stayed_aged): the
-    oil was changed there, whatever the hours after. Not on the fall's own date either: on one
-    date an unflagged new fill at 0 h sorts before the old oil's last sample. Returns (slip, the
-    sample before the fall, the sample back on the run), positions -1 where none. Only the next
-    sample with oil hours is looked at: a fall that later samples agree with stays a fall."""
+    source). So is a rise, since an earlier date, by more than the calendar holds that the next
+    sample falls back from onto the run (4300, 43000, 4500: a digit added), whose fall was taken
+    for an oil change; judged against the samples that are no dropped slip, or the sample back
+    on the run after one (4340, 434, 4580) would be a rise from 434. Not where the aged readings
+    came back toward new at the fall (_stayed_aged): the oil was changed there, whatever the
+    hours after. Not on the fall's own date either: on one date an unflagged new fill at 0 h
+    sorts before the old oil's last sample. Returns (slip, the sample before it, the sample back
+    on the run), positions -1 where none. Only the next sample with oil hours is looked at: a
+    fall that later samples agree with stays a fall."""
     n = len(unit)
     timed = np.isfinite(h)
-    before = last_before(timed)
-    before = np.where(before >= charge_start, before, -1)
-    at = np.maximum(before, 0)
-    dropped = timed & (before >= 0) & (h < h[at]) & ~restarted
     back = np.r_[next_from(timed)[1:], -1] if n else np.zeros(0, dtype=np.int64)
     to = np.maximum(back, 0)
     back = np.where((back >= 0) & (unit[to] == unit) & (charge_start[to] == charge_start), back, -1)
-    days = np.where(dated[at] & dated[to], (day_keys[to] - day_keys[at]) / 86_400e9, np.nan)
+
+    def run_from(kept):
+        """The sample before each one among `kept` on its charge, and whether the next sample is back
+        on the run from it, on a later date, within what the calendar holds."""
+        before = last_before(kept)
+        before = np.where(before >= charge_start, before, -1)
+        at = np.maximum(before, 0)
+        days = np.where(dated[at] & dated[to], (day_keys[to] - day_keys[at]) / 86_400e9, np.nan)
+        with np.errstate(invalid="ignore"):
+            on_run = ((before >= 0) & (back >= 0) & dated & (day_keys[to] > day_keys) & (h[to] >= h[at])
+                      & (h[to] - h[at] <= _most_hours(days)))
+        return before, on_run
+
+    def told_change(slip, fell_at, before):
+        """Drop the slips where the aged readings came back toward new where the hours fell."""
+        if evidence and slip.any():
+            now = np.flatnonzero(slip)
+            stayed, told = _stayed_aged(evidence, fell_at[now], before[now])
+            slip[now] = ~(told & ~stayed)  # told, and not stayed: back toward new
+        return slip
+
+    positions = np.arange(n)
+    before, on_run = run_from(timed)
+    dropped = told_change(timed & ~restarted & on_run & (h < h[np.maximum(before, 0)]), positions, before)
+    rise_from, on_run = run_from(timed & ~dropped)
+    at = np.maximum(rise_from, 0)
+    days_to = np.where(dated[at] & dated, (day_keys - day_keys[at]) / 86_400e9, np.nan)
     with np.errstate(invalid="ignore"):
-        slip = (dropped & (back >= 0) & dated & (day_keys[to] > day_keys) & (h[to] >= h[at])
-                & (h[to] - h[at] <= _most_hours(days)))
-    if evidence and slip.any():
-        now = np.flatnonzero(slip)
-        stayed, told = _stayed_aged(evidence, now, before[now])
-        slip[now] = ~(told & ~stayed)  # told, and not stayed: back toward new
-    return slip, np.where(slip, before, -1), np.where(slip, back, -1)
+        leapt = (timed & ~restarted & on_run & (days_to > 0) & (h - h[at] > _most_hours(days_to))
+                 & (h[to] < h))
+    leapt = told_change(leapt & ~dropped, back, rise_from)  # the fall is at the sample back on the run
+    slip = dropped | leapt
+    return slip, np.where(dropped, before, np.where(leapt, rise_from, -1)), np.where(slip, back, -1)
 
 
 def _evidence_margin(name: str, margins: dict) -> tuple:
@@ -838,7 +864,8 @@ def _slip_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict,
     if len(hit):
         at = mine[hit]
         before, back = charges["slip_from"][at], charges["slip_back"][at]
-        notes[hit] = ("oil hours fell from " + _hours(h[before]) + " (" + _text(ids[order[before]]) + ", "
+        moved = np.where(h[at] < h[before], "fell", "rose, more than the calendar holds,").astype(object)
+        notes[hit] = ("oil hours " + moved + " from " + _hours(h[before]) + " (" + _text(ids[order[before]]) + ", "
                       + _text(dates[order[before]]) + ") to " + _hours(h[at]) + " with no oil_changed flag or change "
                       "of lubricant code, and the next sample, " + _text(ids[order[back]]) + " ("
                       + _text(dates[order[back]]) + "), is back at " + _hours(h[back]) + ": taken as a slip in this "
@@ -851,8 +878,9 @@ def _slip_notes(chain: dict, order: np.ndarray, mine: np.ndarray, charges: dict,
         at = mine[hit]
         slipped = back_of[at]
         before = charges["slip_from"][slipped]
+        moved = np.where(h[slipped] < h[before], ", fell from ", ", rose beyond what the calendar holds from ")
         notes[hit] = ("the oil hours of sample " + _text(ids[order[slipped]]) + " (" + _text(dates[order[slipped]])
-                      + "), " + _hours(h[slipped]) + ", fell from " + _hours(h[before]) + " and this sample's, "
+                      + "), " + _hours(h[slipped]) + moved.astype(object) + _hours(h[before]) + " and this sample's, "
                       + _hours(h[at]) + ", are back on the run: taken as a slip in that reading, not an oil change; "
                       "the charge goes on, with no rate per 1000 h to this sample")
     return notes

@@ -127,9 +127,9 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
     rising samples a `<base>_rising` count of the latest goes back over, its last sample with oil
     hours, its last with a lubricant code, its last flagged oil change and its last change of
     lubricant code with the sample before it (an oil change is looked for back to them:
-    trends._oil_charges), and the one with oil hours before its last one with them (a slip in
-    one reading is told by the hours before the fall: trends._slips; where the latest's hours
-    fell, with the rising run before the fall too). Those are carried for their oil hours, flag
+    trends._oil_charges), and the one or two with oil hours before its last one with them (a
+    slip in one reading is told by the hours before the fall or the rise: trends._slips; where
+    the latest's hours fell, with the rising run before the fall too). Those are carried for their oil hours, flag
     and code only: their readings are left empty, so no step is taken from them."""
     names = list(CHAIN_COLUMNS) + list(bases)
     own = pd.DataFrame({name: (measured[name].to_numpy() if name in measured else None) for name in names})
@@ -183,6 +183,12 @@ def _latest_per_unit(history: pd.DataFrame | None, measured: pd.DataFrame, bases
             before = named_before[latest[latest >= first]]
             context[before[before >= 0]] = True
     context[timed_before[has_both]] = True  # for its oil hours, where the fall is no slip (kept above where it is)
+    # where the latest's hours rose, the one with oil hours before those two: whether the one
+    # between was a dropped digit (never two in a row) tells whether the rise is a digit added
+    # (trends._slips); where they fell it is left out, its own state unknown here
+    timed_before2 = _shifted_back(latest_timed)[np.maximum(timed_before, 0)]
+    rose = has_both & (in_order[np.maximum(latest_timed[last], 0)] > in_order[np.maximum(timed_before, 0)])
+    context[timed_before2[rose & (timed_before2 >= first)]] = True
     context &= ~kept
     carried = frame.iloc[order[kept | context]][names].reset_index(drop=True)
     for base in bases:  # a sample kept for its oil hours, flag or code only gives no step

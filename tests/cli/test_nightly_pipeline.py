@@ -387,3 +387,31 @@ def test_an_internal_fault_part_way_leaves_a_summary_that_says_the_run_did_not_f
     assert report["exit"] == 1 and report["stopped"].startswith("internal error")
     assert [f["file"] for f in report["files"]] == [str(HERE / "monday.csv")]
     assert report["not_read"] == [str(HERE / "wednesday.csv")]
+
+
+def test_a_run_refused_before_grading_still_replaces_last_night_s_summary(tmp_path):
+    """A rule set that is not valid YAML, a column map that cannot be read, or an option the rule
+    set does not know (`--fail-at` a grade it lacks) stopped the run before --summary was written,
+    so the nightly job read the previous night's summary (exit 0, counts, findings) as tonight's.
+    Now the summary says the run stopped, why, and that no file was read; it is never written
+    over a file the run names (here the samples file itself, which stays as it was)."""
+    broken = tmp_path / "site.yaml"
+    broken.write_text(SITE.read_text(encoding="utf-8").replace("classes:", "classes: [", 1), encoding="utf-8")
+    bad_map = tmp_path / "columns.yaml"
+    bad_map.write_text("columns:\n  Water ppm: {measure: wter}\n", encoding="utf-8")
+    summary = tmp_path / "summary.json"
+    for extra, said in (((), "Y001"), (("--columns", bad_map), str(bad_map)), (("--fail-at", "severe"), "severe")):
+        rules = broken if not extra else SITE
+        assert sumpwise("grade", HERE / "monday.csv", "--rules", SITE, "--out", tmp_path / "a.jsonl",
+                        "--summary", summary).returncode == 0  # last night's run: a whole summary
+        assert json.loads(summary.read_text())["exit"] == 0
+        done = sumpwise("grade", HERE / "monday.csv", "--rules", rules, *extra, "--out", tmp_path / "b.jsonl",
+                        "--summary", summary)
+        assert done.returncode == 2, done.stderr.decode()
+        report = json.loads(summary.read_text())
+        assert report["exit"] == 2 and said in report["stopped"], (extra, report["stopped"])
+        assert report["not_read"] == [str(HERE / "monday.csv")] and report["total"]["read"] == 0
+    copy = tmp_path / "monday.csv"
+    copy.write_bytes((HERE / "monday.csv").read_bytes())
+    done = sumpwise("grade", copy, "--rules", broken, "--summary", copy)
+    assert done.returncode == 2 and copy.read_bytes() == (HERE / "monday.csv").read_bytes()

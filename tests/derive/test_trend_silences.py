@@ -160,6 +160,46 @@ def test_a_fall_that_the_next_sample_agrees_with_is_no_slip():
     assert _said(records["BP-HP3-04"])[0] == "oil-changed"
 
 
+# 2b. An oil-hours typo the other way: a digit added.
+
+LEAP = SLIP.read_text().replace(",434,", ",43400,")
+
+
+@pytest.mark.parametrize("rows", [None, 3, 5])
+def test_oil_hours_that_leap_beyond_the_calendar_and_come_back_are_a_slip(rows):
+    # HP-3 weekly: 4340 h, then 43400 (a digit added: 39,060 h in 7 days, where the calendar holds
+    # at most 24 h a day), then 4580 and 4700. Before: 43400 was only a sample the calendar could
+    # not place, and the fall from it to 4580 was taken for an oil change, caveated `oil-changed`
+    # as if the lab had said so: the iron run 15, 19, 23 restarted and BP-HP3-05 graded normal.
+    # Now 43400 is a slip in that reading and the run goes on, whole and in chunks that keep the
+    # leap and the sample after it together (3 and 5 rows).
+    argv = ("--rules", RULES) + (() if rows is None else ("--chunk-rows", rows))
+    records, _ = graded_run("-", *argv, stdin=LEAP)
+    leap, back = records["BP-HP3-04"], records["BP-HP3-05"]
+    assert _said(leap) == ["oil-hours-slip"] and _said(back) == ["oil-hours-slip"]
+    assert "oil-changed" not in [c for r in records.values() for c in _said(r)]
+    assert back["grade"] == "watch" and _rules(back) == {("iron-climbing", "watch")}
+    message = next(c["message"] for c in leap["caveats"] if c["caveat"] == "oil-hours-slip")
+    assert "rose, more than the calendar holds, from 4340" in message and "to 43400 " in message
+    assert "back at 4580" in message
+    assert _said(records["BP-HP3-06"]) == [] and records["BP-HP3-06"]["grade"] == "normal"
+
+
+def test_a_leap_seen_from_a_ledger_and_one_the_next_sample_agrees_with(tmp_path):
+    # the leap imported one night, its return the next: the return says the slip, the run goes on
+    path = tmp_path / "leap.csv"
+    path.write_text(LEAP)
+    records = _through_ledger(path, tmp_path, 4)
+    assert _said(records["BP-HP3-05"]) == ["oil-hours-slip"] and records["BP-HP3-05"]["grade"] == "watch"
+    # hours that stay up after the leap (43400, 43520) are no slip: the calendar still cannot
+    # place the leap, and no fall follows it to be taken for an oil change
+    text = LEAP.replace(",4580,", ",43520,").replace(",4700,", ",43640,")
+    records, _ = graded_run("-", "--rules", RULES, stdin=text)
+    assert "oil-hours-slip" not in [c for r in records.values() for c in _said(r)]
+    assert _said(records["BP-HP3-04"]) == ["oil-charge-unknown"]
+    assert "oil-changed" not in [c for r in records.values() for c in _said(r)]
+
+
 # 3. A fall in oil hours that no reading can tell.
 
 def test_a_fall_with_no_evidence_says_it_could_not_tell():
@@ -246,9 +286,11 @@ def test_random_spellings_of_unit_ids_grade_as_one_spelling():
     assert sum(r.grade == "watch" for r in want.results()) > 10  # the trends graded are not all normal
 
 
-def test_random_oil_hours_slips_leave_every_step_and_rising_run_as_it_was():
-    # Property: dividing one sample's oil hours by ten (a dropped digit) mid-charge changes no
-    # step and no rising run of any sample; rates stay as they were but to and from the slip.
+@pytest.mark.parametrize("digit", ["dropped", "added"])
+def test_random_oil_hours_slips_leave_every_step_and_rising_run_as_it_was(digit):
+    # Property: dividing one sample's oil hours by ten (a dropped digit) or multiplying them by
+    # ten (a digit added) mid-charge changes no step and no rising run of any sample; rates stay
+    # as they were but to and from the slip.
     import numpy as np
     import sumpwise
     rules = sumpwise.load_ruleset(RULES)
@@ -260,7 +302,8 @@ def test_random_oil_hours_slips_leave_every_step_and_rising_run_as_it_was():
         & (clean["sample_id"].str[-2:] != "19")
     pick = inner & (rng.random(len(clean)) < 0.1)
     pick &= ~pick.shift(1, fill_value=False)  # never two in a row
-    slipped = clean.assign(oil_hours=np.where(pick, np.floor(clean["oil_hours"] / 10), clean["oil_hours"]))
+    wrong = np.floor(clean["oil_hours"] / 10) if digit == "dropped" else clean["oil_hours"] * 10
+    slipped = clean.assign(oil_hours=np.where(pick, wrong, clean["oil_hours"]))
     want, got = sumpwise.grade(clean, rules), sumpwise.grade(slipped, rules)
     a, b = want.measured.set_index("sample_id"), got.measured.set_index("sample_id")
     for column in ("iron_step", "iron_rising"):
