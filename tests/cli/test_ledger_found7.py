@@ -284,3 +284,24 @@ def test_the_history_table_says_which_values_are_a_correction_and_whose(tmp_path
     rows = _jsonl(run_cli("history", "HP-4", "--db", db, "--format", "jsonl"))
     assert [(r["sample_id"], r["batch"], r["correction_author"], r["correction_reason"]) for r in rows
             if r["corrected"]] == [("BW-1005-01", 5, AUTHOR, REASON)]
+
+
+def test_a_samples_values_and_verdict_forged_together_show_only_against_the_printed_head(recorded, tmp_path):
+    """The limit of what a file can say about itself: water 240 ppm (watch, over rules-v1's 200)
+    rewritten as 120 ppm with the normal verdict today's engine gives it, every digest recomputed."""
+    copies, heads = recorded
+    db = _copy(recorded, tmp_path)
+
+    def forge(conn):
+        content, vals = conn.execute("SELECT content, vals FROM samples WHERE sample_id = 'BW-0907-02'").fetchone()
+        assert json.loads(content)[3] == 240.0 and json.loads(vals)[0] == 240.0  # water, as the batch stores it
+        normal = conn.execute("SELECT shape FROM samples WHERE sample_id = 'BW-0907-01'").fetchone()[0]
+        conn.execute("UPDATE samples SET content = ?, grade = 'normal', level = 0, shape = ?, vals = ? "
+                     "WHERE sample_id = 'BW-0907-02'",
+                     (content.replace("240.0", "120.0"), normal, json.dumps(json.loads(vals)[1:], separators=(",", ":"))))
+    _recomputed(db, forge)
+    replayed = run_cli("replay", "--db", db)
+    assert replayed.code == 0 and "integrity: clean" in replayed.out, replayed.out  # consistent, so not seen
+    assert "every result matches its record" in replayed.out
+    noted = run_cli("replay", "--db", db, "--head", heads[-1])
+    assert noted.code == 3 and "batch 4: its digest is not the one noted" in noted.out
