@@ -229,9 +229,8 @@ def run_find(args, stdout, stderr) -> int:
         shown = shown.astype(object).where(shown.notna(), "")  # a missing id or batch is blank, not NaN
         stdout.write("\n".join(terminal_lines(shown.to_string(index=False).splitlines())) + "\n" if len(found) else "")
         stdout.write(f"{len(found)} {'rejected row' if args.rejects else 'sample'}(s)\n")
-        if not args.rejects:
+        if not args.rejects:  # a list of grades is read by people: who corrected what, and the cautions
             stdout.write("".join(line + "\n" for line in terminal_lines(_correction_notes(found))))
-        if not args.rejects:  # a list of grades is read by people: it carries the cautions
             stdout.write(caution_text("! ") + "\n")
     return OK
 
