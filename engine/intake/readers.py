@@ -238,8 +238,11 @@ def detect_decimal(lines: list, delimiter: str, numeric: set | None = None) -> s
     return "."
 
 
-def _records(text: str, delimiter: str) -> tuple[np.ndarray, np.ndarray]:
-    """(first file line, field count) of every record after the header; 0 fields for a blank line."""
+def _records(text: str, delimiter: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(first file line, field count, file lines it runs over, whether a cell holds a line that
+    looks like a whole row) of every record after the header; 0 fields for a blank line. A quote
+    left open reads the lines after it into one cell, to its closing quote or the end of the
+    file: the rows there would be lost inside a rejected row, or inside a cell, without a word."""
     if '"' not in text:  # no quoting: a record is a line; count in numpy over the bytes
         if "\n" not in text:
             text = text.replace("\r", "\n")  # lone CR line ends
@@ -253,19 +256,34 @@ def _records(text: str, delimiter: str) -> tuple[np.ndarray, np.ndarray]:
         for k in np.flatnonzero(counts == 1):  # no delimiter: blank (or spaces only) or one field
             if not data[starts[k]:ends[k]].tobytes().strip():
                 counts[k] = 0
-        return np.arange(2, len(ends) + 1, dtype=np.int64), counts[1:].astype(np.int64)
+        one = np.ones(len(ends) - 1, dtype=np.int64)
+        return np.arange(2, len(ends) + 1, dtype=np.int64), counts[1:].astype(np.int64), one, one == 0
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
-    starts, counts = [], []
-    next(reader, None)
+    starts, counts, spans, rowlike = [], [], [], []
+    width = len(next(reader, None) or ())
     line = reader.line_num
     for record in reader:
         starts.append(line + 1)
         counts.append(len(record) if any(cell.strip() for cell in record) or len(record) > 1 else 0)
+        spans.append(reader.line_num - line)
+        rowlike.append(spans[-1] > 1 and width > 2 and any(
+            piece.count(delimiter) >= width - 1
+            for cell in record if "\n" in cell or "\r" in cell for piece in cell.splitlines()[1:]))
         line = reader.line_num
-    return np.asarray(starts, dtype=np.int64), np.asarray(counts, dtype=np.int64)
+    return (np.asarray(starts, dtype=np.int64), np.asarray(counts, dtype=np.int64),
+            np.asarray(spans, dtype=np.int64), np.asarray(rowlike, dtype=bool))
 
 
 _SKIPPED = re.compile(r"Skipping line (\d+): (.*)")
+
+
+def _runs_over(line: int, span: int) -> str:
+    """What a record over several file lines took: a quote left open reads the rows after it."""
+    if span <= 1:
+        return ""
+    return (f"; it runs over file lines {line} to {line + span - 1}: a quote opened in it closes only there (or at "
+            f"the end of the file), so the {span - 1} line(s) after its first, rows of their own if the quote was "
+            f"left open, were read into it and are rejected with it (close or remove the stray quote)")
 
 
 def read_csv(text: str, numeric: set, delimiter: str | None, decimal: str | None, data: bytes | None = None) -> RawTable:
@@ -282,7 +300,7 @@ def read_csv(text: str, numeric: set, delimiter: str | None, decimal: str | None
             notes.append(f"detected the delimiter {delimiter!r} from the header")
     header = next(csv.reader([header_line], delimiter=delimiter), [])
     check_header(header)
-    starts, counts = _records(text, delimiter)
+    starts, counts, spans, rowlike = _records(text, delimiter)
     if decimal is None:
         decimal = detect_decimal(text[: 1 << 16].splitlines(), delimiter, numeric)
         if decimal != ".":
@@ -290,8 +308,13 @@ def read_csv(text: str, numeric: set, delimiter: str | None, decimal: str | None
     blank = counts == 0
     wrong = ~blank & (counts != len(header))
     skipped = [(int(line) - 1, f"has {count} field(s), the header has {len(header)}: a row too long or too short "
-                               f"is rejected, its values cannot be matched to columns", "D013")
-               for line, count in zip(starts[wrong], counts[wrong])]
+                               f"is rejected, its values cannot be matched to columns" + _runs_over(line, span),
+                "D013")
+               for line, count, span in zip(starts[wrong], counts[wrong], spans[wrong])]
+    swallowed = ~blank & ~wrong & rowlike
+    skipped += [(int(line) - 1, "a quoted cell holds a line with as many delimiters as a whole row"
+                 + _runs_over(line, span), "D026") for line, span in zip(starts[swallowed], spans[swallowed])]
+    wrong |= swallowed
     rows = starts[~blank & ~wrong] - 1
     names = [h.strip() for h in header]
     numbers = numeric_flags(names, numeric)

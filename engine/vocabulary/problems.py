@@ -107,6 +107,7 @@ PROBLEM_CODES = {
     "D023": "a sampling date before 1900 or more than a year after the day it is read (a slip in the year)",
     "D024": "two columns of the header that read as one engine name (case, spaces, '-' and '_' aside)",
     "D025": "a reading written as a word that is no one value or bound (`trace`): not guessed",
+    "D026": "a quoted cell that holds a line with a whole row's delimiters (a quote left open took the rows after it)",
     "F001": "a spectrum that cannot be used",
     "F002": "a spectrum whose C-H bend says its cell path length is far from the one assumed (none declared)",
     "E001": "an example that does not hold",
