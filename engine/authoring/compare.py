@@ -3,13 +3,16 @@
 The answer is what a reviewer needs before accepting a change of limits: how many
 samples move between grades (a from-to table), which ones, and which rules' findings
 changed for each. Grading is the usual vectorized pipeline, run twice; only the
-samples that moved are read back one by one.
+samples that moved are read back one by one. Beside the samples, every limit, rule,
+caveat, new-oil value and noise margin that differs between the two compiled rule sets
+is listed, so a change no sample crosses yet is not reported as "nothing moved" alone.
 """
 
 from __future__ import annotations
 
+import json
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 import pandas as pd
@@ -17,7 +20,9 @@ import pandas as pd
 from sumpwise.evaluation.evaluator import NOT_APPLICABLE, NOT_EVALUATED
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.results.records import UNRATED, GradedBatch
-from sumpwise.ruleset.model import RuleSet
+from sumpwise.ruleset.compiler import caveat_doc, rule_doc
+from sumpwise.ruleset.model import Lubricant, RuleSet
+from sumpwise.vocabulary.limit_tests import LADDER_TESTS
 from sumpwise.intake.samples import SampleBatch
 
 _ABSENT = NOT_APPLICABLE  # a rule the sample's class does not have in that rule set
@@ -43,6 +48,20 @@ class Move:
 
 
 @dataclass(frozen=True)
+class RuleSetChange:
+    """One difference between the two compiled rule sets (limits in canonical units).
+
+    `where` names the piece ("class pump, rule acid-rise", "caveat ester-carbonyl", "lubricant
+    PUMP-46-M"), `what` the part of it that changed ("watch above", "when", "new-oil an"); an
+    absent piece or part reads "(none)"."""
+
+    where: str
+    what: str
+    before: str
+    after: str
+
+
+@dataclass(frozen=True)
 class Comparison:
     """Samples graded under both rule sets: the from-to counts and the samples that moved."""
 
@@ -54,6 +73,7 @@ class Comparison:
     grades: tuple  # row and column order of the table
     moves: tuple
     rejects: tuple = ()  # the rows not graded, each with its reason (intake.samples.Reject)
+    changes: tuple = ()  # RuleSetChange records: what differs between the rule sets themselves
 
     @property
     def moved(self) -> int:
@@ -78,7 +98,104 @@ def compare_rulesets(old: RuleSet, new: RuleSet, batch: SampleBatch) -> Comparis
         for i in moved_rows)
     rejects = tuple({(r.row, r.field, r.code): r for r in before.rejects + after.rejects}.values())
     return Comparison(old, new, len(before), len({r.row for r in rejects}), dict(table), order, moves,
-                      tuple(sorted(rejects, key=lambda r: (r.row, r.field))))
+                      tuple(sorted(rejects, key=lambda r: (r.row, r.field))), ruleset_changes(old, new))
+
+
+_NONE = "(none)"
+
+
+def ruleset_changes(old: RuleSet, new: RuleSet) -> tuple:
+    """Every limit, rule, caveat, new-oil value, declared unit and noise margin that differs, piece by piece.
+
+    Read from the compiled rule sets, so a limit rewritten in another unit (0.08 abs/0.1mm for
+    8 abs/cm) is no change, and a limit a child file changes through `extends` is one."""
+    changes = []
+    if old.grades != new.grades:
+        changes.append(RuleSetChange("rule set", "grades", _shown(list(old.grades)), _shown(list(new.grades))))
+    if old.notice != new.notice:  # on every result: an auditor reads it
+        changes.append(RuleSetChange("rule set", "notice", old.notice, new.notice))
+    scopes = [(f"class {name}", old.classes.get(name, ()), new.classes.get(name, ()))
+              for name in sorted(set(old.classes) | set(new.classes))]
+    scopes.append(("every class", old.rules, new.rules))
+    for name in sorted(set(old.class_drops) | set(new.class_drops)):
+        was, now = old.class_drops.get(name, ()), new.class_drops.get(name, ())
+        if was != now:
+            changes.append(RuleSetChange(f"class {name}", "drops top-level rules", _shown(list(was)) if was else _NONE,
+                                         _shown(list(now)) if now else _NONE))
+    for scope, old_rules, new_rules in scopes:
+        before = {rule.id: rule_doc(rule, old.grades) for rule in old_rules}
+        after = {rule.id: rule_doc(rule, new.grades) for rule in new_rules}
+        for ident in dict.fromkeys([*before, *after]):
+            changes += _piece_changes(f"{scope}, rule {ident}", before.get(ident), after.get(ident),
+                                      units=(old.unit_of, new.unit_of))
+    before = {c.id: caveat_doc(c, old.grades) for c in old.caveats}
+    after = {c.id: caveat_doc(c, new.grades) for c in new.caveats}
+    for ident in dict.fromkeys([*before, *after]):
+        changes += _piece_changes(f"caveat {ident}", before.get(ident), after.get(ident))
+    for code in sorted(set(old.lubricants) | set(new.lubricants)):
+        changes += _piece_changes(f"lubricant {code}", _lubricant_values(old.lubricants.get(code)),
+                                  _lubricant_values(new.lubricants.get(code)), prefix="new-oil ")
+    for name in sorted(set(old.measure_units) | set(new.measure_units)):  # a declared measure's unit is the lab's
+        was, now = old.measure_units.get(name), new.measure_units.get(name)
+        if was != now:
+            changes.append(RuleSetChange(f"declared measure {name}", "unit" if was is not None and now is not None
+                                         else "added" if was is None else "removed", _shown(was), _shown(now)))
+    for name in sorted(set(old.noise_margins) | set(new.noise_margins)):
+        was, now = old.noise_margins.get(name), new.noise_margins.get(name)
+        if was != now:
+            changes.append(RuleSetChange(f"noise margin {name}", "margin", _shown(was), _shown(now)))
+    return tuple(changes)
+
+
+def _lubricant_values(lubricant: Lubricant | None) -> dict | None:
+    if lubricant is None:
+        return None
+    return {f.name: getattr(lubricant, f.name) for f in fields(lubricant)
+            if f.name != "code" and getattr(lubricant, f.name) is not None}
+
+
+def _piece_changes(where: str, before: dict | None, after: dict | None, prefix: str = "", units=None) -> list:
+    """A piece added or removed is one change; a piece in both, one change per part that differs,
+    and one per grade of a ladder whose measure and test stayed (`watch above 0.2 -> 0.25`), each
+    limit with its unit in its own rule set (a declared measure's unit may differ between them)."""
+    if before == after:
+        return []
+    if before is None or after is None:
+        return [RuleSetChange(where, "added" if before is None else "removed",
+                              _NONE if before is None else _summary(before),
+                              _NONE if after is None else _summary(after))]
+    changes = []
+    same_ladder = before.get("measure") == after.get("measure") and \
+        [k for k in LADDER_TESTS if k in before] == [k for k in LADDER_TESTS if k in after]
+    measure = after.get("measure", "")
+    old_unit, new_unit = (units[0](measure), units[1](measure)) if units else ("", "")
+    for key in dict.fromkeys([*before, *after]):
+        was, now = before.get(key, _NONE), after.get(key, _NONE)
+        if was == now:
+            continue
+        if same_ladder and key in LADDER_TESTS:
+            for grade in dict.fromkeys([*was, *now]):
+                if was.get(grade) != now.get(grade):
+                    changes.append(RuleSetChange(where, f"{grade} {key}", _shown(was.get(grade), old_unit),
+                                                 _shown(now.get(grade), new_unit)))
+        else:
+            changes.append(RuleSetChange(where, f"{prefix}{key}", _shown(was), _shown(now)))
+    return changes
+
+
+def _summary(doc: dict) -> str:
+    """A rule or caveat in one line: its ladder or its condition and grade, without the texts."""
+    shown = {k: v for k, v in doc.items() if k not in ("id", "message", "source", "next_step")}
+    return _shown(shown)
+
+
+def _shown(value, unit: str = "") -> str:
+    if value is None or value == _NONE:
+        return _NONE
+    if isinstance(value, str):
+        return value
+    text = json.dumps(value, ensure_ascii=False, separators=(", ", ": "))
+    return f"{text} {unit}" if unit and isinstance(value, (int, float, list)) else text
 
 
 def _rule_levels(graded: GradedBatch) -> pd.DataFrame:
@@ -136,4 +253,7 @@ def comparison_lines(comparison: Comparison, old_name: str, new_name: str) -> li
         for move in c.moves:
             why = "; ".join(f"{ch.rule} {ch.before} -> {ch.after}" for ch in move.changes) or "no rule changed"
             lines.append(f"  {move.sample_id} ({move.class_name}): {move.before} -> {move.after}: {why}")
+    lines += ["", f"rule-set changes: {len(c.changes)} (limits in the engine's units: water ppm, FTIR abs/cm)"
+                  if c.changes else "rule-set changes: none (the two rule sets grade alike)"]
+    lines += [f"  {ch.where}: {ch.what}: {ch.before} -> {ch.after}" for ch in c.changes]
     return lines

@@ -16,10 +16,13 @@ import pandas as pd
 
 from sumpwise.intake.column_map import MAPPABLE_FIELDS
 from sumpwise.intake.samples import NUMERIC_COLUMNS
+from sumpwise.results.facts import ENGINE_CAVEATS
 from sumpwise.results.pipeline import grade
 from sumpwise.vocabulary.problems import InputError
 from sumpwise.results.records import UNRATED, SampleResult
 from sumpwise.ruleset.model import Example, RuleSet
+from sumpwise.vocabulary.measures import UNIT_FAMILY, unit_key
+from sumpwise.vocabulary.units import CANONICAL
 
 
 @dataclass(frozen=True)
@@ -56,15 +59,30 @@ def check_example(ruleset: RuleSet, example: Example) -> ExampleFailure | None:
         return _failure(example, (f"the sample cannot be read: {reason}",), "nothing was graded")
     if graded.rejects:
         reasons = tuple(f"the sample cannot be read: {r.field}: {r.reason}" for r in graded.rejects)
-        return _failure(example, reasons, "the sample was rejected, nothing was graded")
+        return _failure(example, reasons + _units_note(ruleset, example), "the sample was rejected, nothing was graded")
     result = graded.result(0)
     differences = _unread_keys(ruleset, example) + _differences(ruleset, example, result)
-    return _failure(example, differences, describe(result)) if differences else None
+    return _failure(example, differences + _units_note(ruleset, example), describe(result)) if differences else None
 
 
 def _failure(example: Example, differences: tuple, actual: str) -> ExampleFailure:
     origin = example.origin
     return ExampleFailure(example.name, origin.file, origin.line, origin.column, tuple(differences), actual)
+
+
+def _units_note(ruleset: RuleSet, example: Example) -> tuple:
+    """A failed example whose file writes its limits in other units than the engine's: its sample
+    values are read in the engine's units, so `water: 0.03` meant as % is 0.03 ppm. Said beside the
+    failure, since the lead who wrote `units: {water: '%'}` would write the sample in % too."""
+    declared = ruleset.file_units.get(example.origin.file, {})
+    other = {key: unit for key, unit in declared.items() if unit_key(key) in UNIT_FAMILY
+             and unit != CANONICAL[UNIT_FAMILY[unit_key(key)]]}
+    given = sorted({unit_key(str(name)) for name in example.sample} & set(other))
+    if not given:
+        return ()
+    return (f"note: the sample's values are read in the engine's units ("
+            f"{', '.join(f'{key} in {CANONICAL[UNIT_FAMILY[key]]}' for key in given)}), not in this file's "
+            f"`units:` ({', '.join(f'{key} in {other[key]}' for key in given)}), as a samples file's are",)
 
 
 def _unread_keys(ruleset: RuleSet, example: Example) -> tuple:
@@ -102,11 +120,12 @@ def _differences(ruleset: RuleSet, example: Example, result: SampleResult) -> tu
         elif rule in fired:
             differences.append(f"quiet: expected {rule} to stay quiet, but it fired ({_reason_text(fired[rule])})")
     raised = {note.caveat for note in result.caveats}
-    known_caveats = {caveat.id for caveat in ruleset.caveats}
+    known_caveats = {caveat.id for caveat in ruleset.caveats} | set(ENGINE_CAVEATS)
     for caveat in expect.get("caveats", []):
         if caveat not in known_caveats:
-            differences.append(f"caveats: the rule set has no caveat '{caveat}'{_did_you_mean(caveat, known_caveats)} "
-                               f"(it has: {', '.join(sorted(known_caveats)) or 'none'})")
+            own = sorted(c.id for c in ruleset.caveats)
+            differences.append(f"caveats: neither the rule set nor the engine has a caveat '{caveat}'"
+                               f"{_did_you_mean(caveat, known_caveats)} (the rule set has: {', '.join(own) or 'none'})")
         elif caveat not in raised:
             differences.append(f"caveats: expected caveat {caveat} on the sample, but it was not raised")
     return tuple(differences)

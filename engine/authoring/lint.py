@@ -24,7 +24,7 @@ from sumpwise.vocabulary.base_stocks import family_of
 from sumpwise.vocabulary.measures import domain_of, measure_needs, measure_unit, unit_key
 from sumpwise.vocabulary.problems import Problem
 from sumpwise.ruleset.model import (AllOf, AnyOf, ConditionRule, FieldTest, LadderRule, MeasureTest, MissingTest,
-                                    Origin, RuleSet, leaves)
+                                    Not, Origin, RuleSet, leaves)
 from sumpwise.vocabulary.measures import UNIT_FAMILY
 from sumpwise.vocabulary.units import CANONICAL, FACTORS
 
@@ -94,6 +94,23 @@ def never_true(condition) -> str | None:
     for name, value_sets in by_field.items():
         if len(value_sets) > 1 and not set.intersection(*value_sets):
             return f"{name} must take values from lists that share none, under `all`"
+    return None
+
+
+def _other_class_only(condition, name: str, classes) -> str | None:
+    """What a class rule's condition asks of `class` that a sample of class `name` never has
+    (`{field: class, in: [gearbox]}` under `steam-turbine`), or None. A class name the rule set
+    lacks is W018's, with its nearest name."""
+    wanted = name.strip().casefold()
+    known = {c.strip().casefold() for c in classes}
+    for part in _conjuncts(condition):
+        negated = isinstance(part, Not)
+        test = part.part if negated else part
+        if not (isinstance(test, FieldTest) and test.field == "class"):
+            continue
+        values = {v.strip().casefold() for v in test.values}
+        if values <= known and (wanted in values) == negated:
+            return f"class {'not ' if negated else ''}in [{', '.join(test.values)}]"
     return None
 
 
@@ -197,6 +214,14 @@ def _impossible(ruleset: RuleSet):
         if isinstance(rule, ConditionRule) and (why := never_true(rule.when)):
             yield _warning("W002", rule.origin, f"rule '{rule.id}' can never fire: its condition can never be true ({why})",
                            "check the limits and the units; perhaps `any` or `between` was meant")
+    for name, rules in ruleset.classes.items():
+        for rule in rules:
+            if isinstance(rule, ConditionRule) and (why := _other_class_only(rule.when, name, ruleset.classes)):
+                yield _warning("W002", rule.origin,
+                               f"rule '{rule.id}' can never fire: it is a rule of class '{name}', which grades only "
+                               f"samples of that class, but its condition needs {why}",
+                               f"move it under the class it is meant for, or to the top-level `rules:` to apply it "
+                               f"to every class")
     for caveat in ruleset.caveats:
         if why := never_true(caveat.when):
             yield _warning("W003", caveat.origin, f"caveat '{caveat.id}' can never apply: its `when` can never be true "
@@ -331,11 +356,18 @@ def _units(ruleset: RuleSet):
             unit = written[0][1] or measure_unit(measure)
             values = ", ".join(_num(value) for value, _ in written)
             key = unit_key(measure)
-            declared = (f"this file writes {key} in {unit}; " if written[0][1] else "")
+            own = ruleset.file_units.get(owner.origin.file, {})
+            declared = (f"this file writes {key} in {unit}; " if key in own else "")
+            elsewhere = sorted({(file, units[key]) for file, units in ruleset.file_units.items()
+                                if file != owner.origin.file and units.get(key) not in (None, unit)})
             yield _warning("W009", owner.origin, f"{kind} '{owner.id}': {measure} limit(s) {values} {unit} look written "
                                          f"in the wrong unit: {why}",
                            f"{declared}write the limit in that unit, or change `units:` to the unit it was written in"
-                           if declared else f"write the limit in {unit}")
+                           if declared else
+                           f"this file gives no `units:` for {key}, so its limits are read in {unit}; another file's "
+                           f"`units:` ({elsewhere[0][0]}: {key} in {elsewhere[0][1]}) applies to that file's limits "
+                           f"only: add `units: {{{key}: '{elsewhere[0][1]}'}}` here if the limit is in "
+                           f"{elsewhere[0][1]}" if elsewhere else f"write the limit in {unit}")
 
 
 # -- implausible viscosity ------------------------------------------------------------------------

@@ -259,19 +259,21 @@ def _records(text: str, delimiter: str) -> tuple[np.ndarray, np.ndarray, np.ndar
         one = np.ones(len(ends) - 1, dtype=np.int64)
         return np.arange(2, len(ends) + 1, dtype=np.int64), counts[1:].astype(np.int64), one, one == 0
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
-    starts, counts, spans, rowlike = [], [], [], []
+    starts, counts, held = [], [], []
     width = len(next(reader, None) or ())
     line = reader.line_num
     for record in reader:
         starts.append(line + 1)
         counts.append(len(record) if any(cell.strip() for cell in record) or len(record) > 1 else 0)
-        spans.append(reader.line_num - line)
-        rowlike.append(spans[-1] > 1 and width > 2 and any(
-            piece.count(delimiter) >= width - 1
-            for cell in record if "\n" in cell or "\r" in cell for piece in cell.splitlines()[1:]))
+        if reader.line_num - line > 1 and width > 2 and any(  # over several lines: rare, looked into
+                piece.count(delimiter) >= width - 1
+                for cell in record if "\n" in cell or "\r" in cell for piece in cell.splitlines()[1:]):
+            held.append(len(starts) - 1)
         line = reader.line_num
-    return (np.asarray(starts, dtype=np.int64), np.asarray(counts, dtype=np.int64),
-            np.asarray(spans, dtype=np.int64), np.asarray(rowlike, dtype=bool))
+    starts = np.asarray(starts, dtype=np.int64)
+    rowlike = np.zeros(len(starts), dtype=bool)
+    rowlike[held] = True
+    return starts, np.asarray(counts, dtype=np.int64), np.diff(np.append(starts, line + 1)), rowlike
 
 
 _SKIPPED = re.compile(r"Skipping line (\d+): (.*)")

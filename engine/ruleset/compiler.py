@@ -113,6 +113,10 @@ class _Compiler:
                 at, "'unrated' cannot be a grade: it is what a sample the engine could not grade is called, so a "
                     "finding at that grade would read and count as a sample that was not graded", code="C016",
                 hint="name the grade otherwise, e.g. 'caution'"))
+        for name, placed in sorted(r.measures.items()):
+            self._check_declared(name, placed)
+        for name, placed in sorted(r.fields.items()):
+            self._check_field(name, placed)
         lubricants = {code: self._lubricant(code, placed) for code, placed in sorted(r.lubricants.items())}
         classes = {name: self._rules(rules.values()) for name, rules in sorted(r.classes.items())}
         common = self._rules(r.rules.values())
@@ -130,6 +134,8 @@ class _Compiler:
             measure_units={m: (p.data.get("unit") or "") for m, p in sorted(r.measures.items())},
             lubricant_origins={code: self._origin(entries[-1]) for code, entries in r.lubricants.items()},
             noise_margins=margins,
+            class_drops={name: tuple(sorted(ids)) for name, ids in sorted(r.class_drops.items())
+                         if ids and name in r.classes},
         )
         self._check_overrides()
         if any(p.severity == "error" for p in self.problems):
@@ -167,7 +173,7 @@ class _Compiler:
         return origins
 
     def _file_units(self) -> dict:
-        places = [*self.r.class_places.values(), *self.r.rules.values(), *self.r.caveats.values()]
+        places = [*self.r.class_places.values(), *self.r.rules.values(), *self.r.caveats.values(), *self.r.examples]
         places += [p for rules in self.r.classes.values() for p in rules.values()]
         return {placed.doc.file: dict(placed.units) for placed in places}
 
@@ -196,11 +202,12 @@ class _Compiler:
         inherited one and gives less than it could (a child restating one limit, `above: {watch:
         100}`, loses the parent's higher grades for that measure)."""
         for ident, placed in self.r.rules.items():
-            owners = [name for name, rules in self.r.classes.items() if ident in rules]
+            owners = [name for name, rules in self.r.classes.items()
+                      if ident in rules or ident in self.r.class_drops.get(name, ())]
             if owners and len(owners) == len(self.r.classes):
                 self.problems.append(placed.problem(
                     f"top-level rule '{ident}' applies to no class: every class ({', '.join(sorted(owners))}) has its "
-                    f"own rule '{ident}', which wins over it", ("id",), code="W002", severity="warning",
+                    f"own rule '{ident}', which wins over it, or drops it", ("id",), code="W002", severity="warning",
                     hint=f"to change '{ident}' for a class, write it under that class (same id)"))
         in_force = {id(p) for p in self.r.rules.values()} | {id(p) for rules in self.r.classes.values()
                                                                for p in rules.values()}
@@ -230,6 +237,32 @@ class _Compiler:
                 severity="warning",
                 hint=f"a rule replaces its parent's whole: restate every grade you keep "
                      f"(up to {self.grades[before]}), or give the new limit another id to add to the parent's"))
+
+    def _check_declared(self, name: str, placed: Placed) -> None:
+        """`measures:` declares measures the engine does not know. Declaring `water: {unit: '%'}` does
+        not make water read in %: its limits stay in ppm (0.05 would be 0.05 ppm), so it is an error."""
+        if name not in MEASURES:
+            return
+        key = unit_key(name)
+        family = UNIT_FAMILY.get(key)
+        self.problems.append(placed.problem(
+            f"'{name}' is a measure the engine already knows (in {measure_unit(name) or 'its own unit'}); "
+            f"`measures:` declares only measures it does not know, so this one cannot change how {name} is read",
+            (), key=True, code="C019",
+            hint=(f"to write {name} limits in {' or '.join(u for u in FACTORS[family] if u != measure_unit(name))}, "
+                  f"say so under `units:` ({key}: ...), and remove it from `measures:`" if family else
+                  f"remove it from `measures:`; its limits are written in {measure_unit(name) or 'its own unit'}")))
+
+    def _check_field(self, name: str, placed: Placed) -> None:
+        """A field is text; a measure is a number, read and compared as one. `fields: [water]` with
+        `{field: water, in: [0]}` compared '0' with the reading's text and never matched."""
+        if name not in MEASURES and name not in self.r.measures:
+            return
+        self.problems.append(placed.problem(
+            f"'{name}' is a measure (a number), so it cannot be listed under `fields:`, which are text columns "
+            f"compared as text", (), code="C019",
+            hint=f"test it as a measure: {{measure: {name}, below: x}}, {{measure: {name}, between: [lo, hi]}} or "
+                 f"{{measure: {name}, missing: true}}"))
 
     def _check_declared_unit(self, placed: Placed, measure: str) -> None:
         """A limit on a declared measure is written in the unit its own file (or that file's parents)
@@ -385,9 +418,12 @@ class _Compiler:
             return ConditionRule(data["id"], when, level, data["message"].strip(), self._source(placed), origin,
                                  _next_step(data))
         if "measure" not in data or len(ladder_keys) != 1:
+            band = {"above", "below"} <= set(ladder_keys)
             self.problems.append(placed.problem(
                 f"rule '{data['id']}' needs either `measure` with exactly one of above/below/outside "
-                f"(a ladder rule) or `when` with `grade` (a condition rule)", ("id",), code="C004"))
+                f"(a ladder rule) or `when` with `grade` (a condition rule)", ("id",), code="C004",
+                hint="for a band, write one ladder of pairs, `outside: {watch: [low, high], alert: [low, high]}`, "
+                     "or two rules, one `above` and one `below`" if band else ""))
             return None
         measure, test = data["measure"], ladder_keys[0]
         self._check_measure(placed, ("measure",), measure)
@@ -503,8 +539,11 @@ class _Compiler:
                     f"unknown field '{name}'; known fields are {', '.join(sorted(self.fields))}, or declare it "
                     f"under the top-level `fields:`", sub + ("field",),
                     hint=f"did you mean '{close[0]}'?" if close else "", code="C009"))
+            at = [sub + ("in", i) for i in range(len(data["in"]))] if tests[0] == "in" else [sub + ("equals",)]
             values = data["in"] if tests[0] == "in" else [data["equals"]]
-            values = [_as_text(v) for v in values]
+            # a field is text: `equals: 1.50` is compared as "1.50", as written, not as the float's "1.5"
+            values = [placed.doc.written.get(placed.path + path, _as_text(v)) if isinstance(v, float) else _as_text(v)
+                      for v, path in zip(values, at)]
             if name == "base_stock":
                 values = [self._base_stock(placed, sub + (tests[0],), v) for v in values]
             elif name == "method":
@@ -529,7 +568,16 @@ class _Compiler:
             for i, measure in enumerate(spec["measures"]):
                 self._check_measure(placed, ("cap", "measures", i), measure)
             unless = self._condition(placed, ("cap", "unless"), spec["unless"]) if "unless" in spec else None
-            level = self._level(placed, ("cap", "grade"), spec["grade"])
+            if spec["grade"] == self.grades[0]:
+                self.problems.append(placed.problem(
+                    f"a cap at '{spec['grade']}', the lowest grade, would hide every finding on "
+                    f"{', '.join(spec['measures'])} for these samples: a finding must keep a grade above the lowest",
+                    ("cap", "grade"), code="C002",
+                    hint=f"cap at '{self.grades[1]}' (the finding stays visible at the first grade), or drop the rules "
+                         f"on those measures where they do not apply"))
+                level = None
+            else:
+                level = self._level(placed, ("cap", "grade"), spec["grade"])
             cap = Cap(frozenset(spec["measures"]), level, unless)
         return Caveat(data["id"], when, cap, data["message"].strip(), (data.get("source") or "").strip(),
                       self._origin(placed), _next_step(data))
@@ -538,9 +586,10 @@ class _Compiler:
         data = placed.data
         grade = data["expect"].get("grade")
         if grade is not None and grade not in self.grades and grade != "unrated":
+            close = difflib.get_close_matches(grade.strip().lower(), [*self.grades, "unrated"], n=1)
             self.problems.append(placed.problem(
                 f"expected grade '{grade}' is not on the grade ladder [{', '.join(self.grades)}] nor 'unrated'",
-                ("expect", "grade"), code="C010"))
+                ("expect", "grade"), code="C010", hint=f"did you mean '{close[0]}'?" if close else ""))
         self._check_example_ids(placed)
         return Example(data["name"], dict(data["sample"]), dict(data["expect"]), self._origin(placed))
 
@@ -553,7 +602,9 @@ class _Compiler:
         for ident, rule in {**self.r.rules, **self.r.classes[class_name]}.items():
             # an `iso4406` rule compiles to one rule per size: `<id>-4um`, `<id>-6um`, `<id>-14um`
             rules |= {f"{ident}-{size}" for size in ISO4406_SIZES} if "iso4406" in rule.data else {ident}
-        known = {"fires": rules, "quiet": rules, "caveats": set(self.r.caveats)}
+        # `caveats` may name one the engine raises itself (unknown-lubricant, ...), which this stage
+        # cannot know: running the example checks those ids (sumpwise.authoring.examples)
+        known = {"fires": rules, "quiet": rules}
         for key, ids in known.items():
             for i, ident in enumerate(placed.data["expect"].get(key, [])):
                 if ident in ids:
@@ -664,10 +715,11 @@ def canonical_document(ruleset: RuleSet, measure_specs: dict) -> dict:
         "units": {key: FACTORS_CANONICAL[family] for key, family in sorted(UNIT_FAMILY.items())},
         "lubricants": {code: _lubricant_doc(lub, Path(ruleset.files[-1]).resolve().parent)
                        for code, lub in ruleset.lubricants.items()},
-        "classes": {name: {"rules": [rule_doc(r, ruleset.grades) for r in rules]}
+        "classes": {name: {"rules": [rule_doc(r, ruleset.grades) for r in rules],
+                           **({"drop": list(ruleset.class_drops[name])} if name in ruleset.class_drops else {})}
                     for name, rules in ruleset.classes.items()},
         "rules": [rule_doc(r, ruleset.grades) for r in ruleset.rules],
-        "caveats": [_caveat_doc(c, ruleset.grades) for c in ruleset.caveats],
+        "caveats": [caveat_doc(c, ruleset.grades) for c in ruleset.caveats],
     }
     if measure_specs:
         doc["measures"] = {name: dict(spec) for name, spec in sorted(measure_specs.items())}
@@ -695,7 +747,7 @@ def _lubricant_doc(lub: Lubricant, top_folder: Path) -> dict:
     return doc
 
 
-def _caveat_doc(caveat: Caveat, grades: tuple) -> dict:
+def caveat_doc(caveat: Caveat, grades: tuple) -> dict:
     doc = {"id": caveat.id, "when": condition_doc(caveat.when)}
     if caveat.cap is not None:
         cap = {"measures": sorted(caveat.cap.measures), "grade": grades[caveat.cap.level]}

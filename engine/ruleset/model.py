@@ -209,6 +209,8 @@ class RuleSet:
     examples: tuple = ()
     # measure -> the step (canonical unit) a trend must exceed to count as a rise (`noise_margins:`)
     noise_margins: dict = field(default_factory=dict)
+    # class name -> ids of top-level rules the class drops (`drop:` under the class)
+    class_drops: dict = field(default_factory=dict)
     # Where each class was last declared, and each file's `units:`: marks for lint messages.
     class_origins: dict = field(default_factory=dict, compare=False, repr=False)
     file_units: dict = field(default_factory=dict, compare=False, repr=False)
@@ -224,9 +226,9 @@ class RuleSet:
         return self.grades.index(grade)
 
     def rules_for(self, class_name: str) -> tuple:
-        """A class's rules: its own, then the top-level ones it does not override by id."""
+        """A class's rules: its own, then the top-level ones it does not override or drop by id."""
         own = self.classes.get(class_name, ())
-        taken = {rule.id for rule in own}
+        taken = {rule.id for rule in own} | set(self.class_drops.get(class_name, ()))
         return own + tuple(rule for rule in self.rules if rule.id not in taken)
 
 

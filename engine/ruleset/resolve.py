@@ -12,11 +12,15 @@ import os
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
+from sumpwise.vocabulary.measures import INPUT_MEASURES, KNOWN_FIELDS, UNIT_FAMILY, unit_key
 from sumpwise.vocabulary.problems import InvalidFile, Problem
-from sumpwise.ruleset.schema import schema_findings
+from sumpwise.ruleset.schema import piece_of, schema_findings
 from sumpwise.ruleset.yaml_source import YamlDocument, load_yaml
 
 DEFAULT_GRADES = ("normal", "watch", "alert", "urgent")
+# Files in one `extends` chain, the top one included: a site file over a few shipped ones is
+# 2 or 3 deep; a chain of a thousand files would end in a RecursionError, not a problem.
+MAX_EXTENDS_DEPTH = 32
 
 
 @dataclass(frozen=True)
@@ -58,6 +62,7 @@ class Resolved:
     examples: list = field(default_factory=list)
     files: list = field(default_factory=list)
     class_places: dict = field(default_factory=dict)  # class name -> where it was last declared
+    class_drops: dict = field(default_factory=dict)  # class name -> ids of top-level rules it drops
     # A file of the chain could not be read, or pieces were left out for schema errors: checks
     # that need the whole chain (drop, a class's base) would only report what that hides.
     incomplete: bool = False
@@ -98,6 +103,50 @@ def _sanitized(doc: YamlDocument, spoiled: set) -> YamlDocument:
     return replace(doc, data=data)
 
 
+def _unit_readers(data: dict, spoiled: set) -> set:
+    """The pieces whose limits are written in a unit the file's `units:` failed to give: without it
+    their numbers cannot be read (0.05 under `water: percent` is not 0.05 ppm), so they are left
+    out of the later checks with the unit's error, not checked, and warned about, in the wrong unit."""
+    if ("units",) in spoiled:
+        lost = set(UNIT_FAMILY)
+    else:
+        lost = {piece[1] for piece in spoiled if piece[0] == "units" and len(piece) == 2}
+    if not lost:
+        return set()
+    pieces = set()
+    classes = data.get("classes") if isinstance(data.get("classes"), dict) else {}
+    for name, spec in classes.items():
+        rules = spec.get("rules") if isinstance(spec, dict) else None
+        for i, rule in enumerate(rules if isinstance(rules, list) else []):
+            if _reads(rule) & lost:
+                pieces.add(("classes", name, "rules", i))
+    for key in ("rules", "caveats"):
+        items = data.get(key) if isinstance(data.get(key), list) else []
+        pieces |= {(key, i) for i, item in enumerate(items) if _reads(item) & lost}
+    for key in ("lubricants", "noise_margins"):
+        entries = data.get(key) if isinstance(data.get(key), dict) else {}
+        pieces |= {(key, name) for name, entry in entries.items()
+                   if (set(entry) if key == "lubricants" and isinstance(entry, dict) else {unit_key(name)}) & lost}
+    return pieces
+
+
+def _reads(item) -> set:
+    """The `units:` keys of every measure a rule or caveat names, at any depth, as written."""
+    found = set()
+    if isinstance(item, dict):
+        for key, value in item.items():
+            if key == "measure" and isinstance(value, str):
+                found.add(unit_key(value))
+            elif key == "measures" and isinstance(value, list):
+                found |= {unit_key(m) for m in value if isinstance(m, str)}
+            else:
+                found |= _reads(value)
+    elif isinstance(item, list):
+        for value in item:
+            found |= _reads(value)
+    return found
+
+
 def _hidden(doc: YamlDocument, at: tuple, target: str, why: str) -> Problem:
     return doc.problem(at, f"'{target}' {why}, so nothing in it was checked, and problems in this file that "
                            f"depend on it (a dropped rule, a class it gives) are not reported",
@@ -110,15 +159,25 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
     if key in cache:
         return cache[key]
     try:
-        doc = load_yaml(path)
+        doc = load_yaml(path, keep_going=True)
     except InvalidFile as exc:
         problems.extend(exc.problems)
         return None
+    problems.extend(doc.problems)
     if not isinstance(doc.data, dict):
         problems.append(doc.problem((), "a rule set must be a mapping with at least `ruleset` and `version`", code="R001"))
         return None
+    columns = set(doc.data) & (set(INPUT_MEASURES) | set(KNOWN_FIELDS))
+    if "ruleset" not in doc.data and len(columns) * 2 >= len(doc.data):
+        problems.append(doc.problem((), f"this is not a rule set: its keys are sample columns "
+                                        f"({', '.join(sorted(columns)[:4])}, ...), as in a column map",
+                                    code="R001", hint="give the column map with --columns and the rule set with --rules"))
+        return None
     own_problems, spoiled = schema_findings(doc)
     problems.extend(own_problems)
+    # a value the YAML problems are about (a key given twice, 0x10, .inf) leaves its piece out too
+    spoiled |= {piece_of(path) for path in doc.spoiled} - {()}
+    spoiled |= _unit_readers(doc.data, spoiled)
     doc_clean = _sanitized(doc, spoiled)
     skipped = {piece for piece in spoiled if piece[0] in ("rules", "caveats", "examples", "fields")
                or (piece[0] == "classes" and len(piece) == 4)}
@@ -133,13 +192,22 @@ def _resolve(path: Path, stack: tuple, cache: dict, problems: list[Problem]) -> 
             problems.append(doc.problem(at, f"extends names '{target[:80]}', which cannot be a file name: "
                                             f"{getattr(exc, 'strerror', None) or exc}", code="R003"))
             continue
+        if len(stack) + 2 > MAX_EXTENDS_DEPTH:
+            problems.append(doc.problem(at, f"extends goes more than {MAX_EXTENDS_DEPTH} files deep here "
+                                            f"(a file extends one that extends another, and so on)", code="R010",
+                                        hint="extend fewer files in a row: merge the middle ones"))
+            merged.incomplete = True
+            continue
         if parent_path.resolve() in stack + (key,):
             chain = " -> ".join(str(p) for p in stack + (key, parent_path.resolve()))
             problems.append(doc.problem(at, f"extends makes a cycle: {chain}", code="R002"))
             continue
         if not parent_path.is_file():
+            near = [str(parent_path) + ext for ext in (".yaml", ".yml") if Path(str(parent_path) + ext).is_file()]
             problems.append(doc.problem(at, f"extends names '{target}', but there is no file {parent_path}", code="R003",
-                                        hint="the rules that file would give were not checked"))
+                                        hint=f"did you mean '{target}{near[0][len(str(parent_path)):]}'? (the rules "
+                                             f"that file would give were not checked)" if near else
+                                        "the rules that file would give were not checked"))
             merged.incomplete = True
             continue
         parent = _resolve(parent_path, stack + (key,), cache, problems)
@@ -173,6 +241,8 @@ def _overlay(merged: Resolved, parent: Resolved, problems: list[Problem]) -> Non
         target = merged.classes.setdefault(name, {})
         target.update(rules)
     merged.class_places.update(parent.class_places)
+    for name, ids in parent.class_drops.items():
+        merged.class_drops.setdefault(name, set()).update(ids)
     merged.rules.update(parent.rules)
     merged.caveats.update(parent.caveats)
     merged.replaced.extend(pair for pair in parent.replaced if not any(pair[0] is p[0] for p in merged.replaced))
@@ -291,13 +361,19 @@ class _ClassBuilder:
         self.merged.class_places[name] = Placed(spec, doc, ("classes", name))
         target = {**start, **self.merged.classes.get(name, {})}
         for i, dropped in enumerate(spec.get("drop", [])):
+            top = dropped in self.merged.rules or any(
+                isinstance(rule, dict) and rule.get("id") == dropped for rule in self.doc.data.get("rules", []))
+            if top:  # a top-level rule: this class no longer takes it
+                self.merged.class_drops.setdefault(name, set()).add(dropped)
             if dropped in target:
                 del target[dropped]
-            elif not self.merged.incomplete:
+            elif not top and not self.merged.incomplete:
                 gives = f"class '{spec['extends']}' or " if "extends" in spec else ""
-                self.problems.append(doc.problem(("classes", name, "drop", i),
-                                                 f"drop names rule '{dropped}', but neither {gives}an extended rule "
-                                                 f"set gives class '{name}' a rule with that id", code="R006"))
+                close = difflib.get_close_matches(dropped, sorted(target), n=1)
+                self.problems.append(doc.problem(
+                    ("classes", name, "drop", i), f"drop names rule '{dropped}', but neither {gives}an extended rule "
+                    f"set gives class '{name}' a rule with that id, nor is it a top-level rule", code="R006",
+                    hint=f"did you mean '{close[0]}'?" if close else ""))
         own = _by_id(spec.get("rules", []), doc, ("classes", name, "rules"), self.problems, "rule", self.skipped)
         self.merged.replaced.extend((rule, target[ident]) for ident, rule in own.items() if ident in target)
         target.update(own)

@@ -8,13 +8,14 @@ from __future__ import annotations
 
 import difflib
 import json
+import re
 from functools import lru_cache
 from importlib import resources
 
 import jsonschema
 
 from sumpwise.vocabulary.problems import Problem
-from sumpwise.ruleset.yaml_source import YamlDocument
+from sumpwise.ruleset.yaml_source import COMMA_SPLIT, YamlDocument
 
 
 @lru_cache(maxsize=1)
@@ -35,13 +36,17 @@ def schema_findings(doc: YamlDocument) -> tuple[list[Problem], set]:
     """Every schema violation, and the pieces of the document they spoil.
 
     A spoiled piece (a rule, a caveat, a lubricant, a class, a top-level key) is left out
-    of the later checks, so the rest of the file is still checked in the same run.
+    of the later checks, so the rest of the file is still checked in the same run. A value
+    the YAML reading already reported (doc.spoiled: `-.inf`, `0x10`) is not reported again.
     """
     problems: list[Problem] = []
     spoiled: set = set()
     for error in _validator().iter_errors(doc.data):
-        problems.extend(_explain(doc, error))
         path = tuple(error.absolute_path)
+        if any(bad and path[:len(bad)] == bad for bad in doc.spoiled):
+            spoiled.add(piece_of(path))
+            continue
+        problems.extend(_explain(doc, error))
         if error.validator == "additionalProperties" and isinstance(error.instance, dict):
             allowed = (error.schema or {}).get("properties", {}) if isinstance(error.schema, dict) else {}
             spoiled.update(piece_of(path + (key,)) for key in error.instance if key not in allowed)
@@ -64,6 +69,40 @@ def piece_of(path: tuple) -> tuple:
     if path[0] in _KEYED + _LISTED and len(path) >= 2:
         return path[:2]
     return path[:1]
+
+
+_WRITTEN_NUMBER = re.compile(r"\s*([-+]?(?:\d[\d_]*(?:\.\d*)?|\.\d+))([eE][-+]?\d+)?\s*(.*)")
+
+
+def _number_hint(value, expected) -> str:
+    """Why text that reads as a number to people is text to YAML: `1e3` (YAML 1.1 wants a dot in
+    a float), `5%` or `500 ppm` (a unit beside the number)."""
+    types = [expected] if isinstance(expected, str) else list(expected)
+    if not isinstance(value, str) or "number" not in types:
+        return ""
+    found = _WRITTEN_NUMBER.fullmatch(value)
+    if not found:
+        return ""
+    number, exponent, unit = found.groups()
+    if re.fullmatch(r",\d+", unit) and not exponent:
+        thousands = len(unit) == 4 and number.lstrip("+-")[:1] not in ("0", "")
+        return (f"YAML numbers take a decimal point and no separators: write {number}.{unit[1:]} for a decimal "
+                f"comma" + (f", {number}{unit[1:]} for a thousands separator" if thousands else ""))
+    if unit:
+        return (f"write the number alone ({number}); a limit is in its measure's unit, or in the unit this "
+                f"file's `units:` gives (water: ppm or %, FTIR: abs/cm or abs/0.1mm)")
+    if exponent:
+        dotted = number if "." in number else f"{number}.0"
+        signed = exponent if exponent[1] in "+-" else f"{exponent[0]}+{exponent[1:]}"
+        return (f"YAML reads {value.strip()} as text: a number with an exponent needs a dot and a signed "
+                f"exponent (write {dotted}{signed}, or {float(value.replace('_', '')):g})")
+    return ""
+
+
+# Spellings of the units the rule-set language knows (water content by mass: ASTM D6304 reports
+# mg/kg; percent by mass); the language keeps one spelling of each.
+_SAME_UNIT = {"mg/kg": "ppm", "ppmw": "ppm", "ppm w/w": "ppm", "% w/w": "%", "wt%": "%", "mass %": "%",
+              "percent": "%"}
 
 
 def _kind(value) -> str:
@@ -113,14 +152,21 @@ def _explain(doc: YamlDocument, error: jsonschema.ValidationError) -> list[Probl
                                    key=True, hint=hint, code="S001"))
         return out
     if kind == "required":
-        missing = [k for k in error.validator_value if k not in value]
+        # one error per missing key, and its message names it: "'source' is a required property"
+        missing = [k for k in error.validator_value if k not in value and repr(k) in error.message] or \
+            [k for k in error.validator_value if k not in value][:1]
         return [doc.problem(path, f"this mapping needs the key '{k}'", code="S002") for k in missing]
     if kind == "type":
+        hint = _number_hint(value, error.validator_value)
+        if value is None and path and str(path[-1]).isdigit():
+            hint = COMMA_SPLIT  # `{watch: 0,2}` is {watch: 0, 2: null}
         return [doc.problem(path, f"expected {_expected_types(error.validator_value)} here, found {_kind(value)} "
-                                  f"{_shown(value)}", code="S003")]
+                                  f"{_shown(value)}", code="S003", hint=hint)]
     if kind == "enum":
         options = ", ".join(str(v) for v in error.validator_value)
-        return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}", code="S004")]
+        same = _SAME_UNIT.get(str(value).strip().lower()) if path[:1] == ("units",) else None
+        return [doc.problem(path, f"expected one of: {options}; found {_shown(value)}", code="S004",
+                            hint=f"{value} is {same}: write {same!r}" if same in error.validator_value else "")]
     if kind == "pattern":
         if "+" in error.validator_value:
             what = "a base stock name such as mineral, pao, ester or mineral+ester"

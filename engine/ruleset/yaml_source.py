@@ -51,6 +51,14 @@ class YamlDocument:
     data: object
     value_marks: dict = field(repr=False)
     key_marks: dict = field(repr=False)
+    # With keep_going: problems found in values the document still holds (a key given twice keeps
+    # its first value, a number YAML 1.1 reads otherwise its YAML 1.1 value), and the paths of
+    # those values, so a reader can leave out what they spoil and check the rest in the same run.
+    problems: tuple = field(default=(), repr=False)
+    spoiled: frozenset = field(default=frozenset(), repr=False)
+    # path -> the text of a plain decimal fraction as written (`1.50`, which the value reads as 1.5),
+    # for a value compared as text (a field condition), so it is compared as the author wrote it
+    written: dict = field(default_factory=dict, repr=False)
 
     def mark(self, path: tuple, key: bool = False) -> Mark:
         """The mark of `path`, or of its nearest ancestor that has one."""
@@ -141,6 +149,12 @@ class _Builder:
         self.value_marks: dict = {}
         self.key_marks: dict = {}
         self.problems: list[Problem] = []
+        self.spoiled: set = set()  # paths of the values the problems are about
+        self.written: dict = {}  # path -> a plain float's text as written
+
+    def _report(self, problem: Problem, path: tuple) -> None:
+        self.problems.append(problem)
+        self.spoiled.add(path)
 
     def build(self, node: yaml.Node, path: tuple):
         self.value_marks[path] = _mark(node)
@@ -154,10 +168,14 @@ class _Builder:
         value = self._scalar(node, path)
         if isinstance(value, (dt.date, dt.datetime)):
             return value.isoformat()
+        if isinstance(value, float) and not node.style:
+            self.written[path] = node.value
         return value
 
-    def _scalar(self, node: yaml.Node, path: tuple):
+    def _scalar(self, node: yaml.Node, path: tuple, key: bool = False):
         """Construct one scalar, refusing what would mislead later: non-finite numbers, unprintable text."""
+        if node.tag == "tag:yaml.org,2002:value":  # YAML 1.1 reads a plain `=` as a "default value" marker
+            return node.value
         try:
             value = self.loader.construct_object(node, deep=True)
         except (ValueError, OverflowError) as exc:  # e.g. an integer of more digits than Python converts
@@ -171,53 +189,110 @@ class _Builder:
             return node.value  # YAML 1.1's yes/no/on/off are text here, as YAML 1.2 and people read them
         if plain and isinstance(value, (int, float)) and not isinstance(value, bool) \
                 and (isinstance(value, int) or math.isfinite(value)) and not _DECIMAL.fullmatch(node.value):
-            self.problems.append(Problem(
+            self._report(Problem(
                 self.file, mark.line, mark.column,
                 f"the number {_short(node.value)} is not written in plain decimal: YAML 1.1 reads it as {value!r} "
                 f"(a leading 0 makes it octal, 0x hexadecimal, a colon base 60)", json_path(path), code="Y012",
-                hint="write the number in decimal without leading zeros (200, 0.05), or quote it if it is text"))
+                hint=COMMA_SPLIT if key else
+                "write the number in decimal without leading zeros (200, 0.05), or quote it if it is text"), path)
         if isinstance(value, float) and not math.isfinite(value):
-            self.problems.append(Problem(self.file, mark.line, mark.column,
-                                         f"a number must be finite, found {node.value!r}", json_path(path),
-                                         code="Y007"))
+            self._report(Problem(self.file, mark.line, mark.column,
+                                 f"a number must be finite, found {node.value!r}", json_path(path), code="Y007"), path)
         elif isinstance(value, int) and not isinstance(value, bool) and abs(value) > _LARGEST_INT:
-            self.problems.append(Problem(self.file, mark.line, mark.column,
-                                         f"the number {_short(node.value)} is too large for a float",
-                                         json_path(path), code="Y007"))
+            self._report(Problem(self.file, mark.line, mark.column,
+                                 f"the number {_short(node.value)} is too large for a float", json_path(path),
+                                 code="Y007"), path)
         elif isinstance(value, str) and _UNPRINTABLE.search(value):
-            self.problems.append(_unprintable(self.file, mark, value, json_path(path)))
+            self._report(_unprintable(self.file, mark, value, json_path(path)), path)
         return value
 
     def _mapping(self, node: yaml.MappingNode, path: tuple) -> dict:
-        self.loader.flatten_mapping(node)
         result: dict = {}
-        first_seen: dict = {}
-        for key_node, value_node in node.value:
-            key = self._scalar(key_node, path) if isinstance(key_node, yaml.ScalarNode) else None
-            if not isinstance(key, (str, int, float, bool)) or key is None:
-                mark = _mark(key_node)
-                self.problems.append(Problem(self.file, mark.line, mark.column,
-                                             "a mapping key must be a plain scalar", json_path(path), code="Y003"))
-                continue
-            key = str(key) if not isinstance(key, str) else key
-            if key in first_seen:
-                mark = _mark(key_node)
-                self.problems.append(Problem(
-                    self.file, mark.line, mark.column,
-                    f"key '{key}' is given twice in this mapping, at lines "
-                    f"{first_seen[key].line} and {mark.line}; keep one",
-                    json_path(path + (key,)), code="Y004"))
-                continue
-            first_seen[key] = _mark(key_node)
+        for key, key_node, value_node in self._entries(node, path):
             self.key_marks[path + (key,)] = _mark(key_node)
             result[key] = self.build(value_node, path + (key,))
         return result
 
+    def _entries(self, node: yaml.MappingNode, path: tuple) -> list:
+        """(key, key node, value node) of a mapping, merge keys resolved as YAML's `<<` defines them.
 
+        A key written in the mapping wins over a merged one and, of the mappings merged, the first
+        listed wins: `above: {<<: *base, alert: 20}` is the base ladder with another alert limit,
+        not a key given twice. A key written twice in the mapping itself is a problem naming both
+        lines, since a plain loader would silently keep the last.
+        """
+        merged: dict = {}
+        own: dict = {}
+        for key_node, value_node in node.value:
+            if key_node.tag == _MERGE:
+                sources = value_node.value if isinstance(value_node, yaml.SequenceNode) else [value_node]
+                for source in sources:
+                    if not isinstance(source, yaml.MappingNode):
+                        raise yaml.constructor.ConstructorError(
+                            None, None, "a merge key `<<` takes a mapping or a list of mappings", source.start_mark)
+                    for key, merged_key, merged_value in self._entries(source, path):
+                        merged.setdefault(key, (merged_key, merged_value))
+                continue
+            key = self._scalar(key_node, path, key=True) if isinstance(key_node, yaml.ScalarNode) else None
+            if not isinstance(key, (str, int, float, bool)) or key is None:
+                mark = _mark(key_node)
+                self._report(Problem(self.file, mark.line, mark.column,
+                                     "a mapping key must be a plain scalar", json_path(path), code="Y003"), path)
+                continue
+            key = str(key) if not isinstance(key, str) else key
+            if key in own:
+                first, mark = _mark(own[key][0]), _mark(key_node)
+                self._report(Problem(
+                    self.file, mark.line, mark.column,
+                    f"key '{key}' is given twice in this mapping, at lines {first.line} and {mark.line}; keep one",
+                    json_path(path + (key,)), code="Y004"), path + (key,))
+                continue
+            own[key] = (key_node, value_node)
+        return [(key, key_node, value_node) for key, (key_node, value_node) in {**merged, **own}.items()]
+
+
+_MERGE = "tag:yaml.org,2002:merge"
+# `{watch: 1,000}` and `{watch: 0,2}`: inside braces a comma separates entries, so the digits after
+# it become a key of their own (sumpwise.ruleset.schema says the same of such a key's empty value)
+COMMA_SPLIT = ("inside {...} a comma separates entries, so a thousands separator (1,000) or a decimal "
+                "comma (0,2) splits the number: write 1000 or 0.2")
 _LARGEST_INT = int(1.7976931348623157e308)  # the largest finite float, as an integer
 # A number as people write it: no leading zeros (0200 is octal 128 to YAML 1.1), no base prefix
 # (0x, 0b), no base-60 colons (1:30 is 90); underscores as digit separators are read as written.
 _DECIMAL = re.compile(r"[-+]?(?:(?:0|[1-9][0-9_]*)(?:\.[0-9_]*)?|\.[0-9_]+)(?:[eE][-+]?[0-9]+)?")
+
+
+def _yaml_hint(text: str, mark, reason: str) -> str:
+    """What a site lead most likely did, for the YAML errors people meet."""
+    if "another document" in reason:
+        return ("a rule set is one YAML document: remove the `---` line, or put the second part in a file "
+                "of its own and name it under `extends`")
+    lines = text.split("\n")
+    line = lines[mark.line] if mark is not None and mark.line < len(lines) else ""
+    if "tab character" in reason or "\t" in line[:len(line) - len(line.lstrip())]:
+        return "indent with spaces: YAML does not allow tabs for indentation"
+    at = line[mark.column:mark.column + 1] if mark is not None else ""
+    if at in ("%", "@", "`"):
+        example = "{water: '%'}" if at == "%" else f"'{at}...'"
+        return f"a value that starts with {at} must be quoted in YAML, e.g. {example}"
+    return _indicator_hint(text, mark)
+
+
+def _indicator_hint(text: str, mark) -> str:
+    """A plain value that starts with `*` or `&` is an alias or an anchor to YAML: an ISO 4406 code
+    written `*/16/13` (a size not reported) fails to load with a message about alias names."""
+    if mark is None:
+        return ""
+    lines = text.split("\n")
+    if mark.line >= len(lines):
+        return ""
+    before = lines[mark.line][:mark.column + 1]
+    found = re.search(r"(?:^|[\s\[{,:])([*&])[^\s,\]}]*$", before)
+    if not found:
+        return ""
+    what = "an alias" if found.group(1) == "*" else "an anchor"
+    return (f"a value that starts with '{found.group(1)}' is {what} to YAML: quote it, "
+            f"e.g. {{watch: '*/16/13'}} for an ISO 4406 code with a size not reported")
 
 
 def _short(text: str) -> str:
@@ -247,8 +322,13 @@ def _text_problem(text: str, file: str) -> Problem | None:
     return None
 
 
-def parse_yaml(text: str, file: str) -> YamlDocument:
-    """Parse one YAML document safely and within the limits; raise InvalidFile listing the problems."""
+def parse_yaml(text: str, file: str, keep_going: bool = False) -> YamlDocument:
+    """Parse one YAML document safely and within the limits; raise InvalidFile listing the problems.
+
+    With `keep_going`, problems in single values (a key given twice, a number that is not plain
+    decimal or not finite) come back on the document instead, beside the paths they spoil; what
+    stops the parse (not YAML, a limit crossed, a tag) is raised either way.
+    """
     problem = _text_problem(text, file)
     if problem is not None:
         raise InvalidFile([problem])
@@ -265,7 +345,8 @@ def parse_yaml(text: str, file: str) -> YamlDocument:
             mark = exc.problem_mark or exc.context_mark
             line, column = (mark.line + 1, mark.column + 1) if mark else (0, 0)
             reason = exc.problem or exc.context or "not valid YAML"
-            raise InvalidFile([Problem(file, line, column, f"not valid YAML: {reason}", code="Y001")]) from None
+            raise InvalidFile([Problem(file, line, column, f"not valid YAML: {reason}", code="Y001",
+                                       hint=_yaml_hint(text, mark, reason))]) from None
         except yaml.YAMLError as exc:
             raise InvalidFile([Problem(file, 0, 0, f"not valid YAML: {exc}", code="Y001")]) from None
         if root is None:
@@ -280,12 +361,15 @@ def parse_yaml(text: str, file: str) -> YamlDocument:
     finally:
         if loader is not None:
             loader.dispose()
-    if builder.problems:
-        raise InvalidFile(builder.problems)
-    return YamlDocument(file, data, builder.value_marks, builder.key_marks)
+    # a mapping merged in more than one place is read again at each: report its problems once
+    problems = tuple({(p.line, p.column, p.code): p for p in builder.problems}.values())
+    if problems and not keep_going:
+        raise InvalidFile(list(problems))
+    return YamlDocument(file, data, builder.value_marks, builder.key_marks, problems, frozenset(builder.spoiled),
+                        builder.written)
 
 
-def load_yaml(path: Path) -> YamlDocument:
+def load_yaml(path: Path, keep_going: bool = False) -> YamlDocument:
     """Read and parse a YAML file; an unreadable, oversized or non-UTF-8 file is a problem, not a traceback."""
     try:
         with open(path, "rb") as handle:
@@ -303,4 +387,4 @@ def load_yaml(path: Path) -> YamlDocument:
         raise InvalidFile([Problem(str(path), line, column,
                                    f"the byte 0x{raw[exc.start]:02X} is not UTF-8 (save the file as UTF-8)",
                                    code="Y011")]) from None
-    return parse_yaml(text, str(path))
+    return parse_yaml(text, str(path), keep_going)
