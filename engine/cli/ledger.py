@@ -16,7 +16,7 @@ from sumpwise.cli.options import iso_date, refuse_overwriting
 from sumpwise.ledger.audit import (explain_from_ledger, find_samples, ledger_rulesets, recorded_rejects, replay,
                                    replay_lines, stored_ruleset, stored_ruleset_text, unit_forecasts, unit_history,
                                    write_history)
-from sumpwise.ledger.store import DEFAULT_PATH, Correction, grade_into_ledger
+from sumpwise.ledger.store import DEFAULT_PATH, Correction, SchemaMismatch, grade_into_ledger
 from sumpwise.render.safe_text import spreadsheet_frame, terminal_lines
 from sumpwise.results.pipeline import grade_batch
 from sumpwise.ruleset.compiler import load_ruleset
@@ -121,6 +121,9 @@ def grade(args, batch, ruleset, stderr):
     where = f"batch {recorded.batch}" if recorded.batch is not None else "nothing new"
     stderr.write(f"sumpwise: ledger {args.db}: {where}: {recorded.new} new sample(s), {recorded.known} already "
                  f"recorded, {recorded.corrections} correction(s)\n")
+    if recorded.head:
+        stderr.write(f"sumpwise: ledger {args.db}: head {recorded.head} (keep it elsewhere: `sumpwise replay --head "
+                     f"{recorded.head}` shows the batches up to it removed or rewritten)\n")
     if recorded.conflicts:
         stderr.write(f"sumpwise: ledger {args.db}: {recorded.conflicts} row(s) rejected: their sample id is already "
                      f"recorded with other values (the rejects name the batch; if the new values are right, grade "
@@ -173,7 +176,13 @@ def run_history(args, stdout, stderr) -> int:
 def run_replay(args, stdout, stderr) -> int:
     """Exit 3 on any integrity finding or re-grade the recording engine does not reproduce; engine
     changes (an older engine recorded otherwise) are listed and fail only with --strict."""
-    report = replay(args.db, args.since, args.head)
+    try:
+        report = replay(args.db, args.since, args.head)
+    except SchemaMismatch as exc:  # the header rewritten: a finding about the file, as the chain's are
+        stdout.write("\n".join(terminal_lines([f"integrity: ledger: {exc}", "integrity: 1 finding(s): the ledger "
+                                                "cannot be replayed until its header says what its tables are"]))
+                     + "\n")
+        return FINDINGS
     stdout.write("\n".join(terminal_lines(replay_lines(report, args.strict))) + "\n")
     if report.differences or report.engine_changes:
         stdout.write(caution_text("! ") + "\n")
@@ -216,11 +225,21 @@ def run_find(args, stdout, stderr) -> int:
     elif args.format == "jsonl":
         stdout.write(found.to_json(orient="records", lines=True, force_ascii=False))
     else:
-        stdout.write("\n".join(terminal_lines(found.to_string(index=False).splitlines())) + "\n" if len(found) else "")
+        shown = found if args.rejects else found.drop(columns=["correction_author", "correction_reason"])
+        shown = shown.astype(object).where(shown.notna(), "")  # a missing id or batch is blank, not NaN
+        stdout.write("\n".join(terminal_lines(shown.to_string(index=False).splitlines())) + "\n" if len(found) else "")
         stdout.write(f"{len(found)} {'rejected row' if args.rejects else 'sample'}(s)\n")
-        if not args.rejects:  # a list of grades is read by people: it carries the cautions
+        if not args.rejects:  # a list of grades is read by people: who corrected what, and the cautions
+            stdout.write("".join(line + "\n" for line in terminal_lines(_correction_notes(found))))
             stdout.write(caution_text("! ") + "\n")
     return OK
+
+
+def _correction_notes(found) -> list[str]:
+    """Under the find table: each listed correction, whose version it replaced, by whom and why."""
+    corrections = found[found["corrects_batch"].notna()]
+    return [f"{row.sample_id} (batch {row.batch}) is a correction of the version batch {row.corrects_batch} recorded, "
+            f"by {row.correction_author}: {row.correction_reason}" for row in corrections.itertuples()]
 
 
 def grade_demo(out_dir: Path, batch, ruleset):

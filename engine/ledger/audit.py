@@ -174,8 +174,8 @@ def explain_from_ledger(path, sample_id: str, other: RuleSet | None = None) -> l
     if len(versions) > 1:
         older = [v for v in versions if v is not current]
         lines.append(f"This is the current record; {len(older)} earlier version(s) were corrected: " + "; ".join(
-            f"batch {v['batch']} ({v['recorded_at']}, {v['source']}) graded {v['grade']}{_changed(v, current)}"
-            for v in older) + ".")
+            f"batch {v['batch']} ({v['recorded_at']}, {v['source']}) graded {v['grade']} (rule set {v['ruleset_id']} "
+            f"version {version_text(v['version'])}){_changed(v, current)}{_correction_of(v)}" for v in older) + ".")
     if unit is not None and len(unit):
         mine = unit.index[unit["entry"] == current["entry"]]
         upto = int(mine[0]) + 1 if len(mine) else len(unit)
@@ -199,6 +199,14 @@ def _changed(older: dict, current: dict) -> str:
     changed = [f"{name} {_shown(was.get(name))} (now {_shown(now.get(name))})"
                for name in dict.fromkeys([*was, *now]) if was.get(name) != now.get(name)]
     return ", with " + ", ".join(changed) if changed else ", with the same values"
+
+
+def _correction_of(version: dict) -> str:
+    """An earlier version that was itself a correction keeps its author and reason in the story."""
+    if version["corrects"] is None:
+        return ""
+    return (f", itself a correction by {version['author'] or '(no author recorded)'}: "
+            f"{version['reason'] or '(no reason recorded)'}")
 
 
 def _shown(value) -> str:
@@ -244,11 +252,13 @@ def unit_history(path, unit_id: str) -> pd.DataFrame:
     unit["fired"] = [";".join(f"{r['rule']}={r['grade']}" for r in shape["reasons"]) for shape in shapes]
     unit["caveats"] = [";".join(c["caveat"] for c in shape["caveats"]) for shape in shapes]
     unit["corrected"] = unit["corrects"].notna()
+    unit["correction_author"] = unit["author"].where(unit["corrected"], None)  # the batch's, for corrections only
+    unit["correction_reason"] = unit["reason"].where(unit["corrected"], None)
     unit["oil_changed"] = unit["oil_changed"].astype(bool)
     unit["ruleset"] = unit["ruleset_sha256"].map(names)  # which rule set, in which version, graded each sample
     return unit[["sample_id", "sampled_on", "oil_hours", "oil_changed", "method", "lab", "kv40", "an", "oxidation",
                  "water", *extra, "grade", "level", "fired", "caveats", "corrected", "ruleset",
-                 "unit_id"]].reset_index(drop=True)
+                 "unit_id", "batch", "correction_author", "correction_reason"]].reset_index(drop=True)
 
 
 @reads_ledger
@@ -293,6 +303,10 @@ def write_history(unit: pd.DataFrame, unit_id: str, stream, fmt: str = "table", 
             lines.append(f"  {row.sample_id}: {row.fired.replace(';', ', ')}"
                          + (f" (rule set {row.ruleset})" if several else "")
                          + (f" | caveat: {row.caveats.replace(';', ', ')}" if row.caveats else ""))
+        for row in unit[unit["corrected"]].itertuples():  # the values shown are a correction's: whose, and why
+            lines.append(f"  {row.sample_id}: a correction (batch {row.batch}) by "
+                         f"{row.correction_author or '(no author recorded)'}: "
+                         f"{row.correction_reason or '(no reason recorded)'}")
         if ruleset is not None:
             told = forecast_lines(forecasts, None, str(unit["caveats"].iloc[-1] or "").split(";"), ruleset)
             lines.extend(told or ["", "When will it cross? No forecast: no rule's next limit is forecast within the "
@@ -756,8 +770,8 @@ def replay_lines(report: ReplayReport, strict: bool = False) -> list[str]:
     lines.append(told)
     if report.last_batch is not None:
         lines.append(f"ledger head: batch {report.last_batch}, digest {report.head} (keep it elsewhere and give it "
-                     f"to a later replay as --head {report.last_batch}:DIGEST: another digest for this batch means "
-                     f"batches were removed or rewritten)")
+                     f"to a later replay as --head {report.last_batch}:{report.head}: another digest for this batch "
+                     f"means batches were removed or rewritten)")
     return lines
 
 

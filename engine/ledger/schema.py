@@ -358,3 +358,24 @@ def _step_3_data(conn: sqlite3.Connection) -> None:
 
 # (SQL, then a data step or None), in order.
 MIGRATIONS = ((STEP_1, None), (STEP_2, None), (STEP_3, _step_3_data), (STEP_4, None), (STEP_5, None))
+
+# What step n leaves in a ledger that no earlier state has (one query each, a count above 0 when
+# present), so the tables tell the schema version apart from the header's PRAGMA user_version, which
+# anyone can set. Frozen like the steps; a new step adds its mark.
+STEP_MARKS = (
+    "SELECT count(*) FROM sqlite_master WHERE type = 'table' AND name = 'rulesets'",
+    "SELECT count(*) FROM sqlite_master WHERE type = 'index' AND name = 'samples_unit'",
+    "SELECT count(*) FROM sqlite_master WHERE type = 'table' AND name = 'shapes'",
+    "SELECT count(*) FROM pragma_table_info('batches') WHERE name = 'form'",
+    "SELECT count(*) FROM pragma_table_info('samples') WHERE name = 'grade'",
+)
+
+
+def schema_step(conn: sqlite3.Connection) -> int:
+    """The schema step a ledger's tables are at: the last step whose mark, and every earlier one's, is there."""
+    step = 0
+    for query in STEP_MARKS:
+        if not conn.execute(query).fetchone()[0]:
+            break
+        step += 1
+    return step

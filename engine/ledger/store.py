@@ -40,7 +40,7 @@ from sumpwise.derive.trends import CHAIN_COLUMNS, chain_frame, read_oil_changes,
 from sumpwise.intake.samples import Reject, SampleBatch
 from sumpwise.ledger.aside import Aside
 from sumpwise.ledger.schema import (DIGEST_2_SAMPLE_COLUMNS, DIGEST_3_FILLED, DIGEST_3_QUERIES, DIGEST_3_SAMPLE_COLUMNS,
-                                    FORM_1_SAMPLE_COLUMNS, MIGRATIONS, fingerprint, shape_ids,
+                                    FORM_1_SAMPLE_COLUMNS, MIGRATIONS, fingerprint, schema_step, shape_ids,
                                     written_digest_3)
 from sumpwise.results.facts import batch_facts, record_names, same_as_stored
 from sumpwise.results.pipeline import grade_batch
@@ -69,6 +69,11 @@ class LedgerError(InputError):
     """A ledger file that cannot be used as one, or a batch the ledger refuses."""
 
 
+class SchemaMismatch(LedgerError):
+    """A ledger whose header's schema version is not the step its tables are at: changed after
+    it was written (a tamper replay reports as an integrity finding), or damaged."""
+
+
 @dataclass(frozen=True)
 class Recorded:
     """What one grade run added to the ledger."""
@@ -82,6 +87,9 @@ class Recorded:
     # Recorded samples dated after a new sample of their unit whose grade the new samples change:
     # (sample id, unit, level without them, level with them), both under this batch's rule set.
     regraded: tuple = ()
+    # The ledger's head after the run, BATCH:DIGEST (empty while it holds no batch): what
+    # `replay --head` takes, so the import's log keeps what shows a later truncation or rewrite.
+    head: str = ""
 
 
 @dataclass(frozen=True)
@@ -214,6 +222,11 @@ def _check_identity(conn: sqlite3.Connection, path: Path) -> int:
     if version > SCHEMA_VERSION:
         raise LedgerError(f"{path}: the ledger has schema version {version}, newer than this sumpwise "
                           f"understands ({SCHEMA_VERSION}); use a newer sumpwise")
+    step = schema_step(conn) if tables else 0
+    if step != version:  # migrating from the header's version would fail part way, or read what is not there
+        raise SchemaMismatch(f"{path}: the ledger's header gives schema version {version} (PRAGMA user_version) but "
+                             f"its tables are those of schema step {step}: the header was changed after the ledger "
+                             f"was written, or the file is damaged; sumpwise leaves it as it was")
     return version
 
 
@@ -719,7 +732,8 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
     fresh = ~known
     n_conflicts = int(conflicts.sum())
     if not fresh.any() and not n_conflicts and not _unrecorded_rejects(conn, batch.rejects):
-        return graded, Recorded(None, 0, int(known.sum()), 0)
+        last = conn.execute("SELECT batch, digest FROM batches ORDER BY batch DESC LIMIT 1").fetchone()
+        return graded, Recorded(None, 0, int(known.sum()), 0, head=f"{last[0]}:{last[1]}" if last else "")
 
     conn.execute("INSERT OR IGNORE INTO rulesets VALUES (?, ?, ?, ?)",
                  (ruleset.sha256, ruleset.id, json.dumps(ruleset.version), ruleset.canonical))
@@ -786,7 +800,7 @@ def _record(conn, path, batch: SampleBatch, ruleset: RuleSet, correction: Correc
                              zip(corrects[rows[fixing]].tolist(), (first + fixing).tolist()))
         conn.execute("UPDATE batches SET digest = ? WHERE batch = ?", (digest.result(), number))
     return graded, Recorded(number, n_new, int(known.sum()), n_corrections, n_conflicts, len(batch.rejects),
-                            regraded)
+                            regraded, f"{number}:{digest.result()}")
 
 
 def _unrecorded_rejects(conn: sqlite3.Connection, rejects) -> bool:
@@ -852,12 +866,12 @@ def sample_entries(conn: sqlite3.Connection, sample_id: str) -> list[dict]:
         "UNION SELECT c.corrects FROM samples c JOIN versions v ON c.entry = v.entry WHERE c.corrects IS NOT NULL) "
         f"SELECT s.entry, s.batch, s.unit_id, s.sampled_on, s.superseded_in, s.corrects, s.content, {_VERDICT}, "
         f"b.recorded_at, b.source, b.ruleset_sha256, b.engine, b.columns, b.value_names, b.reason, b.author, "
-        f"rs.canonical, s.method, {STORED_VALUES} "
+        f"rs.canonical, s.method, rs.ruleset_id, rs.version, {STORED_VALUES} "
         f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 WHERE s.entry IN versions ORDER BY s.entry",
         (sample_id,))
     names = ("entry", "batch", "unit_id", "sampled_on", "superseded_in", "corrects", "content", "grade", "level",
              "facts", "vals", "recorded_at", "source", "ruleset_sha256", "engine", "columns", "value_names", "reason",
-             "author", "canonical", "method")
+             "author", "canonical", "method", "ruleset_id", "version")
     return [dict(zip(names, row[:len(names)]), content=object_text(*row[len(names):])) for row in cursor.fetchall()]
 
 
@@ -866,13 +880,13 @@ def unit_entries(conn: sqlite3.Connection, unit_id: str) -> pd.DataFrame:
     verdicts, stored values and batch columns, in trend order (date, then oil hours)."""
     unit_spellings(conn, unit_id)
     rows = conn.execute(
-        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, "
-        f"{STORED_VALUES} {_JOINS} WHERE s.unit_id IN (SELECT value FROM temp.wanted_units) "
+        f"SELECT {', '.join('s.' + c for c in _UNIT_COLUMNS)}, {_VERDICT}, b.columns, b.ruleset_sha256, b.author, "
+        f"b.reason, {STORED_VALUES} {_JOINS} WHERE s.unit_id IN (SELECT value FROM temp.wanted_units) "
         f"AND s.superseded_in IS NULL ORDER BY s.sampled_on, s.oil_hours, s.entry").fetchall()
     at = len(_UNIT_COLUMNS) + 4
-    rows = [row[:at] + (object_text(*row[at + 2:]),) + row[at:at + 2] for row in rows]
+    rows = [row[:at] + (object_text(*row[at + 4:]),) + row[at:at + 4] for row in rows]
     return pd.DataFrame(rows, columns=list(_UNIT_COLUMNS) + ["grade", "level", "facts", "vals", "content", "columns",
-                                                             "ruleset_sha256"])
+                                                             "ruleset_sha256", "author", "reason"])
 
 
 def batch_list(conn: sqlite3.Connection) -> list[dict]:
@@ -1048,14 +1062,21 @@ def find_entries(conn: sqlite3.Connection, rule=None, grade_at_least=None, grade
         where.append("b.ruleset_sha256 LIKE ?")
         params.append(ruleset.lower() + "%")
     names = ["sample_id", "unit_id", "class", "sampled_on", "grade", "level", "facts", "ruleset_id", "version",
-             "ruleset_sha256", "batch", "superseded_in"]
+             "ruleset_sha256", "batch", "superseded_in", "corrects_batch", "correction_author", "correction_reason"]
+    # A correction names the batch of the version it replaced, and its batch's author and reason.
     rows = conn.execute(
         f"SELECT s.sample_id, s.unit_id, s.class, s.sampled_on, {_GRADE}, {_LEVEL}, sh.facts, rs.ruleset_id, rs.version, "
-        f"b.ruleset_sha256, s.batch, s.superseded_in {_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 "
+        f"b.ruleset_sha256, s.batch, s.superseded_in, old.batch, "
+        f"CASE WHEN s.corrects IS NOT NULL THEN b.author END, CASE WHEN s.corrects IS NOT NULL THEN b.reason END "
+        f"{_JOINS} JOIN rulesets rs ON rs.sha256 = b.ruleset_sha256 LEFT JOIN samples old ON old.entry = s.corrects "
         f"{'WHERE ' + ' AND '.join(where) if where else ''} ORDER BY s.sampled_on, s.unit_id, s.entry",
         params).fetchall()
     frame = pd.DataFrame(rows, columns=names)
     frame["version"] = [version_text(v) for v in frame["version"]]
+    for name in ("batch", "superseded_in", "corrects_batch"):  # batch numbers, never 5.0 (as stored if altered)
+        stored = [row[names.index(name)] for row in rows]
+        if all(isinstance(v, int) or v is None for v in stored):
+            frame[name] = pd.array(stored, dtype="Int64")
     if version is not None:
         frame = frame[frame["version"] == version].reset_index(drop=True)
     return frame

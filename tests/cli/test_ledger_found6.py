@@ -167,7 +167,8 @@ def test_history_shows_the_corrected_value_and_explain_the_reason_author_and_ear
     text = " ".join(told.out.split())
     assert f"This version is a correction by {AUTHOR}: {REASON}." in text
     assert "1 earlier version(s) were corrected: batch 3" in text and "week-2026-10-05.csv" in text
-    assert "week-2026-10-05.csv) graded watch, with water 160 (now 260)." in text  # what the correction changed
+    assert "week-2026-10-05.csv) graded watch (rule set brackwater-found6 version 2), with water 160 (now 260)." \
+        in text  # what the correction changed, and under which rule set the replaced version was graded
     assert "water = 260 ppm, above 150 ppm (the watch limit)" in text  # version 2's limit, its own rule set
     assert all(line in text for line in CAUTIONS)  # wrapped to the terminal
 
